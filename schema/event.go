@@ -1,0 +1,213 @@
+package schema
+
+import (
+	"fmt"
+	"time"
+)
+
+// Version is the version of the common service-event schema that this
+// package implements. It is recorded in every snapshot manifest.
+const Version = "1"
+
+// EventType is what happened to a case at an instant.
+type EventType string
+
+// The event types of schema v1, in the order a case usually passes them.
+const (
+	Arrival   EventType = "arrival"   // the case entered the system
+	Enqueue   EventType = "enqueue"   // the case joined a queue
+	Start     EventType = "start"     // service began
+	Complete  EventType = "complete"  // service ended
+	Abandon   EventType = "abandon"   // the case left a queue unserved
+	Transfer  EventType = "transfer"  // the case moved to another queue or site
+	Departure EventType = "departure" // the case left the system
+)
+
+// EventTypes lists every valid event type in schema order.
+var EventTypes = []EventType{Arrival, Enqueue, Start, Complete, Abandon, Transfer, Departure}
+
+// Valid reports whether t is one of the schema's event types.
+func (t EventType) Valid() bool {
+	switch t {
+	case Arrival, Enqueue, Start, Complete, Abandon, Transfer, Departure:
+		return true
+	}
+	return false
+}
+
+// ParseEventType returns the event type named s, or an error.
+func ParseEventType(s string) (EventType, error) {
+	t := EventType(s)
+	if !t.Valid() {
+		return "", fmt.Errorf("unknown event type %q", s)
+	}
+	return t, nil
+}
+
+// Event is one row of the service-event schema v1: one thing that happened
+// to one case at one instant. The struct tags give its Parquet layout; the
+// identifier fields hold pseudonyms once an event has passed anonymize.
+type Event struct {
+	Site       string    `parquet:"site,dict" json:"site"`
+	CaseID     string    `parquet:"case_id" json:"case_id"`
+	SubjectID  string    `parquet:"subject_id,optional" json:"subject_id,omitempty"`
+	ResourceID string    `parquet:"resource_id,optional,dict" json:"resource_id,omitempty"`
+	Type       EventType `parquet:"event_type,dict" json:"event_type"`
+	Activity   string    `parquet:"activity,optional,dict" json:"activity,omitempty"`
+	Queue      string    `parquet:"queue,optional,dict" json:"queue,omitempty"`
+	OccurredAt time.Time `parquet:"occurred_at,timestamp(microsecond)" json:"occurred_at"`
+	Priority   string    `parquet:"priority,optional,dict" json:"priority,omitempty"`
+	Channel    string    `parquet:"channel,optional,dict" json:"channel,omitempty"`
+	Outcome    string    `parquet:"outcome,optional,dict" json:"outcome,omitempty"`
+	EventID    string    `parquet:"event_id,optional" json:"event_id,omitempty"`
+
+	// Line is the 1-based line (CSV/TSV record start or JSON Lines line) of
+	// the source file the event came from. It is not stored in snapshots.
+	Line int64 `parquet:"-" json:"-"`
+}
+
+// Field names one column of the schema.
+type Field string
+
+// The fields of schema v1.
+const (
+	FieldSite       Field = "site"
+	FieldCaseID     Field = "case_id"
+	FieldSubjectID  Field = "subject_id"
+	FieldResourceID Field = "resource_id"
+	FieldEventType  Field = "event_type"
+	FieldActivity   Field = "activity"
+	FieldQueue      Field = "queue"
+	FieldOccurredAt Field = "occurred_at"
+	FieldPriority   Field = "priority"
+	FieldChannel    Field = "channel"
+	FieldOutcome    Field = "outcome"
+	FieldEventID    Field = "event_id"
+)
+
+// Fields lists every field in schema order.
+var Fields = []Field{
+	FieldSite, FieldCaseID, FieldSubjectID, FieldResourceID, FieldEventType,
+	FieldActivity, FieldQueue, FieldOccurredAt, FieldPriority, FieldChannel,
+	FieldOutcome, FieldEventID,
+}
+
+// Required reports whether every event must carry a value for f.
+func (f Field) Required() bool {
+	switch f {
+	case FieldSite, FieldCaseID, FieldEventType, FieldOccurredAt:
+		return true
+	}
+	return false
+}
+
+// Identifier reports whether f holds an identifier that is pseudonymized at
+// ingest and whose raw value must never appear in storage, logs or errors.
+func (f Field) Identifier() bool {
+	switch f {
+	case FieldCaseID, FieldSubjectID, FieldResourceID:
+		return true
+	}
+	return false
+}
+
+// Value returns the text value of field f of e; occurred_at is formatted as
+// RFC 3339 with microseconds in UTC, and empty when unset.
+func (e *Event) Value(f Field) string {
+	switch f {
+	case FieldSite:
+		return e.Site
+	case FieldCaseID:
+		return e.CaseID
+	case FieldSubjectID:
+		return e.SubjectID
+	case FieldResourceID:
+		return e.ResourceID
+	case FieldEventType:
+		return string(e.Type)
+	case FieldActivity:
+		return e.Activity
+	case FieldQueue:
+		return e.Queue
+	case FieldOccurredAt:
+		if e.OccurredAt.IsZero() {
+			return ""
+		}
+		return e.OccurredAt.UTC().Format("2006-01-02T15:04:05.000000Z")
+	case FieldPriority:
+		return e.Priority
+	case FieldChannel:
+		return e.Channel
+	case FieldOutcome:
+		return e.Outcome
+	case FieldEventID:
+		return e.EventID
+	}
+	return ""
+}
+
+// SetValue sets field f of e from text; occurred_at cannot be set this way
+// because its parsing depends on a profile (see Profile).
+func (e *Event) SetValue(f Field, v string) {
+	switch f {
+	case FieldSite:
+		e.Site = v
+	case FieldCaseID:
+		e.CaseID = v
+	case FieldSubjectID:
+		e.SubjectID = v
+	case FieldResourceID:
+		e.ResourceID = v
+	case FieldEventType:
+		e.Type = EventType(v)
+	case FieldActivity:
+		e.Activity = v
+	case FieldQueue:
+		e.Queue = v
+	case FieldPriority:
+		e.Priority = v
+	case FieldChannel:
+		e.Channel = v
+	case FieldOutcome:
+		e.Outcome = v
+	case FieldEventID:
+		e.EventID = v
+	}
+}
+
+// Reason is a stable code for why a row was rejected. Codes are part of
+// the report format: never rename one.
+type Reason string
+
+// Row rejection reasons.
+const (
+	ReasonMissingRequired  Reason = "missing_required"  // a required field is empty
+	ReasonUnknownCode      Reason = "unknown_code"      // a coded value has no mapping and no default
+	ReasonBadTimestamp     Reason = "bad_timestamp"     // occurred_at does not parse
+	ReasonNonexistentLocal Reason = "nonexistent_local" // wall-clock time skipped by a daylight-saving change
+	ReasonAmbiguousLocal   Reason = "ambiguous_local"   // wall-clock time repeated by a daylight-saving change
+	ReasonFieldCount       Reason = "field_count"       // the row has a different number of fields than the header
+	ReasonMalformedRow     Reason = "malformed_row"     // the row cannot be parsed (bad quoting, bad JSON)
+	ReasonBadValue         Reason = "bad_value"         // a value has the wrong type (e.g. a JSON object)
+)
+
+// Rejection says why one source row was not accepted. Message never holds
+// the raw value of an identifier column.
+type Rejection struct {
+	Line    int64  `json:"line"`             // 1-based source line
+	Column  string `json:"column,omitempty"` // source column name, when one is at fault
+	Field   Field  `json:"field,omitempty"`  // schema field, when one is at fault
+	Reason  Reason `json:"reason"`
+	Message string `json:"message"`
+}
+
+func (r Rejection) String() string {
+	s := fmt.Sprintf("line %d", r.Line)
+	if r.Column != "" {
+		s += fmt.Sprintf(", column %q", r.Column)
+	}
+	if r.Field != "" {
+		s += fmt.Sprintf(" (%s)", r.Field)
+	}
+	return s + ": " + string(r.Reason) + ": " + r.Message
+}
