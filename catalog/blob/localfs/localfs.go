@@ -1,0 +1,178 @@
+// Package localfs is the local-disk blob.Store: each blob is a read-only
+// file named by its SHA-256 under a fan-out of two hex digits, written to a
+// temporary file, synced and renamed into place so it exists whole or not
+// at all.
+package localfs
+
+import (
+	"context"
+	"crypto/sha256"
+	"errors"
+	"fmt"
+	"io"
+	"io/fs"
+	"os"
+	"path/filepath"
+	"strings"
+
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
+)
+
+// Store keeps blobs under a root directory.
+type Store struct {
+	root string
+}
+
+// New returns a Store rooted at dir, creating it if needed.
+func New(dir string) (*Store, error) {
+	if err := os.MkdirAll(filepath.Join(dir, "tmp"), 0o700); err != nil {
+		return nil, fmt.Errorf("localfs: %w", err)
+	}
+	return &Store{root: dir}, nil
+}
+
+func (s *Store) path(id blob.ID) string {
+	h := id.String()
+	return filepath.Join(s.root, "sha256", h[:2], h)
+}
+
+// Put implements blob.Store.
+func (s *Store) Put(ctx context.Context, id blob.ID, r io.Reader) error {
+	dst := s.path(id)
+	if _, err := os.Stat(dst); err == nil {
+		return nil
+	}
+	tmp, err := os.CreateTemp(filepath.Join(s.root, "tmp"), "put-*")
+	if err != nil {
+		return fmt.Errorf("localfs: %w", err)
+	}
+	defer func() {
+		tmp.Close()
+		os.Remove(tmp.Name()) // no-op after a successful rename
+	}()
+	h := sha256.New()
+	if _, err := io.Copy(io.MultiWriter(tmp, h), ctxReader{ctx, r}); err != nil {
+		return fmt.Errorf("localfs: put %s: %w", id, err)
+	}
+	if got := blob.ID(h.Sum(nil)); got != id {
+		return fmt.Errorf("localfs: put %s: got %s: %w", id, got, blob.ErrCorrupt)
+	}
+	if err := tmp.Chmod(0o444); err != nil {
+		return fmt.Errorf("localfs: %w", err)
+	}
+	if err := tmp.Sync(); err != nil {
+		return fmt.Errorf("localfs: %w", err)
+	}
+	if err := tmp.Close(); err != nil {
+		return fmt.Errorf("localfs: %w", err)
+	}
+	if err := os.MkdirAll(filepath.Dir(dst), 0o700); err != nil {
+		return fmt.Errorf("localfs: %w", err)
+	}
+	if err := os.Rename(tmp.Name(), dst); err != nil {
+		return fmt.Errorf("localfs: %w", err)
+	}
+	return syncDir(filepath.Dir(dst))
+}
+
+// Open implements blob.Store.
+func (s *Store) Open(ctx context.Context, id blob.ID) (blob.Reader, error) {
+	f, err := os.Open(s.path(id))
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil, fmt.Errorf("localfs: %s: %w", id, blob.ErrNotFound)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("localfs: %w", err)
+	}
+	fi, err := f.Stat()
+	if err != nil {
+		f.Close()
+		return nil, fmt.Errorf("localfs: %w", err)
+	}
+	return &file{File: f, size: fi.Size()}, nil
+}
+
+// Stat implements blob.Store.
+func (s *Store) Stat(ctx context.Context, id blob.ID) (blob.Info, error) {
+	fi, err := os.Stat(s.path(id))
+	if errors.Is(err, fs.ErrNotExist) {
+		return blob.Info{}, fmt.Errorf("localfs: %s: %w", id, blob.ErrNotFound)
+	}
+	if err != nil {
+		return blob.Info{}, fmt.Errorf("localfs: %w", err)
+	}
+	return blob.Info{ID: id, Size: fi.Size(), ModTime: fi.ModTime()}, nil
+}
+
+// List implements blob.Store.
+func (s *Store) List(ctx context.Context, fn func(blob.Info) error) error {
+	root := filepath.Join(s.root, "sha256")
+	err := filepath.WalkDir(root, func(p string, d fs.DirEntry, err error) error {
+		if errors.Is(err, fs.ErrNotExist) && p == root {
+			return filepath.SkipDir
+		}
+		if err != nil {
+			return err
+		}
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+		if d.IsDir() || strings.HasPrefix(d.Name(), ".") {
+			return nil
+		}
+		id, err := blob.ParseID(d.Name())
+		if err != nil {
+			return nil // not ours
+		}
+		fi, err := d.Info()
+		if err != nil {
+			return err
+		}
+		return fn(blob.Info{ID: id, Size: fi.Size(), ModTime: fi.ModTime()})
+	})
+	if err != nil {
+		return fmt.Errorf("localfs: %w", err)
+	}
+	return nil
+}
+
+// Delete implements blob.Store.
+func (s *Store) Delete(ctx context.Context, id blob.ID) error {
+	err := os.Remove(s.path(id))
+	if err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return fmt.Errorf("localfs: %w", err)
+	}
+	return nil
+}
+
+type file struct {
+	*os.File
+	size int64
+}
+
+func (f *file) Size() int64 { return f.size }
+
+// ctxReader stops a copy when its context ends.
+type ctxReader struct {
+	ctx context.Context
+	r   io.Reader
+}
+
+func (c ctxReader) Read(p []byte) (int, error) {
+	if err := c.ctx.Err(); err != nil {
+		return 0, err
+	}
+	return c.r.Read(p)
+}
+
+func syncDir(dir string) error {
+	d, err := os.Open(dir)
+	if err != nil {
+		return fmt.Errorf("localfs: %w", err)
+	}
+	defer d.Close()
+	if err := d.Sync(); err != nil {
+		return fmt.Errorf("localfs: sync %s: %w", dir, err)
+	}
+	return nil
+}

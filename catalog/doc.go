@@ -1,0 +1,10 @@
+// Package catalog owns projects, datasets, uploads and versions, their
+// metadata in a bbolt file, the Parquet snapshot writer and reader, and the
+// blob store interface under which snapshot files are kept.
+//
+// Ingest is a function of this package: it drives a source file through
+// schema (parse, validate), anonymize (pseudonyms), quality (report) and the
+// Parquet writer, and commits a new immutable version in one bbolt
+// transaction after its files are durable. A crash between the two leaves an
+// unreferenced blob, never a version without its files.
+package catalog
