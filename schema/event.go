@@ -55,7 +55,7 @@ type Event struct {
 	Type       EventType `parquet:"event_type,dict" json:"event_type"`
 	Activity   string    `parquet:"activity,optional,dict" json:"activity,omitempty"`
 	Queue      string    `parquet:"queue,optional,dict" json:"queue,omitempty"`
-	OccurredAt time.Time `parquet:"occurred_at,timestamp(microsecond)" json:"occurred_at"`
+	OccurredAt time.Time `parquet:"occurred_at,timestamp(microsecond:utc)" json:"occurred_at"`
 	Priority   string    `parquet:"priority,optional,dict" json:"priority,omitempty"`
 	Channel    string    `parquet:"channel,optional,dict" json:"channel,omitempty"`
 	Outcome    string    `parquet:"outcome,optional,dict" json:"outcome,omitempty"`

@@ -1,0 +1,127 @@
+package catalog
+
+import (
+	"crypto/sha256"
+	"fmt"
+	"hash"
+	"io"
+	"os"
+	"time"
+
+	"github.com/parquet-go/parquet-go"
+	"github.com/parquet-go/parquet-go/compress/zstd"
+
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+// snapshotWriter writes one snapshot Parquet file to a temporary path while
+// hashing it. Writer settings are fixed (zstd, bounded row groups, a
+// created_by that names no build or time) so that the same events always
+// give the same bytes.
+type snapshotWriter struct {
+	f     *os.File
+	h     hash.Hash
+	n     int64
+	w     *parquet.GenericWriter[schema.Event]
+	batch []schema.Event
+	rows  int64
+	min   time.Time
+	max   time.Time
+}
+
+func newSnapshotWriter(dir string, rowGroupRows int64, keyID string) (*snapshotWriter, error) {
+	f, err := os.CreateTemp(dir, "snapshot-*.parquet")
+	if err != nil {
+		return nil, fmt.Errorf("parquet: %w", err)
+	}
+	sw := &snapshotWriter{f: f, h: sha256.New(), batch: make([]schema.Event, 0, 1024)}
+	sw.w = parquet.NewGenericWriter[schema.Event](io.MultiWriter(f, sw.h, countWriter{&sw.n}),
+		parquet.Compression(&zstd.Codec{Level: zstd.DefaultLevel, Concurrency: 1}),
+		parquet.MaxRowsPerRowGroup(rowGroupRows),
+		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
+		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
+		parquet.KeyValueMetadata("flowcat.pseudonym_key_id", keyID),
+	)
+	return sw, nil
+}
+
+// Write appends e; events must come in occurred_at order.
+func (sw *snapshotWriter) Write(e *schema.Event) error {
+	if sw.rows == 0 {
+		sw.min = e.OccurredAt
+	}
+	sw.max = e.OccurredAt
+	sw.rows++
+	sw.batch = append(sw.batch, *e)
+	if len(sw.batch) == cap(sw.batch) {
+		return sw.flushBatch()
+	}
+	return nil
+}
+
+func (sw *snapshotWriter) flushBatch() error {
+	if _, err := sw.w.Write(sw.batch); err != nil {
+		return fmt.Errorf("parquet: %w", err)
+	}
+	clear(sw.batch)
+	sw.batch = sw.batch[:0]
+	return nil
+}
+
+// Finish completes the file and makes it durable; it returns the file's id
+// and size. The caller then hands the file to a blob.Store.
+func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
+	if err := sw.flushBatch(); err != nil {
+		return blob.ID{}, 0, err
+	}
+	if err := sw.w.Close(); err != nil {
+		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
+	}
+	if err := sw.f.Sync(); err != nil {
+		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
+	}
+	if _, err := sw.f.Seek(0, io.SeekStart); err != nil {
+		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
+	}
+	return blob.ID(sw.h.Sum(nil)), sw.n, nil
+}
+
+// Remove closes and deletes the temporary file.
+func (sw *snapshotWriter) Remove() {
+	sw.f.Close()
+	os.Remove(sw.f.Name())
+}
+
+type countWriter struct{ n *int64 }
+
+func (c countWriter) Write(p []byte) (int, error) {
+	*c.n += int64(len(p))
+	return len(p), nil
+}
+
+// ReadSnapshot calls fn for every event of a snapshot Parquet file, in file
+// order. The event passed to fn is only valid during the call.
+func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error {
+	f, err := parquet.OpenFile(r, size)
+	if err != nil {
+		return fmt.Errorf("parquet: %w", err)
+	}
+	pr := parquet.NewGenericReader[schema.Event](f)
+	defer pr.Close()
+	buf := make([]schema.Event, 1024)
+	for {
+		n, err := pr.Read(buf)
+		for i := range buf[:n] {
+			if ferr := fn(&buf[i]); ferr != nil {
+				return ferr
+			}
+		}
+		if err == io.EOF {
+			return nil
+		}
+		if err != nil {
+			return fmt.Errorf("parquet: %w", err)
+		}
+	}
+}

@@ -1,0 +1,439 @@
+package catalog
+
+import (
+	"bytes"
+	"context"
+	"encoding/binary"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"log/slog"
+	"os"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+
+	"github.com/flowcat-catalog/flowcat/anonymize"
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+// ErrLocked is returned by Open when another process holds the metadata
+// file (bbolt takes an exclusive lock).
+var ErrLocked = errors.New("catalog is open in another process")
+
+var (
+	bucketMeta     = []byte("meta")
+	bucketProjects = []byte("projects")
+	bucketDatasets = []byte("datasets")
+	bucketVersions = []byte("versions")
+	bucketUploads  = []byte("uploads")
+	bucketDigests  = []byte("digests")
+	bucketAudit    = []byte("audit")
+)
+
+// Options configure a Store. The zero value of each optional field is a
+// sensible default.
+type Options struct {
+	Master  anonymize.MasterKey // required: seals and opens project keys
+	TempDir string              // for sort runs and Parquet files being written; default os.TempDir()
+	Logger  *slog.Logger        // default slog.Default()
+	Now     func() time.Time    // default time.Now
+	// RunEvents bounds the events the ingest sorts in memory before it
+	// spills a sorted run to TempDir (default 65536).
+	RunEvents int
+	// RowGroupRows bounds the rows of a Parquet row group (default 65536).
+	RowGroupRows int64
+}
+
+// Store is the catalog: metadata in bbolt, snapshot files in a blob.Store.
+// It is safe for concurrent use.
+type Store struct {
+	db    *bolt.DB
+	blobs blob.Store
+	opt   Options
+}
+
+// Open opens (creating if needed) the bbolt file at path. It fails with
+// ErrLocked after a second when another process has it open, and with
+// anonymize.ErrKeyMismatch when the master key is not the one the catalog
+// was created with.
+func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
+	if opt.TempDir == "" {
+		opt.TempDir = os.TempDir()
+	}
+	if opt.Logger == nil {
+		opt.Logger = slog.Default()
+	}
+	if opt.Now == nil {
+		opt.Now = time.Now
+	}
+	if opt.RunEvents <= 0 {
+		opt.RunEvents = 1 << 16
+	}
+	if opt.RowGroupRows <= 0 {
+		opt.RowGroupRows = 1 << 16
+	}
+	if opt.Master == (anonymize.MasterKey{}) {
+		return nil, fmt.Errorf("catalog: no master key given")
+	}
+	db, err := bolt.Open(path, 0o600, &bolt.Options{Timeout: time.Second})
+	if errors.Is(err, bolt.ErrTimeout) {
+		return nil, fmt.Errorf("catalog: %s: %w", path, ErrLocked)
+	}
+	if err != nil {
+		return nil, fmt.Errorf("catalog: %w", err)
+	}
+	err = db.Update(func(tx *bolt.Tx) error {
+		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit} {
+			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
+				return err
+			}
+		}
+		meta := tx.Bucket(bucketMeta)
+		id := opt.Master.ID()
+		switch have := meta.Get([]byte("master_key_id")); {
+		case have == nil:
+			return meta.Put([]byte("master_key_id"), []byte(id))
+		case string(have) != id:
+			return fmt.Errorf("the catalog was created under master key %s, the key given is %s: %w", have, id, anonymize.ErrKeyMismatch)
+		}
+		return nil
+	})
+	if err != nil {
+		db.Close()
+		return nil, fmt.Errorf("catalog: %w", err)
+	}
+	return &Store{db: db, blobs: blobs, opt: opt}, nil
+}
+
+// Close closes the metadata file.
+func (s *Store) Close() error { return s.db.Close() }
+
+// Blobs returns the store's blob store.
+func (s *Store) Blobs() blob.Store { return s.blobs }
+
+// CreateProject creates a project with a fresh pseudonym key.
+func (s *Store) CreateProject(ctx context.Context, name, title, by string) (*Project, error) {
+	if err := ValidName("project", name); err != nil {
+		return nil, err
+	}
+	key, err := anonymize.NewProjectKey(s.opt.Master, name)
+	if err != nil {
+		return nil, fmt.Errorf("catalog: %w", err)
+	}
+	p := &Project{Name: name, Title: title, CreatedAt: s.opt.Now().UTC(), CreatedBy: by, Key: key}
+	err = s.db.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bucketProjects)
+		if b.Get([]byte(name)) != nil {
+			return fmt.Errorf("project %q: %w", name, ErrExists)
+		}
+		if err := putJSON(b, []byte(name), p); err != nil {
+			return err
+		}
+		return audit(tx, s.opt.Now(), by, "project.create", name)
+	})
+	if err != nil {
+		return nil, err
+	}
+	s.opt.Logger.Info("project created", "project", name, "by", by)
+	return p, nil
+}
+
+// Project returns the named project or ErrNotFound.
+func (s *Store) Project(ctx context.Context, name string) (*Project, error) {
+	var p Project
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return getJSON(tx.Bucket(bucketProjects), []byte(name), &p, "project "+name)
+	})
+	if err != nil {
+		return nil, err
+	}
+	return &p, nil
+}
+
+// Projects lists all projects by name.
+func (s *Store) Projects(ctx context.Context) ([]Project, error) {
+	var out []Project
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return tx.Bucket(bucketProjects).ForEach(func(k, v []byte) error {
+			var p Project
+			if err := json.Unmarshal(v, &p); err != nil {
+				return err
+			}
+			out = append(out, p)
+			return nil
+		})
+	})
+	return out, err
+}
+
+// DatasetSpec is what a curator gives to create a dataset.
+type DatasetSpec struct {
+	Project     string
+	Name        string
+	Title       string
+	Profile     []byte     // YAML; empty means the schema's own column names
+	Timezone    string     // overrides the profile's zone when set
+	RejectAbove *float64   // nil means DefaultRejectAbove
+	WindowFrom  *time.Time // optional declared window of the data
+	WindowTo    *time.Time
+}
+
+// CreateDataset validates the spec (names, profile, zone, threshold) and
+// creates the dataset, or fails with ErrInvalid, ErrExists or ErrNotFound
+// (no such project).
+func (s *Store) CreateDataset(ctx context.Context, spec DatasetSpec, by string) (*Dataset, error) {
+	if err := ValidName("dataset", spec.Name); err != nil {
+		return nil, err
+	}
+	prof, err := effectiveProfile(spec.Profile, spec.Timezone)
+	if err != nil {
+		return nil, fmt.Errorf("%w: %w", err, ErrInvalid)
+	}
+	reject := DefaultRejectAbove
+	if spec.RejectAbove != nil {
+		reject = *spec.RejectAbove
+	}
+	if reject < 0 || reject > 1 {
+		return nil, fmt.Errorf("reject-above %v: want a share between 0 and 1: %w", reject, ErrInvalid)
+	}
+	if spec.WindowFrom != nil && spec.WindowTo != nil && spec.WindowTo.Before(*spec.WindowFrom) {
+		return nil, fmt.Errorf("window: from is after to: %w", ErrInvalid)
+	}
+	d := &Dataset{
+		Project: spec.Project, Name: spec.Name, Title: spec.Title,
+		Profile: string(spec.Profile), ProfileHash: prof.Hash(), Timezone: prof.Location().String(),
+		RejectAbove: reject, WindowFrom: utcPtr(spec.WindowFrom), WindowTo: utcPtr(spec.WindowTo),
+		CreatedAt: s.opt.Now().UTC(), CreatedBy: by,
+	}
+	err = s.db.Update(func(tx *bolt.Tx) error {
+		if tx.Bucket(bucketProjects).Get([]byte(spec.Project)) == nil {
+			return fmt.Errorf("project %q: %w", spec.Project, ErrNotFound)
+		}
+		b := tx.Bucket(bucketDatasets)
+		key := []byte(d.Ref())
+		if b.Get(key) != nil {
+			return fmt.Errorf("dataset %q: %w", d.Ref(), ErrExists)
+		}
+		if err := putJSON(b, key, d); err != nil {
+			return err
+		}
+		return audit(tx, s.opt.Now(), by, "dataset.create", d.Ref())
+	})
+	if err != nil {
+		return nil, err
+	}
+	s.opt.Logger.Info("dataset created", "dataset", d.Ref(), "by", by)
+	return d, nil
+}
+
+// effectiveProfile parses a dataset's profile (or the default one) and
+// applies a zone override.
+func effectiveProfile(yaml []byte, zone string) (*schema.Profile, error) {
+	var prof *schema.Profile
+	if len(bytes.TrimSpace(yaml)) == 0 {
+		prof = schema.DefaultProfile()
+	} else {
+		p, err := schema.ParseProfile(yaml)
+		if err != nil {
+			return nil, err
+		}
+		prof = p
+	}
+	if zone != "" {
+		if err := prof.SetTimezone(zone); err != nil {
+			return nil, err
+		}
+	}
+	return prof, nil
+}
+
+// Profile returns the dataset's effective mapping profile.
+func (d *Dataset) EffectiveProfile() (*schema.Profile, error) {
+	return effectiveProfile([]byte(d.Profile), d.Timezone)
+}
+
+// Dataset returns one dataset or ErrNotFound.
+func (s *Store) Dataset(ctx context.Context, project, name string) (*Dataset, error) {
+	var d Dataset
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return getJSON(tx.Bucket(bucketDatasets), []byte(project+"/"+name), &d, "dataset "+project+"/"+name)
+	})
+	if err != nil {
+		return nil, err
+	}
+	return &d, nil
+}
+
+// Datasets lists a project's datasets by name.
+func (s *Store) Datasets(ctx context.Context, project string) ([]Dataset, error) {
+	var out []Dataset
+	err := s.db.View(func(tx *bolt.Tx) error {
+		if tx.Bucket(bucketProjects).Get([]byte(project)) == nil {
+			return fmt.Errorf("project %q: %w", project, ErrNotFound)
+		}
+		return scanPrefix(tx.Bucket(bucketDatasets), []byte(project+"/"), func(v []byte) error {
+			var d Dataset
+			if err := json.Unmarshal(v, &d); err != nil {
+				return err
+			}
+			out = append(out, d)
+			return nil
+		})
+	})
+	return out, err
+}
+
+// Versions lists a dataset's versions, oldest first.
+func (s *Store) Versions(ctx context.Context, project, dataset string) ([]Version, error) {
+	var out []Version
+	err := s.db.View(func(tx *bolt.Tx) error {
+		if tx.Bucket(bucketDatasets).Get([]byte(project+"/"+dataset)) == nil {
+			return fmt.Errorf("dataset %q: %w", project+"/"+dataset, ErrNotFound)
+		}
+		return scanPrefix(tx.Bucket(bucketVersions), []byte(project+"/"+dataset+"/"), func(v []byte) error {
+			var ver Version
+			if err := json.Unmarshal(v, &ver); err != nil {
+				return err
+			}
+			out = append(out, ver)
+			return nil
+		})
+	})
+	return out, err
+}
+
+// Version returns version n of a dataset; n == 0 means the latest.
+func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*Version, error) {
+	var v Version
+	err := s.db.View(func(tx *bolt.Tx) error {
+		ref := project + "/" + dataset
+		if n == 0 {
+			var d Dataset
+			if err := getJSON(tx.Bucket(bucketDatasets), []byte(ref), &d, "dataset "+ref); err != nil {
+				return err
+			}
+			if d.Latest == 0 {
+				return fmt.Errorf("dataset %q has no version yet: %w", ref, ErrNotFound)
+			}
+			n = d.Latest
+		}
+		return getJSON(tx.Bucket(bucketVersions), seqKey(ref, n), &v, fmt.Sprintf("version %s@%d", ref, n))
+	})
+	if err != nil {
+		return nil, err
+	}
+	return &v, nil
+}
+
+// Uploads lists a dataset's uploads, oldest first.
+func (s *Store) Uploads(ctx context.Context, project, dataset string) ([]Upload, error) {
+	var out []Upload
+	err := s.db.View(func(tx *bolt.Tx) error {
+		if tx.Bucket(bucketDatasets).Get([]byte(project+"/"+dataset)) == nil {
+			return fmt.Errorf("dataset %q: %w", project+"/"+dataset, ErrNotFound)
+		}
+		return scanPrefix(tx.Bucket(bucketUploads), []byte(project+"/"+dataset+"/"), func(v []byte) error {
+			var u Upload
+			if err := json.Unmarshal(v, &u); err != nil {
+				return err
+			}
+			out = append(out, u)
+			return nil
+		})
+	})
+	return out, err
+}
+
+// OpenFile opens a file of version v for reading; the file must be listed
+// in v's manifest.
+func (s *Store) OpenFile(ctx context.Context, v *Version, id blob.ID) (blob.Reader, FileEntry, error) {
+	f, ok := v.File(id)
+	if !ok {
+		return nil, FileEntry{}, fmt.Errorf("file %s is not part of version %d: %w", id, v.Number, ErrNotFound)
+	}
+	r, err := s.blobs.Open(ctx, id)
+	if err != nil {
+		return nil, FileEntry{}, fmt.Errorf("catalog: %w", err)
+	}
+	return r, f, nil
+}
+
+// AuditEntry is one line of the catalog's audit trail.
+type AuditEntry struct {
+	At     time.Time `json:"at"`
+	By     string    `json:"by"`
+	Action string    `json:"action"`
+	Target string    `json:"target"`
+}
+
+func audit(tx *bolt.Tx, now time.Time, by, action, target string) error {
+	b := tx.Bucket(bucketAudit)
+	seq, err := b.NextSequence()
+	if err != nil {
+		return err
+	}
+	k := make([]byte, 16)
+	binary.BigEndian.PutUint64(k, uint64(now.UnixNano()))
+	binary.BigEndian.PutUint64(k[8:], seq)
+	return putJSON(b, k, AuditEntry{At: now.UTC(), By: by, Action: action, Target: target})
+}
+
+// Audit returns the audit trail, oldest first.
+func (s *Store) Audit(ctx context.Context) ([]AuditEntry, error) {
+	var out []AuditEntry
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return tx.Bucket(bucketAudit).ForEach(func(k, v []byte) error {
+			var e AuditEntry
+			if err := json.Unmarshal(v, &e); err != nil {
+				return err
+			}
+			out = append(out, e)
+			return nil
+		})
+	})
+	return out, err
+}
+
+// seqKey is ref + "/" + big-endian n, so a cursor lists in numeric order.
+func seqKey(ref string, n int) []byte {
+	k := make([]byte, 0, len(ref)+5)
+	k = append(k, ref...)
+	k = append(k, '/')
+	return binary.BigEndian.AppendUint32(k, uint32(n))
+}
+
+func scanPrefix(b *bolt.Bucket, prefix []byte, fn func(v []byte) error) error {
+	c := b.Cursor()
+	for k, v := c.Seek(prefix); k != nil && bytes.HasPrefix(k, prefix); k, v = c.Next() {
+		if err := fn(v); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+func putJSON(b *bolt.Bucket, k []byte, v any) error {
+	data, err := json.Marshal(v)
+	if err != nil {
+		return err
+	}
+	return b.Put(k, data)
+}
+
+func getJSON(b *bolt.Bucket, k []byte, v any, what string) error {
+	data := b.Get(k)
+	if data == nil {
+		return fmt.Errorf("%s: %w", what, ErrNotFound)
+	}
+	return json.Unmarshal(data, v)
+}
+
+func utcPtr(t *time.Time) *time.Time {
+	if t == nil {
+		return nil
+	}
+	u := t.UTC()
+	return &u
+}

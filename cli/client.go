@@ -1,0 +1,185 @@
+package cli
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"net/http"
+	"net/url"
+	"strconv"
+	"strings"
+	"time"
+)
+
+// client talks to a flowcat server.
+type client struct {
+	base  *url.URL
+	token string
+	http  *http.Client
+}
+
+func (e *env) client() (*client, error) {
+	if e.server == "" {
+		return nil, usageErr("no server: give --server URL or set FLOWCAT_SERVER")
+	}
+	u, err := url.Parse(strings.TrimRight(e.server, "/"))
+	if err != nil || (u.Scheme != "http" && u.Scheme != "https") || u.Host == "" {
+		return nil, usageErr("server %q: want http://HOST:PORT or https://HOST", e.server)
+	}
+	if e.token == "" {
+		return nil, usageErr("no token: give --token or set FLOWCAT_TOKEN (an admin makes one with flowcat token issue)")
+	}
+	return &client{base: u, token: e.token, http: &http.Client{}}, nil
+}
+
+// apiError is an error answer of the server.
+type apiError struct {
+	Status  int             `json:"status"`
+	Code    string          `json:"code"`
+	Message string          `json:"message"`
+	Rule    string          `json:"rule"`
+	Line    int64           `json:"line"`
+	Column  string          `json:"column"`
+	Upload  json.RawMessage `json:"upload"`
+}
+
+func (e *apiError) Error() string {
+	return fmt.Sprintf("server said %d %s: %s", e.Status, e.Code, e.Message)
+}
+
+func (c *client) url(path string, q url.Values) string {
+	u := *c.base
+	u.Path = c.base.Path + "/api/v1" + path
+	u.RawQuery = q.Encode()
+	return u.String()
+}
+
+// do sends a request and returns the response when its status is 2xx (or
+// 206); else it decodes the error body into an *apiError.
+func (c *client) do(ctx context.Context, method, path string, q url.Values, body io.Reader, hdr http.Header) (*http.Response, error) {
+	req, err := http.NewRequestWithContext(ctx, method, c.url(path, q), body)
+	if err != nil {
+		return nil, err
+	}
+	for k, v := range hdr {
+		req.Header[k] = v
+	}
+	req.Header.Set("Authorization", "Bearer "+c.token)
+	if req.Header.Get("Content-Type") == "" && body != nil {
+		req.Header.Set("Content-Type", "application/json")
+	}
+	if sz, ok := body.(interface{ Len() int }); ok {
+		req.ContentLength = int64(sz.Len())
+	}
+	if n := hdr.Get("Content-Length"); n != "" {
+		req.ContentLength, _ = strconv.ParseInt(n, 10, 64)
+	}
+	resp, err := c.http.Do(req)
+	if err != nil {
+		return nil, fmt.Errorf("cannot reach %s: %w", c.base, err)
+	}
+	if resp.StatusCode/100 == 2 {
+		return resp, nil
+	}
+	defer resp.Body.Close()
+	var eb struct {
+		Error apiError `json:"error"`
+	}
+	data, _ := io.ReadAll(io.LimitReader(resp.Body, 16<<20))
+	if json.Unmarshal(data, &eb) != nil || eb.Error.Status == 0 {
+		return nil, &apiError{Status: resp.StatusCode, Code: "http", Message: strings.TrimSpace(string(data))}
+	}
+	return nil, &eb.Error
+}
+
+// getJSON fetches path into v.
+func (c *client) getJSON(ctx context.Context, path string, v any) error {
+	resp, err := c.do(ctx, http.MethodGet, path, nil, nil, nil)
+	if err != nil {
+		return err
+	}
+	defer resp.Body.Close()
+	return json.NewDecoder(resp.Body).Decode(v)
+}
+
+// postJSON posts in and decodes the answer into out.
+func (c *client) postJSON(ctx context.Context, path string, in, out any) error {
+	b, err := json.Marshal(in)
+	if err != nil {
+		return err
+	}
+	resp, err := c.do(ctx, http.MethodPost, path, nil, strings.NewReader(string(b)), nil)
+	if err != nil {
+		return err
+	}
+	defer resp.Body.Close()
+	if out == nil {
+		return nil
+	}
+	return json.NewDecoder(resp.Body).Decode(out)
+}
+
+// ref is a parsed P/D[@N] argument; Version 0 means latest.
+type ref struct {
+	Project, Dataset string
+	Version          int
+}
+
+func (r ref) String() string {
+	s := r.Project + "/" + r.Dataset
+	if r.Version > 0 {
+		s += "@" + strconv.Itoa(r.Version)
+	}
+	return s
+}
+
+func (r ref) path() string { return "/projects/" + url.PathEscape(r.Project) + "/datasets/" + url.PathEscape(r.Dataset) }
+
+func (r ref) versionPath() string {
+	v := "latest"
+	if r.Version > 0 {
+		v = strconv.Itoa(r.Version)
+	}
+	return r.path() + "/versions/" + v
+}
+
+// parseRef parses P/D, and P/D@N or P/D@latest when withVersion.
+func parseRef(s string, withVersion bool) (ref, error) {
+	var r ref
+	body, ver, hasVer := strings.Cut(s, "@")
+	p, d, ok := strings.Cut(body, "/")
+	if !ok || p == "" || d == "" || strings.Contains(d, "/") {
+		return r, usageErr("%q: want PROJECT/DATASET%s", s, map[bool]string{true: "[@VERSION]", false: ""}[withVersion])
+	}
+	r.Project, r.Dataset = p, d
+	if hasVer {
+		if !withVersion {
+			return r, usageErr("%q: no @VERSION here", s)
+		}
+		if ver != "latest" {
+			n, err := strconv.Atoi(ver)
+			if err != nil || n < 1 {
+				return r, usageErr("%q: version must be a number from 1, or latest", s)
+			}
+			r.Version = n
+		}
+	}
+	return r, nil
+}
+
+func writeJSON(w io.Writer, v any) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	return enc.Encode(v)
+}
+
+func ago(t time.Time) string { return t.UTC().Format(time.RFC3339) }
+
+// score formats a quality score, "-" when there is none.
+func score(s *float64) string {
+	if s == nil {
+		return "-"
+	}
+	return fmt.Sprintf("%.1f", *s)
+}

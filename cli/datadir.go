@@ -1,0 +1,160 @@
+package cli
+
+import (
+	"crypto/rand"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io/fs"
+	"log/slog"
+	"os"
+	"path/filepath"
+	"time"
+
+	"github.com/flowcat-catalog/flowcat/anonymize"
+	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
+	"github.com/flowcat-catalog/flowcat/server"
+)
+
+// dataDir is the layout of a server's data directory:
+//
+//	catalog.db     bbolt metadata
+//	blobs/         snapshot files by sha256
+//	tmp/           sort runs and files being written (pseudonymized only)
+//	signing.key    HS256 token key (0600)
+//	master.key     master key sealing project keys (0600), unless kept elsewhere
+//	instance.json  the token issuer name
+type dataDir string
+
+func (d dataDir) path(name string) string { return filepath.Join(string(d), name) }
+func (d dataDir) db() string              { return d.path("catalog.db") }
+func (d dataDir) blobs() string           { return d.path("blobs") }
+func (d dataDir) tmp() string             { return d.path("tmp") }
+func (d dataDir) signingKey() string      { return d.path("signing.key") }
+func (d dataDir) masterKey() string       { return d.path("master.key") }
+func (d dataDir) instance() string        { return d.path("instance.json") }
+
+type instance struct {
+	Issuer    string    `json:"issuer"`
+	CreatedAt time.Time `json:"created_at"`
+}
+
+// initDataDir creates a data directory. With an existing master key file
+// (masterFile != "") it checks that key and creates none.
+func initDataDir(d dataDir, masterFile string) (createdMaster bool, err error) {
+	if _, err := os.Stat(d.db()); err == nil {
+		return false, fmt.Errorf("init: %s is a flowcat data directory already", d)
+	}
+	if err := os.MkdirAll(string(d), 0o700); err != nil {
+		return false, fmt.Errorf("init: %w", err)
+	}
+	for _, sub := range []string{d.blobs(), d.tmp()} {
+		if err := os.MkdirAll(sub, 0o700); err != nil {
+			return false, fmt.Errorf("init: %w", err)
+		}
+	}
+	var master anonymize.MasterKey
+	if masterFile != "" {
+		master, err = anonymize.LoadMasterKeyFile(masterFile)
+		if err != nil {
+			return false, fmt.Errorf("init: %w", err)
+		}
+	} else {
+		master, err = anonymize.GenerateMasterKey()
+		if err != nil {
+			return false, fmt.Errorf("init: %w", err)
+		}
+		if err := anonymize.WriteMasterKeyFile(d.masterKey(), master); err != nil {
+			return false, fmt.Errorf("init: %w", err)
+		}
+		createdMaster = true
+	}
+	if err := server.GenerateSigningKeyFile(d.signingKey()); err != nil {
+		return false, fmt.Errorf("init: %w", err)
+	}
+	var rnd [6]byte
+	if _, err := rand.Read(rnd[:]); err != nil {
+		return false, fmt.Errorf("init: %w", err)
+	}
+	inst := instance{Issuer: "flowcat:" + hex.EncodeToString(rnd[:]), CreatedAt: time.Now().UTC()}
+	b, _ := json.MarshalIndent(inst, "", "  ")
+	if err := os.WriteFile(d.instance(), append(b, '\n'), 0o600); err != nil {
+		return false, fmt.Errorf("init: %w", err)
+	}
+	st, err := d.openStore(master, slog.New(slog.DiscardHandler))
+	if err != nil {
+		return false, err
+	}
+	return createdMaster, st.Close()
+}
+
+func (d dataDir) readInstance() (instance, error) {
+	var inst instance
+	b, err := os.ReadFile(d.instance())
+	if errors.Is(err, fs.ErrNotExist) {
+		return inst, fmt.Errorf("%s is not a flowcat data directory (no instance.json); run flowcat init --data %s", d, d)
+	}
+	if err != nil {
+		return inst, err
+	}
+	if err := json.Unmarshal(b, &inst); err != nil || inst.Issuer == "" {
+		return inst, fmt.Errorf("%s: malformed", d.instance())
+	}
+	return inst, nil
+}
+
+// authority loads the token signing key and issuer. It does not open the
+// bbolt file, so it works while a server runs on the directory.
+func (d dataDir) authority() (*server.Authority, error) {
+	inst, err := d.readInstance()
+	if err != nil {
+		return nil, err
+	}
+	key, err := server.LoadSigningKeyFile(d.signingKey())
+	if err != nil {
+		return nil, err
+	}
+	return server.NewAuthority(key, inst.Issuer), nil
+}
+
+// findMasterKey resolves the master key: a file given by flag, then
+// FLOWCAT_MASTER_KEY (the key itself), then FLOWCAT_MASTER_KEY_FILE, then
+// master.key in the data directory. It names every place it looked.
+func (d dataDir) findMasterKey(flagFile string) (anonymize.MasterKey, string, error) {
+	if flagFile != "" {
+		k, err := anonymize.LoadMasterKeyFile(flagFile)
+		return k, flagFile, err
+	}
+	if k, ok, err := anonymize.MasterKeyFromEnv("FLOWCAT_MASTER_KEY"); ok || err != nil {
+		return k, "FLOWCAT_MASTER_KEY", err
+	}
+	if f := os.Getenv("FLOWCAT_MASTER_KEY_FILE"); f != "" {
+		k, err := anonymize.LoadMasterKeyFile(f)
+		return k, f, err
+	}
+	if _, err := os.Stat(d.masterKey()); err == nil {
+		k, err := anonymize.LoadMasterKeyFile(d.masterKey())
+		return k, d.masterKey(), err
+	}
+	return anonymize.MasterKey{}, "", fmt.Errorf("no master key: give --master-key FILE, or set FLOWCAT_MASTER_KEY (64 hex digits) or FLOWCAT_MASTER_KEY_FILE; `flowcat init` creates %s", d.masterKey())
+}
+
+func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger) (*catalog.Store, error) {
+	blobs, err := localfs.New(d.blobs())
+	if err != nil {
+		return nil, err
+	}
+	if err := os.MkdirAll(d.tmp(), 0o700); err != nil {
+		return nil, err
+	}
+	// Sort runs and Parquet files from an interrupted run hold only
+	// pseudonymized events; clear them at start.
+	if ents, err := os.ReadDir(d.tmp()); err == nil {
+		for _, e := range ents {
+			os.Remove(filepath.Join(d.tmp(), e.Name()))
+		}
+	}
+	return catalog.Open(d.db(), blobs, catalog.Options{Master: master, TempDir: d.tmp(), Logger: log})
+}

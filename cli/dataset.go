@@ -1,0 +1,97 @@
+package cli
+
+import (
+	"fmt"
+	"os"
+	"text/tabwriter"
+	"time"
+
+	"github.com/spf13/cobra"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
+)
+
+func newDatasetCmd(e *env) *cobra.Command {
+	c := &cobra.Command{Use: "dataset", Short: "Create and list datasets"}
+	var profile, zone, title, from, to string
+	var rejectAbove float64
+	create := &cobra.Command{
+		Use:   "create PROJECT/DATASET [--profile FILE] [--timezone ZONE]",
+		Short: "Create a dataset with its mapping profile (curator)",
+		Args:  cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := parseRef(args[0], false)
+			if err != nil {
+				return err
+			}
+			req := map[string]any{"name": r.Dataset, "title": title, "timezone": zone}
+			if profile != "" {
+				b, err := os.ReadFile(profile)
+				if err != nil {
+					return usageErr("profile: %v", err)
+				}
+				req["profile"] = string(b)
+			}
+			if cmd.Flags().Changed("reject-above") {
+				req["reject_above"] = rejectAbove
+			}
+			for name, v := range map[string]string{"window_from": from, "window_to": to} {
+				if v == "" {
+					continue
+				}
+				t, err := time.Parse(time.RFC3339, v)
+				if err != nil {
+					return usageErr("--%s %q: want an RFC 3339 instant like 2026-01-01T00:00:00Z", name, v)
+				}
+				req[name] = t
+			}
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			var d catalog.Dataset
+			if err := cl.postJSON(cmd.Context(), "/projects/"+r.Project+"/datasets", req, &d); err != nil {
+				return err
+			}
+			if e.json {
+				return writeJSON(e.stdout, d)
+			}
+			fmt.Fprintf(e.stdout, "created dataset %s (zone %s, rejects uploads with more than %.1f%% invalid rows)\n", d.Ref(), d.Timezone, 100*d.RejectAbove)
+			return nil
+		},
+	}
+	f := create.Flags()
+	f.StringVar(&profile, "profile", "", "mapping profile (YAML); without it the file's header must use the schema's field names")
+	f.StringVar(&zone, "timezone", "", "IANA zone for wall-clock times without offset (overrides the profile's)")
+	f.StringVar(&title, "title", "", "human-readable title")
+	f.Float64Var(&rejectAbove, "reject-above", catalog.DefaultRejectAbove, "reject an upload whose share of invalid rows is above this (0-1)")
+	f.StringVar(&from, "window-from", "", "declared start of the data (RFC 3339); earlier events are flagged")
+	f.StringVar(&to, "window-to", "", "declared end of the data (RFC 3339); later events are flagged")
+
+	list := &cobra.Command{
+		Use:   "list PROJECT",
+		Short: "List a project's datasets",
+		Args:  cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			var ds []catalog.Dataset
+			if err := cl.getJSON(cmd.Context(), "/projects/"+args[0]+"/datasets", &ds); err != nil {
+				return err
+			}
+			if e.json {
+				return writeJSON(e.stdout, ds)
+			}
+			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
+			fmt.Fprintln(tw, "DATASET\tZONE\tLATEST\tUPLOADS\tTITLE")
+			for _, d := range ds {
+				fmt.Fprintf(tw, "%s\t%s\t%d\t%d\t%s\n", d.Ref(), d.Timezone, d.Latest, d.Uploads, d.Title)
+			}
+			return tw.Flush()
+		},
+	}
+	c.AddCommand(create, list)
+	return c
+}

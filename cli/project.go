@@ -1,0 +1,69 @@
+package cli
+
+import (
+	"fmt"
+	"text/tabwriter"
+	"time"
+
+	"github.com/spf13/cobra"
+)
+
+type projectInfo struct {
+	Name      string    `json:"name"`
+	Title     string    `json:"title"`
+	CreatedAt time.Time `json:"created_at"`
+	CreatedBy string    `json:"created_by"`
+	KeyID     string    `json:"pseudonym_key_id"`
+}
+
+func newProjectCmd(e *env) *cobra.Command {
+	c := &cobra.Command{Use: "project", Short: "Create and list projects"}
+	var title string
+	create := &cobra.Command{
+		Use:   "create PROJECT",
+		Short: "Create a project with its own pseudonym key (admin)",
+		Args:  cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			var p projectInfo
+			if err := cl.postJSON(cmd.Context(), "/projects", map[string]string{"name": args[0], "title": title}, &p); err != nil {
+				return err
+			}
+			if e.json {
+				return writeJSON(e.stdout, p)
+			}
+			fmt.Fprintf(e.stdout, "created project %s (pseudonym key %s)\n", p.Name, p.KeyID)
+			return nil
+		},
+	}
+	create.Flags().StringVar(&title, "title", "", "human-readable title")
+	list := &cobra.Command{
+		Use:   "list",
+		Short: "List the projects this token may read",
+		Args:  cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, args []string) error {
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			var ps []projectInfo
+			if err := cl.getJSON(cmd.Context(), "/projects", &ps); err != nil {
+				return err
+			}
+			if e.json {
+				return writeJSON(e.stdout, ps)
+			}
+			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
+			fmt.Fprintln(tw, "PROJECT\tTITLE\tCREATED")
+			for _, p := range ps {
+				fmt.Fprintf(tw, "%s\t%s\t%s\n", p.Name, p.Title, ago(p.CreatedAt))
+			}
+			return tw.Flush()
+		},
+	}
+	c.AddCommand(create, list)
+	return c
+}

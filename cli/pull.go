@@ -1,0 +1,220 @@
+package cli
+
+import (
+	"crypto/sha256"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"io/fs"
+	"net/http"
+	"os"
+	"path/filepath"
+	"time"
+
+	"github.com/schollz/progressbar/v3"
+	"github.com/spf13/cobra"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
+)
+
+// lockName is the lock file pull writes and verify reads.
+const lockName = "flowcat.lock"
+
+// lockFile pins a pulled version: where it came from and every byte of it.
+type lockFile struct {
+	LockVersion int        `json:"lock_version"`
+	Server      string     `json:"server"`
+	Dataset     string     `json:"dataset"`
+	Version     int        `json:"version"`
+	SnapshotID  string     `json:"snapshot_id"` // sha256 of manifest.json
+	Files       []lockedFS `json:"files"`
+	PulledAt    time.Time  `json:"pulled_at"`
+}
+
+type lockedFS struct {
+	Path   string `json:"path"`
+	SHA256 string `json:"sha256"`
+	Bytes  int64  `json:"bytes"`
+	Rows   int64  `json:"rows"`
+}
+
+func newPullCmd(e *env) *cobra.Command {
+	var out string
+	c := &cobra.Command{
+		Use:   "pull PROJECT/DATASET[@N] -o DIR",
+		Short: "Download a version, verify every sha256 and write a lock file",
+		Long: `Pull downloads a version's manifest and Parquet files into DIR, checks each file's
+sha256 and the manifest's hash (the snapshot id), and writes DIR/flowcat.lock naming the server,
+dataset, version and snapshot id. An interrupted pull resumes where it stopped.`,
+		Args: cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := parseRef(args[0], true)
+			if err != nil {
+				return err
+			}
+			if out == "" {
+				return usageErr("pull: -o DIR is required")
+			}
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			lock, err := e.pull(cmd, cl, r, out)
+			if err != nil {
+				return err
+			}
+			if e.json {
+				return writeJSON(e.stdout, lock)
+			}
+			var rows int64
+			for _, f := range lock.Files {
+				rows += f.Rows
+			}
+			fmt.Fprintf(e.stdout, "pulled %s@%d into %s: %d files, %d rows, all sha256 verified\nsnapshot %s\n",
+				lock.Dataset, lock.Version, out, len(lock.Files), rows, lock.SnapshotID)
+			return nil
+		},
+	}
+	c.Flags().StringVarP(&out, "output", "o", "", "directory to write into")
+	return c
+}
+
+func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string) (*lockFile, error) {
+	ctx := cmd.Context()
+	var v catalog.Version
+	if err := cl.getJSON(ctx, r.versionPath(), &v); err != nil {
+		return nil, err
+	}
+	resp, err := cl.do(ctx, http.MethodGet, r.path()+fmt.Sprintf("/versions/%d/manifest", v.Number), nil, nil, nil)
+	if err != nil {
+		return nil, err
+	}
+	manifest, err := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if err != nil {
+		return nil, fmt.Errorf("pull: manifest: %w", err)
+	}
+	if sum := sha256.Sum256(manifest); hex.EncodeToString(sum[:]) != v.SnapshotID {
+		return nil, fmt.Errorf("pull: the manifest's sha256 %x is not the snapshot id %s", sum, v.SnapshotID)
+	}
+	if err := os.MkdirAll(filepath.Join(out, "data"), 0o755); err != nil {
+		return nil, err
+	}
+	lock := &lockFile{LockVersion: 1, Server: cl.base.String(), Dataset: r.Project + "/" + r.Dataset,
+		Version: v.Number, SnapshotID: v.SnapshotID, PulledAt: time.Now().UTC()}
+	for _, f := range v.Manifest.Files {
+		rel := filepath.ToSlash(filepath.Join("data", f.SHA256.String()+".parquet"))
+		if err := e.fetchFile(cmd, cl, r.path()+fmt.Sprintf("/versions/%d/files/%s", v.Number, f.SHA256), filepath.Join(out, rel), f); err != nil {
+			return nil, err
+		}
+		lock.Files = append(lock.Files, lockedFS{Path: rel, SHA256: f.SHA256.String(), Bytes: f.Bytes, Rows: f.Rows})
+	}
+	if err := writeFileAtomic(filepath.Join(out, "manifest.json"), manifest); err != nil {
+		return nil, err
+	}
+	b, _ := json.MarshalIndent(lock, "", "  ")
+	if err := writeFileAtomic(filepath.Join(out, lockName), append(b, '\n')); err != nil {
+		return nil, err
+	}
+	return lock, nil
+}
+
+// fetchFile downloads one file to dst, resuming a dst.part left by an
+// interrupted pull with a Range request, and verifies its sha256.
+func (e *env) fetchFile(cmd *cobra.Command, cl *client, path, dst string, f catalog.FileEntry) error {
+	want := f.SHA256.String()
+	if got, err := fileSHA256(dst); err == nil && got == want {
+		return nil // already here and whole
+	}
+	part := dst + ".part"
+	var have int64
+	if fi, err := os.Stat(part); err == nil && fi.Size() < f.Bytes {
+		have = fi.Size()
+	}
+	hdr := http.Header{}
+	if have > 0 {
+		hdr.Set("Range", fmt.Sprintf("bytes=%d-", have))
+		hdr.Set("If-Range", `"`+want+`"`)
+	}
+	resp, err := cl.do(cmd.Context(), http.MethodGet, path, nil, nil, hdr)
+	if err != nil {
+		return err
+	}
+	defer resp.Body.Close()
+	flags := os.O_WRONLY | os.O_CREATE | os.O_TRUNC
+	if resp.StatusCode == http.StatusPartialContent {
+		flags = os.O_WRONLY | os.O_APPEND
+	} else {
+		have = 0
+	}
+	w, err := os.OpenFile(part, flags, 0o644)
+	if err != nil {
+		return err
+	}
+	var body io.Reader = resp.Body
+	if e.tty() && !e.quiet && !e.json {
+		bar := progressbar.NewOptions64(f.Bytes, progressbar.OptionSetWriter(e.stderr), progressbar.OptionShowBytes(true),
+			progressbar.OptionSetDescription("pulling "+want[:12]), progressbar.OptionClearOnFinish())
+		bar.Set64(have)
+		pr := progressbar.NewReader(resp.Body, bar)
+		body = &pr
+	}
+	if _, err := io.Copy(w, body); err != nil {
+		w.Close()
+		return fmt.Errorf("pull: %s: download interrupted after some bytes; run pull again to resume: %w", want[:12], err)
+	}
+	if err := w.Sync(); err != nil {
+		w.Close()
+		return err
+	}
+	if err := w.Close(); err != nil {
+		return err
+	}
+	got, err := fileSHA256(part)
+	if err != nil {
+		return err
+	}
+	if got != want {
+		os.Remove(part)
+		return fmt.Errorf("pull: file %s arrived with sha256 %s: the bytes differ from the manifest", want, got)
+	}
+	return os.Rename(part, dst)
+}
+
+func fileSHA256(path string) (string, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return "", err
+	}
+	defer f.Close()
+	h := sha256.New()
+	if _, err := io.Copy(h, f); err != nil {
+		return "", err
+	}
+	return hex.EncodeToString(h.Sum(nil)), nil
+}
+
+func writeFileAtomic(path string, data []byte) error {
+	tmp := path + ".tmp"
+	if err := os.WriteFile(tmp, data, 0o644); err != nil {
+		return err
+	}
+	return os.Rename(tmp, path)
+}
+
+func readLock(dir string) (*lockFile, error) {
+	b, err := os.ReadFile(filepath.Join(dir, lockName))
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil, usageErr("%s: no %s here; pull a version into it first", dir, lockName)
+	}
+	if err != nil {
+		return nil, err
+	}
+	var l lockFile
+	if err := json.Unmarshal(b, &l); err != nil || l.LockVersion != 1 {
+		return nil, fmt.Errorf("%s: not a flowcat lock file (version 1)", filepath.Join(dir, lockName))
+	}
+	return &l, nil
+}

@@ -1,0 +1,125 @@
+// Package cli is the flowcat command line: one file per command. Offline
+// commands (validate, schema) call schema, quality and catalog directly;
+// client commands talk to a server over HTTP; init, serve, token and demo
+// work on a data directory.
+package cli
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+
+	"github.com/mattn/go-isatty"
+	"github.com/spf13/cobra"
+)
+
+// Exit codes scripts rely on.
+const (
+	ExitOK       = 0 // success
+	ExitRejected = 1 // data rejected, check failed, or the operation failed
+	ExitUsage    = 2 // the command line is wrong
+)
+
+// exitError carries an exit code with its message.
+type exitError struct {
+	code int
+	err  error
+}
+
+func (e *exitError) Error() string { return e.err.Error() }
+func (e *exitError) Unwrap() error { return e.err }
+
+func usageErr(format string, args ...any) error {
+	return &exitError{code: ExitUsage, err: fmt.Errorf(format, args...)}
+}
+
+// errSilent is an exit-1 failure whose report the command printed itself.
+var errSilent = &exitError{code: ExitRejected, err: errors.New("")}
+
+// env is what every command shares: streams and global flags.
+type env struct {
+	stdout, stderr io.Writer
+	stdin          io.Reader
+	json           bool
+	quiet          bool
+	server         string
+	token          string
+}
+
+// tty reports whether stdout is a terminal (progress bars, colour).
+func (e *env) tty() bool {
+	f, ok := e.stdout.(*os.File)
+	return ok && (isatty.IsTerminal(f.Fd()) || isatty.IsCygwinTerminal(f.Fd()))
+}
+
+// Main runs the command line with args (without the program name) and
+// returns the process exit code.
+func Main(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
+	e := &env{stdout: stdout, stderr: stderr, stdin: stdin}
+	root := newRoot(e)
+	root.SetArgs(args)
+	root.SetOut(stdout)
+	root.SetErr(stderr)
+	err := root.ExecuteContext(ctx)
+	if err == nil {
+		return ExitOK
+	}
+	code := ExitRejected
+	var xe *exitError
+	if errors.As(err, &xe) {
+		code = xe.code
+	}
+	if msg := err.Error(); msg != "" {
+		fmt.Fprintln(stderr, "flowcat:", msg)
+	}
+	return code
+}
+
+func newRoot(e *env) *cobra.Command {
+	root := &cobra.Command{
+		Use:   "flowcat",
+		Short: "A catalog server for pseudonymized, quality-scored service-event snapshots",
+		Long: `flowcat takes partner sites' nightly service-event exports, checks them against the
+common service-event schema through each dataset's mapping profile, pseudonymizes identifiers,
+scores their quality and keeps immutable, versioned Parquet snapshots that students pull and verify.`,
+		SilenceErrors: true,
+		SilenceUsage:  true,
+	}
+	root.SetFlagErrorFunc(func(c *cobra.Command, err error) error {
+		return &exitError{code: ExitUsage, err: fmt.Errorf("%w\n%s", err, c.UsageString())}
+	})
+	pf := root.PersistentFlags()
+	pf.BoolVar(&e.json, "json", false, "print machine-readable JSON")
+	pf.BoolVarP(&e.quiet, "quiet", "q", false, "no progress bars or chatter")
+	pf.StringVar(&e.server, "server", os.Getenv("FLOWCAT_SERVER"), "server URL (env FLOWCAT_SERVER)")
+	pf.StringVar(&e.token, "token", os.Getenv("FLOWCAT_TOKEN"), "API token (env FLOWCAT_TOKEN)")
+
+	root.AddCommand(
+		newInitCmd(e), newServeCmd(e), newTokenCmd(e),
+		newProjectCmd(e), newDatasetCmd(e), newUploadCmd(e), newUploadsCmd(e), newVersionsCmd(e),
+		newPullCmd(e), newVerifyCmd(e), newQualityCmd(e),
+		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e),
+	)
+	for _, c := range root.Commands() {
+		wrapArgs(c)
+	}
+	return root
+}
+
+// wrapArgs makes argument-count errors usage errors (exit 2).
+func wrapArgs(c *cobra.Command) {
+	if c.Args != nil {
+		check := c.Args
+		c.Args = func(cmd *cobra.Command, args []string) error {
+			if err := check(cmd, args); err != nil {
+				return &exitError{code: ExitUsage, err: fmt.Errorf("%s: %w\nusage: %s", cmd.CommandPath(), err, cmd.UseLine())}
+			}
+			return nil
+		}
+	}
+	for _, sub := range c.Commands() {
+		wrapArgs(sub)
+	}
+}

@@ -1,0 +1,103 @@
+package cli
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"net"
+	"net/http"
+	"os/signal"
+	"syscall"
+	"time"
+
+	"github.com/spf13/cobra"
+
+	"github.com/flowcat-catalog/flowcat/server"
+)
+
+func newServeCmd(e *env) *cobra.Command {
+	var dir, addr, masterFile string
+	c := &cobra.Command{
+		Use:   "serve --data DIR --addr HOST:PORT",
+		Short: "Run the catalog server on a data directory",
+		Args:  cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, args []string) error {
+			if dir == "" {
+				return usageErr("serve: --data DIR is required")
+			}
+			log := slog.New(slog.NewJSONHandler(e.stderr, nil))
+			d := dataDir(dir)
+			ctx, stop := signal.NotifyContext(cmd.Context(), syscall.SIGINT, syscall.SIGTERM)
+			defer stop()
+			run, err := startServer(ctx, d, addr, masterFile, log)
+			if err != nil {
+				return err
+			}
+			log.Info("serving", "url", run.url, "data", dir, "master_key", run.masterFrom)
+			return run.wait(ctx)
+		},
+	}
+	c.Flags().StringVar(&dir, "data", "", "data directory (made by flowcat init)")
+	c.Flags().StringVar(&addr, "addr", "127.0.0.1:8470", "listen address HOST:PORT")
+	c.Flags().StringVar(&masterFile, "master-key", "", "master key file (else FLOWCAT_MASTER_KEY, FLOWCAT_MASTER_KEY_FILE, or DIR/master.key)")
+	return c
+}
+
+// running is a started server.
+type running struct {
+	url        string
+	masterFrom string
+	auth       *server.Authority
+	hs         *http.Server
+	done       chan error
+	close      func() error
+}
+
+func startServer(ctx context.Context, d dataDir, addr, masterFile string, log *slog.Logger) (*running, error) {
+	if _, err := d.readInstance(); err != nil {
+		return nil, err
+	}
+	master, from, err := d.findMasterKey(masterFile)
+	if err != nil {
+		return nil, fmt.Errorf("serve: %w", err)
+	}
+	auth, err := d.authority()
+	if err != nil {
+		return nil, fmt.Errorf("serve: %w", err)
+	}
+	st, err := d.openStore(master, log)
+	if err != nil {
+		return nil, fmt.Errorf("serve: %w", err)
+	}
+	ln, err := net.Listen("tcp", addr)
+	if err != nil {
+		st.Close()
+		return nil, fmt.Errorf("serve: %w", err)
+	}
+	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log})
+	hs := srv.HTTPServer(addr)
+	r := &running{url: "http://" + ln.Addr().String(), masterFrom: from, auth: auth, hs: hs, done: make(chan error, 1), close: st.Close}
+	go func() { r.done <- hs.Serve(ln) }()
+	return r, nil
+}
+
+// wait serves until ctx ends, then shuts down gracefully.
+func (r *running) wait(ctx context.Context) error {
+	select {
+	case err := <-r.done:
+		r.close()
+		return fmt.Errorf("serve: %w", err)
+	case <-ctx.Done():
+	}
+	sctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+	defer cancel()
+	err := r.hs.Shutdown(sctx)
+	if serr := <-r.done; serr != nil && !errors.Is(serr, http.ErrServerClosed) && err == nil {
+		err = serr
+	}
+	if cerr := r.close(); err == nil {
+		err = cerr
+	}
+	return err
+}

@@ -1,0 +1,52 @@
+package cli
+
+import (
+	"fmt"
+	"text/tabwriter"
+
+	"github.com/spf13/cobra"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
+)
+
+func newUploadsCmd(e *env) *cobra.Command {
+	return &cobra.Command{
+		Use:   "uploads PROJECT/DATASET",
+		Short: "List a dataset's uploads, accepted or not",
+		Args:  cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := parseRef(args[0], false)
+			if err != nil {
+				return err
+			}
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			var ups []catalog.Upload
+			if err := cl.getJSON(cmd.Context(), r.path()+"/uploads", &ups); err != nil {
+				return err
+			}
+			if e.json {
+				return writeJSON(e.stdout, ups)
+			}
+			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
+			fmt.Fprintln(tw, "UPLOAD\tRECEIVED\tSTATUS\tVERSION\tBYTES\tFILE\tNOTE")
+			for _, u := range ups {
+				note := ""
+				switch {
+				case u.Error != nil:
+					note = fmt.Sprintf("%s line %d %s", u.Error.Rule, u.Error.Line, u.Error.Column)
+				case u.Report != nil:
+					note = fmt.Sprintf("score %s, %d rejected of %d", score(u.Report.Score), u.Report.Rows.Rejected, u.Report.Rows.Total)
+				}
+				v := "-"
+				if u.Version > 0 {
+					v = fmt.Sprint(u.Version)
+				}
+				fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d\t%s\t%s\n", u.ID, ago(u.ReceivedAt), u.Status, v, u.Bytes, u.Filename, note)
+			}
+			return tw.Flush()
+		},
+	}
+}

@@ -1,0 +1,528 @@
+package schema
+
+import (
+	"crypto/sha256"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"slices"
+	"strings"
+	"time"
+	"unicode/utf8"
+
+	"github.com/goccy/go-yaml"
+	"github.com/goccy/go-yaml/ast"
+	"github.com/goccy/go-yaml/parser"
+)
+
+// ErrInvalidProfile is wrapped by every error of ParseProfile and of
+// profile validation, so callers can tell a bad profile from a bad file.
+var ErrInvalidProfile = errors.New("invalid profile")
+
+// ProfileError says what is wrong with a mapping profile and, where known,
+// on which line of its YAML text.
+type ProfileError struct {
+	Line int    // 1-based YAML line; 0 when not known
+	Key  string // dotted key path, e.g. "fields.event_type.codes"
+	Msg  string
+}
+
+func (e *ProfileError) Error() string {
+	s := "profile"
+	if e.Line > 0 {
+		s += fmt.Sprintf(": line %d", e.Line)
+	}
+	if e.Key != "" {
+		s += ": " + e.Key
+	}
+	return s + ": " + e.Msg
+}
+
+// Unwrap makes errors.Is(err, ErrInvalidProfile) hold.
+func (e *ProfileError) Unwrap() error { return ErrInvalidProfile }
+
+// Format is the layout of a source file.
+type Format string
+
+// Source formats.
+const (
+	FormatCSV   Format = "csv"   // delimited text with a header row
+	FormatTSV   Format = "tsv"   // CSV with a tab delimiter
+	FormatJSONL Format = "jsonl" // one JSON object per line
+)
+
+// QuoteNone is the profile's quote setting for files whose fields are not
+// quoted: a '"' inside a field is then taken literally. (A field that
+// starts with '"' is still read as quoted; the underlying encoding/csv
+// reader has no way to turn quoting off entirely.)
+const QuoteNone = "none"
+
+// Mapping says where one schema field's value comes from.
+type Mapping struct {
+	Column   string            `json:"column,omitempty"`   // source column (JSON Lines: top-level key)
+	Value    string            `json:"value,omitempty"`    // a constant, instead of a column
+	Codes    map[string]string `json:"codes,omitempty"`    // source value -> schema value, applied to the trimmed value
+	Default  string            `json:"default,omitempty"`  // schema value for codes not in Codes; empty rejects the row
+	Layout   string            `json:"layout,omitempty"`   // occurred_at only: strftime-style layout; empty auto-detects
+	Optional bool              `json:"optional,omitempty"` // the column may be absent from the file (DefaultProfile only)
+}
+
+// Profile is a partner's mapping of its export onto schema v1: the file
+// format, the zone of wall-clock times and where each field comes from.
+// Build one with ParseProfile or DefaultProfile; a Profile assembled by
+// hand is validated again by NewReader.
+type Profile struct {
+	Format    Format            `json:"format"`
+	Delimiter string            `json:"delimiter,omitempty"` // CSV/TSV: one character
+	Quote     string            `json:"quote,omitempty"`     // CSV/TSV: `"` or QuoteNone
+	Timezone  string            `json:"timezone"`            // IANA zone name of wall-clock times
+	LocalTime LocalTimePolicy   `json:"local_time"`
+	Fields    map[Field]Mapping `json:"fields"`
+
+	loc *time.Location
+}
+
+// DefaultProfile returns the profile of a file that already speaks the
+// schema: a comma-separated CSV whose header uses the schema field names,
+// RFC 3339 timestamps (auto-detected), wall-clock times in UTC. Required
+// fields must be present as columns; optional ones are used when present.
+func DefaultProfile() *Profile {
+	p := &Profile{
+		Format:    FormatCSV,
+		Delimiter: ",",
+		Quote:     `"`,
+		Timezone:  "UTC",
+		LocalTime: LocalTimePolicy{}.normalized(),
+		Fields:    make(map[Field]Mapping, len(Fields)),
+		loc:       time.UTC,
+	}
+	for _, f := range Fields {
+		p.Fields[f] = Mapping{Column: string(f), Optional: !f.Required()}
+	}
+	return p
+}
+
+// Location returns the zone in which wall-clock times are read.
+func (p *Profile) Location() *time.Location {
+	if p.loc != nil {
+		return p.loc
+	}
+	if loc, err := time.LoadLocation(p.Timezone); err == nil && p.Timezone != "" {
+		return loc
+	}
+	return time.UTC
+}
+
+// Hash returns the hex SHA-256 of the profile's canonical JSON form (its
+// normalized struct; map keys sorted), so equal profiles hash equal
+// whatever the layout of their YAML text.
+func (p *Profile) Hash() string {
+	b, err := json.Marshal(p)
+	if err != nil {
+		// A Profile holds only strings, bools and maps of strings.
+		panic("schema: profile hash: " + err.Error())
+	}
+	sum := sha256.Sum256(b)
+	return hex.EncodeToString(sum[:])
+}
+
+// ParseProfile reads a YAML mapping profile. It is strict: unknown keys,
+// unknown fields, bad layouts, unknown zones and unmapped required fields
+// are errors (a *ProfileError naming the YAML line where it can).
+func ParseProfile(data []byte) (*Profile, error) {
+	file, err := parser.ParseBytes(data, 0)
+	if err != nil {
+		pe := &ProfileError{Msg: "not valid YAML"}
+		var ye yaml.Error
+		if errors.As(err, &ye) {
+			pe.Msg = "not valid YAML: " + ye.GetMessage()
+			if tk := ye.GetToken(); tk != nil && tk.Position != nil {
+				pe.Line = tk.Position.Line
+			}
+		}
+		return nil, pe
+	}
+	var body ast.Node
+	for _, d := range file.Docs {
+		if d.Body == nil {
+			continue
+		}
+		if body != nil {
+			return nil, &ProfileError{Line: line(d.Body), Msg: "a profile is one YAML document"}
+		}
+		body = d.Body
+	}
+	if body == nil {
+		return nil, &ProfileError{Msg: "the profile is empty"}
+	}
+	p := &Profile{Fields: map[Field]Mapping{}}
+	top, err := mapping(body, "")
+	if err != nil {
+		return nil, err
+	}
+	var fieldsNode ast.Node
+	lines := map[string]int{}
+	for _, kv := range top {
+		lines[kv.key] = kv.line
+		switch kv.key {
+		case "format":
+			s, err := scalar(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			p.Format = Format(s)
+		case "delimiter":
+			s, err := scalar(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			p.Delimiter = s
+		case "quote":
+			s, err := scalar(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			p.Quote = s
+		case "timezone":
+			s, err := scalar(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			p.Timezone = s
+		case "local_time":
+			lt, err := mapping(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			for _, e := range lt {
+				lines["local_time."+e.key] = e.line
+				s, err := scalar(e.value, "local_time."+e.key)
+				if err != nil {
+					return nil, err
+				}
+				switch e.key {
+				case "ambiguous":
+					p.LocalTime.Ambiguous = AmbiguousPolicy(s)
+				case "nonexistent":
+					p.LocalTime.Nonexistent = NonexistentPolicy(s)
+				default:
+					return nil, &ProfileError{Line: e.line, Key: "local_time." + e.key, Msg: "unknown key (want ambiguous or nonexistent)"}
+				}
+			}
+		case "fields":
+			fieldsNode = kv.value
+		default:
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, timezone, local_time or fields)"}
+		}
+	}
+	if fieldsNode == nil {
+		return nil, &ProfileError{Key: "fields", Msg: "missing: the profile must map the required fields"}
+	}
+	fields, err := mapping(fieldsNode, "fields")
+	if err != nil {
+		return nil, err
+	}
+	for _, kv := range fields {
+		key := "fields." + kv.key
+		lines[key] = kv.line
+		f := Field(kv.key)
+		if !slices.Contains(Fields, f) {
+			return nil, &ProfileError{Line: kv.line, Key: key, Msg: "not a schema field (want one of " + fieldList() + ")"}
+		}
+		m, err := fieldMapping(kv.value, key, lines)
+		if err != nil {
+			return nil, err
+		}
+		p.Fields[f] = m
+	}
+	if err := p.validate(lines); err != nil {
+		return nil, err
+	}
+	return p, nil
+}
+
+// validate normalizes p in place (defaults filled in) and checks it.
+// lines maps dotted keys to YAML lines for messages; it may be nil.
+func (p *Profile) validate(lines map[string]int) error {
+	at := func(key, msg string) error {
+		return &ProfileError{Line: lines[key], Key: key, Msg: msg}
+	}
+	if p.Format == "" {
+		p.Format = FormatCSV
+	}
+	switch p.Format {
+	case FormatCSV, FormatTSV:
+		if p.Format == FormatTSV {
+			if p.Delimiter != "" && p.Delimiter != "\t" && p.Delimiter != `\t` {
+				return at("delimiter", "a tsv file is tab-delimited; leave delimiter out or use format: csv")
+			}
+			p.Delimiter = "\t"
+		}
+		if p.Delimiter == "" {
+			p.Delimiter = ","
+		}
+		if p.Delimiter == `\t` {
+			p.Delimiter = "\t"
+		}
+		r, size := utf8.DecodeRuneInString(p.Delimiter)
+		if size != len(p.Delimiter) || r == utf8.RuneError || r == '"' || r == '\r' || r == '\n' || r == 0xFEFF {
+			return at("delimiter", `must be one character other than '"', CR or LF (write "\t" for tab)`)
+		}
+		if p.Quote == "" {
+			p.Quote = `"`
+		}
+		if p.Quote != `"` && p.Quote != QuoteNone {
+			return at("quote", `must be '"' or none (the reader quotes only with '"')`)
+		}
+	case FormatJSONL:
+		if p.Delimiter != "" {
+			return at("delimiter", "only for csv and tsv")
+		}
+		if p.Quote != "" {
+			return at("quote", "only for csv and tsv")
+		}
+	default:
+		return at("format", fmt.Sprintf("unknown format %q (want csv, tsv or jsonl)", clip(string(p.Format))))
+	}
+	if p.Timezone == "" {
+		p.Timezone = "UTC"
+	}
+	loc, err := time.LoadLocation(p.Timezone)
+	if err != nil || p.Timezone == "Local" {
+		return at("timezone", fmt.Sprintf("unknown IANA time zone %q", clip(p.Timezone)))
+	}
+	p.loc = loc
+	p.LocalTime = p.LocalTime.normalized()
+	switch p.LocalTime.Ambiguous {
+	case AmbiguousReject, AmbiguousEarlier, AmbiguousLater:
+	default:
+		return at("local_time.ambiguous", "must be reject, earlier or later")
+	}
+	switch p.LocalTime.Nonexistent {
+	case NonexistentReject, NonexistentLater:
+	default:
+		return at("local_time.nonexistent", "must be reject or later")
+	}
+	for f := range p.Fields {
+		if !slices.Contains(Fields, f) {
+			return at("fields."+string(f), "not a schema field (want one of "+fieldList()+")")
+		}
+	}
+	// Schema order keeps the first reported problem stable.
+	for _, f := range Fields {
+		m, ok := p.Fields[f]
+		if !ok {
+			continue
+		}
+		key := "fields." + string(f)
+		m.Column = strings.TrimSpace(m.Column)
+		if (m.Column == "") == (m.Value == "") {
+			return at(key, "give exactly one of column or value")
+		}
+		if m.Optional && f.Required() {
+			return at(key, "a required field cannot be optional")
+		}
+		if m.Value != "" {
+			if f == FieldOccurredAt {
+				return at(key, "occurred_at must come from a column")
+			}
+			if len(m.Codes) > 0 || m.Default != "" {
+				return at(key, "codes and default apply to a column, not to a constant value")
+			}
+			if f == FieldEventType && !EventType(m.Value).Valid() {
+				return at(key+".value", "not an event type (want one of "+eventTypeList()+")")
+			}
+		}
+		if f == FieldOccurredAt {
+			if len(m.Codes) > 0 || m.Default != "" {
+				return at(key, "codes and default do not apply to occurred_at")
+			}
+			if m.Layout != "" {
+				if err := ValidateLayout(m.Layout); err != nil {
+					return at(key+".layout", err.Error())
+				}
+			}
+		} else if m.Layout != "" {
+			return at(key+".layout", "layout applies only to occurred_at")
+		}
+		if m.Default != "" && len(m.Codes) == 0 {
+			return at(key+".default", "default applies to codes not listed under codes; add codes")
+		}
+		if f == FieldEventType {
+			for from, to := range m.Codes {
+				if !EventType(to).Valid() {
+					return at(key+".codes", fmt.Sprintf("code %q maps to %q, not an event type (want one of %s)", clip(from), clip(to), eventTypeList()))
+				}
+			}
+			if m.Default != "" && !EventType(m.Default).Valid() {
+				return at(key+".default", "not an event type (want one of "+eventTypeList()+")")
+			}
+		}
+		p.Fields[f] = m
+	}
+	for _, f := range Fields {
+		if f.Required() {
+			if _, ok := p.Fields[f]; !ok {
+				return at("fields", fmt.Sprintf("required field %s is not mapped", f))
+			}
+		}
+	}
+	return nil
+}
+
+// keyValue is one entry of a YAML mapping.
+type keyValue struct {
+	key   string
+	value ast.Node
+	line  int
+}
+
+func line(n ast.Node) int {
+	if n == nil {
+		return 0
+	}
+	if tk := n.GetToken(); tk != nil && tk.Position != nil {
+		return tk.Position.Line
+	}
+	return 0
+}
+
+// mapping returns the entries of a YAML mapping node, rejecting duplicate
+// keys, anchors, aliases and tags (a profile is plain data).
+func mapping(n ast.Node, key string) ([]keyValue, error) {
+	var vals []*ast.MappingValueNode
+	switch m := n.(type) {
+	case *ast.MappingNode:
+		vals = m.Values
+	case *ast.MappingValueNode:
+		vals = []*ast.MappingValueNode{m}
+	default:
+		return nil, &ProfileError{Line: line(n), Key: key, Msg: "must be a mapping (key: value)"}
+	}
+	out := make([]keyValue, 0, len(vals))
+	seen := map[string]bool{}
+	for _, mv := range vals {
+		k, err := scalar(mv.Key, key)
+		if err != nil {
+			return nil, err
+		}
+		path := k
+		if key != "" {
+			path = key + "." + k
+		}
+		if seen[k] {
+			return nil, &ProfileError{Line: line(mv.Key), Key: path, Msg: "given twice"}
+		}
+		seen[k] = true
+		out = append(out, keyValue{key: k, value: mv.Value, line: line(mv.Key)})
+	}
+	return out, nil
+}
+
+// scalar returns the text of a scalar node as written (so a code 01 stays
+// "01"); mappings, sequences, nulls and anchors are errors.
+func scalar(n ast.Node, key string) (string, error) {
+	switch v := n.(type) {
+	case *ast.StringNode:
+		return v.Value, nil
+	case *ast.LiteralNode:
+		return v.Value.Value, nil
+	case *ast.IntegerNode, *ast.FloatNode, *ast.BoolNode, *ast.InfinityNode, *ast.NanNode:
+		return n.GetToken().Value, nil
+	case *ast.NullNode, nil:
+		return "", &ProfileError{Line: line(n), Key: key, Msg: "has no value"}
+	case *ast.AnchorNode, *ast.AliasNode, *ast.TagNode:
+		return "", &ProfileError{Line: line(n), Key: key, Msg: "anchors, aliases and tags are not supported in profiles"}
+	}
+	return "", &ProfileError{Line: line(n), Key: key, Msg: "must be a single value"}
+}
+
+func fieldMapping(n ast.Node, key string, lines map[string]int) (Mapping, error) {
+	var m Mapping
+	switch n.(type) {
+	case *ast.MappingNode, *ast.MappingValueNode:
+	default:
+		s, err := scalar(n, key)
+		if err != nil {
+			return m, err
+		}
+		m.Column = s
+		return m, nil
+	}
+	kvs, err := mapping(n, key)
+	if err != nil {
+		return m, err
+	}
+	for _, kv := range kvs {
+		sub := key + "." + kv.key
+		lines[sub] = kv.line
+		if kv.key == "codes" {
+			codes, err := mapping(kv.value, sub)
+			if err != nil {
+				return m, err
+			}
+			m.Codes = make(map[string]string, len(codes))
+			for _, c := range codes {
+				to, err := scalar(c.value, sub+"."+c.key)
+				if err != nil {
+					return m, err
+				}
+				m.Codes[strings.TrimSpace(c.key)] = to
+			}
+			continue
+		}
+		s, err := scalar(kv.value, sub)
+		if err != nil {
+			return m, err
+		}
+		switch kv.key {
+		case "column":
+			if strings.TrimSpace(s) == "" {
+				return m, &ProfileError{Line: kv.line, Key: sub, Msg: "is empty"}
+			}
+			m.Column = s
+		case "value":
+			if s == "" {
+				return m, &ProfileError{Line: kv.line, Key: sub, Msg: "is empty"}
+			}
+			m.Value = s
+		case "default":
+			m.Default = s
+		case "layout":
+			m.Layout = s
+		default:
+			return m, &ProfileError{Line: kv.line, Key: sub, Msg: "unknown key (want column, value, codes, default or layout)"}
+		}
+	}
+	return m, nil
+}
+
+func fieldList() string {
+	s := make([]string, len(Fields))
+	for i, f := range Fields {
+		s[i] = string(f)
+	}
+	return strings.Join(s, ", ")
+}
+
+func eventTypeList() string {
+	s := make([]string, len(EventTypes))
+	for i, t := range EventTypes {
+		s[i] = string(t)
+	}
+	return strings.Join(s, ", ")
+}
+
+// clip shortens a non-identifier value for quoting in a message.
+func clip(s string) string {
+	const max = 40
+	if len(s) <= max {
+		return s
+	}
+	cut := max
+	for cut > 0 && !utf8.RuneStart(s[cut]) {
+		cut--
+	}
+	return s[:cut] + "..."
+}

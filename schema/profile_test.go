@@ -1,0 +1,228 @@
+package schema
+
+import (
+	"errors"
+	"os"
+	"strings"
+	"testing"
+	"time"
+)
+
+const fullProfile = `
+format: csv            # the default
+delimiter: ";"
+quote: '"'
+timezone: Europe/Amsterdam
+local_time:
+  ambiguous: earlier
+  nonexistent: later
+fields:
+  site: {value: "north-clinic"}
+  case_id: "Visit No"
+  event_type:
+    column: "Code"
+    codes: {ARR: arrival, TRI: start, 01: complete}
+    default: departure
+  occurred_at:
+    column: "When"
+    layout: "%Y/%m/%d %H:%M:%S.%f"
+  activity: {column: "Step", codes: {T: triage}}
+`
+
+func TestParseProfileFull(t *testing.T) {
+	p, err := ParseProfile([]byte(fullProfile))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p.Format != FormatCSV || p.Delimiter != ";" || p.Quote != `"` || p.Timezone != "Europe/Amsterdam" {
+		t.Errorf("header settings: %+v", p)
+	}
+	if p.Location().String() != "Europe/Amsterdam" {
+		t.Errorf("Location = %v", p.Location())
+	}
+	if p.LocalTime != (LocalTimePolicy{Ambiguous: AmbiguousEarlier, Nonexistent: NonexistentLater}) {
+		t.Errorf("local_time = %+v", p.LocalTime)
+	}
+	want := map[Field]Mapping{
+		FieldSite:       {Value: "north-clinic"},
+		FieldCaseID:     {Column: "Visit No"},
+		FieldEventType:  {Column: "Code", Codes: map[string]string{"ARR": "arrival", "TRI": "start", "01": "complete"}, Default: "departure"},
+		FieldOccurredAt: {Column: "When", Layout: "%Y/%m/%d %H:%M:%S.%f"},
+		FieldActivity:   {Column: "Step", Codes: map[string]string{"T": "triage"}},
+	}
+	if len(p.Fields) != len(want) {
+		t.Fatalf("fields %v", p.Fields)
+	}
+	for f, w := range want {
+		g := p.Fields[f]
+		if g.Column != w.Column || g.Value != w.Value || g.Default != w.Default || g.Layout != w.Layout || len(g.Codes) != len(w.Codes) {
+			t.Errorf("%s = %+v, want %+v", f, g, w)
+		}
+		for k, v := range w.Codes {
+			if g.Codes[k] != v {
+				t.Errorf("%s code %q = %q, want %q", f, k, g.Codes[k], v)
+			}
+		}
+	}
+}
+
+func TestParseProfileDefaults(t *testing.T) {
+	p, err := ParseProfile([]byte("fields: {site: {value: s}, case_id: c, event_type: e, occurred_at: t}\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p.Format != FormatCSV || p.Delimiter != "," || p.Quote != `"` || p.Timezone != "UTC" || p.Location() != time.UTC {
+		t.Errorf("defaults: %+v", p)
+	}
+	if p.LocalTime != (LocalTimePolicy{Ambiguous: AmbiguousReject, Nonexistent: NonexistentReject}) {
+		t.Errorf("local_time defaults %+v", p.LocalTime)
+	}
+	for in, want := range map[string]string{"format: tsv\n": "\t", "delimiter: '\\t'\n": "\t", "delimiter: \"\\t\"\n": "\t", "delimiter: '|'\n": "|"} {
+		p, err := ParseProfile([]byte(in + "fields: {site: {value: s}, case_id: c, event_type: e, occurred_at: t}\n"))
+		if err != nil {
+			t.Errorf("%q: %v", in, err)
+			continue
+		}
+		if p.Delimiter != want {
+			t.Errorf("%q: delimiter %q, want %q", in, p.Delimiter, want)
+		}
+	}
+}
+
+func TestParseProfileErrors(t *testing.T) {
+	const base = "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: t\n"
+	tests := []struct {
+		name string
+		yaml string
+		line int
+		key  string
+		msg  string // a piece of the message
+	}{
+		{"empty", "", 0, "", "empty"},
+		{"not yaml", "fields: [a\n", 1, "", "YAML"},
+		{"unknown top key", "formatt: csv\n" + base, 1, "formatt", "unknown key"},
+		{"unknown field", base + "  age: Age\n", 6, "fields.age", "not a schema field"},
+		{"unknown field key", "fields:\n  site: {value: s}\n  case_id: {column: c, colum: d}\n  event_type: e\n  occurred_at: t\n", 3, "fields.case_id.colum", "unknown key"},
+		{"both column and value", "fields:\n  site: {value: s, column: x}\n  case_id: c\n  event_type: e\n  occurred_at: t\n", 2, "fields.site", "exactly one"},
+		{"neither column nor value", "fields:\n  site: {codes: {a: b}}\n  case_id: c\n  event_type: e\n  occurred_at: t\n", 2, "fields.site", "exactly one"},
+		{"required unmapped", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n", 1, "fields", "occurred_at"},
+		{"no fields", "format: csv\n", 0, "fields", "missing"},
+		{"bad zone", "timezone: Europe/Atlantis\n" + base, 1, "timezone", "time zone"},
+		{"bad format", "format: xlsx\n" + base, 1, "format", "unknown format"},
+		{"long delimiter", "delimiter: ';;'\n" + base, 1, "delimiter", "one character"},
+		{"quote delimiter", "delimiter: '\"'\n" + base, 1, "delimiter", "one character"},
+		{"bad quote", "quote: \"'\"\n" + base, 1, "quote", "none"},
+		{"tsv with comma", "format: tsv\ndelimiter: ','\n" + base, 2, "delimiter", "tab"},
+		{"jsonl with delimiter", "format: jsonl\ndelimiter: ','\n" + base, 2, "delimiter", "only for csv"},
+		{"bad ambiguous", "local_time: {ambiguous: first}\n" + base, 1, "local_time.ambiguous", "earlier"},
+		{"bad nonexistent", "local_time: {nonexistent: earlier}\n" + base, 1, "local_time.nonexistent", "reject or later"},
+		{"unknown local_time key", "local_time: {gap: later}\n" + base, 1, "local_time.gap", "unknown key"},
+		{"unknown layout directive", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: {column: t, layout: '%Y-%m-%d %Q'}\n", 5, "fields.occurred_at.layout", "%Q"},
+		{"layout without year", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: {column: t, layout: '%H:%M'}\n", 5, "fields.occurred_at.layout", "no year"},
+		{"layout on other field", "fields:\n  site: {value: s}\n  case_id: {column: c, layout: '%Y'}\n  event_type: e\n  occurred_at: t\n", 3, "fields.case_id.layout", "only to occurred_at"},
+		{"code to bad event type", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: {column: e, codes: {A: arrived}}\n  occurred_at: t\n", 4, "fields.event_type.codes", "not an event type"},
+		{"bad event type default", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: {column: e, codes: {A: arrival}, default: gone}\n  occurred_at: t\n", 4, "fields.event_type.default", "not an event type"},
+		{"bad event type constant", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: {value: came}\n  occurred_at: t\n", 4, "fields.event_type.value", "not an event type"},
+		{"default without codes", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: {column: e, default: arrival}\n  occurred_at: t\n", 4, "fields.event_type.default", "add codes"},
+		{"constant time", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: {value: '2021-01-01'}\n", 5, "fields.occurred_at", "column"},
+		{"duplicate key", "fields:\n  site: {value: s}\n  case_id: c\n  case_id: d\n  event_type: e\n  occurred_at: t\n", 4, "", ""},
+		{"field is a list", "fields:\n  site: [a, b]\n  case_id: c\n  event_type: e\n  occurred_at: t\n", 2, "fields.site", "single value"},
+		{"null field", "fields:\n  site:\n  case_id: c\n  event_type: e\n  occurred_at: t\n", 2, "fields.site", "no value"},
+		{"two documents", base + "---\n" + base, 7, "", "one YAML document"},
+	}
+	for _, tc := range tests {
+		_, err := ParseProfile([]byte(tc.yaml))
+		if err == nil {
+			t.Errorf("%s: no error", tc.name)
+			continue
+		}
+		if !errors.Is(err, ErrInvalidProfile) {
+			t.Errorf("%s: %v does not wrap ErrInvalidProfile", tc.name, err)
+		}
+		var pe *ProfileError
+		if !errors.As(err, &pe) {
+			t.Errorf("%s: %T is not a *ProfileError", tc.name, err)
+			continue
+		}
+		if pe.Line != tc.line {
+			t.Errorf("%s: line %d, want %d (%v)", tc.name, pe.Line, tc.line, err)
+		}
+		if tc.key != "" && pe.Key != tc.key {
+			t.Errorf("%s: key %q, want %q (%v)", tc.name, pe.Key, tc.key, err)
+		}
+		if !strings.Contains(pe.Msg, tc.msg) {
+			t.Errorf("%s: message %q lacks %q", tc.name, pe.Msg, tc.msg)
+		}
+	}
+}
+
+func TestProfileHash(t *testing.T) {
+	a, err := ParseProfile([]byte(fullProfile))
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The same profile written differently: other key order, flow style,
+	// defaults spelled out, comments.
+	b, err := ParseProfile([]byte(`
+fields:
+  activity:
+    codes: {T: triage}
+    column: Step
+  occurred_at: {layout: "%Y/%m/%d %H:%M:%S.%f", column: When}
+  event_type: {default: departure, codes: {TRI: start, "01": complete, ARR: arrival}, column: Code}
+  case_id: {column: "Visit No"}
+  site: {value: north-clinic}
+local_time: {nonexistent: later, ambiguous: earlier}
+timezone: "Europe/Amsterdam"
+delimiter: ';'
+`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if a.Hash() != b.Hash() {
+		t.Errorf("equal profiles hash differently: %s vs %s", a.Hash(), b.Hash())
+	}
+	if len(a.Hash()) != 64 {
+		t.Errorf("hash %q is not hex sha256", a.Hash())
+	}
+	c, err := ParseProfile([]byte(strings.Replace(fullProfile, "TRI: start", "TRI: enqueue", 1)))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Hash() == a.Hash() {
+		t.Error("different codes hash equal")
+	}
+	if DefaultProfile().Hash() != DefaultProfile().Hash() || DefaultProfile().Hash() == a.Hash() {
+		t.Error("default profile hash unstable or colliding")
+	}
+}
+
+func TestDefaultProfile(t *testing.T) {
+	p := DefaultProfile()
+	if p.Format != FormatCSV || p.Delimiter != "," || p.Location() != time.UTC {
+		t.Errorf("%+v", p)
+	}
+	for _, f := range Fields {
+		m, ok := p.Fields[f]
+		if !ok || m.Column != string(f) || m.Optional == f.Required() {
+			t.Errorf("%s: %+v", f, m)
+		}
+	}
+	if err := p.validate(nil); err != nil {
+		t.Errorf("default profile does not validate: %v", err)
+	}
+}
+
+func TestSepsisProfileParses(t *testing.T) {
+	data, err := os.ReadFile("../testdata/sepsis/profile.yaml")
+	if err != nil {
+		t.Fatal(err)
+	}
+	p, err := ParseProfile(data)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p.Delimiter != ";" || p.Timezone != "Europe/Amsterdam" || p.Fields[FieldOccurredAt].Layout != "%Y/%m/%d %H:%M:%S.%f" {
+		t.Errorf("%+v", p)
+	}
+}

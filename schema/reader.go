@@ -1,0 +1,688 @@
+package schema
+
+import (
+	"bufio"
+	"bytes"
+	"compress/gzip"
+	"encoding/csv"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"slices"
+	"strings"
+	"unicode/utf8"
+)
+
+// maxRecordBytes bounds one CSV record or JSON line. An unclosed quote
+// would otherwise make one "record" of the rest of the file and hold it in
+// memory.
+const maxRecordBytes = 16 << 20
+
+// internCap bounds each field's intern table, so a high-cardinality column
+// costs no more than a fixed amount of memory.
+const internCap = 4096
+
+// maxUnmappedKeys caps the JSON Lines keys Unmapped reports.
+const maxUnmappedKeys = 100
+
+var errRecordTooLong = errors.New("record too long")
+
+// ReaderOptions are the settings of NewReader; the zero value is usable.
+type ReaderOptions struct {
+	Name string // file name, for messages
+}
+
+// Reader streams typed events out of one source file through a profile.
+// It holds one record at a time; memory does not grow with the file.
+// A Reader is not safe for concurrent use.
+type Reader struct {
+	p    *Profile
+	name string
+	tp   timeParser
+	cols [len(fieldsArray)]column
+
+	src   *sourceReader
+	gz    bool
+	guard *guardReader
+
+	// CSV/TSV
+	csv      *csv.Reader
+	header   []string
+	unmapped []string
+
+	// JSON Lines
+	br       *bufio.Reader
+	lineNo   int64
+	lineBuf  []byte
+	obj      map[string]json.RawMessage
+	seenKeys map[string]bool
+
+	vals [len(fieldsArray)]string
+	rows int64
+	err  error // sticky end: io.EOF or a *FileError
+}
+
+// fieldsArray fixes the number of schema fields at compile time.
+var fieldsArray = [...]Field{
+	FieldSite, FieldCaseID, FieldSubjectID, FieldResourceID, FieldEventType,
+	FieldActivity, FieldQueue, FieldOccurredAt, FieldPriority, FieldChannel,
+	FieldOutcome, FieldEventID,
+}
+
+type columnKind uint8
+
+const (
+	kindNone columnKind = iota
+	kindColumn
+	kindConstant
+)
+
+// column is one schema field's compiled mapping.
+type column struct {
+	kind   columnKind
+	name   string // source column / key
+	idx    int    // CSV index in the header
+	value  string // constant
+	codes  map[string]string
+	def    string
+	intern map[string]string
+}
+
+// NewReader prepares to read r through profile p (nil means
+// DefaultProfile). It detects gzip by its magic bytes and reads through it,
+// and for CSV/TSV reads the header and checks that every mapped column is
+// present. Problems come back as a *FileError: RuleEmptyFile,
+// RuleMissingColumn, RuleDuplicateColumn, RuleEncoding, RuleCompression,
+// RuleRead, or RuleProfile for an invalid hand-built profile.
+func NewReader(r io.Reader, p *Profile, opt ReaderOptions) (*Reader, error) {
+	if p == nil {
+		p = DefaultProfile()
+	}
+	if err := p.validate(nil); err != nil {
+		return nil, &FileError{Rule: RuleProfile, Msg: err.Error(), Err: err}
+	}
+	rd := &Reader{p: p, name: opt.Name}
+	rd.tp = timeParser{loc: p.Location(), policy: p.LocalTime.normalized()}
+	if m, ok := p.Fields[FieldOccurredAt]; ok && m.Layout != "" {
+		hasOff, err := layoutInfo(m.Layout)
+		if err != nil {
+			return nil, &FileError{Rule: RuleProfile, Msg: "occurred_at layout: " + err.Error(), Err: err}
+		}
+		rd.tp.layout, rd.tp.layoutOffset = m.Layout, hasOff
+	}
+	for i, f := range fieldsArray {
+		m, ok := p.Fields[f]
+		c := &rd.cols[i]
+		c.idx = -1
+		switch {
+		case !ok:
+			continue
+		case m.Value != "":
+			c.kind, c.value = kindConstant, m.Value
+		default:
+			c.kind, c.name, c.codes, c.def = kindColumn, m.Column, m.Codes, m.Default
+			switch f {
+			case FieldResourceID, FieldActivity, FieldQueue, FieldPriority, FieldChannel, FieldOutcome, FieldSite:
+				c.intern = make(map[string]string)
+			}
+		}
+	}
+
+	rd.src = &sourceReader{r: r}
+	br := bufio.NewReaderSize(rd.src, 64<<10)
+	var in io.Reader = br
+	if magic, err := br.Peek(2); err == nil && magic[0] == 0x1f && magic[1] == 0x8b {
+		rd.gz = true
+		zr, err := gzip.NewReader(br)
+		if err != nil {
+			return nil, rd.fatal(err, 0)
+		}
+		in = zr
+	} else if err != nil && err != io.EOF {
+		return nil, rd.fatal(err, 0)
+	}
+	rd.guard = &guardReader{r: in, limit: math.MaxInt64}
+
+	if p.Format == FormatJSONL {
+		rd.br = bufio.NewReaderSize(rd.guard, 64<<10)
+		if _, err := rd.br.Peek(1); err == io.EOF {
+			return nil, rd.fileErr(RuleEmptyFile, 0, "", "the file is empty", nil)
+		} else if err != nil {
+			return nil, rd.fatal(err, 0)
+		}
+		rd.obj = make(map[string]json.RawMessage)
+		rd.seenKeys = make(map[string]bool)
+		return rd, nil
+	}
+	if err := rd.readHeader(); err != nil {
+		return nil, err
+	}
+	return rd, nil
+}
+
+func (rd *Reader) readHeader() error {
+	cr := csv.NewReader(bufio.NewReaderSize(rd.guard, 64<<10))
+	delim, _ := utf8.DecodeRuneInString(rd.p.Delimiter)
+	cr.Comma = delim
+	cr.FieldsPerRecord = -1
+	cr.ReuseRecord = true
+	cr.LazyQuotes = rd.p.Quote == QuoteNone
+	rd.csv = cr
+	rd.guard.limit = maxRecordBytes + 64<<10
+
+	rec, err := cr.Read()
+	if err == io.EOF {
+		return rd.fileErr(RuleEmptyFile, 0, "", "the file is empty (no header row)", nil)
+	}
+	if err != nil {
+		var pe *csv.ParseError
+		if errors.As(err, &pe) && rd.guard.err == nil {
+			return rd.fileErr(RuleSyntax, int64(pe.StartLine), "", fmt.Sprintf("the header row has bad quoting (line %d, byte %d)", pe.Line, pe.Column), nil)
+		}
+		return rd.fatal(err, 1)
+	}
+	rd.guard.limit = cr.InputOffset() + maxRecordBytes + 64<<10
+	headerLine, _ := cr.FieldPos(0)
+	rd.header = make([]string, len(rec))
+	for i, h := range rec {
+		if !utf8.ValidString(h) {
+			l, _ := cr.FieldPos(i)
+			return rd.fileErr(RuleEncoding, int64(l), fmt.Sprintf("field %d", i+1), "the header is not valid UTF-8", nil)
+		}
+		if i == 0 {
+			h = strings.TrimPrefix(h, "\uFEFF") // byte-order mark of spreadsheet exports
+		}
+		rd.header[i] = strings.TrimSpace(h)
+	}
+	index := make(map[string]int, len(rd.header))
+	for i, h := range rd.header {
+		if _, dup := index[h]; dup && h != "" {
+			if rd.headerLooksLikeData() {
+				// The cells may be identifier values: name none of them.
+				return rd.fileErr(RuleDuplicateColumn, int64(headerLine), "", fmt.Sprintf("the first row repeats a cell (fields %d and %d) and looks like data (a cell reads as a number or a timestamp): is the header row missing?", index[h]+1, i+1), nil)
+			}
+			return rd.fileErr(RuleDuplicateColumn, int64(headerLine), h, fmt.Sprintf("the header names column %q twice (fields %d and %d)", clip(h), index[h]+1, i+1), nil)
+		}
+		index[h] = i
+	}
+	mapped := map[string]bool{}
+	for i, f := range fieldsArray {
+		c := &rd.cols[i]
+		if c.kind != kindColumn {
+			continue
+		}
+		idx, ok := index[c.name]
+		if !ok {
+			if rd.p.Fields[f].Optional {
+				c.kind = kindNone
+				continue
+			}
+			return rd.fileErr(RuleMissingColumn, int64(headerLine), c.name, rd.missingColumnMsg(f, c.name), nil)
+		}
+		c.idx = idx
+		mapped[c.name] = true
+	}
+	for _, h := range rd.header {
+		if !mapped[h] && h != "" {
+			rd.unmapped = append(rd.unmapped, h)
+		}
+	}
+	return nil
+}
+
+// missingColumnMsg explains a missing column. It lists the header's column
+// names, unless the "header" looks like a data row: then its cells may be
+// identifier values and are not repeated.
+func (rd *Reader) missingColumnMsg(f Field, col string) string {
+	if rd.headerLooksLikeData() {
+		return fmt.Sprintf("field %s needs column %q, which is not in the first row; the first row looks like data (a cell reads as a number or a timestamp): is the header row missing?", f, clip(col))
+	}
+	if len(rd.header) == 1 {
+		msg := fmt.Sprintf("field %s needs column %q, but the header has 1 column (%q); is the delimiter right? profile says %q", f, clip(col), clipN(rd.header[0], 80), rd.p.Delimiter)
+		for _, d := range []string{";", ",", "\t", "|"} {
+			if d != rd.p.Delimiter && strings.Count(rd.header[0], d) > 0 {
+				msg += fmt.Sprintf(", and the header holds %d %q", strings.Count(rd.header[0], d), d)
+				break
+			}
+		}
+		return msg
+	}
+	names := make([]string, 0, min(len(rd.header), 50))
+	for i, h := range rd.header {
+		if i == 50 {
+			names = append(names, fmt.Sprintf("... (%d more)", len(rd.header)-50))
+			break
+		}
+		names = append(names, fmt.Sprintf("%q", clip(h)))
+	}
+	return fmt.Sprintf("field %s needs column %q, which is not in the header; the header has %d columns: %s", f, clip(col), len(rd.header), strings.Join(names, ", "))
+}
+
+func (rd *Reader) headerLooksLikeData() bool {
+	for _, h := range rd.header {
+		if cellLooksLikeData(h, &rd.tp) {
+			return true
+		}
+		// A wrong delimiter leaves a whole row in one cell.
+		for _, d := range []string{";", ",", "\t", "|"} {
+			if strings.Contains(h, d) {
+				for part := range strings.SplitSeq(h, d) {
+					if cellLooksLikeData(strings.TrimSpace(part), &rd.tp) {
+						return true
+					}
+				}
+			}
+		}
+	}
+	return false
+}
+
+// cellLooksLikeData reports whether a header cell reads as a timestamp or
+// a number, which column names seldom do.
+func cellLooksLikeData(h string, tp *timeParser) bool {
+	if h == "" {
+		return false
+	}
+	if _, err := tp.parse(h); err != ErrBadTimestamp {
+		return true
+	}
+	if _, _, _, ok := parseAuto(h); ok {
+		return true
+	}
+	numeric, digit := true, false
+	for _, c := range h {
+		if c >= '0' && c <= '9' {
+			digit = true
+		} else if c != '.' && c != ',' && c != '-' && c != '+' {
+			numeric = false
+			break
+		}
+	}
+	return numeric && digit
+}
+
+// Next reads the next row. It fills *e and returns (nil, nil) for an
+// accepted event; returns (rej, nil) for a rejected row (*e is then
+// undefined); (nil, io.EOF) at the end; or (nil, *FileError) when the file
+// cannot be read on (RuleNoRows for a header without data rows, RuleSyntax,
+// RuleEncoding, RuleCompression, RuleRead). After io.EOF or a *FileError
+// every call returns the same error.
+func (rd *Reader) Next(e *Event) (*Rejection, error) {
+	if rd.err != nil {
+		return nil, rd.err
+	}
+	var rej *Rejection
+	var err error
+	if rd.csv != nil {
+		rej, err = rd.nextCSV(e)
+	} else {
+		rej, err = rd.nextJSON(e)
+	}
+	if err != nil {
+		rd.err = err
+	}
+	return rej, err
+}
+
+func (rd *Reader) nextCSV(e *Event) (*Rejection, error) {
+	rec, err := rd.csv.Read()
+	if err != nil {
+		var pe *csv.ParseError
+		if errors.As(err, &pe) && rd.guard.err == nil {
+			rd.guard.limit = rd.csv.InputOffset() + maxRecordBytes + 64<<10
+			rd.rows++
+			return &Rejection{Line: int64(pe.StartLine), Reason: ReasonMalformedRow,
+				Message: fmt.Sprintf("bad quoting: a '\"' is misplaced or unclosed (line %d, byte %d)", pe.Line, pe.Column)}, nil
+		}
+		if err == io.EOF {
+			if rd.rows == 0 {
+				l, _ := rd.csv.FieldPos(0)
+				return nil, rd.fileErr(RuleNoRows, 0, "", fmt.Sprintf("the file has a header (line %d) but no data rows", l), nil)
+			}
+			return nil, io.EOF
+		}
+		return nil, rd.fatal(err, 0)
+	}
+	rd.guard.limit = rd.csv.InputOffset() + maxRecordBytes + 64<<10
+	rd.rows++
+	l, _ := rd.csv.FieldPos(0)
+	line := int64(l)
+	for i, v := range rec {
+		if !utf8.ValidString(v) {
+			fl, _ := rd.csv.FieldPos(i)
+			return nil, rd.fileErr(RuleEncoding, int64(fl), rd.columnName(i), "the value is not valid UTF-8; is the file in another encoding (Latin-1, Windows-1252)?", nil)
+		}
+	}
+	if len(rec) != len(rd.header) {
+		return &Rejection{Line: line, Reason: ReasonFieldCount,
+			Message: fmt.Sprintf("the row has %d fields, the header %d; a stray %q or a missing quote?", len(rec), len(rd.header), rd.p.Delimiter)}, nil
+	}
+	for i := range rd.cols {
+		c := &rd.cols[i]
+		if c.kind == kindColumn {
+			rd.vals[i] = rec[c.idx]
+		}
+	}
+	return rd.build(e, line)
+}
+
+func (rd *Reader) columnName(i int) string {
+	if i < len(rd.header) && rd.header[i] != "" {
+		return rd.header[i]
+	}
+	return fmt.Sprintf("field %d", i+1)
+}
+
+func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
+	for {
+		b, err := rd.readLine()
+		if err == io.EOF {
+			if rd.rows == 0 {
+				return nil, rd.fileErr(RuleEmptyFile, 0, "", "the file holds no JSON lines", nil)
+			}
+			return nil, io.EOF
+		}
+		if err != nil {
+			return nil, err
+		}
+		rd.lineNo++
+		b = bytes.TrimSpace(b)
+		if len(b) == 0 {
+			continue
+		}
+		rd.rows++
+		line := rd.lineNo
+		if !utf8.Valid(b) {
+			return nil, rd.fileErr(RuleEncoding, line, "", "the line is not valid UTF-8; is the file in another encoding (Latin-1, Windows-1252)?", nil)
+		}
+		if b[0] != '{' {
+			return &Rejection{Line: line, Reason: ReasonMalformedRow, Message: "the line is not a JSON object"}, nil
+		}
+		clear(rd.obj)
+		if err := json.Unmarshal(b, &rd.obj); err != nil {
+			msg := "the line is not valid JSON"
+			var se *json.SyntaxError
+			if errors.As(err, &se) {
+				msg += fmt.Sprintf(" (byte %d)", se.Offset)
+			}
+			return &Rejection{Line: line, Reason: ReasonMalformedRow, Message: msg}, nil
+		}
+		if len(rd.seenKeys) < maxUnmappedKeys {
+			for k := range rd.obj {
+				if len(rd.seenKeys) >= maxUnmappedKeys {
+					break
+				}
+				if !rd.seenKeys[k] && !rd.mappedKey(k) {
+					rd.seenKeys[k] = true
+				}
+			}
+		}
+		for i := range rd.cols {
+			c := &rd.cols[i]
+			if c.kind != kindColumn {
+				continue
+			}
+			raw, ok := rd.obj[c.name]
+			v := ""
+			if ok && len(raw) > 0 {
+				switch raw[0] {
+				case '"':
+					if err := json.Unmarshal(raw, &v); err != nil {
+						return &Rejection{Line: line, Column: c.name, Field: fieldsArray[i], Reason: ReasonMalformedRow, Message: "the string does not decode"}, nil
+					}
+				case 'n':
+				case '{', '[':
+					kind := "an object"
+					if raw[0] == '[' {
+						kind = "an array"
+					}
+					return &Rejection{Line: line, Column: c.name, Field: fieldsArray[i], Reason: ReasonBadValue,
+						Message: "the value is " + kind + "; want a string, number or boolean"}, nil
+				default: // number or boolean: keep its JSON text
+					v = string(raw)
+				}
+			}
+			rd.vals[i] = v
+		}
+		return rd.build(e, line)
+	}
+}
+
+func (rd *Reader) mappedKey(k string) bool {
+	for i := range rd.cols {
+		if rd.cols[i].kind == kindColumn && rd.cols[i].name == k {
+			return true
+		}
+	}
+	return false
+}
+
+// readLine returns the next line without its newline; the slice is valid
+// until the next call.
+func (rd *Reader) readLine() ([]byte, error) {
+	b, err := rd.br.ReadSlice('\n')
+	if err == bufio.ErrBufferFull {
+		rd.lineBuf = append(rd.lineBuf[:0], b...)
+		for err == bufio.ErrBufferFull {
+			if len(rd.lineBuf) > maxRecordBytes {
+				return nil, rd.fileErr(RuleSyntax, rd.lineNo+1, "", fmt.Sprintf("a line is longer than %d MiB", maxRecordBytes>>20), nil)
+			}
+			b, err = rd.br.ReadSlice('\n')
+			rd.lineBuf = append(rd.lineBuf, b...)
+		}
+		b = rd.lineBuf
+	}
+	if err == io.EOF && len(b) > 0 {
+		err = nil
+	}
+	if err != nil {
+		if err == io.EOF {
+			return nil, io.EOF
+		}
+		return nil, rd.fatal(err, rd.lineNo+1)
+	}
+	return b, nil
+}
+
+// build maps the row's raw values (rd.vals) into *e.
+func (rd *Reader) build(e *Event, line int64) (*Rejection, error) {
+	*e = Event{Line: line}
+	for i := range rd.cols {
+		c := &rd.cols[i]
+		f := fieldsArray[i]
+		var v string
+		switch c.kind {
+		case kindNone:
+			continue
+		case kindConstant:
+			v = c.value
+		case kindColumn:
+			v = strings.TrimSpace(rd.vals[i])
+			if v != "" && c.codes != nil {
+				if to, ok := c.codes[v]; ok {
+					v = to
+				} else if c.def != "" {
+					v = c.def
+				} else {
+					return rd.unknownCode(line, c, f, v, true), nil
+				}
+			}
+		}
+		if v == "" {
+			if f.Required() {
+				return &Rejection{Line: line, Column: c.name, Field: f, Reason: ReasonMissingRequired,
+					Message: fmt.Sprintf("required field %s is empty", f)}, nil
+			}
+			continue
+		}
+		switch f {
+		case FieldOccurredAt:
+			t, err := rd.tp.parse(v)
+			if err != nil {
+				return rd.timeRejection(line, c, v, err), nil
+			}
+			e.OccurredAt = t
+		case FieldEventType:
+			t, ok := canonicalEventType(v)
+			if !ok {
+				return rd.unknownCode(line, c, f, v, false), nil
+			}
+			e.Type = t
+		default:
+			if c.intern != nil {
+				if s, ok := c.intern[v]; ok {
+					v = s
+				} else if len(c.intern) < internCap {
+					// Cloned so the table does not pin the whole record.
+					v = strings.Clone(v)
+					c.intern[v] = v
+				}
+			}
+			e.SetValue(f, v)
+		}
+	}
+	return nil, nil
+}
+
+// canonicalEventType returns the package constant for s, so an event does
+// not keep the source record alive through its type.
+func canonicalEventType(s string) (EventType, bool) {
+	for _, t := range EventTypes {
+		if string(t) == s {
+			return t, true
+		}
+	}
+	return "", false
+}
+
+func (rd *Reader) unknownCode(line int64, c *column, f Field, v string, coded bool) *Rejection {
+	r := &Rejection{Line: line, Column: c.name, Field: f, Reason: ReasonUnknownCode}
+	what := "the value"
+	if !f.Identifier() {
+		what = fmt.Sprintf("code %q", clip(v))
+	}
+	switch {
+	case coded:
+		r.Message = what + " is not listed under codes and the profile gives no default"
+	default:
+		r.Message = what + " is not an event type (want one of " + eventTypeList() + "); map it under codes"
+	}
+	return r
+}
+
+func (rd *Reader) timeRejection(line int64, c *column, v string, err error) *Rejection {
+	r := &Rejection{Line: line, Column: c.name, Field: FieldOccurredAt}
+	switch err {
+	case ErrNonexistentLocal:
+		r.Reason = ReasonNonexistentLocal
+		r.Message = fmt.Sprintf("%q does not exist in %s (clocks were set forward); local_time.nonexistent: later would shift it forward", clip(v), rd.p.Timezone)
+	case ErrAmbiguousLocal:
+		r.Reason = ReasonAmbiguousLocal
+		r.Message = fmt.Sprintf("%q occurs twice in %s (clocks were set back); set local_time.ambiguous to earlier or later", clip(v), rd.p.Timezone)
+	default:
+		r.Reason = ReasonBadTimestamp
+		if rd.tp.layout != "" {
+			r.Message = fmt.Sprintf("%q does not match layout %q", clip(v), rd.tp.layout)
+		} else {
+			r.Message = fmt.Sprintf("%q is not an RFC 3339 / ISO 8601 timestamp", clip(v))
+		}
+	}
+	return r
+}
+
+// Unmapped returns the source columns present in the file that the profile
+// does not map: for CSV/TSV the header's, in header order; for JSON Lines
+// the keys seen so far, sorted, at most 100.
+func (rd *Reader) Unmapped() []string {
+	if rd.csv != nil {
+		return slices.Clone(rd.unmapped)
+	}
+	out := make([]string, 0, len(rd.seenKeys))
+	for k := range rd.seenKeys {
+		out = append(out, k)
+	}
+	slices.Sort(out)
+	return out
+}
+
+// Rows returns the number of data rows read so far, accepted or rejected.
+func (rd *Reader) Rows() int64 { return rd.rows }
+
+// Header returns the CSV/TSV header's column names (trimmed), or nil for
+// JSON Lines.
+func (rd *Reader) Header() []string { return slices.Clone(rd.header) }
+
+func (rd *Reader) fileErr(rule string, line int64, col, msg string, err error) *FileError {
+	if rd.name != "" {
+		msg += " (in " + rd.name + ")"
+	}
+	return &FileError{Line: line, Column: col, Rule: rule, Msg: msg, Err: err}
+}
+
+// fatal classifies an error of the byte stream.
+func (rd *Reader) fatal(err error, line int64) *FileError {
+	switch {
+	case errors.Is(err, errRecordTooLong):
+		return rd.fileErr(RuleSyntax, line, "", fmt.Sprintf("a record is longer than %d MiB; is a quote left open?", maxRecordBytes>>20), err)
+	case rd.src.err != nil:
+		return rd.fileErr(RuleRead, line, "", "reading the file failed", rd.src.err)
+	case rd.gz || errors.Is(err, gzip.ErrHeader) || errors.Is(err, gzip.ErrChecksum):
+		return rd.fileErr(RuleCompression, line, "", "the gzip stream is corrupt or truncated", err)
+	}
+	return rd.fileErr(RuleRead, line, "", "reading the file failed", err)
+}
+
+// sourceReader remembers an error of the caller's reader, so that it can be
+// told from a decompression error.
+type sourceReader struct {
+	r   io.Reader
+	err error
+}
+
+func (s *sourceReader) Read(p []byte) (int, error) {
+	n, err := s.r.Read(p)
+	if err != nil && err != io.EOF && s.err == nil {
+		s.err = err
+	}
+	return n, err
+}
+
+// guardReader stops a runaway record at limit bytes and makes stream
+// errors sticky (encoding/csv may report a parse error in place of one).
+type guardReader struct {
+	r     io.Reader
+	n     int64
+	limit int64
+	err   error
+}
+
+func (g *guardReader) Read(p []byte) (int, error) {
+	if g.err != nil {
+		return 0, g.err
+	}
+	if g.n >= g.limit {
+		g.err = errRecordTooLong
+		return 0, g.err
+	}
+	if rest := g.limit - g.n; int64(len(p)) > rest {
+		p = p[:rest]
+	}
+	n, err := g.r.Read(p)
+	g.n += int64(n)
+	if err != nil && err != io.EOF {
+		g.err = err
+	}
+	return n, err
+}
+
+func clipN(s string, n int) string {
+	if len(s) <= n {
+		return s
+	}
+	for n > 0 && !utf8.RuneStart(s[n]) {
+		n--
+	}
+	return s[:n] + "..."
+}

@@ -1,0 +1,634 @@
+package schema
+
+import (
+	"bytes"
+	"compress/gzip"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"slices"
+	"strings"
+	"testing"
+	"testing/iotest"
+	"time"
+)
+
+// testProfileYAML maps a small comma-separated clinic export.
+const testProfileYAML = `
+timezone: Europe/Amsterdam
+fields:
+  site: {value: north}
+  case_id: Visit
+  event_type: {column: Code, codes: {ARR: arrival, TRI: start, END: departure}}
+  occurred_at: When
+  activity: Step
+  resource_id: Desk
+`
+
+const testHeader = "Visit,Code,When,Step,Desk,Age\n"
+
+func mustProfile(t testing.TB, y string) *Profile {
+	t.Helper()
+	p, err := ParseProfile([]byte(y))
+	if err != nil {
+		t.Fatalf("profile: %v", err)
+	}
+	return p
+}
+
+// readResult is everything a Reader produced for one input.
+type readResult struct {
+	events []Event
+	rejs   []Rejection
+	ferr   *FileError // from NewReader or Next
+	rows   int64
+	r      *Reader
+}
+
+func readAll(t testing.TB, in io.Reader, p *Profile) readResult {
+	t.Helper()
+	var res readResult
+	r, err := NewReader(in, p, ReaderOptions{})
+	if err != nil {
+		fe, ok := AsFileError(err)
+		if !ok {
+			t.Fatalf("NewReader error %T is not a *FileError: %v", err, err)
+		}
+		res.ferr = fe
+		return res
+	}
+	res.r = r
+	for {
+		var e Event
+		rej, err := r.Next(&e)
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			fe, ok := AsFileError(err)
+			if !ok {
+				t.Fatalf("Next error %T is not a *FileError: %v", err, err)
+			}
+			res.ferr = fe
+			break
+		}
+		if rej != nil {
+			res.rejs = append(res.rejs, *rej)
+			continue
+		}
+		res.events = append(res.events, e)
+	}
+	res.rows = r.Rows()
+	return res
+}
+
+func gzipBytes(t testing.TB, b []byte) []byte {
+	t.Helper()
+	var buf bytes.Buffer
+	zw := gzip.NewWriter(&buf)
+	if _, err := zw.Write(b); err != nil {
+		t.Fatal(err)
+	}
+	if err := zw.Close(); err != nil {
+		t.Fatal(err)
+	}
+	return buf.Bytes()
+}
+
+func TestReaderAccepts(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	data := testHeader +
+		"V1,ARR,2021-06-01T08:00:00,registration,D1,80\n" +
+		" V1 , TRI ,2021-06-01T08:05:30.250+02:00, triage ,,\n" +
+		"V2,END,2021-01-15 10:00,,D2,\n"
+	res := readAll(t, strings.NewReader(data), p)
+	if res.ferr != nil || len(res.rejs) != 0 {
+		t.Fatalf("ferr %v rejs %v", res.ferr, res.rejs)
+	}
+	want := []Event{
+		{Site: "north", CaseID: "V1", ResourceID: "D1", Type: Arrival, Activity: "registration", OccurredAt: mustInstant(t, "2021-06-01T08:00:00+02:00"), Line: 2},
+		{Site: "north", CaseID: "V1", Type: Start, Activity: "triage", OccurredAt: mustInstant(t, "2021-06-01T08:05:30.25+02:00"), Line: 3},
+		{Site: "north", CaseID: "V2", ResourceID: "D2", Type: Departure, OccurredAt: mustInstant(t, "2021-01-15T10:00:00+01:00"), Line: 4},
+	}
+	if len(res.events) != len(want) {
+		t.Fatalf("got %d events: %+v", len(res.events), res.events)
+	}
+	for i := range want {
+		g, w := res.events[i], want[i]
+		if !g.OccurredAt.Equal(w.OccurredAt) {
+			t.Errorf("event %d time %v, want %v", i, g.OccurredAt, w.OccurredAt)
+		}
+		g.OccurredAt, w.OccurredAt = time.Time{}, time.Time{}
+		if g != w {
+			t.Errorf("event %d = %+v, want %+v", i, g, w)
+		}
+	}
+	if res.rows != 3 {
+		t.Errorf("Rows = %d", res.rows)
+	}
+	if got := res.r.Unmapped(); !slices.Equal(got, []string{"Age"}) {
+		t.Errorf("Unmapped = %v", got)
+	}
+}
+
+func TestReaderFormats(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	csvData := testHeader + "V1,ARR,2021-06-01T08:00:00Z,a,D1,1\n"
+	tsv := mustProfile(t, "format: tsv\n"+testProfileYAML)
+	tsvData := strings.ReplaceAll(csvData, ",", "\t")
+	tests := []struct {
+		name string
+		p    *Profile
+		data []byte
+	}{
+		{"csv", p, []byte(csvData)},
+		{"csv gzip", p, gzipBytes(t, []byte(csvData))},
+		{"csv crlf", p, []byte(strings.ReplaceAll(csvData, "\n", "\r\n"))},
+		{"csv bom", p, []byte("\uFEFF" + csvData)},
+		{"csv no final newline", p, []byte(strings.TrimSuffix(csvData, "\n"))},
+		{"csv two gzip members", p, append(gzipBytes(t, []byte(testHeader)), gzipBytes(t, []byte("V1,ARR,2021-06-01T08:00:00Z,a,D1,1\n"))...)},
+		{"tsv", tsv, []byte(tsvData)},
+	}
+	for _, tc := range tests {
+		res := readAll(t, bytes.NewReader(tc.data), tc.p)
+		if res.ferr != nil || len(res.rejs) != 0 || len(res.events) != 1 {
+			t.Errorf("%s: ferr %v rejs %v events %d", tc.name, res.ferr, res.rejs, len(res.events))
+			continue
+		}
+		e := res.events[0]
+		if e.CaseID != "V1" || e.Type != Arrival || !e.OccurredAt.Equal(mustInstant(t, "2021-06-01T08:00:00Z")) || e.Line != 2 {
+			t.Errorf("%s: %+v", tc.name, e)
+		}
+	}
+}
+
+func TestReaderDefaultProfile(t *testing.T) {
+	data := "site,case_id,event_type,occurred_at,queue,extra\n" +
+		"s1,c1,enqueue,2021-06-01T08:00:00Z,q1,x\n"
+	res := readAll(t, strings.NewReader(data), nil)
+	if res.ferr != nil || len(res.rejs) != 0 || len(res.events) != 1 {
+		t.Fatalf("ferr %v rejs %v events %v", res.ferr, res.rejs, res.events)
+	}
+	e := res.events[0]
+	if e.Site != "s1" || e.CaseID != "c1" || e.Type != Enqueue || e.Queue != "q1" || e.OccurredAt.Hour() != 8 {
+		t.Errorf("%+v", e)
+	}
+	if u := res.r.Unmapped(); !slices.Equal(u, []string{"extra"}) {
+		t.Errorf("Unmapped %v", u)
+	}
+	// Required schema columns must be there even under the default profile.
+	res = readAll(t, strings.NewReader("site,case_id,occurred_at\ns,c,2021-06-01T08:00:00Z\n"), nil)
+	if res.ferr == nil || res.ferr.Rule != RuleMissingColumn || res.ferr.Column != "event_type" {
+		t.Errorf("default profile without event_type: %v", res.ferr)
+	}
+}
+
+func TestReaderCodes(t *testing.T) {
+	withDefault := mustProfile(t, strings.Replace(testProfileYAML, "END: departure}", "END: departure}, default: transfer", 1))
+	data := testHeader + "V1,XYZ,2021-06-01T08:00:00Z,,,\n"
+	res := readAll(t, strings.NewReader(data), withDefault)
+	if len(res.rejs) != 0 || len(res.events) != 1 || res.events[0].Type != Transfer {
+		t.Errorf("with default: rejs %v events %+v", res.rejs, res.events)
+	}
+	// Codes on a plain string field; an unmapped value rejects without a default.
+	p := mustProfile(t, strings.Replace(testProfileYAML, "activity: Step", "activity: {column: Step, codes: {T: triage}}", 1))
+	res = readAll(t, strings.NewReader(testHeader+"V1,ARR,2021-06-01T08:00:00Z,T,,\nV1,ARR,2021-06-01T08:00:00Z,Q,,\n"), p)
+	if len(res.events) != 1 || res.events[0].Activity != "triage" {
+		t.Errorf("activity codes: %+v", res.events)
+	}
+	if len(res.rejs) != 1 || res.rejs[0].Reason != ReasonUnknownCode || res.rejs[0].Column != "Step" || res.rejs[0].Line != 3 || !strings.Contains(res.rejs[0].Message, `"Q"`) {
+		t.Errorf("activity unknown code: %+v", res.rejs)
+	}
+	// Codes match the trimmed value, case-sensitively.
+	res = readAll(t, strings.NewReader(testHeader+"V1,arr,2021-06-01T08:00:00Z,,,\n"), mustProfile(t, testProfileYAML))
+	if len(res.rejs) != 1 || res.rejs[0].Reason != ReasonUnknownCode {
+		t.Errorf("case-sensitive codes: %+v %+v", res.rejs, res.events)
+	}
+	// Without codes the value must be an event type already.
+	plain := mustProfile(t, strings.Replace(testProfileYAML, "{column: Code, codes: {ARR: arrival, TRI: start, END: departure}}", "Code", 1))
+	res = readAll(t, strings.NewReader(testHeader+"V1,abandon,2021-06-01T08:00:00Z,,,\nV1,ARR,2021-06-01T08:00:00Z,,,\n"), plain)
+	if len(res.events) != 1 || res.events[0].Type != Abandon || len(res.rejs) != 1 || res.rejs[0].Reason != ReasonUnknownCode || res.rejs[0].Line != 3 {
+		t.Errorf("plain event type: %+v %+v", res.events, res.rejs)
+	}
+}
+
+// TestReaderBadInput checks the exact rule or reason, line and column of
+// each kind of bad input.
+func TestReaderBadInput(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	jsonl := mustProfile(t, "format: jsonl\n"+testProfileYAML)
+	optionalMissing := mustProfile(t, strings.Replace(testProfileYAML, "activity: Step", "activity: Stepp", 1))
+	badLayout := mustProfile(t, testProfileYAML)
+	m := badLayout.Fields[FieldOccurredAt]
+	m.Layout = "%Y-%m-%d %Q"
+	badLayout.Fields[FieldOccurredAt] = m
+
+	manyRows := testHeader + strings.Repeat("V1,ARR,2021-06-01T08:00:00Z,registration,D1,80\n", 5000)
+	gz := gzipBytes(t, []byte(manyRows))
+	badCRC := slices.Clone(gz)
+	badCRC[len(badCRC)-8] ^= 0xff // the CRC-32 of the gzip trailer (RFC 1952 section 2.3)
+
+	tests := []struct {
+		name   string
+		p      *Profile
+		data   []byte
+		in     io.Reader // instead of data
+		rule   string    // file error expected, or
+		reason Reason    // one rejection expected
+		line   int64
+		column string
+		field  Field
+		msg    string // a piece of the message
+	}{
+		{name: "empty file", p: p, data: nil, rule: RuleEmptyFile},
+		{name: "blank lines only", p: p, data: []byte("\n\n"), rule: RuleEmptyFile},
+		{name: "empty gzip", p: p, data: gzipBytes(t, nil), rule: RuleEmptyFile},
+		{name: "header only", p: p, data: []byte(testHeader), rule: RuleNoRows},
+		{name: "wrong delimiter", p: p, data: []byte("Visit;Code;When;Step;Desk;Age\nV1;ARR;2021-06-01T08:00:00Z;a;D1;1\n"), rule: RuleMissingColumn, line: 1, column: "Visit", msg: `is the delimiter right? profile says ","`},
+		{name: "missing required column", p: p, data: []byte("Visit,Code,Step,Desk,Age\nV1,ARR,a,D1,1\n"), rule: RuleMissingColumn, line: 1, column: "When", msg: `"Visit", "Code", "Step", "Desk", "Age"`},
+		{name: "profile names absent column", p: optionalMissing, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a,D1,1\n"), rule: RuleMissingColumn, line: 1, column: "Stepp"},
+		{name: "duplicate column", p: p, data: []byte("Visit,Code,When,Step,Desk,Code\nV1,ARR,2021-06-01T08:00:00Z,a,D1,1\n"), rule: RuleDuplicateColumn, line: 1, column: "Code"},
+		{name: "bad utf-8 in data row", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a,D1,1\nV2,ARR,2021-06-01T08:00:00Z,caf\xe9,D1,1\n"), rule: RuleEncoding, line: 3, column: "Step"},
+		{name: "bad utf-8 in header", p: p, data: []byte("Visit,Code,When,St\xe9p,Desk\n"), rule: RuleEncoding, line: 1, column: "field 4"},
+		{name: "bad layout in hand-built profile", p: badLayout, data: []byte(testHeader), rule: RuleProfile, msg: "%Q"},
+		{name: "unknown event code", p: p, data: []byte(testHeader + "V1,XYZ,2021-06-01T08:00:00Z,a,D1,1\n"), reason: ReasonUnknownCode, line: 2, column: "Code", field: FieldEventType, msg: `"XYZ"`},
+		{name: "bad timestamp", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a,D1,1\nV1,ARR,01/06/2021 08:00,a,D1,1\n"), reason: ReasonBadTimestamp, line: 3, column: "When", field: FieldOccurredAt},
+		{name: "nonexistent local time", p: p, data: []byte(testHeader + "V1,ARR,2021-03-28 02:30,a,D1,1\n"), reason: ReasonNonexistentLocal, line: 2, column: "When", field: FieldOccurredAt},
+		{name: "ambiguous local time", p: p, data: []byte(testHeader + "V1,ARR,2021-10-31 02:30,a,D1,1\n"), reason: ReasonAmbiguousLocal, line: 2, column: "When", field: FieldOccurredAt},
+		{name: "missing required value", p: p, data: []byte(testHeader + "  ,ARR,2021-06-01T08:00:00Z,a,D1,1\n"), reason: ReasonMissingRequired, line: 2, column: "Visit", field: FieldCaseID},
+		{name: "field count", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a,D1,1,extra\n"), reason: ReasonFieldCount, line: 2},
+		{name: "bare quote", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a \"b\",D1,1\n"), reason: ReasonMalformedRow, line: 2},
+		{name: "unclosed quote at end", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,\"a,D1,1\n"), reason: ReasonMalformedRow, line: 2},
+		{name: "truncated gzip", p: p, data: gz[:len(gz)/2], rule: RuleCompression},
+		{name: "gzip cut in its header", p: p, data: gz[:5], rule: RuleCompression},
+		{name: "gzip bad checksum", p: p, data: badCRC, rule: RuleCompression},
+		{name: "read error", p: p, in: io.MultiReader(strings.NewReader(testHeader+"V1,ARR,2021-06-01T08:00:00Z,a,D1,1\n"), iotest.ErrReader(errors.New("connection reset"))), rule: RuleRead},
+		{name: "jsonl object value", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\n" + `{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z","Step":{"a":1}}` + "\n"), reason: ReasonBadValue, line: 2, column: "Step", field: FieldActivity},
+		{name: "jsonl array value", p: jsonl, data: []byte(`{"Visit":["V1"],"Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\n"), reason: ReasonBadValue, line: 1, column: "Visit", field: FieldCaseID},
+		{name: "jsonl null required", p: jsonl, data: []byte("\n" + `{"Visit":null,"Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\n"), reason: ReasonMissingRequired, line: 2, column: "Visit", field: FieldCaseID},
+		{name: "jsonl bad json", p: jsonl, data: []byte(`{"Visit":"V1",` + "\n"), reason: ReasonMalformedRow, line: 1},
+		{name: "jsonl not an object", p: jsonl, data: []byte(`["V1"]` + "\n"), reason: ReasonMalformedRow, line: 1},
+		{name: "jsonl bad utf-8", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\n" + "{\"Visit\":\"V\xff\"}\n"), rule: RuleEncoding, line: 2},
+		{name: "jsonl empty", p: jsonl, data: nil, rule: RuleEmptyFile},
+		{name: "jsonl blank", p: jsonl, data: []byte("\n \n"), rule: RuleEmptyFile},
+	}
+	for _, tc := range tests {
+		in := tc.in
+		if in == nil {
+			in = bytes.NewReader(tc.data)
+		}
+		res := readAll(t, in, tc.p)
+		if tc.rule != "" {
+			if res.ferr == nil {
+				t.Errorf("%s: no file error (rejs %v, %d events)", tc.name, res.rejs, len(res.events))
+				continue
+			}
+			fe := res.ferr
+			if fe.Rule != tc.rule || fe.Line != tc.line || fe.Column != tc.column || !strings.Contains(fe.Msg, tc.msg) {
+				t.Errorf("%s: got %s (line %d, column %q), want rule %s line %d column %q msg containing %q", tc.name, fe, fe.Line, fe.Column, tc.rule, tc.line, tc.column, tc.msg)
+			}
+			continue
+		}
+		if res.ferr != nil {
+			t.Errorf("%s: file error %v", tc.name, res.ferr)
+			continue
+		}
+		if len(res.rejs) != 1 {
+			t.Errorf("%s: %d rejections %v, want 1", tc.name, len(res.rejs), res.rejs)
+			continue
+		}
+		r := res.rejs[0]
+		if r.Reason != tc.reason || r.Line != tc.line || r.Column != tc.column || r.Field != tc.field || !strings.Contains(r.Message, tc.msg) {
+			t.Errorf("%s: got %s, want reason %s line %d column %q field %q msg containing %q", tc.name, r, tc.reason, tc.line, tc.column, tc.field, tc.msg)
+		}
+	}
+}
+
+// TestReaderRecovers checks that a bad row costs only itself.
+func TestReaderRecovers(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	data := testHeader +
+		"V1,ARR,2021-06-01T08:00:00Z,a \"b\",D1,1\n" + // 2: bare quote
+		"V1,ARR,2021-06-01T08:00:00Z,a,D1\n" + // 3: too few fields
+		"V1,ARR,2021-06-01T08:00:00Z,\"a\"x,D1,1\n" + // 4: junk after a closing quote
+		"V2,TRI,2021-06-01T09:00:00Z,b,D2,2\n" // 5: fine
+	res := readAll(t, strings.NewReader(data), p)
+	if res.ferr != nil {
+		t.Fatal(res.ferr)
+	}
+	var got []string
+	for _, r := range res.rejs {
+		got = append(got, fmt.Sprintf("%d:%s", r.Line, r.Reason))
+	}
+	want := []string{"2:malformed_row", "3:field_count", "4:malformed_row"}
+	if !slices.Equal(got, want) {
+		t.Errorf("rejections %v, want %v", got, want)
+	}
+	if len(res.events) != 1 || res.events[0].CaseID != "V2" || res.events[0].Line != 5 || res.rows != 4 {
+		t.Errorf("events %+v rows %d", res.events, res.rows)
+	}
+}
+
+// TestReaderQuotedMultiline checks that quoted fields may hold the
+// delimiter and newlines, and that Line is where the record starts.
+func TestReaderQuotedMultiline(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	data := testHeader +
+		"V1,ARR,2021-06-01T08:00:00Z,\"triage, then\nlab\nwork\",D1,1\n" + // lines 2-4
+		"\"V,2\",TRI,2021-06-01T09:00:00Z,\"say \"\"hi\"\"\",D2,2\n" + // line 5
+		"V3,ARR,bad,x,D3,3\n" // line 6
+	res := readAll(t, strings.NewReader(data), p)
+	if res.ferr != nil || len(res.events) != 2 || len(res.rejs) != 1 {
+		t.Fatalf("ferr %v events %+v rejs %v", res.ferr, res.events, res.rejs)
+	}
+	if e := res.events[0]; e.Activity != "triage, then\nlab\nwork" || e.Line != 2 {
+		t.Errorf("multiline: %+v", e)
+	}
+	if e := res.events[1]; e.CaseID != "V,2" || e.Activity != `say "hi"` || e.Line != 5 {
+		t.Errorf("quoted delimiter: %+v", e)
+	}
+	if r := res.rejs[0]; r.Line != 6 || r.Reason != ReasonBadTimestamp {
+		t.Errorf("line after multiline record: %v", r)
+	}
+}
+
+func TestReaderJSONL(t *testing.T) {
+	p := mustProfile(t, "format: jsonl\n"+strings.Replace(testProfileYAML, "{column: Code, codes: {ARR: arrival, TRI: start, END: departure}}", "{column: Code, codes: {\"1\": arrival, \"true\": start}}", 1))
+	data := `{"Visit": 17, "Code": 1, "When": "2021-06-01T08:00:00Z", "Step": "triage", "zeta": 1, "alpha": {"x": 1}}` + "\n" +
+		"\n" +
+		`{"Visit": "V2", "Code": true, "When": "2021-06-01T09:00:00+02:00", "Desk": 3.5, "Step": null}` + "\n"
+	res := readAll(t, strings.NewReader(data), p)
+	if res.ferr != nil || len(res.rejs) != 0 || len(res.events) != 2 {
+		t.Fatalf("ferr %v rejs %v events %+v", res.ferr, res.rejs, res.events)
+	}
+	if e := res.events[0]; e.CaseID != "17" || e.Type != Arrival || e.Activity != "triage" || e.Line != 1 {
+		t.Errorf("%+v", e)
+	}
+	if e := res.events[1]; e.CaseID != "V2" || e.Type != Start || e.ResourceID != "3.5" || e.Activity != "" || e.Line != 3 || !e.OccurredAt.Equal(mustInstant(t, "2021-06-01T07:00:00Z")) {
+		t.Errorf("%+v", e)
+	}
+	if u := res.r.Unmapped(); !slices.Equal(u, []string{"alpha", "zeta"}) {
+		t.Errorf("Unmapped %v", u)
+	}
+	if res.rows != 2 {
+		t.Errorf("Rows %d", res.rows)
+	}
+}
+
+// TestReaderRunawayRecord checks that an unclosed quote does not make the
+// reader swallow the rest of a huge file into memory.
+func TestReaderRunawayRecord(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	body := io.LimitReader(repeatReader('x'), maxRecordBytes+(1<<20))
+	in := io.MultiReader(strings.NewReader(testHeader+"V1,ARR,2021-06-01T08:00:00Z,\"open"), body)
+	res := readAll(t, in, p)
+	if res.ferr == nil || res.ferr.Rule != RuleSyntax {
+		t.Fatalf("got %v, want a syntax error", res.ferr)
+	}
+}
+
+type repeatReader byte
+
+func (b repeatReader) Read(p []byte) (int, error) {
+	for i := range p {
+		p[i] = byte(b)
+	}
+	return len(p), nil
+}
+
+// TestReaderPrivacy feeds rows whose case id is a distinctive string and
+// that trigger every rejection reason and every file error the reader can
+// give, and checks that the raw id never appears in a message.
+func TestReaderPrivacy(t *testing.T) {
+	const secret = "ZQX-PRIVATE-4242"
+	p := mustProfile(t, testProfileYAML)
+	// resource_id is an identifier too: its unknown codes must not be quoted.
+	coded := mustProfile(t, strings.Replace(testProfileYAML, "resource_id: Desk", "resource_id: {column: Desk, codes: {D1: desk-1}}", 1))
+	jsonl := mustProfile(t, "format: jsonl\n"+testProfileYAML)
+	row := func(code, when, step, desk string) string {
+		return secret + "," + code + "," + when + "," + step + "," + desk + ",1\n"
+	}
+	csvRows := testHeader +
+		row("XYZ", "2021-06-01T08:00:00Z", "a", "D1") + // unknown_code
+		row("ARR", "not a time", "a", "D1") + // bad_timestamp
+		row("ARR", "2021-03-28 02:30", "a", "D1") + // nonexistent_local
+		row("ARR", "2021-10-31 02:30", "a", "D1") + // ambiguous_local
+		row("ARR", "", "a", "D1") + // missing_required
+		secret + ",ARR,2021-06-01T08:00:00Z,a,D1,1,extra\n" + // field_count
+		secret + ",ARR,2021-06-01T08:00:00Z,a \"b\",D1,1\n" + // malformed_row (bare quote)
+		"\"" + secret + "\"x,ARR,2021-06-01T08:00:00Z,a,D1,1\n" + // malformed_row (bad quote)
+		row("ARR", "2021-06-01T08:00:00Z", "a", secret) // unknown code of an identifier field (coded profile)
+	inputs := []struct {
+		name string
+		p    *Profile
+		data []byte
+	}{
+		{"rejections", p, []byte(csvRows)},
+		{"identifier codes", coded, []byte(csvRows)},
+		{"jsonl rejections", jsonl, []byte(
+			`{"Visit":"` + secret + `","Code":"XYZ","When":"2021-06-01T08:00:00Z"}` + "\n" +
+				`{"Visit":"` + secret + `","Code":"ARR","When":"2021-06-01T08:00:00Z","Step":{"id":"` + secret + `"}}` + "\n" +
+				`{"Visit":"` + secret + `","Code":"ARR","When":` + "\n" +
+				`["` + secret + `"]` + "\n" +
+				`{"Visit":{"v":"` + secret + `"}}` + "\n" +
+				`{"Visit":"` + secret + "\xff\"}\n")},
+		{"headerless file", p, []byte(row("ARR", "2021-06-01T08:00:00Z", "a", "D1"))},
+		{"headerless file, other delimiter", p, []byte(strings.ReplaceAll(row("ARR", "2021-06-01T08:00:00Z", "a", "D1"), ",", ";"))},
+		{"bad utf-8 in id", p, []byte(testHeader + secret + "\xff,ARR,2021-06-01T08:00:00Z,a,D1,1\n")},
+		{"bad utf-8 in headerless id", p, []byte(secret + "\xff,ARR,2021-06-01T08:00:00Z,a,D1,1\n")},
+		{"bad quote in headerless id", p, []byte("\"" + secret + "\"x,ARR\n")},
+		{"truncated gzip", p, gzipBytes(t, []byte(csvRows))[:60]},
+		{"duplicate in headerless", p, []byte(secret + "," + secret + ",2021-06-01T08:00:00Z\n")},
+	}
+	kinds := map[string]bool{}
+	for _, in := range inputs {
+		res := readAll(t, bytes.NewReader(in.data), in.p)
+		for _, r := range res.rejs {
+			kinds[string(r.Reason)] = true
+			if strings.Contains(r.Message, secret) || strings.Contains(r.String(), secret) {
+				t.Errorf("%s: rejection leaks the case id: %s", in.name, r)
+			}
+		}
+		if fe := res.ferr; fe != nil {
+			kinds[fe.Rule] = true
+			if strings.Contains(fe.Error(), secret) || (fe.Err != nil && strings.Contains(fe.Err.Error(), secret)) {
+				t.Errorf("%s: file error leaks the case id: %v", in.name, fe)
+			}
+		}
+	}
+	for _, k := range []string{
+		string(ReasonUnknownCode), string(ReasonBadTimestamp), string(ReasonNonexistentLocal), string(ReasonAmbiguousLocal),
+		string(ReasonMissingRequired), string(ReasonFieldCount), string(ReasonMalformedRow), string(ReasonBadValue),
+		RuleMissingColumn, RuleEncoding, RuleCompression, RuleSyntax,
+	} {
+		if !kinds[k] {
+			t.Errorf("privacy inputs never triggered %s", k)
+		}
+	}
+}
+
+func TestSepsisLog(t *testing.T) {
+	const dir = "../testdata/sepsis/"
+	p := mustProfile(t, string(must(os.ReadFile(dir+"profile.yaml"))))
+	f, err := os.Open(dir + "sepsis-cases.csv.gz")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	r, err := NewReader(f, p, ReaderOptions{Name: "sepsis-cases.csv.gz"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var n, rejected int
+	var first, last time.Time
+	type span struct {
+		first, last time.Time
+		events      int
+	}
+	cases := map[string]*span{}
+	activities, groups := map[string]bool{}, map[string]bool{}
+	for {
+		var e Event
+		rej, err := r.Next(&e)
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+		if rej != nil {
+			rejected++
+			if rejected < 5 {
+				t.Errorf("rejection: %s", rej)
+			}
+			continue
+		}
+		n++
+		if first.IsZero() || e.OccurredAt.Before(first) {
+			first = e.OccurredAt
+		}
+		if e.OccurredAt.After(last) {
+			last = e.OccurredAt
+		}
+		s := cases[e.CaseID]
+		if s == nil {
+			s = &span{first: e.OccurredAt, last: e.OccurredAt}
+			cases[e.CaseID] = s
+		}
+		s.events++
+		if e.OccurredAt.Before(s.first) {
+			s.first = e.OccurredAt
+		}
+		if e.OccurredAt.After(s.last) {
+			s.last = e.OccurredAt
+		}
+		activities[e.Activity] = true
+		groups[e.ResourceID] = true
+		if e.Site != "sepsis" || e.Type != Complete {
+			t.Fatalf("line %d: %+v", e.Line, e)
+		}
+	}
+	// Published figures of the log (its metadata record; testdata/sepsis/README.md).
+	if n != 15214 || rejected != 0 {
+		t.Errorf("events %d rejected %d, want 15214 and 0 (published: 15214 events)", n, rejected)
+	}
+	if r.Rows() != 15214 {
+		t.Errorf("Rows %d", r.Rows())
+	}
+	if want := mustInstant(t, "2013-11-07T08:18:29+01:00"); !first.Equal(want) { // published first event
+		t.Errorf("first event %v, want %v", first, want)
+	}
+	if want := mustInstant(t, "2015-06-05T12:25:11+02:00"); !last.Equal(want) { // published last event
+		t.Errorf("last event %v, want %v", last, want)
+	}
+	if len(cases) != 1050 || len(activities) != 16 || len(groups) != 26 { // published: 1050 traces, 16 activities, 26 org:group values
+		t.Errorf("cases %d activities %d groups %d, want 1050, 16, 26 (published)", len(cases), len(activities), len(groups))
+	}
+	minEv, maxEv := 1<<30, 0
+	var total time.Duration
+	for _, s := range cases {
+		minEv, maxEv = min(minEv, s.events), max(maxEv, s.events)
+		total += s.last.Sub(s.first)
+	}
+	if minEv != 3 || maxEv != 185 { // published: events per case min 3, max 185
+		t.Errorf("events per case %d..%d, want 3..185 (published)", minEv, maxEv)
+	}
+	// Published: case durations total 2.582720637E9 s; it holds only when
+	// the wall-clock times are read in Europe/Amsterdam with its changes.
+	if total != 2582720637*time.Second {
+		t.Errorf("total case duration %v s, want 2582720637 s (published)", total.Seconds())
+	}
+	// The header has 34 columns; the profile maps 5 of them.
+	wantUnmapped := []string{"Variant", "Variant index", "Age", "CRP", "Diagnose", "DiagnosticArtAstrup",
+		"DiagnosticBlood", "DiagnosticECG", "DiagnosticIC", "DiagnosticLacticAcid", "DiagnosticLiquor",
+		"DiagnosticOther", "DiagnosticSputum", "DiagnosticUrinaryCulture", "DiagnosticUrinarySediment",
+		"DiagnosticXthorax", "DisfuncOrg", "Hypotensie", "Hypoxie", "InfectionSuspected", "Infusion",
+		"LacticAcid", "Leucocytes", "Oligurie", "SIRSCritHeartRate", "SIRSCritLeucos", "SIRSCritTachypnea",
+		"SIRSCritTemperature", "SIRSCriteria2OrMore"}
+	if got := r.Unmapped(); !slices.Equal(got, wantUnmapped) || len(r.Header()) != 34 {
+		t.Errorf("Unmapped (%d) = %v, header %d columns", len(got), got, len(r.Header()))
+	}
+}
+
+func must[T any](v T, err error) T {
+	if err != nil {
+		panic(err)
+	}
+	return v
+}
+
+// benchCSV is a generated clinic export of n rows.
+func benchCSV(n int) []byte {
+	var b bytes.Buffer
+	b.WriteString("Visit;Code;When;Step;Desk;Age;Note\n")
+	codes := []string{"ARR", "TRI", "END"}
+	steps := []string{"registration", "triage", "lab", "imaging", "discharge"}
+	t0 := time.Date(2021, 1, 1, 8, 0, 0, 0, time.UTC)
+	for i := range n {
+		ts := t0.Add(time.Duration(i) * 37 * time.Second)
+		fmt.Fprintf(&b, "V%07d;%s;%s;%s;D%02d;%d;some free text\n", i/7, codes[i%3], ts.Format("2006/01/02 15:04:05.000"), steps[i%5], i%26, i%90)
+	}
+	return b.Bytes()
+}
+
+func BenchmarkReaderCSV(b *testing.B) {
+	const rows = 200_000
+	data := benchCSV(rows)
+	p := mustProfile(b, `
+delimiter: ";"
+timezone: Europe/Amsterdam
+local_time: {ambiguous: earlier, nonexistent: later}
+fields:
+  site: {value: north}
+  case_id: Visit
+  event_type: {column: Code, codes: {ARR: arrival, TRI: start, END: departure}}
+  occurred_at: {column: When, layout: "%Y/%m/%d %H:%M:%S.%f"}
+  activity: Step
+  resource_id: Desk
+`)
+	b.SetBytes(int64(len(data)))
+	b.ReportAllocs()
+	for b.Loop() {
+		r, err := NewReader(bytes.NewReader(data), p, ReaderOptions{})
+		if err != nil {
+			b.Fatal(err)
+		}
+		var e Event
+		n := 0
+		for {
+			rej, err := r.Next(&e)
+			if err == io.EOF {
+				break
+			}
+			if err != nil || rej != nil {
+				b.Fatal(err, rej)
+			}
+			n++
+		}
+		if n != rows {
+			b.Fatalf("%d rows", n)
+		}
+	}
+	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/rows, "ns/row")
+}

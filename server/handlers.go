@@ -1,0 +1,308 @@
+package server
+
+import (
+	"errors"
+	"fmt"
+	"net/http"
+	"strconv"
+	"time"
+
+	"github.com/labstack/echo/v4"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
+)
+
+// projectView is a project as the API shows it: never its sealed key.
+type projectView struct {
+	Name      string    `json:"name"`
+	Title     string    `json:"title,omitempty"`
+	CreatedAt time.Time `json:"created_at"`
+	CreatedBy string    `json:"created_by"`
+	KeyID     string    `json:"pseudonym_key_id"`
+}
+
+func viewProject(p *catalog.Project) projectView {
+	return projectView{Name: p.Name, Title: p.Title, CreatedAt: p.CreatedAt, CreatedBy: p.CreatedBy, KeyID: p.Key.ID}
+}
+
+func (s *Server) listProjects(c echo.Context) error {
+	cl := claims(c)
+	ps, err := s.cfg.Store.Projects(c.Request().Context())
+	if err != nil {
+		return err
+	}
+	out := []projectView{}
+	for i := range ps {
+		if cl.CanRead(ps[i].Name) {
+			out = append(out, viewProject(&ps[i]))
+		}
+	}
+	return c.JSON(http.StatusOK, out)
+}
+
+type createProjectRequest struct {
+	Name  string `json:"name"`
+	Title string `json:"title"`
+}
+
+func (s *Server) createProject(c echo.Context) error {
+	cl := claims(c)
+	if cl.Role != RoleAdmin {
+		return forbidden("create projects (admin only)")
+	}
+	var req createProjectRequest
+	if err := c.Bind(&req); err != nil {
+		return fail(http.StatusBadRequest, "invalid", "request body: want JSON {\"name\": ..., \"title\": ...}")
+	}
+	p, err := s.cfg.Store.CreateProject(c.Request().Context(), req.Name, req.Title, cl.Subject)
+	if err != nil {
+		return catalogError(err)
+	}
+	return c.JSON(http.StatusCreated, viewProject(p))
+}
+
+func (s *Server) getProject(c echo.Context) error {
+	project := c.Param("project")
+	if !claims(c).CanRead(project) {
+		return forbidden("read project " + project)
+	}
+	p, err := s.cfg.Store.Project(c.Request().Context(), project)
+	if err != nil {
+		return catalogError(err)
+	}
+	return c.JSON(http.StatusOK, viewProject(p))
+}
+
+func (s *Server) listDatasets(c echo.Context) error {
+	cl := claims(c)
+	project := c.Param("project")
+	if !cl.CanRead(project) && cl.Role != RolePartner {
+		return forbidden("read project " + project)
+	}
+	ds, err := s.cfg.Store.Datasets(c.Request().Context(), project)
+	if err != nil {
+		return catalogError(err)
+	}
+	out := []catalog.Dataset{}
+	for _, d := range ds {
+		if cl.CanSeeDataset(d.Project, d.Name) {
+			out = append(out, d)
+		}
+	}
+	return c.JSON(http.StatusOK, out)
+}
+
+type createDatasetRequest struct {
+	Name        string     `json:"name"`
+	Title       string     `json:"title"`
+	Profile     string     `json:"profile"` // YAML text
+	Timezone    string     `json:"timezone"`
+	RejectAbove *float64   `json:"reject_above"`
+	WindowFrom  *time.Time `json:"window_from"`
+	WindowTo    *time.Time `json:"window_to"`
+}
+
+func (s *Server) createDataset(c echo.Context) error {
+	cl := claims(c)
+	project := c.Param("project")
+	if !cl.CanCurate(project) {
+		return forbidden("create datasets in project " + project)
+	}
+	var req createDatasetRequest
+	if err := c.Bind(&req); err != nil {
+		return fail(http.StatusBadRequest, "invalid", "request body: want JSON {\"name\", \"profile\", \"timezone\", ...}: %v", err)
+	}
+	d, err := s.cfg.Store.CreateDataset(c.Request().Context(), catalog.DatasetSpec{
+		Project: project, Name: req.Name, Title: req.Title, Profile: []byte(req.Profile),
+		Timezone: req.Timezone, RejectAbove: req.RejectAbove, WindowFrom: req.WindowFrom, WindowTo: req.WindowTo,
+	}, cl.Subject)
+	if err != nil {
+		return catalogError(err)
+	}
+	return c.JSON(http.StatusCreated, d)
+}
+
+func (s *Server) dataset(c echo.Context, may func(*Claims, string, string) bool, what string) (*catalog.Dataset, error) {
+	project, name := c.Param("project"), c.Param("dataset")
+	if !may(claims(c), project, name) {
+		return nil, forbidden(what + " " + project + "/" + name)
+	}
+	d, err := s.cfg.Store.Dataset(c.Request().Context(), project, name)
+	if err != nil {
+		return nil, catalogError(err)
+	}
+	return d, nil
+}
+
+func (s *Server) getDataset(c echo.Context) error {
+	d, err := s.dataset(c, (*Claims).CanSeeDataset, "see dataset")
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, d)
+}
+
+// uploadResponse is the body of an upload's answer, whatever became of it.
+type uploadResponse struct {
+	Upload  catalog.Upload   `json:"upload"`
+	Version *catalog.Version `json:"version,omitempty"`
+}
+
+// upload streams the request body into the catalog's ingest: the body is
+// never held whole in memory nor written raw to disk.
+func (s *Server) upload(c echo.Context) error {
+	d, err := s.dataset(c, (*Claims).CanUpload, "upload to")
+	if err != nil {
+		return err
+	}
+	req := c.Request()
+	body := http.MaxBytesReader(c.Response(), req.Body, s.cfg.MaxUploadBytes)
+	res, err := s.cfg.Store.Ingest(req.Context(), d.Project, d.Name, body, catalog.IngestOptions{
+		Filename: c.QueryParam("filename"),
+		By:       claims(c).Subject,
+	})
+	var mbe *http.MaxBytesError
+	switch {
+	case errors.As(err, &mbe):
+		return fail(http.StatusRequestEntityTooLarge, "too_large", "upload is larger than the server's limit of %d bytes", s.cfg.MaxUploadBytes)
+	case errors.Is(err, catalog.ErrFileInvalid):
+		e := res.Upload.Error
+		he := fail(http.StatusBadRequest, "file_invalid", "%s", err.Error())
+		he.body.Rule, he.body.Line, he.body.Column = e.Rule, e.Line, e.Column
+		he.body.Message = fileMessage(res.Upload.Filename, e)
+		he.body.Upload = res.Upload
+		return he
+	case errors.Is(err, catalog.ErrRejected):
+		he := fail(http.StatusUnprocessableEntity, "rejected", "%s", err.Error())
+		he.body.Upload = res.Upload
+		return he
+	case err != nil:
+		return catalogError(err)
+	}
+	status := http.StatusCreated
+	if res.Upload.Status == catalog.UploadDuplicate {
+		status = http.StatusOK
+	}
+	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version})
+}
+
+// fileMessage names file, line, column and rule in one sentence.
+func fileMessage(file string, e *catalog.UploadError) string {
+	if file == "" {
+		file = "upload"
+	}
+	loc := file
+	if e.Line > 0 {
+		loc += ":" + strconv.FormatInt(e.Line, 10)
+	}
+	if e.Column != "" {
+		loc += fmt.Sprintf(" column %q", e.Column)
+	}
+	return fmt.Sprintf("%s: %s: %s", loc, e.Rule, e.Message)
+}
+
+func (s *Server) listUploads(c echo.Context) error {
+	d, err := s.dataset(c, (*Claims).CanSeeDataset, "see uploads of")
+	if err != nil {
+		return err
+	}
+	ups, err := s.cfg.Store.Uploads(c.Request().Context(), d.Project, d.Name)
+	if err != nil {
+		return catalogError(err)
+	}
+	if ups == nil {
+		ups = []catalog.Upload{}
+	}
+	return c.JSON(http.StatusOK, ups)
+}
+
+func readable(cl *Claims, project, _ string) bool { return cl.CanRead(project) }
+
+func (s *Server) listVersions(c echo.Context) error {
+	d, err := s.dataset(c, readable, "read versions of")
+	if err != nil {
+		return err
+	}
+	vs, err := s.cfg.Store.Versions(c.Request().Context(), d.Project, d.Name)
+	if err != nil {
+		return catalogError(err)
+	}
+	if vs == nil {
+		vs = []catalog.Version{}
+	}
+	return c.JSON(http.StatusOK, vs)
+}
+
+func (s *Server) version(c echo.Context) (*catalog.Version, error) {
+	d, err := s.dataset(c, readable, "read versions of")
+	if err != nil {
+		return nil, err
+	}
+	n, err := versionParam(c)
+	if err != nil {
+		return nil, err
+	}
+	v, err := s.cfg.Store.Version(c.Request().Context(), d.Project, d.Name, n)
+	if err != nil {
+		return nil, catalogError(err)
+	}
+	return v, nil
+}
+
+func (s *Server) getVersion(c echo.Context) error {
+	v, err := s.version(c)
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, v)
+}
+
+// getManifest serves the manifest's canonical JSON, the bytes whose sha256
+// is the snapshot id.
+func (s *Server) getManifest(c echo.Context) error {
+	v, err := s.version(c)
+	if err != nil {
+		return err
+	}
+	b, err := v.Manifest.Canonical()
+	if err != nil {
+		return err
+	}
+	c.Response().Header().Set("ETag", `"`+v.SnapshotID+`"`)
+	return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
+}
+
+func (s *Server) getQuality(c echo.Context) error {
+	v, err := s.version(c)
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, v.Manifest.Quality)
+}
+
+// download streams one Parquet file of a version with Content-Length,
+// ETag (its sha256) and Range support.
+func (s *Server) download(c echo.Context) error {
+	v, err := s.version(c)
+	if err != nil {
+		return err
+	}
+	id, err := blob.ParseID(c.Param("file"))
+	if err != nil {
+		return fail(http.StatusBadRequest, "invalid", "file: want the 64-hex-digit sha256 of a file of the version")
+	}
+	r, _, err := s.cfg.Store.OpenFile(c.Request().Context(), v, id)
+	if err != nil {
+		return catalogError(err)
+	}
+	defer r.Close()
+	h := c.Response().Header()
+	h.Set(echo.HeaderContentType, "application/vnd.apache.parquet")
+	h.Set("ETag", `"`+id.String()+`"`)
+	h.Set("Cache-Control", "private, max-age=31536000, immutable")
+	h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s"`, id.String()+".parquet"))
+	http.ServeContent(c.Response(), c.Request(), "", time.Time{}, r)
+	return nil
+}
+

@@ -1,0 +1,234 @@
+// Package server is flowcat's HTTP API: routing, token checks, request
+// parsing and streaming responses, under /api/v1. Every handler calls the
+// catalog; the server holds no state of its own.
+package server
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"net/http"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/labstack/echo/v4"
+	"github.com/labstack/echo/v4/middleware"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/web"
+)
+
+// Config configures a server.
+type Config struct {
+	Store     *catalog.Store
+	Authority *Authority
+	Logger    *slog.Logger // default slog.Default()
+	// MaxUploadBytes bounds the body of one upload (default 8 GiB).
+	MaxUploadBytes int64
+}
+
+// Server serves the API.
+type Server struct {
+	cfg  Config
+	echo *echo.Echo
+}
+
+// New returns a server for cfg.
+func New(cfg Config) *Server {
+	if cfg.Logger == nil {
+		cfg.Logger = slog.Default()
+	}
+	if cfg.MaxUploadBytes <= 0 {
+		cfg.MaxUploadBytes = 8 << 30
+	}
+	e := echo.New()
+	e.HideBanner = true
+	e.HidePort = true
+	e.HTTPErrorHandler = errorHandler(cfg.Logger)
+	s := &Server{cfg: cfg, echo: e}
+	e.Use(middleware.Recover())
+	e.Use(middleware.RequestID())
+	e.Use(s.accessLog)
+
+	e.GET("/", func(c echo.Context) error { return c.HTMLBlob(http.StatusOK, web.Index) })
+	api := e.Group("/api/v1")
+	api.GET("/health", s.health)
+	api.GET("/schema", s.schema)
+
+	auth := api.Group("", s.authenticate)
+	auth.GET("/projects", s.listProjects)
+	auth.POST("/projects", s.createProject)
+	auth.GET("/projects/:project", s.getProject)
+	auth.GET("/projects/:project/datasets", s.listDatasets)
+	auth.POST("/projects/:project/datasets", s.createDataset)
+	ds := "/projects/:project/datasets/:dataset"
+	auth.GET(ds, s.getDataset)
+	auth.POST(ds+"/uploads", s.upload)
+	auth.GET(ds+"/uploads", s.listUploads)
+	auth.GET(ds+"/versions", s.listVersions)
+	auth.GET(ds+"/versions/:version", s.getVersion)
+	auth.GET(ds+"/versions/:version/manifest", s.getManifest)
+	auth.GET(ds+"/versions/:version/quality", s.getQuality)
+	auth.GET(ds+"/versions/:version/files/:file", s.download)
+	return s
+}
+
+// ServeHTTP implements http.Handler.
+func (s *Server) ServeHTTP(w http.ResponseWriter, r *http.Request) { s.echo.ServeHTTP(w, r) }
+
+// HTTPServer returns an http.Server for addr with sensible timeouts: no
+// overall read timeout, so that long uploads stream, but a bound on headers
+// and idle connections.
+func (s *Server) HTTPServer(addr string) *http.Server {
+	return &http.Server{
+		Addr:              addr,
+		Handler:           s,
+		ReadHeaderTimeout: 10 * time.Second,
+		IdleTimeout:       2 * time.Minute,
+	}
+}
+
+// Shutdown is a convenience for graceful stops.
+func Shutdown(ctx context.Context, hs *http.Server) error { return hs.Shutdown(ctx) }
+
+func (s *Server) accessLog(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		start := time.Now()
+		err := next(c)
+		if err != nil {
+			c.Error(err)
+		}
+		req := c.Request()
+		sub := ""
+		if cl, ok := c.Get(claimsKey).(*Claims); ok {
+			sub = cl.Subject
+		}
+		// The path names projects, datasets and versions only; query
+		// strings are not logged.
+		s.cfg.Logger.Info("request", "method", req.Method, "path", req.URL.Path,
+			"status", c.Response().Status, "bytes", c.Response().Size,
+			"ms", time.Since(start).Milliseconds(), "sub", sub,
+			"id", c.Response().Header().Get(echo.HeaderXRequestID))
+		return nil
+	}
+}
+
+// apiError is the JSON body of every error response.
+type apiError struct {
+	Error errorBody `json:"error"`
+}
+
+type errorBody struct {
+	Status  int    `json:"status"`
+	Code    string `json:"code"`
+	Message string `json:"message"`
+	Rule    string `json:"rule,omitempty"`
+	Line    int64  `json:"line,omitempty"`
+	Column  string `json:"column,omitempty"`
+	Upload  any    `json:"upload,omitempty"`
+}
+
+// httpError is an error with a status and code.
+type httpError struct {
+	body errorBody
+	err  error
+}
+
+func (e *httpError) Error() string { return e.body.Message }
+func (e *httpError) Unwrap() error { return e.err }
+
+func fail(status int, code, format string, args ...any) *httpError {
+	return &httpError{body: errorBody{Status: status, Code: code, Message: fmt.Sprintf(format, args...)}}
+}
+
+// catalogError maps catalog errors to HTTP errors.
+func catalogError(err error) error {
+	switch {
+	case errors.Is(err, catalog.ErrNotFound):
+		return &httpError{body: errorBody{Status: http.StatusNotFound, Code: "not_found", Message: err.Error()}, err: err}
+	case errors.Is(err, catalog.ErrExists):
+		return &httpError{body: errorBody{Status: http.StatusConflict, Code: "exists", Message: err.Error()}, err: err}
+	case errors.Is(err, catalog.ErrInvalid):
+		return &httpError{body: errorBody{Status: http.StatusBadRequest, Code: "invalid", Message: err.Error()}, err: err}
+	}
+	return err
+}
+
+func errorHandler(log *slog.Logger) echo.HTTPErrorHandler {
+	return func(err error, c echo.Context) {
+		if c.Response().Committed {
+			return
+		}
+		var body errorBody
+		var he *httpError
+		var ee *echo.HTTPError
+		switch {
+		case errors.As(err, &he):
+			body = he.body
+		case errors.As(err, &ee):
+			body = errorBody{Status: ee.Code, Code: strings.ReplaceAll(strings.ToLower(http.StatusText(ee.Code)), " ", "_"), Message: fmt.Sprint(ee.Message)}
+		default:
+			log.Error("internal error", "path", c.Request().URL.Path, "err", err)
+			body = errorBody{Status: http.StatusInternalServerError, Code: "internal", Message: "internal error; the server log has the details"}
+		}
+		if body.Status == http.StatusUnauthorized {
+			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat"`)
+		}
+		if c.Request().Method == http.MethodHead {
+			c.NoContent(body.Status)
+			return
+		}
+		c.JSON(body.Status, apiError{Error: body})
+	}
+}
+
+const claimsKey = "flowcat.claims"
+
+func (s *Server) authenticate(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		h := c.Request().Header.Get(echo.HeaderAuthorization)
+		scheme, tok, ok := strings.Cut(h, " ")
+		if h == "" {
+			return fail(http.StatusUnauthorized, "unauthorized", "no token: send Authorization: Bearer <token>")
+		}
+		if !ok || !strings.EqualFold(scheme, "Bearer") || tok == "" {
+			return fail(http.StatusUnauthorized, "unauthorized", "Authorization must be Bearer <token>")
+		}
+		cl, err := s.cfg.Authority.Verify(strings.TrimSpace(tok))
+		if err != nil {
+			return fail(http.StatusUnauthorized, "unauthorized", "%s", err.Error())
+		}
+		c.Set(claimsKey, cl)
+		return next(c)
+	}
+}
+
+func claims(c echo.Context) *Claims { return c.Get(claimsKey).(*Claims) }
+
+func forbidden(what string) error {
+	return fail(http.StatusForbidden, "forbidden", "this token may not %s", what)
+}
+
+func (s *Server) health(c echo.Context) error {
+	return c.JSON(http.StatusOK, map[string]string{"status": "ok", "schema_version": schema.Version})
+}
+
+func (s *Server) schema(c echo.Context) error {
+	return c.Blob(http.StatusOK, "application/schema+json", schema.JSONSchema())
+}
+
+// versionParam parses N or "latest" (0).
+func versionParam(c echo.Context) (int, error) {
+	v := c.Param("version")
+	if v == "latest" {
+		return 0, nil
+	}
+	n, err := strconv.Atoi(v)
+	if err != nil || n < 1 {
+		return 0, fail(http.StatusBadRequest, "invalid", "version %q: want a number from 1, or latest", v)
+	}
+	return n, nil
+}
