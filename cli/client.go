@@ -134,7 +134,9 @@ func (r ref) String() string {
 	return s
 }
 
-func (r ref) path() string { return "/projects/" + url.PathEscape(r.Project) + "/datasets/" + url.PathEscape(r.Dataset) }
+func (r ref) path() string {
+	return "/projects/" + url.PathEscape(r.Project) + "/datasets/" + url.PathEscape(r.Dataset)
+}
 
 func (r ref) versionPath() string {
 	v := "latest"

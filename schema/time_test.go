@@ -221,3 +221,23 @@ func BenchmarkParseTimeAuto(b *testing.B) {
 		}
 	}
 }
+
+// TestTimeParserCache walks wall-clock times across a year's changes with
+// one parser (whose zone-period cache is then exercised) and checks every
+// answer against the uncached resolution.
+func TestTimeParserCache(t *testing.T) {
+	for _, zone := range []string{"Europe/Amsterdam", "America/New_York", "Australia/Lord_Howe", "UTC"} {
+		loc := mustZone(t, zone)
+		for _, pol := range []LocalTimePolicy{{}, {Ambiguous: AmbiguousLater, Nonexistent: NonexistentLater}} {
+			tp := timeParser{loc: loc, policy: pol.normalized()}
+			w := time.Date(2020, 12, 25, 0, 0, 0, 0, time.UTC)
+			for end := w.AddDate(1, 1, 0); w.Before(end); w = w.Add(7 * time.Minute) {
+				got, gotErr := tp.local(w)
+				want, wantErr := resolveLocal(w, loc, pol.normalized())
+				if gotErr != wantErr || !got.Equal(want) {
+					t.Fatalf("%s %v: cached %v %v, uncached %v %v", zone, w, got, gotErr, want, wantErr)
+				}
+			}
+		}
+	}
+}

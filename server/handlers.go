@@ -305,4 +305,3 @@ func (s *Server) download(c echo.Context) error {
 	http.ServeContent(c.Response(), c.Request(), "", time.Time{}, r)
 	return nil
 }
-
