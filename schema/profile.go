@@ -28,6 +28,7 @@ type ProfileError struct {
 	Msg  string
 }
 
+// Error formats the problem as "profile: line N: key: message".
 func (e *ProfileError) Error() string {
 	s := "profile"
 	if e.Line > 0 {
@@ -101,6 +102,17 @@ func DefaultProfile() *Profile {
 		p.Fields[f] = Mapping{Column: string(f), Optional: !f.Required()}
 	}
 	return p
+}
+
+// clone returns a copy of p whose Fields map may be changed; the codes
+// maps are shared, read-only.
+func (p *Profile) clone() *Profile {
+	q := *p
+	q.Fields = make(map[Field]Mapping, len(p.Fields))
+	for f, m := range p.Fields {
+		q.Fields[f] = m
+	}
+	return &q
 }
 
 // Location returns the zone in which wall-clock times are read.

@@ -100,6 +100,8 @@ func NewReader(r io.Reader, p *Profile, opt ReaderOptions) (*Reader, error) {
 	if p == nil {
 		p = DefaultProfile()
 	}
+	// Validate a copy: one Profile may serve many concurrent readers.
+	p = p.clone()
 	if err := p.validate(nil); err != nil {
 		return nil, &FileError{Rule: RuleProfile, Msg: err.Error(), Err: err}
 	}

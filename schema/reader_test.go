@@ -632,3 +632,39 @@ fields:
 	}
 	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/rows, "ns/row")
 }
+
+// TestReaderSharedProfile runs readers on one profile at once (run with
+// -race): NewReader must not write to the caller's profile.
+func TestReaderSharedProfile(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	hash := p.Hash()
+	data := testHeader + "V1,ARR,2021-06-01T08:00:00Z,a,D1,1\n"
+	done := make(chan int)
+	for range 4 {
+		go func() {
+			r, err := NewReader(strings.NewReader(data), p, ReaderOptions{})
+			n := 0
+			if err == nil {
+				var e Event
+				for {
+					rej, err := r.Next(&e)
+					if err != nil {
+						break
+					}
+					if rej == nil {
+						n++
+					}
+				}
+			}
+			done <- n
+		}()
+	}
+	for range 4 {
+		if n := <-done; n != 1 {
+			t.Errorf("reader got %d events", n)
+		}
+	}
+	if p.Hash() != hash {
+		t.Error("NewReader changed the profile")
+	}
+}

@@ -127,7 +127,7 @@ func (tp *timeParser) local(w time.Time) (time.Time, error) {
 		tp.cacheLo = start.UTC().Add(24*time.Hour + off)
 	}
 	if !end.IsZero() {
-		tp.cacheHi = end.UTC().Add(24*time.Hour + off)
+		tp.cacheHi = end.UTC().Add(-24*time.Hour + off)
 	}
 	tp.cacheOK = tp.cacheLo.Before(tp.cacheHi)
 	return t, nil

@@ -131,7 +131,6 @@ func (g *day) plant(vs []*visit, rows []row, counts map[string]int) []row {
 				rows[find(v, schema.Arrival)].badTS = true
 			}
 			counts[kind]++
-			if kind == DefectClockSkew { counts[kind]++ }
 		}
 	}
 	return rows

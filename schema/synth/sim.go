@@ -106,7 +106,7 @@ func weekend(t time.Time) bool {
 // arrivals draws the day's arrival instants from the non-homogeneous
 // Poisson process with rate Site.Rate by thinning: candidates come from a
 // homogeneous process at the bound rate and each is kept with probability
-// rate(t)/bound (Lewis and Shedler's method).
+// rate(t)/bound.
 func (g *day) arrivals() []time.Time {
 	we := weekend(g.start)
 	bound := g.site.rateBound(we)

@@ -46,7 +46,11 @@ type Site struct {
 	Code string // site code, the value of the schema's site field
 	Name string // display name
 
-	Format    string // export format: "csv" or "jsonl"
+	// Format is the export format: "csv" writes the clinic's column set
+	// (VisitRef;PatientRef;Step;StaffRef;EvCode;Stamp;Area;Triage;Note),
+	// "jsonl" the phone line's keys (call, caller, nurse, what, ts, line,
+	// channel, disposition).
+	Format    string
 	Delimiter rune   // field delimiter of a CSV export
 	Zone      string // IANA zone of the site's local clock
 	// Layout is the strftime-style layout of the export's wall-clock
