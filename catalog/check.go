@@ -47,7 +47,7 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 	if err != nil {
 		return nil, err
 	}
-	acc := quality.NewAccumulator(quality.Options{UploadedAt: opt.Now, WindowFrom: opt.WindowFrom, WindowTo: opt.WindowTo})
+	acc := quality.NewAccumulator(quality.Options{UploadedAt: opt.Now, WindowFrom: opt.WindowFrom, WindowTo: opt.WindowTo, MappedFields: mappedFields(prof)})
 	srt := newSorter(opt.TempDir, opt.RunEvents)
 	defer srt.Close()
 	rd, err := schema.NewReader(src, prof, schema.ReaderOptions{Name: opt.Name})
@@ -63,7 +63,9 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 	if err := srt.Finish(func(e *schema.Event) error { acc.Observe(e); return nil }); err != nil {
 		return nil, fmt.Errorf("check: %w", err)
 	}
-	return &CheckResult{Report: acc.Report(), Unmapped: rd.Unmapped()}, nil
+	rep := acc.Report()
+	rep.UnmappedColumns = rd.Unmapped()
+	return &CheckResult{Report: rep, Unmapped: rep.UnmappedColumns}, nil
 }
 
 func throwawayPseudonymizer() (*anonymize.Pseudonymizer, error) {

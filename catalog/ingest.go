@@ -75,7 +75,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 
 	raw := &hashCounter{h: sha256.New()}
 	tee := io.TeeReader(src, raw)
-	qopt := quality.Options{UploadedAt: received}
+	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof)}
 	if ds.WindowFrom != nil {
 		qopt.WindowFrom = *ds.WindowFrom
 	}
@@ -134,6 +134,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	rep := acc.Report()
+	rep.UnmappedColumns = up.Unmapped
 	up.Report = rep
 	if sw.rows == 0 || rep.RejectedShare() > ds.RejectAbove {
 		up.Status = UploadRejected
@@ -261,6 +262,19 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 			return err
 		}
 	}
+}
+
+// mappedFields lists the fields a profile fills on purpose, for the
+// completeness score; the default profile's columns are all optional, so
+// it lists none and quality scores the fields the file fills.
+func mappedFields(p *schema.Profile) []schema.Field {
+	var out []schema.Field
+	for _, f := range schema.Fields {
+		if m, ok := p.Fields[f]; ok && !m.Optional && (m.Column != "" || m.Value != "") {
+			out = append(out, f)
+		}
+	}
+	return out
 }
 
 var errDuplicateRace = errors.New("duplicate committed concurrently")

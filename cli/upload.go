@@ -10,6 +10,7 @@ import (
 	"os"
 	"path/filepath"
 	"strconv"
+	"strings"
 
 	"github.com/schollz/progressbar/v3"
 	"github.com/spf13/cobra"
@@ -109,7 +110,7 @@ func printUpload(w io.Writer, r ref, a *uploadAnswer) {
 		r, v.Number, u.ID, u.Report.Rows.Accepted, u.Report.Rows.Rejected, score(u.Report.Score))
 	fmt.Fprintf(w, "snapshot %s (%d files, %d rows in all)\n", v.SnapshotID, len(v.Manifest.Files), v.Manifest.Rows)
 	if len(u.Unmapped) > 0 {
-		fmt.Fprintf(w, "dropped unmapped columns: %v\n", u.Unmapped)
+		fmt.Fprintf(w, "dropped unmapped columns: %s\n", strings.Join(u.Unmapped, ", "))
 	}
 }
 

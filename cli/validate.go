@@ -65,9 +65,6 @@ prints the quality report. Nothing is stored or sent. Exit 0: the server would a
 				writeJSON(e.stdout, map[string]any{"accepted": ok, "file": name, "report": rep, "unmapped_columns": res.Unmapped})
 			} else {
 				rep.Text(e.stdout, e.tty())
-				if len(res.Unmapped) > 0 {
-					fmt.Fprintf(e.stdout, "\nunmapped columns (dropped at ingest): %v\n", res.Unmapped)
-				}
 				verdict := "would be accepted"
 				if !ok {
 					verdict = fmt.Sprintf("would be REJECTED: %.2f%% invalid rows (threshold %.2f%%)", 100*rep.RejectedShare(), 100*rejectAbove)

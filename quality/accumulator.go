@@ -65,7 +65,7 @@ type Accumulator struct {
 	fromAt, toAt        int64
 	hasUpload           bool
 	hasFrom, hasTo      bool
-	horizon             int64 // microseconds
+	horizon             uint64 // microseconds
 	pruneEvery          int
 	seed                maphash.Seed
 	accepted, rejected  int64
@@ -83,14 +83,15 @@ type Accumulator struct {
 	orderBreaches       finding
 	sites               map[string]*int64
 	siteOther           int64
-	lastSite            string
-	lastSiteN           *int64
+	siteCache           [4]siteCounter
+	siteNext            int
 
 	// stream state, per file
 	seen       bool
 	curAt      int64
 	inst       instantSet
-	cases      map[uint64]caseState
+	base       int64     // the file's first instant
+	cases      caseTable // see cases.go
 	sincePrune int
 	keptCases  int // cases left by the last sweep
 }
@@ -150,12 +151,12 @@ func NewAccumulator(opt Options) *Accumulator {
 	}
 	a := &Accumulator{
 		opt:        opt,
-		horizon:    opt.CaseHorizon.Microseconds(),
+		horizon:    uint64(opt.CaseHorizon.Microseconds()),
 		pruneEvery: defaultPruneEvery,
 		seed:       maphash.MakeSeed(),
 		reasons:    make(map[schema.Reason]*finding),
 		sites:      make(map[string]*int64),
-		cases:      make(map[uint64]caseState),
+		cases:      newCaseTable(),
 	}
 	if !opt.UploadedAt.IsZero() {
 		a.hasUpload, a.uploadAt = true, opt.UploadedAt.UnixMicro()
@@ -170,7 +171,7 @@ func NewAccumulator(opt Options) *Accumulator {
 }
 
 // Observe counts one accepted event. See the order precondition on
-// [Accumulator]. The accumulator keeps no reference to e.
+// [Accumulator]. e may be reused once Observe returns.
 func (a *Accumulator) Observe(e *schema.Event) {
 	if e == nil {
 		return
@@ -204,14 +205,18 @@ func (a *Accumulator) Observe(e *schema.Event) {
 			a.timeRows++
 		}
 		return
-	case !a.seen || at > a.curAt:
+	case !a.seen:
+		a.base = at
+		fallthrough
+	case at > a.curAt:
 		a.inst.reset()
 		a.curAt, a.seen = at, true
 	}
 	if a.inst.add(e, a.seed) {
 		a.dups.add(a.opt.MaxSamples, sampleOf(e))
 	}
-	if a.observeCase(e, at) {
+	rel := uint64(at - a.base)
+	if a.observeCase(e, rel) {
 		problem = true
 	}
 	if problem {
@@ -219,7 +224,7 @@ func (a *Accumulator) Observe(e *schema.Event) {
 	}
 	a.sincePrune++
 	if a.sincePrune >= a.pruneEvery && a.sincePrune >= a.keptCases {
-		a.prune(at)
+		a.prune(rel)
 	}
 }
 
@@ -259,9 +264,12 @@ func (a *Accumulator) optional(i int, v string, e *schema.Event) {
 }
 
 func (a *Accumulator) countSite(site string) {
-	if a.lastSiteN != nil && site == a.lastSite {
-		*a.lastSiteN++
-		return
+	// Files hold one or a few sites: a tiny cache spares most map lookups.
+	for i := range a.siteCache {
+		if c := &a.siteCache[i]; c.n != nil && c.site == site {
+			*c.n++
+			return
+		}
 	}
 	n, ok := a.sites[site]
 	if !ok {
@@ -274,7 +282,13 @@ func (a *Accumulator) countSite(site string) {
 		a.sites[site] = n
 	}
 	*n++
-	a.lastSite, a.lastSiteN = site, n
+	a.siteCache[a.siteNext] = siteCounter{site, n}
+	a.siteNext = (a.siteNext + 1) % len(a.siteCache)
+}
+
+type siteCounter struct {
+	site string
+	n    *int64
 }
 
 // Reject counts one rejected source row. Only its line, column, field and

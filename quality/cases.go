@@ -6,27 +6,28 @@ import (
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
-// caseState is what the order checks remember of one case. Cases are
-// keyed by a 64-bit seeded hash of the case pseudonym rather than the
-// string itself, so that the map neither pins the caller's strings nor
+// The order checks keep one uint64 per open case: the case's latest
+// instant in microseconds after the file's first instant (upper 56 bits,
+// some 2000 years) and the flags below (lower 8 bits). Cases are keyed by
+// a 64-bit seeded hash of the case pseudonym rather than the string
+// itself, so that the table neither pins the caller's strings nor
 // allocates per case; two open cases sharing a hash (odds about n²/2⁶⁵
 // for n open cases) would merely share one record.
-type caseState struct {
-	last       int64 // latest instant seen, for pruning
-	startAt    int64 // instant of a start not preceded by arrival or enqueue
-	completeAt int64 // instant of a complete not preceded by a start
-	mask       uint8
-}
-
 const (
-	caseAnchored        uint8 = 1 << iota // an arrival or enqueue was seen
-	caseStarted                           // a start was seen
-	casePendingStart                      // startAt holds an unanchored start
-	casePendingComplete                   // completeAt holds an unstarted complete
+	caseAnchored           uint64 = 1 << iota // an arrival or enqueue was seen
+	caseStarted                               // a start was seen
+	casePendingStart                          // a start came before any arrival or enqueue
+	casePendingComplete                       // a complete came before any start
+	casePendingStartNow                       // ... that start was at the latest instant
+	casePendingCompleteNow                    // ... that complete was at the latest instant
+	caseFlagBits           = 8
+	caseFlags              = 1<<caseFlagBits - 1
+	caseNowFlags           = casePendingStartNow | casePendingCompleteNow
 )
 
 // observeCase updates the case's record and reports whether e is a row
-// found out of order within its case.
+// found out of order within its case. at is the event's instant relative
+// to the file's first.
 //
 // In a time-sorted stream, "a start earlier than the case's arrival" shows
 // as an arrival or enqueue observed at a later instant than a start that
@@ -35,74 +36,78 @@ const (
 // a complete that had no start before it counts the start row. A case
 // that is served, transferred and enqueued again is not flagged, and equal
 // instants are never violations.
-func (a *Accumulator) observeCase(e *schema.Event, at int64) bool {
-	var bit uint8
+func (a *Accumulator) observeCase(e *schema.Event, at uint64) bool {
+	k := maphash.String(a.seed, e.CaseID)
+	if k == 0 { // 0 marks an empty slot
+		k = 1
+	}
+	slot, ok := a.cases.lookup(k)
+	st := slot.rec
+	var kind uint64
 	switch e.Type {
 	case schema.Arrival, schema.Enqueue:
-		bit = caseAnchored
+		kind = caseAnchored
 	case schema.Start:
-		bit = caseStarted
+		kind = caseStarted
 	case schema.Complete:
 	default:
 		// Other types change no check but keep the case open.
-		k := a.caseKey(e)
-		if st, ok := a.cases[k]; ok {
-			st.last = at
-			a.cases[k] = st
+		if ok {
+			slot.rec = a.touch(st, at)
 		}
 		return false
 	}
-	k := a.caseKey(e)
-	st := a.cases[k]
-	st.last = at
+	if !ok {
+		a.cases.claim(slot, k)
+	}
+	st = a.touch(st, at)
 	flagged := false
-	switch bit {
+	switch kind {
 	case caseAnchored:
-		if st.mask&casePendingStart != 0 {
-			if at > st.startAt {
+		if st&casePendingStart != 0 {
+			if st&casePendingStartNow == 0 {
 				a.startBeforeArrival.add(a.opt.MaxSamples, sampleOf(e))
 				flagged = true
 			}
-			st.mask &^= casePendingStart
+			st &^= casePendingStart | casePendingStartNow
 		}
-		st.mask |= caseAnchored
+		st |= caseAnchored
 	case caseStarted:
-		if st.mask&casePendingComplete != 0 {
-			if at > st.completeAt {
+		if st&casePendingComplete != 0 {
+			if st&casePendingCompleteNow == 0 {
 				a.completeBeforeStart.add(a.opt.MaxSamples, sampleOf(e))
 				flagged = true
 			}
-			st.mask &^= casePendingComplete
+			st &^= casePendingComplete | casePendingCompleteNow
 		}
-		if st.mask&(caseAnchored|casePendingStart) == 0 {
-			st.mask |= casePendingStart
-			st.startAt = at
+		if st&(caseAnchored|casePendingStart) == 0 {
+			st |= casePendingStart | casePendingStartNow
 		}
-		st.mask |= caseStarted
+		st |= caseStarted
 	default: // complete
-		if st.mask&(caseStarted|casePendingComplete) == 0 {
-			st.mask |= casePendingComplete
-			st.completeAt = at
+		if st&(caseStarted|casePendingComplete) == 0 {
+			st |= casePendingComplete | casePendingCompleteNow
 		}
 	}
-	a.cases[k] = st
+	slot.rec = st
 	return flagged
 }
 
-func (a *Accumulator) caseKey(e *schema.Event) uint64 {
-	return maphash.String(a.seed, e.CaseID)
+// touch moves the record's latest instant to at; the "now" flags hold
+// only while the instant stays the same.
+func (a *Accumulator) touch(st, at uint64) uint64 {
+	if st>>caseFlagBits != at {
+		st = at<<caseFlagBits | st&caseFlags&^caseNowFlags
+	}
+	return st
 }
 
 // prune drops the records of cases idle for longer than the horizon.
-func (a *Accumulator) prune(now int64) {
+func (a *Accumulator) prune(now uint64) {
 	a.sincePrune = 0
-	for k, st := range a.cases {
-		if now-st.last > a.horizon {
-			delete(a.cases, k)
-		}
-	}
-	a.keptCases = len(a.cases)
+	a.cases.sweep(func(rec uint64) bool { return now-rec>>caseFlagBits > a.horizon })
+	a.keptCases = a.cases.n
 }
 
 // openCases is the number of case records held (for tests).
-func (a *Accumulator) openCases() int { return len(a.cases) }
+func (a *Accumulator) openCases() int { return a.cases.n }

@@ -30,7 +30,10 @@ type instantSet struct {
 }
 
 func (s *instantSet) reset() {
-	clear(s.evs) // drop references to the caller's strings
+	if cap(s.evs) > bigIndex {
+		// One crowded instant must not pin its strings for the rest of the file.
+		s.evs = nil
+	}
 	s.evs = s.evs[:0]
 	if s.hashed {
 		s.hashes, s.next = s.hashes[:0], s.next[:0]

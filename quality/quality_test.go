@@ -494,7 +494,7 @@ func TestPruning(t *testing.T) {
 	if peak > 2*31+1 {
 		t.Errorf("peak %d open cases, want at most 63", peak)
 	}
-	a.prune(t0.Add(999 * time.Minute).UnixMicro())
+	a.prune(uint64(999 * time.Minute / time.Microsecond))
 	if got := a.openCases(); got != 31 { // minutes 969..999
 		t.Errorf("after a sweep %d open cases, want 31", got)
 	}

@@ -80,6 +80,10 @@ type Report struct {
 	// Internal lists faults of the program rather than of the data (such
 	// as order_breach); they do not enter any score.
 	Internal []Finding `json:"internal"`
+	// UnmappedColumns names the source columns the profile does not map;
+	// ingest dropped them (they may hold free text or identifiers). The
+	// ingest sets it; the accumulator does not see columns.
+	UnmappedColumns []string `json:"unmapped_columns,omitempty"`
 }
 
 // Rows counts the source rows of the upload.

@@ -34,7 +34,11 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	if r.Sites.Other > 0 {
 		fmt.Fprintf(bw, ", %d events at further sites", r.Sites.Other)
 	}
-	bw.WriteString("\n\n")
+	bw.WriteString("\n")
+	if len(r.UnmappedColumns) > 0 {
+		fmt.Fprintf(bw, "dropped unmapped columns: %s\n", strings.Join(r.UnmappedColumns, ", "))
+	}
+	bw.WriteString("\n")
 
 	fmt.Fprintf(bw, "%s\n", p.bold(fmt.Sprintf("%-13s %6s %6s %8s", "dimension", "score", "weight", "rows")))
 	for _, d := range r.Dimensions {
