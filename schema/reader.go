@@ -50,6 +50,7 @@ type Reader struct {
 	// CSV/TSV
 	csv      *csv.Reader
 	header   []string
+	trusted  bool // the first row is evidently a header (headerTrusted)
 	unmapped []string
 
 	// JSON Lines
@@ -200,14 +201,23 @@ func (rd *Reader) readHeader() error {
 	}
 	index := make(map[string]int, len(rd.header))
 	for i, h := range rd.header {
-		if _, dup := index[h]; dup && h != "" {
-			if rd.headerLooksLikeData() {
-				// The cells may be identifier values: name none of them.
-				return rd.fileErr(RuleDuplicateColumn, int64(headerLine), "", fmt.Sprintf("the first row repeats a cell (fields %d and %d) and looks like data (a cell reads as a number or a timestamp): is the header row missing?", index[h]+1, i+1), nil)
-			}
-			return rd.fileErr(RuleDuplicateColumn, int64(headerLine), h, fmt.Sprintf("the header names column %q twice (fields %d and %d)", clip(h), index[h]+1, i+1), nil)
+		if _, ok := index[h]; !ok {
+			index[h] = i
 		}
-		index[h] = i
+	}
+	// Only a first row that holds at least one of the profile's columns,
+	// and no cell that reads as data, is trusted to be a header whose cells
+	// may be quoted; any other first row may be data holding identifiers.
+	rd.trusted = rd.headerTrusted(index)
+	seen := make(map[string]int, len(rd.header))
+	for i, h := range rd.header {
+		if j, dup := seen[h]; dup && h != "" {
+			if !rd.trusted {
+				return rd.fileErr(RuleDuplicateColumn, int64(headerLine), "", fmt.Sprintf("the first row repeats a cell (fields %d and %d) and holds none of the profile's columns: is the header row missing?", j+1, i+1), nil)
+			}
+			return rd.fileErr(RuleDuplicateColumn, int64(headerLine), h, fmt.Sprintf("the header names column %q twice (fields %d and %d)", clip(h), j+1, i+1), nil)
+		}
+		seen[h] = i
 	}
 	mapped := map[string]bool{}
 	for i, f := range fieldsArray {
@@ -235,21 +245,29 @@ func (rd *Reader) readHeader() error {
 }
 
 // missingColumnMsg explains a missing column. It lists the header's column
-// names, unless the "header" looks like a data row: then its cells may be
-// identifier values and are not repeated.
+// names only when the first row is trusted to be a header (see
+// headerTrusted): otherwise its cells may be identifier values and only
+// the profile's own column names are repeated.
 func (rd *Reader) missingColumnMsg(f Field, col string) string {
-	if rd.headerLooksLikeData() {
-		return fmt.Sprintf("field %s needs column %q, which is not in the first row; the first row looks like data (a cell reads as a number or a timestamp): is the header row missing?", f, clip(col))
-	}
-	if len(rd.header) == 1 {
-		msg := fmt.Sprintf("field %s needs column %q, but the header has 1 column (%q); is the delimiter right? profile says %q", f, clip(col), clipN(rd.header[0], 80), rd.p.Delimiter)
-		for _, d := range []string{";", ",", "\t", "|"} {
-			if d != rd.p.Delimiter && strings.Count(rd.header[0], d) > 0 {
-				msg += fmt.Sprintf(", and the header holds %d %q", strings.Count(rd.header[0], d), d)
-				break
+	if !rd.trusted {
+		msg := fmt.Sprintf("field %s needs column %q, which is not in the first row; that row has %d cells and none of the profile's columns", f, clip(col), len(rd.header))
+		if len(rd.header) == 1 {
+			for _, d := range []string{";", ",", "\t", "|"} {
+				if d == rd.p.Delimiter || !strings.Contains(rd.header[0], d) {
+					continue
+				}
+				var found []string
+				for part := range strings.SplitSeq(rd.header[0], d) {
+					if rd.profileColumn(strings.TrimSpace(part)) {
+						found = append(found, fmt.Sprintf("%q", clip(strings.TrimSpace(part))))
+					}
+				}
+				if len(found) > 0 {
+					return msg + fmt.Sprintf("; split at %q it would hold the profile's columns %s: is the delimiter right? profile says %q", d, strings.Join(found, ", "), rd.p.Delimiter)
+				}
 			}
 		}
-		return msg
+		return msg + fmt.Sprintf(": is the header row missing, or the delimiter wrong? profile says %q", rd.p.Delimiter)
 	}
 	names := make([]string, 0, min(len(rd.header), 50))
 	for i, h := range rd.header {
@@ -260,6 +278,30 @@ func (rd *Reader) missingColumnMsg(f Field, col string) string {
 		names = append(names, fmt.Sprintf("%q", clip(h)))
 	}
 	return fmt.Sprintf("field %s needs column %q, which is not in the header; the header has %d columns: %s", f, clip(col), len(rd.header), strings.Join(names, ", "))
+}
+
+// headerTrusted reports whether the first row is evidently a header: it
+// holds at least one column the profile names and no cell reads as data.
+func (rd *Reader) headerTrusted(index map[string]int) bool {
+	if rd.headerLooksLikeData() {
+		return false
+	}
+	for h := range index {
+		if rd.profileColumn(h) {
+			return true
+		}
+	}
+	return false
+}
+
+// profileColumn reports whether the profile maps some field to column h.
+func (rd *Reader) profileColumn(h string) bool {
+	for i := range rd.cols {
+		if rd.cols[i].kind == kindColumn && rd.cols[i].name == h {
+			return true
+		}
+	}
+	return false
 }
 
 func (rd *Reader) headerLooksLikeData() bool {

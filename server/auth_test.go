@@ -93,6 +93,7 @@ func TestAuthTokens(t *testing.T) {
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
+			e := e.in(t)
 			hdr := map[string]string{}
 			if tc.header != "" {
 				hdr["Authorization"] = tc.header
@@ -104,9 +105,16 @@ func TestAuthTokens(t *testing.T) {
 			if tc.want != http.StatusUnauthorized {
 				return
 			}
-			// RFC 6750 section 3: a 401 carries a Bearer challenge.
-			if wa := r.Header.Get("WWW-Authenticate"); !strings.HasPrefix(wa, "Bearer") {
+			// RFC 6750 section 3: a 401 carries a Bearer challenge; it
+			// names error="invalid_token" when a token was sent (section
+			// 3.1) and no error code when none was (section 3).
+			wa := r.Header.Get("WWW-Authenticate")
+			if !strings.HasPrefix(wa, "Bearer ") || !strings.Contains(wa, `realm="flowcat"`) {
 				t.Errorf("WWW-Authenticate = %q, want a Bearer challenge", wa)
+			}
+			sent := strings.HasPrefix(tc.header, "Bearer ") && len(tc.header) > len("Bearer ")
+			if got := strings.Contains(wa, `error="invalid_token"`); got != sent {
+				t.Errorf("WWW-Authenticate = %q: invalid_token named %v, want %v", wa, got, sent)
 			}
 			b := e.apiErr(r)
 			if b.Error.Code != "unauthorized" {
@@ -181,6 +189,7 @@ func TestAuthScopes(t *testing.T) {
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
+			e := e.in(t)
 			var body string
 			hdr := map[string]string{}
 			if tc.body != nil {

@@ -1,16 +1,23 @@
 package server
 
 import (
+	"cmp"
+	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
+	"mime"
 	"net/http"
+	"slices"
 	"strconv"
+	"strings"
 	"time"
 
 	"github.com/labstack/echo/v4"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 // projectView is a project as the API shows it: never its sealed key.
@@ -52,8 +59,8 @@ func (s *Server) createProject(c echo.Context) error {
 		return forbidden("create projects (admin only)")
 	}
 	var req createProjectRequest
-	if err := c.Bind(&req); err != nil {
-		return fail(http.StatusBadRequest, "invalid", "request body: want JSON {\"name\": ..., \"title\": ...}")
+	if err := decodeJSON(c, &req); err != nil {
+		return fail(http.StatusBadRequest, "invalid", "request body: want JSON {\"name\": ..., \"title\": ...}: %v", err)
 	}
 	p, err := s.cfg.Store.CreateProject(c.Request().Context(), req.Name, req.Title, cl.Subject)
 	if err != nil {
@@ -110,8 +117,8 @@ func (s *Server) createDataset(c echo.Context) error {
 		return forbidden("create datasets in project " + project)
 	}
 	var req createDatasetRequest
-	if err := c.Bind(&req); err != nil {
-		return fail(http.StatusBadRequest, "invalid", "request body: want JSON {\"name\", \"profile\", \"timezone\", ...}: %v", err)
+	if err := decodeJSON(c, &req); err != nil {
+		return fail(http.StatusBadRequest, "invalid", "request body: want JSON {\"name\", \"title\", \"profile\", \"timezone\", \"reject_above\", \"window_from\", \"window_to\"}: %v", err)
 	}
 	d, err := s.cfg.Store.CreateDataset(c.Request().Context(), catalog.DatasetSpec{
 		Project: project, Name: req.Name, Title: req.Title, Profile: []byte(req.Profile),
@@ -157,7 +164,10 @@ func (s *Server) upload(c echo.Context) error {
 		return err
 	}
 	req := c.Request()
-	body := http.MaxBytesReader(c.Response(), req.Body, s.cfg.MaxUploadBytes)
+	// The plain ResponseWriter, not echo's wrapper: only net/http's own
+	// writer learns from MaxBytesReader that the rest of the body is to be
+	// dropped, and then closes the connection after the 413.
+	body := http.MaxBytesReader(c.Response().Writer, req.Body, s.cfg.MaxUploadBytes)
 	res, err := s.cfg.Store.Ingest(req.Context(), d.Project, d.Name, body, catalog.IngestOptions{
 		Filename: c.QueryParam("filename"),
 		By:       claims(c).Subject,
@@ -175,6 +185,7 @@ func (s *Server) upload(c echo.Context) error {
 		return he
 	case errors.Is(err, catalog.ErrRejected):
 		he := fail(http.StatusUnprocessableEntity, "rejected", "%s", err.Error())
+		rejectedDetail(&he.body, res.Upload)
 		he.body.Upload = res.Upload
 		return he
 	case err != nil:
@@ -185,6 +196,43 @@ func (s *Server) upload(c echo.Context) error {
 		status = http.StatusOK
 	}
 	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version})
+}
+
+// rejectedDetail names, in a rejected upload's error, why its rows were
+// rejected: the reasons with their counts, most frequent first, and the
+// first line (and column) of the most frequent one, which also fills the
+// body's rule, line and column. Samples hold no values, so neither does
+// the message.
+func rejectedDetail(b *errorBody, up catalog.Upload) {
+	if up.Report == nil || len(up.Report.Rejections) == 0 {
+		return
+	}
+	rs := slices.Clone(up.Report.Rejections)
+	slices.SortStableFunc(rs, func(x, y quality.RejectionCount) int { return cmp.Compare(y.Count, x.Count) })
+	parts := make([]string, 0, 3)
+	for i, r := range rs {
+		if i == 3 {
+			parts = append(parts, fmt.Sprintf("%d more reasons", len(rs)-3))
+			break
+		}
+		parts = append(parts, fmt.Sprintf("%s %d", r.Reason, r.Count))
+	}
+	file := up.Filename
+	if file == "" {
+		file = "upload"
+	}
+	top := rs[0]
+	b.Rule = string(top.Reason)
+	first := ""
+	if len(top.Samples) > 0 {
+		s := top.Samples[0]
+		b.Line, b.Column = s.Line, s.Column
+		first = fmt.Sprintf("; first %s at %s:%d", top.Reason, file, s.Line)
+		if s.Column != "" {
+			first += fmt.Sprintf(" column %q", s.Column)
+		}
+	}
+	b.Message = fmt.Sprintf("%s: %s; rejected rows by reason: %s%s", file, b.Message, strings.Join(parts, ", "), first)
 }
 
 // fileMessage names file, line, column and rule in one sentence.
@@ -303,5 +351,34 @@ func (s *Server) download(c echo.Context) error {
 	h.Set("Cache-Control", "private, max-age=31536000, immutable")
 	h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s"`, id.String()+".parquet"))
 	http.ServeContent(c.Response(), c.Request(), "", time.Time{}, r)
+	return nil
+}
+
+// maxRequestJSON bounds a JSON request body (a dataset's profile is the
+// largest thing one holds).
+const maxRequestJSON = 1 << 20
+
+// decodeJSON reads a request body that must be one JSON object of v's
+// fields: an unknown field is an error rather than silently dropped, so a
+// misspelt "profile" cannot create a dataset with the default profile.
+func decodeJSON(c echo.Context, v any) error {
+	req := c.Request()
+	if ct := req.Header.Get(echo.HeaderContentType); ct != "" {
+		mt, _, err := mime.ParseMediaType(ct)
+		if err != nil || mt != echo.MIMEApplicationJSON {
+			return fmt.Errorf("content type %q, want %s", ct, echo.MIMEApplicationJSON)
+		}
+	}
+	dec := json.NewDecoder(http.MaxBytesReader(c.Response().Writer, req.Body, maxRequestJSON))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(v); err != nil {
+		if err == io.EOF {
+			return errors.New("the body is empty")
+		}
+		return err
+	}
+	if _, err := dec.Token(); err != io.EOF {
+		return errors.New("more than one JSON value")
+	}
 	return nil
 }

@@ -53,16 +53,30 @@ type testEnv struct {
 	store   *catalog.Store
 	srv     *httptest.Server
 	log     *lockedBuffer
-	mu      sync.Mutex
-	bodies  [][]byte // every response body the helpers received
-	admin   string   // an admin token
+	rec     *recorder
+	admin   string // an admin token
 	timeout time.Duration
+}
+
+// recorder keeps every response body the helpers received.
+type recorder struct {
+	mu     sync.Mutex
+	bodies [][]byte
+}
+
+// in returns a view of e whose helpers report to t (a subtest), sharing
+// the server and the recorded bodies.
+func (e *testEnv) in(t *testing.T) *testEnv {
+	c := *e
+	c.t = t
+	return &c
 }
 
 // newEnv builds the data store (bbolt metadata, local blob folder, temp
 // folder) under t.TempDir(), an Authority with a random key, and serves
 // server.New over httptest.NewServer. Everything is closed by t.Cleanup.
-func newEnv(t *testing.T) *testEnv {
+// Each opt may change the server's Config before New.
+func newEnv(t *testing.T, opts ...func(*Config)) *testEnv {
 	t.Helper()
 	dir := t.TempDir()
 	blobs, err := localfs.New(filepath.Join(dir, "blobs"))
@@ -89,9 +103,13 @@ func newEnv(t *testing.T) *testEnv {
 		t.Fatal(err)
 	}
 	auth := NewAuthority(key, testIssuer)
-	s := New(Config{Store: store, Authority: auth, Logger: logger})
+	cfg := Config{Store: store, Authority: auth, Logger: logger}
+	for _, o := range opts {
+		o(&cfg)
+	}
+	s := New(cfg)
 	srv := httptest.NewServer(s)
-	e := &testEnv{t: t, dir: dir, key: key, auth: auth, store: store, srv: srv, log: logs, timeout: 30 * time.Second}
+	e := &testEnv{t: t, dir: dir, key: key, auth: auth, store: store, srv: srv, log: logs, rec: &recorder{}, timeout: 30 * time.Second}
 	t.Cleanup(func() {
 		srv.Close()
 		store.Close()
@@ -158,13 +176,15 @@ func (e *testEnv) do(method, path, token string, body io.Reader, hdr map[string]
 	if err != nil {
 		e.t.Fatalf("%s %s: reading body: %v", method, path, err)
 	}
-	e.mu.Lock()
-	e.bodies = append(e.bodies, b)
-	e.mu.Unlock()
+	e.rec.mu.Lock()
+	e.rec.bodies = append(e.rec.bodies, b)
+	e.rec.mu.Unlock()
 	return response{Status: res.StatusCode, Header: res.Header, Body: b}
 }
 
-func (e *testEnv) get(path, token string) response { return e.do(http.MethodGet, path, token, nil, nil) }
+func (e *testEnv) get(path, token string) response {
+	return e.do(http.MethodGet, path, token, nil, nil)
+}
 
 func (e *testEnv) postJSON(path, token string, v any) response {
 	e.t.Helper()
@@ -269,9 +289,9 @@ func (e *testEnv) apiErr(r response) apiErrorBody {
 
 // allBodies returns every response body received so far.
 func (e *testEnv) allBodies() [][]byte {
-	e.mu.Lock()
-	defer e.mu.Unlock()
-	return append([][]byte(nil), e.bodies...)
+	e.rec.mu.Lock()
+	defer e.rec.mu.Unlock()
+	return append([][]byte(nil), e.rec.bodies...)
 }
 
 func clipBody(b []byte) string {

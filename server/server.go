@@ -174,7 +174,7 @@ func errorHandler(log *slog.Logger) echo.HTTPErrorHandler {
 			log.Error("internal error", "path", c.Request().URL.Path, "err", err)
 			body = errorBody{Status: http.StatusInternalServerError, Code: "internal", Message: "internal error; the server log has the details"}
 		}
-		if body.Status == http.StatusUnauthorized {
+		if body.Status == http.StatusUnauthorized && c.Response().Header().Get("WWW-Authenticate") == "" {
 			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat"`)
 		}
 		if c.Request().Method == http.MethodHead {
@@ -199,6 +199,8 @@ func (s *Server) authenticate(next echo.HandlerFunc) echo.HandlerFunc {
 		}
 		cl, err := s.cfg.Authority.Verify(strings.TrimSpace(tok))
 		if err != nil {
+			// RFC 6750 section 3.1: a token was sent and is not valid.
+			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat", error="invalid_token"`)
 			return fail(http.StatusUnauthorized, "unauthorized", "%s", err.Error())
 		}
 		c.Set(claimsKey, cl)
