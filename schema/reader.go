@@ -658,10 +658,8 @@ func (rd *Reader) Rows() int64 { return rd.rows }
 // JSON Lines.
 func (rd *Reader) Header() []string { return slices.Clone(rd.header) }
 
+// fileErr builds a FileError; callers that show it prefix the file name.
 func (rd *Reader) fileErr(rule string, line int64, col, msg string, err error) *FileError {
-	if rd.name != "" {
-		msg += " (in " + rd.name + ")"
-	}
 	return &FileError{Line: line, Column: col, Rule: rule, Msg: msg, Err: err}
 }
 

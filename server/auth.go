@@ -160,6 +160,19 @@ func (c *Claims) CanUpload(project, dataset string) bool {
 	return c.Role == RolePartner && slices.Contains(c.Datasets, project+"/"+dataset)
 }
 
+// uploadsTo reports whether a partner's token names a dataset of project.
+func (c *Claims) uploadsTo(project string) bool {
+	if c.Role != RolePartner {
+		return false
+	}
+	for _, d := range c.Datasets {
+		if p, _, _ := strings.Cut(d, "/"); p == project {
+			return true
+		}
+	}
+	return false
+}
+
 // CanSeeDataset reports whether the claims may see a dataset's metadata
 // and uploads (partners see the datasets they upload to).
 func (c *Claims) CanSeeDataset(project, dataset string) bool {

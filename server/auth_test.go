@@ -230,6 +230,10 @@ func TestAuthScopes(t *testing.T) {
 	if len(ds) != 1 || ds[0]["name"] != "visits" {
 		t.Errorf("partner lists datasets %v, want visits only", ds)
 	}
+	// A partner learns nothing of projects its token names no dataset of,
+	// not even whether they exist.
+	e.mustStatus(e.get("/api/v1/projects/beta/datasets", partnerA), http.StatusForbidden, "partner lists another project")
+	e.mustStatus(e.get("/api/v1/projects/no-such/datasets", partnerA), http.StatusForbidden, "partner lists a missing project")
 }
 
 // TestOpenRoutes checks that health and schema need no token.

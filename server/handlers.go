@@ -84,7 +84,7 @@ func (s *Server) getProject(c echo.Context) error {
 func (s *Server) listDatasets(c echo.Context) error {
 	cl := claims(c)
 	project := c.Param("project")
-	if !cl.CanRead(project) && cl.Role != RolePartner {
+	if !cl.CanRead(project) && !cl.uploadsTo(project) {
 		return forbidden("read project " + project)
 	}
 	ds, err := s.cfg.Store.Datasets(c.Request().Context(), project)

@@ -73,6 +73,7 @@ func New(cfg Config) *Server {
 	auth.GET(ds+"/versions/:version/manifest", s.getManifest)
 	auth.GET(ds+"/versions/:version/quality", s.getQuality)
 	auth.GET(ds+"/versions/:version/files/:file", s.download)
+	auth.HEAD(ds+"/versions/:version/files/:file", s.download)
 	return s
 }
 

@@ -206,6 +206,13 @@ func TestDownload(t *testing.T) {
 		}
 		whole := r.Body
 
+		// HEAD tells the size without the body (a resuming client asks).
+		hr := e.do(http.MethodHead, path, member, nil, nil)
+		e.mustStatus(hr, http.StatusOK, "head")
+		if cl := hr.Header.Get("Content-Length"); cl != fmt.Sprint(f.Bytes) || len(hr.Body) != 0 {
+			t.Errorf("HEAD: Content-Length %q, %d body bytes", cl, len(hr.Body))
+		}
+
 		rr := e.do(http.MethodGet, path, member, nil, map[string]string{"Range": "bytes=100-199"})
 		e.mustStatus(rr, http.StatusPartialContent, "range")
 		if !bytes.Equal(rr.Body, whole[100:200]) {
