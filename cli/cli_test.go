@@ -159,7 +159,9 @@ func TestEndToEnd(t *testing.T) {
 	curator := issue("--role", "curator", "--subject", "cur", "--project", "flow")
 	partner := issue("--role", "partner", "--subject", "north-site", "--dataset", "flow/visits")
 	member := issue("--role", "member", "--subject", "student", "--project", "flow", "--ttl", "2h")
-	as := func(tok string) map[string]string { return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok} }
+	as := func(tok string) map[string]string {
+		return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok}
+	}
 
 	if code, _, errs := run(t, as(admin), "project", "create", "flow", "--title", "Flow study"); code != 0 {
 		t.Fatalf("project create: %d %s", code, errs)

@@ -170,6 +170,27 @@ func parseRef(s string, withVersion bool) (ref, error) {
 	return r, nil
 }
 
+// fetch parses arg as a dataset reference (with an optional @VERSION when
+// withVersion), fetches the path that sub builds from it into v, and
+// reports whether the caller should print v as JSON and stop.
+func (e *env) fetch(cmd interface{ Context() context.Context }, arg string, withVersion bool, sub func(ref) string, v any) (printed bool, err error) {
+	r, err := parseRef(arg, withVersion)
+	if err != nil {
+		return false, err
+	}
+	cl, err := e.client()
+	if err != nil {
+		return false, err
+	}
+	if err := cl.getJSON(cmd.Context(), sub(r), v); err != nil {
+		return false, err
+	}
+	if e.json {
+		return true, writeJSON(e.stdout, v)
+	}
+	return false, nil
+}
+
 func writeJSON(w io.Writer, v any) error {
 	enc := json.NewEncoder(w)
 	enc.SetIndent("", "  ")

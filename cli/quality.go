@@ -12,20 +12,9 @@ func newQualityCmd(e *env) *cobra.Command {
 		Short: "Show the quality report of a version (latest by default)",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], true)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
-			if err != nil {
-				return err
-			}
 			var rep quality.Report
-			if err := cl.getJSON(cmd.Context(), r.versionPath()+"/quality", &rep); err != nil {
+			if printed, err := e.fetch(cmd, args[0], true, func(r ref) string { return r.versionPath() + "/quality" }, &rep); printed || err != nil {
 				return err
-			}
-			if e.json {
-				return writeJSON(e.stdout, &rep)
 			}
 			return rep.Text(e.stdout, e.tty())
 		},

@@ -15,20 +15,9 @@ func newUploadsCmd(e *env) *cobra.Command {
 		Short: "List a dataset's uploads, accepted or not",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], false)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
-			if err != nil {
-				return err
-			}
 			var ups []catalog.Upload
-			if err := cl.getJSON(cmd.Context(), r.path()+"/uploads", &ups); err != nil {
+			if printed, err := e.fetch(cmd, args[0], false, func(r ref) string { return r.path() + "/uploads" }, &ups); printed || err != nil {
 				return err
-			}
-			if e.json {
-				return writeJSON(e.stdout, ups)
 			}
 			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
 			fmt.Fprintln(tw, "UPLOAD\tRECEIVED\tSTATUS\tVERSION\tBYTES\tFILE\tNOTE")

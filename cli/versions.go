@@ -15,20 +15,9 @@ func newVersionsCmd(e *env) *cobra.Command {
 		Short: "List a dataset's versions",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], false)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
-			if err != nil {
-				return err
-			}
 			var vs []catalog.Version
-			if err := cl.getJSON(cmd.Context(), r.path()+"/versions", &vs); err != nil {
+			if printed, err := e.fetch(cmd, args[0], false, func(r ref) string { return r.path() + "/versions" }, &vs); printed || err != nil {
 				return err
-			}
-			if e.json {
-				return writeJSON(e.stdout, vs)
 			}
 			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
 			fmt.Fprintln(tw, "VERSION\tCREATED\tFILES\tROWS\tSCORE\tSNAPSHOT")
