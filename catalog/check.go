@@ -31,8 +31,9 @@ type CheckResult struct {
 // Check runs the ingest's read, validate and quality pipeline over src
 // without storing anything, so a partner can test a file before sending
 // it. Identifiers are pseudonymized under a throwaway key, so the report's
-// samples hold no raw values. A file that cannot be read fails with an
-// error wrapping ErrFileInvalid and a *schema.FileError.
+// samples hold no raw values. A nil prof means schema.DefaultProfile(). A
+// file that cannot be read fails with an error wrapping ErrFileInvalid and
+// a *schema.FileError.
 func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOptions) (*CheckResult, error) {
 	if opt.TempDir == "" {
 		opt.TempDir = os.TempDir()
@@ -42,6 +43,9 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 	}
 	if opt.Now.IsZero() {
 		opt.Now = time.Now()
+	}
+	if prof == nil {
+		prof = schema.DefaultProfile()
 	}
 	pz, err := throwawayPseudonymizer()
 	if err != nil {

@@ -6,10 +6,13 @@ import (
 	"hash"
 	"io"
 	"os"
+	"runtime"
+	"sync"
 	"time"
 
+	"github.com/klauspost/compress/zstd"
 	"github.com/parquet-go/parquet-go"
-	"github.com/parquet-go/parquet-go/compress/zstd"
+	parquetzstd "github.com/parquet-go/parquet-go/compress/zstd"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -37,7 +40,7 @@ func newSnapshotWriter(dir string, rowGroupRows int64, keyID string) (*snapshotW
 	}
 	sw := &snapshotWriter{f: f, h: sha256.New(), batch: make([]schema.Event, 0, 1024)}
 	sw.w = parquet.NewGenericWriter[schema.Event](io.MultiWriter(f, sw.h, countWriter{&sw.n}),
-		parquet.Compression(&zstd.Codec{Level: zstd.DefaultLevel, Concurrency: 1}),
+		parquet.Compression(pageCodec),
 		parquet.MaxRowsPerRowGroup(rowGroupRows),
 		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
 		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
@@ -91,6 +94,38 @@ func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
 func (sw *snapshotWriter) Remove() {
 	sw.f.Close()
 	os.Remove(sw.f.Name())
+}
+
+// pageCodec compresses the pages of every snapshot: zstd at its default
+// level, as parquet-go's codec, but with a 1 MiB window. Pages are at most
+// a few hundred KiB, so the library's default 8 MiB window finds nothing
+// more and costs 16 MiB of history per encoder, held for the whole write.
+// One encoder set serves all ingests; each page is compressed on its own,
+// so the bytes do not depend on what else is being written.
+var pageCodec = &windowedZstd{}
+
+type windowedZstd struct {
+	parquetzstd.Codec // String, CompressionCodec, Decode
+	once              sync.Once
+	enc               *zstd.Encoder
+	err               error
+}
+
+// Encode implements compress.Codec.
+func (c *windowedZstd) Encode(dst, src []byte) ([]byte, error) {
+	c.once.Do(func() {
+		c.enc, c.err = zstd.NewWriter(nil,
+			zstd.WithEncoderLevel(zstd.SpeedDefault),
+			zstd.WithWindowSize(1<<20),
+			zstd.WithEncoderConcurrency(runtime.GOMAXPROCS(0)),
+			zstd.WithZeroFrames(true),
+			zstd.WithEncoderCRC(false),
+		)
+	})
+	if c.err != nil {
+		return nil, fmt.Errorf("zstd: %w", c.err)
+	}
+	return c.enc.EncodeAll(src, dst[:0]), nil
 }
 
 type countWriter struct{ n *int64 }

@@ -15,34 +15,47 @@ import (
 )
 
 // sorter orders the events of one upload by (occurred_at, source line)
-// with bounded memory: it keeps up to max events, and when that many have
-// come it sorts them and spills them as a run to a temporary file. Finish
-// merges the runs. Events reach it already pseudonymized, so its temporary
-// files hold no raw identifier; they are deleted by Close.
+// with bounded memory: it keeps up to max events, and when one more comes
+// it sorts them and spills them as a run to a temporary file. Finish
+// merges the runs, at most fanIn at once: when there are more, it first
+// merges the oldest fanIn into one new run, until few enough are left.
+// Events reach it already pseudonymized, so its temporary files hold no
+// raw identifier; they are deleted by Close.
 //
-// Memory: max events in the buffer, plus one read buffer of runBufSize per
-// run while merging.
+// Memory: max events in the buffer while reading; while merging, the
+// buffer is released and one read buffer of runBufSize is held per run
+// merged (at most fanIn), whatever the size of the upload.
 type sorter struct {
 	dir   string
 	max   int
+	fanIn int
 	buf   []schema.Event
+	keys  []sortKey
 	runs  []*os.File
 	enc   []byte
 	inter map[string]string
 }
 
-const runBufSize = 32 << 10
+const (
+	runBufSize = 32 << 10
+	// maxFanIn bounds the runs merged at once, and so the open files and
+	// read buffers of a merge (128 x 32 KiB = 4 MiB).
+	maxFanIn = 128
+)
 
 func newSorter(dir string, max int) *sorter {
-	return &sorter{dir: dir, max: max, inter: make(map[string]string)}
+	return &sorter{dir: dir, max: max, fanIn: maxFanIn, inter: make(map[string]string)}
 }
 
-// Add takes e.
+// Add takes e. A full buffer is spilled only when one more event comes,
+// so an upload of at most max events never touches the disk.
 func (s *sorter) Add(e *schema.Event) error {
-	s.buf = append(s.buf, *e)
 	if len(s.buf) >= s.max {
-		return s.spill()
+		if err := s.spill(); err != nil {
+			return err
+		}
 	}
+	s.buf = append(s.buf, *e)
 	return nil
 }
 
@@ -59,20 +72,65 @@ func lessEvent(a, b *schema.Event) int {
 	return 0
 }
 
-func (s *sorter) sortBuf() {
-	slices.SortFunc(s.buf, func(a, b schema.Event) int { return lessEvent(&a, &b) })
+// sortKey is what the buffer is sorted by: sorting small keys rather than
+// whole events (over 200 bytes each) saves most of the moving.
+type sortKey struct {
+	sec  int64
+	line int64
+	nsec int32
+	idx  int32
+}
+
+func cmpKey(a, b sortKey) int {
+	switch {
+	case a.sec != b.sec:
+		return cmpInt(a.sec, b.sec)
+	case a.nsec != b.nsec:
+		return cmpInt(int64(a.nsec), int64(b.nsec))
+	case a.line != b.line:
+		return cmpInt(a.line, b.line)
+	}
+	return cmpInt(int64(a.idx), int64(b.idx))
+}
+
+func cmpInt(a, b int64) int {
+	if a < b {
+		return -1
+	}
+	if a > b {
+		return 1
+	}
+	return 0
+}
+
+// order returns the buffer's indexes in lessEvent order.
+func (s *sorter) order() []sortKey {
+	s.keys = s.keys[:0]
+	for i := range s.buf {
+		t := s.buf[i].OccurredAt
+		s.keys = append(s.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), line: s.buf[i].Line, idx: int32(i)})
+	}
+	slices.SortFunc(s.keys, cmpKey)
+	return s.keys
+}
+
+func (s *sorter) newRun() (*os.File, error) {
+	f, err := os.CreateTemp(s.dir, "run-*")
+	if err != nil {
+		return nil, fmt.Errorf("sort: %w", err)
+	}
+	s.runs = append(s.runs, f) // Close deletes it from here on
+	return f, nil
 }
 
 func (s *sorter) spill() error {
-	s.sortBuf()
-	f, err := os.CreateTemp(s.dir, "run-*")
+	f, err := s.newRun()
 	if err != nil {
-		return fmt.Errorf("sort: %w", err)
+		return err
 	}
-	s.runs = append(s.runs, f)
 	w := bufio.NewWriterSize(f, runBufSize)
-	for i := range s.buf {
-		s.enc = encodeEvent(s.enc[:0], &s.buf[i])
+	for _, k := range s.order() {
+		s.enc = encodeEvent(s.enc[:0], &s.buf[k.idx])
 		if _, err := w.Write(s.enc); err != nil {
 			return fmt.Errorf("sort: %w", err)
 		}
@@ -89,9 +147,8 @@ func (s *sorter) spill() error {
 // valid during the call.
 func (s *sorter) Finish(fn func(*schema.Event) error) error {
 	if len(s.runs) == 0 {
-		s.sortBuf()
-		for i := range s.buf {
-			if err := fn(&s.buf[i]); err != nil {
+		for _, k := range s.order() {
+			if err := fn(&s.buf[k.idx]); err != nil {
 				return err
 			}
 		}
@@ -102,8 +159,49 @@ func (s *sorter) Finish(fn func(*schema.Event) error) error {
 			return err
 		}
 	}
-	h := make(runHeap, 0, len(s.runs))
-	for _, f := range s.runs {
+	s.buf, s.keys = nil, nil // the merge needs none of it
+	for len(s.runs) > s.fanIn {
+		if err := s.mergeOldest(); err != nil {
+			return err
+		}
+	}
+	return s.merge(s.runs, fn)
+}
+
+// mergeOldest merges the first fanIn runs into a new last run.
+func (s *sorter) mergeOldest() error {
+	f, err := s.newRun()
+	if err != nil {
+		return err
+	}
+	w := bufio.NewWriterSize(f, runBufSize)
+	err = s.merge(s.runs[:s.fanIn], func(e *schema.Event) error {
+		s.enc = encodeEvent(s.enc[:0], e)
+		if _, err := w.Write(s.enc); err != nil {
+			return fmt.Errorf("sort: %w", err)
+		}
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	if err := w.Flush(); err != nil {
+		return fmt.Errorf("sort: %w", err)
+	}
+	for _, g := range s.runs[:s.fanIn] {
+		g.Close()
+		if err := os.Remove(g.Name()); err != nil {
+			return fmt.Errorf("sort: %w", err) // Close retries them all
+		}
+	}
+	s.runs = slices.Delete(s.runs, 0, s.fanIn)
+	return nil
+}
+
+// merge calls fn for the events of runs in order.
+func (s *sorter) merge(runs []*os.File, fn func(*schema.Event) error) error {
+	h := make(runHeap, 0, len(runs))
+	for _, f := range runs {
 		if _, err := f.Seek(0, io.SeekStart); err != nil {
 			return fmt.Errorf("sort: %w", err)
 		}

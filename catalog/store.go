@@ -195,11 +195,12 @@ func (s *Store) CreateDataset(ctx context.Context, spec DatasetSpec, by string) 
 	if spec.RejectAbove != nil {
 		reject = *spec.RejectAbove
 	}
-	if reject < 0 || reject > 1 {
+	if !(reject >= 0 && reject <= 1) { // also refuses NaN
 		return nil, fmt.Errorf("reject-above %v: want a share between 0 and 1: %w", reject, ErrInvalid)
 	}
-	if spec.WindowFrom != nil && spec.WindowTo != nil && spec.WindowTo.Before(*spec.WindowFrom) {
-		return nil, fmt.Errorf("window: from is after to: %w", ErrInvalid)
+	// The window is half-open, [from, to): from == to would hold no instant.
+	if spec.WindowFrom != nil && spec.WindowTo != nil && !spec.WindowTo.After(*spec.WindowFrom) {
+		return nil, fmt.Errorf("window: from is not before to: %w", ErrInvalid)
 	}
 	d := &Dataset{
 		Project: spec.Project, Name: spec.Name, Title: spec.Title,

@@ -1,0 +1,196 @@
+package catalog
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"io"
+	"math/rand/v2"
+	"os"
+	"slices"
+	"testing"
+	"time"
+
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+// TestSorterRuns drives the sorter directly with a tiny run size, so that
+// many runs are merged, and checks the order and the field round trip
+// through the run format.
+func TestSorterRuns(t *testing.T) {
+	dir := t.TempDir()
+	r := rand.New(rand.NewPCG(3, 4))
+	var in []schema.Event
+	for i := range 1000 {
+		in = append(in, schema.Event{
+			Site: "s" + string(rune('a'+r.IntN(3))), CaseID: "c" + string(rune('a'+r.IntN(26))),
+			SubjectID: []string{"", "subj"}[r.IntN(2)], ResourceID: "res", Type: schema.Start,
+			Activity: "act", Queue: "", OccurredAt: genBase.Add(time.Duration(r.IntN(50)) * time.Second).UTC(),
+			Priority: "3", Channel: "phone", Outcome: "", EventID: "é-" + string(rune('0'+i%10)), Line: int64(i + 2),
+		})
+	}
+	for _, c := range []struct{ max, fanIn int }{{3, 4}, {7, maxFanIn}, {7, 2}, {1000, maxFanIn}, {5000, maxFanIn}} {
+		max := c.max
+		s := newSorter(dir, max)
+		s.fanIn = c.fanIn
+		for i := range in {
+			if err := s.Add(&in[i]); err != nil {
+				t.Fatal(err)
+			}
+		}
+		wantRuns := (len(in) - 1) / max // the last buffer is spilled by Finish
+		if len(s.runs) != wantRuns {
+			t.Errorf("max %d: %d runs, want %d", max, len(s.runs), wantRuns)
+		}
+		var out []schema.Event
+		err := s.Finish(func(e *schema.Event) error {
+			if len(out) == 0 {
+				// The final merge has at most fanIn runs open.
+				if ents, _ := os.ReadDir(dir); len(ents) > c.fanIn {
+					t.Errorf("max %d, fan-in %d: %d runs merged at once", max, c.fanIn, len(ents))
+				}
+			}
+			out = append(out, *e)
+			return nil
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+		want := slices.Clone(in)
+		slices.SortFunc(want, func(a, b schema.Event) int { return lessEvent(&a, &b) })
+		if len(out) != len(want) {
+			t.Fatalf("max %d: %d events out of %d", max, len(out), len(want))
+		}
+		for i := range out {
+			if out[i] != want[i] {
+				t.Fatalf("max %d: event %d = %+v, want %+v", max, i, out[i], want[i])
+			}
+		}
+		if err := s.Close(); err != nil {
+			t.Fatal(err)
+		}
+		if ents, _ := os.ReadDir(dir); len(ents) != 0 {
+			t.Fatalf("max %d: Close left %d files", max, len(ents))
+		}
+	}
+	// A run cut short is an error, not a silent end.
+	s := newSorter(dir, 10)
+	defer s.Close()
+	for i := range 20 {
+		s.Add(&in[i])
+	}
+	fi, _ := s.runs[0].Stat()
+	if err := s.runs[0].Truncate(fi.Size() - 3); err != nil {
+		t.Fatal(err)
+	}
+	err := s.Finish(func(*schema.Event) error { return nil })
+	if err == nil {
+		t.Error("a truncated run merged without error")
+	}
+	// An error from fn stops the merge and is returned as is.
+	s2 := newSorter(dir, 10)
+	defer s2.Close()
+	for i := range 20 {
+		s2.Add(&in[i])
+	}
+	stop := errors.New("stop")
+	if err := s2.Finish(func(*schema.Event) error { return stop }); err != stop {
+		t.Errorf("Finish = %v, want the callback's error", err)
+	}
+}
+
+// TestSpillDeterminism ingests one shuffled file with a run size that
+// spills about fifty runs and with one that spills none: the snapshot
+// files must be byte-identical and time-sorted.
+func TestSpillDeterminism(t *testing.T) {
+	e := newEnv(t, func(o *Options) { o.RunEvents = 100 })
+	e.dataset(t, "p", "spill", nil)
+	e.dataset(t, "p", "mem", nil)
+	data := genCSV(genOpt{Seed: 5, N: 5000, Shuffle: true, Coarse: true})
+	r1 := e.ingest(t, "p", "spill", data, "")
+	e.assertTempEmpty(t)
+	e.open(t, func(o *Options) { o.RunEvents = 1 << 16 }) // same bbolt file, same project key
+	r2 := e.ingest(t, "p", "mem", data, "")
+	a := e.blobBytes(t, r1.Version.Manifest.Files[0].SHA256)
+	b := e.blobBytes(t, r2.Version.Manifest.Files[0].SHA256)
+	if !bytes.Equal(a, b) {
+		t.Fatalf("spilled and in-memory sorts give other files (%d and %d bytes)", len(a), len(b))
+	}
+	evs := readEvents(t, a)
+	if len(evs) != 5000 {
+		t.Fatalf("%d events", len(evs))
+	}
+	if !slices.IsSortedFunc(evs, func(x, y schema.Event) int { return x.OccurredAt.Compare(y.OccurredAt) }) {
+		t.Error("snapshot not sorted by occurred_at")
+	}
+	e.assertTempEmpty(t)
+}
+
+// cancelAfter cancels a context once n bytes have been read through it.
+type cancelAfter struct {
+	r      io.Reader
+	n      int
+	cancel context.CancelFunc
+}
+
+func (c *cancelAfter) Read(p []byte) (int, error) {
+	n, err := c.r.Read(p)
+	c.n -= n
+	if c.n <= 0 {
+		c.cancel()
+	}
+	return n, err
+}
+
+// TestTempFilesRemoved checks that no sort run or Parquet file stays in the
+// temp dir after an ingest that fails half-way: a file error deep in the
+// file (a truncated gzip stream) and a cancelled context.
+func TestTempFilesRemoved(t *testing.T) {
+	e := newEnv(t, func(o *Options) { o.RunEvents = 100 })
+	e.dataset(t, "p", "d", nil)
+	ctx := context.Background()
+	data := genCSV(genOpt{Seed: 6, N: 10000, Shuffle: true})
+
+	gz := gzipBytes(data)
+	res, err := e.s.Ingest(ctx, "p", "d", bytes.NewReader(gz[:len(gz)*3/4]), IngestOptions{Filename: "cut.csv.gz"})
+	fe, ok := schema.AsFileError(err)
+	if !errors.Is(err, ErrFileInvalid) || !ok || fe.Rule != schema.RuleCompression {
+		t.Fatalf("truncated gzip: %v", err)
+	}
+	// (The CSV reader reports no line for a stream error; the cut is at
+	// three quarters of the compressed bytes, long after the first spills.)
+	if res == nil || res.Upload.Status != UploadFailed || res.Upload.Error == nil || res.Upload.Error.Rule != schema.RuleCompression {
+		t.Errorf("result = %+v", res)
+	}
+	e.assertTempEmpty(t)
+
+	// Bytes that are not UTF-8 in the 8000th row.
+	bad := bytes.Replace(data, []byte("ev-7998\n"), []byte("ev-\xff\n"), 1)
+	if bytes.Equal(bad, data) {
+		t.Fatal("test file lacks event id ev-7998")
+	}
+	_, err = e.s.Ingest(ctx, "p", "d", bytes.NewReader(bad), IngestOptions{Filename: "latin1.csv"})
+	fe, ok = schema.AsFileError(err)
+	if !errors.Is(err, ErrFileInvalid) || !ok || fe.Rule != schema.RuleEncoding || fe.Line < 8000 {
+		t.Fatalf("bad encoding at row 8000: %v", err)
+	}
+	e.assertTempEmpty(t)
+
+	cctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	src := &cancelAfter{r: bytes.NewReader(data), n: len(data) / 2, cancel: cancel}
+	_, err = e.s.Ingest(cctx, "p", "d", src, IngestOptions{})
+	if !errors.Is(err, context.Canceled) {
+		t.Fatalf("cancelled ingest: %v", err)
+	}
+	e.assertTempEmpty(t)
+	if vs, _ := e.s.Versions(ctx, "p", "d"); len(vs) != 0 {
+		t.Errorf("versions after failures: %+v", vs)
+	}
+	if ids := e.blobIDs(t); len(ids) != 0 {
+		t.Errorf("blobs after failures: %v", ids)
+	}
+	// The store still works.
+	e.ingest(t, "p", "d", data, "")
+	e.assertTempEmpty(t)
+}
