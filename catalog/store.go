@@ -250,7 +250,8 @@ func effectiveProfile(yaml []byte, zone string) (*schema.Profile, error) {
 	return prof, nil
 }
 
-// Profile returns the dataset's effective mapping profile.
+// EffectiveProfile returns the dataset's mapping profile with its zone
+// override applied.
 func (d *Dataset) EffectiveProfile() (*schema.Profile, error) {
 	return effectiveProfile([]byte(d.Profile), d.Timezone)
 }

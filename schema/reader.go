@@ -50,7 +50,8 @@ type Reader struct {
 	// CSV/TSV
 	csv      *csv.Reader
 	header   []string
-	trusted  bool // the first row is evidently a header (headerTrusted)
+	trusted  bool  // the first row is evidently a header (headerTrusted)
+	lastLine int64 // CSV: start line of the last record read
 	unmapped []string
 
 	// JSON Lines
@@ -188,6 +189,7 @@ func (rd *Reader) readHeader() error {
 	}
 	rd.guard.limit = cr.InputOffset() + maxRecordBytes + 64<<10
 	headerLine, _ := cr.FieldPos(0)
+	rd.lastLine = int64(headerLine)
 	rd.header = make([]string, len(rec))
 	for i, h := range rec {
 		if !utf8.ValidString(h) {
@@ -387,12 +389,15 @@ func (rd *Reader) nextCSV(e *Event) (*Rejection, error) {
 			}
 			return nil, io.EOF
 		}
-		return nil, rd.fatal(err, 0)
+		// The stream broke after the last whole record: name the line
+		// that follows it.
+		return nil, rd.fatal(err, rd.lastLine+1)
 	}
 	rd.guard.limit = rd.csv.InputOffset() + maxRecordBytes + 64<<10
 	rd.rows++
 	l, _ := rd.csv.FieldPos(0)
 	line := int64(l)
+	rd.lastLine = line
 	for i, v := range rec {
 		if !utf8.ValidString(v) {
 			fl, _ := rd.csv.FieldPos(i)

@@ -124,7 +124,7 @@ func TestBadUploads(t *testing.T) {
 			good: func(day int) []byte {
 				return []byte(strings.Replace(string(wardFile(day, 6)), "Patient;", "PatientNr;", 1))
 			}},
-		{name: "truncated gzip", dataset: "events", data: truncated, status: 400, code: "file_invalid", rule: schema.RuleCompression, words: []string{"gzip"}},
+		{name: "truncated gzip", dataset: "events", data: truncated, status: 400, code: "file_invalid", rule: schema.RuleCompression, line: 292, words: []string{"gzip"}},
 		{name: "dataset the token may not write", dataset: "locked", data: wardFile(19, 3), status: 403, code: "forbidden", words: []string{"upload"}},
 	}
 	day := 1
