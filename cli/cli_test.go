@@ -284,6 +284,14 @@ func TestEndToEnd(t *testing.T) {
 	}
 }
 
+// TestHelpHidesToken: a token in the environment never shows in --help.
+func TestHelpHidesToken(t *testing.T) {
+	code, out, _ := run(t, map[string]string{"FLOWCAT_TOKEN": "secret-token-value-991"}, "versions", "--help")
+	if code != 0 || strings.Contains(out, "secret-token-value-991") {
+		t.Errorf("help: exit %d, shows the token: %v", code, strings.Contains(out, "secret-token-value-991"))
+	}
+}
+
 func TestUsageErrorsExitTwo(t *testing.T) {
 	env := map[string]string{"FLOWCAT_SERVER": "http://127.0.0.1:1", "FLOWCAT_TOKEN": "x"}
 	for _, args := range [][]string{

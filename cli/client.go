@@ -7,6 +7,7 @@ import (
 	"io"
 	"net/http"
 	"net/url"
+	"os"
 	"strconv"
 	"strings"
 	"time"
@@ -20,6 +21,12 @@ type client struct {
 }
 
 func (e *env) client() (*client, error) {
+	if e.server == "" {
+		e.server = os.Getenv("FLOWCAT_SERVER")
+	}
+	if e.token == "" {
+		e.token = os.Getenv("FLOWCAT_TOKEN")
+	}
 	if e.server == "" {
 		return nil, usageErr("no server: give --server URL or set FLOWCAT_SERVER")
 	}

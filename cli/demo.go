@@ -70,7 +70,7 @@ interrupted.`,
 				logw = e.stderr
 			}
 			log := slog.New(slog.NewTextHandler(logw, &slog.HandlerOptions{Level: slog.LevelWarn}))
-			run, err := startServer(ctx, d, addr, "", log)
+			run, err := startServer(ctx, d, addr, "", 0, log)
 			if err != nil {
 				return err
 			}

@@ -93,8 +93,10 @@ scores their quality and keeps immutable, versioned Parquet snapshots that stude
 	pf := root.PersistentFlags()
 	pf.BoolVar(&e.json, "json", false, "print machine-readable JSON")
 	pf.BoolVarP(&e.quiet, "quiet", "q", false, "no progress bars or chatter")
-	pf.StringVar(&e.server, "server", os.Getenv("FLOWCAT_SERVER"), "server URL (env FLOWCAT_SERVER)")
-	pf.StringVar(&e.token, "token", os.Getenv("FLOWCAT_TOKEN"), "API token (env FLOWCAT_TOKEN)")
+	// The environment is read when a client is made, not as flag defaults,
+	// so that --help never prints a token.
+	pf.StringVar(&e.server, "server", "", "server URL (default: env FLOWCAT_SERVER)")
+	pf.StringVar(&e.token, "token", "", "API token (default: env FLOWCAT_TOKEN)")
 
 	root.AddCommand(
 		newInitCmd(e), newServeCmd(e), newTokenCmd(e),

@@ -18,6 +18,7 @@ import (
 
 func newServeCmd(e *env) *cobra.Command {
 	var dir, addr, masterFile string
+	var maxUpload int64
 	c := &cobra.Command{
 		Use:   "serve --data DIR --addr HOST:PORT",
 		Short: "Run the catalog server on a data directory",
@@ -30,7 +31,7 @@ func newServeCmd(e *env) *cobra.Command {
 			d := dataDir(dir)
 			ctx, stop := signal.NotifyContext(cmd.Context(), syscall.SIGINT, syscall.SIGTERM)
 			defer stop()
-			run, err := startServer(ctx, d, addr, masterFile, log)
+			run, err := startServer(ctx, d, addr, masterFile, maxUpload, log)
 			if err != nil {
 				return err
 			}
@@ -41,6 +42,7 @@ func newServeCmd(e *env) *cobra.Command {
 	c.Flags().StringVar(&dir, "data", "", "data directory (made by flowcat init)")
 	c.Flags().StringVar(&addr, "addr", "127.0.0.1:8470", "listen address HOST:PORT")
 	c.Flags().StringVar(&masterFile, "master-key", "", "master key file (else FLOWCAT_MASTER_KEY, FLOWCAT_MASTER_KEY_FILE, or DIR/master.key)")
+	c.Flags().Int64Var(&maxUpload, "max-upload-bytes", 8<<30, "largest upload body accepted (413 above)")
 	return c
 }
 
@@ -54,7 +56,7 @@ type running struct {
 	close      func() error
 }
 
-func startServer(ctx context.Context, d dataDir, addr, masterFile string, log *slog.Logger) (*running, error) {
+func startServer(ctx context.Context, d dataDir, addr, masterFile string, maxUpload int64, log *slog.Logger) (*running, error) {
 	if _, err := d.readInstance(); err != nil {
 		return nil, err
 	}
@@ -75,7 +77,7 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, log *s
 		st.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log})
+	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, MaxUploadBytes: maxUpload})
 	hs := srv.HTTPServer(addr)
 	r := &running{url: "http://" + ln.Addr().String(), masterFrom: from, auth: auth, hs: hs, done: make(chan error, 1), close: st.Close}
 	go func() { r.done <- hs.Serve(ln) }()
