@@ -155,15 +155,9 @@ func (s *Store) Project(ctx context.Context, name string) (*Project, error) {
 // Projects lists all projects by name.
 func (s *Store) Projects(ctx context.Context) ([]Project, error) {
 	var out []Project
-	err := s.db.View(func(tx *bolt.Tx) error {
-		return tx.Bucket(bucketProjects).ForEach(func(k, v []byte) error {
-			var p Project
-			if err := json.Unmarshal(v, &p); err != nil {
-				return err
-			}
-			out = append(out, p)
-			return nil
-		})
+	err := s.db.View(func(tx *bolt.Tx) (err error) {
+		out, err = scanJSON[Project](tx.Bucket(bucketProjects), nil)
+		return err
 	})
 	return out, err
 }
@@ -271,39 +265,19 @@ func (s *Store) Dataset(ctx context.Context, project, name string) (*Dataset, er
 // Datasets lists a project's datasets by name.
 func (s *Store) Datasets(ctx context.Context, project string) ([]Dataset, error) {
 	var out []Dataset
-	err := s.db.View(func(tx *bolt.Tx) error {
+	err := s.db.View(func(tx *bolt.Tx) (err error) {
 		if tx.Bucket(bucketProjects).Get([]byte(project)) == nil {
 			return fmt.Errorf("project %q: %w", project, ErrNotFound)
 		}
-		return scanPrefix(tx.Bucket(bucketDatasets), []byte(project+"/"), func(v []byte) error {
-			var d Dataset
-			if err := json.Unmarshal(v, &d); err != nil {
-				return err
-			}
-			out = append(out, d)
-			return nil
-		})
+		out, err = scanJSON[Dataset](tx.Bucket(bucketDatasets), []byte(project+"/"))
+		return err
 	})
 	return out, err
 }
 
 // Versions lists a dataset's versions, oldest first.
 func (s *Store) Versions(ctx context.Context, project, dataset string) ([]Version, error) {
-	var out []Version
-	err := s.db.View(func(tx *bolt.Tx) error {
-		if tx.Bucket(bucketDatasets).Get([]byte(project+"/"+dataset)) == nil {
-			return fmt.Errorf("dataset %q: %w", project+"/"+dataset, ErrNotFound)
-		}
-		return scanPrefix(tx.Bucket(bucketVersions), []byte(project+"/"+dataset+"/"), func(v []byte) error {
-			var ver Version
-			if err := json.Unmarshal(v, &ver); err != nil {
-				return err
-			}
-			out = append(out, ver)
-			return nil
-		})
-	})
-	return out, err
+	return listOfDataset[Version](s, bucketVersions, project, dataset)
 }
 
 // Version returns version n of a dataset; n == 0 means the latest.
@@ -331,21 +305,7 @@ func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*V
 
 // Uploads lists a dataset's uploads, oldest first.
 func (s *Store) Uploads(ctx context.Context, project, dataset string) ([]Upload, error) {
-	var out []Upload
-	err := s.db.View(func(tx *bolt.Tx) error {
-		if tx.Bucket(bucketDatasets).Get([]byte(project+"/"+dataset)) == nil {
-			return fmt.Errorf("dataset %q: %w", project+"/"+dataset, ErrNotFound)
-		}
-		return scanPrefix(tx.Bucket(bucketUploads), []byte(project+"/"+dataset+"/"), func(v []byte) error {
-			var u Upload
-			if err := json.Unmarshal(v, &u); err != nil {
-				return err
-			}
-			out = append(out, u)
-			return nil
-		})
-	})
-	return out, err
+	return listOfDataset[Upload](s, bucketUploads, project, dataset)
 }
 
 // OpenFile opens a file of version v for reading; the file must be listed
@@ -385,15 +345,9 @@ func audit(tx *bolt.Tx, now time.Time, by, action, target string) error {
 // Audit returns the audit trail, oldest first.
 func (s *Store) Audit(ctx context.Context) ([]AuditEntry, error) {
 	var out []AuditEntry
-	err := s.db.View(func(tx *bolt.Tx) error {
-		return tx.Bucket(bucketAudit).ForEach(func(k, v []byte) error {
-			var e AuditEntry
-			if err := json.Unmarshal(v, &e); err != nil {
-				return err
-			}
-			out = append(out, e)
-			return nil
-		})
+	err := s.db.View(func(tx *bolt.Tx) (err error) {
+		out, err = scanJSON[AuditEntry](tx.Bucket(bucketAudit), nil)
+		return err
 	})
 	return out, err
 }
@@ -406,14 +360,32 @@ func seqKey(ref string, n int) []byte {
 	return binary.BigEndian.AppendUint32(k, uint32(n))
 }
 
-func scanPrefix(b *bolt.Bucket, prefix []byte, fn func(v []byte) error) error {
+// scanJSON decodes every value under prefix (all, for nil), in key order.
+func scanJSON[T any](b *bolt.Bucket, prefix []byte) ([]T, error) {
+	var out []T
 	c := b.Cursor()
 	for k, v := c.Seek(prefix); k != nil && bytes.HasPrefix(k, prefix); k, v = c.Next() {
-		if err := fn(v); err != nil {
-			return err
+		var x T
+		if err := json.Unmarshal(v, &x); err != nil {
+			return nil, fmt.Errorf("catalog: %s: %w", k, err)
 		}
+		out = append(out, x)
 	}
-	return nil
+	return out, nil
+}
+
+// listOfDataset lists one dataset's records of a bucket keyed by seqKey.
+func listOfDataset[T any](s *Store, bucket []byte, project, dataset string) ([]T, error) {
+	var out []T
+	ref := project + "/" + dataset
+	err := s.db.View(func(tx *bolt.Tx) (err error) {
+		if tx.Bucket(bucketDatasets).Get([]byte(ref)) == nil {
+			return fmt.Errorf("dataset %q: %w", ref, ErrNotFound)
+		}
+		out, err = scanJSON[T](tx.Bucket(bucket), []byte(ref+"/"))
+		return err
+	})
+	return out, err
 }
 
 func putJSON(b *bolt.Bucket, k []byte, v any) error {
