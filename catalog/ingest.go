@@ -156,6 +156,9 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	if err := s.blobs.Put(ctx, id, sw.f); err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
+	if testHookBeforeCommit != nil {
+		testHookBeforeCommit()
+	}
 	entry := FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows}
 
 	var ver *Version
@@ -276,6 +279,11 @@ func mappedFields(p *schema.Profile) []schema.Field {
 	}
 	return out
 }
+
+// testHookBeforeCommit, when set by a test, runs after the new file is
+// durable in the blob store and before the version is committed: the
+// crash tests end the process there.
+var testHookBeforeCommit func()
 
 var errDuplicateRace = errors.New("duplicate committed concurrently")
 
