@@ -191,6 +191,11 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 			if err := getJSON(tx.Bucket(bucketVersions), seqKey(cur.Ref(), cur.Latest), &parent, "parent version"); err != nil {
 				return err
 			}
+			// The same events sent again in other bytes (gzip, other line
+			// ends, ...) make the same Parquet file: nothing new.
+			if _, ok := parent.File(id); ok {
+				return errDuplicateContent
+			}
 			m.Files = append(m.Files, parent.Manifest.Files...)
 			m.Uploads = append(m.Uploads, parent.Manifest.Uploads...)
 		}
@@ -221,6 +226,13 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		}
 		return audit(tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d", cur.Ref(), v.Number))
 	})
+	if errors.Is(err, errDuplicateContent) {
+		v, err := s.Version(ctx, ds.Project, ds.Name, 0)
+		if err != nil {
+			return nil, err
+		}
+		return s.duplicate(ds, up, v)
+	}
 	if errors.Is(err, errDuplicateRace) {
 		v, err := s.versionByDigest(ds.Ref(), up.SHA256)
 		if err != nil {
@@ -229,6 +241,8 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		return s.duplicate(ds, up, v)
 	}
 	if err != nil {
+		// The blob stays, unreferenced, for garbage collection.
+		s.opt.Logger.Error("commit failed; the new file is unreferenced", "dataset", ds.Ref(), "file", id.String(), "err", err)
 		return nil, fmt.Errorf("ingest: commit: %w", err)
 	}
 	s.opt.Logger.Info("version created", "dataset", ds.Ref(), "version", ver.Number, "upload", up.ID,
@@ -285,7 +299,10 @@ func mappedFields(p *schema.Profile) []schema.Field {
 // crash tests end the process there.
 var testHookBeforeCommit func()
 
-var errDuplicateRace = errors.New("duplicate committed concurrently")
+var (
+	errDuplicateRace    = errors.New("duplicate committed concurrently")
+	errDuplicateContent = errors.New("the latest version holds this file already")
+)
 
 func (s *Store) duplicate(ds *Dataset, up Upload, v *Version) (*IngestResult, error) {
 	up.Status = UploadDuplicate
@@ -313,6 +330,12 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 		}
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), up); err != nil {
 			return err
+		}
+		if up.Status == UploadDuplicate && up.SHA256 != "" {
+			// These bytes, too, now answer with that version at once.
+			if err := tx.Bucket(bucketDigests).Put(digestKey(cur.Ref(), up.SHA256), binary.BigEndian.AppendUint32(nil, uint32(up.Version))); err != nil {
+				return err
+			}
 		}
 		return audit(tx, up.ReceivedAt, up.By, "upload."+string(up.Status), cur.Ref()+"/"+up.ID)
 	})

@@ -2,6 +2,7 @@ package catalog
 
 import (
 	"bytes"
+	"compress/gzip"
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
@@ -283,9 +284,10 @@ func TestIngestAppendAndDuplicate(t *testing.T) {
 	if d, _ := e.s.Dataset(ctx, "er", "visits"); d.Latest != 2 || d.Uploads != 3 {
 		t.Errorf("dataset = %+v", d)
 	}
-	// The same bytes gzipped are other bytes: a new version of the same rows.
+	// The same rows gzipped are other bytes but the same Parquet file, which
+	// the latest version holds already: a duplicate, not a repeated file.
 	r4 := e.ingest(t, "er", "visits", gzipBytes(d1), "n1.csv.gz")
-	if r4.Upload.Status != UploadAccepted || r4.Version.Number != 3 || r4.Version.Manifest.Files[2].SHA256 != r1.Version.Manifest.Files[0].SHA256 {
+	if r4.Upload.Status != UploadDuplicate || r4.Version.Number != 2 {
 		t.Errorf("gzipped upload = %+v", r4.Upload)
 	}
 	e.assertTempEmpty(t)
@@ -326,5 +328,32 @@ func TestPseudonymScope(t *testing.T) {
 	e.open(t, nil)
 	if a3 := ids("p1", "a", "e5"); a3 != a1 {
 		t.Errorf("after reopen: %v, want %v", a3, a1)
+	}
+}
+
+// TestSameEventsOtherBytes: a re-export of the same events in other bytes
+// (gzip, CRLF line ends) makes the same Parquet file, so it is a duplicate
+// of the version that holds it, not a version that repeats the file.
+func TestSameEventsOtherBytes(t *testing.T) {
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "d", nil)
+	plain := genCSV(genOpt{Seed: 9, N: 300})
+	first := e.ingest(t, "p", "d", plain, "night.csv")
+	var gz bytes.Buffer
+	zw := gzip.NewWriter(&gz)
+	zw.Write(plain)
+	zw.Close()
+	crlf := bytes.ReplaceAll(plain, []byte("\n"), []byte("\r\n"))
+	for name, data := range map[string][]byte{"night.csv.gz": gz.Bytes(), "night-crlf.csv": crlf} {
+		for try := 0; try < 2; try++ { // the second try hits the digest at once
+			res := e.ingest(t, "p", "d", data, name)
+			if res.Upload.Status != UploadDuplicate || res.Version.Number != first.Version.Number {
+				t.Errorf("%s (try %d): status %s, version %d; want duplicate of %d", name, try, res.Upload.Status, res.Version.Number, first.Version.Number)
+			}
+		}
+	}
+	vs, _ := e.s.Versions(context.Background(), "p", "d")
+	if len(vs) != 1 || len(vs[0].Manifest.Files) != 1 {
+		t.Errorf("%d versions, latest with %d files; want 1 version with 1 file", len(vs), len(vs[len(vs)-1].Manifest.Files))
 	}
 }

@@ -22,9 +22,10 @@ import (
 // Events reach it already pseudonymized, so its temporary files hold no
 // raw identifier; they are deleted by Close.
 //
-// Memory: max events in the buffer while reading; while merging, the
-// buffer is released and one read buffer of runBufSize is held per run
-// merged (at most fanIn), whatever the size of the upload.
+// Memory: max events, and at most maxRunBytes of their strings, in the
+// buffer while reading; while merging, the buffer is released and one read
+// buffer of runBufSize is held per run merged (at most fanIn), whatever the
+// size of the upload.
 type sorter struct {
 	dir   string
 	max   int
@@ -34,6 +35,7 @@ type sorter struct {
 	runs  []*os.File
 	enc   []byte
 	inter map[string]string
+	bytes int // string bytes held in buf
 }
 
 const (
@@ -41,6 +43,11 @@ const (
 	// maxFanIn bounds the runs merged at once, and so the open files and
 	// read buffers of a merge (128 x 32 KiB = 4 MiB).
 	maxFanIn = 128
+	// maxRunBytes bounds the string bytes of the events held in memory, so
+	// wide rows (long free text in a mapped column) spill sooner.
+	maxRunBytes = 64 << 20
+	// internMaxLen is the longest value the merge interns.
+	internMaxLen = 64
 )
 
 func newSorter(dir string, max int) *sorter {
@@ -50,13 +57,20 @@ func newSorter(dir string, max int) *sorter {
 // Add takes e. A full buffer is spilled only when one more event comes,
 // so an upload of at most max events never touches the disk.
 func (s *sorter) Add(e *schema.Event) error {
-	if len(s.buf) >= s.max {
+	if len(s.buf) >= s.max || s.bytes >= maxRunBytes {
 		if err := s.spill(); err != nil {
 			return err
 		}
 	}
 	s.buf = append(s.buf, *e)
+	s.bytes += eventBytes(e)
 	return nil
+}
+
+// eventBytes is the length of e's strings.
+func eventBytes(e *schema.Event) int {
+	return len(e.Site) + len(e.CaseID) + len(e.SubjectID) + len(e.ResourceID) + len(e.Type) +
+		len(e.Activity) + len(e.Queue) + len(e.Priority) + len(e.Channel) + len(e.Outcome) + len(e.EventID)
 }
 
 func lessEvent(a, b *schema.Event) int {
@@ -140,6 +154,7 @@ func (s *sorter) spill() error {
 	}
 	clear(s.buf) // drop string references
 	s.buf = s.buf[:0]
+	s.bytes = 0
 	return nil
 }
 
@@ -317,7 +332,7 @@ func (r *run) next() (bool, error) {
 			if s, ok := r.inter[string(r.tmp)]; ok {
 				return s
 			}
-			if len(r.inter) < 1<<14 {
+			if len(r.inter) < 1<<14 && len(r.tmp) <= internMaxLen {
 				s := string(r.tmp)
 				r.inter[s] = s
 				return s

@@ -8,6 +8,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
@@ -193,4 +194,42 @@ func TestTempFilesRemoved(t *testing.T) {
 	// The store still works.
 	e.ingest(t, "p", "d", data, "")
 	e.assertTempEmpty(t)
+}
+
+// TestSorterSpillsWideRows: the buffer is bounded by bytes as well as by
+// events, so rows with long text spill before the event count is reached.
+func TestSorterSpillsWideRows(t *testing.T) {
+	s := newSorter(t.TempDir(), 1<<16)
+	defer s.Close()
+	wide := strings.Repeat("x", 1<<20)
+	for i := 0; i < 100; i++ {
+		e := schema.Event{Site: "s", CaseID: "c", Type: schema.Arrival, Activity: wide, Line: int64(i + 2),
+			OccurredAt: time.Unix(int64(1000-i), 0).UTC()}
+		if err := s.Add(&e); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if len(s.runs) == 0 {
+		t.Fatalf("100 MiB of rows held in memory without a spill (limit %d MiB)", maxRunBytes>>20)
+	}
+	var prev time.Time
+	n := 0
+	err := s.Finish(func(e *schema.Event) error {
+		if e.OccurredAt.Before(prev) || len(e.Activity) != 1<<20 {
+			t.Fatalf("event %d out of order or damaged", n)
+		}
+		prev = e.OccurredAt
+		n++
+		return nil
+	})
+	if err != nil || n != 100 {
+		t.Fatalf("Finish: %v, %d events", err, n)
+	}
+	if len(s.inter) > 0 {
+		for k := range s.inter {
+			if len(k) > internMaxLen {
+				t.Fatalf("interned a %d-byte value", len(k))
+			}
+		}
+	}
 }

@@ -24,6 +24,10 @@ const maxRecordBytes = 16 << 20
 // costs no more than a fixed amount of memory.
 const internCap = 4096
 
+// internMaxLen is the longest value interned: long values (free text in a
+// mapped column) would pin too much memory for too little sharing.
+const internMaxLen = 64
+
 // maxUnmappedKeys caps the JSON Lines keys Unmapped reports.
 const maxUnmappedKeys = 100
 
@@ -583,7 +587,7 @@ func (rd *Reader) build(e *Event, line int64) (*Rejection, error) {
 			if c.intern != nil {
 				if s, ok := c.intern[v]; ok {
 					v = s
-				} else if len(c.intern) < internCap {
+				} else if len(c.intern) < internCap && len(v) <= internMaxLen {
 					// Cloned so the table does not pin the whole record.
 					v = strings.Clone(v)
 					c.intern[v] = v
@@ -630,6 +634,9 @@ func (rd *Reader) timeRejection(line int64, c *column, v string, err error) *Rej
 	case ErrAmbiguousLocal:
 		r.Reason = ReasonAmbiguousLocal
 		r.Message = fmt.Sprintf("%q occurs twice in %s (clocks were set back); set local_time.ambiguous to earlier or later", clip(v), rd.p.Timezone)
+	case ErrTimestampRange:
+		r.Reason = ReasonBadTimestamp
+		r.Message = fmt.Sprintf("%q lies outside the years 0001-9999", clip(v))
 	default:
 		r.Reason = ReasonBadTimestamp
 		if rd.tp.layout != "" {

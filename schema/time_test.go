@@ -241,3 +241,28 @@ func TestTimeParserCache(t *testing.T) {
 		}
 	}
 }
+
+// TestParseTimeRange: instants outside the years 0001-9999 are refused,
+// whatever form they come in (a snapshot's JSON metadata and RFC 3339's
+// four-digit years cannot hold them).
+func TestParseTimeRange(t *testing.T) {
+	for _, c := range []struct {
+		in, layout string
+		ok         bool
+	}{
+		{"0001-01-01T00:00:00Z", "", true},
+		{"9999-12-31T23:59:59Z", "", true},
+		{"0000-01-01T00:00:00+01:00", "", false}, // year -1 in UTC
+		{"9999-12-31T23:30:00-01:00", "", false}, // year 10000 in UTC
+		{"99999999999999", "%s", false},
+		{"1700000000", "%s", true},
+	} {
+		_, err := ParseTime(c.in, c.layout, time.UTC, LocalTimePolicy{})
+		if c.ok != (err == nil) {
+			t.Errorf("ParseTime(%q, %q) = %v, want ok %v", c.in, c.layout, err, c.ok)
+		}
+		if !c.ok && err != nil && !errors.Is(err, ErrTimestampRange) && !errors.Is(err, ErrBadTimestamp) {
+			t.Errorf("ParseTime(%q): error %v is neither range nor bad timestamp", c.in, err)
+		}
+	}
+}

@@ -21,6 +21,16 @@ var (
 	// ErrAmbiguousLocal means the wall-clock time occurs twice because clocks
 	// were set back, and the policy is to reject it.
 	ErrAmbiguousLocal = errors.New("wall-clock time occurs twice in the zone (daylight-saving overlap)")
+	// ErrTimestampRange means the instant parses but lies outside the years
+	// 0001 to 9999, which snapshots and their JSON metadata can hold (RFC
+	// 3339 section 5.6 writes four-digit years).
+	ErrTimestampRange = errors.New("timestamp outside the years 0001-9999")
+)
+
+// The instants a snapshot can hold.
+var (
+	minInstant = time.Date(1, 1, 1, 0, 0, 0, 0, time.UTC)
+	maxInstant = time.Date(9999, 12, 31, 23, 59, 59, 999999999, time.UTC)
 )
 
 // AmbiguousPolicy says what to do with a wall-clock time that occurs twice.
@@ -134,6 +144,15 @@ func (tp *timeParser) local(w time.Time) (time.Time, error) {
 }
 
 func (tp *timeParser) parse(s string) (time.Time, error) {
+	t, err := tp.parseAny(s)
+	if err == nil && (t.Before(minInstant) || t.After(maxInstant)) {
+		return time.Time{}, ErrTimestampRange
+	}
+	return t, err
+}
+
+// parseAny is parse without the range check.
+func (tp *timeParser) parseAny(s string) (time.Time, error) {
 	if tp.layout != "" {
 		t, err := timefmt.Parse(s, tp.layout)
 		if err != nil {
