@@ -266,6 +266,40 @@ func TestEndToEnd(t *testing.T) {
 		t.Errorf("verify of tampered file: exit %d, %q", code, out)
 	}
 
+	whole[len(whole)/2] ^= 0xff
+	os.WriteFile(f0, whole, 0o644)
+	if code, _, _ := run(t, nil, "verify", snap); code != 0 {
+		t.Fatal("verify after undoing the flip")
+	}
+
+	// Pulling version 1 over version 2 leaves only version 1's file.
+	if code, _, errs := run(t, as(member), "pull", "flow/visits@1", "-o", snap); code != 0 {
+		t.Fatalf("pull @1 over @2: exit %d %s", code, errs)
+	}
+	if left, _ := filepath.Glob(filepath.Join(snap, "data", "*")); len(left) != 1 {
+		t.Errorf("after pulling @1 over @2, data/ holds %v", left)
+	}
+	if code, _, _ := run(t, nil, "verify", snap); code != 0 {
+		t.Error("verify of @1 pulled over @2 failed")
+	}
+	// Each tamper of the directory fails verify with exit 1.
+	lockPath := filepath.Join(snap, "flowcat.lock")
+	goodLock, _ := os.ReadFile(lockPath)
+	extra := filepath.Join(snap, "data", strings.Repeat("ab", 32)+".parquet")
+	for name, tamper := range map[string]func(){
+		"extra file in data/": func() { os.WriteFile(extra, []byte("PAR1"), 0o644) },
+		"lock path moved":     func() { os.WriteFile(lockPath, bytes.Replace(goodLock, []byte(`"data/`), []byte(`"hidden/`), 1), 0o644) },
+		"lock rows edited":    func() { os.WriteFile(lockPath, regexp.MustCompile(`"rows": \d+`).ReplaceAll(goodLock, []byte(`"rows": 999999`)), 0o644) },
+		"lock removed":        func() { os.Remove(lockPath) },
+	} {
+		tamper()
+		if code, out, errs := run(t, nil, "verify", snap); code != 1 {
+			t.Errorf("verify with %s: exit %d, want 1: %s %s", name, code, out, errs)
+		}
+		os.Remove(extra)
+		os.WriteFile(lockPath, goodLock, 0o644)
+	}
+
 	// The raw identifiers never reached the server's data directory.
 	filepath.Walk(data, func(p string, fi os.FileInfo, err error) error {
 		if err == nil && !fi.IsDir() {
@@ -303,6 +337,12 @@ func TestUsageErrorsExitTwo(t *testing.T) {
 		{"init"},
 		{"token", "issue", "--data", "x"},
 		{"serve"},
+		{"bogus"},
+		{"project", "lst"},
+		{"token", "bogus"},
+		{"project"},
+		{"validate", "x.csv", "--reject-above", "5"},
+		{"verify", "/no/such/dir"},
 	} {
 		if code, _, errs := run(t, env, args...); code != 2 {
 			t.Errorf("%v: exit %d, want 2 (%s)", args, code, errs)

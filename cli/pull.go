@@ -11,12 +11,14 @@ import (
 	"net/http"
 	"os"
 	"path/filepath"
+	"strings"
 	"time"
 
 	"github.com/schollz/progressbar/v3"
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
 )
 
 // lockName is the lock file pull writes and verify reads.
@@ -102,10 +104,30 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string) (*lockFile
 	if err := os.MkdirAll(filepath.Join(out, "data"), 0o755); err != nil {
 		return nil, err
 	}
-	lock := &lockFile{LockVersion: 1, Server: cl.base.String(), Dataset: r.Project + "/" + r.Dataset,
+	// Files of another version pulled here before would be read as part
+	// of this one: remove them (only pull's own data/<sha256>.parquet files).
+	keep := map[string]bool{}
+	for _, f := range v.Manifest.Files {
+		keep[dataPath(f.SHA256.String())] = true
+		keep[dataPath(f.SHA256.String())+".part"] = true
+	}
+	if ents, err := os.ReadDir(filepath.Join(out, "data")); err == nil {
+		for _, de := range ents {
+			rel := "data/" + de.Name()
+			sha, _, _ := strings.Cut(de.Name(), ".")
+			if _, err := blob.ParseID(sha); err == nil && !keep[rel] {
+				if err := os.Remove(filepath.Join(out, "data", de.Name())); err != nil {
+					return nil, err
+				}
+			}
+		}
+	}
+	server := *cl.base
+	server.User = nil // never write credentials into the lock
+	lock := &lockFile{LockVersion: 1, Server: server.String(), Dataset: r.Project + "/" + r.Dataset,
 		Version: v.Number, SnapshotID: v.SnapshotID, PulledAt: time.Now().UTC()}
 	for _, f := range v.Manifest.Files {
-		rel := filepath.ToSlash(filepath.Join("data", f.SHA256.String()+".parquet"))
+		rel := dataPath(f.SHA256.String())
 		if err := e.fetchFile(cmd, cl, r.path()+fmt.Sprintf("/versions/%d/files/%s", v.Number, f.SHA256), filepath.Join(out, rel), f); err != nil {
 			return nil, err
 		}
@@ -183,6 +205,9 @@ func (e *env) fetchFile(cmd *cobra.Command, cl *client, path, dst string, f cata
 	return os.Rename(part, dst)
 }
 
+// dataPath is where pull puts a file of a version, relative to its directory.
+func dataPath(sha string) string { return "data/" + sha + ".parquet" }
+
 func fileSHA256(path string) (string, error) {
 	f, err := os.Open(path)
 	if err != nil {
@@ -207,7 +232,10 @@ func writeFileAtomic(path string, data []byte) error {
 func readLock(dir string) (*lockFile, error) {
 	b, err := os.ReadFile(filepath.Join(dir, lockName))
 	if errors.Is(err, fs.ErrNotExist) {
-		return nil, usageErr("%s: no %s here; pull a version into it first", dir, lockName)
+		if _, derr := os.Stat(dir); derr != nil {
+			return nil, usageErr("%s: no such directory", dir)
+		}
+		return nil, fmt.Errorf("%s: no %s here: not a pulled version, or its lock was removed", dir, lockName)
 	}
 	if err != nil {
 		return nil, err

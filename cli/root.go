@@ -10,6 +10,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"strings"
 
 	"github.com/mattn/go-isatty"
 	"github.com/spf13/cobra"
@@ -70,6 +71,8 @@ func Main(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io
 	var xe *exitError
 	if errors.As(err, &xe) {
 		code = xe.code
+	} else if strings.HasPrefix(err.Error(), "unknown command") || strings.HasPrefix(err.Error(), "unknown flag") {
+		code = ExitUsage // cobra's own usage errors
 	}
 	if msg := err.Error(); msg != "" {
 		fmt.Fprintln(stderr, "flowcat:", msg)
@@ -110,8 +113,23 @@ scores their quality and keeps immutable, versioned Parquet snapshots that stude
 	return root
 }
 
-// wrapArgs makes argument-count errors usage errors (exit 2).
+// wrapArgs makes argument-count errors usage errors (exit 2), and so a
+// group command (token, project, dataset) called without a known
+// subcommand.
 func wrapArgs(c *cobra.Command) {
+	if c.HasSubCommands() && c.Run == nil && c.RunE == nil {
+		c.Args = cobra.ArbitraryArgs
+		c.RunE = func(cmd *cobra.Command, args []string) error {
+			if len(args) > 0 {
+				return usageErr("unknown command %q for %q\n%s", args[0], cmd.CommandPath(), cmd.UsageString())
+			}
+			return usageErr("%s needs a subcommand\n%s", cmd.CommandPath(), cmd.UsageString())
+		}
+		for _, sub := range c.Commands() {
+			wrapArgs(sub)
+		}
+		return
+	}
 	if c.Args != nil {
 		check := c.Args
 		c.Args = func(cmd *cobra.Command, args []string) error {

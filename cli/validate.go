@@ -24,6 +24,9 @@ prints the quality report. Nothing is stored or sent. Exit 0: the server would a
 1: it would be rejected (unreadable, or more invalid rows than --reject-above).`,
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
+			if !(rejectAbove >= 0 && rejectAbove <= 1) {
+				return usageErr("--reject-above %v: want a share between 0 and 1", rejectAbove)
+			}
 			prof := schema.DefaultProfile()
 			if profile != "" {
 				b, err := os.ReadFile(profile)

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"github.com/spf13/cobra"
 
@@ -70,9 +71,23 @@ func verifyDir(dir string, lock *lockFile) []verifyProblem {
 	if m.Dataset != lock.Dataset || m.Version != lock.Version {
 		add("manifest.json", "is %s@%d, the lock says %s@%d", m.Dataset, m.Version, lock.Dataset, lock.Version)
 	}
+	inManifest := map[string]catalog.FileEntry{}
+	for _, f := range m.Files {
+		inManifest[f.SHA256.String()] = f
+	}
 	locked := map[string]bool{}
 	for _, f := range lock.Files {
 		locked[f.SHA256] = true
+		mf, ok := inManifest[f.SHA256]
+		switch {
+		case !ok:
+			add("flowcat.lock", "lists %s, which the manifest does not", f.SHA256)
+		case f.Bytes != mf.Bytes || f.Rows != mf.Rows:
+			add("flowcat.lock", "says %s has %d bytes and %d rows, the manifest %d and %d", f.SHA256, f.Bytes, f.Rows, mf.Bytes, mf.Rows)
+		}
+		if f.Path != dataPath(f.SHA256) {
+			add("flowcat.lock", "names %s at %q, not at %s", f.SHA256, f.Path, dataPath(f.SHA256))
+		}
 	}
 	for _, f := range m.Files {
 		if !locked[f.SHA256.String()] {
@@ -81,6 +96,15 @@ func verifyDir(dir string, lock *lockFile) []verifyProblem {
 	}
 	if len(m.Files) != len(lock.Files) {
 		add("flowcat.lock", "lists %d files, the manifest %d", len(lock.Files), len(m.Files))
+	}
+	// Anything else in data/ would be read as part of the snapshot.
+	if ents, err := os.ReadDir(filepath.Join(dir, "data")); err == nil {
+		for _, de := range ents {
+			name := de.Name()
+			if sha, ok := strings.CutSuffix(name, ".parquet"); !ok || !locked[sha] {
+				add("data/"+name, "is not part of the version")
+			}
+		}
 	}
 	for _, f := range lock.Files {
 		got, err := fileSHA256(filepath.Join(dir, filepath.FromSlash(f.Path)))

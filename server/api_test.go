@@ -156,4 +156,8 @@ func TestCatalogErrors(t *testing.T) {
 	// And application/json with a charset is fine (RFC 8259 section 11).
 	r = e.do("POST", "/api/v1/projects", e.admin, strings.NewReader(`{"name":"cs"}`), map[string]string{"Content-Type": "application/json; charset=utf-8"})
 	e.mustStatus(r, http.StatusCreated, "project with charset")
+	// A JSON body over the limit is 413, like an oversized upload.
+	big := `{"name":"big","title":"` + strings.Repeat("t", 2<<20) + `"}`
+	r = e.do("POST", "/api/v1/projects", e.admin, strings.NewReader(big), map[string]string{"Content-Type": "application/json"})
+	e.mustStatus(r, http.StatusRequestEntityTooLarge, "2 MiB project body")
 }

@@ -59,8 +59,8 @@ func (s *Server) createProject(c echo.Context) error {
 		return forbidden("create projects (admin only)")
 	}
 	var req createProjectRequest
-	if err := decodeJSON(c, &req); err != nil {
-		return fail(http.StatusBadRequest, "invalid", "request body: want JSON {\"name\": ..., \"title\": ...}: %v", err)
+	if err := decodeJSON(c, &req, `{"name": ..., "title": ...}`); err != nil {
+		return err
 	}
 	p, err := s.cfg.Store.CreateProject(c.Request().Context(), req.Name, req.Title, cl.Subject)
 	if err != nil {
@@ -117,8 +117,8 @@ func (s *Server) createDataset(c echo.Context) error {
 		return forbidden("create datasets in project " + project)
 	}
 	var req createDatasetRequest
-	if err := decodeJSON(c, &req); err != nil {
-		return fail(http.StatusBadRequest, "invalid", "request body: want JSON {\"name\", \"title\", \"profile\", \"timezone\", \"reject_above\", \"window_from\", \"window_to\"}: %v", err)
+	if err := decodeJSON(c, &req, `{"name", "title", "profile", "timezone", "reject_above", "window_from", "window_to"}`); err != nil {
+		return err
 	}
 	d, err := s.cfg.Store.CreateDataset(c.Request().Context(), catalog.DatasetSpec{
 		Project: project, Name: req.Name, Title: req.Title, Profile: []byte(req.Profile),
@@ -361,7 +361,19 @@ const maxRequestJSON = 1 << 20
 // decodeJSON reads a request body that must be one JSON object of v's
 // fields: an unknown field is an error rather than silently dropped, so a
 // misspelt "profile" cannot create a dataset with the default profile.
-func decodeJSON(c echo.Context, v any) error {
+func decodeJSON(c echo.Context, v any, shape string) error {
+	err := decodeJSONBody(c, v)
+	var mbe *http.MaxBytesError
+	switch {
+	case errors.As(err, &mbe):
+		return fail(http.StatusRequestEntityTooLarge, "too_large", "request body: larger than %d bytes", maxRequestJSON)
+	case err != nil:
+		return fail(http.StatusBadRequest, "invalid", "request body: want JSON %s: %v", shape, err)
+	}
+	return nil
+}
+
+func decodeJSONBody(c echo.Context, v any) error {
 	req := c.Request()
 	if ct := req.Header.Get(echo.HeaderContentType); ct != "" {
 		mt, _, err := mime.ParseMediaType(ct)

@@ -229,9 +229,9 @@ func versionParam(c echo.Context) (int, error) {
 	if v == "latest" {
 		return 0, nil
 	}
-	n, err := strconv.Atoi(v)
+	n, err := strconv.ParseUint(v, 10, 31)
 	if err != nil || n < 1 {
 		return 0, fail(http.StatusBadRequest, "invalid", "version %q: want a number from 1, or latest", v)
 	}
-	return n, nil
+	return int(n), nil
 }
