@@ -43,6 +43,11 @@ func (a *Accumulator) observeCase(e *schema.Event, at uint64) bool {
 	}
 	slot, ok := a.cases.lookup(k)
 	st := slot.rec
+	if ok && at-st>>caseFlagBits > a.horizon {
+		// Idle past the horizon: checked as a new case, whether or not a
+		// sweep has dropped it yet, so counts do not depend on file size.
+		st = 0
+	}
 	var kind uint64
 	switch e.Type {
 	case schema.Arrival, schema.Enqueue:

@@ -519,6 +519,26 @@ func TestPruning(t *testing.T) {
 	}
 }
 
+// TestHorizonWithoutSweep: a case idle past the horizon is a new case
+// whether or not a sweep ran in between, so the count is the same for a
+// small file and a large one.
+func TestHorizonWithoutSweep(t *testing.T) {
+	for _, fillers := range []int{10, 70_000} {
+		a := NewAccumulator(Options{}) // 30-day horizon, default sweep interval
+		e := event("x", 0, schema.Start, t0)
+		a.Observe(&e)
+		for i := range fillers {
+			f := event("f", 0, schema.Arrival, t0.Add(time.Duration(i+1)*time.Second))
+			a.Observe(&f)
+		}
+		e = event("x", 0, schema.Arrival, t0.Add(40*24*time.Hour))
+		a.Observe(&e)
+		if got := a.Report().Timestamps.StartBeforeArrival; got != 0 {
+			t.Errorf("%d fillers: %d start_before_arrival, want 0 (idle 40 days > 30-day horizon)", fillers, got)
+		}
+	}
+}
+
 func caseName(i int) string {
 	return "p" + string(rune('a'+i%26)) + string(rune('a'+i/26%26)) + string(rune('a'+i/676))
 }

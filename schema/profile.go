@@ -53,12 +53,6 @@ const (
 	FormatJSONL Format = "jsonl" // one JSON object per line
 )
 
-// QuoteNone is the profile's quote setting for files whose fields are not
-// quoted: a '"' inside a field is then taken literally. (A field that
-// starts with '"' is still read as quoted; the underlying encoding/csv
-// reader has no way to turn quoting off entirely.)
-const QuoteNone = "none"
-
 // Mapping says where one schema field's value comes from.
 type Mapping struct {
 	Column   string            `json:"column,omitempty"`   // source column (JSON Lines: top-level key)
@@ -76,7 +70,7 @@ type Mapping struct {
 type Profile struct {
 	Format    Format            `json:"format"`
 	Delimiter string            `json:"delimiter,omitempty"` // CSV/TSV: one character
-	Quote     string            `json:"quote,omitempty"`     // CSV/TSV: `"` or QuoteNone
+	Quote     string            `json:"quote,omitempty"`     // CSV/TSV: `"` (RFC 4180)
 	Timezone  string            `json:"timezone"`            // IANA zone name of wall-clock times
 	LocalTime LocalTimePolicy   `json:"local_time"`
 	Fields    map[Field]Mapping `json:"fields"`
@@ -284,8 +278,11 @@ func (p *Profile) validate(lines map[string]int) error {
 		if p.Quote == "" {
 			p.Quote = `"`
 		}
-		if p.Quote != `"` && p.Quote != QuoteNone {
-			return at("quote", `must be '"' or none (the reader quotes only with '"')`)
+		// Only RFC 4180 quoting: a reader that half-ignores quotes could
+		// join rows silently, moving one row's identifier into another's
+		// free-text field.
+		if p.Quote != `"` {
+			return at("quote", `must be '"' (RFC 4180 quoting; a stray quote rejects its row as malformed_row)`)
 		}
 	case FormatJSONL:
 		if p.Delimiter != "" {
@@ -372,6 +369,21 @@ func (p *Profile) validate(lines map[string]int) error {
 			}
 		}
 		p.Fields[f] = m
+	}
+	// A column that feeds an identifier may feed no other field: the other
+	// field would keep (or quote in a message) the raw identifier.
+	idCols := map[string]Field{}
+	for _, f := range Fields {
+		if m, ok := p.Fields[f]; ok && f.Identifier() && m.Column != "" {
+			idCols[m.Column] = f
+		}
+	}
+	for _, f := range Fields {
+		if m, ok := p.Fields[f]; ok && !f.Identifier() && m.Column != "" {
+			if idf, clash := idCols[m.Column]; clash {
+				return at("fields."+string(f), fmt.Sprintf("column %q is %s's, an identifier: it cannot also feed %s", clip(m.Column), idf, f))
+			}
+		}
 	}
 	for _, f := range Fields {
 		if f.Required() {

@@ -111,7 +111,12 @@ func TestParseProfileErrors(t *testing.T) {
 		{"bad format", "format: xlsx\n" + base, 1, "format", "unknown format"},
 		{"long delimiter", "delimiter: ';;'\n" + base, 1, "delimiter", "one character"},
 		{"quote delimiter", "delimiter: '\"'\n" + base, 1, "delimiter", "one character"},
-		{"bad quote", "quote: \"'\"\n" + base, 1, "quote", "none"},
+		{"bad quote", "quote: \"'\"\n" + base, 1, "quote", "RFC 4180"},
+		{"quote none", "quote: none\n" + base, 1, "quote", "RFC 4180"},
+		// A column that is an identifier's cannot feed another field, which
+		// would keep or quote the raw identifier.
+		{"identifier column reused as site", "fields:\n  site: c\n  case_id: c\n  event_type: e\n  occurred_at: t\n", 2, "fields.site", "identifier"},
+		{"identifier column reused as activity", "fields:\n  site: {value: s}\n  case_id: c\n  subject_id: p\n  activity: {column: p, codes: {x: y}}\n  event_type: e\n  occurred_at: t\n", 5, "fields.activity", "identifier"},
 		{"tsv with comma", "format: tsv\ndelimiter: ','\n" + base, 2, "delimiter", "tab"},
 		{"jsonl with delimiter", "format: jsonl\ndelimiter: ','\n" + base, 2, "delimiter", "only for csv"},
 		{"bad ambiguous", "local_time: {ambiguous: first}\n" + base, 1, "local_time.ambiguous", "earlier"},

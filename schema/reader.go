@@ -151,6 +151,12 @@ func NewReader(r io.Reader, p *Profile, opt ReaderOptions) (*Reader, error) {
 	} else if err != nil && err != io.EOF {
 		return nil, rd.fatal(err, 0)
 	}
+	// A UTF-8 byte-order mark (spreadsheet exports) is not data.
+	bomr := bufio.NewReaderSize(in, 64<<10)
+	if b, err := bomr.Peek(3); err == nil && b[0] == 0xEF && b[1] == 0xBB && b[2] == 0xBF {
+		bomr.Discard(3)
+	}
+	in = bomr
 	rd.guard = &guardReader{r: in, limit: math.MaxInt64}
 
 	if p.Format == FormatJSONL {
@@ -176,7 +182,6 @@ func (rd *Reader) readHeader() error {
 	cr.Comma = delim
 	cr.FieldsPerRecord = -1
 	cr.ReuseRecord = true
-	cr.LazyQuotes = rd.p.Quote == QuoteNone
 	rd.csv = cr
 	rd.guard.limit = maxRecordBytes + 64<<10
 

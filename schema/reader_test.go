@@ -668,3 +668,28 @@ func TestReaderSharedProfile(t *testing.T) {
 		t.Error("NewReader changed the profile")
 	}
 }
+
+// TestByteOrderMark: a UTF-8 BOM before a quoted CSV header or a JSON
+// Lines file is skipped, not read as data.
+func TestByteOrderMark(t *testing.T) {
+	bom := "\uFEFF"
+	csvData := bom + "\"site\",\"case_id\",\"event_type\",\"occurred_at\"\r\n\"s\",\"c1\",\"arrival\",\"2021-01-01T00:00:00Z\"\r\n"
+	jsonl := bom + `{"site":"s","case_id":"c1","event_type":"arrival","occurred_at":"2021-01-01T00:00:00Z"}` + "\n"
+	jp := DefaultProfile()
+	jp.Format = FormatJSONL
+	jp.Delimiter, jp.Quote = "", ""
+	for name, c := range map[string]struct {
+		data string
+		p    *Profile
+	}{"quoted csv": {csvData, DefaultProfile()}, "jsonl": {jsonl, jp}} {
+		rd, err := NewReader(strings.NewReader(c.data), c.p, ReaderOptions{})
+		if err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		var e Event
+		rej, err := rd.Next(&e)
+		if err != nil || rej != nil || e.CaseID != "c1" || e.Line != 2-map[string]int64{"quoted csv": 0, "jsonl": 1}[name] {
+			t.Errorf("%s: rej %v, err %v, event %+v", name, rej, err, e)
+		}
+	}
+}

@@ -266,3 +266,33 @@ func TestParseTimeRange(t *testing.T) {
 		}
 	}
 }
+
+// TestLayoutNoRollover: a layout reading never normalizes an impossible
+// date or time into another instant; it rejects the row.
+func TestLayoutNoRollover(t *testing.T) {
+	for _, c := range []struct {
+		in, layout string
+		want       string // RFC 3339 UTC, or "" for rejected
+	}{
+		{"2021-02-30 10:00:00", "%Y-%m-%d %H:%M:%S", ""},
+		{"2021-12-31 23:59:60", "%Y-%m-%d %H:%M:%S", ""}, // leap second, as in auto-detection
+		{"2021-366 10:00", "%Y-%j %H:%M", ""},
+		{"2020-366 10:00", "%Y-%j %H:%M", "2020-12-31T10:00:00Z"},
+		{"2021-02-28 10:00:00.5", "%Y-%m-%d %H:%M:%S.%f", "2021-02-28T10:00:00.5Z"},
+		{"2021-02-28 10:00:00.000", "%Y-%m-%d %H:%M:%S.%f", "2021-02-28T10:00:00Z"},
+		{"28 Feb 2021 02:30 PM", "%d %b %Y %I:%M %p", "2021-02-28T14:30:00Z"},
+		{"1/2/2021 9:05", "%m/%d/%Y %H:%M", "2021-01-02T09:05:00Z"},
+	} {
+		got, err := ParseTime(c.in, c.layout, time.UTC, LocalTimePolicy{})
+		switch {
+		case c.want == "" && err == nil:
+			t.Errorf("ParseTime(%q, %q) = %v, want rejected", c.in, c.layout, got)
+		case c.want != "" && (err != nil || got.Format(time.RFC3339Nano) != c.want):
+			t.Errorf("ParseTime(%q, %q) = %v, %v; want %s", c.in, c.layout, got, err, c.want)
+		}
+	}
+	// A 12-hour clock without AM/PM would read every afternoon as morning.
+	if err := ValidateLayout("%Y-%m-%d %I:%M"); err == nil {
+		t.Error("ValidateLayout accepted a 12-hour clock without AM/PM")
+	}
+}

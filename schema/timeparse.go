@@ -155,7 +155,7 @@ func (tp *timeParser) parse(s string) (time.Time, error) {
 func (tp *timeParser) parseAny(s string) (time.Time, error) {
 	if tp.layout != "" {
 		t, err := timefmt.Parse(s, tp.layout)
-		if err != nil {
+		if err != nil || fieldsRolledOver(s, tp.layout, t) {
 			return time.Time{}, ErrBadTimestamp
 		}
 		if tp.layoutOffset {
@@ -373,7 +373,7 @@ func layoutInfo(layout string) (hasOffset bool, err error) {
 	if strings.TrimSpace(layout) == "" {
 		return false, errors.New("layout is empty")
 	}
-	hasYear := false
+	hasYear, hour12, ampm := false, false, false
 	for i := 0; i < len(layout); i++ {
 		if layout[i] != '%' {
 			continue
@@ -401,14 +401,66 @@ func layoutInfo(layout string) (hasOffset bool, err error) {
 			hasYear, hasOffset = true, true
 		case 'z':
 			hasOffset = true
+		case 'I', 'l':
+			hour12 = true
+		case 'p', 'P':
+			ampm = true
 		}
 	}
 	if !hasYear {
 		return false, errors.New("layout has no year (%Y, %y, %F, %D or %s)")
+	}
+	if hour12 && !ampm {
+		return false, errors.New("a 12-hour clock (%I or %l) needs %p or %P, or afternoon times read as morning")
 	}
 	ref := time.Date(2021, time.October, 31, 14, 30, 15, 250000000, time.FixedZone("", 3600))
 	if _, err := timefmt.Parse(timefmt.Format(ref, layout), layout); err != nil {
 		return false, errors.New("a timestamp written with the layout does not parse back with it")
 	}
 	return hasOffset, nil
+}
+
+// fieldsRolledOver reports whether t, parsed from s with layout, has been
+// normalized away from what s says (February 30 read as March 2, second
+// 60 as the next minute, day 366 of a common year as January 1): it
+// formats t back with the layout and compares the runs of digits of both
+// texts as numbers. A run of six digits in the formatted text (a %f
+// fraction) also matches a shorter run that pads to it with zeros.
+func fieldsRolledOver(s, layout string, t time.Time) bool {
+	in, out := digitRuns(s), digitRuns(timefmt.Format(t, layout))
+	if len(in) != len(out) {
+		return true
+	}
+	for i := range in {
+		if numEqual(in[i], out[i]) {
+			continue
+		}
+		if len(out[i]) == 6 && len(in[i]) < 6 && in[i]+strings.Repeat("0", 6-len(in[i])) == out[i] {
+			continue
+		}
+		return true
+	}
+	return false
+}
+
+func digitRuns(s string) []string {
+	var runs []string
+	start := -1
+	for i := 0; i <= len(s); i++ {
+		digit := i < len(s) && s[i] >= '0' && s[i] <= '9'
+		switch {
+		case digit && start < 0:
+			start = i
+		case !digit && start >= 0:
+			runs = append(runs, s[start:i])
+			start = -1
+		}
+	}
+	return runs
+}
+
+// numEqual compares two digit runs as numbers (leading zeros ignored).
+func numEqual(a, b string) bool {
+	a, b = strings.TrimLeft(a, "0"), strings.TrimLeft(b, "0")
+	return a == b
 }
