@@ -288,9 +288,13 @@ func TestEndToEnd(t *testing.T) {
 	extra := filepath.Join(snap, "data", strings.Repeat("ab", 32)+".parquet")
 	for name, tamper := range map[string]func(){
 		"extra file in data/": func() { os.WriteFile(extra, []byte("PAR1"), 0o644) },
-		"lock path moved":     func() { os.WriteFile(lockPath, bytes.Replace(goodLock, []byte(`"data/`), []byte(`"hidden/`), 1), 0o644) },
-		"lock rows edited":    func() { os.WriteFile(lockPath, regexp.MustCompile(`"rows": \d+`).ReplaceAll(goodLock, []byte(`"rows": 999999`)), 0o644) },
-		"lock removed":        func() { os.Remove(lockPath) },
+		"lock path moved": func() {
+			os.WriteFile(lockPath, bytes.Replace(goodLock, []byte(`"data/`), []byte(`"hidden/`), 1), 0o644)
+		},
+		"lock rows edited": func() {
+			os.WriteFile(lockPath, regexp.MustCompile(`"rows": \d+`).ReplaceAll(goodLock, []byte(`"rows": 999999`)), 0o644)
+		},
+		"lock removed": func() { os.Remove(lockPath) },
 	} {
 		tamper()
 		if code, out, errs := run(t, nil, "verify", snap); code != 1 {
