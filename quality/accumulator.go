@@ -216,6 +216,12 @@ func (a *Accumulator) Observe(e *schema.Event) {
 		a.dups.add(a.opt.MaxSamples, sampleOf(e))
 	}
 	rel := uint64(at - a.base)
+	if rel > maxRel {
+		// Beyond the span a case record holds (about 2283 years from the
+		// file's first event: only a placeholder date gets here): saturate
+		// rather than wrap.
+		rel = maxRel
+	}
 	if a.observeCase(e, rel) {
 		problem = true
 	}

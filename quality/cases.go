@@ -22,6 +22,7 @@ const (
 	casePendingCompleteNow                    // ... that complete was at the latest instant
 	caseFlagBits           = 8
 	caseFlags              = 1<<caseFlagBits - 1
+	maxRel                 = 1<<(64-caseFlagBits) - 1 // largest instant a case record holds
 	caseNowFlags           = casePendingStartNow | casePendingCompleteNow
 )
 
