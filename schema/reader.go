@@ -433,6 +433,34 @@ func (rd *Reader) columnName(i int) string {
 	return fmt.Sprintf("field %d", i+1)
 }
 
+// duplicateMappedKey reports a top-level key of the JSON object b that a
+// profile maps and that appears more than once.
+func duplicateMappedKey(b []byte, mapped func(string) bool) (string, bool) {
+	dec := json.NewDecoder(bytes.NewReader(b))
+	if _, err := dec.Token(); err != nil { // the opening brace
+		return "", false
+	}
+	var seen []string
+	var skip json.RawMessage
+	for dec.More() {
+		t, err := dec.Token()
+		if err != nil {
+			return "", false
+		}
+		k, _ := t.(string)
+		if mapped(k) {
+			if slices.Contains(seen, k) {
+				return k, true
+			}
+			seen = append(seen, k)
+		}
+		if err := dec.Decode(&skip); err != nil {
+			return "", false
+		}
+	}
+	return "", false
+}
+
 func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
 	for {
 		b, err := rd.readLine()
@@ -466,6 +494,10 @@ func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
 				msg += fmt.Sprintf(" (byte %d)", se.Offset)
 			}
 			return &Rejection{Line: line, Reason: ReasonMalformedRow, Message: msg}, nil
+		}
+		if k, dup := duplicateMappedKey(b, rd.mappedKey); dup {
+			// encoding/json keeps the last of two equal keys silently.
+			return &Rejection{Line: line, Column: k, Reason: ReasonMalformedRow, Message: fmt.Sprintf("key %q appears twice in the object", clip(k))}, nil
 		}
 		if len(rd.seenKeys) < maxUnmappedKeys {
 			for k := range rd.obj {

@@ -693,3 +693,27 @@ func TestByteOrderMark(t *testing.T) {
 		}
 	}
 }
+
+// TestJSONLDuplicateKey: an object naming a mapped key twice is rejected,
+// not read with whichever value came last.
+func TestJSONLDuplicateKey(t *testing.T) {
+	p := DefaultProfile()
+	p.Format = FormatJSONL
+	p.Delimiter, p.Quote = "", ""
+	data := `{"site":"s","case_id":"a","event_type":"arrival","occurred_at":"2021-01-01T00:00:00Z","case_id":"b"}
+{"site":"s","case_id":"c","event_type":"arrival","occurred_at":"2021-01-01T00:00:00Z","note":1,"note":2}
+`
+	rd, err := NewReader(strings.NewReader(data), p, ReaderOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var e Event
+	rej, err := rd.Next(&e)
+	if err != nil || rej == nil || rej.Reason != ReasonMalformedRow || rej.Column != "case_id" || rej.Line != 1 {
+		t.Errorf("line 1: rej %+v, err %v; want malformed_row at case_id", rej, err)
+	}
+	// A repeated key that is not mapped does not matter.
+	if rej, err := rd.Next(&e); err != nil || rej != nil || e.CaseID != "c" {
+		t.Errorf("line 2: rej %+v, err %v, event %+v", rej, err, e)
+	}
+}
