@@ -492,7 +492,11 @@ func fieldMapping(n ast.Node, key string, lines map[string]int) (Mapping, error)
 				if err != nil {
 					return m, err
 				}
-				m.Codes[strings.TrimSpace(c.key)] = to
+				k := strings.TrimSpace(c.key)
+				if _, dup := m.Codes[k]; dup {
+					return m, &ProfileError{Line: c.line, Key: sub + "." + c.key, Msg: fmt.Sprintf("code %q is listed twice (values are trimmed before matching)", clip(k))}
+				}
+				m.Codes[k] = to
 			}
 			continue
 		}

@@ -113,6 +113,7 @@ func TestParseProfileErrors(t *testing.T) {
 		{"quote delimiter", "delimiter: '\"'\n" + base, 1, "delimiter", "one character"},
 		{"bad quote", "quote: \"'\"\n" + base, 1, "quote", "RFC 4180"},
 		{"quote none", "quote: none\n" + base, 1, "quote", "RFC 4180"},
+		{"codes equal once trimmed", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: {column: e, codes: {\"A\": arrival, \"A \": start}}\n  occurred_at: t\n", 4, "fields.event_type.codes.A ", "twice"},
 		// A column that is an identifier's cannot feed another field, which
 		// would keep or quote the raw identifier.
 		{"identifier column reused as site", "fields:\n  site: c\n  case_id: c\n  event_type: e\n  occurred_at: t\n", 2, "fields.site", "identifier"},
