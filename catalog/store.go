@@ -12,6 +12,7 @@ import (
 	"time"
 
 	bolt "go.etcd.io/bbolt"
+	bolterrors "go.etcd.io/bbolt/errors"
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
@@ -78,7 +79,7 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		return nil, fmt.Errorf("catalog: no master key given")
 	}
 	db, err := bolt.Open(path, 0o600, &bolt.Options{Timeout: time.Second})
-	if errors.Is(err, bolt.ErrTimeout) {
+	if errors.Is(err, bolterrors.ErrTimeout) {
 		return nil, fmt.Errorf("catalog: %s: %w", path, ErrLocked)
 	}
 	if err != nil {

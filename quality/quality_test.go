@@ -42,15 +42,6 @@ func nonEmpty(r *Report) map[schema.Field]int64 {
 	return m
 }
 
-func findingCount(r *Report, dim, code string) int64 {
-	for d, f := range r.Findings() {
-		if d.Name == dim && f.Code == code {
-			return f.Count
-		}
-	}
-	return 0
-}
-
 // TestPlantedDefects checks exact counts and scores of handPlant, worked
 // out by hand from the generator's rules (see fixture_test.go).
 func TestPlantedDefects(t *testing.T) {

@@ -198,7 +198,7 @@ delimiter: ';'
 	if c.Hash() == a.Hash() {
 		t.Error("different codes hash equal")
 	}
-	if DefaultProfile().Hash() != DefaultProfile().Hash() || DefaultProfile().Hash() == a.Hash() {
+	if h1, h2 := DefaultProfile().Hash(), DefaultProfile().Hash(); h1 != h2 || h1 == a.Hash() {
 		t.Error("default profile hash unstable or colliding")
 	}
 }

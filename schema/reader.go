@@ -767,13 +767,3 @@ func (g *guardReader) Read(p []byte) (int, error) {
 	}
 	return n, err
 }
-
-func clipN(s string, n int) string {
-	if len(s) <= n {
-		return s
-	}
-	for n > 0 && !utf8.RuneStart(s[n]) {
-		n--
-	}
-	return s[:n] + "..."
-}

@@ -5,7 +5,6 @@ import (
 	"context"
 	"os"
 	"os/exec"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
@@ -34,7 +33,6 @@ func TestLandingPageInBrowser(t *testing.T) {
 	e := newEnv(t)
 	ctx, cancel := context.WithTimeout(context.Background(), 60*time.Second)
 	defer cancel()
-	shot := filepath.Join(t.TempDir(), "landing.png")
 	cmd := exec.CommandContext(ctx, bin,
 		"--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
 		"--disable-background-networking", "--disable-component-update", "--disable-sync",
@@ -57,8 +55,7 @@ func TestLandingPageInBrowser(t *testing.T) {
 		}
 	}
 	// A screenshot, kept when FLOWCAT_SCREENSHOT names a file, for a look.
-	if dst := os.Getenv("FLOWCAT_SCREENSHOT"); dst != "" {
-		shot = dst
+	if shot := os.Getenv("FLOWCAT_SCREENSHOT"); shot != "" {
 		sc := exec.CommandContext(ctx, bin, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
 			"--no-first-run", "--disable-background-networking", "--disable-component-update", "--disable-sync",
 			"--user-data-dir="+t.TempDir(), "--virtual-time-budget=5000", "--window-size=900,700",

@@ -4,7 +4,6 @@
 package server
 
 import (
-	"context"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -91,9 +90,6 @@ func (s *Server) HTTPServer(addr string) *http.Server {
 		IdleTimeout:       2 * time.Minute,
 	}
 }
-
-// Shutdown is a convenience for graceful stops.
-func Shutdown(ctx context.Context, hs *http.Server) error { return hs.Shutdown(ctx) }
 
 func (s *Server) accessLog(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
