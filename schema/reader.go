@@ -433,6 +433,13 @@ func (rd *Reader) columnName(i int) string {
 	return fmt.Sprintf("field %d", i+1)
 }
 
+// replacementInText reports whether a JSON string literal spells U+FFFD
+// itself (as the character or as \ufffd), rather than getting it from a
+// lone surrogate escape.
+func replacementInText(raw []byte) bool {
+	return bytes.ContainsRune(raw, utf8.RuneError) || bytes.Contains(bytes.ToLower(raw), []byte(`\ufffd`))
+}
+
 // duplicateMappedKey reports a top-level key of the JSON object b that a
 // profile maps and that appears more than once.
 func duplicateMappedKey(b []byte, mapped func(string) bool) (string, bool) {
@@ -521,6 +528,12 @@ func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
 				case '"':
 					if err := json.Unmarshal(raw, &v); err != nil {
 						return &Rejection{Line: line, Column: c.name, Field: fieldsArray[i], Reason: ReasonMalformedRow, Message: "the string does not decode"}, nil
+					}
+					if strings.ContainsRune(v, utf8.RuneError) && !replacementInText(raw) {
+						// encoding/json turns a lone surrogate escape into
+						// U+FFFD, so distinct identifiers would collapse.
+						return &Rejection{Line: line, Column: c.name, Field: fieldsArray[i], Reason: ReasonBadValue,
+							Message: "the string holds an invalid \\u escape (a lone UTF-16 surrogate)"}, nil
 					}
 				case 'n':
 				case '{', '[':

@@ -717,3 +717,26 @@ func TestJSONLDuplicateKey(t *testing.T) {
 		t.Errorf("line 2: rej %+v, err %v, event %+v", rej, err, e)
 	}
 }
+
+// TestJSONLLoneSurrogate: a lone surrogate escape would decode to U+FFFD
+// and collapse distinct identifiers; the row is rejected. A U+FFFD that
+// the text spells itself is kept.
+func TestJSONLLoneSurrogate(t *testing.T) {
+	p := DefaultProfile()
+	p.Format = FormatJSONL
+	p.Delimiter, p.Quote = "", ""
+	data := `{"site":"s","case_id":"A\udc00X","event_type":"arrival","occurred_at":"2021-01-01T00:00:00Z"}
+{"site":"s","case_id":"A\ufffdX","event_type":"arrival","occurred_at":"2021-01-01T00:00:00Z"}
+`
+	rd, err := NewReader(strings.NewReader(data), p, ReaderOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var e Event
+	if rej, err := rd.Next(&e); err != nil || rej == nil || rej.Reason != ReasonBadValue || rej.Column != "case_id" {
+		t.Errorf("lone surrogate: rej %+v, err %v", rej, err)
+	}
+	if rej, err := rd.Next(&e); err != nil || rej != nil || e.CaseID != "A\uFFFDX" {
+		t.Errorf("spelled U+FFFD: rej %+v, err %v, case %q", rej, err, e.CaseID)
+	}
+}
