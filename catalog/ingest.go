@@ -63,14 +63,9 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		return nil, fmt.Errorf("ingest: dataset profile: %w", err)
 	}
 	received := s.opt.Now().UTC()
-	up := Upload{
-		Dataset:    ds.Ref(),
-		Filename:   filepath.Base(opt.Filename),
-		ReceivedAt: received,
-		By:         opt.By,
-	}
-	if opt.Filename == "" {
-		up.Filename = ""
+	up := Upload{Dataset: ds.Ref(), ReceivedAt: received, By: opt.By}
+	if opt.Filename != "" {
+		up.Filename = filepath.Base(opt.Filename)
 	}
 
 	raw := &hashCounter{h: sha256.New()}
@@ -171,9 +166,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref()), &cur, "dataset "+ds.Ref()); err != nil {
 			return err
 		}
-		if err := nextUpload(tx, &cur, &up); err != nil {
-			return err
-		}
+		nextUpload(&cur, &up)
 		entry.Upload = up.ID
 		m := Manifest{
 			Dataset:       cur.Ref(),
@@ -322,9 +315,7 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref()), &cur, "dataset "+ds.Ref()); err != nil {
 			return err
 		}
-		if err := nextUpload(tx, &cur, up); err != nil {
-			return err
-		}
+		nextUpload(&cur, up)
 		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {
 			return err
 		}
@@ -345,11 +336,11 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 	return nil
 }
 
-func nextUpload(tx *bolt.Tx, d *Dataset, up *Upload) error {
+// nextUpload numbers up as the dataset's next upload.
+func nextUpload(d *Dataset, up *Upload) {
 	d.Uploads++
 	up.Seq = d.Uploads
 	up.ID = fmt.Sprintf("u%d", up.Seq)
-	return nil
 }
 
 func digestKey(ref, hexDigest string) []byte { return []byte(ref + "/" + hexDigest) }

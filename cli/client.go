@@ -204,7 +204,8 @@ func writeJSON(w io.Writer, v any) error {
 	return enc.Encode(v)
 }
 
-func ago(t time.Time) string { return t.UTC().Format(time.RFC3339) }
+// stamp formats an instant for tables: RFC 3339 in UTC.
+func stamp(t time.Time) string { return t.UTC().Format(time.RFC3339) }
 
 // score formats a quality score, "-" when there is none.
 func score(s *float64) string {

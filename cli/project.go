@@ -59,7 +59,7 @@ func newProjectCmd(e *env) *cobra.Command {
 			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
 			fmt.Fprintln(tw, "PROJECT\tTITLE\tCREATED")
 			for _, p := range ps {
-				fmt.Fprintf(tw, "%s\t%s\t%s\n", p.Name, p.Title, ago(p.CreatedAt))
+				fmt.Fprintf(tw, "%s\t%s\t%s\n", p.Name, p.Title, stamp(p.CreatedAt))
 			}
 			return tw.Flush()
 		},

@@ -26,7 +26,7 @@ func newVersionsCmd(e *env) *cobra.Command {
 				if v.Manifest.Quality != nil {
 					sc = score(v.Manifest.Quality.Score)
 				}
-				fmt.Fprintf(tw, "%d\t%s\t%d\t%d\t%s\t%s\n", v.Number, ago(v.Manifest.CreatedAt), len(v.Manifest.Files), v.Manifest.Rows, sc, v.SnapshotID[:16])
+				fmt.Fprintf(tw, "%d\t%s\t%d\t%d\t%s\t%s\n", v.Number, stamp(v.Manifest.CreatedAt), len(v.Manifest.Files), v.Manifest.Rows, sc, v.SnapshotID[:16])
 			}
 			return tw.Flush()
 		},
