@@ -62,9 +62,11 @@ type Info struct {
 }
 
 // Reader is an open stored blob. It seeks so that HTTP range requests can be
-// served from it.
+// served from it, and reads at offsets so that Parquet readers can open it
+// in place.
 type Reader interface {
 	io.ReadSeekCloser
+	io.ReaderAt
 	Size() int64
 }
 
