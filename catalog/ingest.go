@@ -12,6 +12,8 @@ import (
 	"path/filepath"
 	"time"
 
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
+
 	bolt "go.etcd.io/bbolt"
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
@@ -23,6 +25,42 @@ import (
 type IngestOptions struct {
 	Filename string // as the partner named it; base name only is kept
 	By       string // token subject of the uploader
+	Mode     Mode   // how the events combine with the latest version; empty means ModeAppend
+	// From and To bound the half-open window [From, To) a ModeReplaceWindow
+	// upload replaces; both are required for that mode and unused otherwise.
+	From, To time.Time
+	// Sites are the sites whose events in the window a ModeReplaceWindow
+	// upload replaces. Empty means the sites the upload holds. With sites
+	// given, an upload without rows removes their events in the window.
+	Sites []string
+}
+
+// Validate checks the options before any byte is read.
+func (o *IngestOptions) Validate() error {
+	m, err := ParseMode(string(o.Mode))
+	if err != nil {
+		return err
+	}
+	o.Mode = m
+	if m != ModeReplaceWindow {
+		if !o.From.IsZero() || !o.To.IsZero() || len(o.Sites) > 0 {
+			return fmt.Errorf("a window and sites apply to mode replace-window only, not %s: %w", m, ErrInvalid)
+		}
+		return nil
+	}
+	if o.From.IsZero() || o.To.IsZero() {
+		return fmt.Errorf("mode replace-window needs both ends of the window (from and to): %w", ErrInvalid)
+	}
+	if !o.To.After(o.From) {
+		return fmt.Errorf("window: from %s is not before to %s: %w", o.From.UTC().Format(time.RFC3339), o.To.UTC().Format(time.RFC3339), ErrInvalid)
+	}
+	o.From, o.To = o.From.UTC(), o.To.UTC()
+	for _, site := range o.Sites {
+		if site == "" {
+			return fmt.Errorf("sites: an empty site name: %w", ErrInvalid)
+		}
+	}
+	return nil
 }
 
 // IngestResult is what became of an upload. Version is nil unless the
@@ -32,20 +70,33 @@ type IngestResult struct {
 	Version *Version
 }
 
+// Rule of an upload rejected because a replace-window upload holds events
+// outside its window or of other sites.
+const RuleOutsideWindow = "outside_window"
+
 // Ingest reads one export file for a dataset from src, as it streams:
 // parse and validate through the dataset's profile, pseudonymize, sort by
 // occurred_at (spilling sorted runs of pseudonymized events to the temp
 // dir), observe quality, write one zstd Parquet file, put it in the blob
-// store and commit a new version whose files are the parent's plus the new
-// one. Memory is bounded by Options.RunEvents, not by the file.
+// store and commit a new version. Its files are, by opt.Mode, the latest
+// version's plus the new one (append), the latest version's with the
+// replaced window's rows removed plus the new one (replace-window), or the
+// new one alone (replace-all). Memory is bounded by Options.RunEvents, not
+// by the file.
 //
-// A file that cannot be read fails with an error wrapping ErrFileInvalid
-// and a *schema.FileError; one with too many invalid rows (above the
-// dataset's RejectAbove) or none valid fails with ErrRejected. In both
-// cases nothing but the upload record is stored, and the result carries
-// the upload and its report. Identical bytes sent again to the same dataset
-// return the version they made the first time, with status duplicate.
+// Options that do not validate fail with ErrInvalid before src is read. A
+// file that cannot be read fails with an error wrapping ErrFileInvalid and
+// a *schema.FileError; one with too many invalid rows (above the dataset's
+// RejectAbove), none valid, or (replace-window) events outside the window
+// fails with ErrRejected. In those cases nothing but the upload record is
+// stored, and the result carries the upload and its report. Identical bytes
+// appended again, while the latest version still holds the file they made,
+// return the version they made the first time, with status duplicate; so
+// does any upload whose new version would hold the latest one's files.
 func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions) (*IngestResult, error) {
+	if err := opt.Validate(); err != nil {
+		return nil, err
+	}
 	ds, err := s.Dataset(ctx, project, dataset)
 	if err != nil {
 		return nil, err
@@ -63,7 +114,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		return nil, fmt.Errorf("ingest: dataset profile: %w", err)
 	}
 	received := s.opt.Now().UTC()
-	up := Upload{Dataset: ds.Ref(), ReceivedAt: received, By: opt.By}
+	up := Upload{Dataset: ds.Ref(), ReceivedAt: received, By: opt.By, Mode: opt.Mode}
 	if opt.Filename != "" {
 		up.Filename = filepath.Base(opt.Filename)
 	}
@@ -96,10 +147,10 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	}
 
 	rd, err := schema.NewReader(tee, prof, schema.ReaderOptions{Name: up.Filename})
-	if err != nil {
-		return fail(err)
+	if err == nil {
+		err = readAll(ctx, rd, pz, acc, srt)
 	}
-	if err := readAll(ctx, rd, pz, acc, srt); err != nil {
+	if err != nil && !(removing(opt) && isNoRows(err)) {
 		return fail(err)
 	}
 	// Hash any bytes the parser did not need (a gzip trailer, say).
@@ -108,12 +159,16 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	}
 	up.Bytes = raw.n
 	up.SHA256 = hex.EncodeToString(raw.h.Sum(nil))
-	up.Unmapped = rd.Unmapped()
+	if rd != nil {
+		up.Unmapped = rd.Unmapped()
+	}
 
-	if v, err := s.versionByDigest(ds.Ref(), up.SHA256); err == nil {
-		return s.duplicate(ds, up, v)
-	} else if !errors.Is(err, ErrNotFound) {
-		return nil, err
+	if opt.Mode == ModeAppend {
+		if v, err := s.appendedBefore(ctx, ds, up.SHA256); err == nil {
+			return s.duplicate(ds, up, v)
+		} else if !errors.Is(err, ErrNotFound) {
+			return nil, err
+		}
 	}
 
 	sw, err := newSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, pz.KeyID())
@@ -121,8 +176,10 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		return nil, err
 	}
 	defer sw.Remove()
+	win := newWindowCheck(opt)
 	err = srt.Finish(func(e *schema.Event) error {
 		acc.Observe(e)
+		win.observe(e)
 		return sw.Write(e)
 	})
 	if err != nil {
@@ -131,68 +188,120 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	rep := acc.Report()
 	rep.UnmappedColumns = up.Unmapped
 	up.Report = rep
-	if sw.rows == 0 || rep.RejectedShare() > ds.RejectAbove {
+	removeOnly := removing(opt) && rep.Rows.Total == 0
+	reject := func(uerr *UploadError, err error) (*IngestResult, error) {
 		up.Status = UploadRejected
+		up.Error = uerr
 		if err := s.recordUpload(ds, &up); err != nil {
 			return nil, err
 		}
 		s.opt.Logger.Warn("upload rejected", "dataset", ds.Ref(), "upload", up.ID,
 			"rejected_share", rep.RejectedShare(), "reject_above", ds.RejectAbove)
-		if sw.rows == 0 {
-			return &IngestResult{Upload: up}, fmt.Errorf("no valid rows among %d: %w", rep.Rows.Total, ErrRejected)
+		return &IngestResult{Upload: up}, err
+	}
+	switch {
+	case sw.rows == 0 && !removeOnly:
+		return reject(nil, fmt.Errorf("no valid rows among %d: %w", rep.Rows.Total, ErrRejected))
+	case rep.RejectedShare() > ds.RejectAbove:
+		return reject(nil, fmt.Errorf("%.2f%% of rows are invalid, above the dataset's threshold of %.2f%%: %w",
+			100*rep.RejectedShare(), 100*ds.RejectAbove, ErrRejected))
+	case win.outside > 0:
+		ue := win.uploadError()
+		return reject(ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
+	}
+	if opt.Mode == ModeReplaceWindow && len(opt.Sites) == 0 {
+		opt.Sites = win.siteList()
+	}
+
+	var entry *FileEntry
+	if sw.rows > 0 {
+		id, size, err := sw.Finish()
+		if err != nil {
+			return nil, fmt.Errorf("ingest: %w", err)
 		}
-		return &IngestResult{Upload: up}, fmt.Errorf("%.2f%% of rows are invalid, above the dataset's threshold of %.2f%%: %w",
-			100*rep.RejectedShare(), 100*ds.RejectAbove, ErrRejected)
-	}
-	id, size, err := sw.Finish()
-	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
-	}
-	if err := s.blobs.Put(ctx, id, sw.f); err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
+		release := s.hold(id)
+		defer release()
+		if err := s.blobs.Put(ctx, id, sw.f); err != nil {
+			return nil, fmt.Errorf("ingest: %w", err)
+		}
+		entry = &FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows}
 	}
 	if testHookBeforeCommit != nil {
 		testHookBeforeCommit()
 	}
-	entry := FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows}
+	return s.commit(ctx, ds, &up, entry, rep, pz.KeyID(), opt)
+}
 
+// removing reports whether opt allows an upload without rows: a
+// replacement of named sites' window, which then only removes.
+func removing(opt IngestOptions) bool { return opt.Mode == ModeReplaceWindow && len(opt.Sites) > 0 }
+
+func isNoRows(err error) bool {
+	fe, ok := schema.AsFileError(err)
+	return ok && (fe.Rule == schema.RuleNoRows || fe.Rule == schema.RuleEmptyFile)
+}
+
+// commit makes the new version from the latest one, under the dataset's
+// commit lock so that the plan (which may rewrite files) and the
+// transaction see the same parent.
+func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, rep *quality.Report, keyID string, opt IngestOptions) (*IngestResult, error) {
+	unlock := s.lockDataset(ds.Ref())
+	defer unlock()
+	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
+	if errors.Is(err, ErrNotFound) {
+		parent = nil
+	} else if err != nil {
+		return nil, err
+	}
+	plan, err := s.planFiles(ctx, parent, entry, keyID, opt)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	defer plan.release()
+	if parent != nil && sameFiles(parent.Manifest.Files, plan.files) {
+		return s.duplicate(ds, *up, parent)
+	}
+	if parent == nil && len(plan.files) == 0 {
+		return s.duplicate(ds, *up, nil)
+	}
+	received := up.ReceivedAt
 	var ver *Version
 	err = s.db.Update(func(tx *bolt.Tx) error {
-		// A concurrent upload of the same bytes may have committed first.
-		if k := tx.Bucket(bucketDigests).Get(digestKey(ds.Ref(), up.SHA256)); k != nil {
-			return errDuplicateRace
-		}
 		var cur Dataset
 		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref()), &cur, "dataset "+ds.Ref()); err != nil {
 			return err
 		}
-		nextUpload(&cur, &up)
-		entry.Upload = up.ID
+		if parent != nil && cur.Latest != parent.Number || parent == nil && cur.Latest != 0 {
+			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref(), cur.Latest)
+		}
+		nextUpload(&cur, up)
+		if entry != nil {
+			for i := range plan.files {
+				if plan.files[i].SHA256 == entry.SHA256 && plan.files[i].Upload == "" {
+					plan.files[i].Upload = up.ID
+				}
+			}
+		}
 		m := Manifest{
 			Dataset:       cur.Ref(),
 			Version:       cur.Latest + 1,
 			Parent:        cur.Latest,
+			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed},
 			SchemaVersion: schema.Version,
 			ProfileHash:   cur.ProfileHash,
-			KeyID:         pz.KeyID(),
+			KeyID:         keyID,
 			Quality:       rep,
+			Files:         plan.files,
 			CreatedBy:     opt.By,
 			CreatedAt:     received,
 		}
-		if cur.Latest > 0 {
-			var parent Version
-			if err := getJSON(tx.Bucket(bucketVersions), seqKey(cur.Ref(), cur.Latest), &parent, "parent version"); err != nil {
-				return err
-			}
-			// The same events sent again in other bytes (gzip, other line
-			// ends, ...) make the same Parquet file: nothing new.
-			if _, ok := parent.File(id); ok {
-				return errDuplicateContent
-			}
-			m.Files = append(m.Files, parent.Manifest.Files...)
+		if opt.Mode == ModeReplaceWindow {
+			from, to := opt.From, opt.To
+			m.Lineage.From, m.Lineage.To, m.Lineage.Sites = &from, &to, opt.Sites
+		}
+		if parent != nil && opt.Mode != ModeReplaceAll {
 			m.Uploads = append(m.Uploads, parent.Manifest.Uploads...)
 		}
-		m.Files = append(m.Files, entry)
 		m.Uploads = append(m.Uploads, up.ID)
 		for _, f := range m.Files {
 			m.Rows += f.Rows
@@ -200,6 +309,13 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		v, err := newVersion(m)
 		if err != nil {
 			return err
+		}
+		v.State = StatePublished
+		if cur.Drafts {
+			v.State = StateDraft
+		} else {
+			at := received
+			v.PublishedAt, v.PublishedBy = &at, opt.By
 		}
 		ver = v
 		up.Status = UploadAccepted
@@ -211,36 +327,63 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {
 			return err
 		}
-		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), &up); err != nil {
+		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), up); err != nil {
 			return err
 		}
-		if err := tx.Bucket(bucketDigests).Put(digestKey(cur.Ref(), up.SHA256), binary.BigEndian.AppendUint32(nil, uint32(v.Number))); err != nil {
-			return err
+		if up.Mode == ModeAppend {
+			if err := tx.Bucket(bucketDigests).Put(digestKey(cur.Ref(), up.SHA256), binary.BigEndian.AppendUint32(nil, uint32(v.Number))); err != nil {
+				return err
+			}
 		}
-		return audit(tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d", cur.Ref(), v.Number))
+		return audit(tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref(), v.Number, opt.Mode))
 	})
-	if errors.Is(err, errDuplicateContent) {
-		v, err := s.Version(ctx, ds.Project, ds.Name, 0)
-		if err != nil {
-			return nil, err
-		}
-		return s.duplicate(ds, up, v)
-	}
-	if errors.Is(err, errDuplicateRace) {
-		v, err := s.versionByDigest(ds.Ref(), up.SHA256)
-		if err != nil {
-			return nil, err
-		}
-		return s.duplicate(ds, up, v)
-	}
 	if err != nil {
-		// The blob stays, unreferenced, for garbage collection.
-		s.opt.Logger.Error("commit failed; the new file is unreferenced", "dataset", ds.Ref(), "file", id.String(), "err", err)
+		// New blobs stay, unreferenced, for garbage collection.
+		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref(), "err", err)
 		return nil, fmt.Errorf("ingest: commit: %w", err)
 	}
-	s.opt.Logger.Info("version created", "dataset", ds.Ref(), "version", ver.Number, "upload", up.ID,
-		"rows", entry.Rows, "rejected", rep.Rows.Rejected, "score", rep.Score, "file", id.String())
-	return &IngestResult{Upload: up, Version: ver}, nil
+	s.opt.Logger.Info("version created", "dataset", ds.Ref(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
+		"rows", ver.Manifest.Rows, "rows_removed", plan.removed, "rejected", rep.Rows.Rejected, "score", rep.Score)
+	return &IngestResult{Upload: *up, Version: ver}, nil
+}
+
+func sameFiles(a, b []FileEntry) bool {
+	if len(a) != len(b) {
+		return false
+	}
+	ids := make(map[blob.ID]int, len(a))
+	for _, f := range a {
+		ids[f.SHA256]++
+	}
+	for _, f := range b {
+		if ids[f.SHA256] == 0 {
+			return false
+		}
+		ids[f.SHA256]--
+	}
+	return true
+}
+
+// appendedBefore returns the version that identical bytes made, provided
+// the latest version still holds the file they made; otherwise ErrNotFound.
+func (s *Store) appendedBefore(ctx context.Context, ds *Dataset, hexDigest string) (*Version, error) {
+	v, err := s.versionByDigest(ds.Ref(), hexDigest)
+	if err != nil {
+		return nil, err
+	}
+	latest, err := s.Version(ctx, ds.Project, ds.Name, 0)
+	if err != nil {
+		return nil, err
+	}
+	for _, f := range v.Manifest.Files {
+		if f.Upload == v.Manifest.Lineage.Upload || v.Manifest.Lineage.Upload == "" && f.Upload == v.Manifest.Uploads[len(v.Manifest.Uploads)-1] {
+			if _, ok := latest.File(f.SHA256); ok {
+				return v, nil
+			}
+			return nil, ErrNotFound
+		}
+	}
+	return nil, ErrNotFound
 }
 
 // readAll reads every row of rd: rejections go to acc, accepted events are
@@ -292,15 +435,19 @@ func mappedFields(p *schema.Profile) []schema.Field {
 // crash tests end the process there.
 var testHookBeforeCommit func()
 
-var (
-	errDuplicateRace    = errors.New("duplicate committed concurrently")
-	errDuplicateContent = errors.New("the latest version holds this file already")
-)
-
+// duplicate records an upload that changes nothing; v is the version that
+// already holds its events (nil when an empty replacement met an empty
+// dataset).
 func (s *Store) duplicate(ds *Dataset, up Upload, v *Version) (*IngestResult, error) {
 	up.Status = UploadDuplicate
-	up.Version = v.Number
 	up.Report = nil
+	if v == nil {
+		if err := s.recordUpload(ds, &up); err != nil {
+			return nil, err
+		}
+		return &IngestResult{Upload: up}, nil
+	}
+	up.Version = v.Number
 	if err := s.recordUpload(ds, &up); err != nil {
 		return nil, err
 	}
@@ -322,7 +469,7 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), up); err != nil {
 			return err
 		}
-		if up.Status == UploadDuplicate && up.SHA256 != "" {
+		if up.Status == UploadDuplicate && up.SHA256 != "" && up.Mode == ModeAppend && up.Version > 0 {
 			// These bytes, too, now answer with that version at once.
 			if err := tx.Bucket(bucketDigests).Put(digestKey(cur.Ref(), up.SHA256), binary.BigEndian.AppendUint32(nil, uint32(up.Version))); err != nil {
 				return err

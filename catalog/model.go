@@ -56,6 +56,7 @@ type Dataset struct {
 	ProfileHash string     `json:"profile_hash"` // schema.Profile.Hash of the effective profile
 	Timezone    string     `json:"timezone"`     // IANA zone for wall-clock times
 	RejectAbove float64    `json:"reject_above"` // an upload with a larger share of invalid rows is rejected whole
+	Drafts      bool       `json:"drafts"`       // new versions start as drafts, to be published by a curator
 	WindowFrom  *time.Time `json:"window_from,omitempty"`
 	WindowTo    *time.Time `json:"window_to,omitempty"`
 	CreatedAt   time.Time  `json:"created_at"`
@@ -92,6 +93,7 @@ type Upload struct {
 	Filename   string          `json:"filename,omitempty"`
 	Bytes      int64           `json:"bytes"`
 	SHA256     string          `json:"sha256,omitempty"` // of the bytes as sent
+	Mode       Mode            `json:"mode"`
 	Status     UploadStatus    `json:"status"`
 	Version    int             `json:"version,omitempty"`
 	Error      *UploadError    `json:"error,omitempty"`
@@ -118,6 +120,49 @@ type FileEntry struct {
 	MinTime  time.Time `json:"min_occurred_at"`
 	MaxTime  time.Time `json:"max_occurred_at"`
 	RowGroup int64     `json:"row_group_rows"`
+	// DerivedFrom names the file this one was rewritten from when a
+	// replace-window upload removed some of its rows.
+	DerivedFrom *blob.ID `json:"derived_from,omitempty"`
+}
+
+// Mode says how an upload's events combine with the dataset's latest
+// version.
+type Mode string
+
+// Upload modes.
+const (
+	// ModeAppend adds the upload's events to those of the latest version.
+	ModeAppend Mode = "append"
+	// ModeReplaceWindow removes the latest version's events of the given
+	// sites inside a time window, then adds the upload's, which must all
+	// lie inside that window and belong to those sites.
+	ModeReplaceWindow Mode = "replace-window"
+	// ModeReplaceAll makes the upload's events the whole new version.
+	ModeReplaceAll Mode = "replace-all"
+)
+
+// ParseMode returns the mode named s; empty means ModeAppend.
+func ParseMode(s string) (Mode, error) {
+	switch m := Mode(s); m {
+	case "":
+		return ModeAppend, nil
+	case ModeAppend, ModeReplaceWindow, ModeReplaceAll:
+		return m, nil
+	}
+	return "", fmt.Errorf("upload mode %q: want append, replace-window or replace-all: %w", s, ErrInvalid)
+}
+
+// Lineage says how a version came from its parent.
+type Lineage struct {
+	Mode   Mode   `json:"mode"`
+	Upload string `json:"upload"` // the upload that made this version
+	// For ModeReplaceWindow: the half-open window [From, To) and the sites
+	// whose events in it were replaced.
+	From  *time.Time `json:"from,omitempty"`
+	To    *time.Time `json:"to,omitempty"`
+	Sites []string   `json:"sites,omitempty"`
+	// RowsRemoved counts the parent's rows the upload replaced.
+	RowsRemoved int64 `json:"rows_removed"`
 }
 
 // Manifest describes a version completely: its files and how they came to
@@ -126,6 +171,7 @@ type Manifest struct {
 	Dataset       string          `json:"dataset"`
 	Version       int             `json:"version"`
 	Parent        int             `json:"parent,omitempty"`
+	Lineage       Lineage         `json:"lineage"`
 	SchemaVersion string          `json:"schema_version"`
 	ProfileHash   string          `json:"profile_hash"`
 	KeyID         string          `json:"pseudonym_key_id"`
@@ -150,11 +196,39 @@ func (m *Manifest) Canonical() ([]byte, error) {
 	return b, nil
 }
 
-// Version is one immutable state of a dataset.
+// State is where a version stands in curation. It is not part of the
+// manifest: publishing or retracting a version does not change its bytes
+// or its snapshot id.
+type State string
+
+// Version states.
+const (
+	StateDraft     State = "draft"     // visible to curators and the dataset's partners only
+	StatePublished State = "published" // visible to every member of the project
+	StateRetracted State = "retracted" // metadata and citation stay readable; downloads answer 410
+)
+
+// Version is one immutable state of a dataset, with its curation state.
 type Version struct {
 	Number     int      `json:"version"`
 	SnapshotID string   `json:"snapshot_id"` // hex SHA-256 of the manifest's canonical JSON
 	Manifest   Manifest `json:"manifest"`
+
+	State         State      `json:"state"`
+	PublishedAt   *time.Time `json:"published_at,omitempty"`
+	PublishedBy   string     `json:"published_by,omitempty"`
+	RetractedAt   *time.Time `json:"retracted_at,omitempty"`
+	RetractedBy   string     `json:"retracted_by,omitempty"`
+	RetractReason string     `json:"retract_reason,omitempty"`
+}
+
+// CurrentAt reports whether v was the published version in force at t:
+// published at or before t and not yet retracted.
+func (v *Version) CurrentAt(t time.Time) bool {
+	if v.PublishedAt == nil || v.PublishedAt.After(t) {
+		return false
+	}
+	return v.RetractedAt == nil || v.RetractedAt.After(t)
 }
 
 func newVersion(m Manifest) (*Version, error) {

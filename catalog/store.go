@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"log/slog"
 	"os"
+	"sync"
 	"time"
 
 	bolt "go.etcd.io/bbolt"
@@ -53,6 +54,10 @@ type Store struct {
 	db    *bolt.DB
 	blobs blob.Store
 	opt   Options
+
+	mu      sync.Mutex
+	commits map[string]*sync.Mutex // per dataset: plan and commit of a version
+	pending map[blob.ID]int        // blobs put but not yet committed; the collector keeps them
 }
 
 // Open opens (creating if needed) the bbolt file at path. It fails with
@@ -105,7 +110,7 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		db.Close()
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
-	return &Store{db: db, blobs: blobs, opt: opt}, nil
+	return &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{}}, nil
 }
 
 // Close closes the metadata file.
@@ -173,6 +178,7 @@ type DatasetSpec struct {
 	RejectAbove *float64   // nil means DefaultRejectAbove
 	WindowFrom  *time.Time // optional declared window of the data
 	WindowTo    *time.Time
+	Drafts      bool // new versions start as drafts
 }
 
 // CreateDataset validates the spec (names, profile, zone, threshold) and
@@ -200,7 +206,7 @@ func (s *Store) CreateDataset(ctx context.Context, spec DatasetSpec, by string) 
 	d := &Dataset{
 		Project: spec.Project, Name: spec.Name, Title: spec.Title,
 		Profile: string(spec.Profile), ProfileHash: prof.Hash(), Timezone: prof.Location().String(),
-		RejectAbove: reject, WindowFrom: utcPtr(spec.WindowFrom), WindowTo: utcPtr(spec.WindowTo),
+		RejectAbove: reject, Drafts: spec.Drafts, WindowFrom: utcPtr(spec.WindowFrom), WindowTo: utcPtr(spec.WindowTo),
 		CreatedAt: s.opt.Now().UTC(), CreatedBy: by,
 	}
 	err = s.db.Update(func(tx *bolt.Tx) error {

@@ -1,0 +1,138 @@
+package catalog
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
+)
+
+// DefaultGCGrace is how old an unreferenced blob must be before the
+// collector deletes it, unless GCOptions says otherwise.
+const DefaultGCGrace = time.Hour
+
+// GCOptions tune CollectGarbage.
+type GCOptions struct {
+	// DryRun lists what would be deleted and deletes nothing.
+	DryRun bool
+	// Grace spares unreferenced blobs modified less than this long ago.
+	// Blobs of uploads in progress in this process are always spared; the
+	// grace also covers another writer sharing the blob store. Zero means
+	// DefaultGCGrace; a negative value means no grace.
+	Grace time.Duration
+}
+
+// GCResult says what a collection found and did.
+type GCResult struct {
+	Blobs        int       `json:"blobs"`         // blobs in the store
+	Referenced   int       `json:"referenced"`    // blobs some version lists
+	Pending      int       `json:"pending"`       // unreferenced but held by an upload in progress
+	Young        int       `json:"young"`         // unreferenced but within the grace period
+	Deleted      []blob.ID `json:"deleted"`       // deleted (or, in a dry run, to be deleted)
+	DeletedBytes int64     `json:"deleted_bytes"` // their total size
+	DryRun       bool      `json:"dry_run"`
+}
+
+// CollectGarbage deletes the blobs no version of any dataset references:
+// files left by a crash or a failed commit between the blob and the
+// version. Every version, retracted ones included, keeps its files.
+//
+// Safety against a concurrent upload: an upload holds each blob it makes
+// from before the put until after the version that lists it is committed.
+// The collector decides and deletes while no hold can be taken or released,
+// against the referenced set read at that moment; see the comment inside.
+func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*GCResult, error) {
+	grace := opt.Grace
+	if grace == 0 {
+		grace = DefaultGCGrace
+	}
+	res := &GCResult{DryRun: opt.DryRun, Deleted: []blob.ID{}}
+	var all []blob.Info
+	err := s.blobs.List(ctx, func(info blob.Info) error {
+		all = append(all, info)
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("gc: %w", err)
+	}
+	res.Blobs = len(all)
+	if testHookGCBetween != nil {
+		testHookGCBetween()
+	}
+	// The decision is made holding s.mu, so no upload can take or release
+	// a hold meanwhile: a blob not held now is either not yet put by its
+	// upload (which then puts it again after a delete) or committed, and
+	// so in the referenced set read now.
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	refs, err := s.referenced()
+	if err != nil {
+		return nil, err
+	}
+	now := s.opt.Now()
+	var doomed []blob.Info
+	for _, info := range all {
+		switch {
+		case refs[info.ID]:
+			res.Referenced++
+		case s.pending[info.ID] > 0:
+			res.Pending++
+		case grace > 0 && now.Sub(info.ModTime) < grace:
+			res.Young++
+		default:
+			doomed = append(doomed, info)
+		}
+	}
+	for _, info := range doomed {
+		if !opt.DryRun {
+			if err := s.blobs.Delete(ctx, info.ID); err != nil {
+				return res, fmt.Errorf("gc: %w", err)
+			}
+		}
+		res.Deleted = append(res.Deleted, info.ID)
+		res.DeletedBytes += info.Size
+	}
+	if !opt.DryRun && len(doomed) > 0 {
+		err := s.db.Update(func(tx *bolt.Tx) error {
+			return audit(tx, now, by, "gc", fmt.Sprintf("%d blobs, %d bytes", len(doomed), res.DeletedBytes))
+		})
+		if err != nil {
+			return res, err
+		}
+	}
+	s.opt.Logger.Info("garbage collected", "blobs", res.Blobs, "referenced", res.Referenced,
+		"deleted", len(res.Deleted), "bytes", res.DeletedBytes, "dry_run", opt.DryRun)
+	return res, nil
+}
+
+// testHookGCBetween, when set by a test, runs between listing the blobs
+// and deciding which to delete.
+var testHookGCBetween func()
+
+// referenced returns every blob any version's manifest lists.
+func (s *Store) referenced() (map[blob.ID]bool, error) {
+	refs := map[blob.ID]bool{}
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return tx.Bucket(bucketVersions).ForEach(func(k, v []byte) error {
+			var ver struct {
+				Manifest struct {
+					Files []struct {
+						SHA256 blob.ID `json:"sha256"`
+					} `json:"files"`
+				} `json:"manifest"`
+			}
+			if err := json.Unmarshal(v, &ver); err != nil {
+				return fmt.Errorf("gc: version %q: %w", k, err)
+			}
+			for _, f := range ver.Manifest.Files {
+				refs[f.SHA256] = true
+			}
+			return nil
+		})
+	})
+	return refs, err
+}

@@ -1,0 +1,235 @@
+package catalog
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"slices"
+	"sync"
+	"time"
+
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+// lockDataset serializes the commits of one dataset: a replace-window plan
+// reads the latest version's files, and the version it commits must have
+// that parent.
+func (s *Store) lockDataset(ref string) (unlock func()) {
+	s.mu.Lock()
+	m, ok := s.commits[ref]
+	if !ok {
+		m = new(sync.Mutex)
+		s.commits[ref] = m
+	}
+	s.mu.Unlock()
+	m.Lock()
+	return m.Unlock
+}
+
+// hold marks a blob as about to be referenced, so that the garbage
+// collector keeps it until release is called (after the commit).
+func (s *Store) hold(id blob.ID) (release func()) {
+	s.mu.Lock()
+	s.pending[id]++
+	s.mu.Unlock()
+	return func() {
+		s.mu.Lock()
+		if s.pending[id]--; s.pending[id] <= 0 {
+			delete(s.pending, id)
+		}
+		s.mu.Unlock()
+	}
+}
+
+// filePlan is the file list of the version being made.
+type filePlan struct {
+	files    []FileEntry
+	removed  int64    // rows of the parent a replacement removed
+	releases []func() // holds on rewritten blobs
+}
+
+func (p *filePlan) release() {
+	for _, r := range p.releases {
+		r()
+	}
+}
+
+// planFiles computes the new version's files from the parent's (nil for
+// the first version) and the upload's file (nil when a replacement only
+// removes), by mode.
+func (s *Store) planFiles(ctx context.Context, parent *Version, entry *FileEntry, keyID string, opt IngestOptions) (*filePlan, error) {
+	p := &filePlan{}
+	var base []FileEntry
+	if parent != nil {
+		base = parent.Manifest.Files
+	}
+	switch opt.Mode {
+	case ModeReplaceAll:
+		base = nil
+		if parent != nil {
+			p.removed = parent.Manifest.Rows
+		}
+	case ModeReplaceWindow:
+		kept, err := s.cutWindow(ctx, p, base, keyID, opt)
+		if err != nil {
+			return nil, err
+		}
+		base = kept
+	}
+	p.files = slices.Clone(base)
+	if entry != nil {
+		if !slices.ContainsFunc(p.files, func(f FileEntry) bool { return f.SHA256 == entry.SHA256 }) {
+			p.files = append(p.files, *entry)
+		}
+	}
+	return p, nil
+}
+
+// cutWindow returns base with the rows of opt.Sites inside [opt.From,
+// opt.To) removed: files that cannot hold such rows are kept as they are;
+// the others are read and, when they do, rewritten without them (or dropped
+// when nothing is left). This is the only place ingest reads stored files.
+func (s *Store) cutWindow(ctx context.Context, p *filePlan, base []FileEntry, keyID string, opt IngestOptions) ([]FileEntry, error) {
+	from, to := opt.From.UnixMicro(), opt.To.UnixMicro()
+	var out []FileEntry
+	for _, f := range base {
+		if f.MaxTime.UnixMicro() < from || f.MinTime.UnixMicro() >= to {
+			out = append(out, f)
+			continue
+		}
+		nf, removed, err := s.rewriteWithout(ctx, f, keyID, func(e *schema.Event) bool {
+			at := e.OccurredAt.UnixMicro()
+			return at >= from && at < to && slices.Contains(opt.Sites, e.Site)
+		}, p)
+		if err != nil {
+			return nil, err
+		}
+		p.removed += removed
+		if nf != nil {
+			out = append(out, *nf)
+		}
+	}
+	return out, nil
+}
+
+// rewriteWithout copies file f without the rows drop selects. It returns f
+// itself when drop selects none, and nil when it selects all.
+func (s *Store) rewriteWithout(ctx context.Context, f FileEntry, keyID string, drop func(*schema.Event) bool, p *filePlan) (*FileEntry, int64, error) {
+	r, err := s.blobs.Open(ctx, f.SHA256)
+	if err != nil {
+		return nil, 0, fmt.Errorf("replace-window: %w", err)
+	}
+	defer r.Close()
+	var removed int64
+	err = ReadSnapshot(r, r.Size(), func(e *schema.Event) error {
+		if drop(e) {
+			removed++
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, 0, fmt.Errorf("replace-window: file %s: %w", f.SHA256, err)
+	}
+	switch removed {
+	case 0:
+		return &f, 0, nil
+	case f.Rows:
+		return nil, removed, nil
+	}
+	sw, err := newSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID)
+	if err != nil {
+		return nil, 0, err
+	}
+	defer sw.Remove()
+	err = ReadSnapshot(r, r.Size(), func(e *schema.Event) error {
+		if drop(e) {
+			return nil
+		}
+		return sw.Write(e)
+	})
+	if err != nil {
+		return nil, 0, fmt.Errorf("replace-window: file %s: %w", f.SHA256, err)
+	}
+	id, size, err := sw.Finish()
+	if err != nil {
+		return nil, 0, err
+	}
+	p.releases = append(p.releases, s.hold(id))
+	if err := s.blobs.Put(ctx, id, sw.f); err != nil {
+		return nil, 0, fmt.Errorf("replace-window: %w", err)
+	}
+	from := f.SHA256
+	return &FileEntry{
+		SHA256: id, Bytes: size, Rows: sw.rows, Upload: f.Upload,
+		MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows, DerivedFrom: &from,
+	}, removed, nil
+}
+
+// windowCheck finds the events of a replace-window upload that fall
+// outside its window or belong to a site it does not replace, and gathers
+// the sites it holds.
+type windowCheck struct {
+	on        bool
+	from, to  int64
+	sites     []string // given; nil means any
+	seen      []string
+	outside   int64
+	firstLine int64
+	firstWhy  string
+	firstCol  schema.Field
+}
+
+func newWindowCheck(opt IngestOptions) *windowCheck {
+	w := &windowCheck{on: opt.Mode == ModeReplaceWindow, sites: opt.Sites}
+	if w.on {
+		w.from, w.to = opt.From.UnixMicro(), opt.To.UnixMicro()
+	}
+	return w
+}
+
+func (w *windowCheck) observe(e *schema.Event) {
+	if !w.on {
+		return
+	}
+	why := ""
+	if at := e.OccurredAt.UnixMicro(); at < w.from || at >= w.to {
+		why = fmt.Sprintf("occurred_at %s lies outside the replaced window", e.OccurredAt.UTC().Format(time.RFC3339Nano))
+	}
+	col := schema.FieldOccurredAt
+	if why == "" && w.sites != nil && !slices.Contains(w.sites, e.Site) {
+		why, col = fmt.Sprintf("site %q is not among the replaced sites", truncate(e.Site, 40)), schema.FieldSite
+	}
+	if why != "" {
+		w.outside++
+		if w.firstLine == 0 || e.Line < w.firstLine {
+			w.firstLine, w.firstWhy, w.firstCol = e.Line, why, col
+		}
+		return
+	}
+	if w.sites == nil && !slices.Contains(w.seen, e.Site) {
+		w.seen = append(w.seen, e.Site)
+	}
+}
+
+func (w *windowCheck) uploadError() *UploadError {
+	msg := w.firstWhy
+	if w.outside > 1 {
+		msg += fmt.Sprintf(" (%d events in all)", w.outside)
+	}
+	return &UploadError{Rule: RuleOutsideWindow, Line: w.firstLine, Column: string(w.firstCol), Message: msg}
+}
+
+func (w *windowCheck) siteList() []string {
+	out := slices.Clone(w.seen)
+	slices.Sort(out)
+	return out
+}
+
+func truncate(s string, n int) string {
+	b := []byte(s)
+	if len(b) <= n {
+		return s
+	}
+	return string(bytes.ToValidUTF8(b[:n], nil)) + "…"
+}
