@@ -283,7 +283,7 @@ func TestSelectorsAndStates(t *testing.T) {
 		{testNow.Add(5*24*time.Hour - time.Second).Format(time.RFC3339), false, 0}, // before any publication
 		{testNow.Add(5 * 24 * time.Hour).Format(time.RFC3339), false, 1},
 		{testNow.Add(6*24*time.Hour + time.Hour).Format(time.RFC3339), false, 2}, // 2 was current then
-		{testNow.Add(8 * 24 * time.Hour).Format(time.RFC3339Nano), false, 1},   // after the retraction
+		{testNow.Add(8 * 24 * time.Hour).Format(time.RFC3339Nano), false, 1},     // after the retraction
 	} {
 		v, err := e.s.Resolve(ctx, "lab", "flow", sel(tc.sel), tc.drafts)
 		switch {

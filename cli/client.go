@@ -11,6 +11,8 @@ import (
 	"strconv"
 	"strings"
 	"time"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
 )
 
 // client talks to a flowcat server.
@@ -127,16 +129,16 @@ func (c *client) postJSON(ctx context.Context, path string, in, out any) error {
 	return json.NewDecoder(resp.Body).Decode(out)
 }
 
-// ref is a parsed P/D[@N] argument; Version 0 means latest.
+// ref is a parsed P/D[@SELECTOR] argument; an empty Selector means latest.
 type ref struct {
 	Project, Dataset string
-	Version          int
+	Selector         string // as written after '@': N, latest, a snapshot prefix or an RFC 3339 instant
 }
 
 func (r ref) String() string {
 	s := r.Project + "/" + r.Dataset
-	if r.Version > 0 {
-		s += "@" + strconv.Itoa(r.Version)
+	if r.Selector != "" {
+		s += "@" + r.Selector
 	}
 	return s
 }
@@ -146,33 +148,41 @@ func (r ref) path() string {
 }
 
 func (r ref) versionPath() string {
-	v := "latest"
-	if r.Version > 0 {
-		v = strconv.Itoa(r.Version)
+	v := r.Selector
+	if v == "" {
+		v = "latest"
 	}
-	return r.path() + "/versions/" + v
+	return r.path() + "/versions/" + url.PathEscape(v)
 }
 
-// parseRef parses P/D, and P/D@N or P/D@latest when withVersion.
+// at returns r pinned to version number n.
+func (r ref) at(n int) ref {
+	r.Selector = strconv.Itoa(n)
+	return r
+}
+
+// parseRef parses P/D, and P/D@SELECTOR when withVersion: a version
+// number, latest, a snapshot id prefix or an RFC 3339 instant.
 func parseRef(s string, withVersion bool) (ref, error) {
 	var r ref
-	body, ver, hasVer := strings.Cut(s, "@")
-	p, d, ok := strings.Cut(body, "/")
-	if !ok || p == "" || d == "" || strings.Contains(d, "/") {
-		return r, usageErr("%q: want PROJECT/DATASET%s", s, map[bool]string{true: "[@VERSION]", false: ""}[withVersion])
+	body, _, hasVer := strings.Cut(s, "@")
+	if hasVer && !withVersion {
+		return r, usageErr("%q: no @VERSION here", s)
+	}
+	p, d, sel, err := catalog.SplitRef(s)
+	if err != nil {
+		want := "PROJECT/DATASET"
+		if withVersion {
+			want += "[@VERSION], where VERSION is a number, latest, a snapshot id prefix or an RFC 3339 instant"
+		}
+		if strings.Contains(body, "/") && hasVer {
+			return r, usageErr("%q: %v", s, strings.TrimSuffix(err.Error(), ": "+catalog.ErrInvalid.Error()))
+		}
+		return r, usageErr("%q: want %s", s, want)
 	}
 	r.Project, r.Dataset = p, d
 	if hasVer {
-		if !withVersion {
-			return r, usageErr("%q: no @VERSION here", s)
-		}
-		if ver != "latest" {
-			n, err := strconv.Atoi(ver)
-			if err != nil || n < 1 {
-				return r, usageErr("%q: version must be a number from 1, or latest", s)
-			}
-			r.Version = n
-		}
+		r.Selector = sel.String()
 	}
 	return r, nil
 }

@@ -15,6 +15,7 @@ func newDatasetCmd(e *env) *cobra.Command {
 	c := &cobra.Command{Use: "dataset", Short: "Create and list datasets"}
 	var profile, zone, title, from, to string
 	var rejectAbove float64
+	var drafts bool
 	create := &cobra.Command{
 		Use:   "create PROJECT/DATASET [--profile FILE] [--timezone ZONE]",
 		Short: "Create a dataset with its mapping profile (curator)",
@@ -24,7 +25,7 @@ func newDatasetCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
-			req := map[string]any{"name": r.Dataset, "title": title, "timezone": zone}
+			req := map[string]any{"name": r.Dataset, "title": title, "timezone": zone, "drafts": drafts}
 			if profile != "" {
 				b, err := os.ReadFile(profile)
 				if err != nil {
@@ -56,7 +57,11 @@ func newDatasetCmd(e *env) *cobra.Command {
 			if e.json {
 				return writeJSON(e.stdout, d)
 			}
-			fmt.Fprintf(e.stdout, "created dataset %s (zone %s, rejects uploads with more than %.1f%% invalid rows)\n", d.Ref(), d.Timezone, 100*d.RejectAbove)
+			fmt.Fprintf(e.stdout, "created dataset %s (zone %s, rejects uploads with more than %.1f%% invalid rows", d.Ref(), d.Timezone, 100*d.RejectAbove)
+			if d.Drafts {
+				fmt.Fprint(e.stdout, "; new versions are drafts until published")
+			}
+			fmt.Fprintln(e.stdout, ")")
 			return nil
 		},
 	}
@@ -65,6 +70,7 @@ func newDatasetCmd(e *env) *cobra.Command {
 	f.StringVar(&zone, "timezone", "", "IANA zone for wall-clock times without offset (overrides the profile's)")
 	f.StringVar(&title, "title", "", "human-readable title")
 	f.Float64Var(&rejectAbove, "reject-above", catalog.DefaultRejectAbove, "reject an upload whose share of invalid rows is above this (0-1)")
+	f.BoolVar(&drafts, "drafts", false, "new versions start as drafts, seen by curators only until published (flowcat publish)")
 	f.StringVar(&from, "window-from", "", "declared start of the data (RFC 3339); earlier events are flagged")
 	f.StringVar(&to, "window-to", "", "declared end of the data (RFC 3339); later events are flagged")
 

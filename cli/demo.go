@@ -7,6 +7,7 @@ import (
 	"io"
 	"io/fs"
 	"log/slog"
+	"net/url"
 	"os"
 	"os/signal"
 	"syscall"
@@ -124,9 +125,9 @@ func demoTokens(run *running) (demoTokenSet, error) {
 
 // seedDemo creates the project and datasets as the curator would and sends
 // every night's export as the partner would, through the HTTP API.
-func (e *env) seedDemo(cmd *cobra.Command, url string, t demoTokenSet, days int, seed uint64) error {
+func (e *env) seedDemo(cmd *cobra.Command, base string, t demoTokenSet, days int, seed uint64) error {
 	ctx := cmd.Context()
-	admin := &env{stdout: io.Discard, stderr: e.stderr, server: url, token: t.admin, quiet: true}
+	admin := &env{stdout: io.Discard, stderr: e.stderr, server: base, token: t.admin, quiet: true}
 	cl, err := admin.client()
 	if err != nil {
 		return err
@@ -138,7 +139,7 @@ func (e *env) seedDemo(cmd *cobra.Command, url string, t demoTokenSet, days int,
 	today := time.Now().UTC().Truncate(24 * time.Hour)
 	first := today.AddDate(0, 0, -days)
 	sc := synth.QuillonBay(seed, first, days)
-	cur := &env{stdout: io.Discard, stderr: e.stderr, server: url, token: t.curator, quiet: true}
+	cur := &env{stdout: io.Discard, stderr: e.stderr, server: base, token: t.curator, quiet: true}
 	ccl, _ := cur.client()
 	for _, d := range demoDatasets {
 		req := map[string]any{"name": d.dataset, "title": d.title, "profile": string(sc.Profile(d.site))}
@@ -146,9 +147,9 @@ func (e *env) seedDemo(cmd *cobra.Command, url string, t demoTokenSet, days int,
 			return fmt.Errorf("demo: creating %s: %w", d.dataset, err)
 		}
 	}
-	part := &env{stdout: io.Discard, stderr: io.Discard, server: url, token: t.partner, quiet: true}
+	part := &env{stdout: io.Discard, stderr: io.Discard, server: base, token: t.partner, quiet: true}
 	pcl, _ := part.client()
-	fmt.Fprintf(e.stdout, "nightly uploads through %s/api/v1:\n", url)
+	fmt.Fprintf(e.stdout, "nightly uploads through %s/api/v1:\n", base)
 	for day := 0; day < days; day++ {
 		for _, d := range demoDatasets {
 			var buf bytes.Buffer
@@ -158,7 +159,7 @@ func (e *env) seedDemo(cmd *cobra.Command, url string, t demoTokenSet, days int,
 			}
 			name := fmt.Sprintf("%s-%s.%s", d.site, first.AddDate(0, 0, day).Format("2006-01-02"), d.ext)
 			r := ref{Project: demoProject, Dataset: d.dataset}
-			ans, err := part.uploadFile(cmd, pcl, r, &buf, name, int64(buf.Len()))
+			ans, err := part.uploadFile(cmd, pcl, r, &buf, url.Values{"filename": {name}}, int64(buf.Len()))
 			if err != nil {
 				if errors.Is(err, errSilent) {
 					fmt.Fprintf(e.stdout, "  %-34s %5d events: rejected\n", name, st.Events)

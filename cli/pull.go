@@ -43,27 +43,60 @@ type lockedFS struct {
 }
 
 func newPullCmd(e *env) *cobra.Command {
-	var out string
+	var out, lockPath string
 	c := &cobra.Command{
-		Use:   "pull PROJECT/DATASET[@N] -o DIR",
+		Use:   "pull PROJECT/DATASET[@VERSION] -o DIR | pull --lock FILE -o DIR",
 		Short: "Download a version, verify every sha256 and write a lock file",
 		Long: `Pull downloads a version's manifest and Parquet files into DIR, checks each file's
 sha256 and the manifest's hash (the snapshot id), and writes DIR/flowcat.lock naming the server,
-dataset, version and snapshot id. An interrupted pull resumes where it stopped.`,
-		Args: cobra.ExactArgs(1),
+dataset, version, snapshot id and every file's sha256. An interrupted pull resumes where it stopped.
+
+VERSION is a number, latest (the default: the newest published version), a snapshot id prefix
+of 8 or more hex digits, or an RFC 3339 instant (the version published and in force then).
+
+With --lock FILE, pull reproduces a lock file written elsewhere: the same server (taken from the
+lock unless --server or FLOWCAT_SERVER names one, which must then be the lock's), the same version
+and exactly the same bytes; it fails, keeping nothing new, when the server's snapshot id or any
+file's sha256 differs from the lock.`,
+		Args: cobra.MaximumNArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], true)
-			if err != nil {
-				return err
-			}
 			if out == "" {
 				return usageErr("pull: -o DIR is required")
+			}
+			var (
+				r    ref
+				want *lockFile
+			)
+			switch {
+			case lockPath != "" && len(args) > 0:
+				return usageErr("pull: give a dataset or --lock, not both")
+			case lockPath != "":
+				l, err := readLockFile(lockPath)
+				if err != nil {
+					return err
+				}
+				if err := e.useLockServer(l); err != nil {
+					return err
+				}
+				want = l
+				r, err = parseRef(l.Dataset, false)
+				if err != nil {
+					return fmt.Errorf("%s: dataset %q: %w", lockPath, l.Dataset, err)
+				}
+				r = r.at(l.Version)
+			case len(args) == 1:
+				var err error
+				if r, err = parseRef(args[0], true); err != nil {
+					return err
+				}
+			default:
+				return usageErr("pull: give PROJECT/DATASET[@VERSION] or --lock FILE")
 			}
 			cl, err := e.client()
 			if err != nil {
 				return err
 			}
-			lock, err := e.pull(cmd, cl, r, out)
+			lock, err := e.pull(cmd, cl, r, out, want)
 			if err != nil {
 				return err
 			}
@@ -74,20 +107,59 @@ dataset, version and snapshot id. An interrupted pull resumes where it stopped.`
 			for _, f := range lock.Files {
 				rows += f.Rows
 			}
-			fmt.Fprintf(e.stdout, "pulled %s@%d into %s: %d files, %d rows, all sha256 verified\nsnapshot %s\n",
-				lock.Dataset, lock.Version, out, len(lock.Files), rows, lock.SnapshotID)
+			how := "all sha256 verified"
+			if want != nil {
+				how = "identical to " + lockPath
+			}
+			fmt.Fprintf(e.stdout, "pulled %s@%d into %s: %d files, %d rows, %s\nsnapshot %s\n",
+				lock.Dataset, lock.Version, out, len(lock.Files), rows, how, lock.SnapshotID)
 			return nil
 		},
 	}
 	c.Flags().StringVarP(&out, "output", "o", "", "directory to write into")
+	c.Flags().StringVar(&lockPath, "lock", "", "reproduce the version and bytes pinned by this lock file")
 	return c
 }
 
-func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string) (*lockFile, error) {
+// useLockServer makes the lock's server the one to talk to, unless one is
+// configured already, which must then be the lock's.
+func (e *env) useLockServer(l *lockFile) error {
+	if e.server == "" {
+		e.server = os.Getenv("FLOWCAT_SERVER")
+	}
+	if e.server == "" {
+		e.server = l.Server
+		return nil
+	}
+	if normServer(e.server) != normServer(l.Server) {
+		return usageErr("the lock file is for server %s, but this pull talks to %s: pass --server %s", l.Server, e.server, l.Server)
+	}
+	return nil
+}
+
+func normServer(s string) string { return strings.ToLower(strings.TrimRight(s, "/")) }
+
+// errLockMismatch is a pull --lock whose server bytes differ from the lock.
+func lockMismatch(format string, args ...any) error {
+	return &exitError{code: ExitRejected, err: fmt.Errorf("pull --lock: "+format, args...)}
+}
+
+// pull downloads version r into out. With want (a lock file), the
+// version must have want's snapshot id and files, checked before any file
+// is written.
+func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lockFile) (*lockFile, error) {
 	ctx := cmd.Context()
 	var v catalog.Version
 	if err := cl.getJSON(ctx, r.versionPath(), &v); err != nil {
 		return nil, err
+	}
+	if want != nil {
+		if v.SnapshotID != want.SnapshotID {
+			return nil, lockMismatch("%s@%d on %s has snapshot id %s, the lock says %s: the server's version differs", want.Dataset, want.Version, want.Server, v.SnapshotID, want.SnapshotID)
+		}
+		if err := matchLockFiles(want, v.Manifest.Files); err != nil {
+			return nil, err
+		}
 	}
 	resp, err := cl.do(ctx, http.MethodGet, r.path()+fmt.Sprintf("/versions/%d/manifest", v.Number), nil, nil, nil)
 	if err != nil {
@@ -227,6 +299,32 @@ func writeFileAtomic(path string, data []byte) error {
 		return err
 	}
 	return os.Rename(tmp, path)
+}
+
+// matchLockFiles checks that files are exactly the lock's.
+func matchLockFiles(want *lockFile, files []catalog.FileEntry) error {
+	if len(files) != len(want.Files) {
+		return lockMismatch("the server lists %d files, the lock %d", len(files), len(want.Files))
+	}
+	for i, f := range files {
+		if w := want.Files[i]; w.SHA256 != f.SHA256.String() || w.Bytes != f.Bytes || w.Path != dataPath(f.SHA256.String()) {
+			return lockMismatch("file %d: the server has %s (%d bytes), the lock %s (%d bytes)", i+1, f.SHA256, f.Bytes, w.SHA256, w.Bytes)
+		}
+	}
+	return nil
+}
+
+// readLockFile reads a lock file by its path.
+func readLockFile(path string) (*lockFile, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, usageErr("lock file: %v", err)
+	}
+	var l lockFile
+	if err := json.Unmarshal(b, &l); err != nil || l.LockVersion != 1 || l.Server == "" || l.SnapshotID == "" || l.Version < 1 {
+		return nil, usageErr("%s: not a flowcat lock file (version 1 with server, dataset, version and snapshot id)", path)
+	}
+	return &l, nil
 }
 
 func readLock(dir string) (*lockFile, error) {

@@ -11,6 +11,7 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+	"time"
 
 	"github.com/schollz/progressbar/v3"
 	"github.com/spf13/cobra"
@@ -23,13 +24,60 @@ type uploadAnswer struct {
 	Version *catalog.Version `json:"version,omitempty"`
 }
 
+// uploadFlags are upload's mode options.
+type uploadFlags struct {
+	mode, from, to string
+	sites          []string
+}
+
+// query checks the flags and returns them as upload query parameters.
+func (f *uploadFlags) query(name string) (url.Values, error) {
+	q := url.Values{"filename": {name}}
+	opt := catalog.IngestOptions{Mode: catalog.Mode(f.mode), Sites: f.sites}
+	for _, p := range []struct {
+		flag, v string
+		dst     *time.Time
+	}{{"--from", f.from, &opt.From}, {"--to", f.to, &opt.To}} {
+		if p.v == "" {
+			continue
+		}
+		t, err := time.Parse(time.RFC3339Nano, p.v)
+		if err != nil {
+			return nil, usageErr("upload: %s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", p.flag, p.v)
+		}
+		*p.dst = t
+	}
+	if err := opt.Validate(); err != nil {
+		return nil, usageErr("upload: %s", strings.TrimSuffix(err.Error(), ": "+catalog.ErrInvalid.Error()))
+	}
+	if f.mode != "" {
+		q.Set("mode", f.mode)
+	}
+	if f.from != "" {
+		q.Set("from", f.from)
+		q.Set("to", f.to)
+	}
+	for _, s := range f.sites {
+		q.Add("site", s)
+	}
+	return q, nil
+}
+
 func newUploadCmd(e *env) *cobra.Command {
-	return &cobra.Command{
+	var uf uploadFlags
+	c := &cobra.Command{
 		Use:   "upload PROJECT/DATASET FILE",
 		Short: "Upload one export file (CSV, TSV or JSON Lines, maybe gzip) to a dataset",
 		Long: `Upload streams FILE to the server, which checks it through the dataset's profile,
 pseudonymizes it and, if it passes, makes a new version. Sending the same file again returns the
-version it made the first time. Exit 0: accepted (or a duplicate); 1: rejected, with the reason.`,
+version it made the first time. Exit 0: accepted (or a duplicate); 1: rejected, with the reason.
+
+--mode says how the file's events combine with the latest version:
+  append          add them (the default)
+  replace-window  remove the latest version's events of the file's sites (or --site) between
+                  --from and --to, then add the file's, which must all lie in that window
+  replace-all     the file's events become the whole new version
+Every mode makes a new immutable version whose lineage names its parent, upload and mode.`,
 		Args: cobra.ExactArgs(2),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			r, err := parseRef(args[0], false)
@@ -49,7 +97,11 @@ version it made the first time. Exit 0: accepted (or a duplicate); 1: rejected, 
 			if err != nil {
 				return err
 			}
-			ans, err := e.uploadFile(cmd, cl, r, f, filepath.Base(args[1]), fi.Size())
+			q, err := uf.query(filepath.Base(args[1]))
+			if err != nil {
+				return err
+			}
+			ans, err := e.uploadFile(cmd, cl, r, f, q, fi.Size())
 			if err != nil {
 				return err
 			}
@@ -60,11 +112,17 @@ version it made the first time. Exit 0: accepted (or a duplicate); 1: rejected, 
 			return nil
 		},
 	}
+	c.Flags().StringVar(&uf.mode, "mode", "", "append, replace-window or replace-all (default append)")
+	c.Flags().StringVar(&uf.from, "from", "", "replace-window: start of the window, RFC 3339 (inclusive)")
+	c.Flags().StringVar(&uf.to, "to", "", "replace-window: end of the window, RFC 3339 (exclusive)")
+	c.Flags().StringSliceVar(&uf.sites, "site", nil, "replace-window: a site whose events are replaced (repeatable; default the file's sites)")
+	return c
 }
 
 // uploadFile streams body to the dataset; a rejection comes back as an
 // exit-1 error after the report is printed (or written as JSON).
-func (e *env) uploadFile(cmd *cobra.Command, cl *client, r ref, body io.Reader, name string, size int64) (*uploadAnswer, error) {
+func (e *env) uploadFile(cmd *cobra.Command, cl *client, r ref, body io.Reader, q url.Values, size int64) (*uploadAnswer, error) {
+	name := q.Get("filename")
 	var rd io.Reader = body
 	if e.tty() && !e.quiet && !e.json {
 		bar := progressbar.NewOptions64(size,
@@ -75,7 +133,7 @@ func (e *env) uploadFile(cmd *cobra.Command, cl *client, r ref, body io.Reader, 
 		rd = &pr
 	}
 	hdr := http.Header{"Content-Type": {"application/octet-stream"}, "Content-Length": {strconv.FormatInt(size, 10)}}
-	resp, err := cl.do(cmd.Context(), http.MethodPost, r.path()+"/uploads", url.Values{"filename": {name}}, rd, hdr)
+	resp, err := cl.do(cmd.Context(), http.MethodPost, r.path()+"/uploads", q, rd, hdr)
 	var ae *apiError
 	if errors.As(err, &ae) && len(ae.Upload) > 0 {
 		var up catalog.Upload
@@ -102,10 +160,17 @@ func (e *env) uploadFile(cmd *cobra.Command, cl *client, r ref, body io.Reader, 
 func printUpload(w io.Writer, r ref, a *uploadAnswer) {
 	u := a.Upload
 	if u.Status == catalog.UploadDuplicate {
-		fmt.Fprintf(w, "%s: identical to an earlier upload; it is version %d (nothing new stored)\n", r, u.Version)
+		if u.Version == 0 {
+			fmt.Fprintf(w, "%s: the upload changes nothing and the dataset has no version yet\n", r)
+			return
+		}
+		fmt.Fprintf(w, "%s: identical to what version %d holds already (nothing new stored)\n", r, u.Version)
 		return
 	}
 	v := a.Version
+	if l := v.Manifest.Lineage; l.Mode != catalog.ModeAppend && l.Mode != "" {
+		fmt.Fprintf(w, "%s: %s removed %d rows of version %d\n", r, l.Mode, l.RowsRemoved, v.Manifest.Parent)
+	}
 	fmt.Fprintf(w, "%s@%d created from upload %s: %d rows accepted, %d rejected, quality score %s\n",
 		r, v.Number, u.ID, u.Report.Rows.Accepted, u.Report.Rows.Rejected, score(u.Report.Score))
 	fmt.Fprintf(w, "snapshot %s (%d files, %d rows in all)\n", v.SnapshotID, len(v.Manifest.Files), v.Manifest.Rows)

@@ -1,9 +1,6 @@
 package cli
 
 import (
-	"fmt"
-	"text/tabwriter"
-
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
@@ -19,16 +16,7 @@ func newVersionsCmd(e *env) *cobra.Command {
 			if printed, err := e.fetch(cmd, args[0], false, func(r ref) string { return r.path() + "/versions" }, &vs); printed || err != nil {
 				return err
 			}
-			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
-			fmt.Fprintln(tw, "VERSION\tCREATED\tFILES\tROWS\tSCORE\tSNAPSHOT")
-			for _, v := range vs {
-				sc := "-"
-				if v.Manifest.Quality != nil {
-					sc = score(v.Manifest.Quality.Score)
-				}
-				fmt.Fprintf(tw, "%d\t%s\t%d\t%d\t%s\t%s\n", v.Number, stamp(v.Manifest.CreatedAt), len(v.Manifest.Files), v.Manifest.Rows, sc, v.SnapshotID[:16])
-			}
-			return tw.Flush()
+			return versionsTable(e, vs)
 		},
 	}
 }

@@ -108,6 +108,7 @@ type createDatasetRequest struct {
 	RejectAbove *float64   `json:"reject_above"`
 	WindowFrom  *time.Time `json:"window_from"`
 	WindowTo    *time.Time `json:"window_to"`
+	Drafts      bool       `json:"drafts"`
 }
 
 func (s *Server) createDataset(c echo.Context) error {
@@ -117,12 +118,13 @@ func (s *Server) createDataset(c echo.Context) error {
 		return forbidden("create datasets in project " + project)
 	}
 	var req createDatasetRequest
-	if err := decodeJSON(c, &req, `{"name", "title", "profile", "timezone", "reject_above", "window_from", "window_to"}`); err != nil {
+	if err := decodeJSON(c, &req, `{"name", "title", "profile", "timezone", "reject_above", "window_from", "window_to", "drafts"}`); err != nil {
 		return err
 	}
 	d, err := s.cfg.Store.CreateDataset(c.Request().Context(), catalog.DatasetSpec{
 		Project: project, Name: req.Name, Title: req.Title, Profile: []byte(req.Profile),
 		Timezone: req.Timezone, RejectAbove: req.RejectAbove, WindowFrom: req.WindowFrom, WindowTo: req.WindowTo,
+		Drafts: req.Drafts,
 	}, cl.Subject)
 	if err != nil {
 		return catalogError(err)
@@ -163,15 +165,16 @@ func (s *Server) upload(c echo.Context) error {
 	if err != nil {
 		return err
 	}
+	opt, err := uploadOptions(c)
+	if err != nil {
+		return err
+	}
 	req := c.Request()
 	// The plain ResponseWriter, not echo's wrapper: only net/http's own
 	// writer learns from MaxBytesReader that the rest of the body is to be
 	// dropped, and then closes the connection after the 413.
 	body := http.MaxBytesReader(c.Response().Writer, req.Body, s.cfg.MaxUploadBytes)
-	res, err := s.cfg.Store.Ingest(req.Context(), d.Project, d.Name, body, catalog.IngestOptions{
-		Filename: c.QueryParam("filename"),
-		By:       claims(c).Subject,
-	})
+	res, err := s.cfg.Store.Ingest(req.Context(), d.Project, d.Name, body, opt)
 	var mbe *http.MaxBytesError
 	switch {
 	case errors.As(err, &mbe):
@@ -196,6 +199,34 @@ func (s *Server) upload(c echo.Context) error {
 		status = http.StatusOK
 	}
 	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version})
+}
+
+// uploadOptions reads an upload's query: filename, mode, and for mode
+// replace-window from, to (RFC 3339) and site (repeated or comma-separated).
+// They are checked before the body is read.
+func uploadOptions(c echo.Context) (catalog.IngestOptions, error) {
+	opt := catalog.IngestOptions{Filename: c.QueryParam("filename"), By: claims(c).Subject, Mode: catalog.Mode(c.QueryParam("mode"))}
+	for _, p := range []struct {
+		name string
+		dst  *time.Time
+	}{{"from", &opt.From}, {"to", &opt.To}} {
+		if v := c.QueryParam(p.name); v != "" {
+			t, err := time.Parse(time.RFC3339Nano, v)
+			if err != nil {
+				return opt, fail(http.StatusBadRequest, "invalid", "%s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", p.name, v)
+			}
+			*p.dst = t
+		}
+	}
+	for _, v := range c.QueryParams()["site"] {
+		for _, site := range strings.Split(v, ",") {
+			opt.Sites = append(opt.Sites, strings.TrimSpace(site))
+		}
+	}
+	if err := opt.Validate(); err != nil {
+		return opt, catalogError(err)
+	}
+	return opt, nil
 }
 
 // rejectedDetail names, in a rejected upload's error, why its rows were
@@ -276,26 +307,117 @@ func (s *Server) listVersions(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	if vs == nil {
-		vs = []catalog.Version{}
+	drafts := claims(c).CanCurate(d.Project)
+	out := []catalog.Version{}
+	for _, v := range vs {
+		if v.State != catalog.StateDraft || drafts {
+			out = append(out, v)
+		}
 	}
-	return c.JSON(http.StatusOK, vs)
+	return c.JSON(http.StatusOK, out)
 }
 
+// version resolves the :version selector (a number, latest, a snapshot id
+// prefix or an RFC 3339 instant). Drafts are visible to curators only.
 func (s *Server) version(c echo.Context) (*catalog.Version, error) {
 	d, err := s.dataset(c, readable, "read versions of")
 	if err != nil {
 		return nil, err
 	}
-	n, err := versionParam(c)
+	sel, err := catalog.ParseSelector(c.Param("version"))
 	if err != nil {
-		return nil, err
+		return nil, catalogError(err)
 	}
-	v, err := s.cfg.Store.Version(c.Request().Context(), d.Project, d.Name, n)
+	v, err := s.cfg.Store.Resolve(c.Request().Context(), d.Project, d.Name, sel, claims(c).CanCurate(d.Project))
 	if err != nil {
 		return nil, catalogError(err)
 	}
 	return v, nil
+}
+
+// servable is version v for its data: a retracted version answers 410
+// Gone with the reason, while its metadata stays readable.
+func (s *Server) servable(c echo.Context) (*catalog.Version, error) {
+	v, err := s.version(c)
+	if err != nil {
+		return nil, err
+	}
+	if v.State == catalog.StateRetracted {
+		return nil, fail(http.StatusGone, "retracted", "version %d of %s was retracted on %s: %s; its metadata and citation stay readable",
+			v.Number, v.Manifest.Dataset, v.RetractedAt.Format(time.RFC3339), v.RetractReason)
+	}
+	return v, nil
+}
+
+type retractRequest struct {
+	Reason string `json:"reason"`
+}
+
+// setState publishes or retracts the version named by number.
+func (s *Server) setState(c echo.Context) error {
+	project, name := c.Param("project"), c.Param("dataset")
+	cl := claims(c)
+	action := c.Param("action")
+	if action != "publish" && action != "retract" {
+		return fail(http.StatusNotFound, "not_found", "no action %q: want publish or retract", action)
+	}
+	if !cl.CanCurate(project) {
+		return forbidden(action + " versions of " + project + "/" + name)
+	}
+	sel, err := catalog.ParseSelector(c.Param("version"))
+	if err != nil {
+		return catalogError(err)
+	}
+	if sel.Kind != catalog.SelectNumber {
+		return fail(http.StatusBadRequest, "invalid", "%s names a version by its number, not %q", action, sel)
+	}
+	ctx := c.Request().Context()
+	var v *catalog.Version
+	if action == "publish" {
+		v, err = s.cfg.Store.Publish(ctx, project, name, sel.Number, cl.Subject)
+	} else {
+		var req retractRequest
+		if err := decodeJSON(c, &req, `{"reason"}`); err != nil {
+			return err
+		}
+		v, err = s.cfg.Store.Retract(ctx, project, name, sel.Number, req.Reason, cl.Subject)
+	}
+	if err != nil {
+		return catalogError(err)
+	}
+	return c.JSON(http.StatusOK, v)
+}
+
+type gcRequest struct {
+	DryRun       bool     `json:"dry_run"`
+	GraceSeconds *float64 `json:"grace_seconds"`
+}
+
+// collectGarbage deletes unreferenced blobs; admins only.
+func (s *Server) collectGarbage(c echo.Context) error {
+	cl := claims(c)
+	if cl.Role != RoleAdmin {
+		return forbidden("collect garbage")
+	}
+	var req gcRequest
+	if err := decodeJSON(c, &req, `{"dry_run", "grace_seconds"}`); err != nil {
+		return err
+	}
+	opt := catalog.GCOptions{DryRun: req.DryRun}
+	if g := req.GraceSeconds; g != nil {
+		if !(*g >= 0 && *g <= 365*86400) {
+			return fail(http.StatusBadRequest, "invalid", "grace_seconds %v: want 0 to %d", *g, 365*86400)
+		}
+		opt.Grace = time.Duration(*g * float64(time.Second))
+		if opt.Grace == 0 {
+			opt.Grace = -1
+		}
+	}
+	res, err := s.cfg.Store.CollectGarbage(c.Request().Context(), opt, cl.Subject)
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, res)
 }
 
 func (s *Server) getVersion(c echo.Context) error {
@@ -332,7 +454,7 @@ func (s *Server) getQuality(c echo.Context) error {
 // download streams one Parquet file of a version with Content-Length,
 // ETag (its sha256) and Range support.
 func (s *Server) download(c echo.Context) error {
-	v, err := s.version(c)
+	v, err := s.servable(c)
 	if err != nil {
 		return err
 	}

@@ -8,7 +8,6 @@ import (
 	"fmt"
 	"log/slog"
 	"net/http"
-	"strconv"
 	"strings"
 	"time"
 
@@ -73,6 +72,8 @@ func New(cfg Config) *Server {
 	auth.GET(ds+"/versions/:version/quality", s.getQuality)
 	auth.GET(ds+"/versions/:version/files/:file", s.download)
 	auth.HEAD(ds+"/versions/:version/files/:file", s.download)
+	auth.POST(ds+"/versions/:version/:action", s.setState)
+	auth.POST("/admin/gc", s.collectGarbage)
 	return s
 }
 
@@ -148,6 +149,8 @@ func catalogError(err error) error {
 		return &httpError{body: errorBody{Status: http.StatusNotFound, Code: "not_found", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrExists):
 		return &httpError{body: errorBody{Status: http.StatusConflict, Code: "exists", Message: err.Error()}, err: err}
+	case errors.Is(err, catalog.ErrState):
+		return &httpError{body: errorBody{Status: http.StatusConflict, Code: "state", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrInvalid):
 		return &httpError{body: errorBody{Status: http.StatusBadRequest, Code: "invalid", Message: err.Error()}, err: err}
 	}
@@ -217,17 +220,4 @@ func (s *Server) health(c echo.Context) error {
 
 func (s *Server) schema(c echo.Context) error {
 	return c.Blob(http.StatusOK, "application/schema+json", schema.JSONSchema())
-}
-
-// versionParam parses N or "latest" (0).
-func versionParam(c echo.Context) (int, error) {
-	v := c.Param("version")
-	if v == "latest" {
-		return 0, nil
-	}
-	n, err := strconv.ParseUint(v, 10, 31)
-	if err != nil || n < 1 {
-		return 0, fail(http.StatusBadRequest, "invalid", "version %q: want a number from 1, or latest", v)
-	}
-	return int(n), nil
 }

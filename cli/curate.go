@@ -1,0 +1,147 @@
+package cli
+
+import (
+	"fmt"
+	"text/tabwriter"
+	"time"
+
+	"github.com/spf13/cobra"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
+)
+
+// stateRef parses P/D@N for publish and retract, which name a version by
+// its number only.
+func stateRef(arg, verb string) (ref, error) {
+	r, err := parseRef(arg, true)
+	if err != nil {
+		return r, err
+	}
+	if sel, err := catalog.ParseSelector(r.Selector); err != nil || sel.Kind != catalog.SelectNumber {
+		return r, usageErr("%s: want PROJECT/DATASET@N with the version's number, not %q", verb, arg)
+	}
+	return r, nil
+}
+
+func newPublishCmd(e *env) *cobra.Command {
+	return &cobra.Command{
+		Use:   "publish PROJECT/DATASET@N",
+		Short: "Publish a draft version, so that every member of the project sees it",
+		Args:  cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := stateRef(args[0], "publish")
+			if err != nil {
+				return err
+			}
+			return e.changeState(cmd, r, "publish", nil)
+		},
+	}
+}
+
+func newRetractCmd(e *env) *cobra.Command {
+	var reason string
+	c := &cobra.Command{
+		Use:   "retract PROJECT/DATASET@N --reason TEXT",
+		Short: "Retract a version: its data is no longer served, its metadata and citation stay",
+		Long: `Retract withdraws a version for good: downloads answer 410 Gone with the reason, while its
+manifest, quality report and citation stay readable for audit. Later versions are not changed:
+to remove the data itself from the dataset, upload a replacement (upload --mode).`,
+		Args: cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := stateRef(args[0], "retract")
+			if err != nil {
+				return err
+			}
+			if reason == "" {
+				return usageErr("retract: --reason is required")
+			}
+			return e.changeState(cmd, r, "retract", map[string]string{"reason": reason})
+		},
+	}
+	c.Flags().StringVar(&reason, "reason", "", "why the version is withdrawn (shown with every refused download)")
+	return c
+}
+
+func (e *env) changeState(cmd *cobra.Command, r ref, action string, body any) error {
+	cl, err := e.client()
+	if err != nil {
+		return err
+	}
+	if body == nil {
+		body = struct{}{}
+	}
+	var v catalog.Version
+	if err := cl.postJSON(cmd.Context(), r.versionPath()+"/"+action, body, &v); err != nil {
+		return err
+	}
+	if e.json {
+		return writeJSON(e.stdout, v)
+	}
+	fmt.Fprintf(e.stdout, "%s@%d is %s (snapshot %s)\n", r.Project+"/"+r.Dataset, v.Number, v.State, v.SnapshotID)
+	return nil
+}
+
+func newGCCmd(e *env) *cobra.Command {
+	var dry bool
+	var grace time.Duration
+	c := &cobra.Command{
+		Use:   "gc",
+		Short: "Delete stored files no version references (admin)",
+		Long: `Gc asks the server to delete the Parquet files that no version of any dataset lists: what a
+crash between storing a file and committing its version leaves behind. Files of uploads in progress
+and files younger than --grace are kept; every version, retracted ones too, keeps its files.`,
+		Args: cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, args []string) error {
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			req := map[string]any{"dry_run": dry}
+			if cmd.Flags().Changed("grace") {
+				if grace < 0 {
+					return usageErr("gc: --grace must not be negative")
+				}
+				req["grace_seconds"] = grace.Seconds()
+			}
+			var res catalog.GCResult
+			if err := cl.postJSON(cmd.Context(), "/admin/gc", req, &res); err != nil {
+				return err
+			}
+			if e.json {
+				return writeJSON(e.stdout, res)
+			}
+			verb := "deleted"
+			if res.DryRun {
+				verb = "would delete"
+			}
+			fmt.Fprintf(e.stdout, "%d files stored, %d referenced, %d held by uploads in progress, %d within the grace period; %s %d (%d bytes)\n",
+				res.Blobs, res.Referenced, res.Pending, res.Young, verb, len(res.Deleted), res.DeletedBytes)
+			for _, id := range res.Deleted {
+				fmt.Fprintf(e.stdout, "  %s\n", id)
+			}
+			return nil
+		},
+	}
+	c.Flags().BoolVar(&dry, "dry-run", false, "list what would be deleted, delete nothing")
+	c.Flags().DurationVar(&grace, "grace", catalog.DefaultGCGrace, "keep unreferenced files younger than this")
+	return c
+}
+
+// versionsTable prints versions with their state and lineage.
+func versionsTable(e *env, vs []catalog.Version) error {
+	tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
+	fmt.Fprintln(tw, "VERSION\tSTATE\tCREATED\tMODE\tFILES\tROWS\tSCORE\tSNAPSHOT")
+	for _, v := range vs {
+		sc := "-"
+		if v.Manifest.Quality != nil {
+			sc = score(v.Manifest.Quality.Score)
+		}
+		mode := string(v.Manifest.Lineage.Mode)
+		if mode == "" {
+			mode = "-"
+		}
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%d\t%d\t%s\t%s\n", v.Number, v.State, stamp(v.Manifest.CreatedAt), mode,
+			len(v.Manifest.Files), v.Manifest.Rows, sc, v.SnapshotID[:16])
+	}
+	return tw.Flush()
+}

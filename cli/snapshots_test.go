@@ -1,0 +1,170 @@
+package cli_test
+
+import (
+	"encoding/json"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+)
+
+// TestSnapshotWorkflow drives drafts, publication, selectors, replace
+// modes, pull --lock, retraction and garbage collection through the real
+// command line and a real server on loopback.
+func TestSnapshotWorkflow(t *testing.T) {
+	dir := t.TempDir()
+	data := filepath.Join(dir, "data")
+	t.Setenv("FLOWCAT_MASTER_KEY", "")
+	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
+	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
+		t.Fatalf("init: %s", errs)
+	}
+	_, serveErr, _ := background(t, "serve", "--data", data, "--addr", "127.0.0.1:0")
+	url := waitFor(t, "the server's URL", func() string {
+		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
+			return m[1]
+		}
+		return ""
+	})
+	issue := func(args ...string) string {
+		code, out, errs := run(t, nil, append([]string{"token", "issue", "--data", data}, args...)...)
+		if code != 0 {
+			t.Fatalf("token issue: %s", errs)
+		}
+		return strings.TrimSpace(out)
+	}
+	admin := issue("--role", "admin", "--subject", "ops")
+	curator := issue("--role", "curator", "--subject", "cur", "--project", "flow")
+	member := issue("--role", "member", "--subject", "student", "--project", "flow")
+	as := func(tok string) map[string]string { return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok} }
+	must := func(env map[string]string, args ...string) string {
+		t.Helper()
+		code, out, errs := run(t, env, args...)
+		if code != 0 {
+			t.Fatalf("%v: exit %d: %s%s", args, code, out, errs)
+		}
+		return out
+	}
+	must(as(admin), "project", "create", "flow")
+	out := must(as(curator), "dataset", "create", "flow/visits", "--drafts")
+	if !strings.Contains(out, "drafts until published") {
+		t.Errorf("dataset create: %q", out)
+	}
+	files := t.TempDir()
+	must(as(curator), "upload", "flow/visits", writeFile(t, files, "n1.csv", night(1, "RAW")))
+	must(as(curator), "upload", "flow/visits", writeFile(t, files, "n2.csv", night(2, "RAW")))
+
+	// A member sees no draft: latest does not exist yet, @1 neither.
+	if code, _, errs := run(t, as(member), "pull", "flow/visits", "-o", filepath.Join(dir, "p0")); code != 1 || !strings.Contains(errs, "no published version") {
+		t.Errorf("member pull before publication: exit %d %q", code, errs)
+	}
+	if out := must(as(member), "versions", "flow/visits"); strings.Contains(out, "draft") {
+		t.Errorf("member sees drafts:\n%s", out)
+	}
+	must(as(curator), "publish", "flow/visits@1")
+	if code, _, errs := run(t, as(curator), "publish", "flow/visits@latest"); code != 2 || !strings.Contains(errs, "version's number") {
+		t.Errorf("publish @latest: exit %d %q", code, errs)
+	}
+	out = must(as(curator), "versions", "flow/visits")
+	if !strings.Contains(out, "published") || !strings.Contains(out, "draft") || !strings.Contains(out, "append") {
+		t.Errorf("curator versions:\n%s", out)
+	}
+
+	// pull @latest is version 1; the lock pins it; @<prefix> and @<instant> find it.
+	p1 := filepath.Join(dir, "p1")
+	out = must(as(member), "pull", "flow/visits", "-o", p1)
+	if !strings.Contains(out, "flow/visits@1") {
+		t.Fatalf("pull latest: %q", out)
+	}
+	var lock struct {
+		SnapshotID string `json:"snapshot_id"`
+		Version    int
+		Files      []struct{ SHA256 string }
+	}
+	lb, err := os.ReadFile(filepath.Join(p1, "flowcat.lock"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(lb, &lock); err != nil || lock.Version != 1 || len(lock.Files) != 1 {
+		t.Fatalf("lock %s: %v", lb, err)
+	}
+	out = must(as(member), "pull", "flow/visits@"+lock.SnapshotID[:10], "-o", filepath.Join(dir, "p2"))
+	if !strings.Contains(out, "@1 ") {
+		t.Errorf("pull by prefix: %q", out)
+	}
+	if code, _, errs := run(t, as(member), "pull", "flow/visits@2026-01-01T00:00:00Z", "-o", filepath.Join(dir, "p3")); code != 1 || !strings.Contains(errs, "no published version at") {
+		t.Errorf("pull at an instant before any publication: exit %d %q", code, errs)
+	}
+	for _, bad := range []string{"flow/visits@v1", "flow/visits@abc", "flow/visits@2026-13-01T00:00:00Z"} {
+		if code, _, errs := run(t, as(member), "pull", bad, "-o", filepath.Join(dir, "px")); code != 2 {
+			t.Errorf("pull %s: exit %d %q, want 2", bad, code, errs)
+		}
+	}
+
+	// pull --lock elsewhere reproduces the same bytes; the server comes from the lock.
+	p4 := filepath.Join(dir, "p4")
+	out = must(map[string]string{"FLOWCAT_TOKEN": member, "FLOWCAT_SERVER": ""}, "pull", "--lock", filepath.Join(p1, "flowcat.lock"), "-o", p4)
+	if !strings.Contains(out, "identical to") {
+		t.Errorf("pull --lock: %q", out)
+	}
+	for _, f := range lock.Files {
+		a, _ := os.ReadFile(filepath.Join(p1, "data", f.SHA256+".parquet"))
+		b, err := os.ReadFile(filepath.Join(p4, "data", f.SHA256+".parquet"))
+		if err != nil || string(a) != string(b) {
+			t.Fatalf("pull --lock: file %s differs (%v)", f.SHA256, err)
+		}
+	}
+	// A lock for another server, and a lock whose snapshot id the server does not have.
+	if code, _, errs := run(t, map[string]string{"FLOWCAT_TOKEN": member, "FLOWCAT_SERVER": "http://127.0.0.1:1"}, "pull", "--lock", filepath.Join(p1, "flowcat.lock"), "-o", p4); code != 2 || !strings.Contains(errs, "lock file is for server") {
+		t.Errorf("lock for another server: exit %d %q", code, errs)
+	}
+	forged := strings.Replace(string(lb), lock.SnapshotID, strings.Repeat("0", 64), 1)
+	fp := writeFile(t, dir, "forged.lock", forged)
+	if code, _, errs := run(t, as(member), "pull", "--lock", fp, "-o", filepath.Join(dir, "p5")); code != 1 || !strings.Contains(errs, "the server's version differs") {
+		t.Errorf("forged lock: exit %d %q", code, errs)
+	}
+	if _, err := os.Stat(filepath.Join(dir, "p5", "data")); err == nil {
+		t.Error("a refused pull --lock wrote files")
+	}
+
+	// replace-window on the curator side, then publish it.
+	fix := night(1, "RAW")
+	fix = strings.Replace(fix, ",consult,", ",review,", -1)
+	out = must(as(curator), "upload", "flow/visits", writeFile(t, files, "fix.csv", fix),
+		"--mode", "replace-window", "--from", "2026-03-02T00:00:00Z", "--to", "2026-03-03T00:00:00Z")
+	if !strings.Contains(out, "flow/visits@3") || !strings.Contains(out, "replace-window removed 160 rows of version 2") {
+		t.Errorf("replace-window: %q", out)
+	}
+	if code, _, errs := run(t, as(curator), "upload", "flow/visits", writeFile(t, files, "fix2.csv", fix), "--mode", "replace-window", "--from", "2026-03-03T00:00:00Z", "--to", "2026-03-02T00:00:00Z"); code != 2 || !strings.Contains(errs, "is not before") {
+		t.Errorf("window backwards: exit %d %q", code, errs)
+	}
+	if code, _, errs := run(t, as(curator), "upload", "flow/visits", writeFile(t, files, "fix3.csv", fix), "--mode", "replace-window", "--from", "2026-03-02T12:00:00Z", "--to", "2026-03-03T00:00:00Z"); code != 1 || !strings.Contains(errs, "outside the replaced window") {
+		t.Errorf("events outside the window: exit %d %q", code, errs)
+	}
+
+	// Retraction: data answers 410 with the reason, metadata stays.
+	must(as(curator), "retract", "flow/visits@1", "--reason", "test rows from the north site")
+	if code, _, errs := run(t, as(member), "pull", "flow/visits@1", "-o", filepath.Join(dir, "p6")); code != 1 || !strings.Contains(errs, "410") || !strings.Contains(errs, "test rows from the north site") {
+		t.Errorf("pull retracted: exit %d %q", code, errs)
+	}
+	if out := must(as(member), "versions", "flow/visits"); !strings.Contains(out, "retracted") {
+		t.Errorf("versions after retraction:\n%s", out)
+	}
+	if code, _, errs := run(t, as(curator), "retract", "flow/visits@1", "--reason", "again"); code != 1 || !strings.Contains(errs, "409") {
+		t.Errorf("retract twice: exit %d %q", code, errs)
+	}
+
+	// Garbage collection is for admins; nothing referenced goes.
+	if code, _, errs := run(t, as(curator), "gc"); code != 1 || !strings.Contains(errs, "403") {
+		t.Errorf("curator gc: exit %d %q", code, errs)
+	}
+	out = must(as(admin), "gc", "--grace", "0s")
+	if !strings.Contains(out, "deleted 0") {
+		t.Errorf("gc: %q", out)
+	}
+	must(as(curator), "publish", "flow/visits@3")
+	must(as(member), "pull", "flow/visits@3", "-o", filepath.Join(dir, "p7"))
+	if out := must(as(member), "verify", filepath.Join(dir, "p7")); !strings.Contains(out, "ok") && !strings.Contains(out, "verified") {
+		t.Errorf("verify: %q", out)
+	}
+}
