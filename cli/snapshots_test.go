@@ -36,7 +36,9 @@ func TestSnapshotWorkflow(t *testing.T) {
 	admin := issue("--role", "admin", "--subject", "ops")
 	curator := issue("--role", "curator", "--subject", "cur", "--project", "flow")
 	member := issue("--role", "member", "--subject", "student", "--project", "flow")
-	as := func(tok string) map[string]string { return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok} }
+	as := func(tok string) map[string]string {
+		return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok}
+	}
 	must := func(env map[string]string, args ...string) string {
 		t.Helper()
 		code, out, errs := run(t, env, args...)
