@@ -55,8 +55,8 @@ func TestCurationOverHTTP(t *testing.T) {
 
 	// Upload modes: bad parameters are refused before the body is read.
 	for q, want := range map[string]string{
-		"mode=merge":                 "upload mode",
-		"mode=replace-window":        "needs both ends",
+		"mode=merge":          "upload mode",
+		"mode=replace-window": "needs both ends",
 		"mode=replace-window&from=2024-03-05T00:00:00Z&to=2024-03-04T00:00:00Z": "is not before",
 		"from=2024-03-04T00:00:00Z&to=2024-03-05T00:00:00Z":                     "replace-window only",
 		"mode=replace-window&from=yesterday&to=2024-03-05T00:00:00Z":            "RFC 3339",
