@@ -1,0 +1,353 @@
+package summary
+
+import (
+	"encoding/binary"
+	"fmt"
+	"maps"
+	"slices"
+	"time"
+)
+
+// stateMagic starts every serialized state; the last byte is the format
+// version.
+const stateMagic = "FCSUM\x01"
+
+type enc struct{ b []byte }
+
+func (e *enc) uv(x uint64) { e.b = binary.AppendUvarint(e.b, x) }
+func (e *enc) iv(x int64)  { e.b = binary.AppendVarint(e.b, x) }
+func (e *enc) str(s string) {
+	e.uv(uint64(len(s)))
+	e.b = append(e.b, s...)
+}
+func (e *enc) u128(u u128) { e.uv(u.hi); e.uv(u.lo) }
+func (e *enc) week(w *[168]uint64) {
+	for _, x := range w {
+		e.uv(x)
+	}
+}
+
+func (e *enc) distinct(d *distinct) {
+	if d.set != nil {
+		e.uv(0)
+		hs := d.sortedSet()
+		e.uv(uint64(len(hs)))
+		var prev uint64
+		for _, h := range hs {
+			e.uv(h - prev)
+			prev = h
+		}
+		return
+	}
+	e.uv(1)
+	e.b = append(e.b, d.reg...)
+}
+
+func (e *enc) dist(d *dist) {
+	e.uv(d.n)
+	e.uv(d.zero)
+	e.u128(d.sum)
+	e.u128(d.sumsq)
+	e.iv(d.min)
+	e.iv(d.max)
+	if d.exact != nil {
+		e.uv(0)
+		vs := slices.Sorted(maps.Keys(d.exact))
+		e.uv(uint64(len(vs)))
+		var prev int64
+		for _, v := range vs {
+			e.uv(uint64(v - prev))
+			e.uv(d.exact[v])
+			prev = v
+		}
+		return
+	}
+	e.uv(1)
+	e.iv(int64(d.skLo))
+	e.uv(uint64(len(d.sk)))
+	for _, c := range d.sk {
+		e.uv(c)
+	}
+}
+
+// MarshalBinary encodes the accumulator's state: varints, maps in key
+// order, so equal states give equal bytes. It first closes every open case
+// (see [Accumulator]). It never fails.
+func (a *Accumulator) MarshalBinary() ([]byte, error) {
+	a.finish()
+	e := &enc{b: append(make([]byte, 0, 4096), stateMagic...)}
+	e.str(a.loc.String())
+	e.uv(uint64(len(a.thr)))
+	for _, t := range a.thr {
+		e.iv(t)
+	}
+	e.iv(a.horizon)
+	e.iv(a.res)
+	e.uv(uint64(a.cap))
+
+	e.uv(a.events)
+	for _, c := range a.types {
+		e.uv(c)
+	}
+	e.uv(a.otherTypes)
+	if a.hasTime {
+		e.uv(1)
+	} else {
+		e.uv(0)
+	}
+	e.iv(a.minAt)
+	e.iv(a.maxAt)
+	e.iv(a.prevAt)
+	e.uv(a.outOfOrder)
+	e.distinct(a.cases)
+	e.distinct(a.subjects)
+	e.distinct(a.resources)
+
+	e.uv(uint64(len(a.sites.list)))
+	for _, g := range a.sites.list {
+		e.str(g.name)
+		e.uv(g.events)
+		e.week(&g.arr)
+	}
+	e.uv(uint64(len(a.queues.list)))
+	for _, g := range a.queues.list {
+		e.str(g.name)
+		e.uv(g.events)
+		e.week(&g.arr)
+		e.dist(g.served)
+		e.dist(g.abandoned)
+		for _, c := range g.over {
+			e.uv(c)
+		}
+		e.uv(g.negative)
+		e.uv(g.svcN)
+		e.u128(g.svcSum)
+	}
+	e.uv(uint64(len(a.acts.list)))
+	for _, g := range a.acts.list {
+		e.str(g.name)
+		e.uv(g.events)
+		e.dist(g.svc)
+		e.uv(g.negative)
+	}
+	e.uv(a.arrivals)
+	e.week(&a.arrWeek)
+	days := slices.Sorted(maps.Keys(a.arrDay))
+	e.uv(uint64(len(days)))
+	var prev int32
+	for _, d := range days {
+		e.iv(int64(d - prev))
+		e.uv(a.arrDay[d])
+		prev = d
+	}
+	obs := slices.Sorted(maps.Keys(a.days))
+	e.uv(uint64(len(obs)))
+	prev = 0
+	for _, d := range obs {
+		e.iv(int64(d - prev))
+		prev = d
+	}
+	e.dist(a.los)
+	keys := slices.Sorted(maps.Keys(a.occ))
+	e.uv(uint64(len(keys)))
+	var pk int64
+	for _, k := range keys {
+		b := a.occ[k]
+		e.iv(k - pk)
+		pk = k
+		e.uv(b.arr)
+		e.uv(b.dep)
+		e.iv(b.arrRest)
+		e.iv(b.depRest)
+	}
+	return e.b, nil
+}
+
+type dec struct {
+	b   []byte
+	err error
+}
+
+func (d *dec) fail() {
+	if d.err == nil {
+		d.err = ErrCorrupt
+	}
+}
+
+func (d *dec) uv() uint64 {
+	x, n := binary.Uvarint(d.b)
+	if n <= 0 {
+		d.fail()
+		d.b = nil
+		return 0
+	}
+	d.b = d.b[n:]
+	return x
+}
+
+func (d *dec) iv() int64 {
+	x, n := binary.Varint(d.b)
+	if n <= 0 {
+		d.fail()
+		d.b = nil
+		return 0
+	}
+	d.b = d.b[n:]
+	return x
+}
+
+// count reads a length, failing when it exceeds what the remaining bytes
+// can hold at per bytes an item.
+func (d *dec) count(per int) int {
+	n := d.uv()
+	if n > uint64(len(d.b)/per) {
+		d.fail()
+		return 0
+	}
+	return int(n)
+}
+
+func (d *dec) str() string {
+	n := d.count(1)
+	s := string(d.b[:n])
+	d.b = d.b[n:]
+	return s
+}
+
+func (d *dec) u128() u128 { return u128{hi: d.uv(), lo: d.uv()} }
+
+func (d *dec) week(w *[168]uint64) {
+	for i := range w {
+		w[i] = d.uv()
+	}
+}
+
+func (d *dec) distinct() *distinct {
+	x := &distinct{}
+	switch d.uv() {
+	case 0:
+		n := d.count(1)
+		x.set = make(map[uint64]struct{}, n)
+		var h uint64
+		for range n {
+			h += d.uv()
+			x.set[h] = struct{}{}
+		}
+	case 1:
+		if len(d.b) < hllM {
+			d.fail()
+			return newDistinct()
+		}
+		x.reg = slices.Clone(d.b[:hllM])
+		d.b = d.b[hllM:]
+	default:
+		d.fail()
+		return newDistinct()
+	}
+	return x
+}
+
+func (d *dec) dist() *dist {
+	x := &dist{n: d.uv(), zero: d.uv(), sum: d.u128(), sumsq: d.u128(), min: d.iv(), max: d.iv()}
+	switch d.uv() {
+	case 0:
+		n := d.count(2)
+		x.exact = make(map[int64]uint64, n)
+		var v int64
+		for range n {
+			v += int64(d.uv())
+			x.exact[v] = d.uv()
+		}
+	case 1:
+		x.skLo = int32(d.iv())
+		n := d.count(1)
+		x.sk = make([]uint64, n)
+		for i := range x.sk {
+			x.sk[i] = d.uv()
+		}
+	default:
+		d.fail()
+		return newDist()
+	}
+	return x
+}
+
+// UnmarshalBinary replaces a's state with one encoded by
+// [Accumulator.MarshalBinary]. It fails with ErrCorrupt on malformed bytes
+// and with an error from time.LoadLocation on an unknown zone.
+func (a *Accumulator) UnmarshalBinary(b []byte) error {
+	if len(b) < len(stateMagic) || string(b[:len(stateMagic)]) != stateMagic {
+		return fmt.Errorf("summary: %w", ErrCorrupt)
+	}
+	d := &dec{b: b[len(stateMagic):]}
+	var opt Options
+	locName := d.str()
+	loc, err := time.LoadLocation(locName)
+	if err != nil {
+		return fmt.Errorf("summary: %w", err)
+	}
+	opt.Location = loc
+	for range d.count(1) {
+		opt.WaitThresholds = append(opt.WaitThresholds, time.Duration(d.iv())*time.Microsecond)
+	}
+	opt.CaseHorizon = time.Duration(d.iv()) * time.Microsecond
+	opt.Resolution = time.Duration(d.iv()) * time.Microsecond
+	opt.ExactValues = int(d.uv())
+	if d.err != nil {
+		return fmt.Errorf("summary: %w", d.err)
+	}
+	x := New(opt)
+	x.events = d.uv()
+	for i := range x.types {
+		x.types[i] = d.uv()
+	}
+	x.otherTypes = d.uv()
+	x.hasTime = d.uv() == 1
+	x.minAt, x.maxAt, x.prevAt = d.iv(), d.iv(), d.iv()
+	x.outOfOrder = d.uv()
+	x.cases, x.subjects, x.resources = d.distinct(), d.distinct(), d.distinct()
+	for range d.count(170) {
+		g := x.sites.list[x.sites.get(d.str())]
+		g.events = d.uv()
+		d.week(&g.arr)
+	}
+	for range d.count(170) {
+		g := x.queues.list[x.queues.get(d.str())]
+		g.events = d.uv()
+		d.week(&g.arr)
+		g.served, g.abandoned = d.dist(), d.dist()
+		for i := range g.over {
+			g.over[i] = d.uv()
+		}
+		g.negative, g.svcN, g.svcSum = d.uv(), d.uv(), d.u128()
+	}
+	for range d.count(3) {
+		g := x.acts.list[x.acts.get(d.str())]
+		g.events = d.uv()
+		g.svc = d.dist()
+		g.negative = d.uv()
+	}
+	x.arrivals = d.uv()
+	d.week(&x.arrWeek)
+	var day int32
+	for range d.count(2) {
+		day += int32(d.iv())
+		x.arrDay[day] = d.uv()
+	}
+	day = 0
+	for range d.count(1) {
+		day += int32(d.iv())
+		x.days[day] = struct{}{}
+	}
+	x.los = d.dist()
+	var k int64
+	for range d.count(5) {
+		k += d.iv()
+		x.occ[k] = &occBucket{arr: d.uv(), dep: d.uv(), arrRest: d.iv(), depRest: d.iv()}
+	}
+	if d.err != nil || len(d.b) != 0 {
+		return fmt.Errorf("summary: %w", ErrCorrupt)
+	}
+	*a = *x
+	return nil
+}

@@ -1,0 +1,100 @@
+package summary
+
+import (
+	"errors"
+	"fmt"
+	"slices"
+)
+
+// Sentinel errors of Merge and UnmarshalBinary.
+var (
+	ErrIncompatible = errors.New("accumulators have different options") // Merge of accumulators with other options
+	ErrCorrupt      = errors.New("malformed summary state")             // UnmarshalBinary of bad bytes
+)
+
+func (a *Accumulator) compatible(o *Accumulator) bool {
+	return a.loc.String() == o.loc.String() && slices.Equal(a.thr, o.thr) &&
+		a.horizon == o.horizon && a.res == o.res && a.cap == o.cap
+}
+
+// Merge adds the state of o to a, as if a had observed o's events too, and
+// fails with ErrIncompatible if their options differ. Both accumulators'
+// open cases are closed first (see [Accumulator]); o is not changed
+// otherwise and may be used again.
+func (a *Accumulator) Merge(o *Accumulator) error {
+	if !a.compatible(o) {
+		return fmt.Errorf("summary: merge: %w", ErrIncompatible)
+	}
+	a.finish()
+	o.finish()
+	a.events += o.events
+	for i := range a.types {
+		a.types[i] += o.types[i]
+	}
+	a.otherTypes += o.otherTypes
+	a.outOfOrder += o.outOfOrder
+	if o.hasTime {
+		if !a.hasTime || o.minAt < a.minAt {
+			a.minAt = o.minAt
+		}
+		if !a.hasTime || o.maxAt > a.maxAt {
+			a.maxAt = o.maxAt
+		}
+		a.hasTime = true
+		a.prevAt = max(a.prevAt, o.prevAt)
+	}
+	a.cases.merge(o.cases)
+	a.subjects.merge(o.subjects)
+	a.resources.merge(o.resources)
+	for _, g := range o.sites.list {
+		d := a.sites.list[a.sites.get(g.name)]
+		d.events += g.events
+		addWeek(&d.arr, &g.arr)
+	}
+	for _, g := range o.queues.list {
+		d := a.queues.list[a.queues.get(g.name)]
+		d.events += g.events
+		addWeek(&d.arr, &g.arr)
+		d.served.merge(g.served, a.cap)
+		d.abandoned.merge(g.abandoned, a.cap)
+		for i := range d.over {
+			d.over[i] += g.over[i]
+		}
+		d.negative += g.negative
+		d.svcN += g.svcN
+		d.svcSum.merge(g.svcSum)
+	}
+	for _, g := range o.acts.list {
+		d := a.acts.list[a.acts.get(g.name)]
+		d.events += g.events
+		d.svc.merge(g.svc, a.cap)
+		d.negative += g.negative
+	}
+	a.arrivals += o.arrivals
+	addWeek(&a.arrWeek, &o.arrWeek)
+	for d, c := range o.arrDay {
+		a.arrDay[d] += c
+	}
+	for d := range o.days {
+		a.days[d] = struct{}{}
+	}
+	a.los.merge(o.los, a.cap)
+	for k, b := range o.occ {
+		x := a.occ[k]
+		if x == nil {
+			x = &occBucket{}
+			a.occ[k] = x
+		}
+		x.arr += b.arr
+		x.dep += b.dep
+		x.arrRest += b.arrRest
+		x.depRest += b.depRest
+	}
+	return nil
+}
+
+func addWeek(d, s *[168]uint64) {
+	for i := range d {
+		d[i] += s[i]
+	}
+}

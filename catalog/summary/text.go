@@ -1,0 +1,110 @@
+package summary
+
+import (
+	"fmt"
+	"io"
+	"strings"
+	"text/tabwriter"
+	"time"
+)
+
+var sparks = []rune("▁▂▃▄▅▆▇█")
+
+// sparkline draws one character per value, scaled to the largest.
+func sparkline(vs []float64) string {
+	top := 0.0
+	for _, v := range vs {
+		top = max(top, v)
+	}
+	var b strings.Builder
+	for _, v := range vs {
+		i := 0
+		if top > 0 {
+			i = int(v / top * float64(len(sparks)-1))
+		}
+		b.WriteRune(sparks[max(0, min(i, len(sparks)-1))])
+	}
+	return b.String()
+}
+
+func means(rs []Rate) []float64 {
+	out := make([]float64, len(rs))
+	for i, r := range rs {
+		out[i] = r.Mean
+	}
+	return out
+}
+
+// dur formats seconds briefly.
+func dur(s float64) string {
+	if s < 60 {
+		return fmt.Sprintf("%.0fs", s)
+	}
+	return time.Duration(s * float64(time.Second)).Round(time.Second).String()
+}
+
+// Text writes s as small readable tables with sparkline arrival profiles
+// (24 hours and 168 hours from Monday 00:00); headings are bold when
+// color is true. It returns the first write error.
+func (s *Summary) Text(w io.Writer, color bool) error {
+	bold := func(t string) string {
+		if color {
+			return "\x1b[1m" + t + "\x1b[0m"
+		}
+		return t
+	}
+	tw := tabwriter.NewWriter(w, 2, 4, 2, ' ', 0)
+	p := func(format string, args ...any) { fmt.Fprintf(tw, format, args...) }
+	p("%s\n", bold("Summary"))
+	if s.From != nil {
+		p("period\t%s .. %s (%s, %d days)\n", s.From.Format(time.RFC3339), s.To.Format(time.RFC3339), s.Timezone, s.DaysObserved)
+	}
+	approx := func(c Count) string {
+		if c.Exact {
+			return fmt.Sprintf("%.0f", c.Value)
+		}
+		return fmt.Sprintf("~%.0f (±%.1f%%)", c.Value, 100*c.RelStdError)
+	}
+	p("events\t%d\tcases\t%s\tsubjects\t%s\tresources\t%s\n", s.Events, approx(s.Cases), approx(s.Subjects), approx(s.Resources))
+	p("\n%s\n", bold("Arrivals per hour"))
+	p("all, by hour of day\t%s\n", sparkline(means(s.Arrivals.HourOfDay)))
+	p("all, by hour of week\t%s\n", sparkline(means(s.Arrivals.HourOfWeek)))
+	for _, x := range s.Sites {
+		p("site %s, by hour of day\t%s\n", x.Name, sparkline(means(x.Arrivals.HourOfDay)))
+	}
+	for _, x := range s.Queues {
+		p("queue %s, by hour of day\t%s\n", x.Name, sparkline(means(x.Arrivals.HourOfDay)))
+	}
+	if len(s.Queues) > 0 {
+		p("\n%s\n", bold("Waiting"))
+		p("queue\tn\tmean\tp50\tp90\tp95\tp99\tabandoned\tpatience median\n")
+		for _, q := range s.Queues {
+			med := "-"
+			if q.Patience != nil && float64(q.Patience.Median) == float64(q.Patience.Median) {
+				med = dur(float64(q.Patience.Median))
+			}
+			p("%s\t%d\t%s\t%s\t%s\t%s\t%s\t%.1f%%\t%s\n", q.Name, q.Wait.N, dur(q.Wait.Mean), dur(q.Wait.P50),
+				dur(q.Wait.P90), dur(q.Wait.P95), dur(q.Wait.P99), 100*q.Wait.AbandonShare, med)
+		}
+	}
+	if len(s.Activities) > 0 {
+		p("\n%s\n", bold("Service"))
+		p("activity\tn\tmean\tp50\tp90\tlognormal (meanlog, sdlog, KS)\n")
+		for _, a := range s.Activities {
+			ln := "-"
+			if a.Lognormal != nil {
+				ln = fmt.Sprintf("%.3f, %.3f, %.3f", a.Lognormal.MeanLog, a.Lognormal.SDLog, a.Lognormal.KS)
+			}
+			p("%s\t%d\t%s\t%s\t%s\t%s\n", a.Name, a.Service.N, dur(a.Service.Mean), dur(a.Service.P50), dur(a.Service.P90), ln)
+		}
+	}
+	l := s.LengthOfStay
+	p("\n%s\n", bold("Length of stay"))
+	p("n %d\tmean %s\tp50 %s\tp90 %s\tp99 %s\n", l.N, dur(l.Mean), dur(l.P50), dur(l.P90), dur(l.P99))
+	o := s.Occupancy
+	p("\n%s\n", bold("In system"))
+	p("by hour of week\t%s\n", sparkline(o.HourOfWeek))
+	p("peak (bucket mean)\t%.2f\n", o.Peak)
+	p("Little: L\t%.3f\tλW\t%.3f\tratio\t%.6f\n", o.Little.L, o.Little.LambdaW, o.Little.Ratio)
+	return tw.Flush()
+}
