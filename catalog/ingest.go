@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
 
 	bolt "go.etcd.io/bbolt"
 
@@ -177,8 +178,10 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	}
 	defer sw.Remove()
 	win := newWindowCheck(opt)
+	sacc := summary.New(summaryOptions(ds))
 	err = srt.Finish(func(e *schema.Event) error {
 		acc.Observe(e)
+		sacc.Observe(e)
 		win.observe(e)
 		return sw.Write(e)
 	})
@@ -229,7 +232,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	if testHookBeforeCommit != nil {
 		testHookBeforeCommit()
 	}
-	return s.commit(ctx, ds, &up, entry, rep, pz.KeyID(), opt)
+	return s.commit(ctx, ds, &up, entry, sacc, rep, pz.KeyID(), opt)
 }
 
 // removing reports whether opt allows an upload without rows: a
@@ -244,7 +247,7 @@ func isNoRows(err error) bool {
 // commit makes the new version from the latest one, under the dataset's
 // commit lock so that the plan (which may rewrite files) and the
 // transaction see the same parent.
-func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, rep *quality.Report, keyID string, opt IngestOptions) (*IngestResult, error) {
+func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, rep *quality.Report, keyID string, opt IngestOptions) (*IngestResult, error) {
 	unlock := s.lockDataset(ds.Ref())
 	defer unlock()
 	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
@@ -253,7 +256,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	} else if err != nil {
 		return nil, err
 	}
-	plan, err := s.planFiles(ctx, parent, entry, keyID, opt)
+	plan, err := s.planFiles(ctx, ds, parent, entry, keyID, opt)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
@@ -263,6 +266,13 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	}
 	if parent == nil && len(plan.files) == 0 {
 		return s.duplicate(ds, *up, nil)
+	}
+	if entry != nil {
+		plan.summaries[entry.SHA256] = sacc
+	}
+	vsum, fileSums, err := s.mergeSummary(ctx, ds, parent, plan, plan.summaries, opt.Mode)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	received := up.ReceivedAt
 	var ver *Version
@@ -325,6 +335,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			return err
 		}
 		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {
+			return err
+		}
+		if err := putSummaries(tx, cur.Ref(), v.Number, vsum, fileSums); err != nil {
 			return err
 		}
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), up); err != nil {

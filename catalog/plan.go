@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -47,6 +48,8 @@ type filePlan struct {
 	files    []FileEntry
 	removed  int64    // rows of the parent a replacement removed
 	releases []func() // holds on rewritten blobs
+	// summaries of the files this commit makes (the upload's, rewritten ones)
+	summaries map[blob.ID]*summary.Accumulator
 }
 
 func (p *filePlan) release() {
@@ -58,8 +61,8 @@ func (p *filePlan) release() {
 // planFiles computes the new version's files from the parent's (nil for
 // the first version) and the upload's file (nil when a replacement only
 // removes), by mode.
-func (s *Store) planFiles(ctx context.Context, parent *Version, entry *FileEntry, keyID string, opt IngestOptions) (*filePlan, error) {
-	p := &filePlan{}
+func (s *Store) planFiles(ctx context.Context, ds *Dataset, parent *Version, entry *FileEntry, keyID string, opt IngestOptions) (*filePlan, error) {
+	p := &filePlan{summaries: map[blob.ID]*summary.Accumulator{}}
 	var base []FileEntry
 	if parent != nil {
 		base = parent.Manifest.Files
@@ -71,7 +74,7 @@ func (s *Store) planFiles(ctx context.Context, parent *Version, entry *FileEntry
 			p.removed = parent.Manifest.Rows
 		}
 	case ModeReplaceWindow:
-		kept, err := s.cutWindow(ctx, p, base, keyID, opt)
+		kept, err := s.cutWindow(ctx, ds, p, base, keyID, opt)
 		if err != nil {
 			return nil, err
 		}
@@ -90,7 +93,7 @@ func (s *Store) planFiles(ctx context.Context, parent *Version, entry *FileEntry
 // opt.To) removed: files that cannot hold such rows are kept as they are;
 // the others are read and, when they do, rewritten without them (or dropped
 // when nothing is left). This is the only place ingest reads stored files.
-func (s *Store) cutWindow(ctx context.Context, p *filePlan, base []FileEntry, keyID string, opt IngestOptions) ([]FileEntry, error) {
+func (s *Store) cutWindow(ctx context.Context, ds *Dataset, p *filePlan, base []FileEntry, keyID string, opt IngestOptions) ([]FileEntry, error) {
 	from, to := opt.From.UnixMicro(), opt.To.UnixMicro()
 	var out []FileEntry
 	for _, f := range base {
@@ -98,7 +101,7 @@ func (s *Store) cutWindow(ctx context.Context, p *filePlan, base []FileEntry, ke
 			out = append(out, f)
 			continue
 		}
-		nf, removed, err := s.rewriteWithout(ctx, f, keyID, func(e *schema.Event) bool {
+		nf, removed, err := s.rewriteWithout(ctx, ds, f, keyID, func(e *schema.Event) bool {
 			at := e.OccurredAt.UnixMicro()
 			return at >= from && at < to && slices.Contains(opt.Sites, e.Site)
 		}, p)
@@ -115,7 +118,7 @@ func (s *Store) cutWindow(ctx context.Context, p *filePlan, base []FileEntry, ke
 
 // rewriteWithout copies file f without the rows drop selects. It returns f
 // itself when drop selects none, and nil when it selects all.
-func (s *Store) rewriteWithout(ctx context.Context, f FileEntry, keyID string, drop func(*schema.Event) bool, p *filePlan) (*FileEntry, int64, error) {
+func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, keyID string, drop func(*schema.Event) bool, p *filePlan) (*FileEntry, int64, error) {
 	r, err := s.blobs.Open(ctx, f.SHA256)
 	if err != nil {
 		return nil, 0, fmt.Errorf("replace-window: %w", err)
@@ -142,10 +145,12 @@ func (s *Store) rewriteWithout(ctx context.Context, f FileEntry, keyID string, d
 		return nil, 0, err
 	}
 	defer sw.Remove()
+	sacc := summary.New(summaryOptions(ds))
 	err = ReadSnapshot(r, r.Size(), func(e *schema.Event) error {
 		if drop(e) {
 			return nil
 		}
+		sacc.Observe(e)
 		return sw.Write(e)
 	})
 	if err != nil {
@@ -159,6 +164,7 @@ func (s *Store) rewriteWithout(ctx context.Context, f FileEntry, keyID string, d
 	if err := s.blobs.Put(ctx, id, sw.f); err != nil {
 		return nil, 0, fmt.Errorf("replace-window: %w", err)
 	}
+	p.summaries[id] = sacc
 	from := f.SHA256
 	return &FileEntry{
 		SHA256: id, Bytes: size, Rows: sw.rows, Upload: f.Upload,

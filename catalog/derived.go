@@ -1,0 +1,186 @@
+package catalog
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+var (
+	// bucketFileSummaries maps a blob id to the summary state of its events.
+	bucketFileSummaries = []byte("file_summaries")
+	// bucketVersionSummaries maps a version (seqKey) to versionSummary.
+	bucketVersionSummaries = []byte("version_summaries")
+)
+
+// versionSummary is what a version keeps of its summary: the merged state,
+// so that the next append merges one file into it without reading the
+// past, and the Summary's JSON, served as it is.
+type versionSummary struct {
+	State []byte          `json:"state"`
+	JSON  json.RawMessage `json:"summary"`
+}
+
+// summaryOptions are the summary options of a dataset: hours and days in
+// its zone.
+func summaryOptions(ds *Dataset) summary.Options {
+	loc, err := time.LoadLocation(ds.Timezone)
+	if err != nil {
+		loc = time.UTC
+	}
+	return summary.Options{Location: loc}
+}
+
+// summaryOfFile returns the summary state of a stored file: kept from its
+// ingest, or, for a file from before summaries were kept, computed by
+// reading it once.
+func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID) (*summary.Accumulator, []byte, error) {
+	var state []byte
+	err := s.db.View(func(tx *bolt.Tx) error {
+		if v := tx.Bucket(bucketFileSummaries).Get(id[:]); v != nil {
+			state = append([]byte(nil), v...)
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, nil, err
+	}
+	acc := summary.New(summaryOptions(ds))
+	if state != nil {
+		if err := acc.UnmarshalBinary(state); err != nil {
+			return nil, nil, fmt.Errorf("summary of file %s: %w", id, err)
+		}
+		return acc, nil, nil
+	}
+	r, err := s.blobs.Open(ctx, id)
+	if err != nil {
+		return nil, nil, fmt.Errorf("summary: %w", err)
+	}
+	defer r.Close()
+	if err := ReadSnapshot(r, r.Size(), func(e *schema.Event) error { acc.Observe(e); return nil }); err != nil {
+		return nil, nil, fmt.Errorf("summary of file %s: %w", id, err)
+	}
+	state, err = acc.MarshalBinary()
+	if err != nil {
+		return nil, nil, err
+	}
+	return acc, state, nil
+}
+
+// mergeSummary builds the new version's summary. An append merges the
+// upload's file into the parent's merged state; other modes merge the
+// states of all the version's files. fresh holds the states of files made
+// by this commit; the result also lists the states to store for files
+// that had none.
+func (s *Store) mergeSummary(ctx context.Context, ds *Dataset, parent *Version, plan *filePlan, fresh map[blob.ID]*summary.Accumulator, mode Mode) (*versionSummary, map[blob.ID][]byte, error) {
+	store := map[blob.ID][]byte{}
+	for id, acc := range fresh {
+		b, err := acc.MarshalBinary()
+		if err != nil {
+			return nil, nil, err
+		}
+		store[id] = b
+	}
+	total := summary.New(summaryOptions(ds))
+	merged := false
+	if mode == ModeAppend && parent != nil {
+		if st, err := s.storedVersionSummary(ds.Ref(), parent.Number); err == nil && st.State != nil {
+			if err := total.UnmarshalBinary(st.State); err != nil {
+				return nil, nil, fmt.Errorf("summary of version %d: %w", parent.Number, err)
+			}
+			for _, f := range plan.files {
+				if _, inParent := parent.File(f.SHA256); inParent {
+					continue
+				}
+				if acc := fresh[f.SHA256]; acc != nil {
+					if err := total.Merge(acc); err != nil {
+						return nil, nil, err
+					}
+				}
+			}
+			merged = true
+		}
+	}
+	if !merged {
+		for _, f := range plan.files {
+			acc := fresh[f.SHA256]
+			if acc == nil {
+				a, state, err := s.summaryOfFile(ctx, ds, f.SHA256)
+				if err != nil {
+					return nil, nil, err
+				}
+				if state != nil {
+					store[f.SHA256] = state
+				}
+				acc = a
+			}
+			if err := total.Merge(acc); err != nil {
+				return nil, nil, err
+			}
+		}
+	}
+	state, err := total.MarshalBinary()
+	if err != nil {
+		return nil, nil, err
+	}
+	js, err := json.Marshal(total.Summary())
+	if err != nil {
+		return nil, nil, fmt.Errorf("summary: %w", err)
+	}
+	return &versionSummary{State: state, JSON: js}, store, nil
+}
+
+func (s *Store) storedVersionSummary(ref string, n int) (*versionSummary, error) {
+	var vs versionSummary
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return getJSON(tx.Bucket(bucketVersionSummaries), seqKey(ref, n), &vs, fmt.Sprintf("summary of %s@%d", ref, n))
+	})
+	if err != nil {
+		return nil, err
+	}
+	return &vs, nil
+}
+
+// putSummaries stores a commit's summary states in tx.
+func putSummaries(tx *bolt.Tx, ref string, n int, vs *versionSummary, files map[blob.ID][]byte) error {
+	for id, b := range files {
+		if err := tx.Bucket(bucketFileSummaries).Put(append([]byte(nil), id[:]...), b); err != nil {
+			return err
+		}
+	}
+	return putJSON(tx.Bucket(bucketVersionSummaries), seqKey(ref, n), vs)
+}
+
+// Summary returns the stored summary JSON of version v (see
+// catalog/summary/SUMMARY.md). A version made before summaries were kept
+// gets its summary computed from its files once, then stored.
+func (s *Store) Summary(ctx context.Context, v *Version) ([]byte, error) {
+	ref := v.Manifest.Dataset
+	if vs, err := s.storedVersionSummary(ref, v.Number); err == nil {
+		return vs.JSON, nil
+	}
+	project, name, _, err := SplitRef(ref)
+	if err != nil {
+		return nil, err
+	}
+	ds, err := s.Dataset(ctx, project, name)
+	if err != nil {
+		return nil, err
+	}
+	vs, files, err := s.mergeSummary(ctx, ds, nil, &filePlan{files: v.Manifest.Files}, nil, ModeReplaceAll)
+	if err != nil {
+		return nil, err
+	}
+	err = s.db.Update(func(tx *bolt.Tx) error { return putSummaries(tx, ref, v.Number, vs, files) })
+	if err != nil {
+		return nil, err
+	}
+	return vs.JSON, nil
+}
