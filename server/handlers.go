@@ -343,8 +343,7 @@ func (s *Server) servable(c echo.Context) (*catalog.Version, error) {
 		return nil, err
 	}
 	if v.State == catalog.StateRetracted {
-		return nil, fail(http.StatusGone, "retracted", "version %d of %s was retracted on %s: %s; its metadata and citation stay readable",
-			v.Number, v.Manifest.Dataset, v.RetractedAt.Format(time.RFC3339), v.RetractReason)
+		return nil, s.gone(v)
 	}
 	return v, nil
 }

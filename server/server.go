@@ -26,6 +26,9 @@ type Config struct {
 	Logger    *slog.Logger // default slog.Default()
 	// MaxUploadBytes bounds the body of one upload (default 8 GiB).
 	MaxUploadBytes int64
+	// CitationAuthor is the author CITATION.cff files name (the lab that
+	// curates the data); default the project's title, or its name.
+	CitationAuthor string
 }
 
 // Server serves the API.
@@ -72,6 +75,11 @@ func New(cfg Config) *Server {
 	auth.GET(ds+"/versions/:version/quality", s.getQuality)
 	auth.GET(ds+"/versions/:version/files/:file", s.download)
 	auth.HEAD(ds+"/versions/:version/files/:file", s.download)
+	auth.GET(ds+"/versions/:version/summary", s.getSummary)
+	auth.GET(ds+"/versions/:version/export", s.exportVersion)
+	auth.GET(ds+"/versions/:version/bundle", s.getBundle)
+	auth.GET(ds+"/versions/:version/citation", s.getCitation)
+	auth.GET(ds+"/diff", s.diffVersions)
 	auth.POST(ds+"/versions/:version/:action", s.setState)
 	auth.POST("/admin/gc", s.collectGarbage)
 	return s

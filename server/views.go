@@ -1,0 +1,416 @@
+package server
+
+import (
+	"context"
+	"crypto/sha256"
+	"encoding/hex"
+	"encoding/json"
+	"fmt"
+	"net/http"
+	"net/url"
+	"slices"
+	"strings"
+	"time"
+
+	"github.com/labstack/echo/v4"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/export"
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+// parseFilter reads a filter from the query: from and to (RFC 3339), and
+// site, queue, type, activity and (when columns is true) columns, each
+// repeated or comma-separated. Any other parameter but those in extra is
+// refused, so that a misspelt one cannot silently widen a download.
+func parseFilter(q url.Values, columns bool, extra ...string) (export.Filter, error) {
+	var f export.Filter
+	allowed := append([]string{"from", "to", "site", "queue", "type", "activity"}, extra...)
+	if columns {
+		allowed = append(allowed, "columns")
+	}
+	for k := range q {
+		if !slices.Contains(allowed, k) {
+			return f, fail(http.StatusBadRequest, "invalid", "unknown parameter %q: want %s", truncateParam(k), strings.Join(allowed, ", "))
+		}
+	}
+	for _, p := range []struct {
+		name string
+		dst  *time.Time
+	}{{"from", &f.From}, {"to", &f.To}} {
+		if v := q.Get(p.name); v != "" {
+			t, err := time.Parse(time.RFC3339Nano, v)
+			if err != nil {
+				return f, fail(http.StatusBadRequest, "invalid", "%s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", p.name, truncateParam(v))
+			}
+			*p.dst = t.UTC()
+		}
+	}
+	list := func(name string) []string {
+		var out []string
+		for _, v := range q[name] {
+			for _, x := range strings.Split(v, ",") {
+				out = append(out, strings.TrimSpace(x))
+			}
+		}
+		return out
+	}
+	f.Sites, f.Queues, f.Activities = list("site"), list("queue"), list("activity")
+	for _, t := range list("type") {
+		f.EventTypes = append(f.EventTypes, schema.EventType(t))
+	}
+	for _, c := range list("columns") {
+		f.Columns = append(f.Columns, schema.Field(c))
+	}
+	if err := f.Validate(); err != nil {
+		return f, fail(http.StatusBadRequest, "invalid", "%s", strings.TrimSuffix(err.Error(), ": "+export.ErrBadFilter.Error()))
+	}
+	return f, nil
+}
+
+func truncateParam(s string) string {
+	if len(s) > 40 {
+		return s[:40] + "..."
+	}
+	return s
+}
+
+func (s *Server) opener() export.Opener { return s.cfg.Store.Blobs().Open }
+
+// getSummary serves a version's stored summary; with site, queue,
+// activity, from or to it computes one from the version's files, reading
+// only the row groups the site and window need. The queue and activity
+// filters restrict the queue and activity lists (a wait needs the case's
+// arrival, which names no queue), site and window filter the events.
+func (s *Server) getSummary(c echo.Context) error {
+	v, err := s.version(c)
+	if err != nil {
+		return err
+	}
+	q := c.QueryParams()
+	f, err := parseFilter(q, false)
+	if err != nil {
+		return err
+	}
+	if len(f.EventTypes) > 0 {
+		return fail(http.StatusBadRequest, "invalid", "a summary takes site, queue, activity, from and to; not type")
+	}
+	h := c.Response().Header()
+	h.Set("ETag", `"`+v.SnapshotID+`"`)
+	if len(q) == 0 {
+		b, err := s.cfg.Store.Summary(c.Request().Context(), v)
+		if err != nil {
+			return catalogError(err)
+		}
+		return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
+	}
+	if v.State == catalog.StateRetracted {
+		return s.gone(v)
+	}
+	d, err := s.cfg.Store.Dataset(c.Request().Context(), c.Param("project"), c.Param("dataset"))
+	if err != nil {
+		return catalogError(err)
+	}
+	loc, err := time.LoadLocation(d.Timezone)
+	if err != nil {
+		loc = time.UTC
+	}
+	acc := summary.New(summary.Options{Location: loc})
+	ev := export.Filter{From: f.From, To: f.To, Sites: f.Sites}
+	st, err := export.Events(c.Request().Context(), s.opener(), v.Manifest.Files, ev, func(e *schema.Event) error {
+		acc.Observe(e)
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	h.Set("X-Flowcat-Row-Groups-Read", fmt.Sprint(st.RowGroupsRead))
+	h.Set("X-Flowcat-Row-Groups-Skipped", fmt.Sprint(st.RowGroupsSkipped+st.FilesSkipped))
+	h.Set("X-Flowcat-Bytes-Read", fmt.Sprint(st.BytesRead))
+	return c.JSON(http.StatusOK, acc.SummaryFor(summary.Selection{Sites: f.Sites, Queues: f.Queues, Activities: f.Activities}))
+}
+
+func (s *Server) gone(v *catalog.Version) error {
+	return fail(http.StatusGone, "retracted", "version %d of %s was retracted on %s: %s; its metadata and citation stay readable",
+		v.Number, v.Manifest.Dataset, v.RetractedAt.Format(time.RFC3339), v.RetractReason)
+}
+
+// requestTag is a strong ETag for a deterministic response: the same
+// version, format and filter always give the same bytes.
+func requestTag(v *catalog.Version, format string, f export.Filter) string {
+	b, _ := json.Marshal(struct {
+		Snapshot, Format string
+		Filter           export.Filter
+	}{v.SnapshotID, format, f})
+	sum := sha256.Sum256(b)
+	return `"` + hex.EncodeToString(sum[:16]) + `"`
+}
+
+// exportVersion streams a version, whole or filtered, as one Parquet or
+// CSV file (RFC 4180), in a deterministic order and byte for byte the same
+// for the same request.
+func (s *Server) exportVersion(c echo.Context) error {
+	v, err := s.servable(c)
+	if err != nil {
+		return err
+	}
+	q := c.QueryParams()
+	format := q.Get("format")
+	if format == "" {
+		format = "parquet"
+	}
+	if format != "parquet" && format != "csv" {
+		return fail(http.StatusBadRequest, "invalid", "format %q: want parquet or csv", truncateParam(format))
+	}
+	f, err := parseFilter(q, true, "format")
+	if err != nil {
+		return err
+	}
+	tag := requestTag(v, format, f)
+	name := fmt.Sprintf("%s-v%d", strings.ReplaceAll(v.Manifest.Dataset, "/", "-"), v.Number)
+	if len(q) > 1 || len(q) == 1 && q.Get("format") == "" {
+		name += "-" + strings.Trim(tag, `"`)[:8]
+	}
+	h := c.Response().Header()
+	h.Set("ETag", tag)
+	h.Set("Cache-Control", "private, max-age=31536000, immutable")
+	if match := c.Request().Header.Get("If-None-Match"); match == tag {
+		return c.NoContent(http.StatusNotModified)
+	}
+	ctx := c.Request().Context()
+	w := c.Response()
+	if format == "csv" {
+		h.Set(echo.HeaderContentType, "text/csv; charset=utf-8; header=present")
+		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.csv"`, name))
+		w.WriteHeader(http.StatusOK)
+		_, err = export.WriteCSV(ctx, w, s.opener(), v.Manifest.Files, f)
+	} else {
+		h.Set(echo.HeaderContentType, "application/vnd.apache.parquet")
+		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.parquet"`, name))
+		w.WriteHeader(http.StatusOK)
+		_, err = export.WriteParquet(ctx, w, s.opener(), v.Manifest.Files, f, export.ParquetOptions{
+			Metadata: map[string]string{"flowcat.dataset": v.Manifest.Dataset, "flowcat.version": fmt.Sprint(v.Number), "flowcat.snapshot_id": v.SnapshotID},
+		})
+	}
+	if err != nil {
+		// The status is sent: cut the body short so the client sees a
+		// truncated download rather than a whole-looking file.
+		s.cfg.Logger.Error("export interrupted", "dataset", v.Manifest.Dataset, "version", v.Number, "err", err)
+		panic(http.ErrAbortHandler)
+	}
+	return nil
+}
+
+// citationInput describes v for its CITATION.cff.
+func (s *Server) citationInput(ctx context.Context, d *catalog.Dataset, v *catalog.Version) export.CitationInput {
+	author := s.cfg.CitationAuthor
+	if author == "" {
+		if p, err := s.cfg.Store.Project(ctx, d.Project); err == nil && p.Title != "" {
+			author = p.Title
+		} else {
+			author = d.Project
+		}
+	}
+	title := d.Title
+	if title == "" {
+		title = d.Ref()
+	}
+	return export.CitationInput{
+		Title: title, Dataset: d.Ref(), Version: v.Number, SnapshotID: v.SnapshotID,
+		Released: v.Manifest.CreatedAt, Authors: []export.Author{{Name: author}},
+	}
+}
+
+// getCitation serves CITATION.cff (Citation File Format 1.2.0); it stays
+// readable for retracted versions.
+func (s *Server) getCitation(c echo.Context) error {
+	v, err := s.version(c)
+	if err != nil {
+		return err
+	}
+	d, err := s.cfg.Store.Dataset(c.Request().Context(), c.Param("project"), c.Param("dataset"))
+	if err != nil {
+		return catalogError(err)
+	}
+	b, err := export.Citation(s.citationInput(c.Request().Context(), d, v))
+	if err != nil {
+		return err
+	}
+	return c.Blob(http.StatusOK, "application/x-yaml; charset=utf-8", b)
+}
+
+// getBundle streams a version as a tar or zip holding its Parquet files,
+// manifest.json, a data dictionary, a README, SHA256SUMS and CITATION.cff.
+func (s *Server) getBundle(c echo.Context) error {
+	v, err := s.servable(c)
+	if err != nil {
+		return err
+	}
+	format := c.QueryParam("format")
+	if format == "" {
+		format = "tar"
+	}
+	for k := range c.QueryParams() {
+		if k != "format" {
+			return fail(http.StatusBadRequest, "invalid", "unknown parameter %q: a bundle takes format=tar|zip", truncateParam(k))
+		}
+	}
+	if format != "tar" && format != "zip" {
+		return fail(http.StatusBadRequest, "invalid", "format %q: want tar or zip", truncateParam(format))
+	}
+	d, err := s.cfg.Store.Dataset(c.Request().Context(), c.Param("project"), c.Param("dataset"))
+	if err != nil {
+		return catalogError(err)
+	}
+	h := c.Response().Header()
+	tag := requestTag(v, "bundle-"+format, export.Filter{})
+	h.Set("ETag", tag)
+	ct := map[string]string{"tar": "application/x-tar", "zip": "application/zip"}[format]
+	h.Set(echo.HeaderContentType, ct)
+	h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s-v%d.%s"`, strings.ReplaceAll(d.Ref(), "/", "-"), v.Number, format))
+	c.Response().WriteHeader(http.StatusOK)
+	err = export.WriteBundle(c.Request().Context(), c.Response(), format, export.Bundle{
+		Dataset: d, Version: v, Open: s.opener(), Citation: s.citationInput(c.Request().Context(), d, v),
+	})
+	if err != nil {
+		s.cfg.Logger.Error("bundle interrupted", "dataset", d.Ref(), "version", v.Number, "err", err)
+		panic(http.ErrAbortHandler)
+	}
+	return nil
+}
+
+// diffResponse is the difference between two versions.
+type diffResponse struct {
+	From    versionRef          `json:"from"`
+	To      versionRef          `json:"to"`
+	Events  *export.DiffResult  `json:"events"`
+	Quality map[string]float64  `json:"quality_delta"` // to minus from, per score
+	Summary map[string]*float64 `json:"summary_delta"` // to minus from, per headline figure
+}
+
+type versionRef struct {
+	Version    int    `json:"version"`
+	SnapshotID string `json:"snapshot_id"`
+}
+
+// diffVersions compares versions ?a= and ?b= (any selectors) by content,
+// per site and day, with the quality and summary deltas.
+func (s *Server) diffVersions(c echo.Context) error {
+	d, err := s.dataset(c, readable, "read versions of")
+	if err != nil {
+		return err
+	}
+	q := c.QueryParams()
+	f, err := parseFilter(q, false, "a", "b")
+	if err != nil {
+		return err
+	}
+	ctx := c.Request().Context()
+	drafts := claims(c).CanCurate(d.Project)
+	var vs [2]*catalog.Version
+	for i, name := range []string{"a", "b"} {
+		text := q.Get(name)
+		if text == "" {
+			return fail(http.StatusBadRequest, "invalid", "diff needs ?a=VERSION&b=VERSION")
+		}
+		sel, err := catalog.ParseSelector(text)
+		if err != nil {
+			return catalogError(err)
+		}
+		v, err := s.cfg.Store.Resolve(ctx, d.Project, d.Name, sel, drafts)
+		if err != nil {
+			return catalogError(err)
+		}
+		if v.State == catalog.StateRetracted {
+			return s.gone(v)
+		}
+		vs[i] = v
+	}
+	res, err := export.Diff(ctx, s.opener(), vs[0].Manifest.Files, vs[1].Manifest.Files, export.DiffOptions{Filter: f})
+	if err != nil {
+		return err
+	}
+	out := diffResponse{
+		From: versionRef{vs[0].Number, vs[0].SnapshotID}, To: versionRef{vs[1].Number, vs[1].SnapshotID},
+		Events: res, Quality: qualityDelta(vs[0], vs[1]),
+	}
+	var sums [2]map[string]any
+	for i, v := range vs {
+		b, err := s.cfg.Store.Summary(ctx, v)
+		if err != nil {
+			return catalogError(err)
+		}
+		if err := json.Unmarshal(b, &sums[i]); err != nil {
+			return err
+		}
+	}
+	out.Summary = summaryDelta(sums[0], sums[1])
+	return c.JSON(http.StatusOK, out)
+}
+
+// headline figures of a summary, as JSON paths.
+var headline = []string{"events", "cases.value", "subjects.value", "resources.value", "arrivals.total",
+	"length_of_stay.mean", "length_of_stay.p50", "length_of_stay.p90", "occupancy.peak", "occupancy.little.l", "occupancy.little.lambda_w"}
+
+func summaryDelta(a, b map[string]any) map[string]*float64 {
+	out := map[string]*float64{}
+	for _, path := range headline {
+		x, okA := lookup(a, path)
+		y, okB := lookup(b, path)
+		if okA && okB {
+			d := y - x
+			out[path] = &d
+		} else {
+			out[path] = nil
+		}
+	}
+	return out
+}
+
+func lookup(m map[string]any, path string) (float64, bool) {
+	var cur any = m
+	for _, k := range strings.Split(path, ".") {
+		mm, ok := cur.(map[string]any)
+		if !ok {
+			return 0, false
+		}
+		cur = mm[k]
+	}
+	f, ok := cur.(float64)
+	return f, ok
+}
+
+// qualityDelta is b's scores minus a's: the overall score and each
+// dimension's, read from the reports' JSON so it follows the report format.
+func qualityDelta(a, b *catalog.Version) map[string]float64 {
+	scores := func(v *catalog.Version) map[string]float64 {
+		out := map[string]float64{}
+		var m map[string]any
+		raw, err := json.Marshal(v.Manifest.Quality)
+		if err != nil || json.Unmarshal(raw, &m) != nil {
+			return out
+		}
+		if f, ok := m["score"].(float64); ok {
+			out["score"] = f
+		}
+		if dims, ok := m["dimensions"].([]any); ok {
+			for _, d := range dims {
+				dm, _ := d.(map[string]any)
+				name, _ := dm["name"].(string)
+				if f, ok := dm["score"].(float64); ok && name != "" {
+					out[name] = f
+				}
+			}
+		}
+		return out
+	}
+	sa, sb := scores(a), scores(b)
+	out := map[string]float64{}
+	for k, y := range sb {
+		if x, ok := sa[k]; ok {
+			out[k] = y - x
+		}
+	}
+	return out
+}
