@@ -170,3 +170,85 @@ func TestSnapshotWorkflow(t *testing.T) {
 		t.Errorf("verify: %q", out)
 	}
 }
+
+// TestViewCommands covers summary, export, bundle, cite and diff through
+// the command line.
+func TestViewCommands(t *testing.T) {
+	dir := t.TempDir()
+	data := filepath.Join(dir, "data")
+	t.Setenv("FLOWCAT_MASTER_KEY", "")
+	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
+	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
+		t.Fatalf("init: %s", errs)
+	}
+	_, serveErr, _ := background(t, "serve", "--data", data, "--addr", "127.0.0.1:0")
+	url := waitFor(t, "the server's URL", func() string {
+		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
+			return m[1]
+		}
+		return ""
+	})
+	tok := func(args ...string) map[string]string {
+		code, out, errs := run(t, nil, append([]string{"token", "issue", "--data", data}, args...)...)
+		if code != 0 {
+			t.Fatalf("token issue: %s", errs)
+		}
+		return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": strings.TrimSpace(out)}
+	}
+	admin, member := tok("--role", "admin", "--subject", "ops"), tok("--role", "member", "--subject", "s", "--project", "flow")
+	must := func(env map[string]string, args ...string) string {
+		t.Helper()
+		code, out, errs := run(t, env, args...)
+		if code != 0 {
+			t.Fatalf("%v: exit %d: %s%s", args, code, out, errs)
+		}
+		return out
+	}
+	must(admin, "project", "create", "flow")
+	must(admin, "dataset", "create", "flow/visits")
+	files := t.TempDir()
+	must(admin, "upload", "flow/visits", writeFile(t, files, "n1.csv", night(1, "RAW")))
+	must(admin, "upload", "flow/visits", writeFile(t, files, "n2.csv", night(2, "RAW")))
+
+	out := must(member, "summary", "flow/visits")
+	for _, want := range []string{"arrival", "wait", "main", "consult"} {
+		if !strings.Contains(strings.ToLower(out), want) {
+			t.Errorf("summary text lacks %q:\n%s", want, out)
+		}
+	}
+	var sum struct {
+		Events int `json:"events"`
+	}
+	if err := json.Unmarshal([]byte(must(member, "summary", "flow/visits@1", "--json")), &sum); err != nil || sum.Events != 160 {
+		t.Errorf("summary @1 --json: %+v %v", sum, err)
+	}
+	if err := json.Unmarshal([]byte(must(member, "summary", "flow/visits", "--json", "--from", "2026-03-03T00:00:00Z")), &sum); err != nil || sum.Events != 160 {
+		t.Errorf("filtered summary: %+v %v", sum, err)
+	}
+
+	csvPath := filepath.Join(dir, "starts.csv")
+	must(member, "export", "flow/visits", "-o", csvPath, "--format", "csv", "--type", "start", "--columns", "occurred_at,case_id")
+	b, err := os.ReadFile(csvPath)
+	if err != nil || !strings.HasPrefix(string(b), "case_id,occurred_at\r\n") || strings.Count(string(b), "\r\n") != 81 {
+		t.Errorf("export csv: %v %q", err, firstLine(string(b)))
+	}
+	if code, _, errs := run(t, member, "export", "flow/visits", "-o", csvPath, "--columns", "ward"); code != 1 || !strings.Contains(errs, "unknown column") {
+		t.Errorf("export with a bad column: exit %d %q", code, errs)
+	}
+	must(member, "bundle", "flow/visits@2", "-o", filepath.Join(dir, "v2.zip"), "--format", "zip")
+	if fi, err := os.Stat(filepath.Join(dir, "v2.zip")); err != nil || fi.Size() < 1000 {
+		t.Errorf("bundle: %v", err)
+	}
+	if out := must(member, "cite", "flow/visits@2"); !strings.Contains(out, "cff-version: 1.2.0") {
+		t.Errorf("cite: %q", out)
+	}
+	out = must(member, "diff", "flow/visits@1", "flow/visits@2")
+	if !strings.Contains(out, "160 events added, 0 removed") || !strings.Contains(out, "2026-03-03") {
+		t.Errorf("diff:\n%s", out)
+	}
+	if code, _, _ := run(t, member, "diff", "flow/visits@1", "other/visits@2"); code != 2 {
+		t.Errorf("diff across datasets: exit %d, want 2", code)
+	}
+}
+
+func firstLine(s string) string { l, _, _ := strings.Cut(s, "\n"); return l }

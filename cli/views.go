@@ -1,0 +1,336 @@
+package cli
+
+import (
+	"encoding/json"
+	"fmt"
+	"io"
+	"net/http"
+	"net/url"
+	"os"
+	"path/filepath"
+	"strings"
+	"text/tabwriter"
+
+	"github.com/spf13/cobra"
+
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
+)
+
+// filterFlags are the event filters of summary, export and diff.
+type filterFlags struct {
+	from, to                         string
+	sites, queues, types, activities []string
+	columns                          []string
+}
+
+func (f *filterFlags) add(c *cobra.Command, withTypes, withColumns bool) {
+	fl := c.Flags()
+	fl.StringVar(&f.from, "from", "", "only events at or after this RFC 3339 instant")
+	fl.StringVar(&f.to, "to", "", "only events before this RFC 3339 instant")
+	fl.StringSliceVar(&f.sites, "site", nil, "only these sites (repeatable or comma-separated)")
+	fl.StringSliceVar(&f.queues, "queue", nil, "only these queues")
+	fl.StringSliceVar(&f.activities, "activity", nil, "only these activities")
+	if withTypes {
+		fl.StringSliceVar(&f.types, "type", nil, "only these event types")
+	}
+	if withColumns {
+		fl.StringSliceVar(&f.columns, "columns", nil, "only these columns (schema field names)")
+	}
+}
+
+// query returns the filters as query parameters; the server checks them.
+func (f *filterFlags) query() url.Values {
+	q := url.Values{}
+	if f.from != "" {
+		q.Set("from", f.from)
+	}
+	if f.to != "" {
+		q.Set("to", f.to)
+	}
+	for k, v := range map[string][]string{"site": f.sites, "queue": f.queues, "type": f.types, "activity": f.activities, "columns": f.columns} {
+		if len(v) > 0 {
+			q.Set(k, strings.Join(v, ","))
+		}
+	}
+	return q
+}
+
+func newSummaryCmd(e *env) *cobra.Command {
+	var ff filterFlags
+	c := &cobra.Command{
+		Use:   "summary PROJECT/DATASET[@VERSION] [filters]",
+		Short: "Show a version's operational summary: arrivals, waits, patience, service times, stays, occupancy",
+		Long: `Summary prints the summary stored with a version. With --site, --from or --to the server computes
+it from the version's files for those events only; --queue and --activity restrict the queue and
+activity tables. The figures describe past operations; they are not advice on any patient's care.`,
+		Args: cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := parseRef(args[0], true)
+			if err != nil {
+				return err
+			}
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			resp, err := cl.do(cmd.Context(), http.MethodGet, r.versionPath()+"/summary", ff.query(), nil, nil)
+			if err != nil {
+				return err
+			}
+			defer resp.Body.Close()
+			b, err := io.ReadAll(resp.Body)
+			if err != nil {
+				return fmt.Errorf("summary: %w", err)
+			}
+			if e.json {
+				_, err := e.stdout.Write(append(b, '\n'))
+				return err
+			}
+			var s summary.Summary
+			if err := json.Unmarshal(b, &s); err != nil {
+				return fmt.Errorf("summary: %w", err)
+			}
+			fmt.Fprintf(e.stdout, "%s\n\n", r)
+			return s.Text(e.stdout, e.tty())
+		},
+	}
+	ff.add(c, false, false)
+	return c
+}
+
+// download writes the body of a GET to path (or stdout for "-"),
+// atomically for files.
+func (e *env) download(cmd *cobra.Command, cl *client, path string, q url.Values, out string) (int64, error) {
+	resp, err := cl.do(cmd.Context(), http.MethodGet, path, q, nil, nil)
+	if err != nil {
+		return 0, err
+	}
+	defer resp.Body.Close()
+	if out == "-" {
+		return io.Copy(e.stdout, resp.Body)
+	}
+	tmp, err := os.CreateTemp(filepath.Dir(out), ".flowcat-*")
+	if err != nil {
+		return 0, usageErr("%v", err)
+	}
+	defer os.Remove(tmp.Name())
+	n, err := io.Copy(tmp, resp.Body)
+	if err != nil {
+		tmp.Close()
+		return n, fmt.Errorf("download interrupted after %d bytes: %w", n, err)
+	}
+	if err := tmp.Close(); err != nil {
+		return n, err
+	}
+	return n, os.Rename(tmp.Name(), out)
+}
+
+func newExportCmd(e *env) *cobra.Command {
+	var ff filterFlags
+	var out, format string
+	c := &cobra.Command{
+		Use:   "export PROJECT/DATASET[@VERSION] -o FILE [--format parquet|csv] [filters]",
+		Short: "Download a version, or the events and columns you choose, as one Parquet or CSV file",
+		Long: `Export writes one file holding a version's events in a fixed order (time, then content): the same
+request always gives the same bytes. Filters keep a time window, sites, queues, event types,
+activities and columns; the server reads only the row groups they need. CSV follows RFC 4180.
+-o - writes to stdout.`,
+		Args: cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := parseRef(args[0], true)
+			if err != nil {
+				return err
+			}
+			if out == "" {
+				return usageErr("export: -o FILE is required (- for stdout)")
+			}
+			if format != "parquet" && format != "csv" {
+				return usageErr("export: --format %q: want parquet or csv", format)
+			}
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			q := ff.query()
+			q.Set("format", format)
+			n, err := e.download(cmd, cl, r.versionPath()+"/export", q, out)
+			if err != nil {
+				return err
+			}
+			if out != "-" && !e.quiet {
+				fmt.Fprintf(e.stderr, "wrote %s (%d bytes)\n", out, n)
+			}
+			return nil
+		},
+	}
+	ff.add(c, true, true)
+	c.Flags().StringVarP(&out, "output", "o", "", "file to write (- for stdout)")
+	c.Flags().StringVar(&format, "format", "parquet", "parquet or csv")
+	return c
+}
+
+func newBundleCmd(e *env) *cobra.Command {
+	var out, format string
+	c := &cobra.Command{
+		Use:   "bundle PROJECT/DATASET[@VERSION] -o FILE [--format tar|zip]",
+		Short: "Download a version as one archive: Parquet files, manifest, dictionary, README, checksums, CITATION.cff",
+		Args:  cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := parseRef(args[0], true)
+			if err != nil {
+				return err
+			}
+			if out == "" {
+				return usageErr("bundle: -o FILE is required (- for stdout)")
+			}
+			if format != "tar" && format != "zip" {
+				return usageErr("bundle: --format %q: want tar or zip", format)
+			}
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			n, err := e.download(cmd, cl, r.versionPath()+"/bundle", url.Values{"format": {format}}, out)
+			if err != nil {
+				return err
+			}
+			if out != "-" && !e.quiet {
+				fmt.Fprintf(e.stderr, "wrote %s (%d bytes)\n", out, n)
+			}
+			return nil
+		},
+	}
+	c.Flags().StringVarP(&out, "output", "o", "", "file to write (- for stdout)")
+	c.Flags().StringVar(&format, "format", "tar", "tar or zip")
+	return c
+}
+
+func newCiteCmd(e *env) *cobra.Command {
+	return &cobra.Command{
+		Use:   "cite PROJECT/DATASET[@VERSION]",
+		Short: "Print a version's CITATION.cff (Citation File Format 1.2.0)",
+		Args:  cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := parseRef(args[0], true)
+			if err != nil {
+				return err
+			}
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			_, err = e.download(cmd, cl, r.versionPath()+"/citation", nil, "-")
+			return err
+		},
+	}
+}
+
+type diffAnswer struct {
+	From struct {
+		Version    int    `json:"version"`
+		SnapshotID string `json:"snapshot_id"`
+	} `json:"from"`
+	To struct {
+		Version    int    `json:"version"`
+		SnapshotID string `json:"snapshot_id"`
+	} `json:"to"`
+	Events struct {
+		Added       int64 `json:"added"`
+		Removed     int64 `json:"removed"`
+		Same        int64 `json:"same"`
+		SharedFiles int   `json:"shared_files"`
+		SharedRows  int64 `json:"shared_rows"`
+		BySite      []struct {
+			Site    string `json:"site"`
+			Day     string `json:"day"`
+			Added   int64  `json:"added"`
+			Removed int64  `json:"removed"`
+		} `json:"by_site_day"`
+	} `json:"events"`
+	Quality map[string]float64  `json:"quality_delta"`
+	Summary map[string]*float64 `json:"summary_delta"`
+}
+
+func newDiffCmd(e *env) *cobra.Command {
+	var ff filterFlags
+	c := &cobra.Command{
+		Use:   "diff PROJECT/DATASET@A PROJECT/DATASET@B [filters]",
+		Short: "Compare two versions by content: events added and removed per site and day, quality and summary deltas",
+		Args:  cobra.ExactArgs(2),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			a, err := parseRef(args[0], true)
+			if err != nil {
+				return err
+			}
+			b, err := parseRef(args[1], true)
+			if err != nil {
+				return err
+			}
+			if a.Project != b.Project || a.Dataset != b.Dataset {
+				return usageErr("diff: both versions must be of one dataset, not %s and %s", a.Project+"/"+a.Dataset, b.Project+"/"+b.Dataset)
+			}
+			sel := func(r ref) string {
+				if r.Selector == "" {
+					return "latest"
+				}
+				return r.Selector
+			}
+			q := ff.query()
+			q.Set("a", sel(a))
+			q.Set("b", sel(b))
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			resp, err := cl.do(cmd.Context(), http.MethodGet, a.path()+"/diff", q, nil, nil)
+			if err != nil {
+				return err
+			}
+			defer resp.Body.Close()
+			var d diffAnswer
+			raw, err := io.ReadAll(resp.Body)
+			if err != nil {
+				return err
+			}
+			if e.json {
+				_, err := e.stdout.Write(append(raw, '\n'))
+				return err
+			}
+			if err := json.Unmarshal(raw, &d); err != nil {
+				return fmt.Errorf("diff: %w", err)
+			}
+			ds := a.Project + "/" + a.Dataset
+			fmt.Fprintf(e.stdout, "%s@%d -> @%d: %d events added, %d removed, %d the same (%d files shared, %d rows)\n",
+				ds, d.From.Version, d.To.Version, d.Events.Added, d.Events.Removed, d.Events.Same+d.Events.SharedRows, d.Events.SharedFiles, d.Events.SharedRows)
+			if len(d.Events.BySite) > 0 {
+				tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
+				fmt.Fprintln(tw, "\nSITE\tDAY (UTC)\tADDED\tREMOVED")
+				for _, c := range d.Events.BySite {
+					fmt.Fprintf(tw, "%s\t%s\t%d\t%d\n", c.Site, c.Day, c.Added, c.Removed)
+				}
+				tw.Flush()
+			}
+			if v, ok := d.Quality["score"]; ok {
+				fmt.Fprintf(e.stdout, "\nquality score %+.1f", v)
+				for k, x := range d.Quality {
+					if k != "score" && x != 0 {
+						fmt.Fprintf(e.stdout, ", %s %+.1f", k, x)
+					}
+				}
+				fmt.Fprintln(e.stdout)
+			}
+			var parts []string
+			for _, k := range []string{"events", "cases.value", "arrivals.total", "length_of_stay.p50", "occupancy.peak"} {
+				if v := d.Summary[k]; v != nil && *v != 0 {
+					parts = append(parts, fmt.Sprintf("%s %+g", k, *v))
+				}
+			}
+			if len(parts) > 0 {
+				fmt.Fprintf(e.stdout, "summary: %s\n", strings.Join(parts, ", "))
+			}
+			return nil
+		},
+	}
+	ff.add(c, true, false)
+	return c
+}
