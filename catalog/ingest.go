@@ -122,7 +122,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 
 	raw := &hashCounter{h: sha256.New()}
 	tee := io.TeeReader(src, raw)
-	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof)}
+	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location()}
 	if ds.WindowFrom != nil {
 		qopt.WindowFrom = *ds.WindowFrom
 	}
@@ -424,6 +424,7 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 		// Snapshots keep microseconds; truncate before any comparison so
 		// quality, sort order and the file agree.
 		e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
+		acc.ObserveFileOrder(&e)
 		if err := srt.Add(&e); err != nil {
 			return err
 		}

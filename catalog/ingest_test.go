@@ -188,7 +188,7 @@ func TestCanonicalRoundTrip(t *testing.T) {
 		},
 		TimeRange:  quality.TimeRange{First: &at, Last: nil},
 		Sites:      quality.Sites{Counts: []quality.SiteCount{{Site: "<north> & \"south\" \u2028 é", Count: 2}}},
-		Dimensions: []quality.Dimension{{Name: quality.DimValidity, Score: &third, Weight: 0.35}, {Name: quality.DimUniqueness}},
+		Dimensions: []quality.Dimension{{Name: quality.DimAccuracy, Score: &third, Weight: 0.35}, {Name: quality.DimUniqueness}},
 		Rejections: []quality.RejectionCount{},
 	}
 	m := Manifest{

@@ -2,8 +2,7 @@ package quality
 
 import (
 	"hash/maphash"
-	"maps"
-	"slices"
+	"math/bits"
 	"strings"
 	"time"
 
@@ -12,25 +11,44 @@ import (
 
 // Defaults applied by [NewAccumulator] to zero [Options] fields.
 const (
-	DefaultCaseHorizon = 30 * 24 * time.Hour
-	DefaultMaxSamples  = 5
+	DefaultCaseHorizon      = 30 * 24 * time.Hour
+	DefaultMaxSamples       = 5
+	DefaultMaxCase          = 30 * 24 * time.Hour
+	DefaultMaxService       = 24 * time.Hour
+	DefaultResourceCapacity = 1
+	DefaultClockTolerance   = 5 * time.Minute
+	DefaultEventIDWindow    = 24 * time.Hour
+	DefaultLittleTolerance  = 0.10
+	DefaultGapMinMean       = 5.0
+	DefaultGapMinWeeks      = 3
+	DefaultStaleAfter       = 7 * 24 * time.Hour
+	// DefaultMaxHours is how many hours from a site's first event the
+	// hourly series for the gap check covers (two years).
+	DefaultMaxHours = 2 * 366 * 24
 )
 
-// maxSites caps the per-site counters; events of further sites are
-// counted together as "other".
-const maxSites = 1000
+// maxSites caps the sites told apart; events of further sites are counted
+// together under the site name [OtherSite].
+const maxSites = 256
+
+// OtherSite is the site name under which events of sites beyond the
+// 256th are counted.
+const OtherSite = "(other)"
+
+// maxKeys caps the (queue, activity) pairs and the resources told apart.
+const maxKeys = 1 << 16
 
 // defaultPruneEvery is the least number of events between two sweeps of
-// idle cases; a sweep also waits for as many events as the last sweep
-// kept cases, so its cost per event stays constant and at most twice the
-// cases active within the horizon are held.
+// idle records; a sweep also waits for as many events as the last sweep
+// kept records, so its cost per event stays constant and at most twice
+// the records active within the horizon are held.
 const defaultPruneEvery = 1 << 16
 
 // Options tune an [Accumulator]. The zero value checks nothing against
 // the calendar and uses the defaults.
 type Options struct {
 	// UploadedAt is when the upload arrived; events later than it are
-	// "in the future". Zero disables the check.
+	// "in the future" and the lag is measured to it. Zero disables both.
 	UploadedAt time.Time
 	// WindowFrom and WindowTo are the dataset's declared period, the
 	// half-open interval [WindowFrom, WindowTo); a zero bound is open.
@@ -40,88 +58,228 @@ type Options struct {
 	// empty, it averages the optional fields that hold a value in at
 	// least one accepted row (see SCORING.md).
 	MappedFields []schema.Field
+	// Zone is the dataset's local clock, in which the resolution grid,
+	// the heaping and the hour-of-week of the gap check are judged; nil
+	// means UTC.
+	Zone *time.Location
 	// CaseHorizon bounds memory: the state of a case idle for longer than
 	// this (in event time) is dropped, so a later event of that case is
 	// checked as if the case were new. Default [DefaultCaseHorizon].
 	CaseHorizon time.Duration
+	// MaxCase is the longest plausible case, first to latest event.
+	// Default [DefaultMaxCase].
+	MaxCase time.Duration
+	// MaxService is the longest plausible service step (start to
+	// complete), by activity; the key "" is the default for activities
+	// not listed, itself [DefaultMaxService] when absent.
+	MaxService map[string]time.Duration
+	// ResourceCapacity is how many cases one resource may serve at once.
+	// Default [DefaultResourceCapacity].
+	ResourceCapacity int
+	// ClockTolerance is how far a site's time may step back between two
+	// consecutive rows in file order before the clock counts as going
+	// backwards. Default [DefaultClockTolerance].
+	ClockTolerance time.Duration
+	// EventIDWindow is how far apart in time two events may be and still
+	// be found sharing an event_id. Default [DefaultEventIDWindow].
+	EventIDWindow time.Duration
+	// LittleTolerance is how far L / (λ·W) may stray from 1 before
+	// Little's law counts as violated. Default [DefaultLittleTolerance].
+	LittleTolerance float64
+	// GapMinMean and GapMinWeeks: an hour (day) with no events is a gap
+	// when its hour of week (day of week) was observed at least
+	// GapMinWeeks times with a mean of at least GapMinMean events.
+	GapMinMean  float64
+	GapMinWeeks int
+	// StaleAfter: a site whose newest event is older than this before
+	// UploadedAt is stale. Default [DefaultStaleAfter].
+	StaleAfter time.Duration
+	// MaxHours is how many hours the gap series of one site spans.
+	// Default [DefaultMaxHours].
+	MaxHours int
 	// MaxSamples is how many sample locations each finding keeps.
 	// Default [DefaultMaxSamples].
 	MaxSamples int
 }
 
+func (o *Options) defaults() {
+	if o.CaseHorizon <= 0 {
+		o.CaseHorizon = DefaultCaseHorizon
+	}
+	if o.MaxCase <= 0 {
+		o.MaxCase = DefaultMaxCase
+	}
+	if o.ResourceCapacity <= 0 {
+		o.ResourceCapacity = DefaultResourceCapacity
+	}
+	if o.ClockTolerance <= 0 {
+		o.ClockTolerance = DefaultClockTolerance
+	}
+	if o.EventIDWindow <= 0 {
+		o.EventIDWindow = DefaultEventIDWindow
+	}
+	if o.LittleTolerance <= 0 {
+		o.LittleTolerance = DefaultLittleTolerance
+	}
+	if o.GapMinMean <= 0 {
+		o.GapMinMean = DefaultGapMinMean
+	}
+	if o.GapMinWeeks <= 0 {
+		o.GapMinWeeks = DefaultGapMinWeeks
+	}
+	if o.StaleAfter <= 0 {
+		o.StaleAfter = DefaultStaleAfter
+	}
+	if o.MaxHours <= 0 {
+		o.MaxHours = DefaultMaxHours
+	}
+	if o.MaxSamples <= 0 {
+		o.MaxSamples = DefaultMaxSamples
+	}
+	if o.Zone == nil {
+		o.Zone = time.UTC
+	}
+}
+
 // Accumulator gathers the quality counts of one upload. It is not safe
-// for concurrent use; give each file its own and [Accumulator.Merge] them.
+// for concurrent use.
 //
-// Precondition: [Accumulator.Observe] receives the events of one file in
-// non-decreasing OccurredAt order. The duplicate and per-case checks rely
-// on it; an event earlier than its predecessor is counted as an internal
-// "order_breach" finding and skips those two checks.
+// Protocol: [Accumulator.Reject] for each rejected row and
+// [Accumulator.ObserveFileOrder] for each accepted event, both in file
+// order; then [Accumulator.Observe] for each accepted event in
+// non-decreasing OccurredAt order; then [Accumulator.Report]. An event
+// given to Observe earlier than its predecessor is counted as the
+// internal "order_breach" finding and skips the checks that need order.
 //
 // Instants are compared at microsecond precision, the precision of the
 // snapshots.
 type Accumulator struct {
-	opt                 Options
-	uploadAt            int64
-	fromAt, toAt        int64
-	hasUpload           bool
-	hasFrom, hasTo      bool
-	horizon             uint64 // microseconds
-	pruneEvery          int
-	seed                maphash.Seed
-	accepted, rejected  int64
-	reasons             map[schema.Reason]*finding
-	nonEmpty            [numFields]int64
-	emptySamples        [numFields][]Sample
-	hasTime             bool
-	minAt, maxAt        int64
-	first, last         time.Time
-	future, outside     finding
-	startBeforeArrival  finding
-	completeBeforeStart finding
-	timeRows            int64 // accepted rows with any timestamp problem
-	dups                finding
-	orderBreaches       finding
-	sites               map[string]*int64
-	siteOther           int64
-	siteCache           [4]siteCounter
-	siteNext            int
+	opt            Options
+	uploadAt       int64
+	fromAt, toAt   int64
+	hasUpload      bool
+	hasFrom, hasTo bool
+	horizon        uint64 // microseconds
+	maxCase        uint64
+	maxService     int64
+	maxServiceAct  map[string]int64
+	idWindow       uint64
+	clockTol       int64
+	pruneEvery     int
+	seed           maphash.Seed
+	rejected       int64
+	reasons        map[schema.Reason]*rejFinding
+	samples        [numCodes][]Sample
+	emptySamples   [numFields][]Sample
+	sites          []*siteAcc
+	siteIndex      map[string]int
+	siteCache      [4]*siteAcc
+	siteNext       int
+	waits          []waitAcc
+	waitIndex      map[waitKey]int32
+	waitCache      int32 // index+1 of the last (queue, activity) looked up
+	resources      []resAcc
+	resIndex       map[string]int32
+	zLo, zHi, zOff int64 // the zone offset (µs) valid in [zLo, zHi)
+	zKnown         bool
 
-	// stream state, per file
-	seen       bool
-	curAt      int64
-	inst       instantSet
-	base       int64     // the file's first instant
-	cases      caseTable // see cases.go
-	sincePrune int
-	keptCases  int // cases left by the last sweep
+	// stream state
+	seen                  bool
+	curAt                 int64
+	inst                  instantSet
+	base                  int64 // the first instant
+	cases                 table[caseState]
+	ids                   table[struct{}]
+	sincePrune            int
+	keptCases             int
+	sinceIDPrune, keptIDs int
 }
 
-// finding is a count with its first samples.
-type finding struct {
+// rejFinding is a rejection count with its first samples.
+type rejFinding struct {
 	n       int64
 	samples []Sample
 }
 
-func (f *finding) add(max int, s Sample) {
-	f.n++
-	if len(f.samples) < max {
-		f.samples = append(f.samples, s)
-	}
+// Finding codes counted per site, in report order within each dimension.
+const (
+	cLaterThanUpload = iota
+	cOutsideWindow
+	cClockBackwards
+	cStartBeforeArrival
+	cCompleteBeforeStart
+	cDepartureBeforeArrival
+	cAfterDeparture
+	cCaseTooLong
+	cServiceTooLong
+	cSameInstantOrder
+	cSameInstant
+	cResourceOverlap
+	cSiteChange
+	cCensusNegative
+	cExactDuplicate
+	cDuplicateEventID
+	cDuplicateCaseTypeTime
+	cWaitNoEnqueue
+	cWaitNoStart
+	cOrderBreach
+	numCodes
+)
+
+var codeNames = [numCodes]string{
+	CodeLaterThanUpload, CodeOutsideWindow, CodeClockBackwards, CodeStartBeforeArrival,
+	CodeCompleteBeforeStart, CodeDepartureBeforeArrival, CodeActivityAfterDeparture,
+	CodeCaseTooLong, CodeServiceTooLong, CodeSameInstantOrder, CodeSameInstant,
+	CodeResourceOverlap, CodeSiteChangeWithoutTransfer, CodeCensusNegative,
+	CodeExactDuplicate, CodeDuplicateEventID, CodeDuplicateCaseTypeTime,
+	CodeWaitNoEnqueue, CodeWaitNoStart, CodeOrderBreach,
 }
 
-func (f *finding) merge(max int, g *finding) {
-	f.n += g.n
-	f.samples = appendSamples(f.samples, max, g.samples)
-}
+// Resolution grids, finest first.
+const (
+	gMilli = iota
+	gSecond
+	gMinute
+	g5Minute
+	g15Minute
+	gHour
+	gDay
+	numGrids
+)
 
-func appendSamples(dst []Sample, max int, src []Sample) []Sample {
-	for _, s := range src {
-		if len(dst) >= max {
-			break
-		}
-		dst = append(dst, s)
+var gridNames = [numGrids]string{"millisecond", "second", "minute", "5_minutes", "15_minutes", "hour", "day"}
+var gridMicros = [numGrids]int64{1e3, 1e6, 60e6, 300e6, 900e6, 3600e6, 86400e6}
+
+// Event-type positions in schema.EventTypes order.
+const (
+	tArrival = iota
+	tEnqueue
+	tStart
+	tComplete
+	tAbandon
+	tTransfer
+	tDeparture
+	numTypes
+)
+
+func typeIndex(t schema.EventType) int {
+	switch t {
+	case schema.Arrival:
+		return tArrival
+	case schema.Enqueue:
+		return tEnqueue
+	case schema.Start:
+		return tStart
+	case schema.Complete:
+		return tComplete
+	case schema.Abandon:
+		return tAbandon
+	case schema.Transfer:
+		return tTransfer
+	case schema.Departure:
+		return tDeparture
 	}
-	return dst
+	return tTransfer // not reached for accepted events
 }
 
 // Field positions in schema.Fields order.
@@ -141,22 +299,97 @@ const (
 	numFields
 )
 
+const lagBuckets = 8 * 64
+
+// siteAcc holds the counts of one site.
+type siteAcc struct {
+	name         string
+	idx          int
+	events       int64
+	n            [numCodes]int64
+	accRows      int64 // rows with an accuracy problem found in time order
+	conRows      int64
+	uniRows      int64
+	nonEmpty     [numFields]int64
+	byType       [numTypes]int64
+	typeNonEmpty [numTypes][numFields]int64
+	grid         [numGrids]int64
+	// stage coverage of the case records still held is added at report time
+	stages stageCounts
+	// census and Little's law
+	hasAt     bool
+	firstAt   int64 // µs, absolute
+	lastAt    int64
+	census    int64
+	censusMin int64
+	area      float64 // case·µs
+	arrivals  int64
+	completed int64
+	sojourn   float64 // µs
+	// lag to the upload
+	lag    [lagBuckets]int64
+	lagMax int64 // seconds
+	lagN   int64
+	// hourly series
+	hourStart int64 // unix hour of hours[0]
+	hours     []uint32
+	hoursOut  int64 // events beyond the series
+	// file order
+	fileSeen  bool
+	fileLast  int64
+	fileRows  int64
+	fileJumps int64
+}
+
+// stageCounts counts cases and those with each stage.
+type stageCounts struct {
+	cases, arrival, start, complete, departure int64
+}
+
+type waitKey struct{ queue, activity string }
+
+type waitAcc struct {
+	key                       waitKey
+	waits, noEnqueue, noStart int64
+}
+
+type resAcc struct {
+	open []openInterval
+}
+
+type openInterval struct {
+	caseKey uint64
+	at      int64 // rel µs
+}
+
 // NewAccumulator returns an empty accumulator for one upload.
 func NewAccumulator(opt Options) *Accumulator {
-	if opt.CaseHorizon <= 0 {
-		opt.CaseHorizon = DefaultCaseHorizon
-	}
-	if opt.MaxSamples <= 0 {
-		opt.MaxSamples = DefaultMaxSamples
-	}
+	opt.defaults()
 	a := &Accumulator{
 		opt:        opt,
 		horizon:    uint64(opt.CaseHorizon.Microseconds()),
+		maxCase:    uint64(opt.MaxCase.Microseconds()),
+		maxService: DefaultMaxService.Microseconds(),
+		idWindow:   uint64(opt.EventIDWindow.Microseconds()),
+		clockTol:   opt.ClockTolerance.Microseconds(),
 		pruneEvery: defaultPruneEvery,
 		seed:       maphash.MakeSeed(),
-		reasons:    make(map[schema.Reason]*finding),
-		sites:      make(map[string]*int64),
-		cases:      newCaseTable(),
+		reasons:    make(map[schema.Reason]*rejFinding),
+		siteIndex:  make(map[string]int),
+		waitIndex:  make(map[waitKey]int32),
+		resIndex:   make(map[string]int32),
+		cases:      newTable[caseState](),
+		ids:        newTable[struct{}](),
+	}
+	for act, d := range opt.MaxService {
+		if act == "" {
+			a.maxService = d.Microseconds()
+			continue
+		}
+		if a.maxServiceAct == nil {
+			a.maxServiceAct = map[string]int64{}
+		}
+		a.maxServiceAct[act] = d.Microseconds()
 	}
 	if !opt.UploadedAt.IsZero() {
 		a.hasUpload, a.uploadAt = true, opt.UploadedAt.UnixMicro()
@@ -170,131 +403,43 @@ func NewAccumulator(opt Options) *Accumulator {
 	return a
 }
 
-// Observe counts one accepted event. See the order precondition on
-// [Accumulator]. e may be reused once Observe returns.
-func (a *Accumulator) Observe(e *schema.Event) {
-	if e == nil {
-		return
-	}
-	a.accepted++
-	a.countFields(e)
-	at := e.OccurredAt.UnixMicro()
-	if !a.hasTime || at < a.minAt {
-		a.minAt, a.first = at, e.OccurredAt
-	}
-	if !a.hasTime || at > a.maxAt {
-		a.maxAt, a.last = at, e.OccurredAt
-	}
-	a.hasTime = true
-	a.countSite(e.Site)
-
-	problem := false
-	if a.hasUpload && at > a.uploadAt {
-		a.future.add(a.opt.MaxSamples, sampleOf(e))
-		problem = true
-	}
-	if (a.hasFrom && at < a.fromAt) || (a.hasTo && at >= a.toAt) {
-		a.outside.add(a.opt.MaxSamples, sampleOf(e))
-		problem = true
-	}
-
-	switch {
-	case a.seen && at < a.curAt:
-		a.orderBreaches.add(a.opt.MaxSamples, sampleOf(e))
-		if problem {
-			a.timeRows++
-		}
-		return
-	case !a.seen:
-		a.base = at
-		fallthrough
-	case at > a.curAt:
-		a.inst.reset()
-		a.curAt, a.seen = at, true
-	}
-	if a.inst.add(e, a.seed) {
-		a.dups.add(a.opt.MaxSamples, sampleOf(e))
-	}
-	rel := uint64(at - a.base)
-	if rel > maxRel {
-		// Beyond the span a case record holds (about 2283 years from the
-		// file's first event: only a placeholder date gets here): saturate
-		// rather than wrap.
-		rel = maxRel
-	}
-	if a.observeCase(e, rel) {
-		problem = true
-	}
-	if problem {
-		a.timeRows++
-	}
-	a.sincePrune++
-	if a.sincePrune >= a.pruneEvery && a.sincePrune >= a.keptCases {
-		a.prune(rel)
-	}
-}
-
 func sampleOf(e *schema.Event) Sample {
 	return Sample{Line: e.Line, CaseID: e.CaseID}
 }
 
-func (a *Accumulator) countFields(e *schema.Event) {
-	if e.Site != "" {
-		a.nonEmpty[fSite]++
-	}
-	if e.CaseID != "" {
-		a.nonEmpty[fCaseID]++
-	}
-	if e.Type != "" {
-		a.nonEmpty[fEventType]++
-	}
-	if !e.OccurredAt.IsZero() {
-		a.nonEmpty[fOccurredAt]++
-	}
-	a.optional(fSubjectID, e.SubjectID, e)
-	a.optional(fResourceID, e.ResourceID, e)
-	a.optional(fActivity, e.Activity, e)
-	a.optional(fQueue, e.Queue, e)
-	a.optional(fPriority, e.Priority, e)
-	a.optional(fChannel, e.Channel, e)
-	a.optional(fOutcome, e.Outcome, e)
-	a.optional(fEventID, e.EventID, e)
-}
-
-func (a *Accumulator) optional(i int, v string, e *schema.Event) {
-	if v != "" {
-		a.nonEmpty[i]++
-	} else if len(a.emptySamples[i]) < a.opt.MaxSamples {
-		a.emptySamples[i] = append(a.emptySamples[i], sampleOf(e))
+// flag counts one finding of code c at site s, keeping a sample of e.
+func (a *Accumulator) flag(s *siteAcc, c int, e *schema.Event) {
+	s.n[c]++
+	if len(a.samples[c]) < a.opt.MaxSamples {
+		a.samples[c] = append(a.samples[c], Sample{Line: e.Line, CaseID: strings.Clone(e.CaseID)})
 	}
 }
 
-func (a *Accumulator) countSite(site string) {
+// site returns the counters of site name.
+func (a *Accumulator) site(name string) *siteAcc {
 	// Files hold one or a few sites: a tiny cache spares most map lookups.
-	for i := range a.siteCache {
-		if c := &a.siteCache[i]; c.n != nil && c.site == site {
-			*c.n++
-			return
+	for _, s := range a.siteCache {
+		if s != nil && s.name == name {
+			return s
 		}
 	}
-	n, ok := a.sites[site]
+	i, ok := a.siteIndex[name]
 	if !ok {
 		if len(a.sites) >= maxSites {
-			a.siteOther++
-			return
+			name = OtherSite
+			i, ok = a.siteIndex[name]
 		}
-		site = strings.Clone(site) // do not pin the caller's buffers
-		n = new(int64)
-		a.sites[site] = n
+		if !ok {
+			i = len(a.sites)
+			name = strings.Clone(name) // do not pin the caller's buffers
+			a.sites = append(a.sites, &siteAcc{name: name, idx: i})
+			a.siteIndex[name] = i
+		}
 	}
-	*n++
-	a.siteCache[a.siteNext] = siteCounter{site, n}
+	s := a.sites[i]
+	a.siteCache[a.siteNext] = s
 	a.siteNext = (a.siteNext + 1) % len(a.siteCache)
-}
-
-type siteCounter struct {
-	site string
-	n    *int64
+	return s
 }
 
 // Reject counts one rejected source row. Only its line, column, field and
@@ -303,66 +448,257 @@ func (a *Accumulator) Reject(r schema.Rejection) {
 	a.rejected++
 	f := a.reasons[r.Reason]
 	if f == nil {
-		f = new(finding)
+		f = new(rejFinding)
 		a.reasons[r.Reason] = f
 	}
-	f.add(a.opt.MaxSamples, Sample{Line: r.Line, Column: r.Column, Field: r.Field})
+	f.n++
+	if len(f.samples) < a.opt.MaxSamples {
+		f.samples = append(f.samples, Sample{Line: r.Line, Column: r.Column, Field: r.Field})
+	}
 }
 
-// Merge adds the counts of b, the accumulator of another file of the same
-// upload, to a; b must not be used afterwards. a's options apply. Findings
-// that need the event stream (exact duplicates, start_before_arrival,
-// complete_before_start, order_breach) stay per file: a duplicate or a
-// case split across two files is not seen. Samples of a come first.
-func (a *Accumulator) Merge(b *Accumulator) {
-	if b == nil || b == a {
+// ObserveFileOrder sees one accepted event in file order, before the
+// sorted [Accumulator.Observe] pass; it checks only that each site's
+// clock does not step back by more than Options.ClockTolerance between
+// consecutive rows of that site. e may be reused once it returns.
+func (a *Accumulator) ObserveFileOrder(e *schema.Event) {
+	s := a.site(e.Site)
+	at := e.OccurredAt.UnixMicro()
+	s.fileRows++
+	if s.fileSeen && at < s.fileLast-a.clockTol {
+		s.fileJumps++
+		if len(a.samples[cClockBackwards]) < a.opt.MaxSamples {
+			a.samples[cClockBackwards] = append(a.samples[cClockBackwards], Sample{Line: e.Line, CaseID: strings.Clone(e.CaseID)})
+		}
+	}
+	s.fileSeen, s.fileLast = true, at
+}
+
+// Observe counts one accepted event. See the order precondition on
+// [Accumulator]. e may be reused once Observe returns.
+func (a *Accumulator) Observe(e *schema.Event) {
+	if e == nil {
 		return
 	}
-	max := a.opt.MaxSamples
-	a.accepted += b.accepted
-	a.rejected += b.rejected
-	for r, g := range b.reasons {
-		f := a.reasons[r]
-		if f == nil {
-			f = new(finding)
-			a.reasons[r] = f
-		}
-		f.merge(max, g)
-	}
-	for i := range a.nonEmpty {
-		a.nonEmpty[i] += b.nonEmpty[i]
-		a.emptySamples[i] = appendSamples(a.emptySamples[i], max, b.emptySamples[i])
-	}
-	if b.hasTime {
-		if !a.hasTime || b.minAt < a.minAt {
-			a.minAt, a.first = b.minAt, b.first
-		}
-		if !a.hasTime || b.maxAt > a.maxAt {
-			a.maxAt, a.last = b.maxAt, b.last
-		}
-		a.hasTime = true
-	}
-	a.future.merge(max, &b.future)
-	a.outside.merge(max, &b.outside)
-	a.startBeforeArrival.merge(max, &b.startBeforeArrival)
-	a.completeBeforeStart.merge(max, &b.completeBeforeStart)
-	a.timeRows += b.timeRows
-	a.dups.merge(max, &b.dups)
-	a.orderBreaches.merge(max, &b.orderBreaches)
-	// Sorted, so that which sites fit under the cap does not depend on
-	// map order.
-	for _, s := range slices.Sorted(maps.Keys(b.sites)) {
-		n := b.sites[s]
-		m, ok := a.sites[s]
-		if !ok {
-			if len(a.sites) >= maxSites {
-				a.siteOther += *n
-				continue
+	s := a.site(e.Site)
+	s.events++
+	ti := typeIndex(e.Type)
+	a.countFields(s, ti, e)
+	at := e.OccurredAt.UnixMicro()
+
+	accProblem := false
+	if a.hasUpload {
+		if at > a.uploadAt {
+			a.flag(s, cLaterThanUpload, e)
+			accProblem = true
+		} else {
+			lagS := (a.uploadAt - at) / 1e6
+			s.lag[lagBucket(lagS)]++
+			s.lagN++
+			if lagS > s.lagMax {
+				s.lagMax = lagS
 			}
-			m = new(int64)
-			a.sites[s] = m
 		}
-		*m += *n
 	}
-	a.siteOther += b.siteOther
+	if (a.hasFrom && at < a.fromAt) || (a.hasTo && at >= a.toAt) {
+		a.flag(s, cOutsideWindow, e)
+		accProblem = true
+	}
+	a.countGrid(s, e, at)
+
+	if a.seen && at < a.curAt {
+		a.flag(s, cOrderBreach, e)
+		if accProblem {
+			s.accRows++
+		}
+		return
+	}
+	if !a.seen {
+		a.base = at
+	}
+	if !a.seen || at > a.curAt {
+		a.inst.reset()
+		a.curAt, a.seen = at, true
+	}
+	a.countHour(s, at)
+	a.census(s, at)
+
+	exact := a.inst.add(e, a.seed)
+	uniProblem := false
+	if exact {
+		a.flag(s, cExactDuplicate, e)
+		uniProblem = true
+	}
+	rel := uint64(at - a.base)
+	if e.EventID != "" && !exact && a.duplicateID(e, rel) {
+		a.flag(s, cDuplicateEventID, e)
+		uniProblem = true
+	}
+	var acc, con, uni bool
+	if !exact {
+		// A copy changes no per-case state: it is counted once, here.
+		acc, con, uni = a.observeCase(s, ti, e, rel)
+	}
+	if acc || accProblem {
+		s.accRows++
+	}
+	if con {
+		s.conRows++
+	}
+	if uni || uniProblem {
+		s.uniRows++
+	}
+	a.sincePrune++
+	if a.sincePrune >= a.pruneEvery && a.sincePrune >= a.keptCases {
+		a.prune(rel)
+	}
+	a.sinceIDPrune++
+	if a.sinceIDPrune >= a.pruneEvery && a.sinceIDPrune >= a.keptIDs {
+		a.sinceIDPrune = 0
+		a.ids.sweep(func(sl *slot[struct{}]) bool { return rel-sl.rec > a.idWindow })
+		a.keptIDs = a.ids.n
+	}
 }
+
+func (a *Accumulator) countFields(s *siteAcc, ti int, e *schema.Event) {
+	s.byType[ti]++
+	tn := &s.typeNonEmpty[ti]
+	// Required fields are always set in accepted events.
+	for _, i := range [...]int{fSite, fCaseID, fEventType, fOccurredAt} {
+		s.nonEmpty[i]++
+		tn[i]++
+	}
+	a.optional(s, tn, fSubjectID, e.SubjectID, e)
+	a.optional(s, tn, fResourceID, e.ResourceID, e)
+	a.optional(s, tn, fActivity, e.Activity, e)
+	a.optional(s, tn, fQueue, e.Queue, e)
+	a.optional(s, tn, fPriority, e.Priority, e)
+	a.optional(s, tn, fChannel, e.Channel, e)
+	a.optional(s, tn, fOutcome, e.Outcome, e)
+	a.optional(s, tn, fEventID, e.EventID, e)
+}
+
+func (a *Accumulator) optional(s *siteAcc, tn *[numFields]int64, i int, v string, e *schema.Event) {
+	if v != "" {
+		s.nonEmpty[i]++
+		tn[i]++
+	} else if len(a.emptySamples[i]) < a.opt.MaxSamples {
+		a.emptySamples[i] = append(a.emptySamples[i], Sample{Line: e.Line, CaseID: strings.Clone(e.CaseID)})
+	}
+}
+
+// countGrid counts the grids e's local wall-clock time sits on.
+func (a *Accumulator) countGrid(s *siteAcc, e *schema.Event, at int64) {
+	if !a.zKnown || at < a.zLo || at >= a.zHi {
+		t := e.OccurredAt.In(a.opt.Zone)
+		_, off := t.Zone()
+		lo, hi := t.ZoneBounds()
+		a.zOff, a.zLo, a.zHi, a.zKnown = int64(off)*1e6, minInt64, maxInt64, true
+		if !lo.IsZero() {
+			a.zLo = lo.UnixMicro()
+		}
+		if !hi.IsZero() {
+			a.zHi = hi.UnixMicro()
+		}
+	}
+	local := at + a.zOff
+	for g := range numGrids {
+		if local%gridMicros[g] != 0 {
+			return
+		}
+		s.grid[g]++
+	}
+}
+
+const (
+	minInt64 = -1 << 63
+	maxInt64 = 1<<63 - 1
+)
+
+// lagBucket maps a lag in seconds to its bucket: exact below 8 s, then 8
+// buckets per doubling.
+func lagBucket(s int64) int {
+	if s < 8 {
+		return int(max(s, 0))
+	}
+	oct := bits.Len64(uint64(s)) - 1
+	return oct*8 + int(s>>(oct-3))&7
+}
+
+// lagBounds is the range [lo, hi) of seconds of bucket b.
+func lagBounds(b int) (lo, hi int64) {
+	if b < 8 {
+		return int64(b), int64(b) + 1
+	}
+	oct, m := b/8, int64(b%8)
+	return (8 + m) << (oct - 3), (9 + m) << (oct - 3)
+}
+
+// countHour adds the event to its site's hourly series.
+func (a *Accumulator) countHour(s *siteAcc, at int64) {
+	h := floorDiv(at, 3600e6)
+	if s.hours == nil {
+		s.hourStart = h
+		s.hours = make([]uint32, 1, 64)
+	}
+	i := h - s.hourStart
+	if i < 0 || i >= int64(a.opt.MaxHours) {
+		s.hoursOut++
+		return
+	}
+	for int64(len(s.hours)) <= i {
+		s.hours = append(s.hours, 0)
+	}
+	s.hours[i]++
+}
+
+func floorDiv(a, b int64) int64 {
+	q := a / b
+	if a%b != 0 && (a < 0) != (b < 0) {
+		q--
+	}
+	return q
+}
+
+// census advances the site's census area to at.
+func (a *Accumulator) census(s *siteAcc, at int64) {
+	if !s.hasAt {
+		s.hasAt, s.firstAt, s.lastAt = true, at, at
+		return
+	}
+	if at > s.lastAt {
+		s.area += float64(s.census) * float64(at-s.lastAt)
+		s.lastAt = at
+	}
+}
+
+// duplicateID reports whether e's event_id was seen within the window.
+func (a *Accumulator) duplicateID(e *schema.Event, rel uint64) bool {
+	k := nonZero(maphash.String(a.seed, e.EventID))
+	sl, ok := a.ids.lookup(k)
+	if ok && rel-sl.rec <= a.idWindow {
+		sl.rec = rel
+		return true
+	}
+	if !ok {
+		a.ids.claim(sl, k)
+	}
+	sl.rec = rel
+	return false
+}
+
+// prune drops the records idle for longer than their horizon.
+func (a *Accumulator) prune(now uint64) {
+	a.sincePrune = 0
+	a.cases.sweep(func(sl *slot[caseState]) bool {
+		if now-sl.rec > a.horizon {
+			a.closeCase(sl)
+			return true
+		}
+		return false
+	})
+	a.keptCases = a.cases.n
+}
+
+// openCases is the number of case records held (for tests).
+func (a *Accumulator) openCases() int { return a.cases.n }

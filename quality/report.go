@@ -3,7 +3,6 @@ package quality
 import (
 	"cmp"
 	"iter"
-	"maps"
 	"math"
 	"slices"
 	"time"
@@ -12,81 +11,46 @@ import (
 )
 
 // ReportVersion is the version of the report's JSON format. Adding a
-// dimension, a finding code or an object member keeps the version;
-// renaming or removing one, or changing a formula, bumps it.
-const ReportVersion = "1"
+// finding code or an object member keeps the version; renaming or
+// removing one, or changing a formula, bumps it.
+const ReportVersion = "2"
 
-// Dimension names. Later reports may add dimensions; consumers should
-// ignore names they do not know.
-const (
-	DimValidity     = "validity"
-	DimCompleteness = "completeness"
-	DimTimestamps   = "timestamps"
-	DimUniqueness   = "uniqueness"
-)
-
-// Finding codes that are not rejection reasons. Findings derived from
-// rejected rows use the [schema.Reason] as their code.
-const (
-	CodeEmptyValue          = "empty_value"           // an optional field is empty
-	CodeLaterThanUpload     = "later_than_upload"     // event after the upload time
-	CodeOutsideWindow       = "outside_window"        // event outside the declared window
-	CodeStartBeforeArrival  = "start_before_arrival"  // a start earlier than its case's arrival or enqueue
-	CodeCompleteBeforeStart = "complete_before_start" // a complete earlier than its case's start
-	CodeExactDuplicate      = "exact_duplicate"       // a copy of an earlier event
-	CodeOrderBreach         = "order_breach"          // the ingest broke the time order (internal)
-)
-
-// dimensionWeights are the nominal weights of the overall score, in report
-// order; SCORING.md states the same numbers.
-var dimensionWeights = [...]struct {
-	name   string
-	weight float64
-}{
-	{DimValidity, 0.35},
-	{DimCompleteness, 0.20},
-	{DimTimestamps, 0.30},
-	{DimUniqueness, 0.15},
-}
-
-// Report is the quality report of one upload. Its JSON member names are
-// stable; lists are never null.
+// Report is the quality report of one upload, or of several merged by
+// [MergeReports]. Everything but Raw, Rows, Rejections and
+// UnmappedColumns is derived from those by one function, so a merged
+// report is computed exactly as a single one. Its JSON member names are
+// stable (see SCORING.md); lists are never null.
 //
 // Scores run from 0 to 100 and are rounded to 0.1; a score is null when
-// its dimension had nothing to measure:
-//
-//	validity     = 100 * accepted / total rows
-//	completeness = 100 * mean share of non-empty values over the scored
-//	               optional fields (those in Options.MappedFields, or, when
-//	               none are given, those with at least one value)
-//	timestamps   = 100 * (1 - rows with any timestamp problem / total rows)
-//	uniqueness   = 100 * (1 - exact duplicates / accepted rows)
-//	score        = sum(weight * dimension score) / sum(weight), over the
-//	               dimensions that have a score, from unrounded scores
-//
-// with weights validity 0.35, completeness 0.20, timestamps 0.30 and
-// uniqueness 0.15 (see SCORING.md).
+// its dimension had nothing to measure.
 type Report struct {
-	Version      string              `json:"version"`
-	Score        *float64            `json:"score"`
-	Rows         Rows                `json:"rows"`
-	Rejections   []RejectionCount    `json:"rejections"`
+	Version    string           `json:"version"`
+	Score      *float64         `json:"score"`
+	Rows       Rows             `json:"rows"`
+	Rejections []RejectionCount `json:"rejections"`
+	Dimensions []Dimension      `json:"dimensions"`
+	// Completeness is per field over all sites.
 	Completeness []FieldCompleteness `json:"completeness"`
-	Timestamps   Timestamps          `json:"timestamps"`
-	Uniqueness   Uniqueness          `json:"uniqueness"`
+	EventTypes   []TypeCompleteness  `json:"event_types"`
+	Stages       Stages              `json:"stages"`
+	Waits        []WaitCoverage      `json:"waits"`
+	Resolution   Resolution          `json:"resolution"`
+	Little       []LittleLaw         `json:"littles_law"`
+	Currentness  []SiteCurrentness   `json:"currentness"`
 	TimeRange    TimeRange           `json:"time_range"`
 	Sites        Sites               `json:"sites"`
-	Dimensions   []Dimension         `json:"dimensions"`
+	PerSite      []SiteReport        `json:"per_site"`
 	// Internal lists faults of the program rather than of the data (such
 	// as order_breach); they do not enter any score.
 	Internal []Finding `json:"internal"`
 	// UnmappedColumns names the source columns the profile does not map;
-	// ingest dropped them (they may hold free text or identifiers). The
-	// ingest sets it; the accumulator does not see columns.
+	// ingest dropped them. The ingest sets it.
 	UnmappedColumns []string `json:"unmapped_columns,omitempty"`
+	// Raw holds the counts and sums everything else is derived from.
+	Raw Raw `json:"raw"`
 }
 
-// Rows counts the source rows of the upload.
+// Rows counts the source rows.
 type Rows struct {
 	Total    int64 `json:"total"` // accepted + rejected
 	Accepted int64 `json:"accepted"`
@@ -110,34 +74,87 @@ type FieldCompleteness struct {
 	Scored   bool         `json:"scored"`
 }
 
-// Timestamps counts timestamp problems. A row may have several; RowsAffected
-// counts each row once and includes the unparseable rows.
-type Timestamps struct {
-	Unparseable         Unparseable `json:"unparseable"`
-	LaterThanUpload     int64       `json:"later_than_upload"`
-	OutsideWindow       int64       `json:"outside_window"`
-	StartBeforeArrival  int64       `json:"start_before_arrival"`
-	CompleteBeforeStart int64       `json:"complete_before_start"`
-	RowsAffected        int64       `json:"rows_affected"`
-	UploadedAt          *time.Time  `json:"uploaded_at,omitempty"`
-	WindowFrom          *time.Time  `json:"window_from,omitempty"`
-	WindowTo            *time.Time  `json:"window_to,omitempty"`
+// TypeCompleteness is the completeness of the optional fields among the
+// events of one type.
+type TypeCompleteness struct {
+	Type   schema.EventType `json:"event_type"`
+	Events int64            `json:"events"`
+	Fields []FieldShare     `json:"fields"`
 }
 
-// Unparseable counts the rows rejected because their time could not be
-// read, by reason.
-type Unparseable struct {
-	Total            int64 `json:"total"`
-	BadTimestamp     int64 `json:"bad_timestamp"`
-	NonexistentLocal int64 `json:"nonexistent_local"`
-	AmbiguousLocal   int64 `json:"ambiguous_local"`
+// FieldShare is the share of events with a value for Field.
+type FieldShare struct {
+	Field schema.Field `json:"field"`
+	Share float64      `json:"share"`
 }
 
-// Uniqueness counts repeated events.
-type Uniqueness struct {
-	// ExactDuplicates counts events equal in every field to an earlier
-	// event of the same file; the first copy is not counted.
-	ExactDuplicates int64 `json:"exact_duplicates"`
+// Stages is the stage coverage: the share of cases with at least one
+// event of each stage. A case is a case record (see SCORING.md).
+type Stages struct {
+	Cases     int64   `json:"cases"`
+	Arrival   float64 `json:"arrival"`
+	Start     float64 `json:"start"`
+	Complete  float64 `json:"complete"`
+	Departure float64 `json:"departure"`
+}
+
+// WaitCoverage is, for one (queue, activity), how many waits there were
+// and how many cannot be measured.
+type WaitCoverage struct {
+	Queue        string  `json:"queue"`
+	Activity     string  `json:"activity"`
+	Waits        int64   `json:"waits"`
+	NoEnqueue    int64   `json:"no_enqueue"`
+	NoStart      int64   `json:"no_start"`
+	Unobservable float64 `json:"unobservable"` // (NoEnqueue + NoStart) / Waits
+}
+
+// Resolution is the effective time resolution and the heaping on round
+// times, over all accepted events, judged on the local wall clock.
+type Resolution struct {
+	Zone    string    `json:"zone"`
+	Grid    string    `json:"grid"` // microsecond, millisecond, ..., day
+	Heaping []Heaping `json:"heaping"`
+}
+
+// Heaping is the share of events on one round grid against the share
+// expected at the effective resolution.
+type Heaping struct {
+	Grid     string  `json:"grid"`
+	Events   int64   `json:"events"`
+	Share    float64 `json:"share"`
+	Expected float64 `json:"expected"`
+	Heaped   bool    `json:"heaped"`
+}
+
+// LittleLaw compares, for one site, the time-average number in system L
+// with λ·W. Rates are per hour, times in hours.
+type LittleLaw struct {
+	Site      string  `json:"site"`
+	Judged    bool    `json:"judged"`
+	Flagged   bool    `json:"flagged"`
+	SpanHours float64 `json:"span_hours"`
+	Arrivals  int64   `json:"arrivals"`
+	Completed int64   `json:"completed"`
+	L         float64 `json:"l"`
+	Lambda    float64 `json:"lambda"`
+	W         float64 `json:"w"`
+	LambdaW   float64 `json:"lambda_w"`
+	Ratio     float64 `json:"ratio"` // L / (λ·W); 0 when λ·W is 0
+	CensusMin int64   `json:"census_min"`
+}
+
+// SiteCurrentness is the lag and the gaps of one site.
+type SiteCurrentness struct {
+	Site             string     `json:"site"`
+	Newest           *time.Time `json:"newest"`
+	LagMedianSeconds *int64     `json:"lag_median_seconds"`
+	LagMaxSeconds    *int64     `json:"lag_max_seconds"`
+	Stale            bool       `json:"stale"`
+	GapHours         int64      `json:"gap_hours"`
+	JudgedHours      int64      `json:"judged_hours"`
+	GapDays          int64      `json:"gap_days"`
+	JudgedDays       int64      `json:"judged_days"`
 }
 
 // TimeRange is the earliest and latest occurred_at among accepted rows;
@@ -147,11 +164,10 @@ type TimeRange struct {
 	Last  *time.Time `json:"last"`
 }
 
-// Sites counts events per site. At most 1000 sites are told apart; the
-// events of further sites are counted in Other.
+// Sites counts events per site.
 type Sites struct {
 	Distinct int         `json:"distinct"`
-	Other    int64       `json:"other"`
+	Other    int64       `json:"other"`  // events counted under OtherSite
 	Counts   []SiteCount `json:"counts"` // by count, descending, then by site
 }
 
@@ -161,7 +177,23 @@ type SiteCount struct {
 	Count int64  `json:"count"`
 }
 
-// Dimension is one quality dimension: its score, its nominal weight in the
+// SiteReport is the score, the sub-scores and the per-field completeness
+// of one site, for trends per site.
+type SiteReport struct {
+	Site         string           `json:"site"`
+	Events       int64            `json:"events"`
+	Score        *float64         `json:"score"`
+	Dimensions   []DimensionScore `json:"dimensions"`
+	Completeness []FieldShare     `json:"completeness"`
+}
+
+// DimensionScore is one sub-score.
+type DimensionScore struct {
+	Name  string   `json:"name"`
+	Score *float64 `json:"score"`
+}
+
+// Dimension is one quality dimension: its score, its weight in the
 // overall score, the number of rows it was measured over, and findings.
 type Dimension struct {
 	Name     string    `json:"name"`
@@ -171,26 +203,33 @@ type Dimension struct {
 	Findings []Finding `json:"findings"`
 }
 
-// Finding is one kind of problem found, with how many rows have it, their
-// share of the dimension's rows, where to look and why it matters. Only
-// findings with a non-zero count are listed.
+// Finding is one kind of problem found: how many, their share of Of (a
+// stated population), where to look and why it matters. Informational
+// findings do not enter the score. Only findings with a non-zero count
+// are listed.
 type Finding struct {
-	Code    string       `json:"code"`
-	Field   schema.Field `json:"field,omitempty"`
-	Count   int64        `json:"count"`
-	Share   float64      `json:"share"`
-	Samples []Sample     `json:"samples"`
-	Why     string       `json:"why"`
+	Code          string       `json:"code"`
+	Field         schema.Field `json:"field,omitempty"`
+	Grid          string       `json:"grid,omitempty"`
+	Count         int64        `json:"count"`
+	Share         float64      `json:"share"`
+	Of            string       `json:"of"`
+	Informational bool         `json:"informational,omitempty"`
+	Samples       []Sample     `json:"samples"`
+	Why           string       `json:"why"`
 }
 
 // Sample locates one row of a finding: its source line and, for accepted
 // rows, the case pseudonym; for rejected rows, the column and field at
-// fault when known. It never holds a field value.
+// fault when known; for a gap, the site and the hour or day. It never
+// holds a field value.
 type Sample struct {
-	Line   int64        `json:"line"`
+	Line   int64        `json:"line,omitempty"`
 	CaseID string       `json:"case_id,omitempty"`
 	Column string       `json:"column,omitempty"`
 	Field  schema.Field `json:"field,omitempty"`
+	Site   string       `json:"site,omitempty"`
+	At     *time.Time   `json:"at,omitempty"`
 }
 
 // RejectedShare is the share of rows rejected, 0 when there were no rows;
@@ -209,6 +248,23 @@ func (r *Report) Dimension(name string) *Dimension {
 	return nil
 }
 
+// Count returns the count of the finding with the given code, summed over
+// fields and grids, 0 when absent.
+func (r *Report) Count(code string) int64 {
+	var n int64
+	for _, f := range r.Findings() {
+		if f.Code == code {
+			n += f.Count
+		}
+	}
+	for _, f := range r.Internal {
+		if f.Code == code {
+			n += f.Count
+		}
+	}
+	return n
+}
+
 // Findings yields every finding of every dimension, in report order.
 func (r *Report) Findings() iter.Seq2[*Dimension, *Finding] {
 	return func(yield func(*Dimension, *Finding) bool) {
@@ -223,193 +279,136 @@ func (r *Report) Findings() iter.Seq2[*Dimension, *Finding] {
 	}
 }
 
-// Why sentences, one per finding code.
-var why = map[string]string{
-	string(schema.ReasonMissingRequired):  "Rows without a site, case, event type or time cannot be placed on a case's timeline, so they are missing from the snapshot.",
-	string(schema.ReasonUnknownCode):      "Rows whose code has no mapping are missing from the snapshot, so counts per event type are too low.",
-	string(schema.ReasonBadTimestamp):     "Rows whose time cannot be read are missing from the snapshot, which lowers arrival counts and biases waits.",
-	string(schema.ReasonNonexistentLocal): "A wall-clock time skipped by a daylight-saving change points to a clock or export fault, and such rows are missing from the snapshot.",
-	string(schema.ReasonAmbiguousLocal):   "A wall-clock time repeated by a daylight-saving change cannot be placed on one instant, and such rows are missing from the snapshot.",
-	string(schema.ReasonFieldCount):       "Rows with the wrong number of fields may be shifted or cut, so they are missing from the snapshot.",
-	string(schema.ReasonMalformedRow):     "Rows that cannot be parsed are missing from the snapshot, so counts computed from it are too low.",
-	string(schema.ReasonBadValue):         "Rows with a value of the wrong type are missing from the snapshot, so counts computed from it are too low.",
-	CodeEmptyValue:                        "Rows without this value drop out of any analysis split or filtered by this field.",
-	CodeLaterThanUpload:                   "Events dated after the upload cannot have happened yet, so their clock or time zone is likely wrong.",
-	CodeOutsideWindow:                     "Events outside the declared period distort per-period counts and may belong to another export.",
-	CodeStartBeforeArrival:                "A case served before it arrived gives a negative wait, which corrupts waiting-time statistics.",
-	CodeCompleteBeforeStart:               "A service that ends before it begins gives a negative service time, which corrupts service-time statistics.",
-	CodeExactDuplicate:                    "Repeated copies of one event inflate arrival and service counts.",
-	CodeOrderBreach:                       "The ingest fed events out of time order, so duplicate and per-case checks skipped them; this is a program fault, not a data fault.",
-}
-
-func whyOf(code string) string {
-	if s, ok := why[code]; ok {
-		return s
-	}
-	return "Rejected rows are missing from the snapshot, so counts computed from it are too low."
-}
-
 // Report computes the report from the counts so far. It does not change
 // the accumulator, so it may be called again after more input.
 func (a *Accumulator) Report() *Report {
-	total := a.accepted + a.rejected
-	r := &Report{
-		Version: ReportVersion,
-		Rows:    Rows{Total: total, Accepted: a.accepted, Rejected: a.rejected},
+	raw := Raw{Settings: a.settings(), Uploads: 1, Samples: map[string][]Sample{}}
+	var accepted int64
+	for _, s := range a.sites {
+		accepted += s.events
 	}
-
-	// Rejections, by reason code.
-	r.Rejections = []RejectionCount{}
-	var invalid []Finding
-	for _, reason := range slices.Sorted(maps.Keys(a.reasons)) {
-		f := a.reasons[reason]
-		r.Rejections = append(r.Rejections, RejectionCount{Reason: reason, Count: f.n, Samples: samples(f.samples)})
-		invalid = append(invalid, a.findingOf(string(reason), "", f, total))
+	// Stage coverage of the records still held, and waits still pending.
+	stages := make([]stageCounts, len(a.sites))
+	pendingNoStart := make([]int64, len(a.sites))
+	waitNoStart := make([]int64, len(a.waits))
+	for i, s := range a.sites {
+		stages[i] = s.stages
 	}
-
-	// Completeness, in schema order.
-	mapped := map[schema.Field]bool{}
-	for _, f := range a.opt.MappedFields {
-		mapped[f] = true
-	}
-	r.Completeness = make([]FieldCompleteness, 0, numFields)
-	var shareSum float64
-	var scored int
-	var empties []Finding
-	for i, f := range schema.Fields {
-		c := FieldCompleteness{
-			Field:    f,
-			Required: f.Required(),
-			NonEmpty: a.nonEmpty[i],
-			Share:    share(a.nonEmpty[i], a.accepted),
+	a.cases.each(func(sl *slot[caseState]) {
+		st := &sl.v
+		tallyStages(&stages[st.site], st.flags)
+		if st.flags&csWaitPending != 0 && st.wait > 0 {
+			waitNoStart[st.wait-1]++
+			pendingNoStart[st.site]++
 		}
-		if !c.Required && a.accepted > 0 {
-			if len(mapped) > 0 {
-				c.Scored = mapped[f]
-			} else {
-				c.Scored = c.NonEmpty > 0
-			}
-		}
-		if c.Scored {
-			shareSum += c.Share
-			scored++
-			if n := a.accepted - c.NonEmpty; n > 0 {
-				fd := a.findingOf(CodeEmptyValue, f, &finding{n: n, samples: a.emptySamples[i]}, a.accepted)
-				empties = append(empties, fd)
-			}
-		}
-		r.Completeness = append(r.Completeness, c)
-	}
-
-	// Timestamps.
-	un := Unparseable{
-		BadTimestamp:     a.count(schema.ReasonBadTimestamp),
-		NonexistentLocal: a.count(schema.ReasonNonexistentLocal),
-		AmbiguousLocal:   a.count(schema.ReasonAmbiguousLocal),
-	}
-	un.Total = un.BadTimestamp + un.NonexistentLocal + un.AmbiguousLocal
-	r.Timestamps = Timestamps{
-		Unparseable:         un,
-		LaterThanUpload:     a.future.n,
-		OutsideWindow:       a.outside.n,
-		StartBeforeArrival:  a.startBeforeArrival.n,
-		CompleteBeforeStart: a.completeBeforeStart.n,
-		RowsAffected:        un.Total + a.timeRows,
-		UploadedAt:          timePtr(a.opt.UploadedAt),
-		WindowFrom:          timePtr(a.opt.WindowFrom),
-		WindowTo:            timePtr(a.opt.WindowTo),
-	}
-	var timeFindings []Finding
-	for _, reason := range []schema.Reason{schema.ReasonBadTimestamp, schema.ReasonNonexistentLocal, schema.ReasonAmbiguousLocal} {
-		if f := a.reasons[reason]; f != nil {
-			timeFindings = append(timeFindings, a.findingOf(string(reason), "", f, total))
-		}
-	}
-	for _, c := range []struct {
-		code string
-		f    *finding
-	}{
-		{CodeLaterThanUpload, &a.future},
-		{CodeOutsideWindow, &a.outside},
-		{CodeStartBeforeArrival, &a.startBeforeArrival},
-		{CodeCompleteBeforeStart, &a.completeBeforeStart},
-	} {
-		if c.f.n > 0 {
-			timeFindings = append(timeFindings, a.findingOf(c.code, "", c.f, total))
-		}
-	}
-
-	// Uniqueness.
-	r.Uniqueness = Uniqueness{ExactDuplicates: a.dups.n}
-	var dupFindings []Finding
-	if a.dups.n > 0 {
-		dupFindings = append(dupFindings, a.findingOf(CodeExactDuplicate, "", &a.dups, a.accepted))
-	}
-
-	// Time range and sites.
-	if a.hasTime {
-		r.TimeRange = TimeRange{First: timePtr(a.first), Last: timePtr(a.last)}
-	}
-	r.Sites = Sites{Distinct: len(a.sites), Other: a.siteOther, Counts: make([]SiteCount, 0, len(a.sites))}
-	for s, n := range a.sites {
-		r.Sites.Counts = append(r.Sites.Counts, SiteCount{Site: s, Count: *n})
-	}
-	slices.SortFunc(r.Sites.Counts, func(x, y SiteCount) int {
-		return cmp.Or(cmp.Compare(y.Count, x.Count), cmp.Compare(x.Site, y.Site))
 	})
-
-	// Dimensions and the overall score.
-	scores := map[string]*float64{}
-	rows := map[string]int64{DimValidity: total, DimCompleteness: a.accepted, DimTimestamps: total, DimUniqueness: a.accepted}
-	findings := map[string][]Finding{DimValidity: invalid, DimCompleteness: empties, DimTimestamps: timeFindings, DimUniqueness: dupFindings}
-	if total > 0 {
-		scores[DimValidity] = ptr(100 * float64(a.accepted) / float64(total))
-		scores[DimTimestamps] = ptr(100 * (1 - float64(r.Timestamps.RowsAffected)/float64(total)))
+	for i, s := range a.sites {
+		raw.Sites = append(raw.Sites, a.siteRaw(s, stages[i], pendingNoStart[i]))
 	}
-	if scored > 0 {
-		scores[DimCompleteness] = ptr(100 * shareSum / float64(scored))
+	for i, w := range a.waits {
+		raw.Waits = append(raw.Waits, WaitRaw{Queue: w.key.queue, Activity: w.key.activity,
+			Waits: w.waits, NoEnqueue: w.noEnqueue, NoStart: w.noStart + waitNoStart[i]})
 	}
-	if a.accepted > 0 {
-		scores[DimUniqueness] = ptr(100 * (1 - float64(a.dups.n)/float64(a.accepted)))
-	}
-	var sum, weights float64
-	for _, dw := range dimensionWeights {
-		d := Dimension{Name: dw.name, Weight: dw.weight, Rows: rows[dw.name], Findings: findings[dw.name]}
-		if d.Findings == nil {
-			d.Findings = []Finding{}
+	for c := range numCodes {
+		if len(a.samples[c]) > 0 {
+			raw.Samples[codeNames[c]] = slices.Clone(a.samples[c])
 		}
-		if s := scores[dw.name]; s != nil {
-			sum += dw.weight * *s
-			weights += dw.weight
-			d.Score = ptr(round1(*s))
+	}
+	for i, f := range schema.Fields {
+		if len(a.emptySamples[i]) > 0 {
+			raw.Samples[emptyKey(f)] = slices.Clone(a.emptySamples[i])
 		}
-		r.Dimensions = append(r.Dimensions, d)
 	}
-	if weights > 0 {
-		r.Score = ptr(round1(sum / weights))
+	rej := []RejectionCount{}
+	for _, reason := range sortedKeys(a.reasons) {
+		f := a.reasons[reason]
+		rej = append(rej, RejectionCount{Reason: reason, Count: f.n, Samples: slices.Clone(f.samples)})
 	}
+	rows := Rows{Total: accepted + a.rejected, Accepted: accepted, Rejected: a.rejected}
+	return derive(rows, rej, raw, nil)
+}
 
-	r.Internal = []Finding{}
-	if a.orderBreaches.n > 0 {
-		r.Internal = append(r.Internal, a.findingOf(CodeOrderBreach, "", &a.orderBreaches, a.accepted))
+func emptyKey(f schema.Field) string { return CodeEmptyValue + ":" + string(f) }
+
+func (a *Accumulator) settings() Settings {
+	o := &a.opt
+	st := Settings{
+		Zone: o.Zone.String(), MappedFields: slices.Clone(o.MappedFields), MaxSamples: o.MaxSamples,
+		ResourceCapacity: o.ResourceCapacity, MaxCaseSeconds: o.MaxCase.Seconds(),
+		MaxServiceSeconds: float64(a.maxService) / 1e6, ClockToleranceSeconds: o.ClockTolerance.Seconds(),
+		EventIDWindowSeconds: o.EventIDWindow.Seconds(), CaseHorizonSeconds: o.CaseHorizon.Seconds(),
+		LittleTolerance: o.LittleTolerance, GapMinMean: o.GapMinMean, GapMinWeeks: o.GapMinWeeks,
+		StaleAfterSeconds: o.StaleAfter.Seconds(),
+		UploadedAt:        timePtr(o.UploadedAt), WindowFrom: timePtr(o.WindowFrom), WindowTo: timePtr(o.WindowTo),
+	}
+	if st.MappedFields == nil {
+		st.MappedFields = []schema.Field{}
+	}
+	return st
+}
+
+func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int64) SiteRaw {
+	r := SiteRaw{
+		Site: s.name, Events: s.events, Counts: map[string]int64{},
+		AccuracyRows: s.accRows, ConsistencyRows: s.conRows, UniquenessRows: s.uniRows,
+		NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{},
+		Stages:   StageRaw{Cases: stages.cases, Arrival: stages.arrival, Start: stages.start, Complete: stages.complete, Departure: stages.departure},
+		FileRows: s.fileRows, FileBackSteps: s.fileJumps,
+	}
+	for c := range numCodes {
+		if n := s.n[c]; n > 0 {
+			r.Counts[codeNames[c]] = n
+		}
+	}
+	if pendingNoStart > 0 {
+		r.Counts[CodeWaitNoStart] += pendingNoStart
+	}
+	for i, f := range schema.Fields {
+		r.NonEmpty[f] = s.nonEmpty[i]
+	}
+	for ti, t := range schema.EventTypes {
+		if s.byType[ti] == 0 {
+			continue
+		}
+		tr := TypeRaw{Events: s.byType[ti], NonEmpty: map[schema.Field]int64{}}
+		for i, f := range schema.Fields {
+			tr.NonEmpty[f] = s.typeNonEmpty[ti][i]
+		}
+		r.ByType[t] = tr
+	}
+	for g := range numGrids {
+		r.Grid[gridNames[g]] = s.grid[g]
+	}
+	if s.hasAt {
+		r.First, r.Last = timePtr(time.UnixMicro(s.firstAt)), timePtr(time.UnixMicro(s.lastAt))
+		r.Census = CensusRaw{
+			SpanSeconds: float64(s.lastAt-s.firstAt) / 1e6, AreaCaseSeconds: s.area / 1e6,
+			Arrivals: s.arrivals, Completed: s.completed, SojournSeconds: s.sojourn / 1e6, Min: s.censusMin,
+		}
+	}
+	r.Lag = LagRaw{N: s.lagN, MaxSeconds: s.lagMax, Buckets: map[int]int64{}}
+	for b, n := range s.lag {
+		if n > 0 {
+			r.Lag.Buckets[b] = n
+		}
+	}
+	r.Hours = HourSeries{Counts: make([]int64, len(s.hours)), Beyond: s.hoursOut}
+	if len(s.hours) > 0 {
+		r.Hours.Start = timePtr(time.Unix(s.hourStart*3600, 0))
+	}
+	for i, n := range s.hours {
+		r.Hours.Counts[i] = int64(n)
 	}
 	return r
 }
 
-func (a *Accumulator) count(reason schema.Reason) int64 {
-	if f := a.reasons[reason]; f != nil {
-		return f.n
+func sortedKeys[K cmp.Ordered, V any](m map[K]V) []K {
+	ks := make([]K, 0, len(m))
+	for k := range m {
+		ks = append(ks, k)
 	}
-	return 0
-}
-
-func (a *Accumulator) findingOf(code string, field schema.Field, f *finding, of int64) Finding {
-	return Finding{Code: code, Field: field, Count: f.n, Share: share(f.n, of), Samples: samples(f.samples), Why: whyOf(code)}
-}
-
-// samples copies s, so that a report shares nothing with its accumulator.
-func samples(s []Sample) []Sample {
-	return append([]Sample{}, s...)
+	slices.Sort(ks)
+	return ks
 }
 
 func share(n, of int64) float64 {

@@ -1,28 +1,33 @@
 package quality
 
-// caseTable maps case keys to case records (see cases.go). It is an
-// open-addressing table with linear probing, which costs one cache line
-// per lookup where a Go map, needing a read and a write, costs several;
-// the per-case check runs on every event. Key 0 marks an empty slot.
-type caseTable struct {
-	slots []caseSlot
+// table maps 64-bit keys to records. It is an open-addressing table with
+// linear probing, which costs one cache line per lookup where a Go map,
+// needing a read and a write, costs several; the per-case check runs on
+// every event. Key 0 marks an empty slot. rec is the record's latest
+// instant (microseconds after the file's first), which sweeps test; v is
+// the rest of the record.
+type table[V any] struct {
+	slots []slot[V]
 	mask  uint64
 	n     int
 }
 
-type caseSlot struct{ key, rec uint64 }
+type slot[V any] struct {
+	key, rec uint64
+	v        V
+}
 
 const minTableSize = 1024
 
-func newCaseTable() caseTable {
-	return caseTable{slots: make([]caseSlot, minTableSize), mask: minTableSize - 1}
+func newTable[V any]() table[V] {
+	return table[V]{slots: make([]slot[V], minTableSize), mask: minTableSize - 1}
 }
 
 // lookup returns the slot of key (never 0) and whether it holds key; if
-// not, the slot is the empty one where key belongs, which [caseTable.claim]
+// not, the slot is the empty one where key belongs, which [table.claim]
 // fills. Room for one more key is made first, so the slot stays valid
 // until the next lookup.
-func (t *caseTable) lookup(key uint64) (*caseSlot, bool) {
+func (t *table[V]) lookup(key uint64) (*slot[V], bool) {
 	if 4*(t.n+1) > 3*len(t.slots) {
 		t.resize(2 * len(t.slots))
 	}
@@ -38,14 +43,14 @@ func (t *caseTable) lookup(key uint64) (*caseSlot, bool) {
 }
 
 // claim stores key in the empty slot s returned by lookup.
-func (t *caseTable) claim(s *caseSlot, key uint64) {
+func (t *table[V]) claim(s *slot[V], key uint64) {
 	s.key = key
 	t.n++
 }
 
-func (t *caseTable) resize(size int) {
+func (t *table[V]) resize(size int) {
 	old := t.slots
-	t.slots = make([]caseSlot, size)
+	t.slots = make([]slot[V], size)
 	t.mask = uint64(size - 1)
 	for _, s := range old {
 		if s.key != 0 {
@@ -58,8 +63,9 @@ func (t *caseTable) resize(size int) {
 	}
 }
 
-// sweep removes the records for which drop is true.
-func (t *caseTable) sweep(drop func(rec uint64) bool) {
+// sweep removes the records for which drop is true; drop may read the
+// record before it goes.
+func (t *table[V]) sweep(drop func(s *slot[V]) bool) {
 	// Start from an empty slot (the load stays under 3/4), so that no
 	// cluster spans the start and removals only ever shift records into
 	// the slot being examined or slots not yet examined.
@@ -69,7 +75,7 @@ func (t *caseTable) sweep(drop func(rec uint64) bool) {
 	}
 	for step := uint64(1); step <= t.mask; {
 		i := (start + step) & t.mask
-		if s := &t.slots[i]; s.key != 0 && drop(s.rec) {
+		if s := &t.slots[i]; s.key != 0 && drop(s) {
 			t.remove(i) // slot i may now hold a shifted record: look again
 			continue
 		}
@@ -80,12 +86,21 @@ func (t *caseTable) sweep(drop func(rec uint64) bool) {
 	}
 }
 
+// each calls f for every record held.
+func (t *table[V]) each(f func(s *slot[V])) {
+	for i := range t.slots {
+		if t.slots[i].key != 0 {
+			f(&t.slots[i])
+		}
+	}
+}
+
 // remove empties slot i and shifts later records of its cluster back so
 // that every record stays reachable from its home slot.
-func (t *caseTable) remove(i uint64) {
+func (t *table[V]) remove(i uint64) {
 	t.n--
 	for {
-		t.slots[i] = caseSlot{}
+		t.slots[i] = slot[V]{}
 		j := i
 		for {
 			j = (j + 1) & t.mask
@@ -106,4 +121,12 @@ func (t *caseTable) remove(i uint64) {
 		t.slots[i] = t.slots[j]
 		i = j
 	}
+}
+
+// nonZero maps a hash to a key: 0 marks an empty slot.
+func nonZero(h uint64) uint64 {
+	if h == 0 {
+		return 1
+	}
+	return h
 }

@@ -28,60 +28,132 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	fmt.Fprintf(bw, "rows   %d total, %d accepted, %d rejected (%s)\n",
 		r.Rows.Total, r.Rows.Accepted, r.Rows.Rejected, percent(r.RejectedShare()))
 	if r.TimeRange.First != nil {
-		fmt.Fprintf(bw, "time   %s .. %s\n", r.TimeRange.First.Format(time.RFC3339), r.TimeRange.Last.Format(time.RFC3339))
+		fmt.Fprintf(bw, "time   %s .. %s, resolution %s (%s)\n", r.TimeRange.First.Format(time.RFC3339),
+			r.TimeRange.Last.Format(time.RFC3339), r.Resolution.Grid, r.Resolution.Zone)
 	}
 	fmt.Fprintf(bw, "sites  %d distinct", r.Sites.Distinct)
 	if r.Sites.Other > 0 {
 		fmt.Fprintf(bw, ", %d events at further sites", r.Sites.Other)
 	}
 	bw.WriteString("\n")
+	if r.Stages.Cases > 0 {
+		fmt.Fprintf(bw, "cases  %d; with arrival %s, start %s, complete %s, departure %s\n", r.Stages.Cases,
+			percent(r.Stages.Arrival), percent(r.Stages.Start), percent(r.Stages.Complete), percent(r.Stages.Departure))
+	}
 	if len(r.UnmappedColumns) > 0 {
 		fmt.Fprintf(bw, "dropped unmapped columns: %s\n", strings.Join(r.UnmappedColumns, ", "))
 	}
 	bw.WriteString("\n")
 
-	fmt.Fprintf(bw, "%s\n", p.bold(fmt.Sprintf("%-13s %6s %6s %8s", "dimension", "score", "weight", "rows")))
-	for _, d := range r.Dimensions {
-		fmt.Fprintf(bw, "%-13s %s %6.2f %8d\n", d.Name, p.score(d.Score, 6), d.Weight, d.Rows)
+	// Sub-scores: all sites, then each site.
+	head := []string{"site", "score"}
+	for _, dw := range dimensionWeights {
+		head = append(head, abbrev(dw.name))
 	}
+	rows := [][]string{head}
+	all := []string{"(all)", p.plainScore(r.Score)}
+	for _, d := range r.Dimensions {
+		all = append(all, p.plainScore(d.Score))
+	}
+	rows = append(rows, all)
+	for _, s := range r.PerSite {
+		row := []string{s.Site, p.plainScore(s.Score)}
+		for _, d := range s.Dimensions {
+			row = append(row, p.plainScore(d.Score))
+		}
+		rows = append(rows, row)
+	}
+	p.table(bw, rows, map[int]bool{0: true}, true)
 
-	fields := []string{}
-	for _, c := range r.Completeness {
-		if c.Scored || c.Required {
+	// Little's law.
+	var lrows [][]string
+	for _, l := range r.Little {
+		if l.Completed == 0 && l.Arrivals == 0 {
 			continue
 		}
-		if c.NonEmpty == 0 {
-			fields = append(fields, string(c.Field))
+		mark := "not judged"
+		if l.Judged {
+			mark = "ok"
+			if l.Flagged {
+				mark = "MISMATCH"
+			}
 		}
+		lrows = append(lrows, []string{l.Site, fmt.Sprintf("%.2f", l.L), fmt.Sprintf("%.2f", l.LambdaW), fmt.Sprintf("%.3f", l.Ratio), mark})
 	}
-	if len(fields) > 0 {
-		fmt.Fprintf(bw, "(not scored, never filled: %s)\n", strings.Join(fields, ", "))
+	if len(lrows) > 0 {
+		bw.WriteString("\n")
+		p.table(bw, append([][]string{{"little's law", "L", "λ·W", "ratio", ""}}, lrows...), map[int]bool{0: true, 4: true}, false)
 	}
 
-	type row struct{ dim, code, count, share, lines string }
-	var rows []row
+	// Findings.
+	frows := [][]string{{"dimension", "finding", "count", "share", "of", "where"}}
 	for d, f := range r.Findings() {
 		code := f.Code
 		if f.Field != "" {
 			code += " " + string(f.Field)
 		}
-		rows = append(rows, row{d.Name, code, strconv.FormatInt(f.Count, 10), percent(f.Share), sampleLines(f.Samples)})
+		if f.Grid != "" {
+			code += " " + f.Grid
+		}
+		if f.Informational {
+			code += " (info)"
+		}
+		frows = append(frows, []string{d.Name, code, strconv.FormatInt(f.Count, 10), percent(f.Share), f.Of, sampleLines(f.Samples)})
 	}
 	for i := range r.Internal {
 		f := &r.Internal[i]
-		rows = append(rows, row{"internal", f.Code, strconv.FormatInt(f.Count, 10), percent(f.Share), sampleLines(f.Samples)})
+		frows = append(frows, []string{"internal", f.Code, strconv.FormatInt(f.Count, 10), percent(f.Share), f.Of, sampleLines(f.Samples)})
 	}
-	if len(rows) > 0 {
-		wd, wc, wn := len("dimension"), len("finding"), len("count")
-		for _, x := range rows {
-			wd, wc, wn = max(wd, len(x.dim)), max(wc, len(x.code)), max(wn, len(x.count))
-		}
-		fmt.Fprintf(bw, "\n%s\n", p.bold(fmt.Sprintf("%-*s %-*s %*s %7s  %s", wd, "dimension", wc, "finding", wn, "count", "share", "lines")))
-		for _, x := range rows {
-			fmt.Fprintf(bw, "%-*s %-*s %*s %7s  %s\n", wd, x.dim, wc, x.code, wn, x.count, x.share, x.lines)
-		}
+	if len(frows) > 1 {
+		bw.WriteString("\n")
+		p.table(bw, frows, map[int]bool{0: true, 1: true, 4: true, 5: true}, false)
 	}
 	return bw.Flush()
+}
+
+// abbrev shortens a dimension name for table heads.
+func abbrev(name string) string {
+	if len(name) > 6 {
+		return name[:6]
+	}
+	return name
+}
+
+// table writes rows as aligned columns; left marks left-aligned columns.
+// With scores, cells after the first are coloured as scores.
+func (p *painter) table(w *bufio.Writer, rows [][]string, left map[int]bool, scores bool) {
+	width := map[int]int{}
+	for _, r := range rows {
+		for i, c := range r {
+			width[i] = max(width[i], len([]rune(c)))
+		}
+	}
+	for ri, r := range rows {
+		var b strings.Builder
+		for i, c := range r {
+			if i > 0 {
+				b.WriteString("  ")
+			}
+			pad := strings.Repeat(" ", width[i]-len([]rune(c)))
+			cell := c
+			if ri > 0 && scores && i > 0 {
+				cell = p.colour(c)
+			}
+			if left[i] {
+				if i == len(r)-1 {
+					pad = ""
+				}
+				b.WriteString(cell + pad)
+			} else {
+				b.WriteString(pad + cell)
+			}
+		}
+		line := b.String()
+		if ri == 0 {
+			line = p.bold(line)
+		}
+		w.WriteString(line + "\n")
+	}
 }
 
 type painter struct{ color bool }
@@ -93,36 +165,54 @@ func (p *painter) bold(s string) string {
 	return ansiBold + s + ansiReset
 }
 
-// score formats a score right-aligned to width, "-" when absent.
-func (p *painter) score(s *float64, width int) string {
+func (p *painter) plainScore(s *float64) string {
 	if s == nil {
-		return fmt.Sprintf("%*s", width, "-")
+		return "-"
 	}
-	t := fmt.Sprintf("%*.1f", width, *s)
-	if !p.color {
+	return strconv.FormatFloat(*s, 'f', 1, 64)
+}
+
+// colour colours a formatted score.
+func (p *painter) colour(t string) string {
+	v, err := strconv.ParseFloat(t, 64)
+	if !p.color || err != nil {
 		return t
 	}
 	c := ansiRed
 	switch {
-	case *s >= 90:
+	case v >= 90:
 		c = ansiGreen
-	case *s >= 70:
+	case v >= 70:
 		c = ansiYellow
 	}
 	return c + t + ansiReset
+}
+
+// score formats a score right-aligned to width, "-" when absent.
+func (p *painter) score(s *float64, width int) string {
+	t := p.plainScore(s)
+	return strings.Repeat(" ", max(0, width-len(t))) + p.colour(t)
 }
 
 func percent(x float64) string {
 	return strconv.FormatFloat(100*x, 'f', 1, 64) + "%"
 }
 
+// sampleLines lists where the samples are: lines, or sites and times.
 func sampleLines(s []Sample) string {
 	var b strings.Builder
 	for i, x := range s {
 		if i > 0 {
 			b.WriteByte(' ')
 		}
-		b.WriteString(strconv.FormatInt(x.Line, 10))
+		switch {
+		case x.Line > 0:
+			b.WriteString(strconv.FormatInt(x.Line, 10))
+		case x.At != nil:
+			b.WriteString(x.Site + "@" + x.At.Format("2006-01-02T15"))
+		default:
+			b.WriteString(x.Site)
+		}
 	}
 	return b.String()
 }

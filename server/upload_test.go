@@ -120,7 +120,7 @@ func TestUploadSemantics(t *testing.T) {
 	e.mustStatus(r, http.StatusOK, "quality")
 	var rep quality.Report
 	e.decode(r, &rep)
-	if rep.Score == nil || rep.Rows.Total != 9 || rep.Rows.Accepted != 9 || rep.Dimension("validity") == nil {
+	if rep.Score == nil || rep.Rows.Total != 9 || rep.Rows.Accepted != 9 || rep.Dimension("accuracy") == nil {
 		t.Errorf("quality report %+v, want the second upload's 9 rows with a score", rep)
 	}
 	qj, _ := json.Marshal(rep)

@@ -1,0 +1,320 @@
+package quality
+
+import (
+	"cmp"
+	"errors"
+	"fmt"
+	"slices"
+	"time"
+
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+// Raw is the additive part of a report: counts and sums that merge by
+// adding, from which [MergeReports] recomputes every share and score.
+type Raw struct {
+	Settings Settings            `json:"settings"`
+	Uploads  int                 `json:"uploads"` // per-upload reports merged into this one
+	Sites    []SiteRaw           `json:"sites"`
+	Waits    []WaitRaw           `json:"waits"`
+	Samples  map[string][]Sample `json:"samples"` // by finding code; empty_value:<field> per field
+}
+
+// Settings are the options the counts were taken with.
+type Settings struct {
+	Zone                  string         `json:"zone"`
+	MappedFields          []schema.Field `json:"mapped_fields"`
+	MaxSamples            int            `json:"max_samples"`
+	ResourceCapacity      int            `json:"resource_capacity"`
+	MaxCaseSeconds        float64        `json:"max_case_seconds"`
+	MaxServiceSeconds     float64        `json:"max_service_seconds"`
+	ClockToleranceSeconds float64        `json:"clock_tolerance_seconds"`
+	EventIDWindowSeconds  float64        `json:"event_id_window_seconds"`
+	CaseHorizonSeconds    float64        `json:"case_horizon_seconds"`
+	LittleTolerance       float64        `json:"little_tolerance"`
+	GapMinMean            float64        `json:"gap_min_mean"`
+	GapMinWeeks           int            `json:"gap_min_weeks"`
+	StaleAfterSeconds     float64        `json:"stale_after_seconds"`
+	UploadedAt            *time.Time     `json:"uploaded_at,omitempty"` // the latest, when merged
+	WindowFrom            *time.Time     `json:"window_from,omitempty"`
+	WindowTo              *time.Time     `json:"window_to,omitempty"`
+}
+
+// SiteRaw holds the counts of one site.
+type SiteRaw struct {
+	Site            string                       `json:"site"`
+	Events          int64                        `json:"events"`
+	Counts          map[string]int64             `json:"counts"` // by finding code
+	AccuracyRows    int64                        `json:"accuracy_rows"`
+	ConsistencyRows int64                        `json:"consistency_rows"`
+	UniquenessRows  int64                        `json:"uniqueness_rows"`
+	NonEmpty        map[schema.Field]int64       `json:"non_empty"`
+	ByType          map[schema.EventType]TypeRaw `json:"by_type"`
+	Grid            map[string]int64             `json:"grid"` // events on each grid
+	Stages          StageRaw                     `json:"stages"`
+	First           *time.Time                   `json:"first"`
+	Last            *time.Time                   `json:"last"`
+	Census          CensusRaw                    `json:"census"`
+	Lag             LagRaw                       `json:"lag"`
+	Hours           HourSeries                   `json:"hours"`
+	FileRows        int64                        `json:"file_rows"`
+	FileBackSteps   int64                        `json:"file_back_steps"`
+}
+
+// TypeRaw counts the events of one type and their non-empty fields.
+type TypeRaw struct {
+	Events   int64                  `json:"events"`
+	NonEmpty map[schema.Field]int64 `json:"non_empty"`
+}
+
+// StageRaw counts case records and those with each stage.
+type StageRaw struct {
+	Cases     int64 `json:"cases"`
+	Arrival   int64 `json:"arrival"`
+	Start     int64 `json:"start"`
+	Complete  int64 `json:"complete"`
+	Departure int64 `json:"departure"`
+}
+
+// CensusRaw holds the sums of Little's law for one site.
+type CensusRaw struct {
+	SpanSeconds     float64 `json:"span_seconds"`
+	AreaCaseSeconds float64 `json:"area_case_seconds"` // ∫ census dt
+	Arrivals        int64   `json:"arrivals"`
+	Completed       int64   `json:"completed"` // stays with arrival and departure
+	SojournSeconds  float64 `json:"sojourn_seconds"`
+	Min             int64   `json:"min"`
+}
+
+// LagRaw is the histogram of lags from event to upload, by bucket
+// number: bucket b < 8 holds lags of b seconds, then eight buckets per
+// doubling (bucket 8·k+m, k ≥ 3, holds [(8+m)·2^(k-3), (9+m)·2^(k-3))).
+type LagRaw struct {
+	N          int64         `json:"n"`
+	MaxSeconds int64         `json:"max_seconds"`
+	Buckets    map[int]int64 `json:"buckets"`
+}
+
+// HourSeries counts events per UTC hour from Start.
+type HourSeries struct {
+	Start  *time.Time `json:"start,omitempty"`
+	Counts []int64    `json:"counts"`
+	Beyond int64      `json:"beyond"` // events outside the series' span
+}
+
+// WaitRaw counts the waits of one (queue, activity).
+type WaitRaw struct {
+	Queue     string `json:"queue"`
+	Activity  string `json:"activity"`
+	Waits     int64  `json:"waits"`
+	NoEnqueue int64  `json:"no_enqueue"`
+	NoStart   int64  `json:"no_start"`
+}
+
+// ErrIncompatible is returned by [MergeReports] for reports whose formats
+// or clocks differ.
+var ErrIncompatible = errors.New("incompatible reports")
+
+// MergeReports combines the reports of the uploads of one version into
+// one: counts add, samples concatenate up to the first report's
+// MaxSamples, and every share and score is recomputed from the merged
+// counts. Findings that need the event stream (duplicates, per-case
+// checks, resource overlaps, the census minimum) were found within each
+// upload only: a duplicate or a case split across two uploads is not
+// seen. The settings of the first report apply.
+func MergeReports(rs ...*Report) (*Report, error) {
+	var out *Report
+	for i, r := range rs {
+		if r == nil {
+			continue
+		}
+		if r.Version != ReportVersion {
+			return nil, fmt.Errorf("merge: report %d has format %q, want %q: %w", i, r.Version, ReportVersion, ErrIncompatible)
+		}
+		if out == nil {
+			out = &Report{Rows: r.Rows, Rejections: cloneRejections(r.Rejections), UnmappedColumns: slices.Clone(r.UnmappedColumns)}
+			out.Raw = cloneRaw(&r.Raw)
+			continue
+		}
+		if r.Raw.Settings.Zone != out.Raw.Settings.Zone {
+			return nil, fmt.Errorf("merge: report %d is in zone %s, want %s: %w", i, r.Raw.Settings.Zone, out.Raw.Settings.Zone, ErrIncompatible)
+		}
+		max := out.Raw.Settings.MaxSamples
+		out.Rows.Total += r.Rows.Total
+		out.Rows.Accepted += r.Rows.Accepted
+		out.Rows.Rejected += r.Rows.Rejected
+		for _, rc := range r.Rejections {
+			j := slices.IndexFunc(out.Rejections, func(x RejectionCount) bool { return x.Reason == rc.Reason })
+			if j < 0 {
+				out.Rejections = append(out.Rejections, RejectionCount{Reason: rc.Reason, Samples: []Sample{}})
+				j = len(out.Rejections) - 1
+			}
+			out.Rejections[j].Count += rc.Count
+			out.Rejections[j].Samples = appendSamples(out.Rejections[j].Samples, max, rc.Samples)
+		}
+		for _, c := range r.UnmappedColumns {
+			if !slices.Contains(out.UnmappedColumns, c) {
+				out.UnmappedColumns = append(out.UnmappedColumns, c)
+			}
+		}
+		mergeRaw(&out.Raw, &r.Raw)
+	}
+	if out == nil {
+		return nil, fmt.Errorf("merge: no reports: %w", ErrIncompatible)
+	}
+	slices.SortFunc(out.Rejections, func(x, y RejectionCount) int { return cmp.Compare(x.Reason, y.Reason) })
+	slices.Sort(out.UnmappedColumns)
+	return derive(out.Rows, out.Rejections, out.Raw, out.UnmappedColumns), nil
+}
+
+func appendSamples(dst []Sample, max int, src []Sample) []Sample {
+	for _, s := range src {
+		if len(dst) >= max {
+			break
+		}
+		dst = append(dst, s)
+	}
+	return dst
+}
+
+func cloneRejections(rs []RejectionCount) []RejectionCount {
+	out := make([]RejectionCount, len(rs))
+	for i, r := range rs {
+		out[i] = RejectionCount{Reason: r.Reason, Count: r.Count, Samples: slices.Clone(r.Samples)}
+	}
+	return out
+}
+
+func cloneRaw(r *Raw) Raw {
+	out := Raw{Settings: r.Settings, Uploads: r.Uploads, Samples: map[string][]Sample{}}
+	out.Settings.MappedFields = slices.Clone(r.Settings.MappedFields)
+	for k, v := range r.Samples {
+		out.Samples[k] = slices.Clone(v)
+	}
+	out.Waits = slices.Clone(r.Waits)
+	for i := range r.Sites {
+		out.Sites = append(out.Sites, SiteRaw{Site: r.Sites[i].Site, Counts: map[string]int64{},
+			NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{}})
+		mergeSite(&out.Sites[i], &r.Sites[i])
+	}
+	return out
+}
+
+func mergeRaw(dst, src *Raw) {
+	dst.Uploads += src.Uploads
+	if u := src.Settings.UploadedAt; u != nil && (dst.Settings.UploadedAt == nil || u.After(*dst.Settings.UploadedAt)) {
+		dst.Settings.UploadedAt = u
+	}
+	for _, f := range src.Settings.MappedFields {
+		if !slices.Contains(dst.Settings.MappedFields, f) {
+			dst.Settings.MappedFields = append(dst.Settings.MappedFields, f)
+		}
+	}
+	max := dst.Settings.MaxSamples
+	for _, k := range sortedKeys(src.Samples) {
+		dst.Samples[k] = appendSamples(dst.Samples[k], max, src.Samples[k])
+	}
+	for _, w := range src.Waits {
+		j := slices.IndexFunc(dst.Waits, func(x WaitRaw) bool { return x.Queue == w.Queue && x.Activity == w.Activity })
+		if j < 0 {
+			dst.Waits = append(dst.Waits, WaitRaw{Queue: w.Queue, Activity: w.Activity})
+			j = len(dst.Waits) - 1
+		}
+		dst.Waits[j].Waits += w.Waits
+		dst.Waits[j].NoEnqueue += w.NoEnqueue
+		dst.Waits[j].NoStart += w.NoStart
+	}
+	for i := range src.Sites {
+		s := &src.Sites[i]
+		j := slices.IndexFunc(dst.Sites, func(x SiteRaw) bool { return x.Site == s.Site })
+		if j < 0 {
+			dst.Sites = append(dst.Sites, SiteRaw{Site: s.Site, Counts: map[string]int64{},
+				NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{}})
+			j = len(dst.Sites) - 1
+		}
+		mergeSite(&dst.Sites[j], s)
+	}
+}
+
+func addMap[K comparable](dst, src map[K]int64) {
+	for k, v := range src {
+		dst[k] += v
+	}
+}
+
+func mergeSite(d, s *SiteRaw) {
+	first := d.Events == 0 && d.First == nil
+	d.Events += s.Events
+	addMap(d.Counts, s.Counts)
+	d.AccuracyRows += s.AccuracyRows
+	d.ConsistencyRows += s.ConsistencyRows
+	d.UniquenessRows += s.UniquenessRows
+	addMap(d.NonEmpty, s.NonEmpty)
+	for t, tr := range s.ByType {
+		x := d.ByType[t]
+		if x.NonEmpty == nil {
+			x.NonEmpty = map[schema.Field]int64{}
+		}
+		x.Events += tr.Events
+		addMap(x.NonEmpty, tr.NonEmpty)
+		d.ByType[t] = x
+	}
+	addMap(d.Grid, s.Grid)
+	d.Stages.Cases += s.Stages.Cases
+	d.Stages.Arrival += s.Stages.Arrival
+	d.Stages.Start += s.Stages.Start
+	d.Stages.Complete += s.Stages.Complete
+	d.Stages.Departure += s.Stages.Departure
+	if s.First != nil && (d.First == nil || s.First.Before(*d.First)) {
+		d.First = s.First
+	}
+	if s.Last != nil && (d.Last == nil || s.Last.After(*d.Last)) {
+		d.Last = s.Last
+	}
+	c := &d.Census
+	c.SpanSeconds += s.Census.SpanSeconds
+	c.AreaCaseSeconds += s.Census.AreaCaseSeconds
+	c.Arrivals += s.Census.Arrivals
+	c.Completed += s.Census.Completed
+	c.SojournSeconds += s.Census.SojournSeconds
+	if first || s.Census.Min < c.Min {
+		c.Min = s.Census.Min
+	}
+	d.Lag.N += s.Lag.N
+	d.Lag.MaxSeconds = max(d.Lag.MaxSeconds, s.Lag.MaxSeconds)
+	if d.Lag.Buckets == nil {
+		d.Lag.Buckets = map[int]int64{}
+	}
+	addMap(d.Lag.Buckets, s.Lag.Buckets)
+	d.Hours = mergeHours(d.Hours, s.Hours)
+	d.FileRows += s.FileRows
+	d.FileBackSteps += s.FileBackSteps
+}
+
+func mergeHours(a, b HourSeries) HourSeries {
+	if b.Start == nil {
+		a.Beyond += b.Beyond
+		if a.Counts == nil {
+			a.Counts = []int64{}
+		}
+		return a
+	}
+	if a.Start == nil {
+		return HourSeries{Start: b.Start, Counts: slices.Clone(b.Counts), Beyond: a.Beyond + b.Beyond}
+	}
+	start := *a.Start
+	if b.Start.Before(start) {
+		start = *b.Start
+	}
+	offA := int(a.Start.Sub(start) / time.Hour)
+	offB := int(b.Start.Sub(start) / time.Hour)
+	n := max(offA+len(a.Counts), offB+len(b.Counts))
+	out := make([]int64, n)
+	for i, v := range a.Counts {
+		out[offA+i] += v
+	}
+	for i, v := range b.Counts {
+		out[offB+i] += v
+	}
+	return HourSeries{Start: &start, Counts: out, Beyond: a.Beyond + b.Beyond}
+}

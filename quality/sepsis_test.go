@@ -1,0 +1,185 @@
+package quality
+
+import (
+	"compress/gzip"
+	"encoding/csv"
+	"errors"
+	"io"
+	"os"
+	"path/filepath"
+	"slices"
+	"testing"
+	"time"
+
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+const sepsisDir = "../testdata/sepsis"
+
+// TestSepsis reads the public sepsis log as the catalog does and checks
+// the detected resolution and the same-instant count against values
+// computed here independently, with the standard library only.
+func TestSepsis(t *testing.T) {
+	pb, err := os.ReadFile(filepath.Join(sepsisDir, "profile.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	prof, err := schema.ParseProfile(pb)
+	if err != nil {
+		t.Fatal(err)
+	}
+	f, err := os.Open(filepath.Join(sepsisDir, "sepsis-cases.csv.gz"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	rd, err := schema.NewReader(f, prof, schema.ReaderOptions{Name: "sepsis"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// A horizon beyond the longest case (422 days, README), so that one
+	// case is one case record.
+	acc := NewAccumulator(Options{Zone: prof.Location(), UploadedAt: time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC), CaseHorizon: 500 * 24 * time.Hour})
+	var evs []schema.Event
+	for {
+		var e schema.Event
+		rej, err := rd.Next(&e)
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+		if rej != nil {
+			acc.Reject(*rej)
+			continue
+		}
+		e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
+		acc.ObserveFileOrder(&e)
+		evs = append(evs, e)
+	}
+	slices.SortStableFunc(evs, func(a, b schema.Event) int { return a.OccurredAt.Compare(b.OccurredAt) })
+	for i := range evs {
+		acc.Observe(&evs[i])
+	}
+	r := acc.Report()
+
+	// Resolution from the raw column, read with time.Parse in the log's
+	// zone: the coarsest grid every wall-clock time sits on.
+	want := rawResolution(t)
+	if r.Resolution.Grid != want {
+		t.Errorf("resolution %s, want %s", r.Resolution.Grid, want)
+	}
+	// The millisecond field is always .000 (README), so at least seconds.
+	if r.Resolution.Grid == "microsecond" || r.Resolution.Grid == "millisecond" {
+		t.Errorf("resolution %s, want seconds or coarser", r.Resolution.Grid)
+	}
+
+	// Same-instant events within a case: per (case, instant), the
+	// distinct events (exact copies count once) beyond the first.
+	groups := map[[2]string]map[schema.Event]bool{}
+	var exact int64
+	for _, e := range evs {
+		e.Line = 0
+		k := [2]string{e.CaseID, e.OccurredAt.Format(time.RFC3339Nano)}
+		if groups[k] == nil {
+			groups[k] = map[schema.Event]bool{}
+		}
+		if groups[k][e] {
+			exact++
+		}
+		groups[k][e] = true
+	}
+	var same int64
+	for _, g := range groups {
+		same += int64(len(g) - 1)
+	}
+	if got := r.Count(CodeSameInstant); got != same || same == 0 {
+		t.Errorf("same_instant %d, want %d", got, same)
+	}
+	if got := r.Count(CodeExactDuplicate); got != exact {
+		t.Errorf("exact_duplicate %d, want %d", got, exact)
+	}
+	// Only completes: no order conflicts, no arrivals, no waits.
+	if r.Count(CodeSameInstantOrder) != 0 || r.Stages.Arrival != 0 || len(r.Waits) != 0 {
+		t.Errorf("order conflicts %d, stages %+v, waits %v", r.Count(CodeSameInstantOrder), r.Stages, r.Waits)
+	}
+	// 1050 cases (the log's published figure, README); cases longer than
+	// 30 days, counted here.
+	first, last := map[string]time.Time{}, map[string]time.Time{}
+	for _, e := range evs {
+		if _, ok := first[e.CaseID]; !ok {
+			first[e.CaseID] = e.OccurredAt
+		}
+		last[e.CaseID] = e.OccurredAt
+	}
+	var long int64
+	for c := range first {
+		if last[c].Sub(first[c]) > DefaultMaxCase {
+			long++
+		}
+	}
+	if got := r.Count(CodeCaseTooLong); got != long {
+		t.Errorf("case_too_long %d, want %d", got, long)
+	}
+	if r.Stages.Cases != 1050 {
+		t.Errorf("%d cases, want 1050", r.Stages.Cases)
+	}
+	// The file is grouped by case, so the clock is not judged.
+	if r.Count(CodeClockBackwards) != 0 || r.Count(CodeFileNotTimeOrdered) == 0 {
+		t.Errorf("clock_backwards %d, file_not_time_ordered %d", r.Count(CodeClockBackwards), r.Count(CodeFileNotTimeOrdered))
+	}
+	t.Logf("sepsis: score %v, resolution %s, same_instant %d, rows %+v", *r.Score, r.Resolution.Grid, same, r.Rows)
+}
+
+func rawResolution(t *testing.T) string {
+	ams, err := time.LoadLocation("Europe/Amsterdam")
+	if err != nil {
+		t.Fatal(err)
+	}
+	f, err := os.Open(filepath.Join(sepsisDir, "sepsis-cases.csv.gz"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	zr, err := gzip.NewReader(f)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cr := csv.NewReader(zr)
+	cr.Comma = ';'
+	head, err := cr.Read()
+	if err != nil {
+		t.Fatal(err)
+	}
+	col := slices.Index(head, "Complete Timestamp")
+	// on[g]: every time so far sits on grid g (ms, s, min, 5 min, 15 min, hour, day).
+	on := [7]bool{true, true, true, true, true, true, true}
+	for {
+		rec, err := cr.Read()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+		tm, err := time.ParseInLocation("2006/01/02 15:04:05.000", rec[col], ams)
+		if err != nil {
+			continue // the reader rejects it too
+		}
+		ns, s, m, h := tm.Nanosecond(), tm.Second(), tm.Minute(), tm.Hour()
+		conds := [7]bool{ns%1e6 == 0, ns == 0, ns == 0 && s == 0, ns == 0 && s == 0 && m%5 == 0,
+			ns == 0 && s == 0 && m%15 == 0, ns == 0 && s == 0 && m == 0, ns == 0 && s == 0 && m == 0 && h == 0}
+		for i := range on {
+			on[i] = on[i] && conds[i]
+		}
+	}
+	names := []string{"millisecond", "second", "minute", "5_minutes", "15_minutes", "hour", "day"}
+	res := "microsecond"
+	for i := range on {
+		if on[i] {
+			res = names[i]
+		}
+	}
+	return res
+}
