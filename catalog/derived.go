@@ -10,6 +10,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -183,4 +184,84 @@ func (s *Store) Summary(ctx context.Context, v *Version) ([]byte, error) {
 		return nil, err
 	}
 	return vs.JSON, nil
+}
+
+// bucketFileReports maps a blob id to the quality report of its events.
+var bucketFileReports = []byte("file_reports")
+
+func putFileReports(tx *bolt.Tx, reports map[blob.ID]*quality.Report) error {
+	for id, r := range reports {
+		if err := putJSON(tx.Bucket(bucketFileReports), append([]byte(nil), id[:]...), r); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// reportOfFile returns the quality report of a stored file: kept from its
+// commit, or else the report of the upload that made it (files from before
+// reports were kept per file).
+func (s *Store) reportOfFile(f FileEntry, ref string) (*quality.Report, error) {
+	var r quality.Report
+	err := s.db.View(func(tx *bolt.Tx) error {
+		if err := getJSON(tx.Bucket(bucketFileReports), f.SHA256[:], &r, "report"); err == nil {
+			return nil
+		}
+		var up Upload
+		var seq int
+		if _, err := fmt.Sscanf(f.Upload, "u%d", &seq); err != nil {
+			return fmt.Errorf("file %s: no report and no upload: %w", f.SHA256, ErrNotFound)
+		}
+		if err := getJSON(tx.Bucket(bucketUploads), seqKey(ref, seq), &up, "upload "+f.Upload); err != nil {
+			return err
+		}
+		if up.Report == nil || f.DerivedFrom != nil {
+			return fmt.Errorf("file %s: no report: %w", f.SHA256, ErrNotFound)
+		}
+		r = *up.Report
+		return nil
+	})
+	if err != nil {
+		return nil, err
+	}
+	return &r, nil
+}
+
+// mergeQuality builds the quality report of the new version over all its
+// files: on append, the parent's report merged with the upload's; else the
+// merge of every file's report (rewritten files have a report computed as
+// they were rewritten, without the rejected rows and source lines of their
+// first upload).
+func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePlan, rep *quality.Report, mode Mode) (*quality.Report, error) {
+	if mode == ModeAppend && parent != nil && parent.Manifest.Quality != nil {
+		if r, err := quality.MergeReports(parent.Manifest.Quality, rep); err == nil {
+			return r, nil
+		}
+	}
+	var rs []*quality.Report
+	for _, f := range plan.files {
+		r := plan.reports[f.SHA256]
+		if r == nil {
+			var err error
+			if r, err = s.reportOfFile(f, parentRef(parent)); err != nil {
+				return nil, err
+			}
+		}
+		rs = append(rs, r)
+	}
+	if len(rs) == 0 {
+		return rep, nil
+	}
+	out, err := quality.MergeReports(rs...)
+	if err != nil {
+		return nil, fmt.Errorf("quality: %w", err)
+	}
+	return out, nil
+}
+
+func parentRef(v *Version) string {
+	if v == nil {
+		return ""
+	}
+	return v.Manifest.Dataset
 }

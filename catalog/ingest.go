@@ -232,7 +232,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	if testHookBeforeCommit != nil {
 		testHookBeforeCommit()
 	}
-	return s.commit(ctx, ds, &up, entry, sacc, rep, pz.KeyID(), opt)
+	return s.commit(ctx, ds, &up, entry, sacc, rep, qopt, pz.KeyID(), opt)
 }
 
 // removing reports whether opt allows an upload without rows: a
@@ -247,7 +247,7 @@ func isNoRows(err error) bool {
 // commit makes the new version from the latest one, under the dataset's
 // commit lock so that the plan (which may rewrite files) and the
 // transaction see the same parent.
-func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, rep *quality.Report, keyID string, opt IngestOptions) (*IngestResult, error) {
+func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, rep *quality.Report, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
 	unlock := s.lockDataset(ds.Ref())
 	defer unlock()
 	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
@@ -256,7 +256,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	} else if err != nil {
 		return nil, err
 	}
-	plan, err := s.planFiles(ctx, ds, parent, entry, keyID, opt)
+	plan, err := s.planFiles(ctx, ds, parent, entry, keyID, opt, qopt)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
@@ -269,6 +269,11 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	}
 	if entry != nil {
 		plan.summaries[entry.SHA256] = sacc
+		plan.reports[entry.SHA256] = rep
+	}
+	vrep, err := s.mergeQuality(ctx, parent, plan, rep, opt.Mode)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	vsum, fileSums, err := s.mergeSummary(ctx, ds, parent, plan, plan.summaries, opt.Mode)
 	if err != nil {
@@ -300,7 +305,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			SchemaVersion: schema.Version,
 			ProfileHash:   cur.ProfileHash,
 			KeyID:         keyID,
-			Quality:       rep,
+			Quality:       vrep,
 			Files:         plan.files,
 			CreatedBy:     opt.By,
 			CreatedAt:     received,
@@ -338,6 +343,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			return err
 		}
 		if err := putSummaries(tx, cur.Ref(), v.Number, vsum, fileSums); err != nil {
+			return err
+		}
+		if err := putFileReports(tx, plan.reports); err != nil {
 			return err
 		}
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), up); err != nil {

@@ -247,8 +247,10 @@ func TestIngestAppendAndDuplicate(t *testing.T) {
 		m.Files[1].Upload != "u2" || m.Files[1].Rows != 300 {
 		t.Errorf("version 2 manifest = %+v", m)
 	}
-	if m.Quality.Rows.Total != 300 {
-		t.Errorf("version 2 quality counts %d rows; it describes the new upload", m.Quality.Rows.Total)
+	// The version's report covers all its files; the upload's, its own.
+	if m.Quality.Rows.Total != 500 || r2.Upload.Report.Rows.Total != 300 || m.Quality.Raw.Uploads != 2 {
+		t.Errorf("version 2 quality counts %d rows (upload report %d, uploads %d); want 500 over both files and 300",
+			m.Quality.Rows.Total, r2.Upload.Report.Rows.Total, m.Quality.Raw.Uploads)
 	}
 	if len(e.blobIDs(t)) != 2 {
 		t.Errorf("blobs = %v", e.blobIDs(t))

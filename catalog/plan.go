@@ -10,6 +10,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -50,6 +51,10 @@ type filePlan struct {
 	releases []func() // holds on rewritten blobs
 	// summaries of the files this commit makes (the upload's, rewritten ones)
 	summaries map[blob.ID]*summary.Accumulator
+	// quality reports of the files this commit makes, and the options of
+	// the accumulators that compute them for rewritten files
+	reports map[blob.ID]*quality.Report
+	qopt    quality.Options
 }
 
 func (p *filePlan) release() {
@@ -61,8 +66,8 @@ func (p *filePlan) release() {
 // planFiles computes the new version's files from the parent's (nil for
 // the first version) and the upload's file (nil when a replacement only
 // removes), by mode.
-func (s *Store) planFiles(ctx context.Context, ds *Dataset, parent *Version, entry *FileEntry, keyID string, opt IngestOptions) (*filePlan, error) {
-	p := &filePlan{summaries: map[blob.ID]*summary.Accumulator{}}
+func (s *Store) planFiles(ctx context.Context, ds *Dataset, parent *Version, entry *FileEntry, keyID string, opt IngestOptions, qopt quality.Options) (*filePlan, error) {
+	p := &filePlan{summaries: map[blob.ID]*summary.Accumulator{}, reports: map[blob.ID]*quality.Report{}, qopt: qopt}
 	var base []FileEntry
 	if parent != nil {
 		base = parent.Manifest.Files
@@ -146,10 +151,13 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 	}
 	defer sw.Remove()
 	sacc := summary.New(summaryOptions(ds))
+	qacc := quality.NewAccumulator(p.qopt)
 	err = ReadSnapshot(r, r.Size(), func(e *schema.Event) error {
 		if drop(e) {
 			return nil
 		}
+		qacc.ObserveFileOrder(e)
+		qacc.Observe(e)
 		sacc.Observe(e)
 		return sw.Write(e)
 	})
@@ -165,6 +173,7 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 		return nil, 0, fmt.Errorf("replace-window: %w", err)
 	}
 	p.summaries[id] = sacc
+	p.reports[id] = qacc.Report()
 	from := f.SHA256
 	return &FileEntry{
 		SHA256: id, Bytes: size, Rows: sw.rows, Upload: f.Upload,

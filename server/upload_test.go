@@ -115,13 +115,13 @@ func TestUploadSemantics(t *testing.T) {
 		}
 	}
 
-	// The quality endpoint returns version 2's report.
+	// The quality endpoint returns version 2's report, over both files.
 	r = e.get(ds+"/versions/2/quality", e.admin)
 	e.mustStatus(r, http.StatusOK, "quality")
 	var rep quality.Report
 	e.decode(r, &rep)
-	if rep.Score == nil || rep.Rows.Total != 9 || rep.Rows.Accepted != 9 || rep.Dimension("accuracy") == nil {
-		t.Errorf("quality report %+v, want the second upload's 9 rows with a score", rep)
+	if rep.Score == nil || rep.Rows.Total != 21 || rep.Rows.Accepted != 21 || rep.Dimension("accuracy") == nil {
+		t.Errorf("quality report rows %+v, want the 12 + 9 rows of both uploads, with a score", rep.Rows)
 	}
 	qj, _ := json.Marshal(rep)
 	vj, _ := json.Marshal(v2.Manifest.Quality)
