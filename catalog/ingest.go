@@ -290,6 +290,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref(), cur.Latest)
 		}
 		nextUpload(&cur, up)
+		up.Alerts = driftAlerts(tx, cur.Ref(), up)
 		if entry != nil {
 			for i := range plan.files {
 				if plan.files[i].SHA256 == entry.SHA256 && plan.files[i].Upload == "" {
@@ -485,6 +486,7 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 			return err
 		}
 		nextUpload(&cur, up)
+		up.Alerts = driftAlerts(tx, cur.Ref(), up)
 		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {
 			return err
 		}

@@ -99,6 +99,7 @@ type Upload struct {
 	Error      *UploadError    `json:"error,omitempty"`
 	Report     *quality.Report `json:"report,omitempty"`
 	Unmapped   []string        `json:"unmapped_columns,omitempty"`
+	Alerts     []quality.Alert `json:"alerts,omitempty"` // drift against the site's recent uploads
 	ReceivedAt time.Time       `json:"received_at"`
 	By         string          `json:"by"`
 }

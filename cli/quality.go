@@ -1,23 +1,39 @@
 package cli
 
 import (
+	"encoding/json"
 	"fmt"
+	"io"
+	"net/url"
+	"text/tabwriter"
 
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
+type trendAnswer struct {
+	Points []catalog.TrendPoint  `json:"points"`
+	Alerts []catalog.UploadAlert `json:"alerts"`
+}
+
 func newQualityCmd(e *env) *cobra.Command {
-	return &cobra.Command{
-		Use:   "quality PROJECT/DATASET[@N]",
-		Short: "Show the quality report of a version (latest by default)",
-		Long: `Quality prints the report of the upload that made the version: the file it added.
-Each earlier file keeps the report of its own upload (see flowcat quality P/D@N for the version it made).`,
+	var trend bool
+	var site string
+	c := &cobra.Command{
+		Use:   "quality PROJECT/DATASET[@VERSION] | quality PROJECT/DATASET --trend [--site S]",
+		Short: "Show the quality report of a version, or the quality of every upload as a trend",
+		Long: `Quality prints a version's report: its five dimensions (completeness, accuracy, consistency,
+currentness, uniqueness) with their findings, over all the version's files. quality/SCORING.md in
+the source gives every formula.
+
+With --trend it prints, per site, the score and sub-scores of every upload (accepted or rejected)
+in order, with the drift alerts: an upload below its site's recent range, or a field whose
+completeness dropped (an export that lost a column).`,
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			var v catalog.Version
-			r, err := parseRef(args[0], true)
+			r, err := parseRef(args[0], !trend)
 			if err != nil {
 				return err
 			}
@@ -25,6 +41,41 @@ Each earlier file keeps the report of its own upload (see flowcat quality P/D@N 
 			if err != nil {
 				return err
 			}
+			if trend {
+				q := url.Values{}
+				if site != "" {
+					q.Set("site", site)
+				}
+				var t trendAnswer
+				resp, err := cl.do(cmd.Context(), "GET", r.path()+"/quality/trend", q, nil, nil)
+				if err != nil {
+					return err
+				}
+				defer resp.Body.Close()
+				if err := decodeBody(resp.Body, &t); err != nil {
+					return err
+				}
+				if e.json {
+					return writeJSON(e.stdout, t)
+				}
+				pts := make([]quality.TrendPoint, len(t.Points))
+				for i, p := range t.Points {
+					pts[i] = p.TrendPoint
+				}
+				var alerts []quality.Alert
+				for _, a := range t.Alerts {
+					alerts = append(alerts, a.Alert)
+				}
+				if len(pts) == 0 {
+					fmt.Fprintf(e.stdout, "%s: no upload with a report yet\n", r)
+					return nil
+				}
+				return quality.WriteTrend(e.stdout, pts, alerts, e.tty())
+			}
+			if site != "" {
+				return usageErr("quality: --site goes with --trend")
+			}
+			var v catalog.Version
 			if err := cl.getJSON(cmd.Context(), r.versionPath(), &v); err != nil {
 				return err
 			}
@@ -32,13 +83,50 @@ Each earlier file keeps the report of its own upload (see flowcat quality P/D@N 
 			if e.json {
 				return writeJSON(e.stdout, m.Quality)
 			}
-			up := "-"
-			if len(m.Uploads) > 0 {
-				up = m.Uploads[len(m.Uploads)-1]
-			}
-			fmt.Fprintf(e.stdout, "%s@%d holds %d files, %d rows; this is the report of upload %s, the file it added\n\n",
-				m.Dataset, v.Number, len(m.Files), m.Rows, up)
+			fmt.Fprintf(e.stdout, "%s@%d (%s): %d files from %d uploads, %d rows\n\n",
+				m.Dataset, v.Number, v.State, len(m.Files), len(m.Uploads), m.Rows)
 			return m.Quality.Text(e.stdout, e.tty())
 		},
 	}
+	c.Flags().BoolVar(&trend, "trend", false, "the quality of every upload, per site, with drift alerts")
+	c.Flags().StringVar(&site, "site", "", "with --trend: one site only (* for all sites together)")
+	return c
+}
+
+func newAlertsCmd(e *env) *cobra.Command {
+	return &cobra.Command{
+		Use:   "alerts PROJECT/DATASET",
+		Short: "List a dataset's drift alerts, newest first",
+		Args:  cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			var as []catalog.UploadAlert
+			if printed, err := e.fetch(cmd, args[0], false, func(r ref) string { return r.path() + "/alerts" }, &as); printed || err != nil {
+				return err
+			}
+			if len(as) == 0 {
+				fmt.Fprintln(e.stdout, "no alerts")
+				return nil
+			}
+			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
+			fmt.Fprintln(tw, "UPLOAD\tRECEIVED\tSITE\tALERT\tMETRIC\tVALUE\tRECENT RANGE")
+			for _, a := range as {
+				fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%.1f\t%.1f..%.1f\n", a.Upload, a.ReceivedAt, a.Site, a.Code, a.Metric, a.Value, a.Low, a.High)
+			}
+			if err := tw.Flush(); err != nil {
+				return err
+			}
+			fmt.Fprintln(e.stdout)
+			for _, a := range as {
+				fmt.Fprintf(e.stdout, "%s %s: %s\n", a.Upload, a.Site, a.Sentence)
+			}
+			return nil
+		},
+	}
+}
+
+func decodeBody(r io.Reader, v any) error {
+	if err := json.NewDecoder(r).Decode(v); err != nil {
+		return fmt.Errorf("reading the answer: %w", err)
+	}
+	return nil
 }

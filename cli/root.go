@@ -106,7 +106,7 @@ scores their quality and keeps immutable, versioned Parquet snapshots that stude
 		newProjectCmd(e), newDatasetCmd(e), newUploadCmd(e), newUploadsCmd(e), newVersionsCmd(e),
 		newPullCmd(e), newVerifyCmd(e), newQualityCmd(e),
 		newPublishCmd(e), newRetractCmd(e), newGCCmd(e),
-		newSummaryCmd(e), newExportCmd(e), newBundleCmd(e), newCiteCmd(e), newDiffCmd(e),
+		newAlertsCmd(e), newSummaryCmd(e), newExportCmd(e), newBundleCmd(e), newCiteCmd(e), newDiffCmd(e),
 		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e),
 	)
 	for _, c := range root.Commands() {

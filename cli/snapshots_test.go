@@ -2,6 +2,7 @@ package cli_test
 
 import (
 	"encoding/json"
+	"fmt"
 	"os"
 	"path/filepath"
 	"strings"
@@ -248,6 +249,31 @@ func TestViewCommands(t *testing.T) {
 	}
 	if code, _, _ := run(t, member, "diff", "flow/visits@1", "other/visits@2"); code != 2 {
 		t.Errorf("diff across datasets: exit %d, want 2", code)
+	}
+
+	// Nightly trend and a drift alert: five more nights, then an export
+	// that lost its queue column.
+	for d := 3; d <= 7; d++ {
+		must(admin, "upload", "flow/visits", writeFile(t, files, fmt.Sprintf("n%d.csv", d), night(d, "RAW")))
+	}
+	lost := strings.ReplaceAll(strings.ReplaceAll(night(8, "RAW"), ",queue,", ","), ",consult,main,", ",consult,")
+	out = must(admin, "upload", "flow/visits", writeFile(t, files, "n8.csv", lost))
+	if !strings.Contains(out, "alert field_dropped at north") {
+		t.Errorf("upload of a night without queue:\n%s", out)
+	}
+	out = must(member, "quality", "flow/visits", "--trend", "--site", "north")
+	if !strings.Contains(out, "north") || strings.Count(out, "\nu") < 8 || !strings.Contains(out, "field_dropped") {
+		t.Errorf("quality --trend:\n%s", out)
+	}
+	out = must(member, "alerts", "flow/visits")
+	if !strings.Contains(out, "u8") || !strings.Contains(out, "completeness:queue") {
+		t.Errorf("alerts:\n%s", out)
+	}
+	if out := must(member, "quality", "flow/visits"); !strings.Contains(out, "8 uploads") || !strings.Contains(out, "little's law") {
+		t.Errorf("quality of the latest version:\n%s", out)
+	}
+	if code, _, _ := run(t, member, "quality", "flow/visits@2", "--trend"); code != 2 {
+		t.Errorf("quality @2 --trend: exit %d, want 2", code)
 	}
 }
 

@@ -177,6 +177,9 @@ func printUpload(w io.Writer, r ref, a *uploadAnswer) {
 	if len(u.Unmapped) > 0 {
 		fmt.Fprintf(w, "dropped unmapped columns: %s\n", strings.Join(u.Unmapped, ", "))
 	}
+	for _, a := range u.Alerts {
+		fmt.Fprintf(w, "alert %s at %s: %s\n", a.Code, a.Site, a.Sentence)
+	}
 }
 
 func printRejected(w io.Writer, name string, ae *apiError, u *catalog.Upload) {

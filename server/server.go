@@ -80,6 +80,8 @@ func New(cfg Config) *Server {
 	auth.GET(ds+"/versions/:version/bundle", s.getBundle)
 	auth.GET(ds+"/versions/:version/citation", s.getCitation)
 	auth.GET(ds+"/diff", s.diffVersions)
+	auth.GET(ds+"/quality/trend", s.getTrend)
+	auth.GET(ds+"/alerts", s.getAlerts)
 	auth.POST(ds+"/versions/:version/:action", s.setState)
 	auth.POST("/admin/gc", s.collectGarbage)
 	return s

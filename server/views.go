@@ -414,3 +414,41 @@ func qualityDelta(a, b *catalog.Version) map[string]float64 {
 	}
 	return out
 }
+
+// trendResponse is a dataset's quality over its uploads.
+type trendResponse struct {
+	Points []catalog.TrendPoint  `json:"points"`
+	Alerts []catalog.UploadAlert `json:"alerts"`
+}
+
+// getTrend serves the score and sub-scores of every upload with a report,
+// per site (?site= for one; "*" is all sites), with the drift alerts.
+func (s *Server) getTrend(c echo.Context) error {
+	d, err := s.dataset(c, (*Claims).CanSeeDataset, "see the quality of")
+	if err != nil {
+		return err
+	}
+	for k := range c.QueryParams() {
+		if k != "site" {
+			return fail(http.StatusBadRequest, "invalid", "unknown parameter %q: the trend takes site", truncateParam(k))
+		}
+	}
+	points, alerts, err := s.cfg.Store.Trend(c.Request().Context(), d.Project, d.Name, c.QueryParam("site"))
+	if err != nil {
+		return catalogError(err)
+	}
+	return c.JSON(http.StatusOK, trendResponse{Points: points, Alerts: alerts})
+}
+
+// getAlerts lists a dataset's drift alerts, newest first.
+func (s *Server) getAlerts(c echo.Context) error {
+	d, err := s.dataset(c, (*Claims).CanSeeDataset, "see the alerts of")
+	if err != nil {
+		return err
+	}
+	_, alerts, err := s.cfg.Store.Trend(c.Request().Context(), d.Project, d.Name, c.QueryParam("site"))
+	if err != nil {
+		return catalogError(err)
+	}
+	return c.JSON(http.StatusOK, alerts)
+}
