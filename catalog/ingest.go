@@ -446,6 +446,9 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 func mappedFields(p *schema.Profile) []schema.Field {
 	var out []schema.Field
 	for _, f := range schema.Fields {
+		if f.Required() {
+			continue // always filled, or the row is rejected
+		}
 		if m, ok := p.Fields[f]; ok && !m.Optional && (m.Column != "" || m.Value != "") {
 			out = append(out, f)
 		}
