@@ -66,7 +66,7 @@ func (s *Store) setState(project, dataset string, n int, by string, change func(
 		if err != nil || !changed {
 			return err
 		}
-		if err := putJSON(b, seqKey(ref, n), &v); err != nil {
+		if err := putVersion(tx, &v); err != nil {
 			return err
 		}
 		return audit(tx, s.opt.Now(), by, action, fmt.Sprintf("%s@%d", ref, n))

@@ -1,9 +1,12 @@
 package catalog
 
 import (
+	"bytes"
+	"compress/gzip"
 	"context"
 	"encoding/json"
 	"fmt"
+	"io"
 	"time"
 
 	bolt "go.etcd.io/bbolt"
@@ -17,16 +20,19 @@ import (
 var (
 	// bucketFileSummaries maps a blob id to the summary state of its events.
 	bucketFileSummaries = []byte("file_summaries")
-	// bucketVersionSummaries maps a version (seqKey) to versionSummary.
+	// bucketVersionSummaries maps a version (seqKey) to its Summary's
+	// JSON, gzip-compressed, served as it is.
 	bucketVersionSummaries = []byte("version_summaries")
+	// bucketVersionStates maps a version (seqKey) to its merged summary
+	// state, so that the next append merges one file into it without
+	// reading the past.
+	bucketVersionStates = []byte("version_summary_states")
 )
 
-// versionSummary is what a version keeps of its summary: the merged state,
-// so that the next append merges one file into it without reading the
-// past, and the Summary's JSON, served as it is.
+// versionSummary is what a version keeps of its summary.
 type versionSummary struct {
-	State []byte          `json:"state"`
-	JSON  json.RawMessage `json:"summary"`
+	State []byte
+	JSON  []byte
 }
 
 // summaryOptions are the summary options of a dataset: hours and days in
@@ -141,7 +147,12 @@ func (s *Store) mergeSummary(ctx context.Context, ds *Dataset, parent *Version, 
 func (s *Store) storedVersionSummary(ref string, n int) (*versionSummary, error) {
 	var vs versionSummary
 	err := s.db.View(func(tx *bolt.Tx) error {
-		return getJSON(tx.Bucket(bucketVersionSummaries), seqKey(ref, n), &vs, fmt.Sprintf("summary of %s@%d", ref, n))
+		st := tx.Bucket(bucketVersionStates).Get(seqKey(ref, n))
+		if st == nil {
+			return fmt.Errorf("summary of %s@%d: %w", ref, n, ErrNotFound)
+		}
+		vs.State = bytes.Clone(st)
+		return nil
 	})
 	if err != nil {
 		return nil, err
@@ -156,18 +167,64 @@ func putSummaries(tx *bolt.Tx, ref string, n int, vs *versionSummary, files map[
 			return err
 		}
 	}
-	return putJSON(tx.Bucket(bucketVersionSummaries), seqKey(ref, n), vs)
+	if err := tx.Bucket(bucketVersionStates).Put(seqKey(ref, n), vs.State); err != nil {
+		return err
+	}
+	gz, err := gzipJSON(vs.JSON)
+	if err != nil {
+		return err
+	}
+	return tx.Bucket(bucketVersionSummaries).Put(seqKey(ref, n), gz)
 }
 
-// Summary returns the stored summary JSON of version v (see
-// catalog/summary/SUMMARY.md). A version made before summaries were kept
-// gets its summary computed from its files once, then stored.
-func (s *Store) Summary(ctx context.Context, v *Version) ([]byte, error) {
-	ref := v.Manifest.Dataset
-	if vs, err := s.storedVersionSummary(ref, v.Number); err == nil {
-		return vs.JSON, nil
+func gzipJSON(b []byte) ([]byte, error) {
+	var buf bytes.Buffer
+	zw, err := gzip.NewWriterLevel(&buf, gzip.BestCompression)
+	if err != nil {
+		return nil, err
+	}
+	if _, err := zw.Write(b); err != nil {
+		return nil, err
+	}
+	if err := zw.Close(); err != nil {
+		return nil, err
+	}
+	return buf.Bytes(), nil
+}
+
+// Summary returns the stored summary JSON of version n of dataset ref
+// ("project/dataset"; see
+// catalog/summary/SUMMARY.md).
+func (s *Store) Summary(ctx context.Context, ref string, n int) ([]byte, error) {
+	gz, err := s.SummaryGzip(ctx, ref, n)
+	if err != nil {
+		return nil, err
+	}
+	zr, err := gzip.NewReader(bytes.NewReader(gz))
+	if err != nil {
+		return nil, fmt.Errorf("summary: %w", err)
+	}
+	return io.ReadAll(zr)
+}
+
+// SummaryGzip returns the stored summary JSON of a version, gzip-compressed
+// as it is stored, for a server to send as it is. A version made before
+// summaries were kept gets its summary computed from its files once, then
+// stored.
+func (s *Store) SummaryGzip(ctx context.Context, ref string, n int) ([]byte, error) {
+	var gz []byte
+	err := s.db.View(func(tx *bolt.Tx) error {
+		gz = bytes.Clone(tx.Bucket(bucketVersionSummaries).Get(seqKey(ref, n)))
+		return nil
+	})
+	if err != nil || gz != nil {
+		return gz, err
 	}
 	project, name, _, err := SplitRef(ref)
+	if err != nil {
+		return nil, err
+	}
+	v, err := s.Version(ctx, project, name, n)
 	if err != nil {
 		return nil, err
 	}
@@ -183,7 +240,7 @@ func (s *Store) Summary(ctx context.Context, v *Version) ([]byte, error) {
 	if err != nil {
 		return nil, err
 	}
-	return vs.JSON, nil
+	return gzipJSON(vs.JSON)
 }
 
 // bucketFileReports maps a blob id to the quality report of its events.

@@ -22,7 +22,7 @@ func TestVersionSummaries(t *testing.T) {
 	for i := range 3 {
 		last = e.ingest(t, "lab", "flow", genCSV(genOpt{Seed: uint64(10 + i), N: 800, CasePfx: string(rune('K' + i))}), "n.csv").Version
 	}
-	stored, err := e.s.Summary(ctx, last)
+	stored, err := e.s.Summary(ctx, "lab/flow", last.Number)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -30,6 +30,9 @@ func TestVersionSummaries(t *testing.T) {
 	// then recomputes from the Parquet files.
 	err = e.s.db.Update(func(tx *bolt.Tx) error {
 		if err := tx.Bucket(bucketVersionSummaries).Delete(seqKey("lab/flow", last.Number)); err != nil {
+			return err
+		}
+		if err := tx.Bucket(bucketVersionStates).Delete(seqKey("lab/flow", last.Number)); err != nil {
 			return err
 		}
 		for _, f := range last.Manifest.Files {
@@ -42,7 +45,7 @@ func TestVersionSummaries(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	fresh, err := e.s.Summary(ctx, last)
+	fresh, err := e.s.Summary(ctx, "lab/flow", last.Number)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -63,7 +66,7 @@ func TestVersionSummaries(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	b, err := e.s.Summary(ctx, res.Version)
+	b, err := e.s.Summary(ctx, "lab/flow", res.Version.Number)
 	if err != nil {
 		t.Fatal(err)
 	}

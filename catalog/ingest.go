@@ -337,7 +337,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		up.Status = UploadAccepted
 		up.Version = v.Number
 		cur.Latest = v.Number
-		if err := putJSON(tx.Bucket(bucketVersions), seqKey(cur.Ref(), v.Number), v); err != nil {
+		if err := putVersion(tx, v); err != nil {
 			return err
 		}
 		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {

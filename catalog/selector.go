@@ -1,7 +1,6 @@
 package catalog
 
 import (
-	"context"
 	"fmt"
 	"strconv"
 	"strings"
@@ -103,61 +102,4 @@ func isHex(s string) bool {
 		}
 	}
 	return s != ""
-}
-
-// Resolve returns the version sel names. With drafts false (a member's
-// view), only published and retracted versions can be named, and latest
-// is the newest published one; with drafts true (curators, the dataset's
-// partners), drafts can be named by number or snapshot too, but latest and
-// instants still mean published versions, so every reader agrees on them.
-// An unknown version fails with ErrNotFound, a prefix that matches two
-// versions with ErrInvalid naming both.
-func (s *Store) Resolve(ctx context.Context, project, dataset string, sel Selector, drafts bool) (*Version, error) {
-	ref := project + "/" + dataset
-	if sel.Kind == SelectNumber {
-		v, err := s.Version(ctx, project, dataset, sel.Number)
-		if err != nil {
-			return nil, err
-		}
-		if v.State == StateDraft && !drafts {
-			return nil, fmt.Errorf("version %s@%d: %w", ref, sel.Number, ErrNotFound)
-		}
-		return v, nil
-	}
-	vs, err := s.Versions(ctx, project, dataset)
-	if err != nil {
-		return nil, err
-	}
-	var found *Version
-	for i := len(vs) - 1; i >= 0; i-- {
-		v := &vs[i]
-		switch sel.Kind {
-		case SelectLatest:
-			if v.State == StatePublished {
-				return v, nil
-			}
-		case SelectTime:
-			if v.CurrentAt(sel.At) {
-				return v, nil
-			}
-		case SelectSnapshot:
-			if !strings.HasPrefix(v.SnapshotID, sel.Prefix) || v.State == StateDraft && !drafts {
-				continue
-			}
-			if found != nil {
-				return nil, fmt.Errorf("snapshot prefix %q matches versions %d and %d; give more digits: %w", sel.Prefix, v.Number, found.Number, ErrInvalid)
-			}
-			found = v
-		}
-	}
-	if found != nil {
-		return found, nil
-	}
-	switch sel.Kind {
-	case SelectLatest:
-		return nil, fmt.Errorf("dataset %s has no published version: %w", ref, ErrNotFound)
-	case SelectTime:
-		return nil, fmt.Errorf("dataset %s had no published version at %s: %w", ref, sel.At.Format(time.RFC3339), ErrNotFound)
-	}
-	return nil, fmt.Errorf("dataset %s has no version with snapshot id %s…: %w", ref, sel.Prefix, ErrNotFound)
 }

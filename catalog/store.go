@@ -91,10 +91,13 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
 	err = db.Update(func(tx *bolt.Tx) error {
-		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketFileReports} {
+		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketHeads} {
 			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
 				return err
 			}
+		}
+		if err := backfillHeads(tx); err != nil {
+			return err
 		}
 		meta := tx.Bucket(bucketMeta)
 		id := opt.Master.ID()

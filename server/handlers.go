@@ -335,6 +335,24 @@ func (s *Server) version(c echo.Context) (*catalog.Version, error) {
 	return v, nil
 }
 
+// versionHead is version without the manifest: for handlers that need
+// only the version's name and state.
+func (s *Server) versionHead(c echo.Context) (*catalog.VersionHead, error) {
+	project, name := c.Param("project"), c.Param("dataset")
+	if !readable(claims(c), project, name) {
+		return nil, forbidden("read versions of " + project + "/" + name)
+	}
+	sel, err := catalog.ParseSelector(c.Param("version"))
+	if err != nil {
+		return nil, catalogError(err)
+	}
+	h, err := s.cfg.Store.ResolveHead(c.Request().Context(), project, name, sel, claims(c).CanCurate(project))
+	if err != nil {
+		return nil, catalogError(err)
+	}
+	return h, nil
+}
+
 // servable is version v for its data: a retracted version answers 410
 // Gone with the reason, while its metadata stays readable.
 func (s *Server) servable(c echo.Context) (*catalog.Version, error) {
@@ -343,7 +361,7 @@ func (s *Server) servable(c echo.Context) (*catalog.Version, error) {
 		return nil, err
 	}
 	if v.State == catalog.StateRetracted {
-		return nil, s.gone(v)
+		return nil, s.gone(v.Head())
 	}
 	return v, nil
 }

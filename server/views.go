@@ -84,7 +84,7 @@ func (s *Server) opener() export.Opener { return s.cfg.Store.Blobs().Open }
 // filters restrict the queue and activity lists (a wait needs the case's
 // arrival, which names no queue), site and window filter the events.
 func (s *Server) getSummary(c echo.Context) error {
-	v, err := s.version(c)
+	head, err := s.versionHead(c)
 	if err != nil {
 		return err
 	}
@@ -97,16 +97,30 @@ func (s *Server) getSummary(c echo.Context) error {
 		return fail(http.StatusBadRequest, "invalid", "a summary takes site, queue, activity, from and to; not type")
 	}
 	h := c.Response().Header()
-	h.Set("ETag", `"`+v.SnapshotID+`"`)
+	h.Set("ETag", `"`+head.SnapshotID+`"`)
 	if len(q) == 0 {
-		b, err := s.cfg.Store.Summary(c.Request().Context(), v)
+		// Stored gzip-compressed: sent as it is to a client that takes gzip.
+		h.Add("Vary", "Accept-Encoding")
+		if acceptsGzip(c.Request()) {
+			gz, err := s.cfg.Store.SummaryGzip(c.Request().Context(), head.Dataset, head.Number)
+			if err != nil {
+				return catalogError(err)
+			}
+			h.Set(echo.HeaderContentEncoding, "gzip")
+			return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, gz)
+		}
+		b, err := s.cfg.Store.Summary(c.Request().Context(), head.Dataset, head.Number)
 		if err != nil {
 			return catalogError(err)
 		}
 		return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
 	}
-	if v.State == catalog.StateRetracted {
-		return s.gone(v)
+	if head.State == catalog.StateRetracted {
+		return s.gone(*head)
+	}
+	v, err := s.cfg.Store.Version(c.Request().Context(), c.Param("project"), c.Param("dataset"), head.Number)
+	if err != nil {
+		return catalogError(err)
 	}
 	d, err := s.cfg.Store.Dataset(c.Request().Context(), c.Param("project"), c.Param("dataset"))
 	if err != nil {
@@ -131,9 +145,23 @@ func (s *Server) getSummary(c echo.Context) error {
 	return c.JSON(http.StatusOK, acc.SummaryFor(summary.Selection{Sites: f.Sites, Queues: f.Queues, Activities: f.Activities}))
 }
 
-func (s *Server) gone(v *catalog.Version) error {
+// acceptsGzip reports whether the request's Accept-Encoding allows gzip
+// (RFC 9110 section 12.5.3; a q of 0 refuses it).
+func acceptsGzip(r *http.Request) bool {
+	for _, part := range strings.Split(r.Header.Get("Accept-Encoding"), ",") {
+		name, params, _ := strings.Cut(strings.TrimSpace(part), ";")
+		if !strings.EqualFold(strings.TrimSpace(name), "gzip") && strings.TrimSpace(name) != "*" {
+			continue
+		}
+		q := strings.ReplaceAll(strings.TrimSpace(params), " ", "")
+		return q != "q=0" && q != "q=0.0" && q != "q=0.00" && q != "q=0.000"
+	}
+	return false
+}
+
+func (s *Server) gone(h catalog.VersionHead) error {
 	return fail(http.StatusGone, "retracted", "version %d of %s was retracted on %s: %s; its metadata and citation stay readable",
-		v.Number, v.Manifest.Dataset, v.RetractedAt.Format(time.RFC3339), v.RetractReason)
+		h.Number, h.Dataset, h.RetractedAt.Format(time.RFC3339), h.RetractReason)
 }
 
 // requestTag is a strong ETag for a deterministic response: the same
@@ -323,7 +351,7 @@ func (s *Server) diffVersions(c echo.Context) error {
 			return catalogError(err)
 		}
 		if v.State == catalog.StateRetracted {
-			return s.gone(v)
+			return s.gone(v.Head())
 		}
 		vs[i] = v
 	}
@@ -337,7 +365,7 @@ func (s *Server) diffVersions(c echo.Context) error {
 	}
 	var sums [2]map[string]any
 	for i, v := range vs {
-		b, err := s.cfg.Store.Summary(ctx, v)
+		b, err := s.cfg.Store.Summary(ctx, v.Manifest.Dataset, v.Number)
 		if err != nil {
 			return catalogError(err)
 		}

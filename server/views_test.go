@@ -4,6 +4,7 @@ import (
 	"archive/tar"
 	"archive/zip"
 	"bytes"
+	"compress/gzip"
 	"context"
 	"crypto/sha256"
 	"encoding/csv"
@@ -255,6 +256,20 @@ func TestSummaryAndDiffOverHTTP(t *testing.T) {
 	e.decode(r, &sum)
 	if sum.Events != 150 || sum.Arrivals.Total != 50 {
 		t.Fatalf("summary: %+v, want 150 events and 50 arrivals (one per 3 rows)", sum)
+	}
+	// Stored gzip-compressed; sent plain to a client that does not take gzip.
+	plain := e.do(http.MethodGet, ds+"/versions/2/summary", member, nil, map[string]string{"Accept-Encoding": "identity"})
+	gz := e.do(http.MethodGet, ds+"/versions/2/summary", member, nil, map[string]string{"Accept-Encoding": "gzip"})
+	if plain.Header.Get("Content-Encoding") != "" || gz.Header.Get("Content-Encoding") != "gzip" || !json.Valid(plain.Body) {
+		t.Fatalf("encodings: plain %q, gzip %q", plain.Header.Get("Content-Encoding"), gz.Header.Get("Content-Encoding"))
+	}
+	zr, err := gzip.NewReader(bytes.NewReader(gz.Body))
+	if err != nil {
+		t.Fatal(err)
+	}
+	unz, _ := io.ReadAll(zr)
+	if !bytes.Equal(unz, plain.Body) || !bytes.Equal(plain.Body, r.Body) {
+		t.Fatal("the gzip and plain summaries differ")
 	}
 	// Filtered on demand: one day reads only that day's file.
 	f := e.get(ds+"/versions/2/summary?from=2024-03-04T23:00:00Z&to=2024-03-05T23:00:00Z", member)
