@@ -71,7 +71,7 @@ interrupted.`,
 				logw = e.stderr
 			}
 			log := slog.New(slog.NewTextHandler(logw, &slog.HandlerOptions{Level: slog.LevelWarn}))
-			run, err := startServer(ctx, d, addr, "", 0, log)
+			run, err := startServer(ctx, d, addr, "", serverOptions{citationAuthor: "Quillon Bay Health operations study (invented)"}, log)
 			if err != nil {
 				return err
 			}

@@ -19,6 +19,7 @@ import (
 func newServeCmd(e *env) *cobra.Command {
 	var dir, addr, masterFile string
 	var maxUpload int64
+	var author string
 	c := &cobra.Command{
 		Use:   "serve --data DIR --addr HOST:PORT",
 		Short: "Run the catalog server on a data directory",
@@ -31,7 +32,7 @@ func newServeCmd(e *env) *cobra.Command {
 			d := dataDir(dir)
 			ctx, stop := signal.NotifyContext(cmd.Context(), syscall.SIGINT, syscall.SIGTERM)
 			defer stop()
-			run, err := startServer(ctx, d, addr, masterFile, maxUpload, log)
+			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, citationAuthor: author}, log)
 			if err != nil {
 				return err
 			}
@@ -43,7 +44,14 @@ func newServeCmd(e *env) *cobra.Command {
 	c.Flags().StringVar(&addr, "addr", "127.0.0.1:8470", "listen address HOST:PORT")
 	c.Flags().StringVar(&masterFile, "master-key", "", "master key file (else FLOWCAT_MASTER_KEY, FLOWCAT_MASTER_KEY_FILE, or DIR/master.key)")
 	c.Flags().Int64Var(&maxUpload, "max-upload-bytes", 8<<30, "largest upload body accepted (413 above)")
+	c.Flags().StringVar(&author, "citation-author", "", "author named in CITATION.cff files, e.g. the lab (default: the project's title)")
 	return c
+}
+
+// serverOptions are serve's tuning flags.
+type serverOptions struct {
+	maxUpload      int64
+	citationAuthor string
 }
 
 // running is a started server.
@@ -56,7 +64,7 @@ type running struct {
 	close      func() error
 }
 
-func startServer(ctx context.Context, d dataDir, addr, masterFile string, maxUpload int64, log *slog.Logger) (*running, error) {
+func startServer(ctx context.Context, d dataDir, addr, masterFile string, so serverOptions, log *slog.Logger) (*running, error) {
 	if _, err := d.readInstance(); err != nil {
 		return nil, err
 	}
@@ -77,7 +85,7 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, maxUpl
 		st.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, MaxUploadBytes: maxUpload})
+	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, MaxUploadBytes: so.maxUpload, CitationAuthor: so.citationAuthor})
 	hs := srv.HTTPServer(addr)
 	r := &running{url: "http://" + ln.Addr().String(), masterFrom: from, auth: auth, hs: hs, done: make(chan error, 1), close: st.Close}
 	go func() { r.done <- hs.Serve(ln) }()
