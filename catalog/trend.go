@@ -32,8 +32,8 @@ func driftAlerts(tx *bolt.Tx, ref string, up *Upload) []quality.Alert {
 	c := tx.Bucket(bucketUploads).Cursor()
 	prefix := []byte(ref + "/")
 	// Start at the last key before this upload's (which is not stored yet).
-	k, v := c.Seek(seqKey(ref, up.Seq))
-	if k == nil {
+	var k, v []byte
+	if sk, _ := c.Seek(seqKey(ref, up.Seq)); sk == nil {
 		k, v = c.Last()
 	} else {
 		k, v = c.Prev()

@@ -403,10 +403,6 @@ func NewAccumulator(opt Options) *Accumulator {
 	return a
 }
 
-func sampleOf(e *schema.Event) Sample {
-	return Sample{Line: e.Line, CaseID: e.CaseID}
-}
-
 // flag counts one finding of code c at site s, keeping a sample of e.
 func (a *Accumulator) flag(s *siteAcc, c int, e *schema.Event) {
 	s.n[c]++
@@ -699,6 +695,3 @@ func (a *Accumulator) prune(now uint64) {
 	})
 	a.keptCases = a.cases.n
 }
-
-// openCases is the number of case records held (for tests).
-func (a *Accumulator) openCases() int { return a.cases.n }

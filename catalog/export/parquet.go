@@ -59,6 +59,7 @@ func WriteParquet(ctx context.Context, w io.Writer, open Opener, files []catalog
 
 // parquetWriter writes events as rows of a column subset.
 type parquetWriter struct {
+	//lint:ignore SA1019 the generic writer needs a Go type; a column subset is a schema built at run time
 	w     *parquet.Writer
 	cols  []schema.Field
 	batch []parquet.Row
