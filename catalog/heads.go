@@ -36,6 +36,11 @@ func (v *Version) Head() VersionHead {
 	}
 }
 
+// Visible reports whether a reader sees the version: curators (drafts
+// true) see every version, members those that were ever published; a draft
+// retracted before publication stays hidden from them.
+func (h *VersionHead) Visible(drafts bool) bool { return drafts || h.PublishedAt != nil }
+
 // CurrentAt is Version.CurrentAt.
 func (h *VersionHead) CurrentAt(t time.Time) bool {
 	if h.PublishedAt == nil || h.PublishedAt.After(t) {
@@ -98,7 +103,7 @@ func (s *Store) ResolveHead(ctx context.Context, project, dataset string, sel Se
 		return nil, err
 	}
 	if sel.Kind == SelectNumber {
-		if hs[0].State == StateDraft && !drafts {
+		if !hs[0].Visible(drafts) {
 			return nil, fmt.Errorf("version %s@%d: %w", ref, sel.Number, ErrNotFound)
 		}
 		return &hs[0], nil
@@ -116,7 +121,7 @@ func (s *Store) ResolveHead(ctx context.Context, project, dataset string, sel Se
 				return h, nil
 			}
 		case SelectSnapshot:
-			if !strings.HasPrefix(h.SnapshotID, sel.Prefix) || h.State == StateDraft && !drafts {
+			if !strings.HasPrefix(h.SnapshotID, sel.Prefix) || !h.Visible(drafts) {
 				continue
 			}
 			if found != nil {
@@ -150,4 +155,9 @@ func (s *Store) Resolve(ctx context.Context, project, dataset string, sel Select
 		return nil, err
 	}
 	return s.Version(ctx, project, dataset, h.Number)
+}
+
+// Heads lists a dataset's version heads, oldest first.
+func (s *Store) Heads(ctx context.Context, project, dataset string) ([]VersionHead, error) {
+	return listOfDataset[VersionHead](s, bucketHeads, project, dataset)
 }

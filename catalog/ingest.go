@@ -387,7 +387,9 @@ func sameFiles(a, b []FileEntry) bool {
 }
 
 // appendedBefore returns the version that identical bytes made, provided
-// the latest version still holds the file they made; otherwise ErrNotFound.
+// the latest version still holds the file they made (or a file rewritten
+// from it); otherwise ErrNotFound. Only accepted appends record their
+// digest, so a digest always names the version that added its file.
 func (s *Store) appendedBefore(ctx context.Context, ds *Dataset, hexDigest string) (*Version, error) {
 	v, err := s.versionByDigest(ds.Ref(), hexDigest)
 	if err != nil {
@@ -399,8 +401,10 @@ func (s *Store) appendedBefore(ctx context.Context, ds *Dataset, hexDigest strin
 	}
 	for _, f := range v.Manifest.Files {
 		if f.Upload == v.Manifest.Lineage.Upload || v.Manifest.Lineage.Upload == "" && f.Upload == v.Manifest.Uploads[len(v.Manifest.Uploads)-1] {
-			if _, ok := latest.File(f.SHA256); ok {
-				return v, nil
+			for _, g := range latest.Manifest.Files {
+				if g.SHA256 == f.SHA256 || g.DerivedFrom != nil && *g.DerivedFrom == f.SHA256 {
+					return v, nil
+				}
 			}
 			return nil, ErrNotFound
 		}
@@ -495,12 +499,6 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 		}
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), up); err != nil {
 			return err
-		}
-		if up.Status == UploadDuplicate && up.SHA256 != "" && up.Mode == ModeAppend && up.Version > 0 {
-			// These bytes, too, now answer with that version at once.
-			if err := tx.Bucket(bucketDigests).Put(digestKey(cur.Ref(), up.SHA256), binary.BigEndian.AppendUint32(nil, uint32(up.Version))); err != nil {
-				return err
-			}
 		}
 		return audit(tx, up.ReceivedAt, up.By, "upload."+string(up.Status), cur.Ref()+"/"+up.ID)
 	})

@@ -121,8 +121,9 @@ type FileEntry struct {
 	MinTime  time.Time `json:"min_occurred_at"`
 	MaxTime  time.Time `json:"max_occurred_at"`
 	RowGroup int64     `json:"row_group_rows"`
-	// DerivedFrom names the file this one was rewritten from when a
-	// replace-window upload removed some of its rows.
+	// DerivedFrom names, for a file a replace-window upload rewrote without
+	// some of its rows, the file its upload made (the first of a chain of
+	// rewrites). The rewritten file records it in its metadata too.
 	DerivedFrom *blob.ID `json:"derived_from,omitempty"`
 }
 

@@ -33,19 +33,25 @@ type snapshotWriter struct {
 	max   time.Time
 }
 
-func newSnapshotWriter(dir string, rowGroupRows int64, keyID string) (*snapshotWriter, error) {
+// derivedFrom, when not empty, is written into the file's metadata: a file
+// rewritten by replace-window thus never has the bytes of another file.
+func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom ...string) (*snapshotWriter, error) {
 	f, err := os.CreateTemp(dir, "snapshot-*.parquet")
 	if err != nil {
 		return nil, fmt.Errorf("parquet: %w", err)
 	}
 	sw := &snapshotWriter{f: f, h: sha256.New(), batch: make([]schema.Event, 0, 1024)}
-	sw.w = parquet.NewGenericWriter[schema.Event](io.MultiWriter(f, sw.h, countWriter{&sw.n}),
+	opts := []parquet.WriterOption{
 		parquet.Compression(pageCodec),
 		parquet.MaxRowsPerRowGroup(rowGroupRows),
 		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
 		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
 		parquet.KeyValueMetadata("flowcat.pseudonym_key_id", keyID),
-	)
+	}
+	for _, d := range derivedFrom {
+		opts = append(opts, parquet.KeyValueMetadata("flowcat.derived_from", d))
+	}
+	sw.w = parquet.NewGenericWriter[schema.Event](io.MultiWriter(f, sw.h, countWriter{&sw.n}), opts...)
 	return sw, nil
 }
 

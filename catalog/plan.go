@@ -81,13 +81,19 @@ func (s *Store) planFiles(ctx context.Context, ds *Dataset, parent *Version, ent
 	case ModeReplaceWindow:
 		kept, err := s.cutWindow(ctx, ds, p, base, keyID, opt)
 		if err != nil {
+			p.release()
 			return nil, err
 		}
 		base = kept
 	}
 	p.files = slices.Clone(base)
 	if entry != nil {
-		if !slices.ContainsFunc(p.files, func(f FileEntry) bool { return f.SHA256 == entry.SHA256 }) {
+		// The same events appended again (in other bytes, or after a
+		// replace-window rewrote the file they made) are not added twice.
+		again := opt.Mode == ModeAppend && slices.ContainsFunc(p.files, func(f FileEntry) bool {
+			return f.SHA256 == entry.SHA256 || f.DerivedFrom != nil && *f.DerivedFrom == entry.SHA256
+		})
+		if !again {
 			p.files = append(p.files, *entry)
 		}
 	}
@@ -145,7 +151,11 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 	case f.Rows:
 		return nil, removed, nil
 	}
-	sw, err := newSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID)
+	origin := f.SHA256
+	if f.DerivedFrom != nil {
+		origin = *f.DerivedFrom
+	}
+	sw, err := newSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID, origin.String())
 	if err != nil {
 		return nil, 0, err
 	}
@@ -174,10 +184,9 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 	}
 	p.summaries[id] = sacc
 	p.reports[id] = qacc.Report()
-	from := f.SHA256
 	return &FileEntry{
 		SHA256: id, Bytes: size, Rows: sw.rows, Upload: f.Upload,
-		MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows, DerivedFrom: &from,
+		MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows, DerivedFrom: &origin,
 	}, removed, nil
 }
 

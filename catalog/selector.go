@@ -37,9 +37,13 @@ type Selector struct {
 // String returns the selector as written.
 func (s Selector) String() string { return s.text }
 
-// ParseSelector parses the text after '@'. Up to ten digits is a version
-// number; otherwise hex digits are a snapshot prefix; text with a 'T' and a
-// zone is an instant. Anything else fails with ErrInvalid, saying which
+// MaxNumberDigits is the most digits a version number selector has; longer
+// digit strings are snapshot id prefixes (which may be all decimal digits).
+const MaxNumberDigits = 7
+
+// ParseSelector parses the text after '@'. Up to MaxNumberDigits digits is
+// a version number; otherwise hex digits are a snapshot prefix; a date and
+// time with a zone is an instant. Anything else fails with ErrInvalid, saying which
 // forms are accepted.
 func ParseSelector(text string) (Selector, error) {
 	sel := Selector{text: text}
@@ -48,10 +52,10 @@ func ParseSelector(text string) (Selector, error) {
 		sel.Kind = SelectLatest
 		sel.text = "latest"
 		return sel, nil
-	case isDigits(text) && len(text) <= 10:
+	case isDigits(text) && len(text) <= MaxNumberDigits:
 		n, err := strconv.Atoi(text)
-		if err != nil || n < 1 || n > 1<<31-1 {
-			return sel, fmt.Errorf("version %q: want a number from 1 to %d: %w", text, 1<<31-1, ErrInvalid)
+		if err != nil || n < 1 {
+			return sel, fmt.Errorf("version %q: want a number from 1: %w", text, ErrInvalid)
 		}
 		sel.Kind, sel.Number = SelectNumber, n
 		return sel, nil

@@ -173,36 +173,33 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lock
 	if sum := sha256.Sum256(manifest); hex.EncodeToString(sum[:]) != v.SnapshotID {
 		return nil, fmt.Errorf("pull: the manifest's sha256 %x is not the snapshot id %s", sum, v.SnapshotID)
 	}
+	// The file list comes from the manifest bytes just checked against the
+	// snapshot id, not from the version's JSON.
+	var m catalog.Manifest
+	if err := json.Unmarshal(manifest, &m); err != nil {
+		return nil, fmt.Errorf("pull: manifest: %w", err)
+	}
+	if want != nil {
+		if err := matchLockFiles(want, m.Files); err != nil {
+			return nil, err
+		}
+	}
 	if err := os.MkdirAll(filepath.Join(out, "data"), 0o755); err != nil {
 		return nil, err
-	}
-	// Files of another version pulled here before would be read as part
-	// of this one: remove them (only pull's own data/<sha256>.parquet files).
-	keep := map[string]bool{}
-	for _, f := range v.Manifest.Files {
-		keep[dataPath(f.SHA256.String())] = true
-		keep[dataPath(f.SHA256.String())+".part"] = true
-	}
-	if ents, err := os.ReadDir(filepath.Join(out, "data")); err == nil {
-		for _, de := range ents {
-			rel := "data/" + de.Name()
-			sha, _, _ := strings.Cut(de.Name(), ".")
-			if _, err := blob.ParseID(sha); err == nil && !keep[rel] {
-				if err := os.Remove(filepath.Join(out, "data", de.Name())); err != nil {
-					return nil, err
-				}
-			}
-		}
 	}
 	server := *cl.base
 	server.User = nil // never write credentials into the lock
 	lock := &lockFile{LockVersion: 1, Server: server.String(), Dataset: r.Project + "/" + r.Dataset,
 		Version: v.Number, SnapshotID: v.SnapshotID, PulledAt: time.Now().UTC()}
-	for _, f := range v.Manifest.Files {
+	keep := map[string]bool{}
+	for _, f := range m.Files {
 		rel := dataPath(f.SHA256.String())
-		if err := e.fetchFile(cmd, cl, r.path()+fmt.Sprintf("/versions/%d/files/%s", v.Number, f.SHA256), filepath.Join(out, rel), f); err != nil {
-			return nil, err
+		if !keep[rel] {
+			if err := e.fetchFile(cmd, cl, r.path()+fmt.Sprintf("/versions/%d/files/%s", v.Number, f.SHA256), filepath.Join(out, rel), f); err != nil {
+				return nil, err
+			}
 		}
+		keep[rel] = true
 		lock.Files = append(lock.Files, lockedFS{Path: rel, SHA256: f.SHA256.String(), Bytes: f.Bytes, Rows: f.Rows})
 	}
 	if err := writeFileAtomic(filepath.Join(out, "manifest.json"), manifest); err != nil {
@@ -211,6 +208,20 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lock
 	b, _ := json.MarshalIndent(lock, "", "  ")
 	if err := writeFileAtomic(filepath.Join(out, lockName), append(b, '\n')); err != nil {
 		return nil, err
+	}
+	// Only now, with every file of this version here and its lock written,
+	// remove files of another version pulled here before (only pull's own
+	// data/<sha256>.parquet files), which would otherwise be read with it.
+	if ents, err := os.ReadDir(filepath.Join(out, "data")); err == nil {
+		for _, de := range ents {
+			name := strings.TrimSuffix(de.Name(), ".part")
+			sha, _, _ := strings.Cut(name, ".")
+			if _, err := blob.ParseID(sha); err == nil && !keep["data/"+name] || strings.HasSuffix(de.Name(), ".part") && keep["data/"+name] {
+				if err := os.Remove(filepath.Join(out, "data", de.Name())); err != nil {
+					return nil, err
+				}
+			}
+		}
 	}
 	return lock, nil
 }

@@ -170,6 +170,20 @@ func TestSnapshotWorkflow(t *testing.T) {
 	if out := must(as(member), "verify", filepath.Join(dir, "p7")); !strings.Contains(out, "ok") && !strings.Contains(out, "verified") {
 		t.Errorf("verify: %q", out)
 	}
+	// A pull that fails (here: a retracted version) leaves the earlier
+	// pull in the same directory whole.
+	if code, _, _ := run(t, as(member), "pull", "flow/visits@1", "-o", filepath.Join(dir, "p7")); code != 1 {
+		t.Errorf("pull of a retracted version over p7: exit %d", code)
+	}
+	must(as(member), "verify", filepath.Join(dir, "p7"))
+	// Pulling another version into it replaces its files.
+	must(as(curator), "publish", "flow/visits@2")
+	must(as(member), "pull", "flow/visits@2", "-o", filepath.Join(dir, "p7"))
+	must(as(member), "verify", filepath.Join(dir, "p7"))
+	ents, _ := os.ReadDir(filepath.Join(dir, "p7", "data"))
+	if len(ents) != 2 {
+		t.Errorf("p7/data holds %d files after pulling version 2 (two files), want 2", len(ents))
+	}
 }
 
 // TestViewCommands covers summary, export, bundle, cite and diff through

@@ -4,10 +4,12 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"maps"
 	"net/http"
 	"net/url"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"text/tabwriter"
 
@@ -312,8 +314,8 @@ func newDiffCmd(e *env) *cobra.Command {
 			}
 			if v, ok := d.Quality["score"]; ok {
 				fmt.Fprintf(e.stdout, "\nquality score %+.1f", v)
-				for k, x := range d.Quality {
-					if k != "score" && x != 0 {
+				for _, k := range slices.Sorted(maps.Keys(d.Quality)) {
+					if x := d.Quality[k]; k != "score" && x != 0 {
 						fmt.Fprintf(e.stdout, ", %s %+.1f", k, x)
 					}
 				}

@@ -33,11 +33,27 @@ func TestCurationOverHTTP(t *testing.T) {
 	if len(vs) != 0 {
 		t.Fatalf("member lists %d versions, want none (drafts hidden)", len(vs))
 	}
+	// Nor through the uploads, the trend or the alerts.
+	var ups []catalog.Upload
+	e.decode(e.get(ds+"/uploads", member), &ups)
+	var tr trendResponse
+	e.decode(e.get(ds+"/quality/trend", member), &tr)
+	if len(ups) != 0 || len(tr.Points) != 0 {
+		t.Fatalf("member sees %d uploads and %d trend points of a draft", len(ups), len(tr.Points))
+	}
+	e.decode(e.get(ds+"/uploads", partner), &ups)
+	if len(ups) != 1 {
+		t.Fatalf("the partner sees %d of its uploads, want 1", len(ups))
+	}
 	e.mustStatus(e.postJSON(ds+"/versions/1/publish", member, struct{}{}), http.StatusForbidden, "member publishes")
 	e.mustStatus(e.postJSON(ds+"/versions/1/publish", partner, struct{}{}), http.StatusForbidden, "partner publishes")
 	e.mustStatus(e.postJSON(ds+"/versions/latest/publish", curator, struct{}{}), http.StatusBadRequest, "publish @latest")
 	e.mustStatus(e.postJSON(ds+"/versions/1/frobnicate", curator, struct{}{}), http.StatusNotFound, "unknown action")
 	e.mustStatus(e.postJSON(ds+"/versions/1/publish", curator, struct{}{}), http.StatusOK, "publish")
+	e.decode(e.get(ds+"/uploads", member), &ups)
+	if len(ups) != 1 {
+		t.Fatalf("after publication the member sees %d uploads, want 1", len(ups))
+	}
 	var v1 catalog.Version
 	e.decode(e.get(ds+"/versions/latest", member), &v1)
 	if v1.Number != 1 || v1.State != catalog.StatePublished || v1.PublishedBy != "curator-ward" {

@@ -290,10 +290,52 @@ func (s *Server) listUploads(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	if ups == nil {
-		ups = []catalog.Upload{}
+	hidden, err := s.hiddenUploads(c, d)
+	if err != nil {
+		return err
 	}
-	return c.JSON(http.StatusOK, ups)
+	out := []catalog.Upload{}
+	for _, u := range ups {
+		if !hidden[u.ID] {
+			out = append(out, u)
+		}
+	}
+	return c.JSON(http.StatusOK, out)
+}
+
+// hiddenUploads are the uploads a member may not see: those that made (or
+// duplicated) a version never published. Curators and the dataset's
+// partners see every upload.
+func (s *Server) hiddenUploads(c echo.Context, d *catalog.Dataset) (map[string]bool, error) {
+	cl := claims(c)
+	if cl.CanUpload(d.Project, d.Name) {
+		return nil, nil
+	}
+	ctx := c.Request().Context()
+	heads, err := s.cfg.Store.Heads(ctx, d.Project, d.Name)
+	if err != nil {
+		return nil, catalogError(err)
+	}
+	unseen := map[int]bool{}
+	for _, h := range heads {
+		if !h.Visible(false) {
+			unseen[h.Number] = true
+		}
+	}
+	if len(unseen) == 0 {
+		return nil, nil
+	}
+	ups, err := s.cfg.Store.Uploads(ctx, d.Project, d.Name)
+	if err != nil {
+		return nil, catalogError(err)
+	}
+	hidden := map[string]bool{}
+	for _, u := range ups {
+		if unseen[u.Version] {
+			hidden[u.ID] = true
+		}
+	}
+	return hidden, nil
 }
 
 func readable(cl *Claims, project, _ string) bool { return cl.CanRead(project) }
@@ -310,7 +352,7 @@ func (s *Server) listVersions(c echo.Context) error {
 	drafts := claims(c).CanCurate(d.Project)
 	out := []catalog.Version{}
 	for _, v := range vs {
-		if v.State != catalog.StateDraft || drafts {
+		if h := v.Head(); h.Visible(drafts) {
 			out = append(out, v)
 		}
 	}

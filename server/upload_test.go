@@ -250,7 +250,7 @@ func TestDownload(t *testing.T) {
 		{"version abc", "/versions/abc/files/" + v2Only, 400},
 		{"version 0", "/versions/0/files/" + v2Only, 400},
 		{"version -1", "/versions/-1", 400},
-		{"version 2^32+1", "/versions/4294967297", 400}, // must not wrap to version 1
+		{"version 2^32+1", "/versions/4294967297", 404}, // ten digits: a snapshot prefix, never version 1 by wrapping
 		{"version 99 metadata", "/versions/99", 404},
 		{"unknown dataset", "/../nope/versions/1", 404},
 	}

@@ -47,14 +47,20 @@ func parseFilter(q url.Values, columns bool, extra ...string) (export.Filter, er
 			*p.dst = t.UTC()
 		}
 	}
+	var empty string
 	list := func(name string) []string {
 		var out []string
 		for _, v := range q[name] {
 			for _, x := range strings.Split(v, ",") {
-				out = append(out, strings.TrimSpace(x))
+				x = strings.TrimSpace(x)
+				if x == "" && name != "queue" && name != "activity" {
+					empty = name
+				}
+				out = append(out, x)
 			}
 		}
-		return out
+		slices.Sort(out)
+		return slices.Compact(out)
 	}
 	f.Sites, f.Queues, f.Activities = list("site"), list("queue"), list("activity")
 	for _, t := range list("type") {
@@ -62,6 +68,9 @@ func parseFilter(q url.Values, columns bool, extra ...string) (export.Filter, er
 	}
 	for _, c := range list("columns") {
 		f.Columns = append(f.Columns, schema.Field(c))
+	}
+	if empty != "" {
+		return f, fail(http.StatusBadRequest, "invalid", "%s: an empty value (queue= and activity= may be empty, to select events without one)", empty)
 	}
 	if err := f.Validate(); err != nil {
 		return f, fail(http.StatusBadRequest, "invalid", "%s", strings.TrimSuffix(err.Error(), ": "+export.ErrBadFilter.Error()))
@@ -96,6 +105,9 @@ func (s *Server) getSummary(c echo.Context) error {
 	if len(f.EventTypes) > 0 {
 		return fail(http.StatusBadRequest, "invalid", "a summary takes site, queue, activity, from and to; not type")
 	}
+	if head.State == catalog.StateRetracted {
+		return s.gone(*head)
+	}
 	h := c.Response().Header()
 	h.Set("ETag", `"`+head.SnapshotID+`"`)
 	if len(q) == 0 {
@@ -114,9 +126,6 @@ func (s *Server) getSummary(c echo.Context) error {
 			return catalogError(err)
 		}
 		return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
-	}
-	if head.State == catalog.StateRetracted {
-		return s.gone(*head)
 	}
 	v, err := s.cfg.Store.Version(c.Request().Context(), c.Param("project"), c.Param("dataset"), head.Number)
 	if err != nil {
@@ -461,9 +470,9 @@ func (s *Server) getTrend(c echo.Context) error {
 			return fail(http.StatusBadRequest, "invalid", "unknown parameter %q: the trend takes site", truncateParam(k))
 		}
 	}
-	points, alerts, err := s.cfg.Store.Trend(c.Request().Context(), d.Project, d.Name, c.QueryParam("site"))
+	points, alerts, err := s.trend(c, d)
 	if err != nil {
-		return catalogError(err)
+		return err
 	}
 	return c.JSON(http.StatusOK, trendResponse{Points: points, Alerts: alerts})
 }
@@ -474,9 +483,38 @@ func (s *Server) getAlerts(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	_, alerts, err := s.cfg.Store.Trend(c.Request().Context(), d.Project, d.Name, c.QueryParam("site"))
+	for k := range c.QueryParams() {
+		if k != "site" {
+			return fail(http.StatusBadRequest, "invalid", "unknown parameter %q: alerts take site", truncateParam(k))
+		}
+	}
+	_, alerts, err := s.trend(c, d)
 	if err != nil {
-		return catalogError(err)
+		return err
 	}
 	return c.JSON(http.StatusOK, alerts)
+}
+
+// trend is the dataset's trend without the uploads the caller may not see.
+func (s *Server) trend(c echo.Context, d *catalog.Dataset) ([]catalog.TrendPoint, []catalog.UploadAlert, error) {
+	points, alerts, err := s.cfg.Store.Trend(c.Request().Context(), d.Project, d.Name, c.QueryParam("site"))
+	if err != nil {
+		return nil, nil, catalogError(err)
+	}
+	hidden, err := s.hiddenUploads(c, d)
+	if err != nil || len(hidden) == 0 {
+		return points, alerts, err
+	}
+	ps, as := []catalog.TrendPoint{}, []catalog.UploadAlert{}
+	for _, p := range points {
+		if !hidden[p.Upload] {
+			ps = append(ps, p)
+		}
+	}
+	for _, a := range alerts {
+		if !hidden[a.Upload] {
+			as = append(as, a)
+		}
+	}
+	return ps, as, nil
 }

@@ -211,7 +211,8 @@ func TestBundleAndCitation(t *testing.T) {
 		e.mustStatus(e.get(ds+"/versions/2"+p, member), http.StatusGone, "retracted "+p)
 	}
 	e.mustStatus(e.get(ds+"/versions/2/citation", member), http.StatusOK, "retracted citation")
-	e.mustStatus(e.get(ds+"/versions/2/summary", member), http.StatusOK, "retracted stored summary")
+	e.mustStatus(e.get(ds+"/versions/2/summary", member), http.StatusGone, "retracted stored summary")
+	e.mustStatus(e.get(ds+"/versions/2/quality", member), http.StatusOK, "retracted quality report")
 }
 
 func validateCFF(t *testing.T, doc []byte) {
@@ -279,6 +280,13 @@ func TestSummaryAndDiffOverHTTP(t *testing.T) {
 		t.Fatalf("filtered summary: %d events, skipped %q", sum.Events, f.Header.Get("X-Flowcat-Row-Groups-Skipped"))
 	}
 	e.mustStatus(e.get(ds+"/versions/2/summary?type=start", member), http.StatusBadRequest, "summary by type")
+	e.mustStatus(e.get(ds+"/versions/2/summary?site=", member), http.StatusBadRequest, "summary with an empty site")
+	// The same filter in another order: the same bytes and the same ETag.
+	x := e.get(ds+"/versions/2/export?columns=site,activity&format=csv", member)
+	y := e.get(ds+"/versions/2/export?format=csv&columns=activity,site", member)
+	if x.Status != 200 || !bytes.Equal(x.Body, y.Body) || x.Header.Get("ETag") != y.Header.Get("ETag") {
+		t.Errorf("export with columns in another order: %d, same bytes %v, ETags %s %s", x.Status, bytes.Equal(x.Body, y.Body), x.Header.Get("ETag"), y.Header.Get("ETag"))
+	}
 
 	d := e.get(ds+"/diff?a=1&b=2", member)
 	e.mustStatus(d, http.StatusOK, "diff")
