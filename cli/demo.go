@@ -190,8 +190,13 @@ as a student, in another shell:
   export FLOWCAT_TOKEN=%[4]s
   flowcat versions %[6]s/walkin-visits
   flowcat quality %[6]s/walkin-visits@latest
+  flowcat summary %[6]s/walkin-visits
+  flowcat quality %[6]s/walkin-visits --trend
   flowcat pull %[6]s/walkin-visits@latest -o walkin-snapshot
   flowcat verify walkin-snapshot
+
+or in a browser (the token stays in this tab):
+  %[1]s/view/%[6]s/walkin-visits#token=%[4]s
 
 Press Ctrl-C to stop.
 `, url, t.admin, t.curator, t.member, t.partner, demoProject)

@@ -55,6 +55,14 @@ func New(cfg Config) *Server {
 	e.Use(s.accessLog)
 
 	e.GET("/", func(c echo.Context) error { return c.HTMLBlob(http.StatusOK, web.Index) })
+	view := func(c echo.Context) error {
+		h := c.Response().Header()
+		h.Set("Content-Security-Policy", "default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; connect-src 'self'; img-src 'self'")
+		h.Set("Referrer-Policy", "no-referrer")
+		return c.HTMLBlob(http.StatusOK, web.Version)
+	}
+	e.GET("/view/:project/:dataset", view)
+	e.GET("/view/:project/:dataset/:version", view)
 	api := e.Group("/api/v1")
 	api.GET("/health", s.health)
 	api.GET("/schema", s.schema)

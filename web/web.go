@@ -1,6 +1,7 @@
-// Package web holds the pages and assets the server embeds. For now that
-// is one landing page that says what the server is and where its API and
-// schema live.
+// Package web holds the pages and assets the server embeds: a landing page
+// that says what the server is and where its API and schema live, and a
+// version page that shows a version's state, quality and summary, read
+// from the API with the reader's own token.
 package web
 
 import _ "embed"
@@ -9,3 +10,11 @@ import _ "embed"
 //
 //go:embed index.html
 var Index []byte
+
+// Version is the page of one version, served at
+// /view/{project}/{dataset}[/{version}]. It holds no data: its script asks
+// the API with the token given in the URL fragment (#token=...), which the
+// browser never sends to the server.
+//
+//go:embed version.html
+var Version []byte
