@@ -41,7 +41,8 @@ func (v *Version) Head() VersionHead {
 // retracted before publication stays hidden from them.
 func (h *VersionHead) Visible(drafts bool) bool { return drafts || h.PublishedAt != nil }
 
-// CurrentAt is Version.CurrentAt.
+// CurrentAt reports whether the version was the published version in
+// force at t: published at or before t and not yet retracted.
 func (h *VersionHead) CurrentAt(t time.Time) bool {
 	if h.PublishedAt == nil || h.PublishedAt.After(t) {
 		return false

@@ -224,14 +224,6 @@ type Version struct {
 	RetractReason string     `json:"retract_reason,omitempty"`
 }
 
-// CurrentAt reports whether v was the published version in force at t:
-// published at or before t and not yet retracted.
-func (v *Version) CurrentAt(t time.Time) bool {
-	if v.PublishedAt == nil || v.PublishedAt.After(t) {
-		return false
-	}
-	return v.RetractedAt == nil || v.RetractedAt.After(t)
-}
 
 func newVersion(m Manifest) (*Version, error) {
 	b, err := m.Canonical()

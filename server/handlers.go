@@ -362,15 +362,11 @@ func (s *Server) listVersions(c echo.Context) error {
 // version resolves the :version selector (a number, latest, a snapshot id
 // prefix or an RFC 3339 instant). Drafts are visible to curators only.
 func (s *Server) version(c echo.Context) (*catalog.Version, error) {
-	d, err := s.dataset(c, readable, "read versions of")
+	h, err := s.versionHead(c)
 	if err != nil {
 		return nil, err
 	}
-	sel, err := catalog.ParseSelector(c.Param("version"))
-	if err != nil {
-		return nil, catalogError(err)
-	}
-	v, err := s.cfg.Store.Resolve(c.Request().Context(), d.Project, d.Name, sel, claims(c).CanCurate(d.Project))
+	v, err := s.cfg.Store.Version(c.Request().Context(), c.Param("project"), c.Param("dataset"), h.Number)
 	if err != nil {
 		return nil, catalogError(err)
 	}
