@@ -224,7 +224,6 @@ type Version struct {
 	RetractReason string     `json:"retract_reason,omitempty"`
 }
 
-
 func newVersion(m Manifest) (*Version, error) {
 	b, err := m.Canonical()
 	if err != nil {
