@@ -119,6 +119,9 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 // Close closes the metadata file.
 func (s *Store) Close() error { return s.db.Close() }
 
+// TempDir returns the directory the store writes temporary files to.
+func (s *Store) TempDir() string { return s.opt.TempDir }
+
 // Blobs returns the store's blob store.
 func (s *Store) Blobs() blob.Store { return s.blobs }
 

@@ -87,6 +87,11 @@ func truncateParam(s string) string {
 
 func (s *Server) opener() export.Opener { return s.cfg.Store.Blobs().Open }
 
+// source reads the store's files and stages in the store's temp dir.
+func (s *Server) source() export.Source {
+	return export.Source{Open: s.cfg.Store.Blobs().Open, TempDir: s.cfg.Store.TempDir()}
+}
+
 // getSummary serves a version's stored summary; with site, queue,
 // activity, from or to it computes one from the version's files, reading
 // only the row groups the site and window need. The queue and activity
@@ -141,7 +146,7 @@ func (s *Server) getSummary(c echo.Context) error {
 	}
 	acc := summary.New(summary.Options{Location: loc})
 	ev := export.Filter{From: f.From, To: f.To, Sites: f.Sites}
-	st, err := export.Events(c.Request().Context(), s.opener(), v.Manifest.Files, ev, func(e *schema.Event) error {
+	st, err := export.Events(c.Request().Context(), s.source(), v.Manifest.Files, ev, func(e *schema.Event) error {
 		acc.Observe(e)
 		return nil
 	})
@@ -221,12 +226,12 @@ func (s *Server) exportVersion(c echo.Context) error {
 		h.Set(echo.HeaderContentType, "text/csv; charset=utf-8; header=present")
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.csv"`, name))
 		w.WriteHeader(http.StatusOK)
-		_, err = export.WriteCSV(ctx, w, s.opener(), v.Manifest.Files, f)
+		_, err = export.WriteCSV(ctx, w, s.source(), v.Manifest.Files, f)
 	} else {
 		h.Set(echo.HeaderContentType, "application/vnd.apache.parquet")
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.parquet"`, name))
 		w.WriteHeader(http.StatusOK)
-		_, err = export.WriteParquet(ctx, w, s.opener(), v.Manifest.Files, f, export.ParquetOptions{
+		_, err = export.WriteParquet(ctx, w, s.source(), v.Manifest.Files, f, export.ParquetOptions{
 			Metadata: map[string]string{"flowcat.dataset": v.Manifest.Dataset, "flowcat.version": fmt.Sprint(v.Number), "flowcat.snapshot_id": v.SnapshotID},
 		})
 	}
@@ -364,7 +369,7 @@ func (s *Server) diffVersions(c echo.Context) error {
 		}
 		vs[i] = v
 	}
-	res, err := export.Diff(ctx, s.opener(), vs[0].Manifest.Files, vs[1].Manifest.Files, export.DiffOptions{Filter: f})
+	res, err := export.Diff(ctx, s.source(), vs[0].Manifest.Files, vs[1].Manifest.Files, export.DiffOptions{Filter: f})
 	if err != nil {
 		return err
 	}

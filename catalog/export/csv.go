@@ -16,7 +16,7 @@ import (
 // record, and a field enclosed in double quotes (inner quotes doubled) when
 // it holds a comma, double quote, CR or LF; line breaks inside a field are
 // written as they are. occurred_at is RFC 3339 in UTC with microseconds.
-func WriteCSV(ctx context.Context, w io.Writer, open Opener, files []catalog.FileEntry, f Filter) (Stats, error) {
+func WriteCSV(ctx context.Context, w io.Writer, src Source, files []catalog.FileEntry, f Filter) (Stats, error) {
 	if err := f.Validate(); err != nil {
 		return Stats{}, err
 	}
@@ -27,7 +27,7 @@ func WriteCSV(ctx context.Context, w io.Writer, open Opener, files []catalog.Fil
 		rec[i] = string(c)
 	}
 	writeRecord(bw, rec)
-	st, err := Events(ctx, open, files, f, func(e *schema.Event) error {
+	st, err := Events(ctx, src, files, f, func(e *schema.Event) error {
 		for i, c := range cols {
 			rec[i] = e.Value(c)
 		}

@@ -56,7 +56,7 @@ type DiffResult struct {
 // same events on both sides, which cancel whatever the order, so it is
 // left out of both sides unread (unless ReadShared) and counted in
 // SharedFiles and SharedRows.
-func Diff(ctx context.Context, open Opener, a, b []catalog.FileEntry, opt DiffOptions) (*DiffResult, error) {
+func Diff(ctx context.Context, src Source, a, b []catalog.FileEntry, opt DiffOptions) (*DiffResult, error) {
 	f := opt.Filter
 	f.Columns = nil
 	if err := f.Validate(); err != nil {
@@ -72,12 +72,12 @@ func Diff(ctx context.Context, open Opener, a, b []catalog.FileEntry, opt DiffOp
 	}
 	m := f.compile()
 	var stA, stB Stats
-	insA, cleanA, err := plan(ctx, open, a, m, &stA)
+	insA, cleanA, err := plan(ctx, src, a, m, &stA)
 	defer cleanA()
 	if err != nil {
 		return nil, err
 	}
-	insB, cleanB, err := plan(ctx, open, b, m, &stB)
+	insB, cleanB, err := plan(ctx, src, b, m, &stB)
 	defer cleanB()
 	if err != nil {
 		return nil, err

@@ -15,7 +15,7 @@ func TestDiffSharedFiles(t *testing.T) {
 	e, vs := fixture(t, 100)
 	a, b := vs[0].Manifest.Files, vs[2].Manifest.Files
 	for _, read := range []bool{false, true} {
-		res, err := Diff(context.Background(), e.opener(), a, b, DiffOptions{ReadShared: read})
+		res, err := Diff(context.Background(), Source{Open: e.opener(), TempDir: e.tmp}, a, b, DiffOptions{ReadShared: read})
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -34,7 +34,7 @@ func TestDiffSharedFiles(t *testing.T) {
 		}
 	}
 	// The other way round, the same counts swap.
-	res, err := Diff(context.Background(), e.opener(), b, a, DiffOptions{})
+	res, err := Diff(context.Background(), Source{Open: e.opener(), TempDir: e.tmp}, b, a, DiffOptions{})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -95,7 +95,7 @@ func TestDiffMultiset(t *testing.T) {
 	if want.Added < 300 || want.Removed < 150 {
 		t.Fatalf("fixture: added %d removed %d", want.Added, want.Removed)
 	}
-	got, err := Diff(context.Background(), e.opener(), va.Manifest.Files, vb.Manifest.Files, DiffOptions{Samples: 3})
+	got, err := Diff(context.Background(), Source{Open: e.opener(), TempDir: e.tmp}, va.Manifest.Files, vb.Manifest.Files, DiffOptions{Samples: 3})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -115,14 +115,14 @@ func TestDiffMultiset(t *testing.T) {
 	}
 	// A version against itself: nothing added or removed, by files or by reading.
 	for _, read := range []bool{false, true} {
-		self, err := Diff(context.Background(), e.opener(), vb.Manifest.Files, vb.Manifest.Files, DiffOptions{ReadShared: read})
+		self, err := Diff(context.Background(), Source{Open: e.opener(), TempDir: e.tmp}, vb.Manifest.Files, vb.Manifest.Files, DiffOptions{ReadShared: read})
 		if err != nil || self.Added != 0 || self.Removed != 0 {
 			t.Errorf("self diff (read %v): %+v %v", read, self, err)
 		}
 	}
 	// The filter applies to both sides.
 	f := Filter{Sites: []string{"north"}}
-	gotN, err := Diff(context.Background(), e.opener(), va.Manifest.Files, vb.Manifest.Files, DiffOptions{Filter: f})
+	gotN, err := Diff(context.Background(), Source{Open: e.opener(), TempDir: e.tmp}, va.Manifest.Files, vb.Manifest.Files, DiffOptions{Filter: f})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -155,7 +155,7 @@ func BenchmarkEventsFiltered(b *testing.B) {
 			var st Stats
 			for b.Loop() {
 				var err error
-				st, err = Events(context.Background(), e.opener(), v.Manifest.Files, bc.f, func(*schema.Event) error { return nil })
+				st, err = Events(context.Background(), Source{Open: e.opener(), TempDir: e.tmp}, v.Manifest.Files, bc.f, func(*schema.Event) error { return nil })
 				if err != nil {
 					b.Fatal(err)
 				}

@@ -20,6 +20,15 @@ import (
 // Opener opens a stored snapshot file; (*catalog.Store).Blobs().Open is one.
 type Opener func(ctx context.Context, id blob.ID) (blob.Reader, error)
 
+// Source is where a version's files are read from: Open opens a file,
+// TempDir (default os.TempDir()) takes the temporary files of staged merges
+// and diffs, which hold pseudonymized events; give the store's own temp
+// dir so they stay with the data.
+type Source struct {
+	Open    Opener
+	TempDir string
+}
+
 // MaxOpenFiles bounds the files a merge holds open (and buffers) at once;
 // a version with more files is merged in stages through temporary files.
 const MaxOpenFiles = 64
@@ -51,13 +60,13 @@ type Stats struct {
 // opened; row groups whose column statistics rule out f are not decoded.
 // f is validated first (errors wrap ErrBadFilter); an error of fn stops
 // the pass and is returned as it is.
-func Events(ctx context.Context, open Opener, files []catalog.FileEntry, f Filter, fn func(*schema.Event) error) (Stats, error) {
+func Events(ctx context.Context, src Source, files []catalog.FileEntry, f Filter, fn func(*schema.Event) error) (Stats, error) {
 	var st Stats
 	if err := f.Validate(); err != nil {
 		return st, err
 	}
 	m := f.compile()
-	ins, cleanup, err := plan(ctx, open, files, m, &st)
+	ins, cleanup, err := plan(ctx, src, files, m, &st)
 	defer cleanup()
 	if err != nil {
 		return st, err
@@ -88,7 +97,7 @@ type input struct {
 
 // plan turns files into at most maxOpen inputs, merging in stages through
 // temporary files when there are more. cleanup removes those files.
-func plan(ctx context.Context, open Opener, files []catalog.FileEntry, m *matcher, st *Stats) ([]*input, func(), error) {
+func plan(ctx context.Context, src Source, files []catalog.FileEntry, m *matcher, st *Stats) ([]*input, func(), error) {
 	var temps []string
 	cleanup := func() {
 		for _, p := range temps {
@@ -105,7 +114,7 @@ func plan(ctx context.Context, open Opener, files []catalog.FileEntry, m *matche
 		id := fe.SHA256
 		ins = append(ins, &input{
 			open: func(ctx context.Context) (io.ReaderAt, io.Closer, int64, error) {
-				r, err := open(ctx, id)
+				r, err := src.Open(ctx, id)
 				if err != nil {
 					return nil, nil, 0, fmt.Errorf("export: file %s: %w", id, err)
 				}
@@ -121,7 +130,7 @@ func plan(ctx context.Context, open Opener, files []catalog.FileEntry, m *matche
 		st.Stages++
 		var next []*input
 		for lo := 0; lo < len(ins); lo += maxOpen {
-			in, path, err := stage(ctx, ins[lo:min(lo+maxOpen, len(ins))], m, st)
+			in, path, err := stage(ctx, src.TempDir, ins[lo:min(lo+maxOpen, len(ins))], m, st)
 			if path != "" {
 				temps = append(temps, path)
 			}
@@ -139,8 +148,8 @@ func plan(ctx context.Context, open Opener, files []catalog.FileEntry, m *matche
 
 // stage merges ins into one temporary Parquet file of every column, in
 // merge order, and returns it as an input (nil when no event passed).
-func stage(ctx context.Context, ins []*input, m *matcher, st *Stats) (*input, string, error) {
-	tmp, err := os.CreateTemp("", "flowcat-export-*.parquet")
+func stage(ctx context.Context, dir string, ins []*input, m *matcher, st *Stats) (*input, string, error) {
+	tmp, err := os.CreateTemp(dir, "flowcat-export-*.parquet")
 	if err != nil {
 		return nil, "", fmt.Errorf("export: stage: %w", err)
 	}

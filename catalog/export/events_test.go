@@ -3,6 +3,7 @@ package export
 import (
 	"context"
 	"errors"
+	"os"
 	"reflect"
 	"strings"
 	"testing"
@@ -43,7 +44,7 @@ func TestFilterValidate(t *testing.T) {
 		})
 	}
 	// Events refuses a bad filter before reading anything.
-	if _, err := Events(context.Background(), nil, nil, Filter{Columns: []schema.Field{"x"}}, nil); !errors.Is(err, ErrBadFilter) {
+	if _, err := Events(context.Background(), Source{}, nil, Filter{Columns: []schema.Field{"x"}}, nil); !errors.Is(err, ErrBadFilter) {
 		t.Errorf("Events with a bad filter: %v", err)
 	}
 }
@@ -131,13 +132,28 @@ func TestEventsStaged(t *testing.T) {
 			t.Errorf("staged merge (%d stages) gave %d events, want %d equal to the direct merge", st.Stages, len(staged), len(want))
 		}
 	}
+	// The stage files go to the source's temp dir, and are gone afterwards.
+	seen := 0
+	_, err := Events(context.Background(), Source{Open: e.opener(), TempDir: e.tmp}, files, Filter{}, func(*schema.Event) error {
+		if seen == 0 {
+			ents, _ := os.ReadDir(e.tmp)
+			seen = len(ents)
+		}
+		return nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if ents, _ := os.ReadDir(e.tmp); seen == 0 || len(ents) != 0 {
+		t.Errorf("stage files in the temp dir: %d during the merge, %d after; want some, then none", seen, len(ents))
+	}
 }
 
 func TestEventsStopsOnCallbackError(t *testing.T) {
 	e, vs := fixture(t, 100)
 	stop := errors.New("stop")
 	n := 0
-	_, err := Events(context.Background(), e.opener(), vs[2].Manifest.Files, Filter{}, func(*schema.Event) error {
+	_, err := Events(context.Background(), Source{Open: e.opener(), TempDir: e.tmp}, vs[2].Manifest.Files, Filter{}, func(*schema.Event) error {
 		n++
 		if n == 10 {
 			return stop

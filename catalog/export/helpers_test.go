@@ -29,6 +29,7 @@ var (
 type env struct {
 	s     *catalog.Store
 	blobs *localfs.Store
+	tmp   string // the store's temp dir
 }
 
 func newEnv(t testing.TB, rowGroupRows int64) *env {
@@ -55,7 +56,7 @@ func newEnv(t testing.TB, rowGroupRows int64) *env {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { s.Close() })
-	return &env{s: s, blobs: blobs}
+	return &env{s: s, blobs: blobs, tmp: tmp}
 }
 
 // opener returns the store's blob opener.
@@ -165,7 +166,7 @@ func sorted(evs []schema.Event, f Filter) []schema.Event {
 func collect(t testing.TB, e *env, files []catalog.FileEntry, f Filter) ([]schema.Event, Stats) {
 	t.Helper()
 	var out []schema.Event
-	st, err := Events(context.Background(), e.opener(), files, f, func(ev *schema.Event) error {
+	st, err := Events(context.Background(), Source{Open: e.opener(), TempDir: e.tmp}, files, f, func(ev *schema.Event) error {
 		out = append(out, *ev)
 		return nil
 	})

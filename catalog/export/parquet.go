@@ -41,7 +41,7 @@ type ParquetOptions struct {
 // TIMESTAMP(MICROS, UTC), strings STRING, dictionary-encoded where the
 // snapshots are). Output is streamed: only the row group being built is
 // in memory. The same inputs give the same bytes.
-func WriteParquet(ctx context.Context, w io.Writer, open Opener, files []catalog.FileEntry, f Filter, opt ParquetOptions) (Stats, error) {
+func WriteParquet(ctx context.Context, w io.Writer, src Source, files []catalog.FileEntry, f Filter, opt ParquetOptions) (Stats, error) {
 	if err := f.Validate(); err != nil {
 		return Stats{}, err
 	}
@@ -50,7 +50,7 @@ func WriteParquet(ctx context.Context, w io.Writer, open Opener, files []catalog
 		rows = DefaultRowGroupRows
 	}
 	pw := newParquetWriter(w, f.columns(), rows, opt.Metadata)
-	st, err := Events(ctx, open, files, f, pw.Write)
+	st, err := Events(ctx, src, files, f, pw.Write)
 	if err != nil {
 		return st, err
 	}

@@ -35,7 +35,7 @@ func TestWriteParquetReadByArrow(t *testing.T) {
 			want := sorted(all, tc.f)
 			var out [2]bytes.Buffer
 			for i := range out {
-				st, err := WriteParquet(context.Background(), &out[i], e.opener(), files, tc.f, ParquetOptions{RowGroupRows: 500})
+				st, err := WriteParquet(context.Background(), &out[i], Source{Open: e.opener(), TempDir: e.tmp}, files, tc.f, ParquetOptions{RowGroupRows: 500})
 				if err != nil {
 					t.Fatal(err)
 				}
@@ -190,7 +190,7 @@ func TestWriteCSV(t *testing.T) {
 	want := sorted(e.allEvents(t, files), f)
 	var out [2]bytes.Buffer
 	for i := range out {
-		if _, err := WriteCSV(context.Background(), &out[i], e.opener(), files, f); err != nil {
+		if _, err := WriteCSV(context.Background(), &out[i], Source{Open: e.opener(), TempDir: e.tmp}, files, f); err != nil {
 			t.Fatal(err)
 		}
 	}
