@@ -12,6 +12,7 @@ import (
 
 	"github.com/klauspost/compress/zstd"
 	"github.com/parquet-go/parquet-go"
+	"github.com/parquet-go/parquet-go/compress"
 	parquetzstd "github.com/parquet-go/parquet-go/compress/zstd"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
@@ -42,7 +43,7 @@ func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom
 	}
 	sw := &snapshotWriter{f: f, h: sha256.New(), batch: make([]schema.Event, 0, 1024)}
 	opts := []parquet.WriterOption{
-		parquet.Compression(pageCodec),
+		parquet.Compression(PageCodec),
 		parquet.MaxRowsPerRowGroup(rowGroupRows),
 		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
 		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
@@ -102,13 +103,14 @@ func (sw *snapshotWriter) Remove() {
 	os.Remove(sw.f.Name())
 }
 
-// pageCodec compresses the pages of every snapshot: zstd at its default
+// PageCodec compresses the pages of every Parquet file flowcat writes
+// (snapshots here, exports in catalog/export): zstd at its default
 // level, as parquet-go's codec, but with a 1 MiB window. Pages are at most
 // a few hundred KiB, so the library's default 8 MiB window finds nothing
 // more and costs 16 MiB of history per encoder, held for the whole write.
 // One encoder set serves all ingests; each page is compressed on its own,
 // so the bytes do not depend on what else is being written.
-var pageCodec = &windowedZstd{}
+var PageCodec compress.Codec = &windowedZstd{}
 
 type windowedZstd struct {
 	parquetzstd.Codec // String, CompressionCodec, Decode

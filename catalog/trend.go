@@ -64,13 +64,15 @@ func driftAlerts(tx *bolt.Tx, ref string, up *Upload) []quality.Alert {
 // with its status.
 type TrendPoint struct {
 	quality.TrendPoint
-	Status UploadStatus `json:"status"`
+	Status  UploadStatus `json:"status"`
+	Version int          `json:"version,omitempty"` // the version the upload made or matched
 }
 
 // UploadAlert is a drift alert with the upload it was raised for.
 type UploadAlert struct {
 	Upload     string `json:"upload"`
 	Seq        int    `json:"seq"`
+	Version    int    `json:"version,omitempty"`
 	ReceivedAt string `json:"received_at"`
 	quality.Alert
 }
@@ -91,12 +93,12 @@ func (s *Store) Trend(ctx context.Context, project, dataset, site string) ([]Tre
 		}
 		for _, p := range quality.TrendPoints(up.ID, up.Seq, up.ReceivedAt, up.Report) {
 			if site == "" || p.Site == site {
-				points = append(points, TrendPoint{TrendPoint: p, Status: up.Status})
+				points = append(points, TrendPoint{TrendPoint: p, Status: up.Status, Version: up.Version})
 			}
 		}
 		for _, a := range up.Alerts {
 			if site == "" || a.Site == site {
-				alerts = append(alerts, UploadAlert{Upload: up.ID, Seq: up.Seq, ReceivedAt: up.ReceivedAt.Format("2006-01-02T15:04:05Z07:00"), Alert: a})
+				alerts = append(alerts, UploadAlert{Upload: up.ID, Seq: up.Seq, Version: up.Version, ReceivedAt: up.ReceivedAt.Format("2006-01-02T15:04:05Z07:00"), Alert: a})
 			}
 		}
 	}

@@ -127,6 +127,22 @@ func (e *env) download(cmd *cobra.Command, cl *client, path string, q url.Values
 	return n, os.Rename(tmp.Name(), out)
 }
 
+// save downloads path to out (- for stdout) and says what it wrote.
+func (e *env) save(cmd *cobra.Command, path string, q url.Values, out string) error {
+	cl, err := e.client()
+	if err != nil {
+		return err
+	}
+	n, err := e.download(cmd, cl, path, q, out)
+	if err != nil {
+		return err
+	}
+	if out != "-" && !e.quiet {
+		fmt.Fprintf(e.stderr, "wrote %s (%d bytes)\n", out, n)
+	}
+	return nil
+}
+
 func newExportCmd(e *env) *cobra.Command {
 	var ff filterFlags
 	var out, format string
@@ -149,20 +165,9 @@ activities and columns; the server reads only the row groups they need. CSV foll
 			if format != "parquet" && format != "csv" {
 				return usageErr("export: --format %q: want parquet or csv", format)
 			}
-			cl, err := e.client()
-			if err != nil {
-				return err
-			}
 			q := ff.query()
 			q.Set("format", format)
-			n, err := e.download(cmd, cl, r.versionPath()+"/export", q, out)
-			if err != nil {
-				return err
-			}
-			if out != "-" && !e.quiet {
-				fmt.Fprintf(e.stderr, "wrote %s (%d bytes)\n", out, n)
-			}
-			return nil
+			return e.save(cmd, r.versionPath()+"/export", q, out)
 		},
 	}
 	ff.add(c, true, true)
@@ -188,18 +193,7 @@ func newBundleCmd(e *env) *cobra.Command {
 			if format != "tar" && format != "zip" {
 				return usageErr("bundle: --format %q: want tar or zip", format)
 			}
-			cl, err := e.client()
-			if err != nil {
-				return err
-			}
-			n, err := e.download(cmd, cl, r.versionPath()+"/bundle", url.Values{"format": {format}}, out)
-			if err != nil {
-				return err
-			}
-			if out != "-" && !e.quiet {
-				fmt.Fprintf(e.stderr, "wrote %s (%d bytes)\n", out, n)
-			}
-			return nil
+			return e.save(cmd, r.versionPath()+"/bundle", url.Values{"format": {format}}, out)
 		},
 	}
 	c.Flags().StringVarP(&out, "output", "o", "", "file to write (- for stdout)")

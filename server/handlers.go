@@ -206,17 +206,9 @@ func (s *Server) upload(c echo.Context) error {
 // They are checked before the body is read.
 func uploadOptions(c echo.Context) (catalog.IngestOptions, error) {
 	opt := catalog.IngestOptions{Filename: c.QueryParam("filename"), By: claims(c).Subject, Mode: catalog.Mode(c.QueryParam("mode"))}
-	for _, p := range []struct {
-		name string
-		dst  *time.Time
-	}{{"from", &opt.From}, {"to", &opt.To}} {
-		if v := c.QueryParam(p.name); v != "" {
-			t, err := time.Parse(time.RFC3339Nano, v)
-			if err != nil {
-				return opt, fail(http.StatusBadRequest, "invalid", "%s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", p.name, v)
-			}
-			*p.dst = t
-		}
+	var err error
+	if opt.From, opt.To, err = window(c.QueryParams()); err != nil {
+		return opt, err
 	}
 	for _, v := range c.QueryParams()["site"] {
 		for _, site := range strings.Split(v, ",") {
@@ -290,29 +282,27 @@ func (s *Server) listUploads(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	hidden, err := s.hiddenUploads(c, d)
+	unseen, err := s.unseenVersions(c, d)
 	if err != nil {
 		return err
 	}
 	out := []catalog.Upload{}
 	for _, u := range ups {
-		if !hidden[u.ID] {
+		if !unseen[u.Version] {
 			out = append(out, u)
 		}
 	}
 	return c.JSON(http.StatusOK, out)
 }
 
-// hiddenUploads are the uploads a member may not see: those that made (or
-// duplicated) a version never published. Curators and the dataset's
-// partners see every upload.
-func (s *Server) hiddenUploads(c echo.Context, d *catalog.Dataset) (map[string]bool, error) {
-	cl := claims(c)
-	if cl.CanUpload(d.Project, d.Name) {
+// unseenVersions are the versions whose uploads a member may not see:
+// those never published. Curators and the dataset's partners see every
+// upload (nil).
+func (s *Server) unseenVersions(c echo.Context, d *catalog.Dataset) (map[int]bool, error) {
+	if claims(c).CanUpload(d.Project, d.Name) {
 		return nil, nil
 	}
-	ctx := c.Request().Context()
-	heads, err := s.cfg.Store.Heads(ctx, d.Project, d.Name)
+	heads, err := s.cfg.Store.Heads(c.Request().Context(), d.Project, d.Name)
 	if err != nil {
 		return nil, catalogError(err)
 	}
@@ -322,20 +312,7 @@ func (s *Server) hiddenUploads(c echo.Context, d *catalog.Dataset) (map[string]b
 			unseen[h.Number] = true
 		}
 	}
-	if len(unseen) == 0 {
-		return nil, nil
-	}
-	ups, err := s.cfg.Store.Uploads(ctx, d.Project, d.Name)
-	if err != nil {
-		return nil, catalogError(err)
-	}
-	hidden := map[string]bool{}
-	for _, u := range ups {
-		if unseen[u.Version] {
-			hidden[u.ID] = true
-		}
-	}
-	return hidden, nil
+	return unseen, nil
 }
 
 func readable(cl *Claims, project, _ string) bool { return cl.CanRead(project) }

@@ -35,17 +35,9 @@ func parseFilter(q url.Values, columns bool, extra ...string) (export.Filter, er
 			return f, fail(http.StatusBadRequest, "invalid", "unknown parameter %q: want %s", truncateParam(k), strings.Join(allowed, ", "))
 		}
 	}
-	for _, p := range []struct {
-		name string
-		dst  *time.Time
-	}{{"from", &f.From}, {"to", &f.To}} {
-		if v := q.Get(p.name); v != "" {
-			t, err := time.Parse(time.RFC3339Nano, v)
-			if err != nil {
-				return f, fail(http.StatusBadRequest, "invalid", "%s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", p.name, truncateParam(v))
-			}
-			*p.dst = t.UTC()
-		}
+	var err error
+	if f.From, f.To, err = window(q); err != nil {
+		return f, err
 	}
 	var empty string
 	list := func(name string) []string {
@@ -76,6 +68,24 @@ func parseFilter(q url.Values, columns bool, extra ...string) (export.Filter, er
 		return f, fail(http.StatusBadRequest, "invalid", "%s", strings.TrimSuffix(err.Error(), ": "+export.ErrBadFilter.Error()))
 	}
 	return f, nil
+}
+
+// window reads the from and to instants (RFC 3339) of a query; an absent
+// one is zero.
+func window(q url.Values) (from, to time.Time, err error) {
+	for _, p := range []struct {
+		name string
+		dst  *time.Time
+	}{{"from", &from}, {"to", &to}} {
+		if v := q.Get(p.name); v != "" {
+			t, err := time.Parse(time.RFC3339Nano, v)
+			if err != nil {
+				return from, to, fail(http.StatusBadRequest, "invalid", "%s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", p.name, truncateParam(v))
+			}
+			*p.dst = t.UTC()
+		}
+	}
+	return from, to, nil
 }
 
 func truncateParam(s string) string {
@@ -506,18 +516,18 @@ func (s *Server) trend(c echo.Context, d *catalog.Dataset) ([]catalog.TrendPoint
 	if err != nil {
 		return nil, nil, catalogError(err)
 	}
-	hidden, err := s.hiddenUploads(c, d)
-	if err != nil || len(hidden) == 0 {
+	unseen, err := s.unseenVersions(c, d)
+	if err != nil || len(unseen) == 0 {
 		return points, alerts, err
 	}
 	ps, as := []catalog.TrendPoint{}, []catalog.UploadAlert{}
 	for _, p := range points {
-		if !hidden[p.Upload] {
+		if !unseen[p.Version] {
 			ps = append(ps, p)
 		}
 	}
 	for _, a := range alerts {
-		if !hidden[a.Upload] {
+		if !unseen[a.Version] {
 			as = append(as, a)
 		}
 	}

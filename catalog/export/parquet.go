@@ -5,14 +5,11 @@ import (
 	"fmt"
 	"io"
 	"reflect"
-	"runtime"
 	"strings"
 	"sync"
 	"unsafe"
 
-	"github.com/klauspost/compress/zstd"
 	"github.com/parquet-go/parquet-go"
-	parquetzstd "github.com/parquet-go/parquet-go/compress/zstd"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -71,7 +68,7 @@ const writeBatch = 512
 func newParquetWriter(w io.Writer, cols []schema.Field, rowGroupRows int64, kv map[string]string) *parquetWriter {
 	opts := []parquet.WriterOption{
 		subsetSchema(cols),
-		parquet.Compression(pageCodec),
+		parquet.Compression(catalog.PageCodec),
 		parquet.MaxRowsPerRowGroup(rowGroupRows),
 		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
 		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
@@ -166,34 +163,4 @@ func (pw *parquetWriter) Close() error {
 		return fmt.Errorf("export: parquet: %w", err)
 	}
 	return nil
-}
-
-// pageCodec compresses pages with zstd at its default level and a 1 MiB
-// window, as the catalog's snapshots: pages are far smaller than the
-// library's 8 MiB default window, which would only cost memory. Each page
-// is compressed on its own, so the bytes do not depend on concurrency.
-var pageCodec = &windowedZstd{}
-
-type windowedZstd struct {
-	parquetzstd.Codec // String, CompressionCodec, Decode
-	once              sync.Once
-	enc               *zstd.Encoder
-	err               error
-}
-
-// Encode implements compress.Codec.
-func (c *windowedZstd) Encode(dst, src []byte) ([]byte, error) {
-	c.once.Do(func() {
-		c.enc, c.err = zstd.NewWriter(nil,
-			zstd.WithEncoderLevel(zstd.SpeedDefault),
-			zstd.WithWindowSize(1<<20),
-			zstd.WithEncoderConcurrency(runtime.GOMAXPROCS(0)),
-			zstd.WithZeroFrames(true),
-			zstd.WithEncoderCRC(false),
-		)
-	})
-	if c.err != nil {
-		return nil, fmt.Errorf("zstd: %w", c.err)
-	}
-	return c.enc.EncodeAll(src, dst[:0]), nil
 }
