@@ -9,10 +9,10 @@ import (
 	"io"
 	"os"
 	"slices"
-	"strings"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // sorter orders the events of one upload by (occurred_at, source line)
@@ -28,7 +28,7 @@ import (
 // buffer of runBufSize is held per run merged (at most fanIn), whatever the
 // size of the upload.
 type sorter struct {
-	// byCase orders by case instead (lessCase), for the per-case pass.
+	// byCase orders by case instead (cases.Less), for the per-case pass.
 	byCase bool
 	dir    string
 	max    int
@@ -57,7 +57,7 @@ func newSorter(dir string, max int) *sorter {
 	return &sorter{dir: dir, max: max, fanIn: maxFanIn, inter: make(map[string]string)}
 }
 
-// newCaseSorter returns a sorter that orders events by lessCase: each
+// newCaseSorter returns a sorter that orders events by cases.Less: each
 // case's events together, in time order, so that per-case work holds one
 // case at a time.
 func newCaseSorter(dir string, max int) *sorter {
@@ -66,29 +66,9 @@ func newCaseSorter(dir string, max int) *sorter {
 	return s
 }
 
-// lessCase orders by case, then instant, then event type in lifecycle
-// order (an arrival before a start at the same instant), then content,
-// then source line: so a case's events come out in the same order however
-// the version's files were cut, and equal instants by what happened.
-func lessCase(a, b *schema.Event) int {
-	if c := strings.Compare(a.CaseID, b.CaseID); c != 0 {
-		return c
-	}
-	if c := a.OccurredAt.Compare(b.OccurredAt); c != 0 {
-		return c
-	}
-	if c := a.Type.Rank() - b.Type.Rank(); c != 0 {
-		return c
-	}
-	if c := schema.CompareContent(a, b); c != 0 {
-		return c
-	}
-	return cmpInt(a.Line, b.Line)
-}
-
 func (s *sorter) less(a, b *schema.Event) int {
 	if s.byCase {
-		return lessCase(a, b)
+		return cases.Less(a, b)
 	}
 	return lessEvent(a, b)
 }
@@ -164,7 +144,7 @@ func (s *sorter) order() []sortKey {
 			s.keys = append(s.keys, sortKey{idx: int32(i)})
 		}
 		slices.SortFunc(s.keys, func(a, b sortKey) int {
-			if c := lessCase(&s.buf[a.idx], &s.buf[b.idx]); c != 0 {
+			if c := cases.Less(&s.buf[a.idx], &s.buf[b.idx]); c != 0 {
 				return c
 			}
 			return cmpInt(int64(a.idx), int64(b.idx))

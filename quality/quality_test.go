@@ -3,7 +3,6 @@ package quality
 import (
 	"bytes"
 	"encoding/json"
-	"maps"
 	"reflect"
 	"slices"
 	"strings"
@@ -46,9 +45,7 @@ func run(opt Options, evs, fileOrder []schema.Event, rej []schema.Rejection) *Re
 	for i := range fileOrder {
 		a.ObserveFileOrder(&fileOrder[i])
 	}
-	for i := range evs {
-		a.Observe(&evs[i])
-	}
+	a.ObserveSorted(evs)
 	return a.Report()
 }
 
@@ -412,23 +409,6 @@ func TestOrderBreach(t *testing.T) {
 	r := run(Options{}, evs, nil, nil)
 	if len(r.Internal) != 1 || r.Internal[0].Code != CodeOrderBreach || r.Internal[0].Count == 0 {
 		t.Errorf("internal %+v", r.Internal)
-	}
-}
-
-func TestPruningKeepsCounts(t *testing.T) {
-	evs := stream(3, 0, 0)
-	a := NewAccumulator(fixtureOptions())
-	a.pruneEvery = 1
-	for i := range evs {
-		a.Observe(&evs[i])
-	}
-	b := NewAccumulator(fixtureOptions())
-	for i := range evs {
-		b.Observe(&evs[i])
-	}
-	ra, rb := a.Report(), b.Report()
-	if !maps.Equal(counted(ra), counted(rb)) || ra.Stages != rb.Stages {
-		t.Errorf("pruning changed counts:\n%v\n%v", counted(ra), counted(rb))
 	}
 }
 

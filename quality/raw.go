@@ -30,14 +30,16 @@ type Settings struct {
 	MaxServiceSeconds     float64        `json:"max_service_seconds"`
 	ClockToleranceSeconds float64        `json:"clock_tolerance_seconds"`
 	EventIDWindowSeconds  float64        `json:"event_id_window_seconds"`
-	CaseHorizonSeconds    float64        `json:"case_horizon_seconds"`
-	LittleTolerance       float64        `json:"little_tolerance"`
-	GapMinMean            float64        `json:"gap_min_mean"`
-	GapMinWeeks           int            `json:"gap_min_weeks"`
-	StaleAfterSeconds     float64        `json:"stale_after_seconds"`
-	UploadedAt            *time.Time     `json:"uploaded_at,omitempty"` // the latest, when merged
-	WindowFrom            *time.Time     `json:"window_from,omitempty"`
-	WindowTo              *time.Time     `json:"window_to,omitempty"`
+	// CaseHorizonSeconds is set only in reports made before cases were
+	// whole (an idle case was then cut after this long); today's omit it.
+	CaseHorizonSeconds float64    `json:"case_horizon_seconds,omitempty"`
+	LittleTolerance    float64    `json:"little_tolerance"`
+	GapMinMean         float64    `json:"gap_min_mean"`
+	GapMinWeeks        int        `json:"gap_min_weeks"`
+	StaleAfterSeconds  float64    `json:"stale_after_seconds"`
+	UploadedAt         *time.Time `json:"uploaded_at,omitempty"` // the latest, when merged
+	WindowFrom         *time.Time `json:"window_from,omitempty"`
+	WindowTo           *time.Time `json:"window_to,omitempty"`
 }
 
 // SiteRaw holds the counts of one site.
