@@ -161,9 +161,7 @@ func TestKaplanMeierThroughAccumulator(t *testing.T) {
 		}
 		slices.SortStableFunc(evs, func(a, b schema.Event) int { return a.OccurredAt.Compare(b.OccurredAt) })
 		a := New(Options{})
-		for i := range evs {
-			a.Observe(&evs[i])
-		}
+		a.ObserveAll(evs)
 		s := a.Summary()
 		if len(s.Queues) != 1 || s.Queues[0].Patience == nil {
 			t.Fatalf("%s: queues %+v", c.name, s.Queues)

@@ -207,6 +207,11 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		Subjects:      countOf(a.subjects),
 		Resources:     countOf(a.resources),
 	}
+	if c := a.counted; c != nil {
+		s.Cases = Count{Value: float64(c.Cases), Exact: true}
+		s.Subjects = Count{Value: float64(c.Subjects), Exact: true}
+		s.Resources = Count{Value: float64(c.Resources), Exact: true}
+	}
 	for i, t := range schema.EventTypes {
 		s.EventTypes[string(t)] = a.types[i]
 	}

@@ -86,6 +86,9 @@ type Wait struct {
 	At        int64  // when the wait began
 	Duration  int64  // µs; negative only for a start before its anchor
 	Abandoned bool
+	// Open marks a wait that never ended: the case re-queued elsewhere,
+	// departed or ended while waiting. Duration is then 0.
+	Open bool
 }
 
 // Service is one measured service: a start and the complete that ends it
@@ -232,6 +235,7 @@ func (b *Builder) step(e *schema.Event, at int64) {
 		}
 		if e.Queue != "" {
 			if !b.anchorOK || b.anchorQ != e.Queue {
+				b.dropAnchor(e.Site)
 				b.anchor, b.anchorQ, b.anchorOK = at, e.Queue, true
 			}
 		} else if !b.anchorOK && e.Type != schema.Transfer {
@@ -291,12 +295,20 @@ func (b *Builder) step(e *schema.Event, at int64) {
 	case schema.Departure:
 		b.depart = ptr(at)
 		b.waiting, b.inSvc = false, false
-		b.anchorOK = false
+		b.dropAnchor(e.Site)
 		b.svcOpen = false
 	}
 }
 
 func ptr(x int64) *int64 { return &x }
+
+// dropAnchor reports the open wait, if any, as never ended.
+func (b *Builder) dropAnchor(site string) {
+	if b.anchorOK {
+		b.emitWait(&Wait{Site: site, Queue: b.anchorQ, At: b.anchor, Open: true})
+		b.anchorOK = false
+	}
+}
 
 func (b *Builder) emitWait(w *Wait) {
 	for _, o := range b.obs {
@@ -316,6 +328,7 @@ func (b *Builder) Flush() {
 		return
 	}
 	r := &b.cur
+	b.dropAnchor(b.sites[len(b.sites)-1])
 	r.Sites = len(b.sites)
 	r.Activities = len(b.acts)
 	r.Variant = b.variant.h
