@@ -411,9 +411,30 @@ func NewAccumulator(opt Options) *Accumulator {
 // flag counts one finding of code c at site s, keeping a sample of e.
 func (a *Accumulator) flag(s *siteAcc, c int, e *schema.Event) {
 	s.n[c]++
-	if len(a.samples[c]) < a.opt.MaxSamples {
-		a.samples[c] = append(a.samples[c], Sample{Line: e.Line, CaseID: strings.Clone(e.CaseID)})
+	a.samples[c] = keepFirstLines(a.samples[c], a.opt.MaxSamples, e)
+}
+
+// keepFirstLines keeps, of the samples of one finding, those of the
+// lowest source lines (ties: lowest case pseudonym), so that samples do
+// not depend on the order the passes see events in (time order, or case
+// order by pseudonym) and point a partner at the top of the file first.
+func keepFirstLines(smp []Sample, max int, e *schema.Event) []Sample {
+	less := func(x *Sample) bool {
+		return e.Line < x.Line || e.Line == x.Line && e.CaseID < x.CaseID
 	}
+	i := len(smp)
+	for i > 0 && less(&smp[i-1]) {
+		i--
+	}
+	if i >= max {
+		return smp
+	}
+	if len(smp) < max {
+		smp = append(smp, Sample{})
+	}
+	copy(smp[i+1:], smp[i:len(smp)-1])
+	smp[i] = Sample{Line: e.Line, CaseID: strings.Clone(e.CaseID)}
+	return smp
 }
 
 // site returns the counters of site name.

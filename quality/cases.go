@@ -106,6 +106,7 @@ func (a *Accumulator) Event(e *schema.Event) {
 	}
 	s := a.site(ev.Site)
 	at := ev.OccurredAt.UnixMicro()
+	a.census(s, at) // the span, when the time pass did not run
 	var acc, con, uni bool
 	if fl&FlagCopy == 0 {
 		acc, con, uni = a.observeCase(s, typeIndex(ev.Type), &ev, at)

@@ -394,7 +394,8 @@ func scores(s *SiteRaw, d *siteDerived, set *Settings, rejected map[schema.Reaso
 	}
 	// accuracy
 	if rows.Total > 0 {
-		bad := s.AccuracyRows + d.clockBack
+		// case_too_long is counted per case, one row each.
+		bad := s.AccuracyRows + d.clockBack + s.Counts[CodeCaseTooLong]
 		for reason, n := range rejected {
 			if reason != schema.ReasonMissingRequired {
 				bad += n

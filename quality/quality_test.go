@@ -179,7 +179,7 @@ func TestScores(t *testing.T) {
 		mergeSite(all, &r.Raw.Sites[i])
 	}
 	wantCompl := 100 * ((1 - 1/total) + 1 + queue/acc) / 3
-	wantAcc := 100 * (1 - float64(all.AccuracyRows+1)/total)
+	wantAcc := 100 * (1 - float64(all.AccuracyRows+all.Counts[CodeCaseTooLong]+1)/total)
 	wantCons := 100 * (1 - float64(all.ConsistencyRows)/acc)
 	wantUniq := 100 * (1 - float64(all.UniquenessRows)/acc)
 	for name, w := range map[string]float64{DimCompleteness: wantCompl, DimAccuracy: wantAcc, DimConsistency: wantCons, DimUniqueness: wantUniq} {

@@ -320,3 +320,51 @@ func mergeHours(a, b HourSeries) HourSeries {
 	}
 	return HourSeries{Start: &start, Counts: out, Beyond: a.Beyond + b.Beyond}
 }
+
+// caseCodes are the findings counted per case or per wait rather than per
+// row; a version's report takes them from its one per-case pass.
+var caseCodes = []string{CodeCaseTooLong, CodeWaitNoEnqueue, CodeWaitNoStart}
+
+// WithCases returns merged (the merge of a version's per-upload reports)
+// with its case-level figures taken from cases, the report of one
+// per-case pass over every event of the version ([Accumulator.Event] and
+// [Accumulator.Case] only): per site the cases and their stage coverage,
+// the census sums of Little's law (arrivals, completed stays, sojourn,
+// time in system), case_too_long, and the wait coverage. So a case whose
+// events span uploads counts once. Row-level findings (order checks within
+// a case, duplicates, overlaps) stay those found within each upload.
+func WithCases(merged, cases *Report) *Report {
+	raw := cloneRaw(&merged.Raw)
+	bySite := map[string]*SiteRaw{}
+	for i := range cases.Raw.Sites {
+		bySite[cases.Raw.Sites[i].Site] = &cases.Raw.Sites[i]
+	}
+	for i := range raw.Sites {
+		s := &raw.Sites[i]
+		c := bySite[s.Site]
+		if c == nil {
+			c = &SiteRaw{}
+		}
+		s.Stages = c.Stages
+		s.Census.AreaCaseSeconds = c.Census.AreaCaseSeconds
+		s.Census.Arrivals = c.Census.Arrivals
+		s.Census.Completed = c.Census.Completed
+		s.Census.SojournSeconds = c.Census.SojournSeconds
+		for _, code := range caseCodes {
+			if n := c.Counts[code]; n > 0 {
+				s.Counts[code] = n
+			} else {
+				delete(s.Counts, code)
+			}
+		}
+	}
+	raw.Waits = slices.Clone(cases.Raw.Waits)
+	for _, code := range caseCodes {
+		if smp := cases.Raw.Samples[code]; len(smp) > 0 {
+			raw.Samples[code] = slices.Clone(smp)
+		} else {
+			delete(raw.Samples, code)
+		}
+	}
+	return derive(merged.Rows, cloneRejections(merged.Rejections), raw, slices.Clone(merged.UnmappedColumns))
+}

@@ -302,6 +302,9 @@ func (a *Accumulator) Report() *Report {
 		raw.Waits = append(raw.Waits, WaitRaw{Queue: w.key.queue, Activity: w.key.activity,
 			Waits: w.waits, NoEnqueue: w.noEnqueue, NoStart: w.noStart + waitNoStart[i]})
 	}
+	slices.SortFunc(raw.Waits, func(x, y WaitRaw) int {
+		return cmp.Or(cmp.Compare(x.Queue, y.Queue), cmp.Compare(x.Activity, y.Activity))
+	})
 	for c := range numCodes {
 		if len(a.samples[c]) > 0 {
 			raw.Samples[codeNames[c]] = slices.Clone(a.samples[c])

@@ -12,6 +12,7 @@
 package cases
 
 import (
+	"fmt"
 	"strings"
 	"time"
 
@@ -390,4 +391,80 @@ func Less(a, b *schema.Event) int {
 		return 1
 	}
 	return 0
+}
+
+// Row is the case table's Parquet layout: one row per case, in case_id
+// order. Instants are TIMESTAMP(MICROS, UTC); durations are seconds; a
+// column is NULL where the case's events do not measure it.
+type Row struct {
+	CaseID          string     `parquet:"case_id" json:"case_id"`
+	Site            string     `parquet:"site,dict" json:"site"`
+	Sites           int32      `parquet:"sites" json:"sites"`
+	SubjectID       *string    `parquet:"subject_id,optional" json:"subject_id,omitempty"`
+	FirstAt         time.Time  `parquet:"first_at,timestamp(microsecond:utc)" json:"first_at"`
+	LastAt          time.Time  `parquet:"last_at,timestamp(microsecond:utc)" json:"last_at"`
+	Events          int64      `parquet:"events" json:"events"`
+	ArrivalAt       *time.Time `parquet:"arrival_at,optional,timestamp(microsecond:utc)" json:"arrival_at,omitempty"`
+	StartAt         *time.Time `parquet:"start_at,optional,timestamp(microsecond:utc)" json:"start_at,omitempty"`
+	EndAt           *time.Time `parquet:"end_at,optional,timestamp(microsecond:utc)" json:"end_at,omitempty"`
+	DurationSeconds float64    `parquet:"duration_seconds" json:"duration_seconds"`
+	WaitSeconds     *float64   `parquet:"wait_seconds,optional" json:"wait_seconds,omitempty"`
+	ServiceSeconds  *float64   `parquet:"service_seconds,optional" json:"service_seconds,omitempty"`
+	StaySeconds     *float64   `parquet:"stay_seconds,optional" json:"stay_seconds,omitempty"`
+	Outcome         string     `parquet:"outcome,dict" json:"outcome"`
+	Activities      int32      `parquet:"activities" json:"activities"`
+	Variant         string     `parquet:"variant,dict" json:"variant"`
+}
+
+// RowColumns describes the case table's columns, in Row order, for
+// dictionaries and docs.
+var RowColumns = []struct{ Name, Type, Meaning string }{
+	{"case_id", "string", "the case (a pseudonym)"},
+	{"site", "string", "the site of the case's first event"},
+	{"sites", "int32", "distinct sites among its events"},
+	{"subject_id", "string, null", "the first subject named (a pseudonym)"},
+	{"first_at", "timestamp[us, UTC]", "its first event"},
+	{"last_at", "timestamp[us, UTC]", "its last event"},
+	{"events", "int64", "its events"},
+	{"arrival_at", "timestamp[us, UTC], null", "its first arrival"},
+	{"start_at", "timestamp[us, UTC], null", "its first start"},
+	{"end_at", "timestamp[us, UTC], null", "its last departure, or the abandon that ended it"},
+	{"duration_seconds", "double", "case duration: last_at minus first_at"},
+	{"wait_seconds", "double, null", "first start (or abandon) minus the first arrival or enqueue"},
+	{"service_seconds", "double, null", "sum of its measured services (start to complete)"},
+	{"stay_seconds", "double, null", "end_at minus arrival_at"},
+	{"outcome", "string", "served, abandoned, transferred, left_unserved or open"},
+	{"activities", "int32", "distinct activities"},
+	{"variant", "string", "16 hex digits: a hash of its ordered activity sequence"},
+}
+
+// Row returns r in the case table's layout.
+func (r *Record) Row() Row {
+	ts := func(p *int64) *time.Time {
+		if p == nil {
+			return nil
+		}
+		t := time.UnixMicro(*p).UTC()
+		return &t
+	}
+	sec := func(p *int64) *float64 {
+		if p == nil {
+			return nil
+		}
+		s := float64(*p) / 1e6
+		return &s
+	}
+	row := Row{
+		CaseID: r.CaseID, Site: r.Site, Sites: int32(r.Sites),
+		FirstAt: time.UnixMicro(r.First).UTC(), LastAt: time.UnixMicro(r.Last).UTC(), Events: r.Events,
+		ArrivalAt: ts(r.Arrival), StartAt: ts(r.Start), EndAt: ts(r.End),
+		DurationSeconds: float64(r.Duration()) / 1e6,
+		WaitSeconds:     sec(r.Wait), ServiceSeconds: sec(r.Service), StaySeconds: sec(r.Stay),
+		Outcome: string(r.Outcome), Activities: int32(r.Activities), Variant: fmt.Sprintf("%016x", r.Variant),
+	}
+	if r.SubjectID != "" {
+		s := r.SubjectID
+		row.SubjectID = &s
+	}
+	return row
 }
