@@ -236,12 +236,16 @@ func newVersion(m Manifest) (*Version, error) {
 	return &Version{Number: m.Version, SnapshotID: hex.EncodeToString(sum[:]), Manifest: m}, nil
 }
 
-// File returns the manifest entry for id.
+// File returns the manifest entry for id: one of its event files, or its
+// case table (with no times).
 func (v *Version) File(id blob.ID) (FileEntry, bool) {
 	for _, f := range v.Manifest.Files {
 		if f.SHA256 == id {
 			return f, true
 		}
+	}
+	if ct := v.Manifest.CaseTable; ct != nil && ct.SHA256 == id {
+		return FileEntry{SHA256: ct.SHA256, Bytes: ct.Bytes, Rows: ct.Rows}, true
 	}
 	return FileEntry{}, false
 }
