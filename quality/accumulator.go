@@ -321,6 +321,7 @@ type siteAcc struct {
 	grid         [numGrids]int64
 	// stage coverage of the case records still held is added at report time
 	stages stageCounts
+	cases  CaseRaw
 	// census and Little's law
 	hasAt     bool
 	firstAt   int64 // µs, absolute

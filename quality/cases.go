@@ -150,6 +150,8 @@ func (a *Accumulator) Case(r *cases.Record) {
 	if r.Has(schema.Departure) {
 		c.departure++
 	}
+	d := float64(r.Duration()) / 1e6
+	s.cases.merge(&CaseRaw{N: 1, DurationSeconds: d, MinSeconds: d, MaxSeconds: d, Events: r.Events, MinEvents: r.Events, MaxEvents: r.Events})
 	if uint64(r.Duration()) > a.maxCase {
 		s.n[cCaseTooLong]++
 		if len(a.samples[cCaseTooLong]) < a.opt.MaxSamples {

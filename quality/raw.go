@@ -54,6 +54,7 @@ type SiteRaw struct {
 	ByType          map[schema.EventType]TypeRaw `json:"by_type"`
 	Grid            map[string]int64             `json:"grid"` // events on each grid
 	Stages          StageRaw                     `json:"stages"`
+	Cases           CaseRaw                      `json:"cases"`
 	First           *time.Time                   `json:"first"`
 	Last            *time.Time                   `json:"last"`
 	Census          CensusRaw                    `json:"census"`
@@ -76,6 +77,33 @@ type StageRaw struct {
 	Start     int64 `json:"start"`
 	Complete  int64 `json:"complete"`
 	Departure int64 `json:"departure"`
+}
+
+// CaseRaw holds the sums of the cases' durations (first to last event)
+// and events, for the mean, minimum and maximum.
+type CaseRaw struct {
+	N               int64   `json:"n"`
+	DurationSeconds float64 `json:"duration_seconds"` // sum
+	MinSeconds      float64 `json:"min_seconds"`
+	MaxSeconds      float64 `json:"max_seconds"`
+	Events          int64   `json:"events"` // sum
+	MinEvents       int64   `json:"min_events"`
+	MaxEvents       int64   `json:"max_events"`
+}
+
+func (d *CaseRaw) merge(s *CaseRaw) {
+	if s.N == 0 {
+		return
+	}
+	if d.N == 0 {
+		*d = *s
+		return
+	}
+	d.N += s.N
+	d.DurationSeconds += s.DurationSeconds
+	d.MinSeconds, d.MaxSeconds = min(d.MinSeconds, s.MinSeconds), max(d.MaxSeconds, s.MaxSeconds)
+	d.Events += s.Events
+	d.MinEvents, d.MaxEvents = min(d.MinEvents, s.MinEvents), max(d.MaxEvents, s.MaxEvents)
 }
 
 // CensusRaw holds the sums of Little's law for one site.
@@ -267,6 +295,7 @@ func mergeSite(d, s *SiteRaw) {
 	d.Stages.Start += s.Stages.Start
 	d.Stages.Complete += s.Stages.Complete
 	d.Stages.Departure += s.Stages.Departure
+	d.Cases.merge(&s.Cases)
 	if s.First != nil && (d.First == nil || s.First.Before(*d.First)) {
 		d.First = s.First
 	}
@@ -328,7 +357,8 @@ var caseCodes = []string{CodeCaseTooLong, CodeWaitNoEnqueue, CodeWaitNoStart}
 // WithCases returns merged (the merge of a version's per-upload reports)
 // with its case-level figures taken from cases, the report of one
 // per-case pass over every event of the version ([Accumulator.Event] and
-// [Accumulator.Case] only): per site the cases and their stage coverage,
+// [Accumulator.Case] only): per site the cases, their durations and
+// events, their stage coverage,
 // the census sums of Little's law (arrivals, completed stays, sojourn,
 // time in system), case_too_long, and the wait coverage. So a case whose
 // events span uploads counts once. Row-level findings (order checks within
@@ -346,6 +376,7 @@ func WithCases(merged, cases *Report) *Report {
 			c = &SiteRaw{}
 		}
 		s.Stages = c.Stages
+		s.Cases = c.Cases
 		s.Census.AreaCaseSeconds = c.Census.AreaCaseSeconds
 		s.Census.Arrivals = c.Census.Arrivals
 		s.Census.Completed = c.Census.Completed

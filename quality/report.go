@@ -33,6 +33,7 @@ type Report struct {
 	Completeness []FieldCompleteness `json:"completeness"`
 	EventTypes   []TypeCompleteness  `json:"event_types"`
 	Stages       Stages              `json:"stages"`
+	Cases        CaseFigures         `json:"cases"`
 	Waits        []WaitCoverage      `json:"waits"`
 	Resolution   Resolution          `json:"resolution"`
 	Little       []LittleLaw         `json:"littles_law"`
@@ -96,6 +97,19 @@ type Stages struct {
 	Start     float64 `json:"start"`
 	Complete  float64 `json:"complete"`
 	Departure float64 `json:"departure"`
+}
+
+// CaseFigures describe the cases: how many, their duration (first to last
+// event, seconds) and their events. A case is its case id over every file
+// of a version, however long it idles.
+type CaseFigures struct {
+	Count               int64   `json:"count"`
+	MeanDurationSeconds float64 `json:"mean_duration_seconds"`
+	MinDurationSeconds  float64 `json:"min_duration_seconds"`
+	MaxDurationSeconds  float64 `json:"max_duration_seconds"`
+	MeanEvents          float64 `json:"mean_events"`
+	MinEvents           int64   `json:"min_events"`
+	MaxEvents           int64   `json:"max_events"`
 }
 
 // WaitCoverage is, for one (queue, activity), how many waits there were
@@ -350,6 +364,7 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 		NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{},
 		Stages:   StageRaw{Cases: stages.cases, Arrival: stages.arrival, Start: stages.start, Complete: stages.complete, Departure: stages.departure},
 		FileRows: s.fileRows, FileBackSteps: s.fileJumps,
+		Cases: s.cases,
 	}
 	for c := range numCodes {
 		if n := s.n[c]; n > 0 {

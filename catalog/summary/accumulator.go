@@ -368,18 +368,32 @@ func (a *Accumulator) occAdd(t int64, arrival bool) {
 	}
 }
 
-// finish records the local days spanned by the events observed since the
-// last finish.
+// finish ends the current file's stream state.
 func (a *Accumulator) finish() {
 	a.lastRes = ""
-	if a.segHas {
-		_, d0 := a.local(a.segFirst)
-		_, d1 := a.local(a.segLast)
-		for d := d0; d <= d1; d++ {
-			a.days[d] = struct{}{}
-		}
-		a.segHas = false
+	a.segHas = false
+}
+
+// observedDays returns the local days from the first to the last event
+// observed, and how many of them fall on each weekday (0 = Monday). A day
+// inside the span without events counts, with no arrivals: the days do not
+// depend on how the events were cut into files, and state does not grow
+// with the span.
+func (a *Accumulator) observedDays() (n int, wdays [7]int) {
+	if !a.hasTime {
+		return 0, wdays
 	}
+	_, d0 := a.local(a.minAt)
+	_, d1 := a.local(a.maxAt)
+	n = int(d1-d0) + 1
+	full, rest := n/7, n%7
+	for w := range wdays {
+		wdays[w] = full
+	}
+	for k := range rest {
+		wdays[((int(d0)+k+3)%7+7)%7]++
+	}
+	return n, wdays
 }
 
 // local returns the hour of the week (0 = Monday 00:00-01:00 local) and

@@ -195,10 +195,11 @@ func (a *Accumulator) Summary() *Summary { return a.SummaryFor(Selection{}) }
 // SummaryFor is [Accumulator.Summary] with the groups restricted to sel.
 func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 	a.finish()
+	days, wdays := a.observedDays()
 	s := &Summary{
 		FormatVersion: FormatVersion,
 		Timezone:      a.loc.String(),
-		DaysObserved:  len(a.days),
+		DaysObserved:  days,
 		Events:        a.events,
 		EventTypes:    map[string]uint64{},
 		OtherTypes:    a.otherTypes,
@@ -222,24 +223,20 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		f, t := time.UnixMicro(a.minAt).In(a.loc), time.UnixMicro(a.maxAt).In(a.loc)
 		s.From, s.To = &f, &t
 	}
-	var wdays [7]int
-	for d := range a.days {
-		wdays[((d+3)%7+7)%7]++
-	}
 	ci := poissonCache{}
-	s.Arrivals.Profile = ci.profile(&a.arrWeek, &wdays, len(a.days))
+	s.Arrivals.Profile = ci.profile(&a.arrWeek, &wdays, days)
 	for _, d := range slices.Sorted(maps.Keys(a.arrDay)) {
 		s.Arrivals.PerDay = append(s.Arrivals.PerDay, DayCount{
 			Date: time.Unix(int64(d)*86400, 0).UTC().Format("2006-01-02"), Count: a.arrDay[d]})
 	}
 	for _, g := range sortedGroups(a.sites.list, func(g *siteGroup) string { return g.name }) {
 		if keep(sel.Sites, g.name) {
-			s.Sites = append(s.Sites, SiteSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, &wdays, len(a.days))})
+			s.Sites = append(s.Sites, SiteSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, &wdays, days)})
 		}
 	}
 	for _, g := range sortedGroups(a.queues.list, func(g *queueGroup) string { return g.name }) {
 		if keep(sel.Queues, g.name) {
-			s.Queues = append(s.Queues, a.queueSummary(g, &ci, &wdays))
+			s.Queues = append(s.Queues, a.queueSummary(g, &ci, &wdays, days))
 		}
 	}
 	for _, g := range sortedGroups(a.acts.list, func(g *activityGroup) string { return g.name }) {
@@ -312,8 +309,8 @@ func (p poissonCache) profile(w *[168]uint64, wdays *[7]int, days int) Profile {
 	return pr
 }
 
-func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, wdays *[7]int) QueueSummary {
-	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, wdays, len(a.days))}
+func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, wdays *[7]int, days int) QueueSummary {
+	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, wdays, days)}
 	q.Wait.Durations = durationsOf(g.served)
 	q.Wait.Negative = g.negative
 	n := g.served.n

@@ -93,7 +93,7 @@ type Wait struct {
 }
 
 // Service is one measured service: a start and the complete that ends it
-// (same activity, or either unnamed).
+// (same activity; or, when one of them names none, the latest open start).
 type Service struct {
 	Site     string
 	Activity string
@@ -126,10 +126,7 @@ type Builder struct {
 	anchor   int64
 	anchorQ  string
 	anchorOK bool
-	svcOpen  bool
-	svcStart int64
-	svcAct   string
-	svcQ     string
+	open     []openStart // starts not yet completed, by activity
 	svcSum   int64
 	svcN     int
 	firstAnc *int64
@@ -215,7 +212,8 @@ func (b *Builder) begin(e *schema.Event, at int64) {
 	b.sites = b.sites[:0]
 	clear(b.acts)
 	b.variant.reset()
-	b.anchorOK, b.svcOpen, b.firstAnc = false, false, nil
+	b.anchorOK, b.firstAnc = false, nil
+	b.open = b.open[:0]
 	b.svcSum, b.svcN = 0, 0
 	b.endAband, b.inSvc, b.waiting = false, false, false
 }
@@ -223,7 +221,7 @@ func (b *Builder) begin(e *schema.Event, at int64) {
 // step measures waits and services. A wait opens at an arrival, enqueue
 // or transfer into a queue (a new queue re-anchors it) and ends at the
 // next start (served) or abandon; a service opens at a start and ends at
-// the next complete of the same activity (or with either unnamed).
+// the next complete of the same activity (see matchStart).
 func (b *Builder) step(e *schema.Event, at int64) {
 	r := &b.cur
 	switch e.Type {
@@ -260,23 +258,24 @@ func (b *Builder) step(e *schema.Event, at int64) {
 			b.emitWait(&Wait{Site: e.Site, Queue: q, At: b.anchor, Duration: at - b.anchor})
 			b.anchorOK = false
 		}
-		b.svcOpen, b.svcStart, b.svcAct, b.svcQ = true, at, e.Activity, q
+		b.openStart(openStart{act: e.Activity, queue: q, at: at})
 		b.inSvc, b.waiting, b.endAband = true, false, false
 	case schema.Complete:
-		if b.svcOpen && (e.Activity == "" || b.svcAct == "" || e.Activity == b.svcAct) {
-			act := b.svcAct
+		if i := b.matchStart(e.Activity); i >= 0 {
+			st := b.open[i]
+			b.open = append(b.open[:i], b.open[i+1:]...)
+			act := st.act
 			if act == "" {
 				act = e.Activity
 			}
-			d := at - b.svcStart
-			b.emitService(&Service{Site: e.Site, Activity: act, Queue: b.svcQ, At: b.svcStart, Duration: d})
+			d := at - st.at
+			b.emitService(&Service{Site: e.Site, Activity: act, Queue: st.queue, At: st.at, Duration: d})
 			if d >= 0 {
 				b.svcSum += d
 				b.svcN++
 			}
-			b.svcOpen = false
 		}
-		b.inSvc = false
+		b.inSvc = len(b.open) > 0
 	case schema.Abandon:
 		if b.anchorOK {
 			q := e.Queue
@@ -297,11 +296,58 @@ func (b *Builder) step(e *schema.Event, at int64) {
 		b.depart = ptr(at)
 		b.waiting, b.inSvc = false, false
 		b.dropAnchor(e.Site)
-		b.svcOpen = false
+		b.open = b.open[:0]
 	}
 }
 
 func ptr(x int64) *int64 { return &x }
+
+// openStart is a start waiting for its complete.
+type openStart struct {
+	act, queue string
+	at         int64
+}
+
+// maxOpenStarts bounds the starts a case holds open at once; beyond it
+// the oldest is taken as never completed.
+const maxOpenStarts = 64
+
+// openStart opens a service. A start of an activity already open replaces
+// that one (its complete was lost).
+func (b *Builder) openStart(st openStart) {
+	for i := range b.open {
+		if b.open[i].act == st.act {
+			b.open = append(b.open[:i], b.open[i+1:]...)
+			break
+		}
+	}
+	if len(b.open) >= maxOpenStarts {
+		b.open = append(b.open[:0], b.open[1:]...)
+	}
+	st.act, st.queue = strings.Clone(st.act), strings.Clone(st.queue)
+	b.open = append(b.open, st)
+}
+
+// matchStart returns the open start a complete of activity act ends: the
+// one of the same activity, or, when either names none, the latest; -1
+// when none is open. Services of different activities may overlap within
+// a case (a lab test during an assessment), so each activity pairs apart.
+func (b *Builder) matchStart(act string) int {
+	for i := len(b.open) - 1; i >= 0; i-- {
+		if b.open[i].act == act {
+			return i
+		}
+	}
+	if act == "" && len(b.open) > 0 {
+		return len(b.open) - 1
+	}
+	for i := len(b.open) - 1; i >= 0; i-- {
+		if b.open[i].act == "" {
+			return i
+		}
+	}
+	return -1
+}
 
 // dropAnchor reports the open wait, if any, as never ended.
 func (b *Builder) dropAnchor(site string) {
