@@ -55,6 +55,8 @@ func (e *enc) dist(d *dist) {
 	e.u128(d.sumsq)
 	e.iv(d.min)
 	e.iv(d.max)
+	e.u128(d.lq)
+	e.u128(d.lq2)
 	if d.exact != nil {
 		e.uv(0)
 		vs := slices.Sorted(maps.Keys(d.exact))
@@ -261,6 +263,7 @@ func (d *dec) distinct() *distinct {
 
 func (d *dec) dist() *dist {
 	x := &dist{n: d.uv(), zero: d.uv(), sum: d.u128(), sumsq: d.u128(), min: d.iv(), max: d.iv()}
+	x.lq, x.lq2 = d.u128(), d.u128()
 	switch d.uv() {
 	case 0:
 		n := d.count(2)

@@ -3,6 +3,7 @@ package summary
 import (
 	"maps"
 	"math"
+	"math/big"
 	"slices"
 	"time"
 
@@ -127,7 +128,9 @@ type QueueSummary struct {
 }
 
 // Lognormal is the maximum-likelihood lognormal fit of the positive
-// durations, with the Kolmogorov-Smirnov distance of the fit.
+// durations (exact: from running moments of their logarithms), with the
+// Kolmogorov-Smirnov distance of the fit (from the exact values up to
+// ExactValues distinct ones, then from the sketch).
 type Lognormal struct {
 	N       uint64  `json:"n"`
 	MeanLog float64 `json:"meanlog"`
@@ -413,30 +416,31 @@ func durationsOf(d *dist) Durations {
 }
 
 func lognormalOf(d *dist) *Lognormal {
-	pts := d.points()
-	if len(pts) > 0 && pts[0].v == 0 {
-		pts = pts[1:]
-	}
 	n := d.n - d.zero
 	if n == 0 {
 		return nil
 	}
-	var s float64
-	for _, p := range pts {
-		s += float64(p.c) * math.Log(p.v)
-	}
-	mu := s / float64(n)
-	var q float64
-	for _, p := range pts {
-		x := math.Log(p.v) - mu
-		q += float64(p.c) * x * x
-	}
-	sd := math.Sqrt(q / float64(n))
+	// The MLE from the exact sums of the (fixed-point) logarithms: meanlog
+	// = Σq/n, sdlog² = (Σq² − (Σq)²/n)/n, in microseconds, then moved to
+	// seconds (− ln 10⁶), whatever the size of the sample.
+	nb := new(big.Int).SetUint64(n)
+	sq := d.lq.big()
+	num := new(big.Int).Mul(d.lq2.big(), nb) // n·Σq² − (Σq)²
+	num.Sub(num, new(big.Int).Mul(sq, sq))
+	v, _ := new(big.Float).Quo(new(big.Float).SetInt(num), new(big.Float).SetInt(new(big.Int).Mul(nb, nb))).Float64()
+	m, _ := new(big.Float).Quo(new(big.Float).SetInt(sq), new(big.Float).SetInt(nb)).Float64()
+	mu := m/lnScale - math.Log(usPerSec)
+	sd := math.Sqrt(max(v, 0)) / lnScale
 	ln := &Lognormal{N: n, MeanLog: mu, SDLog: sd}
 	if sd > 0 {
+		// The KS distance is taken against the distribution's points:
+		// exact values up to ExactValues distinct ones, then the sketch's
+		// buckets (relative error 0.5%).
+		pts := d.points()
+		if len(pts) > 0 && pts[0].v == 0 {
+			pts = pts[1:]
+		}
 		ln.KS = ksCounts(pts, n, func(x float64) float64 { return LognormalCDF(x, mu, sd) })
-	} else {
-		ln.KS = 0
 	}
 	return ln
 }
