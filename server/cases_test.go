@@ -78,6 +78,20 @@ func TestSepsisCases(t *testing.T) {
 			s.Cases, s.LengthOfStay.N, s.LengthOfStay.Mean, s.LengthOfStay.Min, s.LengthOfStay.Max, s.Resources.Value)
 	}
 
+	// Events per case 3..185, mean 14.49 (published). The gaps between
+	// consecutive events of a case sum to the case durations, so their mean
+	// is the published total 2.582720637E9 s over 15214 - 1050 gaps.
+	if ev := s.EventsPerCase; ev.N != 1050 || ev.Min != 3 || ev.Max != 185 || math.Abs(ev.Mean-14.49) > 0.005 {
+		t.Errorf("events per case %+v, published 3..185, mean 14.49", ev)
+	}
+	if b := s.BetweenEvents; b.N != 15214-1050 || math.Abs(b.Mean-2.582720637e9/(15214-1050)) > 1e-3 {
+		t.Errorf("between events n %d mean %.4f, want %d and %.4f", b.N, b.Mean, 15214-1050, 2.582720637e9/(15214-1050))
+	}
+	// A log of completions alone: no waits, no services, and it says so.
+	if len(s.NotMeasurable) != 2 || s.NotMeasurable[0].Figure != "waits" || s.NotMeasurable[1].Figure != "services" {
+		t.Errorf("not measurable %+v, want waits and services", s.NotMeasurable)
+	}
+
 	// The case table over HTTP, through Arrow: one row per case id, each
 	// with the events and duration the standard library reads in the raw
 	// file (Europe/Amsterdam wall clock, as the README says).
