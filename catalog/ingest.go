@@ -34,6 +34,8 @@ type IngestOptions struct {
 	// upload replaces. Empty means the sites the upload holds. With sites
 	// given, an upload without rows removes their events in the window.
 	Sites []string
+
+	held *heldFilter // set by Ingest: the upload's events against the latest version
 }
 
 // Validate checks the options before any byte is read.
@@ -172,6 +174,17 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		}
 	}
 
+	// From here to the commit the dataset's latest version stays the one
+	// the upload's events are compared with.
+	unlock := s.lockDataset(ds.Ref())
+	defer unlock()
+	hf, err := s.heldFilterFor(ctx, ds, prof, opt.Mode)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	defer hf.close()
+	opt.held = hf
+
 	sw, err := newSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, pz.KeyID())
 	if err != nil {
 		return nil, err
@@ -179,18 +192,19 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	defer sw.Remove()
 	win := newWindowCheck(opt)
 	sacc := summary.New(summaryOptions(ds))
-	err = srt.Finish(func(e *schema.Event) error {
+	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
 		acc.Observe(e)
 		sacc.Observe(e)
 		win.observe(e)
 		return sw.Write(e)
-	})
+	}))
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	rep := acc.Report()
 	rep.UnmappedColumns = up.Unmapped
 	up.Report = rep
+	up.Events = hf.uploadCounts()
 	removeOnly := removing(opt) && rep.Rows.Total == 0
 	reject := func(uerr *UploadError, err error) (*IngestResult, error) {
 		up.Status = UploadRejected
@@ -203,14 +217,17 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		return &IngestResult{Upload: up}, err
 	}
 	switch {
-	case sw.rows == 0 && !removeOnly:
+	case hf.counts.Read == 0 && !removeOnly:
 		return reject(nil, fmt.Errorf("no valid rows among %d: %w", rep.Rows.Total, ErrRejected))
-	case rep.RejectedShare() > ds.RejectAbove:
+	case hf.rejectedShare(rep.Rows.Rejected) > ds.RejectAbove:
 		return reject(nil, fmt.Errorf("%.2f%% of rows are invalid, above the dataset's threshold of %.2f%%: %w",
-			100*rep.RejectedShare(), 100*ds.RejectAbove, ErrRejected))
+			100*hf.rejectedShare(rep.Rows.Rejected), 100*ds.RejectAbove, ErrRejected))
 	case win.outside > 0:
 		ue := win.uploadError()
 		return reject(ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
+	case hf.refusal() != nil:
+		ue := hf.refusal()
+		return reject(ue, fmt.Errorf("line %d: %s: %s: %w", ue.Line, ue.Rule, ue.Message, ErrRejected))
 	}
 	if opt.Mode == ModeReplaceWindow && len(opt.Sites) == 0 {
 		opt.Sites = win.siteList()
@@ -248,8 +265,6 @@ func isNoRows(err error) bool {
 // commit lock so that the plan (which may rewrite files) and the
 // transaction see the same parent.
 func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, rep *quality.Report, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
-	unlock := s.lockDataset(ds.Ref())
-	defer unlock()
 	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
 	if errors.Is(err, ErrNotFound) {
 		parent = nil
@@ -261,6 +276,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	defer plan.release()
+	if err := s.removeCorrected(ctx, ds, plan, keyID, opt.held, parent); err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
 	if parent != nil && sameFiles(parent.Manifest.Files, plan.files) {
 		return s.duplicate(ds, *up, parent)
 	}
@@ -271,11 +289,11 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		plan.summaries[entry.SHA256] = sacc
 		plan.reports[entry.SHA256] = rep
 	}
-	vrep, err := s.mergeQuality(ctx, parent, plan, rep, opt.Mode)
+	vrep, err := s.mergeQuality(ctx, parent, plan, rep, mergeMode(opt.Mode, plan))
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
-	vsum, fileSums, err := s.mergeSummary(ctx, ds, parent, plan, plan.summaries, opt.Mode)
+	vsum, fileSums, err := s.mergeSummary(ctx, ds, parent, plan, plan.summaries, mergeMode(opt.Mode, plan))
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
@@ -290,7 +308,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref(), cur.Latest)
 		}
 		nextUpload(&cur, up)
-		up.Alerts = driftAlerts(tx, cur.Ref(), up)
+		up.Alerts = append(driftAlerts(tx, cur.Ref(), up), heldShareAlerts(tx, cur.Ref(), up)...)
 		if entry != nil {
 			for i := range plan.files {
 				if plan.files[i].SHA256 == entry.SHA256 && plan.files[i].Upload == "" {
@@ -302,7 +320,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			Dataset:       cur.Ref(),
 			Version:       cur.Latest + 1,
 			Parent:        cur.Latest,
-			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed},
+			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(plan.removed)},
 			SchemaVersion: schema.Version,
 			ProfileHash:   cur.ProfileHash,
 			KeyID:         keyID,
@@ -493,7 +511,7 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 			return err
 		}
 		nextUpload(&cur, up)
-		up.Alerts = driftAlerts(tx, cur.Ref(), up)
+		up.Alerts = append(driftAlerts(tx, cur.Ref(), up), heldShareAlerts(tx, cur.Ref(), up)...)
 		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {
 			return err
 		}
