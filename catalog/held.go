@@ -108,8 +108,15 @@ func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, prof *schema.Pro
 func (f *heldFilter) close() {
 	if f != nil && f.src != nil {
 		f.src.close()
+		if testHookHeldStats != nil {
+			testHookHeldStats(f.src.stats)
+		}
 	}
 }
+
+// testHookHeldStats, when set by a test, receives the reading statistics
+// of each upload's comparison with held files.
+var testHookHeldStats func(heldStats)
 
 // keep wraps fn, the consumer of the upload's sorted events, so that it
 // sees only the events to store.
@@ -199,15 +206,19 @@ func (f *heldFilter) uploadCounts() *EventCounts {
 	return &c
 }
 
-// lineageCounts returns the counts a version's lineage records.
-func (f *heldFilter) lineageCounts(removed int64) *EventCounts {
+// lineageCounts returns the counts a version's lineage records, given the
+// old events the commit removed; it records those on up's counts too.
+func (f *heldFilter) lineageCounts(up *Upload, removed int64) *EventCounts {
 	if f == nil {
 		return nil
 	}
 	c := f.counts
 	c.Sites = nil
-	if f.policy == ChangesCorrect {
+	if f.policy == ChangesCorrect && f.counts.Changed > 0 {
 		c.Removed = removed
+		if up.Events != nil {
+			up.Events.Removed = removed
+		}
 	}
 	return &c
 }

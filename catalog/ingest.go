@@ -320,7 +320,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			Dataset:       cur.Ref(),
 			Version:       cur.Latest + 1,
 			Parent:        cur.Latest,
-			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(plan.removed)},
+			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(up, plan.removed)},
 			SchemaVersion: schema.Version,
 			ProfileHash:   cur.ProfileHash,
 			KeyID:         keyID,
