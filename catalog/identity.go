@@ -130,6 +130,24 @@ func (c *EventCounts) Sentence(version int) string {
 	return b.String()
 }
 
+// Sentence says what became of an upload in one line: for an accepted
+// one its counts ("v12: 41,003 new events, 287,110 already held, 0
+// changed"), for a duplicate the version that already holds its events;
+// empty for a rejected or failed upload, whose error says why.
+func (u *Upload) Sentence() string {
+	switch {
+	case u.Status == UploadAccepted && u.Events != nil:
+		return u.Events.Sentence(u.Version)
+	case u.Status != UploadDuplicate:
+		return ""
+	case u.Version == 0:
+		return "nothing to store, and the dataset has no version yet"
+	case u.Events == nil:
+		return fmt.Sprintf("v%d already holds this file: the same bytes were sent before; nothing stored", u.Version)
+	}
+	return fmt.Sprintf("v%d already holds every event: %s; nothing stored", u.Version, u.Events.Sentence(0))
+}
+
 // identityHash hashes what makes e itself under id: its site and event
 // id, or (content identity, or no id) every field and the instant.
 func identityHash(h *maphash.Hash, id Identity, e *schema.Event) uint64 {

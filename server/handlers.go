@@ -109,6 +109,7 @@ type createDatasetRequest struct {
 	WindowFrom  *time.Time `json:"window_from"`
 	WindowTo    *time.Time `json:"window_to"`
 	Drafts      bool       `json:"drafts"`
+	Changes     string     `json:"changes"` // refuse (default) or correct
 }
 
 func (s *Server) createDataset(c echo.Context) error {
@@ -118,13 +119,13 @@ func (s *Server) createDataset(c echo.Context) error {
 		return forbidden("create datasets in project " + project)
 	}
 	var req createDatasetRequest
-	if err := decodeJSON(c, &req, `{"name", "title", "profile", "timezone", "reject_above", "window_from", "window_to", "drafts"}`); err != nil {
+	if err := decodeJSON(c, &req, `{"name", "title", "profile", "timezone", "reject_above", "window_from", "window_to", "drafts", "changes"}`); err != nil {
 		return err
 	}
 	d, err := s.cfg.Store.CreateDataset(c.Request().Context(), catalog.DatasetSpec{
 		Project: project, Name: req.Name, Title: req.Title, Profile: []byte(req.Profile),
 		Timezone: req.Timezone, RejectAbove: req.RejectAbove, WindowFrom: req.WindowFrom, WindowTo: req.WindowTo,
-		Drafts: req.Drafts,
+		Drafts: req.Drafts, Changes: catalog.ChangePolicy(req.Changes),
 	}, cl.Subject)
 	if err != nil {
 		return catalogError(err)
@@ -156,6 +157,7 @@ func (s *Server) getDataset(c echo.Context) error {
 type uploadResponse struct {
 	Upload  catalog.Upload   `json:"upload"`
 	Version *catalog.Version `json:"version,omitempty"`
+	Message string           `json:"message"` // what happened, in one line
 }
 
 // upload streams the request body into the catalog's ingest: the body is
@@ -198,7 +200,7 @@ func (s *Server) upload(c echo.Context) error {
 	if res.Upload.Status == catalog.UploadDuplicate {
 		status = http.StatusOK
 	}
-	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version})
+	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version, Message: res.Upload.Sentence()})
 }
 
 // uploadOptions reads an upload's query: filename, mode, and for mode
