@@ -330,43 +330,37 @@ type seriesEvent struct {
 	first, fix int
 }
 
-// series generates the events of every day; a nightly upload is then a
-// pure function of the night.
-func series(o seriesOpt) [][]seriesEvent {
-	r := rand.New(rand.NewPCG(o.Seed, 0x5e1e5))
-	days := make([][]seriesEvent, o.Nights)
+// seriesAt returns event k of day d, a pure function of o, d and k, so
+// that a long series needs no memory.
+func seriesAt(o seriesOpt, d, k int) seriesEvent {
+	r := rand.New(rand.NewPCG(o.Seed^uint64(d)<<32, uint64(k)))
 	step := 24 * time.Hour / time.Duration(o.PerDay)
-	for d := range days {
-		days[d] = make([]seriesEvent, o.PerDay)
-		for k := range days[d] {
-			at := genBase.Add(time.Duration(d)*24*time.Hour + time.Duration(k)*step + time.Duration(r.Int64N(int64(step))))
-			c := d*o.PerDay/5 + k/5
-			ev := seriesEvent{first: d, fix: -1, r: row{
-				[]string{"north", "south"}[c%2], fmt.Sprintf("S-%d", c), fmt.Sprintf("P-%d", c%131), fmt.Sprintf("R-%d", r.IntN(9)),
-				genTypes[k%5], []string{"triage", "consult"}[r.IntN(2)], "q1", at.Format(time.RFC3339Nano),
-				fmt.Sprint(1 + r.IntN(5)), "phone", "home", fmt.Sprintf("e-%d-%d", d, k),
-			}}
-			if r.Float64() < o.Late {
-				ev.first = d + 1 + r.IntN(3)
-			}
-			if r.Float64() < o.Correct {
-				ev.fix = ev.first + 1 + r.IntN(3)
-				ev.fixed = ev.r
-				ev.fixed[10] = "admitted"
-			}
-			days[d][k] = ev
-		}
+	at := genBase.Add(time.Duration(d)*24*time.Hour + time.Duration(k)*step + time.Duration(r.Int64N(int64(step))))
+	c := d*o.PerDay/5 + k/5
+	ev := seriesEvent{first: d, fix: -1, r: row{
+		[]string{"north", "south"}[c%2], fmt.Sprintf("S-%d", c), fmt.Sprintf("P-%d", c%131), fmt.Sprintf("R-%d", r.IntN(9)),
+		genTypes[k%5], []string{"triage", "consult"}[r.IntN(2)], "q1", at.Format(time.RFC3339Nano),
+		fmt.Sprint(1 + r.IntN(5)), "phone", "home", fmt.Sprintf("e-%d-%d", d, k),
+	}}
+	if r.Float64() < o.Late {
+		ev.first = d + 1 + r.IntN(3)
 	}
-	return days
+	if r.Float64() < o.Correct {
+		ev.fix = ev.first + 1 + r.IntN(3)
+		ev.fixed = ev.r
+		ev.fixed[10] = "admitted"
+	}
+	return ev
 }
 
-// night returns the rows of night n's upload: the events of the window's
-// days sent by then, corrected ones as corrected, some rows twice.
-func night(o seriesOpt, days [][]seriesEvent, n int) []row {
+// eachNightRow calls fn for the rows of night n's upload: the events of
+// the window's days sent by then, corrected ones as corrected, some rows
+// twice, in time order up to the late ones.
+func eachNightRow(o seriesOpt, n int, fn func(row)) {
 	r := rand.New(rand.NewPCG(o.Seed^uint64(n), 0xc0b1e5))
-	var out []row
 	for d := max(0, n-o.Window+1); d <= n; d++ {
-		for _, ev := range days[d] {
+		for k := 0; k < o.PerDay; k++ {
+			ev := seriesAt(o, d, k)
 			if ev.first > n {
 				continue
 			}
@@ -374,12 +368,19 @@ func night(o seriesOpt, days [][]seriesEvent, n int) []row {
 			if ev.fix >= 0 && n >= ev.fix {
 				x = ev.fixed
 			}
-			out = append(out, x)
+			fn(x)
 			if r.Float64() < o.Copies {
-				out = append(out, x)
+				fn(x)
 			}
 		}
 	}
+}
+
+// night returns the rows of night n's upload, shuffled.
+func night(o seriesOpt, n int) []row {
+	var out []row
+	eachNightRow(o, n, func(x row) { out = append(out, x) })
+	r := rand.New(rand.NewPCG(o.Seed^uint64(n), 0x5401e))
 	r.Shuffle(len(out), func(i, j int) { out[i], out[j] = out[j], out[i] })
 	return out
 }
@@ -390,7 +391,6 @@ func night(o seriesOpt, days [][]seriesEvent, n int) []row {
 // id, corrections taken), and every lineage count adds up.
 func TestHeldThirtyNightSeries(t *testing.T) {
 	o := seriesOpt{Seed: 1, Nights: 30, PerDay: 120, Window: 7, Late: 0.03, Correct: 0.01, Copies: 0.005}
-	days := series(o)
 	e := newEnv(t, func(o *Options) { o.RunEvents = 300; o.RowGroupRows = 100 })
 	e.dataset(t, "p", "content", nil)
 	e.dataset(t, "p", "ids", func(s *DatasetSpec) { s.Profile = []byte(stableProfile); s.Changes = ChangesCorrect })
@@ -398,7 +398,7 @@ func TestHeldThirtyNightSeries(t *testing.T) {
 	var sent []row
 	latest := map[string]row{}
 	for n := 0; n < o.Nights; n++ {
-		rows := night(o, days, n)
+		rows := night(o, n)
 		sent = append(sent, rows...)
 		for _, r := range rows {
 			latest[r[11]] = r
@@ -476,18 +476,17 @@ func TestHeldThirtyNightSeries(t *testing.T) {
 // is all held (a duplicate).
 func TestHeldShareJumpAlert(t *testing.T) {
 	o := seriesOpt{Seed: 2, Nights: 12, PerDay: 60, Window: 2}
-	days := series(o)
 	e := newEnv(t, nil)
 	e.dataset(t, "p", "d", nil)
 	for n := 0; n < 10; n++ {
-		res := e.ingest(t, "p", "d", csvBytes(header, night(o, days, n)), "n.csv")
+		res := e.ingest(t, "p", "d", csvBytes(header, night(o, n)), "n.csv")
 		if len(res.Upload.Alerts) > 0 {
 			t.Errorf("night %d: alerts %+v", n, res.Upload.Alerts)
 		}
 	}
 	var all []row
 	for n := 0; n < 10; n++ {
-		all = append(all, night(seriesOpt{Window: 1}, days, n)...)
+		all = append(all, night(seriesOpt{Seed: o.Seed, PerDay: o.PerDay, Window: 1}, n)...)
 	}
 	res := e.ingest(t, "p", "d", csvBytes(header, all), "everything.csv")
 	if res.Upload.Status != UploadDuplicate || res.Upload.Events.Held != int64(len(all)) {
