@@ -150,7 +150,7 @@ func TestHeldDayThenLateEvent(t *testing.T) {
 	if l := res.Version.Manifest.Lineage.Events; l == nil || l.New != 1 || l.Held != 300 || l.Sites != nil {
 		t.Errorf("lineage counts %+v", l)
 	}
-	if got := ev.Sentence(res.Version.Number); got != "v2: 1 new events, 300 already held, 0 changed" {
+	if got := ev.Sentence(res.Version.Number); got != "v2: 1 new event, 300 already held, 0 changed" {
 		t.Errorf("sentence %q", got)
 	}
 	got := e.arrowRows(t, res.Version)

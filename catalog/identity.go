@@ -1,12 +1,15 @@
 package catalog
 
 import (
+	"context"
 	"fmt"
 	"hash/maphash"
 	"strings"
 
 	"golang.org/x/text/language"
 	"golang.org/x/text/message"
+
+	bolt "go.etcd.io/bbolt"
 
 	"github.com/flowcat-catalog/flowcat/schema"
 )
@@ -61,6 +64,34 @@ func ParseChangePolicy(s string) (ChangePolicy, error) {
 		return p, nil
 	}
 	return "", fmt.Errorf("change policy %q: want refuse or correct: %w", truncate(s, 40), ErrInvalid)
+}
+
+// SetChangePolicy sets a dataset's change policy; uploads that start
+// after it use the new one. An unknown policy fails with ErrInvalid, an
+// unknown dataset with ErrNotFound.
+func (s *Store) SetChangePolicy(ctx context.Context, project, dataset string, p ChangePolicy, by string) (*Dataset, error) {
+	p, err := ParseChangePolicy(string(p))
+	if err != nil {
+		return nil, err
+	}
+	var d Dataset
+	ref := project + "/" + dataset
+	err = s.db.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bucketDatasets)
+		if err := getJSON(b, []byte(ref), &d, "dataset "+ref); err != nil {
+			return err
+		}
+		d.Changes = p
+		if err := putJSON(b, []byte(ref), &d); err != nil {
+			return err
+		}
+		return audit(tx, s.opt.Now(), by, "dataset.changes", fmt.Sprintf("%s (%s)", ref, p))
+	})
+	if err != nil {
+		return nil, err
+	}
+	s.opt.Logger.Info("dataset change policy set", "dataset", ref, "changes", p, "by", by)
+	return &d, nil
 }
 
 // changePolicy is the dataset's policy, refuse when unset.
@@ -120,14 +151,21 @@ func (c *EventCounts) Sentence(version int) string {
 	if version > 0 {
 		fmt.Fprintf(&b, "v%d: ", version)
 	}
-	b.WriteString(printer.Sprintf("%d new events, %d already held, %d changed", c.New, c.Held, c.Changed))
+	b.WriteString(printer.Sprintf("%d new %s, %d already held, %d changed", c.New, plural(c.New, "event", "events"), c.Held, c.Changed))
 	if c.Removed > 0 {
-		b.WriteString(printer.Sprintf(" (%d old events replaced)", c.Removed))
+		b.WriteString(printer.Sprintf(" (%d old %s replaced)", c.Removed, plural(c.Removed, "event", "events")))
 	}
 	if c.Copies > 0 {
-		b.WriteString(printer.Sprintf(", %d copies within the file stored once", c.Copies))
+		b.WriteString(printer.Sprintf(", %d %s within the file stored once", c.Copies, plural(c.Copies, "copy", "copies")))
 	}
 	return b.String()
+}
+
+func plural(n int64, one, many string) string {
+	if n == 1 {
+		return one
+	}
+	return many
 }
 
 // Sentence says what became of an upload in one line: for an accepted

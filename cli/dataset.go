@@ -102,6 +102,37 @@ func newDatasetCmd(e *env) *cobra.Command {
 			return tw.Flush()
 		},
 	}
-	c.AddCommand(create, list)
+	changesCmd := &cobra.Command{
+		Use:   "changes PROJECT/DATASET refuse|correct",
+		Short: "Set what an upload that changes a held event (stable event_id) does (curator)",
+		Long: `With a profile that declares event_id stable, an upload that re-sends a held event with
+other content is refused, naming its lines and fields (refuse, the default), or taken as a
+correction that replaces the old event in the new version (correct).`,
+		Args: cobra.ExactArgs(2),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := parseRef(args[0], false)
+			if err != nil {
+				return err
+			}
+			if _, err := catalog.ParseChangePolicy(args[1]); err != nil || args[1] == "" {
+				return usageErr("dataset changes: %q: want refuse or correct", args[1])
+			}
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			var d catalog.Dataset
+			if err := cl.postJSON(cmd.Context(), r.path()+"/changes", map[string]string{"changes": args[1]}, &d); err != nil {
+				return err
+			}
+			if e.json {
+				return writeJSON(e.stdout, d)
+			}
+			fmt.Fprintf(e.stdout, "%s: changed events are now %s\n", d.Ref(), map[catalog.ChangePolicy]string{
+				catalog.ChangesRefuse: "refused", catalog.ChangesCorrect: "taken as corrections"}[d.Changes])
+			return nil
+		},
+	}
+	c.AddCommand(create, list, changesCmd)
 	return c
 }

@@ -145,6 +145,29 @@ func (s *Server) dataset(c echo.Context, may func(*Claims, string, string) bool,
 	return d, nil
 }
 
+// setChanges sets a dataset's change policy (curator): {"changes":
+// "refuse" | "correct"}.
+func (s *Server) setChanges(c echo.Context) error {
+	d, err := s.dataset(c, func(cl *Claims, project, _ string) bool { return cl.CanCurate(project) }, "set the change policy of")
+	if err != nil {
+		return err
+	}
+	var req struct {
+		Changes string `json:"changes"`
+	}
+	if err := decodeJSON(c, &req, `{"changes": "refuse" | "correct"}`); err != nil {
+		return err
+	}
+	if req.Changes == "" {
+		return fail(http.StatusBadRequest, "invalid", "changes: want refuse or correct")
+	}
+	nd, err := s.cfg.Store.SetChangePolicy(c.Request().Context(), d.Project, d.Name, catalog.ChangePolicy(req.Changes), claims(c).Subject)
+	if err != nil {
+		return catalogError(err)
+	}
+	return c.JSON(http.StatusOK, nd)
+}
+
 func (s *Server) getDataset(c echo.Context) error {
 	d, err := s.dataset(c, (*Claims).CanSeeDataset, "see dataset")
 	if err != nil {
@@ -191,6 +214,9 @@ func (s *Server) upload(c echo.Context) error {
 	case errors.Is(err, catalog.ErrRejected):
 		he := fail(http.StatusUnprocessableEntity, "rejected", "%s", err.Error())
 		rejectedDetail(&he.body, res.Upload)
+		if ue := res.Upload.Error; ue != nil { // outside the window, changed events
+			he.body.Rule, he.body.Line, he.body.Column = ue.Rule, ue.Line, ue.Column
+		}
 		he.body.Upload = res.Upload
 		return he
 	case err != nil:
