@@ -526,3 +526,27 @@ func TestHeldReadsOnlyOverlap(t *testing.T) {
 		t.Errorf("held reading %+v, want one file, one row group of 50 rows", st)
 	}
 }
+
+// A site whose events of the night were all held has no events in the
+// upload's report: no drift alert may be raised for it (its completeness
+// would read 0).
+func TestHeldSiteAllHeldNoDriftAlert(t *testing.T) {
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "d", nil)
+	for d := 0; d < 7; d++ {
+		rows := append(mkRows("north", fmt.Sprintf("N%d-", d), d, 60), mkRows("south", fmt.Sprintf("S%d-", d), d, 60)...)
+		if res := e.ingest(t, "p", "d", csvBytes(header, rows), "n.csv"); len(res.Upload.Alerts) > 0 {
+			t.Fatalf("night %d: alerts %+v", d, res.Upload.Alerts)
+		}
+	}
+	rows := append(mkRows("north", "N7-", 7, 60), mkRows("south", "S6-", 6, 60)...)
+	res := e.ingest(t, "p", "d", csvBytes(header, rows), "n.csv")
+	if res.Upload.Status != UploadAccepted || res.Upload.Events.Held != 60 {
+		t.Fatalf("%s %+v", res.Upload.Status, res.Upload.Events)
+	}
+	for _, a := range res.Upload.Alerts {
+		if a.Code != AlertHeldShareJump {
+			t.Errorf("alert %s at %s: %s", a.Code, a.Site, a.Sentence)
+		}
+	}
+}
