@@ -165,6 +165,8 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 		}
 		return false, nil
 	}
+	// The sorter's strings are never reused (it copies what it decodes),
+	// so the upload's event is kept without copying its strings.
 	f.seen.addHashed(h, e, -1, false)
 	old := f.held.find(h, f.id, e)
 	switch {

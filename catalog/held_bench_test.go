@@ -27,7 +27,8 @@ import (
 // reports the ingest time and peak heap of the first night whose upload
 // is a full window (night 7, six days of history) and of the last (29
 // days of history), with their ratios: a nightly upload's cost must not
-// grow with the dataset's history.
+// grow with the dataset's history. FLOWCAT_BENCH_IDENTITY=event_id runs it
+// with a stable event_id and corrections taken.
 func BenchmarkHeldSeries(b *testing.B) {
 	perDay := 20000
 	if s := os.Getenv("FLOWCAT_BENCH_PER_DAY"); s != "" {
@@ -37,6 +38,9 @@ func BenchmarkHeldSeries(b *testing.B) {
 		}
 		perDay = v
 	}
+	// FLOWCAT_BENCH_IDENTITY=event_id: a stable event_id, corrections
+	// taken (the comparison then holds 24 hours of events either side).
+	stable := os.Getenv("FLOWCAT_BENCH_IDENTITY") == "event_id"
 	o := seriesOpt{Seed: 9, Nights: 30, PerDay: perDay, Window: 7, Late: 0.03, Correct: 0.001, Copies: 0.0005}
 	mk, err := anonymize.GenerateMasterKey()
 	if err != nil {
@@ -68,7 +72,11 @@ func BenchmarkHeldSeries(b *testing.B) {
 		if _, err := s.CreateProject(ctx, "bench", "", "bench"); err != nil {
 			b.Fatal(err)
 		}
-		if _, err := s.CreateDataset(ctx, DatasetSpec{Project: "bench", Name: "nightly"}, "bench"); err != nil {
+		spec := DatasetSpec{Project: "bench", Name: "nightly"}
+		if stable {
+			spec.Profile, spec.Changes = []byte(stableProfile), ChangesCorrect
+		}
+		if _, err := s.CreateDataset(ctx, spec, "bench"); err != nil {
 			b.Fatal(err)
 		}
 		pMin, pMax = ^uint64(0), 0
