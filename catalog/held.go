@@ -459,7 +459,7 @@ func (s *heldSource) load(ctx context.Context, lo, hi int64, fn func(*schema.Eve
 		for len(s.pending) > 0 && s.files[s.pending[0]].MinTime.UnixMicro() <= hi {
 			i := s.pending[0]
 			s.pending = s.pending[1:]
-			if s.files[i].MaxTime.UnixMicro() < lo {
+			if mx := s.files[i].MaxTime; !mx.IsZero() && mx.UnixMicro() < lo {
 				s.stats.FilesSkipped++
 				continue
 			}
