@@ -80,8 +80,10 @@ const RuleOutsideWindow = "outside_window"
 // Ingest reads one export file for a dataset from src, as it streams:
 // parse and validate through the dataset's profile, pseudonymize, sort by
 // occurred_at (spilling sorted runs of pseudonymized events to the temp
-// dir), observe quality, write one zstd Parquet file, put it in the blob
-// store and commit a new version. Its files are, by opt.Mode, the latest
+// dir), drop the events the latest version holds already (append) and the
+// copies within the file (see heldFilter), observe quality, write one zstd
+// Parquet file, put it in the blob store and commit a new version. Its
+// files are, by opt.Mode, the latest
 // version's plus the new one (append), the latest version's with the
 // replaced window's rows removed plus the new one (replace-window), or the
 // new one alone (replace-all). Memory is bounded by Options.RunEvents, not
@@ -90,12 +92,14 @@ const RuleOutsideWindow = "outside_window"
 // Options that do not validate fail with ErrInvalid before src is read. A
 // file that cannot be read fails with an error wrapping ErrFileInvalid and
 // a *schema.FileError; one with too many invalid rows (above the dataset's
-// RejectAbove), none valid, or (replace-window) events outside the window
-// fails with ErrRejected. In those cases nothing but the upload record is
+// RejectAbove), none valid, (replace-window) events outside the window, or
+// changed events under a stable event_id (see ChangePolicy) fails with
+// ErrRejected. In those cases nothing but the upload record is
 // stored, and the result carries the upload and its report. Identical bytes
 // appended again, while the latest version still holds the file they made,
 // return the version they made the first time, with status duplicate; so
-// does any upload whose new version would hold the latest one's files.
+// does any upload whose new version would hold the latest one's files (one
+// whose events are all held, say).
 func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions) (*IngestResult, error) {
 	if err := opt.Validate(); err != nil {
 		return nil, err
@@ -261,9 +265,9 @@ func isNoRows(err error) bool {
 	return ok && (fe.Rule == schema.RuleNoRows || fe.Rule == schema.RuleEmptyFile)
 }
 
-// commit makes the new version from the latest one, under the dataset's
-// commit lock so that the plan (which may rewrite files) and the
-// transaction see the same parent.
+// commit makes the new version from the latest one. The caller holds the
+// dataset's commit lock, so that the held-event comparison, the plan
+// (which may rewrite files) and the transaction see the same parent.
 func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, rep *quality.Report, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
 	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
 	if errors.Is(err, ErrNotFound) {

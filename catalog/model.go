@@ -49,24 +49,25 @@ type Project struct {
 // Dataset is one stream of uploads from partner sites through one mapping
 // profile. Its versions are numbered from 1.
 type Dataset struct {
-	Project     string  `json:"project"`
-	Name        string  `json:"name"`
-	Title       string  `json:"title,omitempty"`
-	Profile     string  `json:"profile"`      // the mapping profile, YAML as given
-	ProfileHash string  `json:"profile_hash"` // schema.Profile.Hash of the effective profile
-	Timezone    string  `json:"timezone"`     // IANA zone for wall-clock times
-	RejectAbove float64 `json:"reject_above"` // an upload with a larger share of invalid rows is rejected whole
-	Drafts      bool    `json:"drafts"`       // new versions start as drafts, to be published by a curator
+	Project     string     `json:"project"`
+	Name        string     `json:"name"`
+	Title       string     `json:"title,omitempty"`
+	Profile     string     `json:"profile"`      // the mapping profile, YAML as given
+	ProfileHash string     `json:"profile_hash"` // schema.Profile.Hash of the effective profile
+	Timezone    string     `json:"timezone"`     // IANA zone for wall-clock times
+	RejectAbove float64    `json:"reject_above"` // an upload with a larger share of invalid rows is rejected whole
+	Drafts      bool       `json:"drafts"`       // new versions start as drafts, to be published by a curator
+	WindowFrom  *time.Time `json:"window_from,omitempty"`
+	WindowTo    *time.Time `json:"window_to,omitempty"`
+	CreatedAt   time.Time  `json:"created_at"`
+	CreatedBy   string     `json:"created_by"`
+	Latest      int        `json:"latest_version"` // 0 before the first accepted upload
+	Uploads     int        `json:"uploads"`        // uploads received, accepted or not
+
 	// Changes is what an upload does to a held event it re-sends with other
 	// content, under a stable event_id (see ChangePolicy); empty means
 	// ChangesRefuse.
-	Changes    ChangePolicy `json:"changes,omitempty"`
-	WindowFrom *time.Time   `json:"window_from,omitempty"`
-	WindowTo   *time.Time   `json:"window_to,omitempty"`
-	CreatedAt  time.Time    `json:"created_at"`
-	CreatedBy  string       `json:"created_by"`
-	Latest     int          `json:"latest_version"` // 0 before the first accepted upload
-	Uploads    int          `json:"uploads"`        // uploads received, accepted or not
+	Changes ChangePolicy `json:"changes,omitempty"`
 }
 
 // Ref returns "project/dataset".
