@@ -302,6 +302,7 @@ func TestHeldStableEventIDChanges(t *testing.T) {
 			}
 		}
 	}
+	e.assertTempEmpty(t)
 	// Two contents of one id within one upload: refused under both policies.
 	twice := append(mkRows("north", "B", 3, 10), mkRows("north", "B", 3, 10)[4])
 	twice[10][10] = "home"
@@ -548,5 +549,41 @@ func TestHeldSiteAllHeldNoDriftAlert(t *testing.T) {
 		if a.Code != AlertHeldShareJump {
 			t.Errorf("alert %s at %s: %s", a.Code, a.Site, a.Sentence)
 		}
+	}
+}
+
+// A held file that cannot be read fails the upload with an error naming
+// it; nothing is stored, no hold or temp file is left, and the dataset
+// takes uploads again.
+func TestHeldFileMissing(t *testing.T) {
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "d", nil)
+	ctx := context.Background()
+	v1 := e.ingest(t, "p", "d", csvBytes(header, mkRows("north", "A", 0, 30)), "a.csv")
+	f := v1.Version.Manifest.Files[0]
+	data := e.blobBytes(t, f.SHA256)
+	if err := e.blobs.Delete(ctx, f.SHA256); err != nil {
+		t.Fatal(err)
+	}
+	_, err := e.ingestOpt(t, "p", "d", csvBytes(header, mkRows("north", "A", 0, 31)), IngestOptions{})
+	if err == nil || !strings.Contains(err.Error(), "held events") {
+		t.Fatalf("upload against a missing held file: %v", err)
+	}
+	if v, _ := e.s.Version(ctx, "p", "d", 0); v.Number != 1 {
+		t.Errorf("latest is v%d", v.Number)
+	}
+	e.s.mu.Lock()
+	holds := len(e.s.pending)
+	e.s.mu.Unlock()
+	if holds != 0 {
+		t.Errorf("%d blob holds left", holds)
+	}
+	e.assertTempEmpty(t)
+	if err := e.blobs.Put(ctx, f.SHA256, bytes.NewReader(data)); err != nil {
+		t.Fatal(err)
+	}
+	res := e.ingest(t, "p", "d", csvBytes(header, mkRows("north", "A", 0, 31)), "a2.csv")
+	if res.Upload.Events.New != 1 || res.Upload.Events.Held != 30 {
+		t.Errorf("after the file is back: %+v", res.Upload.Events)
 	}
 }
