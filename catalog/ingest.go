@@ -20,6 +20,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // IngestOptions describe one upload.
@@ -196,8 +197,10 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	defer sw.Remove()
 	win := newWindowCheck(opt)
 	sacc := summary.New(summaryOptions(ds))
-	// The upload's own per-case pass, for its report: its events sorted by
-	// case on disk, each carrying what the time pass found of it.
+	// The upload's events go to the per-case pass (sorted by case on disk),
+	// each carrying what the time pass found of it and marked as the
+	// upload's: the commit runs that pass once over the whole new version,
+	// the upload's own checks and its report riding along.
 	upCases := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
 	defer upCases.Close()
 	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
@@ -208,24 +211,28 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 			return err
 		}
 		line := e.Line
-		e.Line = quality.PackLine(line, fl)
+		e.Line = quality.PackLine(line, fl) | uploadMark
 		err := upCases.Add(e)
 		e.Line = line
 		return err
 	}))
-	if err == nil {
-		_, err = upCases.Run(acc)
-	}
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
-	upCases.Close()
+	// Rows and rejections are known; the per-case figures come with the pass.
 	rep := acc.Report()
 	rep.UnmappedColumns = up.Unmapped
 	up.Report = rep
 	up.Events = hf.uploadCounts()
 	removeOnly := removing(opt) && rep.Rows.Total == 0
 	reject := func(uerr *UploadError, err error) (*IngestResult, error) {
+		// The per-case checks of the upload alone, for its report.
+		if _, perr := upCases.RunSplit(nil, []cases.Observer{acc}); perr != nil {
+			return nil, fmt.Errorf("ingest: %w", perr)
+		}
+		rep = acc.Report()
+		rep.UnmappedColumns = up.Unmapped
+		up.Report = rep
 		up.Status = UploadRejected
 		up.Error = uerr
 		if err := s.recordUpload(ds, &up); err != nil {
@@ -268,7 +275,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	if testHookBeforeCommit != nil {
 		testHookBeforeCommit()
 	}
-	return s.commit(ctx, ds, &up, entry, sacc, rep, qopt, pz.KeyID(), opt)
+	return s.commit(ctx, ds, &up, entry, sacc, &uploadPass{cases: upCases, entry: entry, acc: acc}, qopt, pz.KeyID(), opt)
 }
 
 // removing reports whether opt allows an upload without rows: a
@@ -283,7 +290,7 @@ func isNoRows(err error) bool {
 // commit makes the new version from the latest one. The caller holds the
 // dataset's commit lock, so that the held-event comparison, the plan
 // (which may rewrite files) and the transaction see the same parent.
-func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, rep *quality.Report, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
+func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, upass *uploadPass, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
 	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
 	if errors.Is(err, ErrNotFound) {
 		parent = nil
@@ -306,19 +313,25 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	}
 	if entry != nil {
 		plan.summaries[entry.SHA256] = sacc
+	}
+	// One per-case pass over every file of the new version: its case
+	// table, its summary's case figures and its report's, and the upload's
+	// own per-case checks on the way.
+	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true, upass)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	defer vp.release()
+	rep := upass.acc.Report()
+	rep.UnmappedColumns = up.Unmapped
+	up.Report = rep
+	if entry != nil {
 		plan.reports[entry.SHA256] = rep
 	}
 	merged, err := s.mergeQuality(ctx, parent, plan, rep, mergeMode(opt.Mode, plan))
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
-	// One per-case pass over every file of the new version: its case
-	// table, its summary's case figures and its report's.
-	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true)
-	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
-	}
-	defer vp.release()
 	vrep := quality.WithCases(merged, vp.cases)
 	vsum, fileSums := vp.summary, vp.fileStates
 	received := up.ReceivedAt
