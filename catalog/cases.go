@@ -44,16 +44,6 @@ func NewCasePass(dir string, runEvents int) *CasePass {
 // Add takes one event; its Line may carry quality flags (quality.PackLine).
 func (p *CasePass) Add(e *schema.Event) error {
 	p.events++
-	if e.SubjectID != "" {
-		if err := p.subjects.Add(e.SubjectID); err != nil {
-			return err
-		}
-	}
-	if e.ResourceID != "" {
-		if err := p.resources.Add(e.ResourceID); err != nil {
-			return err
-		}
-	}
 	return p.srt.Add(e)
 }
 
@@ -75,7 +65,22 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	if len(mine) > 0 {
 		bm = cases.NewBuilder(mine...)
 	}
+	var lastSubj, lastRes string
 	err := p.srt.Finish(func(e *schema.Event) error {
+		// Distinct subjects and resources, counted on the way: a case
+		// names the same ones again and again, so most are skipped here.
+		if e.SubjectID != "" && e.SubjectID != lastSubj {
+			if err := p.subjects.Add(e.SubjectID); err != nil {
+				return err
+			}
+			lastSubj = e.SubjectID
+		}
+		if e.ResourceID != "" && e.ResourceID != lastRes {
+			if err := p.resources.Add(e.ResourceID); err != nil {
+				return err
+			}
+			lastRes = e.ResourceID
+		}
 		marked := e.Line&uploadMark != 0
 		e.Line &^= uploadMark
 		if marked && bm != nil {

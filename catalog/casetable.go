@@ -26,13 +26,13 @@ type CaseTableEntry struct {
 // caseTableWriter writes the case table to a temporary file while hashing
 // it, with the snapshot writer's fixed settings. It is a cases.Observer.
 type caseTableWriter struct {
-	f    *os.File
-	h    hash.Hash
-	n    int64
-	w    *parquet.GenericWriter[cases.Row]
-	one  []cases.Row
-	rows int64
-	err  error
+	f     *os.File
+	h     hash.Hash
+	n     int64
+	w     *parquet.GenericWriter[cases.Row]
+	batch []cases.Row
+	rows  int64
+	err   error
 }
 
 func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTableWriter, error) {
@@ -40,7 +40,7 @@ func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTabl
 	if err != nil {
 		return nil, fmt.Errorf("case table: %w", err)
 	}
-	cw := &caseTableWriter{f: f, h: sha256.New(), one: make([]cases.Row, 1)}
+	cw := &caseTableWriter{f: f, h: sha256.New(), batch: make([]cases.Row, 0, 1024)}
 	cw.w = parquet.NewGenericWriter[cases.Row](io.MultiWriter(f, cw.h, countWriter{&cw.n}),
 		parquet.Compression(PageCodec),
 		parquet.MaxRowsPerRowGroup(rowGroupRows),
@@ -56,21 +56,38 @@ func (cw *caseTableWriter) Event(*schema.Event)    {}
 func (cw *caseTableWriter) Wait(*cases.Wait)       {}
 func (cw *caseTableWriter) Service(*cases.Service) {}
 
-// Case writes r's row. Rows are written one at a time: optional columns
-// then keep their nulls exactly (see DEVELOPERS.md on batched writes).
+// Case writes r's row.
 func (cw *caseTableWriter) Case(r *cases.Record) {
+	row := r.Row()
+	cw.add(&row)
+}
+
+func (cw *caseTableWriter) add(row *cases.Row) {
 	if cw.err != nil {
 		return
 	}
-	cw.one[0] = r.Row()
-	if _, err := cw.w.Write(cw.one); err != nil {
-		cw.err = fmt.Errorf("case table: %w", err)
-	}
+	cw.batch = append(cw.batch, *row)
 	cw.rows++
+	if len(cw.batch) == cap(cw.batch) {
+		cw.flush()
+	}
+}
+
+// flush writes the batch. Optional columns are pointers, which keep their
+// nulls exactly in batches (TestCaseRowNulls reads them back with Arrow).
+func (cw *caseTableWriter) flush() {
+	if cw.err == nil && len(cw.batch) > 0 {
+		if _, err := cw.w.Write(cw.batch); err != nil {
+			cw.err = fmt.Errorf("case table: %w", err)
+		}
+	}
+	clear(cw.batch)
+	cw.batch = cw.batch[:0]
 }
 
 // Finish completes and syncs the file and returns its entry.
 func (cw *caseTableWriter) Finish() (*CaseTableEntry, error) {
+	cw.flush()
 	if cw.err != nil {
 		return nil, cw.err
 	}

@@ -9,6 +9,7 @@ import (
 	"io"
 	"os"
 	"slices"
+	"strings"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -29,16 +30,17 @@ import (
 // size of the upload.
 type sorter struct {
 	// byCase orders by case instead (cases.Less), for the per-case pass.
-	byCase bool
-	dir    string
-	max    int
-	fanIn  int
-	buf    []schema.Event
-	keys   []sortKey
-	runs   []*os.File
-	enc    []byte
-	inter  map[string]string
-	bytes  int // string bytes held in buf
+	byCase   bool
+	dir      string
+	max      int
+	fanIn    int
+	buf      []schema.Event
+	keys     []sortKey
+	caseKeys []caseKey
+	runs     []*os.File
+	enc      []byte
+	inter    map[string]string
+	bytes    int // string bytes held in buf
 }
 
 const (
@@ -81,6 +83,16 @@ func (s *sorter) Add(e *schema.Event) error {
 			return err
 		}
 	}
+	if s.buf == nil {
+		// The buffer reaches max events before it spills: allocate it
+		// once, not by doubling (a file of fewer events never gets here
+		// beyond its size, up to the first 4096).
+		s.buf = make([]schema.Event, 0, min(s.max, 4096))
+	} else if len(s.buf) == cap(s.buf) && cap(s.buf) < s.max {
+		nb := make([]schema.Event, len(s.buf), s.max)
+		copy(nb, s.buf)
+		s.buf = nb
+	}
 	s.buf = append(s.buf, *e)
 	s.bytes += eventBytes(e)
 	return nil
@@ -103,6 +115,15 @@ func lessEvent(a, b *schema.Event) int {
 		return 1
 	}
 	return 0
+}
+
+// caseKey is what a sorter by case sorts its buffer by.
+type caseKey struct {
+	id   string
+	sec  int64
+	nsec int32
+	rank int8
+	idx  int32
 }
 
 // sortKey is what the buffer is sorted by: sorting small keys rather than
@@ -140,15 +161,36 @@ func cmpInt(a, b int64) int {
 func (s *sorter) order() []sortKey {
 	s.keys = s.keys[:0]
 	if s.byCase {
+		// Keys hold what cases.Less compares first, so most comparisons
+		// touch no event; full ties fall back to cases.Less.
+		ck := s.caseKeys[:0]
 		for i := range s.buf {
-			s.keys = append(s.keys, sortKey{idx: int32(i)})
+			e := &s.buf[i]
+			ck = append(ck, caseKey{id: e.CaseID, sec: e.OccurredAt.Unix(), nsec: int32(e.OccurredAt.Nanosecond()), rank: int8(e.Type.Rank()), idx: int32(i)})
 		}
-		slices.SortFunc(s.keys, func(a, b sortKey) int {
+		slices.SortFunc(ck, func(a, b caseKey) int {
+			if c := strings.Compare(a.id, b.id); c != 0 {
+				return c
+			}
+			if a.sec != b.sec {
+				return cmpInt(a.sec, b.sec)
+			}
+			if a.nsec != b.nsec {
+				return cmpInt(int64(a.nsec), int64(b.nsec))
+			}
+			if a.rank != b.rank {
+				return int(a.rank) - int(b.rank)
+			}
 			if c := cases.Less(&s.buf[a.idx], &s.buf[b.idx]); c != 0 {
 				return c
 			}
 			return cmpInt(int64(a.idx), int64(b.idx))
 		})
+		for _, k := range ck {
+			s.keys = append(s.keys, sortKey{idx: k.idx})
+		}
+		clear(ck) // drop string references
+		s.caseKeys = ck[:0]
 		return s.keys
 	}
 	for i := range s.buf {
