@@ -42,9 +42,13 @@ func NewCasePass(dir string, runEvents int) *CasePass {
 }
 
 // Add takes one event; its Line may carry quality flags (quality.PackLine).
+// The fields no per-case figure uses (priority, channel, outcome, event_id)
+// are not kept: the sort by case carries less.
 func (p *CasePass) Add(e *schema.Event) error {
 	p.events++
-	return p.srt.Add(e)
+	c := *e
+	c.Priority, c.Channel, c.Outcome, c.EventID = "", "", "", ""
+	return p.srt.Add(&c)
 }
 
 // uploadMark, set in an event's Line, marks the events of the upload

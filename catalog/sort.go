@@ -30,17 +30,18 @@ import (
 // size of the upload.
 type sorter struct {
 	// byCase orders by case instead (cases.Less), for the per-case pass.
-	byCase   bool
-	dir      string
-	max      int
-	fanIn    int
-	buf      []schema.Event
-	keys     []sortKey
-	caseKeys []caseKey
-	runs     []*os.File
-	enc      []byte
-	inter    map[string]string
-	bytes    int // string bytes held in buf
+	byCase  bool
+	dir     string
+	max     int
+	fanIn   int
+	buf     []schema.Event
+	spare   []schema.Event // the other buffer, while one is spilled
+	work    spillWork      // used by one spill at a time
+	pending chan error     // the spill in the background, if any
+	runs    []*os.File
+	enc     []byte
+	inter   map[string]string
+	bytes   int // string bytes held in buf
 }
 
 const (
@@ -157,15 +158,22 @@ func cmpInt(a, b int64) int {
 	return 0
 }
 
-// order returns the buffer's indexes in lessEvent order.
-func (s *sorter) order() []sortKey {
-	s.keys = s.keys[:0]
+// spillWork is the scratch space of one sort of a buffer.
+type spillWork struct {
+	keys     []sortKey
+	caseKeys []caseKey
+	enc      []byte
+}
+
+// orderOf returns buf's indexes in the sorter's order.
+func (s *sorter) orderOf(buf []schema.Event, w *spillWork) []sortKey {
+	w.keys = w.keys[:0]
 	if s.byCase {
 		// Keys hold what cases.Less compares first, so most comparisons
 		// touch no event; full ties fall back to cases.Less.
-		ck := s.caseKeys[:0]
-		for i := range s.buf {
-			e := &s.buf[i]
+		ck := w.caseKeys[:0]
+		for i := range buf {
+			e := &buf[i]
 			ck = append(ck, caseKey{id: e.CaseID, sec: e.OccurredAt.Unix(), nsec: int32(e.OccurredAt.Nanosecond()), rank: int8(e.Type.Rank()), idx: int32(i)})
 		}
 		slices.SortFunc(ck, func(a, b caseKey) int {
@@ -181,24 +189,24 @@ func (s *sorter) order() []sortKey {
 			if a.rank != b.rank {
 				return int(a.rank) - int(b.rank)
 			}
-			if c := cases.Less(&s.buf[a.idx], &s.buf[b.idx]); c != 0 {
+			if c := cases.Less(&buf[a.idx], &buf[b.idx]); c != 0 {
 				return c
 			}
 			return cmpInt(int64(a.idx), int64(b.idx))
 		})
 		for _, k := range ck {
-			s.keys = append(s.keys, sortKey{idx: k.idx})
+			w.keys = append(w.keys, sortKey{idx: k.idx})
 		}
 		clear(ck) // drop string references
-		s.caseKeys = ck[:0]
-		return s.keys
+		w.caseKeys = ck[:0]
+		return w.keys
 	}
-	for i := range s.buf {
-		t := s.buf[i].OccurredAt
-		s.keys = append(s.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), line: s.buf[i].Line, idx: int32(i)})
+	for i := range buf {
+		t := buf[i].OccurredAt
+		w.keys = append(w.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), line: buf[i].Line, idx: int32(i)})
 	}
-	slices.SortFunc(s.keys, cmpKey)
-	return s.keys
+	slices.SortFunc(w.keys, cmpKey)
+	return w.keys
 }
 
 func (s *sorter) newRun() (*os.File, error) {
@@ -210,24 +218,53 @@ func (s *sorter) newRun() (*os.File, error) {
 	return f, nil
 }
 
+// spill hands the full buffer to a goroutine that sorts it and writes it
+// as a run, and goes on with the other buffer: reading and sorting overlap
+// on two cores. One spill runs at a time, so at most two buffers exist.
 func (s *sorter) spill() error {
+	if err := s.wait(); err != nil {
+		return err
+	}
 	f, err := s.newRun()
 	if err != nil {
 		return err
 	}
+	buf := s.buf
+	s.buf, s.spare = s.spare, nil
+	s.bytes = 0
+	done := make(chan error, 1)
+	s.pending = done
+	go func() {
+		err := s.writeRun(f, buf, &s.work)
+		clear(buf) // drop string references
+		s.spare = buf[:0]
+		done <- err
+	}()
+	return nil
+}
+
+// wait waits for the spill in the background, if any.
+func (s *sorter) wait() error {
+	if s.pending == nil {
+		return nil
+	}
+	err := <-s.pending
+	s.pending = nil
+	return err
+}
+
+// writeRun writes buf, sorted, to f.
+func (s *sorter) writeRun(f *os.File, buf []schema.Event, wk *spillWork) error {
 	w := bufio.NewWriterSize(f, runBufSize)
-	for _, k := range s.order() {
-		s.enc = encodeEvent(s.enc[:0], &s.buf[k.idx])
-		if _, err := w.Write(s.enc); err != nil {
+	for _, k := range s.orderOf(buf, wk) {
+		wk.enc = encodeEvent(wk.enc[:0], &buf[k.idx])
+		if _, err := w.Write(wk.enc); err != nil {
 			return fmt.Errorf("sort: %w", err)
 		}
 	}
 	if err := w.Flush(); err != nil {
 		return fmt.Errorf("sort: %w", err)
 	}
-	clear(s.buf) // drop string references
-	s.buf = s.buf[:0]
-	s.bytes = 0
 	return nil
 }
 
@@ -235,7 +272,7 @@ func (s *sorter) spill() error {
 // valid during the call.
 func (s *sorter) Finish(fn func(*schema.Event) error) error {
 	if len(s.runs) == 0 {
-		for _, k := range s.order() {
+		for _, k := range s.orderOf(s.buf, &s.work) {
 			if err := fn(&s.buf[k.idx]); err != nil {
 				return err
 			}
@@ -247,7 +284,10 @@ func (s *sorter) Finish(fn func(*schema.Event) error) error {
 			return err
 		}
 	}
-	s.buf, s.keys = nil, nil // the merge needs none of it
+	if err := s.wait(); err != nil {
+		return err
+	}
+	s.buf, s.spare, s.work = nil, nil, spillWork{} // the merge needs none of it
 	for len(s.runs) > s.fanIn {
 		if err := s.mergeOldest(); err != nil {
 			return err
@@ -324,6 +364,10 @@ func (s *sorter) merge(runs []*os.File, fn func(*schema.Event) error) error {
 // Close deletes the runs.
 func (s *sorter) Close() error {
 	var errs []error
+	if s.pending != nil {
+		<-s.pending // its error is moot: the runs go
+		s.pending = nil
+	}
 	for _, f := range s.runs {
 		f.Close()
 		if err := os.Remove(f.Name()); err != nil && !errors.Is(err, os.ErrNotExist) {
@@ -331,16 +375,19 @@ func (s *sorter) Close() error {
 		}
 	}
 	s.runs = nil
-	s.buf = nil
+	s.buf, s.spare = nil, nil
 	return errors.Join(errs...)
 }
 
 type run struct {
-	less  func(a, b *schema.Event) int
-	r     *bufio.Reader
-	ev    schema.Event
-	inter map[string]string
-	tmp   []byte
+	// lastCase and lastSubj are the previous event's: in a run sorted by
+	// case the next event mostly names them again, and reuses the string.
+	lastCase, lastSubj string
+	less               func(a, b *schema.Event) int
+	r                  *bufio.Reader
+	ev                 schema.Event
+	inter              map[string]string
+	tmp                []byte
 }
 
 type runHeap []*run
@@ -414,13 +461,36 @@ func (r *run) next() (bool, error) {
 		}
 		return string(r.tmp)
 	}
+	// strLast reads a string that mostly repeats the previous event's (a
+	// case id in a run sorted by case): equal bytes reuse it, unallocated.
+	strLast := func(last *string) string {
+		if err != nil {
+			return ""
+		}
+		var n uint64
+		n, err = binary.ReadUvarint(r.r)
+		if err != nil || n == 0 {
+			return ""
+		}
+		if cap(r.tmp) < int(n) {
+			r.tmp = make([]byte, n)
+		}
+		r.tmp = r.tmp[:n]
+		if _, err = io.ReadFull(r.r, r.tmp); err != nil {
+			return ""
+		}
+		if string(r.tmp) != *last {
+			*last = string(r.tmp)
+		}
+		return *last
+	}
 	if _, perr := r.r.Peek(1); perr == io.EOF {
 		return false, nil
 	}
 	e := &r.ev
 	e.Site = str(true)
-	e.CaseID = str(false)
-	e.SubjectID = str(false)
+	e.CaseID = strLast(&r.lastCase)
+	e.SubjectID = strLast(&r.lastSubj)
 	e.ResourceID = str(true)
 	e.Type = schema.EventType(str(true))
 	e.Activity = str(true)
