@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/csv"
+	"encoding/json"
 	"fmt"
 	"io"
 	"testing"
@@ -12,6 +13,7 @@ import (
 	"github.com/apache/arrow-go/v18/parquet/file"
 	"github.com/parquet-go/parquet-go"
 
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -84,6 +86,21 @@ func TestInstantsRoundTrip(t *testing.T) {
 			checkTimes(t, "Events from the second instant", eventTimes(evs), want[1:])
 			evs, _ = collect(t, e, v.Manifest.Files, Filter{To: want[1]})
 			checkTimes(t, "Events before the second instant", eventTimes(evs), want[:1])
+
+			// A filtered summary is built over the filtered event stream.
+			acc := summary.New(summary.Options{Location: time.UTC})
+			for i := range evs {
+				acc.Observe(&evs[i])
+			}
+			sum := acc.SummaryFor(summary.Selection{})
+			if sum.From == nil || !sum.From.Equal(want[0]) || !sum.To.Equal(want[0]) || sum.Events != 1 {
+				t.Errorf("summary of the first event: %+v", sum)
+			}
+			if b, err := json.Marshal(sum); err != nil {
+				t.Errorf("summary does not encode: %v", err)
+			} else if !bytes.Contains(b, []byte(`"from":"`+tc.at[0][:19])) {
+				t.Errorf("summary JSON does not hold %s: %.300s", tc.at[0], b)
+			}
 
 			var out bytes.Buffer
 			if _, err := WriteCSV(ctx, &out, Source{Open: e.opener(), TempDir: e.tmp}, v.Manifest.Files, Filter{Columns: []schema.Field{schema.FieldOccurredAt}}); err != nil {
