@@ -71,6 +71,10 @@ type Profile struct {
 	Format    Format            `json:"format"`
 	Delimiter string            `json:"delimiter,omitempty"` // CSV/TSV: one character
 	Quote     string            `json:"quote,omitempty"`     // CSV/TSV: `"` (RFC 4180)
+	// Multiline lets a quoted CSV/TSV field hold line breaks (RFC 4180
+	// section 2, rule 6), within bounds; nil means every record is one
+	// line, so a stray quote costs only its own line.
+	Multiline *Multiline `json:"multiline,omitempty"`
 	Timezone  string            `json:"timezone"`            // IANA zone name of wall-clock times
 	LocalTime LocalTimePolicy   `json:"local_time"`
 	Fields    map[Field]Mapping `json:"fields"`
@@ -78,15 +82,32 @@ type Profile struct {
 	loc *time.Location
 }
 
+// Multiline bounds a record whose quoted fields hold line breaks.
+type Multiline struct {
+	MaxLines int `json:"max_lines"` // physical lines one record may span (default 50)
+	MaxBytes int `json:"max_bytes"` // bytes of one record, line breaks included (default 64 KiB)
+}
+
+// Multiline defaults and ceilings.
+const (
+	DefaultMultilineLines = 50
+	DefaultMultilineBytes = 64 << 10
+	maxMultilineLines     = 10000
+	maxMultilineBytes     = 16 << 20
+)
+
 // DefaultProfile returns the profile of a file that already speaks the
 // schema: a comma-separated CSV whose header uses the schema field names,
-// RFC 3339 timestamps (auto-detected), wall-clock times in UTC. Required
-// fields must be present as columns; optional ones are used when present.
+// RFC 3339 timestamps (auto-detected), wall-clock times in UTC, quoted
+// fields that may hold line breaks (as flowcat's own CSV export writes
+// them) within the default multi-line bounds. Required fields must be
+// present as columns; optional ones are used when present.
 func DefaultProfile() *Profile {
 	p := &Profile{
 		Format:    FormatCSV,
 		Delimiter: ",",
 		Quote:     `"`,
+		Multiline: &Multiline{MaxLines: DefaultMultilineLines, MaxBytes: DefaultMultilineBytes},
 		Timezone:  "UTC",
 		LocalTime: LocalTimePolicy{}.normalized(),
 		Fields:    make(map[Field]Mapping, len(Fields)),
@@ -105,6 +126,10 @@ func (p *Profile) clone() *Profile {
 	q.Fields = make(map[Field]Mapping, len(p.Fields))
 	for f, m := range p.Fields {
 		q.Fields[f] = m
+	}
+	if p.Multiline != nil {
+		ml := *p.Multiline
+		q.Multiline = &ml
 	}
 	return &q
 }
@@ -190,6 +215,12 @@ func ParseProfile(data []byte) (*Profile, error) {
 				return nil, err
 			}
 			p.Quote = s
+		case "multiline":
+			ml, err := multilineSetting(kv.value, lines)
+			if err != nil {
+				return nil, err
+			}
+			p.Multiline = ml
 		case "timezone":
 			s, err := scalar(kv.value, kv.key)
 			if err != nil {
@@ -219,7 +250,7 @@ func ParseProfile(data []byte) (*Profile, error) {
 		case "fields":
 			fieldsNode = kv.value
 		default:
-			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, timezone, local_time or fields)"}
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time or fields)"}
 		}
 	}
 	if fieldsNode == nil {
@@ -284,12 +315,29 @@ func (p *Profile) validate(lines map[string]int) error {
 		if p.Quote != `"` {
 			return at("quote", `must be '"' (RFC 4180 quoting; a stray quote rejects its row as malformed_row)`)
 		}
+		if ml := p.Multiline; ml != nil {
+			if ml.MaxLines == 0 {
+				ml.MaxLines = DefaultMultilineLines
+			}
+			if ml.MaxBytes == 0 {
+				ml.MaxBytes = DefaultMultilineBytes
+			}
+			if ml.MaxLines < 2 || ml.MaxLines > maxMultilineLines {
+				return at("multiline.max_lines", fmt.Sprintf("must be 2 to %d", maxMultilineLines))
+			}
+			if ml.MaxBytes < 1 || ml.MaxBytes > maxMultilineBytes {
+				return at("multiline.max_bytes", fmt.Sprintf("must be 1 to %d", maxMultilineBytes))
+			}
+		}
 	case FormatJSONL:
 		if p.Delimiter != "" {
 			return at("delimiter", "only for csv and tsv")
 		}
 		if p.Quote != "" {
 			return at("quote", "only for csv and tsv")
+		}
+		if p.Multiline != nil {
+			return at("multiline", "only for csv and tsv (a JSON Lines record is one line)")
 		}
 	default:
 		return at("format", fmt.Sprintf("unknown format %q (want csv, tsv or jsonl)", clip(string(p.Format))))
@@ -460,6 +508,52 @@ func scalar(n ast.Node, key string) (string, error) {
 		return "", &ProfileError{Line: line(n), Key: key, Msg: "anchors, aliases and tags are not supported in profiles"}
 	}
 	return "", &ProfileError{Line: line(n), Key: key, Msg: "must be a single value"}
+}
+
+// multilineSetting reads "multiline: true|false" or a mapping of
+// max_lines and max_bytes; defaults are filled in by validate.
+func multilineSetting(n ast.Node, lines map[string]int) (*Multiline, error) {
+	switch n.(type) {
+	case *ast.MappingNode, *ast.MappingValueNode:
+	default:
+		s, err := scalar(n, "multiline")
+		if err != nil {
+			return nil, err
+		}
+		switch s {
+		case "true":
+			return &Multiline{}, nil
+		case "false":
+			return nil, nil
+		}
+		return nil, &ProfileError{Line: line(n), Key: "multiline", Msg: "want true, false or a mapping of max_lines and max_bytes"}
+	}
+	kvs, err := mapping(n, "multiline")
+	if err != nil {
+		return nil, err
+	}
+	ml := &Multiline{}
+	for _, kv := range kvs {
+		key := "multiline." + kv.key
+		lines[key] = kv.line
+		s, err := scalar(kv.value, key)
+		if err != nil {
+			return nil, err
+		}
+		v, ok := digits(s)
+		if !ok || len(s) == 0 || len(s) > 9 || v == 0 {
+			return nil, &ProfileError{Line: kv.line, Key: key, Msg: "must be a positive whole number"}
+		}
+		switch kv.key {
+		case "max_lines":
+			ml.MaxLines = v
+		case "max_bytes":
+			ml.MaxBytes = v
+		default:
+			return nil, &ProfileError{Line: kv.line, Key: key, Msg: "unknown key (want max_lines or max_bytes)"}
+		}
+	}
+	return ml, nil
 }
 
 func fieldMapping(n ast.Node, key string, lines map[string]int) (Mapping, error) {
