@@ -68,14 +68,14 @@ type Mapping struct {
 // Build one with ParseProfile or DefaultProfile; a Profile assembled by
 // hand is validated again by NewReader.
 type Profile struct {
-	Format    Format            `json:"format"`
-	Delimiter string            `json:"delimiter,omitempty"` // CSV/TSV: one character
-	Quote     string            `json:"quote,omitempty"`     // CSV/TSV: `"` (RFC 4180)
+	Format    Format `json:"format"`
+	Delimiter string `json:"delimiter,omitempty"` // CSV/TSV: one character
+	Quote     string `json:"quote,omitempty"`     // CSV/TSV: `"` (RFC 4180)
 	// Multiline lets a quoted CSV/TSV field hold line breaks (RFC 4180
 	// section 2, rule 6), within bounds; nil means every record is one
 	// line, so a stray quote costs only its own line.
-	Multiline *Multiline `json:"multiline,omitempty"`
-	Timezone  string            `json:"timezone"`            // IANA zone name of wall-clock times
+	Multiline *Multiline        `json:"multiline,omitempty"`
+	Timezone  string            `json:"timezone"` // IANA zone name of wall-clock times
 	LocalTime LocalTimePolicy   `json:"local_time"`
 	Fields    map[Field]Mapping `json:"fields"`
 
