@@ -404,10 +404,17 @@ func (rd *Reader) nextCSV(e *Event) (*Rejection, error) {
 	if ferr := rd.countRow(line); ferr != nil {
 		return nil, ferr
 	}
+	nul := -1
 	for i, v := range rec {
 		if !utf8.ValidString(v) {
 			return nil, rd.fileErr(RuleEncoding, line, rd.columnName(i), "the value is not valid UTF-8; is the file in another encoding (Latin-1, Windows-1252)?", nil)
 		}
+		if nul < 0 && strings.IndexByte(v, 0) >= 0 {
+			nul = i
+		}
+	}
+	if nul >= 0 {
+		return rd.nulRejection(line, rd.columnName(nul), ""), nil
 	}
 	if len(rec) != len(rd.header) {
 		if rd.csv.dropRecord() {
@@ -617,6 +624,9 @@ func (rd *Reader) build(e *Event, line int64) (*Rejection, error) {
 			v = c.value
 		case kindColumn:
 			v = strings.TrimSpace(rd.vals[i])
+			if strings.IndexByte(v, 0) >= 0 {
+				return rd.nulRejection(line, c.name, f), nil
+			}
 			if v != "" && c.codes != nil {
 				if to, ok := c.codes[v]; ok {
 					v = to
@@ -661,6 +671,12 @@ func (rd *Reader) build(e *Event, line int64) (*Rejection, error) {
 		}
 	}
 	return nil, nil
+}
+
+// nulRejection refuses a row holding a NUL byte: no field of the schema
+// has a use for one, and C-string tools downstream would cut the value.
+func (rd *Reader) nulRejection(line int64, col string, f Field) *Rejection {
+	return &Rejection{Line: line, Column: col, Field: f, Reason: ReasonBadValue, Message: "the value holds a NUL byte (0x00)"}
 }
 
 // canonicalEventType returns the package constant for s, so an event does

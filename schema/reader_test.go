@@ -271,6 +271,14 @@ func TestReaderBadInput(t *testing.T) {
 		{name: "jsonl not an object", p: jsonl, data: []byte(`["V1"]` + "\n"), reason: ReasonMalformedRow, line: 1},
 		{name: "jsonl bad utf-8", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\n" + "{\"Visit\":\"V\xff\"}\n"), rule: RuleEncoding, line: 2},
 		{name: "jsonl empty", p: jsonl, data: nil, rule: RuleEmptyFile},
+		{name: "NUL in a header name", p: p, data: []byte("Visit,Code,When,Step\x00,Desk,Age\nV1,ARR,2021-06-01T08:00:00Z,a,D1,1\n"), rule: RuleEncoding, line: 1, column: "field 4", msg: "NUL"},
+		{name: "UTF-16 file", p: p, data: []byte("V\x00i\x00s\x00i\x00t\x00,\x00C\x00o\x00d\x00e\x00\n\x00"), rule: RuleEncoding, line: 1, column: "field 1", msg: "UTF-16"},
+		{name: "NUL in a mapped value", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a\x00b,D1,1\n"), reason: ReasonBadValue, line: 2, column: "Step", msg: "NUL"},
+		{name: "NUL in an unmapped value", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a,D1,\x00\n"), reason: ReasonBadValue, line: 2, column: "Age", msg: "NUL"},
+		{name: "jsonl escaped NUL", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z","Step":"a\u0000"}` + "\n"), reason: ReasonBadValue, line: 1, column: "Step", field: FieldActivity, msg: "NUL"},
+		{name: "too many columns", p: p, data: []byte(testHeader[:len(testHeader)-1] + strings.Repeat(",x", DefaultMaxColumns) + "\n"), rule: RuleTooManyColumns, line: 1, msg: "4096 columns"},
+		{name: "csv line too long", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a,D1,1\nV1,ARR,2021-06-01T08:00:00Z," + strings.Repeat("a", DefaultMaxLineBytes) + ",D1,1\n"), rule: RuleLineTooLong, line: 3, msg: "1 MiB"},
+		{name: "jsonl line too long", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\n" + `{"Visit":"` + strings.Repeat("a", DefaultMaxLineBytes) + `"}` + "\n"), rule: RuleLineTooLong, line: 2, msg: "1 MiB"},
 		{name: "jsonl blank", p: jsonl, data: []byte("\n \n"), rule: RuleEmptyFile},
 	}
 	for _, tc := range tests {
@@ -819,5 +827,56 @@ func TestJSONLLoneSurrogate(t *testing.T) {
 	}
 	if rej, err := rd.Next(&e); err != nil || rej != nil || e.CaseID != "A\uFFFDX" {
 		t.Errorf("spelled U+FFFD: rej %+v, err %v, case %q", rej, err, e.CaseID)
+	}
+}
+
+// TestReaderUploadLimits: the decompressed size and the row count of a
+// file are checked while streaming, with the limit named; a file exactly
+// at a limit passes.
+func TestReaderUploadLimits(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	row := "V1,ARR,2021-06-01T08:00:00Z,registration,D1,80\n"
+	plain := testHeader + strings.Repeat(row, 10000)
+	bomb := gzipBytes(t, []byte(plain)) // about 1% of its plain size
+	for _, tc := range []struct {
+		name string
+		data []byte
+		lim  Limits
+		rule string
+		msg  string
+	}{
+		{"gzip over max bytes", bomb, Limits{MaxBytes: 64 << 10}, RuleTooManyBytes, "64 KiB after decompression"},
+		{"plain over max bytes", []byte(plain), Limits{MaxBytes: 100000}, RuleTooManyBytes, "100000 bytes"},
+		{"plain at max bytes", []byte(plain), Limits{MaxBytes: int64(len(plain))}, "", ""},
+		{"gzip at max bytes", bomb, Limits{MaxBytes: int64(len(plain))}, "", ""},
+		{"over max rows", bomb, Limits{MaxRows: 9999}, RuleTooManyRows, "more than 9999 data rows"},
+		{"at max rows", bomb, Limits{MaxRows: 10000}, "", ""},
+	} {
+		rd, err := NewReader(bytes.NewReader(tc.data), p, ReaderOptions{Limits: tc.lim})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var e Event
+		var n int
+		for {
+			_, err = rd.Next(&e)
+			if err != nil {
+				break
+			}
+			n++
+		}
+		if tc.rule == "" {
+			if err != io.EOF || n != 10000 {
+				t.Errorf("%s: %d rows, then %v", tc.name, n, err)
+			}
+			continue
+		}
+		fe, ok := AsFileError(err)
+		if !ok || fe.Rule != tc.rule || !strings.Contains(fe.Msg, tc.msg) {
+			t.Errorf("%s: got %v, want %s naming %q", tc.name, err, tc.rule, tc.msg)
+		}
+		if tc.rule == RuleTooManyRows && fe.Line != 10001 {
+			t.Errorf("%s: line %d, want 10001", tc.name, fe.Line)
+		}
 	}
 }
