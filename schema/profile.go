@@ -13,7 +13,9 @@ import (
 
 	"github.com/goccy/go-yaml"
 	"github.com/goccy/go-yaml/ast"
+	"github.com/goccy/go-yaml/lexer"
 	"github.com/goccy/go-yaml/parser"
+	"github.com/goccy/go-yaml/token"
 )
 
 // ErrInvalidProfile is wrapped by every error of ParseProfile and of
@@ -158,10 +160,46 @@ func (p *Profile) Hash() string {
 	return hex.EncodeToString(sum[:])
 }
 
-// ParseProfile reads a YAML mapping profile. It is strict: unknown keys,
-// unknown fields, bad layouts, unknown zones and unmapped required fields
-// are errors (a *ProfileError naming the YAML line where it can).
+// ProfileLimits bound the YAML text of a profile. A profile is a few
+// dozen lines; the bounds keep a hostile one cheap: the YAML parser's
+// memory grows with the square of the nesting depth (measured: 8,000
+// levels of "- " in 16 KB cost 100 MB). A zero field takes its default.
+type ProfileLimits struct {
+	MaxBytes int // size of the YAML text (default 256 KiB)
+	MaxDepth int // nesting of mappings and sequences (default 16)
+}
+
+// Default profile limits; see ProfileLimits.
+const (
+	DefaultProfileBytes = 256 << 10
+	DefaultProfileDepth = 16
+)
+
+// ParseProfile reads a YAML mapping profile within the default
+// ProfileLimits. It is strict: unknown keys, unknown fields, bad layouts,
+// unknown zones and unmapped required fields are errors (a *ProfileError
+// naming the YAML line where it can).
 func ParseProfile(data []byte) (*Profile, error) {
+	return ParseProfileLimits(data, ProfileLimits{})
+}
+
+// ParseProfileLimits is ParseProfile within lim. A profile over a limit
+// is a *ProfileError whose message names it ("max profile bytes", "max
+// profile depth"); the depth is measured on the YAML tokens before the
+// text is parsed.
+func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
+	if lim.MaxBytes <= 0 {
+		lim.MaxBytes = DefaultProfileBytes
+	}
+	if lim.MaxDepth <= 0 {
+		lim.MaxDepth = DefaultProfileDepth
+	}
+	if len(data) > lim.MaxBytes {
+		return nil, &ProfileError{Msg: fmt.Sprintf("the profile is %d bytes, over the limit of %s (max profile bytes)", len(data), sizeText(int64(lim.MaxBytes)))}
+	}
+	if d, ln := yamlDepth(lexer.Tokenize(string(data))); d > lim.MaxDepth {
+		return nil, &ProfileError{Line: ln, Msg: fmt.Sprintf("the profile nests deeper than %d levels (max profile depth)", lim.MaxDepth)}
+	}
 	file, err := parser.ParseBytes(data, 0)
 	if err != nil {
 		pe := &ProfileError{Msg: "not valid YAML"}
@@ -441,6 +479,46 @@ func (p *Profile) validate(lines map[string]int) error {
 		}
 	}
 	return nil
+}
+
+// yamlDepth returns the nesting depth of YAML tokens and the line where it
+// is greatest: flow collections ([ and {) count one level each, and block
+// collections one per indentation column in force, the column of a
+// sequence entry "-" or of a mapping key.
+func yamlDepth(tks token.Tokens) (depth, line int) {
+	flow := 0
+	var cols []int // block columns in force, increasing
+	for i, tk := range tks {
+		if tk == nil || tk.Position == nil {
+			continue
+		}
+		switch tk.Type {
+		case token.SequenceStartType, token.MappingStartType:
+			flow++
+		case token.SequenceEndType, token.MappingEndType:
+			if flow > 0 {
+				flow--
+			}
+		case token.SequenceEntryType, token.MappingKeyType, token.MappingValueType:
+			if flow > 0 {
+				break
+			}
+			col := tk.Position.Column
+			if tk.Type == token.MappingValueType && i > 0 && tks[i-1] != nil && tks[i-1].Position != nil {
+				col = tks[i-1].Position.Column // the key's column
+			}
+			for len(cols) > 0 && cols[len(cols)-1] > col {
+				cols = cols[:len(cols)-1]
+			}
+			if len(cols) == 0 || cols[len(cols)-1] < col {
+				cols = append(cols, col)
+			}
+		}
+		if d := len(cols) + flow; d > depth {
+			depth, line = d, tk.Position.Line
+		}
+	}
+	return depth, line
 }
 
 // keyValue is one entry of a YAML mapping.
