@@ -326,8 +326,10 @@ func mergeHours(a, b HourSeries) HourSeries {
 	if b.Start.Before(start) {
 		start = *b.Start
 	}
-	offA := int(a.Start.Sub(start) / time.Hour)
-	offB := int(b.Start.Sub(start) / time.Hour)
+	// In seconds, not time.Duration: a Duration saturates at 292 years
+	// and instants span the years 0001-9999.
+	offA := int((a.Start.Unix() - start.Unix()) / 3600)
+	offB := int((b.Start.Unix() - start.Unix()) / 3600)
 	n := max(offA+len(a.Counts), offB+len(b.Counts))
 	out := make([]int64, n)
 	for i, v := range a.Counts {
