@@ -3,6 +3,7 @@ package summary
 import (
 	"maps"
 	"math"
+	"math/big"
 	"slices"
 	"time"
 
@@ -127,7 +128,9 @@ type QueueSummary struct {
 }
 
 // Lognormal is the maximum-likelihood lognormal fit of the positive
-// durations, with the Kolmogorov-Smirnov distance of the fit.
+// durations (exact: from running moments of their logarithms), with the
+// Kolmogorov-Smirnov distance of the fit (from the exact values up to
+// ExactValues distinct ones, then from the sketch).
 type Lognormal struct {
 	N       uint64  `json:"n"`
 	MeanLog float64 `json:"meanlog"`
@@ -195,10 +198,11 @@ func (a *Accumulator) Summary() *Summary { return a.SummaryFor(Selection{}) }
 // SummaryFor is [Accumulator.Summary] with the groups restricted to sel.
 func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 	a.finish()
+	days, wdays := a.observedDays()
 	s := &Summary{
 		FormatVersion: FormatVersion,
 		Timezone:      a.loc.String(),
-		DaysObserved:  len(a.days),
+		DaysObserved:  days,
 		Events:        a.events,
 		EventTypes:    map[string]uint64{},
 		OtherTypes:    a.otherTypes,
@@ -206,6 +210,11 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		Cases:         countOf(a.cases),
 		Subjects:      countOf(a.subjects),
 		Resources:     countOf(a.resources),
+	}
+	if c := a.counted; c != nil {
+		s.Cases = Count{Value: float64(c.Cases), Exact: true}
+		s.Subjects = Count{Value: float64(c.Subjects), Exact: true}
+		s.Resources = Count{Value: float64(c.Resources), Exact: true}
 	}
 	for i, t := range schema.EventTypes {
 		s.EventTypes[string(t)] = a.types[i]
@@ -217,24 +226,20 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		f, t := time.UnixMicro(a.minAt).In(a.loc), time.UnixMicro(a.maxAt).In(a.loc)
 		s.From, s.To = &f, &t
 	}
-	var wdays [7]int
-	for d := range a.days {
-		wdays[((d+3)%7+7)%7]++
-	}
 	ci := poissonCache{}
-	s.Arrivals.Profile = ci.profile(&a.arrWeek, &wdays, len(a.days))
+	s.Arrivals.Profile = ci.profile(&a.arrWeek, &wdays, days)
 	for _, d := range slices.Sorted(maps.Keys(a.arrDay)) {
 		s.Arrivals.PerDay = append(s.Arrivals.PerDay, DayCount{
 			Date: time.Unix(int64(d)*86400, 0).UTC().Format("2006-01-02"), Count: a.arrDay[d]})
 	}
 	for _, g := range sortedGroups(a.sites.list, func(g *siteGroup) string { return g.name }) {
 		if keep(sel.Sites, g.name) {
-			s.Sites = append(s.Sites, SiteSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, &wdays, len(a.days))})
+			s.Sites = append(s.Sites, SiteSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, &wdays, days)})
 		}
 	}
 	for _, g := range sortedGroups(a.queues.list, func(g *queueGroup) string { return g.name }) {
 		if keep(sel.Queues, g.name) {
-			s.Queues = append(s.Queues, a.queueSummary(g, &ci, &wdays))
+			s.Queues = append(s.Queues, a.queueSummary(g, &ci, &wdays, days))
 		}
 	}
 	for _, g := range sortedGroups(a.acts.list, func(g *activityGroup) string { return g.name }) {
@@ -307,8 +312,8 @@ func (p poissonCache) profile(w *[168]uint64, wdays *[7]int, days int) Profile {
 	return pr
 }
 
-func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, wdays *[7]int) QueueSummary {
-	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, wdays, len(a.days))}
+func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, wdays *[7]int, days int) QueueSummary {
+	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, wdays, days)}
 	q.Wait.Durations = durationsOf(g.served)
 	q.Wait.Negative = g.negative
 	n := g.served.n
@@ -411,30 +416,31 @@ func durationsOf(d *dist) Durations {
 }
 
 func lognormalOf(d *dist) *Lognormal {
-	pts := d.points()
-	if len(pts) > 0 && pts[0].v == 0 {
-		pts = pts[1:]
-	}
 	n := d.n - d.zero
 	if n == 0 {
 		return nil
 	}
-	var s float64
-	for _, p := range pts {
-		s += float64(p.c) * math.Log(p.v)
-	}
-	mu := s / float64(n)
-	var q float64
-	for _, p := range pts {
-		x := math.Log(p.v) - mu
-		q += float64(p.c) * x * x
-	}
-	sd := math.Sqrt(q / float64(n))
+	// The MLE from the exact sums of the (fixed-point) logarithms: meanlog
+	// = Σq/n, sdlog² = (Σq² − (Σq)²/n)/n, in microseconds, then moved to
+	// seconds (− ln 10⁶), whatever the size of the sample.
+	nb := new(big.Int).SetUint64(n)
+	sq := d.lq.big()
+	num := new(big.Int).Mul(d.lq2.big(), nb) // n·Σq² − (Σq)²
+	num.Sub(num, new(big.Int).Mul(sq, sq))
+	v, _ := new(big.Float).Quo(new(big.Float).SetInt(num), new(big.Float).SetInt(new(big.Int).Mul(nb, nb))).Float64()
+	m, _ := new(big.Float).Quo(new(big.Float).SetInt(sq), new(big.Float).SetInt(nb)).Float64()
+	mu := m/lnScale - math.Log(usPerSec)
+	sd := math.Sqrt(max(v, 0)) / lnScale
 	ln := &Lognormal{N: n, MeanLog: mu, SDLog: sd}
 	if sd > 0 {
+		// The KS distance is taken against the distribution's points:
+		// exact values up to ExactValues distinct ones, then the sketch's
+		// buckets (relative error 0.5%).
+		pts := d.points()
+		if len(pts) > 0 && pts[0].v == 0 {
+			pts = pts[1:]
+		}
 		ln.KS = ksCounts(pts, n, func(x float64) float64 { return LognormalCDF(x, mu, sd) })
-	} else {
-		ln.KS = 0
 	}
 	return ln
 }
