@@ -57,13 +57,42 @@ func (p *CasePass) Add(e *schema.Event) error {
 	return p.srt.Add(e)
 }
 
+// uploadMark, set in an event's Line, marks the events of the upload
+// being ingested among those of the rest of its version (RunSplit). Lines
+// keep their low 56 bits (quality.PackLine), so the mark never meets one.
+const uploadMark = 1 << 62
+
 // Run feeds every case to the observers and returns the exact counts.
 func (p *CasePass) Run(obs ...cases.Observer) (summary.Counts, error) {
-	b := cases.NewBuilder(obs...)
-	if err := p.srt.Finish(func(e *schema.Event) error { b.Add(e); return nil }); err != nil {
+	return p.RunSplit(obs, nil)
+}
+
+// RunSplit feeds every case to all, and the cases made of the events
+// marked by uploadMark (those events only) to mine, in one pass.
+func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) {
+	b := cases.NewBuilder(all...)
+	var bm *cases.Builder
+	if len(mine) > 0 {
+		bm = cases.NewBuilder(mine...)
+	}
+	err := p.srt.Finish(func(e *schema.Event) error {
+		marked := e.Line&uploadMark != 0
+		e.Line &^= uploadMark
+		if marked && bm != nil {
+			bm.Add(e)
+		}
+		if len(all) > 0 {
+			b.Add(e)
+		}
+		return nil
+	})
+	if err != nil {
 		return summary.Counts{}, err
 	}
 	b.Flush()
+	if bm != nil {
+		bm.Flush()
+	}
 	subj, err := p.subjects.Count()
 	if err != nil {
 		return summary.Counts{}, err

@@ -27,10 +27,14 @@ type CheckOptions struct {
 type CheckResult struct {
 	Report   *quality.Report `json:"report"`
 	Unmapped []string        `json:"unmapped_columns,omitempty"`
+	// Events counts the copies within the file (stored once at ingest),
+	// and conflicting stable event ids.
+	Events *EventCounts `json:"events"`
 }
 
 // Check runs the ingest's read, validate and quality pipeline over src
-// without storing anything, so a partner can test a file before sending
+// (copies within the file are counted once, as at ingest) without storing
+// anything, so a partner can test a file before sending
 // it. Identifiers are pseudonymized under a throwaway key, so the report's
 // samples hold no raw values. A nil prof means schema.DefaultProfile(). A
 // file that cannot be read fails with an error wrapping ErrFileInvalid and
@@ -67,14 +71,15 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 	}
 	cp := NewCasePass(opt.TempDir, opt.RunEvents)
 	defer cp.Close()
-	err = srt.Finish(func(e *schema.Event) error {
+	hf := newHeldFilter(IdentityOf(prof), ChangesRefuse)
+	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
 		fl := acc.Observe(e)
 		line := e.Line
 		e.Line = quality.PackLine(line, fl)
 		err := cp.Add(e)
 		e.Line = line
 		return err
-	})
+	}))
 	if err == nil {
 		_, err = cp.Run(acc)
 	}
@@ -83,7 +88,7 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 	}
 	rep := acc.Report()
 	rep.UnmappedColumns = rd.Unmapped()
-	return &CheckResult{Report: rep, Unmapped: rep.UnmappedColumns}, nil
+	return &CheckResult{Report: rep, Unmapped: rep.UnmappedColumns, Events: hf.uploadCounts()}, nil
 }
 
 func throwawayPseudonymizer() (*anonymize.Pseudonymizer, error) {

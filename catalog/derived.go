@@ -88,6 +88,16 @@ func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID) (*su
 	return acc, state, nil
 }
 
+// uploadPass is an upload's part in its version's per-case pass: the pass
+// holding the upload's events (marked by uploadMark, with their quality
+// flags), the file they made, and the upload's quality accumulator, which
+// takes the upload's events alone.
+type uploadPass struct {
+	cases *CasePass
+	entry *FileEntry
+	acc   *quality.Accumulator
+}
+
 // versionPass is what one per-case pass over a version's files yields.
 type versionPass struct {
 	summary    *versionSummary
@@ -111,7 +121,7 @@ func (p *versionPass) release() {
 // states of files made by this commit. Memory is bounded by the sort's
 // runs, not by the version: every file is read once, in turn, and its
 // events sorted by case on disk.
-func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, qopt quality.Options, keyID string, table bool) (*versionPass, error) {
+func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, qopt quality.Options, keyID string, table bool, upass *uploadPass) (*versionPass, error) {
 	out := &versionPass{fileStates: map[blob.ID][]byte{}}
 	total := summary.New(summaryOptions(ds))
 	for _, f := range files {
@@ -136,9 +146,23 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			return nil, err
 		}
 	}
-	cp := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
-	defer cp.Close()
+	var cp *CasePass
+	var mine []cases.Observer
+	var fromUpload blob.ID
+	if upass != nil {
+		// The upload's events are in its pass already, marked.
+		cp, mine = upass.cases, []cases.Observer{upass.acc}
+		if upass.entry != nil {
+			fromUpload = upass.entry.SHA256
+		}
+	} else {
+		cp = NewCasePass(s.opt.TempDir, s.opt.RunEvents)
+		defer cp.Close()
+	}
 	for _, f := range files {
+		if f.SHA256 == fromUpload {
+			continue
+		}
 		err := s.readFile(ctx, f.SHA256, func(e *schema.Event) error {
 			// Strings read from Parquet may point into the reader's
 			// buffers; the sort keeps events past the next read.
@@ -161,7 +185,7 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 		defer cw.Remove()
 		obs = append(obs, cw)
 	}
-	counts, err := cp.Run(obs...)
+	counts, err := cp.RunSplit(obs, mine)
 	if err != nil {
 		return nil, err
 	}
@@ -294,7 +318,7 @@ func (s *Store) SummaryGzip(ctx context.Context, ref string, n int) ([]byte, err
 	if err != nil {
 		return nil, err
 	}
-	vp, err := s.passVersion(ctx, ds, v.Manifest.Files, nil, quality.Options{}, "", false)
+	vp, err := s.passVersion(ctx, ds, v.Manifest.Files, nil, quality.Options{}, "", false, nil)
 	if err != nil {
 		return nil, err
 	}

@@ -20,6 +20,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // IngestOptions describe one upload.
@@ -34,6 +35,8 @@ type IngestOptions struct {
 	// upload replaces. Empty means the sites the upload holds. With sites
 	// given, an upload without rows removes their events in the window.
 	Sites []string
+
+	held *heldFilter // set by Ingest: the upload's events against the latest version
 }
 
 // Validate checks the options before any byte is read.
@@ -78,8 +81,10 @@ const RuleOutsideWindow = "outside_window"
 // Ingest reads one export file for a dataset from src, as it streams:
 // parse and validate through the dataset's profile, pseudonymize, sort by
 // occurred_at (spilling sorted runs of pseudonymized events to the temp
-// dir), observe quality, write one zstd Parquet file, put it in the blob
-// store and commit a new version. Its files are, by opt.Mode, the latest
+// dir), drop the events the latest version holds already (append) and the
+// copies within the file (see heldFilter), observe quality, write one zstd
+// Parquet file, put it in the blob store and commit a new version. Its
+// files are, by opt.Mode, the latest
 // version's plus the new one (append), the latest version's with the
 // replaced window's rows removed plus the new one (replace-window), or the
 // new one alone (replace-all). Memory is bounded by Options.RunEvents, not
@@ -88,12 +93,14 @@ const RuleOutsideWindow = "outside_window"
 // Options that do not validate fail with ErrInvalid before src is read. A
 // file that cannot be read fails with an error wrapping ErrFileInvalid and
 // a *schema.FileError; one with too many invalid rows (above the dataset's
-// RejectAbove), none valid, or (replace-window) events outside the window
-// fails with ErrRejected. In those cases nothing but the upload record is
+// RejectAbove), none valid, (replace-window) events outside the window, or
+// changed events under a stable event_id (see ChangePolicy) fails with
+// ErrRejected. In those cases nothing but the upload record is
 // stored, and the result carries the upload and its report. Identical bytes
 // appended again, while the latest version still holds the file they made,
 // return the version they made the first time, with status duplicate; so
-// does any upload whose new version would hold the latest one's files.
+// does any upload whose new version would hold the latest one's files (one
+// whose events are all held, say).
 func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions) (*IngestResult, error) {
 	if err := opt.Validate(); err != nil {
 		return nil, err
@@ -172,6 +179,17 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		}
 	}
 
+	// From here to the commit the dataset's latest version stays the one
+	// the upload's events are compared with.
+	unlock := s.lockDataset(ds.Ref())
+	defer unlock()
+	hf, err := s.heldFilterFor(ctx, ds, prof, opt.Mode)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	defer hf.close()
+	opt.held = hf
+
 	sw, err := newSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, pz.KeyID())
 	if err != nil {
 		return nil, err
@@ -179,11 +197,13 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	defer sw.Remove()
 	win := newWindowCheck(opt)
 	sacc := summary.New(summaryOptions(ds))
-	// The upload's own per-case pass, for its report: its events sorted by
-	// case on disk, each carrying what the time pass found of it.
+	// The upload's events go to the per-case pass (sorted by case on disk),
+	// each carrying what the time pass found of it and marked as the
+	// upload's: the commit runs that pass once over the whole new version,
+	// the upload's own checks and its report riding along.
 	upCases := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
 	defer upCases.Close()
-	err = srt.Finish(func(e *schema.Event) error {
+	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
 		fl := acc.Observe(e)
 		sacc.Observe(e)
 		win.observe(e)
@@ -191,23 +211,28 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 			return err
 		}
 		line := e.Line
-		e.Line = quality.PackLine(line, fl)
+		e.Line = quality.PackLine(line, fl) | uploadMark
 		err := upCases.Add(e)
 		e.Line = line
 		return err
-	})
-	if err == nil {
-		_, err = upCases.Run(acc)
-	}
+	}))
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
-	upCases.Close()
+	// Rows and rejections are known; the per-case figures come with the pass.
 	rep := acc.Report()
 	rep.UnmappedColumns = up.Unmapped
 	up.Report = rep
+	up.Events = hf.uploadCounts()
 	removeOnly := removing(opt) && rep.Rows.Total == 0
 	reject := func(uerr *UploadError, err error) (*IngestResult, error) {
+		// The per-case checks of the upload alone, for its report.
+		if _, perr := upCases.RunSplit(nil, []cases.Observer{acc}); perr != nil {
+			return nil, fmt.Errorf("ingest: %w", perr)
+		}
+		rep = acc.Report()
+		rep.UnmappedColumns = up.Unmapped
+		up.Report = rep
 		up.Status = UploadRejected
 		up.Error = uerr
 		if err := s.recordUpload(ds, &up); err != nil {
@@ -218,14 +243,17 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		return &IngestResult{Upload: up}, err
 	}
 	switch {
-	case sw.rows == 0 && !removeOnly:
+	case hf.counts.Read == 0 && !removeOnly:
 		return reject(nil, fmt.Errorf("no valid rows among %d: %w", rep.Rows.Total, ErrRejected))
-	case rep.RejectedShare() > ds.RejectAbove:
+	case hf.rejectedShare(rep.Rows.Rejected) > ds.RejectAbove:
 		return reject(nil, fmt.Errorf("%.2f%% of rows are invalid, above the dataset's threshold of %.2f%%: %w",
-			100*rep.RejectedShare(), 100*ds.RejectAbove, ErrRejected))
+			100*hf.rejectedShare(rep.Rows.Rejected), 100*ds.RejectAbove, ErrRejected))
 	case win.outside > 0:
 		ue := win.uploadError()
 		return reject(ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
+	case hf.refusal() != nil:
+		ue := hf.refusal()
+		return reject(ue, fmt.Errorf("line %d: %s: %s: %w", ue.Line, ue.Rule, ue.Message, ErrRejected))
 	}
 	if opt.Mode == ModeReplaceWindow && len(opt.Sites) == 0 {
 		opt.Sites = win.siteList()
@@ -247,7 +275,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	if testHookBeforeCommit != nil {
 		testHookBeforeCommit()
 	}
-	return s.commit(ctx, ds, &up, entry, sacc, rep, qopt, pz.KeyID(), opt)
+	return s.commit(ctx, ds, &up, entry, sacc, &uploadPass{cases: upCases, entry: entry, acc: acc}, qopt, pz.KeyID(), opt)
 }
 
 // removing reports whether opt allows an upload without rows: a
@@ -259,12 +287,10 @@ func isNoRows(err error) bool {
 	return ok && (fe.Rule == schema.RuleNoRows || fe.Rule == schema.RuleEmptyFile)
 }
 
-// commit makes the new version from the latest one, under the dataset's
-// commit lock so that the plan (which may rewrite files) and the
-// transaction see the same parent.
-func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, rep *quality.Report, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
-	unlock := s.lockDataset(ds.Ref())
-	defer unlock()
+// commit makes the new version from the latest one. The caller holds the
+// dataset's commit lock, so that the held-event comparison, the plan
+// (which may rewrite files) and the transaction see the same parent.
+func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, upass *uploadPass, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
 	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
 	if errors.Is(err, ErrNotFound) {
 		parent = nil
@@ -276,6 +302,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	defer plan.release()
+	if err := s.removeCorrected(ctx, ds, plan, keyID, opt.held, parent); err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
 	if parent != nil && sameFiles(parent.Manifest.Files, plan.files) {
 		return s.duplicate(ds, *up, parent)
 	}
@@ -284,19 +313,25 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	}
 	if entry != nil {
 		plan.summaries[entry.SHA256] = sacc
-		plan.reports[entry.SHA256] = rep
-	}
-	merged, err := s.mergeQuality(ctx, parent, plan, rep, opt.Mode)
-	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	// One per-case pass over every file of the new version: its case
-	// table, its summary's case figures and its report's.
-	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true)
+	// table, its summary's case figures and its report's, and the upload's
+	// own per-case checks on the way.
+	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true, upass)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	defer vp.release()
+	rep := upass.acc.Report()
+	rep.UnmappedColumns = up.Unmapped
+	up.Report = rep
+	if entry != nil {
+		plan.reports[entry.SHA256] = rep
+	}
+	merged, err := s.mergeQuality(ctx, parent, plan, rep, mergeMode(opt.Mode, plan))
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
 	vrep := quality.WithCases(merged, vp.cases)
 	vsum, fileSums := vp.summary, vp.fileStates
 	received := up.ReceivedAt
@@ -310,7 +345,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref(), cur.Latest)
 		}
 		nextUpload(&cur, up)
-		up.Alerts = driftAlerts(tx, cur.Ref(), up)
+		up.Alerts = append(driftAlerts(tx, cur.Ref(), up), heldShareAlerts(tx, cur.Ref(), up)...)
 		if entry != nil {
 			for i := range plan.files {
 				if plan.files[i].SHA256 == entry.SHA256 && plan.files[i].Upload == "" {
@@ -322,7 +357,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			Dataset:       cur.Ref(),
 			Version:       cur.Latest + 1,
 			Parent:        cur.Latest,
-			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed},
+			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(up, plan.removed)},
 			SchemaVersion: schema.Version,
 			ProfileHash:   cur.ProfileHash,
 			KeyID:         keyID,
@@ -514,7 +549,7 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 			return err
 		}
 		nextUpload(&cur, up)
-		up.Alerts = driftAlerts(tx, cur.Ref(), up)
+		up.Alerts = append(driftAlerts(tx, cur.Ref(), up), heldShareAlerts(tx, cur.Ref(), up)...)
 		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {
 			return err
 		}

@@ -63,6 +63,11 @@ type Dataset struct {
 	CreatedBy   string     `json:"created_by"`
 	Latest      int        `json:"latest_version"` // 0 before the first accepted upload
 	Uploads     int        `json:"uploads"`        // uploads received, accepted or not
+
+	// Changes is what an upload does to a held event it re-sends with other
+	// content, under a stable event_id (see ChangePolicy); empty means
+	// ChangesRefuse.
+	Changes ChangePolicy `json:"changes,omitempty"`
 }
 
 // Ref returns "project/dataset".
@@ -99,6 +104,7 @@ type Upload struct {
 	Error      *UploadError    `json:"error,omitempty"`
 	Report     *quality.Report `json:"report,omitempty"`
 	Unmapped   []string        `json:"unmapped_columns,omitempty"`
+	Events     *EventCounts    `json:"events,omitempty"` // what became of its valid events: new, already held, copies, changed
 	Alerts     []quality.Alert `json:"alerts,omitempty"` // drift against the site's recent uploads
 	ReceivedAt time.Time       `json:"received_at"`
 	By         string          `json:"by"`
@@ -163,8 +169,13 @@ type Lineage struct {
 	From  *time.Time `json:"from,omitempty"`
 	To    *time.Time `json:"to,omitempty"`
 	Sites []string   `json:"sites,omitempty"`
-	// RowsRemoved counts the parent's rows the upload replaced.
+	// RowsRemoved counts the parent's rows the upload replaced (or, for a
+	// correction, the old events its changed ones replaced).
 	RowsRemoved int64 `json:"rows_removed"`
+	// Events counts the upload's valid events by what became of them; the
+	// version holds the parent's rows + New + Changed (when taken as
+	// corrections) - RowsRemoved.
+	Events *EventCounts `json:"events,omitempty"`
 }
 
 // Manifest describes a version completely: its files and how they came to

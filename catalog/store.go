@@ -189,6 +189,9 @@ type DatasetSpec struct {
 	WindowFrom  *time.Time // optional declared window of the data
 	WindowTo    *time.Time
 	Drafts      bool // new versions start as drafts
+	// Changes is the dataset's policy for changed events under a stable
+	// event_id; empty means ChangesRefuse.
+	Changes ChangePolicy
 }
 
 // CreateDataset validates the spec (names, profile, zone, threshold) and
@@ -213,10 +216,14 @@ func (s *Store) CreateDataset(ctx context.Context, spec DatasetSpec, by string) 
 	if spec.WindowFrom != nil && spec.WindowTo != nil && !spec.WindowTo.After(*spec.WindowFrom) {
 		return nil, fmt.Errorf("window: from is not before to: %w", ErrInvalid)
 	}
+	changes, err := ParseChangePolicy(string(spec.Changes))
+	if err != nil {
+		return nil, err
+	}
 	d := &Dataset{
 		Project: spec.Project, Name: spec.Name, Title: spec.Title,
 		Profile: string(spec.Profile), ProfileHash: prof.Hash(), Timezone: prof.Location().String(),
-		RejectAbove: reject, Drafts: spec.Drafts, WindowFrom: utcPtr(spec.WindowFrom), WindowTo: utcPtr(spec.WindowTo),
+		RejectAbove: reject, Drafts: spec.Drafts, Changes: changes, WindowFrom: utcPtr(spec.WindowFrom), WindowTo: utcPtr(spec.WindowTo),
 		CreatedAt: s.opt.Now().UTC(), CreatedBy: by,
 	}
 	err = s.db.Update(func(tx *bolt.Tx) error {

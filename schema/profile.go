@@ -63,6 +63,10 @@ type Mapping struct {
 	Default  string            `json:"default,omitempty"`  // schema value for codes not in Codes; empty rejects the row
 	Layout   string            `json:"layout,omitempty"`   // occurred_at only: strftime-style layout; empty auto-detects
 	Optional bool              `json:"optional,omitempty"` // the column may be absent from the file (DefaultProfile only)
+	// Stable (event_id only) declares that the partner's event id names the
+	// same event in every export: a re-sent event keeps its id, a changed
+	// one keeps it too. The catalog then identifies events by site and id.
+	Stable bool `json:"stable,omitempty"`
 }
 
 // Profile is a partner's mapping of its export onto schema v1: the file
@@ -441,6 +445,9 @@ func (p *Profile) validate(lines map[string]int) error {
 		} else if m.Layout != "" {
 			return at(key+".layout", "layout applies only to occurred_at")
 		}
+		if m.Stable && (f != FieldEventID || m.Column == "") {
+			return at(key+".stable", "only event_id, mapped from a column, can be declared stable")
+		}
 		if m.Default != "" && len(m.Codes) == 0 {
 			return at(key+".default", "default applies to codes not listed under codes; add codes")
 		}
@@ -691,8 +698,16 @@ func fieldMapping(n ast.Node, key string, lines map[string]int) (Mapping, error)
 			m.Default = s
 		case "layout":
 			m.Layout = s
+		case "stable":
+			switch s {
+			case "true":
+				m.Stable = true
+			case "false":
+			default:
+				return m, &ProfileError{Line: kv.line, Key: sub, Msg: "must be true or false"}
+			}
 		default:
-			return m, &ProfileError{Line: kv.line, Key: sub, Msg: "unknown key (want column, value, codes, default or layout)"}
+			return m, &ProfileError{Line: kv.line, Key: sub, Msg: "unknown key (want column, value, codes, default, layout or stable)"}
 		}
 	}
 	return m, nil

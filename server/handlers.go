@@ -109,6 +109,7 @@ type createDatasetRequest struct {
 	WindowFrom  *time.Time `json:"window_from"`
 	WindowTo    *time.Time `json:"window_to"`
 	Drafts      bool       `json:"drafts"`
+	Changes     string     `json:"changes"` // refuse (default) or correct
 }
 
 func (s *Server) createDataset(c echo.Context) error {
@@ -118,13 +119,13 @@ func (s *Server) createDataset(c echo.Context) error {
 		return forbidden("create datasets in project " + project)
 	}
 	var req createDatasetRequest
-	if err := decodeJSON(c, &req, `{"name", "title", "profile", "timezone", "reject_above", "window_from", "window_to", "drafts"}`); err != nil {
+	if err := decodeJSON(c, &req, `{"name", "title", "profile", "timezone", "reject_above", "window_from", "window_to", "drafts", "changes"}`); err != nil {
 		return err
 	}
 	d, err := s.cfg.Store.CreateDataset(c.Request().Context(), catalog.DatasetSpec{
 		Project: project, Name: req.Name, Title: req.Title, Profile: []byte(req.Profile),
 		Timezone: req.Timezone, RejectAbove: req.RejectAbove, WindowFrom: req.WindowFrom, WindowTo: req.WindowTo,
-		Drafts: req.Drafts,
+		Drafts: req.Drafts, Changes: catalog.ChangePolicy(req.Changes),
 	}, cl.Subject)
 	if err != nil {
 		return catalogError(err)
@@ -144,6 +145,29 @@ func (s *Server) dataset(c echo.Context, may func(*Claims, string, string) bool,
 	return d, nil
 }
 
+// setChanges sets a dataset's change policy (curator): {"changes":
+// "refuse" | "correct"}.
+func (s *Server) setChanges(c echo.Context) error {
+	d, err := s.dataset(c, func(cl *Claims, project, _ string) bool { return cl.CanCurate(project) }, "set the change policy of")
+	if err != nil {
+		return err
+	}
+	var req struct {
+		Changes string `json:"changes"`
+	}
+	if err := decodeJSON(c, &req, `{"changes": "refuse" | "correct"}`); err != nil {
+		return err
+	}
+	if req.Changes == "" {
+		return fail(http.StatusBadRequest, "invalid", "changes: want refuse or correct")
+	}
+	nd, err := s.cfg.Store.SetChangePolicy(c.Request().Context(), d.Project, d.Name, catalog.ChangePolicy(req.Changes), claims(c).Subject)
+	if err != nil {
+		return catalogError(err)
+	}
+	return c.JSON(http.StatusOK, nd)
+}
+
 func (s *Server) getDataset(c echo.Context) error {
 	d, err := s.dataset(c, (*Claims).CanSeeDataset, "see dataset")
 	if err != nil {
@@ -156,6 +180,7 @@ func (s *Server) getDataset(c echo.Context) error {
 type uploadResponse struct {
 	Upload  catalog.Upload   `json:"upload"`
 	Version *catalog.Version `json:"version,omitempty"`
+	Message string           `json:"message"` // what happened, in one line
 }
 
 // upload streams the request body into the catalog's ingest: the body is
@@ -189,6 +214,9 @@ func (s *Server) upload(c echo.Context) error {
 	case errors.Is(err, catalog.ErrRejected):
 		he := fail(http.StatusUnprocessableEntity, "rejected", "%s", err.Error())
 		rejectedDetail(&he.body, res.Upload)
+		if ue := res.Upload.Error; ue != nil { // outside the window, changed events
+			he.body.Rule, he.body.Line, he.body.Column = ue.Rule, ue.Line, ue.Column
+		}
 		he.body.Upload = res.Upload
 		return he
 	case err != nil:
@@ -198,7 +226,7 @@ func (s *Server) upload(c echo.Context) error {
 	if res.Upload.Status == catalog.UploadDuplicate {
 		status = http.StatusOK
 	}
-	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version})
+	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version, Message: res.Upload.Sentence()})
 }
 
 // uploadOptions reads an upload's query: filename, mode, and for mode

@@ -75,6 +75,7 @@ func New(cfg Config) *Server {
 	auth.POST("/projects/:project/datasets", s.createDataset)
 	ds := "/projects/:project/datasets/:dataset"
 	auth.GET(ds, s.getDataset)
+	auth.POST(ds+"/changes", s.setChanges)
 	auth.POST(ds+"/uploads", s.upload)
 	auth.GET(ds+"/uploads", s.listUploads)
 	auth.GET(ds+"/versions", s.listVersions)

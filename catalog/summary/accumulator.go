@@ -3,6 +3,7 @@ package summary
 import (
 	"math"
 	"slices"
+	"strings"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -87,6 +88,10 @@ type Accumulator struct {
 	arrDay   map[int32]uint64
 	days     map[int32]struct{} // local days observed
 	los      *dist
+	evCase   *dist // events per case, as counts (not µs)
+	between  *dist // time between consecutive events of a case
+	prevCase string
+	caseAt   int64 // the previous event of prevCase
 	occ      map[int64]*occBucket
 
 	// stream state of the current file
@@ -202,6 +207,8 @@ func New(opt Options) *Accumulator {
 		arrDay:    map[int32]uint64{},
 		days:      map[int32]struct{}{},
 		los:       newDist(),
+		evCase:    newDist(),
+		between:   newDist(),
 		occ:       map[int64]*occBucket{},
 		zoneLo:    math.MaxInt64,
 		zoneHi:    math.MinInt64,
@@ -282,8 +289,19 @@ func (a *Accumulator) Observe(e *schema.Event) {
 	}
 }
 
-// Event is part of [cases.Observer]; events are counted by Observe.
-func (a *Accumulator) Event(*schema.Event) {}
+// Event is part of [cases.Observer]: it measures the time between
+// consecutive events of a case (events are counted by Observe).
+func (a *Accumulator) Event(e *schema.Event) {
+	at := e.OccurredAt.UnixMicro()
+	if a.prevCase != "" && e.CaseID == a.prevCase {
+		if d := at - a.caseAt; d >= 0 {
+			a.between.add(d, a.cap)
+		}
+	} else {
+		a.prevCase = strings.Clone(e.CaseID)
+	}
+	a.caseAt = at
+}
 
 // Wait takes one wait of a case: the queue's arrival by hour of week, and
 // the wait's duration when it ended in a start or an abandon.
@@ -327,6 +345,8 @@ func (a *Accumulator) Case(r *cases.Record) {
 	a.arrDay[day]++
 	a.sites.list[a.sites.get(r.Site)].arr[how]++
 	a.los.add(r.Last-r.First, a.cap)
+	a.evCase.add(r.Events, a.cap)
+	a.prevCase = ""
 	a.occAdd(r.First, true)
 	a.occAdd(r.Last, false)
 }

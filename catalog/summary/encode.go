@@ -162,6 +162,8 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 		prev = d
 	}
 	e.dist(a.los)
+	e.dist(a.evCase)
+	e.dist(a.between)
 	keys := slices.Sorted(maps.Keys(a.occ))
 	e.uv(uint64(len(keys)))
 	var pk int64
@@ -360,6 +362,8 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		x.days[day] = struct{}{}
 	}
 	x.los = d.dist()
+	x.evCase = d.dist()
+	x.between = d.dist()
 	var k int64
 	for range d.count(5) {
 		k += d.iv()

@@ -81,6 +81,8 @@ func (a *Accumulator) Merge(o *Accumulator) error {
 		a.days[d] = struct{}{}
 	}
 	a.los.merge(o.los, a.cap)
+	a.evCase.merge(o.evCase, a.cap)
+	a.between.merge(o.between, a.cap)
 	for k, b := range o.occ {
 		x := a.occ[k]
 		if x == nil {

@@ -35,7 +35,30 @@ type Summary struct {
 	Queues         []QueueSummary    `json:"queues"`
 	Activities     []ActivitySummary `json:"activities"`
 	LengthOfStay   LengthOfStay      `json:"length_of_stay"`
+	EventsPerCase  Spread            `json:"events_per_case"`
+	BetweenEvents  Durations         `json:"between_events"` // time between consecutive events of a case
 	Occupancy      Occupancy         `json:"occupancy"`
+	// NotMeasurable names the figures the log's events cannot measure,
+	// with why (a log of completions alone has no waits or services);
+	// those figures are then absent or empty, never zeros to be read as
+	// measured.
+	NotMeasurable []NotMeasurable `json:"not_measurable"`
+}
+
+// Spread is a distribution of counts.
+type Spread struct {
+	N    uint64  `json:"n"`
+	Mean float64 `json:"mean"`
+	Min  float64 `json:"min"`
+	Max  float64 `json:"max"`
+	P50  float64 `json:"p50"` // Hyndman-Fan type 7
+	P90  float64 `json:"p90"`
+}
+
+// NotMeasurable is a figure the events cannot measure, and why.
+type NotMeasurable struct {
+	Figure string `json:"figure"`
+	Why    string `json:"why"`
 }
 
 // Count is a distinct count: exact, or a HyperLogLog estimate with the
@@ -252,6 +275,27 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		s.Activities = append(s.Activities, as)
 	}
 	s.LengthOfStay = LengthOfStay{Durations: durationsOf(a.los), Histogram: logHistogram(a.los)}
+	if ev := durationsOf(a.evCase); ev.N > 0 {
+		// evCase holds counts where durationsOf expects µs.
+		s.EventsPerCase = Spread{N: ev.N, Mean: ev.Mean * usPerSec, Min: ev.Min * usPerSec, Max: ev.Max * usPerSec, P50: ev.P50 * usPerSec, P90: ev.P90 * usPerSec}
+	}
+	s.BetweenEvents = durationsOf(a.between)
+	s.NotMeasurable = []NotMeasurable{}
+	var waits, services uint64
+	for _, g := range a.queues.list {
+		waits += g.served.n + g.abandoned.n + g.negative
+	}
+	for _, g := range a.acts.list {
+		services += g.svc.n + g.negative
+	}
+	if a.events > 0 && waits == 0 {
+		s.NotMeasurable = append(s.NotMeasurable, NotMeasurable{Figure: "waits",
+			Why: "no arrival, enqueue or transfer is followed by a start or an abandon in the same case"})
+	}
+	if a.events > 0 && services == 0 {
+		s.NotMeasurable = append(s.NotMeasurable, NotMeasurable{Figure: "services",
+			Why: "no start is followed by a complete of the same activity in the same case"})
+	}
 	s.Occupancy = a.occupancy()
 	return s
 }
