@@ -13,6 +13,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/server"
 )
 
@@ -20,6 +21,7 @@ func newServeCmd(e *env) *cobra.Command {
 	var dir, addr, masterFile string
 	var maxUpload int64
 	var author string
+	var lim schema.Limits
 	c := &cobra.Command{
 		Use:   "serve --data DIR --addr HOST:PORT",
 		Short: "Run the catalog server on a data directory",
@@ -32,7 +34,7 @@ func newServeCmd(e *env) *cobra.Command {
 			d := dataDir(dir)
 			ctx, stop := signal.NotifyContext(cmd.Context(), syscall.SIGINT, syscall.SIGTERM)
 			defer stop()
-			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, citationAuthor: author}, log)
+			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, citationAuthor: author, limits: lim}, log)
 			if err != nil {
 				return err
 			}
@@ -44,6 +46,10 @@ func newServeCmd(e *env) *cobra.Command {
 	c.Flags().StringVar(&addr, "addr", "127.0.0.1:8470", "listen address HOST:PORT")
 	c.Flags().StringVar(&masterFile, "master-key", "", "master key file (else FLOWCAT_MASTER_KEY, FLOWCAT_MASTER_KEY_FILE, or DIR/master.key)")
 	c.Flags().Int64Var(&maxUpload, "max-upload-bytes", 8<<30, "largest upload body accepted (413 above)")
+	c.Flags().IntVar(&lim.MaxLineBytes, "max-line-bytes", schema.DefaultMaxLineBytes, "longest line of an uploaded file (CSV/TSV physical line, JSON Lines line)")
+	c.Flags().IntVar(&lim.MaxColumns, "max-columns", schema.DefaultMaxColumns, "most columns in an uploaded CSV/TSV header")
+	c.Flags().Int64Var(&lim.MaxBytes, "max-decompressed-bytes", schema.DefaultMaxBytes, "largest uploaded file after gzip decompression")
+	c.Flags().Int64Var(&lim.MaxRows, "max-rows", schema.DefaultMaxRows, "most data rows in one uploaded file")
 	c.Flags().StringVar(&author, "citation-author", "", "author named in CITATION.cff files, e.g. the lab (default: the project's title)")
 	return c
 }
@@ -52,6 +58,7 @@ func newServeCmd(e *env) *cobra.Command {
 type serverOptions struct {
 	maxUpload      int64
 	citationAuthor string
+	limits         schema.Limits // of uploaded files
 }
 
 // running is a started server.
@@ -76,7 +83,7 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, so ser
 	if err != nil {
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	st, err := d.openStore(master, log)
+	st, err := d.openStore(master, log, so.limits)
 	if err != nil {
 		return nil, fmt.Errorf("serve: %w", err)
 	}

@@ -3,6 +3,7 @@ package quality
 import (
 	"bytes"
 	"encoding/json"
+	"fmt"
 	"reflect"
 	"slices"
 	"strings"
@@ -442,5 +443,51 @@ func TestNoValuesInReport(t *testing.T) {
 		if bytes.Contains(b, []byte(v)) {
 			t.Errorf("report holds value %s", v)
 		}
+	}
+}
+
+// TestMergeManyNames merges reports with many unmapped columns, queues
+// and sites. A merge that searched a list for each name would take
+// quadratic time here (10^10 comparisons) and not finish within the test
+// timeout; the result must be the exact union.
+func TestMergeManyNames(t *testing.T) {
+	const n = 100000
+	mk := func(off int) *Report {
+		r := run(fixtureOptions(), nil, nil, nil)
+		r.UnmappedColumns = nil
+		for i := range n {
+			r.UnmappedColumns = append(r.UnmappedColumns, fmt.Sprintf("col-%07d", off+i))
+		}
+		r.Raw.Waits = nil
+		for i := range n {
+			r.Raw.Waits = append(r.Raw.Waits, WaitRaw{Queue: fmt.Sprintf("q-%07d", off+i), Activity: "a", Waits: 1})
+		}
+		return r
+	}
+	m, err := MergeReports(mk(0), mk(n/2))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(m.UnmappedColumns) != n+n/2 || m.UnmappedColumns[0] != "col-0000000" || m.UnmappedColumns[len(m.UnmappedColumns)-1] != fmt.Sprintf("col-%07d", n+n/2-1) {
+		t.Errorf("%d unmapped columns, %q .. %q", len(m.UnmappedColumns), m.UnmappedColumns[0], m.UnmappedColumns[len(m.UnmappedColumns)-1])
+	}
+	var waits int64
+	for _, w := range m.Raw.Waits {
+		waits += w.Waits
+	}
+	if len(m.Raw.Waits) != n+n/2 || waits != 2*n {
+		t.Errorf("%d wait groups holding %d waits, want %d and %d", len(m.Raw.Waits), waits, n+n/2, 2*n)
+	}
+}
+
+// TestMergeHoursFarApart: hour series more than 292 years apart (the
+// reach of a time.Duration) merge at their true offsets.
+func TestMergeHoursFarApart(t *testing.T) {
+	a := time.Date(1700, 1, 1, 0, 0, 0, 0, time.UTC)
+	b := time.Date(2000, 1, 1, 5, 0, 0, 0, time.UTC)
+	m := mergeHours(HourSeries{Start: &b, Counts: []int64{2}}, HourSeries{Start: &a, Counts: []int64{1}})
+	hours := int((b.Unix() - a.Unix()) / 3600) // 2,629,733 (Python datetime: 2000-01-01T05 - 1700-01-01)
+	if !m.Start.Equal(a) || len(m.Counts) != hours+1 || m.Counts[0] != 1 || m.Counts[hours] != 2 {
+		t.Errorf("merged from %v, %d hours, first %d, last %d; want %d hours", m.Start, len(m.Counts), m.Counts[0], m.Counts[len(m.Counts)-1], hours+1)
 	}
 }
