@@ -30,7 +30,7 @@ type caseTableWriter struct {
 	h     hash.Hash
 	n     int64
 	w     *parquet.GenericWriter[cases.Row]
-	batch []cases.Row
+	batch *batches[cases.Row] // written on another goroutine
 	rows  int64
 	err   error
 }
@@ -40,7 +40,7 @@ func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTabl
 	if err != nil {
 		return nil, fmt.Errorf("case table: %w", err)
 	}
-	cw := &caseTableWriter{f: f, h: sha256.New(), batch: make([]cases.Row, 0, 1024)}
+	cw := &caseTableWriter{f: f, h: sha256.New()}
 	cw.w = parquet.NewGenericWriter[cases.Row](io.MultiWriter(f, cw.h, countWriter{&cw.n}),
 		parquet.Compression(PageCodec),
 		parquet.MaxRowsPerRowGroup(rowGroupRows),
@@ -49,6 +49,14 @@ func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTabl
 		parquet.KeyValueMetadata("flowcat.pseudonym_key_id", keyID),
 		parquet.KeyValueMetadata("flowcat.table", "cases"),
 	)
+	// Optional columns are pointers, which keep their nulls exactly in
+	// batches (TestCaseRowNulls reads them back with Arrow).
+	cw.batch = newBatches(1024, func(rows []cases.Row) error {
+		if _, err := cw.w.Write(rows); err != nil {
+			return fmt.Errorf("case table: %w", err)
+		}
+		return nil
+	})
 	return cw, nil
 }
 
@@ -66,28 +74,15 @@ func (cw *caseTableWriter) add(row *cases.Row) {
 	if cw.err != nil {
 		return
 	}
-	cw.batch = append(cw.batch, *row)
 	cw.rows++
-	if len(cw.batch) == cap(cw.batch) {
-		cw.flush()
-	}
-}
-
-// flush writes the batch. Optional columns are pointers, which keep their
-// nulls exactly in batches (TestCaseRowNulls reads them back with Arrow).
-func (cw *caseTableWriter) flush() {
-	if cw.err == nil && len(cw.batch) > 0 {
-		if _, err := cw.w.Write(cw.batch); err != nil {
-			cw.err = fmt.Errorf("case table: %w", err)
-		}
-	}
-	clear(cw.batch)
-	cw.batch = cw.batch[:0]
+	cw.err = cw.batch.add(*row)
 }
 
 // Finish completes and syncs the file and returns its entry.
 func (cw *caseTableWriter) Finish() (*CaseTableEntry, error) {
-	cw.flush()
+	if err := cw.batch.close(); err != nil && cw.err == nil {
+		cw.err = err
+	}
 	if cw.err != nil {
 		return nil, cw.err
 	}
@@ -105,6 +100,7 @@ func (cw *caseTableWriter) Finish() (*CaseTableEntry, error) {
 
 // Remove closes and deletes the temporary file.
 func (cw *caseTableWriter) Remove() {
+	cw.batch.close()
 	cw.f.Close()
 	os.Remove(cw.f.Name())
 }

@@ -31,7 +31,7 @@ type snapshotWriter struct {
 	h     hash.Hash
 	n     int64
 	w     *parquet.GenericWriter[schema.Event]
-	batch []schema.Event
+	batch *batches[schema.Event] // written on another goroutine
 	rows  int64
 	min   time.Time
 	max   time.Time
@@ -44,7 +44,7 @@ func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom
 	if err != nil {
 		return nil, fmt.Errorf("parquet: %w", err)
 	}
-	sw := &snapshotWriter{f: f, h: sha256.New(), batch: make([]schema.Event, 0, 1024)}
+	sw := &snapshotWriter{f: f, h: sha256.New()}
 	opts := []parquet.WriterOption{
 		parquet.Compression(PageCodec),
 		parquet.MaxRowsPerRowGroup(rowGroupRows),
@@ -56,6 +56,7 @@ func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom
 		opts = append(opts, parquet.KeyValueMetadata("flowcat.derived_from", d))
 	}
 	sw.w = parquet.NewGenericWriter[schema.Event](io.MultiWriter(f, sw.h, countWriter{&sw.n}), opts...)
+	sw.batch = newBatches(1024, sw.flushBatch)
 	return sw, nil
 }
 
@@ -66,26 +67,21 @@ func (sw *snapshotWriter) Write(e *schema.Event) error {
 	}
 	sw.max = e.OccurredAt
 	sw.rows++
-	sw.batch = append(sw.batch, *e)
-	if len(sw.batch) == cap(sw.batch) {
-		return sw.flushBatch()
-	}
-	return nil
+	return sw.batch.add(*e)
 }
 
-func (sw *snapshotWriter) flushBatch() error {
-	if _, err := sw.w.Write(sw.batch); err != nil {
+// flushBatch writes one batch of rows; it runs on the batches' goroutine.
+func (sw *snapshotWriter) flushBatch(batch []schema.Event) error {
+	if _, err := sw.w.Write(batch); err != nil {
 		return fmt.Errorf("parquet: %w", err)
 	}
-	clear(sw.batch)
-	sw.batch = sw.batch[:0]
 	return nil
 }
 
 // Finish completes the file and makes it durable; it returns the file's id
 // and size. The caller then hands the file to a blob.Store.
 func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
-	if err := sw.flushBatch(); err != nil {
+	if err := sw.batch.close(); err != nil {
 		return blob.ID{}, 0, err
 	}
 	if err := sw.w.Close(); err != nil {
@@ -102,6 +98,7 @@ func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
 
 // Remove closes and deletes the temporary file.
 func (sw *snapshotWriter) Remove() {
+	sw.batch.close()
 	sw.f.Close()
 	os.Remove(sw.f.Name())
 }
