@@ -86,7 +86,7 @@ type Accumulator struct {
 	arrivals uint64
 	arrWeek  [168]uint64
 	arrDay   map[int32]uint64
-	days     map[int32]struct{} // local days observed
+	days     observed // local days observed
 	los      *dist
 	occ      map[int64]*occBucket
 
@@ -215,7 +215,6 @@ func New(opt Options) *Accumulator {
 		subjects:  newDistinct(),
 		resources: newDistinct(),
 		arrDay:    map[int32]uint64{},
-		days:      map[int32]struct{}{},
 		los:       newDist(),
 		occ:       map[int64]*occBucket{},
 		open:      map[uint64]caseState{},
@@ -274,6 +273,11 @@ func (a *Accumulator) Observe(e *schema.Event) {
 		a.maxAt = at
 	}
 	a.hasTime = true
+	// A stretch of observation ends at a silence longer than
+	// ObservationGap; its days are observed, the silence's are not.
+	if a.segHas && (at > a.segLast+observationGap || at < a.segFirst-observationGap) {
+		a.endStretch()
+	}
 	if !a.segHas {
 		a.segHas, a.segFirst, a.segLast = true, at, at
 	}
@@ -453,21 +457,29 @@ func (a *Accumulator) maybeSweep(now int64) {
 }
 
 // finish closes every open case at its last event and records the local
-// days spanned by the events observed since the last finish.
+// days of the stretch of events observed since the last one ended.
 func (a *Accumulator) finish() {
 	for _, cs := range a.open {
 		a.close(&cs, cs.last)
 	}
 	clear(a.open)
 	a.lastRes = ""
-	if a.segHas {
-		_, d0 := a.local(a.segFirst)
-		_, d1 := a.local(a.segLast)
-		for d := d0; d <= d1; d++ {
-			a.days[d] = struct{}{}
-		}
-		a.segHas = false
+	a.endStretch()
+}
+
+// observationGap is ObservationGap in µs.
+const observationGap = int64(ObservationGap / time.Microsecond)
+
+// endStretch records the local days of the current stretch of events as
+// observed.
+func (a *Accumulator) endStretch() {
+	if !a.segHas {
+		return
 	}
+	_, d0 := a.local(a.segFirst)
+	_, d1 := a.local(a.segLast)
+	a.days.add(dayRange{d0, d1})
+	a.segHas = false
 }
 
 // local returns the hour of the week (0 = Monday 00:00-01:00 local) and

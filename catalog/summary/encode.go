@@ -9,8 +9,12 @@ import (
 )
 
 // stateMagic starts every serialized state; the last byte is the format
-// version.
-const stateMagic = "FCSUM\x01"
+// version: 2 keeps the observed days as ranges; 1 (still read) listed
+// each day.
+const (
+	stateMagic   = "FCSUM\x02"
+	stateMagicV1 = "FCSUM\x01"
+)
 
 type enc struct{ b []byte }
 
@@ -140,12 +144,12 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 		e.uv(a.arrDay[d])
 		prev = d
 	}
-	obs := slices.Sorted(maps.Keys(a.days))
-	e.uv(uint64(len(obs)))
+	e.uv(uint64(len(a.days)))
 	prev = 0
-	for _, d := range obs {
-		e.iv(int64(d - prev))
-		prev = d
+	for _, r := range a.days {
+		e.iv(int64(r.first - prev))
+		e.uv(uint64(r.last - r.first))
+		prev = r.last
 	}
 	e.dist(a.los)
 	keys := slices.Sorted(maps.Keys(a.occ))
@@ -276,9 +280,10 @@ func (d *dec) dist() *dist {
 // [Accumulator.MarshalBinary]. It fails with ErrCorrupt on malformed bytes
 // and with an error from time.LoadLocation on an unknown zone.
 func (a *Accumulator) UnmarshalBinary(b []byte) error {
-	if len(b) < len(stateMagic) || string(b[:len(stateMagic)]) != stateMagic {
+	if len(b) < len(stateMagic) || string(b[:len(stateMagic)]) != stateMagic && string(b[:len(stateMagic)]) != stateMagicV1 {
 		return fmt.Errorf("summary: %w", ErrCorrupt)
 	}
+	v1 := string(b[:len(stateMagic)]) == stateMagicV1
 	d := &dec{b: b[len(stateMagic):]}
 	var opt Options
 	locName := d.str()
@@ -335,9 +340,21 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		x.arrDay[day] = d.uv()
 	}
 	day = 0
-	for range d.count(1) {
-		day += int32(d.iv())
-		x.days[day] = struct{}{}
+	if v1 {
+		for range d.count(1) {
+			day += int32(d.iv())
+			x.days.add(dayRange{day, day})
+		}
+	} else {
+		for range d.count(2) {
+			first := day + int32(d.iv())
+			day = first + int32(d.uv())
+			if day < first || len(x.days) > 0 && first <= x.days[len(x.days)-1].last+1 {
+				d.err = ErrCorrupt
+				break
+			}
+			x.days = append(x.days, dayRange{first, day})
+		}
 	}
 	x.los = d.dist()
 	var k int64
