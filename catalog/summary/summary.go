@@ -163,9 +163,9 @@ type Occupancy struct {
 	// ObservationGap); the silences between are left out.
 	Runs       []OccupancyRun `json:"runs"`
 	HourOfWeek []float64      `json:"hour_of_week"` // mean of the series by the hour of week of the bucket start
-	Peak       float64    `json:"peak"`         // largest bucket average
-	PeakAt     *time.Time `json:"peak_at,omitempty"`
-	Little     Little     `json:"little"`
+	Peak       float64        `json:"peak"`         // largest bucket average
+	PeakAt     *time.Time     `json:"peak_at,omitempty"`
+	Little     Little         `json:"little"`
 }
 
 // OccupancyRun is the occupancy series over one observed stretch.
