@@ -224,7 +224,11 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		}
 		release := s.hold(id)
 		defer release()
-		if err := s.blobs.Put(ctx, id, sw.f); err != nil {
+		var body io.Reader = sw.f
+		if testHookPut != nil {
+			body = testHookPut(body)
+		}
+		if err := s.blobs.Put(ctx, id, body); err != nil {
 			return nil, fmt.Errorf("ingest: %w", err)
 		}
 		entry = &FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows}
@@ -459,6 +463,10 @@ func mappedFields(p *schema.Profile) []schema.Field {
 	}
 	return out
 }
+
+// testHookPut, when set by a test, wraps the reader of the new file's
+// blob write: the crash tests stall it there and end the process.
+var testHookPut func(io.Reader) io.Reader
 
 // testHookBeforeCommit, when set by a test, runs after the new file is
 // durable in the blob store and before the version is committed: the
