@@ -33,8 +33,9 @@ type Config struct {
 
 // Server serves the API.
 type Server struct {
-	cfg  Config
-	echo *echo.Echo
+	cfg    Config
+	echo   *echo.Echo
+	routes []route
 }
 
 // New returns a server for cfg.
@@ -54,44 +55,55 @@ func New(cfg Config) *Server {
 	e.Use(middleware.RequestID())
 	e.Use(s.accessLog)
 
-	e.GET("/", func(c echo.Context) error { return c.HTMLBlob(http.StatusOK, web.Index) })
+	e.Pre(wellFormedQuery)
+	index := func(c echo.Context) error { return c.HTMLBlob(http.StatusOK, web.Index) }
 	view := func(c echo.Context) error {
 		h := c.Response().Header()
 		h.Set("Content-Security-Policy", "default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; connect-src 'self'; img-src 'self'")
 		h.Set("Referrer-Policy", "no-referrer")
 		return c.HTMLBlob(http.StatusOK, web.Version)
 	}
-	e.GET("/view/:project/:dataset", view)
-	e.GET("/view/:project/:dataset/:version", view)
-	api := e.Group("/api/v1")
-	api.GET("/health", s.health)
-	api.GET("/schema", s.schema)
-
-	auth := api.Group("", s.authenticate)
-	auth.GET("/projects", s.listProjects)
-	auth.POST("/projects", s.createProject)
-	auth.GET("/projects/:project", s.getProject)
-	auth.GET("/projects/:project/datasets", s.listDatasets)
-	auth.POST("/projects/:project/datasets", s.createDataset)
-	ds := "/projects/:project/datasets/:dataset"
-	auth.GET(ds, s.getDataset)
-	auth.POST(ds+"/uploads", s.upload)
-	auth.GET(ds+"/uploads", s.listUploads)
-	auth.GET(ds+"/versions", s.listVersions)
-	auth.GET(ds+"/versions/:version", s.getVersion)
-	auth.GET(ds+"/versions/:version/manifest", s.getManifest)
-	auth.GET(ds+"/versions/:version/quality", s.getQuality)
-	auth.GET(ds+"/versions/:version/files/:file", s.download)
-	auth.HEAD(ds+"/versions/:version/files/:file", s.download)
-	auth.GET(ds+"/versions/:version/summary", s.getSummary)
-	auth.GET(ds+"/versions/:version/export", s.exportVersion)
-	auth.GET(ds+"/versions/:version/bundle", s.getBundle)
-	auth.GET(ds+"/versions/:version/citation", s.getCitation)
-	auth.GET(ds+"/diff", s.diffVersions)
-	auth.GET(ds+"/quality/trend", s.getTrend)
-	auth.GET(ds+"/alerts", s.getAlerts)
-	auth.POST(ds+"/versions/:version/:action", s.setState)
-	auth.POST("/admin/gc", s.collectGarbage)
+	const api, ds = "/api/v1", "/api/v1/projects/:project/datasets/:dataset"
+	filter := []string{"from", "to", "site*", "queue*", "activity*"}
+	s.routes = []route{
+		{method: "GET", path: "/", h: index, public: true},
+		{method: "GET", path: "/view/:project/:dataset", h: view, public: true},
+		{method: "GET", path: "/view/:project/:dataset/:version", h: view, public: true},
+		{method: "GET", path: api + "/health", h: s.health, public: true},
+		{method: "GET", path: api + "/schema", h: s.schema, public: true},
+		{method: "GET", path: api + "/projects", h: s.listProjects},
+		{method: "POST", path: api + "/projects", h: s.createProject},
+		{method: "GET", path: api + "/projects/:project", h: s.getProject},
+		{method: "GET", path: api + "/projects/:project/datasets", h: s.listDatasets},
+		{method: "POST", path: api + "/projects/:project/datasets", h: s.createDataset},
+		{method: "GET", path: ds, h: s.getDataset},
+		{method: "POST", path: ds + "/uploads", h: s.upload, params: []string{"filename", "mode", "from", "to", "site*"}},
+		{method: "GET", path: ds + "/uploads", h: s.listUploads},
+		{method: "GET", path: ds + "/versions", h: s.listVersions, params: []string{"limit", "after"}},
+		{method: "GET", path: ds + "/versions/:version", h: s.getVersion},
+		{method: "GET", path: ds + "/versions/:version/manifest", h: s.getManifest},
+		{method: "GET", path: ds + "/versions/:version/quality", h: s.getQuality},
+		{method: "GET", path: ds + "/versions/:version/files/:file", h: s.download},
+		{method: "HEAD", path: ds + "/versions/:version/files/:file", h: s.download},
+		{method: "GET", path: ds + "/versions/:version/summary", h: s.getSummary, params: filter},
+		{method: "GET", path: ds + "/versions/:version/export", h: s.exportVersion, params: append([]string{"format", "type*", "columns*"}, filter...)},
+		{method: "GET", path: ds + "/versions/:version/bundle", h: s.getBundle, params: []string{"format"}},
+		{method: "GET", path: ds + "/versions/:version/citation", h: s.getCitation},
+		{method: "GET", path: ds + "/diff", h: s.diffVersions, params: append([]string{"a", "b", "type*"}, filter...)},
+		{method: "GET", path: ds + "/quality/trend", h: s.getTrend, params: []string{"site"}},
+		{method: "GET", path: ds + "/alerts", h: s.getAlerts, params: []string{"site"}},
+		{method: "POST", path: ds + "/versions/:version/:action", h: s.setState},
+		{method: "POST", path: api + "/admin/gc", h: s.collectGarbage},
+	}
+	for _, r := range s.routes {
+		var mw []echo.MiddlewareFunc
+		if !r.public {
+			mw = append(mw, s.authenticate)
+		}
+		mw = append(mw, knownParams(r.params))
+		e.Add(r.method, r.path, r.h, mw...)
+	}
+	e.RouteNotFound("/*", s.notFound)
 	return s
 }
 
