@@ -317,23 +317,50 @@ func (s *Server) unseenVersions(c echo.Context, d *catalog.Dataset) (map[int]boo
 
 func readable(cl *Claims, project, _ string) bool { return cl.CanRead(project) }
 
+// versionsPage is one page of a dataset's versions.
+type versionsPage struct {
+	Versions []catalog.VersionHead `json:"versions"`
+	// NextAfter, when set, is the after= of the next page.
+	NextAfter *int `json:"next_after,omitempty"`
+}
+
+// defaultVersionsPage is the page size of the versions list without limit=.
+const defaultVersionsPage = 100
+
+// listVersions lists a dataset's versions, oldest first, a page at a
+// time (?limit=, default 100, at most catalog.MaxHeadsPage; ?after= a
+// version number): each with its state, lineage mode, files, rows and
+// quality scores, never the manifest or the full report.
 func (s *Server) listVersions(c echo.Context) error {
 	d, err := s.dataset(c, readable, "read versions of")
 	if err != nil {
 		return err
 	}
-	vs, err := s.cfg.Store.Versions(c.Request().Context(), d.Project, d.Name)
+	limit, after := defaultVersionsPage, 0
+	for _, p := range []struct {
+		name     string
+		dst      *int
+		min, max int
+	}{{"limit", &limit, 1, catalog.MaxHeadsPage}, {"after", &after, 0, 1<<31 - 1}} {
+		v := c.QueryParam(p.name)
+		if v == "" {
+			continue
+		}
+		n, err := strconv.Atoi(v)
+		if err != nil || n < p.min || n > p.max {
+			return fail(http.StatusBadRequest, "invalid", "%s %q: want a whole number from %d to %d", p.name, truncateParam(v), p.min, p.max)
+		}
+		*p.dst = n
+	}
+	heads, next, err := s.cfg.Store.HeadsPage(c.Request().Context(), d.Project, d.Name, after, limit, claims(c).CanCurate(d.Project))
 	if err != nil {
 		return catalogError(err)
 	}
-	drafts := claims(c).CanCurate(d.Project)
-	out := []catalog.Version{}
-	for _, v := range vs {
-		if h := v.Head(); h.Visible(drafts) {
-			out = append(out, v)
-		}
+	page := versionsPage{Versions: heads}
+	if next > 0 {
+		page.NextAfter = &next
 	}
-	return c.JSON(http.StatusOK, out)
+	return c.JSON(http.StatusOK, page)
 }
 
 // version resolves the :version selector (a number, latest, a snapshot id

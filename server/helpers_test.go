@@ -232,13 +232,43 @@ func (e *testEnv) createDataset(project, name, profile string) {
 	e.mustStatus(r, http.StatusCreated, "create dataset "+project+"/"+name)
 }
 
-// versions lists a dataset's versions as admin.
+// heads lists a dataset's versions as token sees them, following the
+// pages of size limit (0: the server's default).
+func (e *testEnv) heads(project, dataset, token string, limit int) []catalog.VersionHead {
+	e.t.Helper()
+	out := []catalog.VersionHead{}
+	after := 0
+	for {
+		q := fmt.Sprintf("?after=%d", after)
+		if limit > 0 {
+			q += fmt.Sprintf("&limit=%d", limit)
+		}
+		r := e.get("/api/v1/projects/"+project+"/datasets/"+dataset+"/versions"+q, token)
+		e.mustStatus(r, http.StatusOK, "list versions")
+		var page versionsPage
+		e.decode(r, &page)
+		out = append(out, page.Versions...)
+		if page.NextAfter == nil {
+			return out
+		}
+		if *page.NextAfter <= after {
+			e.t.Fatalf("next_after %d does not move past %d", *page.NextAfter, after)
+		}
+		after = *page.NextAfter
+	}
+}
+
+// versions lists a dataset's versions as admin, whole.
 func (e *testEnv) versions(project, dataset string) []catalog.Version {
 	e.t.Helper()
-	r := e.get("/api/v1/projects/"+project+"/datasets/"+dataset+"/versions", e.admin)
-	e.mustStatus(r, http.StatusOK, "list versions")
 	var vs []catalog.Version
-	e.decode(r, &vs)
+	for _, h := range e.heads(project, dataset, e.admin, 0) {
+		r := e.get(fmt.Sprintf("/api/v1/projects/%s/datasets/%s/versions/%d", project, dataset, h.Number), e.admin)
+		e.mustStatus(r, http.StatusOK, "get version")
+		var v catalog.Version
+		e.decode(r, &v)
+		vs = append(vs, v)
+	}
 	return vs
 }
 
