@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"hash"
 	"io"
+	"log/slog"
 	"path/filepath"
 	"time"
 
@@ -94,7 +95,54 @@ const RuleOutsideWindow = "outside_window"
 // appended again, while the latest version still holds the file they made,
 // return the version they made the first time, with status duplicate; so
 // does any upload whose new version would hold the latest one's files.
+//
+// Once reading has begun, every upload leaves a record: one that fails for
+// another reason than its content is recorded with status failed and a
+// rule, and the error wraps ErrNoSpace (disk full), ErrClientGone (the
+// context ended or the body was cut off), ErrUploadTooLarge (the caller's
+// limit), ErrBodyTimeout (the body stalled) or, for a fault of the
+// server, nothing more. Work stops as soon as ctx ends, at the latest
+// after 4,096 more events.
 func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions) (*IngestResult, error) {
+	var st ingestState
+	res, err := s.ingest(ctx, project, dataset, src, opt, &st)
+	if err == nil || res != nil || st.up == nil {
+		return res, err
+	}
+	// Failed after reading began, for a reason other than the file's
+	// content. Its temp files are gone by now (ingest's defers), which a
+	// full disk needs before the record can be written.
+	up := *st.up
+	rule, msg, sentinel := failure(ctx, err)
+	up.Bytes = st.raw.n
+	up.Status = UploadFailed
+	up.Error = &UploadError{Rule: rule, Message: msg}
+	if fe, ok := schema.AsFileError(err); ok {
+		up.Error.Line = fe.Line
+	}
+	if rerr := s.recordUpload(st.ds, &up); rerr != nil {
+		return nil, errors.Join(err, rerr)
+	}
+	lvl := slog.LevelWarn
+	if sentinel == nil {
+		lvl = slog.LevelError
+	}
+	s.opt.Logger.Log(context.Background(), lvl, "upload failed", "dataset", st.ds.Ref(), "upload", up.ID, "rule", rule, "bytes", up.Bytes, "err", err)
+	if sentinel != nil {
+		err = fmt.Errorf("%w: %w", sentinel, err)
+	}
+	return &IngestResult{Upload: up}, err
+}
+
+// ingestState is what Ingest needs of an ingest that failed: the upload
+// as far as it got.
+type ingestState struct {
+	ds  *Dataset
+	up  *Upload
+	raw *hashCounter
+}
+
+func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions, st *ingestState) (*IngestResult, error) {
 	if err := opt.Validate(); err != nil {
 		return nil, err
 	}
@@ -121,6 +169,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	}
 
 	raw := &hashCounter{h: sha256.New()}
+	st.ds, st.up, st.raw = ds, &up, raw
 	tee := io.TeeReader(src, raw)
 	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location()}
 	if ds.WindowFrom != nil {
@@ -135,7 +184,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 
 	fail := func(err error) (*IngestResult, error) {
 		up.Bytes = raw.n
-		if fe, ok := schema.AsFileError(err); ok {
+		if fe, ok := schema.AsFileError(err); ok && isContentFault(ctx, err) {
 			up.Status = UploadFailed
 			up.Error = &UploadError{Rule: fe.Rule, Line: fe.Line, Column: fe.Column, Message: fe.Msg}
 			if rerr := s.recordUpload(ds, &up); rerr != nil {
@@ -179,7 +228,13 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	defer sw.Remove()
 	win := newWindowCheck(opt)
 	sacc := summary.New(summaryOptions(ds))
+	var n int
 	err = srt.Finish(func(e *schema.Event) error {
+		if n++; n&4095 == 0 {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+		}
 		acc.Observe(e)
 		sacc.Observe(e)
 		win.observe(e)
@@ -237,6 +292,13 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		testHookBeforeCommit()
 	}
 	return s.commit(ctx, ds, &up, entry, sacc, rep, qopt, pz.KeyID(), opt)
+}
+
+// isContentFault reports whether a file error is the file's own fault
+// rather than the server's or the connection's.
+func isContentFault(ctx context.Context, err error) bool {
+	_, _, sentinel := failure(ctx, err)
+	return sentinel == nil
 }
 
 // removing reports whether opt allows an upload without rows: a

@@ -169,16 +169,44 @@ func (s *Server) upload(c echo.Context) error {
 	if err != nil {
 		return err
 	}
+	release, err := s.takeUploadSlot(claims(c))
+	if err != nil {
+		return err
+	}
+	defer release()
 	req := c.Request()
 	// The plain ResponseWriter, not echo's wrapper: only net/http's own
 	// writer learns from MaxBytesReader that the rest of the body is to be
 	// dropped, and then closes the connection after the 413.
-	body := http.MaxBytesReader(c.Response().Writer, req.Body, s.cfg.MaxUploadBytes)
+	w := c.Response().Writer
+	body := &uploadBody{
+		r:    http.MaxBytesReader(w, req.Body, s.cfg.MaxUploadBytes),
+		rc:   http.NewResponseController(w),
+		idle: s.cfg.BodyIdleTimeout,
+	}
+	defer body.rc.SetReadDeadline(time.Time{})
 	res, err := s.cfg.Store.Ingest(req.Context(), d.Project, d.Name, body, opt)
-	var mbe *http.MaxBytesError
+	withUpload := func(he *httpError) error {
+		if res != nil {
+			he.body.Upload = res.Upload
+			if e := res.Upload.Error; e != nil {
+				he.body.Rule = e.Rule
+			}
+		}
+		return he
+	}
 	switch {
-	case errors.As(err, &mbe):
-		return fail(http.StatusRequestEntityTooLarge, "too_large", "upload is larger than the server's limit of %d bytes", s.cfg.MaxUploadBytes)
+	case errors.Is(err, catalog.ErrUploadTooLarge):
+		return withUpload(fail(http.StatusRequestEntityTooLarge, "too_large", "upload is larger than the server's limit of %d bytes (flowcat serve --max-upload-bytes)", s.cfg.MaxUploadBytes))
+	case errors.Is(err, catalog.ErrBodyTimeout):
+		return withUpload(fail(http.StatusRequestTimeout, "body_timeout", "no byte of the upload's body came for %s (flowcat serve --body-idle-timeout); nothing of it was kept", s.cfg.BodyIdleTimeout))
+	case errors.Is(err, catalog.ErrNoSpace):
+		// RFC 4918 section 11.5.
+		return withUpload(fail(http.StatusInsufficientStorage, "insufficient_storage", "the server's disk is full; nothing of the upload was kept; try again later"))
+	case errors.Is(err, catalog.ErrClientGone):
+		// Nobody reads the answer; the status is for the access log
+		// (499 is common practice for this, not a standard code).
+		return withUpload(fail(499, "client_gone", "the client went away before the upload was done"))
 	case errors.Is(err, catalog.ErrFileInvalid):
 		e := res.Upload.Error
 		he := fail(http.StatusBadRequest, "file_invalid", "%s", err.Error())
@@ -191,6 +219,9 @@ func (s *Server) upload(c echo.Context) error {
 		rejectedDetail(&he.body, res.Upload)
 		he.body.Upload = res.Upload
 		return he
+	case err != nil && res != nil:
+		s.cfg.Logger.Error("upload failed", "dataset", d.Ref(), "upload", res.Upload.ID, "err", err)
+		return withUpload(fail(http.StatusInternalServerError, "internal", "the upload failed on the server; the server log has the details; nothing of it was kept"))
 	case err != nil:
 		return catalogError(err)
 	}
@@ -199,6 +230,53 @@ func (s *Server) upload(c echo.Context) error {
 		status = http.StatusOK
 	}
 	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version})
+}
+
+// takeUploadSlot counts an upload of the token in progress, or refuses
+// it when the token has MaxUploadsPerToken already (429, RFC 6585).
+func (s *Server) takeUploadSlot(cl *Claims) (release func(), err error) {
+	key := cl.ID
+	if key == "" {
+		key = "sub:" + cl.Subject
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.uploading[key] >= s.cfg.MaxUploadsPerToken {
+		he := fail(http.StatusTooManyRequests, "too_many_uploads", "this token has %d uploads in progress, the server's limit (flowcat serve --max-uploads-per-token); wait for one to finish", s.uploading[key])
+		return nil, he
+	}
+	s.uploading[key]++
+	return func() {
+		s.mu.Lock()
+		defer s.mu.Unlock()
+		if s.uploading[key]--; s.uploading[key] <= 0 {
+			delete(s.uploading, key)
+		}
+	}, nil
+}
+
+// uploadBody reads an upload's body: each read must bring a byte within
+// idle (a read deadline on the connection), and going past the size limit
+// is catalog.ErrUploadTooLarge. At the end of the body the deadline is
+// lifted, so that the server's wait for the client's next request (which
+// tells a closed connection) is not cut short.
+type uploadBody struct {
+	r    io.Reader
+	rc   *http.ResponseController
+	idle time.Duration
+}
+
+func (b *uploadBody) Read(p []byte) (int, error) {
+	b.rc.SetReadDeadline(time.Now().Add(b.idle))
+	n, err := b.r.Read(p)
+	var mbe *http.MaxBytesError
+	switch {
+	case err == io.EOF:
+		b.rc.SetReadDeadline(time.Time{})
+	case errors.As(err, &mbe):
+		err = fmt.Errorf("%w: %w", catalog.ErrUploadTooLarge, err)
+	}
+	return n, err
 }
 
 // uploadOptions reads an upload's query: filename, mode, and for mode

@@ -9,6 +9,7 @@ import (
 	"log/slog"
 	"net/http"
 	"strings"
+	"sync"
 	"time"
 
 	"github.com/labstack/echo/v4"
@@ -24,18 +25,35 @@ type Config struct {
 	Store     *catalog.Store
 	Authority *Authority
 	Logger    *slog.Logger // default slog.Default()
-	// MaxUploadBytes bounds the body of one upload (default 8 GiB).
+	// MaxUploadBytes bounds the body of one upload as it comes over the
+	// wire: the bytes of the request body, compressed if the file is
+	// gzip, after any HTTP transfer coding (default 8 GiB; 413 above).
 	MaxUploadBytes int64
+	// MaxUploadsPerToken bounds the uploads one token (its jti) has in
+	// progress at once (default 4; 429 above).
+	MaxUploadsPerToken int
+	// BodyIdleTimeout is how long the server waits for the next byte of a
+	// request body before it gives up (default 60 s; 408).
+	BodyIdleTimeout time.Duration
 	// CitationAuthor is the author CITATION.cff files name (the lab that
 	// curates the data); default the project's title, or its name.
 	CitationAuthor string
 }
+
+// Defaults of Config.
+const (
+	DefaultMaxUploadsPerToken = 4
+	DefaultBodyIdleTimeout    = 60 * time.Second
+)
 
 // Server serves the API.
 type Server struct {
 	cfg    Config
 	echo   *echo.Echo
 	routes []route
+
+	mu        sync.Mutex
+	uploading map[string]int // uploads in progress per token id
 }
 
 // New returns a server for cfg.
@@ -46,11 +64,17 @@ func New(cfg Config) *Server {
 	if cfg.MaxUploadBytes <= 0 {
 		cfg.MaxUploadBytes = 8 << 30
 	}
+	if cfg.MaxUploadsPerToken <= 0 {
+		cfg.MaxUploadsPerToken = DefaultMaxUploadsPerToken
+	}
+	if cfg.BodyIdleTimeout <= 0 {
+		cfg.BodyIdleTimeout = DefaultBodyIdleTimeout
+	}
 	e := echo.New()
 	e.HideBanner = true
 	e.HidePort = true
 	e.HTTPErrorHandler = errorHandler(cfg.Logger)
-	s := &Server{cfg: cfg, echo: e}
+	s := &Server{cfg: cfg, echo: e, uploading: map[string]int{}}
 	e.Use(middleware.Recover())
 	e.Use(middleware.RequestID())
 	e.Use(s.accessLog)
