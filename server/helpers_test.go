@@ -78,7 +78,12 @@ func (e *testEnv) in(t *testing.T) *testEnv {
 // Each opt may change the server's Config before New.
 func newEnv(t *testing.T, opts ...func(*Config)) *testEnv {
 	t.Helper()
-	dir := t.TempDir()
+	return newEnvAt(t, t.TempDir(), opts...)
+}
+
+// newEnvAt is newEnv with the data folder dir.
+func newEnvAt(t *testing.T, dir string, opts ...func(*Config)) *testEnv {
+	t.Helper()
 	blobs, err := localfs.New(filepath.Join(dir, "blobs"))
 	if err != nil {
 		t.Fatal(err)
