@@ -186,6 +186,12 @@ func (s *Server) upload(c echo.Context) error {
 	}
 	defer body.rc.SetReadDeadline(time.Time{})
 	res, err := s.cfg.Store.Ingest(req.Context(), d.Project, d.Name, body, opt)
+	if err != nil {
+		// Unread body: closing it tells net/http not to read the rest
+		// before answering (a stalled client would hold the answer) and
+		// to close the connection after it.
+		req.Body.Close()
+	}
 	withUpload := func(he *httpError) error {
 		if res != nil {
 			he.body.Upload = res.Upload

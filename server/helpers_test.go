@@ -52,6 +52,7 @@ type testEnv struct {
 	auth    *Authority
 	store   *catalog.Store
 	srv     *httptest.Server
+	server  *Server
 	log     *lockedBuffer
 	rec     *recorder
 	admin   string // an admin token
@@ -114,7 +115,7 @@ func newEnvAt(t *testing.T, dir string, opts ...func(*Config)) *testEnv {
 	}
 	s := New(cfg)
 	srv := httptest.NewServer(s)
-	e := &testEnv{t: t, dir: dir, key: key, auth: auth, store: store, srv: srv, log: logs, rec: &recorder{}, timeout: 30 * time.Second}
+	e := &testEnv{t: t, dir: dir, key: key, auth: auth, store: store, srv: srv, server: s, log: logs, rec: &recorder{}, timeout: 30 * time.Second}
 	t.Cleanup(func() {
 		srv.Close()
 		store.Close()
