@@ -10,7 +10,6 @@ import (
 	"hash"
 	"io"
 	"log/slog"
-	"path/filepath"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
@@ -25,7 +24,7 @@ import (
 
 // IngestOptions describe one upload.
 type IngestOptions struct {
-	Filename string // as the partner named it; base name only is kept
+	Filename string // as the partner named it; CleanFilename of it is kept
 	By       string // token subject of the uploader
 	Mode     Mode   // how the events combine with the latest version; empty means ModeAppend
 	// From and To bound the half-open window [From, To) a ModeReplaceWindow
@@ -164,9 +163,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	}
 	received := s.opt.Now().UTC()
 	up := Upload{Dataset: ds.Ref(), ReceivedAt: received, By: opt.By, Mode: opt.Mode}
-	if opt.Filename != "" {
-		up.Filename = filepath.Base(opt.Filename)
-	}
+	up.Filename = CleanFilename(opt.Filename)
 
 	raw := &hashCounter{h: sha256.New()}
 	st.ds, st.up, st.raw = ds, &up, raw
