@@ -178,20 +178,8 @@ func (s *Server) upload(c echo.Context) error {
 	// The plain ResponseWriter, not echo's wrapper: only net/http's own
 	// writer learns from MaxBytesReader that the rest of the body is to be
 	// dropped, and then closes the connection after the 413.
-	w := c.Response().Writer
-	body := &uploadBody{
-		r:    http.MaxBytesReader(w, req.Body, s.cfg.MaxUploadBytes),
-		rc:   http.NewResponseController(w),
-		idle: s.cfg.BodyIdleTimeout,
-	}
-	defer body.rc.SetReadDeadline(time.Time{})
+	body := sizedBody{http.MaxBytesReader(c.Response().Writer, req.Body, s.cfg.MaxUploadBytes)}
 	res, err := s.cfg.Store.Ingest(req.Context(), d.Project, d.Name, body, opt)
-	if err != nil {
-		// Unread body: closing it tells net/http not to read the rest
-		// before answering (a stalled client would hold the answer) and
-		// to close the connection after it.
-		req.Body.Close()
-	}
 	withUpload := func(he *httpError) error {
 		if res != nil {
 			he.body.Upload = res.Upload
@@ -261,25 +249,14 @@ func (s *Server) takeUploadSlot(cl *Claims) (release func(), err error) {
 	}, nil
 }
 
-// uploadBody reads an upload's body: each read must bring a byte within
-// idle (a read deadline on the connection), and going past the size limit
-// is catalog.ErrUploadTooLarge. At the end of the body the deadline is
-// lifted, so that the server's wait for the client's next request (which
-// tells a closed connection) is not cut short.
-type uploadBody struct {
-	r    io.Reader
-	rc   *http.ResponseController
-	idle time.Duration
-}
+// sizedBody reads an upload's body through http.MaxBytesReader: going
+// past the size limit is catalog.ErrUploadTooLarge.
+type sizedBody struct{ r io.Reader }
 
-func (b *uploadBody) Read(p []byte) (int, error) {
-	b.rc.SetReadDeadline(time.Now().Add(b.idle))
+func (b sizedBody) Read(p []byte) (int, error) {
 	n, err := b.r.Read(p)
 	var mbe *http.MaxBytesError
-	switch {
-	case err == io.EOF:
-		b.rc.SetReadDeadline(time.Time{})
-	case errors.As(err, &mbe):
+	if errors.As(err, &mbe) {
 		err = fmt.Errorf("%w: %w", catalog.ErrUploadTooLarge, err)
 	}
 	return n, err
@@ -610,12 +587,68 @@ func (s *Server) download(c echo.Context) error {
 		return catalogError(err)
 	}
 	defer r.Close()
+	if err := boundedRange(c.Request().Header.Get("Range"), r.Size()); err != nil {
+		c.Response().Header().Set("Content-Range", fmt.Sprintf("bytes */%d", r.Size()))
+		return err
+	}
 	h := c.Response().Header()
 	h.Set(echo.HeaderContentType, "application/vnd.apache.parquet")
 	h.Set("ETag", `"`+id.String()+`"`)
 	h.Set("Cache-Control", "private, max-age=31536000, immutable")
 	h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s"`, id.String()+".parquet"))
 	http.ServeContent(c.Response(), c.Request(), "", time.Time{}, r)
+	return nil
+}
+
+// maxRanges bounds the ranges of one Range header.
+const maxRanges = 16
+
+// boundedRange refuses a Range header of more than maxRanges ranges, or
+// whose ranges add up to more than the file (overlaps): RFC 9110 section
+// 14.2 lets a server reject such headers, which ask for many times the
+// file in one answer. Headers it cannot parse are left to
+// http.ServeContent.
+func boundedRange(h string, size int64) error {
+	spec, ok := strings.CutPrefix(h, "bytes=")
+	if !ok {
+		return nil
+	}
+	parts := strings.Split(spec, ",")
+	if len(parts) > maxRanges {
+		return fail(http.StatusRequestedRangeNotSatisfiable, "range_limit", "Range: %d ranges, more than the limit of %d", len(parts), maxRanges)
+	}
+	var total int64
+	for _, p := range parts {
+		a, b, ok := strings.Cut(strings.TrimSpace(p), "-")
+		if !ok {
+			return nil
+		}
+		var n int64
+		switch {
+		case a == "":
+			x, err := strconv.ParseInt(b, 10, 64)
+			if err != nil {
+				return nil
+			}
+			n = min(x, size)
+		default:
+			x, err := strconv.ParseInt(a, 10, 64)
+			if err != nil {
+				return nil
+			}
+			y := size - 1
+			if b != "" {
+				if y, err = strconv.ParseInt(b, 10, 64); err != nil {
+					return nil
+				}
+			}
+			n = max(min(y, size-1)-x+1, 0)
+		}
+		total += n
+	}
+	if total > size {
+		return fail(http.StatusRequestedRangeNotSatisfiable, "range_limit", "Range: the ranges add up to %d bytes, more than the file's %d (overlapping ranges)", total, size)
+	}
 	return nil
 }
 

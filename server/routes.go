@@ -1,10 +1,12 @@
 package server
 
 import (
+	"io"
 	"net/http"
 	"net/url"
 	"slices"
 	"strings"
+	"time"
 
 	"github.com/labstack/echo/v4"
 )
@@ -127,4 +129,49 @@ func matchPath(pattern, path string) bool {
 		}
 	}
 	return true
+}
+
+// idleBodies bounds the wait for each byte of a request body (a read
+// deadline on the connection, BodyIdleTimeout after each read): a client
+// that stalls mid-body gets 408, however long a steady upload takes. At
+// the end of the body the deadline is lifted, so that net/http's watch
+// for a closed connection during a long answer is not cut short. A
+// handler that fails with the body unread closes it, so that net/http
+// does not read the rest before answering and closes the connection.
+func (s *Server) idleBodies(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		req := c.Request()
+		if req.Body == nil || req.Body == http.NoBody {
+			return next(c)
+		}
+		b := &idleBody{ReadCloser: req.Body, rc: http.NewResponseController(c.Response().Writer), idle: s.cfg.BodyIdleTimeout}
+		req.Body = b
+		err := next(c)
+		if err != nil {
+			b.Close()
+		}
+		if !b.eof {
+			b.rc.SetReadDeadline(time.Time{})
+		}
+		return err
+	}
+}
+
+type idleBody struct {
+	io.ReadCloser
+	rc   *http.ResponseController
+	idle time.Duration
+	eof  bool
+}
+
+func (b *idleBody) Read(p []byte) (int, error) {
+	if !b.eof {
+		b.rc.SetReadDeadline(time.Now().Add(b.idle))
+	}
+	n, err := b.ReadCloser.Read(p)
+	if err == io.EOF && !b.eof {
+		b.eof = true
+		b.rc.SetReadDeadline(time.Time{})
+	}
+	return n, err
 }

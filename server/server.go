@@ -125,6 +125,9 @@ func New(cfg Config) *Server {
 			mw = append(mw, s.authenticate)
 		}
 		mw = append(mw, knownParams(r.params))
+		if r.method == http.MethodPost {
+			mw = append(mw, s.idleBodies)
+		}
 		e.Add(r.method, r.path, r.h, mw...)
 	}
 	e.RouteNotFound("/*", s.notFound)
