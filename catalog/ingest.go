@@ -193,7 +193,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 
-	rd, err := schema.NewReader(tee, prof, schema.ReaderOptions{Name: up.Filename})
+	rd, err := schema.NewReader(tee, prof, schema.ReaderOptions{Name: up.Filename, Limits: s.opt.Limits})
 	if err == nil {
 		err = readAll(ctx, rd, pz, acc, srt)
 	}

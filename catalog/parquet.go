@@ -150,11 +150,14 @@ func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error
 	if err != nil {
 		return fmt.Errorf("parquet: %w", err)
 	}
-	pr := parquet.NewGenericReader[schema.Event](f)
-	defer pr.Close()
+	er, err := NewEventReader(parquet.NewGenericReader[schema.Event](f))
+	if err != nil {
+		return err
+	}
+	defer er.Close()
 	buf := make([]schema.Event, 1024)
 	for {
-		n, err := pr.Read(buf)
+		n, err := er.Read(buf)
 		for i := range buf[:n] {
 			if ferr := fn(&buf[i]); ferr != nil {
 				return ferr
@@ -168,3 +171,58 @@ func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error
 		}
 	}
 }
+
+// EventReader decodes the events of a snapshot file or row group. Every
+// reader of snapshot events goes through it: parquet-go turns a TIMESTAMP
+// into a time.Time by way of int64 nanoseconds, which hold only the
+// instants of 1677-09-21 to 2262-04-11, while occurred_at holds any instant
+// of the years 0001-9999 in microseconds; EventReader takes occurred_at
+// from its stored microseconds instead.
+type EventReader struct {
+	r    *parquet.GenericReader[schema.Event]
+	at   int // leaf column of occurred_at
+	rows []parquet.Row
+}
+
+// NewEventReader reads events through r, a reader of snapshot rows (from
+// parquet.NewGenericReader or NewGenericRowGroupReader); it fails when r's
+// schema has no occurred_at column.
+func NewEventReader(r *parquet.GenericReader[schema.Event]) (*EventReader, error) {
+	leaf, ok := r.Schema().Lookup(string(schema.FieldOccurredAt))
+	if !ok {
+		r.Close()
+		return nil, fmt.Errorf("parquet: the file has no %s column", schema.FieldOccurredAt)
+	}
+	return &EventReader{r: r, at: leaf.ColumnIndex}, nil
+}
+
+// Read decodes up to len(buf) events into buf. Like io.Reader it returns
+// the number read and io.EOF at the end; it may read fewer than len(buf)
+// before the end.
+func (er *EventReader) Read(buf []schema.Event) (int, error) {
+	if cap(er.rows) < len(buf) {
+		er.rows = make([]parquet.Row, len(buf))
+	}
+	rows := er.rows[:len(buf)]
+	n, err := er.r.ReadRows(rows)
+	sch := er.r.Schema()
+	for i, row := range rows[:n] {
+		if rerr := sch.Reconstruct(&buf[i], row); rerr != nil {
+			return i, rerr
+		}
+		for _, v := range row {
+			if v.Column() == er.at {
+				if v.IsNull() {
+					buf[i].OccurredAt = time.Time{}
+				} else {
+					buf[i].OccurredAt = time.UnixMicro(v.Int64()).UTC()
+				}
+				break
+			}
+		}
+	}
+	return n, err
+}
+
+// Close releases the underlying reader.
+func (er *EventReader) Close() error { return er.r.Close() }

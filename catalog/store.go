@@ -51,6 +51,10 @@ type Options struct {
 	RunEvents int
 	// RowGroupRows bounds the rows of a Parquet row group (default 65536).
 	RowGroupRows int64
+	// Limits bound what one uploaded file may hold: line length, columns,
+	// bytes after decompression and rows (see schema.Limits; zero fields
+	// take the defaults). Going over one fails the upload, naming it.
+	Limits schema.Limits
 }
 
 // Store is the catalog: metadata in bbolt, snapshot files in a blob.Store.

@@ -15,6 +15,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
+	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/server"
 )
 
@@ -141,7 +142,7 @@ func (d dataDir) findMasterKey(flagFile string) (anonymize.MasterKey, string, er
 	return anonymize.MasterKey{}, "", fmt.Errorf("no master key: give --master-key FILE, or set FLOWCAT_MASTER_KEY (64 hex digits) or FLOWCAT_MASTER_KEY_FILE; `flowcat init` creates %s", d.masterKey())
 }
 
-func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger) (*catalog.Store, error) {
+func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger, lim ...schema.Limits) (*catalog.Store, error) {
 	blobs, err := localfs.New(d.blobs())
 	if err != nil {
 		return nil, err
@@ -151,5 +152,9 @@ func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger) (*catal
 	}
 	// Open clears what an interrupted run left in tmp/ and blobs/tmp/
 	// once it holds the bbolt lock (only pseudonymized events).
-	return catalog.Open(d.db(), blobs, catalog.Options{Master: master, TempDir: d.tmp(), Logger: log})
+	opt := catalog.Options{Master: master, TempDir: d.tmp(), Logger: log}
+	if len(lim) > 0 {
+		opt.Limits = lim[0]
+	}
+	return catalog.Open(d.db(), blobs, opt)
 }

@@ -13,6 +13,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/server"
 )
 
@@ -22,6 +23,7 @@ func newServeCmd(e *env) *cobra.Command {
 	var maxUploads int
 	var bodyIdle time.Duration
 	var author string
+	var lim schema.Limits
 	c := &cobra.Command{
 		Use:   "serve --data DIR --addr HOST:PORT",
 		Short: "Run the catalog server on a data directory",
@@ -34,7 +36,7 @@ func newServeCmd(e *env) *cobra.Command {
 			d := dataDir(dir)
 			ctx, stop := signal.NotifyContext(cmd.Context(), syscall.SIGINT, syscall.SIGTERM)
 			defer stop()
-			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, maxUploads: maxUploads, bodyIdle: bodyIdle, citationAuthor: author}, log)
+			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, maxUploads: maxUploads, bodyIdle: bodyIdle, citationAuthor: author, limits: lim}, log)
 			if err != nil {
 				return err
 			}
@@ -48,6 +50,10 @@ func newServeCmd(e *env) *cobra.Command {
 	c.Flags().Int64Var(&maxUpload, "max-upload-bytes", 8<<30, "largest upload body accepted, in bytes as sent (gzip counts compressed; 413 above)")
 	c.Flags().IntVar(&maxUploads, "max-uploads-per-token", server.DefaultMaxUploadsPerToken, "uploads one token may have in progress at once (429 above)")
 	c.Flags().DurationVar(&bodyIdle, "body-idle-timeout", server.DefaultBodyIdleTimeout, "longest wait for the next byte of a request body (408 after)")
+	c.Flags().IntVar(&lim.MaxLineBytes, "max-line-bytes", schema.DefaultMaxLineBytes, "longest line of an uploaded file (CSV/TSV physical line, JSON Lines line)")
+	c.Flags().IntVar(&lim.MaxColumns, "max-columns", schema.DefaultMaxColumns, "most columns in an uploaded CSV/TSV header")
+	c.Flags().Int64Var(&lim.MaxBytes, "max-decompressed-bytes", schema.DefaultMaxBytes, "largest uploaded file after gzip decompression")
+	c.Flags().Int64Var(&lim.MaxRows, "max-rows", schema.DefaultMaxRows, "most data rows in one uploaded file")
 	c.Flags().StringVar(&author, "citation-author", "", "author named in CITATION.cff files, e.g. the lab (default: the project's title)")
 	return c
 }
@@ -58,6 +64,7 @@ type serverOptions struct {
 	maxUploads     int
 	bodyIdle       time.Duration
 	citationAuthor string
+	limits         schema.Limits // of uploaded files
 }
 
 // running is a started server.
@@ -82,7 +89,7 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, so ser
 	if err != nil {
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	st, err := d.openStore(master, log)
+	st, err := d.openStore(master, log, so.limits)
 	if err != nil {
 		return nil, fmt.Errorf("serve: %w", err)
 	}

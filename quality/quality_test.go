@@ -3,6 +3,7 @@ package quality
 import (
 	"bytes"
 	"encoding/json"
+	"fmt"
 	"maps"
 	"reflect"
 	"slices"
@@ -467,5 +468,39 @@ func TestNoValuesInReport(t *testing.T) {
 		if bytes.Contains(b, []byte(v)) {
 			t.Errorf("report holds value %s", v)
 		}
+	}
+}
+
+// TestMergeManyNames merges reports with many unmapped columns, queues
+// and sites. A merge that searched a list for each name would take
+// quadratic time here (10^10 comparisons) and not finish within the test
+// timeout; the result must be the exact union.
+func TestMergeManyNames(t *testing.T) {
+	const n = 100000
+	mk := func(off int) *Report {
+		r := run(fixtureOptions(), nil, nil, nil)
+		r.UnmappedColumns = nil
+		for i := range n {
+			r.UnmappedColumns = append(r.UnmappedColumns, fmt.Sprintf("col-%07d", off+i))
+		}
+		r.Raw.Waits = nil
+		for i := range n {
+			r.Raw.Waits = append(r.Raw.Waits, WaitRaw{Queue: fmt.Sprintf("q-%07d", off+i), Activity: "a", Waits: 1})
+		}
+		return r
+	}
+	m, err := MergeReports(mk(0), mk(n/2))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(m.UnmappedColumns) != n+n/2 || m.UnmappedColumns[0] != "col-0000000" || m.UnmappedColumns[len(m.UnmappedColumns)-1] != fmt.Sprintf("col-%07d", n+n/2-1) {
+		t.Errorf("%d unmapped columns, %q .. %q", len(m.UnmappedColumns), m.UnmappedColumns[0], m.UnmappedColumns[len(m.UnmappedColumns)-1])
+	}
+	var waits int64
+	for _, w := range m.Raw.Waits {
+		waits += w.Waits
+	}
+	if len(m.Raw.Waits) != n+n/2 || waits != 2*n {
+		t.Errorf("%d wait groups holding %d waits, want %d and %d", len(m.Raw.Waits), waits, n+n/2, 2*n)
 	}
 }

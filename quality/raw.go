@@ -117,6 +117,7 @@ var ErrIncompatible = errors.New("incompatible reports")
 // seen. The settings of the first report apply.
 func MergeReports(rs ...*Report) (*Report, error) {
 	var out *Report
+	var unmapped map[string]bool // out.UnmappedColumns, as a set
 	for i, r := range rs {
 		if r == nil {
 			continue
@@ -145,8 +146,15 @@ func MergeReports(rs ...*Report) (*Report, error) {
 			out.Rejections[j].Count += rc.Count
 			out.Rejections[j].Samples = appendSamples(out.Rejections[j].Samples, max, rc.Samples)
 		}
+		if unmapped == nil {
+			unmapped = make(map[string]bool, len(out.UnmappedColumns))
+			for _, c := range out.UnmappedColumns {
+				unmapped[c] = true
+			}
+		}
 		for _, c := range r.UnmappedColumns {
-			if !slices.Contains(out.UnmappedColumns, c) {
+			if !unmapped[c] {
+				unmapped[c] = true
 				out.UnmappedColumns = append(out.UnmappedColumns, c)
 			}
 		}
@@ -207,9 +215,16 @@ func mergeRaw(dst, src *Raw) {
 	for _, k := range sortedKeys(src.Samples) {
 		dst.Samples[k] = appendSamples(dst.Samples[k], max, src.Samples[k])
 	}
+	// Indexes by name keep a merge linear in the number of queues and
+	// sites, however many there are.
+	wi := make(map[[2]string]int, len(dst.Waits))
+	for j, w := range dst.Waits {
+		wi[[2]string{w.Queue, w.Activity}] = j
+	}
 	for _, w := range src.Waits {
-		j := slices.IndexFunc(dst.Waits, func(x WaitRaw) bool { return x.Queue == w.Queue && x.Activity == w.Activity })
-		if j < 0 {
+		j, ok := wi[[2]string{w.Queue, w.Activity}]
+		if !ok {
+			wi[[2]string{w.Queue, w.Activity}] = len(dst.Waits)
 			dst.Waits = append(dst.Waits, WaitRaw{Queue: w.Queue, Activity: w.Activity})
 			j = len(dst.Waits) - 1
 		}
@@ -217,10 +232,15 @@ func mergeRaw(dst, src *Raw) {
 		dst.Waits[j].NoEnqueue += w.NoEnqueue
 		dst.Waits[j].NoStart += w.NoStart
 	}
+	si := make(map[string]int, len(dst.Sites))
+	for j := range dst.Sites {
+		si[dst.Sites[j].Site] = j
+	}
 	for i := range src.Sites {
 		s := &src.Sites[i]
-		j := slices.IndexFunc(dst.Sites, func(x SiteRaw) bool { return x.Site == s.Site })
-		if j < 0 {
+		j, ok := si[s.Site]
+		if !ok {
+			si[s.Site] = len(dst.Sites)
 			dst.Sites = append(dst.Sites, SiteRaw{Site: s.Site, Counts: map[string]int64{},
 				NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{}})
 			j = len(dst.Sites) - 1

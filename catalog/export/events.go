@@ -285,7 +285,7 @@ type cursor struct {
 	closer io.Closer
 	groups []parquet.RowGroup // row groups to decode
 	gi     int
-	rd     *parquet.GenericReader[schema.Event]
+	rd     *catalog.EventReader
 	buf    []schema.Event
 	pos, n int
 	run    []schema.Event
@@ -405,7 +405,11 @@ func (c *cursor) raw() (*schema.Event, error) {
 				c.eof = true
 				return nil, nil
 			}
-			c.rd = parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi])
+			rd, err := catalog.NewEventReader(parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi]))
+			if err != nil {
+				return nil, fmt.Errorf("export: %w", err)
+			}
+			c.rd = rd
 			c.gi++
 		}
 		clear(c.buf)
