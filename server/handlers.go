@@ -8,6 +8,7 @@ import (
 	"io"
 	"mime"
 	"net/http"
+	"os"
 	"slices"
 	"strconv"
 	"strings"
@@ -198,9 +199,8 @@ func (s *Server) upload(c echo.Context) error {
 		// RFC 4918 section 11.5.
 		return withUpload(fail(http.StatusInsufficientStorage, "insufficient_storage", "the server's disk is full; nothing of the upload was kept; try again later"))
 	case errors.Is(err, catalog.ErrClientGone):
-		// Nobody reads the answer; the status is for the access log
-		// (499 is common practice for this, not a standard code).
-		return withUpload(fail(499, "client_gone", "the client went away before the upload was done"))
+		// Nobody reads the answer; the status is for the access log.
+		return withUpload(fail(statusClientGone, "client_gone", "the client went away before the upload was done"))
 	case errors.Is(err, catalog.ErrFileInvalid):
 		e := res.Upload.Error
 		he := fail(http.StatusBadRequest, "file_invalid", "%s", err.Error())
@@ -477,10 +477,7 @@ type retractRequest struct {
 func (s *Server) setState(c echo.Context) error {
 	project, name := c.Param("project"), c.Param("dataset")
 	cl := claims(c)
-	action := c.Param("action")
-	if action != "publish" && action != "retract" {
-		return fail(http.StatusNotFound, "not_found", "no action %q: want publish or retract", action)
-	}
+	action := c.Path()[strings.LastIndexByte(c.Path(), '/')+1:] // publish or retract
 	if !cl.CanCurate(project) {
 		return forbidden(action + " versions of " + project + "/" + name)
 	}
@@ -665,6 +662,8 @@ func decodeJSON(c echo.Context, v any, shape string) error {
 	switch {
 	case errors.As(err, &mbe):
 		return fail(http.StatusRequestEntityTooLarge, "too_large", "request body: larger than %d bytes", maxRequestJSON)
+	case errors.Is(err, os.ErrDeadlineExceeded):
+		return fail(http.StatusRequestTimeout, "body_timeout", "request body: no byte came for a while (flowcat serve --body-idle-timeout)")
 	case err != nil:
 		return fail(http.StatusBadRequest, "invalid", "request body: want JSON %s: %v", shape, err)
 	}

@@ -85,6 +85,13 @@ func newEnv(t *testing.T, opts ...func(*Config)) *testEnv {
 // newEnvAt is newEnv with the data folder dir.
 func newEnvAt(t *testing.T, dir string, opts ...func(*Config)) *testEnv {
 	t.Helper()
+	return newEnvStore(t, dir, catalog.Options{}, opts...)
+}
+
+// newEnvStore is newEnvAt with the catalog options sopt (Master, TempDir
+// and Logger are set here).
+func newEnvStore(t *testing.T, dir string, sopt catalog.Options, opts ...func(*Config)) *testEnv {
+	t.Helper()
 	blobs, err := localfs.New(filepath.Join(dir, "blobs"))
 	if err != nil {
 		t.Fatal(err)
@@ -98,9 +105,8 @@ func newEnvAt(t *testing.T, dir string, opts ...func(*Config)) *testEnv {
 	}
 	logs := &lockedBuffer{}
 	logger := slog.New(slog.NewJSONHandler(logs, &slog.HandlerOptions{Level: slog.LevelDebug}))
-	store, err := catalog.Open(filepath.Join(dir, "catalog.db"), blobs, catalog.Options{
-		Master: master, TempDir: filepath.Join(dir, "tmp"), Logger: logger,
-	})
+	sopt.Master, sopt.TempDir, sopt.Logger = master, filepath.Join(dir, "tmp"), logger
+	store, err := catalog.Open(filepath.Join(dir, "catalog.db"), blobs, sopt)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -18,15 +18,39 @@ import (
 // `part` bytes of data (Content-Length says all of it).
 func (e *testEnv) rawUpload(token, dataset string, data []byte, part int) net.Conn {
 	e.t.Helper()
-	conn, err := net.Dial("tcp", e.srv.Listener.Addr().String())
-	if err != nil {
-		e.t.Fatal(err)
-	}
+	conn := e.dial()
 	fmt.Fprintf(conn, "POST /api/v1/projects/ward/datasets/%s/uploads?filename=raw.csv HTTP/1.1\r\nHost: x\r\nAuthorization: Bearer %s\r\nContent-Type: text/csv\r\nContent-Length: %d\r\n\r\n", dataset, token, len(data))
 	if _, err := conn.Write(data[:part]); err != nil {
 		e.t.Fatal(err)
 	}
 	return conn
+}
+
+// dial connects to the server.
+func (e *testEnv) dial() net.Conn {
+	e.t.Helper()
+	conn, err := net.Dial("tcp", e.srv.Listener.Addr().String())
+	if err != nil {
+		e.t.Fatal(err)
+	}
+	return conn
+}
+
+// readRaw reads one answer from conn (within 20 s).
+func readRaw(e *testEnv, conn interface{ Close() error }) response {
+	e.t.Helper()
+	c := conn.(net.Conn)
+	c.SetReadDeadline(time.Now().Add(20 * time.Second))
+	res, err := http.ReadResponse(bufio.NewReader(c), nil)
+	if err != nil {
+		e.t.Fatalf("no answer: %v", err)
+	}
+	defer res.Body.Close()
+	b, _ := io.ReadAll(res.Body)
+	e.rec.mu.Lock()
+	e.rec.bodies = append(e.rec.bodies, b)
+	e.rec.mu.Unlock()
+	return response{Status: res.StatusCode, Header: res.Header, Body: b}
 }
 
 // waitUpload polls the dataset's uploads until there are n, and returns

@@ -1,6 +1,7 @@
 package server
 
 import (
+	"errors"
 	"io"
 	"net/http"
 	"net/url"
@@ -106,6 +107,7 @@ func (s *Server) notFound(c echo.Context) error {
 	if len(allow) == 0 {
 		return fail(http.StatusNotFound, "not_found", "no such endpoint: %s", truncateParam(c.Request().URL.Path))
 	}
+	slices.Sort(allow)
 	c.Response().Header().Set("Allow", strings.Join(allow, ", "))
 	return fail(http.StatusMethodNotAllowed, "method_not_allowed", "%s is not allowed here: use %s", c.Request().Method, strings.Join(allow, " or "))
 }
@@ -135,9 +137,14 @@ func matchPath(pattern, path string) bool {
 // deadline on the connection, BodyIdleTimeout after each read): a client
 // that stalls mid-body gets 408, however long a steady upload takes. At
 // the end of the body the deadline is lifted, so that net/http's watch
-// for a closed connection during a long answer is not cut short. A
-// handler that fails with the body unread closes it, so that net/http
-// does not read the rest before answering and closes the connection.
+// for a closed connection during a long answer is not cut short.
+//
+// A handler that fails with the body unread: so that the client, still
+// sending, reads the answer rather than a reset connection, the rest of
+// the body is read and dropped, up to drainBytes; past that, or when the
+// body is the problem (too large, stalled, the client gone), it is
+// closed, which tells net/http not to read it and to close the
+// connection after the answer.
 func (s *Server) idleBodies(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
 		req := c.Request()
@@ -147,8 +154,20 @@ func (s *Server) idleBodies(next echo.HandlerFunc) echo.HandlerFunc {
 		b := &idleBody{ReadCloser: req.Body, rc: http.NewResponseController(c.Response().Writer), idle: s.cfg.BodyIdleTimeout}
 		req.Body = b
 		err := next(c)
-		if err != nil {
-			b.Close()
+		if err != nil && !b.eof {
+			var he *httpError
+			status := http.StatusInternalServerError
+			if errors.As(err, &he) {
+				status = he.body.Status
+			}
+			switch status {
+			case http.StatusRequestEntityTooLarge, http.StatusRequestTimeout, statusClientGone:
+			default:
+				io.CopyN(io.Discard, b, drainBytes)
+			}
+			if !b.eof {
+				b.Close()
+			}
 		}
 		if !b.eof {
 			b.rc.SetReadDeadline(time.Time{})
@@ -156,6 +175,13 @@ func (s *Server) idleBodies(next echo.HandlerFunc) echo.HandlerFunc {
 		return err
 	}
 }
+
+// drainBytes bounds what is read and dropped of a refused request's body.
+const drainBytes = 64 << 20
+
+// statusClientGone is the access log's status of a request whose client
+// went away (499 is common practice for this, not a standard code).
+const statusClientGone = 499
 
 type idleBody struct {
 	io.ReadCloser

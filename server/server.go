@@ -116,7 +116,8 @@ func New(cfg Config) *Server {
 		{method: "GET", path: ds + "/diff", h: s.diffVersions, params: append([]string{"a", "b", "type*"}, filter...)},
 		{method: "GET", path: ds + "/quality/trend", h: s.getTrend, params: []string{"site"}},
 		{method: "GET", path: ds + "/alerts", h: s.getAlerts, params: []string{"site"}},
-		{method: "POST", path: ds + "/versions/:version/:action", h: s.setState},
+		{method: "POST", path: ds + "/versions/:version/publish", h: s.setState},
+		{method: "POST", path: ds + "/versions/:version/retract", h: s.setState},
 		{method: "POST", path: api + "/admin/gc", h: s.collectGarbage},
 	}
 	for _, r := range s.routes {
