@@ -65,7 +65,20 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 		}
 		return nil, fmt.Errorf("check: %w", err)
 	}
-	if err := srt.Finish(func(e *schema.Event) error { acc.Observe(e); return nil }); err != nil {
+	cp := NewCasePass(opt.TempDir, opt.RunEvents)
+	defer cp.Close()
+	err = srt.Finish(func(e *schema.Event) error {
+		fl := acc.Observe(e)
+		line := e.Line
+		e.Line = quality.PackLine(line, fl)
+		err := cp.Add(e)
+		e.Line = line
+		return err
+	})
+	if err == nil {
+		_, err = cp.Run(acc)
+	}
+	if err != nil {
 		return nil, fmt.Errorf("check: %w", err)
 	}
 	rep := acc.Report()

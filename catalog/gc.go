@@ -137,6 +137,9 @@ func (s *Store) referenced() (map[blob.ID]bool, error) {
 					Files []struct {
 						SHA256 blob.ID `json:"sha256"`
 					} `json:"files"`
+					CaseTable *struct {
+						SHA256 blob.ID `json:"sha256"`
+					} `json:"case_table"`
 				} `json:"manifest"`
 			}
 			if err := json.Unmarshal(v, &ver); err != nil {
@@ -144,6 +147,9 @@ func (s *Store) referenced() (map[blob.ID]bool, error) {
 			}
 			for _, f := range ver.Manifest.Files {
 				refs[f.SHA256] = true
+			}
+			if ct := ver.Manifest.CaseTable; ct != nil {
+				refs[ct.SHA256] = true
 			}
 			return nil
 		})

@@ -225,6 +225,10 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	defer sw.Remove()
 	win := newWindowCheck(opt)
 	sacc := summary.New(summaryOptions(ds))
+	// The upload's own per-case pass, for its report: its events sorted by
+	// case on disk, each carrying what the time pass found of it.
+	upCases := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
+	defer upCases.Close()
 	var n int
 	err = srt.Finish(func(e *schema.Event) error {
 		if n++; n&4095 == 0 {
@@ -232,14 +236,25 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 				return err
 			}
 		}
-		acc.Observe(e)
+		fl := acc.Observe(e)
 		sacc.Observe(e)
 		win.observe(e)
-		return sw.Write(e)
+		if err := sw.Write(e); err != nil {
+			return err
+		}
+		line := e.Line
+		e.Line = quality.PackLine(line, fl)
+		err := upCases.Add(e)
+		e.Line = line
+		return err
 	})
+	if err == nil {
+		_, err = upCases.Run(acc)
+	}
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
+	upCases.Close()
 	rep := acc.Report()
 	rep.UnmappedColumns = up.Unmapped
 	up.Report = rep
@@ -334,14 +349,19 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		plan.summaries[entry.SHA256] = sacc
 		plan.reports[entry.SHA256] = rep
 	}
-	vrep, err := s.mergeQuality(ctx, parent, plan, rep, opt.Mode)
+	merged, err := s.mergeQuality(ctx, parent, plan, rep, opt.Mode)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
-	vsum, fileSums, err := s.mergeSummary(ctx, ds, parent, plan, plan.summaries, opt.Mode)
+	// One per-case pass over every file of the new version: its case
+	// table, its summary's case figures and its report's.
+	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
+	defer vp.release()
+	vrep := quality.WithCases(merged, vp.cases)
+	vsum, fileSums := vp.summary, vp.fileStates
 	received := up.ReceivedAt
 	var ver *Version
 	err = s.db.Update(func(tx *bolt.Tx) error {
@@ -371,6 +391,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			KeyID:         keyID,
 			Quality:       vrep,
 			Files:         plan.files,
+			CaseTable:     vp.table,
 			CreatedBy:     opt.By,
 			CreatedAt:     received,
 		}

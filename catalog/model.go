@@ -170,19 +170,22 @@ type Lineage struct {
 // Manifest describes a version completely: its files and how they came to
 // be. Its canonical JSON (Canonical) hashes to the version's snapshot id.
 type Manifest struct {
-	Dataset       string          `json:"dataset"`
-	Version       int             `json:"version"`
-	Parent        int             `json:"parent,omitempty"`
-	Lineage       Lineage         `json:"lineage"`
-	SchemaVersion string          `json:"schema_version"`
-	ProfileHash   string          `json:"profile_hash"`
-	KeyID         string          `json:"pseudonym_key_id"`
-	Files         []FileEntry     `json:"files"`
-	Rows          int64           `json:"rows"`
-	Uploads       []string        `json:"uploads"`
-	Quality       *quality.Report `json:"quality"`
-	CreatedBy     string          `json:"created_by"`
-	CreatedAt     time.Time       `json:"created_at"`
+	Dataset       string      `json:"dataset"`
+	Version       int         `json:"version"`
+	Parent        int         `json:"parent,omitempty"`
+	Lineage       Lineage     `json:"lineage"`
+	SchemaVersion string      `json:"schema_version"`
+	ProfileHash   string      `json:"profile_hash"`
+	KeyID         string      `json:"pseudonym_key_id"`
+	Files         []FileEntry `json:"files"`
+	// CaseTable is the version's case table, one row per case over all its
+	// files; absent in versions made before case tables were kept.
+	CaseTable *CaseTableEntry `json:"case_table,omitempty"`
+	Rows      int64           `json:"rows"`
+	Uploads   []string        `json:"uploads"`
+	Quality   *quality.Report `json:"quality"`
+	CreatedBy string          `json:"created_by"`
+	CreatedAt time.Time       `json:"created_at"`
 }
 
 // Canonical returns the manifest's canonical JSON: encoding/json of the
@@ -233,12 +236,16 @@ func newVersion(m Manifest) (*Version, error) {
 	return &Version{Number: m.Version, SnapshotID: hex.EncodeToString(sum[:]), Manifest: m}, nil
 }
 
-// File returns the manifest entry for id.
+// File returns the manifest entry for id: one of its event files, or its
+// case table (with no times).
 func (v *Version) File(id blob.ID) (FileEntry, bool) {
 	for _, f := range v.Manifest.Files {
 		if f.SHA256 == id {
 			return f, true
 		}
+	}
+	if ct := v.Manifest.CaseTable; ct != nil && ct.SHA256 == id {
+		return FileEntry{SHA256: ct.SHA256, Bytes: ct.Bytes, Rows: ct.Rows}, true
 	}
 	return FileEntry{}, false
 }

@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // sorter orders the events of one upload by (occurred_at, source line)
@@ -27,15 +28,17 @@ import (
 // buffer of runBufSize is held per run merged (at most fanIn), whatever the
 // size of the upload.
 type sorter struct {
-	dir   string
-	max   int
-	fanIn int
-	buf   []schema.Event
-	keys  []sortKey
-	runs  []*os.File
-	enc   []byte
-	inter map[string]string
-	bytes int // string bytes held in buf
+	// byCase orders by case instead (cases.Less), for the per-case pass.
+	byCase bool
+	dir    string
+	max    int
+	fanIn  int
+	buf    []schema.Event
+	keys   []sortKey
+	runs   []*os.File
+	enc    []byte
+	inter  map[string]string
+	bytes  int // string bytes held in buf
 }
 
 const (
@@ -52,6 +55,22 @@ const (
 
 func newSorter(dir string, max int) *sorter {
 	return &sorter{dir: dir, max: max, fanIn: maxFanIn, inter: make(map[string]string)}
+}
+
+// newCaseSorter returns a sorter that orders events by cases.Less: each
+// case's events together, in time order, so that per-case work holds one
+// case at a time.
+func newCaseSorter(dir string, max int) *sorter {
+	s := newSorter(dir, max)
+	s.byCase = true
+	return s
+}
+
+func (s *sorter) less(a, b *schema.Event) int {
+	if s.byCase {
+		return cases.Less(a, b)
+	}
+	return lessEvent(a, b)
 }
 
 // Add takes e. A full buffer is spilled only when one more event comes,
@@ -120,6 +139,18 @@ func cmpInt(a, b int64) int {
 // order returns the buffer's indexes in lessEvent order.
 func (s *sorter) order() []sortKey {
 	s.keys = s.keys[:0]
+	if s.byCase {
+		for i := range s.buf {
+			s.keys = append(s.keys, sortKey{idx: int32(i)})
+		}
+		slices.SortFunc(s.keys, func(a, b sortKey) int {
+			if c := cases.Less(&s.buf[a.idx], &s.buf[b.idx]); c != 0 {
+				return c
+			}
+			return cmpInt(int64(a.idx), int64(b.idx))
+		})
+		return s.keys
+	}
 	for i := range s.buf {
 		t := s.buf[i].OccurredAt
 		s.keys = append(s.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), line: s.buf[i].Line, idx: int32(i)})
@@ -220,7 +251,7 @@ func (s *sorter) merge(runs []*os.File, fn func(*schema.Event) error) error {
 		if _, err := f.Seek(0, io.SeekStart); err != nil {
 			return fmt.Errorf("sort: %w", err)
 		}
-		r := &run{r: bufio.NewReaderSize(f, runBufSize), inter: s.inter}
+		r := &run{r: bufio.NewReaderSize(f, runBufSize), inter: s.inter, less: s.less}
 		ok, err := r.next()
 		if err != nil {
 			return err
@@ -263,6 +294,7 @@ func (s *sorter) Close() error {
 }
 
 type run struct {
+	less  func(a, b *schema.Event) int
 	r     *bufio.Reader
 	ev    schema.Event
 	inter map[string]string
@@ -272,7 +304,7 @@ type run struct {
 type runHeap []*run
 
 func (h runHeap) Len() int           { return len(h) }
-func (h runHeap) Less(i, j int) bool { return lessEvent(&h[i].ev, &h[j].ev) < 0 }
+func (h runHeap) Less(i, j int) bool { return h[i].less(&h[i].ev, &h[j].ev) < 0 }
 func (h runHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
 func (h *runHeap) Push(x any)        { *h = append(*h, x.(*run)) }
 func (h *runHeap) Pop() any {

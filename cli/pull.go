@@ -32,7 +32,10 @@ type lockFile struct {
 	Version     int        `json:"version"`
 	SnapshotID  string     `json:"snapshot_id"` // sha256 of manifest.json
 	Files       []lockedFS `json:"files"`
-	PulledAt    time.Time  `json:"pulled_at"`
+	// CaseTable is the version's case table, at cases/<sha256>.parquet
+	// (apart from data/, so that data/*.parquet reads only events).
+	CaseTable *lockedFS `json:"case_table,omitempty"`
+	PulledAt  time.Time `json:"pulled_at"`
 }
 
 type lockedFS struct {
@@ -202,6 +205,18 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lock
 		keep[rel] = true
 		lock.Files = append(lock.Files, lockedFS{Path: rel, SHA256: f.SHA256.String(), Bytes: f.Bytes, Rows: f.Rows})
 	}
+	if ct := m.CaseTable; ct != nil {
+		rel := casesPath(ct.SHA256.String())
+		if err := os.MkdirAll(filepath.Join(out, "cases"), 0o755); err != nil {
+			return nil, err
+		}
+		f := catalog.FileEntry{SHA256: ct.SHA256, Bytes: ct.Bytes, Rows: ct.Rows}
+		if err := e.fetchFile(cmd, cl, r.path()+fmt.Sprintf("/versions/%d/files/%s", v.Number, ct.SHA256), filepath.Join(out, rel), f); err != nil {
+			return nil, err
+		}
+		keep[rel] = true
+		lock.CaseTable = &lockedFS{Path: rel, SHA256: ct.SHA256.String(), Bytes: ct.Bytes, Rows: ct.Rows}
+	}
 	if err := writeFileAtomic(filepath.Join(out, "manifest.json"), manifest); err != nil {
 		return nil, err
 	}
@@ -212,12 +227,16 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lock
 	// Only now, with every file of this version here and its lock written,
 	// remove files of another version pulled here before (only pull's own
 	// data/<sha256>.parquet files), which would otherwise be read with it.
-	if ents, err := os.ReadDir(filepath.Join(out, "data")); err == nil {
+	for _, sub := range []string{"data", "cases"} {
+		ents, err := os.ReadDir(filepath.Join(out, sub))
+		if err != nil {
+			continue
+		}
 		for _, de := range ents {
 			name := strings.TrimSuffix(de.Name(), ".part")
 			sha, _, _ := strings.Cut(name, ".")
-			if _, err := blob.ParseID(sha); err == nil && !keep["data/"+name] || strings.HasSuffix(de.Name(), ".part") && keep["data/"+name] {
-				if err := os.Remove(filepath.Join(out, "data", de.Name())); err != nil {
+			if _, err := blob.ParseID(sha); err == nil && !keep[sub+"/"+name] || strings.HasSuffix(de.Name(), ".part") && keep[sub+"/"+name] {
+				if err := os.Remove(filepath.Join(out, sub, de.Name())); err != nil {
 					return nil, err
 				}
 			}
@@ -290,6 +309,9 @@ func (e *env) fetchFile(cmd *cobra.Command, cl *client, path, dst string, f cata
 
 // dataPath is where pull puts a file of a version, relative to its directory.
 func dataPath(sha string) string { return "data/" + sha + ".parquet" }
+
+// casesPath is where pull puts a version's case table.
+func casesPath(sha string) string { return "cases/" + sha + ".parquet" }
 
 func fileSHA256(path string) (string, error) {
 	f, err := os.Open(path)

@@ -97,6 +97,23 @@ func verifyDir(dir string, lock *lockFile) []verifyProblem {
 	if len(m.Files) != len(lock.Files) {
 		add("flowcat.lock", "lists %d files, the manifest %d", len(lock.Files), len(m.Files))
 	}
+	switch ct, lt := m.CaseTable, lock.CaseTable; {
+	case ct == nil && lt != nil:
+		add("flowcat.lock", "lists a case table, the manifest none")
+	case ct != nil && lt == nil:
+		add("flowcat.lock", "does not list the manifest's case table %s", ct.SHA256)
+	case ct != nil:
+		if lt.SHA256 != ct.SHA256.String() || lt.Bytes != ct.Bytes || lt.Rows != ct.Rows || lt.Path != casesPath(lt.SHA256) {
+			add("flowcat.lock", "case table %s (%d bytes, %d rows at %q) is not the manifest's %s (%d bytes, %d rows)", lt.SHA256, lt.Bytes, lt.Rows, lt.Path, ct.SHA256, ct.Bytes, ct.Rows)
+		}
+		got, err := fileSHA256(filepath.Join(dir, filepath.FromSlash(casesPath(lt.SHA256))))
+		switch {
+		case err != nil:
+			add(lt.Path, "%v", err)
+		case got != lt.SHA256:
+			add(lt.Path, "sha256 is %s, want %s", got, lt.SHA256)
+		}
+	}
 	// Anything else in data/ would be read as part of the snapshot.
 	if ents, err := os.ReadDir(filepath.Join(dir, "data")); err == nil {
 		for _, de := range ents {

@@ -84,6 +84,11 @@ func derive(rows Rows, rej []RejectionCount, raw Raw, unmapped []string) *Report
 	st := all.Stages
 	r.Stages = Stages{Cases: st.Cases, Arrival: share(st.Arrival, st.Cases), Start: share(st.Start, st.Cases),
 		Complete: share(st.Complete, st.Cases), Departure: share(st.Departure, st.Cases)}
+	if c := all.Cases; c.N > 0 {
+		r.Cases = CaseFigures{Count: c.N, MeanDurationSeconds: c.DurationSeconds / float64(c.N),
+			MinDurationSeconds: c.MinSeconds, MaxDurationSeconds: c.MaxSeconds,
+			MeanEvents: float64(c.Events) / float64(c.N), MinEvents: c.MinEvents, MaxEvents: c.MaxEvents}
+	}
 	r.Waits = []WaitCoverage{}
 	var waits, noEnq, noStart int64
 	for _, w := range raw.Waits {
@@ -387,7 +392,8 @@ func scores(s *SiteRaw, d *siteDerived, set *Settings, rejected map[schema.Reaso
 	}
 	// accuracy
 	if rows.Total > 0 {
-		bad := s.AccuracyRows + d.clockBack
+		// case_too_long is counted per case, one row each.
+		bad := s.AccuracyRows + d.clockBack + s.Counts[CodeCaseTooLong]
 		for reason, n := range rejected {
 			if reason != schema.ReasonMissingRequired {
 				bad += n

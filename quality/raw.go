@@ -30,14 +30,16 @@ type Settings struct {
 	MaxServiceSeconds     float64        `json:"max_service_seconds"`
 	ClockToleranceSeconds float64        `json:"clock_tolerance_seconds"`
 	EventIDWindowSeconds  float64        `json:"event_id_window_seconds"`
-	CaseHorizonSeconds    float64        `json:"case_horizon_seconds"`
-	LittleTolerance       float64        `json:"little_tolerance"`
-	GapMinMean            float64        `json:"gap_min_mean"`
-	GapMinWeeks           int            `json:"gap_min_weeks"`
-	StaleAfterSeconds     float64        `json:"stale_after_seconds"`
-	UploadedAt            *time.Time     `json:"uploaded_at,omitempty"` // the latest, when merged
-	WindowFrom            *time.Time     `json:"window_from,omitempty"`
-	WindowTo              *time.Time     `json:"window_to,omitempty"`
+	// CaseHorizonSeconds is set only in reports made before cases were
+	// whole (an idle case was then cut after this long); today's omit it.
+	CaseHorizonSeconds float64    `json:"case_horizon_seconds,omitempty"`
+	LittleTolerance    float64    `json:"little_tolerance"`
+	GapMinMean         float64    `json:"gap_min_mean"`
+	GapMinWeeks        int        `json:"gap_min_weeks"`
+	StaleAfterSeconds  float64    `json:"stale_after_seconds"`
+	UploadedAt         *time.Time `json:"uploaded_at,omitempty"` // the latest, when merged
+	WindowFrom         *time.Time `json:"window_from,omitempty"`
+	WindowTo           *time.Time `json:"window_to,omitempty"`
 }
 
 // SiteRaw holds the counts of one site.
@@ -52,6 +54,7 @@ type SiteRaw struct {
 	ByType          map[schema.EventType]TypeRaw `json:"by_type"`
 	Grid            map[string]int64             `json:"grid"` // events on each grid
 	Stages          StageRaw                     `json:"stages"`
+	Cases           CaseRaw                      `json:"cases"`
 	First           *time.Time                   `json:"first"`
 	Last            *time.Time                   `json:"last"`
 	Census          CensusRaw                    `json:"census"`
@@ -74,6 +77,33 @@ type StageRaw struct {
 	Start     int64 `json:"start"`
 	Complete  int64 `json:"complete"`
 	Departure int64 `json:"departure"`
+}
+
+// CaseRaw holds the sums of the cases' durations (first to last event)
+// and events, for the mean, minimum and maximum.
+type CaseRaw struct {
+	N               int64   `json:"n"`
+	DurationSeconds float64 `json:"duration_seconds"` // sum
+	MinSeconds      float64 `json:"min_seconds"`
+	MaxSeconds      float64 `json:"max_seconds"`
+	Events          int64   `json:"events"` // sum
+	MinEvents       int64   `json:"min_events"`
+	MaxEvents       int64   `json:"max_events"`
+}
+
+func (d *CaseRaw) merge(s *CaseRaw) {
+	if s.N == 0 {
+		return
+	}
+	if d.N == 0 {
+		*d = *s
+		return
+	}
+	d.N += s.N
+	d.DurationSeconds += s.DurationSeconds
+	d.MinSeconds, d.MaxSeconds = min(d.MinSeconds, s.MinSeconds), max(d.MaxSeconds, s.MaxSeconds)
+	d.Events += s.Events
+	d.MinEvents, d.MaxEvents = min(d.MinEvents, s.MinEvents), max(d.MaxEvents, s.MaxEvents)
 }
 
 // CensusRaw holds the sums of Little's law for one site.
@@ -278,6 +308,7 @@ func mergeSite(d, s *SiteRaw) {
 	d.Stages.Start += s.Stages.Start
 	d.Stages.Complete += s.Stages.Complete
 	d.Stages.Departure += s.Stages.Departure
+	d.Cases.merge(&s.Cases)
 	if s.First != nil && (d.First == nil || s.First.Before(*d.First)) {
 		d.First = s.First
 	}
@@ -302,4 +333,54 @@ func mergeSite(d, s *SiteRaw) {
 	d.Hours = mergeHours(d.Hours, s.Hours)
 	d.FileRows += s.FileRows
 	d.FileBackSteps += s.FileBackSteps
+}
+
+// caseCodes are the findings counted per case or per wait rather than per
+// row; a version's report takes them from its one per-case pass.
+var caseCodes = []string{CodeCaseTooLong, CodeWaitNoEnqueue, CodeWaitNoStart}
+
+// WithCases returns merged (the merge of a version's per-upload reports)
+// with its case-level figures taken from cases, the report of one
+// per-case pass over every event of the version ([Accumulator.Event] and
+// [Accumulator.Case] only): per site the cases, their durations and
+// events, their stage coverage,
+// the census sums of Little's law (arrivals, completed stays, sojourn,
+// time in system), case_too_long, and the wait coverage. So a case whose
+// events span uploads counts once. Row-level findings (order checks within
+// a case, duplicates, overlaps) stay those found within each upload.
+func WithCases(merged, cases *Report) *Report {
+	raw := cloneRaw(&merged.Raw)
+	bySite := map[string]*SiteRaw{}
+	for i := range cases.Raw.Sites {
+		bySite[cases.Raw.Sites[i].Site] = &cases.Raw.Sites[i]
+	}
+	for i := range raw.Sites {
+		s := &raw.Sites[i]
+		c := bySite[s.Site]
+		if c == nil {
+			c = &SiteRaw{}
+		}
+		s.Stages = c.Stages
+		s.Cases = c.Cases
+		s.Census.AreaCaseSeconds = c.Census.AreaCaseSeconds
+		s.Census.Arrivals = c.Census.Arrivals
+		s.Census.Completed = c.Census.Completed
+		s.Census.SojournSeconds = c.Census.SojournSeconds
+		for _, code := range caseCodes {
+			if n := c.Counts[code]; n > 0 {
+				s.Counts[code] = n
+			} else {
+				delete(s.Counts, code)
+			}
+		}
+	}
+	raw.Waits = slices.Clone(cases.Raw.Waits)
+	for _, code := range caseCodes {
+		if smp := cases.Raw.Samples[code]; len(smp) > 0 {
+			raw.Samples[code] = slices.Clone(smp)
+		} else {
+			delete(raw.Samples, code)
+		}
+	}
+	return derive(merged.Rows, cloneRejections(merged.Rejections), raw, slices.Clone(merged.UnmappedColumns))
 }

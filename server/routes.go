@@ -34,38 +34,46 @@ const maxQueryPairs = 64
 // name. Every request passes here before routing.
 func wellFormedQuery(next echo.HandlerFunc) echo.HandlerFunc {
 	return func(c echo.Context) error {
-		raw := c.Request().URL.RawQuery
-		if raw == "" {
-			return next(c)
-		}
-		pairs := strings.Split(raw, "&")
-		if len(pairs) > maxQueryPairs {
-			return fail(http.StatusBadRequest, "invalid", "query: %d pairs, more than the limit of %d", len(pairs), maxQueryPairs)
-		}
-		for _, p := range pairs {
-			if p == "" {
-				continue
-			}
-			bad := func(why string) error {
-				return fail(http.StatusBadRequest, "invalid", "query: pair %q: %s", truncateParam(p), why)
-			}
-			if strings.Contains(p, ";") {
-				return bad(`holds ";": join parameters with "&" and percent-encode ";" in a value as %3B`)
-			}
-			k, v, _ := strings.Cut(p, "=")
-			name, err := url.QueryUnescape(k)
-			if err != nil {
-				return bad("the name is not percent-encoded correctly")
-			}
-			if name == "" {
-				return bad("no parameter name")
-			}
-			if _, err := url.QueryUnescape(v); err != nil {
-				return bad("the value is not percent-encoded correctly")
-			}
+		if err := checkQuery(c.Request().URL.RawQuery); err != nil {
+			return err
 		}
 		return next(c)
 	}
+}
+
+// checkQuery is wellFormedQuery's rule: nil when every pair of raw reads
+// back, so that url.ParseQuery keeps them all.
+func checkQuery(raw string) error {
+	if raw == "" {
+		return nil
+	}
+	pairs := strings.Split(raw, "&")
+	if len(pairs) > maxQueryPairs {
+		return fail(http.StatusBadRequest, "invalid", "query: %d pairs, more than the limit of %d", len(pairs), maxQueryPairs)
+	}
+	for _, p := range pairs {
+		if p == "" {
+			continue
+		}
+		bad := func(why string) error {
+			return fail(http.StatusBadRequest, "invalid", "query: pair %q: %s", truncateParam(p), why)
+		}
+		if strings.Contains(p, ";") {
+			return bad(`holds ";": join parameters with "&" and percent-encode ";" in a value as %3B`)
+		}
+		k, v, _ := strings.Cut(p, "=")
+		name, err := url.QueryUnescape(k)
+		if err != nil {
+			return bad("the name is not percent-encoded correctly")
+		}
+		if name == "" {
+			return bad("no parameter name")
+		}
+		if _, err := url.QueryUnescape(v); err != nil {
+			return bad("the value is not percent-encoded correctly")
+		}
+	}
+	return nil
 }
 
 // knownParams refuses parameters the route does not take, and a repeated

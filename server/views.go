@@ -142,12 +142,8 @@ func (s *Server) getSummary(c echo.Context) error {
 	if err != nil {
 		loc = time.UTC
 	}
-	acc := summary.New(summary.Options{Location: loc})
 	ev := export.Filter{From: f.From, To: f.To, Sites: f.Sites}
-	st, err := export.Events(c.Request().Context(), s.source(), v.Manifest.Files, ev, func(e *schema.Event) error {
-		acc.Observe(e)
-		return nil
-	})
+	acc, st, err := export.Summarize(c.Request().Context(), s.source(), v.Manifest.Files, ev, summary.Options{Location: loc})
 	if err != nil {
 		return err
 	}

@@ -19,6 +19,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // ErrFormat is returned by WriteBundle for an archive format other than
@@ -111,6 +112,9 @@ func WriteBundle(ctx context.Context, w io.Writer, format string, b Bundle) erro
 	}
 	for _, f := range m.Files {
 		ents = append(ents, &entry{name: "data/" + f.SHA256.String() + ".parquet", file: f.SHA256, size: f.Bytes, sum: f.SHA256.String()})
+	}
+	if ct := m.CaseTable; ct != nil {
+		ents = append(ents, &entry{name: "cases/" + ct.SHA256.String() + ".parquet", file: ct.SHA256, size: ct.Bytes, sum: ct.SHA256.String()})
 	}
 	var sums bytes.Buffer
 	for _, e := range ents {
@@ -300,6 +304,13 @@ func dictionary(d *catalog.Dataset, v *catalog.Version) ([]byte, error) {
 			fence += "`"
 		}
 		fmt.Fprintf(&b, "The profile that maps partner exports into the schema:\n\n%syaml\n%s\n%s\n", fence, strings.TrimRight(d.Profile, "\n"), fence)
+	}
+	if m.CaseTable != nil {
+		fmt.Fprintf(&b, "\n## Case table\n\n`cases/%s.parquet`: one row per case over every file of the version (%d cases), in `case_id` order. A case is its case id within the dataset, however long it idles.\n\n", m.CaseTable.SHA256, m.CaseTable.Rows)
+		b.WriteString("| column | type | description |\n|---|---|---|\n")
+		for _, c := range cases.RowColumns {
+			fmt.Fprintf(&b, "| `%s` | %s | %s |\n", c.Name, c.Type, c.Meaning)
+		}
 	}
 	b.WriteString("\n## Quality\n\n")
 	q, err := qualitySummary(m)

@@ -464,7 +464,7 @@ func (c *cursor) fill() error {
 		cloneEvent(&c.run[len(c.run)-1], e)
 	}
 	if len(c.run) > 1 {
-		slices.SortFunc(c.run, func(a, b schema.Event) int { return compareRest(&a, &b) })
+		slices.SortFunc(c.run, func(a, b schema.Event) int { return schema.CompareContent(&a, &b) })
 	}
 	return nil
 }

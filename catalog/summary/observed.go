@@ -13,19 +13,26 @@ import (
 // with the days that have events, never with the span.
 const ObservationGap = 30 * 24 * time.Hour
 
+// observedJoinDays: ranges of observed days at most this many days apart
+// (ObservationGap) are one stretch, the days between observed. So the days
+// observed depend only on the days with events, however the events were
+// cut into files: a stretch of one pass over all events is the union of
+// the files' ranges joined across such gaps.
+const observedJoinDays = int32(ObservationGap / (24 * time.Hour))
+
 // dayRange is the local days first..last, both included.
 type dayRange struct{ first, last int32 }
 
-// observed is a set of local days kept as sorted, disjoint, non-adjacent
-// ranges.
+// observed is a set of local days kept as sorted ranges more than
+// observedJoinDays apart.
 type observed []dayRange
 
 // add unites r into o.
 func (o *observed) add(r dayRange) {
 	s := *o
 	n := len(s)
-	// Fast paths: in time order, r follows or meets the last range.
-	if n == 0 || r.first > s[n-1].last+1 {
+	// Fast paths: in time order, r follows or joins the last range.
+	if n == 0 || r.first > s[n-1].last+observedJoinDays {
 		*o = append(s, r)
 		return
 	}
@@ -34,9 +41,9 @@ func (o *observed) add(r dayRange) {
 		return
 	}
 	// The ranges r touches are i..j-1; they become one.
-	i := sort.Search(n, func(k int) bool { return s[k].last+1 >= r.first })
+	i := sort.Search(n, func(k int) bool { return s[k].last+observedJoinDays >= r.first })
 	j := i
-	for j < n && s[j].first <= r.last+1 {
+	for j < n && s[j].first <= r.last+observedJoinDays {
 		r.first = min(r.first, s[j].first)
 		r.last = max(r.last, s[j].last)
 		j++

@@ -35,9 +35,7 @@ func farEvents(far bool, tag string) []schema.Event {
 func TestFarEventBounded(t *testing.T) {
 	state := func(evs []schema.Event) (*Accumulator, []byte) {
 		a := New(Options{})
-		for i := range evs {
-			a.Observe(&evs[i])
-		}
+		a.ObserveAll(evs)
 		b, err := a.MarshalBinary()
 		if err != nil {
 			t.Fatal(err)
@@ -90,38 +88,51 @@ func TestFarEventBounded(t *testing.T) {
 	}
 }
 
-// TestObservedAdd checks the day ranges against a plain set.
+// TestObservedAdd checks the day ranges against a plain set of days,
+// joined across gaps of at most observedJoinDays, whatever the order in
+// which the ranges come.
 func TestObservedAdd(t *testing.T) {
 	r := rand.New(rand.NewPCG(1, 2))
-	for range 200 {
+	const lo, hi = -400, 400
+	for range 300 {
 		var o observed
-		set := map[int32]bool{}
-		for range 30 {
-			f := int32(r.IntN(200) - 100)
+		var mark [hi - lo + 10]bool
+		for range 20 {
+			f := int32(r.IntN(600) - 300)
 			l := f + int32(r.IntN(5))
 			o.add(dayRange{f, l})
 			for d := f; d <= l; d++ {
-				set[d] = true
+				mark[d-lo] = true
 			}
 		}
-		if o.days() != len(set) {
-			t.Fatalf("%d days, want %d: %v", o.days(), len(set), o)
+		// Join gaps of at most observedJoinDays.
+		last := -1
+		for i := range mark {
+			if !mark[i] {
+				continue
+			}
+			if last >= 0 && int32(i-last) <= observedJoinDays {
+				for k := last + 1; k < i; k++ {
+					mark[k] = true
+				}
+			}
+			last = i
 		}
+		n := 0
 		var w [7]int
-		for d := range set {
-			w[((d+3)%7+7)%7]++
+		for i, m := range mark {
+			if m {
+				n++
+				d := int32(i + lo)
+				w[((d+3)%7+7)%7]++
+			}
 		}
-		if o.weekdays() != w {
-			t.Fatalf("weekdays %v, want %v", o.weekdays(), w)
+		if o.days() != n || o.weekdays() != w {
+			t.Fatalf("%d days %v, want %d %v: %v", o.days(), o.weekdays(), n, w, o)
 		}
 		for i := range o {
-			if o[i].first > o[i].last || i > 0 && o[i].first <= o[i-1].last+1 {
-				t.Fatalf("ranges not sorted, disjoint and apart: %v", o)
-			}
-			for d := o[i].first; d <= o[i].last; d++ {
-				if !set[d] {
-					t.Fatalf("day %d not added: %v", d, o)
-				}
+			if o[i].first > o[i].last || i > 0 && o[i].first <= o[i-1].last+observedJoinDays {
+				t.Fatalf("ranges not sorted and apart: %v", o)
 			}
 		}
 	}
