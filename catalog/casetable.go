@@ -98,7 +98,7 @@ func ReadCaseTable(r io.ReaderAt, size int64, fn func(*cases.Row) error) error {
 	if err != nil {
 		return fmt.Errorf("case table: %w", err)
 	}
-	pr := parquet.NewGenericReader[cases.Row](f)
+	pr := NewRowReader(parquet.NewGenericReader[cases.Row](f))
 	defer pr.Close()
 	buf := make([]cases.Row, 256)
 	for {

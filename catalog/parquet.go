@@ -6,7 +6,9 @@ import (
 	"hash"
 	"io"
 	"os"
+	"reflect"
 	"runtime"
+	"strings"
 	"sync"
 	"time"
 
@@ -14,6 +16,7 @@ import (
 	"github.com/parquet-go/parquet-go"
 	"github.com/parquet-go/parquet-go/compress"
 	parquetzstd "github.com/parquet-go/parquet-go/compress/zstd"
+	"github.com/parquet-go/parquet-go/format"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -172,50 +175,115 @@ func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error
 	}
 }
 
-// EventReader decodes the events of a snapshot file or row group. Every
-// reader of snapshot events goes through it: parquet-go turns a TIMESTAMP
-// into a time.Time by way of int64 nanoseconds, which hold only the
-// instants of 1677-09-21 to 2262-04-11, while occurred_at holds any instant
-// of the years 0001-9999 in microseconds; EventReader takes occurred_at
-// from its stored microseconds instead.
-type EventReader struct {
-	r    *parquet.GenericReader[schema.Event]
-	at   int // leaf column of occurred_at
-	rows []parquet.Row
+// RowReader decodes rows of T (snapshot events, case table rows) from
+// Parquet. Every reader of stored rows goes through it: parquet-go turns a
+// TIMESTAMP into a time.Time by way of int64 nanoseconds, which hold only
+// the instants of 1677-09-21 to 2262-04-11, while the instants flowcat
+// stores span the years 0001-9999 in microseconds; RowReader takes each
+// time.Time or *time.Time field of T (top level) that a TIMESTAMP column
+// feeds from the column's stored value instead.
+type RowReader[T any] struct {
+	r     *parquet.GenericReader[T]
+	times []timeColumn
+	rows  []parquet.Row
 }
 
-// NewEventReader reads events through r, a reader of snapshot rows (from
-// parquet.NewGenericReader or NewGenericRowGroupReader); it fails when r's
-// schema has no occurred_at column.
+// EventReader reads the events of a snapshot file or row group.
+type EventReader = RowReader[schema.Event]
+
+// timeColumn maps one TIMESTAMP leaf column to a field of the row type.
+type timeColumn struct {
+	col   int
+	field int  // index of the struct field
+	ptr   bool // *time.Time
+	unit  time.Duration
+}
+
+// NewEventReader reads events through r (from parquet.NewGenericReader or
+// NewGenericRowGroupReader); it fails when r's schema has no occurred_at
+// column.
 func NewEventReader(r *parquet.GenericReader[schema.Event]) (*EventReader, error) {
-	leaf, ok := r.Schema().Lookup(string(schema.FieldOccurredAt))
-	if !ok {
+	if _, ok := r.Schema().Lookup(string(schema.FieldOccurredAt)); !ok {
 		r.Close()
 		return nil, fmt.Errorf("parquet: the file has no %s column", schema.FieldOccurredAt)
 	}
-	return &EventReader{r: r, at: leaf.ColumnIndex}, nil
+	return NewRowReader(r), nil
 }
 
-// Read decodes up to len(buf) events into buf. Like io.Reader it returns
+// NewRowReader reads rows of T through r.
+func NewRowReader[T any](r *parquet.GenericReader[T]) *RowReader[T] {
+	rr := &RowReader[T]{r: r}
+	typ := reflect.TypeFor[T]()
+	timeType := reflect.TypeFor[time.Time]()
+	for i := range typ.NumField() {
+		f := typ.Field(i)
+		ptr := f.Type.Kind() == reflect.Pointer
+		if f.Type != timeType && !(ptr && f.Type.Elem() == timeType) {
+			continue
+		}
+		name, _, _ := strings.Cut(f.Tag.Get("parquet"), ",")
+		if name == "" {
+			name = f.Name
+		}
+		leaf, ok := r.Schema().Lookup(name)
+		if !ok {
+			continue
+		}
+		lt := leaf.Node.Type().LogicalType()
+		if lt == nil {
+			continue
+		}
+		ts, ok := lt.Value.(*format.TimestampType)
+		if !ok {
+			continue
+		}
+		unit := time.Nanosecond
+		switch ts.Unit.Value.(type) {
+		case *format.MicroSeconds:
+			unit = time.Microsecond
+		case *format.MilliSeconds:
+			unit = time.Millisecond
+		}
+		rr.times = append(rr.times, timeColumn{col: leaf.ColumnIndex, field: i, ptr: ptr, unit: unit})
+	}
+	return rr
+}
+
+// Read decodes up to len(buf) rows into buf. Like io.Reader it returns
 // the number read and io.EOF at the end; it may read fewer than len(buf)
 // before the end.
-func (er *EventReader) Read(buf []schema.Event) (int, error) {
-	if cap(er.rows) < len(buf) {
-		er.rows = make([]parquet.Row, len(buf))
+func (rr *RowReader[T]) Read(buf []T) (int, error) {
+	if cap(rr.rows) < len(buf) {
+		rr.rows = make([]parquet.Row, len(buf))
 	}
-	rows := er.rows[:len(buf)]
-	n, err := er.r.ReadRows(rows)
-	sch := er.r.Schema()
+	rows := rr.rows[:len(buf)]
+	n, err := rr.r.ReadRows(rows)
+	sch := rr.r.Schema()
 	for i, row := range rows[:n] {
 		if rerr := sch.Reconstruct(&buf[i], row); rerr != nil {
 			return i, rerr
 		}
-		for _, v := range row {
-			if v.Column() == er.at {
-				if v.IsNull() {
-					buf[i].OccurredAt = time.Time{}
-				} else {
-					buf[i].OccurredAt = time.UnixMicro(v.Int64()).UTC()
+		if len(rr.times) == 0 {
+			continue
+		}
+		rv := reflect.ValueOf(&buf[i]).Elem()
+		for _, tc := range rr.times {
+			for _, v := range row {
+				if v.Column() != tc.col {
+					continue
+				}
+				// Through typed pointers, so no value is boxed.
+				fp := rv.Field(tc.field).Addr().Interface()
+				switch {
+				case tc.ptr && v.IsNull():
+					*fp.(**time.Time) = nil
+				case tc.ptr:
+					t := storedInstant(v.Int64(), tc.unit)
+					*fp.(**time.Time) = &t
+				case v.IsNull():
+					*fp.(*time.Time) = time.Time{}
+				default:
+					*fp.(*time.Time) = storedInstant(v.Int64(), tc.unit)
 				}
 				break
 			}
@@ -224,5 +292,16 @@ func (er *EventReader) Read(buf []schema.Event) (int, error) {
 	return n, err
 }
 
+// storedInstant is the UTC instant of a TIMESTAMP value v in unit.
+func storedInstant(v int64, unit time.Duration) time.Time {
+	switch unit {
+	case time.Microsecond:
+		return time.UnixMicro(v).UTC()
+	case time.Millisecond:
+		return time.UnixMilli(v).UTC()
+	}
+	return time.Unix(0, v).UTC()
+}
+
 // Close releases the underlying reader.
-func (er *EventReader) Close() error { return er.r.Close() }
+func (rr *RowReader[T]) Close() error { return rr.r.Close() }

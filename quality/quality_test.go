@@ -484,3 +484,15 @@ func TestMergeManyNames(t *testing.T) {
 		t.Errorf("%d wait groups holding %d waits, want %d and %d", len(m.Raw.Waits), waits, n+n/2, 2*n)
 	}
 }
+
+// TestMergeHoursFarApart: hour series more than 292 years apart (the
+// reach of a time.Duration) merge at their true offsets.
+func TestMergeHoursFarApart(t *testing.T) {
+	a := time.Date(1700, 1, 1, 0, 0, 0, 0, time.UTC)
+	b := time.Date(2000, 1, 1, 5, 0, 0, 0, time.UTC)
+	m := mergeHours(HourSeries{Start: &b, Counts: []int64{2}}, HourSeries{Start: &a, Counts: []int64{1}})
+	hours := int((b.Unix() - a.Unix()) / 3600) // 2,629,733 (Python datetime: 2000-01-01T05 - 1700-01-01)
+	if !m.Start.Equal(a) || len(m.Counts) != hours+1 || m.Counts[0] != 1 || m.Counts[hours] != 2 {
+		t.Errorf("merged from %v, %d hours, first %d, last %d; want %d hours", m.Start, len(m.Counts), m.Counts[0], m.Counts[len(m.Counts)-1], hours+1)
+	}
+}

@@ -96,7 +96,8 @@ type column struct {
 // and for CSV/TSV reads the header and checks that every mapped column is
 // present. Problems come back as a *FileError: RuleEmptyFile,
 // RuleMissingColumn, RuleDuplicateColumn, RuleEncoding, RuleCompression,
-// RuleRead, or RuleProfile for an invalid hand-built profile.
+// RuleRead, RuleLineTooLong, RuleTooManyColumns, RuleTooManyBytes, or
+// RuleProfile for an invalid hand-built profile.
 func NewReader(r io.Reader, p *Profile, opt ReaderOptions) (*Reader, error) {
 	if p == nil {
 		p = DefaultProfile()
@@ -363,9 +364,10 @@ func cellLooksLikeData(h string, tp *timeParser) bool {
 // Next reads the next row. It fills *e and returns (nil, nil) for an
 // accepted event; returns (rej, nil) for a rejected row (*e is then
 // undefined); (nil, io.EOF) at the end; or (nil, *FileError) when the file
-// cannot be read on (RuleNoRows for a header without data rows, RuleSyntax,
-// RuleEncoding, RuleCompression, RuleRead). After io.EOF or a *FileError
-// every call returns the same error.
+// cannot be read on (RuleNoRows for a header without data rows,
+// RuleEncoding, RuleCompression, RuleRead, or a limit of opt.Limits:
+// RuleLineTooLong, RuleTooManyBytes, RuleTooManyRows). After io.EOF or a
+// *FileError every call returns the same error.
 func (rd *Reader) Next(e *Event) (*Rejection, error) {
 	if rd.err != nil {
 		return nil, rd.err
@@ -507,6 +509,11 @@ func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
 		}
 		if !utf8.Valid(b) {
 			return nil, rd.fileErr(RuleEncoding, line, "", "the line is not valid UTF-8; is the file in another encoding (Latin-1, Windows-1252)?", nil)
+		}
+		if bytes.IndexByte(b, '\r') >= 0 {
+			// JSON Lines separates lines with LF or CRLF (jsonlines.org);
+			// a lone CR would hide the lines it joins inside one.
+			return &Rejection{Line: line, Reason: ReasonMalformedRow, Message: "the line holds a lone CR; JSON Lines lines end with LF or CRLF"}, nil
 		}
 		if b[0] != '{' {
 			return &Rejection{Line: line, Reason: ReasonMalformedRow, Message: "the line is not a JSON object"}, nil

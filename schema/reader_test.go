@@ -271,6 +271,7 @@ func TestReaderBadInput(t *testing.T) {
 		{name: "jsonl not an object", p: jsonl, data: []byte(`["V1"]` + "\n"), reason: ReasonMalformedRow, line: 1},
 		{name: "jsonl bad utf-8", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\n" + "{\"Visit\":\"V\xff\"}\n"), rule: RuleEncoding, line: 2},
 		{name: "jsonl empty", p: jsonl, data: nil, rule: RuleEmptyFile},
+		{name: "jsonl CR-only line ends", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\r" + `{"Visit":"V2","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\r"), reason: ReasonMalformedRow, line: 1, msg: "lone CR"},
 		{name: "NUL in a header name", p: p, data: []byte("Visit,Code,When,Step\x00,Desk,Age\nV1,ARR,2021-06-01T08:00:00Z,a,D1,1\n"), rule: RuleEncoding, line: 1, column: "field 4", msg: "NUL"},
 		{name: "UTF-16 file", p: p, data: []byte("V\x00i\x00s\x00i\x00t\x00,\x00C\x00o\x00d\x00e\x00\n\x00"), rule: RuleEncoding, line: 1, column: "field 1", msg: "UTF-16"},
 		{name: "NUL in a mapped value", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a\x00b,D1,1\n"), reason: ReasonBadValue, line: 2, column: "Step", msg: "NUL"},
