@@ -486,13 +486,13 @@ func TestMergeManyNames(t *testing.T) {
 }
 
 // TestMergeHoursFarApart: hour series more than 292 years apart (the
-// reach of a time.Duration) merge at their true offsets.
+// reach of a time.Duration) merge as two runs at their true starts, not
+// as one series of the 2.6 million hours between.
 func TestMergeHoursFarApart(t *testing.T) {
 	a := time.Date(1700, 1, 1, 0, 0, 0, 0, time.UTC)
 	b := time.Date(2000, 1, 1, 5, 0, 0, 0, time.UTC)
-	m := mergeHours(HourSeries{Start: &b, Counts: []int64{2}}, HourSeries{Start: &a, Counts: []int64{1}})
-	hours := int((b.Unix() - a.Unix()) / 3600) // 2,629,733 (Python datetime: 2000-01-01T05 - 1700-01-01)
-	if !m.Start.Equal(a) || len(m.Counts) != hours+1 || m.Counts[0] != 1 || m.Counts[hours] != 2 {
-		t.Errorf("merged from %v, %d hours, first %d, last %d; want %d hours", m.Start, len(m.Counts), m.Counts[0], m.Counts[len(m.Counts)-1], hours+1)
+	m := mergeHours(HourSeries{Runs: []HourRun{{Start: b, Counts: []int64{2}}}}, HourSeries{Runs: []HourRun{{Start: a, Counts: []int64{1}}}})
+	if len(m.Runs) != 2 || !m.Runs[0].Start.Equal(a) || !m.Runs[1].Start.Equal(b) || m.Runs[0].Counts[0] != 1 || m.Runs[1].Counts[0] != 2 || len(m.Runs[0].Counts)+len(m.Runs[1].Counts) != 2 {
+		t.Errorf("merged runs %+v; want 1700-01-01 [1] and 2000-01-01T05 [2]", m.Runs)
 	}
 }
