@@ -289,9 +289,11 @@ func badInputs() []badInput {
 			if held > 24*40 {
 				c.t.Errorf("the report's hourly series holds %d hours", held)
 			}
-			if fi, err := os.Stat(filepath.Join(c.dir, "catalog.db")); err != nil || fi.Size() > 16<<20 {
+			fi, err := os.Stat(filepath.Join(c.dir, "catalog.db"))
+			if err != nil || fi.Size() > 16<<20 {
 				c.t.Errorf("catalog.db is %d bytes after the far event", fi.Size())
 			}
+			c.t.Logf("after the far event and two appends: summary %d bytes gzip, report hours held %d, catalog.db %d bytes (whole corpus so far)", len(gz), held, fi.Size())
 		}})
 
 	// 4. Profiles: size and depth.
