@@ -249,7 +249,13 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 		return err
 	})
 	if err == nil {
+		err = ctx.Err() // the client may be gone: not worth the per-case pass
+	}
+	if err == nil {
 		_, err = upCases.Run(acc)
+	}
+	if err == nil {
+		err = ctx.Err()
 	}
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
