@@ -1,6 +1,7 @@
 package catalog
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"fmt"
@@ -16,7 +17,9 @@ import (
 var bucketHeads = []byte("version_heads")
 
 // VersionHead is what names a version and says whether it may be served:
-// everything of a Version but its manifest.
+// everything of a Version but its manifest, with the manifest's headline
+// figures (mode, files, rows, quality scores) so that a list of versions
+// needs no manifest and no full quality report.
 type VersionHead struct {
 	Dataset       string     `json:"dataset"`
 	Number        int        `json:"version"`
@@ -26,15 +29,41 @@ type VersionHead struct {
 	PublishedAt   *time.Time `json:"published_at,omitempty"`
 	RetractedAt   *time.Time `json:"retracted_at,omitempty"`
 	RetractReason string     `json:"retract_reason,omitempty"`
+	Mode          Mode       `json:"mode,omitempty"`
+	Files         int        `json:"files"`
+	Rows          int64      `json:"rows"`
+	// Score is the version's quality score, Scores its dimensions'
+	// (null when a dimension had nothing to measure).
+	Score  *float64            `json:"score"`
+	Scores map[string]*float64 `json:"scores,omitempty"`
+	// Events are the lineage's event counts (new, already held, changed);
+	// absent for versions made before events were counted.
+	Events *EventCounts `json:"events,omitempty"`
 }
 
 // Head returns v's head.
 func (v *Version) Head() VersionHead {
-	return VersionHead{
+	h := VersionHead{
 		Dataset: v.Manifest.Dataset, Number: v.Number, SnapshotID: v.SnapshotID, CreatedAt: v.Manifest.CreatedAt,
 		State: v.State, PublishedAt: v.PublishedAt, RetractedAt: v.RetractedAt, RetractReason: v.RetractReason,
+		Mode: v.Manifest.Lineage.Mode, Files: len(v.Manifest.Files), Rows: v.Manifest.Rows,
+		Events: v.Manifest.Lineage.Events,
 	}
+	if q := v.Manifest.Quality; q != nil {
+		h.Score = q.Score
+		h.Scores = map[string]*float64{}
+		for _, d := range q.Dimensions {
+			h.Scores[d.Name] = d.Score
+		}
+	}
+	return h
 }
+
+// headsFormat is the meta key of the heads' layout: heads of an older
+// layout (without the headline figures) are rewritten at Open.
+var headsFormat = []byte("heads_format")
+
+const headsFormatVersion = "3"
 
 // Visible reports whether a reader sees the version: curators (drafts
 // true) see every version, members those that were ever published; a draft
@@ -60,11 +89,19 @@ func putVersion(tx *bolt.Tx, v *Version) error {
 	return putJSON(tx.Bucket(bucketHeads), k, &h)
 }
 
-// backfillHeads writes the heads of versions stored before heads were.
+// backfillHeads writes the heads of versions stored before heads were,
+// and rewrites every head once when the layout changed.
 func backfillHeads(tx *bolt.Tx) error {
 	heads := tx.Bucket(bucketHeads)
+	meta := tx.Bucket(bucketMeta)
+	rewrite := string(meta.Get(headsFormat)) != headsFormatVersion
+	if rewrite {
+		if err := meta.Put(headsFormat, []byte(headsFormatVersion)); err != nil {
+			return err
+		}
+	}
 	return tx.Bucket(bucketVersions).ForEach(func(k, data []byte) error {
-		if heads.Get(k) != nil {
+		if !rewrite && heads.Get(k) != nil {
 			return nil
 		}
 		var v Version
@@ -78,6 +115,43 @@ func backfillHeads(tx *bolt.Tx) error {
 		}
 		return putVersion(tx, &v)
 	})
+}
+
+// MaxHeadsPage bounds the heads of one HeadsPage.
+const MaxHeadsPage = 1000
+
+// HeadsPage lists up to limit (at most MaxHeadsPage) heads of a dataset's
+// versions numbered above after, in order, that a reader sees (drafts:
+// see VersionHead.Visible). next is the number to pass as after for the
+// following page, 0 when there is none. It reads no more heads than the
+// page needs.
+func (s *Store) HeadsPage(ctx context.Context, project, dataset string, after, limit int, drafts bool) (heads []VersionHead, next int, err error) {
+	limit = min(max(limit, 1), MaxHeadsPage)
+	ref := project + "/" + dataset
+	prefix := []byte(ref + "/")
+	heads = []VersionHead{}
+	err = s.db.View(func(tx *bolt.Tx) error {
+		if tx.Bucket(bucketDatasets).Get([]byte(ref)) == nil {
+			return fmt.Errorf("dataset %q: %w", ref, ErrNotFound)
+		}
+		cur := tx.Bucket(bucketHeads).Cursor()
+		for k, v := cur.Seek(seqKey(ref, max(after, 0)+1)); k != nil && bytes.HasPrefix(k, prefix); k, v = cur.Next() {
+			var h VersionHead
+			if err := json.Unmarshal(v, &h); err != nil {
+				return fmt.Errorf("catalog: head %q: %w", k, err)
+			}
+			if !h.Visible(drafts) {
+				continue
+			}
+			if len(heads) == limit {
+				next = heads[len(heads)-1].Number
+				return nil
+			}
+			heads = append(heads, h)
+		}
+		return nil
+	})
+	return heads, next, err
 }
 
 // ResolveHead is Resolve without reading the manifest.

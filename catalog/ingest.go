@@ -9,7 +9,7 @@ import (
 	"fmt"
 	"hash"
 	"io"
-	"path/filepath"
+	"log/slog"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
@@ -25,7 +25,7 @@ import (
 
 // IngestOptions describe one upload.
 type IngestOptions struct {
-	Filename string // as the partner named it; base name only is kept
+	Filename string // as the partner named it; CleanFilename of it is kept
 	By       string // token subject of the uploader
 	Mode     Mode   // how the events combine with the latest version; empty means ModeAppend
 	// From and To bound the half-open window [From, To) a ModeReplaceWindow
@@ -101,7 +101,54 @@ const RuleOutsideWindow = "outside_window"
 // return the version they made the first time, with status duplicate; so
 // does any upload whose new version would hold the latest one's files (one
 // whose events are all held, say).
+//
+// Once reading has begun, every upload leaves a record: one that fails for
+// another reason than its content is recorded with status failed and a
+// rule, and the error wraps ErrNoSpace (disk full), ErrClientGone (the
+// context ended or the body was cut off), ErrUploadTooLarge (the caller's
+// limit), ErrBodyTimeout (the body stalled) or, for a fault of the
+// server, nothing more. Work stops as soon as ctx ends, at the latest
+// after 4,096 more events.
 func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions) (*IngestResult, error) {
+	var st ingestState
+	res, err := s.ingest(ctx, project, dataset, src, opt, &st)
+	if err == nil || res != nil || st.up == nil {
+		return res, err
+	}
+	// Failed after reading began, for a reason other than the file's
+	// content. Its temp files are gone by now (ingest's defers), which a
+	// full disk needs before the record can be written.
+	up := *st.up
+	rule, msg, sentinel := failure(ctx, err)
+	up.Bytes = st.raw.n
+	up.Status = UploadFailed
+	up.Error = &UploadError{Rule: rule, Message: msg}
+	if fe, ok := schema.AsFileError(err); ok {
+		up.Error.Line = fe.Line
+	}
+	if rerr := s.recordUpload(st.ds, &up); rerr != nil {
+		return nil, errors.Join(err, rerr)
+	}
+	lvl := slog.LevelWarn
+	if sentinel == nil {
+		lvl = slog.LevelError
+	}
+	s.opt.Logger.Log(context.Background(), lvl, "upload failed", "dataset", st.ds.Ref(), "upload", up.ID, "rule", rule, "bytes", up.Bytes, "err", err)
+	if sentinel != nil {
+		err = fmt.Errorf("%w: %w", sentinel, err)
+	}
+	return &IngestResult{Upload: up}, err
+}
+
+// ingestState is what Ingest needs of an ingest that failed: the upload
+// as far as it got.
+type ingestState struct {
+	ds  *Dataset
+	up  *Upload
+	raw *hashCounter
+}
+
+func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions, st *ingestState) (*IngestResult, error) {
 	if err := opt.Validate(); err != nil {
 		return nil, err
 	}
@@ -123,11 +170,10 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	}
 	received := s.opt.Now().UTC()
 	up := Upload{Dataset: ds.Ref(), ReceivedAt: received, By: opt.By, Mode: opt.Mode}
-	if opt.Filename != "" {
-		up.Filename = filepath.Base(opt.Filename)
-	}
+	up.Filename = CleanFilename(opt.Filename)
 
 	raw := &hashCounter{h: sha256.New()}
+	st.ds, st.up, st.raw = ds, &up, raw
 	tee := io.TeeReader(src, raw)
 	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location()}
 	if ds.WindowFrom != nil {
@@ -142,7 +188,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 
 	fail := func(err error) (*IngestResult, error) {
 		up.Bytes = raw.n
-		if fe, ok := schema.AsFileError(err); ok {
+		if fe, ok := schema.AsFileError(err); ok && isContentFault(ctx, err) {
 			up.Status = UploadFailed
 			up.Error = &UploadError{Rule: fe.Rule, Line: fe.Line, Column: fe.Column, Message: fe.Msg}
 			if rerr := s.recordUpload(ds, &up); rerr != nil {
@@ -203,7 +249,13 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	// the upload's own checks and its report riding along.
 	upCases := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
 	defer upCases.Close()
+	var n int
 	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
+		if n++; n&4095 == 0 {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+		}
 		fl := acc.Observe(e)
 		sacc.Observe(e)
 		win.observe(e)
@@ -216,6 +268,9 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		e.Line = line
 		return err
 	}))
+	if err == nil {
+		err = ctx.Err() // the client may be gone
+	}
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
@@ -267,7 +322,11 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		}
 		release := s.hold(id)
 		defer release()
-		if err := s.blobs.Put(ctx, id, sw.f); err != nil {
+		var body io.Reader = sw.f
+		if testHookPut != nil {
+			body = testHookPut(body)
+		}
+		if err := s.blobs.Put(ctx, id, body); err != nil {
 			return nil, fmt.Errorf("ingest: %w", err)
 		}
 		entry = &FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows}
@@ -276,6 +335,13 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		testHookBeforeCommit()
 	}
 	return s.commit(ctx, ds, &up, entry, sacc, &uploadPass{cases: upCases, entry: entry, acc: acc}, qopt, pz.KeyID(), opt)
+}
+
+// isContentFault reports whether a file error is the file's own fault
+// rather than the server's or the connection's.
+func isContentFault(ctx context.Context, err error) bool {
+	_, _, sentinel := failure(ctx, err)
+	return sentinel == nil
 }
 
 // removing reports whether opt allows an upload without rows: a
@@ -515,6 +581,10 @@ func mappedFields(p *schema.Profile) []schema.Field {
 	}
 	return out
 }
+
+// testHookPut, when set by a test, wraps the reader of the new file's
+// blob write: the crash tests stall it there and end the process.
+var testHookPut func(io.Reader) io.Reader
 
 // testHookBeforeCommit, when set by a test, runs after the new file is
 // durable in the blob store and before the version is committed: the

@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"log/slog"
 	"os"
+	"path/filepath"
 	"sync"
 	"time"
 
@@ -37,10 +38,14 @@ var (
 // Options configure a Store. The zero value of each optional field is a
 // sensible default.
 type Options struct {
-	Master  anonymize.MasterKey // required: seals and opens project keys
-	TempDir string              // for sort runs and Parquet files being written; default os.TempDir()
-	Logger  *slog.Logger        // default slog.Default()
-	Now     func() time.Time    // default time.Now
+	Master anonymize.MasterKey // required: seals and opens project keys
+	// TempDir holds sort runs and Parquet files being written. When set,
+	// the folder is the store's own: Open empties it (what a crash left;
+	// only pseudonymized events). Default os.TempDir(), which Open leaves
+	// alone.
+	TempDir string
+	Logger  *slog.Logger     // default slog.Default()
+	Now     func() time.Time // default time.Now
 	// RunEvents bounds the events the ingest sorts in memory before it
 	// spills a sorted run to TempDir (default 65536).
 	RunEvents int
@@ -69,7 +74,8 @@ type Store struct {
 // anonymize.ErrKeyMismatch when the master key is not the one the catalog
 // was created with.
 func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
-	if opt.TempDir == "" {
+	ownTemp := opt.TempDir != ""
+	if !ownTemp {
 		opt.TempDir = os.TempDir()
 	}
 	if opt.Logger == nil {
@@ -117,7 +123,27 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		db.Close()
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
-	return &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{}}, nil
+	st := &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{}}
+	// Holding the bbolt lock, no other catalog writes here: clear what an
+	// earlier run left in the temp folder and the blob store's.
+	if ownTemp {
+		if ents, err := os.ReadDir(opt.TempDir); err == nil {
+			for _, e := range ents {
+				os.RemoveAll(filepath.Join(opt.TempDir, e.Name()))
+			}
+		}
+	}
+	if sw, ok := blobs.(blob.TempSweeper); ok {
+		n, b, err := sw.SweepTemp(context.Background(), 0, false)
+		if err != nil {
+			db.Close()
+			return nil, fmt.Errorf("catalog: %w", err)
+		}
+		if n > 0 {
+			opt.Logger.Info("removed temporary blob files left by an earlier run", "files", n, "bytes", b)
+		}
+	}
+	return st, nil
 }
 
 // Close closes the metadata file.

@@ -128,26 +128,22 @@ and files younger than --grace are kept; every version, retracted ones too, keep
 }
 
 // versionsTable prints versions with their state and lineage.
-func versionsTable(e *env, vs []catalog.Version) error {
+func versionsTable(e *env, vs []catalog.VersionHead) error {
 	tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
 	fmt.Fprintln(tw, "VERSION\tSTATE\tCREATED\tMODE\tFILES\tROWS\tNEW\tHELD\tCHANGED\tSCORE\tSNAPSHOT")
 	for _, v := range vs {
-		sc := "-"
-		if v.Manifest.Quality != nil {
-			sc = score(v.Manifest.Quality.Score)
-		}
-		mode := string(v.Manifest.Lineage.Mode)
+		mode := string(v.Mode)
 		if mode == "" {
 			mode = "-"
 		}
 		// The lineage's event counts: new, already held, changed (versions
 		// made before events were counted show "-").
 		nw, held, changed := "-", "-", "-"
-		if ev := v.Manifest.Lineage.Events; ev != nil {
+		if ev := v.Events; ev != nil {
 			nw, held, changed = fmt.Sprint(ev.New), fmt.Sprint(ev.Held), fmt.Sprint(ev.Changed)
 		}
-		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\n", v.Number, v.State, stamp(v.Manifest.CreatedAt), mode,
-			len(v.Manifest.Files), v.Manifest.Rows, nw, held, changed, sc, v.SnapshotID[:16])
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\n", v.Number, v.State, stamp(v.CreatedAt), mode,
+			v.Files, v.Rows, nw, held, changed, score(v.Score), v.SnapshotID[:16])
 	}
 	return tw.Flush()
 }

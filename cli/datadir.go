@@ -150,13 +150,8 @@ func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger, lim ...
 	if err := os.MkdirAll(d.tmp(), 0o700); err != nil {
 		return nil, err
 	}
-	// Sort runs and Parquet files from an interrupted run hold only
-	// pseudonymized events; clear them at start.
-	if ents, err := os.ReadDir(d.tmp()); err == nil {
-		for _, e := range ents {
-			os.Remove(filepath.Join(d.tmp(), e.Name()))
-		}
-	}
+	// Open clears what an interrupted run left in tmp/ and blobs/tmp/
+	// once it holds the bbolt lock (only pseudonymized events).
 	opt := catalog.Options{Master: master, TempDir: d.tmp(), Logger: log}
 	if len(lim) > 0 {
 		opt.Limits = lim[0]

@@ -125,13 +125,6 @@ type LagRaw struct {
 	Buckets    map[int]int64 `json:"buckets"`
 }
 
-// HourSeries counts events per UTC hour from Start.
-type HourSeries struct {
-	Start  *time.Time `json:"start,omitempty"`
-	Counts []int64    `json:"counts"`
-	Beyond int64      `json:"beyond"` // events outside the series' span
-}
-
 // WaitRaw counts the waits of one (queue, activity).
 type WaitRaw struct {
 	Queue     string `json:"queue"`
@@ -159,7 +152,7 @@ func MergeReports(rs ...*Report) (*Report, error) {
 		if r == nil {
 			continue
 		}
-		if r.Version != ReportVersion {
+		if r.Version != ReportVersion && r.Version != "2" { // 2: hours as one dense series, read into runs
 			return nil, fmt.Errorf("merge: report %d has format %q, want %q: %w", i, r.Version, ReportVersion, ErrIncompatible)
 		}
 		if out == nil {
@@ -340,36 +333,6 @@ func mergeSite(d, s *SiteRaw) {
 	d.Hours = mergeHours(d.Hours, s.Hours)
 	d.FileRows += s.FileRows
 	d.FileBackSteps += s.FileBackSteps
-}
-
-func mergeHours(a, b HourSeries) HourSeries {
-	if b.Start == nil {
-		a.Beyond += b.Beyond
-		if a.Counts == nil {
-			a.Counts = []int64{}
-		}
-		return a
-	}
-	if a.Start == nil {
-		return HourSeries{Start: b.Start, Counts: slices.Clone(b.Counts), Beyond: a.Beyond + b.Beyond}
-	}
-	start := *a.Start
-	if b.Start.Before(start) {
-		start = *b.Start
-	}
-	// In seconds, not time.Duration: a Duration saturates at 292 years
-	// and instants span the years 0001-9999.
-	offA := int((a.Start.Unix() - start.Unix()) / 3600)
-	offB := int((b.Start.Unix() - start.Unix()) / 3600)
-	n := max(offA+len(a.Counts), offB+len(b.Counts))
-	out := make([]int64, n)
-	for i, v := range a.Counts {
-		out[offA+i] += v
-	}
-	for i, v := range b.Counts {
-		out[offB+i] += v
-	}
-	return HourSeries{Start: &start, Counts: out, Beyond: a.Beyond + b.Beyond}
 }
 
 // caseCodes are the findings counted per case or per wait rather than per

@@ -86,7 +86,7 @@ type Accumulator struct {
 	arrivals uint64
 	arrWeek  [168]uint64
 	arrDay   map[int32]uint64
-	days     map[int32]struct{} // local days observed
+	days     observed // local days observed
 	los      *dist
 	evCase   *dist // events per case, as counts (not µs)
 	between  *dist // time between consecutive events of a case
@@ -205,7 +205,6 @@ func New(opt Options) *Accumulator {
 		subjects:  newDistinct(),
 		resources: newDistinct(),
 		arrDay:    map[int32]uint64{},
-		days:      map[int32]struct{}{},
 		los:       newDist(),
 		evCase:    newDist(),
 		between:   newDist(),
@@ -264,6 +263,11 @@ func (a *Accumulator) Observe(e *schema.Event) {
 		a.maxAt = at
 	}
 	a.hasTime = true
+	// A stretch of observation ends at a silence longer than
+	// ObservationGap; its days are observed, the silence's are not.
+	if a.segHas && (at > a.segLast+observationGap || at < a.segFirst-observationGap) {
+		a.endStretch()
+	}
 	if !a.segHas {
 		a.segHas, a.segFirst, a.segLast = true, at, at
 	}
@@ -388,32 +392,36 @@ func (a *Accumulator) occAdd(t int64, arrival bool) {
 	}
 }
 
-// finish ends the current file's stream state.
+// finish ends the current file's stream state and records the local
+// days of the stretch of events observed since the last one ended.
 func (a *Accumulator) finish() {
 	a.lastRes = ""
+	a.endStretch()
+}
+
+// observationGap is ObservationGap in µs.
+const observationGap = int64(ObservationGap / time.Microsecond)
+
+// endStretch records the local days of the current stretch of events as
+// observed.
+func (a *Accumulator) endStretch() {
+	if !a.segHas {
+		return
+	}
+	_, d0 := a.local(a.segFirst)
+	_, d1 := a.local(a.segLast)
+	a.days.add(dayRange{d0, d1})
 	a.segHas = false
 }
 
-// observedDays returns the local days from the first to the last event
-// observed, and how many of them fall on each weekday (0 = Monday). A day
-// inside the span without events counts, with no arrivals: the days do not
-// depend on how the events were cut into files, and state does not grow
-// with the span.
+// observedDays returns the local days observed (see ObservationGap) and
+// how many of them fall on each weekday (0 = Monday). A day without events
+// inside a stretch counts, with no arrivals. The days depend only on the
+// days with events, not on how the events were cut into files, and state
+// grows with the stretches, not with the span.
 func (a *Accumulator) observedDays() (n int, wdays [7]int) {
-	if !a.hasTime {
-		return 0, wdays
-	}
-	_, d0 := a.local(a.minAt)
-	_, d1 := a.local(a.maxAt)
-	n = int(d1-d0) + 1
-	full, rest := n/7, n%7
-	for w := range wdays {
-		wdays[w] = full
-	}
-	for k := range rest {
-		wdays[((int(d0)+k+3)%7+7)%7]++
-	}
-	return n, wdays
+	a.endStretch()
+	return a.days.days(), a.days.weekdays()
 }
 
 // local returns the hour of the week (0 = Monday 00:00-01:00 local) and

@@ -9,7 +9,9 @@ import (
 )
 
 // stateMagic starts every serialized state; the last byte is the format
-// version.
+// version. Format 2 keeps the observed days as ranges (see
+// ObservationGap); a format 2 state from before the ranges holds none, and
+// reads as one range from its first to its last event.
 const stateMagic = "FCSUM\x02"
 
 // oldStateMagic starts states written before cases were whole (their case
@@ -154,12 +156,12 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 		e.uv(a.arrDay[d])
 		prev = d
 	}
-	obs := slices.Sorted(maps.Keys(a.days))
-	e.uv(uint64(len(obs)))
+	e.uv(uint64(len(a.days)))
 	prev = 0
-	for _, d := range obs {
-		e.iv(int64(d - prev))
-		prev = d
+	for _, r := range a.days {
+		e.iv(int64(r.first - prev))
+		e.uv(uint64(r.last - r.first))
+		prev = r.last
 	}
 	e.dist(a.los)
 	e.dist(a.evCase)
@@ -357,9 +359,14 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		x.arrDay[day] = d.uv()
 	}
 	day = 0
-	for range d.count(1) {
-		day += int32(d.iv())
-		x.days[day] = struct{}{}
+	for range d.count(2) {
+		first := day + int32(d.iv())
+		day = first + int32(d.uv())
+		if day < first || len(x.days) > 0 && first <= x.days[len(x.days)-1].last+observedJoinDays {
+			d.err = ErrCorrupt
+			break
+		}
+		x.days = append(x.days, dayRange{first, day})
 	}
 	x.los = d.dist()
 	x.evCase = d.dist()
@@ -371,6 +378,12 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 	}
 	if d.err != nil || len(d.b) != 0 {
 		return fmt.Errorf("summary: %w", ErrCorrupt)
+	}
+	if len(x.days) == 0 && x.hasTime {
+		// Written before the days were kept: its first to last day.
+		_, d0 := x.local(x.minAt)
+		_, d1 := x.local(x.maxAt)
+		x.days.add(dayRange{d0, d1})
 	}
 	*a = *x
 	return nil
