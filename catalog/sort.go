@@ -383,11 +383,15 @@ type run struct {
 	// lastCase and lastSubj are the previous event's: in a run sorted by
 	// case the next event mostly names them again, and reuses the string.
 	lastCase, lastSubj string
-	less               func(a, b *schema.Event) int
-	r                  *bufio.Reader
-	ev                 schema.Event
-	inter              map[string]string
-	tmp                []byte
+	// last holds the previous event's interned fields, field the next
+	// one's index, so a repeated value costs a compare, not a map lookup.
+	last  [8]string
+	field int
+	less  func(a, b *schema.Event) int
+	r     *bufio.Reader
+	ev    schema.Event
+	inter map[string]string
+	tmp   []byte
 }
 
 type runHeap []*run
@@ -431,6 +435,10 @@ func encodeEvent(b []byte, e *schema.Event) []byte {
 func (r *run) next() (bool, error) {
 	var err error
 	str := func(intern bool) string {
+		idx := r.field
+		if intern {
+			r.field++
+		}
 		if err != nil {
 			return ""
 		}
@@ -450,12 +458,19 @@ func (r *run) next() (bool, error) {
 			return ""
 		}
 		if intern {
+			// The previous event's value of this field first: in a run
+			// most consecutive events share site, type, queue, activity.
+			if last := &r.last[idx]; string(r.tmp) == *last {
+				return *last
+			}
 			if s, ok := r.inter[string(r.tmp)]; ok {
+				r.last[idx] = s
 				return s
 			}
 			if len(r.inter) < 1<<14 && len(r.tmp) <= internMaxLen {
 				s := string(r.tmp)
 				r.inter[s] = s
+				r.last[idx] = s
 				return s
 			}
 		}
@@ -488,6 +503,7 @@ func (r *run) next() (bool, error) {
 		return false, nil
 	}
 	e := &r.ev
+	r.field = 0
 	e.Site = str(true)
 	e.CaseID = strLast(&r.lastCase)
 	e.SubjectID = strLast(&r.lastSubj)
