@@ -293,7 +293,73 @@ func (s *sorter) Finish(fn func(*schema.Event) error) error {
 			return err
 		}
 	}
-	return s.merge(s.runs, fn)
+	return s.mergeAhead(s.runs, fn)
+}
+
+// errMergeStopped ends a merge whose consumer stopped.
+var errMergeStopped = errors.New("sort: merge stopped")
+
+// mergeAhead is merge with the reading, decoding and ordering of runs on
+// another goroutine, handed over in batches of events, so that it overlaps
+// with fn's work on two cores. It holds three batches of mergeBatch events.
+func (s *sorter) mergeAhead(runs []*os.File, fn func(*schema.Event) error) error {
+	const mergeBatch = 512
+	full := make(chan []schema.Event, 2)
+	free := make(chan []schema.Event, 3)
+	for range 3 {
+		free <- make([]schema.Event, 0, mergeBatch)
+	}
+	stop := make(chan struct{})
+	perr := make(chan error, 1)
+	go func() {
+		b := <-free
+		send := func() error {
+			select {
+			case full <- b:
+			case <-stop:
+				return errMergeStopped
+			}
+			select {
+			case b = <-free:
+				return nil
+			case <-stop:
+				return errMergeStopped
+			}
+		}
+		err := s.merge(runs, func(e *schema.Event) error {
+			b = append(b, *e)
+			if len(b) == cap(b) {
+				return send()
+			}
+			return nil
+		})
+		if err == nil && len(b) > 0 {
+			select {
+			case full <- b:
+			case <-stop:
+			}
+		}
+		close(full)
+		perr <- err
+	}()
+	var ferr error
+	for b := range full {
+		for i := range b {
+			if ferr != nil {
+				break
+			}
+			if err := fn(&b[i]); err != nil {
+				ferr = err
+				close(stop)
+			}
+		}
+		clear(b)
+		free <- b[:0]
+	}
+	if err := <-perr; ferr == nil && err != nil && err != errMergeStopped {
+		return err
+	}
+	return ferr
 }
 
 // mergeOldest merges the first fanIn runs into a new last run.
