@@ -7,7 +7,9 @@ import (
 	"log/slog"
 	"net"
 	"net/http"
+	"os"
 	"os/signal"
+	"runtime/debug"
 	"syscall"
 	"time"
 
@@ -19,7 +21,7 @@ import (
 
 func newServeCmd(e *env) *cobra.Command {
 	var dir, addr, masterFile string
-	var maxUpload int64
+	var maxUpload, memLimit int64
 	var maxUploads int
 	var bodyIdle time.Duration
 	var author string
@@ -33,6 +35,11 @@ func newServeCmd(e *env) *cobra.Command {
 				return usageErr("serve: --data DIR is required")
 			}
 			log := slog.New(slog.NewJSONHandler(e.stderr, nil))
+			if memLimit > 0 && os.Getenv("GOMEMLIMIT") == "" {
+				// A soft limit: the collector runs harder near it, so the
+				// heap's garbage does not double the resident memory.
+				debug.SetMemoryLimit(memLimit)
+			}
 			d := dataDir(dir)
 			ctx, stop := signal.NotifyContext(cmd.Context(), syscall.SIGINT, syscall.SIGTERM)
 			defer stop()
@@ -55,8 +62,15 @@ func newServeCmd(e *env) *cobra.Command {
 	c.Flags().Int64Var(&lim.MaxBytes, "max-decompressed-bytes", schema.DefaultMaxBytes, "largest uploaded file after gzip decompression")
 	c.Flags().Int64Var(&lim.MaxRows, "max-rows", schema.DefaultMaxRows, "most data rows in one uploaded file")
 	c.Flags().StringVar(&author, "citation-author", "", "author named in CITATION.cff files, e.g. the lab (default: the project's title)")
+	c.Flags().Int64Var(&memLimit, "memory-limit", DefaultMemoryLimit, "soft limit of the server's memory in bytes (Go's runtime/debug.SetMemoryLimit; 0: none; the GOMEMLIMIT environment variable wins)")
 	return c
 }
+
+// DefaultMemoryLimit is serve's soft memory limit: what an upload holds
+// (two sorts' buffers, Parquet row groups, the case in hand) fits well
+// under it, and the collector keeps garbage from pushing the resident
+// memory past it.
+const DefaultMemoryLimit = 200 << 20
 
 // serverOptions are serve's tuning flags.
 type serverOptions struct {
