@@ -230,22 +230,6 @@ func (s *Store) readFile(ctx context.Context, id blob.ID, fn func(*schema.Event)
 	return nil
 }
 
-func (s *Store) storedVersionSummary(ref string, n int) (*versionSummary, error) {
-	var vs versionSummary
-	err := s.db.View(func(tx *bolt.Tx) error {
-		st := tx.Bucket(bucketVersionStates).Get(seqKey(ref, n))
-		if st == nil {
-			return fmt.Errorf("summary of %s@%d: %w", ref, n, ErrNotFound)
-		}
-		vs.State = bytes.Clone(st)
-		return nil
-	})
-	if err != nil {
-		return nil, err
-	}
-	return &vs, nil
-}
-
 // putSummaries stores a commit's summary states in tx.
 func putSummaries(tx *bolt.Tx, ref string, n int, vs *versionSummary, files map[blob.ID][]byte) error {
 	for id, b := range files {

@@ -154,13 +154,6 @@ func (e *env) blobIDs(t testing.TB) []blob.ID {
 	return ids
 }
 
-// caseTableIDs lists the stored case tables.
-func (e *env) caseTableIDs(t testing.TB) []blob.ID {
-	t.Helper()
-	_, ids := e.splitBlobs(t)
-	return ids
-}
-
 func (e *env) splitBlobs(t testing.TB) (events, tables []blob.ID) {
 	t.Helper()
 	err := e.blobs.List(context.Background(), func(i blob.Info) error {
