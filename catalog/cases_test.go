@@ -27,6 +27,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/schema/cases"
+	"github.com/flowcat-catalog/flowcat/schema/synth"
 )
 
 // caseTable reads a version's case table with Apache Arrow's Parquet
@@ -435,4 +436,44 @@ func TestPatientsLog(t *testing.T) {
 		}
 	}
 	_ = quality.CodeCaseTooLong
+}
+
+// TestCompletionOnlyLog: a log of completions alone, grouped by case (as
+// many hospital exports are), spilled many times by the sort: every case
+// whole, its duration the span of its steps, and waits and services named
+// as not measurable.
+func TestCompletionOnlyLog(t *testing.T) {
+	const cases, per = 3000, 20
+	data, err := io.ReadAll(synth.NewCompletions(cases, per))
+	if err != nil {
+		t.Fatal(err)
+	}
+	e := newEnv(t, func(o *Options) { o.RunEvents = 4096 })
+	e.dataset(t, "p", "d", nil)
+	v := e.ingest(t, "p", "d", data, "long.csv").Version
+	want := int64((per - 1) * 6 * 3600 * 1e6) // a step every 6 hours (synth.NewCompletions)
+	cs := readArrowCases(t, e.caseTable(t, v))
+	if len(cs) != cases {
+		t.Fatalf("%d case rows, want %d", len(cs), cases)
+	}
+	for _, c := range cs {
+		if c.events != per || c.duration != want || c.nulls != "nnnnnnn" {
+			t.Fatalf("case %s: %d events over %d µs, nulls %s; want %d over %d, all optional columns null", c.id, c.events, c.duration, c.nulls, per, want)
+		}
+	}
+	js, err := e.s.Summary(context.Background(), "p/d", v.Number)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var s summary.Summary
+	if err := json.Unmarshal(js, &s); err != nil {
+		t.Fatal(err)
+	}
+	if s.Cases.Value != cases || s.EventsPerCase.Min != per || s.EventsPerCase.Max != per || len(s.NotMeasurable) != 2 ||
+		s.BetweenEvents.N != cases*(per-1) || s.BetweenEvents.Mean != 6*3600 {
+		t.Errorf("summary cases %v, events per case %+v, between %d mean %v, not measurable %+v", s.Cases.Value, s.EventsPerCase, s.BetweenEvents.N, s.BetweenEvents.Mean, s.NotMeasurable)
+	}
+	if q := v.Manifest.Quality.Cases; q.Count != cases || q.MeanDurationSeconds != float64(want)/1e6 {
+		t.Errorf("report cases %+v", q)
+	}
 }
