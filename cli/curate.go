@@ -132,16 +132,13 @@ func versionsTable(e *env, vs []catalog.Version) error {
 	tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
 	fmt.Fprintln(tw, "VERSION\tSTATE\tCREATED\tMODE\tFILES\tROWS\tSCORE\tSNAPSHOT")
 	for _, v := range vs {
-		sc := "-"
-		if v.Manifest.Quality != nil {
-			sc = score(v.Manifest.Quality.Score)
-		}
+		sc := score(v.Quality.Score)
 		mode := string(v.Manifest.Lineage.Mode)
 		if mode == "" {
 			mode = "-"
 		}
 		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%d\t%d\t%s\t%s\n", v.Number, v.State, stamp(v.Manifest.CreatedAt), mode,
-			len(v.Manifest.Files), v.Manifest.Rows, sc, v.SnapshotID[:16])
+			len(v.Manifest.Files), v.Manifest.Rows, sc, v.SnapshotID.String()[:16])
 	}
 	return tw.Flush()
 }

@@ -154,7 +154,7 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lock
 		return nil, err
 	}
 	if want != nil {
-		if v.SnapshotID != want.SnapshotID {
+		if v.SnapshotID.String() != want.SnapshotID {
 			return nil, lockMismatch("%s@%d on %s has snapshot id %s, the lock says %s: the server's version differs", want.Dataset, want.Version, want.Server, v.SnapshotID, want.SnapshotID)
 		}
 		if err := matchLockFiles(want, v.Manifest.Files); err != nil {
@@ -170,7 +170,8 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lock
 	if err != nil {
 		return nil, fmt.Errorf("pull: manifest: %w", err)
 	}
-	if sum := sha256.Sum256(manifest); hex.EncodeToString(sum[:]) != v.SnapshotID {
+	if catalog.SnapshotOf(manifest) != v.SnapshotID {
+		sum := sha256.Sum256(manifest)
 		return nil, fmt.Errorf("pull: the manifest's sha256 %x is not the snapshot id %s", sum, v.SnapshotID)
 	}
 	// The file list comes from the manifest bytes just checked against the
@@ -190,7 +191,7 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lock
 	server := *cl.base
 	server.User = nil // never write credentials into the lock
 	lock := &lockFile{LockVersion: 1, Server: server.String(), Dataset: r.Project + "/" + r.Dataset,
-		Version: v.Number, SnapshotID: v.SnapshotID, PulledAt: time.Now().UTC()}
+		Version: v.Number, SnapshotID: v.SnapshotID.String(), PulledAt: time.Now().UTC()}
 	keep := map[string]bool{}
 	for _, f := range m.Files {
 		rel := dataPath(f.SHA256.String())

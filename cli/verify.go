@@ -68,7 +68,7 @@ func verifyDir(dir string, lock *lockFile) []verifyProblem {
 		add("manifest.json", "not a manifest: %v", err)
 		return probs
 	}
-	if m.Dataset != lock.Dataset || m.Version != lock.Version {
+	if m.Dataset.String() != lock.Dataset || m.Version != lock.Version {
 		add("manifest.json", "is %s@%d, the lock says %s@%d", m.Dataset, m.Version, lock.Dataset, lock.Version)
 	}
 	inManifest := map[string]catalog.FileEntry{}

@@ -329,7 +329,7 @@ func (s *Server) listVersions(c echo.Context) error {
 	drafts := claims(c).CanCurate(d.Project)
 	out := []catalog.Version{}
 	for _, v := range vs {
-		if h := v.Head(); h.Visible(drafts) {
+		if v.Visible(drafts) {
 			out = append(out, v)
 		}
 	}
@@ -352,7 +352,7 @@ func (s *Server) version(c echo.Context) (*catalog.Version, error) {
 
 // versionHead is version without the manifest: for handlers that need
 // only the version's name and state.
-func (s *Server) versionHead(c echo.Context) (*catalog.VersionHead, error) {
+func (s *Server) versionHead(c echo.Context) (*catalog.Version, error) {
 	project, name := c.Param("project"), c.Param("dataset")
 	if !readable(claims(c), project, name) {
 		return nil, forbidden("read versions of " + project + "/" + name)
@@ -361,7 +361,7 @@ func (s *Server) versionHead(c echo.Context) (*catalog.VersionHead, error) {
 	if err != nil {
 		return nil, catalogError(err)
 	}
-	h, err := s.cfg.Store.ResolveHead(c.Request().Context(), project, name, sel, claims(c).CanCurate(project))
+	h, err := s.cfg.Store.ResolveVersion(c.Request().Context(), project, name, sel, claims(c).CanCurate(project))
 	if err != nil {
 		return nil, catalogError(err)
 	}
@@ -376,7 +376,7 @@ func (s *Server) servable(c echo.Context) (*catalog.Version, error) {
 		return nil, err
 	}
 	if v.State == catalog.StateRetracted {
-		return nil, s.gone(v.Head())
+		return nil, s.gone(v)
 	}
 	return v, nil
 }
@@ -467,20 +467,27 @@ func (s *Server) getManifest(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	b, err := v.Manifest.Canonical()
+	b, err := s.cfg.Store.ManifestBytes(c.Request().Context(), v)
 	if err != nil {
-		return err
+		return catalogError(err)
 	}
-	c.Response().Header().Set("ETag", `"`+v.SnapshotID+`"`)
+	c.Response().Header().Set("ETag", `"`+v.SnapshotID.String()+`"`)
 	return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
 }
 
+// getQuality serves the version's quality report as stored: the bytes
+// whose sha256 its manifest names.
 func (s *Server) getQuality(c echo.Context) error {
-	v, err := s.version(c)
+	v, err := s.versionHead(c)
 	if err != nil {
 		return err
 	}
-	return c.JSON(http.StatusOK, v.Manifest.Quality)
+	b, err := s.cfg.Store.QualityReport(c.Request().Context(), v)
+	if err != nil {
+		return catalogError(err)
+	}
+	c.Response().Header().Set("ETag", `"`+v.Quality.SHA256.String()+`"`)
+	return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
 }
 
 // download streams one Parquet file of a version with Content-Length,

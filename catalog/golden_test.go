@@ -1,0 +1,153 @@
+package catalog
+
+import (
+	"bytes"
+	"context"
+	"crypto/sha256"
+	"encoding/json"
+	"io"
+	"io/fs"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"testing"
+
+	"github.com/flowcat-catalog/flowcat/anonymize"
+	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
+)
+
+// copyTree copies the directory src to dst (created), files readable and
+// writable by the test.
+func copyTree(t testing.TB, src, dst string) {
+	t.Helper()
+	err := filepath.WalkDir(src, func(p string, d fs.DirEntry, err error) error {
+		if err != nil {
+			return err
+		}
+		rel, _ := filepath.Rel(src, p)
+		to := filepath.Join(dst, rel)
+		if d.IsDir() {
+			return os.MkdirAll(to, 0o700)
+		}
+		b, err := os.ReadFile(p)
+		if err != nil {
+			return err
+		}
+		return os.WriteFile(to, b, 0o600)
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+}
+
+// TestGoldenDataDirectories opens every data directory under
+// testdata/golden (each written by an earlier release, see its README)
+// with today's code and checks that nothing it stored changed meaning:
+// every version's manifest is served as the bytes that hash to its
+// snapshot id, equal to what that release served, and every file of every
+// manifest hashes to its sha256. It opens each twice, since the first
+// open migrates.
+func TestGoldenDataDirectories(t *testing.T) {
+	dirs, err := filepath.Glob("../testdata/golden/*/data")
+	if err != nil || len(dirs) == 0 {
+		t.Fatalf("no golden data directories (%v)", err)
+	}
+	for _, src := range dirs {
+		name := filepath.Base(filepath.Dir(src))
+		t.Run(name, func(t *testing.T) {
+			dir := t.TempDir()
+			copyTree(t, src, dir)
+			master, err := anonymize.LoadMasterKeyFile(filepath.Join(dir, "master.key"))
+			if err != nil {
+				t.Fatal(err)
+			}
+			for round := 1; round <= 2; round++ {
+				checkGolden(t, filepath.Dir(src), dir, master)
+			}
+		})
+	}
+}
+
+func checkGolden(t *testing.T, golden, dir string, master anonymize.MasterKey) {
+	t.Helper()
+	ctx := context.Background()
+	blobs, err := localfs.New(filepath.Join(dir, "blobs"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	s, err := Open(filepath.Join(dir, "catalog.db"), blobs, Options{Master: master, TempDir: t.TempDir()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	projects, err := s.Projects(ctx)
+	if err != nil || len(projects) == 0 {
+		t.Fatalf("projects %v, %v", projects, err)
+	}
+	versions := 0
+	for _, p := range projects {
+		dss, err := s.Datasets(ctx, p.Name)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, d := range dss {
+			vs, err := s.Versions(ctx, d.Project, d.Name)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if len(vs) != d.Latest {
+				t.Errorf("%s: %d versions, latest is %d", d.Ref(), len(vs), d.Latest)
+			}
+			for i := range vs {
+				v := &vs[i]
+				versions++
+				mb, err := s.ManifestBytes(ctx, v)
+				if err != nil {
+					t.Fatal(err)
+				}
+				if SnapshotOf(mb) != v.SnapshotID {
+					t.Errorf("%s@%d: manifest hashes to %x, snapshot id %s", d.Ref(), v.Number, sha256.Sum256(mb), v.SnapshotID)
+				}
+				served, err := os.ReadFile(filepath.Join(golden, "served", "manifest-"+strconv.Itoa(v.Number)+".json"))
+				if err != nil {
+					t.Fatal(err)
+				}
+				if !bytes.Equal(mb, served) {
+					t.Errorf("%s@%d: manifest differs from the one the release served", d.Ref(), v.Number)
+				}
+				// The report moved out of old manifests, byte for byte.
+				var old struct {
+					Quality json.RawMessage `json:"quality"`
+				}
+				json.Unmarshal(mb, &old)
+				rep, err := s.QualityReport(ctx, v)
+				if err != nil || !bytes.Equal(rep, old.Quality) {
+					t.Errorf("%s@%d: stored report (%v) differs from the one embedded in its manifest", d.Ref(), v.Number, err)
+				}
+				if _, err := s.Report(ctx, v); err != nil {
+					t.Errorf("%s@%d: report does not decode: %v", d.Ref(), v.Number, err)
+				}
+				if len(v.Manifest.Blobs()) == 0 {
+					t.Errorf("%s@%d: no files", d.Ref(), v.Number)
+				}
+				for _, f := range v.Manifest.Blobs() {
+					r, _, err := s.OpenFile(ctx, v, f.SHA256)
+					if err != nil {
+						t.Fatal(err)
+					}
+					h := sha256.New()
+					n, err := io.Copy(h, r)
+					r.Close()
+					if err != nil || n != f.Bytes || !bytes.Equal(h.Sum(nil), f.SHA256[:]) {
+						t.Errorf("%s@%d: file %s: %d bytes, sha256 %x (%v)", d.Ref(), v.Number, f.SHA256, n, h.Sum(nil), err)
+					}
+				}
+			}
+		}
+	}
+	readme, _ := os.ReadFile(filepath.Join(golden, "README.md"))
+	if versions == 0 || !strings.Contains(string(readme), "| "+strconv.Itoa(versions)+" |") {
+		t.Errorf("%d versions; the README's table should list each", versions)
+	}
+}
