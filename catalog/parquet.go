@@ -6,9 +6,12 @@ import (
 	"hash"
 	"io"
 	"os"
+	"reflect"
 	"runtime"
+	"strings"
 	"sync"
 	"time"
+	"unsafe"
 
 	"github.com/klauspost/compress/zstd"
 	"github.com/parquet-go/parquet-go"
@@ -20,18 +23,15 @@ import (
 )
 
 // snapshotWriter writes one snapshot Parquet file to a temporary path while
-// hashing it. Writer settings are fixed (zstd, bounded row groups, a
-// created_by that names no build or time) so that the same events always
-// give the same bytes.
+// hashing it, through an EventWriter with every column.
 type snapshotWriter struct {
-	f     *os.File
-	h     hash.Hash
-	n     int64
-	w     *parquet.GenericWriter[schema.Event]
-	batch []schema.Event
-	rows  int64
-	min   time.Time
-	max   time.Time
+	f    *os.File
+	h    hash.Hash
+	n    int64
+	w    *EventWriter
+	rows int64
+	min  time.Time
+	max  time.Time
 }
 
 // derivedFrom, when not empty, is written into the file's metadata: a file
@@ -41,18 +41,12 @@ func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom
 	if err != nil {
 		return nil, fmt.Errorf("parquet: %w", err)
 	}
-	sw := &snapshotWriter{f: f, h: sha256.New(), batch: make([]schema.Event, 0, 1024)}
-	opts := []parquet.WriterOption{
-		parquet.Compression(PageCodec),
-		parquet.MaxRowsPerRowGroup(rowGroupRows),
-		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
-		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
-		parquet.KeyValueMetadata("flowcat.pseudonym_key_id", keyID),
-	}
+	sw := &snapshotWriter{f: f, h: sha256.New()}
+	kv := []KeyValue{{"flowcat.pseudonym_key_id", keyID}}
 	for _, d := range derivedFrom {
-		opts = append(opts, parquet.KeyValueMetadata("flowcat.derived_from", d))
+		kv = append(kv, KeyValue{"flowcat.derived_from", d})
 	}
-	sw.w = parquet.NewGenericWriter[schema.Event](io.MultiWriter(f, sw.h, countWriter{&sw.n}), opts...)
+	sw.w = NewEventWriter(io.MultiWriter(f, sw.h, countWriter{&sw.n}), schema.Fields, EventWriterOptions{RowGroupRows: rowGroupRows, Metadata: kv})
 	return sw, nil
 }
 
@@ -63,30 +57,14 @@ func (sw *snapshotWriter) Write(e *schema.Event) error {
 	}
 	sw.max = e.OccurredAt
 	sw.rows++
-	sw.batch = append(sw.batch, *e)
-	if len(sw.batch) == cap(sw.batch) {
-		return sw.flushBatch()
-	}
-	return nil
-}
-
-func (sw *snapshotWriter) flushBatch() error {
-	if _, err := sw.w.Write(sw.batch); err != nil {
-		return fmt.Errorf("parquet: %w", err)
-	}
-	clear(sw.batch)
-	sw.batch = sw.batch[:0]
-	return nil
+	return sw.w.Write(e)
 }
 
 // Finish completes the file and makes it durable; it returns the file's id
 // and size. The caller then hands the file to a blob.Store.
 func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
-	if err := sw.flushBatch(); err != nil {
-		return blob.ID{}, 0, err
-	}
 	if err := sw.w.Close(); err != nil {
-		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
+		return blob.ID{}, 0, err
 	}
 	if err := sw.f.Sync(); err != nil {
 		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
@@ -101,6 +79,136 @@ func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
 func (sw *snapshotWriter) Remove() {
 	sw.f.Close()
 	os.Remove(sw.f.Name())
+}
+
+// KeyValue is one entry of a Parquet file's key-value metadata.
+type KeyValue struct{ Key, Value string }
+
+// EventWriterOptions tune an EventWriter.
+type EventWriterOptions struct {
+	RowGroupRows int64      // rows per row group; required
+	Metadata     []KeyValue // key-value metadata, after flowcat.schema_version, in this order
+}
+
+// EventWriter is the one Parquet writer of events, for snapshots and
+// exports: rows of a subset of the schema's columns (schema.Event's
+// Parquet layout), zstd pages (PageCodec), bounded row groups and a
+// created_by that names no build or time, so that the same events always
+// give the same bytes. An empty optional field is written as NULL: each row
+// carries its own definition levels. (parquet-go's writer of Go structs
+// decides nulls of "optional" non-pointer fields per batch with a bitmap
+// scan that, in v0.32.0, takes some empty strings after a run of nulls for
+// values; building rows here keeps the writer out of that path.)
+type EventWriter struct {
+	//lint:ignore SA1019 the generic writer needs a Go type; a column subset is a schema built at run time
+	w     *parquet.Writer
+	cols  []schema.Field
+	batch []parquet.Row
+	n     int
+}
+
+const writeBatch = 512
+
+// NewEventWriter returns a writer of cols to w.
+func NewEventWriter(w io.Writer, cols []schema.Field, opt EventWriterOptions) *EventWriter {
+	opts := []parquet.WriterOption{
+		subsetSchema(cols),
+		parquet.Compression(PageCodec),
+		parquet.MaxRowsPerRowGroup(opt.RowGroupRows),
+		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
+		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
+	}
+	for _, kv := range opt.Metadata {
+		opts = append(opts, parquet.KeyValueMetadata(kv.Key, kv.Value))
+	}
+	ew := &EventWriter{w: parquet.NewWriter(w, opts...), cols: cols, batch: make([]parquet.Row, writeBatch)}
+	for i := range ew.batch {
+		ew.batch[i] = make(parquet.Row, len(cols))
+	}
+	return ew
+}
+
+var (
+	eventType   = reflect.TypeFor[schema.Event]()
+	schemaCache sync.Map // column list -> *parquet.Schema
+)
+
+// subsetSchema is the Parquet schema of schema.Event restricted to cols:
+// a struct type of the same fields and tags, so node types, logical types
+// and encodings are those of the snapshots.
+func subsetSchema(cols []schema.Field) *parquet.Schema {
+	key := fmt.Sprint(cols)
+	if s, ok := schemaCache.Load(key); ok {
+		return s.(*parquet.Schema)
+	}
+	var fields []reflect.StructField
+	for _, c := range cols {
+		for i := range eventType.NumField() {
+			sf := eventType.Field(i)
+			if name, _, _ := strings.Cut(sf.Tag.Get("parquet"), ","); name == string(c) {
+				fields = append(fields, reflect.StructField{Name: sf.Name, Type: sf.Type, Tag: sf.Tag})
+			}
+		}
+	}
+	s := parquet.SchemaOf(reflect.New(reflect.StructOf(fields)).Elem().Interface())
+	schemaCache.Store(key, s)
+	return s
+}
+
+// Write appends e.
+func (ew *EventWriter) Write(e *schema.Event) error {
+	row := ew.batch[ew.n][:0]
+	for i, c := range ew.cols {
+		var v parquet.Value
+		switch {
+		case c == schema.FieldOccurredAt:
+			v = parquet.Int64Value(e.OccurredAt.UnixMicro()).Level(0, 0, i)
+		case c.Required():
+			v = bytesValue(e.Value(c)).Level(0, 0, i)
+		default:
+			if s := e.Value(c); s == "" {
+				v = parquet.NullValue().Level(0, 0, i)
+			} else {
+				v = bytesValue(s).Level(0, 1, i)
+			}
+		}
+		row = append(row, v)
+	}
+	ew.batch[ew.n] = row
+	ew.n++
+	if ew.n == len(ew.batch) {
+		return ew.flush()
+	}
+	return nil
+}
+
+// bytesValue wraps s without copying: the writer copies values into its
+// column buffers before WriteRows returns, and strings are immutable.
+func bytesValue(s string) parquet.Value {
+	return parquet.ByteArrayValue(unsafe.Slice(unsafe.StringData(s), len(s)))
+}
+
+func (ew *EventWriter) flush() error {
+	if ew.n == 0 {
+		return nil
+	}
+	if _, err := ew.w.WriteRows(ew.batch[:ew.n]); err != nil {
+		return fmt.Errorf("parquet: %w", err)
+	}
+	ew.n = 0
+	return nil
+}
+
+// Close writes the rows held and the footer; it does not close the
+// underlying writer.
+func (ew *EventWriter) Close() error {
+	if err := ew.flush(); err != nil {
+		return err
+	}
+	if err := ew.w.Close(); err != nil {
+		return fmt.Errorf("parquet: %w", err)
+	}
+	return nil
 }
 
 // PageCodec compresses the pages of every Parquet file flowcat writes
