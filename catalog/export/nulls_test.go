@@ -14,6 +14,7 @@ import (
 	"github.com/apache/arrow-go/v18/parquet/file"
 	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
+	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -65,30 +66,7 @@ func nullPatterns(n int) map[schema.Field]func(i int) bool {
 // be the source's.
 func TestNullsWhereTheSourceWasEmpty(t *testing.T) {
 	const n = 2600
-	pats := nullPatterns(n)
-	rows := make([][]string, n)
-	empty := map[string]map[schema.Field]bool{} // event_id -> fields left empty
-	want := map[schema.Field]int64{}
-	for i := range rows {
-		id := fmt.Sprintf("ev-%05d", i)
-		row := []string{"north", fmt.Sprintf("C-%d", i/5), "P-1", "R-1", "arrival", "triage", "q1",
-			genBase.Add(time.Duration(i) * time.Minute).Format(time.RFC3339), "2", "phone", "seen", id}
-		empty[id] = map[schema.Field]bool{}
-		for j, h := range header {
-			if p := pats[schema.Field(h)]; p != nil && p(i) {
-				row[j] = ""
-				empty[id][schema.Field(h)] = true
-				want[schema.Field(h)]++
-			}
-		}
-		rows[i] = row
-	}
-	e := newEnv(t, 500)
-	e.dataset(t, "er", "nulls")
-	v := e.ingest(t, "er", "nulls", csvBytes(rows), "nulls.csv")
-	if len(v.Manifest.Files) != 1 {
-		t.Fatalf("%d files", len(v.Manifest.Files))
-	}
+	e, v, empty, want := nullsFixture(t, n)
 	r, err := e.s.Blobs().Open(context.Background(), v.Manifest.Files[0].SHA256)
 	if err != nil {
 		t.Fatal(err)
@@ -171,4 +149,36 @@ func checkNulls(t *testing.T, data []byte, n int, empty map[string]map[schema.Fi
 			t.Errorf("%s: arrow counts %d nulls, the source %d empty", f, nulls, want[f])
 		}
 	}
+}
+
+// nullsFixture ingests n events whose optional fields are empty in the
+// patterns of nullPatterns, as one file of row groups of 500 rows. It
+// returns, per event_id, the fields left empty, and per field the count.
+func nullsFixture(t *testing.T, n int) (*env, *catalog.Version, map[string]map[schema.Field]bool, map[schema.Field]int64) {
+	t.Helper()
+	pats := nullPatterns(n)
+	rows := make([][]string, n)
+	empty := map[string]map[schema.Field]bool{}
+	want := map[schema.Field]int64{}
+	for i := range rows {
+		id := fmt.Sprintf("ev-%05d", i)
+		row := []string{"north", fmt.Sprintf("C-%d", i/5), "P-1", "R-1", "arrival", "triage", "q1",
+			genBase.Add(time.Duration(i) * time.Minute).Format(time.RFC3339), "2", "phone", "seen", id}
+		empty[id] = map[schema.Field]bool{}
+		for j, h := range header {
+			if p := pats[schema.Field(h)]; p != nil && p(i) {
+				row[j] = ""
+				empty[id][schema.Field(h)] = true
+				want[schema.Field(h)]++
+			}
+		}
+		rows[i] = row
+	}
+	e := newEnv(t, 500)
+	e.dataset(t, "er", "nulls")
+	v := e.ingest(t, "er", "nulls", csvBytes(rows), "nulls.csv")
+	if len(v.Manifest.Files) != 1 {
+		t.Fatalf("%d files", len(v.Manifest.Files))
+	}
+	return e, v, empty, want
 }

@@ -19,11 +19,16 @@ const DefaultRowGroupRows = 128 << 10
 // build or time, so that output bytes do not change with the build.
 const CreatedBy = "flowcat version schema-" + schema.Version + "(build )"
 
+// MetaFilter is the key-value metadata entry of an export that records
+// its filter (Filter.Query; empty for the whole version).
+const MetaFilter = "flowcat.filter"
+
 // ParquetOptions tune WriteParquet. The zero value is the default.
 type ParquetOptions struct {
 	RowGroupRows int64 // rows per row group; default DefaultRowGroupRows
 	// Metadata is added to the file's key/value metadata (written sorted
-	// by key). flowcat.schema_version is always set.
+	// by key), such as the dataset, version and snapshot id exported.
+	// flowcat.schema_version and flowcat.filter are always set.
 	Metadata map[string]string
 }
 
@@ -42,10 +47,13 @@ func WriteParquet(ctx context.Context, w io.Writer, src Source, files []catalog.
 		rows = DefaultRowGroupRows
 	}
 	keys := slices.Sorted(maps.Keys(opt.Metadata))
-	kv := make([]catalog.KeyValue, len(keys))
-	for i, k := range keys {
-		kv[i] = catalog.KeyValue{Key: k, Value: opt.Metadata[k]}
+	kv := make([]catalog.KeyValue, 0, len(keys)+1)
+	for _, k := range keys {
+		if k != MetaFilter {
+			kv = append(kv, catalog.KeyValue{Key: k, Value: opt.Metadata[k]})
+		}
 	}
+	kv = append(kv, catalog.KeyValue{Key: MetaFilter, Value: f.Query()})
 	pw := catalog.NewEventWriter(w, f.columns(), catalog.EventWriterOptions{RowGroupRows: rows, Metadata: kv})
 	st, err := Events(ctx, src, files, f, pw.Write)
 	if err != nil {
