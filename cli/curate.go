@@ -85,9 +85,10 @@ func newGCCmd(e *env) *cobra.Command {
 	var dry bool
 	var grace time.Duration
 	c := &cobra.Command{
-		Use:   "gc",
-		Short: "Delete stored files no version references (admin)",
-		Long: `Gc asks the server to delete the Parquet files that no version of any dataset lists: what a
+		Use:     "sweep",
+		Aliases: []string{"gc"}, // the name of releases up to 8a7be85
+		Short:   "Delete stored files no version references (admin)",
+		Long: `Sweep asks the server to delete the Parquet files that no version of any dataset lists: what a
 crash between storing a file and committing its version leaves behind. Files of uploads in progress
 and files younger than --grace are kept; every version, retracted ones too, keeps its files.`,
 		Args: cobra.NoArgs,
@@ -99,7 +100,7 @@ and files younger than --grace are kept; every version, retracted ones too, keep
 			req := map[string]any{"dry_run": dry}
 			if cmd.Flags().Changed("grace") {
 				if grace < 0 {
-					return usageErr("gc: --grace must not be negative")
+					return usageErr("sweep: --grace must not be negative")
 				}
 				req["grace_seconds"] = grace.Seconds()
 			}

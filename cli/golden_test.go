@@ -1,0 +1,64 @@
+package cli_test
+
+import (
+	"bytes"
+	"io/fs"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+)
+
+// TestPullFromGoldenDataDirectory serves a copy of the data directory the
+// first release wrote (testdata/golden/release-8a7be85) with today's
+// server, pulls each version and verifies it offline: the manifests pulled
+// are the bytes that release served, and they hash to their snapshot ids.
+func TestPullFromGoldenDataDirectory(t *testing.T) {
+	golden := "../testdata/golden/release-8a7be85"
+	data := filepath.Join(t.TempDir(), "data")
+	err := filepath.WalkDir(filepath.Join(golden, "data"), func(p string, d fs.DirEntry, err error) error {
+		if err != nil {
+			return err
+		}
+		rel, _ := filepath.Rel(filepath.Join(golden, "data"), p)
+		if d.IsDir() {
+			return os.MkdirAll(filepath.Join(data, rel), 0o700)
+		}
+		b, err := os.ReadFile(p)
+		if err != nil {
+			return err
+		}
+		return os.WriteFile(filepath.Join(data, rel), b, 0o600)
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Setenv("FLOWCAT_MASTER_KEY", "")
+	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
+	_, serveErr, _ := background(t, "serve", "--data", data, "--addr", "127.0.0.1:0")
+	url := waitFor(t, "the server's URL", func() string {
+		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
+			return m[1]
+		}
+		return ""
+	})
+	code, tok, errs := run(t, nil, "token", "issue", "--data", data, "--role", "member", "--project", "golden", "--subject", "student")
+	if code != 0 {
+		t.Fatalf("token issue: %s", errs)
+	}
+	env := map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": strings.TrimSpace(tok)}
+	for _, v := range []string{"1", "2"} {
+		dir := filepath.Join(t.TempDir(), "v"+v)
+		if code, out, errs := run(t, env, "pull", "golden/visits@"+v, "-o", dir); code != 0 {
+			t.Fatalf("pull @%s: exit %d %s %s", v, code, out, errs)
+		}
+		if code, out, errs := run(t, nil, "verify", dir); code != 0 || !strings.HasPrefix(out, "ok") {
+			t.Errorf("verify @%s: exit %d %s %s", v, code, out, errs)
+		}
+		got, _ := os.ReadFile(filepath.Join(dir, "manifest.json"))
+		want, _ := os.ReadFile(filepath.Join(golden, "served", "manifest-"+v+".json"))
+		if len(want) == 0 || !bytes.Equal(got, want) {
+			t.Errorf("@%s: pulled manifest differs from the one the first release served", v)
+		}
+	}
+}
