@@ -166,7 +166,7 @@ type Lineage struct {
 }
 
 // Manifest describes a version completely: its files and how they came to
-// be. Its canonical bytes are made once, at commit (Canonical), stored
+// be. Its canonical bytes are made once, at commit (canonical), stored
 // under the version's snapshot id (their SHA-256), and served as stored;
 // a Manifest value is only ever decoded from them to be used.
 type Manifest struct {
@@ -195,11 +195,11 @@ type ReportRef struct {
 	Score  *float64 `json:"score"` // the overall score; null when nothing could be scored
 }
 
-// Canonical returns the manifest's canonical JSON: encoding/json of the
+// canonical returns the manifest's canonical JSON: encoding/json of the
 // struct (fixed field order, times in RFC 3339 UTC), no indentation, no
 // trailing newline. Only the commit calls it: afterwards the stored bytes
 // are the manifest.
-func (m *Manifest) Canonical() ([]byte, error) {
+func (m *Manifest) canonical() ([]byte, error) {
 	c := *m
 	c.CreatedAt = c.CreatedAt.UTC()
 	b, err := json.Marshal(&c)

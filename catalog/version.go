@@ -96,7 +96,7 @@ func commitManifest(tx *bolt.Tx, m *Manifest, rep *quality.Report) (*Version, er
 			return nil, err
 		}
 	}
-	b, err := m.Canonical()
+	b, err := m.canonical()
 	if err != nil {
 		return nil, err
 	}
