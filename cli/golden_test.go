@@ -9,12 +9,23 @@ import (
 	"testing"
 )
 
-// TestPullFromGoldenDataDirectory serves a copy of the data directory the
-// first release wrote (testdata/golden/release-8a7be85) with today's
-// server, pulls each version and verifies it offline: the manifests pulled
-// are the bytes that release served, and they hash to their snapshot ids.
-func TestPullFromGoldenDataDirectory(t *testing.T) {
-	golden := "../testdata/golden/release-8a7be85"
+// TestPullFromGoldenDataDirectories serves a copy of each data directory
+// under testdata/golden (the first release's, and one of each later stored
+// format) with today's server, pulls each version and verifies it offline:
+// the manifests pulled are the bytes the writing release served, and they
+// hash to their snapshot ids.
+func TestPullFromGoldenDataDirectories(t *testing.T) {
+	dirs, _ := filepath.Glob("../testdata/golden/*/served")
+	if len(dirs) < 2 {
+		t.Fatalf("golden directories: %v", dirs)
+	}
+	for _, d := range dirs {
+		golden := filepath.Dir(d)
+		t.Run(filepath.Base(golden), func(t *testing.T) { pullGolden(t, golden) })
+	}
+}
+
+func pullGolden(t *testing.T, golden string) {
 	data := filepath.Join(t.TempDir(), "data")
 	err := filepath.WalkDir(filepath.Join(golden, "data"), func(p string, d fs.DirEntry, err error) error {
 		if err != nil {
