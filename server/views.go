@@ -190,12 +190,13 @@ func (s *Server) gone(h *catalog.Version) error {
 }
 
 // requestTag is a strong ETag for a deterministic response: the same
-// version, format and filter always give the same bytes.
+// version, format and filter always give the same bytes, as long as the
+// writers' layout (export.Layout) stays the same.
 func requestTag(v *catalog.Version, format string, f export.Filter) string {
 	b, _ := json.Marshal(struct {
-		Snapshot, Format string
-		Filter           export.Filter
-	}{v.SnapshotID.String(), format, f})
+		Snapshot, Format, Layout string
+		Filter                   export.Filter
+	}{v.SnapshotID.String(), format, export.Layout, f})
 	sum := sha256.Sum256(b)
 	return `"` + hex.EncodeToString(sum[:16]) + `"`
 }

@@ -19,6 +19,13 @@ const DefaultRowGroupRows = 128 << 10
 // build or time, so that output bytes do not change with the build.
 const CreatedBy = "flowcat version schema-" + schema.Version + "(build )"
 
+// Layout names the bytes this package's writers make of a version: it
+// changes whenever they would write other bytes for the same request
+// (encodings, metadata, bundle entries), so a server's ETags change with
+// it. "2": PLAIN and dictionary encodings, sorting columns, the filter in
+// the metadata, quality.json in bundles.
+const Layout = "2"
+
 // MetaFilter is the key-value metadata entry of an export that records
 // its filter (Filter.Query; empty for the whole version).
 const MetaFilter = "flowcat.filter"
