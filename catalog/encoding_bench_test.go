@@ -3,7 +3,6 @@ package catalog
 import (
 	"bytes"
 	"context"
-	"fmt"
 	"reflect"
 	"strings"
 	"testing"
@@ -128,7 +127,7 @@ func BenchmarkEncodings(b *testing.B) {
 					b.Fatal(err)
 				}
 				if tbl.NumRows() != int64(len(evs)) {
-					b.Fatal(fmt.Sprintf("%d rows", tbl.NumRows()))
+					b.Fatalf("%d rows", tbl.NumRows())
 				}
 				tbl.Release()
 			}
