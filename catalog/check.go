@@ -20,16 +20,21 @@ type CheckOptions struct {
 	Now        time.Time // the "upload" instant; default time.Now()
 	WindowFrom time.Time // declared window, zero = open
 	WindowTo   time.Time
+	Limits     schema.Limits // see Options.Limits
 }
 
 // CheckResult is the offline report of one file.
 type CheckResult struct {
 	Report   *quality.Report `json:"report"`
 	Unmapped []string        `json:"unmapped_columns,omitempty"`
+	// Events counts the copies within the file (stored once at ingest),
+	// and conflicting stable event ids.
+	Events *EventCounts `json:"events"`
 }
 
 // Check runs the ingest's read, validate and quality pipeline over src
-// without storing anything, so a partner can test a file before sending
+// (copies within the file are counted once, as at ingest) without storing
+// anything, so a partner can test a file before sending
 // it. Identifiers are pseudonymized under a throwaway key, so the report's
 // samples hold no raw values. A nil prof means schema.DefaultProfile(). A
 // file that cannot be read fails with an error wrapping ErrFileInvalid and
@@ -54,7 +59,7 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 	acc := quality.NewAccumulator(quality.Options{UploadedAt: opt.Now, WindowFrom: opt.WindowFrom, WindowTo: opt.WindowTo, MappedFields: mappedFields(prof), Zone: prof.Location()})
 	srt := newSorter(opt.TempDir, opt.RunEvents)
 	defer srt.Close()
-	rd, err := schema.NewReader(src, prof, schema.ReaderOptions{Name: opt.Name})
+	rd, err := schema.NewReader(src, prof, schema.ReaderOptions{Name: opt.Name, Limits: opt.Limits})
 	if err == nil {
 		err = readAll(ctx, rd, pz, acc, srt)
 	}
@@ -64,12 +69,26 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 		}
 		return nil, fmt.Errorf("check: %w", err)
 	}
-	if err := srt.Finish(func(e *schema.Event) error { acc.Observe(e); return nil }); err != nil {
+	cp := NewCasePass(opt.TempDir, opt.RunEvents)
+	defer cp.Close()
+	hf := newHeldFilter(IdentityOf(prof), ChangesRefuse)
+	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
+		fl := acc.Observe(e)
+		line := e.Line
+		e.Line = quality.PackLine(line, fl)
+		err := cp.Add(e)
+		e.Line = line
+		return err
+	}))
+	if err == nil {
+		_, err = cp.Run(acc)
+	}
+	if err != nil {
 		return nil, fmt.Errorf("check: %w", err)
 	}
 	rep := acc.Report()
 	rep.UnmappedColumns = rd.Unmapped()
-	return &CheckResult{Report: rep, Unmapped: rep.UnmappedColumns}, nil
+	return &CheckResult{Report: rep, Unmapped: rep.UnmappedColumns, Events: hf.uploadCounts()}, nil
 }
 
 func throwawayPseudonymizer() (*anonymize.Pseudonymizer, error) {

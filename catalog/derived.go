@@ -5,8 +5,10 @@ import (
 	"compress/gzip"
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
+	"strings"
 	"time"
 
 	bolt "go.etcd.io/bbolt"
@@ -15,6 +17,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 var (
@@ -61,10 +64,14 @@ func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID) (*su
 	}
 	acc := summary.New(summaryOptions(ds))
 	if state != nil {
-		if err := acc.UnmarshalBinary(state); err != nil {
+		err := acc.UnmarshalBinary(state)
+		if err == nil {
+			return acc, nil, nil
+		}
+		if !errors.Is(err, summary.ErrOldState) {
 			return nil, nil, fmt.Errorf("summary of file %s: %w", id, err)
 		}
-		return acc, nil, nil
+		acc = summary.New(summaryOptions(ds)) // recomputed below, once
 	}
 	r, err := s.blobs.Open(ctx, id)
 	if err != nil {
@@ -81,67 +88,146 @@ func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID) (*su
 	return acc, state, nil
 }
 
-// mergeSummary builds the new version's summary. An append merges the
-// upload's file into the parent's merged state; other modes merge the
-// states of all the version's files. fresh holds the states of files made
-// by this commit; the result also lists the states to store for files
-// that had none.
-func (s *Store) mergeSummary(ctx context.Context, ds *Dataset, parent *Version, plan *filePlan, fresh map[blob.ID]*summary.Accumulator, mode Mode) (*versionSummary, map[blob.ID][]byte, error) {
-	store := map[blob.ID][]byte{}
-	for id, acc := range fresh {
-		b, err := acc.MarshalBinary()
-		if err != nil {
-			return nil, nil, err
-		}
-		store[id] = b
+// uploadPass is an upload's part in its version's per-case pass: the pass
+// holding the upload's events (marked by uploadMark, with their quality
+// flags), the file they made, and the upload's quality accumulator, which
+// takes the upload's events alone.
+type uploadPass struct {
+	cases *CasePass
+	entry *FileEntry
+	acc   *quality.Accumulator
+}
+
+// versionPass is what one per-case pass over a version's files yields.
+type versionPass struct {
+	summary    *versionSummary
+	fileStates map[blob.ID][]byte // event-level summary states to store for files that had none
+	cases      *quality.Report    // the case-level report (see quality.WithCases)
+	table      *CaseTableEntry    // nil unless the case table was asked for
+	releases   []func()
+}
+
+func (p *versionPass) release() {
+	for _, r := range p.releases {
+		r()
 	}
+}
+
+// passVersion computes what a version's files give together: the summary
+// (the merge of the files' event-level states, plus the case-level
+// figures of one per-case pass over all their events), the case-level
+// quality report, and, with table, the case table, stored in the blob
+// store and held until the caller releases it. fresh holds the summary
+// states of files made by this commit. Memory is bounded by the sort's
+// runs, not by the version: every file is read once, in turn, and its
+// events sorted by case on disk.
+func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, qopt quality.Options, keyID string, table bool, upass *uploadPass) (*versionPass, error) {
+	out := &versionPass{fileStates: map[blob.ID][]byte{}}
 	total := summary.New(summaryOptions(ds))
-	merged := false
-	if mode == ModeAppend && parent != nil {
-		if st, err := s.storedVersionSummary(ds.Ref().String(), parent.Number); err == nil && st.State != nil {
-			if err := total.UnmarshalBinary(st.State); err != nil {
-				return nil, nil, fmt.Errorf("summary of version %d: %w", parent.Number, err)
+	for _, f := range files {
+		acc := fresh[f.SHA256]
+		if acc != nil {
+			b, err := acc.MarshalBinary()
+			if err != nil {
+				return nil, err
 			}
-			for _, f := range plan.files {
-				if _, inParent := parent.File(f.SHA256); inParent {
-					continue
-				}
-				if acc := fresh[f.SHA256]; acc != nil {
-					if err := total.Merge(acc); err != nil {
-						return nil, nil, err
-					}
-				}
+			out.fileStates[f.SHA256] = b
+		} else {
+			a, state, err := s.summaryOfFile(ctx, ds, f.SHA256)
+			if err != nil {
+				return nil, err
 			}
-			merged = true
+			if state != nil {
+				out.fileStates[f.SHA256] = state
+			}
+			acc = a
+		}
+		if err := total.Merge(acc); err != nil {
+			return nil, err
 		}
 	}
-	if !merged {
-		for _, f := range plan.files {
-			acc := fresh[f.SHA256]
-			if acc == nil {
-				a, state, err := s.summaryOfFile(ctx, ds, f.SHA256)
-				if err != nil {
-					return nil, nil, err
-				}
-				if state != nil {
-					store[f.SHA256] = state
-				}
-				acc = a
-			}
-			if err := total.Merge(acc); err != nil {
-				return nil, nil, err
-			}
+	var cp *CasePass
+	var mine []cases.Observer
+	var fromUpload blob.ID
+	if upass != nil {
+		// The upload's events are in its pass already, marked.
+		cp, mine = upass.cases, []cases.Observer{upass.acc}
+		if upass.entry != nil {
+			fromUpload = upass.entry.SHA256
 		}
+	} else {
+		cp = NewCasePass(s.opt.TempDir, s.opt.RunEvents)
+		defer cp.Close()
+	}
+	for _, f := range files {
+		if f.SHA256 == fromUpload {
+			continue
+		}
+		err := s.readFile(ctx, f.SHA256, func(e *schema.Event) error {
+			// Strings read from Parquet may point into the reader's
+			// buffers; the sort keeps events past the next read.
+			c := *e
+			cloneStrings(&c)
+			return cp.Add(&c)
+		})
+		if err != nil {
+			return nil, err
+		}
+	}
+	qacc := quality.NewAccumulator(qopt)
+	obs := []cases.Observer{total, qacc}
+	var cw *caseTableWriter
+	if table {
+		var err error
+		if cw, err = newCaseTableWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID); err != nil {
+			return nil, err
+		}
+		defer cw.Remove()
+		obs = append(obs, cw)
+	}
+	counts, err := cp.RunSplit(obs, mine)
+	if err != nil {
+		return nil, err
+	}
+	total.SetCounts(counts)
+	out.cases = qacc.Report()
+	if cw != nil {
+		e, err := cw.Finish()
+		if err != nil {
+			return nil, err
+		}
+		out.releases = append(out.releases, s.hold(e.SHA256))
+		if err := s.blobs.Put(ctx, e.SHA256, cw.f); err != nil {
+			out.release()
+			return nil, fmt.Errorf("case table: %w", err)
+		}
+		out.table = e
 	}
 	state, err := total.MarshalBinary()
 	if err != nil {
-		return nil, nil, err
+		out.release()
+		return nil, err
 	}
 	js, err := json.Marshal(total.Summary())
 	if err != nil {
-		return nil, nil, fmt.Errorf("summary: %w", err)
+		out.release()
+		return nil, fmt.Errorf("summary: %w", err)
 	}
-	return &versionSummary{State: state, JSON: js}, store, nil
+	out.summary = &versionSummary{State: state, JSON: js}
+	return out, nil
+}
+
+// readFile calls fn for every event of a stored snapshot file.
+func (s *Store) readFile(ctx context.Context, id blob.ID, fn func(*schema.Event) error) error {
+	r, err := s.blobs.Open(ctx, id)
+	if err != nil {
+		return fmt.Errorf("file %s: %w", id, err)
+	}
+	defer r.Close()
+	if err := ReadSnapshot(r, r.Size(), fn); err != nil {
+		return fmt.Errorf("file %s: %w", id, err)
+	}
+	return nil
 }
 
 func (s *Store) storedVersionSummary(ref string, n int) (*versionSummary, error) {
@@ -232,15 +318,15 @@ func (s *Store) SummaryGzip(ctx context.Context, ref string, n int) ([]byte, err
 	if err != nil {
 		return nil, err
 	}
-	vs, files, err := s.mergeSummary(ctx, ds, nil, &filePlan{files: v.Manifest.Files}, nil, ModeReplaceAll)
+	vp, err := s.passVersion(ctx, ds, v.Manifest.Files, nil, quality.Options{}, "", false, nil)
 	if err != nil {
 		return nil, err
 	}
-	err = s.db.Update(func(tx *bolt.Tx) error { return putSummaries(tx, ref, v.Number, vs, files) })
+	err = s.db.Update(func(tx *bolt.Tx) error { return putSummaries(tx, ref, v.Number, vp.summary, vp.fileStates) })
 	if err != nil {
 		return nil, err
 	}
-	return gzipJSON(vs.JSON)
+	return gzipJSON(vp.summary.JSON)
 }
 
 // bucketFileReports maps a blob id to the quality report of its events.
@@ -323,4 +409,19 @@ func parentRef(v *Version) string {
 		return ""
 	}
 	return v.Dataset.String()
+}
+
+// cloneStrings gives e strings of its own.
+func cloneStrings(e *schema.Event) {
+	e.Site = strings.Clone(e.Site)
+	e.CaseID = strings.Clone(e.CaseID)
+	e.SubjectID = strings.Clone(e.SubjectID)
+	e.ResourceID = strings.Clone(e.ResourceID)
+	e.Type = schema.EventType(strings.Clone(string(e.Type)))
+	e.Activity = strings.Clone(e.Activity)
+	e.Queue = strings.Clone(e.Queue)
+	e.Priority = strings.Clone(e.Priority)
+	e.Channel = strings.Clone(e.Channel)
+	e.Outcome = strings.Clone(e.Outcome)
+	e.EventID = strings.Clone(e.EventID)
 }

@@ -9,12 +9,14 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
+	"reflect"
 	"strconv"
 	"strings"
 	"testing"
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 // copyTree copies the directory src to dst (created), files readable and
@@ -131,8 +133,11 @@ func checkGolden(t *testing.T, golden, dir string, master anonymize.MasterKey) {
 				case q == nil && !bytes.Equal(rep, old.Quality):
 					t.Errorf("%s@%d: stored report differs from the one embedded in its manifest", d.Ref(), v.Number)
 				}
-				if _, err := s.Report(ctx, v); err != nil {
+				r, err := s.Report(ctx, v)
+				if err != nil {
 					t.Errorf("%s@%d: report does not decode: %v", d.Ref(), v.Number, err)
+				} else {
+					checkHeadline(t, v, r)
 				}
 				if len(v.Manifest.Blobs()) == 0 {
 					t.Errorf("%s@%d: no files", d.Ref(), v.Number)
@@ -155,5 +160,27 @@ func checkGolden(t *testing.T, golden, dir string, master anonymize.MasterKey) {
 	readme, _ := os.ReadFile(filepath.Join(golden, "README.md"))
 	if versions == 0 || !strings.Contains(string(readme), "| "+strconv.Itoa(versions)+" |") {
 		t.Errorf("%d versions; the README's table should list each", versions)
+	}
+}
+
+// checkHeadline checks that v's record holds its manifest's and report's
+// headline figures (filled at commit, or by the migration for records of
+// older formats), as the list of versions serves them.
+func checkHeadline(t *testing.T, v *Version, r *quality.Report) {
+	t.Helper()
+	m := v.Manifest
+	if v.Mode != m.Lineage.Mode || v.Files != len(m.Files) || v.Rows != m.Rows || !reflect.DeepEqual(v.Events, m.Lineage.Events) {
+		t.Errorf("%s@%d: record's mode %q files %d rows %d events %v; manifest's %q, %d, %d, %v", v.Dataset, v.Number, v.Mode, v.Files, v.Rows, v.Events, m.Lineage.Mode, len(m.Files), m.Rows, m.Lineage.Events)
+	}
+	if (v.Quality.Score == nil) != (r.Score == nil) || r.Score != nil && *v.Quality.Score != *r.Score {
+		t.Errorf("%s@%d: record's score %v, report's %v", v.Dataset, v.Number, v.Quality.Score, r.Score)
+	}
+	if len(v.Scores) != len(r.Dimensions) {
+		t.Errorf("%s@%d: record has %d dimension scores, report %d", v.Dataset, v.Number, len(v.Scores), len(r.Dimensions))
+	}
+	for _, d := range r.Dimensions {
+		if s, ok := v.Scores[d.Name]; !ok || (s == nil) != (d.Score == nil) || s != nil && *s != *d.Score {
+			t.Errorf("%s@%d: record's %s score %v, report's %v", v.Dataset, v.Number, d.Name, s, d.Score)
+		}
 	}
 }

@@ -7,6 +7,7 @@ import (
 	"crypto/sha256"
 	"encoding/csv"
 	"fmt"
+	"github.com/parquet-go/parquet-go"
 	"io"
 	"io/fs"
 	"log/slog"
@@ -145,17 +146,42 @@ func (e *env) ingest(t testing.TB, p, d string, data []byte, name string) *Inges
 }
 
 // blobIDs lists the blob store.
+// blobIDs lists the stored snapshot (event) files; case tables, which
+// every version adds, are told apart by their Parquet metadata and listed
+// by caseTableIDs.
 func (e *env) blobIDs(t testing.TB) []blob.ID {
 	t.Helper()
-	var ids []blob.ID
+	ids, _ := e.splitBlobs(t)
+	return ids
+}
+
+// caseTableIDs lists the stored case tables.
+func (e *env) caseTableIDs(t testing.TB) []blob.ID {
+	t.Helper()
+	_, ids := e.splitBlobs(t)
+	return ids
+}
+
+func (e *env) splitBlobs(t testing.TB) (events, tables []blob.ID) {
+	t.Helper()
 	err := e.blobs.List(context.Background(), func(i blob.Info) error {
-		ids = append(ids, i.ID)
+		b := e.blobBytes(t, i.ID)
+		f, err := parquet.OpenFile(bytes.NewReader(b), int64(len(b)))
+		if err != nil { // not Parquet: a test's own bytes
+			events = append(events, i.ID)
+			return nil
+		}
+		if v, _ := f.Lookup("flowcat.table"); v == "cases" {
+			tables = append(tables, i.ID)
+		} else {
+			events = append(events, i.ID)
+		}
 		return nil
 	})
 	if err != nil {
 		t.Fatal(err)
 	}
-	return ids
+	return events, tables
 }
 
 // blobBytes returns the stored bytes of id and checks they hash to it.

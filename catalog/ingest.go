@@ -9,7 +9,7 @@ import (
 	"fmt"
 	"hash"
 	"io"
-	"path/filepath"
+	"log/slog"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
@@ -20,11 +20,12 @@ import (
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // IngestOptions describe one upload.
 type IngestOptions struct {
-	Filename string // as the partner named it; base name only is kept
+	Filename string // as the partner named it; CleanFilename of it is kept
 	By       string // token subject of the uploader
 	Mode     Mode   // how the events combine with the latest version; empty means ModeAppend
 	// From and To bound the half-open window [From, To) a ModeReplaceWindow
@@ -34,6 +35,8 @@ type IngestOptions struct {
 	// upload replaces. Empty means the sites the upload holds. With sites
 	// given, an upload without rows removes their events in the window.
 	Sites []string
+
+	held *heldFilter // set by Ingest: the upload's events against the latest version
 }
 
 // Validate checks the options before any byte is read.
@@ -78,8 +81,10 @@ const RuleOutsideWindow = "outside_window"
 // Ingest reads one export file for a dataset from src, as it streams:
 // parse and validate through the dataset's profile, pseudonymize, sort by
 // occurred_at (spilling sorted runs of pseudonymized events to the temp
-// dir), observe quality, write one zstd Parquet file, put it in the blob
-// store and commit a new version. Its files are, by opt.Mode, the latest
+// dir), drop the events the latest version holds already (append) and the
+// copies within the file (see heldFilter), observe quality, write one zstd
+// Parquet file, put it in the blob store and commit a new version. Its
+// files are, by opt.Mode, the latest
 // version's plus the new one (append), the latest version's with the
 // replaced window's rows removed plus the new one (replace-window), or the
 // new one alone (replace-all). Memory is bounded by Options.RunEvents, not
@@ -88,13 +93,62 @@ const RuleOutsideWindow = "outside_window"
 // Options that do not validate fail with ErrInvalid before src is read. A
 // file that cannot be read fails with an error wrapping ErrFileInvalid and
 // a *schema.FileError; one with too many invalid rows (above the dataset's
-// RejectAbove), none valid, or (replace-window) events outside the window
-// fails with ErrRejected. In those cases nothing but the upload record is
+// RejectAbove), none valid, (replace-window) events outside the window, or
+// changed events under a stable event_id (see ChangePolicy) fails with
+// ErrRejected. In those cases nothing but the upload record is
 // stored, and the result carries the upload and its report. Identical bytes
 // appended again, while the latest version still holds the file they made,
 // return the version they made the first time, with status duplicate; so
-// does any upload whose new version would hold the latest one's files.
+// does any upload whose new version would hold the latest one's files (one
+// whose events are all held, say).
+//
+// Once reading has begun, every upload leaves a record: one that fails for
+// another reason than its content is recorded with status failed and a
+// rule, and the error wraps ErrNoSpace (disk full), ErrClientGone (the
+// context ended or the body was cut off), ErrUploadTooLarge (the caller's
+// limit), ErrBodyTimeout (the body stalled) or, for a fault of the
+// server, nothing more. Work stops as soon as ctx ends, at the latest
+// after 4,096 more events.
 func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions) (*IngestResult, error) {
+	var st ingestState
+	res, err := s.ingest(ctx, project, dataset, src, opt, &st)
+	if err == nil || res != nil || st.up == nil {
+		return res, err
+	}
+	// Failed after reading began, for a reason other than the file's
+	// content. Its temp files are gone by now (ingest's defers), which a
+	// full disk needs before the record can be written.
+	up := *st.up
+	rule, msg, sentinel := failure(ctx, err)
+	up.Bytes = st.raw.n
+	up.Status = UploadFailed
+	up.Error = &UploadError{Rule: rule, Message: msg}
+	if fe, ok := schema.AsFileError(err); ok {
+		up.Error.Line = fe.Line
+	}
+	if rerr := s.recordUpload(st.ds, &up); rerr != nil {
+		return nil, errors.Join(err, rerr)
+	}
+	lvl := slog.LevelWarn
+	if sentinel == nil {
+		lvl = slog.LevelError
+	}
+	s.opt.Logger.Log(context.Background(), lvl, "upload failed", "dataset", st.ds.Ref(), "upload", up.ID, "rule", rule, "bytes", up.Bytes, "err", err)
+	if sentinel != nil {
+		err = fmt.Errorf("%w: %w", sentinel, err)
+	}
+	return &IngestResult{Upload: up}, err
+}
+
+// ingestState is what Ingest needs of an ingest that failed: the upload
+// as far as it got.
+type ingestState struct {
+	ds  *Dataset
+	up  *Upload
+	raw *hashCounter
+}
+
+func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions, st *ingestState) (*IngestResult, error) {
 	if err := opt.Validate(); err != nil {
 		return nil, err
 	}
@@ -116,11 +170,10 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	}
 	received := s.opt.Now().UTC()
 	up := Upload{Dataset: ds.Ref(), ReceivedAt: received, By: opt.By, Mode: opt.Mode}
-	if opt.Filename != "" {
-		up.Filename = filepath.Base(opt.Filename)
-	}
+	up.Filename = CleanFilename(opt.Filename)
 
 	raw := &hashCounter{h: sha256.New()}
+	st.ds, st.up, st.raw = ds, &up, raw
 	tee := io.TeeReader(src, raw)
 	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location()}
 	if ds.WindowFrom != nil {
@@ -135,7 +188,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 
 	fail := func(err error) (*IngestResult, error) {
 		up.Bytes = raw.n
-		if fe, ok := schema.AsFileError(err); ok {
+		if fe, ok := schema.AsFileError(err); ok && isContentFault(ctx, err) {
 			up.Status = UploadFailed
 			up.Error = &UploadError{Rule: fe.Rule, Line: fe.Line, Column: fe.Column, Message: fe.Msg}
 			if rerr := s.recordUpload(ds, &up); rerr != nil {
@@ -147,7 +200,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 
-	rd, err := schema.NewReader(tee, prof, schema.ReaderOptions{Name: up.Filename})
+	rd, err := schema.NewReader(tee, prof, schema.ReaderOptions{Name: up.Filename, Limits: s.opt.Limits})
 	if err == nil {
 		err = readAll(ctx, rd, pz, acc, srt)
 	}
@@ -172,6 +225,17 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		}
 	}
 
+	// From here to the commit the dataset's latest version stays the one
+	// the upload's events are compared with.
+	unlock := s.lockDataset(ds.Ref().String())
+	defer unlock()
+	hf, err := s.heldFilterFor(ctx, ds, prof, opt.Mode)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	defer hf.close()
+	opt.held = hf
+
 	sw, err := newSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, pz.KeyID())
 	if err != nil {
 		return nil, err
@@ -179,20 +243,51 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	defer sw.Remove()
 	win := newWindowCheck(opt)
 	sacc := summary.New(summaryOptions(ds))
-	err = srt.Finish(func(e *schema.Event) error {
-		acc.Observe(e)
+	// The upload's events go to the per-case pass (sorted by case on disk),
+	// each carrying what the time pass found of it and marked as the
+	// upload's: the commit runs that pass once over the whole new version,
+	// the upload's own checks and its report riding along.
+	upCases := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
+	defer upCases.Close()
+	var n int
+	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
+		if n++; n&4095 == 0 {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+		}
+		fl := acc.Observe(e)
 		sacc.Observe(e)
 		win.observe(e)
-		return sw.Write(e)
-	})
+		if err := sw.Write(e); err != nil {
+			return err
+		}
+		line := e.Line
+		e.Line = quality.PackLine(line, fl) | uploadMark
+		err := upCases.Add(e)
+		e.Line = line
+		return err
+	}))
+	if err == nil {
+		err = ctx.Err() // the client may be gone
+	}
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
+	// Rows and rejections are known; the per-case figures come with the pass.
 	rep := acc.Report()
 	rep.UnmappedColumns = up.Unmapped
 	up.Report = rep
+	up.Events = hf.uploadCounts()
 	removeOnly := removing(opt) && rep.Rows.Total == 0
 	reject := func(uerr *UploadError, err error) (*IngestResult, error) {
+		// The per-case checks of the upload alone, for its report.
+		if _, perr := upCases.RunSplit(nil, []cases.Observer{acc}); perr != nil {
+			return nil, fmt.Errorf("ingest: %w", perr)
+		}
+		rep = acc.Report()
+		rep.UnmappedColumns = up.Unmapped
+		up.Report = rep
 		up.Status = UploadRejected
 		up.Error = uerr
 		if err := s.recordUpload(ds, &up); err != nil {
@@ -203,14 +298,17 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		return &IngestResult{Upload: up}, err
 	}
 	switch {
-	case sw.rows == 0 && !removeOnly:
+	case hf.counts.Read == 0 && !removeOnly:
 		return reject(nil, fmt.Errorf("no valid rows among %d: %w", rep.Rows.Total, ErrRejected))
-	case rep.RejectedShare() > ds.RejectAbove:
+	case hf.rejectedShare(rep.Rows.Rejected) > ds.RejectAbove:
 		return reject(nil, fmt.Errorf("%.2f%% of rows are invalid, above the dataset's threshold of %.2f%%: %w",
-			100*rep.RejectedShare(), 100*ds.RejectAbove, ErrRejected))
+			100*hf.rejectedShare(rep.Rows.Rejected), 100*ds.RejectAbove, ErrRejected))
 	case win.outside > 0:
 		ue := win.uploadError()
 		return reject(ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
+	case hf.refusal() != nil:
+		ue := hf.refusal()
+		return reject(ue, fmt.Errorf("line %d: %s: %s: %w", ue.Line, ue.Rule, ue.Message, ErrRejected))
 	}
 	if opt.Mode == ModeReplaceWindow && len(opt.Sites) == 0 {
 		opt.Sites = win.siteList()
@@ -224,7 +322,11 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		}
 		release := s.hold(id)
 		defer release()
-		if err := s.blobs.Put(ctx, id, sw.f); err != nil {
+		var body io.Reader = sw.f
+		if testHookPut != nil {
+			body = testHookPut(body)
+		}
+		if err := s.blobs.Put(ctx, id, body); err != nil {
 			return nil, fmt.Errorf("ingest: %w", err)
 		}
 		entry = &FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows}
@@ -232,7 +334,14 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	if testHookBeforeCommit != nil {
 		testHookBeforeCommit()
 	}
-	return s.commit(ctx, ds, &up, entry, sacc, rep, qopt, pz.KeyID(), opt)
+	return s.commit(ctx, ds, &up, entry, sacc, &uploadPass{cases: upCases, entry: entry, acc: acc}, qopt, pz.KeyID(), opt)
+}
+
+// isContentFault reports whether a file error is the file's own fault
+// rather than the server's or the connection's.
+func isContentFault(ctx context.Context, err error) bool {
+	_, _, sentinel := failure(ctx, err)
+	return sentinel == nil
 }
 
 // removing reports whether opt allows an upload without rows: a
@@ -244,12 +353,10 @@ func isNoRows(err error) bool {
 	return ok && (fe.Rule == schema.RuleNoRows || fe.Rule == schema.RuleEmptyFile)
 }
 
-// commit makes the new version from the latest one, under the dataset's
-// commit lock so that the plan (which may rewrite files) and the
-// transaction see the same parent.
-func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, rep *quality.Report, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
-	unlock := s.lockDataset(ds.Ref().String())
-	defer unlock()
+// commit makes the new version from the latest one. The caller holds the
+// dataset's commit lock, so that the held-event comparison, the plan
+// (which may rewrite files) and the transaction see the same parent.
+func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, upass *uploadPass, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
 	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
 	if errors.Is(err, ErrNotFound) {
 		parent = nil
@@ -261,6 +368,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	defer plan.release()
+	if err := s.removeCorrected(ctx, ds, plan, keyID, opt.held, parent); err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
 	if parent != nil && sameFiles(parent.Manifest.Files, plan.files) {
 		return s.duplicate(ds, *up, parent)
 	}
@@ -269,16 +379,27 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	}
 	if entry != nil {
 		plan.summaries[entry.SHA256] = sacc
+	}
+	// One per-case pass over every file of the new version: its case
+	// table, its summary's case figures and its report's, and the upload's
+	// own per-case checks on the way.
+	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true, upass)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	defer vp.release()
+	rep := upass.acc.Report()
+	rep.UnmappedColumns = up.Unmapped
+	up.Report = rep
+	if entry != nil {
 		plan.reports[entry.SHA256] = rep
 	}
-	vrep, err := s.mergeQuality(ctx, parent, plan, rep, opt.Mode)
+	merged, err := s.mergeQuality(ctx, parent, plan, rep, mergeMode(opt.Mode, plan))
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
-	vsum, fileSums, err := s.mergeSummary(ctx, ds, parent, plan, plan.summaries, opt.Mode)
-	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
-	}
+	vrep := quality.WithCases(merged, vp.cases)
+	vsum, fileSums := vp.summary, vp.fileStates
 	received := up.ReceivedAt
 	var ver *Version
 	err = s.db.Update(func(tx *bolt.Tx) error {
@@ -290,7 +411,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref().String(), cur.Latest)
 		}
 		nextUpload(&cur, up)
-		up.Alerts = driftAlerts(tx, cur.Ref().String(), up)
+		up.Alerts = append(driftAlerts(tx, cur.Ref().String(), up), heldShareAlerts(tx, cur.Ref().String(), up)...)
 		if entry != nil {
 			for i := range plan.files {
 				if plan.files[i].SHA256 == entry.SHA256 && plan.files[i].Upload == "" {
@@ -302,11 +423,12 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			Dataset:       cur.Ref(),
 			Version:       cur.Latest + 1,
 			Parent:        cur.Latest,
-			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed},
+			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(up, plan.removed)},
 			SchemaVersion: schema.Version,
 			ProfileHash:   cur.ProfileHash,
 			KeyID:         keyID,
 			Files:         plan.files,
+			CaseTable:     vp.table,
 			CreatedBy:     opt.By,
 			CreatedAt:     received,
 		}
@@ -459,6 +581,10 @@ func mappedFields(p *schema.Profile) []schema.Field {
 	return out
 }
 
+// testHookPut, when set by a test, wraps the reader of the new file's
+// blob write: the crash tests stall it there and end the process.
+var testHookPut func(io.Reader) io.Reader
+
 // testHookBeforeCommit, when set by a test, runs after the new file is
 // durable in the blob store and before the version is committed: the
 // crash tests end the process there.
@@ -492,7 +618,7 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 			return err
 		}
 		nextUpload(&cur, up)
-		up.Alerts = driftAlerts(tx, cur.Ref().String(), up)
+		up.Alerts = append(driftAlerts(tx, cur.Ref().String(), up), heldShareAlerts(tx, cur.Ref().String(), up)...)
 		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref().String()), &cur); err != nil {
 			return err
 		}

@@ -22,10 +22,19 @@ import (
 //	        "versions" held each version with its whole manifest, whose
 //	        "quality" member embedded the report; "version_heads" repeated
 //	        the version without it.
+//	        Releases of this layout after it (up to the merge of case
+//	        tables and counted events) kept the same buckets, their
+//	        manifests gaining "case_table" and lineage "events", and a
+//	        "heads_format" meta key for "version_heads".
 //	2       "versions" holds the version records, "manifests" each
 //	        manifest's canonical bytes by snapshot id, "quality_reports"
-//	        each version's report by its sha256.
-const storeFormat = "2"
+//	        each version's report by its sha256
+//	        (testdata/golden/format-2).
+//	3       as 2, each version record holding its headline figures (mode,
+//	        files, rows, dimension scores, event counts) for the list of
+//	        versions; manifests may name a case table
+//	        (testdata/golden/format-3).
+const storeFormat = "3"
 
 var bucketOldHeads = []byte("version_heads")
 
@@ -39,9 +48,29 @@ func migrate(tx *bolt.Tx, log *slog.Logger) error {
 	case storeFormat:
 		return nil
 	case "":
+		if err := migrateFrom1(tx, log); err != nil {
+			return err
+		}
+		fallthrough
+	case "2":
+		if err := fillHeadlines(tx); err != nil {
+			return err
+		}
 	default:
 		return fmt.Errorf("catalog: stored format %q is newer than this program's (%s)", f, storeFormat)
 	}
+	if err := meta.Delete([]byte("heads_format")); err != nil {
+		return err
+	}
+	if n := tx.Bucket(bucketVersions).Stats().KeyN; n > 0 {
+		log.Info("catalog migrated", "format", storeFormat, "versions", n)
+	}
+	return meta.Put([]byte("format"), []byte(storeFormat))
+}
+
+// migrateFrom1 moves the manifests and reports of the first layout out of
+// the version records.
+func migrateFrom1(tx *bolt.Tx, log *slog.Logger) error {
 	vb := tx.Bucket(bucketVersions)
 	type oldVersion struct {
 		Number        int             `json:"version"`
@@ -114,8 +143,53 @@ func migrate(tx *bolt.Tx, log *slog.Logger) error {
 			return err
 		}
 	}
-	if len(moved) > 0 {
-		log.Info("catalog migrated", "format", storeFormat, "versions", len(moved))
+	return nil
+}
+
+// fillHeadlines gives every version record the headline figures of its
+// stored manifest and report (Version.setHeadline), reading them as
+// stored; nothing but the records is rewritten.
+func fillHeadlines(tx *bolt.Tx) error {
+	vb := tx.Bucket(bucketVersions)
+	var filled []*Version
+	err := vb.ForEach(func(k, data []byte) error {
+		v := &Version{}
+		if err := json.Unmarshal(data, v); err != nil {
+			return fmt.Errorf("catalog: migrate version %q: %w", k, err)
+		}
+		if err := withManifest(tx, v); err != nil {
+			return err
+		}
+		v.setHeadline(v.Manifest)
+		if !v.Quality.SHA256.IsZero() {
+			rb, err := getReport(tx, v.Quality.SHA256)
+			if err != nil {
+				return fmt.Errorf("catalog: migrate version %q: %w", k, err)
+			}
+			var r struct {
+				Dimensions []struct {
+					Name  string   `json:"name"`
+					Score *float64 `json:"score"`
+				} `json:"dimensions"`
+			}
+			if err := json.Unmarshal(rb, &r); err != nil {
+				return fmt.Errorf("catalog: migrate version %q: quality report: %w", k, err)
+			}
+			v.Scores = map[string]*float64{}
+			for _, d := range r.Dimensions {
+				v.Scores[d.Name] = d.Score
+			}
+		}
+		filled = append(filled, v)
+		return nil
+	})
+	if err != nil {
+		return err
 	}
-	return meta.Put([]byte("format"), []byte(storeFormat))
+	for _, v := range filled { // after the walk: bbolt forbids puts inside ForEach
+		if err := putVersion(tx, v); err != nil {
+			return err
+		}
+	}
+	return nil
 }

@@ -61,6 +61,11 @@ type Dataset struct {
 	CreatedBy   string     `json:"created_by"`
 	Latest      int        `json:"latest_version"` // 0 before the first accepted upload
 	Uploads     int        `json:"uploads"`        // uploads received, accepted or not
+
+	// Changes is what an upload does to a held event it re-sends with other
+	// content, under a stable event_id (see ChangePolicy); empty means
+	// ChangesRefuse.
+	Changes ChangePolicy `json:"changes,omitempty"`
 }
 
 // Ref returns the dataset's reference, "project/dataset".
@@ -97,6 +102,7 @@ type Upload struct {
 	Error      *UploadError    `json:"error,omitempty"`
 	Report     *quality.Report `json:"report,omitempty"`
 	Unmapped   []string        `json:"unmapped_columns,omitempty"`
+	Events     *EventCounts    `json:"events,omitempty"` // what became of its valid events: new, already held, copies, changed
 	Alerts     []quality.Alert `json:"alerts,omitempty"` // drift against the site's recent uploads
 	ReceivedAt time.Time       `json:"received_at"`
 	By         string          `json:"by"`
@@ -161,8 +167,13 @@ type Lineage struct {
 	From  *time.Time `json:"from,omitempty"`
 	To    *time.Time `json:"to,omitempty"`
 	Sites []string   `json:"sites,omitempty"`
-	// RowsRemoved counts the parent's rows the upload replaced.
+	// RowsRemoved counts the parent's rows the upload replaced (or, for a
+	// correction, the old events its changed ones replaced).
 	RowsRemoved int64 `json:"rows_removed"`
+	// Events counts the upload's valid events by what became of them; the
+	// version holds the parent's rows + New + Changed (when taken as
+	// corrections) - RowsRemoved.
+	Events *EventCounts `json:"events,omitempty"`
 }
 
 // Manifest describes a version completely: its files and how they came to
@@ -178,8 +189,11 @@ type Manifest struct {
 	ProfileHash   string      `json:"profile_hash"`
 	KeyID         string      `json:"pseudonym_key_id"`
 	Files         []FileEntry `json:"files"`
-	Rows          int64       `json:"rows"`
-	Uploads       []UploadID  `json:"uploads"`
+	// CaseTable is the version's case table, one row per case over all its
+	// files; absent in versions made before case tables were kept.
+	CaseTable *CaseTableEntry `json:"case_table,omitempty"`
+	Rows      int64           `json:"rows"`
+	Uploads   []UploadID      `json:"uploads"`
 	// Quality names the version's full quality report, stored beside the
 	// manifest. Manifests made before reports moved out of them hold the
 	// report itself in a "quality" member instead, and no reference.
@@ -226,6 +240,9 @@ func (m *Manifest) Blobs() []BlobEntry {
 	for _, f := range m.Files {
 		out = append(out, BlobEntry{Path: DataPath(f.SHA256), SHA256: f.SHA256, Bytes: f.Bytes, Rows: f.Rows})
 	}
+	if ct := m.CaseTable; ct != nil {
+		out = append(out, BlobEntry{Path: CasesPath(ct.SHA256), SHA256: ct.SHA256, Bytes: ct.Bytes, Rows: ct.Rows})
+	}
 	return out
 }
 
@@ -241,6 +258,10 @@ func (m *Manifest) Blob(id blob.ID) (BlobEntry, bool) {
 
 // DataPath is where a snapshot file goes in a pulled directory or bundle.
 func DataPath(id blob.ID) string { return "data/" + id.String() + ".parquet" }
+
+// CasesPath is where a version's case table goes in a pulled directory or
+// bundle: apart from data/, which holds only event files.
+func CasesPath(id blob.ID) string { return "cases/" + id.String() + ".parquet" }
 
 // State is where a version stands in curation. It is not part of the
 // manifest: publishing or retracting a version does not change its bytes

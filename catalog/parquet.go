@@ -18,6 +18,7 @@ import (
 	"github.com/parquet-go/parquet-go"
 	"github.com/parquet-go/parquet-go/compress"
 	parquetzstd "github.com/parquet-go/parquet-go/compress/zstd"
+	"github.com/parquet-go/parquet-go/format"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -26,13 +27,14 @@ import (
 // snapshotWriter writes one snapshot Parquet file to a temporary path while
 // hashing it, through an EventWriter with every column.
 type snapshotWriter struct {
-	f    *os.File
-	h    hash.Hash
-	n    int64
-	w    *EventWriter
-	rows int64
-	min  time.Time
-	max  time.Time
+	f     *os.File
+	h     hash.Hash
+	n     int64
+	w     *EventWriter
+	batch *batches[schema.Event] // written on another goroutine
+	rows  int64
+	min   time.Time
+	max   time.Time
 }
 
 // derivedFrom, when not empty, is written into the file's metadata: a file
@@ -48,6 +50,7 @@ func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom
 		kv = append(kv, KeyValue{"flowcat.derived_from", d})
 	}
 	sw.w = NewEventWriter(io.MultiWriter(f, sw.h, countWriter{&sw.n}), schema.Fields, EventWriterOptions{RowGroupRows: rowGroupRows, Metadata: kv})
+	sw.batch = newBatches(1024, sw.flushBatch)
 	return sw, nil
 }
 
@@ -58,12 +61,25 @@ func (sw *snapshotWriter) Write(e *schema.Event) error {
 	}
 	sw.max = e.OccurredAt
 	sw.rows++
-	return sw.w.Write(e)
+	return sw.batch.add(*e)
+}
+
+// flushBatch writes one batch of rows; it runs on the batches' goroutine.
+func (sw *snapshotWriter) flushBatch(batch []schema.Event) error {
+	for i := range batch {
+		if err := sw.w.Write(&batch[i]); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 // Finish completes the file and makes it durable; it returns the file's id
 // and size. The caller then hands the file to a blob.Store.
 func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
+	if err := sw.batch.close(); err != nil {
+		return blob.ID{}, 0, err
+	}
 	if err := sw.w.Close(); err != nil {
 		return blob.ID{}, 0, err
 	}
@@ -78,6 +94,7 @@ func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
 
 // Remove closes and deletes the temporary file.
 func (sw *snapshotWriter) Remove() {
+	sw.batch.close()
 	sw.f.Close()
 	os.Remove(sw.f.Name())
 }
@@ -348,11 +365,14 @@ func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error
 	if err != nil {
 		return fmt.Errorf("parquet: %w", err)
 	}
-	pr := parquet.NewGenericReader[schema.Event](f)
-	defer pr.Close()
+	er, err := NewEventReader(parquet.NewGenericReader[schema.Event](f))
+	if err != nil {
+		return err
+	}
+	defer er.Close()
 	buf := make([]schema.Event, 1024)
 	for {
-		n, err := pr.Read(buf)
+		n, err := er.Read(buf)
 		for i := range buf[:n] {
 			if ferr := fn(&buf[i]); ferr != nil {
 				return ferr
@@ -366,3 +386,134 @@ func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error
 		}
 	}
 }
+
+// RowReader decodes rows of T (snapshot events, case table rows) from
+// Parquet. Every reader of stored rows goes through it: parquet-go turns a
+// TIMESTAMP into a time.Time by way of int64 nanoseconds, which hold only
+// the instants of 1677-09-21 to 2262-04-11, while the instants flowcat
+// stores span the years 0001-9999 in microseconds; RowReader takes each
+// time.Time or *time.Time field of T (top level) that a TIMESTAMP column
+// feeds from the column's stored value instead.
+type RowReader[T any] struct {
+	r     *parquet.GenericReader[T]
+	times []timeColumn
+	rows  []parquet.Row
+}
+
+// EventReader reads the events of a snapshot file or row group.
+type EventReader = RowReader[schema.Event]
+
+// timeColumn maps one TIMESTAMP leaf column to a field of the row type.
+type timeColumn struct {
+	col   int
+	field int  // index of the struct field
+	ptr   bool // *time.Time
+	unit  time.Duration
+}
+
+// NewEventReader reads events through r (from parquet.NewGenericReader or
+// NewGenericRowGroupReader); it fails when r's schema has no occurred_at
+// column.
+func NewEventReader(r *parquet.GenericReader[schema.Event]) (*EventReader, error) {
+	if _, ok := r.Schema().Lookup(string(schema.FieldOccurredAt)); !ok {
+		r.Close()
+		return nil, fmt.Errorf("parquet: the file has no %s column", schema.FieldOccurredAt)
+	}
+	return NewRowReader(r), nil
+}
+
+// NewRowReader reads rows of T through r.
+func NewRowReader[T any](r *parquet.GenericReader[T]) *RowReader[T] {
+	rr := &RowReader[T]{r: r}
+	typ := reflect.TypeFor[T]()
+	timeType := reflect.TypeFor[time.Time]()
+	for i := range typ.NumField() {
+		f := typ.Field(i)
+		ptr := f.Type.Kind() == reflect.Pointer
+		if f.Type != timeType && !(ptr && f.Type.Elem() == timeType) {
+			continue
+		}
+		name, _, _ := strings.Cut(f.Tag.Get("parquet"), ",")
+		if name == "" {
+			name = f.Name
+		}
+		leaf, ok := r.Schema().Lookup(name)
+		if !ok {
+			continue
+		}
+		lt := leaf.Node.Type().LogicalType()
+		if lt == nil {
+			continue
+		}
+		ts, ok := lt.Value.(*format.TimestampType)
+		if !ok {
+			continue
+		}
+		unit := time.Nanosecond
+		switch ts.Unit.Value.(type) {
+		case *format.MicroSeconds:
+			unit = time.Microsecond
+		case *format.MilliSeconds:
+			unit = time.Millisecond
+		}
+		rr.times = append(rr.times, timeColumn{col: leaf.ColumnIndex, field: i, ptr: ptr, unit: unit})
+	}
+	return rr
+}
+
+// Read decodes up to len(buf) rows into buf. Like io.Reader it returns
+// the number read and io.EOF at the end; it may read fewer than len(buf)
+// before the end.
+func (rr *RowReader[T]) Read(buf []T) (int, error) {
+	if cap(rr.rows) < len(buf) {
+		rr.rows = make([]parquet.Row, len(buf))
+	}
+	rows := rr.rows[:len(buf)]
+	n, err := rr.r.ReadRows(rows)
+	sch := rr.r.Schema()
+	for i, row := range rows[:n] {
+		if rerr := sch.Reconstruct(&buf[i], row); rerr != nil {
+			return i, rerr
+		}
+		if len(rr.times) == 0 {
+			continue
+		}
+		rv := reflect.ValueOf(&buf[i]).Elem()
+		for _, tc := range rr.times {
+			for _, v := range row {
+				if v.Column() != tc.col {
+					continue
+				}
+				// Through typed pointers, so no value is boxed.
+				fp := rv.Field(tc.field).Addr().Interface()
+				switch {
+				case tc.ptr && v.IsNull():
+					*fp.(**time.Time) = nil
+				case tc.ptr:
+					t := storedInstant(v.Int64(), tc.unit)
+					*fp.(**time.Time) = &t
+				case v.IsNull():
+					*fp.(*time.Time) = time.Time{}
+				default:
+					*fp.(*time.Time) = storedInstant(v.Int64(), tc.unit)
+				}
+				break
+			}
+		}
+	}
+	return n, err
+}
+
+// storedInstant is the UTC instant of a TIMESTAMP value v in unit.
+func storedInstant(v int64, unit time.Duration) time.Time {
+	switch unit {
+	case time.Microsecond:
+		return time.UnixMicro(v).UTC()
+	case time.Millisecond:
+		return time.UnixMilli(v).UTC()
+	}
+	return time.Unix(0, v).UTC()
+}
+
+// Close releases the underlying reader.
+func (rr *RowReader[T]) Close() error { return rr.r.Close() }

@@ -162,15 +162,26 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 	defer sw.Remove()
 	sacc := summary.New(summaryOptions(ds))
 	qacc := quality.NewAccumulator(p.qopt)
+	cp := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
+	defer cp.Close()
 	err = ReadSnapshot(r, r.Size(), func(e *schema.Event) error {
 		if drop(e) {
 			return nil
 		}
 		qacc.ObserveFileOrder(e)
-		qacc.Observe(e)
+		fl := qacc.Observe(e)
 		sacc.Observe(e)
-		return sw.Write(e)
+		if err := sw.Write(e); err != nil {
+			return err
+		}
+		c := *e
+		cloneStrings(&c)
+		c.Line = quality.PackLine(c.Line, fl)
+		return cp.Add(&c)
 	})
+	if err == nil {
+		_, err = cp.Run(qacc)
+	}
 	if err != nil {
 		return nil, 0, fmt.Errorf("replace-window: file %s: %w", f.SHA256, err)
 	}

@@ -9,9 +9,11 @@ import (
 	"io"
 	"os"
 	"slices"
+	"strings"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // sorter orders the events of one upload by (occurred_at, source line)
@@ -27,15 +29,19 @@ import (
 // buffer of runBufSize is held per run merged (at most fanIn), whatever the
 // size of the upload.
 type sorter struct {
-	dir   string
-	max   int
-	fanIn int
-	buf   []schema.Event
-	keys  []sortKey
-	runs  []*os.File
-	enc   []byte
-	inter map[string]string
-	bytes int // string bytes held in buf
+	// byCase orders by case instead (cases.Less), for the per-case pass.
+	byCase  bool
+	dir     string
+	max     int
+	fanIn   int
+	buf     []schema.Event
+	spare   []schema.Event // the other buffer, while one is spilled
+	work    spillWork      // used by one spill at a time
+	pending chan error     // the spill in the background, if any
+	runs    []*os.File
+	enc     []byte
+	inter   map[string]string
+	bytes   int // string bytes held in buf
 }
 
 const (
@@ -54,6 +60,22 @@ func newSorter(dir string, max int) *sorter {
 	return &sorter{dir: dir, max: max, fanIn: maxFanIn, inter: make(map[string]string)}
 }
 
+// newCaseSorter returns a sorter that orders events by cases.Less: each
+// case's events together, in time order, so that per-case work holds one
+// case at a time.
+func newCaseSorter(dir string, max int) *sorter {
+	s := newSorter(dir, max)
+	s.byCase = true
+	return s
+}
+
+func (s *sorter) less(a, b *schema.Event) int {
+	if s.byCase {
+		return cases.Less(a, b)
+	}
+	return lessEvent(a, b)
+}
+
 // Add takes e. A full buffer is spilled only when one more event comes,
 // so an upload of at most max events never touches the disk.
 func (s *sorter) Add(e *schema.Event) error {
@@ -61,6 +83,16 @@ func (s *sorter) Add(e *schema.Event) error {
 		if err := s.spill(); err != nil {
 			return err
 		}
+	}
+	if s.buf == nil {
+		// The buffer reaches max events before it spills: allocate it
+		// once, not by doubling (a file of fewer events never gets here
+		// beyond its size, up to the first 4096).
+		s.buf = make([]schema.Event, 0, min(s.max, 4096))
+	} else if len(s.buf) == cap(s.buf) && cap(s.buf) < s.max {
+		nb := make([]schema.Event, len(s.buf), s.max)
+		copy(nb, s.buf)
+		s.buf = nb
 	}
 	s.buf = append(s.buf, *e)
 	s.bytes += eventBytes(e)
@@ -84,6 +116,15 @@ func lessEvent(a, b *schema.Event) int {
 		return 1
 	}
 	return 0
+}
+
+// caseKey is what a sorter by case sorts its buffer by.
+type caseKey struct {
+	id   string
+	sec  int64
+	nsec int32
+	rank int8
+	idx  int32
 }
 
 // sortKey is what the buffer is sorted by: sorting small keys rather than
@@ -117,15 +158,55 @@ func cmpInt(a, b int64) int {
 	return 0
 }
 
-// order returns the buffer's indexes in lessEvent order.
-func (s *sorter) order() []sortKey {
-	s.keys = s.keys[:0]
-	for i := range s.buf {
-		t := s.buf[i].OccurredAt
-		s.keys = append(s.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), line: s.buf[i].Line, idx: int32(i)})
+// spillWork is the scratch space of one sort of a buffer.
+type spillWork struct {
+	keys     []sortKey
+	caseKeys []caseKey
+	enc      []byte
+}
+
+// orderOf returns buf's indexes in the sorter's order.
+func (s *sorter) orderOf(buf []schema.Event, w *spillWork) []sortKey {
+	w.keys = w.keys[:0]
+	if s.byCase {
+		// Keys hold what cases.Less compares first, so most comparisons
+		// touch no event; full ties fall back to cases.Less.
+		ck := w.caseKeys[:0]
+		for i := range buf {
+			e := &buf[i]
+			ck = append(ck, caseKey{id: e.CaseID, sec: e.OccurredAt.Unix(), nsec: int32(e.OccurredAt.Nanosecond()), rank: int8(e.Type.Rank()), idx: int32(i)})
+		}
+		slices.SortFunc(ck, func(a, b caseKey) int {
+			if c := strings.Compare(a.id, b.id); c != 0 {
+				return c
+			}
+			if a.sec != b.sec {
+				return cmpInt(a.sec, b.sec)
+			}
+			if a.nsec != b.nsec {
+				return cmpInt(int64(a.nsec), int64(b.nsec))
+			}
+			if a.rank != b.rank {
+				return int(a.rank) - int(b.rank)
+			}
+			if c := cases.Less(&buf[a.idx], &buf[b.idx]); c != 0 {
+				return c
+			}
+			return cmpInt(int64(a.idx), int64(b.idx))
+		})
+		for _, k := range ck {
+			w.keys = append(w.keys, sortKey{idx: k.idx})
+		}
+		clear(ck) // drop string references
+		w.caseKeys = ck[:0]
+		return w.keys
 	}
-	slices.SortFunc(s.keys, cmpKey)
-	return s.keys
+	for i := range buf {
+		t := buf[i].OccurredAt
+		w.keys = append(w.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), line: buf[i].Line, idx: int32(i)})
+	}
+	slices.SortFunc(w.keys, cmpKey)
+	return w.keys
 }
 
 func (s *sorter) newRun() (*os.File, error) {
@@ -137,24 +218,53 @@ func (s *sorter) newRun() (*os.File, error) {
 	return f, nil
 }
 
+// spill hands the full buffer to a goroutine that sorts it and writes it
+// as a run, and goes on with the other buffer: reading and sorting overlap
+// on two cores. One spill runs at a time, so at most two buffers exist.
 func (s *sorter) spill() error {
+	if err := s.wait(); err != nil {
+		return err
+	}
 	f, err := s.newRun()
 	if err != nil {
 		return err
 	}
+	buf := s.buf
+	s.buf, s.spare = s.spare, nil
+	s.bytes = 0
+	done := make(chan error, 1)
+	s.pending = done
+	go func() {
+		err := s.writeRun(f, buf, &s.work)
+		clear(buf) // drop string references
+		s.spare = buf[:0]
+		done <- err
+	}()
+	return nil
+}
+
+// wait waits for the spill in the background, if any.
+func (s *sorter) wait() error {
+	if s.pending == nil {
+		return nil
+	}
+	err := <-s.pending
+	s.pending = nil
+	return err
+}
+
+// writeRun writes buf, sorted, to f.
+func (s *sorter) writeRun(f *os.File, buf []schema.Event, wk *spillWork) error {
 	w := bufio.NewWriterSize(f, runBufSize)
-	for _, k := range s.order() {
-		s.enc = encodeEvent(s.enc[:0], &s.buf[k.idx])
-		if _, err := w.Write(s.enc); err != nil {
+	for _, k := range s.orderOf(buf, wk) {
+		wk.enc = encodeEvent(wk.enc[:0], &buf[k.idx])
+		if _, err := w.Write(wk.enc); err != nil {
 			return fmt.Errorf("sort: %w", err)
 		}
 	}
 	if err := w.Flush(); err != nil {
 		return fmt.Errorf("sort: %w", err)
 	}
-	clear(s.buf) // drop string references
-	s.buf = s.buf[:0]
-	s.bytes = 0
 	return nil
 }
 
@@ -162,7 +272,7 @@ func (s *sorter) spill() error {
 // valid during the call.
 func (s *sorter) Finish(fn func(*schema.Event) error) error {
 	if len(s.runs) == 0 {
-		for _, k := range s.order() {
+		for _, k := range s.orderOf(s.buf, &s.work) {
 			if err := fn(&s.buf[k.idx]); err != nil {
 				return err
 			}
@@ -174,7 +284,10 @@ func (s *sorter) Finish(fn func(*schema.Event) error) error {
 			return err
 		}
 	}
-	s.buf, s.keys = nil, nil // the merge needs none of it
+	if err := s.wait(); err != nil {
+		return err
+	}
+	s.buf, s.spare, s.work = nil, nil, spillWork{} // the merge needs none of it
 	for len(s.runs) > s.fanIn {
 		if err := s.mergeOldest(); err != nil {
 			return err
@@ -220,7 +333,7 @@ func (s *sorter) merge(runs []*os.File, fn func(*schema.Event) error) error {
 		if _, err := f.Seek(0, io.SeekStart); err != nil {
 			return fmt.Errorf("sort: %w", err)
 		}
-		r := &run{r: bufio.NewReaderSize(f, runBufSize), inter: s.inter}
+		r := &run{r: bufio.NewReaderSize(f, runBufSize), inter: s.inter, less: s.less}
 		ok, err := r.next()
 		if err != nil {
 			return err
@@ -251,6 +364,10 @@ func (s *sorter) merge(runs []*os.File, fn func(*schema.Event) error) error {
 // Close deletes the runs.
 func (s *sorter) Close() error {
 	var errs []error
+	if s.pending != nil {
+		<-s.pending // its error is moot: the runs go
+		s.pending = nil
+	}
 	for _, f := range s.runs {
 		f.Close()
 		if err := os.Remove(f.Name()); err != nil && !errors.Is(err, os.ErrNotExist) {
@@ -258,21 +375,25 @@ func (s *sorter) Close() error {
 		}
 	}
 	s.runs = nil
-	s.buf = nil
+	s.buf, s.spare = nil, nil
 	return errors.Join(errs...)
 }
 
 type run struct {
-	r     *bufio.Reader
-	ev    schema.Event
-	inter map[string]string
-	tmp   []byte
+	// lastCase and lastSubj are the previous event's: in a run sorted by
+	// case the next event mostly names them again, and reuses the string.
+	lastCase, lastSubj string
+	less               func(a, b *schema.Event) int
+	r                  *bufio.Reader
+	ev                 schema.Event
+	inter              map[string]string
+	tmp                []byte
 }
 
 type runHeap []*run
 
 func (h runHeap) Len() int           { return len(h) }
-func (h runHeap) Less(i, j int) bool { return lessEvent(&h[i].ev, &h[j].ev) < 0 }
+func (h runHeap) Less(i, j int) bool { return h[i].less(&h[i].ev, &h[j].ev) < 0 }
 func (h runHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
 func (h *runHeap) Push(x any)        { *h = append(*h, x.(*run)) }
 func (h *runHeap) Pop() any {
@@ -340,13 +461,36 @@ func (r *run) next() (bool, error) {
 		}
 		return string(r.tmp)
 	}
+	// strLast reads a string that mostly repeats the previous event's (a
+	// case id in a run sorted by case): equal bytes reuse it, unallocated.
+	strLast := func(last *string) string {
+		if err != nil {
+			return ""
+		}
+		var n uint64
+		n, err = binary.ReadUvarint(r.r)
+		if err != nil || n == 0 {
+			return ""
+		}
+		if cap(r.tmp) < int(n) {
+			r.tmp = make([]byte, n)
+		}
+		r.tmp = r.tmp[:n]
+		if _, err = io.ReadFull(r.r, r.tmp); err != nil {
+			return ""
+		}
+		if string(r.tmp) != *last {
+			*last = string(r.tmp)
+		}
+		return *last
+	}
 	if _, perr := r.r.Peek(1); perr == io.EOF {
 		return false, nil
 	}
 	e := &r.ev
 	e.Site = str(true)
-	e.CaseID = str(false)
-	e.SubjectID = str(false)
+	e.CaseID = strLast(&r.lastCase)
+	e.SubjectID = strLast(&r.lastSubj)
 	e.ResourceID = str(true)
 	e.Type = schema.EventType(str(true))
 	e.Activity = str(true)

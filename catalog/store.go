@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"log/slog"
 	"os"
+	"path/filepath"
 	"sync"
 	"time"
 
@@ -37,15 +38,23 @@ var (
 // Options configure a Store. The zero value of each optional field is a
 // sensible default.
 type Options struct {
-	Master  anonymize.MasterKey // required: seals and opens project keys
-	TempDir string              // for sort runs and Parquet files being written; default os.TempDir()
-	Logger  *slog.Logger        // default slog.Default()
-	Now     func() time.Time    // default time.Now
+	Master anonymize.MasterKey // required: seals and opens project keys
+	// TempDir holds sort runs and Parquet files being written. When set,
+	// the folder is the store's own: Open empties it (what a crash left;
+	// only pseudonymized events). Default os.TempDir(), which Open leaves
+	// alone.
+	TempDir string
+	Logger  *slog.Logger     // default slog.Default()
+	Now     func() time.Time // default time.Now
 	// RunEvents bounds the events the ingest sorts in memory before it
 	// spills a sorted run to TempDir (default 65536).
 	RunEvents int
 	// RowGroupRows bounds the rows of a Parquet row group (default 65536).
 	RowGroupRows int64
+	// Limits bound what one uploaded file may hold: line length, columns,
+	// bytes after decompression and rows (see schema.Limits; zero fields
+	// take the defaults). Going over one fails the upload, naming it.
+	Limits schema.Limits
 }
 
 // Store is the catalog: metadata in bbolt, snapshot files in a blob.Store.
@@ -65,7 +74,8 @@ type Store struct {
 // anonymize.ErrKeyMismatch when the master key is not the one the catalog
 // was created with.
 func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
-	if opt.TempDir == "" {
+	ownTemp := opt.TempDir != ""
+	if !ownTemp {
 		opt.TempDir = os.TempDir()
 	}
 	if opt.Logger == nil {
@@ -113,7 +123,27 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		db.Close()
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
-	return &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{}}, nil
+	st := &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{}}
+	// Holding the bbolt lock, no other catalog writes here: clear what an
+	// earlier run left in the temp folder and the blob store's.
+	if ownTemp {
+		if ents, err := os.ReadDir(opt.TempDir); err == nil {
+			for _, e := range ents {
+				os.RemoveAll(filepath.Join(opt.TempDir, e.Name()))
+			}
+		}
+	}
+	if sw, ok := blobs.(blob.TempSweeper); ok {
+		n, b, err := sw.SweepTemp(context.Background(), 0, false)
+		if err != nil {
+			db.Close()
+			return nil, fmt.Errorf("catalog: %w", err)
+		}
+		if n > 0 {
+			opt.Logger.Info("removed temporary blob files left by an earlier run", "files", n, "bytes", b)
+		}
+	}
+	return st, nil
 }
 
 // Close closes the metadata file.
@@ -185,6 +215,9 @@ type DatasetSpec struct {
 	WindowFrom  *time.Time // optional declared window of the data
 	WindowTo    *time.Time
 	Drafts      bool // new versions start as drafts
+	// Changes is the dataset's policy for changed events under a stable
+	// event_id; empty means ChangesRefuse.
+	Changes ChangePolicy
 }
 
 // CreateDataset validates the spec (names, profile, zone, threshold) and
@@ -209,10 +242,14 @@ func (s *Store) CreateDataset(ctx context.Context, spec DatasetSpec, by string) 
 	if spec.WindowFrom != nil && spec.WindowTo != nil && !spec.WindowTo.After(*spec.WindowFrom) {
 		return nil, fmt.Errorf("window: from is not before to: %w", ErrInvalid)
 	}
+	changes, err := ParseChangePolicy(string(spec.Changes))
+	if err != nil {
+		return nil, err
+	}
 	d := &Dataset{
 		Project: spec.Project, Name: spec.Name, Title: spec.Title,
 		Profile: string(spec.Profile), ProfileHash: prof.Hash(), Timezone: prof.Location().String(),
-		RejectAbove: reject, Drafts: spec.Drafts, WindowFrom: utcPtr(spec.WindowFrom), WindowTo: utcPtr(spec.WindowTo),
+		RejectAbove: reject, Drafts: spec.Drafts, Changes: changes, WindowFrom: utcPtr(spec.WindowFrom), WindowTo: utcPtr(spec.WindowTo),
 		CreatedAt: s.opt.Now().UTC(), CreatedBy: by,
 	}
 	err = s.db.Update(func(tx *bolt.Tx) error {

@@ -23,7 +23,7 @@ func driftAlerts(tx *bolt.Tx, ref string, up *Upload) []quality.Alert {
 	if up.Report == nil {
 		return nil
 	}
-	cur := quality.TrendPoints(up.ID.String(), up.Seq, up.ReceivedAt, up.Report)
+	cur := withEvents(quality.TrendPoints(up.ID.String(), up.Seq, up.ReceivedAt, up.Report))
 	need := map[string]int{}
 	for _, p := range cur {
 		need[p.Site] = 14
@@ -44,7 +44,7 @@ func driftAlerts(tx *bolt.Tx, ref string, up *Upload) []quality.Alert {
 		if json.Unmarshal(v, &old) != nil || old.Seq >= up.Seq || old.Status != UploadAccepted || old.Report == nil {
 			continue
 		}
-		for _, p := range quality.TrendPoints(old.ID.String(), old.Seq, old.ReceivedAt, old.Report) {
+		for _, p := range withEvents(quality.TrendPoints(old.ID.String(), old.Seq, old.ReceivedAt, old.Report)) {
 			if need[p.Site] > 0 {
 				history = append(history, p)
 				if need[p.Site]--; need[p.Site] == 0 {
@@ -58,6 +58,13 @@ func driftAlerts(tx *bolt.Tx, ref string, up *Upload) []quality.Alert {
 		alerts = append(alerts, quality.Drift(history, p, quality.DriftOptions{})...)
 	}
 	return alerts
+}
+
+// withEvents drops the points of sites with no event in the report: a
+// site whose events of the upload were all held already (or all invalid)
+// has nothing to compare, and its shares would read 0.
+func withEvents(ps []quality.TrendPoint) []quality.TrendPoint {
+	return slices.DeleteFunc(ps, func(p quality.TrendPoint) bool { return p.Events == 0 })
 }
 
 // TrendPoint is one upload's quality at one site (or all sites, "*"),

@@ -1,6 +1,7 @@
 package catalog
 
 import (
+	"bytes"
 	"context"
 	"crypto/sha256"
 	"encoding/json"
@@ -40,6 +41,19 @@ type Version struct {
 	RetractedAt   *time.Time `json:"retracted_at,omitempty"`
 	RetractedBy   string     `json:"retracted_by,omitempty"`
 	RetractReason string     `json:"retract_reason,omitempty"`
+
+	// The version's headline figures, copied from its manifest and report
+	// at commit (and by migrate for older records), so that a list of
+	// versions decodes no manifest and no report: the lineage's mode, the
+	// event files, the rows, each quality dimension's score (null when a
+	// dimension had nothing to measure; the overall score is Quality.Score)
+	// and the lineage's event counts (absent for versions made before
+	// events were counted).
+	Mode   Mode                `json:"mode,omitempty"`
+	Files  int                 `json:"files"`
+	Rows   int64               `json:"rows"`
+	Scores map[string]*float64 `json:"scores,omitempty"`
+	Events *EventCounts        `json:"events,omitempty"`
 
 	// Manifest is the stored manifest, decoded; nil where only the version
 	// record was read (ResolveVersion, Heads). It is not stored with the
@@ -104,10 +118,60 @@ func commitManifest(tx *bolt.Tx, m *Manifest, rep *quality.Report) (*Version, er
 	if m.Quality != nil {
 		v.Quality = *m.Quality
 	}
+	v.setHeadline(m)
+	if rep != nil {
+		v.Scores = map[string]*float64{}
+		for _, d := range rep.Dimensions {
+			v.Scores[d.Name] = d.Score
+		}
+	}
 	if err := putOnce(tx.Bucket(bucketManifests), "manifest", v.SnapshotID.String(), b); err != nil {
 		return nil, err
 	}
 	return v, nil
+}
+
+// setHeadline copies m's headline figures into v (all but the dimension
+// scores, which come from the report).
+func (v *Version) setHeadline(m *Manifest) {
+	v.Mode, v.Files, v.Rows, v.Events = m.Lineage.Mode, len(m.Files), m.Rows, m.Lineage.Events
+}
+
+// MaxVersionsPage bounds the versions of one VersionsPage.
+const MaxVersionsPage = 1000
+
+// VersionsPage lists up to limit (at most MaxVersionsPage) records of a
+// dataset's versions numbered above after, in order, that a reader sees
+// (drafts: see Version.Visible), without their manifests. next is the
+// number to pass as after for the following page, 0 when there is none.
+// It reads no more records than the page needs.
+func (s *Store) VersionsPage(ctx context.Context, project, dataset string, after, limit int, drafts bool) (vs []Version, next int, err error) {
+	limit = min(max(limit, 1), MaxVersionsPage)
+	ref := project + "/" + dataset
+	prefix := []byte(ref + "/")
+	vs = []Version{}
+	err = s.db.View(func(tx *bolt.Tx) error {
+		if tx.Bucket(bucketDatasets).Get([]byte(ref)) == nil {
+			return fmt.Errorf("dataset %q: %w", ref, ErrNotFound)
+		}
+		cur := tx.Bucket(bucketVersions).Cursor()
+		for k, data := cur.Seek(seqKey(ref, max(after, 0)+1)); k != nil && bytes.HasPrefix(k, prefix); k, data = cur.Next() {
+			var v Version
+			if err := json.Unmarshal(data, &v); err != nil {
+				return fmt.Errorf("catalog: version %q: %w", k, err)
+			}
+			if !v.Visible(drafts) {
+				continue
+			}
+			if len(vs) == limit {
+				next = vs[len(vs)-1].Number
+				return nil
+			}
+			vs = append(vs, v)
+		}
+		return nil
+	})
+	return vs, next, err
 }
 
 // putOnce stores data under key unless the key holds it already; other

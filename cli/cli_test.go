@@ -177,13 +177,28 @@ func TestEndToEnd(t *testing.T) {
 	files := t.TempDir()
 	n1 := writeFile(t, files, "night1.csv", night(1, "RAWCASE"))
 	code, out, errs := run(t, as(partner), "upload", "flow/visits", n1)
-	if code != 0 || !strings.Contains(out, "flow/visits@1") {
+	if code != 0 || !strings.Contains(out, "flow/visits@1") || !strings.HasPrefix(out, "v1: ") || !strings.Contains(out, " new events, 0 already held, 0 changed") {
 		t.Fatalf("upload: exit %d, out %q, err %q", code, out, errs)
 	}
 	// A cron retry of the same file changes nothing.
 	code, out, _ = run(t, as(partner), "upload", "flow/visits", n1)
-	if code != 0 || !strings.Contains(out, "identical") || !strings.Contains(out, "version 1") {
+	if code != 0 || !strings.Contains(out, "v1 already holds this file") {
 		t.Errorf("retry: exit %d, %q", code, out)
+	}
+	// The same events in other bytes (a blank line more) are all held.
+	n1b := writeFile(t, files, "night1b.csv", night(1, "RAWCASE")+"\n")
+	code, out, _ = run(t, as(partner), "upload", "flow/visits", n1b)
+	if code != 0 || !strings.Contains(out, "v1 already holds every event: 0 new events,") || !strings.Contains(out, " already held, 0 changed; nothing stored") {
+		t.Errorf("re-send in other bytes: exit %d, %q", code, out)
+	}
+	if code, out, _ := run(t, as(curator), "uploads", "flow/visits"); code != 0 || !strings.Contains(out, "already held: ") {
+		t.Errorf("uploads: exit %d, %q", code, out)
+	}
+	if code, out, errs := run(t, as(curator), "dataset", "changes", "flow/visits", "correct"); code != 0 || !strings.Contains(out, "taken as corrections") {
+		t.Errorf("dataset changes: exit %d, %q %q", code, out, errs)
+	}
+	if code, _, errs := run(t, as(curator), "dataset", "changes", "flow/visits", "maybe"); code != 2 || !strings.Contains(errs, "want refuse or correct") {
+		t.Errorf("dataset changes maybe: exit %d, %q", code, errs)
 	}
 	// A gzip file is read transparently.
 	var gz bytes.Buffer
@@ -245,8 +260,8 @@ func TestEndToEnd(t *testing.T) {
 			t.Errorf("pin file names %s:\n%s", not, lockBytes)
 		}
 	}
-	if lock.Version != 2 || len(lock.Files) != 3 {
-		t.Fatalf("pin: version %d, %d files (two Parquet files and the quality report)", lock.Version, len(lock.Files))
+	if lock.Version != 2 || len(lock.Files) != 4 || !strings.HasPrefix(lock.Files[2].Path, "cases/") {
+		t.Fatalf("pin: version %d, %d files (two event files, the case table under cases/ and the quality report)", lock.Version, len(lock.Files))
 	}
 	if code, out, _ := run(t, nil, "verify", snap); code != 0 || !strings.HasPrefix(out, "ok") {
 		t.Errorf("verify: exit %d, %q", code, out)

@@ -131,15 +131,20 @@ and files younger than --grace are kept; every version, retracted ones too, keep
 // versionsTable prints versions with their state and lineage.
 func versionsTable(e *env, vs []catalog.Version) error {
 	tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "VERSION\tSTATE\tCREATED\tMODE\tFILES\tROWS\tSCORE\tSNAPSHOT")
+	fmt.Fprintln(tw, "VERSION\tSTATE\tCREATED\tMODE\tFILES\tROWS\tNEW\tHELD\tCHANGED\tSCORE\tSNAPSHOT")
 	for _, v := range vs {
-		sc := score(v.Quality.Score)
-		mode := string(v.Manifest.Lineage.Mode)
+		mode := string(v.Mode)
 		if mode == "" {
 			mode = "-"
 		}
-		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%d\t%d\t%s\t%s\n", v.Number, v.State, stamp(v.Manifest.CreatedAt), mode,
-			len(v.Manifest.Files), v.Manifest.Rows, sc, v.SnapshotID.String()[:16])
+		// The lineage's event counts: new, already held, changed (versions
+		// made before events were counted show "-").
+		nw, held, changed := "-", "-", "-"
+		if ev := v.Events; ev != nil {
+			nw, held, changed = fmt.Sprint(ev.New), fmt.Sprint(ev.Held), fmt.Sprint(ev.Changed)
+		}
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\n", v.Number, v.State, stamp(v.CreatedAt), mode,
+			v.Files, v.Rows, nw, held, changed, score(v.Quality.Score), v.SnapshotID.String()[:16])
 	}
 	return tw.Flush()
 }

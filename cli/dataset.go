@@ -13,7 +13,7 @@ import (
 
 func newDatasetCmd(e *env) *cobra.Command {
 	c := &cobra.Command{Use: "dataset", Short: "Create and list datasets"}
-	var profile, zone, title, from, to string
+	var profile, zone, title, from, to, changes string
 	var rejectAbove float64
 	var drafts bool
 	create := &cobra.Command{
@@ -25,7 +25,7 @@ func newDatasetCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
-			req := map[string]any{"name": r.Dataset, "title": title, "timezone": zone, "drafts": drafts}
+			req := map[string]any{"name": r.Dataset, "title": title, "timezone": zone, "drafts": drafts, "changes": changes}
 			if profile != "" {
 				b, err := os.ReadFile(profile)
 				if err != nil {
@@ -61,6 +61,9 @@ func newDatasetCmd(e *env) *cobra.Command {
 			if d.Drafts {
 				fmt.Fprint(e.stdout, "; new versions are drafts until published")
 			}
+			if d.Changes == catalog.ChangesCorrect {
+				fmt.Fprint(e.stdout, "; a changed event under a stable event_id is taken as a correction")
+			}
 			fmt.Fprintln(e.stdout, ")")
 			return nil
 		},
@@ -71,6 +74,7 @@ func newDatasetCmd(e *env) *cobra.Command {
 	f.StringVar(&title, "title", "", "human-readable title")
 	f.Float64Var(&rejectAbove, "reject-above", catalog.DefaultRejectAbove, "reject an upload whose share of invalid rows is above this (0-1)")
 	f.BoolVar(&drafts, "drafts", false, "new versions start as drafts, seen by curators only until published (flowcat publish)")
+	f.StringVar(&changes, "changes", "", "with a stable event_id: refuse (default) an upload that changes a held event, or correct (take it as a correction)")
 	f.StringVar(&from, "window-from", "", "declared start of the data (RFC 3339); earlier events are flagged")
 	f.StringVar(&to, "window-to", "", "declared end of the data (RFC 3339); later events are flagged")
 
@@ -98,6 +102,37 @@ func newDatasetCmd(e *env) *cobra.Command {
 			return tw.Flush()
 		},
 	}
-	c.AddCommand(create, list)
+	changesCmd := &cobra.Command{
+		Use:   "changes PROJECT/DATASET refuse|correct",
+		Short: "Set what an upload that changes a held event (stable event_id) does (curator)",
+		Long: `With a profile that declares event_id stable, an upload that re-sends a held event with
+other content is refused, naming its lines and fields (refuse, the default), or taken as a
+correction that replaces the old event in the new version (correct).`,
+		Args: cobra.ExactArgs(2),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			r, err := parseRef(args[0], false)
+			if err != nil {
+				return err
+			}
+			if _, err := catalog.ParseChangePolicy(args[1]); err != nil || args[1] == "" {
+				return usageErr("dataset changes: %q: want refuse or correct", args[1])
+			}
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			var d catalog.Dataset
+			if err := cl.postJSON(cmd.Context(), r.path()+"/changes", map[string]string{"changes": args[1]}, &d); err != nil {
+				return err
+			}
+			if e.json {
+				return writeJSON(e.stdout, d)
+			}
+			fmt.Fprintf(e.stdout, "%s: changed events are now %s\n", d.Ref(), map[catalog.ChangePolicy]string{
+				catalog.ChangesRefuse: "refused", catalog.ChangesCorrect: "taken as corrections"}[d.Changes])
+			return nil
+		},
+	}
+	c.AddCommand(create, list, changesCmd)
 	return c
 }

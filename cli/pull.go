@@ -60,8 +60,9 @@ func marshalPin(p *pinFile) []byte {
 	return append(b, '\n')
 }
 
-// decodePin reads a pin, or a lock file of releases up to 8a7be85 (which
-// also named a server and a time).
+// decodePin reads a pin, or a lock file of earlier releases (which also
+// named a server and a time, and, once versions had case tables, listed
+// the case table apart from the files).
 func decodePin(b []byte) (*pinFile, bool) {
 	var raw struct {
 		PinVersion  int          `json:"pin_version"`
@@ -71,10 +72,15 @@ func decodePin(b []byte) (*pinFile, bool) {
 		Version     int          `json:"version"`
 		SnapshotID  string       `json:"snapshot_id"`
 		Files       []pinnedFile `json:"files"`
+		// A lock file's case table, listed apart from its files.
+		CaseTable *pinnedFile `json:"case_table"`
 	}
 	if err := json.Unmarshal(b, &raw); err != nil || (raw.PinVersion != 1 && raw.LockVersion != 1) ||
 		raw.SnapshotID == "" || raw.Version < 1 || raw.Dataset == "" {
 		return nil, false
+	}
+	if raw.CaseTable != nil && raw.PinVersion != 1 {
+		raw.Files = append(raw.Files, *raw.CaseTable) // where Manifest.Blobs lists it
 	}
 	return &pinFile{PinVersion: 1, Dataset: raw.Dataset, Version: raw.Version, SnapshotID: raw.SnapshotID, Files: raw.Files,
 		server: raw.Server, legacy: raw.PinVersion != 1}, true
@@ -233,13 +239,15 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *pinF
 			return nil, err
 		}
 	}
-	if err := os.MkdirAll(filepath.Join(out, "data"), 0o755); err != nil {
-		return nil, err
-	}
 	keep := map[string]bool{}
 	for _, f := range m.Blobs() {
 		if !keep[f.Path] {
-			if err := e.fetchFile(cmd, cl, at.versionPath()+"/files/"+f.SHA256.String(), filepath.Join(out, filepath.FromSlash(f.Path)), f); err != nil {
+			// data/ for events, cases/ for the case table
+			dst := filepath.Join(out, filepath.FromSlash(f.Path))
+			if err := os.MkdirAll(filepath.Dir(dst), 0o755); err != nil {
+				return nil, err
+			}
+			if err := e.fetchFile(cmd, cl, at.versionPath()+"/files/"+f.SHA256.String(), dst, f); err != nil {
 				return nil, err
 			}
 		}
@@ -263,13 +271,18 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *pinF
 	}
 	// Only now, with every file of this version here and its pin written,
 	// remove files of another version pulled here before (only pull's own
-	// data/<sha256>.parquet files), which would otherwise be read with it.
-	if ents, err := os.ReadDir(filepath.Join(out, "data")); err == nil {
+	// data/<sha256>.parquet and cases/<sha256>.parquet files), which would
+	// otherwise be read with it.
+	for _, sub := range []string{"data", "cases"} {
+		ents, err := os.ReadDir(filepath.Join(out, sub))
+		if err != nil {
+			continue
+		}
 		for _, de := range ents {
 			name := strings.TrimSuffix(de.Name(), ".part")
 			sha, _, _ := strings.Cut(name, ".")
-			if _, err := blob.ParseID(sha); err == nil && !keep["data/"+name] || strings.HasSuffix(de.Name(), ".part") && keep["data/"+name] {
-				if err := os.Remove(filepath.Join(out, "data", de.Name())); err != nil {
+			if _, err := blob.ParseID(sha); err == nil && !keep[sub+"/"+name] || strings.HasSuffix(de.Name(), ".part") && keep[sub+"/"+name] {
+				if err := os.Remove(filepath.Join(out, sub, de.Name())); err != nil {
 					return nil, err
 				}
 			}

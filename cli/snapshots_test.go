@@ -94,7 +94,7 @@ func TestSnapshotWorkflow(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if err := json.Unmarshal(lb, &lock); err != nil || lock.Version != 1 || len(lock.Files) != 2 {
+	if err := json.Unmarshal(lb, &lock); err != nil || lock.Version != 1 || len(lock.Files) != 3 {
 		t.Fatalf("lock %s: %v", lb, err)
 	}
 	out = must(as(member), "pull", "flow/visits@"+lock.SnapshotID[:10], "-o", filepath.Join(dir, "p2"))
@@ -150,6 +150,7 @@ func TestSnapshotWorkflow(t *testing.T) {
 	p4d := filepath.Join(dir, "p4d")
 	must(map[string]string{"FLOWCAT_TOKEN": member, "FLOWCAT_SERVER": ""}, "pull", "--lock", oldLock, "-o", p4d)
 	os.MkdirAll(filepath.Join(dir, "p4e", "data"), 0o755)
+	os.MkdirAll(filepath.Join(dir, "p4e", "cases"), 0o755)
 	for _, f := range lock.Files {
 		if f.Path != "quality.json" {
 			b, _ := os.ReadFile(filepath.Join(p1, f.Path))

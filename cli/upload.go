@@ -69,8 +69,11 @@ func newUploadCmd(e *env) *cobra.Command {
 		Use:   "upload PROJECT/DATASET FILE",
 		Short: "Upload one export file (CSV, TSV or JSON Lines, maybe gzip) to a dataset",
 		Long: `Upload streams FILE to the server, which checks it through the dataset's profile,
-pseudonymizes it and, if it passes, makes a new version. Sending the same file again returns the
-version it made the first time. Exit 0: accepted (or a duplicate); 1: rejected, with the reason.
+pseudonymizes it and, if it passes, makes a new version. A version holds each event once: events
+the latest version already holds, and copies within the file, are not stored again, and the answer
+counts them ("v12: 41,003 new events, 287,110 already held, 0 changed"). A file of held events
+only (or the same file again) makes no version. Exit 0: accepted (or a duplicate); 1: rejected,
+with the reason.
 
 --mode says how the file's events combine with the latest version:
   append          add them (the default)
@@ -160,14 +163,14 @@ func (e *env) uploadFile(cmd *cobra.Command, cl *client, r ref, body io.Reader, 
 func printUpload(w io.Writer, r ref, a *uploadAnswer) {
 	u := a.Upload
 	if u.Status == catalog.UploadDuplicate {
-		if u.Version == 0 {
-			fmt.Fprintf(w, "%s: the upload changes nothing and the dataset has no version yet\n", r)
-			return
-		}
-		fmt.Fprintf(w, "%s: identical to what version %d holds already (nothing new stored)\n", r, u.Version)
+		fmt.Fprintf(w, "%s: %s\n", r, u.Sentence())
+		printAlerts(w, &u)
 		return
 	}
 	v := a.Version
+	if s := u.Sentence(); s != "" {
+		fmt.Fprintln(w, s)
+	}
 	if l := v.Manifest.Lineage; l.Mode != catalog.ModeAppend && l.Mode != "" {
 		fmt.Fprintf(w, "%s: %s removed %d rows of version %d\n", r, l.Mode, l.RowsRemoved, v.Manifest.Parent)
 	}
@@ -177,6 +180,10 @@ func printUpload(w io.Writer, r ref, a *uploadAnswer) {
 	if len(u.Unmapped) > 0 {
 		fmt.Fprintf(w, "dropped unmapped columns: %s\n", strings.Join(u.Unmapped, ", "))
 	}
+	printAlerts(w, &u)
+}
+
+func printAlerts(w io.Writer, u *catalog.Upload) {
 	for _, a := range u.Alerts {
 		fmt.Fprintf(w, "alert %s at %s: %s\n", a.Code, a.Site, a.Sentence)
 	}

@@ -65,7 +65,7 @@ prints the quality report. Nothing is stored or sent. Exit 0: the server would a
 			rep := res.Report
 			ok := rep.Rows.Accepted > 0 && rep.RejectedShare() <= rejectAbove
 			if e.json {
-				writeJSON(e.stdout, map[string]any{"accepted": ok, "file": name, "report": rep, "unmapped_columns": res.Unmapped})
+				writeJSON(e.stdout, map[string]any{"accepted": ok, "file": name, "report": rep, "unmapped_columns": res.Unmapped, "events": res.Events})
 			} else {
 				rep.Text(e.stdout, e.tty())
 				verdict := "would be accepted"
@@ -74,6 +74,9 @@ prints the quality report. Nothing is stored or sent. Exit 0: the server would a
 					if rep.Rows.Accepted == 0 {
 						verdict = "would be REJECTED: no valid rows"
 					}
+				}
+				if ev := res.Events; ev != nil && ev.Copies > 0 {
+					fmt.Fprintf(e.stdout, "\n%d rows are exact copies of an earlier row of the file: they would be stored once\n", ev.Copies)
 				}
 				fmt.Fprintf(e.stdout, "\n%s: %s\n", name, verdict)
 			}

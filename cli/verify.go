@@ -105,11 +105,16 @@ func verifyDir(dir string, pin *pinFile, pinFile string) []verifyProblem {
 			add(pinFile, "does not list %s, which the manifest names", path)
 		}
 	}
-	// Anything else in data/ would be read as part of the snapshot.
-	if ents, err := os.ReadDir(filepath.Join(dir, "data")); err == nil {
+	// Anything else in data/ or cases/ would be read as part of the
+	// snapshot or its case table.
+	for _, sub := range []string{"data", "cases"} {
+		ents, err := os.ReadDir(filepath.Join(dir, sub))
+		if err != nil {
+			continue
+		}
 		for _, de := range ents {
-			if _, ok := want["data/"+de.Name()]; !ok || !strings.HasSuffix(de.Name(), ".parquet") {
-				add("data/"+de.Name(), "is not part of the version")
+			if _, ok := want[sub+"/"+de.Name()]; !ok || !strings.HasSuffix(de.Name(), ".parquet") {
+				add(sub+"/"+de.Name(), "is not part of the version")
 			}
 		}
 	}

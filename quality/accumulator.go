@@ -11,7 +11,6 @@ import (
 
 // Defaults applied by [NewAccumulator] to zero [Options] fields.
 const (
-	DefaultCaseHorizon      = 30 * 24 * time.Hour
 	DefaultMaxSamples       = 5
 	DefaultMaxCase          = 30 * 24 * time.Hour
 	DefaultMaxService       = 24 * time.Hour
@@ -22,8 +21,8 @@ const (
 	DefaultGapMinMean       = 5.0
 	DefaultGapMinWeeks      = 3
 	DefaultStaleAfter       = 7 * 24 * time.Hour
-	// DefaultMaxHours is how many hours from a site's first event the
-	// hourly series for the gap check covers (two years).
+	// DefaultMaxHours is how many hours the hourly series of one site
+	// for the gap check holds, over all its runs (two years).
 	DefaultMaxHours = 2 * 366 * 24
 )
 
@@ -39,9 +38,9 @@ const OtherSite = "(other)"
 const maxKeys = 1 << 16
 
 // defaultPruneEvery is the least number of events between two sweeps of
-// idle records; a sweep also waits for as many events as the last sweep
-// kept records, so its cost per event stays constant and at most twice
-// the records active within the horizon are held.
+// expired records (event ids beyond their window, open services beyond
+// the longest service); a sweep also waits for as many events as the last
+// sweep kept records, so its cost per event stays constant.
 const defaultPruneEvery = 1 << 16
 
 // Options tune an [Accumulator]. The zero value checks nothing against
@@ -62,10 +61,6 @@ type Options struct {
 	// the heaping and the hour-of-week of the gap check are judged; nil
 	// means UTC.
 	Zone *time.Location
-	// CaseHorizon bounds memory: the state of a case idle for longer than
-	// this (in event time) is dropped, so a later event of that case is
-	// checked as if the case were new. Default [DefaultCaseHorizon].
-	CaseHorizon time.Duration
 	// MaxCase is the longest plausible case, first to latest event.
 	// Default [DefaultMaxCase].
 	MaxCase time.Duration
@@ -94,7 +89,8 @@ type Options struct {
 	// StaleAfter: a site whose newest event is older than this before
 	// UploadedAt is stale. Default [DefaultStaleAfter].
 	StaleAfter time.Duration
-	// MaxHours is how many hours the gap series of one site spans.
+	// MaxHours is how many hours the gap series of one site holds over
+	// all its runs.
 	// Default [DefaultMaxHours].
 	MaxHours int
 	// MaxSamples is how many sample locations each finding keeps.
@@ -103,9 +99,6 @@ type Options struct {
 }
 
 func (o *Options) defaults() {
-	if o.CaseHorizon <= 0 {
-		o.CaseHorizon = DefaultCaseHorizon
-	}
 	if o.MaxCase <= 0 {
 		o.MaxCase = DefaultMaxCase
 	}
@@ -147,9 +140,15 @@ func (o *Options) defaults() {
 // Protocol: [Accumulator.Reject] for each rejected row and
 // [Accumulator.ObserveFileOrder] for each accepted event, both in file
 // order; then [Accumulator.Observe] for each accepted event in
-// non-decreasing OccurredAt order; then [Accumulator.Report]. An event
-// given to Observe earlier than its predecessor is counted as the
-// internal "order_breach" finding and skips the checks that need order.
+// non-decreasing OccurredAt order (the time pass), which returns the
+// event's [Flags]; then the per-case pass: the same events grouped by case
+// and in time order within each case, through a [cases.Builder] with the
+// accumulator as an observer ([Accumulator.Event] takes each event with
+// its flags packed into Line by [PackLine]); then [Accumulator.Report].
+// [Accumulator.ObserveSorted] does both passes for events held in memory.
+// An event given to Observe earlier than its predecessor is counted as
+// the internal "order_breach" finding and skips the checks that need
+// order.
 //
 // Instants are compared at microsecond precision, the precision of the
 // snapshots.
@@ -159,7 +158,6 @@ type Accumulator struct {
 	fromAt, toAt   int64
 	hasUpload      bool
 	hasFrom, hasTo bool
-	horizon        uint64 // microseconds
 	maxCase        uint64
 	maxService     int64
 	maxServiceAct  map[string]int64
@@ -188,11 +186,19 @@ type Accumulator struct {
 	curAt                 int64
 	inst                  instantSet
 	base                  int64 // the first instant
-	cases                 table[caseState]
 	ids                   table[struct{}]
-	sincePrune            int
-	keptCases             int
 	sinceIDPrune, keptIDs int
+	svc                   map[uint64]openService // open services at a resource, by case
+	sinceSvcPrune         int
+
+	// per-case pass state: the case in hand
+	cur caseState
+}
+
+// openService is a service interval open at a resource.
+type openService struct {
+	res int32
+	at  int64 // µs
 }
 
 // rejFinding is a rejection count with its first samples.
@@ -316,13 +322,15 @@ type siteAcc struct {
 	grid         [numGrids]int64
 	// stage coverage of the case records still held is added at report time
 	stages stageCounts
+	cases  CaseRaw
 	// census and Little's law
 	hasAt     bool
 	firstAt   int64 // µs, absolute
 	lastAt    int64
-	census    int64
 	censusMin int64
-	area      float64 // case·µs
+	area      float64 // case·µs of closed stays
+	openN     int64   // cases still in the system at their last event
+	openEntry float64 // sum of their entry instants (µs)
 	arrivals  int64
 	completed int64
 	sojourn   float64 // µs
@@ -330,10 +338,8 @@ type siteAcc struct {
 	lag    [lagBuckets]int64
 	lagMax int64 // seconds
 	lagN   int64
-	// hourly series
-	hourStart int64 // unix hour of hours[0]
-	hours     []uint32
-	hoursOut  int64 // events beyond the series
+	// hourly series, in runs
+	hours hourAcc
 	// file order
 	fileSeen  bool
 	fileLast  int64
@@ -359,7 +365,7 @@ type resAcc struct {
 
 type openInterval struct {
 	caseKey uint64
-	at      int64 // rel µs
+	at      int64 // µs
 }
 
 // NewAccumulator returns an empty accumulator for one upload.
@@ -367,7 +373,6 @@ func NewAccumulator(opt Options) *Accumulator {
 	opt.defaults()
 	a := &Accumulator{
 		opt:        opt,
-		horizon:    uint64(opt.CaseHorizon.Microseconds()),
 		maxCase:    uint64(opt.MaxCase.Microseconds()),
 		maxService: DefaultMaxService.Microseconds(),
 		idWindow:   uint64(opt.EventIDWindow.Microseconds()),
@@ -378,8 +383,8 @@ func NewAccumulator(opt Options) *Accumulator {
 		siteIndex:  make(map[string]int),
 		waitIndex:  make(map[waitKey]int32),
 		resIndex:   make(map[string]int32),
-		cases:      newTable[caseState](),
 		ids:        newTable[struct{}](),
+		svc:        map[uint64]openService{},
 	}
 	for act, d := range opt.MaxService {
 		if act == "" {
@@ -406,9 +411,30 @@ func NewAccumulator(opt Options) *Accumulator {
 // flag counts one finding of code c at site s, keeping a sample of e.
 func (a *Accumulator) flag(s *siteAcc, c int, e *schema.Event) {
 	s.n[c]++
-	if len(a.samples[c]) < a.opt.MaxSamples {
-		a.samples[c] = append(a.samples[c], Sample{Line: e.Line, CaseID: strings.Clone(e.CaseID)})
+	a.samples[c] = keepFirstLines(a.samples[c], a.opt.MaxSamples, e)
+}
+
+// keepFirstLines keeps, of the samples of one finding, those of the
+// lowest source lines (ties: lowest case pseudonym), so that samples do
+// not depend on the order the passes see events in (time order, or case
+// order by pseudonym) and point a partner at the top of the file first.
+func keepFirstLines(smp []Sample, max int, e *schema.Event) []Sample {
+	less := func(x *Sample) bool {
+		return e.Line < x.Line || e.Line == x.Line && e.CaseID < x.CaseID
 	}
+	i := len(smp)
+	for i > 0 && less(&smp[i-1]) {
+		i--
+	}
+	if i >= max {
+		return smp
+	}
+	if len(smp) < max {
+		smp = append(smp, Sample{})
+	}
+	copy(smp[i+1:], smp[i:len(smp)-1])
+	smp[i] = Sample{Line: e.Line, CaseID: strings.Clone(e.CaseID)}
+	return smp
 }
 
 // site returns the counters of site name.
@@ -470,11 +496,12 @@ func (a *Accumulator) ObserveFileOrder(e *schema.Event) {
 	s.fileSeen, s.fileLast = true, at
 }
 
-// Observe counts one accepted event. See the order precondition on
-// [Accumulator]. e may be reused once Observe returns.
-func (a *Accumulator) Observe(e *schema.Event) {
+// Observe counts one accepted event in the time pass and returns what it
+// found, for the per-case pass (see the protocol on [Accumulator]). e may
+// be reused once Observe returns.
+func (a *Accumulator) Observe(e *schema.Event) Flags {
 	if e == nil {
-		return
+		return 0
 	}
 	s := a.site(e.Site)
 	s.events++
@@ -482,11 +509,11 @@ func (a *Accumulator) Observe(e *schema.Event) {
 	a.countFields(s, ti, e)
 	at := e.OccurredAt.UnixMicro()
 
-	accProblem := false
+	var fl Flags
 	if a.hasUpload {
 		if at > a.uploadAt {
 			a.flag(s, cLaterThanUpload, e)
-			accProblem = true
+			fl |= FlagAccuracy
 		} else {
 			lagS := (a.uploadAt - at) / 1e6
 			s.lag[lagBucket(lagS)]++
@@ -498,16 +525,13 @@ func (a *Accumulator) Observe(e *schema.Event) {
 	}
 	if (a.hasFrom && at < a.fromAt) || (a.hasTo && at >= a.toAt) {
 		a.flag(s, cOutsideWindow, e)
-		accProblem = true
+		fl |= FlagAccuracy
 	}
 	a.countGrid(s, e, at)
 
 	if a.seen && at < a.curAt {
 		a.flag(s, cOrderBreach, e)
-		if accProblem {
-			s.accRows++
-		}
-		return
+		return fl
 	}
 	if !a.seen {
 		a.base = at
@@ -520,39 +544,108 @@ func (a *Accumulator) Observe(e *schema.Event) {
 	a.census(s, at)
 
 	exact := a.inst.add(e, a.seed)
-	uniProblem := false
 	if exact {
 		a.flag(s, cExactDuplicate, e)
-		uniProblem = true
+		fl |= FlagUniqueness | FlagCopy
 	}
 	rel := uint64(at - a.base)
 	if e.EventID != "" && !exact && a.duplicateID(e, rel) {
 		a.flag(s, cDuplicateEventID, e)
-		uniProblem = true
+		fl |= FlagUniqueness
 	}
-	var acc, con, uni bool
-	if !exact {
-		// A copy changes no per-case state: it is counted once, here.
-		acc, con, uni = a.observeCase(s, ti, e, rel)
-	}
-	if acc || accProblem {
-		s.accRows++
-	}
-	if con {
-		s.conRows++
-	}
-	if uni || uniProblem {
-		s.uniRows++
-	}
-	a.sincePrune++
-	if a.sincePrune >= a.pruneEvery && a.sincePrune >= a.keptCases {
-		a.prune(rel)
+	if !exact && a.resourceCheck(s, ti, e, at) {
+		fl |= FlagConsistency
 	}
 	a.sinceIDPrune++
 	if a.sinceIDPrune >= a.pruneEvery && a.sinceIDPrune >= a.keptIDs {
 		a.sinceIDPrune = 0
 		a.ids.sweep(func(sl *slot[struct{}]) bool { return rel-sl.rec > a.idWindow })
 		a.keptIDs = a.ids.n
+	}
+	return fl
+}
+
+// resourceCheck follows the service intervals open at each resource, in
+// time order across cases, and reports whether e's start finds its
+// resource already serving as many cases as its capacity. A start opens
+// an interval for its case (closing the case's previous one); the case's
+// next complete or departure closes it. Intervals open for longer than
+// the default service maximum are taken as lost completes and dropped,
+// so what is held is bounded by the services in progress.
+func (a *Accumulator) resourceCheck(s *siteAcc, ti int, e *schema.Event, at int64) bool {
+	switch ti {
+	case tStart, tComplete, tDeparture:
+	default:
+		return false
+	}
+	k := nonZero(maphash.String(a.seed, e.CaseID))
+	if o, ok := a.svc[k]; ok {
+		a.closeInterval(o.res, k)
+		delete(a.svc, k)
+	}
+	over := false
+	if ti == tStart && e.ResourceID != "" {
+		if r := a.resource(e.ResourceID); r >= 0 {
+			if a.openInterval(r, k, at) {
+				a.flag(s, cResourceOverlap, e)
+				over = true
+			}
+			a.svc[k] = openService{res: r, at: at}
+		}
+	}
+	a.sinceSvcPrune++
+	if a.sinceSvcPrune >= a.pruneEvery && a.sinceSvcPrune >= len(a.svc) {
+		a.sinceSvcPrune = 0
+		for k, o := range a.svc {
+			if at-o.at > a.maxService {
+				a.closeInterval(o.res, k)
+				delete(a.svc, k)
+			}
+		}
+	}
+	return over
+}
+
+// resource returns the index of resource id, or -1 beyond the cap.
+func (a *Accumulator) resource(id string) int32 {
+	i, ok := a.resIndex[id]
+	if !ok {
+		if len(a.resources) >= maxKeys {
+			return -1
+		}
+		i = int32(len(a.resources))
+		a.resources = append(a.resources, resAcc{})
+		a.resIndex[strings.Clone(id)] = i
+	}
+	return i
+}
+
+// openInterval opens a service interval of case k at resource r and
+// reports whether the resource is then serving more cases than its
+// capacity. Intervals open for longer than the default service maximum
+// are taken as lost completes and no longer count.
+func (a *Accumulator) openInterval(r int32, k uint64, at int64) bool {
+	res := &a.resources[r]
+	kept := res.open[:0]
+	for _, iv := range res.open {
+		if at-iv.at <= a.maxService {
+			kept = append(kept, iv)
+		}
+	}
+	over := len(kept) >= a.opt.ResourceCapacity
+	res.open = append(kept, openInterval{caseKey: k, at: at})
+	return over
+}
+
+// closeInterval ends the open service interval of case k at resource r,
+// if the resource still holds it.
+func (a *Accumulator) closeInterval(r int32, k uint64) {
+	res := &a.resources[r]
+	for i, iv := range res.open {
+		if iv.caseKey == k {
+			res.open = append(res.open[:i], res.open[i+1:]...)
+			break
+		}
 	}
 }
 
@@ -632,20 +725,7 @@ func lagBounds(b int) (lo, hi int64) {
 
 // countHour adds the event to its site's hourly series.
 func (a *Accumulator) countHour(s *siteAcc, at int64) {
-	h := floorDiv(at, 3600e6)
-	if s.hours == nil {
-		s.hourStart = h
-		s.hours = make([]uint32, 1, 64)
-	}
-	i := h - s.hourStart
-	if i < 0 || i >= int64(a.opt.MaxHours) {
-		s.hoursOut++
-		return
-	}
-	for int64(len(s.hours)) <= i {
-		s.hours = append(s.hours, 0)
-	}
-	s.hours[i]++
+	s.hours.add(floorDiv(at, 3600e6), a.opt.MaxHours)
 }
 
 func floorDiv(a, b int64) int64 {
@@ -656,16 +736,15 @@ func floorDiv(a, b int64) int64 {
 	return q
 }
 
-// census advances the site's census area to at.
+// census widens the site's observed span to at; the census area itself
+// is summed per case in the per-case pass.
 func (a *Accumulator) census(s *siteAcc, at int64) {
 	if !s.hasAt {
 		s.hasAt, s.firstAt, s.lastAt = true, at, at
 		return
 	}
-	if at > s.lastAt {
-		s.area += float64(s.census) * float64(at-s.lastAt)
-		s.lastAt = at
-	}
+	s.firstAt = min(s.firstAt, at)
+	s.lastAt = max(s.lastAt, at)
 }
 
 // duplicateID reports whether e's event_id was seen within the window.
@@ -681,17 +760,4 @@ func (a *Accumulator) duplicateID(e *schema.Event, rel uint64) bool {
 	}
 	sl.rec = rel
 	return false
-}
-
-// prune drops the records idle for longer than their horizon.
-func (a *Accumulator) prune(now uint64) {
-	a.sincePrune = 0
-	a.cases.sweep(func(sl *slot[caseState]) bool {
-		if now-sl.rec > a.horizon {
-			a.closeCase(sl)
-			return true
-		}
-		return false
-	})
-	a.keptCases = a.cases.n
 }

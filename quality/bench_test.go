@@ -54,9 +54,7 @@ func BenchmarkObserve(b *testing.B) {
 		for i := range fileOrder {
 			a.ObserveFileOrder(&fileOrder[i])
 		}
-		for i := range sorted {
-			a.Observe(&sorted[i])
-		}
+		a.ObserveSorted(sorted)
 		_ = a.Report()
 	}
 	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N*len(sorted)), "ns/event")

@@ -1,27 +1,56 @@
 package quality
 
 import (
-	"hash/maphash"
+	"slices"
 	"strings"
 
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
-// caseState is what the per-case checks keep of one open case, some 40
-// bytes; the table keys cases by a 64-bit seeded hash of the case
-// pseudonym rather than the string itself, so it neither pins the
-// caller's strings nor allocates per case. Two open cases sharing a hash
-// (odds about n²/2⁶⁵ for n open cases) would merely share one record.
-// Instants are microseconds after the stream's first instant.
+// Flags are what the time-ordered pass ([Accumulator.Observe]) found about
+// one event, handed on to the per-case pass so that a row is counted once
+// per dimension whichever pass found its problem.
+type Flags uint8
+
+// Flags of one event.
+const (
+	FlagAccuracy Flags = 1 << iota
+	FlagConsistency
+	FlagUniqueness
+	// FlagCopy marks an exact copy of an event at the same instant: it
+	// changes no per-case state and is checked no further.
+	FlagCopy
+)
+
+// lineBits is how many low bits of a packed line hold the line.
+const lineBits = 56
+
+// PackLine returns a source line with f in its top byte, the form in which
+// the per-case pass takes an event's Line (see [Accumulator.Event]).
+// Lines are below 2^56.
+func PackLine(line int64, f Flags) int64 {
+	return int64(uint64(line)&(1<<lineBits-1) | uint64(f)<<lineBits)
+}
+
+// UnpackLine is the inverse of [PackLine].
+func UnpackLine(l int64) (int64, Flags) {
+	return int64(uint64(l) & (1<<lineBits - 1)), Flags(uint64(l) >> lineBits)
+}
+
+// caseState is what the per-case checks keep of the case in hand: the
+// per-case pass sees one case at a time, so there is one.
 type caseState struct {
-	first   uint64 // first event
-	arr     uint64 // the arrival that opened the current stay
-	start   uint64 // the open start
+	id      string
+	first   int64 // first event, µs
+	rec     int64 // latest instant
+	arr     int64 // the arrival that opened the current stay
+	entry   int64 // when the case entered the census of its site
+	start   int64 // the open start
 	flags   uint32
-	site    uint16 // site index of the latest event
-	typesAt uint8  // event types seen at the latest instant
-	wait    int32  // (queue, activity) index+1 of the pending enqueue
-	res     int32  // resource index+1 of the open start
+	site    int   // site index of the latest event
+	typesAt uint8 // event types seen at the latest instant
+	wait    int32 // (queue, activity) index+1 of the pending enqueue
 }
 
 const (
@@ -42,11 +71,10 @@ const (
 	csInSystem                           // counted in the census
 	csImplicit                           // ... by its first event, not an arrival
 	csStay                               // arr holds the arrival of the current stay
-	csLong                               // case_too_long already counted
-	csOpenStart                          // start holds a start not yet completed
 	csWaitPending                        // an enqueue waits for its start
 	csWaitAnchor                         // an arrival since the last start
 	csPrevTransfer                       // the latest event was a transfer
+	csOpenStart                          // start holds a start not yet completed
 	csNowFlags        = csPendStartNow | csPendCompleteNow | csPendDepNow | csDepartedNow
 )
 
@@ -63,38 +91,126 @@ var conflicts = [numTypes]uint8{
 	tAbandon:   1 << tEnqueue,
 }
 
-// observeCase runs the per-case checks for e (type index ti) at rel and
+// Event is the per-case pass: it takes the accepted events grouped by case
+// and in time order within each case (as catalog's case sort gives them),
+// with Line packed by [PackLine] with the event's [Flags] from
+// [Accumulator.Observe]. It runs the per-case checks, counts each row once
+// per dimension, and keeps the census of each site as the sum of the
+// cases' times in system. It makes Accumulator a [cases.Observer].
+func (a *Accumulator) Event(e *schema.Event) {
+	line, fl := UnpackLine(e.Line)
+	ev := *e
+	ev.Line = line
+	if a.cur.id != "" && ev.CaseID != a.cur.id {
+		a.endCase()
+	}
+	s := a.site(ev.Site)
+	at := ev.OccurredAt.UnixMicro()
+	a.census(s, at) // the span, when the time pass did not run
+	var acc, con, uni bool
+	if fl&FlagCopy == 0 {
+		acc, con, uni = a.observeCase(s, typeIndex(ev.Type), &ev, at)
+	}
+	if acc || fl&FlagAccuracy != 0 {
+		s.accRows++
+	}
+	if con || fl&FlagConsistency != 0 {
+		s.conRows++
+	}
+	if uni || fl&FlagUniqueness != 0 {
+		s.uniRows++
+	}
+}
+
+// Wait is part of [cases.Observer]; the quality model measures wait
+// coverage itself, by (queue, activity).
+func (a *Accumulator) Wait(*cases.Wait) {}
+
+// Service is part of [cases.Observer].
+func (a *Accumulator) Service(*cases.Service) {}
+
+// Case takes the finished record of a case: its stage coverage and the
+// case_too_long check are judged per case, at the site of its first event.
+func (a *Accumulator) Case(r *cases.Record) {
+	if a.cur.id == r.CaseID {
+		a.endCase()
+	}
+	s := a.site(r.Site)
+	c := &s.stages
+	c.cases++
+	if r.Has(schema.Arrival) {
+		c.arrival++
+	}
+	if r.Has(schema.Start) {
+		c.start++
+	}
+	if r.Has(schema.Complete) {
+		c.complete++
+	}
+	if r.Has(schema.Departure) {
+		c.departure++
+	}
+	d := float64(r.Duration()) / 1e6
+	s.cases.merge(&CaseRaw{N: 1, DurationSeconds: d, MinSeconds: d, MaxSeconds: d, Events: r.Events, MinEvents: r.Events, MaxEvents: r.Events})
+	if uint64(r.Duration()) > a.maxCase {
+		s.n[cCaseTooLong]++
+		if len(a.samples[cCaseTooLong]) < a.opt.MaxSamples {
+			a.samples[cCaseTooLong] = append(a.samples[cCaseTooLong], Sample{CaseID: strings.Clone(r.CaseID), Site: s.name})
+		}
+	}
+}
+
+// endCase closes the case in hand: a wait still pending was never
+// started, and a case still in the system stays in its site's census up
+// to the site's last event (added at report time).
+func (a *Accumulator) endCase() {
+	st := &a.cur
+	s := a.sites[st.site]
+	if st.flags&csWaitPending != 0 && st.wait > 0 {
+		a.waits[st.wait-1].noStart++
+		s.n[cWaitNoStart]++
+	}
+	if st.flags&csInSystem != 0 {
+		s.openN++
+		s.openEntry += float64(st.entry)
+	}
+	*st = caseState{}
+}
+
+// enter puts the case in hand into the census of site s at at.
+func (a *Accumulator) enter(s *siteAcc, at int64) {
+	a.cur.entry = at
+	a.cur.flags |= csInSystem
+}
+
+// leave takes the case in hand out of the census of its site at at.
+func (a *Accumulator) leave(s *siteAcc, at int64) {
+	s.area += float64(at - a.cur.entry)
+	a.cur.flags &^= csInSystem
+}
+
+// observeCase runs the per-case checks for e (type index ti) at at and
 // reports whether e has an accuracy, consistency or uniqueness problem.
 //
-// In a time-sorted stream "a start earlier than the case's arrival" shows
-// as an arrival or enqueue observed at a later instant than a start that
-// had no arrival or enqueue before it; the arrival (or enqueue) row is the
-// one counted, once per such start. The other order kinds work alike.
-// Equal instants are never order violations (see same_instant_order).
-func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, rel uint64) (acc, con, uni bool) {
-	k := nonZero(maphash.String(a.seed, e.CaseID))
-	sl, ok := a.cases.lookup(k)
-	if ok && rel-sl.rec > a.horizon {
-		// Idle past the horizon: checked as a new case, whether or not a
-		// sweep has dropped it yet, so counts do not depend on file size.
-		a.closeCase(sl)
-		ok = false
-	} else if !ok {
-		a.cases.claim(sl, k)
-	}
-	st := &sl.v
+// Within a case in time order "a start earlier than the case's arrival"
+// shows as an arrival or enqueue observed at a later instant than a start
+// that had no arrival or enqueue before it; the arrival (or enqueue) row
+// is the one counted, once per such start. The other order kinds work
+// alike. Equal instants are never order violations (see
+// same_instant_order).
+func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64) (acc, con, uni bool) {
+	st := &a.cur
 	bit := uint8(1) << ti
-	if !ok {
-		*st = caseState{first: rel, site: uint16(s.idx), typesAt: bit}
-		sl.rec = rel
+	if st.id == "" {
+		*st = caseState{id: strings.Clone(e.CaseID), first: at, rec: at, site: s.idx, typesAt: bit}
 		if ti != tArrival {
 			// Already in the system when the data begins (or its arrival
 			// is lost): it enters the census at its first event.
-			s.census++
-			st.flags |= csInSystem | csImplicit
+			a.enter(s, at)
+			st.flags |= csImplicit
 		}
 	} else {
-		if sl.rec == rel {
+		if st.rec == at {
 			a.flag(s, cSameInstant, e)
 			if st.typesAt&conflicts[ti] != 0 {
 				a.flag(s, cSameInstantOrder, e)
@@ -106,28 +222,21 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, rel uint6
 			}
 			st.typesAt |= bit
 		} else {
-			sl.rec = rel
+			st.rec = at
 			st.typesAt = bit
 			st.flags &^= csNowFlags
 		}
-		if int(st.site) != s.idx {
+		if st.site != s.idx {
 			if ti != tTransfer && st.flags&csPrevTransfer == 0 {
 				a.flag(s, cSiteChange, e)
 				con = true
 			}
 			if st.flags&csInSystem != 0 {
 				// The case moves: it leaves the census of its old site.
-				old := a.sites[st.site]
-				a.census(old, int64(rel)+a.base)
-				old.census--
-				s.census++
+				a.leave(a.sites[st.site], at)
+				a.enter(s, at)
 			}
-			st.site = uint16(s.idx)
-		}
-		if st.flags&csLong == 0 && rel-st.first > a.maxCase {
-			a.flag(s, cCaseTooLong, e)
-			st.flags |= csLong
-			acc = true
+			st.site = s.idx
 		}
 	}
 	f := st.flags
@@ -160,12 +269,14 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, rel uint6
 		s.arrivals++
 		if f&csImplicit != 0 {
 			f &^= csImplicit // its entry is counted already
-		} else {
-			s.census++
+		} else if f&csInSystem == 0 {
+			st.flags = f
+			a.enter(s, at)
+			f = st.flags
 		}
-		f |= csArr | csWaitAnchor | csInSystem | csStay
+		f |= csArr | csWaitAnchor | csStay
 		f &^= csDeparted | csDepartedNow
-		st.arr = rel
+		st.arr = at
 	case tEnqueue:
 		afterDeparture()
 		anchor()
@@ -201,20 +312,8 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, rel uint6
 			}
 		}
 		f &^= csWaitAnchor
-		if f&csOpenStart != 0 {
-			a.closeInterval(st, k)
-		}
-		st.start, st.res = rel, 0
+		st.start = at
 		f |= csOpenStart
-		if e.ResourceID != "" {
-			if r := a.resource(e.ResourceID); r >= 0 {
-				if a.openInterval(r, k, rel) {
-					a.flag(s, cResourceOverlap, e)
-					con = true
-				}
-				st.res = r + 1
-			}
-		}
 	case tComplete:
 		afterDeparture()
 		if f&(csStarted|csPendComplete) == 0 {
@@ -228,11 +327,10 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, rel uint6
 					limit = d
 				}
 			}
-			if int64(rel-st.start) > limit {
+			if at-st.start > limit {
 				a.flag(s, cServiceTooLong, e)
 				acc = true
 			}
-			a.closeInterval(st, k)
 			f &^= csOpenStart
 		}
 	case tAbandon, tTransfer:
@@ -251,23 +349,22 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, rel uint6
 			a.waitNoStart(s, st, e)
 			f &^= csWaitPending
 		}
-		if f&csOpenStart != 0 {
-			a.closeInterval(st, k)
-			f &^= csOpenStart
-		}
-		s.census--
-		if s.census < s.censusMin {
-			s.censusMin = s.census
-		}
-		if s.census < 0 {
+		f &^= csOpenStart
+		if f&csInSystem != 0 {
+			st.flags = f
+			a.leave(s, at)
+			f = st.flags
+		} else {
+			// A departure of a case that is not in the system: more
+			// departures than entries.
 			a.flag(s, cCensusNegative, e)
 			con = true
 		}
 		if f&csStay != 0 {
 			s.completed++
-			s.sojourn += float64(rel - st.arr)
+			s.sojourn += float64(at - st.arr)
 		}
-		f &^= csStay | csInSystem | csImplicit
+		f &^= csStay | csImplicit
 		f |= csDep | csDeparted | csDepartedNow
 	}
 	if ti == tTransfer {
@@ -286,38 +383,6 @@ func (a *Accumulator) waitNoStart(s *siteAcc, st *caseState, e *schema.Event) {
 		a.flag(s, cWaitNoStart, e)
 	}
 	st.wait = 0
-}
-
-// closeCase retires a record dropped for idleness: it tallies the case's
-// stages and counts a wait still pending as never started (without a
-// sample: no row is at hand).
-func (a *Accumulator) closeCase(sl *slot[caseState]) {
-	st := &sl.v
-	s := a.sites[st.site]
-	tallyStages(&s.stages, st.flags)
-	if st.flags&csWaitPending != 0 && st.wait > 0 {
-		a.waits[st.wait-1].noStart++
-		s.n[cWaitNoStart]++
-	}
-	if st.flags&csOpenStart != 0 {
-		a.closeInterval(st, sl.key)
-	}
-}
-
-func tallyStages(c *stageCounts, f uint32) {
-	c.cases++
-	if f&csArr != 0 {
-		c.arrival++
-	}
-	if f&csStart != 0 {
-		c.start++
-	}
-	if f&csComplete != 0 {
-		c.complete++
-	}
-	if f&csDep != 0 {
-		c.departure++
-	}
 }
 
 // waitOf returns the index of e's (queue, activity) pair, or -1 beyond
@@ -342,49 +407,25 @@ func (a *Accumulator) waitOf(e *schema.Event) int32 {
 	return i
 }
 
-// resource returns the index of resource id, or -1 beyond the cap.
-func (a *Accumulator) resource(id string) int32 {
-	i, ok := a.resIndex[id]
-	if !ok {
-		if len(a.resources) >= maxKeys {
-			return -1
-		}
-		i = int32(len(a.resources))
-		a.resources = append(a.resources, resAcc{})
-		a.resIndex[strings.Clone(id)] = i
+// ObserveSorted runs both passes over accepted events held in memory, in
+// non-decreasing OccurredAt order: Observe for each, then the per-case
+// pass in case order. It suits small inputs and tests; catalog streams
+// the per-case pass through a sort on disk instead.
+func (a *Accumulator) ObserveSorted(evs []schema.Event) {
+	flags := make([]Flags, len(evs))
+	for i := range evs {
+		flags[i] = a.Observe(&evs[i])
 	}
-	return i
-}
-
-// openInterval opens a service interval of case k at resource r and
-// reports whether the resource is then serving more cases than its
-// capacity. Intervals open for longer than the default service maximum
-// are taken as lost completes and no longer count.
-func (a *Accumulator) openInterval(r int32, k, rel uint64) bool {
-	res := &a.resources[r]
-	kept := res.open[:0]
-	for _, iv := range res.open {
-		if int64(rel-uint64(iv.at)) <= a.maxService {
-			kept = append(kept, iv)
-		}
+	idx := make([]int, len(evs))
+	for i := range idx {
+		idx[i] = i
 	}
-	over := len(kept) >= a.opt.ResourceCapacity
-	res.open = append(kept, openInterval{caseKey: k, at: int64(rel)})
-	return over
-}
-
-// closeInterval ends the open service interval of case k, if its
-// resource still holds it.
-func (a *Accumulator) closeInterval(st *caseState, k uint64) {
-	if st.res == 0 {
-		return
+	slices.SortStableFunc(idx, func(i, j int) int { return cases.Less(&evs[i], &evs[j]) })
+	b := cases.NewBuilder(a)
+	for _, i := range idx {
+		e := evs[i]
+		e.Line = PackLine(e.Line, flags[i])
+		b.Add(&e)
 	}
-	res := &a.resources[st.res-1]
-	for i, iv := range res.open {
-		if iv.caseKey == k {
-			res.open = append(res.open[:i], res.open[i+1:]...)
-			break
-		}
-	}
-	st.res = 0
+	b.Flush()
 }

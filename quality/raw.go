@@ -30,14 +30,16 @@ type Settings struct {
 	MaxServiceSeconds     float64        `json:"max_service_seconds"`
 	ClockToleranceSeconds float64        `json:"clock_tolerance_seconds"`
 	EventIDWindowSeconds  float64        `json:"event_id_window_seconds"`
-	CaseHorizonSeconds    float64        `json:"case_horizon_seconds"`
-	LittleTolerance       float64        `json:"little_tolerance"`
-	GapMinMean            float64        `json:"gap_min_mean"`
-	GapMinWeeks           int            `json:"gap_min_weeks"`
-	StaleAfterSeconds     float64        `json:"stale_after_seconds"`
-	UploadedAt            *time.Time     `json:"uploaded_at,omitempty"` // the latest, when merged
-	WindowFrom            *time.Time     `json:"window_from,omitempty"`
-	WindowTo              *time.Time     `json:"window_to,omitempty"`
+	// CaseHorizonSeconds is set only in reports made before cases were
+	// whole (an idle case was then cut after this long); today's omit it.
+	CaseHorizonSeconds float64    `json:"case_horizon_seconds,omitempty"`
+	LittleTolerance    float64    `json:"little_tolerance"`
+	GapMinMean         float64    `json:"gap_min_mean"`
+	GapMinWeeks        int        `json:"gap_min_weeks"`
+	StaleAfterSeconds  float64    `json:"stale_after_seconds"`
+	UploadedAt         *time.Time `json:"uploaded_at,omitempty"` // the latest, when merged
+	WindowFrom         *time.Time `json:"window_from,omitempty"`
+	WindowTo           *time.Time `json:"window_to,omitempty"`
 }
 
 // SiteRaw holds the counts of one site.
@@ -52,6 +54,7 @@ type SiteRaw struct {
 	ByType          map[schema.EventType]TypeRaw `json:"by_type"`
 	Grid            map[string]int64             `json:"grid"` // events on each grid
 	Stages          StageRaw                     `json:"stages"`
+	Cases           CaseRaw                      `json:"cases"`
 	First           *time.Time                   `json:"first"`
 	Last            *time.Time                   `json:"last"`
 	Census          CensusRaw                    `json:"census"`
@@ -76,6 +79,33 @@ type StageRaw struct {
 	Departure int64 `json:"departure"`
 }
 
+// CaseRaw holds the sums of the cases' durations (first to last event)
+// and events, for the mean, minimum and maximum.
+type CaseRaw struct {
+	N               int64   `json:"n"`
+	DurationSeconds float64 `json:"duration_seconds"` // sum
+	MinSeconds      float64 `json:"min_seconds"`
+	MaxSeconds      float64 `json:"max_seconds"`
+	Events          int64   `json:"events"` // sum
+	MinEvents       int64   `json:"min_events"`
+	MaxEvents       int64   `json:"max_events"`
+}
+
+func (d *CaseRaw) merge(s *CaseRaw) {
+	if s.N == 0 {
+		return
+	}
+	if d.N == 0 {
+		*d = *s
+		return
+	}
+	d.N += s.N
+	d.DurationSeconds += s.DurationSeconds
+	d.MinSeconds, d.MaxSeconds = min(d.MinSeconds, s.MinSeconds), max(d.MaxSeconds, s.MaxSeconds)
+	d.Events += s.Events
+	d.MinEvents, d.MaxEvents = min(d.MinEvents, s.MinEvents), max(d.MaxEvents, s.MaxEvents)
+}
+
 // CensusRaw holds the sums of Little's law for one site.
 type CensusRaw struct {
 	SpanSeconds     float64 `json:"span_seconds"`
@@ -93,13 +123,6 @@ type LagRaw struct {
 	N          int64         `json:"n"`
 	MaxSeconds int64         `json:"max_seconds"`
 	Buckets    map[int]int64 `json:"buckets"`
-}
-
-// HourSeries counts events per UTC hour from Start.
-type HourSeries struct {
-	Start  *time.Time `json:"start,omitempty"`
-	Counts []int64    `json:"counts"`
-	Beyond int64      `json:"beyond"` // events outside the series' span
 }
 
 // WaitRaw counts the waits of one (queue, activity).
@@ -124,11 +147,12 @@ var ErrIncompatible = errors.New("incompatible reports")
 // seen. The settings of the first report apply.
 func MergeReports(rs ...*Report) (*Report, error) {
 	var out *Report
+	var unmapped map[string]bool // out.UnmappedColumns, as a set
 	for i, r := range rs {
 		if r == nil {
 			continue
 		}
-		if r.Version != ReportVersion {
+		if r.Version != ReportVersion && r.Version != "2" { // 2: hours as one dense series, read into runs
 			return nil, fmt.Errorf("merge: report %d has format %q, want %q: %w", i, r.Version, ReportVersion, ErrIncompatible)
 		}
 		if out == nil {
@@ -152,8 +176,15 @@ func MergeReports(rs ...*Report) (*Report, error) {
 			out.Rejections[j].Count += rc.Count
 			out.Rejections[j].Samples = appendSamples(out.Rejections[j].Samples, max, rc.Samples)
 		}
+		if unmapped == nil {
+			unmapped = make(map[string]bool, len(out.UnmappedColumns))
+			for _, c := range out.UnmappedColumns {
+				unmapped[c] = true
+			}
+		}
 		for _, c := range r.UnmappedColumns {
-			if !slices.Contains(out.UnmappedColumns, c) {
+			if !unmapped[c] {
+				unmapped[c] = true
 				out.UnmappedColumns = append(out.UnmappedColumns, c)
 			}
 		}
@@ -214,9 +245,16 @@ func mergeRaw(dst, src *Raw) {
 	for _, k := range sortedKeys(src.Samples) {
 		dst.Samples[k] = appendSamples(dst.Samples[k], max, src.Samples[k])
 	}
+	// Indexes by name keep a merge linear in the number of queues and
+	// sites, however many there are.
+	wi := make(map[[2]string]int, len(dst.Waits))
+	for j, w := range dst.Waits {
+		wi[[2]string{w.Queue, w.Activity}] = j
+	}
 	for _, w := range src.Waits {
-		j := slices.IndexFunc(dst.Waits, func(x WaitRaw) bool { return x.Queue == w.Queue && x.Activity == w.Activity })
-		if j < 0 {
+		j, ok := wi[[2]string{w.Queue, w.Activity}]
+		if !ok {
+			wi[[2]string{w.Queue, w.Activity}] = len(dst.Waits)
 			dst.Waits = append(dst.Waits, WaitRaw{Queue: w.Queue, Activity: w.Activity})
 			j = len(dst.Waits) - 1
 		}
@@ -224,10 +262,15 @@ func mergeRaw(dst, src *Raw) {
 		dst.Waits[j].NoEnqueue += w.NoEnqueue
 		dst.Waits[j].NoStart += w.NoStart
 	}
+	si := make(map[string]int, len(dst.Sites))
+	for j := range dst.Sites {
+		si[dst.Sites[j].Site] = j
+	}
 	for i := range src.Sites {
 		s := &src.Sites[i]
-		j := slices.IndexFunc(dst.Sites, func(x SiteRaw) bool { return x.Site == s.Site })
-		if j < 0 {
+		j, ok := si[s.Site]
+		if !ok {
+			si[s.Site] = len(dst.Sites)
 			dst.Sites = append(dst.Sites, SiteRaw{Site: s.Site, Counts: map[string]int64{},
 				NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{}})
 			j = len(dst.Sites) - 1
@@ -265,6 +308,7 @@ func mergeSite(d, s *SiteRaw) {
 	d.Stages.Start += s.Stages.Start
 	d.Stages.Complete += s.Stages.Complete
 	d.Stages.Departure += s.Stages.Departure
+	d.Cases.merge(&s.Cases)
 	if s.First != nil && (d.First == nil || s.First.Before(*d.First)) {
 		d.First = s.First
 	}
@@ -291,30 +335,52 @@ func mergeSite(d, s *SiteRaw) {
 	d.FileBackSteps += s.FileBackSteps
 }
 
-func mergeHours(a, b HourSeries) HourSeries {
-	if b.Start == nil {
-		a.Beyond += b.Beyond
-		if a.Counts == nil {
-			a.Counts = []int64{}
+// caseCodes are the findings counted per case or per wait rather than per
+// row; a version's report takes them from its one per-case pass.
+var caseCodes = []string{CodeCaseTooLong, CodeWaitNoEnqueue, CodeWaitNoStart}
+
+// WithCases returns merged (the merge of a version's per-upload reports)
+// with its case-level figures taken from cases, the report of one
+// per-case pass over every event of the version ([Accumulator.Event] and
+// [Accumulator.Case] only): per site the cases, their durations and
+// events, their stage coverage,
+// the census sums of Little's law (arrivals, completed stays, sojourn,
+// time in system), case_too_long, and the wait coverage. So a case whose
+// events span uploads counts once. Row-level findings (order checks within
+// a case, duplicates, overlaps) stay those found within each upload.
+func WithCases(merged, cases *Report) *Report {
+	raw := cloneRaw(&merged.Raw)
+	bySite := map[string]*SiteRaw{}
+	for i := range cases.Raw.Sites {
+		bySite[cases.Raw.Sites[i].Site] = &cases.Raw.Sites[i]
+	}
+	for i := range raw.Sites {
+		s := &raw.Sites[i]
+		c := bySite[s.Site]
+		if c == nil {
+			c = &SiteRaw{}
 		}
-		return a
+		s.Stages = c.Stages
+		s.Cases = c.Cases
+		s.Census.AreaCaseSeconds = c.Census.AreaCaseSeconds
+		s.Census.Arrivals = c.Census.Arrivals
+		s.Census.Completed = c.Census.Completed
+		s.Census.SojournSeconds = c.Census.SojournSeconds
+		for _, code := range caseCodes {
+			if n := c.Counts[code]; n > 0 {
+				s.Counts[code] = n
+			} else {
+				delete(s.Counts, code)
+			}
+		}
 	}
-	if a.Start == nil {
-		return HourSeries{Start: b.Start, Counts: slices.Clone(b.Counts), Beyond: a.Beyond + b.Beyond}
+	raw.Waits = slices.Clone(cases.Raw.Waits)
+	for _, code := range caseCodes {
+		if smp := cases.Raw.Samples[code]; len(smp) > 0 {
+			raw.Samples[code] = slices.Clone(smp)
+		} else {
+			delete(raw.Samples, code)
+		}
 	}
-	start := *a.Start
-	if b.Start.Before(start) {
-		start = *b.Start
-	}
-	offA := int(a.Start.Sub(start) / time.Hour)
-	offB := int(b.Start.Sub(start) / time.Hour)
-	n := max(offA+len(a.Counts), offB+len(b.Counts))
-	out := make([]int64, n)
-	for i, v := range a.Counts {
-		out[offA+i] += v
-	}
-	for i, v := range b.Counts {
-		out[offB+i] += v
-	}
-	return HourSeries{Start: &start, Counts: out, Beyond: a.Beyond + b.Beyond}
+	return derive(merged.Rows, cloneRejections(merged.Rejections), raw, slices.Clone(merged.UnmappedColumns))
 }

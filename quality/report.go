@@ -13,7 +13,11 @@ import (
 // ReportVersion is the version of the report's JSON format. Adding a
 // finding code or an object member keeps the version; renaming or
 // removing one, or changing a formula, bumps it.
-const ReportVersion = "2"
+//
+// Version 3 holds each site's hourly series in runs (raw.hours.runs)
+// rather than as one dense series from the first event; reports of
+// version 2 are still read and merged.
+const ReportVersion = "3"
 
 // Report is the quality report of one upload, or of several merged by
 // [MergeReports]. Everything but Raw, Rows, Rejections and
@@ -33,6 +37,7 @@ type Report struct {
 	Completeness []FieldCompleteness `json:"completeness"`
 	EventTypes   []TypeCompleteness  `json:"event_types"`
 	Stages       Stages              `json:"stages"`
+	Cases        CaseFigures         `json:"cases"`
 	Waits        []WaitCoverage      `json:"waits"`
 	Resolution   Resolution          `json:"resolution"`
 	Little       []LittleLaw         `json:"littles_law"`
@@ -96,6 +101,19 @@ type Stages struct {
 	Start     float64 `json:"start"`
 	Complete  float64 `json:"complete"`
 	Departure float64 `json:"departure"`
+}
+
+// CaseFigures describe the cases: how many, their duration (first to last
+// event, seconds) and their events. A case is its case id over every file
+// of a version, however long it idles.
+type CaseFigures struct {
+	Count               int64   `json:"count"`
+	MeanDurationSeconds float64 `json:"mean_duration_seconds"`
+	MinDurationSeconds  float64 `json:"min_duration_seconds"`
+	MaxDurationSeconds  float64 `json:"max_duration_seconds"`
+	MeanEvents          float64 `json:"mean_events"`
+	MinEvents           int64   `json:"min_events"`
+	MaxEvents           int64   `json:"max_events"`
 }
 
 // WaitCoverage is, for one (queue, activity), how many waits there were
@@ -287,28 +305,24 @@ func (a *Accumulator) Report() *Report {
 	for _, s := range a.sites {
 		accepted += s.events
 	}
-	// Stage coverage of the records still held, and waits still pending.
-	stages := make([]stageCounts, len(a.sites))
+	// The case in hand, if the per-case pass has not ended it: a wait
+	// still pending was never started.
 	pendingNoStart := make([]int64, len(a.sites))
 	waitNoStart := make([]int64, len(a.waits))
-	for i, s := range a.sites {
-		stages[i] = s.stages
+	if st := &a.cur; st.id != "" && st.flags&csWaitPending != 0 && st.wait > 0 {
+		waitNoStart[st.wait-1]++
+		pendingNoStart[st.site]++
 	}
-	a.cases.each(func(sl *slot[caseState]) {
-		st := &sl.v
-		tallyStages(&stages[st.site], st.flags)
-		if st.flags&csWaitPending != 0 && st.wait > 0 {
-			waitNoStart[st.wait-1]++
-			pendingNoStart[st.site]++
-		}
-	})
 	for i, s := range a.sites {
-		raw.Sites = append(raw.Sites, a.siteRaw(s, stages[i], pendingNoStart[i]))
+		raw.Sites = append(raw.Sites, a.siteRaw(s, s.stages, pendingNoStart[i]))
 	}
 	for i, w := range a.waits {
 		raw.Waits = append(raw.Waits, WaitRaw{Queue: w.key.queue, Activity: w.key.activity,
 			Waits: w.waits, NoEnqueue: w.noEnqueue, NoStart: w.noStart + waitNoStart[i]})
 	}
+	slices.SortFunc(raw.Waits, func(x, y WaitRaw) int {
+		return cmp.Or(cmp.Compare(x.Queue, y.Queue), cmp.Compare(x.Activity, y.Activity))
+	})
 	for c := range numCodes {
 		if len(a.samples[c]) > 0 {
 			raw.Samples[codeNames[c]] = slices.Clone(a.samples[c])
@@ -336,8 +350,8 @@ func (a *Accumulator) settings() Settings {
 		Zone: o.Zone.String(), MappedFields: slices.Clone(o.MappedFields), MaxSamples: o.MaxSamples,
 		ResourceCapacity: o.ResourceCapacity, MaxCaseSeconds: o.MaxCase.Seconds(),
 		MaxServiceSeconds: float64(a.maxService) / 1e6, ClockToleranceSeconds: o.ClockTolerance.Seconds(),
-		EventIDWindowSeconds: o.EventIDWindow.Seconds(), CaseHorizonSeconds: o.CaseHorizon.Seconds(),
-		LittleTolerance: o.LittleTolerance, GapMinMean: o.GapMinMean, GapMinWeeks: o.GapMinWeeks,
+		EventIDWindowSeconds: o.EventIDWindow.Seconds(),
+		LittleTolerance:      o.LittleTolerance, GapMinMean: o.GapMinMean, GapMinWeeks: o.GapMinWeeks,
 		StaleAfterSeconds: o.StaleAfter.Seconds(),
 		UploadedAt:        timePtr(o.UploadedAt), WindowFrom: timePtr(o.WindowFrom), WindowTo: timePtr(o.WindowTo),
 	}
@@ -354,6 +368,7 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 		NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{},
 		Stages:   StageRaw{Cases: stages.cases, Arrival: stages.arrival, Start: stages.start, Complete: stages.complete, Departure: stages.departure},
 		FileRows: s.fileRows, FileBackSteps: s.fileJumps,
+		Cases: s.cases,
 	}
 	for c := range numCodes {
 		if n := s.n[c]; n > 0 {
@@ -381,8 +396,14 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 	}
 	if s.hasAt {
 		r.First, r.Last = timePtr(time.UnixMicro(s.firstAt)), timePtr(time.UnixMicro(s.lastAt))
+		// Cases still in the system stay in the census to the site's last
+		// event.
+		area := s.area + float64(s.openN)*float64(s.lastAt) - s.openEntry
+		if st := &a.cur; st.id != "" && st.flags&csInSystem != 0 && st.site == s.idx {
+			area += float64(s.lastAt - st.entry)
+		}
 		r.Census = CensusRaw{
-			SpanSeconds: float64(s.lastAt-s.firstAt) / 1e6, AreaCaseSeconds: s.area / 1e6,
+			SpanSeconds: float64(s.lastAt-s.firstAt) / 1e6, AreaCaseSeconds: area / 1e6,
 			Arrivals: s.arrivals, Completed: s.completed, SojournSeconds: s.sojourn / 1e6, Min: s.censusMin,
 		}
 	}
@@ -392,13 +413,7 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 			r.Lag.Buckets[b] = n
 		}
 	}
-	r.Hours = HourSeries{Counts: make([]int64, len(s.hours)), Beyond: s.hoursOut}
-	if len(s.hours) > 0 {
-		r.Hours.Start = timePtr(time.Unix(s.hourStart*3600, 0))
-	}
-	for i, n := range s.hours {
-		r.Hours.Counts[i] = int64(n)
-	}
+	r.Hours = s.hours.series()
 	return r
 }
 

@@ -37,9 +37,7 @@ func TestSepsis(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// A horizon beyond the longest case (422 days, README), so that one
-	// case is one case record.
-	acc := NewAccumulator(Options{Zone: prof.Location(), UploadedAt: time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC), CaseHorizon: 500 * 24 * time.Hour})
+	acc := NewAccumulator(Options{Zone: prof.Location(), UploadedAt: time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)})
 	var evs []schema.Event
 	for {
 		var e schema.Event
@@ -59,9 +57,7 @@ func TestSepsis(t *testing.T) {
 		evs = append(evs, e)
 	}
 	slices.SortStableFunc(evs, func(a, b schema.Event) int { return a.OccurredAt.Compare(b.OccurredAt) })
-	for i := range evs {
-		acc.Observe(&evs[i])
-	}
+	acc.ObserveSorted(evs)
 	r := acc.Report()
 
 	// Resolution from the raw column, read with time.Parse in the log's

@@ -114,7 +114,8 @@ func (f Field) Identifier() bool {
 }
 
 // Value returns the text value of field f of e; occurred_at is formatted as
-// RFC 3339 with microseconds in UTC, and empty when unset.
+// RFC 3339 with microseconds in UTC (every event has one: the zero
+// time.Time is 0001-01-01T00:00:00Z, a valid instant).
 func (e *Event) Value(f Field) string {
 	switch f {
 	case FieldSite:
@@ -132,9 +133,6 @@ func (e *Event) Value(f Field) string {
 	case FieldQueue:
 		return e.Queue
 	case FieldOccurredAt:
-		if e.OccurredAt.IsZero() {
-			return ""
-		}
 		return e.OccurredAt.UTC().Format("2006-01-02T15:04:05.000000Z")
 	case FieldPriority:
 		return e.Priority

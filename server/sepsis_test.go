@@ -37,6 +37,13 @@ type sepsisRaw struct {
 	caseIDs    map[string]bool
 	totalUTC   float64
 	totalLocal float64
+	rows       int64
+	perCase    map[string]int // rows per case
+	// distinct holds the rows distinct in the columns the profile maps
+	// (case, activity, timestamp, lifecycle, org:group); rows equal in all
+	// of them are one event to the catalog, stored once.
+	distinct        map[[5]string]bool
+	distinctPerCase map[string]int
 }
 
 // readSepsisRaw reads the raw export with encoding/csv and time.Parse,
@@ -82,7 +89,8 @@ func readSepsisRaw(t *testing.T, path string) sepsisRaw {
 		}
 	}
 	const layout = "2006/01/02 15:04:05.000"
-	raw := sepsisRaw{caseIDs: map[string]bool{}}
+	raw := sepsisRaw{caseIDs: map[string]bool{}, perCase: map[string]int{}, distinct: map[[5]string]bool{}, distinctPerCase: map[string]int{}}
+	ai, li, gi := slices.Index(head, "Activity"), slices.Index(head, "lifecycle:transition"), slices.Index(head, "org:group")
 	for {
 		rec, err := cr.Read()
 		if err == io.EOF {
@@ -92,6 +100,12 @@ func readSepsisRaw(t *testing.T, path string) sepsisRaw {
 			t.Fatal(err)
 		}
 		raw.caseIDs[rec[ci]] = true
+		raw.rows++
+		raw.perCase[rec[ci]]++
+		if k := [5]string{rec[ci], rec[ai], rec[ti], rec[li], rec[gi]}; !raw.distinct[k] {
+			raw.distinct[k] = true
+			raw.distinctPerCase[rec[ci]]++
+		}
 		u, err := time.Parse(layout, rec[ti])
 		if err != nil {
 			t.Fatal(err)
@@ -284,8 +298,14 @@ func TestSepsisEndToEnd(t *testing.T) {
 	if len(perCase) != 1050 { // traces (cases): 1050
 		t.Errorf("%d cases, want 1050", len(perCase))
 	}
-	if events != 15214 { // events: 15214
-		t.Errorf("%d events, want 15214", events)
+	// The log's events, as published, and as the catalog holds them: rows
+	// equal in every mapped column are one event, stored once and counted
+	// as copies.
+	if raw.rows != 15214 { // events: 15214
+		t.Errorf("the raw file has %d rows, want 15214", raw.rows)
+	}
+	if ev := res.Upload.Events; events != int64(len(raw.distinct)) || ev == nil || ev.Read != raw.rows || ev.Copies != raw.rows-events {
+		t.Errorf("%d events stored, counts %+v; the raw file has %d rows, %d distinct in the mapped columns", events, ev, raw.rows, len(raw.distinct))
 	}
 	if len(activities) != 16 { // distinct activities: 16
 		t.Errorf("%d distinct activities, want 16", len(activities))
@@ -293,12 +313,28 @@ func TestSepsisEndToEnd(t *testing.T) {
 	if len(resources) != 26 { // distinct org:group values: 26
 		t.Errorf("%d distinct resource pseudonyms, want 26", len(resources))
 	}
-	lo, hi := math.MaxInt, 0
-	for _, n := range perCase {
-		lo, hi = min(lo, n), max(hi, n)
+	span := func(m map[string]int) (lo, hi int) {
+		lo = math.MaxInt
+		for _, n := range m {
+			lo, hi = min(lo, n), max(hi, n)
+		}
+		return lo, hi
 	}
-	if lo != 3 || hi != 185 { // events per case, min / max: 3 / 185
-		t.Errorf("events per case %d..%d, want 3..185", lo, hi)
+	if lo, hi := span(raw.perCase); lo != 3 || hi != 185 { // events per case, min / max: 3 / 185
+		t.Errorf("raw events per case %d..%d, want 3..185", lo, hi)
+	}
+	// Case ids are pseudonyms in the snapshot: compare the counts per case
+	// as sorted lists.
+	counts := func(m map[string]int) []int {
+		out := make([]int, 0, len(m))
+		for _, n := range m {
+			out = append(out, n)
+		}
+		slices.Sort(out)
+		return out
+	}
+	if lo, hi := span(perCase); !slices.Equal(counts(perCase), counts(raw.distinctPerCase)) {
+		t.Errorf("events per case %d..%d, not the raw file's distinct events per case", lo, hi)
 	}
 	wantFirst := time.Date(2013, 11, 7, 8, 18, 29, 0, time.FixedZone("", 3600))  // first event 2013-11-07T08:18:29+01:00
 	wantLast := time.Date(2015, 6, 5, 12, 25, 11, 0, time.FixedZone("", 2*3600)) // last event 2015-06-05T12:25:11+02:00

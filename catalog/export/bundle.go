@@ -19,6 +19,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // ErrFormat is returned by WriteBundle for an archive format other than
@@ -308,6 +309,13 @@ func dictionary(d *catalog.Dataset, v *catalog.Version, report []byte) ([]byte, 
 			fence += "`"
 		}
 		fmt.Fprintf(&b, "The profile that maps partner exports into the schema:\n\n%syaml\n%s\n%s\n", fence, strings.TrimRight(d.Profile, "\n"), fence)
+	}
+	if m.CaseTable != nil {
+		fmt.Fprintf(&b, "\n## Case table\n\n`%s`: one row per case over every file of the version (%d cases), in `case_id` order. A case is its case id within the dataset, however long it idles.\n\n", catalog.CasesPath(m.CaseTable.SHA256), m.CaseTable.Rows)
+		b.WriteString("| column | type | description |\n|---|---|---|\n")
+		for _, c := range cases.RowColumns {
+			fmt.Fprintf(&b, "| `%s` | %s | %s |\n", c.Name, c.Type, c.Meaning)
+		}
 	}
 	b.WriteString("\n## Quality\n\n")
 	q, err := qualitySummary(report)

@@ -109,7 +109,10 @@ func TestBundleTarAndZip(t *testing.T) {
 			for _, f := range m.Files {
 				wantNames = append(wantNames, "data/"+f.SHA256.String()+".parquet")
 			}
-			wantNames = append(wantNames, BundleSums)
+			if m.CaseTable == nil {
+				t.Fatal("the version has no case table")
+			}
+			wantNames = append(wantNames, "cases/"+m.CaseTable.SHA256.String()+".parquet", BundleSums)
 			if strings.Join(names, " ") != strings.Join(wantNames, " ") {
 				t.Fatalf("entries %v, want %v", names, wantNames)
 			}

@@ -285,7 +285,7 @@ type cursor struct {
 	closer io.Closer
 	groups []parquet.RowGroup // row groups to decode
 	gi     int
-	rd     *parquet.GenericReader[schema.Event]
+	rd     *catalog.EventReader
 	buf    []schema.Event
 	pos, n int
 	run    []schema.Event
@@ -405,7 +405,11 @@ func (c *cursor) raw() (*schema.Event, error) {
 				c.eof = true
 				return nil, nil
 			}
-			c.rd = parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi])
+			rd, err := catalog.NewEventReader(parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi]))
+			if err != nil {
+				return nil, fmt.Errorf("export: %w", err)
+			}
+			c.rd = rd
 			c.gi++
 		}
 		clear(c.buf)
@@ -460,7 +464,7 @@ func (c *cursor) fill() error {
 		cloneEvent(&c.run[len(c.run)-1], e)
 	}
 	if len(c.run) > 1 {
-		slices.SortFunc(c.run, func(a, b schema.Event) int { return compareRest(&a, &b) })
+		slices.SortFunc(c.run, func(a, b schema.Event) int { return schema.CompareContent(&a, &b) })
 	}
 	return nil
 }

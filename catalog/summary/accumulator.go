@@ -2,14 +2,16 @@ package summary
 
 import (
 	"math"
+	"slices"
+	"strings"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // Defaults applied by [New] to zero [Options] fields.
 const (
-	DefaultCaseHorizon = 30 * 24 * time.Hour
 	DefaultResolution  = time.Hour
 	DefaultExactValues = 4096
 )
@@ -26,9 +28,6 @@ const maxGroups = 1000
 // beyond the first 1000 of each.
 const OtherGroup = "(other)"
 
-// sweepEvery is the number of events between two sweeps of idle cases.
-const sweepEvery = 1 << 16
-
 // Options tune an [Accumulator]. The zero value uses UTC and the defaults.
 // Accumulators merge only when their options agree.
 type Options struct {
@@ -38,10 +37,6 @@ type Options struct {
 	// WaitThresholds are the waits whose exceedance shares are reported,
 	// per queue. Default [DefaultWaitThresholds].
 	WaitThresholds []time.Duration
-	// CaseHorizon bounds memory: a case idle for longer than this (in event
-	// time) is closed at its last event, and a later event of it opens a
-	// new case. Default [DefaultCaseHorizon].
-	CaseHorizon time.Duration
 	// Resolution is the width of the occupancy buckets, at least a second.
 	// Default [DefaultResolution].
 	Resolution time.Duration
@@ -51,23 +46,27 @@ type Options struct {
 	ExactValues int
 }
 
-// Accumulator gathers the summary of the events of one file, observed in
-// non-decreasing OccurredAt order (catalog sorts them). It is not safe for
-// concurrent use. Give each file its own accumulator and merge them.
+// Accumulator gathers a summary in two parts. Event-level figures (event
+// counts, types, time range, days observed, resources) come from
+// [Accumulator.Observe], in any order. Case-level figures (cases,
+// arrivals by hour, waits, services, length of stay, occupancy) come from
+// the one per-case computation of [cases.Builder], for which the
+// accumulator is a [cases.Observer]: each case is observed whole, once,
+// however long it idled and however many files its events came in. It is
+// not safe for concurrent use.
 //
-// Per-case state is bounded: a case is held from its first event until its
-// departure, until it has been idle for Options.CaseHorizon, or until
-// [Accumulator.Summary], [Accumulator.Merge] or [Accumulator.MarshalBinary]
-// close every open case at its last event. So a case whose events span two
-// files counts as two cases (two arrivals, two stays), and a wait or a
-// service that starts in one file and ends in the next is not measured.
+// Event-level parts merge ([Accumulator.Merge]); a version's summary is
+// the merge of its files' event-level states plus one per-case pass over
+// the whole version, so a case spanning two uploads counts once. Distinct
+// counts are exact when the caller sets them ([Accumulator.SetCounts],
+// as catalog does from its counts on disk); otherwise they are exact up to
+// 4096 and HyperLogLog estimates beyond.
 type Accumulator struct {
-	opt     Options
-	loc     *time.Location
-	thr     []int64 // µs
-	horizon int64   // µs
-	res     int64   // µs
-	cap     int
+	opt Options
+	loc *time.Location
+	thr []int64 // µs
+	res int64   // µs
+	cap int
 
 	events     uint64
 	types      [7]uint64
@@ -78,6 +77,7 @@ type Accumulator struct {
 	outOfOrder uint64
 
 	cases, subjects, resources *distinct
+	counted                    *Counts // exact counts set by the caller
 
 	sites  groups[siteGroup]
 	queues groups[queueGroup]
@@ -86,22 +86,33 @@ type Accumulator struct {
 	arrivals uint64
 	arrWeek  [168]uint64
 	arrDay   map[int32]uint64
-	days     map[int32]struct{} // local days observed
+	days     observed // local days observed
 	los      *dist
+	evCase   *dist // events per case, as counts (not µs)
+	between  *dist // time between consecutive events of a case
+	prevCase string
+	caseAt   int64 // the previous event of prevCase
 	occ      map[int64]*occBucket
 
 	// stream state of the current file
-	open       map[uint64]caseState
-	prevAt     int64
-	segHas     bool
-	segFirst   int64
-	segLast    int64
-	sinceSweep int
-	lastRes    string
-	zoneLo     int64
-	zoneHi     int64
-	zoneOff    int64
+	prevAt   int64
+	segHas   bool
+	segFirst int64
+	segLast  int64
+	lastRes  string
+	zoneLo   int64
+	zoneHi   int64
+	zoneOff  int64
 }
+
+// Counts are exact distinct counts of a summary's cases, subjects and
+// resources, counted by the caller.
+type Counts struct {
+	Cases, Subjects, Resources uint64
+}
+
+// SetCounts makes c the summary's distinct counts, marked exact.
+func (a *Accumulator) SetCounts(c Counts) { a.counted = &c }
 
 type siteGroup struct {
 	name   string
@@ -135,23 +146,6 @@ type occBucket struct {
 	arr, dep         uint64
 	arrRest, depRest int64
 }
-
-// caseState is the per-case state, about 48 bytes.
-type caseState struct {
-	first, last int64
-	anchor      int64 // start of the open wait
-	svcStart    int64 // start of the open service
-	pendQ       int32 // queue of the open wait, -1 none named
-	svcAct      int32
-	svcQ        int32
-	flags       uint8
-}
-
-const (
-	fAnchor  = 1 << iota // a wait is open
-	fSvc                 // a service is open
-	fSubject             // the case's subject was counted
-)
 
 // groups indexes named groups, with a one-entry cache for the common case
 // of consecutive events naming the same group.
@@ -196,9 +190,6 @@ func New(opt Options) *Accumulator {
 	if len(opt.WaitThresholds) == 0 {
 		opt.WaitThresholds = DefaultWaitThresholds
 	}
-	if opt.CaseHorizon <= 0 {
-		opt.CaseHorizon = DefaultCaseHorizon
-	}
 	if opt.Resolution < time.Second {
 		opt.Resolution = DefaultResolution
 	}
@@ -208,17 +199,16 @@ func New(opt Options) *Accumulator {
 	a := &Accumulator{
 		opt:       opt,
 		loc:       opt.Location,
-		horizon:   opt.CaseHorizon.Microseconds(),
 		res:       opt.Resolution.Microseconds(),
 		cap:       opt.ExactValues,
 		cases:     newDistinct(),
 		subjects:  newDistinct(),
 		resources: newDistinct(),
 		arrDay:    map[int32]uint64{},
-		days:      map[int32]struct{}{},
 		los:       newDist(),
+		evCase:    newDist(),
+		between:   newDist(),
 		occ:       map[int64]*occBucket{},
-		open:      map[uint64]caseState{},
 		zoneLo:    math.MaxInt64,
 		zoneHi:    math.MinInt64,
 	}
@@ -254,10 +244,9 @@ func typeIndex(t schema.EventType) int {
 	return -1
 }
 
-// Observe adds one event; see the order precondition on [Accumulator].
-// An event earlier than its predecessor is counted (OutOfOrder) and used
-// as it is; durations that come out negative are counted apart and left
-// out of the distributions. e may be reused once Observe returns.
+// Observe adds one event to the event-level figures. Events may come in
+// any order; one earlier than its predecessor is counted (OutOfOrder). e
+// may be reused once Observe returns.
 func (a *Accumulator) Observe(e *schema.Event) {
 	if e == nil {
 		return
@@ -274,6 +263,11 @@ func (a *Accumulator) Observe(e *schema.Event) {
 		a.maxAt = at
 	}
 	a.hasTime = true
+	// A stretch of observation ends at a silence longer than
+	// ObservationGap; its days are observed, the silence's are not.
+	if a.segHas && (at > a.segLast+observationGap || at < a.segFirst-observationGap) {
+		a.endStretch()
+	}
 	if !a.segHas {
 		a.segHas, a.segFirst, a.segLast = true, at, at
 	}
@@ -287,111 +281,78 @@ func (a *Accumulator) Observe(e *schema.Event) {
 	}
 	si := a.sites.get(e.Site)
 	a.sites.list[si].events++
-	qi, ai := int32(-1), int32(-1)
 	if e.Queue != "" {
-		qi = a.queues.get(e.Queue)
-		a.queues.list[qi].events++
+		a.queues.list[a.queues.get(e.Queue)].events++
 	}
 	if e.Activity != "" {
-		ai = a.acts.get(e.Activity)
-		a.acts.list[ai].events++
+		a.acts.list[a.acts.get(e.Activity)].events++
 	}
 	if e.ResourceID != "" && e.ResourceID != a.lastRes {
 		a.resources.add(hashString(e.ResourceID))
 		a.lastRes = e.ResourceID
 	}
+}
 
-	k := hashString(e.CaseID)
-	cs, ok := a.open[k]
-	if ok && at-cs.last > a.horizon {
-		a.close(&cs, cs.last)
-		ok = false
+// Event is part of [cases.Observer]: it measures the time between
+// consecutive events of a case (events are counted by Observe).
+func (a *Accumulator) Event(e *schema.Event) {
+	at := e.OccurredAt.UnixMicro()
+	if a.prevCase != "" && e.CaseID == a.prevCase {
+		if d := at - a.caseAt; d >= 0 {
+			a.between.add(d, a.cap)
+		}
+	} else {
+		a.prevCase = strings.Clone(e.CaseID)
 	}
-	if !ok {
-		cs = caseState{first: at, last: at, pendQ: -1, svcAct: -1, svcQ: -1}
-		a.cases.add(k)
-		how, day := a.local(at)
-		a.arrivals++
-		a.arrWeek[how]++
-		a.arrDay[day]++
-		a.sites.list[si].arr[how]++
+	a.caseAt = at
+}
+
+// Wait takes one wait of a case: the queue's arrival by hour of week, and
+// the wait's duration when it ended in a start or an abandon.
+func (a *Accumulator) Wait(w *cases.Wait) {
+	q := a.queues.get(w.Queue)
+	if w.Queue != "" {
+		how, _ := a.local(w.At)
+		a.queues.list[q].arr[how]++
 	}
-	if e.SubjectID != "" && cs.flags&fSubject == 0 {
-		a.subjects.add(hashString(e.SubjectID))
-		cs.flags |= fSubject
+	if !w.Open {
+		a.wait(q, w.Duration, w.Abandoned)
 	}
-	switch e.Type {
-	case schema.Arrival, schema.Enqueue, schema.Transfer:
-		if qi >= 0 {
-			if cs.flags&fAnchor == 0 || cs.pendQ != qi {
-				cs.anchor, cs.pendQ = at, qi
-				cs.flags |= fAnchor
-				how, _ := a.local(at)
-				a.queues.list[qi].arr[how]++
-			}
-		} else if cs.flags&fAnchor == 0 && e.Type != schema.Transfer {
-			cs.anchor, cs.pendQ = at, -1
-			cs.flags |= fAnchor
-		}
-	case schema.Start:
-		q := qi
-		if cs.flags&fAnchor != 0 {
-			if q < 0 {
-				q = cs.pendQ
-			}
-			if q < 0 {
-				q = a.queues.get("")
-			}
-			a.wait(q, at-cs.anchor, false)
-			cs.flags &^= fAnchor
-		}
-		cs.svcStart, cs.svcAct, cs.svcQ = at, ai, q
-		cs.flags |= fSvc
-	case schema.Complete:
-		if cs.flags&fSvc != 0 && (ai < 0 || cs.svcAct < 0 || ai == cs.svcAct) {
-			act := cs.svcAct
-			if act < 0 {
-				act = ai
-			}
-			if act < 0 {
-				act = a.acts.get("")
-			}
-			d := at - cs.svcStart
-			g := a.acts.list[act]
-			if d < 0 {
-				g.negative++
-			} else {
-				g.svc.add(d, a.cap)
-				if cs.svcQ >= 0 {
-					q := a.queues.list[cs.svcQ]
-					q.svcN++
-					q.svcSum.add(uint64(d))
-				}
-			}
-			cs.flags &^= fSvc
-		}
-	case schema.Abandon:
-		if cs.flags&fAnchor != 0 {
-			q := qi
-			if q < 0 {
-				q = cs.pendQ
-			}
-			if q < 0 {
-				q = a.queues.get("")
-			}
-			a.wait(q, at-cs.anchor, true)
-			cs.flags &^= fAnchor
-		}
-	case schema.Departure:
-		cs.last = max(cs.last, at)
-		a.close(&cs, cs.last)
-		delete(a.open, k)
-		a.maybeSweep(at)
+}
+
+// Service takes one measured service of a case.
+func (a *Accumulator) Service(sv *cases.Service) {
+	g := a.acts.list[a.acts.get(sv.Activity)]
+	if sv.Duration < 0 {
+		g.negative++
 		return
 	}
-	cs.last = max(cs.last, at)
-	a.open[k] = cs
-	a.maybeSweep(at)
+	g.svc.add(sv.Duration, a.cap)
+	if sv.Queue != "" {
+		q := a.queues.list[a.queues.get(sv.Queue)]
+		q.svcN++
+		q.svcSum.add(uint64(sv.Duration))
+	}
+}
+
+// Case takes a finished case: its arrival (at its first event) by hour of
+// week, day and site, its subject, its length of stay (first to last
+// event) and its interval in system.
+func (a *Accumulator) Case(r *cases.Record) {
+	a.cases.add(hashString(r.CaseID))
+	if r.SubjectID != "" {
+		a.subjects.add(hashString(r.SubjectID))
+	}
+	how, day := a.local(r.First)
+	a.arrivals++
+	a.arrWeek[how]++
+	a.arrDay[day]++
+	a.sites.list[a.sites.get(r.Site)].arr[how]++
+	a.los.add(r.Last-r.First, a.cap)
+	a.evCase.add(r.Events, a.cap)
+	a.prevCase = ""
+	a.occAdd(r.First, true)
+	a.occAdd(r.Last, false)
 }
 
 // wait records a wait of d µs in queue q that ended in a start (served) or
@@ -414,13 +375,6 @@ func (a *Accumulator) wait(q int32, d int64, abandoned bool) {
 	}
 }
 
-// close ends a case at end: its stay and its interval in system.
-func (a *Accumulator) close(cs *caseState, end int64) {
-	a.los.add(end-cs.first, a.cap)
-	a.occAdd(cs.first, true)
-	a.occAdd(end, false)
-}
-
 func (a *Accumulator) occAdd(t int64, arrival bool) {
 	b := floorDiv(t, a.res)
 	o := a.occ[b]
@@ -438,36 +392,36 @@ func (a *Accumulator) occAdd(t int64, arrival bool) {
 	}
 }
 
-func (a *Accumulator) maybeSweep(now int64) {
-	a.sinceSweep++
-	if a.sinceSweep < sweepEvery {
-		return
-	}
-	a.sinceSweep = 0
-	for k, cs := range a.open {
-		if now-cs.last > a.horizon {
-			a.close(&cs, cs.last)
-			delete(a.open, k)
-		}
-	}
+// finish ends the current file's stream state and records the local
+// days of the stretch of events observed since the last one ended.
+func (a *Accumulator) finish() {
+	a.lastRes = ""
+	a.endStretch()
 }
 
-// finish closes every open case at its last event and records the local
-// days spanned by the events observed since the last finish.
-func (a *Accumulator) finish() {
-	for _, cs := range a.open {
-		a.close(&cs, cs.last)
+// observationGap is ObservationGap in µs.
+const observationGap = int64(ObservationGap / time.Microsecond)
+
+// endStretch records the local days of the current stretch of events as
+// observed.
+func (a *Accumulator) endStretch() {
+	if !a.segHas {
+		return
 	}
-	clear(a.open)
-	a.lastRes = ""
-	if a.segHas {
-		_, d0 := a.local(a.segFirst)
-		_, d1 := a.local(a.segLast)
-		for d := d0; d <= d1; d++ {
-			a.days[d] = struct{}{}
-		}
-		a.segHas = false
-	}
+	_, d0 := a.local(a.segFirst)
+	_, d1 := a.local(a.segLast)
+	a.days.add(dayRange{d0, d1})
+	a.segHas = false
+}
+
+// observedDays returns the local days observed (see ObservationGap) and
+// how many of them fall on each weekday (0 = Monday). A day without events
+// inside a stretch counts, with no arrivals. The days depend only on the
+// days with events, not on how the events were cut into files, and state
+// grows with the stretches, not with the span.
+func (a *Accumulator) observedDays() (n int, wdays [7]int) {
+	a.endStretch()
+	return a.days.days(), a.days.weekdays()
 }
 
 // local returns the hour of the week (0 = Monday 00:00-01:00 local) and
@@ -497,4 +451,24 @@ func floorDiv(a, b int64) int64 {
 		q--
 	}
 	return q
+}
+
+// ObserveAll runs both parts over events held in memory, in any order:
+// Observe for each, then the per-case computation in case order. It suits
+// small inputs and tests; catalog streams the per-case pass through a
+// sort on disk instead.
+func (a *Accumulator) ObserveAll(evs []schema.Event) {
+	for i := range evs {
+		a.Observe(&evs[i])
+	}
+	idx := make([]int, len(evs))
+	for i := range idx {
+		idx[i] = i
+	}
+	slices.SortStableFunc(idx, func(i, j int) int { return cases.Less(&evs[i], &evs[j]) })
+	b := cases.NewBuilder(a)
+	for _, i := range idx {
+		b.Add(&evs[i])
+	}
+	b.Flush()
 }

@@ -38,9 +38,7 @@ func BenchmarkObserve(b *testing.B) {
 	b.ResetTimer()
 	for b.Loop() {
 		a := New(Options{})
-		for i := range evs {
-			a.Observe(&evs[i])
-		}
+		a.ObserveAll(evs)
 		a.finish()
 	}
 	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/float64(len(evs)), "ns/event")
@@ -52,9 +50,7 @@ func mergedState(b *testing.B) *Accumulator {
 	for d := range 7 {
 		a := New(Options{})
 		evs := streamEvents(b, uint64(d+1), 50_000)
-		for i := range evs {
-			a.Observe(&evs[i])
-		}
+		a.ObserveAll(evs)
 		if err := m.Merge(a); err != nil {
 			b.Fatal(err)
 		}

@@ -63,7 +63,17 @@ type dist struct {
 	exact      map[int64]uint64 // positive values; nil once collapsed
 	sk         []uint64         // collapsed: bucket skLo+i holds sk[i]
 	skLo       int32
+	// lq and lq2 are the sums of q = round(ln(v µs) · 2^42) and of q²
+	// over the positive values: exact integers, so they merge bit for bit,
+	// and the lognormal MLE needs nothing else (each logarithm is kept to
+	// 2^-43, about 1e-13).
+	lq, lq2 u128
 }
+
+// lnScale is the fixed-point scale of the logarithms summed by dist.
+const lnScale = 1 << 42
+
+func lnQ(v int64) uint64 { return uint64(math.Round(math.Log(float64(v)) * lnScale)) }
 
 func newDist() *dist { return &dist{exact: map[int64]uint64{}} }
 
@@ -86,6 +96,9 @@ func (d *dist) add(v int64, cap int) {
 		d.zero++
 		return
 	}
+	q := lnQ(v)
+	d.lq.add(q)
+	d.lq2.addSq(q)
 	if d.exact != nil {
 		d.exact[v]++
 		if len(d.exact) > cap {
@@ -137,6 +150,8 @@ func (d *dist) merge(o *dist, cap int) {
 	d.zero += o.zero
 	d.sum.merge(o.sum)
 	d.sumsq.merge(o.sumsq)
+	d.lq.merge(o.lq)
+	d.lq2.merge(o.lq2)
 	if d.exact != nil && o.exact != nil {
 		for v, c := range o.exact {
 			d.exact[v] += c

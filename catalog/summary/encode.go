@@ -9,8 +9,15 @@ import (
 )
 
 // stateMagic starts every serialized state; the last byte is the format
-// version.
-const stateMagic = "FCSUM\x01"
+// version. Format 2 keeps the observed days as ranges (see
+// ObservationGap); a format 2 state from before the ranges holds none, and
+// reads as one range from its first to its last event.
+const stateMagic = "FCSUM\x02"
+
+// oldStateMagic starts states written before cases were whole (their case
+// figures were cut per file); UnmarshalBinary refuses them with
+// ErrOldState, and the caller recomputes the state from the file.
+const oldStateMagic = "FCSUM\x01"
 
 type enc struct{ b []byte }
 
@@ -50,6 +57,8 @@ func (e *enc) dist(d *dist) {
 	e.u128(d.sumsq)
 	e.iv(d.min)
 	e.iv(d.max)
+	e.u128(d.lq)
+	e.u128(d.lq2)
 	if d.exact != nil {
 		e.uv(0)
 		vs := slices.Sorted(maps.Keys(d.exact))
@@ -81,7 +90,6 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 	for _, t := range a.thr {
 		e.iv(t)
 	}
-	e.iv(a.horizon)
 	e.iv(a.res)
 	e.uv(uint64(a.cap))
 
@@ -102,6 +110,14 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 	e.distinct(a.cases)
 	e.distinct(a.subjects)
 	e.distinct(a.resources)
+	if a.counted != nil {
+		e.uv(1)
+		e.uv(a.counted.Cases)
+		e.uv(a.counted.Subjects)
+		e.uv(a.counted.Resources)
+	} else {
+		e.uv(0)
+	}
 
 	e.uv(uint64(len(a.sites.list)))
 	for _, g := range a.sites.list {
@@ -140,14 +156,16 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 		e.uv(a.arrDay[d])
 		prev = d
 	}
-	obs := slices.Sorted(maps.Keys(a.days))
-	e.uv(uint64(len(obs)))
+	e.uv(uint64(len(a.days)))
 	prev = 0
-	for _, d := range obs {
-		e.iv(int64(d - prev))
-		prev = d
+	for _, r := range a.days {
+		e.iv(int64(r.first - prev))
+		e.uv(uint64(r.last - r.first))
+		prev = r.last
 	}
 	e.dist(a.los)
+	e.dist(a.evCase)
+	e.dist(a.between)
 	keys := slices.Sorted(maps.Keys(a.occ))
 	e.uv(uint64(len(keys)))
 	var pk int64
@@ -249,6 +267,7 @@ func (d *dec) distinct() *distinct {
 
 func (d *dec) dist() *dist {
 	x := &dist{n: d.uv(), zero: d.uv(), sum: d.u128(), sumsq: d.u128(), min: d.iv(), max: d.iv()}
+	x.lq, x.lq2 = d.u128(), d.u128()
 	switch d.uv() {
 	case 0:
 		n := d.count(2)
@@ -276,6 +295,9 @@ func (d *dec) dist() *dist {
 // [Accumulator.MarshalBinary]. It fails with ErrCorrupt on malformed bytes
 // and with an error from time.LoadLocation on an unknown zone.
 func (a *Accumulator) UnmarshalBinary(b []byte) error {
+	if len(b) >= len(oldStateMagic) && string(b[:len(oldStateMagic)]) == oldStateMagic {
+		return fmt.Errorf("summary: %w", ErrOldState)
+	}
 	if len(b) < len(stateMagic) || string(b[:len(stateMagic)]) != stateMagic {
 		return fmt.Errorf("summary: %w", ErrCorrupt)
 	}
@@ -290,7 +312,6 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 	for range d.count(1) {
 		opt.WaitThresholds = append(opt.WaitThresholds, time.Duration(d.iv())*time.Microsecond)
 	}
-	opt.CaseHorizon = time.Duration(d.iv()) * time.Microsecond
 	opt.Resolution = time.Duration(d.iv()) * time.Microsecond
 	opt.ExactValues = int(d.uv())
 	if d.err != nil {
@@ -306,6 +327,9 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 	x.minAt, x.maxAt, x.prevAt = d.iv(), d.iv(), d.iv()
 	x.outOfOrder = d.uv()
 	x.cases, x.subjects, x.resources = d.distinct(), d.distinct(), d.distinct()
+	if d.uv() == 1 {
+		x.counted = &Counts{Cases: d.uv(), Subjects: d.uv(), Resources: d.uv()}
+	}
 	for range d.count(170) {
 		g := x.sites.list[x.sites.get(d.str())]
 		g.events = d.uv()
@@ -335,11 +359,18 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		x.arrDay[day] = d.uv()
 	}
 	day = 0
-	for range d.count(1) {
-		day += int32(d.iv())
-		x.days[day] = struct{}{}
+	for range d.count(2) {
+		first := day + int32(d.iv())
+		day = first + int32(d.uv())
+		if day < first || len(x.days) > 0 && first <= x.days[len(x.days)-1].last+observedJoinDays {
+			d.err = ErrCorrupt
+			break
+		}
+		x.days = append(x.days, dayRange{first, day})
 	}
 	x.los = d.dist()
+	x.evCase = d.dist()
+	x.between = d.dist()
 	var k int64
 	for range d.count(5) {
 		k += d.iv()
@@ -347,6 +378,12 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 	}
 	if d.err != nil || len(d.b) != 0 {
 		return fmt.Errorf("summary: %w", ErrCorrupt)
+	}
+	if len(x.days) == 0 && x.hasTime {
+		// Written before the days were kept: its first to last day.
+		_, d0 := x.local(x.minAt)
+		_, d1 := x.local(x.maxAt)
+		x.days.add(dayRange{d0, d1})
 	}
 	*a = *x
 	return nil

@@ -10,17 +10,18 @@ import (
 var (
 	ErrIncompatible = errors.New("accumulators have different options") // Merge of accumulators with other options
 	ErrCorrupt      = errors.New("malformed summary state")             // UnmarshalBinary of bad bytes
+	ErrOldState     = errors.New("summary state of an earlier format")  // UnmarshalBinary of a state to recompute
 )
 
 func (a *Accumulator) compatible(o *Accumulator) bool {
 	return a.loc.String() == o.loc.String() && slices.Equal(a.thr, o.thr) &&
-		a.horizon == o.horizon && a.res == o.res && a.cap == o.cap
+		a.res == o.res && a.cap == o.cap
 }
 
 // Merge adds the state of o to a, as if a had observed o's events too, and
-// fails with ErrIncompatible if their options differ. Both accumulators'
-// open cases are closed first (see [Accumulator]); o is not changed
-// otherwise and may be used again.
+// fails with ErrIncompatible if their options differ. o is not changed
+// and may be used again. Exact counts set by SetCounts do not merge: the
+// caller sets them again for the merged whole.
 func (a *Accumulator) Merge(o *Accumulator) error {
 	if !a.compatible(o) {
 		return fmt.Errorf("summary: merge: %w", ErrIncompatible)
@@ -43,6 +44,7 @@ func (a *Accumulator) Merge(o *Accumulator) error {
 		a.hasTime = true
 		a.prevAt = max(a.prevAt, o.prevAt)
 	}
+	a.counted = nil
 	a.cases.merge(o.cases)
 	a.subjects.merge(o.subjects)
 	a.resources.merge(o.resources)
@@ -75,10 +77,12 @@ func (a *Accumulator) Merge(o *Accumulator) error {
 	for d, c := range o.arrDay {
 		a.arrDay[d] += c
 	}
-	for d := range o.days {
-		a.days[d] = struct{}{}
+	for _, r := range o.days {
+		a.days.add(r)
 	}
 	a.los.merge(o.los, a.cap)
+	a.evCase.merge(o.evCase, a.cap)
+	a.between.merge(o.between, a.cap)
 	for k, b := range o.occ {
 		x := a.occ[k]
 		if x == nil {

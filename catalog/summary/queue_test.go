@@ -72,6 +72,7 @@ func observeCustomers(a *Accumulator, base time.Time, prefix string, cs []custom
 	})
 	kinds := [4]schema.EventType{schema.Arrival, schema.Start, schema.Complete, schema.Departure}
 	var e schema.Event
+	out := make([]schema.Event, 0, len(evs))
 	for _, x := range evs {
 		e = schema.Event{Site: "sim", CaseID: prefix + strconv.Itoa(int(x.i)), Type: kinds[x.kind],
 			OccurredAt: base.Add(time.Duration(x.at) * time.Microsecond)}
@@ -81,8 +82,9 @@ func observeCustomers(a *Accumulator, base time.Time, prefix string, cs []custom
 		if x.kind == 1 || x.kind == 2 {
 			e.Activity = "service"
 		}
-		a.Observe(&e)
+		out = append(out, e)
 	}
+	a.ObserveAll(out)
 }
 
 // batchMean returns the mean of xs and the standard error of that mean by

@@ -161,9 +161,7 @@ func TestKaplanMeierThroughAccumulator(t *testing.T) {
 		}
 		slices.SortStableFunc(evs, func(a, b schema.Event) int { return a.OccurredAt.Compare(b.OccurredAt) })
 		a := New(Options{})
-		for i := range evs {
-			a.Observe(&evs[i])
-		}
+		a.ObserveAll(evs)
 		s := a.Summary()
 		if len(s.Queues) != 1 || s.Queues[0].Patience == nil {
 			t.Fatalf("%s: queues %+v", c.name, s.Queues)
@@ -278,5 +276,29 @@ func TestNumJSON(t *testing.T) {
 	var back []Num
 	if err := json.Unmarshal(b, &back); err != nil || back[0] != 1.5 || !math.IsNaN(float64(back[1])) {
 		t.Fatalf("%v %v", back, err)
+	}
+}
+
+// TestLognormalExactBeyondSketch: the lognormal fit of more distinct
+// values than ExactValues (the distribution has collapsed to its sketch)
+// is still the maximum-likelihood fit of the values themselves.
+func TestLognormalExactBeyondSketch(t *testing.T) {
+	d := newDist()
+	var xs []float64
+	for i := range 20000 {
+		us := int64(1e6 + (i*7919)%20000*1013 + i) // distinct, 1 s to about 21 s
+		d.add(us, DefaultExactValues)
+		xs = append(xs, float64(us)/usPerSec)
+	}
+	if d.exact != nil {
+		t.Fatal("the distribution did not collapse")
+	}
+	mu, sd, err := LognormalFit(xs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := lognormalOf(d)
+	if got.N != 20000 || math.Abs(got.MeanLog-mu) > 1e-11 || math.Abs(got.SDLog-sd) > 1e-11 {
+		t.Errorf("fit %+v, want meanlog %.15f sdlog %.15f (MLE of the values)", got, mu, sd)
 	}
 }

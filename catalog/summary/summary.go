@@ -3,6 +3,7 @@ package summary
 import (
 	"maps"
 	"math"
+	"math/big"
 	"slices"
 	"time"
 
@@ -10,7 +11,7 @@ import (
 )
 
 // FormatVersion is the version of the Summary JSON layout.
-const FormatVersion = "1"
+const FormatVersion = "2"
 
 // Summary is the operational summary of the events an accumulator has
 // seen. SUMMARY.md documents every field; durations are in seconds, rates
@@ -34,7 +35,30 @@ type Summary struct {
 	Queues         []QueueSummary    `json:"queues"`
 	Activities     []ActivitySummary `json:"activities"`
 	LengthOfStay   LengthOfStay      `json:"length_of_stay"`
+	EventsPerCase  Spread            `json:"events_per_case"`
+	BetweenEvents  Durations         `json:"between_events"` // time between consecutive events of a case
 	Occupancy      Occupancy         `json:"occupancy"`
+	// NotMeasurable names the figures the log's events cannot measure,
+	// with why (a log of completions alone has no waits or services);
+	// those figures are then absent or empty, never zeros to be read as
+	// measured.
+	NotMeasurable []NotMeasurable `json:"not_measurable"`
+}
+
+// Spread is a distribution of counts.
+type Spread struct {
+	N    uint64  `json:"n"`
+	Mean float64 `json:"mean"`
+	Min  float64 `json:"min"`
+	Max  float64 `json:"max"`
+	P50  float64 `json:"p50"` // Hyndman-Fan type 7
+	P90  float64 `json:"p90"`
+}
+
+// NotMeasurable is a figure the events cannot measure, and why.
+type NotMeasurable struct {
+	Figure string `json:"figure"`
+	Why    string `json:"why"`
 }
 
 // Count is a distinct count: exact, or a HyperLogLog estimate with the
@@ -127,7 +151,9 @@ type QueueSummary struct {
 }
 
 // Lognormal is the maximum-likelihood lognormal fit of the positive
-// durations, with the Kolmogorov-Smirnov distance of the fit.
+// durations (exact: from running moments of their logarithms), with the
+// Kolmogorov-Smirnov distance of the fit (from the exact values up to
+// ExactValues distinct ones, then from the sketch).
 type Lognormal struct {
 	N       uint64  `json:"n"`
 	MeanLog float64 `json:"meanlog"`
@@ -158,13 +184,20 @@ type LengthOfStay struct {
 
 // Occupancy is the number of cases in system over time.
 type Occupancy struct {
-	Resolution float64    `json:"resolution"` // seconds per bucket
-	Start      *time.Time `json:"start,omitempty"`
-	Series     []float64  `json:"series"`       // time-average number in system per bucket
-	HourOfWeek []float64  `json:"hour_of_week"` // mean of Series by the hour of week of the bucket start
-	Peak       float64    `json:"peak"`         // largest bucket average
-	PeakAt     *time.Time `json:"peak_at,omitempty"`
-	Little     Little     `json:"little"`
+	Resolution float64 `json:"resolution"` // seconds per bucket
+	// Runs hold the series over each observed stretch (see
+	// ObservationGap); the silences between are left out.
+	Runs       []OccupancyRun `json:"runs"`
+	HourOfWeek []float64      `json:"hour_of_week"` // mean of the series by the hour of week of the bucket start
+	Peak       float64        `json:"peak"`         // largest bucket average
+	PeakAt     *time.Time     `json:"peak_at,omitempty"`
+	Little     Little         `json:"little"`
+}
+
+// OccupancyRun is the occupancy series over one observed stretch.
+type OccupancyRun struct {
+	Start  time.Time `json:"start"`
+	Series []float64 `json:"series"` // time-average number in system per bucket
 }
 
 // Little checks L = λW over [From, To].
@@ -195,10 +228,11 @@ func (a *Accumulator) Summary() *Summary { return a.SummaryFor(Selection{}) }
 // SummaryFor is [Accumulator.Summary] with the groups restricted to sel.
 func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 	a.finish()
+	days, wdays := a.observedDays()
 	s := &Summary{
 		FormatVersion: FormatVersion,
 		Timezone:      a.loc.String(),
-		DaysObserved:  len(a.days),
+		DaysObserved:  days,
 		Events:        a.events,
 		EventTypes:    map[string]uint64{},
 		OtherTypes:    a.otherTypes,
@@ -206,6 +240,11 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		Cases:         countOf(a.cases),
 		Subjects:      countOf(a.subjects),
 		Resources:     countOf(a.resources),
+	}
+	if c := a.counted; c != nil {
+		s.Cases = Count{Value: float64(c.Cases), Exact: true}
+		s.Subjects = Count{Value: float64(c.Subjects), Exact: true}
+		s.Resources = Count{Value: float64(c.Resources), Exact: true}
 	}
 	for i, t := range schema.EventTypes {
 		s.EventTypes[string(t)] = a.types[i]
@@ -217,24 +256,20 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		f, t := time.UnixMicro(a.minAt).In(a.loc), time.UnixMicro(a.maxAt).In(a.loc)
 		s.From, s.To = &f, &t
 	}
-	var wdays [7]int
-	for d := range a.days {
-		wdays[((d+3)%7+7)%7]++
-	}
 	ci := poissonCache{}
-	s.Arrivals.Profile = ci.profile(&a.arrWeek, &wdays, len(a.days))
+	s.Arrivals.Profile = ci.profile(&a.arrWeek, &wdays, days)
 	for _, d := range slices.Sorted(maps.Keys(a.arrDay)) {
 		s.Arrivals.PerDay = append(s.Arrivals.PerDay, DayCount{
 			Date: time.Unix(int64(d)*86400, 0).UTC().Format("2006-01-02"), Count: a.arrDay[d]})
 	}
 	for _, g := range sortedGroups(a.sites.list, func(g *siteGroup) string { return g.name }) {
 		if keep(sel.Sites, g.name) {
-			s.Sites = append(s.Sites, SiteSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, &wdays, len(a.days))})
+			s.Sites = append(s.Sites, SiteSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, &wdays, days)})
 		}
 	}
 	for _, g := range sortedGroups(a.queues.list, func(g *queueGroup) string { return g.name }) {
 		if keep(sel.Queues, g.name) {
-			s.Queues = append(s.Queues, a.queueSummary(g, &ci, &wdays))
+			s.Queues = append(s.Queues, a.queueSummary(g, &ci, &wdays, days))
 		}
 	}
 	for _, g := range sortedGroups(a.acts.list, func(g *activityGroup) string { return g.name }) {
@@ -247,6 +282,27 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		s.Activities = append(s.Activities, as)
 	}
 	s.LengthOfStay = LengthOfStay{Durations: durationsOf(a.los), Histogram: logHistogram(a.los)}
+	if ev := durationsOf(a.evCase); ev.N > 0 {
+		// evCase holds counts where durationsOf expects µs.
+		s.EventsPerCase = Spread{N: ev.N, Mean: ev.Mean * usPerSec, Min: ev.Min * usPerSec, Max: ev.Max * usPerSec, P50: ev.P50 * usPerSec, P90: ev.P90 * usPerSec}
+	}
+	s.BetweenEvents = durationsOf(a.between)
+	s.NotMeasurable = []NotMeasurable{}
+	var waits, services uint64
+	for _, g := range a.queues.list {
+		waits += g.served.n + g.abandoned.n + g.negative
+	}
+	for _, g := range a.acts.list {
+		services += g.svc.n + g.negative
+	}
+	if a.events > 0 && waits == 0 {
+		s.NotMeasurable = append(s.NotMeasurable, NotMeasurable{Figure: "waits",
+			Why: "no arrival, enqueue or transfer is followed by a start or an abandon in the same case"})
+	}
+	if a.events > 0 && services == 0 {
+		s.NotMeasurable = append(s.NotMeasurable, NotMeasurable{Figure: "services",
+			Why: "no start is followed by a complete of the same activity in the same case"})
+	}
 	s.Occupancy = a.occupancy()
 	return s
 }
@@ -307,8 +363,8 @@ func (p poissonCache) profile(w *[168]uint64, wdays *[7]int, days int) Profile {
 	return pr
 }
 
-func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, wdays *[7]int) QueueSummary {
-	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, wdays, len(a.days))}
+func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, wdays *[7]int, days int) QueueSummary {
+	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, wdays, days)}
 	q.Wait.Durations = durationsOf(g.served)
 	q.Wait.Negative = g.negative
 	n := g.served.n
@@ -411,30 +467,31 @@ func durationsOf(d *dist) Durations {
 }
 
 func lognormalOf(d *dist) *Lognormal {
-	pts := d.points()
-	if len(pts) > 0 && pts[0].v == 0 {
-		pts = pts[1:]
-	}
 	n := d.n - d.zero
 	if n == 0 {
 		return nil
 	}
-	var s float64
-	for _, p := range pts {
-		s += float64(p.c) * math.Log(p.v)
-	}
-	mu := s / float64(n)
-	var q float64
-	for _, p := range pts {
-		x := math.Log(p.v) - mu
-		q += float64(p.c) * x * x
-	}
-	sd := math.Sqrt(q / float64(n))
+	// The MLE from the exact sums of the (fixed-point) logarithms: meanlog
+	// = Σq/n, sdlog² = (Σq² − (Σq)²/n)/n, in microseconds, then moved to
+	// seconds (− ln 10⁶), whatever the size of the sample.
+	nb := new(big.Int).SetUint64(n)
+	sq := d.lq.big()
+	num := new(big.Int).Mul(d.lq2.big(), nb) // n·Σq² − (Σq)²
+	num.Sub(num, new(big.Int).Mul(sq, sq))
+	v, _ := new(big.Float).Quo(new(big.Float).SetInt(num), new(big.Float).SetInt(new(big.Int).Mul(nb, nb))).Float64()
+	m, _ := new(big.Float).Quo(new(big.Float).SetInt(sq), new(big.Float).SetInt(nb)).Float64()
+	mu := m/lnScale - math.Log(usPerSec)
+	sd := math.Sqrt(max(v, 0)) / lnScale
 	ln := &Lognormal{N: n, MeanLog: mu, SDLog: sd}
 	if sd > 0 {
+		// The KS distance is taken against the distribution's points:
+		// exact values up to ExactValues distinct ones, then the sketch's
+		// buckets (relative error 0.5%).
+		pts := d.points()
+		if len(pts) > 0 && pts[0].v == 0 {
+			pts = pts[1:]
+		}
 		ln.KS = ksCounts(pts, n, func(x float64) float64 { return LognormalCDF(x, mu, sd) })
-	} else {
-		ln.KS = 0
 	}
 	return ln
 }
@@ -472,39 +529,68 @@ func logHistogram(d *dist) Histogram {
 }
 
 func (a *Accumulator) occupancy() Occupancy {
-	o := Occupancy{Resolution: float64(a.res) / usPerSec, HourOfWeek: make([]float64, 168)}
+	o := Occupancy{Resolution: float64(a.res) / usPerSec, HourOfWeek: make([]float64, 168), Runs: []OccupancyRun{}}
 	if len(a.occ) == 0 {
 		return o
 	}
 	keys := slices.Sorted(maps.Keys(a.occ))
 	first, last := keys[0], keys[len(keys)-1]
-	st := time.UnixMicro(first * a.res).In(a.loc)
-	o.Start = &st
 	var n int64    // number in system at the bucket start
 	var area int64 // µs·cases
 	var sums [168]float64
 	var cnt [168]int
 	w := float64(a.res)
-	for b := first; b <= last; b++ {
-		x := a.occ[b]
+	cur, k := first, 0 // next bucket not yet in area; next key
+	// step adds bucket b (== cur) to the area and returns its mean.
+	step := func(b int64) float64 {
 		ar := float64(n) * w
-		if x != nil {
+		if k < len(keys) && keys[k] == b {
+			x := a.occ[b]
 			ar += float64(x.arrRest - x.depRest)
 			area += n*a.res + x.arrRest - x.depRest
 			n += int64(x.arr) - int64(x.dep)
+			k++
 		} else {
 			area += n * a.res
 		}
-		m := ar / w
-		o.Series = append(o.Series, m)
-		how, _ := a.local(b * a.res)
-		sums[how] += m
-		cnt[how]++
-		if m > o.Peak || o.PeakAt == nil {
-			t := time.UnixMicro(b * a.res).In(a.loc)
-			o.Peak, o.PeakAt = m, &t
+		cur = b + 1
+		return ar / w
+	}
+	// skip adds the buckets before b without a series: a silence, where
+	// only keys (none, as keys lie in observed days) change n.
+	skip := func(b int64) {
+		for k < len(keys) && keys[k] < b {
+			area += n * (keys[k] - cur) * a.res
+			cur = keys[k]
+			step(cur)
+		}
+		if b > cur {
+			area += n * (b - cur) * a.res
+			cur = b
 		}
 	}
+	for _, r := range a.days {
+		b0 := max(floorDiv(a.dayStart(r.first), a.res), cur, first)
+		b1 := min(floorDiv(a.dayStart(r.last+1)-1, a.res), last)
+		if b0 > b1 {
+			continue
+		}
+		skip(b0)
+		run := OccupancyRun{Start: time.UnixMicro(b0 * a.res).In(a.loc)}
+		for b := b0; b <= b1; b++ {
+			m := step(b)
+			run.Series = append(run.Series, m)
+			how, _ := a.local(b * a.res)
+			sums[how] += m
+			cnt[how]++
+			if m > o.Peak || o.PeakAt == nil {
+				t := time.UnixMicro(b * a.res).In(a.loc)
+				o.Peak, o.PeakAt = m, &t
+			}
+		}
+		o.Runs = append(o.Runs, run)
+	}
+	skip(last + 1)
 	for h := range sums {
 		if cnt[h] > 0 {
 			o.HourOfWeek[h] = sums[h] / float64(cnt[h])
@@ -523,4 +609,9 @@ func (a *Accumulator) occupancy() Occupancy {
 	}
 	o.Little = l
 	return o
+}
+
+// dayStart is the instant (µs) local day d begins.
+func (a *Accumulator) dayStart(d int32) int64 {
+	return time.Date(1970, 1, 1+int(d), 0, 0, 0, 0, a.loc).UnixMicro()
 }

@@ -39,13 +39,11 @@ func TestLittleFixture(t *testing.T) {
 		ev(schema.Departure, "A", "02:00:00"), ev(schema.Departure, "C", "03:00:00"),
 	}
 	a := New(Options{})
-	for i := range evs {
-		a.Observe(&evs[i])
-	}
+	a.ObserveAll(evs)
 	s := a.Summary()
 	o := s.Occupancy
-	if !slices.Equal(o.Series, []float64{1.5, 2.5, 1.0, 0}) {
-		t.Errorf("series %v", o.Series)
+	if len(o.Runs) != 1 || !slices.Equal(o.Runs[0].Series, []float64{1.5, 2.5, 1.0, 0}) {
+		t.Errorf("runs %+v", o.Runs)
 	}
 	if o.Peak != 2.5 || o.PeakAt.Hour() != 1 {
 		t.Errorf("peak %v at %v", o.Peak, o.PeakAt)
@@ -284,11 +282,9 @@ func TestSepsis(t *testing.T) {
 		evs = append(evs, e)
 	}
 	slices.SortStableFunc(evs, func(a, b schema.Event) int { return a.OccurredAt.Compare(b.OccurredAt) })
-	// Stays reach a year with gaps of months: a horizon beyond the log's span.
-	acc := New(Options{Location: ams, CaseHorizon: 3 * 365 * 24 * time.Hour})
-	for i := range evs {
-		acc.Observe(&evs[i])
-	}
+	// Stays reach a year with gaps of months: each case is one stay whatever its idle times.
+	acc := New(Options{Location: ams})
+	acc.ObserveAll(evs)
 	s := acc.Summary()
 	l := s.LengthOfStay
 	if l.N != uint64(len(spans)) || !l.Exact {
@@ -331,7 +327,7 @@ func TestSelectionAndText(t *testing.T) {
 	base := time.Date(2026, 1, 5, 0, 0, 0, 0, time.UTC)
 	observeCustomers(acc, base, "c", simulateMMc(5, 2000, 2, 1.6*mu, mu))
 	e := schema.Event{Site: "other", CaseID: "x", Type: schema.Enqueue, Queue: "q2", Activity: "a2", OccurredAt: base.Add(time.Hour)}
-	acc.Observe(&e)
+	acc.ObserveAll([]schema.Event{e})
 	s := acc.SummaryFor(Selection{Queues: []string{"q2"}, Sites: []string{"sim"}, Activities: []string{"none"}})
 	if len(s.Queues) != 1 || s.Queues[0].Name != "q2" || len(s.Sites) != 1 || s.Sites[0].Name != "sim" || len(s.Activities) != 0 {
 		t.Errorf("selection: %d queues, %d sites, %d activities", len(s.Queues), len(s.Sites), len(s.Activities))

@@ -98,9 +98,18 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 			p("%s\t%d\t%s\t%s\t%s\t%s\n", a.Name, a.Service.N, dur(a.Service.Mean), dur(a.Service.P50), dur(a.Service.P90), ln)
 		}
 	}
+	for _, nm := range s.NotMeasurable {
+		p("\n%s\tnot measurable: %s\n", bold(strings.ToUpper(nm.Figure[:1])+nm.Figure[1:]), nm.Why)
+	}
 	l := s.LengthOfStay
-	p("\n%s\n", bold("Length of stay"))
+	p("\n%s\n", bold("Case duration (first to last event)"))
 	p("n %d\tmean %s\tp50 %s\tp90 %s\tp99 %s\n", l.N, dur(l.Mean), dur(l.P50), dur(l.P90), dur(l.P99))
+	if ev := s.EventsPerCase; ev.N > 0 {
+		p("events per case\tmean %.2f\tmin %.0f\tp50 %.0f\tp90 %.0f\tmax %.0f\n", ev.Mean, ev.Min, ev.P50, ev.P90, ev.Max)
+	}
+	if b := s.BetweenEvents; b.N > 0 {
+		p("between events\tmean %s\tp50 %s\tp90 %s\n", dur(b.Mean), dur(b.P50), dur(b.P90))
+	}
 	o := s.Occupancy
 	p("\n%s\n", bold("In system"))
 	p("by hour of week\t%s\n", sparkline(o.HourOfWeek))

@@ -107,6 +107,7 @@ type stream struct {
 	nextSubj int64
 	day      int64 // day number of dayStr
 	dayStr   []byte
+	gapMs    float64 // mean time between case arrivals
 }
 
 // NewStream returns a reader of n events as CSV in the schema's own field
@@ -118,13 +119,23 @@ type stream struct {
 // holds a small buffer and the few hundred cases open at once, whatever n
 // is, and its bytes are a pure function of seed and n. The last cases may
 // be cut short: the stream ends after exactly n rows.
-func NewStream(seed uint64, n int64) io.Reader {
+func NewStream(seed uint64, n int64) io.Reader { return NewStreamRate(seed, n, 0) }
+
+// NewStreamRate is NewStream with cases arriving at perHour cases an hour
+// on average (0 means the default, 300 an hour); the cases open at once
+// grow with the rate, by Little's law.
+func NewStreamRate(seed uint64, n int64, perHour float64) io.Reader {
+	gap := float64(streamGapMs)
+	if perHour > 0 {
+		gap = 3_600_000 / perHour
+	}
 	return &stream{
-		rng:  rand.New(rand.NewPCG(seed, 0x5eed_57e3)),
-		n:    n,
-		buf:  make([]byte, 0, streamChunk+1024),
-		day:  -1,
-		heap: make([]pend, 0, 4096),
+		rng:   rand.New(rand.NewPCG(seed, 0x5eed_57e3)),
+		n:     n,
+		buf:   make([]byte, 0, streamChunk+1024),
+		day:   -1,
+		heap:  make([]pend, 0, 4096),
+		gapMs: gap,
 	}
 }
 
@@ -188,7 +199,7 @@ func (s *stream) serviceMs() int64 {
 func (s *stream) newCase() {
 	r := s.rng
 	a := s.clock
-	s.clock += s.expMs(streamGapMs) + 1
+	s.clock += s.expMs(s.gapMs) + 1
 
 	c := s.nextCase
 	s.nextCase++

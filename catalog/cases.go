@@ -1,0 +1,322 @@
+package catalog
+
+import (
+	"bufio"
+	"container/heap"
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"slices"
+	"strings"
+
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
+)
+
+// CasePass runs the one per-case computation (cases.Builder) over events
+// given in any order: it sorts them by case on disk (runs of at most
+// RunEvents events, so memory does not grow with the file or the
+// version), then feeds them to the builder case by case. It also counts
+// the distinct cases, subjects and resources exactly, on disk too.
+type CasePass struct {
+	srt       *sorter
+	subjects  *distinctCounter
+	resources *distinctCounter
+	events    int64
+}
+
+// NewCasePass returns a pass whose sort runs and counts spill to dir, in
+// runs of at most runEvents events.
+func NewCasePass(dir string, runEvents int) *CasePass {
+	if runEvents <= 0 {
+		runEvents = 1 << 16
+	}
+	return &CasePass{
+		srt:       newCaseSorter(dir, runEvents),
+		subjects:  newDistinctCounter(dir, distinctMemory),
+		resources: newDistinctCounter(dir, distinctMemory),
+	}
+}
+
+// Add takes one event; its Line may carry quality flags (quality.PackLine).
+// The fields no per-case figure uses (priority, channel, outcome, event_id)
+// are not kept: the sort by case carries less.
+func (p *CasePass) Add(e *schema.Event) error {
+	p.events++
+	c := *e
+	c.Priority, c.Channel, c.Outcome, c.EventID = "", "", "", ""
+	return p.srt.Add(&c)
+}
+
+// uploadMark, set in an event's Line, marks the events of the upload
+// being ingested among those of the rest of its version (RunSplit). Lines
+// keep their low 56 bits (quality.PackLine), so the mark never meets one.
+const uploadMark = 1 << 62
+
+// Run feeds every case to the observers and returns the exact counts.
+func (p *CasePass) Run(obs ...cases.Observer) (summary.Counts, error) {
+	return p.RunSplit(obs, nil)
+}
+
+// RunSplit feeds every case to all, and the cases made of the events
+// marked by uploadMark (those events only) to mine, in one pass.
+func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) {
+	b := cases.NewBuilder(all...)
+	var bm *cases.Builder
+	if len(mine) > 0 {
+		bm = cases.NewBuilder(mine...)
+	}
+	var lastSubj, lastRes string
+	err := p.srt.Finish(func(e *schema.Event) error {
+		// Distinct subjects and resources, counted on the way: a case
+		// names the same ones again and again, so most are skipped here.
+		if e.SubjectID != "" && e.SubjectID != lastSubj {
+			if err := p.subjects.Add(e.SubjectID); err != nil {
+				return err
+			}
+			lastSubj = e.SubjectID
+		}
+		if e.ResourceID != "" && e.ResourceID != lastRes {
+			if err := p.resources.Add(e.ResourceID); err != nil {
+				return err
+			}
+			lastRes = e.ResourceID
+		}
+		marked := e.Line&uploadMark != 0
+		e.Line &^= uploadMark
+		if marked && bm != nil {
+			bm.Add(e)
+		}
+		if len(all) > 0 {
+			b.Add(e)
+		}
+		return nil
+	})
+	if err != nil {
+		return summary.Counts{}, err
+	}
+	b.Flush()
+	if bm != nil {
+		bm.Flush()
+	}
+	subj, err := p.subjects.Count()
+	if err != nil {
+		return summary.Counts{}, err
+	}
+	res, err := p.resources.Count()
+	if err != nil {
+		return summary.Counts{}, err
+	}
+	return summary.Counts{Cases: uint64(b.Cases()), Subjects: subj, Resources: res}, nil
+}
+
+// Close removes the temporary files.
+func (p *CasePass) Close() error {
+	return errors.Join(p.srt.Close(), p.subjects.Close(), p.resources.Close())
+}
+
+// distinctMemory bounds the bytes of values a distinctCounter holds
+// before it spills a sorted run.
+const distinctMemory = 16 << 20
+
+// distinctCounter counts distinct strings exactly with bounded memory: it
+// keeps a set of up to max bytes of values, spills it as a sorted run to
+// a temporary file when full, and counts by merging the runs. Values are
+// pseudonyms, never raw identifiers.
+type distinctCounter struct {
+	dir   string
+	max   int
+	set   map[string]struct{}
+	bytes int
+	runs  []*os.File
+}
+
+func newDistinctCounter(dir string, max int) *distinctCounter {
+	return &distinctCounter{dir: dir, max: max, set: map[string]struct{}{}}
+}
+
+// Add counts v.
+func (d *distinctCounter) Add(v string) error {
+	if _, ok := d.set[v]; ok {
+		return nil
+	}
+	if d.bytes >= d.max {
+		if err := d.spill(); err != nil {
+			return err
+		}
+	}
+	d.set[strings.Clone(v)] = struct{}{}
+	d.bytes += len(v) + 32 // with the map's own cost, roughly
+	return nil
+}
+
+func (d *distinctCounter) spill() error {
+	f, err := os.CreateTemp(d.dir, "distinct-*")
+	if err != nil {
+		return fmt.Errorf("count: %w", err)
+	}
+	d.runs = append(d.runs, f)
+	w := bufio.NewWriterSize(f, runBufSize)
+	var b []byte
+	for _, v := range slices.Sorted(mapKeys(d.set)) {
+		b = binary.AppendUvarint(b[:0], uint64(len(v)))
+		b = append(b, v...)
+		if _, err := w.Write(b); err != nil {
+			return fmt.Errorf("count: %w", err)
+		}
+	}
+	if err := w.Flush(); err != nil {
+		return fmt.Errorf("count: %w", err)
+	}
+	clear(d.set)
+	d.bytes = 0
+	return nil
+}
+
+func mapKeys(m map[string]struct{}) func(func(string) bool) {
+	return func(yield func(string) bool) {
+		for k := range m {
+			if !yield(k) {
+				return
+			}
+		}
+	}
+}
+
+// Count returns the number of distinct values added.
+func (d *distinctCounter) Count() (uint64, error) {
+	if len(d.runs) == 0 {
+		return uint64(len(d.set)), nil
+	}
+	if len(d.set) > 0 {
+		if err := d.spill(); err != nil {
+			return 0, err
+		}
+	}
+	// Merge the runs (fan-in bounded like the sorter's: merge the oldest
+	// into one until few enough are left).
+	for len(d.runs) > maxFanIn {
+		f, err := os.CreateTemp(d.dir, "distinct-*")
+		if err != nil {
+			return 0, fmt.Errorf("count: %w", err)
+		}
+		w := bufio.NewWriterSize(f, runBufSize)
+		var b []byte
+		_, err = mergeStrings(d.runs[:maxFanIn], func(v string) error {
+			b = binary.AppendUvarint(b[:0], uint64(len(v)))
+			b = append(b, v...)
+			_, err := w.Write(b)
+			return err
+		})
+		if err == nil {
+			err = w.Flush()
+		}
+		if err != nil {
+			f.Close()
+			os.Remove(f.Name())
+			return 0, fmt.Errorf("count: %w", err)
+		}
+		for _, g := range d.runs[:maxFanIn] {
+			g.Close()
+			os.Remove(g.Name())
+		}
+		d.runs = append(slices.Delete(d.runs, 0, maxFanIn), f)
+	}
+	n, err := mergeStrings(d.runs, func(string) error { return nil })
+	if err != nil {
+		return 0, fmt.Errorf("count: %w", err)
+	}
+	return n, nil
+}
+
+// Close deletes the runs.
+func (d *distinctCounter) Close() error {
+	var errs []error
+	for _, f := range d.runs {
+		f.Close()
+		if err := os.Remove(f.Name()); err != nil && !errors.Is(err, os.ErrNotExist) {
+			errs = append(errs, err)
+		}
+	}
+	d.runs, d.set = nil, nil
+	return errors.Join(errs...)
+}
+
+type strRun struct {
+	r   *bufio.Reader
+	cur string
+}
+
+func (r *strRun) next() (bool, error) {
+	n, err := binary.ReadUvarint(r.r)
+	if err == io.EOF {
+		return false, nil
+	}
+	if err != nil {
+		return false, err
+	}
+	b := make([]byte, n)
+	if _, err := io.ReadFull(r.r, b); err != nil {
+		return false, err
+	}
+	r.cur = string(b)
+	return true, nil
+}
+
+type strHeap []*strRun
+
+func (h strHeap) Len() int           { return len(h) }
+func (h strHeap) Less(i, j int) bool { return h[i].cur < h[j].cur }
+func (h strHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
+func (h *strHeap) Push(x any)        { *h = append(*h, x.(*strRun)) }
+func (h *strHeap) Pop() any {
+	old := *h
+	r := old[len(old)-1]
+	*h = old[:len(old)-1]
+	return r
+}
+
+// mergeStrings merges sorted runs of distinct strings, calling fn once per
+// distinct value in order, and returns how many there were.
+func mergeStrings(runs []*os.File, fn func(string) error) (uint64, error) {
+	h := make(strHeap, 0, len(runs))
+	for _, f := range runs {
+		if _, err := f.Seek(0, io.SeekStart); err != nil {
+			return 0, err
+		}
+		r := &strRun{r: bufio.NewReaderSize(f, runBufSize)}
+		ok, err := r.next()
+		if err != nil {
+			return 0, err
+		}
+		if ok {
+			h = append(h, r)
+		}
+	}
+	heap.Init(&h)
+	var n uint64
+	var last string
+	for len(h) > 0 {
+		r := h[0]
+		if n == 0 || r.cur != last {
+			n++
+			last = r.cur
+			if err := fn(last); err != nil {
+				return 0, err
+			}
+		}
+		ok, err := r.next()
+		if err != nil {
+			return 0, err
+		}
+		if ok {
+			heap.Fix(&h, 0)
+		} else {
+			heap.Pop(&h)
+		}
+	}
+	return n, nil
+}

@@ -1,0 +1,131 @@
+package catalog
+
+import (
+	"crypto/sha256"
+	"fmt"
+	"hash"
+	"io"
+	"os"
+
+	"github.com/parquet-go/parquet-go"
+
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
+)
+
+// CaseTableEntry is a version's case table: one Parquet row per case of
+// the version (cases.Row), in case_id order, computed over every file of
+// the version.
+type CaseTableEntry struct {
+	SHA256 blob.ID `json:"sha256"`
+	Bytes  int64   `json:"bytes"`
+	Rows   int64   `json:"rows"`
+}
+
+// caseTableWriter writes the case table to a temporary file while hashing
+// it, with the snapshot writer's fixed settings. It is a cases.Observer.
+type caseTableWriter struct {
+	f     *os.File
+	h     hash.Hash
+	n     int64
+	w     *parquet.GenericWriter[cases.Row]
+	batch *batches[cases.Row] // written on another goroutine
+	rows  int64
+	err   error
+}
+
+func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTableWriter, error) {
+	f, err := os.CreateTemp(dir, "cases-*.parquet")
+	if err != nil {
+		return nil, fmt.Errorf("case table: %w", err)
+	}
+	cw := &caseTableWriter{f: f, h: sha256.New()}
+	cw.w = parquet.NewGenericWriter[cases.Row](io.MultiWriter(f, cw.h, countWriter{&cw.n}),
+		parquet.Compression(PageCodec),
+		parquet.MaxRowsPerRowGroup(rowGroupRows),
+		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
+		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
+		parquet.KeyValueMetadata("flowcat.pseudonym_key_id", keyID),
+		parquet.KeyValueMetadata("flowcat.table", "cases"),
+	)
+	// Optional columns are pointers, which keep their nulls exactly in
+	// batches (TestCaseRowNulls reads them back with Arrow).
+	cw.batch = newBatches(1024, func(rows []cases.Row) error {
+		if _, err := cw.w.Write(rows); err != nil {
+			return fmt.Errorf("case table: %w", err)
+		}
+		return nil
+	})
+	return cw, nil
+}
+
+func (cw *caseTableWriter) Event(*schema.Event)    {}
+func (cw *caseTableWriter) Wait(*cases.Wait)       {}
+func (cw *caseTableWriter) Service(*cases.Service) {}
+
+// Case writes r's row.
+func (cw *caseTableWriter) Case(r *cases.Record) {
+	row := r.Row()
+	cw.add(&row)
+}
+
+func (cw *caseTableWriter) add(row *cases.Row) {
+	if cw.err != nil {
+		return
+	}
+	cw.rows++
+	cw.err = cw.batch.add(*row)
+}
+
+// Finish completes and syncs the file and returns its entry.
+func (cw *caseTableWriter) Finish() (*CaseTableEntry, error) {
+	if err := cw.batch.close(); err != nil && cw.err == nil {
+		cw.err = err
+	}
+	if cw.err != nil {
+		return nil, cw.err
+	}
+	if err := cw.w.Close(); err != nil {
+		return nil, fmt.Errorf("case table: %w", err)
+	}
+	if err := cw.f.Sync(); err != nil {
+		return nil, fmt.Errorf("case table: %w", err)
+	}
+	if _, err := cw.f.Seek(0, io.SeekStart); err != nil {
+		return nil, fmt.Errorf("case table: %w", err)
+	}
+	return &CaseTableEntry{SHA256: blob.ID(cw.h.Sum(nil)), Bytes: cw.n, Rows: cw.rows}, nil
+}
+
+// Remove closes and deletes the temporary file.
+func (cw *caseTableWriter) Remove() {
+	cw.batch.close()
+	cw.f.Close()
+	os.Remove(cw.f.Name())
+}
+
+// ReadCaseTable calls fn for every row of a case table file, in order.
+func ReadCaseTable(r io.ReaderAt, size int64, fn func(*cases.Row) error) error {
+	f, err := parquet.OpenFile(r, size)
+	if err != nil {
+		return fmt.Errorf("case table: %w", err)
+	}
+	pr := NewRowReader(parquet.NewGenericReader[cases.Row](f))
+	defer pr.Close()
+	buf := make([]cases.Row, 256)
+	for {
+		n, err := pr.Read(buf)
+		for i := range buf[:n] {
+			if ferr := fn(&buf[i]); ferr != nil {
+				return ferr
+			}
+		}
+		if err == io.EOF {
+			return nil
+		}
+		if err != nil {
+			return fmt.Errorf("case table: %w", err)
+		}
+	}
+}

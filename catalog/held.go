@@ -1,0 +1,611 @@
+package catalog
+
+import (
+	"container/heap"
+	"context"
+	"errors"
+	"fmt"
+	"hash/maphash"
+	"io"
+	"slices"
+	"strings"
+
+	"github.com/parquet-go/parquet-go"
+
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+// Rules of an upload rejected for its changed events.
+const (
+	// RuleChangedEvent: an event whose stable event_id the latest version
+	// holds with other content, under ChangesRefuse.
+	RuleChangedEvent = "changed_event"
+	// RuleConflictingEvent: two events of one upload share a stable
+	// event_id with different content; the upload cannot say which holds.
+	RuleConflictingEvent = "conflicting_event"
+)
+
+// maxChangeSamples bounds the lines a refusal names.
+const maxChangeSamples = 10
+
+// heldFilter sees an upload's events in time order (as the sorter emits
+// them) and keeps only those the version being made must store: it drops
+// the events the latest version already holds and the copies of an event
+// seen earlier in the same upload, and finds changed events. Both sides are
+// sorted by time, so it holds only the events near the current instant:
+// those of that instant (content identity) or within DefaultIDWindow of it
+// (stable event_id), of the upload and of the held files. It reads only
+// the held files whose time range reaches the upload's events, and of
+// them only the row groups whose occurred_at statistics do.
+type heldFilter struct {
+	id     Identity
+	policy ChangePolicy
+	window int64 // microseconds either side of the current instant
+	hash   maphash.Hash
+
+	held *eventWindow // held events near the current instant
+	seen *eventWindow // the upload's events so far near it
+	src  *heldSource  // nil: nothing to compare with (first version, or not an append)
+
+	against int // the version compared with; 0 for none
+	counts  EventCounts
+	sites   map[string]*SiteEventCounts
+
+	changes   []changeSample // the first changed events, for a refusal
+	conflicts []changeSample // the first conflicting pairs within the upload
+	nConflict int64
+	// remove lists, per held file, the ids of events corrections replace.
+	remove map[blob.ID]map[idKey]struct{}
+}
+
+type idKey struct{ site, id string }
+
+type changeSample struct {
+	line, other int64 // the upload's line; for a conflict, the earlier line
+	fields      []schema.Field
+}
+
+// newHeldFilter prepares the filter of one upload whose events have
+// identity id; it compares with no held event until given a source.
+func newHeldFilter(id Identity, policy ChangePolicy) *heldFilter {
+	f := &heldFilter{
+		id:     id,
+		policy: policy,
+		held:   newEventWindow(),
+		seen:   newEventWindow(),
+		sites:  map[string]*SiteEventCounts{},
+		remove: map[blob.ID]map[idKey]struct{}{},
+	}
+	f.hash.SetSeed(maphash.MakeSeed())
+	f.counts.Identity = id
+	if id == IdentityEventID {
+		f.window = DefaultIDWindow
+	}
+	return f
+}
+
+// heldFilterFor makes the filter of an upload to ds against its latest
+// version; the caller holds the dataset's commit lock until the commit.
+func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, prof *schema.Profile, mode Mode) (*heldFilter, error) {
+	latest, err := s.Version(ctx, ds.Project, ds.Name, 0)
+	if errors.Is(err, ErrNotFound) {
+		latest = nil
+	} else if err != nil {
+		return nil, err
+	}
+	f := newHeldFilter(IdentityOf(prof), ds.changePolicy())
+	// Only appends compare with held events; every mode stores the copies
+	// within the upload once.
+	if mode == ModeAppend && latest != nil {
+		f.against = latest.Number
+		f.src = newHeldSource(s.blobs, latest.Manifest.Files)
+	}
+	return f, nil
+}
+
+// close releases the held files still open.
+func (f *heldFilter) close() {
+	if f != nil && f.src != nil {
+		f.src.close()
+		if testHookHeldStats != nil {
+			testHookHeldStats(f.src.stats)
+		}
+	}
+}
+
+// testHookHeldStats, when set by a test, receives the reading statistics
+// of each upload's comparison with held files.
+var testHookHeldStats func(heldStats)
+
+// keep wraps fn, the consumer of the upload's sorted events, so that it
+// sees only the events to store.
+func (f *heldFilter) keep(ctx context.Context, fn func(*schema.Event) error) func(*schema.Event) error {
+	return func(e *schema.Event) error {
+		store, err := f.classify(ctx, e)
+		if err != nil || !store {
+			return err
+		}
+		return fn(e)
+	}
+}
+
+// classify counts e and reports whether it is to be stored.
+func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error) {
+	at := e.OccurredAt.UnixMicro()
+	lo, hi := at-f.window, at+f.window
+	f.seen.evict(lo)
+	f.held.evict(lo)
+	if f.src != nil {
+		err := f.src.load(ctx, lo, hi, func(h *schema.Event, file int) {
+			f.held.add(&f.hash, f.id, h, file, true)
+		})
+		if err != nil {
+			return false, err
+		}
+	}
+	site := f.sites[e.Site]
+	if site == nil {
+		site = &SiteEventCounts{Site: strings.Clone(e.Site)}
+		f.sites[site.Site] = site
+	}
+	f.counts.Read++
+	site.Read++
+	h := identityHash(&f.hash, f.id, e)
+	if prev := f.seen.find(h, f.id, e); prev != nil {
+		if sameContent(&prev.e, e) {
+			f.counts.Copies++
+			site.Copies++
+			return false, nil
+		}
+		// One stable id, two contents, in one upload.
+		f.nConflict++
+		if len(f.conflicts) < maxChangeSamples {
+			f.conflicts = append(f.conflicts, changeSample{line: e.Line, other: prev.e.Line, fields: differingFields(&prev.e, e)})
+		}
+		return false, nil
+	}
+	// The sorter's strings are never reused (it copies what it decodes),
+	// so the upload's event is kept without copying its strings.
+	f.seen.addHashed(h, e, -1, false)
+	old := f.held.find(h, f.id, e)
+	switch {
+	case old == nil:
+		f.counts.New++
+		site.New++
+		return true, nil
+	case sameContent(&old.e, e):
+		f.counts.Held++
+		site.Held++
+		return false, nil
+	}
+	f.counts.Changed++
+	site.Changed++
+	if f.policy != ChangesCorrect {
+		if len(f.changes) < maxChangeSamples {
+			f.changes = append(f.changes, changeSample{line: e.Line, fields: differingFields(&old.e, e)})
+		}
+		return false, nil
+	}
+	id := f.src.files[old.file].SHA256
+	m := f.remove[id]
+	if m == nil {
+		m = map[idKey]struct{}{}
+		f.remove[id] = m
+	}
+	m[idKey{old.e.Site, old.e.EventID}] = struct{}{}
+	return true, nil
+}
+
+// uploadCounts returns the counts for the upload record, sites in order.
+func (f *heldFilter) uploadCounts() *EventCounts {
+	c := f.counts
+	c.Sites = make([]SiteEventCounts, 0, len(f.sites))
+	for _, s := range f.sites {
+		c.Sites = append(c.Sites, *s)
+	}
+	slices.SortFunc(c.Sites, func(a, b SiteEventCounts) int { return strings.Compare(a.Site, b.Site) })
+	return &c
+}
+
+// lineageCounts returns the counts a version's lineage records, given the
+// old events the commit removed; it records those on up's counts too.
+func (f *heldFilter) lineageCounts(up *Upload, removed int64) *EventCounts {
+	if f == nil {
+		return nil
+	}
+	c := f.counts
+	c.Sites = nil
+	if f.policy == ChangesCorrect && f.counts.Changed > 0 {
+		c.Removed = removed
+		if up.Events != nil {
+			up.Events.Removed = removed
+		}
+	}
+	return &c
+}
+
+// refusal returns why the upload is refused for its changed events, or
+// nil: events of the upload that conflict with each other, or (under
+// ChangesRefuse) held events it changes. Lines and field names only, never
+// values.
+func (f *heldFilter) refusal() *UploadError {
+	samples, n, rule := f.conflicts, f.nConflict, RuleConflictingEvent
+	if n == 0 {
+		if f.policy == ChangesCorrect || f.counts.Changed == 0 {
+			return nil
+		}
+		samples, n, rule = f.changes, f.counts.Changed, RuleChangedEvent
+	}
+	slices.SortFunc(samples, func(a, b changeSample) int { return cmpInt(a.line, b.line) })
+	first := samples[0]
+	var msg string
+	if rule == RuleConflictingEvent {
+		msg = fmt.Sprintf("event_id of line %d is also on line %d with other %s; the upload must hold one version of each event",
+			first.line, first.other, fieldNames(first.fields))
+	} else {
+		msg = fmt.Sprintf("event_id is held already with other %s; the dataset refuses changed events (its change policy is refuse; a curator may set correct)",
+			fieldNames(first.fields))
+	}
+	if n > 1 {
+		lines := make([]string, 0, len(samples))
+		for _, s := range samples {
+			lines = append(lines, fmt.Sprintf("%d (%s)", s.line, fieldNames(s.fields)))
+		}
+		msg += fmt.Sprintf("; %d events in all, on lines %s", n, strings.Join(lines, ", "))
+		if n > int64(len(samples)) {
+			msg += ", ..."
+		}
+	}
+	col := ""
+	if len(first.fields) > 0 {
+		col = string(first.fields[0])
+	}
+	return &UploadError{Rule: rule, Line: first.line, Column: col, Message: msg}
+}
+
+func fieldNames(fs []schema.Field) string {
+	s := make([]string, len(fs))
+	for i, f := range fs {
+		s[i] = string(f)
+	}
+	return strings.Join(s, ", ")
+}
+
+// rejectedShare is the share of the upload's rows that were invalid: the
+// rows of the file, held events and copies included, not only the stored
+// ones the quality report counts.
+func (f *heldFilter) rejectedShare(rejected int64) float64 {
+	if rejected == 0 {
+		return 0
+	}
+	return float64(rejected) / float64(rejected+f.counts.Read)
+}
+
+// removeCorrected rewrites, for a ChangesCorrect upload, the plan's held
+// files that hold events its corrections replace, without those events.
+// The version's summary and quality are then merged from all its files
+// (mergeMode).
+func (s *Store) removeCorrected(ctx context.Context, ds *Dataset, p *filePlan, keyID string, f *heldFilter, parent *Version) error {
+	if f == nil || len(f.remove) == 0 {
+		return nil
+	}
+	if parent == nil || parent.Number != f.against {
+		return fmt.Errorf("corrections were found against version %d, the commit's parent is another", f.against)
+	}
+	var out []FileEntry
+	for _, fe := range p.files {
+		ids := f.remove[fe.SHA256]
+		if ids == nil {
+			out = append(out, fe)
+			continue
+		}
+		nf, removed, err := s.rewriteWithout(ctx, ds, fe, keyID, func(e *schema.Event) bool {
+			_, ok := ids[idKey{e.Site, e.EventID}]
+			return ok
+		}, p)
+		if err != nil {
+			return err
+		}
+		p.removed += removed
+		if nf != nil {
+			out = append(out, *nf)
+		}
+	}
+	p.files = out
+	return nil
+}
+
+// mergeMode is the mode by which the version's summary and quality are
+// merged: an append that removed old events merges all files, as a
+// replacement does, not the parent's totals plus the new file.
+func mergeMode(mode Mode, p *filePlan) Mode {
+	if mode == ModeAppend && p.removed > 0 {
+		return ModeReplaceWindow
+	}
+	return mode
+}
+
+// eventWindow holds events in the order they were added (time order) and
+// finds them by identity hash.
+type eventWindow struct {
+	q    []*windowEvent
+	head int
+	idx  map[uint64][]*windowEvent
+	free []*windowEvent
+}
+
+type windowEvent struct {
+	e    schema.Event
+	at   int64
+	hash uint64
+	file int // index in the held version's files; -1 for the upload's
+}
+
+func newEventWindow() *eventWindow { return &eventWindow{idx: map[uint64][]*windowEvent{}} }
+
+// add hashes e and adds it; clone copies its strings (Parquet buffers).
+func (w *eventWindow) add(h *maphash.Hash, id Identity, e *schema.Event, file int, clone bool) {
+	w.addHashed(identityHash(h, id, e), e, file, clone)
+}
+
+func (w *eventWindow) addHashed(hash uint64, e *schema.Event, file int, clone bool) {
+	var x *windowEvent
+	if n := len(w.free); n > 0 {
+		x, w.free = w.free[n-1], w.free[:n-1]
+	} else {
+		x = new(windowEvent)
+	}
+	if clone {
+		cloneEventInto(&x.e, e)
+	} else {
+		x.e = *e
+	}
+	x.at, x.hash, x.file = e.OccurredAt.UnixMicro(), hash, file
+	w.q = append(w.q, x)
+	w.idx[hash] = append(w.idx[hash], x)
+}
+
+// find returns an event of the window that is e under id, or nil.
+func (w *eventWindow) find(hash uint64, id Identity, e *schema.Event) *windowEvent {
+	for _, x := range w.idx[hash] {
+		if sameIdentity(id, &x.e, e) {
+			return x
+		}
+	}
+	return nil
+}
+
+// evict drops the events before lo.
+func (w *eventWindow) evict(lo int64) {
+	for w.head < len(w.q) && w.q[w.head].at < lo {
+		x := w.q[w.head]
+		w.q[w.head] = nil
+		w.head++
+		list := w.idx[x.hash]
+		if i := slices.Index(list, x); i >= 0 {
+			list = slices.Delete(list, i, i+1)
+		}
+		if len(list) == 0 {
+			delete(w.idx, x.hash)
+		} else {
+			w.idx[x.hash] = list
+		}
+		x.e = schema.Event{}
+		if len(w.free) < 4096 {
+			w.free = append(w.free, x)
+		}
+	}
+	if w.head == len(w.q) {
+		w.q, w.head = w.q[:0], 0
+	} else if w.head > 1024 && w.head > len(w.q)/2 {
+		n := copy(w.q, w.q[w.head:])
+		clear(w.q[n:])
+		w.q, w.head = w.q[:n], 0
+	}
+}
+
+func cloneEventInto(dst, e *schema.Event) {
+	*dst = schema.Event{
+		Site:       strings.Clone(e.Site),
+		CaseID:     strings.Clone(e.CaseID),
+		SubjectID:  strings.Clone(e.SubjectID),
+		ResourceID: strings.Clone(e.ResourceID),
+		Type:       schema.EventType(strings.Clone(string(e.Type))),
+		Activity:   strings.Clone(e.Activity),
+		Queue:      strings.Clone(e.Queue),
+		OccurredAt: e.OccurredAt,
+		Priority:   strings.Clone(e.Priority),
+		Channel:    strings.Clone(e.Channel),
+		Outcome:    strings.Clone(e.Outcome),
+		EventID:    strings.Clone(e.EventID),
+	}
+}
+
+// heldSource merges the held files' events in time order, opening a file
+// only when the upload's events reach its time range and decoding only the
+// row groups that reach them.
+type heldSource struct {
+	blobs   blob.Store
+	files   []FileEntry
+	pending []int // file indexes by MinTime, not opened yet
+	h       heldHeap
+	open    []*heldCursor
+	lo      int64 // events before lo are not wanted any more
+	stats   heldStats
+}
+
+// heldStats describes the reading of held files, for tests and logs.
+type heldStats struct {
+	FilesOpened, FilesSkipped       int
+	RowGroupsRead, RowGroupsSkipped int
+	RowsRead                        int64
+}
+
+func newHeldSource(bs blob.Store, files []FileEntry) *heldSource {
+	s := &heldSource{blobs: bs, files: files}
+	for i := range files {
+		s.pending = append(s.pending, i)
+	}
+	slices.SortStableFunc(s.pending, func(a, b int) int { return files[a].MinTime.Compare(files[b].MinTime) })
+	return s
+}
+
+// load calls fn, in time order, for the held events in [lo, hi] not given
+// before. Calls must come with lo and hi that never decrease.
+func (s *heldSource) load(ctx context.Context, lo, hi int64, fn func(*schema.Event, int)) error {
+	s.lo = lo
+	for {
+		for len(s.pending) > 0 && s.files[s.pending[0]].MinTime.UnixMicro() <= hi {
+			i := s.pending[0]
+			s.pending = s.pending[1:]
+			if mx := s.files[i].MaxTime; !mx.IsZero() && mx.UnixMicro() < lo {
+				s.stats.FilesSkipped++
+				continue
+			}
+			c, err := s.openCursor(ctx, i)
+			if err != nil {
+				return err
+			}
+			if !c.done {
+				heap.Push(&s.h, c)
+			}
+		}
+		if len(s.h) == 0 {
+			return nil
+		}
+		c := s.h[0]
+		if c.at > hi {
+			return nil
+		}
+		if c.at >= lo {
+			fn(&c.buf[c.pos], c.file)
+		}
+		if err := c.advance(s); err != nil {
+			return err
+		}
+		if c.done {
+			heap.Pop(&s.h)
+			c.close()
+		} else {
+			heap.Fix(&s.h, 0)
+		}
+	}
+}
+
+func (s *heldSource) close() {
+	for _, c := range s.open {
+		c.close()
+	}
+	s.open = nil
+}
+
+// heldCursor reads one held file's wanted row groups.
+type heldCursor struct {
+	file   int
+	r      blob.Reader
+	groups []parquet.RowGroup
+	col    int // leaf index of occurred_at
+	gi     int
+	rd     *EventReader
+	buf    []schema.Event
+	pos, n int
+	at     int64 // instant of buf[pos]
+	done   bool
+	closed bool
+}
+
+const heldBatch = 256
+
+func (s *heldSource) openCursor(ctx context.Context, i int) (*heldCursor, error) {
+	fe := s.files[i]
+	r, err := s.blobs.Open(ctx, fe.SHA256)
+	if err != nil {
+		return nil, fmt.Errorf("held events: %w", err)
+	}
+	c := &heldCursor{file: i, r: r, buf: make([]schema.Event, heldBatch)}
+	s.open = append(s.open, c)
+	s.stats.FilesOpened++
+	pf, err := parquet.OpenFile(r, r.Size(), parquet.SkipPageIndex(true), parquet.SkipBloomFilters(true))
+	if err != nil {
+		return nil, fmt.Errorf("held events: file %s: %w", fe.SHA256, err)
+	}
+	leaf, ok := pf.Schema().Lookup(string(schema.FieldOccurredAt))
+	if !ok {
+		return nil, fmt.Errorf("held events: file %s has no occurred_at column", fe.SHA256)
+	}
+	c.col = leaf.ColumnIndex
+	c.groups = pf.RowGroups()
+	c.pos, c.n = 0, 0
+	if err := c.advance(s); err != nil {
+		return nil, err
+	}
+	return c, nil
+}
+
+// advance moves to the next event, skipping row groups that end before
+// the source's lo; done at the end of the file.
+func (c *heldCursor) advance(s *heldSource) error {
+	c.pos++
+	for c.pos >= c.n {
+		if c.rd == nil {
+			for c.gi < len(c.groups) && !c.groupReaches(c.groups[c.gi], s.lo) {
+				s.stats.RowGroupsSkipped++
+				c.gi++
+			}
+			if c.gi == len(c.groups) {
+				c.done = true
+				return nil
+			}
+			c.rd = NewRowReader(parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi]))
+			c.gi++
+			s.stats.RowGroupsRead++
+		}
+		clear(c.buf)
+		n, err := c.rd.Read(c.buf)
+		c.pos, c.n = 0, n
+		s.stats.RowsRead += int64(n)
+		if errors.Is(err, io.EOF) {
+			c.rd.Close()
+			c.rd = nil
+		} else if err != nil {
+			return fmt.Errorf("held events: parquet: %w", err)
+		}
+	}
+	c.at = c.buf[c.pos].OccurredAt.UnixMicro()
+	return nil
+}
+
+// groupReaches reports whether rg may hold an event at or after lo.
+func (c *heldCursor) groupReaches(rg parquet.RowGroup, lo int64) bool {
+	fc, ok := rg.ColumnChunks()[c.col].(*parquet.FileColumnChunk)
+	if !ok {
+		return true
+	}
+	_, hi, ok := fc.Bounds()
+	return !ok || hi.Int64() >= lo
+}
+
+func (c *heldCursor) close() {
+	if c.closed {
+		return
+	}
+	c.closed = true
+	if c.rd != nil {
+		c.rd.Close()
+	}
+	c.r.Close()
+}
+
+type heldHeap []*heldCursor
+
+func (h heldHeap) Len() int           { return len(h) }
+func (h heldHeap) Less(i, j int) bool { return h[i].at < h[j].at }
+func (h heldHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
+func (h *heldHeap) Push(x any)        { *h = append(*h, x.(*heldCursor)) }
+func (h *heldHeap) Pop() any {
+	old := *h
+	c := old[len(old)-1]
+	*h = old[:len(old)-1]
+	return c
+}

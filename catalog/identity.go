@@ -1,0 +1,252 @@
+package catalog
+
+import (
+	"context"
+	"fmt"
+	"hash/maphash"
+	"strings"
+
+	"golang.org/x/text/language"
+	"golang.org/x/text/message"
+
+	bolt "go.etcd.io/bbolt"
+
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+// Identity says when two events are the same event, so that a version
+// holds each event once.
+type Identity string
+
+// Event identities.
+const (
+	// IdentityContent: two events are the same when every field is equal
+	// after pseudonymization, the instant (to the microsecond) included.
+	// A re-sent event is recognised; a re-sent event with any field
+	// changed is a new event, and the old one stays.
+	IdentityContent Identity = "content"
+	// IdentityEventID: two events are the same when their site and
+	// event_id are equal; the profile declares the id stable
+	// (fields.event_id.stable: true). A re-sent event with other content
+	// is a change, settled by the dataset's ChangePolicy. Events without
+	// an id fall back to their content.
+	IdentityEventID Identity = "event_id"
+)
+
+// IdentityOf returns the event identity a profile gives its events.
+func IdentityOf(p *schema.Profile) Identity {
+	if m, ok := p.Fields[schema.FieldEventID]; ok && m.Stable && m.Column != "" {
+		return IdentityEventID
+	}
+	return IdentityContent
+}
+
+// ChangePolicy says what an append does with an event whose stable
+// event_id the latest version holds with other content.
+type ChangePolicy string
+
+// Change policies.
+const (
+	// ChangesRefuse rejects the upload, naming the lines and fields that
+	// differ; nothing is stored. The default.
+	ChangesRefuse ChangePolicy = "refuse"
+	// ChangesCorrect takes the new content as a correction: the new
+	// version holds it and no longer holds the old event.
+	ChangesCorrect ChangePolicy = "correct"
+)
+
+// ParseChangePolicy returns the policy named s; empty means ChangesRefuse.
+func ParseChangePolicy(s string) (ChangePolicy, error) {
+	switch p := ChangePolicy(s); p {
+	case "":
+		return ChangesRefuse, nil
+	case ChangesRefuse, ChangesCorrect:
+		return p, nil
+	}
+	return "", fmt.Errorf("change policy %q: want refuse or correct: %w", truncate(s, 40), ErrInvalid)
+}
+
+// SetChangePolicy sets a dataset's change policy; uploads that start
+// after it use the new one. An unknown policy fails with ErrInvalid, an
+// unknown dataset with ErrNotFound.
+func (s *Store) SetChangePolicy(ctx context.Context, project, dataset string, p ChangePolicy, by string) (*Dataset, error) {
+	p, err := ParseChangePolicy(string(p))
+	if err != nil {
+		return nil, err
+	}
+	var d Dataset
+	ref := project + "/" + dataset
+	err = s.db.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bucketDatasets)
+		if err := getJSON(b, []byte(ref), &d, "dataset "+ref); err != nil {
+			return err
+		}
+		d.Changes = p
+		if err := putJSON(b, []byte(ref), &d); err != nil {
+			return err
+		}
+		return audit(tx, s.opt.Now(), by, "dataset.changes", fmt.Sprintf("%s (%s)", ref, p))
+	})
+	if err != nil {
+		return nil, err
+	}
+	s.opt.Logger.Info("dataset change policy set", "dataset", ref, "changes", p, "by", by)
+	return &d, nil
+}
+
+// changePolicy is the dataset's policy, refuse when unset.
+func (d *Dataset) changePolicy() ChangePolicy {
+	if d.Changes == "" {
+		return ChangesRefuse
+	}
+	return d.Changes
+}
+
+// DefaultIDWindow is how far apart in time an event and its changed
+// re-send may lie and still be recognised as one event under a stable
+// event_id (the same span quality uses to find reused ids).
+const DefaultIDWindow = 24 * 3600 * 1e6 // microseconds
+
+// EventCounts says what became of an upload's valid events. Read =
+// New + Held + Copies + Changed. Changed events are stored (replacing
+// the old ones, Removed of them) under ChangesCorrect, and make the upload
+// rejected under ChangesRefuse.
+type EventCounts struct {
+	Identity Identity `json:"identity"`
+	Read     int64    `json:"read"`         // valid events in the upload
+	New      int64    `json:"new"`          // events the latest version did not hold: stored
+	Held     int64    `json:"already_held"` // events the latest version holds already: not stored again
+	Copies   int64    `json:"copies"`       // exact copies of an earlier event of the same upload: stored once
+	Changed  int64    `json:"changed"`      // held ids re-sent with other content
+	Removed  int64    `json:"removed"`      // old events the corrections removed
+	// Sites holds the same counts per site (on uploads, not in lineage).
+	Sites []SiteEventCounts `json:"sites,omitempty"`
+}
+
+// SiteEventCounts are one site's EventCounts.
+type SiteEventCounts struct {
+	Site    string `json:"site"`
+	Read    int64  `json:"read"`
+	New     int64  `json:"new"`
+	Held    int64  `json:"already_held"`
+	Copies  int64  `json:"copies"`
+	Changed int64  `json:"changed"`
+}
+
+// HeldShare is the share of the read events that were already held.
+func (c *SiteEventCounts) HeldShare() float64 {
+	if c.Read == 0 {
+		return 0
+	}
+	return float64(c.Held) / float64(c.Read)
+}
+
+var printer = message.NewPrinter(language.English)
+
+// Sentence says what an upload did in one line, such as "v12: 41,003 new
+// events, 287,110 already held, 0 changed"; version 0 means no version
+// was made.
+func (c *EventCounts) Sentence(version int) string {
+	var b strings.Builder
+	if version > 0 {
+		fmt.Fprintf(&b, "v%d: ", version)
+	}
+	b.WriteString(printer.Sprintf("%d new %s, %d already held, %d changed", c.New, plural(c.New, "event", "events"), c.Held, c.Changed))
+	if c.Removed > 0 {
+		b.WriteString(printer.Sprintf(" (%d old %s replaced)", c.Removed, plural(c.Removed, "event", "events")))
+	}
+	if c.Copies > 0 {
+		b.WriteString(printer.Sprintf(", %d %s within the file stored once", c.Copies, plural(c.Copies, "copy", "copies")))
+	}
+	return b.String()
+}
+
+func plural(n int64, one, many string) string {
+	if n == 1 {
+		return one
+	}
+	return many
+}
+
+// Sentence says what became of an upload in one line: for an accepted
+// one its counts ("v12: 41,003 new events, 287,110 already held, 0
+// changed"), for a duplicate the version that already holds its events;
+// empty for a rejected or failed upload, whose error says why.
+func (u *Upload) Sentence() string {
+	switch {
+	case u.Status == UploadAccepted && u.Events != nil:
+		return u.Events.Sentence(u.Version)
+	case u.Status != UploadDuplicate:
+		return ""
+	case u.Version == 0:
+		return "nothing to store, and the dataset has no version yet"
+	case u.Events == nil:
+		return fmt.Sprintf("v%d already holds this file: the same bytes were sent before; nothing stored", u.Version)
+	}
+	return fmt.Sprintf("v%d already holds every event: %s; nothing stored", u.Version, u.Events.Sentence(0))
+}
+
+// identityHash hashes what makes e itself under id: its site and event
+// id, or (content identity, or no id) every field and the instant.
+func identityHash(h *maphash.Hash, id Identity, e *schema.Event) uint64 {
+	h.Reset()
+	if id == IdentityEventID && e.EventID != "" {
+		h.WriteByte(1)
+		h.WriteString(e.Site)
+		h.WriteByte(0)
+		h.WriteString(e.EventID)
+		return h.Sum64()
+	}
+	h.WriteByte(2)
+	for _, v := range [...]string{
+		e.Site, e.CaseID, e.SubjectID, e.ResourceID, string(e.Type), e.Activity,
+		e.Queue, e.Priority, e.Channel, e.Outcome, e.EventID,
+	} {
+		h.WriteString(v)
+		h.WriteByte(0)
+	}
+	var t [8]byte
+	us := uint64(e.OccurredAt.UnixMicro())
+	for i := range t {
+		t[i] = byte(us >> (8 * i))
+	}
+	h.Write(t[:])
+	return h.Sum64()
+}
+
+// sameIdentity reports whether a and b are one event under id.
+func sameIdentity(id Identity, a, b *schema.Event) bool {
+	if id == IdentityEventID && a.EventID != "" {
+		return a.EventID == b.EventID && a.Site == b.Site
+	}
+	return sameContent(a, b)
+}
+
+// sameContent reports whether a and b are equal in every schema field;
+// the instant is compared to the microsecond, the source line is not a
+// field.
+func sameContent(a, b *schema.Event) bool {
+	return a.OccurredAt.UnixMicro() == b.OccurredAt.UnixMicro() &&
+		a.CaseID == b.CaseID && a.Type == b.Type && a.EventID == b.EventID &&
+		a.Activity == b.Activity && a.Queue == b.Queue && a.ResourceID == b.ResourceID &&
+		a.SubjectID == b.SubjectID && a.Site == b.Site && a.Priority == b.Priority &&
+		a.Channel == b.Channel && a.Outcome == b.Outcome
+}
+
+// differingFields lists, in schema order, the fields in which a and b
+// differ.
+func differingFields(a, b *schema.Event) []schema.Field {
+	var out []schema.Field
+	for _, f := range schema.Fields {
+		if f == schema.FieldOccurredAt {
+			if a.OccurredAt.UnixMicro() != b.OccurredAt.UnixMicro() {
+				out = append(out, f)
+			}
+			continue
+		}
+		if a.Value(f) != b.Value(f) {
+			out = append(out, f)
+		}
+	}
+	return out
+}

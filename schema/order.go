@@ -1,0 +1,61 @@
+package schema
+
+import "strings"
+
+// Compare orders events by occurred_at, then by CompareContent. It returns
+// 0 only for events equal in every stored field, so the order is total on
+// content and does not depend on which file an event is in.
+func Compare(a, b *Event) int {
+	if c := a.OccurredAt.Compare(b.OccurredAt); c != 0 {
+		return c
+	}
+	return CompareContent(a, b)
+}
+
+// CompareContent compares every stored field but occurred_at, in schema
+// order (site, case_id, subject_id, resource_id, event_type, activity,
+// queue, priority, channel, outcome, event_id), each as bytes.
+func CompareContent(a, b *Event) int {
+	if c := strings.Compare(a.Site, b.Site); c != 0 {
+		return c
+	}
+	if c := strings.Compare(a.CaseID, b.CaseID); c != 0 {
+		return c
+	}
+	if c := strings.Compare(a.SubjectID, b.SubjectID); c != 0 {
+		return c
+	}
+	if c := strings.Compare(a.ResourceID, b.ResourceID); c != 0 {
+		return c
+	}
+	if c := strings.Compare(string(a.Type), string(b.Type)); c != 0 {
+		return c
+	}
+	if c := strings.Compare(a.Activity, b.Activity); c != 0 {
+		return c
+	}
+	if c := strings.Compare(a.Queue, b.Queue); c != 0 {
+		return c
+	}
+	if c := strings.Compare(a.Priority, b.Priority); c != 0 {
+		return c
+	}
+	if c := strings.Compare(a.Channel, b.Channel); c != 0 {
+		return c
+	}
+	if c := strings.Compare(a.Outcome, b.Outcome); c != 0 {
+		return c
+	}
+	return strings.Compare(a.EventID, b.EventID)
+}
+
+// Rank is t's position in EventTypes, the order a case usually passes the
+// types; -1 for an unknown type.
+func (t EventType) Rank() int {
+	for i, u := range EventTypes {
+		if u == t {
+			return i
+		}
+	}
+	return -1
+}
