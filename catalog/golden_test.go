@@ -14,6 +14,8 @@ import (
 	"strings"
 	"testing"
 
+	bolt "go.etcd.io/bbolt"
+
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
 	"github.com/flowcat-catalog/flowcat/quality"
@@ -83,6 +85,12 @@ func checkGolden(t *testing.T, golden, dir string, master anonymize.MasterKey) {
 		t.Fatal(err)
 	}
 	defer s.Close()
+	s.db.View(func(tx *bolt.Tx) error {
+		if f := string(tx.Bucket(bucketMeta).Get([]byte("format"))); f != storeFormat || tx.Bucket(bucketOldHeads) != nil || tx.Bucket(bucketMeta).Get([]byte("heads_format")) != nil {
+			t.Errorf("after open: format %q (want %s), old heads left: %v", f, storeFormat, tx.Bucket(bucketOldHeads) != nil)
+		}
+		return nil
+	})
 	projects, err := s.Projects(ctx)
 	if err != nil || len(projects) == 0 {
 		t.Fatalf("projects %v, %v", projects, err)

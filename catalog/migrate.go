@@ -22,8 +22,8 @@ import (
 //	        "versions" held each version with its whole manifest, whose
 //	        "quality" member embedded the report; "version_heads" repeated
 //	        the version without it.
-//	        Releases of this layout after it (up to the merge of case
-//	        tables and counted events) kept the same buckets, their
+//	        Code of this layout after it (main up to a665667,
+//	        testdata/golden/main-a665667) kept the same buckets, its
 //	        manifests gaining "case_table" and lineage "events", and a
 //	        "heads_format" meta key for "version_heads".
 //	2       "versions" holds the version records, "manifests" each

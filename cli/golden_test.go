@@ -2,11 +2,14 @@ package cli_test
 
 import (
 	"bytes"
+	"encoding/json"
 	"io/fs"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
 )
 
 // TestPullFromGoldenDataDirectories serves a copy of each data directory
@@ -65,6 +68,16 @@ func pullGolden(t *testing.T, golden string) {
 		}
 		if code, out, errs := run(t, nil, "verify", dir); code != 0 || !strings.HasPrefix(out, "ok") {
 			t.Errorf("verify @%s: exit %d %s %s", v, code, out, errs)
+		}
+		var m catalog.Manifest
+		mb, _ := os.ReadFile(filepath.Join(dir, "manifest.json"))
+		if err := json.Unmarshal(mb, &m); err != nil {
+			t.Fatal(err)
+		}
+		if ct := m.CaseTable; ct != nil {
+			if fi, err := os.Stat(filepath.Join(dir, "cases", ct.SHA256.String()+".parquet")); err != nil || fi.Size() != ct.Bytes {
+				t.Errorf("@%s: case table not pulled to cases/: %v", v, err)
+			}
 		}
 		got, _ := os.ReadFile(filepath.Join(dir, "manifest.json"))
 		want, _ := os.ReadFile(filepath.Join(golden, "served", "manifest-"+v+".json"))
