@@ -418,8 +418,9 @@ const defaultVersionsPage = 100
 
 // listVersions lists a dataset's versions, oldest first, a page at a
 // time (?limit=, default 100, at most catalog.MaxVersionsPage; ?after= a
-// version number): each with its state, lineage mode, files, rows and
-// quality scores, never the manifest or the full report.
+// version number): each version's record, with its state, lineage mode,
+// files, rows, quality scores and event counts, never the manifest or the
+// full report.
 func (s *Server) listVersions(c echo.Context) error {
 	d, err := s.dataset(c, readable, "read versions of")
 	if err != nil {
@@ -441,11 +442,11 @@ func (s *Server) listVersions(c echo.Context) error {
 		}
 		*p.dst = n
 	}
-	heads, next, err := s.cfg.Store.VersionsPage(c.Request().Context(), d.Project, d.Name, after, limit, claims(c).CanCurate(d.Project))
+	vs, next, err := s.cfg.Store.VersionsPage(c.Request().Context(), d.Project, d.Name, after, limit, claims(c).CanCurate(d.Project))
 	if err != nil {
 		return catalogError(err)
 	}
-	page := versionsPage{Versions: heads}
+	page := versionsPage{Versions: vs}
 	if next > 0 {
 		page.NextAfter = &next
 	}
