@@ -149,7 +149,7 @@ func TestCasesWholeAcrossIdleAndUploads(t *testing.T) {
 				break
 			}
 		}
-		if q := v.Manifest.Quality; q.Cases.Count != n || q.Stages.Cases != n || q.Stages.Departure != 1 {
+		if q := e.report(t, v); q.Cases.Count != n || q.Stages.Cases != n || q.Stages.Departure != 1 {
 			t.Errorf("v%d: report cases %+v stages %+v, want %d cases, all departed", v.Number, q.Cases, q.Stages, n)
 		}
 	}
@@ -175,7 +175,7 @@ func TestCasesWholeAcrossIdleAndUploads(t *testing.T) {
 	if sum.Cases.Value != n || !sum.Cases.Exact || sum.LengthOfStay.N != n {
 		t.Errorf("summary cases %+v stays %d, want %d exact", sum.Cases, sum.LengthOfStay.N, n)
 	}
-	q1, q12 := one.Manifest.Quality, last.Manifest.Quality
+	q1, q12 := e.report(t, one), e.report(t, last)
 	if q1.Cases != q12.Cases || q1.Stages != q12.Stages || !slices.Equal(q1.Waits, q12.Waits) {
 		t.Errorf("case-level quality differs:\n%+v %+v\n%+v %+v", q1.Cases, q1.Stages, q12.Cases, q12.Stages)
 	}
@@ -211,8 +211,8 @@ func TestExactCounts(t *testing.T) {
 			if s.Cases.Value != float64(n) || s.Subjects.Value != float64(n/2) || s.Resources.Value != float64(n/10) || !s.Cases.Exact || !s.Subjects.Exact || !s.Resources.Exact {
 				t.Errorf("counts %+v %+v %+v, want %d, %d, %d exact", s.Cases, s.Subjects, s.Resources, n, n/2, n/10)
 			}
-			if v.Manifest.CaseTable.Rows != int64(n) || v.Manifest.Quality.Cases.Count != int64(n) {
-				t.Errorf("case table %d rows, report %d cases, want %d", v.Manifest.CaseTable.Rows, v.Manifest.Quality.Cases.Count, n)
+			if v.Manifest.CaseTable.Rows != int64(n) || e.report(t, v).Cases.Count != int64(n) {
+				t.Errorf("case table %d rows, report %d cases, want %d", v.Manifest.CaseTable.Rows, e.report(t, v).Cases.Count, n)
 			}
 		})
 	}
@@ -365,7 +365,7 @@ func TestPatientsLog(t *testing.T) {
 	if len(spans) != 500 || math.Abs(mean-576832.972) > 5e-4 {
 		t.Fatalf("independent reading: %d cases, mean %.4f s; README: 500, 576832.972 s", len(spans), mean)
 	}
-	q := v.Manifest.Quality
+	q := e.report(t, v)
 	if q.Cases.Count != 500 || math.Abs(q.Cases.MeanDurationSeconds-576832.972) > 5e-4 || q.Cases.MaxDurationSeconds != 1996424 {
 		t.Errorf("report cases %+v, want 500, mean 576832.972 s, max 1996424 s (README)", q.Cases)
 	}
@@ -473,7 +473,7 @@ func TestCompletionOnlyLog(t *testing.T) {
 		s.BetweenEvents.N != cases*(per-1) || s.BetweenEvents.Mean != 6*3600 {
 		t.Errorf("summary cases %v, events per case %+v, between %d mean %v, not measurable %+v", s.Cases.Value, s.EventsPerCase, s.BetweenEvents.N, s.BetweenEvents.Mean, s.NotMeasurable)
 	}
-	if q := v.Manifest.Quality.Cases; q.Count != cases || q.MeanDurationSeconds != float64(want)/1e6 {
+	if q := e.report(t, v).Cases; q.Count != cases || q.MeanDurationSeconds != float64(want)/1e6 {
 		t.Errorf("report cases %+v", q)
 	}
 }

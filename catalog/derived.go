@@ -335,11 +335,11 @@ func (s *Store) reportOfFile(f FileEntry, ref string) (*quality.Report, error) {
 			return nil
 		}
 		var up Upload
-		var seq int
-		if _, err := fmt.Sscanf(f.Upload, "u%d", &seq); err != nil {
+		seq := f.Upload.Seq()
+		if seq == 0 {
 			return fmt.Errorf("file %s: no report and no upload: %w", f.SHA256, ErrNotFound)
 		}
-		if err := getJSON(tx.Bucket(bucketUploads), seqKey(ref, seq), &up, "upload "+f.Upload); err != nil {
+		if err := getJSON(tx.Bucket(bucketUploads), seqKey(ref, seq), &up, "upload "+f.Upload.String()); err != nil {
 			return err
 		}
 		if up.Report == nil || f.DerivedFrom != nil {
@@ -360,9 +360,11 @@ func (s *Store) reportOfFile(f FileEntry, ref string) (*quality.Report, error) {
 // they were rewritten, without the rejected rows and source lines of their
 // first upload).
 func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePlan, rep *quality.Report, mode Mode) (*quality.Report, error) {
-	if mode == ModeAppend && parent != nil && parent.Manifest.Quality != nil {
-		if r, err := quality.MergeReports(parent.Manifest.Quality, rep); err == nil {
-			return r, nil
+	if mode == ModeAppend && parent != nil && !parent.Quality.SHA256.IsZero() {
+		if pr, err := s.Report(ctx, parent); err == nil {
+			if r, err := quality.MergeReports(pr, rep); err == nil {
+				return r, nil
+			}
 		}
 	}
 	var rs []*quality.Report
@@ -390,7 +392,7 @@ func parentRef(v *Version) string {
 	if v == nil {
 		return ""
 	}
-	return v.Manifest.Dataset
+	return v.Dataset.String()
 }
 
 // cloneStrings gives e strings of its own.

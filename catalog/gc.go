@@ -127,29 +127,17 @@ func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*
 // and deciding which to delete.
 var testHookGCBetween func()
 
-// referenced returns every blob any version's manifest lists.
+// referenced returns every blob any version's manifest lists (Blobs).
 func (s *Store) referenced() (map[blob.ID]bool, error) {
 	refs := map[blob.ID]bool{}
 	err := s.db.View(func(tx *bolt.Tx) error {
-		return tx.Bucket(bucketVersions).ForEach(func(k, v []byte) error {
-			var ver struct {
-				Manifest struct {
-					Files []struct {
-						SHA256 blob.ID `json:"sha256"`
-					} `json:"files"`
-					CaseTable *struct {
-						SHA256 blob.ID `json:"sha256"`
-					} `json:"case_table"`
-				} `json:"manifest"`
+		return tx.Bucket(bucketManifests).ForEach(func(k, b []byte) error {
+			var m Manifest
+			if err := json.Unmarshal(b, &m); err != nil {
+				return fmt.Errorf("gc: manifest %s: %w", k, err)
 			}
-			if err := json.Unmarshal(v, &ver); err != nil {
-				return fmt.Errorf("gc: version %q: %w", k, err)
-			}
-			for _, f := range ver.Manifest.Files {
+			for _, f := range m.Blobs() {
 				refs[f.SHA256] = true
-			}
-			if ct := ver.Manifest.CaseTable; ct != nil {
-				refs[ct.SHA256] = true
 			}
 			return nil
 		})

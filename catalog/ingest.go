@@ -194,7 +194,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 			if rerr := s.recordUpload(ds, &up); rerr != nil {
 				return nil, rerr
 			}
-			s.opt.Logger.Warn("upload failed", "dataset", ds.Ref(), "upload", up.ID, "rule", fe.Rule, "line", fe.Line, "column", fe.Column)
+			s.opt.Logger.Warn("upload failed", "dataset", ds.Ref().String(), "upload", up.ID, "rule", fe.Rule, "line", fe.Line, "column", fe.Column)
 			return &IngestResult{Upload: up}, fmt.Errorf("%w: %w", ErrFileInvalid, err)
 		}
 		return nil, fmt.Errorf("ingest: %w", err)
@@ -227,7 +227,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 
 	// From here to the commit the dataset's latest version stays the one
 	// the upload's events are compared with.
-	unlock := s.lockDataset(ds.Ref())
+	unlock := s.lockDataset(ds.Ref().String())
 	defer unlock()
 	hf, err := s.heldFilterFor(ctx, ds, prof, opt.Mode)
 	if err != nil {
@@ -293,7 +293,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 		if err := s.recordUpload(ds, &up); err != nil {
 			return nil, err
 		}
-		s.opt.Logger.Warn("upload rejected", "dataset", ds.Ref(), "upload", up.ID,
+		s.opt.Logger.Warn("upload rejected", "dataset", ds.Ref().String(), "upload", up.ID,
 			"rejected_share", rep.RejectedShare(), "reject_above", ds.RejectAbove)
 		return &IngestResult{Upload: up}, err
 	}
@@ -404,14 +404,14 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	var ver *Version
 	err = s.db.Update(func(tx *bolt.Tx) error {
 		var cur Dataset
-		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref()), &cur, "dataset "+ds.Ref()); err != nil {
+		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
 			return err
 		}
 		if parent != nil && cur.Latest != parent.Number || parent == nil && cur.Latest != 0 {
-			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref(), cur.Latest)
+			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref().String(), cur.Latest)
 		}
 		nextUpload(&cur, up)
-		up.Alerts = append(driftAlerts(tx, cur.Ref(), up), heldShareAlerts(tx, cur.Ref(), up)...)
+		up.Alerts = append(driftAlerts(tx, cur.Ref().String(), up), heldShareAlerts(tx, cur.Ref().String(), up)...)
 		if entry != nil {
 			for i := range plan.files {
 				if plan.files[i].SHA256 == entry.SHA256 && plan.files[i].Upload == "" {
@@ -427,7 +427,6 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			SchemaVersion: schema.Version,
 			ProfileHash:   cur.ProfileHash,
 			KeyID:         keyID,
-			Quality:       vrep,
 			Files:         plan.files,
 			CaseTable:     vp.table,
 			CreatedBy:     opt.By,
@@ -444,7 +443,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		for _, f := range m.Files {
 			m.Rows += f.Rows
 		}
-		v, err := newVersion(m)
+		v, err := commitManifest(tx, &m, vrep)
 		if err != nil {
 			return err
 		}
@@ -462,31 +461,31 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		if err := putVersion(tx, v); err != nil {
 			return err
 		}
-		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {
+		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref().String()), &cur); err != nil {
 			return err
 		}
-		if err := putSummaries(tx, cur.Ref(), v.Number, vsum, fileSums); err != nil {
+		if err := putSummaries(tx, cur.Ref().String(), v.Number, vsum, fileSums); err != nil {
 			return err
 		}
 		if err := putFileReports(tx, plan.reports); err != nil {
 			return err
 		}
-		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), up); err != nil {
+		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
 			return err
 		}
 		if up.Mode == ModeAppend {
-			if err := tx.Bucket(bucketDigests).Put(digestKey(cur.Ref(), up.SHA256), binary.BigEndian.AppendUint32(nil, uint32(v.Number))); err != nil {
+			if err := tx.Bucket(bucketDigests).Put(digestKey(cur.Ref().String(), up.SHA256), binary.BigEndian.AppendUint32(nil, uint32(v.Number))); err != nil {
 				return err
 			}
 		}
-		return audit(tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref(), v.Number, opt.Mode))
+		return audit(tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref().String(), v.Number, opt.Mode))
 	})
 	if err != nil {
 		// New blobs stay, unreferenced, for garbage collection.
-		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref(), "err", err)
+		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref().String(), "err", err)
 		return nil, fmt.Errorf("ingest: commit: %w", err)
 	}
-	s.opt.Logger.Info("version created", "dataset", ds.Ref(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
+	s.opt.Logger.Info("version created", "dataset", ds.Ref().String(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
 		"rows", ver.Manifest.Rows, "rows_removed", plan.removed, "rejected", rep.Rows.Rejected, "score", rep.Score)
 	return &IngestResult{Upload: *up, Version: ver}, nil
 }
@@ -513,7 +512,7 @@ func sameFiles(a, b []FileEntry) bool {
 // from it); otherwise ErrNotFound. Only accepted appends record their
 // digest, so a digest always names the version that added its file.
 func (s *Store) appendedBefore(ctx context.Context, ds *Dataset, hexDigest string) (*Version, error) {
-	v, err := s.versionByDigest(ds.Ref(), hexDigest)
+	v, err := s.versionByDigest(ds.Ref().String(), hexDigest)
 	if err != nil {
 		return nil, err
 	}
@@ -607,7 +606,7 @@ func (s *Store) duplicate(ds *Dataset, up Upload, v *Version) (*IngestResult, er
 	if err := s.recordUpload(ds, &up); err != nil {
 		return nil, err
 	}
-	s.opt.Logger.Info("upload is a duplicate", "dataset", ds.Ref(), "upload", up.ID, "version", v.Number)
+	s.opt.Logger.Info("upload is a duplicate", "dataset", ds.Ref().String(), "upload", up.ID, "version", v.Number)
 	return &IngestResult{Upload: up, Version: v}, nil
 }
 
@@ -615,18 +614,18 @@ func (s *Store) duplicate(ds *Dataset, up Upload, v *Version) (*IngestResult, er
 func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 	err := s.db.Update(func(tx *bolt.Tx) error {
 		var cur Dataset
-		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref()), &cur, "dataset "+ds.Ref()); err != nil {
+		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
 			return err
 		}
 		nextUpload(&cur, up)
-		up.Alerts = append(driftAlerts(tx, cur.Ref(), up), heldShareAlerts(tx, cur.Ref(), up)...)
-		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {
+		up.Alerts = append(driftAlerts(tx, cur.Ref().String(), up), heldShareAlerts(tx, cur.Ref().String(), up)...)
+		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref().String()), &cur); err != nil {
 			return err
 		}
-		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), up); err != nil {
+		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
 			return err
 		}
-		return audit(tx, up.ReceivedAt, up.By, "upload."+string(up.Status), cur.Ref()+"/"+up.ID)
+		return audit(tx, up.ReceivedAt, up.By, "upload."+string(up.Status), cur.Ref().String()+"/"+up.ID.String())
 	})
 	if err != nil {
 		return fmt.Errorf("ingest: recording upload: %w", err)
@@ -638,7 +637,7 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 func nextUpload(d *Dataset, up *Upload) {
 	d.Uploads++
 	up.Seq = d.Uploads
-	up.ID = fmt.Sprintf("u%d", up.Seq)
+	up.ID = UploadIDOf(up.Seq)
 }
 
 func digestKey(ref, hexDigest string) []byte { return []byte(ref + "/" + hexDigest) }
@@ -650,7 +649,10 @@ func (s *Store) versionByDigest(ref, hexDigest string) (*Version, error) {
 		if n == nil {
 			return ErrNotFound
 		}
-		return getJSON(tx.Bucket(bucketVersions), seqKey(ref, int(binary.BigEndian.Uint32(n))), &v, "version")
+		if err := getJSON(tx.Bucket(bucketVersions), seqKey(ref, int(binary.BigEndian.Uint32(n))), &v, "version"); err != nil {
+			return err
+		}
+		return withManifest(tx, &v)
 	})
 	if err != nil {
 		return nil, err

@@ -8,9 +8,11 @@ import (
 	"os"
 	"reflect"
 	"runtime"
+	"slices"
 	"strings"
 	"sync"
 	"time"
+	"unsafe"
 
 	"github.com/klauspost/compress/zstd"
 	"github.com/parquet-go/parquet-go"
@@ -23,14 +25,12 @@ import (
 )
 
 // snapshotWriter writes one snapshot Parquet file to a temporary path while
-// hashing it. Writer settings are fixed (zstd, bounded row groups, a
-// created_by that names no build or time) so that the same events always
-// give the same bytes.
+// hashing it, through an EventWriter with every column.
 type snapshotWriter struct {
 	f     *os.File
 	h     hash.Hash
 	n     int64
-	w     *parquet.GenericWriter[schema.Event]
+	w     *EventWriter
 	batch *batches[schema.Event] // written on another goroutine
 	rows  int64
 	min   time.Time
@@ -45,17 +45,11 @@ func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom
 		return nil, fmt.Errorf("parquet: %w", err)
 	}
 	sw := &snapshotWriter{f: f, h: sha256.New()}
-	opts := []parquet.WriterOption{
-		parquet.Compression(PageCodec),
-		parquet.MaxRowsPerRowGroup(rowGroupRows),
-		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
-		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
-		parquet.KeyValueMetadata("flowcat.pseudonym_key_id", keyID),
-	}
+	kv := []KeyValue{{"flowcat.pseudonym_key_id", keyID}}
 	for _, d := range derivedFrom {
-		opts = append(opts, parquet.KeyValueMetadata("flowcat.derived_from", d))
+		kv = append(kv, KeyValue{"flowcat.derived_from", d})
 	}
-	sw.w = parquet.NewGenericWriter[schema.Event](io.MultiWriter(f, sw.h, countWriter{&sw.n}), opts...)
+	sw.w = NewEventWriter(io.MultiWriter(f, sw.h, countWriter{&sw.n}), schema.Fields, EventWriterOptions{RowGroupRows: rowGroupRows, Metadata: kv})
 	sw.batch = newBatches(1024, sw.flushBatch)
 	return sw, nil
 }
@@ -72,8 +66,10 @@ func (sw *snapshotWriter) Write(e *schema.Event) error {
 
 // flushBatch writes one batch of rows; it runs on the batches' goroutine.
 func (sw *snapshotWriter) flushBatch(batch []schema.Event) error {
-	if _, err := sw.w.Write(batch); err != nil {
-		return fmt.Errorf("parquet: %w", err)
+	for i := range batch {
+		if err := sw.w.Write(&batch[i]); err != nil {
+			return err
+		}
 	}
 	return nil
 }
@@ -85,7 +81,7 @@ func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
 		return blob.ID{}, 0, err
 	}
 	if err := sw.w.Close(); err != nil {
-		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
+		return blob.ID{}, 0, err
 	}
 	if err := sw.f.Sync(); err != nil {
 		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
@@ -101,6 +97,225 @@ func (sw *snapshotWriter) Remove() {
 	sw.batch.close()
 	sw.f.Close()
 	os.Remove(sw.f.Name())
+}
+
+// KeyValue is one entry of a Parquet file's key-value metadata.
+type KeyValue struct{ Key, Value string }
+
+// EventWriterOptions tune an EventWriter.
+type EventWriterOptions struct {
+	RowGroupRows int64      // rows per row group; required
+	Metadata     []KeyValue // key-value metadata, after flowcat.schema_version, in this order
+
+	schema *parquet.Schema // for the encodings benchmark: replaces subsetSchema(cols)
+}
+
+// EventWriter is the one Parquet writer of events, for snapshots and
+// exports: rows of a subset of the schema's columns (schema.Event's
+// Parquet layout), zstd pages (PageCodec), bounded row groups and a
+// created_by that names no build or time, so that the same events always
+// give the same bytes; row groups record occurred_at as their sorting
+// column when the file holds it.
+//
+// An empty optional field is written as NULL. parquet-go's writer of Go
+// structs decides nulls of "optional" non-pointer fields per batch with a
+// bitmap scan that, in v0.32.0, takes some empty strings for values (see
+// DEVELOPERS.md), so this writer never gives it such fields: a file of
+// every column goes through storedEvent, whose optional fields are
+// pointers (nil is NULL), and a column subset is written as rows that
+// carry their own definition levels (slower: about 1.5 to 2 times the
+// time, measured on the development machine).
+type EventWriter struct {
+	cols []schema.Field
+
+	// every column
+	g    *parquet.GenericWriter[storedEvent]
+	evs  []schema.Event
+	recs []storedEvent
+
+	// a subset
+	//lint:ignore SA1019 the generic writer needs a Go type; a column subset is a schema built at run time
+	w     *parquet.Writer
+	batch []parquet.Row
+	n     int
+}
+
+// storedEvent carries schema.Event's values to parquet-go's struct
+// writer, with pointers for the optional fields. The file's schema is
+// still schema.Event's; these tags only have to agree with it
+// (TestStoredEventSchema checks that they do).
+type storedEvent struct {
+	Site       string    `parquet:"site,dict"`
+	CaseID     string    `parquet:"case_id,dict"`
+	SubjectID  *string   `parquet:"subject_id,dict"`
+	ResourceID *string   `parquet:"resource_id,dict"`
+	Type       string    `parquet:"event_type,dict"`
+	Activity   *string   `parquet:"activity,dict"`
+	Queue      *string   `parquet:"queue,dict"`
+	OccurredAt time.Time `parquet:"occurred_at,timestamp(microsecond:utc)"`
+	Priority   *string   `parquet:"priority,dict"`
+	Channel    *string   `parquet:"channel,dict"`
+	Outcome    *string   `parquet:"outcome,dict"`
+	EventID    *string   `parquet:"event_id,plain"`
+}
+
+func nullable(s *string) *string {
+	if *s == "" {
+		return nil
+	}
+	return s
+}
+
+const writeBatch = 512
+
+// NewEventWriter returns a writer of cols to w.
+func NewEventWriter(w io.Writer, cols []schema.Field, opt EventWriterOptions) *EventWriter {
+	sch := opt.schema
+	every := sch == nil && slices.Equal(cols, schema.Fields)
+	if sch == nil {
+		sch = subsetSchema(cols)
+	}
+	opts := []parquet.WriterOption{
+		parquet.Compression(PageCodec),
+		parquet.MaxRowsPerRowGroup(opt.RowGroupRows),
+		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
+		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
+	}
+	for _, kv := range opt.Metadata {
+		opts = append(opts, parquet.KeyValueMetadata(kv.Key, kv.Value))
+	}
+	if slices.Contains(cols, schema.FieldOccurredAt) {
+		// Rows come in occurred_at order (ties in an order of their own):
+		// recorded as each row group's sorting_columns. The writer does not
+		// reorder rows.
+		opts = append(opts, parquet.SortingWriterConfig(parquet.SortingColumns(parquet.Ascending(string(schema.FieldOccurredAt)))))
+	}
+	ew := &EventWriter{cols: cols}
+	if every {
+		// The file's schema is schema.Event's (its tags are the one home of
+		// the layout); storedEvent only carries the values.
+		ew.g = parquet.NewGenericWriter[storedEvent](w, append([]parquet.WriterOption{sch}, opts...)...)
+		ew.evs = make([]schema.Event, 0, writeBatch)
+		ew.recs = make([]storedEvent, writeBatch)
+		return ew
+	}
+	ew.w = parquet.NewWriter(w, append([]parquet.WriterOption{sch}, opts...)...)
+	ew.batch = make([]parquet.Row, writeBatch)
+	for i := range ew.batch {
+		ew.batch[i] = make(parquet.Row, len(cols))
+	}
+	return ew
+}
+
+var (
+	eventType   = reflect.TypeFor[schema.Event]()
+	schemaCache sync.Map // column list -> *parquet.Schema
+)
+
+// subsetSchema is the Parquet schema of schema.Event restricted to cols:
+// a struct type of the same fields and tags, so node types, logical types
+// and encodings are those of the snapshots.
+func subsetSchema(cols []schema.Field) *parquet.Schema {
+	key := fmt.Sprint(cols)
+	if s, ok := schemaCache.Load(key); ok {
+		return s.(*parquet.Schema)
+	}
+	var fields []reflect.StructField
+	for _, c := range cols {
+		for i := range eventType.NumField() {
+			sf := eventType.Field(i)
+			if name, _, _ := strings.Cut(sf.Tag.Get("parquet"), ","); name == string(c) {
+				fields = append(fields, reflect.StructField{Name: sf.Name, Type: sf.Type, Tag: sf.Tag})
+			}
+		}
+	}
+	s := parquet.SchemaOf(reflect.New(reflect.StructOf(fields)).Elem().Interface())
+	schemaCache.Store(key, s)
+	return s
+}
+
+// Write appends e; e may be reused once Write returns.
+func (ew *EventWriter) Write(e *schema.Event) error {
+	if ew.g != nil {
+		ew.evs = append(ew.evs, *e)
+		if len(ew.evs) == cap(ew.evs) {
+			return ew.flush()
+		}
+		return nil
+	}
+	row := ew.batch[ew.n][:0]
+	for i, c := range ew.cols {
+		var v parquet.Value
+		switch {
+		case c == schema.FieldOccurredAt:
+			v = parquet.Int64Value(e.OccurredAt.UnixMicro()).Level(0, 0, i)
+		case c.Required():
+			v = bytesValue(e.Value(c)).Level(0, 0, i)
+		default:
+			if s := e.Value(c); s == "" {
+				v = parquet.NullValue().Level(0, 0, i)
+			} else {
+				v = bytesValue(s).Level(0, 1, i)
+			}
+		}
+		row = append(row, v)
+	}
+	ew.batch[ew.n] = row
+	ew.n++
+	if ew.n == len(ew.batch) {
+		return ew.flush()
+	}
+	return nil
+}
+
+// bytesValue wraps s without copying: the writer copies values into its
+// column buffers before WriteRows returns, and strings are immutable.
+func bytesValue(s string) parquet.Value {
+	return parquet.ByteArrayValue(unsafe.Slice(unsafe.StringData(s), len(s)))
+}
+
+func (ew *EventWriter) flush() error {
+	if ew.g != nil {
+		recs := ew.recs[:len(ew.evs)]
+		for i := range ew.evs {
+			e := &ew.evs[i]
+			recs[i] = storedEvent{Site: e.Site, CaseID: e.CaseID, SubjectID: nullable(&e.SubjectID), ResourceID: nullable(&e.ResourceID),
+				Type: string(e.Type), Activity: nullable(&e.Activity), Queue: nullable(&e.Queue), OccurredAt: e.OccurredAt,
+				Priority: nullable(&e.Priority), Channel: nullable(&e.Channel), Outcome: nullable(&e.Outcome), EventID: nullable(&e.EventID)}
+		}
+		if _, err := ew.g.Write(recs); err != nil {
+			return fmt.Errorf("parquet: %w", err)
+		}
+		clear(recs)
+		ew.evs = ew.evs[:0]
+		return nil
+	}
+	if ew.n == 0 {
+		return nil
+	}
+	if _, err := ew.w.WriteRows(ew.batch[:ew.n]); err != nil {
+		return fmt.Errorf("parquet: %w", err)
+	}
+	ew.n = 0
+	return nil
+}
+
+// Close writes the rows held and the footer; it does not close the
+// underlying writer.
+func (ew *EventWriter) Close() error {
+	if err := ew.flush(); err != nil {
+		return err
+	}
+	var err error
+	if ew.g != nil {
+		err = ew.g.Close()
+	} else {
+		err = ew.w.Close()
+	}
+	if err != nil {
+		return fmt.Errorf("parquet: %w", err)
+	}
+	return nil
 }
 
 // PageCodec compresses the pages of every Parquet file flowcat writes

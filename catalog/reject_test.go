@@ -94,7 +94,7 @@ func TestFileInvalid(t *testing.T) {
 			t.Errorf("%s: err = %v, want a *schema.FileError of rule %s", c.name, err, c.rule)
 		}
 		if res == nil || res.Version != nil || res.Upload.Status != UploadFailed || res.Upload.Error == nil ||
-			res.Upload.Error.Rule != c.rule || res.Upload.ID != "u"+string(rune('1'+i)) {
+			res.Upload.Error.Rule != c.rule || res.Upload.ID != UploadIDOf(i+1) {
 			t.Errorf("%s: result = %+v", c.name, res)
 		}
 	}

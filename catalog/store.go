@@ -101,12 +101,12 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
 	err = db.Update(func(tx *bolt.Tx) error {
-		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketHeads} {
+		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketManifests, bucketReports} {
 			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
 				return err
 			}
 		}
-		if err := backfillHeads(tx); err != nil {
+		if err := migrate(tx, opt.Logger); err != nil {
 			return err
 		}
 		meta := tx.Bucket(bucketMeta)
@@ -257,19 +257,19 @@ func (s *Store) CreateDataset(ctx context.Context, spec DatasetSpec, by string) 
 			return fmt.Errorf("project %q: %w", spec.Project, ErrNotFound)
 		}
 		b := tx.Bucket(bucketDatasets)
-		key := []byte(d.Ref())
+		key := []byte(d.Ref().String())
 		if b.Get(key) != nil {
-			return fmt.Errorf("dataset %q: %w", d.Ref(), ErrExists)
+			return fmt.Errorf("dataset %q: %w", d.Ref().String(), ErrExists)
 		}
 		if err := putJSON(b, key, d); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, "dataset.create", d.Ref())
+		return audit(tx, s.opt.Now(), by, "dataset.create", d.Ref().String())
 	})
 	if err != nil {
 		return nil, err
 	}
-	s.opt.Logger.Info("dataset created", "dataset", d.Ref(), "by", by)
+	s.opt.Logger.Info("dataset created", "dataset", d.Ref().String(), "by", by)
 	return d, nil
 }
 
@@ -325,49 +325,25 @@ func (s *Store) Datasets(ctx context.Context, project string) ([]Dataset, error)
 	return out, err
 }
 
-// Versions lists a dataset's versions, oldest first.
-func (s *Store) Versions(ctx context.Context, project, dataset string) ([]Version, error) {
-	return listOfDataset[Version](s, bucketVersions, project, dataset)
-}
-
-// Version returns version n of a dataset; n == 0 means the latest.
-func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*Version, error) {
-	var v Version
-	err := s.db.View(func(tx *bolt.Tx) error {
-		ref := project + "/" + dataset
-		if n == 0 {
-			var d Dataset
-			if err := getJSON(tx.Bucket(bucketDatasets), []byte(ref), &d, "dataset "+ref); err != nil {
-				return err
-			}
-			if d.Latest == 0 {
-				return fmt.Errorf("dataset %q has no version yet: %w", ref, ErrNotFound)
-			}
-			n = d.Latest
-		}
-		return getJSON(tx.Bucket(bucketVersions), seqKey(ref, n), &v, fmt.Sprintf("version %s@%d", ref, n))
-	})
-	if err != nil {
-		return nil, err
-	}
-	return &v, nil
-}
-
 // Uploads lists a dataset's uploads, oldest first.
 func (s *Store) Uploads(ctx context.Context, project, dataset string) ([]Upload, error) {
 	return listOfDataset[Upload](s, bucketUploads, project, dataset)
 }
 
-// OpenFile opens a file of version v for reading; the file must be listed
-// in v's manifest.
-func (s *Store) OpenFile(ctx context.Context, v *Version, id blob.ID) (blob.Reader, FileEntry, error) {
-	f, ok := v.File(id)
+// OpenFile opens a stored file of version v (with its manifest) for
+// reading; the file must be one of the manifest's Blobs.
+func (s *Store) OpenFile(ctx context.Context, v *Version, id blob.ID) (blob.Reader, BlobEntry, error) {
+	var f BlobEntry
+	ok := false
+	if v.Manifest != nil {
+		f, ok = v.Manifest.Blob(id)
+	}
 	if !ok {
-		return nil, FileEntry{}, fmt.Errorf("file %s is not part of version %d: %w", id, v.Number, ErrNotFound)
+		return nil, BlobEntry{}, fmt.Errorf("file %s is not part of version %d: %w", id, v.Number, ErrNotFound)
 	}
 	r, err := s.blobs.Open(ctx, id)
 	if err != nil {
-		return nil, FileEntry{}, fmt.Errorf("catalog: %w", err)
+		return nil, BlobEntry{}, fmt.Errorf("catalog: %w", err)
 	}
 	return r, f, nil
 }

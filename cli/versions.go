@@ -24,14 +24,14 @@ func newVersionsCmd(e *env) *cobra.Command {
 				return err
 			}
 			// The server answers a page at a time; follow the pages.
-			hs := []catalog.VersionHead{}
+			hs := []catalog.Version{}
 			after := 0
 			for {
 				var page struct {
-					Versions  []catalog.VersionHead `json:"versions"`
-					NextAfter *int                  `json:"next_after"`
+					Versions  []catalog.Version `json:"versions"`
+					NextAfter *int              `json:"next_after"`
 				}
-				q := url.Values{"limit": {strconv.Itoa(catalog.MaxHeadsPage)}, "after": {strconv.Itoa(after)}}
+				q := url.Values{"limit": {strconv.Itoa(catalog.MaxVersionsPage)}, "after": {strconv.Itoa(after)}}
 				if err := cl.getJSONQuery(cmd.Context(), r.path()+"/versions", q, &page); err != nil {
 					return err
 				}

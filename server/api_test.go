@@ -10,6 +10,7 @@ import (
 	"testing"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 // TestUploadTooLarge checks that a body over Config.MaxUploadBytes is
@@ -194,8 +195,9 @@ func TestVersionsPages(t *testing.T) {
 	for i, h := range hs {
 		var v catalog.Version
 		e.decode(e.get(fmt.Sprintf("%s/%d", ds, h.Number), e.admin), &v)
-		q := v.Manifest.Quality
-		if h.Number != i+1 || h.Score == nil || q == nil || *h.Score != *q.Score || h.Rows != v.Manifest.Rows || h.Files != len(v.Manifest.Files) || h.Mode != catalog.ModeAppend {
+		var q *quality.Report
+		e.decode(e.get(fmt.Sprintf("%s/%d/quality", ds, h.Number), e.admin), &q)
+		if h.Number != i+1 || h.Quality.Score == nil || q == nil || *h.Quality.Score != *q.Score || h.Rows != v.Manifest.Rows || h.Files != len(v.Manifest.Files) || h.Mode != catalog.ModeAppend || h.Events == nil || h.Events.New != v.Manifest.Lineage.Events.New {
 			t.Errorf("head %d: %+v; version's score %v rows %d files %d", i, h, q.Score, v.Manifest.Rows, len(v.Manifest.Files))
 		}
 		for _, d := range q.Dimensions {

@@ -58,7 +58,7 @@ func TestCurationOverHTTP(t *testing.T) {
 		t.Fatalf("latest after publication: %+v", v1)
 	}
 	for sel, want := range map[string]int{
-		v1.SnapshotID[:8]: http.StatusOK, "ABCDEF0123": http.StatusNotFound, "abc": http.StatusBadRequest,
+		v1.SnapshotID.String()[:8]: http.StatusOK, "ABCDEF0123": http.StatusNotFound, "abc": http.StatusBadRequest,
 		"2999-01-01T00:00:00Z": http.StatusOK, "2000-01-01T00:00:00Z": http.StatusNotFound, "2026-02-30T00:00:00Z": http.StatusBadRequest,
 		"0": http.StatusBadRequest, "99": http.StatusNotFound,
 	} {

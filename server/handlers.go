@@ -408,7 +408,7 @@ func readable(cl *Claims, project, _ string) bool { return cl.CanRead(project) }
 
 // versionsPage is one page of a dataset's versions.
 type versionsPage struct {
-	Versions []catalog.VersionHead `json:"versions"`
+	Versions []catalog.Version `json:"versions"`
 	// NextAfter, when set, is the after= of the next page.
 	NextAfter *int `json:"next_after,omitempty"`
 }
@@ -417,9 +417,10 @@ type versionsPage struct {
 const defaultVersionsPage = 100
 
 // listVersions lists a dataset's versions, oldest first, a page at a
-// time (?limit=, default 100, at most catalog.MaxHeadsPage; ?after= a
-// version number): each with its state, lineage mode, files, rows and
-// quality scores, never the manifest or the full report.
+// time (?limit=, default 100, at most catalog.MaxVersionsPage; ?after= a
+// version number): each version's record, with its state, lineage mode,
+// files, rows, quality scores and event counts, never the manifest or the
+// full report.
 func (s *Server) listVersions(c echo.Context) error {
 	d, err := s.dataset(c, readable, "read versions of")
 	if err != nil {
@@ -430,7 +431,7 @@ func (s *Server) listVersions(c echo.Context) error {
 		name     string
 		dst      *int
 		min, max int
-	}{{"limit", &limit, 1, catalog.MaxHeadsPage}, {"after", &after, 0, 1<<31 - 1}} {
+	}{{"limit", &limit, 1, catalog.MaxVersionsPage}, {"after", &after, 0, 1<<31 - 1}} {
 		v := c.QueryParam(p.name)
 		if v == "" {
 			continue
@@ -441,11 +442,11 @@ func (s *Server) listVersions(c echo.Context) error {
 		}
 		*p.dst = n
 	}
-	heads, next, err := s.cfg.Store.HeadsPage(c.Request().Context(), d.Project, d.Name, after, limit, claims(c).CanCurate(d.Project))
+	vs, next, err := s.cfg.Store.VersionsPage(c.Request().Context(), d.Project, d.Name, after, limit, claims(c).CanCurate(d.Project))
 	if err != nil {
 		return catalogError(err)
 	}
-	page := versionsPage{Versions: heads}
+	page := versionsPage{Versions: vs}
 	if next > 0 {
 		page.NextAfter = &next
 	}
@@ -468,7 +469,7 @@ func (s *Server) version(c echo.Context) (*catalog.Version, error) {
 
 // versionHead is version without the manifest: for handlers that need
 // only the version's name and state.
-func (s *Server) versionHead(c echo.Context) (*catalog.VersionHead, error) {
+func (s *Server) versionHead(c echo.Context) (*catalog.Version, error) {
 	project, name := c.Param("project"), c.Param("dataset")
 	if !readable(claims(c), project, name) {
 		return nil, forbidden("read versions of " + project + "/" + name)
@@ -477,7 +478,7 @@ func (s *Server) versionHead(c echo.Context) (*catalog.VersionHead, error) {
 	if err != nil {
 		return nil, catalogError(err)
 	}
-	h, err := s.cfg.Store.ResolveHead(c.Request().Context(), project, name, sel, claims(c).CanCurate(project))
+	h, err := s.cfg.Store.ResolveVersion(c.Request().Context(), project, name, sel, claims(c).CanCurate(project))
 	if err != nil {
 		return nil, catalogError(err)
 	}
@@ -492,7 +493,7 @@ func (s *Server) servable(c echo.Context) (*catalog.Version, error) {
 		return nil, err
 	}
 	if v.State == catalog.StateRetracted {
-		return nil, s.gone(v.Head())
+		return nil, s.gone(v)
 	}
 	return v, nil
 }
@@ -580,20 +581,27 @@ func (s *Server) getManifest(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	b, err := v.Manifest.Canonical()
+	b, err := s.cfg.Store.ManifestBytes(c.Request().Context(), v)
 	if err != nil {
-		return err
+		return catalogError(err)
 	}
-	c.Response().Header().Set("ETag", `"`+v.SnapshotID+`"`)
+	c.Response().Header().Set("ETag", `"`+v.SnapshotID.String()+`"`)
 	return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
 }
 
+// getQuality serves the version's quality report as stored: the bytes
+// whose sha256 its manifest names.
 func (s *Server) getQuality(c echo.Context) error {
-	v, err := s.version(c)
+	v, err := s.versionHead(c)
 	if err != nil {
 		return err
 	}
-	return c.JSON(http.StatusOK, v.Manifest.Quality)
+	b, err := s.cfg.Store.QualityReport(c.Request().Context(), v)
+	if err != nil {
+		return catalogError(err)
+	}
+	c.Response().Header().Set("ETag", `"`+v.Quality.SHA256.String()+`"`)
+	return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
 }
 
 // download streams one Parquet file of a version with Content-Length,

@@ -19,6 +19,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 // testIssuer is the iss claim of the test authority's tokens.
@@ -246,9 +247,9 @@ func (e *testEnv) createDataset(project, name, profile string) {
 
 // heads lists a dataset's versions as token sees them, following the
 // pages of size limit (0: the server's default).
-func (e *testEnv) heads(project, dataset, token string, limit int) []catalog.VersionHead {
+func (e *testEnv) heads(project, dataset, token string, limit int) []catalog.Version {
 	e.t.Helper()
-	out := []catalog.VersionHead{}
+	out := []catalog.Version{}
 	after := 0
 	for {
 		q := fmt.Sprintf("?after=%d", after)
@@ -342,4 +343,14 @@ func clipBody(b []byte) string {
 		s = s[:2000] + "..."
 	}
 	return strings.TrimSpace(s)
+}
+
+// versionReport returns version n's stored quality report, read by an admin.
+func (e *testEnv) versionReport(project, dataset string, n int) *quality.Report {
+	e.t.Helper()
+	r := e.get(fmt.Sprintf("/api/v1/projects/%s/datasets/%s/versions/%d/quality", project, dataset, n), e.admin)
+	e.mustStatus(r, http.StatusOK, "quality report")
+	var q quality.Report
+	e.decode(r, &q)
+	return &q
 }

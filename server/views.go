@@ -5,6 +5,7 @@ import (
 	"crypto/sha256"
 	"encoding/hex"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"net/http"
 	"net/url"
@@ -109,22 +110,22 @@ func (s *Server) getSummary(c echo.Context) error {
 		return err
 	}
 	if head.State == catalog.StateRetracted {
-		return s.gone(*head)
+		return s.gone(head)
 	}
 	h := c.Response().Header()
-	h.Set("ETag", `"`+head.SnapshotID+`"`)
+	h.Set("ETag", `"`+head.SnapshotID.String()+`"`)
 	if len(q) == 0 {
 		// Stored gzip-compressed: sent as it is to a client that takes gzip.
 		h.Add("Vary", "Accept-Encoding")
 		if acceptsGzip(c.Request()) {
-			gz, err := s.cfg.Store.SummaryGzip(c.Request().Context(), head.Dataset, head.Number)
+			gz, err := s.cfg.Store.SummaryGzip(c.Request().Context(), head.Dataset.String(), head.Number)
 			if err != nil {
 				return catalogError(err)
 			}
 			h.Set(echo.HeaderContentEncoding, "gzip")
 			return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, gz)
 		}
-		b, err := s.cfg.Store.Summary(c.Request().Context(), head.Dataset, head.Number)
+		b, err := s.cfg.Store.Summary(c.Request().Context(), head.Dataset.String(), head.Number)
 		if err != nil {
 			return catalogError(err)
 		}
@@ -167,18 +168,19 @@ func acceptsGzip(r *http.Request) bool {
 	return false
 }
 
-func (s *Server) gone(h catalog.VersionHead) error {
+func (s *Server) gone(h *catalog.Version) error {
 	return fail(http.StatusGone, "retracted", "version %d of %s was retracted on %s: %s; its metadata and citation stay readable",
 		h.Number, h.Dataset, h.RetractedAt.Format(time.RFC3339), h.RetractReason)
 }
 
 // requestTag is a strong ETag for a deterministic response: the same
-// version, format and filter always give the same bytes.
+// version, format and filter always give the same bytes, as long as the
+// writers' layout (export.Layout) stays the same.
 func requestTag(v *catalog.Version, format string, f export.Filter) string {
 	b, _ := json.Marshal(struct {
-		Snapshot, Format string
-		Filter           export.Filter
-	}{v.SnapshotID, format, f})
+		Snapshot, Format, Layout string
+		Filter                   export.Filter
+	}{v.SnapshotID.String(), format, export.Layout, f})
 	sum := sha256.Sum256(b)
 	return `"` + hex.EncodeToString(sum[:16]) + `"`
 }
@@ -204,7 +206,7 @@ func (s *Server) exportVersion(c echo.Context) error {
 		return err
 	}
 	tag := requestTag(v, format, f)
-	name := fmt.Sprintf("%s-v%d", strings.ReplaceAll(v.Manifest.Dataset, "/", "-"), v.Number)
+	name := fmt.Sprintf("%s-v%d", strings.ReplaceAll(v.Dataset.String(), "/", "-"), v.Number)
 	if len(q) > 1 || len(q) == 1 && q.Get("format") == "" {
 		name += "-" + strings.Trim(tag, `"`)[:8]
 	}
@@ -226,13 +228,13 @@ func (s *Server) exportVersion(c echo.Context) error {
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.parquet"`, name))
 		w.WriteHeader(http.StatusOK)
 		_, err = export.WriteParquet(ctx, w, s.source(), v.Manifest.Files, f, export.ParquetOptions{
-			Metadata: map[string]string{"flowcat.dataset": v.Manifest.Dataset, "flowcat.version": fmt.Sprint(v.Number), "flowcat.snapshot_id": v.SnapshotID},
+			Metadata: map[string]string{"flowcat.dataset": v.Dataset.String(), "flowcat.version": fmt.Sprint(v.Number), "flowcat.snapshot_id": v.SnapshotID.String()},
 		})
 	}
 	if err != nil {
 		// The status is sent: cut the body short so the client sees a
 		// truncated download rather than a whole-looking file.
-		s.cfg.Logger.Error("export interrupted", "dataset", v.Manifest.Dataset, "version", v.Number, "err", err)
+		s.cfg.Logger.Error("export interrupted", "dataset", v.Dataset, "version", v.Number, "err", err)
 		panic(http.ErrAbortHandler)
 	}
 	return nil
@@ -250,11 +252,11 @@ func (s *Server) citationInput(ctx context.Context, d *catalog.Dataset, v *catal
 	}
 	title := d.Title
 	if title == "" {
-		title = d.Ref()
+		title = d.Ref().String()
 	}
 	return export.CitationInput{
-		Title: title, Dataset: d.Ref(), Version: v.Number, SnapshotID: v.SnapshotID,
-		Released: v.Manifest.CreatedAt, Authors: []export.Author{{Name: author}},
+		Title: title, Dataset: d.Ref().String(), Version: v.Number, SnapshotID: v.SnapshotID.String(),
+		Released: v.CreatedAt, Authors: []export.Author{{Name: author}},
 	}
 }
 
@@ -299,10 +301,20 @@ func (s *Server) getBundle(c echo.Context) error {
 	h.Set("ETag", tag)
 	ct := map[string]string{"tar": "application/x-tar", "zip": "application/zip"}[format]
 	h.Set(echo.HeaderContentType, ct)
-	h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s-v%d.%s"`, strings.ReplaceAll(d.Ref(), "/", "-"), v.Number, format))
+	h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s-v%d.%s"`, strings.ReplaceAll(d.Ref().String(), "/", "-"), v.Number, format))
+	manifest, err := s.cfg.Store.ManifestBytes(c.Request().Context(), v)
+	if err != nil {
+		return catalogError(err)
+	}
+	report, err := s.cfg.Store.QualityReport(c.Request().Context(), v)
+	if errors.Is(err, catalog.ErrNotFound) {
+		report = nil
+	} else if err != nil {
+		return catalogError(err)
+	}
 	c.Response().WriteHeader(http.StatusOK)
 	err = export.WriteBundle(c.Request().Context(), c.Response(), format, export.Bundle{
-		Dataset: d, Version: v, Open: s.opener(), Citation: s.citationInput(c.Request().Context(), d, v),
+		Dataset: d, Version: v, Manifest: manifest, Quality: report, Open: s.opener(), Citation: s.citationInput(c.Request().Context(), d, v),
 	})
 	if err != nil {
 		s.cfg.Logger.Error("bundle interrupted", "dataset", d.Ref(), "version", v.Number, "err", err)
@@ -321,8 +333,8 @@ type diffResponse struct {
 }
 
 type versionRef struct {
-	Version    int    `json:"version"`
-	SnapshotID string `json:"snapshot_id"`
+	Version    int                `json:"version"`
+	SnapshotID catalog.SnapshotID `json:"snapshot_id"`
 }
 
 // diffVersions compares versions ?a= and ?b= (any selectors) by content,
@@ -354,7 +366,7 @@ func (s *Server) diffVersions(c echo.Context) error {
 			return catalogError(err)
 		}
 		if v.State == catalog.StateRetracted {
-			return s.gone(v.Head())
+			return s.gone(v)
 		}
 		vs[i] = v
 	}
@@ -364,11 +376,18 @@ func (s *Server) diffVersions(c echo.Context) error {
 	}
 	out := diffResponse{
 		From: versionRef{vs[0].Number, vs[0].SnapshotID}, To: versionRef{vs[1].Number, vs[1].SnapshotID},
-		Events: res, Quality: qualityDelta(vs[0], vs[1]),
+		Events: res,
 	}
+	var reps [2][]byte
+	for i, v := range vs {
+		if reps[i], err = s.cfg.Store.QualityReport(ctx, v); err != nil && !errors.Is(err, catalog.ErrNotFound) {
+			return catalogError(err)
+		}
+	}
+	out.Quality = qualityDelta(reps[0], reps[1])
 	var sums [2]map[string]any
 	for i, v := range vs {
-		b, err := s.cfg.Store.Summary(ctx, v.Manifest.Dataset, v.Number)
+		b, err := s.cfg.Store.Summary(ctx, v.Dataset.String(), v.Number)
 		if err != nil {
 			return catalogError(err)
 		}
@@ -413,13 +432,13 @@ func lookup(m map[string]any, path string) (float64, bool) {
 }
 
 // qualityDelta is b's scores minus a's: the overall score and each
-// dimension's, read from the reports' JSON so it follows the report format.
-func qualityDelta(a, b *catalog.Version) map[string]float64 {
-	scores := func(v *catalog.Version) map[string]float64 {
+// dimension's, read from the stored reports' JSON so it follows the
+// report format.
+func qualityDelta(a, b []byte) map[string]float64 {
+	scores := func(raw []byte) map[string]float64 {
 		out := map[string]float64{}
 		var m map[string]any
-		raw, err := json.Marshal(v.Manifest.Quality)
-		if err != nil || json.Unmarshal(raw, &m) != nil {
+		if json.Unmarshal(raw, &m) != nil {
 			return out
 		}
 		if f, ok := m["score"].(float64); ok {

@@ -155,7 +155,7 @@ func stage(ctx context.Context, dir string, ins []*input, m *matcher, st *Stats)
 	}
 	path := tmp.Name()
 	defer tmp.Close()
-	pw := newParquetWriter(tmp, schema.Fields, DefaultRowGroupRows, nil)
+	pw := catalog.NewEventWriter(tmp, schema.Fields, catalog.EventWriterOptions{RowGroupRows: DefaultRowGroupRows})
 	s := newMerge(ctx, ins, m, st)
 	defer s.close()
 	var first, last time.Time
