@@ -63,6 +63,12 @@ func arrowReadout(t *testing.T, data []byte) readout {
 			if dt.Unit == arrow.Microsecond && dt.TimeZone == "UTC" {
 				typ = "TIMESTAMP WITH TIME ZONE"
 			}
+		case *arrow.Int64Type:
+			typ = "BIGINT"
+		case *arrow.Int32Type:
+			typ = "INTEGER"
+		case *arrow.Float64Type:
+			typ = "DOUBLE"
 		}
 		out.Columns = append(out.Columns, struct {
 			Name  string `json:"name"`
@@ -112,7 +118,8 @@ func checkEngineFriendly(t *testing.T, data []byte) {
 }
 
 // TestEveryEngineReadsTheFiles writes every kind of Parquet file flowcat
-// writes (a snapshot, a whole export, a filtered export of some columns,
+// writes (a snapshot, its version's case table, a whole export, a filtered
+// export of some columns,
 // and a snapshot of the first release, which old data directories still
 // serve) and checks that Apache Arrow's Go reader and DuckDB (through
 // @duckdb/node-api, installed by .ci/run into testdata/duckdb) read the same
@@ -129,6 +136,15 @@ func TestEveryEngineReadsTheFiles(t *testing.T) {
 		t.Fatal(err)
 	}
 	files["snapshot"], _ = io.ReadAll(r)
+	r.Close()
+	if v.Manifest.CaseTable == nil {
+		t.Fatal("no case table")
+	}
+	r, err = e.s.Blobs().Open(ctx, v.Manifest.CaseTable.SHA256)
+	if err != nil {
+		t.Fatal(err)
+	}
+	files["case-table"], _ = io.ReadAll(r)
 	r.Close()
 	var whole, part bytes.Buffer
 	if _, err := WriteParquet(ctx, &whole, src, v.Manifest.Files, Filter{}, ParquetOptions{RowGroupRows: 700}); err != nil {

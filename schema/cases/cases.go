@@ -443,10 +443,10 @@ func Less(a, b *schema.Event) int {
 // order. Instants are TIMESTAMP(MICROS, UTC); durations are seconds; a
 // column is NULL where the case's events do not measure it.
 type Row struct {
-	CaseID          string     `parquet:"case_id" json:"case_id"`
+	CaseID          string     `parquet:"case_id,plain" json:"case_id"`
 	Site            string     `parquet:"site,dict" json:"site"`
 	Sites           int32      `parquet:"sites" json:"sites"`
-	SubjectID       *string    `parquet:"subject_id,optional" json:"subject_id,omitempty"`
+	SubjectID       *string    `parquet:"subject_id,optional,plain" json:"subject_id,omitempty"`
 	FirstAt         time.Time  `parquet:"first_at,timestamp(microsecond:utc)" json:"first_at"`
 	LastAt          time.Time  `parquet:"last_at,timestamp(microsecond:utc)" json:"last_at"`
 	Events          int64      `parquet:"events" json:"events"`
