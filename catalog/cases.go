@@ -26,6 +26,9 @@ type CasePass struct {
 	subjects  *distinctCounter
 	resources *distinctCounter
 	events    int64
+	// Terminal are the dataset's terminal event types
+	// (schema.Profile.Terminal), for the builder's census.
+	Terminal []schema.EventType
 }
 
 // NewCasePass returns a pass whose sort runs and counts spill to dir, in
@@ -60,6 +63,7 @@ func (p *CasePass) Add(e *schema.Event) error {
 // Run feeds every case to the observers and returns the exact counts.
 func (p *CasePass) Run(obs ...cases.Observer) (summary.Counts, error) {
 	b := cases.NewBuilder(obs...)
+	b.Terminal = p.Terminal
 	if err := p.srt.Finish(func(e *schema.Event) error { b.Add(e); return nil }); err != nil {
 		return summary.Counts{}, err
 	}

@@ -179,7 +179,7 @@ func TestCasesWholeAcrossIdleAndUploads(t *testing.T) {
 		t.Errorf("case-level quality differs:\n%+v %+v\n%+v %+v", q1.Cases, q1.Stages, q12.Cases, q12.Stages)
 	}
 	for i := range q1.Raw.Sites {
-		if a, b := q1.Raw.Sites[i].Census, q12.Raw.Sites[i].Census; a.Arrivals != b.Arrivals || a.Completed != b.Completed || a.SojournSeconds != b.SojournSeconds || a.AreaCaseSeconds != b.AreaCaseSeconds {
+		if a, b := q1.Raw.Sites[i].Census, q12.Raw.Sites[i].Census; a.Entries != b.Entries || a.Exits != b.Exits || a.StayedSeconds != b.StayedSeconds || a.SpanSeconds != b.SpanSeconds || a.AreaCaseSeconds != b.AreaCaseSeconds {
 			t.Errorf("census sums differ: %+v vs %+v", a, b)
 		}
 	}

@@ -138,6 +138,10 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 	}
 	cp := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
 	defer cp.Close()
+	if prof, err := ds.EffectiveProfile(); err == nil {
+		cp.Terminal = prof.Terminal
+		qopt.Terminal = prof.Terminal
+	}
 	for _, f := range files {
 		err := s.readFile(ctx, f.SHA256, func(e *schema.Event) error {
 			// Strings read from Parquet may point into the reader's

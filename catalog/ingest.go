@@ -128,7 +128,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 
 	raw := &hashCounter{h: sha256.New()}
 	tee := io.TeeReader(src, raw)
-	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location()}
+	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal}
 	if ds.WindowFrom != nil {
 		qopt.WindowFrom = *ds.WindowFrom
 	}
@@ -199,6 +199,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	// The upload's own per-case pass, for its report: its events sorted by
 	// case on disk, each carrying what the time pass found of it.
 	upCases := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
+	upCases.Terminal = prof.Terminal
 	defer upCases.Close()
 	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
 		fl := acc.Observe(e)

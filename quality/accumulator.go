@@ -92,6 +92,9 @@ type Options struct {
 	// MaxHours is how many hours the gap series of one site spans.
 	// Default [DefaultMaxHours].
 	MaxHours int
+	// Terminal are the event types, besides departure and abandon, that
+	// end a case's presence (schema.Profile.Terminal; see cases.Exits).
+	Terminal []schema.EventType
 	// MaxSamples is how many sample locations each finding keeps.
 	// Default [DefaultMaxSamples].
 	MaxSamples int
@@ -331,8 +334,9 @@ type siteAcc struct {
 	openN     int64   // cases still in the system at their last event
 	openEntry float64 // sum of their entry instants (µs)
 	arrivals  int64
-	completed int64
-	sojourn   float64 // µs
+	entries   int64   // stays begun
+	exits     int64   // stays ended by an exit
+	stayed    float64 // µs of stays, an open one to its case's last event
 	// lag to the upload
 	lag    [lagBuckets]int64
 	lagMax int64 // seconds

@@ -75,6 +75,7 @@ const (
 	csWaitAnchor                         // an arrival since the last start
 	csPrevTransfer                       // the latest event was a transfer
 	csOpenStart                          // start holds a start not yet completed
+	csExited                             // left the census by an abandon or a terminal type, no arrival since
 	csNowFlags        = csPendStartNow | csPendCompleteNow | csPendDepNow | csDepartedNow
 )
 
@@ -171,8 +172,16 @@ func (a *Accumulator) endCase() {
 		s.n[cWaitNoStart]++
 	}
 	if st.flags&csInSystem != 0 {
-		s.openN++
-		s.openEntry += float64(st.entry)
+		if st.flags&csPrevTransfer != 0 {
+			// Transferred out: it left at the transfer, its last event.
+			a.leave(s, st.rec)
+		} else {
+			// Never left: in the census to the site's last event (added at
+			// report time); its stay ends where it was last seen.
+			s.openN++
+			s.openEntry += float64(st.entry)
+			s.stayed += float64(st.rec - st.entry)
+		}
 	}
 	*st = caseState{}
 }
@@ -181,11 +190,14 @@ func (a *Accumulator) endCase() {
 func (a *Accumulator) enter(s *siteAcc, at int64) {
 	a.cur.entry = at
 	a.cur.flags |= csInSystem
+	s.entries++
 }
 
 // leave takes the case in hand out of the census of its site at at.
 func (a *Accumulator) leave(s *siteAcc, at int64) {
 	s.area += float64(at - a.cur.entry)
+	s.stayed += float64(at - a.cur.entry)
+	s.exits++
 	a.cur.flags &^= csInSystem
 }
 
@@ -275,7 +287,7 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 			f = st.flags
 		}
 		f |= csArr | csWaitAnchor | csStay
-		f &^= csDeparted | csDepartedNow
+		f &^= csDeparted | csDepartedNow | csExited
 		st.arr = at
 	case tEnqueue:
 		afterDeparture()
@@ -354,18 +366,21 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 			st.flags = f
 			a.leave(s, at)
 			f = st.flags
-		} else {
-			// A departure of a case that is not in the system: more
+		} else if f&csExited == 0 {
+			// A departure of a case that is not in the system (and did
+			// not leave by an abandon or a terminal type): more
 			// departures than entries.
 			a.flag(s, cCensusNegative, e)
 			con = true
 		}
-		if f&csStay != 0 {
-			s.completed++
-			s.sojourn += float64(at - st.arr)
-		}
 		f &^= csStay | csImplicit
 		f |= csDep | csDeparted | csDepartedNow
+	}
+	if ti != tDeparture && f&csInSystem != 0 && cases.Exits(e.Type, a.opt.Terminal) {
+		// An abandon or a declared terminal type ends the stay too.
+		st.flags = f
+		a.leave(s, at)
+		f = st.flags | csExited
 	}
 	if ti == tTransfer {
 		f |= csPrevTransfer
@@ -422,6 +437,7 @@ func (a *Accumulator) ObserveSorted(evs []schema.Event) {
 	}
 	slices.SortStableFunc(idx, func(i, j int) int { return cases.Less(&evs[i], &evs[j]) })
 	b := cases.NewBuilder(a)
+	b.Terminal = a.opt.Terminal
 	for _, i := range idx {
 		e := evs[i]
 		e.Line = PackLine(e.Line, flags[i])

@@ -14,11 +14,11 @@ const (
 	// clockJudgedMax: backward steps are judged only in a file whose
 	// steps back are at most this share of its rows (a time-ordered file).
 	clockJudgedMax = 0.01
-	// littleMinCompleted and littleMinSpan: Little's law is judged for a
-	// site with at least this many completed stays over a span at least
-	// this many times the mean stay.
-	littleMinCompleted = 30
-	littleMinSpan      = 10.0
+	// littleMinStays and littleMinSpan: Little's law is judged for a site
+	// with at least this many entries and as many exits over a span at
+	// least this many times the mean stay (the summary's rule too).
+	littleMinStays = 30
+	littleMinSpan  = 10.0
 	// littlePenalty is what a flagged Little's law takes off the
 	// consistency score (scaled by the share of judged sites flagged).
 	littlePenalty = 20.0
@@ -174,19 +174,19 @@ func deriveSite(s *SiteRaw, set *Settings, zone *time.Location) siteDerived {
 	}
 	// Little's law.
 	c := &s.Census
-	l := LittleLaw{Site: s.Site, SpanHours: c.SpanSeconds / 3600, Arrivals: c.Arrivals, Completed: c.Completed, CensusMin: c.Min}
+	l := LittleLaw{Site: s.Site, SpanHours: c.SpanSeconds / 3600, Entries: c.Entries, Exits: c.Exits, CensusMin: c.Min}
 	if c.SpanSeconds > 0 {
 		l.L = c.AreaCaseSeconds / c.SpanSeconds
-		l.Lambda = float64(c.Arrivals) / l.SpanHours
+		l.Lambda = float64(c.Entries) / l.SpanHours
 	}
-	if c.Completed > 0 {
-		l.W = c.SojournSeconds / float64(c.Completed) / 3600
+	if c.Entries > 0 {
+		l.W = c.StayedSeconds / float64(c.Entries) / 3600
 	}
 	l.LambdaW = l.Lambda * l.W
 	if l.LambdaW > 0 {
 		l.Ratio = l.L / l.LambdaW
 	}
-	if c.Completed >= littleMinCompleted && l.W > 0 && l.SpanHours >= littleMinSpan*l.W {
+	if c.Entries >= littleMinStays && c.Exits >= littleMinStays && l.W > 0 && l.SpanHours >= littleMinSpan*l.W {
 		l.Judged = true
 		l.Flagged = math.Abs(l.Ratio-1) > set.LittleTolerance
 	}

@@ -343,7 +343,7 @@ func TestLittlesLaw(t *testing.T) {
 	l := intact.Little[0]
 	// L = λ·W = 6/h · 1 h = 6 (Little's law, L = λW; from memory). The
 	// window ends at the last departure, so the edge costs well under 1%.
-	if !l.Judged || l.Flagged || l.Completed != 7*24*6 || l.W != 1 || l.Ratio < 0.99 || l.Ratio > 1.01 {
+	if !l.Judged || l.Flagged || l.Exits != 7*24*6 || l.W != 1 || l.Ratio < 0.99 || l.Ratio > 1.01 {
 		t.Errorf("intact: %+v", l)
 	}
 	if intact.Count(CodeLittlesLawMismatch) != 0 {

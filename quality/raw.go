@@ -110,9 +110,9 @@ func (d *CaseRaw) merge(s *CaseRaw) {
 type CensusRaw struct {
 	SpanSeconds     float64 `json:"span_seconds"`
 	AreaCaseSeconds float64 `json:"area_case_seconds"` // ∫ census dt
-	Arrivals        int64   `json:"arrivals"`
-	Completed       int64   `json:"completed"` // stays with arrival and departure
-	SojournSeconds  float64 `json:"sojourn_seconds"`
+	Entries         int64   `json:"entries"`           // stays begun (see cases.Record.Stays)
+	Exits           int64   `json:"exits"`             // stays ended by an exit (cases.Exits)
+	StayedSeconds   float64 `json:"stayed_seconds"`    // Σ stays, an open one ending at its case's last event
 	Min             int64   `json:"min"`
 }
 
@@ -305,9 +305,9 @@ func mergeSite(d, s *SiteRaw) {
 	c := &d.Census
 	c.SpanSeconds += s.Census.SpanSeconds
 	c.AreaCaseSeconds += s.Census.AreaCaseSeconds
-	c.Arrivals += s.Census.Arrivals
-	c.Completed += s.Census.Completed
-	c.SojournSeconds += s.Census.SojournSeconds
+	c.Entries += s.Census.Entries
+	c.Exits += s.Census.Exits
+	c.StayedSeconds += s.Census.StayedSeconds
 	if first || s.Census.Min < c.Min {
 		c.Min = s.Census.Min
 	}
@@ -377,10 +377,11 @@ func WithCases(merged, cases *Report) *Report {
 		}
 		s.Stages = c.Stages
 		s.Cases = c.Cases
+		s.Census.SpanSeconds = c.Census.SpanSeconds
 		s.Census.AreaCaseSeconds = c.Census.AreaCaseSeconds
-		s.Census.Arrivals = c.Census.Arrivals
-		s.Census.Completed = c.Census.Completed
-		s.Census.SojournSeconds = c.Census.SojournSeconds
+		s.Census.Entries = c.Census.Entries
+		s.Census.Exits = c.Census.Exits
+		s.Census.StayedSeconds = c.Census.StayedSeconds
 		for _, code := range caseCodes {
 			if n := c.Counts[code]; n > 0 {
 				s.Counts[code] = n

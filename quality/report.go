@@ -141,15 +141,18 @@ type Heaping struct {
 	Heaped   bool    `json:"heaped"`
 }
 
-// LittleLaw compares, for one site, the time-average number in system L
-// with λ·W. Rates are per hour, times in hours.
+// LittleLaw compares, for one site, the time-average census L with λ·W,
+// each side measured apart (SCORING.md): L from the census of entries and
+// exits, a stay without an exit counted to the site's last event; λ·W
+// from the entries and the stays, a stay without an exit ending at its
+// case's last event. Rates are per hour, times in hours.
 type LittleLaw struct {
 	Site      string  `json:"site"`
 	Judged    bool    `json:"judged"`
 	Flagged   bool    `json:"flagged"`
 	SpanHours float64 `json:"span_hours"`
-	Arrivals  int64   `json:"arrivals"`
-	Completed int64   `json:"completed"`
+	Entries   int64   `json:"entries"`
+	Exits     int64   `json:"exits"`
 	L         float64 `json:"l"`
 	Lambda    float64 `json:"lambda"`
 	W         float64 `json:"w"`
@@ -395,12 +398,14 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 		// Cases still in the system stay in the census to the site's last
 		// event.
 		area := s.area + float64(s.openN)*float64(s.lastAt) - s.openEntry
+		stayed := s.stayed
 		if st := &a.cur; st.id != "" && st.flags&csInSystem != 0 && st.site == s.idx {
 			area += float64(s.lastAt - st.entry)
+			stayed += float64(st.rec - st.entry)
 		}
 		r.Census = CensusRaw{
 			SpanSeconds: float64(s.lastAt-s.firstAt) / 1e6, AreaCaseSeconds: area / 1e6,
-			Arrivals: s.arrivals, Completed: s.completed, SojournSeconds: s.sojourn / 1e6, Min: s.censusMin,
+			Entries: s.entries, Exits: s.exits, StayedSeconds: stayed / 1e6, Min: s.censusMin,
 		}
 	}
 	r.Lag = LagRaw{N: s.lagN, MaxSeconds: s.lagMax, Buckets: map[int]int64{}}

@@ -68,7 +68,7 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	// Little's law.
 	var lrows [][]string
 	for _, l := range r.Little {
-		if l.Completed == 0 && l.Arrivals == 0 {
+		if l.Exits == 0 && l.Entries == 0 {
 			continue
 		}
 		mark := "not judged"

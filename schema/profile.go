@@ -78,6 +78,10 @@ type Profile struct {
 	Timezone  string            `json:"timezone"`            // IANA zone name of wall-clock times
 	LocalTime LocalTimePolicy   `json:"local_time"`
 	Fields    map[Field]Mapping `json:"fields"`
+	// Terminal names event types that end a case's presence at its site
+	// besides departure and abandon (a contact line's complete, say): the
+	// census and Little's law take the case out at the first of them.
+	Terminal []EventType `json:"terminal,omitempty"`
 
 	loc *time.Location
 }
@@ -222,8 +226,14 @@ func ParseProfile(data []byte) (*Profile, error) {
 			}
 		case "fields":
 			fieldsNode = kv.value
+		case "terminal":
+			ts, err := terminalTypes(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			p.Terminal = ts
 		default:
-			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, timezone, local_time or fields)"}
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, timezone, local_time, terminal or fields)"}
 		}
 	}
 	if fieldsNode == nil {
@@ -399,6 +409,11 @@ func (p *Profile) validate(lines map[string]int) error {
 			}
 		}
 	}
+	for _, t := range p.Terminal {
+		if !t.Valid() || t == Arrival || t == Enqueue {
+			return at("terminal", fmt.Sprintf("%q cannot end a case (want start, complete, abandon, transfer or departure)", clip(string(t))))
+		}
+	}
 	return nil
 }
 
@@ -467,6 +482,31 @@ func scalar(n ast.Node, key string) (string, error) {
 		return "", &ProfileError{Line: line(n), Key: key, Msg: "anchors, aliases and tags are not supported in profiles"}
 	}
 	return "", &ProfileError{Line: line(n), Key: key, Msg: "must be a single value"}
+}
+
+// terminalTypes reads the terminal key: one event type or a list of them.
+func terminalTypes(n ast.Node, key string) ([]EventType, error) {
+	var items []ast.Node
+	if seq, ok := n.(*ast.SequenceNode); ok {
+		items = seq.Values
+	} else {
+		items = []ast.Node{n}
+	}
+	var out []EventType
+	for _, it := range items {
+		s, err := scalar(it, key)
+		if err != nil {
+			return nil, err
+		}
+		t, err := ParseEventType(s)
+		if err != nil {
+			return nil, &ProfileError{Line: line(it), Key: key, Msg: fmt.Sprintf("unknown event type %q (want one of %s)", clip(s), eventTypeList())}
+		}
+		if !slices.Contains(out, t) {
+			out = append(out, t)
+		}
+	}
+	return out, nil
 }
 
 func fieldMapping(n ast.Node, key string, lines map[string]int) (Mapping, error) {

@@ -44,6 +44,11 @@ type Options struct {
 	// before it collapses to log buckets of relative error 0.5%.
 	// Default [DefaultExactValues].
 	ExactValues int
+	// Terminal are the event types, besides departure and abandon, that
+	// end a case's presence (schema.Profile.Terminal), for the per-case
+	// computation of [Accumulator.ObserveAll]; catalog sets them on its
+	// own case pass.
+	Terminal []schema.EventType
 }
 
 // Accumulator gathers a summary in two parts. Event-level figures (event
@@ -93,6 +98,7 @@ type Accumulator struct {
 	prevCase string
 	caseAt   int64 // the previous event of prevCase
 	occ      map[int64]*occBucket
+	census   census
 
 	// stream state of the current file
 	prevAt   int64
@@ -137,6 +143,27 @@ type activityGroup struct {
 	events   uint64
 	svc      *dist
 	negative uint64
+}
+
+// census holds the sums of Little's law over whole cases (see
+// cases.Record.Stays): exact integer sums, so states merge exactly.
+// Instants are stored shifted by instantShift to stay unsigned.
+type census struct {
+	stays, exits, open uint64
+	present            u128 // µs of the stays that ended by an exit
+	openSince          u128 // Σ entry of the stays still open, shifted
+	openLast           u128 // Σ last event of the cases holding them, shifted
+}
+
+const instantShift = 1 << 62
+
+func (c *census) merge(o *census) {
+	c.stays += o.stays
+	c.exits += o.exits
+	c.open += o.open
+	c.present.merge(o.present)
+	c.openSince.merge(o.openSince)
+	c.openLast.merge(o.openLast)
 }
 
 // occBucket holds what happened in one occupancy bucket: arrivals and
@@ -349,6 +376,19 @@ func (a *Accumulator) Case(r *cases.Record) {
 	a.prevCase = ""
 	a.occAdd(r.First, true)
 	a.occAdd(r.Last, false)
+	c := &a.census
+	c.stays += uint64(r.Stays)
+	if r.Present > 0 {
+		c.present.add(uint64(r.Present))
+	}
+	if r.OpenSince != nil {
+		c.open++
+		c.openSince.add(uint64(*r.OpenSince + instantShift))
+		c.openLast.add(uint64(r.Last + instantShift))
+		c.exits += uint64(r.Stays - 1)
+	} else {
+		c.exits += uint64(r.Stays)
+	}
 }
 
 // wait records a wait of d µs in queue q that ended in a start (served) or
@@ -459,6 +499,7 @@ func (a *Accumulator) ObserveAll(evs []schema.Event) {
 	}
 	slices.SortStableFunc(idx, func(i, j int) int { return cases.Less(&evs[i], &evs[j]) })
 	b := cases.NewBuilder(a)
+	b.Terminal = a.opt.Terminal
 	for _, i := range idx {
 		b.Add(&evs[i])
 	}

@@ -10,12 +10,13 @@ import (
 
 // stateMagic starts every serialized state; the last byte is the format
 // version.
-const stateMagic = "FCSUM\x02"
+const stateMagic = "FCSUM\x03"
 
-// oldStateMagic starts states written before cases were whole (their case
-// figures were cut per file); UnmarshalBinary refuses them with
+// oldStateMagics start states of earlier formats: written before cases
+// were whole (their case figures were cut per file; 1) or before the
+// census of Little's law (2). UnmarshalBinary refuses them with
 // ErrOldState, and the caller recomputes the state from the file.
-const oldStateMagic = "FCSUM\x01"
+var oldStateMagics = []string{"FCSUM\x01", "FCSUM\x02"}
 
 type enc struct{ b []byte }
 
@@ -164,6 +165,13 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 	e.dist(a.los)
 	e.dist(a.evCase)
 	e.dist(a.between)
+	c := &a.census
+	e.uv(c.stays)
+	e.uv(c.exits)
+	e.uv(c.open)
+	e.u128(c.present)
+	e.u128(c.openSince)
+	e.u128(c.openLast)
 	keys := slices.Sorted(maps.Keys(a.occ))
 	e.uv(uint64(len(keys)))
 	var pk int64
@@ -293,8 +301,10 @@ func (d *dec) dist() *dist {
 // [Accumulator.MarshalBinary]. It fails with ErrCorrupt on malformed bytes
 // and with an error from time.LoadLocation on an unknown zone.
 func (a *Accumulator) UnmarshalBinary(b []byte) error {
-	if len(b) >= len(oldStateMagic) && string(b[:len(oldStateMagic)]) == oldStateMagic {
-		return fmt.Errorf("summary: %w", ErrOldState)
+	for _, m := range oldStateMagics {
+		if len(b) >= len(m) && string(b[:len(m)]) == m {
+			return fmt.Errorf("summary: %w", ErrOldState)
+		}
 	}
 	if len(b) < len(stateMagic) || string(b[:len(stateMagic)]) != stateMagic {
 		return fmt.Errorf("summary: %w", ErrCorrupt)
@@ -364,6 +374,7 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 	x.los = d.dist()
 	x.evCase = d.dist()
 	x.between = d.dist()
+	x.census = census{stays: d.uv(), exits: d.uv(), open: d.uv(), present: d.u128(), openSince: d.u128(), openLast: d.u128()}
 	var k int64
 	for range d.count(5) {
 		k += d.iv()

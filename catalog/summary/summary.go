@@ -193,15 +193,36 @@ type Occupancy struct {
 	Little     Little     `json:"little"`
 }
 
-// Little checks L = λW over [From, To].
+// Little checks L = λW over [From, To] with its two sides measured apart
+// (SUMMARY.md): L is the time-average census, each entry counted until
+// its exit (departure, abandon, a transfer ending the case, a type the
+// profile declares terminal) or, without one, until To; λW is the entries
+// per second times their mean stay, a stay without an exit ending at its
+// case's last event. They differ by the time cases stayed in the census
+// after they were last seen: lost exits.
 type Little struct {
 	Seconds float64 `json:"seconds"` // T = To - From
-	L       float64 `json:"l"`       // time-average number in system
-	Lambda  float64 `json:"lambda"`  // cases per second
-	W       float64 `json:"w"`       // mean length of stay, seconds
+	Entries uint64  `json:"entries"` // stays begun
+	Exits   uint64  `json:"exits"`   // stays ended by an exit
+	Open    uint64  `json:"open"`    // stays without an exit
+	L       float64 `json:"l"`       // time-average census
+	Lambda  float64 `json:"lambda"`  // entries per second
+	W       float64 `json:"w"`       // mean stay, seconds
 	LambdaW float64 `json:"lambda_w"`
 	Ratio   float64 `json:"ratio"` // L / (λW)
+	// Judged: both sides are measured (at least LittleMinStays entries and
+	// as many exits, over a span of at least LittleMinSpan mean stays), so
+	// the ratio says something about the data.
+	Judged bool `json:"judged"`
 }
+
+// Little's law is judged on at least LittleMinStays entries and exits over
+// a span of at least LittleMinSpan mean stays (the window's edges then
+// weigh little; the quality report uses the same rule).
+const (
+	LittleMinStays = 30
+	LittleMinSpan  = 10.0
+)
 
 // Selection restricts a summary's groups to the named sites, queues and
 // activities; an empty list keeps all. Totals are never restricted: for a
@@ -297,6 +318,10 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 			Why: "no start is followed by a complete of the same activity in the same case"})
 	}
 	s.Occupancy = a.occupancy()
+	if a.events > 0 && s.Occupancy.Little.Exits == 0 {
+		s.NotMeasurable = append(s.NotMeasurable, NotMeasurable{Figure: "littles_law",
+			Why: "no case leaves by a departure, an abandon, a final transfer or a type the profile declares terminal, so the census never falls"})
+	}
 	return s
 }
 
@@ -530,8 +555,7 @@ func (a *Accumulator) occupancy() Occupancy {
 	first, last := keys[0], keys[len(keys)-1]
 	st := time.UnixMicro(first * a.res).In(a.loc)
 	o.Start = &st
-	var n int64    // number in system at the bucket start
-	var area int64 // µs·cases
+	var n int64 // number in system at the bucket start
 	var sums [168]float64
 	var cnt [168]int
 	w := float64(a.res)
@@ -540,10 +564,7 @@ func (a *Accumulator) occupancy() Occupancy {
 		ar := float64(n) * w
 		if x != nil {
 			ar += float64(x.arrRest - x.depRest)
-			area += n*a.res + x.arrRest - x.depRest
 			n += int64(x.arr) - int64(x.dep)
-		} else {
-			area += n * a.res
 		}
 		m := ar / w
 		o.Series = append(o.Series, m)
@@ -560,17 +581,32 @@ func (a *Accumulator) occupancy() Occupancy {
 			o.HourOfWeek[h] = sums[h] / float64(cnt[h])
 		}
 	}
-	T := float64(a.maxAt-a.minAt) / usPerSec
-	l := Little{Seconds: T}
-	if T > 0 && a.los.n > 0 {
-		l.L = float64(area) / usPerSec / T
-		l.Lambda = float64(a.los.n) / T
-		l.W, _ = a.los.meanSD()
-		l.LambdaW = l.Lambda * l.W
-		if l.LambdaW > 0 {
-			l.Ratio = l.L / l.LambdaW
-		}
-	}
-	o.Little = l
+	o.Little = a.little()
 	return o
+}
+
+// little computes both sides of Little's law from the census sums.
+func (a *Accumulator) little() Little {
+	c := &a.census
+	T := float64(a.maxAt-a.minAt) / usPerSec
+	l := Little{Seconds: T, Entries: c.stays, Exits: c.exits, Open: c.open}
+	if T <= 0 || c.stays == 0 {
+		return l
+	}
+	// L·T = present + Σ open (To − entry); λW·T = present + Σ open (last − entry).
+	open := new(big.Int).SetUint64(c.open)
+	end := new(big.Int).Mul(open, big.NewInt(a.maxAt+instantShift))
+	census := new(big.Int).Add(c.present.big(), end.Sub(end, c.openSince.big()))
+	seen := new(big.Int).Add(c.present.big(), new(big.Int).Sub(c.openLast.big(), c.openSince.big()))
+	cf, _ := new(big.Float).SetInt(census).Float64()
+	sf, _ := new(big.Float).SetInt(seen).Float64()
+	l.L = cf / usPerSec / T
+	l.Lambda = float64(c.stays) / T
+	l.W = sf / usPerSec / float64(c.stays)
+	l.LambdaW = l.Lambda * l.W
+	if l.LambdaW > 0 {
+		l.Ratio = l.L / l.LambdaW
+	}
+	l.Judged = c.stays >= LittleMinStays && c.exits >= LittleMinStays && l.W > 0 && T >= LittleMinSpan*l.W
+	return l
 }

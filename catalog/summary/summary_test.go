@@ -309,8 +309,31 @@ func TestSepsis(t *testing.T) {
 	if s.Events != 15214 || len(s.Activities) != 16 || s.Resources.Value != 26 || s.Cases.Value != 1050 {
 		t.Errorf("events %d activities %d resources %v cases %v", s.Events, len(s.Activities), s.Resources.Value, s.Cases.Value)
 	}
-	if r := s.Occupancy.Little.Ratio; math.Abs(r-1) > 1e-12 {
-		t.Errorf("Little ratio %v", r)
+	// A log of completions has no exits: every case stays in the census
+	// to the log's end, so L·T = Σ (end − first) and λW·T = Σ (last −
+	// first), and the law is not judged.
+	var end time.Time
+	for _, sp := range spans {
+		if sp.last.After(end) {
+			end = sp.last
+		}
+	}
+	var census, seen float64
+	var begin = end
+	for _, sp := range spans {
+		census += end.Sub(sp.first).Seconds()
+		seen += sp.last.Sub(sp.first).Seconds()
+		if sp.first.Before(begin) {
+			begin = sp.first
+		}
+	}
+	T := end.Sub(begin).Seconds()
+	lw := s.Occupancy.Little
+	if lw.Judged || lw.Exits != 0 || lw.Open != 1050 || !relClose(lw.L, census/T, 1e-12) || !relClose(lw.LambdaW, seen/T, 1e-12) {
+		t.Errorf("Little %+v, standard library L %v λW %v (not judged)", lw, census/T, seen/T)
+	}
+	if !slices.ContainsFunc(s.NotMeasurable, func(n NotMeasurable) bool { return n.Figure == "littles_law" }) {
+		t.Errorf("not measurable %+v lacks littles_law", s.NotMeasurable)
 	}
 	var total uint64
 	for _, c := range s.LengthOfStay.Histogram.Counts {

@@ -114,6 +114,6 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 	p("\n%s\n", bold("In system"))
 	p("by hour of week\t%s\n", sparkline(o.HourOfWeek))
 	p("peak (bucket mean)\t%.2f\n", o.Peak)
-	p("Little: L\t%.3f\tλW\t%.3f\tratio\t%.6f\n", o.Little.L, o.Little.LambdaW, o.Little.Ratio)
+	p("Little: L (census)\t%.3f\tλW (stays)\t%.3f\tratio\t%.4f\tentries\t%d\texits\t%d\topen\t%d\n", o.Little.L, o.Little.LambdaW, o.Little.Ratio, o.Little.Entries, o.Little.Exits, o.Little.Open)
 	return tw.Flush()
 }

@@ -1,0 +1,122 @@
+package quality
+
+import (
+	"math"
+	"math/rand/v2"
+	"slices"
+	"strconv"
+	"testing"
+	"time"
+
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+// contactLine generates a clean contact line over days: calls arrive at
+// 30 an hour (Poisson), wait (exponential, mean 3 min) and are answered,
+// or hang up first (patience exponential, mean 12 min): an answered call
+// ends with complete then departure, an abandoned one with abandon alone
+// (the caller hung up; nothing departs). dropEvery > 0 deletes every
+// dropEvery-th departure.
+func contactLine(seed uint64, days int, dropEvery int) []schema.Event {
+	r := rand.New(rand.NewPCG(seed, 1))
+	base := time.Date(2025, 3, 3, 0, 0, 0, 0, time.UTC)
+	end := base.Add(time.Duration(days) * 24 * time.Hour)
+	var evs []schema.Event
+	at := base
+	deps := 0
+	for i := 0; ; i++ {
+		at = at.Add(time.Duration(r.ExpFloat64() * float64(2*time.Minute)))
+		if !at.Before(end) {
+			break
+		}
+		id := "call" + strconv.Itoa(i)
+		ev := func(t schema.EventType, d time.Time) {
+			evs = append(evs, schema.Event{Site: "line", CaseID: id, Type: t, Queue: "q", Activity: "call", OccurredAt: d.Truncate(time.Second)})
+		}
+		ev(schema.Arrival, at)
+		wait := time.Duration(r.ExpFloat64()*float64(3*time.Minute)) + time.Second
+		patience := time.Duration(r.ExpFloat64()*float64(12*time.Minute)) + time.Second
+		if patience < wait {
+			ev(schema.Abandon, at.Add(patience))
+			continue
+		}
+		talk := time.Duration(r.ExpFloat64()*float64(5*time.Minute)) + time.Second
+		ev(schema.Start, at.Add(wait))
+		ev(schema.Complete, at.Add(wait+talk))
+		deps++
+		if dropEvery > 0 && deps%dropEvery == 0 {
+			continue
+		}
+		ev(schema.Departure, at.Add(wait+talk+10*time.Second))
+	}
+	slices.SortStableFunc(evs, func(a, b schema.Event) int { return a.OccurredAt.Compare(b.OccurredAt) })
+	for i := range evs {
+		evs[i].Line = int64(i + 2)
+	}
+	return evs
+}
+
+// TestContactLineCensus: abandons end a call's presence, so a clean line
+// has no census or Little's-law finding, and the two sides of the law,
+// measured apart, agree within 2% (L = λW, Little 1961; from memory). With
+// 3% of departures deleted those calls stay in the census to the end of
+// the data: flagged.
+func TestContactLineCensus(t *testing.T) {
+	clean := contactLine(7, 5, 0)
+	r := run(Options{}, clean, nil, nil)
+	l := r.Little[0]
+	if !l.Judged || l.Flagged || math.Abs(l.Ratio-1) > 0.02 {
+		t.Errorf("clean line: %+v", l)
+	}
+	if n := r.Count(CodeLittlesLawMismatch) + r.Count(CodeCensusNegative); n != 0 {
+		t.Errorf("clean line: %d census or Little findings", n)
+	}
+	var abandons int64
+	for _, e := range clean {
+		if e.Type == schema.Abandon {
+			abandons++
+		}
+	}
+	if abandons < 100 || l.Exits != l.Entries {
+		t.Errorf("clean line: %d abandons, %d entries, %d exits: every call leaves", abandons, l.Entries, l.Exits)
+	}
+	// The summary shows both sides too, from the one per-case computation.
+	sa := summary.New(summary.Options{})
+	sa.ObserveAll(clean)
+	sl := sa.Summary().Occupancy.Little
+	t.Logf("clean line: report ratio %.4f (%d entries), summary ratio %.4f", l.Ratio, l.Entries, sl.Ratio)
+	if !sl.Judged || math.Abs(sl.Ratio-1) > 0.02 || sl.Entries != uint64(l.Entries) {
+		t.Errorf("clean line, summary: %+v", sl)
+	}
+
+	lost := contactLine(7, 5, 33) // 3% of the departures deleted
+	r = run(Options{}, lost, nil, nil)
+	l = r.Little[0]
+	t.Logf("3%% of departures lost: report ratio %.4f", l.Ratio)
+	if !l.Judged || !l.Flagged || r.Count(CodeLittlesLawMismatch) != 1 {
+		t.Errorf("3%% of departures lost: %+v", l)
+	}
+	sa = summary.New(summary.Options{})
+	sa.ObserveAll(lost)
+	if sl := sa.Summary().Occupancy.Little; !sl.Judged || sl.Ratio < 1.1 {
+		t.Errorf("3%% of departures lost, summary: %+v", sl)
+	}
+
+	// A profile that declares complete terminal takes calls out at their
+	// complete: a line without departures at all is clean then.
+	var noDep []schema.Event
+	for _, e := range clean {
+		if e.Type != schema.Departure {
+			noDep = append(noDep, e)
+		}
+	}
+	r = run(Options{Terminal: []schema.EventType{schema.Complete}}, noDep, nil, nil)
+	if l := r.Little[0]; !l.Judged || l.Flagged || math.Abs(l.Ratio-1) > 0.02 {
+		t.Errorf("complete terminal: %+v", l)
+	}
+	r = run(Options{}, noDep, nil, nil)
+	if l := r.Little[0]; l.Judged && !l.Flagged {
+		t.Errorf("no departures, nothing terminal, judged and not flagged: %+v", l)
+	}
+}
