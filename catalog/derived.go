@@ -51,7 +51,7 @@ func summaryOptions(ds *Dataset) summary.Options {
 // summaryOfFile returns the summary state of a stored file: kept from its
 // ingest, or, for a file from before summaries were kept, computed by
 // reading it once.
-func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID) (*summary.Accumulator, []byte, error) {
+func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID, excl *exclusion) (*summary.Accumulator, []byte, error) {
 	var state []byte
 	err := s.db.View(func(tx *bolt.Tx) error {
 		if v := tx.Bucket(bucketFileSummaries).Get(id[:]); v != nil {
@@ -78,7 +78,13 @@ func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID) (*su
 		return nil, nil, fmt.Errorf("summary: %w", err)
 	}
 	defer r.Close()
-	if err := ReadSnapshot(r, r.Size(), func(e *schema.Event) error { acc.Observe(e); return nil }); err != nil {
+	err = ReadSnapshot(r, r.Size(), func(e *schema.Event) error {
+		if excl.flags(e) == 0 {
+			acc.Observe(e)
+		}
+		return nil
+	})
+	if err != nil {
 		return nil, nil, fmt.Errorf("summary of file %s: %w", id, err)
 	}
 	state, err = acc.MarshalBinary()
@@ -114,7 +120,11 @@ func (p *versionPass) release() {
 func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, qopt quality.Options, keyID string, table bool) (*versionPass, error) {
 	out := &versionPass{fileStates: map[blob.ID][]byte{}}
 	total := summary.New(summaryOptions(ds))
-	for _, f := range files {
+	excls := make([]*exclusion, len(files))
+	for i, f := range files {
+		excls[i] = s.exclusionOf(ds, f, qopt.UploadedAt)
+	}
+	for i, f := range files {
 		acc := fresh[f.SHA256]
 		if acc != nil {
 			b, err := acc.MarshalBinary()
@@ -123,7 +133,7 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			}
 			out.fileStates[f.SHA256] = b
 		} else {
-			a, state, err := s.summaryOfFile(ctx, ds, f.SHA256)
+			a, state, err := s.summaryOfFile(ctx, ds, f.SHA256, excls[i])
 			if err != nil {
 				return nil, err
 			}
@@ -142,12 +152,13 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 		cp.Terminal = prof.Terminal
 		qopt.Terminal = prof.Terminal
 	}
-	for _, f := range files {
+	for i, f := range files {
 		err := s.readFile(ctx, f.SHA256, func(e *schema.Event) error {
 			// Strings read from Parquet may point into the reader's
 			// buffers; the sort keeps events past the next read.
 			c := *e
 			cloneStrings(&c)
+			c.Line = quality.PackLine(c.Line, excls[i].flags(e))
 			return cp.Add(&c)
 		})
 		if err != nil {
@@ -155,7 +166,8 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 		}
 	}
 	qacc := quality.NewAccumulator(qopt)
-	obs := []cases.Observer{total, qacc}
+	obs := []cases.Observer{qacc}
+	cp.Kept = []cases.Observer{total}
 	var cw *caseTableWriter
 	if table {
 		var err error
@@ -195,6 +207,51 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 	}
 	out.summary = &versionSummary{State: state, JSON: js}
 	return out, nil
+}
+
+// exclusion says which events of one file summaries leave out: those
+// dated later than the upload that brought the file, and those outside the
+// dataset's window.
+type exclusion struct {
+	later, from, to int64 // µs; 0: no bound
+}
+
+func (x *exclusion) flags(e *schema.Event) quality.Flags {
+	at := e.OccurredAt.UnixMicro()
+	var fl quality.Flags
+	if x.later != 0 && at > x.later {
+		fl |= quality.FlagLater
+	}
+	if (x.from != 0 && at < x.from) || (x.to != 0 && at >= x.to) {
+		fl |= quality.FlagOutsideWindow
+	}
+	return fl
+}
+
+// exclusionOf returns the exclusion of file f: its upload's receipt (or
+// now, for the upload being committed) and the dataset's window.
+func (s *Store) exclusionOf(ds *Dataset, f FileEntry, now time.Time) *exclusion {
+	x := &exclusion{}
+	var up Upload
+	var seq int
+	if _, err := fmt.Sscanf(f.Upload, "u%d", &seq); err == nil {
+		_ = s.db.View(func(tx *bolt.Tx) error {
+			return getJSON(tx.Bucket(bucketUploads), seqKey(ds.Ref(), seq), &up, "upload "+f.Upload)
+		})
+	}
+	switch {
+	case !up.ReceivedAt.IsZero():
+		x.later = up.ReceivedAt.UnixMicro()
+	case !now.IsZero():
+		x.later = now.UnixMicro()
+	}
+	if ds.WindowFrom != nil {
+		x.from = ds.WindowFrom.UnixMicro()
+	}
+	if ds.WindowTo != nil {
+		x.to = ds.WindowTo.UnixMicro()
+	}
+	return x
 }
 
 // readFile calls fn for every event of a stored snapshot file.

@@ -203,7 +203,9 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	defer upCases.Close()
 	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
 		fl := acc.Observe(e)
-		sacc.Observe(e)
+		if fl&quality.Excluded == 0 {
+			sacc.Observe(e)
+		}
 		win.observe(e)
 		if err := sw.Write(e); err != nil {
 			return err

@@ -518,7 +518,7 @@ func (a *Accumulator) Observe(e *schema.Event) Flags {
 	if a.hasUpload {
 		if at > a.uploadAt {
 			a.flag(s, cLaterThanUpload, e)
-			fl |= FlagAccuracy
+			fl |= FlagAccuracy | FlagLater
 		} else {
 			lagS := (a.uploadAt - at) / 1e6
 			s.lag[lagBucket(lagS)]++
@@ -530,7 +530,7 @@ func (a *Accumulator) Observe(e *schema.Event) Flags {
 	}
 	if (a.hasFrom && at < a.fromAt) || (a.hasTo && at >= a.toAt) {
 		a.flag(s, cOutsideWindow, e)
-		fl |= FlagAccuracy
+		fl |= FlagAccuracy | FlagOutsideWindow
 	}
 	a.countGrid(s, e, at)
 

@@ -21,7 +21,15 @@ const (
 	// FlagCopy marks an exact copy of an event at the same instant: it
 	// changes no per-case state and is checked no further.
 	FlagCopy
+	// FlagLater marks an event dated later than its upload, and
+	// FlagOutsideWindow one outside the dataset's declared window: both
+	// are counted here and kept out of summaries.
+	FlagLater
+	FlagOutsideWindow
 )
+
+// Excluded are the flags of an event kept out of summaries.
+const Excluded = FlagLater | FlagOutsideWindow
 
 // lineBits is how many low bits of a packed line hold the line.
 const lineBits = 56
@@ -51,6 +59,31 @@ type caseState struct {
 	site    int   // site index of the latest event
 	typesAt uint8 // event types seen at the latest instant
 	wait    int32 // (queue, activity) index+1 of the pending enqueue
+	// seenAt are the (type, activity) pairs seen at the latest instant,
+	// up to maxSeenAt, for the duplicate check.
+	seenAt []typeActivity
+}
+
+type typeActivity struct {
+	ti       int
+	activity string
+}
+
+// maxSeenAt bounds the (type, activity) pairs one instant of a case keeps.
+const maxSeenAt = 64
+
+// seen reports whether (ti, act) was seen at the latest instant, and
+// records it.
+func (st *caseState) seen(ti int, act string) bool {
+	for _, x := range st.seenAt {
+		if x.ti == ti && x.activity == act {
+			return true
+		}
+	}
+	if len(st.seenAt) < maxSeenAt {
+		st.seenAt = append(st.seenAt, typeActivity{ti, strings.Clone(act)})
+	}
+	return false
 }
 
 const (
@@ -183,7 +216,7 @@ func (a *Accumulator) endCase() {
 			s.stayed += float64(st.rec - st.entry)
 		}
 	}
-	*st = caseState{}
+	*st = caseState{seenAt: st.seenAt[:0]}
 }
 
 // enter puts the case in hand into the census of site s at at.
@@ -214,7 +247,8 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 	st := &a.cur
 	bit := uint8(1) << ti
 	if st.id == "" {
-		*st = caseState{id: strings.Clone(e.CaseID), first: at, rec: at, site: s.idx, typesAt: bit}
+		*st = caseState{id: strings.Clone(e.CaseID), first: at, rec: at, site: s.idx, typesAt: bit, seenAt: st.seenAt[:0]}
+		st.seen(ti, e.Activity)
 		if ti != tArrival {
 			// Already in the system when the data begins (or its arrival
 			// is lost): it enters the census at its first event.
@@ -228,7 +262,7 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 				a.flag(s, cSameInstantOrder, e)
 				acc = true
 			}
-			if st.typesAt&bit != 0 {
+			if st.seen(ti, e.Activity) {
 				a.flag(s, cDuplicateCaseTypeTime, e)
 				uni = true
 			}
@@ -236,6 +270,8 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 		} else {
 			st.rec = at
 			st.typesAt = bit
+			st.seenAt = st.seenAt[:0]
+			st.seen(ti, e.Activity)
 			st.flags &^= csNowFlags
 		}
 		if st.site != s.idx {

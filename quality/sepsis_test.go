@@ -96,6 +96,27 @@ func TestSepsis(t *testing.T) {
 	if got := r.Count(CodeExactDuplicate); got != exact {
 		t.Errorf("exact_duplicate %d, want %d", got, exact)
 	}
+	// Duplicates keyed on case, type, activity and instant: per such key,
+	// the distinct events (exact copies count once) beyond the first. On
+	// this log of completions, different steps at one instant are not
+	// duplicates.
+	dupGroups := map[[4]string]map[schema.Event]bool{}
+	for _, e := range evs {
+		e.Line = 0
+		k := [4]string{e.CaseID, string(e.Type), e.Activity, e.OccurredAt.Format(time.RFC3339Nano)}
+		if dupGroups[k] == nil {
+			dupGroups[k] = map[schema.Event]bool{}
+		}
+		dupGroups[k][e] = true
+	}
+	var dups int64
+	for _, g := range dupGroups {
+		dups += int64(len(g) - 1)
+	}
+	if got := r.Count(CodeDuplicateCaseTypeTime); got != dups || dups >= same {
+		t.Errorf("duplicate_case_type_time %d, standard library %d (same instant %d)", got, dups, same)
+	}
+	t.Logf("sepsis: %d same-instant events, %d duplicates by case, type, activity and instant, %d exact copies", same, dups, exact)
 	// Only completes: no order conflicts, no arrivals, no waits.
 	if r.Count(CodeSameInstantOrder) != 0 || r.Stages.Arrival != 0 || len(r.Waits) != 0 {
 		t.Errorf("order conflicts %d, stages %+v, waits %v", r.Count(CodeSameInstantOrder), r.Stages, r.Waits)

@@ -115,6 +115,9 @@ type Accumulator struct {
 // resources, counted by the caller.
 type Counts struct {
 	Cases, Subjects, Resources uint64
+	// Events the summary left out: dated later than their upload, outside
+	// the dataset's window, exact copies of another event.
+	LaterThanUpload, OutsideWindow, ExactDuplicates uint64
 }
 
 // SetCounts makes c the summary's distinct counts, marked exact.
@@ -434,26 +437,26 @@ func (a *Accumulator) finish() {
 	a.segHas = false
 }
 
-// observedDays returns the local days from the first to the last event
-// observed, and how many of them fall on each weekday (0 = Monday). A day
-// inside the span without events counts, with no arrivals: the days do not
-// depend on how the events were cut into files, and state does not grow
-// with the span.
-func (a *Accumulator) observedDays() (n int, wdays [7]int) {
+// exposure returns the hours of exposure behind each local hour of the
+// week (0 = Monday 00:00-01:00): every real hour from the one holding the
+// first event to the one holding the last counts once, for the local
+// hour of week its start falls in. So a partial first or last day counts
+// its hours only, the hour a clock change skips counts nowhere and the
+// one it repeats counts twice (for zones whose offsets are whole hours;
+// in others each real hour is credited to the local hour its start falls
+// in). The hours depend only on the first and last event, not on how the
+// events were cut into files, and the state does not grow with the span.
+func (a *Accumulator) exposure() (total int, week [168]int) {
 	if !a.hasTime {
-		return 0, wdays
+		return 0, week
 	}
-	_, d0 := a.local(a.minAt)
-	_, d1 := a.local(a.maxAt)
-	n = int(d1-d0) + 1
-	full, rest := n/7, n%7
-	for w := range wdays {
-		wdays[w] = full
+	const hour = 3600 * usPerSec
+	for h := floorDiv(a.minAt, hour); h <= floorDiv(a.maxAt, hour); h++ {
+		how, _ := a.local(h * hour)
+		week[how]++
+		total++
 	}
-	for k := range rest {
-		wdays[((int(d0)+k+3)%7+7)%7]++
-	}
-	return n, wdays
+	return total, week
 }
 
 // local returns the hour of the week (0 = Monday 00:00-01:00 local) and

@@ -114,6 +114,9 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 		e.uv(a.counted.Cases)
 		e.uv(a.counted.Subjects)
 		e.uv(a.counted.Resources)
+		e.uv(a.counted.LaterThanUpload)
+		e.uv(a.counted.OutsideWindow)
+		e.uv(a.counted.ExactDuplicates)
 	} else {
 		e.uv(0)
 	}
@@ -336,7 +339,7 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 	x.outOfOrder = d.uv()
 	x.cases, x.subjects, x.resources = d.distinct(), d.distinct(), d.distinct()
 	if d.uv() == 1 {
-		x.counted = &Counts{Cases: d.uv(), Subjects: d.uv(), Resources: d.uv()}
+		x.counted = &Counts{Cases: d.uv(), Subjects: d.uv(), Resources: d.uv(), LaterThanUpload: d.uv(), OutsideWindow: d.uv(), ExactDuplicates: d.uv()}
 	}
 	for range d.count(170) {
 		g := x.sites.list[x.sites.get(d.str())]

@@ -21,7 +21,7 @@ type Summary struct {
 	Timezone       string            `json:"timezone"`
 	From           *time.Time        `json:"from,omitempty"` // first event
 	To             *time.Time        `json:"to,omitempty"`   // last event
-	DaysObserved   int               `json:"days_observed"`
+	ExposureHours  int               `json:"exposure_hours"` // real hours from the first event's to the last's
 	Events         uint64            `json:"events"`
 	EventTypes     map[string]uint64 `json:"event_types"`
 	OtherTypes     uint64            `json:"other_types"`
@@ -38,11 +38,22 @@ type Summary struct {
 	EventsPerCase  Spread            `json:"events_per_case"`
 	BetweenEvents  Durations         `json:"between_events"` // time between consecutive events of a case
 	Occupancy      Occupancy         `json:"occupancy"`
+	// Excluded counts the events left out of the summary (SUMMARY.md):
+	// dated later than their upload or outside the dataset's window (out
+	// of every figure), exact copies (out of the case figures).
+	Excluded Excluded `json:"excluded"`
 	// NotMeasurable names the figures the log's events cannot measure,
 	// with why (a log of completions alone has no waits or services);
 	// those figures are then absent or empty, never zeros to be read as
 	// measured.
 	NotMeasurable []NotMeasurable `json:"not_measurable"`
+}
+
+// Excluded counts the events a summary left out.
+type Excluded struct {
+	LaterThanUpload uint64 `json:"later_than_upload"`
+	OutsideWindow   uint64 `json:"outside_window"`
+	ExactDuplicates uint64 `json:"exact_duplicates"`
 }
 
 // Spread is a distribution of counts.
@@ -69,14 +80,14 @@ type Count struct {
 	RelStdError float64 `json:"rel_std_error"` // 0 when exact
 }
 
-// Rate is the mean number of arrivals in one hour bin over the days
-// observed, with its exact Poisson 95% interval.
+// Rate is the mean number of arrivals per hour in one hour bin over the
+// hours of exposure behind it, with its exact Poisson 95% interval.
 type Rate struct {
-	Count uint64  `json:"count"` // arrivals in the bin over all days
-	Days  int     `json:"days"`  // days behind the bin (hours of exposure)
-	Mean  float64 `json:"mean"`  // Count / Days, arrivals per hour
-	Lower float64 `json:"lower"` // Garwood lower bound / Days
-	Upper float64 `json:"upper"` // Garwood upper bound / Days
+	Count uint64  `json:"count"` // arrivals in the bin
+	Hours int     `json:"hours"` // hours of exposure behind the bin
+	Mean  float64 `json:"mean"`  // Count / Hours, arrivals per hour
+	Lower float64 `json:"lower"` // Garwood lower bound / Hours
+	Upper float64 `json:"upper"` // Garwood upper bound / Hours
 }
 
 // DayCount is the number of arrivals of one local calendar day.
@@ -242,11 +253,11 @@ func (a *Accumulator) Summary() *Summary { return a.SummaryFor(Selection{}) }
 // SummaryFor is [Accumulator.Summary] with the groups restricted to sel.
 func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 	a.finish()
-	days, wdays := a.observedDays()
+	hours, week := a.exposure()
 	s := &Summary{
 		FormatVersion: FormatVersion,
 		Timezone:      a.loc.String(),
-		DaysObserved:  days,
+		ExposureHours: hours,
 		Events:        a.events,
 		EventTypes:    map[string]uint64{},
 		OtherTypes:    a.otherTypes,
@@ -259,6 +270,7 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		s.Cases = Count{Value: float64(c.Cases), Exact: true}
 		s.Subjects = Count{Value: float64(c.Subjects), Exact: true}
 		s.Resources = Count{Value: float64(c.Resources), Exact: true}
+		s.Excluded = Excluded{LaterThanUpload: c.LaterThanUpload, OutsideWindow: c.OutsideWindow, ExactDuplicates: c.ExactDuplicates}
 	}
 	for i, t := range schema.EventTypes {
 		s.EventTypes[string(t)] = a.types[i]
@@ -271,19 +283,19 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		s.From, s.To = &f, &t
 	}
 	ci := poissonCache{}
-	s.Arrivals.Profile = ci.profile(&a.arrWeek, &wdays, days)
+	s.Arrivals.Profile = ci.profile(&a.arrWeek, &week)
 	for _, d := range slices.Sorted(maps.Keys(a.arrDay)) {
 		s.Arrivals.PerDay = append(s.Arrivals.PerDay, DayCount{
 			Date: time.Unix(int64(d)*86400, 0).UTC().Format("2006-01-02"), Count: a.arrDay[d]})
 	}
 	for _, g := range sortedGroups(a.sites.list, func(g *siteGroup) string { return g.name }) {
 		if keep(sel.Sites, g.name) {
-			s.Sites = append(s.Sites, SiteSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, &wdays, days)})
+			s.Sites = append(s.Sites, SiteSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, &week)})
 		}
 	}
 	for _, g := range sortedGroups(a.queues.list, func(g *queueGroup) string { return g.name }) {
 		if keep(sel.Queues, g.name) {
-			s.Queues = append(s.Queues, a.queueSummary(g, &ci, &wdays, days))
+			s.Queues = append(s.Queues, a.queueSummary(g, &ci, &week))
 		}
 	}
 	for _, g := range sortedGroups(a.acts.list, func(g *activityGroup) string { return g.name }) {
@@ -352,9 +364,9 @@ func countOf(d *distinct) Count {
 // poissonCache memoizes Garwood intervals by count within one summary.
 type poissonCache map[uint64][2]float64
 
-func (p poissonCache) rate(k uint64, days int) Rate {
-	r := Rate{Count: k, Days: days}
-	if days == 0 {
+func (p poissonCache) rate(k uint64, hours int) Rate {
+	r := Rate{Count: k, Hours: hours}
+	if hours == 0 {
 		return r
 	}
 	ci, ok := p[k]
@@ -362,27 +374,29 @@ func (p poissonCache) rate(k uint64, days int) Rate {
 		ci[0], ci[1] = PoissonExactCI(k, 0.95)
 		p[k] = ci
 	}
-	d := float64(days)
+	d := float64(hours)
 	r.Mean, r.Lower, r.Upper = float64(k)/d, ci[0]/d, ci[1]/d
 	return r
 }
 
-func (p poissonCache) profile(w *[168]uint64, wdays *[7]int, days int) Profile {
+func (p poissonCache) profile(w *[168]uint64, week *[168]int) Profile {
 	pr := Profile{HourOfWeek: make([]Rate, 168), HourOfDay: make([]Rate, 24)}
 	var day [24]uint64
+	var dayHours [24]int
 	for h, c := range w {
 		pr.Total += c
 		day[h%24] += c
-		pr.HourOfWeek[h] = p.rate(c, wdays[h/24])
+		dayHours[h%24] += week[h]
+		pr.HourOfWeek[h] = p.rate(c, week[h])
 	}
 	for h, c := range day {
-		pr.HourOfDay[h] = p.rate(c, days)
+		pr.HourOfDay[h] = p.rate(c, dayHours[h])
 	}
 	return pr
 }
 
-func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, wdays *[7]int, days int) QueueSummary {
-	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, wdays, days)}
+func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, week *[168]int) QueueSummary {
+	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, week)}
 	q.Wait.Durations = durationsOf(g.served)
 	q.Wait.Negative = g.negative
 	n := g.served.n
@@ -408,7 +422,7 @@ func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, wdays *[7]in
 	}
 	q.OfferedLoad = make([]float64, 168)
 	for h := range q.OfferedLoad {
-		if d := wdays[h/24]; d > 0 {
+		if d := week[h]; d > 0 {
 			q.OfferedLoad[h] = float64(g.arr[h]) / float64(d) * q.MeanService / 3600
 		}
 	}

@@ -57,13 +57,18 @@ func TestLittleFixture(t *testing.T) {
 	if o.HourOfWeek[0] != 1.5 || o.HourOfWeek[1] != 2.5 || s.Arrivals.HourOfWeek[0].Count != 2 || s.Arrivals.HourOfWeek[1].Count != 1 {
 		t.Errorf("hour of week %v %v", o.HourOfWeek[:4], s.Arrivals.HourOfWeek[:2])
 	}
-	if s.Cases.Value != 3 || !s.Cases.Exact || s.DaysObserved != 1 || s.LengthOfStay.P50 != 7200 {
-		t.Errorf("cases %+v days %d los %+v", s.Cases, s.DaysObserved, s.LengthOfStay.Durations)
+	// Exposure: the hours holding 00:00, 01:00, 02:00 and the last event at
+	// 03:00; hour 04 was not observed.
+	if s.Cases.Value != 3 || !s.Cases.Exact || s.ExposureHours != 4 || s.LengthOfStay.P50 != 7200 {
+		t.Errorf("cases %+v exposure %d los %+v", s.Cases, s.ExposureHours, s.LengthOfStay.Durations)
 	}
-	// One day observed: the mean per hour is the count; Garwood bounds for 2.
+	if s.Arrivals.HourOfDay[4].Hours != 0 || s.Arrivals.HourOfDay[3].Hours != 1 {
+		t.Errorf("exposure of 03 h and 04 h: %+v %+v", s.Arrivals.HourOfDay[3], s.Arrivals.HourOfDay[4])
+	}
+	// One hour observed: the mean per hour is the count; Garwood bounds for 2.
 	r := s.Arrivals.HourOfDay[0]
 	lo, hi := PoissonExactCI(2, 0.95)
-	if r.Days != 1 || r.Mean != 2 || r.Lower != lo || r.Upper != hi {
+	if r.Hours != 1 || r.Mean != 2 || r.Lower != lo || r.Upper != hi {
 		t.Errorf("rate %+v", r)
 	}
 }

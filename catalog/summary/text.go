@@ -57,7 +57,10 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 	p := func(format string, args ...any) { fmt.Fprintf(tw, format, args...) }
 	p("%s\n", bold("Summary"))
 	if s.From != nil {
-		p("period\t%s .. %s (%s, %d days)\n", s.From.Format(time.RFC3339), s.To.Format(time.RFC3339), s.Timezone, s.DaysObserved)
+		p("period\t%s .. %s (%s, %d hours of exposure)\n", s.From.Format(time.RFC3339), s.To.Format(time.RFC3339), s.Timezone, s.ExposureHours)
+		if x := s.Excluded; x.LaterThanUpload+x.OutsideWindow+x.ExactDuplicates > 0 {
+			p("left out\t%d later than their upload, %d outside the window, %d exact copies\n", x.LaterThanUpload, x.OutsideWindow, x.ExactDuplicates)
+		}
 	}
 	approx := func(c Count) string {
 		if c.Exact {
