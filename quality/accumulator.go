@@ -322,6 +322,7 @@ type siteAcc struct {
 	byType       [numTypes]int64
 	typeNonEmpty [numTypes][numFields]int64
 	grid         [numGrids]int64
+	clock        *ClockTimes // one clock time of day for every event?
 	// stage coverage of the case records still held is added at report time
 	stages stageCounts
 	cases  CaseRaw
@@ -696,6 +697,14 @@ func (a *Accumulator) countGrid(s *siteAcc, e *schema.Event, at int64) {
 		}
 	}
 	local := at + a.zOff
+	const day = 86400e6
+	zt, ut := local-floorDiv(local, day)*day, at-floorDiv(at, day)*day
+	if c := s.clock; c == nil {
+		s.clock = &ClockTimes{Zone: zt, ZoneSame: true, UTC: ut, UTCSame: true}
+	} else {
+		c.ZoneSame = c.ZoneSame && c.Zone == zt
+		c.UTCSame = c.UTCSame && c.UTC == ut
+	}
 	for g := range numGrids {
 		if local%gridMicros[g] != 0 {
 			return

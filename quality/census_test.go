@@ -5,6 +5,7 @@ import (
 	"math/rand/v2"
 	"slices"
 	"strconv"
+	"strings"
 	"testing"
 	"time"
 
@@ -119,4 +120,48 @@ func TestContactLineCensus(t *testing.T) {
 	if l := r.Little[0]; l.Judged && !l.Flagged {
 		t.Errorf("no departures, nothing terminal, judged and not flagged: %+v", l)
 	}
+}
+
+// TestDateOnlyFixedOffset: dates read as midnight at +01:00 and stored in
+// UTC sit at 23:00 UTC every day (in a zone with summer time their local
+// clock time moves). They are day resolution with the artefact named, and
+// no hour is judged for gaps.
+func TestDateOnlyFixedOffset(t *testing.T) {
+	ams, err := time.LoadLocation("Europe/Amsterdam")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var evs []schema.Event
+	base := time.Date(2025, 2, 1, 23, 0, 0, 0, time.UTC) // 2025-02-02 at +01:00
+	for d := range 120 {
+		for k := range 20 {
+			id := "d" + strconv.Itoa(d*100+k)
+			evs = append(evs, schema.Event{Site: "s", CaseID: id, Type: schema.Complete, Activity: "visit", OccurredAt: base.AddDate(0, 0, d)})
+		}
+	}
+	for i := range evs {
+		evs[i].Line = int64(i + 2)
+	}
+	r := run(Options{Zone: ams}, evs, nil, nil)
+	res := r.Resolution
+	if res.Grid != "day" || !res.DateOnly || res.Artefact == "" || !containsAll(res.Artefact, "23:00:00 UTC", "+01:00") {
+		t.Errorf("resolution %+v", res)
+	}
+	if r.Count(CodeGapHour) != 0 || r.Currentness[0].JudgedHours != 0 {
+		t.Errorf("date-only data judged by the hour: %d gap hours of %d judged", r.Count(CodeGapHour), r.Currentness[0].JudgedHours)
+	}
+	// The same times with one event an hour later are times, not dates.
+	evs[5].OccurredAt = evs[5].OccurredAt.Add(time.Hour)
+	if res := run(Options{Zone: ams}, evs, nil, nil).Resolution; res.DateOnly || res.Grid == "day" {
+		t.Errorf("one event off the clock time: %+v", res)
+	}
+}
+
+func containsAll(s string, subs ...string) bool {
+	for _, x := range subs {
+		if !strings.Contains(s, x) {
+			return false
+		}
+	}
+	return true
 }

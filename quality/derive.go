@@ -99,7 +99,7 @@ func derive(rows Rows, rej []RejectionCount, raw Raw, unmapped []string) *Report
 	slices.SortFunc(r.Waits, func(x, y WaitCoverage) int {
 		return cmp.Or(cmp.Compare(x.Queue, y.Queue), cmp.Compare(x.Activity, y.Activity))
 	})
-	r.Resolution = resolution(all.Grid, all.Events, set.Zone)
+	r.Resolution = resolution(all.Grid, all.Events, set.Zone, all.Clock)
 
 	// Per-site sections.
 	r.Little, r.Currentness, r.PerSite = []LittleLaw{}, []SiteCurrentness{}, []SiteReport{}
@@ -200,7 +200,7 @@ func deriveSite(s *SiteRaw, set *Settings, zone *time.Location) siteDerived {
 	if set.UploadedAt != nil && s.Last != nil && set.UploadedAt.Sub(*s.Last).Seconds() > set.StaleAfterSeconds {
 		cur.Stale = true
 	}
-	gaps(&d, s, set, zone)
+	gaps(&d, s, set, zone, dateOnly(s.Clock, s.Events))
 	cur.GapHours, cur.JudgedHours, cur.GapDays, cur.JudgedDays = d.gapHours, d.judgedHours, d.gapDays, d.judgedDays
 	d.cur = cur
 	return d
@@ -222,7 +222,7 @@ func lagMedian(l LagRaw) int64 {
 
 // gaps finds the hours and days without events where the site's own
 // history expects some (rule in SCORING.md).
-func gaps(d *siteDerived, s *SiteRaw, set *Settings, zone *time.Location) {
+func gaps(d *siteDerived, s *SiteRaw, set *Settings, zone *time.Location, dates bool) {
 	h := s.Hours
 	if h.Start == nil {
 		return
@@ -257,8 +257,8 @@ func gaps(d *siteDerived, s *SiteRaw, set *Settings, zone *time.Location) {
 		return occ >= int64(set.GapMinWeeks) && float64(sum)/float64(occ) >= set.GapMinMean
 	}
 	for _, x := range hs {
-		if !expects(occ[x.how], sum[x.how]) {
-			continue
+		if dates || !expects(occ[x.how], sum[x.how]) {
+			continue // dates only: no hour-level gaps
 		}
 		d.judgedHours++
 		if x.n == 0 {
@@ -311,10 +311,15 @@ func gaps(d *siteDerived, s *SiteRaw, set *Settings, zone *time.Location) {
 	}
 }
 
-func resolution(grid map[string]int64, events int64, zone string) Resolution {
+func resolution(grid map[string]int64, events int64, zone string, clock *ClockTimes) Resolution {
 	res := Resolution{Zone: zone, Grid: "microsecond", Heaping: []Heaping{}}
 	unit := int64(1)
 	if events == 0 {
+		return res
+	}
+	if dateOnly(clock, events) {
+		res.Grid, res.DateOnly = "day", true
+		res.Artefact = artefact(clock, zone)
 		return res
 	}
 	for g := range numGrids {
@@ -332,6 +337,46 @@ func resolution(grid map[string]int64, events int64, zone string) Resolution {
 		res.Heaping = append(res.Heaping, h)
 	}
 	return res
+}
+
+// dateOnlyMin is the fewest events that make "every event at one clock
+// time" a finding about the data rather than chance.
+const dateOnlyMin = 24
+
+// dateOnly reports whether every one of at least dateOnlyMin events sits
+// at one clock time of day in the zone or in UTC: a file of dates.
+func dateOnly(c *ClockTimes, events int64) bool {
+	return events >= dateOnlyMin && c != nil && (c.ZoneSame || c.UTCSame)
+}
+
+// artefact names the fixed clock time of date-only data and the offset it
+// shows: dates read as midnight at a fixed offset and stored in UTC land
+// at one UTC clock time (23:00 UTC for +01:00).
+func artefact(c *ClockTimes, zone string) string {
+	clock := func(us int64) string {
+		return time.UnixMicro(us).UTC().Format("15:04:05")
+	}
+	offset := func(us int64) string {
+		if us > 12*3600e6 {
+			us -= 24 * 3600e6
+		}
+		sign := "+"
+		if us > 0 { // 23:00 is midnight at +01:00
+			sign = "-"
+		} else {
+			us = -us
+		}
+		return sign + time.UnixMicro(us).UTC().Format("15:04")
+	}
+	switch {
+	case c.ZoneSame && c.Zone == 0:
+		return ""
+	case c.UTCSame && c.UTC == 0:
+		return "every event at 00:00:00 UTC: dates at UTC midnight, not at midnight in " + zone
+	case c.ZoneSame:
+		return "every event at " + clock(c.Zone) + " in " + zone + ": dates shifted by a fixed offset"
+	}
+	return "every event at " + clock(c.UTC) + " UTC: dates written as midnight at a fixed offset of " + offset(c.UTC) + ", not in " + zone
 }
 
 // scoredFields says which optional fields enter the completeness score.

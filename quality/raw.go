@@ -62,6 +62,33 @@ type SiteRaw struct {
 	Hours           HourSeries                   `json:"hours"`
 	FileRows        int64                        `json:"file_rows"`
 	FileBackSteps   int64                        `json:"file_back_steps"`
+	// Clock says whether every event sits at one clock time of day, in
+	// the dataset's zone or in UTC: dates without a time (nil: no events).
+	Clock *ClockTimes `json:"clock,omitempty"`
+}
+
+// ClockTimes holds the time of day (µs after midnight) of a site's first
+// event in the dataset's zone and in UTC, and whether every event shares
+// it.
+type ClockTimes struct {
+	Zone     int64 `json:"zone"`
+	ZoneSame bool  `json:"zone_same"`
+	UTC      int64 `json:"utc"`
+	UTCSame  bool  `json:"utc_same"`
+}
+
+func mergeClock(d, s *ClockTimes) *ClockTimes {
+	if s == nil {
+		return d
+	}
+	if d == nil {
+		c := *s
+		return &c
+	}
+	c := *d
+	c.ZoneSame = c.ZoneSame && s.ZoneSame && c.Zone == s.Zone
+	c.UTCSame = c.UTCSame && s.UTCSame && c.UTC == s.UTC
+	return &c
 }
 
 // TypeRaw counts the events of one type and their non-empty fields.
@@ -280,6 +307,7 @@ func mergeSite(d, s *SiteRaw) {
 	d.ConsistencyRows += s.ConsistencyRows
 	d.UniquenessRows += s.UniquenessRows
 	addMap(d.NonEmpty, s.NonEmpty)
+	d.Clock = mergeClock(d.Clock, s.Clock)
 	for t, tr := range s.ByType {
 		x := d.ByType[t]
 		if x.NonEmpty == nil {

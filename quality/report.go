@@ -129,6 +129,12 @@ type Resolution struct {
 	Zone    string    `json:"zone"`
 	Grid    string    `json:"grid"` // microsecond, millisecond, ..., day
 	Heaping []Heaping `json:"heaping"`
+	// DateOnly: every event sits at one clock time of day, in the zone or
+	// in UTC: the data hold dates, not times. Grid is then day, Artefact
+	// names the clock time and the fixed offset it shows when that is not
+	// midnight, and hour-level gap checks are not made.
+	DateOnly bool   `json:"date_only,omitempty"`
+	Artefact string `json:"artefact,omitempty"`
 }
 
 // Heaping is the share of events on one round grid against the share
@@ -392,6 +398,10 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 	}
 	for g := range numGrids {
 		r.Grid[gridNames[g]] = s.grid[g]
+	}
+	if s.clock != nil {
+		c := *s.clock
+		r.Clock = &c
 	}
 	if s.hasAt {
 		r.First, r.Last = timePtr(time.UnixMicro(s.firstAt)), timePtr(time.UnixMicro(s.lastAt))
