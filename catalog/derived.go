@@ -167,7 +167,9 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 	}
 	qacc := quality.NewAccumulator(qopt)
 	obs := []cases.Observer{qacc}
-	cp.Kept = []cases.Observer{total}
+	pv := total.NewProcess()
+	total.SetProcess(pv)
+	cp.Kept = []cases.Observer{total, pv}
 	var cw *caseTableWriter
 	if table {
 		var err error

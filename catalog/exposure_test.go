@@ -134,5 +134,11 @@ fields:
 	if s.Cases.Value != float64(len(first)) {
 		t.Errorf("cases %v, standard library %d (cases dated after the upload left out)", s.Cases.Value, len(first))
 	}
+	// The version's process views come from the same per-case pass: every
+	// kept case follows arrival > start > complete > departure, activities
+	// unnamed, so one empty variant holds every case.
+	if pv := s.Process; pv == nil || len(pv.Variants) != 1 || pv.Variants[0].Cases != uint64(len(first)) || len(pv.DirectlyFollows) != 0 {
+		t.Errorf("process views %+v", s.Process)
+	}
 	t.Logf("exposure %d hours, %d copies sent, %d exact copies left out", s.ExposureHours, copies, s.Excluded.ExactDuplicates)
 }

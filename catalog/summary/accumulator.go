@@ -99,6 +99,7 @@ type Accumulator struct {
 	caseAt   int64 // the previous event of prevCase
 	occ      map[int64]*occBucket
 	census   census
+	process  *ProcessObserver // process views, when a per-case pass computes them (not in the state)
 
 	// stream state of the current file
 	prevAt   int64
@@ -119,6 +120,11 @@ type Counts struct {
 	// the dataset's window, exact copies of another event.
 	LaterThanUpload, OutsideWindow, ExactDuplicates uint64
 }
+
+// SetProcess makes p's views the summary's `process` member; p must
+// observe the same per-case pass as a. Process views are not part of the
+// state: they are computed whole in each per-case pass.
+func (a *Accumulator) SetProcess(p *ProcessObserver) { a.process = p }
 
 // SetCounts makes c the summary's distinct counts, marked exact.
 func (a *Accumulator) SetCounts(c Counts) { a.counted = &c }
@@ -501,7 +507,8 @@ func (a *Accumulator) ObserveAll(evs []schema.Event) {
 		idx[i] = i
 	}
 	slices.SortStableFunc(idx, func(i, j int) int { return cases.Less(&evs[i], &evs[j]) })
-	b := cases.NewBuilder(a)
+	a.process = a.NewProcess()
+	b := cases.NewBuilder(a, a.process)
 	b.Terminal = a.opt.Terminal
 	for _, i := range idx {
 		b.Add(&evs[i])

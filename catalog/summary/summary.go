@@ -42,6 +42,9 @@ type Summary struct {
 	// dated later than their upload or outside the dataset's window (out
 	// of every figure), exact copies (out of the case figures).
 	Excluded Excluded `json:"excluded"`
+	// Process holds the process views (directly-follows pairs, variants,
+	// workload, handovers) of a per-case pass; absent when none ran.
+	Process *Process `json:"process,omitempty"`
 	// NotMeasurable names the figures the log's events cannot measure,
 	// with why (a log of completions alone has no waits or services);
 	// those figures are then absent or empty, never zeros to be read as
@@ -330,6 +333,9 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 			Why: "no start is followed by a complete of the same activity in the same case"})
 	}
 	s.Occupancy = a.occupancy()
+	if a.process != nil {
+		s.Process = a.process.Result()
+	}
 	if a.events > 0 && s.Occupancy.Little.Exits == 0 {
 		s.NotMeasurable = append(s.NotMeasurable, NotMeasurable{Figure: "littles_law",
 			Why: "no case leaves by a departure, an abandon, a final transfer or a type the profile declares terminal, so the census never falls"})
