@@ -677,7 +677,7 @@ func (a *Accumulator) optional(s *siteAcc, tn *[numFields]int64, i int, v string
 	if v != "" {
 		s.nonEmpty[i]++
 		tn[i]++
-	} else if len(a.emptySamples[i]) < a.opt.MaxSamples {
+	} else if len(a.emptySamples[i]) < a.opt.MaxSamples && applies(schema.Fields[i], e.Type) {
 		a.emptySamples[i] = append(a.emptySamples[i], Sample{Line: e.Line, CaseID: strings.Clone(e.CaseID)})
 	}
 }

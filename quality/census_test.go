@@ -165,3 +165,27 @@ func containsAll(s string, subs ...string) bool {
 	}
 	return true
 }
+
+// TestCompletenessWhereApplies: a resource is named on every start and
+// complete of a clean contact line and on no arrival, abandon or
+// departure, where none can apply: completeness is whole.
+func TestCompletenessWhereApplies(t *testing.T) {
+	evs := contactLine(3, 2, 0)
+	for i := range evs {
+		if evs[i].Type == schema.Start || evs[i].Type == schema.Complete {
+			evs[i].ResourceID = "agent" + strconv.Itoa(i%7)
+		}
+	}
+	r := run(Options{MappedFields: []schema.Field{schema.FieldResourceID, schema.FieldQueue, schema.FieldActivity}}, evs, nil, nil)
+	if d := r.Dimension(DimCompleteness); d.Score == nil || *d.Score != 100 {
+		t.Errorf("completeness %v, want 100", d.Score)
+	}
+	for _, fc := range r.Completeness {
+		if fc.Field == schema.FieldResourceID && (fc.ApplicableShare != 1 || fc.Share >= 1) {
+			t.Errorf("resource_id %+v: every start and complete names one, arrivals none", fc)
+		}
+	}
+	if n := r.Count(CodeEmptyValue); n != 0 {
+		t.Errorf("%d empty values where fields apply", n)
+	}
+}

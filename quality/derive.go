@@ -120,7 +120,11 @@ func derive(rows Rows, rej []RejectionCount, raw Raw, unmapped []string) *Report
 			sr.Dimensions = append(sr.Dimensions, DimensionScore{Name: dw.name, Score: roundPtr(sc[j])})
 		}
 		for _, f := range schema.Fields {
-			sr.Completeness = append(sr.Completeness, FieldShare{Field: f, Share: share(s.NonEmpty[f], s.Events)})
+			ne, n := s.NonEmpty[f], s.Events
+			if !f.Required() {
+				ne, n = applicable(s, f)
+			}
+			sr.Completeness = append(sr.Completeness, FieldShare{Field: f, Share: share(ne, n)})
 		}
 		r.PerSite = append(r.PerSite, sr)
 	}
@@ -401,8 +405,13 @@ func fieldCompleteness(all *SiteRaw, set *Settings) ([]FieldCompleteness, []Type
 	scored := scoredFields(all, set)
 	fc := make([]FieldCompleteness, 0, len(schema.Fields))
 	for _, f := range schema.Fields {
+		ne, n := all.NonEmpty[f], all.Events
+		if !f.Required() {
+			ne, n = applicable(all, f)
+		}
 		fc = append(fc, FieldCompleteness{Field: f, Required: f.Required(), NonEmpty: all.NonEmpty[f],
-			Share: share(all.NonEmpty[f], all.Events), Scored: all.Events > 0 && slices.Contains(scored, f)})
+			Share: share(all.NonEmpty[f], all.Events), Applicable: n, ApplicableShare: share(ne, n),
+			Scored: n > 0 && slices.Contains(scored, f)})
 	}
 	tc := []TypeCompleteness{}
 	for _, t := range schema.EventTypes {
@@ -432,7 +441,9 @@ func scores(s *SiteRaw, d *siteDerived, set *Settings, rejected map[schema.Reaso
 	}
 	if s.Events > 0 {
 		for _, f := range scoredFields(s, set) {
-			terms = append(terms, share(s.NonEmpty[f], s.Events))
+			if ne, n := applicable(s, f); n > 0 {
+				terms = append(terms, share(ne, n))
+			}
 		}
 	}
 	if len(terms) > 0 {
@@ -521,7 +532,8 @@ func findings(r *Report, all *SiteRaw, sum *siteDerived, set *Settings, rejected
 	add(DimCompleteness, finding(string(schema.ReasonMissingRequired), rejected[schema.ReasonMissingRequired], rows.Total, "rows", rejSamples[schema.ReasonMissingRequired]), false)
 	for _, fc := range r.Completeness {
 		if fc.Scored {
-			f := finding(CodeEmptyValue, rows.Accepted-fc.NonEmpty, rows.Accepted, "accepted rows", smp[emptyKey(fc.Field)])
+			ne, _ := applicable(all, fc.Field)
+			f := finding(CodeEmptyValue, fc.Applicable-ne, fc.Applicable, "events the field applies to", smp[emptyKey(fc.Field)])
 			f.Field = fc.Field
 			add(DimCompleteness, f, false)
 		}

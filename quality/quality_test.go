@@ -168,17 +168,23 @@ func TestScores(t *testing.T) {
 		[]schema.Rejection{{Line: 1, Reason: schema.ReasonMissingRequired}, {Line: 2, Reason: schema.ReasonBadTimestamp}})
 	acc := float64(len(evs))
 	total := acc + 2
-	var queue float64
+	// queue applies to enqueue, start, abandon and transfer events only
+	// (Applies): its share is among those.
+	var queue, queueOf float64
 	for _, e := range evs {
-		if e.Queue != "" {
-			queue++
+		switch e.Type {
+		case schema.Enqueue, schema.Start, schema.Abandon, schema.Transfer:
+			queueOf++
+			if e.Queue != "" {
+				queue++
+			}
 		}
 	}
 	all := &SiteRaw{Counts: map[string]int64{}, NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{}}
 	for i := range r.Raw.Sites {
 		mergeSite(all, &r.Raw.Sites[i])
 	}
-	wantCompl := 100 * ((1 - 1/total) + 1 + queue/acc) / 3
+	wantCompl := 100 * ((1 - 1/total) + 1 + queue/queueOf) / 3
 	wantAcc := 100 * (1 - float64(all.AccuracyRows+all.Counts[CodeCaseTooLong]+1)/total)
 	wantCons := 100 * (1 - float64(all.ConsistencyRows)/acc)
 	wantUniq := 100 * (1 - float64(all.UniquenessRows)/acc)

@@ -72,7 +72,12 @@ type FieldCompleteness struct {
 	Required bool         `json:"required"`
 	NonEmpty int64        `json:"non_empty"`
 	Share    float64      `json:"share"` // NonEmpty / accepted rows; 0 when none
-	Scored   bool         `json:"scored"`
+	// Applicable counts the events of the types the field applies to
+	// (Applies) and ApplicableShare the share of them holding a value: what
+	// the score and the empty_value finding judge.
+	Applicable      int64   `json:"applicable"`
+	ApplicableShare float64 `json:"applicable_share"`
+	Scored          bool    `json:"scored"`
 }
 
 // TypeCompleteness is the completeness of the optional fields among the
