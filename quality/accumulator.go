@@ -163,6 +163,8 @@ type Accumulator struct {
 	maxCase        uint64
 	maxService     int64
 	maxServiceAct  map[string]int64
+	learned        []learnedBound // by activity, for lost starts
+	learnedIndex   map[string]int32
 	idWindow       uint64
 	clockTol       int64
 	pruneEvery     int
@@ -200,7 +202,50 @@ type Accumulator struct {
 // openService is a service interval open at a resource.
 type openService struct {
 	res int32
+	act int32 // index into a.learned, -1 beyond the cap
 	at  int64 // µs
+}
+
+// learnedBound is what the time pass learns of one activity's services
+// (start to the case's next complete): how many it measured and the
+// longest. An open service of the activity is taken as lost (its complete
+// never came) once it is open longer than lostFactor times the longest
+// measured, when at least lostMinServices were measured; before that, or
+// beyond the configured maximum, at the maximum (SCORING.md).
+type learnedBound struct {
+	n   int64
+	max int64 // µs
+}
+
+const (
+	lostFactor      = 2
+	lostMinServices = 20
+)
+
+// lostAfter is how long a start of activity index act may stay open
+// before it is taken as lost.
+func (a *Accumulator) lostAfter(act int32) int64 {
+	if act >= 0 {
+		if l := a.learned[act]; l.n >= lostMinServices {
+			return min(a.maxService, lostFactor*max(l.max, 1))
+		}
+	}
+	return a.maxService
+}
+
+// activityIndex returns the index of activity name in a.learned, or -1
+// beyond the cap.
+func (a *Accumulator) activityIndex(name string) int32 {
+	i, ok := a.learnedIndex[name]
+	if !ok {
+		if len(a.learned) >= maxKeys {
+			return -1
+		}
+		i = int32(len(a.learned))
+		a.learned = append(a.learned, learnedBound{})
+		a.learnedIndex[strings.Clone(name)] = i
+	}
+	return i
 }
 
 // rejFinding is a rejection count with its first samples.
@@ -372,6 +417,7 @@ type resAcc struct {
 type openInterval struct {
 	caseKey uint64
 	at      int64 // µs
+	act     int32 // activity index: its learned bound (see learnedBound)
 }
 
 // NewAccumulator returns an empty accumulator for one upload.
@@ -381,6 +427,7 @@ func NewAccumulator(opt Options) *Accumulator {
 		opt:        opt,
 		maxCase:    uint64(opt.MaxCase.Microseconds()),
 		maxService: DefaultMaxService.Microseconds(),
+		learnedIndex: map[string]int32{},
 		idWindow:   uint64(opt.EventIDWindow.Microseconds()),
 		clockTol:   opt.ClockTolerance.Microseconds(),
 		pruneEvery: defaultPruneEvery,
@@ -588,15 +635,21 @@ func (a *Accumulator) resourceCheck(s *siteAcc, ti int, e *schema.Event, at int6
 	if o, ok := a.svc[k]; ok {
 		a.closeInterval(o.res, k)
 		delete(a.svc, k)
+		if ti == tComplete && o.act >= 0 && at >= o.at {
+			l := &a.learned[o.act]
+			l.n++
+			l.max = max(l.max, at-o.at)
+		}
 	}
 	over := false
 	if ti == tStart && e.ResourceID != "" {
 		if r := a.resource(e.ResourceID); r >= 0 {
-			if a.openInterval(r, k, at) {
+			act := a.activityIndex(e.Activity)
+			if a.openInterval(r, k, at, act) {
 				a.flag(s, cResourceOverlap, e)
 				over = true
 			}
-			a.svc[k] = openService{res: r, at: at}
+			a.svc[k] = openService{res: r, act: act, at: at}
 		}
 	}
 	a.sinceSvcPrune++
@@ -630,16 +683,16 @@ func (a *Accumulator) resource(id string) int32 {
 // reports whether the resource is then serving more cases than its
 // capacity. Intervals open for longer than the default service maximum
 // are taken as lost completes and no longer count.
-func (a *Accumulator) openInterval(r int32, k uint64, at int64) bool {
+func (a *Accumulator) openInterval(r int32, k uint64, at int64, act int32) bool {
 	res := &a.resources[r]
 	kept := res.open[:0]
 	for _, iv := range res.open {
-		if at-iv.at <= a.maxService {
+		if at-iv.at <= a.lostAfter(iv.act) {
 			kept = append(kept, iv)
 		}
 	}
 	over := len(kept) >= a.opt.ResourceCapacity
-	res.open = append(kept, openInterval{caseKey: k, at: at})
+	res.open = append(kept, openInterval{caseKey: k, at: at, act: act})
 	return over
 }
 

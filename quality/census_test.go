@@ -189,3 +189,36 @@ func TestCompletenessWhereApplies(t *testing.T) {
 		t.Errorf("%d empty values where fields apply", n)
 	}
 }
+
+// TestLostCompleteBound: one agent answers a call every 6 minutes, each
+// lasting 4 to 5 minutes; one complete is lost. The lost service closes
+// at twice the longest service the activity has shown (10 minutes), not
+// after 24 hours, so it overlaps at most the next start, not the day's.
+func TestLostCompleteBound(t *testing.T) {
+	base := time.Date(2025, 3, 3, 8, 0, 0, 0, time.UTC)
+	var evs []schema.Event
+	for i := range 120 {
+		at := base.Add(time.Duration(i) * 6 * time.Minute)
+		id := "c" + strconv.Itoa(i)
+		evs = append(evs, schema.Event{Site: "s", CaseID: id, Type: schema.Start, Activity: "call", ResourceID: "a1", OccurredAt: at})
+		if i != 60 {
+			evs = append(evs, schema.Event{Site: "s", CaseID: id, Type: schema.Complete, Activity: "call", ResourceID: "a1",
+				OccurredAt: at.Add(4*time.Minute + time.Duration(i%60)*time.Second)})
+		}
+	}
+	for i := range evs {
+		evs[i].Line = int64(i + 2)
+	}
+	r := run(Options{}, evs, nil, nil)
+	if n := r.Count(CodeResourceOverlap); n > 1 {
+		t.Errorf("%d resource overlaps from one lost complete, want at most 1", n)
+	}
+	// Before 20 services are measured, the configured maximum holds: a
+	// complete lost at the start overlaps the starts until the bound is
+	// learned, then no more.
+	evs = slices.DeleteFunc(evs, func(e schema.Event) bool { return e.CaseID == "c1" && e.Type == schema.Complete })
+	r = run(Options{}, evs, nil, nil)
+	if n := r.Count(CodeResourceOverlap); n < 15 || n > 25 {
+		t.Errorf("%d overlaps from a complete lost before 20 services were measured, want about 20", n)
+	}
+}
