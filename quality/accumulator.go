@@ -424,20 +424,20 @@ type openInterval struct {
 func NewAccumulator(opt Options) *Accumulator {
 	opt.defaults()
 	a := &Accumulator{
-		opt:        opt,
-		maxCase:    uint64(opt.MaxCase.Microseconds()),
-		maxService: DefaultMaxService.Microseconds(),
+		opt:          opt,
+		maxCase:      uint64(opt.MaxCase.Microseconds()),
+		maxService:   DefaultMaxService.Microseconds(),
 		learnedIndex: map[string]int32{},
-		idWindow:   uint64(opt.EventIDWindow.Microseconds()),
-		clockTol:   opt.ClockTolerance.Microseconds(),
-		pruneEvery: defaultPruneEvery,
-		seed:       maphash.MakeSeed(),
-		reasons:    make(map[schema.Reason]*rejFinding),
-		siteIndex:  make(map[string]int),
-		waitIndex:  make(map[waitKey]int32),
-		resIndex:   make(map[string]int32),
-		ids:        newTable[struct{}](),
-		svc:        map[uint64]openService{},
+		idWindow:     uint64(opt.EventIDWindow.Microseconds()),
+		clockTol:     opt.ClockTolerance.Microseconds(),
+		pruneEvery:   defaultPruneEvery,
+		seed:         maphash.MakeSeed(),
+		reasons:      make(map[schema.Reason]*rejFinding),
+		siteIndex:    make(map[string]int),
+		waitIndex:    make(map[waitKey]int32),
+		resIndex:     make(map[string]int32),
+		ids:          newTable[struct{}](),
+		svc:          map[uint64]openService{},
 	}
 	for act, d := range opt.MaxService {
 		if act == "" {
