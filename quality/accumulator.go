@@ -92,6 +92,9 @@ type Options struct {
 	// MaxHours is how many hours the gap series of one site spans.
 	// Default [DefaultMaxHours].
 	MaxHours int
+	// Historical marks a dataset of past events, not a live feed: it is
+	// not scored on currentness (no staleness, no gap checks).
+	Historical bool
 	// Terminal are the event types, besides departure and abandon, that
 	// end a case's presence (schema.Profile.Terminal; see cases.Exits).
 	Terminal []schema.EventType

@@ -222,3 +222,19 @@ func TestLostCompleteBound(t *testing.T) {
 		t.Errorf("%d overlaps from a complete lost before 20 services were measured, want about 20", n)
 	}
 }
+
+// TestHistoricalNotCurrent: a week of events uploaded a year later is
+// stale and judged for gaps as a feed; marked historical it is not
+// scored on currentness at all.
+func TestHistoricalNotCurrent(t *testing.T) {
+	evs := contactLine(5, 28, 0)
+	up := evs[len(evs)-1].OccurredAt.AddDate(1, 0, 0)
+	feed := run(Options{UploadedAt: up}, evs, nil, nil)
+	if !feed.Currentness[0].Stale || feed.Count(CodeStaleSite) == 0 {
+		t.Errorf("feed: currentness %+v", feed.Currentness[0])
+	}
+	hist := run(Options{UploadedAt: up, Historical: true}, evs, nil, nil)
+	if c := hist.Currentness[0]; c.Stale || c.JudgedHours != 0 || hist.Dimension(DimCurrentness).Score != nil || hist.Count(CodeStaleSite) != 0 {
+		t.Errorf("historical: currentness %+v, score %v", c, hist.Dimension(DimCurrentness).Score)
+	}
+}

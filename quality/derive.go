@@ -201,6 +201,10 @@ func deriveSite(s *SiteRaw, set *Settings, zone *time.Location) siteDerived {
 		med, mx := lagMedian(s.Lag), s.Lag.MaxSeconds
 		cur.LagMedianSeconds, cur.LagMaxSeconds = &med, &mx
 	}
+	if set.Historical { // past events, not a feed: no currentness judged
+		d.cur = cur
+		return d
+	}
 	if set.UploadedAt != nil && s.Last != nil && set.UploadedAt.Sub(*s.Last).Seconds() > set.StaleAfterSeconds {
 		cur.Stale = true
 	}

@@ -40,6 +40,7 @@ type Settings struct {
 	UploadedAt         *time.Time `json:"uploaded_at,omitempty"` // the latest, when merged
 	WindowFrom         *time.Time `json:"window_from,omitempty"`
 	WindowTo           *time.Time `json:"window_to,omitempty"`
+	Historical         bool       `json:"historical,omitempty"` // not scored on currentness
 }
 
 // SiteRaw holds the counts of one site.

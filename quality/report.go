@@ -364,6 +364,7 @@ func (a *Accumulator) settings() Settings {
 		LittleTolerance:      o.LittleTolerance, GapMinMean: o.GapMinMean, GapMinWeeks: o.GapMinWeeks,
 		StaleAfterSeconds: o.StaleAfter.Seconds(),
 		UploadedAt:        timePtr(o.UploadedAt), WindowFrom: timePtr(o.WindowFrom), WindowTo: timePtr(o.WindowTo),
+		Historical: o.Historical,
 	}
 	if st.MappedFields == nil {
 		st.MappedFields = []schema.Field{}
