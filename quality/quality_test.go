@@ -433,7 +433,8 @@ func TestText(t *testing.T) {
 	if !strings.Contains(color.String(), "\x1b[") {
 		t.Error("no colour")
 	}
-	for _, want := range []string{"quality report v2", "site", "(all)", "north", "exact_duplicate", "resource_overlap", "accuracy"} {
+	for _, want := range []string{"quality report v2", "site", "(all)", "north", "exact_duplicate", "resource_overlap", "accuracy",
+		"what the findings mean", "exact_duplicate: " + whyOf(CodeExactDuplicate), "first rejected rows", "bad_timestamp: line 3"} {
 		if !strings.Contains(plain.String(), want) {
 			t.Errorf("text lacks %q:\n%s", want, plain.String())
 		}

@@ -108,6 +108,45 @@ func (r *Report) Text(w io.Writer, color bool) error {
 		bw.WriteString("\n")
 		p.table(bw, frows, map[int]bool{0: true, 1: true, 4: true, 5: true}, false)
 	}
+
+	// What each finding found means, once per code.
+	said := map[string]bool{}
+	var sentences []string
+	for _, f := range r.Findings() {
+		if f.Count == 0 || said[f.Code] {
+			continue
+		}
+		said[f.Code] = true
+		if w := whyOf(f.Code); w != "" {
+			sentences = append(sentences, f.Code+": "+w)
+		}
+	}
+	if len(sentences) > 0 {
+		bw.WriteString("\n" + p.bold("what the findings mean") + "\n")
+		for _, s := range sentences {
+			bw.WriteString("  " + s + "\n")
+		}
+	}
+	// The first rejected rows, where to look.
+	var rej []string
+	for _, rc := range r.Rejections {
+		for _, s := range rc.Samples {
+			where := "line " + strconv.FormatInt(s.Line, 10)
+			if s.Column != "" {
+				where += ", column " + s.Column
+			}
+			if s.Field != "" {
+				where += " (" + string(s.Field) + ")"
+			}
+			rej = append(rej, string(rc.Reason)+"\t"+where)
+		}
+	}
+	if len(rej) > 0 {
+		bw.WriteString("\n" + p.bold("first rejected rows") + "\n")
+		for _, s := range rej {
+			bw.WriteString("  " + strings.Replace(s, "\t", ": ", 1) + "\n")
+		}
+	}
 	return bw.Flush()
 }
 
