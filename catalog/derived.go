@@ -428,6 +428,7 @@ func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePla
 			if r, err = s.reportOfFile(f, parentRef(parent)); err != nil {
 				return nil, err
 			}
+			r.SetFile(s.uploadFilename(parentRef(parent), f.Upload))
 		}
 		rs = append(rs, r)
 	}
@@ -439,6 +440,20 @@ func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePla
 		return nil, fmt.Errorf("quality: %w", err)
 	}
 	return out, nil
+}
+
+// uploadFilename is the name the upload of id was sent with, "" when
+// unknown.
+func (s *Store) uploadFilename(ref, id string) string {
+	var seq int
+	if _, err := fmt.Sscanf(id, "u%d", &seq); err != nil || ref == "" {
+		return ""
+	}
+	var up Upload
+	_ = s.db.View(func(tx *bolt.Tx) error {
+		return getJSON(tx.Bucket(bucketUploads), seqKey(ref, seq), &up, "upload "+id)
+	})
+	return up.Filename
 }
 
 func parentRef(v *Version) string {

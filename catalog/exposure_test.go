@@ -142,3 +142,33 @@ fields:
 	}
 	t.Logf("exposure %d hours, %d copies sent, %d exact copies left out", s.ExposureHours, copies, s.Excluded.ExactDuplicates)
 }
+
+// TestSamplesNameTheirFile: a version made of two uploads reports where
+// each sample is as file and line.
+func TestSamplesNameTheirFile(t *testing.T) {
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "d", nil)
+	a := "site,case_id,event_type,occurred_at\n" +
+		"s,c1,arrival,2026-05-01T10:00:00Z\n" +
+		"s,c2,arrival,2026-07-01T10:00:00Z\n" // dated after the upload (testNow)
+	b := "site,case_id,event_type,occurred_at\n" +
+		"s,c3,arrival,2026-08-01T10:00:00Z\n" +
+		"s,c4,arrival,2026-05-02T10:00:00Z\n"
+	e.ingest(t, "p", "d", []byte(a), "monday.csv")
+	res := e.ingest(t, "p", "d", []byte(b), "tuesday.csv")
+	q := res.Version.Manifest.Quality
+	if q == nil {
+		t.Fatal("no report")
+	}
+	var got []string
+	for _, f := range q.Findings() {
+		if f.Code == "later_than_upload" {
+			for _, s := range f.Samples {
+				got = append(got, fmt.Sprintf("%s:%d", s.File, s.Line))
+			}
+		}
+	}
+	if want := []string{"monday.csv:3", "tuesday.csv:2"}; fmt.Sprint(got) != fmt.Sprint(want) {
+		t.Errorf("samples %v, want %v", got, want)
+	}
+}

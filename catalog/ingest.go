@@ -307,11 +307,13 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	if parent == nil && len(plan.files) == 0 {
 		return s.duplicate(ds, *up, nil)
 	}
+	// The version's report names the file of each sample line.
+	frep := rep.WithFile(up.Filename)
 	if entry != nil {
 		plan.summaries[entry.SHA256] = sacc
-		plan.reports[entry.SHA256] = rep
+		plan.reports[entry.SHA256] = frep
 	}
-	merged, err := s.mergeQuality(ctx, parent, plan, rep, mergeMode(opt.Mode, plan))
+	merged, err := s.mergeQuality(ctx, parent, plan, frep, mergeMode(opt.Mode, plan))
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}

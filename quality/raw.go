@@ -2,6 +2,7 @@ package quality
 
 import (
 	"cmp"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"slices"
@@ -428,4 +429,52 @@ func WithCases(merged, cases *Report) *Report {
 		}
 	}
 	return derive(merged.Rows, cloneRejections(merged.Rejections), raw, slices.Clone(merged.UnmappedColumns))
+}
+
+// WithFile returns a copy of r whose samples name file (see SetFile); r
+// itself when file is "".
+func (r *Report) WithFile(file string) *Report {
+	if file == "" {
+		return r
+	}
+	b, err := json.Marshal(r)
+	if err != nil {
+		return r
+	}
+	var c Report
+	if err := json.Unmarshal(b, &c); err != nil {
+		return r
+	}
+	c.SetFile(file)
+	return &c
+}
+
+// SetFile names file as the file of every sample of r that has a source
+// line and no file yet, so that a version's merged report says where each
+// line is.
+func (r *Report) SetFile(file string) {
+	if file == "" {
+		return
+	}
+	set := func(ss []Sample) {
+		for i := range ss {
+			if ss[i].Line > 0 && ss[i].File == "" {
+				ss[i].File = file
+			}
+		}
+	}
+	for _, ss := range r.Raw.Samples {
+		set(ss)
+	}
+	for i := range r.Rejections {
+		set(r.Rejections[i].Samples)
+	}
+	for i := range r.Dimensions {
+		for j := range r.Dimensions[i].Findings {
+			set(r.Dimensions[i].Findings[j].Samples)
+		}
+	}
+	for j := range r.Internal {
+		set(r.Internal[j].Samples)
+	}
 }

@@ -252,6 +252,9 @@ type Finding struct {
 // fault when known; for a gap, the site and the hour or day. It never
 // holds a field value.
 type Sample struct {
+	// File names the uploaded file the line is in (its name as uploaded),
+	// set when the reports of a version's uploads are merged.
+	File   string       `json:"file,omitempty"`
 	Line   int64        `json:"line,omitempty"`
 	CaseID string       `json:"case_id,omitempty"`
 	Column string       `json:"column,omitempty"`

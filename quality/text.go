@@ -132,6 +132,9 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	for _, rc := range r.Rejections {
 		for _, s := range rc.Samples {
 			where := "line " + strconv.FormatInt(s.Line, 10)
+			if s.File != "" {
+				where = s.File + " " + where
+			}
 			if s.Column != "" {
 				where += ", column " + s.Column
 			}
@@ -246,6 +249,9 @@ func sampleLines(s []Sample) string {
 		}
 		switch {
 		case x.Line > 0:
+			if x.File != "" {
+				b.WriteString(x.File + ":")
+			}
 			b.WriteString(strconv.FormatInt(x.Line, 10))
 		case x.At != nil:
 			b.WriteString(x.Site + "@" + x.At.Format("2006-01-02T15"))
