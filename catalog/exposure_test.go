@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
+	"math"
 	"testing"
 	"time"
 
@@ -170,5 +171,37 @@ func TestSamplesNameTheirFile(t *testing.T) {
 	}
 	if want := []string{"monday.csv:3", "tuesday.csv:2"}; fmt.Sprint(got) != fmt.Sprint(want) {
 		t.Errorf("samples %v, want %v", got, want)
+	}
+}
+
+// TestTerminalFromProfile: a profile that declares complete terminal
+// takes calls out of the census at their complete, in the version's
+// report and in its summary.
+func TestTerminalFromProfile(t *testing.T) {
+	e := newEnv(t, nil)
+	prof := []byte("terminal: [complete]\nfields:\n  site: {value: line}\n  case_id: c\n  event_type: t\n  occurred_at: at\n")
+	e.dataset(t, "p", "d", func(s *DatasetSpec) { s.Profile = prof })
+	var b bytes.Buffer
+	b.WriteString("c,t,at\n")
+	base := time.Date(2026, 5, 4, 0, 0, 0, 0, time.UTC)
+	for i := range 200 {
+		at := base.Add(time.Duration(i) * 17 * time.Minute)
+		fmt.Fprintf(&b, "k%d,arrival,%s\nk%d,complete,%s\n", i, at.Format(time.RFC3339), i, at.Add(9*time.Minute).Format(time.RFC3339))
+	}
+	res := e.ingest(t, "p", "d", b.Bytes(), "calls.csv")
+	l := res.Version.Manifest.Quality.Little[0]
+	if !l.Judged || l.Flagged || l.Exits != 200 || math.Abs(l.Ratio-1) > 0.02 {
+		t.Errorf("report: %+v", l)
+	}
+	js, err := e.s.Summary(context.Background(), "p/d", 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var s summary.Summary
+	if err := json.Unmarshal(js, &s); err != nil {
+		t.Fatal(err)
+	}
+	if sl := s.Occupancy.Little; !sl.Judged || sl.Exits != 200 || sl.Open != 0 || math.Abs(sl.Ratio-1) > 1e-9 {
+		t.Errorf("summary: %+v", sl)
 	}
 }
