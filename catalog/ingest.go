@@ -128,7 +128,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 
 	raw := &hashCounter{h: sha256.New()}
 	tee := io.TeeReader(src, raw)
-	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical}
+	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity}
 	if ds.WindowFrom != nil {
 		qopt.WindowFrom = *ds.WindowFrom
 	}

@@ -167,6 +167,7 @@ type Accumulator struct {
 	maxService     int64
 	maxServiceAct  map[string]int64
 	learned        []learnedBound // by activity, for lost starts
+	resPeak        int            // most services one resource held at once
 	learnedIndex   map[string]int32
 	idWindow       uint64
 	clockTol       int64
@@ -696,6 +697,7 @@ func (a *Accumulator) openInterval(r int32, k uint64, at int64, act int32) bool 
 	}
 	over := len(kept) >= a.opt.ResourceCapacity
 	res.open = append(kept, openInterval{caseKey: k, at: at, act: act})
+	a.resPeak = max(a.resPeak, len(res.open))
 	return over
 }
 

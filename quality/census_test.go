@@ -238,3 +238,32 @@ func TestHistoricalNotCurrent(t *testing.T) {
 		t.Errorf("historical: currentness %+v, score %v", c, hist.Dimension(DimCurrentness).Score)
 	}
 }
+
+// TestResourceCapacity: agents who each hold two calls at once overlap at
+// the default capacity of one, not at a capacity of two; the report shows
+// the most services one resource held at once either way.
+func TestResourceCapacity(t *testing.T) {
+	base := time.Date(2025, 3, 3, 8, 0, 0, 0, time.UTC)
+	var evs []schema.Event
+	for i := range 100 {
+		at := base.Add(time.Duration(i/2) * 10 * time.Minute) // two calls per 10 minutes
+		id := "c" + strconv.Itoa(i)
+		res := "a" + strconv.Itoa(i%3)
+		evs = append(evs,
+			schema.Event{Site: "s", CaseID: id, Type: schema.Start, Activity: "call", ResourceID: res, OccurredAt: at.Add(time.Duration(i%2) * time.Minute)},
+			schema.Event{Site: "s", CaseID: id, Type: schema.Complete, Activity: "call", ResourceID: res, OccurredAt: at.Add(time.Duration(i%2)*time.Minute + 25*time.Minute)})
+	}
+	slices.SortStableFunc(evs, func(a, b schema.Event) int { return a.OccurredAt.Compare(b.OccurredAt) })
+	for i := range evs {
+		evs[i].Line = int64(i + 2)
+	}
+	one := run(Options{}, evs, nil, nil)
+	two := run(Options{ResourceCapacity: 2}, evs, nil, nil)
+	if one.Count(CodeResourceOverlap) == 0 || two.Count(CodeResourceOverlap) != 0 {
+		t.Errorf("overlaps at capacity 1: %d, at 2: %d", one.Count(CodeResourceOverlap), two.Count(CodeResourceOverlap))
+	}
+	if one.Raw.ResourcePeak != two.Raw.ResourcePeak || one.Raw.ResourcePeak != 2 {
+		t.Errorf("resource peak %d and %d", one.Raw.ResourcePeak, two.Raw.ResourcePeak)
+	}
+	t.Logf("peak %d services at one resource; %d overlaps at capacity 1", one.Raw.ResourcePeak, one.Count(CodeResourceOverlap))
+}

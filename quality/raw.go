@@ -19,6 +19,10 @@ type Raw struct {
 	Sites    []SiteRaw           `json:"sites"`
 	Waits    []WaitRaw           `json:"waits"`
 	Samples  map[string][]Sample `json:"samples"` // by finding code; empty_value:<field> per field
+	// ResourcePeak is the most services one resource held open at once
+	// (services taken as lost dropped): the capacity the data show, to set
+	// against Settings.ResourceCapacity.
+	ResourcePeak int `json:"resource_peak"`
 }
 
 // Settings are the options the counts were taken with.
@@ -245,7 +249,7 @@ func cloneRejections(rs []RejectionCount) []RejectionCount {
 }
 
 func cloneRaw(r *Raw) Raw {
-	out := Raw{Settings: r.Settings, Uploads: r.Uploads, Samples: map[string][]Sample{}}
+	out := Raw{Settings: r.Settings, Uploads: r.Uploads, ResourcePeak: r.ResourcePeak, Samples: map[string][]Sample{}}
 	out.Settings.MappedFields = slices.Clone(r.Settings.MappedFields)
 	for k, v := range r.Samples {
 		out.Samples[k] = slices.Clone(v)
@@ -261,6 +265,7 @@ func cloneRaw(r *Raw) Raw {
 
 func mergeRaw(dst, src *Raw) {
 	dst.Uploads += src.Uploads
+	dst.ResourcePeak = max(dst.ResourcePeak, src.ResourcePeak)
 	if u := src.Settings.UploadedAt; u != nil && (dst.Settings.UploadedAt == nil || u.After(*dst.Settings.UploadedAt)) {
 		dst.Settings.UploadedAt = u
 	}

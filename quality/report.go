@@ -313,7 +313,7 @@ func (r *Report) Findings() iter.Seq2[*Dimension, *Finding] {
 // Report computes the report from the counts so far. It does not change
 // the accumulator, so it may be called again after more input.
 func (a *Accumulator) Report() *Report {
-	raw := Raw{Settings: a.settings(), Uploads: 1, Samples: map[string][]Sample{}}
+	raw := Raw{Settings: a.settings(), Uploads: 1, Samples: map[string][]Sample{}, ResourcePeak: a.resPeak}
 	var accepted int64
 	for _, s := range a.sites {
 		accepted += s.events

@@ -65,6 +65,11 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	}
 	p.table(bw, rows, map[int]bool{0: true}, true)
 
+	if r.Raw.ResourcePeak > 0 {
+		fmt.Fprintf(bw, "\nresource capacity %d (set); at most %d services open at one resource at once (in the data)\n",
+			r.Raw.Settings.ResourceCapacity, r.Raw.ResourcePeak)
+	}
+
 	// Little's law.
 	var lrows [][]string
 	for _, l := range r.Little {

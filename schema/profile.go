@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 	"unicode/utf8"
@@ -82,6 +83,9 @@ type Profile struct {
 	// besides departure and abandon (a contact line's complete, say): the
 	// census and Little's law take the case out at the first of them.
 	Terminal []EventType `json:"terminal,omitempty"`
+	// ResourceCapacity is how many cases one resource may serve at once
+	// (0: the quality model's default, 1).
+	ResourceCapacity int `json:"resource_capacity,omitempty"`
 
 	loc *time.Location
 }
@@ -226,6 +230,16 @@ func ParseProfile(data []byte) (*Profile, error) {
 			}
 		case "fields":
 			fieldsNode = kv.value
+		case "resource_capacity":
+			s, err := scalar(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			n, err := strconv.Atoi(s)
+			if err != nil || n < 1 || n > 1000 {
+				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number from 1 to 1000", clip(s))}
+			}
+			p.ResourceCapacity = n
 		case "terminal":
 			ts, err := terminalTypes(kv.value, kv.key)
 			if err != nil {
@@ -233,7 +247,7 @@ func ParseProfile(data []byte) (*Profile, error) {
 			}
 			p.Terminal = ts
 		default:
-			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, timezone, local_time, terminal or fields)"}
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, timezone, local_time, terminal, resource_capacity or fields)"}
 		}
 	}
 	if fieldsNode == nil {
@@ -408,6 +422,9 @@ func (p *Profile) validate(lines map[string]int) error {
 				return at("fields", fmt.Sprintf("required field %s is not mapped", f))
 			}
 		}
+	}
+	if p.ResourceCapacity < 0 || p.ResourceCapacity > 1000 {
+		return at("resource_capacity", "want a whole number from 1 to 1000")
 	}
 	for _, t := range p.Terminal {
 		if !t.Valid() || t == Arrival || t == Enqueue {

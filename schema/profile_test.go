@@ -254,10 +254,13 @@ func TestProfileTerminal(t *testing.T) {
 	if strings.Contains(string(mustJSON(t, q)), "terminal") {
 		t.Error("terminal key in a profile without one")
 	}
-	for _, bad := range []string{"terminal: [arrival]\n", "terminal: [closed]\n", "terminal: [enqueue]\n"} {
+	if p, err := ParseProfile([]byte("resource_capacity: 3\n" + base)); err != nil || p.ResourceCapacity != 3 {
+		t.Errorf("resource_capacity: %v %v", p, err)
+	}
+	for _, bad := range []string{"terminal: [arrival]\n", "terminal: [closed]\n", "terminal: [enqueue]\n", "resource_capacity: 0\n", "resource_capacity: two\n"} {
 		_, err := ParseProfile([]byte(bad + base))
 		var pe *ProfileError
-		if !errors.As(err, &pe) || pe.Key != "terminal" {
+		if !errors.As(err, &pe) || (pe.Key != "terminal" && pe.Key != "resource_capacity") {
 			t.Errorf("%q: %v, want an error on terminal", bad, err)
 		}
 	}
