@@ -53,25 +53,36 @@ func NewCasePass(dir string, runEvents int) *CasePass {
 }
 
 // Add takes one event; its Line may carry quality flags (quality.PackLine).
+// The fields no per-case figure uses (priority, channel, outcome, event_id)
+// are not kept: the sort by case carries less.
 func (p *CasePass) Add(e *schema.Event) error {
 	p.events++
-	if e.SubjectID != "" {
-		if err := p.subjects.Add(e.SubjectID); err != nil {
-			return err
-		}
-	}
-	if e.ResourceID != "" {
-		if err := p.resources.Add(e.ResourceID); err != nil {
-			return err
-		}
-	}
-	return p.srt.Add(e)
+	c := *e
+	c.Priority, c.Channel, c.Outcome, c.EventID = "", "", "", ""
+	return p.srt.Add(&c)
 }
+
+// uploadMark, set in an event's Line, marks the events of the upload
+// being ingested among those of the rest of its version (RunSplit). Lines
+// keep their low 56 bits (quality.PackLine), so the mark never meets one.
+const uploadMark = 1 << 62
 
 // Run feeds every case to the observers and returns the exact counts.
 func (p *CasePass) Run(obs ...cases.Observer) (summary.Counts, error) {
-	b := cases.NewBuilder(obs...)
+	return p.RunSplit(obs, nil)
+}
+
+// RunSplit feeds every case to all, and the cases made of the events
+// marked by uploadMark (those events only) to mine, in one pass. The
+// observers of Kept get the cases made of the events summaries keep.
+func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) {
+	b := cases.NewBuilder(all...)
 	b.Terminal = p.Terminal
+	var bm *cases.Builder
+	if len(mine) > 0 {
+		bm = cases.NewBuilder(mine...)
+		bm.Terminal = p.Terminal
+	}
 	var kept *cases.Builder
 	if len(p.Kept) > 0 {
 		kept = cases.NewBuilder(p.Kept...)
@@ -80,8 +91,30 @@ func (p *CasePass) Run(obs ...cases.Observer) (summary.Counts, error) {
 	var c summary.Counts
 	var prev schema.Event
 	hasPrev := false
+	var lastSubj, lastRes string
 	err := p.srt.Finish(func(e *schema.Event) error {
-		b.Add(e)
+		// Distinct subjects and resources, counted on the way: a case
+		// names the same ones again and again, so most are skipped here.
+		if e.SubjectID != "" && e.SubjectID != lastSubj {
+			if err := p.subjects.Add(e.SubjectID); err != nil {
+				return err
+			}
+			lastSubj = e.SubjectID
+		}
+		if e.ResourceID != "" && e.ResourceID != lastRes {
+			if err := p.resources.Add(e.ResourceID); err != nil {
+				return err
+			}
+			lastRes = e.ResourceID
+		}
+		marked := e.Line&uploadMark != 0
+		e.Line &^= uploadMark
+		if marked && bm != nil {
+			bm.Add(e)
+		}
+		if len(all) > 0 {
+			b.Add(e)
+		}
 		if kept == nil {
 			return nil
 		}
@@ -107,6 +140,9 @@ func (p *CasePass) Run(obs ...cases.Observer) (summary.Counts, error) {
 		return summary.Counts{}, err
 	}
 	b.Flush()
+	if bm != nil {
+		bm.Flush()
+	}
 	if kept != nil {
 		kept.Flush()
 	}

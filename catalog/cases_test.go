@@ -27,6 +27,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/schema/cases"
+	"github.com/flowcat-catalog/flowcat/schema/synth"
 )
 
 // caseTable reads a version's case table with Apache Arrow's Parquet
@@ -148,7 +149,7 @@ func TestCasesWholeAcrossIdleAndUploads(t *testing.T) {
 				break
 			}
 		}
-		if q := v.Manifest.Quality; q.Cases.Count != n || q.Stages.Cases != n || q.Stages.Departure != 1 {
+		if q := e.report(t, v); q.Cases.Count != n || q.Stages.Cases != n || q.Stages.Departure != 1 {
 			t.Errorf("v%d: report cases %+v stages %+v, want %d cases, all departed", v.Number, q.Cases, q.Stages, n)
 		}
 	}
@@ -174,7 +175,7 @@ func TestCasesWholeAcrossIdleAndUploads(t *testing.T) {
 	if sum.Cases.Value != n || !sum.Cases.Exact || sum.LengthOfStay.N != n {
 		t.Errorf("summary cases %+v stays %d, want %d exact", sum.Cases, sum.LengthOfStay.N, n)
 	}
-	q1, q12 := one.Manifest.Quality, last.Manifest.Quality
+	q1, q12 := e.report(t, one), e.report(t, last)
 	if q1.Cases != q12.Cases || q1.Stages != q12.Stages || !slices.Equal(q1.Waits, q12.Waits) {
 		t.Errorf("case-level quality differs:\n%+v %+v\n%+v %+v", q1.Cases, q1.Stages, q12.Cases, q12.Stages)
 	}
@@ -210,8 +211,8 @@ func TestExactCounts(t *testing.T) {
 			if s.Cases.Value != float64(n) || s.Subjects.Value != float64(n/2) || s.Resources.Value != float64(n/10) || !s.Cases.Exact || !s.Subjects.Exact || !s.Resources.Exact {
 				t.Errorf("counts %+v %+v %+v, want %d, %d, %d exact", s.Cases, s.Subjects, s.Resources, n, n/2, n/10)
 			}
-			if v.Manifest.CaseTable.Rows != int64(n) || v.Manifest.Quality.Cases.Count != int64(n) {
-				t.Errorf("case table %d rows, report %d cases, want %d", v.Manifest.CaseTable.Rows, v.Manifest.Quality.Cases.Count, n)
+			if v.Manifest.CaseTable.Rows != int64(n) || e.report(t, v).Cases.Count != int64(n) {
+				t.Errorf("case table %d rows, report %d cases, want %d", v.Manifest.CaseTable.Rows, e.report(t, v).Cases.Count, n)
 			}
 		})
 	}
@@ -364,7 +365,7 @@ func TestPatientsLog(t *testing.T) {
 	if len(spans) != 500 || math.Abs(mean-576832.972) > 5e-4 {
 		t.Fatalf("independent reading: %d cases, mean %.4f s; README: 500, 576832.972 s", len(spans), mean)
 	}
-	q := v.Manifest.Quality
+	q := e.report(t, v)
 	if q.Cases.Count != 500 || math.Abs(q.Cases.MeanDurationSeconds-576832.972) > 5e-4 || q.Cases.MaxDurationSeconds != 1996424 {
 		t.Errorf("report cases %+v, want 500, mean 576832.972 s, max 1996424 s (README)", q.Cases)
 	}
@@ -435,4 +436,44 @@ func TestPatientsLog(t *testing.T) {
 		}
 	}
 	_ = quality.CodeCaseTooLong
+}
+
+// TestCompletionOnlyLog: a log of completions alone, grouped by case (as
+// many hospital exports are), spilled many times by the sort: every case
+// whole, its duration the span of its steps, and waits and services named
+// as not measurable.
+func TestCompletionOnlyLog(t *testing.T) {
+	const cases, per = 3000, 20
+	data, err := io.ReadAll(synth.NewCompletions(cases, per))
+	if err != nil {
+		t.Fatal(err)
+	}
+	e := newEnv(t, func(o *Options) { o.RunEvents = 4096 })
+	e.dataset(t, "p", "d", nil)
+	v := e.ingest(t, "p", "d", data, "long.csv").Version
+	want := int64((per - 1) * 6 * 3600 * 1e6) // a step every 6 hours (synth.NewCompletions)
+	cs := readArrowCases(t, e.caseTable(t, v))
+	if len(cs) != cases {
+		t.Fatalf("%d case rows, want %d", len(cs), cases)
+	}
+	for _, c := range cs {
+		if c.events != per || c.duration != want || c.nulls != "nnnnnnn" {
+			t.Fatalf("case %s: %d events over %d µs, nulls %s; want %d over %d, all optional columns null", c.id, c.events, c.duration, c.nulls, per, want)
+		}
+	}
+	js, err := e.s.Summary(context.Background(), "p/d", v.Number)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var s summary.Summary
+	if err := json.Unmarshal(js, &s); err != nil {
+		t.Fatal(err)
+	}
+	if s.Cases.Value != cases || s.EventsPerCase.Min != per || s.EventsPerCase.Max != per || len(s.NotMeasurable) != 3 || s.NotMeasurable[2].Figure != "littles_law" ||
+		s.BetweenEvents.N != cases*(per-1) || s.BetweenEvents.Mean != 6*3600 {
+		t.Errorf("summary cases %v, events per case %+v, between %d mean %v, not measurable %+v", s.Cases.Value, s.EventsPerCase, s.BetweenEvents.N, s.BetweenEvents.Mean, s.NotMeasurable)
+	}
+	if q := e.report(t, v).Cases; q.Count != cases || q.MeanDurationSeconds != float64(want)/1e6 {
+		t.Errorf("report cases %+v", q)
+	}
 }

@@ -26,13 +26,13 @@ type CaseTableEntry struct {
 // caseTableWriter writes the case table to a temporary file while hashing
 // it, with the snapshot writer's fixed settings. It is a cases.Observer.
 type caseTableWriter struct {
-	f    *os.File
-	h    hash.Hash
-	n    int64
-	w    *parquet.GenericWriter[cases.Row]
-	one  []cases.Row
-	rows int64
-	err  error
+	f     *os.File
+	h     hash.Hash
+	n     int64
+	w     *parquet.GenericWriter[cases.Row]
+	batch *batches[cases.Row] // written on another goroutine
+	rows  int64
+	err   error
 }
 
 func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTableWriter, error) {
@@ -40,7 +40,7 @@ func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTabl
 	if err != nil {
 		return nil, fmt.Errorf("case table: %w", err)
 	}
-	cw := &caseTableWriter{f: f, h: sha256.New(), one: make([]cases.Row, 1)}
+	cw := &caseTableWriter{f: f, h: sha256.New()}
 	cw.w = parquet.NewGenericWriter[cases.Row](io.MultiWriter(f, cw.h, countWriter{&cw.n}),
 		parquet.Compression(PageCodec),
 		parquet.MaxRowsPerRowGroup(rowGroupRows),
@@ -49,6 +49,14 @@ func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTabl
 		parquet.KeyValueMetadata("flowcat.pseudonym_key_id", keyID),
 		parquet.KeyValueMetadata("flowcat.table", "cases"),
 	)
+	// Optional columns are pointers, which keep their nulls exactly in
+	// batches (TestCaseRowNulls reads them back with Arrow).
+	cw.batch = newBatches(1024, func(rows []cases.Row) error {
+		if _, err := cw.w.Write(rows); err != nil {
+			return fmt.Errorf("case table: %w", err)
+		}
+		return nil
+	})
 	return cw, nil
 }
 
@@ -56,21 +64,25 @@ func (cw *caseTableWriter) Event(*schema.Event)    {}
 func (cw *caseTableWriter) Wait(*cases.Wait)       {}
 func (cw *caseTableWriter) Service(*cases.Service) {}
 
-// Case writes r's row. Rows are written one at a time: optional columns
-// then keep their nulls exactly (see DEVELOPERS.md on batched writes).
+// Case writes r's row.
 func (cw *caseTableWriter) Case(r *cases.Record) {
+	row := r.Row()
+	cw.add(&row)
+}
+
+func (cw *caseTableWriter) add(row *cases.Row) {
 	if cw.err != nil {
 		return
 	}
-	cw.one[0] = r.Row()
-	if _, err := cw.w.Write(cw.one); err != nil {
-		cw.err = fmt.Errorf("case table: %w", err)
-	}
 	cw.rows++
+	cw.err = cw.batch.add(*row)
 }
 
 // Finish completes and syncs the file and returns its entry.
 func (cw *caseTableWriter) Finish() (*CaseTableEntry, error) {
+	if err := cw.batch.close(); err != nil && cw.err == nil {
+		cw.err = err
+	}
 	if cw.err != nil {
 		return nil, cw.err
 	}
@@ -88,6 +100,7 @@ func (cw *caseTableWriter) Finish() (*CaseTableEntry, error) {
 
 // Remove closes and deletes the temporary file.
 func (cw *caseTableWriter) Remove() {
+	cw.batch.close()
 	cw.f.Close()
 	os.Remove(cw.f.Name())
 }
@@ -98,7 +111,7 @@ func ReadCaseTable(r io.ReaderAt, size int64, fn func(*cases.Row) error) error {
 	if err != nil {
 		return fmt.Errorf("case table: %w", err)
 	}
-	pr := parquet.NewGenericReader[cases.Row](f)
+	pr := NewRowReader(parquet.NewGenericReader[cases.Row](f))
 	defer pr.Close()
 	buf := make([]cases.Row, 256)
 	for {

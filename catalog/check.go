@@ -20,6 +20,7 @@ type CheckOptions struct {
 	Now        time.Time // the "upload" instant; default time.Now()
 	WindowFrom time.Time // declared window, zero = open
 	WindowTo   time.Time
+	Limits     schema.Limits // see Options.Limits
 }
 
 // CheckResult is the offline report of one file.
@@ -58,7 +59,7 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 	acc := quality.NewAccumulator(quality.Options{UploadedAt: opt.Now, WindowFrom: opt.WindowFrom, WindowTo: opt.WindowTo, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, ResourceCapacity: prof.ResourceCapacity})
 	srt := newSorter(opt.TempDir, opt.RunEvents)
 	defer srt.Close()
-	rd, err := schema.NewReader(src, prof, schema.ReaderOptions{Name: opt.Name})
+	rd, err := schema.NewReader(src, prof, schema.ReaderOptions{Name: opt.Name, Limits: opt.Limits})
 	if err == nil {
 		err = readAll(ctx, rd, pz, acc, srt)
 	}

@@ -53,6 +53,11 @@ func crashChild(mode string) {
 	case "commit":
 		testHookBeforeCommit = func() { os.Exit(3) }
 		src = bytes.NewReader(genCSV(genOpt{Seed: 2, N: 3000, CasePfx: crashRaw}))
+	case "put":
+		// Stall the blob write after its first bytes, then wait to be
+		// killed.
+		testHookPut = func(r io.Reader) io.Reader { return io.MultiReader(io.LimitReader(r, 4096), stallAfterSignal{}) }
+		src = bytes.NewReader(genCSV(genOpt{Seed: 4, N: 3000, CasePfx: crashRaw}))
 	case "read":
 		// A body that never ends: say when runs have spilled, then stall
 		// until killed.
@@ -172,4 +177,79 @@ func TestCrashWhileReading(t *testing.T) {
 	cmd.Process.Kill()
 	cmd.Wait()
 	crashCheck(t, e, first)
+}
+
+// TestCrashDuringBlobWrite kills the process while the new file is being
+// written into the blob store: the partial temporary file is there, and
+// reopening the store (what a restart does) plus a collection leave no
+// temporary anywhere.
+func TestCrashDuringBlobWrite(t *testing.T) {
+	e, first := crashSetup(t)
+	cmd := crashChildCmd(t, e, "put")
+	stdout, err := cmd.StdoutPipe()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	seen := make(chan bool, 1)
+	go func() {
+		sc := bufio.NewScanner(stdout)
+		for sc.Scan() {
+			if strings.Contains(sc.Text(), "stalled") {
+				seen <- true
+				return
+			}
+		}
+		seen <- false
+	}()
+	select {
+	case ok := <-seen:
+		if !ok {
+			cmd.Wait()
+			t.Fatal("child ended before it stalled")
+		}
+	case <-time.After(60 * time.Second):
+		cmd.Process.Kill()
+		t.Fatal("child never stalled")
+	}
+	blobTmp := filepath.Join(e.dir, "blobs", "tmp")
+	puts, _ := filepath.Glob(filepath.Join(blobTmp, "put-*"))
+	if len(puts) != 1 {
+		t.Fatalf("blob temp files while the write stalls: %v, want one", puts)
+	}
+	if fi, err := os.Stat(puts[0]); err != nil || fi.Size() != 4096 {
+		t.Errorf("the stalled write's temp file: %v, %v; want 4096 bytes", fi, err)
+	}
+	cmd.Process.Kill()
+	cmd.Wait()
+	if left, _ := os.ReadDir(blobTmp); len(left) != 1 {
+		t.Fatalf("the kill left %d blob temp files, want the one", len(left))
+	}
+
+	crashCheck(t, e, first) // reopens the store
+	for _, dir := range []string{blobTmp, e.tmp} {
+		if left, _ := os.ReadDir(dir); len(left) != 0 {
+			t.Errorf("after the restart %s holds %v", dir, left)
+		}
+	}
+	// A temporary left while the store runs (a failed clean-up) waits for
+	// the grace period; the collection with no grace removes it.
+	stray := filepath.Join(blobTmp, "put-stray")
+	if err := os.WriteFile(stray, []byte("partial"), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	ctx := context.Background()
+	res, err := e.s.CollectGarbage(ctx, GCOptions{}, "test")
+	if err != nil || res.Temporaries != 0 {
+		t.Fatalf("gc with the default grace: %+v, %v; want the young temporary kept", res, err)
+	}
+	res, err = e.s.CollectGarbage(ctx, GCOptions{Grace: -1}, "test")
+	if err != nil || res.Temporaries != 1 || res.TemporaryBytes != 7 {
+		t.Fatalf("gc without grace: %+v, %v; want 1 temporary of 7 bytes", res, err)
+	}
+	if left, _ := os.ReadDir(blobTmp); len(left) != 0 {
+		t.Errorf("after gc %s holds %v", blobTmp, left)
+	}
 }

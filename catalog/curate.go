@@ -63,10 +63,16 @@ func (s *Store) setState(project, dataset string, n int, by string, change func(
 			return err
 		}
 		changed, err := change(&v)
-		if err != nil || !changed {
+		if err != nil {
 			return err
 		}
+		if !changed {
+			return withManifest(tx, &v)
+		}
 		if err := putVersion(tx, &v); err != nil {
+			return err
+		}
+		if err := withManifest(tx, &v); err != nil {
 			return err
 		}
 		return audit(tx, s.opt.Now(), by, action, fmt.Sprintf("%s@%d", ref, n))

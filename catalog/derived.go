@@ -94,6 +94,16 @@ func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID, excl
 	return acc, state, nil
 }
 
+// uploadPass is an upload's part in its version's per-case pass: the pass
+// holding the upload's events (marked by uploadMark, with their quality
+// flags), the file they made, and the upload's quality accumulator, which
+// takes the upload's events alone.
+type uploadPass struct {
+	cases *CasePass
+	entry *FileEntry
+	acc   *quality.Accumulator
+}
+
 // versionPass is what one per-case pass over a version's files yields.
 type versionPass struct {
 	summary    *versionSummary
@@ -117,7 +127,7 @@ func (p *versionPass) release() {
 // states of files made by this commit. Memory is bounded by the sort's
 // runs, not by the version: every file is read once, in turn, and its
 // events sorted by case on disk.
-func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, qopt quality.Options, keyID string, table bool) (*versionPass, error) {
+func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, qopt quality.Options, keyID string, table bool, upass *uploadPass) (*versionPass, error) {
 	out := &versionPass{fileStates: map[blob.ID][]byte{}}
 	total := summary.New(summaryOptions(ds))
 	excls := make([]*exclusion, len(files))
@@ -146,13 +156,27 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			return nil, err
 		}
 	}
-	cp := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
-	defer cp.Close()
+	var cp *CasePass
+	var mine []cases.Observer
+	var fromUpload blob.ID
+	if upass != nil {
+		// The upload's events are in its pass already, marked.
+		cp, mine = upass.cases, []cases.Observer{upass.acc}
+		if upass.entry != nil {
+			fromUpload = upass.entry.SHA256
+		}
+	} else {
+		cp = NewCasePass(s.opt.TempDir, s.opt.RunEvents)
+		defer cp.Close()
+	}
 	if prof, err := ds.EffectiveProfile(); err == nil {
 		cp.Terminal = prof.Terminal
 		qopt.Terminal = prof.Terminal
 	}
 	for i, f := range files {
+		if f.SHA256 == fromUpload {
+			continue
+		}
 		err := s.readFile(ctx, f.SHA256, func(e *schema.Event) error {
 			// Strings read from Parquet may point into the reader's
 			// buffers; the sort keeps events past the next read.
@@ -179,7 +203,7 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 		defer cw.Remove()
 		obs = append(obs, cw)
 	}
-	counts, err := cp.Run(obs...)
+	counts, err := cp.RunSplit(obs, mine)
 	if err != nil {
 		return nil, err
 	}
@@ -235,10 +259,9 @@ func (x *exclusion) flags(e *schema.Event) quality.Flags {
 func (s *Store) exclusionOf(ds *Dataset, f FileEntry, now time.Time) *exclusion {
 	x := &exclusion{}
 	var up Upload
-	var seq int
-	if _, err := fmt.Sscanf(f.Upload, "u%d", &seq); err == nil {
+	if seq := f.Upload.Seq(); seq != 0 {
 		_ = s.db.View(func(tx *bolt.Tx) error {
-			return getJSON(tx.Bucket(bucketUploads), seqKey(ds.Ref(), seq), &up, "upload "+f.Upload)
+			return getJSON(tx.Bucket(bucketUploads), seqKey(ds.Ref().String(), seq), &up, "upload "+f.Upload.String())
 		})
 	}
 	switch {
@@ -267,22 +290,6 @@ func (s *Store) readFile(ctx context.Context, id blob.ID, fn func(*schema.Event)
 		return fmt.Errorf("file %s: %w", id, err)
 	}
 	return nil
-}
-
-func (s *Store) storedVersionSummary(ref string, n int) (*versionSummary, error) {
-	var vs versionSummary
-	err := s.db.View(func(tx *bolt.Tx) error {
-		st := tx.Bucket(bucketVersionStates).Get(seqKey(ref, n))
-		if st == nil {
-			return fmt.Errorf("summary of %s@%d: %w", ref, n, ErrNotFound)
-		}
-		vs.State = bytes.Clone(st)
-		return nil
-	})
-	if err != nil {
-		return nil, err
-	}
-	return &vs, nil
 }
 
 // putSummaries stores a commit's summary states in tx.
@@ -357,7 +364,7 @@ func (s *Store) SummaryGzip(ctx context.Context, ref string, n int) ([]byte, err
 	if err != nil {
 		return nil, err
 	}
-	vp, err := s.passVersion(ctx, ds, v.Manifest.Files, nil, quality.Options{}, "", false)
+	vp, err := s.passVersion(ctx, ds, v.Manifest.Files, nil, quality.Options{}, "", false, nil)
 	if err != nil {
 		return nil, err
 	}
@@ -390,11 +397,11 @@ func (s *Store) reportOfFile(f FileEntry, ref string) (*quality.Report, error) {
 			return nil
 		}
 		var up Upload
-		var seq int
-		if _, err := fmt.Sscanf(f.Upload, "u%d", &seq); err != nil {
+		seq := f.Upload.Seq()
+		if seq == 0 {
 			return fmt.Errorf("file %s: no report and no upload: %w", f.SHA256, ErrNotFound)
 		}
-		if err := getJSON(tx.Bucket(bucketUploads), seqKey(ref, seq), &up, "upload "+f.Upload); err != nil {
+		if err := getJSON(tx.Bucket(bucketUploads), seqKey(ref, seq), &up, "upload "+f.Upload.String()); err != nil {
 			return err
 		}
 		if up.Report == nil || f.DerivedFrom != nil {
@@ -415,9 +422,11 @@ func (s *Store) reportOfFile(f FileEntry, ref string) (*quality.Report, error) {
 // they were rewritten, without the rejected rows and source lines of their
 // first upload).
 func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePlan, rep *quality.Report, mode Mode) (*quality.Report, error) {
-	if mode == ModeAppend && parent != nil && parent.Manifest.Quality != nil {
-		if r, err := quality.MergeReports(parent.Manifest.Quality, rep); err == nil {
-			return r, nil
+	if mode == ModeAppend && parent != nil && !parent.Quality.SHA256.IsZero() {
+		if pr, err := s.Report(ctx, parent); err == nil {
+			if r, err := quality.MergeReports(pr, rep); err == nil {
+				return r, nil
+			}
 		}
 	}
 	var rs []*quality.Report
@@ -444,14 +453,14 @@ func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePla
 
 // uploadFilename is the name the upload of id was sent with, "" when
 // unknown.
-func (s *Store) uploadFilename(ref, id string) string {
-	var seq int
-	if _, err := fmt.Sscanf(id, "u%d", &seq); err != nil || ref == "" {
+func (s *Store) uploadFilename(ref string, id UploadID) string {
+	seq := id.Seq()
+	if seq == 0 || ref == "" {
 		return ""
 	}
 	var up Upload
 	_ = s.db.View(func(tx *bolt.Tx) error {
-		return getJSON(tx.Bucket(bucketUploads), seqKey(ref, seq), &up, "upload "+id)
+		return getJSON(tx.Bucket(bucketUploads), seqKey(ref, seq), &up, "upload "+id.String())
 	})
 	return up.Filename
 }
@@ -460,7 +469,7 @@ func parentRef(v *Version) string {
 	if v == nil {
 		return ""
 	}
-	return v.Manifest.Dataset
+	return v.Dataset.String()
 }
 
 // cloneStrings gives e strings of its own.

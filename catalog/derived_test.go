@@ -70,7 +70,7 @@ func TestVersionSummaries(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if q := res.Version.Manifest.Quality; q.Rows.Accepted != res.Version.Manifest.Rows || q.Rows.Total != 2400-res.Version.Manifest.Lineage.RowsRemoved {
+	if q := e.report(t, res.Version); q.Rows.Accepted != res.Version.Manifest.Rows || q.Rows.Total != 2400-res.Version.Manifest.Lineage.RowsRemoved {
 		t.Errorf("after replace-window: quality rows %+v, version rows %d", q.Rows, res.Version.Manifest.Rows)
 	}
 	if err := json.Unmarshal(b, &sum); err != nil || int64(sum.Events) != res.Version.Manifest.Rows || res.Version.Manifest.Lineage.RowsRemoved == 0 {

@@ -7,4 +7,9 @@
 // Parquet writer, and commits a new immutable version in one bbolt
 // transaction after its files are durable. A crash between the two leaves an
 // unreferenced blob, never a version without its files.
+//
+// A version's manifest is stored once, as the canonical bytes its commit
+// made, under its snapshot id (their sha256), and always served as stored;
+// its quality report sits beside it, named by its own sha256. migrate.go
+// is the one place that reads the stored formats of earlier releases.
 package catalog

@@ -106,8 +106,8 @@ func TestEdgeSummaryConsistency(t *testing.T) {
 		if !bytes.Equal(gb, wb) {
 			t.Errorf("v%d (%s): stored summary differs from recomputation\n got %s\nwant %s", v.Number, v.Manifest.Lineage.Mode, gb, wb)
 		}
-		q := v.Manifest.Quality
-		if q != nil && q.Rows.Accepted != v.Manifest.Rows {
+		q := e.report(t, v)
+		if q.Rows.Accepted != v.Manifest.Rows {
 			t.Errorf("v%d (%s): quality accepted rows %d, manifest rows %d", v.Number, v.Manifest.Lineage.Mode, q.Rows.Accepted, v.Manifest.Rows)
 		}
 	}
@@ -119,13 +119,13 @@ func TestEdgeRetractedDraft(t *testing.T) {
 	e.dataset(t, "p", "d", func(s *DatasetSpec) { s.Drafts = true })
 	e.ingest(t, "p", "d", csvBytes(header, mkRows("north", "A", 0, 30)), "a.csv")
 	ctx := context.Background()
-	if _, err := e.s.ResolveHead(ctx, "p", "d", Selector{Kind: SelectNumber, Number: 1}, false); err == nil {
+	if _, err := e.s.ResolveVersion(ctx, "p", "d", Selector{Kind: SelectNumber, Number: 1}, false); err == nil {
 		t.Fatal("draft visible")
 	}
 	if _, err := e.s.Retract(ctx, "p", "d", 1, "oops", "cur"); err != nil {
 		t.Fatal(err)
 	}
-	if h, err := e.s.ResolveHead(ctx, "p", "d", Selector{Kind: SelectNumber, Number: 1}, false); err == nil {
+	if h, err := e.s.ResolveVersion(ctx, "p", "d", Selector{Kind: SelectNumber, Number: 1}, false); err == nil {
 		t.Errorf("a retracted draft (never published) is visible to members: %+v", h.State)
 	}
 }

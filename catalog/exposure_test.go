@@ -157,10 +157,7 @@ func TestSamplesNameTheirFile(t *testing.T) {
 		"s,c4,arrival,2026-05-02T10:00:00Z\n"
 	e.ingest(t, "p", "d", []byte(a), "monday.csv")
 	res := e.ingest(t, "p", "d", []byte(b), "tuesday.csv")
-	q := res.Version.Manifest.Quality
-	if q == nil {
-		t.Fatal("no report")
-	}
+	q := e.report(t, res.Version)
 	var got []string
 	for _, f := range q.Findings() {
 		if f.Code == "later_than_upload" {
@@ -189,7 +186,7 @@ func TestTerminalFromProfile(t *testing.T) {
 		fmt.Fprintf(&b, "k%d,arrival,%s\nk%d,complete,%s\n", i, at.Format(time.RFC3339), i, at.Add(9*time.Minute).Format(time.RFC3339))
 	}
 	res := e.ingest(t, "p", "d", b.Bytes(), "calls.csv")
-	l := res.Version.Manifest.Quality.Little[0]
+	l := e.report(t, res.Version).Little[0]
 	if !l.Judged || l.Flagged || l.Exits != 200 || math.Abs(l.Ratio-1) > 0.02 {
 		t.Errorf("report: %+v", l)
 	}

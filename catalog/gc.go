@@ -35,11 +35,18 @@ type GCResult struct {
 	Deleted      []blob.ID `json:"deleted"`       // deleted (or, in a dry run, to be deleted)
 	DeletedBytes int64     `json:"deleted_bytes"` // their total size
 	DryRun       bool      `json:"dry_run"`
+	// Temporary files of blob writes that never finished (a crash or a
+	// failed clean-up), past the grace period: deleted (or, in a dry run,
+	// to be deleted).
+	Temporaries    int   `json:"temporaries"`
+	TemporaryBytes int64 `json:"temporary_bytes"`
 }
 
 // CollectGarbage deletes the blobs no version of any dataset references:
 // files left by a crash or a failed commit between the blob and the
-// version. Every version, retracted ones included, keeps its files.
+// version. Every version, retracted ones included, keeps its files. It
+// also deletes the blob store's temporary files older than the grace
+// period that no write in progress holds (blob.TempSweeper).
 //
 // Safety against a concurrent upload: an upload holds each blob it makes
 // from before the put until after the version that lists it is committed.
@@ -96,16 +103,23 @@ func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*
 		res.Deleted = append(res.Deleted, info.ID)
 		res.DeletedBytes += info.Size
 	}
-	if !opt.DryRun && len(doomed) > 0 {
+	if sw, ok := s.blobs.(blob.TempSweeper); ok {
+		n, b, err := sw.SweepTemp(ctx, max(grace, 0), opt.DryRun)
+		if err != nil {
+			return res, fmt.Errorf("gc: %w", err)
+		}
+		res.Temporaries, res.TemporaryBytes = n, b
+	}
+	if !opt.DryRun && len(doomed)+res.Temporaries > 0 {
 		err := s.db.Update(func(tx *bolt.Tx) error {
-			return audit(tx, now, by, "gc", fmt.Sprintf("%d blobs, %d bytes", len(doomed), res.DeletedBytes))
+			return audit(tx, now, by, "gc", fmt.Sprintf("%d blobs, %d bytes; %d temporary files, %d bytes", len(doomed), res.DeletedBytes, res.Temporaries, res.TemporaryBytes))
 		})
 		if err != nil {
 			return res, err
 		}
 	}
 	s.opt.Logger.Info("garbage collected", "blobs", res.Blobs, "referenced", res.Referenced,
-		"deleted", len(res.Deleted), "bytes", res.DeletedBytes, "dry_run", opt.DryRun)
+		"deleted", len(res.Deleted), "bytes", res.DeletedBytes, "temporaries", res.Temporaries, "dry_run", opt.DryRun)
 	return res, nil
 }
 
@@ -113,29 +127,17 @@ func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*
 // and deciding which to delete.
 var testHookGCBetween func()
 
-// referenced returns every blob any version's manifest lists.
+// referenced returns every blob any version's manifest lists (Blobs).
 func (s *Store) referenced() (map[blob.ID]bool, error) {
 	refs := map[blob.ID]bool{}
 	err := s.db.View(func(tx *bolt.Tx) error {
-		return tx.Bucket(bucketVersions).ForEach(func(k, v []byte) error {
-			var ver struct {
-				Manifest struct {
-					Files []struct {
-						SHA256 blob.ID `json:"sha256"`
-					} `json:"files"`
-					CaseTable *struct {
-						SHA256 blob.ID `json:"sha256"`
-					} `json:"case_table"`
-				} `json:"manifest"`
+		return tx.Bucket(bucketManifests).ForEach(func(k, b []byte) error {
+			var m Manifest
+			if err := json.Unmarshal(b, &m); err != nil {
+				return fmt.Errorf("gc: manifest %s: %w", k, err)
 			}
-			if err := json.Unmarshal(v, &ver); err != nil {
-				return fmt.Errorf("gc: version %q: %w", k, err)
-			}
-			for _, f := range ver.Manifest.Files {
+			for _, f := range m.Blobs() {
 				refs[f.SHA256] = true
-			}
-			if ct := ver.Manifest.CaseTable; ct != nil {
-				refs[ct.SHA256] = true
 			}
 			return nil
 		})

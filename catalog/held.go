@@ -507,7 +507,7 @@ type heldCursor struct {
 	groups []parquet.RowGroup
 	col    int // leaf index of occurred_at
 	gi     int
-	rd     *parquet.GenericReader[schema.Event]
+	rd     *EventReader
 	buf    []schema.Event
 	pos, n int
 	at     int64 // instant of buf[pos]
@@ -557,7 +557,7 @@ func (c *heldCursor) advance(s *heldSource) error {
 				c.done = true
 				return nil
 			}
-			c.rd = parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi])
+			c.rd = NewRowReader(parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi]))
 			c.gi++
 			s.stats.RowGroupsRead++
 		}

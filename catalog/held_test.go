@@ -166,13 +166,13 @@ func TestHeldDayThenLateEvent(t *testing.T) {
 	// every event-level figure of quality and summary agrees. (Per-case
 	// figures of a case split across files come from the case table.)
 	one := e.ingest(t, "p", "once", csvBytes(header, withLate), "day.csv")
-	q2, q1 := res.Version.Manifest.Quality, one.Version.Manifest.Quality
+	q2, q1 := e.report(t, res.Version), e.report(t, one.Version)
 	if q2.Rows != q1.Rows || q2.Count(quality.CodeExactDuplicate) != 0 || len(q1.Raw.Sites) != len(q2.Raw.Sites) {
 		t.Fatalf("quality of v2: rows %+v, exact duplicates %d; of one upload: rows %+v", q2.Rows, q2.Count(quality.CodeExactDuplicate), q1.Rows)
 	}
 	for i := range q1.Raw.Sites {
 		a, b := q1.Raw.Sites[i], q2.Raw.Sites[i]
-		if a.Site != b.Site || a.Events != b.Events || !maps.Equal(a.NonEmpty, b.NonEmpty) || !slices.Equal(a.Hours.Counts, b.Hours.Counts) || !maps.Equal(a.Grid, b.Grid) {
+		if a.Site != b.Site || a.Events != b.Events || !maps.Equal(a.NonEmpty, b.NonEmpty) || !reflect.DeepEqual(a.Hours, b.Hours) || !maps.Equal(a.Grid, b.Grid) {
 			t.Errorf("site %s: version counts differ from one upload's", a.Site)
 		}
 	}
@@ -294,7 +294,7 @@ func TestHeldStableEventIDChanges(t *testing.T) {
 			if got, want := e.arrowRows(t, res.Version), e.expectRows(t, "p", changed); !slices.Equal(got, want) {
 				t.Errorf("the corrected version holds %d rows, not the corrected day's %d", len(got), len(want))
 			}
-			if q := res.Version.Manifest.Quality; q.Rows.Accepted != 90 {
+			if q := e.report(t, res.Version); q.Rows.Accepted != 90 {
 				t.Errorf("quality of the corrected version counts %d rows", q.Rows.Accepted)
 			}
 			if !strings.Contains(res.Upload.Events.Sentence(2), "v2: 0 new events, 88 already held, 2 changed (2 old events replaced)") {
@@ -429,8 +429,8 @@ func TestHeldThirtyNightSeries(t *testing.T) {
 			if v.Rows != parentRows+l.New+l.Changed-l.Removed || l.Removed != v.Lineage.RowsRemoved || (ds == "ids" && l.Removed != l.Changed) {
 				t.Errorf("%s v%d: rows %d != parent %d + new %d + changed %d - removed %d", ds, v.Version, v.Rows, parentRows, l.New, l.Changed, l.Removed)
 			}
-			if v.Quality.Rows.Accepted != v.Rows {
-				t.Errorf("%s v%d: quality counts %d rows of %d", ds, v.Version, v.Quality.Rows.Accepted, v.Rows)
+			if q := e.report(t, res.Version); q.Rows.Accepted != v.Rows {
+				t.Errorf("%s v%d: quality counts %d rows of %d", ds, v.Version, q.Rows.Accepted, v.Rows)
 			}
 		}
 	}
@@ -461,7 +461,7 @@ func TestHeldThirtyNightSeries(t *testing.T) {
 		for _, u := range ups {
 			for _, a := range u.Alerts {
 				if a.Code == AlertHeldShareJump {
-					alerts = append(alerts, u.ID+" "+a.Site)
+					alerts = append(alerts, u.ID.String()+" "+a.Site)
 				}
 			}
 		}

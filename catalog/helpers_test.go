@@ -23,6 +23,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
+	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -151,13 +152,6 @@ func (e *env) ingest(t testing.TB, p, d string, data []byte, name string) *Inges
 func (e *env) blobIDs(t testing.TB) []blob.ID {
 	t.Helper()
 	ids, _ := e.splitBlobs(t)
-	return ids
-}
-
-// caseTableIDs lists the stored case tables.
-func (e *env) caseTableIDs(t testing.TB) []blob.ID {
-	t.Helper()
-	_, ids := e.splitBlobs(t)
 	return ids
 }
 
@@ -399,4 +393,14 @@ func mustContainNone(t testing.TB, what, s string, needles []string) {
 			t.Errorf("%s holds raw identifier %q", what, n)
 		}
 	}
+}
+
+// report returns v's stored quality report.
+func (e *env) report(t testing.TB, v *Version) *quality.Report {
+	t.Helper()
+	r, err := e.s.Report(context.Background(), v)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return r
 }

@@ -9,7 +9,7 @@ import (
 	"fmt"
 	"hash"
 	"io"
-	"path/filepath"
+	"log/slog"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
@@ -20,11 +20,12 @@ import (
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // IngestOptions describe one upload.
 type IngestOptions struct {
-	Filename string // as the partner named it; base name only is kept
+	Filename string // as the partner named it; CleanFilename of it is kept
 	By       string // token subject of the uploader
 	Mode     Mode   // how the events combine with the latest version; empty means ModeAppend
 	// From and To bound the half-open window [From, To) a ModeReplaceWindow
@@ -100,7 +101,54 @@ const RuleOutsideWindow = "outside_window"
 // return the version they made the first time, with status duplicate; so
 // does any upload whose new version would hold the latest one's files (one
 // whose events are all held, say).
+//
+// Once reading has begun, every upload leaves a record: one that fails for
+// another reason than its content is recorded with status failed and a
+// rule, and the error wraps ErrNoSpace (disk full), ErrClientGone (the
+// context ended or the body was cut off), ErrUploadTooLarge (the caller's
+// limit), ErrBodyTimeout (the body stalled) or, for a fault of the
+// server, nothing more. Work stops as soon as ctx ends, at the latest
+// after 4,096 more events.
 func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions) (*IngestResult, error) {
+	var st ingestState
+	res, err := s.ingest(ctx, project, dataset, src, opt, &st)
+	if err == nil || res != nil || st.up == nil {
+		return res, err
+	}
+	// Failed after reading began, for a reason other than the file's
+	// content. Its temp files are gone by now (ingest's defers), which a
+	// full disk needs before the record can be written.
+	up := *st.up
+	rule, msg, sentinel := failure(ctx, err)
+	up.Bytes = st.raw.n
+	up.Status = UploadFailed
+	up.Error = &UploadError{Rule: rule, Message: msg}
+	if fe, ok := schema.AsFileError(err); ok {
+		up.Error.Line = fe.Line
+	}
+	if rerr := s.recordUpload(st.ds, &up); rerr != nil {
+		return nil, errors.Join(err, rerr)
+	}
+	lvl := slog.LevelWarn
+	if sentinel == nil {
+		lvl = slog.LevelError
+	}
+	s.opt.Logger.Log(context.Background(), lvl, "upload failed", "dataset", st.ds.Ref(), "upload", up.ID, "rule", rule, "bytes", up.Bytes, "err", err)
+	if sentinel != nil {
+		err = fmt.Errorf("%w: %w", sentinel, err)
+	}
+	return &IngestResult{Upload: up}, err
+}
+
+// ingestState is what Ingest needs of an ingest that failed: the upload
+// as far as it got.
+type ingestState struct {
+	ds  *Dataset
+	up  *Upload
+	raw *hashCounter
+}
+
+func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions, st *ingestState) (*IngestResult, error) {
 	if err := opt.Validate(); err != nil {
 		return nil, err
 	}
@@ -122,11 +170,10 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	}
 	received := s.opt.Now().UTC()
 	up := Upload{Dataset: ds.Ref(), ReceivedAt: received, By: opt.By, Mode: opt.Mode}
-	if opt.Filename != "" {
-		up.Filename = filepath.Base(opt.Filename)
-	}
+	up.Filename = CleanFilename(opt.Filename)
 
 	raw := &hashCounter{h: sha256.New()}
+	st.ds, st.up, st.raw = ds, &up, raw
 	tee := io.TeeReader(src, raw)
 	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity}
 	if ds.WindowFrom != nil {
@@ -141,19 +188,19 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 
 	fail := func(err error) (*IngestResult, error) {
 		up.Bytes = raw.n
-		if fe, ok := schema.AsFileError(err); ok {
+		if fe, ok := schema.AsFileError(err); ok && isContentFault(ctx, err) {
 			up.Status = UploadFailed
 			up.Error = &UploadError{Rule: fe.Rule, Line: fe.Line, Column: fe.Column, Message: fe.Msg}
 			if rerr := s.recordUpload(ds, &up); rerr != nil {
 				return nil, rerr
 			}
-			s.opt.Logger.Warn("upload failed", "dataset", ds.Ref(), "upload", up.ID, "rule", fe.Rule, "line", fe.Line, "column", fe.Column)
+			s.opt.Logger.Warn("upload failed", "dataset", ds.Ref().String(), "upload", up.ID, "rule", fe.Rule, "line", fe.Line, "column", fe.Column)
 			return &IngestResult{Upload: up}, fmt.Errorf("%w: %w", ErrFileInvalid, err)
 		}
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 
-	rd, err := schema.NewReader(tee, prof, schema.ReaderOptions{Name: up.Filename})
+	rd, err := schema.NewReader(tee, prof, schema.ReaderOptions{Name: up.Filename, Limits: s.opt.Limits})
 	if err == nil {
 		err = readAll(ctx, rd, pz, acc, srt)
 	}
@@ -180,7 +227,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 
 	// From here to the commit the dataset's latest version stays the one
 	// the upload's events are compared with.
-	unlock := s.lockDataset(ds.Ref())
+	unlock := s.lockDataset(ds.Ref().String())
 	defer unlock()
 	hf, err := s.heldFilterFor(ctx, ds, prof, opt.Mode)
 	if err != nil {
@@ -196,12 +243,20 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	defer sw.Remove()
 	win := newWindowCheck(opt)
 	sacc := summary.New(summaryOptions(ds))
-	// The upload's own per-case pass, for its report: its events sorted by
-	// case on disk, each carrying what the time pass found of it.
+	// The upload's events go to the per-case pass (sorted by case on disk),
+	// each carrying what the time pass found of it and marked as the
+	// upload's: the commit runs that pass once over the whole new version,
+	// the upload's own checks and its report riding along.
 	upCases := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
 	upCases.Terminal = prof.Terminal
 	defer upCases.Close()
+	var n int
 	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
+		if n++; n&4095 == 0 {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+		}
 		fl := acc.Observe(e)
 		if fl&quality.Excluded == 0 {
 			sacc.Observe(e)
@@ -211,30 +266,37 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 			return err
 		}
 		line := e.Line
-		e.Line = quality.PackLine(line, fl)
+		e.Line = quality.PackLine(line, fl) | uploadMark
 		err := upCases.Add(e)
 		e.Line = line
 		return err
 	}))
 	if err == nil {
-		_, err = upCases.Run(acc)
+		err = ctx.Err() // the client may be gone
 	}
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
-	upCases.Close()
+	// Rows and rejections are known; the per-case figures come with the pass.
 	rep := acc.Report()
 	rep.UnmappedColumns = up.Unmapped
 	up.Report = rep
 	up.Events = hf.uploadCounts()
 	removeOnly := removing(opt) && rep.Rows.Total == 0
 	reject := func(uerr *UploadError, err error) (*IngestResult, error) {
+		// The per-case checks of the upload alone, for its report.
+		if _, perr := upCases.RunSplit(nil, []cases.Observer{acc}); perr != nil {
+			return nil, fmt.Errorf("ingest: %w", perr)
+		}
+		rep = acc.Report()
+		rep.UnmappedColumns = up.Unmapped
+		up.Report = rep
 		up.Status = UploadRejected
 		up.Error = uerr
 		if err := s.recordUpload(ds, &up); err != nil {
 			return nil, err
 		}
-		s.opt.Logger.Warn("upload rejected", "dataset", ds.Ref(), "upload", up.ID,
+		s.opt.Logger.Warn("upload rejected", "dataset", ds.Ref().String(), "upload", up.ID,
 			"rejected_share", rep.RejectedShare(), "reject_above", ds.RejectAbove)
 		return &IngestResult{Upload: up}, err
 	}
@@ -263,7 +325,11 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 		}
 		release := s.hold(id)
 		defer release()
-		if err := s.blobs.Put(ctx, id, sw.f); err != nil {
+		var body io.Reader = sw.f
+		if testHookPut != nil {
+			body = testHookPut(body)
+		}
+		if err := s.blobs.Put(ctx, id, body); err != nil {
 			return nil, fmt.Errorf("ingest: %w", err)
 		}
 		entry = &FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows}
@@ -271,7 +337,14 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	if testHookBeforeCommit != nil {
 		testHookBeforeCommit()
 	}
-	return s.commit(ctx, ds, &up, entry, sacc, rep, qopt, pz.KeyID(), opt)
+	return s.commit(ctx, ds, &up, entry, sacc, &uploadPass{cases: upCases, entry: entry, acc: acc}, qopt, pz.KeyID(), opt)
+}
+
+// isContentFault reports whether a file error is the file's own fault
+// rather than the server's or the connection's.
+func isContentFault(ctx context.Context, err error) bool {
+	_, _, sentinel := failure(ctx, err)
+	return sentinel == nil
 }
 
 // removing reports whether opt allows an upload without rows: a
@@ -286,7 +359,7 @@ func isNoRows(err error) bool {
 // commit makes the new version from the latest one. The caller holds the
 // dataset's commit lock, so that the held-event comparison, the plan
 // (which may rewrite files) and the transaction see the same parent.
-func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, rep *quality.Report, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
+func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, upass *uploadPass, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
 	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
 	if errors.Is(err, ErrNotFound) {
 		parent = nil
@@ -307,37 +380,43 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	if parent == nil && len(plan.files) == 0 {
 		return s.duplicate(ds, *up, nil)
 	}
+	if entry != nil {
+		plan.summaries[entry.SHA256] = sacc
+	}
+	// One per-case pass over every file of the new version: its case
+	// table, its summary's case figures and its report's, and the upload's
+	// own per-case checks on the way.
+	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true, upass)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	defer vp.release()
+	rep := upass.acc.Report()
+	rep.UnmappedColumns = up.Unmapped
+	up.Report = rep
 	// The version's report names the file of each sample line.
 	frep := rep.WithFile(up.Filename)
 	if entry != nil {
-		plan.summaries[entry.SHA256] = sacc
 		plan.reports[entry.SHA256] = frep
 	}
 	merged, err := s.mergeQuality(ctx, parent, plan, frep, mergeMode(opt.Mode, plan))
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
-	// One per-case pass over every file of the new version: its case
-	// table, its summary's case figures and its report's.
-	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true)
-	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
-	}
-	defer vp.release()
 	vrep := quality.WithCases(merged, vp.cases)
 	vsum, fileSums := vp.summary, vp.fileStates
 	received := up.ReceivedAt
 	var ver *Version
 	err = s.db.Update(func(tx *bolt.Tx) error {
 		var cur Dataset
-		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref()), &cur, "dataset "+ds.Ref()); err != nil {
+		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
 			return err
 		}
 		if parent != nil && cur.Latest != parent.Number || parent == nil && cur.Latest != 0 {
-			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref(), cur.Latest)
+			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref().String(), cur.Latest)
 		}
 		nextUpload(&cur, up)
-		up.Alerts = append(driftAlerts(tx, cur.Ref(), up), heldShareAlerts(tx, cur.Ref(), up)...)
+		up.Alerts = append(driftAlerts(tx, cur.Ref().String(), up), heldShareAlerts(tx, cur.Ref().String(), up)...)
 		if entry != nil {
 			for i := range plan.files {
 				if plan.files[i].SHA256 == entry.SHA256 && plan.files[i].Upload == "" {
@@ -353,7 +432,6 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			SchemaVersion: schema.Version,
 			ProfileHash:   cur.ProfileHash,
 			KeyID:         keyID,
-			Quality:       vrep,
 			Files:         plan.files,
 			CaseTable:     vp.table,
 			CreatedBy:     opt.By,
@@ -370,7 +448,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		for _, f := range m.Files {
 			m.Rows += f.Rows
 		}
-		v, err := newVersion(m)
+		v, err := commitManifest(tx, &m, vrep)
 		if err != nil {
 			return err
 		}
@@ -388,31 +466,31 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		if err := putVersion(tx, v); err != nil {
 			return err
 		}
-		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {
+		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref().String()), &cur); err != nil {
 			return err
 		}
-		if err := putSummaries(tx, cur.Ref(), v.Number, vsum, fileSums); err != nil {
+		if err := putSummaries(tx, cur.Ref().String(), v.Number, vsum, fileSums); err != nil {
 			return err
 		}
 		if err := putFileReports(tx, plan.reports); err != nil {
 			return err
 		}
-		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), up); err != nil {
+		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
 			return err
 		}
 		if up.Mode == ModeAppend {
-			if err := tx.Bucket(bucketDigests).Put(digestKey(cur.Ref(), up.SHA256), binary.BigEndian.AppendUint32(nil, uint32(v.Number))); err != nil {
+			if err := tx.Bucket(bucketDigests).Put(digestKey(cur.Ref().String(), up.SHA256), binary.BigEndian.AppendUint32(nil, uint32(v.Number))); err != nil {
 				return err
 			}
 		}
-		return audit(tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref(), v.Number, opt.Mode))
+		return audit(tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref().String(), v.Number, opt.Mode))
 	})
 	if err != nil {
 		// New blobs stay, unreferenced, for garbage collection.
-		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref(), "err", err)
+		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref().String(), "err", err)
 		return nil, fmt.Errorf("ingest: commit: %w", err)
 	}
-	s.opt.Logger.Info("version created", "dataset", ds.Ref(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
+	s.opt.Logger.Info("version created", "dataset", ds.Ref().String(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
 		"rows", ver.Manifest.Rows, "rows_removed", plan.removed, "rejected", rep.Rows.Rejected, "score", rep.Score)
 	return &IngestResult{Upload: *up, Version: ver}, nil
 }
@@ -439,7 +517,7 @@ func sameFiles(a, b []FileEntry) bool {
 // from it); otherwise ErrNotFound. Only accepted appends record their
 // digest, so a digest always names the version that added its file.
 func (s *Store) appendedBefore(ctx context.Context, ds *Dataset, hexDigest string) (*Version, error) {
-	v, err := s.versionByDigest(ds.Ref(), hexDigest)
+	v, err := s.versionByDigest(ds.Ref().String(), hexDigest)
 	if err != nil {
 		return nil, err
 	}
@@ -508,6 +586,10 @@ func mappedFields(p *schema.Profile) []schema.Field {
 	return out
 }
 
+// testHookPut, when set by a test, wraps the reader of the new file's
+// blob write: the crash tests stall it there and end the process.
+var testHookPut func(io.Reader) io.Reader
+
 // testHookBeforeCommit, when set by a test, runs after the new file is
 // durable in the blob store and before the version is committed: the
 // crash tests end the process there.
@@ -529,7 +611,7 @@ func (s *Store) duplicate(ds *Dataset, up Upload, v *Version) (*IngestResult, er
 	if err := s.recordUpload(ds, &up); err != nil {
 		return nil, err
 	}
-	s.opt.Logger.Info("upload is a duplicate", "dataset", ds.Ref(), "upload", up.ID, "version", v.Number)
+	s.opt.Logger.Info("upload is a duplicate", "dataset", ds.Ref().String(), "upload", up.ID, "version", v.Number)
 	return &IngestResult{Upload: up, Version: v}, nil
 }
 
@@ -537,18 +619,18 @@ func (s *Store) duplicate(ds *Dataset, up Upload, v *Version) (*IngestResult, er
 func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 	err := s.db.Update(func(tx *bolt.Tx) error {
 		var cur Dataset
-		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref()), &cur, "dataset "+ds.Ref()); err != nil {
+		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
 			return err
 		}
 		nextUpload(&cur, up)
-		up.Alerts = append(driftAlerts(tx, cur.Ref(), up), heldShareAlerts(tx, cur.Ref(), up)...)
-		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref()), &cur); err != nil {
+		up.Alerts = append(driftAlerts(tx, cur.Ref().String(), up), heldShareAlerts(tx, cur.Ref().String(), up)...)
+		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref().String()), &cur); err != nil {
 			return err
 		}
-		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref(), up.Seq), up); err != nil {
+		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
 			return err
 		}
-		return audit(tx, up.ReceivedAt, up.By, "upload."+string(up.Status), cur.Ref()+"/"+up.ID)
+		return audit(tx, up.ReceivedAt, up.By, "upload."+string(up.Status), cur.Ref().String()+"/"+up.ID.String())
 	})
 	if err != nil {
 		return fmt.Errorf("ingest: recording upload: %w", err)
@@ -560,7 +642,7 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 func nextUpload(d *Dataset, up *Upload) {
 	d.Uploads++
 	up.Seq = d.Uploads
-	up.ID = fmt.Sprintf("u%d", up.Seq)
+	up.ID = UploadIDOf(up.Seq)
 }
 
 func digestKey(ref, hexDigest string) []byte { return []byte(ref + "/" + hexDigest) }
@@ -572,7 +654,10 @@ func (s *Store) versionByDigest(ref, hexDigest string) (*Version, error) {
 		if n == nil {
 			return ErrNotFound
 		}
-		return getJSON(tx.Bucket(bucketVersions), seqKey(ref, int(binary.BigEndian.Uint32(n))), &v, "version")
+		if err := getJSON(tx.Bucket(bucketVersions), seqKey(ref, int(binary.BigEndian.Uint32(n))), &v, "version"); err != nil {
+			return err
+		}
+		return withManifest(tx, &v)
 	})
 	if err != nil {
 		return nil, err

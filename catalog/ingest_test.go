@@ -7,25 +7,30 @@ import (
 	"crypto/sha256"
 	"encoding/hex"
 	"encoding/json"
-	"math"
+	"reflect"
 	"slices"
 	"strings"
 	"testing"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
-	"github.com/flowcat-catalog/flowcat/quality"
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
-func snapshotID(t testing.TB, m *Manifest) string {
+// snapshotID is the SHA-256 of v's stored manifest bytes; the test also
+// checks that they decode to v's manifest.
+func (e *env) snapshotID(t testing.TB, v *Version) SnapshotID {
 	t.Helper()
-	b, err := m.Canonical()
+	b, err := e.s.ManifestBytes(context.Background(), v)
 	if err != nil {
 		t.Fatal(err)
 	}
-	sum := sha256.Sum256(b)
-	return hex.EncodeToString(sum[:])
+	var m Manifest
+	if err := json.Unmarshal(b, &m); err != nil || !reflect.DeepEqual(&m, v.Manifest) {
+		t.Fatalf("stored manifest decodes to %+v (%v), want %+v", m, err, v.Manifest)
+	}
+	return sha256.Sum256(b)
 }
 
 func TestIngestFirstVersion(t *testing.T) {
@@ -39,7 +44,7 @@ func TestIngestFirstVersion(t *testing.T) {
 	sum := sha256.Sum256(data)
 	if up.Status != UploadAccepted || up.Version != 1 || up.ID != "u1" || up.Seq != 1 || up.Filename != "night-1.csv" ||
 		up.Bytes != int64(len(data)) || up.SHA256 != hex.EncodeToString(sum[:]) || up.By != "site-uploader" ||
-		!up.ReceivedAt.Equal(testNow) || up.Dataset != "er/visits" || up.Error != nil || up.Report == nil {
+		!up.ReceivedAt.Equal(testNow) || up.Dataset.String() != "er/visits" || up.Error != nil || up.Report == nil {
 		t.Errorf("upload = %+v", up)
 	}
 	if up.Report.Rows.Total != 500 || up.Report.Rows.Accepted != 500 {
@@ -47,18 +52,18 @@ func TestIngestFirstVersion(t *testing.T) {
 	}
 
 	v := res.Version
-	m := &v.Manifest
+	m := v.Manifest
 	proj, err := e.s.Project(context.Background(), "er")
 	if err != nil {
 		t.Fatal(err)
 	}
-	if v.Number != 1 || m.Version != 1 || m.Parent != 0 || m.Dataset != "er/visits" || m.SchemaVersion != schema.Version ||
+	if v.Number != 1 || m.Version != 1 || m.Parent != 0 || m.Dataset.String() != "er/visits" || m.SchemaVersion != schema.Version ||
 		m.ProfileHash != ds.ProfileHash || m.ProfileHash != schema.DefaultProfile().Hash() || m.KeyID != proj.Key.ID ||
 		m.CreatedBy != "site-uploader" || !m.CreatedAt.Equal(testNow) || m.Rows != 500 || m.Quality == nil ||
-		!slices.Equal(m.Uploads, []string{"u1"}) || len(m.Files) != 1 {
+		!slices.Equal(m.Uploads, []UploadID{"u1"}) || len(m.Files) != 1 {
 		t.Fatalf("manifest = %+v", m)
 	}
-	if v.SnapshotID != snapshotID(t, m) {
+	if v.SnapshotID != e.snapshotID(t, v) {
 		t.Errorf("snapshot id %s is not the SHA-256 of the canonical manifest", v.SnapshotID)
 	}
 	f := m.Files[0]
@@ -143,13 +148,8 @@ func TestIngestFirstVersion(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if got.SnapshotID != v.SnapshotID || snapshotID(t, &got.Manifest) != v.SnapshotID {
-		t.Errorf("after a round trip through bbolt the manifest hashes to %s, want %s", snapshotID(t, &got.Manifest), v.SnapshotID)
-	}
-	c1, _ := m.Canonical()
-	c2, _ := got.Manifest.Canonical()
-	if !bytes.Equal(c1, c2) {
-		t.Errorf("canonical JSON changed in storage:\n%s\n%s", c1, c2)
+	if got.SnapshotID != v.SnapshotID || e.snapshotID(t, got) != v.SnapshotID {
+		t.Errorf("the stored manifest hashes to %s, want %s", e.snapshotID(t, got), v.SnapshotID)
 	}
 	if d, _ := e.s.Dataset(context.Background(), "er", "visits"); d.Latest != 1 || d.Uploads != 1 {
 		t.Errorf("dataset after ingest = %+v", d)
@@ -160,7 +160,7 @@ func TestIngestFirstVersion(t *testing.T) {
 		t.Fatal(err)
 	}
 	r.Close()
-	if fe != f {
+	if fe.SHA256 != f.SHA256 || fe.Bytes != f.Bytes || fe.Rows != f.Rows || fe.Path != DataPath(f.SHA256) {
 		t.Errorf("OpenFile entry = %+v", fe)
 	}
 	if _, _, err := e.s.OpenFile(context.Background(), got, sha256.Sum256([]byte("x"))); err == nil {
@@ -169,52 +169,11 @@ func TestIngestFirstVersion(t *testing.T) {
 	e.assertTempEmpty(t)
 }
 
-// TestCanonicalRoundTrip stores manifests whose reports hold awkward values
-// (shares that do not terminate in decimal, tiny and huge floats, negative
-// zero, nil scores, times with zones and nanoseconds, text that JSON
-// escapes) and checks the canonical JSON survives a JSON round trip.
-func TestCanonicalRoundTrip(t *testing.T) {
-	third := 1.0 / 3
-	zone := time.FixedZone("", 5*3600+30*60)
-	at := time.Date(2026, 3, 29, 1, 30, 0, 123456789, zone)
-	rep := &quality.Report{
-		Version: quality.ReportVersion,
-		Score:   nil,
-		Rows:    quality.Rows{Total: 3, Accepted: 2, Rejected: 1},
-		Completeness: []quality.FieldCompleteness{
-			{Field: schema.FieldQueue, Share: third}, {Field: schema.FieldChannel, Share: 2 * third},
-			{Field: schema.FieldOutcome, Share: 1e-7}, {Field: schema.FieldPriority, Share: 1e21},
-			{Field: schema.FieldEventID, Share: math.Copysign(0, -1)}, {Field: schema.FieldActivity, Share: 0.1 + 0.2},
-		},
-		TimeRange:  quality.TimeRange{First: &at, Last: nil},
-		Sites:      quality.Sites{Counts: []quality.SiteCount{{Site: "<north> & \"south\" \u2028 é", Count: 2}}},
-		Dimensions: []quality.Dimension{{Name: quality.DimAccuracy, Score: &third, Weight: 0.35}, {Name: quality.DimUniqueness}},
-		Rejections: []quality.RejectionCount{},
-	}
-	m := Manifest{
-		Dataset: "p/d", Version: 3, Parent: 2, SchemaVersion: "1", ProfileHash: "h", KeyID: "k",
-		Files:   []FileEntry{{Bytes: 1, Rows: 2, Upload: "u3", MinTime: at.UTC(), MaxTime: at}},
-		Uploads: []string{"u1", "u3"}, Rows: 2, Quality: rep, CreatedBy: "x",
-		CreatedAt: at,
-	}
-	v, err := newVersion(m)
-	if err != nil {
-		t.Fatal(err)
-	}
-	stored, err := json.Marshal(v)
-	if err != nil {
-		t.Fatal(err)
-	}
-	var back Version
-	if err := json.Unmarshal(stored, &back); err != nil {
-		t.Fatal(err)
-	}
-	if id := snapshotID(t, &back.Manifest); id != v.SnapshotID {
-		a, _ := m.Canonical()
-		b, _ := back.Manifest.Canonical()
-		t.Errorf("round trip changes the snapshot id:\n%s\n%s", a, b)
-	}
-
+// TestStoredManifestBytes checks that a version's manifest and report are
+// the bytes stored at commit: the manifest hashes to the snapshot id, names
+// the report by the report's own SHA-256, and a change of state (publish,
+// retract) rewrites neither.
+func TestStoredManifestBytes(t *testing.T) {
 	// The real report of an ingest, through the real store, too: one with
 	// rejections, empty optional columns and a nil completeness score.
 	e := newEnv(t, nil)
@@ -228,8 +187,27 @@ func TestCanonicalRoundTrip(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if snapshotID(t, &got.Manifest) != res.Version.SnapshotID {
+	if e.snapshotID(t, got) != res.Version.SnapshotID {
 		t.Error("stored manifest no longer hashes to its snapshot id")
+	}
+	ctx := context.Background()
+	before, _ := e.s.ManifestBytes(ctx, got)
+	rep, err := e.s.QualityReport(ctx, got)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if q := got.Manifest.Quality; q == nil || blob.ID(sha256.Sum256(rep)) != q.SHA256 || q.Bytes != int64(len(rep)) || q.SHA256 != got.Quality.SHA256 || *q.Score != *got.Quality.Score {
+		t.Errorf("manifest names report %+v, version %+v; stored report has sha256 %x, %d bytes", q, got.Quality, sha256.Sum256(rep), len(rep))
+	}
+	if bytes.Contains(before, []byte(`"quality":`)) {
+		t.Error("the manifest embeds the quality report")
+	}
+	if _, err := e.s.Retract(ctx, "p", "d", 1, "test", "cur"); err != nil {
+		t.Fatal(err)
+	}
+	after, _ := e.s.ManifestBytes(ctx, got)
+	if !bytes.Equal(before, after) {
+		t.Error("retracting rewrote the manifest")
 	}
 }
 
@@ -243,14 +221,15 @@ func TestIngestAppendAndDuplicate(t *testing.T) {
 	r2 := e.ingest(t, "er", "visits", d2, "n2.csv")
 	m := r2.Version.Manifest
 	if r2.Version.Number != 2 || m.Parent != 1 || len(m.Files) != 2 || m.Rows != 500 ||
-		!slices.Equal(m.Uploads, []string{"u1", "u2"}) || m.Files[0] != r1.Version.Manifest.Files[0] ||
+		!slices.Equal(m.Uploads, []UploadID{"u1", "u2"}) || m.Files[0] != r1.Version.Manifest.Files[0] ||
 		m.Files[1].Upload != "u2" || m.Files[1].Rows != 300 {
 		t.Errorf("version 2 manifest = %+v", m)
 	}
 	// The version's report covers all its files; the upload's, its own.
-	if m.Quality.Rows.Total != 500 || r2.Upload.Report.Rows.Total != 300 || m.Quality.Raw.Uploads != 2 {
+	q := e.report(t, r2.Version)
+	if q.Rows.Total != 500 || r2.Upload.Report.Rows.Total != 300 || q.Raw.Uploads != 2 {
 		t.Errorf("version 2 quality counts %d rows (upload report %d, uploads %d); want 500 over both files and 300",
-			m.Quality.Rows.Total, r2.Upload.Report.Rows.Total, m.Quality.Raw.Uploads)
+			q.Rows.Total, r2.Upload.Report.Rows.Total, q.Raw.Uploads)
 	}
 	if len(e.blobIDs(t)) != 2 {
 		t.Errorf("blobs = %v", e.blobIDs(t))
@@ -278,7 +257,7 @@ func TestIngestAppendAndDuplicate(t *testing.T) {
 	}
 	var st []string
 	for _, u := range ups {
-		st = append(st, u.ID+":"+string(u.Status))
+		st = append(st, u.ID.String()+":"+string(u.Status))
 	}
 	if strings.Join(st, ",") != "u1:accepted,u2:accepted,u3:duplicate" {
 		t.Errorf("uploads = %v", st)

@@ -1,8 +1,6 @@
 package catalog
 
 import (
-	"crypto/sha256"
-	"encoding/hex"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -71,8 +69,8 @@ type Dataset struct {
 	Changes ChangePolicy `json:"changes,omitempty"`
 }
 
-// Ref returns "project/dataset".
-func (d *Dataset) Ref() string { return d.Project + "/" + d.Name }
+// Ref returns the dataset's reference, "project/dataset".
+func (d *Dataset) Ref() DatasetRef { return DatasetRef{Project: d.Project, Name: d.Name} }
 
 // DefaultRejectAbove is the share of invalid rows above which an upload is
 // rejected when a dataset does not set its own threshold.
@@ -93,9 +91,9 @@ const (
 // It holds no raw data: the digest is a SHA-256 of the whole file, the
 // error and report name lines, columns and rules, never identifier values.
 type Upload struct {
-	ID         string          `json:"id"`
+	ID         UploadID        `json:"id"`
 	Seq        int             `json:"seq"`
-	Dataset    string          `json:"dataset"`
+	Dataset    DatasetRef      `json:"dataset"`
 	Filename   string          `json:"filename,omitempty"`
 	Bytes      int64           `json:"bytes"`
 	SHA256     string          `json:"sha256,omitempty"` // of the bytes as sent
@@ -124,7 +122,7 @@ type FileEntry struct {
 	SHA256   blob.ID   `json:"sha256"`
 	Bytes    int64     `json:"bytes"`
 	Rows     int64     `json:"rows"`
-	Upload   string    `json:"upload"`
+	Upload   UploadID  `json:"upload"`
 	MinTime  time.Time `json:"min_occurred_at"`
 	MaxTime  time.Time `json:"max_occurred_at"`
 	RowGroup int64     `json:"row_group_rows"`
@@ -163,8 +161,8 @@ func ParseMode(s string) (Mode, error) {
 
 // Lineage says how a version came from its parent.
 type Lineage struct {
-	Mode   Mode   `json:"mode"`
-	Upload string `json:"upload"` // the upload that made this version
+	Mode   Mode     `json:"mode"`
+	Upload UploadID `json:"upload"` // the upload that made this version
 	// For ModeReplaceWindow: the half-open window [From, To) and the sites
 	// whose events in it were replaced.
 	From  *time.Time `json:"from,omitempty"`
@@ -180,9 +178,11 @@ type Lineage struct {
 }
 
 // Manifest describes a version completely: its files and how they came to
-// be. Its canonical JSON (Canonical) hashes to the version's snapshot id.
+// be. Its canonical bytes are made once, at commit (canonical), stored
+// under the version's snapshot id (their SHA-256), and served as stored;
+// a Manifest value is only ever decoded from them to be used.
 type Manifest struct {
-	Dataset       string      `json:"dataset"`
+	Dataset       DatasetRef  `json:"dataset"`
 	Version       int         `json:"version"`
 	Parent        int         `json:"parent,omitempty"`
 	Lineage       Lineage     `json:"lineage"`
@@ -194,16 +194,27 @@ type Manifest struct {
 	// files; absent in versions made before case tables were kept.
 	CaseTable *CaseTableEntry `json:"case_table,omitempty"`
 	Rows      int64           `json:"rows"`
-	Uploads   []string        `json:"uploads"`
-	Quality   *quality.Report `json:"quality"`
-	CreatedBy string          `json:"created_by"`
-	CreatedAt time.Time       `json:"created_at"`
+	Uploads   []UploadID      `json:"uploads"`
+	// Quality names the version's full quality report, stored beside the
+	// manifest. Manifests made before reports moved out of them hold the
+	// report itself in a "quality" member instead, and no reference.
+	Quality   *ReportRef `json:"quality_report,omitempty"`
+	CreatedBy string     `json:"created_by"`
+	CreatedAt time.Time  `json:"created_at"`
 }
 
-// Canonical returns the manifest's canonical JSON: encoding/json of the
-// struct (fixed field order, sorted map keys, times in RFC 3339 UTC), no
-// indentation, no trailing newline.
-func (m *Manifest) Canonical() ([]byte, error) {
+// ReportRef names a stored quality report by the SHA-256 of its JSON.
+type ReportRef struct {
+	SHA256 blob.ID  `json:"sha256"`
+	Bytes  int64    `json:"bytes"`
+	Score  *float64 `json:"score"` // the overall score; null when nothing could be scored
+}
+
+// canonical returns the manifest's canonical JSON: encoding/json of the
+// struct (fixed field order, times in RFC 3339 UTC), no indentation, no
+// trailing newline. Only the commit calls it: afterwards the stored bytes
+// are the manifest.
+func (m *Manifest) canonical() ([]byte, error) {
 	c := *m
 	c.CreatedAt = c.CreatedAt.UTC()
 	b, err := json.Marshal(&c)
@@ -212,6 +223,46 @@ func (m *Manifest) Canonical() ([]byte, error) {
 	}
 	return b, nil
 }
+
+// BlobEntry is one stored file a manifest names, with the path it has in
+// a pulled directory and in a bundle.
+type BlobEntry struct {
+	Path   string  // relative, slash-separated
+	SHA256 blob.ID //
+	Bytes  int64
+	Rows   int64
+}
+
+// Blobs lists every stored file of the version, in manifest order: what a
+// pull fetches, a bundle carries, verify checks and the collector keeps.
+// A new kind of file joins the version by joining this list.
+func (m *Manifest) Blobs() []BlobEntry {
+	out := make([]BlobEntry, 0, len(m.Files)+1)
+	for _, f := range m.Files {
+		out = append(out, BlobEntry{Path: DataPath(f.SHA256), SHA256: f.SHA256, Bytes: f.Bytes, Rows: f.Rows})
+	}
+	if ct := m.CaseTable; ct != nil {
+		out = append(out, BlobEntry{Path: CasesPath(ct.SHA256), SHA256: ct.SHA256, Bytes: ct.Bytes, Rows: ct.Rows})
+	}
+	return out
+}
+
+// Blob returns the entry of Blobs with the given id.
+func (m *Manifest) Blob(id blob.ID) (BlobEntry, bool) {
+	for _, b := range m.Blobs() {
+		if b.SHA256 == id {
+			return b, true
+		}
+	}
+	return BlobEntry{}, false
+}
+
+// DataPath is where a snapshot file goes in a pulled directory or bundle.
+func DataPath(id blob.ID) string { return "data/" + id.String() + ".parquet" }
+
+// CasesPath is where a version's case table goes in a pulled directory or
+// bundle: apart from data/, which holds only event files.
+func CasesPath(id blob.ID) string { return "cases/" + id.String() + ".parquet" }
 
 // State is where a version stands in curation. It is not part of the
 // manifest: publishing or retracting a version does not change its bytes
@@ -224,40 +275,3 @@ const (
 	StatePublished State = "published" // visible to every member of the project
 	StateRetracted State = "retracted" // metadata and citation stay readable; downloads answer 410
 )
-
-// Version is one immutable state of a dataset, with its curation state.
-type Version struct {
-	Number     int      `json:"version"`
-	SnapshotID string   `json:"snapshot_id"` // hex SHA-256 of the manifest's canonical JSON
-	Manifest   Manifest `json:"manifest"`
-
-	State         State      `json:"state"`
-	PublishedAt   *time.Time `json:"published_at,omitempty"`
-	PublishedBy   string     `json:"published_by,omitempty"`
-	RetractedAt   *time.Time `json:"retracted_at,omitempty"`
-	RetractedBy   string     `json:"retracted_by,omitempty"`
-	RetractReason string     `json:"retract_reason,omitempty"`
-}
-
-func newVersion(m Manifest) (*Version, error) {
-	b, err := m.Canonical()
-	if err != nil {
-		return nil, err
-	}
-	sum := sha256.Sum256(b)
-	return &Version{Number: m.Version, SnapshotID: hex.EncodeToString(sum[:]), Manifest: m}, nil
-}
-
-// File returns the manifest entry for id: one of its event files, or its
-// case table (with no times).
-func (v *Version) File(id blob.ID) (FileEntry, bool) {
-	for _, f := range v.Manifest.Files {
-		if f.SHA256 == id {
-			return f, true
-		}
-	}
-	if ct := v.Manifest.CaseTable; ct != nil && ct.SHA256 == id {
-		return FileEntry{SHA256: ct.SHA256, Bytes: ct.Bytes, Rows: ct.Rows}, true
-	}
-	return FileEntry{}, false
-}

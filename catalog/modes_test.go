@@ -131,7 +131,7 @@ func TestUploadModes(t *testing.T) {
 		t.Fatal(err)
 	}
 	if n := len(all.Version.Manifest.Files); n != 1 || all.Version.Manifest.Rows != 100 ||
-		all.Version.Manifest.Lineage.RowsRemoved != v3.Manifest.Rows || !slices.Equal(all.Version.Manifest.Uploads, []string{all.Upload.ID}) {
+		all.Version.Manifest.Lineage.RowsRemoved != v3.Manifest.Rows || !slices.Equal(all.Version.Manifest.Uploads, []UploadID{all.Upload.ID}) {
 		t.Fatalf("replace-all: %d files, %d rows, lineage %+v uploads %v", n, all.Version.Manifest.Rows, all.Version.Manifest.Lineage, all.Version.Manifest.Uploads)
 	}
 
@@ -276,10 +276,10 @@ func TestSelectorsAndStates(t *testing.T) {
 		{"2", false, 2}, // retracted versions stay addressable
 		{"3", false, 0},
 		{"3", true, 3},
-		{vs[0].SnapshotID[:8], false, 1},
-		{strings.ToUpper(vs[1].SnapshotID[:12]), false, 2},
-		{vs[2].SnapshotID[:10], false, 0},
-		{vs[2].SnapshotID, true, 3},
+		{vs[0].SnapshotID.String()[:8], false, 1},
+		{strings.ToUpper(vs[1].SnapshotID.String()[:12]), false, 2},
+		{vs[2].SnapshotID.String()[:10], false, 0},
+		{vs[2].SnapshotID.String(), true, 3},
 		{testNow.Add(5*24*time.Hour - time.Second).Format(time.RFC3339), false, 0}, // before any publication
 		{testNow.Add(5 * 24 * time.Hour).Format(time.RFC3339), false, 1},
 		{testNow.Add(6*24*time.Hour + time.Hour).Format(time.RFC3339), false, 2}, // 2 was current then

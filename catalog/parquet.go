@@ -6,29 +6,32 @@ import (
 	"hash"
 	"io"
 	"os"
+	"reflect"
 	"runtime"
+	"slices"
+	"strings"
 	"sync"
 	"time"
+	"unsafe"
 
 	"github.com/klauspost/compress/zstd"
 	"github.com/parquet-go/parquet-go"
 	"github.com/parquet-go/parquet-go/compress"
 	parquetzstd "github.com/parquet-go/parquet-go/compress/zstd"
+	"github.com/parquet-go/parquet-go/format"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
 // snapshotWriter writes one snapshot Parquet file to a temporary path while
-// hashing it. Writer settings are fixed (zstd, bounded row groups, a
-// created_by that names no build or time) so that the same events always
-// give the same bytes.
+// hashing it, through an EventWriter with every column.
 type snapshotWriter struct {
 	f     *os.File
 	h     hash.Hash
 	n     int64
-	w     *parquet.GenericWriter[schema.Event]
-	batch []schema.Event
+	w     *EventWriter
+	batch *batches[schema.Event] // written on another goroutine
 	rows  int64
 	min   time.Time
 	max   time.Time
@@ -41,18 +44,13 @@ func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom
 	if err != nil {
 		return nil, fmt.Errorf("parquet: %w", err)
 	}
-	sw := &snapshotWriter{f: f, h: sha256.New(), batch: make([]schema.Event, 0, 1024)}
-	opts := []parquet.WriterOption{
-		parquet.Compression(PageCodec),
-		parquet.MaxRowsPerRowGroup(rowGroupRows),
-		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
-		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
-		parquet.KeyValueMetadata("flowcat.pseudonym_key_id", keyID),
-	}
+	sw := &snapshotWriter{f: f, h: sha256.New()}
+	kv := []KeyValue{{"flowcat.pseudonym_key_id", keyID}}
 	for _, d := range derivedFrom {
-		opts = append(opts, parquet.KeyValueMetadata("flowcat.derived_from", d))
+		kv = append(kv, KeyValue{"flowcat.derived_from", d})
 	}
-	sw.w = parquet.NewGenericWriter[schema.Event](io.MultiWriter(f, sw.h, countWriter{&sw.n}), opts...)
+	sw.w = NewEventWriter(io.MultiWriter(f, sw.h, countWriter{&sw.n}), schema.Fields, EventWriterOptions{RowGroupRows: rowGroupRows, Metadata: kv})
+	sw.batch = newBatches(1024, sw.flushBatch)
 	return sw, nil
 }
 
@@ -63,30 +61,27 @@ func (sw *snapshotWriter) Write(e *schema.Event) error {
 	}
 	sw.max = e.OccurredAt
 	sw.rows++
-	sw.batch = append(sw.batch, *e)
-	if len(sw.batch) == cap(sw.batch) {
-		return sw.flushBatch()
-	}
-	return nil
+	return sw.batch.add(*e)
 }
 
-func (sw *snapshotWriter) flushBatch() error {
-	if _, err := sw.w.Write(sw.batch); err != nil {
-		return fmt.Errorf("parquet: %w", err)
+// flushBatch writes one batch of rows; it runs on the batches' goroutine.
+func (sw *snapshotWriter) flushBatch(batch []schema.Event) error {
+	for i := range batch {
+		if err := sw.w.Write(&batch[i]); err != nil {
+			return err
+		}
 	}
-	clear(sw.batch)
-	sw.batch = sw.batch[:0]
 	return nil
 }
 
 // Finish completes the file and makes it durable; it returns the file's id
 // and size. The caller then hands the file to a blob.Store.
 func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
-	if err := sw.flushBatch(); err != nil {
+	if err := sw.batch.close(); err != nil {
 		return blob.ID{}, 0, err
 	}
 	if err := sw.w.Close(); err != nil {
-		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
+		return blob.ID{}, 0, err
 	}
 	if err := sw.f.Sync(); err != nil {
 		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
@@ -99,8 +94,228 @@ func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
 
 // Remove closes and deletes the temporary file.
 func (sw *snapshotWriter) Remove() {
+	sw.batch.close()
 	sw.f.Close()
 	os.Remove(sw.f.Name())
+}
+
+// KeyValue is one entry of a Parquet file's key-value metadata.
+type KeyValue struct{ Key, Value string }
+
+// EventWriterOptions tune an EventWriter.
+type EventWriterOptions struct {
+	RowGroupRows int64      // rows per row group; required
+	Metadata     []KeyValue // key-value metadata, after flowcat.schema_version, in this order
+
+	schema *parquet.Schema // for the encodings benchmark: replaces subsetSchema(cols)
+}
+
+// EventWriter is the one Parquet writer of events, for snapshots and
+// exports: rows of a subset of the schema's columns (schema.Event's
+// Parquet layout), zstd pages (PageCodec), bounded row groups and a
+// created_by that names no build or time, so that the same events always
+// give the same bytes; row groups record occurred_at as their sorting
+// column when the file holds it.
+//
+// An empty optional field is written as NULL. parquet-go's writer of Go
+// structs decides nulls of "optional" non-pointer fields per batch with a
+// bitmap scan that, in v0.32.0, takes some empty strings for values (see
+// DEVELOPERS.md), so this writer never gives it such fields: a file of
+// every column goes through storedEvent, whose optional fields are
+// pointers (nil is NULL), and a column subset is written as rows that
+// carry their own definition levels (slower: about 1.5 to 2 times the
+// time, measured on the development machine).
+type EventWriter struct {
+	cols []schema.Field
+
+	// every column
+	g    *parquet.GenericWriter[storedEvent]
+	evs  []schema.Event
+	recs []storedEvent
+
+	// a subset
+	//lint:ignore SA1019 the generic writer needs a Go type; a column subset is a schema built at run time
+	w     *parquet.Writer
+	batch []parquet.Row
+	n     int
+}
+
+// storedEvent carries schema.Event's values to parquet-go's struct
+// writer, with pointers for the optional fields. The file's schema is
+// still schema.Event's; these tags only have to agree with it
+// (TestStoredEventSchema checks that they do).
+type storedEvent struct {
+	Site       string    `parquet:"site,dict"`
+	CaseID     string    `parquet:"case_id,dict"`
+	SubjectID  *string   `parquet:"subject_id,dict"`
+	ResourceID *string   `parquet:"resource_id,dict"`
+	Type       string    `parquet:"event_type,dict"`
+	Activity   *string   `parquet:"activity,dict"`
+	Queue      *string   `parquet:"queue,dict"`
+	OccurredAt time.Time `parquet:"occurred_at,timestamp(microsecond:utc)"`
+	Priority   *string   `parquet:"priority,dict"`
+	Channel    *string   `parquet:"channel,dict"`
+	Outcome    *string   `parquet:"outcome,dict"`
+	EventID    *string   `parquet:"event_id,plain"`
+}
+
+func nullable(s *string) *string {
+	if *s == "" {
+		return nil
+	}
+	return s
+}
+
+const writeBatch = 512
+
+// NewEventWriter returns a writer of cols to w.
+func NewEventWriter(w io.Writer, cols []schema.Field, opt EventWriterOptions) *EventWriter {
+	sch := opt.schema
+	every := sch == nil && slices.Equal(cols, schema.Fields)
+	if sch == nil {
+		sch = subsetSchema(cols)
+	}
+	opts := []parquet.WriterOption{
+		parquet.Compression(PageCodec),
+		parquet.MaxRowsPerRowGroup(opt.RowGroupRows),
+		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
+		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
+	}
+	for _, kv := range opt.Metadata {
+		opts = append(opts, parquet.KeyValueMetadata(kv.Key, kv.Value))
+	}
+	if slices.Contains(cols, schema.FieldOccurredAt) {
+		// Rows come in occurred_at order (ties in an order of their own):
+		// recorded as each row group's sorting_columns. The writer does not
+		// reorder rows.
+		opts = append(opts, parquet.SortingWriterConfig(parquet.SortingColumns(parquet.Ascending(string(schema.FieldOccurredAt)))))
+	}
+	ew := &EventWriter{cols: cols}
+	if every {
+		// The file's schema is schema.Event's (its tags are the one home of
+		// the layout); storedEvent only carries the values.
+		ew.g = parquet.NewGenericWriter[storedEvent](w, append([]parquet.WriterOption{sch}, opts...)...)
+		ew.evs = make([]schema.Event, 0, writeBatch)
+		ew.recs = make([]storedEvent, writeBatch)
+		return ew
+	}
+	ew.w = parquet.NewWriter(w, append([]parquet.WriterOption{sch}, opts...)...)
+	ew.batch = make([]parquet.Row, writeBatch)
+	for i := range ew.batch {
+		ew.batch[i] = make(parquet.Row, len(cols))
+	}
+	return ew
+}
+
+var (
+	eventType   = reflect.TypeFor[schema.Event]()
+	schemaCache sync.Map // column list -> *parquet.Schema
+)
+
+// subsetSchema is the Parquet schema of schema.Event restricted to cols:
+// a struct type of the same fields and tags, so node types, logical types
+// and encodings are those of the snapshots.
+func subsetSchema(cols []schema.Field) *parquet.Schema {
+	key := fmt.Sprint(cols)
+	if s, ok := schemaCache.Load(key); ok {
+		return s.(*parquet.Schema)
+	}
+	var fields []reflect.StructField
+	for _, c := range cols {
+		for i := range eventType.NumField() {
+			sf := eventType.Field(i)
+			if name, _, _ := strings.Cut(sf.Tag.Get("parquet"), ","); name == string(c) {
+				fields = append(fields, reflect.StructField{Name: sf.Name, Type: sf.Type, Tag: sf.Tag})
+			}
+		}
+	}
+	s := parquet.SchemaOf(reflect.New(reflect.StructOf(fields)).Elem().Interface())
+	schemaCache.Store(key, s)
+	return s
+}
+
+// Write appends e; e may be reused once Write returns.
+func (ew *EventWriter) Write(e *schema.Event) error {
+	if ew.g != nil {
+		ew.evs = append(ew.evs, *e)
+		if len(ew.evs) == cap(ew.evs) {
+			return ew.flush()
+		}
+		return nil
+	}
+	row := ew.batch[ew.n][:0]
+	for i, c := range ew.cols {
+		var v parquet.Value
+		switch {
+		case c == schema.FieldOccurredAt:
+			v = parquet.Int64Value(e.OccurredAt.UnixMicro()).Level(0, 0, i)
+		case c.Required():
+			v = bytesValue(e.Value(c)).Level(0, 0, i)
+		default:
+			if s := e.Value(c); s == "" {
+				v = parquet.NullValue().Level(0, 0, i)
+			} else {
+				v = bytesValue(s).Level(0, 1, i)
+			}
+		}
+		row = append(row, v)
+	}
+	ew.batch[ew.n] = row
+	ew.n++
+	if ew.n == len(ew.batch) {
+		return ew.flush()
+	}
+	return nil
+}
+
+// bytesValue wraps s without copying: the writer copies values into its
+// column buffers before WriteRows returns, and strings are immutable.
+func bytesValue(s string) parquet.Value {
+	return parquet.ByteArrayValue(unsafe.Slice(unsafe.StringData(s), len(s)))
+}
+
+func (ew *EventWriter) flush() error {
+	if ew.g != nil {
+		recs := ew.recs[:len(ew.evs)]
+		for i := range ew.evs {
+			e := &ew.evs[i]
+			recs[i] = storedEvent{Site: e.Site, CaseID: e.CaseID, SubjectID: nullable(&e.SubjectID), ResourceID: nullable(&e.ResourceID),
+				Type: string(e.Type), Activity: nullable(&e.Activity), Queue: nullable(&e.Queue), OccurredAt: e.OccurredAt,
+				Priority: nullable(&e.Priority), Channel: nullable(&e.Channel), Outcome: nullable(&e.Outcome), EventID: nullable(&e.EventID)}
+		}
+		if _, err := ew.g.Write(recs); err != nil {
+			return fmt.Errorf("parquet: %w", err)
+		}
+		clear(recs)
+		ew.evs = ew.evs[:0]
+		return nil
+	}
+	if ew.n == 0 {
+		return nil
+	}
+	if _, err := ew.w.WriteRows(ew.batch[:ew.n]); err != nil {
+		return fmt.Errorf("parquet: %w", err)
+	}
+	ew.n = 0
+	return nil
+}
+
+// Close writes the rows held and the footer; it does not close the
+// underlying writer.
+func (ew *EventWriter) Close() error {
+	if err := ew.flush(); err != nil {
+		return err
+	}
+	var err error
+	if ew.g != nil {
+		err = ew.g.Close()
+	} else {
+		err = ew.w.Close()
+	}
+	if err != nil {
+		return fmt.Errorf("parquet: %w", err)
+	}
+	return nil
 }
 
 // PageCodec compresses the pages of every Parquet file flowcat writes
@@ -150,11 +365,14 @@ func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error
 	if err != nil {
 		return fmt.Errorf("parquet: %w", err)
 	}
-	pr := parquet.NewGenericReader[schema.Event](f)
-	defer pr.Close()
+	er, err := NewEventReader(parquet.NewGenericReader[schema.Event](f))
+	if err != nil {
+		return err
+	}
+	defer er.Close()
 	buf := make([]schema.Event, 1024)
 	for {
-		n, err := pr.Read(buf)
+		n, err := er.Read(buf)
 		for i := range buf[:n] {
 			if ferr := fn(&buf[i]); ferr != nil {
 				return ferr
@@ -168,3 +386,134 @@ func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error
 		}
 	}
 }
+
+// RowReader decodes rows of T (snapshot events, case table rows) from
+// Parquet. Every reader of stored rows goes through it: parquet-go turns a
+// TIMESTAMP into a time.Time by way of int64 nanoseconds, which hold only
+// the instants of 1677-09-21 to 2262-04-11, while the instants flowcat
+// stores span the years 0001-9999 in microseconds; RowReader takes each
+// time.Time or *time.Time field of T (top level) that a TIMESTAMP column
+// feeds from the column's stored value instead.
+type RowReader[T any] struct {
+	r     *parquet.GenericReader[T]
+	times []timeColumn
+	rows  []parquet.Row
+}
+
+// EventReader reads the events of a snapshot file or row group.
+type EventReader = RowReader[schema.Event]
+
+// timeColumn maps one TIMESTAMP leaf column to a field of the row type.
+type timeColumn struct {
+	col   int
+	field int  // index of the struct field
+	ptr   bool // *time.Time
+	unit  time.Duration
+}
+
+// NewEventReader reads events through r (from parquet.NewGenericReader or
+// NewGenericRowGroupReader); it fails when r's schema has no occurred_at
+// column.
+func NewEventReader(r *parquet.GenericReader[schema.Event]) (*EventReader, error) {
+	if _, ok := r.Schema().Lookup(string(schema.FieldOccurredAt)); !ok {
+		r.Close()
+		return nil, fmt.Errorf("parquet: the file has no %s column", schema.FieldOccurredAt)
+	}
+	return NewRowReader(r), nil
+}
+
+// NewRowReader reads rows of T through r.
+func NewRowReader[T any](r *parquet.GenericReader[T]) *RowReader[T] {
+	rr := &RowReader[T]{r: r}
+	typ := reflect.TypeFor[T]()
+	timeType := reflect.TypeFor[time.Time]()
+	for i := range typ.NumField() {
+		f := typ.Field(i)
+		ptr := f.Type.Kind() == reflect.Pointer
+		if f.Type != timeType && !(ptr && f.Type.Elem() == timeType) {
+			continue
+		}
+		name, _, _ := strings.Cut(f.Tag.Get("parquet"), ",")
+		if name == "" {
+			name = f.Name
+		}
+		leaf, ok := r.Schema().Lookup(name)
+		if !ok {
+			continue
+		}
+		lt := leaf.Node.Type().LogicalType()
+		if lt == nil {
+			continue
+		}
+		ts, ok := lt.Value.(*format.TimestampType)
+		if !ok {
+			continue
+		}
+		unit := time.Nanosecond
+		switch ts.Unit.Value.(type) {
+		case *format.MicroSeconds:
+			unit = time.Microsecond
+		case *format.MilliSeconds:
+			unit = time.Millisecond
+		}
+		rr.times = append(rr.times, timeColumn{col: leaf.ColumnIndex, field: i, ptr: ptr, unit: unit})
+	}
+	return rr
+}
+
+// Read decodes up to len(buf) rows into buf. Like io.Reader it returns
+// the number read and io.EOF at the end; it may read fewer than len(buf)
+// before the end.
+func (rr *RowReader[T]) Read(buf []T) (int, error) {
+	if cap(rr.rows) < len(buf) {
+		rr.rows = make([]parquet.Row, len(buf))
+	}
+	rows := rr.rows[:len(buf)]
+	n, err := rr.r.ReadRows(rows)
+	sch := rr.r.Schema()
+	for i, row := range rows[:n] {
+		if rerr := sch.Reconstruct(&buf[i], row); rerr != nil {
+			return i, rerr
+		}
+		if len(rr.times) == 0 {
+			continue
+		}
+		rv := reflect.ValueOf(&buf[i]).Elem()
+		for _, tc := range rr.times {
+			for _, v := range row {
+				if v.Column() != tc.col {
+					continue
+				}
+				// Through typed pointers, so no value is boxed.
+				fp := rv.Field(tc.field).Addr().Interface()
+				switch {
+				case tc.ptr && v.IsNull():
+					*fp.(**time.Time) = nil
+				case tc.ptr:
+					t := storedInstant(v.Int64(), tc.unit)
+					*fp.(**time.Time) = &t
+				case v.IsNull():
+					*fp.(*time.Time) = time.Time{}
+				default:
+					*fp.(*time.Time) = storedInstant(v.Int64(), tc.unit)
+				}
+				break
+			}
+		}
+	}
+	return n, err
+}
+
+// storedInstant is the UTC instant of a TIMESTAMP value v in unit.
+func storedInstant(v int64, unit time.Duration) time.Time {
+	switch unit {
+	case time.Microsecond:
+		return time.UnixMicro(v).UTC()
+	case time.Millisecond:
+		return time.UnixMilli(v).UTC()
+	}
+	return time.Unix(0, v).UTC()
+}
+
+// Close releases the underlying reader.
+func (rr *RowReader[T]) Close() error { return rr.r.Close() }

@@ -94,7 +94,7 @@ func TestFileInvalid(t *testing.T) {
 			t.Errorf("%s: err = %v, want a *schema.FileError of rule %s", c.name, err, c.rule)
 		}
 		if res == nil || res.Version != nil || res.Upload.Status != UploadFailed || res.Upload.Error == nil ||
-			res.Upload.Error.Rule != c.rule || res.Upload.ID != "u"+string(rune('1'+i)) {
+			res.Upload.Error.Rule != c.rule || res.Upload.ID != UploadIDOf(i+1) {
 			t.Errorf("%s: result = %+v", c.name, res)
 		}
 	}
@@ -223,4 +223,50 @@ func TestConcurrentUploads(t *testing.T) {
 		t.Errorf("uploads = %+v", ups)
 	}
 	e.assertTempEmpty(t)
+}
+
+// TestUploadLimits: the store's reader limits fail an upload that goes
+// over one while it streams (a gzip file inflating past the byte limit
+// spills nothing to disk), with the limit named, an upload record, and
+// nothing stored.
+func TestUploadLimits(t *testing.T) {
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "d", nil)
+	ctx := context.Background()
+	cases := []struct {
+		name string
+		lim  schema.Limits
+		data []byte
+		rule string
+	}{
+		{"rows.csv", schema.Limits{MaxRows: 1000}, genCSV(genOpt{Seed: 8, N: 1001}), schema.RuleTooManyRows},
+		{"bomb.csv.gz", schema.Limits{MaxBytes: 64 << 10}, gzipBytes(genCSV(genOpt{Seed: 9, N: 10000})), schema.RuleTooManyBytes},
+	}
+	for _, c := range cases {
+		e.open(t, func(o *Options) { o.RunEvents = 100; o.Limits = c.lim })
+		res, err := e.s.Ingest(ctx, "p", "d", bytes.NewReader(c.data), IngestOptions{Filename: c.name})
+		var fe *schema.FileError
+		if !errors.Is(err, ErrFileInvalid) || !errors.As(err, &fe) || fe.Rule != c.rule {
+			t.Errorf("%s: err = %v, want rule %s", c.name, err, c.rule)
+			continue
+		}
+		if res == nil || res.Upload.Status != UploadFailed || res.Upload.Error == nil || res.Upload.Error.Rule != c.rule {
+			t.Errorf("%s: result = %+v", c.name, res)
+		}
+	}
+	if ups, _ := e.s.Uploads(ctx, "p", "d"); len(ups) != len(cases) {
+		t.Errorf("%d upload records, want %d", len(ups), len(cases))
+	}
+	if vs, _ := e.s.Versions(ctx, "p", "d"); len(vs) != 0 {
+		t.Errorf("versions = %+v", vs)
+	}
+	if ids := e.blobIDs(t); len(ids) != 0 {
+		t.Errorf("blobs = %v", ids)
+	}
+	e.assertTempEmpty(t)
+	// At the limit the file is taken.
+	e.open(t, func(o *Options) { o.Limits = schema.Limits{MaxRows: 1000} })
+	if res := e.ingest(t, "p", "d", genCSV(genOpt{Seed: 8, N: 1000}), "ok.csv"); res.Upload.Status != UploadAccepted {
+		t.Errorf("1000 rows: %+v", res.Upload)
+	}
 }

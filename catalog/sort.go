@@ -9,6 +9,7 @@ import (
 	"io"
 	"os"
 	"slices"
+	"strings"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -29,16 +30,18 @@ import (
 // size of the upload.
 type sorter struct {
 	// byCase orders by case instead (cases.Less), for the per-case pass.
-	byCase bool
-	dir    string
-	max    int
-	fanIn  int
-	buf    []schema.Event
-	keys   []sortKey
-	runs   []*os.File
-	enc    []byte
-	inter  map[string]string
-	bytes  int // string bytes held in buf
+	byCase  bool
+	dir     string
+	max     int
+	fanIn   int
+	buf     []schema.Event
+	spare   []schema.Event // the other buffer, while one is spilled
+	work    spillWork      // used by one spill at a time
+	pending chan error     // the spill in the background, if any
+	runs    []*os.File
+	enc     []byte
+	inter   map[string]string
+	bytes   int // string bytes held in buf
 }
 
 const (
@@ -81,6 +84,16 @@ func (s *sorter) Add(e *schema.Event) error {
 			return err
 		}
 	}
+	if s.buf == nil {
+		// The buffer reaches max events before it spills: allocate it
+		// once, not by doubling (a file of fewer events never gets here
+		// beyond its size, up to the first 4096).
+		s.buf = make([]schema.Event, 0, min(s.max, 4096))
+	} else if len(s.buf) == cap(s.buf) && cap(s.buf) < s.max {
+		nb := make([]schema.Event, len(s.buf), s.max)
+		copy(nb, s.buf)
+		s.buf = nb
+	}
 	s.buf = append(s.buf, *e)
 	s.bytes += eventBytes(e)
 	return nil
@@ -103,6 +116,15 @@ func lessEvent(a, b *schema.Event) int {
 		return 1
 	}
 	return 0
+}
+
+// caseKey is what a sorter by case sorts its buffer by.
+type caseKey struct {
+	id   string
+	sec  int64
+	nsec int32
+	rank int8
+	idx  int32
 }
 
 // sortKey is what the buffer is sorted by: sorting small keys rather than
@@ -136,27 +158,55 @@ func cmpInt(a, b int64) int {
 	return 0
 }
 
-// order returns the buffer's indexes in lessEvent order.
-func (s *sorter) order() []sortKey {
-	s.keys = s.keys[:0]
+// spillWork is the scratch space of one sort of a buffer.
+type spillWork struct {
+	keys     []sortKey
+	caseKeys []caseKey
+	enc      []byte
+}
+
+// orderOf returns buf's indexes in the sorter's order.
+func (s *sorter) orderOf(buf []schema.Event, w *spillWork) []sortKey {
+	w.keys = w.keys[:0]
 	if s.byCase {
-		for i := range s.buf {
-			s.keys = append(s.keys, sortKey{idx: int32(i)})
+		// Keys hold what cases.Less compares first, so most comparisons
+		// touch no event; full ties fall back to cases.Less.
+		ck := w.caseKeys[:0]
+		for i := range buf {
+			e := &buf[i]
+			ck = append(ck, caseKey{id: e.CaseID, sec: e.OccurredAt.Unix(), nsec: int32(e.OccurredAt.Nanosecond()), rank: int8(e.Type.Rank()), idx: int32(i)})
 		}
-		slices.SortFunc(s.keys, func(a, b sortKey) int {
-			if c := cases.Less(&s.buf[a.idx], &s.buf[b.idx]); c != 0 {
+		slices.SortFunc(ck, func(a, b caseKey) int {
+			if c := strings.Compare(a.id, b.id); c != 0 {
+				return c
+			}
+			if a.sec != b.sec {
+				return cmpInt(a.sec, b.sec)
+			}
+			if a.nsec != b.nsec {
+				return cmpInt(int64(a.nsec), int64(b.nsec))
+			}
+			if a.rank != b.rank {
+				return int(a.rank) - int(b.rank)
+			}
+			if c := cases.Less(&buf[a.idx], &buf[b.idx]); c != 0 {
 				return c
 			}
 			return cmpInt(int64(a.idx), int64(b.idx))
 		})
-		return s.keys
+		for _, k := range ck {
+			w.keys = append(w.keys, sortKey{idx: k.idx})
+		}
+		clear(ck) // drop string references
+		w.caseKeys = ck[:0]
+		return w.keys
 	}
-	for i := range s.buf {
-		t := s.buf[i].OccurredAt
-		s.keys = append(s.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), line: s.buf[i].Line, idx: int32(i)})
+	for i := range buf {
+		t := buf[i].OccurredAt
+		w.keys = append(w.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), line: buf[i].Line, idx: int32(i)})
 	}
-	slices.SortFunc(s.keys, cmpKey)
-	return s.keys
+	slices.SortFunc(w.keys, cmpKey)
+	return w.keys
 }
 
 func (s *sorter) newRun() (*os.File, error) {
@@ -168,24 +218,53 @@ func (s *sorter) newRun() (*os.File, error) {
 	return f, nil
 }
 
+// spill hands the full buffer to a goroutine that sorts it and writes it
+// as a run, and goes on with the other buffer: reading and sorting overlap
+// on two cores. One spill runs at a time, so at most two buffers exist.
 func (s *sorter) spill() error {
+	if err := s.wait(); err != nil {
+		return err
+	}
 	f, err := s.newRun()
 	if err != nil {
 		return err
 	}
+	buf := s.buf
+	s.buf, s.spare = s.spare, nil
+	s.bytes = 0
+	done := make(chan error, 1)
+	s.pending = done
+	go func() {
+		err := s.writeRun(f, buf, &s.work)
+		clear(buf) // drop string references
+		s.spare = buf[:0]
+		done <- err
+	}()
+	return nil
+}
+
+// wait waits for the spill in the background, if any.
+func (s *sorter) wait() error {
+	if s.pending == nil {
+		return nil
+	}
+	err := <-s.pending
+	s.pending = nil
+	return err
+}
+
+// writeRun writes buf, sorted, to f.
+func (s *sorter) writeRun(f *os.File, buf []schema.Event, wk *spillWork) error {
 	w := bufio.NewWriterSize(f, runBufSize)
-	for _, k := range s.order() {
-		s.enc = encodeEvent(s.enc[:0], &s.buf[k.idx])
-		if _, err := w.Write(s.enc); err != nil {
+	for _, k := range s.orderOf(buf, wk) {
+		wk.enc = encodeEvent(wk.enc[:0], &buf[k.idx])
+		if _, err := w.Write(wk.enc); err != nil {
 			return fmt.Errorf("sort: %w", err)
 		}
 	}
 	if err := w.Flush(); err != nil {
 		return fmt.Errorf("sort: %w", err)
 	}
-	clear(s.buf) // drop string references
-	s.buf = s.buf[:0]
-	s.bytes = 0
 	return nil
 }
 
@@ -193,7 +272,7 @@ func (s *sorter) spill() error {
 // valid during the call.
 func (s *sorter) Finish(fn func(*schema.Event) error) error {
 	if len(s.runs) == 0 {
-		for _, k := range s.order() {
+		for _, k := range s.orderOf(s.buf, &s.work) {
 			if err := fn(&s.buf[k.idx]); err != nil {
 				return err
 			}
@@ -205,13 +284,82 @@ func (s *sorter) Finish(fn func(*schema.Event) error) error {
 			return err
 		}
 	}
-	s.buf, s.keys = nil, nil // the merge needs none of it
+	if err := s.wait(); err != nil {
+		return err
+	}
+	s.buf, s.spare, s.work = nil, nil, spillWork{} // the merge needs none of it
 	for len(s.runs) > s.fanIn {
 		if err := s.mergeOldest(); err != nil {
 			return err
 		}
 	}
-	return s.merge(s.runs, fn)
+	return s.mergeAhead(s.runs, fn)
+}
+
+// errMergeStopped ends a merge whose consumer stopped.
+var errMergeStopped = errors.New("sort: merge stopped")
+
+// mergeAhead is merge with the reading, decoding and ordering of runs on
+// another goroutine, handed over in batches of events, so that it overlaps
+// with fn's work on two cores. It holds three batches of mergeBatch events.
+func (s *sorter) mergeAhead(runs []*os.File, fn func(*schema.Event) error) error {
+	const mergeBatch = 512
+	full := make(chan []schema.Event, 2)
+	free := make(chan []schema.Event, 3)
+	for range 3 {
+		free <- make([]schema.Event, 0, mergeBatch)
+	}
+	stop := make(chan struct{})
+	perr := make(chan error, 1)
+	go func() {
+		b := <-free
+		send := func() error {
+			select {
+			case full <- b:
+			case <-stop:
+				return errMergeStopped
+			}
+			select {
+			case b = <-free:
+				return nil
+			case <-stop:
+				return errMergeStopped
+			}
+		}
+		err := s.merge(runs, func(e *schema.Event) error {
+			b = append(b, *e)
+			if len(b) == cap(b) {
+				return send()
+			}
+			return nil
+		})
+		if err == nil && len(b) > 0 {
+			select {
+			case full <- b:
+			case <-stop:
+			}
+		}
+		close(full)
+		perr <- err
+	}()
+	var ferr error
+	for b := range full {
+		for i := range b {
+			if ferr != nil {
+				break
+			}
+			if err := fn(&b[i]); err != nil {
+				ferr = err
+				close(stop)
+			}
+		}
+		clear(b)
+		free <- b[:0]
+	}
+	if err := <-perr; ferr == nil && err != nil && err != errMergeStopped {
+		return err
+	}
+	return ferr
 }
 
 // mergeOldest merges the first fanIn runs into a new last run.
@@ -282,6 +430,10 @@ func (s *sorter) merge(runs []*os.File, fn func(*schema.Event) error) error {
 // Close deletes the runs.
 func (s *sorter) Close() error {
 	var errs []error
+	if s.pending != nil {
+		<-s.pending // its error is moot: the runs go
+		s.pending = nil
+	}
 	for _, f := range s.runs {
 		f.Close()
 		if err := os.Remove(f.Name()); err != nil && !errors.Is(err, os.ErrNotExist) {
@@ -289,11 +441,18 @@ func (s *sorter) Close() error {
 		}
 	}
 	s.runs = nil
-	s.buf = nil
+	s.buf, s.spare = nil, nil
 	return errors.Join(errs...)
 }
 
 type run struct {
+	// lastCase and lastSubj are the previous event's: in a run sorted by
+	// case the next event mostly names them again, and reuses the string.
+	lastCase, lastSubj string
+	// last holds the previous event's interned fields, field the next
+	// one's index, so a repeated value costs a compare, not a map lookup.
+	last  [8]string
+	field int
 	less  func(a, b *schema.Event) int
 	r     *bufio.Reader
 	ev    schema.Event
@@ -342,6 +501,10 @@ func encodeEvent(b []byte, e *schema.Event) []byte {
 func (r *run) next() (bool, error) {
 	var err error
 	str := func(intern bool) string {
+		idx := r.field
+		if intern {
+			r.field++
+		}
 		if err != nil {
 			return ""
 		}
@@ -361,24 +524,55 @@ func (r *run) next() (bool, error) {
 			return ""
 		}
 		if intern {
+			// The previous event's value of this field first: in a run
+			// most consecutive events share site, type, queue, activity.
+			if last := &r.last[idx]; string(r.tmp) == *last {
+				return *last
+			}
 			if s, ok := r.inter[string(r.tmp)]; ok {
+				r.last[idx] = s
 				return s
 			}
 			if len(r.inter) < 1<<14 && len(r.tmp) <= internMaxLen {
 				s := string(r.tmp)
 				r.inter[s] = s
+				r.last[idx] = s
 				return s
 			}
 		}
 		return string(r.tmp)
 	}
+	// strLast reads a string that mostly repeats the previous event's (a
+	// case id in a run sorted by case): equal bytes reuse it, unallocated.
+	strLast := func(last *string) string {
+		if err != nil {
+			return ""
+		}
+		var n uint64
+		n, err = binary.ReadUvarint(r.r)
+		if err != nil || n == 0 {
+			return ""
+		}
+		if cap(r.tmp) < int(n) {
+			r.tmp = make([]byte, n)
+		}
+		r.tmp = r.tmp[:n]
+		if _, err = io.ReadFull(r.r, r.tmp); err != nil {
+			return ""
+		}
+		if string(r.tmp) != *last {
+			*last = string(r.tmp)
+		}
+		return *last
+	}
 	if _, perr := r.r.Peek(1); perr == io.EOF {
 		return false, nil
 	}
 	e := &r.ev
+	r.field = 0
 	e.Site = str(true)
-	e.CaseID = str(false)
-	e.SubjectID = str(false)
+	e.CaseID = strLast(&r.lastCase)
+	e.SubjectID = strLast(&r.lastSubj)
 	e.ResourceID = str(true)
 	e.Type = schema.EventType(str(true))
 	e.Activity = str(true)

@@ -80,6 +80,9 @@ func TestSorterRuns(t *testing.T) {
 	for i := range 20 {
 		s.Add(&in[i])
 	}
+	if err := s.wait(); err != nil { // the run is written in the background
+		t.Fatal(err)
+	}
 	fi, _ := s.runs[0].Stat()
 	if err := s.runs[0].Truncate(fi.Size() - 3); err != nil {
 		t.Fatal(err)

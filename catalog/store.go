@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"log/slog"
 	"os"
+	"path/filepath"
 	"sync"
 	"time"
 
@@ -37,15 +38,23 @@ var (
 // Options configure a Store. The zero value of each optional field is a
 // sensible default.
 type Options struct {
-	Master  anonymize.MasterKey // required: seals and opens project keys
-	TempDir string              // for sort runs and Parquet files being written; default os.TempDir()
-	Logger  *slog.Logger        // default slog.Default()
-	Now     func() time.Time    // default time.Now
+	Master anonymize.MasterKey // required: seals and opens project keys
+	// TempDir holds sort runs and Parquet files being written. When set,
+	// the folder is the store's own: Open empties it (what a crash left;
+	// only pseudonymized events). Default os.TempDir(), which Open leaves
+	// alone.
+	TempDir string
+	Logger  *slog.Logger     // default slog.Default()
+	Now     func() time.Time // default time.Now
 	// RunEvents bounds the events the ingest sorts in memory before it
 	// spills a sorted run to TempDir (default 65536).
 	RunEvents int
 	// RowGroupRows bounds the rows of a Parquet row group (default 65536).
 	RowGroupRows int64
+	// Limits bound what one uploaded file may hold: line length, columns,
+	// bytes after decompression and rows (see schema.Limits; zero fields
+	// take the defaults). Going over one fails the upload, naming it.
+	Limits schema.Limits
 }
 
 // Store is the catalog: metadata in bbolt, snapshot files in a blob.Store.
@@ -65,7 +74,8 @@ type Store struct {
 // anonymize.ErrKeyMismatch when the master key is not the one the catalog
 // was created with.
 func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
-	if opt.TempDir == "" {
+	ownTemp := opt.TempDir != ""
+	if !ownTemp {
 		opt.TempDir = os.TempDir()
 	}
 	if opt.Logger == nil {
@@ -91,12 +101,12 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
 	err = db.Update(func(tx *bolt.Tx) error {
-		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketHeads} {
+		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketManifests, bucketReports} {
 			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
 				return err
 			}
 		}
-		if err := backfillHeads(tx); err != nil {
+		if err := migrate(tx, opt.Logger); err != nil {
 			return err
 		}
 		meta := tx.Bucket(bucketMeta)
@@ -113,7 +123,27 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		db.Close()
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
-	return &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{}}, nil
+	st := &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{}}
+	// Holding the bbolt lock, no other catalog writes here: clear what an
+	// earlier run left in the temp folder and the blob store's.
+	if ownTemp {
+		if ents, err := os.ReadDir(opt.TempDir); err == nil {
+			for _, e := range ents {
+				os.RemoveAll(filepath.Join(opt.TempDir, e.Name()))
+			}
+		}
+	}
+	if sw, ok := blobs.(blob.TempSweeper); ok {
+		n, b, err := sw.SweepTemp(context.Background(), 0, false)
+		if err != nil {
+			db.Close()
+			return nil, fmt.Errorf("catalog: %w", err)
+		}
+		if n > 0 {
+			opt.Logger.Info("removed temporary blob files left by an earlier run", "files", n, "bytes", b)
+		}
+	}
+	return st, nil
 }
 
 // Close closes the metadata file.
@@ -230,19 +260,19 @@ func (s *Store) CreateDataset(ctx context.Context, spec DatasetSpec, by string) 
 			return fmt.Errorf("project %q: %w", spec.Project, ErrNotFound)
 		}
 		b := tx.Bucket(bucketDatasets)
-		key := []byte(d.Ref())
+		key := []byte(d.Ref().String())
 		if b.Get(key) != nil {
-			return fmt.Errorf("dataset %q: %w", d.Ref(), ErrExists)
+			return fmt.Errorf("dataset %q: %w", d.Ref().String(), ErrExists)
 		}
 		if err := putJSON(b, key, d); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, "dataset.create", d.Ref())
+		return audit(tx, s.opt.Now(), by, "dataset.create", d.Ref().String())
 	})
 	if err != nil {
 		return nil, err
 	}
-	s.opt.Logger.Info("dataset created", "dataset", d.Ref(), "by", by)
+	s.opt.Logger.Info("dataset created", "dataset", d.Ref().String(), "by", by)
 	return d, nil
 }
 
@@ -298,49 +328,25 @@ func (s *Store) Datasets(ctx context.Context, project string) ([]Dataset, error)
 	return out, err
 }
 
-// Versions lists a dataset's versions, oldest first.
-func (s *Store) Versions(ctx context.Context, project, dataset string) ([]Version, error) {
-	return listOfDataset[Version](s, bucketVersions, project, dataset)
-}
-
-// Version returns version n of a dataset; n == 0 means the latest.
-func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*Version, error) {
-	var v Version
-	err := s.db.View(func(tx *bolt.Tx) error {
-		ref := project + "/" + dataset
-		if n == 0 {
-			var d Dataset
-			if err := getJSON(tx.Bucket(bucketDatasets), []byte(ref), &d, "dataset "+ref); err != nil {
-				return err
-			}
-			if d.Latest == 0 {
-				return fmt.Errorf("dataset %q has no version yet: %w", ref, ErrNotFound)
-			}
-			n = d.Latest
-		}
-		return getJSON(tx.Bucket(bucketVersions), seqKey(ref, n), &v, fmt.Sprintf("version %s@%d", ref, n))
-	})
-	if err != nil {
-		return nil, err
-	}
-	return &v, nil
-}
-
 // Uploads lists a dataset's uploads, oldest first.
 func (s *Store) Uploads(ctx context.Context, project, dataset string) ([]Upload, error) {
 	return listOfDataset[Upload](s, bucketUploads, project, dataset)
 }
 
-// OpenFile opens a file of version v for reading; the file must be listed
-// in v's manifest.
-func (s *Store) OpenFile(ctx context.Context, v *Version, id blob.ID) (blob.Reader, FileEntry, error) {
-	f, ok := v.File(id)
+// OpenFile opens a stored file of version v (with its manifest) for
+// reading; the file must be one of the manifest's Blobs.
+func (s *Store) OpenFile(ctx context.Context, v *Version, id blob.ID) (blob.Reader, BlobEntry, error) {
+	var f BlobEntry
+	ok := false
+	if v.Manifest != nil {
+		f, ok = v.Manifest.Blob(id)
+	}
 	if !ok {
-		return nil, FileEntry{}, fmt.Errorf("file %s is not part of version %d: %w", id, v.Number, ErrNotFound)
+		return nil, BlobEntry{}, fmt.Errorf("file %s is not part of version %d: %w", id, v.Number, ErrNotFound)
 	}
 	r, err := s.blobs.Open(ctx, id)
 	if err != nil {
-		return nil, FileEntry{}, fmt.Errorf("catalog: %w", err)
+		return nil, BlobEntry{}, fmt.Errorf("catalog: %w", err)
 	}
 	return r, f, nil
 }

@@ -109,7 +109,7 @@ func TestProjectsAndDatasets(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if d.RejectAbove != DefaultRejectAbove || d.Timezone != "UTC" || d.Latest != 0 || d.ProfileHash == "" || d.Ref() != "er/visits" {
+	if d.RejectAbove != DefaultRejectAbove || d.Timezone != "UTC" || d.Latest != 0 || d.ProfileHash == "" || d.Ref().String() != "er/visits" {
 		t.Errorf("dataset = %+v", d)
 	}
 	if _, err := s.Dataset(ctx, "er", "nope"); !errors.Is(err, ErrNotFound) {

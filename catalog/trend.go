@@ -23,7 +23,7 @@ func driftAlerts(tx *bolt.Tx, ref string, up *Upload) []quality.Alert {
 	if up.Report == nil {
 		return nil
 	}
-	cur := withEvents(quality.TrendPoints(up.ID, up.Seq, up.ReceivedAt, up.Report))
+	cur := withEvents(quality.TrendPoints(up.ID.String(), up.Seq, up.ReceivedAt, up.Report))
 	need := map[string]int{}
 	for _, p := range cur {
 		need[p.Site] = 14
@@ -44,7 +44,7 @@ func driftAlerts(tx *bolt.Tx, ref string, up *Upload) []quality.Alert {
 		if json.Unmarshal(v, &old) != nil || old.Seq >= up.Seq || old.Status != UploadAccepted || old.Report == nil {
 			continue
 		}
-		for _, p := range withEvents(quality.TrendPoints(old.ID, old.Seq, old.ReceivedAt, old.Report)) {
+		for _, p := range withEvents(quality.TrendPoints(old.ID.String(), old.Seq, old.ReceivedAt, old.Report)) {
 			if need[p.Site] > 0 {
 				history = append(history, p)
 				if need[p.Site]--; need[p.Site] == 0 {
@@ -77,10 +77,10 @@ type TrendPoint struct {
 
 // UploadAlert is a drift alert with the upload it was raised for.
 type UploadAlert struct {
-	Upload     string `json:"upload"`
-	Seq        int    `json:"seq"`
-	Version    int    `json:"version,omitempty"`
-	ReceivedAt string `json:"received_at"`
+	Upload     UploadID `json:"upload"`
+	Seq        int      `json:"seq"`
+	Version    int      `json:"version,omitempty"`
+	ReceivedAt string   `json:"received_at"`
 	quality.Alert
 }
 
@@ -98,7 +98,7 @@ func (s *Store) Trend(ctx context.Context, project, dataset, site string) ([]Tre
 		if up.Report == nil {
 			continue
 		}
-		for _, p := range quality.TrendPoints(up.ID, up.Seq, up.ReceivedAt, up.Report) {
+		for _, p := range quality.TrendPoints(up.ID.String(), up.Seq, up.ReceivedAt, up.Report) {
 			if site == "" || p.Site == site {
 				points = append(points, TrendPoint{TrendPoint: p, Status: up.Status, Version: up.Version})
 			}

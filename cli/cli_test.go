@@ -237,7 +237,7 @@ func TestEndToEnd(t *testing.T) {
 	if code != 0 || !strings.Contains(out, "verified") {
 		t.Fatalf("pull: exit %d, %q %q", code, out, errs)
 	}
-	lockBytes, err := os.ReadFile(filepath.Join(snap, "flowcat.lock"))
+	lockBytes, err := os.ReadFile(filepath.Join(snap, "flowcat.pin"))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -249,13 +249,19 @@ func TestEndToEnd(t *testing.T) {
 		} `json:"files"`
 	}
 	json.Unmarshal(lockBytes, &lock)
-	for _, want := range []string{url, `"flow/visits"`, versions[1].SnapshotID} {
+	for _, want := range []string{`"flow/visits"`, versions[1].SnapshotID, `"quality.json"`} {
 		if !bytes.Contains(lockBytes, []byte(want)) {
-			t.Errorf("lock file lacks %s:\n%s", want, lockBytes)
+			t.Errorf("pin file lacks %s:\n%s", want, lockBytes)
 		}
 	}
-	if lock.Version != 2 || len(lock.Files) != 2 {
-		t.Fatalf("lock: version %d, %d files", lock.Version, len(lock.Files))
+	// The pin names the content, not where it came from.
+	for _, not := range []string{url, "127.0.0.1", "server", "pulled_at"} {
+		if bytes.Contains(lockBytes, []byte(not)) {
+			t.Errorf("pin file names %s:\n%s", not, lockBytes)
+		}
+	}
+	if lock.Version != 2 || len(lock.Files) != 4 || !strings.HasPrefix(lock.Files[2].Path, "cases/") {
+		t.Fatalf("pin: version %d, %d files (two event files, the case table under cases/ and the quality report)", lock.Version, len(lock.Files))
 	}
 	if code, out, _ := run(t, nil, "verify", snap); code != 0 || !strings.HasPrefix(out, "ok") {
 		t.Errorf("verify: exit %d, %q", code, out)
@@ -287,8 +293,16 @@ func TestEndToEnd(t *testing.T) {
 		t.Fatal("verify after undoing the flip")
 	}
 
-	// Pulling version 1 over version 2 leaves only version 1's file.
-	if code, _, errs := run(t, as(member), "pull", "flow/visits@1", "-o", snap); code != 0 {
+	// Pulling version 1 into the directory of version 2 is refused, and
+	// changes nothing, unless told to replace it.
+	if code, _, errs := run(t, as(member), "pull", "flow/visits@1", "-o", snap); code != 1 || !strings.Contains(errs, "--replace") || !strings.Contains(errs, "flow/visits@2") {
+		t.Errorf("pull @1 into @2's directory: exit %d %s", code, errs)
+	}
+	if code, _, _ := run(t, nil, "verify", snap); code != 0 {
+		t.Error("a refused pull changed the directory")
+	}
+	// With --replace, only version 1's file is left.
+	if code, _, errs := run(t, as(member), "pull", "flow/visits@1", "-o", snap, "--replace"); code != 0 {
 		t.Fatalf("pull @1 over @2: exit %d %s", code, errs)
 	}
 	if left, _ := filepath.Glob(filepath.Join(snap, "data", "*")); len(left) != 1 {
@@ -298,7 +312,7 @@ func TestEndToEnd(t *testing.T) {
 		t.Error("verify of @1 pulled over @2 failed")
 	}
 	// Each tamper of the directory fails verify with exit 1.
-	lockPath := filepath.Join(snap, "flowcat.lock")
+	lockPath := filepath.Join(snap, "flowcat.pin")
 	goodLock, _ := os.ReadFile(lockPath)
 	extra := filepath.Join(snap, "data", strings.Repeat("ab", 32)+".parquet")
 	for name, tamper := range map[string]func(){

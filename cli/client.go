@@ -104,7 +104,12 @@ func (c *client) do(ctx context.Context, method, path string, q url.Values, body
 
 // getJSON fetches path into v.
 func (c *client) getJSON(ctx context.Context, path string, v any) error {
-	resp, err := c.do(ctx, http.MethodGet, path, nil, nil, nil)
+	return c.getJSONQuery(ctx, path, nil, v)
+}
+
+// getJSONQuery fetches path with query q into v.
+func (c *client) getJSONQuery(ctx context.Context, path string, q url.Values, v any) error {
+	resp, err := c.do(ctx, http.MethodGet, path, q, nil, nil)
 	if err != nil {
 		return err
 	}

@@ -85,9 +85,10 @@ func newGCCmd(e *env) *cobra.Command {
 	var dry bool
 	var grace time.Duration
 	c := &cobra.Command{
-		Use:   "gc",
-		Short: "Delete stored files no version references (admin)",
-		Long: `Gc asks the server to delete the Parquet files that no version of any dataset lists: what a
+		Use:     "sweep",
+		Aliases: []string{"gc"}, // the name of releases up to 8a7be85
+		Short:   "Delete stored files no version references (admin)",
+		Long: `Sweep asks the server to delete the Parquet files that no version of any dataset lists: what a
 crash between storing a file and committing its version leaves behind. Files of uploads in progress
 and files younger than --grace are kept; every version, retracted ones too, keeps its files.`,
 		Args: cobra.NoArgs,
@@ -99,7 +100,7 @@ and files younger than --grace are kept; every version, retracted ones too, keep
 			req := map[string]any{"dry_run": dry}
 			if cmd.Flags().Changed("grace") {
 				if grace < 0 {
-					return usageErr("gc: --grace must not be negative")
+					return usageErr("sweep: --grace must not be negative")
 				}
 				req["grace_seconds"] = grace.Seconds()
 			}
@@ -132,22 +133,18 @@ func versionsTable(e *env, vs []catalog.Version) error {
 	tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
 	fmt.Fprintln(tw, "VERSION\tSTATE\tCREATED\tMODE\tFILES\tROWS\tNEW\tHELD\tCHANGED\tSCORE\tSNAPSHOT")
 	for _, v := range vs {
-		sc := "-"
-		if v.Manifest.Quality != nil {
-			sc = score(v.Manifest.Quality.Score)
-		}
-		mode := string(v.Manifest.Lineage.Mode)
+		mode := string(v.Mode)
 		if mode == "" {
 			mode = "-"
 		}
 		// The lineage's event counts: new, already held, changed (versions
 		// made before events were counted show "-").
 		nw, held, changed := "-", "-", "-"
-		if ev := v.Manifest.Lineage.Events; ev != nil {
+		if ev := v.Events; ev != nil {
 			nw, held, changed = fmt.Sprint(ev.New), fmt.Sprint(ev.Held), fmt.Sprint(ev.Changed)
 		}
-		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\n", v.Number, v.State, stamp(v.Manifest.CreatedAt), mode,
-			len(v.Manifest.Files), v.Manifest.Rows, nw, held, changed, sc, v.SnapshotID[:16])
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\n", v.Number, v.State, stamp(v.CreatedAt), mode,
+			v.Files, v.Rows, nw, held, changed, score(v.Quality.Score), v.SnapshotID.String()[:16])
 	}
 	return tw.Flush()
 }

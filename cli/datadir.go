@@ -15,6 +15,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
+	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/server"
 )
 
@@ -141,7 +142,7 @@ func (d dataDir) findMasterKey(flagFile string) (anonymize.MasterKey, string, er
 	return anonymize.MasterKey{}, "", fmt.Errorf("no master key: give --master-key FILE, or set FLOWCAT_MASTER_KEY (64 hex digits) or FLOWCAT_MASTER_KEY_FILE; `flowcat init` creates %s", d.masterKey())
 }
 
-func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger) (*catalog.Store, error) {
+func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger, lim ...schema.Limits) (*catalog.Store, error) {
 	blobs, err := localfs.New(d.blobs())
 	if err != nil {
 		return nil, err
@@ -149,12 +150,11 @@ func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger) (*catal
 	if err := os.MkdirAll(d.tmp(), 0o700); err != nil {
 		return nil, err
 	}
-	// Sort runs and Parquet files from an interrupted run hold only
-	// pseudonymized events; clear them at start.
-	if ents, err := os.ReadDir(d.tmp()); err == nil {
-		for _, e := range ents {
-			os.Remove(filepath.Join(d.tmp(), e.Name()))
-		}
+	// Open clears what an interrupted run left in tmp/ and blobs/tmp/
+	// once it holds the bbolt lock (only pseudonymized events).
+	opt := catalog.Options{Master: master, TempDir: d.tmp(), Logger: log}
+	if len(lim) > 0 {
+		opt.Limits = lim[0]
 	}
-	return catalog.Open(d.db(), blobs, catalog.Options{Master: master, TempDir: d.tmp(), Logger: log})
+	return catalog.Open(d.db(), blobs, opt)
 }

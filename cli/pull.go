@@ -11,8 +11,8 @@ import (
 	"net/http"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
-	"time"
 
 	"github.com/schollz/progressbar/v3"
 	"github.com/spf13/cobra"
@@ -21,46 +21,91 @@ import (
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 )
 
-// lockName is the lock file pull writes and verify reads.
-const lockName = "flowcat.lock"
+// pinName is the file pull writes to pin what a directory holds, and
+// verify reads; oldLockName is what releases up to 8a7be85 wrote, still
+// read when no pin is there.
+const (
+	pinName     = "flowcat.pin"
+	oldLockName = "flowcat.lock"
+	qualityName = "quality.json"
+)
 
-// lockFile pins a pulled version: where it came from and every byte of it.
-type lockFile struct {
-	LockVersion int        `json:"lock_version"`
-	Server      string     `json:"server"`
-	Dataset     string     `json:"dataset"`
-	Version     int        `json:"version"`
-	SnapshotID  string     `json:"snapshot_id"` // sha256 of manifest.json
-	Files       []lockedFS `json:"files"`
-	// CaseTable is the version's case table, at cases/<sha256>.parquet
-	// (apart from data/, so that data/*.parquet reads only events).
-	CaseTable *lockedFS `json:"case_table,omitempty"`
-	PulledAt  time.Time `json:"pulled_at"`
+// pinFile pins a pulled version by its content alone: the dataset, the
+// version, its snapshot id and every file's sha256. It names no server and
+// no time, so two pulls of one version, from any address of the catalog,
+// write the same bytes.
+type pinFile struct {
+	PinVersion int          `json:"pin_version"`
+	Dataset    string       `json:"dataset"`
+	Version    int          `json:"version"`
+	SnapshotID string       `json:"snapshot_id"` // sha256 of manifest.json
+	Files      []pinnedFile `json:"files"`
+
+	// server is where an old lock file says it came from; legacy marks
+	// one (read only), which does not list the quality report.
+	server string
+	legacy bool
 }
 
-type lockedFS struct {
+type pinnedFile struct {
 	Path   string `json:"path"`
 	SHA256 string `json:"sha256"`
 	Bytes  int64  `json:"bytes"`
-	Rows   int64  `json:"rows"`
+	Rows   int64  `json:"rows,omitempty"`
+}
+
+// marshalPin is the pin's one encoding: indented JSON and a newline.
+func marshalPin(p *pinFile) []byte {
+	b, _ := json.MarshalIndent(p, "", "  ")
+	return append(b, '\n')
+}
+
+// decodePin reads a pin, or a lock file of earlier releases (which also
+// named a server and a time, and, once versions had case tables, listed
+// the case table apart from the files).
+func decodePin(b []byte) (*pinFile, bool) {
+	var raw struct {
+		PinVersion  int          `json:"pin_version"`
+		LockVersion int          `json:"lock_version"`
+		Server      string       `json:"server"`
+		Dataset     string       `json:"dataset"`
+		Version     int          `json:"version"`
+		SnapshotID  string       `json:"snapshot_id"`
+		Files       []pinnedFile `json:"files"`
+		// A lock file's case table, listed apart from its files.
+		CaseTable *pinnedFile `json:"case_table"`
+	}
+	if err := json.Unmarshal(b, &raw); err != nil || (raw.PinVersion != 1 && raw.LockVersion != 1) ||
+		raw.SnapshotID == "" || raw.Version < 1 || raw.Dataset == "" {
+		return nil, false
+	}
+	if raw.CaseTable != nil && raw.PinVersion != 1 {
+		raw.Files = append(raw.Files, *raw.CaseTable) // where Manifest.Blobs lists it
+	}
+	return &pinFile{PinVersion: 1, Dataset: raw.Dataset, Version: raw.Version, SnapshotID: raw.SnapshotID, Files: raw.Files,
+		server: raw.Server, legacy: raw.PinVersion != 1}, true
 }
 
 func newPullCmd(e *env) *cobra.Command {
-	var out, lockPath string
+	var out, pinPath string
+	var replace bool
 	c := &cobra.Command{
-		Use:   "pull PROJECT/DATASET[@VERSION] -o DIR | pull --lock FILE -o DIR",
-		Short: "Download a version, verify every sha256 and write a lock file",
-		Long: `Pull downloads a version's manifest and Parquet files into DIR, checks each file's
-sha256 and the manifest's hash (the snapshot id), and writes DIR/flowcat.lock naming the server,
-dataset, version, snapshot id and every file's sha256. An interrupted pull resumes where it stopped.
+		Use:   "pull PROJECT/DATASET[@VERSION] -o DIR | pull --pin FILE -o DIR",
+		Short: "Download a version, verify every sha256 and write a pin file",
+		Long: `Pull downloads a version's manifest, quality report and Parquet files into DIR, checks each
+file's sha256 and the manifest's hash (the snapshot id), and writes DIR/flowcat.pin naming the
+dataset, version, snapshot id and every file's sha256: the content, not where it came from, so
+pulling the same version again, from any address of the catalog, writes the same bytes. An
+interrupted pull resumes where it stopped. A DIR that holds another dataset or version is
+refused unless --replace is given.
 
 VERSION is a number, latest (the default: the newest published version), a snapshot id prefix
 of 8 or more hex digits, or an RFC 3339 instant (the version published and in force then).
 
-With --lock FILE, pull reproduces a lock file written elsewhere: the same server (taken from the
-lock unless --server or FLOWCAT_SERVER names one, which must then be the lock's), the same version
-and exactly the same bytes; it fails, keeping nothing new, when the server's snapshot id or any
-file's sha256 differs from the lock.`,
+With --pin FILE, pull reproduces a pinned version from the server that --server or
+FLOWCAT_SERVER names (a lock file of older releases, flowcat.lock, names its server, used when
+neither is given): the version is found by its snapshot id, and pull fails, keeping nothing new,
+when any byte differs from the pin.`,
 		Args: cobra.MaximumNArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if out == "" {
@@ -68,103 +113,90 @@ file's sha256 differs from the lock.`,
 			}
 			var (
 				r    ref
-				want *lockFile
+				want *pinFile
 			)
 			switch {
-			case lockPath != "" && len(args) > 0:
-				return usageErr("pull: give a dataset or --lock, not both")
-			case lockPath != "":
-				l, err := readLockFile(lockPath)
+			case pinPath != "" && len(args) > 0:
+				return usageErr("pull: give a dataset or --pin, not both")
+			case pinPath != "":
+				p, err := readPinFile(pinPath)
 				if err != nil {
 					return err
 				}
-				if err := e.useLockServer(l); err != nil {
-					return err
+				if e.server == "" && os.Getenv("FLOWCAT_SERVER") == "" && p.server != "" {
+					e.server = p.server
 				}
-				want = l
-				r, err = parseRef(l.Dataset, false)
+				want = p
+				r, err = parseRef(p.Dataset, false)
 				if err != nil {
-					return fmt.Errorf("%s: dataset %q: %w", lockPath, l.Dataset, err)
+					return fmt.Errorf("%s: dataset %q: %w", pinPath, p.Dataset, err)
 				}
-				r = r.at(l.Version)
+				r.Selector = p.SnapshotID
 			case len(args) == 1:
 				var err error
 				if r, err = parseRef(args[0], true); err != nil {
 					return err
 				}
 			default:
-				return usageErr("pull: give PROJECT/DATASET[@VERSION] or --lock FILE")
+				return usageErr("pull: give PROJECT/DATASET[@VERSION] or --pin FILE")
 			}
 			cl, err := e.client()
 			if err != nil {
 				return err
 			}
-			lock, err := e.pull(cmd, cl, r, out, want)
+			pin, err := e.pull(cmd, cl, r, out, want, replace)
 			if err != nil {
 				return err
 			}
 			if e.json {
-				return writeJSON(e.stdout, lock)
+				return writeJSON(e.stdout, pin)
 			}
 			var rows int64
-			for _, f := range lock.Files {
+			for _, f := range pin.Files {
 				rows += f.Rows
 			}
 			how := "all sha256 verified"
 			if want != nil {
-				how = "identical to " + lockPath
+				how = "identical to " + pinPath
 			}
 			fmt.Fprintf(e.stdout, "pulled %s@%d into %s: %d files, %d rows, %s\nsnapshot %s\n",
-				lock.Dataset, lock.Version, out, len(lock.Files), rows, how, lock.SnapshotID)
+				pin.Dataset, pin.Version, out, len(pin.Files), rows, how, pin.SnapshotID)
 			return nil
 		},
 	}
 	c.Flags().StringVarP(&out, "output", "o", "", "directory to write into")
-	c.Flags().StringVar(&lockPath, "lock", "", "reproduce the version and bytes pinned by this lock file")
+	c.Flags().StringVar(&pinPath, "pin", "", "reproduce the version and bytes pinned by this file (flowcat.pin, or an older flowcat.lock)")
+	c.Flags().StringVar(&pinPath, "lock", "", "the same as --pin")
+	c.Flags().MarkHidden("lock")
+	c.Flags().BoolVar(&replace, "replace", false, "replace what DIR holds when it is another dataset or version")
 	return c
 }
 
-// useLockServer makes the lock's server the one to talk to, unless one is
-// configured already, which must then be the lock's.
-func (e *env) useLockServer(l *lockFile) error {
-	if e.server == "" {
-		e.server = os.Getenv("FLOWCAT_SERVER")
-	}
-	if e.server == "" {
-		e.server = l.Server
-		return nil
-	}
-	if normServer(e.server) != normServer(l.Server) {
-		return usageErr("the lock file is for server %s, but this pull talks to %s: pass --server %s", l.Server, e.server, l.Server)
-	}
-	return nil
+// pinMismatch is a pull --pin whose server bytes differ from the pin.
+func pinMismatch(format string, args ...any) error {
+	return &exitError{code: ExitRejected, err: fmt.Errorf("pull --pin: "+format, args...)}
 }
 
-func normServer(s string) string { return strings.ToLower(strings.TrimRight(s, "/")) }
-
-// errLockMismatch is a pull --lock whose server bytes differ from the lock.
-func lockMismatch(format string, args ...any) error {
-	return &exitError{code: ExitRejected, err: fmt.Errorf("pull --lock: "+format, args...)}
-}
-
-// pull downloads version r into out. With want (a lock file), the
-// version must have want's snapshot id and files, checked before any file
-// is written.
-func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lockFile) (*lockFile, error) {
+// pull downloads version r into out. With want (a pin), the version must
+// have want's snapshot id and files, checked before any file is written.
+// A directory holding another dataset or version is refused unless
+// replace.
+func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *pinFile, replace bool) (*pinFile, error) {
 	ctx := cmd.Context()
 	var v catalog.Version
 	if err := cl.getJSON(ctx, r.versionPath(), &v); err != nil {
 		return nil, err
 	}
-	if want != nil {
-		if v.SnapshotID != want.SnapshotID {
-			return nil, lockMismatch("%s@%d on %s has snapshot id %s, the lock says %s: the server's version differs", want.Dataset, want.Version, want.Server, v.SnapshotID, want.SnapshotID)
-		}
-		if err := matchLockFiles(want, v.Manifest.Files); err != nil {
-			return nil, err
-		}
+	dataset := r.Project + "/" + r.Dataset
+	if want != nil && v.SnapshotID.String() != want.SnapshotID {
+		return nil, pinMismatch("%s on %s has snapshot id %s, the pin says %s: the server's version differs", dataset, cl.base.Host, v.SnapshotID, want.SnapshotID)
 	}
-	resp, err := cl.do(ctx, http.MethodGet, r.path()+fmt.Sprintf("/versions/%d/manifest", v.Number), nil, nil, nil)
+	if have, where := readPinIn(out); have != nil && !replace && (have.Dataset != dataset || have.SnapshotID != v.SnapshotID.String()) {
+		return nil, &exitError{code: ExitRejected, err: fmt.Errorf("pull: %s holds %s@%d (snapshot %.16s…, per %s), not %s@%d: pass --replace to replace it, or pull into another directory",
+			out, have.Dataset, have.Version, have.SnapshotID, where, dataset, v.Number)}
+	}
+	at := r.at(v.Number)
+	resp, err := cl.do(ctx, http.MethodGet, at.versionPath()+"/manifest", nil, nil, nil)
 	if err != nil {
 		return nil, err
 	}
@@ -173,8 +205,8 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lock
 	if err != nil {
 		return nil, fmt.Errorf("pull: manifest: %w", err)
 	}
-	if sum := sha256.Sum256(manifest); hex.EncodeToString(sum[:]) != v.SnapshotID {
-		return nil, fmt.Errorf("pull: the manifest's sha256 %x is not the snapshot id %s", sum, v.SnapshotID)
+	if catalog.SnapshotOf(manifest) != v.SnapshotID {
+		return nil, fmt.Errorf("pull: the manifest's sha256 %x is not the snapshot id %s", sha256.Sum256(manifest), v.SnapshotID)
 	}
 	// The file list comes from the manifest bytes just checked against the
 	// snapshot id, not from the version's JSON.
@@ -182,51 +214,65 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lock
 	if err := json.Unmarshal(manifest, &m); err != nil {
 		return nil, fmt.Errorf("pull: manifest: %w", err)
 	}
+	pin := &pinFile{PinVersion: 1, Dataset: dataset, Version: v.Number, SnapshotID: v.SnapshotID.String()}
+	for _, f := range m.Blobs() {
+		pin.Files = append(pin.Files, pinnedFile{Path: f.Path, SHA256: f.SHA256.String(), Bytes: f.Bytes, Rows: f.Rows})
+	}
+	var report []byte
+	if q := m.Quality; q != nil {
+		resp, err := cl.do(ctx, http.MethodGet, at.versionPath()+"/quality", nil, nil, nil)
+		if err != nil {
+			return nil, err
+		}
+		report, err = io.ReadAll(resp.Body)
+		resp.Body.Close()
+		if err != nil {
+			return nil, fmt.Errorf("pull: quality report: %w", err)
+		}
+		if sha256.Sum256(report) != q.SHA256 {
+			return nil, fmt.Errorf("pull: the quality report's sha256 %x is not the one the manifest names, %s", sha256.Sum256(report), q.SHA256)
+		}
+		pin.Files = append(pin.Files, pinnedFile{Path: qualityName, SHA256: q.SHA256.String(), Bytes: q.Bytes})
+	}
 	if want != nil {
-		if err := matchLockFiles(want, m.Files); err != nil {
+		if err := matchPinFiles(want, pin.Files); err != nil {
 			return nil, err
 		}
 	}
-	if err := os.MkdirAll(filepath.Join(out, "data"), 0o755); err != nil {
-		return nil, err
-	}
-	server := *cl.base
-	server.User = nil // never write credentials into the lock
-	lock := &lockFile{LockVersion: 1, Server: server.String(), Dataset: r.Project + "/" + r.Dataset,
-		Version: v.Number, SnapshotID: v.SnapshotID, PulledAt: time.Now().UTC()}
 	keep := map[string]bool{}
-	for _, f := range m.Files {
-		rel := dataPath(f.SHA256.String())
-		if !keep[rel] {
-			if err := e.fetchFile(cmd, cl, r.path()+fmt.Sprintf("/versions/%d/files/%s", v.Number, f.SHA256), filepath.Join(out, rel), f); err != nil {
+	for _, f := range m.Blobs() {
+		if !keep[f.Path] {
+			// data/ for events, cases/ for the case table
+			dst := filepath.Join(out, filepath.FromSlash(f.Path))
+			if err := os.MkdirAll(filepath.Dir(dst), 0o755); err != nil {
+				return nil, err
+			}
+			if err := e.fetchFile(cmd, cl, at.versionPath()+"/files/"+f.SHA256.String(), dst, f); err != nil {
 				return nil, err
 			}
 		}
-		keep[rel] = true
-		lock.Files = append(lock.Files, lockedFS{Path: rel, SHA256: f.SHA256.String(), Bytes: f.Bytes, Rows: f.Rows})
-	}
-	if ct := m.CaseTable; ct != nil {
-		rel := casesPath(ct.SHA256.String())
-		if err := os.MkdirAll(filepath.Join(out, "cases"), 0o755); err != nil {
-			return nil, err
-		}
-		f := catalog.FileEntry{SHA256: ct.SHA256, Bytes: ct.Bytes, Rows: ct.Rows}
-		if err := e.fetchFile(cmd, cl, r.path()+fmt.Sprintf("/versions/%d/files/%s", v.Number, ct.SHA256), filepath.Join(out, rel), f); err != nil {
-			return nil, err
-		}
-		keep[rel] = true
-		lock.CaseTable = &lockedFS{Path: rel, SHA256: ct.SHA256.String(), Bytes: ct.Bytes, Rows: ct.Rows}
+		keep[f.Path] = true
 	}
 	if err := writeFileAtomic(filepath.Join(out, "manifest.json"), manifest); err != nil {
 		return nil, err
 	}
-	b, _ := json.MarshalIndent(lock, "", "  ")
-	if err := writeFileAtomic(filepath.Join(out, lockName), append(b, '\n')); err != nil {
+	if report != nil {
+		if err := writeFileAtomic(filepath.Join(out, qualityName), report); err != nil {
+			return nil, err
+		}
+	} else if err := os.Remove(filepath.Join(out, qualityName)); err != nil && !errors.Is(err, fs.ErrNotExist) {
 		return nil, err
 	}
-	// Only now, with every file of this version here and its lock written,
+	if err := writeFileAtomic(filepath.Join(out, pinName), marshalPin(pin)); err != nil {
+		return nil, err
+	}
+	if err := os.Remove(filepath.Join(out, oldLockName)); err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return nil, err
+	}
+	// Only now, with every file of this version here and its pin written,
 	// remove files of another version pulled here before (only pull's own
-	// data/<sha256>.parquet files), which would otherwise be read with it.
+	// data/<sha256>.parquet and cases/<sha256>.parquet files), which would
+	// otherwise be read with it.
 	for _, sub := range []string{"data", "cases"} {
 		ents, err := os.ReadDir(filepath.Join(out, sub))
 		if err != nil {
@@ -242,12 +288,12 @@ func (e *env) pull(cmd *cobra.Command, cl *client, r ref, out string, want *lock
 			}
 		}
 	}
-	return lock, nil
+	return pin, nil
 }
 
 // fetchFile downloads one file to dst, resuming a dst.part left by an
 // interrupted pull with a Range request, and verifies its sha256.
-func (e *env) fetchFile(cmd *cobra.Command, cl *client, path, dst string, f catalog.FileEntry) error {
+func (e *env) fetchFile(cmd *cobra.Command, cl *client, path, dst string, f catalog.BlobEntry) error {
 	want := f.SHA256.String()
 	if got, err := fileSHA256(dst); err == nil && got == want {
 		return nil // already here and whole
@@ -307,12 +353,6 @@ func (e *env) fetchFile(cmd *cobra.Command, cl *client, path, dst string, f cata
 	return os.Rename(part, dst)
 }
 
-// dataPath is where pull puts a file of a version, relative to its directory.
-func dataPath(sha string) string { return "data/" + sha + ".parquet" }
-
-// casesPath is where pull puts a version's case table.
-func casesPath(sha string) string { return "cases/" + sha + ".parquet" }
-
 func fileSHA256(path string) (string, error) {
 	f, err := os.Open(path)
 	if err != nil {
@@ -334,46 +374,62 @@ func writeFileAtomic(path string, data []byte) error {
 	return os.Rename(tmp, path)
 }
 
-// matchLockFiles checks that files are exactly the lock's.
-func matchLockFiles(want *lockFile, files []catalog.FileEntry) error {
+// matchPinFiles checks that files are exactly the pin's.
+func matchPinFiles(want *pinFile, files []pinnedFile) error {
+	if want.legacy {
+		files = slices.DeleteFunc(slices.Clone(files), func(f pinnedFile) bool { return f.Path == qualityName })
+	}
 	if len(files) != len(want.Files) {
-		return lockMismatch("the server lists %d files, the lock %d", len(files), len(want.Files))
+		return pinMismatch("the server's version has %d files, the pin %d", len(files), len(want.Files))
 	}
 	for i, f := range files {
-		if w := want.Files[i]; w.SHA256 != f.SHA256.String() || w.Bytes != f.Bytes || w.Path != dataPath(f.SHA256.String()) {
-			return lockMismatch("file %d: the server has %s (%d bytes), the lock %s (%d bytes)", i+1, f.SHA256, f.Bytes, w.SHA256, w.Bytes)
+		if w := want.Files[i]; w.SHA256 != f.SHA256 || w.Bytes != f.Bytes || w.Path != f.Path {
+			return pinMismatch("file %d: the server has %s (%d bytes), the pin %s (%d bytes)", i+1, f.SHA256, f.Bytes, w.SHA256, w.Bytes)
 		}
 	}
 	return nil
 }
 
-// readLockFile reads a lock file by its path.
-func readLockFile(path string) (*lockFile, error) {
+// readPinFile reads a pin (or an old lock file) by its path.
+func readPinFile(path string) (*pinFile, error) {
 	b, err := os.ReadFile(path)
 	if err != nil {
-		return nil, usageErr("lock file: %v", err)
+		return nil, usageErr("pin file: %v", err)
 	}
-	var l lockFile
-	if err := json.Unmarshal(b, &l); err != nil || l.LockVersion != 1 || l.Server == "" || l.SnapshotID == "" || l.Version < 1 {
-		return nil, usageErr("%s: not a flowcat lock file (version 1 with server, dataset, version and snapshot id)", path)
+	p, ok := decodePin(b)
+	if !ok {
+		return nil, usageErr("%s: not a flowcat pin file (pin_version 1, or lock_version 1, with dataset, version and snapshot id)", path)
 	}
-	return &l, nil
+	return p, nil
 }
 
-func readLock(dir string) (*lockFile, error) {
-	b, err := os.ReadFile(filepath.Join(dir, lockName))
-	if errors.Is(err, fs.ErrNotExist) {
-		if _, derr := os.Stat(dir); derr != nil {
-			return nil, usageErr("%s: no such directory", dir)
+// readPinIn returns the pin of a pulled directory and the file it came
+// from: flowcat.pin, else an older flowcat.lock; nil when dir holds
+// neither (or an unreadable one).
+func readPinIn(dir string) (*pinFile, string) {
+	for _, name := range []string{pinName, oldLockName} {
+		if b, err := os.ReadFile(filepath.Join(dir, name)); err == nil {
+			if p, ok := decodePin(b); ok {
+				return p, name
+			}
 		}
-		return nil, fmt.Errorf("%s: no %s here: not a pulled version, or its lock was removed", dir, lockName)
 	}
-	if err != nil {
-		return nil, err
+	return nil, ""
+}
+
+// readPin reads the pin of a pulled directory for verify.
+func readPin(dir string) (*pinFile, string, error) {
+	if _, err := os.Stat(dir); err != nil {
+		return nil, "", usageErr("%s: no such directory", dir)
 	}
-	var l lockFile
-	if err := json.Unmarshal(b, &l); err != nil || l.LockVersion != 1 {
-		return nil, fmt.Errorf("%s: not a flowcat lock file (version 1)", filepath.Join(dir, lockName))
+	p, name := readPinIn(dir)
+	if p != nil {
+		return p, name, nil
 	}
-	return &l, nil
+	for _, name := range []string{pinName, oldLockName} {
+		if _, err := os.Stat(filepath.Join(dir, name)); err == nil {
+			return nil, "", fmt.Errorf("%s: not a flowcat pin file", filepath.Join(dir, name))
+		}
+	}
+	return nil, "", fmt.Errorf("%s: no %s here: not a pulled version, or its pin was removed", dir, pinName)
 }

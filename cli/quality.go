@@ -79,13 +79,17 @@ completeness dropped (an export that lost a column).`,
 			if err := cl.getJSON(cmd.Context(), r.versionPath(), &v); err != nil {
 				return err
 			}
-			m := v.Manifest
-			if e.json {
-				return writeJSON(e.stdout, m.Quality)
+			var rep quality.Report
+			if err := cl.getJSON(cmd.Context(), r.at(v.Number).versionPath()+"/quality", &rep); err != nil {
+				return err
 			}
+			if e.json {
+				return writeJSON(e.stdout, &rep)
+			}
+			m := v.Manifest
 			fmt.Fprintf(e.stdout, "%s@%d (%s): %d files from %d uploads, %d rows\n\n",
 				m.Dataset, v.Number, v.State, len(m.Files), len(m.Uploads), m.Rows)
-			return m.Quality.Text(e.stdout, e.tty())
+			return rep.Text(e.stdout, e.tty())
 		},
 	}
 	c.Flags().BoolVar(&trend, "trend", false, "the quality of every upload, per site, with drift alerts")

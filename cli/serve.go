@@ -7,19 +7,25 @@ import (
 	"log/slog"
 	"net"
 	"net/http"
+	"os"
 	"os/signal"
+	"runtime/debug"
 	"syscall"
 	"time"
 
 	"github.com/spf13/cobra"
 
+	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/server"
 )
 
 func newServeCmd(e *env) *cobra.Command {
 	var dir, addr, masterFile string
-	var maxUpload int64
+	var maxUpload, memLimit int64
+	var maxUploads int
+	var bodyIdle time.Duration
 	var author string
+	var lim schema.Limits
 	c := &cobra.Command{
 		Use:   "serve --data DIR --addr HOST:PORT",
 		Short: "Run the catalog server on a data directory",
@@ -29,10 +35,15 @@ func newServeCmd(e *env) *cobra.Command {
 				return usageErr("serve: --data DIR is required")
 			}
 			log := slog.New(slog.NewJSONHandler(e.stderr, nil))
+			if memLimit > 0 && os.Getenv("GOMEMLIMIT") == "" {
+				// A soft limit: the collector runs harder near it, so the
+				// heap's garbage does not double the resident memory.
+				debug.SetMemoryLimit(memLimit)
+			}
 			d := dataDir(dir)
 			ctx, stop := signal.NotifyContext(cmd.Context(), syscall.SIGINT, syscall.SIGTERM)
 			defer stop()
-			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, citationAuthor: author}, log)
+			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, maxUploads: maxUploads, bodyIdle: bodyIdle, citationAuthor: author, limits: lim}, log)
 			if err != nil {
 				return err
 			}
@@ -43,15 +54,31 @@ func newServeCmd(e *env) *cobra.Command {
 	c.Flags().StringVar(&dir, "data", "", "data directory (made by flowcat init)")
 	c.Flags().StringVar(&addr, "addr", "127.0.0.1:8470", "listen address HOST:PORT")
 	c.Flags().StringVar(&masterFile, "master-key", "", "master key file (else FLOWCAT_MASTER_KEY, FLOWCAT_MASTER_KEY_FILE, or DIR/master.key)")
-	c.Flags().Int64Var(&maxUpload, "max-upload-bytes", 8<<30, "largest upload body accepted (413 above)")
+	c.Flags().Int64Var(&maxUpload, "max-upload-bytes", 8<<30, "largest upload body accepted, in bytes as sent (gzip counts compressed; 413 above)")
+	c.Flags().IntVar(&maxUploads, "max-uploads-per-token", server.DefaultMaxUploadsPerToken, "uploads one token may have in progress at once (429 above)")
+	c.Flags().DurationVar(&bodyIdle, "body-idle-timeout", server.DefaultBodyIdleTimeout, "longest wait for the next byte of a request body (408 after)")
+	c.Flags().IntVar(&lim.MaxLineBytes, "max-line-bytes", schema.DefaultMaxLineBytes, "longest line of an uploaded file (CSV/TSV physical line, JSON Lines line)")
+	c.Flags().IntVar(&lim.MaxColumns, "max-columns", schema.DefaultMaxColumns, "most columns in an uploaded CSV/TSV header")
+	c.Flags().Int64Var(&lim.MaxBytes, "max-decompressed-bytes", schema.DefaultMaxBytes, "largest uploaded file after gzip decompression")
+	c.Flags().Int64Var(&lim.MaxRows, "max-rows", schema.DefaultMaxRows, "most data rows in one uploaded file")
 	c.Flags().StringVar(&author, "citation-author", "", "author named in CITATION.cff files, e.g. the lab (default: the project's title)")
+	c.Flags().Int64Var(&memLimit, "memory-limit", DefaultMemoryLimit, "soft limit of the server's memory in bytes (Go's runtime/debug.SetMemoryLimit; 0: none; the GOMEMLIMIT environment variable wins)")
 	return c
 }
+
+// DefaultMemoryLimit is serve's soft memory limit: what an upload holds
+// (two sorts' buffers, Parquet row groups, the case in hand) fits well
+// under it, and the collector keeps garbage from pushing the resident
+// memory past it.
+const DefaultMemoryLimit = 200 << 20
 
 // serverOptions are serve's tuning flags.
 type serverOptions struct {
 	maxUpload      int64
+	maxUploads     int
+	bodyIdle       time.Duration
 	citationAuthor string
+	limits         schema.Limits // of uploaded files
 }
 
 // running is a started server.
@@ -76,7 +103,7 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, so ser
 	if err != nil {
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	st, err := d.openStore(master, log)
+	st, err := d.openStore(master, log, so.limits)
 	if err != nil {
 		return nil, fmt.Errorf("serve: %w", err)
 	}
@@ -85,7 +112,7 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, so ser
 		st.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, MaxUploadBytes: so.maxUpload, CitationAuthor: so.citationAuthor})
+	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, MaxUploadBytes: so.maxUpload, MaxUploadsPerToken: so.maxUploads, BodyIdleTimeout: so.bodyIdle, CitationAuthor: so.citationAuthor})
 	hs := srv.HTTPServer(addr)
 	r := &running{url: "http://" + ln.Addr().String(), masterFrom: from, auth: auth, hs: hs, done: make(chan error, 1), close: st.Close}
 	go func() { r.done <- hs.Serve(ln) }()

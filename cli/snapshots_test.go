@@ -3,14 +3,20 @@ package cli_test
 import (
 	"encoding/json"
 	"fmt"
+	"io"
+	"io/fs"
+	"maps"
+	"net"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 )
 
 // TestSnapshotWorkflow drives drafts, publication, selectors, replace
-// modes, pull --lock, retraction and garbage collection through the real
+// modes, pins, pull --pin from another address, retraction and the sweep
+// of unreferenced files through the real
 // command line and a real server on loopback.
 func TestSnapshotWorkflow(t *testing.T) {
 	dir := t.TempDir()
@@ -73,7 +79,7 @@ func TestSnapshotWorkflow(t *testing.T) {
 		t.Errorf("curator versions:\n%s", out)
 	}
 
-	// pull @latest is version 1; the lock pins it; @<prefix> and @<instant> find it.
+	// pull @latest is version 1; the pin pins it; @<prefix> and @<instant> find it.
 	p1 := filepath.Join(dir, "p1")
 	out = must(as(member), "pull", "flow/visits", "-o", p1)
 	if !strings.Contains(out, "flow/visits@1") {
@@ -82,13 +88,13 @@ func TestSnapshotWorkflow(t *testing.T) {
 	var lock struct {
 		SnapshotID string `json:"snapshot_id"`
 		Version    int
-		Files      []struct{ SHA256 string }
+		Files      []struct{ SHA256, Path string }
 	}
-	lb, err := os.ReadFile(filepath.Join(p1, "flowcat.lock"))
+	lb, err := os.ReadFile(filepath.Join(p1, "flowcat.pin"))
 	if err != nil {
 		t.Fatal(err)
 	}
-	if err := json.Unmarshal(lb, &lock); err != nil || lock.Version != 1 || len(lock.Files) != 1 {
+	if err := json.Unmarshal(lb, &lock); err != nil || lock.Version != 1 || len(lock.Files) != 3 {
 		t.Fatalf("lock %s: %v", lb, err)
 	}
 	out = must(as(member), "pull", "flow/visits@"+lock.SnapshotID[:10], "-o", filepath.Join(dir, "p2"))
@@ -104,30 +110,67 @@ func TestSnapshotWorkflow(t *testing.T) {
 		}
 	}
 
-	// pull --lock elsewhere reproduces the same bytes; the server comes from the lock.
-	p4 := filepath.Join(dir, "p4")
-	out = must(map[string]string{"FLOWCAT_TOKEN": member, "FLOWCAT_SERVER": ""}, "pull", "--lock", filepath.Join(p1, "flowcat.lock"), "-o", p4)
+	// The catalog at a second address (another loopback address,
+	// forwarded to the server): pulling the same version there, by name
+	// and by the pin, gives a directory identical to the first, pin
+	// included.
+	other := forward(t, strings.TrimPrefix(url, "http://"))
+	p4, p4b := filepath.Join(dir, "p4"), filepath.Join(dir, "p4b")
+	out = must(map[string]string{"FLOWCAT_TOKEN": member, "FLOWCAT_SERVER": other}, "pull", "--pin", filepath.Join(p1, "flowcat.pin"), "-o", p4)
 	if !strings.Contains(out, "identical to") {
-		t.Errorf("pull --lock: %q", out)
+		t.Errorf("pull --pin: %q", out)
 	}
-	for _, f := range lock.Files {
-		a, _ := os.ReadFile(filepath.Join(p1, "data", f.SHA256+".parquet"))
-		b, err := os.ReadFile(filepath.Join(p4, "data", f.SHA256+".parquet"))
-		if err != nil || string(a) != string(b) {
-			t.Fatalf("pull --lock: file %s differs (%v)", f.SHA256, err)
+	must(map[string]string{"FLOWCAT_TOKEN": member, "FLOWCAT_SERVER": other}, "pull", "flow/visits@1", "-o", p4b)
+	want := treeBytes(t, p1)
+	for _, p := range []string{p4, p4b} {
+		if got := treeBytes(t, p); !equalTrees(got, want) {
+			t.Errorf("%s differs from the first pull: %v vs %v", p, keys(got), keys(want))
 		}
 	}
-	// A lock for another server, and a lock whose snapshot id the server does not have.
-	if code, _, errs := run(t, map[string]string{"FLOWCAT_TOKEN": member, "FLOWCAT_SERVER": "http://127.0.0.1:1"}, "pull", "--lock", filepath.Join(p1, "flowcat.lock"), "-o", p4); code != 2 || !strings.Contains(errs, "lock file is for server") {
-		t.Errorf("lock for another server: exit %d %q", code, errs)
+	// A pin names no server: without --server or FLOWCAT_SERVER, a usage error.
+	if code, _, errs := run(t, map[string]string{"FLOWCAT_TOKEN": member, "FLOWCAT_SERVER": ""}, "pull", "--pin", filepath.Join(p1, "flowcat.pin"), "-o", filepath.Join(dir, "p4c")); code != 2 || !strings.Contains(errs, "no server") {
+		t.Errorf("pin without a server: exit %d %q", code, errs)
 	}
+	// The lock file of older releases (flowcat.lock, with its server and
+	// time) is still read: by pull --pin, which takes its server, and by
+	// verify, in a directory that has only it.
+	var old map[string]any
+	json.Unmarshal(lb, &old)
+	delete(old, "pin_version")
+	old["lock_version"], old["server"], old["pulled_at"] = 1, url, "2026-11-30T10:00:00Z"
+	var kept []any
+	for _, f := range old["files"].([]any) {
+		if f.(map[string]any)["path"] != "quality.json" {
+			kept = append(kept, f)
+		}
+	}
+	old["files"] = kept
+	ob, _ := json.Marshal(old)
+	oldLock := writeFile(t, dir, "flowcat.lock", string(ob))
+	p4d := filepath.Join(dir, "p4d")
+	must(map[string]string{"FLOWCAT_TOKEN": member, "FLOWCAT_SERVER": ""}, "pull", "--lock", oldLock, "-o", p4d)
+	os.MkdirAll(filepath.Join(dir, "p4e", "data"), 0o755)
+	os.MkdirAll(filepath.Join(dir, "p4e", "cases"), 0o755)
+	for _, f := range lock.Files {
+		if f.Path != "quality.json" {
+			b, _ := os.ReadFile(filepath.Join(p1, f.Path))
+			os.WriteFile(filepath.Join(dir, "p4e", f.Path), b, 0o644)
+		}
+	}
+	mb, _ := os.ReadFile(filepath.Join(p1, "manifest.json"))
+	os.WriteFile(filepath.Join(dir, "p4e", "manifest.json"), mb, 0o644)
+	os.WriteFile(filepath.Join(dir, "p4e", "flowcat.lock"), ob, 0o644)
+	if out := must(nil, "verify", filepath.Join(dir, "p4e")); !strings.HasPrefix(out, "ok") {
+		t.Errorf("verify of a directory with an old lock file: %q", out)
+	}
+	// A pin whose snapshot id the server does not have.
 	forged := strings.Replace(string(lb), lock.SnapshotID, strings.Repeat("0", 64), 1)
-	fp := writeFile(t, dir, "forged.lock", forged)
-	if code, _, errs := run(t, as(member), "pull", "--lock", fp, "-o", filepath.Join(dir, "p5")); code != 1 || !strings.Contains(errs, "the server's version differs") {
-		t.Errorf("forged lock: exit %d %q", code, errs)
+	fp := writeFile(t, dir, "forged.pin", forged)
+	if code, _, errs := run(t, as(member), "pull", "--pin", fp, "-o", filepath.Join(dir, "p5")); code != 1 || !strings.Contains(errs, "404") {
+		t.Errorf("forged pin: exit %d %q", code, errs)
 	}
 	if _, err := os.Stat(filepath.Join(dir, "p5", "data")); err == nil {
-		t.Error("a refused pull --lock wrote files")
+		t.Error("a refused pull --pin wrote files")
 	}
 
 	// replace-window on the curator side, then publish it.
@@ -157,13 +200,15 @@ func TestSnapshotWorkflow(t *testing.T) {
 		t.Errorf("retract twice: exit %d %q", code, errs)
 	}
 
-	// Garbage collection is for admins; nothing referenced goes.
-	if code, _, errs := run(t, as(curator), "gc"); code != 1 || !strings.Contains(errs, "403") {
-		t.Errorf("curator gc: exit %d %q", code, errs)
+	// The sweep is for admins; nothing referenced goes. The older name
+	// still works.
+	if code, _, errs := run(t, as(curator), "sweep"); code != 1 || !strings.Contains(errs, "403") {
+		t.Errorf("curator sweep: exit %d %q", code, errs)
 	}
-	out = must(as(admin), "gc", "--grace", "0s")
-	if !strings.Contains(out, "deleted 0") {
-		t.Errorf("gc: %q", out)
+	for _, verb := range []string{"sweep", "gc"} {
+		if out = must(as(admin), verb, "--grace", "0s"); !strings.Contains(out, "deleted 0") {
+			t.Errorf("%s: %q", verb, out)
+		}
 	}
 	must(as(curator), "publish", "flow/visits@3")
 	must(as(member), "pull", "flow/visits@3", "-o", filepath.Join(dir, "p7"))
@@ -176,9 +221,9 @@ func TestSnapshotWorkflow(t *testing.T) {
 		t.Errorf("pull of a retracted version over p7: exit %d", code)
 	}
 	must(as(member), "verify", filepath.Join(dir, "p7"))
-	// Pulling another version into it replaces its files.
+	// Pulling another version into it replaces its files, when told to.
 	must(as(curator), "publish", "flow/visits@2")
-	must(as(member), "pull", "flow/visits@2", "-o", filepath.Join(dir, "p7"))
+	must(as(member), "pull", "flow/visits@2", "-o", filepath.Join(dir, "p7"), "--replace")
 	must(as(member), "verify", filepath.Join(dir, "p7"))
 	ents, _ := os.ReadDir(filepath.Join(dir, "p7", "data"))
 	if len(ents) != 2 {
@@ -292,3 +337,52 @@ func TestViewCommands(t *testing.T) {
 }
 
 func firstLine(s string) string { l, _, _ := strings.Cut(s, "\n"); return l }
+
+// forward listens on another loopback address (127.0.0.2) and forwards
+// each connection to addr: the same catalog at a second address.
+func forward(t *testing.T, addr string) string {
+	t.Helper()
+	ln, err := net.Listen("tcp", "127.0.0.2:0")
+	if err != nil {
+		t.Fatalf("a second loopback address: %v", err)
+	}
+	t.Cleanup(func() { ln.Close() })
+	go func() {
+		for {
+			c, err := ln.Accept()
+			if err != nil {
+				return
+			}
+			go func() {
+				defer c.Close()
+				s, err := net.Dial("tcp", addr)
+				if err != nil {
+					return
+				}
+				defer s.Close()
+				go io.Copy(s, c)
+				io.Copy(c, s)
+			}()
+		}
+	}()
+	return "http://" + ln.Addr().String()
+}
+
+// treeBytes maps every file under dir (slash paths) to its bytes.
+func treeBytes(t *testing.T, dir string) map[string]string {
+	t.Helper()
+	out := map[string]string{}
+	filepath.WalkDir(dir, func(p string, d fs.DirEntry, err error) error {
+		if err == nil && !d.IsDir() {
+			b, _ := os.ReadFile(p)
+			rel, _ := filepath.Rel(dir, p)
+			out[filepath.ToSlash(rel)] = string(b)
+		}
+		return nil
+	})
+	return out
+}
+
+func equalTrees(a, b map[string]string) bool { return maps.Equal(a, b) }
+
+func keys(m map[string]string) []string { return slices.Sorted(maps.Keys(m)) }

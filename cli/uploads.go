@@ -49,7 +49,7 @@ func newUploadsCmd(e *env) *cobra.Command {
 				if u.Version > 0 {
 					v = fmt.Sprint(u.Version)
 				}
-				fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d\t%s\t%s\n", u.ID, stamp(u.ReceivedAt), u.Status, v, u.Bytes, u.Filename, note)
+				fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d\t%s\t%s\n", u.ID, stamp(u.ReceivedAt), u.Status, v, u.Bytes, catalog.CleanFilename(u.Filename), note)
 			}
 			return tw.Flush()
 		},

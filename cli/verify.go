@@ -14,7 +14,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/catalog"
 )
 
-// verifyProblem is one way a pulled directory differs from its lock.
+// verifyProblem is one way a pulled directory differs from its pin.
 type verifyProblem struct {
 	Path    string `json:"path"`
 	Problem string `json:"problem"`
@@ -23,19 +23,23 @@ type verifyProblem struct {
 func newVerifyCmd(e *env) *cobra.Command {
 	return &cobra.Command{
 		Use:   "verify DIR",
-		Short: "Check a pulled directory against its lock file and manifest, offline",
-		Args:  cobra.ExactArgs(1),
+		Short: "Check a pulled directory against its pin file and manifest, offline",
+		Long: `Verify checks, without a server, that DIR holds exactly the version its flowcat.pin (or the
+flowcat.lock of older releases) names: manifest.json hashes to the snapshot id, every file the
+manifest lists (and quality.json, the report it names) is there with its sha256, and nothing
+else sits in data/.`,
+		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			dir := args[0]
-			lock, err := readLock(dir)
+			pin, name, err := readPin(dir)
 			if err != nil {
 				return err
 			}
-			probs := verifyDir(dir, lock)
+			probs := verifyDir(dir, pin, name)
 			if e.json {
-				writeJSON(e.stdout, map[string]any{"ok": len(probs) == 0, "dataset": lock.Dataset, "version": lock.Version, "snapshot_id": lock.SnapshotID, "problems": probs})
+				writeJSON(e.stdout, map[string]any{"ok": len(probs) == 0, "dataset": pin.Dataset, "version": pin.Version, "snapshot_id": pin.SnapshotID, "problems": probs})
 			} else if len(probs) == 0 {
-				fmt.Fprintf(e.stdout, "ok: %s@%d, snapshot %s, %d files match\n", lock.Dataset, lock.Version, lock.SnapshotID, len(lock.Files))
+				fmt.Fprintf(e.stdout, "ok: %s@%d, snapshot %s, %d files match\n", pin.Dataset, pin.Version, pin.SnapshotID, len(pin.Files))
 			} else {
 				for _, p := range probs {
 					fmt.Fprintf(e.stdout, "FAIL %s: %s\n", p.Path, p.Problem)
@@ -49,7 +53,9 @@ func newVerifyCmd(e *env) *cobra.Command {
 	}
 }
 
-func verifyDir(dir string, lock *lockFile) []verifyProblem {
+// verifyDir compares dir with its pin (read from the file pinFile) and
+// with the manifest.
+func verifyDir(dir string, pin *pinFile, pinFile string) []verifyProblem {
 	var probs []verifyProblem
 	add := func(path, format string, args ...any) {
 		probs = append(probs, verifyProblem{Path: path, Problem: fmt.Sprintf(format, args...)})
@@ -60,76 +66,68 @@ func verifyDir(dir string, lock *lockFile) []verifyProblem {
 		return probs
 	}
 	sum := sha256.Sum256(mb)
-	if hex.EncodeToString(sum[:]) != lock.SnapshotID {
-		add("manifest.json", "sha256 %x is not the locked snapshot id %s", sum, lock.SnapshotID)
+	if hex.EncodeToString(sum[:]) != pin.SnapshotID {
+		add("manifest.json", "sha256 %x is not the pinned snapshot id %s", sum, pin.SnapshotID)
 	}
 	var m catalog.Manifest
 	if err := json.Unmarshal(mb, &m); err != nil {
 		add("manifest.json", "not a manifest: %v", err)
 		return probs
 	}
-	if m.Dataset != lock.Dataset || m.Version != lock.Version {
-		add("manifest.json", "is %s@%d, the lock says %s@%d", m.Dataset, m.Version, lock.Dataset, lock.Version)
+	if m.Dataset.String() != pin.Dataset || m.Version != pin.Version {
+		add("manifest.json", "is %s@%d, the pin says %s@%d", m.Dataset, m.Version, pin.Dataset, pin.Version)
 	}
-	inManifest := map[string]catalog.FileEntry{}
-	for _, f := range m.Files {
-		inManifest[f.SHA256.String()] = f
+	// What the manifest says the directory holds.
+	want := map[string]pinnedFile{}
+	var order []string
+	for _, f := range m.Blobs() {
+		want[f.Path] = pinnedFile{Path: f.Path, SHA256: f.SHA256.String(), Bytes: f.Bytes, Rows: f.Rows}
+		order = append(order, f.Path)
 	}
-	locked := map[string]bool{}
-	for _, f := range lock.Files {
-		locked[f.SHA256] = true
-		mf, ok := inManifest[f.SHA256]
+	if q := m.Quality; q != nil {
+		want[qualityName] = pinnedFile{Path: qualityName, SHA256: q.SHA256.String(), Bytes: q.Bytes}
+		order = append(order, qualityName)
+	}
+	pinned := map[string]bool{}
+	for _, f := range pin.Files {
+		pinned[f.Path] = true
+		mf, ok := want[f.Path]
 		switch {
 		case !ok:
-			add("flowcat.lock", "lists %s, which the manifest does not", f.SHA256)
-		case f.Bytes != mf.Bytes || f.Rows != mf.Rows:
-			add("flowcat.lock", "says %s has %d bytes and %d rows, the manifest %d and %d", f.SHA256, f.Bytes, f.Rows, mf.Bytes, mf.Rows)
-		}
-		if f.Path != dataPath(f.SHA256) {
-			add("flowcat.lock", "names %s at %q, not at %s", f.SHA256, f.Path, dataPath(f.SHA256))
+			add(pinFile, "lists %s at %q, which the manifest does not", f.SHA256, f.Path)
+		case f.SHA256 != mf.SHA256 || f.Bytes != mf.Bytes || f.Rows != mf.Rows:
+			add(pinFile, "says %s is %s with %d bytes and %d rows, the manifest %s, %d and %d", f.Path, f.SHA256, f.Bytes, f.Rows, mf.SHA256, mf.Bytes, mf.Rows)
 		}
 	}
-	for _, f := range m.Files {
-		if !locked[f.SHA256.String()] {
-			add("flowcat.lock", "does not list manifest file %s", f.SHA256)
+	for _, path := range order {
+		// Older lock files did not list the quality report.
+		if !pinned[path] && !(path == qualityName && pinFile == oldLockName) {
+			add(pinFile, "does not list %s, which the manifest names", path)
 		}
 	}
-	if len(m.Files) != len(lock.Files) {
-		add("flowcat.lock", "lists %d files, the manifest %d", len(lock.Files), len(m.Files))
-	}
-	switch ct, lt := m.CaseTable, lock.CaseTable; {
-	case ct == nil && lt != nil:
-		add("flowcat.lock", "lists a case table, the manifest none")
-	case ct != nil && lt == nil:
-		add("flowcat.lock", "does not list the manifest's case table %s", ct.SHA256)
-	case ct != nil:
-		if lt.SHA256 != ct.SHA256.String() || lt.Bytes != ct.Bytes || lt.Rows != ct.Rows || lt.Path != casesPath(lt.SHA256) {
-			add("flowcat.lock", "case table %s (%d bytes, %d rows at %q) is not the manifest's %s (%d bytes, %d rows)", lt.SHA256, lt.Bytes, lt.Rows, lt.Path, ct.SHA256, ct.Bytes, ct.Rows)
+	// Anything else in data/ or cases/ would be read as part of the
+	// snapshot or its case table.
+	for _, sub := range []string{"data", "cases"} {
+		ents, err := os.ReadDir(filepath.Join(dir, sub))
+		if err != nil {
+			continue
 		}
-		got, err := fileSHA256(filepath.Join(dir, filepath.FromSlash(casesPath(lt.SHA256))))
-		switch {
-		case err != nil:
-			add(lt.Path, "%v", err)
-		case got != lt.SHA256:
-			add(lt.Path, "sha256 is %s, want %s", got, lt.SHA256)
-		}
-	}
-	// Anything else in data/ would be read as part of the snapshot.
-	if ents, err := os.ReadDir(filepath.Join(dir, "data")); err == nil {
 		for _, de := range ents {
-			name := de.Name()
-			if sha, ok := strings.CutSuffix(name, ".parquet"); !ok || !locked[sha] {
-				add("data/"+name, "is not part of the version")
+			if _, ok := want[sub+"/"+de.Name()]; !ok || !strings.HasSuffix(de.Name(), ".parquet") {
+				add(sub+"/"+de.Name(), "is not part of the version")
 			}
 		}
 	}
-	for _, f := range lock.Files {
-		got, err := fileSHA256(filepath.Join(dir, filepath.FromSlash(f.Path)))
+	for _, path := range order {
+		f := want[path]
+		got, err := fileSHA256(filepath.Join(dir, filepath.FromSlash(path)))
 		switch {
+		case err != nil && path == qualityName && pinFile == oldLockName:
+			// pulled by an older release, which kept the report in the manifest
 		case err != nil:
-			add(f.Path, "%v", err)
+			add(path, "%v", err)
 		case got != f.SHA256:
-			add(f.Path, "sha256 is %s, want %s", got, f.SHA256)
+			add(path, "sha256 is %s, want %s", got, f.SHA256)
 		}
 	}
 	return probs

@@ -1,6 +1,9 @@
 package cli
 
 import (
+	"net/url"
+	"strconv"
+
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
@@ -12,11 +15,36 @@ func newVersionsCmd(e *env) *cobra.Command {
 		Short: "List a dataset's versions",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			var vs []catalog.Version
-			if printed, err := e.fetch(cmd, args[0], false, func(r ref) string { return r.path() + "/versions" }, &vs); printed || err != nil {
+			r, err := parseRef(args[0], false)
+			if err != nil {
 				return err
 			}
-			return versionsTable(e, vs)
+			cl, err := e.client()
+			if err != nil {
+				return err
+			}
+			// The server answers a page at a time; follow the pages.
+			hs := []catalog.Version{}
+			after := 0
+			for {
+				var page struct {
+					Versions  []catalog.Version `json:"versions"`
+					NextAfter *int              `json:"next_after"`
+				}
+				q := url.Values{"limit": {strconv.Itoa(catalog.MaxVersionsPage)}, "after": {strconv.Itoa(after)}}
+				if err := cl.getJSONQuery(cmd.Context(), r.path()+"/versions", q, &page); err != nil {
+					return err
+				}
+				hs = append(hs, page.Versions...)
+				if page.NextAfter == nil || *page.NextAfter <= after {
+					break
+				}
+				after = *page.NextAfter
+			}
+			if e.json {
+				return writeJSON(e.stdout, hs)
+			}
+			return versionsTable(e, hs)
 		},
 	}
 }

@@ -21,8 +21,8 @@ const (
 	DefaultGapMinMean       = 5.0
 	DefaultGapMinWeeks      = 3
 	DefaultStaleAfter       = 7 * 24 * time.Hour
-	// DefaultMaxHours is how many hours from a site's first event the
-	// hourly series for the gap check covers (two years).
+	// DefaultMaxHours is how many hours the hourly series of one site
+	// for the gap check holds, over all its runs (two years).
 	DefaultMaxHours = 2 * 366 * 24
 )
 
@@ -89,7 +89,8 @@ type Options struct {
 	// StaleAfter: a site whose newest event is older than this before
 	// UploadedAt is stale. Default [DefaultStaleAfter].
 	StaleAfter time.Duration
-	// MaxHours is how many hours the gap series of one site spans.
+	// MaxHours is how many hours the gap series of one site holds over
+	// all its runs.
 	// Default [DefaultMaxHours].
 	MaxHours int
 	// Historical marks a dataset of past events, not a live feed: it is
@@ -391,10 +392,8 @@ type siteAcc struct {
 	lag    [lagBuckets]int64
 	lagMax int64 // seconds
 	lagN   int64
-	// hourly series
-	hourStart int64 // unix hour of hours[0]
-	hours     []uint32
-	hoursOut  int64 // events beyond the series
+	// hourly series, in runs
+	hours hourAcc
 	// file order
 	fileSeen  bool
 	fileLast  int64
@@ -797,20 +796,7 @@ func lagBounds(b int) (lo, hi int64) {
 
 // countHour adds the event to its site's hourly series.
 func (a *Accumulator) countHour(s *siteAcc, at int64) {
-	h := floorDiv(at, 3600e6)
-	if s.hours == nil {
-		s.hourStart = h
-		s.hours = make([]uint32, 1, 64)
-	}
-	i := h - s.hourStart
-	if i < 0 || i >= int64(a.opt.MaxHours) {
-		s.hoursOut++
-		return
-	}
-	for int64(len(s.hours)) <= i {
-		s.hours = append(s.hours, 0)
-	}
-	s.hours[i]++
+	s.hours.add(floorDiv(at, 3600e6), a.opt.MaxHours)
 }
 
 func floorDiv(a, b int64) int64 {

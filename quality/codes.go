@@ -26,6 +26,7 @@ const (
 	// accuracy
 	CodeLaterThanUpload        = "later_than_upload"
 	CodeOutsideWindow          = "outside_window"
+	CodeFarInstant             = "far_instant"
 	CodeClockBackwards         = "clock_backwards"
 	CodeFileNotTimeOrdered     = "file_not_time_ordered"
 	CodeStartBeforeArrival     = "start_before_arrival"
@@ -101,6 +102,7 @@ var why = map[string]string{
 	CodeSiteChangeWithoutTransfer:         "A case that moves between sites without a transfer event may be two cases sharing an id, which merges their timelines.",
 	CodeCensusNegative:                    "More departures than entries so far means duplicated departures or lost arrivals, so occupancy counts are wrong.",
 	CodeLittlesLawMismatch:                "The mean number in system disagrees with arrival rate times mean time in system, a sign of lost or duplicated arrivals or departures.",
+	CodeFarInstant:                        "An event more than a year away from the rest of its site's events is most likely a mistyped date; it stretches spans and rates computed over time.",
 	CodeGapHour:                           "An hour without events where the site's own history expects many points to a lost part of the export, which lowers rates for that period.",
 	CodeGapDay:                            "A day without events where the site's own history expects many points to a missing export day.",
 	CodeStaleSite:                         "The site's newest event is old, so recent analyses miss it.",

@@ -75,6 +75,8 @@ func derive(rows Rows, rej []RejectionCount, raw Raw, unmapped []string) *Report
 		}
 		sum.gapSamples = appendSamples(sum.gapSamples, set.MaxSamples, d.gapSamples)
 		sum.daySamples = appendSamples(sum.daySamples, set.MaxSamples, d.daySamples)
+		sum.far += d.far
+		sum.farSamples = appendSamples(sum.farSamples, set.MaxSamples, d.farSamples)
 	}
 
 	// Completeness per field and per event type.
@@ -165,6 +167,8 @@ type siteDerived struct {
 	little                 LittleLaw
 	cur                    SiteCurrentness
 	gapSamples, daySamples []Sample
+	far                    int64 // events in runs far from the site's main run
+	farSamples             []Sample
 }
 
 func deriveSite(s *SiteRaw, set *Settings, zone *time.Location) siteDerived {
@@ -201,6 +205,9 @@ func deriveSite(s *SiteRaw, set *Settings, zone *time.Location) siteDerived {
 		med, mx := lagMedian(s.Lag), s.Lag.MaxSeconds
 		cur.LagMedianSeconds, cur.LagMaxSeconds = &med, &mx
 	}
+	// Events far from the site's main run: an accuracy finding, judged
+	// for historical data too.
+	d.far, d.farSamples = farRuns(s.Hours, s.Site, set.MaxSamples)
 	if set.Historical { // past events, not a feed: no currentness judged
 		d.cur = cur
 		return d
@@ -231,35 +238,47 @@ func lagMedian(l LagRaw) int64 {
 // gaps finds the hours and days without events where the site's own
 // history expects some (rule in SCORING.md).
 func gaps(d *siteDerived, s *SiteRaw, set *Settings, zone *time.Location, dates bool) {
-	h := s.Hours
-	if h.Start == nil {
-		return
-	}
-	lo, hi := -1, -1
-	for i, n := range h.Counts {
-		if n > 0 {
-			if lo < 0 {
-				lo = i
-			}
-			hi = i
-		}
-	}
-	if lo < 0 {
-		return
-	}
 	type hour struct {
 		t   time.Time
 		how int
 		n   int64
 	}
-	hs := make([]hour, 0, hi-lo+1)
+	type day struct {
+		t   time.Time
+		dow int
+		n   int64
+	}
 	var occ, sum [7 * 24]int64
-	for i := lo; i <= hi; i++ {
-		t := h.Start.Add(time.Duration(i) * time.Hour).In(zone)
-		how := int(t.Weekday())*24 + t.Hour()
-		occ[how]++
-		sum[how] += h.Counts[i]
-		hs = append(hs, hour{t, how, h.Counts[i]})
+	var hs []hour
+	var days []day
+	// Each run on its own: the silence between runs (more than
+	// RunGapHours) is not judged hour by hour.
+	for _, run := range s.Hours.Runs {
+		first := len(hs)
+		for i, n := range run.Counts {
+			t := run.Start.Add(time.Duration(i) * time.Hour).In(zone)
+			how := int(t.Weekday())*24 + t.Hour()
+			occ[how]++
+			sum[how] += n
+			hs = append(hs, hour{t, how, n})
+		}
+		// Days: the local days of the run strictly between its first
+		// and its last.
+		var rd []day
+		for _, x := range hs[first:] {
+			y, m, dd := x.t.Date()
+			if len(rd) > 0 {
+				last := &rd[len(rd)-1]
+				if ly, lm, ld := last.t.Date(); ly == y && lm == m && ld == dd {
+					last.n += x.n
+					continue
+				}
+			}
+			rd = append(rd, day{time.Date(y, m, dd, 0, 0, 0, 0, zone), int(x.t.Weekday()), x.n})
+		}
+		if len(rd) > 2 {
+			days = append(days, rd[1:len(rd)-1]...)
+		}
 	}
 	expects := func(occ, sum int64) bool {
 		return occ >= int64(set.GapMinWeeks) && float64(sum)/float64(occ) >= set.GapMinMean
@@ -276,30 +295,6 @@ func gaps(d *siteDerived, s *SiteRaw, set *Settings, zone *time.Location, dates 
 			}
 		}
 	}
-	// Days: the local days strictly between the first and the last.
-	type day struct {
-		t   time.Time
-		dow int
-		n   int64
-	}
-	var days []day
-	for _, x := range hs {
-		y, m, dd := x.t.Date()
-		if len(days) == 0 {
-			days = append(days, day{time.Date(y, m, dd, 0, 0, 0, 0, zone), int(x.t.Weekday()), x.n})
-			continue
-		}
-		last := &days[len(days)-1]
-		if ly, lm, ld := last.t.Date(); ly == y && lm == m && ld == dd {
-			last.n += x.n
-		} else {
-			days = append(days, day{time.Date(y, m, dd, 0, 0, 0, 0, zone), int(x.t.Weekday()), x.n})
-		}
-	}
-	if len(days) <= 2 {
-		return
-	}
-	days = days[1 : len(days)-1]
 	var docc, dsum [7]int64
 	for _, x := range days {
 		docc[x.dow]++
@@ -566,6 +561,7 @@ func findings(r *Report, all *SiteRaw, sum *siteDerived, set *Settings, rejected
 	}
 	add(DimAccuracy, finding(CodeCaseTooLong, c[CodeCaseTooLong], st.Cases, "cases", smp[CodeCaseTooLong]), false)
 	add(DimAccuracy, finding(CodeServiceTooLong, c[CodeServiceTooLong], all.ByType[schema.Complete].Events, "completes", smp[CodeServiceTooLong]), false)
+	add(DimAccuracy, finding(CodeFarInstant, sum.far, rows.Accepted, "accepted rows", sum.farSamples), false)
 	add(DimAccuracy, finding(CodeSameInstantOrder, c[CodeSameInstantOrder], rows.Accepted, "accepted rows", smp[CodeSameInstantOrder]), false)
 	add(DimAccuracy, finding(CodeSameInstant, c[CodeSameInstant], rows.Accepted, "accepted rows", smp[CodeSameInstant]), true)
 	for _, h := range r.Resolution.Heaping {

@@ -5,13 +5,14 @@
 // merges per-upload reports into version reports, builds trend points per
 // site and raises drift alerts.
 //
-// An [Accumulator] sees each accepted event twice, in file order
-// ([Accumulator.ObserveFileOrder], for the clock check) and then in time
-// order ([Accumulator.Observe], after the ingest's sort), and holds only
-// bounded state: counters per site, a few sample locations per finding,
-// the events of the current instant, a record per case active within the
-// horizon, the event ids of the last day and the open service intervals
-// per resource. [Accumulator.Report] yields the [Report], whose JSON form
+// An [Accumulator] sees each accepted event three times: in file order
+// ([Accumulator.ObserveFileOrder], for the clock check), in time order
+// ([Accumulator.Observe], after the ingest's sort) and grouped by case
+// ([Accumulator.Event] and [Accumulator.Case], as an observer of the one
+// per-case computation of package cases). It holds only bounded state:
+// counters per site, a few sample locations per finding, the events of the
+// current instant, the case in hand, the event ids of the last day and the
+// open service intervals per resource. [Accumulator.Report] yields the [Report], whose JSON form
 // is versioned by [ReportVersion] and documented in SCORING.md beside
 // this file; [MergeReports] combines reports from their raw counts.
 //

@@ -3,6 +3,7 @@ package quality
 import (
 	"bytes"
 	"encoding/json"
+	"fmt"
 	"reflect"
 	"slices"
 	"strings"
@@ -91,6 +92,11 @@ func TestPlantedDefects(t *testing.T) {
 	want := expected(n, future, early)
 	want[CodeClockBackwards] = 1
 	want[CodeStaleSite] = 2 // south and east end in March; north has the future arrivals
+	// North's first weekend (2-3 March) is busy, so its later weekend days
+	// in the same run without events are gaps: 9, 10, 16, 17, 23, 24, 30
+	// and 31 March. The 2025 arrivals are a run of their own and do not
+	// dilute what a weekday is expected to hold.
+	want[CodeGapDay] = 8
 	for _, rc := range rej {
 		want[string(rc.Reason)]++
 	}
@@ -433,7 +439,7 @@ func TestText(t *testing.T) {
 	if !strings.Contains(color.String(), "\x1b[") {
 		t.Error("no colour")
 	}
-	for _, want := range []string{"quality report v2", "site", "(all)", "north", "exact_duplicate", "resource_overlap", "accuracy",
+	for _, want := range []string{"quality report v4", "site", "(all)", "north", "exact_duplicate", "resource_overlap", "accuracy",
 		"what the findings mean", "exact_duplicate: " + whyOf(CodeExactDuplicate), "first rejected rows", "bad_timestamp: line 3"} {
 		if !strings.Contains(plain.String(), want) {
 			t.Errorf("text lacks %q:\n%s", want, plain.String())
@@ -449,5 +455,51 @@ func TestNoValuesInReport(t *testing.T) {
 		if bytes.Contains(b, []byte(v)) {
 			t.Errorf("report holds value %s", v)
 		}
+	}
+}
+
+// TestMergeManyNames merges reports with many unmapped columns, queues
+// and sites. A merge that searched a list for each name would take
+// quadratic time here (10^10 comparisons) and not finish within the test
+// timeout; the result must be the exact union.
+func TestMergeManyNames(t *testing.T) {
+	const n = 100000
+	mk := func(off int) *Report {
+		r := run(fixtureOptions(), nil, nil, nil)
+		r.UnmappedColumns = nil
+		for i := range n {
+			r.UnmappedColumns = append(r.UnmappedColumns, fmt.Sprintf("col-%07d", off+i))
+		}
+		r.Raw.Waits = nil
+		for i := range n {
+			r.Raw.Waits = append(r.Raw.Waits, WaitRaw{Queue: fmt.Sprintf("q-%07d", off+i), Activity: "a", Waits: 1})
+		}
+		return r
+	}
+	m, err := MergeReports(mk(0), mk(n/2))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(m.UnmappedColumns) != n+n/2 || m.UnmappedColumns[0] != "col-0000000" || m.UnmappedColumns[len(m.UnmappedColumns)-1] != fmt.Sprintf("col-%07d", n+n/2-1) {
+		t.Errorf("%d unmapped columns, %q .. %q", len(m.UnmappedColumns), m.UnmappedColumns[0], m.UnmappedColumns[len(m.UnmappedColumns)-1])
+	}
+	var waits int64
+	for _, w := range m.Raw.Waits {
+		waits += w.Waits
+	}
+	if len(m.Raw.Waits) != n+n/2 || waits != 2*n {
+		t.Errorf("%d wait groups holding %d waits, want %d and %d", len(m.Raw.Waits), waits, n+n/2, 2*n)
+	}
+}
+
+// TestMergeHoursFarApart: hour series more than 292 years apart (the
+// reach of a time.Duration) merge as two runs at their true starts, not
+// as one series of the 2.6 million hours between.
+func TestMergeHoursFarApart(t *testing.T) {
+	a := time.Date(1700, 1, 1, 0, 0, 0, 0, time.UTC)
+	b := time.Date(2000, 1, 1, 5, 0, 0, 0, time.UTC)
+	m := mergeHours(HourSeries{Runs: []HourRun{{Start: b, Counts: []int64{2}}}}, HourSeries{Runs: []HourRun{{Start: a, Counts: []int64{1}}}})
+	if len(m.Runs) != 2 || !m.Runs[0].Start.Equal(a) || !m.Runs[1].Start.Equal(b) || m.Runs[0].Counts[0] != 1 || m.Runs[1].Counts[0] != 2 || len(m.Runs[0].Counts)+len(m.Runs[1].Counts) != 2 {
+		t.Errorf("merged runs %+v; want 1700-01-01 [1] and 2000-01-01T05 [2]", m.Runs)
 	}
 }

@@ -158,13 +158,6 @@ type LagRaw struct {
 	Buckets    map[int]int64 `json:"buckets"`
 }
 
-// HourSeries counts events per UTC hour from Start.
-type HourSeries struct {
-	Start  *time.Time `json:"start,omitempty"`
-	Counts []int64    `json:"counts"`
-	Beyond int64      `json:"beyond"` // events outside the series' span
-}
-
 // WaitRaw counts the waits of one (queue, activity).
 type WaitRaw struct {
 	Queue     string `json:"queue"`
@@ -187,11 +180,12 @@ var ErrIncompatible = errors.New("incompatible reports")
 // seen. The settings of the first report apply.
 func MergeReports(rs ...*Report) (*Report, error) {
 	var out *Report
+	var unmapped map[string]bool // out.UnmappedColumns, as a set
 	for i, r := range rs {
 		if r == nil {
 			continue
 		}
-		if r.Version != ReportVersion {
+		if r.Version != ReportVersion && r.Version != "3" && r.Version != "2" { // 2: hours as one dense series, read into runs
 			return nil, fmt.Errorf("merge: report %d has format %q, want %q: %w", i, r.Version, ReportVersion, ErrIncompatible)
 		}
 		if out == nil {
@@ -215,8 +209,15 @@ func MergeReports(rs ...*Report) (*Report, error) {
 			out.Rejections[j].Count += rc.Count
 			out.Rejections[j].Samples = appendSamples(out.Rejections[j].Samples, max, rc.Samples)
 		}
+		if unmapped == nil {
+			unmapped = make(map[string]bool, len(out.UnmappedColumns))
+			for _, c := range out.UnmappedColumns {
+				unmapped[c] = true
+			}
+		}
 		for _, c := range r.UnmappedColumns {
-			if !slices.Contains(out.UnmappedColumns, c) {
+			if !unmapped[c] {
+				unmapped[c] = true
 				out.UnmappedColumns = append(out.UnmappedColumns, c)
 			}
 		}
@@ -278,9 +279,16 @@ func mergeRaw(dst, src *Raw) {
 	for _, k := range sortedKeys(src.Samples) {
 		dst.Samples[k] = appendSamples(dst.Samples[k], max, src.Samples[k])
 	}
+	// Indexes by name keep a merge linear in the number of queues and
+	// sites, however many there are.
+	wi := make(map[[2]string]int, len(dst.Waits))
+	for j, w := range dst.Waits {
+		wi[[2]string{w.Queue, w.Activity}] = j
+	}
 	for _, w := range src.Waits {
-		j := slices.IndexFunc(dst.Waits, func(x WaitRaw) bool { return x.Queue == w.Queue && x.Activity == w.Activity })
-		if j < 0 {
+		j, ok := wi[[2]string{w.Queue, w.Activity}]
+		if !ok {
+			wi[[2]string{w.Queue, w.Activity}] = len(dst.Waits)
 			dst.Waits = append(dst.Waits, WaitRaw{Queue: w.Queue, Activity: w.Activity})
 			j = len(dst.Waits) - 1
 		}
@@ -288,10 +296,15 @@ func mergeRaw(dst, src *Raw) {
 		dst.Waits[j].NoEnqueue += w.NoEnqueue
 		dst.Waits[j].NoStart += w.NoStart
 	}
+	si := make(map[string]int, len(dst.Sites))
+	for j := range dst.Sites {
+		si[dst.Sites[j].Site] = j
+	}
 	for i := range src.Sites {
 		s := &src.Sites[i]
-		j := slices.IndexFunc(dst.Sites, func(x SiteRaw) bool { return x.Site == s.Site })
-		if j < 0 {
+		j, ok := si[s.Site]
+		if !ok {
+			si[s.Site] = len(dst.Sites)
 			dst.Sites = append(dst.Sites, SiteRaw{Site: s.Site, Counts: map[string]int64{},
 				NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{}})
 			j = len(dst.Sites) - 1
@@ -355,34 +368,6 @@ func mergeSite(d, s *SiteRaw) {
 	d.Hours = mergeHours(d.Hours, s.Hours)
 	d.FileRows += s.FileRows
 	d.FileBackSteps += s.FileBackSteps
-}
-
-func mergeHours(a, b HourSeries) HourSeries {
-	if b.Start == nil {
-		a.Beyond += b.Beyond
-		if a.Counts == nil {
-			a.Counts = []int64{}
-		}
-		return a
-	}
-	if a.Start == nil {
-		return HourSeries{Start: b.Start, Counts: slices.Clone(b.Counts), Beyond: a.Beyond + b.Beyond}
-	}
-	start := *a.Start
-	if b.Start.Before(start) {
-		start = *b.Start
-	}
-	offA := int(a.Start.Sub(start) / time.Hour)
-	offB := int(b.Start.Sub(start) / time.Hour)
-	n := max(offA+len(a.Counts), offB+len(b.Counts))
-	out := make([]int64, n)
-	for i, v := range a.Counts {
-		out[offA+i] += v
-	}
-	for i, v := range b.Counts {
-		out[offB+i] += v
-	}
-	return HourSeries{Start: &start, Counts: out, Beyond: a.Beyond + b.Beyond}
 }
 
 // caseCodes are the findings counted per case or per wait rather than per

@@ -13,7 +13,14 @@ import (
 // ReportVersion is the version of the report's JSON format. Adding a
 // finding code or an object member keeps the version; renaming or
 // removing one, or changing a formula, bumps it.
-const ReportVersion = "2"
+//
+// Version 3 holds each site's hourly series in runs (raw.hours.runs)
+// rather than as one dense series from the first event. Version 4 counts
+// Little's law by entries and exits (little.entries, little.exits and
+// raw census entries, exits, stayed_seconds, recomputed by every per-case
+// pass), completeness over the events a field applies to, and date-only
+// resolution. Reports of versions 2 and 3 are still read and merged.
+const ReportVersion = "4"
 
 // Report is the quality report of one upload, or of several merged by
 // [MergeReports]. Everything but Raw, Rows, Rejections and
@@ -433,13 +440,7 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 			r.Lag.Buckets[b] = n
 		}
 	}
-	r.Hours = HourSeries{Counts: make([]int64, len(s.hours)), Beyond: s.hoursOut}
-	if len(s.hours) > 0 {
-		r.Hours.Start = timePtr(time.Unix(s.hourStart*3600, 0))
-	}
-	for i, n := range s.hours {
-		r.Hours.Counts[i] = int64(n)
-	}
+	r.Hours = s.hours.series()
 	return r
 }
 

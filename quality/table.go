@@ -1,11 +1,11 @@
 package quality
 
-// table maps 64-bit keys to records. It is an open-addressing table with
-// linear probing, which costs one cache line per lookup where a Go map,
-// needing a read and a write, costs several; the per-case check runs on
-// every event. Key 0 marks an empty slot. rec is the record's latest
-// instant (microseconds after the file's first), which sweeps test; v is
-// the rest of the record.
+// table is a set of 64-bit keys, each with the latest instant it was seen
+// (rec, microseconds after the file's first), which sweeps test. It is an
+// open-addressing table with linear probing, which costs one cache line
+// per lookup where a Go map, needing a read and a write, costs several;
+// the event-id check runs on every event. Key 0 marks an empty slot. (V
+// is unused: the table once held per-case records too.)
 type table[V any] struct {
 	slots []slot[V]
 	mask  uint64
@@ -14,7 +14,6 @@ type table[V any] struct {
 
 type slot[V any] struct {
 	key, rec uint64
-	v        V
 }
 
 const minTableSize = 1024
@@ -83,15 +82,6 @@ func (t *table[V]) sweep(drop func(s *slot[V]) bool) {
 	}
 	if len(t.slots) > minTableSize && 8*t.n < len(t.slots) {
 		t.resize(max(minTableSize, len(t.slots)/4))
-	}
-}
-
-// each calls f for every record held.
-func (t *table[V]) each(f func(s *slot[V])) {
-	for i := range t.slots {
-		if t.slots[i].key != 0 {
-			f(&t.slots[i])
-		}
 	}
 }
 

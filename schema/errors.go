@@ -28,6 +28,10 @@ const (
 	RuleSyntax          = "syntax"           // the file cannot be parsed at all in its declared format
 	RuleProfile         = "profile"          // the profile itself is invalid
 	RuleRead            = "read"             // the byte stream failed (client went away, disk error)
+	RuleLineTooLong     = "line_too_long"    // a line is longer than Limits.MaxLineBytes
+	RuleTooManyColumns  = "too_many_columns" // the header has more fields than Limits.MaxColumns
+	RuleTooManyBytes    = "too_many_bytes"   // the file decompresses to more than Limits.MaxBytes
+	RuleTooManyRows     = "too_many_rows"    // the file has more data rows than Limits.MaxRows
 )
 
 func (e *FileError) Error() string {

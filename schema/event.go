@@ -45,12 +45,14 @@ func ParseEventType(s string) (EventType, error) {
 }
 
 // Event is one row of the service-event schema v1: one thing that happened
-// to one case at one instant. The struct tags give its Parquet layout; the
-// identifier fields hold pseudonyms once an event has passed anonymize.
+// to one case at one instant. The struct tags give its Parquet layout:
+// PLAIN or dictionary (RLE_DICTIONARY) encodings only, which every
+// mainstream Parquet reader decodes (DEVELOPERS.md has the measurements);
+// the identifier fields hold pseudonyms once an event has passed anonymize.
 type Event struct {
 	Site       string    `parquet:"site,dict" json:"site"`
-	CaseID     string    `parquet:"case_id" json:"case_id"`
-	SubjectID  string    `parquet:"subject_id,optional" json:"subject_id,omitempty"`
+	CaseID     string    `parquet:"case_id,dict" json:"case_id"`
+	SubjectID  string    `parquet:"subject_id,optional,dict" json:"subject_id,omitempty"`
 	ResourceID string    `parquet:"resource_id,optional,dict" json:"resource_id,omitempty"`
 	Type       EventType `parquet:"event_type,dict" json:"event_type"`
 	Activity   string    `parquet:"activity,optional,dict" json:"activity,omitempty"`
@@ -59,7 +61,7 @@ type Event struct {
 	Priority   string    `parquet:"priority,optional,dict" json:"priority,omitempty"`
 	Channel    string    `parquet:"channel,optional,dict" json:"channel,omitempty"`
 	Outcome    string    `parquet:"outcome,optional,dict" json:"outcome,omitempty"`
-	EventID    string    `parquet:"event_id,optional" json:"event_id,omitempty"`
+	EventID    string    `parquet:"event_id,optional,plain" json:"event_id,omitempty"`
 
 	// Line is the 1-based line (CSV/TSV record start or JSON Lines line) of
 	// the source file the event came from. It is not stored in snapshots.
@@ -112,7 +114,8 @@ func (f Field) Identifier() bool {
 }
 
 // Value returns the text value of field f of e; occurred_at is formatted as
-// RFC 3339 with microseconds in UTC, and empty when unset.
+// RFC 3339 with microseconds in UTC (every event has one: the zero
+// time.Time is 0001-01-01T00:00:00Z, a valid instant).
 func (e *Event) Value(f Field) string {
 	switch f {
 	case FieldSite:
@@ -130,9 +133,6 @@ func (e *Event) Value(f Field) string {
 	case FieldQueue:
 		return e.Queue
 	case FieldOccurredAt:
-		if e.OccurredAt.IsZero() {
-			return ""
-		}
 		return e.OccurredAt.UTC().Format("2006-01-02T15:04:05.000000Z")
 	case FieldPriority:
 		return e.Priority

@@ -14,7 +14,9 @@ import (
 
 	"github.com/goccy/go-yaml"
 	"github.com/goccy/go-yaml/ast"
+	"github.com/goccy/go-yaml/lexer"
 	"github.com/goccy/go-yaml/parser"
+	"github.com/goccy/go-yaml/token"
 )
 
 // ErrInvalidProfile is wrapped by every error of ParseProfile and of
@@ -73,10 +75,14 @@ type Mapping struct {
 // Build one with ParseProfile or DefaultProfile; a Profile assembled by
 // hand is validated again by NewReader.
 type Profile struct {
-	Format    Format            `json:"format"`
-	Delimiter string            `json:"delimiter,omitempty"` // CSV/TSV: one character
-	Quote     string            `json:"quote,omitempty"`     // CSV/TSV: `"` (RFC 4180)
-	Timezone  string            `json:"timezone"`            // IANA zone name of wall-clock times
+	Format    Format `json:"format"`
+	Delimiter string `json:"delimiter,omitempty"` // CSV/TSV: one character
+	Quote     string `json:"quote,omitempty"`     // CSV/TSV: `"` (RFC 4180)
+	// Multiline lets a quoted CSV/TSV field hold line breaks (RFC 4180
+	// section 2, rule 6), within bounds; nil means every record is one
+	// line, so a stray quote costs only its own line.
+	Multiline *Multiline        `json:"multiline,omitempty"`
+	Timezone  string            `json:"timezone"` // IANA zone name of wall-clock times
 	LocalTime LocalTimePolicy   `json:"local_time"`
 	Fields    map[Field]Mapping `json:"fields"`
 	// Terminal names event types that end a case's presence at its site
@@ -90,15 +96,32 @@ type Profile struct {
 	loc *time.Location
 }
 
+// Multiline bounds a record whose quoted fields hold line breaks.
+type Multiline struct {
+	MaxLines int `json:"max_lines"` // physical lines one record may span (default 50)
+	MaxBytes int `json:"max_bytes"` // bytes of one record, line breaks included (default 64 KiB)
+}
+
+// Multiline defaults and ceilings.
+const (
+	DefaultMultilineLines = 50
+	DefaultMultilineBytes = 64 << 10
+	maxMultilineLines     = 10000
+	maxMultilineBytes     = 16 << 20
+)
+
 // DefaultProfile returns the profile of a file that already speaks the
 // schema: a comma-separated CSV whose header uses the schema field names,
-// RFC 3339 timestamps (auto-detected), wall-clock times in UTC. Required
-// fields must be present as columns; optional ones are used when present.
+// RFC 3339 timestamps (auto-detected), wall-clock times in UTC, quoted
+// fields that may hold line breaks (as flowcat's own CSV export writes
+// them) within the default multi-line bounds. Required fields must be
+// present as columns; optional ones are used when present.
 func DefaultProfile() *Profile {
 	p := &Profile{
 		Format:    FormatCSV,
 		Delimiter: ",",
 		Quote:     `"`,
+		Multiline: &Multiline{MaxLines: DefaultMultilineLines, MaxBytes: DefaultMultilineBytes},
 		Timezone:  "UTC",
 		LocalTime: LocalTimePolicy{}.normalized(),
 		Fields:    make(map[Field]Mapping, len(Fields)),
@@ -117,6 +140,10 @@ func (p *Profile) clone() *Profile {
 	q.Fields = make(map[Field]Mapping, len(p.Fields))
 	for f, m := range p.Fields {
 		q.Fields[f] = m
+	}
+	if p.Multiline != nil {
+		ml := *p.Multiline
+		q.Multiline = &ml
 	}
 	return &q
 }
@@ -145,10 +172,46 @@ func (p *Profile) Hash() string {
 	return hex.EncodeToString(sum[:])
 }
 
-// ParseProfile reads a YAML mapping profile. It is strict: unknown keys,
-// unknown fields, bad layouts, unknown zones and unmapped required fields
-// are errors (a *ProfileError naming the YAML line where it can).
+// ProfileLimits bound the YAML text of a profile. A profile is a few
+// dozen lines; the bounds keep a hostile one cheap: the YAML parser's
+// memory grows with the square of the nesting depth (measured: 8,000
+// levels of "- " in 16 KB cost 100 MB). A zero field takes its default.
+type ProfileLimits struct {
+	MaxBytes int // size of the YAML text (default 256 KiB)
+	MaxDepth int // nesting of mappings and sequences (default 16)
+}
+
+// Default profile limits; see ProfileLimits.
+const (
+	DefaultProfileBytes = 256 << 10
+	DefaultProfileDepth = 16
+)
+
+// ParseProfile reads a YAML mapping profile within the default
+// ProfileLimits. It is strict: unknown keys, unknown fields, bad layouts,
+// unknown zones and unmapped required fields are errors (a *ProfileError
+// naming the YAML line where it can).
 func ParseProfile(data []byte) (*Profile, error) {
+	return ParseProfileLimits(data, ProfileLimits{})
+}
+
+// ParseProfileLimits is ParseProfile within lim. A profile over a limit
+// is a *ProfileError whose message names it ("max profile bytes", "max
+// profile depth"); the depth is measured on the YAML tokens before the
+// text is parsed.
+func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
+	if lim.MaxBytes <= 0 {
+		lim.MaxBytes = DefaultProfileBytes
+	}
+	if lim.MaxDepth <= 0 {
+		lim.MaxDepth = DefaultProfileDepth
+	}
+	if len(data) > lim.MaxBytes {
+		return nil, &ProfileError{Msg: fmt.Sprintf("the profile is %d bytes, over the limit of %s (max profile bytes)", len(data), sizeText(int64(lim.MaxBytes)))}
+	}
+	if d, ln := yamlDepth(lexer.Tokenize(string(data))); d > lim.MaxDepth {
+		return nil, &ProfileError{Line: ln, Msg: fmt.Sprintf("the profile nests deeper than %d levels (max profile depth)", lim.MaxDepth)}
+	}
 	file, err := parser.ParseBytes(data, 0)
 	if err != nil {
 		pe := &ProfileError{Msg: "not valid YAML"}
@@ -202,6 +265,12 @@ func ParseProfile(data []byte) (*Profile, error) {
 				return nil, err
 			}
 			p.Quote = s
+		case "multiline":
+			ml, err := multilineSetting(kv.value, lines)
+			if err != nil {
+				return nil, err
+			}
+			p.Multiline = ml
 		case "timezone":
 			s, err := scalar(kv.value, kv.key)
 			if err != nil {
@@ -247,7 +316,7 @@ func ParseProfile(data []byte) (*Profile, error) {
 			}
 			p.Terminal = ts
 		default:
-			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, timezone, local_time, terminal, resource_capacity or fields)"}
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity or fields)"}
 		}
 	}
 	if fieldsNode == nil {
@@ -312,12 +381,29 @@ func (p *Profile) validate(lines map[string]int) error {
 		if p.Quote != `"` {
 			return at("quote", `must be '"' (RFC 4180 quoting; a stray quote rejects its row as malformed_row)`)
 		}
+		if ml := p.Multiline; ml != nil {
+			if ml.MaxLines == 0 {
+				ml.MaxLines = DefaultMultilineLines
+			}
+			if ml.MaxBytes == 0 {
+				ml.MaxBytes = DefaultMultilineBytes
+			}
+			if ml.MaxLines < 2 || ml.MaxLines > maxMultilineLines {
+				return at("multiline.max_lines", fmt.Sprintf("must be 2 to %d", maxMultilineLines))
+			}
+			if ml.MaxBytes < 1 || ml.MaxBytes > maxMultilineBytes {
+				return at("multiline.max_bytes", fmt.Sprintf("must be 1 to %d", maxMultilineBytes))
+			}
+		}
 	case FormatJSONL:
 		if p.Delimiter != "" {
 			return at("delimiter", "only for csv and tsv")
 		}
 		if p.Quote != "" {
 			return at("quote", "only for csv and tsv")
+		}
+		if p.Multiline != nil {
+			return at("multiline", "only for csv and tsv (a JSON Lines record is one line)")
 		}
 	default:
 		return at("format", fmt.Sprintf("unknown format %q (want csv, tsv or jsonl)", clip(string(p.Format))))
@@ -434,6 +520,46 @@ func (p *Profile) validate(lines map[string]int) error {
 	return nil
 }
 
+// yamlDepth returns the nesting depth of YAML tokens and the line where it
+// is greatest: flow collections ([ and {) count one level each, and block
+// collections one per indentation column in force, the column of a
+// sequence entry "-" or of a mapping key.
+func yamlDepth(tks token.Tokens) (depth, line int) {
+	flow := 0
+	var cols []int // block columns in force, increasing
+	for i, tk := range tks {
+		if tk == nil || tk.Position == nil {
+			continue
+		}
+		switch tk.Type {
+		case token.SequenceStartType, token.MappingStartType:
+			flow++
+		case token.SequenceEndType, token.MappingEndType:
+			if flow > 0 {
+				flow--
+			}
+		case token.SequenceEntryType, token.MappingKeyType, token.MappingValueType:
+			if flow > 0 {
+				break
+			}
+			col := tk.Position.Column
+			if tk.Type == token.MappingValueType && i > 0 && tks[i-1] != nil && tks[i-1].Position != nil {
+				col = tks[i-1].Position.Column // the key's column
+			}
+			for len(cols) > 0 && cols[len(cols)-1] > col {
+				cols = cols[:len(cols)-1]
+			}
+			if len(cols) == 0 || cols[len(cols)-1] < col {
+				cols = append(cols, col)
+			}
+		}
+		if d := len(cols) + flow; d > depth {
+			depth, line = d, tk.Position.Line
+		}
+	}
+	return depth, line
+}
+
 // keyValue is one entry of a YAML mapping.
 type keyValue struct {
 	key   string
@@ -524,6 +650,52 @@ func terminalTypes(n ast.Node, key string) ([]EventType, error) {
 		}
 	}
 	return out, nil
+}
+
+// multilineSetting reads "multiline: true|false" or a mapping of
+// max_lines and max_bytes; defaults are filled in by validate.
+func multilineSetting(n ast.Node, lines map[string]int) (*Multiline, error) {
+	switch n.(type) {
+	case *ast.MappingNode, *ast.MappingValueNode:
+	default:
+		s, err := scalar(n, "multiline")
+		if err != nil {
+			return nil, err
+		}
+		switch s {
+		case "true":
+			return &Multiline{}, nil
+		case "false":
+			return nil, nil
+		}
+		return nil, &ProfileError{Line: line(n), Key: "multiline", Msg: "want true, false or a mapping of max_lines and max_bytes"}
+	}
+	kvs, err := mapping(n, "multiline")
+	if err != nil {
+		return nil, err
+	}
+	ml := &Multiline{}
+	for _, kv := range kvs {
+		key := "multiline." + kv.key
+		lines[key] = kv.line
+		s, err := scalar(kv.value, key)
+		if err != nil {
+			return nil, err
+		}
+		v, ok := digits(s)
+		if !ok || len(s) == 0 || len(s) > 9 || v == 0 {
+			return nil, &ProfileError{Line: kv.line, Key: key, Msg: "must be a positive whole number"}
+		}
+		switch kv.key {
+		case "max_lines":
+			ml.MaxLines = v
+		case "max_bytes":
+			ml.MaxBytes = v
+		default:
+			return nil, &ProfileError{Line: kv.line, Key: key, Msg: "unknown key (want max_lines or max_bytes)"}
+		}
+	}
+	return ml, nil
 }
 
 func fieldMapping(n ast.Node, key string, lines map[string]int) (Mapping, error) {

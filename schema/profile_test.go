@@ -7,6 +7,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/goccy/go-yaml/lexer"
 )
 
 const fullProfile = `
@@ -274,3 +276,46 @@ func mustJSON(t *testing.T, v any) []byte {
 	}
 	return b
 }
+
+// TestProfileLimits: an oversized or deeply nested profile is refused by
+// name before the YAML parser sees it; the depth of ordinary profiles is
+// well inside the limit.
+func TestProfileLimits(t *testing.T) {
+	deep := func(unit string, n int) string { return "fields: " + strings.Repeat(unit, n) + "x" }
+	var indent strings.Builder
+	indent.WriteString("fields:\n")
+	for i := 1; i < 40; i++ {
+		indent.WriteString(strings.Repeat(" ", i) + "k:\n")
+	}
+	for _, tc := range []struct {
+		name string
+		yaml string
+		msg  string
+	}{
+		{"too large", "# " + strings.Repeat("x", DefaultProfileBytes) + "\n" + testProfileYAML, "max profile bytes"},
+		{"block sequences", deep("- ", 80000), "max profile depth"},
+		{"flow sequences", deep("[", 80000), "max profile depth"},
+		{"flow mappings", deep("{a: ", 50000), "max profile depth"},
+		{"indented mappings", indent.String(), "max profile depth"},
+	} {
+		_, err := ParseProfile([]byte(tc.yaml))
+		var pe *ProfileError
+		if !errors.As(err, &pe) || !strings.Contains(pe.Msg, tc.msg) || !errors.Is(err, ErrInvalidProfile) {
+			t.Errorf("%s: got %v, want a profile error naming %q", tc.name, err, tc.msg)
+		}
+	}
+	// Ordinary profiles, in block and in flow style, pass.
+	for _, y := range []string{testProfileYAML, exampleProfileFlow} {
+		if d, _ := yamlDepth(lexer.Tokenize(y)); d > 6 {
+			t.Errorf("an ordinary profile measures depth %d", d)
+		}
+		if _, err := ParseProfile([]byte(y)); err != nil {
+			t.Error(err)
+		}
+	}
+	if _, err := ParseProfileLimits([]byte(testProfileYAML), ProfileLimits{MaxDepth: 2}); err == nil || !strings.Contains(err.Error(), "deeper than 2 levels") {
+		t.Errorf("a set depth limit: %v", err)
+	}
+}
+
+const exampleProfileFlow = `{format: csv, timezone: UTC, fields: {site: {value: s}, case_id: c, event_type: {column: t, codes: {A: arrival}}, occurred_at: {column: at, layout: "%Y-%m-%d"}}}`

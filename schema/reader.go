@@ -4,21 +4,14 @@ import (
 	"bufio"
 	"bytes"
 	"compress/gzip"
-	"encoding/csv"
 	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
-	"math"
 	"slices"
 	"strings"
 	"unicode/utf8"
 )
-
-// maxRecordBytes bounds one CSV record or JSON line. An unclosed quote
-// would otherwise make one "record" of the rest of the file and hold it in
-// memory.
-const maxRecordBytes = 16 << 20
 
 // internCap bounds each field's intern table, so a high-cardinality column
 // costs no more than a fixed amount of memory.
@@ -31,11 +24,12 @@ const internMaxLen = 64
 // maxUnmappedKeys caps the JSON Lines keys Unmapped reports.
 const maxUnmappedKeys = 100
 
-var errRecordTooLong = errors.New("record too long")
+var errTooManyBytes = errors.New("too many bytes")
 
 // ReaderOptions are the settings of NewReader; the zero value is usable.
 type ReaderOptions struct {
-	Name string // file name, for messages
+	Name   string // file name, for messages
+	Limits Limits // zero fields take the defaults
 }
 
 // Reader streams typed events out of one source file through a profile.
@@ -44,6 +38,7 @@ type ReaderOptions struct {
 type Reader struct {
 	p    *Profile
 	name string
+	lim  Limits
 	tp   timeParser
 	cols [len(fieldsArray)]column
 
@@ -52,10 +47,10 @@ type Reader struct {
 	guard *guardReader
 
 	// CSV/TSV
-	csv      *csv.Reader
+	csv      *csvSplitter
 	header   []string
-	trusted  bool  // the first row is evidently a header (headerTrusted)
-	lastLine int64 // CSV: start line of the last record read
+	trusted  bool // the first row is evidently a header (headerTrusted)
+	hdrLine  int64
 	unmapped []string
 
 	// JSON Lines
@@ -101,7 +96,8 @@ type column struct {
 // and for CSV/TSV reads the header and checks that every mapped column is
 // present. Problems come back as a *FileError: RuleEmptyFile,
 // RuleMissingColumn, RuleDuplicateColumn, RuleEncoding, RuleCompression,
-// RuleRead, or RuleProfile for an invalid hand-built profile.
+// RuleRead, RuleLineTooLong, RuleTooManyColumns, RuleTooManyBytes, or
+// RuleProfile for an invalid hand-built profile.
 func NewReader(r io.Reader, p *Profile, opt ReaderOptions) (*Reader, error) {
 	if p == nil {
 		p = DefaultProfile()
@@ -111,7 +107,7 @@ func NewReader(r io.Reader, p *Profile, opt ReaderOptions) (*Reader, error) {
 	if err := p.validate(nil); err != nil {
 		return nil, &FileError{Rule: RuleProfile, Msg: err.Error(), Err: err}
 	}
-	rd := &Reader{p: p, name: opt.Name}
+	rd := &Reader{p: p, name: opt.Name, lim: opt.Limits.withDefaults()}
 	rd.tp = timeParser{loc: p.Location(), policy: p.LocalTime.normalized()}
 	if m, ok := p.Fields[FieldOccurredAt]; ok && m.Layout != "" {
 		hasOff, err := layoutInfo(m.Layout)
@@ -157,7 +153,7 @@ func NewReader(r io.Reader, p *Profile, opt ReaderOptions) (*Reader, error) {
 		bomr.Discard(3)
 	}
 	in = bomr
-	rd.guard = &guardReader{r: in, limit: math.MaxInt64}
+	rd.guard = &guardReader{r: in, limit: rd.lim.MaxBytes}
 
 	if p.Format == FormatJSONL {
 		rd.br = bufio.NewReaderSize(rd.guard, 64<<10)
@@ -177,33 +173,40 @@ func NewReader(r io.Reader, p *Profile, opt ReaderOptions) (*Reader, error) {
 }
 
 func (rd *Reader) readHeader() error {
-	cr := csv.NewReader(bufio.NewReaderSize(rd.guard, 64<<10))
-	delim, _ := utf8.DecodeRuneInString(rd.p.Delimiter)
-	cr.Comma = delim
-	cr.FieldsPerRecord = -1
-	cr.ReuseRecord = true
-	rd.csv = cr
-	rd.guard.limit = maxRecordBytes + 64<<10
+	sp := &csvSplitter{
+		lr:       &lineReader{br: bufio.NewReaderSize(rd.guard, 64<<10), max: rd.lim.MaxLineBytes},
+		commaStr: []byte(rd.p.Delimiter),
+	}
+	if len(sp.commaStr) == 1 {
+		sp.comma = sp.commaStr[0]
+	}
+	if ml := rd.p.Multiline; ml != nil {
+		sp.maxLines, sp.maxBytes = ml.MaxLines, ml.MaxBytes
+	}
+	rd.csv = sp
 
-	rec, err := cr.Read()
+	rec, headerLine, err := sp.read()
 	if err == io.EOF {
 		return rd.fileErr(RuleEmptyFile, 0, "", "the file is empty (no header row)", nil)
 	}
 	if err != nil {
-		var pe *csv.ParseError
-		if errors.As(err, &pe) && rd.guard.err == nil {
-			return rd.fileErr(RuleSyntax, int64(pe.StartLine), "", fmt.Sprintf("the header row has bad quoting (line %d, byte %d)", pe.Line, pe.Column), nil)
+		var ce *csvError
+		if errors.As(err, &ce) {
+			return rd.fileErr(RuleSyntax, ce.line, "", "the header row has bad quoting: "+ce.msg, nil)
 		}
-		return rd.fatal(err, 1)
+		return rd.fatal(err, headerLine)
 	}
-	rd.guard.limit = cr.InputOffset() + maxRecordBytes + 64<<10
-	headerLine, _ := cr.FieldPos(0)
-	rd.lastLine = int64(headerLine)
+	rd.hdrLine = headerLine
+	if len(rec) > rd.lim.MaxColumns {
+		return rd.fileErr(RuleTooManyColumns, headerLine, "", fmt.Sprintf("the header has %d fields, over the limit of %d columns per file (max columns)", len(rec), rd.lim.MaxColumns), nil)
+	}
 	rd.header = make([]string, len(rec))
 	for i, h := range rec {
 		if !utf8.ValidString(h) {
-			l, _ := cr.FieldPos(i)
-			return rd.fileErr(RuleEncoding, int64(l), fmt.Sprintf("field %d", i+1), "the header is not valid UTF-8", nil)
+			return rd.fileErr(RuleEncoding, headerLine, fmt.Sprintf("field %d", i+1), "the header is not valid UTF-8", nil)
+		}
+		if strings.IndexByte(h, 0) >= 0 {
+			return rd.fileErr(RuleEncoding, headerLine, fmt.Sprintf("field %d", i+1), "the header holds a NUL byte; is the file UTF-16, or binary?", nil)
 		}
 		if i == 0 {
 			h = strings.TrimPrefix(h, "\uFEFF") // byte-order mark of spreadsheet exports
@@ -361,9 +364,10 @@ func cellLooksLikeData(h string, tp *timeParser) bool {
 // Next reads the next row. It fills *e and returns (nil, nil) for an
 // accepted event; returns (rej, nil) for a rejected row (*e is then
 // undefined); (nil, io.EOF) at the end; or (nil, *FileError) when the file
-// cannot be read on (RuleNoRows for a header without data rows, RuleSyntax,
-// RuleEncoding, RuleCompression, RuleRead). After io.EOF or a *FileError
-// every call returns the same error.
+// cannot be read on (RuleNoRows for a header without data rows,
+// RuleEncoding, RuleCompression, RuleRead, or a limit of opt.Limits:
+// RuleLineTooLong, RuleTooManyBytes, RuleTooManyRows). After io.EOF or a
+// *FileError every call returns the same error.
 func (rd *Reader) Next(e *Event) (*Rejection, error) {
 	if rd.err != nil {
 		return nil, rd.err
@@ -382,38 +386,43 @@ func (rd *Reader) Next(e *Event) (*Rejection, error) {
 }
 
 func (rd *Reader) nextCSV(e *Event) (*Rejection, error) {
-	rec, err := rd.csv.Read()
+	rec, line, err := rd.csv.read()
 	if err != nil {
-		var pe *csv.ParseError
-		if errors.As(err, &pe) && rd.guard.err == nil {
-			rd.guard.limit = rd.csv.InputOffset() + maxRecordBytes + 64<<10
-			rd.rows++
-			return &Rejection{Line: int64(pe.StartLine), Reason: ReasonMalformedRow,
-				Message: fmt.Sprintf("bad quoting: a '\"' is misplaced or unclosed (line %d, byte %d)", pe.Line, pe.Column)}, nil
+		var ce *csvError
+		if errors.As(err, &ce) {
+			if ferr := rd.countRow(ce.line); ferr != nil {
+				return nil, ferr
+			}
+			return &Rejection{Line: ce.line, Reason: ReasonMalformedRow, Message: "bad quoting: " + ce.msg}, nil
 		}
 		if err == io.EOF {
 			if rd.rows == 0 {
-				l, _ := rd.csv.FieldPos(0)
-				return nil, rd.fileErr(RuleNoRows, 0, "", fmt.Sprintf("the file has a header (line %d) but no data rows", l), nil)
+				return nil, rd.fileErr(RuleNoRows, 0, "", fmt.Sprintf("the file has a header (line %d) but no data rows", rd.hdrLine), nil)
 			}
 			return nil, io.EOF
 		}
-		// The stream broke after the last whole record: name the line
-		// that follows it.
-		return nil, rd.fatal(err, rd.lastLine+1)
+		return nil, rd.fatal(err, line)
 	}
-	rd.guard.limit = rd.csv.InputOffset() + maxRecordBytes + 64<<10
-	rd.rows++
-	l, _ := rd.csv.FieldPos(0)
-	line := int64(l)
-	rd.lastLine = line
+	if ferr := rd.countRow(line); ferr != nil {
+		return nil, ferr
+	}
+	nul := -1
 	for i, v := range rec {
 		if !utf8.ValidString(v) {
-			fl, _ := rd.csv.FieldPos(i)
-			return nil, rd.fileErr(RuleEncoding, int64(fl), rd.columnName(i), "the value is not valid UTF-8; is the file in another encoding (Latin-1, Windows-1252)?", nil)
+			return nil, rd.fileErr(RuleEncoding, line, rd.columnName(i), "the value is not valid UTF-8; is the file in another encoding (Latin-1, Windows-1252)?", nil)
+		}
+		if nul < 0 && strings.IndexByte(v, 0) >= 0 {
+			nul = i
 		}
 	}
+	if nul >= 0 {
+		return rd.nulRejection(line, rd.columnName(nul), ""), nil
+	}
 	if len(rec) != len(rd.header) {
+		if rd.csv.dropRecord() {
+			return &Rejection{Line: line, Reason: ReasonMalformedRow,
+				Message: fmt.Sprintf("bad quoting: a quoted field spans lines and the record has %d fields, the header %d (a stray '\"'?); the following lines are read on their own", len(rec), len(rd.header))}, nil
+		}
 		return &Rejection{Line: line, Reason: ReasonFieldCount,
 			Message: fmt.Sprintf("the row has %d fields, the header %d; a stray %q or a missing quote?", len(rec), len(rd.header), rd.p.Delimiter)}, nil
 	}
@@ -424,6 +433,15 @@ func (rd *Reader) nextCSV(e *Event) (*Rejection, error) {
 		}
 	}
 	return rd.build(e, line)
+}
+
+// countRow counts one data row and stops the file past Limits.MaxRows.
+func (rd *Reader) countRow(line int64) *FileError {
+	rd.rows++
+	if rd.rows > rd.lim.MaxRows {
+		return rd.fileErr(RuleTooManyRows, line, "", fmt.Sprintf("the file has more than %d data rows, the limit per upload (max rows)", rd.lim.MaxRows), nil)
+	}
+	return nil
 }
 
 func (rd *Reader) columnName(i int) string {
@@ -485,10 +503,17 @@ func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
 		if len(b) == 0 {
 			continue
 		}
-		rd.rows++
 		line := rd.lineNo
+		if ferr := rd.countRow(line); ferr != nil {
+			return nil, ferr
+		}
 		if !utf8.Valid(b) {
 			return nil, rd.fileErr(RuleEncoding, line, "", "the line is not valid UTF-8; is the file in another encoding (Latin-1, Windows-1252)?", nil)
+		}
+		if bytes.IndexByte(b, '\r') >= 0 {
+			// JSON Lines separates lines with LF or CRLF (jsonlines.org);
+			// a lone CR would hide the lines it joins inside one.
+			return &Rejection{Line: line, Reason: ReasonMalformedRow, Message: "the line holds a lone CR; JSON Lines lines end with LF or CRLF"}, nil
 		}
 		if b[0] != '{' {
 			return &Rejection{Line: line, Reason: ReasonMalformedRow, Message: "the line is not a JSON object"}, nil
@@ -569,13 +594,16 @@ func (rd *Reader) readLine() ([]byte, error) {
 	if err == bufio.ErrBufferFull {
 		rd.lineBuf = append(rd.lineBuf[:0], b...)
 		for err == bufio.ErrBufferFull {
-			if len(rd.lineBuf) > maxRecordBytes {
-				return nil, rd.fileErr(RuleSyntax, rd.lineNo+1, "", fmt.Sprintf("a line is longer than %d MiB", maxRecordBytes>>20), nil)
+			if len(rd.lineBuf) > rd.lim.MaxLineBytes+1 {
+				return nil, rd.lineTooLong(rd.lineNo + 1)
 			}
 			b, err = rd.br.ReadSlice('\n')
 			rd.lineBuf = append(rd.lineBuf, b...)
 		}
 		b = rd.lineBuf
+	}
+	if n := len(bytes.TrimRight(b, "\r\n")); n > rd.lim.MaxLineBytes {
+		return nil, rd.lineTooLong(rd.lineNo + 1)
 	}
 	if err == io.EOF && len(b) > 0 {
 		err = nil
@@ -603,6 +631,9 @@ func (rd *Reader) build(e *Event, line int64) (*Rejection, error) {
 			v = c.value
 		case kindColumn:
 			v = strings.TrimSpace(rd.vals[i])
+			if strings.IndexByte(v, 0) >= 0 {
+				return rd.nulRejection(line, c.name, f), nil
+			}
 			if v != "" && c.codes != nil {
 				if to, ok := c.codes[v]; ok {
 					v = to
@@ -647,6 +678,12 @@ func (rd *Reader) build(e *Event, line int64) (*Rejection, error) {
 		}
 	}
 	return nil, nil
+}
+
+// nulRejection refuses a row holding a NUL byte: no field of the schema
+// has a use for one, and C-string tools downstream would cut the value.
+func (rd *Reader) nulRejection(line int64, col string, f Field) *Rejection {
+	return &Rejection{Line: line, Column: col, Field: f, Reason: ReasonBadValue, Message: "the value holds a NUL byte (0x00)"}
 }
 
 // canonicalEventType returns the package constant for s, so an event does
@@ -725,11 +762,17 @@ func (rd *Reader) fileErr(rule string, line int64, col, msg string, err error) *
 	return &FileError{Line: line, Column: col, Rule: rule, Msg: msg, Err: err}
 }
 
+func (rd *Reader) lineTooLong(line int64) *FileError {
+	return rd.fileErr(RuleLineTooLong, line, "", fmt.Sprintf("the line is longer than %s, the limit per line (max line bytes); is this the right format?", sizeText(int64(rd.lim.MaxLineBytes))), nil)
+}
+
 // fatal classifies an error of the byte stream.
 func (rd *Reader) fatal(err error, line int64) *FileError {
 	switch {
-	case errors.Is(err, errRecordTooLong):
-		return rd.fileErr(RuleSyntax, line, "", fmt.Sprintf("a record is longer than %d MiB; is a quote left open?", maxRecordBytes>>20), err)
+	case errors.Is(err, errLineTooLong):
+		return rd.lineTooLong(line)
+	case errors.Is(err, errTooManyBytes):
+		return rd.fileErr(RuleTooManyBytes, line, "", fmt.Sprintf("the file holds more than %s after decompression, the limit per upload (max bytes)", sizeText(rd.lim.MaxBytes)), err)
 	case rd.src.err != nil:
 		return rd.fileErr(RuleRead, line, "", "reading the file failed", rd.src.err)
 	case rd.gz || errors.Is(err, gzip.ErrHeader) || errors.Is(err, gzip.ErrChecksum):
@@ -753,8 +796,8 @@ func (s *sourceReader) Read(p []byte) (int, error) {
 	return n, err
 }
 
-// guardReader stops a runaway record at limit bytes and makes stream
-// errors sticky (encoding/csv may report a parse error in place of one).
+// guardReader stops the stream after limit bytes (decompressed) and makes
+// stream errors sticky.
 type guardReader struct {
 	r     io.Reader
 	n     int64
@@ -767,7 +810,17 @@ func (g *guardReader) Read(p []byte) (int, error) {
 		return 0, g.err
 	}
 	if g.n >= g.limit {
-		g.err = errRecordTooLong
+		// At the limit: only the end of the stream may follow.
+		var one [1]byte
+		n, err := io.ReadFull(g.r, one[:])
+		if n == 0 && (err == io.EOF || err == io.ErrUnexpectedEOF) {
+			return 0, io.EOF
+		}
+		if err != nil && n == 0 {
+			g.err = err
+			return 0, err
+		}
+		g.err = errTooManyBytes
 		return 0, g.err
 	}
 	if rest := g.limit - g.n; int64(len(p)) > rest {

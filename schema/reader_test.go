@@ -271,6 +271,15 @@ func TestReaderBadInput(t *testing.T) {
 		{name: "jsonl not an object", p: jsonl, data: []byte(`["V1"]` + "\n"), reason: ReasonMalformedRow, line: 1},
 		{name: "jsonl bad utf-8", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\n" + "{\"Visit\":\"V\xff\"}\n"), rule: RuleEncoding, line: 2},
 		{name: "jsonl empty", p: jsonl, data: nil, rule: RuleEmptyFile},
+		{name: "jsonl CR-only line ends", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\r" + `{"Visit":"V2","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\r"), reason: ReasonMalformedRow, line: 1, msg: "lone CR"},
+		{name: "NUL in a header name", p: p, data: []byte("Visit,Code,When,Step\x00,Desk,Age\nV1,ARR,2021-06-01T08:00:00Z,a,D1,1\n"), rule: RuleEncoding, line: 1, column: "field 4", msg: "NUL"},
+		{name: "UTF-16 file", p: p, data: []byte("V\x00i\x00s\x00i\x00t\x00,\x00C\x00o\x00d\x00e\x00\n\x00"), rule: RuleEncoding, line: 1, column: "field 1", msg: "UTF-16"},
+		{name: "NUL in a mapped value", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a\x00b,D1,1\n"), reason: ReasonBadValue, line: 2, column: "Step", msg: "NUL"},
+		{name: "NUL in an unmapped value", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a,D1,\x00\n"), reason: ReasonBadValue, line: 2, column: "Age", msg: "NUL"},
+		{name: "jsonl escaped NUL", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z","Step":"a\u0000"}` + "\n"), reason: ReasonBadValue, line: 1, column: "Step", field: FieldActivity, msg: "NUL"},
+		{name: "too many columns", p: p, data: []byte(testHeader[:len(testHeader)-1] + strings.Repeat(",x", DefaultMaxColumns) + "\n"), rule: RuleTooManyColumns, line: 1, msg: "4096 columns"},
+		{name: "csv line too long", p: p, data: []byte(testHeader + "V1,ARR,2021-06-01T08:00:00Z,a,D1,1\nV1,ARR,2021-06-01T08:00:00Z," + strings.Repeat("a", DefaultMaxLineBytes) + ",D1,1\n"), rule: RuleLineTooLong, line: 3, msg: "1 MiB"},
+		{name: "jsonl line too long", p: jsonl, data: []byte(`{"Visit":"V1","Code":"ARR","When":"2021-06-01T08:00:00Z"}` + "\n" + `{"Visit":"` + strings.Repeat("a", DefaultMaxLineBytes) + `"}` + "\n"), rule: RuleLineTooLong, line: 2, msg: "1 MiB"},
 		{name: "jsonl blank", p: jsonl, data: []byte("\n \n"), rule: RuleEmptyFile},
 	}
 	for _, tc := range tests {
@@ -331,11 +340,12 @@ func TestReaderRecovers(t *testing.T) {
 }
 
 // TestReaderQuotedMultiline checks that quoted fields may hold the
-// delimiter and newlines, and that Line is where the record starts.
+// delimiter and, when the profile allows multi-line fields, line breaks;
+// Line is where the record starts.
 func TestReaderQuotedMultiline(t *testing.T) {
-	p := mustProfile(t, testProfileYAML)
+	p := mustProfile(t, "multiline: {max_lines: 3}\n"+testProfileYAML)
 	data := testHeader +
-		"V1,ARR,2021-06-01T08:00:00Z,\"triage, then\nlab\nwork\",D1,1\n" + // lines 2-4
+		"V1,ARR,2021-06-01T08:00:00Z,\"triage, then\nlab\r\nwork\",D1,1\n" + // lines 2-4
 		"\"V,2\",TRI,2021-06-01T09:00:00Z,\"say \"\"hi\"\"\",D2,2\n" + // line 5
 		"V3,ARR,bad,x,D3,3\n" // line 6
 	res := readAll(t, strings.NewReader(data), p)
@@ -350,6 +360,82 @@ func TestReaderQuotedMultiline(t *testing.T) {
 	}
 	if r := res.rejs[0]; r.Line != 6 || r.Reason != ReasonBadTimestamp {
 		t.Errorf("line after multiline record: %v", r)
+	}
+}
+
+// TestReaderStrayQuote: one stray '"' costs its own line only, with or
+// without multi-line fields, and every other line is read. Without them
+// a quoted field may not span lines at all; with them, a record that does
+// not close within its bounds is rejected at its first line and reading
+// resumes at the next.
+func TestReaderStrayQuote(t *testing.T) {
+	row := func(i int) string { return fmt.Sprintf("V%d,ARR,2021-06-01T08:00:00Z,a,D1,%d\n", i, i) }
+	var b strings.Builder
+	b.WriteString(testHeader) // line 1
+	for i := 2; i <= 2000; i++ {
+		if i == 1001 {
+			b.WriteString("V1001,ARR,2021-06-01T08:00:00Z,\"a,D1,1\n") // the stray quote
+			continue
+		}
+		if i == 1005 {
+			// A quoted field that would close the stray one.
+			b.WriteString("V1005,ARR,2021-06-01T08:00:00Z,\"b\",D1,1005\n")
+			continue
+		}
+		b.WriteString(row(i))
+	}
+	data := b.String()
+	for _, tc := range []struct{ name, prefix string }{
+		{"one line per record", ""},
+		{"multi-line, bound by lines", "multiline: {max_lines: 20}\n"},
+		{"multi-line, bound by bytes", "multiline: {max_lines: 10000, max_bytes: 2000}\n"},
+		{"multi-line, quote left open to the end", "multiline: {max_lines: 10000, max_bytes: 16777216}\n"},
+	} {
+		res := readAll(t, strings.NewReader(data), mustProfile(t, tc.prefix+testProfileYAML))
+		if res.ferr != nil {
+			t.Fatalf("%s: %v", tc.name, res.ferr)
+		}
+		if len(res.rejs) != 1 || res.rejs[0].Line != 1001 || res.rejs[0].Reason != ReasonMalformedRow || len(res.events) != 1998 || res.rows != 1999 {
+			t.Errorf("%s: %d events, %d rows, rejections %v; want 1998, 1999 and line 1001 malformed_row", tc.name, len(res.events), res.rows, res.rejs)
+		}
+		for i, e := range res.events {
+			want := int64(i + 2)
+			if want >= 1001 {
+				want++
+			}
+			if e.Line != want || e.CaseID != fmt.Sprint("V", want) {
+				t.Fatalf("%s: event %d is line %d case %s, want line %d", tc.name, i, e.Line, e.CaseID, want)
+			}
+		}
+	}
+}
+
+// TestReaderLineEndings: LF, CRLF and lone CR each end a line, mixed in
+// one file too; no ending merges two rows.
+func TestReaderLineEndings(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	rows := []string{"Visit,Code,When,Step,Desk,Age", "V1,ARR,2021-06-01T08:00:00Z,a,D1,1", "V2,ARR,2021-06-01T08:00:00Z,a,D1,1", "V3,ARR,2021-06-01T08:00:00Z,a,D1,1"}
+	for name, ends := range map[string][]string{
+		"LF": {"\n", "\n", "\n", "\n"}, "CRLF": {"\r\n", "\r\n", "\r\n", ""}, "CR": {"\r", "\r", "\r", "\r"},
+		"mixed": {"\r\n", "\r", "\n", "\r\n"}, "CR then LF": {"\r", "\n", "\r", ""},
+	} {
+		var b strings.Builder
+		for i, r := range rows {
+			b.WriteString(r + ends[i])
+		}
+		// A reader that hands out one byte at a time splits every CRLF
+		// across reads.
+		for _, in := range []io.Reader{strings.NewReader(b.String()), iotest.OneByteReader(strings.NewReader(b.String()))} {
+			res := readAll(t, in, p)
+			if res.ferr != nil || len(res.rejs) != 0 || len(res.events) != 3 {
+				t.Fatalf("%s: ferr %v rejs %v events %d", name, res.ferr, res.rejs, len(res.events))
+			}
+			for i, e := range res.events {
+				if e.Line != int64(i+2) || e.CaseID != fmt.Sprint("V", i+1) || e.Activity != "a" {
+					t.Errorf("%s: event %d: %+v", name, i, e)
+				}
+			}
+		}
 	}
 }
 
@@ -376,15 +462,19 @@ func TestReaderJSONL(t *testing.T) {
 	}
 }
 
-// TestReaderRunawayRecord checks that an unclosed quote does not make the
-// reader swallow the rest of a huge file into memory.
+// TestReaderRunawayRecord checks that a line without end (an unclosed
+// quote in a multi-line profile, or no line breaks at all) does not make
+// the reader hold the rest of a huge file in memory: it stops at the line
+// length limit.
 func TestReaderRunawayRecord(t *testing.T) {
-	p := mustProfile(t, testProfileYAML)
-	body := io.LimitReader(repeatReader('x'), maxRecordBytes+(1<<20))
-	in := io.MultiReader(strings.NewReader(testHeader+"V1,ARR,2021-06-01T08:00:00Z,\"open"), body)
-	res := readAll(t, in, p)
-	if res.ferr == nil || res.ferr.Rule != RuleSyntax {
-		t.Fatalf("got %v, want a syntax error", res.ferr)
+	for _, y := range []string{testProfileYAML, "multiline: true\n" + testProfileYAML} {
+		p := mustProfile(t, y)
+		body := io.LimitReader(repeatReader('x'), DefaultMaxLineBytes+(1<<20))
+		in := io.MultiReader(strings.NewReader(testHeader+"V1,ARR,2021-06-01T08:00:00Z,\"open\n"), body)
+		res := readAll(t, in, p)
+		if res.ferr == nil || res.ferr.Rule != RuleLineTooLong || res.ferr.Line != 3 || !strings.Contains(res.ferr.Msg, "1 MiB") {
+			t.Fatalf("got %v (rejections %v), want line_too_long at line 3", res.ferr, res.rejs)
+		}
 	}
 }
 
@@ -677,7 +767,7 @@ func TestByteOrderMark(t *testing.T) {
 	jsonl := bom + `{"site":"s","case_id":"c1","event_type":"arrival","occurred_at":"2021-01-01T00:00:00Z"}` + "\n"
 	jp := DefaultProfile()
 	jp.Format = FormatJSONL
-	jp.Delimiter, jp.Quote = "", ""
+	jp.Delimiter, jp.Quote, jp.Multiline = "", "", nil
 	for name, c := range map[string]struct {
 		data string
 		p    *Profile
@@ -699,7 +789,7 @@ func TestByteOrderMark(t *testing.T) {
 func TestJSONLDuplicateKey(t *testing.T) {
 	p := DefaultProfile()
 	p.Format = FormatJSONL
-	p.Delimiter, p.Quote = "", ""
+	p.Delimiter, p.Quote, p.Multiline = "", "", nil
 	data := `{"site":"s","case_id":"a","event_type":"arrival","occurred_at":"2021-01-01T00:00:00Z","case_id":"b"}
 {"site":"s","case_id":"c","event_type":"arrival","occurred_at":"2021-01-01T00:00:00Z","note":1,"note":2}
 `
@@ -724,7 +814,7 @@ func TestJSONLDuplicateKey(t *testing.T) {
 func TestJSONLLoneSurrogate(t *testing.T) {
 	p := DefaultProfile()
 	p.Format = FormatJSONL
-	p.Delimiter, p.Quote = "", ""
+	p.Delimiter, p.Quote, p.Multiline = "", "", nil
 	data := `{"site":"s","case_id":"A\udc00X","event_type":"arrival","occurred_at":"2021-01-01T00:00:00Z"}
 {"site":"s","case_id":"A\ufffdX","event_type":"arrival","occurred_at":"2021-01-01T00:00:00Z"}
 `
@@ -738,5 +828,56 @@ func TestJSONLLoneSurrogate(t *testing.T) {
 	}
 	if rej, err := rd.Next(&e); err != nil || rej != nil || e.CaseID != "A\uFFFDX" {
 		t.Errorf("spelled U+FFFD: rej %+v, err %v, case %q", rej, err, e.CaseID)
+	}
+}
+
+// TestReaderUploadLimits: the decompressed size and the row count of a
+// file are checked while streaming, with the limit named; a file exactly
+// at a limit passes.
+func TestReaderUploadLimits(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	row := "V1,ARR,2021-06-01T08:00:00Z,registration,D1,80\n"
+	plain := testHeader + strings.Repeat(row, 10000)
+	bomb := gzipBytes(t, []byte(plain)) // about 1% of its plain size
+	for _, tc := range []struct {
+		name string
+		data []byte
+		lim  Limits
+		rule string
+		msg  string
+	}{
+		{"gzip over max bytes", bomb, Limits{MaxBytes: 64 << 10}, RuleTooManyBytes, "64 KiB after decompression"},
+		{"plain over max bytes", []byte(plain), Limits{MaxBytes: 100000}, RuleTooManyBytes, "100000 bytes"},
+		{"plain at max bytes", []byte(plain), Limits{MaxBytes: int64(len(plain))}, "", ""},
+		{"gzip at max bytes", bomb, Limits{MaxBytes: int64(len(plain))}, "", ""},
+		{"over max rows", bomb, Limits{MaxRows: 9999}, RuleTooManyRows, "more than 9999 data rows"},
+		{"at max rows", bomb, Limits{MaxRows: 10000}, "", ""},
+	} {
+		rd, err := NewReader(bytes.NewReader(tc.data), p, ReaderOptions{Limits: tc.lim})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var e Event
+		var n int
+		for {
+			_, err = rd.Next(&e)
+			if err != nil {
+				break
+			}
+			n++
+		}
+		if tc.rule == "" {
+			if err != io.EOF || n != 10000 {
+				t.Errorf("%s: %d rows, then %v", tc.name, n, err)
+			}
+			continue
+		}
+		fe, ok := AsFileError(err)
+		if !ok || fe.Rule != tc.rule || !strings.Contains(fe.Msg, tc.msg) {
+			t.Errorf("%s: got %v, want %s naming %q", tc.name, err, tc.rule, tc.msg)
+		}
+		if tc.rule == RuleTooManyRows && fe.Line != 10001 {
+			t.Errorf("%s: line %d, want 10001", tc.name, fe.Line)
+		}
 	}
 }

@@ -1,6 +1,8 @@
 package server
 
 import (
+	"bytes"
+	"fmt"
 	"net/http"
 	"slices"
 	"strings"
@@ -8,6 +10,7 @@ import (
 	"testing"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 // TestUploadTooLarge checks that a body over Config.MaxUploadBytes is
@@ -38,7 +41,8 @@ func TestUploadTooLarge(t *testing.T) {
 // the same bytes make one version (the others are duplicates of it), the
 // different files make a chain of versions each with its parent's files.
 func TestConcurrentUploads(t *testing.T) {
-	e := newEnv(t)
+	// One token sends them all: allow it more uploads at once than n.
+	e := newEnv(t, func(c *Config) { c.MaxUploadsPerToken = 16 })
 	e.createProject("ward")
 	e.createDataset("ward", "same", wardProfile)
 	e.createDataset("ward", "many", wardProfile)
@@ -160,4 +164,58 @@ func TestCatalogErrors(t *testing.T) {
 	big := `{"name":"big","title":"` + strings.Repeat("t", 2<<20) + `"}`
 	r = e.do("POST", "/api/v1/projects", e.admin, strings.NewReader(big), map[string]string{"Content-Type": "application/json"})
 	e.mustStatus(r, http.StatusRequestEntityTooLarge, "2 MiB project body")
+}
+
+// TestVersionsPages lists versions a page at a time: every version once,
+// in order, each with its scores and none with its manifest or report.
+func TestVersionsPages(t *testing.T) {
+	e := newEnv(t)
+	e.createProject("ward")
+	e.createDataset("ward", "paged", wardProfile)
+	for day := 1; day <= 7; day++ {
+		e.mustStatus(e.upload("ward", "paged", e.admin, "d.csv", wardFile(day, 9)), http.StatusCreated, "upload")
+	}
+	ds := "/api/v1/projects/ward/datasets/paged/versions"
+	r := e.get(ds+"?limit=3", e.admin)
+	e.mustStatus(r, http.StatusOK, "first page")
+	var page versionsPage
+	e.decode(r, &page)
+	if len(page.Versions) != 3 || page.NextAfter == nil || *page.NextAfter != 3 {
+		t.Fatalf("first page: %d versions, next_after %v; want 3 and 3", len(page.Versions), page.NextAfter)
+	}
+	for _, w := range []string{`"manifest"`, `"dimensions"`, `"findings"`, `"raw"`} {
+		if bytes.Contains(r.Body, []byte(w)) {
+			t.Errorf("the versions list holds %s", w)
+		}
+	}
+	hs := e.heads("ward", "paged", e.admin, 3)
+	if len(hs) != 7 {
+		t.Fatalf("%d versions over the pages, want 7", len(hs))
+	}
+	for i, h := range hs {
+		var v catalog.Version
+		e.decode(e.get(fmt.Sprintf("%s/%d", ds, h.Number), e.admin), &v)
+		var q *quality.Report
+		e.decode(e.get(fmt.Sprintf("%s/%d/quality", ds, h.Number), e.admin), &q)
+		if h.Number != i+1 || h.Quality.Score == nil || q == nil || *h.Quality.Score != *q.Score || h.Rows != v.Manifest.Rows || h.Files != len(v.Manifest.Files) || h.Mode != catalog.ModeAppend || h.Events == nil || h.Events.New != v.Manifest.Lineage.Events.New {
+			t.Errorf("head %d: %+v; version's score %v rows %d files %d", i, h, q.Score, v.Manifest.Rows, len(v.Manifest.Files))
+		}
+		for _, d := range q.Dimensions {
+			if s, ok := h.Scores[d.Name]; !ok || (s == nil) != (d.Score == nil) || s != nil && *s != *d.Score {
+				t.Errorf("head %d: score of %s %v, want %v", h.Number, d.Name, s, d.Score)
+			}
+		}
+	}
+	for q, want := range map[string]string{
+		"?limit=0":         `limit "0"`,
+		"?limit=5000":      `limit "5000"`,
+		"?after=x":         `after "x"`,
+		"?limit=2&limit=3": `"limit" given 2 times`,
+		"?page=2":          `unknown parameter "page"`,
+	} {
+		r := e.get(ds+q, e.admin)
+		if r.Status != http.StatusBadRequest || !strings.Contains(e.apiErr(r).Error.Message, want) {
+			t.Errorf("%s: status %d body %s; want 400 naming %s", q, r.Status, clipBody(r.Body), want)
+		}
+	}
 }

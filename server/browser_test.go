@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 // chromium finds a headless browser, or skips the test where none is
@@ -115,12 +116,14 @@ func TestVersionPageInBrowser(t *testing.T) {
 		} `json:"length_of_stay"`
 	}
 	e.decode(e.get(ds+"/versions/2/summary", member), &sum)
+	var rep quality.Report
+	e.decode(e.get(ds+"/versions/2/quality", member), &rep)
 
 	dom := dumpDOM(t, bin, e.srv.URL+"/view/ward/events/2#token="+member)
 	for _, want := range []string{
 		`data-events="` + strconv.Itoa(sum.Events) + `"`,
-		v.SnapshotID,
-		fmt.Sprintf("Score %.1f of 100 over %d accepted", *v.Manifest.Quality.Score, v.Manifest.Quality.Rows.Accepted),
+		v.SnapshotID.String(),
+		fmt.Sprintf("Score %.1f of 100 over %d accepted", *rep.Score, rep.Rows.Accepted),
 		"<td>triage</td>",
 		"flowcat pull ward/events@2 -o DIR",
 		"not advice on any patient",

@@ -45,6 +45,7 @@ func TestSepsisCases(t *testing.T) {
 	var res uploadResponse
 	e.decode(r, &res)
 	v := res.Version
+	vq := e.versionReport("hospital", "sepsis", v.Number)
 
 	// Published with the log (testdata/sepsis/README.md): 1050 cases, mean
 	// case duration 2459733.94 s, min 122 s, max 3.6488789E7 s, events per
@@ -70,15 +71,15 @@ func TestSepsisCases(t *testing.T) {
 		loEv, hiEv           int64
 	}{
 		"upload report":  {res.Upload.Report.Cases.Count, res.Upload.Report.Cases.MeanDurationSeconds, res.Upload.Report.Cases.MinDurationSeconds, res.Upload.Report.Cases.MaxDurationSeconds, res.Upload.Report.Cases.MeanEvents, res.Upload.Report.Cases.MinEvents, res.Upload.Report.Cases.MaxEvents},
-		"version report": {v.Manifest.Quality.Cases.Count, v.Manifest.Quality.Cases.MeanDurationSeconds, v.Manifest.Quality.Cases.MinDurationSeconds, v.Manifest.Quality.Cases.MaxDurationSeconds, v.Manifest.Quality.Cases.MeanEvents, v.Manifest.Quality.Cases.MinEvents, v.Manifest.Quality.Cases.MaxEvents},
+		"version report": {vq.Cases.Count, vq.Cases.MeanDurationSeconds, vq.Cases.MinDurationSeconds, vq.Cases.MaxDurationSeconds, vq.Cases.MeanEvents, vq.Cases.MinEvents, vq.Cases.MaxEvents},
 	} {
 		if q.n != 1050 || math.Abs(q.mean-2459733.94) > 0.005 || q.lo != 122 || q.hi != 3.6488789e7 ||
 			math.Abs(q.meanEv-meanEv) > 1e-12 || q.loEv != minEv || q.hiEv != maxEv {
 			t.Errorf("%s: %+v; published 1050 cases, mean 2459733.94 s, 122..3.6488789E7 s; %d..%d events, mean %.4f", name, q, minEv, maxEv, meanEv)
 		}
 	}
-	if v.Manifest.Quality.Stages.Cases != 1050 {
-		t.Errorf("stage coverage over %d cases, want 1050", v.Manifest.Quality.Stages.Cases)
+	if vq.Stages.Cases != 1050 {
+		t.Errorf("stage coverage over %d cases, want 1050", vq.Stages.Cases)
 	}
 
 	member := e.member("hospital")

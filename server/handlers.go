@@ -8,6 +8,7 @@ import (
 	"io"
 	"mime"
 	"net/http"
+	"os"
 	"slices"
 	"strconv"
 	"strings"
@@ -195,16 +196,37 @@ func (s *Server) upload(c echo.Context) error {
 	if err != nil {
 		return err
 	}
+	release, err := s.takeUploadSlot(claims(c))
+	if err != nil {
+		return err
+	}
+	defer release()
 	req := c.Request()
 	// The plain ResponseWriter, not echo's wrapper: only net/http's own
 	// writer learns from MaxBytesReader that the rest of the body is to be
 	// dropped, and then closes the connection after the 413.
-	body := http.MaxBytesReader(c.Response().Writer, req.Body, s.cfg.MaxUploadBytes)
+	body := sizedBody{http.MaxBytesReader(c.Response().Writer, req.Body, s.cfg.MaxUploadBytes)}
 	res, err := s.cfg.Store.Ingest(req.Context(), d.Project, d.Name, body, opt)
-	var mbe *http.MaxBytesError
+	withUpload := func(he *httpError) error {
+		if res != nil {
+			he.body.Upload = res.Upload
+			if e := res.Upload.Error; e != nil {
+				he.body.Rule = e.Rule
+			}
+		}
+		return he
+	}
 	switch {
-	case errors.As(err, &mbe):
-		return fail(http.StatusRequestEntityTooLarge, "too_large", "upload is larger than the server's limit of %d bytes", s.cfg.MaxUploadBytes)
+	case errors.Is(err, catalog.ErrUploadTooLarge):
+		return withUpload(fail(http.StatusRequestEntityTooLarge, "too_large", "upload is larger than the server's limit of %d bytes (flowcat serve --max-upload-bytes)", s.cfg.MaxUploadBytes))
+	case errors.Is(err, catalog.ErrBodyTimeout):
+		return withUpload(fail(http.StatusRequestTimeout, "body_timeout", "no byte of the upload's body came for %s (flowcat serve --body-idle-timeout); nothing of it was kept", s.cfg.BodyIdleTimeout))
+	case errors.Is(err, catalog.ErrNoSpace):
+		// RFC 4918 section 11.5.
+		return withUpload(fail(http.StatusInsufficientStorage, "insufficient_storage", "the server's disk is full; nothing of the upload was kept; try again later"))
+	case errors.Is(err, catalog.ErrClientGone):
+		// Nobody reads the answer; the status is for the access log.
+		return withUpload(fail(statusClientGone, "client_gone", "the client went away before the upload was done"))
 	case errors.Is(err, catalog.ErrFileInvalid):
 		e := res.Upload.Error
 		he := fail(http.StatusBadRequest, "file_invalid", "%s", err.Error())
@@ -220,6 +242,9 @@ func (s *Server) upload(c echo.Context) error {
 		}
 		he.body.Upload = res.Upload
 		return he
+	case err != nil && res != nil:
+		s.cfg.Logger.Error("upload failed", "dataset", d.Ref(), "upload", res.Upload.ID, "err", err)
+		return withUpload(fail(http.StatusInternalServerError, "internal", "the upload failed on the server; the server log has the details; nothing of it was kept"))
 	case err != nil:
 		return catalogError(err)
 	}
@@ -228,6 +253,42 @@ func (s *Server) upload(c echo.Context) error {
 		status = http.StatusOK
 	}
 	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version, Message: res.Upload.Sentence()})
+}
+
+// takeUploadSlot counts an upload of the token in progress, or refuses
+// it when the token has MaxUploadsPerToken already (429, RFC 6585).
+func (s *Server) takeUploadSlot(cl *Claims) (release func(), err error) {
+	key := cl.ID
+	if key == "" {
+		key = "sub:" + cl.Subject
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.uploading[key] >= s.cfg.MaxUploadsPerToken {
+		he := fail(http.StatusTooManyRequests, "too_many_uploads", "this token has %d uploads in progress, the server's limit (flowcat serve --max-uploads-per-token); wait for one to finish", s.uploading[key])
+		return nil, he
+	}
+	s.uploading[key]++
+	return func() {
+		s.mu.Lock()
+		defer s.mu.Unlock()
+		if s.uploading[key]--; s.uploading[key] <= 0 {
+			delete(s.uploading, key)
+		}
+	}, nil
+}
+
+// sizedBody reads an upload's body through http.MaxBytesReader: going
+// past the size limit is catalog.ErrUploadTooLarge.
+type sizedBody struct{ r io.Reader }
+
+func (b sizedBody) Read(p []byte) (int, error) {
+	n, err := b.r.Read(p)
+	var mbe *http.MaxBytesError
+	if errors.As(err, &mbe) {
+		err = fmt.Errorf("%w: %w", catalog.ErrUploadTooLarge, err)
+	}
+	return n, err
 }
 
 // uploadOptions reads an upload's query: filename, mode, and for mode
@@ -346,23 +407,51 @@ func (s *Server) unseenVersions(c echo.Context, d *catalog.Dataset) (map[int]boo
 
 func readable(cl *Claims, project, _ string) bool { return cl.CanRead(project) }
 
+// versionsPage is one page of a dataset's versions.
+type versionsPage struct {
+	Versions []catalog.Version `json:"versions"`
+	// NextAfter, when set, is the after= of the next page.
+	NextAfter *int `json:"next_after,omitempty"`
+}
+
+// defaultVersionsPage is the page size of the versions list without limit=.
+const defaultVersionsPage = 100
+
+// listVersions lists a dataset's versions, oldest first, a page at a
+// time (?limit=, default 100, at most catalog.MaxVersionsPage; ?after= a
+// version number): each version's record, with its state, lineage mode,
+// files, rows, quality scores and event counts, never the manifest or the
+// full report.
 func (s *Server) listVersions(c echo.Context) error {
 	d, err := s.dataset(c, readable, "read versions of")
 	if err != nil {
 		return err
 	}
-	vs, err := s.cfg.Store.Versions(c.Request().Context(), d.Project, d.Name)
+	limit, after := defaultVersionsPage, 0
+	for _, p := range []struct {
+		name     string
+		dst      *int
+		min, max int
+	}{{"limit", &limit, 1, catalog.MaxVersionsPage}, {"after", &after, 0, 1<<31 - 1}} {
+		v := c.QueryParam(p.name)
+		if v == "" {
+			continue
+		}
+		n, err := strconv.Atoi(v)
+		if err != nil || n < p.min || n > p.max {
+			return fail(http.StatusBadRequest, "invalid", "%s %q: want a whole number from %d to %d", p.name, truncateParam(v), p.min, p.max)
+		}
+		*p.dst = n
+	}
+	vs, next, err := s.cfg.Store.VersionsPage(c.Request().Context(), d.Project, d.Name, after, limit, claims(c).CanCurate(d.Project))
 	if err != nil {
 		return catalogError(err)
 	}
-	drafts := claims(c).CanCurate(d.Project)
-	out := []catalog.Version{}
-	for _, v := range vs {
-		if h := v.Head(); h.Visible(drafts) {
-			out = append(out, v)
-		}
+	page := versionsPage{Versions: vs}
+	if next > 0 {
+		page.NextAfter = &next
 	}
-	return c.JSON(http.StatusOK, out)
+	return c.JSON(http.StatusOK, page)
 }
 
 // version resolves the :version selector (a number, latest, a snapshot id
@@ -381,7 +470,7 @@ func (s *Server) version(c echo.Context) (*catalog.Version, error) {
 
 // versionHead is version without the manifest: for handlers that need
 // only the version's name and state.
-func (s *Server) versionHead(c echo.Context) (*catalog.VersionHead, error) {
+func (s *Server) versionHead(c echo.Context) (*catalog.Version, error) {
 	project, name := c.Param("project"), c.Param("dataset")
 	if !readable(claims(c), project, name) {
 		return nil, forbidden("read versions of " + project + "/" + name)
@@ -390,7 +479,7 @@ func (s *Server) versionHead(c echo.Context) (*catalog.VersionHead, error) {
 	if err != nil {
 		return nil, catalogError(err)
 	}
-	h, err := s.cfg.Store.ResolveHead(c.Request().Context(), project, name, sel, claims(c).CanCurate(project))
+	h, err := s.cfg.Store.ResolveVersion(c.Request().Context(), project, name, sel, claims(c).CanCurate(project))
 	if err != nil {
 		return nil, catalogError(err)
 	}
@@ -405,7 +494,7 @@ func (s *Server) servable(c echo.Context) (*catalog.Version, error) {
 		return nil, err
 	}
 	if v.State == catalog.StateRetracted {
-		return nil, s.gone(v.Head())
+		return nil, s.gone(v)
 	}
 	return v, nil
 }
@@ -418,10 +507,7 @@ type retractRequest struct {
 func (s *Server) setState(c echo.Context) error {
 	project, name := c.Param("project"), c.Param("dataset")
 	cl := claims(c)
-	action := c.Param("action")
-	if action != "publish" && action != "retract" {
-		return fail(http.StatusNotFound, "not_found", "no action %q: want publish or retract", action)
-	}
+	action := c.Path()[strings.LastIndexByte(c.Path(), '/')+1:] // publish or retract
 	if !cl.CanCurate(project) {
 		return forbidden(action + " versions of " + project + "/" + name)
 	}
@@ -496,20 +582,27 @@ func (s *Server) getManifest(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	b, err := v.Manifest.Canonical()
+	b, err := s.cfg.Store.ManifestBytes(c.Request().Context(), v)
 	if err != nil {
-		return err
+		return catalogError(err)
 	}
-	c.Response().Header().Set("ETag", `"`+v.SnapshotID+`"`)
+	c.Response().Header().Set("ETag", `"`+v.SnapshotID.String()+`"`)
 	return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
 }
 
+// getQuality serves the version's quality report as stored: the bytes
+// whose sha256 its manifest names.
 func (s *Server) getQuality(c echo.Context) error {
-	v, err := s.version(c)
+	v, err := s.versionHead(c)
 	if err != nil {
 		return err
 	}
-	return c.JSON(http.StatusOK, v.Manifest.Quality)
+	b, err := s.cfg.Store.QualityReport(c.Request().Context(), v)
+	if err != nil {
+		return catalogError(err)
+	}
+	c.Response().Header().Set("ETag", `"`+v.Quality.SHA256.String()+`"`)
+	return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
 }
 
 // download streams one Parquet file of a version with Content-Length,
@@ -528,12 +621,68 @@ func (s *Server) download(c echo.Context) error {
 		return catalogError(err)
 	}
 	defer r.Close()
+	if err := boundedRange(c.Request().Header.Get("Range"), r.Size()); err != nil {
+		c.Response().Header().Set("Content-Range", fmt.Sprintf("bytes */%d", r.Size()))
+		return err
+	}
 	h := c.Response().Header()
 	h.Set(echo.HeaderContentType, "application/vnd.apache.parquet")
 	h.Set("ETag", `"`+id.String()+`"`)
 	h.Set("Cache-Control", "private, max-age=31536000, immutable")
 	h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s"`, id.String()+".parquet"))
 	http.ServeContent(c.Response(), c.Request(), "", time.Time{}, r)
+	return nil
+}
+
+// maxRanges bounds the ranges of one Range header.
+const maxRanges = 16
+
+// boundedRange refuses a Range header of more than maxRanges ranges, or
+// whose ranges add up to more than the file (overlaps): RFC 9110 section
+// 14.2 lets a server reject such headers, which ask for many times the
+// file in one answer. Headers it cannot parse are left to
+// http.ServeContent.
+func boundedRange(h string, size int64) error {
+	spec, ok := strings.CutPrefix(h, "bytes=")
+	if !ok {
+		return nil
+	}
+	parts := strings.Split(spec, ",")
+	if len(parts) > maxRanges {
+		return fail(http.StatusRequestedRangeNotSatisfiable, "range_limit", "Range: %d ranges, more than the limit of %d", len(parts), maxRanges)
+	}
+	var total int64
+	for _, p := range parts {
+		a, b, ok := strings.Cut(strings.TrimSpace(p), "-")
+		if !ok {
+			return nil
+		}
+		var n int64
+		switch {
+		case a == "":
+			x, err := strconv.ParseInt(b, 10, 64)
+			if err != nil {
+				return nil
+			}
+			n = min(x, size)
+		default:
+			x, err := strconv.ParseInt(a, 10, 64)
+			if err != nil {
+				return nil
+			}
+			y := size - 1
+			if b != "" {
+				if y, err = strconv.ParseInt(b, 10, 64); err != nil {
+					return nil
+				}
+			}
+			n = max(min(y, size-1)-x+1, 0)
+		}
+		total += n
+	}
+	if total > size {
+		return fail(http.StatusRequestedRangeNotSatisfiable, "range_limit", "Range: the ranges add up to %d bytes, more than the file's %d (overlapping ranges)", total, size)
+	}
 	return nil
 }
 
@@ -550,6 +699,8 @@ func decodeJSON(c echo.Context, v any, shape string) error {
 	switch {
 	case errors.As(err, &mbe):
 		return fail(http.StatusRequestEntityTooLarge, "too_large", "request body: larger than %d bytes", maxRequestJSON)
+	case errors.Is(err, os.ErrDeadlineExceeded):
+		return fail(http.StatusRequestTimeout, "body_timeout", "request body: no byte came for a while (flowcat serve --body-idle-timeout)")
 	case err != nil:
 		return fail(http.StatusBadRequest, "invalid", "request body: want JSON %s: %v", shape, err)
 	}

@@ -19,6 +19,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 // testIssuer is the iss claim of the test authority's tokens.
@@ -52,6 +53,7 @@ type testEnv struct {
 	auth    *Authority
 	store   *catalog.Store
 	srv     *httptest.Server
+	server  *Server
 	log     *lockedBuffer
 	rec     *recorder
 	admin   string // an admin token
@@ -78,7 +80,19 @@ func (e *testEnv) in(t *testing.T) *testEnv {
 // Each opt may change the server's Config before New.
 func newEnv(t *testing.T, opts ...func(*Config)) *testEnv {
 	t.Helper()
-	dir := t.TempDir()
+	return newEnvAt(t, t.TempDir(), opts...)
+}
+
+// newEnvAt is newEnv with the data folder dir.
+func newEnvAt(t *testing.T, dir string, opts ...func(*Config)) *testEnv {
+	t.Helper()
+	return newEnvStore(t, dir, catalog.Options{}, opts...)
+}
+
+// newEnvStore is newEnvAt with the catalog options sopt (Master, TempDir
+// and Logger are set here).
+func newEnvStore(t *testing.T, dir string, sopt catalog.Options, opts ...func(*Config)) *testEnv {
+	t.Helper()
 	blobs, err := localfs.New(filepath.Join(dir, "blobs"))
 	if err != nil {
 		t.Fatal(err)
@@ -92,9 +106,8 @@ func newEnv(t *testing.T, opts ...func(*Config)) *testEnv {
 	}
 	logs := &lockedBuffer{}
 	logger := slog.New(slog.NewJSONHandler(logs, &slog.HandlerOptions{Level: slog.LevelDebug}))
-	store, err := catalog.Open(filepath.Join(dir, "catalog.db"), blobs, catalog.Options{
-		Master: master, TempDir: filepath.Join(dir, "tmp"), Logger: logger,
-	})
+	sopt.Master, sopt.TempDir, sopt.Logger = master, filepath.Join(dir, "tmp"), logger
+	store, err := catalog.Open(filepath.Join(dir, "catalog.db"), blobs, sopt)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -109,7 +122,7 @@ func newEnv(t *testing.T, opts ...func(*Config)) *testEnv {
 	}
 	s := New(cfg)
 	srv := httptest.NewServer(s)
-	e := &testEnv{t: t, dir: dir, key: key, auth: auth, store: store, srv: srv, log: logs, rec: &recorder{}, timeout: 30 * time.Second}
+	e := &testEnv{t: t, dir: dir, key: key, auth: auth, store: store, srv: srv, server: s, log: logs, rec: &recorder{}, timeout: 30 * time.Second}
 	t.Cleanup(func() {
 		srv.Close()
 		store.Close()
@@ -232,13 +245,43 @@ func (e *testEnv) createDataset(project, name, profile string) {
 	e.mustStatus(r, http.StatusCreated, "create dataset "+project+"/"+name)
 }
 
-// versions lists a dataset's versions as admin.
+// heads lists a dataset's versions as token sees them, following the
+// pages of size limit (0: the server's default).
+func (e *testEnv) heads(project, dataset, token string, limit int) []catalog.Version {
+	e.t.Helper()
+	out := []catalog.Version{}
+	after := 0
+	for {
+		q := fmt.Sprintf("?after=%d", after)
+		if limit > 0 {
+			q += fmt.Sprintf("&limit=%d", limit)
+		}
+		r := e.get("/api/v1/projects/"+project+"/datasets/"+dataset+"/versions"+q, token)
+		e.mustStatus(r, http.StatusOK, "list versions")
+		var page versionsPage
+		e.decode(r, &page)
+		out = append(out, page.Versions...)
+		if page.NextAfter == nil {
+			return out
+		}
+		if *page.NextAfter <= after {
+			e.t.Fatalf("next_after %d does not move past %d", *page.NextAfter, after)
+		}
+		after = *page.NextAfter
+	}
+}
+
+// versions lists a dataset's versions as admin, whole.
 func (e *testEnv) versions(project, dataset string) []catalog.Version {
 	e.t.Helper()
-	r := e.get("/api/v1/projects/"+project+"/datasets/"+dataset+"/versions", e.admin)
-	e.mustStatus(r, http.StatusOK, "list versions")
 	var vs []catalog.Version
-	e.decode(r, &vs)
+	for _, h := range e.heads(project, dataset, e.admin, 0) {
+		r := e.get(fmt.Sprintf("/api/v1/projects/%s/datasets/%s/versions/%d", project, dataset, h.Number), e.admin)
+		e.mustStatus(r, http.StatusOK, "get version")
+		var v catalog.Version
+		e.decode(r, &v)
+		vs = append(vs, v)
+	}
 	return vs
 }
 
@@ -300,4 +343,14 @@ func clipBody(b []byte) string {
 		s = s[:2000] + "..."
 	}
 	return strings.TrimSpace(s)
+}
+
+// versionReport returns version n's stored quality report, read by an admin.
+func (e *testEnv) versionReport(project, dataset string, n int) *quality.Report {
+	e.t.Helper()
+	r := e.get(fmt.Sprintf("/api/v1/projects/%s/datasets/%s/versions/%d/quality", project, dataset, n), e.admin)
+	e.mustStatus(r, http.StatusOK, "quality report")
+	var q quality.Report
+	e.decode(r, &q)
+	return &q
 }

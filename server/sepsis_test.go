@@ -25,6 +25,7 @@ import (
 	pqschema "github.com/apache/arrow-go/v18/parquet/schema"
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 const sepsisDir = "../testdata/sepsis"
@@ -343,8 +344,10 @@ func TestSepsisEndToEnd(t *testing.T) {
 	if got := time.UnixMicro(maxTS); !got.Equal(wantLast) {
 		t.Errorf("last event (row group statistics) %s, want %s", got.UTC(), wantLast)
 	}
-	if rep := v.Manifest.Quality; rep == nil || rep.TimeRange.First == nil || !rep.TimeRange.First.Equal(wantFirst) || !rep.TimeRange.Last.Equal(wantLast) {
-		t.Errorf("report time range %+v, want %s..%s", v.Manifest.Quality.TimeRange, wantFirst, wantLast)
+	var rep quality.Report
+	e.decode(e.get("/api/v1/projects/hospital/datasets/sepsis/versions/1/quality", member), &rep)
+	if rep.TimeRange.First == nil || !rep.TimeRange.First.Equal(wantFirst) || !rep.TimeRange.Last.Equal(wantLast) {
+		t.Errorf("report time range %+v, want %s..%s", rep.TimeRange, wantFirst, wantLast)
 	}
 
 	var total float64

@@ -9,6 +9,7 @@ import (
 	"log/slog"
 	"net/http"
 	"strings"
+	"sync"
 	"time"
 
 	"github.com/labstack/echo/v4"
@@ -24,17 +25,35 @@ type Config struct {
 	Store     *catalog.Store
 	Authority *Authority
 	Logger    *slog.Logger // default slog.Default()
-	// MaxUploadBytes bounds the body of one upload (default 8 GiB).
+	// MaxUploadBytes bounds the body of one upload as it comes over the
+	// wire: the bytes of the request body, compressed if the file is
+	// gzip, after any HTTP transfer coding (default 8 GiB; 413 above).
 	MaxUploadBytes int64
+	// MaxUploadsPerToken bounds the uploads one token (its jti) has in
+	// progress at once (default 4; 429 above).
+	MaxUploadsPerToken int
+	// BodyIdleTimeout is how long the server waits for the next byte of a
+	// request body before it gives up (default 60 s; 408).
+	BodyIdleTimeout time.Duration
 	// CitationAuthor is the author CITATION.cff files name (the lab that
 	// curates the data); default the project's title, or its name.
 	CitationAuthor string
 }
 
+// Defaults of Config.
+const (
+	DefaultMaxUploadsPerToken = 4
+	DefaultBodyIdleTimeout    = 60 * time.Second
+)
+
 // Server serves the API.
 type Server struct {
-	cfg  Config
-	echo *echo.Echo
+	cfg    Config
+	echo   *echo.Echo
+	routes []route
+
+	mu        sync.Mutex
+	uploading map[string]int // uploads in progress per token id
 }
 
 // New returns a server for cfg.
@@ -45,54 +64,75 @@ func New(cfg Config) *Server {
 	if cfg.MaxUploadBytes <= 0 {
 		cfg.MaxUploadBytes = 8 << 30
 	}
+	if cfg.MaxUploadsPerToken <= 0 {
+		cfg.MaxUploadsPerToken = DefaultMaxUploadsPerToken
+	}
+	if cfg.BodyIdleTimeout <= 0 {
+		cfg.BodyIdleTimeout = DefaultBodyIdleTimeout
+	}
 	e := echo.New()
 	e.HideBanner = true
 	e.HidePort = true
 	e.HTTPErrorHandler = errorHandler(cfg.Logger)
-	s := &Server{cfg: cfg, echo: e}
+	s := &Server{cfg: cfg, echo: e, uploading: map[string]int{}}
 	e.Use(middleware.Recover())
 	e.Use(middleware.RequestID())
 	e.Use(s.accessLog)
 
-	e.GET("/", func(c echo.Context) error { return c.HTMLBlob(http.StatusOK, web.Index) })
+	e.Pre(wellFormedQuery)
+	index := func(c echo.Context) error { return c.HTMLBlob(http.StatusOK, web.Index) }
 	view := func(c echo.Context) error {
 		h := c.Response().Header()
 		h.Set("Content-Security-Policy", "default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; connect-src 'self'; img-src 'self'")
 		h.Set("Referrer-Policy", "no-referrer")
 		return c.HTMLBlob(http.StatusOK, web.Version)
 	}
-	e.GET("/view/:project/:dataset", view)
-	e.GET("/view/:project/:dataset/:version", view)
-	api := e.Group("/api/v1")
-	api.GET("/health", s.health)
-	api.GET("/schema", s.schema)
-
-	auth := api.Group("", s.authenticate)
-	auth.GET("/projects", s.listProjects)
-	auth.POST("/projects", s.createProject)
-	auth.GET("/projects/:project", s.getProject)
-	auth.GET("/projects/:project/datasets", s.listDatasets)
-	auth.POST("/projects/:project/datasets", s.createDataset)
-	ds := "/projects/:project/datasets/:dataset"
-	auth.GET(ds, s.getDataset)
-	auth.POST(ds+"/changes", s.setChanges)
-	auth.POST(ds+"/uploads", s.upload)
-	auth.GET(ds+"/uploads", s.listUploads)
-	auth.GET(ds+"/versions", s.listVersions)
-	auth.GET(ds+"/versions/:version", s.getVersion)
-	auth.GET(ds+"/versions/:version/manifest", s.getManifest)
-	auth.GET(ds+"/versions/:version/quality", s.getQuality)
-	auth.GET(ds+"/versions/:version/files/:file", s.download)
-	auth.HEAD(ds+"/versions/:version/files/:file", s.download)
-	auth.GET(ds+"/versions/:version/summary", s.getSummary)
-	auth.GET(ds+"/versions/:version/export", s.exportVersion)
-	auth.GET(ds+"/versions/:version/bundle", s.getBundle)
-	auth.GET(ds+"/versions/:version/citation", s.getCitation)
-	auth.GET(ds+"/diff", s.diffVersions)
-	auth.GET(ds+"/quality/trend", s.getTrend)
-	auth.GET(ds+"/alerts", s.getAlerts)
-	auth.POST(ds+"/versions/:version/:action", s.setState)
-	auth.POST("/admin/gc", s.collectGarbage)
+	const api, ds = "/api/v1", "/api/v1/projects/:project/datasets/:dataset"
+	filter := []string{"from", "to", "site*", "queue*", "activity*"}
+	s.routes = []route{
+		{method: "GET", path: "/", h: index, public: true},
+		{method: "GET", path: "/view/:project/:dataset", h: view, public: true},
+		{method: "GET", path: "/view/:project/:dataset/:version", h: view, public: true},
+		{method: "GET", path: api + "/health", h: s.health, public: true},
+		{method: "GET", path: api + "/schema", h: s.schema, public: true},
+		{method: "GET", path: api + "/projects", h: s.listProjects},
+		{method: "POST", path: api + "/projects", h: s.createProject},
+		{method: "GET", path: api + "/projects/:project", h: s.getProject},
+		{method: "GET", path: api + "/projects/:project/datasets", h: s.listDatasets},
+		{method: "POST", path: api + "/projects/:project/datasets", h: s.createDataset},
+		{method: "GET", path: ds, h: s.getDataset},
+		{method: "POST", path: ds + "/changes", h: s.setChanges},
+		{method: "POST", path: ds + "/uploads", h: s.upload, params: []string{"filename", "mode", "from", "to", "site*"}},
+		{method: "GET", path: ds + "/uploads", h: s.listUploads},
+		{method: "GET", path: ds + "/versions", h: s.listVersions, params: []string{"limit", "after"}},
+		{method: "GET", path: ds + "/versions/:version", h: s.getVersion},
+		{method: "GET", path: ds + "/versions/:version/manifest", h: s.getManifest},
+		{method: "GET", path: ds + "/versions/:version/quality", h: s.getQuality},
+		{method: "GET", path: ds + "/versions/:version/files/:file", h: s.download},
+		{method: "HEAD", path: ds + "/versions/:version/files/:file", h: s.download},
+		{method: "GET", path: ds + "/versions/:version/summary", h: s.getSummary, params: filter},
+		{method: "GET", path: ds + "/versions/:version/export", h: s.exportVersion, params: append([]string{"format", "type*", "columns*"}, filter...)},
+		{method: "GET", path: ds + "/versions/:version/bundle", h: s.getBundle, params: []string{"format"}},
+		{method: "GET", path: ds + "/versions/:version/citation", h: s.getCitation},
+		{method: "GET", path: ds + "/diff", h: s.diffVersions, params: append([]string{"a", "b", "type*"}, filter...)},
+		{method: "GET", path: ds + "/quality/trend", h: s.getTrend, params: []string{"site"}},
+		{method: "GET", path: ds + "/alerts", h: s.getAlerts, params: []string{"site"}},
+		{method: "POST", path: ds + "/versions/:version/publish", h: s.setState},
+		{method: "POST", path: ds + "/versions/:version/retract", h: s.setState},
+		{method: "POST", path: api + "/admin/gc", h: s.collectGarbage},
+	}
+	for _, r := range s.routes {
+		var mw []echo.MiddlewareFunc
+		if !r.public {
+			mw = append(mw, s.authenticate)
+		}
+		mw = append(mw, knownParams(r.params))
+		if r.method == http.MethodPost {
+			mw = append(mw, s.idleBodies)
+		}
+		e.Add(r.method, r.path, r.h, mw...)
+	}
+	e.RouteNotFound("/*", s.notFound)
 	return s
 }
 

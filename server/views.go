@@ -5,6 +5,7 @@ import (
 	"crypto/sha256"
 	"encoding/hex"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"net/http"
 	"net/url"
@@ -21,20 +22,11 @@ import (
 )
 
 // parseFilter reads a filter from the query: from and to (RFC 3339), and
-// site, queue, type, activity and (when columns is true) columns, each
-// repeated or comma-separated. Any other parameter but those in extra is
-// refused, so that a misspelt one cannot silently widen a download.
-func parseFilter(q url.Values, columns bool, extra ...string) (export.Filter, error) {
+// site, queue, type, activity and columns, each repeated or
+// comma-separated. The route refuses parameters it does not take (see
+// route), so that a misspelt one cannot silently widen a download.
+func parseFilter(q url.Values) (export.Filter, error) {
 	var f export.Filter
-	allowed := append([]string{"from", "to", "site", "queue", "type", "activity"}, extra...)
-	if columns {
-		allowed = append(allowed, "columns")
-	}
-	for k := range q {
-		if !slices.Contains(allowed, k) {
-			return f, fail(http.StatusBadRequest, "invalid", "unknown parameter %q: want %s", truncateParam(k), strings.Join(allowed, ", "))
-		}
-	}
 	var err error
 	if f.From, f.To, err = window(q); err != nil {
 		return f, err
@@ -113,30 +105,27 @@ func (s *Server) getSummary(c echo.Context) error {
 		return err
 	}
 	q := c.QueryParams()
-	f, err := parseFilter(q, false)
+	f, err := parseFilter(q)
 	if err != nil {
 		return err
 	}
-	if len(f.EventTypes) > 0 {
-		return fail(http.StatusBadRequest, "invalid", "a summary takes site, queue, activity, from and to; not type")
-	}
 	if head.State == catalog.StateRetracted {
-		return s.gone(*head)
+		return s.gone(head)
 	}
 	h := c.Response().Header()
-	h.Set("ETag", `"`+head.SnapshotID+`"`)
+	h.Set("ETag", `"`+head.SnapshotID.String()+`"`)
 	if len(q) == 0 {
 		// Stored gzip-compressed: sent as it is to a client that takes gzip.
 		h.Add("Vary", "Accept-Encoding")
 		if acceptsGzip(c.Request()) {
-			gz, err := s.cfg.Store.SummaryGzip(c.Request().Context(), head.Dataset, head.Number)
+			gz, err := s.cfg.Store.SummaryGzip(c.Request().Context(), head.Dataset.String(), head.Number)
 			if err != nil {
 				return catalogError(err)
 			}
 			h.Set(echo.HeaderContentEncoding, "gzip")
 			return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, gz)
 		}
-		b, err := s.cfg.Store.Summary(c.Request().Context(), head.Dataset, head.Number)
+		b, err := s.cfg.Store.Summary(c.Request().Context(), head.Dataset.String(), head.Number)
 		if err != nil {
 			return catalogError(err)
 		}
@@ -179,18 +168,19 @@ func acceptsGzip(r *http.Request) bool {
 	return false
 }
 
-func (s *Server) gone(h catalog.VersionHead) error {
+func (s *Server) gone(h *catalog.Version) error {
 	return fail(http.StatusGone, "retracted", "version %d of %s was retracted on %s: %s; its metadata and citation stay readable",
 		h.Number, h.Dataset, h.RetractedAt.Format(time.RFC3339), h.RetractReason)
 }
 
 // requestTag is a strong ETag for a deterministic response: the same
-// version, format and filter always give the same bytes.
+// version, format and filter always give the same bytes, as long as the
+// writers' layout (export.Layout) stays the same.
 func requestTag(v *catalog.Version, format string, f export.Filter) string {
 	b, _ := json.Marshal(struct {
-		Snapshot, Format string
-		Filter           export.Filter
-	}{v.SnapshotID, format, f})
+		Snapshot, Format, Layout string
+		Filter                   export.Filter
+	}{v.SnapshotID.String(), format, export.Layout, f})
 	sum := sha256.Sum256(b)
 	return `"` + hex.EncodeToString(sum[:16]) + `"`
 }
@@ -211,12 +201,12 @@ func (s *Server) exportVersion(c echo.Context) error {
 	if format != "parquet" && format != "csv" {
 		return fail(http.StatusBadRequest, "invalid", "format %q: want parquet or csv", truncateParam(format))
 	}
-	f, err := parseFilter(q, true, "format")
+	f, err := parseFilter(q)
 	if err != nil {
 		return err
 	}
 	tag := requestTag(v, format, f)
-	name := fmt.Sprintf("%s-v%d", strings.ReplaceAll(v.Manifest.Dataset, "/", "-"), v.Number)
+	name := fmt.Sprintf("%s-v%d", strings.ReplaceAll(v.Dataset.String(), "/", "-"), v.Number)
 	if len(q) > 1 || len(q) == 1 && q.Get("format") == "" {
 		name += "-" + strings.Trim(tag, `"`)[:8]
 	}
@@ -238,13 +228,13 @@ func (s *Server) exportVersion(c echo.Context) error {
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.parquet"`, name))
 		w.WriteHeader(http.StatusOK)
 		_, err = export.WriteParquet(ctx, w, s.source(), v.Manifest.Files, f, export.ParquetOptions{
-			Metadata: map[string]string{"flowcat.dataset": v.Manifest.Dataset, "flowcat.version": fmt.Sprint(v.Number), "flowcat.snapshot_id": v.SnapshotID},
+			Metadata: map[string]string{"flowcat.dataset": v.Dataset.String(), "flowcat.version": fmt.Sprint(v.Number), "flowcat.snapshot_id": v.SnapshotID.String()},
 		})
 	}
 	if err != nil {
 		// The status is sent: cut the body short so the client sees a
 		// truncated download rather than a whole-looking file.
-		s.cfg.Logger.Error("export interrupted", "dataset", v.Manifest.Dataset, "version", v.Number, "err", err)
+		s.cfg.Logger.Error("export interrupted", "dataset", v.Dataset, "version", v.Number, "err", err)
 		panic(http.ErrAbortHandler)
 	}
 	return nil
@@ -262,11 +252,11 @@ func (s *Server) citationInput(ctx context.Context, d *catalog.Dataset, v *catal
 	}
 	title := d.Title
 	if title == "" {
-		title = d.Ref()
+		title = d.Ref().String()
 	}
 	return export.CitationInput{
-		Title: title, Dataset: d.Ref(), Version: v.Number, SnapshotID: v.SnapshotID,
-		Released: v.Manifest.CreatedAt, Authors: []export.Author{{Name: author}},
+		Title: title, Dataset: d.Ref().String(), Version: v.Number, SnapshotID: v.SnapshotID.String(),
+		Released: v.CreatedAt, Authors: []export.Author{{Name: author}},
 	}
 }
 
@@ -299,11 +289,6 @@ func (s *Server) getBundle(c echo.Context) error {
 	if format == "" {
 		format = "tar"
 	}
-	for k := range c.QueryParams() {
-		if k != "format" {
-			return fail(http.StatusBadRequest, "invalid", "unknown parameter %q: a bundle takes format=tar|zip", truncateParam(k))
-		}
-	}
 	if format != "tar" && format != "zip" {
 		return fail(http.StatusBadRequest, "invalid", "format %q: want tar or zip", truncateParam(format))
 	}
@@ -316,10 +301,20 @@ func (s *Server) getBundle(c echo.Context) error {
 	h.Set("ETag", tag)
 	ct := map[string]string{"tar": "application/x-tar", "zip": "application/zip"}[format]
 	h.Set(echo.HeaderContentType, ct)
-	h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s-v%d.%s"`, strings.ReplaceAll(d.Ref(), "/", "-"), v.Number, format))
+	h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s-v%d.%s"`, strings.ReplaceAll(d.Ref().String(), "/", "-"), v.Number, format))
+	manifest, err := s.cfg.Store.ManifestBytes(c.Request().Context(), v)
+	if err != nil {
+		return catalogError(err)
+	}
+	report, err := s.cfg.Store.QualityReport(c.Request().Context(), v)
+	if errors.Is(err, catalog.ErrNotFound) {
+		report = nil
+	} else if err != nil {
+		return catalogError(err)
+	}
 	c.Response().WriteHeader(http.StatusOK)
 	err = export.WriteBundle(c.Request().Context(), c.Response(), format, export.Bundle{
-		Dataset: d, Version: v, Open: s.opener(), Citation: s.citationInput(c.Request().Context(), d, v),
+		Dataset: d, Version: v, Manifest: manifest, Quality: report, Open: s.opener(), Citation: s.citationInput(c.Request().Context(), d, v),
 	})
 	if err != nil {
 		s.cfg.Logger.Error("bundle interrupted", "dataset", d.Ref(), "version", v.Number, "err", err)
@@ -338,8 +333,8 @@ type diffResponse struct {
 }
 
 type versionRef struct {
-	Version    int    `json:"version"`
-	SnapshotID string `json:"snapshot_id"`
+	Version    int                `json:"version"`
+	SnapshotID catalog.SnapshotID `json:"snapshot_id"`
 }
 
 // diffVersions compares versions ?a= and ?b= (any selectors) by content,
@@ -350,7 +345,7 @@ func (s *Server) diffVersions(c echo.Context) error {
 		return err
 	}
 	q := c.QueryParams()
-	f, err := parseFilter(q, false, "a", "b")
+	f, err := parseFilter(q)
 	if err != nil {
 		return err
 	}
@@ -371,7 +366,7 @@ func (s *Server) diffVersions(c echo.Context) error {
 			return catalogError(err)
 		}
 		if v.State == catalog.StateRetracted {
-			return s.gone(v.Head())
+			return s.gone(v)
 		}
 		vs[i] = v
 	}
@@ -381,11 +376,18 @@ func (s *Server) diffVersions(c echo.Context) error {
 	}
 	out := diffResponse{
 		From: versionRef{vs[0].Number, vs[0].SnapshotID}, To: versionRef{vs[1].Number, vs[1].SnapshotID},
-		Events: res, Quality: qualityDelta(vs[0], vs[1]),
+		Events: res,
 	}
+	var reps [2][]byte
+	for i, v := range vs {
+		if reps[i], err = s.cfg.Store.QualityReport(ctx, v); err != nil && !errors.Is(err, catalog.ErrNotFound) {
+			return catalogError(err)
+		}
+	}
+	out.Quality = qualityDelta(reps[0], reps[1])
 	var sums [2]map[string]any
 	for i, v := range vs {
-		b, err := s.cfg.Store.Summary(ctx, v.Manifest.Dataset, v.Number)
+		b, err := s.cfg.Store.Summary(ctx, v.Dataset.String(), v.Number)
 		if err != nil {
 			return catalogError(err)
 		}
@@ -430,13 +432,13 @@ func lookup(m map[string]any, path string) (float64, bool) {
 }
 
 // qualityDelta is b's scores minus a's: the overall score and each
-// dimension's, read from the reports' JSON so it follows the report format.
-func qualityDelta(a, b *catalog.Version) map[string]float64 {
-	scores := func(v *catalog.Version) map[string]float64 {
+// dimension's, read from the stored reports' JSON so it follows the
+// report format.
+func qualityDelta(a, b []byte) map[string]float64 {
+	scores := func(raw []byte) map[string]float64 {
 		out := map[string]float64{}
 		var m map[string]any
-		raw, err := json.Marshal(v.Manifest.Quality)
-		if err != nil || json.Unmarshal(raw, &m) != nil {
+		if json.Unmarshal(raw, &m) != nil {
 			return out
 		}
 		if f, ok := m["score"].(float64); ok {
@@ -476,11 +478,6 @@ func (s *Server) getTrend(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	for k := range c.QueryParams() {
-		if k != "site" {
-			return fail(http.StatusBadRequest, "invalid", "unknown parameter %q: the trend takes site", truncateParam(k))
-		}
-	}
 	points, alerts, err := s.trend(c, d)
 	if err != nil {
 		return err
@@ -493,11 +490,6 @@ func (s *Server) getAlerts(c echo.Context) error {
 	d, err := s.dataset(c, (*Claims).CanSeeDataset, "see the alerts of")
 	if err != nil {
 		return err
-	}
-	for k := range c.QueryParams() {
-		if k != "site" {
-			return fail(http.StatusBadRequest, "invalid", "unknown parameter %q: alerts take site", truncateParam(k))
-		}
 	}
 	_, alerts, err := s.trend(c, d)
 	if err != nil {

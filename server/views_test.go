@@ -77,7 +77,7 @@ func TestExportOverHTTP(t *testing.T) {
 	if pf.NumRows() != int64(len(stored)) || pf.NumRows() != v.Manifest.Rows {
 		t.Fatalf("export has %d rows, version %d", pf.NumRows(), v.Manifest.Rows)
 	}
-	if kv := pf.MetaData().KeyValueMetadata(); kv.FindValue("flowcat.snapshot_id") == nil || *kv.FindValue("flowcat.snapshot_id") != v.SnapshotID {
+	if kv := pf.MetaData().KeyValueMetadata(); kv.FindValue("flowcat.snapshot_id") == nil || *kv.FindValue("flowcat.snapshot_id") != v.SnapshotID.String() {
 		t.Errorf("export metadata lacks the snapshot id")
 	}
 	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{BatchSize: 1024}, memory.DefaultAllocator)
@@ -166,7 +166,7 @@ func TestBundleAndCitation(t *testing.T) {
 		entries[h.Name] = b
 	}
 	m := sha256.Sum256(entries["manifest.json"])
-	if hex.EncodeToString(m[:]) != v.SnapshotID {
+	if hex.EncodeToString(m[:]) != v.SnapshotID.String() {
 		t.Fatal("the bundle's manifest.json does not hash to the snapshot id")
 	}
 	for _, f := range v.Manifest.Files {
@@ -200,7 +200,7 @@ func TestBundleAndCitation(t *testing.T) {
 		t.Error("the citation endpoint and the bundle's CITATION.cff differ")
 	}
 	validateCFF(t, cit.Body)
-	for _, want := range []string{v.SnapshotID, "version: \"2\"", "Project ward"} {
+	for _, want := range []string{v.SnapshotID.String(), "version: \"2\"", "Project ward"} {
 		if !strings.Contains(string(cit.Body), want) {
 			t.Errorf("CITATION.cff lacks %q:\n%s", want, cit.Body)
 		}

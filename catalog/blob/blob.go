@@ -90,3 +90,14 @@ type Store interface {
 	// Delete removes the blob; deleting a missing blob is not an error.
 	Delete(ctx context.Context, id ID) error
 }
+
+// TempSweeper is implemented by stores that write a blob to a temporary
+// file before it is put in place (localfs does): a crash mid-write leaves
+// that file behind, and SweepTemp removes such files.
+type TempSweeper interface {
+	// SweepTemp removes the store's temporary files that no Put of this
+	// process is writing and that were last modified more than olderThan
+	// ago (every such file when olderThan <= 0), or with dryRun only
+	// counts them. It reports how many files and bytes it found.
+	SweepTemp(ctx context.Context, olderThan time.Duration, dryRun bool) (files int, bytes int64, err error)
+}

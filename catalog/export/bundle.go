@@ -29,8 +29,13 @@ var ErrFormat = errors.New("unknown bundle format")
 // Bundle is one version of a dataset to package for a researcher.
 type Bundle struct {
 	Dataset *catalog.Dataset
-	Version *catalog.Version
-	Open    Opener
+	Version *catalog.Version // with its manifest
+	// Manifest is the manifest as stored (Store.ManifestBytes), the bytes
+	// whose SHA-256 is the snapshot id; Quality the version's quality
+	// report as stored (Store.QualityReport), or nil for none.
+	Manifest []byte
+	Quality  []byte
+	Open     Opener
 	// Citation describes the version for CITATION.cff; its Dataset,
 	// Version, SnapshotID and Released default to those of Version, its
 	// Title to the dataset's title or reference.
@@ -43,6 +48,7 @@ const (
 	BundleCitation   = "CITATION.cff"
 	BundleDictionary = "DICTIONARY.md"
 	BundleManifest   = "manifest.json"
+	BundleQuality    = "quality.json"
 	BundleSums       = "SHA256SUMS"
 )
 
@@ -68,24 +74,20 @@ func WriteBundle(ctx context.Context, w io.Writer, format string, b Bundle) erro
 	if format != "tar" && format != "zip" {
 		return fmt.Errorf("bundle: format %q: want tar or zip: %w", truncate(format), ErrFormat)
 	}
-	if b.Dataset == nil || b.Version == nil || b.Open == nil {
-		return fmt.Errorf("bundle: dataset, version and opener are required")
+	if b.Dataset == nil || b.Version == nil || b.Version.Manifest == nil || b.Manifest == nil || b.Open == nil {
+		return fmt.Errorf("bundle: dataset, version, manifest and opener are required")
 	}
 	v := b.Version
-	m := &v.Manifest
-	canon, err := m.Canonical()
-	if err != nil {
-		return fmt.Errorf("bundle: %w", err)
-	}
+	m := v.Manifest
 	ci := b.Citation
 	if ci.Dataset == "" {
-		ci.Dataset = b.Dataset.Ref()
+		ci.Dataset = b.Dataset.Ref().String()
 	}
 	if ci.Version == 0 {
 		ci.Version = v.Number
 	}
 	if ci.SnapshotID == "" {
-		ci.SnapshotID = v.SnapshotID
+		ci.SnapshotID = v.SnapshotID.String()
 	}
 	if ci.Released.IsZero() {
 		ci.Released = m.CreatedAt
@@ -93,28 +95,28 @@ func WriteBundle(ctx context.Context, w io.Writer, format string, b Bundle) erro
 	if ci.Title == "" {
 		ci.Title = b.Dataset.Title
 		if ci.Title == "" {
-			ci.Title = b.Dataset.Ref()
+			ci.Title = b.Dataset.Ref().String()
 		}
 	}
 	cite, err := Citation(ci)
 	if err != nil {
 		return fmt.Errorf("bundle: %w", err)
 	}
-	dict, err := dictionary(b.Dataset, v)
+	dict, err := dictionary(b.Dataset, v, b.Quality)
 	if err != nil {
 		return err
 	}
 	ents := []*entry{
-		{name: BundleReadme, body: readme(b.Dataset, v)},
+		{name: BundleReadme, body: readme(b.Dataset, v, b.Quality != nil)},
 		{name: BundleCitation, body: cite},
 		{name: BundleDictionary, body: dict},
-		{name: BundleManifest, body: canon},
+		{name: BundleManifest, body: b.Manifest},
 	}
-	for _, f := range m.Files {
-		ents = append(ents, &entry{name: "data/" + f.SHA256.String() + ".parquet", file: f.SHA256, size: f.Bytes, sum: f.SHA256.String()})
+	if b.Quality != nil {
+		ents = append(ents, &entry{name: BundleQuality, body: b.Quality})
 	}
-	if ct := m.CaseTable; ct != nil {
-		ents = append(ents, &entry{name: "cases/" + ct.SHA256.String() + ".parquet", file: ct.SHA256, size: ct.Bytes, sum: ct.SHA256.String()})
+	for _, f := range m.Blobs() {
+		ents = append(ents, &entry{name: f.Path, file: f.SHA256, size: f.Bytes, sum: f.SHA256.String()})
 	}
 	var sums bytes.Buffer
 	for _, e := range ents {
@@ -221,12 +223,12 @@ func msDosTime(t time.Time) (date, clock uint16) {
 	return date, clock
 }
 
-func readme(d *catalog.Dataset, v *catalog.Version) []byte {
-	m := &v.Manifest
+func readme(d *catalog.Dataset, v *catalog.Version, withQuality bool) []byte {
+	m := v.Manifest
 	var b strings.Builder
 	title := d.Title
 	if title == "" {
-		title = d.Ref()
+		title = d.Ref().String()
 	}
 	fmt.Fprintf(&b, "# %s, version %d\n\n", title, v.Number)
 	fmt.Fprintf(&b, "This bundle holds version %d of the dataset `%s` exactly as the catalog stores it: ", v.Number, d.Ref())
@@ -237,7 +239,10 @@ func readme(d *catalog.Dataset, v *catalog.Version) []byte {
 	fmt.Fprintf(&b, "- Events: %d in %d file(s)\n", m.Rows, len(m.Files))
 	fmt.Fprintf(&b, "- Schema: service-event schema v%s (see %s)\n\n", m.SchemaVersion, BundleDictionary)
 	b.WriteString("## Contents\n\n")
-	fmt.Fprintf(&b, "- `%s`: the version's manifest, in the canonical JSON the snapshot id is computed from.\n", BundleManifest)
+	fmt.Fprintf(&b, "- `%s`: the version's manifest, as stored when the version was made; the snapshot id is computed from these bytes.\n", BundleManifest)
+	if withQuality {
+		fmt.Fprintf(&b, "- `%s`: the version's full quality report (JSON; the manifest names its SHA-256).\n", BundleQuality)
+	}
 	b.WriteString("- `data/<sha256>.parquet`: the snapshot files; each is named by the SHA-256 of its bytes. Rows are sorted by `occurred_at` within a file; read all files of the manifest together for the whole version.\n")
 	fmt.Fprintf(&b, "- `%s`: the fields, their types and the mapping profile and quality summary of the data.\n", BundleDictionary)
 	fmt.Fprintf(&b, "- `%s`: how to cite this version (Citation File Format 1.2.0).\n", BundleCitation)
@@ -272,8 +277,8 @@ var fieldDocs = map[schema.Field]string{
 	schema.FieldEventID:    "The source system's id of the event, when it has one.",
 }
 
-func dictionary(d *catalog.Dataset, v *catalog.Version) ([]byte, error) {
-	m := &v.Manifest
+func dictionary(d *catalog.Dataset, v *catalog.Version, report []byte) ([]byte, error) {
+	m := v.Manifest
 	var b strings.Builder
 	fmt.Fprintf(&b, "# Data dictionary: %s, version %d\n\n", d.Ref(), v.Number)
 	fmt.Fprintf(&b, "Service-event schema v%s: one row per event of a case.\n\n", m.SchemaVersion)
@@ -306,14 +311,14 @@ func dictionary(d *catalog.Dataset, v *catalog.Version) ([]byte, error) {
 		fmt.Fprintf(&b, "The profile that maps partner exports into the schema:\n\n%syaml\n%s\n%s\n", fence, strings.TrimRight(d.Profile, "\n"), fence)
 	}
 	if m.CaseTable != nil {
-		fmt.Fprintf(&b, "\n## Case table\n\n`cases/%s.parquet`: one row per case over every file of the version (%d cases), in `case_id` order. A case is its case id within the dataset, however long it idles.\n\n", m.CaseTable.SHA256, m.CaseTable.Rows)
+		fmt.Fprintf(&b, "\n## Case table\n\n`%s`: one row per case over every file of the version (%d cases), in `case_id` order. A case is its case id within the dataset, however long it idles.\n\n", catalog.CasesPath(m.CaseTable.SHA256), m.CaseTable.Rows)
 		b.WriteString("| column | type | description |\n|---|---|---|\n")
 		for _, c := range cases.RowColumns {
 			fmt.Fprintf(&b, "| `%s` | %s | %s |\n", c.Name, c.Type, c.Meaning)
 		}
 	}
 	b.WriteString("\n## Quality\n\n")
-	q, err := qualitySummary(m)
+	q, err := qualitySummary(report)
 	if err != nil {
 		return nil, err
 	}
@@ -329,15 +334,11 @@ func yesNo(v bool) string {
 }
 
 // qualitySummary renders the score, the rows and the per-dimension scores
-// of the manifest's quality report from its JSON, so that fields added to
-// the report later do not break it.
-func qualitySummary(m *catalog.Manifest) (string, error) {
-	if m.Quality == nil {
+// of the version's stored quality report from its JSON, so that fields
+// added to the report later do not break it.
+func qualitySummary(raw []byte) (string, error) {
+	if raw == nil {
 		return "No quality report was recorded for this version.\n", nil
-	}
-	raw, err := json.Marshal(m.Quality)
-	if err != nil {
-		return "", fmt.Errorf("bundle: quality: %w", err)
 	}
 	var rep map[string]any
 	if err := json.Unmarshal(raw, &rep); err != nil {

@@ -20,6 +20,7 @@ import (
 	"github.com/santhosh-tekuri/jsonschema/v6"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 func bundleFixture(t *testing.T) (*env, Bundle) {
@@ -29,15 +30,27 @@ func bundleFixture(t *testing.T) (*env, Bundle) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	mb, err := e.s.ManifestBytes(context.Background(), vs[2])
+	if err != nil {
+		t.Fatal(err)
+	}
+	rep, err := e.s.QualityReport(context.Background(), vs[2])
+	if err != nil {
+		t.Fatal(err)
+	}
 	return e, Bundle{
-		Dataset: ds, Version: vs[2], Open: e.opener(),
+		Dataset: ds, Version: vs[2], Manifest: mb, Quality: rep, Open: e.opener(),
 		Citation: CitationInput{Authors: []Author{{Name: "Flow Research Lab"}, {GivenNames: "Ada", FamilyNames: "Quill", Affiliation: "Quillon Bay Health"}}},
 	}
 }
 
 func TestBundleTarAndZip(t *testing.T) {
 	e, b := bundleFixture(t)
-	m := &b.Version.Manifest
+	m := b.Version.Manifest
+	var rep quality.Report
+	if err := json.Unmarshal(b.Quality, &rep); err != nil {
+		t.Fatal(err)
+	}
 	mtime := m.CreatedAt.UTC().Truncate(time.Second)
 	for _, format := range []string{"tar", "zip"} {
 		t.Run(format, func(t *testing.T) {
@@ -92,7 +105,7 @@ func TestBundleTarAndZip(t *testing.T) {
 					names = append(names, f.Name)
 				}
 			}
-			wantNames := []string{BundleReadme, BundleCitation, BundleDictionary, BundleManifest}
+			wantNames := []string{BundleReadme, BundleCitation, BundleDictionary, BundleManifest, BundleQuality}
 			for _, f := range m.Files {
 				wantNames = append(wantNames, "data/"+f.SHA256.String()+".parquet")
 			}
@@ -122,12 +135,14 @@ func TestBundleTarAndZip(t *testing.T) {
 				t.Errorf("SHA256SUMS checks %d files, want %d", checked, len(wantNames)-1)
 			}
 			ms := sha256.Sum256(files[BundleManifest])
-			if hex.EncodeToString(ms[:]) != b.Version.SnapshotID {
+			if hex.EncodeToString(ms[:]) != b.Version.SnapshotID.String() {
 				t.Error("manifest.json does not hash to the snapshot id")
 			}
-			canon, _ := m.Canonical()
-			if !bytes.Equal(files[BundleManifest], canon) {
-				t.Error("manifest.json is not the canonical manifest")
+			if !bytes.Equal(files[BundleManifest], b.Manifest) {
+				t.Error("manifest.json is not the stored manifest")
+			}
+			if qs := sha256.Sum256(files[BundleQuality]); m.Quality == nil || qs != m.Quality.SHA256 {
+				t.Error("quality.json does not hash to the report the manifest names")
 			}
 			for _, f := range m.Files {
 				r, err := e.s.Blobs().Open(context.Background(), f.SHA256)
@@ -141,7 +156,7 @@ func TestBundleTarAndZip(t *testing.T) {
 				}
 			}
 			readme := string(files[BundleReadme])
-			for _, want := range []string{b.Version.SnapshotID, "sha256sum -c SHA256SUMS", "personal data", "ethics approval", "data-use agreement", "not advice on the care of any patient"} {
+			for _, want := range []string{b.Version.SnapshotID.String(), "sha256sum -c SHA256SUMS", "personal data", "ethics approval", "data-use agreement", "not advice on the care of any patient"} {
 				if !strings.Contains(readme, want) {
 					t.Errorf("README lacks %q", want)
 				}
@@ -153,15 +168,15 @@ func TestBundleTarAndZip(t *testing.T) {
 				}
 			}
 			// Every dimension of the report, whatever it is called, gets a row.
-			for _, d := range m.Quality.Dimensions {
+			for _, d := range rep.Dimensions {
 				if !strings.Contains(dict, "| "+d.Name+" | ") {
 					t.Errorf("DICTIONARY.md has no row for quality dimension %s", d.Name)
 				}
 			}
-			if len(m.Quality.Dimensions) == 0 {
+			if len(rep.Dimensions) == 0 {
 				t.Error("the fixture's report has no dimensions")
 			}
-			if !bytes.Contains(files[BundleCitation], []byte(b.Version.SnapshotID)) {
+			if !bytes.Contains(files[BundleCitation], []byte(b.Version.SnapshotID.String())) {
 				t.Error("CITATION.cff does not name the snapshot id")
 			}
 		})

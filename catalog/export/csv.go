@@ -16,6 +16,12 @@ import (
 // record, and a field enclosed in double quotes (inner quotes doubled) when
 // it holds a comma, double quote, CR or LF; line breaks inside a field are
 // written as they are. occurred_at is RFC 3339 in UTC with microseconds.
+//
+// A value a spreadsheet would take for a formula is neutralised: one that
+// begins with =, +, -, @, a tab, a carriage return or a NUL gets a single
+// quote in front (OWASP's CSV-injection rule, as OWASP ASVS 5.0
+// requirement 1.2.10 states it), so =HYPERLINK(...) reads as text.
+// Readers that want the stored value take the Parquet export.
 func WriteCSV(ctx context.Context, w io.Writer, src Source, files []catalog.FileEntry, f Filter) (Stats, error) {
 	if err := f.Validate(); err != nil {
 		return Stats{}, err
@@ -29,7 +35,7 @@ func WriteCSV(ctx context.Context, w io.Writer, src Source, files []catalog.File
 	writeRecord(bw, rec)
 	st, err := Events(ctx, src, files, f, func(e *schema.Event) error {
 		for i, c := range cols {
-			rec[i] = e.Value(c)
+			rec[i] = NeutraliseFormula(e.Value(c))
 		}
 		writeRecord(bw, rec)
 		return nil
@@ -41,6 +47,15 @@ func WriteCSV(ctx context.Context, w io.Writer, src Source, files []catalog.File
 		return st, fmt.Errorf("export: csv: %w", err)
 	}
 	return st, nil
+}
+
+// NeutraliseFormula returns v with a single quote in front when its first
+// byte would make a spreadsheet read it as a formula (see WriteCSV).
+func NeutraliseFormula(v string) string {
+	if v != "" && strings.IndexByte("=+-@\t\r\x00", v[0]) >= 0 {
+		return "'" + v
+	}
+	return v
 }
 
 // writeRecord writes one RFC 4180 record; bufio.Writer keeps the first

@@ -155,7 +155,7 @@ func stage(ctx context.Context, dir string, ins []*input, m *matcher, st *Stats)
 	}
 	path := tmp.Name()
 	defer tmp.Close()
-	pw := newParquetWriter(tmp, schema.Fields, DefaultRowGroupRows, nil)
+	pw := catalog.NewEventWriter(tmp, schema.Fields, catalog.EventWriterOptions{RowGroupRows: DefaultRowGroupRows})
 	s := newMerge(ctx, ins, m, st)
 	defer s.close()
 	var first, last time.Time
@@ -285,7 +285,7 @@ type cursor struct {
 	closer io.Closer
 	groups []parquet.RowGroup // row groups to decode
 	gi     int
-	rd     *parquet.GenericReader[schema.Event]
+	rd     *catalog.EventReader
 	buf    []schema.Event
 	pos, n int
 	run    []schema.Event
@@ -405,7 +405,11 @@ func (c *cursor) raw() (*schema.Event, error) {
 				c.eof = true
 				return nil, nil
 			}
-			c.rd = parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi])
+			rd, err := catalog.NewEventReader(parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi]))
+			if err != nil {
+				return nil, fmt.Errorf("export: %w", err)
+			}
+			c.rd = rd
 			c.gi++
 		}
 		clear(c.buf)

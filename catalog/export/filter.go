@@ -3,6 +3,7 @@ package export
 import (
 	"errors"
 	"fmt"
+	"net/url"
 	"slices"
 	"strings"
 	"time"
@@ -27,6 +28,33 @@ type Filter struct {
 	// schema field names; the output keeps schema order whatever the
 	// order given.
 	Columns []schema.Field
+}
+
+// Query returns f as the export endpoint's query parameters (from, to,
+// site, queue, type, activity, columns; keys sorted, values in the order
+// given), "" for the zero filter. Exports record it in their metadata.
+func (f Filter) Query() string {
+	q := url.Values{}
+	if !f.From.IsZero() {
+		q.Set("from", f.From.UTC().Format(time.RFC3339Nano))
+	}
+	if !f.To.IsZero() {
+		q.Set("to", f.To.UTC().Format(time.RFC3339Nano))
+	}
+	q["site"] = f.Sites
+	q["queue"] = f.Queues
+	for _, t := range f.EventTypes {
+		q.Add("type", string(t))
+	}
+	q["activity"] = f.Activities
+	if len(f.Columns) > 0 {
+		cols := make([]string, len(f.Columns))
+		for i, c := range f.Columns {
+			cols[i] = string(c)
+		}
+		q.Set("columns", strings.Join(cols, ","))
+	}
+	return q.Encode()
 }
 
 // Validate reports the first problem of f, wrapping ErrBadFilter: a window

@@ -221,3 +221,26 @@ func TestWriteCSV(t *testing.T) {
 		}
 	}
 }
+
+// TestNeutraliseFormula checks OWASP's CSV-injection rule (OWASP ASVS 5.0,
+// requirement 1.2.10; the OWASP CSV Injection page adds the carriage
+// return): a leading =, +, -, @, tab, CR or NUL gets a single quote.
+func TestNeutraliseFormula(t *testing.T) {
+	for in, want := range map[string]string{
+		`=HYPERLINK("http://x","y")`: `'=HYPERLINK("http://x","y")`,
+		"+1":                         "'+1",
+		"-2+3":                       "'-2+3",
+		"@SUM(A1)":                   "'@SUM(A1)",
+		"\tx":                        "'\tx",
+		"\rx":                        "'\rx",
+		"\x00x":                      "'\x00x",
+		"":                           "",
+		"triage":                     "triage",
+		"a=b":                        "a=b",
+		"'=x":                        "'=x",
+	} {
+		if got := NeutraliseFormula(in); got != want {
+			t.Errorf("NeutraliseFormula(%q) = %q, want %q", in, got, want)
+		}
+	}
+}

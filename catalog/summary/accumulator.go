@@ -91,7 +91,7 @@ type Accumulator struct {
 	arrivals uint64
 	arrWeek  [168]uint64
 	arrDay   map[int32]uint64
-	days     map[int32]struct{} // local days observed
+	days     observed // local days observed
 	los      *dist
 	evCase   *dist // events per case, as counts (not µs)
 	between  *dist // time between consecutive events of a case
@@ -241,7 +241,6 @@ func New(opt Options) *Accumulator {
 		subjects:  newDistinct(),
 		resources: newDistinct(),
 		arrDay:    map[int32]uint64{},
-		days:      map[int32]struct{}{},
 		los:       newDist(),
 		evCase:    newDist(),
 		between:   newDist(),
@@ -300,6 +299,11 @@ func (a *Accumulator) Observe(e *schema.Event) {
 		a.maxAt = at
 	}
 	a.hasTime = true
+	// A stretch of observation ends at a silence longer than
+	// ObservationGap; its days are observed, the silence's are not.
+	if a.segHas && (at > a.segLast+observationGap || at < a.segFirst-observationGap) {
+		a.endStretch()
+	}
 	if !a.segHas {
 		a.segHas, a.segFirst, a.segLast = true, at, at
 	}
@@ -437,30 +441,49 @@ func (a *Accumulator) occAdd(t int64, arrival bool) {
 	}
 }
 
-// finish ends the current file's stream state.
+// finish ends the current file's stream state and records the local
+// days of the stretch of events observed since the last one ended.
 func (a *Accumulator) finish() {
 	a.lastRes = ""
+	a.endStretch()
+}
+
+// observationGap is ObservationGap in µs.
+const observationGap = int64(ObservationGap / time.Microsecond)
+
+// endStretch records the local days of the current stretch of events as
+// observed.
+func (a *Accumulator) endStretch() {
+	if !a.segHas {
+		return
+	}
+	_, d0 := a.local(a.segFirst)
+	_, d1 := a.local(a.segLast)
+	a.days.add(dayRange{first: d0, last: d1, from: a.segFirst, to: a.segLast})
 	a.segHas = false
 }
 
 // exposure returns the hours of exposure behind each local hour of the
-// week (0 = Monday 00:00-01:00): every real hour from the one holding the
-// first event to the one holding the last counts once, for the local
-// hour of week its start falls in. So a partial first or last day counts
-// its hours only, the hour a clock change skips counts nowhere and the
-// one it repeats counts twice (for zones whose offsets are whole hours;
-// in others each real hour is credited to the local hour its start falls
-// in). The hours depend only on the first and last event, not on how the
-// events were cut into files, and the state does not grow with the span.
+// week (0 = Monday 00:00-01:00): in each observed stretch (see
+// ObservationGap), every real hour from the one holding its first event
+// to the one holding its last counts once, for the local hour of week its
+// start falls in; the silences between stretches count nowhere. So a
+// partial first or last day counts its hours only, the hour a clock
+// change skips counts nowhere and the one it repeats counts twice (for
+// zones whose offsets are whole hours; in others each real hour is
+// credited to the local hour its start falls in). The hours depend only
+// on the stretches, not on how the events were cut into files, and
+// neither the state nor this loop grows with the span: one far-dated event
+// adds its own hour.
 func (a *Accumulator) exposure() (total int, week [168]int) {
-	if !a.hasTime {
-		return 0, week
-	}
+	a.endStretch()
 	const hour = 3600 * usPerSec
-	for h := floorDiv(a.minAt, hour); h <= floorDiv(a.maxAt, hour); h++ {
-		how, _ := a.local(h * hour)
-		week[how]++
-		total++
+	for _, r := range a.days {
+		for h := floorDiv(r.from, hour); h <= floorDiv(r.to, hour); h++ {
+			how, _ := a.local(h * hour)
+			week[how]++
+			total++
+		}
 	}
 	return total, week
 }

@@ -9,14 +9,17 @@ import (
 )
 
 // stateMagic starts every serialized state; the last byte is the format
-// version.
-const stateMagic = "FCSUM\x03"
+// version. Format 4 keeps the observed stretches as ranges of days with
+// the instants of their first and last event (see ObservationGap) and the
+// census of Little's law.
+const stateMagic = "FCSUM\x04"
 
 // oldStateMagics start states of earlier formats: written before cases
-// were whole (their case figures were cut per file; 1) or before the
-// census of Little's law (2). UnmarshalBinary refuses them with
+// were whole (their case figures were cut per file; 1), before the
+// observed stretches held their first and last instants (2) or before
+// the census of Little's law (3). UnmarshalBinary refuses them with
 // ErrOldState, and the caller recomputes the state from the file.
-var oldStateMagics = []string{"FCSUM\x01", "FCSUM\x02"}
+var oldStateMagics = []string{"FCSUM\x01", "FCSUM\x02", "FCSUM\x03"}
 
 type enc struct{ b []byte }
 
@@ -158,12 +161,15 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 		e.uv(a.arrDay[d])
 		prev = d
 	}
-	obs := slices.Sorted(maps.Keys(a.days))
-	e.uv(uint64(len(obs)))
+	e.uv(uint64(len(a.days)))
 	prev = 0
-	for _, d := range obs {
-		e.iv(int64(d - prev))
-		prev = d
+	var prevAt int64
+	for _, r := range a.days {
+		e.iv(int64(r.first - prev))
+		e.uv(uint64(r.last - r.first))
+		e.iv(r.from - prevAt)
+		e.uv(uint64(r.to - r.from))
+		prev, prevAt = r.last, r.to
 	}
 	e.dist(a.los)
 	e.dist(a.evCase)
@@ -370,9 +376,17 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		x.arrDay[day] = d.uv()
 	}
 	day = 0
-	for range d.count(1) {
-		day += int32(d.iv())
-		x.days[day] = struct{}{}
+	var at int64
+	for range d.count(4) {
+		first := day + int32(d.iv())
+		day = first + int32(d.uv())
+		from := at + d.iv()
+		at = from + int64(d.uv())
+		if day < first || at < from || len(x.days) > 0 && first <= x.days[len(x.days)-1].last+observedJoinDays {
+			d.err = ErrCorrupt
+			break
+		}
+		x.days = append(x.days, dayRange{first: first, last: day, from: from, to: at})
 	}
 	x.los = d.dist()
 	x.evCase = d.dist()
@@ -384,6 +398,9 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		x.occ[k] = &occBucket{arr: d.uv(), dep: d.uv(), arrRest: d.iv(), depRest: d.iv()}
 	}
 	if d.err != nil || len(d.b) != 0 {
+		return fmt.Errorf("summary: %w", ErrCorrupt)
+	}
+	if len(x.days) == 0 && x.hasTime {
 		return fmt.Errorf("summary: %w", ErrCorrupt)
 	}
 	*a = *x

@@ -77,8 +77,8 @@ func (a *Accumulator) Merge(o *Accumulator) error {
 	for d, c := range o.arrDay {
 		a.arrDay[d] += c
 	}
-	for d := range o.days {
-		a.days[d] = struct{}{}
+	for _, r := range o.days {
+		a.days.add(r)
 	}
 	a.los.merge(o.los, a.cap)
 	a.evCase.merge(o.evCase, a.cap)

@@ -11,7 +11,7 @@ import (
 )
 
 // FormatVersion is the version of the Summary JSON layout.
-const FormatVersion = "1"
+const FormatVersion = "3"
 
 // Summary is the operational summary of the events an accumulator has
 // seen. SUMMARY.md documents every field; durations are in seconds, rates
@@ -198,13 +198,20 @@ type LengthOfStay struct {
 
 // Occupancy is the number of cases in system over time.
 type Occupancy struct {
-	Resolution float64    `json:"resolution"` // seconds per bucket
-	Start      *time.Time `json:"start,omitempty"`
-	Series     []float64  `json:"series"`       // time-average number in system per bucket
-	HourOfWeek []float64  `json:"hour_of_week"` // mean of Series by the hour of week of the bucket start
-	Peak       float64    `json:"peak"`         // largest bucket average
-	PeakAt     *time.Time `json:"peak_at,omitempty"`
-	Little     Little     `json:"little"`
+	Resolution float64 `json:"resolution"` // seconds per bucket
+	// Runs hold the series over each observed stretch (see
+	// ObservationGap); the silences between are left out.
+	Runs       []OccupancyRun `json:"runs"`
+	HourOfWeek []float64      `json:"hour_of_week"` // mean of the series by the hour of week of the bucket start
+	Peak       float64        `json:"peak"`         // largest bucket average
+	PeakAt     *time.Time     `json:"peak_at,omitempty"`
+	Little     Little         `json:"little"`
+}
+
+// OccupancyRun is the occupancy series over one observed stretch.
+type OccupancyRun struct {
+	Start  time.Time `json:"start"`
+	Series []float64 `json:"series"` // time-average number in system per bucket
 }
 
 // Little checks L = λW over [From, To] with its two sides measured apart
@@ -567,35 +574,62 @@ func logHistogram(d *dist) Histogram {
 }
 
 func (a *Accumulator) occupancy() Occupancy {
-	o := Occupancy{Resolution: float64(a.res) / usPerSec, HourOfWeek: make([]float64, 168)}
+	o := Occupancy{Resolution: float64(a.res) / usPerSec, HourOfWeek: make([]float64, 168), Runs: []OccupancyRun{}}
 	if len(a.occ) == 0 {
 		return o
 	}
 	keys := slices.Sorted(maps.Keys(a.occ))
 	first, last := keys[0], keys[len(keys)-1]
-	st := time.UnixMicro(first * a.res).In(a.loc)
-	o.Start = &st
 	var n int64 // number in system at the bucket start
 	var sums [168]float64
 	var cnt [168]int
 	w := float64(a.res)
-	for b := first; b <= last; b++ {
-		x := a.occ[b]
+	cur, k := first, 0 // next bucket not yet stepped; next key
+	// step moves past bucket b (== cur) and returns its mean.
+	step := func(b int64) float64 {
 		ar := float64(n) * w
-		if x != nil {
+		if k < len(keys) && keys[k] == b {
+			x := a.occ[b]
 			ar += float64(x.arrRest - x.depRest)
 			n += int64(x.arr) - int64(x.dep)
+			k++
 		}
-		m := ar / w
-		o.Series = append(o.Series, m)
-		how, _ := a.local(b * a.res)
-		sums[how] += m
-		cnt[how]++
-		if m > o.Peak || o.PeakAt == nil {
-			t := time.UnixMicro(b * a.res).In(a.loc)
-			o.Peak, o.PeakAt = m, &t
+		cur = b + 1
+		return ar / w
+	}
+	// skip moves past the buckets before b without a series: a silence,
+	// where only keys (none, as keys lie in observed days) change n.
+	skip := func(b int64) {
+		for k < len(keys) && keys[k] < b {
+			cur = keys[k]
+			step(cur)
+		}
+		if b > cur {
+			cur = b
 		}
 	}
+	for _, r := range a.days {
+		b0 := max(floorDiv(a.dayStart(r.first), a.res), cur, first)
+		b1 := min(floorDiv(a.dayStart(r.last+1)-1, a.res), last)
+		if b0 > b1 {
+			continue
+		}
+		skip(b0)
+		run := OccupancyRun{Start: time.UnixMicro(b0 * a.res).In(a.loc)}
+		for b := b0; b <= b1; b++ {
+			m := step(b)
+			run.Series = append(run.Series, m)
+			how, _ := a.local(b * a.res)
+			sums[how] += m
+			cnt[how]++
+			if m > o.Peak || o.PeakAt == nil {
+				t := time.UnixMicro(b * a.res).In(a.loc)
+				o.Peak, o.PeakAt = m, &t
+			}
+		}
+		o.Runs = append(o.Runs, run)
+	}
+	skip(last + 1)
 	for h := range sums {
 		if cnt[h] > 0 {
 			o.HourOfWeek[h] = sums[h] / float64(cnt[h])
@@ -629,4 +663,9 @@ func (a *Accumulator) little() Little {
 	}
 	l.Judged = c.stays >= LittleMinStays && c.exits >= LittleMinStays && l.W > 0 && T >= LittleMinSpan*l.W
 	return l
+}
+
+// dayStart is the instant (µs) local day d begins.
+func (a *Accumulator) dayStart(d int32) int64 {
+	return time.Date(1970, 1, 1+int(d), 0, 0, 0, 0, a.loc).UnixMicro()
 }

@@ -42,8 +42,8 @@ func TestLittleFixture(t *testing.T) {
 	a.ObserveAll(evs)
 	s := a.Summary()
 	o := s.Occupancy
-	if !slices.Equal(o.Series, []float64{1.5, 2.5, 1.0, 0}) {
-		t.Errorf("series %v", o.Series)
+	if len(o.Runs) != 1 || !slices.Equal(o.Runs[0].Series, []float64{1.5, 2.5, 1.0, 0}) {
+		t.Errorf("runs %+v", o.Runs)
 	}
 	if o.Peak != 2.5 || o.PeakAt.Hour() != 1 {
 		t.Errorf("peak %v at %v", o.Peak, o.PeakAt)

@@ -1,7 +1,8 @@
 // Package localfs is the local-disk blob.Store: each blob is a read-only
 // file named by its SHA-256 under a fan-out of two hex digits, written to a
-// temporary file, synced and renamed into place so it exists whole or not
-// at all.
+// temporary file (tmp/put-*), synced and renamed into place so it exists
+// whole or not at all. A crash mid-write leaves the temporary file;
+// SweepTemp removes it.
 package localfs
 
 import (
@@ -14,6 +15,8 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
+	"sync"
+	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 )
@@ -21,6 +24,9 @@ import (
 // Store keeps blobs under a root directory.
 type Store struct {
 	root string
+
+	mu       sync.Mutex
+	inflight map[string]bool // temporary files Put is writing
 }
 
 // New returns a Store rooted at dir, creating it if needed.
@@ -28,7 +34,7 @@ func New(dir string) (*Store, error) {
 	if err := os.MkdirAll(filepath.Join(dir, "tmp"), 0o700); err != nil {
 		return nil, fmt.Errorf("localfs: %w", err)
 	}
-	return &Store{root: dir}, nil
+	return &Store{root: dir, inflight: map[string]bool{}}, nil
 }
 
 func (s *Store) path(id blob.ID) string {
@@ -42,13 +48,21 @@ func (s *Store) Put(ctx context.Context, id blob.ID, r io.Reader) error {
 	if _, err := os.Stat(dst); err == nil {
 		return nil
 	}
-	tmp, err := os.CreateTemp(filepath.Join(s.root, "tmp"), "put-*")
+	s.mu.Lock()
+	tmp, err := os.CreateTemp(filepath.Join(s.root, "tmp"), tempPrefix+"*")
+	if err == nil {
+		s.inflight[filepath.Base(tmp.Name())] = true
+	}
+	s.mu.Unlock()
 	if err != nil {
 		return fmt.Errorf("localfs: %w", err)
 	}
 	defer func() {
 		tmp.Close()
 		os.Remove(tmp.Name()) // no-op after a successful rename
+		s.mu.Lock()
+		delete(s.inflight, filepath.Base(tmp.Name()))
+		s.mu.Unlock()
 	}()
 	h := sha256.New()
 	if _, err := io.Copy(io.MultiWriter(tmp, h), ctxReader{ctx, r}); err != nil {
@@ -73,6 +87,52 @@ func (s *Store) Put(ctx context.Context, id blob.ID, r io.Reader) error {
 		return fmt.Errorf("localfs: %w", err)
 	}
 	return syncDir(filepath.Dir(dst))
+}
+
+// tempPrefix starts the name of every temporary file of a Put.
+const tempPrefix = "put-"
+
+// SweepTemp implements blob.TempSweeper: it removes the files under
+// tmp/ that no Put of this Store is writing, last modified more than
+// olderThan ago. Another process writing to the same folder is covered by
+// olderThan only.
+func (s *Store) SweepTemp(ctx context.Context, olderThan time.Duration, dryRun bool) (files int, bytes int64, err error) {
+	dir := filepath.Join(s.root, "tmp")
+	ents, err := os.ReadDir(dir)
+	if err != nil {
+		return 0, 0, fmt.Errorf("localfs: %w", err)
+	}
+	now := time.Now()
+	for _, e := range ents {
+		if err := ctx.Err(); err != nil {
+			return files, bytes, err
+		}
+		if e.IsDir() {
+			continue
+		}
+		fi, err := e.Info()
+		if err != nil {
+			continue // removed meanwhile
+		}
+		if olderThan > 0 && now.Sub(fi.ModTime()) < olderThan {
+			continue
+		}
+		s.mu.Lock()
+		busy := s.inflight[e.Name()]
+		if !busy && !dryRun {
+			err = os.Remove(filepath.Join(dir, e.Name()))
+		}
+		s.mu.Unlock()
+		if busy || errors.Is(err, fs.ErrNotExist) {
+			continue
+		}
+		if err != nil {
+			return files, bytes, fmt.Errorf("localfs: %w", err)
+		}
+		files++
+		bytes += fi.Size()
+	}
+	return files, bytes, nil
 }
 
 // Open implements blob.Store.

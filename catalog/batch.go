@@ -1,0 +1,82 @@
+package catalog
+
+// batches hands full batches of rows to a goroutine that writes them, so
+// that encoding and compressing a Parquet file runs on the other core
+// while the caller produces the next rows. It holds at most three batches
+// (one filling, one queued, one being written), so memory stays bounded.
+// Errors of the writer come back from the next add or from close.
+type batches[T any] struct {
+	cur   []T
+	queue chan []T
+	free  chan []T
+	done  chan error
+	err   error
+	open  bool
+}
+
+func newBatches[T any](size int, write func([]T) error) *batches[T] {
+	b := &batches[T]{
+		cur:   make([]T, 0, size),
+		queue: make(chan []T, 1),
+		free:  make(chan []T, 2),
+		done:  make(chan error, 1),
+		open:  true,
+	}
+	b.free <- make([]T, 0, size)
+	b.free <- make([]T, 0, size)
+	go func() {
+		var err error
+		for batch := range b.queue {
+			if err == nil {
+				err = write(batch)
+			}
+			clear(batch) // drop references
+			b.free <- batch[:0]
+		}
+		b.done <- err
+	}()
+	return b
+}
+
+// add appends v, handing the batch on when it is full.
+func (b *batches[T]) add(v T) error {
+	b.cur = append(b.cur, v)
+	if len(b.cur) == cap(b.cur) {
+		return b.flush()
+	}
+	return nil
+}
+
+// flush hands the current batch on, if it holds anything.
+func (b *batches[T]) flush() error {
+	if len(b.cur) == 0 {
+		return nil
+	}
+	select {
+	case err := <-b.done: // the writer stopped early: it failed
+		b.open, b.err = false, err
+		return err
+	default:
+	}
+	b.queue <- b.cur
+	b.cur = <-b.free
+	return nil
+}
+
+// close writes what is left and waits for the writer; it returns the
+// first write error. It may be called more than once.
+func (b *batches[T]) close() error {
+	if !b.open {
+		return b.err
+	}
+	ferr := b.flush()
+	if b.open {
+		close(b.queue)
+		b.err = <-b.done
+		b.open = false
+	}
+	if b.err == nil {
+		b.err = ferr
+	}
+	return b.err
+}
