@@ -12,6 +12,7 @@ import (
 	"strings"
 
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
@@ -26,6 +27,16 @@ type CasePass struct {
 	subjects  *distinctCounter
 	resources *distinctCounter
 	events    int64
+	// Terminal are the dataset's terminal event types
+	// (schema.Profile.Terminal), for the builder's census.
+	Terminal []schema.EventType
+	// Kept are observers (the summary) fed by a second per-case
+	// computation over the events summaries keep: not dated later than
+	// their upload, not outside the dataset's window (their Line packed
+	// with quality.FlagLater or quality.FlagOutsideWindow), and not an
+	// exact copy of the event before them (same case, instant, type and
+	// content). Run counts what it left out in the Counts it returns.
+	Kept []cases.Observer
 }
 
 // NewCasePass returns a pass whose sort runs and counts spill to dir, in
@@ -62,13 +73,24 @@ func (p *CasePass) Run(obs ...cases.Observer) (summary.Counts, error) {
 }
 
 // RunSplit feeds every case to all, and the cases made of the events
-// marked by uploadMark (those events only) to mine, in one pass.
+// marked by uploadMark (those events only) to mine, in one pass. The
+// observers of Kept get the cases made of the events summaries keep.
 func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) {
 	b := cases.NewBuilder(all...)
+	b.Terminal = p.Terminal
 	var bm *cases.Builder
 	if len(mine) > 0 {
 		bm = cases.NewBuilder(mine...)
+		bm.Terminal = p.Terminal
 	}
+	var kept *cases.Builder
+	if len(p.Kept) > 0 {
+		kept = cases.NewBuilder(p.Kept...)
+		kept.Terminal = p.Terminal
+	}
+	var c summary.Counts
+	var prev schema.Event
+	hasPrev := false
 	var lastSubj, lastRes string
 	err := p.srt.Finish(func(e *schema.Event) error {
 		// Distinct subjects and resources, counted on the way: a case
@@ -93,6 +115,25 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 		if len(all) > 0 {
 			b.Add(e)
 		}
+		if kept == nil {
+			return nil
+		}
+		_, fl := quality.UnpackLine(e.Line)
+		switch {
+		case fl&quality.FlagLater != 0:
+			c.LaterThanUpload++
+			return nil
+		case fl&quality.FlagOutsideWindow != 0:
+			c.OutsideWindow++
+			return nil
+		case hasPrev && prev.CaseID == e.CaseID && prev.OccurredAt.Equal(e.OccurredAt) && prev.Type == e.Type && schema.CompareContent(&prev, e) == 0:
+			c.ExactDuplicates++
+			return nil
+		}
+		kept.Add(e)
+		prev = *e
+		cloneStrings(&prev)
+		hasPrev = true
 		return nil
 	})
 	if err != nil {
@@ -102,6 +143,9 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	if bm != nil {
 		bm.Flush()
 	}
+	if kept != nil {
+		kept.Flush()
+	}
 	subj, err := p.subjects.Count()
 	if err != nil {
 		return summary.Counts{}, err
@@ -110,7 +154,11 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	if err != nil {
 		return summary.Counts{}, err
 	}
-	return summary.Counts{Cases: uint64(b.Cases()), Subjects: subj, Resources: res}, nil
+	c.Cases, c.Subjects, c.Resources = uint64(b.Cases()), subj, res
+	if kept != nil {
+		c.Cases = uint64(kept.Cases()) // the cases the summary figures cover
+	}
+	return c, nil
 }
 
 // Close removes the temporary files.

@@ -180,7 +180,7 @@ func TestCasesWholeAcrossIdleAndUploads(t *testing.T) {
 		t.Errorf("case-level quality differs:\n%+v %+v\n%+v %+v", q1.Cases, q1.Stages, q12.Cases, q12.Stages)
 	}
 	for i := range q1.Raw.Sites {
-		if a, b := q1.Raw.Sites[i].Census, q12.Raw.Sites[i].Census; a.Arrivals != b.Arrivals || a.Completed != b.Completed || a.SojournSeconds != b.SojournSeconds || a.AreaCaseSeconds != b.AreaCaseSeconds {
+		if a, b := q1.Raw.Sites[i].Census, q12.Raw.Sites[i].Census; a.Entries != b.Entries || a.Exits != b.Exits || a.StayedSeconds != b.StayedSeconds || a.SpanSeconds != b.SpanSeconds || a.AreaCaseSeconds != b.AreaCaseSeconds {
 			t.Errorf("census sums differ: %+v vs %+v", a, b)
 		}
 	}
@@ -469,7 +469,7 @@ func TestCompletionOnlyLog(t *testing.T) {
 	if err := json.Unmarshal(js, &s); err != nil {
 		t.Fatal(err)
 	}
-	if s.Cases.Value != cases || s.EventsPerCase.Min != per || s.EventsPerCase.Max != per || len(s.NotMeasurable) != 2 ||
+	if s.Cases.Value != cases || s.EventsPerCase.Min != per || s.EventsPerCase.Max != per || len(s.NotMeasurable) != 3 || s.NotMeasurable[2].Figure != "littles_law" ||
 		s.BetweenEvents.N != cases*(per-1) || s.BetweenEvents.Mean != 6*3600 {
 		t.Errorf("summary cases %v, events per case %+v, between %d mean %v, not measurable %+v", s.Cases.Value, s.EventsPerCase, s.BetweenEvents.N, s.BetweenEvents.Mean, s.NotMeasurable)
 	}

@@ -56,7 +56,7 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 	if err != nil {
 		return nil, err
 	}
-	acc := quality.NewAccumulator(quality.Options{UploadedAt: opt.Now, WindowFrom: opt.WindowFrom, WindowTo: opt.WindowTo, MappedFields: mappedFields(prof), Zone: prof.Location()})
+	acc := quality.NewAccumulator(quality.Options{UploadedAt: opt.Now, WindowFrom: opt.WindowFrom, WindowTo: opt.WindowTo, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, ResourceCapacity: prof.ResourceCapacity})
 	srt := newSorter(opt.TempDir, opt.RunEvents)
 	defer srt.Close()
 	rd, err := schema.NewReader(src, prof, schema.ReaderOptions{Name: opt.Name, Limits: opt.Limits})
@@ -70,6 +70,7 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 		return nil, fmt.Errorf("check: %w", err)
 	}
 	cp := NewCasePass(opt.TempDir, opt.RunEvents)
+	cp.Terminal = prof.Terminal
 	defer cp.Close()
 	hf := newHeldFilter(IdentityOf(prof), ChangesRefuse)
 	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {

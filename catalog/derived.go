@@ -51,7 +51,7 @@ func summaryOptions(ds *Dataset) summary.Options {
 // summaryOfFile returns the summary state of a stored file: kept from its
 // ingest, or, for a file from before summaries were kept, computed by
 // reading it once.
-func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID) (*summary.Accumulator, []byte, error) {
+func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID, excl *exclusion) (*summary.Accumulator, []byte, error) {
 	var state []byte
 	err := s.db.View(func(tx *bolt.Tx) error {
 		if v := tx.Bucket(bucketFileSummaries).Get(id[:]); v != nil {
@@ -78,7 +78,13 @@ func (s *Store) summaryOfFile(ctx context.Context, ds *Dataset, id blob.ID) (*su
 		return nil, nil, fmt.Errorf("summary: %w", err)
 	}
 	defer r.Close()
-	if err := ReadSnapshot(r, r.Size(), func(e *schema.Event) error { acc.Observe(e); return nil }); err != nil {
+	err = ReadSnapshot(r, r.Size(), func(e *schema.Event) error {
+		if excl.flags(e) == 0 {
+			acc.Observe(e)
+		}
+		return nil
+	})
+	if err != nil {
 		return nil, nil, fmt.Errorf("summary of file %s: %w", id, err)
 	}
 	state, err = acc.MarshalBinary()
@@ -124,7 +130,11 @@ func (p *versionPass) release() {
 func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, qopt quality.Options, keyID string, table bool, upass *uploadPass) (*versionPass, error) {
 	out := &versionPass{fileStates: map[blob.ID][]byte{}}
 	total := summary.New(summaryOptions(ds))
-	for _, f := range files {
+	excls := make([]*exclusion, len(files))
+	for i, f := range files {
+		excls[i] = s.exclusionOf(ds, f, qopt.UploadedAt)
+	}
+	for i, f := range files {
 		acc := fresh[f.SHA256]
 		if acc != nil {
 			b, err := acc.MarshalBinary()
@@ -133,7 +143,7 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			}
 			out.fileStates[f.SHA256] = b
 		} else {
-			a, state, err := s.summaryOfFile(ctx, ds, f.SHA256)
+			a, state, err := s.summaryOfFile(ctx, ds, f.SHA256, excls[i])
 			if err != nil {
 				return nil, err
 			}
@@ -159,7 +169,11 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 		cp = NewCasePass(s.opt.TempDir, s.opt.RunEvents)
 		defer cp.Close()
 	}
-	for _, f := range files {
+	if prof, err := ds.EffectiveProfile(); err == nil {
+		cp.Terminal = prof.Terminal
+		qopt.Terminal = prof.Terminal
+	}
+	for i, f := range files {
 		if f.SHA256 == fromUpload {
 			continue
 		}
@@ -168,6 +182,7 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			// buffers; the sort keeps events past the next read.
 			c := *e
 			cloneStrings(&c)
+			c.Line = quality.PackLine(c.Line, excls[i].flags(e))
 			return cp.Add(&c)
 		})
 		if err != nil {
@@ -175,7 +190,10 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 		}
 	}
 	qacc := quality.NewAccumulator(qopt)
-	obs := []cases.Observer{total, qacc}
+	obs := []cases.Observer{qacc}
+	pv := total.NewProcess()
+	total.SetProcess(pv)
+	cp.Kept = []cases.Observer{total, pv}
 	var cw *caseTableWriter
 	if table {
 		var err error
@@ -215,6 +233,50 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 	}
 	out.summary = &versionSummary{State: state, JSON: js}
 	return out, nil
+}
+
+// exclusion says which events of one file summaries leave out: those
+// dated later than the upload that brought the file, and those outside the
+// dataset's window.
+type exclusion struct {
+	later, from, to int64 // µs; 0: no bound
+}
+
+func (x *exclusion) flags(e *schema.Event) quality.Flags {
+	at := e.OccurredAt.UnixMicro()
+	var fl quality.Flags
+	if x.later != 0 && at > x.later {
+		fl |= quality.FlagLater
+	}
+	if (x.from != 0 && at < x.from) || (x.to != 0 && at >= x.to) {
+		fl |= quality.FlagOutsideWindow
+	}
+	return fl
+}
+
+// exclusionOf returns the exclusion of file f: its upload's receipt (or
+// now, for the upload being committed) and the dataset's window.
+func (s *Store) exclusionOf(ds *Dataset, f FileEntry, now time.Time) *exclusion {
+	x := &exclusion{}
+	var up Upload
+	if seq := f.Upload.Seq(); seq != 0 {
+		_ = s.db.View(func(tx *bolt.Tx) error {
+			return getJSON(tx.Bucket(bucketUploads), seqKey(ds.Ref().String(), seq), &up, "upload "+f.Upload.String())
+		})
+	}
+	switch {
+	case !up.ReceivedAt.IsZero():
+		x.later = up.ReceivedAt.UnixMicro()
+	case !now.IsZero():
+		x.later = now.UnixMicro()
+	}
+	if ds.WindowFrom != nil {
+		x.from = ds.WindowFrom.UnixMicro()
+	}
+	if ds.WindowTo != nil {
+		x.to = ds.WindowTo.UnixMicro()
+	}
+	return x
 }
 
 // readFile calls fn for every event of a stored snapshot file.
@@ -375,6 +437,7 @@ func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePla
 			if r, err = s.reportOfFile(f, parentRef(parent)); err != nil {
 				return nil, err
 			}
+			r.SetFile(s.uploadFilename(parentRef(parent), f.Upload))
 		}
 		rs = append(rs, r)
 	}
@@ -386,6 +449,20 @@ func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePla
 		return nil, fmt.Errorf("quality: %w", err)
 	}
 	return out, nil
+}
+
+// uploadFilename is the name the upload of id was sent with, "" when
+// unknown.
+func (s *Store) uploadFilename(ref string, id UploadID) string {
+	seq := id.Seq()
+	if seq == 0 || ref == "" {
+		return ""
+	}
+	var up Upload
+	_ = s.db.View(func(tx *bolt.Tx) error {
+		return getJSON(tx.Bucket(bucketUploads), seqKey(ref, seq), &up, "upload "+id.String())
+	})
+	return up.Filename
 }
 
 func parentRef(v *Version) string {

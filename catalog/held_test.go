@@ -190,7 +190,7 @@ func TestHeldDayThenLateEvent(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	for _, k := range []string{"events", "event_types", "cases", "subjects", "resources", "from", "to", "days_observed"} {
+	for _, k := range []string{"events", "event_types", "cases", "subjects", "resources", "from", "to", "exposure_hours"} {
 		if !reflect.DeepEqual(s1[k], s2[k]) {
 			t.Errorf("summary %s: v2 %v, one upload %v", k, s2[k], s1[k])
 		}

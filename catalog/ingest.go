@@ -175,7 +175,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	raw := &hashCounter{h: sha256.New()}
 	st.ds, st.up, st.raw = ds, &up, raw
 	tee := io.TeeReader(src, raw)
-	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location()}
+	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity}
 	if ds.WindowFrom != nil {
 		qopt.WindowFrom = *ds.WindowFrom
 	}
@@ -248,6 +248,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	// upload's: the commit runs that pass once over the whole new version,
 	// the upload's own checks and its report riding along.
 	upCases := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
+	upCases.Terminal = prof.Terminal
 	defer upCases.Close()
 	var n int
 	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
@@ -257,7 +258,9 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 			}
 		}
 		fl := acc.Observe(e)
-		sacc.Observe(e)
+		if fl&quality.Excluded == 0 {
+			sacc.Observe(e)
+		}
 		win.observe(e)
 		if err := sw.Write(e); err != nil {
 			return err
@@ -391,10 +394,12 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	rep := upass.acc.Report()
 	rep.UnmappedColumns = up.Unmapped
 	up.Report = rep
+	// The version's report names the file of each sample line.
+	frep := rep.WithFile(up.Filename)
 	if entry != nil {
-		plan.reports[entry.SHA256] = rep
+		plan.reports[entry.SHA256] = frep
 	}
-	merged, err := s.mergeQuality(ctx, parent, plan, rep, mergeMode(opt.Mode, plan))
+	merged, err := s.mergeQuality(ctx, parent, plan, frep, mergeMode(opt.Mode, plan))
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}

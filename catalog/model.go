@@ -57,6 +57,7 @@ type Dataset struct {
 	Drafts      bool       `json:"drafts"`       // new versions start as drafts, to be published by a curator
 	WindowFrom  *time.Time `json:"window_from,omitempty"`
 	WindowTo    *time.Time `json:"window_to,omitempty"`
+	Historical  bool       `json:"historical,omitempty"` // past events: currentness not scored
 	CreatedAt   time.Time  `json:"created_at"`
 	CreatedBy   string     `json:"created_by"`
 	Latest      int        `json:"latest_version"` // 0 before the first accepted upload

@@ -218,6 +218,9 @@ type DatasetSpec struct {
 	// Changes is the dataset's policy for changed events under a stable
 	// event_id; empty means ChangesRefuse.
 	Changes ChangePolicy
+	// Historical marks past events, not a live feed: the quality report
+	// does not score currentness.
+	Historical bool
 }
 
 // CreateDataset validates the spec (names, profile, zone, threshold) and
@@ -250,7 +253,7 @@ func (s *Store) CreateDataset(ctx context.Context, spec DatasetSpec, by string) 
 		Project: spec.Project, Name: spec.Name, Title: spec.Title,
 		Profile: string(spec.Profile), ProfileHash: prof.Hash(), Timezone: prof.Location().String(),
 		RejectAbove: reject, Drafts: spec.Drafts, Changes: changes, WindowFrom: utcPtr(spec.WindowFrom), WindowTo: utcPtr(spec.WindowTo),
-		CreatedAt: s.opt.Now().UTC(), CreatedBy: by,
+		Historical: spec.Historical, CreatedAt: s.opt.Now().UTC(), CreatedBy: by,
 	}
 	err = s.db.Update(func(tx *bolt.Tx) error {
 		if tx.Bucket(bucketProjects).Get([]byte(spec.Project)) == nil {

@@ -15,7 +15,7 @@ func newDatasetCmd(e *env) *cobra.Command {
 	c := &cobra.Command{Use: "dataset", Short: "Create and list datasets"}
 	var profile, zone, title, from, to, changes string
 	var rejectAbove float64
-	var drafts bool
+	var drafts, historical bool
 	create := &cobra.Command{
 		Use:   "create PROJECT/DATASET [--profile FILE] [--timezone ZONE]",
 		Short: "Create a dataset with its mapping profile (curator)",
@@ -25,7 +25,7 @@ func newDatasetCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
-			req := map[string]any{"name": r.Dataset, "title": title, "timezone": zone, "drafts": drafts, "changes": changes}
+			req := map[string]any{"name": r.Dataset, "title": title, "timezone": zone, "drafts": drafts, "changes": changes, "historical": historical}
 			if profile != "" {
 				b, err := os.ReadFile(profile)
 				if err != nil {
@@ -73,6 +73,7 @@ func newDatasetCmd(e *env) *cobra.Command {
 	f.StringVar(&zone, "timezone", "", "IANA zone for wall-clock times without offset (overrides the profile's)")
 	f.StringVar(&title, "title", "", "human-readable title")
 	f.Float64Var(&rejectAbove, "reject-above", catalog.DefaultRejectAbove, "reject an upload whose share of invalid rows is above this (0-1)")
+	f.BoolVar(&historical, "historical", false, "the data are past events, not a live feed: currentness is not scored")
 	f.BoolVar(&drafts, "drafts", false, "new versions start as drafts, seen by curators only until published (flowcat publish)")
 	f.StringVar(&changes, "changes", "", "with a stable event_id: refuse (default) an upload that changes a held event, or correct (take it as a correction)")
 	f.StringVar(&from, "window-from", "", "declared start of the data (RFC 3339); earlier events are flagged")

@@ -93,6 +93,12 @@ type Options struct {
 	// all its runs.
 	// Default [DefaultMaxHours].
 	MaxHours int
+	// Historical marks a dataset of past events, not a live feed: it is
+	// not scored on currentness (no staleness, no gap checks).
+	Historical bool
+	// Terminal are the event types, besides departure and abandon, that
+	// end a case's presence (schema.Profile.Terminal; see cases.Exits).
+	Terminal []schema.EventType
 	// MaxSamples is how many sample locations each finding keeps.
 	// Default [DefaultMaxSamples].
 	MaxSamples int
@@ -161,6 +167,9 @@ type Accumulator struct {
 	maxCase        uint64
 	maxService     int64
 	maxServiceAct  map[string]int64
+	learned        []learnedBound // by activity, for lost starts
+	resPeak        int            // most services one resource held at once
+	learnedIndex   map[string]int32
 	idWindow       uint64
 	clockTol       int64
 	pruneEvery     int
@@ -198,7 +207,50 @@ type Accumulator struct {
 // openService is a service interval open at a resource.
 type openService struct {
 	res int32
+	act int32 // index into a.learned, -1 beyond the cap
 	at  int64 // µs
+}
+
+// learnedBound is what the time pass learns of one activity's services
+// (start to the case's next complete): how many it measured and the
+// longest. An open service of the activity is taken as lost (its complete
+// never came) once it is open longer than lostFactor times the longest
+// measured, when at least lostMinServices were measured; before that, or
+// beyond the configured maximum, at the maximum (SCORING.md).
+type learnedBound struct {
+	n   int64
+	max int64 // µs
+}
+
+const (
+	lostFactor      = 2
+	lostMinServices = 20
+)
+
+// lostAfter is how long a start of activity index act may stay open
+// before it is taken as lost.
+func (a *Accumulator) lostAfter(act int32) int64 {
+	if act >= 0 {
+		if l := a.learned[act]; l.n >= lostMinServices {
+			return min(a.maxService, lostFactor*max(l.max, 1))
+		}
+	}
+	return a.maxService
+}
+
+// activityIndex returns the index of activity name in a.learned, or -1
+// beyond the cap.
+func (a *Accumulator) activityIndex(name string) int32 {
+	i, ok := a.learnedIndex[name]
+	if !ok {
+		if len(a.learned) >= maxKeys {
+			return -1
+		}
+		i = int32(len(a.learned))
+		a.learned = append(a.learned, learnedBound{})
+		a.learnedIndex[strings.Clone(name)] = i
+	}
+	return i
 }
 
 // rejFinding is a rejection count with its first samples.
@@ -320,6 +372,7 @@ type siteAcc struct {
 	byType       [numTypes]int64
 	typeNonEmpty [numTypes][numFields]int64
 	grid         [numGrids]int64
+	clock        *ClockTimes // one clock time of day for every event?
 	// stage coverage of the case records still held is added at report time
 	stages stageCounts
 	cases  CaseRaw
@@ -332,8 +385,9 @@ type siteAcc struct {
 	openN     int64   // cases still in the system at their last event
 	openEntry float64 // sum of their entry instants (µs)
 	arrivals  int64
-	completed int64
-	sojourn   float64 // µs
+	entries   int64   // stays begun
+	exits     int64   // stays ended by an exit
+	stayed    float64 // µs of stays, an open one to its case's last event
 	// lag to the upload
 	lag    [lagBuckets]int64
 	lagMax int64 // seconds
@@ -366,25 +420,27 @@ type resAcc struct {
 type openInterval struct {
 	caseKey uint64
 	at      int64 // µs
+	act     int32 // activity index: its learned bound (see learnedBound)
 }
 
 // NewAccumulator returns an empty accumulator for one upload.
 func NewAccumulator(opt Options) *Accumulator {
 	opt.defaults()
 	a := &Accumulator{
-		opt:        opt,
-		maxCase:    uint64(opt.MaxCase.Microseconds()),
-		maxService: DefaultMaxService.Microseconds(),
-		idWindow:   uint64(opt.EventIDWindow.Microseconds()),
-		clockTol:   opt.ClockTolerance.Microseconds(),
-		pruneEvery: defaultPruneEvery,
-		seed:       maphash.MakeSeed(),
-		reasons:    make(map[schema.Reason]*rejFinding),
-		siteIndex:  make(map[string]int),
-		waitIndex:  make(map[waitKey]int32),
-		resIndex:   make(map[string]int32),
-		ids:        newTable[struct{}](),
-		svc:        map[uint64]openService{},
+		opt:          opt,
+		maxCase:      uint64(opt.MaxCase.Microseconds()),
+		maxService:   DefaultMaxService.Microseconds(),
+		learnedIndex: map[string]int32{},
+		idWindow:     uint64(opt.EventIDWindow.Microseconds()),
+		clockTol:     opt.ClockTolerance.Microseconds(),
+		pruneEvery:   defaultPruneEvery,
+		seed:         maphash.MakeSeed(),
+		reasons:      make(map[schema.Reason]*rejFinding),
+		siteIndex:    make(map[string]int),
+		waitIndex:    make(map[waitKey]int32),
+		resIndex:     make(map[string]int32),
+		ids:          newTable[struct{}](),
+		svc:          map[uint64]openService{},
 	}
 	for act, d := range opt.MaxService {
 		if act == "" {
@@ -513,7 +569,7 @@ func (a *Accumulator) Observe(e *schema.Event) Flags {
 	if a.hasUpload {
 		if at > a.uploadAt {
 			a.flag(s, cLaterThanUpload, e)
-			fl |= FlagAccuracy
+			fl |= FlagAccuracy | FlagLater
 		} else {
 			lagS := (a.uploadAt - at) / 1e6
 			s.lag[lagBucket(lagS)]++
@@ -525,7 +581,7 @@ func (a *Accumulator) Observe(e *schema.Event) Flags {
 	}
 	if (a.hasFrom && at < a.fromAt) || (a.hasTo && at >= a.toAt) {
 		a.flag(s, cOutsideWindow, e)
-		fl |= FlagAccuracy
+		fl |= FlagAccuracy | FlagOutsideWindow
 	}
 	a.countGrid(s, e, at)
 
@@ -582,15 +638,21 @@ func (a *Accumulator) resourceCheck(s *siteAcc, ti int, e *schema.Event, at int6
 	if o, ok := a.svc[k]; ok {
 		a.closeInterval(o.res, k)
 		delete(a.svc, k)
+		if ti == tComplete && o.act >= 0 && at >= o.at {
+			l := &a.learned[o.act]
+			l.n++
+			l.max = max(l.max, at-o.at)
+		}
 	}
 	over := false
 	if ti == tStart && e.ResourceID != "" {
 		if r := a.resource(e.ResourceID); r >= 0 {
-			if a.openInterval(r, k, at) {
+			act := a.activityIndex(e.Activity)
+			if a.openInterval(r, k, at, act) {
 				a.flag(s, cResourceOverlap, e)
 				over = true
 			}
-			a.svc[k] = openService{res: r, at: at}
+			a.svc[k] = openService{res: r, act: act, at: at}
 		}
 	}
 	a.sinceSvcPrune++
@@ -624,16 +686,17 @@ func (a *Accumulator) resource(id string) int32 {
 // reports whether the resource is then serving more cases than its
 // capacity. Intervals open for longer than the default service maximum
 // are taken as lost completes and no longer count.
-func (a *Accumulator) openInterval(r int32, k uint64, at int64) bool {
+func (a *Accumulator) openInterval(r int32, k uint64, at int64, act int32) bool {
 	res := &a.resources[r]
 	kept := res.open[:0]
 	for _, iv := range res.open {
-		if at-iv.at <= a.maxService {
+		if at-iv.at <= a.lostAfter(iv.act) {
 			kept = append(kept, iv)
 		}
 	}
 	over := len(kept) >= a.opt.ResourceCapacity
-	res.open = append(kept, openInterval{caseKey: k, at: at})
+	res.open = append(kept, openInterval{caseKey: k, at: at, act: act})
+	a.resPeak = max(a.resPeak, len(res.open))
 	return over
 }
 
@@ -671,7 +734,7 @@ func (a *Accumulator) optional(s *siteAcc, tn *[numFields]int64, i int, v string
 	if v != "" {
 		s.nonEmpty[i]++
 		tn[i]++
-	} else if len(a.emptySamples[i]) < a.opt.MaxSamples {
+	} else if len(a.emptySamples[i]) < a.opt.MaxSamples && applies(schema.Fields[i], e.Type) {
 		a.emptySamples[i] = append(a.emptySamples[i], Sample{Line: e.Line, CaseID: strings.Clone(e.CaseID)})
 	}
 }
@@ -691,6 +754,14 @@ func (a *Accumulator) countGrid(s *siteAcc, e *schema.Event, at int64) {
 		}
 	}
 	local := at + a.zOff
+	const day = 86400e6
+	zt, ut := local-floorDiv(local, day)*day, at-floorDiv(at, day)*day
+	if c := s.clock; c == nil {
+		s.clock = &ClockTimes{Zone: zt, ZoneSame: true, UTC: ut, UTCSame: true}
+	} else {
+		c.ZoneSame = c.ZoneSame && c.Zone == zt
+		c.UTCSame = c.UTCSame && c.UTC == ut
+	}
 	for g := range numGrids {
 		if local%gridMicros[g] != 0 {
 			return

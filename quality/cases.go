@@ -21,7 +21,15 @@ const (
 	// FlagCopy marks an exact copy of an event at the same instant: it
 	// changes no per-case state and is checked no further.
 	FlagCopy
+	// FlagLater marks an event dated later than its upload, and
+	// FlagOutsideWindow one outside the dataset's declared window: both
+	// are counted here and kept out of summaries.
+	FlagLater
+	FlagOutsideWindow
 )
+
+// Excluded are the flags of an event kept out of summaries.
+const Excluded = FlagLater | FlagOutsideWindow
 
 // lineBits is how many low bits of a packed line hold the line.
 const lineBits = 56
@@ -51,6 +59,31 @@ type caseState struct {
 	site    int   // site index of the latest event
 	typesAt uint8 // event types seen at the latest instant
 	wait    int32 // (queue, activity) index+1 of the pending enqueue
+	// seenAt are the (type, activity) pairs seen at the latest instant,
+	// up to maxSeenAt, for the duplicate check.
+	seenAt []typeActivity
+}
+
+type typeActivity struct {
+	ti       int
+	activity string
+}
+
+// maxSeenAt bounds the (type, activity) pairs one instant of a case keeps.
+const maxSeenAt = 64
+
+// seen reports whether (ti, act) was seen at the latest instant, and
+// records it.
+func (st *caseState) seen(ti int, act string) bool {
+	for _, x := range st.seenAt {
+		if x.ti == ti && x.activity == act {
+			return true
+		}
+	}
+	if len(st.seenAt) < maxSeenAt {
+		st.seenAt = append(st.seenAt, typeActivity{ti, strings.Clone(act)})
+	}
+	return false
 }
 
 const (
@@ -75,6 +108,7 @@ const (
 	csWaitAnchor                         // an arrival since the last start
 	csPrevTransfer                       // the latest event was a transfer
 	csOpenStart                          // start holds a start not yet completed
+	csExited                             // left the census by an abandon or a terminal type, no arrival since
 	csNowFlags        = csPendStartNow | csPendCompleteNow | csPendDepNow | csDepartedNow
 )
 
@@ -171,21 +205,32 @@ func (a *Accumulator) endCase() {
 		s.n[cWaitNoStart]++
 	}
 	if st.flags&csInSystem != 0 {
-		s.openN++
-		s.openEntry += float64(st.entry)
+		if st.flags&csPrevTransfer != 0 {
+			// Transferred out: it left at the transfer, its last event.
+			a.leave(s, st.rec)
+		} else {
+			// Never left: in the census to the site's last event (added at
+			// report time); its stay ends where it was last seen.
+			s.openN++
+			s.openEntry += float64(st.entry)
+			s.stayed += float64(st.rec - st.entry)
+		}
 	}
-	*st = caseState{}
+	*st = caseState{seenAt: st.seenAt[:0]}
 }
 
 // enter puts the case in hand into the census of site s at at.
 func (a *Accumulator) enter(s *siteAcc, at int64) {
 	a.cur.entry = at
 	a.cur.flags |= csInSystem
+	s.entries++
 }
 
 // leave takes the case in hand out of the census of its site at at.
 func (a *Accumulator) leave(s *siteAcc, at int64) {
 	s.area += float64(at - a.cur.entry)
+	s.stayed += float64(at - a.cur.entry)
+	s.exits++
 	a.cur.flags &^= csInSystem
 }
 
@@ -202,7 +247,8 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 	st := &a.cur
 	bit := uint8(1) << ti
 	if st.id == "" {
-		*st = caseState{id: strings.Clone(e.CaseID), first: at, rec: at, site: s.idx, typesAt: bit}
+		*st = caseState{id: strings.Clone(e.CaseID), first: at, rec: at, site: s.idx, typesAt: bit, seenAt: st.seenAt[:0]}
+		st.seen(ti, e.Activity)
 		if ti != tArrival {
 			// Already in the system when the data begins (or its arrival
 			// is lost): it enters the census at its first event.
@@ -216,7 +262,7 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 				a.flag(s, cSameInstantOrder, e)
 				acc = true
 			}
-			if st.typesAt&bit != 0 {
+			if st.seen(ti, e.Activity) {
 				a.flag(s, cDuplicateCaseTypeTime, e)
 				uni = true
 			}
@@ -224,6 +270,8 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 		} else {
 			st.rec = at
 			st.typesAt = bit
+			st.seenAt = st.seenAt[:0]
+			st.seen(ti, e.Activity)
 			st.flags &^= csNowFlags
 		}
 		if st.site != s.idx {
@@ -275,7 +323,7 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 			f = st.flags
 		}
 		f |= csArr | csWaitAnchor | csStay
-		f &^= csDeparted | csDepartedNow
+		f &^= csDeparted | csDepartedNow | csExited
 		st.arr = at
 	case tEnqueue:
 		afterDeparture()
@@ -354,18 +402,21 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 			st.flags = f
 			a.leave(s, at)
 			f = st.flags
-		} else {
-			// A departure of a case that is not in the system: more
+		} else if f&csExited == 0 {
+			// A departure of a case that is not in the system (and did
+			// not leave by an abandon or a terminal type): more
 			// departures than entries.
 			a.flag(s, cCensusNegative, e)
 			con = true
 		}
-		if f&csStay != 0 {
-			s.completed++
-			s.sojourn += float64(at - st.arr)
-		}
 		f &^= csStay | csImplicit
 		f |= csDep | csDeparted | csDepartedNow
+	}
+	if ti != tDeparture && f&csInSystem != 0 && cases.Exits(e.Type, a.opt.Terminal) {
+		// An abandon or a declared terminal type ends the stay too.
+		st.flags = f
+		a.leave(s, at)
+		f = st.flags | csExited
 	}
 	if ti == tTransfer {
 		f |= csPrevTransfer
@@ -422,6 +473,7 @@ func (a *Accumulator) ObserveSorted(evs []schema.Event) {
 	}
 	slices.SortStableFunc(idx, func(i, j int) int { return cases.Less(&evs[i], &evs[j]) })
 	b := cases.NewBuilder(a)
+	b.Terminal = a.opt.Terminal
 	for _, i := range idx {
 		e := evs[i]
 		e.Line = PackLine(e.Line, flags[i])

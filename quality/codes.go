@@ -108,7 +108,7 @@ var why = map[string]string{
 	CodeStaleSite:                         "The site's newest event is old, so recent analyses miss it.",
 	CodeExactDuplicate:                    "Repeated copies of one event inflate arrival and service counts.",
 	CodeDuplicateEventID:                  "Two different events sharing an event id means an id is reused or a row was re-exported with changes, so joins on event_id go wrong.",
-	CodeDuplicateCaseTypeTime:             "Two events of one case with the same type and instant are likely one event exported twice with a changed detail, which inflates counts.",
+	CodeDuplicateCaseTypeTime:             "Two events of one case with the same type, activity and instant are likely one event exported twice with a changed detail, which inflates counts.",
 	CodeOrderBreach:                       "The ingest fed events out of time order, so duplicate and per-case checks skipped them; this is a program fault, not a data fault.",
 }
 

@@ -14,11 +14,11 @@ const (
 	// clockJudgedMax: backward steps are judged only in a file whose
 	// steps back are at most this share of its rows (a time-ordered file).
 	clockJudgedMax = 0.01
-	// littleMinCompleted and littleMinSpan: Little's law is judged for a
-	// site with at least this many completed stays over a span at least
-	// this many times the mean stay.
-	littleMinCompleted = 30
-	littleMinSpan      = 10.0
+	// littleMinStays and littleMinSpan: Little's law is judged for a site
+	// with at least this many entries and as many exits over a span at
+	// least this many times the mean stay (the summary's rule too).
+	littleMinStays = 30
+	littleMinSpan  = 10.0
 	// littlePenalty is what a flagged Little's law takes off the
 	// consistency score (scaled by the share of judged sites flagged).
 	littlePenalty = 20.0
@@ -101,7 +101,7 @@ func derive(rows Rows, rej []RejectionCount, raw Raw, unmapped []string) *Report
 	slices.SortFunc(r.Waits, func(x, y WaitCoverage) int {
 		return cmp.Or(cmp.Compare(x.Queue, y.Queue), cmp.Compare(x.Activity, y.Activity))
 	})
-	r.Resolution = resolution(all.Grid, all.Events, set.Zone)
+	r.Resolution = resolution(all.Grid, all.Events, set.Zone, all.Clock)
 
 	// Per-site sections.
 	r.Little, r.Currentness, r.PerSite = []LittleLaw{}, []SiteCurrentness{}, []SiteReport{}
@@ -122,7 +122,11 @@ func derive(rows Rows, rej []RejectionCount, raw Raw, unmapped []string) *Report
 			sr.Dimensions = append(sr.Dimensions, DimensionScore{Name: dw.name, Score: roundPtr(sc[j])})
 		}
 		for _, f := range schema.Fields {
-			sr.Completeness = append(sr.Completeness, FieldShare{Field: f, Share: share(s.NonEmpty[f], s.Events)})
+			ne, n := s.NonEmpty[f], s.Events
+			if !f.Required() {
+				ne, n = applicable(s, f)
+			}
+			sr.Completeness = append(sr.Completeness, FieldShare{Field: f, Share: share(ne, n)})
 		}
 		r.PerSite = append(r.PerSite, sr)
 	}
@@ -178,19 +182,19 @@ func deriveSite(s *SiteRaw, set *Settings, zone *time.Location) siteDerived {
 	}
 	// Little's law.
 	c := &s.Census
-	l := LittleLaw{Site: s.Site, SpanHours: c.SpanSeconds / 3600, Arrivals: c.Arrivals, Completed: c.Completed, CensusMin: c.Min}
+	l := LittleLaw{Site: s.Site, SpanHours: c.SpanSeconds / 3600, Entries: c.Entries, Exits: c.Exits, CensusMin: c.Min}
 	if c.SpanSeconds > 0 {
 		l.L = c.AreaCaseSeconds / c.SpanSeconds
-		l.Lambda = float64(c.Arrivals) / l.SpanHours
+		l.Lambda = float64(c.Entries) / l.SpanHours
 	}
-	if c.Completed > 0 {
-		l.W = c.SojournSeconds / float64(c.Completed) / 3600
+	if c.Entries > 0 {
+		l.W = c.StayedSeconds / float64(c.Entries) / 3600
 	}
 	l.LambdaW = l.Lambda * l.W
 	if l.LambdaW > 0 {
 		l.Ratio = l.L / l.LambdaW
 	}
-	if c.Completed >= littleMinCompleted && l.W > 0 && l.SpanHours >= littleMinSpan*l.W {
+	if c.Entries >= littleMinStays && c.Exits >= littleMinStays && l.W > 0 && l.SpanHours >= littleMinSpan*l.W {
 		l.Judged = true
 		l.Flagged = math.Abs(l.Ratio-1) > set.LittleTolerance
 	}
@@ -201,10 +205,17 @@ func deriveSite(s *SiteRaw, set *Settings, zone *time.Location) siteDerived {
 		med, mx := lagMedian(s.Lag), s.Lag.MaxSeconds
 		cur.LagMedianSeconds, cur.LagMaxSeconds = &med, &mx
 	}
+	// Events far from the site's main run: an accuracy finding, judged
+	// for historical data too.
+	d.far, d.farSamples = farRuns(s.Hours, s.Site, set.MaxSamples)
+	if set.Historical { // past events, not a feed: no currentness judged
+		d.cur = cur
+		return d
+	}
 	if set.UploadedAt != nil && s.Last != nil && set.UploadedAt.Sub(*s.Last).Seconds() > set.StaleAfterSeconds {
 		cur.Stale = true
 	}
-	gaps(&d, s, set, zone)
+	gaps(&d, s, set, zone, dateOnly(s.Clock, s.Events))
 	cur.GapHours, cur.JudgedHours, cur.GapDays, cur.JudgedDays = d.gapHours, d.judgedHours, d.gapDays, d.judgedDays
 	d.cur = cur
 	return d
@@ -226,8 +237,7 @@ func lagMedian(l LagRaw) int64 {
 
 // gaps finds the hours and days without events where the site's own
 // history expects some (rule in SCORING.md).
-func gaps(d *siteDerived, s *SiteRaw, set *Settings, zone *time.Location) {
-	d.far, d.farSamples = farRuns(s.Hours, s.Site, set.MaxSamples)
+func gaps(d *siteDerived, s *SiteRaw, set *Settings, zone *time.Location, dates bool) {
 	type hour struct {
 		t   time.Time
 		how int
@@ -274,8 +284,8 @@ func gaps(d *siteDerived, s *SiteRaw, set *Settings, zone *time.Location) {
 		return occ >= int64(set.GapMinWeeks) && float64(sum)/float64(occ) >= set.GapMinMean
 	}
 	for _, x := range hs {
-		if !expects(occ[x.how], sum[x.how]) {
-			continue
+		if dates || !expects(occ[x.how], sum[x.how]) {
+			continue // dates only: no hour-level gaps
 		}
 		d.judgedHours++
 		if x.n == 0 {
@@ -304,10 +314,15 @@ func gaps(d *siteDerived, s *SiteRaw, set *Settings, zone *time.Location) {
 	}
 }
 
-func resolution(grid map[string]int64, events int64, zone string) Resolution {
+func resolution(grid map[string]int64, events int64, zone string, clock *ClockTimes) Resolution {
 	res := Resolution{Zone: zone, Grid: "microsecond", Heaping: []Heaping{}}
 	unit := int64(1)
 	if events == 0 {
+		return res
+	}
+	if dateOnly(clock, events) {
+		res.Grid, res.DateOnly = "day", true
+		res.Artefact = artefact(clock, zone)
 		return res
 	}
 	for g := range numGrids {
@@ -325,6 +340,46 @@ func resolution(grid map[string]int64, events int64, zone string) Resolution {
 		res.Heaping = append(res.Heaping, h)
 	}
 	return res
+}
+
+// dateOnlyMin is the fewest events that make "every event at one clock
+// time" a finding about the data rather than chance.
+const dateOnlyMin = 24
+
+// dateOnly reports whether every one of at least dateOnlyMin events sits
+// at one clock time of day in the zone or in UTC: a file of dates.
+func dateOnly(c *ClockTimes, events int64) bool {
+	return events >= dateOnlyMin && c != nil && (c.ZoneSame || c.UTCSame)
+}
+
+// artefact names the fixed clock time of date-only data and the offset it
+// shows: dates read as midnight at a fixed offset and stored in UTC land
+// at one UTC clock time (23:00 UTC for +01:00).
+func artefact(c *ClockTimes, zone string) string {
+	clock := func(us int64) string {
+		return time.UnixMicro(us).UTC().Format("15:04:05")
+	}
+	offset := func(us int64) string {
+		if us > 12*3600e6 {
+			us -= 24 * 3600e6
+		}
+		sign := "+"
+		if us > 0 { // 23:00 is midnight at +01:00
+			sign = "-"
+		} else {
+			us = -us
+		}
+		return sign + time.UnixMicro(us).UTC().Format("15:04")
+	}
+	switch {
+	case c.ZoneSame && c.Zone == 0:
+		return ""
+	case c.UTCSame && c.UTC == 0:
+		return "every event at 00:00:00 UTC: dates at UTC midnight, not at midnight in " + zone
+	case c.ZoneSame:
+		return "every event at " + clock(c.Zone) + " in " + zone + ": dates shifted by a fixed offset"
+	}
+	return "every event at " + clock(c.UTC) + " UTC: dates written as midnight at a fixed offset of " + offset(c.UTC) + ", not in " + zone
 }
 
 // scoredFields says which optional fields enter the completeness score.
@@ -349,8 +404,13 @@ func fieldCompleteness(all *SiteRaw, set *Settings) ([]FieldCompleteness, []Type
 	scored := scoredFields(all, set)
 	fc := make([]FieldCompleteness, 0, len(schema.Fields))
 	for _, f := range schema.Fields {
+		ne, n := all.NonEmpty[f], all.Events
+		if !f.Required() {
+			ne, n = applicable(all, f)
+		}
 		fc = append(fc, FieldCompleteness{Field: f, Required: f.Required(), NonEmpty: all.NonEmpty[f],
-			Share: share(all.NonEmpty[f], all.Events), Scored: all.Events > 0 && slices.Contains(scored, f)})
+			Share: share(all.NonEmpty[f], all.Events), Applicable: n, ApplicableShare: share(ne, n),
+			Scored: n > 0 && slices.Contains(scored, f)})
 	}
 	tc := []TypeCompleteness{}
 	for _, t := range schema.EventTypes {
@@ -380,7 +440,9 @@ func scores(s *SiteRaw, d *siteDerived, set *Settings, rejected map[schema.Reaso
 	}
 	if s.Events > 0 {
 		for _, f := range scoredFields(s, set) {
-			terms = append(terms, share(s.NonEmpty[f], s.Events))
+			if ne, n := applicable(s, f); n > 0 {
+				terms = append(terms, share(ne, n))
+			}
 		}
 	}
 	if len(terms) > 0 {
@@ -469,7 +531,8 @@ func findings(r *Report, all *SiteRaw, sum *siteDerived, set *Settings, rejected
 	add(DimCompleteness, finding(string(schema.ReasonMissingRequired), rejected[schema.ReasonMissingRequired], rows.Total, "rows", rejSamples[schema.ReasonMissingRequired]), false)
 	for _, fc := range r.Completeness {
 		if fc.Scored {
-			f := finding(CodeEmptyValue, rows.Accepted-fc.NonEmpty, rows.Accepted, "accepted rows", smp[emptyKey(fc.Field)])
+			ne, _ := applicable(all, fc.Field)
+			f := finding(CodeEmptyValue, fc.Applicable-ne, fc.Applicable, "events the field applies to", smp[emptyKey(fc.Field)])
 			f.Field = fc.Field
 			add(DimCompleteness, f, false)
 		}

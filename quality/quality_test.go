@@ -174,17 +174,23 @@ func TestScores(t *testing.T) {
 		[]schema.Rejection{{Line: 1, Reason: schema.ReasonMissingRequired}, {Line: 2, Reason: schema.ReasonBadTimestamp}})
 	acc := float64(len(evs))
 	total := acc + 2
-	var queue float64
+	// queue applies to enqueue, start, abandon and transfer events only
+	// (Applies): its share is among those.
+	var queue, queueOf float64
 	for _, e := range evs {
-		if e.Queue != "" {
-			queue++
+		switch e.Type {
+		case schema.Enqueue, schema.Start, schema.Abandon, schema.Transfer:
+			queueOf++
+			if e.Queue != "" {
+				queue++
+			}
 		}
 	}
 	all := &SiteRaw{Counts: map[string]int64{}, NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{}}
 	for i := range r.Raw.Sites {
 		mergeSite(all, &r.Raw.Sites[i])
 	}
-	wantCompl := 100 * ((1 - 1/total) + 1 + queue/acc) / 3
+	wantCompl := 100 * ((1 - 1/total) + 1 + queue/queueOf) / 3
 	wantAcc := 100 * (1 - float64(all.AccuracyRows+all.Counts[CodeCaseTooLong]+1)/total)
 	wantCons := 100 * (1 - float64(all.ConsistencyRows)/acc)
 	wantUniq := 100 * (1 - float64(all.UniquenessRows)/acc)
@@ -349,7 +355,7 @@ func TestLittlesLaw(t *testing.T) {
 	l := intact.Little[0]
 	// L = λ·W = 6/h · 1 h = 6 (Little's law, L = λW; from memory). The
 	// window ends at the last departure, so the edge costs well under 1%.
-	if !l.Judged || l.Flagged || l.Completed != 7*24*6 || l.W != 1 || l.Ratio < 0.99 || l.Ratio > 1.01 {
+	if !l.Judged || l.Flagged || l.Exits != 7*24*6 || l.W != 1 || l.Ratio < 0.99 || l.Ratio > 1.01 {
 		t.Errorf("intact: %+v", l)
 	}
 	if intact.Count(CodeLittlesLawMismatch) != 0 {
@@ -433,7 +439,8 @@ func TestText(t *testing.T) {
 	if !strings.Contains(color.String(), "\x1b[") {
 		t.Error("no colour")
 	}
-	for _, want := range []string{"quality report v3", "site", "(all)", "north", "exact_duplicate", "resource_overlap", "accuracy"} {
+	for _, want := range []string{"quality report v4", "site", "(all)", "north", "exact_duplicate", "resource_overlap", "accuracy",
+		"what the findings mean", "exact_duplicate: " + whyOf(CodeExactDuplicate), "first rejected rows", "bad_timestamp: line 3"} {
 		if !strings.Contains(plain.String(), want) {
 			t.Errorf("text lacks %q:\n%s", want, plain.String())
 		}

@@ -2,6 +2,7 @@ package quality
 
 import (
 	"cmp"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"slices"
@@ -18,6 +19,10 @@ type Raw struct {
 	Sites    []SiteRaw           `json:"sites"`
 	Waits    []WaitRaw           `json:"waits"`
 	Samples  map[string][]Sample `json:"samples"` // by finding code; empty_value:<field> per field
+	// ResourcePeak is the most services one resource held open at once
+	// (services taken as lost dropped): the capacity the data show, to set
+	// against Settings.ResourceCapacity.
+	ResourcePeak int `json:"resource_peak"`
 }
 
 // Settings are the options the counts were taken with.
@@ -40,6 +45,7 @@ type Settings struct {
 	UploadedAt         *time.Time `json:"uploaded_at,omitempty"` // the latest, when merged
 	WindowFrom         *time.Time `json:"window_from,omitempty"`
 	WindowTo           *time.Time `json:"window_to,omitempty"`
+	Historical         bool       `json:"historical,omitempty"` // not scored on currentness
 }
 
 // SiteRaw holds the counts of one site.
@@ -62,6 +68,33 @@ type SiteRaw struct {
 	Hours           HourSeries                   `json:"hours"`
 	FileRows        int64                        `json:"file_rows"`
 	FileBackSteps   int64                        `json:"file_back_steps"`
+	// Clock says whether every event sits at one clock time of day, in
+	// the dataset's zone or in UTC: dates without a time (nil: no events).
+	Clock *ClockTimes `json:"clock,omitempty"`
+}
+
+// ClockTimes holds the time of day (µs after midnight) of a site's first
+// event in the dataset's zone and in UTC, and whether every event shares
+// it.
+type ClockTimes struct {
+	Zone     int64 `json:"zone"`
+	ZoneSame bool  `json:"zone_same"`
+	UTC      int64 `json:"utc"`
+	UTCSame  bool  `json:"utc_same"`
+}
+
+func mergeClock(d, s *ClockTimes) *ClockTimes {
+	if s == nil {
+		return d
+	}
+	if d == nil {
+		c := *s
+		return &c
+	}
+	c := *d
+	c.ZoneSame = c.ZoneSame && s.ZoneSame && c.Zone == s.Zone
+	c.UTCSame = c.UTCSame && s.UTCSame && c.UTC == s.UTC
+	return &c
 }
 
 // TypeRaw counts the events of one type and their non-empty fields.
@@ -110,9 +143,9 @@ func (d *CaseRaw) merge(s *CaseRaw) {
 type CensusRaw struct {
 	SpanSeconds     float64 `json:"span_seconds"`
 	AreaCaseSeconds float64 `json:"area_case_seconds"` // ∫ census dt
-	Arrivals        int64   `json:"arrivals"`
-	Completed       int64   `json:"completed"` // stays with arrival and departure
-	SojournSeconds  float64 `json:"sojourn_seconds"`
+	Entries         int64   `json:"entries"`           // stays begun (see cases.Record.Stays)
+	Exits           int64   `json:"exits"`             // stays ended by an exit (cases.Exits)
+	StayedSeconds   float64 `json:"stayed_seconds"`    // Σ stays, an open one ending at its case's last event
 	Min             int64   `json:"min"`
 }
 
@@ -152,7 +185,7 @@ func MergeReports(rs ...*Report) (*Report, error) {
 		if r == nil {
 			continue
 		}
-		if r.Version != ReportVersion && r.Version != "2" { // 2: hours as one dense series, read into runs
+		if r.Version != ReportVersion && r.Version != "3" && r.Version != "2" { // 2: hours as one dense series, read into runs
 			return nil, fmt.Errorf("merge: report %d has format %q, want %q: %w", i, r.Version, ReportVersion, ErrIncompatible)
 		}
 		if out == nil {
@@ -217,7 +250,7 @@ func cloneRejections(rs []RejectionCount) []RejectionCount {
 }
 
 func cloneRaw(r *Raw) Raw {
-	out := Raw{Settings: r.Settings, Uploads: r.Uploads, Samples: map[string][]Sample{}}
+	out := Raw{Settings: r.Settings, Uploads: r.Uploads, ResourcePeak: r.ResourcePeak, Samples: map[string][]Sample{}}
 	out.Settings.MappedFields = slices.Clone(r.Settings.MappedFields)
 	for k, v := range r.Samples {
 		out.Samples[k] = slices.Clone(v)
@@ -233,6 +266,7 @@ func cloneRaw(r *Raw) Raw {
 
 func mergeRaw(dst, src *Raw) {
 	dst.Uploads += src.Uploads
+	dst.ResourcePeak = max(dst.ResourcePeak, src.ResourcePeak)
 	if u := src.Settings.UploadedAt; u != nil && (dst.Settings.UploadedAt == nil || u.After(*dst.Settings.UploadedAt)) {
 		dst.Settings.UploadedAt = u
 	}
@@ -293,6 +327,7 @@ func mergeSite(d, s *SiteRaw) {
 	d.ConsistencyRows += s.ConsistencyRows
 	d.UniquenessRows += s.UniquenessRows
 	addMap(d.NonEmpty, s.NonEmpty)
+	d.Clock = mergeClock(d.Clock, s.Clock)
 	for t, tr := range s.ByType {
 		x := d.ByType[t]
 		if x.NonEmpty == nil {
@@ -318,9 +353,9 @@ func mergeSite(d, s *SiteRaw) {
 	c := &d.Census
 	c.SpanSeconds += s.Census.SpanSeconds
 	c.AreaCaseSeconds += s.Census.AreaCaseSeconds
-	c.Arrivals += s.Census.Arrivals
-	c.Completed += s.Census.Completed
-	c.SojournSeconds += s.Census.SojournSeconds
+	c.Entries += s.Census.Entries
+	c.Exits += s.Census.Exits
+	c.StayedSeconds += s.Census.StayedSeconds
 	if first || s.Census.Min < c.Min {
 		c.Min = s.Census.Min
 	}
@@ -362,10 +397,11 @@ func WithCases(merged, cases *Report) *Report {
 		}
 		s.Stages = c.Stages
 		s.Cases = c.Cases
+		s.Census.SpanSeconds = c.Census.SpanSeconds
 		s.Census.AreaCaseSeconds = c.Census.AreaCaseSeconds
-		s.Census.Arrivals = c.Census.Arrivals
-		s.Census.Completed = c.Census.Completed
-		s.Census.SojournSeconds = c.Census.SojournSeconds
+		s.Census.Entries = c.Census.Entries
+		s.Census.Exits = c.Census.Exits
+		s.Census.StayedSeconds = c.Census.StayedSeconds
 		for _, code := range caseCodes {
 			if n := c.Counts[code]; n > 0 {
 				s.Counts[code] = n
@@ -383,4 +419,52 @@ func WithCases(merged, cases *Report) *Report {
 		}
 	}
 	return derive(merged.Rows, cloneRejections(merged.Rejections), raw, slices.Clone(merged.UnmappedColumns))
+}
+
+// WithFile returns a copy of r whose samples name file (see SetFile); r
+// itself when file is "".
+func (r *Report) WithFile(file string) *Report {
+	if file == "" {
+		return r
+	}
+	b, err := json.Marshal(r)
+	if err != nil {
+		return r
+	}
+	var c Report
+	if err := json.Unmarshal(b, &c); err != nil {
+		return r
+	}
+	c.SetFile(file)
+	return &c
+}
+
+// SetFile names file as the file of every sample of r that has a source
+// line and no file yet, so that a version's merged report says where each
+// line is.
+func (r *Report) SetFile(file string) {
+	if file == "" {
+		return
+	}
+	set := func(ss []Sample) {
+		for i := range ss {
+			if ss[i].Line > 0 && ss[i].File == "" {
+				ss[i].File = file
+			}
+		}
+	}
+	for _, ss := range r.Raw.Samples {
+		set(ss)
+	}
+	for i := range r.Rejections {
+		set(r.Rejections[i].Samples)
+	}
+	for i := range r.Dimensions {
+		for j := range r.Dimensions[i].Findings {
+			set(r.Dimensions[i].Findings[j].Samples)
+		}
+	}
+	for j := range r.Internal {
+		set(r.Internal[j].Samples)
+	}
 }

@@ -15,9 +15,12 @@ import (
 // removing one, or changing a formula, bumps it.
 //
 // Version 3 holds each site's hourly series in runs (raw.hours.runs)
-// rather than as one dense series from the first event; reports of
-// version 2 are still read and merged.
-const ReportVersion = "3"
+// rather than as one dense series from the first event. Version 4 counts
+// Little's law by entries and exits (little.entries, little.exits and
+// raw census entries, exits, stayed_seconds, recomputed by every per-case
+// pass), completeness over the events a field applies to, and date-only
+// resolution. Reports of versions 2 and 3 are still read and merged.
+const ReportVersion = "4"
 
 // Report is the quality report of one upload, or of several merged by
 // [MergeReports]. Everything but Raw, Rows, Rejections and
@@ -76,7 +79,12 @@ type FieldCompleteness struct {
 	Required bool         `json:"required"`
 	NonEmpty int64        `json:"non_empty"`
 	Share    float64      `json:"share"` // NonEmpty / accepted rows; 0 when none
-	Scored   bool         `json:"scored"`
+	// Applicable counts the events of the types the field applies to
+	// (Applies) and ApplicableShare the share of them holding a value: what
+	// the score and the empty_value finding judge.
+	Applicable      int64   `json:"applicable"`
+	ApplicableShare float64 `json:"applicable_share"`
+	Scored          bool    `json:"scored"`
 }
 
 // TypeCompleteness is the completeness of the optional fields among the
@@ -133,6 +141,12 @@ type Resolution struct {
 	Zone    string    `json:"zone"`
 	Grid    string    `json:"grid"` // microsecond, millisecond, ..., day
 	Heaping []Heaping `json:"heaping"`
+	// DateOnly: every event sits at one clock time of day, in the zone or
+	// in UTC: the data hold dates, not times. Grid is then day, Artefact
+	// names the clock time and the fixed offset it shows when that is not
+	// midnight, and hour-level gap checks are not made.
+	DateOnly bool   `json:"date_only,omitempty"`
+	Artefact string `json:"artefact,omitempty"`
 }
 
 // Heaping is the share of events on one round grid against the share
@@ -145,15 +159,18 @@ type Heaping struct {
 	Heaped   bool    `json:"heaped"`
 }
 
-// LittleLaw compares, for one site, the time-average number in system L
-// with λ·W. Rates are per hour, times in hours.
+// LittleLaw compares, for one site, the time-average census L with λ·W,
+// each side measured apart (SCORING.md): L from the census of entries and
+// exits, a stay without an exit counted to the site's last event; λ·W
+// from the entries and the stays, a stay without an exit ending at its
+// case's last event. Rates are per hour, times in hours.
 type LittleLaw struct {
 	Site      string  `json:"site"`
 	Judged    bool    `json:"judged"`
 	Flagged   bool    `json:"flagged"`
 	SpanHours float64 `json:"span_hours"`
-	Arrivals  int64   `json:"arrivals"`
-	Completed int64   `json:"completed"`
+	Entries   int64   `json:"entries"`
+	Exits     int64   `json:"exits"`
 	L         float64 `json:"l"`
 	Lambda    float64 `json:"lambda"`
 	W         float64 `json:"w"`
@@ -242,6 +259,9 @@ type Finding struct {
 // fault when known; for a gap, the site and the hour or day. It never
 // holds a field value.
 type Sample struct {
+	// File names the uploaded file the line is in (its name as uploaded),
+	// set when the reports of a version's uploads are merged.
+	File   string       `json:"file,omitempty"`
 	Line   int64        `json:"line,omitempty"`
 	CaseID string       `json:"case_id,omitempty"`
 	Column string       `json:"column,omitempty"`
@@ -300,7 +320,7 @@ func (r *Report) Findings() iter.Seq2[*Dimension, *Finding] {
 // Report computes the report from the counts so far. It does not change
 // the accumulator, so it may be called again after more input.
 func (a *Accumulator) Report() *Report {
-	raw := Raw{Settings: a.settings(), Uploads: 1, Samples: map[string][]Sample{}}
+	raw := Raw{Settings: a.settings(), Uploads: 1, Samples: map[string][]Sample{}, ResourcePeak: a.resPeak}
 	var accepted int64
 	for _, s := range a.sites {
 		accepted += s.events
@@ -354,6 +374,7 @@ func (a *Accumulator) settings() Settings {
 		LittleTolerance:      o.LittleTolerance, GapMinMean: o.GapMinMean, GapMinWeeks: o.GapMinWeeks,
 		StaleAfterSeconds: o.StaleAfter.Seconds(),
 		UploadedAt:        timePtr(o.UploadedAt), WindowFrom: timePtr(o.WindowFrom), WindowTo: timePtr(o.WindowTo),
+		Historical: o.Historical,
 	}
 	if st.MappedFields == nil {
 		st.MappedFields = []schema.Field{}
@@ -394,17 +415,23 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 	for g := range numGrids {
 		r.Grid[gridNames[g]] = s.grid[g]
 	}
+	if s.clock != nil {
+		c := *s.clock
+		r.Clock = &c
+	}
 	if s.hasAt {
 		r.First, r.Last = timePtr(time.UnixMicro(s.firstAt)), timePtr(time.UnixMicro(s.lastAt))
 		// Cases still in the system stay in the census to the site's last
 		// event.
 		area := s.area + float64(s.openN)*float64(s.lastAt) - s.openEntry
+		stayed := s.stayed
 		if st := &a.cur; st.id != "" && st.flags&csInSystem != 0 && st.site == s.idx {
 			area += float64(s.lastAt - st.entry)
+			stayed += float64(st.rec - st.entry)
 		}
 		r.Census = CensusRaw{
 			SpanSeconds: float64(s.lastAt-s.firstAt) / 1e6, AreaCaseSeconds: area / 1e6,
-			Arrivals: s.arrivals, Completed: s.completed, SojournSeconds: s.sojourn / 1e6, Min: s.censusMin,
+			Entries: s.entries, Exits: s.exits, StayedSeconds: stayed / 1e6, Min: s.censusMin,
 		}
 	}
 	r.Lag = LagRaw{N: s.lagN, MaxSeconds: s.lagMax, Buckets: map[int]int64{}}

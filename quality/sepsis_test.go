@@ -62,9 +62,28 @@ func TestSepsis(t *testing.T) {
 
 	// Resolution from the raw column, read with time.Parse in the log's
 	// zone: the coarsest grid every wall-clock time sits on.
-	want := rawResolution(t)
+	want, onGrid, total := rawResolution(t)
 	if r.Resolution.Grid != want {
 		t.Errorf("resolution %s, want %s", r.Resolution.Grid, want)
+	}
+	// Heaping, by the rule of SCORING.md, from the same reading: for the
+	// grids minute to hour coarser than the resolution (seconds here), the
+	// share of events on the grid against 1 s / grid expected.
+	grids := []struct {
+		name string
+		i    int
+		secs float64
+	}{{"minute", 2, 60}, {"5_minutes", 3, 300}, {"15_minutes", 4, 900}, {"hour", 5, 3600}}
+	if want != "second" || len(r.Resolution.Heaping) != len(grids) {
+		t.Fatalf("resolution %s, heaping %+v", want, r.Resolution.Heaping)
+	}
+	for k, g := range grids {
+		h := r.Resolution.Heaping[k]
+		share, expected := float64(onGrid[g.i])/float64(total), 1/g.secs
+		heaped := share >= 2*expected && share-expected > 0.05
+		if h.Grid != g.name || h.Events != onGrid[g.i] || h.Heaped != heaped {
+			t.Errorf("heaping %+v, standard library %s: %d events (%.4f, expected %.5f), heaped %v", h, g.name, onGrid[g.i], share, expected, heaped)
+		}
 	}
 	// The millisecond field is always .000 (README), so at least seconds.
 	if r.Resolution.Grid == "microsecond" || r.Resolution.Grid == "millisecond" {
@@ -96,6 +115,27 @@ func TestSepsis(t *testing.T) {
 	if got := r.Count(CodeExactDuplicate); got != exact {
 		t.Errorf("exact_duplicate %d, want %d", got, exact)
 	}
+	// Duplicates keyed on case, type, activity and instant: per such key,
+	// the distinct events (exact copies count once) beyond the first. On
+	// this log of completions, different steps at one instant are not
+	// duplicates.
+	dupGroups := map[[4]string]map[schema.Event]bool{}
+	for _, e := range evs {
+		e.Line = 0
+		k := [4]string{e.CaseID, string(e.Type), e.Activity, e.OccurredAt.Format(time.RFC3339Nano)}
+		if dupGroups[k] == nil {
+			dupGroups[k] = map[schema.Event]bool{}
+		}
+		dupGroups[k][e] = true
+	}
+	var dups int64
+	for _, g := range dupGroups {
+		dups += int64(len(g) - 1)
+	}
+	if got := r.Count(CodeDuplicateCaseTypeTime); got != dups || dups >= same {
+		t.Errorf("duplicate_case_type_time %d, standard library %d (same instant %d)", got, dups, same)
+	}
+	t.Logf("sepsis: %d same-instant events, %d duplicates by case, type, activity and instant, %d exact copies", same, dups, exact)
 	// Only completes: no order conflicts, no arrivals, no waits.
 	if r.Count(CodeSameInstantOrder) != 0 || r.Stages.Arrival != 0 || len(r.Waits) != 0 {
 		t.Errorf("order conflicts %d, stages %+v, waits %v", r.Count(CodeSameInstantOrder), r.Stages, r.Waits)
@@ -128,7 +168,7 @@ func TestSepsis(t *testing.T) {
 	t.Logf("sepsis: score %v, resolution %s, same_instant %d, rows %+v", *r.Score, r.Resolution.Grid, same, r.Rows)
 }
 
-func rawResolution(t *testing.T) string {
+func rawResolution(t *testing.T) (string, [7]int64, int64) {
 	ams, err := time.LoadLocation("Europe/Amsterdam")
 	if err != nil {
 		t.Fatal(err)
@@ -151,6 +191,8 @@ func rawResolution(t *testing.T) string {
 	col := slices.Index(head, "Complete Timestamp")
 	// on[g]: every time so far sits on grid g (ms, s, min, 5 min, 15 min, hour, day).
 	on := [7]bool{true, true, true, true, true, true, true}
+	var count [7]int64 // events on each grid
+	var total int64
 	for {
 		rec, err := cr.Read()
 		if err == io.EOF {
@@ -166,8 +208,12 @@ func rawResolution(t *testing.T) string {
 		ns, s, m, h := tm.Nanosecond(), tm.Second(), tm.Minute(), tm.Hour()
 		conds := [7]bool{ns%1e6 == 0, ns == 0, ns == 0 && s == 0, ns == 0 && s == 0 && m%5 == 0,
 			ns == 0 && s == 0 && m%15 == 0, ns == 0 && s == 0 && m == 0, ns == 0 && s == 0 && m == 0 && h == 0}
+		total++
 		for i := range on {
 			on[i] = on[i] && conds[i]
+			if conds[i] {
+				count[i]++
+			}
 		}
 	}
 	names := []string{"millisecond", "second", "minute", "5_minutes", "15_minutes", "hour", "day"}
@@ -177,5 +223,5 @@ func rawResolution(t *testing.T) string {
 			res = names[i]
 		}
 	}
-	return res
+	return res, count, total
 }

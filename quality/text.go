@@ -65,10 +65,15 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	}
 	p.table(bw, rows, map[int]bool{0: true}, true)
 
+	if r.Raw.ResourcePeak > 0 {
+		fmt.Fprintf(bw, "\nresource capacity %d (set); at most %d services open at one resource at once (in the data)\n",
+			r.Raw.Settings.ResourceCapacity, r.Raw.ResourcePeak)
+	}
+
 	// Little's law.
 	var lrows [][]string
 	for _, l := range r.Little {
-		if l.Completed == 0 && l.Arrivals == 0 {
+		if l.Exits == 0 && l.Entries == 0 {
 			continue
 		}
 		mark := "not judged"
@@ -107,6 +112,48 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	if len(frows) > 1 {
 		bw.WriteString("\n")
 		p.table(bw, frows, map[int]bool{0: true, 1: true, 4: true, 5: true}, false)
+	}
+
+	// What each finding found means, once per code.
+	said := map[string]bool{}
+	var sentences []string
+	for _, f := range r.Findings() {
+		if f.Count == 0 || said[f.Code] {
+			continue
+		}
+		said[f.Code] = true
+		if w := whyOf(f.Code); w != "" {
+			sentences = append(sentences, f.Code+": "+w)
+		}
+	}
+	if len(sentences) > 0 {
+		bw.WriteString("\n" + p.bold("what the findings mean") + "\n")
+		for _, s := range sentences {
+			bw.WriteString("  " + s + "\n")
+		}
+	}
+	// The first rejected rows, where to look.
+	var rej []string
+	for _, rc := range r.Rejections {
+		for _, s := range rc.Samples {
+			where := "line " + strconv.FormatInt(s.Line, 10)
+			if s.File != "" {
+				where = s.File + " " + where
+			}
+			if s.Column != "" {
+				where += ", column " + s.Column
+			}
+			if s.Field != "" {
+				where += " (" + string(s.Field) + ")"
+			}
+			rej = append(rej, string(rc.Reason)+"\t"+where)
+		}
+	}
+	if len(rej) > 0 {
+		bw.WriteString("\n" + p.bold("first rejected rows") + "\n")
+		for _, s := range rej {
+			bw.WriteString("  " + strings.Replace(s, "\t", ": ", 1) + "\n")
+		}
 	}
 	return bw.Flush()
 }
@@ -207,6 +254,9 @@ func sampleLines(s []Sample) string {
 		}
 		switch {
 		case x.Line > 0:
+			if x.File != "" {
+				b.WriteString(x.File + ":")
+			}
 			b.WriteString(strconv.FormatInt(x.Line, 10))
 		case x.At != nil:
 			b.WriteString(x.Site + "@" + x.At.Format("2006-01-02T15"))

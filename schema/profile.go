@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 	"unicode/utf8"
@@ -84,6 +85,13 @@ type Profile struct {
 	Timezone  string            `json:"timezone"` // IANA zone name of wall-clock times
 	LocalTime LocalTimePolicy   `json:"local_time"`
 	Fields    map[Field]Mapping `json:"fields"`
+	// Terminal names event types that end a case's presence at its site
+	// besides departure and abandon (a contact line's complete, say): the
+	// census and Little's law take the case out at the first of them.
+	Terminal []EventType `json:"terminal,omitempty"`
+	// ResourceCapacity is how many cases one resource may serve at once
+	// (0: the quality model's default, 1).
+	ResourceCapacity int `json:"resource_capacity,omitempty"`
 
 	loc *time.Location
 }
@@ -291,8 +299,24 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 			}
 		case "fields":
 			fieldsNode = kv.value
+		case "resource_capacity":
+			s, err := scalar(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			n, err := strconv.Atoi(s)
+			if err != nil || n < 1 || n > 1000 {
+				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number from 1 to 1000", clip(s))}
+			}
+			p.ResourceCapacity = n
+		case "terminal":
+			ts, err := terminalTypes(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			p.Terminal = ts
 		default:
-			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time or fields)"}
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity or fields)"}
 		}
 	}
 	if fieldsNode == nil {
@@ -485,6 +509,14 @@ func (p *Profile) validate(lines map[string]int) error {
 			}
 		}
 	}
+	if p.ResourceCapacity < 0 || p.ResourceCapacity > 1000 {
+		return at("resource_capacity", "want a whole number from 1 to 1000")
+	}
+	for _, t := range p.Terminal {
+		if !t.Valid() || t == Arrival || t == Enqueue {
+			return at("terminal", fmt.Sprintf("%q cannot end a case (want start, complete, abandon, transfer or departure)", clip(string(t))))
+		}
+	}
 	return nil
 }
 
@@ -593,6 +625,31 @@ func scalar(n ast.Node, key string) (string, error) {
 		return "", &ProfileError{Line: line(n), Key: key, Msg: "anchors, aliases and tags are not supported in profiles"}
 	}
 	return "", &ProfileError{Line: line(n), Key: key, Msg: "must be a single value"}
+}
+
+// terminalTypes reads the terminal key: one event type or a list of them.
+func terminalTypes(n ast.Node, key string) ([]EventType, error) {
+	var items []ast.Node
+	if seq, ok := n.(*ast.SequenceNode); ok {
+		items = seq.Values
+	} else {
+		items = []ast.Node{n}
+	}
+	var out []EventType
+	for _, it := range items {
+		s, err := scalar(it, key)
+		if err != nil {
+			return nil, err
+		}
+		t, err := ParseEventType(s)
+		if err != nil {
+			return nil, &ProfileError{Line: line(it), Key: key, Msg: fmt.Sprintf("unknown event type %q (want one of %s)", clip(s), eventTypeList())}
+		}
+		if !slices.Contains(out, t) {
+			out = append(out, t)
+		}
+	}
+	return out, nil
 }
 
 // multilineSetting reads "multiline: true|false" or a mapping of

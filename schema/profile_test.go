@@ -1,6 +1,7 @@
 package schema
 
 import (
+	"encoding/json"
 	"errors"
 	"os"
 	"strings"
@@ -233,6 +234,47 @@ func TestSepsisProfileParses(t *testing.T) {
 	if p.Delimiter != ";" || p.Timezone != "Europe/Amsterdam" || p.Fields[FieldOccurredAt].Layout != "%Y/%m/%d %H:%M:%S.%f" {
 		t.Errorf("%+v", p)
 	}
+}
+
+func TestProfileTerminal(t *testing.T) {
+	base := "fields:\n  site: {value: s}\n  case_id: c\n  event_type: t\n  occurred_at: at\n"
+	p, err := ParseProfile([]byte("terminal: [complete, transfer]\n" + base))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(p.Terminal) != 2 || p.Terminal[0] != Complete || p.Terminal[1] != Transfer {
+		t.Errorf("terminal %v", p.Terminal)
+	}
+	if p, err := ParseProfile([]byte("terminal: complete\n" + base)); err != nil || len(p.Terminal) != 1 {
+		t.Errorf("one terminal type: %v %v", p, err)
+	}
+	// A profile without terminal hashes as before (the key is omitted).
+	q, err := ParseProfile([]byte(base))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if strings.Contains(string(mustJSON(t, q)), "terminal") {
+		t.Error("terminal key in a profile without one")
+	}
+	if p, err := ParseProfile([]byte("resource_capacity: 3\n" + base)); err != nil || p.ResourceCapacity != 3 {
+		t.Errorf("resource_capacity: %v %v", p, err)
+	}
+	for _, bad := range []string{"terminal: [arrival]\n", "terminal: [closed]\n", "terminal: [enqueue]\n", "resource_capacity: 0\n", "resource_capacity: two\n"} {
+		_, err := ParseProfile([]byte(bad + base))
+		var pe *ProfileError
+		if !errors.As(err, &pe) || (pe.Key != "terminal" && pe.Key != "resource_capacity") {
+			t.Errorf("%q: %v, want an error on terminal", bad, err)
+		}
+	}
+}
+
+func mustJSON(t *testing.T, v any) []byte {
+	t.Helper()
+	b, err := json.Marshal(v)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return b
 }
 
 // TestProfileLimits: an oversized or deeply nested profile is refused by

@@ -104,9 +104,10 @@ func TestSepsisCases(t *testing.T) {
 	if b := s.BetweenEvents; b.N != gaps || math.Abs(b.Mean-2.582720637e9/float64(gaps)) > 1e-3 {
 		t.Errorf("between events n %d mean %.4f, want %d and %.4f", b.N, b.Mean, gaps, 2.582720637e9/float64(gaps))
 	}
-	// A log of completions alone: no waits, no services, and it says so.
-	if len(s.NotMeasurable) != 2 || s.NotMeasurable[0].Figure != "waits" || s.NotMeasurable[1].Figure != "services" {
-		t.Errorf("not measurable %+v, want waits and services", s.NotMeasurable)
+	// A log of completions alone: no waits, no services, no exits for
+	// Little's law, and it says so.
+	if len(s.NotMeasurable) != 3 || s.NotMeasurable[0].Figure != "waits" || s.NotMeasurable[1].Figure != "services" || s.NotMeasurable[2].Figure != "littles_law" {
+		t.Errorf("not measurable %+v, want waits, services and littles_law", s.NotMeasurable)
 	}
 
 	// The case table over HTTP, through Arrow: one row per case id, each

@@ -111,6 +111,7 @@ type createDatasetRequest struct {
 	WindowTo    *time.Time `json:"window_to"`
 	Drafts      bool       `json:"drafts"`
 	Changes     string     `json:"changes"` // refuse (default) or correct
+	Historical  bool       `json:"historical"`
 }
 
 func (s *Server) createDataset(c echo.Context) error {
@@ -120,13 +121,13 @@ func (s *Server) createDataset(c echo.Context) error {
 		return forbidden("create datasets in project " + project)
 	}
 	var req createDatasetRequest
-	if err := decodeJSON(c, &req, `{"name", "title", "profile", "timezone", "reject_above", "window_from", "window_to", "drafts", "changes"}`); err != nil {
+	if err := decodeJSON(c, &req, `{"name", "title", "profile", "timezone", "reject_above", "window_from", "window_to", "drafts", "changes", "historical"}`); err != nil {
 		return err
 	}
 	d, err := s.cfg.Store.CreateDataset(c.Request().Context(), catalog.DatasetSpec{
 		Project: project, Name: req.Name, Title: req.Title, Profile: []byte(req.Profile),
 		Timezone: req.Timezone, RejectAbove: req.RejectAbove, WindowFrom: req.WindowFrom, WindowTo: req.WindowTo,
-		Drafts: req.Drafts, Changes: catalog.ChangePolicy(req.Changes),
+		Drafts: req.Drafts, Changes: catalog.ChangePolicy(req.Changes), Historical: req.Historical,
 	}, cl.Subject)
 	if err != nil {
 		return catalogError(err)

@@ -44,6 +44,11 @@ type Options struct {
 	// before it collapses to log buckets of relative error 0.5%.
 	// Default [DefaultExactValues].
 	ExactValues int
+	// Terminal are the event types, besides departure and abandon, that
+	// end a case's presence (schema.Profile.Terminal), for the per-case
+	// computation of [Accumulator.ObserveAll]; catalog sets them on its
+	// own case pass.
+	Terminal []schema.EventType
 }
 
 // Accumulator gathers a summary in two parts. Event-level figures (event
@@ -93,6 +98,8 @@ type Accumulator struct {
 	prevCase string
 	caseAt   int64 // the previous event of prevCase
 	occ      map[int64]*occBucket
+	census   census
+	process  *ProcessObserver // process views, when a per-case pass computes them (not in the state)
 
 	// stream state of the current file
 	prevAt   int64
@@ -109,7 +116,15 @@ type Accumulator struct {
 // resources, counted by the caller.
 type Counts struct {
 	Cases, Subjects, Resources uint64
+	// Events the summary left out: dated later than their upload, outside
+	// the dataset's window, exact copies of another event.
+	LaterThanUpload, OutsideWindow, ExactDuplicates uint64
 }
+
+// SetProcess makes p's views the summary's `process` member; p must
+// observe the same per-case pass as a. Process views are not part of the
+// state: they are computed whole in each per-case pass.
+func (a *Accumulator) SetProcess(p *ProcessObserver) { a.process = p }
 
 // SetCounts makes c the summary's distinct counts, marked exact.
 func (a *Accumulator) SetCounts(c Counts) { a.counted = &c }
@@ -137,6 +152,27 @@ type activityGroup struct {
 	events   uint64
 	svc      *dist
 	negative uint64
+}
+
+// census holds the sums of Little's law over whole cases (see
+// cases.Record.Stays): exact integer sums, so states merge exactly.
+// Instants are stored shifted by instantShift to stay unsigned.
+type census struct {
+	stays, exits, open uint64
+	present            u128 // µs of the stays that ended by an exit
+	openSince          u128 // Σ entry of the stays still open, shifted
+	openLast           u128 // Σ last event of the cases holding them, shifted
+}
+
+const instantShift = 1 << 62
+
+func (c *census) merge(o *census) {
+	c.stays += o.stays
+	c.exits += o.exits
+	c.open += o.open
+	c.present.merge(o.present)
+	c.openSince.merge(o.openSince)
+	c.openLast.merge(o.openLast)
 }
 
 // occBucket holds what happened in one occupancy bucket: arrivals and
@@ -353,6 +389,19 @@ func (a *Accumulator) Case(r *cases.Record) {
 	a.prevCase = ""
 	a.occAdd(r.First, true)
 	a.occAdd(r.Last, false)
+	c := &a.census
+	c.stays += uint64(r.Stays)
+	if r.Present > 0 {
+		c.present.add(uint64(r.Present))
+	}
+	if r.OpenSince != nil {
+		c.open++
+		c.openSince.add(uint64(*r.OpenSince + instantShift))
+		c.openLast.add(uint64(r.Last + instantShift))
+		c.exits += uint64(r.Stays - 1)
+	} else {
+		c.exits += uint64(r.Stays)
+	}
 }
 
 // wait records a wait of d µs in queue q that ended in a start (served) or
@@ -410,18 +459,33 @@ func (a *Accumulator) endStretch() {
 	}
 	_, d0 := a.local(a.segFirst)
 	_, d1 := a.local(a.segLast)
-	a.days.add(dayRange{d0, d1})
+	a.days.add(dayRange{first: d0, last: d1, from: a.segFirst, to: a.segLast})
 	a.segHas = false
 }
 
-// observedDays returns the local days observed (see ObservationGap) and
-// how many of them fall on each weekday (0 = Monday). A day without events
-// inside a stretch counts, with no arrivals. The days depend only on the
-// days with events, not on how the events were cut into files, and state
-// grows with the stretches, not with the span.
-func (a *Accumulator) observedDays() (n int, wdays [7]int) {
+// exposure returns the hours of exposure behind each local hour of the
+// week (0 = Monday 00:00-01:00): in each observed stretch (see
+// ObservationGap), every real hour from the one holding its first event
+// to the one holding its last counts once, for the local hour of week its
+// start falls in; the silences between stretches count nowhere. So a
+// partial first or last day counts its hours only, the hour a clock
+// change skips counts nowhere and the one it repeats counts twice (for
+// zones whose offsets are whole hours; in others each real hour is
+// credited to the local hour its start falls in). The hours depend only
+// on the stretches, not on how the events were cut into files, and
+// neither the state nor this loop grows with the span: one far-dated event
+// adds its own hour.
+func (a *Accumulator) exposure() (total int, week [168]int) {
 	a.endStretch()
-	return a.days.days(), a.days.weekdays()
+	const hour = 3600 * usPerSec
+	for _, r := range a.days {
+		for h := floorDiv(r.from, hour); h <= floorDiv(r.to, hour); h++ {
+			how, _ := a.local(h * hour)
+			week[how]++
+			total++
+		}
+	}
+	return total, week
 }
 
 // local returns the hour of the week (0 = Monday 00:00-01:00 local) and
@@ -466,7 +530,9 @@ func (a *Accumulator) ObserveAll(evs []schema.Event) {
 		idx[i] = i
 	}
 	slices.SortStableFunc(idx, func(i, j int) int { return cases.Less(&evs[i], &evs[j]) })
-	b := cases.NewBuilder(a)
+	a.process = a.NewProcess()
+	b := cases.NewBuilder(a, a.process)
+	b.Terminal = a.opt.Terminal
 	for _, i := range idx {
 		b.Add(&evs[i])
 	}

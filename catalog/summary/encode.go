@@ -9,15 +9,17 @@ import (
 )
 
 // stateMagic starts every serialized state; the last byte is the format
-// version. Format 2 keeps the observed days as ranges (see
-// ObservationGap); a format 2 state from before the ranges holds none, and
-// reads as one range from its first to its last event.
-const stateMagic = "FCSUM\x02"
+// version. Format 4 keeps the observed stretches as ranges of days with
+// the instants of their first and last event (see ObservationGap) and the
+// census of Little's law.
+const stateMagic = "FCSUM\x04"
 
-// oldStateMagic starts states written before cases were whole (their case
-// figures were cut per file); UnmarshalBinary refuses them with
+// oldStateMagics start states of earlier formats: written before cases
+// were whole (their case figures were cut per file; 1), before the
+// observed stretches held their first and last instants (2) or before
+// the census of Little's law (3). UnmarshalBinary refuses them with
 // ErrOldState, and the caller recomputes the state from the file.
-const oldStateMagic = "FCSUM\x01"
+var oldStateMagics = []string{"FCSUM\x01", "FCSUM\x02", "FCSUM\x03"}
 
 type enc struct{ b []byte }
 
@@ -115,6 +117,9 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 		e.uv(a.counted.Cases)
 		e.uv(a.counted.Subjects)
 		e.uv(a.counted.Resources)
+		e.uv(a.counted.LaterThanUpload)
+		e.uv(a.counted.OutsideWindow)
+		e.uv(a.counted.ExactDuplicates)
 	} else {
 		e.uv(0)
 	}
@@ -158,14 +163,24 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 	}
 	e.uv(uint64(len(a.days)))
 	prev = 0
+	var prevAt int64
 	for _, r := range a.days {
 		e.iv(int64(r.first - prev))
 		e.uv(uint64(r.last - r.first))
-		prev = r.last
+		e.iv(r.from - prevAt)
+		e.uv(uint64(r.to - r.from))
+		prev, prevAt = r.last, r.to
 	}
 	e.dist(a.los)
 	e.dist(a.evCase)
 	e.dist(a.between)
+	c := &a.census
+	e.uv(c.stays)
+	e.uv(c.exits)
+	e.uv(c.open)
+	e.u128(c.present)
+	e.u128(c.openSince)
+	e.u128(c.openLast)
 	keys := slices.Sorted(maps.Keys(a.occ))
 	e.uv(uint64(len(keys)))
 	var pk int64
@@ -295,8 +310,10 @@ func (d *dec) dist() *dist {
 // [Accumulator.MarshalBinary]. It fails with ErrCorrupt on malformed bytes
 // and with an error from time.LoadLocation on an unknown zone.
 func (a *Accumulator) UnmarshalBinary(b []byte) error {
-	if len(b) >= len(oldStateMagic) && string(b[:len(oldStateMagic)]) == oldStateMagic {
-		return fmt.Errorf("summary: %w", ErrOldState)
+	for _, m := range oldStateMagics {
+		if len(b) >= len(m) && string(b[:len(m)]) == m {
+			return fmt.Errorf("summary: %w", ErrOldState)
+		}
 	}
 	if len(b) < len(stateMagic) || string(b[:len(stateMagic)]) != stateMagic {
 		return fmt.Errorf("summary: %w", ErrCorrupt)
@@ -328,7 +345,7 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 	x.outOfOrder = d.uv()
 	x.cases, x.subjects, x.resources = d.distinct(), d.distinct(), d.distinct()
 	if d.uv() == 1 {
-		x.counted = &Counts{Cases: d.uv(), Subjects: d.uv(), Resources: d.uv()}
+		x.counted = &Counts{Cases: d.uv(), Subjects: d.uv(), Resources: d.uv(), LaterThanUpload: d.uv(), OutsideWindow: d.uv(), ExactDuplicates: d.uv()}
 	}
 	for range d.count(170) {
 		g := x.sites.list[x.sites.get(d.str())]
@@ -359,18 +376,22 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		x.arrDay[day] = d.uv()
 	}
 	day = 0
-	for range d.count(2) {
+	var at int64
+	for range d.count(4) {
 		first := day + int32(d.iv())
 		day = first + int32(d.uv())
-		if day < first || len(x.days) > 0 && first <= x.days[len(x.days)-1].last+observedJoinDays {
+		from := at + d.iv()
+		at = from + int64(d.uv())
+		if day < first || at < from || len(x.days) > 0 && first <= x.days[len(x.days)-1].last+observedJoinDays {
 			d.err = ErrCorrupt
 			break
 		}
-		x.days = append(x.days, dayRange{first, day})
+		x.days = append(x.days, dayRange{first: first, last: day, from: from, to: at})
 	}
 	x.los = d.dist()
 	x.evCase = d.dist()
 	x.between = d.dist()
+	x.census = census{stays: d.uv(), exits: d.uv(), open: d.uv(), present: d.u128(), openSince: d.u128(), openLast: d.u128()}
 	var k int64
 	for range d.count(5) {
 		k += d.iv()
@@ -380,10 +401,7 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		return fmt.Errorf("summary: %w", ErrCorrupt)
 	}
 	if len(x.days) == 0 && x.hasTime {
-		// Written before the days were kept: its first to last day.
-		_, d0 := x.local(x.minAt)
-		_, d1 := x.local(x.maxAt)
-		x.days.add(dayRange{d0, d1})
+		return fmt.Errorf("summary: %w", ErrCorrupt)
 	}
 	*a = *x
 	return nil

@@ -83,6 +83,7 @@ func (a *Accumulator) Merge(o *Accumulator) error {
 	a.los.merge(o.los, a.cap)
 	a.evCase.merge(o.evCase, a.cap)
 	a.between.merge(o.between, a.cap)
+	a.census.merge(&o.census)
 	for k, b := range o.occ {
 		x := a.occ[k]
 		if x == nil {

@@ -20,8 +20,18 @@ const ObservationGap = 30 * 24 * time.Hour
 // the files' ranges joined across such gaps.
 const observedJoinDays = int32(ObservationGap / (24 * time.Hour))
 
-// dayRange is the local days first..last, both included.
-type dayRange struct{ first, last int32 }
+// dayRange is the local days first..last, both included, and the instants
+// (µs) of the first and last event in them.
+type dayRange struct {
+	first, last int32
+	from, to    int64
+}
+
+// join widens r to hold o.
+func (r *dayRange) join(o dayRange) {
+	r.first, r.last = min(r.first, o.first), max(r.last, o.last)
+	r.from, r.to = min(r.from, o.from), max(r.to, o.to)
+}
 
 // observed is a set of local days kept as sorted ranges more than
 // observedJoinDays apart.
@@ -37,15 +47,14 @@ func (o *observed) add(r dayRange) {
 		return
 	}
 	if r.first >= s[n-1].first {
-		s[n-1].last = max(s[n-1].last, r.last)
+		s[n-1].join(r)
 		return
 	}
 	// The ranges r touches are i..j-1; they become one.
 	i := sort.Search(n, func(k int) bool { return s[k].last+observedJoinDays >= r.first })
 	j := i
 	for j < n && s[j].first <= r.last+observedJoinDays {
-		r.first = min(r.first, s[j].first)
-		r.last = max(r.last, s[j].last)
+		r.join(s[j])
 		j++
 	}
 	*o = slices.Replace(s, i, j, r)

@@ -29,8 +29,8 @@ func farEvents(far bool, tag string) []schema.Event {
 	return evs
 }
 
-// TestFarEventBounded: one event dated 9999-12-31 adds one observed day
-// and one occupancy run, not the 2.9 million days up to it; the state and
+// TestFarEventBounded: one event dated 9999-12-31 adds one hour of
+// exposure and one occupancy run, not the 2.9 million days up to it; the state and
 // the summary stay the size of the clean file's, merged over files too.
 func TestFarEventBounded(t *testing.T) {
 	state := func(evs []schema.Event) (*Accumulator, []byte) {
@@ -45,8 +45,8 @@ func TestFarEventBounded(t *testing.T) {
 	clean, cb := state(farEvents(false, "a"))
 	far, fb := state(farEvents(true, "b"))
 	cs, fs := clean.Summary(), far.Summary()
-	if fs.DaysObserved != cs.DaysObserved+1 {
-		t.Errorf("days observed %d with the far event, %d without; want one more", fs.DaysObserved, cs.DaysObserved)
+	if fs.ExposureHours != cs.ExposureHours+1 {
+		t.Errorf("exposure %d hours with the far event, %d without; want one more (its own hour)", fs.ExposureHours, cs.ExposureHours)
 	}
 	if len(fs.Occupancy.Runs) != 2 || len(cs.Occupancy.Runs) != 1 {
 		t.Errorf("occupancy runs %d and %d, want 2 and 1", len(fs.Occupancy.Runs), len(cs.Occupancy.Runs))
@@ -83,8 +83,8 @@ func TestFarEventBounded(t *testing.T) {
 		}
 	}
 	mb, _ := m.MarshalBinary()
-	if ms := m.Summary(); ms.DaysObserved != fs.DaysObserved || len(mb) > 4*len(fb) {
-		t.Errorf("merged: days %d (want %d), state %d bytes", ms.DaysObserved, fs.DaysObserved, len(mb))
+	if ms := m.Summary(); ms.ExposureHours != fs.ExposureHours || len(mb) > 4*len(fb) {
+		t.Errorf("merged: exposure %d hours (want %d), state %d bytes", ms.ExposureHours, fs.ExposureHours, len(mb))
 	}
 }
 
@@ -100,7 +100,7 @@ func TestObservedAdd(t *testing.T) {
 		for range 20 {
 			f := int32(r.IntN(600) - 300)
 			l := f + int32(r.IntN(5))
-			o.add(dayRange{f, l})
+			o.add(dayRange{first: f, last: l})
 			for d := f; d <= l; d++ {
 				mark[d-lo] = true
 			}

@@ -11,7 +11,7 @@ import (
 )
 
 // FormatVersion is the version of the Summary JSON layout.
-const FormatVersion = "2"
+const FormatVersion = "3"
 
 // Summary is the operational summary of the events an accumulator has
 // seen. SUMMARY.md documents every field; durations are in seconds, rates
@@ -21,7 +21,7 @@ type Summary struct {
 	Timezone       string            `json:"timezone"`
 	From           *time.Time        `json:"from,omitempty"` // first event
 	To             *time.Time        `json:"to,omitempty"`   // last event
-	DaysObserved   int               `json:"days_observed"`
+	ExposureHours  int               `json:"exposure_hours"` // real hours from the first event's to the last's
 	Events         uint64            `json:"events"`
 	EventTypes     map[string]uint64 `json:"event_types"`
 	OtherTypes     uint64            `json:"other_types"`
@@ -38,11 +38,25 @@ type Summary struct {
 	EventsPerCase  Spread            `json:"events_per_case"`
 	BetweenEvents  Durations         `json:"between_events"` // time between consecutive events of a case
 	Occupancy      Occupancy         `json:"occupancy"`
+	// Excluded counts the events left out of the summary (SUMMARY.md):
+	// dated later than their upload or outside the dataset's window (out
+	// of every figure), exact copies (out of the case figures).
+	Excluded Excluded `json:"excluded"`
+	// Process holds the process views (directly-follows pairs, variants,
+	// workload, handovers) of a per-case pass; absent when none ran.
+	Process *Process `json:"process,omitempty"`
 	// NotMeasurable names the figures the log's events cannot measure,
 	// with why (a log of completions alone has no waits or services);
 	// those figures are then absent or empty, never zeros to be read as
 	// measured.
 	NotMeasurable []NotMeasurable `json:"not_measurable"`
+}
+
+// Excluded counts the events a summary left out.
+type Excluded struct {
+	LaterThanUpload uint64 `json:"later_than_upload"`
+	OutsideWindow   uint64 `json:"outside_window"`
+	ExactDuplicates uint64 `json:"exact_duplicates"`
 }
 
 // Spread is a distribution of counts.
@@ -69,14 +83,14 @@ type Count struct {
 	RelStdError float64 `json:"rel_std_error"` // 0 when exact
 }
 
-// Rate is the mean number of arrivals in one hour bin over the days
-// observed, with its exact Poisson 95% interval.
+// Rate is the mean number of arrivals per hour in one hour bin over the
+// hours of exposure behind it, with its exact Poisson 95% interval.
 type Rate struct {
-	Count uint64  `json:"count"` // arrivals in the bin over all days
-	Days  int     `json:"days"`  // days behind the bin (hours of exposure)
-	Mean  float64 `json:"mean"`  // Count / Days, arrivals per hour
-	Lower float64 `json:"lower"` // Garwood lower bound / Days
-	Upper float64 `json:"upper"` // Garwood upper bound / Days
+	Count uint64  `json:"count"` // arrivals in the bin
+	Hours int     `json:"hours"` // hours of exposure behind the bin
+	Mean  float64 `json:"mean"`  // Count / Hours, arrivals per hour
+	Lower float64 `json:"lower"` // Garwood lower bound / Hours
+	Upper float64 `json:"upper"` // Garwood upper bound / Hours
 }
 
 // DayCount is the number of arrivals of one local calendar day.
@@ -200,15 +214,36 @@ type OccupancyRun struct {
 	Series []float64 `json:"series"` // time-average number in system per bucket
 }
 
-// Little checks L = λW over [From, To].
+// Little checks L = λW over [From, To] with its two sides measured apart
+// (SUMMARY.md): L is the time-average census, each entry counted until
+// its exit (departure, abandon, a transfer ending the case, a type the
+// profile declares terminal) or, without one, until To; λW is the entries
+// per second times their mean stay, a stay without an exit ending at its
+// case's last event. They differ by the time cases stayed in the census
+// after they were last seen: lost exits.
 type Little struct {
 	Seconds float64 `json:"seconds"` // T = To - From
-	L       float64 `json:"l"`       // time-average number in system
-	Lambda  float64 `json:"lambda"`  // cases per second
-	W       float64 `json:"w"`       // mean length of stay, seconds
+	Entries uint64  `json:"entries"` // stays begun
+	Exits   uint64  `json:"exits"`   // stays ended by an exit
+	Open    uint64  `json:"open"`    // stays without an exit
+	L       float64 `json:"l"`       // time-average census
+	Lambda  float64 `json:"lambda"`  // entries per second
+	W       float64 `json:"w"`       // mean stay, seconds
 	LambdaW float64 `json:"lambda_w"`
 	Ratio   float64 `json:"ratio"` // L / (λW)
+	// Judged: both sides are measured (at least LittleMinStays entries and
+	// as many exits, over a span of at least LittleMinSpan mean stays), so
+	// the ratio says something about the data.
+	Judged bool `json:"judged"`
 }
+
+// Little's law is judged on at least LittleMinStays entries and exits over
+// a span of at least LittleMinSpan mean stays (the window's edges then
+// weigh little; the quality report uses the same rule).
+const (
+	LittleMinStays = 30
+	LittleMinSpan  = 10.0
+)
 
 // Selection restricts a summary's groups to the named sites, queues and
 // activities; an empty list keeps all. Totals are never restricted: for a
@@ -228,11 +263,11 @@ func (a *Accumulator) Summary() *Summary { return a.SummaryFor(Selection{}) }
 // SummaryFor is [Accumulator.Summary] with the groups restricted to sel.
 func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 	a.finish()
-	days, wdays := a.observedDays()
+	hours, week := a.exposure()
 	s := &Summary{
 		FormatVersion: FormatVersion,
 		Timezone:      a.loc.String(),
-		DaysObserved:  days,
+		ExposureHours: hours,
 		Events:        a.events,
 		EventTypes:    map[string]uint64{},
 		OtherTypes:    a.otherTypes,
@@ -245,6 +280,7 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		s.Cases = Count{Value: float64(c.Cases), Exact: true}
 		s.Subjects = Count{Value: float64(c.Subjects), Exact: true}
 		s.Resources = Count{Value: float64(c.Resources), Exact: true}
+		s.Excluded = Excluded{LaterThanUpload: c.LaterThanUpload, OutsideWindow: c.OutsideWindow, ExactDuplicates: c.ExactDuplicates}
 	}
 	for i, t := range schema.EventTypes {
 		s.EventTypes[string(t)] = a.types[i]
@@ -257,19 +293,19 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		s.From, s.To = &f, &t
 	}
 	ci := poissonCache{}
-	s.Arrivals.Profile = ci.profile(&a.arrWeek, &wdays, days)
+	s.Arrivals.Profile = ci.profile(&a.arrWeek, &week)
 	for _, d := range slices.Sorted(maps.Keys(a.arrDay)) {
 		s.Arrivals.PerDay = append(s.Arrivals.PerDay, DayCount{
 			Date: time.Unix(int64(d)*86400, 0).UTC().Format("2006-01-02"), Count: a.arrDay[d]})
 	}
 	for _, g := range sortedGroups(a.sites.list, func(g *siteGroup) string { return g.name }) {
 		if keep(sel.Sites, g.name) {
-			s.Sites = append(s.Sites, SiteSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, &wdays, days)})
+			s.Sites = append(s.Sites, SiteSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, &week)})
 		}
 	}
 	for _, g := range sortedGroups(a.queues.list, func(g *queueGroup) string { return g.name }) {
 		if keep(sel.Queues, g.name) {
-			s.Queues = append(s.Queues, a.queueSummary(g, &ci, &wdays, days))
+			s.Queues = append(s.Queues, a.queueSummary(g, &ci, &week))
 		}
 	}
 	for _, g := range sortedGroups(a.acts.list, func(g *activityGroup) string { return g.name }) {
@@ -304,6 +340,13 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 			Why: "no start is followed by a complete of the same activity in the same case"})
 	}
 	s.Occupancy = a.occupancy()
+	if a.process != nil {
+		s.Process = a.process.Result()
+	}
+	if a.events > 0 && s.Occupancy.Little.Exits == 0 {
+		s.NotMeasurable = append(s.NotMeasurable, NotMeasurable{Figure: "littles_law",
+			Why: "no case leaves by a departure, an abandon, a final transfer or a type the profile declares terminal, so the census never falls"})
+	}
 	return s
 }
 
@@ -334,9 +377,9 @@ func countOf(d *distinct) Count {
 // poissonCache memoizes Garwood intervals by count within one summary.
 type poissonCache map[uint64][2]float64
 
-func (p poissonCache) rate(k uint64, days int) Rate {
-	r := Rate{Count: k, Days: days}
-	if days == 0 {
+func (p poissonCache) rate(k uint64, hours int) Rate {
+	r := Rate{Count: k, Hours: hours}
+	if hours == 0 {
 		return r
 	}
 	ci, ok := p[k]
@@ -344,27 +387,29 @@ func (p poissonCache) rate(k uint64, days int) Rate {
 		ci[0], ci[1] = PoissonExactCI(k, 0.95)
 		p[k] = ci
 	}
-	d := float64(days)
+	d := float64(hours)
 	r.Mean, r.Lower, r.Upper = float64(k)/d, ci[0]/d, ci[1]/d
 	return r
 }
 
-func (p poissonCache) profile(w *[168]uint64, wdays *[7]int, days int) Profile {
+func (p poissonCache) profile(w *[168]uint64, week *[168]int) Profile {
 	pr := Profile{HourOfWeek: make([]Rate, 168), HourOfDay: make([]Rate, 24)}
 	var day [24]uint64
+	var dayHours [24]int
 	for h, c := range w {
 		pr.Total += c
 		day[h%24] += c
-		pr.HourOfWeek[h] = p.rate(c, wdays[h/24])
+		dayHours[h%24] += week[h]
+		pr.HourOfWeek[h] = p.rate(c, week[h])
 	}
 	for h, c := range day {
-		pr.HourOfDay[h] = p.rate(c, days)
+		pr.HourOfDay[h] = p.rate(c, dayHours[h])
 	}
 	return pr
 }
 
-func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, wdays *[7]int, days int) QueueSummary {
-	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, wdays, days)}
+func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, week *[168]int) QueueSummary {
+	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, week)}
 	q.Wait.Durations = durationsOf(g.served)
 	q.Wait.Negative = g.negative
 	n := g.served.n
@@ -390,7 +435,7 @@ func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, wdays *[7]in
 	}
 	q.OfferedLoad = make([]float64, 168)
 	for h := range q.OfferedLoad {
-		if d := wdays[h/24]; d > 0 {
+		if d := week[h]; d > 0 {
 			q.OfferedLoad[h] = float64(g.arr[h]) / float64(d) * q.MeanService / 3600
 		}
 	}
@@ -535,37 +580,31 @@ func (a *Accumulator) occupancy() Occupancy {
 	}
 	keys := slices.Sorted(maps.Keys(a.occ))
 	first, last := keys[0], keys[len(keys)-1]
-	var n int64    // number in system at the bucket start
-	var area int64 // µs·cases
+	var n int64 // number in system at the bucket start
 	var sums [168]float64
 	var cnt [168]int
 	w := float64(a.res)
-	cur, k := first, 0 // next bucket not yet in area; next key
-	// step adds bucket b (== cur) to the area and returns its mean.
+	cur, k := first, 0 // next bucket not yet stepped; next key
+	// step moves past bucket b (== cur) and returns its mean.
 	step := func(b int64) float64 {
 		ar := float64(n) * w
 		if k < len(keys) && keys[k] == b {
 			x := a.occ[b]
 			ar += float64(x.arrRest - x.depRest)
-			area += n*a.res + x.arrRest - x.depRest
 			n += int64(x.arr) - int64(x.dep)
 			k++
-		} else {
-			area += n * a.res
 		}
 		cur = b + 1
 		return ar / w
 	}
-	// skip adds the buckets before b without a series: a silence, where
-	// only keys (none, as keys lie in observed days) change n.
+	// skip moves past the buckets before b without a series: a silence,
+	// where only keys (none, as keys lie in observed days) change n.
 	skip := func(b int64) {
 		for k < len(keys) && keys[k] < b {
-			area += n * (keys[k] - cur) * a.res
 			cur = keys[k]
 			step(cur)
 		}
 		if b > cur {
-			area += n * (b - cur) * a.res
 			cur = b
 		}
 	}
@@ -596,19 +635,34 @@ func (a *Accumulator) occupancy() Occupancy {
 			o.HourOfWeek[h] = sums[h] / float64(cnt[h])
 		}
 	}
-	T := float64(a.maxAt-a.minAt) / usPerSec
-	l := Little{Seconds: T}
-	if T > 0 && a.los.n > 0 {
-		l.L = float64(area) / usPerSec / T
-		l.Lambda = float64(a.los.n) / T
-		l.W, _ = a.los.meanSD()
-		l.LambdaW = l.Lambda * l.W
-		if l.LambdaW > 0 {
-			l.Ratio = l.L / l.LambdaW
-		}
-	}
-	o.Little = l
+	o.Little = a.little()
 	return o
+}
+
+// little computes both sides of Little's law from the census sums.
+func (a *Accumulator) little() Little {
+	c := &a.census
+	T := float64(a.maxAt-a.minAt) / usPerSec
+	l := Little{Seconds: T, Entries: c.stays, Exits: c.exits, Open: c.open}
+	if T <= 0 || c.stays == 0 {
+		return l
+	}
+	// L·T = present + Σ open (To − entry); λW·T = present + Σ open (last − entry).
+	open := new(big.Int).SetUint64(c.open)
+	end := new(big.Int).Mul(open, big.NewInt(a.maxAt+instantShift))
+	census := new(big.Int).Add(c.present.big(), end.Sub(end, c.openSince.big()))
+	seen := new(big.Int).Add(c.present.big(), new(big.Int).Sub(c.openLast.big(), c.openSince.big()))
+	cf, _ := new(big.Float).SetInt(census).Float64()
+	sf, _ := new(big.Float).SetInt(seen).Float64()
+	l.L = cf / usPerSec / T
+	l.Lambda = float64(c.stays) / T
+	l.W = sf / usPerSec / float64(c.stays)
+	l.LambdaW = l.Lambda * l.W
+	if l.LambdaW > 0 {
+		l.Ratio = l.L / l.LambdaW
+	}
+	l.Judged = c.stays >= LittleMinStays && c.exits >= LittleMinStays && l.W > 0 && T >= LittleMinSpan*l.W
+	return l
 }
 
 // dayStart is the instant (µs) local day d begins.

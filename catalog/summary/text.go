@@ -57,7 +57,10 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 	p := func(format string, args ...any) { fmt.Fprintf(tw, format, args...) }
 	p("%s\n", bold("Summary"))
 	if s.From != nil {
-		p("period\t%s .. %s (%s, %d days)\n", s.From.Format(time.RFC3339), s.To.Format(time.RFC3339), s.Timezone, s.DaysObserved)
+		p("period\t%s .. %s (%s, %d hours of exposure)\n", s.From.Format(time.RFC3339), s.To.Format(time.RFC3339), s.Timezone, s.ExposureHours)
+		if x := s.Excluded; x.LaterThanUpload+x.OutsideWindow+x.ExactDuplicates > 0 {
+			p("left out\t%d later than their upload, %d outside the window, %d exact copies\n", x.LaterThanUpload, x.OutsideWindow, x.ExactDuplicates)
+		}
 	}
 	approx := func(c Count) string {
 		if c.Exact {
@@ -114,6 +117,27 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 	p("\n%s\n", bold("In system"))
 	p("by hour of week\t%s\n", sparkline(o.HourOfWeek))
 	p("peak (bucket mean)\t%.2f\n", o.Peak)
-	p("Little: L\t%.3f\tλW\t%.3f\tratio\t%.6f\n", o.Little.L, o.Little.LambdaW, o.Little.Ratio)
+	p("Little: L (census)\t%.3f\tλW (stays)\t%.3f\tratio\t%.4f\tentries\t%d\texits\t%d\topen\t%d\n", o.Little.L, o.Little.LambdaW, o.Little.Ratio, o.Little.Entries, o.Little.Exits, o.Little.Open)
+	if pr := s.Process; pr != nil {
+		if len(pr.DirectlyFollows) > 0 {
+			p("\n%s\n", bold("Directly follows (top 10)"))
+			p("from\tto\tcount\tp50\tp90\n")
+			for _, f := range pr.DirectlyFollows[:min(10, len(pr.DirectlyFollows))] {
+				p("%s\t%s\t%d\t%s\t%s\n", f.From, f.To, f.Count, dur(f.P50), dur(f.P90))
+			}
+		}
+		if len(pr.Variants) > 0 {
+			p("\n%s\n", bold(fmt.Sprintf("Variants (top 5 of %d)", pr.DistinctVariant)))
+			for _, v := range pr.Variants[:min(5, len(pr.Variants))] {
+				p("%d cases\t%.1f%%\t%s\n", v.Cases, 100*v.Share, strings.Join(v.Activities, " > "))
+			}
+		}
+		if len(pr.Handovers) > 0 {
+			p("\n%s\n", bold("Handovers (top 5)"))
+			for _, h := range pr.Handovers[:min(5, len(pr.Handovers))] {
+				p("%s\t%s\t%d\n", h.From, h.To, h.Count)
+			}
+		}
+	}
 	return tw.Flush()
 }

@@ -68,6 +68,33 @@ type Record struct {
 	// Steps records which stages were seen: arrival, enqueue, start,
 	// complete, abandon, transfer, departure, by schema.EventTypes index.
 	Steps [7]int64
+	// The case's presence in the census (see [Builder.Terminal] and
+	// [Exits]): Stays counts its entries (an arrival while not present, or
+	// its first event when that is no arrival: already in the system when
+	// the data begins), Present sums the µs of the stays that ended by an
+	// exit, and OpenSince is the entry of a stay still open at its last
+	// event (nil when none).
+	Stays     int64
+	Present   int64
+	OpenSince *int64
+}
+
+// Exits reports whether an event of type t takes a present case out of
+// the census: a departure, an abandon (the caller hung up, the patient
+// left without being seen), or a type the dataset declares terminal
+// (schema.Profile.Terminal). A transfer that is the case's last event is
+// an exit too (the case moved elsewhere); the caller judges that at the
+// case's end.
+func Exits(t schema.EventType, terminal []schema.EventType) bool {
+	if t == schema.Departure || t == schema.Abandon {
+		return true
+	}
+	for _, x := range terminal {
+		if x == t {
+			return true
+		}
+	}
+	return false
 }
 
 // Duration is the case duration, first to last event, in microseconds.
@@ -116,6 +143,10 @@ type Observer interface {
 // Builder runs the per-case computation over events grouped by case and
 // ordered by time within each case. It is not safe for concurrent use.
 type Builder struct {
+	// Terminal are the event types, besides departure and abandon, that
+	// end a case's presence (see [Exits]); set before the first Add.
+	Terminal []schema.EventType
+
 	obs []Observer
 	cur Record
 	has bool
@@ -136,6 +167,8 @@ type Builder struct {
 	waiting  bool
 	depart   *int64
 	cases    int64
+	present  bool  // in the census
+	stayFrom int64 // entry of the present stay
 }
 
 type hashState struct{ h uint64 }
@@ -194,7 +227,22 @@ func (b *Builder) Add(e *schema.Event) {
 		o.Event(e)
 	}
 	b.step(e, at)
+	b.presence(e.Type, at)
 	b.lastType = e.Type
+}
+
+// presence keeps the case's census: it enters at an arrival while absent
+// (or at its first event, see Record.Stays) and leaves at an exit.
+func (b *Builder) presence(t schema.EventType, at int64) {
+	r := &b.cur
+	switch {
+	case !b.present && (t == schema.Arrival || r.Events == 1):
+		b.present, b.stayFrom = true, at
+		r.Stays++
+	case b.present && Exits(t, b.Terminal):
+		b.present = false
+		r.Present += at - b.stayFrom
+	}
 }
 
 func contains(list []string, s string) bool {
@@ -216,6 +264,7 @@ func (b *Builder) begin(e *schema.Event, at int64) {
 	b.open = b.open[:0]
 	b.svcSum, b.svcN = 0, 0
 	b.endAband, b.inSvc, b.waiting = false, false, false
+	b.present = false
 }
 
 // step measures waits and services. A wait opens at an arrival, enqueue
@@ -387,6 +436,13 @@ func (b *Builder) Flush() {
 	}
 	if r.End != nil && r.Arrival != nil && *r.End >= *r.Arrival {
 		r.Stay = ptr(*r.End - *r.Arrival)
+	}
+	if b.present {
+		if b.lastType == schema.Transfer { // transferred out: left at the transfer
+			r.Present += r.Last - b.stayFrom
+		} else {
+			r.OpenSince = ptr(b.stayFrom)
+		}
 	}
 	served := r.Steps[2] > 0 || r.Steps[3] > 0
 	switch {
