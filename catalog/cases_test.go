@@ -477,3 +477,75 @@ func TestCompletionOnlyLog(t *testing.T) {
 		t.Errorf("report cases %+v", q)
 	}
 }
+
+// TestPatientsResourceOverlaps: the resource overlaps the report counts in
+// the patients log (testdata/patients) equal an independent reading with
+// the standard library: an employee's service runs from a start to the
+// complete of the same activity instance (handling_id); a start while the
+// employee already serves another counts once; at one instant completes
+// come first (a service ending at t frees the employee for one starting
+// at t). Every instance of this log has both its start and its complete.
+func TestPatientsResourceOverlaps(t *testing.T) {
+	data := patientsCSV(t)
+	prof, err := os.ReadFile(filepath.Join("..", "testdata", "patients", "profile.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "patients", func(s *DatasetSpec) { s.Profile = prof })
+	v := e.ingest(t, "p", "patients", data, "patients.csv.gz").Version
+
+	zr, err := gzip.NewReader(bytes.NewReader(data))
+	if err != nil {
+		t.Fatal(err)
+	}
+	recs, err := csv.NewReader(zr).ReadAll()
+	if err != nil {
+		t.Fatal(err)
+	}
+	head, recs := recs[0], recs[1:]
+	col := func(name string) int { return slices.Index(head, name) }
+	type ev struct {
+		at           time.Time
+		start        bool
+		emp, handing string
+	}
+	var evs []ev
+	for _, r := range recs {
+		at, err := time.Parse(time.RFC3339, r[col("time")])
+		if err != nil {
+			t.Fatal(err)
+		}
+		evs = append(evs, ev{at, r[col("registration_type")] == "start", r[col("employee")], r[col("handling_id")]})
+	}
+	slices.SortStableFunc(evs, func(a, b ev) int {
+		if c := a.at.Compare(b.at); c != 0 {
+			return c
+		}
+		switch {
+		case !a.start && b.start:
+			return -1
+		case a.start && !b.start:
+			return 1
+		}
+		return 0
+	})
+	open := map[string]map[string]bool{}
+	var want int64
+	for _, x := range evs {
+		if open[x.emp] == nil {
+			open[x.emp] = map[string]bool{}
+		}
+		if !x.start {
+			delete(open[x.emp], x.handing)
+			continue
+		}
+		if len(open[x.emp]) > 0 {
+			want++
+		}
+		open[x.emp][x.handing] = true
+	}
+	if got := e.report(t, v).Count(quality.CodeResourceOverlap); got != want {
+		t.Errorf("resource overlaps %d, standard library %d", got, want)
+	}
+}

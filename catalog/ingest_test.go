@@ -95,8 +95,20 @@ func TestIngestFirstVersion(t *testing.T) {
 		}
 		want[i] = key{at.Truncate(time.Microsecond), i + 2}
 	}
+	// Time order; at one instant the events that end something (complete,
+	// abandon, departure) first, then source line order.
+	closing := func(k key) int {
+		switch rows[k.line-2][4] {
+		case "complete", "abandon", "departure":
+			return 0
+		}
+		return 1
+	}
 	slices.SortFunc(want, func(a, b key) int {
 		if c := a.at.Compare(b.at); c != 0 {
+			return c
+		}
+		if c := closing(a) - closing(b); c != 0 {
 			return c
 		}
 		return a.line - b.line

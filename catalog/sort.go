@@ -16,7 +16,8 @@ import (
 	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
-// sorter orders the events of one upload by (occurred_at, source line)
+// sorter orders the events of one upload by (occurred_at, closing events
+// first, source line)
 // with bounded memory: it keeps up to max events, and when one more comes
 // it sorts them and spills them as a run to a temporary file. Finish
 // merges the runs, at most fanIn at once: when there are more, it first
@@ -109,6 +110,9 @@ func lessEvent(a, b *schema.Event) int {
 	if c := a.OccurredAt.Compare(b.OccurredAt); c != 0 {
 		return c
 	}
+	if c := closingFirst(a.Type) - closingFirst(b.Type); c != 0 {
+		return int(c)
+	}
 	switch {
 	case a.Line < b.Line:
 		return -1
@@ -116,6 +120,17 @@ func lessEvent(a, b *schema.Event) int {
 		return 1
 	}
 	return 0
+}
+
+// closingFirst ranks the events that end something (a complete, an
+// abandon, a departure) before the others at one instant, so a resource
+// freed at an instant is free for a start at that instant.
+func closingFirst(t schema.EventType) int8 {
+	switch t {
+	case schema.Complete, schema.Abandon, schema.Departure:
+		return 0
+	}
+	return 1
 }
 
 // caseKey is what a sorter by case sorts its buffer by.
@@ -134,6 +149,7 @@ type sortKey struct {
 	line int64
 	nsec int32
 	idx  int32
+	rank int8 // closingFirst
 }
 
 func cmpKey(a, b sortKey) int {
@@ -142,6 +158,8 @@ func cmpKey(a, b sortKey) int {
 		return cmpInt(a.sec, b.sec)
 	case a.nsec != b.nsec:
 		return cmpInt(int64(a.nsec), int64(b.nsec))
+	case a.rank != b.rank:
+		return int(a.rank) - int(b.rank)
 	case a.line != b.line:
 		return cmpInt(a.line, b.line)
 	}
@@ -203,7 +221,7 @@ func (s *sorter) orderOf(buf []schema.Event, w *spillWork) []sortKey {
 	}
 	for i := range buf {
 		t := buf[i].OccurredAt
-		w.keys = append(w.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), line: buf[i].Line, idx: int32(i)})
+		w.keys = append(w.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), rank: closingFirst(buf[i].Type), line: buf[i].Line, idx: int32(i)})
 	}
 	slices.SortFunc(w.keys, cmpKey)
 	return w.keys

@@ -629,12 +629,18 @@ func (a *Accumulator) Observe(e *schema.Event) Flags {
 // the default service maximum are taken as lost completes and dropped,
 // so what is held is bounded by the services in progress.
 func (a *Accumulator) resourceCheck(s *siteAcc, ti int, e *schema.Event, at int64) bool {
-	switch ti {
-	case tStart, tComplete, tDeparture:
-	default:
+	if ti != tStart && ti != tComplete {
 		return false
 	}
-	k := nonZero(maphash.String(a.seed, e.CaseID))
+	// A service is keyed by its case and activity: parallel activities of
+	// one case (a test during an assessment) pair apart, as the per-case
+	// computation pairs them (cases.Builder).
+	var h maphash.Hash
+	h.SetSeed(a.seed)
+	h.WriteString(e.CaseID)
+	h.WriteByte(0)
+	h.WriteString(e.Activity)
+	k := nonZero(h.Sum64())
 	if o, ok := a.svc[k]; ok {
 		a.closeInterval(o.res, k)
 		delete(a.svc, k)
