@@ -125,7 +125,7 @@ func TestEndToEnd(t *testing.T) {
 	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
 		t.Fatalf("init: exit %d: %s", code, errs)
 	}
-	for _, f := range []string{"master.key", "signing.key"} {
+	for _, f := range []string{"master.key", "keys.json"} {
 		fi, err := os.Stat(filepath.Join(data, f))
 		if err != nil || fi.Mode().Perm() != 0o600 {
 			t.Fatalf("%s: %v mode %v, want 0600", f, err, fi.Mode().Perm())

@@ -10,6 +10,7 @@ import (
 	"log/slog"
 	"os"
 	"path/filepath"
+	"slices"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
@@ -24,7 +25,8 @@ import (
 //	catalog.db     bbolt metadata
 //	blobs/         snapshot files by sha256
 //	tmp/           sort runs and files being written (pseudonymized only)
-//	signing.key    HS256 token key (0600)
+//	keys.json      Ed25519 token signing keys, by kid (0600)
+//	signing.key    legacy HS256 token key of directories made before keys.json (0600)
 //	master.key     master key sealing project keys (0600), unless kept elsewhere
 //	instance.json  the token issuer name
 type dataDir string
@@ -34,12 +36,16 @@ func (d dataDir) db() string              { return d.path("catalog.db") }
 func (d dataDir) blobs() string           { return d.path("blobs") }
 func (d dataDir) tmp() string             { return d.path("tmp") }
 func (d dataDir) signingKey() string      { return d.path("signing.key") }
+func (d dataDir) keys() string            { return d.path("keys.json") }
 func (d dataDir) masterKey() string       { return d.path("master.key") }
 func (d dataDir) instance() string        { return d.path("instance.json") }
 
 type instance struct {
 	Issuer    string    `json:"issuer"`
 	CreatedAt time.Time `json:"created_at"`
+	// MaxTTL overrides the longest token lifetime per role, as Go
+	// durations ("2160h"); roles not named keep server.DefaultMaxTTL.
+	MaxTTL map[string]string `json:"max_ttl,omitempty"`
 }
 
 // initDataDir creates a data directory. With an existing master key file
@@ -72,7 +78,11 @@ func initDataDir(d dataDir, masterFile string) (createdMaster bool, err error) {
 		}
 		createdMaster = true
 	}
-	if err := server.GenerateSigningKeyFile(d.signingKey()); err != nil {
+	var ks server.KeySet
+	if _, err := ks.Rotate(time.Now()); err != nil {
+		return false, fmt.Errorf("init: %w", err)
+	}
+	if err := ks.Save(d.keys()); err != nil {
 		return false, fmt.Errorf("init: %w", err)
 	}
 	var rnd [6]byte
@@ -106,18 +116,36 @@ func (d dataDir) readInstance() (instance, error) {
 	return inst, nil
 }
 
-// authority loads the token signing key and issuer. It does not open the
-// bbolt file, so it works while a server runs on the directory.
+// authority loads the token keys (keys.json, and signing.key when a
+// directory made before keys.json has one), the issuer and the maximum
+// lifetimes. It does not open the bbolt file, so it works while a server
+// runs on the directory.
 func (d dataDir) authority() (*server.Authority, error) {
 	inst, err := d.readInstance()
 	if err != nil {
 		return nil, err
 	}
-	key, err := server.LoadSigningKeyFile(d.signingKey())
+	var legacy []byte
+	if _, err := os.Stat(d.signingKey()); err == nil {
+		if legacy, err = server.LoadSigningKeyFile(d.signingKey()); err != nil {
+			return nil, err
+		}
+	}
+	a, err := server.OpenAuthority(d.keys(), legacy, inst.Issuer)
 	if err != nil {
 		return nil, err
 	}
-	return server.NewAuthority(key, inst.Issuer), nil
+	for role, v := range inst.MaxTTL {
+		ttl, err := time.ParseDuration(v)
+		if err != nil || ttl <= 0 || !slices.Contains(server.Roles, role) {
+			return nil, fmt.Errorf("%s: max_ttl %q: %q: want a role and a positive duration such as 2160h", d.instance(), role, v)
+		}
+		if a.MaxTTL == nil {
+			a.MaxTTL = map[string]time.Duration{}
+		}
+		a.MaxTTL[role] = ttl
+	}
+	return a, nil
 }
 
 // findMasterKey resolves the master key: a file given by flag, then

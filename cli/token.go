@@ -1,17 +1,25 @@
 package cli
 
 import (
+	"errors"
 	"fmt"
+	"io"
+	"log/slog"
+	"net/url"
 	"strings"
 	"time"
 
 	"github.com/spf13/cobra"
 
+	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/server"
 )
 
+// operator is the audit trail's "by" for commands run on the server host.
+const operator = "operator (command line)"
+
 func newTokenCmd(e *env) *cobra.Command {
-	c := &cobra.Command{Use: "token", Short: "Issue API tokens (on the server host)"}
+	c := &cobra.Command{Use: "token", Short: "Issue, list and revoke API tokens; rotate and retire signing keys"}
 	var dir, role, subject, project string
 	var datasets []string
 	var ttl time.Duration
@@ -23,18 +31,33 @@ func newTokenCmd(e *env) *cobra.Command {
 			if dir == "" || role == "" || subject == "" {
 				return usageErr("token issue: --data, --role and --subject are required")
 			}
-			auth, err := dataDir(dir).authority()
+			d := dataDir(dir)
+			auth, err := d.authority()
 			if err != nil {
 				return err
 			}
 			if role == "partner" && project != "" {
-				for i, d := range datasets {
-					if !strings.Contains(d, "/") {
-						datasets[i] = project + "/" + d
+				for i, ds := range datasets {
+					if !strings.Contains(ds, "/") {
+						datasets[i] = project + "/" + ds
 					}
 				}
 			}
-			tok, err := auth.Issue(grantFor(role, subject, project, datasets, ttl))
+			g := grantFor(role, subject, project, datasets, ttl)
+			// Record the token (and audit the issue) when the catalog
+			// can be opened; while a server holds it, say so.
+			st, err := d.openForTokens()
+			if err != nil {
+				tok, ierr := auth.Issue(g)
+				if ierr != nil {
+					return usageErr("%v", ierr)
+				}
+				fmt.Fprintf(e.stderr, "note: token not recorded in the token list or audit trail (%v); issue through the server (POST /api/v1/admin/tokens) to record it\n", err)
+				fmt.Fprintln(e.stdout, tok)
+				return nil
+			}
+			defer st.Close()
+			tok, err := auth.IssueRecorded(st, operator, g)
 			if err != nil {
 				return usageErr("%v", err)
 			}
@@ -48,8 +71,265 @@ func newTokenCmd(e *env) *cobra.Command {
 	f.StringVar(&subject, "subject", "", "who the token is for (sub claim)")
 	f.StringVar(&project, "project", "", "project (curator, member)")
 	f.StringArrayVar(&datasets, "dataset", nil, "dataset P/D a partner may upload to (repeatable)")
-	f.DurationVar(&ttl, "ttl", time.Hour, "lifetime")
-	c.AddCommand(issue)
+	f.DurationVar(&ttl, "ttl", time.Hour, "lifetime (at most the role's max_ttl)")
+	c.AddCommand(issue, newTokenListCmd(e), newTokenRevokeCmd(e), newKeyRotateCmd(e), newKeyRetireCmd(e), newKeyListCmd(e))
+	return c
+}
+
+// openForTokens opens the catalog for a token command run on the server
+// host; it fails with catalog.ErrLocked while a server holds it.
+func (d dataDir) openForTokens() (*catalog.Store, error) {
+	master, _, err := d.findMasterKey("")
+	if err != nil {
+		return nil, err
+	}
+	return d.openStore(master, slog.New(slog.DiscardHandler))
+}
+
+// lockedHint turns ErrLocked into the way round it.
+func lockedHint(err error, api string) error {
+	if errors.Is(err, catalog.ErrLocked) {
+		return fmt.Errorf("%w: a server holds the catalog; use %s with --server and an admin --token", err, api)
+	}
+	return err
+}
+
+func newTokenListCmd(e *env) *cobra.Command {
+	var dir string
+	c := &cobra.Command{
+		Use:   "list [--data DIR | --server URL --token T]",
+		Short: "List recorded tokens (jti, subject, role, scope, expiry, revocation)",
+		Args:  cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, args []string) error {
+			var recs []catalog.TokenRecord
+			if dir != "" {
+				st, err := dataDir(dir).openForTokens()
+				if err != nil {
+					return lockedHint(err, "flowcat token list")
+				}
+				defer st.Close()
+				if recs, err = st.Tokens(cmd.Context()); err != nil {
+					return err
+				}
+			} else {
+				cl, err := e.client()
+				if err != nil {
+					return err
+				}
+				var out struct {
+					Tokens []catalog.TokenRecord `json:"tokens"`
+				}
+				if err := cl.getJSON(cmd.Context(), "/admin/tokens", &out); err != nil {
+					return err
+				}
+				recs = out.Tokens
+			}
+			if e.json {
+				if recs == nil {
+					recs = []catalog.TokenRecord{}
+				}
+				return writeJSON(e.stdout, recs)
+			}
+			printTokens(e.stdout, recs)
+			return nil
+		},
+	}
+	c.Flags().StringVar(&dir, "data", "", "data directory (server stopped); else the API")
+	return c
+}
+
+func printTokens(w io.Writer, recs []catalog.TokenRecord) {
+	fmt.Fprintln(w, "JTI\tSUBJECT\tROLE\tSCOPE\tKID\tEXPIRES\tREVOKED")
+	for _, r := range recs {
+		scope := r.Project
+		if len(r.Datasets) > 0 {
+			scope = strings.Join(r.Datasets, ",")
+		}
+		exp, kid, rev := "-", r.KeyID, "-"
+		if !r.ExpiresAt.IsZero() {
+			exp = stamp(r.ExpiresAt)
+		}
+		if kid == "" {
+			kid = "-"
+		}
+		if r.Revoked != nil {
+			rev = stamp(r.Revoked.At) + " " + r.Revoked.Reason
+		}
+		fmt.Fprintf(w, "%s\t%s\t%s\t%s\t%s\t%s\t%s\n", r.JTI, orDash(r.Subject), orDash(r.Role), orDash(scope), kid, exp, rev)
+	}
+}
+
+func orDash(s string) string {
+	if s == "" {
+		return "-"
+	}
+	return s
+}
+
+func newTokenRevokeCmd(e *env) *cobra.Command {
+	var dir, reason string
+	c := &cobra.Command{
+		Use:   "revoke JTI --reason TEXT [--data DIR | --server URL --token T]",
+		Short: "Revoke a token by its jti: it stops authenticating on the next request",
+		Args:  cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			if reason == "" {
+				return usageErr("token revoke: --reason is required")
+			}
+			var rv catalog.Revocation
+			if dir != "" {
+				st, err := dataDir(dir).openForTokens()
+				if err != nil {
+					return lockedHint(err, "flowcat token revoke")
+				}
+				defer st.Close()
+				if rv, err = st.RevokeToken(cmd.Context(), operator, args[0], reason); err != nil {
+					return usageErr("%v", err)
+				}
+			} else {
+				cl, err := e.client()
+				if err != nil {
+					return err
+				}
+				if err := cl.postJSON(cmd.Context(), "/admin/tokens/"+url.PathEscape(args[0])+"/revoke", map[string]string{"reason": reason}, &rv); err != nil {
+					return err
+				}
+			}
+			if e.json {
+				return writeJSON(e.stdout, rv)
+			}
+			fmt.Fprintf(e.stdout, "revoked %s at %s\n", rv.JTI, stamp(rv.At))
+			return nil
+		},
+	}
+	c.Flags().StringVar(&dir, "data", "", "data directory (server stopped); else the API")
+	c.Flags().StringVar(&reason, "reason", "", "why (kept in the revocation record)")
+	return c
+}
+
+// auditKeys audits a key change when the catalog can be opened, and says
+// so when it cannot.
+func (e *env) auditKeys(d dataDir, cmd *cobra.Command, action, kid string) {
+	st, err := d.openForTokens()
+	if err != nil {
+		fmt.Fprintf(e.stderr, "note: %s %s not written to the audit trail: %v\n", action, kid, err)
+		return
+	}
+	defer st.Close()
+	if err := st.AuditKeyChange(cmd.Context(), operator, action, kid); err != nil {
+		fmt.Fprintf(e.stderr, "note: %s %s not written to the audit trail: %v\n", action, kid, err)
+	}
+}
+
+func newKeyRotateCmd(e *env) *cobra.Command {
+	var dir string
+	c := &cobra.Command{
+		Use:   "rotate --data DIR",
+		Short: "Add a new Ed25519 signing key; older keys still verify until retired",
+		Args:  cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, args []string) error {
+			if dir == "" {
+				return usageErr("token rotate: --data DIR is required")
+			}
+			d := dataDir(dir)
+			if _, err := d.readInstance(); err != nil {
+				return err
+			}
+			ks, err := server.LoadKeySet(d.keys())
+			if err != nil {
+				return err
+			}
+			kid, err := ks.Rotate(time.Now())
+			if err != nil {
+				return err
+			}
+			if err := ks.Save(d.keys()); err != nil {
+				return err
+			}
+			e.auditKeys(d, cmd, "key.rotate", kid)
+			fmt.Fprintf(e.stdout, "new signing key %s\n", kid)
+			return nil
+		},
+	}
+	c.Flags().StringVar(&dir, "data", "", "data directory of the server")
+	return c
+}
+
+func newKeyRetireCmd(e *env) *cobra.Command {
+	var dir string
+	c := &cobra.Command{
+		Use:   "retire KID --data DIR",
+		Short: "Stop a signing key (or " + server.LegacyKeyID + ") from verifying tokens",
+		Args:  cobra.ExactArgs(1),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			if dir == "" {
+				return usageErr("token retire: --data DIR is required")
+			}
+			d := dataDir(dir)
+			if _, err := d.readInstance(); err != nil {
+				return err
+			}
+			ks, err := server.LoadKeySet(d.keys())
+			if err != nil {
+				return err
+			}
+			if err := ks.Retire(args[0], time.Now()); err != nil {
+				return usageErr("%v", err)
+			}
+			if err := ks.Save(d.keys()); err != nil {
+				return err
+			}
+			e.auditKeys(d, cmd, "key.retire", args[0])
+			fmt.Fprintf(e.stdout, "retired %s: its tokens no longer verify\n", args[0])
+			return nil
+		},
+	}
+	c.Flags().StringVar(&dir, "data", "", "data directory of the server")
+	return c
+}
+
+func newKeyListCmd(e *env) *cobra.Command {
+	var dir string
+	c := &cobra.Command{
+		Use:   "keys --data DIR",
+		Short: "List the signing keys: kid, created, retired, which one signs",
+		Args:  cobra.NoArgs,
+		RunE: func(cmd *cobra.Command, args []string) error {
+			if dir == "" {
+				return usageErr("token keys: --data DIR is required")
+			}
+			d := dataDir(dir)
+			a, err := d.authority()
+			if err != nil {
+				return err
+			}
+			ks, err := a.Keys()
+			if err != nil {
+				return err
+			}
+			active, _ := ks.Active()
+			fmt.Fprintln(e.stdout, "KID\tALG\tCREATED\tSTATE")
+			for _, k := range ks.Keys {
+				state := "verifies"
+				switch {
+				case k.RetiredAt != nil:
+					state = "retired " + stamp(*k.RetiredAt)
+				case k.KID == active.KID:
+					state = "signs"
+				}
+				fmt.Fprintf(e.stdout, "%s\tEdDSA\t%s\t%s\n", k.KID, stamp(k.CreatedAt), state)
+			}
+			if a.HasLegacy() {
+				state := "verifies"
+				if len(ks.Keys) == 0 {
+					state = "signs"
+				}
+				fmt.Fprintf(e.stdout, "%s\tHS256\t-\t%s\n", server.LegacyKeyID, state)
+			}
+			return nil
+		},
+	}
+	c.Flags().StringVar(&dir, "data", "", "data directory of the server")
 	return c
 }
 

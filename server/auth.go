@@ -1,14 +1,18 @@
 package server
 
 import (
+	"bytes"
 	"crypto/rand"
 	"encoding/base32"
+	"encoding/base64"
 	"encoding/hex"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"os"
 	"slices"
 	"strings"
+	"sync"
 	"time"
 
 	"github.com/golang-jwt/jwt/v5"
@@ -49,50 +53,154 @@ type Grant struct {
 	TTL      time.Duration
 }
 
-// Authority issues and verifies HS256 tokens under one signing key.
-type Authority struct {
-	key    []byte
-	issuer string
-	now    func() time.Time
+// Default maximum token lifetimes per role (common practice: the wider a
+// token's power, the shorter it lives). Authority.MaxTTL overrides them.
+var DefaultMaxTTL = map[string]time.Duration{
+	RoleAdmin:   7 * 24 * time.Hour,
+	RoleCurator: 7 * 24 * time.Hour,
+	RoleMember:  30 * 24 * time.Hour,
+	RolePartner: 90 * 24 * time.Hour,
 }
 
-// NewAuthority returns an Authority for key, whose tokens name issuer.
+// ClockSkew is the leeway allowed on exp, nbf and iat (RFC 8725 section
+// 3.10 asks for a bounded one; the figure is common practice).
+const ClockSkew = 30 * time.Second
+
+// Authority issues and verifies tokens: EdDSA (Ed25519) under the keys of
+// a key file, each token naming its key by kid, and, for data directories
+// made before keys existed, HS256 under the legacy signing.key until that
+// key is retired.
+type Authority struct {
+	issuer string
+	now    func() time.Time
+	legacy []byte // HS256 key; nil when there is none
+
+	// MaxTTL is the longest lifetime Issue grants per role (default
+	// DefaultMaxTTL).
+	MaxTTL map[string]time.Duration
+
+	keysPath string // "" for a fixed set
+	mu       sync.Mutex
+	keys     *KeySet
+	stamp    time.Time // modification time of keysPath when read
+	size     int64
+}
+
+// NewAuthority returns an Authority that signs and verifies HS256 under
+// key alone, whose tokens name issuer.
 func NewAuthority(key []byte, issuer string) *Authority {
-	return &Authority{key: key, issuer: issuer, now: time.Now}
+	return &Authority{legacy: key, issuer: issuer, now: time.Now, keys: &KeySet{}}
+}
+
+// OpenAuthority returns an Authority over the key file keysPath (read
+// again whenever it changes, so that a rotation or a retirement made by
+// the command line reaches a running server) and the legacy HS256 key
+// (nil for none).
+func OpenAuthority(keysPath string, legacy []byte, issuer string) (*Authority, error) {
+	a := &Authority{legacy: legacy, issuer: issuer, now: time.Now, keysPath: keysPath}
+	if _, err := a.keySet(); err != nil {
+		return nil, err
+	}
+	return a, nil
+}
+
+// keySet returns the current key set, reading the file again when its
+// modification time or size changed.
+func (a *Authority) keySet() (*KeySet, error) {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if a.keysPath == "" {
+		return a.keys, nil
+	}
+	fi, err := os.Stat(a.keysPath)
+	if err == nil && a.keys != nil && fi.ModTime().Equal(a.stamp) && fi.Size() == a.size {
+		return a.keys, nil
+	}
+	ks, err := LoadKeySet(a.keysPath)
+	if err != nil {
+		return nil, err
+	}
+	a.keys = ks
+	if fi != nil {
+		a.stamp, a.size = fi.ModTime(), fi.Size()
+	}
+	return ks, nil
+}
+
+// Keys returns a copy of the current key set.
+func (a *Authority) Keys() (KeySet, error) {
+	ks, err := a.keySet()
+	if err != nil {
+		return KeySet{}, err
+	}
+	return *ks, nil
+}
+
+// HasLegacy reports whether an HS256 key is configured and not retired.
+func (a *Authority) HasLegacy() bool {
+	ks, err := a.keySet()
+	return err == nil && a.legacy != nil && ks.LegacyRetired == nil
 }
 
 // Issuer returns the iss claim of this authority's tokens.
 func (a *Authority) Issuer() string { return a.issuer }
 
+// maxTTL is the longest lifetime of a role's tokens.
+func (a *Authority) maxTTL(role string) time.Duration {
+	if d, ok := a.MaxTTL[role]; ok && d > 0 {
+		return d
+	}
+	return DefaultMaxTTL[role]
+}
+
+// ErrTTLTooLong means a token was asked for longer than its role's
+// maximum lifetime.
+var ErrTTLTooLong = errors.New("ttl above the maximum token lifetime")
+
 // Issue signs a token for g. It checks that the role's scope is given:
 // curator and member need a project; partner needs at least one dataset.
+// It signs with EdDSA under the newest key not retired, naming it by kid;
+// with no such key, with the legacy HS256 key.
 func (a *Authority) Issue(g Grant) (string, error) {
+	tok, _, err := a.IssueClaims(g)
+	return tok, err
+}
+
+// IssueClaims is Issue, returning the claims signed as well.
+func (a *Authority) IssueClaims(g Grant) (string, *Claims, error) {
 	if !slices.Contains(Roles, g.Role) {
-		return "", fmt.Errorf("token: role %q: want one of %s", g.Role, strings.Join(Roles, ", "))
+		return "", nil, fmt.Errorf("token: role %q: want one of %s", g.Role, strings.Join(Roles, ", "))
 	}
 	if g.Subject == "" {
-		return "", fmt.Errorf("token: a subject is required")
+		return "", nil, fmt.Errorf("token: a subject is required")
 	}
 	switch g.Role {
 	case RoleCurator, RoleMember:
 		if g.Project == "" {
-			return "", fmt.Errorf("token: role %s needs a project", g.Role)
+			return "", nil, fmt.Errorf("token: role %s needs a project", g.Role)
 		}
 	case RolePartner:
 		if len(g.Datasets) == 0 {
-			return "", fmt.Errorf("token: role partner needs at least one dataset (project/dataset)")
+			return "", nil, fmt.Errorf("token: role partner needs at least one dataset (project/dataset)")
 		}
 		for _, d := range g.Datasets {
 			if p, n, ok := strings.Cut(d, "/"); !ok || p == "" || n == "" || strings.Contains(n, "/") {
-				return "", fmt.Errorf("token: dataset %q: want project/dataset", d)
+				return "", nil, fmt.Errorf("token: dataset %q: want project/dataset", d)
 			}
 		}
 	}
 	if g.TTL <= 0 {
-		return "", fmt.Errorf("token: ttl must be positive")
+		return "", nil, fmt.Errorf("token: ttl must be positive")
+	}
+	if max := a.maxTTL(g.Role); g.TTL > max {
+		return "", nil, fmt.Errorf("token: ttl %s: %w of role %s, %s (max_ttl)", g.TTL, ErrTTLTooLong, g.Role, max)
+	}
+	ks, err := a.keySet()
+	if err != nil {
+		return "", nil, err
 	}
 	now := a.now().Truncate(time.Second)
-	c := Claims{
+	c := &Claims{
 		RegisteredClaims: jwt.RegisteredClaims{
 			Issuer:    a.issuer,
 			Subject:   g.Subject,
@@ -106,22 +214,94 @@ func (a *Authority) Issue(g Grant) (string, error) {
 		Project:  g.Project,
 		Datasets: g.Datasets,
 	}
-	return jwt.NewWithClaims(jwt.SigningMethodHS256, c).SignedString(a.key)
+	if k, ok := ks.Active(); ok {
+		priv, err := k.private()
+		if err != nil {
+			return "", nil, err
+		}
+		t := jwt.NewWithClaims(jwt.SigningMethodEdDSA, c)
+		t.Header["kid"] = k.KID
+		s, err := t.SignedString(priv)
+		return s, c, err
+	}
+	if a.legacy == nil || ks.LegacyRetired != nil {
+		return "", nil, fmt.Errorf("token: no signing key: run flowcat token rotate")
+	}
+	s, err := jwt.NewWithClaims(jwt.SigningMethodHS256, c).SignedString(a.legacy)
+	return s, c, err
 }
 
-// Verify checks a token's signature (HS256 only; "none" and every other
-// algorithm are refused), issuer, audience, expiry, issue time and the
-// presence of sub and jti. Every failure wraps ErrUnauthorized.
+// checkJOSE applies the rules the JWT library leaves to the application:
+// a "crit" header is refused, since flowcat understands no extension
+// (RFC 7515 section 4.1.11: a recipient that does not understand a listed
+// extension must reject the JWS), and exp, nbf and iat, when present, must
+// be JSON numbers (RFC 7519 sections 4.1.4-4.1.6: a NumericDate), not
+// strings holding one.
+func checkJOSE(token string) error {
+	parts := strings.Split(token, ".")
+	if len(parts) != 3 {
+		return fmt.Errorf("token is not three dot-separated parts")
+	}
+	hb, err := base64.RawURLEncoding.DecodeString(parts[0])
+	if err != nil {
+		return fmt.Errorf("header is not base64url")
+	}
+	var hdr map[string]json.RawMessage
+	if err := json.Unmarshal(hb, &hdr); err != nil {
+		return fmt.Errorf("header is not a JSON object")
+	}
+	if crit, ok := hdr["crit"]; ok {
+		return fmt.Errorf("header crit %s: no extension is understood (RFC 7515 section 4.1.11)", crit)
+	}
+	pb, err := base64.RawURLEncoding.DecodeString(parts[1])
+	if err != nil {
+		return fmt.Errorf("payload is not base64url")
+	}
+	var pl map[string]json.RawMessage
+	if err := json.Unmarshal(pb, &pl); err != nil {
+		return fmt.Errorf("payload is not a JSON object")
+	}
+	for _, name := range []string{"exp", "nbf", "iat"} {
+		v, ok := pl[name]
+		if !ok {
+			continue
+		}
+		d := json.NewDecoder(bytes.NewReader(v))
+		d.UseNumber()
+		var x any
+		if err := d.Decode(&x); err != nil {
+			return fmt.Errorf("claim %s is not JSON", name)
+		}
+		if _, ok := x.(json.Number); !ok {
+			return fmt.Errorf("claim %s is not a number (RFC 7519 section 4.1.4: a NumericDate)", name)
+		}
+	}
+	return nil
+}
+
+// Verify checks a token: the header (no crit), its algorithm (EdDSA under
+// a key of the set named by kid and not retired, or HS256 under the legacy
+// key while it is not retired; "none" and every other algorithm are
+// refused, RFC 8725 section 3.1), the issuer, audience, expiry, issue time
+// (within ClockSkew), NumericDate types, and the presence of sub and jti.
+// Every failure wraps ErrUnauthorized.
 func (a *Authority) Verify(token string) (*Claims, error) {
+	if err := checkJOSE(token); err != nil {
+		return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
+	}
+	ks, err := a.keySet()
+	if err != nil {
+		return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
+	}
 	var c Claims
-	_, err := jwt.ParseWithClaims(token, &c, func(*jwt.Token) (any, error) { return a.key, nil },
-		jwt.WithValidMethods([]string{jwt.SigningMethodHS256.Alg()}),
+	_, err = jwt.ParseWithClaims(token, &c, func(t *jwt.Token) (any, error) { return a.verifyKey(ks, t) },
+		jwt.WithValidMethods([]string{jwt.SigningMethodEdDSA.Alg(), jwt.SigningMethodHS256.Alg()}),
 		jwt.WithIssuer(a.issuer),
 		jwt.WithAudience(Audience),
 		jwt.WithExpirationRequired(),
 		jwt.WithIssuedAt(),
 		jwt.WithTimeFunc(a.now),
-		jwt.WithLeeway(30*time.Second),
+		jwt.WithLeeway(ClockSkew),
 	)
 	if err != nil {
 		return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
@@ -133,6 +313,45 @@ func (a *Authority) Verify(token string) (*Claims, error) {
 		return nil, fmt.Errorf("%w: unknown role %q", ErrUnauthorized, c.Role)
 	}
 	return &c, nil
+}
+
+// verifyKey picks the key for t by its algorithm and kid, so that a key
+// of one type is never used under another algorithm (RFC 8725 section
+// 2.1).
+func (a *Authority) verifyKey(ks *KeySet, t *jwt.Token) (any, error) {
+	kid, _ := t.Header["kid"].(string)
+	switch t.Method.Alg() {
+	case jwt.SigningMethodEdDSA.Alg():
+		if kid == "" {
+			return nil, fmt.Errorf("EdDSA token without kid")
+		}
+		for _, k := range ks.Keys {
+			if k.KID != kid {
+				continue
+			}
+			if k.RetiredAt != nil {
+				return nil, fmt.Errorf("key %s was retired", kid)
+			}
+			priv, err := k.private()
+			if err != nil {
+				return nil, err
+			}
+			return priv.Public(), nil
+		}
+		return nil, fmt.Errorf("unknown key %q", kid)
+	case jwt.SigningMethodHS256.Alg():
+		if a.legacy == nil {
+			return nil, fmt.Errorf("HS256 is not accepted here")
+		}
+		if ks.LegacyRetired != nil {
+			return nil, fmt.Errorf("the HS256 key was retired")
+		}
+		if _, has := t.Header["kid"]; has {
+			return nil, fmt.Errorf("HS256 token with a kid")
+		}
+		return a.legacy, nil
+	}
+	return nil, fmt.Errorf("algorithm %s not accepted", t.Method.Alg())
 }
 
 // CanRead reports whether the claims may read project's datasets and

@@ -43,7 +43,7 @@ func (e *testEnv) craft(method jwt.SigningMethod, key any, mutate func(*Claims))
 func TestAuthTokens(t *testing.T) {
 	e := newEnv(t)
 	otherKey := []byte("another key, 32 bytes long......")
-	past := &Authority{key: e.key, issuer: testIssuer, now: func() time.Time { return time.Now().Add(-3 * time.Hour) }}
+	past := &Authority{legacy: e.key, keys: &KeySet{}, issuer: testIssuer, now: func() time.Time { return time.Now().Add(-3 * time.Hour) }}
 	expired, err := past.Issue(Grant{Role: RoleAdmin, Subject: "old", TTL: time.Hour})
 	if err != nil {
 		t.Fatal(err)

@@ -120,6 +120,10 @@ func New(cfg Config) *Server {
 		{method: "POST", path: ds + "/versions/:version/publish", h: s.setState},
 		{method: "POST", path: ds + "/versions/:version/retract", h: s.setState},
 		{method: "POST", path: api + "/admin/gc", h: s.collectGarbage},
+		{method: "GET", path: "/.well-known/jwks.json", h: s.jwks, public: true},
+		{method: "GET", path: api + "/admin/tokens", h: s.listTokens},
+		{method: "POST", path: api + "/admin/tokens", h: s.issueToken},
+		{method: "POST", path: api + "/admin/tokens/:jti/revoke", h: s.revokeToken},
 	}
 	for _, r := range s.routes {
 		var mw []echo.MiddlewareFunc
@@ -261,6 +265,16 @@ func (s *Server) authenticate(next echo.HandlerFunc) echo.HandlerFunc {
 			// RFC 6750 section 3.1: a token was sent and is not valid.
 			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat", error="invalid_token"`)
 			return fail(http.StatusUnauthorized, "unauthorized", "%s", err.Error())
+		}
+		// Every request checks the revocations bucket: a revoked jti
+		// stops authenticating at once.
+		revoked, err := s.cfg.Store.TokenRevoked(cl.ID)
+		if err != nil {
+			return err
+		}
+		if revoked {
+			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat", error="invalid_token"`)
+			return fail(http.StatusUnauthorized, "unauthorized", "unauthorized: token %s was revoked", cl.ID)
 		}
 		c.Set(claimsKey, cl)
 		return next(c)

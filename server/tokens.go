@@ -1,0 +1,122 @@
+package server
+
+import (
+	"context"
+	"errors"
+	"net/http"
+	"time"
+
+	"github.com/labstack/echo/v4"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
+)
+
+// TokenRecord turns issued claims into the catalog's record of them.
+func TokenRecord(c *Claims, kid string) catalog.TokenRecord {
+	r := catalog.TokenRecord{JTI: c.ID, Subject: c.Subject, Role: c.Role, Project: c.Project, Datasets: c.Datasets, KeyID: kid}
+	if c.IssuedAt != nil {
+		r.IssuedAt = c.IssuedAt.UTC()
+	}
+	if c.ExpiresAt != nil {
+		r.ExpiresAt = c.ExpiresAt.UTC()
+	}
+	return r
+}
+
+// IssueRecorded issues a token for g, records it in store and audits the
+// issue under by, in that order: a token the catalog could not record is
+// not handed out.
+func (a *Authority) IssueRecorded(st *catalog.Store, by string, g Grant) (string, error) {
+	tok, c, err := a.IssueClaims(g)
+	if err != nil {
+		return "", err
+	}
+	kid := ""
+	if ks, err := a.keySet(); err == nil {
+		if k, ok := ks.Active(); ok {
+			kid = k.KID
+		}
+	}
+	if err := st.RecordToken(context.Background(), by, TokenRecord(c, kid)); err != nil {
+		return "", err
+	}
+	return tok, nil
+}
+
+// jwks serves the public keys that verify this server's EdDSA tokens, as a
+// JWK Set (RFC 7517 section 5, OKP keys per RFC 8037 section 2), so that
+// another service can verify them.
+func (s *Server) jwks(c echo.Context) error {
+	ks, err := s.cfg.Authority.Keys()
+	if err != nil {
+		return err
+	}
+	c.Response().Header().Set("Cache-Control", "max-age=300")
+	return c.JSON(http.StatusOK, ks.JWKS())
+}
+
+func (s *Server) listTokens(c echo.Context) error {
+	if claims(c).Role != RoleAdmin {
+		return forbidden("list tokens (admin only)")
+	}
+	recs, err := s.cfg.Store.Tokens(c.Request().Context())
+	if err != nil {
+		return catalogError(err)
+	}
+	if recs == nil {
+		recs = []catalog.TokenRecord{}
+	}
+	return c.JSON(http.StatusOK, map[string]any{"tokens": recs})
+}
+
+type issueRequest struct {
+	Role     string   `json:"role"`
+	Subject  string   `json:"subject"`
+	Project  string   `json:"project"`
+	Datasets []string `json:"datasets"`
+	TTL      string   `json:"ttl"` // a Go duration, e.g. "720h"
+}
+
+func (s *Server) issueToken(c echo.Context) error {
+	cl := claims(c)
+	if cl.Role != RoleAdmin {
+		return forbidden("issue tokens (admin only)")
+	}
+	var req issueRequest
+	if err := decodeJSON(c, &req, `{"role", "subject", "project", "datasets", "ttl"}`); err != nil {
+		return err
+	}
+	ttl, err := time.ParseDuration(req.TTL)
+	if err != nil {
+		return fail(http.StatusBadRequest, "invalid", "ttl %q: want a duration such as 720h", truncateParam(req.TTL))
+	}
+	g := Grant{Role: req.Role, Subject: req.Subject, Project: req.Project, Datasets: req.Datasets, TTL: ttl}
+	tok, err := s.cfg.Authority.IssueRecorded(s.cfg.Store, cl.Subject+" ("+cl.ID+")", g)
+	if err != nil {
+		if errors.Is(err, catalog.ErrInvalid) || errors.Is(err, catalog.ErrExists) {
+			return catalogError(err)
+		}
+		return fail(http.StatusBadRequest, "invalid", "%s", err.Error())
+	}
+	return c.JSON(http.StatusCreated, map[string]string{"token": tok})
+}
+
+type revokeRequest struct {
+	Reason string `json:"reason"`
+}
+
+func (s *Server) revokeToken(c echo.Context) error {
+	cl := claims(c)
+	if cl.Role != RoleAdmin {
+		return forbidden("revoke tokens (admin only)")
+	}
+	var req revokeRequest
+	if err := decodeJSON(c, &req, `{"reason": ...}`); err != nil {
+		return err
+	}
+	rv, err := s.cfg.Store.RevokeToken(c.Request().Context(), cl.Subject+" ("+cl.ID+")", c.Param("jti"), req.Reason)
+	if err != nil {
+		return catalogError(err)
+	}
+	return c.JSON(http.StatusOK, rv)
+}
