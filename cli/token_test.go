@@ -1,6 +1,7 @@
 package cli_test
 
 import (
+	"encoding/base64"
 	"encoding/json"
 	"os"
 	"path/filepath"
@@ -175,4 +176,106 @@ func TestTokenLifecycle(t *testing.T) {
 	if count["token.issue"] != 2 || count["token.revoke"] != 1 || count["key.rotate"] != 1 || count["key.retire"] != 2 {
 		t.Fatalf("audit actions %v, want 2 issues, 1 revoke, 1 rotate, 2 retires", count)
 	}
+}
+
+// TestTokensWhileServing runs the token commands beside a real server on
+// loopback: a rotation and a retirement reach the running server without a
+// restart, and a revocation over the API stops a token on its next request.
+func TestTokensWhileServing(t *testing.T) {
+	data := filepath.Join(t.TempDir(), "data")
+	t.Setenv("FLOWCAT_MASTER_KEY", "")
+	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
+	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
+		t.Fatalf("init: %s", errs)
+	}
+	_, serveErr, stop := background(t, "serve", "--data", data, "--addr", "127.0.0.1:0")
+	defer stop()
+	url := waitFor(t, "the server's URL in its log", func() string {
+		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
+			return m[1]
+		}
+		return ""
+	})
+	issue := func(args ...string) string {
+		t.Helper()
+		code, out, errs := run(t, nil, append([]string{"token", "issue", "--data", data}, args...)...)
+		if code != 0 {
+			t.Fatalf("token issue %v: exit %d: %s", args, code, errs)
+		}
+		if !strings.Contains(errs, "not recorded") {
+			t.Errorf("token issue while serving did not say the token is unrecorded: %q", errs)
+		}
+		return strings.TrimSpace(out)
+	}
+	as := func(tok string) map[string]string {
+		return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok}
+	}
+	admin := issue("--role", "admin", "--subject", "ops")
+	works := func(tok string) bool {
+		code, _, _ := run(t, as(tok), "project", "list")
+		return code == 0
+	}
+	if !works(admin) {
+		t.Fatal("admin token refused")
+	}
+
+	// Rotate while serving: the new key's tokens work, so do the old.
+	if code, _, errs := run(t, nil, "token", "rotate", "--data", data); code != 0 || !strings.Contains(errs, "not written to the audit trail") {
+		t.Fatalf("rotate while serving: exit %d, %q", code, errs)
+	}
+	admin2 := issue("--role", "admin", "--subject", "ops2")
+	if !works(admin) || !works(admin2) {
+		t.Fatalf("after rotation: old works %v, new works %v", works(admin), works(admin2))
+	}
+	_, keys, _ := run(t, nil, "token", "keys", "--data", data)
+	first := strings.Fields(strings.Split(keys, "\n")[1])[0]
+	if code, _, errs := run(t, nil, "token", "retire", first, "--data", data); code != 0 {
+		t.Fatalf("retire: %s", errs)
+	}
+	if works(admin) {
+		t.Fatal("a token of a retired key still works on the running server")
+	}
+
+	// Revoke over the API a token issued while serving (so not recorded).
+	if code, _, errs := run(t, as(admin2), "project", "create", "flow"); code != 0 {
+		t.Fatalf("project create: %s", errs)
+	}
+	member := issue("--role", "member", "--subject", "student", "--project", "flow")
+	if !works(member) {
+		t.Fatal("member token refused")
+	}
+	jti := jtiOf(t, member)
+	code, out, errs := run(t, as(admin2), "token", "revoke", jti, "--reason", "left the lab")
+	if code != 0 || !strings.Contains(out, "revoked "+jti) {
+		t.Fatalf("revoke over the API: exit %d %q %q", code, out, errs)
+	}
+	if works(member) {
+		t.Fatal("a revoked token still works")
+	}
+	if !works(admin2) {
+		t.Fatal("revoking one token stopped another")
+	}
+	code, out, _ = run(t, as(admin2), "token", "list")
+	if code != 0 || !strings.Contains(out, jti) || !strings.Contains(out, "left the lab") {
+		t.Fatalf("token list over the API: %d %q", code, out)
+	}
+	// With the server holding the catalog, --data names the way round.
+	if code, _, errs := run(t, nil, "token", "list", "--data", data); code == 0 || !strings.Contains(errs, "--server") {
+		t.Fatalf("token list --data while serving: exit %d %q", code, errs)
+	}
+}
+
+func jtiOf(t *testing.T, tok string) string {
+	t.Helper()
+	b, err := base64.RawURLEncoding.DecodeString(strings.Split(tok, ".")[1])
+	if err != nil {
+		t.Fatal(err)
+	}
+	var c struct {
+		JTI string `json:"jti"`
+	}
+	if err := json.Unmarshal(b, &c); err != nil || c.JTI == "" {
+		t.Fatalf("no jti in %s", b)
+	}
+	return c.JTI
 }

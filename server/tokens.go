@@ -6,6 +6,7 @@ import (
 	"net/http"
 	"time"
 
+	"github.com/golang-jwt/jwt/v5"
 	"github.com/labstack/echo/v4"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
@@ -31,12 +32,7 @@ func (a *Authority) IssueRecorded(st *catalog.Store, by string, g Grant) (string
 	if err != nil {
 		return "", err
 	}
-	kid := ""
-	if ks, err := a.keySet(); err == nil {
-		if k, ok := ks.Active(); ok {
-			kid = k.KID
-		}
-	}
+	kid, _ := headerKID(tok)
 	if err := st.RecordToken(context.Background(), by, TokenRecord(c, kid)); err != nil {
 		return "", err
 	}
@@ -119,4 +115,14 @@ func (s *Server) revokeToken(c echo.Context) error {
 		return catalogError(err)
 	}
 	return c.JSON(http.StatusOK, rv)
+}
+
+// headerKID returns the kid of a token's header (the key that signed it).
+func headerKID(tok string) (string, error) {
+	t, _, err := jwt.NewParser().ParseUnverified(tok, &Claims{})
+	if err != nil {
+		return "", err
+	}
+	kid, _ := t.Header["kid"].(string)
+	return kid, nil
 }
