@@ -344,12 +344,16 @@ func TestRevocation(t *testing.T) {
 	var list struct {
 		Tokens []struct {
 			JTI, Subject, Role string
+			KID                string `json:"kid"`
 			Revoked            *struct{ Reason string }
 		}
 	}
 	e.decode(r, &list)
 	if len(list.Tokens) != 1 || list.Tokens[0].JTI != c.ID || list.Tokens[0].Subject != "cur-a" || list.Tokens[0].Revoked != nil {
 		t.Fatalf("list %s, want the one curator token, not revoked", r.Body)
+	}
+	if k, _ := e.keys().Active(); list.Tokens[0].KID != k.KID || header(t, cur)["kid"] != k.KID {
+		t.Fatalf("recorded kid %q, header kid %v, want %s", list.Tokens[0].KID, header(t, cur)["kid"], k.KID)
 	}
 	if strings.Contains(string(r.Body), cur) {
 		t.Fatal("the token list holds the token itself")
