@@ -116,7 +116,7 @@ func TestTokenLifecycle(t *testing.T) {
 		t.Fatalf("token of the new key: %v", err)
 	}
 
-	code, out, errs = run(t, nil, "token", "revoke", c1.ID, "--data", data)
+	code, _, errs = run(t, nil, "token", "revoke", c1.ID, "--data", data)
 	if code == 0 || !strings.Contains(errs, "--reason") {
 		t.Fatalf("revoke without reason: %d %q", code, errs)
 	}
