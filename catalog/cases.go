@@ -26,7 +26,6 @@ type CasePass struct {
 	srt       *sorter
 	subjects  *distinctCounter
 	resources *distinctCounter
-	events    int64
 	// Terminal are the dataset's terminal event types
 	// (schema.Profile.Terminal), for the builder's census.
 	Terminal []schema.EventType
@@ -56,7 +55,6 @@ func NewCasePass(dir string, runEvents int) *CasePass {
 // The fields no per-case figure uses (priority, channel, outcome, event_id)
 // are not kept: the sort by case carries less.
 func (p *CasePass) Add(e *schema.Event) error {
-	p.events++
 	c := *e
 	c.Priority, c.Channel, c.Outcome, c.EventID = "", "", "", ""
 	return p.srt.Add(&c)

@@ -195,7 +195,7 @@ type Accumulator struct {
 	curAt                 int64
 	inst                  instantSet
 	base                  int64 // the first instant
-	ids                   table[struct{}]
+	ids                   table
 	sinceIDPrune, keptIDs int
 	svc                   map[uint64]openService // open services at a resource, by case
 	sinceSvcPrune         int
@@ -439,7 +439,7 @@ func NewAccumulator(opt Options) *Accumulator {
 		siteIndex:    make(map[string]int),
 		waitIndex:    make(map[waitKey]int32),
 		resIndex:     make(map[string]int32),
-		ids:          newTable[struct{}](),
+		ids:          newTable(),
 		svc:          map[uint64]openService{},
 	}
 	for act, d := range opt.MaxService {
@@ -615,7 +615,7 @@ func (a *Accumulator) Observe(e *schema.Event) Flags {
 	a.sinceIDPrune++
 	if a.sinceIDPrune >= a.pruneEvery && a.sinceIDPrune >= a.keptIDs {
 		a.sinceIDPrune = 0
-		a.ids.sweep(func(sl *slot[struct{}]) bool { return rel-sl.rec > a.idWindow })
+		a.ids.sweep(func(sl *slot) bool { return rel-sl.rec > a.idWindow })
 		a.keptIDs = a.ids.n
 	}
 	return fl

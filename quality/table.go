@@ -4,29 +4,28 @@ package quality
 // (rec, microseconds after the file's first), which sweeps test. It is an
 // open-addressing table with linear probing, which costs one cache line
 // per lookup where a Go map, needing a read and a write, costs several;
-// the event-id check runs on every event. Key 0 marks an empty slot. (V
-// is unused: the table once held per-case records too.)
-type table[V any] struct {
-	slots []slot[V]
+// the event-id check runs on every event. Key 0 marks an empty slot.
+type table struct {
+	slots []slot
 	mask  uint64
 	n     int
 }
 
-type slot[V any] struct {
+type slot struct {
 	key, rec uint64
 }
 
 const minTableSize = 1024
 
-func newTable[V any]() table[V] {
-	return table[V]{slots: make([]slot[V], minTableSize), mask: minTableSize - 1}
+func newTable() table {
+	return table{slots: make([]slot, minTableSize), mask: minTableSize - 1}
 }
 
 // lookup returns the slot of key (never 0) and whether it holds key; if
 // not, the slot is the empty one where key belongs, which [table.claim]
 // fills. Room for one more key is made first, so the slot stays valid
 // until the next lookup.
-func (t *table[V]) lookup(key uint64) (*slot[V], bool) {
+func (t *table) lookup(key uint64) (*slot, bool) {
 	if 4*(t.n+1) > 3*len(t.slots) {
 		t.resize(2 * len(t.slots))
 	}
@@ -42,14 +41,14 @@ func (t *table[V]) lookup(key uint64) (*slot[V], bool) {
 }
 
 // claim stores key in the empty slot s returned by lookup.
-func (t *table[V]) claim(s *slot[V], key uint64) {
+func (t *table) claim(s *slot, key uint64) {
 	s.key = key
 	t.n++
 }
 
-func (t *table[V]) resize(size int) {
+func (t *table) resize(size int) {
 	old := t.slots
-	t.slots = make([]slot[V], size)
+	t.slots = make([]slot, size)
 	t.mask = uint64(size - 1)
 	for _, s := range old {
 		if s.key != 0 {
@@ -64,7 +63,7 @@ func (t *table[V]) resize(size int) {
 
 // sweep removes the records for which drop is true; drop may read the
 // record before it goes.
-func (t *table[V]) sweep(drop func(s *slot[V]) bool) {
+func (t *table) sweep(drop func(s *slot) bool) {
 	// Start from an empty slot (the load stays under 3/4), so that no
 	// cluster spans the start and removals only ever shift records into
 	// the slot being examined or slots not yet examined.
@@ -87,10 +86,10 @@ func (t *table[V]) sweep(drop func(s *slot[V]) bool) {
 
 // remove empties slot i and shifts later records of its cluster back so
 // that every record stays reachable from its home slot.
-func (t *table[V]) remove(i uint64) {
+func (t *table) remove(i uint64) {
 	t.n--
 	for {
-		t.slots[i] = slot[V]{}
+		t.slots[i] = slot{}
 		j := i
 		for {
 			j = (j + 1) & t.mask

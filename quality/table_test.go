@@ -11,7 +11,7 @@ import (
 func TestCaseTable(t *testing.T) {
 	rnd := rand.New(rand.NewPCG(7, 9))
 	for _, spread := range []uint64{16, 1 << 12, 1 << 40} {
-		tab := newTable[struct{}]()
+		tab := newTable()
 		ref := map[uint64]uint64{}
 		for round := range 40 {
 			for range 700 {
@@ -29,7 +29,7 @@ func TestCaseTable(t *testing.T) {
 				ref[k] = v
 			}
 			cut := rnd.Uint64N(1000)
-			tab.sweep(func(s *slot[struct{}]) bool { return s.rec < cut })
+			tab.sweep(func(s *slot) bool { return s.rec < cut })
 			for k, v := range ref {
 				if v < cut {
 					delete(ref, k)

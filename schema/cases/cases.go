@@ -465,9 +465,6 @@ func (b *Builder) Flush() {
 	b.depart = nil
 }
 
-// Micros converts a duration in microseconds to a time.Duration.
-func Micros(us int64) time.Duration { return time.Duration(us) * time.Microsecond }
-
 // Less orders events the way the per-case computation takes them: by
 // case, then instant, then event type in lifecycle order (an arrival
 // before a start at the same instant), then content, then source line. So
