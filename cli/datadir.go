@@ -15,7 +15,6 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog"
-	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/server"
 )
@@ -23,7 +22,8 @@ import (
 // dataDir is the layout of a server's data directory:
 //
 //	catalog.db     bbolt metadata
-//	blobs/         snapshot files by sha256
+//	blobs/         snapshot files by sha256 (unless instance.json names an
+//	               S3-compatible store)
 //	tmp/           sort runs and files being written (pseudonymized only)
 //	keys.json      Ed25519 token signing keys, by kid (0600)
 //	signing.key    legacy HS256 token key of directories made before keys.json (0600)
@@ -46,13 +46,23 @@ type instance struct {
 	// MaxTTL overrides the longest token lifetime per role, as Go
 	// durations ("2160h"); roles not named keep server.DefaultMaxTTL.
 	MaxTTL map[string]string `json:"max_ttl,omitempty"`
+	// Blobs is where snapshot files are kept: s3://bucket/prefix, or ""
+	// for the blobs/ folder of the data directory.
+	Blobs string `json:"blobs,omitempty"`
 }
 
 // initDataDir creates a data directory. With an existing master key file
-// (masterFile != "") it checks that key and creates none.
-func initDataDir(d dataDir, masterFile string) (createdMaster bool, err error) {
+// (masterFile != "") it checks that key and creates none. blobs names
+// the blob store (see openBlobs); it is reached before anything is
+// written, so a wrong address or missing keys leave no directory behind.
+func initDataDir(d dataDir, masterFile, blobs string) (createdMaster bool, err error) {
 	if _, err := os.Stat(d.db()); err == nil {
 		return false, fmt.Errorf("init: %s is a flowcat data directory already", d)
+	}
+	if blobs != "" {
+		if _, err := d.openBlobs(blobs); err != nil {
+			return false, fmt.Errorf("init: %w", err)
+		}
 	}
 	if err := os.MkdirAll(string(d), 0o700); err != nil {
 		return false, fmt.Errorf("init: %w", err)
@@ -89,7 +99,7 @@ func initDataDir(d dataDir, masterFile string) (createdMaster bool, err error) {
 	if _, err := rand.Read(rnd[:]); err != nil {
 		return false, fmt.Errorf("init: %w", err)
 	}
-	inst := instance{Issuer: "flowcat:" + hex.EncodeToString(rnd[:]), CreatedAt: time.Now().UTC()}
+	inst := instance{Issuer: "flowcat:" + hex.EncodeToString(rnd[:]), CreatedAt: time.Now().UTC(), Blobs: blobs}
 	b, _ := json.MarshalIndent(inst, "", "  ")
 	if err := os.WriteFile(d.instance(), append(b, '\n'), 0o600); err != nil {
 		return false, fmt.Errorf("init: %w", err)
@@ -170,8 +180,13 @@ func (d dataDir) findMasterKey(flagFile string) (anonymize.MasterKey, string, er
 	return anonymize.MasterKey{}, "", fmt.Errorf("no master key: give --master-key FILE, or set FLOWCAT_MASTER_KEY (64 hex digits) or FLOWCAT_MASTER_KEY_FILE; `flowcat init` creates %s", d.masterKey())
 }
 
+// openStore opens the catalog on the blob store instance.json names.
 func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger, lim ...schema.Limits) (*catalog.Store, error) {
-	blobs, err := localfs.New(d.blobs())
+	inst, err := d.readInstance()
+	if err != nil {
+		return nil, err
+	}
+	blobs, err := d.openBlobs(inst.Blobs)
 	if err != nil {
 		return nil, err
 	}

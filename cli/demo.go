@@ -58,7 +58,7 @@ interrupted.`,
 				return err
 			}
 			d := dataDir(dir)
-			if _, err := initDataDir(d, ""); err != nil {
+			if _, err := initDataDir(d, "", ""); err != nil {
 				return err
 			}
 			out := e.stdout

@@ -7,9 +7,9 @@ import (
 )
 
 func newInitCmd(e *env) *cobra.Command {
-	var dir, masterFile string
+	var dir, masterFile, blobs string
 	c := &cobra.Command{
-		Use:   "init --data DIR",
+		Use:   "init --data DIR [--blobs s3://BUCKET/PREFIX]",
 		Short: "Create a data directory: catalog file, blob store, signing key and master key",
 		Args:  cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
@@ -17,7 +17,7 @@ func newInitCmd(e *env) *cobra.Command {
 				return usageErr("init: --data DIR is required")
 			}
 			d := dataDir(dir)
-			created, err := initDataDir(d, masterFile)
+			created, err := initDataDir(d, masterFile, blobs)
 			if err != nil {
 				return err
 			}
@@ -33,5 +33,6 @@ func newInitCmd(e *env) *cobra.Command {
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory to create")
 	c.Flags().StringVar(&masterFile, "master-key", "", "use this existing master key file instead of creating one in DIR")
+	c.Flags().StringVar(&blobs, "blobs", "", blobsFlagHelp)
 	return c
 }

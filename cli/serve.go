@@ -20,14 +20,14 @@ import (
 )
 
 func newServeCmd(e *env) *cobra.Command {
-	var dir, addr, masterFile string
+	var dir, addr, masterFile, blobs string
 	var maxUpload, memLimit int64
 	var maxUploads int
 	var bodyIdle time.Duration
 	var author string
 	var lim schema.Limits
 	c := &cobra.Command{
-		Use:   "serve --data DIR --addr HOST:PORT",
+		Use:   "serve --data DIR --addr HOST:PORT [--blobs s3://BUCKET/PREFIX]",
 		Short: "Run the catalog server on a data directory",
 		Args:  cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
@@ -41,18 +41,26 @@ func newServeCmd(e *env) *cobra.Command {
 				debug.SetMemoryLimit(memLimit)
 			}
 			d := dataDir(dir)
+			where, err := d.blobsSpec(blobs)
+			if err != nil {
+				return err
+			}
+			if where == "" {
+				where = d.blobs()
+			}
 			ctx, stop := signal.NotifyContext(cmd.Context(), syscall.SIGINT, syscall.SIGTERM)
 			defer stop()
 			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, maxUploads: maxUploads, bodyIdle: bodyIdle, citationAuthor: author, limits: lim}, log)
 			if err != nil {
 				return err
 			}
-			log.Info("serving", "url", run.url, "data", dir, "master_key", run.masterFrom)
+			log.Info("serving", "url", run.url, "data", dir, "blobs", where, "master_key", run.masterFrom)
 			return run.wait(ctx)
 		},
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory (made by flowcat init)")
 	c.Flags().StringVar(&addr, "addr", "127.0.0.1:8470", "listen address HOST:PORT")
+	c.Flags().StringVar(&blobs, "blobs", "", blobsFlagHelp)
 	c.Flags().StringVar(&masterFile, "master-key", "", "master key file (else FLOWCAT_MASTER_KEY, FLOWCAT_MASTER_KEY_FILE, or DIR/master.key)")
 	c.Flags().Int64Var(&maxUpload, "max-upload-bytes", 8<<30, "largest upload body accepted, in bytes as sent (gzip counts compressed; 413 above)")
 	c.Flags().IntVar(&maxUploads, "max-uploads-per-token", server.DefaultMaxUploadsPerToken, "uploads one token may have in progress at once (429 above)")
