@@ -83,7 +83,9 @@ func s3EndToEnd(t *testing.T, srv s3test.Server) {
 	admin := issue("--role", "admin", "--subject", "ops")
 	partner := issue("--role", "partner", "--subject", "north-site", "--dataset", "flow/visits")
 	member := issue("--role", "member", "--subject", "student", "--project", "flow")
-	as := func(tok string) map[string]string { return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok} }
+	as := func(tok string) map[string]string {
+		return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok}
+	}
 	if code, _, errs := run(t, as(admin), "project", "create", "flow"); code != 0 {
 		t.Fatalf("project create: %d %s", code, errs)
 	}
