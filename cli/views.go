@@ -145,19 +145,31 @@ func (e *env) save(cmd *cobra.Command, path string, q url.Values, out string) er
 
 func newExportCmd(e *env) *cobra.Command {
 	var ff filterFlags
-	var out, format string
+	var out, format, layout string
 	c := &cobra.Command{
-		Use:   "export PROJECT/DATASET[@VERSION] -o FILE [--format parquet|csv] [filters]",
-		Short: "Download a version, or the events and columns you choose, as one Parquet or CSV file",
+		Use:   "export PROJECT/DATASET[@VERSION] -o FILE [--format parquet|csv] [filters] | --layout DIR|s3://BUCKET/PREFIX",
+		Short: "Download a version, or the events and columns you choose, as one Parquet or CSV file, or as a partitioned layout",
 		Long: `Export writes one file holding a version's events in a fixed order (time, then content): the same
 request always gives the same bytes. Filters keep a time window, sites, queues, event types,
 activities and columns; the server reads only the row groups they need. CSV follows RFC 4180.
--o - writes to stdout.`,
+-o - writes to stdout.
+
+With --layout, export writes the whole version as Parquet files partitioned Hive-style by site and
+day (site=SITE/date=YYYY-MM-DD/part-0.parquet, days in the dataset's zone), with the version's
+manifest.json and a layout.json listing every file, into a new directory or under an S3 prefix
+that holds nothing yet (endpoint and keys from the environment, as for serve --blobs). Query
+engines read it in place and read only the partitions a query's site and date conditions name.`,
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			r, err := parseRef(args[0], true)
 			if err != nil {
 				return err
+			}
+			if layout != "" {
+				if out != "" || cmd.Flags().Changed("format") || len(ff.query()) > 0 {
+					return usageErr("export: --layout writes the whole version; it takes no -o, --format or filters")
+				}
+				return e.exportLayout(cmd, r, layout)
 			}
 			if out == "" {
 				return usageErr("export: -o FILE is required (- for stdout)")
@@ -173,6 +185,7 @@ activities and columns; the server reads only the row groups they need. CSV foll
 	ff.add(c, true, true)
 	c.Flags().StringVarP(&out, "output", "o", "", "file to write (- for stdout)")
 	c.Flags().StringVar(&format, "format", "parquet", "parquet or csv")
+	c.Flags().StringVar(&layout, "layout", "", "write a partitioned layout (site=/date=) into this new directory or s3://BUCKET/PREFIX")
 	return c
 }
 

@@ -4,6 +4,7 @@ import (
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
+	"encoding/json"
 	"fmt"
 	"io"
 	"maps"
@@ -259,3 +260,42 @@ type sizedFile struct {
 }
 
 func (f *sizedFile) Size() int64 { return f.size }
+
+// LayoutIndexName is the file beside a layout's partitions that lists
+// them; ManifestName, beside it, is the version's manifest as stored (its
+// SHA-256 is the snapshot id).
+const (
+	LayoutIndexName = "layout.json"
+	ManifestName    = "manifest.json"
+)
+
+// LayoutIndex describes a layout: the version it holds, the zone of its
+// days, and each file with its rows and SHA-256.
+type LayoutIndex struct {
+	Dataset    string       `json:"dataset"`
+	Version    int          `json:"version"`
+	SnapshotID string       `json:"snapshot_id"`
+	Zone       string       `json:"zone"`
+	Partitions []string     `json:"partitioned_by"`
+	Rows       int64        `json:"rows"`
+	Files      []LayoutFile `json:"files"`
+}
+
+// Marshal returns the index as indented JSON and a newline.
+func (ix *LayoutIndex) Marshal() []byte {
+	b, _ := json.MarshalIndent(ix, "", "  ")
+	return append(b, '\n')
+}
+
+// NewLayoutIndex makes the index of files written for a version.
+func NewLayoutIndex(dataset string, version int, snapshot string, zone *time.Location, files []LayoutFile) *LayoutIndex {
+	if zone == nil {
+		zone = time.UTC
+	}
+	ix := &LayoutIndex{Dataset: dataset, Version: version, SnapshotID: snapshot, Zone: zone.String(),
+		Partitions: []string{"site", "date"}, Files: files}
+	for _, f := range files {
+		ix.Rows += f.Rows
+	}
+	return ix
+}

@@ -128,19 +128,29 @@ type Store struct {
 // New connects to the store and checks that the bucket exists (a missing
 // bucket or refused credentials fail here, not at the first upload).
 func New(ctx context.Context, cfg Config) (*Store, error) {
+	cl, prefix, ps, err := connect(ctx, cfg)
+	if err != nil {
+		return nil, err
+	}
+	return &Store{cl: cl, core: minio.Core{Client: cl}, bucket: cfg.Bucket, prefix: prefix, partSize: ps, inflight: map[string]bool{}}, nil
+}
+
+// connect makes a client of cfg and checks that the bucket exists. It
+// returns the prefix as "" or ending in "/", and the part size.
+func connect(ctx context.Context, cfg Config) (*minio.Client, string, int64, error) {
 	if err := checkBucket(cfg.Bucket); err != nil {
-		return nil, fmt.Errorf("s3store: %w", err)
+		return nil, "", 0, fmt.Errorf("s3store: %w", err)
 	}
 	u, err := url.Parse(cfg.Endpoint)
 	if err != nil || (u.Scheme != "http" && u.Scheme != "https") || u.Host == "" || (u.Path != "" && u.Path != "/") {
-		return nil, fmt.Errorf("s3store: endpoint %q: want http://HOST:PORT or https://HOST:PORT", cfg.Endpoint)
+		return nil, "", 0, fmt.Errorf("s3store: endpoint %q: want http://HOST:PORT or https://HOST:PORT", cfg.Endpoint)
 	}
 	ps := cfg.PartSize
 	if ps == 0 {
 		ps = DefaultPartSize
 	}
 	if ps < MinPartSize {
-		return nil, fmt.Errorf("s3store: part size %d: want at least %d (5 MiB, the S3 minimum)", ps, MinPartSize)
+		return nil, "", 0, fmt.Errorf("s3store: part size %d: want at least %d (5 MiB, the S3 minimum)", ps, MinPartSize)
 	}
 	region := cfg.Region
 	if region == "" {
@@ -162,20 +172,21 @@ func New(ctx context.Context, cfg Config) (*Store, error) {
 		BucketLookup: minio.BucketLookupPath,
 	})
 	if err != nil {
-		return nil, fmt.Errorf("s3store: %w", err)
+		return nil, "", 0, fmt.Errorf("s3store: %w", err)
 	}
-	s := &Store{cl: cl, core: minio.Core{Client: cl}, bucket: cfg.Bucket, partSize: ps, inflight: map[string]bool{}}
+	prefix := ""
 	if p := strings.Trim(cfg.Prefix, "/"); p != "" {
-		s.prefix = p + "/"
+		prefix = p + "/"
 	}
+	where := "s3://" + cfg.Bucket + "/" + strings.TrimSuffix(prefix, "/")
 	ok, err := cl.BucketExists(ctx, cfg.Bucket)
 	if err != nil {
-		return nil, fmt.Errorf("s3store: %s: %w", s.where(), err)
+		return nil, "", 0, fmt.Errorf("s3store: %s: %w", where, err)
 	}
 	if !ok {
-		return nil, fmt.Errorf("s3store: %s: no such bucket on %s; create it first", s.where(), cfg.Endpoint)
+		return nil, "", 0, fmt.Errorf("s3store: %s: no such bucket on %s; create it first", where, cfg.Endpoint)
 	}
-	return s, nil
+	return cl, prefix, ps, nil
 }
 
 // where names the store in messages: s3://bucket/prefix.
