@@ -12,9 +12,9 @@ import (
 	"testing"
 	"time"
 
-	"github.com/flowcat-catalog/flowcat/catalog/export"
 	"github.com/flowcat-catalog/flowcat/catalog/blob/s3store"
 	"github.com/flowcat-catalog/flowcat/catalog/blob/s3store/s3test"
+	"github.com/flowcat-catalog/flowcat/catalog/export"
 )
 
 // sitesNight is an export of three sites, times spread over 20 hours from
@@ -94,7 +94,9 @@ func TestExportLayout(t *testing.T) {
 	admin := issue("--role", "admin", "--subject", "ops")
 	partner := issue("--role", "partner", "--subject", "up", "--dataset", "flow/visits")
 	member := issue("--role", "member", "--subject", "student", "--project", "flow")
-	as := func(tok string) map[string]string { return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok} }
+	as := func(tok string) map[string]string {
+		return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok}
+	}
 	run(t, as(admin), "project", "create", "flow")
 	if code, _, errs := run(t, as(admin), "dataset", "create", "flow/visits", "--timezone", "America/Los_Angeles"); code != 0 {
 		t.Fatalf("dataset create: %d %s", code, errs)
