@@ -115,7 +115,7 @@ func (e *env) exportLayout(cmd *cobra.Command, r ref, dest string) error {
 		if err := os.Rename(stage, dest); err != nil {
 			return fmt.Errorf("export --layout: %w", err)
 		}
-	} else if err := publishS3(cmd, objs, stage, files); err != nil {
+	} else if err := publishS3(ctx, objs, stage, files); err != nil {
 		return err
 	}
 	if e.json {
@@ -130,8 +130,7 @@ func (e *env) exportLayout(cmd *cobra.Command, r ref, dest string) error {
 
 // publishS3 sends the layout's files, then the manifest and the index;
 // on a failure it removes what it sent.
-func publishS3(cmd *cobra.Command, objs *s3store.Objects, stage string, files []export.LayoutFile) (err error) {
-	ctx := cmd.Context()
+func publishS3(ctx context.Context, objs *s3store.Objects, stage string, files []export.LayoutFile) (err error) {
 	var sent []string
 	defer func() {
 		if err != nil {

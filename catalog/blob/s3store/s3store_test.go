@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"crypto/sha256"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"io"
@@ -283,3 +284,92 @@ func TestFromEnv(t *testing.T) {
 		}
 	}
 }
+
+// TestObjects: a file larger than two parts is stored whole, listed,
+// read back and removed, on each server.
+func TestObjects(t *testing.T) {
+	for _, srv := range s3test.Servers(t) {
+		t.Run(srv.Name, func(t *testing.T) {
+			bucket := srv.NewBucket(t)
+			ctx := context.Background()
+			o, err := NewObjects(ctx, Config{Bucket: bucket, Prefix: "layouts/v1", Endpoint: srv.Endpoint, PartSize: MinPartSize,
+				Credentials: credentials.NewStaticV4(srv.AccessKey, srv.SecretKey, "")})
+			if err != nil {
+				t.Fatal(err)
+			}
+			if empty, err := o.Empty(ctx); err != nil || !empty {
+				t.Fatalf("Empty = %v, %v", empty, err)
+			}
+			data := make([]byte, blobtest.LargeSize)
+			for i := range data {
+				data[i] = byte(i * 7 % 251)
+			}
+			path := t.TempDir() + "/f"
+			os.WriteFile(path, data, 0o644)
+			sha, err := o.PutFile(ctx, "site=a/date=2026-03-01/part-0.parquet", path)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if want := fmt.Sprintf("%x", sha256.Sum256(data)); sha != want {
+				t.Errorf("PutFile sha256 %s, want %s", sha, want)
+			}
+			got, err := o.Get(ctx, "site=a/date=2026-03-01/part-0.parquet")
+			if err != nil || !bytes.Equal(got, data) {
+				t.Fatalf("read back %d bytes, %v; want the %d sent", len(got), err, len(data))
+			}
+			var keys []string
+			o.List(ctx, func(rel string, size int64) error { keys = append(keys, fmt.Sprint(rel, " ", size)); return nil })
+			if want := fmt.Sprint("site=a/date=2026-03-01/part-0.parquet ", len(data)); len(keys) != 1 || keys[0] != want {
+				t.Errorf("List = %v, want [%s]", keys, want)
+			}
+			if empty, _ := o.Empty(ctx); empty {
+				t.Error("Empty after a put")
+			}
+			if err := o.Remove(ctx, "site=a/date=2026-03-01/part-0.parquet"); err != nil {
+				t.Fatal(err)
+			}
+			if left := incomplete(t, srv, bucket); len(left) != 0 {
+				t.Errorf("incomplete uploads left: %v", left)
+			}
+		})
+	}
+}
+
+// BenchmarkPut stores a 64 MiB blob on the real server (a process of its
+// own, so the allocations counted are the client's): B/op shows what one
+// Put holds, about one part, not the blob. Run with the real server's
+// variables set (see DEVELOPERS.md):
+//
+//	go test ./catalog/blob/s3store -run '^$' -bench Put -benchtime 3x
+func BenchmarkPut(b *testing.B) {
+	srv, ok := s3test.Real(b)
+	if !ok {
+		b.Skip("needs the real server")
+	}
+	bucket := srv.NewBucket(b)
+	s, err := New(context.Background(), Config{Bucket: bucket, Endpoint: srv.Endpoint,
+		Credentials: credentials.NewStaticV4(srv.AccessKey, srv.SecretKey, "")})
+	if err != nil {
+		b.Fatal(err)
+	}
+	const size = 64 << 20
+	b.SetBytes(size)
+	b.ReportAllocs()
+	for i := 0; b.Loop(); i++ {
+		// A blob of its own each time (the first 8 bytes differ), so no
+		// Put finds it stored already.
+		seed := make([]byte, 8)
+		binary.LittleEndian.PutUint64(seed, uint64(i))
+		h := sha256.New()
+		h.Write(seed)
+		io.CopyN(h, zeros{}, size-8)
+		id := blob.ID(h.Sum(nil))
+		if err := s.Put(context.Background(), id, io.MultiReader(bytes.NewReader(seed), io.LimitReader(zeros{}, size-8))); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+type zeros struct{}
+
+func (zeros) Read(p []byte) (int, error) { clear(p); return len(p), nil }
