@@ -319,6 +319,13 @@ func TestPatientsLog(t *testing.T) {
 		start, compl *time.Time
 	}
 	insts := map[string]*inst{}
+	// (case, instant) -> the (type, activity) pairs there, for the
+	// same-instant checks.
+	type caseAt struct {
+		c  string
+		at time.Time
+	}
+	atInstant := map[caseAt][][2]string{}
 	for {
 		rec, err := cr.Read()
 		if err == io.EOF {
@@ -332,6 +339,8 @@ func TestPatientsLog(t *testing.T) {
 			t.Fatal(err)
 		}
 		c := rec[idx("patient")]
+		k := caseAt{c, ts}
+		atInstant[k] = append(atInstant[k], [2]string{rec[idx("registration_type")], rec[idx("handling")]})
 		if s := spans[c]; s == nil {
 			spans[c] = &span{ts, ts}
 		} else {
@@ -371,6 +380,28 @@ func TestPatientsLog(t *testing.T) {
 	}
 	if ur := res.Upload.Report; ur.Cases != q.Cases {
 		t.Errorf("upload report cases %+v, version's %+v", ur.Cases, q.Cases)
+	}
+	// Same instant: every event after the first at one instant of a case.
+	// Same-instant order: those that bound one interval with an event
+	// there, a start and a complete of one activity (a complete of one
+	// step with the start of the next is a handover).
+	var sameAt, sameOrder int64
+	for _, evs := range atInstant {
+		sameAt += int64(len(evs) - 1)
+		for i := 1; i < len(evs); i++ {
+			for _, p := range evs[:i] {
+				if p[1] == evs[i][1] && p[0] != evs[i][0] {
+					sameOrder++
+					break
+				}
+			}
+		}
+	}
+	if got, want := q.Count(quality.CodeSameInstant), sameAt; got != want {
+		t.Errorf("same_instant %d, independent count %d", got, want)
+	}
+	if got, want := q.Count(quality.CodeSameInstantOrder), sameOrder; got != want {
+		t.Errorf("same_instant_order %d, independent count %d (start and complete of one activity at one instant)", got, want)
 	}
 	cs := readArrowCases(t, e.caseTable(t, v))
 	var got []int64
