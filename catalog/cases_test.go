@@ -624,3 +624,114 @@ func TestPatientsResourceOverlaps(t *testing.T) {
 		t.Errorf("resource overlaps %d, standard library %d", got, want)
 	}
 }
+
+// TestSepsisMonthlyAppends: the sepsis log (testdata/sepsis, published
+// figures in its README) cut by event month into 19 nightly appends gives
+// the figures of the one-file upload: 1050 cases, the published mean case
+// duration 2459733.94 s, the same case table bytes, the same case-level
+// summary and quality figures. Many of its cases span months, so each
+// append continues cases of earlier ones.
+func TestSepsisMonthlyAppends(t *testing.T) {
+	gz, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "sepsis-cases.csv.gz"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	prof, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "profile.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	zr, err := gzip.NewReader(bytes.NewReader(gz))
+	if err != nil {
+		t.Fatal(err)
+	}
+	raw, err := io.ReadAll(zr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimRight(string(raw), "\r\n"), "\n")
+	head := lines[0]
+	byMonth := map[string][]string{}
+	spanning := map[string]map[string]bool{} // case -> months
+	for _, l := range lines[1:] {
+		f := strings.SplitN(l, ";", 4) // Case ID;Activity;Complete Timestamp;...
+		if len(f) < 4 || len(f[2]) < 7 {
+			t.Fatalf("unexpected row %q", l)
+		}
+		m := f[2][:7] // 2014/10
+		byMonth[m] = append(byMonth[m], l)
+		if spanning[f[0]] == nil {
+			spanning[f[0]] = map[string]bool{}
+		}
+		spanning[f[0]][m] = true
+	}
+	months := slices.Sorted(maps.Keys(byMonth))
+	var multi int
+	for _, ms := range spanning {
+		if len(ms) > 1 {
+			multi++
+		}
+	}
+	if len(months) < 12 || multi < 100 {
+		t.Fatalf("%d months, %d cases spanning months: the split would not test continuation", len(months), multi)
+	}
+	t.Logf("%d monthly files; %d of %d cases span two months or more", len(months), multi, len(spanning))
+
+	e := newEnv(t, func(o *Options) { o.RunEvents = 2000 })
+	e.dataset(t, "h", "one", func(s *DatasetSpec) { s.Profile = prof })
+	e.dataset(t, "h", "monthly", func(s *DatasetSpec) { s.Profile = prof })
+	one := e.ingest(t, "h", "one", gz, "sepsis-cases.csv.gz").Version
+	var last *Version
+	for _, m := range months {
+		body := head + "\n" + strings.Join(byMonth[m], "\n") + "\n"
+		last = e.ingest(t, "h", "monthly", []byte(body), "sepsis-"+strings.ReplaceAll(m, "/", "-")+".csv").Version
+	}
+	if len(last.Manifest.Files) != len(months) {
+		t.Fatalf("monthly version has %d files, want %d", len(last.Manifest.Files), len(months))
+	}
+	if a, b := e.blobBytes(t, one.Manifest.CaseTable.SHA256), e.blobBytes(t, last.Manifest.CaseTable.SHA256); !bytes.Equal(a, b) {
+		t.Error("the case tables of one file and of the monthly appends differ")
+	}
+	q1, qm := e.report(t, one), e.report(t, last)
+	for name, q := range map[string]*quality.Report{"one file": q1, "monthly": qm} {
+		// README: 1050 cases, mean case duration 2459733.94 s.
+		if q.Cases.Count != 1050 || math.Abs(q.Cases.MeanDurationSeconds-2459733.94) > 0.005 {
+			t.Errorf("%s: report cases %+v; published 1050, mean 2459733.94 s", name, q.Cases)
+		}
+	}
+	if q1.Cases != qm.Cases || q1.Stages != qm.Stages || q1.Count(quality.CodeCaseTooLong) != qm.Count(quality.CodeCaseTooLong) ||
+		q1.Count(quality.CodeSameInstant) != qm.Count(quality.CodeSameInstant) || q1.Count(quality.CodeDuplicateCaseTypeTime) != qm.Count(quality.CodeDuplicateCaseTypeTime) {
+		t.Errorf("case-level quality differs:\none %+v %+v\nmonthly %+v %+v", q1.Cases, q1.Stages, qm.Cases, qm.Stages)
+	}
+	ctx := context.Background()
+	var s [2]summary.Summary
+	for i, v := range []struct {
+		ref string
+		n   int
+	}{{"h/one", one.Number}, {"h/monthly", last.Number}} {
+		js, err := e.s.Summary(ctx, v.ref, v.n)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := json.Unmarshal(js, &s[i]); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if s[1].Cases.Value != 1050 || !s[1].Cases.Exact || s[1].LengthOfStay.N != 1050 || math.Abs(s[1].LengthOfStay.Mean-2459733.94) > 0.005 {
+		t.Errorf("monthly summary: cases %+v, stays n %d mean %.4f; published 1050, 2459733.94 s", s[1].Cases, s[1].LengthOfStay.N, s[1].LengthOfStay.Mean)
+	}
+	for _, m := range []struct {
+		name string
+		a, b any
+	}{
+		{"cases", s[0].Cases, s[1].Cases}, {"length_of_stay", s[0].LengthOfStay, s[1].LengthOfStay},
+		{"events_per_case", s[0].EventsPerCase, s[1].EventsPerCase}, {"between_events", s[0].BetweenEvents, s[1].BetweenEvents},
+		{"process", s[0].Process, s[1].Process}, {"resources", s[0].Resources, s[1].Resources},
+		{"arrivals", s[0].Arrivals, s[1].Arrivals}, {"exposure_hours", s[0].ExposureHours, s[1].ExposureHours},
+	} {
+		a, _ := json.Marshal(m.a)
+		b, _ := json.Marshal(m.b)
+		if !bytes.Equal(a, b) {
+			t.Errorf("summary %s differs: one file %.300s, monthly %.300s", m.name, a, b)
+		}
+	}
+}
