@@ -735,3 +735,70 @@ func TestSepsisMonthlyAppends(t *testing.T) {
 		}
 	}
 }
+
+// TestSepsisMaxCaseDays: case_too_long counts the cases longer than the
+// profile's max_case_days (default 30), equal to a standard-library count
+// over the sepsis log's raw rows (wall clock in Europe/Amsterdam, as its
+// README says).
+func TestSepsisMaxCaseDays(t *testing.T) {
+	gz, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "sepsis-cases.csv.gz"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	prof, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "profile.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	zr, err := gzip.NewReader(bytes.NewReader(gz))
+	if err != nil {
+		t.Fatal(err)
+	}
+	raw, err := io.ReadAll(zr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ams, err := time.LoadLocation("Europe/Amsterdam")
+	if err != nil {
+		t.Fatal(err)
+	}
+	lo, hi := map[string]time.Time{}, map[string]time.Time{}
+	for _, l := range strings.Split(strings.TrimRight(string(raw), "\r\n"), "\n")[1:] {
+		f := strings.SplitN(l, ";", 4)
+		at, err := time.ParseInLocation("2006/01/02 15:04:05.000", f[2], ams)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if x, ok := lo[f[0]]; !ok || at.Before(x) {
+			lo[f[0]] = at
+		}
+		if x, ok := hi[f[0]]; !ok || at.After(x) {
+			hi[f[0]] = at
+		}
+	}
+	longer := func(days int) (n int64) {
+		for c := range lo {
+			if hi[c].Sub(lo[c]) > time.Duration(days)*24*time.Hour {
+				n++
+			}
+		}
+		return n
+	}
+	e := newEnv(t, nil)
+	for _, c := range []struct {
+		name string
+		days int // 0: the default, 30
+		line string
+	}{{"default", 30, ""}, {"year", 365, "max_case_days: 365\n"}, {"week", 7, "max_case_days: 7\n"}} {
+		e.dataset(t, "h", c.name, func(s *DatasetSpec) { s.Profile = append([]byte(c.line), prof...) })
+		v := e.ingest(t, "h", c.name, gz, "sepsis-cases.csv.gz").Version
+		q := e.report(t, v)
+		want := longer(c.days)
+		if got := q.Count(quality.CodeCaseTooLong); got != want || want == 0 || want == 1050 {
+			t.Errorf("%s: case_too_long %d, standard library %d cases longer than %d days", c.name, got, want, c.days)
+		}
+		if q.Raw.Settings.MaxCaseSeconds != float64(c.days*86400) {
+			t.Errorf("%s: report settings max_case_seconds %v, want %d", c.name, q.Raw.Settings.MaxCaseSeconds, c.days*86400)
+		}
+		t.Logf("max %d days: %d of 1050 cases longer", c.days, want)
+	}
+}
