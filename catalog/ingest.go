@@ -585,9 +585,6 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 		<-done
 	}()
 	for b := range full {
-		if err := ctx.Err(); err != nil {
-			return err
-		}
 		for i := range b.evs {
 			if b.rejs[i] != nil {
 				acc.Reject(*b.rejs[i])
@@ -607,7 +604,12 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 			return nil
 		}
 		if b.err != nil {
+			// The reader's own error first: a stalled body's timeout also
+			// ends the context, and the timeout is what to report.
 			return b.err
+		}
+		if err := ctx.Err(); err != nil {
+			return err
 		}
 		clear(b.evs) // drop the strings before the batch waits for reuse
 		select {
