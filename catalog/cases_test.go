@@ -8,6 +8,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"maps"
 	"math"
 	"os"
 	"path/filepath"
@@ -62,6 +63,7 @@ type arrowCase struct {
 	events   int64
 	duration int64
 	nulls    string // one letter per nullable column: n null, v valid
+	variant  string
 }
 
 func readArrowCases(t testing.TB, tbl arrow.Table) []arrowCase {
@@ -82,7 +84,8 @@ func readArrowCases(t testing.TB, tbl arrow.Table) []arrowCase {
 		f := fs[k].(*array.Timestamp)
 		l := ls[k].(*array.Timestamp)
 		for i := 0; i < id.Len(); i++ {
-			c := arrowCase{id: id.Value(i), events: ev.Value(i), duration: int64(l.Value(i)) - int64(f.Value(i))}
+			c := arrowCase{id: id.Value(i), events: ev.Value(i), duration: int64(l.Value(i)) - int64(f.Value(i)),
+				variant: col("variant").Chunks()[k].ValueStr(i)}
 			for _, n := range nullable {
 				if col(n).Chunks()[k].IsNull(i) {
 					c.nulls += "n"
@@ -315,10 +318,17 @@ func TestPatientsLog(t *testing.T) {
 	type span struct{ lo, hi time.Time }
 	spans := map[string]*span{}
 	type inst struct {
-		act          string
+		act, cse     string
 		start, compl *time.Time
 	}
 	insts := map[string]*inst{}
+	// (case, instant) -> the (type, activity) pairs there, for the
+	// same-instant checks.
+	type caseAt struct {
+		c  string
+		at time.Time
+	}
+	atInstant := map[caseAt][][2]string{}
 	for {
 		rec, err := cr.Read()
 		if err == io.EOF {
@@ -332,6 +342,8 @@ func TestPatientsLog(t *testing.T) {
 			t.Fatal(err)
 		}
 		c := rec[idx("patient")]
+		k := caseAt{c, ts}
+		atInstant[k] = append(atInstant[k], [2]string{rec[idx("registration_type")], rec[idx("handling")]})
 		if s := spans[c]; s == nil {
 			spans[c] = &span{ts, ts}
 		} else {
@@ -344,7 +356,7 @@ func TestPatientsLog(t *testing.T) {
 		}
 		in := insts[rec[idx("handling_id")]]
 		if in == nil {
-			in = &inst{act: rec[idx("handling")]}
+			in = &inst{act: rec[idx("handling")], cse: rec[idx("patient")]}
 			insts[rec[idx("handling_id")]] = in
 		}
 		if rec[idx("registration_type")] == "start" {
@@ -371,6 +383,28 @@ func TestPatientsLog(t *testing.T) {
 	}
 	if ur := res.Upload.Report; ur.Cases != q.Cases {
 		t.Errorf("upload report cases %+v, version's %+v", ur.Cases, q.Cases)
+	}
+	// Same instant: every event after the first at one instant of a case.
+	// Same-instant order: those that bound one interval with an event
+	// there, a start and a complete of one activity (a complete of one
+	// step with the start of the next is a handover).
+	var sameAt, sameOrder int64
+	for _, evs := range atInstant {
+		sameAt += int64(len(evs) - 1)
+		for i := 1; i < len(evs); i++ {
+			for _, p := range evs[:i] {
+				if p[1] == evs[i][1] && p[0] != evs[i][0] {
+					sameOrder++
+					break
+				}
+			}
+		}
+	}
+	if got, want := q.Count(quality.CodeSameInstant), sameAt; got != want {
+		t.Errorf("same_instant %d, independent count %d", got, want)
+	}
+	if got, want := q.Count(quality.CodeSameInstantOrder), sameOrder; got != want {
+		t.Errorf("same_instant_order %d, independent count %d (start and complete of one activity at one instant)", got, want)
 	}
 	cs := readArrowCases(t, e.caseTable(t, v))
 	var got []int64
@@ -435,7 +469,48 @@ func TestPatientsLog(t *testing.T) {
 			break
 		}
 	}
-	_ = quality.CodeCaseTooLong
+	// Traces: each activity instance (handling_id) is one step, at its
+	// start; the log has no two starts of a case at one instant. From
+	// memory, the log's R package describes 7 traces for it (not asserted;
+	// the independent reading is).
+	byCase := map[string][]*inst{}
+	for _, in := range insts {
+		byCase[in.cse] = append(byCase[in.cse], in)
+	}
+	variants := map[string]uint64{}
+	follows := map[[2]string]uint64{}
+	for _, l := range byCase {
+		sort.Slice(l, func(i, j int) bool { return l[i].start.Before(*l[j].start) })
+		var seq []string
+		for i, in := range l {
+			seq = append(seq, in.act)
+			if i > 0 {
+				follows[[2]string{l[i-1].act, in.act}]++
+			}
+		}
+		variants[strings.Join(seq, " > ")]++
+	}
+	gotV := map[string]uint64{}
+	for _, v := range s.Process.Variants {
+		gotV[strings.Join(v.Activities, " > ")] = v.Cases
+	}
+	if s.Process.DistinctVariant != uint64(len(variants)) || !maps.Equal(gotV, variants) {
+		t.Errorf("variants %d %v; independent reading by activity instance %d %v", s.Process.DistinctVariant, gotV, len(variants), variants)
+	}
+	gotF := map[[2]string]uint64{}
+	for _, f := range s.Process.DirectlyFollows {
+		gotF[[2]string{f.From, f.To}] = f.Count
+	}
+	if !maps.Equal(gotF, follows) {
+		t.Errorf("directly follows %v; independent reading %v", gotF, follows)
+	}
+	tableVariants := map[string]bool{}
+	for _, c := range cs {
+		tableVariants[c.variant] = true
+	}
+	if len(tableVariants) != len(variants) {
+		t.Errorf("case table: %d distinct variant ids, want %d", len(tableVariants), len(variants))
+	}
 }
 
 // TestCompletionOnlyLog: a log of completions alone, grouped by case (as
@@ -547,5 +622,183 @@ func TestPatientsResourceOverlaps(t *testing.T) {
 	}
 	if got := e.report(t, v).Count(quality.CodeResourceOverlap); got != want {
 		t.Errorf("resource overlaps %d, standard library %d", got, want)
+	}
+}
+
+// TestSepsisMonthlyAppends: the sepsis log (testdata/sepsis, published
+// figures in its README) cut by event month into 19 nightly appends gives
+// the figures of the one-file upload: 1050 cases, the published mean case
+// duration 2459733.94 s, the same case table bytes, the same case-level
+// summary and quality figures. Many of its cases span months, so each
+// append continues cases of earlier ones.
+func TestSepsisMonthlyAppends(t *testing.T) {
+	gz, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "sepsis-cases.csv.gz"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	prof, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "profile.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	zr, err := gzip.NewReader(bytes.NewReader(gz))
+	if err != nil {
+		t.Fatal(err)
+	}
+	raw, err := io.ReadAll(zr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimRight(string(raw), "\r\n"), "\n")
+	head := lines[0]
+	byMonth := map[string][]string{}
+	spanning := map[string]map[string]bool{} // case -> months
+	for _, l := range lines[1:] {
+		f := strings.SplitN(l, ";", 4) // Case ID;Activity;Complete Timestamp;...
+		if len(f) < 4 || len(f[2]) < 7 {
+			t.Fatalf("unexpected row %q", l)
+		}
+		m := f[2][:7] // 2014/10
+		byMonth[m] = append(byMonth[m], l)
+		if spanning[f[0]] == nil {
+			spanning[f[0]] = map[string]bool{}
+		}
+		spanning[f[0]][m] = true
+	}
+	months := slices.Sorted(maps.Keys(byMonth))
+	var multi int
+	for _, ms := range spanning {
+		if len(ms) > 1 {
+			multi++
+		}
+	}
+	if len(months) < 12 || multi < 100 {
+		t.Fatalf("%d months, %d cases spanning months: the split would not test continuation", len(months), multi)
+	}
+	t.Logf("%d monthly files; %d of %d cases span two months or more", len(months), multi, len(spanning))
+
+	e := newEnv(t, func(o *Options) { o.RunEvents = 2000 })
+	e.dataset(t, "h", "one", func(s *DatasetSpec) { s.Profile = prof })
+	e.dataset(t, "h", "monthly", func(s *DatasetSpec) { s.Profile = prof })
+	one := e.ingest(t, "h", "one", gz, "sepsis-cases.csv.gz").Version
+	var last *Version
+	for _, m := range months {
+		body := head + "\n" + strings.Join(byMonth[m], "\n") + "\n"
+		last = e.ingest(t, "h", "monthly", []byte(body), "sepsis-"+strings.ReplaceAll(m, "/", "-")+".csv").Version
+	}
+	if len(last.Manifest.Files) != len(months) {
+		t.Fatalf("monthly version has %d files, want %d", len(last.Manifest.Files), len(months))
+	}
+	if a, b := e.blobBytes(t, one.Manifest.CaseTable.SHA256), e.blobBytes(t, last.Manifest.CaseTable.SHA256); !bytes.Equal(a, b) {
+		t.Error("the case tables of one file and of the monthly appends differ")
+	}
+	q1, qm := e.report(t, one), e.report(t, last)
+	for name, q := range map[string]*quality.Report{"one file": q1, "monthly": qm} {
+		// README: 1050 cases, mean case duration 2459733.94 s.
+		if q.Cases.Count != 1050 || math.Abs(q.Cases.MeanDurationSeconds-2459733.94) > 0.005 {
+			t.Errorf("%s: report cases %+v; published 1050, mean 2459733.94 s", name, q.Cases)
+		}
+	}
+	if q1.Cases != qm.Cases || q1.Stages != qm.Stages || q1.Count(quality.CodeCaseTooLong) != qm.Count(quality.CodeCaseTooLong) ||
+		q1.Count(quality.CodeSameInstant) != qm.Count(quality.CodeSameInstant) || q1.Count(quality.CodeDuplicateCaseTypeTime) != qm.Count(quality.CodeDuplicateCaseTypeTime) {
+		t.Errorf("case-level quality differs:\none %+v %+v\nmonthly %+v %+v", q1.Cases, q1.Stages, qm.Cases, qm.Stages)
+	}
+	ctx := context.Background()
+	var s [2]summary.Summary
+	for i, v := range []struct {
+		ref string
+		n   int
+	}{{"h/one", one.Number}, {"h/monthly", last.Number}} {
+		js, err := e.s.Summary(ctx, v.ref, v.n)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := json.Unmarshal(js, &s[i]); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if s[1].Cases.Value != 1050 || !s[1].Cases.Exact || s[1].LengthOfStay.N != 1050 || math.Abs(s[1].LengthOfStay.Mean-2459733.94) > 0.005 {
+		t.Errorf("monthly summary: cases %+v, stays n %d mean %.4f; published 1050, 2459733.94 s", s[1].Cases, s[1].LengthOfStay.N, s[1].LengthOfStay.Mean)
+	}
+	for _, m := range []struct {
+		name string
+		a, b any
+	}{
+		{"cases", s[0].Cases, s[1].Cases}, {"length_of_stay", s[0].LengthOfStay, s[1].LengthOfStay},
+		{"events_per_case", s[0].EventsPerCase, s[1].EventsPerCase}, {"between_events", s[0].BetweenEvents, s[1].BetweenEvents},
+		{"process", s[0].Process, s[1].Process}, {"resources", s[0].Resources, s[1].Resources},
+		{"arrivals", s[0].Arrivals, s[1].Arrivals}, {"exposure_hours", s[0].ExposureHours, s[1].ExposureHours},
+	} {
+		a, _ := json.Marshal(m.a)
+		b, _ := json.Marshal(m.b)
+		if !bytes.Equal(a, b) {
+			t.Errorf("summary %s differs: one file %.300s, monthly %.300s", m.name, a, b)
+		}
+	}
+}
+
+// TestSepsisMaxCaseDays: case_too_long counts the cases longer than the
+// profile's max_case_days (default 30), equal to a standard-library count
+// over the sepsis log's raw rows (wall clock in Europe/Amsterdam, as its
+// README says).
+func TestSepsisMaxCaseDays(t *testing.T) {
+	gz, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "sepsis-cases.csv.gz"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	prof, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "profile.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	zr, err := gzip.NewReader(bytes.NewReader(gz))
+	if err != nil {
+		t.Fatal(err)
+	}
+	raw, err := io.ReadAll(zr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ams, err := time.LoadLocation("Europe/Amsterdam")
+	if err != nil {
+		t.Fatal(err)
+	}
+	lo, hi := map[string]time.Time{}, map[string]time.Time{}
+	for _, l := range strings.Split(strings.TrimRight(string(raw), "\r\n"), "\n")[1:] {
+		f := strings.SplitN(l, ";", 4)
+		at, err := time.ParseInLocation("2006/01/02 15:04:05.000", f[2], ams)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if x, ok := lo[f[0]]; !ok || at.Before(x) {
+			lo[f[0]] = at
+		}
+		if x, ok := hi[f[0]]; !ok || at.After(x) {
+			hi[f[0]] = at
+		}
+	}
+	longer := func(days int) (n int64) {
+		for c := range lo {
+			if hi[c].Sub(lo[c]) > time.Duration(days)*24*time.Hour {
+				n++
+			}
+		}
+		return n
+	}
+	e := newEnv(t, nil)
+	for _, c := range []struct {
+		name string
+		days int // 0: the default, 30
+		line string
+	}{{"default", 30, ""}, {"year", 365, "max_case_days: 365\n"}, {"week", 7, "max_case_days: 7\n"}} {
+		e.dataset(t, "h", c.name, func(s *DatasetSpec) { s.Profile = append([]byte(c.line), prof...) })
+		v := e.ingest(t, "h", c.name, gz, "sepsis-cases.csv.gz").Version
+		q := e.report(t, v)
+		want := longer(c.days)
+		if got := q.Count(quality.CodeCaseTooLong); got != want || want == 0 || want == 1050 {
+			t.Errorf("%s: case_too_long %d, standard library %d cases longer than %d days", c.name, got, want, c.days)
+		}
+		if q.Raw.Settings.MaxCaseSeconds != float64(c.days*86400) {
+			t.Errorf("%s: report settings max_case_seconds %v, want %d", c.name, q.Raw.Settings.MaxCaseSeconds, c.days*86400)
+		}
+		t.Logf("max %d days: %d of 1050 cases longer", c.days, want)
 	}
 }

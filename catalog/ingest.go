@@ -175,7 +175,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	raw := &hashCounter{h: sha256.New()}
 	st.ds, st.up, st.raw = ds, &up, raw
 	tee := io.TeeReader(src, raw)
-	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity}
+	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity, MaxCase: prof.MaxCase()}
 	if ds.WindowFrom != nil {
 		qopt.WindowFrom = *ds.WindowFrom
 	}
@@ -541,34 +541,99 @@ func (s *Store) appendedBefore(ctx context.Context, ds *Dataset, hexDigest strin
 // readAll reads every row of rd: rejections go to acc, accepted events are
 // pseudonymized and handed to srt. File errors are returned as they come.
 func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer, acc *quality.Accumulator, srt *sorter) error {
-	var e schema.Event
-	for n := 0; ; n++ {
-		if n&4095 == 0 {
-			if err := ctx.Err(); err != nil {
+	// The rows are parsed on another goroutine, in batches, so that parsing
+	// and pseudonymizing use both cores; the batches come back in file
+	// order and are reused, so memory stays a few batches.
+	full := make(chan *readBatch, readAhead)
+	free := make(chan *readBatch, readAhead+2)
+	stop := make(chan struct{})
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		defer close(full)
+		for {
+			var b *readBatch
+			select {
+			case b = <-free:
+			default:
+				b = &readBatch{evs: make([]schema.Event, 0, readBatchRows), rejs: make([]*schema.Rejection, 0, readBatchRows)}
+			}
+			b.evs, b.rejs, b.err = b.evs[:0], b.rejs[:0], nil
+			for len(b.evs) < readBatchRows {
+				b.evs = append(b.evs, schema.Event{})
+				rej, err := rd.Next(&b.evs[len(b.evs)-1])
+				if err != nil {
+					b.evs, b.err = b.evs[:len(b.evs)-1], err
+					break
+				}
+				b.rejs = append(b.rejs, rej)
+			}
+			select {
+			case full <- b:
+			case <-stop:
+				return
+			}
+			if b.err != nil {
+				return
+			}
+		}
+	}()
+	defer func() {
+		close(stop)
+		for range full {
+		}
+		<-done
+	}()
+	for b := range full {
+		for i := range b.evs {
+			if b.rejs[i] != nil {
+				acc.Reject(*b.rejs[i])
+				continue
+			}
+			e := &b.evs[i]
+			pz.Apply(e)
+			// Snapshots keep microseconds; truncate before any comparison so
+			// quality, sort order and the file agree.
+			e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
+			acc.ObserveFileOrder(e)
+			if err := srt.Add(e); err != nil {
 				return err
 			}
 		}
-		rej, err := rd.Next(&e)
-		if err == io.EOF {
+		if b.err == io.EOF {
 			return nil
 		}
-		if err != nil {
+		if b.err != nil {
+			// The reader's own error first: a stalled body's timeout also
+			// ends the context, and the timeout is what to report.
+			return b.err
+		}
+		if err := ctx.Err(); err != nil {
 			return err
 		}
-		if rej != nil {
-			acc.Reject(*rej)
-			continue
-		}
-		pz.Apply(&e)
-		// Snapshots keep microseconds; truncate before any comparison so
-		// quality, sort order and the file agree.
-		e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
-		acc.ObserveFileOrder(&e)
-		if err := srt.Add(&e); err != nil {
-			return err
+		clear(b.evs) // drop the strings before the batch waits for reuse
+		select {
+		case free <- b:
+		default:
 		}
 	}
+	return nil
 }
+
+// readBatch is a batch of rows parsed ahead: each is an event, or a
+// rejection where rejs[i] is not nil; err ends the file (io.EOF or a
+// file error) after the rows before it.
+type readBatch struct {
+	evs  []schema.Event
+	rejs []*schema.Rejection
+	err  error
+}
+
+// Rows per parsed batch and batches parsed ahead of the pseudonymizer.
+const (
+	readBatchRows = 512
+	readAhead     = 4
+)
 
 // mappedFields lists the fields a profile fills on purpose, for the
 // completeness score; the default profile's columns are all optional, so

@@ -86,6 +86,24 @@ func (st *caseState) seen(ti int, act string) bool {
 	return false
 }
 
+// bounds reports whether an event of type ti and activity act, at the
+// latest instant, would bound one interval with an event seen there: a
+// start and a complete bound a service only within one activity (the
+// complete of one step and the start of the next at one instant are a
+// plain handover), the other pairs bound case-level intervals. Past
+// maxSeenAt pairs it answers by type alone.
+func (st *caseState) bounds(ti int, act string) bool {
+	if ti != tStart && ti != tComplete || len(st.seenAt) >= maxSeenAt {
+		return true
+	}
+	for _, x := range st.seenAt {
+		if conflicts[ti]&(1<<x.ti) != 0 && x.activity == act {
+			return true
+		}
+	}
+	return false
+}
+
 const (
 	csArr             uint32 = 1 << iota // stage coverage: an arrival was seen
 	csStart                              // ... a start
@@ -258,7 +276,7 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 	} else {
 		if st.rec == at {
 			a.flag(s, cSameInstant, e)
-			if st.typesAt&conflicts[ti] != 0 {
+			if st.typesAt&conflicts[ti] != 0 && st.bounds(ti, e.Activity) {
 				a.flag(s, cSameInstantOrder, e)
 				acc = true
 			}

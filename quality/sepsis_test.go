@@ -7,7 +7,9 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"regexp"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
@@ -139,6 +141,14 @@ func TestSepsis(t *testing.T) {
 	// Only completes: no order conflicts, no arrivals, no waits.
 	if r.Count(CodeSameInstantOrder) != 0 || r.Stages.Arrival != 0 || len(r.Waits) != 0 {
 		t.Errorf("order conflicts %d, stages %+v, waits %v", r.Count(CodeSameInstantOrder), r.Stages, r.Waits)
+	}
+	// No case leaves, so the text shows no census figures for Little's law.
+	var txt strings.Builder
+	if err := r.Text(&txt, false); err != nil {
+		t.Fatal(err)
+	}
+	if !regexp.MustCompile(`(?m)^sepsis\s+-\s+-\s+-\s+not judged: no case leaves`).MatchString(txt.String()) {
+		t.Errorf("Little's law row of a log where nothing leaves:\n%s", txt.String())
 	}
 	// 1050 cases (the log's published figure, README); cases longer than
 	// 30 days, counted here.

@@ -76,6 +76,11 @@ func (r *Report) Text(w io.Writer, color bool) error {
 		if l.Exits == 0 && l.Entries == 0 {
 			continue
 		}
+		if l.Exits == 0 {
+			// Nothing leaves, so the census only grows: no figure to show.
+			lrows = append(lrows, []string{l.Site, "-", "-", "-", "not judged: no case leaves (no departure, abandon, final transfer or terminal type)"})
+			continue
+		}
 		mark := "not judged"
 		if l.Judged {
 			mark = "ok"

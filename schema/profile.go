@@ -92,9 +92,21 @@ type Profile struct {
 	// ResourceCapacity is how many cases one resource may serve at once
 	// (0: the quality model's default, 1).
 	ResourceCapacity int `json:"resource_capacity,omitempty"`
+	// MaxCaseDays is the longest plausible case, first to last event, in
+	// days (0: the quality model's default, 30): a hospital whose stays
+	// run for months declares more, so that case_too_long counts what it
+	// says.
+	MaxCaseDays int `json:"max_case_days,omitempty"`
 
 	loc *time.Location
 }
+
+// MaxCaseDaysLimit bounds a profile's max_case_days (a century).
+const MaxCaseDaysLimit = 36500
+
+// MaxCase is the profile's longest plausible case (0: the quality model's
+// default).
+func (p *Profile) MaxCase() time.Duration { return time.Duration(p.MaxCaseDays) * 24 * time.Hour }
 
 // Multiline bounds a record whose quoted fields hold line breaks.
 type Multiline struct {
@@ -309,6 +321,16 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number from 1 to 1000", clip(s))}
 			}
 			p.ResourceCapacity = n
+		case "max_case_days":
+			s, err := scalar(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			n, err := strconv.Atoi(s)
+			if err != nil || n < 1 || n > MaxCaseDaysLimit {
+				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number of days from 1 to %d", clip(s), MaxCaseDaysLimit)}
+			}
+			p.MaxCaseDays = n
 		case "terminal":
 			ts, err := terminalTypes(kv.value, kv.key)
 			if err != nil {
@@ -316,7 +338,7 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 			}
 			p.Terminal = ts
 		default:
-			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity or fields)"}
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity, max_case_days or fields)"}
 		}
 	}
 	if fieldsNode == nil {
@@ -511,6 +533,9 @@ func (p *Profile) validate(lines map[string]int) error {
 	}
 	if p.ResourceCapacity < 0 || p.ResourceCapacity > 1000 {
 		return at("resource_capacity", "want a whole number from 1 to 1000")
+	}
+	if p.MaxCaseDays < 0 || p.MaxCaseDays > MaxCaseDaysLimit {
+		return at("max_case_days", fmt.Sprintf("want a whole number of days from 1 to %d", MaxCaseDaysLimit))
 	}
 	for _, t := range p.Terminal {
 		if !t.Valid() || t == Arrival || t == Enqueue {

@@ -259,11 +259,19 @@ func TestProfileTerminal(t *testing.T) {
 	if p, err := ParseProfile([]byte("resource_capacity: 3\n" + base)); err != nil || p.ResourceCapacity != 3 {
 		t.Errorf("resource_capacity: %v %v", p, err)
 	}
-	for _, bad := range []string{"terminal: [arrival]\n", "terminal: [closed]\n", "terminal: [enqueue]\n", "resource_capacity: 0\n", "resource_capacity: two\n"} {
+	if p, err := ParseProfile([]byte("max_case_days: 400\n" + base)); err != nil || p.MaxCaseDays != 400 || p.MaxCase() != 400*24*time.Hour {
+		t.Errorf("max_case_days: %v %v", p, err)
+	}
+	if strings.Contains(string(mustJSON(t, q)), "max_case_days") {
+		t.Error("max_case_days key in a profile without one")
+	}
+	for _, bad := range []string{"terminal: [arrival]\n", "terminal: [closed]\n", "terminal: [enqueue]\n", "resource_capacity: 0\n", "resource_capacity: two\n",
+		"max_case_days: 0\n", "max_case_days: 36501\n", "max_case_days: 30d\n"} {
 		_, err := ParseProfile([]byte(bad + base))
 		var pe *ProfileError
-		if !errors.As(err, &pe) || (pe.Key != "terminal" && pe.Key != "resource_capacity") {
-			t.Errorf("%q: %v, want an error on terminal", bad, err)
+		key := strings.SplitN(bad, ":", 2)[0]
+		if !errors.As(err, &pe) || pe.Key != key || !strings.Contains(err.Error(), key) {
+			t.Errorf("%q: %v, want an error naming %s", bad, err, key)
 		}
 	}
 }

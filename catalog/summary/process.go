@@ -29,13 +29,14 @@ const (
 // up to the caps. Per-activity counts and service durations are the
 // summary's `activities`.
 type Process struct {
-	// DirectlyFollows are the pairs of activities one after the other in
-	// a case (events without an activity are skipped), most frequent
-	// first, with the time between them.
+	// DirectlyFollows are the pairs of steps one after the other in a
+	// case, most frequent first, with the time between them. A step is an
+	// activity instance (cases.Steps): a complete event, or a start with
+	// its complete; events without an activity are skipped.
 	DirectlyFollows []Follows `json:"directly_follows"`
 	OtherFollows    uint64    `json:"other_follows"` // pairs beyond MaxFollows
-	// Variants are the most frequent traces (the case's activity
-	// sequence), at most TopVariants, with their cases and share of all
+	// Variants are the most frequent traces (the case's sequence of
+	// steps), at most TopVariants, with their cases and share of all
 	// cases.
 	Variants        []Variant `json:"variants"`
 	DistinctVariant uint64    `json:"distinct_variants"` // up to MaxVariants
@@ -95,7 +96,8 @@ type ProcessObserver struct {
 	otherW    uint64
 	hand      map[[2]string]uint64
 	otherH    uint64
-	seq       []string // activities of the case in hand
+	seq       []string    // steps of the case in hand (cases.Steps)
+	steps     cases.Steps // which of its events are steps
 	lastAct   string
 	lastActAt int64
 	hasAct    bool
@@ -116,7 +118,7 @@ func (a *Accumulator) NewProcess() *ProcessObserver {
 // Event is part of [cases.Observer].
 func (p *ProcessObserver) Event(e *schema.Event) {
 	at := e.OccurredAt.UnixMicro()
-	if e.Activity != "" {
+	if p.steps.Step(e) {
 		if p.hasAct {
 			k := [2]string{p.lastAct, e.Activity}
 			d := p.follows[k]
@@ -184,6 +186,7 @@ func (p *ProcessObserver) Case(*cases.Record) {
 		p.otherV++
 	}
 	p.seq = p.seq[:0]
+	p.steps.Reset()
 	p.hasAct, p.lastAct, p.lastRes = false, "", ""
 }
 

@@ -9,6 +9,7 @@ import (
 	"io"
 	"math"
 	"os"
+	"regexp"
 	"slices"
 	"strings"
 	"testing"
@@ -353,6 +354,23 @@ func TestSepsis(t *testing.T) {
 	}
 	if total != 1050 || len(s.LengthOfStay.Histogram.Edges) != len(s.LengthOfStay.Histogram.Counts)+1 {
 		t.Errorf("histogram %+v", s.LengthOfStay.Histogram)
+	}
+	// The text says what cannot be measured and prints no zeros for it: a
+	// completion-only log has no service rows and no census figures.
+	var b strings.Builder
+	if err := s.Text(&b, false); err != nil {
+		t.Fatal(err)
+	}
+	out := b.String()
+	for _, bad := range []string{"\nService\n", "Little: L (census)", "peak (bucket mean)", "littles_law"} {
+		if strings.Contains(out, bad) {
+			t.Errorf("text holds %q:\n%s", bad, out)
+		}
+	}
+	for _, want := range []string{`Services\s+not measurable`, `Little's law\s+not measurable`, `In system\nnot measurable`} {
+		if !regexp.MustCompile(want).MatchString(out) {
+			t.Errorf("text lacks %q:\n%s", want, out)
+		}
 	}
 }
 

@@ -3,6 +3,7 @@ package summary
 import (
 	"fmt"
 	"io"
+	"slices"
 	"strings"
 	"text/tabwriter"
 	"time"
@@ -90,10 +91,13 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 				dur(q.Wait.P90), dur(q.Wait.P95), dur(q.Wait.P99), 100*q.Wait.AbandonShare, med)
 		}
 	}
-	if len(s.Activities) > 0 {
+	// Activities without a measured service have no row: zeros would
+	// read as instant services (their figure is "not measurable" below).
+	measured := slices.DeleteFunc(slices.Clone(s.Activities), func(a ActivitySummary) bool { return a.Service.N == 0 })
+	if len(measured) > 0 {
 		p("\n%s\n", bold("Service"))
 		p("activity\tn\tmean\tp50\tp90\tlognormal (meanlog, sdlog, KS)\n")
-		for _, a := range s.Activities {
+		for _, a := range measured {
 			ln := "-"
 			if a.Lognormal != nil {
 				ln = fmt.Sprintf("%.3f, %.3f, %.3f", a.Lognormal.MeanLog, a.Lognormal.SDLog, a.Lognormal.KS)
@@ -101,8 +105,12 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 			p("%s\t%d\t%s\t%s\t%s\t%s\n", a.Name, a.Service.N, dur(a.Service.Mean), dur(a.Service.P50), dur(a.Service.P90), ln)
 		}
 	}
+	noCensus := ""
 	for _, nm := range s.NotMeasurable {
-		p("\n%s\tnot measurable: %s\n", bold(strings.ToUpper(nm.Figure[:1])+nm.Figure[1:]), nm.Why)
+		p("\n%s\tnot measurable: %s\n", bold(figureLabel(nm.Figure)), nm.Why)
+		if nm.Figure == "littles_law" {
+			noCensus = nm.Why
+		}
 	}
 	l := s.LengthOfStay
 	p("\n%s\n", bold("Case duration (first to last event)"))
@@ -115,9 +123,15 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 	}
 	o := s.Occupancy
 	p("\n%s\n", bold("In system"))
-	p("by hour of week\t%s\n", sparkline(o.HourOfWeek))
-	p("peak (bucket mean)\t%.2f\n", o.Peak)
-	p("Little: L (census)\t%.3f\tλW (stays)\t%.3f\tratio\t%.4f\tentries\t%d\texits\t%d\topen\t%d\n", o.Little.L, o.Little.LambdaW, o.Little.Ratio, o.Little.Entries, o.Little.Exits, o.Little.Open)
+	if noCensus != "" {
+		// Cases that never leave would pile up in the census: its curve and
+		// L would count the log's length, not the cases present.
+		p("not measurable: %s\n", noCensus)
+	} else {
+		p("by hour of week\t%s\n", sparkline(o.HourOfWeek))
+		p("peak (bucket mean)\t%.2f\n", o.Peak)
+		p("Little: L (census)\t%.3f\tλW (stays)\t%.3f\tratio\t%.4f\tentries\t%d\texits\t%d\topen\t%d\n", o.Little.L, o.Little.LambdaW, o.Little.Ratio, o.Little.Entries, o.Little.Exits, o.Little.Open)
+	}
 	if pr := s.Process; pr != nil {
 		if len(pr.DirectlyFollows) > 0 {
 			p("\n%s\n", bold("Directly follows (top 10)"))
@@ -140,4 +154,17 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 		}
 	}
 	return tw.Flush()
+}
+
+// figureLabel is the heading of a figure named in NotMeasurable.
+func figureLabel(figure string) string {
+	switch figure {
+	case "littles_law":
+		return "Little's law"
+	case "waits":
+		return "Waits"
+	case "services":
+		return "Services"
+	}
+	return strings.ToUpper(figure[:1]) + figure[1:]
 }

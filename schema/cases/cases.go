@@ -154,6 +154,7 @@ type Builder struct {
 	sites    []string
 	acts     map[string]struct{}
 	variant  hashState
+	steps    Steps // which events are steps of the variant
 	anchor   int64
 	anchorQ  string
 	anchorOK bool
@@ -221,7 +222,9 @@ func (b *Builder) Add(e *schema.Event) {
 		if _, ok := b.acts[e.Activity]; !ok && len(b.acts) < MaxActivities {
 			b.acts[strings.Clone(e.Activity)] = struct{}{}
 		}
-		b.variant.add(e.Activity)
+		if b.steps.Step(e) {
+			b.variant.add(e.Activity)
+		}
 	}
 	for _, o := range b.obs {
 		o.Event(e)
@@ -260,6 +263,7 @@ func (b *Builder) begin(e *schema.Event, at int64) {
 	b.sites = b.sites[:0]
 	clear(b.acts)
 	b.variant.reset()
+	b.steps.Reset()
 	b.anchorOK, b.firstAnc = false, nil
 	b.open = b.open[:0]
 	b.svcSum, b.svcN = 0, 0
@@ -534,7 +538,7 @@ var RowColumns = []struct{ Name, Type, Meaning string }{
 	{"stay_seconds", "double, null", "end_at minus arrival_at"},
 	{"outcome", "string", "served, abandoned, transferred, left_unserved or open"},
 	{"activities", "int32", "distinct activities"},
-	{"variant", "string", "16 hex digits: a hash of its ordered activity sequence"},
+	{"variant", "string", "16 hex digits: a hash of its ordered activity sequence, one step per activity instance"},
 }
 
 // Row returns r in the case table's layout.

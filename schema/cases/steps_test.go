@@ -1,0 +1,37 @@
+package cases
+
+import (
+	"testing"
+
+	"github.com/flowcat-catalog/flowcat/schema"
+)
+
+func TestSteps(t *testing.T) {
+	ev := func(typ schema.EventType, act string) *schema.Event { return &schema.Event{Type: typ, Activity: act} }
+	var s Steps
+	// Overlapping instances of two activities: one step each, at the start.
+	for i, c := range []struct {
+		e    *schema.Event
+		step bool
+	}{
+		{ev(schema.Arrival, ""), false},
+		{ev(schema.Start, "registration"), true},
+		{ev(schema.Start, "triage"), true},
+		{ev(schema.Complete, "registration"), false},
+		{ev(schema.Complete, "triage"), false},
+		{ev(schema.Complete, "lab"), true}, // completion only: a step
+		{ev(schema.Start, "triage"), true}, // a second instance
+		{ev(schema.Start, "triage"), true}, // a third, in parallel
+		{ev(schema.Complete, "triage"), false},
+		{ev(schema.Complete, "triage"), false},
+		{ev(schema.Complete, "triage"), true}, // no start left open
+	} {
+		if got := s.Step(c.e); got != c.step {
+			t.Errorf("event %d (%s %s): step %v, want %v", i, c.e.Type, c.e.Activity, got, c.step)
+		}
+	}
+	s.Reset()
+	if !s.Step(ev(schema.Complete, "registration")) {
+		t.Error("after Reset a complete without a start is a step")
+	}
+}
