@@ -92,6 +92,14 @@ type Profile struct {
 	// ResourceCapacity is how many cases one resource may serve at once
 	// (0: the quality model's default, 1).
 	ResourceCapacity int `json:"resource_capacity,omitempty"`
+	// Attributes are extra columns kept per case, with their disclosure
+	// role and generalization (attributes.go); sorted by name.
+	Attributes []Attribute `json:"attributes,omitempty"`
+	// Drop lists free-text columns the profile declares and drops.
+	Drop []string `json:"drop,omitempty"`
+	// TimeShiftDays, when set, moves every event time of a subject by one
+	// keyed offset of whole days in [-TimeShiftDays, TimeShiftDays].
+	TimeShiftDays int `json:"time_shift_days,omitempty"`
 
 	loc *time.Location
 }
@@ -145,6 +153,7 @@ func (p *Profile) clone() *Profile {
 		ml := *p.Multiline
 		q.Multiline = &ml
 	}
+	q.Attributes = slices.Clone(p.Attributes)
 	return &q
 }
 
@@ -309,6 +318,24 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number from 1 to 1000", clip(s))}
 			}
 			p.ResourceCapacity = n
+		case "attributes":
+			if p.Attributes, err = parseAttributes(kv.value, lines); err != nil {
+				return nil, err
+			}
+		case "drop":
+			if p.Drop, err = parseColumnList(kv.value, kv.key); err != nil {
+				return nil, err
+			}
+		case "time_shift_days":
+			s, err := scalar(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			n, err := strconv.Atoi(s)
+			if err != nil || n < 1 || n > 3660 {
+				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number of days from 1 to 3660", clip(s))}
+			}
+			p.TimeShiftDays = n
 		case "terminal":
 			ts, err := terminalTypes(kv.value, kv.key)
 			if err != nil {
@@ -316,7 +343,7 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 			}
 			p.Terminal = ts
 		default:
-			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity or fields)"}
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity, fields, attributes, drop or time_shift_days)"}
 		}
 	}
 	if fieldsNode == nil {
@@ -511,6 +538,9 @@ func (p *Profile) validate(lines map[string]int) error {
 	}
 	if p.ResourceCapacity < 0 || p.ResourceCapacity > 1000 {
 		return at("resource_capacity", "want a whole number from 1 to 1000")
+	}
+	if err := p.validateAttributes(at); err != nil {
+		return err
 	}
 	for _, t := range p.Terminal {
 		if !t.Valid() || t == Arrival || t == Enqueue {
