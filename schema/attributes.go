@@ -301,6 +301,9 @@ func (a *Attribute) Generalize(raw string, shift time.Duration) (string, error) 
 	if v == "" {
 		return "", nil
 	}
+	if strings.IndexByte(v, 0) >= 0 {
+		return "", fmt.Errorf("attribute %s: the value holds a NUL byte (0x00)", a.Name)
+	}
 	switch a.Type {
 	case TypeCode:
 		if len(v) > MaxCodeBytes || strings.ContainsAny(v, "\r\n") || words(v) > 3 {
