@@ -53,7 +53,7 @@ func TestAgeSafeHarbor(t *testing.T) {
 func TestDatePeriods(t *testing.T) {
 	for _, c := range []struct {
 		in, period, want string
-		shift          time.Duration
+		shift            time.Duration
 	}{
 		{"2023-07-19", PeriodYear, "2023-01-01", 0},
 		{"2023-12-31", PeriodYear, "2023-01-01", 0},
