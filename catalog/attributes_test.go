@@ -279,3 +279,101 @@ func (e *env) pseudo(t *testing.T, raw string) string {
 	}
 	return pz.Pseudonym("case_id", raw)
 }
+
+// Planted raw attribute values (exact ages over 89, a full postal code,
+// free text in a dropped column and in a code attribute, a malformed age)
+// appear nowhere on disk, in the logs or in what the catalog returns.
+func TestAttributeLeakScan(t *testing.T) {
+	e := newEnv(t, func(o *Options) { o.RunEvents = 4 }) // spill the sorts too
+	e.dataset(t, "p", "d", func(s *DatasetSpec) {
+		s.Profile = []byte(attrProfile)
+		r := 0.5
+		s.RejectAbove = &r
+	})
+	ctx := context.Background()
+	const freeText = "PLANTED free text: the patient mentioned her neighbour"
+	const freeDX = "PLANTED-DX patient said it hurt a lot"
+	const badAge = "PLANTED-AGE-X"
+	data := attrCSV(attrCases, 2, freeText)
+	data = append(data, fmt.Sprintf("c1,p1,start,2026-03-02T08:30:00Z,42,F,02139,2026-03-17,%s,3,\n", freeDX)...)
+	data = append(data, fmt.Sprintf("c2,p2,start,2026-03-02T09:30:00Z,%s,F,02141,2026-03-02,B,1,\n", badAge)...)
+	res, err := e.s.Ingest(ctx, "p", "d", bytes.NewReader(data), IngestOptions{Filename: "night.csv", By: "site"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if res.Upload.Report.Rows.Rejected != 2 {
+		t.Fatalf("%d rows rejected, want the free-text diagnosis and the bad age", res.Upload.Report.Rows.Rejected)
+	}
+	needles := []string{"93.0625", "101.5", "02139-4307", "02141", "02139", "PLANTED"}
+	for _, h := range grepDir(t, e.dir, needles) {
+		t.Error(h)
+	}
+	out, _ := json.Marshal(res)
+	rep, v, err := e.s.DisclosureReport(ctx, "p", "d", 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	vj, _ := json.Marshal(v)
+	ups, _ := e.s.Uploads(ctx, "p", "d")
+	uj, _ := json.Marshal(ups)
+	for what, s := range map[string]string{"logs": e.logs.String(), "result": string(out), "report": string(rep), "version": string(vj), "uploads": string(uj)} {
+		mustContainNone(t, what, s, needles)
+	}
+	if !strings.Contains(string(vj), `"rule":"first 3 characters kept"`) {
+		t.Errorf("the manifest does not describe the zip rule: %s", vj)
+	}
+}
+
+// A keyed time shift moves every event of a subject by one whole number
+// of days and keeps every interval within the subject.
+func TestTimeShift(t *testing.T) {
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "d", func(s *DatasetSpec) {
+		s.Profile = []byte("fields:\n  site: {value: north}\n  case_id: case\n  subject_id: person\n  event_type: type\n  occurred_at: at\ntime_shift_days: 60\n")
+	})
+	var b strings.Builder
+	b.WriteString("case,person,type,at\n")
+	raw := map[string][]time.Time{}
+	for i := range 40 {
+		subj := fmt.Sprint("s", i%10)
+		at := time.Date(2026, 3, 1+i%20, 7+i%5, 13, 0, 0, time.UTC)
+		for j, typ := range []string{"arrival", "start", "departure"} {
+			ts := at.Add(time.Duration(j*17) * time.Minute)
+			fmt.Fprintf(&b, "k%d,%s,%s,%s\n", i, subj, typ, ts.Format(time.RFC3339))
+			raw[subj] = append(raw[subj], ts)
+		}
+	}
+	res := e.ingest(t, "p", "d", []byte(b.String()), "s.csv")
+	evs := readEvents(t, e.blobBytes(t, res.Version.Manifest.Files[0].SHA256))
+	got := map[string][]time.Time{}
+	for _, ev := range evs {
+		got[ev.SubjectID] = append(got[ev.SubjectID], ev.OccurredAt)
+	}
+	proj, _ := e.s.Project(context.Background(), "p")
+	pz, err := anonymize.OpenProjectKey(e.master, "p", proj.Key)
+	if err != nil {
+		t.Fatal(err)
+	}
+	offsets := map[time.Duration]bool{}
+	for subj, ts := range raw {
+		g := got[pz.Pseudonym("subject_id", subj)]
+		slices.SortFunc(ts, time.Time.Compare)
+		slices.SortFunc(g, time.Time.Compare)
+		if len(g) != len(ts) {
+			t.Fatalf("subject %s: %d events, want %d", subj, len(g), len(ts))
+		}
+		d := g[0].Sub(ts[0])
+		if d%(24*time.Hour) != 0 || d.Abs() > 60*24*time.Hour {
+			t.Errorf("subject %s moved by %v", subj, d)
+		}
+		for i := range ts {
+			if g[i].Sub(ts[i]) != d {
+				t.Errorf("subject %s: event %d moved by %v, the first by %v", subj, i, g[i].Sub(ts[i]), d)
+			}
+		}
+		offsets[d] = true
+	}
+	if len(offsets) < 5 {
+		t.Errorf("ten subjects got only %d distinct offsets", len(offsets))
+	}
+}
