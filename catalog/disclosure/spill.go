@@ -21,14 +21,16 @@ const maxFanIn = 64
 // Counter counts occurrences of strings exactly with bounded memory: it
 // holds a map of up to max bytes of keys, spills it as a sorted run of
 // (key, count) to a temporary file when full, and yields the keys in
-// order with their summed counts by merging the runs. Keys are
+// order with their summed counts by merging the runs. A run's file is
+// closed once written and opened again only to merge (at most maxFanIn
+// at once), so many counters may spill side by side. Keys are
 // generalized attribute values, never raw identifiers.
 type Counter struct {
 	dir   string
 	max   int
 	m     map[string]uint64
 	bytes int
-	runs  []*os.File
+	runs  []string // paths of the spilled runs
 }
 
 // NewCounter returns a counter that spills to dir past max bytes of keys.
@@ -63,7 +65,8 @@ func (c *Counter) spill() error {
 	if err != nil {
 		return fmt.Errorf("disclosure: %w", err)
 	}
-	c.runs = append(c.runs, f)
+	c.runs = append(c.runs, f.Name())
+	defer f.Close()
 	w := bufio.NewWriterSize(f, spillBuf)
 	keys := make([]string, 0, len(c.m))
 	for k := range c.m {
@@ -78,6 +81,9 @@ func (c *Counter) spill() error {
 		}
 	}
 	if err := w.Flush(); err != nil {
+		return fmt.Errorf("disclosure: %w", err)
+	}
+	if err := f.Close(); err != nil {
 		return fmt.Errorf("disclosure: %w", err)
 	}
 	clear(c.m)
@@ -127,16 +133,17 @@ func (c *Counter) Each(fn func(key string, n uint64) error) error {
 		if err == nil {
 			err = w.Flush()
 		}
+		if cerr := f.Close(); err == nil {
+			err = cerr
+		}
 		if err != nil {
-			f.Close()
 			os.Remove(f.Name())
 			return fmt.Errorf("disclosure: %w", err)
 		}
 		for _, g := range c.runs[:maxFanIn] {
-			g.Close()
-			os.Remove(g.Name())
+			os.Remove(g)
 		}
-		c.runs = append(slices.Delete(c.runs, 0, maxFanIn), f)
+		c.runs = append(slices.Delete(c.runs, 0, maxFanIn), f.Name())
 	}
 	if err := merge(c.runs, fn); err != nil {
 		return fmt.Errorf("disclosure: %w", err)
@@ -148,8 +155,7 @@ func (c *Counter) Each(fn func(key string, n uint64) error) error {
 func (c *Counter) Close() error {
 	var errs []error
 	for _, f := range c.runs {
-		f.Close()
-		if err := os.Remove(f.Name()); err != nil && !errors.Is(err, os.ErrNotExist) {
+		if err := os.Remove(f); err != nil && !errors.Is(err, os.ErrNotExist) {
 			errs = append(errs, err)
 		}
 	}
@@ -197,12 +203,14 @@ func (h *runHeap) Pop() any {
 
 // merge merges sorted runs of (key, count), calling fn once per distinct
 // key in order with the summed count.
-func merge(runs []*os.File, fn func(string, uint64) error) error {
+func merge(runs []string, fn func(string, uint64) error) error {
 	h := make(runHeap, 0, len(runs))
-	for _, f := range runs {
-		if _, err := f.Seek(0, io.SeekStart); err != nil {
+	for _, name := range runs {
+		f, err := os.Open(name)
+		if err != nil {
 			return err
 		}
+		defer f.Close()
 		r := &run{r: bufio.NewReaderSize(f, spillBuf)}
 		ok, err := r.next()
 		if err != nil {
