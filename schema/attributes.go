@@ -306,7 +306,7 @@ func (a *Attribute) Generalize(raw string, shift time.Duration) (string, error) 
 	}
 	switch a.Type {
 	case TypeCode:
-		if len(v) > MaxCodeBytes || strings.ContainsAny(v, "\r\n") || words(v) > 3 {
+		if freeText(v) {
 			return "", fmt.Errorf("attribute %s: the value reads as free text (over %d bytes, a line break or more than three words); free text is not kept", a.Name, MaxCodeBytes)
 		}
 		if a.Keep > 0 && utf8.RuneCountInString(v) > a.Keep {

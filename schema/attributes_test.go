@@ -211,3 +211,47 @@ func mustCSV(t *testing.T, p *Profile) *Profile {
 	q.Format, q.Delimiter, q.Quote = FormatCSV, "", ""
 	return q
 }
+
+// With attributes declared, a column neither mapped nor dropped that
+// holds free text refuses the file, naming the column and the line but
+// not the text; short codes in such a column pass (and are not kept).
+func TestUndeclaredFreeText(t *testing.T) {
+	p, err := ParseProfile([]byte("fields:\n  site: {value: A}\n  case_id: id\n  event_type: {value: arrival}\n  occurred_at: ts\nattributes:\n  age: {column: AGE, role: quasi, type: age}\ndrop: [NOTES]\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	const secret = "she told the nurse about her neighbour"
+	for _, c := range []struct {
+		src  string
+		line int64
+		col  string
+	}{
+		{"id,ts,AGE,NOTES,WARD\nc1,2024-01-01T10:00:00Z,40," + secret + ",W1\nc2,2024-01-01T10:00:00Z,40,x,W2 east wing by the stairs\n", 3, "WARD"},
+		{"id,ts,AGE,COMMENT\nc1,2024-01-01T10:00:00Z,40,ok\nc2,2024-01-01T10:00:00Z,40," + secret + "\n", 3, "COMMENT"},
+	} {
+		rd, err := NewReader(strings.NewReader(c.src), p, ReaderOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var e Event
+		for err == nil {
+			_, err = rd.Next(&e)
+		}
+		fe, ok := AsFileError(err)
+		if !ok || fe.Rule != RuleFreeText || fe.Line != c.line || fe.Column != c.col || strings.Contains(fe.Error(), "neighbour") || strings.Contains(fe.Error(), "stairs") {
+			t.Errorf("%v; want free_text at line %d, column %s, no value quoted", err, c.line, c.col)
+		}
+	}
+	// JSON Lines too.
+	q := p.clone()
+	q.Format, q.Delimiter, q.Quote, q.Multiline = FormatJSONL, "", "", nil
+	rd, err := NewReader(strings.NewReader(`{"id":"c1","ts":"2024-01-01T10:00:00Z","AGE":3,"NOTES":"`+secret+`","memo":"`+secret+`"}`+"\n"), q, ReaderOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var e Event
+	_, err = rd.Next(&e)
+	if fe, ok := AsFileError(err); !ok || fe.Rule != RuleFreeText || fe.Column != "memo" {
+		t.Errorf("jsonl: %v", err)
+	}
+}

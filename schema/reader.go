@@ -438,6 +438,9 @@ func (rd *Reader) nextCSV(e *Event) (*Rejection, error) {
 		}
 	}
 	rd.attrs.rec, rd.attrs.line = rec, line
+	if ferr := rd.undeclaredFreeText(line); ferr != nil {
+		return nil, ferr
+	}
 	return rd.build(e, line)
 }
 
@@ -579,6 +582,9 @@ func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
 				}
 			}
 			rd.vals[i] = v
+		}
+		if ferr := rd.undeclaredFreeText(line); ferr != nil {
+			return nil, ferr
 		}
 		return rd.build(e, line)
 	}

@@ -2,6 +2,8 @@ package schema
 
 import (
 	"encoding/json"
+	"fmt"
+	"strings"
 	"time"
 )
 
@@ -9,13 +11,64 @@ import (
 // one's column is and the raw values of the row just read.
 type attrState struct {
 	attrs []Attribute
-	idx   []int    // CSV: header index of each attribute's column
-	rec   []string // CSV: the row just read
-	line  int64    // CSV: its line
+	drop  map[string]bool // the profile's dropped columns
+	scan  bool            // refuse free text in columns neither mapped nor dropped
+	free  []int           // CSV: header indexes of those columns
+	idx   []int           // CSV: header index of each attribute's column
+	rec   []string        // CSV: the row just read
+	line  int64           // CSV: its line
 }
 
 func newAttrState(p *Profile) attrState {
-	return attrState{attrs: p.Attributes, idx: make([]int, len(p.Attributes))}
+	s := attrState{attrs: p.Attributes, idx: make([]int, len(p.Attributes)), drop: map[string]bool{}, scan: len(p.Attributes) > 0}
+	for _, c := range p.Drop {
+		s.drop[c] = true
+	}
+	return s
+}
+
+// RuleFreeText refuses a file in which a column the profile neither maps
+// nor drops holds free text, when the profile declares attributes: such a
+// column must be declared under drop.
+const RuleFreeText = "free_text"
+
+// undeclaredFreeText stops the file at the first value of an undeclared
+// column that reads as free text (see Attribute.Generalize for the test),
+// naming the column and the line, never the value.
+func (rd *Reader) undeclaredFreeText(line int64) *FileError {
+	if !rd.attrs.scan {
+		return nil
+	}
+	bad := ""
+	if rd.csv != nil {
+		for _, i := range rd.attrs.free {
+			if i < len(rd.attrs.rec) && freeText(rd.attrs.rec[i]) {
+				bad = rd.header[i]
+				break
+			}
+		}
+	} else {
+		for k, raw := range rd.obj {
+			if rd.mappedKey(k) || rd.attrs.drop[k] || len(raw) == 0 || raw[0] != '"' {
+				continue
+			}
+			var v string
+			if json.Unmarshal(raw, &v) == nil && freeText(v) {
+				bad = k
+				break
+			}
+		}
+	}
+	if bad == "" {
+		return nil
+	}
+	return rd.fileErr(RuleFreeText, line, bad, fmt.Sprintf("column %q holds free text, which is never kept; list it under drop in the profile (it is then dropped) or map it", clip(bad)), nil)
+}
+
+// freeText reports whether v reads as free text rather than a code.
+func freeText(v string) bool {
+	v = strings.TrimSpace(v)
+	return len(v) > MaxCodeBytes || strings.ContainsAny(v, "\r\n") || words(v) > 3
 }
 
 // has reports whether some attribute reads column k.
@@ -39,6 +92,11 @@ func (rd *Reader) resolveAttributes(index map[string]int, mapped map[string]bool
 		}
 		rd.attrs.idx[i] = idx
 		mapped[a.Column] = true
+	}
+	for i, h := range rd.header {
+		if !mapped[h] && !rd.attrs.drop[h] && h != "" {
+			rd.attrs.free = append(rd.attrs.free, i)
+		}
 	}
 	return nil
 }
