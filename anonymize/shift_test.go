@@ -16,20 +16,20 @@ func TestTimeShift(t *testing.T) {
 		if d != p.TimeShift(s, 30) {
 			t.Fatal("the same subject got two offsets")
 		}
-		if d%(24*time.Hour) != 0 || d < -30*24*time.Hour || d > 30*24*time.Hour {
-			t.Fatalf("offset %v is not whole days within 30", d)
+		if d%(24*time.Hour) != 0 || d < -30*24*time.Hour || d > 0 {
+			t.Fatalf("offset %v is not whole days from -30 to 0", d)
 		}
 		seen[d] = true
 		if q.TimeShift(s, 30) != d {
 			differ++
 		}
 	}
-	// 2,000 subjects over 61 offsets: every offset taken (the chance that
-	// one is missed is below 61*(60/61)^2000, about 1e-13).
-	if len(seen) != 61 {
-		t.Errorf("%d distinct offsets of 61", len(seen))
+	// 2,000 subjects over 31 offsets: every offset taken (the chance that
+	// one is missed is below 31*(30/31)^2000, about 1e-27).
+	if len(seen) != 31 {
+		t.Errorf("%d distinct offsets of 31", len(seen))
 	}
-	// Another key gives other offsets (equal by chance 1 time in 61).
+	// Another key gives other offsets (equal by chance 1 time in 31).
 	if differ < 1800 {
 		t.Errorf("another key gave the same offset for %d of 2000 subjects", 2000-differ)
 	}

@@ -98,7 +98,7 @@ type Profile struct {
 	// Drop lists free-text columns the profile declares and drops.
 	Drop []string `json:"drop,omitempty"`
 	// TimeShiftDays, when set, moves every event time of a subject by one
-	// keyed offset of whole days in [-TimeShiftDays, TimeShiftDays].
+	// keyed offset of whole days back, from 0 to TimeShiftDays.
 	TimeShiftDays int `json:"time_shift_days,omitempty"`
 
 	loc *time.Location
