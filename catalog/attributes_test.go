@@ -304,11 +304,18 @@ func TestAttributeLeakScan(t *testing.T) {
 	if res.Upload.Report.Rows.Rejected != 2 {
 		t.Fatalf("%d rows rejected, want the free-text diagnosis and the bad age", res.Upload.Report.Rows.Rejected)
 	}
+	// An undeclared column holding free text refuses its file.
+	memo := strings.Replace(string(attrCSV(attrCases[:2], 3, "")), "NOTES\n", "MEMO\n", 1)
+	memo = strings.Replace(memo, `""`+"\n", `"PLANTED memo about the neighbour's visit"`+"\n", 1)
+	refused, err := e.s.Ingest(ctx, "p", "d", strings.NewReader(memo), IngestOptions{Filename: "memo.csv", By: "site"})
+	if !errors.Is(err, ErrFileInvalid) || refused == nil || refused.Upload.Error == nil || refused.Upload.Error.Rule != "free_text" || refused.Upload.Error.Column != "MEMO" {
+		t.Fatalf("undeclared free text: %v %+v", err, refused)
+	}
 	needles := []string{"93.0625", "101.5", "02139-4307", "02141", "02139", "PLANTED"}
 	for _, h := range grepDir(t, e.dir, needles) {
 		t.Error(h)
 	}
-	out, _ := json.Marshal(res)
+	out, _ := json.Marshal([]any{res, refused, err.Error()})
 	rep, v, err := e.s.DisclosureReport(ctx, "p", "d", 1)
 	if err != nil {
 		t.Fatal(err)
