@@ -1,6 +1,7 @@
 package server
 
 import (
+	"fmt"
 	"net/http"
 
 	"github.com/labstack/echo/v4"
@@ -84,4 +85,17 @@ func (s *Server) setDisclosurePolicy(c echo.Context) error {
 		return catalogError(err)
 	}
 	return c.JSON(http.StatusOK, p.DisclosurePolicy())
+}
+
+// disclosureNote adds to an upload's message that its new version is held
+// as a draft because its disclosure risk is above the project's threshold.
+func disclosureNote(msg string, v *catalog.Version) string {
+	if v == nil || v.Manifest == nil || v.Manifest.Disclosure == nil || !v.Manifest.Disclosure.AboveThreshold || v.State != catalog.StateDraft {
+		return msg
+	}
+	note := fmt.Sprintf("v%d is held as a draft: its disclosure risk (%.3f) is above the project's threshold; see its disclosure report", v.Number, v.Manifest.Disclosure.MaxRisk)
+	if msg == "" {
+		return note
+	}
+	return msg + "; " + note
 }

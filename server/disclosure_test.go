@@ -55,6 +55,11 @@ func TestDisclosureAPI(t *testing.T) {
 	}
 	r := e.upload("p", "d", e.partner("p/d"), "a.csv", b.Bytes())
 	e.mustStatus(r, http.StatusCreated, "upload")
+	var up struct{ Message string }
+	e.decode(r, &up)
+	if !strings.Contains(up.Message, "v1 is held as a draft: its disclosure risk (1.000) is above the project's threshold") {
+		t.Errorf("upload message %q", up.Message)
+	}
 	var v catalog.Version
 	e.decode(e.get(ds+"/versions/1", curator), &v)
 	if v.State != catalog.StateDraft {
