@@ -76,6 +76,10 @@ type Attribute struct {
 	// Keep is how many leading characters of a code are kept (postal
 	// codes truncated); 0 keeps the whole code.
 	Keep int `json:"keep,omitempty"`
+	// SmallAreas are kept prefixes that name areas too small to show
+	// (Safe Harbor: three-digit ZIP areas of 20,000 people or fewer):
+	// such a prefix is replaced by Keep zeros. Type code with Keep only.
+	SmallAreas []string `json:"small_areas,omitempty"`
 	// Period is what a date is truncated to: day, week, month or year
 	// (type date; default month for a quasi-identifier, day otherwise).
 	Period string `json:"period,omitempty"`
@@ -93,6 +97,9 @@ func (a *Attribute) Rule() string {
 		}
 		return "date truncated to the first day of its " + a.Period
 	case TypeCode:
+		if a.Keep > 0 && len(a.SmallAreas) > 0 {
+			return fmt.Sprintf("first %d characters kept; %d small areas as %s", a.Keep, len(a.SmallAreas), strings.Repeat("0", a.Keep))
+		}
 		if a.Keep > 0 {
 			return fmt.Sprintf("first %d characters kept", a.Keep)
 		}
@@ -119,6 +126,12 @@ func parseAttributes(n ast.Node, lines map[string]int) ([]Attribute, error) {
 		for _, s := range subs {
 			sub := key + "." + s.key
 			lines[sub] = s.line
+			if s.key == "small_areas" {
+				if a.SmallAreas, err = parseColumnList(s.value, sub); err != nil {
+					return nil, err
+				}
+				continue
+			}
 			v, err := scalar(s.value, sub)
 			if err != nil {
 				return nil, err
@@ -143,7 +156,7 @@ func parseAttributes(n ast.Node, lines map[string]int) ([]Attribute, error) {
 			case "period":
 				a.Period = v
 			default:
-				return nil, &ProfileError{Line: s.line, Key: sub, Msg: "unknown key (want column, role, type, band, keep or period)"}
+				return nil, &ProfileError{Line: s.line, Key: sub, Msg: "unknown key (want column, role, type, band, keep, small_areas or period)"}
 			}
 		}
 		out = append(out, a)
@@ -236,6 +249,11 @@ func (p *Profile) validateAttributes(at func(key, msg string) error) error {
 		if a.Keep != 0 && a.Type != TypeCode {
 			return at(key+".keep", "keep applies to type code")
 		}
+		for _, sa := range a.SmallAreas {
+			if a.Keep == 0 || utf8.RuneCountInString(sa) != a.Keep {
+				return at(key+".small_areas", fmt.Sprintf("each small area is a kept prefix of %d characters (needs keep)", a.Keep))
+			}
+		}
 		if a.Period != "" && a.Type != TypeDate {
 			return at(key+".period", "period applies to type date")
 		}
@@ -312,6 +330,9 @@ func (a *Attribute) Generalize(raw string, shift time.Duration) (string, error) 
 		if a.Keep > 0 && utf8.RuneCountInString(v) > a.Keep {
 			r := []rune(v)
 			v = string(r[:a.Keep])
+		}
+		if slices.Contains(a.SmallAreas, v) {
+			v = strings.Repeat("0", a.Keep)
 		}
 		return v, nil
 	case TypeInteger:

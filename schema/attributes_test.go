@@ -85,6 +85,17 @@ func TestCodeRules(t *testing.T) {
 	if got, _ := zip.Generalize("12", 0); got != "12" {
 		t.Errorf("short code: %q", got)
 	}
+	// Safe Harbor, 45 CFR 164.514(b)(2)(i)(B): the initial three digits of
+	// a ZIP code may stay only where the area they name holds more than
+	// 20,000 people; otherwise they become 000. Which prefixes those are
+	// comes from the census (the profile lists them); "036" here is only
+	// an example value.
+	zip.SmallAreas = []string{"036"}
+	for in, want := range map[string]string{"03601": "000", "036": "000", "02139": "021", "0360": "000"} {
+		if got, _ := zip.Generalize(in, 0); got != want {
+			t.Errorf("small areas: %s gave %q, want %q", in, got, want)
+		}
+	}
 	code := Attribute{Name: "diagnosis", Type: TypeCode, Role: RoleSensitive}
 	for _, free := range []string{"patient said the pain began after lunch", strings.Repeat("x", 65), "two\nlines"} {
 		if _, err := code.Generalize(free, 0); err == nil || strings.Contains(err.Error(), free) {
@@ -132,6 +143,8 @@ time_shift_days: 30
 		{"attributes:\n  site: {column: X, role: plain, type: code}\n", "attributes.site", "taken"},
 		{"attributes:\n  a: {column: X, role: plain, type: code}\ndrop: [X]\n", "drop", "dropped but feeds attribute a"},
 		{"time_shift_days: 0\n", "time_shift_days", "from 1 to 3660"},
+		{"attributes:\n  z: {column: Z, role: quasi, type: code, small_areas: [036]}\n", "attributes.z.small_areas", "needs keep"},
+		{"attributes:\n  z: {column: Z, role: quasi, type: code, keep: 3, small_areas: [0361]}\n", "attributes.z.small_areas", "prefix of 3"},
 	} {
 		_, err := ParseProfile([]byte(base + c.yaml))
 		var pe *ProfileError
