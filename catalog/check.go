@@ -61,7 +61,9 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 	defer srt.Close()
 	rd, err := schema.NewReader(src, prof, schema.ReaderOptions{Name: opt.Name, Limits: opt.Limits})
 	if err == nil {
-		err = readAll(ctx, rd, pz, acc, srt)
+		ai := newAttrIngest(opt.TempDir, prof, pz)
+		defer ai.close()
+		err = readAll(ctx, rd, pz, acc, srt, ai)
 	}
 	if err != nil {
 		if _, ok := schema.AsFileError(err); ok {

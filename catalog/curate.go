@@ -19,7 +19,25 @@ var ErrState = errors.New("not allowed in this state")
 
 // Publish makes a draft version visible to every member. Publishing a
 // published version is a no-op; a retracted one fails with ErrState.
+// A version whose disclosure risk is above the project's threshold fails
+// with ErrRiskAboveThreshold (see PublishOverride).
 func (s *Store) Publish(ctx context.Context, project, dataset string, n int, by string) (*Version, error) {
+	return s.publish(ctx, project, dataset, n, by, nil)
+}
+
+func (s *Store) publish(ctx context.Context, project, dataset string, n int, by string, ov *RiskOverride) (*Version, error) {
+	cur, err := s.Version(ctx, project, dataset, n)
+	if err != nil {
+		return nil, err
+	}
+	proj, err := s.Project(ctx, project)
+	if err != nil {
+		return nil, err
+	}
+	action := "version.publish"
+	if ov != nil {
+		action = "version.publish.override"
+	}
 	return s.setState(project, dataset, n, by, func(v *Version) (bool, error) {
 		switch v.State {
 		case StatePublished:
@@ -28,9 +46,15 @@ func (s *Store) Publish(ctx context.Context, project, dataset string, n int, by 
 			return false, fmt.Errorf("version %d was retracted (%s); it cannot be published again: %w", v.Number, v.RetractReason, ErrState)
 		}
 		now := s.opt.Now().UTC()
+		v.Manifest = cur.Manifest
+		err := publishGate(v, proj.DisclosurePolicy().MaxRisk, ov, now)
+		v.Manifest = nil
+		if err != nil {
+			return false, err
+		}
 		v.State, v.PublishedAt, v.PublishedBy = StatePublished, &now, by
 		return true, nil
-	}, "version.publish")
+	}, action)
 }
 
 // Retract withdraws a version: it stays for audit, its metadata and

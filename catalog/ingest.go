@@ -36,7 +36,8 @@ type IngestOptions struct {
 	// given, an upload without rows removes their events in the window.
 	Sites []string
 
-	held *heldFilter // set by Ingest: the upload's events against the latest version
+	held  *heldFilter // set by Ingest: the upload's events against the latest version
+	attrs *attrIngest // set by Ingest: the upload's case attributes (attributes.go)
 }
 
 // Validate checks the options before any byte is read.
@@ -200,9 +201,11 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 
+	opt.attrs = newAttrIngest(s.opt.TempDir, prof, pz)
+	defer opt.attrs.close()
 	rd, err := schema.NewReader(tee, prof, schema.ReaderOptions{Name: up.Filename, Limits: s.opt.Limits})
 	if err == nil {
-		err = readAll(ctx, rd, pz, acc, srt)
+		err = readAll(ctx, rd, pz, acc, srt, opt.attrs)
 	}
 	if err != nil && !(removing(opt) && isNoRows(err)) {
 		return fail(err)
@@ -391,6 +394,11 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	defer vp.release()
+	va, err := s.caseAttributes(ctx, ds, parent, vp.table, opt.attrs, opt.Mode, keyID)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	defer va.done()
 	rep := upass.acc.Report()
 	rep.UnmappedColumns = up.Unmapped
 	up.Report = rep
@@ -437,6 +445,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			CreatedBy:     opt.By,
 			CreatedAt:     received,
 		}
+		if va != nil {
+			m.CaseAttributes, m.Disclosure, m.Lineage.Suppressed = va.table, va.ref, va.sup
+		}
 		if opt.Mode == ModeReplaceWindow {
 			from, to := opt.From, opt.To
 			m.Lineage.From, m.Lineage.To, m.Lineage.Sites = &from, &to, opt.Sites
@@ -458,6 +469,14 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		} else {
 			at := received
 			v.PublishedAt, v.PublishedBy = &at, opt.By
+		}
+		if va != nil && va.ref.AboveThreshold {
+			// Above the project's disclosure threshold: a draft, until a
+			// curator publishes it with a recorded override.
+			v.State, v.PublishedAt, v.PublishedBy = StateDraft, nil, ""
+		}
+		if err := putDisclosure(tx, va); err != nil {
+			return err
 		}
 		ver = v
 		up.Status = UploadAccepted
@@ -540,12 +559,57 @@ func (s *Store) appendedBefore(ctx context.Context, ds *Dataset, hexDigest strin
 
 // readAll reads every row of rd: rejections go to acc, accepted events are
 // pseudonymized and handed to srt. File errors are returned as they come.
-func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer, acc *quality.Accumulator, srt *sorter) error {
-	// The rows are parsed on another goroutine, in batches, so that parsing
-	// and pseudonymizing use both cores; the batches come back in file
-	// order and are reused, so memory stays a few batches.
-	full := make(chan *readBatch, readAhead)
-	free := make(chan *readBatch, readAhead+2)
+// With declared attributes (ai not nil) rows are read one by one, since
+// an attribute is taken from the reader's current row; else they are
+// parsed on another goroutine (readAhead).
+func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer, acc *quality.Accumulator, srt *sorter, ai *attrIngest) error {
+	row := func(e *schema.Event, rej *schema.Rejection) error {
+		if rej != nil {
+			acc.Reject(*rej)
+			return nil
+		}
+		pz.Apply(e)
+		if rej, err := ai.take(rd, e); err != nil {
+			return err
+		} else if rej != nil {
+			acc.Reject(*rej)
+			return nil
+		}
+		// Snapshots keep microseconds; truncate before any comparison so
+		// quality, sort order and the file agree.
+		e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
+		acc.ObserveFileOrder(e)
+		return srt.Add(e)
+	}
+	if ai == nil {
+		return readAhead(ctx, rd, row)
+	}
+	var e schema.Event
+	for n := 0; ; n++ {
+		if n&4095 == 0 {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+		}
+		rej, err := rd.Next(&e)
+		if err == io.EOF {
+			return nil
+		}
+		if err != nil {
+			return err
+		}
+		if err := row(&e, rej); err != nil {
+			return err
+		}
+	}
+}
+
+// readAhead calls row for every row of rd in file order, the rows parsed
+// on another goroutine in batches, so that parsing and pseudonymizing use
+// both cores; batches are reused, so memory stays a few batches.
+func readAhead(ctx context.Context, rd *schema.Reader, row func(*schema.Event, *schema.Rejection) error) error {
+	full := make(chan *readBatch, readAheadBatches)
+	free := make(chan *readBatch, readAheadBatches+2)
 	stop := make(chan struct{})
 	done := make(chan struct{})
 	go func() {
@@ -586,17 +650,7 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 	}()
 	for b := range full {
 		for i := range b.evs {
-			if b.rejs[i] != nil {
-				acc.Reject(*b.rejs[i])
-				continue
-			}
-			e := &b.evs[i]
-			pz.Apply(e)
-			// Snapshots keep microseconds; truncate before any comparison so
-			// quality, sort order and the file agree.
-			e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
-			acc.ObserveFileOrder(e)
-			if err := srt.Add(e); err != nil {
+			if err := row(&b.evs[i], b.rejs[i]); err != nil {
 				return err
 			}
 		}
@@ -631,8 +685,8 @@ type readBatch struct {
 
 // Rows per parsed batch and batches parsed ahead of the pseudonymizer.
 const (
-	readBatchRows = 512
-	readAhead     = 4
+	readBatchRows    = 512
+	readAheadBatches = 4
 )
 
 // mappedFields lists the fields a profile fills on purpose, for the

@@ -42,6 +42,9 @@ type Project struct {
 	CreatedAt time.Time           `json:"created_at"`
 	CreatedBy string              `json:"created_by"`
 	Key       anonymize.SealedKey `json:"key"`
+	// Disclosure is the project's disclosure control; nil means
+	// DefaultDisclosurePolicy (attributes.go).
+	Disclosure *DisclosurePolicy `json:"disclosure,omitempty"`
 }
 
 // Dataset is one stream of uploads from partner sites through one mapping
@@ -175,6 +178,9 @@ type Lineage struct {
 	// version holds the parent's rows + New + Changed (when taken as
 	// corrections) - RowsRemoved.
 	Events *EventCounts `json:"events,omitempty"`
+	// Suppressed counts the cases whose quasi-identifiers were suppressed
+	// because their equivalence class was below the project's k.
+	Suppressed int64 `json:"suppressed_cases,omitempty"`
 }
 
 // Manifest describes a version completely: its files and how they came to
@@ -201,6 +207,12 @@ type Manifest struct {
 	Quality   *ReportRef `json:"quality_report,omitempty"`
 	CreatedBy string     `json:"created_by"`
 	CreatedAt time.Time  `json:"created_at"`
+
+	// CaseAttributes is the version's case attribute table, row for row
+	// beside the case table, and Disclosure its disclosure report; both
+	// absent when the profile declares no attributes.
+	CaseAttributes *AttributeTable `json:"case_attributes,omitempty"`
+	Disclosure     *DisclosureRef  `json:"disclosure,omitempty"`
 }
 
 // ReportRef names a stored quality report by the SHA-256 of its JSON.
@@ -243,6 +255,9 @@ func (m *Manifest) Blobs() []BlobEntry {
 	}
 	if ct := m.CaseTable; ct != nil {
 		out = append(out, BlobEntry{Path: CasesPath(ct.SHA256), SHA256: ct.SHA256, Bytes: ct.Bytes, Rows: ct.Rows})
+	}
+	if at := m.CaseAttributes; at != nil {
+		out = append(out, BlobEntry{Path: AttributesPath(at.SHA256), SHA256: at.SHA256, Bytes: at.Bytes, Rows: at.Rows})
 	}
 	return out
 }

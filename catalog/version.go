@@ -41,6 +41,9 @@ type Version struct {
 	RetractedAt   *time.Time `json:"retracted_at,omitempty"`
 	RetractedBy   string     `json:"retracted_by,omitempty"`
 	RetractReason string     `json:"retract_reason,omitempty"`
+	// RiskOverride records a publication above the project's disclosure
+	// risk threshold (attributes.go).
+	RiskOverride *RiskOverride `json:"risk_override,omitempty"`
 
 	// The version's headline figures, copied from its manifest and report
 	// at commit (and by migrate for older records), so that a list of

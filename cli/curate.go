@@ -24,8 +24,9 @@ func stateRef(arg, verb string) (ref, error) {
 }
 
 func newPublishCmd(e *env) *cobra.Command {
-	return &cobra.Command{
-		Use:   "publish PROJECT/DATASET@N",
+	var override string
+	c := &cobra.Command{
+		Use:   "publish PROJECT/DATASET@N [--override-reason TEXT]",
 		Short: "Publish a draft version, so that every member of the project sees it",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
@@ -33,9 +34,14 @@ func newPublishCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
+			if cmd.Flags().Changed("override-reason") {
+				return e.changeState(cmd, r, "publish-override", map[string]string{"reason": override})
+			}
 			return e.changeState(cmd, r, "publish", nil)
 		},
 	}
+	c.Flags().StringVar(&override, "override-reason", "", "publish although the version's disclosure risk is above the project's threshold, recording why (see disclosure)")
+	return c
 }
 
 func newRetractCmd(e *env) *cobra.Command {

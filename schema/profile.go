@@ -97,6 +97,14 @@ type Profile struct {
 	// run for months declares more, so that case_too_long counts what it
 	// says.
 	MaxCaseDays int `json:"max_case_days,omitempty"`
+	// Attributes are extra columns kept per case, with their disclosure
+	// role and generalization (attributes.go); sorted by name.
+	Attributes []Attribute `json:"attributes,omitempty"`
+	// Drop lists free-text columns the profile declares and drops.
+	Drop []string `json:"drop,omitempty"`
+	// TimeShiftDays, when set, moves every event time of a subject by one
+	// keyed offset of whole days back, from 0 to TimeShiftDays.
+	TimeShiftDays int `json:"time_shift_days,omitempty"`
 
 	loc *time.Location
 }
@@ -157,6 +165,7 @@ func (p *Profile) clone() *Profile {
 		ml := *p.Multiline
 		q.Multiline = &ml
 	}
+	q.Attributes = slices.Clone(p.Attributes)
 	return &q
 }
 
@@ -331,6 +340,24 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number of days from 1 to %d", clip(s), MaxCaseDaysLimit)}
 			}
 			p.MaxCaseDays = n
+		case "attributes":
+			if p.Attributes, err = parseAttributes(kv.value, lines); err != nil {
+				return nil, err
+			}
+		case "drop":
+			if p.Drop, err = parseColumnList(kv.value, kv.key); err != nil {
+				return nil, err
+			}
+		case "time_shift_days":
+			s, err := scalar(kv.value, kv.key)
+			if err != nil {
+				return nil, err
+			}
+			n, err := strconv.Atoi(s)
+			if err != nil || n < 1 || n > 3660 {
+				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number of days from 1 to 3660", clip(s))}
+			}
+			p.TimeShiftDays = n
 		case "terminal":
 			ts, err := terminalTypes(kv.value, kv.key)
 			if err != nil {
@@ -338,7 +365,7 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 			}
 			p.Terminal = ts
 		default:
-			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity, max_case_days or fields)"}
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity, max_case_days, fields, attributes, drop or time_shift_days)"}
 		}
 	}
 	if fieldsNode == nil {
@@ -536,6 +563,9 @@ func (p *Profile) validate(lines map[string]int) error {
 	}
 	if p.MaxCaseDays < 0 || p.MaxCaseDays > MaxCaseDaysLimit {
 		return at("max_case_days", fmt.Sprintf("want a whole number of days from 1 to %d", MaxCaseDaysLimit))
+	}
+	if err := p.validateAttributes(at); err != nil {
+		return err
 	}
 	for _, t := range p.Terminal {
 		if !t.Valid() || t == Arrival || t == Enqueue {

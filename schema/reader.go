@@ -63,6 +63,8 @@ type Reader struct {
 	vals [len(fieldsArray)]string
 	rows int64
 	err  error // sticky end: io.EOF or a *FileError
+
+	attrs attrState // the profile's attributes (reader_attrs.go)
 }
 
 // fieldsArray fixes the number of schema fields at compile time.
@@ -107,7 +109,7 @@ func NewReader(r io.Reader, p *Profile, opt ReaderOptions) (*Reader, error) {
 	if err := p.validate(nil); err != nil {
 		return nil, &FileError{Rule: RuleProfile, Msg: err.Error(), Err: err}
 	}
-	rd := &Reader{p: p, name: opt.Name, lim: opt.Limits.withDefaults()}
+	rd := &Reader{p: p, name: opt.Name, lim: opt.Limits.withDefaults(), attrs: newAttrState(p)}
 	rd.tp = timeParser{loc: p.Location(), policy: p.LocalTime.normalized()}
 	if m, ok := p.Fields[FieldOccurredAt]; ok && m.Layout != "" {
 		hasOff, err := layoutInfo(m.Layout)
@@ -249,6 +251,9 @@ func (rd *Reader) readHeader() error {
 		}
 		c.idx = idx
 		mapped[c.name] = true
+	}
+	if err := rd.resolveAttributes(index, mapped); err != nil {
+		return err
 	}
 	for _, h := range rd.header {
 		if !mapped[h] && h != "" {
@@ -432,6 +437,10 @@ func (rd *Reader) nextCSV(e *Event) (*Rejection, error) {
 			rd.vals[i] = rec[c.idx]
 		}
 	}
+	rd.attrs.rec, rd.attrs.line = rec, line
+	if ferr := rd.undeclaredFreeText(line); ferr != nil {
+		return nil, ferr
+	}
 	return rd.build(e, line)
 }
 
@@ -574,6 +583,9 @@ func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
 			}
 			rd.vals[i] = v
 		}
+		if ferr := rd.undeclaredFreeText(line); ferr != nil {
+			return nil, ferr
+		}
 		return rd.build(e, line)
 	}
 }
@@ -584,7 +596,7 @@ func (rd *Reader) mappedKey(k string) bool {
 			return true
 		}
 	}
-	return false
+	return rd.attrs.has(k)
 }
 
 // readLine returns the next line without its newline; the slice is valid

@@ -252,7 +252,7 @@ func (s *Server) upload(c echo.Context) error {
 	if res.Upload.Status == catalog.UploadDuplicate {
 		status = http.StatusOK
 	}
-	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version, Message: res.Upload.Sentence()})
+	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version, Message: disclosureNote(res.Upload.Sentence(), res.Version)})
 }
 
 // takeUploadSlot counts an upload of the token in progress, or refuses

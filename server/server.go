@@ -119,6 +119,10 @@ func New(cfg Config) *Server {
 		{method: "GET", path: ds + "/alerts", h: s.getAlerts, params: []string{"site"}},
 		{method: "POST", path: ds + "/versions/:version/publish", h: s.setState},
 		{method: "POST", path: ds + "/versions/:version/retract", h: s.setState},
+		{method: "GET", path: ds + "/versions/:version/disclosure", h: s.getDisclosure},
+		{method: "POST", path: ds + "/versions/:version/publish-override", h: s.publishOverride},
+		{method: "GET", path: api + "/projects/:project/disclosure", h: s.getDisclosurePolicy},
+		{method: "PUT", path: api + "/projects/:project/disclosure", h: s.setDisclosurePolicy},
 		{method: "POST", path: api + "/admin/gc", h: s.collectGarbage},
 		{method: "GET", path: "/.well-known/jwks.json", h: s.jwks, public: true},
 		{method: "GET", path: api + "/admin/tokens", h: s.listTokens},
@@ -214,6 +218,8 @@ func catalogError(err error) error {
 		return &httpError{body: errorBody{Status: http.StatusConflict, Code: "exists", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrState):
 		return &httpError{body: errorBody{Status: http.StatusConflict, Code: "state", Message: err.Error()}, err: err}
+	case errors.Is(err, catalog.ErrRiskAboveThreshold):
+		return &httpError{body: errorBody{Status: http.StatusConflict, Code: "disclosure_risk", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrInvalid):
 		return &httpError{body: errorBody{Status: http.StatusBadRequest, Code: "invalid", Message: err.Error()}, err: err}
 	}

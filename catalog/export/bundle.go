@@ -317,6 +317,7 @@ func dictionary(d *catalog.Dataset, v *catalog.Version, report []byte) ([]byte, 
 			fmt.Fprintf(&b, "| `%s` | %s | %s |\n", c.Name, c.Type, c.Meaning)
 		}
 	}
+	b.WriteString(attributeDictionary(m))
 	b.WriteString("\n## Quality\n\n")
 	q, err := qualitySummary(report)
 	if err != nil {
