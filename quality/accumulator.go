@@ -354,6 +354,7 @@ const (
 	fChannel
 	fOutcome
 	fEventID
+	fInstanceID
 	numFields
 )
 
@@ -632,14 +633,21 @@ func (a *Accumulator) resourceCheck(s *siteAcc, ti int, e *schema.Event, at int6
 	if ti != tStart && ti != tComplete {
 		return false
 	}
-	// A service is keyed by its case and activity: parallel activities of
-	// one case (a test during an assessment) pair apart, as the per-case
+	// A service is keyed by its case and activity instance, or without
+	// one by its case and activity: parallel activities of one case (a
+	// test during an assessment), and parallel executions of one activity
+	// where the log names instances, pair apart, as the per-case
 	// computation pairs them (cases.Builder).
 	var h maphash.Hash
 	h.SetSeed(a.seed)
 	h.WriteString(e.CaseID)
 	h.WriteByte(0)
-	h.WriteString(e.Activity)
+	if e.InstanceID != "" {
+		h.WriteByte(1)
+		h.WriteString(e.InstanceID)
+	} else {
+		h.WriteString(e.Activity)
+	}
 	k := nonZero(h.Sum64())
 	if o, ok := a.svc[k]; ok {
 		a.closeInterval(o.res, k)
@@ -734,6 +742,7 @@ func (a *Accumulator) countFields(s *siteAcc, ti int, e *schema.Event) {
 	a.optional(s, tn, fChannel, e.Channel, e)
 	a.optional(s, tn, fOutcome, e.Outcome, e)
 	a.optional(s, tn, fEventID, e.EventID, e)
+	a.optional(s, tn, fInstanceID, e.InstanceID, e)
 }
 
 func (a *Accumulator) optional(s *siteAcc, tn *[numFields]int64, i int, v string, e *schema.Event) {

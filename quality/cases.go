@@ -59,29 +59,31 @@ type caseState struct {
 	site    int   // site index of the latest event
 	typesAt uint8 // event types seen at the latest instant
 	wait    int32 // (queue, activity) index+1 of the pending enqueue
-	// seenAt are the (type, activity) pairs seen at the latest instant,
-	// up to maxSeenAt, for the duplicate check.
+	// seenAt are the (type, activity, instance) seen at the latest
+	// instant, up to maxSeenAt, for the duplicate check.
 	seenAt []typeActivity
 }
 
 type typeActivity struct {
-	ti       int
-	activity string
+	ti                 int
+	activity, instance string
 }
 
 // maxSeenAt bounds the (type, activity) pairs one instant of a case keeps.
 const maxSeenAt = 64
 
-// seen reports whether (ti, act) was seen at the latest instant, and
-// records it.
-func (st *caseState) seen(ti int, act string) bool {
+// seen reports whether e's (type ti, activity, activity instance) was
+// seen at the latest instant, and records it: two starts of one activity
+// at one instant are one event twice, unless they name different
+// instances.
+func (st *caseState) seen(ti int, e *schema.Event) bool {
 	for _, x := range st.seenAt {
-		if x.ti == ti && x.activity == act {
+		if x.ti == ti && x.activity == e.Activity && x.instance == e.InstanceID {
 			return true
 		}
 	}
 	if len(st.seenAt) < maxSeenAt {
-		st.seenAt = append(st.seenAt, typeActivity{ti, strings.Clone(act)})
+		st.seenAt = append(st.seenAt, typeActivity{ti, strings.Clone(e.Activity), strings.Clone(e.InstanceID)})
 	}
 	return false
 }
@@ -248,7 +250,7 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 	bit := uint8(1) << ti
 	if st.id == "" {
 		*st = caseState{id: strings.Clone(e.CaseID), first: at, rec: at, site: s.idx, typesAt: bit, seenAt: st.seenAt[:0]}
-		st.seen(ti, e.Activity)
+		st.seen(ti, e)
 		if ti != tArrival {
 			// Already in the system when the data begins (or its arrival
 			// is lost): it enters the census at its first event.
@@ -262,7 +264,7 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 				a.flag(s, cSameInstantOrder, e)
 				acc = true
 			}
-			if st.seen(ti, e.Activity) {
+			if st.seen(ti, e) {
 				a.flag(s, cDuplicateCaseTypeTime, e)
 				uni = true
 			}
@@ -271,7 +273,7 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 			st.rec = at
 			st.typesAt = bit
 			st.seenAt = st.seenAt[:0]
-			st.seen(ti, e.Activity)
+			st.seen(ti, e)
 			st.flags &^= csNowFlags
 		}
 		if st.site != s.idx {

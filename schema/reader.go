@@ -69,7 +69,7 @@ type Reader struct {
 var fieldsArray = [...]Field{
 	FieldSite, FieldCaseID, FieldSubjectID, FieldResourceID, FieldEventType,
 	FieldActivity, FieldQueue, FieldOccurredAt, FieldPriority, FieldChannel,
-	FieldOutcome, FieldEventID,
+	FieldOutcome, FieldEventID, FieldInstanceID,
 }
 
 type columnKind uint8

@@ -3,9 +3,11 @@ package export
 import (
 	"bytes"
 	"context"
+	"encoding/csv"
 	"fmt"
 	"io"
 	"math/rand/v2"
+	"slices"
 	"testing"
 	"time"
 
@@ -55,6 +57,8 @@ func nullPatterns(n int) map[schema.Field]func(i int) bool {
 		schema.FieldChannel:  func(i int) bool { return false },
 		schema.FieldOutcome:  func(i int) bool { return kk[i] },
 		schema.FieldEventID:  func(i int) bool { return false },
+		// Activity instances named on some rows only, in runs of 3.
+		schema.FieldInstanceID: func(i int) bool { return (i/3)%2 == 0 },
 	}
 }
 
@@ -154,6 +158,9 @@ func checkNulls(t *testing.T, data []byte, n int, empty map[string]map[schema.Fi
 // nullsFixture ingests n events whose optional fields are empty in the
 // patterns of nullPatterns, as one file of row groups of 500 rows. It
 // returns, per event_id, the fields left empty, and per field the count.
+// nullsHeader is the fixture's header: every schema field.
+var nullsHeader = append(slices.Clone(header), string(schema.FieldInstanceID))
+
 func nullsFixture(t *testing.T, n int) (*env, *catalog.Version, map[string]map[schema.Field]bool, map[schema.Field]int64) {
 	t.Helper()
 	pats := nullPatterns(n)
@@ -163,9 +170,9 @@ func nullsFixture(t *testing.T, n int) (*env, *catalog.Version, map[string]map[s
 	for i := range rows {
 		id := fmt.Sprintf("ev-%05d", i)
 		row := []string{"north", fmt.Sprintf("C-%d", i/5), "P-1", "R-1", "arrival", "triage", "q1",
-			genBase.Add(time.Duration(i) * time.Minute).Format(time.RFC3339), "2", "phone", "seen", id}
+			genBase.Add(time.Duration(i) * time.Minute).Format(time.RFC3339), "2", "phone", "seen", id, fmt.Sprintf("I-%d", i)}
 		empty[id] = map[schema.Field]bool{}
-		for j, h := range header {
+		for j, h := range nullsHeader {
 			if p := pats[schema.Field(h)]; p != nil && p(i) {
 				row[j] = ""
 				empty[id][schema.Field(h)] = true
@@ -176,7 +183,11 @@ func nullsFixture(t *testing.T, n int) (*env, *catalog.Version, map[string]map[s
 	}
 	e := newEnv(t, 500)
 	e.dataset(t, "er", "nulls")
-	v := e.ingest(t, "er", "nulls", csvBytes(rows), "nulls.csv")
+	var buf bytes.Buffer
+	w := csv.NewWriter(&buf)
+	w.Write(nullsHeader)
+	w.WriteAll(rows)
+	v := e.ingest(t, "er", "nulls", buf.Bytes(), "nulls.csv")
 	if len(v.Manifest.Files) != 1 {
 		t.Fatalf("%d files", len(v.Manifest.Files))
 	}
