@@ -521,8 +521,10 @@ func (a *Accumulator) site(name string) *siteAcc {
 	return s
 }
 
-// Reject counts one rejected source row. Only its line, column, field and
-// reason are kept, never its message.
+// Reject counts one rejected source row. Its line, column, field, reason,
+// message and offending text are kept for the first MaxSamples of each
+// reason; the text only for a non-identifier field (schema.Rejection
+// leaves it empty otherwise; checked again here).
 func (a *Accumulator) Reject(r schema.Rejection) {
 	a.rejected++
 	f := a.reasons[r.Reason]
@@ -532,7 +534,11 @@ func (a *Accumulator) Reject(r schema.Rejection) {
 	}
 	f.n++
 	if len(f.samples) < a.opt.MaxSamples {
-		f.samples = append(f.samples, Sample{Line: r.Line, Column: r.Column, Field: r.Field})
+		s := Sample{Line: r.Line, Column: r.Column, Field: r.Field, Message: r.Message}
+		if r.Field != "" && !r.Field.Identifier() {
+			s.Text = r.Text
+		}
+		f.samples = append(f.samples, s)
 	}
 }
 

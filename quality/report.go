@@ -256,8 +256,9 @@ type Finding struct {
 
 // Sample locates one row of a finding: its source line and, for accepted
 // rows, the case pseudonym; for rejected rows, the column and field at
-// fault when known; for a gap, the site and the hour or day. It never
-// holds a field value.
+// fault when known, what is wrong (Message) and the offending text of a
+// non-identifier field (Text); for a gap, the site and the hour or day.
+// It never holds an identifier's value.
 type Sample struct {
 	// File names the uploaded file the line is in (its name as uploaded),
 	// set when the reports of a version's uploads are merged.
@@ -268,6 +269,10 @@ type Sample struct {
 	Field  schema.Field `json:"field,omitempty"`
 	Site   string       `json:"site,omitempty"`
 	At     *time.Time   `json:"at,omitempty"`
+	// Text is a rejected row's offending value as read (schema.Rejection's
+	// Text: never an identifier's), Message what is wrong with it.
+	Text    string `json:"text,omitempty"`
+	Message string `json:"message,omitempty"`
 }
 
 // RejectedShare is the share of rows rejected, 0 when there were no rows;

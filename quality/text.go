@@ -146,6 +146,14 @@ func (r *Report) Text(w io.Writer, color bool) error {
 			if s.Field != "" {
 				where += " (" + string(s.Field) + ")"
 			}
+			if s.Message != "" {
+				where += ": " + s.Message
+			}
+			// The offending text, quoted (control characters escaped),
+			// unless the message quotes it already.
+			if q := strconv.Quote(s.Text); s.Text != "" && !strings.Contains(s.Message, q) {
+				where += " (read " + q + ")"
+			}
 			rej = append(rej, string(rc.Reason)+"\t"+where)
 		}
 	}

@@ -204,14 +204,19 @@ const (
 	ReasonBadValue         Reason = "bad_value"         // a value has the wrong type (e.g. a JSON object)
 )
 
-// Rejection says why one source row was not accepted. Message never holds
-// the raw value of an identifier column.
+// Rejection says why one source row was not accepted. Message and Text
+// never hold the raw value of an identifier column.
 type Rejection struct {
 	Line    int64  `json:"line"`             // 1-based source line
 	Column  string `json:"column,omitempty"` // source column name, when one is at fault
 	Field   Field  `json:"field,omitempty"`  // schema field, when one is at fault
 	Reason  Reason `json:"reason"`
 	Message string `json:"message"`
+	// Text is the offending value as read (trimmed, clipped to 40 bytes),
+	// for a non-identifier field only: the unknown code, the timestamp
+	// that does not parse. It is left empty when the value holds one of
+	// the row's own identifier values (a column slip; see Reader).
+	Text string `json:"text,omitempty"`
 }
 
 func (r Rejection) String() string {
