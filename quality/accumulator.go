@@ -278,6 +278,7 @@ const (
 	cExactDuplicate
 	cDuplicateEventID
 	cDuplicateCaseTypeTime
+	cDuplicateAcrossFiles
 	cWaitNoEnqueue
 	cWaitNoStart
 	cOrderBreach
@@ -290,7 +291,7 @@ var codeNames = [numCodes]string{
 	CodeCaseTooLong, CodeServiceTooLong, CodeSameInstantOrder, CodeSameInstant,
 	CodeResourceOverlap, CodeSiteChangeWithoutTransfer, CodeCensusNegative,
 	CodeExactDuplicate, CodeDuplicateEventID, CodeDuplicateCaseTypeTime,
-	CodeWaitNoEnqueue, CodeWaitNoStart, CodeOrderBreach,
+	CodeDuplicateAcrossFiles, CodeWaitNoEnqueue, CodeWaitNoStart, CodeOrderBreach,
 }
 
 // Resolution grids, finest first.

@@ -67,25 +67,26 @@ type caseState struct {
 type typeActivity struct {
 	ti                 int
 	activity, instance string
+	line               int64 // source line; 0 for an event read back from a stored file
 }
 
 // maxSeenAt bounds the (type, activity) pairs one instant of a case keeps.
 const maxSeenAt = 64
 
-// seen reports whether e's (type ti, activity, activity instance) was
-// seen at the latest instant, and records it: two starts of one activity
-// at one instant are one event twice, unless they name different
-// instances.
-func (st *caseState) seen(ti int, e *schema.Event) bool {
-	for _, x := range st.seenAt {
-		if x.ti == ti && x.activity == e.Activity && x.instance == e.InstanceID {
-			return true
+// seen returns the earlier event of e's (type ti, activity, activity
+// instance) at the latest instant, or nil after recording e: two starts
+// of one activity at one instant are one event twice, unless they name
+// different instances.
+func (st *caseState) seen(ti int, e *schema.Event) *typeActivity {
+	for i := range st.seenAt {
+		if x := &st.seenAt[i]; x.ti == ti && x.activity == e.Activity && x.instance == e.InstanceID {
+			return x
 		}
 	}
 	if len(st.seenAt) < maxSeenAt {
-		st.seenAt = append(st.seenAt, typeActivity{ti, strings.Clone(e.Activity), strings.Clone(e.InstanceID)})
+		st.seenAt = append(st.seenAt, typeActivity{ti, strings.Clone(e.Activity), strings.Clone(e.InstanceID), e.Line})
 	}
-	return false
+	return nil
 }
 
 const (
@@ -264,9 +265,17 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 				a.flag(s, cSameInstantOrder, e)
 				acc = true
 			}
-			if st.seen(ti, e) {
+			if x := st.seen(ti, e); x != nil {
 				a.flag(s, cDuplicateCaseTypeTime, e)
 				uni = true
+				// In a version's pass the upload's events carry their
+				// source lines and those read back from stored files none:
+				// such a pair is certainly in two files. Samples only; the
+				// count is WithCases'.
+				if (x.line > 0) != (e.Line > 0) && len(a.samples[cDuplicateAcrossFiles]) < a.opt.MaxSamples {
+					at := e.OccurredAt.UTC()
+					a.samples[cDuplicateAcrossFiles] = append(a.samples[cDuplicateAcrossFiles], Sample{CaseID: strings.Clone(e.CaseID), Site: s.name, At: &at})
+				}
 			}
 			st.typesAt |= bit
 		} else {

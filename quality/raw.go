@@ -381,8 +381,11 @@ var caseCodes = []string{CodeCaseTooLong, CodeWaitNoEnqueue, CodeWaitNoStart}
 // events, their stage coverage,
 // the census sums of Little's law (arrivals, completed stays, sojourn,
 // time in system), case_too_long, and the wait coverage. So a case whose
-// events span uploads counts once. Row-level findings (order checks within
-// a case, duplicates, overlaps) stay those found within each upload.
+// events span uploads counts once. Duplicates of case, type, activity and
+// instant are counted over the whole version, those across files apart
+// (duplicate_across_files). Other row-level findings (order checks within
+// a case, overlaps, duplicate event ids) stay those found within each
+// upload.
 func WithCases(merged, cases *Report) *Report {
 	raw := cloneRaw(&merged.Raw)
 	bySite := map[string]*SiteRaw{}
@@ -409,6 +412,34 @@ func WithCases(merged, cases *Report) *Report {
 				delete(s.Counts, code)
 			}
 		}
+		// Duplicates of case, type, activity and instant: each file's
+		// report counts those within the file; the pass over the whole
+		// version counts them all. The difference are the rows that
+		// repeat, in another file, an event of their case (per group of
+		// equal events: the files holding it, less one). Those rows enter
+		// the uniqueness rows too (a row also flagged in its upload for a
+		// reused event_id would count twice there). A merged report that
+		// holds such a count already (of an earlier WithCases) has it
+		// taken out first.
+		old := s.Counts[CodeDuplicateAcrossFiles]
+		within := s.Counts[CodeDuplicateCaseTypeTime] - old
+		s.Counts[CodeDuplicateCaseTypeTime] = within
+		s.UniquenessRows -= old
+		if within == 0 {
+			delete(s.Counts, CodeDuplicateCaseTypeTime)
+		}
+		if across := c.Counts[CodeDuplicateCaseTypeTime] - within; across > 0 {
+			s.Counts[CodeDuplicateAcrossFiles] = across
+			s.Counts[CodeDuplicateCaseTypeTime] = within + across
+			s.UniquenessRows += across
+		} else {
+			delete(s.Counts, CodeDuplicateAcrossFiles)
+		}
+	}
+	if smp := cases.Raw.Samples[CodeDuplicateAcrossFiles]; len(smp) > 0 {
+		raw.Samples[CodeDuplicateAcrossFiles] = slices.Clone(smp)
+	} else {
+		delete(raw.Samples, CodeDuplicateAcrossFiles)
 	}
 	raw.Waits = slices.Clone(cases.Raw.Waits)
 	for _, code := range caseCodes {
