@@ -175,7 +175,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	raw := &hashCounter{h: sha256.New()}
 	st.ds, st.up, st.raw = ds, &up, raw
 	tee := io.TeeReader(src, raw)
-	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity}
+	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity, Capacity: prof.Capacity}
 	if ds.WindowFrom != nil {
 		qopt.WindowFrom = *ds.WindowFrom
 	}

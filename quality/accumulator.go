@@ -71,6 +71,9 @@ type Options struct {
 	// ResourceCapacity is how many cases one resource may serve at once.
 	// Default [DefaultResourceCapacity].
 	ResourceCapacity int
+	// Capacity holds capacities by the queue a service starts from and by
+	// resource (pseudonym), before ResourceCapacity (schema.Capacity.Of).
+	Capacity *schema.Capacity
 	// ClockTolerance is how far a site's time may step back between two
 	// consecutive rows in file order before the clock counts as going
 	// backwards. Default [DefaultClockTolerance].
@@ -169,6 +172,7 @@ type Accumulator struct {
 	maxServiceAct  map[string]int64
 	learned        []learnedBound // by activity, for lost starts
 	resPeak        int            // most services one resource held at once
+	capPeaks       map[capKey]int // the same, per declared queue or resource
 	learnedIndex   map[string]int32
 	idWindow       uint64
 	clockTol       int64
@@ -417,6 +421,12 @@ type waitAcc struct {
 
 type resAcc struct {
 	open []openInterval
+}
+
+// capKey names a declared capacity: a queue, or a resource pseudonym.
+type capKey struct {
+	resource bool
+	name     string
 }
 
 type openInterval struct {
@@ -669,7 +679,7 @@ func (a *Accumulator) resourceCheck(s *siteAcc, ti int, e *schema.Event, at int6
 	if ti == tStart && e.ResourceID != "" {
 		if r := a.resource(e.ResourceID); r >= 0 {
 			act := a.activityIndex(e.Activity)
-			if a.openInterval(r, k, at, act) {
+			if a.openInterval(r, k, at, act, e) {
 				a.flag(s, cResourceOverlap, e)
 				over = true
 			}
@@ -703,11 +713,13 @@ func (a *Accumulator) resource(id string) int32 {
 	return i
 }
 
-// openInterval opens a service interval of case k at resource r and
-// reports whether the resource is then serving more cases than its
-// capacity. Intervals open for longer than the default service maximum
-// are taken as lost completes and no longer count.
-func (a *Accumulator) openInterval(r int32, k uint64, at int64, act int32) bool {
+// openInterval opens a service interval of case k at resource r for the
+// start e and reports whether the resource is then serving more cases
+// than its capacity: its own, else that of the queue e starts from, else
+// the default (Options.Capacity, Options.ResourceCapacity). Intervals
+// open for longer than the default service maximum are taken as lost
+// completes and no longer count.
+func (a *Accumulator) openInterval(r int32, k uint64, at int64, act int32, e *schema.Event) bool {
 	res := &a.resources[r]
 	kept := res.open[:0]
 	for _, iv := range res.open {
@@ -715,10 +727,31 @@ func (a *Accumulator) openInterval(r int32, k uint64, at int64, act int32) bool 
 			kept = append(kept, iv)
 		}
 	}
-	over := len(kept) >= a.opt.ResourceCapacity
+	over := len(kept) >= a.opt.Capacity.Of(e.ResourceID, e.Queue, a.opt.ResourceCapacity)
 	res.open = append(kept, openInterval{caseKey: k, at: at, act: act})
-	a.resPeak = max(a.resPeak, len(res.open))
+	n := len(res.open)
+	a.resPeak = max(a.resPeak, n)
+	if c := a.opt.Capacity; c != nil {
+		if _, ok := c.Resources[e.ResourceID]; ok {
+			a.capPeak(capKey{true, e.ResourceID}, n)
+		} else if _, ok := c.Queues[e.Queue]; ok {
+			a.capPeak(capKey{false, e.Queue}, n)
+		}
+	}
 	return over
+}
+
+// capPeak records n services held at once under declared capacity k.
+func (a *Accumulator) capPeak(k capKey, n int) {
+	if a.capPeaks == nil {
+		a.capPeaks = map[capKey]int{}
+	}
+	if n > a.capPeaks[k] {
+		if _, ok := a.capPeaks[k]; !ok {
+			k.name = strings.Clone(k.name)
+		}
+		a.capPeaks[k] = n
+	}
 }
 
 // closeInterval ends the open service interval of case k at resource r,

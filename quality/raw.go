@@ -23,6 +23,21 @@ type Raw struct {
 	// (services taken as lost dropped): the capacity the data show, to set
 	// against Settings.ResourceCapacity.
 	ResourcePeak int `json:"resource_peak"`
+	// CapacityPeaks are, for each capacity the profile declares by queue
+	// or by resource (Settings.Capacity), the most services one resource
+	// held at once under it (queues first, each sorted by name); only
+	// those met in the data.
+	CapacityPeaks []CapacityPeak `json:"capacity_peaks,omitempty"`
+}
+
+// CapacityPeak is the occupancy one declared capacity met: the most
+// services a resource held at once when serving from the queue (or, for
+// a resource entry, that resource), against the capacity declared.
+type CapacityPeak struct {
+	Queue    string `json:"queue,omitempty"`
+	Resource string `json:"resource,omitempty"` // a pseudonym
+	Capacity int    `json:"capacity"`
+	Peak     int    `json:"peak"`
 }
 
 // Settings are the options the counts were taken with.
@@ -31,6 +46,8 @@ type Settings struct {
 	MappedFields          []schema.Field `json:"mapped_fields"`
 	MaxSamples            int            `json:"max_samples"`
 	ResourceCapacity      int            `json:"resource_capacity"`
+	// Capacity holds the capacities declared by queue and by resource.
+	Capacity *schema.Capacity `json:"capacity,omitempty"`
 	MaxCaseSeconds        float64        `json:"max_case_seconds"`
 	MaxServiceSeconds     float64        `json:"max_service_seconds"`
 	ClockToleranceSeconds float64        `json:"clock_tolerance_seconds"`
@@ -249,8 +266,17 @@ func cloneRejections(rs []RejectionCount) []RejectionCount {
 	return out
 }
 
+// sortCapacityPeaks orders peaks: queues first, then resources, each by
+// name.
+func sortCapacityPeaks(ps []CapacityPeak) {
+	slices.SortFunc(ps, func(x, y CapacityPeak) int {
+		return cmp.Or(cmp.Compare(x.Resource, y.Resource), cmp.Compare(x.Queue, y.Queue))
+	})
+}
+
 func cloneRaw(r *Raw) Raw {
-	out := Raw{Settings: r.Settings, Uploads: r.Uploads, ResourcePeak: r.ResourcePeak, Samples: map[string][]Sample{}}
+	out := Raw{Settings: r.Settings, Uploads: r.Uploads, ResourcePeak: r.ResourcePeak, Samples: map[string][]Sample{},
+		CapacityPeaks: slices.Clone(r.CapacityPeaks)}
 	out.Settings.MappedFields = slices.Clone(r.Settings.MappedFields)
 	for k, v := range r.Samples {
 		out.Samples[k] = slices.Clone(v)
@@ -267,6 +293,16 @@ func cloneRaw(r *Raw) Raw {
 func mergeRaw(dst, src *Raw) {
 	dst.Uploads += src.Uploads
 	dst.ResourcePeak = max(dst.ResourcePeak, src.ResourcePeak)
+	for _, p := range src.CapacityPeaks {
+		i := slices.IndexFunc(dst.CapacityPeaks, func(q CapacityPeak) bool { return q.Queue == p.Queue && q.Resource == p.Resource })
+		if i < 0 {
+			dst.CapacityPeaks = append(dst.CapacityPeaks, p)
+			continue
+		}
+		dst.CapacityPeaks[i].Peak = max(dst.CapacityPeaks[i].Peak, p.Peak)
+		dst.CapacityPeaks[i].Capacity = p.Capacity
+	}
+	sortCapacityPeaks(dst.CapacityPeaks)
 	if u := src.Settings.UploadedAt; u != nil && (dst.Settings.UploadedAt == nil || u.After(*dst.Settings.UploadedAt)) {
 		dst.Settings.UploadedAt = u
 	}

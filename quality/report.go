@@ -326,6 +326,16 @@ func (r *Report) Findings() iter.Seq2[*Dimension, *Finding] {
 // the accumulator, so it may be called again after more input.
 func (a *Accumulator) Report() *Report {
 	raw := Raw{Settings: a.settings(), Uploads: 1, Samples: map[string][]Sample{}, ResourcePeak: a.resPeak}
+	for k, n := range a.capPeaks {
+		p := CapacityPeak{Peak: n}
+		if k.resource {
+			p.Resource, p.Capacity = k.name, a.opt.Capacity.Resources[k.name]
+		} else {
+			p.Queue, p.Capacity = k.name, a.opt.Capacity.Queues[k.name]
+		}
+		raw.CapacityPeaks = append(raw.CapacityPeaks, p)
+	}
+	sortCapacityPeaks(raw.CapacityPeaks)
 	var accepted int64
 	for _, s := range a.sites {
 		accepted += s.events
@@ -373,7 +383,7 @@ func (a *Accumulator) settings() Settings {
 	o := &a.opt
 	st := Settings{
 		Zone: o.Zone.String(), MappedFields: slices.Clone(o.MappedFields), MaxSamples: o.MaxSamples,
-		ResourceCapacity: o.ResourceCapacity, MaxCaseSeconds: o.MaxCase.Seconds(),
+		ResourceCapacity: o.ResourceCapacity, Capacity: o.Capacity, MaxCaseSeconds: o.MaxCase.Seconds(),
 		MaxServiceSeconds: float64(a.maxService) / 1e6, ClockToleranceSeconds: o.ClockTolerance.Seconds(),
 		EventIDWindowSeconds: o.EventIDWindow.Seconds(),
 		LittleTolerance:      o.LittleTolerance, GapMinMean: o.GapMinMean, GapMinWeeks: o.GapMinWeeks,

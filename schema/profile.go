@@ -92,6 +92,8 @@ type Profile struct {
 	// ResourceCapacity is how many cases one resource may serve at once
 	// (0: the quality model's default, 1).
 	ResourceCapacity int `json:"resource_capacity,omitempty"`
+	// Capacity declares other capacities by queue or resource.
+	Capacity *Capacity `json:"capacity,omitempty"`
 
 	loc *time.Location
 }
@@ -309,6 +311,12 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number from 1 to 1000", clip(s))}
 			}
 			p.ResourceCapacity = n
+		case "capacity":
+			c, err := capacitySetting(kv.value, lines)
+			if err != nil {
+				return nil, err
+			}
+			p.Capacity = c
 		case "terminal":
 			ts, err := terminalTypes(kv.value, kv.key)
 			if err != nil {
@@ -316,7 +324,7 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 			}
 			p.Terminal = ts
 		default:
-			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity or fields)"}
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity, capacity or fields)"}
 		}
 	}
 	if fieldsNode == nil {
@@ -509,8 +517,11 @@ func (p *Profile) validate(lines map[string]int) error {
 			}
 		}
 	}
-	if p.ResourceCapacity < 0 || p.ResourceCapacity > 1000 {
-		return at("resource_capacity", "want a whole number from 1 to 1000")
+	if p.ResourceCapacity < 0 || p.ResourceCapacity > MaxCapacity {
+		return at("resource_capacity", fmt.Sprintf("want a whole number from 1 to %d", MaxCapacity))
+	}
+	if err := validateCapacity(p.Capacity, at); err != nil {
+		return err
 	}
 	for _, t := range p.Terminal {
 		if !t.Valid() || t == Arrival || t == Enqueue {
