@@ -42,16 +42,16 @@ type CapacityPeak struct {
 
 // Settings are the options the counts were taken with.
 type Settings struct {
-	Zone                  string         `json:"zone"`
-	MappedFields          []schema.Field `json:"mapped_fields"`
-	MaxSamples            int            `json:"max_samples"`
-	ResourceCapacity      int            `json:"resource_capacity"`
+	Zone             string         `json:"zone"`
+	MappedFields     []schema.Field `json:"mapped_fields"`
+	MaxSamples       int            `json:"max_samples"`
+	ResourceCapacity int            `json:"resource_capacity"`
 	// Capacity holds the capacities declared by queue and by resource.
-	Capacity *schema.Capacity `json:"capacity,omitempty"`
-	MaxCaseSeconds        float64        `json:"max_case_seconds"`
-	MaxServiceSeconds     float64        `json:"max_service_seconds"`
-	ClockToleranceSeconds float64        `json:"clock_tolerance_seconds"`
-	EventIDWindowSeconds  float64        `json:"event_id_window_seconds"`
+	Capacity              *schema.Capacity `json:"capacity,omitempty"`
+	MaxCaseSeconds        float64          `json:"max_case_seconds"`
+	MaxServiceSeconds     float64          `json:"max_service_seconds"`
+	ClockToleranceSeconds float64          `json:"clock_tolerance_seconds"`
+	EventIDWindowSeconds  float64          `json:"event_id_window_seconds"`
 	// CaseHorizonSeconds is set only in reports made before cases were
 	// whole (an idle case was then cut after this long); today's omit it.
 	CaseHorizonSeconds float64    `json:"case_horizon_seconds,omitempty"`
