@@ -16,6 +16,7 @@ import (
 	"github.com/apache/arrow-go/v18/parquet/file"
 	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
+	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
@@ -192,4 +193,43 @@ func nullsFixture(t *testing.T, n int) (*env, *catalog.Version, map[string]map[s
 		t.Fatalf("%d files", len(v.Manifest.Files))
 	}
 	return e, v, empty, want
+}
+
+// TestInstanceIDExported: the whole CSV export carries instance_id as its
+// last column, a pseudonym where the source named an instance, empty
+// where it did not, as the snapshot holds it (read by the catalog's own
+// reader).
+func TestInstanceIDExported(t *testing.T) {
+	const n = 300
+	e, v, empty, _ := nullsFixture(t, n)
+	var out bytes.Buffer
+	if _, err := WriteCSV(context.Background(), &out, Source{Open: e.opener(), TempDir: e.tmp}, v.Manifest.Files, Filter{}); err != nil {
+		t.Fatal(err)
+	}
+	recs, err := csv.NewReader(&out).ReadAll()
+	if err != nil {
+		t.Fatal(err)
+	}
+	head := recs[0]
+	if len(head) != len(schema.Fields) || head[len(head)-1] != string(schema.FieldInstanceID) {
+		t.Fatalf("header %q", head)
+	}
+	col := slices.Index(head, string(schema.FieldEventID))
+	stored := map[string]string{}
+	for _, ev := range e.allEvents(t, v.Manifest.Files) {
+		stored[ev.EventID] = ev.InstanceID
+	}
+	named := 0
+	for _, r := range recs[1:] {
+		id, inst := r[col], r[len(r)-1]
+		if inst != stored[id] || (inst == "") != empty[id][schema.FieldInstanceID] || inst != "" && !anonymize.IsPseudonym(inst) {
+			t.Fatalf("event %s: instance_id %q, stored %q, empty in the source %v", id, inst, stored[id], empty[id][schema.FieldInstanceID])
+		}
+		if inst != "" {
+			named++
+		}
+	}
+	if len(recs) != n+1 || named == 0 || named == n {
+		t.Errorf("%d records, %d with an instance", len(recs)-1, named)
+	}
 }
