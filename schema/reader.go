@@ -711,7 +711,18 @@ func (rd *Reader) shown(f Field, v string) (string, bool) {
 		if !g.Identifier() || rd.cols[i].kind != kindColumn {
 			continue
 		}
-		id := strings.TrimSpace(rd.vals[i])
+		id := rd.vals[i]
+		if rd.csv == nil {
+			// A JSON line fills vals in field order and may stop at the
+			// value at fault: read the identifiers from the object.
+			id = ""
+			if raw := rd.obj[rd.cols[i].name]; len(raw) > 0 {
+				if json.Unmarshal(raw, &id) != nil {
+					id = string(raw)
+				}
+			}
+		}
+		id = strings.TrimSpace(id)
 		if id != "" && (strings.TrimSpace(v) == id || len(id) >= 4 && strings.Contains(v, id)) {
 			return "", false
 		}

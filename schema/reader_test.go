@@ -891,6 +891,7 @@ func TestRejectionTexts(t *testing.T) {
 	layout := mustProfile(t, strings.Replace(testProfileYAML, "occurred_at: When", "occurred_at: {column: When, layout: \"%d.%m.%Y %H:%M\"}", 1))
 	coded := mustProfile(t, strings.Replace(testProfileYAML, "resource_id: Desk", "resource_id: {column: Desk, codes: {D1: desk-1}}", 1))
 	jsonl := mustProfile(t, "format: jsonl\n"+testProfileYAML)
+	jsonlInst := mustProfile(t, "format: jsonl\n"+testProfileYAML+"  instance_id: Inst\n")
 	for _, tc := range []struct {
 		name         string
 		p            *Profile
@@ -908,6 +909,8 @@ func TestRejectionTexts(t *testing.T) {
 		{"row's desk inside the time", p, testHeader + "V-100,ARR,at DESK-7,a,DESK-7,1\n", FieldOccurredAt, "", []string{"not shown"}, "DESK-7"},
 		{"short id matched whole only", p, testHeader + "1,ARR,2021-13-01,a,D1,1\n", FieldOccurredAt, "2021-13-01", []string{`"2021-13-01"`}, ""},
 		{"identifier code", coded, testHeader + "V-100,ARR,2021-06-01T08:00:00Z,a,D9,1\n", FieldResourceID, "", []string{"the value is not listed"}, "D9"},
+		{"json object holding the row's case id", jsonl, `{"Visit":"V-100","Code":"ARR","When":"2021-06-01T08:00:00Z","Step":{"k":"V-100"},"Desk":"D1"}` + "\n", FieldActivity, "", []string{"an object"}, "V-100"},
+		{"json object holding the row's instance id (a field read after it)", jsonlInst, `{"Step":{"k":"INST-77"},"Visit":"V-100","Code":"ARR","When":"2021-06-01T08:00:00Z","Inst":"INST-77"}` + "\n", FieldActivity, "", []string{"an object"}, "INST-77"},
 		{"json object", jsonl, `{"Visit":"V-100","Code":"ARR","When":"2021-06-01T08:00:00Z","Step":{"k":1}}` + "\n", FieldActivity, `{"k":1}`, []string{"an object"}, ""},
 	} {
 		res := readAll(t, strings.NewReader(tc.data), tc.p)
