@@ -62,13 +62,14 @@ func (p *Pseudonymizer) Pseudonym(f schema.Field, raw string) string {
 	return string(p.out[:])
 }
 
-// Apply replaces e's identifier fields (CaseID, SubjectID, ResourceID) by
-// their pseudonyms, in place; empty fields stay empty. Applying it twice
-// pseudonymizes the pseudonyms: call it once per event.
+// Apply replaces e's identifier fields (CaseID, SubjectID, ResourceID,
+// InstanceID) by their pseudonyms, in place; empty fields stay empty.
+// Applying it twice pseudonymizes the pseudonyms: call it once per event.
 func (p *Pseudonymizer) Apply(e *schema.Event) {
 	e.CaseID = p.Pseudonym(schema.FieldCaseID, e.CaseID)
 	e.SubjectID = p.Pseudonym(schema.FieldSubjectID, e.SubjectID)
 	e.ResourceID = p.Pseudonym(schema.FieldResourceID, e.ResourceID)
+	e.InstanceID = p.Pseudonym(schema.FieldInstanceID, e.InstanceID)
 }
 
 // IsPseudonym reports whether s has the form of a pseudonym: 26 characters

@@ -56,7 +56,7 @@ func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOp
 	if err != nil {
 		return nil, err
 	}
-	acc := quality.NewAccumulator(quality.Options{UploadedAt: opt.Now, WindowFrom: opt.WindowFrom, WindowTo: opt.WindowTo, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, ResourceCapacity: prof.ResourceCapacity, MaxCase: prof.MaxCase()})
+	acc := quality.NewAccumulator(quality.Options{UploadedAt: opt.Now, WindowFrom: opt.WindowFrom, WindowTo: opt.WindowTo, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, ResourceCapacity: prof.ResourceCapacity, MaxCase: prof.MaxCase(), Capacity: prof.Capacity})
 	srt := newSorter(opt.TempDir, opt.RunEvents)
 	defer srt.Close()
 	rd, err := schema.NewReader(src, prof, schema.ReaderOptions{Name: opt.Name, Limits: opt.Limits})

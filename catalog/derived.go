@@ -485,4 +485,5 @@ func cloneStrings(e *schema.Event) {
 	e.Channel = strings.Clone(e.Channel)
 	e.Outcome = strings.Clone(e.Outcome)
 	e.EventID = strings.Clone(e.EventID)
+	e.InstanceID = strings.Clone(e.InstanceID)
 }

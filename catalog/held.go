@@ -419,6 +419,7 @@ func cloneEventInto(dst, e *schema.Event) {
 		Channel:    strings.Clone(e.Channel),
 		Outcome:    strings.Clone(e.Outcome),
 		EventID:    strings.Clone(e.EventID),
+		InstanceID: strings.Clone(e.InstanceID),
 	}
 }
 

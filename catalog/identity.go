@@ -200,7 +200,7 @@ func identityHash(h *maphash.Hash, id Identity, e *schema.Event) uint64 {
 	h.WriteByte(2)
 	for _, v := range [...]string{
 		e.Site, e.CaseID, e.SubjectID, e.ResourceID, string(e.Type), e.Activity,
-		e.Queue, e.Priority, e.Channel, e.Outcome, e.EventID,
+		e.Queue, e.Priority, e.Channel, e.Outcome, e.EventID, e.InstanceID,
 	} {
 		h.WriteString(v)
 		h.WriteByte(0)
@@ -230,7 +230,7 @@ func sameContent(a, b *schema.Event) bool {
 		a.CaseID == b.CaseID && a.Type == b.Type && a.EventID == b.EventID &&
 		a.Activity == b.Activity && a.Queue == b.Queue && a.ResourceID == b.ResourceID &&
 		a.SubjectID == b.SubjectID && a.Site == b.Site && a.Priority == b.Priority &&
-		a.Channel == b.Channel && a.Outcome == b.Outcome
+		a.Channel == b.Channel && a.Outcome == b.Outcome && a.InstanceID == b.InstanceID
 }
 
 // differingFields lists, in schema order, the fields in which a and b

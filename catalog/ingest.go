@@ -176,7 +176,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	raw := &hashCounter{h: sha256.New()}
 	st.ds, st.up, st.raw = ds, &up, raw
 	tee := io.TeeReader(src, raw)
-	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity, MaxCase: prof.MaxCase()}
+	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity, MaxCase: prof.MaxCase(), Capacity: prof.Capacity}
 	if ds.WindowFrom != nil {
 		qopt.WindowFrom = *ds.WindowFrom
 	}

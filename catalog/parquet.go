@@ -157,6 +157,7 @@ type storedEvent struct {
 	Channel    *string   `parquet:"channel,dict"`
 	Outcome    *string   `parquet:"outcome,dict"`
 	EventID    *string   `parquet:"event_id,plain"`
+	InstanceID *string   `parquet:"instance_id,plain"`
 }
 
 func nullable(s *string) *string {
@@ -281,7 +282,8 @@ func (ew *EventWriter) flush() error {
 			e := &ew.evs[i]
 			recs[i] = storedEvent{Site: e.Site, CaseID: e.CaseID, SubjectID: nullable(&e.SubjectID), ResourceID: nullable(&e.ResourceID),
 				Type: string(e.Type), Activity: nullable(&e.Activity), Queue: nullable(&e.Queue), OccurredAt: e.OccurredAt,
-				Priority: nullable(&e.Priority), Channel: nullable(&e.Channel), Outcome: nullable(&e.Outcome), EventID: nullable(&e.EventID)}
+				Priority: nullable(&e.Priority), Channel: nullable(&e.Channel), Outcome: nullable(&e.Outcome), EventID: nullable(&e.EventID),
+				InstanceID: nullable(&e.InstanceID)}
 		}
 		if _, err := ew.g.Write(recs); err != nil {
 			return fmt.Errorf("parquet: %w", err)

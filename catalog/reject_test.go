@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"fmt"
 	"strings"
 	"sync"
 	"testing"
@@ -268,5 +269,57 @@ func TestUploadLimits(t *testing.T) {
 	e.open(t, func(o *Options) { o.Limits = schema.Limits{MaxRows: 1000} })
 	if res := e.ingest(t, "p", "d", genCSV(genOpt{Seed: 8, N: 1000}), "ok.csv"); res.Upload.Status != UploadAccepted {
 		t.Errorf("1000 rows: %+v", res.Upload)
+	}
+}
+
+// TestRejectedRowsSay: the version's report names each rejected row by
+// file, line, column, field and rule, with the offending text of a
+// non-identifier field (the unknown code, the timestamp as read) and what
+// is wrong with it; the text report shows them. The row whose time holds
+// its own case id shows no text.
+func TestRejectedRowsSay(t *testing.T) {
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "d", func(s *DatasetSpec) { r := 0.9; s.RejectAbove = &r })
+	good := "site,case_id,event_type,occurred_at\ns,c1,arrival,2026-05-01T10:00:00Z\n"
+	e.ingest(t, "p", "d", []byte(good), "monday.csv")
+	bad := "site,case_id,event_type,occurred_at\n" +
+		"s,c2,arrival,2026-05-02T10:00:00Z\n" +
+		"s,c3,teleport,2026-05-02T10:05:00Z\n" +
+		"s,c4,arrival,02/05/2026 10:10\n" +
+		"s,CASE-9931,arrival,CASE-9931\n"
+	v := e.ingest(t, "p", "d", []byte(bad), "tuesday.csv").Version
+	q := e.report(t, v)
+	var got []string
+	for _, rc := range q.Rejections {
+		for _, s := range rc.Samples {
+			got = append(got, fmt.Sprintf("%s %s:%d %s/%s %q", rc.Reason, s.File, s.Line, s.Column, s.Field, s.Text))
+		}
+	}
+	want := []string{
+		`bad_timestamp tuesday.csv:4 occurred_at/occurred_at "02/05/2026 10:10"`,
+		`bad_timestamp tuesday.csv:5 occurred_at/occurred_at ""`,
+		`unknown_code tuesday.csv:3 event_type/event_type "teleport"`,
+	}
+	if fmt.Sprint(got) != fmt.Sprint(want) {
+		t.Errorf("rejection samples\n%s\nwant\n%s", strings.Join(got, "\n"), strings.Join(want, "\n"))
+	}
+	var text bytes.Buffer
+	if err := q.Text(&text, false); err != nil {
+		t.Fatal(err)
+	}
+	for _, w := range []string{
+		`unknown_code: tuesday.csv line 3, column event_type (event_type): code "teleport" is not an event type`,
+		`bad_timestamp: tuesday.csv line 4, column occurred_at (occurred_at): "02/05/2026 10:10" is not an RFC 3339 / ISO 8601 timestamp`,
+		`bad_timestamp: tuesday.csv line 5, column occurred_at (occurred_at): the value (not shown: it holds an identifier of the row)`,
+	} {
+		if !strings.Contains(text.String(), w) {
+			t.Errorf("text report lacks %q:\n%s", w, text.String())
+		}
+	}
+	if strings.Contains(text.String(), "CASE-9931") {
+		t.Error("the text report shows a raw case id")
+	}
+	for _, hit := range grepDir(t, e.dir, []string{"CASE-9931"}) {
+		t.Error(hit)
 	}
 }

@@ -103,7 +103,7 @@ func (s *sorter) Add(e *schema.Event) error {
 // eventBytes is the length of e's strings.
 func eventBytes(e *schema.Event) int {
 	return len(e.Site) + len(e.CaseID) + len(e.SubjectID) + len(e.ResourceID) + len(e.Type) +
-		len(e.Activity) + len(e.Queue) + len(e.Priority) + len(e.Channel) + len(e.Outcome) + len(e.EventID)
+		len(e.Activity) + len(e.Queue) + len(e.Priority) + len(e.Channel) + len(e.Outcome) + len(e.EventID) + len(e.InstanceID)
 }
 
 func lessEvent(a, b *schema.Event) int {
@@ -491,7 +491,7 @@ func (h *runHeap) Pop() any {
 	return r
 }
 
-// The run format: per event, the twelve fields in schema order, strings as
+// The run format: per event, the thirteen fields in schema order, strings as
 // uvarint length + bytes, occurred_at as varint Unix microseconds, then the
 // source line as uvarint.
 
@@ -512,6 +512,7 @@ func encodeEvent(b []byte, e *schema.Event) []byte {
 	str(e.Channel)
 	str(e.Outcome)
 	str(e.EventID)
+	str(e.InstanceID)
 	return binary.AppendUvarint(b, uint64(e.Line))
 }
 
@@ -604,6 +605,7 @@ func (r *run) next() (bool, error) {
 	e.Channel = str(true)
 	e.Outcome = str(true)
 	e.EventID = str(false)
+	e.InstanceID = str(false)
 	if err == nil {
 		var line uint64
 		line, err = binary.ReadUvarint(r.r)

@@ -71,6 +71,9 @@ type Options struct {
 	// ResourceCapacity is how many cases one resource may serve at once.
 	// Default [DefaultResourceCapacity].
 	ResourceCapacity int
+	// Capacity holds capacities by the queue a service starts from and by
+	// resource (pseudonym), before ResourceCapacity (schema.Capacity.Of).
+	Capacity *schema.Capacity
 	// ClockTolerance is how far a site's time may step back between two
 	// consecutive rows in file order before the clock counts as going
 	// backwards. Default [DefaultClockTolerance].
@@ -169,6 +172,7 @@ type Accumulator struct {
 	maxServiceAct  map[string]int64
 	learned        []learnedBound // by activity, for lost starts
 	resPeak        int            // most services one resource held at once
+	capPeaks       map[capKey]int // the same, per declared queue or resource
 	learnedIndex   map[string]int32
 	idWindow       uint64
 	clockTol       int64
@@ -278,6 +282,7 @@ const (
 	cExactDuplicate
 	cDuplicateEventID
 	cDuplicateCaseTypeTime
+	cDuplicateAcrossFiles
 	cWaitNoEnqueue
 	cWaitNoStart
 	cOrderBreach
@@ -290,7 +295,7 @@ var codeNames = [numCodes]string{
 	CodeCaseTooLong, CodeServiceTooLong, CodeSameInstantOrder, CodeSameInstant,
 	CodeResourceOverlap, CodeSiteChangeWithoutTransfer, CodeCensusNegative,
 	CodeExactDuplicate, CodeDuplicateEventID, CodeDuplicateCaseTypeTime,
-	CodeWaitNoEnqueue, CodeWaitNoStart, CodeOrderBreach,
+	CodeDuplicateAcrossFiles, CodeWaitNoEnqueue, CodeWaitNoStart, CodeOrderBreach,
 }
 
 // Resolution grids, finest first.
@@ -354,6 +359,7 @@ const (
 	fChannel
 	fOutcome
 	fEventID
+	fInstanceID
 	numFields
 )
 
@@ -415,6 +421,12 @@ type waitAcc struct {
 
 type resAcc struct {
 	open []openInterval
+}
+
+// capKey names a declared capacity: a queue, or a resource pseudonym.
+type capKey struct {
+	resource bool
+	name     string
 }
 
 type openInterval struct {
@@ -520,8 +532,10 @@ func (a *Accumulator) site(name string) *siteAcc {
 	return s
 }
 
-// Reject counts one rejected source row. Only its line, column, field and
-// reason are kept, never its message.
+// Reject counts one rejected source row. Its line, column, field, reason,
+// message and offending text are kept for the first MaxSamples of each
+// reason; the text only for a non-identifier field (schema.Rejection
+// leaves it empty otherwise; checked again here).
 func (a *Accumulator) Reject(r schema.Rejection) {
 	a.rejected++
 	f := a.reasons[r.Reason]
@@ -531,7 +545,11 @@ func (a *Accumulator) Reject(r schema.Rejection) {
 	}
 	f.n++
 	if len(f.samples) < a.opt.MaxSamples {
-		f.samples = append(f.samples, Sample{Line: r.Line, Column: r.Column, Field: r.Field})
+		s := Sample{Line: r.Line, Column: r.Column, Field: r.Field, Message: r.Message}
+		if r.Field != "" && !r.Field.Identifier() {
+			s.Text = r.Text
+		}
+		f.samples = append(f.samples, s)
 	}
 }
 
@@ -632,14 +650,21 @@ func (a *Accumulator) resourceCheck(s *siteAcc, ti int, e *schema.Event, at int6
 	if ti != tStart && ti != tComplete {
 		return false
 	}
-	// A service is keyed by its case and activity: parallel activities of
-	// one case (a test during an assessment) pair apart, as the per-case
+	// A service is keyed by its case and activity instance, or without
+	// one by its case and activity: parallel activities of one case (a
+	// test during an assessment), and parallel executions of one activity
+	// where the log names instances, pair apart, as the per-case
 	// computation pairs them (cases.Builder).
 	var h maphash.Hash
 	h.SetSeed(a.seed)
 	h.WriteString(e.CaseID)
 	h.WriteByte(0)
-	h.WriteString(e.Activity)
+	if e.InstanceID != "" {
+		h.WriteByte(1)
+		h.WriteString(e.InstanceID)
+	} else {
+		h.WriteString(e.Activity)
+	}
 	k := nonZero(h.Sum64())
 	if o, ok := a.svc[k]; ok {
 		a.closeInterval(o.res, k)
@@ -654,7 +679,7 @@ func (a *Accumulator) resourceCheck(s *siteAcc, ti int, e *schema.Event, at int6
 	if ti == tStart && e.ResourceID != "" {
 		if r := a.resource(e.ResourceID); r >= 0 {
 			act := a.activityIndex(e.Activity)
-			if a.openInterval(r, k, at, act) {
+			if a.openInterval(r, k, at, act, e) {
 				a.flag(s, cResourceOverlap, e)
 				over = true
 			}
@@ -688,11 +713,13 @@ func (a *Accumulator) resource(id string) int32 {
 	return i
 }
 
-// openInterval opens a service interval of case k at resource r and
-// reports whether the resource is then serving more cases than its
-// capacity. Intervals open for longer than the default service maximum
-// are taken as lost completes and no longer count.
-func (a *Accumulator) openInterval(r int32, k uint64, at int64, act int32) bool {
+// openInterval opens a service interval of case k at resource r for the
+// start e and reports whether the resource is then serving more cases
+// than its capacity: its own, else that of the queue e starts from, else
+// the default (Options.Capacity, Options.ResourceCapacity). Intervals
+// open for longer than the default service maximum are taken as lost
+// completes and no longer count.
+func (a *Accumulator) openInterval(r int32, k uint64, at int64, act int32, e *schema.Event) bool {
 	res := &a.resources[r]
 	kept := res.open[:0]
 	for _, iv := range res.open {
@@ -700,10 +727,31 @@ func (a *Accumulator) openInterval(r int32, k uint64, at int64, act int32) bool 
 			kept = append(kept, iv)
 		}
 	}
-	over := len(kept) >= a.opt.ResourceCapacity
+	over := len(kept) >= a.opt.Capacity.Of(e.ResourceID, e.Queue, a.opt.ResourceCapacity)
 	res.open = append(kept, openInterval{caseKey: k, at: at, act: act})
-	a.resPeak = max(a.resPeak, len(res.open))
+	n := len(res.open)
+	a.resPeak = max(a.resPeak, n)
+	if c := a.opt.Capacity; c != nil {
+		if _, ok := c.Resources[e.ResourceID]; ok {
+			a.capPeak(capKey{true, e.ResourceID}, n)
+		} else if _, ok := c.Queues[e.Queue]; ok {
+			a.capPeak(capKey{false, e.Queue}, n)
+		}
+	}
 	return over
+}
+
+// capPeak records n services held at once under declared capacity k.
+func (a *Accumulator) capPeak(k capKey, n int) {
+	if a.capPeaks == nil {
+		a.capPeaks = map[capKey]int{}
+	}
+	if n > a.capPeaks[k] {
+		if _, ok := a.capPeaks[k]; !ok {
+			k.name = strings.Clone(k.name)
+		}
+		a.capPeaks[k] = n
+	}
 }
 
 // closeInterval ends the open service interval of case k at resource r,
@@ -734,6 +782,7 @@ func (a *Accumulator) countFields(s *siteAcc, ti int, e *schema.Event) {
 	a.optional(s, tn, fChannel, e.Channel, e)
 	a.optional(s, tn, fOutcome, e.Outcome, e)
 	a.optional(s, tn, fEventID, e.EventID, e)
+	a.optional(s, tn, fInstanceID, e.InstanceID, e)
 }
 
 func (a *Accumulator) optional(s *siteAcc, tn *[numFields]int64, i int, v string, e *schema.Event) {

@@ -12,6 +12,7 @@ var Applies = map[schema.Field][]schema.EventType{
 	schema.FieldQueue:      {schema.Enqueue, schema.Start, schema.Abandon, schema.Transfer},
 	schema.FieldChannel:    {schema.Arrival},
 	schema.FieldOutcome:    {schema.Departure},
+	schema.FieldInstanceID: {schema.Start, schema.Complete},
 }
 
 // applies reports whether field f is judged on events of type t.

@@ -59,45 +59,50 @@ type caseState struct {
 	site    int   // site index of the latest event
 	typesAt uint8 // event types seen at the latest instant
 	wait    int32 // (queue, activity) index+1 of the pending enqueue
-	// seenAt are the (type, activity) pairs seen at the latest instant,
-	// up to maxSeenAt, for the duplicate check.
+	// seenAt are the (type, activity, instance) seen at the latest
+	// instant, up to maxSeenAt, for the duplicate check.
 	seenAt []typeActivity
 }
 
 type typeActivity struct {
-	ti       int
-	activity string
+	ti                 int
+	activity, instance string
+	line               int64 // source line; 0 for an event read back from a stored file
 }
 
 // maxSeenAt bounds the (type, activity) pairs one instant of a case keeps.
 const maxSeenAt = 64
 
-// seen reports whether (ti, act) was seen at the latest instant, and
-// records it.
-func (st *caseState) seen(ti int, act string) bool {
-	for _, x := range st.seenAt {
-		if x.ti == ti && x.activity == act {
-			return true
+// seen returns the earlier event of e's (type ti, activity, activity
+// instance) at the latest instant, or nil after recording e: two starts
+// of one activity at one instant are one event twice, unless they name
+// different instances.
+func (st *caseState) seen(ti int, e *schema.Event) *typeActivity {
+	for i := range st.seenAt {
+		if x := &st.seenAt[i]; x.ti == ti && x.activity == e.Activity && x.instance == e.InstanceID {
+			return x
 		}
 	}
 	if len(st.seenAt) < maxSeenAt {
-		st.seenAt = append(st.seenAt, typeActivity{ti, strings.Clone(act)})
+		st.seenAt = append(st.seenAt, typeActivity{ti, strings.Clone(e.Activity), strings.Clone(e.InstanceID), e.Line})
 	}
-	return false
+	return nil
 }
 
-// bounds reports whether an event of type ti and activity act, at the
-// latest instant, would bound one interval with an event seen there: a
-// start and a complete bound a service only within one activity (the
-// complete of one step and the start of the next at one instant are a
-// plain handover), the other pairs bound case-level intervals. Past
-// maxSeenAt pairs it answers by type alone.
-func (st *caseState) bounds(ti int, act string) bool {
+// bounds reports whether e (of type index ti), at the latest instant,
+// would bound one interval with an event seen there: a start and a
+// complete bound a service only within one activity instance (the same
+// activity, and the same instance_id where both name one; the complete of
+// one step and the start of the next at one instant are a plain
+// handover); the other pairs bound case-level intervals. Past maxSeenAt
+// events it answers by type alone.
+func (st *caseState) bounds(ti int, e *schema.Event) bool {
 	if ti != tStart && ti != tComplete || len(st.seenAt) >= maxSeenAt {
 		return true
 	}
 	for _, x := range st.seenAt {
-		if conflicts[ti]&(1<<x.ti) != 0 && x.activity == act {
+		if conflicts[ti]&(1<<x.ti) != 0 && x.activity == e.Activity &&
+			(x.instance == "" || e.InstanceID == "" || x.instance == e.InstanceID) {
 			return true
 		}
 	}
@@ -266,7 +271,7 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 	bit := uint8(1) << ti
 	if st.id == "" {
 		*st = caseState{id: strings.Clone(e.CaseID), first: at, rec: at, site: s.idx, typesAt: bit, seenAt: st.seenAt[:0]}
-		st.seen(ti, e.Activity)
+		st.seen(ti, e)
 		if ti != tArrival {
 			// Already in the system when the data begins (or its arrival
 			// is lost): it enters the census at its first event.
@@ -276,20 +281,28 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 	} else {
 		if st.rec == at {
 			a.flag(s, cSameInstant, e)
-			if st.typesAt&conflicts[ti] != 0 && st.bounds(ti, e.Activity) {
+			if st.typesAt&conflicts[ti] != 0 && st.bounds(ti, e) {
 				a.flag(s, cSameInstantOrder, e)
 				acc = true
 			}
-			if st.seen(ti, e.Activity) {
+			if x := st.seen(ti, e); x != nil {
 				a.flag(s, cDuplicateCaseTypeTime, e)
 				uni = true
+				// In a version's pass the upload's events carry their
+				// source lines and those read back from stored files none:
+				// such a pair is certainly in two files. Samples only; the
+				// count is WithCases'.
+				if (x.line > 0) != (e.Line > 0) && len(a.samples[cDuplicateAcrossFiles]) < a.opt.MaxSamples {
+					at := e.OccurredAt.UTC()
+					a.samples[cDuplicateAcrossFiles] = append(a.samples[cDuplicateAcrossFiles], Sample{CaseID: strings.Clone(e.CaseID), Site: s.name, At: &at})
+				}
 			}
 			st.typesAt |= bit
 		} else {
 			st.rec = at
 			st.typesAt = bit
 			st.seenAt = st.seenAt[:0]
-			st.seen(ti, e.Activity)
+			st.seen(ti, e)
 			st.flags &^= csNowFlags
 		}
 		if st.site != s.idx {

@@ -51,6 +51,10 @@ const (
 	CodeExactDuplicate        = "exact_duplicate"
 	CodeDuplicateEventID      = "duplicate_event_id"
 	CodeDuplicateCaseTypeTime = "duplicate_case_type_time"
+	// CodeDuplicateAcrossFiles counts, in a version's report, the
+	// duplicates of case, type, activity (instance) and instant whose
+	// rows are in different files of the version (see WithCases).
+	CodeDuplicateAcrossFiles = "duplicate_across_files"
 	// internal
 	CodeOrderBreach = "order_breach" // the ingest broke the time order
 )
@@ -109,6 +113,7 @@ var why = map[string]string{
 	CodeExactDuplicate:                    "Repeated copies of one event inflate arrival and service counts.",
 	CodeDuplicateEventID:                  "Two different events sharing an event id means an id is reused or a row was re-exported with changes, so joins on event_id go wrong.",
 	CodeDuplicateCaseTypeTime:             "Two events of one case with the same type, activity and instant are likely one event exported twice with a changed detail, which inflates counts.",
+	CodeDuplicateAcrossFiles:              "The same event of a case (type, activity, instant) sent in two files of the version, likely re-exported with a changed detail: no check of one file alone can see it, and every count over the version includes it twice.",
 	CodeOrderBreach:                       "The ingest fed events out of time order, so duplicate and per-case checks skipped them; this is a program fault, not a data fault.",
 }
 

@@ -599,5 +599,8 @@ func findings(r *Report, all *SiteRaw, sum *siteDerived, set *Settings, rejected
 	for _, code := range []string{CodeExactDuplicate, CodeDuplicateEventID, CodeDuplicateCaseTypeTime} {
 		add(DimUniqueness, finding(code, c[code], rows.Accepted, "accepted rows", smp[code]), false)
 	}
+	// Counted within duplicate_case_type_time already: said apart, not
+	// scored twice.
+	add(DimUniqueness, finding(CodeDuplicateAcrossFiles, c[CodeDuplicateAcrossFiles], rows.Accepted, "accepted rows", smp[CodeDuplicateAcrossFiles]), true)
 	return out
 }

@@ -102,7 +102,7 @@ func (s *instantSet) hash(e *schema.Event, seed maphash.Seed) uint64 {
 	h.SetSeed(seed)
 	for _, v := range [...]string{
 		e.Site, e.CaseID, e.SubjectID, e.ResourceID, string(e.Type), e.Activity,
-		e.Queue, e.Priority, e.Channel, e.Outcome, e.EventID,
+		e.Queue, e.Priority, e.Channel, e.Outcome, e.EventID, e.InstanceID,
 	} {
 		h.WriteString(v)
 		h.WriteByte(0)
@@ -117,5 +117,6 @@ func sameEvent(a, b *schema.Event) bool {
 		a.OccurredAt.UnixMicro() == b.OccurredAt.UnixMicro() &&
 		a.EventID == b.EventID && a.Activity == b.Activity && a.Queue == b.Queue &&
 		a.ResourceID == b.ResourceID && a.SubjectID == b.SubjectID && a.Site == b.Site &&
-		a.Priority == b.Priority && a.Channel == b.Channel && a.Outcome == b.Outcome
+		a.Priority == b.Priority && a.Channel == b.Channel && a.Outcome == b.Outcome &&
+		a.InstanceID == b.InstanceID
 }

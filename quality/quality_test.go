@@ -448,13 +448,33 @@ func TestText(t *testing.T) {
 }
 
 // The report must not hold identifier values other than case pseudonyms
-// in samples: subject and resource values must not appear.
+// in samples: subject and resource values must not appear, nor the text
+// of a rejected identifier field (even one a caller set by mistake). The
+// offending text of a non-identifier field, and the message, are kept.
 func TestNoValuesInReport(t *testing.T) {
-	b, _ := json.Marshal(run(fixtureOptions(), stream(2, 1, 1), nil, []schema.Rejection{{Line: 3, Reason: schema.ReasonBadTimestamp, Message: "secret"}}))
+	rejs := []schema.Rejection{
+		{Line: 3, Field: schema.FieldOccurredAt, Reason: schema.ReasonBadTimestamp, Message: `"2026-13-01" is not an RFC 3339 / ISO 8601 timestamp`, Text: "2026-13-01"},
+		{Line: 4, Field: schema.FieldCaseID, Reason: schema.ReasonUnknownCode, Message: "the value is not listed under codes", Text: "secret-case"},
+		{Line: 5, Field: schema.FieldInstanceID, Reason: schema.ReasonBadValue, Message: "the value is an object", Text: "secret-inst"},
+	}
+	r := run(fixtureOptions(), stream(2, 1, 1), nil, rejs)
+	b, _ := json.Marshal(r)
 	for _, v := range []string{"subj-", "R-", "shared-", "secret"} {
 		if bytes.Contains(b, []byte(v)) {
 			t.Errorf("report holds value %s", v)
 		}
+	}
+	var texts []string
+	for _, rc := range r.Rejections {
+		for _, s := range rc.Samples {
+			texts = append(texts, s.Text+"|"+s.Message)
+		}
+	}
+	slices.Sort(texts)
+	want := []string{"2026-13-01|" + rejs[0].Message, "|" + rejs[1].Message, "|" + rejs[2].Message}
+	slices.Sort(want)
+	if !slices.Equal(texts, want) {
+		t.Errorf("rejection samples %q, want %q", texts, want)
 	}
 }
 

@@ -23,18 +23,35 @@ type Raw struct {
 	// (services taken as lost dropped): the capacity the data show, to set
 	// against Settings.ResourceCapacity.
 	ResourcePeak int `json:"resource_peak"`
+	// CapacityPeaks are, for each capacity the profile declares by queue
+	// or by resource (Settings.Capacity), the most services one resource
+	// held at once under it (queues first, each sorted by name); only
+	// those met in the data.
+	CapacityPeaks []CapacityPeak `json:"capacity_peaks,omitempty"`
+}
+
+// CapacityPeak is the occupancy one declared capacity met: the most
+// services a resource held at once when serving from the queue (or, for
+// a resource entry, that resource), against the capacity declared.
+type CapacityPeak struct {
+	Queue    string `json:"queue,omitempty"`
+	Resource string `json:"resource,omitempty"` // a pseudonym
+	Capacity int    `json:"capacity"`
+	Peak     int    `json:"peak"`
 }
 
 // Settings are the options the counts were taken with.
 type Settings struct {
-	Zone                  string         `json:"zone"`
-	MappedFields          []schema.Field `json:"mapped_fields"`
-	MaxSamples            int            `json:"max_samples"`
-	ResourceCapacity      int            `json:"resource_capacity"`
-	MaxCaseSeconds        float64        `json:"max_case_seconds"`
-	MaxServiceSeconds     float64        `json:"max_service_seconds"`
-	ClockToleranceSeconds float64        `json:"clock_tolerance_seconds"`
-	EventIDWindowSeconds  float64        `json:"event_id_window_seconds"`
+	Zone             string         `json:"zone"`
+	MappedFields     []schema.Field `json:"mapped_fields"`
+	MaxSamples       int            `json:"max_samples"`
+	ResourceCapacity int            `json:"resource_capacity"`
+	// Capacity holds the capacities declared by queue and by resource.
+	Capacity              *schema.Capacity `json:"capacity,omitempty"`
+	MaxCaseSeconds        float64          `json:"max_case_seconds"`
+	MaxServiceSeconds     float64          `json:"max_service_seconds"`
+	ClockToleranceSeconds float64          `json:"clock_tolerance_seconds"`
+	EventIDWindowSeconds  float64          `json:"event_id_window_seconds"`
 	// CaseHorizonSeconds is set only in reports made before cases were
 	// whole (an idle case was then cut after this long); today's omit it.
 	CaseHorizonSeconds float64    `json:"case_horizon_seconds,omitempty"`
@@ -249,8 +266,17 @@ func cloneRejections(rs []RejectionCount) []RejectionCount {
 	return out
 }
 
+// sortCapacityPeaks orders peaks: queues first, then resources, each by
+// name.
+func sortCapacityPeaks(ps []CapacityPeak) {
+	slices.SortFunc(ps, func(x, y CapacityPeak) int {
+		return cmp.Or(cmp.Compare(x.Resource, y.Resource), cmp.Compare(x.Queue, y.Queue))
+	})
+}
+
 func cloneRaw(r *Raw) Raw {
-	out := Raw{Settings: r.Settings, Uploads: r.Uploads, ResourcePeak: r.ResourcePeak, Samples: map[string][]Sample{}}
+	out := Raw{Settings: r.Settings, Uploads: r.Uploads, ResourcePeak: r.ResourcePeak, Samples: map[string][]Sample{},
+		CapacityPeaks: slices.Clone(r.CapacityPeaks)}
 	out.Settings.MappedFields = slices.Clone(r.Settings.MappedFields)
 	for k, v := range r.Samples {
 		out.Samples[k] = slices.Clone(v)
@@ -267,6 +293,16 @@ func cloneRaw(r *Raw) Raw {
 func mergeRaw(dst, src *Raw) {
 	dst.Uploads += src.Uploads
 	dst.ResourcePeak = max(dst.ResourcePeak, src.ResourcePeak)
+	for _, p := range src.CapacityPeaks {
+		i := slices.IndexFunc(dst.CapacityPeaks, func(q CapacityPeak) bool { return q.Queue == p.Queue && q.Resource == p.Resource })
+		if i < 0 {
+			dst.CapacityPeaks = append(dst.CapacityPeaks, p)
+			continue
+		}
+		dst.CapacityPeaks[i].Peak = max(dst.CapacityPeaks[i].Peak, p.Peak)
+		dst.CapacityPeaks[i].Capacity = p.Capacity
+	}
+	sortCapacityPeaks(dst.CapacityPeaks)
 	if u := src.Settings.UploadedAt; u != nil && (dst.Settings.UploadedAt == nil || u.After(*dst.Settings.UploadedAt)) {
 		dst.Settings.UploadedAt = u
 	}
@@ -381,8 +417,11 @@ var caseCodes = []string{CodeCaseTooLong, CodeWaitNoEnqueue, CodeWaitNoStart}
 // events, their stage coverage,
 // the census sums of Little's law (arrivals, completed stays, sojourn,
 // time in system), case_too_long, and the wait coverage. So a case whose
-// events span uploads counts once. Row-level findings (order checks within
-// a case, duplicates, overlaps) stay those found within each upload.
+// events span uploads counts once. Duplicates of case, type, activity and
+// instant are counted over the whole version, those across files apart
+// (duplicate_across_files). Other row-level findings (order checks within
+// a case, overlaps, duplicate event ids) stay those found within each
+// upload.
 func WithCases(merged, cases *Report) *Report {
 	raw := cloneRaw(&merged.Raw)
 	bySite := map[string]*SiteRaw{}
@@ -409,6 +448,34 @@ func WithCases(merged, cases *Report) *Report {
 				delete(s.Counts, code)
 			}
 		}
+		// Duplicates of case, type, activity and instant: each file's
+		// report counts those within the file; the pass over the whole
+		// version counts them all. The difference are the rows that
+		// repeat, in another file, an event of their case (per group of
+		// equal events: the files holding it, less one). Those rows enter
+		// the uniqueness rows too (a row also flagged in its upload for a
+		// reused event_id would count twice there). A merged report that
+		// holds such a count already (of an earlier WithCases) has it
+		// taken out first.
+		old := s.Counts[CodeDuplicateAcrossFiles]
+		within := s.Counts[CodeDuplicateCaseTypeTime] - old
+		s.Counts[CodeDuplicateCaseTypeTime] = within
+		s.UniquenessRows -= old
+		if within == 0 {
+			delete(s.Counts, CodeDuplicateCaseTypeTime)
+		}
+		if across := c.Counts[CodeDuplicateCaseTypeTime] - within; across > 0 {
+			s.Counts[CodeDuplicateAcrossFiles] = across
+			s.Counts[CodeDuplicateCaseTypeTime] = within + across
+			s.UniquenessRows += across
+		} else {
+			delete(s.Counts, CodeDuplicateAcrossFiles)
+		}
+	}
+	if smp := cases.Raw.Samples[CodeDuplicateAcrossFiles]; len(smp) > 0 {
+		raw.Samples[CodeDuplicateAcrossFiles] = slices.Clone(smp)
+	} else {
+		delete(raw.Samples, CodeDuplicateAcrossFiles)
 	}
 	raw.Waits = slices.Clone(cases.Raw.Waits)
 	for _, code := range caseCodes {

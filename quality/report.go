@@ -256,8 +256,9 @@ type Finding struct {
 
 // Sample locates one row of a finding: its source line and, for accepted
 // rows, the case pseudonym; for rejected rows, the column and field at
-// fault when known; for a gap, the site and the hour or day. It never
-// holds a field value.
+// fault when known, what is wrong (Message) and the offending text of a
+// non-identifier field (Text); for a gap, the site and the hour or day.
+// It never holds an identifier's value.
 type Sample struct {
 	// File names the uploaded file the line is in (its name as uploaded),
 	// set when the reports of a version's uploads are merged.
@@ -268,6 +269,10 @@ type Sample struct {
 	Field  schema.Field `json:"field,omitempty"`
 	Site   string       `json:"site,omitempty"`
 	At     *time.Time   `json:"at,omitempty"`
+	// Text is a rejected row's offending value as read (schema.Rejection's
+	// Text: never an identifier's), Message what is wrong with it.
+	Text    string `json:"text,omitempty"`
+	Message string `json:"message,omitempty"`
 }
 
 // RejectedShare is the share of rows rejected, 0 when there were no rows;
@@ -321,6 +326,16 @@ func (r *Report) Findings() iter.Seq2[*Dimension, *Finding] {
 // the accumulator, so it may be called again after more input.
 func (a *Accumulator) Report() *Report {
 	raw := Raw{Settings: a.settings(), Uploads: 1, Samples: map[string][]Sample{}, ResourcePeak: a.resPeak}
+	for k, n := range a.capPeaks {
+		p := CapacityPeak{Peak: n}
+		if k.resource {
+			p.Resource, p.Capacity = k.name, a.opt.Capacity.Resources[k.name]
+		} else {
+			p.Queue, p.Capacity = k.name, a.opt.Capacity.Queues[k.name]
+		}
+		raw.CapacityPeaks = append(raw.CapacityPeaks, p)
+	}
+	sortCapacityPeaks(raw.CapacityPeaks)
 	var accepted int64
 	for _, s := range a.sites {
 		accepted += s.events
@@ -368,7 +383,7 @@ func (a *Accumulator) settings() Settings {
 	o := &a.opt
 	st := Settings{
 		Zone: o.Zone.String(), MappedFields: slices.Clone(o.MappedFields), MaxSamples: o.MaxSamples,
-		ResourceCapacity: o.ResourceCapacity, MaxCaseSeconds: o.MaxCase.Seconds(),
+		ResourceCapacity: o.ResourceCapacity, Capacity: o.Capacity, MaxCaseSeconds: o.MaxCase.Seconds(),
 		MaxServiceSeconds: float64(a.maxService) / 1e6, ClockToleranceSeconds: o.ClockTolerance.Seconds(),
 		EventIDWindowSeconds: o.EventIDWindow.Seconds(),
 		LittleTolerance:      o.LittleTolerance, GapMinMean: o.GapMinMean, GapMinWeeks: o.GapMinWeeks,

@@ -68,6 +68,13 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	if r.Raw.ResourcePeak > 0 {
 		fmt.Fprintf(bw, "\nresource capacity %d (set); at most %d services open at one resource at once (in the data)\n",
 			r.Raw.Settings.ResourceCapacity, r.Raw.ResourcePeak)
+		for _, c := range r.Raw.CapacityPeaks {
+			what := "queue " + c.Queue
+			if c.Resource != "" {
+				what = "resource " + c.Resource
+			}
+			fmt.Fprintf(bw, "  %s: capacity %d (set); at most %d at once (in the data)\n", what, c.Capacity, c.Peak)
+		}
 	}
 
 	// Little's law.
@@ -150,6 +157,14 @@ func (r *Report) Text(w io.Writer, color bool) error {
 			}
 			if s.Field != "" {
 				where += " (" + string(s.Field) + ")"
+			}
+			if s.Message != "" {
+				where += ": " + s.Message
+			}
+			// The offending text, quoted (control characters escaped),
+			// unless the message quotes it already.
+			if q := strconv.Quote(s.Text); s.Text != "" && !strings.Contains(s.Message, q) {
+				where += " (read " + q + ")"
 			}
 			rej = append(rej, string(rc.Reason)+"\t"+where)
 		}

@@ -62,6 +62,11 @@ type Event struct {
 	Channel    string    `parquet:"channel,optional,dict" json:"channel,omitempty"`
 	Outcome    string    `parquet:"outcome,optional,dict" json:"outcome,omitempty"`
 	EventID    string    `parquet:"event_id,optional,plain" json:"event_id,omitempty"`
+	// InstanceID names one activity instance within its case: the start
+	// and the complete of one execution of an activity share it, so two
+	// executions of one activity that overlap pair apart. An identifier
+	// from the partner's system, pseudonymized like case_id.
+	InstanceID string `parquet:"instance_id,optional,plain" json:"instance_id,omitempty"`
 
 	// Line is the 1-based line (CSV/TSV record start or JSON Lines line) of
 	// the source file the event came from. It is not stored in snapshots.
@@ -85,13 +90,14 @@ const (
 	FieldChannel    Field = "channel"
 	FieldOutcome    Field = "outcome"
 	FieldEventID    Field = "event_id"
+	FieldInstanceID Field = "instance_id"
 )
 
 // Fields lists every field in schema order.
 var Fields = []Field{
 	FieldSite, FieldCaseID, FieldSubjectID, FieldResourceID, FieldEventType,
 	FieldActivity, FieldQueue, FieldOccurredAt, FieldPriority, FieldChannel,
-	FieldOutcome, FieldEventID,
+	FieldOutcome, FieldEventID, FieldInstanceID,
 }
 
 // Required reports whether every event must carry a value for f.
@@ -105,9 +111,12 @@ func (f Field) Required() bool {
 
 // Identifier reports whether f holds an identifier that is pseudonymized at
 // ingest and whose raw value must never appear in storage, logs or errors.
+// instance_id is one: a partner's activity-instance id is a record number
+// of its own system (an order, an appointment), which links back to the
+// person as readily as a case id does; pairing needs only equality.
 func (f Field) Identifier() bool {
 	switch f {
-	case FieldCaseID, FieldSubjectID, FieldResourceID:
+	case FieldCaseID, FieldSubjectID, FieldResourceID, FieldInstanceID:
 		return true
 	}
 	return false
@@ -142,6 +151,8 @@ func (e *Event) Value(f Field) string {
 		return e.Outcome
 	case FieldEventID:
 		return e.EventID
+	case FieldInstanceID:
+		return e.InstanceID
 	}
 	return ""
 }
@@ -172,6 +183,8 @@ func (e *Event) SetValue(f Field, v string) {
 		e.Outcome = v
 	case FieldEventID:
 		e.EventID = v
+	case FieldInstanceID:
+		e.InstanceID = v
 	}
 }
 
@@ -191,14 +204,19 @@ const (
 	ReasonBadValue         Reason = "bad_value"         // a value has the wrong type (e.g. a JSON object)
 )
 
-// Rejection says why one source row was not accepted. Message never holds
-// the raw value of an identifier column.
+// Rejection says why one source row was not accepted. Message and Text
+// never hold the raw value of an identifier column.
 type Rejection struct {
 	Line    int64  `json:"line"`             // 1-based source line
 	Column  string `json:"column,omitempty"` // source column name, when one is at fault
 	Field   Field  `json:"field,omitempty"`  // schema field, when one is at fault
 	Reason  Reason `json:"reason"`
 	Message string `json:"message"`
+	// Text is the offending value as read (trimmed, clipped to 40 bytes),
+	// for a non-identifier field only: the unknown code, the timestamp
+	// that does not parse. It is left empty when the value holds one of
+	// the row's own identifier values (a column slip; see Reader).
+	Text string `json:"text,omitempty"`
 }
 
 func (r Rejection) String() string {

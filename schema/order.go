@@ -14,7 +14,7 @@ func Compare(a, b *Event) int {
 
 // CompareContent compares every stored field but occurred_at, in schema
 // order (site, case_id, subject_id, resource_id, event_type, activity,
-// queue, priority, channel, outcome, event_id), each as bytes.
+// queue, priority, channel, outcome, event_id, instance_id), each as bytes.
 func CompareContent(a, b *Event) int {
 	if c := strings.Compare(a.Site, b.Site); c != 0 {
 		return c
@@ -46,7 +46,10 @@ func CompareContent(a, b *Event) int {
 	if c := strings.Compare(a.Outcome, b.Outcome); c != 0 {
 		return c
 	}
-	return strings.Compare(a.EventID, b.EventID)
+	if c := strings.Compare(a.EventID, b.EventID); c != 0 {
+		return c
+	}
+	return strings.Compare(a.InstanceID, b.InstanceID)
 }
 
 // Rank is t's position in EventTypes, the order a case usually passes the

@@ -105,6 +105,8 @@ type Profile struct {
 	// TimeShiftDays, when set, moves every event time of a subject by one
 	// keyed offset of whole days back, from 0 to TimeShiftDays.
 	TimeShiftDays int `json:"time_shift_days,omitempty"`
+	// Capacity declares other capacities by queue or resource.
+	Capacity *Capacity `json:"capacity,omitempty"`
 
 	loc *time.Location
 }
@@ -358,6 +360,12 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number of days from 1 to 3660", clip(s))}
 			}
 			p.TimeShiftDays = n
+		case "capacity":
+			c, err := capacitySetting(kv.value, lines)
+			if err != nil {
+				return nil, err
+			}
+			p.Capacity = c
 		case "terminal":
 			ts, err := terminalTypes(kv.value, kv.key)
 			if err != nil {
@@ -365,7 +373,7 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 			}
 			p.Terminal = ts
 		default:
-			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity, max_case_days, fields, attributes, drop or time_shift_days)"}
+			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity, capacity, max_case_days, fields, attributes, drop or time_shift_days)"}
 		}
 	}
 	if fieldsNode == nil {
@@ -558,8 +566,11 @@ func (p *Profile) validate(lines map[string]int) error {
 			}
 		}
 	}
-	if p.ResourceCapacity < 0 || p.ResourceCapacity > 1000 {
-		return at("resource_capacity", "want a whole number from 1 to 1000")
+	if p.ResourceCapacity < 0 || p.ResourceCapacity > MaxCapacity {
+		return at("resource_capacity", fmt.Sprintf("want a whole number from 1 to %d", MaxCapacity))
+	}
+	if err := validateCapacity(p.Capacity, at); err != nil {
+		return err
 	}
 	if p.MaxCaseDays < 0 || p.MaxCaseDays > MaxCaseDaysLimit {
 		return at("max_case_days", fmt.Sprintf("want a whole number of days from 1 to %d", MaxCaseDaysLimit))

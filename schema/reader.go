@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"io"
 	"slices"
+	"strconv"
 	"strings"
 	"unicode/utf8"
 )
@@ -71,7 +72,7 @@ type Reader struct {
 var fieldsArray = [...]Field{
 	FieldSite, FieldCaseID, FieldSubjectID, FieldResourceID, FieldEventType,
 	FieldActivity, FieldQueue, FieldOccurredAt, FieldPriority, FieldChannel,
-	FieldOutcome, FieldEventID,
+	FieldOutcome, FieldEventID, FieldInstanceID,
 }
 
 type columnKind uint8
@@ -566,8 +567,8 @@ func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
 					if strings.ContainsRune(v, utf8.RuneError) && !replacementInText(raw) {
 						// encoding/json turns a lone surrogate escape into
 						// U+FFFD, so distinct identifiers would collapse.
-						return &Rejection{Line: line, Column: c.name, Field: fieldsArray[i], Reason: ReasonBadValue,
-							Message: "the string holds an invalid \\u escape (a lone UTF-16 surrogate)"}, nil
+						return rd.withText(&Rejection{Line: line, Column: c.name, Field: fieldsArray[i], Reason: ReasonBadValue,
+							Message: "the string holds an invalid \\u escape (a lone UTF-16 surrogate)"}, string(raw)), nil
 					}
 				case 'n':
 				case '{', '[':
@@ -575,8 +576,8 @@ func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
 					if raw[0] == '[' {
 						kind = "an array"
 					}
-					return &Rejection{Line: line, Column: c.name, Field: fieldsArray[i], Reason: ReasonBadValue,
-						Message: "the value is " + kind + "; want a string, number or boolean"}, nil
+					return rd.withText(&Rejection{Line: line, Column: c.name, Field: fieldsArray[i], Reason: ReasonBadValue,
+						Message: "the value is " + kind + "; want a string, number or boolean"}, string(raw)), nil
 				default: // number or boolean: keep its JSON text
 					v = string(raw)
 				}
@@ -709,11 +710,55 @@ func canonicalEventType(s string) (EventType, bool) {
 	return "", false
 }
 
+// shown returns v, clipped, as a rejection may quote it: never for an
+// identifier field, nor when v holds a value of one of the row's mapped
+// identifier columns (a row whose columns slipped would otherwise show
+// its case id in the timestamp's place). Identifier values shorter than
+// 4 bytes are matched only whole: "1" in "2026-13-01" says nothing.
+func (rd *Reader) shown(f Field, v string) (string, bool) {
+	if f == "" || f.Identifier() {
+		return "", false
+	}
+	for i, g := range fieldsArray {
+		if !g.Identifier() || rd.cols[i].kind != kindColumn {
+			continue
+		}
+		id := rd.vals[i]
+		if rd.csv == nil {
+			// A JSON line fills vals in field order and may stop at the
+			// value at fault: read the identifiers from the object.
+			id = ""
+			if raw := rd.obj[rd.cols[i].name]; len(raw) > 0 {
+				if json.Unmarshal(raw, &id) != nil {
+					id = string(raw)
+				}
+			}
+		}
+		id = strings.TrimSpace(id)
+		if id != "" && (strings.TrimSpace(v) == id || len(id) >= 4 && strings.Contains(v, id)) {
+			return "", false
+		}
+	}
+	return clip(strings.TrimSpace(v)), true
+}
+
+// withText sets r.Text to v where it may be shown (see shown).
+func (rd *Reader) withText(r *Rejection, v string) *Rejection {
+	r.Text, _ = rd.shown(r.Field, v)
+	return r
+}
+
+// hidden is what a message says in place of a value it may not quote.
+const hidden = "the value (not shown: it holds an identifier of the row)"
+
 func (rd *Reader) unknownCode(line int64, c *column, f Field, v string, coded bool) *Rejection {
 	r := &Rejection{Line: line, Column: c.name, Field: f, Reason: ReasonUnknownCode}
 	what := "the value"
-	if !f.Identifier() {
-		what = fmt.Sprintf("code %q", clip(v))
+	if txt, ok := rd.shown(f, v); ok {
+		what = fmt.Sprintf("code %q", txt)
+		r.Text = txt
+	} else if !f.Identifier() {
+		what = hidden
 	}
 	switch {
 	case coded:
@@ -726,22 +771,26 @@ func (rd *Reader) unknownCode(line int64, c *column, f Field, v string, coded bo
 
 func (rd *Reader) timeRejection(line int64, c *column, v string, err error) *Rejection {
 	r := &Rejection{Line: line, Column: c.name, Field: FieldOccurredAt}
+	q := hidden
+	if txt, ok := rd.shown(FieldOccurredAt, v); ok {
+		r.Text, q = txt, strconv.Quote(txt)
+	}
 	switch err {
 	case ErrNonexistentLocal:
 		r.Reason = ReasonNonexistentLocal
-		r.Message = fmt.Sprintf("%q does not exist in %s (clocks were set forward); local_time.nonexistent: later would shift it forward", clip(v), rd.p.Timezone)
+		r.Message = fmt.Sprintf("%s does not exist in %s (clocks were set forward); local_time.nonexistent: later would shift it forward", q, rd.p.Timezone)
 	case ErrAmbiguousLocal:
 		r.Reason = ReasonAmbiguousLocal
-		r.Message = fmt.Sprintf("%q occurs twice in %s (clocks were set back); set local_time.ambiguous to earlier or later", clip(v), rd.p.Timezone)
+		r.Message = fmt.Sprintf("%s occurs twice in %s (clocks were set back); set local_time.ambiguous to earlier or later", q, rd.p.Timezone)
 	case ErrTimestampRange:
 		r.Reason = ReasonBadTimestamp
-		r.Message = fmt.Sprintf("%q lies outside the years 0001-9999", clip(v))
+		r.Message = fmt.Sprintf("%s lies outside the years 0001-9999", q)
 	default:
 		r.Reason = ReasonBadTimestamp
 		if rd.tp.layout != "" {
-			r.Message = fmt.Sprintf("%q does not match layout %q", clip(v), rd.tp.layout)
+			r.Message = fmt.Sprintf("%s does not match layout %q", q, rd.tp.layout)
 		} else {
-			r.Message = fmt.Sprintf("%q is not an RFC 3339 / ISO 8601 timestamp", clip(v))
+			r.Message = fmt.Sprintf("%s is not an RFC 3339 / ISO 8601 timestamp", q)
 		}
 	}
 	return r

@@ -536,7 +536,7 @@ func TestReaderPrivacy(t *testing.T) {
 		res := readAll(t, bytes.NewReader(in.data), in.p)
 		for _, r := range res.rejs {
 			kinds[string(r.Reason)] = true
-			if strings.Contains(r.Message, secret) || strings.Contains(r.String(), secret) {
+			if strings.Contains(r.Message, secret) || strings.Contains(r.String(), secret) || strings.Contains(r.Text, secret) {
 				t.Errorf("%s: rejection leaks the case id: %s", in.name, r)
 			}
 		}
@@ -878,6 +878,57 @@ func TestReaderUploadLimits(t *testing.T) {
 		}
 		if tc.rule == RuleTooManyRows && fe.Line != 10001 {
 			t.Errorf("%s: line %d, want 10001", tc.name, fe.Line)
+		}
+	}
+}
+
+// TestRejectionTexts: a rejected row names the offending text of a
+// non-identifier field as read (the unknown code, the timestamp and the
+// layout expected), never an identifier's value, and not a value that
+// holds one of the row's own identifiers (a column slip).
+func TestRejectionTexts(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	layout := mustProfile(t, strings.Replace(testProfileYAML, "occurred_at: When", "occurred_at: {column: When, layout: \"%d.%m.%Y %H:%M\"}", 1))
+	coded := mustProfile(t, strings.Replace(testProfileYAML, "resource_id: Desk", "resource_id: {column: Desk, codes: {D1: desk-1}}", 1))
+	jsonl := mustProfile(t, "format: jsonl\n"+testProfileYAML)
+	jsonlInst := mustProfile(t, "format: jsonl\n"+testProfileYAML+"  instance_id: Inst\n")
+	for _, tc := range []struct {
+		name         string
+		p            *Profile
+		data         string
+		field        Field
+		text         string // "" = none shown
+		inMessage    []string
+		notInMessage string
+	}{
+		{"unknown code", p, testHeader + "V-100,XYZ,2021-06-01T08:00:00Z,a,D1,1\n", FieldEventType, "XYZ", []string{`code "XYZ"`}, ""},
+		{"bad timestamp", p, testHeader + "V-100,ARR,2021-13-01 08:00,a,D1,1\n", FieldOccurredAt, "2021-13-01 08:00", []string{`"2021-13-01 08:00"`, "RFC 3339"}, ""},
+		{"layout", layout, testHeader + "V-100,ARR,2021-06-01T08:00:00Z,a,D1,1\n", FieldOccurredAt, "2021-06-01T08:00:00Z", []string{`"2021-06-01T08:00:00Z" does not match layout "%d.%m.%Y %H:%M"`}, ""},
+		{"nonexistent local", p, testHeader + "V-100,ARR,2021-03-28 02:30,a,D1,1\n", FieldOccurredAt, "2021-03-28 02:30", []string{`"2021-03-28 02:30" does not exist in Europe/Amsterdam`}, ""},
+		{"row's case id in the time", p, testHeader + "V-100,ARR,V-100,a,D1,1\n", FieldOccurredAt, "", []string{"not shown"}, "V-100"},
+		{"row's desk inside the time", p, testHeader + "V-100,ARR,at DESK-7,a,DESK-7,1\n", FieldOccurredAt, "", []string{"not shown"}, "DESK-7"},
+		{"short id matched whole only", p, testHeader + "1,ARR,2021-13-01,a,D1,1\n", FieldOccurredAt, "2021-13-01", []string{`"2021-13-01"`}, ""},
+		{"identifier code", coded, testHeader + "V-100,ARR,2021-06-01T08:00:00Z,a,D9,1\n", FieldResourceID, "", []string{"the value is not listed"}, "D9"},
+		{"json object holding the row's case id", jsonl, `{"Visit":"V-100","Code":"ARR","When":"2021-06-01T08:00:00Z","Step":{"k":"V-100"},"Desk":"D1"}` + "\n", FieldActivity, "", []string{"an object"}, "V-100"},
+		{"json object holding the row's instance id (a field read after it)", jsonlInst, `{"Step":{"k":"INST-77"},"Visit":"V-100","Code":"ARR","When":"2021-06-01T08:00:00Z","Inst":"INST-77"}` + "\n", FieldActivity, "", []string{"an object"}, "INST-77"},
+		{"json object", jsonl, `{"Visit":"V-100","Code":"ARR","When":"2021-06-01T08:00:00Z","Step":{"k":1}}` + "\n", FieldActivity, `{"k":1}`, []string{"an object"}, ""},
+	} {
+		res := readAll(t, strings.NewReader(tc.data), tc.p)
+		if len(res.rejs) != 1 {
+			t.Errorf("%s: %d rejections %v, file error %v", tc.name, len(res.rejs), res.rejs, res.ferr)
+			continue
+		}
+		r := res.rejs[0]
+		if r.Field != tc.field || r.Text != tc.text || r.Line == 0 || r.Column == "" {
+			t.Errorf("%s: %+v; want field %s, text %q, a line and a column", tc.name, r, tc.field, tc.text)
+		}
+		for _, w := range tc.inMessage {
+			if !strings.Contains(r.Message, w) {
+				t.Errorf("%s: message %q lacks %q", tc.name, r.Message, w)
+			}
+		}
+		if tc.notInMessage != "" && (strings.Contains(r.Message, tc.notInMessage) || strings.Contains(r.String(), tc.notInMessage)) {
+			t.Errorf("%s: message %q shows %q", tc.name, r.Message, tc.notInMessage)
 		}
 	}
 }

@@ -275,6 +275,7 @@ var fieldDocs = map[schema.Field]string{
 	schema.FieldChannel:    "How the case reached the service (walk-in, phone, ...).",
 	schema.FieldOutcome:    "Outcome of the case or step, as mapped by the profile.",
 	schema.FieldEventID:    "The source system's id of the event, when it has one.",
+	schema.FieldInstanceID: "One execution of an activity within its case: its start and its complete share it.",
 }
 
 func dictionary(d *catalog.Dataset, v *catalog.Version, report []byte) ([]byte, error) {

@@ -162,7 +162,7 @@ func TestBundleTarAndZip(t *testing.T) {
 				}
 			}
 			dict := string(files[BundleDictionary])
-			for _, want := range []string{"| `case_id` | string (UTF-8) | yes | yes |", "| `occurred_at` | timestamp, microseconds, UTC", "| `queue` | string (UTF-8) | no | no |", "- Score: ", "default profile"} {
+			for _, want := range []string{"| `case_id` | string (UTF-8) | yes | yes |", "| `occurred_at` | timestamp, microseconds, UTC", "| `queue` | string (UTF-8) | no | no |", "| `instance_id` | string (UTF-8) | no | yes | One execution of an activity", "- Score: ", "default profile"} {
 				if !strings.Contains(dict, want) {
 					t.Errorf("DICTIONARY.md lacks %q:\n%s", want, dict)
 				}

@@ -3,9 +3,11 @@ package export
 import (
 	"bytes"
 	"context"
+	"encoding/csv"
 	"fmt"
 	"io"
 	"math/rand/v2"
+	"slices"
 	"testing"
 	"time"
 
@@ -14,6 +16,7 @@ import (
 	"github.com/apache/arrow-go/v18/parquet/file"
 	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
+	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
@@ -55,6 +58,8 @@ func nullPatterns(n int) map[schema.Field]func(i int) bool {
 		schema.FieldChannel:  func(i int) bool { return false },
 		schema.FieldOutcome:  func(i int) bool { return kk[i] },
 		schema.FieldEventID:  func(i int) bool { return false },
+		// Activity instances named on some rows only, in runs of 3.
+		schema.FieldInstanceID: func(i int) bool { return (i/3)%2 == 0 },
 	}
 }
 
@@ -154,6 +159,9 @@ func checkNulls(t *testing.T, data []byte, n int, empty map[string]map[schema.Fi
 // nullsFixture ingests n events whose optional fields are empty in the
 // patterns of nullPatterns, as one file of row groups of 500 rows. It
 // returns, per event_id, the fields left empty, and per field the count.
+// nullsHeader is the fixture's header: every schema field.
+var nullsHeader = append(slices.Clone(header), string(schema.FieldInstanceID))
+
 func nullsFixture(t *testing.T, n int) (*env, *catalog.Version, map[string]map[schema.Field]bool, map[schema.Field]int64) {
 	t.Helper()
 	pats := nullPatterns(n)
@@ -163,9 +171,9 @@ func nullsFixture(t *testing.T, n int) (*env, *catalog.Version, map[string]map[s
 	for i := range rows {
 		id := fmt.Sprintf("ev-%05d", i)
 		row := []string{"north", fmt.Sprintf("C-%d", i/5), "P-1", "R-1", "arrival", "triage", "q1",
-			genBase.Add(time.Duration(i) * time.Minute).Format(time.RFC3339), "2", "phone", "seen", id}
+			genBase.Add(time.Duration(i) * time.Minute).Format(time.RFC3339), "2", "phone", "seen", id, fmt.Sprintf("I-%d", i)}
 		empty[id] = map[schema.Field]bool{}
-		for j, h := range header {
+		for j, h := range nullsHeader {
 			if p := pats[schema.Field(h)]; p != nil && p(i) {
 				row[j] = ""
 				empty[id][schema.Field(h)] = true
@@ -176,9 +184,52 @@ func nullsFixture(t *testing.T, n int) (*env, *catalog.Version, map[string]map[s
 	}
 	e := newEnv(t, 500)
 	e.dataset(t, "er", "nulls")
-	v := e.ingest(t, "er", "nulls", csvBytes(rows), "nulls.csv")
+	var buf bytes.Buffer
+	w := csv.NewWriter(&buf)
+	w.Write(nullsHeader)
+	w.WriteAll(rows)
+	v := e.ingest(t, "er", "nulls", buf.Bytes(), "nulls.csv")
 	if len(v.Manifest.Files) != 1 {
 		t.Fatalf("%d files", len(v.Manifest.Files))
 	}
 	return e, v, empty, want
+}
+
+// TestInstanceIDExported: the whole CSV export carries instance_id as its
+// last column, a pseudonym where the source named an instance, empty
+// where it did not, as the snapshot holds it (read by the catalog's own
+// reader).
+func TestInstanceIDExported(t *testing.T) {
+	const n = 300
+	e, v, empty, _ := nullsFixture(t, n)
+	var out bytes.Buffer
+	if _, err := WriteCSV(context.Background(), &out, Source{Open: e.opener(), TempDir: e.tmp}, v.Manifest.Files, Filter{}); err != nil {
+		t.Fatal(err)
+	}
+	recs, err := csv.NewReader(&out).ReadAll()
+	if err != nil {
+		t.Fatal(err)
+	}
+	head := recs[0]
+	if len(head) != len(schema.Fields) || head[len(head)-1] != string(schema.FieldInstanceID) {
+		t.Fatalf("header %q", head)
+	}
+	col := slices.Index(head, string(schema.FieldEventID))
+	stored := map[string]string{}
+	for _, ev := range e.allEvents(t, v.Manifest.Files) {
+		stored[ev.EventID] = ev.InstanceID
+	}
+	named := 0
+	for _, r := range recs[1:] {
+		id, inst := r[col], r[len(r)-1]
+		if inst != stored[id] || (inst == "") != empty[id][schema.FieldInstanceID] || inst != "" && !anonymize.IsPseudonym(inst) {
+			t.Fatalf("event %s: instance_id %q, stored %q, empty in the source %v", id, inst, stored[id], empty[id][schema.FieldInstanceID])
+		}
+		if inst != "" {
+			named++
+		}
+	}
+	if len(recs) != n+1 || named == 0 || named == n {
+		t.Errorf("%d records, %d with an instance", len(recs)-1, named)
+	}
 }

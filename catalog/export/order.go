@@ -26,5 +26,6 @@ func cloneEvent(dst, e *schema.Event) {
 		Channel:    strings.Clone(e.Channel),
 		Outcome:    strings.Clone(e.Outcome),
 		EventID:    strings.Clone(e.EventID),
+		InstanceID: strings.Clone(e.InstanceID),
 	}
 }

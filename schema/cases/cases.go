@@ -119,8 +119,10 @@ type Wait struct {
 	Open bool
 }
 
-// Service is one measured service: a start and the complete that ends it
-// (same activity; or, when one of them names none, the latest open start).
+// Service is one measured service: a start and the complete that ends it.
+// They pair by activity instance (schema.Event.InstanceID) where the log
+// has one; otherwise by activity (or, when one of them names none, the
+// latest open start). See [Builder] for the rule.
 type Service struct {
 	Site     string
 	Activity string
@@ -311,10 +313,10 @@ func (b *Builder) step(e *schema.Event, at int64) {
 			b.emitWait(&Wait{Site: e.Site, Queue: q, At: b.anchor, Duration: at - b.anchor})
 			b.anchorOK = false
 		}
-		b.openStart(openStart{act: e.Activity, queue: q, at: at})
+		b.openStart(openStart{act: e.Activity, inst: e.InstanceID, queue: q, at: at})
 		b.inSvc, b.waiting, b.endAband = true, false, false
 	case schema.Complete:
-		if i := b.matchStart(e.Activity); i >= 0 {
+		if i := b.matchStart(e.Activity, e.InstanceID); i >= 0 {
 			st := b.open[i]
 			b.open = append(b.open[:i], b.open[i+1:]...)
 			act := st.act
@@ -357,19 +359,20 @@ func ptr(x int64) *int64 { return &x }
 
 // openStart is a start waiting for its complete.
 type openStart struct {
-	act, queue string
-	at         int64
+	act, inst, queue string
+	at               int64
 }
 
 // maxOpenStarts bounds the starts a case holds open at once; beyond it
 // the oldest is taken as never completed.
 const maxOpenStarts = 64
 
-// openStart opens a service. A start of an activity already open replaces
-// that one (its complete was lost).
+// openStart opens a service. A start of an instance already open (same
+// instance id; without one, same activity and no instance id) replaces
+// that one: its complete was lost.
 func (b *Builder) openStart(st openStart) {
 	for i := range b.open {
-		if b.open[i].act == st.act {
+		if o := &b.open[i]; o.inst == st.inst && (st.inst != "" || o.act == st.act) {
 			b.open = append(b.open[:i], b.open[i+1:]...)
 			break
 		}
@@ -377,17 +380,28 @@ func (b *Builder) openStart(st openStart) {
 	if len(b.open) >= maxOpenStarts {
 		b.open = append(b.open[:0], b.open[1:]...)
 	}
-	st.act, st.queue = strings.Clone(st.act), strings.Clone(st.queue)
+	st.act, st.inst, st.queue = strings.Clone(st.act), strings.Clone(st.inst), strings.Clone(st.queue)
 	b.open = append(b.open, st)
 }
 
-// matchStart returns the open start a complete of activity act ends: the
-// one of the same activity, or, when either names none, the latest; -1
-// when none is open. Services of different activities may overlap within
-// a case (a lab test during an assessment), so each activity pairs apart.
-func (b *Builder) matchStart(act string) int {
+// matchStart returns the open start that a complete of activity act and
+// activity instance inst ends; -1 when none is open. With an instance id,
+// the open start of that instance; failing that (or without one), the
+// latest open start of the same activity that names no other instance,
+// or, when either names no activity, the latest. Services may overlap
+// within a case (a lab test during an assessment; two scans at once): the
+// instance id pairs each execution with its own complete, the activity
+// pairs different activities apart.
+func (b *Builder) matchStart(act, inst string) int {
+	if inst != "" {
+		for i := len(b.open) - 1; i >= 0; i-- {
+			if b.open[i].inst == inst {
+				return i
+			}
+		}
+	}
 	for i := len(b.open) - 1; i >= 0; i-- {
-		if b.open[i].act == act {
+		if o := &b.open[i]; o.act == act && (o.inst == "" || inst == "") {
 			return i
 		}
 	}

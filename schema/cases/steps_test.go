@@ -35,3 +35,25 @@ func TestSteps(t *testing.T) {
 		t.Error("after Reset a complete without a start is a step")
 	}
 }
+
+// With instance ids a complete closes the start of its own instance only.
+func TestStepsByInstance(t *testing.T) {
+	ev := func(typ schema.EventType, inst string) *schema.Event {
+		return &schema.Event{Type: typ, Activity: "scan", InstanceID: inst}
+	}
+	var s Steps
+	for i, c := range []struct {
+		e    *schema.Event
+		step bool
+	}{
+		{ev(schema.Start, "i1"), true},
+		{ev(schema.Start, "i2"), true},
+		{ev(schema.Complete, "i2"), false},
+		{ev(schema.Complete, "i3"), true}, // its start is not in the log
+		{ev(schema.Complete, "i1"), false},
+	} {
+		if got := s.Step(c.e); got != c.step {
+			t.Errorf("event %d (%s %s): step %v, want %v", i, c.e.Type, c.e.InstanceID, got, c.step)
+		}
+	}
+}

@@ -10,11 +10,22 @@ import (
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
-// StreamHeader is the header row of a NewStream CSV: the schema's fields in
-// schema order.
+// StreamFields are the columns of a NewStream CSV: the schema's fields in
+// schema order but instance_id (the stream's services pair by activity).
+var StreamFields = func() []schema.Field {
+	var fs []schema.Field
+	for _, f := range schema.Fields {
+		if f != schema.FieldInstanceID {
+			fs = append(fs, f)
+		}
+	}
+	return fs
+}()
+
+// StreamHeader is the header row of a NewStream CSV: StreamFields.
 var StreamHeader = func() string {
 	s := ""
-	for i, f := range schema.Fields {
+	for i, f := range StreamFields {
 		if i > 0 {
 			s += ","
 		}

@@ -22,10 +22,10 @@ func readStream(t *testing.T, seed uint64, n int64, each func(line int, rec []st
 	if err != nil {
 		t.Fatalf("header: %v", err)
 	}
-	if len(head) != len(schema.Fields) {
+	if len(head) != len(StreamFields) {
 		t.Fatalf("header %v", head)
 	}
-	for i, f := range schema.Fields {
+	for i, f := range StreamFields {
 		if head[i] != string(f) {
 			t.Fatalf("header column %d = %q, want %q", i, head[i], f)
 		}
@@ -80,12 +80,12 @@ func TestStreamDeterministic(t *testing.T) {
 
 func TestStreamShape(t *testing.T) {
 	const n = 600_000
-	distinct := make([]map[string]bool, len(schema.Fields))
+	distinct := make([]map[string]bool, len(StreamFields))
 	for i := range distinct {
 		distinct[i] = map[string]bool{}
 	}
 	col := func(f schema.Field) int {
-		for i, g := range schema.Fields {
+		for i, g := range StreamFields {
 			if g == f {
 				return i
 			}
@@ -202,7 +202,7 @@ func TestStreamConstantMemory(t *testing.T) {
 
 func TestStreamHeaderMatchesSchema(t *testing.T) {
 	var names []string
-	for _, f := range schema.Fields {
+	for _, f := range StreamFields {
 		names = append(names, string(f))
 	}
 	if StreamHeader != strings.Join(names, ",") {
