@@ -70,7 +70,7 @@ func eval[T any](t *testing.T, ctx context.Context, js string) T {
 
 func screenshot(t *testing.T, ctx context.Context, dir, name string) {
 	t.Helper()
-	b, err := chromedp.Run(ctx, chromedp.FullScreenshot(80))
+	b, err := chromedp.Run(ctx, chromedp.FullScreenshot(100))
 	if err != nil {
 		t.Fatalf("screenshot %s: %v", name, err)
 	}

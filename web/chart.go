@@ -183,7 +183,7 @@ func (p *Plot) SVG() template.HTML {
 	h := p.height()
 	fmt.Fprintf(&b, `<figure class="chart" id="fig-%s">`, esc(p.ID))
 	fmt.Fprintf(&b, `<svg id="%s" viewBox="0 0 %d %d" role="img" aria-labelledby="%[1]s-t" aria-describedby="%[1]s-d" preserveAspectRatio="xMidYMid meet">`, esc(p.ID), plotWidth, h)
-	fmt.Fprintf(&b, `<title id="%s-t">%s</title><desc id="%[1]s-d">%s</desc>`, esc(p.ID), esc(p.Title), esc(p.Desc))
+	fmt.Fprintf(&b, `<title id="%[1]s-t">%[2]s</title><desc id="%[1]s-d">%[3]s</desc>`, esc(p.ID), esc(p.Title), esc(p.Desc))
 	x0, x1 := float64(marginL), float64(plotWidth-marginR)
 	y0, y1 := float64(marginT), float64(h-marginB)
 	// Axes and ticks.
