@@ -158,9 +158,29 @@ func TestPagesInBrowser(t *testing.T) {
 	dir := artifacts(t)
 	base := e.srv.URL
 	api := "/api/v1/projects/ward/datasets/events"
+	alerts := alertDataset(t, e.testEnv)
 	ctx := headless(t, bin)
 
-	signInBrowser(t, ctx, base, e.member)
+	// Keyboard: the first Tab reaches the skip link, a few more the token
+	// field; the form is sent from the keyboard.
+	run(t, ctx, "keyboard", chromedp.Navigate(base+"/"), chromedp.WaitVisible(chromedp.ID("token")), chromedp.KeyEvent("\t"))
+	if got := eval[string](t, ctx, `document.activeElement.className + ' ' + document.activeElement.getAttribute('href')`); got != "skip #main" {
+		t.Errorf("first Tab focuses %q, want the skip link", got)
+	}
+	tabs := 1
+	for ; tabs < 6 && eval[string](t, ctx, `document.activeElement.id`) != "token"; tabs++ {
+		run(t, ctx, "keyboard", chromedp.KeyEvent("\t"))
+	}
+	if tabs > 4 { // the skip link, the name, "Sign in", the field
+		t.Fatalf("the token field is not reached by Tab (%d presses)", tabs)
+	}
+	a11y(t, ctx, "sign-in")
+	screenshot(t, ctx, dir, "signin.png")
+	run(t, ctx, "sign in from the keyboard",
+		chromedp.SetValue(chromedp.ID("token"), e.member),
+		chromedp.KeyEvent("\t"), chromedp.KeyEvent("\r"),
+		chromedp.WaitVisible(chromedp.ID("signed-in")),
+	)
 	a11y(t, ctx, "catalog")
 	screenshot(t, ctx, dir, "catalog.png")
 	if got := eval[bool](t, ctx, `document.cookie.includes('flowcat_session')`); got {
@@ -193,6 +213,24 @@ func TestPagesInBrowser(t *testing.T) {
 	if n := eval[int](t, ctx, `document.querySelectorAll('#trend-all .mark.alert').length`); n != len(alertedUploads(tr, "*")) {
 		t.Errorf("trend marks %d alerts, the API %d", n, len(alertedUploads(tr, "*")))
 	}
+
+	// Alerts are marked where the API raised them.
+	run(t, ctx, "alerted dataset", chromedp.Navigate(base+"/view/ward/nightly"), chromedp.WaitVisible(chromedp.ID("trend-all")))
+	var ntr trendResponse
+	e.decode(e.get("/api/v1/projects/ward/datasets/nightly/quality/trend", e.member), &ntr)
+	for _, site := range []string{"*", "ward-3"} {
+		id := map[string]string{"*": "#trend-all", "ward-3": "#trend-ward-3"}[site]
+		var want []float64
+		for _, a := range alertedUploads(ntr, site) {
+			want = append(want, float64(a.Seq))
+		}
+		sameFloats(t, "alerted uploads at "+site, floats(t, ctx, id+" .mark.alert", "seq"), want)
+	}
+	if len(alerts) == 0 || len(alertedUploads(ntr, "*")) == 0 {
+		t.Error("the alerted dataset shows no alert in the trend")
+	}
+	screenshot(t, ctx, dir, "dataset-alerts.png")
+	run(t, ctx, "back to events", chromedp.Navigate(base+"/view/ward/events"), chromedp.WaitVisible(chromedp.ID("versions")))
 
 	// Open version 1 and read its charts back.
 	run(t, ctx, "open a version",

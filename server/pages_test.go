@@ -445,3 +445,56 @@ func TestPagesCurator(t *testing.T) {
 	b.page("/view/ward/events/1", http.StatusOK)
 	mustHave(t, "publishing a withdrawn version", string(b.post("/view/ward/events/1/publish", url.Values{"csrf": {b.formToken()}}, nil).Body), "<strong>409</strong>")
 }
+
+// alertDataset makes ward/nightly: six nightly uploads of ward-3 with
+// every field filled, then one whose staff column is empty, which drops
+// resource_id's completeness and raises a drift alert.
+func alertDataset(t *testing.T, e *testEnv) []catalog.UploadAlert {
+	t.Helper()
+	e.createDataset("ward", "nightly", wardProfile)
+	partner := e.partner("ward/nightly")
+	for day := 10; day < 16; day++ {
+		e.mustStatus(e.upload("ward", "nightly", partner, fmt.Sprintf("n%d.csv", day), wardFile(day, 30)), http.StatusCreated, "nightly upload")
+	}
+	noStaff := strings.ReplaceAll(wardRows(16, 30), ";"+rawResource+";", ";;")
+	e.mustStatus(e.upload("ward", "nightly", partner, "n16.csv", []byte(wardHeader+noStaff)), http.StatusCreated, "upload without staff")
+	var alerts []catalog.UploadAlert
+	e.decode(e.get("/api/v1/projects/ward/datasets/nightly/alerts", e.admin), &alerts)
+	if len(alerts) == 0 {
+		t.Fatal("the upload without staff raised no alert")
+	}
+	return alerts
+}
+
+func TestPagesTrendAlerts(t *testing.T) {
+	e := newPagesEnv(t)
+	alerts := alertDataset(t, e.testEnv)
+	b := e.browser(t)
+	b.signIn(e.member)
+	// The catalog counts the alerts of each site's newest upload.
+	cat := b.page("/catalog?q=nightly", http.StatusOK)
+	card := between(cat, `data-dataset="ward/nightly"`, "</li>")
+	mustHave(t, "catalog card", card, fmt.Sprintf(`<span class="alerts">%d</span>`, len(alerts)))
+	mustHave(t, "the other card", between(cat, `data-dataset="ward/events"`, "</li>"), "<dt>Open alerts</dt><dd>none</dd>")
+	ds := b.page("/view/ward/nightly", http.StatusOK)
+	for _, site := range []string{"*", "ward-3"} {
+		id := map[string]string{"*": "trend-all", "ward-3": "trend-ward-3"}[site]
+		chart := between(ds, `<svg id="`+id+`"`, "</svg>")
+		var n int
+		for _, a := range alerts {
+			if a.Site == site {
+				n = 1 // all of them on the one upload, the seventh
+				if a.Seq != 7 {
+					t.Errorf("alert on upload %d, want 7", a.Seq)
+				}
+			}
+		}
+		if got := strings.Count(chart, `class="mark alert"`); got != n {
+			t.Errorf("%s marks %d alerted uploads, want %d", id, got, n)
+		}
+		if got := strings.Count(chart, `<circle class="mark"`); got != 7-n {
+			t.Errorf("%s has %d plain markers, want %d", id, got, 7-n)
+		}
+	}
+	mustHave(t, "alerts list", ds, `<ul id="alerts">`, alerts[0].Sentence)
+}
