@@ -311,7 +311,27 @@ func (s *Server) datasetPage(c echo.Context) error {
 		ups = ups[:pageUploads]
 	}
 	pg.Uploads = ups
+	if pg.Curator {
+		if pg.Audit, pg.AuditMore, err = s.datasetAudit(ctx, d); err != nil {
+			return err
+		}
+	}
 	return s.render(c, http.StatusOK, "dataset", d.Project+"/"+d.Name, datasetCrumbs(d, true), pg)
+}
+
+// pageAuditEntries is how many audit entries the dataset page shows.
+const pageAuditEntries = 20
+
+// datasetAudit returns the newest audit entries of d for its curators.
+//
+// AUDIT TRAIL (issue 15): the catalog cannot yet list one dataset's entries
+// without reading the whole trail (Store.Audit), so this returns none and
+// the page says where the trail will be. Once a filtered, paged reader
+// exists, return its newest pageAuditEntries entries of d.Project/d.Name
+// here (newest first) and whether older ones exist; the template shows
+// them as they come.
+func (s *Server) datasetAudit(ctx context.Context, d *catalog.Dataset) ([]catalog.AuditEntry, bool, error) {
+	return nil, false, nil
 }
 
 func pullCommand(d *catalog.Dataset, v *catalog.Version) string {
@@ -359,6 +379,10 @@ func (s *Server) versionPage(c echo.Context) error {
 		for _, q := range sum.Queues {
 			pg.Queues = append(pg.Queues, q.Name)
 		}
+		for t := range sum.EventTypes {
+			pg.Types = append(pg.Types, t)
+		}
+		slices.Sort(pg.Types)
 		for _, f := range schema.Fields {
 			pg.Columns = append(pg.Columns, string(f))
 		}

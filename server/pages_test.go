@@ -295,6 +295,10 @@ func TestPagesMember(t *testing.T) {
 	if err != nil || len(rows) != 91 || strings.Join(rows[0], ",") != "site,event_type,occurred_at" {
 		t.Fatalf("export: %d rows, header %v, %v", len(rows), rows[0], err)
 	}
+	r = b.get("/view/ward/events/1/export?format=csv&type=arrival&columns=event_type")
+	if rows, _ := csv.NewReader(bytes.NewReader(r.Body)).ReadAll(); len(rows) != 31 || rows[1][0] != "arrival" {
+		t.Fatalf("export of the arrivals: %d rows", len(rows))
+	}
 	r = b.get("/view/ward/events/1/export?format=csv&from=2024-03-05")
 	if rows, _ := csv.NewReader(bytes.NewReader(r.Body)).ReadAll(); len(rows) != 1 {
 		t.Fatalf("export of a day without events: %d rows", len(rows))

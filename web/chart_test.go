@@ -58,12 +58,16 @@ func TestRenderEveryPage(t *testing.T) {
 		case "catalog":
 			content = Catalog{}
 		case "dataset":
-			content = DatasetPage{D: &catalog.Dataset{Project: "p", Name: "d"}}
+			content = DatasetPage{D: &catalog.Dataset{Project: "p", Name: "d"}, Curator: true,
+				Audit: []catalog.AuditEntry{{At: time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC), By: "curator-p", Action: "version.publish", Target: "p/d@1"}}}
 		case "version":
 			content = VersionPage{D: &catalog.Dataset{Project: "p", Name: "d"}, V: &catalog.Version{Number: 1, State: catalog.StateDraft}, Curator: true}
 		}
 		if err := Render(&b, name, &Page{Title: name, Viewer: &Viewer{Subject: "s", Role: "member"}, CSRF: "tok", Content: content}); err != nil {
 			t.Fatalf("%s: %v", name, err)
+		}
+		if name == "dataset" && !strings.Contains(b.String(), "<td>version.publish</td><td>p/d@1</td>") {
+			t.Error("the dataset page does not show its audit entries")
 		}
 		if !strings.Contains(b.String(), `<html lang="en">`) || !strings.Contains(b.String(), `name="csrf" value="tok"`) {
 			t.Errorf("%s: no language or no form token", name)

@@ -72,6 +72,10 @@ type DatasetPage struct {
 	Cite        *catalog.Version // the version the pull command and citation name
 	Pull        string
 	Citation    string
+	// Audit is the dataset's newest audit entries, shown to curators;
+	// AuditMore says older ones exist.
+	Audit     []catalog.AuditEntry
+	AuditMore bool
 }
 
 // VersionRow is a line of the versions table.
