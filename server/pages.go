@@ -23,7 +23,7 @@ import (
 // functions. A reader signs in once by pasting a token; the server keeps
 // it in a cookie (HttpOnly: scripts cannot read it; SameSite=Strict: no
 // other site's page can make the browser send it; Secure when the
-// connection is TLS; RFC 6265bis section 4.1) and never puts it in a URL.
+// connection is TLS, its own or a proxy's; RFC 6265bis section 4.1) and never puts it in a URL.
 // Every form carries a token signed by the server over the browser's
 // form cookie (the signed double-submit pattern of the OWASP CSRF
 // Prevention Cheat Sheet), and a POST whose Origin or Sec-Fetch-Site says
@@ -122,6 +122,12 @@ func (s *Server) pageSession(public bool) echo.MiddlewareFunc {
 	}
 }
 
+// secure reports whether the browser reached the server over TLS: the
+// connection's own, or a proxy's that says so (X-Forwarded-Proto and its
+// kin, as echo reads them). A cookie marked Secure is then never sent
+// over plain HTTP.
+func secure(c echo.Context) bool { return c.Scheme() == "https" }
+
 func isStatus(err error, status int) bool {
 	var he *httpError
 	return errors.As(err, &he) && he.body.Status == status
@@ -141,7 +147,7 @@ func (s *Server) formToken(c echo.Context) string {
 		b := make([]byte, 32)
 		rand.Read(b)
 		seed = base64.RawURLEncoding.EncodeToString(b)
-		c.SetCookie(&http.Cookie{Name: formCookie, Value: seed, Path: "/", HttpOnly: true, Secure: c.IsTLS(), SameSite: http.SameSiteStrictMode})
+		c.SetCookie(&http.Cookie{Name: formCookie, Value: seed, Path: "/", HttpOnly: true, Secure: secure(c), SameSite: http.SameSiteStrictMode})
 	}
 	m := hmac.New(sha256.New, s.csrfKey)
 	m.Write([]byte("flowcat form\x00" + seed))
@@ -158,14 +164,10 @@ func (s *Server) checkCSRF(next echo.HandlerFunc) echo.HandlerFunc {
 		if site := req.Header.Get("Sec-Fetch-Site"); site != "" && site != "same-origin" && site != "none" {
 			return fail(http.StatusForbidden, "forbidden", "a form of another site (%s) may not act here", truncateParam(site))
 		}
-		if o := req.Header.Get("Origin"); o != "" && o != "null" {
-			scheme := "http"
-			if c.IsTLS() {
-				scheme = "https"
-			}
-			if o != scheme+"://"+req.Host {
-				return fail(http.StatusForbidden, "forbidden", "a form of %s may not act here", truncateParam(o))
-			}
+		// The host must be this one; either scheme is taken, so that a
+		// proxy that ends TLS in front of the server passes.
+		if o := req.Header.Get("Origin"); o != "" && o != "null" && o != "http://"+req.Host && o != "https://"+req.Host {
+			return fail(http.StatusForbidden, "forbidden", "a form of %s may not act here", truncateParam(o))
 		}
 		req.Body = http.MaxBytesReader(c.Response().Writer, req.Body, maxFormBytes)
 		if err := req.ParseForm(); err != nil {
@@ -278,7 +280,7 @@ func (s *Server) signIn(c echo.Context) error {
 		c.Set(signInProblem, "That token was not accepted: "+strings.TrimPrefix(err.Error(), "unauthorized: ")+".")
 		return s.renderSignIn(c, http.StatusUnauthorized, next)
 	}
-	ck := &http.Cookie{Name: sessionCookie, Value: tok, Path: "/", HttpOnly: true, Secure: c.IsTLS(), SameSite: http.SameSiteStrictMode}
+	ck := &http.Cookie{Name: sessionCookie, Value: tok, Path: "/", HttpOnly: true, Secure: secure(c), SameSite: http.SameSiteStrictMode}
 	if cl.ExpiresAt != nil {
 		ck.Expires = cl.ExpiresAt.Time
 	}
@@ -290,7 +292,7 @@ func (s *Server) signIn(c echo.Context) error {
 }
 
 func (s *Server) clearSession(c echo.Context) {
-	c.SetCookie(&http.Cookie{Name: sessionCookie, Value: "", Path: "/", HttpOnly: true, Secure: c.IsTLS(), SameSite: http.SameSiteStrictMode, MaxAge: -1, Expires: time.Unix(0, 0)})
+	c.SetCookie(&http.Cookie{Name: sessionCookie, Value: "", Path: "/", HttpOnly: true, Secure: secure(c), SameSite: http.SameSiteStrictMode, MaxAge: -1, Expires: time.Unix(0, 0)})
 }
 
 // signOut forgets the session cookie.

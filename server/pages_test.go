@@ -193,6 +193,13 @@ func TestPageSignIn(t *testing.T) {
 	if session == nil || !session.HttpOnly || session.SameSite != http.SameSiteStrictMode || session.Secure || session.Path != "/" || session.Expires.IsZero() {
 		t.Fatalf("session cookie %+v: want HttpOnly, SameSite=Strict, not Secure over plain HTTP, path /, expiring with the token", session)
 	}
+	// Behind a proxy that ends TLS, the cookie is Secure.
+	b3 := e.browser(t)
+	b3.page("/signin", http.StatusOK)
+	r3 := b3.post("/signin", url.Values{"token": {e.member}, "csrf": {b3.formToken()}}, map[string]string{"X-Forwarded-Proto": "https", "Origin": "https://" + strings.TrimPrefix(e.srv.URL, "http://")})
+	if r3.Status != http.StatusSeeOther || !strings.Contains(r3.Header.Get("Set-Cookie"), "Secure") {
+		t.Fatalf("sign in through a TLS proxy: %d, cookie %q", r3.Status, r3.Header.Get("Set-Cookie"))
+	}
 	// An open redirect is not followed.
 	b2 := e.browser(t)
 	b2.page("/signin", http.StatusOK)
