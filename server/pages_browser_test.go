@@ -153,6 +153,11 @@ func sameFloats(t *testing.T, what string, got, want []float64) {
 // API, download the bundle and check its sums; then publishes a draft as a
 // curator and shows that a member cannot. Screenshots go to artifacts.
 func TestPagesInBrowser(t *testing.T) {
+	if raceEnabled {
+		// The race detector slows the server several times over; the
+		// plain go test run drives the browser, this one the handlers.
+		t.Skip("skipped under the race detector: the plain go test run drives the browser")
+	}
 	bin := chromium(t)
 	e := newPagesEnv(t)
 	dir := artifacts(t)
