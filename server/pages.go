@@ -174,8 +174,8 @@ func (s *Server) checkCSRF(next echo.HandlerFunc) echo.HandlerFunc {
 			return fail(http.StatusBadRequest, "invalid", "form: %v", err)
 		}
 		got := req.PostForm.Get("csrf")
-		_, hasCookie := c.Cookie(formCookie)
-		if hasCookie != nil || got == "" || subtle.ConstantTimeCompare([]byte(got), []byte(s.formToken(c))) != 1 {
+		_, noCookie := c.Cookie(formCookie)
+		if noCookie != nil || got == "" || subtle.ConstantTimeCompare([]byte(got), []byte(s.formToken(c))) != 1 {
 			return fail(http.StatusForbidden, "forbidden", "this form has expired or did not come from this site's page; go back, reload the page and send it again")
 		}
 		return next(c)
