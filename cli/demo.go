@@ -195,8 +195,8 @@ as a student, in another shell:
   flowcat pull %[6]s/walkin-visits@latest -o walkin-snapshot
   flowcat verify walkin-snapshot
 
-or in a browser (the token stays in this tab):
-  %[1]s/view/%[6]s/walkin-visits#token=%[4]s
+or in a browser: open %[1]s/ and paste the member token to sign in
+  (it is kept in a cookie for this server only, never in an address)
 
 Press Ctrl-C to stop.
 `, url, t.admin, t.curator, t.member, t.partner, demoProject)

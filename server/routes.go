@@ -15,11 +15,14 @@ import (
 // route is one endpoint: its method, path pattern (":name" matches one
 // segment), handler, whether it needs no token, and the query parameters
 // it takes ("name*" may repeat). Any other parameter is refused, so a
-// misspelt filter cannot silently widen an answer.
+// misspelt filter cannot silently widen an answer. A page is for people:
+// its token comes from the session cookie, its errors are HTML, and its
+// POSTs need the form token (pages.go).
 type route struct {
 	method, path string
 	h            echo.HandlerFunc
 	public       bool
+	page         bool
 	params       []string
 }
 

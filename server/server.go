@@ -17,7 +17,6 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
-	"github.com/flowcat-catalog/flowcat/web"
 )
 
 // Config configures a server.
@@ -54,6 +53,8 @@ type Server struct {
 
 	mu        sync.Mutex
 	uploading map[string]int // uploads in progress per token id
+
+	csrfKey []byte // signs the pages' form tokens (pages.go)
 }
 
 // New returns a server for cfg.
@@ -74,25 +75,15 @@ func New(cfg Config) *Server {
 	e.HideBanner = true
 	e.HidePort = true
 	e.HTTPErrorHandler = errorHandler(cfg.Logger)
-	s := &Server{cfg: cfg, echo: e, uploading: map[string]int{}}
+	s := &Server{cfg: cfg, echo: e, uploading: map[string]int{}, csrfKey: newCSRFKey()}
 	e.Use(middleware.Recover())
 	e.Use(middleware.RequestID())
 	e.Use(s.accessLog)
 
 	e.Pre(wellFormedQuery)
-	index := func(c echo.Context) error { return c.HTMLBlob(http.StatusOK, web.Index) }
-	view := func(c echo.Context) error {
-		h := c.Response().Header()
-		h.Set("Content-Security-Policy", "default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; connect-src 'self'; img-src 'self'")
-		h.Set("Referrer-Policy", "no-referrer")
-		return c.HTMLBlob(http.StatusOK, web.Version)
-	}
 	const api, ds = "/api/v1", "/api/v1/projects/:project/datasets/:dataset"
 	filter := []string{"from", "to", "site*", "queue*", "activity*"}
 	s.routes = []route{
-		{method: "GET", path: "/", h: index, public: true},
-		{method: "GET", path: "/view/:project/:dataset", h: view, public: true},
-		{method: "GET", path: "/view/:project/:dataset/:version", h: view, public: true},
 		{method: "GET", path: api + "/health", h: s.health, public: true},
 		{method: "GET", path: api + "/schema", h: s.schema, public: true},
 		{method: "GET", path: api + "/projects", h: s.listProjects},
@@ -129,14 +120,22 @@ func New(cfg Config) *Server {
 		{method: "POST", path: api + "/admin/tokens", h: s.issueToken},
 		{method: "POST", path: api + "/admin/tokens/:jti/revoke", h: s.revokeToken},
 	}
+	s.routes = append(s.routes, s.pageRoutes()...)
 	for _, r := range s.routes {
 		var mw []echo.MiddlewareFunc
-		if !r.public {
+		if r.page {
+			// Pages: errors as HTML, the token from the session cookie,
+			// and a form token on every POST.
+			mw = append(mw, s.pageErrors, s.pageSession(r.public))
+		} else if !r.public {
 			mw = append(mw, s.authenticate)
 		}
 		mw = append(mw, knownParams(r.params))
 		if r.method == http.MethodPost {
 			mw = append(mw, s.idleBodies)
+		}
+		if r.page && r.method == http.MethodPost {
+			mw = append(mw, s.checkCSRF)
 		}
 		e.Add(r.method, r.path, r.h, mw...)
 	}
@@ -266,25 +265,36 @@ func (s *Server) authenticate(next echo.HandlerFunc) echo.HandlerFunc {
 		if !ok || !strings.EqualFold(scheme, "Bearer") || tok == "" {
 			return fail(http.StatusUnauthorized, "unauthorized", "Authorization must be Bearer <token>")
 		}
-		cl, err := s.cfg.Authority.Verify(strings.TrimSpace(tok))
+		cl, err := s.checkToken(tok)
 		if err != nil {
-			// RFC 6750 section 3.1: a token was sent and is not valid.
-			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat", error="invalid_token"`)
-			return fail(http.StatusUnauthorized, "unauthorized", "%s", err.Error())
-		}
-		// Every request checks the revocations bucket: a revoked jti
-		// stops authenticating at once.
-		revoked, err := s.cfg.Store.TokenRevoked(cl.ID)
-		if err != nil {
+			var he *httpError
+			if errors.As(err, &he) && he.body.Status == http.StatusUnauthorized {
+				// RFC 6750 section 3.1: a token was sent and is not valid.
+				c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat", error="invalid_token"`)
+			}
 			return err
-		}
-		if revoked {
-			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat", error="invalid_token"`)
-			return fail(http.StatusUnauthorized, "unauthorized", "unauthorized: token %s was revoked", cl.ID)
 		}
 		c.Set(claimsKey, cl)
 		return next(c)
 	}
+}
+
+// checkToken verifies a token and checks the revocations bucket, so that
+// a revoked jti stops authenticating at once; an invalid or revoked token
+// is a 401.
+func (s *Server) checkToken(tok string) (*Claims, error) {
+	cl, err := s.cfg.Authority.Verify(strings.TrimSpace(tok))
+	if err != nil {
+		return nil, fail(http.StatusUnauthorized, "unauthorized", "%s", err.Error())
+	}
+	revoked, err := s.cfg.Store.TokenRevoked(cl.ID)
+	if err != nil {
+		return nil, err
+	}
+	if revoked {
+		return nil, fail(http.StatusUnauthorized, "unauthorized", "unauthorized: token %s was revoked", cl.ID)
+	}
+	return cl, nil
 }
 
 func claims(c echo.Context) *Claims { return c.Get(claimsKey).(*Claims) }

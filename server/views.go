@@ -370,18 +370,28 @@ func (s *Server) diffVersions(c echo.Context) error {
 		}
 		vs[i] = v
 	}
-	res, err := export.Diff(ctx, s.source(), vs[0].Manifest.Files, vs[1].Manifest.Files, export.DiffOptions{Filter: f})
+	out, err := s.compare(ctx, vs, f)
 	if err != nil {
 		return err
 	}
-	out := diffResponse{
+	return c.JSON(http.StatusOK, out)
+}
+
+// compare is the difference from vs[0] to vs[1] (both with manifests)
+// under filter f: events by content, quality and summary deltas.
+func (s *Server) compare(ctx context.Context, vs [2]*catalog.Version, f export.Filter) (*diffResponse, error) {
+	res, err := export.Diff(ctx, s.source(), vs[0].Manifest.Files, vs[1].Manifest.Files, export.DiffOptions{Filter: f})
+	if err != nil {
+		return nil, err
+	}
+	out := &diffResponse{
 		From: versionRef{vs[0].Number, vs[0].SnapshotID}, To: versionRef{vs[1].Number, vs[1].SnapshotID},
 		Events: res,
 	}
 	var reps [2][]byte
 	for i, v := range vs {
 		if reps[i], err = s.cfg.Store.QualityReport(ctx, v); err != nil && !errors.Is(err, catalog.ErrNotFound) {
-			return catalogError(err)
+			return nil, catalogError(err)
 		}
 	}
 	out.Quality = qualityDelta(reps[0], reps[1])
@@ -389,14 +399,14 @@ func (s *Server) diffVersions(c echo.Context) error {
 	for i, v := range vs {
 		b, err := s.cfg.Store.Summary(ctx, v.Dataset.String(), v.Number)
 		if err != nil {
-			return catalogError(err)
+			return nil, catalogError(err)
 		}
 		if err := json.Unmarshal(b, &sums[i]); err != nil {
-			return err
+			return nil, err
 		}
 	}
 	out.Summary = summaryDelta(sums[0], sums[1])
-	return c.JSON(http.StatusOK, out)
+	return out, nil
 }
 
 // headline figures of a summary, as JSON paths.
