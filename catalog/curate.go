@@ -20,7 +20,7 @@ var ErrState = errors.New("not allowed in this state")
 // Publish makes a draft version visible to every member. Publishing a
 // published version is a no-op; a retracted one fails with ErrState.
 func (s *Store) Publish(ctx context.Context, project, dataset string, n int, by string) (*Version, error) {
-	return s.setState(project, dataset, n, by, func(v *Version) (bool, error) {
+	return s.setState(ctx, project, dataset, n, by, func(v *Version) (bool, error) {
 		switch v.State {
 		case StatePublished:
 			return false, nil
@@ -44,7 +44,7 @@ func (s *Store) Retract(ctx context.Context, project, dataset string, n int, rea
 	if len(reason) > 500 {
 		return nil, fmt.Errorf("retract: reason longer than 500 bytes: %w", ErrInvalid)
 	}
-	return s.setState(project, dataset, n, by, func(v *Version) (bool, error) {
+	return s.setState(ctx, project, dataset, n, by, func(v *Version) (bool, error) {
 		if v.State == StateRetracted {
 			return false, fmt.Errorf("version %d is retracted already: %w", v.Number, ErrState)
 		}
@@ -54,7 +54,7 @@ func (s *Store) Retract(ctx context.Context, project, dataset string, n int, rea
 	}, "version.retract")
 }
 
-func (s *Store) setState(project, dataset string, n int, by string, change func(*Version) (bool, error), action string) (*Version, error) {
+func (s *Store) setState(ctx context.Context, project, dataset string, n int, by string, change func(*Version) (bool, error), action string) (*Version, error) {
 	ref := project + "/" + dataset
 	var v Version
 	err := s.db.Update(func(tx *bolt.Tx) error {
@@ -75,7 +75,7 @@ func (s *Store) setState(project, dataset string, n int, by string, change func(
 		if err := withManifest(tx, &v); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, action, fmt.Sprintf("%s@%d", ref, n))
+		return auditCtx(ctx, tx, s.opt.Now(), by, action, fmt.Sprintf("%s@%d", ref, n))
 	})
 	if err != nil {
 		return nil, err

@@ -112,7 +112,7 @@ func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*
 	}
 	if !opt.DryRun && len(doomed)+res.Temporaries > 0 {
 		err := s.db.Update(func(tx *bolt.Tx) error {
-			return audit(tx, now, by, "gc", fmt.Sprintf("%d blobs, %d bytes; %d temporary files, %d bytes", len(doomed), res.DeletedBytes, res.Temporaries, res.TemporaryBytes))
+			return auditCtx(ctx, tx, now, by, "gc", fmt.Sprintf("%d blobs, %d bytes; %d temporary files, %d bytes", len(doomed), res.DeletedBytes, res.Temporaries, res.TemporaryBytes))
 		})
 		if err != nil {
 			return res, err

@@ -85,7 +85,7 @@ func (s *Store) SetChangePolicy(ctx context.Context, project, dataset string, p 
 		if err := putJSON(b, []byte(ref), &d); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, "dataset.changes", fmt.Sprintf("%s (%s)", ref, p))
+		return auditCtx(ctx, tx, s.opt.Now(), by, "dataset.changes", fmt.Sprintf("%s (%s)", ref, p))
 	})
 	if err != nil {
 		return nil, err

@@ -126,7 +126,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	if fe, ok := schema.AsFileError(err); ok {
 		up.Error.Line = fe.Line
 	}
-	if rerr := s.recordUpload(st.ds, &up); rerr != nil {
+	if rerr := s.recordUpload(ctx, st.ds, &up); rerr != nil {
 		return nil, errors.Join(err, rerr)
 	}
 	lvl := slog.LevelWarn
@@ -191,7 +191,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 		if fe, ok := schema.AsFileError(err); ok && isContentFault(ctx, err) {
 			up.Status = UploadFailed
 			up.Error = &UploadError{Rule: fe.Rule, Line: fe.Line, Column: fe.Column, Message: fe.Msg}
-			if rerr := s.recordUpload(ds, &up); rerr != nil {
+			if rerr := s.recordUpload(ctx, ds, &up); rerr != nil {
 				return nil, rerr
 			}
 			s.opt.Logger.Warn("upload failed", "dataset", ds.Ref().String(), "upload", up.ID, "rule", fe.Rule, "line", fe.Line, "column", fe.Column)
@@ -219,7 +219,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 
 	if opt.Mode == ModeAppend {
 		if v, err := s.appendedBefore(ctx, ds, up.SHA256); err == nil {
-			return s.duplicate(ds, up, v)
+			return s.duplicate(ctx, ds, up, v)
 		} else if !errors.Is(err, ErrNotFound) {
 			return nil, err
 		}
@@ -293,7 +293,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 		up.Report = rep
 		up.Status = UploadRejected
 		up.Error = uerr
-		if err := s.recordUpload(ds, &up); err != nil {
+		if err := s.recordUpload(ctx, ds, &up); err != nil {
 			return nil, err
 		}
 		s.opt.Logger.Warn("upload rejected", "dataset", ds.Ref().String(), "upload", up.ID,
@@ -375,10 +375,10 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	if parent != nil && sameFiles(parent.Manifest.Files, plan.files) {
-		return s.duplicate(ds, *up, parent)
+		return s.duplicate(ctx, ds, *up, parent)
 	}
 	if parent == nil && len(plan.files) == 0 {
-		return s.duplicate(ds, *up, nil)
+		return s.duplicate(ctx, ds, *up, nil)
 	}
 	if entry != nil {
 		plan.summaries[entry.SHA256] = sacc
@@ -483,7 +483,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 				return err
 			}
 		}
-		return audit(tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref().String(), v.Number, opt.Mode))
+		return auditCtx(ctx, tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref().String(), v.Number, opt.Mode))
 	})
 	if err != nil {
 		// New blobs stay, unreferenced, for garbage collection.
@@ -598,17 +598,17 @@ var testHookBeforeCommit func()
 // duplicate records an upload that changes nothing; v is the version that
 // already holds its events (nil when an empty replacement met an empty
 // dataset).
-func (s *Store) duplicate(ds *Dataset, up Upload, v *Version) (*IngestResult, error) {
+func (s *Store) duplicate(ctx context.Context, ds *Dataset, up Upload, v *Version) (*IngestResult, error) {
 	up.Status = UploadDuplicate
 	up.Report = nil
 	if v == nil {
-		if err := s.recordUpload(ds, &up); err != nil {
+		if err := s.recordUpload(ctx, ds, &up); err != nil {
 			return nil, err
 		}
 		return &IngestResult{Upload: up}, nil
 	}
 	up.Version = v.Number
-	if err := s.recordUpload(ds, &up); err != nil {
+	if err := s.recordUpload(ctx, ds, &up); err != nil {
 		return nil, err
 	}
 	s.opt.Logger.Info("upload is a duplicate", "dataset", ds.Ref().String(), "upload", up.ID, "version", v.Number)
@@ -616,7 +616,7 @@ func (s *Store) duplicate(ds *Dataset, up Upload, v *Version) (*IngestResult, er
 }
 
 // recordUpload stores an upload that made no new version.
-func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
+func (s *Store) recordUpload(ctx context.Context, ds *Dataset, up *Upload) error {
 	err := s.db.Update(func(tx *bolt.Tx) error {
 		var cur Dataset
 		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
@@ -630,7 +630,7 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
 			return err
 		}
-		return audit(tx, up.ReceivedAt, up.By, "upload."+string(up.Status), cur.Ref().String()+"/"+up.ID.String())
+		return auditCtx(ctx, tx, up.ReceivedAt, up.By, "upload."+string(up.Status), cur.Ref().String()+"/"+up.ID.String())
 	})
 	if err != nil {
 		return fmt.Errorf("ingest: recording upload: %w", err)

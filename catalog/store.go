@@ -173,7 +173,7 @@ func (s *Store) CreateProject(ctx context.Context, name, title, by string) (*Pro
 		if err := putJSON(b, []byte(name), p); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, "project.create", name)
+		return auditCtx(ctx, tx, s.opt.Now(), by, "project.create", name)
 	})
 	if err != nil {
 		return nil, err
@@ -267,7 +267,7 @@ func (s *Store) CreateDataset(ctx context.Context, spec DatasetSpec, by string) 
 		if err := putJSON(b, key, d); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, "dataset.create", d.Ref().String())
+		return auditCtx(ctx, tx, s.opt.Now(), by, "dataset.create", d.Ref().String())
 	})
 	if err != nil {
 		return nil, err
@@ -349,36 +349,6 @@ func (s *Store) OpenFile(ctx context.Context, v *Version, id blob.ID) (blob.Read
 		return nil, BlobEntry{}, fmt.Errorf("catalog: %w", err)
 	}
 	return r, f, nil
-}
-
-// AuditEntry is one line of the catalog's audit trail.
-type AuditEntry struct {
-	At     time.Time `json:"at"`
-	By     string    `json:"by"`
-	Action string    `json:"action"`
-	Target string    `json:"target"`
-}
-
-func audit(tx *bolt.Tx, now time.Time, by, action, target string) error {
-	b := tx.Bucket(bucketAudit)
-	seq, err := b.NextSequence()
-	if err != nil {
-		return err
-	}
-	k := make([]byte, 16)
-	binary.BigEndian.PutUint64(k, uint64(now.UnixNano()))
-	binary.BigEndian.PutUint64(k[8:], seq)
-	return putJSON(b, k, AuditEntry{At: now.UTC(), By: by, Action: action, Target: target})
-}
-
-// Audit returns the audit trail, oldest first.
-func (s *Store) Audit(ctx context.Context) ([]AuditEntry, error) {
-	var out []AuditEntry
-	err := s.db.View(func(tx *bolt.Tx) (err error) {
-		out, err = scanJSON[AuditEntry](tx.Bucket(bucketAudit), nil)
-		return err
-	})
-	return out, err
 }
 
 // seqKey is ref + "/" + big-endian n, so a cursor lists in numeric order.

@@ -107,12 +107,18 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, so ser
 	if err != nil {
 		return nil, fmt.Errorf("serve: %w", err)
 	}
+	if n, err := st.ImportTokenSpool(context.Background(), d.tokenSpool()); err != nil {
+		st.Close()
+		return nil, fmt.Errorf("serve: %w", err)
+	} else if n > 0 {
+		log.Info("token records imported from the spool", "tokens", n)
+	}
 	ln, err := net.Listen("tcp", addr)
 	if err != nil {
 		st.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, MaxUploadBytes: so.maxUpload, MaxUploadsPerToken: so.maxUploads, BodyIdleTimeout: so.bodyIdle, CitationAuthor: so.citationAuthor})
+	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, TokenSpool: d.tokenSpool(), MaxUploadBytes: so.maxUpload, MaxUploadsPerToken: so.maxUploads, BodyIdleTimeout: so.bodyIdle, CitationAuthor: so.citationAuthor})
 	hs := srv.HTTPServer(addr)
 	r := &running{url: "http://" + ln.Addr().String(), masterFrom: from, auth: auth, hs: hs, done: make(chan error, 1), close: st.Close}
 	go func() { r.done <- hs.Serve(ln) }()

@@ -44,20 +44,28 @@ func newTokenCmd(e *env) *cobra.Command {
 				}
 			}
 			g := grantFor(role, subject, project, datasets, ttl)
-			// Record the token (and audit the issue) when the catalog
-			// can be opened; while a server holds it, say so.
+			// Record the token (and audit the issue); while a server holds
+			// the catalog, spool the record for the server to import (it
+			// honours no EdDSA token it has no record of).
 			st, err := d.openForTokens()
-			if err != nil {
-				tok, ierr := auth.Issue(g)
+			if errors.Is(err, catalog.ErrLocked) {
+				tok, c, ierr := auth.IssueClaims(g)
 				if ierr != nil {
 					return usageErr("%v", ierr)
 				}
-				fmt.Fprintf(e.stderr, "note: token not recorded in the token list or audit trail (%v); issue through the server (POST /api/v1/admin/tokens) to record it\n", err)
+				kid, _ := server.HeaderKID(tok)
+				if err := catalog.SpoolToken(d.tokenSpool(), operator, server.TokenRecord(c, kid), time.Now()); err != nil {
+					return err
+				}
+				fmt.Fprintf(e.stderr, "note: a server holds the catalog; the token's record went to %s and the server records it (with its audit entry) on first use or at the next start or token list\n", d.tokenSpool())
 				fmt.Fprintln(e.stdout, tok)
 				return nil
 			}
+			if err != nil {
+				return err
+			}
 			defer st.Close()
-			tok, err := auth.IssueRecorded(st, operator, g)
+			tok, err := auth.IssueRecorded(cmd.Context(), st, operator, g)
 			if err != nil {
 				return usageErr("%v", err)
 			}

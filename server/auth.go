@@ -42,6 +42,8 @@ type Claims struct {
 	Role     string   `json:"role"`
 	Project  string   `json:"project,omitempty"`  // curator and member
 	Datasets []string `json:"datasets,omitempty"` // partner: "project/dataset" refs
+
+	kid string // the header's key id; "" for HS256
 }
 
 // Grant is what a token is issued for.
@@ -294,7 +296,7 @@ func (a *Authority) Verify(token string) (*Claims, error) {
 		return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
 	}
 	var c Claims
-	_, err = jwt.ParseWithClaims(token, &c, func(t *jwt.Token) (any, error) { return a.verifyKey(ks, t) },
+	t, err := jwt.ParseWithClaims(token, &c, func(t *jwt.Token) (any, error) { return a.verifyKey(ks, t) },
 		jwt.WithValidMethods([]string{jwt.SigningMethodEdDSA.Alg(), jwt.SigningMethodHS256.Alg()}),
 		jwt.WithIssuer(a.issuer),
 		jwt.WithAudience(Audience),
@@ -312,6 +314,7 @@ func (a *Authority) Verify(token string) (*Claims, error) {
 	if !slices.Contains(Roles, c.Role) {
 		return nil, fmt.Errorf("%w: unknown role %q", ErrUnauthorized, c.Role)
 	}
+	c.kid, _ = t.Header["kid"].(string)
 	return &c, nil
 }
 

@@ -625,6 +625,13 @@ func (s *Server) download(c echo.Context) error {
 		c.Response().Header().Set("Content-Range", fmt.Sprintf("bytes */%d", r.Size()))
 		return err
 	}
+	// A download is audited once: a whole-file GET, or a ranged one from
+	// byte 0 (a reader fetching parts of a file sends many ranges).
+	if rg := c.Request().Header.Get("Range"); c.Request().Method == http.MethodGet && (rg == "" || strings.HasPrefix(rg, "bytes=0-")) {
+		if err := s.auditRead(c, "version.download", v, "file "+id.String()); err != nil {
+			return err
+		}
+	}
 	h := c.Response().Header()
 	h.Set(echo.HeaderContentType, "application/vnd.apache.parquet")
 	h.Set("ETag", `"`+id.String()+`"`)

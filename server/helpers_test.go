@@ -2,6 +2,7 @@ package server
 
 import (
 	"bytes"
+	"context"
 	"crypto/rand"
 	"encoding/json"
 	"fmt"
@@ -137,7 +138,7 @@ func (e *testEnv) token(g Grant) string {
 	if g.TTL == 0 {
 		g.TTL = time.Hour
 	}
-	tok, err := e.auth.Issue(g)
+	tok, err := e.auth.IssueRecorded(context.Background(), e.store, "test", g)
 	if err != nil {
 		e.t.Fatal(err)
 	}

@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"net"
 	"net/http"
 	"strings"
 	"sync"
@@ -35,6 +36,12 @@ type Config struct {
 	// BodyIdleTimeout is how long the server waits for the next byte of a
 	// request body before it gives up (default 60 s; 408).
 	BodyIdleTimeout time.Duration
+	// TokenSpool is the folder where the command line leaves the records
+	// of tokens it issued while this server held the catalog (see
+	// catalog.SpoolToken); "" for none. A token signed by an EdDSA key is
+	// honoured only when the catalog has its record, imported from here
+	// if need be.
+	TokenSpool string
 	// CitationAuthor is the author CITATION.cff files name (the lab that
 	// curates the data); default the project's title, or its name.
 	CitationAuthor string
@@ -124,11 +131,13 @@ func New(cfg Config) *Server {
 		{method: "GET", path: api + "/admin/tokens", h: s.listTokens},
 		{method: "POST", path: api + "/admin/tokens", h: s.issueToken},
 		{method: "POST", path: api + "/admin/tokens/:jti/revoke", h: s.revokeToken},
+		{method: "GET", path: api + "/audit", h: s.listAudit, params: append([]string{"limit", "after"}, auditParams...)},
+		{method: "GET", path: api + "/audit/export", h: s.exportAudit, params: auditParams},
 	}
 	for _, r := range s.routes {
 		var mw []echo.MiddlewareFunc
 		if !r.public {
-			mw = append(mw, s.authenticate)
+			mw = append(mw, s.authenticate, s.auditDenied)
 		}
 		mw = append(mw, knownParams(r.params))
 		if r.method == http.MethodPost {
@@ -266,6 +275,24 @@ func (s *Server) authenticate(next echo.HandlerFunc) echo.HandlerFunc {
 			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat", error="invalid_token"`)
 			return fail(http.StatusUnauthorized, "unauthorized", "%s", err.Error())
 		}
+		// A token signed by an EdDSA key is honoured only when the catalog
+		// has its record (issued through the catalog, or spooled by the
+		// command line while this server ran): a token nobody can list
+		// cannot be revoked by jti. HS256 tokens predate records and are
+		// exempt until the legacy key is retired.
+		if cl.kid != "" {
+			ok, err := s.cfg.Store.TokenRecorded(cl.ID)
+			if err == nil && !ok {
+				ok, err = s.cfg.Store.ImportSpooledToken(c.Request().Context(), s.cfg.TokenSpool, cl.ID)
+			}
+			if err != nil {
+				return err
+			}
+			if !ok {
+				c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat", error="invalid_token"`)
+				return fail(http.StatusUnauthorized, "unauthorized", "unauthorized: token %s is not recorded in this catalog; issue tokens with flowcat token issue or POST /api/v1/admin/tokens", cl.ID)
+			}
+		}
 		// Every request checks the revocations bucket: a revoked jti
 		// stops authenticating at once.
 		revoked, err := s.cfg.Store.TokenRevoked(cl.ID)
@@ -277,6 +304,12 @@ func (s *Server) authenticate(next echo.HandlerFunc) echo.HandlerFunc {
 			return fail(http.StatusUnauthorized, "unauthorized", "unauthorized: token %s was revoked", cl.ID)
 		}
 		c.Set(claimsKey, cl)
+		req := c.Request()
+		from, _, err := net.SplitHostPort(req.RemoteAddr)
+		if err != nil {
+			from = req.RemoteAddr
+		}
+		c.SetRequest(req.WithContext(catalog.WithActor(req.Context(), catalog.Actor{Subject: cl.Subject, TokenID: cl.ID, Role: cl.Role, From: from})))
 		return next(c)
 	}
 }

@@ -27,13 +27,13 @@ func TokenRecord(c *Claims, kid string) catalog.TokenRecord {
 // IssueRecorded issues a token for g, records it in store and audits the
 // issue under by, in that order: a token the catalog could not record is
 // not handed out.
-func (a *Authority) IssueRecorded(st *catalog.Store, by string, g Grant) (string, error) {
+func (a *Authority) IssueRecorded(ctx context.Context, st *catalog.Store, by string, g Grant) (string, error) {
 	tok, c, err := a.IssueClaims(g)
 	if err != nil {
 		return "", err
 	}
-	kid, _ := headerKID(tok)
-	if err := st.RecordToken(context.Background(), by, TokenRecord(c, kid)); err != nil {
+	kid, _ := HeaderKID(tok)
+	if err := st.RecordToken(ctx, by, TokenRecord(c, kid)); err != nil {
 		return "", err
 	}
 	return tok, nil
@@ -54,6 +54,9 @@ func (s *Server) jwks(c echo.Context) error {
 func (s *Server) listTokens(c echo.Context) error {
 	if claims(c).Role != RoleAdmin {
 		return forbidden("list tokens (admin only)")
+	}
+	if _, err := s.cfg.Store.ImportTokenSpool(c.Request().Context(), s.cfg.TokenSpool); err != nil {
+		return err
 	}
 	recs, err := s.cfg.Store.Tokens(c.Request().Context())
 	if err != nil {
@@ -87,7 +90,7 @@ func (s *Server) issueToken(c echo.Context) error {
 		return fail(http.StatusBadRequest, "invalid", "ttl %q: want a duration such as 720h", truncateParam(req.TTL))
 	}
 	g := Grant{Role: req.Role, Subject: req.Subject, Project: req.Project, Datasets: req.Datasets, TTL: ttl}
-	tok, err := s.cfg.Authority.IssueRecorded(s.cfg.Store, cl.Subject+" ("+cl.ID+")", g)
+	tok, err := s.cfg.Authority.IssueRecorded(c.Request().Context(), s.cfg.Store, cl.Subject, g)
 	if err != nil {
 		if errors.Is(err, catalog.ErrInvalid) || errors.Is(err, catalog.ErrExists) {
 			return catalogError(err)
@@ -110,15 +113,15 @@ func (s *Server) revokeToken(c echo.Context) error {
 	if err := decodeJSON(c, &req, `{"reason": ...}`); err != nil {
 		return err
 	}
-	rv, err := s.cfg.Store.RevokeToken(c.Request().Context(), cl.Subject+" ("+cl.ID+")", c.Param("jti"), req.Reason)
+	rv, err := s.cfg.Store.RevokeToken(c.Request().Context(), cl.Subject, c.Param("jti"), req.Reason)
 	if err != nil {
 		return catalogError(err)
 	}
 	return c.JSON(http.StatusOK, rv)
 }
 
-// headerKID returns the kid of a token's header (the key that signed it).
-func headerKID(tok string) (string, error) {
+// HeaderKID returns the kid of a token's header (the key that signed it).
+func HeaderKID(tok string) (string, error) {
 	t, _, err := jwt.NewParser().ParseUnverified(tok, &Claims{})
 	if err != nil {
 		return "", err

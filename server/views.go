@@ -216,6 +216,9 @@ func (s *Server) exportVersion(c echo.Context) error {
 	if match := c.Request().Header.Get("If-None-Match"); match == tag {
 		return c.NoContent(http.StatusNotModified)
 	}
+	if err := s.auditRead(c, "version.export", v, "format "+format+filterText(q)); err != nil {
+		return err
+	}
 	ctx := c.Request().Context()
 	w := c.Response()
 	if format == "csv" {
@@ -311,6 +314,9 @@ func (s *Server) getBundle(c echo.Context) error {
 		report = nil
 	} else if err != nil {
 		return catalogError(err)
+	}
+	if err := s.auditRead(c, "version.bundle", v, "format "+format); err != nil {
+		return err
 	}
 	c.Response().WriteHeader(http.StatusOK)
 	err = export.WriteBundle(c.Request().Context(), c.Response(), format, export.Bundle{
