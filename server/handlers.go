@@ -196,6 +196,9 @@ func (s *Server) upload(c echo.Context) error {
 	if err != nil {
 		return err
 	}
+	if err := partnerMode(claims(c), d, opt.Mode); err != nil {
+		return err
+	}
 	release, err := s.takeUploadSlot(claims(c))
 	if err != nil {
 		return err
@@ -377,12 +380,32 @@ func (s *Server) listUploads(c echo.Context) error {
 		return err
 	}
 	out := []catalog.Upload{}
+	cl := claims(c)
 	for _, u := range ups {
-		if !unseen[u.Version] {
-			out = append(out, u)
+		if unseen[u.Version] || !seesUpload(cl, d, u) {
+			continue
 		}
+		out = append(out, u)
 	}
 	return c.JSON(http.StatusOK, out)
+}
+
+// partnerMode refuses a partner's upload in a mode that removes events:
+// replace-all removes every site's, replace-window every listed site's in
+// the window, which other partners may have sent. A partner appends; a
+// curator of the project replaces.
+func partnerMode(cl *Claims, d *catalog.Dataset, m catalog.Mode) error {
+	if cl.Role != RolePartner || m == catalog.ModeAppend {
+		return nil
+	}
+	return fail(http.StatusForbidden, "forbidden", "this token may not upload in mode %s to %s: a partner token appends only (mode append); %s removes events other partners may have sent, so a curator of project %s uploads in that mode", m, d.Ref(), m, d.Project)
+}
+
+// seesUpload reports whether the claims see upload u's record: a partner
+// sees its own uploads only (by token subject), anyone else who may see
+// the dataset's uploads sees every one.
+func seesUpload(cl *Claims, d *catalog.Dataset, u catalog.Upload) bool {
+	return cl.Role != RolePartner || cl.CanCurate(d.Project) || u.By == cl.Subject
 }
 
 // unseenVersions are the versions whose uploads a member may not see:

@@ -131,6 +131,9 @@ func New(cfg Config) *Server {
 		{method: "GET", path: api + "/admin/tokens", h: s.listTokens},
 		{method: "POST", path: api + "/admin/tokens", h: s.issueToken},
 		{method: "POST", path: api + "/admin/tokens/:jti/revoke", h: s.revokeToken},
+		{method: "GET", path: api + "/projects/:project/tokens", h: s.listProjectTokens},
+		{method: "POST", path: api + "/projects/:project/tokens", h: s.issueProjectToken},
+		{method: "POST", path: api + "/projects/:project/tokens/:jti/revoke", h: s.revokeProjectToken},
 		{method: "GET", path: api + "/audit", h: s.listAudit, params: append([]string{"limit", "after"}, auditParams...)},
 		{method: "GET", path: api + "/audit/export", h: s.exportAudit, params: auditParams},
 	}
