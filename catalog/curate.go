@@ -24,6 +24,10 @@ func (s *Store) Publish(ctx context.Context, project, dataset string, n int, by 
 		switch v.State {
 		case StatePublished:
 			return false, nil
+		case StateDraft:
+			if err := s.writableNow(project, dataset); err != nil {
+				return false, err
+			}
 		case StateRetracted:
 			return false, fmt.Errorf("version %d was retracted (%s); it cannot be published again: %w", v.Number, v.RetractReason, ErrState)
 		}
@@ -81,4 +85,9 @@ func (s *Store) setState(ctx context.Context, project, dataset string, n int, by
 		return nil, err
 	}
 	return &v, nil
+}
+
+// writableNow is writableTx in a read transaction of its own.
+func (s *Store) writableNow(project, dataset string) error {
+	return s.db.View(func(tx *bolt.Tx) error { return writableTx(tx, project, dataset) })
 }

@@ -81,6 +81,9 @@ func (s *Store) SetChangePolicy(ctx context.Context, project, dataset string, p 
 		if err := getJSON(b, []byte(ref), &d, "dataset "+ref); err != nil {
 			return err
 		}
+		if err := writableTx(tx, project, dataset); err != nil {
+			return err
+		}
 		d.Changes = p
 		if err := putJSON(b, []byte(ref), &d); err != nil {
 			return err

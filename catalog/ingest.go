@@ -160,6 +160,9 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	if err != nil {
 		return nil, err
 	}
+	if err := ds.writable(proj); err != nil {
+		return nil, err
+	}
 	pz, err := anonymize.OpenProjectKey(s.opt.Master, proj.Name, proj.Key)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
@@ -412,6 +415,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
 			return err
 		}
+		if err := writableTx(tx, cur.Project, cur.Name); err != nil {
+			return err
+		}
 		if parent != nil && cur.Latest != parent.Number || parent == nil && cur.Latest != 0 {
 			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref().String(), cur.Latest)
 		}
@@ -425,17 +431,18 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			}
 		}
 		m := Manifest{
-			Dataset:       cur.Ref(),
-			Version:       cur.Latest + 1,
-			Parent:        cur.Latest,
-			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(up, plan.removed)},
-			SchemaVersion: schema.Version,
-			ProfileHash:   cur.ProfileHash,
-			KeyID:         keyID,
-			Files:         plan.files,
-			CaseTable:     vp.table,
-			CreatedBy:     opt.By,
-			CreatedAt:     received,
+			Dataset:         cur.Ref(),
+			Version:         cur.Latest + 1,
+			Parent:          cur.Latest,
+			Lineage:         Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(up, plan.removed)},
+			SchemaVersion:   schema.Version,
+			ProfileHash:     ds.ProfileHash, // what the upload was read with
+			ProfileRevision: ds.Revision(),
+			KeyID:           keyID,
+			Files:           plan.files,
+			CaseTable:       vp.table,
+			CreatedBy:       opt.By,
+			CreatedAt:       received,
 		}
 		if opt.Mode == ModeReplaceWindow {
 			from, to := opt.From, opt.To

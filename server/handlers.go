@@ -23,26 +23,32 @@ import (
 
 // projectView is a project as the API shows it: never its sealed key.
 type projectView struct {
-	Name      string    `json:"name"`
-	Title     string    `json:"title,omitempty"`
-	CreatedAt time.Time `json:"created_at"`
-	CreatedBy string    `json:"created_by"`
-	KeyID     string    `json:"pseudonym_key_id"`
+	Name      string        `json:"name"`
+	Title     string        `json:"title,omitempty"`
+	CreatedAt time.Time     `json:"created_at"`
+	CreatedBy string        `json:"created_by"`
+	KeyID     string        `json:"pseudonym_key_id"`
+	Archived  *catalog.Mark `json:"archived,omitempty"`
+	Deleted   *catalog.Mark `json:"deleted,omitempty"`
 }
 
 func viewProject(p *catalog.Project) projectView {
-	return projectView{Name: p.Name, Title: p.Title, CreatedAt: p.CreatedAt, CreatedBy: p.CreatedBy, KeyID: p.Key.ID}
+	return projectView{Name: p.Name, Title: p.Title, CreatedAt: p.CreatedAt, CreatedBy: p.CreatedBy, KeyID: p.Key.ID, Archived: p.Archived, Deleted: p.Deleted}
 }
 
 func (s *Server) listProjects(c echo.Context) error {
 	cl := claims(c)
+	archived, err := withArchived(c)
+	if err != nil {
+		return err
+	}
 	ps, err := s.cfg.Store.Projects(c.Request().Context())
 	if err != nil {
 		return err
 	}
 	out := []projectView{}
 	for i := range ps {
-		if cl.CanRead(ps[i].Name) {
+		if cl.CanRead(ps[i].Name) && (archived || ps[i].Archived == nil) {
 			out = append(out, viewProject(&ps[i]))
 		}
 	}
@@ -88,13 +94,17 @@ func (s *Server) listDatasets(c echo.Context) error {
 	if !cl.CanRead(project) && !cl.uploadsTo(project) {
 		return forbidden("read project " + project)
 	}
+	archived, err := withArchived(c)
+	if err != nil {
+		return err
+	}
 	ds, err := s.cfg.Store.Datasets(c.Request().Context(), project)
 	if err != nil {
 		return catalogError(err)
 	}
 	out := []catalog.Dataset{}
 	for _, d := range ds {
-		if cl.CanSeeDataset(d.Project, d.Name) {
+		if cl.CanSeeDataset(d.Project, d.Name) && (archived || d.Archived == nil) {
 			out = append(out, d)
 		}
 	}

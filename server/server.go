@@ -102,13 +102,22 @@ func New(cfg Config) *Server {
 		{method: "GET", path: "/view/:project/:dataset/:version", h: view, public: true},
 		{method: "GET", path: api + "/health", h: s.health, public: true},
 		{method: "GET", path: api + "/schema", h: s.schema, public: true},
-		{method: "GET", path: api + "/projects", h: s.listProjects},
+		{method: "GET", path: api + "/projects", h: s.listProjects, params: []string{"archived"}},
 		{method: "POST", path: api + "/projects", h: s.createProject},
 		{method: "GET", path: api + "/projects/:project", h: s.getProject},
-		{method: "GET", path: api + "/projects/:project/datasets", h: s.listDatasets},
+		{method: "PATCH", path: api + "/projects/:project", h: s.editProject},
+		{method: "POST", path: api + "/projects/:project/archive", h: s.projectMark},
+		{method: "POST", path: api + "/projects/:project/unarchive", h: s.projectMark},
+		{method: "POST", path: api + "/projects/:project/delete", h: s.projectMark},
+		{method: "GET", path: api + "/projects/:project/datasets", h: s.listDatasets, params: []string{"archived"}},
 		{method: "POST", path: api + "/projects/:project/datasets", h: s.createDataset},
 		{method: "GET", path: ds, h: s.getDataset},
 		{method: "POST", path: ds + "/changes", h: s.setChanges},
+		{method: "PATCH", path: ds, h: s.editDataset},
+		{method: "GET", path: ds + "/profiles", h: s.listProfiles},
+		{method: "POST", path: ds + "/archive", h: s.archiveDataset},
+		{method: "POST", path: ds + "/unarchive", h: s.unarchiveDataset},
+		{method: "POST", path: ds + "/delete", h: s.deleteDataset},
 		{method: "POST", path: ds + "/uploads", h: s.upload, params: []string{"filename", "mode", "from", "to", "site*"}},
 		{method: "GET", path: ds + "/uploads", h: s.listUploads},
 		{method: "GET", path: ds + "/versions", h: s.listVersions, params: []string{"limit", "after"}},
@@ -143,7 +152,7 @@ func New(cfg Config) *Server {
 			mw = append(mw, s.authenticate, s.auditDenied)
 		}
 		mw = append(mw, knownParams(r.params))
-		if r.method == http.MethodPost {
+		if r.method == http.MethodPost || r.method == http.MethodPatch {
 			mw = append(mw, s.idleBodies)
 		}
 		e.Add(r.method, r.path, r.h, mw...)

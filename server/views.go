@@ -295,7 +295,8 @@ func (s *Server) getBundle(c echo.Context) error {
 	if format != "tar" && format != "zip" {
 		return fail(http.StatusBadRequest, "invalid", "format %q: want tar or zip", truncateParam(format))
 	}
-	d, err := s.cfg.Store.Dataset(c.Request().Context(), c.Param("project"), c.Param("dataset"))
+	// The dictionary describes the profile revision v was read with.
+	d, err := s.cfg.Store.DatasetAsRead(c.Request().Context(), v)
 	if err != nil {
 		return catalogError(err)
 	}
