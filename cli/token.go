@@ -24,12 +24,15 @@ func newTokenCmd(e *env) *cobra.Command {
 	var datasets []string
 	var ttl time.Duration
 	issue := &cobra.Command{
-		Use:   "issue --data DIR --role ROLE --subject NAME [--project P] [--dataset P/D] [--ttl 1h]",
-		Short: "Print a signed token; works while the server runs on DIR",
+		Use:   "issue [--data DIR | --server URL --token T] --role ROLE --subject NAME [--project P] [--dataset P/D] [--ttl 1h]",
+		Short: "Print a signed token, recorded in the catalog (spooled while the server runs on DIR); without --data through the API",
 		Args:  cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			if dir == "" || role == "" || subject == "" {
-				return usageErr("token issue: --data, --role and --subject are required")
+			if role == "" || subject == "" {
+				return usageErr("token issue: --role and --subject are required")
+			}
+			if dir == "" {
+				return e.issueOverAPI(cmd, role, subject, project, datasets, ttl)
 			}
 			d := dataDir(dir)
 			auth, err := d.authority()
@@ -74,7 +77,7 @@ func newTokenCmd(e *env) *cobra.Command {
 		},
 	}
 	f := issue.Flags()
-	f.StringVar(&dir, "data", "", "data directory of the server")
+	f.StringVar(&dir, "data", "", "data directory of the server; else the API (an admin, or a curator for member and partner tokens of --project)")
 	f.StringVar(&role, "role", "", "admin, curator, member or partner")
 	f.StringVar(&subject, "subject", "", "who the token is for (sub claim)")
 	f.StringVar(&project, "project", "", "project (curator, member)")
@@ -103,7 +106,7 @@ func lockedHint(err error, api string) error {
 }
 
 func newTokenListCmd(e *env) *cobra.Command {
-	var dir string
+	var dir, project string
 	c := &cobra.Command{
 		Use:   "list [--data DIR | --server URL --token T]",
 		Short: "List recorded tokens (jti, subject, role, scope, expiry, revocation)",
@@ -127,7 +130,11 @@ func newTokenListCmd(e *env) *cobra.Command {
 				var out struct {
 					Tokens []catalog.TokenRecord `json:"tokens"`
 				}
-				if err := cl.getJSON(cmd.Context(), "/admin/tokens", &out); err != nil {
+				path := "/admin/tokens"
+				if project != "" {
+					path = "/projects/" + url.PathEscape(project) + "/tokens"
+				}
+				if err := cl.getJSON(cmd.Context(), path, &out); err != nil {
 					return err
 				}
 				recs = out.Tokens
@@ -143,6 +150,7 @@ func newTokenListCmd(e *env) *cobra.Command {
 		},
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory (server stopped); else the API")
+	c.Flags().StringVar(&project, "project", "", "over the API: the member and partner tokens of project P (its curator)")
 	return c
 }
 
@@ -175,7 +183,7 @@ func orDash(s string) string {
 }
 
 func newTokenRevokeCmd(e *env) *cobra.Command {
-	var dir, reason string
+	var dir, reason, project string
 	c := &cobra.Command{
 		Use:   "revoke JTI --reason TEXT [--data DIR | --server URL --token T]",
 		Short: "Revoke a token by its jti: it stops authenticating on the next request",
@@ -199,7 +207,11 @@ func newTokenRevokeCmd(e *env) *cobra.Command {
 				if err != nil {
 					return err
 				}
-				if err := cl.postJSON(cmd.Context(), "/admin/tokens/"+url.PathEscape(args[0])+"/revoke", map[string]string{"reason": reason}, &rv); err != nil {
+				path := "/admin/tokens/" + url.PathEscape(args[0]) + "/revoke"
+				if project != "" {
+					path = "/projects/" + url.PathEscape(project) + "/tokens/" + url.PathEscape(args[0]) + "/revoke"
+				}
+				if err := cl.postJSON(cmd.Context(), path, map[string]string{"reason": reason}, &rv); err != nil {
 					return err
 				}
 			}
@@ -212,7 +224,36 @@ func newTokenRevokeCmd(e *env) *cobra.Command {
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory (server stopped); else the API")
 	c.Flags().StringVar(&reason, "reason", "", "why (kept in the revocation record)")
+	c.Flags().StringVar(&project, "project", "", "over the API: a member or partner token of project P (its curator)")
 	return c
+}
+
+// issueOverAPI issues a token through the server: a curator's member and
+// partner tokens of --project through the project's route, any other
+// through the admins'.
+func (e *env) issueOverAPI(cmd *cobra.Command, role, subject, project string, datasets []string, ttl time.Duration) error {
+	cl, err := e.client()
+	if err != nil {
+		return err
+	}
+	var out struct {
+		Token string `json:"token"`
+	}
+	if project != "" && (role == server.RoleMember || role == server.RolePartner) {
+		req := map[string]any{"role": role, "subject": subject, "ttl": ttl.String()}
+		if role == server.RolePartner {
+			req["datasets"] = datasets
+		}
+		err = cl.postJSON(cmd.Context(), "/projects/"+url.PathEscape(project)+"/tokens", req, &out)
+	} else {
+		g := grantFor(role, subject, project, datasets, ttl)
+		err = cl.postJSON(cmd.Context(), "/admin/tokens", map[string]any{"role": g.Role, "subject": g.Subject, "project": g.Project, "datasets": g.Datasets, "ttl": ttl.String()}, &out)
+	}
+	if err != nil {
+		return err
+	}
+	fmt.Fprintln(e.stdout, out.Token)
+	return nil
 }
 
 // auditKeys audits a key change when the catalog can be opened, and says
