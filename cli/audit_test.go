@@ -39,7 +39,9 @@ func TestCuratorCommands(t *testing.T) {
 		}
 		return strings.TrimSpace(out)
 	}
-	as := func(tok string) map[string]string { return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok} }
+	as := func(tok string) map[string]string {
+		return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok}
+	}
 	admin := as(issue("--role", "admin", "--subject", "ops"))
 	cur := as(issue("--role", "curator", "--subject", "cur", "--project", "flow"))
 	for _, args := range [][]string{{"project", "create", "flow"}, {"dataset", "create", "flow/visits"}} {
