@@ -35,6 +35,10 @@ type IngestOptions struct {
 	// upload replaces. Empty means the sites the upload holds. With sites
 	// given, an upload without rows removes their events in the window.
 	Sites []string
+	// BoundSites, when set, are the only sites the uploader may write: an
+	// event of any other site refuses the whole upload
+	// (RuleSiteNotAllowed). A partner token's sites.
+	BoundSites []string
 
 	held *heldFilter // set by Ingest: the upload's events against the latest version
 }
@@ -245,6 +249,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	}
 	defer sw.Remove()
 	win := newWindowCheck(opt)
+	bound := newSiteBinding(opt)
 	sacc := summary.New(summaryOptions(ds))
 	// The upload's events go to the per-case pass (sorted by case on disk),
 	// each carrying what the time pass found of it and marked as the
@@ -265,6 +270,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 			sacc.Observe(e)
 		}
 		win.observe(e)
+		bound.observe(e)
 		if err := sw.Write(e); err != nil {
 			return err
 		}
@@ -309,6 +315,9 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	case hf.rejectedShare(rep.Rows.Rejected) > ds.RejectAbove:
 		return reject(nil, fmt.Errorf("%.2f%% of rows are invalid, above the dataset's threshold of %.2f%%: %w",
 			100*hf.rejectedShare(rep.Rows.Rejected), 100*ds.RejectAbove, ErrRejected))
+	case bound.outside > 0:
+		ue := bound.uploadError()
+		return reject(ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
 	case win.outside > 0:
 		ue := win.uploadError()
 		return reject(ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))

@@ -24,7 +24,8 @@ type TokenRecord struct {
 	Role      string    `json:"role"`
 	Project   string    `json:"project,omitempty"`
 	Datasets  []string  `json:"datasets,omitempty"`
-	KeyID     string    `json:"kid,omitempty"` // "" for HS256
+	Sites     []string  `json:"sites,omitempty"` // a partner's bound sites
+	KeyID     string    `json:"kid,omitempty"`   // "" for HS256
 	IssuedAt  time.Time `json:"issued_at"`
 	ExpiresAt time.Time `json:"expires_at"`
 	// Revoked is filled in by Tokens from the revocations bucket.
@@ -169,6 +170,8 @@ func scopeText(r TokenRecord) string {
 	switch {
 	case r.Project != "":
 		return " in " + r.Project
+	case len(r.Datasets) > 0 && len(r.Sites) > 0:
+		return " on " + strings.Join(r.Datasets, ",") + " for sites " + strings.Join(r.Sites, ",")
 	case len(r.Datasets) > 0:
 		return " on " + strings.Join(r.Datasets, ",")
 	}

@@ -15,6 +15,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/server"
 )
@@ -86,6 +87,7 @@ type running struct {
 	url        string
 	masterFrom string
 	auth       *server.Authority
+	store      *catalog.Store
 	hs         *http.Server
 	done       chan error
 	close      func() error
@@ -120,7 +122,7 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, so ser
 	}
 	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, TokenSpool: d.tokenSpool(), MaxUploadBytes: so.maxUpload, MaxUploadsPerToken: so.maxUploads, BodyIdleTimeout: so.bodyIdle, CitationAuthor: so.citationAuthor})
 	hs := srv.HTTPServer(addr)
-	r := &running{url: "http://" + ln.Addr().String(), masterFrom: from, auth: auth, hs: hs, done: make(chan error, 1), close: st.Close}
+	r := &running{url: "http://" + ln.Addr().String(), masterFrom: from, auth: auth, store: st, hs: hs, done: make(chan error, 1), close: st.Close}
 	go func() { r.done <- hs.Serve(ln) }()
 	return r, nil
 }

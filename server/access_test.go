@@ -402,3 +402,46 @@ func zipMember(t *testing.T, b []byte, name string) string {
 	t.Fatalf("no %s in the zip", name)
 	return ""
 }
+
+// TestPartnerSites checks that a partner token bound to its sites has an
+// upload naming another site refused whole (403, rule site_not_allowed,
+// naming the line and the site), that nothing of it is stored, and that
+// an upload of its own site goes through; a token without sites is
+// unbound. The binding is recorded with the token.
+func TestPartnerSites(t *testing.T) {
+	e := newEnv(t)
+	e.createProject("alpha")
+	e.createDataset("alpha", "visits", "")
+	cur := e.curator("alpha")
+	r := e.postJSON("/api/v1/projects/alpha/tokens", cur, map[string]any{"role": "partner", "subject": "north-clinic", "datasets": []string{"visits"}, "sites": []string{"north"}, "ttl": "1h"})
+	e.mustStatus(r, 201, "issue a site-bound partner token")
+	var out struct{ Token string }
+	e.decode(r, &out)
+	north := out.Token
+	mixed := "site,case_id,event_type,occurred_at\nnorth,c1,arrival,2024-01-01T08:00:00Z\nsouth,c2,arrival,2024-01-01T08:05:00Z\n"
+	r = e.upload("alpha", "visits", north, "mixed.csv", []byte(mixed))
+	e.mustStatus(r, 403, "partner writes another site")
+	b := e.apiErr(r)
+	if b.Error.Rule != catalog.RuleSiteNotAllowed || b.Error.Line != 3 || b.Error.Column != "site" || !strings.Contains(b.Error.Message, `"south"`) {
+		t.Fatalf("refusal %+v does not name rule, line, column and site", b.Error)
+	}
+	if got := e.versions("alpha", "visits"); len(got) != 0 {
+		t.Fatalf("a refused upload made %d versions", len(got))
+	}
+	e.mustStatus(e.upload("alpha", "visits", north, "own.csv", []byte("site,case_id,event_type,occurred_at\nnorth,c1,arrival,2024-01-01T08:00:00Z\n")), 201, "own site")
+	e.mustStatus(e.upload("alpha", "visits", e.partner("alpha/visits"), "any.csv", []byte(mixed)), 201, "unbound partner")
+	var list struct {
+		Tokens []catalog.TokenRecord `json:"tokens"`
+	}
+	e.decode(e.get("/api/v1/projects/alpha/tokens", cur), &list)
+	found := false
+	for _, tk := range list.Tokens {
+		if tk.Subject == "north-clinic" {
+			found = len(tk.Sites) == 1 && tk.Sites[0] == "north"
+		}
+	}
+	if !found {
+		t.Fatalf("the token's record lacks its sites: %+v", list.Tokens)
+	}
+	e.mustStatus(e.postJSON("/api/v1/admin/tokens", e.admin, map[string]any{"role": "member", "subject": "m", "project": "alpha", "sites": []string{"north"}, "ttl": "1h"}), 400, "sites on a member token")
+}

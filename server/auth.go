@@ -42,6 +42,9 @@ type Claims struct {
 	Role     string   `json:"role"`
 	Project  string   `json:"project,omitempty"`  // curator and member
 	Datasets []string `json:"datasets,omitempty"` // partner: "project/dataset" refs
+	// Sites bind a partner to the sites it writes: an upload with an event
+	// of another site is refused whole. Absent: any site.
+	Sites []string `json:"sites,omitempty"`
 
 	kid string // the header's key id; "" for HS256
 }
@@ -52,6 +55,7 @@ type Grant struct {
 	Subject  string
 	Project  string
 	Datasets []string
+	Sites    []string // partner: the sites it may write; empty for any
 	TTL      time.Duration
 }
 
@@ -191,6 +195,14 @@ func (a *Authority) IssueClaims(g Grant) (string, *Claims, error) {
 			}
 		}
 	}
+	if len(g.Sites) > 0 && g.Role != RolePartner {
+		return "", nil, fmt.Errorf("token: sites bind partner tokens only, not role %s", g.Role)
+	}
+	for _, site := range g.Sites {
+		if site == "" || len(site) > 200 {
+			return "", nil, fmt.Errorf("token: site %q: want 1 to 200 bytes", site)
+		}
+	}
 	if g.TTL <= 0 {
 		return "", nil, fmt.Errorf("token: ttl must be positive")
 	}
@@ -215,6 +227,7 @@ func (a *Authority) IssueClaims(g Grant) (string, *Claims, error) {
 		Role:     g.Role,
 		Project:  g.Project,
 		Datasets: g.Datasets,
+		Sites:    g.Sites,
 	}
 	if k, ok := ks.Active(); ok {
 		priv, err := k.private()

@@ -247,6 +247,13 @@ func (s *Server) upload(c echo.Context) error {
 		he.body.Message = fileMessage(res.Upload.Filename, e)
 		he.body.Upload = res.Upload
 		return he
+	case errors.Is(err, catalog.ErrRejected) && res.Upload.Error != nil && res.Upload.Error.Rule == catalog.RuleSiteNotAllowed:
+		// A partner writing a site its token does not name: refused by
+		// authorization, after the body showed it.
+		e := res.Upload.Error
+		he := fail(http.StatusForbidden, "forbidden", "this token may not write site data it is not bound to: %s", fileMessage(res.Upload.Filename, e))
+		he.body.Rule, he.body.Line, he.body.Column, he.body.Upload = e.Rule, e.Line, e.Column, res.Upload
+		return he
 	case errors.Is(err, catalog.ErrRejected):
 		he := fail(http.StatusUnprocessableEntity, "rejected", "%s", err.Error())
 		rejectedDetail(&he.body, res.Upload)
@@ -308,7 +315,11 @@ func (b sizedBody) Read(p []byte) (int, error) {
 // replace-window from, to (RFC 3339) and site (repeated or comma-separated).
 // They are checked before the body is read.
 func uploadOptions(c echo.Context) (catalog.IngestOptions, error) {
-	opt := catalog.IngestOptions{Filename: c.QueryParam("filename"), By: claims(c).Subject, Mode: catalog.Mode(c.QueryParam("mode"))}
+	cl := claims(c)
+	opt := catalog.IngestOptions{Filename: c.QueryParam("filename"), By: cl.Subject, Mode: catalog.Mode(c.QueryParam("mode"))}
+	if cl.Role == RolePartner {
+		opt.BoundSites = cl.Sites
+	}
 	var err error
 	if opt.From, opt.To, err = window(c.QueryParams()); err != nil {
 		return opt, err

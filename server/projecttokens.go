@@ -46,6 +46,7 @@ type projectIssueRequest struct {
 	Role     string   `json:"role"` // member or partner
 	Subject  string   `json:"subject"`
 	Datasets []string `json:"datasets"` // partner: dataset names of the project (or project/dataset)
+	Sites    []string `json:"sites"`    // partner: the sites it may write
 	TTL      string   `json:"ttl"`
 }
 
@@ -55,11 +56,11 @@ func (s *Server) issueProjectToken(c echo.Context) error {
 		return err
 	}
 	var req projectIssueRequest
-	if err := decodeJSON(c, &req, `{"role": "member" | "partner", "subject", "datasets", "ttl"}`); err != nil {
+	if err := decodeJSON(c, &req, `{"role": "member" | "partner", "subject", "datasets", "sites", "ttl"}`); err != nil {
 		return err
 	}
 	ctx := c.Request().Context()
-	g := Grant{Role: req.Role, Subject: req.Subject}
+	g := Grant{Role: req.Role, Subject: req.Subject, Sites: req.Sites}
 	switch req.Role {
 	case RoleMember:
 		if len(req.Datasets) > 0 {
