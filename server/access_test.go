@@ -262,6 +262,7 @@ func TestAuditTrailEndToEnd(t *testing.T) {
 		}
 		entries = append(entries, a)
 	}
+	t.Logf("audit export: %d entries, %d bytes (%d bytes an entry)", len(entries), len(r.Body), len(r.Body)/max(len(entries), 1))
 	seen := map[string]catalog.AuditEntry{} // action -> its last entry, the test env's own token issues left out
 	for _, a := range entries {
 		if a.By != "test" {
