@@ -22,8 +22,8 @@ import (
 // seeks straight to its start.
 //
 // Retention: entries are kept for the life of the catalog; flowcat never
-// prunes them. An entry is about 300 bytes of JSON, so a catalog taking a
-// thousand audited requests a day grows by about 110 MB a year. An
+// prunes them. An entry is about 280 bytes of JSON, so a catalog taking a
+// thousand audited requests a day grows by about 100 MB a year. An
 // operator who must bound it exports the trail (JSON Lines) to an archive.
 //
 // Entries name projects, datasets, versions, upload ids, token ids (jti),
