@@ -117,7 +117,8 @@ func newEnvStore(t *testing.T, dir string, sopt catalog.Options, opts ...func(*C
 		t.Fatal(err)
 	}
 	auth := NewAuthority(key, testIssuer)
-	cfg := Config{Store: store, Authority: auth, Logger: logger}
+	// No rate limit unless a test sets one: tests send many requests fast.
+	cfg := Config{Store: store, Authority: auth, Logger: logger, RateLimit: -1}
 	for _, o := range opts {
 		o(&cfg)
 	}

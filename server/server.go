@@ -36,6 +36,12 @@ type Config struct {
 	// BodyIdleTimeout is how long the server waits for the next byte of a
 	// request body before it gives up (default 60 s; 408).
 	BodyIdleTimeout time.Duration
+	// RateLimit bounds the requests one token (its jti) sends a second,
+	// with bursts of RateBurst (defaults DefaultRateLimit and
+	// DefaultRateBurst; a negative RateLimit turns the limit off); 429
+	// with Retry-After above.
+	RateLimit float64
+	RateBurst int
 	// TokenSpool is the folder where the command line leaves the records
 	// of tokens it issued while this server held the catalog (see
 	// catalog.SpoolToken); "" for none. A token signed by an EdDSA key is
@@ -61,6 +67,7 @@ type Server struct {
 
 	mu        sync.Mutex
 	uploading map[string]int // uploads in progress per token id
+	limits    *tokenLimits   // nil: no rate limit
 }
 
 // New returns a server for cfg.
@@ -81,8 +88,18 @@ func New(cfg Config) *Server {
 	e.HideBanner = true
 	e.HidePort = true
 	e.HTTPErrorHandler = errorHandler(cfg.Logger)
+	if cfg.RateLimit == 0 {
+		cfg.RateLimit = DefaultRateLimit
+	}
+	if cfg.RateBurst <= 0 {
+		cfg.RateBurst = DefaultRateBurst
+	}
 	s := &Server{cfg: cfg, echo: e, uploading: map[string]int{}}
+	if cfg.RateLimit > 0 {
+		s.limits = newTokenLimits(cfg.RateLimit, cfg.RateBurst)
+	}
 	e.Use(middleware.Recover())
+	e.Use(securityHeaders)
 	e.Use(middleware.RequestID())
 	e.Use(s.accessLog)
 
@@ -149,7 +166,7 @@ func New(cfg Config) *Server {
 	for _, r := range s.routes {
 		var mw []echo.MiddlewareFunc
 		if !r.public {
-			mw = append(mw, s.authenticate, s.auditDenied)
+			mw = append(mw, s.authenticate, s.rateLimit, s.auditDenied)
 		}
 		mw = append(mw, knownParams(r.params))
 		if r.method == http.MethodPost || r.method == http.MethodPatch {
