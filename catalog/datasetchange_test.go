@@ -8,6 +8,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/flowcat-catalog/flowcat/anonymize"
 )
 
 // A partner's export whose columns changed names between two years: the
@@ -232,4 +234,64 @@ func TestArchiveAndDelete(t *testing.T) {
 			t.Errorf("no %s entry in the audit trail", want)
 		}
 	}
+}
+
+// TestRotateMasterKey checks that rotating the master key re-seals every
+// project key with the same id, so that an upload after it gives the same
+// pseudonyms as one before (the held events are recognised as held); that
+// the catalog then opens under the new key only; and that no data file
+// changed.
+func TestRotateMasterKey(t *testing.T) {
+	e := newEnv(t, nil)
+	ctx := context.Background()
+	e.dataset(t, "p", "d", nil)
+	v1 := e.ingest(t, "p", "d", []byte(oldExport), "a.csv").Version
+	before := e.blobIDs(t)
+	p0, _ := e.s.Project(ctx, "p")
+	newM, err := anonymize.GenerateMasterKey()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if n, err := e.s.RotateMasterKey(ctx, newM, "operator"); err != nil || n != 1 {
+		t.Fatalf("rotate: %d, %v", n, err)
+	}
+	p1, _ := e.s.Project(ctx, "p")
+	if p1.Key.ID != p0.Key.ID || bytes.Equal(p1.Key.Ciphertext, p0.Key.Ciphertext) {
+		t.Fatalf("project key after rotation %+v, before %+v", p1.Key, p0.Key)
+	}
+	// The same events again, plus one: the held ones are recognised, so the
+	// pseudonyms did not change.
+	more := oldExport + "north,c3,arrival,2024-01-02T08:00:00Z\n"
+	res := e.ingest(t, "p", "d", []byte(more), "b.csv")
+	if res.Upload.Events == nil || res.Upload.Events.Held != 2 || res.Upload.Events.New != 1 {
+		t.Fatalf("after rotation the upload's events %+v: want 2 held, 1 new", res.Upload.Events)
+	}
+	if !containsAll(e.blobIDs(t), before) {
+		t.Fatal("rotation changed a data file")
+	}
+	old := e.master
+	e.master = newM
+	e.open(t, nil)
+	if v, err := e.s.Version(ctx, "p", "d", v1.Number); err != nil || v.SnapshotID != v1.SnapshotID {
+		t.Fatalf("version 1 after reopening under the new key: %v", err)
+	}
+	e.s.Close()
+	e.s = nil
+	if _, err := Open(e.dbPath, e.blobs, e.options(func(o *Options) { o.Master = old })); !errors.Is(err, anonymize.ErrKeyMismatch) {
+		t.Fatalf("opening under the old master key: %v", err)
+	}
+	e.open(t, nil)
+	au, _, _ := e.s.AuditPage(ctx, AuditFilter{Action: "key.master_rotate"})
+	if len(au) != 1 || !strings.Contains(au[0].Detail, "1 project keys") {
+		t.Fatalf("audit %+v", au)
+	}
+}
+
+func containsAll[T comparable](have, want []T) bool {
+	for _, w := range want {
+		if !slices.Contains(have, w) {
+			return false
+		}
+	}
+	return true
 }
