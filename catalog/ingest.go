@@ -440,19 +440,19 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			}
 		}
 		m := Manifest{
-			Dataset:         cur.Ref(),
-			Version:         cur.Latest + 1,
-			Parent:          cur.Latest,
-			Lineage:         Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(up, plan.removed)},
-			SchemaVersion:   schema.Version,
-			ProfileHash:     ds.ProfileHash, // what the upload was read with
-			ProfileRevision: ds.Revision(),
-			KeyID:           keyID,
-			Files:           plan.files,
-			CaseTable:       vp.table,
-			CreatedBy:       opt.By,
-			CreatedAt:       received,
+			Dataset:       cur.Ref(),
+			Version:       cur.Latest + 1,
+			Parent:        cur.Latest,
+			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(up, plan.removed)},
+			SchemaVersion: schema.Version,
+			ProfileHash:   ds.ProfileHash, // what the upload was read with
+			KeyID:         keyID,
+			Files:         plan.files,
+			CaseTable:     vp.table,
+			CreatedBy:     opt.By,
+			CreatedAt:     received,
 		}
+		m.ProfileRevision = ds.Revision()
 		if opt.Mode == ModeReplaceWindow {
 			from, to := opt.From, opt.To
 			m.Lineage.From, m.Lineage.To, m.Lineage.Sites = &from, &to, opt.Sites
