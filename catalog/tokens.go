@@ -24,8 +24,9 @@ type TokenRecord struct {
 	Role      string    `json:"role"`
 	Project   string    `json:"project,omitempty"`
 	Datasets  []string  `json:"datasets,omitempty"`
-	Sites     []string  `json:"sites,omitempty"` // a partner's bound sites
-	KeyID     string    `json:"kid,omitempty"`   // "" for HS256
+	Sites     []string  `json:"sites,omitempty"`   // a partner's bound sites
+	Replace   bool      `json:"replace,omitempty"` // a partner may replace-window its sites
+	KeyID     string    `json:"kid,omitempty"`     // "" for HS256
 	IssuedAt  time.Time `json:"issued_at"`
 	ExpiresAt time.Time `json:"expires_at"`
 	// Revoked is filled in by Tokens from the revocations bucket.
@@ -171,7 +172,11 @@ func scopeText(r TokenRecord) string {
 	case r.Project != "":
 		return " in " + r.Project
 	case len(r.Datasets) > 0 && len(r.Sites) > 0:
-		return " on " + strings.Join(r.Datasets, ",") + " for sites " + strings.Join(r.Sites, ",")
+		s := " on " + strings.Join(r.Datasets, ",") + " for sites " + strings.Join(r.Sites, ",")
+		if r.Replace {
+			s += ", may replace-window them"
+		}
+		return s
 	case len(r.Datasets) > 0:
 		return " on " + strings.Join(r.Datasets, ",")
 	}

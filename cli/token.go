@@ -22,6 +22,7 @@ func newTokenCmd(e *env) *cobra.Command {
 	c := &cobra.Command{Use: "token", Short: "Issue, list and revoke API tokens; rotate and retire signing keys"}
 	var dir, role, subject, project string
 	var datasets, sites []string
+	var replace bool
 	var ttl time.Duration
 	issue := &cobra.Command{
 		Use:   "issue [--data DIR | --server URL --token T] --role ROLE --subject NAME [--project P] [--dataset P/D] [--ttl 1h]",
@@ -32,7 +33,7 @@ func newTokenCmd(e *env) *cobra.Command {
 				return usageErr("token issue: --role and --subject are required")
 			}
 			if dir == "" {
-				return e.issueOverAPI(cmd, role, subject, project, datasets, sites, ttl)
+				return e.issueOverAPI(cmd, role, subject, project, datasets, sites, replace, ttl)
 			}
 			d := dataDir(dir)
 			auth, err := d.authority()
@@ -47,7 +48,7 @@ func newTokenCmd(e *env) *cobra.Command {
 				}
 			}
 			g := grantFor(role, subject, project, datasets, ttl)
-			g.Sites = sites
+			g.Sites, g.Replace = sites, replace
 			// Record the token (and audit the issue); while a server holds
 			// the catalog, spool the record for the server to import (it
 			// honours no EdDSA token it has no record of).
@@ -84,6 +85,7 @@ func newTokenCmd(e *env) *cobra.Command {
 	f.StringVar(&project, "project", "", "project (curator, member)")
 	f.StringArrayVar(&datasets, "dataset", nil, "dataset P/D a partner may upload to (repeatable)")
 	f.StringArrayVar(&sites, "site", nil, "site a partner may write (repeatable); an upload with another site's events is refused whole")
+	f.BoolVar(&replace, "replace", false, "let a partner bound to --site upload in mode replace-window for those sites")
 	f.DurationVar(&ttl, "ttl", time.Hour, "lifetime (at most the role's max_ttl)")
 	c.AddCommand(issue, newTokenListCmd(e), newTokenRevokeCmd(e), newKeyRotateCmd(e), newKeyRetireCmd(e), newKeyListCmd(e))
 	return c
@@ -236,7 +238,7 @@ func newTokenRevokeCmd(e *env) *cobra.Command {
 // issueOverAPI issues a token through the server: a curator's member and
 // partner tokens of --project through the project's route, any other
 // through the admins'.
-func (e *env) issueOverAPI(cmd *cobra.Command, role, subject, project string, datasets, sites []string, ttl time.Duration) error {
+func (e *env) issueOverAPI(cmd *cobra.Command, role, subject, project string, datasets, sites []string, replace bool, ttl time.Duration) error {
 	cl, err := e.client()
 	if err != nil {
 		return err
@@ -247,12 +249,12 @@ func (e *env) issueOverAPI(cmd *cobra.Command, role, subject, project string, da
 	if project != "" && (role == server.RoleMember || role == server.RolePartner) {
 		req := map[string]any{"role": role, "subject": subject, "ttl": ttl.String()}
 		if role == server.RolePartner {
-			req["datasets"], req["sites"] = datasets, sites
+			req["datasets"], req["sites"], req["replace"] = datasets, sites, replace
 		}
 		err = cl.postJSON(cmd.Context(), "/projects/"+url.PathEscape(project)+"/tokens", req, &out)
 	} else {
 		g := grantFor(role, subject, project, datasets, ttl)
-		err = cl.postJSON(cmd.Context(), "/admin/tokens", map[string]any{"role": g.Role, "subject": g.Subject, "project": g.Project, "datasets": g.Datasets, "sites": sites, "ttl": ttl.String()}, &out)
+		err = cl.postJSON(cmd.Context(), "/admin/tokens", map[string]any{"role": g.Role, "subject": g.Subject, "project": g.Project, "datasets": g.Datasets, "sites": sites, "replace": replace, "ttl": ttl.String()}, &out)
 	}
 	if err != nil {
 		return err

@@ -446,3 +446,44 @@ func TestPartnerSites(t *testing.T) {
 	}
 	e.mustStatus(e.postJSON("/api/v1/admin/tokens", e.admin, map[string]any{"role": "member", "subject": "m", "project": "alpha", "sites": []string{"north"}, "ttl": "1h"}), 400, "sites on a member token")
 }
+
+// TestPartnerReplaceGrant checks the curator's grant of replace to a
+// partner bound to sites: it replaces a window of its own site (the
+// other site's events stay), is refused naming the site for another
+// site's window and for replace-all; the grant needs sites.
+func TestPartnerReplaceGrant(t *testing.T) {
+	e := newEnv(t)
+	e.createProject("alpha")
+	e.createDataset("alpha", "visits", "")
+	cur := e.curator("alpha")
+	issue := func(body map[string]any, want int) string {
+		t.Helper()
+		r := e.postJSON("/api/v1/projects/alpha/tokens", cur, body)
+		e.mustStatus(r, want, "issue")
+		var out struct{ Token string }
+		if want == 201 {
+			e.decode(r, &out)
+		}
+		return out.Token
+	}
+	north := issue(map[string]any{"role": "partner", "subject": "north", "datasets": []string{"visits"}, "sites": []string{"north"}, "replace": true, "ttl": "1h"}, 201)
+	issue(map[string]any{"role": "partner", "subject": "x", "datasets": []string{"visits"}, "replace": true, "ttl": "1h"}, 400)
+	base := "site,case_id,event_type,occurred_at\nnorth,c1,arrival,2024-01-01T08:00:00Z\nsouth,c2,arrival,2024-01-01T08:05:00Z\n"
+	e.mustStatus(e.upload("alpha", "visits", e.admin, "base.csv", []byte(base)), 201, "base")
+	ds := "/api/v1/projects/alpha/datasets/visits/uploads?mode=replace-window&from=2024-01-01T00:00:00Z&to=2024-01-02T00:00:00Z"
+	fixed := "site,case_id,event_type,occurred_at\nnorth,c1,arrival,2024-01-01T08:01:00Z\n"
+	r := e.do("POST", ds+"&site=south", north, strings.NewReader(fixed), map[string]string{"Content-Type": "text/csv"})
+	e.mustStatus(r, 403, "replace another site's window")
+	if b := e.apiErr(r); !strings.Contains(b.Error.Message, `"south"`) {
+		t.Errorf("refusal %q does not name the site", b.Error.Message)
+	}
+	e.mustStatus(e.do("POST", "/api/v1/projects/alpha/datasets/visits/uploads?mode=replace-all", north, strings.NewReader(fixed), nil), 403, "replace-all with the grant")
+	r = e.do("POST", ds+"&site=north", north, strings.NewReader(fixed), map[string]string{"Content-Type": "text/csv"})
+	e.mustStatus(r, 201, "replace its own site's window")
+	var up uploadResponse
+	e.decode(r, &up)
+	if up.Version.Manifest.Rows != 2 || up.Version.Manifest.Lineage.RowsRemoved != 1 {
+		t.Fatalf("after the replace: %d rows, %d removed; want 2 and 1 (south kept)", up.Version.Manifest.Rows, up.Version.Manifest.Lineage.RowsRemoved)
+	}
+	e.mustStatus(e.do("POST", ds, e.partner("alpha/visits"), strings.NewReader(fixed), nil), 403, "replace-window without the grant")
+}

@@ -45,6 +45,9 @@ type Claims struct {
 	// Sites bind a partner to the sites it writes: an upload with an event
 	// of another site is refused whole. Absent: any site.
 	Sites []string `json:"sites,omitempty"`
+	// Replace lets a partner bound to sites upload in mode replace-window
+	// for those sites (a curator's grant); replace-all stays refused.
+	Replace bool `json:"replace,omitempty"`
 
 	kid string // the header's key id; "" for HS256
 }
@@ -56,6 +59,7 @@ type Grant struct {
 	Project  string
 	Datasets []string
 	Sites    []string // partner: the sites it may write; empty for any
+	Replace  bool     // partner with sites: may replace-window its sites
 	TTL      time.Duration
 }
 
@@ -198,6 +202,9 @@ func (a *Authority) IssueClaims(g Grant) (string, *Claims, error) {
 	if len(g.Sites) > 0 && g.Role != RolePartner {
 		return "", nil, fmt.Errorf("token: sites bind partner tokens only, not role %s", g.Role)
 	}
+	if g.Replace && (g.Role != RolePartner || len(g.Sites) == 0) {
+		return "", nil, fmt.Errorf("token: replace is granted to partner tokens bound to sites only (give its sites)")
+	}
 	for _, site := range g.Sites {
 		if site == "" || len(site) > 200 {
 			return "", nil, fmt.Errorf("token: site %q: want 1 to 200 bytes", site)
@@ -228,6 +235,7 @@ func (a *Authority) IssueClaims(g Grant) (string, *Claims, error) {
 		Project:  g.Project,
 		Datasets: g.Datasets,
 		Sites:    g.Sites,
+		Replace:  g.Replace,
 	}
 	if k, ok := ks.Active(); ok {
 		priv, err := k.private()

@@ -206,7 +206,7 @@ func (s *Server) upload(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	if err := partnerMode(claims(c), d, opt.Mode); err != nil {
+	if err := partnerMode(claims(c), d, &opt); err != nil {
 		return err
 	}
 	release, err := s.takeUploadSlot(claims(c))
@@ -414,12 +414,28 @@ func (s *Server) listUploads(c echo.Context) error {
 // partnerMode refuses a partner's upload in a mode that removes events:
 // replace-all removes every site's, replace-window every listed site's in
 // the window, which other partners may have sent. A partner appends; a
-// curator of the project replaces.
-func partnerMode(cl *Claims, d *catalog.Dataset, m catalog.Mode) error {
+// curator of the project replaces. A partner token bound to sites and
+// granted replace (by whoever issued it) may replace-window those sites
+// only: the sites replaced must be among them.
+func partnerMode(cl *Claims, d *catalog.Dataset, opt *catalog.IngestOptions) error {
+	m := opt.Mode
 	if cl.Role != RolePartner || m == catalog.ModeAppend {
 		return nil
 	}
-	return fail(http.StatusForbidden, "forbidden", "this token may not upload in mode %s to %s: a partner token appends only (mode append); %s removes events other partners may have sent, so a curator of project %s uploads in that mode", m, d.Ref(), m, d.Project)
+	if m == catalog.ModeReplaceWindow && cl.Replace && len(cl.Sites) > 0 {
+		// No sites given: the upload's own, which the binding checks.
+		for _, site := range opt.Sites {
+			if !slices.Contains(cl.Sites, site) {
+				return fail(http.StatusForbidden, "forbidden", "this token may not replace the events of site %q: it replaces its own sites only (%s)", truncateParam(site), strings.Join(cl.Sites, ", "))
+			}
+		}
+		return nil
+	}
+	how := "a partner token appends only (mode append)"
+	if m == catalog.ModeReplaceWindow {
+		how += ", unless its issuer bound it to sites and granted replace"
+	}
+	return fail(http.StatusForbidden, "forbidden", "this token may not upload in mode %s to %s: %s; %s removes events other partners may have sent, so a curator of project %s uploads in that mode", m, d.Ref(), how, m, d.Project)
 }
 
 // seesUpload reports whether the claims see upload u's record: a partner

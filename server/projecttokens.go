@@ -47,6 +47,7 @@ type projectIssueRequest struct {
 	Subject  string   `json:"subject"`
 	Datasets []string `json:"datasets"` // partner: dataset names of the project (or project/dataset)
 	Sites    []string `json:"sites"`    // partner: the sites it may write
+	Replace  bool     `json:"replace"`  // partner with sites: may replace-window them
 	TTL      string   `json:"ttl"`
 }
 
@@ -56,11 +57,11 @@ func (s *Server) issueProjectToken(c echo.Context) error {
 		return err
 	}
 	var req projectIssueRequest
-	if err := decodeJSON(c, &req, `{"role": "member" | "partner", "subject", "datasets", "sites", "ttl"}`); err != nil {
+	if err := decodeJSON(c, &req, `{"role": "member" | "partner", "subject", "datasets", "sites", "replace", "ttl"}`); err != nil {
 		return err
 	}
 	ctx := c.Request().Context()
-	g := Grant{Role: req.Role, Subject: req.Subject, Sites: req.Sites}
+	g := Grant{Role: req.Role, Subject: req.Subject, Sites: req.Sites, Replace: req.Replace}
 	switch req.Role {
 	case RoleMember:
 		if len(req.Datasets) > 0 {

@@ -14,7 +14,7 @@ import (
 
 // TokenRecord turns issued claims into the catalog's record of them.
 func TokenRecord(c *Claims, kid string) catalog.TokenRecord {
-	r := catalog.TokenRecord{JTI: c.ID, Subject: c.Subject, Role: c.Role, Project: c.Project, Datasets: c.Datasets, Sites: c.Sites, KeyID: kid}
+	r := catalog.TokenRecord{JTI: c.ID, Subject: c.Subject, Role: c.Role, Project: c.Project, Datasets: c.Datasets, Sites: c.Sites, Replace: c.Replace, KeyID: kid}
 	if c.IssuedAt != nil {
 		r.IssuedAt = c.IssuedAt.UTC()
 	}
@@ -73,8 +73,9 @@ type issueRequest struct {
 	Subject  string   `json:"subject"`
 	Project  string   `json:"project"`
 	Datasets []string `json:"datasets"`
-	Sites    []string `json:"sites"` // partner: the sites it may write
-	TTL      string   `json:"ttl"`   // a Go duration, e.g. "720h"
+	Sites    []string `json:"sites"`   // partner: the sites it may write
+	Replace  bool     `json:"replace"` // partner with sites: may replace-window them
+	TTL      string   `json:"ttl"`     // a Go duration, e.g. "720h"
 }
 
 func (s *Server) issueToken(c echo.Context) error {
@@ -83,14 +84,14 @@ func (s *Server) issueToken(c echo.Context) error {
 		return forbidden("issue tokens (admin only)")
 	}
 	var req issueRequest
-	if err := decodeJSON(c, &req, `{"role", "subject", "project", "datasets", "sites", "ttl"}`); err != nil {
+	if err := decodeJSON(c, &req, `{"role", "subject", "project", "datasets", "sites", "replace", "ttl"}`); err != nil {
 		return err
 	}
 	ttl, err := time.ParseDuration(req.TTL)
 	if err != nil {
 		return fail(http.StatusBadRequest, "invalid", "ttl %q: want a duration such as 720h", truncateParam(req.TTL))
 	}
-	g := Grant{Role: req.Role, Subject: req.Subject, Project: req.Project, Datasets: req.Datasets, Sites: req.Sites, TTL: ttl}
+	g := Grant{Role: req.Role, Subject: req.Subject, Project: req.Project, Datasets: req.Datasets, Sites: req.Sites, Replace: req.Replace, TTL: ttl}
 	tok, err := s.cfg.Authority.IssueRecorded(c.Request().Context(), s.cfg.Store, cl.Subject, g)
 	if err != nil {
 		if errors.Is(err, catalog.ErrInvalid) || errors.Is(err, catalog.ErrExists) {
