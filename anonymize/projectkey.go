@@ -132,3 +132,27 @@ func truncID(id string) string {
 	}
 	return id
 }
+
+// ResealProjectKey opens sk under oldMaster and seals the same project key
+// under newMaster with a fresh nonce, keeping its id: pseudonyms made
+// before stay equal to those made after. It fails with ErrKeyMismatch
+// when sk does not open under oldMaster.
+func ResealProjectKey(oldMaster, newMaster MasterKey, project string, sk SealedKey) (SealedKey, error) {
+	if newMaster.IsZero() {
+		return SealedKey{}, errors.New("project key: new master key not set")
+	}
+	p, err := OpenProjectKey(oldMaster, project, sk)
+	if err != nil {
+		return SealedKey{}, err
+	}
+	defer clear(p.key[:])
+	nonce := make([]byte, nonceSize)
+	if _, err := rand.Read(nonce); err != nil {
+		return SealedKey{}, fmt.Errorf("project key: %w", err)
+	}
+	aead, err := newMaster.sealer()
+	if err != nil {
+		return SealedKey{}, fmt.Errorf("project key: %w", err)
+	}
+	return SealedKey{ID: sk.ID, Nonce: nonce, Ciphertext: aead.Seal(nil, nonce, p.key[:], sealAD(project, sk.ID))}, nil
+}

@@ -126,3 +126,40 @@ func TestOpenProjectKeyMismatch(t *testing.T) {
 		t.Fatal("sealed for an empty project name")
 	}
 }
+
+// TestResealProjectKey checks that a project key re-sealed under a new
+// master key keeps its id and gives the same pseudonyms, opens under the
+// new master only, and that re-sealing under a wrong old master fails
+// with ErrKeyMismatch.
+func TestResealProjectKey(t *testing.T) {
+	oldM, _ := GenerateMasterKey()
+	newM, _ := GenerateMasterKey()
+	sk, err := NewProjectKey(oldM, "p")
+	if err != nil {
+		t.Fatal(err)
+	}
+	re, err := ResealProjectKey(oldM, newM, "p", sk)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if re.ID != sk.ID || string(re.Ciphertext) == string(sk.Ciphertext) {
+		t.Fatalf("resealed %+v from %+v: want the same id, another ciphertext", re, sk)
+	}
+	a, err := OpenProjectKey(oldM, "p", sk)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := OpenProjectKey(newM, "p", re)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if a.Pseudonym(schema.FieldCaseID, "C-1") != b.Pseudonym(schema.FieldCaseID, "C-1") {
+		t.Fatal("the re-sealed key gives other pseudonyms")
+	}
+	if _, err := OpenProjectKey(oldM, "p", re); !errors.Is(err, ErrKeyMismatch) {
+		t.Fatalf("the re-sealed key opens under the old master: %v", err)
+	}
+	if _, err := ResealProjectKey(newM, oldM, "p", sk); !errors.Is(err, ErrKeyMismatch) {
+		t.Fatalf("re-seal under a wrong old master: %v", err)
+	}
+}

@@ -38,10 +38,14 @@ func (s *Store) publish(ctx context.Context, project, dataset string, n int, by 
 	if ov != nil {
 		action = "version.publish.override"
 	}
-	return s.setState(project, dataset, n, by, func(v *Version) (bool, error) {
+	return s.setState(ctx, project, dataset, n, by, func(v *Version) (bool, error) {
 		switch v.State {
 		case StatePublished:
 			return false, nil
+		case StateDraft:
+			if err := s.writableNow(project, dataset); err != nil {
+				return false, err
+			}
 		case StateRetracted:
 			return false, fmt.Errorf("version %d was retracted (%s); it cannot be published again: %w", v.Number, v.RetractReason, ErrState)
 		}
@@ -68,7 +72,7 @@ func (s *Store) Retract(ctx context.Context, project, dataset string, n int, rea
 	if len(reason) > 500 {
 		return nil, fmt.Errorf("retract: reason longer than 500 bytes: %w", ErrInvalid)
 	}
-	return s.setState(project, dataset, n, by, func(v *Version) (bool, error) {
+	return s.setState(ctx, project, dataset, n, by, func(v *Version) (bool, error) {
 		if v.State == StateRetracted {
 			return false, fmt.Errorf("version %d is retracted already: %w", v.Number, ErrState)
 		}
@@ -78,7 +82,7 @@ func (s *Store) Retract(ctx context.Context, project, dataset string, n int, rea
 	}, "version.retract")
 }
 
-func (s *Store) setState(project, dataset string, n int, by string, change func(*Version) (bool, error), action string) (*Version, error) {
+func (s *Store) setState(ctx context.Context, project, dataset string, n int, by string, change func(*Version) (bool, error), action string) (*Version, error) {
 	ref := project + "/" + dataset
 	var v Version
 	err := s.db.Update(func(tx *bolt.Tx) error {
@@ -99,10 +103,15 @@ func (s *Store) setState(project, dataset string, n int, by string, change func(
 		if err := withManifest(tx, &v); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, action, fmt.Sprintf("%s@%d", ref, n))
+		return auditCtx(ctx, tx, s.opt.Now(), by, action, fmt.Sprintf("%s@%d", ref, n))
 	})
 	if err != nil {
 		return nil, err
 	}
 	return &v, nil
+}
+
+// writableNow is writableTx in a read transaction of its own.
+func (s *Store) writableNow(project, dataset string) error {
+	return s.db.View(func(tx *bolt.Tx) error { return writableTx(tx, project, dataset) })
 }

@@ -44,7 +44,8 @@ type GCResult struct {
 
 // CollectGarbage deletes the blobs no version of any dataset references:
 // files left by a crash or a failed commit between the blob and the
-// version. Every version, retracted ones included, keeps its files. It
+// version, and the files of deleted datasets. Every version of a dataset
+// not deleted, retracted ones included, keeps its files. It
 // also deletes the blob store's temporary files older than the grace
 // period that no write in progress holds (blob.TempSweeper).
 //
@@ -112,7 +113,7 @@ func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*
 	}
 	if !opt.DryRun && len(doomed)+res.Temporaries > 0 {
 		err := s.db.Update(func(tx *bolt.Tx) error {
-			return audit(tx, now, by, "gc", fmt.Sprintf("%d blobs, %d bytes; %d temporary files, %d bytes", len(doomed), res.DeletedBytes, res.Temporaries, res.TemporaryBytes))
+			return auditCtx(ctx, tx, now, by, "gc", fmt.Sprintf("%d blobs, %d bytes; %d temporary files, %d bytes", len(doomed), res.DeletedBytes, res.Temporaries, res.TemporaryBytes))
 		})
 		if err != nil {
 			return res, err
@@ -127,14 +128,22 @@ func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*
 // and deciding which to delete.
 var testHookGCBetween func()
 
-// referenced returns every blob any version's manifest lists (Blobs).
+// referenced returns every blob a version's manifest lists (Blobs),
+// except the versions of deleted datasets.
 func (s *Store) referenced() (map[blob.ID]bool, error) {
 	refs := map[blob.ID]bool{}
 	err := s.db.View(func(tx *bolt.Tx) error {
+		deleted, err := deletedDatasets(tx)
+		if err != nil {
+			return fmt.Errorf("gc: %w", err)
+		}
 		return tx.Bucket(bucketManifests).ForEach(func(k, b []byte) error {
 			var m Manifest
 			if err := json.Unmarshal(b, &m); err != nil {
 				return fmt.Errorf("gc: manifest %s: %w", k, err)
+			}
+			if deleted[m.Dataset] {
+				return nil
 			}
 			for _, f := range m.Blobs() {
 				refs[f.SHA256] = true

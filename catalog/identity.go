@@ -81,11 +81,14 @@ func (s *Store) SetChangePolicy(ctx context.Context, project, dataset string, p 
 		if err := getJSON(b, []byte(ref), &d, "dataset "+ref); err != nil {
 			return err
 		}
+		if err := writableTx(tx, project, dataset); err != nil {
+			return err
+		}
 		d.Changes = p
 		if err := putJSON(b, []byte(ref), &d); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, "dataset.changes", fmt.Sprintf("%s (%s)", ref, p))
+		return auditCtx(ctx, tx, s.opt.Now(), by, "dataset.changes", fmt.Sprintf("%s (%s)", ref, p))
 	})
 	if err != nil {
 		return nil, err

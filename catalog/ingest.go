@@ -35,6 +35,10 @@ type IngestOptions struct {
 	// upload replaces. Empty means the sites the upload holds. With sites
 	// given, an upload without rows removes their events in the window.
 	Sites []string
+	// BoundSites, when set, are the only sites the uploader may write: an
+	// event of any other site refuses the whole upload
+	// (RuleSiteNotAllowed). A partner token's sites.
+	BoundSites []string
 
 	held  *heldFilter // set by Ingest: the upload's events against the latest version
 	attrs *attrIngest // set by Ingest: the upload's case attributes (attributes.go)
@@ -127,7 +131,7 @@ func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Read
 	if fe, ok := schema.AsFileError(err); ok {
 		up.Error.Line = fe.Line
 	}
-	if rerr := s.recordUpload(st.ds, &up); rerr != nil {
+	if rerr := s.recordUpload(ctx, st.ds, &up); rerr != nil {
 		return nil, errors.Join(err, rerr)
 	}
 	lvl := slog.LevelWarn
@@ -161,6 +165,9 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	if err != nil {
 		return nil, err
 	}
+	if err := ds.writable(proj); err != nil {
+		return nil, err
+	}
 	pz, err := anonymize.OpenProjectKey(s.opt.Master, proj.Name, proj.Key)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
@@ -192,7 +199,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 		if fe, ok := schema.AsFileError(err); ok && isContentFault(ctx, err) {
 			up.Status = UploadFailed
 			up.Error = &UploadError{Rule: fe.Rule, Line: fe.Line, Column: fe.Column, Message: fe.Msg}
-			if rerr := s.recordUpload(ds, &up); rerr != nil {
+			if rerr := s.recordUpload(ctx, ds, &up); rerr != nil {
 				return nil, rerr
 			}
 			s.opt.Logger.Warn("upload failed", "dataset", ds.Ref().String(), "upload", up.ID, "rule", fe.Rule, "line", fe.Line, "column", fe.Column)
@@ -222,7 +229,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 
 	if opt.Mode == ModeAppend {
 		if v, err := s.appendedBefore(ctx, ds, up.SHA256); err == nil {
-			return s.duplicate(ds, up, v)
+			return s.duplicate(ctx, ds, up, v)
 		} else if !errors.Is(err, ErrNotFound) {
 			return nil, err
 		}
@@ -245,6 +252,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	}
 	defer sw.Remove()
 	win := newWindowCheck(opt)
+	bound := newSiteBinding(opt)
 	sacc := summary.New(summaryOptions(ds))
 	// The upload's events go to the per-case pass (sorted by case on disk),
 	// each carrying what the time pass found of it and marked as the
@@ -265,6 +273,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 			sacc.Observe(e)
 		}
 		win.observe(e)
+		bound.observe(e)
 		if err := sw.Write(e); err != nil {
 			return err
 		}
@@ -296,7 +305,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 		up.Report = rep
 		up.Status = UploadRejected
 		up.Error = uerr
-		if err := s.recordUpload(ds, &up); err != nil {
+		if err := s.recordUpload(ctx, ds, &up); err != nil {
 			return nil, err
 		}
 		s.opt.Logger.Warn("upload rejected", "dataset", ds.Ref().String(), "upload", up.ID,
@@ -309,6 +318,9 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	case hf.rejectedShare(rep.Rows.Rejected) > ds.RejectAbove:
 		return reject(nil, fmt.Errorf("%.2f%% of rows are invalid, above the dataset's threshold of %.2f%%: %w",
 			100*hf.rejectedShare(rep.Rows.Rejected), 100*ds.RejectAbove, ErrRejected))
+	case bound.outside > 0:
+		ue := bound.uploadError()
+		return reject(ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
 	case win.outside > 0:
 		ue := win.uploadError()
 		return reject(ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
@@ -378,10 +390,10 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	if parent != nil && sameFiles(parent.Manifest.Files, plan.files) {
-		return s.duplicate(ds, *up, parent)
+		return s.duplicate(ctx, ds, *up, parent)
 	}
 	if parent == nil && len(plan.files) == 0 {
-		return s.duplicate(ds, *up, nil)
+		return s.duplicate(ctx, ds, *up, nil)
 	}
 	if entry != nil {
 		plan.summaries[entry.SHA256] = sacc
@@ -420,6 +432,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
 			return err
 		}
+		if err := writableTx(tx, cur.Project, cur.Name); err != nil {
+			return err
+		}
 		if parent != nil && cur.Latest != parent.Number || parent == nil && cur.Latest != 0 {
 			return fmt.Errorf("dataset %s moved past version %d during the commit", cur.Ref().String(), cur.Latest)
 		}
@@ -438,7 +453,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			Parent:        cur.Latest,
 			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(up, plan.removed)},
 			SchemaVersion: schema.Version,
-			ProfileHash:   cur.ProfileHash,
+			ProfileHash:   ds.ProfileHash, // what the upload was read with
 			KeyID:         keyID,
 			Files:         plan.files,
 			CaseTable:     vp.table,
@@ -448,6 +463,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		if va != nil {
 			m.CaseAttributes, m.Disclosure, m.Lineage.Suppressed = va.table, va.ref, va.sup
 		}
+		m.ProfileRevision = ds.Revision()
 		if opt.Mode == ModeReplaceWindow {
 			from, to := opt.From, opt.To
 			m.Lineage.From, m.Lineage.To, m.Lineage.Sites = &from, &to, opt.Sites
@@ -502,7 +518,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 				return err
 			}
 		}
-		return audit(tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref().String(), v.Number, opt.Mode))
+		return auditCtx(ctx, tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref().String(), v.Number, opt.Mode))
 	})
 	if err != nil {
 		// New blobs stay, unreferenced, for garbage collection.
@@ -717,17 +733,17 @@ var testHookBeforeCommit func()
 // duplicate records an upload that changes nothing; v is the version that
 // already holds its events (nil when an empty replacement met an empty
 // dataset).
-func (s *Store) duplicate(ds *Dataset, up Upload, v *Version) (*IngestResult, error) {
+func (s *Store) duplicate(ctx context.Context, ds *Dataset, up Upload, v *Version) (*IngestResult, error) {
 	up.Status = UploadDuplicate
 	up.Report = nil
 	if v == nil {
-		if err := s.recordUpload(ds, &up); err != nil {
+		if err := s.recordUpload(ctx, ds, &up); err != nil {
 			return nil, err
 		}
 		return &IngestResult{Upload: up}, nil
 	}
 	up.Version = v.Number
-	if err := s.recordUpload(ds, &up); err != nil {
+	if err := s.recordUpload(ctx, ds, &up); err != nil {
 		return nil, err
 	}
 	s.opt.Logger.Info("upload is a duplicate", "dataset", ds.Ref().String(), "upload", up.ID, "version", v.Number)
@@ -735,7 +751,7 @@ func (s *Store) duplicate(ds *Dataset, up Upload, v *Version) (*IngestResult, er
 }
 
 // recordUpload stores an upload that made no new version.
-func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
+func (s *Store) recordUpload(ctx context.Context, ds *Dataset, up *Upload) error {
 	err := s.db.Update(func(tx *bolt.Tx) error {
 		var cur Dataset
 		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
@@ -749,7 +765,7 @@ func (s *Store) recordUpload(ds *Dataset, up *Upload) error {
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
 			return err
 		}
-		return audit(tx, up.ReceivedAt, up.By, "upload."+string(up.Status), cur.Ref().String()+"/"+up.ID.String())
+		return auditCtx(ctx, tx, up.ReceivedAt, up.By, "upload."+string(up.Status), cur.Ref().String()+"/"+up.ID.String())
 	})
 	if err != nil {
 		return fmt.Errorf("ingest: recording upload: %w", err)

@@ -45,6 +45,21 @@ type Project struct {
 	// Disclosure is the project's disclosure control; nil means
 	// DefaultDisclosurePolicy (attributes.go).
 	Disclosure *DisclosurePolicy `json:"disclosure,omitempty"`
+	// Archived marks a read-only project: its datasets take no uploads
+	// and no changes; lists hide it unless asked.
+	Archived *Mark `json:"archived,omitempty"`
+	// Deleted marks a deleted project (see Store.DeleteProject); the
+	// record stays so that the name is not reused and its versions'
+	// citations still resolve.
+	Deleted *Mark `json:"deleted,omitempty"`
+}
+
+// Mark records a change of standing (archived, deleted): when, by whom
+// and why.
+type Mark struct {
+	At     time.Time `json:"at"`
+	By     string    `json:"by"`
+	Reason string    `json:"reason,omitempty"`
 }
 
 // Dataset is one stream of uploads from partner sites through one mapping
@@ -53,6 +68,7 @@ type Dataset struct {
 	Project     string     `json:"project"`
 	Name        string     `json:"name"`
 	Title       string     `json:"title,omitempty"`
+	Description string     `json:"description,omitempty"`
 	Profile     string     `json:"profile"`      // the mapping profile, YAML as given
 	ProfileHash string     `json:"profile_hash"` // schema.Profile.Hash of the effective profile
 	Timezone    string     `json:"timezone"`     // IANA zone for wall-clock times
@@ -70,7 +86,21 @@ type Dataset struct {
 	// content, under a stable event_id (see ChangePolicy); empty means
 	// ChangesRefuse.
 	Changes ChangePolicy `json:"changes,omitempty"`
+
+	// ProfileRevision numbers the dataset's profile (with its zone): 1 at
+	// creation, one more at each change (see Store.EditDataset). 0 in
+	// records made before revisions were kept means 1.
+	ProfileRevision int `json:"profile_revision,omitempty"`
+	// Archived marks a read-only dataset: no uploads, no changes, hidden
+	// from lists unless asked; its versions stay readable and pullable.
+	Archived *Mark `json:"archived,omitempty"`
+	// Deleted marks a deleted dataset (see Store.DeleteDataset).
+	Deleted *Mark `json:"deleted,omitempty"`
 }
+
+// Revision returns the dataset's profile revision (1 for records made
+// before revisions were kept).
+func (d *Dataset) Revision() int { return max(d.ProfileRevision, 1) }
 
 // Ref returns the dataset's reference, "project/dataset".
 func (d *Dataset) Ref() DatasetRef { return DatasetRef{Project: d.Project, Name: d.Name} }
@@ -188,14 +218,18 @@ type Lineage struct {
 // under the version's snapshot id (their SHA-256), and served as stored;
 // a Manifest value is only ever decoded from them to be used.
 type Manifest struct {
-	Dataset       DatasetRef  `json:"dataset"`
-	Version       int         `json:"version"`
-	Parent        int         `json:"parent,omitempty"`
-	Lineage       Lineage     `json:"lineage"`
-	SchemaVersion string      `json:"schema_version"`
-	ProfileHash   string      `json:"profile_hash"`
-	KeyID         string      `json:"pseudonym_key_id"`
-	Files         []FileEntry `json:"files"`
+	Dataset       DatasetRef `json:"dataset"`
+	Version       int        `json:"version"`
+	Parent        int        `json:"parent,omitempty"`
+	Lineage       Lineage    `json:"lineage"`
+	SchemaVersion string     `json:"schema_version"`
+	ProfileHash   string     `json:"profile_hash"`
+	// ProfileRevision is the dataset's profile revision the version's
+	// upload was read with; absent (0) in manifests made before
+	// revisions were kept, which were all read with revision 1.
+	ProfileRevision int         `json:"profile_revision,omitempty"`
+	KeyID           string      `json:"pseudonym_key_id"`
+	Files           []FileEntry `json:"files"`
 	// CaseTable is the version's case table, one row per case over all its
 	// files; absent in versions made before case tables were kept.
 	CaseTable *CaseTableEntry `json:"case_table,omitempty"`

@@ -10,6 +10,7 @@ import (
 	"log/slog"
 	"os"
 	"path/filepath"
+	"slices"
 	"sync"
 	"time"
 
@@ -101,7 +102,7 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
 	err = db.Update(func(tx *bolt.Tx) error {
-		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketManifests, bucketReports, bucketTokens, bucketRevocations} {
+		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketManifests, bucketReports, bucketTokens, bucketRevocations, bucketProfiles} {
 			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
 				return err
 			}
@@ -173,7 +174,7 @@ func (s *Store) CreateProject(ctx context.Context, name, title, by string) (*Pro
 		if err := putJSON(b, []byte(name), p); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, "project.create", name)
+		return auditCtx(ctx, tx, s.opt.Now(), by, "project.create", name)
 	})
 	if err != nil {
 		return nil, err
@@ -194,14 +195,15 @@ func (s *Store) Project(ctx context.Context, name string) (*Project, error) {
 	return &p, nil
 }
 
-// Projects lists all projects by name.
+// Projects lists the projects by name, archived ones included, deleted
+// ones not.
 func (s *Store) Projects(ctx context.Context) ([]Project, error) {
 	var out []Project
 	err := s.db.View(func(tx *bolt.Tx) (err error) {
 		out, err = scanJSON[Project](tx.Bucket(bucketProjects), nil)
 		return err
 	})
-	return out, err
+	return slices.DeleteFunc(out, func(p Project) bool { return p.Deleted != nil }), err
 }
 
 // DatasetSpec is what a curator gives to create a dataset.
@@ -256,18 +258,26 @@ func (s *Store) CreateDataset(ctx context.Context, spec DatasetSpec, by string) 
 		Historical: spec.Historical, CreatedAt: s.opt.Now().UTC(), CreatedBy: by,
 	}
 	err = s.db.Update(func(tx *bolt.Tx) error {
-		if tx.Bucket(bucketProjects).Get([]byte(spec.Project)) == nil {
-			return fmt.Errorf("project %q: %w", spec.Project, ErrNotFound)
+		var p Project
+		if err := getJSON(tx.Bucket(bucketProjects), []byte(spec.Project), &p, fmt.Sprintf("project %q", spec.Project)); err != nil {
+			return err
+		}
+		if p.Deleted != nil || p.Archived != nil {
+			return fmt.Errorf("project %s is archived or deleted: no new datasets: %w", p.Name, ErrState)
 		}
 		b := tx.Bucket(bucketDatasets)
 		key := []byte(d.Ref().String())
 		if b.Get(key) != nil {
-			return fmt.Errorf("dataset %q: %w", d.Ref().String(), ErrExists)
+			return fmt.Errorf("dataset %q (a deleted dataset's name is not reused): %w", d.Ref().String(), ErrExists)
 		}
+		d.ProfileRevision = 1
 		if err := putJSON(b, key, d); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, "dataset.create", d.Ref().String())
+		if err := putJSON(tx.Bucket(bucketProfiles), seqKey(string(key), 1), profileRevision(d, d.CreatedAt, by)); err != nil {
+			return err
+		}
+		return auditCtx(ctx, tx, s.opt.Now(), by, "dataset.create", d.Ref().String())
 	})
 	if err != nil {
 		return nil, err
@@ -315,7 +325,8 @@ func (s *Store) Dataset(ctx context.Context, project, name string) (*Dataset, er
 	return &d, nil
 }
 
-// Datasets lists a project's datasets by name.
+// Datasets lists a project's datasets by name, archived ones included,
+// deleted ones not.
 func (s *Store) Datasets(ctx context.Context, project string) ([]Dataset, error) {
 	var out []Dataset
 	err := s.db.View(func(tx *bolt.Tx) (err error) {
@@ -325,7 +336,7 @@ func (s *Store) Datasets(ctx context.Context, project string) ([]Dataset, error)
 		out, err = scanJSON[Dataset](tx.Bucket(bucketDatasets), []byte(project+"/"))
 		return err
 	})
-	return out, err
+	return slices.DeleteFunc(out, func(d Dataset) bool { return d.Deleted != nil }), err
 }
 
 // Uploads lists a dataset's uploads, oldest first.
@@ -349,36 +360,6 @@ func (s *Store) OpenFile(ctx context.Context, v *Version, id blob.ID) (blob.Read
 		return nil, BlobEntry{}, fmt.Errorf("catalog: %w", err)
 	}
 	return r, f, nil
-}
-
-// AuditEntry is one line of the catalog's audit trail.
-type AuditEntry struct {
-	At     time.Time `json:"at"`
-	By     string    `json:"by"`
-	Action string    `json:"action"`
-	Target string    `json:"target"`
-}
-
-func audit(tx *bolt.Tx, now time.Time, by, action, target string) error {
-	b := tx.Bucket(bucketAudit)
-	seq, err := b.NextSequence()
-	if err != nil {
-		return err
-	}
-	k := make([]byte, 16)
-	binary.BigEndian.PutUint64(k, uint64(now.UnixNano()))
-	binary.BigEndian.PutUint64(k[8:], seq)
-	return putJSON(b, k, AuditEntry{At: now.UTC(), By: by, Action: action, Target: target})
-}
-
-// Audit returns the audit trail, oldest first.
-func (s *Store) Audit(ctx context.Context) ([]AuditEntry, error) {
-	var out []AuditEntry
-	err := s.db.View(func(tx *bolt.Tx) (err error) {
-		out, err = scanJSON[AuditEntry](tx.Bucket(bucketAudit), nil)
-		return err
-	})
-	return out, err
 }
 
 // seqKey is ref + "/" + big-endian n, so a cursor lists in numeric order.

@@ -2,7 +2,10 @@ package catalog
 
 import (
 	"context"
+	"encoding/json"
+	"errors"
 	"fmt"
+	"strings"
 	"time"
 
 	bolt "go.etcd.io/bbolt"
@@ -21,7 +24,9 @@ type TokenRecord struct {
 	Role      string    `json:"role"`
 	Project   string    `json:"project,omitempty"`
 	Datasets  []string  `json:"datasets,omitempty"`
-	KeyID     string    `json:"kid,omitempty"` // "" for HS256
+	Sites     []string  `json:"sites,omitempty"`   // a partner's bound sites
+	Replace   bool      `json:"replace,omitempty"` // a partner may replace-window its sites
+	KeyID     string    `json:"kid,omitempty"`     // "" for HS256
 	IssuedAt  time.Time `json:"issued_at"`
 	ExpiresAt time.Time `json:"expires_at"`
 	// Revoked is filled in by Tokens from the revocations bucket.
@@ -53,7 +58,8 @@ func (s *Store) RecordToken(ctx context.Context, by string, r TokenRecord) error
 		if err := putJSON(b, []byte(r.JTI), r); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, "token.issue", "token "+r.JTI+" role "+r.Role+" for "+r.Subject)
+		return appendAudit(tx, withActor(ctx, AuditEntry{At: s.opt.Now(), By: by, Action: "token.issue", Project: r.project(),
+			Target: "token " + r.JTI, Detail: "role " + r.Role + " for " + r.Subject + scopeText(r)}))
 	})
 }
 
@@ -81,7 +87,14 @@ func (s *Store) RevokeToken(ctx context.Context, by, jti, reason string) (Revoca
 		if err := putJSON(b, []byte(jti), out); err != nil {
 			return err
 		}
-		return audit(tx, s.opt.Now(), by, "token.revoke", "token "+jti)
+		var rec TokenRecord
+		if v := tx.Bucket(bucketTokens).Get([]byte(jti)); v != nil {
+			if err := json.Unmarshal(v, &rec); err != nil {
+				return fmt.Errorf("token record %s: %w", jti, err)
+			}
+		}
+		return appendAudit(tx, withActor(ctx, AuditEntry{At: s.opt.Now(), By: by, Action: "token.revoke", Project: rec.project(),
+			Target: "token " + jti, Detail: reason}))
 	})
 	return out, err
 }
@@ -132,6 +145,103 @@ func (s *Store) Tokens(ctx context.Context) ([]TokenRecord, error) {
 // "key.rotate" or "key.retire", target the key id).
 func (s *Store) AuditKeyChange(ctx context.Context, by, action, kid string) error {
 	return s.db.Update(func(tx *bolt.Tx) error {
-		return audit(tx, s.opt.Now(), by, action, "key "+kid)
+		return auditCtx(ctx, tx, s.opt.Now(), by, action, "key "+kid)
 	})
+}
+
+// project is the one project a token's scope lies in: a curator's or
+// member's project, the project of every dataset a partner's token names;
+// "" for admins and for partners of datasets of several projects.
+func (r TokenRecord) project() string {
+	if r.Project != "" {
+		return r.Project
+	}
+	p := ""
+	for i, d := range r.Datasets {
+		dp, _, _ := strings.Cut(d, "/")
+		if i > 0 && dp != p {
+			return ""
+		}
+		p = dp
+	}
+	return p
+}
+
+func scopeText(r TokenRecord) string {
+	switch {
+	case r.Project != "":
+		return " in " + r.Project
+	case len(r.Datasets) > 0 && len(r.Sites) > 0:
+		s := " on " + strings.Join(r.Datasets, ",") + " for sites " + strings.Join(r.Sites, ",")
+		if r.Replace {
+			s += ", may replace-window them"
+		}
+		return s
+	case len(r.Datasets) > 0:
+		return " on " + strings.Join(r.Datasets, ",")
+	}
+	return ""
+}
+
+// Roles a curator manages the tokens of, within its project: members and
+// partners (never curators or admins).
+var curatorManaged = []string{"member", "partner"}
+
+// ManagedBy reports whether a curator of project manages the token: a
+// member token of project, or a partner token whose datasets all lie in
+// project.
+func (r TokenRecord) ManagedBy(project string) bool {
+	if project == "" {
+		return false
+	}
+	for _, role := range curatorManaged {
+		if r.Role == role {
+			return r.project() == project
+		}
+	}
+	return false
+}
+
+// ProjectTokens lists the tokens a curator of project manages
+// (TokenRecord.ManagedBy), each with its revocation if any.
+func (s *Store) ProjectTokens(ctx context.Context, project string) ([]TokenRecord, error) {
+	all, err := s.Tokens(ctx)
+	if err != nil {
+		return nil, err
+	}
+	out := []TokenRecord{}
+	for _, r := range all {
+		if r.ManagedBy(project) {
+			out = append(out, r)
+		}
+	}
+	return out, nil
+}
+
+// RevokeProjectToken revokes jti for a curator of project: the token must
+// be one the curator manages; any other (another project's, a curator's or
+// admin's, one without a record) is ErrNotFound, so that a curator learns
+// nothing of tokens outside its project.
+func (s *Store) RevokeProjectToken(ctx context.Context, by, project, jti, reason string) (Revocation, error) {
+	var rec TokenRecord
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return getJSON(tx.Bucket(bucketTokens), []byte(jti), &rec, "token "+jti)
+	})
+	if err != nil && !errors.Is(err, ErrNotFound) {
+		return Revocation{}, err
+	}
+	if err != nil || !rec.ManagedBy(project) {
+		return Revocation{}, fmt.Errorf("token %s: no member or partner token of project %s: %w", truncate(jti, maxJTI), project, ErrNotFound)
+	}
+	return s.RevokeToken(ctx, by, jti, reason)
+}
+
+// TokenRecorded reports whether the catalog has a record of jti.
+func (s *Store) TokenRecorded(jti string) (bool, error) {
+	var ok bool
+	err := s.db.View(func(tx *bolt.Tx) error {
+		ok = tx.Bucket(bucketTokens).Get([]byte(jti)) != nil
+		return nil
+	})
+	return ok, err
 }

@@ -29,6 +29,7 @@ import (
 //	signing.key    legacy HS256 token key of directories made before keys.json (0600)
 //	master.key     master key sealing project keys (0600), unless kept elsewhere
 //	instance.json  the token issuer name
+//	token-spool/   records of tokens issued while a server held catalog.db
 type dataDir string
 
 func (d dataDir) path(name string) string { return filepath.Join(string(d), name) }
@@ -39,6 +40,7 @@ func (d dataDir) signingKey() string      { return d.path("signing.key") }
 func (d dataDir) keys() string            { return d.path("keys.json") }
 func (d dataDir) masterKey() string       { return d.path("master.key") }
 func (d dataDir) instance() string        { return d.path("instance.json") }
+func (d dataDir) tokenSpool() string      { return d.path("token-spool") }
 
 type instance struct {
 	Issuer    string    `json:"issuer"`

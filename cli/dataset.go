@@ -12,7 +12,7 @@ import (
 )
 
 func newDatasetCmd(e *env) *cobra.Command {
-	c := &cobra.Command{Use: "dataset", Short: "Create and list datasets"}
+	c := &cobra.Command{Use: "dataset", Short: "Create, list, edit, archive and delete datasets"}
 	var profile, zone, title, from, to, changes string
 	var rejectAbove float64
 	var drafts, historical bool
@@ -135,5 +135,6 @@ correction that replaces the old event in the new version (correct).`,
 		},
 	}
 	c.AddCommand(create, list, changesCmd)
+	c.AddCommand(newDatasetChangeCmds(e)...)
 	return c
 }

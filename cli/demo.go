@@ -2,6 +2,7 @@ package cli
 
 import (
 	"bytes"
+	"context"
 	"errors"
 	"fmt"
 	"io"
@@ -114,7 +115,7 @@ func demoTokens(run *running) (demoTokenSet, error) {
 		{&t.member, "member", "demo-student"},
 		{&t.partner, "partner", "demo-partner-uploader"},
 	} {
-		tok, err := run.auth.Issue(grantFor(g.role, g.sub, demoProject, parts, 24*time.Hour))
+		tok, err := run.auth.IssueRecorded(context.Background(), run.store, operator, grantFor(g.role, g.sub, demoProject, parts, 24*time.Hour))
 		if err != nil {
 			return t, err
 		}

@@ -17,7 +17,7 @@ type projectInfo struct {
 }
 
 func newProjectCmd(e *env) *cobra.Command {
-	c := &cobra.Command{Use: "project", Short: "Create and list projects"}
+	c := &cobra.Command{Use: "project", Short: "Create, list, archive and delete projects"}
 	var title string
 	create := &cobra.Command{
 		Use:   "create PROJECT",
@@ -65,5 +65,6 @@ func newProjectCmd(e *env) *cobra.Command {
 		},
 	}
 	c.AddCommand(create, list)
+	c.AddCommand(newProjectChangeCmds(e)...)
 	return c
 }

@@ -105,7 +105,7 @@ scores their quality and keeps immutable, versioned Parquet snapshots that stude
 		newInitCmd(e), newServeCmd(e), newTokenCmd(e),
 		newProjectCmd(e), newDatasetCmd(e), newUploadCmd(e), newUploadsCmd(e), newVersionsCmd(e),
 		newPullCmd(e), newVerifyCmd(e), newQualityCmd(e),
-		newPublishCmd(e), newRetractCmd(e), newGCCmd(e), newDisclosureCmd(e), newDisclosurePolicyCmd(e),
+		newPublishCmd(e), newRetractCmd(e), newGCCmd(e), newDisclosureCmd(e), newDisclosurePolicyCmd(e), newAuditCmd(e), newMasterKeyCmd(e),
 		newAlertsCmd(e), newSummaryCmd(e), newExportCmd(e), newBundleCmd(e), newCiteCmd(e), newDiffCmd(e),
 		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e),
 	)

@@ -2,6 +2,7 @@ package cli
 
 import (
 	"context"
+	"crypto/tls"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -15,6 +16,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/server"
 )
@@ -24,8 +26,10 @@ func newServeCmd(e *env) *cobra.Command {
 	var maxUpload, memLimit int64
 	var maxUploads int
 	var bodyIdle time.Duration
-	var author string
+	var author, tlsCert, tlsKey string
 	var lim schema.Limits
+	var rateLimit float64
+	var rateBurst int
 	c := &cobra.Command{
 		Use:   "serve --data DIR --addr HOST:PORT [--blobs s3://BUCKET/PREFIX]",
 		Short: "Run the catalog server on a data directory",
@@ -50,7 +54,11 @@ func newServeCmd(e *env) *cobra.Command {
 			}
 			ctx, stop := signal.NotifyContext(cmd.Context(), syscall.SIGINT, syscall.SIGTERM)
 			defer stop()
-			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, maxUploads: maxUploads, bodyIdle: bodyIdle, citationAuthor: author, limits: lim}, log)
+			if (tlsCert == "") != (tlsKey == "") {
+				return usageErr("serve: --tls-cert and --tls-key go together")
+			}
+			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, maxUploads: maxUploads, bodyIdle: bodyIdle, citationAuthor: author, limits: lim,
+				rateLimit: rateLimit, rateBurst: rateBurst, tlsCert: tlsCert, tlsKey: tlsKey}, log)
 			if err != nil {
 				return err
 			}
@@ -69,6 +77,10 @@ func newServeCmd(e *env) *cobra.Command {
 	c.Flags().IntVar(&lim.MaxColumns, "max-columns", schema.DefaultMaxColumns, "most columns in an uploaded CSV/TSV header")
 	c.Flags().Int64Var(&lim.MaxBytes, "max-decompressed-bytes", schema.DefaultMaxBytes, "largest uploaded file after gzip decompression")
 	c.Flags().Int64Var(&lim.MaxRows, "max-rows", schema.DefaultMaxRows, "most data rows in one uploaded file")
+	c.Flags().Float64Var(&rateLimit, "rate-limit", server.DefaultRateLimit, "requests a second one token may send (429 with Retry-After above; negative: no limit)")
+	c.Flags().IntVar(&rateBurst, "rate-burst", server.DefaultRateBurst, "requests one token may send at once before --rate-limit applies")
+	c.Flags().StringVar(&tlsCert, "tls-cert", "", "certificate chain file (PEM): serve HTTPS (with --tls-key)")
+	c.Flags().StringVar(&tlsKey, "tls-key", "", "private key file (PEM) of --tls-cert")
 	c.Flags().StringVar(&author, "citation-author", "", "author named in CITATION.cff files, e.g. the lab (default: the project's title)")
 	c.Flags().Int64Var(&memLimit, "memory-limit", DefaultMemoryLimit, "soft limit of the server's memory in bytes (Go's runtime/debug.SetMemoryLimit; 0: none; the GOMEMLIMIT environment variable wins)")
 	return c
@@ -87,6 +99,10 @@ type serverOptions struct {
 	bodyIdle       time.Duration
 	citationAuthor string
 	limits         schema.Limits // of uploaded files
+	rateLimit      float64
+	rateBurst      int
+	tlsCert        string // certificate chain file (PEM); with tlsKey, serve HTTPS
+	tlsKey         string
 }
 
 // running is a started server.
@@ -94,6 +110,7 @@ type running struct {
 	url        string
 	masterFrom string
 	auth       *server.Authority
+	store      *catalog.Store
 	hs         *http.Server
 	done       chan error
 	close      func() error
@@ -115,16 +132,47 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, so ser
 	if err != nil {
 		return nil, fmt.Errorf("serve: %w", err)
 	}
+	if n, err := st.ImportTokenSpool(context.Background(), d.tokenSpool()); err != nil {
+		st.Close()
+		return nil, fmt.Errorf("serve: %w", err)
+	} else if n > 0 {
+		log.Info("token records imported from the spool", "tokens", n)
+	}
+	var cert tls.Certificate
+	if so.tlsCert != "" {
+		// Read before listening, so that a bad pair fails at once, by name.
+		if cert, err = tls.LoadX509KeyPair(so.tlsCert, so.tlsKey); err != nil {
+			st.Close()
+			return nil, fmt.Errorf("serve: --tls-cert %s, --tls-key %s: %w", so.tlsCert, so.tlsKey, err)
+		}
+	}
 	ln, err := net.Listen("tcp", addr)
 	if err != nil {
 		st.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, MaxUploadBytes: so.maxUpload, MaxUploadsPerToken: so.maxUploads, BodyIdleTimeout: so.bodyIdle, CitationAuthor: so.citationAuthor})
+	scheme := "http"
+	if so.tlsCert != "" {
+		scheme = "https"
+	} else if !loopback(ln.Addr()) {
+		log.Warn("SERVING WITHOUT TLS ON A NON-LOOPBACK ADDRESS: tokens and data cross the network in clear text; give --tls-cert and --tls-key, or serve on 127.0.0.1 behind a TLS proxy", "addr", ln.Addr().String())
+	}
+	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, TokenSpool: d.tokenSpool(), RateLimit: so.rateLimit, RateBurst: so.rateBurst, MaxUploadBytes: so.maxUpload, MaxUploadsPerToken: so.maxUploads, BodyIdleTimeout: so.bodyIdle, CitationAuthor: so.citationAuthor})
 	hs := srv.HTTPServer(addr)
-	r := &running{url: "http://" + ln.Addr().String(), masterFrom: from, auth: auth, hs: hs, done: make(chan error, 1), close: st.Close}
-	go func() { r.done <- hs.Serve(ln) }()
+	r := &running{url: scheme + "://" + ln.Addr().String(), masterFrom: from, auth: auth, store: st, hs: hs, done: make(chan error, 1), close: st.Close}
+	if so.tlsCert != "" {
+		hs.TLSConfig = &tls.Config{Certificates: []tls.Certificate{cert}, MinVersion: tls.VersionTLS12}
+		go func() { r.done <- hs.ServeTLS(ln, "", "") }()
+	} else {
+		go func() { r.done <- hs.Serve(ln) }()
+	}
 	return r, nil
+}
+
+// loopback reports whether a listening address is a loopback one.
+func loopback(a net.Addr) bool {
+	ta, ok := a.(*net.TCPAddr)
+	return ok && ta.IP.IsLoopback()
 }
 
 // wait serves until ctx ends, then shuts down gracefully.

@@ -21,15 +21,19 @@ const operator = "operator (command line)"
 func newTokenCmd(e *env) *cobra.Command {
 	c := &cobra.Command{Use: "token", Short: "Issue, list and revoke API tokens; rotate and retire signing keys"}
 	var dir, role, subject, project string
-	var datasets []string
+	var datasets, sites []string
+	var replace bool
 	var ttl time.Duration
 	issue := &cobra.Command{
-		Use:   "issue --data DIR --role ROLE --subject NAME [--project P] [--dataset P/D] [--ttl 1h]",
-		Short: "Print a signed token; works while the server runs on DIR",
+		Use:   "issue [--data DIR | --server URL --token T] --role ROLE --subject NAME [--project P] [--dataset P/D] [--ttl 1h]",
+		Short: "Print a signed token, recorded in the catalog (spooled while the server runs on DIR); without --data through the API",
 		Args:  cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			if dir == "" || role == "" || subject == "" {
-				return usageErr("token issue: --data, --role and --subject are required")
+			if role == "" || subject == "" {
+				return usageErr("token issue: --role and --subject are required")
+			}
+			if dir == "" {
+				return e.issueOverAPI(cmd, role, subject, project, datasets, sites, replace, ttl)
 			}
 			d := dataDir(dir)
 			auth, err := d.authority()
@@ -44,20 +48,29 @@ func newTokenCmd(e *env) *cobra.Command {
 				}
 			}
 			g := grantFor(role, subject, project, datasets, ttl)
-			// Record the token (and audit the issue) when the catalog
-			// can be opened; while a server holds it, say so.
+			g.Sites, g.Replace = sites, replace
+			// Record the token (and audit the issue); while a server holds
+			// the catalog, spool the record for the server to import (it
+			// honours no EdDSA token it has no record of).
 			st, err := d.openForTokens()
-			if err != nil {
-				tok, ierr := auth.Issue(g)
+			if errors.Is(err, catalog.ErrLocked) {
+				tok, c, ierr := auth.IssueClaims(g)
 				if ierr != nil {
 					return usageErr("%v", ierr)
 				}
-				fmt.Fprintf(e.stderr, "note: token not recorded in the token list or audit trail (%v); issue through the server (POST /api/v1/admin/tokens) to record it\n", err)
+				kid, _ := server.HeaderKID(tok)
+				if err := catalog.SpoolToken(d.tokenSpool(), operator, server.TokenRecord(c, kid), time.Now()); err != nil {
+					return err
+				}
+				fmt.Fprintf(e.stderr, "note: a server holds the catalog; the token's record went to %s and the server records it (with its audit entry) on first use or at the next start or token list\n", d.tokenSpool())
 				fmt.Fprintln(e.stdout, tok)
 				return nil
 			}
+			if err != nil {
+				return err
+			}
 			defer st.Close()
-			tok, err := auth.IssueRecorded(st, operator, g)
+			tok, err := auth.IssueRecorded(cmd.Context(), st, operator, g)
 			if err != nil {
 				return usageErr("%v", err)
 			}
@@ -66,11 +79,13 @@ func newTokenCmd(e *env) *cobra.Command {
 		},
 	}
 	f := issue.Flags()
-	f.StringVar(&dir, "data", "", "data directory of the server")
+	f.StringVar(&dir, "data", "", "data directory of the server; else the API (an admin, or a curator for member and partner tokens of --project)")
 	f.StringVar(&role, "role", "", "admin, curator, member or partner")
 	f.StringVar(&subject, "subject", "", "who the token is for (sub claim)")
 	f.StringVar(&project, "project", "", "project (curator, member)")
 	f.StringArrayVar(&datasets, "dataset", nil, "dataset P/D a partner may upload to (repeatable)")
+	f.StringArrayVar(&sites, "site", nil, "site a partner may write (repeatable); an upload with another site's events is refused whole")
+	f.BoolVar(&replace, "replace", false, "let a partner bound to --site upload in mode replace-window for those sites")
 	f.DurationVar(&ttl, "ttl", time.Hour, "lifetime (at most the role's max_ttl)")
 	c.AddCommand(issue, newTokenListCmd(e), newTokenRevokeCmd(e), newKeyRotateCmd(e), newKeyRetireCmd(e), newKeyListCmd(e))
 	return c
@@ -95,7 +110,7 @@ func lockedHint(err error, api string) error {
 }
 
 func newTokenListCmd(e *env) *cobra.Command {
-	var dir string
+	var dir, project string
 	c := &cobra.Command{
 		Use:   "list [--data DIR | --server URL --token T]",
 		Short: "List recorded tokens (jti, subject, role, scope, expiry, revocation)",
@@ -119,7 +134,11 @@ func newTokenListCmd(e *env) *cobra.Command {
 				var out struct {
 					Tokens []catalog.TokenRecord `json:"tokens"`
 				}
-				if err := cl.getJSON(cmd.Context(), "/admin/tokens", &out); err != nil {
+				path := "/admin/tokens"
+				if project != "" {
+					path = "/projects/" + url.PathEscape(project) + "/tokens"
+				}
+				if err := cl.getJSON(cmd.Context(), path, &out); err != nil {
 					return err
 				}
 				recs = out.Tokens
@@ -135,6 +154,7 @@ func newTokenListCmd(e *env) *cobra.Command {
 		},
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory (server stopped); else the API")
+	c.Flags().StringVar(&project, "project", "", "over the API: the member and partner tokens of project P (its curator)")
 	return c
 }
 
@@ -144,6 +164,9 @@ func printTokens(w io.Writer, recs []catalog.TokenRecord) {
 		scope := r.Project
 		if len(r.Datasets) > 0 {
 			scope = strings.Join(r.Datasets, ",")
+		}
+		if len(r.Sites) > 0 {
+			scope += " sites:" + strings.Join(r.Sites, ",")
 		}
 		exp, kid, rev := "-", r.KeyID, "-"
 		if !r.ExpiresAt.IsZero() {
@@ -167,7 +190,7 @@ func orDash(s string) string {
 }
 
 func newTokenRevokeCmd(e *env) *cobra.Command {
-	var dir, reason string
+	var dir, reason, project string
 	c := &cobra.Command{
 		Use:   "revoke JTI --reason TEXT [--data DIR | --server URL --token T]",
 		Short: "Revoke a token by its jti: it stops authenticating on the next request",
@@ -191,7 +214,11 @@ func newTokenRevokeCmd(e *env) *cobra.Command {
 				if err != nil {
 					return err
 				}
-				if err := cl.postJSON(cmd.Context(), "/admin/tokens/"+url.PathEscape(args[0])+"/revoke", map[string]string{"reason": reason}, &rv); err != nil {
+				path := "/admin/tokens/" + url.PathEscape(args[0]) + "/revoke"
+				if project != "" {
+					path = "/projects/" + url.PathEscape(project) + "/tokens/" + url.PathEscape(args[0]) + "/revoke"
+				}
+				if err := cl.postJSON(cmd.Context(), path, map[string]string{"reason": reason}, &rv); err != nil {
 					return err
 				}
 			}
@@ -204,7 +231,36 @@ func newTokenRevokeCmd(e *env) *cobra.Command {
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory (server stopped); else the API")
 	c.Flags().StringVar(&reason, "reason", "", "why (kept in the revocation record)")
+	c.Flags().StringVar(&project, "project", "", "over the API: a member or partner token of project P (its curator)")
 	return c
+}
+
+// issueOverAPI issues a token through the server: a curator's member and
+// partner tokens of --project through the project's route, any other
+// through the admins'.
+func (e *env) issueOverAPI(cmd *cobra.Command, role, subject, project string, datasets, sites []string, replace bool, ttl time.Duration) error {
+	cl, err := e.client()
+	if err != nil {
+		return err
+	}
+	var out struct {
+		Token string `json:"token"`
+	}
+	if project != "" && (role == server.RoleMember || role == server.RolePartner) {
+		req := map[string]any{"role": role, "subject": subject, "ttl": ttl.String()}
+		if role == server.RolePartner {
+			req["datasets"], req["sites"], req["replace"] = datasets, sites, replace
+		}
+		err = cl.postJSON(cmd.Context(), "/projects/"+url.PathEscape(project)+"/tokens", req, &out)
+	} else {
+		g := grantFor(role, subject, project, datasets, ttl)
+		err = cl.postJSON(cmd.Context(), "/admin/tokens", map[string]any{"role": g.Role, "subject": g.Subject, "project": g.Project, "datasets": g.Datasets, "sites": sites, "replace": replace, "ttl": ttl.String()}, &out)
+	}
+	if err != nil {
+		return err
+	}
+	fmt.Fprintln(e.stdout, out.Token)
+	return nil
 }
 
 // auditKeys audits a key change when the catalog can be opened, and says

@@ -202,8 +202,8 @@ func TestTokensWhileServing(t *testing.T) {
 		if code != 0 {
 			t.Fatalf("token issue %v: exit %d: %s", args, code, errs)
 		}
-		if !strings.Contains(errs, "not recorded") {
-			t.Errorf("token issue while serving did not say the token is unrecorded: %q", errs)
+		if !strings.Contains(errs, "token-spool") {
+			t.Errorf("token issue while serving did not say its record was spooled: %q", errs)
 		}
 		return strings.TrimSpace(out)
 	}
@@ -236,7 +236,17 @@ func TestTokensWhileServing(t *testing.T) {
 		t.Fatal("a token of a retired key still works on the running server")
 	}
 
-	// Revoke over the API a token issued while serving (so not recorded).
+	// A token issued while serving is recorded by the server on first
+	// use; one whose spooled record is gone does not work at all.
+	ghost := issue("--role", "admin", "--subject", "ghost")
+	if err := os.Remove(filepath.Join(data, "token-spool", jtiOf(t, ghost)+".json")); err != nil {
+		t.Fatal(err)
+	}
+	if works(ghost) {
+		t.Fatal("a token the catalog has no record of works")
+	}
+
+	// Revoke over the API a token issued while serving.
 	if code, _, errs := run(t, as(admin2), "project", "create", "flow"); code != 0 {
 		t.Fatalf("project create: %s", errs)
 	}
@@ -256,8 +266,12 @@ func TestTokensWhileServing(t *testing.T) {
 		t.Fatal("revoking one token stopped another")
 	}
 	code, out, _ = run(t, as(admin2), "token", "list")
-	if code != 0 || !strings.Contains(out, jti) || !strings.Contains(out, "left the lab") {
+	if code != 0 || !strings.Contains(out, jti) || !strings.Contains(out, "left the lab") || !strings.Contains(out, jti+"\tstudent\tmember\tflow") {
 		t.Fatalf("token list over the API: %d %q", code, out)
+	}
+	code, out, errs = run(t, as(admin2), "audit", "--action", "token.issue", "--json")
+	if code != 0 || !strings.Contains(out, jti) || !strings.Contains(out, "token spool") || strings.Contains(out, jtiOf(t, ghost)) {
+		t.Fatalf("audit of spooled issues: exit %d %q %q", code, out, errs)
 	}
 	// With the server holding the catalog, --data names the way round.
 	if code, _, errs := run(t, nil, "token", "list", "--data", data); code == 0 || !strings.Contains(errs, "--server") {

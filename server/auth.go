@@ -42,6 +42,14 @@ type Claims struct {
 	Role     string   `json:"role"`
 	Project  string   `json:"project,omitempty"`  // curator and member
 	Datasets []string `json:"datasets,omitempty"` // partner: "project/dataset" refs
+	// Sites bind a partner to the sites it writes: an upload with an event
+	// of another site is refused whole. Absent: any site.
+	Sites []string `json:"sites,omitempty"`
+	// Replace lets a partner bound to sites upload in mode replace-window
+	// for those sites (a curator's grant); replace-all stays refused.
+	Replace bool `json:"replace,omitempty"`
+
+	kid string // the header's key id; "" for HS256
 }
 
 // Grant is what a token is issued for.
@@ -50,6 +58,8 @@ type Grant struct {
 	Subject  string
 	Project  string
 	Datasets []string
+	Sites    []string // partner: the sites it may write; empty for any
+	Replace  bool     // partner with sites: may replace-window its sites
 	TTL      time.Duration
 }
 
@@ -189,6 +199,17 @@ func (a *Authority) IssueClaims(g Grant) (string, *Claims, error) {
 			}
 		}
 	}
+	if len(g.Sites) > 0 && g.Role != RolePartner {
+		return "", nil, fmt.Errorf("token: sites bind partner tokens only, not role %s", g.Role)
+	}
+	if g.Replace && (g.Role != RolePartner || len(g.Sites) == 0) {
+		return "", nil, fmt.Errorf("token: replace is granted to partner tokens bound to sites only (give its sites)")
+	}
+	for _, site := range g.Sites {
+		if site == "" || len(site) > 200 {
+			return "", nil, fmt.Errorf("token: site %q: want 1 to 200 bytes", site)
+		}
+	}
 	if g.TTL <= 0 {
 		return "", nil, fmt.Errorf("token: ttl must be positive")
 	}
@@ -213,6 +234,8 @@ func (a *Authority) IssueClaims(g Grant) (string, *Claims, error) {
 		Role:     g.Role,
 		Project:  g.Project,
 		Datasets: g.Datasets,
+		Sites:    g.Sites,
+		Replace:  g.Replace,
 	}
 	if k, ok := ks.Active(); ok {
 		priv, err := k.private()
@@ -294,7 +317,7 @@ func (a *Authority) Verify(token string) (*Claims, error) {
 		return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
 	}
 	var c Claims
-	_, err = jwt.ParseWithClaims(token, &c, func(t *jwt.Token) (any, error) { return a.verifyKey(ks, t) },
+	t, err := jwt.ParseWithClaims(token, &c, func(t *jwt.Token) (any, error) { return a.verifyKey(ks, t) },
 		jwt.WithValidMethods([]string{jwt.SigningMethodEdDSA.Alg(), jwt.SigningMethodHS256.Alg()}),
 		jwt.WithIssuer(a.issuer),
 		jwt.WithAudience(Audience),
@@ -312,6 +335,7 @@ func (a *Authority) Verify(token string) (*Claims, error) {
 	if !slices.Contains(Roles, c.Role) {
 		return nil, fmt.Errorf("%w: unknown role %q", ErrUnauthorized, c.Role)
 	}
+	c.kid, _ = t.Header["kid"].(string)
 	return &c, nil
 }
 

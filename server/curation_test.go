@@ -80,16 +80,20 @@ func TestCurationOverHTTP(t *testing.T) {
 			t.Errorf("upload ?%s: %d %s, want 400 with %q", q, r.Status, clipBody(r.Body), want)
 		}
 	}
-	// Replace day 4 of site ward-3 (times are local, Europe/Amsterdam, UTC+1 in March).
+	// Replace day 4 of site ward-3 (times are local, Europe/Amsterdam, UTC+1 in March):
+	// a partner token appends only; the curator replaces.
 	fixed := []byte(strings.ReplaceAll(string(wardFile(4, 6)), "triage", "review"))
-	r = e.do(http.MethodPost, ds+"/uploads?mode=replace-window&from=2024-03-03T23:00:00Z&to=2024-03-04T23:00:00Z&site=ward-3", partner, bytes.NewReader(fixed), nil)
+	const rw = "/uploads?mode=replace-window&from=2024-03-03T23:00:00Z&to=2024-03-04T23:00:00Z&site=ward-3"
+	e.mustStatus(e.do(http.MethodPost, ds+rw, partner, bytes.NewReader(fixed), nil), http.StatusForbidden, "partner replace-window")
+	e.mustStatus(e.do(http.MethodPost, ds+"/uploads?mode=replace-all", partner, bytes.NewReader(wardFile(9, 3)), nil), http.StatusForbidden, "partner replace-all")
+	r = e.do(http.MethodPost, ds+rw, curator, bytes.NewReader(fixed), nil)
 	e.mustStatus(r, http.StatusCreated, "replace-window")
 	e.decode(r, &up)
 	l := up.Version.Manifest.Lineage
 	if up.Version.Number != 2 || l.Mode != catalog.ModeReplaceWindow || l.RowsRemoved != 12 || up.Version.Manifest.Rows != 6 || up.Version.Manifest.Parent != 1 {
 		t.Fatalf("replace-window version: %+v rows %d", l, up.Version.Manifest.Rows)
 	}
-	r = e.do(http.MethodPost, ds+"/uploads?mode=replace-all", partner, bytes.NewReader(wardFile(9, 3)), nil)
+	r = e.do(http.MethodPost, ds+"/uploads?mode=replace-all", curator, bytes.NewReader(wardFile(9, 3)), nil)
 	e.mustStatus(r, http.StatusCreated, "replace-all")
 
 	// Retraction: the data answers 410 with the reason; metadata stays.

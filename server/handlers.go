@@ -23,26 +23,32 @@ import (
 
 // projectView is a project as the API shows it: never its sealed key.
 type projectView struct {
-	Name      string    `json:"name"`
-	Title     string    `json:"title,omitempty"`
-	CreatedAt time.Time `json:"created_at"`
-	CreatedBy string    `json:"created_by"`
-	KeyID     string    `json:"pseudonym_key_id"`
+	Name      string        `json:"name"`
+	Title     string        `json:"title,omitempty"`
+	CreatedAt time.Time     `json:"created_at"`
+	CreatedBy string        `json:"created_by"`
+	KeyID     string        `json:"pseudonym_key_id"`
+	Archived  *catalog.Mark `json:"archived,omitempty"`
+	Deleted   *catalog.Mark `json:"deleted,omitempty"`
 }
 
 func viewProject(p *catalog.Project) projectView {
-	return projectView{Name: p.Name, Title: p.Title, CreatedAt: p.CreatedAt, CreatedBy: p.CreatedBy, KeyID: p.Key.ID}
+	return projectView{Name: p.Name, Title: p.Title, CreatedAt: p.CreatedAt, CreatedBy: p.CreatedBy, KeyID: p.Key.ID, Archived: p.Archived, Deleted: p.Deleted}
 }
 
 func (s *Server) listProjects(c echo.Context) error {
 	cl := claims(c)
+	archived, err := withArchived(c)
+	if err != nil {
+		return err
+	}
 	ps, err := s.cfg.Store.Projects(c.Request().Context())
 	if err != nil {
 		return err
 	}
 	out := []projectView{}
 	for i := range ps {
-		if cl.CanRead(ps[i].Name) {
+		if cl.CanRead(ps[i].Name) && (archived || ps[i].Archived == nil) {
 			out = append(out, viewProject(&ps[i]))
 		}
 	}
@@ -88,13 +94,17 @@ func (s *Server) listDatasets(c echo.Context) error {
 	if !cl.CanRead(project) && !cl.uploadsTo(project) {
 		return forbidden("read project " + project)
 	}
+	archived, err := withArchived(c)
+	if err != nil {
+		return err
+	}
 	ds, err := s.cfg.Store.Datasets(c.Request().Context(), project)
 	if err != nil {
 		return catalogError(err)
 	}
 	out := []catalog.Dataset{}
 	for _, d := range ds {
-		if cl.CanSeeDataset(d.Project, d.Name) {
+		if cl.CanSeeDataset(d.Project, d.Name) && (archived || d.Archived == nil) {
 			out = append(out, d)
 		}
 	}
@@ -196,6 +206,9 @@ func (s *Server) upload(c echo.Context) error {
 	if err != nil {
 		return err
 	}
+	if err := partnerMode(claims(c), d, &opt); err != nil {
+		return err
+	}
 	release, err := s.takeUploadSlot(claims(c))
 	if err != nil {
 		return err
@@ -233,6 +246,13 @@ func (s *Server) upload(c echo.Context) error {
 		he.body.Rule, he.body.Line, he.body.Column = e.Rule, e.Line, e.Column
 		he.body.Message = fileMessage(res.Upload.Filename, e)
 		he.body.Upload = res.Upload
+		return he
+	case errors.Is(err, catalog.ErrRejected) && res.Upload.Error != nil && res.Upload.Error.Rule == catalog.RuleSiteNotAllowed:
+		// A partner writing a site its token does not name: refused by
+		// authorization, after the body showed it.
+		e := res.Upload.Error
+		he := fail(http.StatusForbidden, "forbidden", "this token may not write site data it is not bound to: %s", fileMessage(res.Upload.Filename, e))
+		he.body.Rule, he.body.Line, he.body.Column, he.body.Upload = e.Rule, e.Line, e.Column, res.Upload
 		return he
 	case errors.Is(err, catalog.ErrRejected):
 		he := fail(http.StatusUnprocessableEntity, "rejected", "%s", err.Error())
@@ -295,7 +315,11 @@ func (b sizedBody) Read(p []byte) (int, error) {
 // replace-window from, to (RFC 3339) and site (repeated or comma-separated).
 // They are checked before the body is read.
 func uploadOptions(c echo.Context) (catalog.IngestOptions, error) {
-	opt := catalog.IngestOptions{Filename: c.QueryParam("filename"), By: claims(c).Subject, Mode: catalog.Mode(c.QueryParam("mode"))}
+	cl := claims(c)
+	opt := catalog.IngestOptions{Filename: c.QueryParam("filename"), By: cl.Subject, Mode: catalog.Mode(c.QueryParam("mode"))}
+	if cl.Role == RolePartner {
+		opt.BoundSites = cl.Sites
+	}
 	var err error
 	if opt.From, opt.To, err = window(c.QueryParams()); err != nil {
 		return opt, err
@@ -377,12 +401,48 @@ func (s *Server) listUploads(c echo.Context) error {
 		return err
 	}
 	out := []catalog.Upload{}
+	cl := claims(c)
 	for _, u := range ups {
-		if !unseen[u.Version] {
-			out = append(out, u)
+		if unseen[u.Version] || !seesUpload(cl, d, u) {
+			continue
 		}
+		out = append(out, u)
 	}
 	return c.JSON(http.StatusOK, out)
+}
+
+// partnerMode refuses a partner's upload in a mode that removes events:
+// replace-all removes every site's, replace-window every listed site's in
+// the window, which other partners may have sent. A partner appends; a
+// curator of the project replaces. A partner token bound to sites and
+// granted replace (by whoever issued it) may replace-window those sites
+// only: the sites replaced must be among them.
+func partnerMode(cl *Claims, d *catalog.Dataset, opt *catalog.IngestOptions) error {
+	m := opt.Mode
+	if cl.Role != RolePartner || m == catalog.ModeAppend {
+		return nil
+	}
+	if m == catalog.ModeReplaceWindow && cl.Replace && len(cl.Sites) > 0 {
+		// No sites given: the upload's own, which the binding checks.
+		for _, site := range opt.Sites {
+			if !slices.Contains(cl.Sites, site) {
+				return fail(http.StatusForbidden, "forbidden", "this token may not replace the events of site %q: it replaces its own sites only (%s)", truncateParam(site), strings.Join(cl.Sites, ", "))
+			}
+		}
+		return nil
+	}
+	how := "a partner token appends only (mode append)"
+	if m == catalog.ModeReplaceWindow {
+		how += ", unless its issuer bound it to sites and granted replace"
+	}
+	return fail(http.StatusForbidden, "forbidden", "this token may not upload in mode %s to %s: %s; %s removes events other partners may have sent, so a curator of project %s uploads in that mode", m, d.Ref(), how, m, d.Project)
+}
+
+// seesUpload reports whether the claims see upload u's record: a partner
+// sees its own uploads only (by token subject), anyone else who may see
+// the dataset's uploads sees every one.
+func seesUpload(cl *Claims, d *catalog.Dataset, u catalog.Upload) bool {
+	return cl.Role != RolePartner || cl.CanCurate(d.Project) || u.By == cl.Subject
 }
 
 // unseenVersions are the versions whose uploads a member may not see:
@@ -624,6 +684,13 @@ func (s *Server) download(c echo.Context) error {
 	if err := boundedRange(c.Request().Header.Get("Range"), r.Size()); err != nil {
 		c.Response().Header().Set("Content-Range", fmt.Sprintf("bytes */%d", r.Size()))
 		return err
+	}
+	// A download is audited once: a whole-file GET, or a ranged one from
+	// byte 0 (a reader fetching parts of a file sends many ranges).
+	if rg := c.Request().Header.Get("Range"); c.Request().Method == http.MethodGet && (rg == "" || strings.HasPrefix(rg, "bytes=0-")) {
+		if err := s.auditRead(c, "version.download", v, "file "+id.String()); err != nil {
+			return err
+		}
 	}
 	h := c.Response().Header()
 	h.Set(echo.HeaderContentType, "application/vnd.apache.parquet")

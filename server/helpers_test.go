@@ -2,6 +2,7 @@ package server
 
 import (
 	"bytes"
+	"context"
 	"crypto/rand"
 	"encoding/json"
 	"fmt"
@@ -116,7 +117,8 @@ func newEnvStore(t *testing.T, dir string, sopt catalog.Options, opts ...func(*C
 		t.Fatal(err)
 	}
 	auth := NewAuthority(key, testIssuer)
-	cfg := Config{Store: store, Authority: auth, Logger: logger}
+	// No rate limit unless a test sets one: tests send many requests fast.
+	cfg := Config{Store: store, Authority: auth, Logger: logger, RateLimit: -1}
 	for _, o := range opts {
 		o(&cfg)
 	}
@@ -137,7 +139,7 @@ func (e *testEnv) token(g Grant) string {
 	if g.TTL == 0 {
 		g.TTL = time.Hour
 	}
-	tok, err := e.auth.Issue(g)
+	tok, err := e.auth.IssueRecorded(context.Background(), e.store, "test", g)
 	if err != nil {
 		e.t.Fatal(err)
 	}

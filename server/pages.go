@@ -103,10 +103,10 @@ func (s *Server) pageSession(public bool) echo.MiddlewareFunc {
 			h.Set("Cache-Control", "no-store")
 			s.formToken(c)
 			if ck, err := c.Cookie(sessionCookie); err == nil && ck.Value != "" {
-				cl, err := s.checkToken(ck.Value)
+				cl, err := s.checkToken(c.Request().Context(), ck.Value)
 				switch {
 				case err == nil:
-					c.Set(claimsKey, cl)
+					setClaims(c, cl)
 				case isStatus(err, http.StatusUnauthorized):
 					s.clearSession(c)
 					c.Set(signInProblem, "Your token no longer works ("+strings.TrimPrefix(err.Error(), "unauthorized: ")+"). Sign in with a new one.")
@@ -272,7 +272,7 @@ func (s *Server) signIn(c echo.Context) error {
 		c.Set(signInProblem, "Paste your token into the box first.")
 		return s.renderSignIn(c, http.StatusBadRequest, next)
 	}
-	cl, err := s.checkToken(tok)
+	cl, err := s.checkToken(c.Request().Context(), tok)
 	if err != nil {
 		if !isStatus(err, http.StatusUnauthorized) {
 			return err

@@ -322,16 +322,10 @@ func (s *Server) datasetPage(c echo.Context) error {
 // pageAuditEntries is how many audit entries the dataset page shows.
 const pageAuditEntries = 20
 
-// datasetAudit returns the newest audit entries of d for its curators.
-//
-// AUDIT TRAIL (issue 15): the catalog cannot yet list one dataset's entries
-// without reading the whole trail (Store.Audit), so this returns none and
-// the page says where the trail will be. Once a filtered, paged reader
-// exists, return its newest pageAuditEntries entries of d.Project/d.Name
-// here (newest first) and whether older ones exist; the template shows
-// them as they come.
+// datasetAudit returns the newest audit entries of d for its curators,
+// newest first, and whether older ones exist.
 func (s *Server) datasetAudit(ctx context.Context, d *catalog.Dataset) ([]catalog.AuditEntry, bool, error) {
-	return nil, false, nil
+	return s.cfg.Store.AuditNewest(ctx, catalog.AuditFilter{Project: d.Project, Dataset: d.Name, Limit: pageAuditEntries})
 }
 
 func pullCommand(d *catalog.Dataset, v *catalog.Version) string {

@@ -417,7 +417,7 @@ func TestPagesCurator(t *testing.T) {
 	b := e.browser(t)
 	b.signIn(e.curator)
 	ds := b.page("/view/ward/events", http.StatusOK)
-	mustHave(t, "curator's dataset page", ds, `data-version="2"`, `data-version="3"`, "other-07.csv", "broken-06.csv", `id="audit-place"`)
+	mustHave(t, "curator's dataset page", ds, `data-version="2"`, `data-version="3"`, "other-07.csv", "broken-06.csv", `<table id="audit">`, "version.create", "upload.rejected")
 	v2 := b.page("/view/ward/events/2", http.StatusOK)
 	mustHave(t, "draft page", v2, `id="publish-form"`, `id="withdraw-form"`, `<label for="reason">`, `<span class="state draft" id="state">draft</span>`)
 
@@ -437,6 +437,11 @@ func TestPagesCurator(t *testing.T) {
 	e.decode(e.get("/api/v1/projects/ward/datasets/events/versions/2", e.member), &v)
 	if v.State != catalog.StatePublished || v.PublishedBy != "curator-ward" {
 		t.Fatalf("after publishing from the page: %+v", v)
+	}
+	// The curation history shows the publication, newest first.
+	hist := b.page("/view/ward/events", http.StatusOK)
+	if i, j := strings.Index(hist, "version.publish"), strings.Index(hist, "version.create"); i < 0 || j < 0 || i > j || !strings.Contains(hist, "curator-ward") {
+		t.Errorf("curation history: publish at %d, version.create at %d; want the publish first, by curator-ward", i, j)
 	}
 	// Withdraw: a reason is needed; then downloads end and the reason shows.
 	b.page("/view/ward/events/1", http.StatusOK)

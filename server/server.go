@@ -4,9 +4,11 @@
 package server
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"log/slog"
+	"net"
 	"net/http"
 	"strings"
 	"sync"
@@ -34,6 +36,18 @@ type Config struct {
 	// BodyIdleTimeout is how long the server waits for the next byte of a
 	// request body before it gives up (default 60 s; 408).
 	BodyIdleTimeout time.Duration
+	// RateLimit bounds the requests one token (its jti) sends a second,
+	// with bursts of RateBurst (defaults DefaultRateLimit and
+	// DefaultRateBurst; a negative RateLimit turns the limit off); 429
+	// with Retry-After above.
+	RateLimit float64
+	RateBurst int
+	// TokenSpool is the folder where the command line leaves the records
+	// of tokens it issued while this server held the catalog (see
+	// catalog.SpoolToken); "" for none. A token signed by an EdDSA key is
+	// honoured only when the catalog has its record, imported from here
+	// if need be.
+	TokenSpool string
 	// CitationAuthor is the author CITATION.cff files name (the lab that
 	// curates the data); default the project's title, or its name.
 	CitationAuthor string
@@ -53,6 +67,7 @@ type Server struct {
 
 	mu        sync.Mutex
 	uploading map[string]int // uploads in progress per token id
+	limits    *tokenLimits   // nil: no rate limit
 
 	csrfKey []byte // signs the pages' form tokens (pages.go)
 }
@@ -75,8 +90,18 @@ func New(cfg Config) *Server {
 	e.HideBanner = true
 	e.HidePort = true
 	e.HTTPErrorHandler = errorHandler(cfg.Logger)
+	if cfg.RateLimit == 0 {
+		cfg.RateLimit = DefaultRateLimit
+	}
+	if cfg.RateBurst <= 0 {
+		cfg.RateBurst = DefaultRateBurst
+	}
 	s := &Server{cfg: cfg, echo: e, uploading: map[string]int{}, csrfKey: newCSRFKey()}
+	if cfg.RateLimit > 0 {
+		s.limits = newTokenLimits(cfg.RateLimit, cfg.RateBurst)
+	}
 	e.Use(middleware.Recover())
+	e.Use(securityHeaders)
 	e.Use(middleware.RequestID())
 	e.Use(s.accessLog)
 
@@ -86,13 +111,22 @@ func New(cfg Config) *Server {
 	s.routes = []route{
 		{method: "GET", path: api + "/health", h: s.health, public: true},
 		{method: "GET", path: api + "/schema", h: s.schema, public: true},
-		{method: "GET", path: api + "/projects", h: s.listProjects},
+		{method: "GET", path: api + "/projects", h: s.listProjects, params: []string{"archived"}},
 		{method: "POST", path: api + "/projects", h: s.createProject},
 		{method: "GET", path: api + "/projects/:project", h: s.getProject},
-		{method: "GET", path: api + "/projects/:project/datasets", h: s.listDatasets},
+		{method: "PATCH", path: api + "/projects/:project", h: s.editProject},
+		{method: "POST", path: api + "/projects/:project/archive", h: s.projectMark},
+		{method: "POST", path: api + "/projects/:project/unarchive", h: s.projectMark},
+		{method: "POST", path: api + "/projects/:project/delete", h: s.projectMark},
+		{method: "GET", path: api + "/projects/:project/datasets", h: s.listDatasets, params: []string{"archived"}},
 		{method: "POST", path: api + "/projects/:project/datasets", h: s.createDataset},
 		{method: "GET", path: ds, h: s.getDataset},
 		{method: "POST", path: ds + "/changes", h: s.setChanges},
+		{method: "PATCH", path: ds, h: s.editDataset},
+		{method: "GET", path: ds + "/profiles", h: s.listProfiles},
+		{method: "POST", path: ds + "/archive", h: s.archiveDataset},
+		{method: "POST", path: ds + "/unarchive", h: s.unarchiveDataset},
+		{method: "POST", path: ds + "/delete", h: s.deleteDataset},
 		{method: "POST", path: ds + "/uploads", h: s.upload, params: []string{"filename", "mode", "from", "to", "site*"}},
 		{method: "GET", path: ds + "/uploads", h: s.listUploads},
 		{method: "GET", path: ds + "/versions", h: s.listVersions, params: []string{"limit", "after"}},
@@ -119,6 +153,11 @@ func New(cfg Config) *Server {
 		{method: "GET", path: api + "/admin/tokens", h: s.listTokens},
 		{method: "POST", path: api + "/admin/tokens", h: s.issueToken},
 		{method: "POST", path: api + "/admin/tokens/:jti/revoke", h: s.revokeToken},
+		{method: "GET", path: api + "/projects/:project/tokens", h: s.listProjectTokens},
+		{method: "POST", path: api + "/projects/:project/tokens", h: s.issueProjectToken},
+		{method: "POST", path: api + "/projects/:project/tokens/:jti/revoke", h: s.revokeProjectToken},
+		{method: "GET", path: api + "/audit", h: s.listAudit, params: append([]string{"limit", "after"}, auditParams...)},
+		{method: "GET", path: api + "/audit/export", h: s.exportAudit, params: auditParams},
 	}
 	s.routes = append(s.routes, s.pageRoutes()...)
 	for _, r := range s.routes {
@@ -127,11 +166,14 @@ func New(cfg Config) *Server {
 			// Pages: errors as HTML, the token from the session cookie,
 			// and a form token on every POST.
 			mw = append(mw, s.pageErrors, s.pageSession(r.public))
+			if !r.public {
+				mw = append(mw, s.rateLimit, s.auditDenied)
+			}
 		} else if !r.public {
-			mw = append(mw, s.authenticate)
+			mw = append(mw, s.authenticate, s.rateLimit, s.auditDenied)
 		}
 		mw = append(mw, knownParams(r.params))
-		if r.method == http.MethodPost {
+		if r.method == http.MethodPost || r.method == http.MethodPatch {
 			mw = append(mw, s.idleBodies)
 		}
 		if r.page && r.method == http.MethodPost {
@@ -265,7 +307,7 @@ func (s *Server) authenticate(next echo.HandlerFunc) echo.HandlerFunc {
 		if !ok || !strings.EqualFold(scheme, "Bearer") || tok == "" {
 			return fail(http.StatusUnauthorized, "unauthorized", "Authorization must be Bearer <token>")
 		}
-		cl, err := s.checkToken(tok)
+		cl, err := s.checkToken(c.Request().Context(), tok)
 		if err != nil {
 			var he *httpError
 			if errors.As(err, &he) && he.body.Status == http.StatusUnauthorized {
@@ -274,18 +316,36 @@ func (s *Server) authenticate(next echo.HandlerFunc) echo.HandlerFunc {
 			}
 			return err
 		}
-		c.Set(claimsKey, cl)
+		setClaims(c, cl)
 		return next(c)
 	}
 }
 
-// checkToken verifies a token and checks the revocations bucket, so that
-// a revoked jti stops authenticating at once; an invalid or revoked token
-// is a 401.
-func (s *Server) checkToken(tok string) (*Claims, error) {
+// checkToken verifies a token, checks that the catalog has its record and
+// checks the revocations bucket, so that a revoked jti stops
+// authenticating at once; an invalid, unrecorded or revoked token is a
+// 401.
+func (s *Server) checkToken(ctx context.Context, tok string) (*Claims, error) {
 	cl, err := s.cfg.Authority.Verify(strings.TrimSpace(tok))
 	if err != nil {
 		return nil, fail(http.StatusUnauthorized, "unauthorized", "%s", err.Error())
+	}
+	// A token signed by an EdDSA key is honoured only when the catalog
+	// has its record (issued through the catalog, or spooled by the
+	// command line while this server ran): a token nobody can list
+	// cannot be revoked by jti. HS256 tokens predate records and are
+	// exempt until the legacy key is retired.
+	if cl.kid != "" {
+		ok, err := s.cfg.Store.TokenRecorded(cl.ID)
+		if err == nil && !ok {
+			ok, err = s.cfg.Store.ImportSpooledToken(ctx, s.cfg.TokenSpool, cl.ID)
+		}
+		if err != nil {
+			return nil, err
+		}
+		if !ok {
+			return nil, fail(http.StatusUnauthorized, "unauthorized", "unauthorized: token %s is not recorded in this catalog; issue tokens with flowcat token issue or POST /api/v1/admin/tokens", cl.ID)
+		}
 	}
 	revoked, err := s.cfg.Store.TokenRevoked(cl.ID)
 	if err != nil {
@@ -295,6 +355,18 @@ func (s *Server) checkToken(tok string) (*Claims, error) {
 		return nil, fail(http.StatusUnauthorized, "unauthorized", "unauthorized: token %s was revoked", cl.ID)
 	}
 	return cl, nil
+}
+
+// setClaims makes cl the request's claims and its actor, for the audit
+// trail.
+func setClaims(c echo.Context, cl *Claims) {
+	c.Set(claimsKey, cl)
+	req := c.Request()
+	from, _, err := net.SplitHostPort(req.RemoteAddr)
+	if err != nil {
+		from = req.RemoteAddr
+	}
+	c.SetRequest(req.WithContext(catalog.WithActor(req.Context(), catalog.Actor{Subject: cl.Subject, TokenID: cl.ID, Role: cl.Role, From: from})))
 }
 
 func claims(c echo.Context) *Claims { return c.Get(claimsKey).(*Claims) }

@@ -14,7 +14,7 @@ import (
 
 // TokenRecord turns issued claims into the catalog's record of them.
 func TokenRecord(c *Claims, kid string) catalog.TokenRecord {
-	r := catalog.TokenRecord{JTI: c.ID, Subject: c.Subject, Role: c.Role, Project: c.Project, Datasets: c.Datasets, KeyID: kid}
+	r := catalog.TokenRecord{JTI: c.ID, Subject: c.Subject, Role: c.Role, Project: c.Project, Datasets: c.Datasets, Sites: c.Sites, Replace: c.Replace, KeyID: kid}
 	if c.IssuedAt != nil {
 		r.IssuedAt = c.IssuedAt.UTC()
 	}
@@ -27,13 +27,13 @@ func TokenRecord(c *Claims, kid string) catalog.TokenRecord {
 // IssueRecorded issues a token for g, records it in store and audits the
 // issue under by, in that order: a token the catalog could not record is
 // not handed out.
-func (a *Authority) IssueRecorded(st *catalog.Store, by string, g Grant) (string, error) {
+func (a *Authority) IssueRecorded(ctx context.Context, st *catalog.Store, by string, g Grant) (string, error) {
 	tok, c, err := a.IssueClaims(g)
 	if err != nil {
 		return "", err
 	}
-	kid, _ := headerKID(tok)
-	if err := st.RecordToken(context.Background(), by, TokenRecord(c, kid)); err != nil {
+	kid, _ := HeaderKID(tok)
+	if err := st.RecordToken(ctx, by, TokenRecord(c, kid)); err != nil {
 		return "", err
 	}
 	return tok, nil
@@ -55,6 +55,9 @@ func (s *Server) listTokens(c echo.Context) error {
 	if claims(c).Role != RoleAdmin {
 		return forbidden("list tokens (admin only)")
 	}
+	if _, err := s.cfg.Store.ImportTokenSpool(c.Request().Context(), s.cfg.TokenSpool); err != nil {
+		return err
+	}
 	recs, err := s.cfg.Store.Tokens(c.Request().Context())
 	if err != nil {
 		return catalogError(err)
@@ -70,7 +73,9 @@ type issueRequest struct {
 	Subject  string   `json:"subject"`
 	Project  string   `json:"project"`
 	Datasets []string `json:"datasets"`
-	TTL      string   `json:"ttl"` // a Go duration, e.g. "720h"
+	Sites    []string `json:"sites"`   // partner: the sites it may write
+	Replace  bool     `json:"replace"` // partner with sites: may replace-window them
+	TTL      string   `json:"ttl"`     // a Go duration, e.g. "720h"
 }
 
 func (s *Server) issueToken(c echo.Context) error {
@@ -79,15 +84,15 @@ func (s *Server) issueToken(c echo.Context) error {
 		return forbidden("issue tokens (admin only)")
 	}
 	var req issueRequest
-	if err := decodeJSON(c, &req, `{"role", "subject", "project", "datasets", "ttl"}`); err != nil {
+	if err := decodeJSON(c, &req, `{"role", "subject", "project", "datasets", "sites", "replace", "ttl"}`); err != nil {
 		return err
 	}
 	ttl, err := time.ParseDuration(req.TTL)
 	if err != nil {
 		return fail(http.StatusBadRequest, "invalid", "ttl %q: want a duration such as 720h", truncateParam(req.TTL))
 	}
-	g := Grant{Role: req.Role, Subject: req.Subject, Project: req.Project, Datasets: req.Datasets, TTL: ttl}
-	tok, err := s.cfg.Authority.IssueRecorded(s.cfg.Store, cl.Subject+" ("+cl.ID+")", g)
+	g := Grant{Role: req.Role, Subject: req.Subject, Project: req.Project, Datasets: req.Datasets, Sites: req.Sites, Replace: req.Replace, TTL: ttl}
+	tok, err := s.cfg.Authority.IssueRecorded(c.Request().Context(), s.cfg.Store, cl.Subject, g)
 	if err != nil {
 		if errors.Is(err, catalog.ErrInvalid) || errors.Is(err, catalog.ErrExists) {
 			return catalogError(err)
@@ -110,15 +115,15 @@ func (s *Server) revokeToken(c echo.Context) error {
 	if err := decodeJSON(c, &req, `{"reason": ...}`); err != nil {
 		return err
 	}
-	rv, err := s.cfg.Store.RevokeToken(c.Request().Context(), cl.Subject+" ("+cl.ID+")", c.Param("jti"), req.Reason)
+	rv, err := s.cfg.Store.RevokeToken(c.Request().Context(), cl.Subject, c.Param("jti"), req.Reason)
 	if err != nil {
 		return catalogError(err)
 	}
 	return c.JSON(http.StatusOK, rv)
 }
 
-// headerKID returns the kid of a token's header (the key that signed it).
-func headerKID(tok string) (string, error) {
+// HeaderKID returns the kid of a token's header (the key that signed it).
+func HeaderKID(tok string) (string, error) {
 	t, _, err := jwt.NewParser().ParseUnverified(tok, &Claims{})
 	if err != nil {
 		return "", err

@@ -216,6 +216,9 @@ func (s *Server) exportVersion(c echo.Context) error {
 	if match := c.Request().Header.Get("If-None-Match"); match == tag {
 		return c.NoContent(http.StatusNotModified)
 	}
+	if err := s.auditRead(c, "version.export", v, "format "+format+filterText(q)); err != nil {
+		return err
+	}
 	ctx := c.Request().Context()
 	w := c.Response()
 	if format == "csv" {
@@ -292,7 +295,8 @@ func (s *Server) getBundle(c echo.Context) error {
 	if format != "tar" && format != "zip" {
 		return fail(http.StatusBadRequest, "invalid", "format %q: want tar or zip", truncateParam(format))
 	}
-	d, err := s.cfg.Store.Dataset(c.Request().Context(), c.Param("project"), c.Param("dataset"))
+	// The dictionary describes the profile revision v was read with.
+	d, err := s.cfg.Store.DatasetAsRead(c.Request().Context(), v)
 	if err != nil {
 		return catalogError(err)
 	}
@@ -311,6 +315,9 @@ func (s *Server) getBundle(c echo.Context) error {
 		report = nil
 	} else if err != nil {
 		return catalogError(err)
+	}
+	if err := s.auditRead(c, "version.bundle", v, "format "+format); err != nil {
+		return err
 	}
 	c.Response().WriteHeader(http.StatusOK)
 	err = export.WriteBundle(c.Request().Context(), c.Response(), format, export.Bundle{

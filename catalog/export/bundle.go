@@ -301,6 +301,7 @@ func dictionary(d *catalog.Dataset, v *catalog.Version, report []byte) ([]byte, 
 		fmt.Fprintf(&b, "`%s`", t)
 	}
 	b.WriteString(".\n\n## Mapping profile\n\n")
+	fmt.Fprintf(&b, "- Profile revision: %d\n", d.Revision())
 	fmt.Fprintf(&b, "- Profile hash: `%s`\n- Time zone of wall-clock times: %s\n- Pseudonym key id: `%s`\n\n", m.ProfileHash, d.Timezone, m.KeyID)
 	if strings.TrimSpace(d.Profile) == "" {
 		b.WriteString("The dataset uses the default profile: the source columns carry the schema's own field names.\n")
