@@ -171,6 +171,16 @@ func (d dataDir) findMasterKey(flagFile string) (anonymize.MasterKey, string, er
 }
 
 func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger, lim ...schema.Limits) (*catalog.Store, error) {
+	var l schema.Limits
+	if len(lim) > 0 {
+		l = lim[0]
+	}
+	return d.openStoreWith(master, log, l, nil)
+}
+
+// openStoreWith opens the store with upload limits and a clock (nil:
+// time.Now).
+func (d dataDir) openStoreWith(master anonymize.MasterKey, log *slog.Logger, lim schema.Limits, now func() time.Time) (*catalog.Store, error) {
 	blobs, err := localfs.New(d.blobs())
 	if err != nil {
 		return nil, err
@@ -180,9 +190,6 @@ func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger, lim ...
 	}
 	// Open clears what an interrupted run left in tmp/ and blobs/tmp/
 	// once it holds the bbolt lock (only pseudonymized events).
-	opt := catalog.Options{Master: master, TempDir: d.tmp(), Logger: log}
-	if len(lim) > 0 {
-		opt.Limits = lim[0]
-	}
+	opt := catalog.Options{Master: master, TempDir: d.tmp(), Logger: log, Limits: lim, Now: now}
 	return catalog.Open(d.db(), blobs, opt)
 }

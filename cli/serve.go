@@ -78,7 +78,8 @@ type serverOptions struct {
 	maxUploads     int
 	bodyIdle       time.Duration
 	citationAuthor string
-	limits         schema.Limits // of uploaded files
+	limits         schema.Limits    // of uploaded files
+	now            func() time.Time // the catalog's clock; nil: time.Now (the demo's simulated nights)
 }
 
 // running is a started server.
@@ -95,21 +96,34 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, so ser
 	if _, err := d.readInstance(); err != nil {
 		return nil, err
 	}
+	ln, err := net.Listen("tcp", addr)
+	if err != nil {
+		return nil, fmt.Errorf("serve: %w", err)
+	}
+	return startServerOn(ctx, d, ln, masterFile, so, log)
+}
+
+// startServerOn serves on a listener already open (the demo opens its
+// port before it creates anything); it closes ln when it fails.
+func startServerOn(ctx context.Context, d dataDir, ln net.Listener, masterFile string, so serverOptions, log *slog.Logger) (*running, error) {
+	addr := ln.Addr().String()
+	if _, err := d.readInstance(); err != nil {
+		ln.Close()
+		return nil, err
+	}
 	master, from, err := d.findMasterKey(masterFile)
 	if err != nil {
+		ln.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
 	auth, err := d.authority()
 	if err != nil {
+		ln.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	st, err := d.openStore(master, log, so.limits)
+	st, err := d.openStoreWith(master, log, so.limits, so.now)
 	if err != nil {
-		return nil, fmt.Errorf("serve: %w", err)
-	}
-	ln, err := net.Listen("tcp", addr)
-	if err != nil {
-		st.Close()
+		ln.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
 	srv := server.New(server.Config{Store: st, Authority: auth, Logger: log, MaxUploadBytes: so.maxUpload, MaxUploadsPerToken: so.maxUploads, BodyIdleTimeout: so.bodyIdle, CitationAuthor: so.citationAuthor})
