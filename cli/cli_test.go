@@ -191,7 +191,7 @@ func TestEndToEnd(t *testing.T) {
 	if code != 0 || !strings.Contains(out, "v1 already holds every event: 0 new events,") || !strings.Contains(out, " already held, 0 changed; nothing stored") {
 		t.Errorf("re-send in other bytes: exit %d, %q", code, out)
 	}
-	if code, out, _ := run(t, as(curator), "uploads", "flow/visits"); code != 0 || !strings.Contains(out, "already held: ") {
+	if code, out, _ := run(t, as(curator), "uploads", "flow/visits"); code != 0 || !strings.Contains(out, " events already held") {
 		t.Errorf("uploads: exit %d, %q", code, out)
 	}
 	if code, out, errs := run(t, as(curator), "dataset", "changes", "flow/visits", "correct"); code != 0 || !strings.Contains(out, "taken as corrections") {

@@ -141,15 +141,15 @@ func TestDemoCommandsRunAsPrinted(t *testing.T) {
 		t.Fatalf("a printed command failed: %v\n%s", err, out)
 	}
 	for _, want := range []string{
-		"would be accepted",            // partner: validate
-		"walkin-visits@9 created",      // partner: upload of the night held back
-		"field_dropped",                // curator: alerts
-		"resource_id",                  // curator: the field that dropped
-		"ok ",                          // student: verify
-		"cff-version",                  // student: cite
-		"taken as the start of 20",     // student: summary --from DATE
-		"quality report (format ",      // curator: quality
-		"events added", "completeness", // curator: diff
+		"would be accepted",              // partner: validate
+		"walkin-visits@9 created",        // partner: upload of the night held back
+		"field_dropped",                  // curator: alerts
+		"resource_id",                    // curator: the field that dropped
+		"ok ",                            // student: verify
+		"cff-version",                    // student: cite
+		"taken as the start of that day", // student: summary --from DATE
+		"quality report (format ",        // curator: quality
+		"events added", "completeness",   // curator: diff
 	} {
 		if !strings.Contains(string(out), want) {
 			t.Errorf("the printed commands' output lacks %q:\n%s", want, out)

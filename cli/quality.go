@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"io"
 	"net/url"
+	"slices"
+	"strings"
 	"text/tabwriter"
 
 	"github.com/spf13/cobra"
@@ -66,6 +68,9 @@ completeness dropped (an export that lost a column).`,
 				for _, a := range t.Alerts {
 					alerts = append(alerts, a.Alert)
 				}
+				if len(pts) == 0 && site != "" && site != quality.AllSites {
+					return e.unknownSite(cmd, cl, r, site)
+				}
 				if len(pts) == 0 {
 					fmt.Fprintf(e.stdout, "%s: no upload with a report yet\n", r)
 					return nil
@@ -126,6 +131,27 @@ func newAlertsCmd(e *env) *cobra.Command {
 			return nil
 		},
 	}
+}
+
+// unknownSite explains an empty trend of one site: the site has no
+// upload in the dataset; it names the sites that have.
+func (e *env) unknownSite(cmd *cobra.Command, cl *client, r ref, site string) error {
+	var all trendAnswer
+	if err := cl.getJSON(cmd.Context(), r.path()+"/quality/trend", &all); err != nil {
+		return err
+	}
+	var known []string
+	for _, p := range all.Points {
+		if p.Site != quality.AllSites && !slices.Contains(known, p.Site) {
+			known = append(known, p.Site)
+		}
+	}
+	if len(known) == 0 {
+		return &exitError{code: ExitRejected, err: fmt.Errorf("quality --trend: site %q is unknown: %s has no upload with a report yet", site, r)}
+	}
+	slices.Sort(known)
+	return &exitError{code: ExitRejected, err: fmt.Errorf("quality --trend: site %q is unknown in %s; its sites are %s (or %s for all together)",
+		site, r, strings.Join(known, ", "), quality.AllSites)}
 }
 
 func decodeBody(r io.Reader, v any) error {

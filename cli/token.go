@@ -53,16 +53,14 @@ func newTokenCmd(e *env) *cobra.Command {
 					return usageErr("%v", ierr)
 				}
 				fmt.Fprintf(e.stderr, "note: token not recorded in the token list or audit trail (%v); issue through the server (POST /api/v1/admin/tokens) to record it\n", err)
-				fmt.Fprintln(e.stdout, tok)
-				return nil
+				return e.printIssued(tok, false)
 			}
 			defer st.Close()
 			tok, err := auth.IssueRecorded(st, operator, g)
 			if err != nil {
 				return usageErr("%v", err)
 			}
-			fmt.Fprintln(e.stdout, tok)
-			return nil
+			return e.printIssued(tok, true)
 		},
 	}
 	f := issue.Flags()
