@@ -123,7 +123,9 @@ again. A busy --addr is refused before anything is created.`,
 				run.close()
 				return err
 			}
-			if err := e.seedDemo(cmd, g, clock, days, seed); err != nil {
+			// The run of nights ends yesterday, so no event lies after its upload.
+			first := time.Now().UTC().Truncate(24*time.Hour).AddDate(0, 0, -days)
+			if err := e.seedDemo(cmd, g, clock, first, days, seed); err != nil {
 				stop()
 				run.wait(ctx)
 				return err
@@ -234,14 +236,11 @@ func (g *demoGuide) writeTokens() error {
 }
 
 // seedDemo creates the project and datasets as the curator would and sends
-// every night's export as the partner would, through the HTTP API, each
-// at its simulated night.
-func (e *env) seedDemo(cmd *cobra.Command, g *demoGuide, clock *demoClock, days int, seed uint64) error {
+// the export of every night from first on as the partner would, through
+// the HTTP API, each at its simulated night.
+func (e *env) seedDemo(cmd *cobra.Command, g *demoGuide, clock *demoClock, first time.Time, days int, seed uint64) error {
 	ctx := cmd.Context()
 	t := g.tokens
-	// The run of nights ends yesterday, so no event lies after its upload.
-	today := time.Now().UTC().Truncate(24 * time.Hour)
-	first := today.AddDate(0, 0, -days)
 	sc := synth.QuillonBay(seed, first, days)
 	clock.set(first.Add(-6 * time.Hour)) // the study was set up the evening before
 	admin := &env{stdout: io.Discard, stderr: e.stderr, server: g.url, token: t.admin, quiet: true}

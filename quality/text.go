@@ -29,7 +29,7 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	fmt.Fprintf(bw, "rows   %d total, %d accepted, %d rejected (%s)\n",
 		r.Rows.Total, r.Rows.Accepted, r.Rows.Rejected, percent(r.RejectedShare()))
 	if r.TimeRange.First != nil {
-		fmt.Fprintf(bw, "time   %s .. %s, resolution %s (%s)\n", r.TimeRange.First.Format(time.RFC3339),
+		fmt.Fprintf(bw, "time   %s .. %s\n       resolution %s (%s)\n", r.TimeRange.First.Format(time.RFC3339),
 			r.TimeRange.Last.Format(time.RFC3339), r.Resolution.Grid, r.Resolution.Zone)
 	}
 	fmt.Fprintf(bw, "sites  %d distinct", r.Sites.Distinct)

@@ -242,7 +242,7 @@ func WriteTrend(w io.Writer, points []TrendPoint, alerts []Alert, color bool) er
 			scores = append(scores, pt.Score)
 		}
 		fmt.Fprintf(bw, "%s  %s\n", p.bold(siteName(site)), sparkline(scores))
-		head := []string{"upload", "received", "events", "score"}
+		head := []string{"id", "received", "events", "score"} // "id": the upload's; "upload" would push the table past 80 columns
 		for _, dw := range dimensionWeights {
 			head = append(head, abbrev(dw.name))
 		}

@@ -1,0 +1,204 @@
+package cli
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"flag"
+	"io"
+	"log/slog"
+	"net"
+	"os"
+	"path/filepath"
+	"regexp"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/spf13/cobra"
+)
+
+var update = flag.Bool("update", false, "rewrite the golden files of testdata/text from the output")
+
+// fixedCatalog serves the demo's scenario over fixed dates, uploaded on a
+// fixed clock: four nights from 2 March 2026 (seed 7), the clinic's last
+// night held back, the phone line's as generated. It returns the server's
+// URL, the curator's token and the data directory.
+func fixedCatalog(t *testing.T) (url, curator, dir string) {
+	t.Helper()
+	t.Setenv("FLOWCAT_MASTER_KEY", "")
+	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
+	dir = filepath.Join(t.TempDir(), "data")
+	d := dataDir(dir)
+	if _, err := initDataDir(d, ""); err != nil {
+		t.Fatal(err)
+	}
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	clock := &demoClock{}
+	run, err := startServerOn(ctx, d, ln, "", serverOptions{now: clock.Now}, slog.New(slog.DiscardHandler))
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { cancel(); run.wait(ctx) })
+	tokens, err := demoTokens(run)
+	if err != nil {
+		t.Fatal(err)
+	}
+	g := &demoGuide{prog: "flowcat", dir: dir, url: run.url, tokens: tokens}
+	if err := g.writeTokens(); err != nil {
+		t.Fatal(err)
+	}
+	cmd := &cobra.Command{}
+	cmd.SetContext(ctx)
+	e := &env{stdout: io.Discard, stderr: io.Discard, quiet: true}
+	first := time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)
+	if err := e.seedDemo(cmd, g, clock, first, 4, 7); err != nil {
+		t.Fatal(err)
+	}
+	return run.url, tokens.curator, dir
+}
+
+// Identifiers that differ from run to run (the project key is random):
+// masked to a run of x of the same width, so that columns stay aligned.
+var (
+	pseudonymRE = regexp.MustCompile(`\b[a-z2-7]{26}\b`)
+	snapshotRE  = regexp.MustCompile(`\b[0-9a-f]{12}\b`)
+)
+
+func mask(s string) string {
+	for _, re := range []*regexp.Regexp{pseudonymRE, snapshotRE} {
+		s = re.ReplaceAllStringFunc(s, func(m string) string { return strings.Repeat("x", len(m)) })
+	}
+	return s
+}
+
+// TestTextGolden checks the human output of quality, summary, diff,
+// versions and uploads (and the trend) on the fixed catalog against
+// testdata/text/*.txt: no terminal colour, no line over 80 columns.
+// go test ./cli -run TestTextGolden -update rewrites the files.
+func TestTextGolden(t *testing.T) {
+	url, curator, _ := fixedCatalog(t)
+	const walk, line = "quillon-flow/walkin-visits", "quillon-flow/nurseline-calls"
+	for _, c := range []struct {
+		name string
+		args []string
+	}{
+		{"quality", []string{"quality", walk + "@latest"}},
+		{"summary", []string{"summary", walk + "@latest"}},
+		{"diff", []string{"diff", walk + "@1", walk + "@3"}},
+		{"versions", []string{"versions", line}},
+		{"uploads", []string{"uploads", walk}},
+		{"trend", []string{"quality", line, "--trend", "--site", "qb-nurseline"}},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			var out, errb bytes.Buffer
+			args := append(c.args, "--server", url, "--token", curator)
+			if code := Main(context.Background(), args, strings.NewReader(""), &out, &errb); code != 0 {
+				t.Fatalf("%v: exit %d: %s", c.args, code, errb.String())
+			}
+			got := mask(out.String())
+			if strings.Contains(got, "\x1b") {
+				t.Error("terminal escapes in output that is not a terminal")
+			}
+			for i, l := range strings.Split(got, "\n") {
+				if n := len([]rune(l)); n > 80 {
+					t.Errorf("line %d is %d columns wide: %q", i+1, n, l)
+				}
+			}
+			path := filepath.Join("testdata", "text", c.name+".txt")
+			if *update {
+				if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
+					t.Fatal(err)
+				}
+				if err := os.WriteFile(path, []byte(got), 0o644); err != nil {
+					t.Fatal(err)
+				}
+			}
+			want, err := os.ReadFile(path)
+			if err != nil {
+				t.Fatalf("%v (go test ./cli -run TestTextGolden -update writes it)", err)
+			}
+			if got != string(want) {
+				t.Errorf("%v differs from %s (-update rewrites it):\n%s", c.args, path, got)
+			}
+		})
+	}
+}
+
+// TestJSONEveryReportingCommand runs every command that reports with
+// --json on the fixed catalog and parses what it prints as one JSON
+// value of the documented shape.
+func TestJSONEveryReportingCommand(t *testing.T) {
+	url, curator, data := fixedCatalog(t)
+	const walk = "quillon-flow/walkin-visits"
+	dir := t.TempDir()
+	held := filepath.Join(data, demoFiles, "qb-walkin-2026-03-05.csv")
+	profile := filepath.Join(data, demoFiles, "qb-walkin.profile.yaml")
+	for _, c := range []struct {
+		args []string
+		keys []string // keys the object must have; nil for an array
+	}{
+		{[]string{"project", "list"}, nil},
+		{[]string{"dataset", "list", "quillon-flow"}, nil},
+		{[]string{"versions", walk}, nil},
+		{[]string{"uploads", walk}, nil},
+		{[]string{"alerts", walk}, nil},
+		{[]string{"quality", walk + "@latest"}, []string{"score", "dimensions"}},
+		{[]string{"quality", walk, "--trend"}, []string{"points", "alerts"}},
+		{[]string{"summary", walk + "@2"}, []string{"events", "arrivals"}},
+		{[]string{"diff", walk + "@1", walk + "@2"}, []string{"from", "to", "events", "quality_delta", "summary_delta"}},
+		{[]string{"cite", walk + "@2"}, []string{"dataset", "version", "snapshot_id", "citation"}},
+		{[]string{"export", walk + "@2", "-o", filepath.Join(dir, "e.csv"), "--format", "csv"}, []string{"dataset", "version", "snapshot_id", "format", "file", "bytes", "sha256"}},
+		{[]string{"bundle", walk + "@2", "-o", filepath.Join(dir, "b.tar")}, []string{"dataset", "version", "snapshot_id", "format", "file", "bytes", "sha256"}},
+		{[]string{"pull", walk + "@2", "-o", filepath.Join(dir, "pulled")}, []string{"dataset", "version", "snapshot_id", "files"}},
+		{[]string{"verify", filepath.Join(dir, "pulled")}, nil},
+		{[]string{"validate", held, "--profile", profile}, []string{"accepted", "report"}},
+		{[]string{"token", "issue", "--data", data, "--role", "member", "--subject", "s", "--project", "quillon-flow"}, []string{"token", "jti", "role", "expires_at", "recorded"}},
+		{[]string{"upload", walk, held}, []string{"upload", "version"}},
+	} {
+		t.Run(c.args[0], func(t *testing.T) {
+			var out, errb bytes.Buffer
+			args := append(append([]string{}, c.args...), "--json", "--server", url, "--token", curator)
+			if code := Main(context.Background(), args, strings.NewReader(""), &out, &errb); code != 0 {
+				t.Fatalf("%v: exit %d: %s", c.args, code, errb.String())
+			}
+			var v any
+			dec := json.NewDecoder(&out)
+			if err := dec.Decode(&v); err != nil {
+				t.Fatalf("%v --json: %v:\n%s", c.args, err, out.String())
+			}
+			if dec.More() {
+				t.Errorf("%v --json printed more than one JSON value", c.args)
+			}
+			if c.keys == nil {
+				return
+			}
+			obj, ok := v.(map[string]any)
+			if !ok {
+				t.Fatalf("%v --json: want an object, got %T", c.args, v)
+			}
+			for _, k := range c.keys {
+				if _, ok := obj[k]; !ok {
+					t.Errorf("%v --json lacks %q: %v", c.args, k, obj)
+				}
+			}
+		})
+	}
+	// The citation is the CFF document as an object.
+	var out, errb bytes.Buffer
+	Main(context.Background(), []string{"cite", walk + "@2", "--json", "--server", url, "--token", curator}, strings.NewReader(""), &out, &errb)
+	var c struct {
+		Version  int `json:"version"`
+		Citation struct {
+			CFF     string `json:"cff-version"`
+			Version string `json:"version"`
+		} `json:"citation"`
+	}
+	if err := json.Unmarshal(out.Bytes(), &c); err != nil || c.Version != 2 || c.Citation.CFF != "1.2.0" {
+		t.Errorf("cite --json: %v %+v", err, c)
+	}
+}
