@@ -107,8 +107,9 @@ scores their quality and keeps immutable, versioned Parquet snapshots that stude
 		newPullCmd(e), newVerifyCmd(e), newQualityCmd(e),
 		newPublishCmd(e), newRetractCmd(e), newGCCmd(e),
 		newAlertsCmd(e), newSummaryCmd(e), newExportCmd(e), newBundleCmd(e), newCiteCmd(e), newDiffCmd(e),
-		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e),
+		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e), newManCmd(e),
 	)
+	addCompletion(root, e)
 	for _, c := range root.Commands() {
 		wrapArgs(c)
 	}

@@ -202,3 +202,96 @@ func TestJSONEveryReportingCommand(t *testing.T) {
 		t.Errorf("cite --json: %v %+v", err, c)
 	}
 }
+
+// complete runs cobra's hidden completion command as a shell script does
+// and returns the candidates (descriptions cut off) and the directive.
+func complete(t *testing.T, url, token string, args ...string) ([]string, string) {
+	t.Helper()
+	var out, errb bytes.Buffer
+	t.Setenv("FLOWCAT_SERVER", url)
+	t.Setenv("FLOWCAT_TOKEN", token)
+	all := append([]string{"__complete"}, args...)
+	if code := Main(context.Background(), all, strings.NewReader(""), &out, &errb); code != 0 {
+		t.Fatalf("__complete %v: exit %d %s", args, code, errb.String())
+	}
+	var cands []string
+	directive := ""
+	for _, l := range strings.Split(strings.TrimSpace(out.String()), "\n") {
+		if strings.HasPrefix(l, ":") {
+			directive = l
+			continue
+		}
+		name, _, _ := strings.Cut(l, "\t")
+		cands = append(cands, name)
+	}
+	return cands, directive
+}
+
+// TestCompletion: commands, flags, flag values, projects, datasets and
+// versions complete from the server.
+func TestCompletion(t *testing.T) {
+	url, curator, _ := fixedCatalog(t)
+	for _, c := range []struct {
+		args []string
+		want []string
+	}{
+		{[]string{"ver"}, []string{"versions", "verify"}},
+		{[]string{"quality", "--tr"}, []string{"--trend"}},
+		{[]string{"export", "x/y", "--format", ""}, []string{"parquet", "csv"}},
+		{[]string{"bundle", "x/y", "--format", ""}, []string{"tar", "zip"}},
+		{[]string{"versions", ""}, []string{"quillon-flow/"}},
+		{[]string{"versions", "quillon-flow/"}, []string{"quillon-flow/walkin-visits", "quillon-flow/nurseline-calls"}},
+		{[]string{"pull", "quillon-flow/walkin-visits@"}, []string{"quillon-flow/walkin-visits@latest", "quillon-flow/walkin-visits@3"}},
+		{[]string{"diff", "quillon-flow/walkin-visits@1", "quillon-flow/walkin-visits@"}, []string{"quillon-flow/walkin-visits@2"}},
+		{[]string{"dataset", "list", ""}, []string{"quillon-flow"}},
+		{[]string{"token", "issue", "--role", ""}, []string{"admin", "curator", "member", "partner"}},
+	} {
+		got, _ := complete(t, url, curator, c.args...)
+		for _, w := range c.want {
+			if !slicesContains(got, w) {
+				t.Errorf("complete %q: %v lacks %q", c.args, got, w)
+			}
+		}
+	}
+	// The file of an upload completes as a file (directive 0: default).
+	if _, d := complete(t, url, curator, "upload", "quillon-flow/walkin-visits", ""); d != ":0" {
+		t.Errorf("upload FILE: directive %s, want :0 (files)", d)
+	}
+	// A version is not offered where a command takes none.
+	if got, _ := complete(t, url, curator, "versions", "quillon-flow/walkin-visits@"); len(got) != 0 {
+		t.Errorf("versions takes no @VERSION, yet %v", got)
+	}
+}
+
+func slicesContains(s []string, v string) bool {
+	for _, x := range s {
+		if x == v {
+			return true
+		}
+	}
+	return false
+}
+
+// TestManPages: man writes a page per command, generated from the
+// commands.
+func TestManPages(t *testing.T) {
+	dir := t.TempDir()
+	var out, errb bytes.Buffer
+	if code := Main(context.Background(), []string{"man", "-o", dir, "--quiet"}, strings.NewReader(""), &out, &errb); code != 0 {
+		t.Fatalf("man: exit %d %s", code, errb.String())
+	}
+	for _, name := range []string{"flowcat.1", "flowcat-demo.1", "flowcat-quality.1", "flowcat-token-issue.1"} {
+		b, err := os.ReadFile(filepath.Join(dir, name))
+		if err != nil {
+			t.Errorf("%s: %v", name, err)
+			continue
+		}
+		if !bytes.HasPrefix(b, []byte(".nh")) && !bytes.Contains(b, []byte(".TH \"FLOWCAT\" \"1\"")) {
+			t.Errorf("%s is not a section 1 man page:\n%.300s", name, b)
+		}
+	}
+	b, _ := os.ReadFile(filepath.Join(dir, "flowcat-demo.1"))
+	if !bytes.Contains(b, []byte("busy")) || !bytes.Contains(b, []byte("--days")) {
+		t.Errorf("flowcat-demo.1 lacks the command's description or flags:\n%s", b)
+	}
+}
