@@ -29,6 +29,9 @@ import (
 //	signing.key    legacy HS256 token key of directories made before keys.json (0600)
 //	master.key     master key sealing project keys (0600), unless kept elsewhere
 //	instance.json  the token issuer name
+//	demo/          (demo only) a token per role, mapping profiles and the
+//	               export held back for the guide's commands; the server
+//	               never reads it
 type dataDir string
 
 func (d dataDir) path(name string) string { return filepath.Join(string(d), name) }
