@@ -47,15 +47,24 @@ func addCompletion(root *cobra.Command, e *env) {
 				if len(args) >= len(kinds) {
 					return nil, cobra.ShellCompDirectiveNoFileComp
 				}
-				switch kinds[len(args)] {
+				kind := kinds[len(args)]
+				if vals, ok := strings.CutPrefix(kind, "values:"); ok {
+					return strings.Split(vals, ","), cobra.ShellCompDirectiveNoFileComp
+				}
+				switch kind {
 				case "project":
+					if cmd.Name() == "create" {
+						return nil, cobra.ShellCompDirectiveNoFileComp // a new name
+					}
 					return e.completeProjects(cmd, false)
 				case "dataset":
 					return e.completeRef(cmd, toComplete, false)
 				case "version":
 					return e.completeRef(cmd, toComplete, true)
+				case "file":
+					return nil, cobra.ShellCompDirectiveDefault
 				}
-				return nil, cobra.ShellCompDirectiveDefault // a file or directory
+				return nil, cobra.ShellCompDirectiveNoFileComp
 			}
 		}
 		for name, vals := range flagValues {
@@ -85,30 +94,37 @@ func addCompletion(root *cobra.Command, e *env) {
 
 // positionals reads a usage line ("diff PROJECT/DATASET@A PROJECT/DATASET@B
 // [filters]") into the kinds of its positional arguments: project,
-// dataset, version (a dataset with an optional @VERSION) or file. Flags
+// dataset, version (a dataset with an optional @VERSION), file (FILE or
+// DIR), "values:a,b" (a|b) or "" (an identifier, nothing to offer). Flags
 // and their values, and bracketed options, are skipped; so is everything
 // after a "|" (an alternative form).
 func positionals(use string) []string {
 	fields := strings.Fields(use)
 	var kinds []string
+	bracket := false
 	for i := 1; i < len(fields); i++ {
 		f := fields[i]
 		switch {
+		case bracket || strings.HasPrefix(f, "["):
+			bracket = !strings.HasSuffix(f, "]") // an option, to its closing bracket
 		case f == "|":
 			return kinds
-		case strings.HasPrefix(f, "-") || strings.HasPrefix(f, "[-"):
-			if i+1 < len(fields) && !strings.HasPrefix(fields[i+1], "-") && strings.ToUpper(fields[i+1]) == fields[i+1] && !strings.ContainsAny(fields[i+1], "/[|") {
-				i++ // the flag's value, DIR or FILE
+		case strings.HasPrefix(f, "-"):
+			if i+1 < len(fields) && !strings.HasPrefix(fields[i+1], "-") && fields[i+1] != "|" {
+				i++ // the flag's value: DIR, FILE, TEXT
 			}
-		case strings.HasPrefix(f, "["):
 		case strings.HasPrefix(f, "PROJECT/DATASET") && strings.Contains(f, "@"):
 			kinds = append(kinds, "version")
 		case strings.HasPrefix(f, "PROJECT/DATASET"):
 			kinds = append(kinds, "dataset")
 		case f == "PROJECT":
 			kinds = append(kinds, "project")
-		case strings.ToUpper(f) == f:
+		case f == "FILE" || f == "DIR":
 			kinds = append(kinds, "file")
+		case strings.Contains(f, "|") && strings.ToLower(f) == f:
+			kinds = append(kinds, "values:"+strings.ReplaceAll(f, "|", ","))
+		default:
+			kinds = append(kinds, "") // an identifier (JTI, KID): nothing to offer
 		}
 	}
 	return kinds

@@ -295,3 +295,25 @@ func TestManPages(t *testing.T) {
 		t.Errorf("flowcat-demo.1 lacks the command's description or flags:\n%s", b)
 	}
 }
+
+func TestPositionals(t *testing.T) {
+	for use, want := range map[string]string{
+		"pull PROJECT/DATASET[@VERSION] -o DIR | pull --pin FILE -o DIR":                       "version",
+		"upload PROJECT/DATASET FILE":                                                          "dataset file",
+		"diff PROJECT/DATASET@A PROJECT/DATASET@B [filters]":                                   "version version",
+		"create PROJECT/DATASET [--profile FILE] [--timezone ZONE]":                            "dataset",
+		"changes PROJECT/DATASET refuse|correct":                                               "dataset values:refuse,correct",
+		"revoke JTI --reason TEXT [--data DIR | --server URL --token T]":                       "",
+		"list [--data DIR | --server URL --token T]":                                           "",
+		"quality PROJECT/DATASET[@VERSION] | quality PROJECT/DATASET --trend [--site S]":       "version",
+		"serve --data DIR --addr HOST:PORT":                                                    "",
+		"validate FILE [--profile FILE]":                                                       "file",
+		"list PROJECT":                                                                         "project",
+		"export PROJECT/DATASET[@VERSION] -o FILE [--format parquet|csv] [filters]":            "version",
+		"issue --data DIR --role ROLE --subject NAME [--project P] [--dataset P/D] [--ttl 1h]": "",
+	} {
+		if got := strings.Join(positionals(use), " "); got != want {
+			t.Errorf("positionals(%q) = %q, want %q", use, got, want)
+		}
+	}
+}
