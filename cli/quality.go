@@ -7,7 +7,7 @@ import (
 	"net/url"
 	"slices"
 	"strings"
-	"text/tabwriter"
+	"time"
 
 	"github.com/spf13/cobra"
 
@@ -105,7 +105,7 @@ completeness dropped (an export that lost a column).`,
 func newAlertsCmd(e *env) *cobra.Command {
 	return &cobra.Command{
 		Use:   "alerts PROJECT/DATASET",
-		Short: "List a dataset's drift alerts, newest first",
+		Short: "List a dataset's drift alerts, newest first, each with what it means",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			var as []catalog.UploadAlert
@@ -116,17 +116,26 @@ func newAlertsCmd(e *env) *cobra.Command {
 				fmt.Fprintln(e.stdout, "no alerts")
 				return nil
 			}
-			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
-			fmt.Fprintln(tw, "UPLOAD\tRECEIVED\tSITE\tALERT\tMETRIC\tVALUE\tRECENT RANGE")
+			// The usual range is in each alert's sentence, below its row.
+			t := &table{head: []string{"UPLOAD", "RECEIVED (UTC)", "SITE", "ALERT", "METRIC", "VALUE"}, right: map[int]bool{5: true}}
 			for _, a := range as {
-				fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%.1f\t%.1f..%.1f\n", a.Upload, a.ReceivedAt, a.Site, a.Code, a.Metric, a.Value, a.Low, a.High)
+				received := a.ReceivedAt
+				if at, err := time.Parse(time.RFC3339Nano, a.ReceivedAt); err == nil {
+					received = minute(at)
+				}
+				site := a.Site
+				if site == quality.AllSites {
+					site = "(all)"
+				}
+				// A field's completeness is a share; scores are points of 100.
+				metric, value := a.Metric, fmt.Sprintf("%.1f", a.Value)
+				if f, ok := strings.CutPrefix(a.Metric, "completeness:"); ok {
+					metric, value = f, fmt.Sprintf("%.0f%%", 100*a.Value)
+				}
+				t.add(a.Sentence, a.Upload.String(), received, site, a.Code, metric, value)
 			}
-			if err := tw.Flush(); err != nil {
+			if err := t.write(e.stdout); err != nil {
 				return err
-			}
-			fmt.Fprintln(e.stdout)
-			for _, a := range as {
-				fmt.Fprintf(e.stdout, "%s %s: %s\n", a.Upload, a.Site, a.Sentence)
 			}
 			return nil
 		},

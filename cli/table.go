@@ -50,7 +50,7 @@ func (t *table) write(w io.Writer) error {
 	for i, r := range t.rows {
 		b.WriteString(line(r))
 		if n := t.notes[i]; n != "" {
-			b.WriteString(indent + wrap(n, 80-len(indent), indent) + "\n")
+			b.WriteString(indent + strings.ReplaceAll(wrap(n, 80-len(indent), ""), "\n", "\n"+indent) + "\n")
 		}
 	}
 	_, err := io.WriteString(w, b.String())

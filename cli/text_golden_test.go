@@ -21,8 +21,9 @@ import (
 var update = flag.Bool("update", false, "rewrite the golden files of testdata/text from the output")
 
 // fixedCatalog serves the demo's scenario over fixed dates, uploaded on a
-// fixed clock: four nights from 2 March 2026 (seed 7), the clinic's last
-// night held back, the phone line's as generated. It returns the server's
+// fixed clock: nine nights from 2 March 2026 (seed 7), the clinic's last
+// night held back, the phone line's eighth without its nurse column (a
+// drift alert). It returns the server's
 // URL, the curator's token and the data directory.
 func fixedCatalog(t *testing.T) (url, curator, dir string) {
 	t.Helper()
@@ -56,7 +57,7 @@ func fixedCatalog(t *testing.T) (url, curator, dir string) {
 	cmd.SetContext(ctx)
 	e := &env{stdout: io.Discard, stderr: io.Discard, quiet: true}
 	first := time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)
-	if err := e.seedDemo(cmd, g, clock, first, 4, 7); err != nil {
+	if err := e.seedDemo(cmd, g, clock, first, 9, 7); err != nil {
 		t.Fatal(err)
 	}
 	return run.url, tokens.curator, dir
@@ -93,6 +94,7 @@ func TestTextGolden(t *testing.T) {
 		{"versions", []string{"versions", line}},
 		{"uploads", []string{"uploads", walk}},
 		{"trend", []string{"quality", line, "--trend", "--site", "qb-nurseline"}},
+		{"alerts", []string{"alerts", line}},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			var out, errb bytes.Buffer
@@ -136,7 +138,7 @@ func TestJSONEveryReportingCommand(t *testing.T) {
 	url, curator, data := fixedCatalog(t)
 	const walk = "quillon-flow/walkin-visits"
 	dir := t.TempDir()
-	held := filepath.Join(data, demoFiles, "qb-walkin-2026-03-05.csv")
+	held := filepath.Join(data, demoFiles, "qb-walkin-2026-03-10.csv")
 	profile := filepath.Join(data, demoFiles, "qb-walkin.profile.yaml")
 	for _, c := range []struct {
 		args []string
