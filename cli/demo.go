@@ -269,7 +269,7 @@ func (e *env) seedDemo(cmd *cobra.Command, g *demoGuide, clock *demoClock, first
 	pcl, _ := part.client()
 	plan := demoPlan(days)
 	fmt.Fprintf(e.stdout, "%d simulated nights of uploads through %s/api/v1,\neach received at about 2 am after its day:\n", days, g.url)
-	fmt.Fprintf(e.stdout, "  %-10s  %-26s  %-26s\n", "day", demoDatasets[0].dataset, demoDatasets[1].dataset)
+	fmt.Fprintf(e.stdout, "  %-10s  %-29s  %s\n", "day", demoDatasets[0].dataset, demoDatasets[1].dataset)
 	for day := 0; day < days; day++ {
 		cells := make([]string, len(demoDatasets))
 		for i, d := range demoDatasets {
@@ -318,7 +318,7 @@ func (e *env) seedDemo(cmd *cobra.Command, g *demoGuide, clock *demoClock, first
 				cells[i] = string(ans.Upload.Status)
 				continue
 			}
-			cells[i] = fmt.Sprintf("@%-3d %4d rows  score %s", ans.Version.Number, rep.Rows.Accepted, score(rep.Score))
+			cells[i] = fmt.Sprintf("@%-3d %5d rows  score %s", ans.Version.Number, rep.Rows.Accepted, score(rep.Score))
 			if i == 1 && day == plan.dropColumn {
 				g.dropAt = ans.Version.Number
 			}
@@ -328,11 +328,14 @@ func (e *env) seedDemo(cmd *cobra.Command, g *demoGuide, clock *demoClock, first
 			for _, a := range ans.Upload.Alerts {
 				g.alerts = append(g.alerts, fmt.Sprintf("%s@%d, %s: %s", d.dataset, ans.Version.Number, a.Code, a.Sentence))
 			}
-			if n := len(ans.Upload.Alerts); n > 0 {
-				cells[i] += fmt.Sprintf("  %d alert%s", n, map[bool]string{true: "s"}[n > 1])
+			if len(ans.Upload.Alerts) > 0 {
+				cells[i] += " *"
 			}
 		}
-		fmt.Fprintf(e.stdout, "  %-10s  %-26s  %s\n", first.AddDate(0, 0, day).Format("2006-01-02"), cells[0], cells[1])
+		fmt.Fprintf(e.stdout, "  %-10s  %-29s  %s\n", first.AddDate(0, 0, day).Format("2006-01-02"), cells[0], cells[1])
+	}
+	if len(g.alerts) > 0 {
+		fmt.Fprintln(e.stdout, "  * the upload raised drift alerts (below)")
 	}
 	return nil
 }
@@ -501,6 +504,7 @@ func (g *demoGuide) farewell(w io.Writer) {
 	q := shellQuote
 	fmt.Fprintf(w, "\ndemo stopped. Its data stays in %s\n", g.dir)
 	fmt.Fprintf(w, "  serve it again:  %s serve --data %s --addr %s\n", g.prog, q(g.dir), g.addr)
+	fmt.Fprintf(w, "  its tokens:      %s, valid until %s\n", q(filepath.Join(g.dir, demoFiles)), g.expires.UTC().Format("2006-01-02 15:04 UTC"))
 	fmt.Fprintf(w, "  new tokens:      %s token issue --data %s --role member --project %s --subject student\n", g.prog, q(g.dir), demoProject)
 	fmt.Fprintf(w, "  remove it:       rm -r %s\n", q(g.dir))
 }

@@ -319,3 +319,40 @@ func TestPositionals(t *testing.T) {
 		}
 	}
 }
+
+// TestPlainMessages: the messages of issue 20's first hour say what is
+// missing: an unknown trend site names the known ones; a failed upload's
+// bytes read are not shown as the file's size; a date is taken as the
+// start of its day in the dataset's zone, and said.
+func TestPlainMessages(t *testing.T) {
+	url, curator, data := fixedCatalog(t)
+	cli := func(token string, args ...string) (int, string, string) {
+		var out, errb bytes.Buffer
+		code := Main(context.Background(), append(args, "--server", url, "--token", token), strings.NewReader(""), &out, &errb)
+		return code, out.String(), errb.String()
+	}
+	code, _, errs := cli(curator, "quality", "quillon-flow/walkin-visits", "--trend", "--site", "nosuch")
+	if code != 1 || !strings.Contains(errs, `site "nosuch" is unknown`) || !strings.Contains(errs, "qb-walkin") {
+		t.Errorf("--trend --site nosuch: exit %d %q", code, errs)
+	}
+
+	partner, _ := os.ReadFile(filepath.Join(data, demoFiles, "partner.token"))
+	bad := filepath.Join(t.TempDir(), "no-case-column.csv")
+	os.WriteFile(bad, []byte("PatientRef;Step;EvCode;Stamp\nP1;triage;ARR;02.03.2026 09:00:00\n"), 0o644)
+	if code, _, _ := cli(strings.TrimSpace(string(partner)), "upload", "quillon-flow/walkin-visits", bad); code != 1 {
+		t.Fatalf("upload of a file without its case column: exit %d, want 1", code)
+	}
+	_, out, _ := cli(curator, "uploads", "quillon-flow/walkin-visits")
+	// Status failed, no version, no size, no score; the note says what was read.
+	if !regexp.MustCompile(`failed\s+-\s+-\s+-\s+-\n\s+no-case-column.csv; failed after reading 63 B: missing_column`).MatchString(out) {
+		t.Errorf("a failed upload's list entry:\n%s", out)
+	}
+
+	code, _, errs = cli(curator, "summary", "quillon-flow/walkin-visits", "--from", "2026-03-04")
+	if code != 0 || !strings.Contains(errs, "--from 2026-03-04: taken as the start of that day in the dataset's zone, America/Halifax: 2026-03-04T00:00:00-04:00") {
+		t.Errorf("summary --from DATE: exit %d %q", code, errs)
+	}
+	if code, _, errs := cli(curator, "summary", "quillon-flow/walkin-visits", "--from", "04/03/2026"); code == 0 || !strings.Contains(errs, "04/03/2026") {
+		t.Errorf("summary --from 04/03/2026: exit %d %q", code, errs)
+	}
+}
