@@ -185,7 +185,7 @@ func printUpload(w io.Writer, r ref, a *uploadAnswer) {
 
 func printAlerts(w io.Writer, u *catalog.Upload) {
 	for _, a := range u.Alerts {
-		fmt.Fprintf(w, "alert %s: %s\n", a.Code, wrap(a.Sentence, 72, "  "))
+		fmt.Fprintf(w, "alert %s at %s: %s\n", a.Code, a.Site, wrap(a.Sentence, 72, "  "))
 	}
 }
 
