@@ -28,7 +28,8 @@ func instantFlags(ctx context.Context, cl *client, r ref, w io.Writer, flags ...
 		if zone == nil {
 			var d catalog.Dataset
 			if err := cl.getJSON(ctx, r.path(), &d); err != nil {
-				return err
+				return usageErr("--%s %s: a date is taken in the dataset's zone, which could not be read (%v); give an RFC 3339 instant with its offset, such as %sT00:00:00Z",
+					f.name, f.value, err, f.value)
 			}
 			zoneName = d.Timezone
 			if zone, err = time.LoadLocation(d.Timezone); err != nil || d.Timezone == "" {

@@ -355,4 +355,10 @@ func TestPlainMessages(t *testing.T) {
 	if code, _, errs := cli(curator, "summary", "quillon-flow/walkin-visits", "--from", "04/03/2026"); code == 0 || !strings.Contains(errs, "04/03/2026") {
 		t.Errorf("summary --from 04/03/2026: exit %d %q", code, errs)
 	}
+	// The partner's replace-window takes dates too.
+	held := filepath.Join(data, demoFiles, "qb-walkin-2026-03-10.csv")
+	code, out, errs = cli(strings.TrimSpace(string(partner)), "upload", "quillon-flow/walkin-visits", held, "--mode", "replace-window", "--from", "2026-03-10", "--to", "2026-03-11")
+	if code != 0 || !strings.Contains(errs, "--to 2026-03-11: taken as the start of that day in the dataset's zone, America/Halifax: 2026-03-11T00:00:00-03:00") { // daylight time from 8 March 2026 (IANA tz database)
+		t.Errorf("upload --mode replace-window with dates: exit %d %s %s", code, out, errs)
+	}
 }

@@ -100,6 +100,12 @@ Every mode makes a new immutable version whose lineage names its parent, upload 
 			if err != nil {
 				return err
 			}
+			from := &struct{ name, value string }{"from", uf.from}
+			to := &struct{ name, value string }{"to", uf.to}
+			if err := instantFlags(cmd.Context(), cl, r, e.stderr, from, to); err != nil {
+				return err
+			}
+			uf.from, uf.to = from.value, to.value
 			q, err := uf.query(filepath.Base(args[1]))
 			if err != nil {
 				return err
@@ -116,8 +122,8 @@ Every mode makes a new immutable version whose lineage names its parent, upload 
 		},
 	}
 	c.Flags().StringVar(&uf.mode, "mode", "", "append, replace-window or replace-all (default append)")
-	c.Flags().StringVar(&uf.from, "from", "", "replace-window: start of the window, RFC 3339 (inclusive)")
-	c.Flags().StringVar(&uf.to, "to", "", "replace-window: end of the window, RFC 3339 (exclusive)")
+	c.Flags().StringVar(&uf.from, "from", "", "replace-window: start of the window, RFC 3339 or a date (its start in the dataset's zone; inclusive)")
+	c.Flags().StringVar(&uf.to, "to", "", "replace-window: end of the window, RFC 3339 or a date (its start in the dataset's zone; exclusive)")
 	c.Flags().StringSliceVar(&uf.sites, "site", nil, "replace-window: a site whose events are replaced (repeatable; default the file's sites)")
 	return c
 }
