@@ -25,7 +25,7 @@ func stateRef(arg, verb string) (ref, error) {
 func newPublishCmd(e *env) *cobra.Command {
 	return &cobra.Command{
 		Use:   "publish PROJECT/DATASET@N",
-		Short: "Publish a draft version, so that every member of the project sees it",
+		Short: "Publish a draft version, so that the project's members see it",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			r, err := stateRef(args[0], "publish")
@@ -41,7 +41,7 @@ func newRetractCmd(e *env) *cobra.Command {
 	var reason string
 	c := &cobra.Command{
 		Use:   "retract PROJECT/DATASET@N --reason TEXT",
-		Short: "Retract a version: its data is no longer served, its metadata and citation stay",
+		Short: "Retract a version: its data is no longer served, its citation is",
 		Long: `Retract withdraws a version for good: downloads answer 410 Gone with the reason, while its
 manifest, quality report and citation stay readable for audit. Later versions are not changed:
 to remove the data itself from the dataset, upload a replacement (upload --mode).`,

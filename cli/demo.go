@@ -51,7 +51,7 @@ func newDemoCmd(e *env) *cobra.Command {
 	var seed uint64
 	c := &cobra.Command{
 		Use:   "demo [--data DIR] [--addr HOST:PORT]",
-		Short: "Run a server with four invented weeks of clinic and phone-line data, and a guided tour",
+		Short: "Serve four invented weeks of clinic data, with a guided tour",
 		Long: `Demo starts a server on a new data directory, creates the invented Quillon Bay Health
 scenario (a walk-in clinic and a nurse advice line; every name and event is made up), and sends
 one export per site and simulated night through the HTTP API, each received the night after its

@@ -25,7 +25,7 @@ func newQualityCmd(e *env) *cobra.Command {
 	var site string
 	c := &cobra.Command{
 		Use:   "quality PROJECT/DATASET[@VERSION] | quality PROJECT/DATASET --trend [--site S]",
-		Short: "Show the quality report of a version, or the quality of every upload as a trend",
+		Short: "Show a version's quality report, or the trend over uploads",
 		Long: `Quality prints a version's report: its five dimensions (completeness, accuracy, consistency,
 currentness, uniqueness) with their findings, over all the version's files. quality/SCORING.md in
 the source gives every formula.
@@ -105,7 +105,7 @@ completeness dropped (an export that lost a column).`,
 func newAlertsCmd(e *env) *cobra.Command {
 	return &cobra.Command{
 		Use:   "alerts PROJECT/DATASET",
-		Short: "List a dataset's drift alerts, newest first, each with what it means",
+		Short: "List a dataset's drift alerts, newest first, with what each means",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			var as []catalog.UploadAlert

@@ -84,9 +84,10 @@ func newRoot(e *env) *cobra.Command {
 	root := &cobra.Command{
 		Use:   "flowcat",
 		Short: "A catalog server for pseudonymized, quality-scored service-event snapshots",
-		Long: `flowcat takes partner sites' nightly service-event exports, checks them against the
-common service-event schema through each dataset's mapping profile, pseudonymizes identifiers,
-scores their quality and keeps immutable, versioned Parquet snapshots that students pull and verify.`,
+		Long: `flowcat takes partner sites' nightly service-event exports, checks them
+against the common service-event schema through each dataset's mapping profile,
+pseudonymizes identifiers, scores their quality and keeps immutable, versioned
+Parquet snapshots that students pull and verify. New here? Run flowcat demo.`,
 		SilenceErrors: true,
 		SilenceUsage:  true,
 	}

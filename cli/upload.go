@@ -67,7 +67,7 @@ func newUploadCmd(e *env) *cobra.Command {
 	var uf uploadFlags
 	c := &cobra.Command{
 		Use:   "upload PROJECT/DATASET FILE",
-		Short: "Upload one export file (CSV, TSV or JSON Lines, maybe gzip) to a dataset",
+		Short: "Upload one export file (CSV, TSV or JSON Lines, maybe gzip)",
 		Long: `Upload streams FILE to the server, which checks it through the dataset's profile,
 pseudonymizes it and, if it passes, makes a new version. A version holds each event once: events
 the latest version already holds, and copies within the file, are not stored again, and the answer

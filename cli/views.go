@@ -59,7 +59,7 @@ func newSummaryCmd(e *env) *cobra.Command {
 	var ff filterFlags
 	c := &cobra.Command{
 		Use:   "summary PROJECT/DATASET[@VERSION] [filters]",
-		Short: "Show a version's operational summary: arrivals, waits, patience, service times, stays, occupancy",
+		Short: "Show a version's arrivals, waits, services, stays, occupancy",
 		Long: `Summary prints the summary stored with a version. With --site, --from or --to the server computes
 it from the version's files for those events only; --queue and --activity restrict the queue and
 activity tables. The figures describe past operations; they are not advice on any patient's care.`,
@@ -133,7 +133,7 @@ func newExportCmd(e *env) *cobra.Command {
 	var out, format string
 	c := &cobra.Command{
 		Use:   "export PROJECT/DATASET[@VERSION] -o FILE [--format parquet|csv] [filters]",
-		Short: "Download a version, or the events and columns you choose, as one Parquet or CSV file",
+		Short: "Download a version, or chosen events, as Parquet or CSV",
 		Long: `Export writes one file holding a version's events in a fixed order (time, then content): the same
 request always gives the same bytes. Filters keep a time window, sites, queues, event types,
 activities and columns; the server reads only the row groups they need. CSV follows RFC 4180.
@@ -174,7 +174,7 @@ func newBundleCmd(e *env) *cobra.Command {
 	var out, format string
 	c := &cobra.Command{
 		Use:   "bundle PROJECT/DATASET[@VERSION] -o FILE [--format tar|zip]",
-		Short: "Download a version as one archive: Parquet files, manifest, dictionary, README, checksums, CITATION.cff",
+		Short: "Download a version as one archive, with README and citation",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			r, err := parseRef(args[0], true)
@@ -198,7 +198,7 @@ func newBundleCmd(e *env) *cobra.Command {
 func newCiteCmd(e *env) *cobra.Command {
 	return &cobra.Command{
 		Use:   "cite PROJECT/DATASET[@VERSION]",
-		Short: "Print a version's CITATION.cff (Citation File Format 1.2.0); with --json, as a JSON object",
+		Short: "Print a version's CITATION.cff (Citation File Format 1.2.0)",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			r, err := parseRef(args[0], true)
@@ -265,7 +265,7 @@ func newDiffCmd(e *env) *cobra.Command {
 	var ff filterFlags
 	c := &cobra.Command{
 		Use:   "diff PROJECT/DATASET@A PROJECT/DATASET@B [filters]",
-		Short: "Compare two versions by content: events added and removed per site and day, quality and summary deltas",
+		Short: "Compare two versions: events, quality and summary",
 		Args:  cobra.ExactArgs(2),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			a, err := parseRef(args[0], true)
