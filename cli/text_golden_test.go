@@ -138,6 +138,8 @@ func TestJSONEveryReportingCommand(t *testing.T) {
 	url, curator, data := fixedCatalog(t)
 	const walk = "quillon-flow/walkin-visits"
 	dir := t.TempDir()
+	adminTok, _ := os.ReadFile(filepath.Join(data, demoFiles, "admin.token"))
+	admin := strings.TrimSpace(string(adminTok))
 	held := filepath.Join(data, demoFiles, "qb-walkin-2026-03-10.csv")
 	profile := filepath.Join(data, demoFiles, "qb-walkin.profile.yaml")
 	for _, c := range []struct {
@@ -161,10 +163,21 @@ func TestJSONEveryReportingCommand(t *testing.T) {
 		{[]string{"validate", held, "--profile", profile}, []string{"accepted", "report"}},
 		{[]string{"token", "issue", "--data", data, "--role", "member", "--subject", "s", "--project", "quillon-flow"}, []string{"token", "jti", "role", "expires_at", "recorded"}},
 		{[]string{"upload", walk, held}, []string{"upload", "version"}},
+		{[]string{"project", "create", "another-study", "--token", admin}, []string{"name", "pseudonym_key_id"}},
+		{[]string{"dataset", "create", "quillon-flow/spare"}, []string{"name", "timezone"}},
+		{[]string{"dataset", "changes", "quillon-flow/spare", "correct"}, []string{"name"}},
+		{[]string{"retract", walk + "@1", "--reason", "test"}, []string{"version", "state"}},
+		{[]string{"sweep", "--dry-run", "--token", admin}, nil},
+		{[]string{"token", "list", "--token", admin}, nil},
+		{[]string{"token", "keys", "--data", data}, nil},
+		{[]string{"token", "rotate", "--data", data}, []string{"kid", "action"}},
+		{[]string{"init", "--data", filepath.Join(dir, "another")}, []string{"data", "master_key_created"}},
+		{[]string{"schema"}, []string{"$schema"}},
 	} {
 		t.Run(c.args[0], func(t *testing.T) {
 			var out, errb bytes.Buffer
-			args := append(append([]string{}, c.args...), "--json", "--server", url, "--token", curator)
+			// A --token in the case's arguments (the admin's) comes last and wins.
+			args := append([]string{"--json", "--server", url, "--token", curator}, c.args...)
 			if code := Main(context.Background(), args, strings.NewReader(""), &out, &errb); code != 0 {
 				t.Fatalf("%v: exit %d: %s", c.args, code, errb.String())
 			}
