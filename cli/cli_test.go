@@ -191,7 +191,7 @@ func TestEndToEnd(t *testing.T) {
 	if code != 0 || !strings.Contains(out, "v1 already holds every event: 0 new events,") || !strings.Contains(out, " already held, 0 changed; nothing stored") {
 		t.Errorf("re-send in other bytes: exit %d, %q", code, out)
 	}
-	if code, out, _ := run(t, as(curator), "uploads", "flow/visits"); code != 0 || !strings.Contains(out, "already held: ") {
+	if code, out, _ := run(t, as(curator), "uploads", "flow/visits"); code != 0 || !strings.Contains(out, " events already held") {
 		t.Errorf("uploads: exit %d, %q", code, out)
 	}
 	if code, out, errs := run(t, as(curator), "dataset", "changes", "flow/visits", "correct"); code != 0 || !strings.Contains(out, "taken as corrections") {
@@ -451,8 +451,8 @@ func TestValidateOffline(t *testing.T) {
 	}
 }
 
-// TestDemo runs the demo as a new user would and pulls a snapshot with the
-// member token it prints.
+// TestDemo runs the demo in process as a new user would and pulls a
+// snapshot with the member token it leaves.
 func TestDemo(t *testing.T) {
 	data := filepath.Join(t.TempDir(), "demo")
 	out, _, stop := background(t, "demo", "--data", data, "--addr", "127.0.0.1:0", "--days", "2", "--quiet")
@@ -465,15 +465,19 @@ func TestDemo(t *testing.T) {
 	if !strings.Contains(text, "invented") {
 		t.Error("the demo does not say its data is invented")
 	}
-	url := regexp.MustCompile(`serving at (http://\S+)`).FindStringSubmatch(text)
-	tok := regexp.MustCompile(`export FLOWCAT_TOKEN=(\S+)`).FindStringSubmatch(text)
-	if url == nil || tok == nil {
-		t.Fatalf("demo output lacks URL or token:\n%s", text)
+	url := regexp.MustCompile(`export FLOWCAT_SERVER=(http://\S+)`).FindStringSubmatch(text)
+	if url == nil {
+		t.Fatalf("demo output lacks the URL:\n%s", text)
 	}
-	if n := strings.Count(text, "-> quillon-flow/"); n != 4 {
-		t.Errorf("demo made %d versions over 2 nights and 2 sites, want 4:\n%s", n, text)
+	// Two nights of two sites, the clinic's last held back: three versions.
+	if n := strings.Count(text, " rows  score "); n != 3 {
+		t.Errorf("demo made %d versions over 2 nights and 2 sites (one held back), want 3:\n%s", n, text)
 	}
-	env := map[string]string{"FLOWCAT_SERVER": url[1], "FLOWCAT_TOKEN": tok[1]}
+	tok, err := os.ReadFile(filepath.Join(data, "demo", "member.token"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	env := map[string]string{"FLOWCAT_SERVER": url[1], "FLOWCAT_TOKEN": strings.TrimSpace(string(tok))}
 	snap := filepath.Join(t.TempDir(), "s")
 	if code, _, errs := run(t, env, "pull", "quillon-flow/walkin-visits@latest", "-o", snap); code != 0 {
 		t.Fatalf("pull from demo: exit %d %s", code, errs)
@@ -483,5 +487,8 @@ func TestDemo(t *testing.T) {
 	}
 	if code := stop(); code != 0 {
 		t.Errorf("demo exited %d when interrupted", code)
+	}
+	if s := out.String(); !strings.Contains(s, "serve it again:") || !strings.Contains(s, data) {
+		t.Errorf("on exit the demo does not say how to serve %s again:\n%s", data, s[len(text):])
 	}
 }

@@ -2,7 +2,6 @@ package cli
 
 import (
 	"fmt"
-	"text/tabwriter"
 	"time"
 
 	"github.com/spf13/cobra"
@@ -27,7 +26,7 @@ func newPublishCmd(e *env) *cobra.Command {
 	var override string
 	c := &cobra.Command{
 		Use:   "publish PROJECT/DATASET@N [--override-reason TEXT]",
-		Short: "Publish a draft version, so that every member of the project sees it",
+		Short: "Publish a draft version, so that the project's members see it",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			r, err := stateRef(args[0], "publish")
@@ -48,7 +47,7 @@ func newRetractCmd(e *env) *cobra.Command {
 	var reason string
 	c := &cobra.Command{
 		Use:   "retract PROJECT/DATASET@N --reason TEXT",
-		Short: "Retract a version: its data is no longer served, its metadata and citation stay",
+		Short: "Retract a version: its data is no longer served, its citation is",
 		Long: `Retract withdraws a version for good: downloads answer 410 Gone with the reason, while its
 manifest, quality report and citation stay readable for audit. Later versions are not changed:
 to remove the data itself from the dataset, upload a replacement (upload --mode).`,
@@ -134,23 +133,46 @@ and files younger than --grace are kept; every version, retracted ones too, keep
 	return c
 }
 
-// versionsTable prints versions with their state and lineage.
+// versionsTable prints versions with their state and lineage, in 80
+// columns: the mode and changed events only when some version has them
+// (most datasets only append), the snapshot id to 12 hex digits (a
+// selector needs 8 or more).
 func versionsTable(e *env, vs []catalog.Version) error {
-	tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "VERSION\tSTATE\tCREATED\tMODE\tFILES\tROWS\tNEW\tHELD\tCHANGED\tSCORE\tSNAPSHOT")
+	var modes, changes bool
 	for _, v := range vs {
-		mode := string(v.Mode)
-		if mode == "" {
-			mode = "-"
-		}
+		modes = modes || v.Mode != "" && v.Mode != catalog.ModeAppend
+		changes = changes || v.Events != nil && v.Events.Changed > 0
+	}
+	t := &table{head: []string{"VERSION", "STATE", "CREATED (UTC)", "ROWS", "NEW", "HELD"}, right: map[int]bool{0: true, 3: true, 4: true, 5: true}}
+	if changes {
+		t.head = append(t.head, "CHANGED")
+		t.right[len(t.head)-1] = true
+	}
+	if modes {
+		t.head = append(t.head, "MODE")
+	}
+	t.head = append(t.head, "SCORE", "SNAPSHOT")
+	t.right[len(t.head)-2] = true
+	for _, v := range vs {
 		// The lineage's event counts: new, already held, changed (versions
 		// made before events were counted show "-").
 		nw, held, changed := "-", "-", "-"
 		if ev := v.Events; ev != nil {
 			nw, held, changed = fmt.Sprint(ev.New), fmt.Sprint(ev.Held), fmt.Sprint(ev.Changed)
 		}
-		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%d\t%d\t%s\t%s\t%s\t%s\t%s\n", v.Number, v.State, stamp(v.CreatedAt), mode,
-			v.Files, v.Rows, nw, held, changed, score(v.Quality.Score), v.SnapshotID.String()[:16])
+		row := []string{fmt.Sprint(v.Number), string(v.State), minute(v.CreatedAt), fmt.Sprint(v.Rows), nw, held}
+		if changes {
+			row = append(row, changed)
+		}
+		if modes {
+			mode := string(v.Mode)
+			if mode == "" {
+				mode = "-"
+			}
+			row = append(row, mode)
+		}
+		row = append(row, score(v.Quality.Score), v.SnapshotID.String()[:12])
+		t.add("", row...)
 	}
-	return tw.Flush()
+	return t.write(e.stdout)
 }

@@ -30,6 +30,9 @@ import (
 //	master.key     master key sealing project keys (0600), unless kept elsewhere
 //	instance.json  the token issuer name
 //	token-spool/   records of tokens issued while a server held catalog.db
+//	demo/          (demo only) a token per role, mapping profiles and the
+//	               export held back for the guide's commands; the server
+//	               never reads it
 type dataDir string
 
 func (d dataDir) path(name string) string { return filepath.Join(string(d), name) }
@@ -184,6 +187,16 @@ func (d dataDir) findMasterKey(flagFile string) (anonymize.MasterKey, string, er
 
 // openStore opens the catalog on the blob store instance.json names.
 func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger, lim ...schema.Limits) (*catalog.Store, error) {
+	var l schema.Limits
+	if len(lim) > 0 {
+		l = lim[0]
+	}
+	return d.openStoreWith(master, log, l, nil)
+}
+
+// openStoreWith opens the store with upload limits and a clock (nil:
+// time.Now).
+func (d dataDir) openStoreWith(master anonymize.MasterKey, log *slog.Logger, lim schema.Limits, now func() time.Time) (*catalog.Store, error) {
 	inst, err := d.readInstance()
 	if err != nil {
 		return nil, err
@@ -197,9 +210,6 @@ func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger, lim ...
 	}
 	// Open clears what an interrupted run left in tmp/ and blobs/tmp/
 	// once it holds the bbolt lock (only pseudonymized events).
-	opt := catalog.Options{Master: master, TempDir: d.tmp(), Logger: log}
-	if len(lim) > 0 {
-		opt.Limits = lim[0]
-	}
+	opt := catalog.Options{Master: master, TempDir: d.tmp(), Logger: log, Limits: lim, Now: now}
 	return catalog.Open(d.db(), blobs, opt)
 }

@@ -10,7 +10,7 @@ func newInitCmd(e *env) *cobra.Command {
 	var dir, masterFile, blobs string
 	c := &cobra.Command{
 		Use:   "init --data DIR [--blobs s3://BUCKET/PREFIX]",
-		Short: "Create a data directory: catalog file, blob store, signing key and master key",
+		Short: "Create a data directory: catalog, blobs, signing and master keys",
 		Args:  cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if dir == "" {

@@ -56,7 +56,7 @@ func TestMasterKeyRotate(t *testing.T) {
 	}
 	as, stop = serve()
 	defer stop()
-	if code, out, errs := run(t, as, "versions", "flow/v"); code != 0 || !strings.Contains(out, "append") {
+	if code, out, errs := run(t, as, "versions", "flow/v"); code != 0 || !strings.Contains(out, "published") {
 		t.Fatalf("versions after rotation: %d %q %q", code, out, errs)
 	}
 	// The same events and one more: 160 of them are held already, so the

@@ -5,7 +5,9 @@ import (
 	"fmt"
 	"io"
 	"net/url"
-	"text/tabwriter"
+	"slices"
+	"strings"
+	"time"
 
 	"github.com/spf13/cobra"
 
@@ -23,7 +25,7 @@ func newQualityCmd(e *env) *cobra.Command {
 	var site string
 	c := &cobra.Command{
 		Use:   "quality PROJECT/DATASET[@VERSION] | quality PROJECT/DATASET --trend [--site S]",
-		Short: "Show the quality report of a version, or the quality of every upload as a trend",
+		Short: "Show a version's quality report, or the trend over uploads",
 		Long: `Quality prints a version's report: its five dimensions (completeness, accuracy, consistency,
 currentness, uniqueness) with their findings, over all the version's files. quality/SCORING.md in
 the source gives every formula.
@@ -66,6 +68,9 @@ completeness dropped (an export that lost a column).`,
 				for _, a := range t.Alerts {
 					alerts = append(alerts, a.Alert)
 				}
+				if len(pts) == 0 && site != "" && site != quality.AllSites {
+					return e.unknownSite(cmd, cl, r, site)
+				}
 				if len(pts) == 0 {
 					fmt.Fprintf(e.stdout, "%s: no upload with a report yet\n", r)
 					return nil
@@ -100,7 +105,7 @@ completeness dropped (an export that lost a column).`,
 func newAlertsCmd(e *env) *cobra.Command {
 	return &cobra.Command{
 		Use:   "alerts PROJECT/DATASET",
-		Short: "List a dataset's drift alerts, newest first",
+		Short: "List a dataset's drift alerts, newest first, with what each means",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			var as []catalog.UploadAlert
@@ -111,21 +116,51 @@ func newAlertsCmd(e *env) *cobra.Command {
 				fmt.Fprintln(e.stdout, "no alerts")
 				return nil
 			}
-			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
-			fmt.Fprintln(tw, "UPLOAD\tRECEIVED\tSITE\tALERT\tMETRIC\tVALUE\tRECENT RANGE")
+			// The usual range is in each alert's sentence, below its row.
+			t := &table{head: []string{"UPLOAD", "RECEIVED (UTC)", "SITE", "ALERT", "METRIC", "VALUE"}, right: map[int]bool{5: true}}
 			for _, a := range as {
-				fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%.1f\t%.1f..%.1f\n", a.Upload, a.ReceivedAt, a.Site, a.Code, a.Metric, a.Value, a.Low, a.High)
+				received := a.ReceivedAt
+				if at, err := time.Parse(time.RFC3339Nano, a.ReceivedAt); err == nil {
+					received = minute(at)
+				}
+				site := a.Site
+				if site == quality.AllSites {
+					site = "(all)"
+				}
+				// A field's completeness is a share; scores are points of 100.
+				metric, value := a.Metric, fmt.Sprintf("%.1f", a.Value)
+				if f, ok := strings.CutPrefix(a.Metric, "completeness:"); ok {
+					metric, value = f, fmt.Sprintf("%.0f%%", 100*a.Value)
+				}
+				t.add(a.Sentence, a.Upload.String(), received, site, a.Code, metric, value)
 			}
-			if err := tw.Flush(); err != nil {
+			if err := t.write(e.stdout); err != nil {
 				return err
-			}
-			fmt.Fprintln(e.stdout)
-			for _, a := range as {
-				fmt.Fprintf(e.stdout, "%s %s: %s\n", a.Upload, a.Site, a.Sentence)
 			}
 			return nil
 		},
 	}
+}
+
+// unknownSite explains an empty trend of one site: the site has no
+// upload in the dataset; it names the sites that have.
+func (e *env) unknownSite(cmd *cobra.Command, cl *client, r ref, site string) error {
+	var all trendAnswer
+	if err := cl.getJSON(cmd.Context(), r.path()+"/quality/trend", &all); err != nil {
+		return err
+	}
+	var known []string
+	for _, p := range all.Points {
+		if p.Site != quality.AllSites && !slices.Contains(known, p.Site) {
+			known = append(known, p.Site)
+		}
+	}
+	if len(known) == 0 {
+		return &exitError{code: ExitRejected, err: fmt.Errorf("quality --trend: site %q is unknown: %s has no upload with a report yet", site, r)}
+	}
+	slices.Sort(known)
+	return &exitError{code: ExitRejected, err: fmt.Errorf("quality --trend: site %q is unknown in %s; its sites are %s (or %s for all together)",
+		site, r, strings.Join(known, ", "), quality.AllSites)}
 }
 
 func decodeBody(r io.Reader, v any) error {

@@ -84,9 +84,10 @@ func newRoot(e *env) *cobra.Command {
 	root := &cobra.Command{
 		Use:   "flowcat",
 		Short: "A catalog server for pseudonymized, quality-scored service-event snapshots",
-		Long: `flowcat takes partner sites' nightly service-event exports, checks them against the
-common service-event schema through each dataset's mapping profile, pseudonymizes identifiers,
-scores their quality and keeps immutable, versioned Parquet snapshots that students pull and verify.`,
+		Long: `flowcat takes partner sites' nightly service-event exports, checks them
+against the common service-event schema through each dataset's mapping profile,
+pseudonymizes identifiers, scores their quality and keeps immutable, versioned
+Parquet snapshots that students pull and verify. New here? Run flowcat demo.`,
 		SilenceErrors: true,
 		SilenceUsage:  true,
 	}
@@ -107,8 +108,9 @@ scores their quality and keeps immutable, versioned Parquet snapshots that stude
 		newPullCmd(e), newVerifyCmd(e), newQualityCmd(e),
 		newPublishCmd(e), newRetractCmd(e), newGCCmd(e), newDisclosureCmd(e), newDisclosurePolicyCmd(e), newAuditCmd(e), newMasterKeyCmd(e),
 		newAlertsCmd(e), newSummaryCmd(e), newExportCmd(e), newBundleCmd(e), newCiteCmd(e), newDiffCmd(e),
-		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e),
+		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e), newManCmd(e),
 	)
+	addCompletion(root, e)
 	for _, c := range root.Commands() {
 		wrapArgs(c)
 	}

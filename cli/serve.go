@@ -103,6 +103,7 @@ type serverOptions struct {
 	rateBurst      int
 	tlsCert        string // certificate chain file (PEM); with tlsKey, serve HTTPS
 	tlsKey         string
+	now            func() time.Time // the catalog's clock; nil: time.Now (the demo's simulated nights)
 }
 
 // running is a started server.
@@ -120,36 +121,51 @@ func startServer(ctx context.Context, d dataDir, addr, masterFile string, so ser
 	if _, err := d.readInstance(); err != nil {
 		return nil, err
 	}
+	ln, err := net.Listen("tcp", addr)
+	if err != nil {
+		return nil, fmt.Errorf("serve: %w", err)
+	}
+	return startServerOn(ctx, d, ln, masterFile, so, log)
+}
+
+// startServerOn serves on a listener already open (the demo opens its
+// port before it creates anything); it closes ln when it fails.
+func startServerOn(ctx context.Context, d dataDir, ln net.Listener, masterFile string, so serverOptions, log *slog.Logger) (*running, error) {
+	addr := ln.Addr().String()
+	if _, err := d.readInstance(); err != nil {
+		ln.Close()
+		return nil, err
+	}
 	master, from, err := d.findMasterKey(masterFile)
 	if err != nil {
+		ln.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
 	auth, err := d.authority()
 	if err != nil {
+		ln.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	st, err := d.openStore(master, log, so.limits)
+	st, err := d.openStoreWith(master, log, so.limits, so.now)
 	if err != nil {
+		ln.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
 	if n, err := st.ImportTokenSpool(context.Background(), d.tokenSpool()); err != nil {
 		st.Close()
+		ln.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	} else if n > 0 {
 		log.Info("token records imported from the spool", "tokens", n)
 	}
 	var cert tls.Certificate
 	if so.tlsCert != "" {
-		// Read before listening, so that a bad pair fails at once, by name.
+		// Read before serving, so that a bad pair fails at once, by name.
 		if cert, err = tls.LoadX509KeyPair(so.tlsCert, so.tlsKey); err != nil {
 			st.Close()
+			ln.Close()
 			return nil, fmt.Errorf("serve: --tls-cert %s, --tls-key %s: %w", so.tlsCert, so.tlsKey, err)
 		}
-	}
-	ln, err := net.Listen("tcp", addr)
-	if err != nil {
-		st.Close()
-		return nil, fmt.Errorf("serve: %w", err)
 	}
 	scheme := "http"
 	if so.tlsCert != "" {

@@ -63,8 +63,7 @@ func newTokenCmd(e *env) *cobra.Command {
 					return err
 				}
 				fmt.Fprintf(e.stderr, "note: a server holds the catalog; the token's record went to %s and the server records it (with its audit entry) on first use or at the next start or token list\n", d.tokenSpool())
-				fmt.Fprintln(e.stdout, tok)
-				return nil
+				return e.printIssued(tok, false)
 			}
 			if err != nil {
 				return err
@@ -74,8 +73,7 @@ func newTokenCmd(e *env) *cobra.Command {
 			if err != nil {
 				return usageErr("%v", err)
 			}
-			fmt.Fprintln(e.stdout, tok)
-			return nil
+			return e.printIssued(tok, true)
 		},
 	}
 	f := issue.Flags()
@@ -303,6 +301,9 @@ func newKeyRotateCmd(e *env) *cobra.Command {
 				return err
 			}
 			e.auditKeys(d, cmd, "key.rotate", kid)
+			if e.json {
+				return writeJSON(e.stdout, map[string]string{"kid": kid, "action": "rotate"})
+			}
 			fmt.Fprintf(e.stdout, "new signing key %s\n", kid)
 			return nil
 		},
@@ -336,6 +337,9 @@ func newKeyRetireCmd(e *env) *cobra.Command {
 				return err
 			}
 			e.auditKeys(d, cmd, "key.retire", args[0])
+			if e.json {
+				return writeJSON(e.stdout, map[string]string{"kid": args[0], "action": "retire"})
+			}
 			fmt.Fprintf(e.stdout, "retired %s: its tokens no longer verify\n", args[0])
 			return nil
 		},
@@ -363,24 +367,49 @@ func newKeyListCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
+			type keyRow struct {
+				KID       string     `json:"kid"`
+				Alg       string     `json:"alg"`
+				CreatedAt *time.Time `json:"created_at,omitempty"`
+				RetiredAt *time.Time `json:"retired_at,omitempty"`
+				State     string     `json:"state"` // signs, verifies or retired
+			}
+			rows := []keyRow{}
 			active, _ := ks.Active()
-			fmt.Fprintln(e.stdout, "KID\tALG\tCREATED\tSTATE")
 			for _, k := range ks.Keys {
 				state := "verifies"
 				switch {
 				case k.RetiredAt != nil:
-					state = "retired " + stamp(*k.RetiredAt)
+					state = "retired"
 				case k.KID == active.KID:
 					state = "signs"
 				}
-				fmt.Fprintf(e.stdout, "%s\tEdDSA\t%s\t%s\n", k.KID, stamp(k.CreatedAt), state)
+				created := k.CreatedAt
+				rows = append(rows, keyRow{KID: k.KID, Alg: "EdDSA", CreatedAt: &created, RetiredAt: k.RetiredAt, State: state})
 			}
 			if a.HasLegacy() {
 				state := "verifies"
 				if len(ks.Keys) == 0 {
 					state = "signs"
 				}
-				fmt.Fprintf(e.stdout, "%s\tHS256\t-\t%s\n", server.LegacyKeyID, state)
+				rows = append(rows, keyRow{KID: server.LegacyKeyID, Alg: "HS256", State: state})
+			}
+			if e.json {
+				return writeJSON(e.stdout, rows)
+			}
+			t := &table{head: []string{"KID", "ALG", "CREATED (UTC)", "STATE"}}
+			for _, r := range rows {
+				created, state := "-", r.State
+				if r.CreatedAt != nil {
+					created = minute(*r.CreatedAt)
+				}
+				if r.RetiredAt != nil {
+					state += " " + minute(*r.RetiredAt)
+				}
+				t.add("", r.KID, r.Alg, created, state)
+			}
+			if err := t.write(e.stdout); err != nil {
+				return err
 			}
 			return nil
 		},

@@ -67,7 +67,7 @@ func newUploadCmd(e *env) *cobra.Command {
 	var uf uploadFlags
 	c := &cobra.Command{
 		Use:   "upload PROJECT/DATASET FILE",
-		Short: "Upload one export file (CSV, TSV or JSON Lines, maybe gzip) to a dataset",
+		Short: "Upload one export file (CSV, TSV or JSON Lines, maybe gzip)",
 		Long: `Upload streams FILE to the server, which checks it through the dataset's profile,
 pseudonymizes it and, if it passes, makes a new version. A version holds each event once: events
 the latest version already holds, and copies within the file, are not stored again, and the answer
@@ -100,6 +100,12 @@ Every mode makes a new immutable version whose lineage names its parent, upload 
 			if err != nil {
 				return err
 			}
+			from := &struct{ name, value string }{"from", uf.from}
+			to := &struct{ name, value string }{"to", uf.to}
+			if err := instantFlags(cmd.Context(), cl, r, e.stderr, from, to); err != nil {
+				return err
+			}
+			uf.from, uf.to = from.value, to.value
 			q, err := uf.query(filepath.Base(args[1]))
 			if err != nil {
 				return err
@@ -116,8 +122,8 @@ Every mode makes a new immutable version whose lineage names its parent, upload 
 		},
 	}
 	c.Flags().StringVar(&uf.mode, "mode", "", "append, replace-window or replace-all (default append)")
-	c.Flags().StringVar(&uf.from, "from", "", "replace-window: start of the window, RFC 3339 (inclusive)")
-	c.Flags().StringVar(&uf.to, "to", "", "replace-window: end of the window, RFC 3339 (exclusive)")
+	c.Flags().StringVar(&uf.from, "from", "", "replace-window: start of the window, RFC 3339 or a date (its start in the dataset's zone; inclusive)")
+	c.Flags().StringVar(&uf.to, "to", "", "replace-window: end of the window, RFC 3339 or a date (its start in the dataset's zone; exclusive)")
 	c.Flags().StringSliceVar(&uf.sites, "site", nil, "replace-window: a site whose events are replaced (repeatable; default the file's sites)")
 	return c
 }
@@ -185,7 +191,7 @@ func printUpload(w io.Writer, r ref, a *uploadAnswer) {
 
 func printAlerts(w io.Writer, u *catalog.Upload) {
 	for _, a := range u.Alerts {
-		fmt.Fprintf(w, "alert %s at %s: %s\n", a.Code, a.Site, a.Sentence)
+		fmt.Fprintf(w, "alert %s at %s: %s\n", a.Code, a.Site, wrap(a.Sentence, 72, "  "))
 	}
 }
 

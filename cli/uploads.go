@@ -2,7 +2,7 @@ package cli
 
 import (
 	"fmt"
-	"text/tabwriter"
+	"strings"
 
 	"github.com/spf13/cobra"
 
@@ -13,45 +13,62 @@ func newUploadsCmd(e *env) *cobra.Command {
 	return &cobra.Command{
 		Use:   "uploads PROJECT/DATASET",
 		Short: "List a dataset's uploads, accepted or not",
-		Args:  cobra.ExactArgs(1),
+		Long: `Uploads lists every upload of a dataset, oldest first: when it arrived (UTC), what became of it
+(accepted, duplicate, rejected, failed), the version it made, the file's size, its quality score
+and rejected rows, and below it the file name and what became of its events. A failed upload shows
+no size: the bytes read before it failed are in its note.`,
+		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			var ups []catalog.Upload
 			if printed, err := e.fetch(cmd, args[0], false, func(r ref) string { return r.path() + "/uploads" }, &ups); printed || err != nil {
 				return err
 			}
-			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
-			fmt.Fprintln(tw, "UPLOAD\tRECEIVED\tSTATUS\tVERSION\tBYTES\tFILE\tNOTE")
+			t := &table{head: []string{"UPLOAD", "RECEIVED (UTC)", "STATUS", "VERSION", "SIZE", "SCORE", "REJECTED"},
+				right: map[int]bool{3: true, 4: true, 5: true}}
 			for _, u := range ups {
-				note := ""
-				switch {
-				case u.Error != nil:
-					note = fmt.Sprintf("%s line %d %s", u.Error.Rule, u.Error.Line, u.Error.Column)
-				case u.Report != nil:
+				notes := []string{catalog.CleanFilename(u.Filename)}
+				size, sc, rejected := humanBytes(u.Bytes), "-", "-"
+				if u.Report != nil {
 					total := u.Report.Rows.Total
 					if u.Events != nil { // the report counts the stored events only
 						total = u.Events.Read + u.Report.Rows.Rejected
 					}
-					note = fmt.Sprintf("score %s, %d rejected of %d", score(u.Report.Score), u.Report.Rows.Rejected, total)
+					sc = score(u.Report.Score)
+					rejected = fmt.Sprintf("%d of %d rows", u.Report.Rows.Rejected, total)
 				}
-				if ev := u.Events; ev != nil && (ev.Held > 0 || ev.Copies > 0 || ev.Changed > 0) {
-					if note != "" {
-						note += "; "
+				if u.Error != nil {
+					where := u.Error.Rule
+					if u.Error.Line > 0 {
+						where += fmt.Sprintf(" at line %d", u.Error.Line)
 					}
-					note += fmt.Sprintf("already held: %d of %d", ev.Held, ev.Read)
+					if u.Error.Column != "" {
+						where += ", column " + u.Error.Column
+					}
+					if u.Status == catalog.UploadFailed {
+						// Bytes is what was read before the failure, not the file's size.
+						size = "-"
+						where = fmt.Sprintf("failed after reading %s: %s", humanBytes(u.Bytes), where)
+					}
+					notes = append(notes, where)
+				}
+				if ev := u.Events; ev != nil {
+					if ev.Held > 0 {
+						notes = append(notes, fmt.Sprintf("%d of %d events already held", ev.Held, ev.Read))
+					}
 					if ev.Copies > 0 {
-						note += fmt.Sprintf(", %d copies", ev.Copies)
+						notes = append(notes, fmt.Sprintf("%d copied rows in the file", ev.Copies))
 					}
 					if ev.Changed > 0 {
-						note += fmt.Sprintf(", %d changed", ev.Changed)
+						notes = append(notes, fmt.Sprintf("%d events changed", ev.Changed))
 					}
 				}
 				v := "-"
 				if u.Version > 0 {
 					v = fmt.Sprint(u.Version)
 				}
-				fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d\t%s\t%s\n", u.ID, stamp(u.ReceivedAt), u.Status, v, u.Bytes, catalog.CleanFilename(u.Filename), note)
+				t.add(strings.Join(notes, "; "), u.ID.String(), minute(u.ReceivedAt), string(u.Status), v, size, sc, rejected)
 			}
-			return tw.Flush()
+			return t.write(e.stdout)
 		},
 	}
 }

@@ -23,7 +23,7 @@ type verifyProblem struct {
 func newVerifyCmd(e *env) *cobra.Command {
 	return &cobra.Command{
 		Use:   "verify DIR",
-		Short: "Check a pulled directory against its pin file and manifest, offline",
+		Short: "Check a pulled directory against its pin and manifest, offline",
 		Long: `Verify checks, without a server, that DIR holds exactly the version its flowcat.pin (or the
 flowcat.lock of older releases) names: manifest.json hashes to the snapshot id, every file the
 manifest lists (and quality.json, the report it names) is there with its sha256, and nothing

@@ -4,17 +4,15 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"maps"
 	"net/http"
 	"net/url"
 	"os"
 	"path/filepath"
-	"slices"
 	"strings"
-	"text/tabwriter"
 
 	"github.com/spf13/cobra"
 
+	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
 )
 
@@ -27,8 +25,8 @@ type filterFlags struct {
 
 func (f *filterFlags) add(c *cobra.Command, withTypes, withColumns bool) {
 	fl := c.Flags()
-	fl.StringVar(&f.from, "from", "", "only events at or after this RFC 3339 instant")
-	fl.StringVar(&f.to, "to", "", "only events before this RFC 3339 instant")
+	fl.StringVar(&f.from, "from", "", "only events at or after this RFC 3339 instant, or date (the start of that day in the dataset's zone)")
+	fl.StringVar(&f.to, "to", "", "only events before this RFC 3339 instant, or date (the start of that day in the dataset's zone)")
 	fl.StringSliceVar(&f.sites, "site", nil, "only these sites (repeatable or comma-separated)")
 	fl.StringSliceVar(&f.queues, "queue", nil, "only these queues")
 	fl.StringSliceVar(&f.activities, "activity", nil, "only these activities")
@@ -61,7 +59,7 @@ func newSummaryCmd(e *env) *cobra.Command {
 	var ff filterFlags
 	c := &cobra.Command{
 		Use:   "summary PROJECT/DATASET[@VERSION] [filters]",
-		Short: "Show a version's operational summary: arrivals, waits, patience, service times, stays, occupancy",
+		Short: "Show a version's arrivals, waits, services, stays, occupancy",
 		Long: `Summary prints the summary stored with a version. With --site, --from or --to the server computes
 it from the version's files for those events only; --queue and --activity restrict the queue and
 activity tables. The figures describe past operations; they are not advice on any patient's care.`,
@@ -73,6 +71,9 @@ activity tables. The figures describe past operations; they are not advice on an
 			}
 			cl, err := e.client()
 			if err != nil {
+				return err
+			}
+			if err := ff.resolveDates(cmd.Context(), cl, r, e.stderr); err != nil {
 				return err
 			}
 			resp, err := cl.do(cmd.Context(), http.MethodGet, r.versionPath()+"/summary", ff.query(), nil, nil)
@@ -127,28 +128,12 @@ func (e *env) download(cmd *cobra.Command, cl *client, path string, q url.Values
 	return n, os.Rename(tmp.Name(), out)
 }
 
-// save downloads path to out (- for stdout) and says what it wrote.
-func (e *env) save(cmd *cobra.Command, path string, q url.Values, out string) error {
-	cl, err := e.client()
-	if err != nil {
-		return err
-	}
-	n, err := e.download(cmd, cl, path, q, out)
-	if err != nil {
-		return err
-	}
-	if out != "-" && !e.quiet {
-		fmt.Fprintf(e.stderr, "wrote %s (%d bytes)\n", out, n)
-	}
-	return nil
-}
-
 func newExportCmd(e *env) *cobra.Command {
 	var ff filterFlags
 	var out, format, layout string
 	c := &cobra.Command{
-		Use:   "export PROJECT/DATASET[@VERSION] -o FILE [--format parquet|csv] [filters] | --layout DIR|s3://BUCKET/PREFIX",
-		Short: "Download a version, or the events and columns you choose, as one Parquet or CSV file, or as a partitioned layout",
+		Use:   "export PROJECT/DATASET[@VERSION] (-o FILE | --layout DIR|s3://B/P) [flags]",
+		Short: "Download a version, or chosen events, as Parquet or CSV, or as a layout",
 		Long: `Export writes one file holding a version's events in a fixed order (time, then content): the same
 request always gives the same bytes. Filters keep a time window, sites, queues, event types,
 activities and columns; the server reads only the row groups they need. CSV follows RFC 4180.
@@ -177,9 +162,18 @@ engines read it in place and read only the partitions a query's site and date co
 			if format != "parquet" && format != "csv" {
 				return usageErr("export: --format %q: want parquet or csv", format)
 			}
+			if ff.from != "" || ff.to != "" {
+				cl, err := e.client()
+				if err != nil {
+					return err
+				}
+				if err := ff.resolveDates(cmd.Context(), cl, r, e.stderr); err != nil {
+					return err
+				}
+			}
 			q := ff.query()
 			q.Set("format", format)
-			return e.save(cmd, r.versionPath()+"/export", q, out)
+			return e.saveVersion(cmd, r, "/export", q, format, out)
 		},
 	}
 	ff.add(c, true, true)
@@ -193,7 +187,7 @@ func newBundleCmd(e *env) *cobra.Command {
 	var out, format string
 	c := &cobra.Command{
 		Use:   "bundle PROJECT/DATASET[@VERSION] -o FILE [--format tar|zip]",
-		Short: "Download a version as one archive: Parquet files, manifest, dictionary, README, checksums, CITATION.cff",
+		Short: "Download a version as one archive, with README and citation",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			r, err := parseRef(args[0], true)
@@ -206,7 +200,7 @@ func newBundleCmd(e *env) *cobra.Command {
 			if format != "tar" && format != "zip" {
 				return usageErr("bundle: --format %q: want tar or zip", format)
 			}
-			return e.save(cmd, r.versionPath()+"/bundle", url.Values{"format": {format}}, out)
+			return e.saveVersion(cmd, r, "/bundle", url.Values{"format": {format}}, format, out)
 		},
 	}
 	c.Flags().StringVarP(&out, "output", "o", "", "file to write (- for stdout)")
@@ -228,8 +222,28 @@ func newCiteCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
-			_, err = e.download(cmd, cl, r.versionPath()+"/citation", nil, "-")
-			return err
+			if !e.json {
+				_, err = e.download(cmd, cl, r.versionPath()+"/citation", nil, "-")
+				return err
+			}
+			var v catalog.Version
+			if err := cl.getJSON(cmd.Context(), r.versionPath(), &v); err != nil {
+				return err
+			}
+			resp, err := cl.do(cmd.Context(), http.MethodGet, r.at(v.Number).versionPath()+"/citation", nil, nil, nil)
+			if err != nil {
+				return err
+			}
+			defer resp.Body.Close()
+			cff, err := io.ReadAll(resp.Body)
+			if err != nil {
+				return fmt.Errorf("cite: %w", err)
+			}
+			c, err := citationJSON(&v, cff)
+			if err != nil {
+				return err
+			}
+			return writeJSON(e.stdout, c)
 		},
 	}
 }
@@ -264,7 +278,7 @@ func newDiffCmd(e *env) *cobra.Command {
 	var ff filterFlags
 	c := &cobra.Command{
 		Use:   "diff PROJECT/DATASET@A PROJECT/DATASET@B [filters]",
-		Short: "Compare two versions by content: events added and removed per site and day, quality and summary deltas",
+		Short: "Compare two versions: events, quality and summary",
 		Args:  cobra.ExactArgs(2),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			a, err := parseRef(args[0], true)
@@ -284,13 +298,16 @@ func newDiffCmd(e *env) *cobra.Command {
 				}
 				return r.Selector
 			}
-			q := ff.query()
-			q.Set("a", sel(a))
-			q.Set("b", sel(b))
 			cl, err := e.client()
 			if err != nil {
 				return err
 			}
+			if err := ff.resolveDates(cmd.Context(), cl, a, e.stderr); err != nil {
+				return err
+			}
+			q := ff.query()
+			q.Set("a", sel(a))
+			q.Set("b", sel(b))
 			resp, err := cl.do(cmd.Context(), http.MethodGet, a.path()+"/diff", q, nil, nil)
 			if err != nil {
 				return err
@@ -308,35 +325,7 @@ func newDiffCmd(e *env) *cobra.Command {
 			if err := json.Unmarshal(raw, &d); err != nil {
 				return fmt.Errorf("diff: %w", err)
 			}
-			ds := a.Project + "/" + a.Dataset
-			fmt.Fprintf(e.stdout, "%s@%d -> @%d: %d events added, %d removed, %d the same (%d files shared, %d rows)\n",
-				ds, d.From.Version, d.To.Version, d.Events.Added, d.Events.Removed, d.Events.Same+d.Events.SharedRows, d.Events.SharedFiles, d.Events.SharedRows)
-			if len(d.Events.BySite) > 0 {
-				tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
-				fmt.Fprintln(tw, "\nSITE\tDAY (UTC)\tADDED\tREMOVED")
-				for _, c := range d.Events.BySite {
-					fmt.Fprintf(tw, "%s\t%s\t%d\t%d\n", c.Site, c.Day, c.Added, c.Removed)
-				}
-				tw.Flush()
-			}
-			if v, ok := d.Quality["score"]; ok {
-				fmt.Fprintf(e.stdout, "\nquality score %+.1f", v)
-				for _, k := range slices.Sorted(maps.Keys(d.Quality)) {
-					if x := d.Quality[k]; k != "score" && x != 0 {
-						fmt.Fprintf(e.stdout, ", %s %+.1f", k, x)
-					}
-				}
-				fmt.Fprintln(e.stdout)
-			}
-			var parts []string
-			for _, k := range []string{"events", "cases.value", "arrivals.total", "length_of_stay.p50", "occupancy.peak"} {
-				if v := d.Summary[k]; v != nil && *v != 0 {
-					parts = append(parts, fmt.Sprintf("%s %+g", k, *v))
-				}
-			}
-			if len(parts) > 0 {
-				fmt.Fprintf(e.stdout, "summary: %s\n", strings.Join(parts, ", "))
-			}
+			printDiff(e.stdout, a.Project+"/"+a.Dataset, &d)
 			return nil
 		},
 	}

@@ -439,10 +439,19 @@ func TestText(t *testing.T) {
 	if !strings.Contains(color.String(), "\x1b[") {
 		t.Error("no colour")
 	}
-	for _, want := range []string{"quality report v4", "site", "(all)", "north", "exact_duplicate", "resource_overlap", "accuracy",
+	// Sentences are wrapped to TextWidth; compare them with the line
+	// breaks taken out.
+	flat := strings.Join(strings.Fields(plain.String()), " ")
+	for _, want := range []string{"quality report (format 4)", "site", "(all)", "north", "exact_duplicate", "resource_overlap", "accuracy",
+		"complete", "consistent", "currentness and uniqueness",
 		"what the findings mean", "exact_duplicate: " + whyOf(CodeExactDuplicate), "first rejected rows", "bad_timestamp: line 3"} {
-		if !strings.Contains(plain.String(), want) {
+		if !strings.Contains(flat, want) {
 			t.Errorf("text lacks %q:\n%s", want, plain.String())
+		}
+	}
+	for i, l := range strings.Split(plain.String(), "\n") {
+		if n := len([]rune(l)); n > TextWidth {
+			t.Errorf("line %d is %d columns wide, over %d: %q", i+1, n, TextWidth, l)
 		}
 	}
 }

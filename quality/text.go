@@ -24,11 +24,12 @@ const (
 func (r *Report) Text(w io.Writer, color bool) error {
 	bw := bufio.NewWriter(w)
 	p := &painter{color: color}
-	fmt.Fprintf(bw, "%s  score %s\n", p.bold("quality report v"+r.Version), p.score(r.Score, 0))
+	// "format", not "v": the report's own format, never a dataset version.
+	fmt.Fprintf(bw, "%s  score %s\n", p.bold("quality report (format "+r.Version+")"), p.score(r.Score, 0))
 	fmt.Fprintf(bw, "rows   %d total, %d accepted, %d rejected (%s)\n",
 		r.Rows.Total, r.Rows.Accepted, r.Rows.Rejected, percent(r.RejectedShare()))
 	if r.TimeRange.First != nil {
-		fmt.Fprintf(bw, "time   %s .. %s, resolution %s (%s)\n", r.TimeRange.First.Format(time.RFC3339),
+		fmt.Fprintf(bw, "time   %s .. %s\n       resolution %s (%s)\n", r.TimeRange.First.Format(time.RFC3339),
 			r.TimeRange.Last.Format(time.RFC3339), r.Resolution.Grid, r.Resolution.Zone)
 	}
 	fmt.Fprintf(bw, "sites  %d distinct", r.Sites.Distinct)
@@ -64,9 +65,10 @@ func (r *Report) Text(w io.Writer, color bool) error {
 		rows = append(rows, row)
 	}
 	p.table(bw, rows, map[int]bool{0: true}, true)
+	bw.WriteString(dimensionLegend)
 
 	if r.Raw.ResourcePeak > 0 {
-		fmt.Fprintf(bw, "\nresource capacity %d (set); at most %d services open at one resource at once (in the data)\n",
+		fmt.Fprintf(bw, "\nresource capacity %d (set); in the data, at most %d services open at one\nresource at once\n",
 			r.Raw.Settings.ResourceCapacity, r.Raw.ResourcePeak)
 		for _, c := range r.Raw.CapacityPeaks {
 			what := "queue " + c.Queue
@@ -103,7 +105,17 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	}
 
 	// Findings.
-	frows := [][]string{{"dimension", "finding", "count", "share", "of", "where"}}
+	// Findings, under a heading per dimension (a dimension column would
+	// not fit 80 columns).
+	frows := [][]string{{"finding", "count", "share", "of"}}
+	var where []string
+	group := ""
+	heading := func(name string) {
+		if name != group {
+			frows = append(frows, []string{name})
+			group = name
+		}
+	}
 	for d, f := range r.Findings() {
 		code := f.Code
 		if f.Field != "" {
@@ -115,15 +127,29 @@ func (r *Report) Text(w io.Writer, color bool) error {
 		if f.Informational {
 			code += " (info)"
 		}
-		frows = append(frows, []string{d.Name, code, strconv.FormatInt(f.Count, 10), percent(f.Share), f.Of, sampleLines(f.Samples)})
+		heading(d.Name)
+		frows = append(frows, []string{"  " + code, strconv.FormatInt(f.Count, 10), percent(f.Share), f.Of})
+		if sl := sampleLines(f.Samples); sl != "" {
+			where = append(where, f.Code+": "+sl)
+		}
 	}
 	for i := range r.Internal {
 		f := &r.Internal[i]
-		frows = append(frows, []string{"internal", f.Code, strconv.FormatInt(f.Count, 10), percent(f.Share), f.Of, sampleLines(f.Samples)})
+		heading("internal")
+		frows = append(frows, []string{"  " + f.Code, strconv.FormatInt(f.Count, 10), percent(f.Share), f.Of})
+		if sl := sampleLines(f.Samples); sl != "" {
+			where = append(where, f.Code+": "+sl)
+		}
 	}
 	if len(frows) > 1 {
 		bw.WriteString("\n")
-		p.table(bw, frows, map[int]bool{0: true, 1: true, 4: true, 5: true}, false)
+		p.table(bw, frows, map[int]bool{0: true, 3: true}, false)
+	}
+	if len(where) > 0 {
+		bw.WriteString("\n" + p.bold("where to look (first samples)") + "\n")
+		for _, s := range where {
+			bw.WriteString("  " + wrapText(s, TextWidth-2, "    ") + "\n")
+		}
 	}
 
 	// What each finding found means, once per code.
@@ -141,7 +167,7 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	if len(sentences) > 0 {
 		bw.WriteString("\n" + p.bold("what the findings mean") + "\n")
 		for _, s := range sentences {
-			bw.WriteString("  " + s + "\n")
+			bw.WriteString("  " + wrapText(s, TextWidth-2, "    ") + "\n")
 		}
 	}
 	// The first rejected rows, where to look.
@@ -172,18 +198,55 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	if len(rej) > 0 {
 		bw.WriteString("\n" + p.bold("first rejected rows") + "\n")
 		for _, s := range rej {
-			bw.WriteString("  " + strings.Replace(s, "\t", ": ", 1) + "\n")
+			bw.WriteString("  " + wrapText(strings.Replace(s, "\t", ": ", 1), TextWidth-2, "    ") + "\n")
 		}
 	}
 	return bw.Flush()
 }
 
-// abbrev shortens a dimension name for table heads.
+// TextWidth is the width, in columns, the text forms fit: an ordinary
+// terminal's 80.
+const TextWidth = 80
+
+// abbrev names a dimension in table heads: its adjective, which is
+// shorter and still a word (the legend below the table names the
+// dimension).
 func abbrev(name string) string {
-	if len(name) > 6 {
-		return name[:6]
+	if a, ok := dimensionHeads[name]; ok {
+		return a
 	}
 	return name
+}
+
+var dimensionHeads = map[string]string{
+	DimCompleteness: "complete", DimAccuracy: "accurate", DimConsistency: "consistent",
+	DimCurrentness: "current", DimUniqueness: "unique",
+}
+
+// dimensionLegend follows every table of sub-scores.
+const dimensionLegend = "sub-scores 0-100 of the dimensions completeness, accuracy, consistency,\n" +
+	"currentness and uniqueness; - where there is nothing to measure\n"
+
+// wrapText breaks s at spaces into lines of at most width runes, each
+// after the first starting with indent; a longer word keeps its own line.
+func wrapText(s string, width int, indent string) string {
+	var b strings.Builder
+	col := 0
+	for i, w := range strings.Fields(s) {
+		n := len([]rune(w))
+		switch {
+		case i == 0:
+		case col+1+n > width:
+			b.WriteString("\n" + indent)
+			col = len([]rune(indent))
+		default:
+			b.WriteByte(' ')
+			col++
+		}
+		b.WriteString(w)
+		col += n
+	}
+	return b.String()
 }
 
 // table writes rows as aligned columns; left marks left-aligned columns.
@@ -215,7 +278,7 @@ func (p *painter) table(w *bufio.Writer, rows [][]string, left map[int]bool, sco
 				b.WriteString(pad + cell)
 			}
 		}
-		line := b.String()
+		line := strings.TrimRight(b.String(), " ")
 		if ri == 0 {
 			line = p.bold(line)
 		}

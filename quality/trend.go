@@ -242,7 +242,7 @@ func WriteTrend(w io.Writer, points []TrendPoint, alerts []Alert, color bool) er
 			scores = append(scores, pt.Score)
 		}
 		fmt.Fprintf(bw, "%s  %s\n", p.bold(siteName(site)), sparkline(scores))
-		head := []string{"upload", "received", "events", "score"}
+		head := []string{"id", "received", "events", "score"} // "id": the upload's; "upload" would push the table past 80 columns
 		for _, dw := range dimensionWeights {
 			head = append(head, abbrev(dw.name))
 		}
@@ -257,6 +257,9 @@ func WriteTrend(w io.Writer, points []TrendPoint, alerts []Alert, color bool) er
 		p.scoreTable(bw, rows)
 		bw.WriteString("\n")
 	}
+	if len(points) > 0 {
+		bw.WriteString(dimensionLegend + "\n")
+	}
 	if len(alerts) > 0 {
 		bw.WriteString(p.bold("alerts") + "\n")
 		for _, a := range alerts {
@@ -264,7 +267,7 @@ func WriteTrend(w io.Writer, points []TrendPoint, alerts []Alert, color bool) er
 			if color {
 				code = ansiRed + code + ansiReset
 			}
-			fmt.Fprintf(bw, "%s %s %s: %s\n", code, a.Site, a.Metric, a.Sentence)
+			fmt.Fprintf(bw, "%s %s %s:\n  %s\n", code, a.Site, a.Metric, wrapText(a.Sentence, TextWidth-2, "  "))
 		}
 	}
 	return bw.Flush()

@@ -28,6 +28,33 @@ func sparkline(vs []float64) string {
 	return b.String()
 }
 
+// weekGrid draws an hour-of-week series (168 values from Monday 00:00) as
+// seven lines of 24, one per day, on one scale: a 168-character line does
+// not fit a terminal.
+func weekGrid(vs []float64) []string {
+	if len(vs) != 168 {
+		return []string{sparkline(vs)}
+	}
+	line := []rune(sparkline(vs))
+	days := []string{"Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun"}
+	out := make([]string, 7)
+	for d := range out {
+		out[d] = days[d] + " " + string(line[24*d:24*d+24])
+	}
+	return out
+}
+
+// hourRuler marks the hours under a 24-character sparkline.
+const hourRuler = "0     6     12    18"
+
+// named shows an empty queue or activity name as such.
+func named(s string) string {
+	if s == "" {
+		return "(none)"
+	}
+	return s
+}
+
 func means(rs []Rate) []float64 {
 	out := make([]float64, len(rs))
 	for i, r := range rs {
@@ -45,7 +72,8 @@ func dur(s float64) string {
 }
 
 // Text writes s as small readable tables with sparkline arrival profiles
-// (24 hours and 168 hours from Monday 00:00); headings are bold when
+// (24 hours, and 168 hours from Monday 00:00 as a line per day), fitting
+// 80 columns but for long names; headings are bold when
 // color is true. It returns the first write error.
 func (s *Summary) Text(w io.Writer, color bool) error {
 	bold := func(t string) string {
@@ -58,7 +86,8 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 	p := func(format string, args ...any) { fmt.Fprintf(tw, format, args...) }
 	p("%s\n", bold("Summary"))
 	if s.From != nil {
-		p("period\t%s .. %s (%s, %d hours of exposure)\n", s.From.Format(time.RFC3339), s.To.Format(time.RFC3339), s.Timezone, s.ExposureHours)
+		p("period\t%s .. %s\n", s.From.Format(time.RFC3339), s.To.Format(time.RFC3339))
+		p("\t%s, %d hours of exposure\n", s.Timezone, s.ExposureHours)
 		if x := s.Excluded; x.LaterThanUpload+x.OutsideWindow+x.ExactDuplicates > 0 {
 			p("left out\t%d later than their upload, %d outside the window, %d exact copies\n", x.LaterThanUpload, x.OutsideWindow, x.ExactDuplicates)
 		}
@@ -72,13 +101,17 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 	p("events\t%d\tcases\t%s\tsubjects\t%s\tresources\t%s\n", s.Events, approx(s.Cases), approx(s.Subjects), approx(s.Resources))
 	p("\n%s\n", bold("Arrivals per hour"))
 	p("all, by hour of day\t%s\n", sparkline(means(s.Arrivals.HourOfDay)))
-	p("all, by hour of week\t%s\n", sparkline(means(s.Arrivals.HourOfWeek)))
 	for _, x := range s.Sites {
 		p("site %s, by hour of day\t%s\n", x.Name, sparkline(means(x.Arrivals.HourOfDay)))
 	}
 	for _, x := range s.Queues {
-		p("queue %s, by hour of day\t%s\n", x.Name, sparkline(means(x.Arrivals.HourOfDay)))
+		p("queue %s, by hour of day\t%s\n", named(x.Name), sparkline(means(x.Arrivals.HourOfDay)))
 	}
+	p("\t%s\n", hourRuler)
+	for i, l := range weekGrid(means(s.Arrivals.HourOfWeek)) {
+		p("%s\t%s\n", map[bool]string{true: "all, by hour of week"}[i == 0], l)
+	}
+	p("\t    %s\n", hourRuler)
 	if len(s.Queues) > 0 {
 		p("\n%s\n", bold("Waiting"))
 		p("queue\tn\tmean\tp50\tp90\tp95\tp99\tabandoned\tpatience median\n")
@@ -87,7 +120,7 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 			if q.Patience != nil && float64(q.Patience.Median) == float64(q.Patience.Median) {
 				med = dur(float64(q.Patience.Median))
 			}
-			p("%s\t%d\t%s\t%s\t%s\t%s\t%s\t%.1f%%\t%s\n", q.Name, q.Wait.N, dur(q.Wait.Mean), dur(q.Wait.P50),
+			p("%s\t%d\t%s\t%s\t%s\t%s\t%s\t%.1f%%\t%s\n", named(q.Name), q.Wait.N, dur(q.Wait.Mean), dur(q.Wait.P50),
 				dur(q.Wait.P90), dur(q.Wait.P95), dur(q.Wait.P99), 100*q.Wait.AbandonShare, med)
 		}
 	}
@@ -128,9 +161,13 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 		// L would count the log's length, not the cases present.
 		p("not measurable: %s\n", noCensus)
 	} else {
-		p("by hour of week\t%s\n", sparkline(o.HourOfWeek))
+		for i, l := range weekGrid(o.HourOfWeek) {
+			p("%s\t%s\n", map[bool]string{true: "by hour of week"}[i == 0], l)
+		}
+		p("\t    %s\n", hourRuler)
 		p("peak (bucket mean)\t%.2f\n", o.Peak)
-		p("Little: L (census)\t%.3f\tλW (stays)\t%.3f\tratio\t%.4f\tentries\t%d\texits\t%d\topen\t%d\n", o.Little.L, o.Little.LambdaW, o.Little.Ratio, o.Little.Entries, o.Little.Exits, o.Little.Open)
+		p("Little: L (census)\t%.3f\tλW (stays)\t%.3f\tratio\t%.4f\n", o.Little.L, o.Little.LambdaW, o.Little.Ratio)
+		p("\tentries %d\texits %d\topen %d\n", o.Little.Entries, o.Little.Exits, o.Little.Open)
 	}
 	if pr := s.Process; pr != nil {
 		if len(pr.DirectlyFollows) > 0 {

@@ -57,3 +57,28 @@ func TestStepsByInstance(t *testing.T) {
 		}
 	}
 }
+
+// An enqueue, its start and its complete are one instance; an abandon
+// ends a queued instance.
+func TestStepsWithQueues(t *testing.T) {
+	ev := func(typ schema.EventType, act string) *schema.Event { return &schema.Event{Type: typ, Activity: act} }
+	var s Steps
+	for i, c := range []struct {
+		e    *schema.Event
+		step bool
+	}{
+		{ev(schema.Arrival, ""), false},
+		{ev(schema.Enqueue, "triage"), true},
+		{ev(schema.Start, "triage"), false},
+		{ev(schema.Complete, "triage"), false},
+		{ev(schema.Enqueue, "consult"), true},
+		{ev(schema.Abandon, "consult"), false},
+		{ev(schema.Enqueue, "consult"), true},
+		{ev(schema.Complete, "consult"), false}, // lost start: still the queued instance
+		{ev(schema.Abandon, "lab"), true},       // nothing open: a step of its own
+	} {
+		if got := s.Step(c.e); got != c.step {
+			t.Errorf("event %d (%s %s): step %v, want %v", i, c.e.Type, c.e.Activity, got, c.step)
+		}
+	}
+}

@@ -1,0 +1,56 @@
+package cli
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"time"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
+)
+
+// dateOnly is the layout of a date without a time, RFC 3339's full-date.
+const dateOnly = "2006-01-02"
+
+// instantFlags turns date-only values of flags that ask for an instant
+// (--from 2026-03-01) into the start of that day in the dataset's zone,
+// and says so on w, so that the window is never a surprise. Values with a
+// time are left for the server to check. It fetches the dataset only when
+// some value is a date.
+func instantFlags(ctx context.Context, cl *client, r ref, w io.Writer, flags ...*struct{ name, value string }) error {
+	var zone *time.Location
+	var zoneName string
+	for _, f := range flags {
+		day, err := time.Parse(dateOnly, f.value)
+		if f.value == "" || err != nil {
+			continue
+		}
+		if zone == nil {
+			var d catalog.Dataset
+			if err := cl.getJSON(ctx, r.path(), &d); err != nil {
+				return usageErr("--%s %s: a date is taken in the dataset's zone, which could not be read (%v); give an RFC 3339 instant with its offset, such as %sT00:00:00Z",
+					f.name, f.value, err, f.value)
+			}
+			zoneName = d.Timezone
+			if zone, err = time.LoadLocation(d.Timezone); err != nil || d.Timezone == "" {
+				zone, zoneName = time.UTC, "UTC"
+			}
+		}
+		start := time.Date(day.Year(), day.Month(), day.Day(), 0, 0, 0, 0, zone)
+		fmt.Fprintf(w, "--%s %s: taken as the start of that day in the dataset's zone, %s: %s\n",
+			f.name, f.value, zoneName, start.Format(time.RFC3339))
+		f.value = start.Format(time.RFC3339)
+	}
+	return nil
+}
+
+// resolveDates applies instantFlags to the filter's --from and --to.
+func (f *filterFlags) resolveDates(ctx context.Context, cl *client, r ref, w io.Writer) error {
+	from := &struct{ name, value string }{"from", f.from}
+	to := &struct{ name, value string }{"to", f.to}
+	if err := instantFlags(ctx, cl, r, w, from, to); err != nil {
+		return err
+	}
+	f.from, f.to = from.value, to.value
+	return nil
+}
