@@ -386,6 +386,12 @@ func (rd *Reader) readAttr(start xml.StartElement, line int64, path string, into
 		if len(into) >= rd.lim.MaxColumns {
 			return rd.fileErr(RuleTooManyColumns, line, "", fmt.Sprintf("a trace or event has more than %d attributes, the limit (max columns)", rd.lim.MaxColumns), nil)
 		}
+		if _, dup := into[path]; dup {
+			// Keys are unique among an element's attributes (a list's
+			// items are told apart by position); keeping one of two
+			// would be a silent choice.
+			return rd.fileErr(RuleXESStructure, line, key, fmt.Sprintf("attribute %q appears twice in one trace, event or attribute", clip(path)), nil)
+		}
 		into[path] = val
 	}
 	return rd.readChildren(start, line, path+"/", into, depth+1)

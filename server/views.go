@@ -198,12 +198,15 @@ func (s *Server) exportVersion(c echo.Context) error {
 	if format == "" {
 		format = "parquet"
 	}
-	if format != "parquet" && format != "csv" {
-		return fail(http.StatusBadRequest, "invalid", "format %q: want parquet or csv", truncateParam(format))
+	if format != "parquet" && format != "csv" && format != "xes" {
+		return fail(http.StatusBadRequest, "invalid", "format %q: want parquet, csv or xes", truncateParam(format))
 	}
 	f, err := parseFilter(q)
 	if err != nil {
 		return err
+	}
+	if format == "xes" && len(f.Columns) > 0 {
+		return fail(http.StatusBadRequest, "invalid", "columns: an XES export writes every field (a trace per case needs case_id)")
 	}
 	tag := requestTag(v, format, f)
 	name := fmt.Sprintf("%s-v%d", strings.ReplaceAll(v.Dataset.String(), "/", "-"), v.Number)
@@ -218,12 +221,20 @@ func (s *Server) exportVersion(c echo.Context) error {
 	}
 	ctx := c.Request().Context()
 	w := c.Response()
-	if format == "csv" {
+	switch format {
+	case "xes":
+		h.Set(echo.HeaderContentType, "application/xml; charset=utf-8")
+		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.xes"`, name))
+		w.WriteHeader(http.StatusOK)
+		_, err = export.WriteXES(ctx, w, s.source(), v.Manifest.Files, f, export.XESOptions{
+			Dataset: v.Dataset.String(), Version: v.Number, SnapshotID: v.SnapshotID.String(),
+		})
+	case "csv":
 		h.Set(echo.HeaderContentType, "text/csv; charset=utf-8; header=present")
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.csv"`, name))
 		w.WriteHeader(http.StatusOK)
 		_, err = export.WriteCSV(ctx, w, s.source(), v.Manifest.Files, f)
-	} else {
+	default:
 		h.Set(echo.HeaderContentType, "application/vnd.apache.parquet")
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.parquet"`, name))
 		w.WriteHeader(http.StatusOK)
