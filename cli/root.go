@@ -14,6 +14,8 @@ import (
 
 	"github.com/mattn/go-isatty"
 	"github.com/spf13/cobra"
+
+	"github.com/flowcat-catalog/flowcat/server"
 )
 
 // Exit codes scripts rely on.
@@ -90,6 +92,11 @@ scores their quality and keeps immutable, versioned Parquet snapshots that stude
 		SilenceErrors: true,
 		SilenceUsage:  true,
 	}
+	// flowcat --version: the module version and VCS revision the Go
+	// toolchain recorded in the binary.
+	version, goVersion := server.BuildVersion()
+	root.Version = version + " (" + goVersion + ")"
+	root.SetVersionTemplate("flowcat {{.Version}}\n")
 	root.SetFlagErrorFunc(func(c *cobra.Command, err error) error {
 		return &exitError{code: ExitUsage, err: fmt.Errorf("%w\n%s", err, c.UsageString())}
 	})
@@ -107,7 +114,7 @@ scores their quality and keeps immutable, versioned Parquet snapshots that stude
 		newPullCmd(e), newVerifyCmd(e), newQualityCmd(e),
 		newPublishCmd(e), newRetractCmd(e), newGCCmd(e),
 		newAlertsCmd(e), newSummaryCmd(e), newExportCmd(e), newBundleCmd(e), newCiteCmd(e), newDiffCmd(e),
-		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e),
+		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e), newReadyCmd(e),
 	)
 	for _, c := range root.Commands() {
 		wrapArgs(c)

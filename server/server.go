@@ -51,6 +51,8 @@ type Server struct {
 	cfg    Config
 	echo   *echo.Echo
 	routes []route
+	// metrics are served at /metrics (metrics.go).
+	metrics *promMetrics
 
 	mu        sync.Mutex
 	uploading map[string]int // uploads in progress per token id
@@ -74,10 +76,11 @@ func New(cfg Config) *Server {
 	e.HideBanner = true
 	e.HidePort = true
 	e.HTTPErrorHandler = errorHandler(cfg.Logger)
-	s := &Server{cfg: cfg, echo: e, uploading: map[string]int{}}
+	s := &Server{cfg: cfg, echo: e, uploading: map[string]int{}, metrics: newMetrics()}
 	e.Use(middleware.Recover())
 	e.Use(middleware.RequestID())
 	e.Use(s.accessLog)
+	e.Use(s.metrics.instrument)
 
 	e.Pre(wellFormedQuery)
 	index := func(c echo.Context) error { return c.HTMLBlob(http.StatusOK, web.Index) }
@@ -94,6 +97,9 @@ func New(cfg Config) *Server {
 		{method: "GET", path: "/view/:project/:dataset", h: view, public: true},
 		{method: "GET", path: "/view/:project/:dataset/:version", h: view, public: true},
 		{method: "GET", path: api + "/health", h: s.health, public: true},
+		{method: "GET", path: "/healthz", h: s.healthz, public: true},
+		{method: "GET", path: "/readyz", h: s.readyz, public: true},
+		{method: "GET", path: "/metrics", h: s.serveMetrics, public: true},
 		{method: "GET", path: api + "/schema", h: s.schema, public: true},
 		{method: "GET", path: api + "/projects", h: s.listProjects},
 		{method: "POST", path: api + "/projects", h: s.createProject},
