@@ -183,4 +183,3 @@ fields:
   outcome: "outcome"
   event_id: "event_id"
 `
-
