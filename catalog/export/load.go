@@ -35,23 +35,23 @@ func LoadLines(zone string) []LoadLine {
 	}, zone)
 	return []LoadLine{
 		{
-			Tool:  "DuckDB",
-			Needs: "the duckdb command (duckdb.org)",
+			Tool:    "DuckDB",
+			Needs:   "the duckdb command (duckdb.org)",
 			Command: fmt.Sprintf(`duckdb -c "SELECT *, timezone('%s', occurred_at) AS local_time FROM read_parquet('data/*.parquet') ORDER BY occurred_at LIMIT 10"`, z),
 		},
 		{
-			Tool:  "Polars",
-			Needs: "pip install polars",
+			Tool:    "Polars",
+			Needs:   "pip install polars",
 			Command: fmt.Sprintf(`python3 -c "import polars as pl; df = pl.read_parquet('data/*.parquet').with_columns(local_time=pl.col('occurred_at').dt.convert_time_zone('%s')); print(df)"`, z),
 		},
 		{
-			Tool:  "pandas (pyarrow)",
-			Needs: "pip install pandas pyarrow",
+			Tool:    "pandas (pyarrow)",
+			Needs:   "pip install pandas pyarrow",
 			Command: fmt.Sprintf(`python3 -c "import pyarrow.dataset as ds; df = ds.dataset('data', format='parquet').to_table().to_pandas(); df['local_time'] = df['occurred_at'].dt.tz_convert('%s'); print(df)"`, z),
 		},
 		{
-			Tool:  "R (arrow)",
-			Needs: `install.packages(c("arrow", "dplyr"))`,
+			Tool:    "R (arrow)",
+			Needs:   `install.packages(c("arrow", "dplyr"))`,
 			Command: fmt.Sprintf(`Rscript -e 'df <- dplyr::collect(arrow::open_dataset("data")); df$local_time <- df$occurred_at; attr(df$local_time, "tzone") <- "%s"; print(head(df))'`, z),
 		},
 	}
