@@ -237,7 +237,7 @@ func TestEndToEnd(t *testing.T) {
 	if code != 0 || !strings.Contains(out, "verified") {
 		t.Fatalf("pull: exit %d, %q %q", code, out, errs)
 	}
-	checkPullLoadLines(t, out, snap)
+	checkPullLoadLines(t, out, snap, "Europe/Lisbon")
 	lockBytes, err := os.ReadFile(filepath.Join(snap, "flowcat.pin"))
 	if err != nil {
 		t.Fatal(err)

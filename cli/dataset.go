@@ -134,6 +134,6 @@ correction that replaces the old event in the new version (correct).`,
 			return nil
 		},
 	}
-	c.AddCommand(create, list, changesCmd)
+	c.AddCommand(create, list, changesCmd, newMetadataCmd(e))
 	return c
 }

@@ -9,7 +9,6 @@ import (
 	"io"
 	"io/fs"
 	"net/http"
-	"net/url"
 	"os"
 	"path/filepath"
 	"slices"
@@ -184,7 +183,7 @@ func printLoadLines(cmd *cobra.Command, e *env, cl *client, r ref, out string) {
 	}
 	var d catalog.Dataset
 	zone := "UTC"
-	if err := cl.getJSON(cmd.Context(), "/api/v1/projects/"+url.PathEscape(r.Project)+"/datasets/"+url.PathEscape(r.Dataset), &d); err == nil && d.Timezone != "" {
+	if err := cl.getJSON(cmd.Context(), r.path(), &d); err == nil && d.Timezone != "" {
 		zone = d.Timezone
 	}
 	fmt.Fprintf(e.stdout, "\nload it, in %s (occurred_at is UTC; local_time is the dataset's clock, %s; the fields: flowcat schema, or DICTIONARY.md of flowcat bundle):\n", out, zone)

@@ -13,9 +13,9 @@ import (
 // and the DuckDB line, as printed, run in the pulled folder (DuckDB
 // through its Node.js package, as in catalog/export's tests) reads the
 // version's events.
-func checkPullLoadLines(t *testing.T, out, dir string) {
+func checkPullLoadLines(t *testing.T, out, dir, zone string) {
 	t.Helper()
-	for _, want := range []string{"load it, in " + dir, "occurred_at is UTC", "DuckDB", "Polars", "pandas (pyarrow)", "R (arrow)", "flowcat schema"} {
+	for _, want := range []string{"load it, in " + dir, "occurred_at is UTC", "DuckDB", "Polars", "pandas (pyarrow)", "R (arrow)", "flowcat schema", "clock, " + zone, "timezone('" + zone + "'"} {
 		if !strings.Contains(out, want) {
 			t.Errorf("pull's message lacks %q:\n%s", want, out)
 		}

@@ -108,6 +108,8 @@ func New(cfg Config) *Server {
 		{method: "POST", path: api + "/projects/:project/datasets", h: s.createDataset},
 		{method: "GET", path: ds, h: s.getDataset},
 		{method: "POST", path: ds + "/changes", h: s.setChanges},
+		{method: "GET", path: ds + "/metadata", h: s.getMetadata},
+		{method: "POST", path: ds + "/metadata", h: s.setMetadata},
 		{method: "POST", path: ds + "/uploads", h: s.upload, params: []string{"filename", "mode", "from", "to", "site*"}},
 		{method: "GET", path: ds + "/uploads", h: s.listUploads},
 		{method: "GET", path: ds + "/versions", h: s.listVersions, params: []string{"limit", "after"}},

@@ -265,10 +265,15 @@ func (s *Server) citationInput(ctx context.Context, d *catalog.Dataset, v *catal
 	if title == "" {
 		title = d.Ref().String()
 	}
-	return export.CitationInput{
+	ci := export.CitationInput{
 		Title: title, Dataset: d.Ref().String(), Version: v.Number, SnapshotID: v.SnapshotID.String(),
 		Released: v.CreatedAt, Authors: []export.Author{{Name: author}},
 	}
+	// The dataset's own metadata (creators, licence, ...) wins where set.
+	if m, err := s.cfg.Store.DatasetMetadata(ctx, d.Project, d.Name); err == nil {
+		ci = export.CitationFromMetadata(ci, m)
+	}
+	return ci
 }
 
 // getCitation serves CITATION.cff (Citation File Format 1.2.0); it stays
@@ -308,7 +313,13 @@ func (s *Server) getBundle(c echo.Context) error {
 		return catalogError(err)
 	}
 	h := c.Response().Header()
-	tag := requestTag(v, "bundle-"+format, export.Filter{})
+	// The bundle's README and citations carry the dataset's metadata: a
+	// change of it is a new tag.
+	metaTag := ""
+	if m, err := s.cfg.Store.DatasetMetadata(c.Request().Context(), d.Project, d.Name); err == nil && !m.UpdatedAt.IsZero() {
+		metaTag = "@" + m.UpdatedAt.Format(time.RFC3339Nano)
+	}
+	tag := requestTag(v, "bundle-"+format+metaTag, export.Filter{})
 	h.Set("ETag", tag)
 	ct := map[string]string{"tar": "application/x-tar", "zip": "application/zip"}[format]
 	h.Set(echo.HeaderContentType, ct)
