@@ -147,7 +147,7 @@ func newExportCmd(e *env) *cobra.Command {
 	var ff filterFlags
 	var out, format string
 	c := &cobra.Command{
-		Use:   "export PROJECT/DATASET[@VERSION] -o FILE [--format parquet|csv] [filters]",
+		Use:   "export PROJECT/DATASET[@VERSION] -o FILE [--format parquet|csv|xes] [filters]",
 		Short: "Download a version, or the events and columns you choose, as one Parquet or CSV file",
 		Long: `Export writes one file holding a version's events in a fixed order (time, then content): the same
 request always gives the same bytes. Filters keep a time window, sites, queues, event types,
@@ -162,8 +162,8 @@ activities and columns; the server reads only the row groups they need. CSV foll
 			if out == "" {
 				return usageErr("export: -o FILE is required (- for stdout)")
 			}
-			if format != "parquet" && format != "csv" {
-				return usageErr("export: --format %q: want parquet or csv", format)
+			if format != "parquet" && format != "csv" && format != "xes" {
+				return usageErr("export: --format %q: want parquet, csv or xes", format)
 			}
 			q := ff.query()
 			q.Set("format", format)
@@ -172,7 +172,7 @@ activities and columns; the server reads only the row groups they need. CSV foll
 	}
 	ff.add(c, true, true)
 	c.Flags().StringVarP(&out, "output", "o", "", "file to write (- for stdout)")
-	c.Flags().StringVar(&format, "format", "parquet", "parquet or csv")
+	c.Flags().StringVar(&format, "format", "parquet", "parquet, csv or xes (IEEE 1849-2016 XES: a trace per case)")
 	return c
 }
 

@@ -44,6 +44,10 @@ const (
 const (
 	// MaxXESDepth bounds the nesting of attributes within attributes.
 	MaxXESDepth = 32
+	// MaxXESAttrBytes bounds the bytes of the attribute keys and values
+	// of one element (the log, a global, a trace, an event) the reader
+	// holds: with the trace's and the event's, what one event costs.
+	MaxXESAttrBytes = 16 << 20
 	// xesLifecycleKey is the standard lifecycle extension's transition;
 	// an event without one is taken as "complete" (common practice).
 	xesLifecycleKey = "lifecycle:transition"
@@ -65,8 +69,23 @@ type xesState struct {
 	traceHasE bool // the trace has had an event: its attributes are complete
 	traceLine int64
 
-	logAttrs, traceAttrs, eventAttrs map[string]string
-	globalTrace, globalEvent         map[string]string
+	logAttrs, traceAttrs, eventAttrs attrSet
+	globalTrace, globalEvent         attrSet
+}
+
+// attrSet is the attributes of one element (the log, a global, a trace,
+// an event) by path, and the bytes of their paths and values, bounded by
+// MaxXESAttrBytes.
+type attrSet struct {
+	m     map[string]string
+	bytes int
+}
+
+func newAttrSet() attrSet { return attrSet{m: map[string]string{}} }
+
+func (a *attrSet) reset() {
+	clear(a.m)
+	a.bytes = 0
 }
 
 // tokenBudget hands the XML decoder its bytes one at a time and stops one
@@ -101,11 +120,11 @@ func (b *tokenBudget) Read(p []byte) (int, error) {
 func (rd *Reader) openXES() error {
 	x := &xesState{
 		budget:      &tokenBudget{br: bufio.NewReaderSize(rd.guard, 64<<10), max: rd.lim.MaxLineBytes},
-		logAttrs:    map[string]string{},
-		traceAttrs:  map[string]string{},
-		eventAttrs:  map[string]string{},
-		globalTrace: map[string]string{},
-		globalEvent: map[string]string{},
+		logAttrs:    newAttrSet(),
+		traceAttrs:  newAttrSet(),
+		eventAttrs:  newAttrSet(),
+		globalTrace: newAttrSet(),
+		globalEvent: newAttrSet(),
 	}
 	if _, err := x.budget.br.Peek(1); err == io.EOF {
 		return rd.fileErr(RuleEmptyFile, 0, "", "the file is empty", nil)
@@ -200,7 +219,7 @@ func (rd *Reader) nextXES(e *Event) (*Rejection, error) {
 				switch name {
 				case "trace":
 					x.inTrace, x.traceHasE, x.traceLine = true, false, line
-					clear(x.traceAttrs)
+					x.traceAttrs.reset()
 				case "extension", "classifier":
 					if err := rd.skipEmpty(v, line); err != nil {
 						return nil, err
@@ -212,7 +231,7 @@ func (rd *Reader) nextXES(e *Event) (*Rejection, error) {
 				case "event":
 					return nil, rd.fileErr(RuleXESStructure, line, "", "an <event> outside a <trace>", nil)
 				default:
-					if err := rd.readAttr(v, line, "", x.logAttrs, 0); err != nil {
+					if err := rd.readAttr(v, line, "", &x.logAttrs, 0); err != nil {
 						return nil, err
 					}
 				}
@@ -234,7 +253,7 @@ func (rd *Reader) nextXES(e *Event) (*Rejection, error) {
 				if x.traceHasE {
 					return nil, rd.fileErr(RuleXESStructure, line, "", fmt.Sprintf("trace attribute <%s> after the trace's first event; XES puts a trace's attributes before its events", clip(name)), nil)
 				}
-				if err := rd.readAttr(v, line, "", x.traceAttrs, 0); err != nil {
+				if err := rd.readAttr(v, line, "", &x.traceAttrs, 0); err != nil {
 					return nil, err
 				}
 			}
@@ -272,12 +291,12 @@ func (rd *Reader) skipEmpty(start xml.StartElement, line int64) error {
 // readGlobal reads a <global scope="trace|event"> into the defaults.
 func (rd *Reader) readGlobal(start xml.StartElement, line int64) error {
 	scope := attrValue(start, "scope")
-	var into map[string]string
+	var into *attrSet
 	switch scope {
 	case "trace":
-		into = rd.xes.globalTrace
+		into = &rd.xes.globalTrace
 	case "event", "":
-		into = rd.xes.globalEvent // "event" is the default scope
+		into = &rd.xes.globalEvent // "event" is the default scope
 	default:
 		return rd.fileErr(RuleXESStructure, line, "", fmt.Sprintf("<global scope=%q>; want trace or event", clip(scope)), nil)
 	}
@@ -286,13 +305,13 @@ func (rd *Reader) readGlobal(start xml.StartElement, line int64) error {
 
 // readEvent reads an <event>'s attributes, its start tag already read.
 func (rd *Reader) readEvent(line int64) error {
-	clear(rd.xes.eventAttrs)
-	return rd.readChildren(xml.StartElement{Name: xml.Name{Local: "event"}}, line, "", rd.xes.eventAttrs, 0)
+	rd.xes.eventAttrs.reset()
+	return rd.readChildren(xml.StartElement{Name: xml.Name{Local: "event"}}, line, "", &rd.xes.eventAttrs, 0)
 }
 
 // readChildren reads the attribute elements inside start up to its end
 // tag, under path prefix.
-func (rd *Reader) readChildren(start xml.StartElement, line int64, prefix string, into map[string]string, depth int) error {
+func (rd *Reader) readChildren(start xml.StartElement, line int64, prefix string, into *attrSet, depth int) error {
 	n := 0
 	for {
 		t, l, err := rd.token()
@@ -327,7 +346,7 @@ func (rd *Reader) readChildren(start xml.StartElement, line int64, prefix string
 
 // readListItems reads the items of a list's <values>, numbering them on
 // from *n.
-func (rd *Reader) readListItems(start xml.StartElement, line int64, prefix string, into map[string]string, depth int, n *int) error {
+func (rd *Reader) readListItems(start xml.StartElement, line int64, prefix string, into *attrSet, depth int, n *int) error {
 	for {
 		t, l, err := rd.token()
 		if err == io.EOF {
@@ -351,7 +370,7 @@ func (rd *Reader) readListItems(start xml.StartElement, line int64, prefix strin
 // readAttr reads one attribute element (its start tag read) and its
 // children into `into`. path, when not empty, replaces the attribute's
 // key in its own path (list items are named by position).
-func (rd *Reader) readAttr(start xml.StartElement, line int64, path string, into map[string]string, depth int) error {
+func (rd *Reader) readAttr(start xml.StartElement, line int64, path string, into *attrSet, depth int) error {
 	typ := start.Name.Local
 	switch typ {
 	case "string", "date", "int", "float", "boolean", "id", "list", "container":
@@ -383,16 +402,19 @@ func (rd *Reader) readAttr(start xml.StartElement, line int64, path string, into
 		if msg := checkXESValue(typ, val); msg != "" {
 			return rd.fileErr(RuleXESValue, line, key, fmt.Sprintf("<%s key=%q>: %s", typ, clip(key), msg), nil)
 		}
-		if len(into) >= rd.lim.MaxColumns {
+		if len(into.m) >= rd.lim.MaxColumns {
 			return rd.fileErr(RuleTooManyColumns, line, "", fmt.Sprintf("a trace or event has more than %d attributes, the limit (max columns)", rd.lim.MaxColumns), nil)
 		}
-		if _, dup := into[path]; dup {
+		if into.bytes += len(path) + len(val); into.bytes > MaxXESAttrBytes {
+			return rd.fileErr(RuleTooManyBytes, line, "", fmt.Sprintf("a trace or event holds more than %s of attributes, the limit per element (max XES attribute bytes)", sizeText(MaxXESAttrBytes)), nil)
+		}
+		if _, dup := into.m[path]; dup {
 			// Keys are unique among an element's attributes (a list's
 			// items are told apart by position); keeping one of two
 			// would be a silent choice.
 			return rd.fileErr(RuleXESStructure, line, key, fmt.Sprintf("attribute %q appears twice in one trace, event or attribute", clip(path)), nil)
 		}
-		into[path] = val
+		into.m[path] = val
 	}
 	return rd.readChildren(start, line, path+"/", into, depth+1)
 }
@@ -471,14 +493,14 @@ func (rd *Reader) fillXES() {
 		switch {
 		case strings.HasPrefix(c.name, "trace/"):
 			k := c.name[len("trace/"):]
-			if v, ok = x.traceAttrs[k]; !ok {
-				v, ok = x.globalTrace[k]
+			if v, ok = x.traceAttrs.m[k]; !ok {
+				v, ok = x.globalTrace.m[k]
 			}
 		case strings.HasPrefix(c.name, "log/"):
-			v, ok = x.logAttrs[c.name[len("log/"):]]
+			v, ok = x.logAttrs.m[c.name[len("log/"):]]
 		default:
-			if v, ok = x.eventAttrs[c.name]; !ok {
-				v, ok = x.globalEvent[c.name]
+			if v, ok = x.eventAttrs.m[c.name]; !ok {
+				v, ok = x.globalEvent.m[c.name]
 			}
 			if !ok && c.name == xesLifecycleKey {
 				v = "complete"
@@ -492,13 +514,13 @@ func (rd *Reader) fillXES() {
 				if len(rd.seenKeys) >= maxUnmappedKeys {
 					return
 				}
-				if k = prefix + k; !rd.seenKeys[k] && !rd.mappedKey(k) {
+				if k = prefix + k; len(k) <= 200 && !rd.seenKeys[k] && !rd.mappedKey(k) {
 					rd.seenKeys[k] = true
 				}
 			}
 		}
-		note("", x.eventAttrs)
-		note("trace/", x.traceAttrs)
+		note("", x.eventAttrs.m)
+		note("trace/", x.traceAttrs.m)
 	}
 }
 

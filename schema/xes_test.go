@@ -151,6 +151,10 @@ func TestXESMalformed(t *testing.T) {
 	external := `<?xml version="1.0"?>
 <!DOCTYPE log SYSTEM "file:///etc/passwd">
 <log/>`
+	var big strings.Builder
+	for i := range 20 { // 20 values of 900 KB: each token under 1 MiB, the event over 16 MiB
+		fmt.Fprintf(&big, `<string key="k%d" value="%s"/>`, i, strings.Repeat("x", 900_000))
+	}
 	cases := []struct {
 		name, doc string
 		rule      string
@@ -180,6 +184,7 @@ func TestXESMalformed(t *testing.T) {
 		{"content after the log", xesDoc(`<trace><string key="concept:name" value="c1"/>`+goodEvent+`</trace>`) + "<log/>", RuleXESStructure, 0, Limits{}},
 		{"token over the limit", trace("\n<event><string key=\"k\" value=\"" + strings.Repeat("x", 300) + "\"/></event>"), RuleLineTooLong, 0, Limits{MaxLineBytes: 200}},
 		{"too many attributes", trace("\n<event>" + `<string key="k1" value="v"/><string key="k2" value="v"/><string key="k3" value="v"/><string key="k4" value="v"/><string key="k5" value="v"/>` + "</event>"), RuleTooManyColumns, 4, Limits{MaxColumns: 4}},
+		{"attributes over the byte bound", trace("\n<event>" + big.String() + "</event>"), RuleTooManyBytes, 4, Limits{}},
 		{"nested too deep", trace("\n<event>" + strings.Repeat(`<container key="k">`, MaxXESDepth+1) + strings.Repeat(`</container>`, MaxXESDepth+1) + "</event>"), RuleXESStructure, 4, Limits{}},
 		{"too many events", trace(goodEvent + goodEvent + goodEvent), RuleTooManyRows, 0, Limits{MaxRows: 2}},
 	}
@@ -245,4 +250,46 @@ func FuzzXESReader(f *testing.F) {
 	f.Fuzz(func(t *testing.T, data []byte) {
 		readAllChecked(t, data, p)
 	})
+}
+
+// BenchmarkXESReader reads a generated log of 1,000 traces of 20 events
+// (go test ./schema -run '^$' -bench XESReader).
+func BenchmarkXESReader(b *testing.B) {
+	var doc strings.Builder
+	doc.WriteString(`<?xml version="1.0" encoding="UTF-8"?>` + "\n<log xes.version=\"1849-2016\">\n")
+	t0 := time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)
+	for c := range 1000 {
+		fmt.Fprintf(&doc, "  <trace>\n    <string key=\"concept:name\" value=\"case-%d\"/>\n", c)
+		for i := range 20 {
+			fmt.Fprintf(&doc, "    <event>\n      <string key=\"concept:name\" value=\"step-%d\"/>\n      <string key=\"lifecycle:transition\" value=\"complete\"/>\n      <date key=\"time:timestamp\" value=\"%s\"/>\n      <string key=\"org:resource\" value=\"r%d\"/>\n    </event>\n",
+				i, t0.Add(time.Duration(c*20+i)*time.Minute).Format(time.RFC3339Nano), i%7)
+		}
+		doc.WriteString("  </trace>\n")
+	}
+	doc.WriteString("</log>\n")
+	data := []byte(doc.String())
+	p := xesProfile(b)
+	b.SetBytes(int64(len(data)))
+	b.ResetTimer()
+	for range b.N {
+		rd, err := NewReader(bytes.NewReader(data), p, ReaderOptions{})
+		if err != nil {
+			b.Fatal(err)
+		}
+		n := 0
+		for {
+			var e Event
+			rej, err := rd.Next(&e)
+			if err == io.EOF {
+				break
+			}
+			if err != nil || rej != nil {
+				b.Fatal(err, rej)
+			}
+			n++
+		}
+		if n != 20000 {
+			b.Fatalf("%d events", n)
+		}
+	}
 }
