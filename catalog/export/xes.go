@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/xml"
 	"io"
+	"slices"
 	"strconv"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
@@ -152,8 +153,11 @@ func (x *xesWriter) event(e *schema.Event) {
 	}
 	x.attr(in, "string", "site", e.Site)
 	x.attr(in, "string", "event_type", string(e.Type))
-	// concept:instance (the activity instance) is written here once the
-	// schema has its instance_id field.
+	// concept:instance: the activity instance (the schema's instance_id,
+	// a pseudonym, where the schema has that field).
+	if v := e.Value(xesInstanceField); v != "" {
+		x.attr(in, "string", "concept:instance", v)
+	}
 	for _, kv := range [...]struct{ k, v string }{
 		{"subject_id", e.SubjectID}, {"queue", e.Queue}, {"priority", e.Priority},
 		{"channel", e.Channel}, {"outcome", e.Outcome}, {"event_id", e.EventID},
@@ -165,9 +169,17 @@ func (x *xesWriter) event(e *schema.Event) {
 	x.raw("    </event>\n")
 }
 
+// xesInstanceField is the schema field of the activity instance, which
+// XES calls concept:instance.
+const xesInstanceField = schema.Field("instance_id")
+
 // XESProfile is the mapping profile that reads WriteXES's output back into
-// schema v1: every field from the attribute WriteXES writes it to.
-const XESProfile = `# Reads flowcat's own XES export (catalog/export.WriteXES) back into schema v1.
+// schema v1: every field from the attribute WriteXES writes it to
+// (instance_id from concept:instance where the schema has the field).
+var XESProfile = xesProfile()
+
+func xesProfile() string {
+	p := `# Reads flowcat's own XES export (catalog/export.WriteXES) back into schema v1.
 format: xes
 fields:
   site: "site"
@@ -183,3 +195,8 @@ fields:
   outcome: "outcome"
   event_id: "event_id"
 `
+	if slices.Contains(schema.Fields, xesInstanceField) {
+		p += "  instance_id: \"concept:instance\"\n"
+	}
+	return p
+}
