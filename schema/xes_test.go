@@ -293,3 +293,13 @@ func BenchmarkXESReader(b *testing.B) {
 		}
 	}
 }
+
+// TestXESOneLine: a log written without line breaks reads the same; its
+// events share line numbers.
+func TestXESOneLine(t *testing.T) {
+	doc := strings.ReplaceAll(xesDoc(`<trace><string key="concept:name" value="c1"/>`+goodEvent+goodEvent+`</trace>`), "\n", "")
+	evs, rejs, _, err := readAllXES(t, []byte(doc), xesProfile(t), Limits{})
+	if err != nil || len(rejs) != 0 || len(evs) != 2 || evs[0].Line != 1 || evs[1].Line != 1 {
+		t.Errorf("%v %v %+v", err, rejs, evs)
+	}
+}
