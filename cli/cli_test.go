@@ -169,6 +169,19 @@ func TestEndToEnd(t *testing.T) {
 	if code, _, errs := run(t, as(curator), "dataset", "create", "flow/visits", "--timezone", "Europe/Lisbon"); code != 0 {
 		t.Fatalf("dataset create: %d %s", code, errs)
 	}
+	// Citation metadata: set by the curator from a JSON file, read by a
+	// member, refused with the member named when bad.
+	meta := writeFile(t, t.TempDir(), "meta.json", `{"creators": [{"name": "Flow Lab"}], "license": "CC0-1.0", "keywords": ["clinic"]}`)
+	if code, out, errs := run(t, as(curator), "dataset", "metadata", "flow/visits", "--set", meta); code != 0 || !strings.Contains(out, `"CC0-1.0"`) {
+		t.Errorf("dataset metadata --set: exit %d, %q %q", code, out, errs)
+	}
+	if code, out, _ := run(t, as(member), "dataset", "metadata", "flow/visits"); code != 0 || !strings.Contains(out, "Flow Lab") {
+		t.Errorf("dataset metadata: exit %d, %q", code, out)
+	}
+	badMeta := writeFile(t, t.TempDir(), "bad.json", `{"license": "Whatever-1.0"}`)
+	if code, _, errs := run(t, as(curator), "dataset", "metadata", "flow/visits", "--set", badMeta); code != 1 || !strings.Contains(errs, "license") {
+		t.Errorf("bad metadata: exit %d, %q", code, errs)
+	}
 	// A member may not create datasets: the server's 403 is exit 1.
 	if code, _, errs := run(t, as(member), "dataset", "create", "flow/other"); code != 1 || !strings.Contains(errs, "403") {
 		t.Errorf("member dataset create: exit %d, %q", code, errs)
@@ -237,6 +250,7 @@ func TestEndToEnd(t *testing.T) {
 	if code != 0 || !strings.Contains(out, "verified") {
 		t.Fatalf("pull: exit %d, %q %q", code, out, errs)
 	}
+	checkPullLoadLines(t, out, snap, "Europe/Lisbon")
 	lockBytes, err := os.ReadFile(filepath.Join(snap, "flowcat.pin"))
 	if err != nil {
 		t.Fatal(err)

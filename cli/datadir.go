@@ -77,13 +77,13 @@ func initDataDir(d dataDir, masterFile, blobs string) (createdMaster bool, err e
 			return false, fmt.Errorf("init: %w", err)
 		}
 	}
-	var master anonymize.MasterKey
-	if masterFile != "" {
-		master, err = anonymize.LoadMasterKeyFile(masterFile)
-		if err != nil {
-			return false, fmt.Errorf("init: %w", err)
-		}
-	} else {
+	// A key given by flag or environment is the key, as serve will find
+	// it; only without one does init make its own.
+	master, _, given, err := givenMasterKey(masterFile)
+	if err != nil {
+		return false, fmt.Errorf("init: %w", err)
+	}
+	if !given {
 		master, err = anonymize.GenerateMasterKey()
 		if err != nil {
 			return false, fmt.Errorf("init: %w", err)
@@ -167,22 +167,35 @@ func (d dataDir) authority() (*server.Authority, error) {
 // FLOWCAT_MASTER_KEY (the key itself), then FLOWCAT_MASTER_KEY_FILE, then
 // master.key in the data directory. It names every place it looked.
 func (d dataDir) findMasterKey(flagFile string) (anonymize.MasterKey, string, error) {
-	if flagFile != "" {
-		k, err := anonymize.LoadMasterKeyFile(flagFile)
-		return k, flagFile, err
-	}
-	if k, ok, err := anonymize.MasterKeyFromEnv("FLOWCAT_MASTER_KEY"); ok || err != nil {
-		return k, "FLOWCAT_MASTER_KEY", err
-	}
-	if f := os.Getenv("FLOWCAT_MASTER_KEY_FILE"); f != "" {
-		k, err := anonymize.LoadMasterKeyFile(f)
-		return k, f, err
+	if k, from, given, err := givenMasterKey(flagFile); given || err != nil {
+		return k, from, err
 	}
 	if _, err := os.Stat(d.masterKey()); err == nil {
 		k, err := anonymize.LoadMasterKeyFile(d.masterKey())
 		return k, d.masterKey(), err
 	}
 	return anonymize.MasterKey{}, "", fmt.Errorf("no master key: give --master-key FILE, or set FLOWCAT_MASTER_KEY (64 hex digits) or FLOWCAT_MASTER_KEY_FILE; `flowcat init` creates %s", d.masterKey())
+}
+
+// givenMasterKey reads the master key given from outside the data
+// directory: a file named by flag, then FLOWCAT_MASTER_KEY (the key
+// itself), then FLOWCAT_MASTER_KEY_FILE. given is false when none is set.
+// init and serve both take the key from here first, so that a key given
+// to a container is the one init seals the catalog under and serve opens
+// it with.
+func givenMasterKey(flagFile string) (k anonymize.MasterKey, from string, given bool, err error) {
+	if flagFile != "" {
+		k, err := anonymize.LoadMasterKeyFile(flagFile)
+		return k, flagFile, true, err
+	}
+	if k, ok, err := anonymize.MasterKeyFromEnv("FLOWCAT_MASTER_KEY"); ok || err != nil {
+		return k, "FLOWCAT_MASTER_KEY", true, err
+	}
+	if f := os.Getenv("FLOWCAT_MASTER_KEY_FILE"); f != "" {
+		k, err := anonymize.LoadMasterKeyFile(f)
+		return k, f, true, err
+	}
+	return anonymize.MasterKey{}, "", false, nil
 }
 
 // openStore opens the catalog on the blob store instance.json names.

@@ -134,7 +134,7 @@ correction that replaces the old event in the new version (correct).`,
 			return nil
 		},
 	}
-	c.AddCommand(create, list, changesCmd)
+	c.AddCommand(create, list, changesCmd, newMetadataCmd(e))
 	c.AddCommand(newDatasetChangeCmds(e)...)
 	return c
 }

@@ -32,7 +32,7 @@ func newInitCmd(e *env) *cobra.Command {
 		},
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory to create")
-	c.Flags().StringVar(&masterFile, "master-key", "", "use this existing master key file instead of creating one in DIR")
+	c.Flags().StringVar(&masterFile, "master-key", "", "use this existing master key file instead of creating one in DIR (else FLOWCAT_MASTER_KEY or FLOWCAT_MASTER_KEY_FILE when set)")
 	c.Flags().StringVar(&blobs, "blobs", "", blobsFlagHelp)
 	return c
 }

@@ -19,6 +19,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/catalog/export"
 )
 
 // pinName is the file pull writes to pin what a directory holds, and
@@ -161,6 +162,7 @@ when any byte differs from the pin.`,
 			}
 			fmt.Fprintf(e.stdout, "pulled %s@%d into %s: %d files, %d rows, %s\nsnapshot %s\n",
 				pin.Dataset, pin.Version, out, len(pin.Files), rows, how, pin.SnapshotID)
+			printLoadLines(cmd, e, cl, r, out)
 			return nil
 		},
 	}
@@ -170,6 +172,24 @@ when any byte differs from the pin.`,
 	c.Flags().MarkHidden("lock")
 	c.Flags().BoolVar(&replace, "replace", false, "replace what DIR holds when it is another dataset or version")
 	return c
+}
+
+// printLoadLines ends a pull with how to load the version: one line per
+// tool, run in DIR, with the dataset's wall-clock zone (asked of the
+// server; UTC when it does not say) and where the fields are described.
+func printLoadLines(cmd *cobra.Command, e *env, cl *client, r ref, out string) {
+	if e.quiet {
+		return
+	}
+	var d catalog.Dataset
+	zone := "UTC"
+	if err := cl.getJSON(cmd.Context(), r.path(), &d); err == nil && d.Timezone != "" {
+		zone = d.Timezone
+	}
+	fmt.Fprintf(e.stdout, "\nload it, in %s (occurred_at is UTC; local_time is the dataset's clock, %s; the fields: flowcat schema, or DICTIONARY.md of flowcat bundle):\n", out, zone)
+	for _, l := range export.LoadLines(zone) {
+		fmt.Fprintf(e.stdout, "  %s (%s):\n    %s\n", l.Tool, l.Needs, l.Command)
+	}
 }
 
 // pinMismatch is a pull --pin whose server bytes differ from the pin.

@@ -14,6 +14,8 @@ import (
 
 	"github.com/mattn/go-isatty"
 	"github.com/spf13/cobra"
+
+	"github.com/flowcat-catalog/flowcat/server"
 )
 
 // Exit codes scripts rely on.
@@ -91,6 +93,11 @@ Parquet snapshots that students pull and verify. New here? Run flowcat demo.`,
 		SilenceErrors: true,
 		SilenceUsage:  true,
 	}
+	// flowcat --version: the module version and VCS revision the Go
+	// toolchain recorded in the binary.
+	version, goVersion := server.BuildVersion()
+	root.Version = version + " (" + goVersion + ")"
+	root.SetVersionTemplate("flowcat {{.Version}}\n")
 	root.SetFlagErrorFunc(func(c *cobra.Command, err error) error {
 		return &exitError{code: ExitUsage, err: fmt.Errorf("%w\n%s", err, c.UsageString())}
 	})
@@ -108,7 +115,7 @@ Parquet snapshots that students pull and verify. New here? Run flowcat demo.`,
 		newPullCmd(e), newVerifyCmd(e), newQualityCmd(e),
 		newPublishCmd(e), newRetractCmd(e), newGCCmd(e), newDisclosureCmd(e), newDisclosurePolicyCmd(e), newAuditCmd(e), newMasterKeyCmd(e),
 		newAlertsCmd(e), newSummaryCmd(e), newExportCmd(e), newBundleCmd(e), newCiteCmd(e), newDiffCmd(e),
-		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e), newManCmd(e),
+		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e), newManCmd(e), newReadyCmd(e),
 	)
 	addCompletion(root, e)
 	for _, c := range root.Commands() {

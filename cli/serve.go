@@ -26,7 +26,7 @@ func newServeCmd(e *env) *cobra.Command {
 	var maxUpload, memLimit int64
 	var maxUploads int
 	var bodyIdle time.Duration
-	var author, tlsCert, tlsKey string
+	var author, tlsCert, tlsKey, logLevel string
 	var lim schema.Limits
 	var rateLimit float64
 	var rateBurst int
@@ -38,7 +38,13 @@ func newServeCmd(e *env) *cobra.Command {
 			if dir == "" {
 				return usageErr("serve: --data DIR is required")
 			}
-			log := slog.New(slog.NewJSONHandler(e.stderr, nil))
+			var level slog.Level
+			if err := level.UnmarshalText([]byte(logLevel)); err != nil {
+				return usageErr("serve: --log-level %q: want debug, info, warn or error", logLevel)
+			}
+			log := slog.New(slog.NewJSONHandler(e.stderr, &slog.HandlerOptions{Level: level}))
+			version, goVersion := server.BuildVersion()
+			log.Info("starting", "version", version, "go", goVersion)
 			if memLimit > 0 && os.Getenv("GOMEMLIMIT") == "" {
 				// A soft limit: the collector runs harder near it, so the
 				// heap's garbage does not double the resident memory.
@@ -82,6 +88,7 @@ func newServeCmd(e *env) *cobra.Command {
 	c.Flags().StringVar(&tlsCert, "tls-cert", "", "certificate chain file (PEM): serve HTTPS (with --tls-key)")
 	c.Flags().StringVar(&tlsKey, "tls-key", "", "private key file (PEM) of --tls-cert")
 	c.Flags().StringVar(&author, "citation-author", "", "author named in CITATION.cff files, e.g. the lab (default: the project's title)")
+	c.Flags().StringVar(&logLevel, "log-level", "info", "least severe log records written: debug, info, warn or error (each request is logged at info)")
 	c.Flags().Int64Var(&memLimit, "memory-limit", DefaultMemoryLimit, "soft limit of the server's memory in bytes (Go's runtime/debug.SetMemoryLimit; 0: none; the GOMEMLIMIT environment variable wins)")
 	return c
 }

@@ -133,7 +133,7 @@ func newExportCmd(e *env) *cobra.Command {
 	var out, format, layout string
 	c := &cobra.Command{
 		Use:   "export PROJECT/DATASET[@VERSION] (-o FILE | --layout DIR|s3://B/P) [flags]",
-		Short: "Download a version, or chosen events, as Parquet or CSV, or as a layout",
+		Short: "Download a version, or chosen events, as Parquet, CSV or XES, or as a layout",
 		Long: `Export writes one file holding a version's events in a fixed order (time, then content): the same
 request always gives the same bytes. Filters keep a time window, sites, queues, event types,
 activities and columns; the server reads only the row groups they need. CSV follows RFC 4180.
@@ -159,8 +159,8 @@ engines read it in place and read only the partitions a query's site and date co
 			if out == "" {
 				return usageErr("export: -o FILE is required (- for stdout)")
 			}
-			if format != "parquet" && format != "csv" {
-				return usageErr("export: --format %q: want parquet or csv", format)
+			if format != "parquet" && format != "csv" && format != "xes" {
+				return usageErr("export: --format %q: want parquet, csv or xes", format)
 			}
 			if ff.from != "" || ff.to != "" {
 				cl, err := e.client()
@@ -178,7 +178,7 @@ engines read it in place and read only the partitions a query's site and date co
 	}
 	ff.add(c, true, true)
 	c.Flags().StringVarP(&out, "output", "o", "", "file to write (- for stdout)")
-	c.Flags().StringVar(&format, "format", "parquet", "parquet or csv")
+	c.Flags().StringVar(&format, "format", "parquet", "parquet, csv or xes (IEEE 1849-2016 XES: a trace per case)")
 	c.Flags().StringVar(&layout, "layout", "", "write a partitioned layout (site=/date=) into this new directory or s3://BUCKET/PREFIX")
 	return c
 }

@@ -54,6 +54,7 @@ const (
 	FormatCSV   Format = "csv"   // delimited text with a header row
 	FormatTSV   Format = "tsv"   // CSV with a tab delimiter
 	FormatJSONL Format = "jsonl" // one JSON object per line
+	FormatXES   Format = "xes"   // IEEE 1849-2016 XML event log (xes.go)
 )
 
 // Mapping says where one schema field's value comes from.
@@ -452,7 +453,7 @@ func (p *Profile) validate(lines map[string]int) error {
 				return at("multiline.max_bytes", fmt.Sprintf("must be 1 to %d", maxMultilineBytes))
 			}
 		}
-	case FormatJSONL:
+	case FormatJSONL, FormatXES:
 		if p.Delimiter != "" {
 			return at("delimiter", "only for csv and tsv")
 		}
@@ -460,10 +461,10 @@ func (p *Profile) validate(lines map[string]int) error {
 			return at("quote", "only for csv and tsv")
 		}
 		if p.Multiline != nil {
-			return at("multiline", "only for csv and tsv (a JSON Lines record is one line)")
+			return at("multiline", "only for csv and tsv (a JSON Lines record is one line, an XES event one element)")
 		}
 	default:
-		return at("format", fmt.Sprintf("unknown format %q (want csv, tsv or jsonl)", clip(string(p.Format))))
+		return at("format", fmt.Sprintf("unknown format %q (want csv, tsv, jsonl or xes)", clip(string(p.Format))))
 	}
 	if p.Timezone == "" {
 		p.Timezone = "UTC"

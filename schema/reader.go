@@ -59,7 +59,10 @@ type Reader struct {
 	lineNo   int64
 	lineBuf  []byte
 	obj      map[string]json.RawMessage
-	seenKeys map[string]bool
+	seenKeys map[string]bool // JSON Lines keys, XES attribute paths
+
+	// XES
+	xes *xesState
 
 	vals [len(fieldsArray)]string
 	rows int64
@@ -158,6 +161,12 @@ func NewReader(r io.Reader, p *Profile, opt ReaderOptions) (*Reader, error) {
 	in = bomr
 	rd.guard = &guardReader{r: in, limit: rd.lim.MaxBytes}
 
+	if p.Format == FormatXES {
+		if err := rd.openXES(); err != nil {
+			return nil, err
+		}
+		return rd, nil
+	}
 	if p.Format == FormatJSONL {
 		rd.br = bufio.NewReaderSize(rd.guard, 64<<10)
 		if _, err := rd.br.Peek(1); err == io.EOF {
@@ -380,9 +389,12 @@ func (rd *Reader) Next(e *Event) (*Rejection, error) {
 	}
 	var rej *Rejection
 	var err error
-	if rd.csv != nil {
+	switch {
+	case rd.csv != nil:
 		rej, err = rd.nextCSV(e)
-	} else {
+	case rd.xes != nil:
+		rej, err = rd.nextXES(e)
+	default:
 		rej, err = rd.nextJSON(e)
 	}
 	if err != nil {
@@ -798,10 +810,14 @@ func (rd *Reader) timeRejection(line int64, c *column, v string, err error) *Rej
 
 // Unmapped returns the source columns present in the file that the profile
 // does not map: for CSV/TSV the header's, in header order; for JSON Lines
-// the keys seen so far, sorted, at most 100.
+// the keys seen so far, sorted, at most 100; for XES the attribute paths
+// seen so far, likewise.
 func (rd *Reader) Unmapped() []string {
 	if rd.csv != nil {
 		return slices.Clone(rd.unmapped)
+	}
+	if rd.xes != nil {
+		return rd.xesUnmapped()
 	}
 	out := make([]string, 0, len(rd.seenKeys))
 	for k := range rd.seenKeys {

@@ -219,7 +219,9 @@ func (s *Server) upload(c echo.Context) error {
 	// writer learns from MaxBytesReader that the rest of the body is to be
 	// dropped, and then closes the connection after the 413.
 	body := sizedBody{http.MaxBytesReader(c.Response().Writer, req.Body, s.cfg.MaxUploadBytes)}
+	started := time.Now()
 	res, err := s.cfg.Store.Ingest(req.Context(), d.Project, d.Name, body, opt)
+	s.metrics.observeUpload(res, time.Since(started))
 	withUpload := func(he *httpError) error {
 		if res != nil {
 			he.body.Upload = res.Upload

@@ -64,6 +64,8 @@ type Server struct {
 	cfg    Config
 	echo   *echo.Echo
 	routes []route
+	// metrics are served at /metrics (metrics.go).
+	metrics *promMetrics
 
 	mu        sync.Mutex
 	uploading map[string]int // uploads in progress per token id
@@ -96,7 +98,7 @@ func New(cfg Config) *Server {
 	if cfg.RateBurst <= 0 {
 		cfg.RateBurst = DefaultRateBurst
 	}
-	s := &Server{cfg: cfg, echo: e, uploading: map[string]int{}, csrfKey: newCSRFKey()}
+	s := &Server{cfg: cfg, echo: e, uploading: map[string]int{}, csrfKey: newCSRFKey(), metrics: newMetrics()}
 	if cfg.RateLimit > 0 {
 		s.limits = newTokenLimits(cfg.RateLimit, cfg.RateBurst)
 	}
@@ -104,12 +106,16 @@ func New(cfg Config) *Server {
 	e.Use(securityHeaders)
 	e.Use(middleware.RequestID())
 	e.Use(s.accessLog)
+	e.Use(s.metrics.instrument)
 
 	e.Pre(wellFormedQuery)
 	const api, ds = "/api/v1", "/api/v1/projects/:project/datasets/:dataset"
 	filter := []string{"from", "to", "site*", "queue*", "activity*"}
 	s.routes = []route{
 		{method: "GET", path: api + "/health", h: s.health, public: true},
+		{method: "GET", path: "/healthz", h: s.healthz, public: true},
+		{method: "GET", path: "/readyz", h: s.readyz, public: true},
+		{method: "GET", path: "/metrics", h: s.serveMetrics, public: true},
 		{method: "GET", path: api + "/schema", h: s.schema, public: true},
 		{method: "GET", path: api + "/projects", h: s.listProjects, params: []string{"archived"}},
 		{method: "POST", path: api + "/projects", h: s.createProject},
@@ -127,6 +133,8 @@ func New(cfg Config) *Server {
 		{method: "POST", path: ds + "/archive", h: s.archiveDataset},
 		{method: "POST", path: ds + "/unarchive", h: s.unarchiveDataset},
 		{method: "POST", path: ds + "/delete", h: s.deleteDataset},
+		{method: "GET", path: ds + "/metadata", h: s.getMetadata},
+		{method: "POST", path: ds + "/metadata", h: s.setMetadata},
 		{method: "POST", path: ds + "/uploads", h: s.upload, params: []string{"filename", "mode", "from", "to", "site*"}},
 		{method: "GET", path: ds + "/uploads", h: s.listUploads},
 		{method: "GET", path: ds + "/versions", h: s.listVersions, params: []string{"limit", "after"}},

@@ -198,12 +198,15 @@ func (s *Server) exportVersion(c echo.Context) error {
 	if format == "" {
 		format = "parquet"
 	}
-	if format != "parquet" && format != "csv" {
-		return fail(http.StatusBadRequest, "invalid", "format %q: want parquet or csv", truncateParam(format))
+	if format != "parquet" && format != "csv" && format != "xes" {
+		return fail(http.StatusBadRequest, "invalid", "format %q: want parquet, csv or xes", truncateParam(format))
 	}
 	f, err := parseFilter(q)
 	if err != nil {
 		return err
+	}
+	if format == "xes" && len(f.Columns) > 0 {
+		return fail(http.StatusBadRequest, "invalid", "columns: an XES export writes every field (a trace per case needs case_id)")
 	}
 	tag := requestTag(v, format, f)
 	name := fmt.Sprintf("%s-v%d", strings.ReplaceAll(v.Dataset.String(), "/", "-"), v.Number)
@@ -221,12 +224,20 @@ func (s *Server) exportVersion(c echo.Context) error {
 	}
 	ctx := c.Request().Context()
 	w := c.Response()
-	if format == "csv" {
+	switch format {
+	case "xes":
+		h.Set(echo.HeaderContentType, "application/xml; charset=utf-8")
+		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.xes"`, name))
+		w.WriteHeader(http.StatusOK)
+		_, err = export.WriteXES(ctx, w, s.source(), v.Manifest.Files, f, export.XESOptions{
+			Dataset: v.Dataset.String(), Version: v.Number, SnapshotID: v.SnapshotID.String(),
+		})
+	case "csv":
 		h.Set(echo.HeaderContentType, "text/csv; charset=utf-8; header=present")
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.csv"`, name))
 		w.WriteHeader(http.StatusOK)
 		_, err = export.WriteCSV(ctx, w, s.source(), v.Manifest.Files, f)
-	} else {
+	default:
 		h.Set(echo.HeaderContentType, "application/vnd.apache.parquet")
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.parquet"`, name))
 		w.WriteHeader(http.StatusOK)
@@ -257,10 +268,15 @@ func (s *Server) citationInput(ctx context.Context, d *catalog.Dataset, v *catal
 	if title == "" {
 		title = d.Ref().String()
 	}
-	return export.CitationInput{
+	ci := export.CitationInput{
 		Title: title, Dataset: d.Ref().String(), Version: v.Number, SnapshotID: v.SnapshotID.String(),
 		Released: v.CreatedAt, Authors: []export.Author{{Name: author}},
 	}
+	// The dataset's own metadata (creators, licence, ...) wins where set.
+	if m, err := s.cfg.Store.DatasetMetadata(ctx, d.Project, d.Name); err == nil {
+		ci = export.CitationFromMetadata(ci, m)
+	}
+	return ci
 }
 
 // getCitation serves CITATION.cff (Citation File Format 1.2.0); it stays
@@ -301,7 +317,13 @@ func (s *Server) getBundle(c echo.Context) error {
 		return catalogError(err)
 	}
 	h := c.Response().Header()
-	tag := requestTag(v, "bundle-"+format, export.Filter{})
+	// The bundle's README and citations carry the dataset's metadata: a
+	// change of it is a new tag.
+	metaTag := ""
+	if m, err := s.cfg.Store.DatasetMetadata(c.Request().Context(), d.Project, d.Name); err == nil && !m.UpdatedAt.IsZero() {
+		metaTag = "@" + m.UpdatedAt.Format(time.RFC3339Nano)
+	}
+	tag := requestTag(v, "bundle-"+format+metaTag, export.Filter{})
 	h.Set("ETag", tag)
 	ct := map[string]string{"tar": "application/x-tar", "zip": "application/zip"}[format]
 	h.Set(echo.HeaderContentType, ct)

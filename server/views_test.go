@@ -131,7 +131,7 @@ func TestExportOverHTTP(t *testing.T) {
 		"columns=case_id,ward":                              `unknown column "ward"`,
 		"type=teleport":                                     "unknown event type",
 		"sites=ward-3":                                      `unknown parameter "sites"`,
-		"format=xlsx":                                       "want parquet or csv",
+		"format=xlsx":                                       "want parquet, csv or xes",
 		"from=monday":                                       "RFC 3339",
 	} {
 		r := e.get(ds+"/versions/2/export?"+q, member)

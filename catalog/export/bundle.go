@@ -50,6 +50,7 @@ const (
 	BundleManifest   = "manifest.json"
 	BundleQuality    = "quality.json"
 	BundleSums       = "SHA256SUMS"
+	BundleDataCite   = "datacite.json"
 )
 
 type entry struct {
@@ -62,14 +63,15 @@ type entry struct {
 
 // WriteBundle writes b as a "tar" or "zip" archive to w, streaming the
 // snapshot files. Entries, in this order: README.md, CITATION.cff,
-// DICTIONARY.md, manifest.json (the manifest's canonical JSON, which hashes
+// datacite.json, DICTIONARY.md, manifest.json (the manifest's canonical JSON, which hashes
 // to the snapshot id), data/<sha256>.parquet for every file of the manifest
 // (its stored bytes, checked against the id as they are copied) and
 // SHA256SUMS (sha256sum -c format) over all the others. Every entry has
 // mode 0644, owner 0 without names, and the version's creation time (to
 // the second, UTC) as its modification time; zip entries are stored
-// uncompressed with no extra timestamp fields. The same bundle always
-// gives the same bytes.
+// uncompressed with no extra timestamp fields. The same version with the
+// same citation input (the dataset's metadata) always gives the same
+// bytes.
 func WriteBundle(ctx context.Context, w io.Writer, format string, b Bundle) error {
 	if format != "tar" && format != "zip" {
 		return fmt.Errorf("bundle: format %q: want tar or zip: %w", truncate(format), ErrFormat)
@@ -106,9 +108,14 @@ func WriteBundle(ctx context.Context, w io.Writer, format string, b Bundle) erro
 	if err != nil {
 		return err
 	}
+	dc, err := DataCite(ci)
+	if err != nil {
+		return fmt.Errorf("bundle: %w", err)
+	}
 	ents := []*entry{
-		{name: BundleReadme, body: readme(b.Dataset, v, b.Quality != nil)},
+		{name: BundleReadme, body: readme(b.Dataset, v, b.Quality != nil, ci)},
 		{name: BundleCitation, body: cite},
+		{name: BundleDataCite, body: dc},
 		{name: BundleDictionary, body: dict},
 		{name: BundleManifest, body: b.Manifest},
 	}
@@ -223,7 +230,7 @@ func msDosTime(t time.Time) (date, clock uint16) {
 	return date, clock
 }
 
-func readme(d *catalog.Dataset, v *catalog.Version, withQuality bool) []byte {
+func readme(d *catalog.Dataset, v *catalog.Version, withQuality bool, ci CitationInput) []byte {
 	m := v.Manifest
 	var b strings.Builder
 	title := d.Title
@@ -233,12 +240,40 @@ func readme(d *catalog.Dataset, v *catalog.Version, withQuality bool) []byte {
 	fmt.Fprintf(&b, "# %s, version %d\n\n", title, v.Number)
 	fmt.Fprintf(&b, "This bundle holds version %d of the dataset `%s` exactly as the catalog stores it: ", v.Number, d.Ref())
 	b.WriteString("its snapshot files (Apache Parquet, zstd-compressed), its manifest, a data dictionary and a citation. ")
-	b.WriteString("A version never changes: the same version always gives the same bundle, byte for byte.\n\n")
+	b.WriteString("A version never changes: the same version, with the same dataset metadata, always gives the same bundle, byte for byte.\n\n")
 	fmt.Fprintf(&b, "- Snapshot id: `%s`\n", v.SnapshotID)
 	fmt.Fprintf(&b, "- Created: %s\n", m.CreatedAt.UTC().Format(time.RFC3339))
 	fmt.Fprintf(&b, "- Events: %d in %d file(s)\n", m.Rows, len(m.Files))
 	fmt.Fprintf(&b, "- Schema: service-event schema v%s (see %s)\n\n", m.SchemaVersion, BundleDictionary)
-	b.WriteString("## Contents\n\n")
+	if ci.Abstract != "" {
+		b.WriteString(ci.Abstract + "\n\n")
+	}
+	b.WriteString("## Loading it\n\n")
+	zone := d.Timezone
+	if zone == "" {
+		zone = "UTC"
+	}
+	fmt.Fprintf(&b, "`occurred_at` is an instant in UTC (Parquet TIMESTAMP(MICROS, UTC)). The dataset's wall clock is **%s**: ", zone)
+	b.WriteString("each line below adds `local_time`, the same instant on that clock (its hour of day and day of week are the ones the site lived by). ")
+	fmt.Fprintf(&b, "Every field is described in `%s`. Run a line in this folder (the one holding `data/`); read all files of `data/` together, they are one version.\n\n", BundleDictionary)
+	for _, l := range LoadLines(zone) {
+		fmt.Fprintf(&b, "%s (%s):\n\n    %s\n\n", l.Tool, l.Needs, l.Command)
+	}
+	if v.Manifest.CaseTable != nil {
+		b.WriteString("The case table (one row per case) reads the same way from `cases/*.parquet`.\n\n")
+	}
+	b.WriteString("## Citing and licence\n\n")
+	fmt.Fprintf(&b, "Cite this version with `%s` (Citation File Format) or `%s` (DataCite metadata, ready for a DOI); both name the snapshot id above.\n", BundleCitation, BundleDataCite)
+	if ci.License != "" {
+		fmt.Fprintf(&b, "The data is licensed under %s (SPDX identifier; https://spdx.org/licenses/%s.html), within the agreements named below.\n", ci.License, ci.License)
+	}
+	if len(ci.Related) > 0 {
+		b.WriteString("\nRelated works:\n\n")
+		for _, r := range ci.Related {
+			fmt.Fprintf(&b, "- %s %s `%s`\n", r.Relation, r.Type, r.Identifier)
+		}
+	}
+	b.WriteString("\n## Contents\n\n")
 	fmt.Fprintf(&b, "- `%s`: the version's manifest, as stored when the version was made; the snapshot id is computed from these bytes.\n", BundleManifest)
 	if withQuality {
 		fmt.Fprintf(&b, "- `%s`: the version's full quality report (JSON; the manifest names its SHA-256).\n", BundleQuality)
@@ -246,6 +281,7 @@ func readme(d *catalog.Dataset, v *catalog.Version, withQuality bool) []byte {
 	b.WriteString("- `data/<sha256>.parquet`: the snapshot files; each is named by the SHA-256 of its bytes. Rows are sorted by `occurred_at` within a file; read all files of the manifest together for the whole version.\n")
 	fmt.Fprintf(&b, "- `%s`: the fields, their types and the mapping profile and quality summary of the data.\n", BundleDictionary)
 	fmt.Fprintf(&b, "- `%s`: how to cite this version (Citation File Format 1.2.0).\n", BundleCitation)
+	fmt.Fprintf(&b, "- `%s`: the version described in the DataCite Metadata Schema (JSON).\n", BundleDataCite)
 	fmt.Fprintf(&b, "- `%s`: the SHA-256 of every other file of the bundle.\n\n", BundleSums)
 	b.WriteString("## Verifying\n\n")
 	b.WriteString("In the folder the bundle was unpacked into:\n\n")

@@ -105,7 +105,7 @@ func TestBundleTarAndZip(t *testing.T) {
 					names = append(names, f.Name)
 				}
 			}
-			wantNames := []string{BundleReadme, BundleCitation, BundleDictionary, BundleManifest, BundleQuality}
+			wantNames := []string{BundleReadme, BundleCitation, BundleDataCite, BundleDictionary, BundleManifest, BundleQuality}
 			for _, f := range m.Files {
 				wantNames = append(wantNames, "data/"+f.SHA256.String()+".parquet")
 			}

@@ -8,6 +8,8 @@ import (
 	"time"
 
 	"github.com/goccy/go-yaml"
+
+	"github.com/flowcat-catalog/flowcat/catalog"
 )
 
 // ErrBadCitation is wrapped by Citation's errors: the input lacks what a
@@ -39,6 +41,41 @@ type CitationInput struct {
 	URL        string    // optional landing page (http or https)
 	DOI        string    // optional, without resolver (10.xxxx/...)
 	License    string    // optional SPDX identifier
+	// Publisher (DataCite's publisher) and Related (DataCite's related
+	// identifiers) go to the bundle's datacite.json; CITATION.cff has no
+	// member for either.
+	Publisher string
+	Related   []catalog.RelatedIdentifier
+}
+
+// CitationFromMetadata returns c with what the dataset's metadata gives:
+// its creators as the authors, its description as the abstract, its
+// keywords, licence, publisher and related identifiers. Members m leaves
+// empty keep c's.
+func CitationFromMetadata(c CitationInput, m *catalog.DatasetMetadata) CitationInput {
+	if m == nil {
+		return c
+	}
+	if len(m.Creators) > 0 {
+		c.Authors = nil
+		for _, cr := range m.Creators {
+			c.Authors = append(c.Authors, Author{Name: cr.Name, GivenNames: cr.GivenName, FamilyNames: cr.FamilyName, Affiliation: cr.Affiliation, ORCID: cr.ORCID})
+		}
+	}
+	if m.Description != "" {
+		c.Abstract = m.Description
+	}
+	if len(m.Keywords) > 0 {
+		c.Keywords = m.Keywords
+	}
+	if m.License != "" {
+		c.License = m.License
+	}
+	if m.Publisher != "" {
+		c.Publisher = m.Publisher
+	}
+	c.Related = m.RelatedIdentifiers
+	return c
 }
 
 // cff is a CITATION.cff document; field order is output order.
