@@ -87,8 +87,59 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 		kept.Terminal = p.Terminal
 	}
 	var c summary.Counts
-	var prev schema.Event
-	hasPrev := false
+	// The summaries' builder runs on another goroutine, fed in batches:
+	// its observers (the summary, the process views) share nothing with
+	// the others', so the two cores split the per-case work. Events from
+	// the sort own their strings, so a copy may cross.
+	var (
+		keptCh, keptFree chan []schema.Event
+		keptDone         chan struct{}
+		kc               summary.Counts // counted by the summaries' goroutine
+		batch            []schema.Event
+	)
+	if kept != nil {
+		keptCh = make(chan []schema.Event, keptBatches)
+		keptFree = make(chan []schema.Event, keptBatches+2)
+		keptDone = make(chan struct{})
+		batch = make([]schema.Event, 0, keptBatchEvents)
+		go func() {
+			defer close(keptDone)
+			var prev schema.Event
+			hasPrev := false
+			for bt := range keptCh {
+				for i := range bt {
+					e := &bt[i]
+					_, fl := quality.UnpackLine(e.Line)
+					switch {
+					case fl&quality.FlagLater != 0:
+						kc.LaterThanUpload++
+						continue
+					case fl&quality.FlagOutsideWindow != 0:
+						kc.OutsideWindow++
+						continue
+					case hasPrev && prev.CaseID == e.CaseID && prev.OccurredAt.Equal(e.OccurredAt) && prev.Type == e.Type && schema.CompareContent(&prev, e) == 0:
+						kc.ExactDuplicates++
+						continue
+					}
+					kept.Add(e)
+					prev, hasPrev = *e, true
+				}
+				clear(bt)
+				select {
+				case keptFree <- bt[:0]:
+				default:
+				}
+			}
+		}()
+	}
+	send := func() {
+		keptCh <- batch
+		select {
+		case batch = <-keptFree:
+		default:
+			batch = make([]schema.Event, 0, keptBatchEvents)
+		}
+	}
 	var lastSubj, lastRes string
 	err := p.srt.Finish(func(e *schema.Event) error {
 		// Distinct subjects and resources, counted on the way: a case
@@ -113,27 +164,20 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 		if len(all) > 0 {
 			b.Add(e)
 		}
-		if kept == nil {
-			return nil
+		if kept != nil {
+			if batch = append(batch, *e); len(batch) == keptBatchEvents {
+				send()
+			}
 		}
-		_, fl := quality.UnpackLine(e.Line)
-		switch {
-		case fl&quality.FlagLater != 0:
-			c.LaterThanUpload++
-			return nil
-		case fl&quality.FlagOutsideWindow != 0:
-			c.OutsideWindow++
-			return nil
-		case hasPrev && prev.CaseID == e.CaseID && prev.OccurredAt.Equal(e.OccurredAt) && prev.Type == e.Type && schema.CompareContent(&prev, e) == 0:
-			c.ExactDuplicates++
-			return nil
-		}
-		kept.Add(e)
-		prev = *e
-		cloneStrings(&prev)
-		hasPrev = true
 		return nil
 	})
+	if kept != nil {
+		if len(batch) > 0 {
+			send()
+		}
+		close(keptCh)
+		<-keptDone
+	}
 	if err != nil {
 		return summary.Counts{}, err
 	}
@@ -143,6 +187,7 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	}
 	if kept != nil {
 		kept.Flush()
+		c.LaterThanUpload, c.OutsideWindow, c.ExactDuplicates = kc.LaterThanUpload, kc.OutsideWindow, kc.ExactDuplicates
 	}
 	subj, err := p.subjects.Count()
 	if err != nil {
@@ -158,6 +203,12 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	}
 	return c, nil
 }
+
+// Batches of events the summaries' builder takes, and how many wait.
+const (
+	keptBatchEvents = 1024
+	keptBatches     = 4
+)
 
 // Close removes the temporary files.
 func (p *CasePass) Close() error {
