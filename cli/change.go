@@ -7,7 +7,6 @@ import (
 	"net/http"
 	"os"
 	"strings"
-	"time"
 
 	"github.com/spf13/cobra"
 
@@ -57,13 +56,30 @@ func newDatasetChangeCmds(e *env) []*cobra.Command {
 			if clearWindow {
 				req["clear_window"] = true
 			}
-			for name, v := range map[string]string{"window-from": from, "window-to": to} {
+			// A window given as dates is in the dataset's zone: the new
+			// --timezone, else the one it has.
+			zoneOf := func() (string, error) {
+				if fl.Changed("timezone") {
+					return fl.GetString("timezone")
+				}
+				cl, err := e.client()
+				if err != nil {
+					return "", err
+				}
+				var d catalog.Dataset
+				if err := cl.getJSON(cmd.Context(), r.path(), &d); err != nil {
+					return "", err
+				}
+				return d.Timezone, nil
+			}
+			for _, name := range []string{"window-from", "window-to"} {
+				v := map[string]string{"window-from": from, "window-to": to}[name]
 				if v == "" {
 					continue
 				}
-				t, err := time.Parse(time.RFC3339, v)
+				t, err := windowInstant(name, v, zoneOf, e.stderr)
 				if err != nil {
-					return usageErr("--%s %q: want an RFC 3339 instant like 2026-01-01T00:00:00Z", name, v)
+					return err
 				}
 				req[strings.ReplaceAll(name, "-", "_")] = t
 			}
@@ -96,8 +112,8 @@ func newDatasetChangeCmds(e *env) []*cobra.Command {
 	f.StringVar(&title, "title", "", "new title")
 	f.StringVar(&description, "description", "", "new description")
 	f.Float64Var(&rejectAbove, "reject-above", catalog.DefaultRejectAbove, "new threshold of invalid rows (0-1)")
-	f.StringVar(&from, "window-from", "", "new declared start of the data (RFC 3339)")
-	f.StringVar(&to, "window-to", "", "new declared end of the data (RFC 3339)")
+	f.StringVar(&from, "window-from", "", "new declared start of the data (RFC 3339, or a date: its start in the dataset's zone)")
+	f.StringVar(&to, "window-to", "", "new declared end of the data (RFC 3339, or a date: its start in the dataset's zone)")
 	f.BoolVar(&clearWindow, "clear-window", false, "remove the declared window")
 	f.StringVar(&profile, "profile", "", "new mapping profile (YAML file; an empty file for the default profile)")
 	f.StringVar(&zone, "timezone", "", "new IANA zone for wall-clock times")

@@ -3,12 +3,12 @@ package cli
 import (
 	"fmt"
 	"os"
-	"text/tabwriter"
-	"time"
+	"strconv"
 
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/schema"
 )
 
 func newDatasetCmd(e *env) *cobra.Command {
@@ -36,15 +36,27 @@ func newDatasetCmd(e *env) *cobra.Command {
 			if cmd.Flags().Changed("reject-above") {
 				req["reject_above"] = rejectAbove
 			}
-			for name, v := range map[string]string{"window_from": from, "window_to": to} {
-				if v == "" {
+			// The dataset's zone, for a window given as dates: --timezone,
+			// else the profile's, else UTC (as the server decides it).
+			zoneOf := func() (string, error) {
+				if zone != "" || profile == "" {
+					return zone, nil
+				}
+				p, err := schema.ParseProfile([]byte(req["profile"].(string)))
+				if err != nil {
+					return "", err
+				}
+				return p.Timezone, nil
+			}
+			for _, wf := range []struct{ flag, key, v string }{{"window-from", "window_from", from}, {"window-to", "window_to", to}} {
+				if wf.v == "" {
 					continue
 				}
-				t, err := time.Parse(time.RFC3339, v)
+				t, err := windowInstant(wf.flag, wf.v, zoneOf, e.stderr)
 				if err != nil {
-					return usageErr("--%s %q: want an RFC 3339 instant like 2026-01-01T00:00:00Z", name, v)
+					return err
 				}
-				req[name] = t
+				req[wf.key] = t
 			}
 			cl, err := e.client()
 			if err != nil {
@@ -76,8 +88,8 @@ func newDatasetCmd(e *env) *cobra.Command {
 	f.BoolVar(&historical, "historical", false, "the data are past events, not a live feed: currentness is not scored")
 	f.BoolVar(&drafts, "drafts", false, "new versions start as drafts, seen by curators only until published (flowcat publish)")
 	f.StringVar(&changes, "changes", "", "with a stable event_id: refuse (default) an upload that changes a held event, or correct (take it as a correction)")
-	f.StringVar(&from, "window-from", "", "declared start of the data (RFC 3339); earlier events are flagged")
-	f.StringVar(&to, "window-to", "", "declared end of the data (RFC 3339); later events are flagged")
+	f.StringVar(&from, "window-from", "", "declared start of the data (RFC 3339, or a date: its start in the dataset's zone); earlier events are flagged")
+	f.StringVar(&to, "window-to", "", "declared end of the data (RFC 3339, or a date: its start in the dataset's zone); later events are flagged")
 
 	list := &cobra.Command{
 		Use:   "list PROJECT",
@@ -95,12 +107,13 @@ func newDatasetCmd(e *env) *cobra.Command {
 			if e.json {
 				return writeJSON(e.stdout, ds)
 			}
-			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
-			fmt.Fprintln(tw, "DATASET\tZONE\tLATEST\tUPLOADS\tTITLE")
+			// The title goes on a line of its own under its dataset, so
+			// that the list fits 80 columns however long titles are.
+			tb := table{head: []string{"DATASET", "ZONE", "LATEST", "UPLOADS"}, right: map[int]bool{2: true, 3: true}}
 			for _, d := range ds {
-				fmt.Fprintf(tw, "%s\t%s\t%d\t%d\t%s\n", d.Ref(), d.Timezone, d.Latest, d.Uploads, d.Title)
+				tb.add(d.Title, d.Ref().String(), d.Timezone, strconv.Itoa(d.Latest), strconv.Itoa(d.Uploads))
 			}
-			return tw.Flush()
+			return tb.write(e.stdout)
 		},
 	}
 	changesCmd := &cobra.Command{

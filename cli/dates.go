@@ -54,3 +54,30 @@ func (f *filterFlags) resolveDates(ctx context.Context, cl *client, r ref, w io.
 	f.from, f.to = from.value, to.value
 	return nil
 }
+
+// windowInstant reads the value of a --window-from or --window-to flag:
+// an RFC 3339 instant, or a date alone, taken as the start of that day in
+// the zone zone() names and said on w.
+func windowInstant(name, v string, zone func() (string, error), w io.Writer) (time.Time, error) {
+	if t, err := time.Parse(time.RFC3339, v); err == nil {
+		return t, nil
+	}
+	day, err := time.Parse(dateOnly, v)
+	if err != nil {
+		return time.Time{}, usageErr("--%s %q: want a date (2026-01-01, the start of that day in the dataset's zone) or an RFC 3339 instant like 2026-01-01T00:00:00Z", name, v)
+	}
+	zoneName, err := zone()
+	if err != nil {
+		return time.Time{}, usageErr("--%s %s: a date is taken in the dataset's zone, which could not be read (%v); give an RFC 3339 instant with its offset, such as %sT00:00:00Z", name, v, err, v)
+	}
+	if zoneName == "" {
+		zoneName = "UTC"
+	}
+	loc, err := time.LoadLocation(zoneName)
+	if err != nil {
+		return time.Time{}, usageErr("--%s %s: the zone %q is not an IANA zone name", name, v, zoneName)
+	}
+	start := time.Date(day.Year(), day.Month(), day.Day(), 0, 0, 0, 0, loc)
+	fmt.Fprintf(w, "--%s %s: taken as the start of that day in the dataset's zone, %s: %s\n", name, v, zoneName, start.Format(time.RFC3339))
+	return start, nil
+}

@@ -2,7 +2,6 @@ package cli
 
 import (
 	"fmt"
-	"text/tabwriter"
 	"time"
 
 	"github.com/spf13/cobra"
@@ -56,12 +55,13 @@ func newProjectCmd(e *env) *cobra.Command {
 			if e.json {
 				return writeJSON(e.stdout, ps)
 			}
-			tw := tabwriter.NewWriter(e.stdout, 2, 4, 2, ' ', 0)
-			fmt.Fprintln(tw, "PROJECT\tTITLE\tCREATED")
+			// The title goes on a line of its own under its project, so
+			// that the list fits 80 columns however long titles are.
+			tb := table{head: []string{"PROJECT", "CREATED"}}
 			for _, p := range ps {
-				fmt.Fprintf(tw, "%s\t%s\t%s\n", p.Name, p.Title, stamp(p.CreatedAt))
+				tb.add(p.Title, p.Name, stamp(p.CreatedAt))
 			}
-			return tw.Flush()
+			return tb.write(e.stdout)
 		},
 	}
 	c.AddCommand(create, list)

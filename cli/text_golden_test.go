@@ -95,6 +95,8 @@ func TestTextGolden(t *testing.T) {
 		{"uploads", []string{"uploads", walk}},
 		{"trend", []string{"quality", line, "--trend", "--site", "qb-nurseline"}},
 		{"alerts", []string{"alerts", line}},
+		{"projects", []string{"project", "list"}},
+		{"datasets", []string{"dataset", "list", "quillon-flow"}},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			var out, errb bytes.Buffer
