@@ -23,6 +23,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema/synth"
 )
 
@@ -463,7 +464,7 @@ func (g *demoGuide) print(w io.Writer) {
 	if len(g.alerts) > 0 {
 		fmt.Fprintln(w, "drift alerts raised on the way (the curator looks at them below):")
 		for _, a := range g.alerts {
-			fmt.Fprintf(w, "  %s\n", wrap(a, 78, "    "))
+			fmt.Fprintf(w, "  %s\n", quality.WrapText(a, 78, "    "))
 		}
 		fmt.Fprintln(w)
 	}

@@ -7,6 +7,8 @@ import (
 	"strings"
 	"text/tabwriter"
 	"time"
+
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 // diffFigures names the headline figures of a diff's summary_delta, in
@@ -65,7 +67,7 @@ func printDiff(w io.Writer, dataset string, d *diffAnswer) {
 				parts = append(parts, fmt.Sprintf("%s %+.1f", k, x))
 			}
 		}
-		fmt.Fprintf(w, "\nquality (points of 100): %s\n", wrap(strings.Join(parts, ", "), 54, "  "))
+		fmt.Fprintf(w, "\nquality (points of 100): %s\n", quality.WrapText(strings.Join(parts, ", "), 54, "  "))
 	}
 	var rows []string
 	for _, f := range diffFigures {

@@ -5,6 +5,8 @@ import (
 	"io"
 	"strings"
 	"time"
+
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 // table is a list for people: a header and aligned rows, each row
@@ -50,7 +52,7 @@ func (t *table) write(w io.Writer) error {
 	for i, r := range t.rows {
 		b.WriteString(line(r))
 		if n := t.notes[i]; n != "" {
-			b.WriteString(indent + strings.ReplaceAll(wrap(n, 80-len(indent), ""), "\n", "\n"+indent) + "\n")
+			b.WriteString(indent + strings.ReplaceAll(quality.WrapText(n, 80-len(indent), ""), "\n", "\n"+indent) + "\n")
 		}
 	}
 	_, err := io.WriteString(w, b.String())

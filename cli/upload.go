@@ -17,6 +17,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/quality"
 )
 
 type uploadAnswer struct {
@@ -191,7 +192,7 @@ func printUpload(w io.Writer, r ref, a *uploadAnswer) {
 
 func printAlerts(w io.Writer, u *catalog.Upload) {
 	for _, a := range u.Alerts {
-		fmt.Fprintf(w, "alert %s at %s: %s\n", a.Code, a.Site, wrap(a.Sentence, 72, "  "))
+		fmt.Fprintf(w, "alert %s at %s: %s\n", a.Code, a.Site, quality.WrapText(a.Sentence, 72, "  "))
 	}
 }
 

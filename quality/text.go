@@ -148,7 +148,7 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	if len(where) > 0 {
 		bw.WriteString("\n" + p.bold("where to look (first samples)") + "\n")
 		for _, s := range where {
-			bw.WriteString("  " + wrapText(s, TextWidth-2, "    ") + "\n")
+			bw.WriteString("  " + WrapText(s, TextWidth-2, "    ") + "\n")
 		}
 	}
 
@@ -167,7 +167,7 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	if len(sentences) > 0 {
 		bw.WriteString("\n" + p.bold("what the findings mean") + "\n")
 		for _, s := range sentences {
-			bw.WriteString("  " + wrapText(s, TextWidth-2, "    ") + "\n")
+			bw.WriteString("  " + WrapText(s, TextWidth-2, "    ") + "\n")
 		}
 	}
 	// The first rejected rows, where to look.
@@ -198,7 +198,7 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	if len(rej) > 0 {
 		bw.WriteString("\n" + p.bold("first rejected rows") + "\n")
 		for _, s := range rej {
-			bw.WriteString("  " + wrapText(strings.Replace(s, "\t", ": ", 1), TextWidth-2, "    ") + "\n")
+			bw.WriteString("  " + WrapText(strings.Replace(s, "\t", ": ", 1), TextWidth-2, "    ") + "\n")
 		}
 	}
 	return bw.Flush()
@@ -227,9 +227,9 @@ var dimensionHeads = map[string]string{
 const dimensionLegend = "sub-scores 0-100 of the dimensions completeness, accuracy, consistency,\n" +
 	"currentness and uniqueness; - where there is nothing to measure\n"
 
-// wrapText breaks s at spaces into lines of at most width runes, each
+// WrapText breaks s at spaces into lines of at most width runes, each
 // after the first starting with indent; a longer word keeps its own line.
-func wrapText(s string, width int, indent string) string {
+func WrapText(s string, width int, indent string) string {
 	var b strings.Builder
 	col := 0
 	for i, w := range strings.Fields(s) {

@@ -267,7 +267,7 @@ func WriteTrend(w io.Writer, points []TrendPoint, alerts []Alert, color bool) er
 			if color {
 				code = ansiRed + code + ansiReset
 			}
-			fmt.Fprintf(bw, "%s %s %s:\n  %s\n", code, a.Site, a.Metric, wrapText(a.Sentence, TextWidth-2, "  "))
+			fmt.Fprintf(bw, "%s %s %s:\n  %s\n", code, a.Site, a.Metric, WrapText(a.Sentence, TextWidth-2, "  "))
 		}
 	}
 	return bw.Flush()
