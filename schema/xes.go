@@ -494,10 +494,10 @@ func (rd *Reader) fillXES() {
 		case strings.HasPrefix(c.name, "trace/"):
 			k := c.name[len("trace/"):]
 			if v, ok = x.traceAttrs.m[k]; !ok {
-				v, ok = x.globalTrace.m[k]
+				v = x.globalTrace.m[k]
 			}
 		case strings.HasPrefix(c.name, "log/"):
-			v, ok = x.logAttrs.m[c.name[len("log/"):]]
+			v = x.logAttrs.m[c.name[len("log/"):]]
 		default:
 			if v, ok = x.eventAttrs.m[c.name]; !ok {
 				v, ok = x.globalEvent.m[c.name]

@@ -111,7 +111,6 @@ type Analyzer struct {
 	subs  []*Counter // one per mask
 	sens  []*Counter // one per sensitive attribute: class key + value
 	cases int64
-	buf   []string
 	key   []byte
 }
 

@@ -37,13 +37,14 @@ func (o *Objects) URL(rel string) string { return "s3://" + o.bucket + "/" + o.p
 func (o *Objects) Empty(ctx context.Context) (bool, error) {
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	for obj := range o.cl.ListObjects(ctx, o.bucket, minio.ListObjectsOptions{Prefix: o.prefix, Recursive: true, MaxKeys: 1}) {
-		if obj.Err != nil {
-			return false, fmt.Errorf("s3store: list %s: %w", o.URL(""), obj.Err)
-		}
-		return false, nil
+	obj, listed := <-o.cl.ListObjects(ctx, o.bucket, minio.ListObjectsOptions{Prefix: o.prefix, Recursive: true, MaxKeys: 1})
+	switch {
+	case !listed:
+		return true, nil
+	case obj.Err != nil:
+		return false, fmt.Errorf("s3store: list %s: %w", o.URL(""), obj.Err)
 	}
-	return true, nil
+	return false, nil
 }
 
 // PutFile stores the file at path as the object prefix/rel, in parts of
