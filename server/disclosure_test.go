@@ -71,6 +71,12 @@ func TestDisclosureAPI(t *testing.T) {
 	if rep.Cases != 12 || rep.Classes != 2 || rep.Anonymity != 1 || rep.BelowK.Cases != 1 || !rep.AboveThreshold {
 		t.Errorf("report %+v", rep)
 	}
+	// The curator sees the same figures on the version page before publishing.
+	b2 := e.browser(t)
+	b2.signIn(curator)
+	pg := b2.page("/view/p/d/1", http.StatusOK)
+	mustHave(t, "version page", pg, `id="disclosure-h"`, fmt.Sprintf(`data-k-anonymity="%d"`, rep.Anonymity),
+		fmt.Sprintf("at most %.3f", rep.Risk.Max), fmt.Sprintf("the project asks for %d", rep.K), `id="disclosure-above"`, `<table id="diversity">`, "diagnosis")
 	if r := e.postJSON(ds+"/versions/1/publish", curator, struct{}{}); r.Status != http.StatusConflict || e.apiErr(r).Error.Code != "disclosure_risk" {
 		t.Errorf("publish above the threshold: %d %s", r.Status, r.Body)
 	}

@@ -16,6 +16,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/disclosure"
 	"github.com/flowcat-catalog/flowcat/catalog/export"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/quality"
@@ -356,6 +357,17 @@ func (s *Server) versionPage(c echo.Context) error {
 		return err
 	}
 	pg.Citation = string(b)
+	if v.Manifest.Disclosure != nil {
+		raw, _, err := s.cfg.Store.DisclosureReport(ctx, d.Project, d.Name, v.Number)
+		if err != nil {
+			return catalogError(err)
+		}
+		var rep disclosure.Report
+		if err := json.Unmarshal(raw, &rep); err != nil {
+			return fmt.Errorf("disclosure report of %s@%d: %w", d.Ref(), v.Number, err)
+		}
+		pg.Disclosure = &rep
+	}
 	if v.State != catalog.StateRetracted {
 		raw, err := s.cfg.Store.Summary(ctx, v.Dataset.String(), v.Number)
 		if err != nil {
@@ -372,6 +384,9 @@ func (s *Server) versionPage(c echo.Context) error {
 		}
 		for _, q := range sum.Queues {
 			pg.Queues = append(pg.Queues, q.Name)
+		}
+		for _, a := range sum.Activities {
+			pg.Activities = append(pg.Activities, a.Name)
 		}
 		for t := range sum.EventTypes {
 			pg.Types = append(pg.Types, t)

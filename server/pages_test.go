@@ -17,6 +17,7 @@ import (
 	"testing"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
 )
 
 // pagesEnv is a project "ward" whose dataset "events" makes drafts, with
@@ -274,7 +275,16 @@ func TestPagesMember(t *testing.T) {
 	e.decode(e.get("/api/v1/projects/ward/datasets/events/versions/1", e.member), &ver)
 	rep := e.versionReport("ward", "events", 1)
 	mustHave(t, "version page", v, ver.SnapshotID.String(), `id="arrivals-how"`, `id="los-hist"`, `id="occupancy"`, `aria-labelledby="arrivals-how-t"`,
-		"/view/ward/events/1/bundle?format=zip", `id="export-form"`, "flowcat pull ward/events@1", "cff-version: 1.2.0", fmt.Sprintf("Score <strong>%.1f</strong>", *rep.Score))
+		"/view/ward/events/1/bundle?format=zip", `id="export-form"`, "flowcat pull ward/events@1", "cff-version: 1.2.0", fmt.Sprintf("Score <strong>%.1f</strong>", *rep.Score),
+		`<select id="x-activity" name="activity"`, `<table id="workload">`)
+	// The workload table holds the summary's busiest resource and day.
+	var sum summary.Summary
+	e.decode(e.do(http.MethodGet, "/api/v1/projects/ward/datasets/events/versions/1/summary", e.member, nil, map[string]string{"Accept-Encoding": "identity"}), &sum)
+	if sum.Process == nil || len(sum.Process.Workload) == 0 {
+		t.Fatal("the ward's summary has no workload")
+	}
+	w0 := sum.Process.Workload[0]
+	mustHave(t, "workload row", v, fmt.Sprintf(`<tr><th scope="row" class="mono">%s</th><td>%s</td><td class="n">%d</td></tr>`, w0.Resource, w0.Date, w0.Events))
 	for _, f := range rep.Findings() {
 		mustHave(t, "version page", v, fmt.Sprintf(`data-code="%s" data-count="%d"`, f.Code, f.Count))
 	}

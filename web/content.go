@@ -4,6 +4,7 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/disclosure"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/quality"
 )
@@ -107,6 +108,9 @@ type VersionPage struct {
 	Activities []string
 	Columns    []string
 	Types      []string
+	// Disclosure is the version's disclosure report, where its profile
+	// declares attributes.
+	Disclosure *disclosure.Report
 }
 
 // Figure is one chart of a page with its heading and a note.

@@ -193,6 +193,10 @@ func (s *Summary) Text(w io.Writer, color bool) error {
 	return tw.Flush()
 }
 
+// Label is the heading of the figure, for people ("Little's law", not
+// its key).
+func (n NotMeasurable) Label() string { return figureLabel(n.Figure) }
+
 // figureLabel is the heading of a figure named in NotMeasurable.
 func figureLabel(figure string) string {
 	switch figure {
