@@ -458,6 +458,26 @@ func TestPatientsLog(t *testing.T) {
 			t.Errorf("%s: service n %d mean %.4f; README %d %.3f; standard library %d %.4f", a.Name, a.Service.N, a.Service.Mean, w.n, w.mean, len(indep[a.Name]), im)
 		}
 	}
+	// Each activity's service histogram holds the independent durations
+	// in its bins (fewer than ExactValues distinct values: exact).
+	for _, a := range s.Activities {
+		h := a.Histogram
+		if h == nil {
+			t.Errorf("%s: no service histogram", a.Name)
+			continue
+		}
+		want := make([]uint64, len(h.Counts))
+		for _, x := range indep[a.Name] {
+			for i := range want {
+				if x >= h.Edges[i] && x < h.Edges[i+1] {
+					want[i]++
+				}
+			}
+		}
+		if !slices.Equal(h.Counts, want) || h.Edges[0] != 0 || h.Edges[len(h.Edges)-1] <= a.Service.Max {
+			t.Errorf("%s: histogram %v on %v; standard library %v", a.Name, h.Counts, h.Edges, want)
+		}
+	}
 	if s.Cases.Value != 500 || s.Resources.Value != 7 || s.Events != 5442 {
 		t.Errorf("summary cases %v resources %v events %d; README 500, 7, 5442", s.Cases.Value, s.Resources.Value, s.Events)
 	}

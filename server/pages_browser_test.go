@@ -279,10 +279,16 @@ func TestPagesInBrowser(t *testing.T) {
 		}
 		sameFloats(t, "service quantiles of "+a.Name, floats(t, ctx, id+" line.ref", "value"), qs)
 	}
-	var waits []float64
+	var waits, waitBins []float64
 	for _, q := range sum.Queues {
 		if q.Patience != nil && len(q.Patience.Steps) > 0 {
 			charts++
+		}
+		if h := q.Wait.Histogram; h != nil && len(h.Counts) > 0 {
+			charts++
+			for _, c := range h.Counts {
+				waitBins = append(waitBins, float64(c))
+			}
 		}
 		if q.Wait.N > 0 {
 			waits = append(waits, q.Wait.P50, q.Wait.P90, q.Wait.P95, q.Wait.P99)
@@ -291,6 +297,9 @@ func TestPagesInBrowser(t *testing.T) {
 	if len(waits) > 0 {
 		charts++
 		sameFloats(t, "wait quantiles", floats(t, ctx, "#waits rect.bar", "value"), waits)
+	}
+	if len(waitBins) > 0 {
+		sameFloats(t, "wait bins", floats(t, ctx, `svg[id^="wait-hist-"] rect.bar`, "value"), waitBins)
 	}
 	if sum.Process != nil && len(sum.Process.Variants) > 0 {
 		charts++

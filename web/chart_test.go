@@ -2,11 +2,13 @@ package web
 
 import (
 	"bytes"
+	"math"
 	"strings"
 	"testing"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/quality"
 )
 
@@ -72,5 +74,30 @@ func TestRenderEveryPage(t *testing.T) {
 		if !strings.Contains(b.String(), `<html lang="en">`) || !strings.Contains(b.String(), `name="csrf" value="tok"`) {
 			t.Errorf("%s: no language or no form token", name)
 		}
+	}
+}
+
+// The service chart draws the observed services as a density per log10
+// unit beside the fitted lognormal: bars times their log width sum to the
+// share of services in bins from 1 s on.
+func TestServiceTimeHistogram(t *testing.T) {
+	a := &summary.ActivitySummary{Name: "scan",
+		Service:   summary.Durations{N: 10, P50: 300, P90: 900, P95: 1000, P99: 1100},
+		Lognormal: &summary.Lognormal{N: 10, MeanLog: 5.8, SDLog: 0.6},
+		Histogram: &summary.Histogram{Edges: []float64{0, 1, 2, 5, 10, 20, 50, 100, 200, 500, 1000, 2000}, Counts: []uint64{1, 0, 0, 0, 0, 0, 0, 2, 4, 2, 1}}}
+	p := ServiceTime(a)
+	if len(p.Bars) != 4 {
+		t.Fatalf("%d bars, want 4 (empty bins and the one from 0 are not drawn)", len(p.Bars))
+	}
+	var share float64
+	for _, b := range p.Bars {
+		share += b.Y * (math.Log10(b.X1) - math.Log10(b.X0))
+	}
+	if math.Abs(share-0.9) > 1e-9 || p.Bars[0].Data["value"] != "2" || p.Y.Max < p.Bars[1].Y {
+		t.Errorf("bars %+v: share %v, want 0.9; y max %v", p.Bars, share, p.Y.Max)
+	}
+	w := WaitHistogram(&summary.QueueSummary{Name: "triage", Wait: summary.Wait{Durations: summary.Durations{N: 3}, Histogram: &summary.Histogram{Edges: []float64{0, 1, 2}, Counts: []uint64{1, 2}}}})
+	if w == nil || w.ID != "wait-hist-triage" || len(w.Bars) != 2 || w.Bars[1].Data["value"] != "2" || len(w.Table.Rows) != 2 {
+		t.Errorf("wait histogram %+v", w)
 	}
 }

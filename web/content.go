@@ -132,8 +132,9 @@ func VersionFigures(s *summary.Summary) []Figure {
 		}
 	}
 	add("Arrivals", "Bars are the mean arrivals per hour in each hour of the week; the thin lines their 95% interval (exact Poisson).", ArrivalsByHourOfWeek(s))
-	add("Waiting", "Percentiles of the waits that ended in a service. The summary keeps these and the shares over thresholds, not every wait.", WaitQuantiles(s))
+	add("Waiting", "Percentiles of the waits that ended in a service, then each queue's waits in bins growing 1-2-5.", WaitQuantiles(s))
 	for i := range s.Queues {
+		add("", "", WaitHistogram(&s.Queues[i]))
 		add("", "", Patience(&s.Queues[i]))
 	}
 	n := 0

@@ -188,8 +188,8 @@ const maxTableRows = 200
 
 // ServiceTime draws one activity's service times on a log axis: the
 // fitted lognormal's density (per unit of log10 time) and the observed
-// quantiles as vertical lines. The summary keeps quantiles and the fit,
-// not a histogram of services.
+// quantiles as vertical lines, over the histogram of the observed
+// services.
 func ServiceTime(a *summary.ActivitySummary) *Plot {
 	ln := a.Lognormal
 	if ln == nil || a.Service.N == 0 || !(ln.SDLog > 0) {
@@ -216,6 +216,28 @@ func ServiceTime(a *summary.ActivitySummary) *Plot {
 		pts = append(pts, [2]float64{math.Pow(10, lx), math.Exp(-z*z/2) * peak})
 	}
 	p.Lines = []Line{{Name: "fitted lognormal", Pts: pts, Class: "fit", Data: map[string]string{"meanlog": Value(ln.MeanLog), "sdlog": Value(ln.SDLog)}}}
+	// The observed services as a histogram on the same scale: each bin's
+	// share of the services over its width in log10 units, so that the
+	// bars and the fitted density compare directly.
+	if h := a.Histogram; h != nil && a.Service.N > 0 {
+		top := p.Y.Max
+		for i, c := range h.Counts {
+			from, to := math.Max(h.Edges[i], lo), math.Min(h.Edges[i+1], hi)
+			if c == 0 || to <= from || h.Edges[i] <= 0 {
+				continue // the first bin starts at 0, which a log axis cannot show
+			}
+			dens := float64(c) / float64(a.Service.N) / (math.Log10(h.Edges[i+1]) - math.Log10(h.Edges[i]))
+			top = math.Max(top, dens)
+			p.Bars = append(p.Bars, Bar{X0: from, X1: to, Y: dens,
+				Label: fmt.Sprintf("%s to %s: %d services", Duration(h.Edges[i]), Duration(h.Edges[i+1]), c),
+				Data:  map[string]string{"from": Value(h.Edges[i]), "value": strconv.FormatUint(c, 10)}})
+		}
+		if top > p.Y.Max {
+			p.Y.Max = niceMax(top*1.05, 0.1)
+			p.Y.Ticks = niceTicks(0, p.Y.Max, 3, trimmed)
+		}
+		p.Desc += " Bars: the observed services in bins growing 1-2-5, as a density on the same scale."
+	}
 	zs := map[string]float64{"p50": 0, "p90": 1.2815515655446004, "p95": 1.6448536269514722, "p99": 2.3263478740408408} // standard normal quantiles (common practice, R qnorm)
 	for _, q := range []struct {
 		name string
@@ -232,8 +254,29 @@ func ServiceTime(a *summary.ActivitySummary) *Plot {
 // LengthOfStay draws the histogram of the time from a case's first to
 // its last event, on the summary's 1-2-5 bins.
 func LengthOfStay(s *summary.Summary) *Plot {
-	h := s.LengthOfStay.Histogram
-	if len(h.Counts) == 0 {
+	return binChart("los-hist", "Length of stay", "length of stay", "cases",
+		fmt.Sprintf("Cases by the time from their first to their last event, in bins growing 1-2-5; %d cases, median %s, 90th percentile %s.", s.LengthOfStay.N, Duration(s.LengthOfStay.P50), Duration(s.LengthOfStay.P90)),
+		&s.LengthOfStay.Histogram)
+}
+
+// WaitHistogram draws the waits of one queue that ended in a service, on
+// the summary's 1-2-5 bins.
+func WaitHistogram(q *summary.QueueSummary) *Plot {
+	if q.Wait.Histogram == nil {
+		return nil
+	}
+	name := q.Name
+	if name == "" {
+		name = "(no queue)"
+	}
+	return binChart("wait-hist-"+slug(q.Name), "Waits in queue "+name, "wait", "waits",
+		fmt.Sprintf("Waits that ended in a service, in bins growing 1-2-5; %d waits, median %s, 90th percentile %s.", q.Wait.N, Duration(q.Wait.P50), Duration(q.Wait.P90)),
+		q.Wait.Histogram)
+}
+
+// binChart draws a histogram of durations on 1-2-5 bins, one bar per bin.
+func binChart(id, title, what, unit, desc string, h *summary.Histogram) *Plot {
+	if h == nil || len(h.Counts) == 0 {
 		return nil
 	}
 	var top uint64
@@ -241,16 +284,14 @@ func LengthOfStay(s *summary.Summary) *Plot {
 		top = max(top, c)
 	}
 	ymax := niceMax(float64(top), 1)
-	p := &Plot{ID: "los-hist", Title: "Length of stay",
-		Desc: fmt.Sprintf("Cases by the time from their first to their last event, in bins growing 1-2-5; %d cases, median %s, 90th percentile %s.", s.LengthOfStay.N, Duration(s.LengthOfStay.P50), Duration(s.LengthOfStay.P90)),
-		X:    Axis{Min: 0, Max: float64(len(h.Counts)), Label: "length of stay (bins from)"},
-		Y:    Axis{Min: 0, Max: ymax, Label: "cases", Ticks: niceTicks(0, ymax, 4, fixed(0))},
-		Table: Table{Caption: "Cases per length-of-stay bin",
-			Head: []string{"from", "to", "cases"}}}
+	p := &Plot{ID: id, Title: title, Desc: desc,
+		X:     Axis{Min: 0, Max: float64(len(h.Counts)), Label: what + " (bins from)"},
+		Y:     Axis{Min: 0, Max: ymax, Label: unit, Ticks: niceTicks(0, ymax, 4, fixed(0))},
+		Table: Table{Caption: strings.ToUpper(unit[:1]) + unit[1:] + " per " + what + " bin", Head: []string{"from", "to", unit}}}
 	every := max(1, len(h.Counts)/8)
 	for i, c := range h.Counts {
 		p.Bars = append(p.Bars, Bar{X0: float64(i), X1: float64(i + 1), Y: float64(c),
-			Label: fmt.Sprintf("%s to %s: %d cases", Duration(h.Edges[i]), Duration(h.Edges[i+1]), c),
+			Label: fmt.Sprintf("%s to %s: %d %s", Duration(h.Edges[i]), Duration(h.Edges[i+1]), c, unit),
 			Data:  map[string]string{"from": Value(h.Edges[i]), "value": strconv.FormatUint(c, 10)}})
 		if i%every == 0 {
 			p.X.Ticks = append(p.X.Ticks, Tick{At: float64(i), Label: Duration(h.Edges[i])})

@@ -150,6 +150,9 @@ type Wait struct {
 	Over         []Threshold `json:"over"`
 	Abandoned    uint64      `json:"abandoned"`
 	AbandonShare float64     `json:"abandon_share"` // abandoned / (served + abandoned)
+	// Histogram bins the served waits on the 1-2-5 axis of LengthOfStay;
+	// nil without any.
+	Histogram *Histogram `json:"histogram,omitempty"`
 }
 
 // QueueSummary is what happened in one queue.
@@ -181,6 +184,9 @@ type ActivitySummary struct {
 	Events    uint64     `json:"events"`
 	Service   Durations  `json:"service"`
 	Lognormal *Lognormal `json:"lognormal,omitempty"`
+	// Histogram bins the service times on the 1-2-5 axis of
+	// LengthOfStay; nil without any.
+	Histogram *Histogram `json:"histogram,omitempty"`
 }
 
 // Histogram counts values in bins [Edges[i], Edges[i+1]).
@@ -315,6 +321,10 @@ func (a *Accumulator) SummaryFor(sel Selection) *Summary {
 		as := ActivitySummary{Name: g.name, Events: g.events, Service: durationsOf(g.svc)}
 		as.Service.Negative = g.negative
 		as.Lognormal = lognormalOf(g.svc)
+		if g.svc.n > 0 {
+			h := logHistogram(g.svc)
+			as.Histogram = &h
+		}
 		s.Activities = append(s.Activities, as)
 	}
 	s.LengthOfStay = LengthOfStay{Durations: durationsOf(a.los), Histogram: logHistogram(a.los)}
@@ -411,6 +421,10 @@ func (p poissonCache) profile(w *[168]uint64, week *[168]int) Profile {
 func (a *Accumulator) queueSummary(g *queueGroup, ci *poissonCache, week *[168]int) QueueSummary {
 	q := QueueSummary{Name: g.name, Events: g.events, Arrivals: ci.profile(&g.arr, week)}
 	q.Wait.Durations = durationsOf(g.served)
+	if g.served.n > 0 {
+		h := logHistogram(g.served)
+		q.Wait.Histogram = &h
+	}
 	q.Wait.Negative = g.negative
 	n := g.served.n
 	if n > 0 {
