@@ -262,7 +262,10 @@ func TestPagesMember(t *testing.T) {
 	b.page("/catalog?colour=red", http.StatusBadRequest)
 	b.page("/view/ward", http.StatusSeeOther)
 
+	e.mustStatus(e.do(http.MethodPatch, "/api/v1/projects/ward/datasets/events", e.curator, strings.NewReader(`{"description": "Nightly exports of ward three <b>since March</b>."}`),
+		map[string]string{"Content-Type": "application/json"}), http.StatusOK, "describe the dataset")
 	ds := b.page("/view/ward/events", http.StatusOK)
+	mustHave(t, "description", ds, `<p id="description">Nightly exports of ward three &lt;b&gt;since March&lt;/b&gt;.</p>`)
 	mustHave(t, "member's dataset page", ds, `<table id="versions">`, `data-version="1"`, "flowcat pull ward/events@1 -o events-v1", "cff-version: 1.2.0",
 		`id="trend-all"`, `id="trend-ward-3"`, "night-04.csv", "format: csv", "Europe/Amsterdam")
 	// Drafts and the uploads behind them stay hidden (a refused upload
@@ -470,6 +473,9 @@ func TestPagesCurator(t *testing.T) {
 	mustHave(t, "withdrawn bundle", m.page("/view/ward/events/1/bundle?format=zip", http.StatusGone), "Withdrawn", "the wrong ward was exported")
 	b.page("/view/ward/events/1", http.StatusOK)
 	mustHave(t, "publishing a withdrawn version", string(b.post("/view/ward/events/1/publish", url.Values{"csrf": {b.formToken()}}, nil).Body), "<strong>409</strong>")
+	// An archived dataset says so, and why.
+	e.mustStatus(e.postJSON("/api/v1/projects/ward/datasets/events/archive", e.curator, map[string]string{"reason": "the study closed"}), http.StatusOK, "archive")
+	mustHave(t, "archived dataset", b.page("/view/ward/events", http.StatusOK), `id="archived"`, "the study closed")
 }
 
 // alertDataset makes ward/nightly: six nightly uploads of ward-3 with
