@@ -150,7 +150,8 @@ func Drift(history []TrendPoint, cur TrendPoint, opt DriftOptions) []Alert {
 		}
 		med := median(xs)
 		spread := max(MADScale*mad(xs, med), opt.MinSpread)
-		low, high := med-opt.K*spread, med+opt.K*spread
+		// Scores run 0 to 100: a band past either end is shown at it.
+		low, high := med-opt.K*spread, min(med+opt.K*spread, 100)
 		if *value < low {
 			out = append(out, Alert{Code: AlertScoreDrop, Site: cur.Site, Metric: metric, Value: *value, Median: med, Low: low, High: high,
 				Sentence: fmt.Sprintf("The %s at %s fell to %.1f, below its usual range of %.1f to %.1f (median %.1f of the last %d uploads).",
