@@ -313,14 +313,25 @@ func newKeyRotateCmd(e *env) *cobra.Command {
 }
 
 func newKeyRetireCmd(e *env) *cobra.Command {
-	var dir string
+	var dir, kidFlag string
 	c := &cobra.Command{
 		Use:   "retire KID --data DIR",
 		Short: "Stop a signing key (or " + server.LegacyKeyID + ") from verifying tokens",
-		Args:  cobra.ExactArgs(1),
+		Long: `Retire stops a signing key from verifying tokens. A key id is base64url and may begin with
+'-', which would read as a flag: give it as --kid KID, or after -- (token retire --data DIR -- KID).`,
+		Args: cobra.MaximumNArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if dir == "" {
 				return usageErr("token retire: --data DIR is required")
+			}
+			kid := kidFlag
+			switch {
+			case len(args) == 1 && kid != "" && args[0] != kid:
+				return usageErr("token retire: two key ids, %q and --kid %q; give one", args[0], kid)
+			case len(args) == 1:
+				kid = args[0]
+			case kid == "":
+				return usageErr("token retire: which key? give its id (flowcat token keys lists them) as an argument or as --kid KID")
 			}
 			d := dataDir(dir)
 			if _, err := d.readInstance(); err != nil {
@@ -330,21 +341,22 @@ func newKeyRetireCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
-			if err := ks.Retire(args[0], time.Now()); err != nil {
+			if err := ks.Retire(kid, time.Now()); err != nil {
 				return usageErr("%v", err)
 			}
 			if err := ks.Save(d.keys()); err != nil {
 				return err
 			}
-			e.auditKeys(d, cmd, "key.retire", args[0])
+			e.auditKeys(d, cmd, "key.retire", kid)
 			if e.json {
-				return writeJSON(e.stdout, map[string]string{"kid": args[0], "action": "retire"})
+				return writeJSON(e.stdout, map[string]string{"kid": kid, "action": "retire"})
 			}
-			fmt.Fprintf(e.stdout, "retired %s: its tokens no longer verify\n", args[0])
+			fmt.Fprintf(e.stdout, "retired %s: its tokens no longer verify\n", kid)
 			return nil
 		},
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory of the server")
+	c.Flags().StringVar(&kidFlag, "kid", "", "the key to retire (for an id that begins with '-')")
 	return c
 }
 

@@ -229,8 +229,16 @@ func TestTokensWhileServing(t *testing.T) {
 	}
 	_, keys, _ := run(t, nil, "token", "keys", "--data", data)
 	first := strings.Fields(strings.Split(keys, "\n")[1])[0]
-	if code, _, errs := run(t, nil, "token", "retire", first, "--data", data); code != 0 {
+	// A key id is base64url and may begin with '-' (1 in 32 ids): --kid
+	// and "--" both take it whatever it begins with.
+	if code, _, errs := run(t, nil, "token", "retire", "--kid", first, "--data", data); code != 0 {
 		t.Fatalf("retire: %s", errs)
+	}
+	if code, _, errs := run(t, nil, "token", "retire", "--data", data, "--", "-notakey"); code != 2 || !strings.Contains(errs, "-notakey") {
+		t.Errorf("retire -- -notakey: exit %d %q", code, errs)
+	}
+	if code, _, errs := run(t, nil, "token", "retire", "--data", data); code != 2 || !strings.Contains(errs, "which key") {
+		t.Errorf("retire without a key: exit %d %q", code, errs)
 	}
 	if works(admin) {
 		t.Fatal("a token of a retired key still works on the running server")
