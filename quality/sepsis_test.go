@@ -168,6 +168,23 @@ func TestSepsis(t *testing.T) {
 	if got := r.Count(CodeCaseTooLong); got != long {
 		t.Errorf("case_too_long %d, want %d", got, long)
 	}
+	// Where to look: a case-level finding is located by its cases'
+	// pseudonyms (here the raw ids), each one of the long cases.
+	for _, d := range r.Dimensions {
+		for _, f := range d.Findings {
+			if f.Code != CodeCaseTooLong {
+				continue
+			}
+			for _, smp := range f.Samples {
+				if last[smp.CaseID].Sub(first[smp.CaseID]) <= DefaultMaxCase {
+					t.Errorf("case_too_long sample %q is not a long case", smp.CaseID)
+				}
+			}
+			if len(f.Samples) == 0 || !strings.Contains(txt.String(), "case_too_long: cases "+f.Samples[0].CaseID) {
+				t.Errorf("where to look does not name the long cases:\n%s", txt.String())
+			}
+		}
+	}
 	if r.Stages.Cases != 1050 {
 		t.Errorf("%d cases, want 1050", r.Stages.Cases)
 	}

@@ -330,22 +330,27 @@ func percent(x float64) string {
 
 // sampleLines lists where the samples are: lines, or sites and times.
 func sampleLines(s []Sample) string {
-	var b strings.Builder
-	for i, x := range s {
-		if i > 0 {
-			b.WriteByte(' ')
-		}
+	var parts, cases []string
+	for _, x := range s {
 		switch {
 		case x.Line > 0:
+			l := strconv.FormatInt(x.Line, 10)
 			if x.File != "" {
-				b.WriteString(x.File + ":")
+				l = x.File + ":" + l
 			}
-			b.WriteString(strconv.FormatInt(x.Line, 10))
+			parts = append(parts, l)
 		case x.At != nil:
-			b.WriteString(x.Site + "@" + x.At.Format("2006-01-02T15"))
+			parts = append(parts, x.Site+"@"+x.At.Format("2006-01-02T15"))
+		case x.CaseID != "":
+			// A case-level finding: the cases' pseudonyms, which the
+			// snapshot and the case table hold, locate it.
+			cases = append(cases, x.CaseID)
 		default:
-			b.WriteString(x.Site)
+			parts = append(parts, x.Site)
 		}
 	}
-	return b.String()
+	if len(cases) > 0 {
+		parts = append(parts, "cases "+strings.Join(cases, " "))
+	}
+	return strings.Join(parts, " ")
 }
