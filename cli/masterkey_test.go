@@ -63,7 +63,7 @@ func TestMasterKeyRotate(t *testing.T) {
 	// pseudonyms are the ones made before the rotation.
 	more := filepath.Join(t.TempDir(), "m.csv")
 	os.WriteFile(more, []byte(night(1, "RAW")+"north,extra-1,P-1,R-1,arrival,consult,main,2026-03-02T20:00:00Z\n"), 0o600)
-	if code, out, errs := run(t, as, "upload", "flow/v", more); code != 0 || !strings.Contains(out, "1 new event, 160 already held") {
+	if code, out, errs := run(t, as, "upload", "flow/v", more); code != 0 || !strings.Contains(out, "1 new event, 160 already held") || !strings.Contains(out, ": 161 rows accepted, 0 rejected") {
 		t.Fatalf("the same events after rotation: %d %q %q", code, out, errs)
 	}
 }

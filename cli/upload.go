@@ -181,8 +181,15 @@ func printUpload(w io.Writer, r ref, a *uploadAnswer) {
 	if l := v.Manifest.Lineage; l.Mode != catalog.ModeAppend && l.Mode != "" {
 		fmt.Fprintf(w, "%s: %s removed %d rows of version %d\n", r, l.Mode, l.RowsRemoved, v.Manifest.Parent)
 	}
+	// Rows accepted are the upload's valid rows, copies and held events
+	// included (the line above says what became of them); the report's
+	// own row count is of the events it judged, after copies.
+	accepted := u.Report.Rows.Accepted
+	if u.Events != nil {
+		accepted = u.Events.Read
+	}
 	fmt.Fprintf(w, "%s@%d created from upload %s: %d rows accepted, %d rejected, quality score %s\n",
-		r, v.Number, u.ID, u.Report.Rows.Accepted, u.Report.Rows.Rejected, score(u.Report.Score))
+		r, v.Number, u.ID, accepted, u.Report.Rows.Rejected, score(u.Report.Score))
 	fmt.Fprintf(w, "snapshot %s (%d files, %d rows in all)\n", v.SnapshotID, len(v.Manifest.Files), v.Manifest.Rows)
 	if len(u.Unmapped) > 0 {
 		fmt.Fprintf(w, "dropped unmapped columns: %s\n", strings.Join(u.Unmapped, ", "))
