@@ -14,6 +14,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // auditFlags are the filters of flowcat audit and audit export.
@@ -88,11 +89,6 @@ func (f *auditFlags) withStore(ctx context.Context, fn func(*catalog.Store) erro
 	return fn(st)
 }
 
-type auditPageJSON struct {
-	Entries   []catalog.AuditEntry `json:"entries"`
-	NextAfter string               `json:"next_after,omitempty"`
-}
-
 func newAuditCmd(e *env) *cobra.Command {
 	var f auditFlags
 	c := &cobra.Command{
@@ -102,7 +98,7 @@ func newAuditCmd(e *env) *cobra.Command {
 their project's. The next page starts --after the id printed at the end.`,
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			var page auditPageJSON
+			var page api.AuditPage
 			if f.dir != "" {
 				af, err := f.filter()
 				if err != nil {

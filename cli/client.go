@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // client talks to a flowcat server.
@@ -42,7 +43,9 @@ func (e *env) client() (*client, error) {
 	return &client{base: u, token: e.token, http: &http.Client{}}, nil
 }
 
-// apiError is an error answer of the server.
+// apiError is an error answer of the server, read from its problem
+// details (api.Problem): the status, the code extension and the detail,
+// with the rule, line, column and upload of a refused upload.
 type apiError struct {
 	Status  int             `json:"status"`
 	Code    string          `json:"code"`
@@ -50,11 +53,22 @@ type apiError struct {
 	Rule    string          `json:"rule"`
 	Line    int64           `json:"line"`
 	Column  string          `json:"column"`
-	Upload  json.RawMessage `json:"upload"`
+	Upload  *catalog.Upload `json:"upload,omitempty"`
 }
 
 func (e *apiError) Error() string {
 	return fmt.Sprintf("server said %d %s: %s", e.Status, e.Code, e.Message)
+}
+
+// problemError reads an error answer's body: problem details (RFC 9457)
+// with flowcat's extensions, or, from a server or proxy that sent
+// something else, the status and the body's text.
+func problemError(status int, data []byte) *apiError {
+	var p api.Problem
+	if json.Unmarshal(data, &p) != nil || p.Status == 0 || p.Code == "" {
+		return &apiError{Status: status, Code: "http", Message: strings.TrimSpace(string(data))}
+	}
+	return &apiError{Status: p.Status, Code: p.Code, Message: p.Detail, Rule: p.Rule, Line: p.Line, Column: p.Column, Upload: p.Upload}
 }
 
 func (c *client) url(path string, q url.Values) string {
@@ -92,14 +106,8 @@ func (c *client) do(ctx context.Context, method, path string, q url.Values, body
 		return resp, nil
 	}
 	defer resp.Body.Close()
-	var eb struct {
-		Error apiError `json:"error"`
-	}
 	data, _ := io.ReadAll(io.LimitReader(resp.Body, 16<<20))
-	if json.Unmarshal(data, &eb) != nil || eb.Error.Status == 0 {
-		return nil, &apiError{Status: resp.StatusCode, Code: "http", Message: strings.TrimSpace(string(data))}
-	}
-	return nil, &eb.Error
+	return nil, problemError(resp.StatusCode, data)
 }
 
 // getJSON fetches path into v.

@@ -9,6 +9,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 func newDatasetCmd(e *env) *cobra.Command {
@@ -136,7 +137,7 @@ correction that replaces the old event in the new version (correct).`,
 				return err
 			}
 			var d catalog.Dataset
-			if err := cl.postJSON(cmd.Context(), r.path()+"/changes", map[string]string{"changes": args[1]}, &d); err != nil {
+			if err := cl.postJSON(cmd.Context(), r.path()+"/changes", api.SetChanges{Changes: args[1]}, &d); err != nil {
 				return err
 			}
 			if e.json {

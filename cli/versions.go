@@ -7,6 +7,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 func newVersionsCmd(e *env) *cobra.Command {
@@ -27,10 +28,7 @@ func newVersionsCmd(e *env) *cobra.Command {
 			hs := []catalog.Version{}
 			after := 0
 			for {
-				var page struct {
-					Versions  []catalog.Version `json:"versions"`
-					NextAfter *int              `json:"next_after"`
-				}
+				var page api.VersionsPage
 				q := url.Values{"limit": {strconv.Itoa(catalog.MaxVersionsPage)}, "after": {strconv.Itoa(after)}}
 				if err := cl.getJSONQuery(cmd.Context(), r.path()+"/versions", q, &page); err != nil {
 					return err

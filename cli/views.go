@@ -14,6 +14,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // filterFlags are the event filters of summary, export and diff.
@@ -248,32 +249,6 @@ func newCiteCmd(e *env) *cobra.Command {
 	}
 }
 
-type diffAnswer struct {
-	From struct {
-		Version    int    `json:"version"`
-		SnapshotID string `json:"snapshot_id"`
-	} `json:"from"`
-	To struct {
-		Version    int    `json:"version"`
-		SnapshotID string `json:"snapshot_id"`
-	} `json:"to"`
-	Events struct {
-		Added       int64 `json:"added"`
-		Removed     int64 `json:"removed"`
-		Same        int64 `json:"same"`
-		SharedFiles int   `json:"shared_files"`
-		SharedRows  int64 `json:"shared_rows"`
-		BySite      []struct {
-			Site    string `json:"site"`
-			Day     string `json:"day"`
-			Added   int64  `json:"added"`
-			Removed int64  `json:"removed"`
-		} `json:"by_site_day"`
-	} `json:"events"`
-	Quality map[string]float64  `json:"quality_delta"`
-	Summary map[string]*float64 `json:"summary_delta"`
-}
-
 func newDiffCmd(e *env) *cobra.Command {
 	var ff filterFlags
 	c := &cobra.Command{
@@ -313,7 +288,7 @@ func newDiffCmd(e *env) *cobra.Command {
 				return err
 			}
 			defer resp.Body.Close()
-			var d diffAnswer
+			var d api.Diff
 			raw, err := io.ReadAll(resp.Body)
 			if err != nil {
 				return err

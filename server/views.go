@@ -19,6 +19,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/catalog/export"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // parseFilter reads a filter from the query: from and to (RFC 3339), and
@@ -352,20 +353,6 @@ func (s *Server) getBundle(c echo.Context) error {
 	return nil
 }
 
-// diffResponse is the difference between two versions.
-type diffResponse struct {
-	From    versionRef          `json:"from"`
-	To      versionRef          `json:"to"`
-	Events  *export.DiffResult  `json:"events"`
-	Quality map[string]float64  `json:"quality_delta"` // to minus from, per score
-	Summary map[string]*float64 `json:"summary_delta"` // to minus from, per headline figure
-}
-
-type versionRef struct {
-	Version    int                `json:"version"`
-	SnapshotID catalog.SnapshotID `json:"snapshot_id"`
-}
-
 // diffVersions compares versions ?a= and ?b= (any selectors) by content,
 // per site and day, with the quality and summary deltas.
 func (s *Server) diffVersions(c echo.Context) error {
@@ -408,13 +395,13 @@ func (s *Server) diffVersions(c echo.Context) error {
 
 // compare is the difference from vs[0] to vs[1] (both with manifests)
 // under filter f: events by content, quality and summary deltas.
-func (s *Server) compare(ctx context.Context, vs [2]*catalog.Version, f export.Filter) (*diffResponse, error) {
+func (s *Server) compare(ctx context.Context, vs [2]*catalog.Version, f export.Filter) (*api.Diff, error) {
 	res, err := export.Diff(ctx, s.source(), vs[0].Manifest.Files, vs[1].Manifest.Files, export.DiffOptions{Filter: f})
 	if err != nil {
 		return nil, err
 	}
-	out := &diffResponse{
-		From: versionRef{vs[0].Number, vs[0].SnapshotID}, To: versionRef{vs[1].Number, vs[1].SnapshotID},
+	out := &api.Diff{
+		From: api.VersionRef{Version: vs[0].Number, SnapshotID: vs[0].SnapshotID}, To: api.VersionRef{Version: vs[1].Number, SnapshotID: vs[1].SnapshotID},
 		Events: res,
 	}
 	var reps [2][]byte
@@ -504,12 +491,6 @@ func qualityDelta(a, b []byte) map[string]float64 {
 	return out
 }
 
-// trendResponse is a dataset's quality over its uploads.
-type trendResponse struct {
-	Points []catalog.TrendPoint  `json:"points"`
-	Alerts []catalog.UploadAlert `json:"alerts"`
-}
-
 // getTrend serves the score and sub-scores of every upload with a report,
 // per site (?site= for one; "*" is all sites), with the drift alerts.
 func (s *Server) getTrend(c echo.Context) error {
@@ -521,7 +502,7 @@ func (s *Server) getTrend(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	return c.JSON(http.StatusOK, trendResponse{Points: points, Alerts: alerts})
+	return c.JSON(http.StatusOK, api.Trend{Points: points, Alerts: alerts})
 }
 
 // getAlerts lists a dataset's drift alerts, newest first.
