@@ -353,22 +353,12 @@ func (s *Server) listUploads(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	ups, err := s.cfg.Store.Uploads(c.Request().Context(), d.Project, d.Name)
+	cl := claims(c)
+	ups, err := s.cfg.Store.VisibleUploads(c.Request().Context(), d.Project, d.Name, cl.CanUpload(d.Project, d.Name))
 	if err != nil {
 		return catalogError(err)
 	}
-	unseen, err := s.unseenVersions(c, d)
-	if err != nil {
-		return err
-	}
-	out := []catalog.Upload{}
-	cl := claims(c)
-	for _, u := range ups {
-		if unseen[u.Version] || !seesUpload(cl, d, u) {
-			continue
-		}
-		out = append(out, u)
-	}
+	out := slices.DeleteFunc(ups, func(u catalog.Upload) bool { return !seesUpload(cl, d, u) })
 	return c.JSON(http.StatusOK, out)
 }
 
@@ -410,18 +400,9 @@ func seesUpload(cl *Claims, d *catalog.Dataset, u catalog.Upload) bool {
 // those never published. Curators and the dataset's partners see every
 // upload (nil).
 func (s *Server) unseenVersions(c echo.Context, d *catalog.Dataset) (map[int]bool, error) {
-	if claims(c).CanUpload(d.Project, d.Name) {
-		return nil, nil
-	}
-	heads, err := s.cfg.Store.Heads(c.Request().Context(), d.Project, d.Name)
+	unseen, err := s.cfg.Store.Unpublished(c.Request().Context(), d.Project, d.Name, claims(c).CanUpload(d.Project, d.Name))
 	if err != nil {
 		return nil, catalogError(err)
-	}
-	unseen := map[int]bool{}
-	for _, h := range heads {
-		if !h.Visible(false) {
-			unseen[h.Number] = true
-		}
 	}
 	return unseen, nil
 }
@@ -507,8 +488,8 @@ func (s *Server) servable(c echo.Context) (*catalog.Version, error) {
 	if err != nil {
 		return nil, err
 	}
-	if v.State == catalog.StateRetracted {
-		return nil, s.gone(v)
+	if err := v.Servable(); err != nil {
+		return nil, catalogError(err)
 	}
 	return v, nil
 }

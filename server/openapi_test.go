@@ -99,3 +99,26 @@ func TestOpenAPICheckFails(t *testing.T) {
 		}
 	}
 }
+
+// TestProblemDetails checks an error answer against RFC 9457: the media
+// type application/problem+json (section 3), the members type, title,
+// status and detail (section 3.1; "about:blank" with the status phrase as
+// title, section 4.2.1), and the members answers had before kept as
+// extensions.
+func TestProblemDetails(t *testing.T) {
+	e := newEnv(t)
+	r := e.get("/api/v1/projects/nowhere", e.admin)
+	e.mustStatus(r, http.StatusNotFound, "missing project")
+	if ct := r.Header.Get("Content-Type"); ct != "application/problem+json" {
+		t.Errorf("Content-Type %q, want application/problem+json", ct)
+	}
+	var p api.Problem
+	e.decode(r, &p)
+	if p.Type != "about:blank" || p.Title != "Not Found" || p.Status != 404 || p.Detail == "" || p.Code != "not_found" {
+		t.Errorf("problem %+v: want about:blank, Not Found, 404, a detail, code not_found", p)
+	}
+	old := e.apiErr(r) // the "error" member, as before
+	if old.Error.Message != p.Detail || old.Error.Code != p.Code {
+		t.Errorf("error member %+v does not repeat the problem %+v", old.Error, p)
+	}
+}

@@ -249,9 +249,13 @@ func fail(status int, code, format string, args ...any) *httpError {
 	return &httpError{body: api.ErrorBody{Status: status, Code: code, Message: fmt.Sprintf(format, args...)}}
 }
 
-// catalogError maps catalog errors to HTTP errors.
+// catalogError maps catalog errors to HTTP errors: the one place where a
+// catalog error becomes a status.
 func catalogError(err error) error {
 	switch {
+	case errors.Is(err, catalog.ErrRetracted):
+		// The data of a retracted version is gone; its metadata stays.
+		return &httpError{body: api.ErrorBody{Status: http.StatusGone, Code: "retracted", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrNotFound):
 		return &httpError{body: api.ErrorBody{Status: http.StatusNotFound, Code: "not_found", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrExists):

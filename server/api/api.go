@@ -10,7 +10,7 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
-	"github.com/flowcat-catalog/flowcat/catalog/export"
+	"github.com/flowcat-catalog/flowcat/catalog/query"
 )
 
 // Project is a project as the API shows it: never its sealed key.
@@ -111,20 +111,11 @@ type GC struct {
 	GraceSeconds *float64 `json:"grace_seconds"`
 }
 
-// Diff is the difference between two versions.
-type Diff struct {
-	From    VersionRef          `json:"from"`
-	To      VersionRef          `json:"to"`
-	Events  *export.DiffResult  `json:"events"`
-	Quality map[string]float64  `json:"quality_delta"` // to minus from, per score
-	Summary map[string]*float64 `json:"summary_delta"` // to minus from, per headline figure
-}
+// Diff is the difference between two versions (query.Diff).
+type Diff = query.Diff
 
-// VersionRef names a version by number and snapshot.
-type VersionRef struct {
-	Version    int                `json:"version"`
-	SnapshotID catalog.SnapshotID `json:"snapshot_id"`
-}
+// VersionRef names a version by number and snapshot (query.VersionRef).
+type VersionRef = query.VersionRef
 
 // Trend is a dataset's quality over its uploads, with the drift alerts.
 type Trend struct {
