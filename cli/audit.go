@@ -59,18 +59,8 @@ func (f *auditFlags) query() url.Values {
 func (f *auditFlags) filter() (catalog.AuditFilter, error) {
 	af := catalog.AuditFilter{Subject: f.subject, Action: f.action, Project: f.project, Dataset: f.dataset,
 		Outcome: f.outcome, After: f.after, Limit: f.limit}
-	for _, p := range []struct {
-		name, v string
-		dst     *time.Time
-	}{{"from", f.from, &af.From}, {"to", f.to, &af.To}} {
-		if p.v == "" {
-			continue
-		}
-		t, err := time.Parse(time.RFC3339Nano, p.v)
-		if err != nil {
-			return af, usageErr("--%s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", p.name, p.v)
-		}
-		*p.dst = t
+	if err := parseInstants("", instantFlag{"--from", f.from, &af.From}, instantFlag{"--to", f.to, &af.To}); err != nil {
+		return af, err
 	}
 	if err := af.Validate(); err != nil {
 		return af, usageErr("%v", err)

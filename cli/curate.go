@@ -103,12 +103,13 @@ and files younger than --grace are kept; every version, retracted ones too, keep
 			if err != nil {
 				return err
 			}
-			req := map[string]any{"dry_run": dry}
+			req := api.GC{DryRun: dry}
 			if cmd.Flags().Changed("grace") {
 				if grace < 0 {
 					return usageErr("sweep: --grace must not be negative")
 				}
-				req["grace_seconds"] = grace.Seconds()
+				g := grace.Seconds()
+				req.GraceSeconds = &g
 			}
 			var res catalog.GCResult
 			if err := cl.postJSON(cmd.Context(), "/admin/gc", req, &res); err != nil {

@@ -242,14 +242,14 @@ func (e *env) issueOverAPI(cmd *cobra.Command, role, subject, project string, da
 	}
 	var out api.Token
 	if project != "" && (role == server.RoleMember || role == server.RolePartner) {
-		req := map[string]any{"role": role, "subject": subject, "ttl": ttl.String()}
+		req := api.IssueProjectToken{Role: role, Subject: subject, TTL: ttl.String()}
 		if role == server.RolePartner {
-			req["datasets"], req["sites"], req["replace"] = datasets, sites, replace
+			req.Datasets, req.Sites, req.Replace = datasets, sites, replace
 		}
 		err = cl.postJSON(cmd.Context(), "/projects/"+url.PathEscape(project)+"/tokens", req, &out)
 	} else {
 		g := grantFor(role, subject, project, datasets, ttl)
-		err = cl.postJSON(cmd.Context(), "/admin/tokens", map[string]any{"role": g.Role, "subject": g.Subject, "project": g.Project, "datasets": g.Datasets, "sites": sites, "replace": replace, "ttl": ttl.String()}, &out)
+		err = cl.postJSON(cmd.Context(), "/admin/tokens", api.IssueToken{Role: g.Role, Subject: g.Subject, Project: g.Project, Datasets: g.Datasets, Sites: sites, Replace: replace, TTL: ttl.String()}, &out)
 	}
 	if err != nil {
 		return err

@@ -11,7 +11,6 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
-	"time"
 
 	"github.com/schollz/progressbar/v3"
 	"github.com/spf13/cobra"
@@ -31,18 +30,8 @@ type uploadFlags struct {
 func (f *uploadFlags) query(name string) (url.Values, error) {
 	q := url.Values{"filename": {name}}
 	opt := catalog.IngestOptions{Mode: catalog.Mode(f.mode), Sites: f.sites}
-	for _, p := range []struct {
-		flag, v string
-		dst     *time.Time
-	}{{"--from", f.from, &opt.From}, {"--to", f.to, &opt.To}} {
-		if p.v == "" {
-			continue
-		}
-		t, err := time.Parse(time.RFC3339Nano, p.v)
-		if err != nil {
-			return nil, usageErr("upload: %s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", p.flag, p.v)
-		}
-		*p.dst = t
+	if err := parseInstants("upload: ", instantFlag{"--from", f.from, &opt.From}, instantFlag{"--to", f.to, &opt.To}); err != nil {
+		return nil, err
 	}
 	if err := opt.Validate(); err != nil {
 		return nil, usageErr("upload: %s", strings.TrimSuffix(err.Error(), ": "+catalog.ErrInvalid.Error()))
@@ -80,11 +69,7 @@ with the reason.
 Every mode makes a new immutable version whose lineage names its parent, upload and mode.`,
 		Args: cobra.ExactArgs(2),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], false)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
+			r, cl, err := e.connect(args[0], false)
 			if err != nil {
 				return err
 			}

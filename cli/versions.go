@@ -16,11 +16,7 @@ func newVersionsCmd(e *env) *cobra.Command {
 		Short: "List a dataset's versions",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], false)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
+			r, cl, err := e.connect(args[0], false)
 			if err != nil {
 				return err
 			}

@@ -66,11 +66,7 @@ it from the version's files for those events only; --queue and --activity restri
 activity tables. The figures describe past operations; they are not advice on any patient's care.`,
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], true)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
+			r, cl, err := e.connect(args[0], true)
 			if err != nil {
 				return err
 			}
@@ -215,11 +211,7 @@ func newCiteCmd(e *env) *cobra.Command {
 		Short: "Print a version's CITATION.cff (Citation File Format 1.2.0)",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], true)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
+			r, cl, err := e.connect(args[0], true)
 			if err != nil {
 				return err
 			}
