@@ -258,7 +258,7 @@ func (e *env) seedDemo(cmd *cobra.Command, g *demoGuide, clock *demoClock, first
 	ccl, _ := cur.client()
 	for _, d := range demoDatasets {
 		prof := sc.Profile(d.site)
-		req := map[string]any{"name": d.dataset, "title": d.title, "profile": string(prof)}
+		req := api.CreateDataset{Name: d.dataset, Title: d.title, Profile: string(prof)}
 		if err := ccl.postJSON(ctx, "/projects/"+demoProject+"/datasets", req, nil); err != nil {
 			return fmt.Errorf("demo: creating %s: %w", d.dataset, err)
 		}
