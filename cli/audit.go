@@ -14,6 +14,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // auditFlags are the filters of flowcat audit and audit export.
@@ -58,18 +59,8 @@ func (f *auditFlags) query() url.Values {
 func (f *auditFlags) filter() (catalog.AuditFilter, error) {
 	af := catalog.AuditFilter{Subject: f.subject, Action: f.action, Project: f.project, Dataset: f.dataset,
 		Outcome: f.outcome, After: f.after, Limit: f.limit}
-	for _, p := range []struct {
-		name, v string
-		dst     *time.Time
-	}{{"from", f.from, &af.From}, {"to", f.to, &af.To}} {
-		if p.v == "" {
-			continue
-		}
-		t, err := time.Parse(time.RFC3339Nano, p.v)
-		if err != nil {
-			return af, usageErr("--%s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", p.name, p.v)
-		}
-		*p.dst = t
+	if err := parseInstants("", instantFlag{"--from", f.from, &af.From}, instantFlag{"--to", f.to, &af.To}); err != nil {
+		return af, err
 	}
 	if err := af.Validate(); err != nil {
 		return af, usageErr("%v", err)
@@ -88,11 +79,6 @@ func (f *auditFlags) withStore(ctx context.Context, fn func(*catalog.Store) erro
 	return fn(st)
 }
 
-type auditPageJSON struct {
-	Entries   []catalog.AuditEntry `json:"entries"`
-	NextAfter string               `json:"next_after,omitempty"`
-}
-
 func newAuditCmd(e *env) *cobra.Command {
 	var f auditFlags
 	c := &cobra.Command{
@@ -102,7 +88,7 @@ func newAuditCmd(e *env) *cobra.Command {
 their project's. The next page starts --after the id printed at the end.`,
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			var page auditPageJSON
+			var page api.AuditPage
 			if f.dir != "" {
 				af, err := f.filter()
 				if err != nil {

@@ -11,6 +11,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // patchJSON sends in with PATCH and decodes the answer into out.
@@ -123,9 +124,7 @@ func newDatasetChangeCmds(e *env) []*cobra.Command {
 		Short: "List a dataset's profile revisions",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			var out struct {
-				Revisions []catalog.ProfileRevision `json:"revisions"`
-			}
+			var out api.ProfileRevisions
 			if printed, err := e.fetch(cmd, args[0], false, func(r ref) string { return r.path() + "/profiles" }, &out); printed || err != nil {
 				return err
 			}
@@ -157,7 +156,7 @@ func newDatasetChangeCmds(e *env) []*cobra.Command {
 				}
 				var body any
 				if action != "unarchive" {
-					body = map[string]string{"reason": reason}
+					body = api.Reason{Reason: reason}
 				}
 				var out json.RawMessage
 				if err := cl.postJSON(cmd.Context(), r.path()+"/"+action, body, &out); err != nil {
@@ -205,7 +204,7 @@ func newProjectChangeCmds(e *env) []*cobra.Command {
 				}
 				var body any
 				if action != "unarchive" {
-					body = map[string]string{"reason": reason}
+					body = api.Reason{Reason: reason}
 				}
 				var out json.RawMessage
 				if err := cl.postJSON(cmd.Context(), "/projects/"+args[0]+"/"+action, body, &out); err != nil {

@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // client talks to a flowcat server.
@@ -42,19 +43,25 @@ func (e *env) client() (*client, error) {
 	return &client{base: u, token: e.token, http: &http.Client{}}, nil
 }
 
-// apiError is an error answer of the server.
-type apiError struct {
-	Status  int             `json:"status"`
-	Code    string          `json:"code"`
-	Message string          `json:"message"`
-	Rule    string          `json:"rule"`
-	Line    int64           `json:"line"`
-	Column  string          `json:"column"`
-	Upload  json.RawMessage `json:"upload"`
-}
+// apiError is an error answer of the server, read from its problem
+// details (api.Problem): the status, the code extension and the detail
+// (as Message), with the rule, line, column and upload of a refused
+// upload.
+type apiError struct{ api.ErrorBody }
 
 func (e *apiError) Error() string {
 	return fmt.Sprintf("server said %d %s: %s", e.Status, e.Code, e.Message)
+}
+
+// problemError reads an error answer's body: problem details (RFC 9457)
+// with flowcat's extensions, or, from a server or proxy that sent
+// something else, the status and the body's text.
+func problemError(status int, data []byte) *apiError {
+	var p api.Problem
+	if json.Unmarshal(data, &p) != nil || p.Status == 0 || p.Code == "" {
+		return &apiError{api.ErrorBody{Status: status, Code: "http", Message: strings.TrimSpace(string(data))}}
+	}
+	return &apiError{api.ErrorBody{Status: p.Status, Code: p.Code, Message: p.Detail, Rule: p.Rule, Line: p.Line, Column: p.Column, Upload: p.Upload}}
 }
 
 func (c *client) url(path string, q url.Values) string {
@@ -92,14 +99,8 @@ func (c *client) do(ctx context.Context, method, path string, q url.Values, body
 		return resp, nil
 	}
 	defer resp.Body.Close()
-	var eb struct {
-		Error apiError `json:"error"`
-	}
 	data, _ := io.ReadAll(io.LimitReader(resp.Body, 16<<20))
-	if json.Unmarshal(data, &eb) != nil || eb.Error.Status == 0 {
-		return nil, &apiError{Status: resp.StatusCode, Code: "http", Message: strings.TrimSpace(string(data))}
-	}
-	return nil, &eb.Error
+	return nil, problemError(resp.StatusCode, data)
 }
 
 // getJSON fetches path into v.
@@ -192,15 +193,23 @@ func parseRef(s string, withVersion bool) (ref, error) {
 	return r, nil
 }
 
+// connect parses arg as a dataset reference (with an optional @VERSION
+// when withVersion) and makes the client of the server: the first steps
+// of a command that reads one dataset.
+func (e *env) connect(arg string, withVersion bool) (ref, *client, error) {
+	r, err := parseRef(arg, withVersion)
+	if err != nil {
+		return r, nil, err
+	}
+	cl, err := e.client()
+	return r, cl, err
+}
+
 // fetch parses arg as a dataset reference (with an optional @VERSION when
 // withVersion), fetches the path that sub builds from it into v, and
 // reports whether the caller should print v as JSON and stop.
 func (e *env) fetch(cmd interface{ Context() context.Context }, arg string, withVersion bool, sub func(ref) string, v any) (printed bool, err error) {
-	r, err := parseRef(arg, withVersion)
-	if err != nil {
-		return false, err
-	}
-	cl, err := e.client()
+	r, cl, err := e.connect(arg, withVersion)
 	if err != nil {
 		return false, err
 	}

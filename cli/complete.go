@@ -10,6 +10,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // Shell completion: cobra's completion command writes the script for
@@ -149,10 +150,7 @@ func (e *env) completeProjects(cmd *cobra.Command, slash bool) ([]cobra.Completi
 		return nil, cobra.ShellCompDirectiveNoFileComp
 	}
 	defer cancel()
-	var ps []struct {
-		Name  string `json:"name"`
-		Title string `json:"title"`
-	}
+	var ps []api.Project
 	if err := cl.getJSON(ctx, "/projects", &ps); err != nil {
 		return nil, cobra.ShellCompDirectiveNoFileComp
 	}
@@ -199,9 +197,7 @@ func (e *env) completeRef(cmd *cobra.Command, toComplete string, withVersion boo
 		return nil, cobra.ShellCompDirectiveNoFileComp
 	}
 	r := ref{Project: project, Dataset: dataset}
-	var page struct {
-		Versions []catalog.Version `json:"versions"`
-	}
+	var page api.VersionsPage
 	q := url.Values{"limit": {strconv.Itoa(catalog.MaxVersionsPage)}}
 	if err := cl.getJSONQuery(ctx, r.path()+"/versions", q, &page); err != nil {
 		return nil, cobra.ShellCompDirectiveNoFileComp

@@ -7,6 +7,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // stateRef parses P/D@N for publish and retract, which name a version by
@@ -34,7 +35,7 @@ func newPublishCmd(e *env) *cobra.Command {
 				return err
 			}
 			if cmd.Flags().Changed("override-reason") {
-				return e.changeState(cmd, r, "publish-override", map[string]string{"reason": override})
+				return e.changeState(cmd, r, "publish-override", api.Reason{Reason: override})
 			}
 			return e.changeState(cmd, r, "publish", nil)
 		},
@@ -60,7 +61,7 @@ to remove the data itself from the dataset, upload a replacement (upload --mode)
 			if reason == "" {
 				return usageErr("retract: --reason is required")
 			}
-			return e.changeState(cmd, r, "retract", map[string]string{"reason": reason})
+			return e.changeState(cmd, r, "retract", api.Reason{Reason: reason})
 		},
 	}
 	c.Flags().StringVar(&reason, "reason", "", "why the version is withdrawn (shown with every refused download)")
@@ -102,12 +103,13 @@ and files younger than --grace are kept; every version, retracted ones too, keep
 			if err != nil {
 				return err
 			}
-			req := map[string]any{"dry_run": dry}
+			req := api.GC{DryRun: dry}
 			if cmd.Flags().Changed("grace") {
 				if grace < 0 {
 					return usageErr("sweep: --grace must not be negative")
 				}
-				req["grace_seconds"] = grace.Seconds()
+				g := grace.Seconds()
+				req.GraceSeconds = &g
 			}
 			var res catalog.GCResult
 			if err := cl.postJSON(cmd.Context(), "/admin/gc", req, &res); err != nil {

@@ -4,11 +4,13 @@ import (
 	"fmt"
 	"os"
 	"strconv"
+	"time"
 
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 func newDatasetCmd(e *env) *cobra.Command {
@@ -25,16 +27,16 @@ func newDatasetCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
-			req := map[string]any{"name": r.Dataset, "title": title, "timezone": zone, "drafts": drafts, "changes": changes, "historical": historical}
+			req := api.CreateDataset{Name: r.Dataset, Title: title, Timezone: zone, Drafts: drafts, Changes: changes, Historical: historical}
 			if profile != "" {
 				b, err := os.ReadFile(profile)
 				if err != nil {
 					return usageErr("profile: %v", err)
 				}
-				req["profile"] = string(b)
+				req.Profile = string(b)
 			}
 			if cmd.Flags().Changed("reject-above") {
-				req["reject_above"] = rejectAbove
+				req.RejectAbove = &rejectAbove
 			}
 			// The dataset's zone, for a window given as dates: --timezone,
 			// else the profile's, else UTC (as the server decides it).
@@ -42,13 +44,16 @@ func newDatasetCmd(e *env) *cobra.Command {
 				if zone != "" || profile == "" {
 					return zone, nil
 				}
-				p, err := schema.ParseProfile([]byte(req["profile"].(string)))
+				p, err := schema.ParseProfile([]byte(req.Profile))
 				if err != nil {
 					return "", err
 				}
 				return p.Timezone, nil
 			}
-			for _, wf := range []struct{ flag, key, v string }{{"window-from", "window_from", from}, {"window-to", "window_to", to}} {
+			for _, wf := range []struct {
+				flag, v string
+				dst     **time.Time
+			}{{"window-from", from, &req.WindowFrom}, {"window-to", to, &req.WindowTo}} {
 				if wf.v == "" {
 					continue
 				}
@@ -56,7 +61,7 @@ func newDatasetCmd(e *env) *cobra.Command {
 				if err != nil {
 					return err
 				}
-				req[wf.key] = t
+				*wf.dst = &t
 			}
 			cl, err := e.client()
 			if err != nil {
@@ -136,7 +141,7 @@ correction that replaces the old event in the new version (correct).`,
 				return err
 			}
 			var d catalog.Dataset
-			if err := cl.postJSON(cmd.Context(), r.path()+"/changes", map[string]string{"changes": args[1]}, &d); err != nil {
+			if err := cl.postJSON(cmd.Context(), r.path()+"/changes", api.SetChanges{Changes: args[1]}, &d); err != nil {
 				return err
 			}
 			if e.json {

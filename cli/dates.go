@@ -81,3 +81,27 @@ func windowInstant(name, v string, zone func() (string, error), w io.Writer) (ti
 	fmt.Fprintf(w, "--%s %s: taken as the start of that day in the dataset's zone, %s: %s\n", name, v, zoneName, start.Format(time.RFC3339))
 	return start, nil
 }
+
+// instantFlag is a flag whose value is an RFC 3339 instant, and where it
+// goes.
+type instantFlag struct {
+	flag, value string
+	dst         *time.Time
+}
+
+// parseInstants parses the values given of flags as RFC 3339 instants
+// into their destinations; a value that is not one is a usage error
+// beginning with prefix and naming the flag and the value.
+func parseInstants(prefix string, flags ...instantFlag) error {
+	for _, f := range flags {
+		if f.value == "" {
+			continue
+		}
+		t, err := time.Parse(time.RFC3339Nano, f.value)
+		if err != nil {
+			return usageErr("%s%s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", prefix, f.flag, f.value)
+		}
+		*f.dst = t
+	}
+	return nil
+}

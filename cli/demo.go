@@ -25,6 +25,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema/synth"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // The demo's invented scenario: a project of the invented Quillon Bay
@@ -250,14 +251,14 @@ func (e *env) seedDemo(cmd *cobra.Command, g *demoGuide, clock *demoClock, first
 	if err != nil {
 		return err
 	}
-	if err := cl.postJSON(ctx, "/projects", map[string]string{"name": demoProject, "title": "Quillon Bay Health patient-flow study (invented)"}, nil); err != nil {
+	if err := cl.postJSON(ctx, "/projects", api.CreateProject{Name: demoProject, Title: "Quillon Bay Health patient-flow study (invented)"}, nil); err != nil {
 		return err
 	}
 	cur := &env{stdout: io.Discard, stderr: e.stderr, server: g.url, token: t.curator, quiet: true}
 	ccl, _ := cur.client()
 	for _, d := range demoDatasets {
 		prof := sc.Profile(d.site)
-		req := map[string]any{"name": d.dataset, "title": d.title, "profile": string(prof)}
+		req := api.CreateDataset{Name: d.dataset, Title: d.title, Profile: string(prof)}
 		if err := ccl.postJSON(ctx, "/projects/"+demoProject+"/datasets", req, nil); err != nil {
 			return fmt.Errorf("demo: creating %s: %w", d.dataset, err)
 		}

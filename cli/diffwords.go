@@ -8,7 +8,9 @@ import (
 	"text/tabwriter"
 	"time"
 
+	"github.com/flowcat-catalog/flowcat/catalog/export"
 	"github.com/flowcat-catalog/flowcat/quality"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // diffFigures names the headline figures of a diff's summary_delta, in
@@ -42,9 +44,12 @@ func signedDuration(sec float64) string {
 
 // printDiff writes a diff for people: labels, not JSON keys, rounded
 // figures with their units.
-func printDiff(w io.Writer, dataset string, d *diffAnswer) {
+func printDiff(w io.Writer, dataset string, d *api.Diff) {
 	fmt.Fprintf(w, "%s, version %d -> version %d\n", dataset, d.From.Version, d.To.Version)
 	ev := d.Events
+	if ev == nil {
+		ev = &export.DiffResult{}
+	}
 	files := "files"
 	if ev.SharedFiles == 1 {
 		files = "file"

@@ -2,18 +2,11 @@ package cli
 
 import (
 	"fmt"
-	"time"
 
 	"github.com/spf13/cobra"
-)
 
-type projectInfo struct {
-	Name      string    `json:"name"`
-	Title     string    `json:"title"`
-	CreatedAt time.Time `json:"created_at"`
-	CreatedBy string    `json:"created_by"`
-	KeyID     string    `json:"pseudonym_key_id"`
-}
+	"github.com/flowcat-catalog/flowcat/server/api"
+)
 
 func newProjectCmd(e *env) *cobra.Command {
 	c := &cobra.Command{Use: "project", Short: "Create, list, archive and delete projects"}
@@ -27,8 +20,8 @@ func newProjectCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
-			var p projectInfo
-			if err := cl.postJSON(cmd.Context(), "/projects", map[string]string{"name": args[0], "title": title}, &p); err != nil {
+			var p api.Project
+			if err := cl.postJSON(cmd.Context(), "/projects", api.CreateProject{Name: args[0], Title: title}, &p); err != nil {
 				return err
 			}
 			if e.json {
@@ -48,7 +41,7 @@ func newProjectCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
-			var ps []projectInfo
+			var ps []api.Project
 			if err := cl.getJSON(cmd.Context(), "/projects", &ps); err != nil {
 				return err
 			}

@@ -13,12 +13,8 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/quality"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
-
-type trendAnswer struct {
-	Points []catalog.TrendPoint  `json:"points"`
-	Alerts []catalog.UploadAlert `json:"alerts"`
-}
 
 func newQualityCmd(e *env) *cobra.Command {
 	var trend bool
@@ -48,7 +44,7 @@ completeness dropped (an export that lost a column).`,
 				if site != "" {
 					q.Set("site", site)
 				}
-				var t trendAnswer
+				var t api.Trend
 				resp, err := cl.do(cmd.Context(), "GET", r.path()+"/quality/trend", q, nil, nil)
 				if err != nil {
 					return err
@@ -145,7 +141,7 @@ func newAlertsCmd(e *env) *cobra.Command {
 // unknownSite explains an empty trend of one site: the site has no
 // upload in the dataset; it names the sites that have.
 func (e *env) unknownSite(cmd *cobra.Command, cl *client, r ref, site string) error {
-	var all trendAnswer
+	var all api.Trend
 	if err := cl.getJSON(cmd.Context(), r.path()+"/quality/trend", &all); err != nil {
 		return err
 	}

@@ -13,6 +13,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/server"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // operator is the audit trail's "by" for commands run on the server host.
@@ -129,9 +130,7 @@ func newTokenListCmd(e *env) *cobra.Command {
 				if err != nil {
 					return err
 				}
-				var out struct {
-					Tokens []catalog.TokenRecord `json:"tokens"`
-				}
+				var out api.Tokens
 				path := "/admin/tokens"
 				if project != "" {
 					path = "/projects/" + url.PathEscape(project) + "/tokens"
@@ -216,7 +215,7 @@ func newTokenRevokeCmd(e *env) *cobra.Command {
 				if project != "" {
 					path = "/projects/" + url.PathEscape(project) + "/tokens/" + url.PathEscape(args[0]) + "/revoke"
 				}
-				if err := cl.postJSON(cmd.Context(), path, map[string]string{"reason": reason}, &rv); err != nil {
+				if err := cl.postJSON(cmd.Context(), path, api.Reason{Reason: reason}, &rv); err != nil {
 					return err
 				}
 			}
@@ -241,18 +240,16 @@ func (e *env) issueOverAPI(cmd *cobra.Command, role, subject, project string, da
 	if err != nil {
 		return err
 	}
-	var out struct {
-		Token string `json:"token"`
-	}
+	var out api.Token
 	if project != "" && (role == server.RoleMember || role == server.RolePartner) {
-		req := map[string]any{"role": role, "subject": subject, "ttl": ttl.String()}
+		req := api.IssueProjectToken{Role: role, Subject: subject, TTL: ttl.String()}
 		if role == server.RolePartner {
-			req["datasets"], req["sites"], req["replace"] = datasets, sites, replace
+			req.Datasets, req.Sites, req.Replace = datasets, sites, replace
 		}
 		err = cl.postJSON(cmd.Context(), "/projects/"+url.PathEscape(project)+"/tokens", req, &out)
 	} else {
 		g := grantFor(role, subject, project, datasets, ttl)
-		err = cl.postJSON(cmd.Context(), "/admin/tokens", map[string]any{"role": g.Role, "subject": g.Subject, "project": g.Project, "datasets": g.Datasets, "sites": sites, "replace": replace, "ttl": ttl.String()}, &out)
+		err = cl.postJSON(cmd.Context(), "/admin/tokens", api.IssueToken{Role: g.Role, Subject: g.Subject, Project: g.Project, Datasets: g.Datasets, Sites: sites, Replace: replace, TTL: ttl.String()}, &out)
 	}
 	if err != nil {
 		return err

@@ -11,19 +11,14 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
-	"time"
 
 	"github.com/schollz/progressbar/v3"
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/quality"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
-
-type uploadAnswer struct {
-	Upload  catalog.Upload   `json:"upload"`
-	Version *catalog.Version `json:"version,omitempty"`
-}
 
 // uploadFlags are upload's mode options.
 type uploadFlags struct {
@@ -35,18 +30,8 @@ type uploadFlags struct {
 func (f *uploadFlags) query(name string) (url.Values, error) {
 	q := url.Values{"filename": {name}}
 	opt := catalog.IngestOptions{Mode: catalog.Mode(f.mode), Sites: f.sites}
-	for _, p := range []struct {
-		flag, v string
-		dst     *time.Time
-	}{{"--from", f.from, &opt.From}, {"--to", f.to, &opt.To}} {
-		if p.v == "" {
-			continue
-		}
-		t, err := time.Parse(time.RFC3339Nano, p.v)
-		if err != nil {
-			return nil, usageErr("upload: %s %q: want an RFC 3339 instant, such as 2026-03-01T00:00:00Z", p.flag, p.v)
-		}
-		*p.dst = t
+	if err := parseInstants("upload: ", instantFlag{"--from", f.from, &opt.From}, instantFlag{"--to", f.to, &opt.To}); err != nil {
+		return nil, err
 	}
 	if err := opt.Validate(); err != nil {
 		return nil, usageErr("upload: %s", strings.TrimSuffix(err.Error(), ": "+catalog.ErrInvalid.Error()))
@@ -84,11 +69,7 @@ with the reason.
 Every mode makes a new immutable version whose lineage names its parent, upload and mode.`,
 		Args: cobra.ExactArgs(2),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], false)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
+			r, cl, err := e.connect(args[0], false)
 			if err != nil {
 				return err
 			}
@@ -131,7 +112,7 @@ Every mode makes a new immutable version whose lineage names its parent, upload 
 
 // uploadFile streams body to the dataset; a rejection comes back as an
 // exit-1 error after the report is printed (or written as JSON).
-func (e *env) uploadFile(cmd *cobra.Command, cl *client, r ref, body io.Reader, q url.Values, size int64) (*uploadAnswer, error) {
+func (e *env) uploadFile(cmd *cobra.Command, cl *client, r ref, body io.Reader, q url.Values, size int64) (*api.UploadResult, error) {
 	name := q.Get("filename")
 	var rd io.Reader = body
 	if e.tty() && !e.quiet && !e.json {
@@ -145,29 +126,26 @@ func (e *env) uploadFile(cmd *cobra.Command, cl *client, r ref, body io.Reader, 
 	hdr := http.Header{"Content-Type": {"application/octet-stream"}, "Content-Length": {strconv.FormatInt(size, 10)}}
 	resp, err := cl.do(cmd.Context(), http.MethodPost, r.path()+"/uploads", q, rd, hdr)
 	var ae *apiError
-	if errors.As(err, &ae) && len(ae.Upload) > 0 {
-		var up catalog.Upload
-		if json.Unmarshal(ae.Upload, &up) == nil {
-			if e.json {
-				writeJSON(e.stdout, map[string]any{"error": ae, "upload": up})
-				return nil, errSilent
-			}
-			printRejected(e.stderr, name, ae, &up)
+	if errors.As(err, &ae) && ae.Upload != nil {
+		if e.json {
+			writeJSON(e.stdout, map[string]any{"error": ae, "upload": ae.Upload})
 			return nil, errSilent
 		}
+		printRejected(e.stderr, name, ae, ae.Upload)
+		return nil, errSilent
 	}
 	if err != nil {
 		return nil, err
 	}
 	defer resp.Body.Close()
-	var ans uploadAnswer
+	var ans api.UploadResult
 	if err := json.NewDecoder(resp.Body).Decode(&ans); err != nil {
 		return nil, fmt.Errorf("upload: reading answer: %w", err)
 	}
 	return &ans, nil
 }
 
-func printUpload(w io.Writer, r ref, a *uploadAnswer) {
+func printUpload(w io.Writer, r ref, a *api.UploadResult) {
 	u := a.Upload
 	if u.Status == catalog.UploadDuplicate {
 		fmt.Fprintf(w, "%s: %s\n", r, u.Sentence())

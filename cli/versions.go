@@ -7,6 +7,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 func newVersionsCmd(e *env) *cobra.Command {
@@ -15,11 +16,7 @@ func newVersionsCmd(e *env) *cobra.Command {
 		Short: "List a dataset's versions",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], false)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
+			r, cl, err := e.connect(args[0], false)
 			if err != nil {
 				return err
 			}
@@ -27,10 +24,7 @@ func newVersionsCmd(e *env) *cobra.Command {
 			hs := []catalog.Version{}
 			after := 0
 			for {
-				var page struct {
-					Versions  []catalog.Version `json:"versions"`
-					NextAfter *int              `json:"next_after"`
-				}
+				var page api.VersionsPage
 				q := url.Values{"limit": {strconv.Itoa(catalog.MaxVersionsPage)}, "after": {strconv.Itoa(after)}}
 				if err := cl.getJSONQuery(cmd.Context(), r.path()+"/versions", q, &page); err != nil {
 					return err

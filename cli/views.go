@@ -14,6 +14,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // filterFlags are the event filters of summary, export and diff.
@@ -65,11 +66,7 @@ it from the version's files for those events only; --queue and --activity restri
 activity tables. The figures describe past operations; they are not advice on any patient's care.`,
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], true)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
+			r, cl, err := e.connect(args[0], true)
 			if err != nil {
 				return err
 			}
@@ -214,11 +211,7 @@ func newCiteCmd(e *env) *cobra.Command {
 		Short: "Print a version's CITATION.cff (Citation File Format 1.2.0)",
 		Args:  cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			r, err := parseRef(args[0], true)
-			if err != nil {
-				return err
-			}
-			cl, err := e.client()
+			r, cl, err := e.connect(args[0], true)
 			if err != nil {
 				return err
 			}
@@ -246,32 +239,6 @@ func newCiteCmd(e *env) *cobra.Command {
 			return writeJSON(e.stdout, c)
 		},
 	}
-}
-
-type diffAnswer struct {
-	From struct {
-		Version    int    `json:"version"`
-		SnapshotID string `json:"snapshot_id"`
-	} `json:"from"`
-	To struct {
-		Version    int    `json:"version"`
-		SnapshotID string `json:"snapshot_id"`
-	} `json:"to"`
-	Events struct {
-		Added       int64 `json:"added"`
-		Removed     int64 `json:"removed"`
-		Same        int64 `json:"same"`
-		SharedFiles int   `json:"shared_files"`
-		SharedRows  int64 `json:"shared_rows"`
-		BySite      []struct {
-			Site    string `json:"site"`
-			Day     string `json:"day"`
-			Added   int64  `json:"added"`
-			Removed int64  `json:"removed"`
-		} `json:"by_site_day"`
-	} `json:"events"`
-	Quality map[string]float64  `json:"quality_delta"`
-	Summary map[string]*float64 `json:"summary_delta"`
 }
 
 func newDiffCmd(e *env) *cobra.Command {
@@ -313,7 +280,7 @@ func newDiffCmd(e *env) *cobra.Command {
 				return err
 			}
 			defer resp.Body.Close()
-			var d diffAnswer
+			var d api.Diff
 			raw, err := io.ReadAll(resp.Body)
 			if err != nil {
 				return err

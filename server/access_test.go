@@ -12,6 +12,7 @@ import (
 	"testing"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // matrixRoles are the principals of the access matrix: no token, an
@@ -297,7 +298,7 @@ func TestAuditTrailEndToEnd(t *testing.T) {
 	var paged []catalog.AuditEntry
 	after := ""
 	for {
-		var page auditPage
+		var page api.AuditPage
 		e.decode(e.get("/api/v1/audit?limit=3&after="+after, e.admin), &page)
 		paged = append(paged, page.Entries...)
 		if page.NextAfter == "" {
@@ -315,7 +316,7 @@ func TestAuditTrailEndToEnd(t *testing.T) {
 	}
 
 	// Curators see their own project's entries only.
-	var page auditPage
+	var page api.AuditPage
 	e.decode(e.get("/api/v1/audit?limit=1000", cur), &page)
 	if len(page.Entries) == 0 {
 		t.Fatal("curator of alpha sees no entries")
@@ -480,7 +481,7 @@ func TestPartnerReplaceGrant(t *testing.T) {
 	e.mustStatus(e.do("POST", "/api/v1/projects/alpha/datasets/visits/uploads?mode=replace-all", north, strings.NewReader(fixed), nil), 403, "replace-all with the grant")
 	r = e.do("POST", ds+"&site=north", north, strings.NewReader(fixed), map[string]string{"Content-Type": "text/csv"})
 	e.mustStatus(r, 201, "replace its own site's window")
-	var up uploadResponse
+	var up api.UploadResult
 	e.decode(r, &up)
 	if up.Version.Manifest.Rows != 2 || up.Version.Manifest.Lineage.RowsRemoved != 1 {
 		t.Fatalf("after the replace: %d rows, %d removed; want 2 and 1 (south kept)", up.Version.Manifest.Rows, up.Version.Manifest.Lineage.RowsRemoved)

@@ -11,6 +11,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/quality"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // TestUploadTooLarge checks that a body over Config.MaxUploadBytes is
@@ -178,7 +179,7 @@ func TestVersionsPages(t *testing.T) {
 	ds := "/api/v1/projects/ward/datasets/paged/versions"
 	r := e.get(ds+"?limit=3", e.admin)
 	e.mustStatus(r, http.StatusOK, "first page")
-	var page versionsPage
+	var page api.VersionsPage
 	e.decode(r, &page)
 	if len(page.Versions) != 3 || page.NextAfter == nil || *page.NextAfter != 3 {
 		t.Fatalf("first page: %d versions, next_after %v; want 3 and 3", len(page.Versions), page.NextAfter)

@@ -11,6 +11,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // auditParams are the query parameters of the audit trail's endpoints.
@@ -61,13 +62,6 @@ func auditFilter(c echo.Context, paged bool) (catalog.AuditFilter, error) {
 	return f, nil
 }
 
-// auditPage is one page of the audit trail.
-type auditPage struct {
-	Entries []catalog.AuditEntry `json:"entries"`
-	// NextAfter, when set, is the after= of the next page.
-	NextAfter string `json:"next_after,omitempty"`
-}
-
 // listAudit serves a page of the audit trail, oldest first.
 func (s *Server) listAudit(c echo.Context) error {
 	f, err := auditFilter(c, true)
@@ -78,7 +72,7 @@ func (s *Server) listAudit(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	return c.JSON(http.StatusOK, auditPage{Entries: es, NextAfter: next})
+	return c.JSON(http.StatusOK, api.AuditPage{Entries: es, NextAfter: next})
 }
 
 // exportAudit streams every entry the filter selects as JSON Lines, and

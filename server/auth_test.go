@@ -8,6 +8,8 @@ import (
 	"time"
 
 	"github.com/golang-jwt/jwt/v5"
+
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // craft signs claims built from a valid admin token's claims after mutate,
@@ -220,7 +222,7 @@ func TestAuthScopes(t *testing.T) {
 	}
 
 	// Listings are filtered to what the token may see.
-	var ps []projectView
+	var ps []api.Project
 	e.decode(e.get("/api/v1/projects", memberA), &ps)
 	if len(ps) != 1 || ps[0].Name != "alpha" {
 		t.Errorf("member of alpha lists projects %+v, want alpha only", ps)

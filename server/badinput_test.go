@@ -17,6 +17,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // Raw identifier values planted in the test files; none may leave ingest.
@@ -196,7 +197,7 @@ func TestBadUploads(t *testing.T) {
 			}
 			ok := e.upload("ward", tc.dataset, partner, "good.csv", good)
 			e.mustStatus(ok, http.StatusCreated, "good upload after the bad one")
-			var res uploadResponse
+			var res api.UploadResult
 			e.decode(ok, &res)
 			if res.Version == nil || res.Version.Number != latest+1 {
 				t.Errorf("good upload made %+v, want version %d", res.Version, latest+1)
@@ -212,7 +213,7 @@ func TestBadUploads(t *testing.T) {
 		rows[10] = strings.Replace(rows[10], "2024-03-28 ", "28/03/2024 ", 1)
 		r := e.upload("ward", "events", partner, "mixed.csv", []byte(wardHeader+strings.Join(rows, "\n")+"\n"))
 		e.mustStatus(r, http.StatusCreated, "upload with one bad timestamp")
-		var res uploadResponse
+		var res api.UploadResult
 		e.decode(r, &res)
 		rep := res.Upload.Report
 		if rep == nil || rep.Rows.Accepted != 29 || rep.Rows.Rejected != 1 || len(rep.Rejections) != 1 ||

@@ -20,6 +20,7 @@ import (
 	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // TestSepsisCases sends the public "Sepsis Cases" log (testdata/sepsis)
@@ -42,7 +43,7 @@ func TestSepsisCases(t *testing.T) {
 	e.createDataset("hospital", "sepsis", string(profile))
 	r := e.upload("hospital", "sepsis", e.partner("hospital/sepsis"), "sepsis-cases.csv.gz", data)
 	e.mustStatus(r, http.StatusCreated, "upload the sepsis log")
-	var res uploadResponse
+	var res api.UploadResult
 	e.decode(r, &res)
 	v := res.Version
 	vq := e.versionReport("hospital", "sepsis", v.Number)

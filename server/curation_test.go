@@ -8,6 +8,7 @@ import (
 	"testing"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // TestCurationOverHTTP covers drafts, publication, retraction (410 for
@@ -21,7 +22,7 @@ func TestCurationOverHTTP(t *testing.T) {
 	ds := "/api/v1/projects/ward/datasets/events"
 	curator, member, partner := e.curator("ward"), e.member("ward"), e.partner("ward/events")
 
-	var up uploadResponse
+	var up api.UploadResult
 	e.decode(e.upload("ward", "events", partner, "d4.csv", wardFile(4, 12)), &up)
 	if up.Version == nil || up.Version.State != catalog.StateDraft {
 		t.Fatalf("first upload to a drafts dataset: %+v", up.Version)
@@ -34,7 +35,7 @@ func TestCurationOverHTTP(t *testing.T) {
 	// Nor through the uploads, the trend or the alerts.
 	var ups []catalog.Upload
 	e.decode(e.get(ds+"/uploads", member), &ups)
-	var tr trendResponse
+	var tr api.Trend
 	e.decode(e.get(ds+"/quality/trend", member), &tr)
 	if len(ups) != 0 || len(tr.Points) != 0 {
 		t.Fatalf("member sees %d uploads and %d trend points of a draft", len(ups), len(tr.Points))

@@ -3,26 +3,12 @@ package server
 import (
 	"net/http"
 	"strings"
-	"time"
 
 	"github.com/labstack/echo/v4"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
-
-// editDatasetRequest is the body of PATCH on a dataset: the members given
-// change, the others stay. "window_from"/"window_to" null or absent leave
-// the window; "clear_window": true removes it.
-type editDatasetRequest struct {
-	Title       *string    `json:"title"`
-	Description *string    `json:"description"`
-	RejectAbove *float64   `json:"reject_above"`
-	WindowFrom  *time.Time `json:"window_from"`
-	WindowTo    *time.Time `json:"window_to"`
-	ClearWindow bool       `json:"clear_window"`
-	Profile     *string    `json:"profile"` // YAML text; "" for the default profile
-	Timezone    *string    `json:"timezone"`
-}
 
 func curates(cl *Claims, project, _ string) bool { return cl.CanCurate(project) }
 
@@ -34,7 +20,7 @@ func (s *Server) editDataset(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	var req editDatasetRequest
+	var req api.EditDataset
 	if err := decodeJSON(c, &req, `{"title", "description", "reject_above", "window_from", "window_to", "clear_window", "profile", "timezone"}`); err != nil {
 		return err
 	}
@@ -60,11 +46,7 @@ func (s *Server) listProfiles(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	return c.JSON(http.StatusOK, map[string]any{"revisions": revs})
-}
-
-type reasonRequest struct {
-	Reason string `json:"reason"`
+	return c.JSON(http.StatusOK, api.ProfileRevisions{Revisions: revs})
 }
 
 // optionalReason reads a body {"reason"} that may be absent.
@@ -73,7 +55,7 @@ func optionalReason(c echo.Context) (string, error) {
 	if req.ContentLength == 0 {
 		return "", nil
 	}
-	var r reasonRequest
+	var r api.Reason
 	if err := decodeJSON(c, &r, `{"reason"}`); err != nil {
 		return "", err
 	}
@@ -115,7 +97,7 @@ func (s *Server) deleteDataset(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	var req reasonRequest
+	var req api.Reason
 	if err := decodeJSON(c, &req, `{"reason"}`); err != nil {
 		return err
 	}
@@ -127,10 +109,6 @@ func (s *Server) deleteDataset(c echo.Context) error {
 	return c.JSON(http.StatusOK, del)
 }
 
-type editProjectRequest struct {
-	Title *string `json:"title"`
-}
-
 // editProject sets a project's title (its curators and admins).
 func (s *Server) editProject(c echo.Context) error {
 	project := c.Param("project")
@@ -138,7 +116,7 @@ func (s *Server) editProject(c echo.Context) error {
 	if !cl.CanCurate(project) {
 		return forbidden("edit project " + project)
 	}
-	var req editProjectRequest
+	var req api.EditProject
 	if err := decodeJSON(c, &req, `{"title"}`); err != nil {
 		return err
 	}
@@ -149,7 +127,7 @@ func (s *Server) editProject(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	return c.JSON(http.StatusOK, viewProject(p))
+	return c.JSON(http.StatusOK, api.ProjectOf(p))
 }
 
 // projectMark archives, unarchives or deletes a project (admins only).
@@ -163,7 +141,7 @@ func (s *Server) projectMark(c echo.Context) error {
 	ctx := c.Request().Context()
 	switch action {
 	case "delete":
-		var req reasonRequest
+		var req api.Reason
 		if err := decodeJSON(c, &req, `{"reason"}`); err != nil {
 			return err
 		}
@@ -171,13 +149,13 @@ func (s *Server) projectMark(c echo.Context) error {
 		if err != nil {
 			return catalogError(err)
 		}
-		return c.JSON(http.StatusOK, map[string]any{"project": project, "datasets": dels})
+		return c.JSON(http.StatusOK, api.ProjectDeletion{Project: project, Datasets: dels})
 	case "unarchive":
 		p, err := s.cfg.Store.UnarchiveProject(ctx, project, cl.Subject)
 		if err != nil {
 			return catalogError(err)
 		}
-		return c.JSON(http.StatusOK, viewProject(p))
+		return c.JSON(http.StatusOK, api.ProjectOf(p))
 	}
 	reason, err := optionalReason(c)
 	if err != nil {
@@ -187,7 +165,7 @@ func (s *Server) projectMark(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	return c.JSON(http.StatusOK, viewProject(p))
+	return c.JSON(http.StatusOK, api.ProjectOf(p))
 }
 
 // withArchived reads the archived= parameter of a list: "true" includes

@@ -7,6 +7,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // getDisclosure serves a version's disclosure report as stored: the
@@ -25,10 +26,6 @@ func (s *Server) getDisclosure(c echo.Context) error {
 	return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
 }
 
-type overrideRequest struct {
-	Reason string `json:"reason"`
-}
-
 // publishOverride publishes a version above its project's disclosure
 // risk threshold; curators only, with a reason that is recorded.
 func (s *Server) publishOverride(c echo.Context) error {
@@ -44,7 +41,7 @@ func (s *Server) publishOverride(c echo.Context) error {
 	if sel.Kind != catalog.SelectNumber {
 		return fail(http.StatusBadRequest, "invalid", "publish-override names a version by its number, not %q", sel)
 	}
-	var req overrideRequest
+	var req api.Reason
 	if err := decodeJSON(c, &req, `{"reason"}`); err != nil {
 		return err
 	}

@@ -19,22 +19,8 @@ import (
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/quality"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
-
-// projectView is a project as the API shows it: never its sealed key.
-type projectView struct {
-	Name      string        `json:"name"`
-	Title     string        `json:"title,omitempty"`
-	CreatedAt time.Time     `json:"created_at"`
-	CreatedBy string        `json:"created_by"`
-	KeyID     string        `json:"pseudonym_key_id"`
-	Archived  *catalog.Mark `json:"archived,omitempty"`
-	Deleted   *catalog.Mark `json:"deleted,omitempty"`
-}
-
-func viewProject(p *catalog.Project) projectView {
-	return projectView{Name: p.Name, Title: p.Title, CreatedAt: p.CreatedAt, CreatedBy: p.CreatedBy, KeyID: p.Key.ID, Archived: p.Archived, Deleted: p.Deleted}
-}
 
 func (s *Server) listProjects(c echo.Context) error {
 	cl := claims(c)
@@ -46,18 +32,13 @@ func (s *Server) listProjects(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	out := []projectView{}
+	out := []api.Project{}
 	for i := range ps {
 		if cl.CanRead(ps[i].Name) && (archived || ps[i].Archived == nil) {
-			out = append(out, viewProject(&ps[i]))
+			out = append(out, api.ProjectOf(&ps[i]))
 		}
 	}
 	return c.JSON(http.StatusOK, out)
-}
-
-type createProjectRequest struct {
-	Name  string `json:"name"`
-	Title string `json:"title"`
 }
 
 func (s *Server) createProject(c echo.Context) error {
@@ -65,7 +46,7 @@ func (s *Server) createProject(c echo.Context) error {
 	if cl.Role != RoleAdmin {
 		return forbidden("create projects (admin only)")
 	}
-	var req createProjectRequest
+	var req api.CreateProject
 	if err := decodeJSON(c, &req, `{"name": ..., "title": ...}`); err != nil {
 		return err
 	}
@@ -73,7 +54,7 @@ func (s *Server) createProject(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	return c.JSON(http.StatusCreated, viewProject(p))
+	return c.JSON(http.StatusCreated, api.ProjectOf(p))
 }
 
 func (s *Server) getProject(c echo.Context) error {
@@ -85,7 +66,7 @@ func (s *Server) getProject(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	return c.JSON(http.StatusOK, viewProject(p))
+	return c.JSON(http.StatusOK, api.ProjectOf(p))
 }
 
 func (s *Server) listDatasets(c echo.Context) error {
@@ -111,26 +92,13 @@ func (s *Server) listDatasets(c echo.Context) error {
 	return c.JSON(http.StatusOK, out)
 }
 
-type createDatasetRequest struct {
-	Name        string     `json:"name"`
-	Title       string     `json:"title"`
-	Profile     string     `json:"profile"` // YAML text
-	Timezone    string     `json:"timezone"`
-	RejectAbove *float64   `json:"reject_above"`
-	WindowFrom  *time.Time `json:"window_from"`
-	WindowTo    *time.Time `json:"window_to"`
-	Drafts      bool       `json:"drafts"`
-	Changes     string     `json:"changes"` // refuse (default) or correct
-	Historical  bool       `json:"historical"`
-}
-
 func (s *Server) createDataset(c echo.Context) error {
 	cl := claims(c)
 	project := c.Param("project")
 	if !cl.CanCurate(project) {
 		return forbidden("create datasets in project " + project)
 	}
-	var req createDatasetRequest
+	var req api.CreateDataset
 	if err := decodeJSON(c, &req, `{"name", "title", "profile", "timezone", "reject_above", "window_from", "window_to", "drafts", "changes", "historical"}`); err != nil {
 		return err
 	}
@@ -164,9 +132,7 @@ func (s *Server) setChanges(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	var req struct {
-		Changes string `json:"changes"`
-	}
+	var req api.SetChanges
 	if err := decodeJSON(c, &req, `{"changes": "refuse" | "correct"}`); err != nil {
 		return err
 	}
@@ -186,13 +152,6 @@ func (s *Server) getDataset(c echo.Context) error {
 		return err
 	}
 	return c.JSON(http.StatusOK, d)
-}
-
-// uploadResponse is the body of an upload's answer, whatever became of it.
-type uploadResponse struct {
-	Upload  catalog.Upload   `json:"upload"`
-	Version *catalog.Version `json:"version,omitempty"`
-	Message string           `json:"message"` // what happened, in one line
 }
 
 // upload streams the request body into the catalog's ingest: the body is
@@ -224,7 +183,7 @@ func (s *Server) upload(c echo.Context) error {
 	s.metrics.observeUpload(res, time.Since(started))
 	withUpload := func(he *httpError) error {
 		if res != nil {
-			he.body.Upload = res.Upload
+			he.body.Upload = &res.Upload
 			if e := res.Upload.Error; e != nil {
 				he.body.Rule = e.Rule
 			}
@@ -247,14 +206,14 @@ func (s *Server) upload(c echo.Context) error {
 		he := fail(http.StatusBadRequest, "file_invalid", "%s", err.Error())
 		he.body.Rule, he.body.Line, he.body.Column = e.Rule, e.Line, e.Column
 		he.body.Message = fileMessage(res.Upload.Filename, e)
-		he.body.Upload = res.Upload
+		he.body.Upload = &res.Upload
 		return he
 	case errors.Is(err, catalog.ErrRejected) && res.Upload.Error != nil && res.Upload.Error.Rule == catalog.RuleSiteNotAllowed:
 		// A partner writing a site its token does not name: refused by
 		// authorization, after the body showed it.
 		e := res.Upload.Error
 		he := fail(http.StatusForbidden, "forbidden", "this token may not write site data it is not bound to: %s", fileMessage(res.Upload.Filename, e))
-		he.body.Rule, he.body.Line, he.body.Column, he.body.Upload = e.Rule, e.Line, e.Column, res.Upload
+		he.body.Rule, he.body.Line, he.body.Column, he.body.Upload = e.Rule, e.Line, e.Column, &res.Upload
 		return he
 	case errors.Is(err, catalog.ErrRejected):
 		he := fail(http.StatusUnprocessableEntity, "rejected", "%s", err.Error())
@@ -262,7 +221,7 @@ func (s *Server) upload(c echo.Context) error {
 		if ue := res.Upload.Error; ue != nil { // outside the window, changed events
 			he.body.Rule, he.body.Line, he.body.Column = ue.Rule, ue.Line, ue.Column
 		}
-		he.body.Upload = res.Upload
+		he.body.Upload = &res.Upload
 		return he
 	case err != nil && res != nil:
 		s.cfg.Logger.Error("upload failed", "dataset", d.Ref(), "upload", res.Upload.ID, "err", err)
@@ -274,7 +233,7 @@ func (s *Server) upload(c echo.Context) error {
 	if res.Upload.Status == catalog.UploadDuplicate {
 		status = http.StatusOK
 	}
-	return c.JSON(status, uploadResponse{Upload: res.Upload, Version: res.Version, Message: disclosureNote(res.Upload.Sentence(), res.Version)})
+	return c.JSON(status, api.UploadResult{Upload: res.Upload, Version: res.Version, Message: disclosureNote(res.Upload.Sentence(), res.Version)})
 }
 
 // takeUploadSlot counts an upload of the token in progress, or refuses
@@ -342,7 +301,7 @@ func uploadOptions(c echo.Context) (catalog.IngestOptions, error) {
 // first line (and column) of the most frequent one, which also fills the
 // body's rule, line and column. Samples hold no values, so neither does
 // the message.
-func rejectedDetail(b *errorBody, up catalog.Upload) {
+func rejectedDetail(b *api.ErrorBody, up catalog.Upload) {
 	if up.Report == nil || len(up.Report.Rejections) == 0 {
 		return
 	}
@@ -394,22 +353,12 @@ func (s *Server) listUploads(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	ups, err := s.cfg.Store.Uploads(c.Request().Context(), d.Project, d.Name)
+	cl := claims(c)
+	ups, err := s.cfg.Store.VisibleUploads(c.Request().Context(), d.Project, d.Name, cl.CanUpload(d.Project, d.Name))
 	if err != nil {
 		return catalogError(err)
 	}
-	unseen, err := s.unseenVersions(c, d)
-	if err != nil {
-		return err
-	}
-	out := []catalog.Upload{}
-	cl := claims(c)
-	for _, u := range ups {
-		if unseen[u.Version] || !seesUpload(cl, d, u) {
-			continue
-		}
-		out = append(out, u)
-	}
+	out := slices.DeleteFunc(ups, func(u catalog.Upload) bool { return !seesUpload(cl, d, u) })
 	return c.JSON(http.StatusOK, out)
 }
 
@@ -451,30 +400,14 @@ func seesUpload(cl *Claims, d *catalog.Dataset, u catalog.Upload) bool {
 // those never published. Curators and the dataset's partners see every
 // upload (nil).
 func (s *Server) unseenVersions(c echo.Context, d *catalog.Dataset) (map[int]bool, error) {
-	if claims(c).CanUpload(d.Project, d.Name) {
-		return nil, nil
-	}
-	heads, err := s.cfg.Store.Heads(c.Request().Context(), d.Project, d.Name)
+	unseen, err := s.cfg.Store.Unpublished(c.Request().Context(), d.Project, d.Name, claims(c).CanUpload(d.Project, d.Name))
 	if err != nil {
 		return nil, catalogError(err)
-	}
-	unseen := map[int]bool{}
-	for _, h := range heads {
-		if !h.Visible(false) {
-			unseen[h.Number] = true
-		}
 	}
 	return unseen, nil
 }
 
 func readable(cl *Claims, project, _ string) bool { return cl.CanRead(project) }
-
-// versionsPage is one page of a dataset's versions.
-type versionsPage struct {
-	Versions []catalog.Version `json:"versions"`
-	// NextAfter, when set, is the after= of the next page.
-	NextAfter *int `json:"next_after,omitempty"`
-}
 
 // defaultVersionsPage is the page size of the versions list without limit=.
 const defaultVersionsPage = 100
@@ -509,7 +442,7 @@ func (s *Server) listVersions(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	page := versionsPage{Versions: vs}
+	page := api.VersionsPage{Versions: vs}
 	if next > 0 {
 		page.NextAfter = &next
 	}
@@ -555,14 +488,10 @@ func (s *Server) servable(c echo.Context) (*catalog.Version, error) {
 	if err != nil {
 		return nil, err
 	}
-	if v.State == catalog.StateRetracted {
-		return nil, s.gone(v)
+	if err := v.Servable(); err != nil {
+		return nil, catalogError(err)
 	}
 	return v, nil
-}
-
-type retractRequest struct {
-	Reason string `json:"reason"`
 }
 
 // setState publishes or retracts the version named by number.
@@ -585,7 +514,7 @@ func (s *Server) setState(c echo.Context) error {
 	if action == "publish" {
 		v, err = s.cfg.Store.Publish(ctx, project, name, sel.Number, cl.Subject)
 	} else {
-		var req retractRequest
+		var req api.Reason
 		if err := decodeJSON(c, &req, `{"reason"}`); err != nil {
 			return err
 		}
@@ -597,18 +526,13 @@ func (s *Server) setState(c echo.Context) error {
 	return c.JSON(http.StatusOK, v)
 }
 
-type gcRequest struct {
-	DryRun       bool     `json:"dry_run"`
-	GraceSeconds *float64 `json:"grace_seconds"`
-}
-
 // collectGarbage deletes unreferenced blobs; admins only.
 func (s *Server) collectGarbage(c echo.Context) error {
 	cl := claims(c)
 	if cl.Role != RoleAdmin {
 		return forbidden("collect garbage")
 	}
-	var req gcRequest
+	var req api.GC
 	if err := decodeJSON(c, &req, `{"dry_run", "grace_seconds"}`); err != nil {
 		return err
 	}

@@ -7,6 +7,7 @@ import (
 	"testing"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // heldCSV is n events of one site in the schema's own columns, with event
@@ -36,7 +37,7 @@ func TestUploadHeldEventsAPI(t *testing.T) {
 
 	r := e.upload("lab", "flow", partner, "day.csv", heldCSV(90, nil))
 	e.mustStatus(r, http.StatusCreated, "first upload")
-	var res uploadResponse
+	var res api.UploadResult
 	e.decode(r, &res)
 	if res.Message != "v1: 90 new events, 0 already held, 0 changed" {
 		t.Errorf("message %q", res.Message)

@@ -21,6 +21,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
 	"github.com/flowcat-catalog/flowcat/quality"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // testIssuer is the iss claim of the test authority's tokens.
@@ -59,6 +60,7 @@ type testEnv struct {
 	rec     *recorder
 	admin   string // an admin token
 	timeout time.Duration
+	openapi *openAPICheck // validates every answer do receives
 }
 
 // recorder keeps every response body the helpers received.
@@ -124,7 +126,8 @@ func newEnvStore(t *testing.T, dir string, sopt catalog.Options, opts ...func(*C
 	}
 	s := New(cfg)
 	srv := httptest.NewServer(s)
-	e := &testEnv{t: t, dir: dir, key: key, auth: auth, store: store, srv: srv, server: s, log: logs, rec: &recorder{}, timeout: 30 * time.Second}
+	e := &testEnv{t: t, dir: dir, key: key, auth: auth, store: store, srv: srv, server: s, log: logs, rec: &recorder{}, timeout: 30 * time.Second,
+		openapi: loadOpenAPI(t, s.openapi)}
 	t.Cleanup(func() {
 		srv.Close()
 		store.Close()
@@ -194,6 +197,7 @@ func (e *testEnv) do(method, path, token string, body io.Reader, hdr map[string]
 	e.rec.mu.Lock()
 	e.rec.bodies = append(e.rec.bodies, b)
 	e.rec.mu.Unlock()
+	e.openapi.check(e.t, req, res, b)
 	return response{Status: res.StatusCode, Header: res.Header, Body: b}
 }
 
@@ -260,7 +264,7 @@ func (e *testEnv) heads(project, dataset, token string, limit int) []catalog.Ver
 		}
 		r := e.get("/api/v1/projects/"+project+"/datasets/"+dataset+"/versions"+q, token)
 		e.mustStatus(r, http.StatusOK, "list versions")
-		var page versionsPage
+		var page api.VersionsPage
 		e.decode(r, &page)
 		out = append(out, page.Versions...)
 		if page.NextAfter == nil {

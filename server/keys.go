@@ -12,6 +12,8 @@ import (
 	"os"
 	"path/filepath"
 	"time"
+
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // LegacyKeyID names the HS256 key of signing.key in a key set's listing and
@@ -108,21 +110,11 @@ func (ks *KeySet) Retire(kid string, now time.Time) error {
 	return fmt.Errorf("retire: key %q: %w", kid, ErrUnknownKey)
 }
 
-// JWK is one public key of a JWKS document (RFC 7517 section 4; OKP keys,
-// RFC 8037 section 2).
-type JWK struct {
-	Kty string `json:"kty"`
-	Crv string `json:"crv"`
-	X   string `json:"x"`
-	KID string `json:"kid"`
-	Use string `json:"use"`
-	Alg string `json:"alg"`
-}
+// JWK is one public key of a JWKS document (api.JWK).
+type JWK = api.JWK
 
-// JWKS is a JWK Set (RFC 7517 section 5).
-type JWKS struct {
-	Keys []JWK `json:"keys"`
-}
+// JWKS is a JWK Set (api.JWKS).
+type JWKS = api.JWKS
 
 // JWKS returns the public halves of the keys that verify (not retired).
 // The HS256 key is secret and never listed.

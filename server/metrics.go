@@ -13,6 +13,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // promMetrics are the server's Prometheus metrics, in a registry of its own
@@ -119,7 +120,7 @@ func (s *Server) serveMetrics(c echo.Context) error {
 
 // healthz answers 200 while the process serves HTTP: liveness.
 func (s *Server) healthz(c echo.Context) error {
-	return c.JSON(http.StatusOK, map[string]string{"status": "ok"})
+	return c.JSON(http.StatusOK, api.Status{Status: "ok"})
 }
 
 // readyz answers 200 when the catalog's metadata and blob store answer
@@ -131,7 +132,7 @@ func (s *Server) readyz(c echo.Context) error {
 		s.cfg.Logger.Warn("not ready", "err", err)
 		return fail(http.StatusServiceUnavailable, "not_ready", "%s", err.Error())
 	}
-	return c.JSON(http.StatusOK, map[string]string{"status": "ready"})
+	return c.JSON(http.StatusOK, api.Status{Status: "ready"})
 }
 
 // buildVersion, when set at link time (-ldflags "-X

@@ -16,6 +16,7 @@ import (
 
 	"github.com/labstack/echo/v4"
 
+	"github.com/flowcat-catalog/flowcat/server/api"
 	"github.com/flowcat-catalog/flowcat/web"
 )
 
@@ -189,17 +190,17 @@ func (s *Server) pageErrors(next echo.HandlerFunc) echo.HandlerFunc {
 		if err == nil || c.Response().Committed {
 			return err
 		}
-		var body errorBody
+		var body api.ErrorBody
 		var he *httpError
 		var ee *echo.HTTPError
 		switch {
 		case errors.As(err, &he):
 			body = he.body
 		case errors.As(err, &ee):
-			body = errorBody{Status: ee.Code, Message: fmt.Sprint(ee.Message)}
+			body = api.ErrorBody{Status: ee.Code, Message: fmt.Sprint(ee.Message)}
 		default:
 			s.cfg.Logger.Error("internal error", "path", c.Request().URL.Path, "err", err)
-			body = errorBody{Status: http.StatusInternalServerError, Message: "something went wrong on the server; its log has the details"}
+			body = api.ErrorBody{Status: http.StatusInternalServerError, Message: "something went wrong on the server; its log has the details"}
 		}
 		if body.Status == http.StatusUnauthorized {
 			c.Set(signInProblem, body.Message)

@@ -16,6 +16,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // browserBudget bounds one browser session of a test: every step of it
@@ -162,7 +163,7 @@ func TestPagesInBrowser(t *testing.T) {
 	e := newPagesEnv(t)
 	dir := artifacts(t)
 	base := e.srv.URL
-	api := "/api/v1/projects/ward/datasets/events"
+	dsAPI := "/api/v1/projects/ward/datasets/events"
 	alerts := alertDataset(t, e.testEnv)
 	ctx := headless(t, bin)
 
@@ -205,8 +206,8 @@ func TestPagesInBrowser(t *testing.T) {
 	a11y(t, ctx, "dataset")
 	screenshot(t, ctx, dir, "dataset.png")
 	// The trend: one marker per upload the member sees, at its score.
-	var tr trendResponse
-	e.decode(e.get(api+"/quality/trend?site=*", e.member), &tr)
+	var tr api.Trend
+	e.decode(e.get(dsAPI+"/quality/trend?site=*", e.member), &tr)
 	var seqs, scores []float64
 	for _, p := range tr.Points {
 		if p.Score != nil {
@@ -221,7 +222,7 @@ func TestPagesInBrowser(t *testing.T) {
 
 	// Alerts are marked where the API raised them.
 	run(t, ctx, "alerted dataset", chromedp.Navigate(base+"/view/ward/nightly"), chromedp.WaitVisible(chromedp.ID("trend-all")))
-	var ntr trendResponse
+	var ntr api.Trend
 	e.decode(e.get("/api/v1/projects/ward/datasets/nightly/quality/trend", e.member), &ntr)
 	for _, site := range []string{"*", "ward-3"} {
 		id := map[string]string{"*": "#trend-all", "ward-3": "#trend-ward-3"}[site]
@@ -245,7 +246,7 @@ func TestPagesInBrowser(t *testing.T) {
 	a11y(t, ctx, "version")
 	screenshot(t, ctx, dir, "version.png")
 	var sum summary.Summary
-	e.decode(e.get(api+"/versions/1/summary", e.member), &sum)
+	e.decode(e.get(dsAPI+"/versions/1/summary", e.member), &sum)
 	var means, lows, highs []float64
 	for _, r := range sum.Arrivals.HourOfWeek {
 		means, lows, highs = append(means, r.Mean), append(lows, r.Lower), append(highs, r.Upper)
@@ -379,15 +380,15 @@ func TestPagesInBrowser(t *testing.T) {
 	screenshot(t, cctx, dir, "draft-curator.png")
 	run(t, cctx, "publish", chromedp.Click(chromedp.ID("publish")), chromedp.WaitVisible(chromedp.CSS("#state.published")))
 	var v catalog.Version
-	e.decode(e.get(api+"/versions/3", e.member), &v)
+	e.decode(e.get(dsAPI+"/versions/3", e.member), &v)
 	if v.State != catalog.StatePublished || v.PublishedBy != "curator-ward" {
 		t.Fatalf("after publishing in the browser, the API says %+v", v.State)
 	}
-	e.mustStatus(e.get(api+"/versions/3", e.member), http.StatusOK, "member reads the published version")
+	e.mustStatus(e.get(dsAPI+"/versions/3", e.member), http.StatusOK, "member reads the published version")
 	t.Logf("screenshots in %s", dir)
 }
 
-func alertedUploads(tr trendResponse, site string) []catalog.UploadAlert {
+func alertedUploads(tr api.Trend, site string) []catalog.UploadAlert {
 	seen := map[int]bool{}
 	var out []catalog.UploadAlert
 	for _, a := range tr.Alerts {

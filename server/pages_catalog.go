@@ -18,7 +18,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/disclosure"
 	"github.com/flowcat-catalog/flowcat/catalog/export"
-	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/catalog/query"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/web"
@@ -195,16 +195,10 @@ func openAlerts(points []catalog.TrendPoint, alerts []catalog.UploadAlert) []cat
 // visibleTrend is the dataset's trend over all sites without the uploads
 // the reader may not see (as the API's trend).
 func (s *Server) visibleTrend(c echo.Context, d *catalog.Dataset) ([]catalog.TrendPoint, []catalog.UploadAlert, error) {
-	points, alerts, err := s.cfg.Store.Trend(c.Request().Context(), d.Project, d.Name, "")
+	points, alerts, err := s.cfg.Store.VisibleTrend(c.Request().Context(), d.Project, d.Name, "", claims(c).CanUpload(d.Project, d.Name))
 	if err != nil {
 		return nil, nil, catalogError(err)
 	}
-	unseen, err := s.unseenVersions(c, d)
-	if err != nil || len(unseen) == 0 {
-		return points, alerts, err
-	}
-	points = slices.DeleteFunc(points, func(p catalog.TrendPoint) bool { return unseen[p.Version] })
-	alerts = slices.DeleteFunc(alerts, func(a catalog.UploadAlert) bool { return unseen[a.Version] })
 	return points, alerts, nil
 }
 
@@ -285,7 +279,7 @@ func (s *Server) datasetPage(c echo.Context) error {
 		default:
 			pg.Cite = v
 			pg.Pull = pullCommand(d, v)
-			b, err := export.Citation(s.citationInput(ctx, d, v))
+			b, err := export.Citation(query.CitationInput(ctx, s.cfg.Store, d, v, s.cfg.CitationAuthor))
 			if err != nil {
 				return err
 			}
@@ -352,7 +346,7 @@ func (s *Server) versionPage(c echo.Context) error {
 	if pg.Report, err = s.cfg.Store.Report(ctx, v); err != nil && !errors.Is(err, catalog.ErrNotFound) {
 		return catalogError(err)
 	}
-	b, err := export.Citation(s.citationInput(ctx, d, v))
+	b, err := export.Citation(query.CitationInput(ctx, s.cfg.Store, d, v, s.cfg.CitationAuthor))
 	if err != nil {
 		return err
 	}
@@ -369,16 +363,12 @@ func (s *Server) versionPage(c echo.Context) error {
 		pg.Disclosure = &rep
 	}
 	if v.State != catalog.StateRetracted {
-		raw, err := s.cfg.Store.Summary(ctx, v.Dataset.String(), v.Number)
+		sum, err := s.cfg.Store.DecodedSummary(ctx, v)
 		if err != nil {
 			return catalogError(err)
 		}
-		var sum summary.Summary
-		if err := json.Unmarshal(raw, &sum); err != nil {
-			return fmt.Errorf("summary of %s@%d: %w", d.Ref(), v.Number, err)
-		}
-		pg.Summary = &sum
-		pg.Figures = web.VersionFigures(&sum)
+		pg.Summary = sum
+		pg.Figures = web.VersionFigures(sum)
 		for _, st := range sum.Sites {
 			pg.Sites = append(pg.Sites, st.Name)
 		}
@@ -437,9 +427,9 @@ func (s *Server) pageDiff(ctx context.Context, pg *web.VersionPage, w string) er
 	if n > pg.V.Number {
 		pair = [2]*catalog.Version{pg.V, other}
 	}
-	res, err := s.compare(ctx, pair, export.Filter{})
+	res, err := query.Compare(ctx, s.cfg.Store, pair[0], pair[1], export.Filter{})
 	if err != nil {
-		return err
+		return catalogError(err)
 	}
 	pg.DiffWith, pg.Diff = n, res
 	return nil

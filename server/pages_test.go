@@ -18,6 +18,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // pagesEnv is a project "ward" whose dataset "events" makes drafts, with
@@ -436,7 +437,7 @@ func TestPagesCurator(t *testing.T) {
 
 	// Compare with version 1.
 	d := b.page("/view/ward/events/2?diff=1", http.StatusOK)
-	var diff diffResponse
+	var diff api.Diff
 	e.decode(e.get("/api/v1/projects/ward/datasets/events/diff?a=1&b=2", e.curator), &diff)
 	mustHave(t, "diff", d, `id="diff-result"`, fmt.Sprintf("<strong>%d</strong> events added, <strong>%d</strong> removed", diff.Events.Added, diff.Events.Removed))
 	b.page("/view/ward/events/2?diff=99", http.StatusNotFound)

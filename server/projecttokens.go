@@ -9,6 +9,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // A project's curators manage the member and partner tokens of their
@@ -39,16 +40,7 @@ func (s *Server) listProjectTokens(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	return c.JSON(http.StatusOK, map[string]any{"tokens": recs})
-}
-
-type projectIssueRequest struct {
-	Role     string   `json:"role"` // member or partner
-	Subject  string   `json:"subject"`
-	Datasets []string `json:"datasets"` // partner: dataset names of the project (or project/dataset)
-	Sites    []string `json:"sites"`    // partner: the sites it may write
-	Replace  bool     `json:"replace"`  // partner with sites: may replace-window them
-	TTL      string   `json:"ttl"`
+	return c.JSON(http.StatusOK, api.Tokens{Tokens: recs})
 }
 
 func (s *Server) issueProjectToken(c echo.Context) error {
@@ -56,7 +48,7 @@ func (s *Server) issueProjectToken(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	var req projectIssueRequest
+	var req api.IssueProjectToken
 	if err := decodeJSON(c, &req, `{"role": "member" | "partner", "subject", "datasets", "sites", "replace", "ttl"}`); err != nil {
 		return err
 	}
@@ -102,7 +94,7 @@ func (s *Server) issueProjectToken(c echo.Context) error {
 		}
 		return fail(http.StatusBadRequest, "invalid", "%s", err.Error())
 	}
-	return c.JSON(http.StatusCreated, map[string]string{"token": tok})
+	return c.JSON(http.StatusCreated, api.Token{Token: tok})
 }
 
 func (s *Server) revokeProjectToken(c echo.Context) error {
@@ -110,7 +102,7 @@ func (s *Server) revokeProjectToken(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	var req revokeRequest
+	var req api.Reason
 	if err := decodeJSON(c, &req, `{"reason": ...}`); err != nil {
 		return err
 	}

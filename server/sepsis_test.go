@@ -26,6 +26,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/quality"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 const sepsisDir = "../testdata/sepsis"
@@ -147,7 +148,7 @@ func TestSepsisEndToEnd(t *testing.T) {
 	e.createDataset("hospital", "sepsis", string(profile))
 	r := e.upload("hospital", "sepsis", e.partner("hospital/sepsis"), "sepsis-cases.csv.gz", data)
 	e.mustStatus(r, http.StatusCreated, "upload the sepsis log")
-	var res uploadResponse
+	var res api.UploadResult
 	e.decode(r, &res)
 	v := res.Version
 	if v == nil || v.Number != 1 || len(v.Manifest.Files) == 0 {

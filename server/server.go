@@ -5,6 +5,7 @@ package server
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"log/slog"
@@ -19,6 +20,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // Config configures a server.
@@ -72,6 +74,7 @@ type Server struct {
 	limits    *tokenLimits   // nil: no rate limit
 
 	csrfKey []byte // signs the pages' form tokens (pages.go)
+	openapi []byte // the OpenAPI document (contract.go)
 }
 
 // New returns a server for cfg.
@@ -117,6 +120,7 @@ func New(cfg Config) *Server {
 		{method: "GET", path: "/readyz", h: s.readyz, public: true},
 		{method: "GET", path: "/metrics", h: s.serveMetrics, public: true},
 		{method: "GET", path: api + "/schema", h: s.schema, public: true},
+		{method: "GET", path: OpenAPIPath, h: s.getOpenAPI, public: true},
 		{method: "GET", path: api + "/projects", h: s.listProjects, params: []string{"archived"}},
 		{method: "POST", path: api + "/projects", h: s.createProject},
 		{method: "GET", path: api + "/projects/:project", h: s.getProject},
@@ -168,6 +172,7 @@ func New(cfg Config) *Server {
 		{method: "GET", path: api + "/audit/export", h: s.exportAudit, params: auditParams},
 	}
 	s.routes = append(s.routes, s.pageRoutes()...)
+	s.buildOpenAPI()
 	for _, r := range s.routes {
 		var mw []echo.MiddlewareFunc
 		if r.page {
@@ -230,24 +235,10 @@ func (s *Server) accessLog(next echo.HandlerFunc) echo.HandlerFunc {
 	}
 }
 
-// apiError is the JSON body of every error response.
-type apiError struct {
-	Error errorBody `json:"error"`
-}
-
-type errorBody struct {
-	Status  int    `json:"status"`
-	Code    string `json:"code"`
-	Message string `json:"message"`
-	Rule    string `json:"rule,omitempty"`
-	Line    int64  `json:"line,omitempty"`
-	Column  string `json:"column,omitempty"`
-	Upload  any    `json:"upload,omitempty"`
-}
-
-// httpError is an error with a status and code.
+// httpError is an error with a status and code, answered as problem
+// details (api.Problem).
 type httpError struct {
-	body errorBody
+	body api.ErrorBody
 	err  error
 }
 
@@ -255,22 +246,26 @@ func (e *httpError) Error() string { return e.body.Message }
 func (e *httpError) Unwrap() error { return e.err }
 
 func fail(status int, code, format string, args ...any) *httpError {
-	return &httpError{body: errorBody{Status: status, Code: code, Message: fmt.Sprintf(format, args...)}}
+	return &httpError{body: api.ErrorBody{Status: status, Code: code, Message: fmt.Sprintf(format, args...)}}
 }
 
-// catalogError maps catalog errors to HTTP errors.
+// catalogError maps catalog errors to HTTP errors: the one place where a
+// catalog error becomes a status.
 func catalogError(err error) error {
 	switch {
+	case errors.Is(err, catalog.ErrRetracted):
+		// The data of a retracted version is gone; its metadata stays.
+		return &httpError{body: api.ErrorBody{Status: http.StatusGone, Code: "retracted", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrNotFound):
-		return &httpError{body: errorBody{Status: http.StatusNotFound, Code: "not_found", Message: err.Error()}, err: err}
+		return &httpError{body: api.ErrorBody{Status: http.StatusNotFound, Code: "not_found", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrExists):
-		return &httpError{body: errorBody{Status: http.StatusConflict, Code: "exists", Message: err.Error()}, err: err}
+		return &httpError{body: api.ErrorBody{Status: http.StatusConflict, Code: "exists", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrState):
-		return &httpError{body: errorBody{Status: http.StatusConflict, Code: "state", Message: err.Error()}, err: err}
+		return &httpError{body: api.ErrorBody{Status: http.StatusConflict, Code: "state", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrRiskAboveThreshold):
-		return &httpError{body: errorBody{Status: http.StatusConflict, Code: "disclosure_risk", Message: err.Error()}, err: err}
+		return &httpError{body: api.ErrorBody{Status: http.StatusConflict, Code: "disclosure_risk", Message: err.Error()}, err: err}
 	case errors.Is(err, catalog.ErrInvalid):
-		return &httpError{body: errorBody{Status: http.StatusBadRequest, Code: "invalid", Message: err.Error()}, err: err}
+		return &httpError{body: api.ErrorBody{Status: http.StatusBadRequest, Code: "invalid", Message: err.Error()}, err: err}
 	}
 	return err
 }
@@ -280,17 +275,17 @@ func errorHandler(log *slog.Logger) echo.HTTPErrorHandler {
 		if c.Response().Committed {
 			return
 		}
-		var body errorBody
+		var body api.ErrorBody
 		var he *httpError
 		var ee *echo.HTTPError
 		switch {
 		case errors.As(err, &he):
 			body = he.body
 		case errors.As(err, &ee):
-			body = errorBody{Status: ee.Code, Code: strings.ReplaceAll(strings.ToLower(http.StatusText(ee.Code)), " ", "_"), Message: fmt.Sprint(ee.Message)}
+			body = api.ErrorBody{Status: ee.Code, Code: strings.ReplaceAll(strings.ToLower(http.StatusText(ee.Code)), " ", "_"), Message: fmt.Sprint(ee.Message)}
 		default:
 			log.Error("internal error", "path", c.Request().URL.Path, "err", err)
-			body = errorBody{Status: http.StatusInternalServerError, Code: "internal", Message: "internal error; the server log has the details"}
+			body = api.ErrorBody{Status: http.StatusInternalServerError, Code: "internal", Message: "internal error; the server log has the details"}
 		}
 		if body.Status == http.StatusUnauthorized && c.Response().Header().Get("WWW-Authenticate") == "" {
 			c.Response().Header().Set("WWW-Authenticate", `Bearer realm="flowcat"`)
@@ -299,7 +294,8 @@ func errorHandler(log *slog.Logger) echo.HTTPErrorHandler {
 			c.NoContent(body.Status)
 			return
 		}
-		c.JSON(body.Status, apiError{Error: body})
+		b, _ := json.Marshal(api.NewProblem(body))
+		c.Blob(body.Status, api.ProblemMedia, append(b, '\n'))
 	}
 }
 
@@ -384,7 +380,7 @@ func forbidden(what string) error {
 }
 
 func (s *Server) health(c echo.Context) error {
-	return c.JSON(http.StatusOK, map[string]string{"status": "ok", "schema_version": schema.Version})
+	return c.JSON(http.StatusOK, api.Health{Status: "ok", SchemaVersion: schema.Version})
 }
 
 func (s *Server) schema(c echo.Context) error {

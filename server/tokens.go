@@ -10,6 +10,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // TokenRecord turns issued claims into the catalog's record of them.
@@ -65,17 +66,7 @@ func (s *Server) listTokens(c echo.Context) error {
 	if recs == nil {
 		recs = []catalog.TokenRecord{}
 	}
-	return c.JSON(http.StatusOK, map[string]any{"tokens": recs})
-}
-
-type issueRequest struct {
-	Role     string   `json:"role"`
-	Subject  string   `json:"subject"`
-	Project  string   `json:"project"`
-	Datasets []string `json:"datasets"`
-	Sites    []string `json:"sites"`   // partner: the sites it may write
-	Replace  bool     `json:"replace"` // partner with sites: may replace-window them
-	TTL      string   `json:"ttl"`     // a Go duration, e.g. "720h"
+	return c.JSON(http.StatusOK, api.Tokens{Tokens: recs})
 }
 
 func (s *Server) issueToken(c echo.Context) error {
@@ -83,7 +74,7 @@ func (s *Server) issueToken(c echo.Context) error {
 	if cl.Role != RoleAdmin {
 		return forbidden("issue tokens (admin only)")
 	}
-	var req issueRequest
+	var req api.IssueToken
 	if err := decodeJSON(c, &req, `{"role", "subject", "project", "datasets", "sites", "replace", "ttl"}`); err != nil {
 		return err
 	}
@@ -99,11 +90,7 @@ func (s *Server) issueToken(c echo.Context) error {
 		}
 		return fail(http.StatusBadRequest, "invalid", "%s", err.Error())
 	}
-	return c.JSON(http.StatusCreated, map[string]string{"token": tok})
-}
-
-type revokeRequest struct {
-	Reason string `json:"reason"`
+	return c.JSON(http.StatusCreated, api.Token{Token: tok})
 }
 
 func (s *Server) revokeToken(c echo.Context) error {
@@ -111,7 +98,7 @@ func (s *Server) revokeToken(c echo.Context) error {
 	if cl.Role != RoleAdmin {
 		return forbidden("revoke tokens (admin only)")
 	}
-	var req revokeRequest
+	var req api.Reason
 	if err := decodeJSON(c, &req, `{"reason": ...}`); err != nil {
 		return err
 	}

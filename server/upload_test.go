@@ -12,6 +12,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/quality"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // TestUploadSemantics walks one dataset through a first version, a
@@ -31,7 +32,7 @@ func TestUploadSemantics(t *testing.T) {
 	first := wardFile(4, 12)
 	r := e.upload("ward", "events", partner, "day4.csv", first)
 	e.mustStatus(r, http.StatusCreated, "first upload")
-	var up1 uploadResponse
+	var up1 api.UploadResult
 	e.decode(r, &up1)
 	sum := sha256.Sum256(first)
 	if up1.Upload.Status != catalog.UploadAccepted || up1.Version == nil || up1.Version.Number != 1 ||
@@ -45,7 +46,7 @@ func TestUploadSemantics(t *testing.T) {
 	// The same bytes again: no new version, answer 200 duplicate.
 	r = e.upload("ward", "events", partner, "day4-again.csv", first)
 	e.mustStatus(r, http.StatusOK, "duplicate upload")
-	var dup uploadResponse
+	var dup api.UploadResult
 	e.decode(r, &dup)
 	if dup.Upload.Status != catalog.UploadDuplicate || dup.Version == nil || dup.Version.Number != 1 || dup.Upload.Version != 1 {
 		t.Errorf("duplicate = %+v, want status duplicate of version 1", dup)
@@ -61,7 +62,7 @@ func TestUploadSemantics(t *testing.T) {
 	second := wardFile(5, 9)
 	r = e.upload("ward", "events", partner, "day5.csv", second)
 	e.mustStatus(r, http.StatusCreated, "second upload")
-	var up2 uploadResponse
+	var up2 api.UploadResult
 	e.decode(r, &up2)
 	v2 := up2.Version
 	if v2 == nil || v2.Number != 2 || v2.Manifest.Parent != 1 || len(v2.Manifest.Files) != 2 || v2.Manifest.Rows != 21 {
@@ -176,7 +177,7 @@ func TestDownload(t *testing.T) {
 	e.mustStatus(e.upload("ward", "events", e.admin, "a.csv", wardFile(7, 60)), http.StatusCreated, "upload 1")
 	r := e.upload("ward", "events", e.admin, "b.csv", wardFile(8, 60))
 	e.mustStatus(r, http.StatusCreated, "upload 2")
-	var res uploadResponse
+	var res api.UploadResult
 	e.decode(r, &res)
 	v2 := res.Version
 	member := e.member("ward")

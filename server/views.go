@@ -1,7 +1,6 @@
 package server
 
 import (
-	"context"
 	"crypto/sha256"
 	"encoding/hex"
 	"encoding/json"
@@ -17,8 +16,9 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/export"
-	"github.com/flowcat-catalog/flowcat/catalog/summary"
+	"github.com/flowcat-catalog/flowcat/catalog/query"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // parseFilter reads a filter from the query: from and to (RFC 3339), and
@@ -87,13 +87,6 @@ func truncateParam(s string) string {
 	return s
 }
 
-func (s *Server) opener() export.Opener { return s.cfg.Store.Blobs().Open }
-
-// source reads the store's files and stages in the store's temp dir.
-func (s *Server) source() export.Source {
-	return export.Source{Open: s.cfg.Store.Blobs().Open, TempDir: s.cfg.Store.TempDir()}
-}
-
 // getSummary serves a version's stored summary; with site, queue,
 // activity, from or to it computes one from the version's files, reading
 // only the row groups the site and window need. The queue and activity
@@ -109,8 +102,8 @@ func (s *Server) getSummary(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	if head.State == catalog.StateRetracted {
-		return s.gone(head)
+	if err := head.Servable(); err != nil {
+		return catalogError(err)
 	}
 	h := c.Response().Header()
 	h.Set("ETag", `"`+head.SnapshotID.String()+`"`)
@@ -135,23 +128,14 @@ func (s *Server) getSummary(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	d, err := s.cfg.Store.Dataset(c.Request().Context(), c.Param("project"), c.Param("dataset"))
+	sum, st, err := query.FilteredSummary(c.Request().Context(), s.cfg.Store, v, f)
 	if err != nil {
 		return catalogError(err)
-	}
-	loc, err := time.LoadLocation(d.Timezone)
-	if err != nil {
-		loc = time.UTC
-	}
-	ev := export.Filter{From: f.From, To: f.To, Sites: f.Sites}
-	acc, st, err := export.Summarize(c.Request().Context(), s.source(), v.Manifest.Files, ev, summary.Options{Location: loc})
-	if err != nil {
-		return err
 	}
 	h.Set("X-Flowcat-Row-Groups-Read", fmt.Sprint(st.RowGroupsRead))
 	h.Set("X-Flowcat-Row-Groups-Skipped", fmt.Sprint(st.RowGroupsSkipped+st.FilesSkipped))
 	h.Set("X-Flowcat-Bytes-Read", fmt.Sprint(st.BytesRead))
-	return c.JSON(http.StatusOK, acc.SummaryFor(summary.Selection{Sites: f.Sites, Queues: f.Queues, Activities: f.Activities}))
+	return c.JSON(http.StatusOK, sum)
 }
 
 // acceptsGzip reports whether the request's Accept-Encoding allows gzip
@@ -166,11 +150,6 @@ func acceptsGzip(r *http.Request) bool {
 		return q != "q=0" && q != "q=0.0" && q != "q=0.00" && q != "q=0.000"
 	}
 	return false
-}
-
-func (s *Server) gone(h *catalog.Version) error {
-	return fail(http.StatusGone, "retracted", "version %d of %s was retracted on %s: %s; its metadata and citation stay readable",
-		h.Number, h.Dataset, h.RetractedAt.Format(time.RFC3339), h.RetractReason)
 }
 
 // requestTag is a strong ETag for a deterministic response: the same
@@ -229,19 +208,19 @@ func (s *Server) exportVersion(c echo.Context) error {
 		h.Set(echo.HeaderContentType, "application/xml; charset=utf-8")
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.xes"`, name))
 		w.WriteHeader(http.StatusOK)
-		_, err = export.WriteXES(ctx, w, s.source(), v.Manifest.Files, f, export.XESOptions{
+		_, err = export.WriteXES(ctx, w, query.Source(s.cfg.Store), v.Manifest.Files, f, export.XESOptions{
 			Dataset: v.Dataset.String(), Version: v.Number, SnapshotID: v.SnapshotID.String(),
 		})
 	case "csv":
 		h.Set(echo.HeaderContentType, "text/csv; charset=utf-8; header=present")
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.csv"`, name))
 		w.WriteHeader(http.StatusOK)
-		_, err = export.WriteCSV(ctx, w, s.source(), v.Manifest.Files, f)
+		_, err = export.WriteCSV(ctx, w, query.Source(s.cfg.Store), v.Manifest.Files, f)
 	default:
 		h.Set(echo.HeaderContentType, "application/vnd.apache.parquet")
 		h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s.parquet"`, name))
 		w.WriteHeader(http.StatusOK)
-		_, err = export.WriteParquet(ctx, w, s.source(), v.Manifest.Files, f, export.ParquetOptions{
+		_, err = export.WriteParquet(ctx, w, query.Source(s.cfg.Store), v.Manifest.Files, f, export.ParquetOptions{
 			Metadata: map[string]string{"flowcat.dataset": v.Dataset.String(), "flowcat.version": fmt.Sprint(v.Number), "flowcat.snapshot_id": v.SnapshotID.String()},
 		})
 	}
@@ -252,31 +231,6 @@ func (s *Server) exportVersion(c echo.Context) error {
 		panic(http.ErrAbortHandler)
 	}
 	return nil
-}
-
-// citationInput describes v for its CITATION.cff.
-func (s *Server) citationInput(ctx context.Context, d *catalog.Dataset, v *catalog.Version) export.CitationInput {
-	author := s.cfg.CitationAuthor
-	if author == "" {
-		if p, err := s.cfg.Store.Project(ctx, d.Project); err == nil && p.Title != "" {
-			author = p.Title
-		} else {
-			author = d.Project
-		}
-	}
-	title := d.Title
-	if title == "" {
-		title = d.Ref().String()
-	}
-	ci := export.CitationInput{
-		Title: title, Dataset: d.Ref().String(), Version: v.Number, SnapshotID: v.SnapshotID.String(),
-		Released: v.CreatedAt, Authors: []export.Author{{Name: author}},
-	}
-	// The dataset's own metadata (creators, licence, ...) wins where set.
-	if m, err := s.cfg.Store.DatasetMetadata(ctx, d.Project, d.Name); err == nil {
-		ci = export.CitationFromMetadata(ci, m)
-	}
-	return ci
 }
 
 // getCitation serves CITATION.cff (Citation File Format 1.2.0); it stays
@@ -290,7 +244,7 @@ func (s *Server) getCitation(c echo.Context) error {
 	if err != nil {
 		return catalogError(err)
 	}
-	b, err := export.Citation(s.citationInput(c.Request().Context(), d, v))
+	b, err := export.Citation(query.CitationInput(c.Request().Context(), s.cfg.Store, d, v, s.cfg.CitationAuthor))
 	if err != nil {
 		return err
 	}
@@ -343,27 +297,13 @@ func (s *Server) getBundle(c echo.Context) error {
 	}
 	c.Response().WriteHeader(http.StatusOK)
 	err = export.WriteBundle(c.Request().Context(), c.Response(), format, export.Bundle{
-		Dataset: d, Version: v, Manifest: manifest, Quality: report, Open: s.opener(), Citation: s.citationInput(c.Request().Context(), d, v),
+		Dataset: d, Version: v, Manifest: manifest, Quality: report, Open: query.Opener(s.cfg.Store), Citation: query.CitationInput(c.Request().Context(), s.cfg.Store, d, v, s.cfg.CitationAuthor),
 	})
 	if err != nil {
 		s.cfg.Logger.Error("bundle interrupted", "dataset", d.Ref(), "version", v.Number, "err", err)
 		panic(http.ErrAbortHandler)
 	}
 	return nil
-}
-
-// diffResponse is the difference between two versions.
-type diffResponse struct {
-	From    versionRef          `json:"from"`
-	To      versionRef          `json:"to"`
-	Events  *export.DiffResult  `json:"events"`
-	Quality map[string]float64  `json:"quality_delta"` // to minus from, per score
-	Summary map[string]*float64 `json:"summary_delta"` // to minus from, per headline figure
-}
-
-type versionRef struct {
-	Version    int                `json:"version"`
-	SnapshotID catalog.SnapshotID `json:"snapshot_id"`
 }
 
 // diffVersions compares versions ?a= and ?b= (any selectors) by content,
@@ -390,124 +330,17 @@ func (s *Server) diffVersions(c echo.Context) error {
 		if err != nil {
 			return catalogError(err)
 		}
-		v, err := s.cfg.Store.Resolve(ctx, d.Project, d.Name, sel, drafts)
+		v, err := s.cfg.Store.ServableVersion(ctx, d.Project, d.Name, sel, drafts)
 		if err != nil {
 			return catalogError(err)
 		}
-		if v.State == catalog.StateRetracted {
-			return s.gone(v)
-		}
 		vs[i] = v
 	}
-	out, err := s.compare(ctx, vs, f)
+	out, err := query.Compare(ctx, s.cfg.Store, vs[0], vs[1], f)
 	if err != nil {
-		return err
+		return catalogError(err)
 	}
 	return c.JSON(http.StatusOK, out)
-}
-
-// compare is the difference from vs[0] to vs[1] (both with manifests)
-// under filter f: events by content, quality and summary deltas.
-func (s *Server) compare(ctx context.Context, vs [2]*catalog.Version, f export.Filter) (*diffResponse, error) {
-	res, err := export.Diff(ctx, s.source(), vs[0].Manifest.Files, vs[1].Manifest.Files, export.DiffOptions{Filter: f})
-	if err != nil {
-		return nil, err
-	}
-	out := &diffResponse{
-		From: versionRef{vs[0].Number, vs[0].SnapshotID}, To: versionRef{vs[1].Number, vs[1].SnapshotID},
-		Events: res,
-	}
-	var reps [2][]byte
-	for i, v := range vs {
-		if reps[i], err = s.cfg.Store.QualityReport(ctx, v); err != nil && !errors.Is(err, catalog.ErrNotFound) {
-			return nil, catalogError(err)
-		}
-	}
-	out.Quality = qualityDelta(reps[0], reps[1])
-	var sums [2]map[string]any
-	for i, v := range vs {
-		b, err := s.cfg.Store.Summary(ctx, v.Dataset.String(), v.Number)
-		if err != nil {
-			return nil, catalogError(err)
-		}
-		if err := json.Unmarshal(b, &sums[i]); err != nil {
-			return nil, err
-		}
-	}
-	out.Summary = summaryDelta(sums[0], sums[1])
-	return out, nil
-}
-
-// headline figures of a summary, as JSON paths.
-var headline = []string{"events", "cases.value", "subjects.value", "resources.value", "arrivals.total",
-	"length_of_stay.mean", "length_of_stay.p50", "length_of_stay.p90", "occupancy.peak", "occupancy.little.l", "occupancy.little.lambda_w"}
-
-func summaryDelta(a, b map[string]any) map[string]*float64 {
-	out := map[string]*float64{}
-	for _, path := range headline {
-		x, okA := lookup(a, path)
-		y, okB := lookup(b, path)
-		if okA && okB {
-			d := y - x
-			out[path] = &d
-		} else {
-			out[path] = nil
-		}
-	}
-	return out
-}
-
-func lookup(m map[string]any, path string) (float64, bool) {
-	var cur any = m
-	for _, k := range strings.Split(path, ".") {
-		mm, ok := cur.(map[string]any)
-		if !ok {
-			return 0, false
-		}
-		cur = mm[k]
-	}
-	f, ok := cur.(float64)
-	return f, ok
-}
-
-// qualityDelta is b's scores minus a's: the overall score and each
-// dimension's, read from the stored reports' JSON so it follows the
-// report format.
-func qualityDelta(a, b []byte) map[string]float64 {
-	scores := func(raw []byte) map[string]float64 {
-		out := map[string]float64{}
-		var m map[string]any
-		if json.Unmarshal(raw, &m) != nil {
-			return out
-		}
-		if f, ok := m["score"].(float64); ok {
-			out["score"] = f
-		}
-		if dims, ok := m["dimensions"].([]any); ok {
-			for _, d := range dims {
-				dm, _ := d.(map[string]any)
-				name, _ := dm["name"].(string)
-				if f, ok := dm["score"].(float64); ok && name != "" {
-					out[name] = f
-				}
-			}
-		}
-		return out
-	}
-	sa, sb := scores(a), scores(b)
-	out := map[string]float64{}
-	for k, y := range sb {
-		if x, ok := sa[k]; ok {
-			out[k] = y - x
-		}
-	}
-	return out
-}
-
-// trendResponse is a dataset's quality over its uploads.
-type trendResponse struct {
-	Points []catalog.TrendPoint  `json:"points"`
-	Alerts []catalog.UploadAlert `json:"alerts"`
 }
 
 // getTrend serves the score and sub-scores of every upload with a report,
@@ -521,7 +354,7 @@ func (s *Server) getTrend(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	return c.JSON(http.StatusOK, trendResponse{Points: points, Alerts: alerts})
+	return c.JSON(http.StatusOK, api.Trend{Points: points, Alerts: alerts})
 }
 
 // getAlerts lists a dataset's drift alerts, newest first.
@@ -537,26 +370,12 @@ func (s *Server) getAlerts(c echo.Context) error {
 	return c.JSON(http.StatusOK, alerts)
 }
 
-// trend is the dataset's trend without the uploads the caller may not see.
+// trend is the dataset's trend without the uploads the caller may not
+// see: those of versions never published, unless it may upload.
 func (s *Server) trend(c echo.Context, d *catalog.Dataset) ([]catalog.TrendPoint, []catalog.UploadAlert, error) {
-	points, alerts, err := s.cfg.Store.Trend(c.Request().Context(), d.Project, d.Name, c.QueryParam("site"))
+	points, alerts, err := s.cfg.Store.VisibleTrend(c.Request().Context(), d.Project, d.Name, c.QueryParam("site"), claims(c).CanUpload(d.Project, d.Name))
 	if err != nil {
 		return nil, nil, catalogError(err)
 	}
-	unseen, err := s.unseenVersions(c, d)
-	if err != nil || len(unseen) == 0 {
-		return points, alerts, err
-	}
-	ps, as := []catalog.TrendPoint{}, []catalog.UploadAlert{}
-	for _, p := range points {
-		if !unseen[p.Version] {
-			ps = append(ps, p)
-		}
-	}
-	for _, a := range alerts {
-		if !unseen[a.Version] {
-			as = append(as, a)
-		}
-	}
-	return ps, as, nil
+	return points, alerts, nil
 }

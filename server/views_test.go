@@ -26,6 +26,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // viewsEnv is a dataset with two appended versions of the ward profile.
@@ -292,7 +293,7 @@ func TestSummaryAndDiffOverHTTP(t *testing.T) {
 
 	d := e.get(ds+"/diff?a=1&b=2", member)
 	e.mustStatus(d, http.StatusOK, "diff")
-	var diff diffResponse
+	var diff api.Diff
 	e.decode(d, &diff)
 	if diff.Events.Added != 60 || diff.Events.Removed != 0 || diff.Events.SharedFiles != 1 || diff.From.Version != 1 || diff.To.Version != 2 {
 		t.Fatalf("diff 1..2: %+v", diff.Events)
@@ -303,7 +304,7 @@ func TestSummaryAndDiffOverHTTP(t *testing.T) {
 	if len(diff.Events.BySite) != 1 || diff.Events.BySite[0].Day != "2024-03-05" {
 		t.Errorf("diff by site and day: %+v", diff.Events.BySite)
 	}
-	var back diffResponse
+	var back api.Diff
 	e.decode(e.get(ds+"/diff?a=latest&b=1", member), &back)
 	if back.Events.Removed != 60 || back.Events.Added != 0 {
 		t.Errorf("diff 2..1: %+v", back.Events)

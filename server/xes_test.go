@@ -7,6 +7,7 @@ import (
 	"testing"
 
 	"github.com/flowcat-catalog/flowcat/catalog/export"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // TestXESOverHTTP: a version exported as XES uploads again to a dataset
@@ -40,7 +41,7 @@ func TestXESOverHTTP(t *testing.T) {
 	}
 	r = e.upload("clinic", "visits-xes", e.partner("clinic/visits-xes"), "visits.xes", x.Body)
 	e.mustStatus(r, http.StatusCreated, "xes upload")
-	var res uploadResponse
+	var res api.UploadResult
 	e.decode(r, &res)
 	if res.Version == nil || res.Version.Rows != 80 {
 		t.Errorf("xes upload made %+v, want 80 rows", res.Version)
