@@ -280,3 +280,35 @@ func TestRotateProjectKeyRefusals(t *testing.T) {
 		t.Fatalf("an upload read under the replaced key: %v", err)
 	}
 }
+
+// TestRotateProjectKeyAttributes: the case attributes of a version made
+// before a rotation are carried with their cases: after it, the version
+// made by an upload of other cases holds every case's attributes under
+// the new generation's case ids, and the same values as before.
+func TestRotateProjectKeyAttributes(t *testing.T) {
+	e := newEnv(t, nil)
+	ctx := context.Background()
+	e.dataset(t, "p", "d", func(s *DatasetSpec) { s.Profile = []byte(attrProfile) })
+	v1 := e.ingest(t, "p", "d", attrCSV(attrCases[:4], 2, ""), "a.csv").Version
+	before := e.attributeRows(t, v1)
+	if _, err := e.s.RotateProjectKey(ctx, "p", "admin"); err != nil {
+		t.Fatal(err)
+	}
+	v2 := e.ingest(t, "p", "d", attrCSV(attrCases[4:6], 3, ""), "b.csv").Version
+	after := e.attributeRows(t, v2)
+	p, _ := e.s.Project(ctx, "p")
+	pz1, _ := anonymize.OpenProjectKey(e.master, "p", p.PriorKeys[0])
+	pz2, _ := anonymize.OpenKeyChain(e.master, "p", p.KeyChain())
+	if len(after) != 6 {
+		t.Fatalf("version 2 has attributes of %d cases, want 6", len(after))
+	}
+	for _, c := range attrCases[:4] {
+		old, cur := pz1.Pseudonym(schema.FieldCaseID, c[0]), pz2.Pseudonym(schema.FieldCaseID, c[0])
+		if _, ok := after[old]; ok {
+			t.Errorf("case %s kept its generation-1 id in version 2", c[0])
+		}
+		if fmt.Sprint(after[cur]) != fmt.Sprint(before[old]) {
+			t.Errorf("case %s: attributes %v after the rotation, %v before", c[0], after[cur], before[old])
+		}
+	}
+}
