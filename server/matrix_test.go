@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"net/http"
+	"net/url"
 	"os"
 	"slices"
 	"strings"
@@ -240,8 +241,8 @@ func matrixRows() []matrixRow {
 }
 
 // state is what a refused request of principal r must leave as it was:
-// its datasets' standing, versions and uploads, and the projects'
-// standing.
+// its datasets' standing, versions and uploads, the state of its
+// dataset's version 1, and the projects' standing.
 func (f *matrixFixture) state(t *testing.T, r string) string {
 	ctx := context.Background()
 	var b strings.Builder
@@ -252,6 +253,9 @@ func (f *matrixFixture) state(t *testing.T, r string) string {
 			continue
 		}
 		fmt.Fprintf(&b, "%s%s: v%d u%d arch %v del %v rev %d title %q; ", d, r, ds.Latest, ds.Uploads, ds.Archived != nil, ds.Deleted != nil, ds.Revision(), ds.Title)
+	}
+	if v, err := f.e.store.Version(ctx, "alpha", "d-"+r, 1); err == nil {
+		fmt.Fprintf(&b, "d-%s@1 %s; ", r, v.State)
 	}
 	ps, err := f.e.store.Projects(ctx)
 	if err != nil {
@@ -551,5 +555,60 @@ func TestTokenDefectMatrix(t *testing.T) {
 	}
 	if acted := f.actedSince(t, start); len(acted) > 0 {
 		t.Errorf("defective tokens acted: %v", acted)
+	}
+}
+
+// TestPageFormMatrix completes the matrix for the page forms, which need
+// a signed-in browser and its form token: each principal signs in through
+// the sign-in form and posts the version page's withdraw and publish
+// forms of its own dataset, each status asserted; a refusal changes
+// nothing.
+func TestPageFormMatrix(t *testing.T) {
+	f := newMatrixFixture(t)
+	forms := []struct {
+		name string
+		path func(r string) string
+		form url.Values
+		want [6]int // the principals but "none", which the route rows cover
+	}{
+		{"withdraw", func(r string) string { return "/view/alpha/d-" + r + "/1/withdraw" }, url.Values{"reason": {"wrong site"}}, [6]int{303, 303, 403, 403, 403, 403}},
+		{"publish", func(r string) string { return "/view/alpha/d-" + r + "/1/publish" }, url.Values{}, [6]int{409, 409, 403, 403, 403, 403}}, // withdrawn above
+	}
+	discover := os.Getenv("FLOWCAT_MATRIX_DISCOVER") != ""
+	var got strings.Builder
+	for _, fm := range forms {
+		var st [6]int
+		for i, r := range principals[:6] {
+			t.Run(fm.name+"/"+r, func(t *testing.T) {
+				b := f.e.in(t).browser(t)
+				b.signIn(f.tokens[r])
+				b.get("/signin")
+				form := url.Values{"csrf": {b.formToken()}}
+				for k, v := range fm.form {
+					form[k] = v
+				}
+				before, since := f.state(t, r), time.Now()
+				res := b.post(fm.path(r), form, nil)
+				st[i] = res.Status
+				if discover {
+					return
+				}
+				if res.Status != fm.want[i] {
+					t.Fatalf("POST %s as %s: status %d, want %d; body %s", fm.path(r), r, res.Status, fm.want[i], clipBody(res.Body))
+				}
+				if res.Status == http.StatusForbidden {
+					if after := f.state(t, r); after != before {
+						t.Errorf("refused, yet the state changed:\n before %s\n after  %s", before, after)
+					}
+					if acted := f.actedSince(t, since); len(acted) > 0 {
+						t.Errorf("refused, yet audited as done: %v", acted)
+					}
+				}
+			})
+		}
+		fmt.Fprintf(&got, "%s %v\n", fm.name, st)
+	}
+	if discover {
+		t.Log("\n" + got.String())
 	}
 }
