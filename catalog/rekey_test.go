@@ -1,6 +1,7 @@
 package catalog
 
 import (
+	"bytes"
 	"context"
 	"crypto/aes"
 	"crypto/cipher"
@@ -310,5 +311,52 @@ func TestRotateProjectKeyAttributes(t *testing.T) {
 		if fmt.Sprint(after[cur]) != fmt.Sprint(before[old]) {
 			t.Errorf("case %s: attributes %v after the rotation, %v before", c[0], after[cur], before[old])
 		}
+	}
+}
+
+// TestRotateProjectKeyReplaceWindow: a replace-window upload after a
+// rotation cuts the carried files; the version holds generation-2
+// pseudonyms only, the kept events and the replacement, and a merged
+// quality report.
+func TestRotateProjectKeyReplaceWindow(t *testing.T) {
+	e := newEnv(t, nil)
+	ctx := context.Background()
+	e.dataset(t, "p", "d", func(s *DatasetSpec) { s.Profile = []byte(strings.TrimSuffix(rekeyProfile, "time_shift_days: 30\n")) })
+	// Two days of events; the first day is replaced after the rotation.
+	rows := [][5]string{
+		{"CASE-RAW-0001", "SUBJ-RAW-01", "DESK-RAW-1", "arrival", "0"},
+		{"CASE-RAW-0001", "SUBJ-RAW-01", "DESK-RAW-1", "departure", "20"},
+		{"CASE-RAW-0002", "SUBJ-RAW-02", "DESK-RAW-2", "arrival", "2880"},
+		{"CASE-RAW-0002", "SUBJ-RAW-02", "DESK-RAW-2", "departure", "2900"},
+	}
+	e.ingest(t, "p", "d", rekeyCSV(rows), "a.csv")
+	if _, err := e.s.RotateProjectKey(ctx, "p", "admin"); err != nil {
+		t.Fatal(err)
+	}
+	p, _ := e.s.Project(ctx, "p")
+	pz2, _ := anonymize.OpenKeyChain(e.master, "p", p.KeyChain())
+	base := time.Date(2026, 4, 6, 8, 0, 0, 0, time.UTC)
+	from, to := base.Add(-time.Hour), base.Add(24*time.Hour)
+	repl := [][5]string{{"CASE-RAW-0009", "SUBJ-RAW-09", "DESK-RAW-1", "arrival", "5"}}
+	res, err := e.s.Ingest(ctx, "p", "d", bytes.NewReader(rekeyCSV(repl)), IngestOptions{Filename: "r.csv", By: "curator", Mode: ModeReplaceWindow, From: from, To: to, Sites: []string{"north"}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	v := res.Version
+	if v.Manifest.KeyID != p.Key.ID {
+		t.Fatalf("version %d names key %s, want %s", v.Number, v.Manifest.KeyID, p.Key.ID)
+	}
+	cases := map[string]int{}
+	for _, f := range v.Manifest.Files {
+		for _, ev := range readEvents(t, e.blobBytes(t, f.SHA256)) {
+			cases[ev.CaseID]++
+		}
+	}
+	want := map[string]int{pz2.Pseudonym(schema.FieldCaseID, "CASE-RAW-0002"): 2, pz2.Pseudonym(schema.FieldCaseID, "CASE-RAW-0009"): 1}
+	if fmt.Sprint(cases) != fmt.Sprint(want) {
+		t.Fatalf("version %d holds cases %v, want %v (case 1 replaced, all of generation 2)", v.Number, cases, want)
+	}
+	if rep := e.report(t, v); rep == nil || rep.Rows.Total == 0 {
+		t.Fatalf("version %d has no merged report", v.Number)
 	}
 }
