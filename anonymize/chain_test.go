@@ -5,6 +5,7 @@ import (
 	"crypto/sha256"
 	"encoding/base32"
 	"errors"
+	"fmt"
 	"strings"
 	"testing"
 
@@ -167,4 +168,31 @@ func TestOpenKeyChain(t *testing.T) {
 	if c := p.Clone(); c.Pseudonym(schema.FieldCaseID, "X") != p.Pseudonym(schema.FieldCaseID, "X") || c.KeyID() != p.KeyID() {
 		t.Error("a clone differs")
 	}
+}
+
+// BenchmarkChain measures a pseudonym under one and three generations
+// and the carry of a stored event's four identifiers over two steps
+// (what a re-key does per event).
+func BenchmarkChain(b *testing.B) {
+	for _, n := range []int{1, 3} {
+		p := chainOf(n)
+		b.Run(fmt.Sprintf("pseudonym/generations=%d", n), func(b *testing.B) {
+			for i := 0; i < b.N; i++ {
+				p.Pseudonym(schema.FieldCaseID, "CASE-0000123456")
+			}
+		})
+	}
+	p1, p3 := chainOf(1), chainOf(3)
+	held := schema.Event{CaseID: "C-1", SubjectID: "S-1", ResourceID: "R-1", InstanceID: "I-1"}
+	p1.Apply(&held)
+	r, _ := p3.Rekeyer("pk-gen1")
+	b.Run("rekey event/steps=2", func(b *testing.B) {
+		b.ReportAllocs()
+		for i := 0; i < b.N; i++ {
+			e := held
+			if err := r.Apply(&e); err != nil {
+				b.Fatal(err)
+			}
+		}
+	})
 }
