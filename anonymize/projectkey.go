@@ -67,29 +67,49 @@ func NewProjectKey(master MasterKey, project string) (SealedKey, error) {
 }
 
 // OpenProjectKey unseals sk for project under master and returns a
-// Pseudonymizer using the project key. It returns an error wrapping
-// ErrKeyMismatch if master or project is not the one sk was sealed for, or
-// if sk was altered, and one wrapping ErrMalformedKey if sk's fields have
-// the wrong lengths.
+// Pseudonymizer using the project key, as the only generation. It returns
+// an error wrapping ErrKeyMismatch if master or project is not the one sk
+// was sealed for, or if sk was altered, and one wrapping ErrMalformedKey
+// if sk's fields have the wrong lengths.
 func OpenProjectKey(master MasterKey, project string, sk SealedKey) (*Pseudonymizer, error) {
+	return OpenKeyChain(master, project, []SealedKey{sk})
+}
+
+// OpenKeyChain unseals a project's key generations, oldest first, and
+// returns the Pseudonymizer of the newest (see Pseudonym). It fails as
+// OpenProjectKey does on any of them, and on an empty chain or a key id
+// that occurs twice.
+func OpenKeyChain(master MasterKey, project string, chain []SealedKey) (*Pseudonymizer, error) {
 	if master.IsZero() {
 		return nil, errors.New("project key: master key not set")
 	}
-	if sk.ID == "" || len(sk.ID) > maxKeyIDLen || len(sk.Nonce) != nonceSize ||
-		len(sk.Ciphertext) != ProjectKeySize+16 {
-		return nil, fmt.Errorf("project key %q: %w", truncID(sk.ID), ErrMalformedKey)
+	if len(chain) == 0 {
+		return nil, fmt.Errorf("project key: no key: %w", ErrMalformedKey)
 	}
 	aead, err := master.sealer()
 	if err != nil {
 		return nil, fmt.Errorf("project key: %w", err)
 	}
-	key, err := aead.Open(nil, sk.Nonce, sk.Ciphertext, sealAD(project, sk.ID))
-	if err != nil {
-		return nil, fmt.Errorf("project key %s of project %q (tried master key %s): %w",
-			sk.ID, project, master.ID(), ErrKeyMismatch)
+	p := &Pseudonymizer{buf: make([]byte, 0, 128)}
+	for i, sk := range chain {
+		if sk.ID == "" || len(sk.ID) > maxKeyIDLen || len(sk.Nonce) != nonceSize ||
+			len(sk.Ciphertext) != ProjectKeySize+16 {
+			return nil, fmt.Errorf("project key %q: %w", truncID(sk.ID), ErrMalformedKey)
+		}
+		for _, prev := range chain[:i] {
+			if prev.ID == sk.ID {
+				return nil, fmt.Errorf("project key %q twice in the chain: %w", sk.ID, ErrMalformedKey)
+			}
+		}
+		key, err := aead.Open(nil, sk.Nonce, sk.Ciphertext, sealAD(project, sk.ID))
+		if err != nil {
+			return nil, fmt.Errorf("project key %s of project %q (tried master key %s): %w",
+				sk.ID, project, master.ID(), ErrKeyMismatch)
+		}
+		p.gens = append(p.gens, newGeneration(sk.ID, key))
+		clear(key)
 	}
-	defer clear(key)
-	return newPseudonymizer(sk.ID, key), nil
+	return p, nil
 }
 
 // sealer returns the AEAD that seals project keys. Its key is derived from
@@ -145,7 +165,8 @@ func ResealProjectKey(oldMaster, newMaster MasterKey, project string, sk SealedK
 	if err != nil {
 		return SealedKey{}, err
 	}
-	defer clear(p.key[:])
+	key := p.gens[0].key[:]
+	defer clear(key)
 	nonce := make([]byte, nonceSize)
 	if _, err := rand.Read(nonce); err != nil {
 		return SealedKey{}, fmt.Errorf("project key: %w", err)
@@ -154,5 +175,5 @@ func ResealProjectKey(oldMaster, newMaster MasterKey, project string, sk SealedK
 	if err != nil {
 		return SealedKey{}, fmt.Errorf("project key: %w", err)
 	}
-	return SealedKey{ID: sk.ID, Nonce: nonce, Ciphertext: aead.Seal(nil, nonce, p.key[:], sealAD(project, sk.ID))}, nil
+	return SealedKey{ID: sk.ID, Nonce: nonce, Ciphertext: aead.Seal(nil, nonce, key, sealAD(project, sk.ID))}, nil
 }

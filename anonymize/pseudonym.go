@@ -19,47 +19,84 @@ const domainPrefix = "flowcat/v1/"
 // pseudoEncoding is RFC 4648 base32 in lower case, without padding.
 var pseudoEncoding = base32.NewEncoding("abcdefghijklmnopqrstuvwxyz234567").WithPadding(base32.NoPadding)
 
-// Pseudonymizer computes the pseudonyms of one project key. It reuses one
-// HMAC state and buffers between calls, so it is not safe for concurrent
-// use: give each goroutine its own (see Clone).
+// Pseudonymizer computes the pseudonyms of one project key chain: the
+// project's key generations, oldest first (see OpenKeyChain). With one
+// generation (a project never rotated) a pseudonym is the HMAC of the raw
+// value; each later generation adds one keyed step over the previous
+// generation's pseudonym (chain.go). It reuses one HMAC state per
+// generation and its buffers between calls, so it is not safe for
+// concurrent use: give each goroutine its own (see Clone).
 type Pseudonymizer struct {
+	gens []*generation // oldest first; gens[0] pseudonymizes raw values
+	buf  []byte
+	out  [PseudonymLen]byte
+}
+
+// generation is one key of a project's chain.
+type generation struct {
 	id  string
 	key [ProjectKeySize]byte
 	mac *mac
-	buf []byte
-	out [PseudonymLen]byte
+}
+
+func newGeneration(id string, key []byte) *generation {
+	g := &generation{id: id}
+	copy(g.key[:], key)
+	g.mac = newMAC(g.key[:])
+	return g
 }
 
 func newPseudonymizer(id string, key []byte) *Pseudonymizer {
-	p := &Pseudonymizer{id: id, buf: make([]byte, 0, 128)}
-	copy(p.key[:], key)
-	p.mac = newMAC(p.key[:])
-	return p
+	return &Pseudonymizer{gens: []*generation{newGeneration(id, key)}, buf: make([]byte, 0, 128)}
 }
 
-// KeyID returns the id of the project key, as in SealedKey.ID.
-func (p *Pseudonymizer) KeyID() string { return p.id }
+// KeyID returns the id of the project's current key (its newest
+// generation), as in SealedKey.ID: the key id a version made with p
+// carries.
+func (p *Pseudonymizer) KeyID() string { return p.gens[len(p.gens)-1].id }
 
-// Clone returns an independent Pseudonymizer with the same key, for use from
-// another goroutine.
-func (p *Pseudonymizer) Clone() *Pseudonymizer { return newPseudonymizer(p.id, p.key[:]) }
+// Generation returns the number of the current key generation, 1 for a
+// project never rotated.
+func (p *Pseudonymizer) Generation() int { return len(p.gens) }
 
-// Pseudonym returns the pseudonym of raw in the domain of field f: the first
-// 16 bytes of HMAC-SHA256(project key, "flowcat/v1/" + f + "\x00" + raw) in
-// lower-case unpadded base32, 26 characters. An empty raw gives "".
+// Clone returns an independent Pseudonymizer with the same keys, for use
+// from another goroutine.
+func (p *Pseudonymizer) Clone() *Pseudonymizer {
+	c := &Pseudonymizer{buf: make([]byte, 0, 128)}
+	for _, g := range p.gens {
+		c.gens = append(c.gens, newGeneration(g.id, g.key[:]))
+	}
+	return c
+}
+
+// Pseudonym returns the pseudonym of raw in the domain of field f under
+// the current generation. Under generation 1 it is the first 16 bytes of
+// HMAC-SHA256(project key, "flowcat/v1/" + f + "\x00" + raw) in
+// lower-case unpadded base32, 26 characters; each later generation g
+// replaces the pseudonym q of generation g-1 by the same encoding of
+// HMAC-SHA256(key g, "flowcat/v1/rekey/" + f + "\x00" + q). An empty raw
+// gives "".
 func (p *Pseudonymizer) Pseudonym(f schema.Field, raw string) string {
 	if raw == "" {
 		return ""
 	}
+	p.root(f, raw)
+	for _, g := range p.gens[1:] {
+		p.step(g, f)
+	}
+	return string(p.out[:])
+}
+
+// root puts the generation-1 pseudonym of raw into p.out.
+func (p *Pseudonymizer) root(f schema.Field, raw string) {
 	b := append(p.buf[:0], domainPrefix...)
 	b = append(b, f...)
 	b = append(b, 0)
 	b = append(b, raw...)
-	sum := p.mac.compute(b)
+	sum := p.gens[0].mac.compute(b)
 	clear(b) // the buffer held a raw identifier
 	p.buf = b[:0]
 	pseudoEncoding.Encode(p.out[:], sum[:pseudoBytes])
-	return string(p.out[:])
 }
 
 // Apply replaces e's identifier fields (CaseID, SubjectID, ResourceID,

@@ -26,10 +26,10 @@ func (k MasterKey) MarshalText() ([]byte, error) { return []byte(k.String()), ni
 func (k MasterKey) LogValue() slog.Value { return slog.StringValue(k.String()) }
 
 // String names the pseudonymizer by its key id, never its key.
-func (p *Pseudonymizer) String() string { return "pseudonymizer " + p.id }
+func (p *Pseudonymizer) String() string { return "pseudonymizer " + p.KeyID() }
 
 // GoString is like String.
-func (p *Pseudonymizer) GoString() string { return "anonymize.Pseudonymizer(" + p.id + ")" }
+func (p *Pseudonymizer) GoString() string { return "anonymize.Pseudonymizer(" + p.KeyID() + ")" }
 
 // Format prints String for every verb.
 func (p *Pseudonymizer) Format(f fmt.State, verb rune) { fmt.Fprint(f, p.String()) }

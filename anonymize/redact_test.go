@@ -40,7 +40,7 @@ func TestKeysDoNotPrint(t *testing.T) {
 	slog.New(slog.NewJSONHandler(&logs, nil)).Info("boot", "key", mk, "pz", pz, "holder", holder)
 	slog.New(slog.NewTextHandler(&logs, nil)).Info("boot", "key", mk, "pz", pz, "holder", holder)
 	outs = append(outs, logs.String())
-	secrets := []string{mk.Hex(), hex.EncodeToString(pz.key[:]), fmt.Sprint([]byte(mk[:4])), fmt.Sprint(pz.key[:4])}
+	secrets := []string{mk.Hex(), hex.EncodeToString(pz.gens[0].key[:]), fmt.Sprint([]byte(mk[:4])), fmt.Sprint(pz.gens[0].key[:4])}
 	for _, out := range outs {
 		for _, s := range secrets {
 			if strings.Contains(strings.ToLower(out), strings.ToLower(s)) || strings.Contains(out, strings.Trim(s, "[]")) {

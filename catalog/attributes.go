@@ -210,19 +210,23 @@ func newAttrIngest(dir string, p *schema.Profile, pz *anonymize.Pseudonymizer) *
 	return &attrIngest{attrs: p.Attributes, shift: p.TimeShiftDays, pz: pz, rows: disclosure.NewCounter(dir, attrMemory)}
 }
 
-// take applies the time shift to e (pseudonymized) and keeps its case's
-// attribute values; a value of the wrong type rejects the row.
-func (ai *attrIngest) take(rd *schema.Reader, e *schema.Event) (*schema.Rejection, error) {
+// shiftDays is the profile's time shift bound, 0 for none (and for nil).
+func (ai *attrIngest) shiftDays() int {
+	if ai == nil {
+		return 0
+	}
+	return ai.shift
+}
+
+// take applies the time shift d of e's subject (anonymize's ApplyShift,
+// always derived from the key's first generation) to e (pseudonymized)
+// and keeps its case's attribute values; a value of the wrong type
+// rejects the row.
+func (ai *attrIngest) take(rd *schema.Reader, e *schema.Event, d time.Duration) (*schema.Rejection, error) {
 	if ai == nil {
 		return nil, nil
 	}
-	var d time.Duration
 	if ai.shift > 0 {
-		subj := e.SubjectID
-		if subj == "" {
-			subj = e.CaseID
-		}
-		d = ai.pz.TimeShift(subj, ai.shift)
 		e.OccurredAt = e.OccurredAt.Add(d)
 	}
 	if len(ai.attrs) == 0 {
@@ -316,6 +320,12 @@ func (s *Store) caseAttributes(ctx context.Context, ds *Dataset, parent *Version
 	}
 	if parent != nil && mode != ModeReplaceAll && parent.Manifest.CaseAttributes != nil && sameColumns(parent.Manifest.CaseAttributes.Columns, cols) {
 		err := s.readAttributeTable(ctx, parent.Manifest.CaseAttributes, cols, func(caseID string, vals []string) error {
+			if parent.carryCase != nil { // a parent of an older key generation (rekey.go)
+				var err error
+				if caseID, err = parent.carryCase(caseID); err != nil {
+					return err
+				}
+			}
 			key = attrKey(key[:0], caseID, '1', vals)
 			return join.Add(string(key), 1)
 		})

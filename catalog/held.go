@@ -86,9 +86,13 @@ func newHeldFilter(id Identity, policy ChangePolicy) *heldFilter {
 }
 
 // heldFilterFor makes the filter of an upload to ds against its latest
-// version; the caller holds the dataset's commit lock until the commit.
-func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, prof *schema.Profile, mode Mode) (*heldFilter, error) {
+// version (or carried, that version re-keyed, when not nil); the caller
+// holds the dataset's commit lock until the commit.
+func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, prof *schema.Profile, mode Mode, carried *Version) (*heldFilter, error) {
 	latest, err := s.Version(ctx, ds.Project, ds.Name, 0)
+	if carried != nil { // the latest version carried to the current key generation (rekey.go)
+		latest, err = carried, nil
+	}
 	if errors.Is(err, ErrNotFound) {
 		latest = nil
 	} else if err != nil {

@@ -42,6 +42,9 @@ type IngestOptions struct {
 
 	held  *heldFilter // set by Ingest: the upload's events against the latest version
 	attrs *attrIngest // set by Ingest: the upload's case attributes (attributes.go)
+	// carried is set by Ingest when the latest version is of an older
+	// key generation: that version re-keyed (rekey.go).
+	carried *carried
 }
 
 // Validate checks the options before any byte is read.
@@ -168,7 +171,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	if err := ds.writable(proj); err != nil {
 		return nil, err
 	}
-	pz, err := anonymize.OpenProjectKey(s.opt.Master, proj.Name, proj.Key)
+	pz, err := anonymize.OpenKeyChain(s.opt.Master, proj.Name, proj.KeyChain())
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
@@ -239,7 +242,16 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	// the upload's events are compared with.
 	unlock := s.lockDataset(ds.Ref().String())
 	defer unlock()
-	hf, err := s.heldFilterFor(ctx, ds, prof, opt.Mode)
+	// A latest version of an older key generation is carried to the
+	// current one first (rekey.go): the upload compares with its events
+	// and the new version is made from them.
+	cv, err := s.carryLatest(ctx, ds, pz, opt.Mode, qopt)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	defer cv.release()
+	opt.carried = cv
+	hf, err := s.heldFilterFor(ctx, ds, prof, opt.Mode, cv.carriedVersion())
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
@@ -381,11 +393,15 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	} else if err != nil {
 		return nil, err
 	}
+	if cv := opt.carried.carriedVersion(); cv != nil {
+		parent = cv // the same version, re-keyed (rekey.go)
+	}
 	plan, err := s.planFiles(ctx, ds, parent, entry, keyID, opt, qopt)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	defer plan.release()
+	opt.carried.into(plan)
 	if err := s.removeCorrected(ctx, ds, plan, keyID, opt.held, parent); err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
@@ -584,8 +600,8 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 			acc.Reject(*rej)
 			return nil
 		}
-		pz.Apply(e)
-		if rej, err := ai.take(rd, e); err != nil {
+		d := pz.ApplyShift(e, ai.shiftDays())
+		if rej, err := ai.take(rd, e, d); err != nil {
 			return err
 		} else if rej != nil {
 			acc.Reject(*rej)

@@ -9,7 +9,8 @@ import (
 	"github.com/flowcat-catalog/flowcat/anonymize"
 )
 
-// RotateMasterKey re-seals every project key (deleted projects' too)
+// RotateMasterKey re-seals every project key, every generation of it
+// (deleted projects' too),
 // under newMaster, in one transaction, and records newMaster's id as the
 // catalog's: the project keys, their ids and so every pseudonym stay the
 // same, and no data file is touched. From then on the catalog opens only
@@ -36,6 +37,12 @@ func (s *Store) RotateMasterKey(ctx context.Context, newMaster anonymize.MasterK
 				return fmt.Errorf("project %s: %w", p.Name, err)
 			}
 			p.Key = sk
+			// Earlier generations are re-sealed too: new uploads need them.
+			for i, old := range p.PriorKeys {
+				if p.PriorKeys[i], err = anonymize.ResealProjectKey(s.opt.Master, newMaster, p.Name, old); err != nil {
+					return fmt.Errorf("project %s, key %s: %w", p.Name, old.ID, err)
+				}
+			}
 			if err := putJSON(b, []byte(p.Name), &p); err != nil {
 				return err
 			}

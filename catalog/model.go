@@ -42,6 +42,12 @@ type Project struct {
 	CreatedAt time.Time           `json:"created_at"`
 	CreatedBy string              `json:"created_by"`
 	Key       anonymize.SealedKey `json:"key"`
+	// PriorKeys are the project's earlier key generations, oldest first,
+	// sealed like Key: a rotation (Store.RotateProjectKey) moves Key here
+	// and draws a new one. Every new upload's identifiers go through the
+	// whole chain (anonymize.OpenKeyChain). Absent in projects never
+	// rotated.
+	PriorKeys []anonymize.SealedKey `json:"prior_keys,omitempty"`
 	// Disclosure is the project's disclosure control; nil means
 	// DefaultDisclosurePolicy (attributes.go).
 	Disclosure *DisclosurePolicy `json:"disclosure,omitempty"`

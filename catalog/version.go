@@ -62,6 +62,10 @@ type Version struct {
 	// record was read (ResolveVersion, Heads). It is not stored with the
 	// record.
 	Manifest *Manifest `json:"manifest,omitempty"`
+
+	// carryCase, set on a version carried to a newer key generation for
+	// the next commit (rekey.go), re-keys a case id read from its files.
+	carryCase func(string) (string, error)
 }
 
 // File returns the manifest entry for id; v must have its manifest.

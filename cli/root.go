@@ -113,7 +113,7 @@ Parquet snapshots that students pull and verify. New here? Run flowcat demo.`,
 		newInitCmd(e), newServeCmd(e), newTokenCmd(e),
 		newProjectCmd(e), newDatasetCmd(e), newUploadCmd(e), newUploadsCmd(e), newVersionsCmd(e),
 		newPullCmd(e), newVerifyCmd(e), newQualityCmd(e),
-		newPublishCmd(e), newRetractCmd(e), newGCCmd(e), newDisclosureCmd(e), newDisclosurePolicyCmd(e), newAuditCmd(e), newMasterKeyCmd(e),
+		newPublishCmd(e), newRetractCmd(e), newGCCmd(e), newDisclosureCmd(e), newDisclosurePolicyCmd(e), newAuditCmd(e), newMasterKeyCmd(e), newPseudonymKeyCmd(e),
 		newAlertsCmd(e), newSummaryCmd(e), newExportCmd(e), newBundleCmd(e), newCiteCmd(e), newDiffCmd(e),
 		newValidateCmd(e), newSchemaCmd(e), newDemoCmd(e), newManCmd(e), newReadyCmd(e),
 	)

@@ -295,9 +295,14 @@ func (s *Server) getBundle(c echo.Context) error {
 	if err := s.auditRead(c, "version.bundle", v, "format "+format); err != nil {
 		return err
 	}
+	spans, err := s.cfg.Store.KeySpans(c.Request().Context(), d.Project, d.Name)
+	if err != nil {
+		return catalogError(err)
+	}
 	c.Response().WriteHeader(http.StatusOK)
 	err = export.WriteBundle(c.Request().Context(), c.Response(), format, export.Bundle{
 		Dataset: d, Version: v, Manifest: manifest, Quality: report, Open: query.Opener(s.cfg.Store), Citation: query.CitationInput(c.Request().Context(), s.cfg.Store, d, v, s.cfg.CitationAuthor),
+		KeySpans: spans,
 	})
 	if err != nil {
 		s.cfg.Logger.Error("bundle interrupted", "dataset", d.Ref(), "version", v.Number, "err", err)

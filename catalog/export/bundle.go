@@ -40,6 +40,10 @@ type Bundle struct {
 	// Version, SnapshotID and Released default to those of Version, its
 	// Title to the dataset's title or reference.
 	Citation CitationInput
+	// KeySpans are the dataset's versions grouped by pseudonym key
+	// generation (Store.KeySpans), for the dictionary's statement of which
+	// versions are linkable; nil states the rule only.
+	KeySpans []catalog.KeySpan
 }
 
 // The names of a bundle's entries besides data/<sha256>.parquet.
@@ -104,7 +108,7 @@ func WriteBundle(ctx context.Context, w io.Writer, format string, b Bundle) erro
 	if err != nil {
 		return fmt.Errorf("bundle: %w", err)
 	}
-	dict, err := dictionary(b.Dataset, v, b.Quality)
+	dict, err := dictionary(b.Dataset, v, b.Quality, b.KeySpans)
 	if err != nil {
 		return err
 	}
@@ -314,7 +318,7 @@ var fieldDocs = map[schema.Field]string{
 	schema.FieldInstanceID: "One execution of an activity within its case: its start and its complete share it.",
 }
 
-func dictionary(d *catalog.Dataset, v *catalog.Version, report []byte) ([]byte, error) {
+func dictionary(d *catalog.Dataset, v *catalog.Version, report []byte, spans []catalog.KeySpan) ([]byte, error) {
 	m := v.Manifest
 	var b strings.Builder
 	fmt.Fprintf(&b, "# Data dictionary: %s, version %d\n\n", d.Ref(), v.Number)
@@ -339,6 +343,7 @@ func dictionary(d *catalog.Dataset, v *catalog.Version, report []byte) ([]byte, 
 	b.WriteString(".\n\n## Mapping profile\n\n")
 	fmt.Fprintf(&b, "- Profile revision: %d\n", d.Revision())
 	fmt.Fprintf(&b, "- Profile hash: `%s`\n- Time zone of wall-clock times: %s\n- Pseudonym key id: `%s`\n\n", m.ProfileHash, d.Timezone, m.KeyID)
+	b.WriteString(linkability(v, spans))
 	if strings.TrimSpace(d.Profile) == "" {
 		b.WriteString("The dataset uses the default profile: the source columns carry the schema's own field names.\n")
 	} else {
@@ -451,4 +456,41 @@ func scalar(v any) string {
 		return strconv.FormatBool(x)
 	}
 	return fmt.Sprint(v)
+}
+
+// linkability states which versions of the dataset share v's pseudonym
+// key generation: between those an identifier has one pseudonym, so their
+// cases can be joined; with any other, its pseudonyms are unrelated.
+func linkability(v *catalog.Version, spans []catalog.KeySpan) string {
+	var b strings.Builder
+	b.WriteString("### Linkability of pseudonyms\n\n")
+	id := v.Manifest.KeyID
+	var same []int
+	var other []string
+	for _, sp := range spans {
+		if sp.KeyID == id {
+			same = sp.Versions
+			continue
+		}
+		other = append(other, fmt.Sprintf("%s (key `%s`, generation %d)", versionList(sp.Versions), sp.KeyID, sp.Generation))
+	}
+	if spans == nil {
+		b.WriteString("Versions whose manifest names the same pseudonym key id are linkable with this one (an identifier has the same pseudonym in all of them); versions naming another key id are not.\n\n")
+		return b.String()
+	}
+	fmt.Fprintf(&b, "Linkable with this version (same key generation: an identifier has the same pseudonym): versions %s.\n", versionList(same))
+	if len(other) == 0 {
+		b.WriteString("Every version of the dataset is of this key generation.\n\n")
+		return b.String()
+	}
+	fmt.Fprintf(&b, "Not linkable (another key generation: the same identifier has an unrelated pseudonym): versions %s.\n\n", strings.Join(other, "; "))
+	return b.String()
+}
+
+func versionList(vs []int) string {
+	out := make([]string, len(vs))
+	for i, n := range vs {
+		out[i] = fmt.Sprint(n)
+	}
+	return strings.Join(out, ", ")
 }
