@@ -170,6 +170,7 @@ func matrixRows() []matrixRow {
 		{method: "GET", pattern: "/metrics", path: fixedPath("/metrics"), want: [7]int{200, 200, 200, 200, 200, 200, 200}},
 		{method: "GET", pattern: mAPI + "/schema", path: fixedPath(mAPI + "/schema"), want: [7]int{200, 200, 200, 200, 200, 200, 200}},
 		{method: "GET", pattern: "/.well-known/jwks.json", path: fixedPath("/.well-known/jwks.json"), want: [7]int{200, 200, 200, 200, 200, 200, 200}},
+		{method: "GET", pattern: "/api/v1/openapi.json", path: fixedPath("/api/v1/openapi.json"), want: [7]int{200, 200, 200, 200, 200, 200, 200}},
 		{method: "GET", pattern: mAPI + "/projects", path: fixedPath(mAPI + "/projects"), want: [7]int{200, 200, 200, 200, 200, 200, 401}},
 		{method: "POST", pattern: mAPI + "/projects", path: fixedPath(mAPI + "/projects"), body: `{"name":"new-{r}"}`, ctype: j, want: [7]int{201, 403, 403, 403, 403, 403, 401}},
 		{method: "GET", pattern: mAPI + "/projects/:project", path: fixedPath(mAPI + "/projects/alpha"), want: [7]int{200, 200, 403, 200, 403, 403, 401}},
