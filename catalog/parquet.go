@@ -482,7 +482,13 @@ func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error
 	if err != nil {
 		return fmt.Errorf("parquet: %w", err)
 	}
-	er, err := NewEventReader(parquet.NewGenericReader[schema.Event](f))
+	var opts []parquet.ReaderOption
+	if hasEventAttrs(f.Schema()) {
+		// Read with the file's schema, so that the rows hold the
+		// attribute columns too (the Go type's would drop them).
+		opts = append(opts, f.Schema())
+	}
+	er, err := NewEventReader(parquet.NewGenericReader[schema.Event](f, opts...))
 	if err != nil {
 		return err
 	}
@@ -517,6 +523,8 @@ type RowReader[T any] struct {
 	rows  []parquet.Row
 	attrs []attrColumn // events: the event attribute columns
 	vals  []string
+	event *parquet.Schema // events with attributes: the schema rows are cut to
+	cut   parquet.Row
 }
 
 // attrColumn is one event attribute column of a snapshot file.
@@ -524,6 +532,10 @@ type attrColumn struct {
 	col int
 	typ schema.AttrType
 }
+
+// hasEventAttrs reports whether a snapshot file's schema has event
+// attribute columns.
+func hasEventAttrs(sch *parquet.Schema) bool { return len(eventAttrColumns(sch)) > 0 }
 
 // eventAttrColumns finds the leaf columns of sch that are not schema
 // fields, in column order: a snapshot's event attributes. Their types
@@ -573,7 +585,32 @@ func NewEventReader(r *parquet.GenericReader[schema.Event]) (*EventReader, error
 	}
 	rr := NewRowReader(r)
 	rr.attrs = eventAttrColumns(r.Schema())
+	if len(rr.attrs) > 0 {
+		// r reads with the file's schema: its first columns must be the
+		// event's, in order, so that rows cut to them reconstruct events.
+		cols := r.Schema().Columns()
+		for i, f := range schema.Fields {
+			if i >= len(cols) || len(cols[i]) != 1 || cols[i][0] != string(f) {
+				r.Close()
+				return nil, fmt.Errorf("parquet: event attribute columns before the schema's %s column", f)
+			}
+		}
+		rr.event = eventSchema
+	}
 	return rr, nil
+}
+
+// eventSchema is schema.Event's Parquet schema.
+var eventSchema = parquet.SchemaOf(schema.Event{})
+
+// NewEventRowGroupReader reads the events of one row group of a snapshot
+// file, event attributes included (see ReadSnapshot).
+func NewEventRowGroupReader(rg parquet.RowGroup) (*EventReader, error) {
+	var opts []parquet.ReaderOption
+	if hasEventAttrs(rg.Schema()) {
+		opts = append(opts, rg.Schema())
+	}
+	return NewEventReader(parquet.NewGenericRowGroupReader[schema.Event](rg, opts...))
 }
 
 // NewRowReader reads rows of T through r.
@@ -626,7 +663,17 @@ func (rr *RowReader[T]) Read(buf []T) (int, error) {
 	n, err := rr.r.ReadRows(rows)
 	sch := rr.r.Schema()
 	for i, row := range rows[:n] {
-		if rerr := sch.Reconstruct(&buf[i], row); rerr != nil {
+		if rr.event != nil {
+			rr.cut = rr.cut[:0]
+			for _, v := range row {
+				if v.Column() < len(schema.Fields) {
+					rr.cut = append(rr.cut, v)
+				}
+			}
+			if rerr := rr.event.Reconstruct(&buf[i], rr.cut); rerr != nil {
+				return i, rerr
+			}
+		} else if rerr := sch.Reconstruct(&buf[i], row); rerr != nil {
 			return i, rerr
 		}
 		if len(rr.attrs) > 0 {

@@ -405,7 +405,7 @@ func (c *cursor) raw() (*schema.Event, error) {
 				c.eof = true
 				return nil, nil
 			}
-			rd, err := catalog.NewEventReader(parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi]))
+			rd, err := catalog.NewEventRowGroupReader(c.groups[c.gi])
 			if err != nil {
 				return nil, fmt.Errorf("export: %w", err)
 			}
