@@ -1,10 +1,12 @@
 package export
 
 import (
+	"archive/zip"
 	"bytes"
 	"context"
 	"encoding/csv"
 	"fmt"
+	"io"
 	"os"
 	"path/filepath"
 	"strconv"
@@ -281,6 +283,53 @@ func TestExportEventAttributes(t *testing.T) {
 	for at, w := range want {
 		if strings.Join(got[at], "|") != strings.Join(w, "|") {
 			t.Errorf("layout row at %s: %v, want %v", at, got[at], w)
+		}
+	}
+
+	// A bundle carries the files as stored, columns and all, and its
+	// dictionary names them with their roles.
+	ds, err := e.s.Dataset(ctx, "p", "d")
+	if err != nil {
+		t.Fatal(err)
+	}
+	mb, err := e.s.ManifestBytes(ctx, v)
+	if err != nil {
+		t.Fatal(err)
+	}
+	buf.Reset()
+	if err := WriteBundle(ctx, &buf, "zip", Bundle{Dataset: ds, Version: v, Manifest: mb, Open: e.opener(), Citation: CitationInput{Authors: []Author{{Name: "Harbour Desk Study"}}}}); err != nil {
+		t.Fatal(err)
+	}
+	zr, err := zip.NewReader(bytes.NewReader(buf.Bytes()), int64(buf.Len()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	got = map[string][]string{}
+	for _, zf := range zr.File {
+		rc, err := zf.Open()
+		if err != nil {
+			t.Fatal(err)
+		}
+		b, err := io.ReadAll(rc)
+		rc.Close()
+		if err != nil {
+			t.Fatal(err)
+		}
+		switch {
+		case zf.Name == BundleDictionary:
+			if !strings.Contains(string(b), "| `caller_age` | string (UTF-8) | sensitive | age in 5-year bands, 90 and over as one group (90+) |") {
+				t.Errorf("the bundle's dictionary lacks the event attributes:\n%s", b)
+			}
+		case strings.HasPrefix(zf.Name, "data/"):
+			_, rows := arrowAttrs(t, b)
+			for at, vals := range rows {
+				got[at] = vals
+			}
+		}
+	}
+	for at, w := range want {
+		if strings.Join(got[at], "|") != strings.Join(w, "|") {
+			t.Errorf("bundle row at %s: %v, want %v", at, got[at], w)
 		}
 	}
 }
