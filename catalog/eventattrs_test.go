@@ -345,3 +345,58 @@ func TestSnapshotWithoutAttributesUnchanged(t *testing.T) {
 		t.Fatalf("%d events: %v", n, err)
 	}
 }
+
+// Event attributes are not part of an event's identity: a re-sent file
+// whose events differ only in an attribute holds nothing new. A
+// replace-window upload rewrites the files it cuts with their attributes.
+func TestEventAttributesIdentityAndRewrite(t *testing.T) {
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "d", func(s *DatasetSpec) { s.Profile = []byte(eventAttrProfile) })
+	ctx := context.Background()
+	first := e.ingest(t, "p", "d", eventAttrCSV(""), "desk.csv")
+	// The same events, every bed number changed: already held.
+	again := strings.ReplaceAll(string(eventAttrCSV("")), ",12,A", ",13,A")
+	res, err := e.s.Ingest(ctx, "p", "d", strings.NewReader(again), IngestOptions{Filename: "again.csv", By: "site"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if ev := res.Upload.Events; res.Upload.Status != UploadDuplicate || ev == nil || ev.Held != 5 || ev.New != 0 {
+		t.Fatalf("re-sent with other attributes: %s %+v", res.Upload.Status, res.Upload.Events)
+	}
+
+	// Replace v1's departure (minute 50); the file is rewritten without
+	// it, keeping every other row's attributes.
+	t0 := time.Date(2026, 3, 9, 8, 0, 0, 0, time.UTC)
+	repl := eventAttrHeader + "v1,h1,departure," + t0.Add(55*time.Minute).Format(time.RFC3339) + ",70,55116,2026-03-10,8,A9,F,\n"
+	res, err = e.s.Ingest(ctx, "p", "d", strings.NewReader(repl), IngestOptions{Filename: "fix.csv", By: "site",
+		Mode: ModeReplaceWindow, From: t0.Add(40 * time.Minute), To: t0.Add(60 * time.Minute), Sites: []string{"harbour"}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	m := res.Version.Manifest
+	if len(m.Files) != 2 || m.Lineage.RowsRemoved != 1 {
+		t.Fatalf("files %d, removed %d", len(m.Files), m.Lineage.RowsRemoved)
+	}
+	got := map[string]string{}
+	for _, f := range m.Files {
+		if f.Attributes == nil || len(f.Attributes.Columns()) != 5 {
+			t.Errorf("file %s lost its attribute columns: %+v", f.SHA256, f.Attributes)
+		}
+		if f.SHA256 == first.Version.Manifest.Files[0].SHA256 {
+			t.Error("the cut file was not rewritten")
+		}
+		b := e.blobBytes(t, f.SHA256)
+		err := ReadSnapshot(bytes.NewReader(b), int64(len(b)), func(ev *schema.Event) error {
+			got[ev.OccurredAt.Format("15:04")] = strings.ReplaceAll(ev.Attrs, "\x00", "|")
+			return nil
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	w := map[string]string{"08:00": "A2|12|021|2026-03-02|90+", "08:07": "B||101|2026-02-23|40-49", "08:09": "|3|||",
+		"08:12": "C|-4|995|2026-03-09|90+", "08:55": "A9|8|551|2026-03-09|70-79"}
+	if fmt.Sprint(got) != fmt.Sprint(w) {
+		t.Errorf("after the replacement: %v\nwant %v", got, w)
+	}
+}
