@@ -400,3 +400,46 @@ func TestEventAttributesIdentityAndRewrite(t *testing.T) {
 		t.Errorf("after the replacement: %v\nwant %v", got, w)
 	}
 }
+
+// With a time shift, an event attribute's date moves by its subject's
+// offset, as the event's time does, so intervals within a subject hold.
+func TestEventAttributeTimeShift(t *testing.T) {
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "d", func(s *DatasetSpec) {
+		s.Profile = []byte("fields:\n  site: {value: harbour}\n  case_id: visit\n  subject_id: person\n  event_type: step\n  occurred_at: at\n" +
+			"attributes:\n  booked: {column: BOOKED, role: plain, type: date, level: event}\ntime_shift_days: 90\n")
+	})
+	raw := "visit,person,step,at,BOOKED\n" +
+		"v1,h1,arrival,2026-03-09T08:00:00Z,2026-03-01\n" +
+		"v2,h2,arrival,2026-03-09T09:00:00Z,2026-02-11\n" +
+		"v3,h3,arrival,2026-03-09T10:00:00Z,\n"
+	res := e.ingest(t, "p", "d", []byte(raw), "shift.csv")
+	b := e.blobBytes(t, res.Version.Manifest.Files[0].SHA256)
+	rawAt := map[string]time.Time{}
+	rawDate := map[string]string{}
+	for _, line := range strings.Split(strings.TrimSpace(raw), "\n")[1:] {
+		f := strings.Split(line, ",")
+		rawAt[e.pseudo(t, f[0])], _ = time.Parse(time.RFC3339, f[3])
+		rawDate[e.pseudo(t, f[0])] = f[4]
+	}
+	n := 0
+	err := ReadSnapshot(bytes.NewReader(b), int64(len(b)), func(ev *schema.Event) error {
+		n++
+		shift := rawAt[ev.CaseID].Sub(ev.OccurredAt)
+		if shift < 0 || shift > 90*24*time.Hour || shift%(24*time.Hour) != 0 {
+			t.Errorf("case %s shifted by %v", ev.CaseID, shift)
+		}
+		want := ""
+		if d := rawDate[ev.CaseID]; d != "" {
+			rd, _ := time.Parse(time.DateOnly, d)
+			want = rd.Add(-shift).Format(time.DateOnly)
+		}
+		if ev.Attrs != want {
+			t.Errorf("case %s: booked %q, want %q (shift %v)", ev.CaseID, ev.Attrs, want, shift)
+		}
+		return nil
+	})
+	if err != nil || n != 3 {
+		t.Fatalf("%d events: %v", n, err)
+	}
+}
