@@ -443,3 +443,47 @@ func TestEventAttributeTimeShift(t *testing.T) {
 		t.Fatalf("%d events: %v", n, err)
 	}
 }
+
+// BenchmarkSnapshotWriterAttrs writes 100,000 events to a snapshot file,
+// without event attributes and with five (two codes, an age band, an
+// integer and a date), to show what the row path costs.
+func BenchmarkSnapshotWriterAttrs(b *testing.B) {
+	cols := AttributeColumns{
+		{Name: "acuity", Type: schema.TypeCode}, {Name: "bed", Type: schema.TypeInteger},
+		{Name: "catchment", Type: schema.TypeCode}, {Name: "seen_on", Type: schema.TypeDate}, {Name: "step_age", Type: schema.TypeAge},
+	}
+	t0 := time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)
+	evs := make([]schema.Event, 100000)
+	for i := range evs {
+		evs[i] = schema.Event{Site: "north", CaseID: fmt.Sprintf("case-%06d", i/5), Type: schema.EventTypes[i%5], Queue: "triage",
+			OccurredAt: t0.Add(time.Duration(i) * time.Second), Activity: "assess"}
+	}
+	for _, with := range []bool{false, true} {
+		b.Run(fmt.Sprintf("attributes=%t", with), func(b *testing.B) {
+			var ac *AttributeColumns
+			batch := slices.Clone(evs)
+			if with {
+				ac = &cols
+				for i := range batch {
+					batch[i].Attrs = schema.JoinAttrs([]string{"A" + strconv.Itoa(i%4), strconv.Itoa(i % 30), "021", "2026-03-02", "40-49"})
+				}
+			}
+			for b.Loop() {
+				sw, err := newAttrSnapshotWriter(b.TempDir(), 128<<10, "k", ac)
+				if err != nil {
+					b.Fatal(err)
+				}
+				for i := range batch {
+					if err := sw.Write(&batch[i]); err != nil {
+						b.Fatal(err)
+					}
+				}
+				if _, _, err := sw.Finish(); err != nil {
+					b.Fatal(err)
+				}
+				sw.Remove()
+			}
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N*len(batch)), "ns/event")
+		})
+	}
+}
