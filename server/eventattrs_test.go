@@ -59,6 +59,11 @@ func TestEventAttributesOverHTTP(t *testing.T) {
 	if got := last[len(last)-2:]; got[0] != "995" || got[1] != "90+" {
 		t.Errorf("the last event's attributes %v", got)
 	}
+	// The version page names them with their roles.
+	br := e.browser(t)
+	br.signIn(curator)
+	pg := br.page("/view/p/d/1", http.StatusOK)
+	mustHave(t, "version page", pg, `id="event-attributes"`, "<code>step_age</code> (age, sensitive: age in 5-year bands, 90 and over as one group (90&#43;))", "<code>office</code> (code, plain: first 3 characters kept)")
 	for _, body := range append(e.allBodies(), e.log.Bytes()) {
 		for _, n := range []string{"97.25", "99501", "PLANTED"} {
 			if bytes.Contains(body, []byte(n)) {
