@@ -538,11 +538,24 @@ type attrColumn struct {
 func hasEventAttrs(sch *parquet.Schema) bool { return len(eventAttrColumns(sch)) > 0 }
 
 // eventAttrColumns finds the leaf columns of sch that are not schema
-// fields, in column order: a snapshot's event attributes. Their types
-// follow from the Parquet types the writer gives them (attrEventSchema).
+// fields, in column order: a snapshot's event attributes, when its first
+// columns are the schema's, in order (as attrEventSchema writes them); nil
+// for any other file. Their types follow from the Parquet types the writer
+// gives them.
 func eventAttrColumns(sch *parquet.Schema) []attrColumn {
+	cols := sch.Columns()
+	if len(cols) <= len(schema.Fields) {
+		return nil
+	}
+	for i, f := range schema.Fields {
+		if len(cols[i]) != 1 || cols[i][0] != string(f) {
+			// Not a snapshot with attributes (a case table, say): read
+			// as before, through the event's own schema.
+			return nil
+		}
+	}
 	var out []attrColumn
-	for i, path := range sch.Columns() {
+	for i, path := range cols {
 		if len(path) != 1 || slices.Contains(schema.Fields, schema.Field(path[0])) {
 			continue
 		}
