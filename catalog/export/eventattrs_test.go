@@ -5,6 +5,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/csv"
+	"encoding/json"
 	"fmt"
 	"io"
 	"os"
@@ -330,6 +331,75 @@ func TestExportEventAttributes(t *testing.T) {
 	for at, w := range want {
 		if strings.Join(got[at], "|") != strings.Join(w, "|") {
 			t.Errorf("bundle row at %s: %v, want %v", at, got[at], w)
+		}
+	}
+}
+
+// A snapshot file with event attributes and a whole export of them read
+// the same in Apache Arrow's Go reader and DuckDB (when installed, see
+// duckdbReadouts): rows, column types (VARCHAR, BIGINT, DATE) and null
+// counts, which are the raw file's empty values.
+func TestEnginesReadEventAttributes(t *testing.T) {
+	e, v, _ := attrExportFixture(t)
+	ctx := context.Background()
+	src := Source{Open: e.opener(), TempDir: e.tmp}
+	files := map[string][]byte{}
+	r, err := e.s.Blobs().Open(ctx, v.Manifest.Files[0].SHA256)
+	if err != nil {
+		t.Fatal(err)
+	}
+	files["snapshot"], _ = io.ReadAll(r)
+	r.Close()
+	var whole bytes.Buffer
+	if _, err := WriteParquet(ctx, &whole, src, v.Manifest.Files, Filter{}, ParquetOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	files["export"] = whole.Bytes()
+	// Null counts of the whole export: the raw rows' empty values.
+	wantNulls := map[string]int64{}
+	for _, raw := range attrExportRaw {
+		for i, name := range attrExportNames {
+			if wantExportAttrs(raw)[i] == "" {
+				wantNulls[name]++
+			}
+		}
+	}
+	types := map[string]string{"caller_age": "VARCHAR", "counter": "BIGINT", "day_of": "DATE", "office": "VARCHAR", "urgency": "VARCHAR"}
+	dir := t.TempDir()
+	paths := map[string]string{}
+	arrowOut := map[string]readout{}
+	for name, data := range files {
+		checkEngineFriendly(t, data)
+		paths[name] = filepath.Join(dir, name+".parquet")
+		if err := os.WriteFile(paths[name], data, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		arrowOut[name] = arrowReadout(t, data)
+		seen := 0
+		for _, c := range arrowOut[name].Columns {
+			if tp, ok := types[c.Name]; ok {
+				seen++
+				if c.Type != tp {
+					t.Errorf("%s: %s is %s, want %s", name, c.Name, c.Type, tp)
+				}
+				if name == "export" && c.Nulls != wantNulls[c.Name] {
+					t.Errorf("export: %s has %d nulls, want %d", c.Name, c.Nulls, wantNulls[c.Name])
+				}
+			}
+		}
+		if seen != len(types) {
+			t.Errorf("%s: %d attribute columns", name, seen)
+		}
+	}
+	duck := duckdbReadouts(t, paths)
+	if duck == nil {
+		return
+	}
+	for name, p := range paths {
+		ab, _ := json.Marshal(arrowOut[name])
+		db, _ := json.Marshal(duck[p])
+		if !bytes.Equal(ab, db) {
+			t.Errorf("%s: Arrow and DuckDB read differently:\narrow  %s\nduckdb %s", name, ab, db)
 		}
 	}
 }
