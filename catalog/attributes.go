@@ -37,7 +37,20 @@ type AttributeTable struct {
 	Columns []AttributeColumn `json:"columns"`
 }
 
-// AttributeColumn describes one column of the case attribute table.
+// AttributeColumns lists the event attribute columns of a snapshot file
+// (FileEntry.Attributes), after the schema's columns, in this order.
+type AttributeColumns []AttributeColumn
+
+// Columns returns the list, nil for a nil receiver (a file without).
+func (c *AttributeColumns) Columns() []AttributeColumn {
+	if c == nil {
+		return nil
+	}
+	return *c
+}
+
+// AttributeColumn describes one column of the case attribute table or
+// one event attribute column of a snapshot file.
 type AttributeColumn struct {
 	Name string          `json:"name"`
 	Type schema.AttrType `json:"type"`
@@ -189,12 +202,16 @@ func publishGate(v *Version, thr float64, ov *RiskOverride, now time.Time) error
 // profile's attributes, the time shift, and the generalized values of the
 // upload's cases, sorted by case on disk.
 type attrIngest struct {
-	attrs []schema.Attribute
-	shift int
-	pz    *anonymize.Pseudonymizer
-	rows  *disclosure.Counter // case \0 "2" \0 values
-	vals  []string
-	key   []byte
+	attrs  []schema.Attribute // case attributes
+	events []schema.Attribute // event attributes: the snapshot's extra columns
+	all    []schema.Attribute // the profile's, both levels, in profile order
+	shift  int
+	pz     *anonymize.Pseudonymizer
+	rows   *disclosure.Counter // case \0 "2" \0 values
+	vals   []string            // every attribute of the row, profile order
+	cvals  []string            // its case attributes
+	evals  []string            // its event attributes
+	key    []byte
 }
 
 // attrMemory bounds the bytes of attribute records each on-disk sort of
@@ -207,7 +224,17 @@ func newAttrIngest(dir string, p *schema.Profile, pz *anonymize.Pseudonymizer) *
 	if len(p.Attributes) == 0 && p.TimeShiftDays == 0 {
 		return nil
 	}
-	return &attrIngest{attrs: p.Attributes, shift: p.TimeShiftDays, pz: pz, rows: disclosure.NewCounter(dir, attrMemory)}
+	return &attrIngest{attrs: p.CaseAttributes(), events: p.EventAttributes(), all: p.Attributes, shift: p.TimeShiftDays, pz: pz, rows: disclosure.NewCounter(dir, attrMemory)}
+}
+
+// eventColumns is what the manifest says of an upload's event attribute
+// columns (nil: none).
+func (ai *attrIngest) eventColumns() *AttributeColumns {
+	if ai == nil || len(ai.events) == 0 {
+		return nil
+	}
+	cols := AttributeColumns(attributeColumns(ai.events))
+	return &cols
 }
 
 // shiftDays is the profile's time shift bound, 0 for none (and for nil).
@@ -229,7 +256,7 @@ func (ai *attrIngest) take(rd *schema.Reader, e *schema.Event, d time.Duration) 
 	if ai.shift > 0 {
 		e.OccurredAt = e.OccurredAt.Add(d)
 	}
-	if len(ai.attrs) == 0 {
+	if len(ai.all) == 0 {
 		return nil, nil
 	}
 	var rej *schema.Rejection
@@ -237,16 +264,25 @@ func (ai *attrIngest) take(rd *schema.Reader, e *schema.Event, d time.Duration) 
 	if rej != nil {
 		return rej, nil
 	}
+	ai.cvals, ai.evals = ai.cvals[:0], ai.evals[:0]
 	empty := true
-	for _, v := range ai.vals {
+	for i, v := range ai.vals {
+		if ai.all[i].EventLevel() {
+			ai.evals = append(ai.evals, v)
+			continue
+		}
+		ai.cvals = append(ai.cvals, v)
 		if v != "" {
 			empty = false
 		}
 	}
-	if empty {
+	if len(ai.events) > 0 {
+		e.Attrs = schema.JoinAttrs(ai.evals)
+	}
+	if empty || len(ai.attrs) == 0 {
 		return nil, nil
 	}
-	ai.key = attrKey(ai.key[:0], e.CaseID, '2', ai.vals)
+	ai.key = attrKey(ai.key[:0], e.CaseID, '2', ai.cvals)
 	return nil, ai.rows.Add(string(ai.key), 1)
 }
 

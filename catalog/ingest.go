@@ -258,7 +258,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	defer hf.close()
 	opt.held = hf
 
-	sw, err := newSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, pz.KeyID())
+	sw, err := newAttrSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, pz.KeyID(), opt.attrs.eventColumns())
 	if err != nil {
 		return nil, err
 	}
@@ -359,7 +359,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 		if err := s.blobs.Put(ctx, id, body); err != nil {
 			return nil, fmt.Errorf("ingest: %w", err)
 		}
-		entry = &FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows}
+		entry = &FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows, Attributes: opt.attrs.eventColumns()}
 	}
 	if testHookBeforeCommit != nil {
 		testHookBeforeCommit()

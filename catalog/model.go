@@ -169,6 +169,11 @@ type FileEntry struct {
 	// some of its rows, the file its upload made (the first of a chain of
 	// rewrites). The rewritten file records it in its metadata too.
 	DerivedFrom *blob.ID `json:"derived_from,omitempty"`
+	// Attributes are the file's event attribute columns, after the
+	// schema's, in this order, with their types, roles and rules; absent
+	// for a file without (every file written before they existed). A
+	// pointer keeps FileEntry comparable; compare files by SHA256.
+	Attributes *AttributeColumns `json:"attributes,omitempty"`
 }
 
 // Mode says how an upload's events combine with the dataset's latest

@@ -2,6 +2,7 @@ package catalog
 
 import (
 	"crypto/sha256"
+	"encoding/json"
 	"fmt"
 	"hash"
 	"io"
@@ -9,6 +10,7 @@ import (
 	"reflect"
 	"runtime"
 	"slices"
+	"strconv"
 	"strings"
 	"sync"
 	"time"
@@ -40,6 +42,14 @@ type snapshotWriter struct {
 // derivedFrom, when not empty, is written into the file's metadata: a file
 // rewritten by replace-window thus never has the bytes of another file.
 func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom ...string) (*snapshotWriter, error) {
+	return newAttrSnapshotWriter(dir, rowGroupRows, keyID, nil, derivedFrom...)
+}
+
+// newAttrSnapshotWriter is newSnapshotWriter of a file with event
+// attribute columns attrs (none: the file is as it was before event
+// attributes existed, byte for byte).
+func newAttrSnapshotWriter(dir string, rowGroupRows int64, keyID string, ac *AttributeColumns, derivedFrom ...string) (*snapshotWriter, error) {
+	attrs := ac.Columns()
 	f, err := os.CreateTemp(dir, "snapshot-*.parquet")
 	if err != nil {
 		return nil, fmt.Errorf("parquet: %w", err)
@@ -49,7 +59,10 @@ func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom
 	for _, d := range derivedFrom {
 		kv = append(kv, KeyValue{"flowcat.derived_from", d})
 	}
-	sw.w = NewEventWriter(io.MultiWriter(f, sw.h, countWriter{&sw.n}), schema.Fields, EventWriterOptions{RowGroupRows: rowGroupRows, Metadata: kv})
+	if len(attrs) > 0 {
+		kv = append(kv, KeyValue{"flowcat.event_attributes", eventAttributesMeta(attrs)})
+	}
+	sw.w = NewEventWriter(io.MultiWriter(f, sw.h, countWriter{&sw.n}), schema.Fields, EventWriterOptions{RowGroupRows: rowGroupRows, Metadata: kv, Attrs: attrs})
 	sw.batch = newBatches(1024, sw.flushBatch)
 	return sw, nil
 }
@@ -107,6 +120,12 @@ type EventWriterOptions struct {
 	RowGroupRows int64      // rows per row group; required
 	Metadata     []KeyValue // key-value metadata, after flowcat.schema_version, in this order
 
+	// Attrs are event attribute columns written after cols, in this order
+	// (Event.Attrs holds their values). A writer with attributes writes
+	// rows with their own definition levels; one without writes exactly
+	// the bytes it wrote before attributes existed.
+	Attrs []AttributeColumn
+
 	schema *parquet.Schema // for the encodings benchmark: replaces subsetSchema(cols)
 }
 
@@ -126,7 +145,8 @@ type EventWriterOptions struct {
 // carry their own definition levels (slower: about 1.5 to 2 times the
 // time, measured on the development machine).
 type EventWriter struct {
-	cols []schema.Field
+	cols  []schema.Field
+	attrs []AttributeColumn
 
 	// every column
 	g    *parquet.GenericWriter[storedEvent]
@@ -172,8 +192,10 @@ const writeBatch = 512
 // NewEventWriter returns a writer of cols to w.
 func NewEventWriter(w io.Writer, cols []schema.Field, opt EventWriterOptions) *EventWriter {
 	sch := opt.schema
-	every := sch == nil && slices.Equal(cols, schema.Fields)
-	if sch == nil {
+	every := sch == nil && slices.Equal(cols, schema.Fields) && len(opt.Attrs) == 0
+	if sch == nil && len(opt.Attrs) > 0 {
+		sch = attrEventSchema(cols, opt.Attrs)
+	} else if sch == nil {
 		sch = subsetSchema(cols)
 	}
 	opts := []parquet.WriterOption{
@@ -191,7 +213,7 @@ func NewEventWriter(w io.Writer, cols []schema.Field, opt EventWriterOptions) *E
 		// reorder rows.
 		opts = append(opts, parquet.SortingWriterConfig(parquet.SortingColumns(parquet.Ascending(string(schema.FieldOccurredAt)))))
 	}
-	ew := &EventWriter{cols: cols}
+	ew := &EventWriter{cols: cols, attrs: opt.Attrs}
 	if every {
 		// The file's schema is schema.Event's (its tags are the one home of
 		// the layout); storedEvent only carries the values.
@@ -203,9 +225,68 @@ func NewEventWriter(w io.Writer, cols []schema.Field, opt EventWriterOptions) *E
 	ew.w = parquet.NewWriter(w, append([]parquet.WriterOption{sch}, opts...)...)
 	ew.batch = make([]parquet.Row, writeBatch)
 	for i := range ew.batch {
-		ew.batch[i] = make(parquet.Row, len(cols))
+		ew.batch[i] = make(parquet.Row, len(cols)+len(opt.Attrs))
 	}
 	return ew
+}
+
+// attrEventSchema is subsetSchema(cols) followed by one optional column
+// per event attribute, in order: codes and age bands as
+// dictionary-encoded strings, integers INT64, dates DATE, as in the case
+// attribute table (attrNode).
+func attrEventSchema(cols []schema.Field, attrs []AttributeColumn) *parquet.Schema {
+	var fields []reflect.StructField
+	for _, c := range cols {
+		for i := range eventType.NumField() {
+			sf := eventType.Field(i)
+			if name, _, _ := strings.Cut(sf.Tag.Get("parquet"), ","); name == string(c) {
+				fields = append(fields, reflect.StructField{Name: sf.Name, Type: sf.Type, Tag: sf.Tag})
+			}
+		}
+	}
+	for i, a := range attrs {
+		f := reflect.StructField{Name: fmt.Sprintf("Attr%d", i), Type: reflect.TypeFor[*string](), Tag: reflect.StructTag(`parquet:"` + a.Name + `,dict"`)}
+		switch a.Type {
+		case schema.TypeInteger:
+			f.Type, f.Tag = reflect.TypeFor[*int64](), reflect.StructTag(`parquet:"`+a.Name+`"`)
+		case schema.TypeDate:
+			f.Type, f.Tag = reflect.TypeFor[*int32](), reflect.StructTag(`parquet:"`+a.Name+`,date"`)
+		}
+		fields = append(fields, f)
+	}
+	return parquet.SchemaOf(reflect.New(reflect.StructOf(fields)).Elem().Interface())
+}
+
+// attrValue is the Parquet value of one event attribute value of type t
+// (its stored text form: decimal integers, YYYY-MM-DD dates).
+func attrValue(t schema.AttrType, v string) (parquet.Value, error) {
+	switch t {
+	case schema.TypeInteger:
+		n, err := strconv.ParseInt(v, 10, 64)
+		if err != nil {
+			return parquet.Value{}, fmt.Errorf("not a whole number")
+		}
+		return parquet.Int64Value(n), nil
+	case schema.TypeDate:
+		d, err := time.Parse(time.DateOnly, v)
+		if err != nil {
+			return parquet.Value{}, fmt.Errorf("not a date")
+		}
+		return parquet.Int32Value(int32(d.Unix() / 86400)), nil
+	}
+	return bytesValue(v), nil
+}
+
+// attrText is the stored text form of a non-null attribute value read
+// from a column of type t.
+func attrText(t schema.AttrType, v parquet.Value) string {
+	switch t {
+	case schema.TypeInteger:
+		return strconv.FormatInt(v.Int64(), 10)
+	case schema.TypeDate:
+		return time.Unix(int64(v.Int32())*86400, 0).UTC().Format(time.DateOnly)
+	}
+	return string(v.ByteArray())
 }
 
 var (
@@ -260,6 +341,27 @@ func (ew *EventWriter) Write(e *schema.Event) error {
 			}
 		}
 		row = append(row, v)
+	}
+	rest := e.Attrs
+	for j, a := range ew.attrs {
+		i := len(ew.cols) + j
+		s := rest
+		if k := strings.IndexByte(rest, 0); k >= 0 {
+			s, rest = rest[:k], rest[k+1:]
+		} else {
+			rest = ""
+		}
+		if s == "" {
+			row = append(row, parquet.NullValue().Level(0, 0, i))
+			continue
+		}
+		v, err := attrValue(a.Type, s)
+		if err != nil {
+			// Values were checked at ingest: this is a program fault, and
+			// the message names the column, never the value.
+			return fmt.Errorf("parquet: event attribute %s: %w", a.Name, err)
+		}
+		row = append(row, v.Level(0, 1, i))
 	}
 	ew.batch[ew.n] = row
 	ew.n++
@@ -360,14 +462,33 @@ func (c countWriter) Write(p []byte) (int, error) {
 	return len(p), nil
 }
 
+// eventAttributesMeta is the file metadata naming its event attribute
+// columns with their types, roles and rules: the manifest's entry, as
+// JSON, so that a file read alone says what its extra columns are.
+func eventAttributesMeta(attrs []AttributeColumn) string {
+	b, err := json.Marshal(attrs)
+	if err != nil {
+		panic("parquet: event attributes: " + err.Error()) // strings only
+	}
+	return string(b)
+}
+
 // ReadSnapshot calls fn for every event of a snapshot Parquet file, in file
-// order. The event passed to fn is only valid during the call.
+// order, with its event attributes in Attrs (the file's columns after the
+// schema's, in file order). The event passed to fn is only valid during
+// the call.
 func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error {
 	f, err := parquet.OpenFile(r, size)
 	if err != nil {
 		return fmt.Errorf("parquet: %w", err)
 	}
-	er, err := NewEventReader(parquet.NewGenericReader[schema.Event](f))
+	var opts []parquet.ReaderOption
+	if hasEventAttrs(f.Schema()) {
+		// Read with the file's schema, so that the rows hold the
+		// attribute columns too (the Go type's would drop them).
+		opts = append(opts, f.Schema())
+	}
+	er, err := NewEventReader(parquet.NewGenericReader[schema.Event](f, opts...))
 	if err != nil {
 		return err
 	}
@@ -400,6 +521,60 @@ type RowReader[T any] struct {
 	r     *parquet.GenericReader[T]
 	times []timeColumn
 	rows  []parquet.Row
+	attrs []attrColumn // events: the event attribute columns
+	vals  []string
+	event *parquet.Schema // events with attributes: the schema rows are cut to
+	cut   parquet.Row
+}
+
+// attrColumn is one event attribute column of a snapshot file.
+type attrColumn struct {
+	col int
+	typ schema.AttrType
+}
+
+// hasEventAttrs reports whether a snapshot file's schema has event
+// attribute columns.
+func hasEventAttrs(sch *parquet.Schema) bool { return len(eventAttrColumns(sch)) > 0 }
+
+// eventAttrColumns finds the leaf columns of sch that are not schema
+// fields, in column order: a snapshot's event attributes, when its first
+// columns are the schema's, in order (as attrEventSchema writes them); nil
+// for any other file. Their types follow from the Parquet types the writer
+// gives them.
+func eventAttrColumns(sch *parquet.Schema) []attrColumn {
+	cols := sch.Columns()
+	if len(cols) <= len(schema.Fields) {
+		return nil
+	}
+	for i, f := range schema.Fields {
+		if len(cols[i]) != 1 || cols[i][0] != string(f) {
+			// Not a snapshot with attributes (a case table, say): read
+			// as before, through the event's own schema.
+			return nil
+		}
+	}
+	var out []attrColumn
+	for i, path := range cols {
+		if len(path) != 1 || slices.Contains(schema.Fields, schema.Field(path[0])) {
+			continue
+		}
+		leaf, ok := sch.Lookup(path...)
+		if !ok {
+			continue
+		}
+		typ := schema.TypeCode
+		if lt := leaf.Node.Type().LogicalType(); lt != nil {
+			if _, ok := lt.Value.(*format.DateType); ok {
+				typ = schema.TypeDate
+			}
+		}
+		if leaf.Node.Type().Kind() == parquet.Int64 {
+			typ = schema.TypeInteger
+		}
+		out = append(out, attrColumn{col: i, typ: typ})
+	}
+	return out
 }
 
 // EventReader reads the events of a snapshot file or row group.
@@ -421,7 +596,34 @@ func NewEventReader(r *parquet.GenericReader[schema.Event]) (*EventReader, error
 		r.Close()
 		return nil, fmt.Errorf("parquet: the file has no %s column", schema.FieldOccurredAt)
 	}
-	return NewRowReader(r), nil
+	rr := NewRowReader(r)
+	rr.attrs = eventAttrColumns(r.Schema())
+	if len(rr.attrs) > 0 {
+		// r reads with the file's schema: its first columns must be the
+		// event's, in order, so that rows cut to them reconstruct events.
+		cols := r.Schema().Columns()
+		for i, f := range schema.Fields {
+			if i >= len(cols) || len(cols[i]) != 1 || cols[i][0] != string(f) {
+				r.Close()
+				return nil, fmt.Errorf("parquet: event attribute columns before the schema's %s column", f)
+			}
+		}
+		rr.event = eventSchema
+	}
+	return rr, nil
+}
+
+// eventSchema is schema.Event's Parquet schema.
+var eventSchema = parquet.SchemaOf(schema.Event{})
+
+// NewEventRowGroupReader reads the events of one row group of a snapshot
+// file, event attributes included (see ReadSnapshot).
+func NewEventRowGroupReader(rg parquet.RowGroup) (*EventReader, error) {
+	var opts []parquet.ReaderOption
+	if hasEventAttrs(rg.Schema()) {
+		opts = append(opts, rg.Schema())
+	}
+	return NewEventReader(parquet.NewGenericRowGroupReader[schema.Event](rg, opts...))
 }
 
 // NewRowReader reads rows of T through r.
@@ -474,8 +676,36 @@ func (rr *RowReader[T]) Read(buf []T) (int, error) {
 	n, err := rr.r.ReadRows(rows)
 	sch := rr.r.Schema()
 	for i, row := range rows[:n] {
-		if rerr := sch.Reconstruct(&buf[i], row); rerr != nil {
+		if rr.event != nil {
+			rr.cut = rr.cut[:0]
+			for _, v := range row {
+				if v.Column() < len(schema.Fields) {
+					rr.cut = append(rr.cut, v)
+				}
+			}
+			if rerr := rr.event.Reconstruct(&buf[i], rr.cut); rerr != nil {
+				return i, rerr
+			}
+		} else if rerr := sch.Reconstruct(&buf[i], row); rerr != nil {
 			return i, rerr
+		}
+		if len(rr.attrs) > 0 {
+			if e, ok := any(&buf[i]).(*schema.Event); ok {
+				rr.vals = rr.vals[:0]
+				for _, ac := range rr.attrs {
+					s := ""
+					for _, v := range row {
+						if v.Column() == ac.col {
+							if !v.IsNull() {
+								s = attrText(ac.typ, v)
+							}
+							break
+						}
+					}
+					rr.vals = append(rr.vals, s)
+				}
+				e.Attrs = schema.JoinAttrs(rr.vals)
+			}
 		}
 		if len(rr.times) == 0 {
 			continue

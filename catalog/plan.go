@@ -155,7 +155,7 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 	if f.DerivedFrom != nil {
 		origin = *f.DerivedFrom
 	}
-	sw, err := newSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID, origin.String())
+	sw, err := newAttrSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID, f.Attributes, origin.String())
 	if err != nil {
 		return nil, 0, err
 	}
@@ -197,7 +197,7 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 	p.reports[id] = qacc.Report()
 	return &FileEntry{
 		SHA256: id, Bytes: size, Rows: sw.rows, Upload: f.Upload,
-		MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows, DerivedFrom: &origin,
+		MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows, DerivedFrom: &origin, Attributes: f.Attributes,
 	}, removed, nil
 }
 

@@ -103,7 +103,8 @@ func (s *sorter) Add(e *schema.Event) error {
 // eventBytes is the length of e's strings.
 func eventBytes(e *schema.Event) int {
 	return len(e.Site) + len(e.CaseID) + len(e.SubjectID) + len(e.ResourceID) + len(e.Type) +
-		len(e.Activity) + len(e.Queue) + len(e.Priority) + len(e.Channel) + len(e.Outcome) + len(e.EventID) + len(e.InstanceID)
+		len(e.Activity) + len(e.Queue) + len(e.Priority) + len(e.Channel) + len(e.Outcome) + len(e.EventID) + len(e.InstanceID) +
+		len(e.Attrs)
 }
 
 func lessEvent(a, b *schema.Event) int {
@@ -492,8 +493,10 @@ func (h *runHeap) Pop() any {
 }
 
 // The run format: per event, the thirteen fields in schema order, strings as
-// uvarint length + bytes, occurred_at as varint Unix microseconds, then the
-// source line as uvarint.
+// uvarint length + bytes, occurred_at as varint Unix microseconds, the
+// source line as uvarint, then the event attribute values (Event.Attrs)
+// as one string (empty for an event without). Runs are temporary: the
+// format is read only by the process that wrote it.
 
 func encodeEvent(b []byte, e *schema.Event) []byte {
 	str := func(s string) {
@@ -513,7 +516,9 @@ func encodeEvent(b []byte, e *schema.Event) []byte {
 	str(e.Outcome)
 	str(e.EventID)
 	str(e.InstanceID)
-	return binary.AppendUvarint(b, uint64(e.Line))
+	b = binary.AppendUvarint(b, uint64(e.Line))
+	str(e.Attrs)
+	return b
 }
 
 // next decodes the next event of the run; false at its end.
@@ -611,6 +616,7 @@ func (r *run) next() (bool, error) {
 		line, err = binary.ReadUvarint(r.r)
 		e.Line = int64(line)
 	}
+	e.Attrs = str(false)
 	if err != nil {
 		return false, fmt.Errorf("sort: reading run: %w", err)
 	}

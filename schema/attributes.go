@@ -62,15 +62,36 @@ const (
 	PeriodYear  = "year"
 )
 
-// Attribute is one extra column a profile keeps, at case level: each case
-// carries one value of it (see the case attribute table). Quasi-identifiers
-// are generalized at ingest by the attribute's rule (Band, Keep, Period),
-// so that the raw value never reaches disk.
+// Attribute levels: where a declared attribute's values are kept.
+const (
+	// LevelCase (the default) keeps one value per case, in the case
+	// attribute table beside the case table.
+	LevelCase = "case"
+	// LevelEvent keeps one value per event, as an extra column of the
+	// snapshot files, after the schema's columns.
+	LevelEvent = "event"
+)
+
+// RuleEventQuasi refuses a quasi-identifier declared at event level: the
+// disclosure report's equivalence classes are classes of cases, and a
+// value that may differ from one event of a case to the next gives a case
+// no single class (DEVELOPERS.md, "Event attributes").
+const RuleEventQuasi = "event_quasi"
+
+// Attribute is one extra column a profile keeps, at case level (each case
+// carries one value of it, see the case attribute table) or at event level
+// (each event carries one, in the snapshot files). Values are generalized
+// at ingest by the attribute's rule (Band, Keep, Period), so that the raw
+// value never reaches disk.
 type Attribute struct {
 	Name   string   `json:"name"`
 	Column string   `json:"column"`
 	Role   AttrRole `json:"role"`
 	Type   AttrType `json:"type"`
+	// Level is LevelEvent for an event attribute; empty for a case
+	// attribute (the default, so that profiles written before event
+	// attributes keep their hash).
+	Level string `json:"level,omitempty"`
 	// Band is the width in years of an age's bands (type age; default 5).
 	Band int `json:"band,omitempty"`
 	// Keep is how many leading characters of a code are kept (postal
@@ -155,8 +176,10 @@ func parseAttributes(n ast.Node, lines map[string]int) ([]Attribute, error) {
 				}
 			case "period":
 				a.Period = v
+			case "level":
+				a.Level = v
 			default:
-				return nil, &ProfileError{Line: s.line, Key: sub, Msg: "unknown key (want column, role, type, band, keep, small_areas or period)"}
+				return nil, &ProfileError{Line: s.line, Key: sub, Msg: "unknown key (want column, role, type, level, band, keep, small_areas or period)"}
 			}
 		}
 		out = append(out, a)
@@ -224,6 +247,13 @@ func (p *Profile) validateAttributes(at func(key, msg string) error) error {
 			return at(key+".column", fmt.Sprintf("column %q already feeds %s", clip(a.Column), by))
 		}
 		used[a.Column] = "attribute " + a.Name
+		switch a.Level {
+		case LevelCase:
+			a.Level = "" // the default, stored as absent
+		case "", LevelEvent:
+		default:
+			return at(key+".level", fmt.Sprintf("unknown level %q (want case or event)", clip(a.Level)))
+		}
 		switch a.Role {
 		case RoleQuasi, RoleSensitive, RolePlain:
 		case "":
@@ -276,6 +306,13 @@ func (p *Profile) validateAttributes(at func(key, msg string) error) error {
 		if a.Type == TypeInteger && a.Role == RoleQuasi {
 			return at(key+".type", "a quasi-identifier needs a generalization: declare it as age (bands), code (keep) or date (period)")
 		}
+		if a.Level == LevelEvent && a.Role == RoleQuasi {
+			err := at(key+".role", "a quasi-identifier is a property of the person, measured per case: declare it at case level (remove level: event), or as sensitive or plain if it describes the event")
+			if pe, ok := err.(*ProfileError); ok {
+				pe.Rule = RuleEventQuasi
+			}
+			return err
+		}
 	}
 	for _, c := range p.Drop {
 		if by, ok := used[c]; ok {
@@ -297,6 +334,32 @@ func validAttrName(s string) bool {
 		}
 	}
 	return true
+}
+
+// EventLevel reports whether a is kept per event, in the snapshots.
+func (a *Attribute) EventLevel() bool { return a.Level == LevelEvent }
+
+// EventAttributes returns the profile's event attributes, in profile order
+// (by name): the extra columns of its snapshot files, in that order.
+func (p *Profile) EventAttributes() []Attribute {
+	var out []Attribute
+	for _, a := range p.Attributes {
+		if a.EventLevel() {
+			out = append(out, a)
+		}
+	}
+	return out
+}
+
+// CaseAttributes returns the profile's case attributes, in profile order.
+func (p *Profile) CaseAttributes() []Attribute {
+	var out []Attribute
+	for _, a := range p.Attributes {
+		if !a.EventLevel() {
+			out = append(out, a)
+		}
+	}
+	return out
 }
 
 // HasQuasi reports whether the profile declares a quasi-identifier.

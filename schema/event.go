@@ -2,6 +2,7 @@ package schema
 
 import (
 	"fmt"
+	"strings"
 	"time"
 )
 
@@ -68,9 +69,38 @@ type Event struct {
 	// from the partner's system, pseudonymized like case_id.
 	InstanceID string `parquet:"instance_id,optional,plain" json:"instance_id,omitempty"`
 
+	// Attrs holds the values of the profile's event attributes
+	// (Profile.EventAttributes order), generalized at ingest, joined by
+	// NUL (JoinAttrs; no value holds one): "" is NULL, integers in
+	// decimal, dates as YYYY-MM-DD. Empty for an event without attributes.
+	// One string keeps Event comparable. The snapshot writer stores them as
+	// typed columns after the schema's; they are not part of the event's
+	// identity (DEVELOPERS.md, "Event attributes").
+	Attrs string `parquet:"-" json:"-"`
+
 	// Line is the 1-based line (CSV/TSV record start or JSON Lines line) of
 	// the source file the event came from. It is not stored in snapshots.
 	Line int64 `parquet:"-" json:"-"`
+}
+
+// JoinAttrs joins event attribute values into Event.Attrs.
+func JoinAttrs(vals []string) string { return strings.Join(vals, "\x00") }
+
+// AttrValue returns the i-th of e's n event attribute values ("" when
+// NULL or absent).
+func (e *Event) AttrValue(i int) string {
+	s := e.Attrs
+	for ; i > 0; i-- {
+		j := strings.IndexByte(s, 0)
+		if j < 0 {
+			return ""
+		}
+		s = s[j+1:]
+	}
+	if j := strings.IndexByte(s, 0); j >= 0 {
+		return s[:j]
+	}
+	return s
 }
 
 // Field names one column of the schema.

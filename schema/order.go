@@ -14,7 +14,8 @@ func Compare(a, b *Event) int {
 
 // CompareContent compares every stored field but occurred_at, in schema
 // order (site, case_id, subject_id, resource_id, event_type, activity,
-// queue, priority, channel, outcome, event_id, instance_id), each as bytes.
+// queue, priority, channel, outcome, event_id, instance_id), each as bytes,
+// then the event attribute values.
 func CompareContent(a, b *Event) int {
 	if c := strings.Compare(a.Site, b.Site); c != 0 {
 		return c
@@ -49,7 +50,11 @@ func CompareContent(a, b *Event) int {
 	if c := strings.Compare(a.EventID, b.EventID); c != 0 {
 		return c
 	}
-	return strings.Compare(a.InstanceID, b.InstanceID)
+	if c := strings.Compare(a.InstanceID, b.InstanceID); c != 0 {
+		return c
+	}
+	// Last, so that events without attributes keep their order.
+	return strings.Compare(a.Attrs, b.Attrs)
 }
 
 // Rank is t's position in EventTypes, the order a case usually passes the

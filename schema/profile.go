@@ -29,6 +29,9 @@ type ProfileError struct {
 	Line int    // 1-based YAML line; 0 when not known
 	Key  string // dotted key path, e.g. "fields.event_type.codes"
 	Msg  string
+	// Rule names the rule broken, for the rules callers may branch on
+	// (RuleEventQuasi); empty for the others.
+	Rule string
 }
 
 // Error formats the problem as "profile: line N: key: message".
@@ -39,6 +42,9 @@ func (e *ProfileError) Error() string {
 	}
 	if e.Key != "" {
 		s += ": " + e.Key
+	}
+	if e.Rule != "" {
+		s += ": " + e.Rule
 	}
 	return s + ": " + e.Msg
 }
@@ -98,8 +104,8 @@ type Profile struct {
 	// run for months declares more, so that case_too_long counts what it
 	// says.
 	MaxCaseDays int `json:"max_case_days,omitempty"`
-	// Attributes are extra columns kept per case, with their disclosure
-	// role and generalization (attributes.go); sorted by name.
+	// Attributes are extra columns kept per case or per event, with their
+	// disclosure role and generalization (attributes.go); sorted by name.
 	Attributes []Attribute `json:"attributes,omitempty"`
 	// Drop lists free-text columns the profile declares and drops.
 	Drop []string `json:"drop,omitempty"`

@@ -32,3 +32,24 @@ func TestAttributeDictionary(t *testing.T) {
 		}
 	}
 }
+
+func TestEventAttributeDictionary(t *testing.T) {
+	cols := catalog.AttributeColumns{
+		{Name: "caller_age", Type: schema.TypeAge, Role: schema.RoleSensitive, Rule: "age in 5-year bands, 90 and over as one group (90+)"},
+		{Name: "counter", Type: schema.TypeInteger, Role: schema.RolePlain, Rule: "as given"},
+	}
+	m := &catalog.Manifest{Files: []catalog.FileEntry{{Attributes: &cols}, {}}}
+	s := attributeDictionary(m)
+	for _, want := range []string{
+		"## Event attributes", "(1 of 2 files carry them",
+		"| `caller_age` | string (UTF-8) | sensitive | age in 5-year bands, 90 and over as one group (90+) |",
+		"| `counter` | integer (INT64) | plain | as given |",
+	} {
+		if !strings.Contains(s, want) {
+			t.Errorf("the dictionary lacks %q:\n%s", want, s)
+		}
+	}
+	if strings.Contains(s, "## Case attributes") {
+		t.Error("a case attribute section without case attributes")
+	}
+}

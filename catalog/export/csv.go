@@ -16,6 +16,8 @@ import (
 // record, and a field enclosed in double quotes (inner quotes doubled) when
 // it holds a comma, double quote, CR or LF; line breaks inside a field are
 // written as they are. occurred_at is RFC 3339 in UTC with microseconds.
+// Event attributes follow the schema's columns (exportAttributes), as
+// stored: dates YYYY-MM-DD, integers in decimal, null as an empty field.
 //
 // A value a spreadsheet would take for a formula is neutralised: one that
 // begins with =, +, -, @, a tab, a carriage return or a NUL gets a single
@@ -27,15 +29,23 @@ func WriteCSV(ctx context.Context, w io.Writer, src Source, files []catalog.File
 		return Stats{}, err
 	}
 	cols := f.columns()
+	attrs, err := exportAttributes(files, f)
+	if err != nil {
+		return Stats{}, err
+	}
 	bw := bufio.NewWriterSize(w, 64<<10)
-	rec := make([]string, len(cols))
+	rec := make([]string, len(cols)+len(attrs))
 	for i, c := range cols {
 		rec[i] = string(c)
 	}
+	copy(rec[len(cols):], attrNames(attrs))
 	writeRecord(bw, rec)
 	st, err := Events(ctx, src, files, f, func(e *schema.Event) error {
 		for i, c := range cols {
 			rec[i] = NeutraliseFormula(e.Value(c))
+		}
+		for i := range attrs {
+			rec[len(cols)+i] = NeutraliseFormula(e.AttrValue(i))
 		}
 		writeRecord(bw, rec)
 		return nil

@@ -72,12 +72,12 @@ func Diff(ctx context.Context, src Source, a, b []catalog.FileEntry, opt DiffOpt
 	}
 	m := f.compile()
 	var stA, stB Stats
-	insA, cleanA, err := plan(ctx, src, a, m, &stA)
+	insA, cleanA, err := plan(ctx, src, a, m, nil, &stA)
 	defer cleanA()
 	if err != nil {
 		return nil, err
 	}
-	insB, cleanB, err := plan(ctx, src, b, m, &stB)
+	insB, cleanB, err := plan(ctx, src, b, m, nil, &stB)
 	defer cleanB()
 	if err != nil {
 		return nil, err

@@ -67,6 +67,8 @@ func arrowReadout(t *testing.T, data []byte) readout {
 			typ = "BIGINT"
 		case *arrow.Int32Type:
 			typ = "INTEGER"
+		case *arrow.Date32Type:
+			typ = "DATE"
 		case *arrow.Float64Type:
 			typ = "DOUBLE"
 		}

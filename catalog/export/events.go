@@ -66,7 +66,11 @@ func Events(ctx context.Context, src Source, files []catalog.FileEntry, f Filter
 		return st, err
 	}
 	m := f.compile()
-	ins, cleanup, err := plan(ctx, src, files, m, &st)
+	attrs, err := exportAttributes(files, f)
+	if err != nil {
+		return st, err
+	}
+	ins, cleanup, err := plan(ctx, src, files, m, attrs, &st)
 	defer cleanup()
 	if err != nil {
 		return st, err
@@ -92,12 +96,13 @@ func Events(ctx context.Context, src Source, files []catalog.FileEntry, f Filter
 type input struct {
 	open     func(ctx context.Context) (io.ReaderAt, io.Closer, int64, error)
 	min, max time.Time
-	counted  bool // a snapshot file: its work enters Stats
+	counted  bool  // a snapshot file: its work enters Stats
+	remap    []int // its event attributes into the export's order (attrRemap)
 }
 
 // plan turns files into at most maxOpen inputs, merging in stages through
 // temporary files when there are more. cleanup removes those files.
-func plan(ctx context.Context, src Source, files []catalog.FileEntry, m *matcher, st *Stats) ([]*input, func(), error) {
+func plan(ctx context.Context, src Source, files []catalog.FileEntry, m *matcher, attrs []catalog.AttributeColumn, st *Stats) ([]*input, func(), error) {
 	var temps []string
 	cleanup := func() {
 		for _, p := range temps {
@@ -121,6 +126,7 @@ func plan(ctx context.Context, src Source, files []catalog.FileEntry, m *matcher
 				return r, r, r.Size(), nil
 			},
 			min: fe.MinTime, max: fe.MaxTime, counted: true,
+			remap: attrRemap(attrs, fe.Attributes.Columns()),
 		})
 	}
 	// Neighbours in time go into the same stage, so a stage's output
@@ -130,7 +136,7 @@ func plan(ctx context.Context, src Source, files []catalog.FileEntry, m *matcher
 		st.Stages++
 		var next []*input
 		for lo := 0; lo < len(ins); lo += maxOpen {
-			in, path, err := stage(ctx, src.TempDir, ins[lo:min(lo+maxOpen, len(ins))], m, st)
+			in, path, err := stage(ctx, src.TempDir, ins[lo:min(lo+maxOpen, len(ins))], m, attrs, st)
 			if path != "" {
 				temps = append(temps, path)
 			}
@@ -148,14 +154,14 @@ func plan(ctx context.Context, src Source, files []catalog.FileEntry, m *matcher
 
 // stage merges ins into one temporary Parquet file of every column, in
 // merge order, and returns it as an input (nil when no event passed).
-func stage(ctx context.Context, dir string, ins []*input, m *matcher, st *Stats) (*input, string, error) {
+func stage(ctx context.Context, dir string, ins []*input, m *matcher, attrs []catalog.AttributeColumn, st *Stats) (*input, string, error) {
 	tmp, err := os.CreateTemp(dir, "flowcat-export-*.parquet")
 	if err != nil {
 		return nil, "", fmt.Errorf("export: stage: %w", err)
 	}
 	path := tmp.Name()
 	defer tmp.Close()
-	pw := catalog.NewEventWriter(tmp, schema.Fields, catalog.EventWriterOptions{RowGroupRows: DefaultRowGroupRows})
+	pw := catalog.NewEventWriter(tmp, schema.Fields, catalog.EventWriterOptions{RowGroupRows: DefaultRowGroupRows, Attrs: attrs})
 	s := newMerge(ctx, ins, m, st)
 	defer s.close()
 	var first, last time.Time
@@ -394,6 +400,7 @@ func (c *cursor) raw() (*schema.Event, error) {
 			e := &c.buf[c.pos]
 			c.pos++
 			if c.m.match(e) {
+				remapAttrs(e, c.in.remap)
 				return e, nil
 			}
 		}
@@ -405,7 +412,7 @@ func (c *cursor) raw() (*schema.Event, error) {
 				c.eof = true
 				return nil, nil
 			}
-			rd, err := catalog.NewEventReader(parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi]))
+			rd, err := catalog.NewEventRowGroupReader(c.groups[c.gi])
 			if err != nil {
 				return nil, fmt.Errorf("export: %w", err)
 			}

@@ -188,6 +188,10 @@ func (c *hashCounter) Write(p []byte) (int, error) {
 
 // writePartitions writes the partitions of sites on one day [start, end).
 func writePartitions(ctx context.Context, src Source, files []catalog.FileEntry, dir, date string, start, end time.Time, sites []string, rows int64, kv []catalog.KeyValue) (out []LayoutFile, err error) {
+	attrs, err := exportAttributes(files, Filter{})
+	if err != nil {
+		return nil, err
+	}
 	parts := map[string]*partition{}
 	defer func() {
 		for _, p := range parts {
@@ -206,7 +210,7 @@ func writePartitions(ctx context.Context, src Source, files []catalog.FileEntry,
 		}
 		p := &partition{f: f, out: LayoutFile{Path: rel, Site: site, Date: date}}
 		p.h.h = sha256.New()
-		p.w = catalog.NewEventWriter(io.MultiWriter(f, &p.h), LayoutColumns, catalog.EventWriterOptions{RowGroupRows: rows, Metadata: kv})
+		p.w = catalog.NewEventWriter(io.MultiWriter(f, &p.h), LayoutColumns, catalog.EventWriterOptions{RowGroupRows: rows, Metadata: kv, Attrs: attrs})
 		parts[site] = p
 	}
 	_, err = Events(ctx, src, files, Filter{From: start, To: end, Sites: sites}, func(e *schema.Event) error {

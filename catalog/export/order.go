@@ -27,5 +27,6 @@ func cloneEvent(dst, e *schema.Event) {
 		Outcome:    strings.Clone(e.Outcome),
 		EventID:    strings.Clone(e.EventID),
 		InstanceID: strings.Clone(e.InstanceID),
+		Attrs:      strings.Clone(e.Attrs),
 	}
 }

@@ -44,7 +44,8 @@ type ParquetOptions struct {
 // with the snapshots' physical and logical types (occurred_at
 // TIMESTAMP(MICROS, UTC), strings STRING, dictionary-encoded where the
 // snapshots are). Output is streamed: only the row group being built is
-// in memory. The same inputs give the same bytes.
+// in memory. The same inputs give the same bytes. Event attributes follow
+// the schema's columns with the snapshots' types (exportAttributes).
 func WriteParquet(ctx context.Context, w io.Writer, src Source, files []catalog.FileEntry, f Filter, opt ParquetOptions) (Stats, error) {
 	if err := f.Validate(); err != nil {
 		return Stats{}, err
@@ -61,7 +62,11 @@ func WriteParquet(ctx context.Context, w io.Writer, src Source, files []catalog.
 		}
 	}
 	kv = append(kv, catalog.KeyValue{Key: MetaFilter, Value: f.Query()})
-	pw := catalog.NewEventWriter(w, f.columns(), catalog.EventWriterOptions{RowGroupRows: rows, Metadata: kv})
+	attrs, err := exportAttributes(files, f)
+	if err != nil {
+		return Stats{}, err
+	}
+	pw := catalog.NewEventWriter(w, f.columns(), catalog.EventWriterOptions{RowGroupRows: rows, Metadata: kv, Attrs: attrs})
 	st, err := Events(ctx, src, files, f, pw.Write)
 	if err != nil {
 		return st, err

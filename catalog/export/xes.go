@@ -53,12 +53,18 @@ var xesExtensions = [][3]string{
 // there is one), lifecycle:transition (XESLifecycle), time:timestamp (UTC,
 // microseconds), org:resource (the resource pseudonym) and the other
 // fields of the schema under their own names (site, event_type,
-// subject_id, queue, priority, channel, outcome, event_id). Traces come in
+// subject_id, queue, priority, channel, outcome, event_id), then its event
+// attributes under their names, typed by xesType (a null one left out).
+// Traces come in
 // case order; the bytes depend only on the events. Events are sorted by
 // case on disk in src.TempDir, so memory stays bounded by opt.RunEvents.
 // A value holding a character XML cannot carry (a control character other
 // than tab, LF or CR) is written with U+FFFD in its place.
 func WriteXES(ctx context.Context, w io.Writer, src Source, files []catalog.FileEntry, f Filter, opt XESOptions) (Stats, error) {
+	attrs, err := exportAttributes(files, f)
+	if err != nil {
+		return Stats{}, err
+	}
 	cs := catalog.NewCaseSorter(src.TempDir, opt.RunEvents)
 	defer cs.Close()
 	st, err := Events(ctx, src, files, f, func(e *schema.Event) error { return cs.Add(e) })
@@ -66,7 +72,7 @@ func WriteXES(ctx context.Context, w io.Writer, src Source, files []catalog.File
 		return st, err
 	}
 	bw := bufio.NewWriterSize(w, 64<<10)
-	x := &xesWriter{w: bw}
+	x := &xesWriter{w: bw, attrs: attrs}
 	x.raw(`<?xml version="1.0" encoding="UTF-8"?>` + "\n")
 	x.raw(`<log xes.version="1849-2016" xes.features="" xmlns="http://www.xes-standard.org/">` + "\n")
 	for _, e := range xesExtensions {
@@ -113,8 +119,9 @@ func WriteXES(ctx context.Context, w io.Writer, src Source, files []catalog.File
 }
 
 type xesWriter struct {
-	w   *bufio.Writer
-	err error
+	w     *bufio.Writer
+	err   error
+	attrs []catalog.AttributeColumn
 }
 
 func (x *xesWriter) raw(s string) {
@@ -164,6 +171,11 @@ func (x *xesWriter) event(e *schema.Event) {
 	} {
 		if kv.v != "" {
 			x.attr(in, "string", kv.k, kv.v)
+		}
+	}
+	for i, a := range x.attrs {
+		if v := e.AttrValue(i); v != "" {
+			x.attr(in, xesType(a.Type), a.Name, xesValue(a.Type, v))
 		}
 	}
 	x.raw("    </event>\n")
