@@ -36,6 +36,13 @@ type CasePass struct {
 	// exact copy of the event before them (same case, instant, type and
 	// content). Run counts what it left out in the Counts it returns.
 	Kept []cases.Observer
+	// Tap, when set, is called with every event of the sorted stream
+	// before the observers, its Line as given (marks included): the case
+	// groups are written from it.
+	Tap func(*schema.Event) error
+	// upKeys holds the case keys of the events marked by uploadMark.
+	upKeys  *distinctCounter
+	lastKey string
 }
 
 // NewCasePass returns a pass whose sort runs and counts spill to dir, in
@@ -57,7 +64,53 @@ func NewCasePass(dir string, runEvents int) *CasePass {
 func (p *CasePass) Add(e *schema.Event) error {
 	c := *e
 	c.Priority, c.Channel, c.Outcome, c.EventID = "", "", "", ""
+	if e.Line&uploadMark != 0 && e.CaseID != p.lastKey {
+		if p.upKeys == nil {
+			p.upKeys = newDistinctCounter(p.srt.dir, distinctMemory)
+		}
+		if err := p.upKeys.Add(e.CaseID); err != nil {
+			return err
+		}
+		p.lastKey = strings.Clone(e.CaseID)
+	}
 	return p.srt.Add(&c)
+}
+
+// uploadKeys writes the distinct case keys of the events marked by
+// uploadMark, sorted, to a temporary file (deleted when closed).
+func (p *CasePass) uploadKeys() (*tempFile, error) {
+	f, err := os.CreateTemp(p.srt.dir, "upload-keys-*")
+	if err != nil {
+		return nil, fmt.Errorf("case keys: %w", err)
+	}
+	if p.upKeys == nil {
+		return &tempFile{f}, nil
+	}
+	w := bufio.NewWriterSize(f, runBufSize)
+	var b []byte
+	err = p.upKeys.each(func(v string) error {
+		b = binary.AppendUvarint(b[:0], uint64(len(v)))
+		b = append(b, v...)
+		_, err := w.Write(b)
+		return err
+	})
+	if err == nil {
+		err = w.Flush()
+	}
+	if err != nil {
+		f.Close()
+		os.Remove(f.Name())
+		return nil, fmt.Errorf("case keys: %w", err)
+	}
+	return &tempFile{f}, nil
+}
+
+// tempFile is a temporary file that Close deletes.
+type tempFile struct{ *os.File }
+
+func (t *tempFile) Close() error {
+	t.File.Close()
+	return os.Remove(t.Name())
 }
 
 // uploadMark, set in an event's Line, marks the events of the upload
@@ -142,6 +195,11 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	}
 	var lastSubj, lastRes string
 	err := p.srt.Finish(func(e *schema.Event) error {
+		if p.Tap != nil {
+			if err := p.Tap(e); err != nil {
+				return err
+			}
+		}
 		// Distinct subjects and resources, counted on the way: a case
 		// names the same ones again and again, so most are skipped here.
 		if e.SubjectID != "" && e.SubjectID != lastSubj {
@@ -212,7 +270,11 @@ const (
 
 // Close removes the temporary files.
 func (p *CasePass) Close() error {
-	return errors.Join(p.srt.Close(), p.subjects.Close(), p.resources.Close())
+	errs := []error{p.srt.Close(), p.subjects.Close(), p.resources.Close()}
+	if p.upKeys != nil {
+		errs = append(errs, p.upKeys.Close())
+	}
+	return errors.Join(errs...)
 }
 
 // distinctMemory bounds the bytes of values a distinctCounter holds
@@ -327,6 +389,28 @@ func (d *distinctCounter) Count() (uint64, error) {
 		return 0, fmt.Errorf("count: %w", err)
 	}
 	return n, nil
+}
+
+// each calls fn for every distinct value added, in order.
+func (d *distinctCounter) each(fn func(string) error) error {
+	if len(d.runs) == 0 {
+		for _, v := range slices.Sorted(mapKeys(d.set)) {
+			if err := fn(v); err != nil {
+				return err
+			}
+		}
+		return nil
+	}
+	if len(d.set) > 0 {
+		if err := d.spill(); err != nil {
+			return err
+		}
+	}
+	if len(d.runs) > maxFanIn {
+		return fmt.Errorf("count: %d runs, over the fan-in of %d", len(d.runs), maxFanIn)
+	}
+	_, err := mergeStrings(d.runs, fn)
+	return err
 }
 
 // Close deletes the runs.

@@ -128,14 +128,17 @@ func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*
 // and deciding which to delete.
 var testHookGCBetween func()
 
-// referenced returns every blob a version's manifest lists (Blobs),
-// except the versions of deleted datasets.
+// referenced returns every blob a version's manifest lists (Blobs) and
+// those of the datasets' case groups, except those of deleted datasets.
 func (s *Store) referenced() (map[blob.ID]bool, error) {
 	refs := map[blob.ID]bool{}
 	err := s.db.View(func(tx *bolt.Tx) error {
 		deleted, err := deletedDatasets(tx)
 		if err != nil {
 			return fmt.Errorf("gc: %w", err)
+		}
+		if err := groupBlobs(tx, deleted, refs); err != nil {
+			return err
 		}
 		return tx.Bucket(bucketManifests).ForEach(func(k, b []byte) error {
 			var m Manifest

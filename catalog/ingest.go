@@ -401,7 +401,8 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	// One per-case pass over every file of the new version: its case
 	// table, its summary's case figures and its report's, and the upload's
 	// own per-case checks on the way.
-	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true, upass)
+	prev := s.groupsToExtend(ds, parent, plan.files, entry, opt.Mode)
+	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true, upass, prev)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
@@ -508,6 +509,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 			return err
 		}
 		if err := putFileReports(tx, plan.reports); err != nil {
+			return err
+		}
+		if err := putGroups(tx, cur.Ref().String(), v.Number, plan.files, vp.groups); err != nil {
 			return err
 		}
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
