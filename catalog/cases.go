@@ -36,10 +36,6 @@ type CasePass struct {
 	// exact copy of the event before them (same case, instant, type and
 	// content). Run counts what it left out in the Counts it returns.
 	Kept []cases.Observer
-	// Tap, when set, is called with every event of the sorted stream
-	// before the observers, its Line as given (marks included): the case
-	// groups are written from it.
-	Tap func(*schema.Event) error
 	// upKeys holds the case keys of the events marked by uploadMark.
 	upKeys  *distinctCounter
 	lastKey string
@@ -195,11 +191,6 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	}
 	var lastSubj, lastRes string
 	err := p.srt.Finish(func(e *schema.Event) error {
-		if p.Tap != nil {
-			if err := p.Tap(e); err != nil {
-				return err
-			}
-		}
 		// Distinct subjects and resources, counted on the way: a case
 		// names the same ones again and again, so most are skipped here.
 		if e.SubjectID != "" && e.SubjectID != lastSubj {

@@ -181,16 +181,15 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 	}
 	var gb *groupBuild
 	if upass != nil && !s.noCaseGroups {
-		var now int64
-		if !qopt.UploadedAt.IsZero() {
-			now = qopt.UploadedAt.UnixMicro()
+		var rows int64
+		for _, f := range files {
+			rows += f.Rows
 		}
 		var err error
-		if gb, err = s.newGroupBuild(ctx, ds, prev, now, cp); err != nil {
+		if gb, err = s.newGroupBuild(ctx, ds, prev, qopt, keyID, rows, cp); err != nil {
 			return nil, err
 		}
 		defer gb.close()
-		cp.Tap = gb.route
 	}
 	for i, f := range files {
 		if f.SHA256 == fromUpload || gb != nil && gb.prev != nil {
@@ -208,11 +207,6 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			return nil, err
 		}
 	}
-	qacc := quality.NewAccumulator(qopt)
-	obs := []cases.Observer{qacc}
-	pv := total.NewProcess()
-	total.SetProcess(pv)
-	cp.Kept = []cases.Observer{total, pv}
 	var cw *caseTableWriter
 	if table {
 		var err error
@@ -220,21 +214,38 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			return nil, err
 		}
 		defer cw.Remove()
-		obs = append(obs, cw)
 	}
-	counts, err := cp.RunSplit(obs, mine)
-	if err != nil {
-		return nil, err
-	}
-	total.SetCounts(counts)
-	out.cases = qacc.Report()
 	if gb != nil {
+		// Each case's computation in its group, the version's figures the
+		// merge of every group's states.
+		if err := gb.run(cp, mine); err != nil {
+			return nil, err
+		}
 		set, rel, err := gb.finish(ctx)
 		if err != nil {
 			return nil, err
 		}
 		out.groups = set
 		out.releases = append(out.releases, rel...)
+		if out.cases, err = s.groupFigures(ctx, ds, set, total, qopt, cw); err != nil {
+			out.release()
+			return nil, err
+		}
+	} else {
+		qacc := quality.NewAccumulator(qopt)
+		obs := []cases.Observer{qacc}
+		pv := total.NewProcess()
+		total.SetProcess(pv)
+		cp.Kept = []cases.Observer{total, pv}
+		if cw != nil {
+			obs = append(obs, cw)
+		}
+		counts, err := cp.RunSplit(obs, mine)
+		if err != nil {
+			return nil, err
+		}
+		total.SetCounts(counts)
+		out.cases = qacc.Report()
 	}
 	if cw != nil {
 		e, err := cw.Finish()

@@ -11,13 +11,19 @@ import (
 	"hash"
 	"io"
 	"os"
+	"path/filepath"
 	"slices"
+	"strings"
+
+	"github.com/parquet-go/parquet-go"
 
 	bolt "go.etcd.io/bbolt"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // Case groups keep a version's events sorted by case, so that the next
@@ -40,9 +46,22 @@ type caseGroupSet struct {
 	Files string `json:"files"`
 	// WindowFrom and WindowTo (µs, 0: none) are the dataset window the
 	// events' exclusion flags were computed with.
-	WindowFrom int64       `json:"window_from,omitempty"`
-	WindowTo   int64       `json:"window_to,omitempty"`
-	Groups     []caseGroup `json:"groups"`
+	WindowFrom int64 `json:"window_from,omitempty"`
+	WindowTo   int64 `json:"window_to,omitempty"`
+	// Options identifies what the groups' states were computed with (the
+	// dataset's profile, zone and history setting, and groupFormat): other
+	// options, and the next commit makes its groups by a full pass.
+	Options string      `json:"options"`
+	Groups  []caseGroup `json:"groups"`
+}
+
+// groupFormat changes with the layout of a group or of the states it
+// keeps; groups of another format are rebuilt.
+const groupFormat = "1"
+
+// groupOptions identifies the options the groups of ds are computed with.
+func groupOptions(ds *Dataset) string {
+	return fmt.Sprintf("%s|%s|%s|%t", groupFormat, ds.ProfileHash, ds.Timezone, ds.Historical)
 }
 
 // caseGroup is one group: its events in case order (cases.Less) in the
@@ -56,6 +75,29 @@ type caseGroup struct {
 	Cases  int64   `json:"cases"`
 	Count  int64   `json:"count"` // events
 	Bytes  int64   `json:"bytes"` // of Events
+	// Table is the group's part of the case table (Parquet, rows in case
+	// order); Subjects and Resources its distinct subject and resource
+	// keys, sorted (as Keys).
+	Table     blob.ID `json:"table"`
+	Subjects  blob.ID `json:"subjects"`
+	Resources blob.ID `json:"resources"`
+	// Summary and Quality are the states of the per-case computation over
+	// the group's cases: the summary's case part with its process views
+	// (summary.Accumulator, format 5) and the case-level quality
+	// accumulator (quality.Accumulator state).
+	Summary blob.ID `json:"summary"`
+	Quality blob.ID `json:"quality"`
+	// Kept are the cases the summary covers; Later, Outside and Copies
+	// the events it left out (summary.Counts).
+	Kept    int64 `json:"kept"`
+	Later   int64 `json:"later,omitempty"`
+	Outside int64 `json:"outside,omitempty"`
+	Copies  int64 `json:"copies,omitempty"`
+}
+
+// blobs lists the group's blobs.
+func (g *caseGroup) blobs() []blob.ID {
+	return []blob.ID{g.Events, g.Keys, g.Table, g.Subjects, g.Resources, g.Summary, g.Quality}
 }
 
 const (
@@ -109,7 +151,7 @@ func (s *Store) groupsToExtend(ds *Dataset, parent *Version, files []FileEntry, 
 		return nil
 	}
 	from, to := windowMicros(ds)
-	if set.Version != parent.Number || set.Files != filesDigest(pf) || set.WindowFrom != from || set.WindowTo != to {
+	if set.Version != parent.Number || set.Files != filesDigest(pf) || set.WindowFrom != from || set.WindowTo != to || set.Options != groupOptions(ds) {
 		return nil
 	}
 	return set
@@ -150,7 +192,9 @@ func groupBlobs(tx *bolt.Tx, deleted map[DatasetRef]bool, refs map[blob.ID]bool)
 			return fmt.Errorf("gc: %w", err)
 		}
 		for _, g := range set.Groups {
-			refs[g.Events], refs[g.Keys] = true, true
+			for _, id := range g.blobs() {
+				refs[id] = true
+			}
 		}
 		return nil
 	})
@@ -162,31 +206,41 @@ type groupStats struct {
 	Groups      int   // groups of the new version
 	Touched     int   // groups of the parent rewritten
 	Compacted   int   // small groups of the parent merged into one
+	Read        int64 // events of the parent's groups read again
 	Written     int64 // events written to new groups
 }
 
 // testHookGroups, when set by a test, receives each commit's groupStats.
 var testHookGroups func(groupStats)
 
-// groupBuild writes the case groups of the version a commit makes, from
-// the per-case pass's stream of events in case order (CasePass.Tap). With
-// a parent's groups (incremental), their events join the pass as sorted
-// inputs instead of the files being read and sorted again; the cases of
-// the upload move, with all their events, into one new group; the groups
-// they came from are rewritten without them; every other group is kept
-// as it is. Without (full), every case goes to new groups of about
-// groupMaxEvents events.
+// groupBuild makes the case groups of the version a commit makes, and the
+// version's per-case figures from them. The per-case pass's stream (events
+// in case order) goes through it: each case to the group it belongs in,
+// where it is written and fed to the group's own per-case computation
+// (groupWriter). With the parent's groups (incremental), only the
+// upload's events and those of the groups holding a case of the upload
+// are in the stream; the cases of the upload move, with all their events,
+// into one new group; each group they came from is rewritten without
+// them; every other group is kept as it is, states and all. Without
+// (full), every case goes to new groups of about chunk events. The
+// version's figures are then the merge of every group's states.
 type groupBuild struct {
 	s    *Store
 	ctx  context.Context
+	ds   *Dataset
 	prev *caseGroupSet
 	excl *exclusion // of the upload's file
+	qopt quality.Options
+	// keyID is the pseudonym key, in the case table parts' metadata.
+	keyID    string
+	terminal []schema.EventType
+	chunk    int64
 
 	// incremental only
 	upKeys  *keyCursor   // the upload's case keys, sorted
 	touched []int        // indexes into prev.Groups, rewritten
 	kept    []bool       // by index into prev.Groups: kept as it is
-	cursors []*keyCursor // case keys of each touched group
+	cursors []*keyCursor // case keys of each group read for rewriting
 	dest    []*groupWriter
 	closers []io.Closer
 
@@ -201,12 +255,18 @@ type groupBuild struct {
 }
 
 // newGroupBuild prepares the groups of the version being made by cp's
-// pass. prev is the parent's groups to extend (nil: a full pass), upKeys
-// the upload's case keys (CasePass.uploadKeys).
-func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupSet, now int64, cp *CasePass) (*groupBuild, error) {
-	g := &groupBuild{s: s, ctx: ctx, prev: prev, excl: &exclusion{later: now}}
+// pass. prev is the parent's groups to extend (nil: a full pass), rows the
+// events of the version (for the size of a full pass's groups).
+func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupSet, qopt quality.Options, keyID string, rows int64, cp *CasePass) (*groupBuild, error) {
+	g := &groupBuild{s: s, ctx: ctx, ds: ds, prev: prev, qopt: qopt, keyID: keyID, terminal: cp.Terminal}
+	if !qopt.UploadedAt.IsZero() {
+		g.excl = &exclusion{later: qopt.UploadedAt.UnixMicro()}
+	} else {
+		g.excl = &exclusion{}
+	}
 	g.from, g.to = windowMicros(ds)
 	g.excl.from, g.excl.to = g.from, g.to
+	g.chunk = max(groupMaxEvents, rows/(maxGroups/2)+1)
 	if prev == nil {
 		return g, nil
 	}
@@ -217,6 +277,7 @@ func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupS
 	}
 	g.closers = append(g.closers, kf)
 	if _, err := kf.Seek(0, io.SeekStart); err != nil {
+		g.close()
 		return nil, fmt.Errorf("case groups: %w", err)
 	}
 	g.upKeys = newKeyCursor(kf)
@@ -229,8 +290,12 @@ func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupS
 		return nil, fmt.Errorf("case groups: %w", err)
 	}
 	g.upKeys = newKeyCursor(kf)
-	// Every group's events join the pass as a sorted input.
+	// The events of the groups read for rewriting join the pass as
+	// sorted inputs; the kept ones are not read.
 	for i := range prev.Groups {
+		if g.kept[i] {
+			continue
+		}
 		r, err := s.blobs.Open(ctx, prev.Groups[i].Events)
 		if err != nil {
 			g.close()
@@ -238,6 +303,7 @@ func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupS
 		}
 		g.closers = append(g.closers, r)
 		cp.srt.addSorted(bufio.NewReaderSize(io.NewSectionReader(r, 0, r.Size()), runBufSize))
+		g.stats.Read += prev.Groups[i].Count
 	}
 	return g, nil
 }
@@ -329,17 +395,13 @@ func (g *groupBuild) findTouched() error {
 		var w *groupWriter
 		if slices.Contains(compact, i) {
 			if shared == nil {
-				if shared, err = newGroupWriter(g.s.opt.TempDir); err != nil {
+				if shared, err = g.newWriter(); err != nil {
 					return err
 				}
-				g.done = append(g.done, shared)
 			}
 			w = shared
-		} else {
-			if w, err = newGroupWriter(g.s.opt.TempDir); err != nil {
-				return err
-			}
-			g.done = append(g.done, w)
+		} else if w, err = g.newWriter(); err != nil {
+			return err
 		}
 		g.dest = append(g.dest, w)
 	}
@@ -347,43 +409,53 @@ func (g *groupBuild) findTouched() error {
 	return nil
 }
 
-// route is the pass's tap: it writes e (in the stream's case order, its
-// Line as the pass has it) to its case's group.
-func (g *groupBuild) route(e *schema.Event) error {
+func (g *groupBuild) newWriter() (*groupWriter, error) {
+	w, err := newGroupWriter(g.s.opt.TempDir, g.s.opt.RowGroupRows, g.keyID, g.qopt, summaryOptions(g.ds), g.terminal)
+	if err != nil {
+		return nil, err
+	}
+	g.done = append(g.done, w)
+	return w, nil
+}
+
+// route writes e (in the stream's case order, its Line as the pass has
+// it) to its case's group and returns that group (nil: a kept group's).
+func (g *groupBuild) route(e *schema.Event) (*groupWriter, error) {
 	if !g.started || e.CaseID != g.last {
 		w, err := g.destFor(e.CaseID)
 		if err != nil {
-			return err
+			return nil, err
 		}
 		g.cur, g.last, g.started = w, e.CaseID, true
 		if w != nil {
 			if err := w.startCase(e.CaseID); err != nil {
-				return err
+				return nil, err
 			}
 		}
 	}
 	if g.cur == nil {
-		return nil
+		return nil, nil
 	}
-	c := *e
-	if c.Line&uploadMark != 0 {
+	line := e.Line
+	if e.Line&uploadMark != 0 {
 		// As a later pass reads it from the stored file: no source line,
 		// the exclusion flags of the file.
-		c.Line = quality.PackLine(0, g.excl.flags(&c))
+		e.Line = quality.PackLine(0, g.excl.flags(e))
 	}
 	g.stats.Written++
-	return g.cur.write(&c)
+	err := g.cur.write(e)
+	e.Line = line
+	return g.cur, err
 }
 
 func (g *groupBuild) destFor(key string) (*groupWriter, error) {
 	if g.prev == nil {
-		if g.fresh == nil || g.fresh.count >= groupMaxEvents {
-			w, err := newGroupWriter(g.s.opt.TempDir)
+		if g.fresh == nil || g.fresh.count >= g.chunk {
+			w, err := g.newWriter()
 			if err != nil {
 				return nil, err
 			}
 			g.fresh = w
-			g.done = append(g.done, w)
 		}
 		return g.fresh, nil
 	}
@@ -393,10 +465,9 @@ func (g *groupBuild) destFor(key string) (*groupWriter, error) {
 	}
 	if ok {
 		if g.fresh == nil {
-			if g.fresh, err = newGroupWriter(g.s.opt.TempDir); err != nil {
+			if g.fresh, err = g.newWriter(); err != nil {
 				return nil, err
 			}
-			g.done = append(g.done, g.fresh)
 		}
 		return g.fresh, nil
 	}
@@ -412,10 +483,100 @@ func (g *groupBuild) destFor(key string) (*groupWriter, error) {
 	return nil, nil // a kept group's case
 }
 
-// finish puts the new groups in the blob store, held until release, and
-// returns the version's group set.
+// run is the per-case pass over cp's stream (CasePass.RunSplit's job, with
+// each case's computation in its group): the upload's own events also go
+// to mine. The summaries' builders run on another goroutine, fed in
+// batches, as in RunSplit.
+func (g *groupBuild) run(cp *CasePass, mine []cases.Observer) error {
+	var bm *cases.Builder
+	if len(mine) > 0 {
+		bm = cases.NewBuilder(mine...)
+		bm.Terminal = g.terminal
+	}
+	type item struct {
+		e schema.Event
+		w *groupWriter
+	}
+	full := make(chan []item, keptBatches)
+	free := make(chan []item, keptBatches+2)
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		var prev schema.Event
+		hasPrev := false
+		for bt := range full {
+			for i := range bt {
+				e, w := &bt[i].e, bt[i].w
+				_, fl := quality.UnpackLine(e.Line)
+				switch {
+				case fl&quality.FlagLater != 0:
+					w.kc.LaterThanUpload++
+					continue
+				case fl&quality.FlagOutsideWindow != 0:
+					w.kc.OutsideWindow++
+					continue
+				case hasPrev && prev.CaseID == e.CaseID && prev.OccurredAt.Equal(e.OccurredAt) && prev.Type == e.Type && schema.CompareContent(&prev, e) == 0:
+					w.kc.ExactDuplicates++
+					continue
+				}
+				w.kept.Add(e)
+				prev, hasPrev = *e, true
+			}
+			clear(bt)
+			select {
+			case free <- bt[:0]:
+			default:
+			}
+		}
+	}()
+	batch := make([]item, 0, keptBatchEvents)
+	send := func() {
+		full <- batch
+		select {
+		case batch = <-free:
+		default:
+			batch = make([]item, 0, keptBatchEvents)
+		}
+	}
+	err := cp.srt.Finish(func(e *schema.Event) error {
+		w, err := g.route(e)
+		if err != nil {
+			return err
+		}
+		marked := e.Line&uploadMark != 0
+		e.Line &^= uploadMark
+		if marked && bm != nil {
+			bm.Add(e)
+		}
+		if w == nil {
+			return nil
+		}
+		if err := w.observe(e); err != nil {
+			return err
+		}
+		if batch = append(batch, item{*e, w}); len(batch) == keptBatchEvents {
+			send()
+		}
+		return nil
+	})
+	if len(batch) > 0 {
+		send()
+	}
+	close(full)
+	<-done
+	if err != nil {
+		return err
+	}
+	if bm != nil {
+		bm.Flush()
+	}
+	return nil
+}
+
+// finish stores the new groups (held until release) and returns the
+// version's group set.
 func (g *groupBuild) finish(ctx context.Context) (*caseGroupSet, []func(), error) {
-	set := &caseGroupSet{WindowFrom: g.from, WindowTo: g.to}
+	set := &caseGroupSet{WindowFrom: g.from, WindowTo: g.to, Options: groupOptions(g.ds)}
 	if g.prev != nil {
 		for i, gr := range g.prev.Groups {
 			if g.kept[i] {
@@ -432,20 +593,22 @@ func (g *groupBuild) finish(ctx context.Context) (*caseGroupSet, []func(), error
 	}
 	seen := map[*groupWriter]bool{}
 	for _, w := range g.done {
-		if seen[w] || w.count == 0 {
+		if seen[w] {
 			continue
 		}
 		seen[w] = true
-		gr, err := w.finish()
+		if w.count == 0 {
+			continue
+		}
+		gr, files, err := w.finish()
 		if err != nil {
 			return fail(err)
 		}
-		releases = append(releases, g.s.hold(gr.Events), g.s.hold(gr.Keys))
-		if err := g.s.blobs.Put(ctx, gr.Events, w.ev); err != nil {
-			return fail(fmt.Errorf("case groups: %w", err))
-		}
-		if err := g.s.blobs.Put(ctx, gr.Keys, w.keys); err != nil {
-			return fail(fmt.Errorf("case groups: %w", err))
+		for i, id := range gr.blobs() {
+			releases = append(releases, g.s.hold(id))
+			if err := g.s.blobs.Put(ctx, id, files[i]); err != nil {
+				return fail(fmt.Errorf("case groups: %w", err))
+			}
 		}
 		set.Groups = append(set.Groups, *gr)
 	}
@@ -466,8 +629,12 @@ func (g *groupBuild) close() {
 	}
 }
 
-// groupWriter writes one group's two files to temporary files, hashing
-// them.
+// groupWriter is one group being made: its events and case keys written
+// to temporary files (hashed as they go), and its own per-case
+// computation: the case-level quality accumulator and the case table part
+// (all its cases), the summary's case part with its process views (the
+// cases of the events summaries keep, fed on the pass's other goroutine),
+// and its distinct subjects and resources.
 type groupWriter struct {
 	ev, keys     *os.File
 	evw, kw      *bufio.Writer
@@ -476,9 +643,25 @@ type groupWriter struct {
 	count, cases int64
 	enc          []byte
 	removed      bool
+
+	all       *cases.Builder
+	kept      *cases.Builder
+	qacc      *quality.Accumulator
+	sum       *summary.Accumulator
+	part      *caseTableWriter
+	subjects  *distinctCounter
+	resources *distinctCounter
+	lastSubj  string
+	lastRes   string
+	kc        summary.Counts
+	temps     []*os.File // state files, removed with the writer
 }
 
-func newGroupWriter(dir string) (*groupWriter, error) {
+// groupDistinctMemory bounds each group's distinct-key sets before they
+// spill (a few groups are made at once).
+const groupDistinctMemory = 4 << 20
+
+func newGroupWriter(dir string, rowGroupRows int64, keyID string, qopt quality.Options, sopt summary.Options, terminal []schema.EventType) (*groupWriter, error) {
 	ev, err := os.CreateTemp(dir, "group-*")
 	if err != nil {
 		return nil, fmt.Errorf("case groups: %w", err)
@@ -492,6 +675,18 @@ func newGroupWriter(dir string) (*groupWriter, error) {
 	w := &groupWriter{ev: ev, keys: keys, evh: sha256.New(), kh: sha256.New()}
 	w.evw = bufio.NewWriterSize(io.MultiWriter(ev, w.evh, countWriter{&w.evn}), runBufSize)
 	w.kw = bufio.NewWriterSize(io.MultiWriter(keys, w.kh), runBufSize)
+	if w.part, err = newCaseTableWriter(dir, rowGroupRows, keyID); err != nil {
+		w.remove()
+		return nil, err
+	}
+	w.qacc = quality.NewAccumulator(qopt)
+	w.all = cases.NewBuilder(w.qacc, w.part)
+	w.all.Terminal = terminal
+	w.sum = summary.New(sopt)
+	w.kept = cases.NewBuilder(w.sum, w.sum.Process())
+	w.kept.Terminal = terminal
+	w.subjects = newDistinctCounter(dir, groupDistinctMemory)
+	w.resources = newDistinctCounter(dir, groupDistinctMemory)
 	return w, nil
 }
 
@@ -510,22 +705,112 @@ func (w *groupWriter) write(e *schema.Event) error {
 	return err
 }
 
-func (w *groupWriter) finish() (*caseGroup, error) {
+// observe feeds e (marks removed) to the group's computation on the
+// pass's goroutine.
+func (w *groupWriter) observe(e *schema.Event) error {
+	if e.SubjectID != "" && e.SubjectID != w.lastSubj {
+		if err := w.subjects.Add(e.SubjectID); err != nil {
+			return err
+		}
+		w.lastSubj = strings.Clone(e.SubjectID)
+	}
+	if e.ResourceID != "" && e.ResourceID != w.lastRes {
+		if err := w.resources.Add(e.ResourceID); err != nil {
+			return err
+		}
+		w.lastRes = strings.Clone(e.ResourceID)
+	}
+	w.all.Add(e)
+	return nil
+}
+
+// finish completes the group (after the pass) and returns it with its
+// files, in the order of caseGroup.blobs, each at its start.
+func (w *groupWriter) finish() (*caseGroup, []io.Reader, error) {
+	w.all.Flush()
+	w.kept.Flush()
 	for _, x := range []struct {
 		b *bufio.Writer
 		f *os.File
 	}{{w.evw, w.ev}, {w.kw, w.keys}} {
 		if err := x.b.Flush(); err != nil {
-			return nil, fmt.Errorf("case groups: %w", err)
+			return nil, nil, fmt.Errorf("case groups: %w", err)
 		}
 		if err := x.f.Sync(); err != nil {
-			return nil, fmt.Errorf("case groups: %w", err)
+			return nil, nil, fmt.Errorf("case groups: %w", err)
 		}
 		if _, err := x.f.Seek(0, io.SeekStart); err != nil {
-			return nil, fmt.Errorf("case groups: %w", err)
+			return nil, nil, fmt.Errorf("case groups: %w", err)
 		}
 	}
-	return &caseGroup{Events: blob.ID(w.evh.Sum(nil)), Keys: blob.ID(w.kh.Sum(nil)), Cases: w.cases, Count: w.count, Bytes: w.evn}, nil
+	gr := &caseGroup{Events: blob.ID(w.evh.Sum(nil)), Keys: blob.ID(w.kh.Sum(nil)), Cases: w.cases, Count: w.count, Bytes: w.evn,
+		Kept: w.kept.Cases(), Later: int64(w.kc.LaterThanUpload), Outside: int64(w.kc.OutsideWindow), Copies: int64(w.kc.ExactDuplicates)}
+	te, err := w.part.Finish()
+	if err != nil {
+		return nil, nil, err
+	}
+	gr.Table = te.SHA256
+	files := []io.Reader{w.ev, w.keys, w.part.f}
+	for _, x := range []struct {
+		d  *distinctCounter
+		id *blob.ID
+	}{{w.subjects, &gr.Subjects}, {w.resources, &gr.Resources}} {
+		f, id, err := w.tempBlob(func(out io.Writer) error {
+			var b []byte
+			return x.d.each(func(v string) error {
+				b = binary.AppendUvarint(b[:0], uint64(len(v)))
+				b = append(b, v...)
+				_, err := out.Write(b)
+				return err
+			})
+		})
+		if err != nil {
+			return nil, nil, err
+		}
+		*x.id = id
+		files = append(files, f)
+	}
+	for _, x := range []struct {
+		m  interface{ MarshalBinary() ([]byte, error) }
+		id *blob.ID
+	}{{w.sum, &gr.Summary}, {w.qacc, &gr.Quality}} {
+		b, err := x.m.MarshalBinary()
+		if err != nil {
+			return nil, nil, fmt.Errorf("case groups: state: %w", err)
+		}
+		f, id, err := w.tempBlob(func(out io.Writer) error { _, err := out.Write(b); return err })
+		if err != nil {
+			return nil, nil, err
+		}
+		*x.id = id
+		files = append(files, f)
+	}
+	return gr, files, nil
+}
+
+// tempBlob writes a file through fn and returns it, at its start, with
+// its id.
+func (w *groupWriter) tempBlob(fn func(io.Writer) error) (*os.File, blob.ID, error) {
+	f, err := os.CreateTemp(filepath.Dir(w.ev.Name()), "group-part-*")
+	if err != nil {
+		return nil, blob.ID{}, fmt.Errorf("case groups: %w", err)
+	}
+	w.temps = append(w.temps, f)
+	h := sha256.New()
+	bw := bufio.NewWriterSize(io.MultiWriter(f, h), runBufSize)
+	if err := fn(bw); err != nil {
+		return nil, blob.ID{}, fmt.Errorf("case groups: %w", err)
+	}
+	if err := bw.Flush(); err != nil {
+		return nil, blob.ID{}, fmt.Errorf("case groups: %w", err)
+	}
+	if err := f.Sync(); err != nil {
+		return nil, blob.ID{}, fmt.Errorf("case groups: %w", err)
+	}
+	if _, err := f.Seek(0, io.SeekStart); err != nil {
+		return nil, blob.ID{}, fmt.Errorf("case groups: %w", err)
+	}
+	return f, blob.ID(h.Sum(nil)), nil
 }
 
 func (w *groupWriter) remove() {
@@ -537,6 +822,179 @@ func (w *groupWriter) remove() {
 	w.keys.Close()
 	os.Remove(w.ev.Name())
 	os.Remove(w.keys.Name())
+	if w.part != nil {
+		w.part.Remove()
+	}
+	for _, f := range w.temps {
+		f.Close()
+		os.Remove(f.Name())
+	}
+	if w.subjects != nil {
+		w.subjects.Close()
+		w.resources.Close()
+	}
+}
+
+// figures merges the states of every group of set into the version's
+// figures: the summary's case part (into total, which holds the files'
+// event-level states), the case-level quality report, the exact counts,
+// and, with cw, the case table (the groups' parts merged by case key).
+func (s *Store) groupFigures(ctx context.Context, ds *Dataset, set *caseGroupSet, total *summary.Accumulator, qopt quality.Options, cw *caseTableWriter) (*quality.Report, error) {
+	qacc := quality.NewAccumulator(qopt)
+	var c summary.Counts
+	for _, gr := range set.Groups {
+		sb, err := s.blobBytes(ctx, gr.Summary)
+		if err != nil {
+			return nil, err
+		}
+		ga := summary.New(summaryOptions(ds))
+		if err := ga.UnmarshalBinary(sb); err != nil {
+			return nil, fmt.Errorf("case groups: summary state: %w", err)
+		}
+		if err := total.Merge(ga); err != nil {
+			return nil, fmt.Errorf("case groups: summary: %w", err)
+		}
+		qb, err := s.blobBytes(ctx, gr.Quality)
+		if err != nil {
+			return nil, err
+		}
+		gq := quality.NewAccumulator(qopt)
+		if err := gq.UnmarshalBinary(qb); err != nil {
+			return nil, fmt.Errorf("case groups: quality state: %w", err)
+		}
+		if err := qacc.Merge(gq); err != nil {
+			return nil, fmt.Errorf("case groups: quality: %w", err)
+		}
+		c.Cases += uint64(gr.Kept)
+		c.LaterThanUpload += uint64(gr.Later)
+		c.OutsideWindow += uint64(gr.Outside)
+		c.ExactDuplicates += uint64(gr.Copies)
+	}
+	var err error
+	if c.Subjects, err = s.distinctAcross(ctx, set, func(g *caseGroup) blob.ID { return g.Subjects }); err != nil {
+		return nil, err
+	}
+	if c.Resources, err = s.distinctAcross(ctx, set, func(g *caseGroup) blob.ID { return g.Resources }); err != nil {
+		return nil, err
+	}
+	total.SetCounts(c)
+	if cw != nil {
+		if err := s.mergeCaseTables(ctx, set, cw); err != nil {
+			return nil, err
+		}
+	}
+	return qacc.Report(), nil
+}
+
+func (s *Store) blobBytes(ctx context.Context, id blob.ID) ([]byte, error) {
+	r, err := s.blobs.Open(ctx, id)
+	if err != nil {
+		return nil, fmt.Errorf("case groups: %w", err)
+	}
+	defer r.Close()
+	b, err := io.ReadAll(r)
+	if err != nil {
+		return nil, fmt.Errorf("case groups: %w", err)
+	}
+	return b, nil
+}
+
+// distinctAcross counts the distinct keys of the groups' sorted key files
+// (a k-way merge: a key several groups name counts once).
+func (s *Store) distinctAcross(ctx context.Context, set *caseGroupSet, file func(*caseGroup) blob.ID) (uint64, error) {
+	h := make(keyHeap, 0, len(set.Groups))
+	for i := range set.Groups {
+		r, err := s.blobs.Open(ctx, file(&set.Groups[i]))
+		if err != nil {
+			return 0, fmt.Errorf("case groups: %w", err)
+		}
+		defer r.Close()
+		c := newKeyCursor(io.NewSectionReader(r, 0, r.Size()))
+		ok, err := c.next()
+		if err != nil {
+			return 0, err
+		}
+		if ok {
+			h = append(h, c)
+		}
+	}
+	heap.Init(&h)
+	var n uint64
+	var last string
+	for len(h) > 0 {
+		if n == 0 || h[0].cur != last {
+			n++
+			last = h[0].cur
+		}
+		if err := h.advance(); err != nil {
+			return 0, err
+		}
+	}
+	return n, nil
+}
+
+// mergeCaseTables writes the rows of every group's case table part to cw
+// in case order (parts hold disjoint cases, each in order).
+func (s *Store) mergeCaseTables(ctx context.Context, set *caseGroupSet, cw *caseTableWriter) error {
+	type part struct {
+		rr  *RowReader[cases.Row]
+		buf []cases.Row
+		i   int
+	}
+	var parts []*part
+	defer func() {
+		for _, p := range parts {
+			p.rr.Close()
+		}
+	}()
+	fill := func(p *part) (bool, error) {
+		// Cleared first: the reader then allocates the optional columns'
+		// values afresh, and the rows handed on keep theirs.
+		clear(p.buf[:cap(p.buf)])
+		for {
+			n, err := p.rr.Read(p.buf[:cap(p.buf)])
+			if err != nil && err != io.EOF {
+				return false, fmt.Errorf("case groups: case table: %w", err)
+			}
+			if n > 0 || err == io.EOF {
+				p.buf, p.i = p.buf[:n], 0
+				return n > 0, nil
+			}
+		}
+	}
+	for _, gr := range set.Groups {
+		r, err := s.blobs.Open(ctx, gr.Table)
+		if err != nil {
+			return fmt.Errorf("case groups: %w", err)
+		}
+		defer r.Close()
+		f, err := parquet.OpenFile(r, r.Size())
+		if err != nil {
+			return fmt.Errorf("case groups: case table: %w", err)
+		}
+		p := &part{rr: NewRowReader(parquet.NewGenericReader[cases.Row](f)), buf: make([]cases.Row, 0, 256)}
+		parts = append(parts, p)
+		if _, err := fill(p); err != nil {
+			return err
+		}
+	}
+	for {
+		var best *part
+		for _, p := range parts {
+			if p.i < len(p.buf) && (best == nil || p.buf[p.i].CaseID < best.buf[best.i].CaseID) {
+				best = p
+			}
+		}
+		if best == nil {
+			return cw.err
+		}
+		cw.add(&best.buf[best.i])
+		if best.i++; best.i == len(best.buf) {
+			if _, err := fill(best); err != nil {
+				return err
+			}
+		}
+	}
 }
 
 // keyCursor reads a sorted file of distinct keys.
@@ -614,4 +1072,3 @@ func (h *keyHeap) advance() error {
 	}
 	return nil
 }
-
