@@ -100,13 +100,16 @@ func (g *caseGroup) blobs() []blob.ID {
 	return []blob.ID{g.Events, g.Keys, g.Table, g.Subjects, g.Resources, g.Summary, g.Quality}
 }
 
-const (
+// Variables only so that tests can lower them.
+var (
 	// groupMaxEvents cuts a full pass's output into groups of about this
-	// many events (at case boundaries), so that a later case touched
+	// many events (at case boundaries; more when the version would
+	// otherwise make over maxGroups/2), so that a later case touched
 	// rewrites one of them, not the whole version.
-	groupMaxEvents = 1 << 20
-	// maxGroups bounds the groups of a version (so the merge's fan-in);
-	// beyond it the smallest untouched groups are compacted into one.
+	groupMaxEvents int64 = 1 << 20
+	// maxGroups bounds the groups of a version (so the merge's fan-in):
+	// beyond it the smallest groups no case of the upload is in are
+	// compacted into one, leaving about half as many.
 	maxGroups = 48
 )
 
@@ -210,8 +213,13 @@ type groupStats struct {
 	Written     int64 // events written to new groups
 }
 
-// testHookGroups, when set by a test, receives each commit's groupStats.
-var testHookGroups func(groupStats)
+// testHookGroups, when set by a test, receives each commit's groupStats;
+// testHookGroupsWritten runs once a commit's groups are stored, before its
+// transaction.
+var (
+	testHookGroups        func(groupStats)
+	testHookGroupsWritten func()
+)
 
 // groupBuild makes the case groups of the version a commit makes, and the
 // version's per-case figures from them. The per-case pass's stream (events
@@ -266,7 +274,7 @@ func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupS
 	}
 	g.from, g.to = windowMicros(ds)
 	g.excl.from, g.excl.to = g.from, g.to
-	g.chunk = max(groupMaxEvents, rows/(maxGroups/2)+1)
+	g.chunk = max(groupMaxEvents, rows/int64(maxGroups/2)+1)
 	if prev == nil {
 		return g, nil
 	}

@@ -407,6 +407,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	defer vp.release()
+	if testHookGroupsWritten != nil {
+		testHookGroupsWritten()
+	}
 	va, err := s.caseAttributes(ctx, ds, parent, vp.table, opt.attrs, opt.Mode, keyID)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
