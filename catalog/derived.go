@@ -186,7 +186,7 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			rows += f.Rows
 		}
 		var err error
-		if gb, err = s.newGroupBuild(ctx, ds, prev, qopt, keyID, rows, cp); err != nil {
+		if gb, err = s.newGroupBuild(ctx, ds, prev, qopt, rows, cp); err != nil {
 			return nil, err
 		}
 		defer gb.close()

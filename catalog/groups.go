@@ -10,12 +10,12 @@ import (
 	"fmt"
 	"hash"
 	"io"
+	"math"
 	"os"
 	"path/filepath"
 	"slices"
 	"strings"
-
-	"github.com/parquet-go/parquet-go"
+	"time"
 
 	bolt "go.etcd.io/bbolt"
 
@@ -75,8 +75,8 @@ type caseGroup struct {
 	Cases  int64   `json:"cases"`
 	Count  int64   `json:"count"` // events
 	Bytes  int64   `json:"bytes"` // of Events
-	// Table is the group's part of the case table (Parquet, rows in case
-	// order); Subjects and Resources its distinct subject and resource
+	// Table is the group's part of the case table (cases.Row in case
+	// order, in the compact form of partRow); Subjects and Resources its distinct subject and resource
 	// keys, sorted (as Keys).
 	Table     blob.ID `json:"table"`
 	Subjects  blob.ID `json:"subjects"`
@@ -233,14 +233,12 @@ var (
 // (full), every case goes to new groups of about chunk events. The
 // version's figures are then the merge of every group's states.
 type groupBuild struct {
-	s    *Store
-	ctx  context.Context
-	ds   *Dataset
-	prev *caseGroupSet
-	excl *exclusion // of the upload's file
-	qopt quality.Options
-	// keyID is the pseudonym key, in the case table parts' metadata.
-	keyID    string
+	s        *Store
+	ctx      context.Context
+	ds       *Dataset
+	prev     *caseGroupSet
+	excl     *exclusion // of the upload's file
+	qopt     quality.Options
 	terminal []schema.EventType
 	chunk    int64
 
@@ -265,8 +263,8 @@ type groupBuild struct {
 // newGroupBuild prepares the groups of the version being made by cp's
 // pass. prev is the parent's groups to extend (nil: a full pass), rows the
 // events of the version (for the size of a full pass's groups).
-func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupSet, qopt quality.Options, keyID string, rows int64, cp *CasePass) (*groupBuild, error) {
-	g := &groupBuild{s: s, ctx: ctx, ds: ds, prev: prev, qopt: qopt, keyID: keyID, terminal: cp.Terminal}
+func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupSet, qopt quality.Options, rows int64, cp *CasePass) (*groupBuild, error) {
+	g := &groupBuild{s: s, ctx: ctx, ds: ds, prev: prev, qopt: qopt, terminal: cp.Terminal}
 	if !qopt.UploadedAt.IsZero() {
 		g.excl = &exclusion{later: qopt.UploadedAt.UnixMicro()}
 	} else {
@@ -418,7 +416,7 @@ func (g *groupBuild) findTouched() error {
 }
 
 func (g *groupBuild) newWriter() (*groupWriter, error) {
-	w, err := newGroupWriter(g.s.opt.TempDir, g.s.opt.RowGroupRows, g.keyID, g.qopt, summaryOptions(g.ds), g.terminal)
+	w, err := newGroupWriter(g.s.opt.TempDir, g.qopt, summaryOptions(g.ds), g.terminal)
 	if err != nil {
 		return nil, err
 	}
@@ -656,7 +654,7 @@ type groupWriter struct {
 	kept      *cases.Builder
 	qacc      *quality.Accumulator
 	sum       *summary.Accumulator
-	part      *caseTableWriter
+	part      *partWriter
 	subjects  *distinctCounter
 	resources *distinctCounter
 	lastSubj  string
@@ -669,7 +667,7 @@ type groupWriter struct {
 // spill (a few groups are made at once).
 const groupDistinctMemory = 4 << 20
 
-func newGroupWriter(dir string, rowGroupRows int64, keyID string, qopt quality.Options, sopt summary.Options, terminal []schema.EventType) (*groupWriter, error) {
+func newGroupWriter(dir string, qopt quality.Options, sopt summary.Options, terminal []schema.EventType) (*groupWriter, error) {
 	ev, err := os.CreateTemp(dir, "group-*")
 	if err != nil {
 		return nil, fmt.Errorf("case groups: %w", err)
@@ -683,7 +681,7 @@ func newGroupWriter(dir string, rowGroupRows int64, keyID string, qopt quality.O
 	w := &groupWriter{ev: ev, keys: keys, evh: sha256.New(), kh: sha256.New()}
 	w.evw = bufio.NewWriterSize(io.MultiWriter(ev, w.evh, countWriter{&w.evn}), runBufSize)
 	w.kw = bufio.NewWriterSize(io.MultiWriter(keys, w.kh), runBufSize)
-	if w.part, err = newCaseTableWriter(dir, rowGroupRows, keyID); err != nil {
+	if w.part, err = newPartWriter(dir); err != nil {
 		w.remove()
 		return nil, err
 	}
@@ -753,12 +751,12 @@ func (w *groupWriter) finish() (*caseGroup, []io.Reader, error) {
 	}
 	gr := &caseGroup{Events: blob.ID(w.evh.Sum(nil)), Keys: blob.ID(w.kh.Sum(nil)), Cases: w.cases, Count: w.count, Bytes: w.evn,
 		Kept: w.kept.Cases(), Later: int64(w.kc.LaterThanUpload), Outside: int64(w.kc.OutsideWindow), Copies: int64(w.kc.ExactDuplicates)}
-	te, err := w.part.Finish()
+	pf, pid, err := w.part.finish()
 	if err != nil {
 		return nil, nil, err
 	}
-	gr.Table = te.SHA256
-	files := []io.Reader{w.ev, w.keys, w.part.f}
+	gr.Table = pid
+	files := []io.Reader{w.ev, w.keys, pf}
 	for _, x := range []struct {
 		d  *distinctCounter
 		id *blob.ID
@@ -831,7 +829,7 @@ func (w *groupWriter) remove() {
 	os.Remove(w.ev.Name())
 	os.Remove(w.keys.Name())
 	if w.part != nil {
-		w.part.Remove()
+		w.part.remove()
 	}
 	for _, f := range w.temps {
 		f.Close()
@@ -945,64 +943,214 @@ func (s *Store) distinctAcross(ctx context.Context, set *caseGroupSet, file func
 // in case order (parts hold disjoint cases, each in order).
 func (s *Store) mergeCaseTables(ctx context.Context, set *caseGroupSet, cw *caseTableWriter) error {
 	type part struct {
-		rr  *RowReader[cases.Row]
-		buf []cases.Row
-		i   int
+		r   *bufio.Reader
+		row cases.Row
+		ok  bool
 	}
 	var parts []*part
-	defer func() {
-		for _, p := range parts {
-			p.rr.Close()
-		}
-	}()
-	fill := func(p *part) (bool, error) {
-		// Cleared first: the reader then allocates the optional columns'
-		// values afresh, and the rows handed on keep theirs.
-		clear(p.buf[:cap(p.buf)])
-		for {
-			n, err := p.rr.Read(p.buf[:cap(p.buf)])
-			if err != nil && err != io.EOF {
-				return false, fmt.Errorf("case groups: case table: %w", err)
-			}
-			if n > 0 || err == io.EOF {
-				p.buf, p.i = p.buf[:n], 0
-				return n > 0, nil
-			}
-		}
-	}
 	for _, gr := range set.Groups {
 		r, err := s.blobs.Open(ctx, gr.Table)
 		if err != nil {
 			return fmt.Errorf("case groups: %w", err)
 		}
 		defer r.Close()
-		f, err := parquet.OpenFile(r, r.Size())
-		if err != nil {
-			return fmt.Errorf("case groups: case table: %w", err)
-		}
-		p := &part{rr: NewRowReader(parquet.NewGenericReader[cases.Row](f)), buf: make([]cases.Row, 0, 256)}
-		parts = append(parts, p)
-		if _, err := fill(p); err != nil {
+		p := &part{r: bufio.NewReaderSize(io.NewSectionReader(r, 0, r.Size()), runBufSize)}
+		if p.ok, err = readPartRow(p.r, &p.row); err != nil {
 			return err
 		}
+		parts = append(parts, p)
 	}
 	for {
 		var best *part
 		for _, p := range parts {
-			if p.i < len(p.buf) && (best == nil || p.buf[p.i].CaseID < best.buf[best.i].CaseID) {
+			if p.ok && (best == nil || p.row.CaseID < best.row.CaseID) {
 				best = p
 			}
 		}
 		if best == nil {
 			return cw.err
 		}
-		cw.add(&best.buf[best.i])
-		if best.i++; best.i == len(best.buf) {
-			if _, err := fill(best); err != nil {
-				return err
-			}
+		cw.add(&best.row)
+		var err error
+		if best.ok, err = readPartRow(best.r, &best.row); err != nil {
+			return err
 		}
 	}
+}
+
+// partWriter is a group's case table part being made: a cases.Observer
+// that writes each case's row, in the compact form of appendPartRow, to a
+// temporary file, hashing it.
+type partWriter struct {
+	f   *os.File
+	w   *bufio.Writer
+	h   hash.Hash
+	b   []byte
+	err error
+}
+
+func newPartWriter(dir string) (*partWriter, error) {
+	f, err := os.CreateTemp(dir, "group-table-*")
+	if err != nil {
+		return nil, fmt.Errorf("case groups: %w", err)
+	}
+	p := &partWriter{f: f, h: sha256.New()}
+	p.w = bufio.NewWriterSize(io.MultiWriter(f, p.h), runBufSize)
+	return p, nil
+}
+
+func (p *partWriter) Event(*schema.Event)    {}
+func (p *partWriter) Wait(*cases.Wait)       {}
+func (p *partWriter) Service(*cases.Service) {}
+func (p *partWriter) Case(r *cases.Record) {
+	if p.err != nil {
+		return
+	}
+	row := r.Row()
+	p.b = appendPartRow(p.b[:0], &row)
+	_, p.err = p.w.Write(p.b)
+}
+
+// finish returns the part's file, at its start, and its id.
+func (p *partWriter) finish() (*os.File, blob.ID, error) {
+	if p.err == nil {
+		p.err = p.w.Flush()
+	}
+	if p.err == nil {
+		p.err = p.f.Sync()
+	}
+	if p.err == nil {
+		_, p.err = p.f.Seek(0, io.SeekStart)
+	}
+	if p.err != nil {
+		return nil, blob.ID{}, fmt.Errorf("case groups: case table: %w", p.err)
+	}
+	return p.f, blob.ID(p.h.Sum(nil)), nil
+}
+
+func (p *partWriter) remove() {
+	p.f.Close()
+	os.Remove(p.f.Name())
+}
+
+// The compact form of a case table row in a group's part: the strings as
+// uvarint length + bytes, integers and instants (µs) as varints, doubles
+// as 8 bytes little-endian, and a byte saying which optional columns are
+// present.
+const (
+	partSubject = 1 << iota
+	partArrival
+	partStart
+	partEnd
+	partWait
+	partService
+	partStay
+)
+
+func appendPartRow(b []byte, r *cases.Row) []byte {
+	str := func(s string) {
+		b = binary.AppendUvarint(b, uint64(len(s)))
+		b = append(b, s...)
+	}
+	var has byte
+	for i, p := range []bool{r.SubjectID != nil, r.ArrivalAt != nil, r.StartAt != nil, r.EndAt != nil, r.WaitSeconds != nil, r.ServiceSeconds != nil, r.StaySeconds != nil} {
+		if p {
+			has |= 1 << i
+		}
+	}
+	str(r.CaseID)
+	str(r.Site)
+	b = binary.AppendVarint(b, int64(r.Sites))
+	b = append(b, has)
+	if r.SubjectID != nil {
+		str(*r.SubjectID)
+	}
+	b = binary.AppendVarint(b, r.FirstAt.UnixMicro())
+	b = binary.AppendVarint(b, r.LastAt.UnixMicro())
+	b = binary.AppendVarint(b, r.Events)
+	for _, t := range []*time.Time{r.ArrivalAt, r.StartAt, r.EndAt} {
+		if t != nil {
+			b = binary.AppendVarint(b, t.UnixMicro())
+		}
+	}
+	b = binary.LittleEndian.AppendUint64(b, math.Float64bits(r.DurationSeconds))
+	for _, f := range []*float64{r.WaitSeconds, r.ServiceSeconds, r.StaySeconds} {
+		if f != nil {
+			b = binary.LittleEndian.AppendUint64(b, math.Float64bits(*f))
+		}
+	}
+	str(r.Outcome)
+	b = binary.AppendVarint(b, int64(r.Activities))
+	str(r.Variant)
+	return b
+}
+
+// readPartRow reads the next row of a part into r (fresh values for its
+// optional columns); false at the end.
+func readPartRow(br *bufio.Reader, r *cases.Row) (bool, error) {
+	if _, err := br.Peek(1); err == io.EOF {
+		return false, nil
+	}
+	var err error
+	str := func() string {
+		if err != nil {
+			return ""
+		}
+		var n uint64
+		if n, err = binary.ReadUvarint(br); err != nil {
+			return ""
+		}
+		b := make([]byte, n)
+		_, err = io.ReadFull(br, b)
+		return string(b)
+	}
+	vint := func() int64 {
+		if err != nil {
+			return 0
+		}
+		var v int64
+		v, err = binary.ReadVarint(br)
+		return v
+	}
+	f64 := func() float64 {
+		if err != nil {
+			return 0
+		}
+		var b [8]byte
+		_, err = io.ReadFull(br, b[:])
+		return math.Float64frombits(binary.LittleEndian.Uint64(b[:]))
+	}
+	at := func() time.Time { return time.UnixMicro(vint()).UTC() }
+	*r = cases.Row{CaseID: str(), Site: str(), Sites: int32(vint())}
+	var has byte
+	if err == nil {
+		has, err = br.ReadByte()
+	}
+	if has&partSubject != 0 {
+		v := str()
+		r.SubjectID = &v
+	}
+	r.FirstAt, r.LastAt, r.Events = at(), at(), vint()
+	for i, p := range []**time.Time{&r.ArrivalAt, &r.StartAt, &r.EndAt} {
+		if has&(partArrival<<i) != 0 {
+			v := at()
+			*p = &v
+		}
+	}
+	r.DurationSeconds = f64()
+	for i, p := range []**float64{&r.WaitSeconds, &r.ServiceSeconds, &r.StaySeconds} {
+		if has&(partWait<<i) != 0 {
+			v := f64()
+			*p = &v
+		}
+	}
+	r.Outcome = str()
+	r.Activities = int32(vint())
+	r.Variant = str()
+	if err != nil {
+		return false, fmt.Errorf("case groups: case table part: %w", err)
+	}
+	return true, nil
 }
 
 // keyCursor reads a sorted file of distinct keys.
