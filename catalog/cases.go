@@ -341,45 +341,9 @@ func (d *distinctCounter) Count() (uint64, error) {
 	if len(d.runs) == 0 {
 		return uint64(len(d.set)), nil
 	}
-	if len(d.set) > 0 {
-		if err := d.spill(); err != nil {
-			return 0, err
-		}
-	}
-	// Merge the runs (fan-in bounded like the sorter's: merge the oldest
-	// into one until few enough are left).
-	for len(d.runs) > maxFanIn {
-		f, err := os.CreateTemp(d.dir, "distinct-*")
-		if err != nil {
-			return 0, fmt.Errorf("count: %w", err)
-		}
-		w := bufio.NewWriterSize(f, runBufSize)
-		var b []byte
-		_, err = mergeStrings(d.runs[:maxFanIn], func(v string) error {
-			b = binary.AppendUvarint(b[:0], uint64(len(v)))
-			b = append(b, v...)
-			_, err := w.Write(b)
-			return err
-		})
-		if err == nil {
-			err = w.Flush()
-		}
-		if err != nil {
-			f.Close()
-			os.Remove(f.Name())
-			return 0, fmt.Errorf("count: %w", err)
-		}
-		for _, g := range d.runs[:maxFanIn] {
-			g.Close()
-			os.Remove(g.Name())
-		}
-		d.runs = append(slices.Delete(d.runs, 0, maxFanIn), f)
-	}
-	n, err := mergeStrings(d.runs, func(string) error { return nil })
-	if err != nil {
-		return 0, fmt.Errorf("count: %w", err)
-	}
-	return n, nil
+	n := uint64(0)
+	err := d.each(func(string) error { n++; return nil })
+	return n, err
 }
 
 // each calls fn for every distinct value added, in order.
@@ -397,11 +361,39 @@ func (d *distinctCounter) each(fn func(string) error) error {
 			return err
 		}
 	}
-	if len(d.runs) > maxFanIn {
-		return fmt.Errorf("count: %d runs, over the fan-in of %d", len(d.runs), maxFanIn)
+	// Merge the runs (fan-in bounded like the sorter's: merge the oldest
+	// into one until few enough are left).
+	for len(d.runs) > maxFanIn {
+		f, err := os.CreateTemp(d.dir, "distinct-*")
+		if err != nil {
+			return fmt.Errorf("count: %w", err)
+		}
+		w := bufio.NewWriterSize(f, runBufSize)
+		var b []byte
+		_, err = mergeStrings(d.runs[:maxFanIn], func(v string) error {
+			b = binary.AppendUvarint(b[:0], uint64(len(v)))
+			b = append(b, v...)
+			_, err := w.Write(b)
+			return err
+		})
+		if err == nil {
+			err = w.Flush()
+		}
+		if err != nil {
+			f.Close()
+			os.Remove(f.Name())
+			return fmt.Errorf("count: %w", err)
+		}
+		for _, g := range d.runs[:maxFanIn] {
+			g.Close()
+			os.Remove(g.Name())
+		}
+		d.runs = append(slices.Delete(d.runs, 0, maxFanIn), f)
 	}
-	_, err := mergeStrings(d.runs, fn)
-	return err
+	if _, err := mergeStrings(d.runs, fn); err != nil {
+		return fmt.Errorf("count: %w", err)
+	}
+	return nil
 }
 
 // Close deletes the runs.

@@ -186,7 +186,14 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			rows += f.Rows
 		}
 		var err error
-		if gb, err = s.newGroupBuild(ctx, ds, prev, qopt, rows, cp); err != nil {
+		gb, err = s.newGroupBuild(ctx, ds, prev, qopt, rows, cp)
+		if err != nil && prev != nil {
+			// The parent's groups cannot be read (a blob gone): one full
+			// pass makes the version's groups anew.
+			s.opt.Logger.Warn("case groups unreadable, a full per-case pass instead", "dataset", ds.Ref().String(), "err", err)
+			gb, err = s.newGroupBuild(ctx, ds, nil, qopt, rows, cp)
+		}
+		if err != nil {
 			return nil, err
 		}
 		defer gb.close()

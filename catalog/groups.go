@@ -305,6 +305,7 @@ func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupS
 		r, err := s.blobs.Open(ctx, prev.Groups[i].Events)
 		if err != nil {
 			g.close()
+			cp.srt.inputs = nil
 			return nil, fmt.Errorf("case groups: %w", err)
 		}
 		g.closers = append(g.closers, r)
@@ -665,7 +666,7 @@ type groupWriter struct {
 
 // groupDistinctMemory bounds each group's distinct-key sets before they
 // spill (a few groups are made at once).
-const groupDistinctMemory = 4 << 20
+const groupDistinctMemory = 1 << 20
 
 func newGroupWriter(dir string, qopt quality.Options, sopt summary.Options, terminal []schema.EventType) (*groupWriter, error) {
 	ev, err := os.CreateTemp(dir, "group-*")

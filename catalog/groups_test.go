@@ -316,3 +316,33 @@ func TestCrashBetweenGroupsAndCommit(t *testing.T) {
 		t.Errorf("report counts %d rows of %d", q.Rows.Accepted, again.Version.Manifest.Rows)
 	}
 }
+
+// TestGroupsUnreadableFallBack: when a blob of the parent's groups is gone,
+// the commit makes its groups by a full pass, and the figures are those of
+// a full pass.
+func TestGroupsUnreadableFallBack(t *testing.T) {
+	o := seriesOpt{Seed: 3, Nights: 3, PerDay: 100, Window: 2, Late: 0.1}
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "inc", nil)
+	e.dataset(t, "p", "full", nil)
+	var ups [][]byte
+	for n := 0; n < o.Nights; n++ {
+		ups = append(ups, csvBytes(header, night(o, n)))
+	}
+	names := []string{"a.csv", "b.csv", "c.csv"}
+	sameAsFullPass(t, e, ups[:2], names[:2])
+	set, err := e.s.loadGroups("p/inc")
+	if err != nil || set == nil {
+		t.Fatal(set, err)
+	}
+	if err := e.blobs.Delete(context.Background(), set.Groups[0].Keys); err != nil {
+		t.Fatal(err)
+	}
+	stats := sameAsFullPass(t, e, ups[2:], names[2:])
+	if stats[0].Incremental {
+		t.Errorf("%+v: incremental without the parent's groups", stats[0])
+	}
+	if !strings.Contains(e.logs.String(), "case groups unreadable") {
+		t.Error("the fallback was not logged")
+	}
+}
