@@ -208,7 +208,7 @@ type Accumulator struct {
 	cur caseState
 	// ordCase is the case of the latest event of the per-case pass and
 	// ord that event's position in it (from 0).
-	ordCase string
+	ordCase []byte
 	ord     int64
 }
 

@@ -161,15 +161,15 @@ func (a *Accumulator) Event(e *schema.Event) {
 	if a.cur.id != "" && ev.CaseID != a.cur.id {
 		a.endCase()
 	}
-	if ev.CaseID != a.ordCase {
-		a.ordCase, a.ord = strings.Clone(ev.CaseID), 0
+	if string(a.ordCase) != ev.CaseID {
+		a.ordCase, a.ord = append(a.ordCase[:0], ev.CaseID...), 0
 	} else {
 		a.ord++
 	}
 	n := len(a.sites)
 	s := a.site(ev.Site)
 	if len(a.sites) > n {
-		s.firstCase, s.firstOrd = a.ordCase, a.ord
+		s.firstCase, s.firstOrd = string(a.ordCase), a.ord
 	}
 	at := ev.OccurredAt.UnixMicro()
 	a.census(s, at) // the span, when the time pass did not run
