@@ -216,9 +216,11 @@ type groupStats struct {
 // testHookGroups, when set by a test, receives each commit's groupStats;
 // testHookGroupsWritten runs once a commit's groups are stored, before its
 // transaction.
+// testHookGroupBlob receives the id of every group blob stored.
 var (
 	testHookGroups        func(groupStats)
 	testHookGroupsWritten func()
+	testHookGroupBlob     func(blob.ID)
 )
 
 // groupBuild makes the case groups of the version a commit makes, and the
@@ -612,6 +614,9 @@ func (g *groupBuild) finish(ctx context.Context) (*caseGroupSet, []func(), error
 			return fail(err)
 		}
 		for i, id := range gr.blobs() {
+			if testHookGroupBlob != nil {
+				testHookGroupBlob(id)
+			}
 			releases = append(releases, g.s.hold(id))
 			if err := g.s.blobs.Put(ctx, id, files[i]); err != nil {
 				return fail(fmt.Errorf("case groups: %w", err))
@@ -848,6 +853,7 @@ func (w *groupWriter) remove() {
 // and, with cw, the case table (the groups' parts merged by case key).
 func (s *Store) groupFigures(ctx context.Context, ds *Dataset, set *caseGroupSet, total *summary.Accumulator, qopt quality.Options, cw *caseTableWriter) (*quality.Report, error) {
 	qacc := quality.NewAccumulator(qopt)
+	total.Process() // the views, empty without cases, as one pass gives them
 	var c summary.Counts
 	for _, gr := range set.Groups {
 		sb, err := s.blobBytes(ctx, gr.Summary)

@@ -15,6 +15,7 @@ import (
 	"slices"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 )
@@ -32,7 +33,13 @@ func sameAsFullPass(t *testing.T, e *env, uploads [][]byte, names []string) []gr
 	var got *groupStats
 	testHookGroups = func(s groupStats) { got = &s }
 	defer func() { testHookGroups = nil }()
+	defer func(now func() time.Time) { e.s.opt.Now = now }(e.s.opt.Now)
 	for i, body := range uploads {
+		// Each upload received an hour after the one before (both
+		// datasets alike): groups made at one receipt merge with those
+		// made at another.
+		at := testNow.Add(time.Duration(i) * time.Hour)
+		e.s.opt.Now = func() time.Time { return at }
 		got = nil
 		e.s.noCaseGroups = false
 		inc := e.ingest(t, "p", "inc", body, names[i])
