@@ -93,6 +93,13 @@ type caseGroup struct {
 	Later   int64 `json:"later,omitempty"`
 	Outside int64 `json:"outside,omitempty"`
 	Copies  int64 `json:"copies,omitempty"`
+	// Upload says the group holds events of the upload that made it, and
+	// its states saw them as that commit's pass does (with their source
+	// lines and the time pass's flags): right for that version's figures,
+	// not for a later one's, which sees them as stored. The next commit
+	// therefore rewrites it like a touched group (its states recomputed
+	// from its stored events).
+	Upload bool `json:"upload,omitempty"`
 }
 
 // blobs lists the group's blobs.
@@ -173,13 +180,60 @@ func (s *Store) loadGroups(ref string) (*caseGroupSet, error) {
 	return set, err
 }
 
-// putGroups stores the groups of version n of ref in tx.
-func putGroups(tx *bolt.Tx, ref string, n int, files []FileEntry, set *caseGroupSet) error {
+// putGroups stores the groups of version n of ref in tx and returns the
+// set they replace, if any.
+func putGroups(tx *bolt.Tx, ref string, n int, files []FileEntry, set *caseGroupSet) (*caseGroupSet, error) {
+	b := tx.Bucket(bucketCaseGroups)
+	var old *caseGroupSet
+	if b.Get([]byte(ref)) != nil {
+		old = new(caseGroupSet)
+		if err := getJSON(b, []byte(ref), old, "case groups of "+ref); err != nil {
+			old = nil // replaced all the same; the collector sweeps its blobs
+		}
+	}
 	if set == nil {
-		return tx.Bucket(bucketCaseGroups).Delete([]byte(ref))
+		return old, b.Delete([]byte(ref))
 	}
 	set.Version, set.Files = n, filesDigest(files)
-	return putJSON(tx.Bucket(bucketCaseGroups), []byte(ref), set)
+	return old, putJSON(b, []byte(ref), set)
+}
+
+// dropGroups deletes the blobs of a replaced group set that no stored set
+// names and no commit in progress holds (as CollectGarbage decides: under
+// s.mu, so no hold is taken or released meanwhile). Blobs are
+// content-addressed, so another dataset's groups may share one. A failure
+// is only logged: the collector sweeps what is left.
+func (s *Store) dropGroups(ctx context.Context, old, cur *caseGroupSet) {
+	if old == nil {
+		return
+	}
+	keep := map[blob.ID]bool{}
+	if cur != nil {
+		for _, g := range cur.Groups {
+			for _, id := range g.blobs() {
+				keep[id] = true
+			}
+		}
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	refs := map[blob.ID]bool{}
+	if err := s.db.View(func(tx *bolt.Tx) error { return groupBlobs(tx, nil, refs) }); err != nil {
+		s.opt.Logger.Warn("case groups: replaced blobs left for the collector", "err", err)
+		return
+	}
+	for _, g := range old.Groups {
+		for _, id := range g.blobs() {
+			if keep[id] || refs[id] || s.pending[id] > 0 {
+				continue
+			}
+			if err := s.blobs.Delete(ctx, id); err != nil {
+				s.opt.Logger.Warn("case groups: replaced blob left for the collector", "blob", id.String(), "err", err)
+				return
+			}
+			refs[id] = true // deleted once
+		}
+	}
 }
 
 // groupBlobs adds the blobs of every stored group set to refs, except
@@ -363,6 +417,9 @@ func (g *groupBuild) findTouched() error {
 	}
 	var compact []int
 	for i := range g.kept {
+		if g.prev.Groups[i].Upload {
+			g.kept[i] = false // its states recomputed as stored
+		}
 		if !g.kept[i] {
 			g.touched = append(g.touched, i)
 		}
@@ -447,6 +504,7 @@ func (g *groupBuild) route(e *schema.Event) (*groupWriter, error) {
 	}
 	line := e.Line
 	if e.Line&uploadMark != 0 {
+		g.cur.upload = true
 		// As a later pass reads it from the stored file: no source line,
 		// the exclusion flags of the file.
 		e.Line = quality.PackLine(0, g.excl.flags(e))
@@ -667,6 +725,7 @@ type groupWriter struct {
 	lastRes   string
 	kc        summary.Counts
 	temps     []*os.File // state files, removed with the writer
+	upload    bool       // it holds events of the upload (caseGroup.Upload)
 }
 
 // groupDistinctMemory bounds each group's distinct-key sets before they
@@ -756,7 +815,8 @@ func (w *groupWriter) finish() (*caseGroup, []io.Reader, error) {
 		}
 	}
 	gr := &caseGroup{Events: blob.ID(w.evh.Sum(nil)), Keys: blob.ID(w.kh.Sum(nil)), Cases: w.cases, Count: w.count, Bytes: w.evn,
-		Kept: w.kept.Cases(), Later: int64(w.kc.LaterThanUpload), Outside: int64(w.kc.OutsideWindow), Copies: int64(w.kc.ExactDuplicates)}
+		Kept: w.kept.Cases(), Later: int64(w.kc.LaterThanUpload), Outside: int64(w.kc.OutsideWindow), Copies: int64(w.kc.ExactDuplicates),
+		Upload: w.upload}
 	pf, pid, err := w.part.finish()
 	if err != nil {
 		return nil, nil, err

@@ -263,6 +263,19 @@ func TestGroupsNightTouchesItsCases(t *testing.T) {
 			t.Errorf("events %s: %d in the first five full nights, %d in the last five: grows with the version", f.name, a, b)
 		}
 	}
+	// The groups a night replaced are deleted with its commit: the store
+	// holds no group blob but those of the latest set.
+	cur := e.groupBlobs(t)
+	var stray int
+	e.blobs.List(context.Background(), func(i blob.Info) error {
+		if b := e.blobBytes(t, i.ID); !bytes.HasPrefix(b, []byte("PAR1")) && !cur[i.ID] {
+			stray++
+		}
+		return nil
+	})
+	if stray > 0 {
+		t.Errorf("%d group blobs left behind by replaced groups", stray)
+	}
 	for n, s := range stats {
 		// Past two windows of history, a night reads less than half.
 		if n > 0 && !s.Incremental || n >= 2*o.Window && 2*s.Read >= rows[n-1] {

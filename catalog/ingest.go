@@ -431,6 +431,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	vsum, fileSums := vp.summary, vp.fileStates
 	received := up.ReceivedAt
 	var ver *Version
+	var oldGroups *caseGroupSet
 	err = s.db.Update(func(tx *bolt.Tx) error {
 		var cur Dataset
 		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
@@ -514,7 +515,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		if err := putFileReports(tx, plan.reports); err != nil {
 			return err
 		}
-		if err := putGroups(tx, cur.Ref().String(), v.Number, plan.files, vp.groups); err != nil {
+		if oldGroups, err = putGroups(tx, cur.Ref().String(), v.Number, plan.files, vp.groups); err != nil {
 			return err
 		}
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
@@ -532,6 +533,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref().String(), "err", err)
 		return nil, fmt.Errorf("ingest: commit: %w", err)
 	}
+	s.dropGroups(ctx, oldGroups, vp.groups)
 	s.opt.Logger.Info("version created", "dataset", ds.Ref().String(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
 		"rows", ver.Manifest.Rows, "rows_removed", plan.removed, "rejected", rep.Rows.Rejected, "score", rep.Score)
 	return &IngestResult{Upload: *up, Version: ver}, nil
