@@ -3,6 +3,7 @@ package catalog
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"time"
 
@@ -92,6 +93,12 @@ func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*
 		case grace > 0 && now.Sub(info.ModTime) < grace:
 			res.Young++
 		default:
+			// A commit may have deleted the groups it replaced since
+			// the listing (dropGroups): those are gone, not collected.
+			if _, err := s.blobs.Stat(ctx, info.ID); errors.Is(err, blob.ErrNotFound) {
+				res.Blobs--
+				continue
+			}
 			doomed = append(doomed, info)
 		}
 	}
