@@ -36,6 +36,9 @@ type CasePass struct {
 	// exact copy of the event before them (same case, instant, type and
 	// content). Run counts what it left out in the Counts it returns.
 	Kept []cases.Observer
+	// upKeys holds the case keys of the events marked by uploadMark.
+	upKeys  *distinctCounter
+	lastKey string
 }
 
 // NewCasePass returns a pass whose sort runs and counts spill to dir, in
@@ -57,7 +60,53 @@ func NewCasePass(dir string, runEvents int) *CasePass {
 func (p *CasePass) Add(e *schema.Event) error {
 	c := *e
 	c.Priority, c.Channel, c.Outcome, c.EventID = "", "", "", ""
+	if e.Line&uploadMark != 0 && e.CaseID != p.lastKey {
+		if p.upKeys == nil {
+			p.upKeys = newDistinctCounter(p.srt.dir, distinctMemory)
+		}
+		if err := p.upKeys.Add(e.CaseID); err != nil {
+			return err
+		}
+		p.lastKey = strings.Clone(e.CaseID)
+	}
 	return p.srt.Add(&c)
+}
+
+// uploadKeys writes the distinct case keys of the events marked by
+// uploadMark, sorted, to a temporary file (deleted when closed).
+func (p *CasePass) uploadKeys() (*tempFile, error) {
+	f, err := os.CreateTemp(p.srt.dir, "upload-keys-*")
+	if err != nil {
+		return nil, fmt.Errorf("case keys: %w", err)
+	}
+	if p.upKeys == nil {
+		return &tempFile{f}, nil
+	}
+	w := bufio.NewWriterSize(f, runBufSize)
+	var b []byte
+	err = p.upKeys.each(func(v string) error {
+		b = binary.AppendUvarint(b[:0], uint64(len(v)))
+		b = append(b, v...)
+		_, err := w.Write(b)
+		return err
+	})
+	if err == nil {
+		err = w.Flush()
+	}
+	if err != nil {
+		f.Close()
+		os.Remove(f.Name())
+		return nil, fmt.Errorf("case keys: %w", err)
+	}
+	return &tempFile{f}, nil
+}
+
+// tempFile is a temporary file that Close deletes.
+type tempFile struct{ *os.File }
+
+func (t *tempFile) Close() error {
+	t.File.Close()
+	return os.Remove(t.Name())
 }
 
 // uploadMark, set in an event's Line, marks the events of the upload
@@ -212,7 +261,11 @@ const (
 
 // Close removes the temporary files.
 func (p *CasePass) Close() error {
-	return errors.Join(p.srt.Close(), p.subjects.Close(), p.resources.Close())
+	errs := []error{p.srt.Close(), p.subjects.Close(), p.resources.Close()}
+	if p.upKeys != nil {
+		errs = append(errs, p.upKeys.Close())
+	}
+	return errors.Join(errs...)
 }
 
 // distinctMemory bounds the bytes of values a distinctCounter holds
@@ -288,9 +341,24 @@ func (d *distinctCounter) Count() (uint64, error) {
 	if len(d.runs) == 0 {
 		return uint64(len(d.set)), nil
 	}
+	n := uint64(0)
+	err := d.each(func(string) error { n++; return nil })
+	return n, err
+}
+
+// each calls fn for every distinct value added, in order.
+func (d *distinctCounter) each(fn func(string) error) error {
+	if len(d.runs) == 0 {
+		for _, v := range slices.Sorted(mapKeys(d.set)) {
+			if err := fn(v); err != nil {
+				return err
+			}
+		}
+		return nil
+	}
 	if len(d.set) > 0 {
 		if err := d.spill(); err != nil {
-			return 0, err
+			return err
 		}
 	}
 	// Merge the runs (fan-in bounded like the sorter's: merge the oldest
@@ -298,7 +366,7 @@ func (d *distinctCounter) Count() (uint64, error) {
 	for len(d.runs) > maxFanIn {
 		f, err := os.CreateTemp(d.dir, "distinct-*")
 		if err != nil {
-			return 0, fmt.Errorf("count: %w", err)
+			return fmt.Errorf("count: %w", err)
 		}
 		w := bufio.NewWriterSize(f, runBufSize)
 		var b []byte
@@ -314,7 +382,7 @@ func (d *distinctCounter) Count() (uint64, error) {
 		if err != nil {
 			f.Close()
 			os.Remove(f.Name())
-			return 0, fmt.Errorf("count: %w", err)
+			return fmt.Errorf("count: %w", err)
 		}
 		for _, g := range d.runs[:maxFanIn] {
 			g.Close()
@@ -322,11 +390,10 @@ func (d *distinctCounter) Count() (uint64, error) {
 		}
 		d.runs = append(slices.Delete(d.runs, 0, maxFanIn), f)
 	}
-	n, err := mergeStrings(d.runs, func(string) error { return nil })
-	if err != nil {
-		return 0, fmt.Errorf("count: %w", err)
+	if _, err := mergeStrings(d.runs, fn); err != nil {
+		return fmt.Errorf("count: %w", err)
 	}
-	return n, nil
+	return nil
 }
 
 // Close deletes the runs.

@@ -53,6 +53,9 @@ func crashChild(mode string) {
 	case "commit":
 		testHookBeforeCommit = func() { os.Exit(3) }
 		src = bytes.NewReader(genCSV(genOpt{Seed: 2, N: 3000, CasePfx: crashRaw}))
+	case "groups":
+		testHookGroupsWritten = func() { os.Exit(3) }
+		src = bytes.NewReader(genCSV(genOpt{Seed: 2, N: 3000, CasePfx: crashRaw}))
 	case "put":
 		// Stall the blob write after its first bytes, then wait to be
 		// killed.

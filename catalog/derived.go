@@ -110,6 +110,7 @@ type versionPass struct {
 	fileStates map[blob.ID][]byte // event-level summary states to store for files that had none
 	cases      *quality.Report    // the case-level report (see quality.WithCases)
 	table      *CaseTableEntry    // nil unless the case table was asked for
+	groups     *caseGroupSet      // the version's case groups; nil unless an upload's pass
 	releases   []func()
 }
 
@@ -127,7 +128,12 @@ func (p *versionPass) release() {
 // states of files made by this commit. Memory is bounded by the sort's
 // runs, not by the version: every file is read once, in turn, and its
 // events sorted by case on disk.
-func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, qopt quality.Options, keyID string, table bool, upass *uploadPass) (*versionPass, error) {
+//
+// With an upload's pass, it also writes the new version's case groups
+// (groups.go); with prev, the parent's groups that the new version
+// extends, their events join the sort as sorted inputs instead of the
+// parent's files being read and sorted again.
+func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, qopt quality.Options, keyID string, table bool, upass *uploadPass, prev *caseGroupSet) (*versionPass, error) {
 	out := &versionPass{fileStates: map[blob.ID][]byte{}}
 	total := summary.New(summaryOptions(ds))
 	excls := make([]*exclusion, len(files))
@@ -173,8 +179,27 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 		cp.Terminal = prof.Terminal
 		qopt.Terminal = prof.Terminal
 	}
+	var gb *groupBuild
+	if upass != nil && !s.noCaseGroups {
+		var rows int64
+		for _, f := range files {
+			rows += f.Rows
+		}
+		var err error
+		gb, err = s.newGroupBuild(ctx, ds, prev, qopt, rows, cp)
+		if err != nil && prev != nil {
+			// The parent's groups cannot be read (a blob gone): one full
+			// pass makes the version's groups anew.
+			s.opt.Logger.Warn("case groups unreadable, a full per-case pass instead", "dataset", ds.Ref().String(), "err", err)
+			gb, err = s.newGroupBuild(ctx, ds, nil, qopt, rows, cp)
+		}
+		if err != nil {
+			return nil, err
+		}
+		defer gb.close()
+	}
 	for i, f := range files {
-		if f.SHA256 == fromUpload {
+		if f.SHA256 == fromUpload || gb != nil && gb.prev != nil {
 			continue
 		}
 		err := s.readFile(ctx, f.SHA256, func(e *schema.Event) error {
@@ -189,11 +214,6 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			return nil, err
 		}
 	}
-	qacc := quality.NewAccumulator(qopt)
-	obs := []cases.Observer{qacc}
-	pv := total.NewProcess()
-	total.SetProcess(pv)
-	cp.Kept = []cases.Observer{total, pv}
 	var cw *caseTableWriter
 	if table {
 		var err error
@@ -201,14 +221,39 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			return nil, err
 		}
 		defer cw.Remove()
-		obs = append(obs, cw)
 	}
-	counts, err := cp.RunSplit(obs, mine)
-	if err != nil {
-		return nil, err
+	if gb != nil {
+		// Each case's computation in its group, the version's figures the
+		// merge of every group's states.
+		if err := gb.run(cp, mine); err != nil {
+			return nil, err
+		}
+		set, rel, err := gb.finish(ctx)
+		if err != nil {
+			return nil, err
+		}
+		out.groups = set
+		out.releases = append(out.releases, rel...)
+		if out.cases, err = s.groupFigures(ctx, ds, set, total, qopt, cw); err != nil {
+			out.release()
+			return nil, err
+		}
+	} else {
+		qacc := quality.NewAccumulator(qopt)
+		obs := []cases.Observer{qacc}
+		pv := total.NewProcess()
+		total.SetProcess(pv)
+		cp.Kept = []cases.Observer{total, pv}
+		if cw != nil {
+			obs = append(obs, cw)
+		}
+		counts, err := cp.RunSplit(obs, mine)
+		if err != nil {
+			return nil, err
+		}
+		total.SetCounts(counts)
+		out.cases = qacc.Report()
 	}
-	total.SetCounts(counts)
-	out.cases = qacc.Report()
 	if cw != nil {
 		e, err := cw.Finish()
 		if err != nil {
@@ -364,7 +409,7 @@ func (s *Store) SummaryGzip(ctx context.Context, ref string, n int) ([]byte, err
 	if err != nil {
 		return nil, err
 	}
-	vp, err := s.passVersion(ctx, ds, v.Manifest.Files, nil, quality.Options{}, "", false, nil)
+	vp, err := s.passVersion(ctx, ds, v.Manifest.Files, nil, quality.Options{}, "", false, nil, nil)
 	if err != nil {
 		return nil, err
 	}

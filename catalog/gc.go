@@ -3,6 +3,7 @@ package catalog
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"time"
 
@@ -92,6 +93,12 @@ func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*
 		case grace > 0 && now.Sub(info.ModTime) < grace:
 			res.Young++
 		default:
+			// A commit may have deleted the groups it replaced since
+			// the listing (dropGroups): those are gone, not collected.
+			if _, err := s.blobs.Stat(ctx, info.ID); errors.Is(err, blob.ErrNotFound) {
+				res.Blobs--
+				continue
+			}
 			doomed = append(doomed, info)
 		}
 	}
@@ -128,14 +135,17 @@ func (s *Store) CollectGarbage(ctx context.Context, opt GCOptions, by string) (*
 // and deciding which to delete.
 var testHookGCBetween func()
 
-// referenced returns every blob a version's manifest lists (Blobs),
-// except the versions of deleted datasets.
+// referenced returns every blob a version's manifest lists (Blobs) and
+// those of the datasets' case groups, except those of deleted datasets.
 func (s *Store) referenced() (map[blob.ID]bool, error) {
 	refs := map[blob.ID]bool{}
 	err := s.db.View(func(tx *bolt.Tx) error {
 		deleted, err := deletedDatasets(tx)
 		if err != nil {
 			return fmt.Errorf("gc: %w", err)
+		}
+		if err := groupBlobs(tx, deleted, refs); err != nil {
+			return err
 		}
 		return tx.Bucket(bucketManifests).ForEach(func(k, b []byte) error {
 			var m Manifest

@@ -417,11 +417,15 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	// One per-case pass over every file of the new version: its case
 	// table, its summary's case figures and its report's, and the upload's
 	// own per-case checks on the way.
-	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true, upass)
+	prev := s.groupsToExtend(ds, parent, plan.files, entry, opt.Mode)
+	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true, upass, prev)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	defer vp.release()
+	if testHookGroupsWritten != nil {
+		testHookGroupsWritten()
+	}
 	va, err := s.caseAttributes(ctx, ds, parent, vp.table, opt.attrs, opt.Mode, keyID)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
@@ -443,6 +447,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	vsum, fileSums := vp.summary, vp.fileStates
 	received := up.ReceivedAt
 	var ver *Version
+	var oldGroups *caseGroupSet
 	err = s.db.Update(func(tx *bolt.Tx) error {
 		var cur Dataset
 		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
@@ -526,6 +531,9 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		if err := putFileReports(tx, plan.reports); err != nil {
 			return err
 		}
+		if oldGroups, err = putGroups(tx, cur.Ref().String(), v.Number, plan.files, vp.groups); err != nil {
+			return err
+		}
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
 			return err
 		}
@@ -541,6 +549,7 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref().String(), "err", err)
 		return nil, fmt.Errorf("ingest: commit: %w", err)
 	}
+	s.dropGroups(ctx, oldGroups, vp.groups)
 	s.opt.Logger.Info("version created", "dataset", ds.Ref().String(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
 		"rows", ver.Manifest.Rows, "rows_removed", plan.removed, "rejected", rep.Rows.Rejected, "score", rep.Score)
 	return &IngestResult{Upload: *up, Version: ver}, nil

@@ -43,6 +43,9 @@ type sorter struct {
 	enc     []byte
 	inter   map[string]string
 	bytes   int // string bytes held in buf
+	// inputs are runs sorted already (a version's case groups), merged
+	// with the sorter's own by Finish.
+	inputs []io.Reader
 }
 
 const (
@@ -287,10 +290,15 @@ func (s *sorter) writeRun(f *os.File, buf []schema.Event, wk *spillWork) error {
 	return nil
 }
 
+// addSorted adds r, a stream of events in the run format already in the
+// sorter's order, to what Finish merges. The caller keeps r open until
+// Finish returns; at most maxFanIn such inputs are taken.
+func (s *sorter) addSorted(r io.Reader) { s.inputs = append(s.inputs, r) }
+
 // Finish calls fn for every event in order. The event passed to fn is only
 // valid during the call.
 func (s *sorter) Finish(fn func(*schema.Event) error) error {
-	if len(s.runs) == 0 {
+	if len(s.runs) == 0 && len(s.inputs) == 0 {
 		for _, k := range s.orderOf(s.buf, &s.work) {
 			if err := fn(&s.buf[k.idx]); err != nil {
 				return err
@@ -312,7 +320,14 @@ func (s *sorter) Finish(fn func(*schema.Event) error) error {
 			return err
 		}
 	}
-	return s.mergeAhead(s.runs, fn)
+	srcs := make([]io.Reader, 0, len(s.runs)+len(s.inputs))
+	for _, f := range s.runs {
+		if _, err := f.Seek(0, io.SeekStart); err != nil {
+			return fmt.Errorf("sort: %w", err)
+		}
+		srcs = append(srcs, f)
+	}
+	return s.mergeAhead(append(srcs, s.inputs...), fn)
 }
 
 // errMergeStopped ends a merge whose consumer stopped.
@@ -321,7 +336,7 @@ var errMergeStopped = errors.New("sort: merge stopped")
 // mergeAhead is merge with the reading, decoding and ordering of runs on
 // another goroutine, handed over in batches of events, so that it overlaps
 // with fn's work on two cores. It holds three batches of mergeBatch events.
-func (s *sorter) mergeAhead(runs []*os.File, fn func(*schema.Event) error) error {
+func (s *sorter) mergeAhead(runs []io.Reader, fn func(*schema.Event) error) error {
 	const mergeBatch = 512
 	full := make(chan []schema.Event, 2)
 	free := make(chan []schema.Event, 3)
@@ -345,7 +360,7 @@ func (s *sorter) mergeAhead(runs []*os.File, fn func(*schema.Event) error) error
 				return errMergeStopped
 			}
 		}
-		err := s.merge(runs, func(e *schema.Event) error {
+		err := s.mergeReaders(runs, func(e *schema.Event) error {
 			b = append(b, *e)
 			if len(b) == cap(b) {
 				return send()
@@ -413,11 +428,20 @@ func (s *sorter) mergeOldest() error {
 
 // merge calls fn for the events of runs in order.
 func (s *sorter) merge(runs []*os.File, fn func(*schema.Event) error) error {
-	h := make(runHeap, 0, len(runs))
-	for _, f := range runs {
+	rs := make([]io.Reader, len(runs))
+	for i, f := range runs {
 		if _, err := f.Seek(0, io.SeekStart); err != nil {
 			return fmt.Errorf("sort: %w", err)
 		}
+		rs[i] = f
+	}
+	return s.mergeReaders(rs, fn)
+}
+
+// mergeReaders calls fn for the events of sorted runs in order.
+func (s *sorter) mergeReaders(runs []io.Reader, fn func(*schema.Event) error) error {
+	h := make(runHeap, 0, len(runs))
+	for _, f := range runs {
 		r := &run{r: bufio.NewReaderSize(f, runBufSize), inter: s.inter, less: s.less}
 		ok, err := r.next()
 		if err != nil {

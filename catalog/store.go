@@ -68,6 +68,9 @@ type Store struct {
 	mu      sync.Mutex
 	commits map[string]*sync.Mutex // per dataset: plan and commit of a version
 	pending map[blob.ID]int        // blobs put but not yet committed; the collector keeps them
+	// noCaseGroups makes every commit a full per-case pass (tests compare
+	// the two).
+	noCaseGroups bool
 }
 
 // Open opens (creating if needed) the bbolt file at path. It fails with
@@ -102,7 +105,7 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
 	err = db.Update(func(tx *bolt.Tx) error {
-		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketManifests, bucketReports, bucketTokens, bucketRevocations, bucketProfiles} {
+		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketCaseGroups, bucketManifests, bucketReports, bucketTokens, bucketRevocations, bucketProfiles} {
 			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
 				return err
 			}

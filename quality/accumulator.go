@@ -206,6 +206,10 @@ type Accumulator struct {
 
 	// per-case pass state: the case in hand
 	cur caseState
+	// ordCase is the case of the latest event of the per-case pass and
+	// ord that event's position in it (from 0).
+	ordCase []byte
+	ord     int64
 }
 
 // openService is a service interval open at a resource.
@@ -381,19 +385,24 @@ type siteAcc struct {
 	clock        *ClockTimes // one clock time of day for every event?
 	// stage coverage of the case records still held is added at report time
 	stages stageCounts
-	cases  CaseRaw
+	cases  caseSums
+	// the first event of the site in the per-case pass: its case and its
+	// position in the case, so that merged states list sites as one pass
+	// does (see Accumulator.Merge)
+	firstCase string
+	firstOrd  int64
 	// census and Little's law
 	hasAt     bool
 	firstAt   int64 // µs, absolute
 	lastAt    int64
 	censusMin int64
-	area      float64 // case·µs of closed stays
-	openN     int64   // cases still in the system at their last event
-	openEntry float64 // sum of their entry instants (µs)
+	area      u128  // case·µs of closed stays
+	openN     int64 // cases still in the system at their last event
+	openEntry u128  // Σ of their entry instants, each shifted by instantShift (µs)
 	arrivals  int64
-	entries   int64   // stays begun
-	exits     int64   // stays ended by an exit
-	stayed    float64 // µs of stays, an open one to its case's last event
+	entries   int64 // stays begun
+	exits     int64 // stays ended by an exit
+	stayed    u128  // µs of stays, an open one to its case's last event
 	// lag to the upload
 	lag    [lagBuckets]int64
 	lagMax int64 // seconds

@@ -161,7 +161,16 @@ func (a *Accumulator) Event(e *schema.Event) {
 	if a.cur.id != "" && ev.CaseID != a.cur.id {
 		a.endCase()
 	}
+	if string(a.ordCase) != ev.CaseID {
+		a.ordCase, a.ord = append(a.ordCase[:0], ev.CaseID...), 0
+	} else {
+		a.ord++
+	}
+	n := len(a.sites)
 	s := a.site(ev.Site)
+	if len(a.sites) > n {
+		s.firstCase, s.firstOrd = string(a.ordCase), a.ord
+	}
 	at := ev.OccurredAt.UnixMicro()
 	a.census(s, at) // the span, when the time pass did not run
 	var acc, con, uni bool
@@ -207,13 +216,10 @@ func (a *Accumulator) Case(r *cases.Record) {
 	if r.Has(schema.Departure) {
 		c.departure++
 	}
-	d := float64(r.Duration()) / 1e6
-	s.cases.merge(&CaseRaw{N: 1, DurationSeconds: d, MinSeconds: d, MaxSeconds: d, Events: r.Events, MinEvents: r.Events, MaxEvents: r.Events})
+	s.cases.add(r.Duration(), r.Events)
 	if uint64(r.Duration()) > a.maxCase {
 		s.n[cCaseTooLong]++
-		if len(a.samples[cCaseTooLong]) < a.opt.MaxSamples {
-			a.samples[cCaseTooLong] = append(a.samples[cCaseTooLong], Sample{CaseID: strings.Clone(r.CaseID), Site: s.name})
-		}
+		a.keepSample(cCaseTooLong, Sample{CaseID: r.CaseID, Site: s.name})
 	}
 }
 
@@ -235,8 +241,8 @@ func (a *Accumulator) endCase() {
 			// Never left: in the census to the site's last event (added at
 			// report time); its stay ends where it was last seen.
 			s.openN++
-			s.openEntry += float64(st.entry)
-			s.stayed += float64(st.rec - st.entry)
+			s.openEntry.add(uint64(st.entry + instantShift))
+			s.stayed.add(uint64(st.rec - st.entry))
 		}
 	}
 	*st = caseState{seenAt: st.seenAt[:0]}
@@ -251,8 +257,8 @@ func (a *Accumulator) enter(s *siteAcc, at int64) {
 
 // leave takes the case in hand out of the census of its site at at.
 func (a *Accumulator) leave(s *siteAcc, at int64) {
-	s.area += float64(at - a.cur.entry)
-	s.stayed += float64(at - a.cur.entry)
+	s.area.add(uint64(at - a.cur.entry))
+	s.stayed.add(uint64(at - a.cur.entry))
 	s.exits++
 	a.cur.flags &^= csInSystem
 }
@@ -292,9 +298,9 @@ func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64)
 				// source lines and those read back from stored files none:
 				// such a pair is certainly in two files. Samples only; the
 				// count is WithCases'.
-				if (x.line > 0) != (e.Line > 0) && len(a.samples[cDuplicateAcrossFiles]) < a.opt.MaxSamples {
+				if (x.line > 0) != (e.Line > 0) {
 					at := e.OccurredAt.UTC()
-					a.samples[cDuplicateAcrossFiles] = append(a.samples[cDuplicateAcrossFiles], Sample{CaseID: strings.Clone(e.CaseID), Site: s.name, At: &at})
+					a.keepSample(cDuplicateAcrossFiles, Sample{CaseID: e.CaseID, Site: s.name, At: &at})
 				}
 			}
 			st.typesAt |= bit

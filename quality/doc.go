@@ -16,6 +16,13 @@
 // is versioned by [ReportVersion] and documented in SCORING.md beside
 // this file; [MergeReports] combines reports from their raw counts.
 //
+// An accumulator used as a case observer only (the per-case pass) holds
+// case-level state of exact integers, which [Accumulator.MarshalBinary]
+// encodes (a versioned format, "FCQS"), [Accumulator.UnmarshalBinary]
+// decodes and [Accumulator.Merge] merges: the accumulators of disjoint
+// sets of cases merge into the report one pass over their union gives,
+// byte for byte, in any grouping and order (state.go says how).
+//
 // Samples name source lines, case pseudonyms, sites and times, never
 // field values.
 package quality

@@ -4,6 +4,7 @@ import (
 	"cmp"
 	"iter"
 	"math"
+	"math/big"
 	"slices"
 	"time"
 
@@ -404,7 +405,7 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 		NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{},
 		Stages:   StageRaw{Cases: stages.cases, Arrival: stages.arrival, Start: stages.start, Complete: stages.complete, Departure: stages.departure},
 		FileRows: s.fileRows, FileBackSteps: s.fileJumps,
-		Cases: s.cases,
+		Cases: s.cases.raw(),
 	}
 	for c := range numCodes {
 		if n := s.n[c]; n > 0 {
@@ -438,15 +439,18 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 		r.First, r.Last = timePtr(time.UnixMicro(s.firstAt)), timePtr(time.UnixMicro(s.lastAt))
 		// Cases still in the system stay in the census to the site's last
 		// event.
-		area := s.area + float64(s.openN)*float64(s.lastAt) - s.openEntry
-		stayed := s.stayed
+		// The sums are exact integers (µs); each is rounded once, here.
+		area := s.area.big()
+		area.Add(area, new(big.Int).Mul(big.NewInt(s.openN), big.NewInt(s.lastAt+instantShift)))
+		area.Sub(area, s.openEntry.big())
+		stayed := s.stayed.big()
 		if st := &a.cur; st.id != "" && st.flags&csInSystem != 0 && st.site == s.idx {
-			area += float64(s.lastAt - st.entry)
-			stayed += float64(st.rec - st.entry)
+			area.Add(area, big.NewInt(s.lastAt-st.entry))
+			stayed.Add(stayed, big.NewInt(st.rec-st.entry))
 		}
 		r.Census = CensusRaw{
-			SpanSeconds: float64(s.lastAt-s.firstAt) / 1e6, AreaCaseSeconds: area / 1e6,
-			Entries: s.entries, Exits: s.exits, StayedSeconds: stayed / 1e6, Min: s.censusMin,
+			SpanSeconds: float64(s.lastAt-s.firstAt) / 1e6, AreaCaseSeconds: microsToSeconds(area),
+			Entries: s.entries, Exits: s.exits, StayedSeconds: microsToSeconds(stayed), Min: s.censusMin,
 		}
 	}
 	r.Lag = LagRaw{N: s.lagN, MaxSeconds: s.lagMax, Buckets: map[int]int64{}}

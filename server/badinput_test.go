@@ -325,6 +325,11 @@ func checkNoRawIDs(t *testing.T, e *testEnv, raws ...string) {
 		if err != nil {
 			return err
 		}
+		if !bytes.HasPrefix(data, []byte("PAR1")) {
+			// A case group's derived blob (pseudonymized events sorted
+			// by case, keys, states): grepped for raw ids above.
+			return nil
+		}
 		parquets++
 		return catalog.ReadSnapshot(bytes.NewReader(data), int64(len(data)), func(ev *schema.Event) error {
 			for _, v := range []string{ev.CaseID, ev.SubjectID, ev.ResourceID} {

@@ -117,7 +117,7 @@ func TestCurationOverHTTP(t *testing.T) {
 	r = e.postJSON("/api/v1/admin/gc", e.admin, map[string]any{"grace_seconds": 0})
 	e.mustStatus(r, http.StatusOK, "gc")
 	var gc catalog.GCResult
-	if err := json.Unmarshal(r.Body, &gc); err != nil || len(gc.Deleted) != 0 || gc.Referenced != gc.Blobs || gc.Blobs != 6 { // 3 event files and 3 case tables
+	if err := json.Unmarshal(r.Body, &gc); err != nil || len(gc.Deleted) != 0 || gc.Referenced != gc.Blobs || gc.Blobs != 13 { // 3 event files, 3 case tables, the 7 blobs of the latest version's case group
 		t.Fatalf("gc: %+v %v", gc, err)
 	}
 	e.mustStatus(e.get(ds+"/versions/3/files/"+func() string {

@@ -99,7 +99,7 @@ type Accumulator struct {
 	caseAt   int64 // the previous event of prevCase
 	occ      map[int64]*occBucket
 	census   census
-	process  *ProcessObserver // process views, when a per-case pass computes them (not in the state)
+	process  *ProcessObserver // process views, when a per-case pass computes them (see Process)
 
 	// stream state of the current file
 	prevAt   int64
@@ -121,9 +121,9 @@ type Counts struct {
 	LaterThanUpload, OutsideWindow, ExactDuplicates uint64
 }
 
-// SetProcess makes p's views the summary's `process` member; p must
-// observe the same per-case pass as a. Process views are not part of the
-// state: they are computed whole in each per-case pass.
+// SetProcess makes p a's process observer (see [Accumulator.Process]):
+// its views are the summary's `process` member and part of a's state; p
+// must observe the same per-case pass as a, and be made by a.NewProcess.
 func (a *Accumulator) SetProcess(p *ProcessObserver) { a.process = p }
 
 // SetCounts makes c the summary's distinct counts, marked exact.
@@ -518,7 +518,8 @@ func floorDiv(a, b int64) int64 {
 }
 
 // ObserveAll runs both parts over events held in memory, in any order:
-// Observe for each, then the per-case computation in case order. It suits
+// Observe for each, then the per-case computation in case order, with
+// a's process observer ([Accumulator.Process]) beside a. It suits
 // small inputs and tests; catalog streams the per-case pass through a
 // sort on disk instead.
 func (a *Accumulator) ObserveAll(evs []schema.Event) {
@@ -530,8 +531,7 @@ func (a *Accumulator) ObserveAll(evs []schema.Event) {
 		idx[i] = i
 	}
 	slices.SortStableFunc(idx, func(i, j int) int { return cases.Less(&evs[i], &evs[j]) })
-	a.process = a.NewProcess()
-	b := cases.NewBuilder(a, a.process)
+	b := cases.NewBuilder(a, a.Process())
 	b.Terminal = a.opt.Terminal
 	for _, i := range idx {
 		b.Add(&evs[i])

@@ -10,6 +10,17 @@
 // merges exactly (integer counts, exact value maps, log-bucketed sketches,
 // 128-bit sums), so the result does not depend on the order of merges.
 //
+// The case-level part merges too: the accumulators of disjoint sets of
+// cases, each fed by its own per-case pass with its process observer
+// beside it ([Accumulator.Process]), merge into the summary of one pass
+// over their union, byte for byte, process views included (their caps
+// keep the keys of lowest rank, so the choice is order-free). To keep a
+// group of cases' state: make an accumulator with the version's options,
+// pass it and a.Process() to the case pass as observers, and store
+// MarshalBinary's bytes (format 5); to combine, Merge the decoded group
+// states and the files' event-level states into one accumulator, then
+// SetCounts. SUMMARY.md describes the formats and the limits.
+//
 // The pure statistics behind it are exported so they can be checked
 // directly: [Quantile7], [KaplanMeier], [GreenwoodLogCI], [LognormalFit],
 // [KSDistance] and [PoissonExactCI]. SUMMARY.md documents every field of

@@ -11,8 +11,14 @@ import (
 // stateMagic starts every serialized state; the last byte is the format
 // version. Format 4 keeps the observed stretches as ranges of days with
 // the instants of their first and last event (see ObservationGap) and the
-// census of Little's law.
-const stateMagic = "FCSUM\x04"
+// census of Little's law. Format 5 is format 4 followed by the process
+// views of the accumulator's bound observer ([Accumulator.Process]); a
+// state without them is still written as format 4, so the states of
+// files keep their bytes, and both are read.
+const (
+	stateMagic        = "FCSUM\x04"
+	stateMagicProcess = "FCSUM\x05"
+)
 
 // oldStateMagics start states of earlier formats: written before cases
 // were whole (their case figures were cut per file; 1), before the
@@ -86,7 +92,11 @@ func (e *enc) dist(d *dist) {
 // (see [Accumulator]). It never fails.
 func (a *Accumulator) MarshalBinary() ([]byte, error) {
 	a.finish()
-	e := &enc{b: append(make([]byte, 0, 4096), stateMagic...)}
+	magic := stateMagic
+	if a.process != nil {
+		magic = stateMagicProcess
+	}
+	e := &enc{b: append(make([]byte, 0, 4096), magic...)}
 	e.str(a.loc.String())
 	e.uv(uint64(len(a.thr)))
 	for _, t := range a.thr {
@@ -192,6 +202,9 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 		e.uv(b.dep)
 		e.iv(b.arrRest)
 		e.iv(b.depRest)
+	}
+	if a.process != nil {
+		e.process(a.process)
 	}
 	return e.b, nil
 }
@@ -315,9 +328,10 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 			return fmt.Errorf("summary: %w", ErrOldState)
 		}
 	}
-	if len(b) < len(stateMagic) || string(b[:len(stateMagic)]) != stateMagic {
+	if len(b) < len(stateMagic) || string(b[:len(stateMagic)]) != stateMagic && string(b[:len(stateMagic)]) != stateMagicProcess {
 		return fmt.Errorf("summary: %w", ErrCorrupt)
 	}
+	withProcess := string(b[:len(stateMagic)]) == stateMagicProcess
 	d := &dec{b: b[len(stateMagic):]}
 	var opt Options
 	locName := d.str()
@@ -396,6 +410,9 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 	for range d.count(5) {
 		k += d.iv()
 		x.occ[k] = &occBucket{arr: d.uv(), dep: d.uv(), arrRest: d.iv(), depRest: d.iv()}
+	}
+	if withProcess {
+		x.process = d.process(x)
 	}
 	if d.err != nil || len(d.b) != 0 {
 		return fmt.Errorf("summary: %w", ErrCorrupt)

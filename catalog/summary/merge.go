@@ -95,6 +95,9 @@ func (a *Accumulator) Merge(o *Accumulator) error {
 		x.arrRest += b.arrRest
 		x.depRest += b.depRest
 	}
+	if o.process != nil {
+		a.Process().merge(o.process)
+	}
 	return nil
 }
 

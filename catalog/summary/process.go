@@ -10,9 +10,12 @@ import (
 	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
-// Caps of the process views: beyond them further keys are counted
-// together (OtherFollows, OtherVariants, OtherWorkload, OtherHandovers),
-// so memory is bounded whatever the version holds.
+// Caps of the process views: beyond them keys are counted together
+// (OtherFollows, OtherVariants, OtherWorkload, OtherHandovers), so memory
+// is bounded whatever the version holds. The keys told apart are those of
+// lowest rank (a fixed hash of the key, then the key), not the first met:
+// so which keys they are does not depend on the order cases were
+// observed, and merged observers equal one pass (see ProcessObserver).
 const (
 	MaxFollows    = 10000  // directly-follows pairs told apart
 	MaxVariants   = 10000  // trace variants told apart
@@ -82,7 +85,23 @@ type Handover struct {
 	Count uint64 `json:"count"`
 }
 
-// ProcessObserver computes [Process] in the per-case pass.
+// The caps in force; tests lower them.
+var (
+	maxFollows   = MaxFollows
+	maxVariants  = MaxVariants
+	maxWorkload  = MaxWorkload
+	maxHandovers = MaxHandovers
+)
+
+// ProcessObserver computes [Process] in the per-case pass. Its state is
+// counts by key (the directly-follows pairs with their gaps, the variants,
+// the (resource, day) cells, the handovers) and the counts beyond the
+// caps, all of which add: the observers of disjoint sets of cases merge
+// into what one pass over their union gives, exactly, whichever caps are
+// reached (the keys kept are the lowest of rank in the union, with all
+// their counts, and the rest is "other"). An observer bound to an
+// accumulator ([Accumulator.Process]) is part of its state: encoded,
+// decoded and merged with it.
 type ProcessObserver struct {
 	a *Accumulator // for the zone and the exact-values cap
 
@@ -102,6 +121,9 @@ type ProcessObserver struct {
 	lastActAt int64
 	hasAct    bool
 	lastRes   string
+	// The highest rank kept by the last trim of each map, once trimmed:
+	// a new key of higher rank is never told apart.
+	thrF, thrV, thrW, thrH *keyRank
 }
 
 type workKey struct {
@@ -122,10 +144,14 @@ func (p *ProcessObserver) Event(e *schema.Event) {
 		if p.hasAct {
 			k := [2]string{p.lastAct, e.Activity}
 			d := p.follows[k]
-			if d == nil && len(p.follows) < MaxFollows {
+			if d == nil && !above(p.thrF, pairRank(k)) {
 				k = [2]string{strings.Clone(k[0]), strings.Clone(k[1])}
 				d = newDist()
 				p.follows[k] = d
+				if len(p.follows) > 2*maxFollows {
+					p.trimFollows()
+				}
+				d = p.follows[k]
 			}
 			if d == nil {
 				p.otherF++
@@ -145,21 +171,27 @@ func (p *ProcessObserver) Event(e *schema.Event) {
 	if e.ResourceID != "" {
 		_, day := p.a.local(at)
 		k := workKey{e.ResourceID, day}
-		if _, ok := p.work[k]; ok || len(p.work) < MaxWorkload {
+		if _, ok := p.work[k]; ok || !above(p.thrW, workRank(k)) {
 			if !ok {
 				k.res = strings.Clone(k.res)
 			}
 			p.work[k]++
+			if len(p.work) > 2*maxWorkload {
+				p.otherW += trim(p.work, maxWorkload, workRank, &p.thrW)
+			}
 		} else {
 			p.otherW++
 		}
 		if p.lastRes != "" && p.lastRes != e.ResourceID {
 			h := [2]string{p.lastRes, e.ResourceID}
-			if _, ok := p.hand[h]; ok || len(p.hand) < MaxHandovers {
+			if _, ok := p.hand[h]; ok || !above(p.thrH, pairRank(h)) {
 				if !ok {
 					h[1] = strings.Clone(h[1])
 				}
 				p.hand[h]++
+				if len(p.hand) > 2*maxHandovers {
+					p.otherH += trim(p.hand, maxHandovers, pairRank, &p.thrH)
+				}
 			} else {
 				p.otherH++
 			}
@@ -180,8 +212,11 @@ func (p *ProcessObserver) Service(*cases.Service) {}
 func (p *ProcessObserver) Case(*cases.Record) {
 	p.cases++
 	k := strings.Join(p.seq, variantJoiner)
-	if _, ok := p.variants[k]; ok || len(p.variants) < MaxVariants {
+	if _, ok := p.variants[k]; ok || !above(p.thrV, stringRank(k)) {
 		p.variants[k]++
+		if len(p.variants) > 2*maxVariants {
+			p.otherV += trim(p.variants, maxVariants, stringRank, &p.thrV)
+		}
 	} else {
 		p.otherV++
 	}
@@ -192,6 +227,7 @@ func (p *ProcessObserver) Case(*cases.Record) {
 
 // Result returns the process views.
 func (p *ProcessObserver) Result() *Process {
+	p.normalize()
 	out := &Process{DirectlyFollows: []Follows{}, Variants: []Variant{}, Workload: []Workload{}, Handovers: []Handover{},
 		OtherFollows: p.otherF, OtherVariants: p.otherV, OtherWorkload: p.otherW, OtherHandovers: p.otherH,
 		DistinctVariant: uint64(len(p.variants))}

@@ -1,0 +1,527 @@
+package quality
+
+import (
+	"bytes"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"hash/fnv"
+	"io"
+	"math"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"slices"
+	"testing"
+	"time"
+
+	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
+)
+
+// readLog reads a log of testdata/ through its profile, as the catalog
+// does, with its source lines.
+func readLog(t testing.TB, dir, file string) (*schema.Profile, []schema.Event) {
+	t.Helper()
+	pb, err := os.ReadFile(filepath.Join(dir, "profile.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	prof, err := schema.ParseProfile(pb)
+	if err != nil {
+		t.Fatal(err)
+	}
+	f, err := os.Open(filepath.Join(dir, file))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	rd, err := schema.NewReader(f, prof, schema.ReaderOptions{Name: file})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var evs []schema.Event
+	for {
+		var e schema.Event
+		rej, err := rd.Next(&e)
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+		if rej != nil {
+			continue
+		}
+		e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
+		evs = append(evs, e)
+	}
+	return prof, evs
+}
+
+// casePassInput returns evs as the per-case pass takes them: each event's
+// flags from a time pass packed into its line, then grouped by case in
+// the pass's order (cases.Less).
+func casePassInput(evs []schema.Event, opt Options) []schema.Event {
+	evs = slices.Clone(evs)
+	slices.SortStableFunc(evs, func(a, b schema.Event) int { return a.OccurredAt.Compare(b.OccurredAt) })
+	tp := NewAccumulator(opt)
+	for i := range evs {
+		fl := tp.Observe(&evs[i])
+		evs[i].Line = PackLine(evs[i].Line, fl)
+	}
+	slices.SortStableFunc(evs, func(a, b schema.Event) int { return cases.Less(&a, &b) })
+	return evs
+}
+
+// observeCases runs the per-case pass over evs (in pass order) with one
+// accumulator as its observer, as catalog's passVersion does.
+func observeCases(opt Options, evs []schema.Event) *Accumulator {
+	a := NewAccumulator(opt)
+	b := cases.NewBuilder(a)
+	b.Terminal = opt.Terminal
+	for i := range evs {
+		e := evs[i]
+		b.Add(&e)
+	}
+	b.Flush()
+	return a
+}
+
+func reportJSON(t testing.TB, a *Accumulator) []byte {
+	t.Helper()
+	b, err := json.Marshal(a.Report())
+	if err != nil {
+		t.Fatal(err)
+	}
+	return b
+}
+
+// split cuts the events (in pass order) into groups by the group each
+// case is given; the cases of a group keep their pass order.
+func split(evs []schema.Event, group func(caseID string) int, n int) [][]schema.Event {
+	out := make([][]schema.Event, n)
+	for _, e := range evs {
+		g := group(e.CaseID)
+		out[g] = append(out[g], e)
+	}
+	return out
+}
+
+// groupings are the ways cases are cut into k disjoint groups: by a hash
+// of the case key, by contiguous ranges of keys, and at random.
+func groupings(evs []schema.Event, k int, seed uint64) map[string]func(string) int {
+	var ids []string
+	for _, e := range evs {
+		if len(ids) == 0 || ids[len(ids)-1] != e.CaseID {
+			ids = append(ids, e.CaseID)
+		}
+	}
+	rank := map[string]int{}
+	for i, id := range ids {
+		rank[id] = i
+	}
+	rng := rand.New(rand.NewPCG(seed, uint64(k)))
+	random := map[string]int{}
+	for _, id := range ids {
+		random[id] = rng.IntN(k)
+	}
+	return map[string]func(string) int{
+		"hash": func(id string) int {
+			h := fnv.New64a()
+			h.Write([]byte(id))
+			return int(h.Sum64() % uint64(k))
+		},
+		"ranges": func(id string) int { return rank[id] * k / len(ids) },
+		"random": func(id string) int { return random[id] },
+	}
+}
+
+// roundTrip encodes a's state and decodes it into a new accumulator.
+func roundTrip(t testing.TB, a *Accumulator, opt Options) *Accumulator {
+	t.Helper()
+	b, err := a.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	d := NewAccumulator(opt)
+	if err := d.UnmarshalBinary(b); err != nil {
+		t.Fatal(err)
+	}
+	return d
+}
+
+// mergeOrders merges the group states in several orders and groupings,
+// each part encoded and decoded first, and returns each result by name.
+func mergeOrders(t testing.TB, parts []*Accumulator, opt Options, seed uint64) map[string]*Accumulator {
+	t.Helper()
+	decoded := make([]*Accumulator, len(parts))
+	for i, p := range parts {
+		decoded[i] = roundTrip(t, p, opt)
+	}
+	fold := func(order []int) *Accumulator {
+		acc := NewAccumulator(opt)
+		for _, i := range order {
+			if err := acc.Merge(roundTrip(t, decoded[i], opt)); err != nil {
+				t.Fatal(err)
+			}
+		}
+		return acc
+	}
+	var tree func(ps []*Accumulator) *Accumulator
+	tree = func(ps []*Accumulator) *Accumulator {
+		if len(ps) == 1 {
+			return roundTrip(t, ps[0], opt)
+		}
+		l, r := tree(ps[:len(ps)/2]), tree(ps[len(ps)/2:])
+		if err := r.Merge(l); err != nil { // right into left's complement: another order
+			t.Fatal(err)
+		}
+		return roundTrip(t, r, opt)
+	}
+	n := len(parts)
+	fwd, rev := make([]int, n), make([]int, n)
+	for i := range n {
+		fwd[i], rev[i] = i, n-1-i
+	}
+	shuf := slices.Clone(fwd)
+	rand.New(rand.NewPCG(seed, 7)).Shuffle(n, func(i, j int) { shuf[i], shuf[j] = shuf[j], shuf[i] })
+	// Into the first part itself, not into an empty accumulator.
+	first := roundTrip(t, decoded[0], opt)
+	for _, p := range decoded[1:] {
+		if err := first.Merge(p); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return map[string]*Accumulator{"forward": fold(fwd), "reverse": fold(rev), "shuffled": fold(shuf), "tree": tree(decoded), "into first": first}
+}
+
+// checkMerges asserts that, for every grouping of evs' cases into 2, 3
+// and 7 groups and every merge order, the merged report and state equal
+// those of one pass, byte for byte.
+func checkMerges(t *testing.T, opt Options, evs []schema.Event) *Accumulator {
+	t.Helper()
+	one := observeCases(opt, evs)
+	want := reportJSON(t, one)
+	wantState, err := one.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(reportJSON(t, roundTrip(t, one, opt)), want) {
+		t.Fatal("report of the decoded state differs from the one-pass report")
+	}
+	for _, k := range []int{2, 3, 7} {
+		for name, g := range groupings(evs, k, uint64(k)) {
+			groups := split(evs, g, k)
+			parts := make([]*Accumulator, k)
+			for i, ge := range groups {
+				parts[i] = observeCases(opt, ge)
+			}
+			for order, m := range mergeOrders(t, parts, opt, uint64(k)) {
+				if got := reportJSON(t, m); !bytes.Equal(got, want) {
+					t.Fatalf("%d groups by %s, merged %s: report differs from one pass\n got %s\nwant %s", k, name, order, firstDiff(got, want), firstDiff(want, got))
+				}
+				st, err := m.MarshalBinary()
+				if err != nil {
+					t.Fatal(err)
+				}
+				if !bytes.Equal(st, wantState) {
+					t.Errorf("%d groups by %s, merged %s: state bytes differ from one pass", k, name, order)
+				}
+			}
+		}
+	}
+	return one
+}
+
+// firstDiff shows a's bytes around where a and b first differ.
+func firstDiff(a, b []byte) string {
+	i := 0
+	for i < len(a) && i < len(b) && a[i] == b[i] {
+		i++
+	}
+	return string(a[max(0, i-120):min(len(a), i+120)])
+}
+
+// TestMergeSepsis: the sepsis log (testdata/sepsis, published figures in
+// its README) through per-group case passes, merged, gives the one-pass
+// report byte for byte, and the published figures: 1050 cases, mean case
+// duration 2459733.94 s.
+func TestMergeSepsis(t *testing.T) {
+	prof, evs := readLog(t, sepsisDir, "sepsis-cases.csv.gz")
+	opt := Options{Zone: prof.Location(), Terminal: prof.Terminal}
+	in := casePassInput(evs, opt)
+	one := checkMerges(t, opt, in)
+	r := one.Report()
+	// README: 1050 cases, mean case duration 2459733.94 s.
+	if r.Cases.Count != 1050 || math.Abs(r.Cases.MeanDurationSeconds-2459733.94) > 0.005 {
+		t.Errorf("cases %+v; published 1050, mean 2459733.94 s", r.Cases)
+	}
+	// The census of a log where no case leaves: every stay is open to
+	// the site's last event; recomputed here from the events.
+	first, last := map[string]int64{}, map[string]int64{}
+	var siteLast int64
+	for _, e := range evs {
+		at := e.OccurredAt.UnixMicro()
+		if f, ok := first[e.CaseID]; !ok || at < f {
+			first[e.CaseID] = at
+		}
+		last[e.CaseID] = max(last[e.CaseID], at)
+		siteLast = max(siteLast, at)
+	}
+	var area, stayed int64
+	for c, f := range first {
+		area += siteLast - f
+		stayed += last[c] - f
+	}
+	c := r.Raw.Sites[0].Census
+	if c.AreaCaseSeconds != float64(area)/1e6 || c.StayedSeconds != float64(stayed)/1e6 || c.Entries != 1050 || c.Exits != 0 {
+		t.Errorf("census %+v; standard library: area %d µs, stays %d µs, 1050 entries", c, area, stayed)
+	}
+}
+
+// TestMergePatients: the patients log (testdata/patients, figures in its
+// README): 500 cases, mean case duration 576832.972 s, maximum
+// 1996424 s, merged as in one pass.
+func TestMergePatients(t *testing.T) {
+	prof, evs := readLog(t, "../testdata/patients", "patients.csv.gz")
+	opt := Options{Zone: prof.Location(), Terminal: prof.Terminal, MaxSamples: 3}
+	in := casePassInput(evs, opt)
+	r := checkMerges(t, opt, in).Report()
+	// README: 500 cases, mean 576832.972 s, max 1996424.0 s.
+	if r.Cases.Count != 500 || math.Abs(r.Cases.MeanDurationSeconds-576832.972) > 5e-4 || r.Cases.MaxDurationSeconds != 1996424 {
+		t.Errorf("cases %+v; README 500, mean 576832.972 s, max 1996424 s", r.Cases)
+	}
+}
+
+// genLog makes a log of n cases at several sites, with waits, services,
+// abandons, transfers, departures, open stays, idles of 40 and 400 days,
+// events at one instant, copies and events without a source line (as
+// read back from a stored file).
+func genLog(seed uint64, n int) []schema.Event {
+	rng := rand.New(rand.NewPCG(seed, 1))
+	sites := []string{"north", "south", "east", "west"}
+	queues := []string{"triage", "desk", ""}
+	acts := []string{"assess", "treat", "scan"}
+	t0 := time.Date(2025, 3, 1, 8, 0, 0, 0, time.UTC)
+	var evs []schema.Event
+	for c := range n {
+		id := fmt.Sprintf("k%08x", rng.Uint32())
+		if c%17 == 0 {
+			id = fmt.Sprintf("k%08x", c) // some keys close together
+		}
+		site := sites[rng.IntN(len(sites))]
+		at := t0.Add(time.Duration(rng.IntN(90*24*3600)) * time.Second)
+		add := func(tp schema.EventType, act, q string) {
+			e := schema.Event{Site: site, CaseID: id, Type: tp, Activity: act, Queue: q, OccurredAt: at}
+			if rng.IntN(3) == 0 {
+				e.ResourceID = fmt.Sprintf("r%d", rng.IntN(5))
+			}
+			evs = append(evs, e)
+			if rng.IntN(25) == 0 {
+				evs = append(evs, e) // a copy
+			}
+		}
+		step := func() {
+			switch r := rng.IntN(40); {
+			case r == 0:
+				at = at.Add(40 * 24 * time.Hour)
+			case r == 1:
+				at = at.Add(400 * 24 * time.Hour)
+			case r < 8:
+				// the same instant
+			default:
+				at = at.Add(time.Duration(1+rng.IntN(7200)) * time.Second)
+			}
+		}
+		if rng.IntN(5) > 0 {
+			add(schema.Arrival, "", "")
+			step()
+		}
+		for s := range 1 + rng.IntN(4) {
+			q, act := queues[rng.IntN(len(queues))], acts[rng.IntN(len(acts))]
+			if rng.IntN(4) > 0 {
+				add(schema.Enqueue, act, q)
+				step()
+			}
+			if rng.IntN(12) == 0 {
+				add(schema.Abandon, act, q)
+				step()
+				break
+			}
+			if rng.IntN(10) > 0 {
+				add(schema.Start, act, q)
+				step()
+			}
+			if rng.IntN(10) > 0 {
+				add(schema.Complete, act, q)
+				step()
+			}
+			if s == 1 && rng.IntN(6) == 0 {
+				add(schema.Transfer, "", "")
+				step()
+				site = sites[rng.IntN(len(sites))]
+				add(schema.Arrival, "", "")
+				step()
+			}
+		}
+		if rng.IntN(10) < 7 {
+			add(schema.Departure, "", "")
+		}
+		if rng.IntN(20) == 0 {
+			add(schema.Complete, acts[0], "") // after departure
+		}
+	}
+	// File order: shuffled; a third read back from stored files (no line).
+	rng.Shuffle(len(evs), func(i, j int) { evs[i], evs[j] = evs[j], evs[i] })
+	for i := range evs {
+		if rng.IntN(3) > 0 {
+			evs[i].Line = int64(i + 2)
+		}
+	}
+	return evs
+}
+
+// TestMergeGenerated: generated logs of several shapes, cut into 2, 3 and
+// 7 groups (and, for a small one, one case per group), merge to the
+// one-pass report and state byte for byte.
+func TestMergeGenerated(t *testing.T) {
+	for _, tc := range []struct {
+		seed uint64
+		n    int
+		opt  Options
+	}{
+		{1, 400, Options{MaxCase: 10 * 24 * time.Hour, MaxSamples: 2}},
+		{2, 1500, Options{MaxService: map[string]time.Duration{"": time.Hour, "scan": 10 * time.Minute}}},
+		{3, 300, Options{Terminal: []schema.EventType{schema.Transfer}, MaxSamples: 7}},
+	} {
+		t.Run(fmt.Sprint(tc.seed), func(t *testing.T) {
+			in := casePassInput(genLog(tc.seed, tc.n), tc.opt)
+			one := checkMerges(t, tc.opt, in)
+			r := one.Report()
+			if len(r.Raw.Sites) != 4 || len(r.Raw.Waits) == 0 || r.Cases.Count != int64(tc.n) {
+				t.Fatalf("generated log too plain: %d sites, %d waits, %d cases", len(r.Raw.Sites), len(r.Raw.Waits), r.Cases.Count)
+			}
+			var exits, open int64
+			for _, s := range r.Raw.Sites {
+				exits += s.Census.Exits
+				open += s.Census.Entries - s.Census.Exits
+			}
+			if exits == 0 || open == 0 || len(r.Raw.Samples) < 5 {
+				t.Errorf("generated log too plain: %d exits, %d open stays, samples of %d findings", exits, open, len(r.Raw.Samples))
+			}
+		})
+	}
+	// One case per group.
+	opt := Options{MaxSamples: 2}
+	in := casePassInput(genLog(9, 40), opt)
+	want := reportJSON(t, observeCases(opt, in))
+	var parts []*Accumulator
+	for _, g := range split(in, func(string) int { return 0 }, 1)[0:1] {
+		for i := 0; i < len(g); {
+			j := i
+			for j < len(g) && g[j].CaseID == g[i].CaseID {
+				j++
+			}
+			parts = append(parts, observeCases(opt, g[i:j]))
+			i = j
+		}
+	}
+	if len(parts) != 40 {
+		t.Fatalf("%d single-case parts, want 40", len(parts))
+	}
+	for order, m := range mergeOrders(t, parts, opt, 40) {
+		if got := reportJSON(t, m); !bytes.Equal(got, want) {
+			t.Errorf("one case per group, merged %s: report differs\n got %s\nwant %s", order, firstDiff(got, want), firstDiff(want, got))
+		}
+	}
+}
+
+// TestStateErrors: a truncated, corrupt or foreign state and a merge of
+// accumulators that are not case-level give named errors and leave the
+// receiver unchanged.
+func TestStateErrors(t *testing.T) {
+	opt := Options{MaxSamples: 3}
+	a := observeCases(opt, casePassInput(genLog(4, 50), opt))
+	st, err := a.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := reportJSON(t, a)
+	for name, b := range map[string][]byte{
+		"empty":      nil,
+		"magic":      append([]byte("FCQX"), st[4:]...),
+		"version":    append(append([]byte("FCQS"), 9), st[5:]...),
+		"truncated":  st[:len(st)/2],
+		"one short":  st[:len(st)-1],
+		"trailing":   append(slices.Clone(st), 0),
+		"huge count": append(slices.Clone(st[:5+len(a.fingerprint())]), 0xff, 0xff, 0xff, 0xff, 0x0f),
+	} {
+		d := roundTrip(t, a, opt)
+		err := d.UnmarshalBinary(b)
+		if !errors.Is(err, ErrState) {
+			t.Errorf("%s: error %v, want ErrState", name, err)
+		}
+		if got := reportJSON(t, d); !bytes.Equal(got, want) {
+			t.Errorf("%s: a failed decode changed the accumulator", name)
+		}
+	}
+	// Every truncation fails with ErrState (none panics or passes).
+	for n := range len(st) {
+		if err := NewAccumulator(opt).UnmarshalBinary(st[:n]); !errors.Is(err, ErrState) {
+			t.Fatalf("state cut to %d of %d bytes: %v", n, len(st), err)
+		}
+	}
+	// Other case-level options.
+	if err := NewAccumulator(Options{MaxSamples: 4}).UnmarshalBinary(st); !errors.Is(err, ErrStateOptions) {
+		t.Errorf("decode with other options: %v, want ErrStateOptions", err)
+	}
+	if err := NewAccumulator(Options{MaxSamples: 4}).Merge(a); !errors.Is(err, ErrStateOptions) {
+		t.Errorf("merge with other options: %v, want ErrStateOptions", err)
+	}
+	// Options the case pass does not use may differ (a later night's
+	// upload instant).
+	if err := NewAccumulator(Options{MaxSamples: 3, UploadedAt: time.Now()}).UnmarshalBinary(st); err != nil {
+		t.Errorf("decode with another upload instant: %v", err)
+	}
+	// An accumulator of the time pass holds more than case-level state.
+	tp := NewAccumulator(opt)
+	tp.ObserveSorted(genLog(4, 5))
+	if _, err := tp.MarshalBinary(); !errors.Is(err, ErrNotCaseLevel) {
+		t.Errorf("marshal of a time-pass accumulator: %v, want ErrNotCaseLevel", err)
+	}
+	if err := roundTrip(t, a, opt).Merge(tp); !errors.Is(err, ErrNotCaseLevel) {
+		t.Errorf("merge of a time-pass accumulator: %v, want ErrNotCaseLevel", err)
+	}
+}
+
+// FuzzQualityState: UnmarshalBinary never panics and fails only with
+// ErrState or ErrStateOptions; a state it takes encodes again, reports
+// and merges.
+func FuzzQualityState(f *testing.F) {
+	opt := Options{MaxSamples: 3}
+	for _, seed := range []uint64{5, 6} {
+		st, err := observeCases(opt, casePassInput(genLog(seed, 8), opt)).MarshalBinary()
+		if err != nil {
+			f.Fatal(err)
+		}
+		f.Add(st)
+	}
+	f.Add([]byte("FCQS\x01"))
+	f.Fuzz(func(t *testing.T, b []byte) {
+		a := NewAccumulator(opt)
+		if err := a.UnmarshalBinary(b); err != nil {
+			if !errors.Is(err, ErrState) && !errors.Is(err, ErrStateOptions) {
+				t.Fatalf("error %v is neither ErrState nor ErrStateOptions", err)
+			}
+			return
+		}
+		if _, err := a.MarshalBinary(); err != nil {
+			t.Fatal(err)
+		}
+		_ = a.Report()
+		if err := NewAccumulator(opt).Merge(a); err != nil {
+			t.Fatal(err)
+		}
+	})
+}
