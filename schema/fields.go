@@ -1,5 +1,7 @@
 package schema
 
+import "strings"
+
 // FieldSpec describes one field of schema v1. fieldTable is the one table
 // of the schema's fields: their order (the Parquet column order of a
 // snapshot, the CSV header order of an export), whether they are required
@@ -124,4 +126,16 @@ func fieldNames() []Field {
 		out[i] = fieldTable[i].Name
 	}
 	return out
+}
+
+// CloneStrings gives e's text fields (every field of the table but
+// occurred_at, and Attrs) strings of their own, for an event read into
+// buffers its reader reuses.
+func (e *Event) CloneStrings() {
+	for i := range fieldTable {
+		if f := &fieldTable[i]; f.set != nil {
+			f.set(e, strings.Clone(f.get(e)))
+		}
+	}
+	e.Attrs = strings.Clone(e.Attrs)
 }

@@ -5,6 +5,7 @@ import (
 	"strings"
 	"testing"
 	"time"
+	"unsafe"
 )
 
 // notStored are the exported fields of Event that are not schema fields:
@@ -100,5 +101,41 @@ func TestFieldSpecLookup(t *testing.T) {
 	if !reflect.DeepEqual(req, []Field{FieldSite, FieldCaseID, FieldEventType, FieldOccurredAt}) ||
 		!reflect.DeepEqual(ids, []Field{FieldCaseID, FieldSubjectID, FieldResourceID, FieldInstanceID}) {
 		t.Errorf("required %v, identifiers %v", req, ids)
+	}
+}
+
+// TestCloneStrings fills every string field of Event (found by
+// reflection) with text over one buffer, clones, overwrites the buffer and
+// checks that no field followed it.
+func TestCloneStrings(t *testing.T) {
+	var e Event
+	rv := reflect.ValueOf(&e).Elem()
+	var bufs [][]byte
+	for i := range rv.NumField() {
+		f := rv.Field(i)
+		if f.Kind() != reflect.String || !rv.Type().Field(i).IsExported() {
+			continue
+		}
+		b := []byte("value-" + rv.Type().Field(i).Name)
+		bufs = append(bufs, b)
+		f.SetString(unsafe.String(&b[0], len(b)))
+	}
+	e.OccurredAt = time.Date(2024, 1, 2, 3, 4, 5, 6000, time.UTC)
+	e.Line = 7
+	want := e
+	// Copies of the texts, for the comparison after the buffers change.
+	for i := range rv.NumField() {
+		if f := reflect.ValueOf(&want).Elem().Field(i); f.Kind() == reflect.String {
+			f.SetString(strings.Clone(f.String()))
+		}
+	}
+	e.CloneStrings()
+	for _, b := range bufs {
+		for i := range b {
+			b[i] = 'x'
+		}
+	}
+	if e != want {
+		t.Errorf("after the buffers changed:\n got %+v\nwant %+v", e, want)
 	}
 }
