@@ -139,3 +139,28 @@ func (e *Event) CloneStrings() {
 	}
 	e.Attrs = strings.Clone(e.Attrs)
 }
+
+// TextFieldCount is the number of text fields of schema v1: every field
+// but occurred_at.
+const TextFieldCount = len(fieldTable) - 1
+
+// Texts returns the values of e's text fields (every field but
+// occurred_at) in schema order: what hashes and equality of events cover
+// besides the instant. Arrays compare with ==.
+func (e *Event) Texts() (t [TextFieldCount]string) {
+	n := 0
+	for i := range fieldTable {
+		if f := &fieldTable[i]; f.set != nil { // a text field
+			t[n] = f.get(e)
+			n++
+		}
+	}
+	return t
+}
+
+// SameFields reports whether a and b are equal in every field of the
+// table, the instant compared to the microsecond; Attrs and Line are not
+// schema fields.
+func SameFields(a, b *Event) bool {
+	return a.OccurredAt.UnixMicro() == b.OccurredAt.UnixMicro() && a.Texts() == b.Texts()
+}

@@ -2,6 +2,7 @@ package schema
 
 import (
 	"reflect"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -137,5 +138,51 @@ func TestCloneStrings(t *testing.T) {
 	}
 	if e != want {
 		t.Errorf("after the buffers changed:\n got %+v\nwant %+v", e, want)
+	}
+}
+
+// TestTextsAndSameFields: Texts holds every string schema field of Event
+// (found by reflection) in schema order, and SameFields tells apart two
+// events that differ in any one field, the instant at microsecond
+// precision, but not in Attrs or Line.
+func TestTextsAndSameFields(t *testing.T) {
+	var e Event
+	for _, f := range Fields {
+		e.SetValue(f, "v-"+string(f))
+	}
+	e.OccurredAt = time.Date(2024, 5, 6, 7, 8, 9, 10000, time.UTC)
+	var want []string
+	for _, f := range Fields {
+		if f != FieldOccurredAt {
+			want = append(want, "v-"+string(f))
+		}
+	}
+	if got := e.Texts(); !slices.Equal(got[:], want) {
+		t.Errorf("Texts = %v, want %v", got, want)
+	}
+	rv := reflect.ValueOf(e)
+	for i := range rv.NumField() {
+		sf := rv.Type().Field(i)
+		if !sf.IsExported() {
+			continue
+		}
+		c := e
+		cv := reflect.ValueOf(&c).Elem().Field(i)
+		switch cv.Kind() {
+		case reflect.String:
+			cv.SetString(cv.String() + "x")
+		case reflect.Int64:
+			cv.SetInt(cv.Int() + 1)
+		default:
+			cv.Set(reflect.ValueOf(e.OccurredAt.Add(time.Microsecond)))
+		}
+		if same := SameFields(&e, &c); same != notStored[sf.Name] {
+			t.Errorf("an event that differs in %s: SameFields = %v", sf.Name, same)
+		}
+	}
+	c := e
+	c.OccurredAt = e.OccurredAt.Add(999 * time.Nanosecond)
+	if !SameFields(&e, &c) {
+		t.Error("a sub-microsecond difference made the events differ")
 	}
 }
