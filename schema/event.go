@@ -155,8 +155,8 @@ func (e *Event) Value(f Field) string {
 // SetValue sets field f of e from text; occurred_at cannot be set this way
 // because its parsing depends on a profile (see Profile).
 func (e *Event) SetValue(f Field, v string) {
-	if s := f.Spec(); s != nil && s.set != nil {
-		s.set(e, v)
+	if s := f.Spec(); s != nil {
+		s.Set(e, v)
 	}
 }
 

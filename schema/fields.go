@@ -1,6 +1,10 @@
 package schema
 
-import "strings"
+import (
+	"reflect"
+	"strings"
+	"unsafe"
+)
 
 // FieldSpec describes one field of schema v1. fieldTable is the one table
 // of the schema's fields: their order (the Parquet column order of a
@@ -21,8 +25,36 @@ type FieldSpec struct {
 	// document, one per line, in order (JSONSchema indents them).
 	JSONSchema string
 
-	get func(*Event) string
-	set func(*Event, string) // nil: cannot be set from text (occurred_at)
+	// off is the offset in Event of a text field (a string, or a type
+	// whose underlying type is string); text is false for occurred_at.
+	// Set from GoName at init: offsets instead of accessor functions keep
+	// an event on its caller's stack.
+	off  uintptr
+	text bool
+}
+
+func init() {
+	typ := reflect.TypeFor[Event]()
+	for i := range fieldTable {
+		f := &fieldTable[i]
+		sf, ok := typ.FieldByName(f.GoName)
+		if !ok {
+			panic("schema: the field table names Event." + f.GoName + ", which does not exist")
+		}
+		if sf.Type.Kind() == reflect.String {
+			f.off, f.text = sf.Offset, true
+		}
+	}
+}
+
+// str is the text field at offset off of e.
+func str(e *Event, off uintptr) *string { return (*string)(unsafe.Add(unsafe.Pointer(e), off)) }
+
+func (f *FieldSpec) get(e *Event) string {
+	if !f.text {
+		return e.OccurredAt.UTC().Format(occurredAtLayout)
+	}
+	return *str(e, f.off)
 }
 
 const dictString = "string (UTF-8)"
@@ -32,72 +64,59 @@ var fieldTable = [...]FieldSpec{
 		Doc: "Partner site the event was recorded at.",
 		JSONSchema: `"type": "string",
 "minLength": 1,
-"description": "The partner site (clinic, hospital department, call centre) where the event happened."`,
-		get: func(e *Event) string { return e.Site }, set: func(e *Event, v string) { e.Site = v }},
+"description": "The partner site (clinic, hospital department, call centre) where the event happened."`},
 	{Name: FieldCaseID, GoName: "CaseID", Required: true, Identifier: true, Type: dictString,
 		Doc: "The case (visit, call, ticket) the event belongs to.",
 		JSONSchema: `"type": "string",
 "minLength": 1,
-"description": "Identifier of the case (visit, call, ticket) the event belongs to. A pseudonym in snapshots."`,
-		get: func(e *Event) string { return e.CaseID }, set: func(e *Event, v string) { e.CaseID = v }},
+"description": "Identifier of the case (visit, call, ticket) the event belongs to. A pseudonym in snapshots."`},
 	{Name: FieldSubjectID, GoName: "SubjectID", Identifier: true, Type: dictString,
 		Doc: "The person the case is about.",
 		JSONSchema: `"type": "string",
-"description": "Identifier of the person the case is about (patient, caller), when the site provides one. A pseudonym in snapshots."`,
-		get: func(e *Event) string { return e.SubjectID }, set: func(e *Event, v string) { e.SubjectID = v }},
+"description": "Identifier of the person the case is about (patient, caller), when the site provides one. A pseudonym in snapshots."`},
 	{Name: FieldResourceID, GoName: "ResourceID", Identifier: true, Type: dictString,
 		Doc: "The resource (staff member, room, line) serving the case.",
 		JSONSchema: `"type": "string",
-"description": "Identifier of the resource that served the case (staff member, desk, team, department). A pseudonym in snapshots."`,
-		get: func(e *Event) string { return e.ResourceID }, set: func(e *Event, v string) { e.ResourceID = v }},
+"description": "Identifier of the resource that served the case (staff member, desk, team, department). A pseudonym in snapshots."`},
 	{Name: FieldEventType, GoName: "Type", Required: true, Type: dictString,
 		Doc: "What happened: one of the event types below.",
 		JSONSchema: `"type": "string",
 "enum": ["arrival", "enqueue", "start", "complete", "abandon", "transfer", "departure"],
-"description": "What happened: arrival (entered the system), enqueue (joined a queue), start (service began), complete (service ended), abandon (left a queue unserved), transfer (moved to another queue or site), departure (left the system)."`,
-		get: func(e *Event) string { return string(e.Type) }, set: func(e *Event, v string) { e.Type = EventType(v) }},
+"description": "What happened: arrival (entered the system), enqueue (joined a queue), start (service began), complete (service ended), abandon (left a queue unserved), transfer (moved to another queue or site), departure (left the system)."`},
 	{Name: FieldActivity, GoName: "Activity", Type: dictString,
 		Doc: "The activity or service step, as mapped by the profile.",
 		JSONSchema: `"type": "string",
-"description": "The site's name for the step or service (for example triage, lab test, billing)."`,
-		get: func(e *Event) string { return e.Activity }, set: func(e *Event, v string) { e.Activity = v }},
+"description": "The site's name for the step or service (for example triage, lab test, billing)."`},
 	{Name: FieldQueue, GoName: "Queue", Type: dictString,
 		Doc: "The queue the case was in.",
 		JSONSchema: `"type": "string",
-"description": "The queue or service line the case waited in or was served from."`,
-		get: func(e *Event) string { return e.Queue }, set: func(e *Event, v string) { e.Queue = v }},
+"description": "The queue or service line the case waited in or was served from."`},
 	{Name: FieldOccurredAt, GoName: "OccurredAt", Required: true,
 		Type: "timestamp, microseconds, UTC (Parquet TIMESTAMP(MICROS, UTC))",
 		Doc:  "When the event happened.",
 		JSONSchema: `"type": "string",
 "format": "date-time",
-"description": "The instant the event happened, as an RFC 3339 date-time with an offset (UTC in snapshots)."`,
-		get: func(e *Event) string { return e.OccurredAt.UTC().Format(occurredAtLayout) }},
+"description": "The instant the event happened, as an RFC 3339 date-time with an offset (UTC in snapshots)."`},
 	{Name: FieldPriority, GoName: "Priority", Type: dictString,
 		Doc: "Priority or triage level, as mapped by the profile.",
 		JSONSchema: `"type": "string",
-"description": "The site's priority or urgency class of the case at this event."`,
-		get: func(e *Event) string { return e.Priority }, set: func(e *Event, v string) { e.Priority = v }},
+"description": "The site's priority or urgency class of the case at this event."`},
 	{Name: FieldChannel, GoName: "Channel", Type: dictString,
 		Doc: "How the case reached the service (walk-in, phone, ...).",
 		JSONSchema: `"type": "string",
-"description": "How the case reached the service (walk-in, phone, referral, web)."`,
-		get: func(e *Event) string { return e.Channel }, set: func(e *Event, v string) { e.Channel = v }},
+"description": "How the case reached the service (walk-in, phone, referral, web)."`},
 	{Name: FieldOutcome, GoName: "Outcome", Type: dictString,
 		Doc: "Outcome of the case or step, as mapped by the profile.",
 		JSONSchema: `"type": "string",
-"description": "The site's outcome code for the case or step, when it has one."`,
-		get: func(e *Event) string { return e.Outcome }, set: func(e *Event, v string) { e.Outcome = v }},
+"description": "The site's outcome code for the case or step, when it has one."`},
 	{Name: FieldEventID, GoName: "EventID", Type: dictString,
 		Doc: "The source system's id of the event, when it has one.",
 		JSONSchema: `"type": "string",
-"description": "The site's own identifier of the event row, when it has one; used to spot duplicates."`,
-		get: func(e *Event) string { return e.EventID }, set: func(e *Event, v string) { e.EventID = v }},
+"description": "The site's own identifier of the event row, when it has one; used to spot duplicates."`},
 	{Name: FieldInstanceID, GoName: "InstanceID", Identifier: true, Type: dictString,
 		Doc: "One execution of an activity within its case: its start and its complete share it.",
 		JSONSchema: `"type": "string",
-"description": "Identifier of one activity instance within its case: the start and the complete of one execution of an activity share it, so overlapping executions of the same activity pair apart. A pseudonym in snapshots."`,
-		get: func(e *Event) string { return e.InstanceID }, set: func(e *Event, v string) { e.InstanceID = v }},
+"description": "Identifier of one activity instance within its case: the start and the complete of one execution of an activity share it, so overlapping executions of the same activity pair apart. A pseudonym in snapshots."`},
 }
 
 // occurredAtLayout is the text form of occurred_at (Event.Value): RFC 3339
@@ -133,8 +152,9 @@ func fieldNames() []Field {
 // buffers its reader reuses.
 func (e *Event) CloneStrings() {
 	for i := range fieldTable {
-		if f := &fieldTable[i]; f.set != nil {
-			f.set(e, strings.Clone(f.get(e)))
+		if f := &fieldTable[i]; f.text {
+			p := str(e, f.off)
+			*p = strings.Clone(*p)
 		}
 	}
 	e.Attrs = strings.Clone(e.Attrs)
@@ -150,8 +170,8 @@ const TextFieldCount = len(fieldTable) - 1
 func (e *Event) Texts() (t [TextFieldCount]string) {
 	n := 0
 	for i := range fieldTable {
-		if f := &fieldTable[i]; f.set != nil { // a text field
-			t[n] = f.get(e)
+		if f := &fieldTable[i]; f.text {
+			t[n] = *str(e, f.off)
 			n++
 		}
 	}
@@ -163,4 +183,27 @@ func (e *Event) Texts() (t [TextFieldCount]string) {
 // schema fields.
 func SameFields(a, b *Event) bool {
 	return a.OccurredAt.UnixMicro() == b.OccurredAt.UnixMicro() && a.Texts() == b.Texts()
+}
+
+// Get returns the text value of this field of e (as Event.Value).
+func (f *FieldSpec) Get(e *Event) string { return f.get(e) }
+
+// Set sets this field of e from text (as Event.SetValue); it does nothing
+// for occurred_at.
+func (f *FieldSpec) Set(e *Event, v string) {
+	if f.text {
+		*str(e, f.off) = v
+	}
+}
+
+// IdentifierSpecs returns the table's entries of the identifier fields
+// (Field.Identifier), in schema order: what pseudonymization covers.
+func IdentifierSpecs() []FieldSpec {
+	var out []FieldSpec
+	for _, f := range fieldTable {
+		if f.Identifier {
+			out = append(out, f)
+		}
+	}
+	return out
 }

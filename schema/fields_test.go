@@ -51,7 +51,7 @@ func TestFieldTableCoversEvent(t *testing.T) {
 		fv := reflect.ValueOf(&e).Elem().Field(i)
 		switch fv.Kind() {
 		case reflect.String:
-			if spec.set == nil {
+			if !spec.text {
 				t.Errorf("%s: a text field without a setter", spec.Name)
 				continue
 			}
@@ -102,6 +102,13 @@ func TestFieldSpecLookup(t *testing.T) {
 	if !reflect.DeepEqual(req, []Field{FieldSite, FieldCaseID, FieldEventType, FieldOccurredAt}) ||
 		!reflect.DeepEqual(ids, []Field{FieldCaseID, FieldSubjectID, FieldResourceID, FieldInstanceID}) {
 		t.Errorf("required %v, identifiers %v", req, ids)
+	}
+	var specIDs []Field
+	for _, f := range IdentifierSpecs() {
+		specIDs = append(specIDs, f.Name)
+	}
+	if !slices.Equal(specIDs, ids) {
+		t.Errorf("IdentifierSpecs %v, Identifier() %v", specIDs, ids)
 	}
 }
 
