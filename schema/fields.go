@@ -35,6 +35,7 @@ type FieldSpec struct {
 
 func init() {
 	typ := reflect.TypeFor[Event]()
+	n := 0
 	for i := range fieldTable {
 		f := &fieldTable[i]
 		sf, ok := typ.FieldByName(f.GoName)
@@ -43,9 +44,14 @@ func init() {
 		}
 		if sf.Type.Kind() == reflect.String {
 			f.off, f.text = sf.Offset, true
+			textOffsets[n] = sf.Offset
+			n++
 		}
 	}
 }
+
+// textOffsets are the offsets of the text fields in schema order.
+var textOffsets [TextFieldCount]uintptr
 
 // str is the text field at offset off of e.
 func str(e *Event, off uintptr) *string { return (*string)(unsafe.Add(unsafe.Pointer(e), off)) }
@@ -151,11 +157,9 @@ func fieldNames() []Field {
 // occurred_at, and Attrs) strings of their own, for an event read into
 // buffers its reader reuses.
 func (e *Event) CloneStrings() {
-	for i := range fieldTable {
-		if f := &fieldTable[i]; f.text {
-			p := str(e, f.off)
-			*p = strings.Clone(*p)
-		}
+	for _, off := range textOffsets {
+		p := str(e, off)
+		*p = strings.Clone(*p)
 	}
 	e.Attrs = strings.Clone(e.Attrs)
 }
@@ -168,12 +172,8 @@ const TextFieldCount = len(fieldTable) - 1
 // occurred_at) in schema order: what hashes and equality of events cover
 // besides the instant. Arrays compare with ==.
 func (e *Event) Texts() (t [TextFieldCount]string) {
-	n := 0
-	for i := range fieldTable {
-		if f := &fieldTable[i]; f.text {
-			t[n] = *str(e, f.off)
-			n++
-		}
+	for i, off := range textOffsets {
+		t[i] = *str(e, off)
 	}
 	return t
 }
