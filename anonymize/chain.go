@@ -79,20 +79,13 @@ func (r *Rekeyer) Pseudonym(f schema.Field, q string) (string, error) {
 // Apply carries e's identifier fields (as Pseudonymizer.Apply names them)
 // to the current generation, in place.
 func (r *Rekeyer) Apply(e *schema.Event) error {
-	for _, fv := range []struct {
-		f schema.Field
-		v *string
-	}{
-		{schema.FieldCaseID, &e.CaseID},
-		{schema.FieldSubjectID, &e.SubjectID},
-		{schema.FieldResourceID, &e.ResourceID},
-		{schema.FieldInstanceID, &e.InstanceID},
-	} {
-		q, err := r.Pseudonym(fv.f, *fv.v)
+	for i := range identifierFields {
+		f := &identifierFields[i]
+		q, err := r.Pseudonym(f.Name, f.Get(e))
 		if err != nil {
 			return err
 		}
-		*fv.v = q
+		f.Set(e, q)
 	}
 	return nil
 }

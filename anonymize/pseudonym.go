@@ -99,15 +99,19 @@ func (p *Pseudonymizer) root(f schema.Field, raw string) {
 	pseudoEncoding.Encode(p.out[:], sum[:pseudoBytes])
 }
 
-// Apply replaces e's identifier fields (CaseID, SubjectID, ResourceID,
-// InstanceID) by their pseudonyms, in place; empty fields stay empty.
-// Applying it twice pseudonymizes the pseudonyms: call it once per event.
+// Apply replaces e's identifier fields (the schema's field table says
+// which: case_id, subject_id, resource_id, instance_id) by their
+// pseudonyms, in place; empty fields stay empty. Applying it twice
+// pseudonymizes the pseudonyms: call it once per event.
 func (p *Pseudonymizer) Apply(e *schema.Event) {
-	e.CaseID = p.Pseudonym(schema.FieldCaseID, e.CaseID)
-	e.SubjectID = p.Pseudonym(schema.FieldSubjectID, e.SubjectID)
-	e.ResourceID = p.Pseudonym(schema.FieldResourceID, e.ResourceID)
-	e.InstanceID = p.Pseudonym(schema.FieldInstanceID, e.InstanceID)
+	for i := range identifierFields {
+		f := &identifierFields[i]
+		f.Set(e, p.Pseudonym(f.Name, f.Get(e)))
+	}
 }
+
+// identifierFields are the schema's identifier fields, in schema order.
+var identifierFields = schema.IdentifierSpecs()
 
 // IsPseudonym reports whether s has the form of a pseudonym: 26 characters
 // of the lower-case base32 alphabet. It cannot tell which key made it.

@@ -621,7 +621,7 @@ func newAttrTableWriter(dir string, rowGroupRows int64, keyID string, attrs []sc
 	sch, leafs := attrSchema(attrs)
 	tw := &attrTableWriter{f: f, h: sha256.New(), attrs: attrs, leafs: leafs}
 	tw.w = parquet.NewGenericWriter[any](io.MultiWriter(f, tw.h, countWriter{&tw.n}), sch,
-		parquet.Compression(PageCodec),
+		pageCompression(),
 		parquet.MaxRowsPerRowGroup(rowGroupRows),
 		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
 		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),

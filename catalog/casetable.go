@@ -42,7 +42,7 @@ func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTabl
 	}
 	cw := &caseTableWriter{f: f, h: sha256.New()}
 	cw.w = parquet.NewGenericWriter[cases.Row](io.MultiWriter(f, cw.h, countWriter{&cw.n}),
-		parquet.Compression(PageCodec),
+		pageCompression(),
 		parquet.MaxRowsPerRowGroup(rowGroupRows),
 		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
 		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),

@@ -409,22 +409,12 @@ func (w *eventWindow) evict(lo int64) {
 	}
 }
 
+// cloneEventInto copies e's schema fields into dst with strings of their
+// own (no event attributes, no source line).
 func cloneEventInto(dst, e *schema.Event) {
-	*dst = schema.Event{
-		Site:       strings.Clone(e.Site),
-		CaseID:     strings.Clone(e.CaseID),
-		SubjectID:  strings.Clone(e.SubjectID),
-		ResourceID: strings.Clone(e.ResourceID),
-		Type:       schema.EventType(strings.Clone(string(e.Type))),
-		Activity:   strings.Clone(e.Activity),
-		Queue:      strings.Clone(e.Queue),
-		OccurredAt: e.OccurredAt,
-		Priority:   strings.Clone(e.Priority),
-		Channel:    strings.Clone(e.Channel),
-		Outcome:    strings.Clone(e.Outcome),
-		EventID:    strings.Clone(e.EventID),
-		InstanceID: strings.Clone(e.InstanceID),
-	}
+	*dst = *e
+	dst.Attrs, dst.Line = "", 0
+	dst.CloneStrings()
 }
 
 // heldSource merges the held files' events in time order, opening a file

@@ -201,10 +201,7 @@ func identityHash(h *maphash.Hash, id Identity, e *schema.Event) uint64 {
 		return h.Sum64()
 	}
 	h.WriteByte(2)
-	for _, v := range [...]string{
-		e.Site, e.CaseID, e.SubjectID, e.ResourceID, string(e.Type), e.Activity,
-		e.Queue, e.Priority, e.Channel, e.Outcome, e.EventID, e.InstanceID,
-	} {
+	for _, v := range e.Texts() {
 		h.WriteString(v)
 		h.WriteByte(0)
 	}
@@ -228,13 +225,7 @@ func sameIdentity(id Identity, a, b *schema.Event) bool {
 // sameContent reports whether a and b are equal in every schema field;
 // the instant is compared to the microsecond, the source line is not a
 // field.
-func sameContent(a, b *schema.Event) bool {
-	return a.OccurredAt.UnixMicro() == b.OccurredAt.UnixMicro() &&
-		a.CaseID == b.CaseID && a.Type == b.Type && a.EventID == b.EventID &&
-		a.Activity == b.Activity && a.Queue == b.Queue && a.ResourceID == b.ResourceID &&
-		a.SubjectID == b.SubjectID && a.Site == b.Site && a.Priority == b.Priority &&
-		a.Channel == b.Channel && a.Outcome == b.Outcome && a.InstanceID == b.InstanceID
-}
+func sameContent(a, b *schema.Event) bool { return schema.SameFields(a, b) }
 
 // differingFields lists, in schema order, the fields in which a and b
 // differ.

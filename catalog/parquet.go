@@ -18,7 +18,6 @@ import (
 
 	"github.com/klauspost/compress/zstd"
 	"github.com/parquet-go/parquet-go"
-	"github.com/parquet-go/parquet-go/compress"
 	parquetzstd "github.com/parquet-go/parquet-go/compress/zstd"
 	"github.com/parquet-go/parquet-go/format"
 
@@ -131,7 +130,7 @@ type EventWriterOptions struct {
 
 // EventWriter is the one Parquet writer of events, for snapshots and
 // exports: rows of a subset of the schema's columns (schema.Event's
-// Parquet layout), zstd pages (PageCodec), bounded row groups and a
+// Parquet layout), zstd pages (pageCompression), bounded row groups and a
 // created_by that names no build or time, so that the same events always
 // give the same bytes; row groups record occurred_at as their sorting
 // column when the file holds it.
@@ -199,7 +198,7 @@ func NewEventWriter(w io.Writer, cols []schema.Field, opt EventWriterOptions) *E
 		sch = subsetSchema(cols)
 	}
 	opts := []parquet.WriterOption{
-		parquet.Compression(PageCodec),
+		pageCompression(),
 		parquet.MaxRowsPerRowGroup(opt.RowGroupRows),
 		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
 		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
@@ -422,14 +421,18 @@ func (ew *EventWriter) Close() error {
 	return nil
 }
 
-// PageCodec compresses the pages of every Parquet file flowcat writes
-// (snapshots here, exports in catalog/export): zstd at its default
-// level, as parquet-go's codec, but with a 1 MiB window. Pages are at most
-// a few hundred KiB, so the library's default 8 MiB window finds nothing
-// more and costs 16 MiB of history per encoder, held for the whole write.
-// One encoder set serves all ingests; each page is compressed on its own,
-// so the bytes do not depend on what else is being written.
-var PageCodec compress.Codec = &windowedZstd{}
+// pageCompression is the page codec of every Parquet file flowcat writes
+// (snapshots, case and attribute tables here, exports through
+// EventWriter): zstd at its default level, as parquet-go's codec, but with
+// a 1 MiB window. Pages are at most a few hundred KiB, so the library's
+// default 8 MiB window finds nothing more and costs 16 MiB of history per
+// encoder, held for the whole write. One encoder set serves all writers;
+// each page is compressed on its own, so the bytes do not depend on what
+// else is being written. The codec is not reachable outside this function,
+// so no caller can replace it.
+func pageCompression() parquet.WriterOption { return parquet.Compression(pageCodec) }
+
+var pageCodec = &windowedZstd{}
 
 type windowedZstd struct {
 	parquetzstd.Codec // String, CompressionCodec, Decode
@@ -438,7 +441,7 @@ type windowedZstd struct {
 	err               error
 }
 
-// Encode implements compress.Codec.
+// Encode implements parquet-go's compress.Codec.
 func (c *windowedZstd) Encode(dst, src []byte) ([]byte, error) {
 	c.once.Do(func() {
 		c.enc, c.err = zstd.NewWriter(nil,

@@ -105,9 +105,11 @@ func (s *sorter) Add(e *schema.Event) error {
 
 // eventBytes is the length of e's strings.
 func eventBytes(e *schema.Event) int {
-	return len(e.Site) + len(e.CaseID) + len(e.SubjectID) + len(e.ResourceID) + len(e.Type) +
-		len(e.Activity) + len(e.Queue) + len(e.Priority) + len(e.Channel) + len(e.Outcome) + len(e.EventID) + len(e.InstanceID) +
-		len(e.Attrs)
+	n := len(e.Attrs)
+	for _, s := range e.Texts() {
+		n += len(s)
+	}
+	return n
 }
 
 func lessEvent(a, b *schema.Event) int {

@@ -100,10 +100,7 @@ func (s *instantSet) buildIndex(seed maphash.Seed) {
 func (s *instantSet) hash(e *schema.Event, seed maphash.Seed) uint64 {
 	h := &s.h
 	h.SetSeed(seed)
-	for _, v := range [...]string{
-		e.Site, e.CaseID, e.SubjectID, e.ResourceID, string(e.Type), e.Activity,
-		e.Queue, e.Priority, e.Channel, e.Outcome, e.EventID, e.InstanceID,
-	} {
+	for _, v := range e.Texts() {
 		h.WriteString(v)
 		h.WriteByte(0)
 	}
@@ -112,11 +109,4 @@ func (s *instantSet) hash(e *schema.Event, seed maphash.Seed) uint64 {
 
 // sameEvent reports whether a and b are equal in every schema field. The
 // instant is compared at microsecond precision; the line is not a field.
-func sameEvent(a, b *schema.Event) bool {
-	return a.CaseID == b.CaseID && a.Type == b.Type &&
-		a.OccurredAt.UnixMicro() == b.OccurredAt.UnixMicro() &&
-		a.EventID == b.EventID && a.Activity == b.Activity && a.Queue == b.Queue &&
-		a.ResourceID == b.ResourceID && a.SubjectID == b.SubjectID && a.Site == b.Site &&
-		a.Priority == b.Priority && a.Channel == b.Channel && a.Outcome == b.Outcome &&
-		a.InstanceID == b.InstanceID
-}
+func sameEvent(a, b *schema.Event) bool { return schema.SameFields(a, b) }

@@ -123,20 +123,13 @@ const (
 	FieldInstanceID Field = "instance_id"
 )
 
-// Fields lists every field in schema order.
-var Fields = []Field{
-	FieldSite, FieldCaseID, FieldSubjectID, FieldResourceID, FieldEventType,
-	FieldActivity, FieldQueue, FieldOccurredAt, FieldPriority, FieldChannel,
-	FieldOutcome, FieldEventID, FieldInstanceID,
-}
+// Fields lists every field in schema order (the field table's).
+var Fields = fieldNames()
 
 // Required reports whether every event must carry a value for f.
 func (f Field) Required() bool {
-	switch f {
-	case FieldSite, FieldCaseID, FieldEventType, FieldOccurredAt:
-		return true
-	}
-	return false
+	s := f.Spec()
+	return s != nil && s.Required
 }
 
 // Identifier reports whether f holds an identifier that is pseudonymized at
@@ -145,44 +138,16 @@ func (f Field) Required() bool {
 // of its own system (an order, an appointment), which links back to the
 // person as readily as a case id does; pairing needs only equality.
 func (f Field) Identifier() bool {
-	switch f {
-	case FieldCaseID, FieldSubjectID, FieldResourceID, FieldInstanceID:
-		return true
-	}
-	return false
+	s := f.Spec()
+	return s != nil && s.Identifier
 }
 
 // Value returns the text value of field f of e; occurred_at is formatted as
 // RFC 3339 with microseconds in UTC (every event has one: the zero
 // time.Time is 0001-01-01T00:00:00Z, a valid instant).
 func (e *Event) Value(f Field) string {
-	switch f {
-	case FieldSite:
-		return e.Site
-	case FieldCaseID:
-		return e.CaseID
-	case FieldSubjectID:
-		return e.SubjectID
-	case FieldResourceID:
-		return e.ResourceID
-	case FieldEventType:
-		return string(e.Type)
-	case FieldActivity:
-		return e.Activity
-	case FieldQueue:
-		return e.Queue
-	case FieldOccurredAt:
-		return e.OccurredAt.UTC().Format("2006-01-02T15:04:05.000000Z")
-	case FieldPriority:
-		return e.Priority
-	case FieldChannel:
-		return e.Channel
-	case FieldOutcome:
-		return e.Outcome
-	case FieldEventID:
-		return e.EventID
-	case FieldInstanceID:
-		return e.InstanceID
+	if s := f.Spec(); s != nil {
+		return s.get(e)
 	}
 	return ""
 }
@@ -190,31 +155,8 @@ func (e *Event) Value(f Field) string {
 // SetValue sets field f of e from text; occurred_at cannot be set this way
 // because its parsing depends on a profile (see Profile).
 func (e *Event) SetValue(f Field, v string) {
-	switch f {
-	case FieldSite:
-		e.Site = v
-	case FieldCaseID:
-		e.CaseID = v
-	case FieldSubjectID:
-		e.SubjectID = v
-	case FieldResourceID:
-		e.ResourceID = v
-	case FieldEventType:
-		e.Type = EventType(v)
-	case FieldActivity:
-		e.Activity = v
-	case FieldQueue:
-		e.Queue = v
-	case FieldPriority:
-		e.Priority = v
-	case FieldChannel:
-		e.Channel = v
-	case FieldOutcome:
-		e.Outcome = v
-	case FieldEventID:
-		e.EventID = v
-	case FieldInstanceID:
-		e.InstanceID = v
+	if s := f.Spec(); s != nil {
+		s.Set(e, v)
 	}
 }
 

@@ -3,6 +3,7 @@ package schema
 import (
 	"bytes"
 	"encoding/json"
+	"os"
 	"slices"
 	"strings"
 	"testing"
@@ -134,5 +135,18 @@ func TestJSONSchemaMatchesFields(t *testing.T) {
 	// The reader's fixed field table must be the schema's field list.
 	if !slices.Equal(fieldsArray[:], Fields) {
 		t.Errorf("fieldsArray %v differs from Fields %v", fieldsArray, Fields)
+	}
+}
+
+// TestJSONSchemaGolden holds the document built from the field table to
+// the published bytes: a change to the table that would change the
+// document fails here.
+func TestJSONSchemaGolden(t *testing.T) {
+	want, err := os.ReadFile("testdata/service-event-v1.schema.json")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got := JSONSchema(); !bytes.Equal(got, want) {
+		t.Fatalf("JSON Schema built from the field table differs from the published document:\n%s", got)
 	}
 }

@@ -17,41 +17,10 @@ func Compare(a, b *Event) int {
 // queue, priority, channel, outcome, event_id, instance_id), each as bytes,
 // then the event attribute values.
 func CompareContent(a, b *Event) int {
-	if c := strings.Compare(a.Site, b.Site); c != 0 {
-		return c
-	}
-	if c := strings.Compare(a.CaseID, b.CaseID); c != 0 {
-		return c
-	}
-	if c := strings.Compare(a.SubjectID, b.SubjectID); c != 0 {
-		return c
-	}
-	if c := strings.Compare(a.ResourceID, b.ResourceID); c != 0 {
-		return c
-	}
-	if c := strings.Compare(string(a.Type), string(b.Type)); c != 0 {
-		return c
-	}
-	if c := strings.Compare(a.Activity, b.Activity); c != 0 {
-		return c
-	}
-	if c := strings.Compare(a.Queue, b.Queue); c != 0 {
-		return c
-	}
-	if c := strings.Compare(a.Priority, b.Priority); c != 0 {
-		return c
-	}
-	if c := strings.Compare(a.Channel, b.Channel); c != 0 {
-		return c
-	}
-	if c := strings.Compare(a.Outcome, b.Outcome); c != 0 {
-		return c
-	}
-	if c := strings.Compare(a.EventID, b.EventID); c != 0 {
-		return c
-	}
-	if c := strings.Compare(a.InstanceID, b.InstanceID); c != 0 {
-		return c
+	for _, off := range textOffsets {
+		if c := strings.Compare(*str(a, off), *str(b, off)); c != 0 {
+			return c
+		}
 	}
 	// Last, so that events without attributes keep their order.
 	return strings.Compare(a.Attrs, b.Attrs)

@@ -72,11 +72,10 @@ type Reader struct {
 }
 
 // fieldsArray fixes the number of schema fields at compile time.
-var fieldsArray = [...]Field{
-	FieldSite, FieldCaseID, FieldSubjectID, FieldResourceID, FieldEventType,
-	FieldActivity, FieldQueue, FieldOccurredAt, FieldPriority, FieldChannel,
-	FieldOutcome, FieldEventID, FieldInstanceID,
-}
+var fieldsArray = func() (a [len(fieldTable)]Field) {
+	copy(a[:], fieldNames())
+	return a
+}()
 
 type columnKind uint8
 

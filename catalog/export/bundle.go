@@ -302,22 +302,6 @@ func readme(d *catalog.Dataset, v *catalog.Version, withQuality bool, ci Citatio
 	return []byte(b.String())
 }
 
-var fieldDocs = map[schema.Field]string{
-	schema.FieldSite:       "Partner site the event was recorded at.",
-	schema.FieldCaseID:     "The case (visit, call, ticket) the event belongs to.",
-	schema.FieldSubjectID:  "The person the case is about.",
-	schema.FieldResourceID: "The resource (staff member, room, line) serving the case.",
-	schema.FieldEventType:  "What happened: one of the event types below.",
-	schema.FieldActivity:   "The activity or service step, as mapped by the profile.",
-	schema.FieldQueue:      "The queue the case was in.",
-	schema.FieldOccurredAt: "When the event happened.",
-	schema.FieldPriority:   "Priority or triage level, as mapped by the profile.",
-	schema.FieldChannel:    "How the case reached the service (walk-in, phone, ...).",
-	schema.FieldOutcome:    "Outcome of the case or step, as mapped by the profile.",
-	schema.FieldEventID:    "The source system's id of the event, when it has one.",
-	schema.FieldInstanceID: "One execution of an activity within its case: its start and its complete share it.",
-}
-
 func dictionary(d *catalog.Dataset, v *catalog.Version, report []byte, spans []catalog.KeySpan) ([]byte, error) {
 	m := v.Manifest
 	var b strings.Builder
@@ -325,12 +309,8 @@ func dictionary(d *catalog.Dataset, v *catalog.Version, report []byte, spans []c
 	fmt.Fprintf(&b, "Service-event schema v%s: one row per event of a case.\n\n", m.SchemaVersion)
 	b.WriteString("| field | type | required | pseudonymized identifier | description |\n")
 	b.WriteString("|---|---|---|---|---|\n")
-	for _, f := range schema.Fields {
-		typ := "string (UTF-8)"
-		if f == schema.FieldOccurredAt {
-			typ = "timestamp, microseconds, UTC (Parquet TIMESTAMP(MICROS, UTC))"
-		}
-		fmt.Fprintf(&b, "| `%s` | %s | %s | %s | %s |\n", f, typ, yesNo(f.Required()), yesNo(f.Identifier()), fieldDocs[f])
+	for _, f := range schema.FieldSpecs() {
+		fmt.Fprintf(&b, "| `%s` | %s | %s | %s | %s |\n", f.Name, f.Type, yesNo(f.Required), yesNo(f.Identifier), f.Doc)
 	}
 	b.WriteString("\nAn empty optional field is stored as null. Pseudonymized identifiers are keyed HMACs: equal within a project, unrelated across projects, and not reversible without the project key.\n\n")
 	b.WriteString("Event types: ")

@@ -162,6 +162,11 @@ func TestBundleTarAndZip(t *testing.T) {
 				}
 			}
 			dict := string(files[BundleDictionary])
+			if golden, err := os.ReadFile("testdata/dictionary-fields.md"); err != nil {
+				t.Fatal(err)
+			} else if !strings.Contains(dict, "\n\n"+string(golden)+"\nAn empty optional field") {
+				t.Errorf("DICTIONARY.md's field table is not testdata/dictionary-fields.md:\n%s", dict)
+			}
 			for _, want := range []string{"| `case_id` | string (UTF-8) | yes | yes |", "| `occurred_at` | timestamp, microseconds, UTC", "| `queue` | string (UTF-8) | no | no |", "| `instance_id` | string (UTF-8) | no | yes | One execution of an activity", "- Score: ", "default profile"} {
 				if !strings.Contains(dict, want) {
 					t.Errorf("DICTIONARY.md lacks %q:\n%s", want, dict)

@@ -4,9 +4,11 @@ import (
 	"bufio"
 	"context"
 	"encoding/xml"
+	"fmt"
 	"io"
 	"slices"
 	"strconv"
+	"strings"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -165,12 +167,10 @@ func (x *xesWriter) event(e *schema.Event) {
 	if v := e.Value(xesInstanceField); v != "" {
 		x.attr(in, "string", "concept:instance", v)
 	}
-	for _, kv := range [...]struct{ k, v string }{
-		{"subject_id", e.SubjectID}, {"queue", e.Queue}, {"priority", e.Priority},
-		{"channel", e.Channel}, {"outcome", e.Outcome}, {"event_id", e.EventID},
-	} {
-		if kv.v != "" {
-			x.attr(in, "string", kv.k, kv.v)
+	// Every other field, in schema order, under its own name.
+	for _, f := range xesPlainFields {
+		if v := e.Value(f); v != "" {
+			x.attr(in, "string", string(f), v)
 		}
 	}
 	for i, a := range x.attrs {
@@ -191,24 +191,35 @@ const xesInstanceField = schema.Field("instance_id")
 var XESProfile = xesProfile()
 
 func xesProfile() string {
-	p := `# Reads flowcat's own XES export (catalog/export.WriteXES) back into schema v1.
-format: xes
-fields:
-  site: "site"
-  case_id: "trace/concept:name"
-  subject_id: "subject_id"
-  resource_id: "org:resource"
-  event_type: "event_type"
-  activity: "concept:name"
-  queue: "queue"
-  occurred_at: "time:timestamp"
-  priority: "priority"
-  channel: "channel"
-  outcome: "outcome"
-  event_id: "event_id"
-`
-	if slices.Contains(schema.Fields, xesInstanceField) {
-		p += "  instance_id: \"concept:instance\"\n"
+	var b strings.Builder
+	b.WriteString("# Reads flowcat's own XES export (catalog/export.WriteXES) back into schema v1.\nformat: xes\nfields:\n")
+	for _, f := range schema.Fields {
+		key, ok := xesKeys[f]
+		if !ok {
+			key = string(f)
+		}
+		fmt.Fprintf(&b, "  %s: %q\n", f, key)
 	}
-	return p
+	return b.String()
 }
+
+// xesKeys are the fields WriteXES writes under a key of a standard XES
+// extension (IEEE 1849-2016, recalled from memory: concept, lifecycle, org,
+// time); case_id is the
+// trace's concept:name. Every other field is an event attribute under its
+// own name.
+var xesKeys = map[schema.Field]string{
+	schema.FieldCaseID:     "trace/concept:name",
+	schema.FieldResourceID: "org:resource",
+	schema.FieldActivity:   "concept:name",
+	schema.FieldOccurredAt: "time:timestamp",
+	xesInstanceField:       "concept:instance",
+}
+
+// xesPlainFields are the fields an XES event carries under their own
+// names after the ones event writes first (site and event_type), in schema
+// order.
+var xesPlainFields = slices.DeleteFunc(slices.Clone(schema.Fields), func(f schema.Field) bool {
+	_, std := xesKeys[f]
+	return std || f == schema.FieldSite || f == schema.FieldEventType
+})
