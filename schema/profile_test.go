@@ -365,3 +365,46 @@ func TestProfileCheckOrder(t *testing.T) {
 		}
 	}
 }
+
+// TestProfileValidateChecks covers checks that the YAML cases above do not
+// reach: a profile built in Go goes through validate alone.
+func TestProfileValidateChecks(t *testing.T) {
+	const base = "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: t\n"
+	for _, tc := range []struct{ name, yaml, key, msg string }{
+		{"jsonl with quote", "format: jsonl\nquote: '\"'\n" + base, "quote", "only for csv"},
+		{"xes with multiline", "format: xes\nmultiline: {max_lines: 3}\n" + base, "multiline", "only for csv"},
+		{"constant with codes", "fields:\n  site: {value: s, codes: {a: b}}\n  case_id: c\n  event_type: e\n  occurred_at: t\n", "fields.site", "not to a constant"},
+		{"time with codes", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: {column: t, codes: {a: b}}\n", "fields.occurred_at", "do not apply to occurred_at"},
+	} {
+		_, err := ParseProfile([]byte(tc.yaml))
+		var pe *ProfileError
+		if !errors.As(err, &pe) || pe.Key != tc.key || !strings.Contains(pe.Msg, tc.msg) {
+			t.Errorf("%s: %v, want key %q and %q", tc.name, err, tc.key, tc.msg)
+		}
+	}
+	mapped := func() map[Field]Mapping {
+		return map[Field]Mapping{FieldSite: {Value: "s"}, FieldCaseID: {Column: "c"}, FieldEventType: {Column: "e"}, FieldOccurredAt: {Column: "t"}}
+	}
+	for _, tc := range []struct {
+		name string
+		p    Profile
+		key  string
+	}{
+		{"multiline bytes", Profile{Fields: mapped(), Multiline: &Multiline{MaxBytes: maxMultilineBytes + 1}}, "multiline.max_bytes"},
+		{"unknown field", Profile{Fields: map[Field]Mapping{"age": {Column: "a"}}}, "fields.age"},
+		{"resource capacity", Profile{Fields: mapped(), ResourceCapacity: MaxCapacity + 1}, "resource_capacity"},
+		{"case days", Profile{Fields: mapped(), MaxCaseDays: -1}, "max_case_days"},
+		{"optional required field", Profile{Fields: map[Field]Mapping{FieldSite: {Value: "s"}, FieldCaseID: {Column: "c", Optional: true}, FieldEventType: {Column: "e"}, FieldOccurredAt: {Column: "t"}}}, "fields.case_id"},
+	} {
+		err := tc.p.validate(nil)
+		var pe *ProfileError
+		if !errors.As(err, &pe) || pe.Key != tc.key {
+			t.Errorf("%s: %v, want key %q", tc.name, err, tc.key)
+		}
+	}
+	// A valid profile built in Go comes out with its defaults filled in.
+	p := Profile{Fields: mapped()}
+	if err := p.validate(nil); err != nil || p.Format != FormatCSV || p.Delimiter != "," || p.Timezone != "UTC" {
+		t.Errorf("defaults: %v, %+v", err, p)
+	}
+}
