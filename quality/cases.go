@@ -263,8 +263,20 @@ func (a *Accumulator) leave(s *siteAcc, at int64) {
 	a.cur.flags &^= csInSystem
 }
 
+// caseEvent is the event in hand in the per-case pass: its site, type
+// index and instant (µs), and the problems its checks found.
+type caseEvent struct {
+	s             *siteAcc
+	e             *schema.Event
+	ti            int
+	at            int64
+	acc, con, uni bool
+}
+
 // observeCase runs the per-case checks for e (type index ti) at at and
-// reports whether e has an accuracy, consistency or uniqueness problem.
+// reports whether e has an accuracy, consistency or uniqueness problem:
+// first those of its instant and site, then those of its type, then the
+// end of a stay by an abandon or a terminal type.
 //
 // Within a case in time order "a start earlier than the case's arrival"
 // shows as an arrival or enqueue observed at a later instant than a start
@@ -273,195 +285,261 @@ func (a *Accumulator) leave(s *siteAcc, at int64) {
 // alike. Equal instants are never order violations (see
 // same_instant_order).
 func (a *Accumulator) observeCase(s *siteAcc, ti int, e *schema.Event, at int64) (acc, con, uni bool) {
-	st := &a.cur
-	bit := uint8(1) << ti
-	if st.id == "" {
-		*st = caseState{id: strings.Clone(e.CaseID), first: at, rec: at, site: s.idx, typesAt: bit, seenAt: st.seenAt[:0]}
-		st.seen(ti, e)
-		if ti != tArrival {
-			// Already in the system when the data begins (or its arrival
-			// is lost): it enters the census at its first event.
-			a.enter(s, at)
-			st.flags |= csImplicit
-		}
+	ev := caseEvent{s: s, e: e, ti: ti, at: at}
+	if a.cur.id == "" {
+		a.openCase(&ev)
 	} else {
-		if st.rec == at {
-			a.flag(s, cSameInstant, e)
-			if st.typesAt&conflicts[ti] != 0 && st.bounds(ti, e) {
-				a.flag(s, cSameInstantOrder, e)
-				acc = true
-			}
-			if x := st.seen(ti, e); x != nil {
-				a.flag(s, cDuplicateCaseTypeTime, e)
-				uni = true
-				// In a version's pass the upload's events carry their
-				// source lines and those read back from stored files none:
-				// such a pair is certainly in two files. Samples only; the
-				// count is WithCases'.
-				if (x.line > 0) != (e.Line > 0) {
-					at := e.OccurredAt.UTC()
-					a.keepSample(cDuplicateAcrossFiles, Sample{CaseID: e.CaseID, Site: s.name, At: &at})
-				}
-			}
-			st.typesAt |= bit
-		} else {
-			st.rec = at
-			st.typesAt = bit
-			st.seenAt = st.seenAt[:0]
-			st.seen(ti, e)
-			st.flags &^= csNowFlags
+		a.nextInstant(&ev)
+		if a.cur.site != s.idx {
+			a.moveSite(&ev)
 		}
-		if st.site != s.idx {
-			if ti != tTransfer && st.flags&csPrevTransfer == 0 {
-				a.flag(s, cSiteChange, e)
-				con = true
-			}
-			if st.flags&csInSystem != 0 {
-				// The case moves: it leaves the census of its old site.
-				a.leave(a.sites[st.site], at)
-				a.enter(s, at)
-			}
-			st.site = s.idx
-		}
-	}
-	f := st.flags
-	afterDeparture := func() {
-		if f&csDeparted != 0 && f&csDepartedNow == 0 {
-			a.flag(s, cAfterDeparture, e)
-			acc = true
-		}
-	}
-	anchor := func() {
-		if f&csPendStart != 0 {
-			if f&csPendStartNow == 0 {
-				a.flag(s, cStartBeforeArrival, e)
-				acc = true
-			}
-			f &^= csPendStart | csPendStartNow
-		}
-		f |= csAnchored
 	}
 	switch ti {
 	case tArrival:
-		anchor()
-		if f&csPendDep != 0 {
-			if f&csPendDepNow == 0 {
-				a.flag(s, cDepartureBeforeArrival, e)
-				acc = true
-			}
-			f &^= csPendDep | csPendDepNow
-		}
-		s.arrivals++
-		if f&csImplicit != 0 {
-			f &^= csImplicit // its entry is counted already
-		} else if f&csInSystem == 0 {
-			st.flags = f
-			a.enter(s, at)
-			f = st.flags
-		}
-		f |= csArr | csWaitAnchor | csStay
-		f &^= csDeparted | csDepartedNow | csExited
-		st.arr = at
+		a.caseArrival(&ev)
 	case tEnqueue:
-		afterDeparture()
-		anchor()
-		if f&csWaitPending != 0 {
-			a.waitNoStart(s, st, e)
-		}
-		if w := a.waitOf(e); w >= 0 {
-			a.waits[w].waits++
-			st.wait = w + 1
-			f |= csWaitPending
-		}
+		a.caseEnqueue(&ev)
 	case tStart:
-		afterDeparture()
-		if f&csPendComplete != 0 {
-			if f&csPendCompleteNow == 0 {
-				a.flag(s, cCompleteBeforeStart, e)
-				acc = true
-			}
-			f &^= csPendComplete | csPendCompleteNow
-		}
-		if f&(csAnchored|csPendStart) == 0 {
-			f |= csPendStart | csPendStartNow
-		}
-		f |= csStarted | csStart
-		if f&csWaitPending != 0 {
-			f &^= csWaitPending
-			st.wait = 0
-		} else if w := a.waitOf(e); w >= 0 {
-			a.waits[w].waits++
-			if f&csWaitAnchor == 0 {
-				a.waits[w].noEnqueue++
-				a.flag(s, cWaitNoEnqueue, e)
-			}
-		}
-		f &^= csWaitAnchor
-		st.start = at
-		f |= csOpenStart
+		a.caseStart(&ev)
 	case tComplete:
-		afterDeparture()
-		if f&(csStarted|csPendComplete) == 0 {
-			f |= csPendComplete | csPendCompleteNow
-		}
-		f |= csComplete
-		if f&csOpenStart != 0 {
-			limit := a.maxService
-			if a.maxServiceAct != nil {
-				if d, ok := a.maxServiceAct[e.Activity]; ok {
-					limit = d
-				}
-			}
-			if at-st.start > limit {
-				a.flag(s, cServiceTooLong, e)
-				acc = true
-			}
-			f &^= csOpenStart
-		}
-	case tAbandon, tTransfer:
-		if ti == tAbandon {
-			afterDeparture()
-		}
-		if f&csWaitPending != 0 { // the wait ends here, measured
-			f &^= csWaitPending
-			st.wait = 0
-		}
+		a.caseComplete(&ev)
+	case tAbandon:
+		a.afterDeparture(&ev)
+		a.endWait()
+	case tTransfer:
+		a.endWait()
 	case tDeparture:
-		if f&csArr == 0 {
-			f |= csPendDep | csPendDepNow
-		}
-		if f&csWaitPending != 0 {
-			a.waitNoStart(s, st, e)
-			f &^= csWaitPending
-		}
-		f &^= csOpenStart
-		if f&csInSystem != 0 {
-			st.flags = f
-			a.leave(s, at)
-			f = st.flags
-		} else if f&csExited == 0 {
-			// A departure of a case that is not in the system (and did
-			// not leave by an abandon or a terminal type): more
-			// departures than entries.
-			a.flag(s, cCensusNegative, e)
-			con = true
-		}
-		f &^= csStay | csImplicit
-		f |= csDep | csDeparted | csDepartedNow
+		a.caseDeparture(&ev)
 	}
-	if ti != tDeparture && f&csInSystem != 0 && cases.Exits(e.Type, a.opt.Terminal) {
-		// An abandon or a declared terminal type ends the stay too.
-		st.flags = f
-		a.leave(s, at)
-		f = st.flags | csExited
+	a.caseExit(&ev)
+	return ev.acc, ev.con, ev.uni
+}
+
+// openCase starts the case in hand with its first event.
+func (a *Accumulator) openCase(ev *caseEvent) {
+	st := &a.cur
+	*st = caseState{id: strings.Clone(ev.e.CaseID), first: ev.at, rec: ev.at, site: ev.s.idx, typesAt: uint8(1) << ev.ti, seenAt: st.seenAt[:0]}
+	st.seen(ev.ti, ev.e)
+	if ev.ti != tArrival {
+		// Already in the system when the data begins (or its arrival
+		// is lost): it enters the census at its first event.
+		a.enter(ev.s, ev.at)
+		st.flags |= csImplicit
 	}
-	if ti == tTransfer {
-		f |= csPrevTransfer
+}
+
+// nextInstant checks a later event of the case in hand against those at
+// the same instant, or makes its instant the latest.
+func (a *Accumulator) nextInstant(ev *caseEvent) {
+	st := &a.cur
+	bit := uint8(1) << ev.ti
+	if st.rec != ev.at {
+		st.rec = ev.at
+		st.typesAt = bit
+		st.seenAt = st.seenAt[:0]
+		st.seen(ev.ti, ev.e)
+		st.flags &^= csNowFlags
+		return
+	}
+	a.flag(ev.s, cSameInstant, ev.e)
+	if st.typesAt&conflicts[ev.ti] != 0 && st.bounds(ev.ti, ev.e) {
+		a.flag(ev.s, cSameInstantOrder, ev.e)
+		ev.acc = true
+	}
+	if x := st.seen(ev.ti, ev.e); x != nil {
+		a.flag(ev.s, cDuplicateCaseTypeTime, ev.e)
+		ev.uni = true
+		// In a version's pass the upload's events carry their source
+		// lines and those read back from stored files none: such a pair
+		// is certainly in two files. Samples only; the count is
+		// WithCases'.
+		if (x.line > 0) != (ev.e.Line > 0) {
+			t := ev.e.OccurredAt.UTC()
+			a.keepSample(cDuplicateAcrossFiles, Sample{CaseID: ev.e.CaseID, Site: ev.s.name, At: &t})
+		}
+	}
+	st.typesAt |= bit
+}
+
+// moveSite moves the case in hand to the event's site: a change of site
+// not by a transfer is flagged, and a case in the system leaves the
+// census of its old site for that of the new one.
+func (a *Accumulator) moveSite(ev *caseEvent) {
+	st := &a.cur
+	if ev.ti != tTransfer && st.flags&csPrevTransfer == 0 {
+		a.flag(ev.s, cSiteChange, ev.e)
+		ev.con = true
+	}
+	if st.flags&csInSystem != 0 {
+		a.leave(a.sites[st.site], ev.at)
+		a.enter(ev.s, ev.at)
+	}
+	st.site = ev.s.idx
+}
+
+// settle clears a pending order problem, the flag pend (pendNow when it
+// was raised at the latest instant), that the event resolves: flagged as
+// check c unless both fell at one instant.
+func (a *Accumulator) settle(ev *caseEvent, pend, pendNow uint32, c int) {
+	st := &a.cur
+	if st.flags&pend == 0 {
+		return
+	}
+	if st.flags&pendNow == 0 {
+		a.flag(ev.s, c, ev.e)
+		ev.acc = true
+	}
+	st.flags &^= pend | pendNow
+}
+
+// afterDeparture flags an event after the case departed, at a later
+// instant and with no arrival since.
+func (a *Accumulator) afterDeparture(ev *caseEvent) {
+	if f := a.cur.flags; f&csDeparted != 0 && f&csDepartedNow == 0 {
+		a.flag(ev.s, cAfterDeparture, ev.e)
+		ev.acc = true
+	}
+}
+
+// anchor records an arrival or enqueue, settling a start seen before it.
+func (a *Accumulator) anchor(ev *caseEvent) {
+	a.settle(ev, csPendStart, csPendStartNow, cStartBeforeArrival)
+	a.cur.flags |= csAnchored
+}
+
+// endWait ends the pending wait, measured (a start, abandon or transfer).
+func (a *Accumulator) endWait() {
+	if a.cur.flags&csWaitPending != 0 {
+		a.cur.flags &^= csWaitPending
+		a.cur.wait = 0
+	}
+}
+
+// caseArrival opens a stay: it settles a start or departure seen before
+// it and puts the case in the census unless it is there.
+func (a *Accumulator) caseArrival(ev *caseEvent) {
+	st := &a.cur
+	a.anchor(ev)
+	a.settle(ev, csPendDep, csPendDepNow, cDepartureBeforeArrival)
+	ev.s.arrivals++
+	if st.flags&csImplicit != 0 {
+		st.flags &^= csImplicit // its entry is counted already
+	} else if st.flags&csInSystem == 0 {
+		a.enter(ev.s, ev.at)
+	}
+	st.flags |= csArr | csWaitAnchor | csStay
+	st.flags &^= csDeparted | csDepartedNow | csExited
+	st.arr = ev.at
+}
+
+// caseEnqueue opens a wait by (queue, activity); a wait still pending was
+// never started.
+func (a *Accumulator) caseEnqueue(ev *caseEvent) {
+	st := &a.cur
+	a.afterDeparture(ev)
+	a.anchor(ev)
+	if st.flags&csWaitPending != 0 {
+		a.waitNoStart(ev.s, st, ev.e)
+	}
+	if w := a.waitOf(ev.e); w >= 0 {
+		a.waits[w].waits++
+		st.wait = w + 1
+		st.flags |= csWaitPending
+	}
+}
+
+// caseStart opens a service: it settles a complete seen before it, ends
+// the pending wait, or counts a wait with no enqueue since the last
+// start or arrival.
+func (a *Accumulator) caseStart(ev *caseEvent) {
+	st := &a.cur
+	a.afterDeparture(ev)
+	a.settle(ev, csPendComplete, csPendCompleteNow, cCompleteBeforeStart)
+	if st.flags&(csAnchored|csPendStart) == 0 {
+		st.flags |= csPendStart | csPendStartNow
+	}
+	st.flags |= csStarted | csStart
+	if st.flags&csWaitPending != 0 {
+		a.endWait()
+	} else if w := a.waitOf(ev.e); w >= 0 {
+		a.waits[w].waits++
+		if st.flags&csWaitAnchor == 0 {
+			a.waits[w].noEnqueue++
+			a.flag(ev.s, cWaitNoEnqueue, ev.e)
+		}
+	}
+	st.flags &^= csWaitAnchor
+	st.start = ev.at
+	st.flags |= csOpenStart
+}
+
+// caseComplete closes the open service, flagging one longer than the
+// activity's limit.
+func (a *Accumulator) caseComplete(ev *caseEvent) {
+	st := &a.cur
+	a.afterDeparture(ev)
+	if st.flags&(csStarted|csPendComplete) == 0 {
+		st.flags |= csPendComplete | csPendCompleteNow
+	}
+	st.flags |= csComplete
+	if st.flags&csOpenStart != 0 {
+		if ev.at-st.start > a.serviceLimit(ev.e.Activity) {
+			a.flag(ev.s, cServiceTooLong, ev.e)
+			ev.acc = true
+		}
+		st.flags &^= csOpenStart
+	}
+}
+
+// serviceLimit returns the longest service of activity, µs.
+func (a *Accumulator) serviceLimit(activity string) int64 {
+	if a.maxServiceAct != nil {
+		if d, ok := a.maxServiceAct[activity]; ok {
+			return d
+		}
+	}
+	return a.maxService
+}
+
+// caseDeparture closes the stay: a pending wait was never started, and
+// the case leaves the census (a departure of a case not in it is one
+// departure too many).
+func (a *Accumulator) caseDeparture(ev *caseEvent) {
+	st := &a.cur
+	if st.flags&csArr == 0 {
+		st.flags |= csPendDep | csPendDepNow
+	}
+	if st.flags&csWaitPending != 0 {
+		a.waitNoStart(ev.s, st, ev.e)
+		st.flags &^= csWaitPending
+	}
+	st.flags &^= csOpenStart
+	if st.flags&csInSystem != 0 {
+		a.leave(ev.s, ev.at)
+	} else if st.flags&csExited == 0 {
+		// A departure of a case that is not in the system (and did
+		// not leave by an abandon or a terminal type): more
+		// departures than entries.
+		a.flag(ev.s, cCensusNegative, ev.e)
+		ev.con = true
+	}
+	st.flags &^= csStay | csImplicit
+	st.flags |= csDep | csDeparted | csDepartedNow
+}
+
+// caseExit ends the stay at an abandon or a declared terminal type, and
+// notes whether the event was a transfer.
+func (a *Accumulator) caseExit(ev *caseEvent) {
+	st := &a.cur
+	if ev.ti != tDeparture && st.flags&csInSystem != 0 && cases.Exits(ev.e.Type, a.opt.Terminal) {
+		a.leave(ev.s, ev.at)
+		st.flags |= csExited
+	}
+	if ev.ti == tTransfer {
+		st.flags |= csPrevTransfer
 	} else {
-		f &^= csPrevTransfer
+		st.flags &^= csPrevTransfer
 	}
-	st.flags = f
-	return acc, con, uni
 }
 
 // waitNoStart counts the pending enqueue of st as a wait never started.

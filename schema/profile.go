@@ -409,56 +409,40 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 	return p, nil
 }
 
-// validate normalizes p in place (defaults filled in) and checks it.
+// validate normalizes p in place (defaults filled in) and checks it, one
+// concern after another in a fixed order, so that the first problem
+// reported for a profile is always the same one.
 // lines maps dotted keys to YAML lines for messages; it may be nil.
 func (p *Profile) validate(lines map[string]int) error {
 	at := func(key, msg string) error {
 		return &ProfileError{Line: lines[key], Key: key, Msg: msg}
 	}
+	for _, check := range []func(at func(key, msg string) error) error{
+		p.validateFormat,
+		p.validateTime,
+		p.validateFields,
+		p.validateIdentifierColumns,
+		p.validateRequired,
+		p.validateLimits,
+		p.validateAttributes,
+		p.validateTerminal,
+	} {
+		if err := check(at); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// validateFormat checks the file format and the options that go with it,
+// filling in the defaults of csv and tsv.
+func (p *Profile) validateFormat(at func(key, msg string) error) error {
 	if p.Format == "" {
 		p.Format = FormatCSV
 	}
 	switch p.Format {
 	case FormatCSV, FormatTSV:
-		if p.Format == FormatTSV {
-			if p.Delimiter != "" && p.Delimiter != "\t" && p.Delimiter != `\t` {
-				return at("delimiter", "a tsv file is tab-delimited; leave delimiter out or use format: csv")
-			}
-			p.Delimiter = "\t"
-		}
-		if p.Delimiter == "" {
-			p.Delimiter = ","
-		}
-		if p.Delimiter == `\t` {
-			p.Delimiter = "\t"
-		}
-		r, size := utf8.DecodeRuneInString(p.Delimiter)
-		if size != len(p.Delimiter) || r == utf8.RuneError || r == '"' || r == '\r' || r == '\n' || r == 0xFEFF {
-			return at("delimiter", `must be one character other than '"', CR or LF (write "\t" for tab)`)
-		}
-		if p.Quote == "" {
-			p.Quote = `"`
-		}
-		// Only RFC 4180 quoting: a reader that half-ignores quotes could
-		// join rows silently, moving one row's identifier into another's
-		// free-text field.
-		if p.Quote != `"` {
-			return at("quote", `must be '"' (RFC 4180 quoting; a stray quote rejects its row as malformed_row)`)
-		}
-		if ml := p.Multiline; ml != nil {
-			if ml.MaxLines == 0 {
-				ml.MaxLines = DefaultMultilineLines
-			}
-			if ml.MaxBytes == 0 {
-				ml.MaxBytes = DefaultMultilineBytes
-			}
-			if ml.MaxLines < 2 || ml.MaxLines > maxMultilineLines {
-				return at("multiline.max_lines", fmt.Sprintf("must be 2 to %d", maxMultilineLines))
-			}
-			if ml.MaxBytes < 1 || ml.MaxBytes > maxMultilineBytes {
-				return at("multiline.max_bytes", fmt.Sprintf("must be 1 to %d", maxMultilineBytes))
-			}
-		}
+		return p.validateDelimited(at)
 	case FormatJSONL, FormatXES:
 		if p.Delimiter != "" {
 			return at("delimiter", "only for csv and tsv")
@@ -469,9 +453,67 @@ func (p *Profile) validate(lines map[string]int) error {
 		if p.Multiline != nil {
 			return at("multiline", "only for csv and tsv (a JSON Lines record is one line, an XES event one element)")
 		}
+		return nil
 	default:
 		return at("format", fmt.Sprintf("unknown format %q (want csv, tsv, jsonl or xes)", clip(string(p.Format))))
 	}
+}
+
+// validateDelimited checks the delimiter, quote and multiline options of
+// a csv or tsv profile, filling in their defaults.
+func (p *Profile) validateDelimited(at func(key, msg string) error) error {
+	if p.Format == FormatTSV {
+		if p.Delimiter != "" && p.Delimiter != "\t" && p.Delimiter != `\t` {
+			return at("delimiter", "a tsv file is tab-delimited; leave delimiter out or use format: csv")
+		}
+		p.Delimiter = "\t"
+	}
+	if p.Delimiter == "" {
+		p.Delimiter = ","
+	}
+	if p.Delimiter == `\t` {
+		p.Delimiter = "\t"
+	}
+	r, size := utf8.DecodeRuneInString(p.Delimiter)
+	if size != len(p.Delimiter) || r == utf8.RuneError || r == '"' || r == '\r' || r == '\n' || r == 0xFEFF {
+		return at("delimiter", `must be one character other than '"', CR or LF (write "\t" for tab)`)
+	}
+	if p.Quote == "" {
+		p.Quote = `"`
+	}
+	// Only RFC 4180 quoting: a reader that half-ignores quotes could
+	// join rows silently, moving one row's identifier into another's
+	// free-text field.
+	if p.Quote != `"` {
+		return at("quote", `must be '"' (RFC 4180 quoting; a stray quote rejects its row as malformed_row)`)
+	}
+	if p.Multiline != nil {
+		return validateMultiline(p.Multiline, at)
+	}
+	return nil
+}
+
+// validateMultiline checks the bounds of a quoted field spanning lines,
+// filling in their defaults.
+func validateMultiline(ml *Multiline, at func(key, msg string) error) error {
+	if ml.MaxLines == 0 {
+		ml.MaxLines = DefaultMultilineLines
+	}
+	if ml.MaxBytes == 0 {
+		ml.MaxBytes = DefaultMultilineBytes
+	}
+	if ml.MaxLines < 2 || ml.MaxLines > maxMultilineLines {
+		return at("multiline.max_lines", fmt.Sprintf("must be 2 to %d", maxMultilineLines))
+	}
+	if ml.MaxBytes < 1 || ml.MaxBytes > maxMultilineBytes {
+		return at("multiline.max_bytes", fmt.Sprintf("must be 1 to %d", maxMultilineBytes))
+	}
+	return nil
+}
+
+// validateTime checks the time zone and the rules for local times that
+// are ambiguous or do not exist, filling in their defaults.
+func (p *Profile) validateTime(at func(key, msg string) error) error {
 	if p.Timezone == "" {
 		p.Timezone = "UTC"
 	}
@@ -491,68 +533,116 @@ func (p *Profile) validate(lines map[string]int) error {
 	default:
 		return at("local_time.nonexistent", "must be reject or later")
 	}
+	return nil
+}
+
+// validateFields checks each field's mapping, in schema order so that the
+// first problem reported is stable, and stores it normalized.
+func (p *Profile) validateFields(at func(key, msg string) error) error {
 	for f := range p.Fields {
 		if !slices.Contains(Fields, f) {
 			return at("fields."+string(f), "not a schema field (want one of "+fieldList()+")")
 		}
 	}
-	// Schema order keeps the first reported problem stable.
 	for _, f := range Fields {
 		m, ok := p.Fields[f]
 		if !ok {
 			continue
 		}
-		key := "fields." + string(f)
-		m.Column = strings.TrimSpace(m.Column)
-		if (m.Column == "") == (m.Value == "") {
-			return at(key, "give exactly one of column or value")
-		}
-		if m.Optional && f.Required() {
-			return at(key, "a required field cannot be optional")
-		}
-		if m.Value != "" {
-			if f == FieldOccurredAt {
-				return at(key, "occurred_at must come from a column")
-			}
-			if len(m.Codes) > 0 || m.Default != "" {
-				return at(key, "codes and default apply to a column, not to a constant value")
-			}
-			if f == FieldEventType && !EventType(m.Value).Valid() {
-				return at(key+".value", "not an event type (want one of "+eventTypeList()+")")
-			}
-		}
-		if f == FieldOccurredAt {
-			if len(m.Codes) > 0 || m.Default != "" {
-				return at(key, "codes and default do not apply to occurred_at")
-			}
-			if m.Layout != "" {
-				if err := ValidateLayout(m.Layout); err != nil {
-					return at(key+".layout", err.Error())
-				}
-			}
-		} else if m.Layout != "" {
-			return at(key+".layout", "layout applies only to occurred_at")
-		}
-		if m.Stable && (f != FieldEventID || m.Column == "") {
-			return at(key+".stable", "only event_id, mapped from a column, can be declared stable")
-		}
-		if m.Default != "" && len(m.Codes) == 0 {
-			return at(key+".default", "default applies to codes not listed under codes; add codes")
-		}
-		if f == FieldEventType {
-			for from, to := range m.Codes {
-				if !EventType(to).Valid() {
-					return at(key+".codes", fmt.Sprintf("code %q maps to %q, not an event type (want one of %s)", clip(from), clip(to), eventTypeList()))
-				}
-			}
-			if m.Default != "" && !EventType(m.Default).Valid() {
-				return at(key+".default", "not an event type (want one of "+eventTypeList()+")")
-			}
+		m, err := validateMapping(f, m, at)
+		if err != nil {
+			return err
 		}
 		p.Fields[f] = m
 	}
-	// A column that feeds an identifier may feed no other field: the other
-	// field would keep (or quote in a message) the raw identifier.
+	return nil
+}
+
+// validateMapping checks the mapping m of field f and returns it
+// normalized (its column name trimmed).
+func validateMapping(f Field, m Mapping, at func(key, msg string) error) (Mapping, error) {
+	key := "fields." + string(f)
+	m.Column = strings.TrimSpace(m.Column)
+	if err := validateSource(f, m, key, at); err != nil {
+		return m, err
+	}
+	if err := validateTimeLayout(f, m, key, at); err != nil {
+		return m, err
+	}
+	if m.Stable && (f != FieldEventID || m.Column == "") {
+		return m, at(key+".stable", "only event_id, mapped from a column, can be declared stable")
+	}
+	return m, validateCodes(f, m, key, at)
+}
+
+// validateSource checks where field f's value comes from: a column or a
+// constant value, exactly one, and what a constant may be.
+func validateSource(f Field, m Mapping, key string, at func(key, msg string) error) error {
+	if (m.Column == "") == (m.Value == "") {
+		return at(key, "give exactly one of column or value")
+	}
+	if m.Optional && f.Required() {
+		return at(key, "a required field cannot be optional")
+	}
+	if m.Value == "" {
+		return nil
+	}
+	if f == FieldOccurredAt {
+		return at(key, "occurred_at must come from a column")
+	}
+	if len(m.Codes) > 0 || m.Default != "" {
+		return at(key, "codes and default apply to a column, not to a constant value")
+	}
+	if f == FieldEventType && !EventType(m.Value).Valid() {
+		return at(key+".value", "not an event type (want one of "+eventTypeList()+")")
+	}
+	return nil
+}
+
+// validateTimeLayout checks the time layout, which only occurred_at takes,
+// and that occurred_at takes no codes.
+func validateTimeLayout(f Field, m Mapping, key string, at func(key, msg string) error) error {
+	if f != FieldOccurredAt {
+		if m.Layout != "" {
+			return at(key+".layout", "layout applies only to occurred_at")
+		}
+		return nil
+	}
+	if len(m.Codes) > 0 || m.Default != "" {
+		return at(key, "codes and default do not apply to occurred_at")
+	}
+	if m.Layout != "" {
+		if err := ValidateLayout(m.Layout); err != nil {
+			return at(key+".layout", err.Error())
+		}
+	}
+	return nil
+}
+
+// validateCodes checks the codes and default of field f: a default needs
+// codes, and event_type's codes and default must be event types.
+func validateCodes(f Field, m Mapping, key string, at func(key, msg string) error) error {
+	if m.Default != "" && len(m.Codes) == 0 {
+		return at(key+".default", "default applies to codes not listed under codes; add codes")
+	}
+	if f != FieldEventType {
+		return nil
+	}
+	for from, to := range m.Codes {
+		if !EventType(to).Valid() {
+			return at(key+".codes", fmt.Sprintf("code %q maps to %q, not an event type (want one of %s)", clip(from), clip(to), eventTypeList()))
+		}
+	}
+	if m.Default != "" && !EventType(m.Default).Valid() {
+		return at(key+".default", "not an event type (want one of "+eventTypeList()+")")
+	}
+	return nil
+}
+
+// validateIdentifierColumns checks that a column which feeds an identifier
+// feeds no other field: the other field would keep (or quote in a
+// message) the raw identifier.
+func (p *Profile) validateIdentifierColumns(at func(key, msg string) error) error {
 	idCols := map[string]Field{}
 	for _, f := range Fields {
 		if m, ok := p.Fields[f]; ok && f.Identifier() && m.Column != "" {
@@ -566,6 +656,11 @@ func (p *Profile) validate(lines map[string]int) error {
 			}
 		}
 	}
+	return nil
+}
+
+// validateRequired checks that every required field is mapped.
+func (p *Profile) validateRequired(at func(key, msg string) error) error {
 	for _, f := range Fields {
 		if f.Required() {
 			if _, ok := p.Fields[f]; !ok {
@@ -573,6 +668,11 @@ func (p *Profile) validate(lines map[string]int) error {
 			}
 		}
 	}
+	return nil
+}
+
+// validateLimits checks the declared capacities and the longest case.
+func (p *Profile) validateLimits(at func(key, msg string) error) error {
 	if p.ResourceCapacity < 0 || p.ResourceCapacity > MaxCapacity {
 		return at("resource_capacity", fmt.Sprintf("want a whole number from 1 to %d", MaxCapacity))
 	}
@@ -582,9 +682,11 @@ func (p *Profile) validate(lines map[string]int) error {
 	if p.MaxCaseDays < 0 || p.MaxCaseDays > MaxCaseDaysLimit {
 		return at("max_case_days", fmt.Sprintf("want a whole number of days from 1 to %d", MaxCaseDaysLimit))
 	}
-	if err := p.validateAttributes(at); err != nil {
-		return err
-	}
+	return nil
+}
+
+// validateTerminal checks that each declared terminal type can end a case.
+func (p *Profile) validateTerminal(at func(key, msg string) error) error {
 	for _, t := range p.Terminal {
 		if !t.Valid() || t == Arrival || t == Enqueue {
 			return at("terminal", fmt.Sprintf("%q cannot end a case (want start, complete, abandon, transfer or departure)", clip(string(t))))

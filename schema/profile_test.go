@@ -327,3 +327,84 @@ func TestProfileLimits(t *testing.T) {
 }
 
 const exampleProfileFlow = `{format: csv, timezone: UTC, fields: {site: {value: s}, case_id: c, event_type: {column: t, codes: {A: arrival}}, occurred_at: {column: at, layout: "%Y-%m-%d"}}}`
+
+// TestProfileCheckOrder pins the order of the profile's checks: with two
+// problems, the one of the earlier concern (format, time, fields and
+// their mappings, identifier columns, required fields, limits, terminal
+// types) is the one reported.
+func TestProfileCheckOrder(t *testing.T) {
+	const base = "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: t\n"
+	const noTime = "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n"
+	tests := []struct {
+		name, yaml, key string
+	}{
+		{"format before time", "format: xlsx\ntimezone: Europe/Atlantis\n" + base, "format"},
+		{"delimiter before quote", "delimiter: ';;'\nquote: none\n" + base, "delimiter"},
+		{"multiline lines before bytes", "multiline: {max_lines: 1, max_bytes: 999999999}\n" + base, "multiline.max_lines"},
+		{"time before fields", "timezone: Europe/Atlantis\nfields:\n  site: {value: s, column: x}\n  case_id: c\n  event_type: e\n  occurred_at: t\n", "timezone"},
+		{"ambiguous before nonexistent", "local_time: {ambiguous: first, nonexistent: earlier}\n" + base, "local_time.ambiguous"},
+		{"fields in schema order", "fields:\n  site: {value: s}\n  case_id: {column: c, layout: '%Y'}\n  event_type: {value: came}\n  occurred_at: t\n", "fields.case_id.layout"},
+		{"source before layout", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: {value: '2021', layout: '%Q'}\n", "fields.occurred_at"},
+		{"layout before stable", "fields:\n  site: {value: s}\n  case_id: {column: c, layout: '%Y', stable: true}\n  event_type: e\n  occurred_at: t\n", "fields.case_id.layout"},
+		{"stable before default", "fields:\n  site: {value: s}\n  case_id: {column: c, stable: true, default: x}\n  event_type: e\n  occurred_at: t\n", "fields.case_id.stable"},
+		{"mapping before identifier column", "fields:\n  site: c\n  case_id: c\n  event_type: {value: came}\n  occurred_at: t\n", "fields.event_type.value"},
+		{"identifier column before required", "fields:\n  site: c\n  case_id: c\n  event_type: e\n", "fields.site"},
+		{"required before terminal", "terminal: [arrival]\n" + noTime, "fields"},
+		{"resource capacity before case days", "resource_capacity: -1\nmax_case_days: -1\n" + base, "resource_capacity"},
+		{"case days before terminal", "max_case_days: -1\nterminal: [arrival]\n" + base, "max_case_days"},
+	}
+	for _, tc := range tests {
+		_, err := ParseProfile([]byte(tc.yaml))
+		var pe *ProfileError
+		if !errors.As(err, &pe) {
+			t.Errorf("%s: %v is not a *ProfileError", tc.name, err)
+			continue
+		}
+		if pe.Key != tc.key {
+			t.Errorf("%s: key %q, want %q (%v)", tc.name, pe.Key, tc.key, err)
+		}
+	}
+}
+
+// TestProfileValidateChecks covers checks that the YAML cases above do not
+// reach: a profile built in Go goes through validate alone.
+func TestProfileValidateChecks(t *testing.T) {
+	const base = "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: t\n"
+	for _, tc := range []struct{ name, yaml, key, msg string }{
+		{"jsonl with quote", "format: jsonl\nquote: '\"'\n" + base, "quote", "only for csv"},
+		{"xes with multiline", "format: xes\nmultiline: {max_lines: 3}\n" + base, "multiline", "only for csv"},
+		{"constant with codes", "fields:\n  site: {value: s, codes: {a: b}}\n  case_id: c\n  event_type: e\n  occurred_at: t\n", "fields.site", "not to a constant"},
+		{"time with codes", "fields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: {column: t, codes: {a: b}}\n", "fields.occurred_at", "do not apply to occurred_at"},
+	} {
+		_, err := ParseProfile([]byte(tc.yaml))
+		var pe *ProfileError
+		if !errors.As(err, &pe) || pe.Key != tc.key || !strings.Contains(pe.Msg, tc.msg) {
+			t.Errorf("%s: %v, want key %q and %q", tc.name, err, tc.key, tc.msg)
+		}
+	}
+	mapped := func() map[Field]Mapping {
+		return map[Field]Mapping{FieldSite: {Value: "s"}, FieldCaseID: {Column: "c"}, FieldEventType: {Column: "e"}, FieldOccurredAt: {Column: "t"}}
+	}
+	for _, tc := range []struct {
+		name string
+		p    Profile
+		key  string
+	}{
+		{"multiline bytes", Profile{Fields: mapped(), Multiline: &Multiline{MaxBytes: maxMultilineBytes + 1}}, "multiline.max_bytes"},
+		{"unknown field", Profile{Fields: map[Field]Mapping{"age": {Column: "a"}}}, "fields.age"},
+		{"resource capacity", Profile{Fields: mapped(), ResourceCapacity: MaxCapacity + 1}, "resource_capacity"},
+		{"case days", Profile{Fields: mapped(), MaxCaseDays: -1}, "max_case_days"},
+		{"optional required field", Profile{Fields: map[Field]Mapping{FieldSite: {Value: "s"}, FieldCaseID: {Column: "c", Optional: true}, FieldEventType: {Column: "e"}, FieldOccurredAt: {Column: "t"}}}, "fields.case_id"},
+	} {
+		err := tc.p.validate(nil)
+		var pe *ProfileError
+		if !errors.As(err, &pe) || pe.Key != tc.key {
+			t.Errorf("%s: %v, want key %q", tc.name, err, tc.key)
+		}
+	}
+	// A valid profile built in Go comes out with its defaults filled in.
+	p := Profile{Fields: mapped()}
+	if err := p.validate(nil); err != nil || p.Format != FormatCSV || p.Delimiter != "," || p.Timezone != "UTC" {
+		t.Errorf("defaults: %v, %+v", err, p)
+	}
+}
