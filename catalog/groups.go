@@ -442,7 +442,6 @@ func (g *groupBuild) findTouched() error {
 			g.kept[i] = false
 			count--
 		}
-		count++ // the compacted group
 	}
 	// Cursors over the keys of each group read for rewriting: a touched
 	// group is rewritten on its own, the compacted ones into one.
