@@ -364,7 +364,7 @@ func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Read
 	if testHookBeforeCommit != nil {
 		testHookBeforeCommit()
 	}
-	return s.commit(ctx, ds, &up, entry, sacc, &uploadPass{cases: upCases, entry: entry, acc: acc}, qopt, pz.KeyID(), opt)
+	return s.commit(ctx, &toCommit{ds: ds, up: &up, entry: entry, sum: sacc, pass: &uploadPass{cases: upCases, entry: entry, acc: acc}, qopt: qopt, keyID: pz.KeyID(), opt: opt})
 }
 
 // isContentFault reports whether a file error is the file's own fault
@@ -383,10 +383,23 @@ func isNoRows(err error) bool {
 	return ok && (fe.Rule == schema.RuleNoRows || fe.Rule == schema.RuleEmptyFile)
 }
 
+// toCommit is what an upload that passed its checks brings to the commit.
+type toCommit struct {
+	ds    *Dataset
+	up    *Upload
+	entry *FileEntry           // the upload's new file; nil when it holds no rows
+	sum   *summary.Accumulator // the new file's summary
+	pass  *uploadPass          // the upload's per-case checks, run in the version's pass
+	qopt  quality.Options
+	keyID string
+	opt   IngestOptions
+}
+
 // commit makes the new version from the latest one. The caller holds the
 // dataset's commit lock, so that the held-event comparison, the plan
 // (which may rewrite files) and the transaction see the same parent.
-func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, upass *uploadPass, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
+func (s *Store) commit(ctx context.Context, c *toCommit) (*IngestResult, error) {
+	ds, up, opt := c.ds, c.up, c.opt
 	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
 	if errors.Is(err, ErrNotFound) {
 		parent = nil
@@ -396,13 +409,13 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	if cv := opt.carried.carriedVersion(); cv != nil {
 		parent = cv // the same version, re-keyed (rekey.go)
 	}
-	plan, err := s.planFiles(ctx, ds, parent, entry, keyID, opt, qopt)
+	plan, err := s.planFiles(ctx, ds, parent, c.entry, c.keyID, opt, c.qopt)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	defer plan.release()
 	opt.carried.into(plan)
-	if err := s.removeCorrected(ctx, ds, plan, keyID, opt.held, parent); err != nil {
+	if err := s.removeCorrected(ctx, ds, plan, c.keyID, opt.held, parent); err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	if parent != nil && sameFiles(parent.Manifest.Files, plan.files) {
@@ -411,46 +424,148 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	if parent == nil && len(plan.files) == 0 {
 		return s.duplicate(ctx, ds, *up, nil)
 	}
-	if entry != nil {
-		plan.summaries[entry.SHA256] = sacc
-	}
-	// One per-case pass over every file of the new version: its case
-	// table, its summary's case figures and its report's, and the upload's
-	// own per-case checks on the way.
-	prev := s.groupsToExtend(ds, parent, plan.files, entry, opt.Mode)
-	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true, upass, prev)
+	nv, err := s.deriveVersion(ctx, c, parent, plan)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
-	defer vp.release()
+	defer nv.release()
+	ver, oldGroups, err := s.storeVersion(ctx, c, parent, plan, nv)
+	if err != nil {
+		// New blobs stay, unreferenced, for garbage collection.
+		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref().String(), "err", err)
+		return nil, fmt.Errorf("ingest: commit: %w", err)
+	}
+	s.dropGroups(ctx, oldGroups, nv.vp.groups)
+	s.opt.Logger.Info("version created", "dataset", ds.Ref().String(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
+		"rows", ver.Manifest.Rows, "rows_removed", plan.removed, "rejected", nv.rep.Rows.Rejected, "score", nv.rep.Score)
+	return &IngestResult{Upload: *up, Version: ver}, nil
+}
+
+// newVersion is what a commit derives from the files of the new version
+// before its transaction: the per-case pass, the case attributes, the
+// reports and the manifest, all but the upload's number.
+type newVersion struct {
+	vp   *versionPass
+	va   *versionAttrs
+	rep  *quality.Report // the upload's own
+	vrep *quality.Report // the version's
+	m    *Manifest
+}
+
+func (nv *newVersion) release() {
+	nv.va.done()
+	nv.vp.release()
+}
+
+// deriveVersion runs one per-case pass over every file of the new
+// version (its case table, its summary's case figures and its report's,
+// and the upload's own per-case checks on the way), then its case
+// attributes, its quality report and its manifest.
+func (s *Store) deriveVersion(ctx context.Context, c *toCommit, parent *Version, plan *filePlan) (*newVersion, error) {
+	ds, up, opt := c.ds, c.up, c.opt
+	if c.entry != nil {
+		plan.summaries[c.entry.SHA256] = c.sum
+	}
+	prev := s.groupsToExtend(ds, parent, plan.files, c.entry, opt.Mode)
+	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, c.qopt, c.keyID, true, c.pass, prev)
+	if err != nil {
+		return nil, err
+	}
 	if testHookGroupsWritten != nil {
 		testHookGroupsWritten()
 	}
-	va, err := s.caseAttributes(ctx, ds, parent, vp.table, opt.attrs, opt.Mode, keyID)
+	va, err := s.caseAttributes(ctx, ds, parent, vp.table, opt.attrs, opt.Mode, c.keyID)
 	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
+		vp.release()
+		return nil, err
 	}
-	defer va.done()
-	rep := upass.acc.Report()
-	rep.UnmappedColumns = up.Unmapped
-	up.Report = rep
+	nv := &newVersion{vp: vp, va: va}
+	nv.rep = c.pass.acc.Report()
+	nv.rep.UnmappedColumns = up.Unmapped
+	up.Report = nv.rep
 	// The version's report names the file of each sample line.
-	frep := rep.WithFile(up.Filename)
-	if entry != nil {
-		plan.reports[entry.SHA256] = frep
+	frep := nv.rep.WithFile(up.Filename)
+	if c.entry != nil {
+		plan.reports[c.entry.SHA256] = frep
 	}
 	merged, err := s.mergeQuality(ctx, parent, plan, frep, mergeMode(opt.Mode, plan))
 	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
+		nv.release()
+		return nil, err
 	}
-	vrep := quality.WithCases(merged, vp.cases)
-	vsum, fileSums := vp.summary, vp.fileStates
-	received := up.ReceivedAt
+	nv.vrep = quality.WithCases(merged, vp.cases)
+	nv.m = c.manifest(parent, plan, vp, va)
+	return nv, nil
+}
+
+// manifest builds the new version's manifest, the child of parent (or the
+// first), but for the upload's number, which its transaction gives it
+// (stampUpload).
+func (c *toCommit) manifest(parent *Version, plan *filePlan, vp *versionPass, va *versionAttrs) *Manifest {
+	opt := c.opt
+	var latest int
+	if parent != nil {
+		latest = parent.Number
+	}
+	m := &Manifest{
+		Dataset:       c.ds.Ref(),
+		Version:       latest + 1,
+		Parent:        latest,
+		Lineage:       Lineage{Mode: opt.Mode, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(plan.removed)},
+		SchemaVersion: schema.Version,
+		ProfileHash:   c.ds.ProfileHash, // what the upload was read with
+		KeyID:         c.keyID,
+		Files:         plan.files,
+		CaseTable:     vp.table,
+		CreatedBy:     opt.By,
+		CreatedAt:     c.up.ReceivedAt,
+	}
+	if va != nil {
+		m.CaseAttributes, m.Disclosure, m.Lineage.Suppressed = va.table, va.ref, va.sup
+	}
+	m.ProfileRevision = c.ds.Revision()
+	if opt.Mode == ModeReplaceWindow {
+		from, to := opt.From, opt.To
+		m.Lineage.From, m.Lineage.To, m.Lineage.Sites = &from, &to, opt.Sites
+	}
+	if parent != nil && opt.Mode != ModeReplaceAll {
+		m.Uploads = append(m.Uploads, parent.Manifest.Uploads...)
+	}
+	for _, f := range m.Files {
+		m.Rows += f.Rows
+	}
+	return m
+}
+
+// stampUpload gives m the number of the upload that makes it: its
+// lineage, its list of uploads and its new file name the upload.
+func (m *Manifest) stampUpload(id UploadID, entry *FileEntry) {
+	if entry != nil {
+		for i := range m.Files {
+			if m.Files[i].SHA256 == entry.SHA256 && m.Files[i].Upload == "" {
+				m.Files[i].Upload = id
+			}
+		}
+	}
+	m.Lineage.Upload = id
+	m.Uploads = append(m.Uploads, id)
+}
+
+// storeVersion stores the new version in one transaction, provided the
+// dataset's latest version is still parent: the upload numbered, the
+// manifest stamped with that number, then every record written. It returns
+// the version and the case groups the new version no longer uses.
+func (s *Store) storeVersion(ctx context.Context, c *toCommit, parent *Version, plan *filePlan, nv *newVersion) (*Version, *caseGroupSet, error) {
+	up, opt, m := c.up, c.opt, nv.m
+	rb, err := sealReport(m, nv.vrep)
+	if err != nil {
+		return nil, nil, err
+	}
 	var ver *Version
 	var oldGroups *caseGroupSet
 	err = s.db.Update(func(tx *bolt.Tx) error {
 		var cur Dataset
-		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
+		if err := getJSON(tx.Bucket(bucketDatasets), []byte(c.ds.Ref().String()), &cur, "dataset "+c.ds.Ref().String()); err != nil {
 			return err
 		}
 		if err := writableTx(tx, cur.Project, cur.Name); err != nil {
@@ -461,77 +576,23 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		}
 		nextUpload(&cur, up)
 		up.Alerts = append(driftAlerts(tx, cur.Ref().String(), up), heldShareAlerts(tx, cur.Ref().String(), up)...)
-		if entry != nil {
-			for i := range plan.files {
-				if plan.files[i].SHA256 == entry.SHA256 && plan.files[i].Upload == "" {
-					plan.files[i].Upload = up.ID
-				}
-			}
+		if opt.held.correcting() && up.Events != nil {
+			up.Events.Removed = plan.removed
 		}
-		m := Manifest{
-			Dataset:       cur.Ref(),
-			Version:       cur.Latest + 1,
-			Parent:        cur.Latest,
-			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(up, plan.removed)},
-			SchemaVersion: schema.Version,
-			ProfileHash:   ds.ProfileHash, // what the upload was read with
-			KeyID:         keyID,
-			Files:         plan.files,
-			CaseTable:     vp.table,
-			CreatedBy:     opt.By,
-			CreatedAt:     received,
-		}
-		if va != nil {
-			m.CaseAttributes, m.Disclosure, m.Lineage.Suppressed = va.table, va.ref, va.sup
-		}
-		m.ProfileRevision = ds.Revision()
-		if opt.Mode == ModeReplaceWindow {
-			from, to := opt.From, opt.To
-			m.Lineage.From, m.Lineage.To, m.Lineage.Sites = &from, &to, opt.Sites
-		}
-		if parent != nil && opt.Mode != ModeReplaceAll {
-			m.Uploads = append(m.Uploads, parent.Manifest.Uploads...)
-		}
-		m.Uploads = append(m.Uploads, up.ID)
-		for _, f := range m.Files {
-			m.Rows += f.Rows
-		}
-		v, err := commitManifest(tx, &m, vrep)
+		m.stampUpload(up.ID, c.entry)
+		v, err := commitManifest(tx, m, nv.vrep, rb)
 		if err != nil {
 			return err
 		}
-		v.State = StatePublished
-		if cur.Drafts {
-			v.State = StateDraft
-		} else {
-			at := received
-			v.PublishedAt, v.PublishedBy = &at, opt.By
-		}
-		if va != nil && va.ref.AboveThreshold {
-			// Above the project's disclosure threshold: a draft, until a
-			// curator publishes it with a recorded override.
-			v.State, v.PublishedAt, v.PublishedBy = StateDraft, nil, ""
-		}
-		if err := putDisclosure(tx, va); err != nil {
+		v.initialState(cur.Drafts, nv.va, up.ReceivedAt, opt.By)
+		if err := putDisclosure(tx, nv.va); err != nil {
 			return err
 		}
 		ver = v
 		up.Status = UploadAccepted
 		up.Version = v.Number
 		cur.Latest = v.Number
-		if err := putVersion(tx, v); err != nil {
-			return err
-		}
-		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref().String()), &cur); err != nil {
-			return err
-		}
-		if err := putSummaries(tx, cur.Ref().String(), v.Number, vsum, fileSums); err != nil {
-			return err
-		}
-		if err := putFileReports(tx, plan.reports); err != nil {
-			return err
-		}
-		if oldGroups, err = putGroups(tx, cur.Ref().String(), v.Number, plan.files, vp.groups); err != nil {
+		if oldGroups, err = putVersionRecords(tx, &cur, v, plan, nv); err != nil {
 			return err
 		}
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
@@ -542,17 +603,45 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 				return err
 			}
 		}
-		return auditCtx(ctx, tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref().String(), v.Number, opt.Mode))
+		return auditCtx(ctx, tx, up.ReceivedAt, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref().String(), v.Number, opt.Mode))
 	})
-	if err != nil {
-		// New blobs stay, unreferenced, for garbage collection.
-		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref().String(), "err", err)
-		return nil, fmt.Errorf("ingest: commit: %w", err)
+	return ver, oldGroups, err
+}
+
+// initialState sets the state a new version starts in: published, or a
+// draft when its dataset holds new versions as drafts or its case
+// attributes are above the project's disclosure threshold.
+func (v *Version) initialState(drafts bool, va *versionAttrs, at time.Time, by string) {
+	v.State = StatePublished
+	if drafts {
+		v.State = StateDraft
+	} else {
+		v.PublishedAt, v.PublishedBy = &at, by
 	}
-	s.dropGroups(ctx, oldGroups, vp.groups)
-	s.opt.Logger.Info("version created", "dataset", ds.Ref().String(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
-		"rows", ver.Manifest.Rows, "rows_removed", plan.removed, "rejected", rep.Rows.Rejected, "score", rep.Score)
-	return &IngestResult{Upload: *up, Version: ver}, nil
+	if va != nil && va.ref.AboveThreshold {
+		// Above the project's disclosure threshold: a draft, until a
+		// curator publishes it with a recorded override.
+		v.State, v.PublishedAt, v.PublishedBy = StateDraft, nil, ""
+	}
+}
+
+// putVersionRecords writes, in tx, the new version's record, its dataset
+// (cur, now naming it the latest), its summaries, its files' reports and
+// its case groups; it returns the groups no longer used.
+func putVersionRecords(tx *bolt.Tx, cur *Dataset, v *Version, plan *filePlan, nv *newVersion) (*caseGroupSet, error) {
+	if err := putVersion(tx, v); err != nil {
+		return nil, err
+	}
+	if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref().String()), cur); err != nil {
+		return nil, err
+	}
+	if err := putSummaries(tx, cur.Ref().String(), v.Number, nv.vp.summary, nv.vp.fileStates); err != nil {
+		return nil, err
+	}
+	if err := putFileReports(tx, plan.reports); err != nil {
+		return nil, err
+	}
+	return putGroups(tx, cur.Ref().String(), v.Number, plan.files, nv.vp.groups)
 }
 
 func sameFiles(a, b []FileEntry) bool {
