@@ -8,7 +8,6 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"strings"
 	"time"
 
 	bolt "go.etcd.io/bbolt"
@@ -206,7 +205,7 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			// Strings read from Parquet may point into the reader's
 			// buffers; the sort keeps events past the next read.
 			c := *e
-			cloneStrings(&c)
+			c.CloneTexts()
 			c.Line = quality.PackLine(c.Line, excls[i].flags(e))
 			return cp.Add(&c)
 		})
@@ -515,20 +514,4 @@ func parentRef(v *Version) string {
 		return ""
 	}
 	return v.Dataset.String()
-}
-
-// cloneStrings gives e strings of its own.
-func cloneStrings(e *schema.Event) {
-	e.Site = strings.Clone(e.Site)
-	e.CaseID = strings.Clone(e.CaseID)
-	e.SubjectID = strings.Clone(e.SubjectID)
-	e.ResourceID = strings.Clone(e.ResourceID)
-	e.Type = schema.EventType(strings.Clone(string(e.Type)))
-	e.Activity = strings.Clone(e.Activity)
-	e.Queue = strings.Clone(e.Queue)
-	e.Priority = strings.Clone(e.Priority)
-	e.Channel = strings.Clone(e.Channel)
-	e.Outcome = strings.Clone(e.Outcome)
-	e.EventID = strings.Clone(e.EventID)
-	e.InstanceID = strings.Clone(e.InstanceID)
 }

@@ -213,20 +213,23 @@ func (f *heldFilter) uploadCounts() *EventCounts {
 }
 
 // lineageCounts returns the counts a version's lineage records, given the
-// old events the commit removed; it records those on up's counts too.
-func (f *heldFilter) lineageCounts(up *Upload, removed int64) *EventCounts {
+// old events the commit removed.
+func (f *heldFilter) lineageCounts(removed int64) *EventCounts {
 	if f == nil {
 		return nil
 	}
 	c := f.counts
 	c.Sites = nil
-	if f.policy == ChangesCorrect && f.counts.Changed > 0 {
+	if f.correcting() {
 		c.Removed = removed
-		if up.Events != nil {
-			up.Events.Removed = removed
-		}
 	}
 	return &c
+}
+
+// correcting reports whether the upload's changed events replace the old
+// ones, so that the events its commit removed count on the upload too.
+func (f *heldFilter) correcting() bool {
+	return f != nil && f.policy == ChangesCorrect && f.counts.Changed > 0
 }
 
 // refusal returns why the upload is refused for its changed events, or

@@ -118,253 +118,353 @@ const RuleOutsideWindow = "outside_window"
 // server, nothing more. Work stops as soon as ctx ends, at the latest
 // after 4,096 more events.
 func (s *Store) Ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions) (*IngestResult, error) {
-	var st ingestState
-	res, err := s.ingest(ctx, project, dataset, src, opt, &st)
-	if err == nil || res != nil || st.up == nil {
+	in := &ingest{s: s, opt: opt}
+	res, err := in.run(ctx, project, dataset, src)
+	if err == nil || res != nil || in.up == nil {
 		return res, err
 	}
 	// Failed after reading began, for a reason other than the file's
-	// content. Its temp files are gone by now (ingest's defers), which a
+	// content. Its temp files are gone by now (run's cleanups), which a
 	// full disk needs before the record can be written.
-	up := *st.up
+	up := *in.up
 	rule, msg, sentinel := failure(ctx, err)
-	up.Bytes = st.raw.n
+	up.Bytes = in.raw.n
 	up.Status = UploadFailed
 	up.Error = &UploadError{Rule: rule, Message: msg}
 	if fe, ok := schema.AsFileError(err); ok {
 		up.Error.Line = fe.Line
 	}
-	if rerr := s.recordUpload(ctx, st.ds, &up); rerr != nil {
+	if rerr := s.recordUpload(ctx, in.ds, &up); rerr != nil {
 		return nil, errors.Join(err, rerr)
 	}
 	lvl := slog.LevelWarn
 	if sentinel == nil {
 		lvl = slog.LevelError
 	}
-	s.opt.Logger.Log(context.Background(), lvl, "upload failed", "dataset", st.ds.Ref(), "upload", up.ID, "rule", rule, "bytes", up.Bytes, "err", err)
+	s.opt.Logger.Log(context.Background(), lvl, "upload failed", "dataset", in.ds.Ref(), "upload", up.ID, "rule", rule, "bytes", up.Bytes, "err", err)
 	if sentinel != nil {
 		err = fmt.Errorf("%w: %w", sentinel, err)
 	}
 	return &IngestResult{Upload: up}, err
 }
 
-// ingestState is what Ingest needs of an ingest that failed: the upload
-// as far as it got.
-type ingestState struct {
-	ds  *Dataset
-	up  *Upload
-	raw *hashCounter
+// ingest is one upload on its way through the phases of Ingest, each a
+// method: start (options, dataset, key chain, profile), read (parse,
+// check each row, pseudonymize, sort), compare (the latest version, held
+// from then on), pass (each event in time order: quality, summary,
+// window, sites, the snapshot file, the per-case pass), check (the
+// dataset's accept and reject rules), write (the snapshot into the blob
+// store) and commit. A phase that ends the upload returns its result or
+// error; the cleanups run, last first, when run returns.
+type ingest struct {
+	s    *Store
+	opt  IngestOptions
+	ds   *Dataset
+	prof *schema.Profile
+	pz   *anonymize.Pseudonymizer
+	up   *Upload      // set once reading begins: a failure is recorded from then on
+	raw  *hashCounter // the upload's bytes as read
+	qopt quality.Options
+	acc  *quality.Accumulator
+	srt  *sorter
+	// set by pass
+	hf    *heldFilter
+	sw    *snapshotWriter
+	win   *windowCheck
+	bound *siteBinding
+	sacc  *summary.Accumulator
+	cases *CasePass // the upload's events, sorted by case on disk
+	entry *FileEntry
+	// cleanups run last first when run returns
+	cleanups []func()
 }
 
-func (s *Store) ingest(ctx context.Context, project, dataset string, src io.Reader, opt IngestOptions, st *ingestState) (*IngestResult, error) {
-	if err := opt.Validate(); err != nil {
+// run takes the upload through its phases in order.
+func (in *ingest) run(ctx context.Context, project, dataset string, src io.Reader) (*IngestResult, error) {
+	defer in.cleanup()
+	if err := in.start(ctx, project, dataset); err != nil {
 		return nil, err
 	}
-	ds, err := s.Dataset(ctx, project, dataset)
-	if err != nil {
-		return nil, err
+	if res, err := in.read(ctx, src); res != nil || err != nil {
+		return res, err
 	}
-	proj, err := s.Project(ctx, project)
-	if err != nil {
-		return nil, err
-	}
-	if err := ds.writable(proj); err != nil {
-		return nil, err
-	}
-	pz, err := anonymize.OpenKeyChain(s.opt.Master, proj.Name, proj.KeyChain())
-	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
-	}
-	prof, err := ds.EffectiveProfile()
-	if err != nil {
-		return nil, fmt.Errorf("ingest: dataset profile: %w", err)
-	}
-	received := s.opt.Now().UTC()
-	up := Upload{Dataset: ds.Ref(), ReceivedAt: received, By: opt.By, Mode: opt.Mode}
-	up.Filename = CleanFilename(opt.Filename)
-
-	raw := &hashCounter{h: sha256.New()}
-	st.ds, st.up, st.raw = ds, &up, raw
-	tee := io.TeeReader(src, raw)
-	qopt := quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity, MaxCase: prof.MaxCase(), Capacity: prof.Capacity}
-	if ds.WindowFrom != nil {
-		qopt.WindowFrom = *ds.WindowFrom
-	}
-	if ds.WindowTo != nil {
-		qopt.WindowTo = *ds.WindowTo
-	}
-	acc := quality.NewAccumulator(qopt)
-	srt := newSorter(s.opt.TempDir, s.opt.RunEvents)
-	defer srt.Close()
-
-	fail := func(err error) (*IngestResult, error) {
-		up.Bytes = raw.n
-		if fe, ok := schema.AsFileError(err); ok && isContentFault(ctx, err) {
-			up.Status = UploadFailed
-			up.Error = &UploadError{Rule: fe.Rule, Line: fe.Line, Column: fe.Column, Message: fe.Msg}
-			if rerr := s.recordUpload(ctx, ds, &up); rerr != nil {
-				return nil, rerr
-			}
-			s.opt.Logger.Warn("upload failed", "dataset", ds.Ref().String(), "upload", up.ID, "rule", fe.Rule, "line", fe.Line, "column", fe.Column)
-			return &IngestResult{Upload: up}, fmt.Errorf("%w: %w", ErrFileInvalid, err)
-		}
-		return nil, fmt.Errorf("ingest: %w", err)
-	}
-
-	opt.attrs = newAttrIngest(s.opt.TempDir, prof, pz)
-	defer opt.attrs.close()
-	rd, err := schema.NewReader(tee, prof, schema.ReaderOptions{Name: up.Filename, Limits: s.opt.Limits})
-	if err == nil {
-		err = readAll(ctx, rd, pz, acc, srt, opt.attrs)
-	}
-	if err != nil && !(removing(opt) && isNoRows(err)) {
-		return fail(err)
-	}
-	// Hash any bytes the parser did not need (a gzip trailer, say).
-	if _, err := io.Copy(io.Discard, tee); err != nil {
-		return fail(&schema.FileError{Rule: schema.RuleRead, Msg: "reading the upload failed", Err: err})
-	}
-	up.Bytes = raw.n
-	up.SHA256 = hex.EncodeToString(raw.h.Sum(nil))
-	if rd != nil {
-		up.Unmapped = rd.Unmapped()
-	}
-
-	if opt.Mode == ModeAppend {
-		if v, err := s.appendedBefore(ctx, ds, up.SHA256); err == nil {
-			return s.duplicate(ctx, ds, up, v)
+	if in.opt.Mode == ModeAppend {
+		if v, err := in.s.appendedBefore(ctx, in.ds, in.up.SHA256); err == nil {
+			return in.s.duplicate(ctx, in.ds, *in.up, v)
 		} else if !errors.Is(err, ErrNotFound) {
 			return nil, err
 		}
 	}
+	if err := in.compare(ctx); err != nil {
+		return nil, err
+	}
+	if err := in.pass(ctx); err != nil {
+		return nil, err
+	}
+	if res, err := in.check(ctx); res != nil || err != nil {
+		return res, err
+	}
+	if err := in.write(ctx); err != nil {
+		return nil, err
+	}
+	if testHookBeforeCommit != nil {
+		testHookBeforeCommit()
+	}
+	return in.s.commit(ctx, &toCommit{ds: in.ds, up: in.up, entry: in.entry, sum: in.sacc,
+		pass: &uploadPass{cases: in.cases, entry: in.entry, acc: in.acc}, qopt: in.qopt, keyID: in.pz.KeyID(), opt: in.opt})
+}
 
-	// From here to the commit the dataset's latest version stays the one
-	// the upload's events are compared with.
-	unlock := s.lockDataset(ds.Ref().String())
-	defer unlock()
+func (in *ingest) onDone(f func()) { in.cleanups = append(in.cleanups, f) }
+
+func (in *ingest) cleanup() {
+	for i := len(in.cleanups) - 1; i >= 0; i-- {
+		in.cleanups[i]()
+	}
+}
+
+// start checks the options and finds the dataset, its key chain and its
+// profile; the upload record begins.
+func (in *ingest) start(ctx context.Context, project, dataset string) error {
+	s := in.s
+	if err := in.opt.Validate(); err != nil {
+		return err
+	}
+	ds, err := s.Dataset(ctx, project, dataset)
+	if err != nil {
+		return err
+	}
+	proj, err := s.Project(ctx, project)
+	if err != nil {
+		return err
+	}
+	if err := ds.writable(proj); err != nil {
+		return err
+	}
+	if in.pz, err = anonymize.OpenKeyChain(s.opt.Master, proj.Name, proj.KeyChain()); err != nil {
+		return fmt.Errorf("ingest: %w", err)
+	}
+	if in.prof, err = ds.EffectiveProfile(); err != nil {
+		return fmt.Errorf("ingest: dataset profile: %w", err)
+	}
+	in.ds = ds
+	received := s.opt.Now().UTC()
+	in.up = &Upload{Dataset: ds.Ref(), ReceivedAt: received, By: in.opt.By, Mode: in.opt.Mode}
+	in.up.Filename = CleanFilename(in.opt.Filename)
+	in.raw = &hashCounter{h: sha256.New()}
+	prof := in.prof
+	in.qopt = quality.Options{UploadedAt: received, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, Historical: ds.Historical, ResourceCapacity: prof.ResourceCapacity, MaxCase: prof.MaxCase(), Capacity: prof.Capacity}
+	if ds.WindowFrom != nil {
+		in.qopt.WindowFrom = *ds.WindowFrom
+	}
+	if ds.WindowTo != nil {
+		in.qopt.WindowTo = *ds.WindowTo
+	}
+	in.acc = quality.NewAccumulator(in.qopt)
+	in.srt = newSorter(s.opt.TempDir, s.opt.RunEvents)
+	in.onDone(func() { in.srt.Close() })
+	return nil
+}
+
+// read parses every row of src through the profile, rejections to the
+// report and accepted events pseudonymized into the sorter, and hashes
+// the upload's bytes. A file that cannot be read ends the upload.
+func (in *ingest) read(ctx context.Context, src io.Reader) (*IngestResult, error) {
+	s, up := in.s, in.up
+	tee := io.TeeReader(src, in.raw)
+	in.opt.attrs = newAttrIngest(s.opt.TempDir, in.prof, in.pz)
+	in.onDone(in.opt.attrs.close)
+	rd, err := schema.NewReader(tee, in.prof, schema.ReaderOptions{Name: up.Filename, Limits: s.opt.Limits})
+	if err == nil {
+		err = readAll(ctx, rd, in.pz, in.acc, in.srt, in.opt.attrs)
+	}
+	if err != nil && !(removing(in.opt) && isNoRows(err)) {
+		return in.fail(ctx, err)
+	}
+	// Hash any bytes the parser did not need (a gzip trailer, say).
+	if _, err := io.Copy(io.Discard, tee); err != nil {
+		return in.fail(ctx, &schema.FileError{Rule: schema.RuleRead, Msg: "reading the upload failed", Err: err})
+	}
+	up.Bytes = in.raw.n
+	up.SHA256 = hex.EncodeToString(in.raw.h.Sum(nil))
+	if rd != nil {
+		up.Unmapped = rd.Unmapped()
+	}
+	return nil, nil
+}
+
+// fail ends an upload whose reading failed: one whose file is at fault is
+// recorded as failed here, with the file's error.
+func (in *ingest) fail(ctx context.Context, err error) (*IngestResult, error) {
+	s, ds, up := in.s, in.ds, in.up
+	up.Bytes = in.raw.n
+	if fe, ok := schema.AsFileError(err); ok && isContentFault(ctx, err) {
+		up.Status = UploadFailed
+		up.Error = &UploadError{Rule: fe.Rule, Line: fe.Line, Column: fe.Column, Message: fe.Msg}
+		if rerr := s.recordUpload(ctx, ds, up); rerr != nil {
+			return nil, rerr
+		}
+		s.opt.Logger.Warn("upload failed", "dataset", ds.Ref().String(), "upload", up.ID, "rule", fe.Rule, "line", fe.Line, "column", fe.Column)
+		return &IngestResult{Upload: *up}, fmt.Errorf("%w: %w", ErrFileInvalid, err)
+	}
+	return nil, fmt.Errorf("ingest: %w", err)
+}
+
+// compare takes the dataset's commit lock, so that the latest version
+// stays the one the upload's events are compared with until the commit,
+// and sets up that comparison.
+func (in *ingest) compare(ctx context.Context) error {
+	s := in.s
+	in.onDone(s.lockDataset(in.ds.Ref().String()))
 	// A latest version of an older key generation is carried to the
 	// current one first (rekey.go): the upload compares with its events
 	// and the new version is made from them.
-	cv, err := s.carryLatest(ctx, ds, pz, opt.Mode, qopt)
+	cv, err := s.carryLatest(ctx, in.ds, in.pz, in.opt.Mode, in.qopt)
 	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
+		return fmt.Errorf("ingest: %w", err)
 	}
-	defer cv.release()
-	opt.carried = cv
-	hf, err := s.heldFilterFor(ctx, ds, prof, opt.Mode, cv.carriedVersion())
+	in.onDone(cv.release)
+	in.opt.carried = cv
+	hf, err := s.heldFilterFor(ctx, in.ds, in.prof, in.opt.Mode, cv.carriedVersion())
 	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
+		return fmt.Errorf("ingest: %w", err)
 	}
-	defer hf.close()
-	opt.held = hf
+	in.onDone(hf.close)
+	in.opt.held, in.hf = hf, hf
+	return nil
+}
 
-	sw, err := newAttrSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, pz.KeyID(), opt.attrs.eventColumns())
+// pass takes the upload's events in time order, those held already
+// dropped, through quality, the summary, the window and site checks, the
+// snapshot file and the per-case pass. The events go to the per-case
+// pass (sorted by case on disk), each carrying what the time pass found
+// of it and marked as the upload's: the commit runs that pass once over
+// the whole new version, the upload's own checks and its report riding
+// along.
+func (in *ingest) pass(ctx context.Context) error {
+	s := in.s
+	sw, err := newAttrSnapshotWriter(s.opt.TempDir, s.opt.RowGroupRows, in.pz.KeyID(), in.opt.attrs.eventColumns())
 	if err != nil {
-		return nil, err
+		return err
 	}
-	defer sw.Remove()
-	win := newWindowCheck(opt)
-	bound := newSiteBinding(opt)
-	sacc := summary.New(summaryOptions(ds))
-	// The upload's events go to the per-case pass (sorted by case on disk),
-	// each carrying what the time pass found of it and marked as the
-	// upload's: the commit runs that pass once over the whole new version,
-	// the upload's own checks and its report riding along.
-	upCases := NewCasePass(s.opt.TempDir, s.opt.RunEvents)
-	upCases.Terminal = prof.Terminal
-	defer upCases.Close()
+	in.onDone(sw.Remove)
+	in.sw, in.win, in.bound = sw, newWindowCheck(in.opt), newSiteBinding(in.opt)
+	in.sacc = summary.New(summaryOptions(in.ds))
+	in.cases = NewCasePass(s.opt.TempDir, s.opt.RunEvents)
+	in.cases.Terminal = in.prof.Terminal
+	in.onDone(func() { in.cases.Close() })
 	var n int
-	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
+	err = in.srt.Finish(in.hf.keep(ctx, func(e *schema.Event) error {
 		if n++; n&4095 == 0 {
 			if err := ctx.Err(); err != nil {
 				return err
 			}
 		}
-		fl := acc.Observe(e)
-		if fl&quality.Excluded == 0 {
-			sacc.Observe(e)
-		}
-		win.observe(e)
-		bound.observe(e)
-		if err := sw.Write(e); err != nil {
-			return err
-		}
-		line := e.Line
-		e.Line = quality.PackLine(line, fl) | uploadMark
-		err := upCases.Add(e)
-		e.Line = line
-		return err
+		return in.observe(e)
 	}))
 	if err == nil {
 		err = ctx.Err() // the client may be gone
 	}
 	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
+		return fmt.Errorf("ingest: %w", err)
 	}
-	// Rows and rejections are known; the per-case figures come with the pass.
-	rep := acc.Report()
-	rep.UnmappedColumns = up.Unmapped
-	up.Report = rep
-	up.Events = hf.uploadCounts()
-	removeOnly := removing(opt) && rep.Rows.Total == 0
-	reject := func(uerr *UploadError, err error) (*IngestResult, error) {
-		// The per-case checks of the upload alone, for its report.
-		if _, perr := upCases.RunSplit(nil, []cases.Observer{acc}); perr != nil {
-			return nil, fmt.Errorf("ingest: %w", perr)
-		}
-		rep = acc.Report()
-		rep.UnmappedColumns = up.Unmapped
-		up.Report = rep
-		up.Status = UploadRejected
-		up.Error = uerr
-		if err := s.recordUpload(ctx, ds, &up); err != nil {
-			return nil, err
-		}
-		s.opt.Logger.Warn("upload rejected", "dataset", ds.Ref().String(), "upload", up.ID,
-			"rejected_share", rep.RejectedShare(), "reject_above", ds.RejectAbove)
-		return &IngestResult{Upload: up}, err
+	return nil
+}
+
+// observe takes one event of the time pass.
+func (in *ingest) observe(e *schema.Event) error {
+	fl := in.acc.Observe(e)
+	if fl&quality.Excluded == 0 {
+		in.sacc.Observe(e)
 	}
+	in.win.observe(e)
+	in.bound.observe(e)
+	if err := in.sw.Write(e); err != nil {
+		return err
+	}
+	line := e.Line
+	e.Line = quality.PackLine(line, fl) | uploadMark
+	err := in.cases.Add(e)
+	e.Line = line
+	return err
+}
+
+// check applies the dataset's rules to what the pass found: an upload
+// with no valid rows, too many invalid ones, events of sites it may not
+// write or outside its window, or refused changes is rejected.
+func (in *ingest) check(ctx context.Context) (*IngestResult, error) {
+	rep := in.report()
+	hf, ds := in.hf, in.ds
+	in.up.Events = hf.uploadCounts()
+	removeOnly := removing(in.opt) && rep.Rows.Total == 0
 	switch {
 	case hf.counts.Read == 0 && !removeOnly:
-		return reject(nil, fmt.Errorf("no valid rows among %d: %w", rep.Rows.Total, ErrRejected))
+		return in.reject(ctx, nil, fmt.Errorf("no valid rows among %d: %w", rep.Rows.Total, ErrRejected))
 	case hf.rejectedShare(rep.Rows.Rejected) > ds.RejectAbove:
-		return reject(nil, fmt.Errorf("%.2f%% of rows are invalid, above the dataset's threshold of %.2f%%: %w",
+		return in.reject(ctx, nil, fmt.Errorf("%.2f%% of rows are invalid, above the dataset's threshold of %.2f%%: %w",
 			100*hf.rejectedShare(rep.Rows.Rejected), 100*ds.RejectAbove, ErrRejected))
-	case bound.outside > 0:
-		ue := bound.uploadError()
-		return reject(ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
-	case win.outside > 0:
-		ue := win.uploadError()
-		return reject(ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
+	case in.bound.outside > 0:
+		ue := in.bound.uploadError()
+		return in.reject(ctx, ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
+	case in.win.outside > 0:
+		ue := in.win.uploadError()
+		return in.reject(ctx, ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
 	case hf.refusal() != nil:
 		ue := hf.refusal()
-		return reject(ue, fmt.Errorf("line %d: %s: %s: %w", ue.Line, ue.Rule, ue.Message, ErrRejected))
+		return in.reject(ctx, ue, fmt.Errorf("line %d: %s: %s: %w", ue.Line, ue.Rule, ue.Message, ErrRejected))
 	}
-	if opt.Mode == ModeReplaceWindow && len(opt.Sites) == 0 {
-		opt.Sites = win.siteList()
+	if in.opt.Mode == ModeReplaceWindow && len(in.opt.Sites) == 0 {
+		in.opt.Sites = in.win.siteList()
 	}
+	return nil, nil
+}
 
-	var entry *FileEntry
-	if sw.rows > 0 {
-		id, size, err := sw.Finish()
-		if err != nil {
-			return nil, fmt.Errorf("ingest: %w", err)
-		}
-		release := s.hold(id)
-		defer release()
-		var body io.Reader = sw.f
-		if testHookPut != nil {
-			body = testHookPut(body)
-		}
-		if err := s.blobs.Put(ctx, id, body); err != nil {
-			return nil, fmt.Errorf("ingest: %w", err)
-		}
-		entry = &FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows, Attributes: opt.attrs.eventColumns()}
+// report puts the quality report as far as it is known on the upload.
+func (in *ingest) report() *quality.Report {
+	rep := in.acc.Report()
+	rep.UnmappedColumns = in.up.Unmapped
+	in.up.Report = rep
+	return rep
+}
+
+// reject records the upload as rejected, with its report completed by
+// the per-case checks of the upload alone.
+func (in *ingest) reject(ctx context.Context, uerr *UploadError, err error) (*IngestResult, error) {
+	if _, perr := in.cases.RunSplit(nil, []cases.Observer{in.acc}); perr != nil {
+		return nil, fmt.Errorf("ingest: %w", perr)
 	}
-	if testHookBeforeCommit != nil {
-		testHookBeforeCommit()
+	rep := in.report()
+	up := in.up
+	up.Status = UploadRejected
+	up.Error = uerr
+	if err := in.s.recordUpload(ctx, in.ds, up); err != nil {
+		return nil, err
 	}
-	return s.commit(ctx, ds, &up, entry, sacc, &uploadPass{cases: upCases, entry: entry, acc: acc}, qopt, pz.KeyID(), opt)
+	in.s.opt.Logger.Warn("upload rejected", "dataset", in.ds.Ref().String(), "upload", up.ID,
+		"rejected_share", rep.RejectedShare(), "reject_above", in.ds.RejectAbove)
+	return &IngestResult{Upload: *up}, err
+}
+
+// write puts the upload's snapshot file, if it holds rows, into the blob
+// store, held there until the commit.
+func (in *ingest) write(ctx context.Context) error {
+	s, sw := in.s, in.sw
+	if sw.rows == 0 {
+		return nil
+	}
+	id, size, err := sw.Finish()
+	if err != nil {
+		return fmt.Errorf("ingest: %w", err)
+	}
+	in.onDone(s.hold(id))
+	var body io.Reader = sw.f
+	if testHookPut != nil {
+		body = testHookPut(body)
+	}
+	if err := s.blobs.Put(ctx, id, body); err != nil {
+		return fmt.Errorf("ingest: %w", err)
+	}
+	in.entry = &FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows, Attributes: in.opt.attrs.eventColumns()}
+	return nil
 }
 
 // isContentFault reports whether a file error is the file's own fault
@@ -383,10 +483,23 @@ func isNoRows(err error) bool {
 	return ok && (fe.Rule == schema.RuleNoRows || fe.Rule == schema.RuleEmptyFile)
 }
 
+// toCommit is what an upload that passed its checks brings to the commit.
+type toCommit struct {
+	ds    *Dataset
+	up    *Upload
+	entry *FileEntry           // the upload's new file; nil when it holds no rows
+	sum   *summary.Accumulator // the new file's summary
+	pass  *uploadPass          // the upload's per-case checks, run in the version's pass
+	qopt  quality.Options
+	keyID string
+	opt   IngestOptions
+}
+
 // commit makes the new version from the latest one. The caller holds the
 // dataset's commit lock, so that the held-event comparison, the plan
 // (which may rewrite files) and the transaction see the same parent.
-func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *FileEntry, sacc *summary.Accumulator, upass *uploadPass, qopt quality.Options, keyID string, opt IngestOptions) (*IngestResult, error) {
+func (s *Store) commit(ctx context.Context, c *toCommit) (*IngestResult, error) {
+	ds, up, opt := c.ds, c.up, c.opt
 	parent, err := s.Version(ctx, ds.Project, ds.Name, 0)
 	if errors.Is(err, ErrNotFound) {
 		parent = nil
@@ -396,13 +509,13 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	if cv := opt.carried.carriedVersion(); cv != nil {
 		parent = cv // the same version, re-keyed (rekey.go)
 	}
-	plan, err := s.planFiles(ctx, ds, parent, entry, keyID, opt, qopt)
+	plan, err := s.planFiles(ctx, ds, parent, c.entry, c.keyID, opt, c.qopt)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	defer plan.release()
 	opt.carried.into(plan)
-	if err := s.removeCorrected(ctx, ds, plan, keyID, opt.held, parent); err != nil {
+	if err := s.removeCorrected(ctx, ds, plan, c.keyID, opt.held, parent); err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	if parent != nil && sameFiles(parent.Manifest.Files, plan.files) {
@@ -411,46 +524,148 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 	if parent == nil && len(plan.files) == 0 {
 		return s.duplicate(ctx, ds, *up, nil)
 	}
-	if entry != nil {
-		plan.summaries[entry.SHA256] = sacc
-	}
-	// One per-case pass over every file of the new version: its case
-	// table, its summary's case figures and its report's, and the upload's
-	// own per-case checks on the way.
-	prev := s.groupsToExtend(ds, parent, plan.files, entry, opt.Mode)
-	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, qopt, keyID, true, upass, prev)
+	nv, err := s.deriveVersion(ctx, c, parent, plan)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
-	defer vp.release()
+	defer nv.release()
+	ver, oldGroups, err := s.storeVersion(ctx, c, parent, plan, nv)
+	if err != nil {
+		// New blobs stay, unreferenced, for garbage collection.
+		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref().String(), "err", err)
+		return nil, fmt.Errorf("ingest: commit: %w", err)
+	}
+	s.dropGroups(ctx, oldGroups, nv.vp.groups)
+	s.opt.Logger.Info("version created", "dataset", ds.Ref().String(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
+		"rows", ver.Manifest.Rows, "rows_removed", plan.removed, "rejected", nv.rep.Rows.Rejected, "score", nv.rep.Score)
+	return &IngestResult{Upload: *up, Version: ver}, nil
+}
+
+// newVersion is what a commit derives from the files of the new version
+// before its transaction: the per-case pass, the case attributes, the
+// reports and the manifest, all but the upload's number.
+type newVersion struct {
+	vp   *versionPass
+	va   *versionAttrs
+	rep  *quality.Report // the upload's own
+	vrep *quality.Report // the version's
+	m    *Manifest
+}
+
+func (nv *newVersion) release() {
+	nv.va.done()
+	nv.vp.release()
+}
+
+// deriveVersion runs one per-case pass over every file of the new
+// version (its case table, its summary's case figures and its report's,
+// and the upload's own per-case checks on the way), then its case
+// attributes, its quality report and its manifest.
+func (s *Store) deriveVersion(ctx context.Context, c *toCommit, parent *Version, plan *filePlan) (*newVersion, error) {
+	ds, up, opt := c.ds, c.up, c.opt
+	if c.entry != nil {
+		plan.summaries[c.entry.SHA256] = c.sum
+	}
+	prev := s.groupsToExtend(ds, parent, plan.files, c.entry, opt.Mode)
+	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, c.qopt, c.keyID, true, c.pass, prev)
+	if err != nil {
+		return nil, err
+	}
 	if testHookGroupsWritten != nil {
 		testHookGroupsWritten()
 	}
-	va, err := s.caseAttributes(ctx, ds, parent, vp.table, opt.attrs, opt.Mode, keyID)
+	va, err := s.caseAttributes(ctx, ds, parent, vp.table, opt.attrs, opt.Mode, c.keyID)
 	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
+		vp.release()
+		return nil, err
 	}
-	defer va.done()
-	rep := upass.acc.Report()
-	rep.UnmappedColumns = up.Unmapped
-	up.Report = rep
+	nv := &newVersion{vp: vp, va: va}
+	nv.rep = c.pass.acc.Report()
+	nv.rep.UnmappedColumns = up.Unmapped
+	up.Report = nv.rep
 	// The version's report names the file of each sample line.
-	frep := rep.WithFile(up.Filename)
-	if entry != nil {
-		plan.reports[entry.SHA256] = frep
+	frep := nv.rep.WithFile(up.Filename)
+	if c.entry != nil {
+		plan.reports[c.entry.SHA256] = frep
 	}
 	merged, err := s.mergeQuality(ctx, parent, plan, frep, mergeMode(opt.Mode, plan))
 	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
+		nv.release()
+		return nil, err
 	}
-	vrep := quality.WithCases(merged, vp.cases)
-	vsum, fileSums := vp.summary, vp.fileStates
-	received := up.ReceivedAt
+	nv.vrep = quality.WithCases(merged, vp.cases)
+	nv.m = c.manifest(parent, plan, vp, va)
+	return nv, nil
+}
+
+// manifest builds the new version's manifest, the child of parent (or the
+// first), but for the upload's number, which its transaction gives it
+// (stampUpload).
+func (c *toCommit) manifest(parent *Version, plan *filePlan, vp *versionPass, va *versionAttrs) *Manifest {
+	opt := c.opt
+	var latest int
+	if parent != nil {
+		latest = parent.Number
+	}
+	m := &Manifest{
+		Dataset:       c.ds.Ref(),
+		Version:       latest + 1,
+		Parent:        latest,
+		Lineage:       Lineage{Mode: opt.Mode, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(plan.removed)},
+		SchemaVersion: schema.Version,
+		ProfileHash:   c.ds.ProfileHash, // what the upload was read with
+		KeyID:         c.keyID,
+		Files:         plan.files,
+		CaseTable:     vp.table,
+		CreatedBy:     opt.By,
+		CreatedAt:     c.up.ReceivedAt,
+	}
+	if va != nil {
+		m.CaseAttributes, m.Disclosure, m.Lineage.Suppressed = va.table, va.ref, va.sup
+	}
+	m.ProfileRevision = c.ds.Revision()
+	if opt.Mode == ModeReplaceWindow {
+		from, to := opt.From, opt.To
+		m.Lineage.From, m.Lineage.To, m.Lineage.Sites = &from, &to, opt.Sites
+	}
+	if parent != nil && opt.Mode != ModeReplaceAll {
+		m.Uploads = append(m.Uploads, parent.Manifest.Uploads...)
+	}
+	for _, f := range m.Files {
+		m.Rows += f.Rows
+	}
+	return m
+}
+
+// stampUpload gives m the number of the upload that makes it: its
+// lineage, its list of uploads and its new file name the upload.
+func (m *Manifest) stampUpload(id UploadID, entry *FileEntry) {
+	if entry != nil {
+		for i := range m.Files {
+			if m.Files[i].SHA256 == entry.SHA256 && m.Files[i].Upload == "" {
+				m.Files[i].Upload = id
+			}
+		}
+	}
+	m.Lineage.Upload = id
+	m.Uploads = append(m.Uploads, id)
+}
+
+// storeVersion stores the new version in one transaction, provided the
+// dataset's latest version is still parent: the upload numbered, the
+// manifest stamped with that number, then every record written. It returns
+// the version and the case groups the new version no longer uses.
+func (s *Store) storeVersion(ctx context.Context, c *toCommit, parent *Version, plan *filePlan, nv *newVersion) (*Version, *caseGroupSet, error) {
+	up, opt, m := c.up, c.opt, nv.m
+	rb, err := sealReport(m, nv.vrep)
+	if err != nil {
+		return nil, nil, err
+	}
 	var ver *Version
 	var oldGroups *caseGroupSet
 	err = s.db.Update(func(tx *bolt.Tx) error {
 		var cur Dataset
-		if err := getJSON(tx.Bucket(bucketDatasets), []byte(ds.Ref().String()), &cur, "dataset "+ds.Ref().String()); err != nil {
+		if err := getJSON(tx.Bucket(bucketDatasets), []byte(c.ds.Ref().String()), &cur, "dataset "+c.ds.Ref().String()); err != nil {
 			return err
 		}
 		if err := writableTx(tx, cur.Project, cur.Name); err != nil {
@@ -461,77 +676,23 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 		}
 		nextUpload(&cur, up)
 		up.Alerts = append(driftAlerts(tx, cur.Ref().String(), up), heldShareAlerts(tx, cur.Ref().String(), up)...)
-		if entry != nil {
-			for i := range plan.files {
-				if plan.files[i].SHA256 == entry.SHA256 && plan.files[i].Upload == "" {
-					plan.files[i].Upload = up.ID
-				}
-			}
+		if opt.held.correcting() && up.Events != nil {
+			up.Events.Removed = plan.removed
 		}
-		m := Manifest{
-			Dataset:       cur.Ref(),
-			Version:       cur.Latest + 1,
-			Parent:        cur.Latest,
-			Lineage:       Lineage{Mode: opt.Mode, Upload: up.ID, RowsRemoved: plan.removed, Events: opt.held.lineageCounts(up, plan.removed)},
-			SchemaVersion: schema.Version,
-			ProfileHash:   ds.ProfileHash, // what the upload was read with
-			KeyID:         keyID,
-			Files:         plan.files,
-			CaseTable:     vp.table,
-			CreatedBy:     opt.By,
-			CreatedAt:     received,
-		}
-		if va != nil {
-			m.CaseAttributes, m.Disclosure, m.Lineage.Suppressed = va.table, va.ref, va.sup
-		}
-		m.ProfileRevision = ds.Revision()
-		if opt.Mode == ModeReplaceWindow {
-			from, to := opt.From, opt.To
-			m.Lineage.From, m.Lineage.To, m.Lineage.Sites = &from, &to, opt.Sites
-		}
-		if parent != nil && opt.Mode != ModeReplaceAll {
-			m.Uploads = append(m.Uploads, parent.Manifest.Uploads...)
-		}
-		m.Uploads = append(m.Uploads, up.ID)
-		for _, f := range m.Files {
-			m.Rows += f.Rows
-		}
-		v, err := commitManifest(tx, &m, vrep)
+		m.stampUpload(up.ID, c.entry)
+		v, err := commitManifest(tx, m, nv.vrep, rb)
 		if err != nil {
 			return err
 		}
-		v.State = StatePublished
-		if cur.Drafts {
-			v.State = StateDraft
-		} else {
-			at := received
-			v.PublishedAt, v.PublishedBy = &at, opt.By
-		}
-		if va != nil && va.ref.AboveThreshold {
-			// Above the project's disclosure threshold: a draft, until a
-			// curator publishes it with a recorded override.
-			v.State, v.PublishedAt, v.PublishedBy = StateDraft, nil, ""
-		}
-		if err := putDisclosure(tx, va); err != nil {
+		v.initialState(cur.Drafts, nv.va, up.ReceivedAt, opt.By)
+		if err := putDisclosure(tx, nv.va); err != nil {
 			return err
 		}
 		ver = v
 		up.Status = UploadAccepted
 		up.Version = v.Number
 		cur.Latest = v.Number
-		if err := putVersion(tx, v); err != nil {
-			return err
-		}
-		if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref().String()), &cur); err != nil {
-			return err
-		}
-		if err := putSummaries(tx, cur.Ref().String(), v.Number, vsum, fileSums); err != nil {
-			return err
-		}
-		if err := putFileReports(tx, plan.reports); err != nil {
-			return err
-		}
-		if oldGroups, err = putGroups(tx, cur.Ref().String(), v.Number, plan.files, vp.groups); err != nil {
+		if oldGroups, err = putVersionRecords(tx, &cur, v, plan, nv); err != nil {
 			return err
 		}
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
@@ -542,17 +703,45 @@ func (s *Store) commit(ctx context.Context, ds *Dataset, up *Upload, entry *File
 				return err
 			}
 		}
-		return auditCtx(ctx, tx, received, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref().String(), v.Number, opt.Mode))
+		return auditCtx(ctx, tx, up.ReceivedAt, opt.By, "version.create", fmt.Sprintf("%s@%d (%s)", cur.Ref().String(), v.Number, opt.Mode))
 	})
-	if err != nil {
-		// New blobs stay, unreferenced, for garbage collection.
-		s.opt.Logger.Error("commit failed; new files are unreferenced", "dataset", ds.Ref().String(), "err", err)
-		return nil, fmt.Errorf("ingest: commit: %w", err)
+	return ver, oldGroups, err
+}
+
+// initialState sets the state a new version starts in: published, or a
+// draft when its dataset holds new versions as drafts or its case
+// attributes are above the project's disclosure threshold.
+func (v *Version) initialState(drafts bool, va *versionAttrs, at time.Time, by string) {
+	v.State = StatePublished
+	if drafts {
+		v.State = StateDraft
+	} else {
+		v.PublishedAt, v.PublishedBy = &at, by
 	}
-	s.dropGroups(ctx, oldGroups, vp.groups)
-	s.opt.Logger.Info("version created", "dataset", ds.Ref().String(), "version", ver.Number, "upload", up.ID, "mode", opt.Mode,
-		"rows", ver.Manifest.Rows, "rows_removed", plan.removed, "rejected", rep.Rows.Rejected, "score", rep.Score)
-	return &IngestResult{Upload: *up, Version: ver}, nil
+	if va != nil && va.ref.AboveThreshold {
+		// Above the project's disclosure threshold: a draft, until a
+		// curator publishes it with a recorded override.
+		v.State, v.PublishedAt, v.PublishedBy = StateDraft, nil, ""
+	}
+}
+
+// putVersionRecords writes, in tx, the new version's record, its dataset
+// (cur, now naming it the latest), its summaries, its files' reports and
+// its case groups; it returns the groups no longer used.
+func putVersionRecords(tx *bolt.Tx, cur *Dataset, v *Version, plan *filePlan, nv *newVersion) (*caseGroupSet, error) {
+	if err := putVersion(tx, v); err != nil {
+		return nil, err
+	}
+	if err := putJSON(tx.Bucket(bucketDatasets), []byte(cur.Ref().String()), cur); err != nil {
+		return nil, err
+	}
+	if err := putSummaries(tx, cur.Ref().String(), v.Number, nv.vp.summary, nv.vp.fileStates); err != nil {
+		return nil, err
+	}
+	if err := putFileReports(tx, plan.reports); err != nil {
+		return nil, err
+	}
+	return putGroups(tx, cur.Ref().String(), v.Number, plan.files, nv.vp.groups)
 }
 
 func sameFiles(a, b []FileEntry) bool {

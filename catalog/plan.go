@@ -175,7 +175,7 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 			return err
 		}
 		c := *e
-		cloneStrings(&c)
+		c.CloneTexts()
 		c.Line = quality.PackLine(c.Line, fl)
 		return cp.Add(&c)
 	})

@@ -163,7 +163,7 @@ func (s *Store) rekeyFile(ctx context.Context, ds *Dataset, f FileEntry, rk *ano
 			return err
 		}
 		ce := *e
-		cloneStrings(&ce)
+		ce.CloneTexts()
 		ce.Line = quality.PackLine(ce.Line, fl)
 		return cp.Add(&ce)
 	})

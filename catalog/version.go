@@ -102,17 +102,26 @@ func putVersion(tx *bolt.Tx, v *Version) error {
 	return putJSON(tx.Bucket(bucketVersions), seqKey(v.Dataset.String(), v.Number), &rec)
 }
 
-// commitManifest stores the version's quality report and the manifest's
-// canonical bytes (the report referenced by its sha256), once, in tx, and
+// sealReport encodes the version's quality report, before the
+// transaction, and references it from m by its sha256.
+func sealReport(m *Manifest, rep *quality.Report) ([]byte, error) {
+	if rep == nil {
+		return nil, nil
+	}
+	rb, err := json.Marshal(rep)
+	if err != nil {
+		return nil, fmt.Errorf("quality report: %w", err)
+	}
+	m.Quality = &ReportRef{SHA256: blob.ID(sha256.Sum256(rb)), Bytes: int64(len(rb)), Score: rep.Score}
+	return rb, nil
+}
+
+// commitManifest stores the version's quality report (rb, from
+// sealReport) and the manifest's canonical bytes, once, in tx, and
 // returns the version they make, in no state yet. These bytes are the
 // manifest from now on: nothing re-encodes it.
-func commitManifest(tx *bolt.Tx, m *Manifest, rep *quality.Report) (*Version, error) {
+func commitManifest(tx *bolt.Tx, m *Manifest, rep *quality.Report, rb []byte) (*Version, error) {
 	if rep != nil {
-		rb, err := json.Marshal(rep)
-		if err != nil {
-			return nil, fmt.Errorf("quality report: %w", err)
-		}
-		m.Quality = &ReportRef{SHA256: blob.ID(sha256.Sum256(rb)), Bytes: int64(len(rb)), Score: rep.Score}
 		if err := putOnce(tx.Bucket(bucketReports), "quality report", m.Quality.SHA256.String(), rb); err != nil {
 			return nil, err
 		}

@@ -157,11 +157,18 @@ func fieldNames() []Field {
 // occurred_at, and Attrs) strings of their own, for an event read into
 // buffers its reader reuses.
 func (e *Event) CloneStrings() {
+	e.CloneTexts()
+	e.Attrs = strings.Clone(e.Attrs)
+}
+
+// CloneTexts gives e's text fields (every field of the table but
+// occurred_at) strings of their own and leaves Attrs as it is, for a
+// reader that joins Attrs into a new string already (JoinAttrs).
+func (e *Event) CloneTexts() {
 	for _, off := range textOffsets {
 		p := str(e, off)
 		*p = strings.Clone(*p)
 	}
-	e.Attrs = strings.Clone(e.Attrs)
 }
 
 // TextFieldCount is the number of text fields of schema v1: every field

@@ -148,6 +148,40 @@ func TestCloneStrings(t *testing.T) {
 	}
 }
 
+// TestCloneTextsLeavesAttrs: CloneTexts gives every text field of the
+// table a copy of its own, like CloneStrings, but leaves Attrs sharing its
+// bytes.
+func TestCloneTextsLeavesAttrs(t *testing.T) {
+	var e Event
+	var bufs [][]byte
+	for _, f := range Fields {
+		if f == FieldOccurredAt {
+			continue
+		}
+		b := []byte("v-" + string(f))
+		bufs = append(bufs, b)
+		e.SetValue(f, unsafe.String(&b[0], len(b)))
+	}
+	ab := []byte("a\x00b")
+	e.Attrs = unsafe.String(&ab[0], len(ab))
+	e.CloneTexts()
+	for _, b := range bufs {
+		for i := range b {
+			b[i] = 'x'
+		}
+	}
+	for _, f := range Fields {
+		if f != FieldOccurredAt {
+			if got := e.Value(f); got != "v-"+string(f) {
+				t.Errorf("%s = %q after its buffer changed, want %q", f, got, "v-"+string(f))
+			}
+		}
+	}
+	if unsafe.StringData(e.Attrs) != &ab[0] {
+		t.Errorf("Attrs was copied; CloneTexts leaves it as it is")
+	}
+}
+
 // TestTextsAndSameFields: Texts holds every string schema field of Event
 // (found by reflection) in schema order, and SameFields tells apart two
 // events that differ in any one field, the instant at microsecond
