@@ -185,6 +185,11 @@ func (s *Store) List(ctx context.Context, fn func(blob.Info) error) error {
 			return nil // not ours
 		}
 		fi, err := d.Info()
+		if errors.Is(err, fs.ErrNotExist) {
+			// Deleted since the directory was read (a commit dropping
+			// the case groups it replaced): not there to list.
+			return nil
+		}
 		if err != nil {
 			return err
 		}
