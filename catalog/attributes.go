@@ -9,6 +9,8 @@ import (
 	"hash"
 	"io"
 	"os"
+	"slices"
+	"strconv"
 	"strings"
 	"time"
 
@@ -327,8 +329,10 @@ func (va *versionAttrs) done() {
 // it to the blob store, and computes the disclosure report; with the
 // project's Suppress set, cases in classes below k lose their
 // quasi-identifiers first. It returns nil when the profile declares no
-// attributes or the version has no case table.
-func (s *Store) caseAttributes(ctx context.Context, ds *Dataset, parent *Version, caseTable *CaseTableEntry, ai *attrIngest, mode Mode, keyID string) (*versionAttrs, error) {
+// attributes or the version has no case table. With event-level sensitive
+// attributes, the version's files are read for their values
+// (eventSensitive).
+func (s *Store) caseAttributes(ctx context.Context, ds *Dataset, parent *Version, files []FileEntry, caseTable *CaseTableEntry, ai *attrIngest, mode Mode, keyID string) (*versionAttrs, error) {
 	if ai == nil || len(ai.attrs) == 0 || caseTable == nil {
 		return nil, nil
 	}
@@ -373,6 +377,15 @@ func (s *Store) caseAttributes(ctx context.Context, ds *Dataset, parent *Version
 	if err != nil {
 		return nil, err
 	}
+	var en []string // event-level sensitive attributes
+	for _, a := range ai.events {
+		if a.Role == schema.RoleSensitive {
+			en = append(en, a.Name)
+		}
+	}
+	if err := s.eventSensitive(ctx, files, en, join); err != nil {
+		return nil, err
+	}
 
 	var quasi, sens []int
 	var qn, sn []string
@@ -385,11 +398,11 @@ func (s *Store) caseAttributes(ctx context.Context, ds *Dataset, parent *Version
 		}
 	}
 	analyze := func(small map[string]bool, write func(caseID string, vals []string) error) (*disclosure.Report, int64, error) {
-		an := disclosure.New(disclosure.Options{Quasi: qn, Sensitive: sn, K: pol.K, MaxRisk: pol.MaxRisk, Dir: s.opt.TempDir, Memory: 4 * attrMemory})
+		an := disclosure.New(disclosure.Options{Quasi: qn, Sensitive: sn, EventSensitive: en, K: pol.K, MaxRisk: pol.MaxRisk, Dir: s.opt.TempDir, Memory: 4 * attrMemory})
 		defer an.Close()
 		q, sv := make([]string, len(quasi)), make([]string, len(sens))
 		var conflicts, suppressed int64
-		err := eachCase(join, len(cols), func(caseID string, vals []string, conflict bool) error {
+		err := eachCase(join, len(cols), len(en), func(caseID string, vals []string, events [][]string, conflict bool) error {
 			if conflict {
 				conflicts++
 			}
@@ -410,7 +423,7 @@ func (s *Store) caseAttributes(ctx context.Context, ds *Dataset, parent *Version
 					return err
 				}
 			}
-			return an.Add(q, sv)
+			return an.AddCase(q, sv, events)
 		})
 		if err != nil {
 			return nil, 0, err
@@ -487,13 +500,63 @@ type suppressNeeded struct{ small map[string]bool }
 
 func (*suppressNeeded) Error() string { return "suppression needed" }
 
+// eventSensitive adds to the join, for each event of files carrying a
+// value of an event-level sensitive attribute named in names, the record
+// case \0 "3" \0 attribute index \0 value: the counter keeps each once,
+// so a case's records are the distinct values its events carry across
+// the version's files. Files without those columns are not read; with no
+// names, nothing is.
+func (s *Store) eventSensitive(ctx context.Context, files []FileEntry, names []string, join *disclosure.Counter) error {
+	if len(names) == 0 {
+		return nil
+	}
+	var key []byte
+	for _, f := range files {
+		if f.Attributes == nil {
+			continue
+		}
+		var pos, idx []int // position in the file's attributes, index in names
+		for p, c := range f.Attributes.Columns() {
+			if i := slices.Index(names, c.Name); i >= 0 && c.Role == schema.RoleSensitive {
+				pos, idx = append(pos, p), append(idx, i)
+			}
+		}
+		if len(pos) == 0 {
+			continue
+		}
+		err := s.readFile(ctx, f.SHA256, func(e *schema.Event) error {
+			for j, p := range pos {
+				v := e.AttrValue(p)
+				if v == "" || e.CaseID == "" {
+					continue
+				}
+				key = attrKey(key[:0], e.CaseID, '3', []string{strconv.Itoa(idx[j]), v})
+				if err := join.Add(string(key), 1); err != nil {
+					return err
+				}
+			}
+			return nil
+		})
+		if err != nil {
+			return fmt.Errorf("event attributes: %w", err)
+		}
+	}
+	return nil
+}
+
 // eachCase walks the join's records case by case: for each case of the
 // case table, its values are the upload's (the first in order when its
-// rows gave several sets: conflict), else the parent's, else all NULL.
-func eachCase(join *disclosure.Counter, n int, fn func(caseID string, vals []string, conflict bool) error) error {
+// rows gave several sets: conflict), else the parent's, else all NULL;
+// events holds, for each of the m event-level sensitive attributes, the
+// distinct values the case's events carry (nil when m is 0).
+func eachCase(join *disclosure.Counter, n, m int, fn func(caseID string, vals []string, events [][]string, conflict bool) error) error {
 	var cur string
 	inTable, have, conflict := false, 0, false // have: 0 none, 1 parent's, 2 upload's
 	vals := make([]string, n)
+	var events [][]string
+	if m > 0 {
+		events = make([][]string, m)
+	}
 	flush := func() error {
 		if !inTable {
 			return nil
@@ -501,7 +564,7 @@ func eachCase(join *disclosure.Counter, n int, fn func(caseID string, vals []str
 		if have == 0 {
 			clear(vals)
 		}
-		return fn(cur, vals, conflict)
+		return fn(cur, vals, events, conflict)
 	}
 	started := false
 	err := join.Each(func(k string, _ uint64) error {
@@ -517,6 +580,9 @@ func eachCase(join *disclosure.Counter, n int, fn func(caseID string, vals []str
 				}
 			}
 			started, cur, inTable, have, conflict = true, c, false, 0, false
+			for i := range events {
+				events[i] = events[i][:0]
+			}
 		}
 		switch tag {
 		case '0':
@@ -533,6 +599,12 @@ func eachCase(join *disclosure.Counter, n int, fn func(caseID string, vals []str
 			case t == have && t == 2:
 				conflict = true
 			}
+		case '3':
+			i, err := strconv.Atoi(parts[2])
+			if len(parts) != 4 || err != nil || i < 0 || i >= m {
+				return fmt.Errorf("case attributes: a malformed event record")
+			}
+			events[i] = append(events[i], parts[3])
 		}
 		return nil
 	})

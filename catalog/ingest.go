@@ -574,7 +574,7 @@ func (s *Store) deriveVersion(ctx context.Context, c *toCommit, parent *Version,
 	if testHookGroupsWritten != nil {
 		testHookGroupsWritten()
 	}
-	va, err := s.caseAttributes(ctx, ds, parent, vp.table, opt.attrs, opt.Mode, c.keyID)
+	va, err := s.caseAttributes(ctx, ds, parent, plan.files, vp.table, opt.attrs, opt.Mode, c.keyID)
 	if err != nil {
 		vp.release()
 		return nil, err

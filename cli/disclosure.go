@@ -56,7 +56,11 @@ func printDisclosure(e *env, name string, r *disclosure.Report) error {
 	}
 	fmt.Fprintf(w, "class sizes: %s\n", strings.Join(sizes, ", "))
 	for _, d := range r.Diversity {
-		fmt.Fprintf(w, "l-diversity of %s: %d (%d classes share one value, %d cases)\n", d.Attribute, d.L, d.Homogeneous, d.CasesInThem)
+		name := d.Attribute
+		if d.Level != "" {
+			name += " (" + d.Level + " level)"
+		}
+		fmt.Fprintf(w, "l-diversity of %s: %d (%d classes share one value, %d cases)\n", name, d.L, d.Homogeneous, d.CasesInThem)
 	}
 	if d := r.Driver; d != nil {
 		fmt.Fprintf(w, "smallest classes: %s alone already make a class of %d\n", list(d.Attributes), d.Smallest)

@@ -12,10 +12,14 @@ import (
 type Options struct {
 	Quasi     []string // names of the quasi-identifiers, in the order values are given
 	Sensitive []string // names of the sensitive attributes, in the order values are given
-	K         int      // the project's k: classes smaller than K are "below k"
-	MaxRisk   float64  // the project's threshold on the maximum prosecutor risk
-	Dir       string   // where class counts spill
-	Memory    int      // bytes of class keys held in memory, over all counters (default 64 MiB)
+	// EventSensitive names the event-level sensitive attributes, in the
+	// order AddCase takes their value sets: a case carries a set of values
+	// (the distinct ones its events carry), not one.
+	EventSensitive []string
+	K              int     // the project's k: classes smaller than K are "below k"
+	MaxRisk        float64 // the project's threshold on the maximum prosecutor risk
+	Dir            string  // where class counts spill
+	Memory         int     // bytes of class keys held in memory, over all counters (default 64 MiB)
 }
 
 // DefaultMemory is the memory bound of an Analyzer's counters.
@@ -34,6 +38,9 @@ type Report struct {
 	MaxRisk   float64  `json:"max_risk"` // the project's threshold
 	Quasi     []string `json:"quasi_identifiers"`
 	Sensitive []string `json:"sensitive"`
+	// EventSensitive names the event-level sensitive attributes; absent
+	// when there are none.
+	EventSensitive []string `json:"event_sensitive,omitempty"`
 	// Classes is the number of equivalence classes: sets of cases equal on
 	// every quasi-identifier (a missing value is a value of its own).
 	Classes int64 `json:"classes"`
@@ -87,12 +94,17 @@ type Risk struct {
 // Diversity is the distinct l-diversity of one sensitive attribute: the
 // fewest distinct values it takes in any class (missing values not
 // counted). A class where every case has the same value (l = 1) discloses
-// it to anyone who can place a person in the class.
+// it to anyone who can place a person in the class. For an event-level
+// attribute (Level "event") a class's values are the distinct values any
+// event of any of its cases carries.
 type Diversity struct {
 	Attribute   string `json:"attribute"`
 	L           int64  `json:"l"`
 	Homogeneous int64  `json:"homogeneous_classes"` // classes with one distinct value
 	CasesInThem int64  `json:"homogeneous_cases"`   // their cases with a value
+	// Level is "event" for an event-level attribute; absent for a case
+	// attribute.
+	Level string `json:"level,omitempty"`
 }
 
 // Combination is the k-anonymity of one subset of the quasi-identifiers.
@@ -133,11 +145,11 @@ func New(opt Options) *Analyzer {
 	}
 	masks = append(masks, full)
 	a := &Analyzer{opt: opt, masks: masks}
-	per := opt.Memory / (len(masks) + len(opt.Sensitive))
+	per := opt.Memory / (len(masks) + len(opt.Sensitive) + len(opt.EventSensitive))
 	for range masks {
 		a.subs = append(a.subs, NewCounter(opt.Dir, per))
 	}
-	for range opt.Sensitive {
+	for range len(opt.Sensitive) + len(opt.EventSensitive) {
 		a.sens = append(a.sens, NewCounter(opt.Dir, per))
 	}
 	return a
@@ -148,10 +160,21 @@ func New(opt Options) *Analyzer {
 func ClassKey(quasi []string) string { return strings.Join(quasi, "\x00") }
 
 // Add takes one case: its quasi-identifier and sensitive values in the
-// order of Options ("" is missing).
-func (a *Analyzer) Add(quasi, sensitive []string) error {
+// order of Options ("" is missing). With event-level sensitive attributes,
+// use AddCase.
+func (a *Analyzer) Add(quasi, sensitive []string) error { return a.AddCase(quasi, sensitive, nil) }
+
+// AddCase takes one case: its quasi-identifier and sensitive values as Add
+// does, and for each event-level sensitive attribute (Options order) the
+// set of distinct non-empty values its events carry; events is nil or has
+// one set per attribute. A value given twice in one set counts the case
+// twice in the homogeneous cases.
+func (a *Analyzer) AddCase(quasi, sensitive []string, events [][]string) error {
 	if len(quasi) != len(a.opt.Quasi) || len(sensitive) != len(a.opt.Sensitive) {
 		return fmt.Errorf("disclosure: %d quasi-identifiers and %d sensitive values, want %d and %d", len(quasi), len(sensitive), len(a.opt.Quasi), len(a.opt.Sensitive))
+	}
+	if events != nil && len(events) != len(a.opt.EventSensitive) {
+		return fmt.Errorf("disclosure: %d event-level value sets, want %d", len(events), len(a.opt.EventSensitive))
 	}
 	a.cases++
 	for i, m := range a.masks {
@@ -180,6 +203,18 @@ func (a *Analyzer) Add(quasi, sensitive []string) error {
 		k = append(k, v...)
 		if err := a.sens[i].Add(string(k), 1); err != nil {
 			return err
+		}
+	}
+	for i, set := range events {
+		for _, v := range set {
+			if v == "" {
+				continue
+			}
+			k := append(a.key[:len(a.key):len(a.key)], 0)
+			k = append(k, v...)
+			if err := a.sens[len(a.opt.Sensitive)+i].Add(string(k), 1); err != nil {
+				return err
+			}
 		}
 	}
 	return nil
@@ -244,6 +279,15 @@ func (a *Analyzer) Report() (*Report, error) {
 		}
 		d.Attribute = name
 		r.Diversity = append(r.Diversity, d)
+	}
+	for i, name := range a.opt.EventSensitive {
+		d, err := a.diversity(len(a.opt.Sensitive)+i, r.Classes)
+		if err != nil {
+			return nil, err
+		}
+		d.Attribute, d.Level = name, "event"
+		r.Diversity = append(r.Diversity, d)
+		r.EventSensitive = append(r.EventSensitive, name)
 	}
 	// The driver: the fewest attributes whose classes are already as small
 	// as those of all of them; ties go to more cases below k, then to the
