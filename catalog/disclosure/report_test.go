@@ -163,3 +163,42 @@ func TestGeneratedPopulation(t *testing.T) {
 		})
 	}
 }
+
+// TestEventSets: an event-level sensitive attribute, each case carrying a
+// set of values, listed after the case-level one and marked by its level.
+// Counted by hand:
+//
+//	class  case  outcome  codes (event-level)
+//	F      1     x        {A, B}
+//	F      2     x        {A}
+//	M      3     y        {}
+//	M      4     z        {C}
+//
+// codes: F has {A, B} (l 2), M has {C} (l 1, one case with a value);
+// outcome: F {x} homogeneous (2 cases), M {y, z}.
+func TestEventSets(t *testing.T) {
+	a := New(Options{Quasi: []string{"sex"}, Sensitive: []string{"outcome"}, EventSensitive: []string{"codes"}, K: 2, MaxRisk: 1, Dir: t.TempDir()})
+	defer a.Close()
+	for _, c := range []struct {
+		sex, outcome string
+		codes        []string
+	}{{"F", "x", []string{"A", "B"}}, {"F", "x", []string{"A"}}, {"M", "y", nil}, {"M", "z", []string{"C"}}} {
+		if err := a.AddCase([]string{c.sex}, []string{c.outcome}, [][]string{c.codes}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := a.AddCase([]string{"F"}, []string{"x"}, [][]string{nil, nil}); err == nil {
+		t.Error("two value sets for one event-level attribute were taken")
+	}
+	r, err := a.Report()
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := []Diversity{
+		{Attribute: "outcome", L: 1, Homogeneous: 1, CasesInThem: 2},
+		{Attribute: "codes", L: 1, Homogeneous: 1, CasesInThem: 1, Level: "event"},
+	}
+	if !slices.Equal(r.Diversity, want) || !slices.Equal(r.EventSensitive, []string{"codes"}) || !slices.Equal(r.Sensitive, []string{"outcome"}) {
+		t.Errorf("diversity %+v, sensitive %v, event-level %v; want %+v", r.Diversity, r.Sensitive, r.EventSensitive, want)
+	}
+}
