@@ -94,4 +94,32 @@ attributes:
 	if out := must(as(curator), "--json", "versions", "ward/stays"); !strings.Contains(out, "aggregate release approved") {
 		t.Errorf("the override is not on the version: %s", out)
 	}
+
+	// An event-level sensitive attribute is listed after the case-level
+	// one, marked by its level: c0 and c1 (ages 40, 41: band 40-44, one
+	// class) carry codes S1, S2 on their events; c2 (age 96: 90+) S1.
+	prof2 := writeFile(t, files, "visits.yaml", `fields:
+  site: {value: ward}
+  case_id: case
+  event_type: type
+  occurred_at: at
+attributes:
+  age: {column: AGE, role: quasi, type: age}
+  dx: {column: DX, role: sensitive, type: code}
+  step_code: {column: CODE, role: sensitive, type: code, level: event}
+`)
+	must(as(curator), "dataset", "create", "ward/visits", "--profile", prof2)
+	csv := "case,type,at,AGE,DX,CODE\n" +
+		"c0,arrival,2026-03-02T08:00:00Z,40,D1,S1\nc0,departure,2026-03-02T09:00:00Z,40,D1,S2\n" +
+		"c1,arrival,2026-03-02T08:30:00Z,41,D2,S1\nc2,arrival,2026-03-02T08:40:00Z,96,D1,S1\n"
+	must(as(curator), "upload", "ward/visits", writeFile(t, files, "v.csv", csv))
+	out = must(as(curator), "disclosure", "ward/visits@1")
+	for _, want := range []string{"l-diversity of dx: 1", "l-diversity of step_code (event level): 1 (1 classes share one value, 1 cases)"} {
+		if !strings.Contains(out, want) {
+			t.Errorf("disclosure lacks %q:\n%s", want, out)
+		}
+	}
+	if i, j := strings.Index(out, "l-diversity of dx"), strings.Index(out, "l-diversity of step_code"); i < 0 || j < i {
+		t.Errorf("the event-level attribute is not after the case-level one:\n%s", out)
+	}
 }
