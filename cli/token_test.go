@@ -103,10 +103,10 @@ func TestTokenLifecycle(t *testing.T) {
 	if err := verify(tok1); err != nil {
 		t.Fatalf("old-key token after rotation: %v", err)
 	}
-	if code, _, errs := run(t, nil, "token", "retire", kid2, "--data", data); code == 0 || !strings.Contains(errs, "rotate first") {
+	if code, _, errs := run(t, nil, "token", "retire", "--kid", kid2, "--data", data); code == 0 || !strings.Contains(errs, "rotate first") {
 		t.Fatalf("retiring the signing key: exit %d %q", code, errs)
 	}
-	if code, _, errs := run(t, nil, "token", "retire", kid1, "--data", data); code != 0 {
+	if code, _, errs := run(t, nil, "token", "retire", "--kid", kid1, "--data", data); code != 0 {
 		t.Fatalf("retire: %s", errs)
 	}
 	if err := verify(tok1); err == nil {
