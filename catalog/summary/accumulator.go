@@ -475,14 +475,36 @@ func (a *Accumulator) endStretch() {
 // on the stretches, not on how the events were cut into files, and
 // neither the state nor this loop grows with the span: one far-dated event
 // adds its own hour.
+//
+// The hours are counted a stretch of constant zone offset at a time, in
+// closed form, so the work grows with the offset changes a stretch
+// crosses, not with its hours: a state may hold stretches of centuries.
 func (a *Accumulator) exposure() (total int, week [168]int) {
 	a.endStretch()
 	const hour = 3600 * usPerSec
 	for _, r := range a.days {
-		for h := floorDiv(r.from, hour); h <= floorDiv(r.to, hour); h++ {
-			how, _ := a.local(h * hour)
-			week[how]++
-			total++
+		for h, last := floorDiv(r.from, hour), floorDiv(r.to, hour); h <= last; {
+			t := time.Unix(h*3600, 0).In(a.loc)
+			_, off := t.Zone()
+			end := last
+			if _, hi := t.ZoneBounds(); !hi.IsZero() {
+				// the last hour that starts before the offset changes
+				end = min(end, floorDiv(hi.Unix()+3599, 3600)-1)
+			}
+			// Past the zone's table the library's bounds of a leap
+			// year's last day can end at t itself: count that hour alone.
+			end = max(end, h)
+			n := end - h + 1
+			// local hour of week of real hour h: 1970-01-01 was a Thursday, 72 hours after a Monday's start
+			how := int(((h+floorDiv(int64(off), 3600)+72)%168 + 168) % 168)
+			for k := range week {
+				week[k] += int(n / 168)
+			}
+			for i := range int(n % 168) {
+				week[(how+i)%168]++
+			}
+			total += int(n)
+			h = end + 1
 		}
 	}
 	return total, week

@@ -396,7 +396,7 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		day = first + int32(d.uv())
 		from := at + d.iv()
 		at = from + int64(d.uv())
-		if day < first || at < from || len(x.days) > 0 && first <= x.days[len(x.days)-1].last+observedJoinDays {
+		if day < first || at < from || from < minInstant || at > maxInstant || len(x.days) > 0 && first <= x.days[len(x.days)-1].last+observedJoinDays {
 			d.err = ErrCorrupt
 			break
 		}
@@ -423,3 +423,10 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 	*a = *x
 	return nil
 }
+
+// The instants a state may hold: those of the years 0001-9999 that the
+// schema reads (schema.ErrTimestampRange), a day either side for zones.
+var (
+	minInstant = time.Date(1, 1, 1, 0, 0, 0, 0, time.UTC).UnixMicro() - 86400*usPerSec
+	maxInstant = time.Date(10000, 1, 1, 0, 0, 0, 0, time.UTC).UnixMicro() + 86400*usPerSec
+)
