@@ -206,19 +206,23 @@ func (ew *EventWriter) values(dst []parquet.Value, col, i, j int) ([]parquet.Val
 		}
 		return dst, nil
 	}
+	// A column buffer reads only the definition level of a value (and a
+	// required column's not even that), so values of required columns and
+	// NULLs are left at level 0 without Level, which parquet-go does not
+	// inline.
 	switch sp := ew.specs[col]; {
 	case sp.Name == schema.FieldOccurredAt:
 		for k := range evs {
-			dst = append(dst, parquet.Int64Value(evs[k].OccurredAt.UnixMicro()).Level(0, 0, col))
+			dst = append(dst, parquet.Int64Value(evs[k].OccurredAt.UnixMicro()))
 		}
 	case sp.Required:
 		for k := range evs {
-			dst = append(dst, bytesValue(sp.Get(&evs[k])).Level(0, 0, col))
+			dst = append(dst, bytesValue(sp.Get(&evs[k])))
 		}
 	default:
 		for k := range evs {
 			if s := sp.Get(&evs[k]); s == "" {
-				dst = append(dst, parquet.NullValue().Level(0, 0, col))
+				dst = append(dst, parquet.Value{})
 			} else {
 				dst = append(dst, bytesValue(s).Level(0, 1, col))
 			}
