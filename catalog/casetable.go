@@ -95,25 +95,7 @@ func (cw *caseTableWriter) Remove() {
 
 // ReadCaseTable calls fn for every row of a case table file, in order.
 func ReadCaseTable(r io.ReaderAt, size int64, fn func(*cases.Row) error) error {
-	f, err := parquet.OpenFile(r, size)
-	if err != nil {
-		return fmt.Errorf("case table: %w", err)
-	}
-	pr := NewRowReader(parquet.NewGenericReader[cases.Row](f))
-	defer pr.Close()
-	buf := make([]cases.Row, 256)
-	for {
-		n, err := pr.Read(buf)
-		for i := range buf[:n] {
-			if ferr := fn(&buf[i]); ferr != nil {
-				return ferr
-			}
-		}
-		if err == io.EOF {
-			return nil
-		}
-		if err != nil {
-			return fmt.Errorf("case table: %w", err)
-		}
-	}
+	return readFile(r, size, "case table", 256, func(f *parquet.File) (*RowReader[cases.Row], error) {
+		return NewRowReader(parquet.NewGenericReader[cases.Row](f)), nil
+	}, fn)
 }

@@ -338,24 +338,34 @@ func eventAttributesMeta(attrs []AttributeColumn) string {
 // schema's, in file order). The event passed to fn is only valid during
 // the call.
 func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error {
+	return readFile(r, size, "parquet", 1024, func(f *parquet.File) (*EventReader, error) {
+		var opts []parquet.ReaderOption
+		if hasEventAttrs(f.Schema()) {
+			// Read with the file's schema, so that the rows hold the
+			// attribute columns too (the Go type's would drop them).
+			opts = append(opts, f.Schema())
+		}
+		return NewEventReader(parquet.NewGenericReader[schema.Event](f, opts...))
+	}, fn)
+}
+
+// readFile is the one reader of a whole stored Parquet file (snapshots,
+// case tables): it calls fn for every row of T, in file order, read
+// through the RowReader open makes of the file, bufRows at a time. Errors
+// begin with what.
+func readFile[T any](r io.ReaderAt, size int64, what string, bufRows int, open func(*parquet.File) (*RowReader[T], error), fn func(*T) error) error {
 	f, err := parquet.OpenFile(r, size)
 	if err != nil {
-		return fmt.Errorf("parquet: %w", err)
+		return fmt.Errorf("%s: %w", what, err)
 	}
-	var opts []parquet.ReaderOption
-	if hasEventAttrs(f.Schema()) {
-		// Read with the file's schema, so that the rows hold the
-		// attribute columns too (the Go type's would drop them).
-		opts = append(opts, f.Schema())
-	}
-	er, err := NewEventReader(parquet.NewGenericReader[schema.Event](f, opts...))
+	rr, err := open(f)
 	if err != nil {
 		return err
 	}
-	defer er.Close()
-	buf := make([]schema.Event, 1024)
+	defer rr.Close()
+	buf := make([]T, bufRows)
 	for {
-		n, err := er.Read(buf)
+		n, err := rr.Read(buf)
 		for i := range buf[:n] {
 			if ferr := fn(&buf[i]); ferr != nil {
 				return ferr
@@ -365,7 +375,7 @@ func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error
 			return nil
 		}
 		if err != nil {
-			return fmt.Errorf("parquet: %w", err)
+			return fmt.Errorf("%s: %w", what, err)
 		}
 	}
 }
