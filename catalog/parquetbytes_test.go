@@ -135,10 +135,16 @@ func writeSnapshotFixture(t *testing.T, sw *snapshotWriter, err error, evs []sch
 			t.Fatal(err)
 		}
 	}
-	if _, _, err := sw.Finish(); err != nil {
+	return finishedBytes(t, sw.tempTable, func() error { _, _, err := sw.Finish(); return err })
+}
+
+// finishedBytes finishes a stored table's writer and returns its file.
+func finishedBytes(t *testing.T, tt *tempTable, finish func() error) []byte {
+	t.Helper()
+	if err := finish(); err != nil {
 		t.Fatal(err)
 	}
-	b, err := os.ReadFile(sw.f.Name())
+	b, err := os.ReadFile(tt.f.Name())
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -207,14 +213,7 @@ func parquetByteFixtures(t *testing.T) []parquetByteFixture {
 				}
 				cw.add(&row)
 			}
-			if _, err := cw.Finish(); err != nil {
-				t.Fatal(err)
-			}
-			b, err := os.ReadFile(cw.f.Name())
-			if err != nil {
-				t.Fatal(err)
-			}
-			return b
+			return finishedBytes(t, cw.tempTable, func() error { _, err := cw.Finish(); return err })
 		}},
 		{"case-attributes", func(t *testing.T) []byte {
 			attrs := []schema.Attribute{
@@ -241,14 +240,7 @@ func parquetByteFixtures(t *testing.T) []parquetByteFixture {
 					t.Fatal(err)
 				}
 			}
-			if _, err := tw.finish(); err != nil {
-				t.Fatal(err)
-			}
-			b, err := os.ReadFile(tw.f.Name())
-			if err != nil {
-				t.Fatal(err)
-			}
-			return b
+			return finishedBytes(t, tw.tempTable, func() error { _, err := tw.finish(); return err })
 		}},
 	}
 }
