@@ -409,7 +409,7 @@ func hasEventAttrs(sch *parquet.Schema) bool { return len(eventAttrColumns(sch))
 
 // eventAttrColumns finds the leaf columns of sch that are not schema
 // fields, in column order: a snapshot's event attributes, when its first
-// columns are the schema's, in order (as attrEventSchema writes them); nil
+// columns are the schema's, in order (as eventSchemaOf writes them); nil
 // for any other file. Their types follow from the Parquet types the writer
 // gives them.
 func eventAttrColumns(sch *parquet.Schema) []attrColumn {
