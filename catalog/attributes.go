@@ -6,9 +6,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"hash"
 	"io"
-	"os"
 	"slices"
 	"strconv"
 	"strings"
@@ -675,81 +673,100 @@ func attrSchema(attrs []schema.Attribute) (*parquet.Schema, []int) {
 // hashing it, with the snapshot writer's fixed settings; rows carry their
 // own definition levels, so NULLs are exact.
 type attrTableWriter struct {
-	f     *os.File
-	h     hash.Hash
-	n     int64
-	w     *parquet.GenericWriter[any]
-	attrs []schema.Attribute
-	leafs []int
-	rows  []parquet.Row
-	count int64
+	*tempTable
+	w      *columnWriter
+	attrs  []schema.Attribute
+	leafs  []int
+	caseID []string          // the rows held, less than a batch
+	vals   [][]parquet.Value // their values, by attribute (NULL where none)
+	count  int64
 }
 
 func newAttrTableWriter(dir string, rowGroupRows int64, keyID string, attrs []schema.Attribute) (*attrTableWriter, error) {
-	f, err := os.CreateTemp(dir, "attributes-*.parquet")
+	t, err := newTempTable(dir, "attributes-*.parquet", "case attributes")
 	if err != nil {
-		return nil, fmt.Errorf("case attributes: %w", err)
+		return nil, err
 	}
 	sch, leafs := attrSchema(attrs)
-	tw := &attrTableWriter{f: f, h: sha256.New(), attrs: attrs, leafs: leafs}
-	tw.w = parquet.NewGenericWriter[any](io.MultiWriter(f, tw.h, countWriter{&tw.n}), sch,
-		pageCompression(),
-		parquet.MaxRowsPerRowGroup(rowGroupRows),
-		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
-		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
-		parquet.KeyValueMetadata("flowcat.pseudonym_key_id", keyID),
-		parquet.KeyValueMetadata("flowcat.table", "case_attributes"),
-	)
+	tw := &attrTableWriter{tempTable: t, attrs: attrs, leafs: leafs, vals: make([][]parquet.Value, len(attrs))}
+	tw.w = newColumnWriter(t.out(), sch, fileSettings{RowGroupRows: rowGroupRows,
+		Metadata: []KeyValue{{"flowcat.pseudonym_key_id", keyID}, {"flowcat.table", "case_attributes"}}})
 	return tw, nil
 }
 
+// write adds one row: its case and its values in attrs order ("" is
+// NULL); vals may be reused once it returns.
 func (tw *attrTableWriter) write(caseID string, vals []string) error {
-	row := make(parquet.Row, len(tw.leafs))
-	for col, j := range tw.leafs {
-		if j < 0 {
-			row[col] = parquet.ByteArrayValue([]byte(caseID)).Level(0, 0, col)
-			continue
-		}
+	for j, a := range tw.attrs {
 		v := vals[j]
-		if v == "" {
-			row[col] = parquet.NullValue().Level(0, 0, col)
-			continue
-		}
-		var pv parquet.Value
-		switch tw.attrs[j].Type {
-		case schema.TypeInteger:
+		pv := parquet.NullValue()
+		switch {
+		case v == "":
+		case a.Type == schema.TypeInteger:
 			var n int64
 			if _, err := fmt.Sscan(v, &n); err != nil {
-				return fmt.Errorf("case attributes: %s: %w", tw.attrs[j].Name, err)
+				tw.truncate()
+				return fmt.Errorf("case attributes: %s: %w", a.Name, err)
 			}
 			pv = parquet.Int64Value(n)
-		case schema.TypeDate:
+		case a.Type == schema.TypeDate:
 			d, err := time.Parse(time.DateOnly, v)
 			if err != nil {
-				return fmt.Errorf("case attributes: %s: %w", tw.attrs[j].Name, err)
+				tw.truncate()
+				return fmt.Errorf("case attributes: %s: %w", a.Name, err)
 			}
 			pv = parquet.Int32Value(int32(d.Unix() / 86400))
 		default:
 			pv = parquet.ByteArrayValue([]byte(v))
 		}
-		row[col] = pv.Level(0, 1, col)
+		tw.vals[j] = append(tw.vals[j], pv)
 	}
-	tw.rows = append(tw.rows, row)
+	tw.caseID = append(tw.caseID, caseID)
 	tw.count++
-	if len(tw.rows) == 512 {
+	if len(tw.caseID) == writeBatch {
 		return tw.flush()
 	}
 	return nil
 }
 
+// truncate drops the values of a row that was not added.
+func (tw *attrTableWriter) truncate() {
+	for j := range tw.vals {
+		tw.vals[j] = tw.vals[j][:len(tw.caseID)]
+	}
+}
+
+// values is the fillFunc of the rows held.
+func (tw *attrTableWriter) values(dst []parquet.Value, col, i, j int) ([]parquet.Value, error) {
+	a := tw.leafs[col]
+	if a < 0 {
+		for _, id := range tw.caseID[i:j] {
+			dst = append(dst, parquet.ByteArrayValue([]byte(id)).Level(0, 0, col))
+		}
+		return dst, nil
+	}
+	for _, v := range tw.vals[a][i:j] {
+		if v.IsNull() {
+			dst = append(dst, v.Level(0, 0, col))
+		} else {
+			dst = append(dst, v.Level(0, 1, col))
+		}
+	}
+	return dst, nil
+}
+
 func (tw *attrTableWriter) flush() error {
-	if len(tw.rows) == 0 {
+	if len(tw.caseID) == 0 {
 		return nil
 	}
-	if _, err := tw.w.WriteRows(tw.rows); err != nil {
-		return fmt.Errorf("case attributes: %w", err)
+	if err := tw.w.write(len(tw.caseID), tw.values); err != nil {
+		return err
 	}
-	tw.rows = tw.rows[:0]
+	tw.caseID = tw.caseID[:0]
+	for j := range tw.vals {
+		clear(tw.vals[j])
+		tw.vals[j] = tw.vals[j][:0]
+	}
 	return nil
 }
 
@@ -757,22 +774,17 @@ func (tw *attrTableWriter) finish() (*AttributeTable, error) {
 	if err := tw.flush(); err != nil {
 		return nil, err
 	}
-	if err := tw.w.Close(); err != nil {
+	if err := tw.w.close(); err != nil {
 		return nil, fmt.Errorf("case attributes: %w", err)
 	}
-	if err := tw.f.Sync(); err != nil {
-		return nil, fmt.Errorf("case attributes: %w", err)
+	id, n, err := tw.done()
+	if err != nil {
+		return nil, err
 	}
-	if _, err := tw.f.Seek(0, io.SeekStart); err != nil {
-		return nil, fmt.Errorf("case attributes: %w", err)
-	}
-	return &AttributeTable{SHA256: blob.ID(tw.h.Sum(nil)), Bytes: tw.n, Rows: tw.count}, nil
+	return &AttributeTable{SHA256: id, Bytes: n, Rows: tw.count}, nil
 }
 
-func (tw *attrTableWriter) remove() {
-	tw.f.Close()
-	os.Remove(tw.f.Name())
-}
+func (tw *attrTableWriter) remove() { tw.drop() }
 
 // readAttributeTable calls fn for every row of a stored case attribute
 // table with its values in the order of cols ("" is NULL).

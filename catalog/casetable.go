@@ -1,11 +1,8 @@
 package catalog
 
 import (
-	"crypto/sha256"
 	"fmt"
-	"hash"
 	"io"
-	"os"
 
 	"github.com/parquet-go/parquet-go"
 
@@ -26,9 +23,7 @@ type CaseTableEntry struct {
 // caseTableWriter writes the case table to a temporary file while hashing
 // it, with the snapshot writer's fixed settings. It is a cases.Observer.
 type caseTableWriter struct {
-	f     *os.File
-	h     hash.Hash
-	n     int64
+	*tempTable
 	w     *parquet.GenericWriter[cases.Row]
 	batch *batches[cases.Row] // written on another goroutine
 	rows  int64
@@ -36,21 +31,17 @@ type caseTableWriter struct {
 }
 
 func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTableWriter, error) {
-	f, err := os.CreateTemp(dir, "cases-*.parquet")
+	t, err := newTempTable(dir, "cases-*.parquet", "case table")
 	if err != nil {
-		return nil, fmt.Errorf("case table: %w", err)
+		return nil, err
 	}
-	cw := &caseTableWriter{f: f, h: sha256.New()}
-	cw.w = parquet.NewGenericWriter[cases.Row](io.MultiWriter(f, cw.h, countWriter{&cw.n}),
-		pageCompression(),
-		parquet.MaxRowsPerRowGroup(rowGroupRows),
-		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
-		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
-		parquet.KeyValueMetadata("flowcat.pseudonym_key_id", keyID),
-		parquet.KeyValueMetadata("flowcat.table", "cases"),
-	)
+	cw := &caseTableWriter{tempTable: t}
+	// cases.Row is a fixed struct, so its rows go through parquet-go's
+	// writer of Go structs, with the options of every file (fileOptions).
 	// Optional columns are pointers, which keep their nulls exactly in
 	// batches (TestCaseRowNulls reads them back with Arrow).
+	cw.w = parquet.NewGenericWriter[cases.Row](t.out(), fileOptions(nil, fileSettings{RowGroupRows: rowGroupRows,
+		Metadata: []KeyValue{{"flowcat.pseudonym_key_id", keyID}, {"flowcat.table", "cases"}}})...)
 	cw.batch = newBatches(1024, func(rows []cases.Row) error {
 		if _, err := cw.w.Write(rows); err != nil {
 			return fmt.Errorf("case table: %w", err)
@@ -89,43 +80,22 @@ func (cw *caseTableWriter) Finish() (*CaseTableEntry, error) {
 	if err := cw.w.Close(); err != nil {
 		return nil, fmt.Errorf("case table: %w", err)
 	}
-	if err := cw.f.Sync(); err != nil {
-		return nil, fmt.Errorf("case table: %w", err)
+	id, n, err := cw.done()
+	if err != nil {
+		return nil, err
 	}
-	if _, err := cw.f.Seek(0, io.SeekStart); err != nil {
-		return nil, fmt.Errorf("case table: %w", err)
-	}
-	return &CaseTableEntry{SHA256: blob.ID(cw.h.Sum(nil)), Bytes: cw.n, Rows: cw.rows}, nil
+	return &CaseTableEntry{SHA256: id, Bytes: n, Rows: cw.rows}, nil
 }
 
 // Remove closes and deletes the temporary file.
 func (cw *caseTableWriter) Remove() {
 	cw.batch.close()
-	cw.f.Close()
-	os.Remove(cw.f.Name())
+	cw.drop()
 }
 
 // ReadCaseTable calls fn for every row of a case table file, in order.
 func ReadCaseTable(r io.ReaderAt, size int64, fn func(*cases.Row) error) error {
-	f, err := parquet.OpenFile(r, size)
-	if err != nil {
-		return fmt.Errorf("case table: %w", err)
-	}
-	pr := NewRowReader(parquet.NewGenericReader[cases.Row](f))
-	defer pr.Close()
-	buf := make([]cases.Row, 256)
-	for {
-		n, err := pr.Read(buf)
-		for i := range buf[:n] {
-			if ferr := fn(&buf[i]); ferr != nil {
-				return ferr
-			}
-		}
-		if err == io.EOF {
-			return nil
-		}
-		if err != nil {
-			return fmt.Errorf("case table: %w", err)
-		}
-	}
+	return readFile(r, size, "case table", 256, func(f *parquet.File) (*RowReader[cases.Row], error) {
+		return NewRowReader(parquet.NewGenericReader[cases.Row](f)), nil
+	}, fn)
 }

@@ -14,8 +14,8 @@ import (
 // TestFieldTableIsSnapshotLayout writes a fresh snapshot of one event with
 // every field of the field table set and reads it with arrow-go, an
 // independent Parquet reader: the file's columns are the table's names in
-// the table's order, and every field's value reads back (so the writer's
-// hand-made storedEvent misses none).
+// the table's order, and every field's value reads back (so the writer takes
+// every field through the table).
 func TestFieldTableIsSnapshotLayout(t *testing.T) {
 	sw, err := newSnapshotWriter(t.TempDir(), 16, "k-fixed")
 	if err != nil {

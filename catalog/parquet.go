@@ -1,14 +1,10 @@
 package catalog
 
 import (
-	"crypto/sha256"
 	"encoding/json"
 	"fmt"
-	"hash"
 	"io"
-	"os"
 	"reflect"
-	"runtime"
 	"slices"
 	"strconv"
 	"strings"
@@ -16,9 +12,7 @@ import (
 	"time"
 	"unsafe"
 
-	"github.com/klauspost/compress/zstd"
 	"github.com/parquet-go/parquet-go"
-	parquetzstd "github.com/parquet-go/parquet-go/compress/zstd"
 	"github.com/parquet-go/parquet-go/format"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
@@ -28,9 +22,7 @@ import (
 // snapshotWriter writes one snapshot Parquet file to a temporary path while
 // hashing it, through an EventWriter with every column.
 type snapshotWriter struct {
-	f     *os.File
-	h     hash.Hash
-	n     int64
+	*tempTable
 	w     *EventWriter
 	batch *batches[schema.Event] // written on another goroutine
 	rows  int64
@@ -49,11 +41,11 @@ func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom
 // attributes existed, byte for byte).
 func newAttrSnapshotWriter(dir string, rowGroupRows int64, keyID string, ac *AttributeColumns, derivedFrom ...string) (*snapshotWriter, error) {
 	attrs := ac.Columns()
-	f, err := os.CreateTemp(dir, "snapshot-*.parquet")
+	t, err := newTempTable(dir, "snapshot-*.parquet", "parquet")
 	if err != nil {
-		return nil, fmt.Errorf("parquet: %w", err)
+		return nil, err
 	}
-	sw := &snapshotWriter{f: f, h: sha256.New()}
+	sw := &snapshotWriter{tempTable: t}
 	kv := []KeyValue{{"flowcat.pseudonym_key_id", keyID}}
 	for _, d := range derivedFrom {
 		kv = append(kv, KeyValue{"flowcat.derived_from", d})
@@ -61,8 +53,8 @@ func newAttrSnapshotWriter(dir string, rowGroupRows int64, keyID string, ac *Att
 	if len(attrs) > 0 {
 		kv = append(kv, KeyValue{"flowcat.event_attributes", eventAttributesMeta(attrs)})
 	}
-	sw.w = NewEventWriter(io.MultiWriter(f, sw.h, countWriter{&sw.n}), schema.Fields, EventWriterOptions{RowGroupRows: rowGroupRows, Metadata: kv, Attrs: attrs})
-	sw.batch = newBatches(1024, sw.flushBatch)
+	sw.w = NewEventWriter(t.out(), schema.Fields, EventWriterOptions{RowGroupRows: rowGroupRows, Metadata: kv, Attrs: attrs})
+	sw.batch = newBatches(1024, sw.w.WriteEvents)
 	return sw, nil
 }
 
@@ -76,16 +68,6 @@ func (sw *snapshotWriter) Write(e *schema.Event) error {
 	return sw.batch.add(*e)
 }
 
-// flushBatch writes one batch of rows; it runs on the batches' goroutine.
-func (sw *snapshotWriter) flushBatch(batch []schema.Event) error {
-	for i := range batch {
-		if err := sw.w.Write(&batch[i]); err != nil {
-			return err
-		}
-	}
-	return nil
-}
-
 // Finish completes the file and makes it durable; it returns the file's id
 // and size. The caller then hands the file to a blob.Store.
 func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
@@ -95,24 +77,14 @@ func (sw *snapshotWriter) Finish() (blob.ID, int64, error) {
 	if err := sw.w.Close(); err != nil {
 		return blob.ID{}, 0, err
 	}
-	if err := sw.f.Sync(); err != nil {
-		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
-	}
-	if _, err := sw.f.Seek(0, io.SeekStart); err != nil {
-		return blob.ID{}, 0, fmt.Errorf("parquet: %w", err)
-	}
-	return blob.ID(sw.h.Sum(nil)), sw.n, nil
+	return sw.done()
 }
 
 // Remove closes and deletes the temporary file.
 func (sw *snapshotWriter) Remove() {
 	sw.batch.close()
-	sw.f.Close()
-	os.Remove(sw.f.Name())
+	sw.drop()
 }
-
-// KeyValue is one entry of a Parquet file's key-value metadata.
-type KeyValue struct{ Key, Value string }
 
 // EventWriterOptions tune an EventWriter.
 type EventWriterOptions struct {
@@ -120,140 +92,152 @@ type EventWriterOptions struct {
 	Metadata     []KeyValue // key-value metadata, after flowcat.schema_version, in this order
 
 	// Attrs are event attribute columns written after cols, in this order
-	// (Event.Attrs holds their values). A writer with attributes writes
-	// rows with their own definition levels; one without writes exactly
-	// the bytes it wrote before attributes existed.
+	// (Event.Attrs holds their values).
 	Attrs []AttributeColumn
 
-	schema *parquet.Schema // for the encodings benchmark: replaces subsetSchema(cols)
+	schema *parquet.Schema // for the encodings benchmark: replaces eventSchemaOf(cols)
 }
 
-// EventWriter is the one Parquet writer of events, for snapshots and
-// exports: rows of a subset of the schema's columns (schema.Event's
-// Parquet layout), zstd pages (pageCompression), bounded row groups and a
+// EventWriter is the one Parquet writer of events, for snapshots, export
+// staging files and exports: rows of a subset of the schema's columns, in
+// the field table's order (schema/fields.go; the Parquet layout of each
+// is the tag of its Event field), then event attribute columns, through
+// the one columnWriter (fileOptions: zstd pages, bounded row groups, a
 // created_by that names no build or time, so that the same events always
-// give the same bytes; row groups record occurred_at as their sorting
+// give the same bytes); row groups record occurred_at as their sorting
 // column when the file holds it.
 //
-// An empty optional field is written as NULL. parquet-go's writer of Go
-// structs decides nulls of "optional" non-pointer fields per batch with a
-// bitmap scan that, in v0.32.0, takes some empty strings for values (see
-// DEVELOPERS.md), so this writer never gives it such fields: a file of
-// every column goes through storedEvent, whose optional fields are
-// pointers (nil is NULL), and a column subset is written as rows that
-// carry their own definition levels (slower: about 1.5 to 2 times the
-// time, measured on the development machine).
+// Each column's values are taken from the events through the field
+// table, with their own definition levels: an empty optional field is
+// NULL, never "" (parquet-go's writer of Go structs, given "optional"
+// non-pointer fields, takes some empty strings for values in v0.32.0, see
+// DEVELOPERS.md; this writer does not go through it).
 type EventWriter struct {
-	cols  []schema.Field
+	specs []*schema.FieldSpec // the columns, in file order
 	attrs []AttributeColumn
-
-	// every column
-	g    *parquet.GenericWriter[storedEvent]
-	evs  []schema.Event
-	recs []storedEvent
-
-	// a subset
-	//lint:ignore SA1019 the generic writer needs a Go type; a column subset is a schema built at run time
-	w     *parquet.Writer
-	batch []parquet.Row
-	n     int
+	cw    *columnWriter
+	held  []schema.Event // rows not yet written: less than a batch
+	cur   []schema.Event // the rows being written
+	fill  fillFunc
 }
-
-// storedEvent carries schema.Event's values to parquet-go's struct
-// writer, with pointers for the optional fields. The file's schema is
-// still schema.Event's; these tags only have to agree with it
-// (TestStoredEventSchema checks that they do).
-type storedEvent struct {
-	Site       string    `parquet:"site,dict"`
-	CaseID     string    `parquet:"case_id,dict"`
-	SubjectID  *string   `parquet:"subject_id,dict"`
-	ResourceID *string   `parquet:"resource_id,dict"`
-	Type       string    `parquet:"event_type,dict"`
-	Activity   *string   `parquet:"activity,dict"`
-	Queue      *string   `parquet:"queue,dict"`
-	OccurredAt time.Time `parquet:"occurred_at,timestamp(microsecond:utc)"`
-	Priority   *string   `parquet:"priority,dict"`
-	Channel    *string   `parquet:"channel,dict"`
-	Outcome    *string   `parquet:"outcome,dict"`
-	EventID    *string   `parquet:"event_id,plain"`
-	InstanceID *string   `parquet:"instance_id,plain"`
-}
-
-func nullable(s *string) *string {
-	if *s == "" {
-		return nil
-	}
-	return s
-}
-
-const writeBatch = 512
 
 // NewEventWriter returns a writer of cols to w.
 func NewEventWriter(w io.Writer, cols []schema.Field, opt EventWriterOptions) *EventWriter {
 	sch := opt.schema
-	every := sch == nil && slices.Equal(cols, schema.Fields) && len(opt.Attrs) == 0
-	if sch == nil && len(opt.Attrs) > 0 {
-		sch = attrEventSchema(cols, opt.Attrs)
-	} else if sch == nil {
-		sch = subsetSchema(cols)
+	if sch == nil {
+		sch = eventSchemaOf(cols, opt.Attrs)
 	}
-	opts := []parquet.WriterOption{
-		pageCompression(),
-		parquet.MaxRowsPerRowGroup(opt.RowGroupRows),
-		parquet.CreatedBy("flowcat", "schema-"+schema.Version, ""),
-		parquet.KeyValueMetadata("flowcat.schema_version", schema.Version),
-	}
-	for _, kv := range opt.Metadata {
-		opts = append(opts, parquet.KeyValueMetadata(kv.Key, kv.Value))
-	}
+	s := fileSettings{RowGroupRows: opt.RowGroupRows, Metadata: opt.Metadata}
 	if slices.Contains(cols, schema.FieldOccurredAt) {
-		// Rows come in occurred_at order (ties in an order of their own):
-		// recorded as each row group's sorting_columns. The writer does not
-		// reorder rows.
-		opts = append(opts, parquet.SortingWriterConfig(parquet.SortingColumns(parquet.Ascending(string(schema.FieldOccurredAt)))))
+		// Rows come in occurred_at order (ties in an order of their own).
+		s.SortedBy = string(schema.FieldOccurredAt)
 	}
-	ew := &EventWriter{cols: cols, attrs: opt.Attrs}
-	if every {
-		// The file's schema is schema.Event's (its tags are the one home of
-		// the layout); storedEvent only carries the values.
-		ew.g = parquet.NewGenericWriter[storedEvent](w, append([]parquet.WriterOption{sch}, opts...)...)
-		ew.evs = make([]schema.Event, 0, writeBatch)
-		ew.recs = make([]storedEvent, writeBatch)
-		return ew
+	ew := &EventWriter{attrs: opt.Attrs, cw: newColumnWriter(w, sch, s), held: make([]schema.Event, 0, writeBatch)}
+	for _, c := range cols {
+		ew.specs = append(ew.specs, c.Spec())
 	}
-	ew.w = parquet.NewWriter(w, append([]parquet.WriterOption{sch}, opts...)...)
-	ew.batch = make([]parquet.Row, writeBatch)
-	for i := range ew.batch {
-		ew.batch[i] = make(parquet.Row, len(cols)+len(opt.Attrs))
-	}
+	ew.fill = ew.values
 	return ew
 }
 
-// attrEventSchema is subsetSchema(cols) followed by one optional column
-// per event attribute, in order: codes and age bands as
-// dictionary-encoded strings, integers INT64, dates DATE, as in the case
-// attribute table (attrNode).
-func attrEventSchema(cols []schema.Field, attrs []AttributeColumn) *parquet.Schema {
-	var fields []reflect.StructField
-	for _, c := range cols {
-		for i := range eventType.NumField() {
-			sf := eventType.Field(i)
-			if name, _, _ := strings.Cut(sf.Tag.Get("parquet"), ","); name == string(c) {
-				fields = append(fields, reflect.StructField{Name: sf.Name, Type: sf.Type, Tag: sf.Tag})
+// Write appends e; e may be reused once Write returns.
+func (ew *EventWriter) Write(e *schema.Event) error {
+	ew.held = append(ew.held, *e)
+	if len(ew.held) == cap(ew.held) {
+		return ew.flush()
+	}
+	return nil
+}
+
+// WriteEvents appends evs, as Write of each would; evs may be reused
+// once it returns. Whole batches are written straight from evs.
+func (ew *EventWriter) WriteEvents(evs []schema.Event) error {
+	for len(ew.held) > 0 && len(evs) > 0 {
+		if err := ew.Write(&evs[0]); err != nil {
+			return err
+		}
+		evs = evs[1:]
+	}
+	if n := len(evs) / writeBatch * writeBatch; n > 0 {
+		if err := ew.write(evs[:n]); err != nil {
+			return err
+		}
+		evs = evs[n:]
+	}
+	ew.held = append(ew.held, evs...)
+	return nil
+}
+
+func (ew *EventWriter) flush() error {
+	err := ew.write(ew.held)
+	clear(ew.held)
+	ew.held = ew.held[:0]
+	return err
+}
+
+func (ew *EventWriter) write(evs []schema.Event) error {
+	if len(evs) == 0 {
+		return nil
+	}
+	ew.cur = evs
+	err := ew.cw.write(len(evs), ew.fill)
+	ew.cur = nil
+	return err
+}
+
+// values is the fillFunc of the events being written.
+func (ew *EventWriter) values(dst []parquet.Value, col, i, j int) ([]parquet.Value, error) {
+	evs := ew.cur[i:j]
+	if col >= len(ew.specs) {
+		a := col - len(ew.specs)
+		for k := range evs {
+			s := evs[k].AttrValue(a)
+			if s == "" {
+				dst = append(dst, parquet.NullValue().Level(0, 0, col))
+				continue
+			}
+			v, err := attrValue(ew.attrs[a].Type, s)
+			if err != nil {
+				// Values were checked at ingest: this is a program fault, and
+				// the message names the column, never the value.
+				return dst, fmt.Errorf("parquet: event attribute %s: %w", ew.attrs[a].Name, err)
+			}
+			dst = append(dst, v.Level(0, 1, col))
+		}
+		return dst, nil
+	}
+	// A column buffer reads only the definition level of a value (and a
+	// required column's not even that), so values of required columns and
+	// NULLs are left at level 0 without Level, which parquet-go does not
+	// inline.
+	switch sp := ew.specs[col]; {
+	case sp.Name == schema.FieldOccurredAt:
+		for k := range evs {
+			dst = append(dst, parquet.Int64Value(evs[k].OccurredAt.UnixMicro()))
+		}
+	case sp.Required:
+		for k := range evs {
+			dst = append(dst, bytesValue(sp.Get(&evs[k])))
+		}
+	default:
+		for k := range evs {
+			if s := sp.Get(&evs[k]); s == "" {
+				dst = append(dst, parquet.Value{})
+			} else {
+				dst = append(dst, bytesValue(s).Level(0, 1, col))
 			}
 		}
 	}
-	for i, a := range attrs {
-		f := reflect.StructField{Name: fmt.Sprintf("Attr%d", i), Type: reflect.TypeFor[*string](), Tag: reflect.StructTag(`parquet:"` + a.Name + `,dict"`)}
-		switch a.Type {
-		case schema.TypeInteger:
-			f.Type, f.Tag = reflect.TypeFor[*int64](), reflect.StructTag(`parquet:"`+a.Name+`"`)
-		case schema.TypeDate:
-			f.Type, f.Tag = reflect.TypeFor[*int32](), reflect.StructTag(`parquet:"`+a.Name+`,date"`)
-		}
-		fields = append(fields, f)
+	return dst, nil
+}
+
+// Close writes the rows held and the footer; it does not close the
+// underlying writer.
+func (ew *EventWriter) Close() error {
+	if err := ew.flush(); err != nil {
+		return err
 	}
-	return parquet.SchemaOf(reflect.New(reflect.StructOf(fields)).Elem().Interface())
+	return ew.cw.close()
 }
 
 // attrValue is the Parquet value of one event attribute value of type t
@@ -293,176 +277,49 @@ var (
 	schemaCache sync.Map // column list -> *parquet.Schema
 )
 
-// subsetSchema is the Parquet schema of schema.Event restricted to cols:
-// a struct type of the same fields and tags, so node types, logical types
-// and encodings are those of the snapshots.
-func subsetSchema(cols []schema.Field) *parquet.Schema {
+// eventSchemaOf is the Parquet schema of a file of the schema's columns
+// cols followed by one optional column per event attribute: each field's
+// column is the one its field table entry names (the tag of its Event
+// field: node type, logical type, encoding, optionality), so every file
+// has the snapshots' layout; attribute codes and age bands are
+// dictionary-encoded strings, integers INT64, dates DATE, as in the case
+// attribute table (attrNode).
+func eventSchemaOf(cols []schema.Field, attrs []AttributeColumn) *parquet.Schema {
 	key := fmt.Sprint(cols)
-	if s, ok := schemaCache.Load(key); ok {
-		return s.(*parquet.Schema)
+	if len(attrs) == 0 {
+		if s, ok := schemaCache.Load(key); ok {
+			return s.(*parquet.Schema)
+		}
 	}
 	var fields []reflect.StructField
 	for _, c := range cols {
-		for i := range eventType.NumField() {
-			sf := eventType.Field(i)
-			if name, _, _ := strings.Cut(sf.Tag.Get("parquet"), ","); name == string(c) {
-				fields = append(fields, reflect.StructField{Name: sf.Name, Type: sf.Type, Tag: sf.Tag})
-			}
+		sf, ok := eventType.FieldByName(c.Spec().GoName)
+		if !ok {
+			panic("parquet: no Event field for " + string(c))
 		}
+		fields = append(fields, reflect.StructField{Name: sf.Name, Type: sf.Type, Tag: sf.Tag})
+	}
+	for i, a := range attrs {
+		f := reflect.StructField{Name: fmt.Sprintf("Attr%d", i), Type: reflect.TypeFor[*string](), Tag: reflect.StructTag(`parquet:"` + a.Name + `,dict"`)}
+		switch a.Type {
+		case schema.TypeInteger:
+			f.Type, f.Tag = reflect.TypeFor[*int64](), reflect.StructTag(`parquet:"`+a.Name+`"`)
+		case schema.TypeDate:
+			f.Type, f.Tag = reflect.TypeFor[*int32](), reflect.StructTag(`parquet:"`+a.Name+`,date"`)
+		}
+		fields = append(fields, f)
 	}
 	s := parquet.SchemaOf(reflect.New(reflect.StructOf(fields)).Elem().Interface())
-	schemaCache.Store(key, s)
+	if len(attrs) == 0 {
+		schemaCache.Store(key, s)
+	}
 	return s
 }
 
-// Write appends e; e may be reused once Write returns.
-func (ew *EventWriter) Write(e *schema.Event) error {
-	if ew.g != nil {
-		ew.evs = append(ew.evs, *e)
-		if len(ew.evs) == cap(ew.evs) {
-			return ew.flush()
-		}
-		return nil
-	}
-	row := ew.batch[ew.n][:0]
-	for i, c := range ew.cols {
-		var v parquet.Value
-		switch {
-		case c == schema.FieldOccurredAt:
-			v = parquet.Int64Value(e.OccurredAt.UnixMicro()).Level(0, 0, i)
-		case c.Required():
-			v = bytesValue(e.Value(c)).Level(0, 0, i)
-		default:
-			if s := e.Value(c); s == "" {
-				v = parquet.NullValue().Level(0, 0, i)
-			} else {
-				v = bytesValue(s).Level(0, 1, i)
-			}
-		}
-		row = append(row, v)
-	}
-	rest := e.Attrs
-	for j, a := range ew.attrs {
-		i := len(ew.cols) + j
-		s := rest
-		if k := strings.IndexByte(rest, 0); k >= 0 {
-			s, rest = rest[:k], rest[k+1:]
-		} else {
-			rest = ""
-		}
-		if s == "" {
-			row = append(row, parquet.NullValue().Level(0, 0, i))
-			continue
-		}
-		v, err := attrValue(a.Type, s)
-		if err != nil {
-			// Values were checked at ingest: this is a program fault, and
-			// the message names the column, never the value.
-			return fmt.Errorf("parquet: event attribute %s: %w", a.Name, err)
-		}
-		row = append(row, v.Level(0, 1, i))
-	}
-	ew.batch[ew.n] = row
-	ew.n++
-	if ew.n == len(ew.batch) {
-		return ew.flush()
-	}
-	return nil
-}
-
 // bytesValue wraps s without copying: the writer copies values into its
-// column buffers before WriteRows returns, and strings are immutable.
+// column buffers before WriteRowValues returns, and strings are immutable.
 func bytesValue(s string) parquet.Value {
 	return parquet.ByteArrayValue(unsafe.Slice(unsafe.StringData(s), len(s)))
-}
-
-func (ew *EventWriter) flush() error {
-	if ew.g != nil {
-		recs := ew.recs[:len(ew.evs)]
-		for i := range ew.evs {
-			e := &ew.evs[i]
-			recs[i] = storedEvent{Site: e.Site, CaseID: e.CaseID, SubjectID: nullable(&e.SubjectID), ResourceID: nullable(&e.ResourceID),
-				Type: string(e.Type), Activity: nullable(&e.Activity), Queue: nullable(&e.Queue), OccurredAt: e.OccurredAt,
-				Priority: nullable(&e.Priority), Channel: nullable(&e.Channel), Outcome: nullable(&e.Outcome), EventID: nullable(&e.EventID),
-				InstanceID: nullable(&e.InstanceID)}
-		}
-		if _, err := ew.g.Write(recs); err != nil {
-			return fmt.Errorf("parquet: %w", err)
-		}
-		clear(recs)
-		ew.evs = ew.evs[:0]
-		return nil
-	}
-	if ew.n == 0 {
-		return nil
-	}
-	if _, err := ew.w.WriteRows(ew.batch[:ew.n]); err != nil {
-		return fmt.Errorf("parquet: %w", err)
-	}
-	ew.n = 0
-	return nil
-}
-
-// Close writes the rows held and the footer; it does not close the
-// underlying writer.
-func (ew *EventWriter) Close() error {
-	if err := ew.flush(); err != nil {
-		return err
-	}
-	var err error
-	if ew.g != nil {
-		err = ew.g.Close()
-	} else {
-		err = ew.w.Close()
-	}
-	if err != nil {
-		return fmt.Errorf("parquet: %w", err)
-	}
-	return nil
-}
-
-// pageCompression is the page codec of every Parquet file flowcat writes
-// (snapshots, case and attribute tables here, exports through
-// EventWriter): zstd at its default level, as parquet-go's codec, but with
-// a 1 MiB window. Pages are at most a few hundred KiB, so the library's
-// default 8 MiB window finds nothing more and costs 16 MiB of history per
-// encoder, held for the whole write. One encoder set serves all writers;
-// each page is compressed on its own, so the bytes do not depend on what
-// else is being written. The codec is not reachable outside this function,
-// so no caller can replace it.
-func pageCompression() parquet.WriterOption { return parquet.Compression(pageCodec) }
-
-var pageCodec = &windowedZstd{}
-
-type windowedZstd struct {
-	parquetzstd.Codec // String, CompressionCodec, Decode
-	once              sync.Once
-	enc               *zstd.Encoder
-	err               error
-}
-
-// Encode implements parquet-go's compress.Codec.
-func (c *windowedZstd) Encode(dst, src []byte) ([]byte, error) {
-	c.once.Do(func() {
-		c.enc, c.err = zstd.NewWriter(nil,
-			zstd.WithEncoderLevel(zstd.SpeedDefault),
-			zstd.WithWindowSize(1<<20),
-			zstd.WithEncoderConcurrency(runtime.GOMAXPROCS(0)),
-			zstd.WithZeroFrames(true),
-			zstd.WithEncoderCRC(false),
-		)
-	})
-	if c.err != nil {
-		return nil, fmt.Errorf("zstd: %w", c.err)
-	}
-	return c.enc.EncodeAll(src, dst[:0]), nil
-}
-
-type countWriter struct{ n *int64 }
-
-func (c countWriter) Write(p []byte) (int, error) {
-	*c.n += int64(len(p))
-	return len(p), nil
 }
 
 // eventAttributesMeta is the file metadata naming its event attribute
@@ -481,24 +338,34 @@ func eventAttributesMeta(attrs []AttributeColumn) string {
 // schema's, in file order). The event passed to fn is only valid during
 // the call.
 func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error {
+	return readFile(r, size, "parquet", 1024, func(f *parquet.File) (*EventReader, error) {
+		var opts []parquet.ReaderOption
+		if hasEventAttrs(f.Schema()) {
+			// Read with the file's schema, so that the rows hold the
+			// attribute columns too (the Go type's would drop them).
+			opts = append(opts, f.Schema())
+		}
+		return NewEventReader(parquet.NewGenericReader[schema.Event](f, opts...))
+	}, fn)
+}
+
+// readFile is the one reader of a whole stored Parquet file (snapshots,
+// case tables): it calls fn for every row of T, in file order, read
+// through the RowReader open makes of the file, bufRows at a time. Errors
+// begin with what.
+func readFile[T any](r io.ReaderAt, size int64, what string, bufRows int, open func(*parquet.File) (*RowReader[T], error), fn func(*T) error) error {
 	f, err := parquet.OpenFile(r, size)
 	if err != nil {
-		return fmt.Errorf("parquet: %w", err)
+		return fmt.Errorf("%s: %w", what, err)
 	}
-	var opts []parquet.ReaderOption
-	if hasEventAttrs(f.Schema()) {
-		// Read with the file's schema, so that the rows hold the
-		// attribute columns too (the Go type's would drop them).
-		opts = append(opts, f.Schema())
-	}
-	er, err := NewEventReader(parquet.NewGenericReader[schema.Event](f, opts...))
+	rr, err := open(f)
 	if err != nil {
 		return err
 	}
-	defer er.Close()
-	buf := make([]schema.Event, 1024)
+	defer rr.Close()
+	buf := make([]T, bufRows)
 	for {
-		n, err := er.Read(buf)
+		n, err := rr.Read(buf)
 		for i := range buf[:n] {
 			if ferr := fn(&buf[i]); ferr != nil {
 				return ferr
@@ -508,7 +375,7 @@ func ReadSnapshot(r io.ReaderAt, size int64, fn func(*schema.Event) error) error
 			return nil
 		}
 		if err != nil {
-			return fmt.Errorf("parquet: %w", err)
+			return fmt.Errorf("%s: %w", what, err)
 		}
 	}
 }
@@ -542,7 +409,7 @@ func hasEventAttrs(sch *parquet.Schema) bool { return len(eventAttrColumns(sch))
 
 // eventAttrColumns finds the leaf columns of sch that are not schema
 // fields, in column order: a snapshot's event attributes, when its first
-// columns are the schema's, in order (as attrEventSchema writes them); nil
+// columns are the schema's, in order (as eventSchemaOf writes them); nil
 // for any other file. Their types follow from the Parquet types the writer
 // gives them.
 func eventAttrColumns(sch *parquet.Schema) []attrColumn {
