@@ -6,7 +6,8 @@
 #
 #   EVENTS       events of the generated service line (default 1000000)
 #   ROUNDS       ingest rounds of each side, interleaved (default 3)
-#   WRK_SECONDS  length of each wrk run (default 5)
+#   WRK_SECONDS  length of each wrk run (default 5; 0: ingest only, no
+#                serving comparison)
 #
 # Environment: FLOWCAT_BIN (a built flowcat binary; default: built from this
 # checkout), BENCH_CSV (a CSV to use instead of generating one), WRK_THREADS
@@ -161,6 +162,12 @@ for r in $(seq "$rounds"); do
   echo "bench: round $r: flowcat ${flowcat_s[-1]} s (VmHWM ${flowcat_hwm[-1]} kB), DuckDB ${duck_s[-1]} s" >&2
 done
 
+if [ "$wrk_seconds" -eq 0 ]; then
+  fc=$(median "${flowcat_s[@]}"); dk=$(median "${duck_s[@]}")
+  echo "ingest $rows events: flowcat ${flowcat_s[*]} s (median $fc), DuckDB ${duck_s[*]} s (median $dk), ratio $(echo "scale=2; $fc / $dk" | bc); VmHWM ${flowcat_hwm[*]} kB; DuckDB maxRSS ${duck_rss[*]} kB"
+  exit 0
+fi
+
 # Serving: the last round's catalog behind a fresh server, without the
 # per-token request rate limit (wrk sends thousands a second on one token;
 # the limiter would answer most with 429).
@@ -212,16 +219,20 @@ wait_port "$ngx_port"
 ngx_url="http://127.0.0.1:$ngx_port"
 
 # wrk_rate URL [HEADER...]: prints "requests/s MB/s"; fails on any non-2xx
-# answer or socket error.
+# answer or a connect, read or write error. Requests still unanswered after
+# 30 s are wrk's timeouts, counted apart (a loaded machine has them).
 wrk_rate() {
   local url=$1 out args=()
   shift
   for h in "$@"; do args+=(-H "$h"); done
-  out=$(wrk -t "$threads" -c "$conns" -d "${wrk_seconds}s" --latency "${args[@]}" "$url")
-  if grep -q -E 'Non-2xx|Socket errors' <<<"$out"; then
+  out=$(wrk -t "$threads" -c "$conns" -d "${wrk_seconds}s" --timeout 30s "${args[@]}" "$url")
+  if grep -q -E 'Non-2xx|Socket errors: connect [1-9]|read [1-9]|write [1-9]' <<<"$out"; then
     echo "bench: wrk $url: $out" >&2
     exit 1
   fi
+  local late
+  late=$(grep -o 'timeout [0-9]*' <<<"$out" | cut -d' ' -f2)
+  [ "${late:-0}" -eq 0 ] || echo "bench: wrk $url: $late requests unanswered after 30 s" >&2
   awk '/^Requests\/sec/ {r=$2} /^Transfer\/sec/ {t=$2; u=t; sub(/[0-9.]+/, "", u); sub(/[A-Za-z]+$/, "", t);
        m = (u=="GB") ? 1024 : (u=="MB") ? 1 : (u=="KB") ? 1/1024 : 1/1048576; printf "%.0f %.1f\n", r, t*m}' <<<"$out"
 }

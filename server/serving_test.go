@@ -3,8 +3,10 @@ package server
 import (
 	"bufio"
 	"bytes"
+	"compress/gzip"
 	"encoding/json"
 	"fmt"
+	"io"
 	"net/http"
 	"testing"
 
@@ -56,5 +58,73 @@ func TestDownloadServedFromFile(t *testing.T) {
 	want := []int64{f.Bytes, f.Bytes - 1000, 0}
 	if fmt.Sprint(logged) != fmt.Sprint(want) {
 		t.Errorf("access log bytes %v, want %v", logged, want)
+	}
+}
+
+// TestPlainSummaryKept: a client that does not take gzip gets the stored
+// summary decompressed, the same bytes on the first request (decoded) and
+// the next (kept), and the same as the gzip a client taking it gets; a
+// new version's summary is not answered with the old one's.
+func TestPlainSummaryKept(t *testing.T) {
+	e := newEnv(t)
+	e.createProject("ward")
+	e.createDataset("ward", "events", wardProfile)
+	member := e.member("ward")
+	path := "/api/v1/projects/ward/datasets/events/versions/latest/summary"
+	var prev []byte
+	for day := 7; day <= 8; day++ {
+		e.mustStatus(e.upload("ward", "events", e.admin, "a.csv", wardFile(day, 300)), http.StatusCreated, "upload")
+		gz := e.do(http.MethodGet, path, member, nil, map[string]string{"Accept-Encoding": "gzip"})
+		e.mustStatus(gz, http.StatusOK, "gzip summary")
+		if gz.Header.Get("Content-Encoding") != "gzip" {
+			t.Fatalf("day %d: Content-Encoding %q, want the stored gzip", day, gz.Header.Get("Content-Encoding"))
+		}
+		zr, err := gzip.NewReader(bytes.NewReader(gz.Body))
+		if err != nil {
+			t.Fatal(err)
+		}
+		want, err := io.ReadAll(zr)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for i := range 2 {
+			r := e.get(path, member)
+			e.mustStatus(r, http.StatusOK, "plain summary")
+			if r.Header.Get("Content-Encoding") != "" || !bytes.Equal(r.Body, want) {
+				t.Errorf("day %d, request %d: %d bytes (Content-Encoding %q), want the %d decompressed", day, i, len(r.Body), r.Header.Get("Content-Encoding"), len(want))
+			}
+		}
+		if bytes.Equal(want, prev) {
+			t.Errorf("day %d: the second version's summary is the first's", day)
+		}
+		prev = want
+	}
+}
+
+// TestSummaryCacheBound: the kept plain summaries stay within their byte
+// bound, the least recently served going first; one larger than an entry
+// may be is not kept.
+func TestSummaryCacheBound(t *testing.T) {
+	var c summaryCache
+	b := make([]byte, plainSummaryEntry)
+	n := plainSummaryBytes/plainSummaryEntry + 1 // one past the bound
+	for i := range n {
+		c.put(fmt.Sprint(i), b)
+		if i == 1 {
+			c.get("0") // served again: now the most recent
+		}
+	}
+	if c.bytes > plainSummaryBytes || c.bytes != c.lru.Len()*len(b) {
+		t.Errorf("%d bytes kept in %d entries, bound %d", c.bytes, c.lru.Len(), plainSummaryBytes)
+	}
+	if _, ok := c.get("0"); !ok {
+		t.Error("the entry served again was dropped before older ones")
+	}
+	if _, ok := c.get("1"); ok {
+		t.Error("the least recently served entry was kept past the bound")
+	}
+	c.put("big", make([]byte, plainSummaryEntry+1))
+	if _, ok := c.get("big"); ok {
+		t.Error("an entry over plainSummaryEntry was kept")
 	}
 }

@@ -118,9 +118,13 @@ func (s *Server) getSummary(c echo.Context) error {
 			h.Set(echo.HeaderContentEncoding, "gzip")
 			return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, gz)
 		}
-		b, err := s.cfg.Store.Summary(c.Request().Context(), head.Dataset.String(), head.Number)
-		if err != nil {
-			return catalogError(err)
+		key := fmt.Sprintf("%s@%d/%s", head.Dataset, head.Number, head.SnapshotID)
+		b, ok := s.plainSummaries.get(key)
+		if !ok {
+			if b, err = s.cfg.Store.Summary(c.Request().Context(), head.Dataset.String(), head.Number); err != nil {
+				return catalogError(err)
+			}
+			s.plainSummaries.put(key, b)
 		}
 		return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
 	}
