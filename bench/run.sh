@@ -12,7 +12,8 @@
 # Environment: FLOWCAT_BIN (a built flowcat binary; default: built from this
 # checkout), BENCH_CSV (a CSV to use instead of generating one), WRK_THREADS
 # (default 2), WRK_CONNECTIONS (default 16), BENCH_PER_HOUR (cases arriving
-# an hour in the generated line, default 10000).
+# an hour in the generated line, default 10000), BENCH_SERVE_ROUNDS (wrk
+# rounds, default ROUNDS up to 3).
 #
 # What it does, all on loopback, in a temporary folder removed at the end:
 #  1. Writes EVENTS events of a contact line in the schema's own columns
@@ -246,7 +247,7 @@ serve_round() {
   rate[ngx_gz]+="$(wrk_rate "$ngx_url/summary.json.gz")|"
   rate[fc_gz]+="$(wrk_rate "$vurl/summary" "$auth" 'Accept-Encoding: gzip')|"
 }
-serve_rounds=$(( rounds < 3 ? rounds : 3 ))
+serve_rounds=${BENCH_SERVE_ROUNDS:-$(( rounds < 3 ? rounds : 3 ))}
 for r in $(seq "$serve_rounds"); do serve_round; done
 # med KEY FIELD: median of the rounds' FIELD (1: requests/s, 2: MB/s)
 med() { local IFS='|' xs=() v; for v in ${rate[$1]}; do xs+=("$(cut -d' ' -f"$2" <<<"$v")"); done; median "${xs[@]}"; }

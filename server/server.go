@@ -76,7 +76,7 @@ type Server struct {
 	csrfKey []byte // signs the pages' form tokens (pages.go)
 	openapi []byte // the OpenAPI document (contract.go)
 
-	plainSummaries summaryCache // serving.go
+	summaries summaryCache // stored summaries last served (serving.go)
 }
 
 // New returns a server for cfg.

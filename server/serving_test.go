@@ -61,11 +61,12 @@ func TestDownloadServedFromFile(t *testing.T) {
 	}
 }
 
-// TestPlainSummaryKept: a client that does not take gzip gets the stored
-// summary decompressed, the same bytes on the first request (decoded) and
-// the next (kept), and the same as the gzip a client taking it gets; a
-// new version's summary is not answered with the old one's.
-func TestPlainSummaryKept(t *testing.T) {
+// TestSummaryKept: a client that takes gzip gets the stored summary's
+// bytes on the first request (read) and the next (kept); one that does
+// not gets them decompressed, the same on the first request (decoded) and
+// the next (kept); a new version's summary is not answered with the old
+// one's.
+func TestSummaryKept(t *testing.T) {
 	e := newEnv(t)
 	e.createProject("ward")
 	e.createDataset("ward", "events", wardProfile)
@@ -79,6 +80,11 @@ func TestPlainSummaryKept(t *testing.T) {
 		if gz.Header.Get("Content-Encoding") != "gzip" {
 			t.Fatalf("day %d: Content-Encoding %q, want the stored gzip", day, gz.Header.Get("Content-Encoding"))
 		}
+		again := e.do(http.MethodGet, path, member, nil, map[string]string{"Accept-Encoding": "gzip"})
+		e.mustStatus(again, http.StatusOK, "gzip summary again")
+		if !bytes.Equal(again.Body, gz.Body) || again.Header.Get("ETag") != gz.Header.Get("ETag") {
+			t.Errorf("day %d: the kept gzip summary differs from the stored one", day)
+		}
 		zr, err := gzip.NewReader(bytes.NewReader(gz.Body))
 		if err != nil {
 			t.Fatal(err)
@@ -90,6 +96,9 @@ func TestPlainSummaryKept(t *testing.T) {
 		for i := range 2 {
 			r := e.get(path, member)
 			e.mustStatus(r, http.StatusOK, "plain summary")
+			if cl := r.Header.Get("Content-Length"); cl != fmt.Sprint(len(want)) {
+				t.Errorf("day %d, request %d: Content-Length %q, want %d", day, i, cl, len(want))
+			}
 			if r.Header.Get("Content-Encoding") != "" || !bytes.Equal(r.Body, want) {
 				t.Errorf("day %d, request %d: %d bytes (Content-Encoding %q), want the %d decompressed", day, i, len(r.Body), r.Header.Get("Content-Encoding"), len(want))
 			}
@@ -106,16 +115,16 @@ func TestPlainSummaryKept(t *testing.T) {
 // may be is not kept.
 func TestSummaryCacheBound(t *testing.T) {
 	var c summaryCache
-	b := make([]byte, plainSummaryEntry)
-	n := plainSummaryBytes/plainSummaryEntry + 1 // one past the bound
+	b := make([]byte, summaryCacheEntry)
+	n := summaryCacheBytes/summaryCacheEntry + 1 // one past the bound
 	for i := range n {
 		c.put(fmt.Sprint(i), b)
 		if i == 1 {
 			c.get("0") // served again: now the most recent
 		}
 	}
-	if c.bytes > plainSummaryBytes || c.bytes != c.lru.Len()*len(b) {
-		t.Errorf("%d bytes kept in %d entries, bound %d", c.bytes, c.lru.Len(), plainSummaryBytes)
+	if c.bytes > summaryCacheBytes || c.bytes != c.lru.Len()*len(b) {
+		t.Errorf("%d bytes kept in %d entries, bound %d", c.bytes, c.lru.Len(), summaryCacheBytes)
 	}
 	if _, ok := c.get("0"); !ok {
 		t.Error("the entry served again was dropped before older ones")
@@ -123,8 +132,8 @@ func TestSummaryCacheBound(t *testing.T) {
 	if _, ok := c.get("1"); ok {
 		t.Error("the least recently served entry was kept past the bound")
 	}
-	c.put("big", make([]byte, plainSummaryEntry+1))
+	c.put("big", make([]byte, summaryCacheEntry+1))
 	if _, ok := c.get("big"); ok {
-		t.Error("an entry over plainSummaryEntry was kept")
+		t.Error("an entry over summaryCacheEntry was kept")
 	}
 }
