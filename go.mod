@@ -10,6 +10,7 @@ require (
 	github.com/github/go-spdx/v2 v2.8.0
 	github.com/goccy/go-yaml v1.19.2
 	github.com/golang-jwt/jwt/v5 v5.3.1
+	github.com/hashicorp/golang-lru/v2 v2.0.7
 	github.com/invopop/jsonschema v0.14.0
 	github.com/itchyny/timefmt-go v0.1.9
 	github.com/johannesboyne/gofakes3 v1.2.0

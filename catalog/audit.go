@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"io"
 	"strings"
+	"sync"
 	"time"
 
 	bolt "go.etcd.io/bbolt"
@@ -159,7 +160,71 @@ func (s *Store) RecordAudit(ctx context.Context, e AuditEntry) error {
 		e.At = s.opt.Now()
 	}
 	e = withActor(ctx, e)
-	return s.db.Update(func(tx *bolt.Tx) error { return appendAudit(tx, e) })
+	return s.audits.record(s.db, e)
+}
+
+// auditGroup commits RecordAudit's entries in groups, one transaction (and
+// one fsync) for the entries that arrived while the previous group was
+// committing: a download is audited before its first byte is sent, and
+// one commit each would bound a server's downloads to its disk's fsyncs
+// a second. A lone entry is committed at once, with no wait for company.
+// Each caller returns once its own entry is committed, or with the error
+// of the transaction that held it.
+type auditGroup struct {
+	mu      sync.Mutex
+	pending []*auditWait
+	busy    bool // a leader is committing; the next one is woken by it
+}
+
+type auditWait struct {
+	e    AuditEntry
+	done chan auditDone
+}
+
+type auditDone struct {
+	err  error
+	lead bool // commit the pending group (this entry among them)
+}
+
+func (g *auditGroup) record(db *bolt.DB, e AuditEntry) error {
+	w := &auditWait{e: e, done: make(chan auditDone, 1)}
+	g.mu.Lock()
+	g.pending = append(g.pending, w)
+	lead := !g.busy
+	g.busy = true
+	g.mu.Unlock()
+	if !lead {
+		if d := <-w.done; !d.lead {
+			return d.err
+		}
+	}
+	g.mu.Lock()
+	group := g.pending
+	g.pending = nil
+	g.mu.Unlock()
+	err := db.Update(func(tx *bolt.Tx) error {
+		for _, x := range group {
+			if err := appendAudit(tx, x.e); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	for _, x := range group {
+		if x != w {
+			x.done <- auditDone{err: err}
+		}
+	}
+	// Hand the lead to the first entry that came during the commit, so
+	// that no caller commits for others for longer than one group.
+	g.mu.Lock()
+	if len(g.pending) > 0 {
+		g.pending[0].done <- auditDone{lead: true}
+	} else {
+		g.busy = false
+	}
+	g.mu.Unlock()
+	return err
 }
 
 // AuditFilter selects audit entries. Zero fields select everything.

@@ -71,6 +71,8 @@ type Store struct {
 	// noCaseGroups makes every commit a full per-case pass (tests compare
 	// the two).
 	noCaseGroups bool
+	// audits commits the entries of RecordAudit in groups (audit.go).
+	audits auditGroup
 }
 
 // Open opens (creating if needed) the bbolt file at path. It fails with

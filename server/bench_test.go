@@ -35,7 +35,13 @@ func benchServer(b *testing.B, n int64) (*Server, string, *catalog.Version) {
 		b.Fatal(err)
 	}
 	quiet := slog.New(slog.NewTextHandler(io.Discard, nil))
-	store, err := catalog.Open(filepath.Join(dir, "catalog.db"), blobs, catalog.Options{Master: master, TempDir: dir, Logger: quiet})
+	// A temp folder of its own: the catalog clears its temp folder when it
+	// opens, and dir holds the blob store.
+	tmp := filepath.Join(dir, "tmp")
+	if err := os.MkdirAll(tmp, 0o700); err != nil {
+		b.Fatal(err)
+	}
+	store, err := catalog.Open(filepath.Join(dir, "catalog.db"), blobs, catalog.Options{Master: master, TempDir: tmp, Logger: quiet})
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -58,7 +64,8 @@ func benchServer(b *testing.B, n int64) (*Server, string, *catalog.Version) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	return New(Config{Store: store, Authority: auth, Logger: quiet}), tok, res.Version
+	// No rate limit: a benchmark sends thousands of requests a second.
+	return New(Config{Store: store, Authority: auth, Logger: quiet, RateLimit: -1}), tok, res.Version
 }
 
 func serve(b *testing.B, s *Server, tok, path string, hdr ...string) *httptest.ResponseRecorder {

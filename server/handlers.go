@@ -623,8 +623,34 @@ func (s *Server) download(c echo.Context) error {
 	h.Set("ETag", `"`+id.String()+`"`)
 	h.Set("Cache-Control", "private, max-age=31536000, immutable")
 	h.Set(echo.HeaderContentDisposition, fmt.Sprintf(`attachment; filename="%s"`, id.String()+".parquet"))
-	http.ServeContent(c.Response(), c.Request(), "", time.Time{}, r)
+	http.ServeContent(readFromResponse{c.Response()}, c.Request(), "", time.Time{}, r)
 	return nil
+}
+
+// readFromResponse is echo's response with the ReadFrom of the
+// http.ResponseWriter under it, so that http.ServeContent's copy of a blob
+// stored as a local file goes from the file to the connection by
+// sendfile(2): net/http's writer hands a reader that is a file (or a
+// LimitedReader of one) to the TCP connection's ReadFrom, which sends it
+// without copying it through the process. Other readers (an S3 object)
+// and other connections (HTTP/2) are copied as before. Status and Size are
+// kept as echo's Write keeps them, for the access log and the metrics.
+type readFromResponse struct{ *echo.Response }
+
+func (w readFromResponse) ReadFrom(r io.Reader) (int64, error) {
+	rf, ok := w.Writer.(io.ReaderFrom)
+	if !ok {
+		return io.Copy(struct{ io.Writer }{w.Response}, r)
+	}
+	if !w.Committed {
+		if w.Status == 0 {
+			w.Status = http.StatusOK
+		}
+		w.WriteHeader(w.Status)
+	}
+	n, err := rf.ReadFrom(r)
+	w.Size += n
+	return n, err
 }
 
 // maxRanges bounds the ranges of one Range header.

@@ -75,6 +75,8 @@ type Server struct {
 
 	csrfKey []byte // signs the pages' form tokens (pages.go)
 	openapi []byte // the OpenAPI document (contract.go)
+
+	summaries summaryCache // stored summaries last served (serving.go)
 }
 
 // New returns a server for cfg.

@@ -9,6 +9,7 @@ import (
 	"net/http"
 	"net/url"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 
@@ -108,20 +109,32 @@ func (s *Server) getSummary(c echo.Context) error {
 	h := c.Response().Header()
 	h.Set("ETag", `"`+head.SnapshotID.String()+`"`)
 	if len(q) == 0 {
-		// Stored gzip-compressed: sent as it is to a client that takes gzip.
+		// Stored gzip-compressed: sent as it is to a client that takes gzip,
+		// decompressed for any other. Both are kept for the next request
+		// (serving.go), so that neither costs a read of the catalog and a
+		// copy of the summary, nor a decompression, each time.
 		h.Add("Vary", "Accept-Encoding")
+		ctx, key := c.Request().Context(), fmt.Sprintf("%s@%d/%s", head.Dataset, head.Number, head.SnapshotID)
 		if acceptsGzip(c.Request()) {
-			gz, err := s.cfg.Store.SummaryGzip(c.Request().Context(), head.Dataset.String(), head.Number)
-			if err != nil {
-				return catalogError(err)
+			gz, ok := s.summaries.get(key + " gzip")
+			if !ok {
+				if gz, err = s.cfg.Store.SummaryGzip(ctx, head.Dataset.String(), head.Number); err != nil {
+					return catalogError(err)
+				}
+				s.summaries.put(key+" gzip", gz)
 			}
 			h.Set(echo.HeaderContentEncoding, "gzip")
+			h.Set(echo.HeaderContentLength, strconv.Itoa(len(gz)))
 			return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, gz)
 		}
-		b, err := s.cfg.Store.Summary(c.Request().Context(), head.Dataset.String(), head.Number)
-		if err != nil {
-			return catalogError(err)
+		b, ok := s.summaries.get(key + " json")
+		if !ok {
+			if b, err = s.cfg.Store.Summary(ctx, head.Dataset.String(), head.Number); err != nil {
+				return catalogError(err)
+			}
+			s.summaries.put(key+" json", b)
 		}
+		h.Set(echo.HeaderContentLength, strconv.Itoa(len(b)))
 		return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
 	}
 	v, err := s.cfg.Store.Version(c.Request().Context(), c.Param("project"), c.Param("dataset"), head.Number)
