@@ -16,6 +16,7 @@ import (
 	"time"
 
 	"github.com/golang-jwt/jwt/v5"
+	lru "github.com/hashicorp/golang-lru/v2"
 )
 
 // Roles a token can carry.
@@ -94,6 +95,9 @@ type Authority struct {
 	keys     *KeySet
 	stamp    time.Time // modification time of keysPath when read
 	size     int64
+
+	seenOnce sync.Once
+	seen     *lru.Cache[string, verified] // tokens verified before (remembered)
 }
 
 // NewAuthority returns an Authority that signs and verifies HS256 under
@@ -309,23 +313,24 @@ func checkJOSE(token string) error {
 // (within ClockSkew), NumericDate types, and the presence of sub and jti.
 // Every failure wraps ErrUnauthorized.
 func (a *Authority) Verify(token string) (*Claims, error) {
-	if err := checkJOSE(token); err != nil {
-		return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
-	}
 	ks, err := a.keySet()
 	if err != nil {
 		return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
 	}
+	if c, ok := a.remembered(ks, token); ok {
+		// The same bytes passed checkJOSE and the signature before; the
+		// times are checked again.
+		if err := jwt.NewValidator(a.claimRules()...).Validate(c); err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
+		}
+		return c, nil
+	}
+	if err := checkJOSE(token); err != nil {
+		return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
+	}
 	var c Claims
-	t, err := jwt.ParseWithClaims(token, &c, func(t *jwt.Token) (any, error) { return a.verifyKey(ks, t) },
-		jwt.WithValidMethods([]string{jwt.SigningMethodEdDSA.Alg(), jwt.SigningMethodHS256.Alg()}),
-		jwt.WithIssuer(a.issuer),
-		jwt.WithAudience(Audience),
-		jwt.WithExpirationRequired(),
-		jwt.WithIssuedAt(),
-		jwt.WithTimeFunc(a.now),
-		jwt.WithLeeway(ClockSkew),
-	)
+	rules := append(a.claimRules(), jwt.WithValidMethods([]string{jwt.SigningMethodEdDSA.Alg(), jwt.SigningMethodHS256.Alg()}))
+	t, err := jwt.ParseWithClaims(token, &c, func(t *jwt.Token) (any, error) { return a.verifyKey(ks, t) }, rules...)
 	if err != nil {
 		return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
 	}
@@ -336,7 +341,68 @@ func (a *Authority) Verify(token string) (*Claims, error) {
 		return nil, fmt.Errorf("%w: unknown role %q", ErrUnauthorized, c.Role)
 	}
 	c.kid, _ = t.Header["kid"].(string)
+	a.remember(ks, token, &c)
 	return &c, nil
+}
+
+// claimRules are the checks of a token's claims: issuer, audience,
+// expiry (required), issue time, each within ClockSkew. They run on every
+// request, whether or not the signature was checked before.
+func (a *Authority) claimRules() []jwt.ParserOption {
+	return []jwt.ParserOption{
+		jwt.WithIssuer(a.issuer),
+		jwt.WithAudience(Audience),
+		jwt.WithExpirationRequired(),
+		jwt.WithIssuedAt(),
+		jwt.WithTimeFunc(a.now),
+		jwt.WithLeeway(ClockSkew),
+	}
+}
+
+// verifiedTokens bounds how many tokens an Authority remembers as
+// verified (least recently used first out). A token is a few hundred
+// bytes, so the memory is under a few MiB.
+const verifiedTokens = 4096
+
+// verified is a token whose header, algorithm, key and signature passed,
+// under the key set ks.
+type verified struct {
+	ks     *KeySet
+	claims Claims
+}
+
+// remembered returns a copy of the claims of token if these exact bytes
+// were verified under the current key set ks and their key still
+// verifies. A signature check (Ed25519) costs far more than the rest of a
+// request for a stored summary; the claims' times are checked again by the
+// caller on every request. The memory holds tokens in process memory only.
+func (a *Authority) remembered(ks *KeySet, token string) (*Claims, bool) {
+	a.seenOnce.Do(func() { a.seen, _ = lru.New[string, verified](verifiedTokens) })
+	v, ok := a.seen.Get(token)
+	if !ok || v.ks != ks || !a.stillVerifies(ks, v.claims.kid) {
+		return nil, false
+	}
+	c := v.claims
+	return &c, true
+}
+
+func (a *Authority) remember(ks *KeySet, token string, c *Claims) {
+	a.seenOnce.Do(func() { a.seen, _ = lru.New[string, verified](verifiedTokens) })
+	a.seen.Add(token, verified{ks: ks, claims: *c})
+}
+
+// stillVerifies reports whether the key named kid ("" for the legacy
+// HS256 key) is in ks and not retired.
+func (a *Authority) stillVerifies(ks *KeySet, kid string) bool {
+	if kid == "" {
+		return a.legacy != nil && ks.LegacyRetired == nil
+	}
+	for _, k := range ks.Keys {
+		if k.KID == kid {
+			return k.RetiredAt == nil
+		}
+	}
+	return false
 }
 
 // verifyKey picks the key for t by its algorithm and kid, so that a key

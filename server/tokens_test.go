@@ -413,3 +413,74 @@ func TestRevocation(t *testing.T) {
 	}
 	_ = http.StatusOK
 }
+
+// TestVerifiedTokenMemory checks that remembering a verified token never
+// lets through what a full check would refuse: the claims' times are
+// checked on every use (RFC 7519 section 4.1.4), a retired key's tokens
+// are refused at once, and other bytes are never taken for a remembered
+// token.
+func TestVerifiedTokenMemory(t *testing.T) {
+	e := newKeyEnv(t)
+	a := e.auth
+	tok, err := a.Issue(Grant{Role: RoleAdmin, Subject: "memo", TTL: time.Hour})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := 0; i < 2; i++ {
+		if _, err := a.Verify(tok); err != nil {
+			t.Fatalf("use %d: %v", i, err)
+		}
+	}
+	if _, ok := a.remembered(mustKeySet(t, a), tok); !ok {
+		t.Fatal("a verified token is not remembered")
+	}
+
+	// Expiry: the remembered token is refused once past exp + ClockSkew.
+	start := a.now
+	a.now = func() time.Time { return start().Add(time.Hour + ClockSkew + time.Minute) }
+	if _, err := a.Verify(tok); !errors.Is(err, ErrUnauthorized) {
+		t.Fatalf("remembered token after expiry: %v, want ErrUnauthorized", err)
+	}
+	a.now = start
+
+	// Other bytes: a changed signature is checked in full and refused.
+	parts := strings.Split(tok, ".")
+	sig := []byte(parts[2])
+	sig[3] ^= 1
+	if sig[3] == '.' || sig[3] > 'z' {
+		sig[3] = 'A'
+	}
+	bad := parts[0] + "." + parts[1] + "." + string(sig)
+	if _, err := a.Verify(bad); !errors.Is(err, ErrUnauthorized) {
+		t.Fatalf("tampered signature: %v, want ErrUnauthorized", err)
+	}
+
+	// Retirement: rotate, retire the key that signed tok; refused at once.
+	ks := e.keys()
+	if _, err := ks.Rotate(time.Now()); err != nil {
+		t.Fatal(err)
+	}
+	first := header(t, tok)["kid"].(string)
+	if err := ks.Retire(first, time.Now()); err != nil {
+		t.Fatal(err)
+	}
+	e.save(ks)
+	if _, err := a.Verify(tok); !errors.Is(err, ErrUnauthorized) {
+		t.Fatalf("remembered token of a retired key: %v, want ErrUnauthorized", err)
+	}
+	// The memory checks retirement itself, not only that the set changed.
+	cur := mustKeySet(t, a)
+	a.remember(cur, tok, &Claims{Role: RoleAdmin, kid: first})
+	if _, ok := a.remembered(cur, tok); ok {
+		t.Fatal("a token of a retired key counts as remembered")
+	}
+}
+
+func mustKeySet(t *testing.T, a *Authority) *KeySet {
+	t.Helper()
+	ks, err := a.keySet()
+	if err != nil {
+		t.Fatal(err)
+	}
+	return ks
+}
