@@ -279,6 +279,17 @@ func (s *Store) ResolveVersion(ctx context.Context, project, dataset string, sel
 			hs = append(hs, h)
 			return nil
 		}
+		if sel.Kind == SelectLatest || sel.Kind == SelectTime {
+			// The newest match wins: walk back from the newest record and
+			// stop there, so a request costs one record, not the history.
+			return newestFirst(tx.Bucket(bucketVersions), ref, func(h *Version) bool {
+				if (sel.Kind == SelectLatest && h.State == StatePublished) || (sel.Kind == SelectTime && h.CurrentAt(sel.At)) {
+					hs = append(hs, *h)
+					return true
+				}
+				return false
+			})
+		}
 		var err error
 		hs, err = scanJSON[Version](tx.Bucket(bucketVersions), []byte(ref+"/"))
 		return err
@@ -290,6 +301,9 @@ func (s *Store) ResolveVersion(ctx context.Context, project, dataset string, sel
 		if !hs[0].Visible(drafts) {
 			return nil, fmt.Errorf("version %s@%d: %w", ref, sel.Number, ErrNotFound)
 		}
+		return &hs[0], nil
+	}
+	if (sel.Kind == SelectLatest || sel.Kind == SelectTime) && len(hs) == 1 {
 		return &hs[0], nil
 	}
 	var found *Version
@@ -388,4 +402,27 @@ func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*V
 		return nil, err
 	}
 	return &v, nil
+}
+
+// newestFirst decodes the version records of dataset ref from the newest
+// back (seqKey orders them by number) and stops when fn returns true.
+func newestFirst(b *bolt.Bucket, ref string, fn func(*Version) bool) error {
+	prefix := []byte(ref + "/")
+	c := b.Cursor()
+	k, v := c.Seek(append([]byte(ref), '/'+1)) // just past the last key under prefix
+	if k == nil {
+		k, v = c.Last()
+	} else {
+		k, v = c.Prev()
+	}
+	for ; k != nil && bytes.HasPrefix(k, prefix); k, v = c.Prev() {
+		var h Version
+		if err := json.Unmarshal(v, &h); err != nil {
+			return fmt.Errorf("catalog: %s: %w", k, err)
+		}
+		if fn(&h) {
+			return nil
+		}
+	}
+	return nil
 }
