@@ -73,6 +73,8 @@ type Store struct {
 	noCaseGroups bool
 	// audits commits the entries of RecordAudit in groups (audit.go).
 	audits auditGroup
+	// versions keeps decoded version records (versionmemo.go).
+	versions versionMemo
 }
 
 // Open opens (creating if needed) the bbolt file at path. It fails with

@@ -272,8 +272,8 @@ func (s *Store) ResolveVersion(ctx context.Context, project, dataset string, sel
 			return fmt.Errorf("dataset %q: %w", ref, ErrNotFound)
 		}
 		if sel.Kind == SelectNumber {
-			var h Version
-			if err := getJSON(tx.Bucket(bucketVersions), seqKey(ref, sel.Number), &h, fmt.Sprintf("version %s@%d", ref, sel.Number)); err != nil {
+			h, err := s.versions.get(tx.Bucket(bucketVersions), seqKey(ref, sel.Number), fmt.Sprintf("version %s@%d", ref, sel.Number))
+			if err != nil {
 				return err
 			}
 			hs = append(hs, h)
@@ -282,7 +282,7 @@ func (s *Store) ResolveVersion(ctx context.Context, project, dataset string, sel
 		if sel.Kind == SelectLatest || sel.Kind == SelectTime {
 			// The newest match wins: walk back from the newest record and
 			// stop there, so a request costs one record, not the history.
-			return newestFirst(tx.Bucket(bucketVersions), ref, func(h *Version) bool {
+			return s.newestFirst(tx.Bucket(bucketVersions), ref, func(h *Version) bool {
 				if (sel.Kind == SelectLatest && h.State == StatePublished) || (sel.Kind == SelectTime && h.CurrentAt(sel.At)) {
 					hs = append(hs, *h)
 					return true
@@ -393,7 +393,8 @@ func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*V
 			}
 			n = d.Latest
 		}
-		if err := getJSON(tx.Bucket(bucketVersions), seqKey(ref, n), &v, fmt.Sprintf("version %s@%d", ref, n)); err != nil {
+		var err error
+		if v, err = s.versions.get(tx.Bucket(bucketVersions), seqKey(ref, n), fmt.Sprintf("version %s@%d", ref, n)); err != nil {
 			return err
 		}
 		return withManifest(tx, &v)
@@ -406,7 +407,7 @@ func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*V
 
 // newestFirst decodes the version records of dataset ref from the newest
 // back (seqKey orders them by number) and stops when fn returns true.
-func newestFirst(b *bolt.Bucket, ref string, fn func(*Version) bool) error {
+func (s *Store) newestFirst(b *bolt.Bucket, ref string, fn func(*Version) bool) error {
 	prefix := []byte(ref + "/")
 	c := b.Cursor()
 	k, v := c.Seek(append([]byte(ref), '/'+1)) // just past the last key under prefix
@@ -416,9 +417,9 @@ func newestFirst(b *bolt.Bucket, ref string, fn func(*Version) bool) error {
 		k, v = c.Prev()
 	}
 	for ; k != nil && bytes.HasPrefix(k, prefix); k, v = c.Prev() {
-		var h Version
-		if err := json.Unmarshal(v, &h); err != nil {
-			return fmt.Errorf("catalog: %s: %w", k, err)
+		h, err := s.versions.decode(k, v)
+		if err != nil {
+			return err
 		}
 		if fn(&h) {
 			return nil
