@@ -99,14 +99,16 @@ func (s *Store) RevokeToken(ctx context.Context, by, jti, reason string) (Revoca
 	return out, err
 }
 
-// TokenRevoked reports whether jti was revoked.
-func (s *Store) TokenRevoked(jti string) (bool, error) {
-	var revoked bool
-	err := s.db.View(func(tx *bolt.Tx) error {
+// TokenStanding reports, in one read, whether the catalog has a record of
+// jti and whether jti was revoked (a revocation can exist without a
+// record).
+func (s *Store) TokenStanding(jti string) (recorded, revoked bool, err error) {
+	err = s.db.View(func(tx *bolt.Tx) error {
+		recorded = tx.Bucket(bucketTokens).Get([]byte(jti)) != nil
 		revoked = tx.Bucket(bucketRevocations).Get([]byte(jti)) != nil
 		return nil
 	})
-	return revoked, err
+	return recorded, revoked, err
 }
 
 // Tokens lists the recorded tokens (by jti), each with its revocation if
@@ -234,14 +236,4 @@ func (s *Store) RevokeProjectToken(ctx context.Context, by, project, jti, reason
 		return Revocation{}, fmt.Errorf("token %s: no member or partner token of project %s: %w", truncate(jti, maxJTI), project, ErrNotFound)
 	}
 	return s.RevokeToken(ctx, by, jti, reason)
-}
-
-// TokenRecorded reports whether the catalog has a record of jti.
-func (s *Store) TokenRecorded(jti string) (bool, error) {
-	var ok bool
-	err := s.db.View(func(tx *bolt.Tx) error {
-		ok = tx.Bucket(bucketTokens).Get([]byte(jti)) != nil
-		return nil
-	})
-	return ok, err
 }

@@ -341,21 +341,21 @@ func (s *Server) checkToken(ctx context.Context, tok string) (*Claims, error) {
 	// command line while this server ran): a token nobody can list
 	// cannot be revoked by jti. HS256 tokens predate records and are
 	// exempt until the legacy key is retired.
-	if cl.kid != "" {
-		ok, err := s.cfg.Store.TokenRecorded(cl.ID)
-		if err == nil && !ok {
-			ok, err = s.cfg.Store.ImportSpooledToken(ctx, s.cfg.TokenSpool, cl.ID)
-		}
+	recorded, revoked, err := s.cfg.Store.TokenStanding(cl.ID)
+	if err != nil {
+		return nil, err
+	}
+	if cl.kid != "" && !recorded {
+		ok, err := s.cfg.Store.ImportSpooledToken(ctx, s.cfg.TokenSpool, cl.ID)
 		if err != nil {
 			return nil, err
 		}
 		if !ok {
 			return nil, fail(http.StatusUnauthorized, "unauthorized", "unauthorized: token %s is not recorded in this catalog; issue tokens with flowcat token issue or POST /api/v1/admin/tokens", cl.ID)
 		}
-	}
-	revoked, err := s.cfg.Store.TokenRevoked(cl.ID)
-	if err != nil {
-		return nil, err
+		if _, revoked, err = s.cfg.Store.TokenStanding(cl.ID); err != nil { // as imported
+			return nil, err
+		}
 	}
 	if revoked {
 		return nil, fail(http.StatusUnauthorized, "unauthorized", "unauthorized: token %s was revoked", cl.ID)
