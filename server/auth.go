@@ -121,12 +121,14 @@ func OpenAuthority(keysPath string, legacy []byte, issuer string) (*Authority, e
 // keySet returns the current key set, reading the file again when its
 // modification time or size changed.
 func (a *Authority) keySet() (*KeySet, error) {
-	a.mu.Lock()
-	defer a.mu.Unlock()
 	if a.keysPath == "" {
+		a.mu.Lock()
+		defer a.mu.Unlock()
 		return a.keys, nil
 	}
-	fi, err := os.Stat(a.keysPath)
+	fi, err := os.Stat(a.keysPath) // outside the lock: requests do not queue on the syscall
+	a.mu.Lock()
+	defer a.mu.Unlock()
 	if err == nil && a.keys != nil && fi.ModTime().Equal(a.stamp) && fi.Size() == a.size {
 		return a.keys, nil
 	}
