@@ -2,6 +2,7 @@ package anonymize
 
 import (
 	"encoding/base32"
+	"hash/maphash"
 
 	"github.com/flowcat-catalog/flowcat/schema"
 )
@@ -30,6 +31,10 @@ type Pseudonymizer struct {
 	gens []*generation // oldest first; gens[0] pseudonymizes raw values
 	buf  []byte
 	out  [PseudonymLen]byte
+
+	// memos remember recent identifiers' pseudonyms per field (memo.go).
+	memos []fieldMemo
+	seed  maphash.Seed
 }
 
 // generation is one key of a project's chain.
@@ -80,11 +85,7 @@ func (p *Pseudonymizer) Pseudonym(f schema.Field, raw string) string {
 	if raw == "" {
 		return ""
 	}
-	p.root(f, raw)
-	for _, g := range p.gens[1:] {
-		p.step(g, f)
-	}
-	return string(p.out[:])
+	return p.remembered(f, raw).final
 }
 
 // root puts the generation-1 pseudonym of raw into p.out.

@@ -49,8 +49,7 @@ func (p *Pseudonymizer) ApplyShift(e *schema.Event, maxDays int) time.Duration {
 			raw, f = e.CaseID, schema.FieldCaseID
 		}
 		if raw != "" {
-			p.root(f, raw)
-			d = p.TimeShift(string(p.out[:]), maxDays)
+			d = p.shiftOf(p.remembered(f, raw), maxDays)
 		}
 	}
 	p.Apply(e)
