@@ -107,37 +107,24 @@ type Options struct {
 	MaxSamples int
 }
 
+// defaultTo sets *p to d when *p is not positive (unset).
+func defaultTo[T int | int64 | float64 | time.Duration](p *T, d T) {
+	if *p <= 0 {
+		*p = d
+	}
+}
+
 func (o *Options) defaults() {
-	if o.MaxCase <= 0 {
-		o.MaxCase = DefaultMaxCase
-	}
-	if o.ResourceCapacity <= 0 {
-		o.ResourceCapacity = DefaultResourceCapacity
-	}
-	if o.ClockTolerance <= 0 {
-		o.ClockTolerance = DefaultClockTolerance
-	}
-	if o.EventIDWindow <= 0 {
-		o.EventIDWindow = DefaultEventIDWindow
-	}
-	if o.LittleTolerance <= 0 {
-		o.LittleTolerance = DefaultLittleTolerance
-	}
-	if o.GapMinMean <= 0 {
-		o.GapMinMean = DefaultGapMinMean
-	}
-	if o.GapMinWeeks <= 0 {
-		o.GapMinWeeks = DefaultGapMinWeeks
-	}
-	if o.StaleAfter <= 0 {
-		o.StaleAfter = DefaultStaleAfter
-	}
-	if o.MaxHours <= 0 {
-		o.MaxHours = DefaultMaxHours
-	}
-	if o.MaxSamples <= 0 {
-		o.MaxSamples = DefaultMaxSamples
-	}
+	defaultTo(&o.MaxCase, DefaultMaxCase)
+	defaultTo(&o.ResourceCapacity, DefaultResourceCapacity)
+	defaultTo(&o.ClockTolerance, DefaultClockTolerance)
+	defaultTo(&o.EventIDWindow, DefaultEventIDWindow)
+	defaultTo(&o.LittleTolerance, DefaultLittleTolerance)
+	defaultTo(&o.GapMinMean, DefaultGapMinMean)
+	defaultTo(&o.GapMinWeeks, DefaultGapMinWeeks)
+	defaultTo(&o.StaleAfter, DefaultStaleAfter)
+	defaultTo(&o.MaxHours, DefaultMaxHours)
+	defaultTo(&o.MaxSamples, DefaultMaxSamples)
 	if o.Zone == nil {
 		o.Zone = time.UTC
 	}
