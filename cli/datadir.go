@@ -35,6 +35,15 @@ import (
 //	               never reads it
 type dataDir string
 
+// needData returns the data directory of a command that requires --data,
+// or a usage error naming the command.
+func needData(command, dir string) (dataDir, error) {
+	if dir == "" {
+		return "", usageErr("%s: --data DIR is required", command)
+	}
+	return dataDir(dir), nil
+}
+
 func (d dataDir) path(name string) string { return filepath.Join(string(d), name) }
 func (d dataDir) db() string              { return d.path("catalog.db") }
 func (d dataDir) blobs() string           { return d.path("blobs") }

@@ -13,10 +13,10 @@ func newInitCmd(e *env) *cobra.Command {
 		Short: "Create a data directory: catalog, blobs, signing and master keys",
 		Args:  cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			if dir == "" {
-				return usageErr("init: --data DIR is required")
+			d, err := needData("init", dir)
+			if err != nil {
+				return err
 			}
-			d := dataDir(dir)
 			created, err := initDataDir(d, masterFile, blobs)
 			if err != nil {
 				return err

@@ -26,10 +26,10 @@ current key in DIR/master.key and no --new-master-key, the new key replaces DIR/
 written to DIR/master.key.new first, and renamed once the catalog is re-sealed).`,
 		Args: cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			if dir == "" {
-				return usageErr("master-key rotate: --data DIR is required")
+			d, err := needData("master-key rotate", dir)
+			if err != nil {
+				return err
 			}
-			d := dataDir(dir)
 			oldKey, from, err := d.findMasterKey(masterFile)
 			if err != nil {
 				return err

@@ -25,10 +25,10 @@ dictionary says which versions it links with. The rotation is audited (key.proje
 key ids). The current master key is found as serve finds it.`,
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			if dir == "" {
-				return usageErr("pseudonym-key rotate: --data DIR is required")
+			d, err := needData("pseudonym-key rotate", dir)
+			if err != nil {
+				return err
 			}
-			d := dataDir(dir)
 			mk, _, err := d.findMasterKey(masterFile)
 			if err != nil {
 				return err

@@ -279,10 +279,10 @@ func newKeyRotateCmd(e *env) *cobra.Command {
 		Short: "Add a new Ed25519 signing key; older keys still verify until retired",
 		Args:  cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			if dir == "" {
-				return usageErr("token rotate: --data DIR is required")
+			d, err := needData("token rotate", dir)
+			if err != nil {
+				return err
 			}
-			d := dataDir(dir)
 			if _, err := d.readInstance(); err != nil {
 				return err
 			}
@@ -364,10 +364,10 @@ func newKeyListCmd(e *env) *cobra.Command {
 		Short: "List the signing keys: kid, created, retired, which one signs",
 		Args:  cobra.NoArgs,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			if dir == "" {
-				return usageErr("token keys: --data DIR is required")
+			d, err := needData("token keys", dir)
+			if err != nil {
+				return err
 			}
-			d := dataDir(dir)
 			a, err := d.authority()
 			if err != nil {
 				return err
