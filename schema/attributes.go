@@ -189,26 +189,20 @@ func parseAttributes(n ast.Node, lines map[string]int) ([]Attribute, error) {
 
 // parseColumnList reads a list of column names (drop).
 func parseColumnList(n ast.Node, key string) ([]string, error) {
-	var items []ast.Node
-	if seq, ok := n.(*ast.SequenceNode); ok {
-		items = seq.Values
-	} else {
-		items = []ast.Node{n}
-	}
 	var out []string
-	for _, it := range items {
-		s, err := scalar(it, key)
-		if err != nil {
-			return nil, err
-		}
+	err := eachScalar(n, key, func(it ast.Node, s string) error {
 		s = strings.TrimSpace(s)
 		if s == "" {
-			return nil, &ProfileError{Line: line(it), Key: key, Msg: "an empty column name"}
+			return &ProfileError{Line: line(it), Key: key, Msg: "an empty column name"}
 		}
 		if slices.Contains(out, s) {
-			return nil, &ProfileError{Line: line(it), Key: key, Msg: fmt.Sprintf("column %q is listed twice", clip(s))}
+			return &ProfileError{Line: line(it), Key: key, Msg: fmt.Sprintf("column %q is listed twice", clip(s))}
 		}
 		out = append(out, s)
+		return nil
+	})
+	if err != nil {
+		return nil, err
 	}
 	return out, nil
 }

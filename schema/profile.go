@@ -804,27 +804,40 @@ func scalar(n ast.Node, key string) (string, error) {
 
 // terminalTypes reads the terminal key: one event type or a list of them.
 func terminalTypes(n ast.Node, key string) ([]EventType, error) {
-	var items []ast.Node
-	if seq, ok := n.(*ast.SequenceNode); ok {
-		items = seq.Values
-	} else {
-		items = []ast.Node{n}
-	}
 	var out []EventType
-	for _, it := range items {
-		s, err := scalar(it, key)
-		if err != nil {
-			return nil, err
-		}
+	err := eachScalar(n, key, func(it ast.Node, s string) error {
 		t, err := ParseEventType(s)
 		if err != nil {
-			return nil, &ProfileError{Line: line(it), Key: key, Msg: fmt.Sprintf("unknown event type %q (want one of %s)", clip(s), eventTypeList())}
+			return &ProfileError{Line: line(it), Key: key, Msg: fmt.Sprintf("unknown event type %q (want one of %s)", clip(s), eventTypeList())}
 		}
 		if !slices.Contains(out, t) {
 			out = append(out, t)
 		}
+		return nil
+	})
+	if err != nil {
+		return nil, err
 	}
 	return out, nil
+}
+
+// eachScalar calls fn with each value of n, one scalar or a sequence of
+// them (a key that takes one value or a list), in order.
+func eachScalar(n ast.Node, key string, fn func(it ast.Node, s string) error) error {
+	items := []ast.Node{n}
+	if seq, ok := n.(*ast.SequenceNode); ok {
+		items = seq.Values
+	}
+	for _, it := range items {
+		s, err := scalar(it, key)
+		if err != nil {
+			return err
+		}
+		if err := fn(it, s); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 // multilineSetting reads "multiline: true|false" or a mapping of
