@@ -6,6 +6,8 @@ import (
 	"fmt"
 	"strconv"
 	"strings"
+
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
 )
 
 // SnapshotID names a version by the SHA-256 of its manifest's canonical
@@ -15,14 +17,15 @@ type SnapshotID [sha256.Size]byte
 // SnapshotOf returns the snapshot id of canonical manifest bytes.
 func SnapshotOf(manifest []byte) SnapshotID { return sha256.Sum256(manifest) }
 
-// String returns the id as 64 lowercase hex digits.
-func (id SnapshotID) String() string { return hex.EncodeToString(id[:]) }
+// String returns the id as 64 lowercase hex digits, written as a blob id
+// is (both are SHA-256 sums; the types keep them apart).
+func (id SnapshotID) String() string { return blob.ID(id).String() }
 
 // IsZero reports whether id is the zero id.
-func (id SnapshotID) IsZero() bool { return id == SnapshotID{} }
+func (id SnapshotID) IsZero() bool { return blob.ID(id).IsZero() }
 
 // MarshalText encodes the id as hex.
-func (id SnapshotID) MarshalText() ([]byte, error) { return []byte(id.String()), nil }
+func (id SnapshotID) MarshalText() ([]byte, error) { return blob.ID(id).MarshalText() }
 
 // UnmarshalText decodes a hex id.
 func (id *SnapshotID) UnmarshalText(b []byte) error {
