@@ -2,15 +2,13 @@ package catalog
 
 import (
 	"bufio"
-	"container/heap"
 	"encoding/binary"
 	"errors"
 	"fmt"
-	"io"
 	"os"
-	"slices"
 	"strings"
 
+	"github.com/flowcat-catalog/flowcat/catalog/internal/tally"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -272,215 +270,26 @@ func (p *CasePass) Close() error {
 // before it spills a sorted run.
 const distinctMemory = 16 << 20
 
-// distinctCounter counts distinct strings exactly with bounded memory: it
-// keeps a set of up to max bytes of values, spills it as a sorted run to
-// a temporary file when full, and counts by merging the runs. Values are
-// pseudonyms, never raw identifiers.
-type distinctCounter struct {
-	dir   string
-	max   int
-	set   map[string]struct{}
-	bytes int
-	runs  []*os.File
-}
+// distinctCounter counts distinct strings exactly with bounded memory
+// (tally.Counter: a sorted run spilled to a temporary file past max
+// bytes, runs merged to count). Values are pseudonyms, never raw
+// identifiers.
+type distinctCounter struct{ c *tally.Counter }
 
 func newDistinctCounter(dir string, max int) *distinctCounter {
-	return &distinctCounter{dir: dir, max: max, set: map[string]struct{}{}}
+	return &distinctCounter{c: tally.New(dir, max)}
 }
 
 // Add counts v.
-func (d *distinctCounter) Add(v string) error {
-	if _, ok := d.set[v]; ok {
-		return nil
-	}
-	if d.bytes >= d.max {
-		if err := d.spill(); err != nil {
-			return err
-		}
-	}
-	d.set[strings.Clone(v)] = struct{}{}
-	d.bytes += len(v) + 32 // with the map's own cost, roughly
-	return nil
-}
-
-func (d *distinctCounter) spill() error {
-	f, err := os.CreateTemp(d.dir, "distinct-*")
-	if err != nil {
-		return fmt.Errorf("count: %w", err)
-	}
-	d.runs = append(d.runs, f)
-	w := bufio.NewWriterSize(f, runBufSize)
-	var b []byte
-	for _, v := range slices.Sorted(mapKeys(d.set)) {
-		b = binary.AppendUvarint(b[:0], uint64(len(v)))
-		b = append(b, v...)
-		if _, err := w.Write(b); err != nil {
-			return fmt.Errorf("count: %w", err)
-		}
-	}
-	if err := w.Flush(); err != nil {
-		return fmt.Errorf("count: %w", err)
-	}
-	clear(d.set)
-	d.bytes = 0
-	return nil
-}
-
-func mapKeys(m map[string]struct{}) func(func(string) bool) {
-	return func(yield func(string) bool) {
-		for k := range m {
-			if !yield(k) {
-				return
-			}
-		}
-	}
-}
+func (d *distinctCounter) Add(v string) error { return d.c.Add(v, 1) }
 
 // Count returns the number of distinct values added.
-func (d *distinctCounter) Count() (uint64, error) {
-	if len(d.runs) == 0 {
-		return uint64(len(d.set)), nil
-	}
-	n := uint64(0)
-	err := d.each(func(string) error { n++; return nil })
-	return n, err
-}
+func (d *distinctCounter) Count() (uint64, error) { return d.c.Distinct() }
 
 // each calls fn for every distinct value added, in order.
 func (d *distinctCounter) each(fn func(string) error) error {
-	if len(d.runs) == 0 {
-		for _, v := range slices.Sorted(mapKeys(d.set)) {
-			if err := fn(v); err != nil {
-				return err
-			}
-		}
-		return nil
-	}
-	if len(d.set) > 0 {
-		if err := d.spill(); err != nil {
-			return err
-		}
-	}
-	// Merge the runs (fan-in bounded like the sorter's: merge the oldest
-	// into one until few enough are left).
-	for len(d.runs) > maxFanIn {
-		f, err := os.CreateTemp(d.dir, "distinct-*")
-		if err != nil {
-			return fmt.Errorf("count: %w", err)
-		}
-		w := bufio.NewWriterSize(f, runBufSize)
-		var b []byte
-		_, err = mergeStrings(d.runs[:maxFanIn], func(v string) error {
-			b = binary.AppendUvarint(b[:0], uint64(len(v)))
-			b = append(b, v...)
-			_, err := w.Write(b)
-			return err
-		})
-		if err == nil {
-			err = w.Flush()
-		}
-		if err != nil {
-			f.Close()
-			os.Remove(f.Name())
-			return fmt.Errorf("count: %w", err)
-		}
-		for _, g := range d.runs[:maxFanIn] {
-			g.Close()
-			os.Remove(g.Name())
-		}
-		d.runs = append(slices.Delete(d.runs, 0, maxFanIn), f)
-	}
-	if _, err := mergeStrings(d.runs, fn); err != nil {
-		return fmt.Errorf("count: %w", err)
-	}
-	return nil
+	return d.c.Each(func(v string, _ uint64) error { return fn(v) })
 }
 
 // Close deletes the runs.
-func (d *distinctCounter) Close() error {
-	var errs []error
-	for _, f := range d.runs {
-		f.Close()
-		if err := os.Remove(f.Name()); err != nil && !errors.Is(err, os.ErrNotExist) {
-			errs = append(errs, err)
-		}
-	}
-	d.runs, d.set = nil, nil
-	return errors.Join(errs...)
-}
-
-type strRun struct {
-	r   *bufio.Reader
-	cur string
-}
-
-func (r *strRun) next() (bool, error) {
-	n, err := binary.ReadUvarint(r.r)
-	if err == io.EOF {
-		return false, nil
-	}
-	if err != nil {
-		return false, err
-	}
-	b := make([]byte, n)
-	if _, err := io.ReadFull(r.r, b); err != nil {
-		return false, err
-	}
-	r.cur = string(b)
-	return true, nil
-}
-
-type strHeap []*strRun
-
-func (h strHeap) Len() int           { return len(h) }
-func (h strHeap) Less(i, j int) bool { return h[i].cur < h[j].cur }
-func (h strHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
-func (h *strHeap) Push(x any)        { *h = append(*h, x.(*strRun)) }
-func (h *strHeap) Pop() any {
-	old := *h
-	r := old[len(old)-1]
-	*h = old[:len(old)-1]
-	return r
-}
-
-// mergeStrings merges sorted runs of distinct strings, calling fn once per
-// distinct value in order, and returns how many there were.
-func mergeStrings(runs []*os.File, fn func(string) error) (uint64, error) {
-	h := make(strHeap, 0, len(runs))
-	for _, f := range runs {
-		if _, err := f.Seek(0, io.SeekStart); err != nil {
-			return 0, err
-		}
-		r := &strRun{r: bufio.NewReaderSize(f, runBufSize)}
-		ok, err := r.next()
-		if err != nil {
-			return 0, err
-		}
-		if ok {
-			h = append(h, r)
-		}
-	}
-	heap.Init(&h)
-	var n uint64
-	var last string
-	for len(h) > 0 {
-		r := h[0]
-		if n == 0 || r.cur != last {
-			n++
-			last = r.cur
-			if err := fn(last); err != nil {
-				return 0, err
-			}
-		}
-		ok, err := r.next()
-		if err != nil {
-			return 0, err
-		}
-		if ok {
-			heap.Fix(&h, 0)
-		} else {
-			heap.Pop(&h)
-		}
-	}
-	return n, nil
-}
+func (d *distinctCounter) Close() error { return d.c.Close() }

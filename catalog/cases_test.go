@@ -231,8 +231,8 @@ func TestExactCountsTwoMillion(t *testing.T) {
 	const n = 2_000_000
 	dir := t.TempDir()
 	cp := NewCasePass(dir, 1<<16)
-	cp.subjects.max = 1 << 20
-	cp.resources.max = 1 << 20
+	cp.subjects = newDistinctCounter(dir, 1<<20)
+	cp.resources = newDistinctCounter(dir, 1<<20)
 	defer cp.Close()
 	var e schema.Event
 	for i := range n {

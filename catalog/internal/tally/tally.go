@@ -1,4 +1,6 @@
-package disclosure
+// Package tally counts strings exactly with bounded memory, spilling
+// sorted runs to temporary files.
+package tally
 
 import (
 	"bufio"
@@ -23,8 +25,9 @@ const maxFanIn = 64
 // (key, count) to a temporary file when full, and yields the keys in
 // order with their summed counts by merging the runs. A run's file is
 // closed once written and opened again only to merge (at most maxFanIn
-// at once), so many counters may spill side by side. Keys are
-// generalized attribute values, never raw identifiers.
+// at once), so many counters may spill side by side. Callers give it
+// pseudonyms or generalized values, never raw identifiers: its runs are
+// files.
 type Counter struct {
 	dir   string
 	max   int
@@ -33,8 +36,8 @@ type Counter struct {
 	runs  []string // paths of the spilled runs
 }
 
-// NewCounter returns a counter that spills to dir past max bytes of keys.
-func NewCounter(dir string, max int) *Counter {
+// New returns a counter that spills to dir past max bytes of keys.
+func New(dir string, max int) *Counter {
 	if max < 4<<10 {
 		max = 4 << 10
 	}
@@ -57,13 +60,23 @@ func (c *Counter) Add(key string, n uint64) error {
 	return nil
 }
 
+// Distinct returns the number of distinct keys added.
+func (c *Counter) Distinct() (uint64, error) {
+	if len(c.runs) == 0 {
+		return uint64(len(c.m)), nil
+	}
+	var n uint64
+	err := c.Each(func(string, uint64) error { n++; return nil })
+	return n, err
+}
+
 // Runs is the number of runs spilled so far (for tests of the bound).
 func (c *Counter) Runs() int { return len(c.runs) }
 
 func (c *Counter) spill() error {
 	f, err := os.CreateTemp(c.dir, "classes-*")
 	if err != nil {
-		return fmt.Errorf("disclosure: %w", err)
+		return fmt.Errorf("tally: %w", err)
 	}
 	c.runs = append(c.runs, f.Name())
 	defer f.Close()
@@ -77,14 +90,14 @@ func (c *Counter) spill() error {
 	for _, k := range keys {
 		b = appendEntry(b[:0], k, c.m[k])
 		if _, err := w.Write(b); err != nil {
-			return fmt.Errorf("disclosure: %w", err)
+			return fmt.Errorf("tally: %w", err)
 		}
 	}
 	if err := w.Flush(); err != nil {
-		return fmt.Errorf("disclosure: %w", err)
+		return fmt.Errorf("tally: %w", err)
 	}
 	if err := f.Close(); err != nil {
-		return fmt.Errorf("disclosure: %w", err)
+		return fmt.Errorf("tally: %w", err)
 	}
 	clear(c.m)
 	c.bytes = 0
@@ -121,7 +134,7 @@ func (c *Counter) Each(fn func(key string, n uint64) error) error {
 	for len(c.runs) > maxFanIn {
 		f, err := os.CreateTemp(c.dir, "classes-*")
 		if err != nil {
-			return fmt.Errorf("disclosure: %w", err)
+			return fmt.Errorf("tally: %w", err)
 		}
 		w := bufio.NewWriterSize(f, spillBuf)
 		var b []byte
@@ -138,7 +151,7 @@ func (c *Counter) Each(fn func(key string, n uint64) error) error {
 		}
 		if err != nil {
 			os.Remove(f.Name())
-			return fmt.Errorf("disclosure: %w", err)
+			return fmt.Errorf("tally: %w", err)
 		}
 		for _, g := range c.runs[:maxFanIn] {
 			os.Remove(g)
@@ -146,7 +159,7 @@ func (c *Counter) Each(fn func(key string, n uint64) error) error {
 		c.runs = append(slices.Delete(c.runs, 0, maxFanIn), f.Name())
 	}
 	if err := merge(c.runs, fn); err != nil {
-		return fmt.Errorf("disclosure: %w", err)
+		return fmt.Errorf("tally: %w", err)
 	}
 	return nil
 }

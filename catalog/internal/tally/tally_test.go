@@ -1,4 +1,4 @@
-package disclosure
+package tally
 
 import (
 	"fmt"
@@ -11,7 +11,7 @@ import (
 // no file behind.
 func TestCounterManyRuns(t *testing.T) {
 	dir := t.TempDir()
-	c := NewCounter(dir, 4<<10)
+	c := New(dir, 4<<10)
 	const n = 20000
 	for round := range 3 {
 		for i := range n {
