@@ -276,6 +276,7 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 	lines := map[string]int{}
 	for _, kv := range top {
 		lines[kv.key] = kv.line
+		var err error
 		switch kv.key {
 		case "format":
 			s, err := scalar(kv.value, kv.key)
@@ -284,29 +285,13 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 			}
 			p.Format = Format(s)
 		case "delimiter":
-			s, err := scalar(kv.value, kv.key)
-			if err != nil {
-				return nil, err
-			}
-			p.Delimiter = s
+			err = into(&p.Delimiter)(scalar(kv.value, kv.key))
 		case "quote":
-			s, err := scalar(kv.value, kv.key)
-			if err != nil {
-				return nil, err
-			}
-			p.Quote = s
+			err = into(&p.Quote)(scalar(kv.value, kv.key))
 		case "multiline":
-			ml, err := multilineSetting(kv.value, lines)
-			if err != nil {
-				return nil, err
-			}
-			p.Multiline = ml
+			err = into(&p.Multiline)(multilineSetting(kv.value, lines))
 		case "timezone":
-			s, err := scalar(kv.value, kv.key)
-			if err != nil {
-				return nil, err
-			}
-			p.Timezone = s
+			err = into(&p.Timezone)(scalar(kv.value, kv.key))
 		case "local_time":
 			lt, err := mapping(kv.value, kv.key)
 			if err != nil {
@@ -330,57 +315,24 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 		case "fields":
 			fieldsNode = kv.value
 		case "resource_capacity":
-			s, err := scalar(kv.value, kv.key)
-			if err != nil {
-				return nil, err
-			}
-			n, err := strconv.Atoi(s)
-			if err != nil || n < 1 || n > 1000 {
-				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number from 1 to 1000", clip(s))}
-			}
-			p.ResourceCapacity = n
+			err = into(&p.ResourceCapacity)(wholeNumber(kv, 1000, "a whole number"))
 		case "max_case_days":
-			s, err := scalar(kv.value, kv.key)
-			if err != nil {
-				return nil, err
-			}
-			n, err := strconv.Atoi(s)
-			if err != nil || n < 1 || n > MaxCaseDaysLimit {
-				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number of days from 1 to %d", clip(s), MaxCaseDaysLimit)}
-			}
-			p.MaxCaseDays = n
+			err = into(&p.MaxCaseDays)(wholeNumber(kv, MaxCaseDaysLimit, "a whole number of days"))
 		case "attributes":
-			if p.Attributes, err = parseAttributes(kv.value, lines); err != nil {
-				return nil, err
-			}
+			err = into(&p.Attributes)(parseAttributes(kv.value, lines))
 		case "drop":
-			if p.Drop, err = parseColumnList(kv.value, kv.key); err != nil {
-				return nil, err
-			}
+			err = into(&p.Drop)(parseColumnList(kv.value, kv.key))
 		case "time_shift_days":
-			s, err := scalar(kv.value, kv.key)
-			if err != nil {
-				return nil, err
-			}
-			n, err := strconv.Atoi(s)
-			if err != nil || n < 1 || n > 3660 {
-				return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want a whole number of days from 1 to 3660", clip(s))}
-			}
-			p.TimeShiftDays = n
+			err = into(&p.TimeShiftDays)(wholeNumber(kv, 3660, "a whole number of days"))
 		case "capacity":
-			c, err := capacitySetting(kv.value, lines)
-			if err != nil {
-				return nil, err
-			}
-			p.Capacity = c
+			err = into(&p.Capacity)(capacitySetting(kv.value, lines))
 		case "terminal":
-			ts, err := terminalTypes(kv.value, kv.key)
-			if err != nil {
-				return nil, err
-			}
-			p.Terminal = ts
+			err = into(&p.Terminal)(terminalTypes(kv.value, kv.key))
 		default:
 			return nil, &ProfileError{Line: kv.line, Key: kv.key, Msg: "unknown key (want format, delimiter, quote, multiline, timezone, local_time, terminal, resource_capacity, capacity, max_case_days, fields, attributes, drop or time_shift_days)"}
+		}
+		if err != nil {
+			return nil, err
 		}
 	}
 	if fieldsNode == nil {
@@ -985,4 +937,29 @@ func clip(s string) string {
 		cut--
 	}
 	return s[:cut] + "..."
+}
+
+// into returns a function that stores a setting's value in dst unless
+// reading it failed, and passes the error on.
+func into[T any](dst *T) func(T, error) error {
+	return func(v T, err error) error {
+		if err == nil {
+			*dst = v
+		}
+		return err
+	}
+}
+
+// wholeNumber reads kv's value as a whole number from 1 to max; what
+// names it in the error ("a whole number", "a whole number of days").
+func wholeNumber(kv keyValue, max int, what string) (int, error) {
+	s, err := scalar(kv.value, kv.key)
+	if err != nil {
+		return 0, err
+	}
+	n, err := strconv.Atoi(s)
+	if err != nil || n < 1 || n > max {
+		return 0, &ProfileError{Line: kv.line, Key: kv.key, Msg: fmt.Sprintf("%q: want %s from 1 to %d", clip(s), what, max)}
+	}
+	return n, nil
 }
