@@ -410,7 +410,8 @@ func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*V
 func (s *Store) newestFirst(b *bolt.Bucket, ref string, fn func(*Version) bool) error {
 	prefix := []byte(ref + "/")
 	c := b.Cursor()
-	k, v := c.Seek(append([]byte(ref), '/'+1)) // just past the last key under prefix
+	k, _ := c.Seek(append([]byte(ref), '/'+1)) // just past the last key under prefix
+	var v []byte
 	if k == nil {
 		k, v = c.Last()
 	} else {
