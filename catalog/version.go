@@ -303,39 +303,29 @@ func (s *Store) ResolveVersion(ctx context.Context, project, dataset string, sel
 		}
 		return &hs[0], nil
 	}
-	if (sel.Kind == SelectLatest || sel.Kind == SelectTime) && len(hs) == 1 {
+	switch {
+	case sel.Kind == SelectLatest && len(hs) == 0:
+		return nil, fmt.Errorf("dataset %s has no published version: %w", ref, ErrNotFound)
+	case sel.Kind == SelectTime && len(hs) == 0:
+		return nil, fmt.Errorf("dataset %s had no published version at %s: %w", ref, sel.At.Format(time.RFC3339), ErrNotFound)
+	case sel.Kind == SelectLatest || sel.Kind == SelectTime:
 		return &hs[0], nil
 	}
+	// A snapshot prefix: every record, so that a prefix two versions share
+	// is refused.
 	var found *Version
 	for i := len(hs) - 1; i >= 0; i-- {
 		h := &hs[i]
-		switch sel.Kind {
-		case SelectLatest:
-			if h.State == StatePublished {
-				return h, nil
-			}
-		case SelectTime:
-			if h.CurrentAt(sel.At) {
-				return h, nil
-			}
-		case SelectSnapshot:
-			if !strings.HasPrefix(h.SnapshotID.String(), sel.Prefix) || !h.Visible(drafts) {
-				continue
-			}
-			if found != nil {
-				return nil, fmt.Errorf("snapshot prefix %q matches versions %d and %d; give more digits: %w", sel.Prefix, h.Number, found.Number, ErrInvalid)
-			}
-			found = h
+		if !strings.HasPrefix(h.SnapshotID.String(), sel.Prefix) || !h.Visible(drafts) {
+			continue
 		}
+		if found != nil {
+			return nil, fmt.Errorf("snapshot prefix %q matches versions %d and %d; give more digits: %w", sel.Prefix, h.Number, found.Number, ErrInvalid)
+		}
+		found = h
 	}
 	if found != nil {
 		return found, nil
-	}
-	switch sel.Kind {
-	case SelectLatest:
-		return nil, fmt.Errorf("dataset %s has no published version: %w", ref, ErrNotFound)
-	case SelectTime:
-		return nil, fmt.Errorf("dataset %s had no published version at %s: %w", ref, sel.At.Format(time.RFC3339), ErrNotFound)
 	}
 	return nil, fmt.Errorf("dataset %s has no version with snapshot id %s…: %w", ref, sel.Prefix, ErrNotFound)
 }

@@ -379,8 +379,7 @@ type verified struct {
 // request for a stored summary; the claims' times are checked again by the
 // caller on every request. The memory holds tokens in process memory only.
 func (a *Authority) remembered(ks *KeySet, token string) (*Claims, bool) {
-	a.seenOnce.Do(func() { a.seen, _ = lru.New[string, verified](verifiedTokens) })
-	v, ok := a.seen.Get(token)
+	v, ok := a.verifiedMemory().Get(token)
 	if !ok || v.ks != ks || !a.stillVerifies(ks, v.claims.kid) {
 		return nil, false
 	}
@@ -389,8 +388,13 @@ func (a *Authority) remembered(ks *KeySet, token string) (*Claims, bool) {
 }
 
 func (a *Authority) remember(ks *KeySet, token string, c *Claims) {
+	a.verifiedMemory().Add(token, verified{ks: ks, claims: *c})
+}
+
+// verifiedMemory is the memory of verified tokens, made on first use.
+func (a *Authority) verifiedMemory() *lru.Cache[string, verified] {
 	a.seenOnce.Do(func() { a.seen, _ = lru.New[string, verified](verifiedTokens) })
-	a.seen.Add(token, verified{ks: ks, claims: *c})
+	return a.seen
 }
 
 // stillVerifies reports whether the key named kid ("" for the legacy
