@@ -17,6 +17,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/klauspost/compress/s2"
 	bolt "go.etcd.io/bbolt"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
@@ -57,7 +58,7 @@ type caseGroupSet struct {
 
 // groupFormat changes with the layout of a group or of the states it
 // keeps; groups of another format are rebuilt.
-const groupFormat = "1"
+const groupFormat = "2"
 
 // groupOptions identifies the options the groups of ds are computed with.
 func groupOptions(ds *Dataset) string {
@@ -365,7 +366,7 @@ func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupS
 			return nil, fmt.Errorf("case groups: %w", err)
 		}
 		g.closers = append(g.closers, r)
-		cp.srt.addSorted(bufio.NewReaderSize(io.NewSectionReader(r, 0, r.Size()), runBufSize))
+		cp.srt.addSorted(io.NewSectionReader(r, 0, r.Size()))
 		g.stats.Read += prev.Groups[i].Count
 	}
 	return g, nil
@@ -706,7 +707,8 @@ func (g *groupBuild) close() {
 // and its distinct subjects and resources.
 type groupWriter struct {
 	ev, keys     *os.File
-	evw, kw      *bufio.Writer
+	evb, kw      *bufio.Writer
+	evw          *s2.Writer // over evb
 	evh, kh      hash.Hash
 	evn          int64
 	count, cases int64
@@ -743,7 +745,8 @@ func newGroupWriter(dir string, qopt quality.Options, sopt summary.Options, term
 		return nil, fmt.Errorf("case groups: %w", err)
 	}
 	w := &groupWriter{ev: ev, keys: keys, evh: sha256.New(), kh: sha256.New()}
-	w.evw = bufio.NewWriterSize(io.MultiWriter(ev, w.evh, countWriter{&w.evn}), runBufSize)
+	w.evb = bufio.NewWriterSize(io.MultiWriter(ev, w.evh, countWriter{&w.evn}), runBufSize)
+	w.evw = newRunWriter(w.evb)
 	w.kw = bufio.NewWriterSize(io.MultiWriter(keys, w.kh), runBufSize)
 	if w.part, err = newPartWriter(dir); err != nil {
 		w.remove()
@@ -799,10 +802,13 @@ func (w *groupWriter) observe(e *schema.Event) error {
 func (w *groupWriter) finish() (*caseGroup, []io.Reader, error) {
 	w.all.Flush()
 	w.kept.Flush()
+	if err := w.evw.Close(); err != nil {
+		return nil, nil, fmt.Errorf("case groups: %w", err)
+	}
 	for _, x := range []struct {
 		b *bufio.Writer
 		f *os.File
-	}{{w.evw, w.ev}, {w.kw, w.keys}} {
+	}{{w.evb, w.ev}, {w.kw, w.keys}} {
 		if err := x.b.Flush(); err != nil {
 			return nil, nil, fmt.Errorf("case groups: %w", err)
 		}

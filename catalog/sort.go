@@ -279,14 +279,14 @@ func (s *sorter) wait() error {
 
 // writeRun writes buf, sorted, to f.
 func (s *sorter) writeRun(f *os.File, buf []schema.Event, wk *spillWork) error {
-	w := bufio.NewWriterSize(f, runBufSize)
+	w := newRunWriter(f)
 	for _, k := range s.orderOf(buf, wk) {
 		wk.enc = encodeEvent(wk.enc[:0], &buf[k.idx])
 		if _, err := w.Write(wk.enc); err != nil {
 			return fmt.Errorf("sort: %w", err)
 		}
 	}
-	if err := w.Flush(); err != nil {
+	if err := w.Close(); err != nil {
 		return fmt.Errorf("sort: %w", err)
 	}
 	return nil
@@ -404,7 +404,7 @@ func (s *sorter) mergeOldest() error {
 	if err != nil {
 		return err
 	}
-	w := bufio.NewWriterSize(f, runBufSize)
+	w := newRunWriter(f)
 	err = s.merge(s.runs[:s.fanIn], func(e *schema.Event) error {
 		s.enc = encodeEvent(s.enc[:0], e)
 		if _, err := w.Write(s.enc); err != nil {
@@ -415,7 +415,7 @@ func (s *sorter) mergeOldest() error {
 	if err != nil {
 		return err
 	}
-	if err := w.Flush(); err != nil {
+	if err := w.Close(); err != nil {
 		return fmt.Errorf("sort: %w", err)
 	}
 	for _, g := range s.runs[:s.fanIn] {
@@ -444,7 +444,7 @@ func (s *sorter) merge(runs []*os.File, fn func(*schema.Event) error) error {
 func (s *sorter) mergeReaders(runs []io.Reader, fn func(*schema.Event) error) error {
 	h := make(runHeap, 0, len(runs))
 	for _, f := range runs {
-		r := &run{r: bufio.NewReaderSize(f, runBufSize), inter: s.inter, less: s.less}
+		r := &run{r: newRunReader(f), inter: s.inter, less: s.less}
 		ok, err := r.next()
 		if err != nil {
 			return err
@@ -522,7 +522,8 @@ func (h *runHeap) Pop() any {
 // uvarint length + bytes, occurred_at as varint Unix microseconds, the
 // source line as uvarint, then the event attribute values (Event.Attrs)
 // as one string (empty for an event without). Runs are temporary: the
-// format is read only by the process that wrote it.
+// format is read only by the process that wrote it. Every stream of it is
+// framed by newRunWriter and read by newRunReader (runframe.go).
 
 func encodeEvent(b []byte, e *schema.Event) []byte {
 	str := func(s string) {
