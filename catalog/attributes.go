@@ -483,7 +483,7 @@ func (s *Store) caseAttributes(ctx context.Context, ds *Dataset, parent *Version
 		out.ref.MaxRisk = 0
 	}
 	out.release = s.hold(table.SHA256)
-	if err := s.blobs.Put(ctx, table.SHA256, tw.f); err != nil {
+	if err := s.putTemp(ctx, table.SHA256, tw.f); err != nil {
 		out.release()
 		return nil, fmt.Errorf("case attributes: %w", err)
 	}

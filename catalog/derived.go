@@ -259,7 +259,7 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			return nil, err
 		}
 		out.releases = append(out.releases, s.hold(e.SHA256))
-		if err := s.blobs.Put(ctx, e.SHA256, cw.f); err != nil {
+		if err := s.putTemp(ctx, e.SHA256, cw.f); err != nil {
 			out.release()
 			return nil, fmt.Errorf("case table: %w", err)
 		}

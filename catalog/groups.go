@@ -676,7 +676,7 @@ func (g *groupBuild) finish(ctx context.Context) (*caseGroupSet, []func(), error
 				testHookGroupBlob(id)
 			}
 			releases = append(releases, g.s.hold(id))
-			if err := g.s.blobs.Put(ctx, id, files[i]); err != nil {
+			if err := g.s.putTemp(ctx, id, files[i]); err != nil {
 				return fail(fmt.Errorf("case groups: %w", err))
 			}
 		}
@@ -799,7 +799,7 @@ func (w *groupWriter) observe(e *schema.Event) error {
 
 // finish completes the group (after the pass) and returns it with its
 // files, in the order of caseGroup.blobs, each at its start.
-func (w *groupWriter) finish() (*caseGroup, []io.Reader, error) {
+func (w *groupWriter) finish() (*caseGroup, []*os.File, error) {
 	w.all.Flush()
 	w.kept.Flush()
 	if err := w.evw.Close(); err != nil {
@@ -810,9 +810,6 @@ func (w *groupWriter) finish() (*caseGroup, []io.Reader, error) {
 		f *os.File
 	}{{w.evb, w.ev}, {w.kw, w.keys}} {
 		if err := x.b.Flush(); err != nil {
-			return nil, nil, fmt.Errorf("case groups: %w", err)
-		}
-		if err := x.f.Sync(); err != nil {
 			return nil, nil, fmt.Errorf("case groups: %w", err)
 		}
 		if _, err := x.f.Seek(0, io.SeekStart); err != nil {
@@ -827,7 +824,7 @@ func (w *groupWriter) finish() (*caseGroup, []io.Reader, error) {
 		return nil, nil, err
 	}
 	gr.Table = pid
-	files := []io.Reader{w.ev, w.keys, pf}
+	files := []*os.File{w.ev, w.keys, pf}
 	for _, x := range []struct {
 		d  *distinctCounter
 		id *blob.ID
@@ -879,9 +876,6 @@ func (w *groupWriter) tempBlob(fn func(io.Writer) error) (*os.File, blob.ID, err
 		return nil, blob.ID{}, fmt.Errorf("case groups: %w", err)
 	}
 	if err := bw.Flush(); err != nil {
-		return nil, blob.ID{}, fmt.Errorf("case groups: %w", err)
-	}
-	if err := f.Sync(); err != nil {
 		return nil, blob.ID{}, fmt.Errorf("case groups: %w", err)
 	}
 	if _, err := f.Seek(0, io.SeekStart); err != nil {
@@ -1087,9 +1081,6 @@ func (p *partWriter) Case(r *cases.Record) {
 func (p *partWriter) finish() (*os.File, blob.ID, error) {
 	if p.err == nil {
 		p.err = p.w.Flush()
-	}
-	if p.err == nil {
-		p.err = p.f.Sync()
 	}
 	if p.err == nil {
 		_, p.err = p.f.Seek(0, io.SeekStart)

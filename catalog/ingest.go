@@ -456,11 +456,12 @@ func (in *ingest) write(ctx context.Context) error {
 		return fmt.Errorf("ingest: %w", err)
 	}
 	in.onDone(s.hold(id))
-	var body io.Reader = sw.f
 	if testHookPut != nil {
-		body = testHookPut(body)
+		err = s.blobs.Put(ctx, id, testHookPut(sw.f))
+	} else {
+		err = s.putTemp(ctx, id, sw.f)
 	}
-	if err := s.blobs.Put(ctx, id, body); err != nil {
+	if err != nil {
 		return fmt.Errorf("ingest: %w", err)
 	}
 	in.entry = &FileEntry{SHA256: id, Bytes: size, Rows: sw.rows, MinTime: sw.min, MaxTime: sw.max, RowGroup: s.opt.RowGroupRows, Attributes: in.opt.attrs.eventColumns()}

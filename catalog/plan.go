@@ -4,6 +4,8 @@ import (
 	"bytes"
 	"context"
 	"fmt"
+	"io"
+	"os"
 	"slices"
 	"sync"
 	"time"
@@ -27,6 +29,24 @@ func (s *Store) lockDataset(ref string) (unlock func()) {
 	s.mu.Unlock()
 	m.Lock()
 	return m.Unlock
+}
+
+// putTemp stores the finished temporary file f, whose bytes the caller
+// hashed to id as it wrote them, as the blob id: moved into place where
+// the blob store can take it so (blob.Adopter: no second copy of the
+// bytes), read from its start and put otherwise. Either way the store
+// checks the bytes against id and makes them durable, so the writer does
+// not sync f itself.
+func (s *Store) putTemp(ctx context.Context, id blob.ID, f *os.File) error {
+	if a, ok := s.blobs.(blob.Adopter); ok {
+		if done, err := a.Adopt(ctx, id, f.Name()); err != nil || done {
+			return err
+		}
+	}
+	if _, err := f.Seek(0, io.SeekStart); err != nil {
+		return err
+	}
+	return s.blobs.Put(ctx, id, f)
 }
 
 // hold marks a blob as about to be referenced, so that the garbage
@@ -190,7 +210,7 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 		return nil, 0, err
 	}
 	p.releases = append(p.releases, s.hold(id))
-	if err := s.blobs.Put(ctx, id, sw.f); err != nil {
+	if err := s.putTemp(ctx, id, sw.f); err != nil {
 		return nil, 0, fmt.Errorf("replace-window: %w", err)
 	}
 	p.summaries[id] = sacc

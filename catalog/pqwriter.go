@@ -80,12 +80,9 @@ func newTempTable(dir, pattern, what string) (*tempTable, error) {
 // out is where the file's bytes go.
 func (t *tempTable) out() io.Writer { return io.MultiWriter(t.f, t.h, countWriter{&t.n}) }
 
-// done makes the written file durable and rewinds it; it returns the
-// file's id and size.
+// done rewinds the written file and returns its id and size. The blob
+// store makes it durable (Store.putTemp).
 func (t *tempTable) done() (blob.ID, int64, error) {
-	if err := t.f.Sync(); err != nil {
-		return blob.ID{}, 0, fmt.Errorf("%s: %w", t.what, err)
-	}
 	if _, err := t.f.Seek(0, io.SeekStart); err != nil {
 		return blob.ID{}, 0, fmt.Errorf("%s: %w", t.what, err)
 	}

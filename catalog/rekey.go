@@ -181,7 +181,7 @@ func (s *Store) rekeyFile(ctx context.Context, ds *Dataset, f FileEntry, rk *ano
 		return nil, fmt.Errorf("rekey: file %s: %d rows written of %d", f.SHA256, sw.rows, f.Rows)
 	}
 	c.releases = append(c.releases, s.hold(id))
-	if err := s.blobs.Put(ctx, id, sw.f); err != nil {
+	if err := s.putTemp(ctx, id, sw.f); err != nil {
 		return nil, fmt.Errorf("rekey: %w", err)
 	}
 	rep := qacc.Report()

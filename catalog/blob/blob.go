@@ -91,6 +91,18 @@ type Store interface {
 	Delete(ctx context.Context, id ID) error
 }
 
+// Adopter is implemented by stores that can take a finished local file as
+// a blob by moving it into place rather than copying its bytes (localfs,
+// when the file is on the store's file system).
+type Adopter interface {
+	// Adopt makes the file at path the blob id, moving it. It fails with
+	// ErrCorrupt (moving nothing) when the file's bytes do not hash to
+	// id. It returns false, having moved nothing, when it cannot move the
+	// file; the caller then puts it. Adopting an id that exists already
+	// succeeds and leaves the file where it is.
+	Adopt(ctx context.Context, id ID, path string) (bool, error)
+}
+
 // TempSweeper is implemented by stores that write a blob to a temporary
 // file before it is put in place (localfs does): a crash mid-write leaves
 // that file behind, and SweepTemp removes such files.

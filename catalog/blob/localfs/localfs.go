@@ -16,6 +16,7 @@ import (
 	"path/filepath"
 	"strings"
 	"sync"
+	"syscall"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
@@ -87,6 +88,44 @@ func (s *Store) Put(ctx context.Context, id blob.ID, r io.Reader) error {
 		return fmt.Errorf("localfs: %w", err)
 	}
 	return syncDir(filepath.Dir(dst))
+}
+
+// Adopt implements blob.Adopter: the file at path, once its bytes are
+// checked against id and synced, is renamed into place. A file on another
+// file system is left where it is (false).
+func (s *Store) Adopt(ctx context.Context, id blob.ID, path string) (bool, error) {
+	dst := s.path(id)
+	if _, err := os.Stat(dst); err == nil {
+		return true, nil
+	}
+	f, err := os.Open(path)
+	if err != nil {
+		return false, fmt.Errorf("localfs: %w", err)
+	}
+	defer f.Close()
+	h := sha256.New()
+	if _, err := io.Copy(h, ctxReader{ctx, f}); err != nil {
+		return false, fmt.Errorf("localfs: adopt %s: %w", id, err)
+	}
+	if got := blob.ID(h.Sum(nil)); got != id {
+		return false, fmt.Errorf("localfs: adopt %s: got %s: %w", id, got, blob.ErrCorrupt)
+	}
+	if err := f.Chmod(0o444); err != nil {
+		return false, fmt.Errorf("localfs: %w", err)
+	}
+	if err := f.Sync(); err != nil {
+		return false, fmt.Errorf("localfs: %w", err)
+	}
+	if err := os.MkdirAll(filepath.Dir(dst), 0o700); err != nil {
+		return false, fmt.Errorf("localfs: %w", err)
+	}
+	if err := os.Rename(path, dst); err != nil {
+		if errors.Is(err, syscall.EXDEV) {
+			return false, f.Chmod(0o600)
+		}
+		return false, fmt.Errorf("localfs: %w", err)
+	}
+	return true, syncDir(filepath.Dir(dst))
 }
 
 // tempPrefix starts the name of every temporary file of a Put.

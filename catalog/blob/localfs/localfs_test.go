@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"crypto/sha256"
+	"errors"
 	"io"
 	"os"
 	"path/filepath"
@@ -101,5 +102,79 @@ func TestSweepTemp(t *testing.T) {
 	}
 	if _, err := s.Stat(ctx, id); err != nil {
 		t.Errorf("blob put during the sweeps: %v", err)
+	}
+}
+
+// TestAdopt: a file whose bytes hash to the id is moved into place and
+// read back as the blob; one that does not is refused with ErrCorrupt and
+// stays where it was; an id stored already leaves the file alone; a file
+// on another file system (tmpfs /dev/shm, where there is one) is left for
+// the caller to put.
+func TestAdopt(t *testing.T) {
+	ctx := context.Background()
+	dir := t.TempDir()
+	s, err := localfs.New(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	write := func(dir, body string) string {
+		f, err := os.CreateTemp(dir, "adopt-*")
+		if err != nil {
+			t.Fatal(err)
+		}
+		if _, err := f.WriteString(body); err != nil {
+			t.Fatal(err)
+		}
+		f.Close()
+		return f.Name()
+	}
+	body := "events framed for the store"
+	id := blob.ID(sha256.Sum256([]byte(body)))
+
+	bad := write(dir, body+"!")
+	if ok, err := s.Adopt(ctx, id, bad); ok || !errors.Is(err, blob.ErrCorrupt) {
+		t.Fatalf("adopting bytes of another id: %v, %v; want ErrCorrupt", ok, err)
+	}
+	if _, err := os.Stat(bad); err != nil {
+		t.Fatalf("the refused file moved: %v", err)
+	}
+	if _, err := s.Stat(ctx, id); !errors.Is(err, blob.ErrNotFound) {
+		t.Fatalf("a refused adoption stored the blob: %v", err)
+	}
+
+	good := write(dir, body)
+	if ok, err := s.Adopt(ctx, id, good); !ok || err != nil {
+		t.Fatalf("Adopt: %v, %v", ok, err)
+	}
+	if _, err := os.Stat(good); !errors.Is(err, os.ErrNotExist) {
+		t.Fatalf("the adopted file is still at its old path: %v", err)
+	}
+	r, err := s.Open(ctx, id)
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, _ := io.ReadAll(io.NewSectionReader(r, 0, r.Size()))
+	r.Close()
+	if string(got) != body {
+		t.Fatalf("adopted blob reads %q, want %q", got, body)
+	}
+
+	again := write(dir, body)
+	if ok, err := s.Adopt(ctx, id, again); !ok || err != nil {
+		t.Fatalf("adopting an id stored already: %v, %v", ok, err)
+	}
+
+	if st, err := os.Stat("/dev/shm"); err == nil && st.IsDir() {
+		other := write("/dev/shm", "another file system")
+		defer os.Remove(other)
+		oid := blob.ID(sha256.Sum256([]byte("another file system")))
+		if !sameDevice(t, "/dev/shm", dir) {
+			if ok, err := s.Adopt(ctx, oid, other); ok || err != nil {
+				t.Fatalf("adopting across file systems: %v, %v; want false, nil", ok, err)
+			}
+			if _, err := os.Stat(other); err != nil {
+				t.Fatalf("the file on another file system moved: %v", err)
+			}
+		}
 	}
 }
