@@ -34,9 +34,11 @@ type CasePass struct {
 	// exact copy of the event before them (same case, instant, type and
 	// content). Run counts what it left out in the Counts it returns.
 	Kept []cases.Observer
-	// upKeys holds the case keys of the events marked by uploadMark.
-	upKeys  *distinctCounter
-	lastKey string
+	// upKeys holds the case keys of the events marked by uploadMark,
+	// unless noUpKeys: a commit with no case groups to extend needs none.
+	upKeys   *distinctCounter
+	lastKey  string
+	noUpKeys bool
 }
 
 // NewCasePass returns a pass whose sort runs and counts spill to dir, in
@@ -58,7 +60,7 @@ func NewCasePass(dir string, runEvents int) *CasePass {
 func (p *CasePass) Add(e *schema.Event) error {
 	c := *e
 	c.Priority, c.Channel, c.Outcome, c.EventID = "", "", "", ""
-	if e.Line&uploadMark != 0 && e.CaseID != p.lastKey {
+	if e.Line&uploadMark != 0 && !p.noUpKeys && e.CaseID != p.lastKey {
 		if p.upKeys == nil {
 			p.upKeys = newDistinctCounter(p.srt.dir, distinctMemory)
 		}

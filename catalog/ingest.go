@@ -351,6 +351,12 @@ func (in *ingest) pass(ctx context.Context) error {
 	in.sacc = summary.New(summaryOptions(in.ds))
 	in.cases = NewCasePass(s.opt.TempDir, s.opt.RunEvents)
 	in.cases.Terminal = in.prof.Terminal
+	// The upload's case keys find the case groups it touches; an upload
+	// that extends no stored groups (not an append, or none stored: a
+	// first upload) needs none.
+	if set, err := s.loadGroups(in.ds.Ref().String()); err != nil || set == nil || in.opt.Mode != ModeAppend {
+		in.cases.noUpKeys = true
+	}
 	in.onDone(func() { in.cases.Close() })
 	var n int
 	err = in.srt.Finish(in.hf.keep(ctx, func(e *schema.Event) error {
@@ -568,6 +574,9 @@ func (s *Store) deriveVersion(ctx context.Context, c *toCommit, parent *Version,
 		plan.summaries[c.entry.SHA256] = c.sum
 	}
 	prev := s.groupsToExtend(ds, parent, plan.files, c.entry, opt.Mode)
+	if c.pass.cases.noUpKeys {
+		prev = nil // the pass kept no keys to find the touched groups by
+	}
 	vp, err := s.passVersion(ctx, ds, plan.files, plan.summaries, c.qopt, c.keyID, true, c.pass, prev)
 	if err != nil {
 		return nil, err

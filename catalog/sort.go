@@ -141,6 +141,7 @@ func closingFirst(t schema.EventType) int8 {
 
 // caseKey is what a sorter by case sorts its buffer by.
 type caseKey struct {
+	pre  uint64 // the id's first 8 bytes, big-endian, zero-padded: most comparisons end here
 	id   string
 	sec  int64
 	nsec int32
@@ -172,6 +173,24 @@ func cmpKey(a, b sortKey) int {
 	return cmpInt(int64(a.idx), int64(b.idx))
 }
 
+// prefix8 is s's first 8 bytes as a big-endian number, zero-padded: two
+// strings' prefixes compare as the strings do, or tie.
+func prefix8(s string) uint64 {
+	var b [8]byte
+	copy(b[:], s)
+	return binary.BigEndian.Uint64(b[:])
+}
+
+func cmpUint(a, b uint64) int {
+	if a < b {
+		return -1
+	}
+	if a > b {
+		return 1
+	}
+	return 0
+}
+
 func cmpInt(a, b int64) int {
 	if a < b {
 		return -1
@@ -198,9 +217,12 @@ func (s *sorter) orderOf(buf []schema.Event, w *spillWork) []sortKey {
 		ck := w.caseKeys[:0]
 		for i := range buf {
 			e := &buf[i]
-			ck = append(ck, caseKey{id: e.CaseID, sec: e.OccurredAt.Unix(), nsec: int32(e.OccurredAt.Nanosecond()), rank: int8(e.Type.Rank()), idx: int32(i)})
+			ck = append(ck, caseKey{pre: prefix8(e.CaseID), id: e.CaseID, sec: e.OccurredAt.Unix(), nsec: int32(e.OccurredAt.Nanosecond()), rank: int8(e.Type.Rank()), idx: int32(i)})
 		}
 		slices.SortFunc(ck, func(a, b caseKey) int {
+			if a.pre != b.pre {
+				return cmpUint(a.pre, b.pre)
+			}
 			if c := strings.Compare(a.id, b.id); c != 0 {
 				return c
 			}

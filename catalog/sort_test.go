@@ -236,3 +236,33 @@ func TestSorterSpillsWideRows(t *testing.T) {
 		}
 	}
 }
+
+// TestPrefix8Order: where two strings' 8-byte prefixes differ, they order
+// the strings as strings.Compare does (the case sort's shortcut), for
+// short, long, empty and shared-prefix strings.
+func TestPrefix8Order(t *testing.T) {
+	r := rand.New(rand.NewPCG(8, 8))
+	alphabet := "\x00\x01az09\xff"
+	word := func() string {
+		b := make([]byte, r.IntN(12))
+		for i := range b {
+			b[i] = alphabet[r.IntN(len(alphabet))]
+		}
+		return string(b)
+	}
+	decided := 0
+	for range 200_000 {
+		a, b := word(), word()
+		pa, pb := prefix8(a), prefix8(b)
+		if pa == pb {
+			continue
+		}
+		decided++
+		if got, want := cmpUint(pa, pb), strings.Compare(a, b); got != want {
+			t.Fatalf("%q vs %q: prefixes order %d, strings %d", a, b, got, want)
+		}
+	}
+	if decided < 100_000 {
+		t.Fatalf("only %d of 200000 pairs decided by the prefix", decided)
+	}
+}
