@@ -24,5 +24,5 @@ func newRunWriter(w io.Writer) *s2.Writer {
 
 // newRunReader returns a buffered reader of the events framed in r.
 func newRunReader(r io.Reader) *bufio.Reader {
-	return bufio.NewReaderSize(s2.NewReader(r, s2.ReaderMaxBlockSize(runBlock)), 4<<10)
+	return bufio.NewReaderSize(s2.NewReader(r, s2.ReaderMaxBlockSize(runBlock)), 16<<10)
 }

@@ -516,10 +516,9 @@ type run struct {
 	// lastCase and lastSubj are the previous event's: in a run sorted by
 	// case the next event mostly names them again, and reuses the string.
 	lastCase, lastSubj string
-	// last holds the previous event's interned fields, field the next
-	// one's index, so a repeated value costs a compare, not a map lookup.
+	// last holds the previous event's interned fields, so a repeated
+	// value costs a compare, not a map lookup.
 	last  [8]string
-	field int
 	less  func(a, b *schema.Event) int
 	r     *bufio.Reader
 	ev    schema.Event
@@ -540,14 +539,19 @@ func (h *runHeap) Pop() any {
 	return r
 }
 
-// The run format: per event, the thirteen fields in schema order, strings as
-// uvarint length + bytes, occurred_at as varint Unix microseconds, the
-// source line as uvarint, then the event attribute values (Event.Attrs)
-// as one string (empty for an event without). Runs are temporary: the
-// format is read only by the process that wrote it. Every stream of it is
-// framed by newRunWriter and read by newRunReader (runframe.go).
+// The run format: per event, its record's length as a uvarint, then the
+// record: the thirteen fields in schema order, strings as uvarint length +
+// bytes, occurred_at as varint Unix microseconds, the source line as
+// uvarint, then the event attribute values (Event.Attrs) as one string
+// (empty for an event without). Runs are temporary: the format is read
+// only by the process that wrote it. Every stream of it is framed by
+// newRunWriter and read by newRunReader (runframe.go).
 
 func encodeEvent(b []byte, e *schema.Event) []byte {
+	// The record's length goes first; a record of under 128 bytes (most)
+	// takes one byte for it, a longer one is moved up to make room.
+	at := len(b)
+	b = append(b, 0)
 	str := func(s string) {
 		b = binary.AppendUvarint(b, uint64(len(s)))
 		b = append(b, s...)
@@ -567,107 +571,163 @@ func encodeEvent(b []byte, e *schema.Event) []byte {
 	str(e.InstanceID)
 	b = binary.AppendUvarint(b, uint64(e.Line))
 	str(e.Attrs)
+	n := len(b) - at - 1
+	if n < 0x80 {
+		b[at] = byte(n)
+		return b
+	}
+	var hdr [binary.MaxVarintLen64]byte
+	h := binary.PutUvarint(hdr[:], uint64(n))
+	b = append(b, hdr[:h-1]...)
+	copy(b[at+h:], b[at+1:at+1+n])
+	copy(b[at:], hdr[:h])
 	return b
+}
+
+// errRunRecord is a record that does not decode: a run cut short or
+// damaged.
+var errRunRecord = errors.New("a damaged record")
+
+// record is a cursor over one record of a run.
+type record struct {
+	b   []byte
+	bad bool
+}
+
+func (c *record) uvarint() uint64 {
+	v, n := binary.Uvarint(c.b)
+	if n <= 0 {
+		c.bad, c.b = true, nil
+		return 0
+	}
+	c.b = c.b[n:]
+	return v
+}
+
+func (c *record) varint() int64 {
+	v, n := binary.Varint(c.b)
+	if n <= 0 {
+		c.bad, c.b = true, nil
+		return 0
+	}
+	c.b = c.b[n:]
+	return v
+}
+
+// bytes returns the next string's bytes, valid until the record's buffer
+// is reused.
+func (c *record) bytes() []byte {
+	n := c.uvarint()
+	if n > uint64(len(c.b)) {
+		c.bad, c.b = true, nil
+		return nil
+	}
+	v := c.b[:n]
+	c.b = c.b[n:]
+	return v
 }
 
 // next decodes the next event of the run; false at its end.
 func (r *run) next() (bool, error) {
-	var err error
-	str := func(intern bool) string {
-		idx := r.field
-		if intern {
-			r.field++
-		}
-		if err != nil {
-			return ""
-		}
-		var n uint64
-		n, err = binary.ReadUvarint(r.r)
-		if err != nil {
-			return ""
-		}
-		if n == 0 {
-			return ""
-		}
-		if cap(r.tmp) < int(n) {
-			r.tmp = make([]byte, n)
-		}
-		r.tmp = r.tmp[:n]
-		if _, err = io.ReadFull(r.r, r.tmp); err != nil {
-			return ""
-		}
-		if intern {
-			// The previous event's value of this field first: in a run
-			// most consecutive events share site, type, queue, activity.
-			if last := &r.last[idx]; string(r.tmp) == *last {
-				return *last
-			}
-			if s, ok := r.inter[string(r.tmp)]; ok {
-				r.last[idx] = s
-				return s
-			}
-			if len(r.inter) < 1<<14 && len(r.tmp) <= internMaxLen {
-				s := string(r.tmp)
-				r.inter[s] = s
-				r.last[idx] = s
-				return s
-			}
-		}
-		return string(r.tmp)
-	}
-	// strLast reads a string that mostly repeats the previous event's (a
-	// case id in a run sorted by case): equal bytes reuse it, unallocated.
-	strLast := func(last *string) string {
-		if err != nil {
-			return ""
-		}
-		var n uint64
-		n, err = binary.ReadUvarint(r.r)
-		if err != nil || n == 0 {
-			return ""
-		}
-		if cap(r.tmp) < int(n) {
-			r.tmp = make([]byte, n)
-		}
-		r.tmp = r.tmp[:n]
-		if _, err = io.ReadFull(r.r, r.tmp); err != nil {
-			return ""
-		}
-		if string(r.tmp) != *last {
-			*last = string(r.tmp)
-		}
-		return *last
-	}
-	if _, perr := r.r.Peek(1); perr == io.EOF {
+	n, err := binary.ReadUvarint(r.r)
+	if err == io.EOF {
 		return false, nil
 	}
-	e := &r.ev
-	r.field = 0
-	e.Site = str(true)
-	e.CaseID = strLast(&r.lastCase)
-	e.SubjectID = strLast(&r.lastSubj)
-	e.ResourceID = str(true)
-	e.Type = schema.EventType(str(true))
-	e.Activity = str(true)
-	e.Queue = str(true)
-	if err == nil {
-		var us int64
-		us, err = binary.ReadVarint(r.r)
-		e.OccurredAt = time.UnixMicro(us).UTC()
-	}
-	e.Priority = str(true)
-	e.Channel = str(true)
-	e.Outcome = str(true)
-	e.EventID = str(false)
-	e.InstanceID = str(false)
-	if err == nil {
-		var line uint64
-		line, err = binary.ReadUvarint(r.r)
-		e.Line = int64(line)
-	}
-	e.Attrs = str(false)
 	if err != nil {
 		return false, fmt.Errorf("sort: reading run: %w", err)
 	}
+	// The record from the reader's buffer where it fits (no copy), else
+	// read whole into tmp.
+	var b []byte
+	peeked := n <= uint64(r.r.Size())
+	if peeked {
+		if b, err = r.r.Peek(int(n)); err != nil {
+			return false, fmt.Errorf("sort: reading run: %w", noEOF(err))
+		}
+	} else {
+		if cap(r.tmp) < int(n) {
+			r.tmp = make([]byte, n)
+		}
+		b = r.tmp[:n]
+		if _, err := io.ReadFull(r.r, b); err != nil {
+			return false, fmt.Errorf("sort: reading run: %w", noEOF(err))
+		}
+	}
+	c := record{b: b}
+	// str interns the values of the fields that repeat: the previous
+	// event's value of the field first (in a run most consecutive events
+	// share site, type, queue, activity), then the run's table.
+	field := 0
+	str := func() string {
+		v := c.bytes()
+		idx := field
+		field++
+		if len(v) == 0 {
+			return ""
+		}
+		if last := &r.last[idx]; string(v) == *last {
+			return *last
+		}
+		if s, ok := r.inter[string(v)]; ok {
+			r.last[idx] = s
+			return s
+		}
+		s := string(v)
+		if len(r.inter) < 1<<14 && len(v) <= internMaxLen {
+			r.inter[s] = s
+		}
+		r.last[idx] = s
+		return s
+	}
+	// same reads a string that mostly repeats the previous event's (a
+	// case id in a run sorted by case): equal bytes reuse it.
+	same := func(last *string) string {
+		v := c.bytes()
+		if len(v) == 0 {
+			return ""
+		}
+		if string(v) != *last {
+			*last = string(v)
+		}
+		return *last
+	}
+	plain := func() string {
+		v := c.bytes()
+		if len(v) == 0 {
+			return ""
+		}
+		return string(v)
+	}
+	e := &r.ev
+	e.Site = str()
+	e.CaseID = same(&r.lastCase)
+	e.SubjectID = same(&r.lastSubj)
+	e.ResourceID = str()
+	e.Type = schema.EventType(str())
+	e.Activity = str()
+	e.Queue = str()
+	e.OccurredAt = time.UnixMicro(c.varint()).UTC()
+	e.Priority = str()
+	e.Channel = str()
+	e.Outcome = str()
+	e.EventID = plain()
+	e.InstanceID = plain()
+	e.Line = int64(c.uvarint())
+	e.Attrs = plain()
+	if peeked {
+		r.r.Discard(int(n))
+	}
+	if c.bad || len(c.b) != 0 {
+		return false, fmt.Errorf("sort: reading run: %w", errRunRecord)
+	}
 	return true, nil
+}
+
+// noEOF turns the end of a run in the middle of a record into
+// io.ErrUnexpectedEOF.
+func noEOF(err error) error {
+	if err == io.EOF {
+		return io.ErrUnexpectedEOF
+	}
+	return err
 }

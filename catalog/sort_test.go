@@ -7,6 +7,7 @@ import (
 	"io"
 	"math/rand/v2"
 	"os"
+	"reflect"
 	"slices"
 	"strings"
 	"testing"
@@ -264,5 +265,75 @@ func TestPrefix8Order(t *testing.T) {
 	}
 	if decided < 100_000 {
 		t.Fatalf("only %d of 200000 pairs decided by the prefix", decided)
+	}
+}
+
+// TestRunRecords: events of every record size (under 128 bytes, over it,
+// and over the reader's buffer, which takes the copying path) come back
+// from a framed run field for field; a run cut inside a record, or a
+// record whose length disagrees with its fields, is an error, not a
+// short or wrong event.
+func TestRunRecords(t *testing.T) {
+	at := time.Date(2026, 3, 1, 8, 0, 0, 123456000, time.UTC)
+	var evs []schema.Event
+	for i, attrs := range []int{0, 1, 90, 200, 20_000, 70_000} {
+		evs = append(evs, schema.Event{Site: "north", CaseID: "c" + strings.Repeat("x", i), SubjectID: "s1", ResourceID: "desk 2",
+			Type: schema.Start, Activity: "triage", Queue: "q", OccurredAt: at.Add(time.Duration(i) * time.Second),
+			Priority: "2", Channel: "walk-in", Outcome: "served", EventID: "e", InstanceID: "i", Line: int64(1 << (8 * i)),
+			Attrs: strings.Repeat("a", attrs)})
+	}
+	var buf bytes.Buffer
+	w := newRunWriter(&buf)
+	var enc []byte
+	for i := range evs {
+		enc = encodeEvent(enc[:0], &evs[i])
+		if _, err := w.Write(enc); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := w.Close(); err != nil {
+		t.Fatal(err)
+	}
+	read := func(b []byte) ([]schema.Event, error) {
+		r := &run{r: newRunReader(bytes.NewReader(b)), inter: map[string]string{}}
+		var got []schema.Event
+		for {
+			ok, err := r.next()
+			if err != nil || !ok {
+				return got, err
+			}
+			got = append(got, r.ev)
+		}
+	}
+	got, err := read(buf.Bytes())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(got) != len(evs) {
+		t.Fatalf("read %d events, wrote %d", len(got), len(evs))
+	}
+	for i := range evs {
+		if !reflect.DeepEqual(got[i], evs[i]) {
+			t.Errorf("event %d: got %+v\nwant %+v", i, got[i], evs[i])
+		}
+	}
+
+	// Damaged records framed afresh: the frames check out, the records not.
+	plain := func(recs ...[]byte) []byte {
+		var b bytes.Buffer
+		w := newRunWriter(&b)
+		for _, r := range recs {
+			w.Write(r)
+		}
+		w.Close()
+		return b.Bytes()
+	}
+	one := encodeEvent(nil, &evs[2])
+	if _, err := read(plain(one[:len(one)-5])); !errors.Is(err, io.ErrUnexpectedEOF) {
+		t.Errorf("a run cut inside a record: %v, want ErrUnexpectedEOF", err)
+	}
+	long := append([]byte{one[0] + 1}, append(one[1:], 0)...) // one byte the fields do not use
+	if _, err := read(plain(long)); !errors.Is(err, errRunRecord) {
+		t.Errorf("a record longer than its fields: %v, want errRunRecord", err)
 	}
 }
