@@ -69,7 +69,7 @@ func (cw *caseTableWriter) add(row *cases.Row) {
 	cw.err = cw.batch.add(*row)
 }
 
-// Finish completes and syncs the file and returns its entry.
+// Finish completes the file and returns its entry.
 func (cw *caseTableWriter) Finish() (*CaseTableEntry, error) {
 	if err := cw.batch.close(); err != nil && cw.err == nil {
 		cw.err = err

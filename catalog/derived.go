@@ -178,6 +178,14 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 		cp.Terminal = prof.Terminal
 		qopt.Terminal = prof.Terminal
 	}
+	var cw *caseTableWriter
+	if table {
+		var err error
+		if cw, err = newCaseTableWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID); err != nil {
+			return nil, err
+		}
+		defer cw.Remove()
+	}
 	var gb *groupBuild
 	if upass != nil && !s.noCaseGroups {
 		var rows int64
@@ -196,6 +204,9 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			return nil, err
 		}
 		defer gb.close()
+		if gb.prev == nil {
+			gb.table = cw
+		}
 	}
 	for i, f := range files {
 		if f.SHA256 == fromUpload || gb != nil && gb.prev != nil {
@@ -213,14 +224,6 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			return nil, err
 		}
 	}
-	var cw *caseTableWriter
-	if table {
-		var err error
-		if cw, err = newCaseTableWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID); err != nil {
-			return nil, err
-		}
-		defer cw.Remove()
-	}
 	if gb != nil {
 		// Each case's computation in its group, the version's figures the
 		// merge of every group's states.
@@ -233,7 +236,11 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 		}
 		out.groups = set
 		out.releases = append(out.releases, rel...)
-		if out.cases, err = s.groupFigures(ctx, ds, set, total, qopt, cw); err != nil {
+		merge := cw
+		if gb.table != nil {
+			merge = nil // written as the cases passed
+		}
+		if out.cases, err = s.groupFigures(ctx, ds, set, total, qopt, merge); err != nil {
 			out.release()
 			return nil, err
 		}

@@ -307,6 +307,11 @@ type groupBuild struct {
 	dest    []*groupWriter
 	closers []io.Closer
 
+	// table, in a full pass, is the version's case table, written as the
+	// cases pass: the groups then come one after another in case order,
+	// which is the table's.
+	table *caseTableWriter
+
 	fresh   *groupWriter // the upload's cases (incremental), the current chunk (full)
 	done    []*groupWriter
 	cur     *groupWriter // the current case's group (nil: kept)
@@ -476,7 +481,11 @@ func (g *groupBuild) findTouched() error {
 }
 
 func (g *groupBuild) newWriter() (*groupWriter, error) {
-	w, err := newGroupWriter(g.s.opt.TempDir, g.qopt, summaryOptions(g.ds), g.terminal)
+	var extra []cases.Observer
+	if g.table != nil {
+		extra = append(extra, g.table)
+	}
+	w, err := newGroupWriter(g.s.opt.TempDir, g.qopt, summaryOptions(g.ds), g.terminal, extra...)
 	if err != nil {
 		return nil, err
 	}
@@ -518,6 +527,11 @@ func (g *groupBuild) route(e *schema.Event) (*groupWriter, error) {
 func (g *groupBuild) destFor(key string) (*groupWriter, error) {
 	if g.prev == nil {
 		if g.fresh == nil || g.fresh.count >= g.chunk {
+			if g.fresh != nil {
+				// Its last case to the case table before the next
+				// group's first.
+				g.fresh.all.Flush()
+			}
 			w, err := g.newWriter()
 			if err != nil {
 				return nil, err
@@ -733,7 +747,7 @@ type groupWriter struct {
 // spill (a few groups are made at once).
 const groupDistinctMemory = 1 << 20
 
-func newGroupWriter(dir string, qopt quality.Options, sopt summary.Options, terminal []schema.EventType) (*groupWriter, error) {
+func newGroupWriter(dir string, qopt quality.Options, sopt summary.Options, terminal []schema.EventType, extra ...cases.Observer) (*groupWriter, error) {
 	ev, err := os.CreateTemp(dir, "group-*")
 	if err != nil {
 		return nil, fmt.Errorf("case groups: %w", err)
@@ -753,7 +767,7 @@ func newGroupWriter(dir string, qopt quality.Options, sopt summary.Options, term
 		return nil, err
 	}
 	w.qacc = quality.NewAccumulator(qopt)
-	w.all = cases.NewBuilder(w.qacc, w.part)
+	w.all = cases.NewBuilder(append([]cases.Observer{w.qacc, w.part}, extra...)...)
 	w.all.Terminal = terminal
 	w.sum = summary.New(sopt)
 	w.kept = cases.NewBuilder(w.sum, w.sum.Process())
