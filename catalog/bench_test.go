@@ -137,7 +137,7 @@ func benchEvent(e *schema.Event, r *rand.Rand, i int, ids []string) {
 
 func benchIDs() []string {
 	ids := make([]string, 4096)
-	p, _ := throwawayPseudonymizer()
+	p, _ := benchPseudonymizer()
 	for i := range ids {
 		ids[i] = p.Pseudonym(schema.FieldCaseID, strconv.Itoa(i))
 	}
@@ -211,7 +211,7 @@ func BenchmarkStages(b *testing.B) {
 		report(b, d)
 	})
 	b.Run("pseudonymize", func(b *testing.B) {
-		p, _ := throwawayPseudonymizer()
+		p, _ := benchPseudonymizer()
 		ids := benchIDs()
 		var e schema.Event
 		r := rand.New(rand.NewPCG(1, 2))
@@ -271,4 +271,17 @@ func BenchmarkStages(b *testing.B) {
 		}
 		report(b, d)
 	})
+}
+
+// benchPseudonymizer pseudonymizes under a key made for the benchmark.
+func benchPseudonymizer() (*anonymize.Pseudonymizer, error) {
+	mk, err := anonymize.GenerateMasterKey()
+	if err != nil {
+		return nil, err
+	}
+	sk, err := anonymize.NewProjectKey(mk, "bench")
+	if err != nil {
+		return nil, err
+	}
+	return anonymize.OpenProjectKey(mk, "bench", sk)
 }

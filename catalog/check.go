@@ -2,29 +2,41 @@ package catalog
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
+	"log/slog"
 	"os"
+	"path/filepath"
+	"strings"
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
+	"github.com/flowcat-catalog/flowcat/catalog/blob/localfs"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
 // CheckOptions configure Check.
 type CheckOptions struct {
-	Name       string    // file name for messages
-	TempDir    string    // for sort runs; default os.TempDir()
-	RunEvents  int       // see Options.RunEvents
-	Now        time.Time // the "upload" instant; default time.Now()
-	WindowFrom time.Time // declared window, zero = open
-	WindowTo   time.Time
-	Limits     schema.Limits // see Options.Limits
+	Name      string    // file name for messages
+	TempDir   string    // where the throwaway catalog lives; default os.TempDir()
+	RunEvents int       // see Options.RunEvents
+	Now       time.Time // the "upload" instant; default time.Now()
+	Limits    schema.Limits
+	// Dataset is the dataset the file would be sent to, as it would be
+	// created: its profile (YAML; empty means the schema's own column
+	// names), zone, threshold of invalid rows, window, change policy
+	// and history setting. Its Project and Name are not used.
+	Dataset DatasetSpec
 }
 
-// CheckResult is the offline report of one file.
+// CheckResult is the offline verdict on one file and its report.
 type CheckResult struct {
+	// Accepted says the ingest accepted the file; Reason, when it did
+	// not, says why, as the upload's record would.
+	Accepted bool            `json:"accepted"`
+	Reason   string          `json:"reason,omitempty"`
 	Report   *quality.Report `json:"report"`
 	Unmapped []string        `json:"unmapped_columns,omitempty"`
 	// Events counts the copies within the file (stored once at ingest),
@@ -32,76 +44,71 @@ type CheckResult struct {
 	Events *EventCounts `json:"events"`
 }
 
-// Check runs the ingest's read, validate and quality pipeline over src
-// (copies within the file are counted once, as at ingest) without storing
-// anything, so a partner can test a file before sending
-// it. Identifiers are pseudonymized under a throwaway key, so the report's
-// samples hold no raw values. A nil prof means schema.DefaultProfile(). A
-// file that cannot be read fails with an error wrapping ErrFileInvalid and
-// a *schema.FileError.
-func Check(ctx context.Context, src io.Reader, prof *schema.Profile, opt CheckOptions) (*CheckResult, error) {
+// Check runs src through Ingest itself, into a throwaway catalog in a
+// folder of opt.TempDir that it removes before it returns, so that a
+// partner can test a file before sending it and get the verdict the
+// server would give: one pipeline, one rule of acceptance. The catalog's
+// master key is made for the check and forgotten, so the report's
+// samples hold throwaway pseudonyms, and nothing raw is written (as at
+// any ingest). A dataset spec that does not validate fails with
+// ErrInvalid; a file that cannot be read fails with an error wrapping
+// ErrFileInvalid and a *schema.FileError.
+func Check(ctx context.Context, src io.Reader, opt CheckOptions) (*CheckResult, error) {
 	if opt.TempDir == "" {
 		opt.TempDir = os.TempDir()
-	}
-	if opt.RunEvents <= 0 {
-		opt.RunEvents = 1 << 16
 	}
 	if opt.Now.IsZero() {
 		opt.Now = time.Now()
 	}
-	if prof == nil {
-		prof = schema.DefaultProfile()
+	dir, err := os.MkdirTemp(opt.TempDir, "check-*")
+	if err != nil {
+		return nil, fmt.Errorf("check: %w", err)
 	}
-	pz, err := throwawayPseudonymizer()
+	defer os.RemoveAll(dir)
+	s, err := openThrowaway(dir, opt)
+	if err != nil {
+		return nil, fmt.Errorf("check: %w", err)
+	}
+	defer s.Close()
+	const project, dataset = "check", "file"
+	if _, err := s.CreateProject(ctx, project, "", "check"); err != nil {
+		return nil, fmt.Errorf("check: %w", err)
+	}
+	spec := opt.Dataset
+	spec.Project, spec.Name = project, dataset
+	if _, err := s.CreateDataset(ctx, spec, "check"); err != nil {
+		return nil, fmt.Errorf("check: %w", err)
+	}
+	res, err := s.Ingest(ctx, project, dataset, src, IngestOptions{Filename: opt.Name, By: "check"})
+	switch {
+	case errors.Is(err, ErrFileInvalid):
+		return nil, err
+	case err != nil && !errors.Is(err, ErrRejected):
+		return nil, fmt.Errorf("check: %w", err)
+	}
+	up := res.Upload
+	out := &CheckResult{Accepted: err == nil, Report: up.Report, Unmapped: up.Unmapped, Events: up.Events}
+	if err != nil {
+		out.Reason = strings.TrimSuffix(err.Error(), ": "+ErrRejected.Error())
+	}
+	return out, nil
+}
+
+// openThrowaway opens an empty catalog in dir under a master key made
+// for it.
+func openThrowaway(dir string, opt CheckOptions) (*Store, error) {
+	mk, err := anonymize.GenerateMasterKey()
 	if err != nil {
 		return nil, err
 	}
-	acc := quality.NewAccumulator(quality.Options{UploadedAt: opt.Now, WindowFrom: opt.WindowFrom, WindowTo: opt.WindowTo, MappedFields: mappedFields(prof), Zone: prof.Location(), Terminal: prof.Terminal, ResourceCapacity: prof.ResourceCapacity, MaxCase: prof.MaxCase(), Capacity: prof.Capacity})
-	srt := newSorter(opt.TempDir, opt.RunEvents)
-	defer srt.Close()
-	rd, err := schema.NewReader(src, prof, schema.ReaderOptions{Name: opt.Name, Limits: opt.Limits})
-	if err == nil {
-		ai := newAttrIngest(opt.TempDir, prof, pz)
-		defer ai.close()
-		err = readAll(ctx, rd, pz, acc, srt, ai)
-	}
+	bs, err := localfs.New(filepath.Join(dir, "blobs"))
 	if err != nil {
-		if _, ok := schema.AsFileError(err); ok {
-			return nil, fmt.Errorf("%w: %w", ErrFileInvalid, err)
-		}
-		return nil, fmt.Errorf("check: %w", err)
+		return nil, err
 	}
-	cp := NewCasePass(opt.TempDir, opt.RunEvents)
-	cp.Terminal = prof.Terminal
-	defer cp.Close()
-	hf := newHeldFilter(IdentityOf(prof), ChangesRefuse)
-	err = srt.Finish(hf.keep(ctx, func(e *schema.Event) error {
-		fl := acc.Observe(e)
-		line := e.Line
-		e.Line = quality.PackLine(line, fl)
-		err := cp.Add(e)
-		e.Line = line
-		return err
-	}))
-	if err == nil {
-		_, err = cp.Run(acc)
+	tmp := filepath.Join(dir, "tmp")
+	if err := os.Mkdir(tmp, 0o700); err != nil {
+		return nil, err
 	}
-	if err != nil {
-		return nil, fmt.Errorf("check: %w", err)
-	}
-	rep := acc.Report()
-	rep.UnmappedColumns = rd.Unmapped()
-	return &CheckResult{Report: rep, Unmapped: rep.UnmappedColumns, Events: hf.uploadCounts()}, nil
-}
-
-func throwawayPseudonymizer() (*anonymize.Pseudonymizer, error) {
-	mk, err := anonymize.GenerateMasterKey()
-	if err != nil {
-		return nil, fmt.Errorf("check: %w", err)
-	}
-	sk, err := anonymize.NewProjectKey(mk, "check")
-	if err != nil {
-		return nil, fmt.Errorf("check: %w", err)
-	}
-	return anonymize.OpenProjectKey(mk, "check", sk)
+	return Open(filepath.Join(dir, "check.db"), bs, Options{Master: mk, TempDir: tmp, RunEvents: opt.RunEvents, Limits: opt.Limits,
+		Now: func() time.Time { return opt.Now }, Logger: slog.New(slog.DiscardHandler)})
 }

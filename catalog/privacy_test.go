@@ -81,7 +81,7 @@ func TestNoRawIdentifiersStored(t *testing.T) {
 	}
 
 	// Offline checks too.
-	if cr, err := Check(ctx, bytes.NewReader(badData), nil, CheckOptions{TempDir: e.tmp, RunEvents: 64}); err != nil {
+	if cr, err := Check(ctx, bytes.NewReader(badData), CheckOptions{TempDir: e.tmp, RunEvents: 64}); err != nil {
 		t.Fatal(err)
 	} else {
 		b, _ := json.Marshal(cr)

@@ -437,13 +437,22 @@ func TestValidateOffline(t *testing.T) {
 	bad := writeFile(t, dir, "codes.csv", badRows)
 	code, out, _ = run(t, nil, "validate", bad, "--json")
 	var res struct {
-		Accepted bool `json:"accepted"`
+		Accepted bool   `json:"accepted"`
+		Reason   string `json:"reason"`
 		Report   struct {
 			Rows struct{ Rejected int } `json:"rows"`
 		} `json:"report"`
 	}
-	if code != 1 || json.Unmarshal([]byte(out), &res) != nil || res.Accepted || res.Report.Rows.Rejected != 160 {
+	if code != 1 || json.Unmarshal([]byte(out), &res) != nil || res.Accepted || res.Report.Rows.Rejected != 160 || !strings.HasPrefix(res.Reason, "no valid rows among 160") {
 		t.Errorf("validate bad codes: exit %d, %+v, %q", code, res, out)
+	}
+	code, out, _ = run(t, nil, "validate", bad)
+	if code != 1 || !strings.Contains(out, "would be REJECTED: no valid rows among 160") {
+		t.Errorf("validate bad codes, text: exit %d, %q", code, out)
+	}
+	// An unknown zone is refused by the catalog's own rule, as a usage error.
+	if code, _, errs := run(t, nil, "validate", good, "--timezone", "Mars/Olympus"); code != 2 || !strings.Contains(errs, "Mars/Olympus") {
+		t.Errorf("validate --timezone Mars/Olympus: exit %d, %q", code, errs)
 	}
 	// With a profile that maps the codes, the same file passes.
 	prof := writeFile(t, dir, "p.yaml", `fields:

@@ -20,28 +20,25 @@ func newValidateCmd(e *env) *cobra.Command {
 		Short: "Check an export file offline and print its quality report",
 		Long: `Validate reads FILE (CSV, TSV or JSON Lines, maybe gzip) through a mapping profile (or,
 without one, expects the schema's own column names), exactly as the server's ingest would, and
-prints the quality report. Nothing is stored or sent. Exit 0: the server would accept it;
-1: it would be rejected (unreadable, or more invalid rows than --reject-above).`,
+prints the quality report: it runs the server's own ingest into a throwaway catalog under a
+throwaway key, removed before it exits, so its verdict is the server's. Nothing is kept or sent.
+Exit 0: the server would accept it; 1: it would be rejected (unreadable, no valid rows, or more
+invalid rows than --reject-above), with the reason.`,
 		Args: cobra.ExactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if !(rejectAbove >= 0 && rejectAbove <= 1) {
 				return usageErr("--reject-above %v: want a share between 0 and 1", rejectAbove)
 			}
-			prof := schema.DefaultProfile()
+			spec := catalog.DatasetSpec{Timezone: zone, RejectAbove: &rejectAbove}
 			if profile != "" {
 				b, err := os.ReadFile(profile)
 				if err != nil {
 					return usageErr("profile: %v", err)
 				}
-				prof, err = schema.ParseProfile(b)
-				if err != nil {
+				if _, err := schema.ParseProfile(b); err != nil {
 					return usageErr("%s: %v", profile, err)
 				}
-			}
-			if zone != "" {
-				if err := prof.SetTimezone(zone); err != nil {
-					return usageErr("--timezone: %v", err)
-				}
+				spec.Profile = b
 			}
 			f, err := os.Open(args[0])
 			if err != nil {
@@ -49,7 +46,7 @@ prints the quality report. Nothing is stored or sent. Exit 0: the server would a
 			}
 			defer f.Close()
 			name := filepath.Base(args[0])
-			res, err := catalog.Check(cmd.Context(), f, prof, catalog.CheckOptions{Name: name})
+			res, err := catalog.Check(cmd.Context(), f, catalog.CheckOptions{Name: name, Dataset: spec})
 			if errors.Is(err, catalog.ErrFileInvalid) {
 				fe, _ := schema.AsFileError(err)
 				if e.json {
@@ -59,21 +56,20 @@ prints the quality report. Nothing is stored or sent. Exit 0: the server would a
 				}
 				return fmt.Errorf("%s: %s", name, fe.Error())
 			}
+			if errors.Is(err, catalog.ErrInvalid) {
+				return usageErr("%v", err)
+			}
 			if err != nil {
 				return err
 			}
-			rep := res.Report
-			ok := rep.Rows.Accepted > 0 && rep.RejectedShare() <= rejectAbove
+			rep, ok := res.Report, res.Accepted
 			if e.json {
-				writeJSON(e.stdout, map[string]any{"accepted": ok, "file": name, "report": rep, "unmapped_columns": res.Unmapped, "events": res.Events})
+				writeJSON(e.stdout, map[string]any{"accepted": ok, "reason": res.Reason, "file": name, "report": rep, "unmapped_columns": res.Unmapped, "events": res.Events})
 			} else {
 				rep.Text(e.stdout, e.tty())
 				verdict := "would be accepted"
 				if !ok {
-					verdict = fmt.Sprintf("would be REJECTED: %.2f%% invalid rows (threshold %.2f%%)", 100*rep.RejectedShare(), 100*rejectAbove)
-					if rep.Rows.Accepted == 0 {
-						verdict = "would be REJECTED: no valid rows"
-					}
+					verdict = "would be REJECTED: " + res.Reason
 				}
 				if ev := res.Events; ev != nil && ev.Copies > 0 {
 					fmt.Fprintf(e.stdout, "\n%d rows are exact copies of an earlier row of the file: they would be stored once\n", ev.Copies)
