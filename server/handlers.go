@@ -181,59 +181,57 @@ func (s *Server) upload(c echo.Context) error {
 	started := time.Now()
 	res, err := s.cfg.Store.Ingest(req.Context(), d.Project, d.Name, body, opt)
 	s.metrics.observeUpload(res, time.Since(started))
-	withUpload := func(he *httpError) error {
-		if res != nil {
-			he.body.Upload = &res.Upload
-			if e := res.Upload.Error; e != nil {
-				he.body.Rule = e.Rule
+	if err != nil {
+		var he *httpError
+		if !errors.As(catalogError(err), &he) {
+			if res == nil {
+				return err
 			}
+			s.cfg.Logger.Error("upload failed", "dataset", d.Ref(), "upload", res.Upload.ID, "err", err)
+			he = fail(http.StatusInternalServerError, "internal", "the upload failed on the server; the server log has the details; nothing of it was kept")
+		}
+		if res != nil {
+			s.uploadDetail(he, res.Upload)
 		}
 		return he
-	}
-	switch {
-	case errors.Is(err, catalog.ErrUploadTooLarge):
-		return withUpload(fail(http.StatusRequestEntityTooLarge, "too_large", "upload is larger than the server's limit of %d bytes (flowcat serve --max-upload-bytes)", s.cfg.MaxUploadBytes))
-	case errors.Is(err, catalog.ErrBodyTimeout):
-		return withUpload(fail(http.StatusRequestTimeout, "body_timeout", "no byte of the upload's body came for %s (flowcat serve --body-idle-timeout); nothing of it was kept", s.cfg.BodyIdleTimeout))
-	case errors.Is(err, catalog.ErrNoSpace):
-		// RFC 4918 section 11.5.
-		return withUpload(fail(http.StatusInsufficientStorage, "insufficient_storage", "the server's disk is full; nothing of the upload was kept; try again later"))
-	case errors.Is(err, catalog.ErrClientGone):
-		// Nobody reads the answer; the status is for the access log.
-		return withUpload(fail(statusClientGone, "client_gone", "the client went away before the upload was done"))
-	case errors.Is(err, catalog.ErrFileInvalid):
-		e := res.Upload.Error
-		he := fail(http.StatusBadRequest, "file_invalid", "%s", err.Error())
-		he.body.Rule, he.body.Line, he.body.Column = e.Rule, e.Line, e.Column
-		he.body.Message = fileMessage(res.Upload.Filename, e)
-		he.body.Upload = &res.Upload
-		return he
-	case errors.Is(err, catalog.ErrRejected) && res.Upload.Error != nil && res.Upload.Error.Rule == catalog.RuleSiteNotAllowed:
-		// A partner writing a site its token does not name: refused by
-		// authorization, after the body showed it.
-		e := res.Upload.Error
-		he := fail(http.StatusForbidden, "forbidden", "this token may not write site data it is not bound to: %s", fileMessage(res.Upload.Filename, e))
-		he.body.Rule, he.body.Line, he.body.Column, he.body.Upload = e.Rule, e.Line, e.Column, &res.Upload
-		return he
-	case errors.Is(err, catalog.ErrRejected):
-		he := fail(http.StatusUnprocessableEntity, "rejected", "%s", err.Error())
-		rejectedDetail(&he.body, res.Upload)
-		if ue := res.Upload.Error; ue != nil { // outside the window, changed events
-			he.body.Rule, he.body.Line, he.body.Column = ue.Rule, ue.Line, ue.Column
-		}
-		he.body.Upload = &res.Upload
-		return he
-	case err != nil && res != nil:
-		s.cfg.Logger.Error("upload failed", "dataset", d.Ref(), "upload", res.Upload.ID, "err", err)
-		return withUpload(fail(http.StatusInternalServerError, "internal", "the upload failed on the server; the server log has the details; nothing of it was kept"))
-	case err != nil:
-		return catalogError(err)
 	}
 	status := http.StatusCreated
 	if res.Upload.Status == catalog.UploadDuplicate {
 		status = http.StatusOK
 	}
 	return c.JSON(status, api.UploadResult{Upload: res.Upload, Version: res.Version, Message: disclosureNote(res.Upload.Sentence(), res.Version)})
+}
+
+// uploadDetail puts on the error of a failed, rejected or refused upload
+// its record and what the server says of it: its status and code come
+// from errorStatuses, but for a rejection by the site a partner token is
+// bound to, which is a refusal of authorization (403).
+func (s *Server) uploadDetail(he *httpError, up catalog.Upload) {
+	b := &he.body
+	b.Upload = &up
+	e := up.Error
+	if e != nil {
+		b.Rule, b.Line, b.Column = e.Rule, e.Line, e.Column
+	}
+	switch b.Code {
+	case "too_large":
+		b.Message = fmt.Sprintf("upload is larger than the server's limit of %d bytes (flowcat serve --max-upload-bytes)", s.cfg.MaxUploadBytes)
+	case "body_timeout":
+		b.Message = fmt.Sprintf("no byte of the upload's body came for %s (flowcat serve --body-idle-timeout); nothing of it was kept", s.cfg.BodyIdleTimeout)
+	case "insufficient_storage":
+		b.Message = "the server's disk is full; nothing of the upload was kept; try again later"
+	case "client_gone":
+		b.Message = "the client went away before the upload was done"
+	case "file_invalid":
+		b.Message = fileMessage(up.Filename, e)
+	case "rejected":
+		if e != nil && e.Rule == catalog.RuleSiteNotAllowed {
+			b.Status, b.Code = http.StatusForbidden, "forbidden"
+			b.Message = "this token may not write site data it is not bound to: " + fileMessage(up.Filename, e)
+			return
+		}
+		rejectedDetail(b, up)
+	}
 }
 
 // takeUploadSlot counts an upload of the token in progress, or refuses

@@ -251,23 +251,36 @@ func fail(status int, code, format string, args ...any) *httpError {
 	return &httpError{body: api.ErrorBody{Status: status, Code: code, Message: fmt.Sprintf(format, args...)}}
 }
 
-// catalogError maps catalog errors to HTTP errors: the one place where a
-// catalog error becomes a status.
+// errorStatuses is the one table from the catalog's errors to HTTP
+// statuses and codes: the first sentinel an error wraps gives them. The
+// upload's own come first (an upload's failure may wrap another).
+var errorStatuses = [...]struct {
+	sentinel error
+	status   int
+	code     string
+}{
+	{catalog.ErrUploadTooLarge, http.StatusRequestEntityTooLarge, "too_large"},
+	{catalog.ErrBodyTimeout, http.StatusRequestTimeout, "body_timeout"},
+	{catalog.ErrNoSpace, http.StatusInsufficientStorage, "insufficient_storage"}, // RFC 4918 section 11.5
+	{catalog.ErrClientGone, statusClientGone, "client_gone"},                     // nobody reads it: for the access log
+	{catalog.ErrFileInvalid, http.StatusBadRequest, "file_invalid"},
+	{catalog.ErrRejected, http.StatusUnprocessableEntity, "rejected"},
+	// The data of a retracted version is gone; its metadata stays.
+	{catalog.ErrRetracted, http.StatusGone, "retracted"},
+	{catalog.ErrNotFound, http.StatusNotFound, "not_found"},
+	{catalog.ErrExists, http.StatusConflict, "exists"},
+	{catalog.ErrState, http.StatusConflict, "state"},
+	{catalog.ErrRiskAboveThreshold, http.StatusConflict, "disclosure_risk"},
+	{catalog.ErrInvalid, http.StatusBadRequest, "invalid"},
+}
+
+// catalogError maps err by errorStatuses to an *httpError with err's text;
+// an error of none of them is the server's fault, returned as it is.
 func catalogError(err error) error {
-	switch {
-	case errors.Is(err, catalog.ErrRetracted):
-		// The data of a retracted version is gone; its metadata stays.
-		return &httpError{body: api.ErrorBody{Status: http.StatusGone, Code: "retracted", Message: err.Error()}, err: err}
-	case errors.Is(err, catalog.ErrNotFound):
-		return &httpError{body: api.ErrorBody{Status: http.StatusNotFound, Code: "not_found", Message: err.Error()}, err: err}
-	case errors.Is(err, catalog.ErrExists):
-		return &httpError{body: api.ErrorBody{Status: http.StatusConflict, Code: "exists", Message: err.Error()}, err: err}
-	case errors.Is(err, catalog.ErrState):
-		return &httpError{body: api.ErrorBody{Status: http.StatusConflict, Code: "state", Message: err.Error()}, err: err}
-	case errors.Is(err, catalog.ErrRiskAboveThreshold):
-		return &httpError{body: api.ErrorBody{Status: http.StatusConflict, Code: "disclosure_risk", Message: err.Error()}, err: err}
-	case errors.Is(err, catalog.ErrInvalid):
-		return &httpError{body: api.ErrorBody{Status: http.StatusBadRequest, Code: "invalid", Message: err.Error()}, err: err}
+	for _, m := range errorStatuses {
+		if errors.Is(err, m.sentinel) {
+			return &httpError{body: api.ErrorBody{Status: m.status, Code: m.code, Message: err.Error()}, err: err}
+		}
 	}
 	return err
 }
