@@ -174,6 +174,16 @@ type response struct {
 // Authorization header; hdr adds headers.
 func (e *testEnv) do(method, path, token string, body io.Reader, hdr map[string]string) response {
 	e.t.Helper()
+	// A JSON body is kept, so that the request can be checked against
+	// the document once the server has taken it.
+	var sent []byte
+	if hdr["Content-Type"] == "application/json" && body != nil {
+		b, err := io.ReadAll(body)
+		if err != nil {
+			e.t.Fatal(err)
+		}
+		sent, body = b, bytes.NewReader(b)
+	}
 	req, err := http.NewRequest(method, e.srv.URL+path, body)
 	if err != nil {
 		e.t.Fatal(err)
@@ -198,6 +208,9 @@ func (e *testEnv) do(method, path, token string, body io.Reader, hdr map[string]
 	e.rec.bodies = append(e.rec.bodies, b)
 	e.rec.mu.Unlock()
 	e.openapi.check(e.t, req, res, b)
+	if sent != nil && res.StatusCode/100 == 2 {
+		e.openapi.checkRequest(e.t, req, sent)
+	}
 	return response{Status: res.StatusCode, Header: res.Header, Body: b}
 }
 

@@ -109,6 +109,25 @@ func (o *openAPICheck) validate(req *http.Request, res *http.Response, b []byte)
 	return nil
 }
 
+// checkRequest validates a request the server took (answered 2xx), with
+// its JSON body sent, against the document: what the server accepts is
+// what the document says it takes, path and query parameters and body.
+func (o *openAPICheck) checkRequest(t *testing.T, req *http.Request, sent []byte) {
+	t.Helper()
+	route, params, err := o.router.FindRoute(req)
+	if err != nil {
+		return // not of the API; validate has said so of its answer
+	}
+	r := req.Clone(req.Context())
+	r.Body = io.NopCloser(bytes.NewReader(sent))
+	in := &openapi3filter.RequestValidationInput{Request: r, PathParams: params, Route: route,
+		Options: &openapi3filter.Options{MultiError: true, AuthenticationFunc: openapi3filter.NoopAuthenticationFunc}}
+	if err := openapi3filter.ValidateRequest(req.Context(), in); err != nil {
+		t.Errorf("OpenAPI: the server took %s %s, which the document does not describe: %s; body: %s", req.Method, req.URL.Path,
+			clip(err.Error(), 1500), clip(string(sent), 300))
+	}
+}
+
 func clip(s string, n int) string {
 	if len(s) > n {
 		return s[:n] + "..."

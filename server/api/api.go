@@ -32,12 +32,12 @@ func ProjectOf(p *catalog.Project) Project {
 // CreateProject is the body of POST /projects.
 type CreateProject struct {
 	Name  string `json:"name"`
-	Title string `json:"title"`
+	Title string `json:"title,omitempty"`
 }
 
 // EditProject is the body of PATCH /projects/{project}.
 type EditProject struct {
-	Title *string `json:"title"`
+	Title *string `json:"title,omitempty"`
 }
 
 // ProjectDeletion answers the deletion of a project: what became of each
@@ -50,29 +50,29 @@ type ProjectDeletion struct {
 // CreateDataset is the body of POST /projects/{project}/datasets.
 type CreateDataset struct {
 	Name        string     `json:"name"`
-	Title       string     `json:"title"`
-	Profile     string     `json:"profile"` // YAML text
-	Timezone    string     `json:"timezone"`
-	RejectAbove *float64   `json:"reject_above"`
-	WindowFrom  *time.Time `json:"window_from"`
-	WindowTo    *time.Time `json:"window_to"`
-	Drafts      bool       `json:"drafts"`
-	Changes     string     `json:"changes"` // refuse (default) or correct
-	Historical  bool       `json:"historical"`
+	Title       string     `json:"title,omitempty"`
+	Profile     string     `json:"profile,omitempty"` // YAML text
+	Timezone    string     `json:"timezone,omitempty"`
+	RejectAbove *float64   `json:"reject_above,omitempty"`
+	WindowFrom  *time.Time `json:"window_from,omitempty"`
+	WindowTo    *time.Time `json:"window_to,omitempty"`
+	Drafts      bool       `json:"drafts,omitempty"`
+	Changes     string     `json:"changes,omitempty"` // refuse (default) or correct
+	Historical  bool       `json:"historical,omitempty"`
 }
 
 // EditDataset is the body of PATCH on a dataset: the members given
 // change, the others stay. "window_from"/"window_to" null or absent leave
 // the window; "clear_window": true removes it.
 type EditDataset struct {
-	Title       *string    `json:"title"`
-	Description *string    `json:"description"`
-	RejectAbove *float64   `json:"reject_above"`
-	WindowFrom  *time.Time `json:"window_from"`
-	WindowTo    *time.Time `json:"window_to"`
-	ClearWindow bool       `json:"clear_window"`
-	Profile     *string    `json:"profile"` // YAML text; "" for the default profile
-	Timezone    *string    `json:"timezone"`
+	Title       *string    `json:"title,omitempty"`
+	Description *string    `json:"description,omitempty"`
+	RejectAbove *float64   `json:"reject_above,omitempty"`
+	WindowFrom  *time.Time `json:"window_from,omitempty"`
+	WindowTo    *time.Time `json:"window_to,omitempty"`
+	ClearWindow bool       `json:"clear_window,omitempty"`
+	Profile     *string    `json:"profile,omitempty"` // YAML text; "" for the default profile
+	Timezone    *string    `json:"timezone,omitempty"`
 }
 
 // SetChanges is the body of POST .../changes: "refuse" or "correct".
@@ -83,7 +83,7 @@ type SetChanges struct {
 // Reason is a body that gives only a reason: a retraction, an archive, a
 // deletion, a publication over the disclosure threshold, a revocation.
 type Reason struct {
-	Reason string `json:"reason"`
+	Reason string `json:"reason,omitempty"`
 }
 
 // ProfileRevisions lists a dataset's profile revisions.
@@ -107,8 +107,8 @@ type VersionsPage struct {
 
 // GC is the body of POST /admin/gc.
 type GC struct {
-	DryRun       bool     `json:"dry_run"`
-	GraceSeconds *float64 `json:"grace_seconds"`
+	DryRun       bool     `json:"dry_run,omitempty"`
+	GraceSeconds *float64 `json:"grace_seconds,omitempty"`
 }
 
 // Diff is the difference between two versions (query.Diff).
@@ -134,21 +134,21 @@ type AuditPage struct {
 type IssueToken struct {
 	Role     string   `json:"role"`
 	Subject  string   `json:"subject"`
-	Project  string   `json:"project"`
-	Datasets []string `json:"datasets"`
-	Sites    []string `json:"sites"`   // partner: the sites it may write
-	Replace  bool     `json:"replace"` // partner with sites: may replace-window them
-	TTL      string   `json:"ttl"`     // a Go duration, e.g. "720h"
+	Project  string   `json:"project,omitempty"`
+	Datasets []string `json:"datasets,omitempty"`
+	Sites    []string `json:"sites,omitempty"`   // partner: the sites it may write
+	Replace  bool     `json:"replace,omitempty"` // partner with sites: may replace-window them
+	TTL      string   `json:"ttl,omitempty"`     // a Go duration, e.g. "720h"
 }
 
 // IssueProjectToken is the body of POST /projects/{project}/tokens.
 type IssueProjectToken struct {
 	Role     string   `json:"role"` // member or partner
 	Subject  string   `json:"subject"`
-	Datasets []string `json:"datasets"` // partner: dataset names of the project (or project/dataset)
-	Sites    []string `json:"sites"`    // partner: the sites it may write
-	Replace  bool     `json:"replace"`  // partner with sites: may replace-window them
-	TTL      string   `json:"ttl"`
+	Datasets []string `json:"datasets,omitempty"` // partner: dataset names of the project (or project/dataset)
+	Sites    []string `json:"sites,omitempty"`    // partner: the sites it may write
+	Replace  bool     `json:"replace,omitempty"`  // partner with sites: may replace-window them
+	TTL      string   `json:"ttl,omitempty"`
 }
 
 // Token answers the issue of a token: the token itself, shown once.
