@@ -98,6 +98,24 @@ func TestOpenAPICheckFails(t *testing.T) {
 			t.Errorf("%s: accepted", c.name)
 		}
 	}
+	// Requests: the body of a project's creation.
+	post, err := http.NewRequest(http.MethodPost, e.srv.URL+"/api/v1/projects", nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	post.Header.Set("Content-Type", "application/json")
+	if err := e.openapi.validateRequest(post, []byte(`{"name": "ward2"}`)); err != nil {
+		t.Fatalf("a request the server takes is refused: %v", err)
+	}
+	for name, body := range map[string]string{
+		"missing member":    `{"title": "no name"}`,
+		"wrong type":        `{"name": 7}`,
+		"undeclared member": `{"name": "ward2", "owner": "x"}`,
+	} {
+		if e.openapi.validateRequest(post, []byte(body)) == nil {
+			t.Errorf("request with a %s: accepted", name)
+		}
+	}
 }
 
 // TestProblemDetails checks an error answer against RFC 9457: the media

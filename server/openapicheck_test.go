@@ -114,18 +114,24 @@ func (o *openAPICheck) validate(req *http.Request, res *http.Response, b []byte)
 // what the document says it takes, path and query parameters and body.
 func (o *openAPICheck) checkRequest(t *testing.T, req *http.Request, sent []byte) {
 	t.Helper()
+	if err := o.validateRequest(req, sent); err != nil {
+		t.Errorf("OpenAPI: the server took %s %s, which the document does not describe: %s; body: %s", req.Method, req.URL.Path,
+			clip(err.Error(), 1500), clip(string(sent), 300))
+	}
+}
+
+// validateRequest is checkRequest's rule: nil when the document
+// describes the request with body sent, or when it is not of the API.
+func (o *openAPICheck) validateRequest(req *http.Request, sent []byte) error {
 	route, params, err := o.router.FindRoute(req)
 	if err != nil {
-		return // not of the API; validate has said so of its answer
+		return nil // not of the API; validate says so of its answer
 	}
 	r := req.Clone(req.Context())
 	r.Body = io.NopCloser(bytes.NewReader(sent))
 	in := &openapi3filter.RequestValidationInput{Request: r, PathParams: params, Route: route,
 		Options: &openapi3filter.Options{MultiError: true, AuthenticationFunc: openapi3filter.NoopAuthenticationFunc}}
-	if err := openapi3filter.ValidateRequest(req.Context(), in); err != nil {
-		t.Errorf("OpenAPI: the server took %s %s, which the document does not describe: %s; body: %s", req.Method, req.URL.Path,
-			clip(err.Error(), 1500), clip(string(sent), 300))
-	}
+	return openapi3filter.ValidateRequest(req.Context(), in)
 }
 
 func clip(s string, n int) string {
