@@ -2,7 +2,6 @@ package catalog
 
 import (
 	"bufio"
-	"container/heap"
 	"context"
 	"crypto/sha256"
 	"encoding/binary"
@@ -21,6 +20,7 @@ import (
 	bolt "go.etcd.io/bbolt"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/catalog/internal/kway"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -383,7 +383,7 @@ func (s *Store) newGroupBuild(ctx context.Context, ds *Dataset, prev *caseGroupS
 func (g *groupBuild) findTouched() error {
 	n := len(g.prev.Groups)
 	g.kept = make([]bool, n)
-	h := make(keyHeap, 0, n)
+	cs := make([]*keyCursor, 0, n)
 	for i, gr := range g.prev.Groups {
 		g.kept[i] = true
 		r, err := g.s.blobs.Open(g.ctx, gr.Keys)
@@ -398,11 +398,11 @@ func (g *groupBuild) findTouched() error {
 			return err
 		}
 		if ok {
-			h = append(h, c)
+			cs = append(cs, c)
 		}
 	}
-	heap.Init(&h)
-	for len(h) > 0 {
+	h := kway.New(byKey, cs...)
+	for h.Len() > 0 {
 		ok, err := g.upKeys.next()
 		if err != nil {
 			return err
@@ -411,14 +411,14 @@ func (g *groupBuild) findTouched() error {
 			break
 		}
 		u := g.upKeys.cur
-		for len(h) > 0 && h[0].cur < u {
-			if err := h.advance(); err != nil {
+		for h.Len() > 0 && h.Top().cur < u {
+			if err := advanceKeys(h); err != nil {
 				return err
 			}
 		}
-		if len(h) > 0 && h[0].cur == u {
-			g.kept[h[0].group] = false // keys are disjoint across groups
-			heap.Pop(&h)
+		if h.Len() > 0 && h.Top().cur == u {
+			g.kept[h.Top().group] = false // keys are disjoint across groups
+			h.Pop()
 		}
 	}
 	var compact []int
@@ -988,7 +988,7 @@ func (s *Store) blobBytes(ctx context.Context, id blob.ID) ([]byte, error) {
 // distinctAcross counts the distinct keys of the groups' sorted key files
 // (a k-way merge: a key several groups name counts once).
 func (s *Store) distinctAcross(ctx context.Context, set *caseGroupSet, file func(*caseGroup) blob.ID) (uint64, error) {
-	h := make(keyHeap, 0, len(set.Groups))
+	cs := make([]*keyCursor, 0, len(set.Groups))
 	for i := range set.Groups {
 		r, err := s.blobs.Open(ctx, file(&set.Groups[i]))
 		if err != nil {
@@ -1001,18 +1001,18 @@ func (s *Store) distinctAcross(ctx context.Context, set *caseGroupSet, file func
 			return 0, err
 		}
 		if ok {
-			h = append(h, c)
+			cs = append(cs, c)
 		}
 	}
-	heap.Init(&h)
+	h := kway.New(byKey, cs...)
 	var n uint64
 	var last string
-	for len(h) > 0 {
-		if n == 0 || h[0].cur != last {
+	for h.Len() > 0 {
+		if n == 0 || h.Top().cur != last {
 			n++
-			last = h[0].cur
+			last = h.Top().cur
 		}
-		if err := h.advance(); err != nil {
+		if err := advanceKeys(h); err != nil {
 			return 0, err
 		}
 	}
@@ -1027,7 +1027,7 @@ func (s *Store) mergeCaseTables(ctx context.Context, set *caseGroupSet, cw *case
 		row cases.Row
 		ok  bool
 	}
-	var parts []*part
+	parts := make([]*part, 0, len(set.Groups))
 	for _, gr := range set.Groups {
 		r, err := s.blobs.Open(ctx, gr.Table)
 		if err != nil {
@@ -1038,24 +1038,25 @@ func (s *Store) mergeCaseTables(ctx context.Context, set *caseGroupSet, cw *case
 		if p.ok, err = readPartRow(p.r, &p.row); err != nil {
 			return err
 		}
-		parts = append(parts, p)
+		if p.ok {
+			parts = append(parts, p)
+		}
 	}
-	for {
-		var best *part
-		for _, p := range parts {
-			if p.ok && (best == nil || p.row.CaseID < best.row.CaseID) {
-				best = p
-			}
-		}
-		if best == nil {
-			return cw.err
-		}
+	h := kway.New(func(a, b *part) bool { return a.row.CaseID < b.row.CaseID }, parts...)
+	for h.Len() > 0 {
+		best := h.Top()
 		cw.add(&best.row)
 		var err error
 		if best.ok, err = readPartRow(best.r, &best.row); err != nil {
 			return err
 		}
+		if best.ok {
+			h.Fix()
+		} else {
+			h.Pop()
+		}
 	}
+	return cw.err
 }
 
 // partWriter is a group's case table part being made: a cases.Observer
@@ -1279,29 +1280,18 @@ func (c *keyCursor) seek(k string) (bool, error) {
 	return c.ok && c.cur == k, nil
 }
 
-type keyHeap []*keyCursor
+func byKey(a, b *keyCursor) bool { return a.cur < b.cur }
 
-func (h keyHeap) Len() int           { return len(h) }
-func (h keyHeap) Less(i, j int) bool { return h[i].cur < h[j].cur }
-func (h keyHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
-func (h *keyHeap) Push(x any)        { *h = append(*h, x.(*keyCursor)) }
-func (h *keyHeap) Pop() any {
-	old := *h
-	r := old[len(old)-1]
-	*h = old[:len(old)-1]
-	return r
-}
-
-// advance moves the top cursor on, dropping it at its end.
-func (h *keyHeap) advance() error {
-	ok, err := (*h)[0].next()
+// advanceKeys moves the top cursor on, dropping it at its end.
+func advanceKeys(h *kway.Heap[*keyCursor]) error {
+	ok, err := h.Top().next()
 	if err != nil {
 		return err
 	}
 	if ok {
-		heap.Fix(h, 0)
+		h.Fix()
 	} else {
-		heap.Pop(h)
+		h.Pop()
 	}
 	return nil
 }

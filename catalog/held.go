@@ -1,7 +1,6 @@
 package catalog
 
 import (
-	"container/heap"
 	"context"
 	"errors"
 	"fmt"
@@ -13,6 +12,7 @@ import (
 	"github.com/parquet-go/parquet-go"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/catalog/internal/kway"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -427,7 +427,7 @@ type heldSource struct {
 	blobs   blob.Store
 	files   []FileEntry
 	pending []int // file indexes by MinTime, not opened yet
-	h       heldHeap
+	h       *kway.Heap[*heldCursor]
 	open    []*heldCursor
 	lo      int64 // events before lo are not wanted any more
 	stats   heldStats
@@ -441,7 +441,7 @@ type heldStats struct {
 }
 
 func newHeldSource(bs blob.Store, files []FileEntry) *heldSource {
-	s := &heldSource{blobs: bs, files: files}
+	s := &heldSource{blobs: bs, files: files, h: kway.New(func(a, b *heldCursor) bool { return a.at < b.at })}
 	for i := range files {
 		s.pending = append(s.pending, i)
 	}
@@ -466,13 +466,13 @@ func (s *heldSource) load(ctx context.Context, lo, hi int64, fn func(*schema.Eve
 				return err
 			}
 			if !c.done {
-				heap.Push(&s.h, c)
+				s.h.Push(c)
 			}
 		}
-		if len(s.h) == 0 {
+		if s.h.Len() == 0 {
 			return nil
 		}
-		c := s.h[0]
+		c := s.h.Top()
 		if c.at > hi {
 			return nil
 		}
@@ -483,10 +483,10 @@ func (s *heldSource) load(ctx context.Context, lo, hi int64, fn func(*schema.Eve
 			return err
 		}
 		if c.done {
-			heap.Pop(&s.h)
+			s.h.Pop()
 			c.close()
 		} else {
-			heap.Fix(&s.h, 0)
+			s.h.Fix()
 		}
 	}
 }
@@ -593,17 +593,4 @@ func (c *heldCursor) close() {
 		c.rd.Close()
 	}
 	c.r.Close()
-}
-
-type heldHeap []*heldCursor
-
-func (h heldHeap) Len() int           { return len(h) }
-func (h heldHeap) Less(i, j int) bool { return h[i].at < h[j].at }
-func (h heldHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
-func (h *heldHeap) Push(x any)        { *h = append(*h, x.(*heldCursor)) }
-func (h *heldHeap) Pop() any {
-	old := *h
-	c := old[len(old)-1]
-	*h = old[:len(old)-1]
-	return c
 }

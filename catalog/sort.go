@@ -2,7 +2,6 @@ package catalog
 
 import (
 	"bufio"
-	"container/heap"
 	"encoding/binary"
 	"errors"
 	"fmt"
@@ -12,6 +11,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/flowcat-catalog/flowcat/catalog/internal/kway"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
@@ -464,7 +464,7 @@ func (s *sorter) merge(runs []*os.File, fn func(*schema.Event) error) error {
 
 // mergeReaders calls fn for the events of sorted runs in order.
 func (s *sorter) mergeReaders(runs []io.Reader, fn func(*schema.Event) error) error {
-	h := make(runHeap, 0, len(runs))
+	rs := make([]*run, 0, len(runs))
 	for _, f := range runs {
 		r := &run{r: newRunReader(f), inter: s.inter, less: s.less}
 		ok, err := r.next()
@@ -472,12 +472,12 @@ func (s *sorter) mergeReaders(runs []io.Reader, fn func(*schema.Event) error) er
 			return err
 		}
 		if ok {
-			h = append(h, r)
+			rs = append(rs, r)
 		}
 	}
-	heap.Init(&h)
-	for len(h) > 0 {
-		r := h[0]
+	h := kway.New(func(a, b *run) bool { return a.less(&a.ev, &b.ev) < 0 }, rs...)
+	for h.Len() > 0 {
+		r := h.Top()
 		if err := fn(&r.ev); err != nil {
 			return err
 		}
@@ -486,9 +486,9 @@ func (s *sorter) mergeReaders(runs []io.Reader, fn func(*schema.Event) error) er
 			return err
 		}
 		if ok {
-			heap.Fix(&h, 0)
+			h.Fix()
 		} else {
-			heap.Pop(&h)
+			h.Pop()
 		}
 	}
 	return nil
@@ -524,19 +524,6 @@ type run struct {
 	ev    schema.Event
 	inter map[string]string
 	tmp   []byte
-}
-
-type runHeap []*run
-
-func (h runHeap) Len() int           { return len(h) }
-func (h runHeap) Less(i, j int) bool { return h[i].less(&h[i].ev, &h[j].ev) < 0 }
-func (h runHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
-func (h *runHeap) Push(x any)        { *h = append(*h, x.(*run)) }
-func (h *runHeap) Pop() any {
-	old := *h
-	r := old[len(old)-1]
-	*h = old[:len(old)-1]
-	return r
 }
 
 // The run format: per event, its record's length as a uvarint, then the

@@ -1,7 +1,6 @@
 package export
 
 import (
-	"container/heap"
 	"context"
 	"errors"
 	"fmt"
@@ -14,6 +13,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
+	"github.com/flowcat-catalog/flowcat/catalog/internal/kway"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -213,7 +213,7 @@ type merge struct {
 	m       *matcher
 	st      *Stats
 	pending []*input // by min, not yet opened
-	h       cursorHeap
+	h       *kway.Heap[*cursor]
 	cur     *cursor // cursor whose head was returned last; advanced on next
 	all     []*cursor
 }
@@ -221,7 +221,8 @@ type merge struct {
 func newMerge(ctx context.Context, ins []*input, m *matcher, st *Stats) *merge {
 	p := slices.Clone(ins)
 	slices.SortStableFunc(p, func(a, b *input) int { return a.min.Compare(b.min) })
-	return &merge{ctx: ctx, m: m, st: st, pending: p}
+	return &merge{ctx: ctx, m: m, st: st, pending: p,
+		h: kway.New(func(a, b *cursor) bool { return Compare(a.head(), b.head()) < 0 })}
 }
 
 // next returns the next event, nil at the end.
@@ -235,14 +236,14 @@ func (s *merge) next() (*schema.Event, error) {
 			return nil, err
 		}
 		if c.done {
-			heap.Pop(&s.h)
+			s.h.Pop()
 			c.close()
 		} else {
-			heap.Fix(&s.h, 0)
+			s.h.Fix()
 		}
 	}
 	// Open every input that may hold an event at or before the head.
-	for len(s.pending) > 0 && (len(s.h) == 0 || (s.pending[0].min.IsZero() || !s.pending[0].min.After(s.h[0].head().OccurredAt))) {
+	for len(s.pending) > 0 && (s.h.Len() == 0 || (s.pending[0].min.IsZero() || !s.pending[0].min.After(s.h.Top().head().OccurredAt))) {
 		in := s.pending[0]
 		s.pending = s.pending[1:]
 		c, err := openCursor(s.ctx, in, s.m, s.st)
@@ -254,12 +255,12 @@ func (s *merge) next() (*schema.Event, error) {
 			c.close()
 			continue
 		}
-		heap.Push(&s.h, c)
+		s.h.Push(c)
 	}
-	if len(s.h) == 0 {
+	if s.h.Len() == 0 {
 		return nil, nil
 	}
-	s.cur = s.h[0]
+	s.cur = s.h.Top()
 	return s.cur.head(), nil
 }
 
@@ -267,19 +268,6 @@ func (s *merge) close() {
 	for _, c := range s.all {
 		c.close()
 	}
-}
-
-type cursorHeap []*cursor
-
-func (h cursorHeap) Len() int           { return len(h) }
-func (h cursorHeap) Less(i, j int) bool { return Compare(h[i].head(), h[j].head()) < 0 }
-func (h cursorHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
-func (h *cursorHeap) Push(x any)        { *h = append(*h, x.(*cursor)) }
-func (h *cursorHeap) Pop() any {
-	old := *h
-	c := old[len(old)-1]
-	*h = old[:len(old)-1]
-	return c
 }
 
 // cursor reads one input's filtered events as runs of equal instants, each

@@ -4,7 +4,6 @@ package tally
 
 import (
 	"bufio"
-	"container/heap"
 	"encoding/binary"
 	"errors"
 	"fmt"
@@ -12,6 +11,8 @@ import (
 	"os"
 	"slices"
 	"strings"
+
+	"github.com/flowcat-catalog/flowcat/catalog/internal/kway"
 )
 
 // spillBuf is the read and write buffer of one run.
@@ -201,23 +202,10 @@ func (r *run) next() (bool, error) {
 	return true, nil
 }
 
-type runHeap []*run
-
-func (h runHeap) Len() int           { return len(h) }
-func (h runHeap) Less(i, j int) bool { return h[i].key < h[j].key }
-func (h runHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
-func (h *runHeap) Push(x any)        { *h = append(*h, x.(*run)) }
-func (h *runHeap) Pop() any {
-	old := *h
-	r := old[len(old)-1]
-	*h = old[:len(old)-1]
-	return r
-}
-
 // merge merges sorted runs of (key, count), calling fn once per distinct
 // key in order with the summed count.
 func merge(runs []string, fn func(string, uint64) error) error {
-	h := make(runHeap, 0, len(runs))
+	rs := make([]*run, 0, len(runs))
 	for _, name := range runs {
 		f, err := os.Open(name)
 		if err != nil {
@@ -230,15 +218,15 @@ func merge(runs []string, fn func(string, uint64) error) error {
 			return err
 		}
 		if ok {
-			h = append(h, r)
+			rs = append(rs, r)
 		}
 	}
-	heap.Init(&h)
+	h := kway.New(func(a, b *run) bool { return a.key < b.key }, rs...)
 	var cur string
 	var sum uint64
 	have := false
-	for len(h) > 0 {
-		r := h[0]
+	for h.Len() > 0 {
+		r := h.Top()
 		if have && r.key != cur {
 			if err := fn(cur, sum); err != nil {
 				return err
@@ -252,9 +240,9 @@ func merge(runs []string, fn func(string, uint64) error) error {
 			return err
 		}
 		if ok {
-			heap.Fix(&h, 0)
+			h.Fix()
 		} else {
-			heap.Pop(&h)
+			h.Pop()
 		}
 	}
 	if have {
