@@ -134,11 +134,79 @@ func (p *versionPass) release() {
 // parent's files being read and sorted again.
 func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, qopt quality.Options, keyID string, table bool, upass *uploadPass, prev *caseGroupSet) (*versionPass, error) {
 	out := &versionPass{fileStates: map[blob.ID][]byte{}}
-	total := summary.New(summaryOptions(ds))
 	excls := make([]*exclusion, len(files))
 	for i, f := range files {
 		excls[i] = s.exclusionOf(ds, f, qopt.UploadedAt)
 	}
+	total, err := s.fileSummaries(ctx, ds, files, fresh, excls, out)
+	if err != nil {
+		return nil, err
+	}
+	var cp *CasePass
+	var mine []cases.Observer
+	var fromUpload blob.ID
+	if upass != nil {
+		// The upload's events are in its pass already, marked.
+		cp, mine = upass.cases, []cases.Observer{upass.acc}
+		if upass.entry != nil {
+			fromUpload = upass.entry.SHA256
+		}
+	} else {
+		cp = NewCasePass(s.opt.TempDir, s.opt.RunEvents)
+		defer cp.Close()
+	}
+	if prof, err := ds.EffectiveProfile(); err == nil {
+		cp.Terminal = prof.Terminal
+		qopt.Terminal = prof.Terminal
+	}
+	var cw *caseTableWriter
+	if table {
+		if cw, err = newCaseTableWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID); err != nil {
+			return nil, err
+		}
+		defer cw.Remove()
+	}
+	var gb *groupBuild
+	if upass != nil && !s.noCaseGroups {
+		if gb, err = s.openGroupBuild(ctx, ds, files, prev, qopt, cp); err != nil {
+			return nil, err
+		}
+		defer gb.close()
+		if gb.prev == nil {
+			gb.table = cw
+		}
+	}
+	for i, f := range files {
+		if f.SHA256 == fromUpload || gb != nil && gb.prev != nil {
+			continue
+		}
+		if err := s.addFile(ctx, f.SHA256, excls[i], cp); err != nil {
+			return nil, err
+		}
+	}
+	if gb != nil {
+		err = s.runGroups(ctx, ds, gb, cp, mine, total, qopt, cw, out)
+	} else {
+		out.cases, err = runFullPass(cp, mine, total, qopt, cw)
+	}
+	if err == nil && cw != nil {
+		err = s.storeCaseTable(ctx, cw, out)
+	}
+	if err == nil {
+		out.summary, err = sealSummary(total)
+	}
+	if err != nil {
+		out.release()
+		return nil, err
+	}
+	return out, nil
+}
+
+// fileSummaries merges the event-level summary states of the files: those
+// made by this commit (fresh) and the stored ones, read or made (and then
+// kept in out.fileStates for storing).
+func (s *Store) fileSummaries(ctx context.Context, ds *Dataset, files []FileEntry, fresh map[blob.ID]*summary.Accumulator, excls []*exclusion, out *versionPass) (*summary.Accumulator, error) {
+	total := summary.New(summaryOptions(ds))
 	for i, f := range files {
 		acc := fresh[f.SHA256]
 		if acc != nil {
@@ -161,129 +229,103 @@ func (s *Store) passVersion(ctx context.Context, ds *Dataset, files []FileEntry,
 			return nil, err
 		}
 	}
-	var cp *CasePass
-	var mine []cases.Observer
-	var fromUpload blob.ID
-	if upass != nil {
-		// The upload's events are in its pass already, marked.
-		cp, mine = upass.cases, []cases.Observer{upass.acc}
-		if upass.entry != nil {
-			fromUpload = upass.entry.SHA256
-		}
-	} else {
-		cp = NewCasePass(s.opt.TempDir, s.opt.RunEvents)
-		defer cp.Close()
+	return total, nil
+}
+
+// openGroupBuild prepares the case groups of the version: extending prev,
+// or, when there is none or its blobs cannot be read, by a full pass.
+func (s *Store) openGroupBuild(ctx context.Context, ds *Dataset, files []FileEntry, prev *caseGroupSet, qopt quality.Options, cp *CasePass) (*groupBuild, error) {
+	var rows int64
+	for _, f := range files {
+		rows += f.Rows
 	}
-	if prof, err := ds.EffectiveProfile(); err == nil {
-		cp.Terminal = prof.Terminal
-		qopt.Terminal = prof.Terminal
+	gb, err := s.newGroupBuild(ctx, ds, prev, qopt, rows, cp)
+	if err != nil && prev != nil {
+		// The parent's groups cannot be read (a blob gone): one full
+		// pass makes the version's groups anew.
+		s.opt.Logger.Warn("case groups unreadable, a full per-case pass instead", "dataset", ds.Ref().String(), "err", err)
+		gb, err = s.newGroupBuild(ctx, ds, nil, qopt, rows, cp)
 	}
-	var cw *caseTableWriter
-	if table {
-		var err error
-		if cw, err = newCaseTableWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID); err != nil {
-			return nil, err
-		}
-		defer cw.Remove()
+	return gb, err
+}
+
+// addFile adds the events of a stored file to the per-case pass, with
+// the exclusion flags of that file.
+func (s *Store) addFile(ctx context.Context, id blob.ID, excl *exclusion, cp *CasePass) error {
+	return s.readFile(ctx, id, func(e *schema.Event) error {
+		// Strings read from Parquet may point into the reader's
+		// buffers; the sort keeps events past the next read.
+		c := *e
+		c.CloneTexts()
+		c.Line = quality.PackLine(c.Line, excl.flags(e))
+		return cp.Add(&c)
+	})
+}
+
+// runGroups computes each case in its group, the version's figures the
+// merge of every group's states; the groups are stored and held (out).
+func (s *Store) runGroups(ctx context.Context, ds *Dataset, gb *groupBuild, cp *CasePass, mine []cases.Observer, total *summary.Accumulator, qopt quality.Options, cw *caseTableWriter, out *versionPass) error {
+	if err := gb.run(cp, mine); err != nil {
+		return err
 	}
-	var gb *groupBuild
-	if upass != nil && !s.noCaseGroups {
-		var rows int64
-		for _, f := range files {
-			rows += f.Rows
-		}
-		var err error
-		gb, err = s.newGroupBuild(ctx, ds, prev, qopt, rows, cp)
-		if err != nil && prev != nil {
-			// The parent's groups cannot be read (a blob gone): one full
-			// pass makes the version's groups anew.
-			s.opt.Logger.Warn("case groups unreadable, a full per-case pass instead", "dataset", ds.Ref().String(), "err", err)
-			gb, err = s.newGroupBuild(ctx, ds, nil, qopt, rows, cp)
-		}
-		if err != nil {
-			return nil, err
-		}
-		defer gb.close()
-		if gb.prev == nil {
-			gb.table = cw
-		}
+	set, rel, err := gb.finish(ctx)
+	if err != nil {
+		return err
 	}
-	for i, f := range files {
-		if f.SHA256 == fromUpload || gb != nil && gb.prev != nil {
-			continue
-		}
-		err := s.readFile(ctx, f.SHA256, func(e *schema.Event) error {
-			// Strings read from Parquet may point into the reader's
-			// buffers; the sort keeps events past the next read.
-			c := *e
-			c.CloneTexts()
-			c.Line = quality.PackLine(c.Line, excls[i].flags(e))
-			return cp.Add(&c)
-		})
-		if err != nil {
-			return nil, err
-		}
+	out.groups = set
+	out.releases = append(out.releases, rel...)
+	if gb.table != nil {
+		cw = nil // written as the cases passed
 	}
-	if gb != nil {
-		// Each case's computation in its group, the version's figures the
-		// merge of every group's states.
-		if err := gb.run(cp, mine); err != nil {
-			return nil, err
-		}
-		set, rel, err := gb.finish(ctx)
-		if err != nil {
-			return nil, err
-		}
-		out.groups = set
-		out.releases = append(out.releases, rel...)
-		merge := cw
-		if gb.table != nil {
-			merge = nil // written as the cases passed
-		}
-		if out.cases, err = s.groupFigures(ctx, ds, set, total, qopt, merge); err != nil {
-			out.release()
-			return nil, err
-		}
-	} else {
-		qacc := quality.NewAccumulator(qopt)
-		obs := []cases.Observer{qacc}
-		pv := total.NewProcess()
-		total.SetProcess(pv)
-		cp.Kept = []cases.Observer{total, pv}
-		if cw != nil {
-			obs = append(obs, cw)
-		}
-		counts, err := cp.RunSplit(obs, mine)
-		if err != nil {
-			return nil, err
-		}
-		total.SetCounts(counts)
-		out.cases = qacc.Report()
-	}
+	out.cases, err = s.groupFigures(ctx, ds, set, total, qopt, cw)
+	return err
+}
+
+// runFullPass computes every case in one pass, without groups, and
+// returns the case-level quality report.
+func runFullPass(cp *CasePass, mine []cases.Observer, total *summary.Accumulator, qopt quality.Options, cw *caseTableWriter) (*quality.Report, error) {
+	qacc := quality.NewAccumulator(qopt)
+	obs := []cases.Observer{qacc}
+	pv := total.NewProcess()
+	total.SetProcess(pv)
+	cp.Kept = []cases.Observer{total, pv}
 	if cw != nil {
-		e, err := cw.Finish()
-		if err != nil {
-			return nil, err
-		}
-		out.releases = append(out.releases, s.hold(e.SHA256))
-		if err := s.putTemp(ctx, e.SHA256, cw.f); err != nil {
-			out.release()
-			return nil, fmt.Errorf("case table: %w", err)
-		}
-		out.table = e
+		obs = append(obs, cw)
 	}
+	counts, err := cp.RunSplit(obs, mine)
+	if err != nil {
+		return nil, err
+	}
+	total.SetCounts(counts)
+	return qacc.Report(), nil
+}
+
+// storeCaseTable completes the case table and puts it in the blob store,
+// held until out is released.
+func (s *Store) storeCaseTable(ctx context.Context, cw *caseTableWriter, out *versionPass) error {
+	e, err := cw.Finish()
+	if err != nil {
+		return err
+	}
+	out.releases = append(out.releases, s.hold(e.SHA256))
+	if err := s.putTemp(ctx, e.SHA256, cw.f); err != nil {
+		return fmt.Errorf("case table: %w", err)
+	}
+	out.table = e
+	return nil
+}
+
+// sealSummary is the version's summary: its state and its JSON.
+func sealSummary(total *summary.Accumulator) (*versionSummary, error) {
 	state, err := total.MarshalBinary()
 	if err != nil {
-		out.release()
 		return nil, err
 	}
 	js, err := json.Marshal(total.Summary())
 	if err != nil {
-		out.release()
 		return nil, fmt.Errorf("summary: %w", err)
 	}
-	out.summary = &versionSummary{State: state, JSON: js}
-	return out, nil
+	return &versionSummary{State: state, JSON: js}, nil
 }
 
 // exclusion says which events of one file summaries leave out: those
