@@ -17,9 +17,12 @@ import (
 const runBlock = 64 << 10
 
 // newRunWriter returns a writer of the framing over w; its Close writes
-// what it buffers (it does not close w).
+// what it buffers (it does not close w). Blocks are compressed and
+// written to w on two goroutines of the writer's own, so the caller's
+// goroutine only encodes: a write error comes back from a later Write or
+// from Close. It holds at most a few blocks.
 func newRunWriter(w io.Writer) *s2.Writer {
-	return s2.NewWriter(w, s2.WriterBlockSize(runBlock), s2.WriterConcurrency(1))
+	return s2.NewWriter(w, s2.WriterBlockSize(runBlock), s2.WriterConcurrency(2))
 }
 
 // newRunReader returns a buffered reader of the events framed in r.
