@@ -15,6 +15,7 @@ require (
 	github.com/itchyny/timefmt-go v0.1.9
 	github.com/johannesboyne/gofakes3 v1.2.0
 	github.com/klauspost/compress v1.20.1
+	github.com/klauspost/readahead v1.4.0
 	github.com/labstack/echo/v4 v4.16.0
 	github.com/mattn/go-isatty v0.0.24
 	github.com/minio/minio-go/v7 v7.4.1

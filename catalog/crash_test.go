@@ -172,8 +172,12 @@ func TestCrashWhileReading(t *testing.T) {
 		cmd.Process.Kill()
 		t.Fatal("child never stalled")
 	}
-	// Runs of 500 events have spilled by now; kill without warning.
-	runs, _ := filepath.Glob(filepath.Join(e.tmp, "run-*"))
+	// The body was read ahead of the parser: wait for the runs of 500
+	// events to spill, then kill without warning.
+	var runs []string
+	for deadline := time.Now().Add(20 * time.Second); len(runs) == 0 && time.Now().Before(deadline); time.Sleep(10 * time.Millisecond) {
+		runs, _ = filepath.Glob(filepath.Join(e.tmp, "run-*"))
+	}
 	if len(runs) == 0 {
 		t.Error("no sort run had spilled: the test would not cover spilled runs")
 	}

@@ -21,6 +21,7 @@ import (
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/schema/cases"
+	"github.com/klauspost/readahead"
 )
 
 // IngestOptions describe one upload.
@@ -270,7 +271,13 @@ func (in *ingest) start(ctx context.Context, project, dataset string) error {
 // the upload's bytes. A file that cannot be read ends the upload.
 func (in *ingest) read(ctx context.Context, src io.Reader) (*IngestResult, error) {
 	s, up := in.s, in.up
-	tee := io.TeeReader(src, in.raw)
+	// The upload's bytes are read (and hashed) ahead of the parser, on a
+	// goroutine of their own, a few buffers at most.
+	tee, err := readahead.NewReaderSize(io.TeeReader(src, in.raw), readAheadBuffers, readAheadSize)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	in.onDone(func() { tee.Close() })
 	in.opt.attrs = newAttrIngest(s.opt.TempDir, in.prof, in.pz)
 	in.onDone(in.opt.attrs.close)
 	rd, err := schema.NewReader(tee, in.prof, schema.ReaderOptions{Name: up.Filename, Limits: s.opt.Limits})
@@ -280,8 +287,9 @@ func (in *ingest) read(ctx context.Context, src io.Reader) (*IngestResult, error
 	if err != nil && !(removing(in.opt) && isNoRows(err)) {
 		return in.fail(ctx, err)
 	}
-	// Hash any bytes the parser did not need (a gzip trailer, say).
-	if _, err := io.Copy(io.Discard, tee); err != nil {
+	// Hash any bytes the parser did not need (a gzip trailer, say). By
+	// Read: the read-ahead's WriteTo answers io.EOF once at the end.
+	if _, err := io.Copy(io.Discard, struct{ io.Reader }{tee}); err != nil {
 		return in.fail(ctx, &schema.FileError{Rule: schema.RuleRead, Msg: "reading the upload failed", Err: err})
 	}
 	up.Bytes = in.raw.n
@@ -291,6 +299,12 @@ func (in *ingest) read(ctx context.Context, src io.Reader) (*IngestResult, error
 	}
 	return nil, nil
 }
+
+// The read-ahead of an upload's bytes: buffers of readAheadSize.
+const (
+	readAheadBuffers = 4
+	readAheadSize    = 128 << 10
+)
 
 // fail ends an upload whose reading failed: one whose file is at fault is
 // recorded as failed here, with the file's error.
