@@ -359,12 +359,13 @@ var errMergeStopped = errors.New("sort: merge stopped")
 
 // mergeAhead is merge with the reading, decoding and ordering of runs on
 // another goroutine, handed over in batches of events, so that it overlaps
-// with fn's work on two cores. It holds three batches of mergeBatch events.
+// with fn's work on two cores. It holds eight batches of mergeBatch events:
+// deep enough that neither side waits on the other's bursts.
 func (s *sorter) mergeAhead(runs []io.Reader, fn func(*schema.Event) error) error {
-	const mergeBatch = 512
-	full := make(chan []schema.Event, 2)
-	free := make(chan []schema.Event, 3)
-	for range 3 {
+	const mergeBatch, batches = 512, 8
+	full := make(chan []schema.Event, batches-1)
+	free := make(chan []schema.Event, batches)
+	for range batches {
 		free <- make([]schema.Event, 0, mergeBatch)
 	}
 	stop := make(chan struct{})
