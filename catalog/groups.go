@@ -2,6 +2,7 @@ package catalog
 
 import (
 	"bufio"
+	"cmp"
 	"context"
 	"crypto/sha256"
 	"encoding/binary"
@@ -439,7 +440,7 @@ func (g *groupBuild) findTouched() error {
 				idx = append(idx, i)
 			}
 		}
-		slices.SortStableFunc(idx, func(a, b int) int { return cmpInt(g.prev.Groups[a].Count, g.prev.Groups[b].Count) })
+		slices.SortStableFunc(idx, func(a, b int) int { return cmp.Compare(g.prev.Groups[a].Count, g.prev.Groups[b].Count) })
 		for _, i := range idx {
 			if count <= maxGroups/2 {
 				break

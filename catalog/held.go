@@ -1,6 +1,7 @@
 package catalog
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
@@ -244,7 +245,7 @@ func (f *heldFilter) refusal() *UploadError {
 		}
 		samples, n, rule = f.changes, f.counts.Changed, RuleChangedEvent
 	}
-	slices.SortFunc(samples, func(a, b changeSample) int { return cmpInt(a.line, b.line) })
+	slices.SortFunc(samples, func(a, b changeSample) int { return cmp.Compare(a.line, b.line) })
 	first := samples[0]
 	var msg string
 	if rule == RuleConflictingEvent {

@@ -2,6 +2,7 @@ package catalog
 
 import (
 	"bufio"
+	"cmp"
 	"encoding/binary"
 	"errors"
 	"fmt"
@@ -162,15 +163,15 @@ type sortKey struct {
 func cmpKey(a, b sortKey) int {
 	switch {
 	case a.sec != b.sec:
-		return cmpInt(a.sec, b.sec)
+		return cmp.Compare(a.sec, b.sec)
 	case a.nsec != b.nsec:
-		return cmpInt(int64(a.nsec), int64(b.nsec))
+		return cmp.Compare(a.nsec, b.nsec)
 	case a.rank != b.rank:
 		return int(a.rank) - int(b.rank)
 	case a.line != b.line:
-		return cmpInt(a.line, b.line)
+		return cmp.Compare(a.line, b.line)
 	}
-	return cmpInt(int64(a.idx), int64(b.idx))
+	return cmp.Compare(a.idx, b.idx)
 }
 
 // prefix8 is s's first 8 bytes as a big-endian number, zero-padded: two
@@ -179,26 +180,6 @@ func prefix8(s string) uint64 {
 	var b [8]byte
 	copy(b[:], s)
 	return binary.BigEndian.Uint64(b[:])
-}
-
-func cmpUint(a, b uint64) int {
-	if a < b {
-		return -1
-	}
-	if a > b {
-		return 1
-	}
-	return 0
-}
-
-func cmpInt(a, b int64) int {
-	if a < b {
-		return -1
-	}
-	if a > b {
-		return 1
-	}
-	return 0
 }
 
 // spillWork is the scratch space of one sort of a buffer.
@@ -221,16 +202,16 @@ func (s *sorter) orderOf(buf []schema.Event, w *spillWork) []sortKey {
 		}
 		slices.SortFunc(ck, func(a, b caseKey) int {
 			if a.pre != b.pre {
-				return cmpUint(a.pre, b.pre)
+				return cmp.Compare(a.pre, b.pre)
 			}
 			if c := strings.Compare(a.id, b.id); c != 0 {
 				return c
 			}
 			if a.sec != b.sec {
-				return cmpInt(a.sec, b.sec)
+				return cmp.Compare(a.sec, b.sec)
 			}
 			if a.nsec != b.nsec {
-				return cmpInt(int64(a.nsec), int64(b.nsec))
+				return cmp.Compare(a.nsec, b.nsec)
 			}
 			if a.rank != b.rank {
 				return int(a.rank) - int(b.rank)
@@ -238,7 +219,7 @@ func (s *sorter) orderOf(buf []schema.Event, w *spillWork) []sortKey {
 			if c := cases.Less(&buf[a.idx], &buf[b.idx]); c != 0 {
 				return c
 			}
-			return cmpInt(int64(a.idx), int64(b.idx))
+			return cmp.Compare(a.idx, b.idx)
 		})
 		for _, k := range ck {
 			w.keys = append(w.keys, sortKey{idx: k.idx})
@@ -592,14 +573,14 @@ func (c *record) uvarint() uint64 {
 	return v
 }
 
+// varint reads a zig-zag varint (binary.AppendVarint's form).
 func (c *record) varint() int64 {
-	v, n := binary.Varint(c.b)
-	if n <= 0 {
-		c.bad, c.b = true, nil
-		return 0
+	u := c.uvarint()
+	x := int64(u >> 1)
+	if u&1 != 0 {
+		x = ^x
 	}
-	c.b = c.b[n:]
-	return v
+	return x
 }
 
 // bytes returns the next string's bytes, valid until the record's buffer

@@ -2,6 +2,7 @@ package catalog
 
 import (
 	"bytes"
+	"cmp"
 	"context"
 	"errors"
 	"io"
@@ -259,7 +260,7 @@ func TestPrefix8Order(t *testing.T) {
 			continue
 		}
 		decided++
-		if got, want := cmpUint(pa, pb), strings.Compare(a, b); got != want {
+		if got, want := cmp.Compare(pa, pb), strings.Compare(a, b); got != want {
 			t.Fatalf("%q vs %q: prefixes order %d, strings %d", a, b, got, want)
 		}
 	}
