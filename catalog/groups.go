@@ -310,8 +310,10 @@ type groupBuild struct {
 
 	// table, in a full pass, is the version's case table, written as the
 	// cases pass: the groups then come one after another in case order,
-	// which is the table's.
+	// which is the table's. own, in a full pass over the upload's events
+	// alone, are the upload's own per-case observers, fed the same way.
 	table *caseTableWriter
+	own   []cases.Observer
 
 	fresh   *groupWriter // the upload's cases (incremental), the current chunk (full)
 	done    []*groupWriter
@@ -486,6 +488,7 @@ func (g *groupBuild) newWriter() (*groupWriter, error) {
 	if g.table != nil {
 		extra = append(extra, g.table)
 	}
+	extra = append(extra, g.own...)
 	w, err := newGroupWriter(g.s.opt.TempDir, g.qopt, summaryOptions(g.ds), g.terminal, extra...)
 	if err != nil {
 		return nil, err
@@ -529,8 +532,8 @@ func (g *groupBuild) destFor(key string) (*groupWriter, error) {
 	if g.prev == nil {
 		if g.fresh == nil || g.fresh.count >= g.chunk {
 			if g.fresh != nil {
-				// Its last case to the case table before the next
-				// group's first.
+				// Its last case to the case table (and the upload's own
+				// observers) before the next group's first.
 				g.fresh.all.Flush()
 			}
 			w, err := g.newWriter()
