@@ -278,6 +278,10 @@ func (in *ingest) read(ctx context.Context, src io.Reader) (*IngestResult, error
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	in.onDone(func() { tee.Close() })
+	fail := func(err error) (*IngestResult, error) {
+		tee.Close() // the read-ahead stops before its bytes are counted
+		return in.fail(ctx, err)
+	}
 	in.opt.attrs = newAttrIngest(s.opt.TempDir, in.prof, in.pz)
 	in.onDone(in.opt.attrs.close)
 	rd, err := schema.NewReader(tee, in.prof, schema.ReaderOptions{Name: up.Filename, Limits: s.opt.Limits})
@@ -285,12 +289,12 @@ func (in *ingest) read(ctx context.Context, src io.Reader) (*IngestResult, error
 		err = readAll(ctx, rd, in.pz, in.acc, in.srt, in.opt.attrs)
 	}
 	if err != nil && !(removing(in.opt) && isNoRows(err)) {
-		return in.fail(ctx, err)
+		return fail(err)
 	}
 	// Hash any bytes the parser did not need (a gzip trailer, say). By
 	// Read: the read-ahead's WriteTo answers io.EOF once at the end.
 	if _, err := io.Copy(io.Discard, struct{ io.Reader }{tee}); err != nil {
-		return in.fail(ctx, &schema.FileError{Rule: schema.RuleRead, Msg: "reading the upload failed", Err: err})
+		return fail(&schema.FileError{Rule: schema.RuleRead, Msg: "reading the upload failed", Err: err})
 	}
 	up.Bytes = in.raw.n
 	up.SHA256 = hex.EncodeToString(in.raw.h.Sum(nil))
