@@ -338,11 +338,80 @@ func (s *Store) caseAttributes(ctx context.Context, ds *Dataset, parent *Version
 	if err != nil {
 		return nil, err
 	}
-	pol := proj.DisclosurePolicy()
 	attrs := ai.attrs
 	cols := attributeColumns(attrs)
-	join := disclosure.NewCounter(s.opt.TempDir, attrMemory)
+	var en []string // event-level sensitive attributes
+	for _, a := range ai.events {
+		if a.Role == schema.RoleSensitive {
+			en = append(en, a.Name)
+		}
+	}
+	join, err := s.joinAttributes(ctx, parent, files, caseTable, ai, mode, cols, en)
+	if err != nil {
+		return nil, err
+	}
 	defer join.Close()
+	an := newAttrAnalysis(attrs, en, proj.DisclosurePolicy(), join, len(cols), s.opt.TempDir)
+	var small map[string]bool
+	if an.pol.Suppress && len(an.quasi) > 0 {
+		// A first pass finds the classes below k; the second writes.
+		_, _, err := an.run(nil, nil)
+		var sn *suppressNeeded
+		if errors.As(err, &sn) {
+			small = sn.small
+		} else if err != nil {
+			return nil, err
+		}
+	}
+	tw, err := newAttrTableWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID, attrs)
+	if err != nil {
+		return nil, err
+	}
+	defer tw.remove()
+	if small == nil {
+		small = map[string]bool{}
+	}
+	rep, sup, err := an.run(small, tw.write)
+	if err != nil {
+		return nil, err
+	}
+	if len(an.quasi) == 0 {
+		rep.AboveThreshold = false // nothing identifies: no classes to speak of
+	}
+	table, err := tw.finish()
+	if err != nil {
+		return nil, err
+	}
+	table.Columns = cols
+	js, err := json.Marshal(rep)
+	if err != nil {
+		return nil, fmt.Errorf("disclosure: %w", err)
+	}
+	sum := sha256.Sum256(js)
+	out := &versionAttrs{table: table, report: js, sup: sup,
+		ref: &DisclosureRef{SHA256: blob.ID(sum), Bytes: int64(len(js)), MaxRisk: rep.Risk.Max, AboveThreshold: rep.AboveThreshold}}
+	if len(an.quasi) == 0 {
+		out.ref.MaxRisk = 0
+	}
+	out.release = s.hold(table.SHA256)
+	if err := s.putTemp(ctx, table.SHA256, tw.f); err != nil {
+		out.release()
+		return nil, fmt.Errorf("case attributes: %w", err)
+	}
+	return out, nil
+}
+
+// joinAttributes gathers, in one spilling counter keyed by case, what the
+// version knows of its cases' attributes: every case of its case table,
+// the parent's attribute table (unless replaced), the upload's rows, and
+// the event-level sensitive values of en from its files.
+func (s *Store) joinAttributes(ctx context.Context, parent *Version, files []FileEntry, caseTable *CaseTableEntry, ai *attrIngest, mode Mode, cols []AttributeColumn, en []string) (join *disclosure.Counter, err error) {
+	join = disclosure.NewCounter(s.opt.TempDir, attrMemory)
+	defer func() {
+		if err != nil {
+			join.Close()
+		}
+	}()
 	var key []byte
 	r, err := s.blobs.Open(ctx, caseTable.SHA256)
 	if err != nil {
@@ -371,123 +440,89 @@ func (s *Store) caseAttributes(ctx context.Context, ds *Dataset, parent *Version
 			return nil, err
 		}
 	}
-	err = ai.rows.Each(func(k string, _ uint64) error { return join.Add(k, 1) })
-	if err != nil {
+	if err := ai.rows.Each(func(k string, _ uint64) error { return join.Add(k, 1) }); err != nil {
 		return nil, err
-	}
-	var en []string // event-level sensitive attributes
-	for _, a := range ai.events {
-		if a.Role == schema.RoleSensitive {
-			en = append(en, a.Name)
-		}
 	}
 	if err := s.eventSensitive(ctx, files, en, join); err != nil {
 		return nil, err
 	}
+	return join, nil
+}
 
-	var quasi, sens []int
-	var qn, sn []string
-	for i, a := range attrs {
-		switch a.Role {
+// attrAnalysis is the disclosure analysis of a version's cases, read from
+// the join: the attributes' roles, and the project's policy.
+type attrAnalysis struct {
+	pol         DisclosurePolicy
+	join        *disclosure.Counter
+	ncols       int
+	dir         string
+	quasi, sens []int    // indexes into the attributes
+	qn, sn, en  []string // names: quasi-identifiers, sensitive, event-level sensitive
+}
+
+func newAttrAnalysis(attrs []schema.Attribute, en []string, pol DisclosurePolicy, join *disclosure.Counter, ncols int, dir string) *attrAnalysis {
+	a := &attrAnalysis{pol: pol, join: join, ncols: ncols, dir: dir, en: en}
+	for i, at := range attrs {
+		switch at.Role {
 		case schema.RoleQuasi:
-			quasi, qn = append(quasi, i), append(qn, a.Name)
+			a.quasi, a.qn = append(a.quasi, i), append(a.qn, at.Name)
 		case schema.RoleSensitive:
-			sens, sn = append(sens, i), append(sn, a.Name)
+			a.sens, a.sn = append(a.sens, i), append(a.sn, at.Name)
 		}
 	}
-	analyze := func(small map[string]bool, write func(caseID string, vals []string) error) (*disclosure.Report, int64, error) {
-		an := disclosure.New(disclosure.Options{Quasi: qn, Sensitive: sn, EventSensitive: en, K: pol.K, MaxRisk: pol.MaxRisk, Dir: s.opt.TempDir, Memory: 4 * attrMemory})
-		defer an.Close()
-		q, sv := make([]string, len(quasi)), make([]string, len(sens))
-		var conflicts, suppressed int64
-		err := eachCase(join, len(cols), len(en), func(caseID string, vals []string, events [][]string, conflict bool) error {
-			if conflict {
-				conflicts++
+	return a
+}
+
+// run analyses every case, blanking the quasi-identifiers of the cases in
+// the small classes (nil: none) and handing each case's values to write
+// (nil: none). With suppression asked for and small nil, classes below k
+// end the run with a *suppressNeeded that lists them.
+func (a *attrAnalysis) run(small map[string]bool, write func(caseID string, vals []string) error) (*disclosure.Report, int64, error) {
+	pol := a.pol
+	an := disclosure.New(disclosure.Options{Quasi: a.qn, Sensitive: a.sn, EventSensitive: a.en, K: pol.K, MaxRisk: pol.MaxRisk, Dir: a.dir, Memory: 4 * attrMemory})
+	defer an.Close()
+	q, sv := make([]string, len(a.quasi)), make([]string, len(a.sens))
+	var conflicts, suppressed int64
+	err := eachCase(a.join, a.ncols, len(a.en), func(caseID string, vals []string, events [][]string, conflict bool) error {
+		if conflict {
+			conflicts++
+		}
+		for j, i := range a.quasi {
+			q[j] = vals[i]
+		}
+		if small != nil && small[disclosure.ClassKey(q)] {
+			suppressed++
+			for j, i := range a.quasi {
+				vals[i], q[j] = "", ""
 			}
-			for j, i := range quasi {
-				q[j] = vals[i]
+		}
+		for j, i := range a.sens {
+			sv[j] = vals[i]
+		}
+		if write != nil {
+			if err := write(caseID, vals); err != nil {
+				return err
 			}
-			if small != nil && small[disclosure.ClassKey(q)] {
-				suppressed++
-				for j, i := range quasi {
-					vals[i], q[j] = "", ""
-				}
-			}
-			for j, i := range sens {
-				sv[j] = vals[i]
-			}
-			if write != nil {
-				if err := write(caseID, vals); err != nil {
-					return err
-				}
-			}
-			return an.AddCase(q, sv, events)
-		})
+		}
+		return an.AddCase(q, sv, events)
+	})
+	if err != nil {
+		return nil, 0, err
+	}
+	rep, err := an.Report()
+	if err != nil {
+		return nil, 0, err
+	}
+	rep.Conflicts = conflicts
+	rep.Suppressed = suppressed
+	if pol.Suppress && small == nil && rep.BelowK.Cases > 0 {
+		sm, err := an.SmallClasses(maxSuppressClasses)
 		if err != nil {
 			return nil, 0, err
 		}
-		rep, err := an.Report()
-		if err != nil {
-			return nil, 0, err
-		}
-		rep.Conflicts = conflicts
-		rep.Suppressed = suppressed
-		if pol.Suppress && small == nil && rep.BelowK.Cases > 0 {
-			sm, err := an.SmallClasses(maxSuppressClasses)
-			if err != nil {
-				return nil, 0, err
-			}
-			return rep, 0, &suppressNeeded{small: sm}
-		}
-		return rep, suppressed, nil
+		return rep, 0, &suppressNeeded{small: sm}
 	}
-	var small map[string]bool
-	if pol.Suppress && len(quasi) > 0 {
-		// A first pass finds the classes below k; the second writes.
-		_, _, err := analyze(nil, nil)
-		var sn *suppressNeeded
-		if errors.As(err, &sn) {
-			small = sn.small
-		} else if err != nil {
-			return nil, err
-		}
-	}
-	tw, err := newAttrTableWriter(s.opt.TempDir, s.opt.RowGroupRows, keyID, attrs)
-	if err != nil {
-		return nil, err
-	}
-	defer tw.remove()
-	if small == nil {
-		small = map[string]bool{}
-	}
-	rep, sup, err := analyze(small, tw.write)
-	if err != nil {
-		return nil, err
-	}
-	if len(quasi) == 0 {
-		rep.AboveThreshold = false // nothing identifies: no classes to speak of
-	}
-	table, err := tw.finish()
-	if err != nil {
-		return nil, err
-	}
-	table.Columns = cols
-	js, err := json.Marshal(rep)
-	if err != nil {
-		return nil, fmt.Errorf("disclosure: %w", err)
-	}
-	sum := sha256.Sum256(js)
-	out := &versionAttrs{table: table, report: js, sup: sup,
-		ref: &DisclosureRef{SHA256: blob.ID(sum), Bytes: int64(len(js)), MaxRisk: rep.Risk.Max, AboveThreshold: rep.AboveThreshold}}
-	if len(quasi) == 0 {
-		out.ref.MaxRisk = 0
-	}
-	out.release = s.hold(table.SHA256)
-	if err := s.putTemp(ctx, table.SHA256, tw.f); err != nil {
-		out.release()
-		return nil, fmt.Errorf("case attributes: %w", err)
-	}
-	return out, nil
+	return rep, suppressed, nil
 }
 
 // maxSuppressClasses bounds the classes below k that suppression holds in
