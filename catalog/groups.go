@@ -907,6 +907,7 @@ func (w *groupWriter) remove() {
 		return
 	}
 	w.removed = true
+	w.evw.Close() // its goroutines end (closed already after finish)
 	w.ev.Close()
 	w.keys.Close()
 	os.Remove(w.ev.Name())

@@ -286,6 +286,7 @@ func (s *sorter) writeRun(f *os.File, buf []schema.Event, wk *spillWork) error {
 	for _, k := range s.orderOf(buf, wk) {
 		wk.enc = encodeEvent(wk.enc[:0], &buf[k.idx])
 		if _, err := w.Write(wk.enc); err != nil {
+			w.Close() // its goroutines end
 			return fmt.Errorf("sort: %w", err)
 		}
 	}
@@ -416,11 +417,11 @@ func (s *sorter) mergeOldest() error {
 		}
 		return nil
 	})
+	if cerr := w.Close(); err == nil && cerr != nil {
+		err = fmt.Errorf("sort: %w", cerr)
+	}
 	if err != nil {
 		return err
-	}
-	if err := w.Close(); err != nil {
-		return fmt.Errorf("sort: %w", err)
 	}
 	for _, g := range s.runs[:s.fanIn] {
 		g.Close()

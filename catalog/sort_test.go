@@ -5,10 +5,12 @@ import (
 	"cmp"
 	"context"
 	"errors"
+	"fmt"
 	"io"
 	"math/rand/v2"
 	"os"
 	"reflect"
+	"runtime"
 	"slices"
 	"strings"
 	"testing"
@@ -336,5 +338,32 @@ func TestRunRecords(t *testing.T) {
 	long := append([]byte{one[0] + 1}, append(one[1:], 0)...) // one byte the fields do not use
 	if _, err := read(plain(long)); !errors.Is(err, errRunRecord) {
 		t.Errorf("a record longer than its fields: %v, want errRunRecord", err)
+	}
+}
+
+// TestRunWriteFailureEndsGoroutines: a run that cannot be written (its
+// file closed under it) fails, and the framing's goroutines end with it.
+func TestRunWriteFailureEndsGoroutines(t *testing.T) {
+	before := runtime.NumGoroutine()
+	s := newSorter(t.TempDir(), 1<<20)
+	f, err := os.CreateTemp(t.TempDir(), "run-*")
+	if err != nil {
+		t.Fatal(err)
+	}
+	f.Close()
+	buf := make([]schema.Event, 5000)
+	for i := range buf {
+		buf[i] = schema.Event{Site: "north", CaseID: fmt.Sprintf("case-%06d", i), Type: schema.Arrival,
+			OccurredAt: time.Unix(int64(i), 0).UTC(), Line: int64(i + 2), Attrs: strings.Repeat("x", 40)}
+	}
+	if err := s.writeRun(f, buf, &s.work); err == nil {
+		t.Fatal("writing a run to a closed file succeeded")
+	}
+	deadline := time.Now().Add(5 * time.Second)
+	for runtime.NumGoroutine() > before && time.Now().Before(deadline) {
+		time.Sleep(10 * time.Millisecond)
+	}
+	if n := runtime.NumGoroutine(); n > before {
+		t.Errorf("%d goroutines after a failed run, %d before", n, before)
 	}
 }
