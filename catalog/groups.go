@@ -415,7 +415,7 @@ func (g *groupBuild) findTouched() error {
 		}
 		u := g.upKeys.cur
 		for h.Len() > 0 && h.Top().cur < u {
-			if err := advanceKeys(h); err != nil {
+			if err := h.Advance((*keyCursor).next); err != nil {
 				return err
 			}
 		}
@@ -1017,7 +1017,7 @@ func (s *Store) distinctAcross(ctx context.Context, set *caseGroupSet, file func
 			n++
 			last = h.Top().cur
 		}
-		if err := advanceKeys(h); err != nil {
+		if err := h.Advance((*keyCursor).next); err != nil {
 			return 0, err
 		}
 	}
@@ -1286,17 +1286,3 @@ func (c *keyCursor) seek(k string) (bool, error) {
 }
 
 func byKey(a, b *keyCursor) bool { return a.cur < b.cur }
-
-// advanceKeys moves the top cursor on, dropping it at its end.
-func advanceKeys(h *kway.Heap[*keyCursor]) error {
-	ok, err := h.Top().next()
-	if err != nil {
-		return err
-	}
-	if ok {
-		h.Fix()
-	} else {
-		h.Pop()
-	}
-	return nil
-}

@@ -460,18 +460,11 @@ func (s *sorter) mergeReaders(runs []io.Reader, fn func(*schema.Event) error) er
 	}
 	h := kway.New(func(a, b *run) bool { return a.less(&a.ev, &b.ev) < 0 }, rs...)
 	for h.Len() > 0 {
-		r := h.Top()
-		if err := fn(&r.ev); err != nil {
+		if err := fn(&h.Top().ev); err != nil {
 			return err
 		}
-		ok, err := r.next()
-		if err != nil {
+		if err := h.Advance((*run).next); err != nil {
 			return err
-		}
-		if ok {
-			h.Fix()
-		} else {
-			h.Pop()
 		}
 	}
 	return nil

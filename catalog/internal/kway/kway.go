@@ -33,6 +33,22 @@ func (k *Heap[C]) Fix() { heap.Fix(&k.h, 0) }
 // Pop removes the Top cursor (spent) and returns it.
 func (k *Heap[C]) Pop() C { return heap.Pop(&k.h).(C) }
 
+// Advance moves the Top cursor on by next, which reports whether the
+// cursor has an item still, and restores the order: Fix, or Pop once the
+// cursor is spent.
+func (k *Heap[C]) Advance(next func(C) (bool, error)) error {
+	ok, err := next(k.Top())
+	if err != nil {
+		return err
+	}
+	if ok {
+		k.Fix()
+	} else {
+		k.Pop()
+	}
+	return nil
+}
+
 // Push adds a cursor.
 func (k *Heap[C]) Push(c C) { heap.Push(&k.h, c) }
 

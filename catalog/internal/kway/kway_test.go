@@ -1,6 +1,7 @@
 package kway
 
 import (
+	"errors"
 	"math/rand/v2"
 	"slices"
 	"testing"
@@ -14,13 +15,11 @@ func byHead(a, b *cursor) bool { return a.s[0] < b.s[0] }
 func drain(h *Heap[*cursor], each func(got []int)) []int {
 	var got []int
 	for h.Len() > 0 {
-		c := h.Top()
-		got = append(got, c.s[0])
-		if c.s = c.s[1:]; len(c.s) == 0 {
-			h.Pop()
-		} else {
-			h.Fix()
-		}
+		got = append(got, h.Top().s[0])
+		h.Advance(func(c *cursor) (bool, error) {
+			c.s = c.s[1:]
+			return len(c.s) > 0, nil
+		})
 		if each != nil {
 			each(got)
 		}
@@ -67,5 +66,18 @@ func TestMergeSorted(t *testing.T) {
 		if !slices.Equal(got, all) {
 			t.Fatalf("round %d: merged %v\nwant %v", round, got, all)
 		}
+	}
+}
+
+// TestAdvanceError: a cursor that fails to advance ends the merge with its
+// error, the heap left as it was.
+func TestAdvanceError(t *testing.T) {
+	boom := errors.New("a damaged run")
+	h := New(byHead, &cursor{s: []int{1, 2}}, &cursor{s: []int{3}})
+	if err := h.Advance(func(*cursor) (bool, error) { return false, boom }); err != boom {
+		t.Fatalf("Advance: %v, want the cursor's error", err)
+	}
+	if h.Len() != 2 || h.Top().s[0] != 1 {
+		t.Fatalf("heap changed by a failed advance: %d cursors, top %v", h.Len(), h.Top().s)
 	}
 }

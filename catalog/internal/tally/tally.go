@@ -235,14 +235,8 @@ func merge(runs []string, fn func(string, uint64) error) error {
 		}
 		cur, have = r.key, true
 		sum += r.n
-		ok, err := r.next()
-		if err != nil {
+		if err := h.Advance((*run).next); err != nil {
 			return err
-		}
-		if ok {
-			h.Fix()
-		} else {
-			h.Pop()
 		}
 	}
 	if have {
