@@ -21,9 +21,11 @@ type FieldSpec struct {
 	Type       string // the data dictionary's type column
 	Doc        string // the data dictionary's description
 
-	// JSONSchema is the property's members in the published JSON Schema
-	// document, one per line, in order (JSONSchema indents them).
-	JSONSchema string
+	// Desc is the property's description in the published JSON Schema
+	// document. Its other members follow from the field: every property is
+	// a string; occurred_at has the date-time format, event_type the enum of
+	// EventTypes, and any other required field a minimum length of 1.
+	Desc string
 
 	// off is the offset in Event of a text field (a string, or a type
 	// whose underlying type is string); text is false for occurred_at.
@@ -67,62 +69,45 @@ const dictString = "string (UTF-8)"
 
 var fieldTable = [...]FieldSpec{
 	{Name: FieldSite, GoName: "Site", Required: true, Type: dictString,
-		Doc: "Partner site the event was recorded at.",
-		JSONSchema: `"type": "string",
-"minLength": 1,
-"description": "The partner site (clinic, hospital department, call centre) where the event happened."`},
+		Doc:  "Partner site the event was recorded at.",
+		Desc: "The partner site (clinic, hospital department, call centre) where the event happened."},
 	{Name: FieldCaseID, GoName: "CaseID", Required: true, Identifier: true, Type: dictString,
-		Doc: "The case (visit, call, ticket) the event belongs to.",
-		JSONSchema: `"type": "string",
-"minLength": 1,
-"description": "Identifier of the case (visit, call, ticket) the event belongs to. A pseudonym in snapshots."`},
+		Doc:  "The case (visit, call, ticket) the event belongs to.",
+		Desc: "Identifier of the case (visit, call, ticket) the event belongs to. A pseudonym in snapshots."},
 	{Name: FieldSubjectID, GoName: "SubjectID", Identifier: true, Type: dictString,
-		Doc: "The person the case is about.",
-		JSONSchema: `"type": "string",
-"description": "Identifier of the person the case is about (patient, caller), when the site provides one. A pseudonym in snapshots."`},
+		Doc:  "The person the case is about.",
+		Desc: "Identifier of the person the case is about (patient, caller), when the site provides one. A pseudonym in snapshots."},
 	{Name: FieldResourceID, GoName: "ResourceID", Identifier: true, Type: dictString,
-		Doc: "The resource (staff member, room, line) serving the case.",
-		JSONSchema: `"type": "string",
-"description": "Identifier of the resource that served the case (staff member, desk, team, department). A pseudonym in snapshots."`},
+		Doc:  "The resource (staff member, room, line) serving the case.",
+		Desc: "Identifier of the resource that served the case (staff member, desk, team, department). A pseudonym in snapshots."},
 	{Name: FieldEventType, GoName: "Type", Required: true, Type: dictString,
-		Doc: "What happened: one of the event types below.",
-		JSONSchema: `"type": "string",
-"enum": ["arrival", "enqueue", "start", "complete", "abandon", "transfer", "departure"],
-"description": "What happened: arrival (entered the system), enqueue (joined a queue), start (service began), complete (service ended), abandon (left a queue unserved), transfer (moved to another queue or site), departure (left the system)."`},
+		Doc:  "What happened: one of the event types below.",
+		Desc: "What happened: arrival (entered the system), enqueue (joined a queue), start (service began), complete (service ended), abandon (left a queue unserved), transfer (moved to another queue or site), departure (left the system)."},
 	{Name: FieldActivity, GoName: "Activity", Type: dictString,
-		Doc: "The activity or service step, as mapped by the profile.",
-		JSONSchema: `"type": "string",
-"description": "The site's name for the step or service (for example triage, lab test, billing)."`},
+		Doc:  "The activity or service step, as mapped by the profile.",
+		Desc: "The site's name for the step or service (for example triage, lab test, billing)."},
 	{Name: FieldQueue, GoName: "Queue", Type: dictString,
-		Doc: "The queue the case was in.",
-		JSONSchema: `"type": "string",
-"description": "The queue or service line the case waited in or was served from."`},
+		Doc:  "The queue the case was in.",
+		Desc: "The queue or service line the case waited in or was served from."},
 	{Name: FieldOccurredAt, GoName: "OccurredAt", Required: true,
 		Type: "timestamp, microseconds, UTC (Parquet TIMESTAMP(MICROS, UTC))",
 		Doc:  "When the event happened.",
-		JSONSchema: `"type": "string",
-"format": "date-time",
-"description": "The instant the event happened, as an RFC 3339 date-time with an offset (UTC in snapshots)."`},
+		Desc: "The instant the event happened, as an RFC 3339 date-time with an offset (UTC in snapshots)."},
 	{Name: FieldPriority, GoName: "Priority", Type: dictString,
-		Doc: "Priority or triage level, as mapped by the profile.",
-		JSONSchema: `"type": "string",
-"description": "The site's priority or urgency class of the case at this event."`},
+		Doc:  "Priority or triage level, as mapped by the profile.",
+		Desc: "The site's priority or urgency class of the case at this event."},
 	{Name: FieldChannel, GoName: "Channel", Type: dictString,
-		Doc: "How the case reached the service (walk-in, phone, ...).",
-		JSONSchema: `"type": "string",
-"description": "How the case reached the service (walk-in, phone, referral, web)."`},
+		Doc:  "How the case reached the service (walk-in, phone, ...).",
+		Desc: "How the case reached the service (walk-in, phone, referral, web)."},
 	{Name: FieldOutcome, GoName: "Outcome", Type: dictString,
-		Doc: "Outcome of the case or step, as mapped by the profile.",
-		JSONSchema: `"type": "string",
-"description": "The site's outcome code for the case or step, when it has one."`},
+		Doc:  "Outcome of the case or step, as mapped by the profile.",
+		Desc: "The site's outcome code for the case or step, when it has one."},
 	{Name: FieldEventID, GoName: "EventID", Type: dictString,
-		Doc: "The source system's id of the event, when it has one.",
-		JSONSchema: `"type": "string",
-"description": "The site's own identifier of the event row, when it has one; used to spot duplicates."`},
+		Doc:  "The source system's id of the event, when it has one.",
+		Desc: "The site's own identifier of the event row, when it has one; used to spot duplicates."},
 	{Name: FieldInstanceID, GoName: "InstanceID", Identifier: true, Type: dictString,
-		Doc: "One execution of an activity within its case: its start and its complete share it.",
-		JSONSchema: `"type": "string",
-"description": "Identifier of one activity instance within its case: the start and the complete of one execution of an activity share it, so overlapping executions of the same activity pair apart. A pseudonym in snapshots."`},
+		Doc:  "One execution of an activity within its case: its start and its complete share it.",
+		Desc: "Identifier of one activity instance within its case: the start and the complete of one execution of an activity share it, so overlapping executions of the same activity pair apart. A pseudonym in snapshots."},
 }
 
 // occurredAtLayout is the text form of occurred_at (Event.Value): RFC 3339

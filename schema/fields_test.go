@@ -43,7 +43,7 @@ func TestFieldTableCoversEvent(t *testing.T) {
 		if js, _, _ := strings.Cut(sf.Tag.Get("json"), ","); js != string(spec.Name) {
 			t.Errorf("Event.%s: JSON member %q, field table name %q", sf.Name, js, spec.Name)
 		}
-		if spec.Doc == "" || spec.Type == "" || spec.JSONSchema == "" {
+		if spec.Doc == "" || spec.Type == "" || spec.Desc == "" {
 			t.Errorf("%s: the table lacks its dictionary or JSON Schema text", spec.Name)
 		}
 		// The accessors touch this struct field and no other.

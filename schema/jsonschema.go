@@ -1,6 +1,10 @@
 package schema
 
-import "strings"
+import (
+	"encoding/json"
+	"strings"
+	"sync"
+)
 
 // jsonSchemaHead is the published JSON Schema document up to its
 // properties, which come from the field table.
@@ -15,7 +19,7 @@ const jsonSchemaHead = `{
 
 // jsonSchemaV1 is built once from the field table (TestJSONSchemaGolden
 // holds it to the published bytes, testdata/service-event-v1.schema.json).
-var jsonSchemaV1 = buildJSONSchema()
+var jsonSchemaV1 = sync.OnceValue(buildJSONSchema) // after init sets the table's offsets
 
 func buildJSONSchema() []byte {
 	var b strings.Builder
@@ -23,13 +27,10 @@ func buildJSONSchema() []byte {
 	var required []string
 	for i, f := range fieldTable {
 		b.WriteString(`    "` + string(f.Name) + "\": {\n")
-		for j, line := range strings.Split(f.JSONSchema, "\n") {
-			if j > 0 {
-				b.WriteString(",\n")
-			}
-			b.WriteString("      " + strings.TrimSuffix(line, ","))
+		for _, m := range f.jsonMembers() {
+			b.WriteString("      " + m + ",\n")
 		}
-		b.WriteString("\n    }")
+		b.WriteString("      \"description\": " + jsonString(f.Desc) + "\n    }")
 		if i < len(fieldTable)-1 {
 			b.WriteString(",")
 		}
@@ -48,5 +49,33 @@ func buildJSONSchema() []byte {
 // one event row of schema v1, as served to data users. The caller gets its
 // own copy.
 func JSONSchema() []byte {
-	return append([]byte(nil), jsonSchemaV1...)
+	return append([]byte(nil), jsonSchemaV1()...)
+}
+
+// jsonMembers are f's members in the JSON Schema document before its
+// description, one per line (FieldSpec.Desc says which).
+func (f *FieldSpec) jsonMembers() []string {
+	m := []string{`"type": "string"`}
+	switch {
+	case !f.text:
+		m = append(m, `"format": "date-time"`)
+	case f.Name == FieldEventType:
+		types := make([]string, len(EventTypes))
+		for i, t := range EventTypes {
+			types[i] = jsonString(string(t))
+		}
+		m = append(m, `"enum": [`+strings.Join(types, ", ")+"]")
+	case f.Required:
+		m = append(m, `"minLength": 1`)
+	}
+	return m
+}
+
+// jsonString is s as a JSON string.
+func jsonString(s string) string {
+	b, err := json.Marshal(s)
+	if err != nil {
+		panic(err) // a Go string always marshals
+	}
+	return string(b)
 }
