@@ -272,6 +272,33 @@ func (e *env) auditKeys(d dataDir, cmd *cobra.Command, action, kid string) {
 	}
 }
 
+// changeKeys changes the signing key set of the server's data directory d
+// (its instance file checked first) and saves it, then writes action on
+// the key change returns to the audit trail and reports it: said, with the
+// key id, or JSON.
+func (e *env) changeKeys(cmd *cobra.Command, d dataDir, action, said string, change func(*server.KeySet) (string, error)) error {
+	if _, err := d.readInstance(); err != nil {
+		return err
+	}
+	ks, err := server.LoadKeySet(d.keys())
+	if err != nil {
+		return err
+	}
+	kid, err := change(ks)
+	if err != nil {
+		return err
+	}
+	if err := ks.Save(d.keys()); err != nil {
+		return err
+	}
+	e.auditKeys(d, cmd, "key."+action, kid)
+	if e.json {
+		return writeJSON(e.stdout, map[string]string{"kid": kid, "action": action})
+	}
+	fmt.Fprintf(e.stdout, said+"\n", kid)
+	return nil
+}
+
 func newKeyRotateCmd(e *env) *cobra.Command {
 	var dir string
 	c := &cobra.Command{
@@ -283,26 +310,9 @@ func newKeyRotateCmd(e *env) *cobra.Command {
 			if err != nil {
 				return err
 			}
-			if _, err := d.readInstance(); err != nil {
-				return err
-			}
-			ks, err := server.LoadKeySet(d.keys())
-			if err != nil {
-				return err
-			}
-			kid, err := ks.Rotate(time.Now())
-			if err != nil {
-				return err
-			}
-			if err := ks.Save(d.keys()); err != nil {
-				return err
-			}
-			e.auditKeys(d, cmd, "key.rotate", kid)
-			if e.json {
-				return writeJSON(e.stdout, map[string]string{"kid": kid, "action": "rotate"})
-			}
-			fmt.Fprintf(e.stdout, "new signing key %s\n", kid)
-			return nil
+			return e.changeKeys(cmd, d, "rotate", "new signing key %s", func(ks *server.KeySet) (string, error) {
+				return ks.Rotate(time.Now())
+			})
 		},
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory of the server")
@@ -330,26 +340,12 @@ func newKeyRetireCmd(e *env) *cobra.Command {
 			case kid == "":
 				return usageErr("token retire: which key? give its id (flowcat token keys lists them) as an argument or as --kid KID")
 			}
-			d := dataDir(dir)
-			if _, err := d.readInstance(); err != nil {
-				return err
-			}
-			ks, err := server.LoadKeySet(d.keys())
-			if err != nil {
-				return err
-			}
-			if err := ks.Retire(kid, time.Now()); err != nil {
-				return usageErr("%v", err)
-			}
-			if err := ks.Save(d.keys()); err != nil {
-				return err
-			}
-			e.auditKeys(d, cmd, "key.retire", kid)
-			if e.json {
-				return writeJSON(e.stdout, map[string]string{"kid": kid, "action": "retire"})
-			}
-			fmt.Fprintf(e.stdout, "retired %s: its tokens no longer verify\n", kid)
-			return nil
+			return e.changeKeys(cmd, dataDir(dir), "retire", "retired %s: its tokens no longer verify", func(ks *server.KeySet) (string, error) {
+				if err := ks.Retire(kid, time.Now()); err != nil {
+					return "", usageErr("%v", err)
+				}
+				return kid, nil
+			})
 		},
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory of the server")
