@@ -13,6 +13,8 @@ import (
 	"slices"
 	"time"
 
+	"github.com/spf13/cobra"
+
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog"
 	"github.com/flowcat-catalog/flowcat/schema"
@@ -42,6 +44,19 @@ func needData(command, dir string) (dataDir, error) {
 		return "", usageErr("%s: --data DIR is required", command)
 	}
 	return dataDir(dir), nil
+}
+
+// onData is the RunE of a command on the server's data directory, given
+// as --data DIR into *dir: run gets it; command names the command in the
+// usage error when it is missing.
+func onData(command string, dir *string, run func(cmd *cobra.Command, args []string, d dataDir) error) func(*cobra.Command, []string) error {
+	return func(cmd *cobra.Command, args []string) error {
+		d, err := needData(command, *dir)
+		if err != nil {
+			return err
+		}
+		return run(cmd, args, d)
+	}
 }
 
 func (d dataDir) path(name string) string { return filepath.Join(string(d), name) }

@@ -12,11 +12,7 @@ func newInitCmd(e *env) *cobra.Command {
 		Use:   "init --data DIR [--blobs s3://BUCKET/PREFIX]",
 		Short: "Create a data directory: catalog, blobs, signing and master keys",
 		Args:  cobra.NoArgs,
-		RunE: func(cmd *cobra.Command, args []string) error {
-			d, err := needData("init", dir)
-			if err != nil {
-				return err
-			}
+		RunE: onData("init", &dir, func(cmd *cobra.Command, args []string, d dataDir) error {
 			created, err := initDataDir(d, masterFile, blobs)
 			if err != nil {
 				return err
@@ -29,7 +25,7 @@ func newInitCmd(e *env) *cobra.Command {
 				fmt.Fprintf(e.stdout, "created master key %s (mode 0600): keep a copy somewhere safe and apart from the data; without it no project key can be opened\n", d.masterKey())
 			}
 			return nil
-		},
+		}),
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory to create")
 	c.Flags().StringVar(&masterFile, "master-key", "", "use this existing master key file instead of creating one in DIR (else FLOWCAT_MASTER_KEY or FLOWCAT_MASTER_KEY_FILE when set)")

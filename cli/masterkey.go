@@ -25,11 +25,7 @@ from --new-master-key FILE, or made and written there (0600) if FILE does not ex
 current key in DIR/master.key and no --new-master-key, the new key replaces DIR/master.key (it is
 written to DIR/master.key.new first, and renamed once the catalog is re-sealed).`,
 		Args: cobra.NoArgs,
-		RunE: func(cmd *cobra.Command, args []string) error {
-			d, err := needData("master-key rotate", dir)
-			if err != nil {
-				return err
-			}
+		RunE: onData("master-key rotate", &dir, func(cmd *cobra.Command, args []string, d dataDir) error {
 			oldKey, from, err := d.findMasterKey(masterFile)
 			if err != nil {
 				return err
@@ -72,7 +68,7 @@ written to DIR/master.key.new first, and renamed once the catalog is re-sealed).
 			}
 			fmt.Fprintf(e.stdout, "re-sealed %d project keys under master key %s (in %s); the catalog opens with it only from now on: keep a copy where the old one was kept\n", n, newKey.ID(), newFile)
 			return nil
-		},
+		}),
 	}
 	f := rotate.Flags()
 	f.StringVar(&dir, "data", "", "data directory (server stopped)")

@@ -24,11 +24,7 @@ and after do not link: the same identifier has unrelated pseudonyms in them, and
 dictionary says which versions it links with. The rotation is audited (key.project_rotate, with both
 key ids). The current master key is found as serve finds it.`,
 		Args: cobra.ExactArgs(1),
-		RunE: func(cmd *cobra.Command, args []string) error {
-			d, err := needData("pseudonym-key rotate", dir)
-			if err != nil {
-				return err
-			}
+		RunE: onData("pseudonym-key rotate", &dir, func(cmd *cobra.Command, args []string, d dataDir) error {
 			mk, _, err := d.findMasterKey(masterFile)
 			if err != nil {
 				return err
@@ -53,7 +49,7 @@ key ids). The current master key is found as serve finds it.`,
 			fmt.Fprintf(e.stdout, "project %s: pseudonym key %s (generation %d) replaces %s; each dataset's next version re-keys its files, and versions before it do not link with those after\n",
 				rot.Project, rot.NewKeyID, rot.Generation, rot.OldKeyID)
 			return nil
-		},
+		}),
 	}
 	f := rotate.Flags()
 	f.StringVar(&dir, "data", "", "data directory (server stopped)")

@@ -305,15 +305,11 @@ func newKeyRotateCmd(e *env) *cobra.Command {
 		Use:   "rotate --data DIR",
 		Short: "Add a new Ed25519 signing key; older keys still verify until retired",
 		Args:  cobra.NoArgs,
-		RunE: func(cmd *cobra.Command, args []string) error {
-			d, err := needData("token rotate", dir)
-			if err != nil {
-				return err
-			}
+		RunE: onData("token rotate", &dir, func(cmd *cobra.Command, args []string, d dataDir) error {
 			return e.changeKeys(cmd, d, "rotate", "new signing key %s", func(ks *server.KeySet) (string, error) {
 				return ks.Rotate(time.Now())
 			})
-		},
+		}),
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory of the server")
 	return c
@@ -359,11 +355,7 @@ func newKeyListCmd(e *env) *cobra.Command {
 		Use:   "keys --data DIR",
 		Short: "List the signing keys: kid, created, retired, which one signs",
 		Args:  cobra.NoArgs,
-		RunE: func(cmd *cobra.Command, args []string) error {
-			d, err := needData("token keys", dir)
-			if err != nil {
-				return err
-			}
+		RunE: onData("token keys", &dir, func(cmd *cobra.Command, args []string, d dataDir) error {
 			a, err := d.authority()
 			if err != nil {
 				return err
@@ -417,7 +409,7 @@ func newKeyListCmd(e *env) *cobra.Command {
 				return err
 			}
 			return nil
-		},
+		}),
 	}
 	c.Flags().StringVar(&dir, "data", "", "data directory of the server")
 	return c
