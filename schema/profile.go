@@ -242,6 +242,27 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 	if d, ln := yamlDepth(lexer.Tokenize(string(data))); d > lim.MaxDepth {
 		return nil, &ProfileError{Line: ln, Msg: fmt.Sprintf("the profile nests deeper than %d levels (max profile depth)", lim.MaxDepth)}
 	}
+	body, err := profileBody(data)
+	if err != nil {
+		return nil, err
+	}
+	p := &Profile{Fields: map[Field]Mapping{}}
+	lines := map[string]int{}
+	fieldsNode, err := p.parseTop(body, lines)
+	if err != nil {
+		return nil, err
+	}
+	if err := p.parseFields(fieldsNode, lines); err != nil {
+		return nil, err
+	}
+	if err := p.validate(lines); err != nil {
+		return nil, err
+	}
+	return p, nil
+}
+
+// profileBody parses data as YAML: the body of its one document.
+func profileBody(data []byte) (ast.Node, error) {
 	file, err := parser.ParseBytes(data, 0)
 	if err != nil {
 		pe := &ProfileError{Msg: "not valid YAML"}
@@ -267,13 +288,17 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 	if body == nil {
 		return nil, &ProfileError{Msg: "the profile is empty"}
 	}
-	p := &Profile{Fields: map[Field]Mapping{}}
+	return body, nil
+}
+
+// parseTop reads the profile's top-level keys into p, the line of each
+// into lines; it returns the fields mapping, which parseFields reads.
+func (p *Profile) parseTop(body ast.Node, lines map[string]int) (ast.Node, error) {
 	top, err := mapping(body, "")
 	if err != nil {
 		return nil, err
 	}
 	var fieldsNode ast.Node
-	lines := map[string]int{}
 	for _, kv := range top {
 		lines[kv.key] = kv.line
 		var err error
@@ -293,25 +318,7 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 		case "timezone":
 			err = into(&p.Timezone)(scalar(kv.value, kv.key))
 		case "local_time":
-			lt, err := mapping(kv.value, kv.key)
-			if err != nil {
-				return nil, err
-			}
-			for _, e := range lt {
-				lines["local_time."+e.key] = e.line
-				s, err := scalar(e.value, "local_time."+e.key)
-				if err != nil {
-					return nil, err
-				}
-				switch e.key {
-				case "ambiguous":
-					p.LocalTime.Ambiguous = AmbiguousPolicy(s)
-				case "nonexistent":
-					p.LocalTime.Nonexistent = NonexistentPolicy(s)
-				default:
-					return nil, &ProfileError{Line: e.line, Key: "local_time." + e.key, Msg: "unknown key (want ambiguous or nonexistent)"}
-				}
-			}
+			err = p.parseLocalTime(kv.value, lines)
 		case "fields":
 			fieldsNode = kv.value
 		case "resource_capacity":
@@ -335,30 +342,56 @@ func ParseProfileLimits(data []byte, lim ProfileLimits) (*Profile, error) {
 			return nil, err
 		}
 	}
+	return fieldsNode, nil
+}
+
+// parseLocalTime reads the profile's local_time policies into p.
+func (p *Profile) parseLocalTime(node ast.Node, lines map[string]int) error {
+	lt, err := mapping(node, "local_time")
+	if err != nil {
+		return err
+	}
+	for _, e := range lt {
+		lines["local_time."+e.key] = e.line
+		s, err := scalar(e.value, "local_time."+e.key)
+		if err != nil {
+			return err
+		}
+		switch e.key {
+		case "ambiguous":
+			p.LocalTime.Ambiguous = AmbiguousPolicy(s)
+		case "nonexistent":
+			p.LocalTime.Nonexistent = NonexistentPolicy(s)
+		default:
+			return &ProfileError{Line: e.line, Key: "local_time." + e.key, Msg: "unknown key (want ambiguous or nonexistent)"}
+		}
+	}
+	return nil
+}
+
+// parseFields reads the profile's mapping of schema fields into p.
+func (p *Profile) parseFields(fieldsNode ast.Node, lines map[string]int) error {
 	if fieldsNode == nil {
-		return nil, &ProfileError{Key: "fields", Msg: "missing: the profile must map the required fields"}
+		return &ProfileError{Key: "fields", Msg: "missing: the profile must map the required fields"}
 	}
 	fields, err := mapping(fieldsNode, "fields")
 	if err != nil {
-		return nil, err
+		return err
 	}
 	for _, kv := range fields {
 		key := "fields." + kv.key
 		lines[key] = kv.line
 		f := Field(kv.key)
 		if !slices.Contains(Fields, f) {
-			return nil, &ProfileError{Line: kv.line, Key: key, Msg: "not a schema field (want one of " + fieldList() + ")"}
+			return &ProfileError{Line: kv.line, Key: key, Msg: "not a schema field (want one of " + fieldList() + ")"}
 		}
 		m, err := fieldMapping(kv.value, key, lines)
 		if err != nil {
-			return nil, err
+			return err
 		}
 		p.Fields[f] = m
 	}
-	if err := p.validate(lines); err != nil {
-		return nil, err
-	}
-	return p, nil
+	return nil
 }
 
 // validate normalizes p in place (defaults filled in) and checks it, one
