@@ -1,10 +1,11 @@
 package catalog
 
 // batches hands full batches of rows to a goroutine that writes them, so
-// that encoding and compressing a Parquet file runs on the other core
-// while the caller produces the next rows. It holds at most three batches
-// (one filling, one queued, one being written), so memory stays bounded.
-// Errors of the writer come back from the next add or from close.
+// that the writer's work (encoding and compressing a Parquet file, the
+// summaries' per-case work) runs on the other core while the caller
+// produces the next rows. It holds at most depth+2 batches (one filling,
+// depth queued, one being written), so memory stays bounded. Errors of the
+// writer come back from the next add or from close.
 type batches[T any] struct {
 	cur   []T
 	queue chan []T
@@ -14,16 +15,17 @@ type batches[T any] struct {
 	open  bool
 }
 
-func newBatches[T any](size int, write func([]T) error) *batches[T] {
+func newBatches[T any](size, depth int, write func([]T) error) *batches[T] {
 	b := &batches[T]{
 		cur:   make([]T, 0, size),
-		queue: make(chan []T, 1),
-		free:  make(chan []T, 2),
+		queue: make(chan []T, depth),
+		free:  make(chan []T, depth+1),
 		done:  make(chan error, 1),
 		open:  true,
 	}
-	b.free <- make([]T, 0, size)
-	b.free <- make([]T, 0, size)
+	for range depth + 1 {
+		b.free <- make([]T, 0, size)
+	}
 	go func() {
 		var err error
 		for batch := range b.queue {

@@ -140,54 +140,17 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	// its observers (the summary, the process views) share nothing with
 	// the others', so the two cores split the per-case work. Events from
 	// the sort own their strings, so a copy may cross.
-	var (
-		keptCh, keptFree chan []schema.Event
-		keptDone         chan struct{}
-		kc               summary.Counts // counted by the summaries' goroutine
-		batch            []schema.Event
-	)
+	var kb *batches[schema.Event]
 	if kept != nil {
-		keptCh = make(chan []schema.Event, keptBatches)
-		keptFree = make(chan []schema.Event, keptBatches+2)
-		keptDone = make(chan struct{})
-		batch = make([]schema.Event, 0, keptBatchEvents)
-		go func() {
-			defer close(keptDone)
-			var prev schema.Event
-			hasPrev := false
-			for bt := range keptCh {
-				for i := range bt {
-					e := &bt[i]
-					_, fl := quality.UnpackLine(e.Line)
-					switch {
-					case fl&quality.FlagLater != 0:
-						kc.LaterThanUpload++
-						continue
-					case fl&quality.FlagOutsideWindow != 0:
-						kc.OutsideWindow++
-						continue
-					case hasPrev && prev.CaseID == e.CaseID && prev.OccurredAt.Equal(e.OccurredAt) && prev.Type == e.Type && schema.CompareContent(&prev, e) == 0:
-						kc.ExactDuplicates++
-						continue
-					}
-					kept.Add(e)
-					prev, hasPrev = *e, true
-				}
-				clear(bt)
-				select {
-				case keptFree <- bt[:0]:
-				default:
+		var kf keptFilter
+		kb = newBatches(keptBatchEvents, keptBatches, func(bt []schema.Event) error {
+			for i := range bt {
+				if kf.keep(&bt[i], &c) {
+					kept.Add(&bt[i])
 				}
 			}
-		}()
-	}
-	send := func() {
-		keptCh <- batch
-		select {
-		case batch = <-keptFree:
-		default:
-			batch = make([]schema.Event, 0, keptBatchEvents)
-		}
+			return nil
+		})
 	}
 	var lastSubj, lastRes string
 	err := p.srt.Finish(func(e *schema.Event) error {
@@ -213,19 +176,13 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 		if len(all) > 0 {
 			b.Add(e)
 		}
-		if kept != nil {
-			if batch = append(batch, *e); len(batch) == keptBatchEvents {
-				send()
-			}
+		if kb != nil {
+			return kb.add(*e)
 		}
 		return nil
 	})
-	if kept != nil {
-		if len(batch) > 0 {
-			send()
-		}
-		close(keptCh)
-		<-keptDone
+	if kb != nil {
+		err = errors.Join(err, kb.close()) // c's kept counts are final now
 	}
 	if err != nil {
 		return summary.Counts{}, err
@@ -236,7 +193,6 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	}
 	if kept != nil {
 		kept.Flush()
-		c.LaterThanUpload, c.OutsideWindow, c.ExactDuplicates = kc.LaterThanUpload, kc.OutsideWindow, kc.ExactDuplicates
 	}
 	subj, err := p.subjects.Count()
 	if err != nil {
@@ -251,6 +207,32 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 		c.Cases = uint64(kept.Cases()) // the cases the summary figures cover
 	}
 	return c, nil
+}
+
+// keptFilter is the rule of the events the summaries keep, in a stream in
+// case order: none later than the upload, none outside the dataset's
+// window, and no exact copy of its case's previous event. keep counts in c
+// what it drops.
+type keptFilter struct {
+	prev    schema.Event
+	hasPrev bool
+}
+
+func (k *keptFilter) keep(e *schema.Event, c *summary.Counts) bool {
+	_, fl := quality.UnpackLine(e.Line)
+	switch {
+	case fl&quality.FlagLater != 0:
+		c.LaterThanUpload++
+		return false
+	case fl&quality.FlagOutsideWindow != 0:
+		c.OutsideWindow++
+		return false
+	case k.hasPrev && k.prev.CaseID == e.CaseID && k.prev.OccurredAt.Equal(e.OccurredAt) && k.prev.Type == e.Type && schema.CompareContent(&k.prev, e) == 0:
+		c.ExactDuplicates++
+		return false
+	}
+	k.prev, k.hasPrev = *e, true
+	return true
 }
 
 // Batches of events the summaries' builder takes, and how many wait.

@@ -42,7 +42,7 @@ func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTabl
 	// batches (TestCaseRowNulls reads them back with Arrow).
 	cw.w = parquet.NewGenericWriter[cases.Row](t.out(), fileOptions(nil, fileSettings{RowGroupRows: rowGroupRows,
 		Metadata: []KeyValue{{"flowcat.pseudonym_key_id", keyID}, {"flowcat.table", "cases"}}})...)
-	cw.batch = newBatches(1024, func(rows []cases.Row) error {
+	cw.batch = newBatches(1024, 1, func(rows []cases.Row) error {
 		if _, err := cw.w.Write(rows); err != nil {
 			return fmt.Errorf("case table: %w", err)
 		}

@@ -7,6 +7,7 @@ import (
 	"crypto/sha256"
 	"encoding/binary"
 	"encoding/hex"
+	"errors"
 	"fmt"
 	"hash"
 	"io"
@@ -582,47 +583,16 @@ func (g *groupBuild) run(cp *CasePass, mine []cases.Observer) error {
 		e schema.Event
 		w *groupWriter
 	}
-	full := make(chan []item, keptBatches)
-	free := make(chan []item, keptBatches+2)
-	done := make(chan struct{})
-	go func() {
-		defer close(done)
-		var prev schema.Event
-		hasPrev := false
-		for bt := range full {
-			for i := range bt {
-				e, w := &bt[i].e, bt[i].w
-				_, fl := quality.UnpackLine(e.Line)
-				switch {
-				case fl&quality.FlagLater != 0:
-					w.kc.LaterThanUpload++
-					continue
-				case fl&quality.FlagOutsideWindow != 0:
-					w.kc.OutsideWindow++
-					continue
-				case hasPrev && prev.CaseID == e.CaseID && prev.OccurredAt.Equal(e.OccurredAt) && prev.Type == e.Type && schema.CompareContent(&prev, e) == 0:
-					w.kc.ExactDuplicates++
-					continue
-				}
+	// The groups' summaries run on another goroutine, as in RunSplit.
+	var kf keptFilter
+	kb := newBatches(keptBatchEvents, keptBatches, func(bt []item) error {
+		for i := range bt {
+			if e, w := &bt[i].e, bt[i].w; kf.keep(e, &w.kc) {
 				w.kept.Add(e)
-				prev, hasPrev = *e, true
-			}
-			clear(bt)
-			select {
-			case free <- bt[:0]:
-			default:
 			}
 		}
-	}()
-	batch := make([]item, 0, keptBatchEvents)
-	send := func() {
-		full <- batch
-		select {
-		case batch = <-free:
-		default:
-			batch = make([]item, 0, keptBatchEvents)
-		}
-	}
+		return nil
+	})
 	err := cp.srt.Finish(func(e *schema.Event) error {
 		w, err := g.route(e)
 		if err != nil {
@@ -639,17 +609,9 @@ func (g *groupBuild) run(cp *CasePass, mine []cases.Observer) error {
 		if err := w.observe(e); err != nil {
 			return err
 		}
-		if batch = append(batch, item{*e, w}); len(batch) == keptBatchEvents {
-			send()
-		}
-		return nil
+		return kb.add(item{*e, w})
 	})
-	if len(batch) > 0 {
-		send()
-	}
-	close(full)
-	<-done
-	if err != nil {
+	if err = errors.Join(err, kb.close()); err != nil {
 		return err
 	}
 	if bm != nil {

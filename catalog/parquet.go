@@ -54,7 +54,7 @@ func newAttrSnapshotWriter(dir string, rowGroupRows int64, keyID string, ac *Att
 		kv = append(kv, KeyValue{"flowcat.event_attributes", eventAttributesMeta(attrs)})
 	}
 	sw.w = NewEventWriter(t.out(), schema.Fields, EventWriterOptions{RowGroupRows: rowGroupRows, Metadata: kv, Attrs: attrs})
-	sw.batch = newBatches(1024, sw.w.WriteEvents)
+	sw.batch = newBatches(1024, 1, sw.w.WriteEvents)
 	return sw, nil
 }
 
