@@ -24,6 +24,17 @@ const (
 func (r *Report) Text(w io.Writer, color bool) error {
 	bw := bufio.NewWriter(w)
 	p := &painter{color: color}
+	r.textHead(bw, p)
+	r.textScores(bw, p)
+	r.textLittle(bw, p)
+	r.textFindings(bw, p)
+	r.textMeanings(bw, p)
+	r.textRejections(bw, p)
+	return bw.Flush()
+}
+
+// textHead writes the report's heading: score, rows, time, sites, cases.
+func (r *Report) textHead(bw *bufio.Writer, p *painter) {
 	// "format", not "v": the report's own format, never a dataset version.
 	fmt.Fprintf(bw, "%s  score %s\n", p.bold("quality report (format "+r.Version+")"), p.score(r.Score, 0))
 	fmt.Fprintf(bw, "rows   %d total, %d accepted, %d rejected (%s)\n",
@@ -46,7 +57,11 @@ func (r *Report) Text(w io.Writer, color bool) error {
 	}
 	bw.WriteString("\n")
 
-	// Sub-scores: all sites, then each site.
+}
+
+// textScores writes the sub-scores, all sites then each, and the peaks
+// of resource capacity.
+func (r *Report) textScores(bw *bufio.Writer, p *painter) {
 	head := []string{"site", "score"}
 	for _, dw := range dimensionWeights {
 		head = append(head, abbrev(dw.name))
@@ -79,7 +94,10 @@ func (r *Report) Text(w io.Writer, color bool) error {
 		}
 	}
 
-	// Little's law.
+}
+
+// textLittle writes the Little's law check of each site.
+func (r *Report) textLittle(bw *bufio.Writer, p *painter) {
 	var lrows [][]string
 	for _, l := range r.Little {
 		if l.Exits == 0 && l.Entries == 0 {
@@ -104,9 +122,11 @@ func (r *Report) Text(w io.Writer, color bool) error {
 		p.table(bw, append([][]string{{"little's law", "L", "λ·W", "ratio", ""}}, lrows...), map[int]bool{0: true, 4: true}, false)
 	}
 
-	// Findings.
-	// Findings, under a heading per dimension (a dimension column would
-	// not fit 80 columns).
+}
+
+// textFindings writes the findings, under a heading per dimension (a
+// dimension column would not fit 80 columns), and their first samples.
+func (r *Report) textFindings(bw *bufio.Writer, p *painter) {
 	frows := [][]string{{"finding", "count", "share", "of"}}
 	var where []string
 	group := ""
@@ -152,7 +172,10 @@ func (r *Report) Text(w io.Writer, color bool) error {
 		}
 	}
 
-	// What each finding found means, once per code.
+}
+
+// textMeanings writes what each finding found means, once per code.
+func (r *Report) textMeanings(bw *bufio.Writer, p *painter) {
 	said := map[string]bool{}
 	var sentences []string
 	for _, f := range r.Findings() {
@@ -170,7 +193,10 @@ func (r *Report) Text(w io.Writer, color bool) error {
 			bw.WriteString("  " + WrapText(s, TextWidth-2, "    ") + "\n")
 		}
 	}
-	// The first rejected rows, where to look.
+}
+
+// textRejections writes the first rejected rows, where to look.
+func (r *Report) textRejections(bw *bufio.Writer, p *painter) {
 	var rej []string
 	for _, rc := range r.Rejections {
 		for _, s := range rc.Samples {
@@ -201,7 +227,6 @@ func (r *Report) Text(w io.Writer, color bool) error {
 			bw.WriteString("  " + WrapText(strings.Replace(s, "\t", ": ", 1), TextWidth-2, "    ") + "\n")
 		}
 	}
-	return bw.Flush()
 }
 
 // TextWidth is the width, in columns, the text forms fit: an ordinary
