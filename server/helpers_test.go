@@ -125,7 +125,11 @@ func newEnvStore(t *testing.T, dir string, sopt catalog.Options, opts ...func(*C
 		o(&cfg)
 	}
 	s := New(cfg)
-	srv := httptest.NewServer(s)
+	// The server as serve runs it (timeouts, the connection in each
+	// request's context), on a test listener.
+	srv := httptest.NewUnstartedServer(s)
+	srv.Config = s.HTTPServer("")
+	srv.Start()
 	e := &testEnv{t: t, dir: dir, key: key, auth: auth, store: store, srv: srv, server: s, log: logs, rec: &recorder{}, timeout: 30 * time.Second,
 		openapi: loadOpenAPI(t, s.openapi)}
 	t.Cleanup(func() {
