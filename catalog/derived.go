@@ -259,12 +259,14 @@ func (s *Store) openGroupBuild(ctx context.Context, ds *Dataset, files []FileEnt
 // addFile adds the events of a stored file to the per-case pass, with
 // the exclusion flags of that file.
 func (s *Store) addFile(ctx context.Context, id blob.ID, excl *exclusion, cp *CasePass) error {
+	var row int64
 	return s.readFile(ctx, id, func(e *schema.Event) error {
 		// Strings read from Parquet may point into the reader's
 		// buffers; the sort keeps events past the next read.
 		c := *e
 		c.CloneTexts()
 		c.Line = quality.PackLine(c.Line, excl.flags(e))
+		c.Row, row = row, row+1
 		return cp.Add(&c)
 	})
 }

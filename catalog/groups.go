@@ -60,7 +60,7 @@ type caseGroupSet struct {
 
 // groupFormat changes with the layout of a group or of the states it
 // keeps; groups of another format are rebuilt.
-const groupFormat = "3"
+const groupFormat = "4" // 4: events carry their Row
 
 // groupOptions identifies the options the groups of ds are computed with.
 func groupOptions(ds *Dataset) string {

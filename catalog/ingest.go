@@ -402,6 +402,7 @@ func (in *ingest) observe(e *schema.Event) error {
 	}
 	in.win.observe(e)
 	in.bound.observe(e)
+	e.Row = in.sw.rows // its place in the upload's snapshot file
 	if err := in.sw.Write(e); err != nil {
 		return err
 	}

@@ -191,6 +191,7 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 		qacc.ObserveFileOrder(e)
 		fl := qacc.Observe(e)
 		sacc.Observe(e)
+		e.Row = sw.rows // its place in the new file
 		if err := sw.Write(e); err != nil {
 			return err
 		}

@@ -159,6 +159,7 @@ func (s *Store) rekeyFile(ctx context.Context, ds *Dataset, f FileEntry, rk *ano
 		}
 		qacc.ObserveFileOrder(e)
 		fl := qacc.Observe(e)
+		e.Row = sw.rows // its place in the new file (the old one's: every row is kept)
 		if err := sw.Write(e); err != nil {
 			return err
 		}

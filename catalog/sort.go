@@ -504,8 +504,8 @@ type run struct {
 
 // The run format: per event, its record's length as a uvarint, then the
 // record: the thirteen fields in schema order, strings as uvarint length +
-// bytes, occurred_at as varint Unix microseconds, the source line as
-// uvarint, then the event attribute values (Event.Attrs) as one string
+// bytes, occurred_at as varint Unix microseconds, the source line and
+// Event.Row as uvarints, then the event attribute values (Event.Attrs) as one string
 // (empty for an event without). Runs are temporary: the format is read
 // only by the process that wrote it. Every stream of it is framed by
 // newRunWriter and read by newRunReader (runframe.go).
@@ -533,6 +533,7 @@ func encodeEvent(b []byte, e *schema.Event) []byte {
 	str(e.EventID)
 	str(e.InstanceID)
 	b = binary.AppendUvarint(b, uint64(e.Line))
+	b = binary.AppendUvarint(b, uint64(e.Row))
 	str(e.Attrs)
 	n := len(b) - at - 1
 	if n < 0x80 {
@@ -676,6 +677,7 @@ func (r *run) next() (bool, error) {
 	e.EventID = plain()
 	e.InstanceID = plain()
 	e.Line = int64(c.uvarint())
+	e.Row = int64(c.uvarint())
 	e.Attrs = plain()
 	if peeked {
 		r.r.Discard(int(n))

@@ -81,6 +81,13 @@ type Event struct {
 	// Line is the 1-based line (CSV/TSV record start or JSON Lines line) of
 	// the source file the event came from. It is not stored in snapshots.
 	Line int64 `parquet:"-" json:"-"`
+
+	// Row is the event's 0-based position in the snapshot file that holds
+	// it: set by the snapshot reader, and by whatever writes the file as
+	// it writes it. A snapshot keeps its upload's order among events of
+	// one instant, so Row orders a case's events at one instant as the
+	// partner's file had them (cases.Less). It is not stored.
+	Row int64 `parquet:"-" json:"-"`
 }
 
 // JoinAttrs joins event attribute values into Event.Attrs.

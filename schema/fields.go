@@ -157,8 +157,8 @@ func (e *Event) Texts() (t [TextFieldCount]string) {
 }
 
 // SameFields reports whether a and b are equal in every field of the
-// table, the instant compared to the microsecond; Attrs and Line are not
-// schema fields.
+// table, the instant compared to the microsecond; Attrs, Line and Row are
+// not schema fields.
 func SameFields(a, b *Event) bool {
 	return a.OccurredAt.UnixMicro() == b.OccurredAt.UnixMicro() && a.Texts() == b.Texts()
 }

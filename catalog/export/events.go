@@ -61,6 +61,12 @@ type Stats struct {
 // f is validated first (errors wrap ErrBadFilter); an error of fn stops
 // the pass and is returned as it is.
 func Events(ctx context.Context, src Source, files []catalog.FileEntry, f Filter, fn func(*schema.Event) error) (Stats, error) {
+	return events(ctx, src, files, f, false, fn)
+}
+
+// events is Events; withRows also sets each event's Row, its place in its
+// snapshot file, where the input is one (not a staged merge).
+func events(ctx context.Context, src Source, files []catalog.FileEntry, f Filter, withRows bool, fn func(*schema.Event) error) (Stats, error) {
 	var st Stats
 	if err := f.Validate(); err != nil {
 		return st, err
@@ -74,6 +80,9 @@ func Events(ctx context.Context, src Source, files []catalog.FileEntry, f Filter
 	defer cleanup()
 	if err != nil {
 		return st, err
+	}
+	for _, in := range ins {
+		in.rows = withRows && in.counted
 	}
 	s := newMerge(ctx, ins, m, &st)
 	defer s.close()
@@ -97,6 +106,7 @@ type input struct {
 	open     func(ctx context.Context) (io.ReaderAt, io.Closer, int64, error)
 	min, max time.Time
 	counted  bool  // a snapshot file: its work enters Stats
+	rows     bool  // set each event's Row (a snapshot file's)
 	remap    []int // its event attributes into the export's order (attrRemap)
 }
 
@@ -278,6 +288,8 @@ type cursor struct {
 	st     *Stats
 	closer io.Closer
 	groups []parquet.RowGroup // row groups to decode
+	starts []int64            // the file's row number of each one's first row
+	row    int64              // the file's row number of the next row read
 	gi     int
 	rd     *catalog.EventReader
 	buf    []schema.Event
@@ -308,6 +320,7 @@ func openCursor(ctx context.Context, in *input, m *matcher, st *Stats) (*cursor,
 		return nil, err
 	}
 	meta := f.Metadata()
+	var start int64
 	for i, rg := range f.RowGroups() {
 		keep := rowGroupOK(rg, cols, m)
 		if in.counted {
@@ -323,7 +336,9 @@ func openCursor(ctx context.Context, in *input, m *matcher, st *Stats) (*cursor,
 		}
 		if keep {
 			c.groups = append(c.groups, rg)
+			c.starts = append(c.starts, start)
 		}
+		start += rg.NumRows()
 	}
 	c.buf = make([]schema.Event, batchRows)
 	if err := c.fill(); err != nil {
@@ -404,12 +419,20 @@ func (c *cursor) raw() (*schema.Event, error) {
 			if err != nil {
 				return nil, fmt.Errorf("export: %w", err)
 			}
-			c.rd = rd
+			c.rd, c.row = rd, c.starts[c.gi]
 			c.gi++
 		}
 		clear(c.buf)
 		n, err := c.rd.Read(c.buf)
 		c.pos, c.n = 0, n
+		// Each event's place in its snapshot file (Event.Row), for the
+		// per-case order of a filtered summary.
+		if c.in.rows {
+			for i := range c.buf[:n] {
+				c.buf[i].Row = c.row + int64(i)
+			}
+		}
+		c.row += int64(n)
 		if c.in.counted {
 			c.st.RowsRead += int64(n)
 		}

@@ -17,7 +17,10 @@ func Summarize(ctx context.Context, src Source, files []catalog.FileEntry, f Fil
 	acc := summary.New(opt)
 	cp := catalog.NewCasePass(src.TempDir, 0)
 	defer cp.Close()
-	st, err := Events(ctx, src, files, f, func(e *schema.Event) error {
+	// The events' rows order a case's events at one instant as the
+	// version's own pass does (cases.Less); past MaxOpenFiles files, a
+	// staged merge's events have none, and such events go by content.
+	st, err := events(ctx, src, files, f, true, func(e *schema.Event) error {
 		acc.Observe(e)
 		var c schema.Event
 		cloneEvent(&c, e)

@@ -12,6 +12,7 @@
 package cases
 
 import (
+	"cmp"
 	"fmt"
 	"strings"
 	"time"
@@ -485,9 +486,11 @@ func (b *Builder) Flush() {
 
 // Less orders events the way the per-case computation takes them: by
 // case, then instant, then event type in lifecycle order (an arrival
-// before a start at the same instant), then content, then source line. So
-// a case's events come in the same order however a version's files were
-// cut.
+// before a start at the same instant), then position in their snapshot
+// file (Event.Row: the order of the partner's file, for events of one
+// instant in one file), then content, then source line. Every pass that
+// measures cases (the ingest, a version's full pass, its case groups, a
+// filtered summary) sets Row the same way, so they agree.
 func Less(a, b *schema.Event) int {
 	if c := strings.Compare(a.CaseID, b.CaseID); c != 0 {
 		return c
@@ -496,6 +499,9 @@ func Less(a, b *schema.Event) int {
 		return c
 	}
 	if c := a.Type.Rank() - b.Type.Rank(); c != 0 {
+		return c
+	}
+	if c := cmp.Compare(a.Row, b.Row); c != 0 {
 		return c
 	}
 	if c := schema.CompareContent(a, b); c != 0 {
