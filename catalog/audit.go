@@ -8,6 +8,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"log/slog"
 	"strings"
 	"sync"
 	"time"
@@ -17,7 +18,8 @@ import (
 
 // The audit trail is append-only: entries are written in the transaction
 // of the change they record (so that a change and its entry commit or fail
-// together) and nothing rewrites or deletes them. Keys are time-ordered:
+// together), or, for reads and refusals (RecordAudit), through the audit
+// journal, and nothing rewrites or deletes them. Keys are time-ordered:
 // the entry's instant (Unix nanoseconds, big-endian) then the bucket's
 // sequence, so a cursor walks the trail in time order and a time filter
 // seeks straight to its start.
@@ -163,9 +165,10 @@ func (s *Store) RecordAudit(ctx context.Context, e AuditEntry) error {
 	return s.audits.record(s.db, e)
 }
 
-// auditGroup commits RecordAudit's entries in groups, one transaction (and
-// one fsync) for the entries that arrived while the previous group was
-// committing: a download is audited before its first byte is sent, and
+// auditGroup commits RecordAudit's entries in groups, one append to the
+// audit journal and one fdatasync (auditjournal.go; without a journal that
+// works, one transaction) for the entries that arrived while the previous
+// group was committing: a download is audited before its first byte is sent, and
 // one commit each would bound a server's downloads to its disk's fsyncs
 // a second. A lone entry is committed at once, with no wait for company.
 // Each caller returns once its own entry is committed, or with the error
@@ -174,6 +177,10 @@ type auditGroup struct {
 	mu      sync.Mutex
 	pending []*auditWait
 	busy    bool // a leader is committing; the next one is woken by it
+	// j, when open, takes the groups (auditjournal.go); log tells of a
+	// fold that failed (its entries stay in the journal, durable).
+	j   *auditJournal
+	log *slog.Logger
 }
 
 type auditWait struct {
@@ -202,14 +209,7 @@ func (g *auditGroup) record(db *bolt.DB, e AuditEntry) error {
 	group := g.pending
 	g.pending = nil
 	g.mu.Unlock()
-	err := db.Update(func(tx *bolt.Tx) error {
-		for _, x := range group {
-			if err := appendAudit(tx, x.e); err != nil {
-				return err
-			}
-		}
-		return nil
-	})
+	err := g.commit(db, group)
 	for _, x := range group {
 		if x != w {
 			x.done <- auditDone{err: err}
@@ -225,6 +225,34 @@ func (g *auditGroup) record(db *bolt.DB, e AuditEntry) error {
 	}
 	g.mu.Unlock()
 	return err
+}
+
+// commit makes a group durable: appended to the journal, folding it into
+// the bucket when enough is pending, or, without a journal that works, in
+// a transaction of its own.
+func (g *auditGroup) commit(db *bolt.DB, group []*auditWait) error {
+	if j := g.j; j != nil {
+		j.mu.Lock()
+		err := j.append(group)
+		if err == nil && j.pending() >= auditJournalFoldAt {
+			if ferr := j.fold(db); ferr != nil {
+				g.log.Error("audit journal: fold failed; its entries stay in the journal and the next fold retries", "err", ferr)
+			}
+		}
+		j.mu.Unlock()
+		if err == nil {
+			return nil
+		}
+		g.log.Error("audit journal: append failed; audit entries go to the catalog one transaction each", "err", err)
+	}
+	return db.Update(func(tx *bolt.Tx) error {
+		for _, x := range group {
+			if err := appendAudit(tx, x.e); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
 }
 
 // AuditFilter selects audit entries. Zero fields select everything.
@@ -295,6 +323,9 @@ func (s *Store) AuditPage(ctx context.Context, f AuditFilter) ([]AuditEntry, str
 	if err := f.Validate(); err != nil {
 		return nil, "", err
 	}
+	if err := s.audits.j.foldNow(s.db); err != nil {
+		return nil, "", err
+	}
 	out := []AuditEntry{}
 	next := ""
 	err := s.db.View(func(tx *bolt.Tx) error {
@@ -357,6 +388,9 @@ func (s *Store) AuditPage(ctx context.Context, f AuditFilter) ([]AuditEntry, str
 func (s *Store) AuditNewest(ctx context.Context, f AuditFilter) ([]AuditEntry, bool, error) {
 	f.After = ""
 	if err := f.Validate(); err != nil {
+		return nil, false, err
+	}
+	if err := s.audits.j.foldNow(s.db); err != nil {
 		return nil, false, err
 	}
 	out := []AuditEntry{}

@@ -48,6 +48,9 @@ func crashChild(mode string) {
 	if err != nil {
 		os.Exit(12)
 	}
+	if mode == "audit" {
+		auditChild(s)
+	}
 	var src io.Reader
 	switch mode {
 	case "commit":

@@ -132,6 +132,11 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
 	st := &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{}}
+	if st.audits.j, err = openAuditJournal(db, path); err != nil {
+		db.Close()
+		return nil, fmt.Errorf("catalog: %w", err)
+	}
+	st.audits.log = opt.Logger
 	// Holding the bbolt lock, no other catalog writes here: clear what an
 	// earlier run left in the temp folder and the blob store's.
 	if ownTemp {
@@ -144,7 +149,7 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 	if sw, ok := blobs.(blob.TempSweeper); ok {
 		n, b, err := sw.SweepTemp(context.Background(), 0, false)
 		if err != nil {
-			db.Close()
+			st.Close()
 			return nil, fmt.Errorf("catalog: %w", err)
 		}
 		if n > 0 {
@@ -154,8 +159,10 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 	return st, nil
 }
 
-// Close closes the metadata file.
-func (s *Store) Close() error { return s.db.Close() }
+// Close folds the audit journal into the metadata file and closes both.
+func (s *Store) Close() error {
+	return errors.Join(s.audits.j.close(s.db), s.db.Close())
+}
 
 // TempDir returns the directory the store writes temporary files to.
 func (s *Store) TempDir() string { return s.opt.TempDir }
