@@ -1,7 +1,6 @@
 package catalog
 
 import (
-	"bufio"
 	"context"
 	"encoding/binary"
 	"flag"
@@ -132,34 +131,7 @@ func TestAuditJournalSurvivesKill(t *testing.T) {
 	e.s.Close()
 	e.s = nil
 	cmd := crashChildCmd(t, e, "audit")
-	stdout, err := cmd.StdoutPipe()
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	done := make(chan bool, 1)
-	go func() {
-		sc := bufio.NewScanner(stdout)
-		for sc.Scan() {
-			if strings.Contains(sc.Text(), "recorded") {
-				done <- true
-				return
-			}
-		}
-		done <- false
-	}()
-	select {
-	case ok := <-done:
-		if !ok {
-			err := cmd.Wait()
-			t.Fatalf("the child ended before it recorded its entries: %v", err)
-		}
-	case <-time.After(60 * time.Second):
-		cmd.Process.Kill()
-		t.Fatal("the child never recorded its entries")
-	}
+	startChildUntil(t, cmd, "recorded")
 	if err := cmd.Process.Kill(); err != nil {
 		t.Fatal(err)
 	}

@@ -84,6 +84,40 @@ func (stallAfterSignal) Read([]byte) (int, error) {
 	select {}
 }
 
+// startChildUntil starts cmd and waits (a minute at most) until it prints
+// a line holding word.
+func startChildUntil(t *testing.T, cmd *exec.Cmd, word string) {
+	t.Helper()
+	stdout, err := cmd.StdoutPipe()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	seen := make(chan bool, 1)
+	go func() {
+		sc := bufio.NewScanner(stdout)
+		for sc.Scan() {
+			if strings.Contains(sc.Text(), word) {
+				seen <- true
+				return
+			}
+		}
+		seen <- false
+	}()
+	select {
+	case ok := <-seen:
+		if !ok {
+			err := cmd.Wait()
+			t.Fatalf("the child ended (%v) before it printed %q", err, word)
+		}
+	case <-time.After(60 * time.Second):
+		cmd.Process.Kill()
+		t.Fatalf("the child never printed %q", word)
+	}
+}
+
 func crashSetup(t *testing.T) (*env, *IngestResult) {
 	e := newEnv(t, nil)
 	e.dataset(t, "crash", "events", nil)
@@ -147,34 +181,7 @@ func TestCrashBetweenBlobAndCommit(t *testing.T) {
 func TestCrashWhileReading(t *testing.T) {
 	e, first := crashSetup(t)
 	cmd := crashChildCmd(t, e, "read")
-	stdout, err := cmd.StdoutPipe()
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	seen := make(chan bool, 1)
-	go func() {
-		sc := bufio.NewScanner(stdout)
-		for sc.Scan() {
-			if strings.Contains(sc.Text(), "stalled") {
-				seen <- true
-				return
-			}
-		}
-		seen <- false
-	}()
-	select {
-	case ok := <-seen:
-		if !ok {
-			cmd.Wait()
-			t.Fatal("child ended before it stalled")
-		}
-	case <-time.After(60 * time.Second):
-		cmd.Process.Kill()
-		t.Fatal("child never stalled")
-	}
+	startChildUntil(t, cmd, "stalled")
 	// The body was read ahead of the parser: wait for the runs of 500
 	// events to spill, then kill without warning.
 	var runs []string
@@ -196,34 +203,7 @@ func TestCrashWhileReading(t *testing.T) {
 func TestCrashDuringBlobWrite(t *testing.T) {
 	e, first := crashSetup(t)
 	cmd := crashChildCmd(t, e, "put")
-	stdout, err := cmd.StdoutPipe()
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	seen := make(chan bool, 1)
-	go func() {
-		sc := bufio.NewScanner(stdout)
-		for sc.Scan() {
-			if strings.Contains(sc.Text(), "stalled") {
-				seen <- true
-				return
-			}
-		}
-		seen <- false
-	}()
-	select {
-	case ok := <-seen:
-		if !ok {
-			cmd.Wait()
-			t.Fatal("child ended before it stalled")
-		}
-	case <-time.After(60 * time.Second):
-		cmd.Process.Kill()
-		t.Fatal("child never stalled")
-	}
+	startChildUntil(t, cmd, "stalled")
 	blobTmp := filepath.Join(e.dir, "blobs", "tmp")
 	puts, _ := filepath.Glob(filepath.Join(blobTmp, "put-*"))
 	if len(puts) != 1 {
