@@ -235,9 +235,12 @@ func (g *auditGroup) commit(db *bolt.DB, group []*auditWait) error {
 		j.mu.Lock()
 		err := j.append(group)
 		if err == nil && j.pending() >= auditJournalFoldAt {
-			if ferr := j.fold(db); ferr != nil {
-				g.log.Error("audit journal: fold failed; its entries stay in the journal and the next fold retries", "err", ferr)
+			// A failing fold is told once, until one succeeds again.
+			ferr := j.fold(db)
+			if ferr != nil && !j.foldFailing {
+				g.log.Error("audit journal: fold failed; its entries stay in the journal and later folds retry", "err", ferr)
 			}
+			j.foldFailing = ferr != nil
 		}
 		j.mu.Unlock()
 		if err == nil {

@@ -46,6 +46,10 @@ const (
 	auditJournalFoldAt = 256 << 10
 	// auditJournalRotate is the size past which a fold starts a new file.
 	auditJournalRotate = 1 << 20
+	// auditJournalMaxPending bounds what waits to be folded (in the file
+	// and as entries in memory) when folds fail: past it, groups go to
+	// the bucket directly, and fail with it.
+	auditJournalMaxPending = 4 << 20
 	// maxAuditRecord bounds one record's payload when the journal is read
 	// back; an entry's text fields are clipped far below it.
 	maxAuditRecord = 64 << 10
@@ -64,6 +68,8 @@ type auditJournal struct {
 	end    int64 // bytes appended and synced
 	folded int64 // records before this offset are in the bucket
 	broken error // the append that failed; nothing is appended since
+	// foldFailing is set while the groups' folds fail (told once).
+	foldFailing bool
 	buf    []byte
 	// unfolded are the entries of the records from folded to end, so a
 	// fold does not read them back.
@@ -211,6 +217,9 @@ func (j *auditJournal) scan(off int64, fn func([]byte) error) (int64, error) {
 func (j *auditJournal) append(group []*auditWait) error {
 	if j.broken != nil {
 		return j.broken
+	}
+	if j.pending() >= auditJournalMaxPending {
+		return fmt.Errorf("audit journal: %d bytes not folded into the catalog (folds fail)", j.pending())
 	}
 	b := j.buf[:0]
 	for _, w := range group {

@@ -260,3 +260,41 @@ func TestAuditJournalFormatKept(t *testing.T) {
 		}
 	}
 }
+
+// When folds fail (here: the bbolt file is closed under the store), the
+// journal takes entries up to auditJournalMaxPending, each durable, and
+// then refuses them with the bucket's own error: memory stays bounded and
+// no answered entry is lost; a store opened afterwards folds them all.
+func TestAuditJournalBoundedWhenFoldsFail(t *testing.T) {
+	e := newEnv(t, nil)
+	s := e.s
+	if err := s.db.Close(); err != nil {
+		t.Fatal(err)
+	}
+	ctx := WithActor(context.Background(), Actor{Subject: "reader"})
+	answered := 0
+	var refused error
+	for i := 0; i < 100_000; i++ {
+		refused = s.RecordAudit(ctx, AuditEntry{Action: "version.download", Target: "p/d@1", Detail: fmt.Sprintf("file %06d", i)})
+		if refused != nil {
+			break
+		}
+		answered++
+	}
+	if refused == nil {
+		t.Fatal("100000 entries taken with every fold failing")
+	}
+	j := s.audits.j
+	if j.pending() > auditJournalMaxPending+maxAuditRecord || len(j.unfolded) != answered {
+		t.Errorf("%d bytes and %d entries pending after %d answered", j.pending(), len(j.unfolded), answered)
+	}
+	if answered < 1000 {
+		t.Errorf("only %d entries answered before the refusal", answered)
+	}
+	j.f.Close()
+	e.s = nil
+	e.open(t, nil)
+	if seen := downloadsIn(t, readAudit(t, e.s)); len(seen) != answered {
+		t.Errorf("%d downloads in the trail, want the %d answered", len(seen), answered)
+	}
+}
