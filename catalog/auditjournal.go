@@ -70,7 +70,7 @@ type auditJournal struct {
 	broken error // the append that failed; nothing is appended since
 	// foldFailing is set while the groups' folds fail (told once).
 	foldFailing bool
-	buf    []byte
+	buf         []byte
 	// unfolded are the entries of the records from folded to end, so a
 	// fold does not read them back.
 	unfolded []AuditEntry
