@@ -166,7 +166,7 @@ func (s *Store) RecordAudit(ctx context.Context, e AuditEntry) error {
 }
 
 // auditGroup commits RecordAudit's entries in groups, one append to the
-// audit journal and one fdatasync (auditjournal.go; without a journal that
+// audit journal and one fsync (auditjournal.go; without a journal that
 // works, one transaction) for the entries that arrived while the previous
 // group was committing: a download is audited before its first byte is sent, and
 // one commit each would bound a server's downloads to its disk's fsyncs
@@ -232,10 +232,14 @@ func (g *auditGroup) record(db *bolt.DB, e AuditEntry) error {
 // a transaction of its own.
 func (g *auditGroup) commit(db *bolt.DB, group []*auditWait) error {
 	if j := g.j; j != nil {
+		// A failing append or fold is told once, until one succeeds again.
 		j.mu.Lock()
 		err := j.append(group)
+		if err != nil && !j.appendFailing {
+			g.log.Error("audit journal: append failed; audit entries go to the catalog one transaction each", "err", err)
+		}
+		j.appendFailing = err != nil
 		if err == nil && j.pending() >= auditJournalFoldAt {
-			// A failing fold is told once, until one succeeds again.
 			ferr := j.fold(db)
 			if ferr != nil && !j.foldFailing {
 				g.log.Error("audit journal: fold failed; its entries stay in the journal and later folds retry", "err", ferr)
@@ -246,7 +250,6 @@ func (g *auditGroup) commit(db *bolt.DB, group []*auditWait) error {
 		if err == nil {
 			return nil
 		}
-		g.log.Error("audit journal: append failed; audit entries go to the catalog one transaction each", "err", err)
 	}
 	return db.Update(func(tx *bolt.Tx) error {
 		for _, x := range group {

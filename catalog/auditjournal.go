@@ -17,7 +17,7 @@ import (
 // The audit journal holds RecordAudit's entries (downloads, exports,
 // refused requests) from the moment they are recorded until they are
 // folded into the audit bucket. A group of entries costs one append and
-// one fdatasync(2) there, where a bbolt commit costs its pages and two
+// one fsync(2) there, where a bbolt commit costs its pages and two
 // fdatasyncs; a fold moves many groups into the bucket in one commit.
 // Each entry is durable before RecordAudit returns, as before, and every
 // reader of the trail folds first, so the trail reads the same.
@@ -68,9 +68,10 @@ type auditJournal struct {
 	end    int64 // bytes appended and synced
 	folded int64 // records before this offset are in the bucket
 	broken error // the append that failed; nothing is appended since
-	// foldFailing is set while the groups' folds fail (told once).
-	foldFailing bool
-	buf         []byte
+	// appendFailing and foldFailing are set while the groups' appends or
+	// folds fail (each told once).
+	appendFailing, foldFailing bool
+	buf                        []byte
 	// unfolded are the entries of the records from folded to end, so a
 	// fold does not read them back.
 	unfolded []AuditEntry
@@ -237,7 +238,7 @@ func (j *auditJournal) append(group []*auditWait) error {
 	j.buf = b
 	_, err := j.f.WriteAt(b, j.end)
 	if err == nil {
-		err = j.f.Sync() // fdatasync where the platform has it
+		err = j.f.Sync() // fsync(2)
 	}
 	if err != nil {
 		// What reached the file is not trusted after a failed write or
