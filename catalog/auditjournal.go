@@ -276,7 +276,7 @@ func (j *auditJournal) fold(db *bolt.DB) error {
 					return err
 				}
 			}
-			return tx.Bucket(bucketMeta).Put(auditJournalMeta, j.mark(j.gen, j.end))
+			return tx.Bucket(bucketMeta).Put(auditJournalMeta, j.mark())
 		})
 		if err != nil {
 			return fmt.Errorf("audit journal: folding: %w", err)
@@ -291,8 +291,10 @@ func (j *auditJournal) fold(db *bolt.DB) error {
 	return nil
 }
 
-func (j *auditJournal) mark(gen uint64, off int64) []byte {
-	return binary.BigEndian.AppendUint64(binary.BigEndian.AppendUint64(nil, gen), uint64(off))
+// mark is the journal's place as the meta key holds it: the generation
+// and the offset folded up to, big-endian.
+func (j *auditJournal) mark() []byte {
+	return binary.BigEndian.AppendUint64(binary.BigEndian.AppendUint64(nil, j.gen), uint64(j.end))
 }
 
 // foldNow folds what is pending, for a reader of the trail.
