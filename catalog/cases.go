@@ -123,34 +123,32 @@ func (p *CasePass) Run(obs ...cases.Observer) (summary.Counts, error) {
 // marked by uploadMark (those events only) to mine, in one pass. The
 // observers of Kept get the cases made of the events summaries keep.
 func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) {
-	b := cases.NewBuilder(all...)
-	b.Terminal = p.Terminal
 	var bm *cases.Builder
 	if len(mine) > 0 {
 		bm = cases.NewBuilder(mine...)
 		bm.Terminal = p.Terminal
 	}
-	var kept *cases.Builder
-	if len(p.Kept) > 0 {
-		kept = cases.NewBuilder(p.Kept...)
-		kept.Terminal = p.Terminal
-	}
 	var c summary.Counts
-	// The summaries' builder runs on another goroutine, fed in batches:
-	// its observers (the summary, the process views) share nothing with
-	// the others', so the two cores split the per-case work. Events from
-	// the sort own their strings, so a copy may cross.
+	// Without Kept, all's builder runs here. With it, one split
+	// computation for all and Kept (cases.Split) runs on another
+	// goroutine, fed in batches in the stream's order, so the two cores
+	// split the work. Events from the sort own their strings, so a copy
+	// may cross.
+	var b *cases.Builder
+	var split *cases.Split
 	var kb *batches[schema.Event]
-	if kept != nil {
+	if len(p.Kept) > 0 {
+		split = cases.NewSplit(p.Terminal, all, p.Kept)
 		var kf keptFilter
 		kb = newBatches(keptBatchEvents, keptBatches, func(bt []schema.Event) error {
 			for i := range bt {
-				if kf.keep(&bt[i], &c) {
-					kept.Add(&bt[i])
-				}
+				split.Add(&bt[i], kf.keep(&bt[i], &c))
 			}
 			return nil
 		})
+	} else if len(all) > 0 {
+		b = cases.NewBuilder(all...)
+		b.Terminal = p.Terminal
 	}
 	var lastSubj, lastRes string
 	err := p.srt.Finish(func(e *schema.Event) error {
@@ -173,7 +171,7 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 		if marked && bm != nil {
 			bm.Add(e)
 		}
-		if len(all) > 0 {
+		if b != nil {
 			b.Add(e)
 		}
 		if kb != nil {
@@ -187,12 +185,8 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	if err != nil {
 		return summary.Counts{}, err
 	}
-	b.Flush()
 	if bm != nil {
 		bm.Flush()
-	}
-	if kept != nil {
-		kept.Flush()
 	}
 	subj, err := p.subjects.Count()
 	if err != nil {
@@ -202,9 +196,14 @@ func (p *CasePass) RunSplit(all, mine []cases.Observer) (summary.Counts, error) 
 	if err != nil {
 		return summary.Counts{}, err
 	}
-	c.Cases, c.Subjects, c.Resources = uint64(b.Cases()), subj, res
-	if kept != nil {
-		c.Cases = uint64(kept.Cases()) // the cases the summary figures cover
+	c.Subjects, c.Resources = subj, res
+	switch {
+	case split != nil:
+		split.Flush()
+		c.Cases = uint64(split.KeptCases()) // the cases the summary figures cover
+	case b != nil:
+		b.Flush()
+		c.Cases = uint64(b.Cases())
 	}
 	return c, nil
 }

@@ -532,11 +532,6 @@ func (g *groupBuild) route(e *schema.Event) (*groupWriter, error) {
 func (g *groupBuild) destFor(key string) (*groupWriter, error) {
 	if g.prev == nil {
 		if g.fresh == nil || g.fresh.count >= g.chunk {
-			if g.fresh != nil {
-				// Its last case to the case table (and the upload's own
-				// observers) before the next group's first.
-				g.fresh.all.Flush()
-			}
 			w, err := g.newWriter()
 			if err != nil {
 				return nil, err
@@ -571,8 +566,10 @@ func (g *groupBuild) destFor(key string) (*groupWriter, error) {
 
 // run is the per-case pass over cp's stream (CasePass.RunSplit's job, with
 // each case's computation in its group): the upload's own events also go
-// to mine. The summaries' builders run on another goroutine, fed in
-// batches, as in RunSplit.
+// to mine. The groups' per-case computations run on another goroutine,
+// fed in batches in the stream's order, as in RunSplit; each computes a
+// case once for its case-level figures and its summaries alike, unless
+// the summaries drop some of the case's events (cases.Split).
 func (g *groupBuild) run(cp *CasePass, mine []cases.Observer) error {
 	var bm *cases.Builder
 	if len(mine) > 0 {
@@ -583,13 +580,19 @@ func (g *groupBuild) run(cp *CasePass, mine []cases.Observer) error {
 		e schema.Event
 		w *groupWriter
 	}
-	// The groups' summaries run on another goroutine, as in RunSplit.
 	var kf keptFilter
+	var last *groupWriter
 	kb := newBatches(keptBatchEvents, keptBatches, func(bt []item) error {
 		for i := range bt {
-			if e, w := &bt[i].e, bt[i].w; kf.keep(e, &w.kc) {
-				w.kept.Add(e)
+			e, w := &bt[i].e, bt[i].w
+			if w != last && last != nil {
+				// A case is whole in its group: the last group's case in
+				// hand has ended. Flushed now, it reaches observers the
+				// groups share (the case table) before the next one.
+				last.split.Flush()
 			}
+			last = w
+			w.split.Add(e, kf.keep(e, &w.kc))
 		}
 		return nil
 	})
@@ -606,7 +609,7 @@ func (g *groupBuild) run(cp *CasePass, mine []cases.Observer) error {
 		if w == nil {
 			return nil
 		}
-		if err := w.observe(e); err != nil {
+		if err := w.distinct(e); err != nil {
 			return err
 		}
 		return kb.add(item{*e, w})
@@ -695,8 +698,7 @@ type groupWriter struct {
 	enc          []byte
 	removed      bool
 
-	all       *cases.Builder
-	kept      *cases.Builder
+	split     *cases.Split
 	qacc      *quality.Accumulator
 	sum       *summary.Accumulator
 	part      *partWriter
@@ -733,11 +735,8 @@ func newGroupWriter(dir string, qopt quality.Options, sopt summary.Options, term
 		return nil, err
 	}
 	w.qacc = quality.NewAccumulator(qopt)
-	w.all = cases.NewBuilder(append([]cases.Observer{w.qacc, w.part}, extra...)...)
-	w.all.Terminal = terminal
 	w.sum = summary.New(sopt)
-	w.kept = cases.NewBuilder(w.sum, w.sum.Process())
-	w.kept.Terminal = terminal
+	w.split = cases.NewSplit(terminal, append([]cases.Observer{w.qacc, w.part}, extra...), []cases.Observer{w.sum, w.sum.Process()})
 	w.subjects = newDistinctCounter(dir, groupDistinctMemory)
 	w.resources = newDistinctCounter(dir, groupDistinctMemory)
 	return w, nil
@@ -758,9 +757,8 @@ func (w *groupWriter) write(e *schema.Event) error {
 	return err
 }
 
-// observe feeds e (marks removed) to the group's computation on the
-// pass's goroutine.
-func (w *groupWriter) observe(e *schema.Event) error {
+// distinct counts e's subject and resource among the group's.
+func (w *groupWriter) distinct(e *schema.Event) error {
 	if e.SubjectID != "" && e.SubjectID != w.lastSubj {
 		if err := w.subjects.Add(e.SubjectID); err != nil {
 			return err
@@ -773,15 +771,13 @@ func (w *groupWriter) observe(e *schema.Event) error {
 		}
 		w.lastRes = strings.Clone(e.ResourceID)
 	}
-	w.all.Add(e)
 	return nil
 }
 
 // finish completes the group (after the pass) and returns it with its
 // files, in the order of caseGroup.blobs, each at its start.
 func (w *groupWriter) finish() (*caseGroup, []*os.File, error) {
-	w.all.Flush()
-	w.kept.Flush()
+	w.split.Flush()
 	if err := w.evw.Close(); err != nil {
 		return nil, nil, fmt.Errorf("case groups: %w", err)
 	}
@@ -797,7 +793,7 @@ func (w *groupWriter) finish() (*caseGroup, []*os.File, error) {
 		}
 	}
 	gr := &caseGroup{Events: blob.ID(w.evh.Sum(nil)), Keys: blob.ID(w.kh.Sum(nil)), Cases: w.cases, Count: w.count, Bytes: w.evn,
-		Kept: w.kept.Cases(), Later: int64(w.kc.LaterThanUpload), Outside: int64(w.kc.OutsideWindow), Copies: int64(w.kc.ExactDuplicates),
+		Kept: w.split.KeptCases(), Later: int64(w.kc.LaterThanUpload), Outside: int64(w.kc.OutsideWindow), Copies: int64(w.kc.ExactDuplicates),
 		Upload: w.upload}
 	pf, pid, err := w.part.finish()
 	if err != nil {
