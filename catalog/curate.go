@@ -95,12 +95,12 @@ func (s *Store) setState(ctx context.Context, project, dataset string, n int, by
 			return err
 		}
 		if !changed {
-			return withManifest(tx, &v)
+			return s.withManifest(tx, &v)
 		}
 		if err := putVersion(tx, &v); err != nil {
 			return err
 		}
-		if err := withManifest(tx, &v); err != nil {
+		if err := s.withManifest(tx, &v); err != nil {
 			return err
 		}
 		return auditCtx(ctx, tx, s.opt.Now(), by, action, fmt.Sprintf("%s@%d", ref, n))

@@ -1035,7 +1035,7 @@ func (s *Store) versionByDigest(ref, hexDigest string) (*Version, error) {
 		if err := getJSON(tx.Bucket(bucketVersions), seqKey(ref, int(binary.BigEndian.Uint32(n))), &v, "version"); err != nil {
 			return err
 		}
-		return withManifest(tx, &v)
+		return s.withManifest(tx, &v)
 	})
 	if err != nil {
 		return nil, err

@@ -157,7 +157,7 @@ func fillHeadlines(tx *bolt.Tx) error {
 		if err := json.Unmarshal(data, v); err != nil {
 			return fmt.Errorf("catalog: migrate version %q: %w", k, err)
 		}
-		if err := withManifest(tx, v); err != nil {
+		if err := withManifest(tx, v, nil); err != nil {
 			return err
 		}
 		v.setHeadline(v.Manifest)

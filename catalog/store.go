@@ -74,7 +74,8 @@ type Store struct {
 	// audits commits the entries of RecordAudit in groups (audit.go).
 	audits auditGroup
 	// versions keeps decoded version records (versionmemo.go).
-	versions versionMemo
+	versions  versionMemo
+	manifests manifestMemo
 }
 
 // Open opens (creating if needed) the bbolt file at path. It fails with

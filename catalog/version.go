@@ -203,13 +203,18 @@ func putOnce(b *bolt.Bucket, what, key string, data []byte) error {
 }
 
 // withManifest decodes v's stored manifest into v.Manifest.
-func withManifest(tx *bolt.Tx, v *Version) error {
-	b := tx.Bucket(bucketManifests).Get([]byte(v.SnapshotID.String()))
+func (s *Store) withManifest(tx *bolt.Tx, v *Version) error { return withManifest(tx, v, &s.manifests) }
+
+// withManifest decodes v's stored manifest into v.Manifest, through memo
+// unless it is nil.
+func withManifest(tx *bolt.Tx, v *Version, memo *manifestMemo) error {
+	key := v.SnapshotID.String()
+	b := tx.Bucket(bucketManifests).Get([]byte(key))
 	if b == nil {
 		return fmt.Errorf("catalog: version %s@%d: manifest %s is missing", v.Dataset, v.Number, v.SnapshotID)
 	}
-	var m Manifest
-	if err := json.Unmarshal(b, &m); err != nil {
+	m, err := memo.decode(key, b)
+	if err != nil {
 		return fmt.Errorf("catalog: version %s@%d: manifest: %w", v.Dataset, v.Number, err)
 	}
 	v.Manifest = &m
@@ -358,7 +363,7 @@ func (s *Store) Versions(ctx context.Context, project, dataset string) ([]Versio
 	}
 	err = s.db.View(func(tx *bolt.Tx) error {
 		for i := range vs {
-			if err := withManifest(tx, &vs[i]); err != nil {
+			if err := s.withManifest(tx, &vs[i]); err != nil {
 				return err
 			}
 		}
@@ -387,7 +392,7 @@ func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*V
 		if v, err = s.versions.get(tx.Bucket(bucketVersions), seqKey(ref, n), fmt.Sprintf("version %s@%d", ref, n)); err != nil {
 			return err
 		}
-		return withManifest(tx, &v)
+		return s.withManifest(tx, &v)
 	})
 	if err != nil {
 		return nil, err

@@ -86,3 +86,88 @@ func clonePtr[T any](p *T) *T {
 	x := *p
 	return &x
 }
+
+// memoManifests bounds how many decoded manifests a Store keeps (least
+// recently used first out), and memoManifestBytes the stored size of one
+// it keeps: a manifest grows with its version's files (about 400 bytes a
+// file), so the memory holds at most a few MiB.
+const (
+	memoManifests     = 32
+	memoManifestBytes = 128 << 10
+)
+
+// manifestMemo keeps decoded manifests beside the stored bytes they were
+// decoded from, as versionMemo keeps version records: a manifest read
+// again is compared byte for byte with what is stored and handed out as a
+// deep copy. A manifest is stored once under its snapshot id, the SHA-256
+// of its bytes, and never changes; the comparison keeps the memory honest
+// even so. Decoding the manifest was the main cost of a download's
+// lookups.
+type manifestMemo struct {
+	once sync.Once
+	c    *lru.Cache[string, memoManifest]
+}
+
+type memoManifest struct {
+	raw []byte
+	m   Manifest
+}
+
+// decode returns the manifest stored under key as raw; a nil memo only
+// decodes.
+func (m *manifestMemo) decode(key string, raw []byte) (Manifest, error) {
+	if m == nil {
+		var man Manifest
+		err := json.Unmarshal(raw, &man)
+		return man, err
+	}
+	m.once.Do(func() { m.c, _ = lru.New[string, memoManifest](memoManifests) })
+	if e, ok := m.c.Get(key); ok && bytes.Equal(e.raw, raw) {
+		return e.m.clone(), nil
+	}
+	var man Manifest
+	if err := json.Unmarshal(raw, &man); err != nil {
+		return Manifest{}, err
+	}
+	if len(raw) <= memoManifestBytes {
+		m.c.Add(key, memoManifest{raw: bytes.Clone(raw), m: man.clone()})
+	}
+	return man, nil
+}
+
+// clone is a deep copy of a manifest. TestManifestCloneIsDeep fails when
+// a field that holds a reference is added and not copied here.
+func (m Manifest) clone() Manifest {
+	c := m
+	l := &c.Lineage
+	l.From, l.To = clonePtr(m.Lineage.From), clonePtr(m.Lineage.To)
+	l.Sites = slices.Clone(m.Lineage.Sites)
+	if m.Lineage.Events != nil {
+		e := *m.Lineage.Events
+		e.Sites = slices.Clone(e.Sites)
+		l.Events = &e
+	}
+	c.Files = slices.Clone(m.Files)
+	for i := range c.Files {
+		f := &c.Files[i]
+		f.DerivedFrom = clonePtr(f.DerivedFrom)
+		if f.Attributes != nil {
+			a := slices.Clone(*f.Attributes)
+			f.Attributes = &a
+		}
+	}
+	c.CaseTable = clonePtr(m.CaseTable)
+	c.Uploads = slices.Clone(m.Uploads)
+	if m.Quality != nil {
+		q := *m.Quality
+		q.Score = clonePtr(q.Score)
+		c.Quality = &q
+	}
+	if m.CaseAttributes != nil {
+		t := *m.CaseAttributes
+		t.Columns = slices.Clone(t.Columns)
+		c.CaseAttributes = &t
+	}
+	c.Disclosure = clonePtr(m.Disclosure)
+	return c
+}

@@ -2,9 +2,12 @@ package catalog
 
 import (
 	"context"
+	"encoding/json"
 	"reflect"
 	"testing"
 	"time"
+
+	"github.com/flowcat-catalog/flowcat/catalog/blob"
 )
 
 // TestVersionMemoFollowsTheStore reads a version record, changes it
@@ -143,4 +146,58 @@ func shared(t *testing.T, path string, a, b reflect.Value) {
 			shared(t, path+"[i]", a.Index(i), b.Index(i))
 		}
 	}
+}
+
+// TestManifestCloneIsDeep fills every field of a Manifest, clones it and
+// checks that no pointer, map or slice of the copy is shared with the
+// original.
+func TestManifestCloneIsDeep(t *testing.T) {
+	var m Manifest
+	fill(reflect.ValueOf(&m).Elem())
+	c := m.clone()
+	if !reflect.DeepEqual(m, c) {
+		t.Fatalf("clone differs:\n%+v\n%+v", m, c)
+	}
+	shared(t, "Manifest", reflect.ValueOf(m), reflect.ValueOf(c))
+}
+
+// TestManifestMemoHandsOutCopies reads a version's manifest twice through
+// the memory, changes what the first read gave, and reads again: each
+// answer equals the manifest decoded afresh from the stored bytes.
+func TestManifestMemoHandsOutCopies(t *testing.T) {
+	e := newEnv(t, nil)
+	ctx := context.Background()
+	e.dataset(t, "lab", "flow", nil)
+	e.ingest(t, "lab", "flow", genCSV(genOpt{Seed: 3, N: 80}), "a.csv")
+	v := e.ingest(t, "lab", "flow", genCSV(genOpt{Seed: 4, N: 80}), "b.csv").Version
+	raw, err := e.s.ManifestBytes(ctx, v)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var want Manifest
+	if err := json.Unmarshal(raw, &want); err != nil {
+		t.Fatal(err)
+	}
+	if len(want.Files) < 2 {
+		t.Fatalf("want a manifest of two files, got %d", len(want.Files))
+	}
+	read := func() *Manifest {
+		t.Helper()
+		got, err := e.s.Version(ctx, "lab", "flow", v.Number)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !reflect.DeepEqual(*got.Manifest, want) {
+			t.Fatalf("manifest read differs from the stored bytes decoded:\n%+v\n%+v", *got.Manifest, want)
+		}
+		return got.Manifest
+	}
+	for range 2 { // the first read decodes, the second is from the memory
+		m := read()
+		m.Files[0].Rows = -1
+		m.Files = m.Files[:1]
+		m.Uploads[0] = "changed"
+		m.Quality.SHA256 = blob.ID{}
+	}
+	read()
 }
