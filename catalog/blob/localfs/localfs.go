@@ -176,7 +176,7 @@ func (s *Store) SweepTemp(ctx context.Context, olderThan time.Duration, dryRun b
 
 // Open implements blob.Store.
 func (s *Store) Open(ctx context.Context, id blob.ID) (blob.Reader, error) {
-	f, err := os.Open(s.path(id))
+	f, err := openRead(s.path(id))
 	if errors.Is(err, fs.ErrNotExist) {
 		return nil, fmt.Errorf("localfs: %s: %w", id, blob.ErrNotFound)
 	}
