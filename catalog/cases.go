@@ -237,7 +237,7 @@ func (k *keptFilter) keep(e *schema.Event, c *summary.Counts) bool {
 // Batches of events the summaries' builder takes, and how many wait.
 const (
 	keptBatchEvents = 1024
-	keptBatches     = 4
+	keptBatches     = 8
 )
 
 // Close removes the temporary files.

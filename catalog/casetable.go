@@ -30,6 +30,10 @@ type caseTableWriter struct {
 	err   error
 }
 
+// caseTableBatches is how many batches of 1024 rows wait for the case
+// table's writer (see batches).
+const caseTableBatches = 4
+
 func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTableWriter, error) {
 	t, err := newTempTable(dir, "cases-*.parquet", "case table")
 	if err != nil {
@@ -42,7 +46,7 @@ func newCaseTableWriter(dir string, rowGroupRows int64, keyID string) (*caseTabl
 	// batches (TestCaseRowNulls reads them back with Arrow).
 	cw.w = parquet.NewGenericWriter[cases.Row](t.out(), fileOptions(nil, fileSettings{RowGroupRows: rowGroupRows,
 		Metadata: []KeyValue{{"flowcat.pseudonym_key_id", keyID}, {"flowcat.table", "cases"}}})...)
-	cw.batch = newBatches(1024, 1, func(rows []cases.Row) error {
+	cw.batch = newBatches(1024, caseTableBatches, func(rows []cases.Row) error {
 		if _, err := cw.w.Write(rows); err != nil {
 			return fmt.Errorf("case table: %w", err)
 		}

@@ -945,7 +945,7 @@ type readBatch struct {
 // Rows per parsed batch and batches parsed ahead of the pseudonymizer.
 const (
 	readBatchRows    = 512
-	readAheadBatches = 4
+	readAheadBatches = 8
 )
 
 // mappedFields lists the fields a profile fills on purpose, for the

@@ -30,6 +30,10 @@ type snapshotWriter struct {
 	max   time.Time
 }
 
+// snapshotBatches is how many batches of 1024 events wait for the
+// snapshot writer (see batches).
+const snapshotBatches = 4
+
 // derivedFrom, when not empty, is written into the file's metadata: a file
 // rewritten by replace-window thus never has the bytes of another file.
 func newSnapshotWriter(dir string, rowGroupRows int64, keyID string, derivedFrom ...string) (*snapshotWriter, error) {
@@ -54,7 +58,7 @@ func newAttrSnapshotWriter(dir string, rowGroupRows int64, keyID string, ac *Att
 		kv = append(kv, KeyValue{"flowcat.event_attributes", eventAttributesMeta(attrs)})
 	}
 	sw.w = NewEventWriter(t.out(), schema.Fields, EventWriterOptions{RowGroupRows: rowGroupRows, Metadata: kv, Attrs: attrs})
-	sw.batch = newBatches(1024, 1, sw.w.WriteEvents)
+	sw.batch = newBatches(1024, snapshotBatches, sw.w.WriteEvents)
 	return sw, nil
 }
 

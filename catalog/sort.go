@@ -12,6 +12,8 @@ import (
 	"strings"
 	"time"
 
+	"github.com/klauspost/compress/s2"
+
 	"github.com/flowcat-catalog/flowcat/catalog/internal/kway"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/schema/cases"
@@ -43,7 +45,8 @@ type sorter struct {
 	runs    []*os.File
 	enc     []byte
 	inter   map[string]string
-	bytes   int // string bytes held in buf
+	rw      *s2.Writer // the writer of every run, reset for each (runWriter)
+	bytes   int        // string bytes held in buf
 	// inputs are runs sorted already (a version's case groups), merged
 	// with the sorter's own by Finish.
 	inputs []io.Reader
@@ -282,7 +285,7 @@ func (s *sorter) wait() error {
 
 // writeRun writes buf, sorted, to f.
 func (s *sorter) writeRun(f *os.File, buf []schema.Event, wk *spillWork) error {
-	w := newRunWriter(f)
+	w := s.runWriter(f)
 	for _, k := range s.orderOf(buf, wk) {
 		wk.enc = encodeEvent(wk.enc[:0], &buf[k.idx])
 		if _, err := w.Write(wk.enc); err != nil {
@@ -294,6 +297,20 @@ func (s *sorter) writeRun(f *os.File, buf []schema.Event, wk *spillWork) error {
 		return fmt.Errorf("sort: %w", err)
 	}
 	return nil
+}
+
+// runWriter returns the writer of the run framing over f: one writer,
+// reset for each run, so that its block buffers are allocated once per
+// sort rather than once per run. Runs are written one at a time (a spill
+// waits for the one before it; merges of the oldest runs follow the last
+// spill).
+func (s *sorter) runWriter(f io.Writer) *s2.Writer {
+	if s.rw == nil {
+		s.rw = newRunWriter(f)
+	} else {
+		s.rw.Reset(f)
+	}
+	return s.rw
 }
 
 // addSorted adds r, a stream of events in the run format already in the
@@ -341,10 +358,11 @@ var errMergeStopped = errors.New("sort: merge stopped")
 
 // mergeAhead is merge with the reading, decoding and ordering of runs on
 // another goroutine, handed over in batches of events, so that it overlaps
-// with fn's work on two cores. It holds eight batches of mergeBatch events:
-// deep enough that neither side waits on the other's bursts.
+// with fn's work on two cores. It holds sixteen batches of mergeBatch
+// events: deep enough that neither side waits on the other's bursts (see
+// batches).
 func (s *sorter) mergeAhead(runs []io.Reader, fn func(*schema.Event) error) error {
-	const mergeBatch, batches = 512, 8
+	const mergeBatch, batches = 512, 16
 	full := make(chan []schema.Event, batches-1)
 	free := make(chan []schema.Event, batches)
 	for range batches {
@@ -409,7 +427,7 @@ func (s *sorter) mergeOldest() error {
 	if err != nil {
 		return err
 	}
-	w := newRunWriter(f)
+	w := s.runWriter(f)
 	err = s.merge(s.runs[:s.fanIn], func(e *schema.Event) error {
 		s.enc = encodeEvent(s.enc[:0], e)
 		if _, err := w.Write(s.enc); err != nil {
