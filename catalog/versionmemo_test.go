@@ -60,14 +60,19 @@ func TestVersionMemoFollowsTheStore(t *testing.T) {
 // TestVersionCloneIsDeep fills every field of a Version, clones it and
 // checks that no pointer, map or slice of the copy is shared with the
 // original (Manifest excepted: it is not part of the record).
-func TestVersionCloneIsDeep(t *testing.T) {
-	var v Version
-	fill(reflect.ValueOf(&v).Elem())
-	c := v.clone()
-	if !reflect.DeepEqual(v, c) {
-		t.Fatalf("clone differs:\n%+v\n%+v", v, c)
+func TestVersionCloneIsDeep(t *testing.T) { cloneIsDeep(t, "Version", Version.clone) }
+
+// cloneIsDeep fills every exported field of a T, clones it and fails
+// where the copy differs or shares a pointer, map or slice with it.
+func cloneIsDeep[T any](t *testing.T, name string, clone func(T) T) {
+	t.Helper()
+	var x T
+	fill(reflect.ValueOf(&x).Elem())
+	c := clone(x)
+	if !reflect.DeepEqual(x, c) {
+		t.Fatalf("clone differs:\n%+v\n%+v", x, c)
 	}
-	shared(t, "Version", reflect.ValueOf(v), reflect.ValueOf(c))
+	shared(t, name, reflect.ValueOf(x), reflect.ValueOf(c))
 }
 
 // fill sets every exported field reachable from x to a non-zero value.
@@ -151,15 +156,7 @@ func shared(t *testing.T, path string, a, b reflect.Value) {
 // TestManifestCloneIsDeep fills every field of a Manifest, clones it and
 // checks that no pointer, map or slice of the copy is shared with the
 // original.
-func TestManifestCloneIsDeep(t *testing.T) {
-	var m Manifest
-	fill(reflect.ValueOf(&m).Elem())
-	c := m.clone()
-	if !reflect.DeepEqual(m, c) {
-		t.Fatalf("clone differs:\n%+v\n%+v", m, c)
-	}
-	shared(t, "Manifest", reflect.ValueOf(m), reflect.ValueOf(c))
-}
+func TestManifestCloneIsDeep(t *testing.T) { cloneIsDeep(t, "Manifest", Manifest.clone) }
 
 // TestManifestMemoHandsOutCopies reads a version's manifest twice through
 // the memory, changes what the first read gave, and reads again: each
