@@ -74,8 +74,8 @@ type Store struct {
 	// audits commits the entries of RecordAudit in groups (audit.go).
 	audits auditGroup
 	// versions keeps decoded version records (versionmemo.go).
-	versions  versionMemo
-	manifests manifestMemo
+	versions  *decodedMemo[Version]
+	manifests *decodedMemo[Manifest] // decoded manifests, as versions
 }
 
 // Open opens (creating if needed) the bbolt file at path. It fails with
@@ -132,7 +132,8 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		db.Close()
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
-	st := &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{}}
+	st := &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{},
+		versions: newDecodedMemo[Version](memoVersions, 0), manifests: newDecodedMemo[Manifest](memoManifests, memoManifestBytes)}
 	if st.audits.j, err = openAuditJournal(db, path); err != nil {
 		db.Close()
 		return nil, fmt.Errorf("catalog: %w", err)

@@ -203,13 +203,13 @@ func putOnce(b *bolt.Bucket, what, key string, data []byte) error {
 }
 
 // withManifest decodes v's stored manifest into v.Manifest.
-func (s *Store) withManifest(tx *bolt.Tx, v *Version) error { return withManifest(tx, v, &s.manifests) }
+func (s *Store) withManifest(tx *bolt.Tx, v *Version) error { return withManifest(tx, v, s.manifests) }
 
 // withManifest decodes v's stored manifest into v.Manifest, through memo
 // unless it is nil.
-func withManifest(tx *bolt.Tx, v *Version, memo *manifestMemo) error {
-	key := v.SnapshotID.String()
-	b := tx.Bucket(bucketManifests).Get([]byte(key))
+func withManifest(tx *bolt.Tx, v *Version, memo *decodedMemo[Manifest]) error {
+	key := []byte(v.SnapshotID.String())
+	b := tx.Bucket(bucketManifests).Get(key)
 	if b == nil {
 		return fmt.Errorf("catalog: version %s@%d: manifest %s is missing", v.Dataset, v.Number, v.SnapshotID)
 	}

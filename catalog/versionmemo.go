@@ -16,42 +16,68 @@ import (
 // (least recently used first out); a record is about a kilobyte.
 const memoVersions = 1024
 
-// versionMemo keeps decoded version records beside the stored bytes they
-// were decoded from. A record read again is compared byte for byte with
-// what is stored now and, only if equal, handed out as a deep copy: a
-// changed record (published, retracted, migrated) is decoded afresh, so
-// the memory can never answer with anything but what is stored. Reading
-// a version record is the main cost of a request for a stored summary.
-type versionMemo struct {
-	once sync.Once
-	c    *lru.Cache[string, memoVersion]
+// memoManifests bounds how many decoded manifests a Store keeps, and
+// memoManifestBytes the stored size of one it keeps: a manifest grows with
+// its version's files (about 400 bytes a file), so the memory holds at
+// most a few MiB. Decoding the manifest was the main cost of a download's
+// lookups.
+const (
+	memoManifests     = 32
+	memoManifestBytes = 128 << 10
+)
+
+// decodedMemo keeps decoded JSON records (version records, manifests)
+// beside the stored bytes they were decoded from. A record read again is
+// compared byte for byte with what is stored now and, only if equal,
+// handed out as a deep copy: a changed record (published, retracted,
+// migrated) is decoded afresh, so the memory can never answer with
+// anything but what is stored. Reading a version record is the main cost
+// of a request for a stored summary. A nil memo only decodes.
+type decodedMemo[T cloner[T]] struct {
+	size     int // records kept, least recently used first out
+	maxBytes int // a record stored in more bytes is not kept; 0: no bound
+	once     sync.Once
+	c        *lru.Cache[string, memoEntry[T]]
 }
 
-type memoVersion struct {
+// cloner is a record type with a deep copy.
+type cloner[T any] interface{ clone() T }
+
+type memoEntry[T any] struct {
 	raw []byte
-	v   Version
+	x   T
 }
 
-// decode returns the version record stored under key as raw.
-func (m *versionMemo) decode(key, raw []byte) (Version, error) {
-	m.once.Do(func() { m.c, _ = lru.New[string, memoVersion](memoVersions) })
+func newDecodedMemo[T cloner[T]](size, maxBytes int) *decodedMemo[T] {
+	return &decodedMemo[T]{size: size, maxBytes: maxBytes}
+}
+
+// decode returns the record stored under key as raw.
+func (m *decodedMemo[T]) decode(key, raw []byte) (T, error) {
+	var x T
+	if m == nil {
+		err := json.Unmarshal(raw, &x)
+		return x, err
+	}
+	m.once.Do(func() { m.c, _ = lru.New[string, memoEntry[T]](m.size) })
 	if e, ok := m.c.Get(string(key)); ok && bytes.Equal(e.raw, raw) {
-		return e.v.clone(), nil
+		return e.x.clone(), nil
 	}
-	var v Version
-	if err := json.Unmarshal(raw, &v); err != nil {
-		return Version{}, fmt.Errorf("catalog: %s: %w", key, err)
+	if err := json.Unmarshal(raw, &x); err != nil {
+		return x, fmt.Errorf("catalog: %s: %w", key, err)
 	}
-	m.c.Add(string(key), memoVersion{raw: bytes.Clone(raw), v: v.clone()})
-	return v, nil
+	if m.maxBytes == 0 || len(raw) <= m.maxBytes {
+		m.c.Add(string(key), memoEntry[T]{raw: bytes.Clone(raw), x: x.clone()})
+	}
+	return x, nil
 }
 
-// get decodes the version record under key of b, or ErrNotFound naming
-// what.
-func (m *versionMemo) get(b *bolt.Bucket, key []byte, what string) (Version, error) {
+// get decodes the record under key of b, or ErrNotFound naming what.
+func (m *decodedMemo[T]) get(b *bolt.Bucket, key []byte, what string) (T, error) {
 	raw := b.Get(key)
 	if raw == nil {
-		return Version{}, fmt.Errorf("%s: %w", what, ErrNotFound)
+		var x T
+		return x, fmt.Errorf("%s: %w", what, ErrNotFound)
 	}
 	return m.decode(key, raw)
 }
@@ -71,12 +97,18 @@ func (v Version) clone() Version {
 			c.Scores[k] = clonePtr(s)
 		}
 	}
-	if v.Events != nil {
-		e := *v.Events
-		e.Sites = slices.Clone(v.Events.Sites)
-		c.Events = &e
-	}
+	c.Events = v.Events.clone()
 	return c
+}
+
+// clone is a deep copy of c; nil for nil.
+func (c *EventCounts) clone() *EventCounts {
+	if c == nil {
+		return nil
+	}
+	x := *c
+	x.Sites = slices.Clone(c.Sites)
+	return &x
 }
 
 func clonePtr[T any](p *T) *T {
@@ -87,54 +119,6 @@ func clonePtr[T any](p *T) *T {
 	return &x
 }
 
-// memoManifests bounds how many decoded manifests a Store keeps (least
-// recently used first out), and memoManifestBytes the stored size of one
-// it keeps: a manifest grows with its version's files (about 400 bytes a
-// file), so the memory holds at most a few MiB.
-const (
-	memoManifests     = 32
-	memoManifestBytes = 128 << 10
-)
-
-// manifestMemo keeps decoded manifests beside the stored bytes they were
-// decoded from, as versionMemo keeps version records: a manifest read
-// again is compared byte for byte with what is stored and handed out as a
-// deep copy. A manifest is stored once under its snapshot id, the SHA-256
-// of its bytes, and never changes; the comparison keeps the memory honest
-// even so. Decoding the manifest was the main cost of a download's
-// lookups.
-type manifestMemo struct {
-	once sync.Once
-	c    *lru.Cache[string, memoManifest]
-}
-
-type memoManifest struct {
-	raw []byte
-	m   Manifest
-}
-
-// decode returns the manifest stored under key as raw; a nil memo only
-// decodes.
-func (m *manifestMemo) decode(key string, raw []byte) (Manifest, error) {
-	if m == nil {
-		var man Manifest
-		err := json.Unmarshal(raw, &man)
-		return man, err
-	}
-	m.once.Do(func() { m.c, _ = lru.New[string, memoManifest](memoManifests) })
-	if e, ok := m.c.Get(key); ok && bytes.Equal(e.raw, raw) {
-		return e.m.clone(), nil
-	}
-	var man Manifest
-	if err := json.Unmarshal(raw, &man); err != nil {
-		return Manifest{}, err
-	}
-	if len(raw) <= memoManifestBytes {
-		m.c.Add(key, memoManifest{raw: bytes.Clone(raw), m: man.clone()})
-	}
-	return man, nil
-}
-
 // clone is a deep copy of a manifest. TestManifestCloneIsDeep fails when
 // a field that holds a reference is added and not copied here.
 func (m Manifest) clone() Manifest {
@@ -142,11 +126,7 @@ func (m Manifest) clone() Manifest {
 	l := &c.Lineage
 	l.From, l.To = clonePtr(m.Lineage.From), clonePtr(m.Lineage.To)
 	l.Sites = slices.Clone(m.Lineage.Sites)
-	if m.Lineage.Events != nil {
-		e := *m.Lineage.Events
-		e.Sites = slices.Clone(e.Sites)
-		l.Events = &e
-	}
+	l.Events = m.Lineage.Events.clone()
 	c.Files = slices.Clone(m.Files)
 	for i := range c.Files {
 		f := &c.Files[i]
