@@ -193,7 +193,7 @@ type auditDone struct {
 	lead bool // commit the pending group (this entry among them)
 }
 
-func (g *auditGroup) record(db *bolt.DB, e AuditEntry) error {
+func (g *auditGroup) record(db *metaDB, e AuditEntry) error {
 	w := &auditWait{e: e, done: make(chan auditDone, 1)}
 	g.mu.Lock()
 	g.pending = append(g.pending, w)
@@ -230,7 +230,7 @@ func (g *auditGroup) record(db *bolt.DB, e AuditEntry) error {
 // commit makes a group durable: appended to the journal, folding it into
 // the bucket when enough is pending, or, without a journal that works, in
 // a transaction of its own.
-func (g *auditGroup) commit(db *bolt.DB, group []*auditWait) error {
+func (g *auditGroup) commit(db *metaDB, group []*auditWait) error {
 	if j := g.j; j != nil {
 		// A failing append or fold is told once, until one succeeds again.
 		j.mu.Lock()

@@ -79,7 +79,7 @@ type auditJournal struct {
 
 // openAuditJournal opens (creating if needed) the journal of the bbolt
 // file at dbPath and folds into db the records an earlier run left.
-func openAuditJournal(db *bolt.DB, dbPath string) (*auditJournal, error) {
+func openAuditJournal(db *metaDB, dbPath string) (*auditJournal, error) {
 	j := &auditJournal{path: dbPath + "-audit"}
 	var metaGen uint64
 	var metaOff int64
@@ -268,7 +268,7 @@ func (j *auditJournal) pending() int64 { return j.end - j.folded }
 // fold moves the records not yet folded into the audit bucket, with the
 // journal's new folded offset, in one transaction; then, past
 // auditJournalRotate bytes, starts a new file. The caller holds j.mu.
-func (j *auditJournal) fold(db *bolt.DB) error {
+func (j *auditJournal) fold(db *metaDB) error {
 	if j.end > j.folded {
 		err := db.Update(func(tx *bolt.Tx) error {
 			for _, e := range j.unfolded {
@@ -298,7 +298,7 @@ func (j *auditJournal) mark() []byte {
 }
 
 // foldNow folds what is pending, for a reader of the trail.
-func (j *auditJournal) foldNow(db *bolt.DB) error {
+func (j *auditJournal) foldNow(db *metaDB) error {
 	if j == nil {
 		return nil
 	}
@@ -308,7 +308,7 @@ func (j *auditJournal) foldNow(db *bolt.DB) error {
 }
 
 // close folds what is pending and closes the file.
-func (j *auditJournal) close(db *bolt.DB) error {
+func (j *auditJournal) close(db *metaDB) error {
 	if j == nil {
 		return nil
 	}

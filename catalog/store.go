@@ -61,7 +61,7 @@ type Options struct {
 // Store is the catalog: metadata in bbolt, snapshot files in a blob.Store.
 // It is safe for concurrent use.
 type Store struct {
-	db    *bolt.DB
+	db    *metaDB
 	blobs blob.Store
 	opt   Options
 
@@ -76,6 +76,11 @@ type Store struct {
 	// versions keeps decoded version records (versionmemo.go).
 	versions  *decodedMemo[Version]
 	manifests *decodedMemo[Manifest] // decoded manifests, as versions
+	// Answers of the reads each request repeats, kept until the next
+	// write (metadb.go).
+	standings *readMemo[string, tokenStanding]
+	resolved  *readMemo[resolveKey, Version]
+	numbered  *readMemo[versionKey, Version] // with its manifest
 }
 
 // Open opens (creating if needed) the bbolt file at path. It fails with
@@ -132,9 +137,12 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		db.Close()
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
-	st := &Store{db: db, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{},
-		versions: newDecodedMemo[Version](memoVersions, 0), manifests: newDecodedMemo[Manifest](memoManifests, memoManifestBytes)}
-	if st.audits.j, err = openAuditJournal(db, path); err != nil {
+	st := &Store{db: &metaDB{bolt: db}, blobs: blobs, opt: opt, commits: map[string]*sync.Mutex{}, pending: map[blob.ID]int{},
+		versions: newDecodedMemo[Version](memoVersions, 0), manifests: newDecodedMemo[Manifest](memoManifests, memoManifestBytes),
+		standings: &readMemo[string, tokenStanding]{max: memoStandings},
+		resolved:  &readMemo[resolveKey, Version]{max: memoVersions},
+		numbered:  &readMemo[versionKey, Version]{max: memoManifests}}
+	if st.audits.j, err = openAuditJournal(st.db, path); err != nil {
 		db.Close()
 		return nil, fmt.Errorf("catalog: %w", err)
 	}

@@ -102,14 +102,29 @@ func (s *Store) RevokeToken(ctx context.Context, by, jti, reason string) (Revoca
 // TokenStanding reports, in one read, whether the catalog has a record of
 // jti and whether jti was revoked (a revocation can exist without a
 // record).
+// Every authenticated request asks; the answer is kept until the next
+// write (readMemo).
 func (s *Store) TokenStanding(jti string) (recorded, revoked bool, err error) {
+	at := s.db.readAt()
+	if t, ok := s.standings.get(at, jti); ok {
+		return t.recorded, t.revoked, nil
+	}
 	err = s.db.View(func(tx *bolt.Tx) error {
 		recorded = tx.Bucket(bucketTokens).Get([]byte(jti)) != nil
 		revoked = tx.Bucket(bucketRevocations).Get([]byte(jti)) != nil
 		return nil
 	})
+	if err == nil {
+		s.standings.put(at, jti, tokenStanding{recorded, revoked})
+	}
 	return recorded, revoked, err
 }
+
+// tokenStanding is what TokenStanding answers.
+type tokenStanding struct{ recorded, revoked bool }
+
+// memoStandings bounds the token standings a Store keeps.
+const memoStandings = 4096
 
 // Tokens lists the recorded tokens (by jti), each with its revocation if
 // any, then the revocations of tokens the catalog has no record of.

@@ -268,8 +268,40 @@ func (s *Store) Report(ctx context.Context, v *Version) (*quality.Report, error)
 	return &r, nil
 }
 
-// ResolveVersion is Resolve without reading the manifest.
+// ResolveVersion is Resolve without reading the manifest. What latest and
+// a number name is kept until the next write (readMemo): every request
+// for a version's summary or files asks.
 func (s *Store) ResolveVersion(ctx context.Context, project, dataset string, sel Selector, drafts bool) (*Version, error) {
+	if sel.Kind != SelectLatest && sel.Kind != SelectNumber {
+		return s.resolveVersion(project, dataset, sel, drafts)
+	}
+	at, k := s.db.readAt(), resolveKey{ref: project + "/" + dataset, kind: sel.Kind, number: sel.Number, drafts: drafts}
+	if v, ok := s.resolved.get(at, k); ok {
+		c := v.clone()
+		return &c, nil
+	}
+	v, err := s.resolveVersion(project, dataset, sel, drafts)
+	if err == nil {
+		s.resolved.put(at, k, v.clone())
+	}
+	return v, err
+}
+
+// resolveKey names an answer of ResolveVersion.
+type resolveKey struct {
+	ref    string
+	kind   SelectorKind
+	number int
+	drafts bool
+}
+
+// versionKey names a version.
+type versionKey struct {
+	ref    string
+	number int
+}
+
+func (s *Store) resolveVersion(project, dataset string, sel Selector, drafts bool) (*Version, error) {
 	ref := project + "/" + dataset
 	var hs []Version
 	err := s.db.View(func(tx *bolt.Tx) error {
@@ -375,6 +407,14 @@ func (s *Store) Versions(ctx context.Context, project, dataset string) ([]Versio
 // Version returns version n of a dataset with its manifest; n == 0 means
 // the latest.
 func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*Version, error) {
+	// A numbered version is kept with its manifest until the next write
+	// (readMemo): every download asks.
+	at, k := s.db.readAt(), versionKey{ref: project + "/" + dataset, number: n}
+	if n > 0 {
+		if v, ok := s.numbered.get(at, k); ok {
+			return v.withManifestClone(), nil
+		}
+	}
 	var v Version
 	err := s.db.View(func(tx *bolt.Tx) error {
 		ref := project + "/" + dataset
@@ -396,6 +436,9 @@ func (s *Store) Version(ctx context.Context, project, dataset string, n int) (*V
 	})
 	if err != nil {
 		return nil, err
+	}
+	if n > 0 {
+		s.numbered.put(at, k, *v.withManifestClone())
 	}
 	return &v, nil
 }

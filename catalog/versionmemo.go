@@ -111,6 +111,16 @@ func (c *EventCounts) clone() *EventCounts {
 	return &x
 }
 
+// withManifestClone is a deep copy of v with a deep copy of its manifest.
+func (v *Version) withManifestClone() *Version {
+	c := v.clone()
+	if v.Manifest != nil {
+		m := v.Manifest.clone()
+		c.Manifest = &m
+	}
+	return &c
+}
+
 func clonePtr[T any](p *T) *T {
 	if p == nil {
 		return nil
