@@ -98,6 +98,9 @@ type Authority struct {
 
 	seenOnce sync.Once
 	seen     *lru.Cache[string, verified] // tokens verified before (remembered)
+
+	validOnce sync.Once
+	valid     *jwt.Validator // claimValidator
 }
 
 // NewAuthority returns an Authority that signs and verifies HS256 under
@@ -322,7 +325,7 @@ func (a *Authority) Verify(token string) (*Claims, error) {
 	if c, ok := a.remembered(ks, token); ok {
 		// The same bytes passed checkJOSE and the signature before; the
 		// times are checked again.
-		if err := jwt.NewValidator(a.claimRules()...).Validate(c); err != nil {
+		if err := a.claimValidator().Validate(c); err != nil {
 			return nil, fmt.Errorf("%w: %w", ErrUnauthorized, err)
 		}
 		return c, nil
@@ -356,9 +359,16 @@ func (a *Authority) claimRules() []jwt.ParserOption {
 		jwt.WithAudience(Audience),
 		jwt.WithExpirationRequired(),
 		jwt.WithIssuedAt(),
-		jwt.WithTimeFunc(a.now),
+		jwt.WithTimeFunc(func() time.Time { return a.now() }),
 		jwt.WithLeeway(ClockSkew),
 	}
+}
+
+// claimValidator is claimRules as one validator, made on first use (a
+// validator only reads its settings, so requests share it).
+func (a *Authority) claimValidator() *jwt.Validator {
+	a.validOnce.Do(func() { a.valid = jwt.NewValidator(a.claimRules()...) })
+	return a.valid
 }
 
 // verifiedTokens bounds how many tokens an Authority remembers as

@@ -229,10 +229,10 @@ func (s *Server) accessLog(next echo.HandlerFunc) echo.HandlerFunc {
 		}
 		// The path names projects, datasets and versions only; query
 		// strings are not logged.
-		s.cfg.Logger.Info("request", "method", req.Method, "path", req.URL.Path,
-			"status", c.Response().Status, "bytes", c.Response().Size,
-			"ms", time.Since(start).Milliseconds(), "sub", sub,
-			"id", c.Response().Header().Get(echo.HeaderXRequestID))
+		s.cfg.Logger.LogAttrs(req.Context(), slog.LevelInfo, "request", slog.String("method", req.Method), slog.String("path", req.URL.Path),
+			slog.Int("status", c.Response().Status), slog.Int64("bytes", c.Response().Size),
+			slog.Int64("ms", time.Since(start).Milliseconds()), slog.String("sub", sub),
+			slog.String("id", c.Response().Header().Get(echo.HeaderXRequestID)))
 		return nil
 	}
 }

@@ -107,14 +107,15 @@ func (s *Server) getSummary(c echo.Context) error {
 		return catalogError(err)
 	}
 	h := c.Response().Header()
-	h.Set("ETag", `"`+head.SnapshotID.String()+`"`)
+	sid := head.SnapshotID.String()
+	h.Set("ETag", `"`+sid+`"`)
 	if len(q) == 0 {
 		// Stored gzip-compressed: sent as it is to a client that takes gzip,
 		// decompressed for any other. Both are kept for the next request
 		// (serving.go), so that neither costs a read of the catalog and a
 		// copy of the summary, nor a decompression, each time.
 		h.Add("Vary", "Accept-Encoding")
-		ctx, key := c.Request().Context(), fmt.Sprintf("%s@%d/%s", head.Dataset, head.Number, head.SnapshotID)
+		ctx, key := c.Request().Context(), head.Dataset.String()+"@"+strconv.Itoa(head.Number)+"/"+sid
 		if acceptsGzip(c.Request()) {
 			gz, ok := s.summaries.get(key + " gzip")
 			if !ok {
