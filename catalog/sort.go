@@ -24,7 +24,10 @@ import (
 // with bounded memory: it keeps up to max events, and when one more comes
 // it sorts them and spills them as a run to a temporary file. Finish
 // merges the runs, at most fanIn at once: when there are more, it first
-// merges the oldest fanIn into one new run, until few enough are left.
+// merges the oldest few into one new run, as few as leave fanIn (at most
+// fanIn at a time), so that as few events as can be go through a pass
+// more (the first merge of an external sort takes only the runs it must:
+// Knuth, TAOCP vol. 3, 5.4.9, from memory).
 // Events reach it already pseudonymized, so its temporary files hold no
 // raw identifier; they are deleted by Close.
 //
@@ -47,6 +50,9 @@ type sorter struct {
 	inter   map[string]string
 	rw      *s2.Writer // the writer of every run, reset for each (runWriter)
 	bytes   int        // string bytes held in buf
+	// remerged counts the events written again by merges before the
+	// last one.
+	remerged int
 	// inputs are runs sorted already (a version's case groups), merged
 	// with the sorter's own by Finish.
 	inputs []io.Reader
@@ -339,7 +345,7 @@ func (s *sorter) Finish(fn func(*schema.Event) error) error {
 	}
 	s.buf, s.spare, s.work = nil, nil, spillWork{} // the merge needs none of it
 	for len(s.runs) > s.fanIn {
-		if err := s.mergeOldest(); err != nil {
+		if err := s.mergeOldest(min(s.fanIn, len(s.runs)-s.fanIn+1)); err != nil {
 			return err
 		}
 	}
@@ -421,14 +427,15 @@ func (s *sorter) mergeAhead(runs []io.Reader, fn func(*schema.Event) error) erro
 	return ferr
 }
 
-// mergeOldest merges the first fanIn runs into a new last run.
-func (s *sorter) mergeOldest() error {
+// mergeOldest merges the first k runs into a new last run.
+func (s *sorter) mergeOldest(k int) error {
 	f, err := s.newRun()
 	if err != nil {
 		return err
 	}
 	w := s.runWriter(f)
-	err = s.merge(s.runs[:s.fanIn], func(e *schema.Event) error {
+	err = s.merge(s.runs[:k], func(e *schema.Event) error {
+		s.remerged++
 		s.enc = encodeEvent(s.enc[:0], e)
 		if _, err := w.Write(s.enc); err != nil {
 			return fmt.Errorf("sort: %w", err)
@@ -441,13 +448,13 @@ func (s *sorter) mergeOldest() error {
 	if err != nil {
 		return err
 	}
-	for _, g := range s.runs[:s.fanIn] {
+	for _, g := range s.runs[:k] {
 		g.Close()
 		if err := os.Remove(g.Name()); err != nil {
 			return fmt.Errorf("sort: %w", err) // Close retries them all
 		}
 	}
-	s.runs = slices.Delete(s.runs, 0, s.fanIn)
+	s.runs = slices.Delete(s.runs, 0, k)
 	return nil
 }
 

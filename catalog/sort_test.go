@@ -22,6 +22,51 @@ import (
 // TestSorterRuns drives the sorter directly with a tiny run size, so that
 // many runs are merged, and checks the order and the field round trip
 // through the run format.
+// TestSorterMergesNoMoreThanNeeded: with more runs than the fan-in, the
+// merges before the last take only as many runs as it takes to leave
+// fanIn, so the fewest events are written twice (5 runs, fan-in 4: the
+// oldest 2, not 4; 11 runs: merges must remove 7 runs, at most 3 each, so
+// three merges, of 4, 4 and 2 runs of 10 events, none merged twice: 100).
+func TestSorterMergesNoMoreThanNeeded(t *testing.T) {
+	for _, c := range []struct{ events, runs, remerged int }{{50, 5, 20}, {70, 7, 40}, {40, 4, 0}, {110, 11, 100}} {
+		dir := t.TempDir()
+		s := newSorter(dir, 10)
+		s.fanIn = 4
+		var in []schema.Event
+		for i := range c.events {
+			in = append(in, schema.Event{Site: "s", CaseID: fmt.Sprint("c", i%7), Type: schema.Start, Activity: "a",
+				OccurredAt: genBase.Add(time.Duration((i*37)%c.events) * time.Second).UTC(), Line: int64(i + 2)})
+		}
+		for i := range in {
+			if err := s.Add(&in[i]); err != nil {
+				t.Fatal(err)
+			}
+		}
+		var out []schema.Event
+		err := s.Finish(func(e *schema.Event) error {
+			if len(out) == 0 {
+				if ents, _ := os.ReadDir(dir); len(ents) > s.fanIn {
+					t.Errorf("%d events: %d runs merged at once", c.events, len(ents))
+				}
+			}
+			out = append(out, *e)
+			return nil
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if s.remerged != c.remerged {
+			t.Errorf("%d events in %d runs, fan-in 4: %d events written again, want %d", c.events, c.runs, s.remerged, c.remerged)
+		}
+		if !slices.IsSortedFunc(out, func(a, b schema.Event) int { return lessEvent(&a, &b) }) || len(out) != len(in) {
+			t.Errorf("%d events: %d out, or out of order", c.events, len(out))
+		}
+		if err := s.Close(); err != nil {
+			t.Fatal(err)
+		}
+	}
+}
+
 func TestSorterRuns(t *testing.T) {
 	dir := t.TempDir()
 	r := rand.New(rand.NewPCG(3, 4))
