@@ -42,6 +42,9 @@ func TestSorterMergesNoMoreThanNeeded(t *testing.T) {
 				t.Fatal(err)
 			}
 		}
+		if len(s.runs) != c.runs-1 { // Finish spills the last
+			t.Fatalf("%d events: %d runs before Finish, want %d", c.events, len(s.runs), c.runs-1)
+		}
 		var out []schema.Event
 		err := s.Finish(func(e *schema.Event) error {
 			if len(out) == 0 {
