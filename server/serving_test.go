@@ -9,6 +9,7 @@ import (
 	"io"
 	"net/http"
 	"testing"
+	"time"
 
 	"github.com/flowcat-catalog/flowcat/server/api"
 )
@@ -58,19 +59,27 @@ func TestDownloadServedFromFile(t *testing.T) {
 		t.Errorf("headers of a plain download:\n%v\nthrough ServeContent:\n%v", whole.Header, through.Header)
 	}
 
-	// The access log's bytes of the three requests, in order.
+	// The access log's bytes of the four requests, in order. A request's
+	// line is written after its answer is sent, so the last may come a
+	// moment after the client has the answer: wait for it, up to 5 s.
+	want := []int64{f.Bytes, f.Bytes - 1000, 0, f.Bytes}
 	var logged []int64
-	sc := bufio.NewScanner(bytes.NewReader(e.log.Bytes()))
-	for sc.Scan() {
-		var l struct {
-			Msg, Path string
-			Bytes     int64
+	for deadline := time.Now().Add(5 * time.Second); ; time.Sleep(10 * time.Millisecond) {
+		logged = logged[:0]
+		sc := bufio.NewScanner(bytes.NewReader(e.log.Bytes()))
+		for sc.Scan() {
+			var l struct {
+				Msg, Path string
+				Bytes     int64
+			}
+			if json.Unmarshal(sc.Bytes(), &l) == nil && l.Msg == "request" && l.Path == path {
+				logged = append(logged, l.Bytes)
+			}
 		}
-		if json.Unmarshal(sc.Bytes(), &l) == nil && l.Msg == "request" && l.Path == path {
-			logged = append(logged, l.Bytes)
+		if len(logged) >= len(want) || time.Now().After(deadline) {
+			break
 		}
 	}
-	want := []int64{f.Bytes, f.Bytes - 1000, 0, f.Bytes}
 	if fmt.Sprint(logged) != fmt.Sprint(want) {
 		t.Errorf("access log bytes %v, want %v", logged, want)
 	}
