@@ -19,9 +19,6 @@ import (
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
-// TestSorterRuns drives the sorter directly with a tiny run size, so that
-// many runs are merged, and checks the order and the field round trip
-// through the run format.
 // TestSorterMergesNoMoreThanNeeded: with more runs than the fan-in, the
 // merges before the last take only as many runs as it takes to leave
 // fanIn, so the fewest events are written twice (5 runs, fan-in 4: the
@@ -70,6 +67,9 @@ func TestSorterMergesNoMoreThanNeeded(t *testing.T) {
 	}
 }
 
+// TestSorterRuns drives the sorter directly with a tiny run size, so that
+// many runs are merged, and checks the order and the field round trip
+// through the run format.
 func TestSorterRuns(t *testing.T) {
 	dir := t.TempDir()
 	r := rand.New(rand.NewPCG(3, 4))
