@@ -2,6 +2,7 @@ package catalog
 
 import (
 	"bufio"
+	"bytes"
 	"cmp"
 	"encoding/binary"
 	"errors"
@@ -9,7 +10,6 @@ import (
 	"io"
 	"os"
 	"slices"
-	"strings"
 	"time"
 
 	"github.com/klauspost/compress/s2"
@@ -31,25 +31,24 @@ import (
 // Events reach it already pseudonymized, so its temporary files hold no
 // raw identifier; they are deleted by Close.
 //
-// Memory: max events, and at most maxRunBytes of their strings, in the
-// buffer while reading; while merging, the buffer is released and one read
-// buffer of runBufSize is held per run merged (at most fanIn), whatever the
-// size of the upload.
+// Memory: max events, and at most maxRunBytes of their records, in the
+// buffer while reading (two buffers while one is spilled); while merging,
+// the buffers are released and one read buffer of runBufSize is held per
+// run merged (at most fanIn), whatever the size of the upload.
 type sorter struct {
 	// byCase orders by case instead (cases.Less), for the per-case pass.
 	byCase  bool
 	dir     string
 	max     int
 	fanIn   int
-	buf     []schema.Event
-	spare   []schema.Event // the other buffer, while one is spilled
-	work    spillWork      // used by one spill at a time
-	pending chan error     // the spill in the background, if any
+	buf     *runBuf
+	spare   *runBuf    // the other buffer, while one is spilled
+	work    spillWork  // used by one spill at a time
+	pending chan error // the spill in the background, if any
 	runs    []*os.File
 	enc     []byte
 	inter   map[string]string
 	rw      *s2.Writer // the writer of every run, reset for each (runWriter)
-	bytes   int        // string bytes held in buf
 	// remerged counts the events written again by merges before the
 	// last one.
 	remerged int
@@ -63,7 +62,7 @@ const (
 	// maxFanIn bounds the runs merged at once, and so the open files and
 	// read buffers of a merge (128 x 32 KiB = 4 MiB).
 	maxFanIn = 128
-	// maxRunBytes bounds the string bytes of the events held in memory, so
+	// maxRunBytes bounds the bytes of the records held in a buffer, so
 	// wide rows (long free text in a mapped column) spill sooner.
 	maxRunBytes = 64 << 20
 	// internMaxLen is the longest value the merge interns.
@@ -93,33 +92,69 @@ func (s *sorter) less(a, b *schema.Event) int {
 // Add takes e. A full buffer is spilled only when one more event comes,
 // so an upload of at most max events never touches the disk.
 func (s *sorter) Add(e *schema.Event) error {
-	if len(s.buf) >= s.max || s.bytes >= maxRunBytes {
+	if s.buf != nil && (s.buf.len() >= s.max || len(s.buf.recs) >= maxRunBytes) {
 		if err := s.spill(); err != nil {
 			return err
 		}
 	}
 	if s.buf == nil {
-		// The buffer reaches max events before it spills: allocate it
-		// once, not by doubling (a file of fewer events never gets here
-		// beyond its size, up to the first 4096).
-		s.buf = make([]schema.Event, 0, min(s.max, 4096))
-	} else if len(s.buf) == cap(s.buf) && cap(s.buf) < s.max {
-		nb := make([]schema.Event, len(s.buf), s.max)
-		copy(nb, s.buf)
-		s.buf = nb
+		s.buf = &runBuf{}
 	}
-	s.buf = append(s.buf, *e)
-	s.bytes += eventBytes(e)
+	s.buf.add(e, s.byCase)
 	return nil
 }
 
-// eventBytes is the length of e's strings.
-func eventBytes(e *schema.Event) int {
-	n := len(e.Attrs)
-	for _, s := range e.Texts() {
-		n += len(s)
+// runBuf holds the events of one run before it is sorted: each event's
+// record in the run format (encodeEvent), one after another in recs, and
+// its sort key (keys, or caseKeys for a sorter by case), in arrival order.
+// A record takes about a third of the bytes of a schema.Event and the
+// strings it points to, and neither records nor keys hold a pointer, so
+// the garbage collector has nothing in a buffer to scan. Its slices are
+// kept from one run to the next. Offsets fit in 32 bits: a buffer spills
+// once its records reach maxRunBytes.
+type runBuf struct {
+	recs     []byte
+	keys     []sortKey
+	caseKeys []caseKey
+}
+
+func (b *runBuf) len() int { return len(b.keys) + len(b.caseKeys) }
+
+func (b *runBuf) reset() {
+	b.recs, b.keys, b.caseKeys = b.recs[:0], b.keys[:0], b.caseKeys[:0]
+}
+
+// add appends e's record and its key.
+func (b *runBuf) add(e *schema.Event, byCase bool) {
+	off := len(b.recs)
+	b.recs = encodeEvent(b.recs, e)
+	t := e.OccurredAt
+	if !byCase {
+		b.keys = append(b.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), rank: closingFirst(e.Type), line: e.Line, off: uint32(off)})
+		return
 	}
-	return n
+	// The case id's bytes in the record: after the record's length and
+	// the site.
+	_, h := binary.Uvarint(b.recs[off:])
+	p := off + h
+	_, k := binary.Uvarint(b.recs[p:])
+	p += k + len(e.Site)
+	_, k = binary.Uvarint(b.recs[p:])
+	p += k
+	b.caseKeys = append(b.caseKeys, caseKey{pre: prefix8(e.CaseID), idOff: uint32(p), idLen: uint32(len(e.CaseID)),
+		sec: t.Unix(), nsec: int32(t.Nanosecond()), rank: int8(e.Type.Rank()), off: uint32(off)})
+}
+
+// record returns the record at off, its length included.
+func (b *runBuf) record(off uint32) []byte {
+	n, h := binary.Uvarint(b.recs[off:])
+	return b.recs[off : int(off)+h+int(n)]
+}
+
+// body returns the record at off without its length, as run.decode takes it.
+func (b *runBuf) body(off uint32) []byte {
+	n, h := binary.Uvarint(b.recs[off:])
+	return b.recs[int(off)+h : int(off)+h+int(n)]
 }
 
 func lessEvent(a, b *schema.Event) int {
@@ -151,22 +186,22 @@ func closingFirst(t schema.EventType) int8 {
 
 // caseKey is what a sorter by case sorts its buffer by.
 type caseKey struct {
-	pre  uint64 // the id's first 8 bytes, big-endian, zero-padded: most comparisons end here
-	id   string
-	sec  int64
-	nsec int32
-	rank int8
-	idx  int32
+	pre          uint64 // the id's first 8 bytes, big-endian, zero-padded: most comparisons end here
+	sec          int64
+	idOff, idLen uint32 // the case id's bytes in the buffer's records
+	nsec         int32
+	off          uint32 // the record's offset: arrival order
+	rank         int8
 }
 
 // sortKey is what the buffer is sorted by: sorting small keys rather than
-// whole events (over 200 bytes each) saves most of the moving.
+// records saves most of the moving.
 type sortKey struct {
 	sec  int64
 	line int64
 	nsec int32
-	idx  int32
-	rank int8 // closingFirst
+	off  uint32 // the record's offset: arrival order
+	rank int8   // closingFirst
 }
 
 func cmpKey(a, b sortKey) int {
@@ -180,7 +215,7 @@ func cmpKey(a, b sortKey) int {
 	case a.line != b.line:
 		return cmp.Compare(a.line, b.line)
 	}
-	return cmp.Compare(a.idx, b.idx)
+	return cmp.Compare(a.off, b.off)
 }
 
 // prefix8 is s's first 8 bytes as a big-endian number, zero-padded: two
@@ -193,56 +228,63 @@ func prefix8(s string) uint64 {
 
 // spillWork is the scratch space of one sort of a buffer.
 type spillWork struct {
-	keys     []sortKey
-	caseKeys []caseKey
-	enc      []byte
+	offs []uint32
+	// a and b decode two records whose keys tie, for cases.Less.
+	a, b run
 }
 
-// orderOf returns buf's indexes in the sorter's order.
-func (s *sorter) orderOf(buf []schema.Event, w *spillWork) []sortKey {
-	w.keys = w.keys[:0]
+// order returns the offsets of b's records in the sorter's order.
+func (s *sorter) order(b *runBuf, w *spillWork) []uint32 {
+	w.offs = w.offs[:0]
 	if s.byCase {
 		// Keys hold what cases.Less compares first, so most comparisons
-		// touch no event; full ties fall back to cases.Less.
-		ck := w.caseKeys[:0]
-		for i := range buf {
-			e := &buf[i]
-			ck = append(ck, caseKey{pre: prefix8(e.CaseID), id: e.CaseID, sec: e.OccurredAt.Unix(), nsec: int32(e.OccurredAt.Nanosecond()), rank: int8(e.Type.Rank()), idx: int32(i)})
-		}
-		slices.SortFunc(ck, func(a, b caseKey) int {
-			if a.pre != b.pre {
-				return cmp.Compare(a.pre, b.pre)
+		// read no record; full ties decode both and fall back to
+		// cases.Less.
+		slices.SortFunc(b.caseKeys, func(x, y caseKey) int {
+			if x.pre != y.pre {
+				return cmp.Compare(x.pre, y.pre)
 			}
-			if c := strings.Compare(a.id, b.id); c != 0 {
+			if c := bytes.Compare(b.recs[x.idOff:x.idOff+x.idLen], b.recs[y.idOff:y.idOff+y.idLen]); c != 0 {
 				return c
 			}
-			if a.sec != b.sec {
-				return cmp.Compare(a.sec, b.sec)
+			if x.sec != y.sec {
+				return cmp.Compare(x.sec, y.sec)
 			}
-			if a.nsec != b.nsec {
-				return cmp.Compare(a.nsec, b.nsec)
+			if x.nsec != y.nsec {
+				return cmp.Compare(x.nsec, y.nsec)
 			}
-			if a.rank != b.rank {
-				return int(a.rank) - int(b.rank)
+			if x.rank != y.rank {
+				return int(x.rank) - int(y.rank)
 			}
-			if c := cases.Less(&buf[a.idx], &buf[b.idx]); c != 0 {
+			if c := w.tie(b.body(x.off), b.body(y.off)); c != 0 {
 				return c
 			}
-			return cmp.Compare(a.idx, b.idx)
+			return cmp.Compare(x.off, y.off)
 		})
-		for _, k := range ck {
-			w.keys = append(w.keys, sortKey{idx: k.idx})
+		for _, k := range b.caseKeys {
+			w.offs = append(w.offs, k.off)
 		}
-		clear(ck) // drop string references
-		w.caseKeys = ck[:0]
-		return w.keys
+		return w.offs
 	}
-	for i := range buf {
-		t := buf[i].OccurredAt
-		w.keys = append(w.keys, sortKey{sec: t.Unix(), nsec: int32(t.Nanosecond()), rank: closingFirst(buf[i].Type), line: buf[i].Line, idx: int32(i)})
+	slices.SortFunc(b.keys, cmpKey)
+	for _, k := range b.keys {
+		w.offs = append(w.offs, k.off)
 	}
-	slices.SortFunc(w.keys, cmpKey)
-	return w.keys
+	return w.offs
+}
+
+// tie orders two records by cases.Less.
+func (w *spillWork) tie(x, y []byte) int {
+	if w.a.inter == nil {
+		w.a.inter, w.b.inter = make(map[string]string), make(map[string]string)
+	}
+	if err := w.a.decode(x); err != nil {
+		panic(err) // the buffer's own records
+	}
+	if err := w.b.decode(y); err != nil {
+		panic(err)
+	}
+	return cases.Less(&w.a.ev, &w.b.ev)
 }
 
 func (s *sorter) newRun() (*os.File, error) {
@@ -267,13 +309,12 @@ func (s *sorter) spill() error {
 	}
 	buf := s.buf
 	s.buf, s.spare = s.spare, nil
-	s.bytes = 0
 	done := make(chan error, 1)
 	s.pending = done
 	go func() {
 		err := s.writeRun(f, buf, &s.work)
-		clear(buf) // drop string references
-		s.spare = buf[:0]
+		buf.reset()
+		s.spare = buf
 		done <- err
 	}()
 	return nil
@@ -289,12 +330,11 @@ func (s *sorter) wait() error {
 	return err
 }
 
-// writeRun writes buf, sorted, to f.
-func (s *sorter) writeRun(f *os.File, buf []schema.Event, wk *spillWork) error {
+// writeRun writes buf's records, sorted, to f.
+func (s *sorter) writeRun(f *os.File, buf *runBuf, wk *spillWork) error {
 	w := s.runWriter(f)
-	for _, k := range s.orderOf(buf, wk) {
-		wk.enc = encodeEvent(wk.enc[:0], &buf[k.idx])
-		if _, err := w.Write(wk.enc); err != nil {
+	for _, off := range s.order(buf, wk) {
+		if _, err := w.Write(buf.record(off)); err != nil {
 			w.Close() // its goroutines end
 			return fmt.Errorf("sort: %w", err)
 		}
@@ -328,14 +368,21 @@ func (s *sorter) addSorted(r io.Reader) { s.inputs = append(s.inputs, r) }
 // valid during the call.
 func (s *sorter) Finish(fn func(*schema.Event) error) error {
 	if len(s.runs) == 0 && len(s.inputs) == 0 {
-		for _, k := range s.orderOf(s.buf, &s.work) {
-			if err := fn(&s.buf[k.idx]); err != nil {
+		if s.buf == nil {
+			return nil
+		}
+		r := &run{inter: s.inter}
+		for _, off := range s.order(s.buf, &s.work) {
+			if err := r.decode(s.buf.body(off)); err != nil {
+				return err
+			}
+			if err := fn(&r.ev); err != nil {
 				return err
 			}
 		}
 		return nil
 	}
-	if len(s.buf) > 0 {
+	if s.buf != nil && s.buf.len() > 0 {
 		if err := s.spill(); err != nil {
 			return err
 		}
@@ -642,6 +689,18 @@ func (r *run) next() (bool, error) {
 			return false, fmt.Errorf("sort: reading run: %w", noEOF(err))
 		}
 	}
+	err = r.decode(b)
+	if peeked {
+		r.r.Discard(int(n))
+	}
+	if err != nil {
+		return false, err
+	}
+	return true, nil
+}
+
+// decode decodes b, one record without its length, into r.ev.
+func (r *run) decode(b []byte) error {
 	c := record{b: b}
 	// str interns the values of the fields that repeat: the previous
 	// event's value of the field first (in a run most consecutive events
@@ -704,13 +763,10 @@ func (r *run) next() (bool, error) {
 	e.Line = int64(c.uvarint())
 	e.Row = int64(c.uvarint())
 	e.Attrs = plain()
-	if peeked {
-		r.r.Discard(int(n))
-	}
 	if c.bad || len(c.b) != 0 {
-		return false, fmt.Errorf("sort: reading run: %w", errRunRecord)
+		return fmt.Errorf("sort: reading run: %w", errRunRecord)
 	}
-	return true, nil
+	return nil
 }
 
 // noEOF turns the end of a run in the middle of a record into

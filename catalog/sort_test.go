@@ -17,6 +17,7 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/schema"
+	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // TestSorterMergesNoMoreThanNeeded: with more runs than the fan-in, the
@@ -152,6 +153,51 @@ func TestSorterRuns(t *testing.T) {
 	stop := errors.New("stop")
 	if err := s2.Finish(func(*schema.Event) error { return stop }); err != stop {
 		t.Errorf("Finish = %v, want the callback's error", err)
+	}
+}
+
+// TestCaseSorterRuns: a sorter by case gives cases.Less's order, held in
+// memory or spilled into runs, on events built to tie: case ids that share
+// their first 8 bytes or are prefixes of each other (the key's prefix
+// ties), few instants and types (the key ties whole, and the records are
+// decoded and compared by cases.Less), and equal rows with different
+// content or lines.
+func TestCaseSorterRuns(t *testing.T) {
+	r := rand.New(rand.NewPCG(5, 6))
+	ids := []string{"case-0001", "case-0001x", "case-0002", "case-00", "c", "", "case-0001\x00", "zz-longer-than-eight"}
+	types := []schema.EventType{schema.Arrival, schema.Start, schema.Complete, schema.Departure}
+	var in []schema.Event
+	for range 3000 {
+		in = append(in, schema.Event{
+			Site: []string{"north", "south"}[r.IntN(2)], CaseID: ids[r.IntN(len(ids))], SubjectID: []string{"", "subj"}[r.IntN(2)],
+			ResourceID: []string{"", "res-1", "res-2"}[r.IntN(3)], Type: types[r.IntN(len(types))], Activity: []string{"a", "b"}[r.IntN(2)],
+			OccurredAt: genBase.Add(time.Duration(r.IntN(4))*time.Second + time.Duration(r.IntN(2))*time.Microsecond).UTC(),
+			Row: int64(r.IntN(3)), Outcome: []string{"", "done"}[r.IntN(2)], Attrs: []string{"", `{"k":"v"}`}[r.IntN(2)],
+			Line: int64(2 + r.IntN(1500)), // repeated lines: some events tie on everything but content
+		})
+	}
+	want := slices.Clone(in)
+	slices.SortStableFunc(want, func(a, b schema.Event) int { return cases.Less(&a, &b) })
+	for _, max := range []int{5000, 1000, 7} {
+		s := newCaseSorter(t.TempDir(), max)
+		for i := range in {
+			if err := s.Add(&in[i]); err != nil {
+				t.Fatal(err)
+			}
+		}
+		var out []schema.Event
+		if err := s.Finish(func(e *schema.Event) error { out = append(out, *e); return nil }); err != nil {
+			t.Fatal(err)
+		}
+		if len(out) != len(want) {
+			t.Fatalf("max %d: %d events out of %d", max, len(out), len(want))
+		}
+		for i := range out {
+			if out[i] != want[i] {
+				t.Fatalf("max %d: event %d = %+v, want %+v", max, i, out[i], want[i])
+			}
+		}
+		s.Close()
 	}
 }
 
@@ -399,12 +445,12 @@ func TestRunWriteFailureEndsGoroutines(t *testing.T) {
 		t.Fatal(err)
 	}
 	f.Close()
-	buf := make([]schema.Event, 5000)
-	for i := range buf {
-		buf[i] = schema.Event{Site: "north", CaseID: fmt.Sprintf("case-%06d", i), Type: schema.Arrival,
-			OccurredAt: time.Unix(int64(i), 0).UTC(), Line: int64(i + 2), Attrs: strings.Repeat("x", 40)}
+	var buf runBuf
+	for i := range 5000 {
+		buf.add(&schema.Event{Site: "north", CaseID: fmt.Sprintf("case-%06d", i), Type: schema.Arrival,
+			OccurredAt: time.Unix(int64(i), 0).UTC(), Line: int64(i + 2), Attrs: strings.Repeat("x", 40)}, false)
 	}
-	if err := s.writeRun(f, buf, &s.work); err == nil {
+	if err := s.writeRun(f, &buf, &s.work); err == nil {
 		t.Fatal("writing a run to a closed file succeeded")
 	}
 	deadline := time.Now().Add(5 * time.Second)
