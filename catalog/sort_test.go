@@ -172,7 +172,7 @@ func TestCaseSorterRuns(t *testing.T) {
 			Site: []string{"north", "south"}[r.IntN(2)], CaseID: ids[r.IntN(len(ids))], SubjectID: []string{"", "subj"}[r.IntN(2)],
 			ResourceID: []string{"", "res-1", "res-2"}[r.IntN(3)], Type: types[r.IntN(len(types))], Activity: []string{"a", "b"}[r.IntN(2)],
 			OccurredAt: genBase.Add(time.Duration(r.IntN(4))*time.Second + time.Duration(r.IntN(2))*time.Microsecond).UTC(),
-			Row: int64(r.IntN(3)), Outcome: []string{"", "done"}[r.IntN(2)], Attrs: []string{"", `{"k":"v"}`}[r.IntN(2)],
+			Row:        int64(r.IntN(3)), Outcome: []string{"", "done"}[r.IntN(2)], Attrs: []string{"", `{"k":"v"}`}[r.IntN(2)],
 			Line: int64(2 + r.IntN(1500)), // repeated lines: some events tie on everything but content
 		})
 	}
