@@ -447,7 +447,7 @@ func NewAccumulator(opt Options) *Accumulator {
 		siteIndex:    make(map[string]int),
 		waitIndex:    make(map[waitKey]int32),
 		resIndex:     make(map[string]int32),
-		ids:          newTable(),
+		ids:          newTable(uint64(opt.EventIDWindow.Microseconds())),
 		svc:          map[uint64]openService{},
 	}
 	for act, d := range opt.MaxService {
@@ -629,7 +629,7 @@ func (a *Accumulator) Observe(e *schema.Event) Flags {
 	a.sinceIDPrune++
 	if a.sinceIDPrune >= a.pruneEvery && a.sinceIDPrune >= a.keptIDs {
 		a.sinceIDPrune = 0
-		a.ids.sweep(func(sl *slot) bool { return rel-sl.rec > a.idWindow })
+		a.ids.expire(rel)
 		a.keptIDs = a.ids.n
 	}
 	return fl
@@ -872,7 +872,7 @@ func (a *Accumulator) census(s *siteAcc, at int64) {
 // duplicateID reports whether e's event_id was seen within the window.
 func (a *Accumulator) duplicateID(e *schema.Event, rel uint64) bool {
 	k := nonZero(maphash.String(a.seed, e.EventID))
-	sl, ok := a.ids.lookup(k)
+	sl, ok := a.ids.lookup(k, rel)
 	if ok && rel-sl.rec <= a.idWindow {
 		sl.rec = rel
 		return true

@@ -1,11 +1,25 @@
 package quality
 
 // table is a set of 64-bit keys, each with the latest instant it was seen
-// (rec, microseconds after the file's first), which sweeps test. It is an
+// (rec, microseconds after the file's first); a record whose instant lies
+// more than window before the instant in hand has expired. It is an
 // open-addressing table with linear probing, which costs one cache line
 // per lookup where a Go map, needing a read and a write, costs several;
 // the event-id check runs on every event. Key 0 marks an empty slot.
+//
+// Memory: the table is split into tableShards shards by the key's top
+// bits, each growing on its own, so that growing holds the old and the new
+// slots of one shard, not of the whole table; and a shard about to grow
+// first drops its expired records, so that it grows only for records in
+// the window, however long ago the last sweep of the whole table was.
 type table struct {
+	shards [tableShards]shard
+	n      int
+	window uint64
+}
+
+// shard is one open-addressing table.
+type shard struct {
 	slots []slot
 	mask  uint64
 	n     int
@@ -15,22 +29,39 @@ type slot struct {
 	key, rec uint64
 }
 
-const minTableSize = 1024
+const (
+	tableShardBits = 6
+	tableShards    = 1 << tableShardBits
+	minShardSize   = 16
+)
 
-func newTable() table {
-	return table{slots: make([]slot, minTableSize), mask: minTableSize - 1}
+// newTable returns an empty table whose records expire after window.
+func newTable(window uint64) table {
+	t := table{window: window}
+	for i := range t.shards {
+		t.shards[i] = shard{slots: make([]slot, minShardSize), mask: minShardSize - 1}
+	}
+	return t
 }
+
+func (t *table) shardOf(key uint64) *shard { return &t.shards[key>>(64-tableShardBits)] }
 
 // lookup returns the slot of key (never 0) and whether it holds key; if
 // not, the slot is the empty one where key belongs, which [table.claim]
 // fills. Room for one more key is made first, so the slot stays valid
-// until the next lookup.
-func (t *table) lookup(key uint64) (*slot, bool) {
-	if 4*(t.n+1) > 3*len(t.slots) {
-		t.resize(2 * len(t.slots))
+// until the next lookup: a full shard drops its records expired at now,
+// then grows if more than 5/8 of it is still in use (so that a shard
+// that fills again soon grows rather than sweeps again).
+func (t *table) lookup(key, now uint64) (*slot, bool) {
+	sh := t.shardOf(key)
+	if 4*(sh.n+1) > 3*len(sh.slots) {
+		t.n -= sh.sweep(func(s *slot) bool { return now-s.rec > t.window })
+		if 8*(sh.n+1) > 5*len(sh.slots) {
+			sh.resize(2 * len(sh.slots))
+		}
 	}
-	for i := key & t.mask; ; i = (i + 1) & t.mask {
-		s := &t.slots[i]
+	for i := key & sh.mask; ; i = (i + 1) & sh.mask {
+		s := &sh.slots[i]
 		if s.key == key {
 			return s, true
 		}
@@ -43,60 +74,85 @@ func (t *table) lookup(key uint64) (*slot, bool) {
 // claim stores key in the empty slot s returned by lookup.
 func (t *table) claim(s *slot, key uint64) {
 	s.key = key
+	t.shardOf(key).n++
 	t.n++
 }
 
-func (t *table) resize(size int) {
-	old := t.slots
-	t.slots = make([]slot, size)
-	t.mask = uint64(size - 1)
-	for _, s := range old {
-		if s.key != 0 {
-			i := s.key & t.mask
-			for t.slots[i].key != 0 {
-				i = (i + 1) & t.mask
-			}
-			t.slots[i] = s
-		}
-	}
+// expire drops the records expired at now.
+func (t *table) expire(now uint64) {
+	t.sweep(func(s *slot) bool { return now-s.rec > t.window })
 }
 
 // sweep removes the records for which drop is true; drop may read the
 // record before it goes.
 func (t *table) sweep(drop func(s *slot) bool) {
+	for i := range t.shards {
+		t.n -= t.shards[i].sweep(drop)
+	}
+}
+
+// slotCount is the number of slots of all shards.
+func (t *table) slotCount() int {
+	n := 0
+	for i := range t.shards {
+		n += len(t.shards[i].slots)
+	}
+	return n
+}
+
+func (sh *shard) resize(size int) {
+	old := sh.slots
+	sh.slots = make([]slot, size)
+	sh.mask = uint64(size - 1)
+	for _, s := range old {
+		if s.key != 0 {
+			i := s.key & sh.mask
+			for sh.slots[i].key != 0 {
+				i = (i + 1) & sh.mask
+			}
+			sh.slots[i] = s
+		}
+	}
+}
+
+// sweep removes the shard's records for which drop is true and returns
+// how many it removed.
+func (sh *shard) sweep(drop func(s *slot) bool) int {
 	// Start from an empty slot (the load stays under 3/4), so that no
 	// cluster spans the start and removals only ever shift records into
 	// the slot being examined or slots not yet examined.
 	var start uint64
-	for t.slots[start].key != 0 {
+	for sh.slots[start].key != 0 {
 		start++
 	}
-	for step := uint64(1); step <= t.mask; {
-		i := (start + step) & t.mask
-		if s := &t.slots[i]; s.key != 0 && drop(s) {
-			t.remove(i) // slot i may now hold a shifted record: look again
+	before := sh.n
+	for step := uint64(1); step <= sh.mask; {
+		i := (start + step) & sh.mask
+		if s := &sh.slots[i]; s.key != 0 && drop(s) {
+			sh.remove(i) // slot i may now hold a shifted record: look again
 			continue
 		}
 		step++
 	}
-	if len(t.slots) > minTableSize && 8*t.n < len(t.slots) {
-		t.resize(max(minTableSize, len(t.slots)/4))
+	if len(sh.slots) > minShardSize && 8*sh.n < len(sh.slots) {
+		sh.resize(max(minShardSize, len(sh.slots)/4))
 	}
+	return before - sh.n
 }
 
 // remove empties slot i and shifts later records of its cluster back so
 // that every record stays reachable from its home slot.
-func (t *table) remove(i uint64) {
-	t.n--
+func (sh *shard) remove(i uint64) {
+	sh.n--
 	for {
-		t.slots[i] = slot{}
+		sh.slots[i] = slot{}
 		j := i
 		for {
-			j = (j + 1) & t.mask
-			if t.slots[j].key == 0 {
+			j = (j + 1) & sh.mask
+			if sh.slots[j].key == 0 {
 				return
 			}
-			home := t.slots[j].key & t.mask
+			home := sh.slots[j].key & sh.mask
 			// The record at j stays if its home lies cyclically in (i, j].
 			if i <= j {
 				if i < home && home <= j {
@@ -107,7 +163,7 @@ func (t *table) remove(i uint64) {
 			}
 			break
 		}
-		t.slots[i] = t.slots[j]
+		sh.slots[i] = sh.slots[j]
 		i = j
 	}
 }

@@ -11,14 +11,14 @@ import (
 func TestCaseTable(t *testing.T) {
 	rnd := rand.New(rand.NewPCG(7, 9))
 	for _, spread := range []uint64{16, 1 << 12, 1 << 40} {
-		tab := newTable()
+		tab := newTable(^uint64(0)) // nothing expires in lookup
 		ref := map[uint64]uint64{}
 		for round := range 40 {
 			for range 700 {
 				// Keys near the end of the table wrap; the high bits keep them distinct.
-				k := (rnd.Uint64N(spread) + minTableSize - 8) | rnd.Uint64N(1<<20)<<44 | 1
+				k := (rnd.Uint64N(spread) + minShardSize - 8) | rnd.Uint64N(1<<20)<<44 | 1
 				v := rnd.Uint64N(1000)
-				s, ok := tab.lookup(k)
+				s, ok := tab.lookup(k, 0)
 				if _, want := ref[k]; ok != want {
 					t.Fatalf("spread %d round %d: key %x found=%v, want %v", spread, round, k, ok, want)
 				}
@@ -39,20 +39,78 @@ func TestCaseTable(t *testing.T) {
 				t.Fatalf("spread %d round %d: %d records, want %d", spread, round, tab.n, len(ref))
 			}
 			seen := 0
-			for _, s := range tab.slots {
-				if s.key != 0 {
-					seen++
+			for i := range tab.shards {
+				for _, s := range tab.shards[i].slots {
+					if s.key != 0 {
+						seen++
+					}
 				}
 			}
 			if seen != len(ref) {
 				t.Fatalf("spread %d round %d: %d used slots, want %d", spread, round, seen, len(ref))
 			}
 			for k, v := range ref {
-				s, ok := tab.lookup(k)
+				s, ok := tab.lookup(k, 0)
 				if !ok || s.rec != v {
 					t.Fatalf("spread %d round %d: key %x lost after sweep", spread, round, k)
 				}
 			}
 		}
 	}
+}
+
+// TestTableWindow: keys seen at rising instants, each found again only
+// within the window, as a Go map that never forgets says; and the table,
+// dropping expired records before it grows, keeps its slots within a few
+// times the records of the window (without that, a table swept only every
+// so many events holds twice the window and doubles for it).
+func TestTableWindow(t *testing.T) {
+	const window = 20000
+	rnd := rand.New(rand.NewPCG(11, 12))
+	tab := newTable(window)
+	ref := map[uint64]uint64{}
+	var now uint64
+	maxSlots, maxLive := 0, 0
+	for i := range 400_000 {
+		now += rnd.Uint64N(3) // about 20,000 keys in a window
+		k := nonZero(rnd.Uint64())
+		if rnd.IntN(4) == 0 && len(ref) > 0 {
+			for r := range ref { // a key seen before: found if in the window
+				k = r
+				break
+			}
+		}
+		s, ok := tab.lookup(k, now)
+		rec, seen := ref[k]
+		want := seen && now-rec <= window
+		if got := ok && now-s.rec <= window; got != want {
+			t.Fatalf("event %d: key %x in the window = %v, want %v", i, k, got, want)
+		}
+		if !ok {
+			tab.claim(s, k)
+		}
+		s.rec = now
+		ref[k] = now
+		if i%1000 == 999 {
+			live := 0
+			for _, r := range ref {
+				if now-r <= window {
+					live++
+				}
+			}
+			maxLive = max(maxLive, live)
+			maxSlots = max(maxSlots, tab.slotCount())
+			for r, at := range ref { // forget what can no longer be found
+				if now-at > 4*window {
+					delete(ref, r)
+				}
+			}
+		}
+	}
+	// Within the window a shard holds at most 5/8 of its slots after a
+	// sweep, so about 3.2 slots a record, plus the shards' least size.
+	if bound := 4*maxLive + tableShards*minShardSize; maxSlots > bound {
+		t.Errorf("%d slots for at most %d records in the window, want at most %d", maxSlots, maxLive, bound)
+	}
+	t.Logf("at most %d records in the window, at most %d slots", maxLive, maxSlots)
 }
