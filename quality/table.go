@@ -49,14 +49,17 @@ func (t *table) shardOf(key uint64) *shard { return &t.shards[key>>(64-tableShar
 // lookup returns the slot of key (never 0) and whether it holds key; if
 // not, the slot is the empty one where key belongs, which [table.claim]
 // fills. Room for one more key is made first, so the slot stays valid
-// until the next lookup: a full shard drops its records expired at now,
-// then grows if more than 5/8 of it is still in use (so that a shard
-// that fills again soon grows rather than sweeps again).
+// until the next lookup: a full shard (3/4 of its slots in use) drops
+// its records expired at now, then grows if more than 11/16 of it is
+// still in use. So a shard sweeps at least every 1/16 of its size in new
+// keys (at most 16 slots visited a key), and holds at most 16/11 slots a
+// record in the window after its last growth (the window's ids in
+// 1.45-2.9 slots each).
 func (t *table) lookup(key, now uint64) (*slot, bool) {
 	sh := t.shardOf(key)
 	if 4*(sh.n+1) > 3*len(sh.slots) {
 		t.n -= sh.sweep(func(s *slot) bool { return now-s.rec > t.window })
-		if 8*(sh.n+1) > 5*len(sh.slots) {
+		if 16*(sh.n+1) > 11*len(sh.slots) {
 			sh.resize(2 * len(sh.slots))
 		}
 	}
