@@ -49,6 +49,9 @@ type sorter struct {
 	enc     []byte
 	inter   map[string]string
 	rw      *s2.Writer // the writer of every run, reset for each (runWriter)
+	// spilled is the largest buffer spilled so far (records' bytes,
+	// events): the size a new buffer starts at.
+	spilled struct{ bytes, events int }
 	// remerged counts the events written again by merges before the
 	// last one.
 	remerged int
@@ -98,10 +101,39 @@ func (s *sorter) Add(e *schema.Event) error {
 		}
 	}
 	if s.buf == nil {
-		s.buf = &runBuf{}
+		s.buf = s.newRunBuf()
+	}
+	if n := s.buf.len(); n == firstEvents && s.spilled.events == 0 && s.max > n {
+		// A first buffer about to grow past its first events: make room
+		// for a whole run at their size, once (growing bit by bit would
+		// copy it several times over).
+		s.buf.reserve(min(maxRunBytes, len(s.buf.recs)/n*s.max*9/8), s.max)
 	}
 	s.buf.add(e, s.byCase)
 	return nil
+}
+
+// firstEvents is the room a sorter's first buffer starts with, before
+// it knows how long its records are.
+const firstEvents = 4096
+
+// newRunBuf returns an empty buffer the size of the largest spilled so
+// far and an eighth, or, before any spill, of firstEvents events of 128
+// bytes: a buffer grown from nothing to a run's size copies it several
+// times over.
+func (s *sorter) newRunBuf() *runBuf {
+	nb, events := s.spilled.bytes+s.spilled.bytes/8, s.spilled.events
+	if events == 0 {
+		events = min(s.max, firstEvents)
+		nb = events * 128
+	}
+	b := &runBuf{recs: make([]byte, 0, nb)}
+	if s.byCase {
+		b.caseKeys = make([]caseKey, 0, events)
+	} else {
+		b.keys = make([]sortKey, 0, events)
+	}
+	return b
 }
 
 // runBuf holds the events of one run before it is sorted: each event's
@@ -119,6 +151,16 @@ type runBuf struct {
 }
 
 func (b *runBuf) len() int { return len(b.keys) + len(b.caseKeys) }
+
+// reserve makes room for records of bytes in all and keys for events.
+func (b *runBuf) reserve(bytes, events int) {
+	b.recs = slices.Grow(b.recs, bytes-len(b.recs))
+	if b.keys != nil {
+		b.keys = slices.Grow(b.keys, events-len(b.keys))
+	} else {
+		b.caseKeys = slices.Grow(b.caseKeys, events-len(b.caseKeys))
+	}
+}
 
 func (b *runBuf) reset() {
 	b.recs, b.keys, b.caseKeys = b.recs[:0], b.keys[:0], b.caseKeys[:0]
@@ -308,6 +350,8 @@ func (s *sorter) spill() error {
 		return err
 	}
 	buf := s.buf
+	s.spilled.bytes = max(s.spilled.bytes, len(buf.recs))
+	s.spilled.events = max(s.spilled.events, buf.len())
 	s.buf, s.spare = s.spare, nil
 	done := make(chan error, 1)
 	s.pending = done
