@@ -106,8 +106,10 @@ func (s *sorter) Add(e *schema.Event) error {
 	if n := s.buf.len(); n == firstEvents && s.spilled.events == 0 && s.max > n {
 		// A first buffer about to grow past its first events: make room
 		// for a whole run at their size, once (growing bit by bit would
-		// copy it several times over).
-		s.buf.reserve(min(maxRunBytes, len(s.buf.recs)/n*s.max*9/8), s.max)
+		// copy it several times over), within maxRunBytes.
+		per := len(s.buf.recs)/n + 1
+		events := min(s.max, maxRunBytes/per)
+		s.buf.reserve(min(maxRunBytes, per*events*9/8), events)
 	}
 	s.buf.add(e, s.byCase)
 	return nil
@@ -271,13 +273,15 @@ func prefix8(s string) uint64 {
 // spillWork is the scratch space of one sort of a buffer.
 type spillWork struct {
 	offs []uint32
-	// a and b decode two records whose keys tie, for cases.Less.
+	// a and b decode two records whose keys tie, for cases.Less; err is
+	// the first record that did not decode.
 	a, b run
+	err  error
 }
 
 // order returns the offsets of b's records in the sorter's order.
-func (s *sorter) order(b *runBuf, w *spillWork) []uint32 {
-	w.offs = w.offs[:0]
+func (s *sorter) order(b *runBuf, w *spillWork) ([]uint32, error) {
+	w.offs, w.err = w.offs[:0], nil
 	if s.byCase {
 		// Keys hold what cases.Less compares first, so most comparisons
 		// read no record; full ties decode both and fall back to
@@ -306,13 +310,13 @@ func (s *sorter) order(b *runBuf, w *spillWork) []uint32 {
 		for _, k := range b.caseKeys {
 			w.offs = append(w.offs, k.off)
 		}
-		return w.offs
+		return w.offs, w.err
 	}
 	slices.SortFunc(b.keys, cmpKey)
 	for _, k := range b.keys {
 		w.offs = append(w.offs, k.off)
 	}
-	return w.offs
+	return w.offs, nil
 }
 
 // tie orders two records by cases.Less.
@@ -320,11 +324,13 @@ func (w *spillWork) tie(x, y []byte) int {
 	if w.a.inter == nil {
 		w.a.inter, w.b.inter = make(map[string]string), make(map[string]string)
 	}
-	if err := w.a.decode(x); err != nil {
-		panic(err) // the buffer's own records
+	err := w.a.decode(x)
+	if err == nil {
+		err = w.b.decode(y)
 	}
-	if err := w.b.decode(y); err != nil {
-		panic(err)
+	if err != nil {
+		w.err = cmp.Or(w.err, err)
+		return 0
 	}
 	return cases.Less(&w.a.ev, &w.b.ev)
 }
@@ -376,8 +382,12 @@ func (s *sorter) wait() error {
 
 // writeRun writes buf's records, sorted, to f.
 func (s *sorter) writeRun(f *os.File, buf *runBuf, wk *spillWork) error {
+	offs, err := s.order(buf, wk)
+	if err != nil {
+		return err
+	}
 	w := s.runWriter(f)
-	for _, off := range s.order(buf, wk) {
+	for _, off := range offs {
 		if _, err := w.Write(buf.record(off)); err != nil {
 			w.Close() // its goroutines end
 			return fmt.Errorf("sort: %w", err)
@@ -415,8 +425,12 @@ func (s *sorter) Finish(fn func(*schema.Event) error) error {
 		if s.buf == nil {
 			return nil
 		}
+		offs, err := s.order(s.buf, &s.work)
+		if err != nil {
+			return err
+		}
 		r := &run{inter: s.inter}
-		for _, off := range s.order(s.buf, &s.work) {
+		for _, off := range offs {
 			if err := r.decode(s.buf.body(off)); err != nil {
 				return err
 			}

@@ -201,6 +201,22 @@ func TestCaseSorterRuns(t *testing.T) {
 	}
 }
 
+// TestCaseSorterTieDamaged: a record that does not decode when two keys
+// tie (the fallback to cases.Less) is an error of the sort, not a panic
+// of the goroutine that spills.
+func TestCaseSorterTieDamaged(t *testing.T) {
+	s := newCaseSorter(t.TempDir(), 10)
+	defer s.Close()
+	var b runBuf
+	for i := range 2 {
+		b.add(&schema.Event{Site: "s", CaseID: "case-1", Type: schema.Start, OccurredAt: genBase, Line: int64(i + 2)}, true)
+	}
+	b.recs[len(b.recs)-1] = 5 // the last record's attributes: 5 bytes past its end
+	if _, err := s.order(&b, &s.work); !errors.Is(err, errRunRecord) {
+		t.Fatalf("order of a damaged record = %v, want errRunRecord", err)
+	}
+}
+
 // TestSpillDeterminism ingests one shuffled file with a run size that
 // spills about fifty runs and with one that spills none: the snapshot
 // files must be byte-identical and time-sorted.
