@@ -161,7 +161,6 @@ type Accumulator struct {
 	resPeak        int            // most services one resource held at once
 	capPeaks       map[capKey]int // the same, per declared queue or resource
 	learnedIndex   map[string]int32
-	idWindow       uint64
 	clockTol       int64
 	pruneEvery     int
 	seed           maphash.Seed
@@ -439,7 +438,6 @@ func NewAccumulator(opt Options) *Accumulator {
 		maxCase:      uint64(opt.MaxCase.Microseconds()),
 		maxService:   DefaultMaxService.Microseconds(),
 		learnedIndex: map[string]int32{},
-		idWindow:     uint64(opt.EventIDWindow.Microseconds()),
 		clockTol:     opt.ClockTolerance.Microseconds(),
 		pruneEvery:   defaultPruneEvery,
 		seed:         maphash.MakeSeed(),
@@ -873,7 +871,7 @@ func (a *Accumulator) census(s *siteAcc, at int64) {
 func (a *Accumulator) duplicateID(e *schema.Event, rel uint64) bool {
 	k := nonZero(maphash.String(a.seed, e.EventID))
 	sl, ok := a.ids.lookup(k, rel)
-	if ok && rel-sl.rec <= a.idWindow {
+	if ok && rel-sl.rec <= a.ids.window {
 		sl.rec = rel
 		return true
 	}
