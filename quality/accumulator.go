@@ -871,7 +871,7 @@ func (a *Accumulator) census(s *siteAcc, at int64) {
 func (a *Accumulator) duplicateID(e *schema.Event, rel uint64) bool {
 	k := nonZero(maphash.String(a.seed, e.EventID))
 	sl, ok := a.ids.lookup(k, rel)
-	if ok && rel-sl.rec <= a.ids.window {
+	if ok && !a.ids.expired(sl, rel) {
 		sl.rec = rel
 		return true
 	}

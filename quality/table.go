@@ -58,7 +58,7 @@ func (t *table) shardOf(key uint64) *shard { return &t.shards[key>>(64-tableShar
 func (t *table) lookup(key, now uint64) (*slot, bool) {
 	sh := t.shardOf(key)
 	if 4*(sh.n+1) > 3*len(sh.slots) {
-		t.n -= sh.sweep(func(s *slot) bool { return now-s.rec > t.window })
+		t.n -= sh.sweep(func(s *slot) bool { return t.expired(s, now) })
 		if 16*(sh.n+1) > 11*len(sh.slots) {
 			sh.resize(2 * len(sh.slots))
 		}
@@ -81,9 +81,12 @@ func (t *table) claim(s *slot, key uint64) {
 	t.n++
 }
 
+// expired reports whether s's record lies more than the window before now.
+func (t *table) expired(s *slot, now uint64) bool { return now-s.rec > t.window }
+
 // expire drops the records expired at now.
 func (t *table) expire(now uint64) {
-	t.sweep(func(s *slot) bool { return now-s.rec > t.window })
+	t.sweep(func(s *slot) bool { return t.expired(s, now) })
 }
 
 // sweep removes the records for which drop is true; drop may read the
