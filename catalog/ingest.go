@@ -260,7 +260,12 @@ func (in *ingest) start(ctx context.Context, project, dataset string) error {
 	if ds.WindowTo != nil {
 		in.qopt.WindowTo = *ds.WindowTo
 	}
-	in.acc = quality.NewAccumulator(in.qopt)
+	// The held filter drops the upload's copies before quality sees them
+	// (pass); other passes with these options read stored files, which
+	// versions made before that filter may hold copies in.
+	aopt := in.qopt
+	aopt.CopiesDropped = true
+	in.acc = quality.NewAccumulator(aopt)
 	in.srt = newSorter(s.opt.TempDir, s.opt.RunEvents)
 	in.onDone(func() { in.srt.Close() })
 	return nil

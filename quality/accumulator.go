@@ -105,6 +105,12 @@ type Options struct {
 	// MaxSamples is how many sample locations each finding keeps.
 	// Default [DefaultMaxSamples].
 	MaxSamples int
+	// CopiesDropped says that the caller drops every event equal in every
+	// field to an earlier one of the stream before Observe, and counts
+	// those copies itself (as an upload's held-event filter does): the
+	// accumulator does not look for exact duplicates, which it could not
+	// find, and saves holding and hashing each instant's events.
+	CopiesDropped bool
 }
 
 // defaultTo sets *p to d when *p is not positive (unset).
@@ -611,7 +617,7 @@ func (a *Accumulator) Observe(e *schema.Event) Flags {
 	a.countHour(s, at)
 	a.census(s, at)
 
-	exact := a.inst.add(e, a.seed)
+	exact := !a.opt.CopiesDropped && a.inst.add(e, a.seed)
 	if exact {
 		a.flag(s, cExactDuplicate, e)
 		fl |= FlagUniqueness | FlagCopy

@@ -44,9 +44,15 @@ var synthEvents = sync.OnceValues(func() (fileOrder, sorted []schema.Event) {
 // BenchmarkObserve runs the full model over the 1M-event synthetic stream
 // per op, as the ingest does: ObserveFileOrder in file order, Observe in
 // time order, then Report. It reports ns per event.
-func BenchmarkObserve(b *testing.B) {
+func BenchmarkObserve(b *testing.B) { benchObserve(b, false) }
+
+// BenchmarkObserveCopiesDropped is BenchmarkObserve as an upload runs it,
+// its copies dropped before quality (Options.CopiesDropped).
+func BenchmarkObserveCopiesDropped(b *testing.B) { benchObserve(b, true) }
+
+func benchObserve(b *testing.B, copiesDropped bool) {
 	fileOrder, sorted := synthEvents()
-	opt := Options{UploadedAt: sorted[len(sorted)-1].OccurredAt.Add(time.Hour)}
+	opt := Options{UploadedAt: sorted[len(sorted)-1].OccurredAt.Add(time.Hour), CopiesDropped: copiesDropped}
 	b.ReportAllocs()
 	b.ResetTimer()
 	for b.Loop() {
