@@ -485,15 +485,13 @@ func (g *groupBuild) findTouched() error {
 }
 
 func (g *groupBuild) newWriter() (*groupWriter, error) {
-	var extra []cases.Observer
-	if g.table != nil {
-		extra = append(extra, g.table)
-	}
-	extra = append(extra, g.own...)
-	w, err := newGroupWriter(g.s.opt.TempDir, g.qopt, summaryOptions(g.ds), g.terminal, extra...)
+	w, err := newGroupWriter(g.s.opt.TempDir, g.qopt, summaryOptions(g.ds), g.terminal, g.own...)
 	if err != nil {
 		return nil, err
 	}
+	// The version's case table takes the rows the part writes, in the
+	// same order (the part's Case comes where the table's would).
+	w.part.table = g.table
 	g.done = append(g.done, w)
 	return w, nil
 }
@@ -1024,13 +1022,15 @@ func (s *Store) mergeCaseTables(ctx context.Context, set *caseGroupSet, cw *case
 
 // partWriter is a group's case table part being made: a cases.Observer
 // that writes each case's row, in the compact form of appendPartRow, to a
-// temporary file, hashing it.
+// temporary file, hashing it. When table is not nil (a full pass), the
+// row goes to the version's case table too, made once for both.
 type partWriter struct {
-	f   *os.File
-	w   *bufio.Writer
-	h   hash.Hash
-	b   []byte
-	err error
+	f     *os.File
+	w     *bufio.Writer
+	h     hash.Hash
+	b     []byte
+	err   error
+	table *caseTableWriter
 }
 
 func newPartWriter(dir string) (*partWriter, error) {
@@ -1051,6 +1051,9 @@ func (p *partWriter) Case(r *cases.Record) {
 		return
 	}
 	row := r.Row()
+	if p.table != nil {
+		p.table.add(&row)
+	}
 	p.b = appendPartRow(p.b[:0], &row)
 	_, p.err = p.w.Write(p.b)
 }
