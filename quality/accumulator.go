@@ -24,6 +24,11 @@ const (
 	// DefaultMaxHours is how many hours the hourly series of one site
 	// for the gap check holds, over all its runs (two years).
 	DefaultMaxHours = 2 * 366 * 24
+	// DefaultMaxEventIDSlots bounds the duplicate event_id check's table:
+	// 2,097,152 slots of 16 bytes (32 MiB), which hold the ids of a window
+	// until about 1.4 million of them are in it at once (see
+	// Options.MaxEventIDSlots).
+	DefaultMaxEventIDSlots = 1 << 21
 )
 
 // maxSites caps the sites told apart; events of further sites are counted
@@ -81,6 +86,13 @@ type Options struct {
 	// EventIDWindow is how far apart in time two events may be and still
 	// be found sharing an event_id. Default [DefaultEventIDWindow].
 	EventIDWindow time.Duration
+	// MaxEventIDSlots bounds the memory of the event_id check: its table
+	// holds at most this many slots of 16 bytes (rounded down to a power
+	// of two, at least 1,024). Where the window holds more ids than about
+	// 11/16 of them, the check drops the ids seen longest ago first and
+	// looks back less than EventIDWindow from then on; the report says
+	// so (Settings.EventIDBound). Default [DefaultMaxEventIDSlots].
+	MaxEventIDSlots int
 	// LittleTolerance is how far L / (λ·W) may stray from 1 before
 	// Little's law counts as violated. Default [DefaultLittleTolerance].
 	LittleTolerance float64
@@ -131,6 +143,7 @@ func (o *Options) defaults() {
 	defaultTo(&o.StaleAfter, DefaultStaleAfter)
 	defaultTo(&o.MaxHours, DefaultMaxHours)
 	defaultTo(&o.MaxSamples, DefaultMaxSamples)
+	defaultTo(&o.MaxEventIDSlots, DefaultMaxEventIDSlots)
 	if o.Zone == nil {
 		o.Zone = time.UTC
 	}
@@ -451,7 +464,7 @@ func NewAccumulator(opt Options) *Accumulator {
 		siteIndex:    make(map[string]int),
 		waitIndex:    make(map[waitKey]int32),
 		resIndex:     make(map[string]int32),
-		ids:          newTable(uint64(opt.EventIDWindow.Microseconds())),
+		ids:          newTable(uint64(opt.EventIDWindow.Microseconds()), shardBound(opt.MaxEventIDSlots)),
 		svc:          map[uint64]openService{},
 	}
 	for act, d := range opt.MaxService {

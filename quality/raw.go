@@ -52,6 +52,9 @@ type Settings struct {
 	MaxServiceSeconds     float64          `json:"max_service_seconds"`
 	ClockToleranceSeconds float64          `json:"clock_tolerance_seconds"`
 	EventIDWindowSeconds  float64          `json:"event_id_window_seconds"`
+	// EventIDBound is set when the event_id check's memory bound
+	// (Options.MaxEventIDSlots) made it forget ids still in the window.
+	EventIDBound *EventIDBound `json:"event_id_bound,omitempty"`
 	// CaseHorizonSeconds is set only in reports made before cases were
 	// whole (an idle case was then cut after this long); today's omit it.
 	CaseHorizonSeconds float64    `json:"case_horizon_seconds,omitempty"`
@@ -63,6 +66,37 @@ type Settings struct {
 	WindowFrom         *time.Time `json:"window_from,omitempty"`
 	WindowTo           *time.Time `json:"window_to,omitempty"`
 	Historical         bool       `json:"historical,omitempty"` // not scored on currentness
+}
+
+// EventIDBound says how the memory bound of the event_id check shortened
+// its look-back: from From on, an event whose event_id had been seen less
+// than LookbackSeconds before was always found a duplicate; one seen
+// longer before, but within the window, may not have been. Dropped ids
+// were forgotten while still in the window.
+type EventIDBound struct {
+	Slots           int       `json:"slots"`
+	From            time.Time `json:"from"`
+	LookbackSeconds float64   `json:"lookback_seconds"`
+	Dropped         int64     `json:"dropped"`
+}
+
+// merge takes in the bound of another report of the same version.
+func (b *EventIDBound) merge(o *EventIDBound) *EventIDBound {
+	if o == nil {
+		return b
+	}
+	if b == nil {
+		c := *o
+		return &c
+	}
+	c := *b
+	if o.From.Before(c.From) {
+		c.From = o.From
+	}
+	c.LookbackSeconds = min(c.LookbackSeconds, o.LookbackSeconds)
+	c.Slots = max(c.Slots, o.Slots)
+	c.Dropped += o.Dropped
+	return &c
 }
 
 // SiteRaw holds the counts of one site.
@@ -278,6 +312,7 @@ func cloneRaw(r *Raw) Raw {
 	out := Raw{Settings: r.Settings, Uploads: r.Uploads, ResourcePeak: r.ResourcePeak, Samples: map[string][]Sample{},
 		CapacityPeaks: slices.Clone(r.CapacityPeaks)}
 	out.Settings.MappedFields = slices.Clone(r.Settings.MappedFields)
+	out.Settings.EventIDBound = (*EventIDBound)(nil).merge(r.Settings.EventIDBound)
 	for k, v := range r.Samples {
 		out.Samples[k] = slices.Clone(v)
 	}
@@ -303,6 +338,7 @@ func mergeRaw(dst, src *Raw) {
 		dst.CapacityPeaks[i].Capacity = p.Capacity
 	}
 	sortCapacityPeaks(dst.CapacityPeaks)
+	dst.Settings.EventIDBound = dst.Settings.EventIDBound.merge(src.Settings.EventIDBound)
 	if u := src.Settings.UploadedAt; u != nil && (dst.Settings.UploadedAt == nil || u.After(*dst.Settings.UploadedAt)) {
 		dst.Settings.UploadedAt = u
 	}

@@ -395,6 +395,10 @@ func (a *Accumulator) settings() Settings {
 	if st.MappedFields == nil {
 		st.MappedFields = []schema.Field{}
 	}
+	if b := a.ids.bound; b.hit {
+		st.EventIDBound = &EventIDBound{Slots: tableShards * a.ids.maxShard, From: time.UnixMicro(a.base + int64(b.from)).UTC(),
+			LookbackSeconds: float64(b.lookback) / 1e6, Dropped: b.dropped}
+	}
 	return st
 }
 

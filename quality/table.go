@@ -1,5 +1,7 @@
 package quality
 
+import "slices"
+
 // table is a set of 64-bit keys, each with the latest instant it was seen
 // (rec, microseconds after the file's first); a record whose instant lies
 // more than window before the instant in hand has expired. It is an
@@ -12,10 +14,31 @@ package quality
 // slots of one shard, not of the whole table; and a shard about to grow
 // first drops its expired records, so that it grows only for records in
 // the window, however long ago the last sweep of the whole table was.
+//
+// Bound: a shard may not grow past maxShard slots (0: no bound). A shard
+// at the bound that would grow drops its oldest records instead, down to
+// half its slots, so the table holds at most tableShards·maxShard slots
+// however dense the window; the look-back of such a shard then falls
+// short of the window, and bound records by how much.
 type table struct {
-	shards [tableShards]shard
-	n      int
-	window uint64
+	shards   [tableShards]shard
+	n        int
+	window   uint64
+	maxShard int
+	bound    tableBound
+	scratch  []uint64
+}
+
+// tableBound records what the bound cost: whether it dropped records
+// still in the window, the instant of the first such drop, the shortest
+// look-back a drop left (a key seen again less than that after its last
+// sighting is always found; one seen again later, within the window,
+// may not be), and how many records went.
+type tableBound struct {
+	hit      bool
+	from     uint64
+	lookback uint64
+	dropped  int64
 }
 
 // shard is one open-addressing table.
@@ -35,13 +58,25 @@ const (
 	minShardSize   = 16
 )
 
-// newTable returns an empty table whose records expire after window.
-func newTable(window uint64) table {
-	t := table{window: window}
+// newTable returns an empty table whose records expire after window and
+// whose shards hold at most maxShard slots each (a power of two, at
+// least minShardSize; 0: no bound).
+func newTable(window uint64, maxShard int) table {
+	t := table{window: window, maxShard: maxShard}
 	for i := range t.shards {
 		t.shards[i] = shard{slots: make([]slot, minShardSize), mask: minShardSize - 1}
 	}
 	return t
+}
+
+// shardBound returns the slots each shard may hold so that the table
+// holds at most slots in all: a power of two, at least minShardSize.
+func shardBound(slots int) int {
+	per := minShardSize
+	for per*2*tableShards <= slots {
+		per *= 2
+	}
+	return per
 }
 
 func (t *table) shardOf(key uint64) *shard { return &t.shards[key>>(64-tableShardBits)] }
@@ -60,7 +95,11 @@ func (t *table) lookup(key, now uint64) (*slot, bool) {
 	if 4*(sh.n+1) > 3*len(sh.slots) {
 		t.n -= sh.sweep(func(s *slot) bool { return t.expired(s, now) })
 		if 16*(sh.n+1) > 11*len(sh.slots) {
-			sh.resize(2 * len(sh.slots))
+			if t.maxShard > 0 && len(sh.slots) >= t.maxShard {
+				t.dropOldest(sh, now)
+			} else {
+				sh.resize(2 * len(sh.slots))
+			}
 		}
 	}
 	for i := key & sh.mask; ; i = (i + 1) & sh.mask {
@@ -72,6 +111,31 @@ func (t *table) lookup(key, now uint64) (*slot, bool) {
 			return s, false
 		}
 	}
+}
+
+// dropOldest makes room in sh, a shard at the bound whose records are all
+// in the window: it drops the records last seen at or before the instant
+// that leaves at most half its slots in use, and records the look-back
+// left (every record it keeps was seen after that instant).
+func (t *table) dropOldest(sh *shard, now uint64) {
+	recs := t.scratch[:0]
+	for _, s := range sh.slots {
+		if s.key != 0 {
+			recs = append(recs, s.rec)
+		}
+	}
+	t.scratch = recs
+	slices.Sort(recs)
+	cut := recs[len(recs)-len(sh.slots)/2-1]
+	n := sh.sweep(func(s *slot) bool { return s.rec <= cut })
+	t.n -= n
+	b := &t.bound
+	lookback := now - cut
+	if !b.hit {
+		b.hit, b.from, b.lookback = true, now, lookback
+	}
+	b.lookback = min(b.lookback, lookback)
+	b.dropped += int64(n)
 }
 
 // claim stores key in the empty slot s returned by lookup.
