@@ -25,10 +25,10 @@ const (
 	// for the gap check holds, over all its runs (two years).
 	DefaultMaxHours = 2 * 366 * 24
 	// DefaultMaxEventIDSlots bounds the duplicate event_id check's table:
-	// 2,097,152 slots of 16 bytes (32 MiB), which hold the ids of a window
-	// until about 1.4 million of them are in it at once (see
+	// 4,194,304 slots of 16 bytes (64 MiB), which hold the ids of a window
+	// until about 2.9 million of them are in it at once (see
 	// Options.MaxEventIDSlots).
-	DefaultMaxEventIDSlots = 1 << 21
+	DefaultMaxEventIDSlots = 1 << 22
 )
 
 // maxSites caps the sites told apart; events of further sites are counted
