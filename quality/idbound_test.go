@@ -3,6 +3,7 @@ package quality
 import (
 	"fmt"
 	"math/rand/v2"
+	"strings"
 	"testing"
 	"time"
 
@@ -79,6 +80,20 @@ func TestEventIDBound(t *testing.T) {
 		t.Errorf("bounded: duplicate_event_id %d, want between %d (repeats closer than the look-back %v) and %d", got, lo, lookback, hi)
 	}
 	t.Logf("bound %+v: %d duplicates found, %d closer than the look-back, %d in the window", *b, got, lo, hi)
+	var text strings.Builder
+	if err := r.Text(&text, false); err != nil {
+		t.Fatal(err)
+	}
+	want := fmt.Sprintf("event_id check: its memory bound (event_id_bound, 4096 slots) forgot %d ids still in the window; from %s it looked back at least %s, not 24h0m0s",
+		b.Dropped, b.From.Format(time.RFC3339), lookback)
+	if !strings.Contains(text.String(), want) {
+		t.Errorf("text report lacks %q:\n%s", want, text.String())
+	}
+	text.Reset()
+	free.Text(&text, false)
+	if strings.Contains(text.String(), "event_id_bound") {
+		t.Errorf("text report of an unbounded check names the bound")
+	}
 
 	m, err := MergeReports(free, r)
 	if err != nil {

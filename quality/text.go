@@ -55,6 +55,11 @@ func (r *Report) textHead(bw *bufio.Writer, p *painter) {
 	if len(r.UnmappedColumns) > 0 {
 		fmt.Fprintf(bw, "dropped unmapped columns: %s\n", strings.Join(r.UnmappedColumns, ", "))
 	}
+	if b := r.Raw.Settings.EventIDBound; b != nil {
+		fmt.Fprintf(bw, "event_id check: its memory bound (event_id_bound, %d slots) forgot %d ids still in the window; from %s it looked back at least %s, not %s\n",
+			b.Slots, b.Dropped, b.From.Format(time.RFC3339), time.Duration(b.LookbackSeconds*float64(time.Second)),
+			time.Duration(r.Raw.Settings.EventIDWindowSeconds*float64(time.Second)))
+	}
 	bw.WriteString("\n")
 
 }
