@@ -10,7 +10,8 @@
 # them), NIGHTS 1 (default: one upload) or more (the file is cut into
 # its dates, then uploaded as that many appends, the dates spread evenly),
 # COLUMN the 1-based column of occurred_at (default 8). It prints one line
-# per upload (seconds) and the server's VmHWM. Loopback only.
+# per upload (seconds, and the server's CPU seconds) and the server's
+# VmHWM. PROFILE, when set, is the dataset's mapping profile. Loopback only.
 set -euo pipefail
 bin=$(realpath "$1"); csv=$(realpath "$2"); nights=${3:-1}; col=${4:-8}
 work=$(mktemp -d); trap 'kill "$pid" 2>/dev/null || true; rm -rf "$work"' EXIT
@@ -21,7 +22,7 @@ for _ in $(seq 100); do curl -fs "http://127.0.0.1:$port/api/v1/schema" >/dev/nu
 export FLOWCAT_SERVER="http://127.0.0.1:$port"
 export FLOWCAT_TOKEN=$("$bin" token issue --data "$work/data" --role admin --subject bench --ttl 10h)
 "$bin" project create bench >/dev/null
-"$bin" dataset create bench/line >/dev/null
+"$bin" dataset create bench/line ${PROFILE:+--profile "$PROFILE"} >/dev/null
 export FLOWCAT_TOKEN=$("$bin" token issue --data "$work/data" --role partner --subject site --dataset bench/line --ttl 10h)
 parts=()
 if [ "$nights" -le 1 ]; then
@@ -38,10 +39,13 @@ else
   done
   rm -f "$work"/day-*
 fi
+# The server's CPU time (user and system, /proc/PID/stat fields 14 and 15)
+# in seconds: on a noisy machine steadier than the elapsed time.
+cpu() { awk -v hz="$(getconf CLK_TCK)" '{ printf "%.2f", ($14 + $15) / hz }' "/proc/$pid/stat"; }
 for p in "${parts[@]}"; do
-  t0=$(date +%s.%N)
+  t0=$(date +%s.%N); c0=$(cpu)
   "$bin" upload bench/line "$p" >/dev/null
-  t1=$(date +%s.%N)
-  echo "upload $(basename "$p"): $(echo "$t1 - $t0" | bc) s"
+  t1=$(date +%s.%N); c1=$(cpu)
+  echo "upload $(basename "$p"): $(echo "$t1 - $t0" | bc) s, server cpu $(echo "$c1 - $c0" | bc) s"
 done
 grep VmHWM "/proc/$pid/status"
