@@ -3,12 +3,14 @@ package catalog
 import (
 	"cmp"
 	"context"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"hash/maphash"
 	"io"
 	"slices"
 	"strings"
+	"time"
 
 	"github.com/parquet-go/parquet-go"
 
@@ -47,6 +49,7 @@ type heldFilter struct {
 
 	held *eventWindow // held events near the current instant
 	seen *eventWindow // the upload's events so far near it
+	rec  []byte       // the window record of the event in hand
 	src  *heldSource  // nil: nothing to compare with (first version, or not an append)
 
 	against int // the version compared with; 0 for none
@@ -143,7 +146,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	f.held.evict(lo)
 	if f.src != nil {
 		err := f.src.load(ctx, lo, hi, func(h *schema.Event, file int) {
-			f.held.add(&f.hash, f.id, h, file, true)
+			f.held.add(&f.hash, f.id, h, file)
 		})
 		if err != nil {
 			return false, err
@@ -157,8 +160,9 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	f.counts.Read++
 	site.Read++
 	h := identityHash(&f.hash, f.id, e)
-	if prev := f.seen.find(h, f.id, e); prev != nil {
-		if sameContent(&prev.e, e) {
+	f.rec = appendWindowRecord(f.rec[:0], e)
+	if prev, ok := f.seen.find(h, f.id, e, f.rec); ok {
+		if sameContent(prev.rec, f.rec) {
 			f.counts.Copies++
 			site.Copies++
 			return false, nil
@@ -166,20 +170,18 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 		// One stable id, two contents, in one upload.
 		f.nConflict++
 		if len(f.conflicts) < maxChangeSamples {
-			f.conflicts = append(f.conflicts, changeSample{line: e.Line, other: prev.e.Line, fields: differingFields(&prev.e, e)})
+			f.conflicts = append(f.conflicts, changeSample{line: e.Line, other: prev.line, fields: differingFields(prev.event(), e)})
 		}
 		return false, nil
 	}
-	// The sorter's strings are never reused (it copies what it decodes),
-	// so the upload's event is kept without copying its strings.
-	f.seen.addHashed(h, e, -1, false)
-	old := f.held.find(h, f.id, e)
+	f.seen.addHashed(h, e, -1)
+	old, found := f.held.find(h, f.id, e, f.rec)
 	switch {
-	case old == nil:
+	case !found:
 		f.counts.New++
 		site.New++
 		return true, nil
-	case sameContent(&old.e, e):
+	case sameContent(old.rec, f.rec):
 		f.counts.Held++
 		site.Held++
 		return false, nil
@@ -188,7 +190,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	site.Changed++
 	if f.policy != ChangesCorrect {
 		if len(f.changes) < maxChangeSamples {
-			f.changes = append(f.changes, changeSample{line: e.Line, fields: differingFields(&old.e, e)})
+			f.changes = append(f.changes, changeSample{line: e.Line, fields: differingFields(old.event(), e)})
 		}
 		return false, nil
 	}
@@ -198,7 +200,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 		m = map[idKey]struct{}{}
 		f.remove[id] = m
 	}
-	m[idKey{old.e.Site, old.e.EventID}] = struct{}{}
+	m[idKey{windowText(old.rec, windowSite), windowText(old.rec, windowEventID)}] = struct{}{}
 	return true, nil
 }
 
@@ -335,90 +337,177 @@ func mergeMode(mode Mode, p *filePlan) Mode {
 }
 
 // eventWindow holds events in the order they were added (time order) and
-// finds them by identity hash.
+// finds them by identity hash. Each event is kept as its window record
+// (appendWindowRecord: its text fields and instant, what sameContent
+// compares) in one byte arena, beside a few numbers; nothing in the window
+// holds a pointer, so the collector never scans it, and an event costs its
+// record and some 60 bytes rather than a schema.Event and its strings (a
+// window of stable event ids holds a day of the upload's events).
 type eventWindow struct {
-	q    []*windowEvent
-	head int
-	idx  map[uint64][]*windowEvent
-	free []*windowEvent
+	ents  []windowEntry // ents[head:] are in the window, oldest first
+	head  int
+	first int64            // the sequence number of ents[0]
+	arena []byte           // the records of ents[head:] (and maybe older ones)
+	base  int64            // the position of arena[0] among all records' bytes
+	idx   map[uint64]int64 // identity hash -> the newest event's sequence number
 }
 
-type windowEvent struct {
-	e    schema.Event
+type windowEntry struct {
 	at   int64
 	hash uint64
-	file int // index in the held version's files; -1 for the upload's
+	prev int64 // the next older event with the same hash (sequence number), or -1
+	off  int64 // the record's position among all records' bytes
+	n    int32 // the record's length
+	file int32 // index in the held version's files; -1 for the upload's
+	line int64
 }
 
-func newEventWindow() *eventWindow { return &eventWindow{idx: map[uint64][]*windowEvent{}} }
-
-// add hashes e and adds it; clone copies its strings (Parquet buffers).
-func (w *eventWindow) add(h *maphash.Hash, id Identity, e *schema.Event, file int, clone bool) {
-	w.addHashed(identityHash(h, id, e), e, file, clone)
+// windowHit is an event found in a window: its record (valid until the
+// window changes), source line and file.
+type windowHit struct {
+	rec  []byte
+	line int64
+	file int
 }
 
-func (w *eventWindow) addHashed(hash uint64, e *schema.Event, file int, clone bool) {
-	var x *windowEvent
-	if n := len(w.free); n > 0 {
-		x, w.free = w.free[n-1], w.free[:n-1]
-	} else {
-		x = new(windowEvent)
+func newEventWindow() *eventWindow { return &eventWindow{idx: map[uint64]int64{}} }
+
+// add hashes e and adds it.
+func (w *eventWindow) add(h *maphash.Hash, id Identity, e *schema.Event, file int) {
+	w.addHashed(identityHash(h, id, e), e, file)
+}
+
+func (w *eventWindow) addHashed(hash uint64, e *schema.Event, file int) {
+	prev, ok := w.idx[hash]
+	if !ok {
+		prev = -1
 	}
-	if clone {
-		cloneEventInto(&x.e, e)
-	} else {
-		x.e = *e
-	}
-	x.at, x.hash, x.file = e.OccurredAt.UnixMicro(), hash, file
-	w.q = append(w.q, x)
-	w.idx[hash] = append(w.idx[hash], x)
+	off := w.base + int64(len(w.arena))
+	w.arena = appendWindowRecord(w.arena, e)
+	w.idx[hash] = w.first + int64(len(w.ents))
+	w.ents = append(w.ents, windowEntry{at: e.OccurredAt.UnixMicro(), hash: hash, prev: prev, off: off,
+		n: int32(w.base + int64(len(w.arena)) - off), file: int32(file), line: e.Line})
 }
 
-// find returns an event of the window that is e under id, or nil.
-func (w *eventWindow) find(hash uint64, id Identity, e *schema.Event) *windowEvent {
-	for _, x := range w.idx[hash] {
-		if sameIdentity(id, &x.e, e) {
-			return x
+// find returns the oldest event of the window that is e under id; rec is
+// e's window record.
+func (w *eventWindow) find(hash uint64, id Identity, e *schema.Event, rec []byte) (windowHit, bool) {
+	var hit windowHit
+	found := false
+	seq, ok := w.idx[hash]
+	for ok && seq >= w.first+int64(w.head) { // older ones have left the window
+		x := &w.ents[seq-w.first]
+		r := w.arena[x.off-w.base : x.off-w.base+int64(x.n)]
+		if sameIdentityRecord(id, r, e, rec) {
+			hit, found = windowHit{rec: r, line: x.line, file: int(x.file)}, true
 		}
+		seq, ok = x.prev, x.prev >= 0
 	}
-	return nil
+	return hit, found
 }
 
 // evict drops the events before lo.
 func (w *eventWindow) evict(lo int64) {
-	for w.head < len(w.q) && w.q[w.head].at < lo {
-		x := w.q[w.head]
-		w.q[w.head] = nil
+	for w.head < len(w.ents) && w.ents[w.head].at < lo {
+		x := &w.ents[w.head]
+		if w.idx[x.hash] == w.first+int64(w.head) {
+			delete(w.idx, x.hash) // no newer event has its hash
+		}
 		w.head++
-		list := w.idx[x.hash]
-		if i := slices.Index(list, x); i >= 0 {
-			list = slices.Delete(list, i, i+1)
-		}
-		if len(list) == 0 {
-			delete(w.idx, x.hash)
-		} else {
-			w.idx[x.hash] = list
-		}
-		x.e = schema.Event{}
-		if len(w.free) < 4096 {
-			w.free = append(w.free, x)
-		}
 	}
-	if w.head == len(w.q) {
-		w.q, w.head = w.q[:0], 0
-	} else if w.head > 1024 && w.head > len(w.q)/2 {
-		n := copy(w.q, w.q[w.head:])
-		clear(w.q[n:])
-		w.q, w.head = w.q[:n], 0
+	switch {
+	case w.head == len(w.ents):
+		w.first += int64(len(w.ents))
+		w.ents, w.head = w.ents[:0], 0
+		w.base += int64(len(w.arena))
+		w.arena = w.arena[:0]
+	case w.head > 1024 && w.head > len(w.ents)/2:
+		n := copy(w.ents, w.ents[w.head:])
+		w.first += int64(w.head)
+		w.ents, w.head = w.ents[:n], 0
+		cut := w.ents[0].off - w.base
+		m := copy(w.arena, w.arena[cut:])
+		w.arena = w.arena[:m]
+		w.base += cut
 	}
 }
 
-// cloneEventInto copies e's schema fields into dst with strings of their
-// own (no event attributes, no source line).
-func cloneEventInto(dst, e *schema.Event) {
-	*dst = *e
-	dst.Attrs, dst.Line = "", 0
-	dst.CloneStrings()
+// appendWindowRecord appends e's window record to b: each text field
+// (schema.Event.Texts, in schema order) as its length (uvarint) and bytes,
+// then the instant in microseconds (varint). Two events have equal records
+// exactly when sameContent holds.
+func appendWindowRecord(b []byte, e *schema.Event) []byte {
+	for _, v := range e.Texts() {
+		b = binary.AppendUvarint(b, uint64(len(v)))
+		b = append(b, v...)
+	}
+	return binary.AppendVarint(b, e.OccurredAt.UnixMicro())
+}
+
+// windowTexts are the text fields of the field table, in the order of
+// schema.Event.Texts and of window records.
+var windowTexts = func() (out []schema.FieldSpec) {
+	for _, f := range schema.FieldSpecs() {
+		if f.Name != schema.FieldOccurredAt {
+			out = append(out, f)
+		}
+	}
+	return out
+}()
+
+// decodeWindowRecord returns the event a window record holds (its schema
+// fields; no line), or false for bytes that are not one.
+func decodeWindowRecord(r []byte) (schema.Event, bool) {
+	var e schema.Event
+	for i := range windowTexts {
+		n, k := binary.Uvarint(r)
+		if k <= 0 || uint64(len(r)-k) < n {
+			return e, false
+		}
+		windowTexts[i].Set(&e, string(r[k:k+int(n)]))
+		r = r[k+int(n):]
+	}
+	us, k := binary.Varint(r)
+	if k <= 0 || k != len(r) {
+		return e, false
+	}
+	e.OccurredAt = time.UnixMicro(us).UTC()
+	return e, true
+}
+
+// windowText returns text field i (in windowTexts order) of a window
+// record.
+func windowText(r []byte, i int) string {
+	for j := 0; ; j++ {
+		n, k := binary.Uvarint(r)
+		if k <= 0 || uint64(len(r)-k) < n {
+			return ""
+		}
+		if j == i {
+			return string(r[k : k+int(n)])
+		}
+		r = r[k+int(n):]
+	}
+}
+
+// The positions of site and event_id among windowTexts.
+var windowSite, windowEventID = func() (int, int) {
+	s, id := -1, -1
+	for i, f := range windowTexts {
+		switch f.Name {
+		case schema.FieldSite:
+			s = i
+		case schema.FieldEventID:
+			id = i
+		}
+	}
+	return s, id
+}()
+
+// windowEvent decodes a found event for a sample's field list.
+func (x windowHit) event() *schema.Event {
+	e, _ := decodeWindowRecord(x.rec)
+	return &e
 }
 
 // heldSource merges the held files' events in time order, opening a file

@@ -1,6 +1,7 @@
 package catalog
 
 import (
+	"bytes"
 	"context"
 	"fmt"
 	"hash/maphash"
@@ -214,18 +215,23 @@ func identityHash(h *maphash.Hash, id Identity, e *schema.Event) uint64 {
 	return h.Sum64()
 }
 
-// sameIdentity reports whether a and b are one event under id.
-func sameIdentity(id Identity, a, b *schema.Event) bool {
-	if id == IdentityEventID && a.EventID != "" {
-		return a.EventID == b.EventID && a.Site == b.Site
+// sameIdentityRecord reports whether an event kept in a window, as its
+// window record r (held.go), and e, whose record is rec, are one event
+// under id: the same site and event_id where the kept one has an
+// event_id, else the same content.
+func sameIdentityRecord(id Identity, r []byte, e *schema.Event, rec []byte) bool {
+	if id == IdentityEventID {
+		if eid := windowText(r, windowEventID); eid != "" {
+			return eid == e.EventID && windowText(r, windowSite) == e.Site
+		}
 	}
-	return sameContent(a, b)
+	return sameContent(r, rec)
 }
 
-// sameContent reports whether a and b are equal in every schema field;
-// the instant is compared to the microsecond, the source line is not a
-// field.
-func sameContent(a, b *schema.Event) bool { return schema.SameFields(a, b) }
+// sameContent reports whether two window records (appendWindowRecord,
+// held.go) hold events equal in every schema field, as schema.SameFields
+// says: the instant to the microsecond; the source line is not a field.
+func sameContent(r, rec []byte) bool { return bytes.Equal(r, rec) }
 
 // differingFields lists, in schema order, the fields in which a and b
 // differ.
