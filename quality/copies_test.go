@@ -3,10 +3,7 @@ package quality
 import (
 	"bytes"
 	"encoding/json"
-	"errors"
 	"fmt"
-	"io"
-	"os"
 	"path/filepath"
 	"slices"
 	"testing"
@@ -33,39 +30,11 @@ func TestCopiesDropped(t *testing.T) {
 }
 
 func copiesDropped(t *testing.T, dir, file string) {
-	pb, err := os.ReadFile(filepath.Join(dir, "profile.yaml"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	prof, err := schema.ParseProfile(pb)
-	if err != nil {
-		t.Fatal(err)
-	}
-	f, err := os.Open(filepath.Join(dir, file))
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer f.Close()
-	rd, err := schema.NewReader(f, prof, schema.ReaderOptions{Name: file})
-	if err != nil {
-		t.Fatal(err)
-	}
+	prof, all := readLog(t, dir, file)
 	var evs []schema.Event
 	seen := map[string]bool{}
 	copies := 0
-	for {
-		var e schema.Event
-		rej, err := rd.Next(&e)
-		if errors.Is(err, io.EOF) {
-			break
-		}
-		if err != nil {
-			t.Fatal(err)
-		}
-		if rej != nil {
-			continue
-		}
-		e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
+	for _, e := range all {
 		k := e
 		k.Line, k.Row = 0, 0 // the source line is not a field
 		key := fmt.Sprintf("%#v", k)
