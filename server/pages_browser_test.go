@@ -194,6 +194,9 @@ func TestPagesInBrowser(t *testing.T) {
 	}
 	// Find the dataset by name.
 	run(t, ctx, "filter",
+		// The catalog's own form, once the page that holds it is the one
+		// shown (a loaded machine once acted on a node of the page before).
+		chromedp.WaitReady("body"), chromedp.WaitVisible(chromedp.ID("f-q")),
 		chromedp.SetValue(chromedp.ID("f-q"), "nightly"),
 		chromedp.Click(chromedp.CSS("#filters button")),
 		chromedp.WaitVisible(chromedp.CSS(`li.dataset[data-dataset="ward/events"]`)),
