@@ -45,7 +45,13 @@ type heldFilter struct {
 	id     Identity
 	policy ChangePolicy
 	window int64 // microseconds either side of the current instant
-	hash   maphash.Hash
+	seed   maphash.Seed
+	key    []byte // scratch for identities
+	// ids, when not nil, are the upload's identities, recorded as it was
+	// read (stable event ids): only the upload's events whose identity
+	// repeats enter seen, and only held events whose identity the upload
+	// may have enter held. Its seed is the filter's.
+	ids *uploadIdentities
 
 	held *eventWindow // held events near the current instant
 	seen *eventWindow // the upload's events so far near it
@@ -81,7 +87,7 @@ func newHeldFilter(id Identity, policy ChangePolicy) *heldFilter {
 		sites:  map[string]*SiteEventCounts{},
 		remove: map[blob.ID]map[idKey]struct{}{},
 	}
-	f.hash.SetSeed(maphash.MakeSeed())
+	f.seed = maphash.MakeSeed()
 	f.counts.Identity = id
 	if id == IdentityEventID {
 		f.window = DefaultIDWindow
@@ -90,9 +96,10 @@ func newHeldFilter(id Identity, policy ChangePolicy) *heldFilter {
 }
 
 // heldFilterFor makes the filter of an upload to ds against its latest
-// version (or carried, that version re-keyed, when not nil); the caller
+// version (or carried, that version re-keyed, when not nil), given the
+// upload's identities when they were recorded (ids, or nil); the caller
 // holds the dataset's commit lock until the commit.
-func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, prof *schema.Profile, mode Mode, carried *Version) (*heldFilter, error) {
+func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, prof *schema.Profile, mode Mode, carried *Version, ids *uploadIdentities) (*heldFilter, error) {
 	latest, err := s.Version(ctx, ds.Project, ds.Name, 0)
 	if carried != nil { // the latest version carried to the current key generation (rekey.go)
 		latest, err = carried, nil
@@ -103,6 +110,9 @@ func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, prof *schema.Pro
 		return nil, err
 	}
 	f := newHeldFilter(IdentityOf(prof), ds.changePolicy())
+	if ids != nil {
+		f.ids, f.seed = ids, ids.seed
+	}
 	// Only appends compare with held events; every mode stores the copies
 	// within the upload once.
 	if mode == ModeAppend && latest != nil {
@@ -146,7 +156,10 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	f.held.evict(lo)
 	if f.src != nil {
 		err := f.src.load(ctx, lo, hi, func(h *schema.Event, file int) {
-			f.held.add(&f.hash, f.id, h, file)
+			hash := identityHash(f.seed, &f.key, f.id, h)
+			if f.ids == nil || f.ids.mayHold(f.key) {
+				f.held.addHashed(hash, h, file)
+			}
 		})
 		if err != nil {
 			return false, err
@@ -159,7 +172,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	}
 	f.counts.Read++
 	site.Read++
-	h := identityHash(&f.hash, f.id, e)
+	h := identityHash(f.seed, &f.key, f.id, e)
 	f.rec = appendWindowRecord(f.rec[:0], e)
 	if prev, ok := f.seen.find(h, f.id, e, f.rec); ok {
 		if sameContent(prev.rec, f.rec) {
@@ -174,7 +187,9 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 		}
 		return false, nil
 	}
-	f.seen.addHashed(h, e, -1)
+	if f.ids == nil || f.ids.repeated(h) {
+		f.seen.addHashed(h, e, -1) // else no later event of the upload is e
+	}
 	old, found := f.held.find(h, f.id, e, f.rec)
 	switch {
 	case !found:
@@ -371,11 +386,6 @@ type windowHit struct {
 }
 
 func newEventWindow() *eventWindow { return &eventWindow{idx: map[uint64]int64{}} }
-
-// add hashes e and adds it.
-func (w *eventWindow) add(h *maphash.Hash, id Identity, e *schema.Event, file int) {
-	w.addHashed(identityHash(h, id, e), e, file)
-}
 
 func (w *eventWindow) addHashed(hash uint64, e *schema.Event, file int) {
 	prev, ok := w.idx[hash]

@@ -587,3 +587,36 @@ func TestHeldFileMissing(t *testing.T) {
 		t.Errorf("after the file is back: %+v", res.Upload.Events)
 	}
 }
+
+// Stable event ids far apart in time, among many events that never
+// repeat: the upload's conflict 20 hours apart is found, and so is a held
+// event whose re-sent time moved 20 hours; 25 hours is past the window,
+// so the moved event is new. (The held filter keeps in its windows only
+// the events whose identity the upload repeats or may hold: repeats.go.)
+func TestHeldStableEventIDFarApart(t *testing.T) {
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "far", func(s *DatasetSpec) { s.Profile = []byte(stableProfile) })
+	day := mkRows("north", "F", 0, 1201) // one a minute: 20 hours
+	conflict := day[0]                   // an array: a copy
+	conflict[7], conflict[10] = day[1200][7], "home"
+	res, err := e.ingestOpt(t, "p", "far", csvBytes(header, append(slices.Clone(day), conflict)), IngestOptions{Filename: "conflict.csv"})
+	if ue := res.Upload.Error; !errors.Is(err, ErrRejected) || ue == nil || ue.Rule != RuleConflictingEvent || ue.Line != 1203 || !strings.Contains(ue.Message, "line 2") {
+		t.Fatalf("conflict 20 h apart: %v %+v", err, res.Upload.Error)
+	}
+	e.ingest(t, "p", "far", csvBytes(header, day), "day.csv")
+	for _, c := range []struct {
+		shift   time.Duration
+		changed int64
+	}{{20 * time.Hour, 1}, {25 * time.Hour, 0}} {
+		moved := slices.Clone(day)
+		moved[10][7] = atOf(t, day[10]).Add(c.shift).Format(time.RFC3339Nano)
+		res, err := e.ingestOpt(t, "p", "far", csvBytes(header, moved), IngestOptions{Filename: "moved.csv"})
+		ev := res.Upload.Events
+		if ev == nil || ev.Changed != c.changed || ev.Held != 1200 || ev.New != 1-c.changed {
+			t.Fatalf("moved %v: %v, counts %+v", c.shift, err, ev)
+		}
+		if c.changed == 1 && (!errors.Is(err, ErrRejected) || res.Upload.Error.Rule != RuleChangedEvent || res.Upload.Error.Line != 12) {
+			t.Errorf("moved %v: %v %+v", c.shift, err, res.Upload.Error)
+		}
+	}
+}

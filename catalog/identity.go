@@ -3,6 +3,7 @@ package catalog
 import (
 	"bytes"
 	"context"
+	"encoding/binary"
 	"fmt"
 	"hash/maphash"
 	"strings"
@@ -190,29 +191,29 @@ func (u *Upload) Sentence() string {
 	return fmt.Sprintf("v%d already holds every event: %s; nothing stored", u.Version, u.Events.Sentence(0))
 }
 
-// identityHash hashes what makes e itself under id: its site and event
-// id, or (content identity, or no id) every field and the instant.
-func identityHash(h *maphash.Hash, id Identity, e *schema.Event) uint64 {
-	h.Reset()
+// appendIdentity appends to b what makes e itself under id: its site and
+// event id, or (content identity, or no id) every text field and the
+// instant. Equal identities append equal bytes.
+func appendIdentity(b []byte, id Identity, e *schema.Event) []byte {
 	if id == IdentityEventID && e.EventID != "" {
-		h.WriteByte(1)
-		h.WriteString(e.Site)
-		h.WriteByte(0)
-		h.WriteString(e.EventID)
-		return h.Sum64()
+		b = append(b, 1)
+		b = append(b, e.Site...)
+		b = append(b, 0)
+		return append(b, e.EventID...)
 	}
-	h.WriteByte(2)
+	b = append(b, 2)
 	for _, v := range e.Texts() {
-		h.WriteString(v)
-		h.WriteByte(0)
+		b = append(b, v...)
+		b = append(b, 0)
 	}
-	var t [8]byte
-	us := uint64(e.OccurredAt.UnixMicro())
-	for i := range t {
-		t[i] = byte(us >> (8 * i))
-	}
-	h.Write(t[:])
-	return h.Sum64()
+	return binary.LittleEndian.AppendUint64(b, uint64(e.OccurredAt.UnixMicro()))
+}
+
+// identityHash hashes e's identity under id (appendIdentity) with seed;
+// buf is scratch space.
+func identityHash(seed maphash.Seed, buf *[]byte, id Identity, e *schema.Event) uint64 {
+	*buf = appendIdentity((*buf)[:0], id, e)
+	return maphash.Bytes(seed, *buf)
 }
 
 // sameIdentityRecord reports whether an event kept in a window, as its

@@ -168,6 +168,7 @@ type ingest struct {
 	qopt quality.Options
 	acc  *quality.Accumulator
 	srt  *sorter
+	ids  *uploadIdentities // with stable event ids: the identities read (repeats.go)
 	// set by pass
 	hf    *heldFilter
 	sw    *snapshotWriter
@@ -268,6 +269,12 @@ func (in *ingest) start(ctx context.Context, project, dataset string) error {
 	in.acc = quality.NewAccumulator(aopt)
 	in.srt = newSorter(s.opt.TempDir, s.opt.RunEvents)
 	in.onDone(func() { in.srt.Close() })
+	if IdentityOf(prof) == IdentityEventID {
+		// The held filter's windows span a day of event time with stable
+		// ids: what the upload holds keeps them to the events that can
+		// be found there again (repeats.go).
+		in.ids = newUploadIdentities()
+	}
 	return nil
 }
 
@@ -291,7 +298,7 @@ func (in *ingest) read(ctx context.Context, src io.Reader) (*IngestResult, error
 	in.onDone(in.opt.attrs.close)
 	rd, err := schema.NewReader(tee, in.prof, schema.ReaderOptions{Name: up.Filename, Limits: s.opt.Limits})
 	if err == nil {
-		err = readAll(ctx, rd, in.pz, in.acc, in.srt, in.opt.attrs)
+		err = readAll(ctx, rd, in.pz, in.acc, in.srt, in.opt.attrs, in.ids)
 	}
 	if err != nil && !(removing(in.opt) && isNoRows(err)) {
 		return fail(err)
@@ -347,7 +354,7 @@ func (in *ingest) compare(ctx context.Context) error {
 	}
 	in.onDone(cv.release)
 	in.opt.carried = cv
-	hf, err := s.heldFilterFor(ctx, in.ds, in.prof, in.opt.Mode, cv.carriedVersion())
+	hf, err := s.heldFilterFor(ctx, in.ds, in.prof, in.opt.Mode, cv.carriedVersion(), in.ids)
 	if err != nil {
 		return fmt.Errorf("ingest: %w", err)
 	}
@@ -826,7 +833,7 @@ func (s *Store) appendedBefore(ctx context.Context, ds *Dataset, hexDigest strin
 // With declared attributes (ai not nil) rows are read one by one, since
 // an attribute is taken from the reader's current row; else they are
 // parsed on another goroutine (readAhead).
-func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer, acc *quality.Accumulator, srt *sorter, ai *attrIngest) error {
+func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer, acc *quality.Accumulator, srt *sorter, ai *attrIngest, ids *uploadIdentities) error {
 	row := func(e *schema.Event, rej *schema.Rejection) error {
 		if rej != nil {
 			acc.Reject(*rej)
@@ -843,6 +850,9 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 		// quality, sort order and the file agree.
 		e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
 		acc.ObserveFileOrder(e)
+		if ids != nil {
+			ids.add(IdentityEventID, e)
+		}
 		return srt.Add(e)
 	}
 	if ai == nil {

@@ -56,8 +56,8 @@ func TestWindowRecord(t *testing.T) {
 // events leave at once), with the line and file they were added with.
 func TestEventWindow(t *testing.T) {
 	for _, id := range []Identity{IdentityEventID, IdentityContent} {
-		var h maphash.Hash
-		h.SetSeed(maphash.MakeSeed())
+		seed := maphash.MakeSeed()
+		var key []byte
 		w := newEventWindow()
 		rnd := rand.New(rand.NewPCG(5, 6))
 		type kept struct {
@@ -82,7 +82,7 @@ func TestEventWindow(t *testing.T) {
 				ref = ref[1:]
 			}
 			rec := appendWindowRecord(nil, &e)
-			hit, ok := w.find(identityHash(&h, id, &e), id, &e, rec)
+			hit, ok := w.find(identityHash(seed, &key, id, &e), id, &e, rec)
 			var want *kept
 			for j := range ref { // the oldest one with e's identity
 				r := &ref[j]
@@ -102,7 +102,7 @@ func TestEventWindow(t *testing.T) {
 				t.Fatalf("%s event %d: found line %d file %d, want line %d file %d", id, i, hit.line, hit.file, want.e.Line, want.file)
 			}
 			file := rnd.IntN(3) - 1
-			w.add(&h, id, &e, file)
+			w.addHashed(identityHash(seed, &key, id, &e), &e, file)
 			ref = append(ref, kept{e, file})
 		}
 	}
