@@ -514,7 +514,8 @@ var windowSite, windowEventID = func() (int, int) {
 	return s, id
 }()
 
-// windowEvent decodes a found event for a sample's field list.
+// event decodes a found event, for a sample's list of the fields that
+// differ.
 func (x windowHit) event() *schema.Event {
 	e, _ := decodeWindowRecord(x.rec)
 	return &e

@@ -273,7 +273,7 @@ func (in *ingest) start(ctx context.Context, project, dataset string) error {
 		// The held filter's windows span a day of event time with stable
 		// ids: what the upload holds keeps them to the events that can
 		// be found there again (repeats.go).
-		in.ids = newUploadIdentities()
+		in.ids = newUploadIdentities(IdentityEventID)
 	}
 	return nil
 }
@@ -851,7 +851,7 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 		e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
 		acc.ObserveFileOrder(e)
 		if ids != nil {
-			ids.add(IdentityEventID, e)
+			ids.add(e)
 		}
 		return srt.Add(e)
 	}

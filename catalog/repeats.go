@@ -23,6 +23,7 @@ import (
 // Memory: about 14 bits an identity (the layers double, so at most
 // twice that), and 8 bytes a repeat.
 type uploadIdentities struct {
+	id      Identity
 	seed    maphash.Seed
 	layers  []*bloom.BloomFilter
 	n, cap  uint // identities added to the newest layer, and its capacity
@@ -38,13 +39,14 @@ const (
 	firstIdentities = 1 << 16
 )
 
-func newUploadIdentities() *uploadIdentities {
-	return &uploadIdentities{seed: maphash.MakeSeed(), repeats: map[uint64]struct{}{}}
+// newUploadIdentities records identities under id.
+func newUploadIdentities(id Identity) *uploadIdentities {
+	return &uploadIdentities{id: id, seed: maphash.MakeSeed(), repeats: map[uint64]struct{}{}}
 }
 
 // add records the identity of e, one of the upload's events.
-func (u *uploadIdentities) add(id Identity, e *schema.Event) {
-	h := identityHash(u.seed, &u.buf, id, e)
+func (u *uploadIdentities) add(e *schema.Event) {
+	h := identityHash(u.seed, &u.buf, u.id, e)
 	if u.mayHold(u.buf) {
 		u.repeats[h] = struct{}{}
 		return

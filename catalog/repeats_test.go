@@ -14,14 +14,14 @@ import (
 // positives, at most identityFP each when full).
 func TestUploadIdentities(t *testing.T) {
 	const n, twice = 200_000, 1000
-	u := newUploadIdentities()
+	u := newUploadIdentities(IdentityEventID)
 	ev := func(site string, i int) *schema.Event {
 		return &schema.Event{Site: site, EventID: fmt.Sprintf("e%d", i)}
 	}
 	for i := range n {
-		u.add(IdentityEventID, ev("north", i))
+		u.add(ev("north", i))
 		if i%(n/twice) == 0 {
-			u.add(IdentityEventID, ev("north", i))
+			u.add(ev("north", i))
 		}
 	}
 	if len(u.layers) < 2 {
