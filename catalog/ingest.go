@@ -168,7 +168,7 @@ type ingest struct {
 	qopt quality.Options
 	acc  *quality.Accumulator
 	srt  *sorter
-	ids  *uploadIdentities // with stable event ids: the identities read (repeats.go)
+	ids  *uploadIdentities // the identities read (repeats.go)
 	// set by pass
 	hf    *heldFilter
 	sw    *snapshotWriter
@@ -269,12 +269,12 @@ func (in *ingest) start(ctx context.Context, project, dataset string) error {
 	in.acc = quality.NewAccumulator(aopt)
 	in.srt = newSorter(s.opt.TempDir, s.opt.RunEvents)
 	in.onDone(func() { in.srt.Close() })
-	if IdentityOf(prof) == IdentityEventID {
-		// The held filter's windows span a day of event time with stable
-		// ids: what the upload holds keeps them to the events that can
-		// be found there again (repeats.go).
-		in.ids = newUploadIdentities(IdentityEventID)
-	}
+	// The held filter's windows hold the events near the current instant:
+	// a day of event time with stable ids, and all of one instant (a
+	// whole day in a file of dates) with content identity. What the
+	// upload holds keeps them to the events that can be found there
+	// again (repeats.go).
+	in.ids = newUploadIdentities(IdentityOf(prof))
 	return nil
 }
 
@@ -354,6 +354,12 @@ func (in *ingest) compare(ctx context.Context) error {
 	}
 	in.onDone(cv.release)
 	in.opt.carried = cv
+	if in.ids.id == IdentityContent {
+		// Held events are compared at their own instant only: the
+		// filter of the upload's identities is not worth its memory
+		// through the pass; the repeats stay.
+		in.ids.dropFilter()
+	}
 	hf, err := s.heldFilterFor(ctx, in.ds, in.prof, in.opt.Mode, cv.carriedVersion(), in.ids)
 	if err != nil {
 		return fmt.Errorf("ingest: %w", err)

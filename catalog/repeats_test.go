@@ -14,6 +14,8 @@ import (
 // positives, at most identityFP each when full).
 func TestUploadIdentities(t *testing.T) {
 	const n, twice = 200_000, 1000
+	defer func(c uint) { firstIdentities = c }(firstIdentities)
+	firstIdentities = 1 << 15 // several layers
 	u := newUploadIdentities(IdentityEventID)
 	ev := func(site string, i int) *schema.Event {
 		return &schema.Event{Site: site, EventID: fmt.Sprintf("e%d", i)}
@@ -37,7 +39,8 @@ func TestUploadIdentities(t *testing.T) {
 			t.Fatalf("identity %d recorded twice, not a repeat", i)
 		}
 	}
-	if fp := len(u.repeats) - twice; fp < 0 || fp > n/100 {
+	bound := len(u.layers) * n / 100 // at most identityFP a layer
+	if fp := len(u.repeats) - twice; fp < 0 || fp > bound {
 		t.Errorf("%d repeats for %d identities recorded twice", len(u.repeats), twice)
 	}
 	maybe, rep := 0, 0
@@ -50,8 +53,14 @@ func TestUploadIdentities(t *testing.T) {
 			rep++
 		}
 	}
-	if maybe > n/100 || rep > n/1000 {
+	if maybe > bound || rep > n/1000 {
 		t.Errorf("of %d identities never recorded, %d answered maybe, %d taken for repeats", n, maybe, rep)
 	}
 	t.Logf("%d layers, %d repeats (%d true), %d of %d unseen answered maybe", len(u.layers), len(u.repeats), twice, maybe, n)
+	// Without its filter it answers "maybe" to anything, and keeps its repeats.
+	u.dropFilter()
+	h := identityHash(u.seed, &key, IdentityEventID, ev("south", 1))
+	if !u.mayHold(key) || u.repeated(h) || !u.repeated(identityHash(u.seed, &key, IdentityEventID, ev("north", 0))) {
+		t.Error("after dropFilter: an identity never recorded is not a maybe, or the repeats changed")
+	}
 }
