@@ -48,9 +48,10 @@ type heldFilter struct {
 	seed   maphash.Seed
 	key    []byte // scratch for identities
 	// ids, when not nil, are the upload's identities, recorded as it was
-	// read (stable event ids): only the upload's events whose identity
-	// repeats enter seen, and only held events whose identity the upload
-	// may have enter held. Its seed is the filter's.
+	// read: only the upload's events whose identity repeats enter seen,
+	// and only held events whose identity the upload may have enter held
+	// (with content identity its filter is dropped after the read, and it
+	// answers "maybe"). Its seed is the filter's.
 	ids *uploadIdentities
 
 	held *eventWindow // held events near the current instant
