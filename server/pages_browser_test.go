@@ -194,11 +194,15 @@ func TestPagesInBrowser(t *testing.T) {
 	}
 	// Find the dataset by name.
 	run(t, ctx, "filter",
-		// The catalog's own form, once the page that holds it is the one
-		// shown (a loaded machine once acted on a node of the page before).
 		chromedp.WaitReady("body"), chromedp.WaitVisible(chromedp.ID("f-q")),
 		chromedp.SetValue(chromedp.ID("f-q"), "nightly"),
-		chromedp.Click(chromedp.CSS("#filters button")),
+	)
+	// The form's answer is a new page: wait for it, or the dataset's link
+	// is found on the page before, which the answer then replaces.
+	if _, err := chromedp.RunResponse(ctx, chromedp.Click(chromedp.CSS("#filters button"))); err != nil {
+		t.Fatalf("browser, filter: %v", err)
+	}
+	run(t, ctx, "open the dataset",
 		chromedp.WaitVisible(chromedp.CSS(`li.dataset[data-dataset="ward/events"]`)),
 		chromedp.Click(chromedp.CSS(`li.dataset a[href="/view/ward/events"]`)),
 		chromedp.WaitVisible(chromedp.ID("versions")),
