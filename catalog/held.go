@@ -47,11 +47,11 @@ type heldFilter struct {
 	window int64 // microseconds either side of the current instant
 	seed   maphash.Seed
 	key    []byte // scratch for identities
-	// ids, when not nil, are the upload's identities, recorded as it was
-	// read: only the upload's events whose identity repeats enter seen,
-	// and only held events whose identity the upload may have enter held
-	// (with content identity its filter is dropped after the read, and it
-	// answers "maybe"). Its seed is the filter's.
+	// ids are the upload's identities, recorded as it was read: only the
+	// upload's events whose identity repeats enter seen, and only held
+	// events whose identity the upload may have enter held (with content
+	// identity its filter is dropped after the read, and it answers
+	// "maybe"). Its seed is the filter's.
 	ids *uploadIdentities
 
 	held *eventWindow // held events near the current instant
@@ -77,18 +77,20 @@ type changeSample struct {
 	fields      []schema.Field
 }
 
-// newHeldFilter prepares the filter of one upload whose events have
-// identity id; it compares with no held event until given a source.
-func newHeldFilter(id Identity, policy ChangePolicy) *heldFilter {
+// newHeldFilter prepares the filter of one upload whose identities ids
+// recorded; it compares with no held event until given a source.
+func newHeldFilter(ids *uploadIdentities, policy ChangePolicy) *heldFilter {
+	id := ids.id
 	f := &heldFilter{
 		id:     id,
+		seed:   ids.seed,
+		ids:    ids,
 		policy: policy,
 		held:   newEventWindow(),
 		seen:   newEventWindow(),
 		sites:  map[string]*SiteEventCounts{},
 		remove: map[blob.ID]map[idKey]struct{}{},
 	}
-	f.seed = maphash.MakeSeed()
 	f.counts.Identity = id
 	if id == IdentityEventID {
 		f.window = DefaultIDWindow
@@ -98,9 +100,9 @@ func newHeldFilter(id Identity, policy ChangePolicy) *heldFilter {
 
 // heldFilterFor makes the filter of an upload to ds against its latest
 // version (or carried, that version re-keyed, when not nil), given the
-// upload's identities when they were recorded (ids, or nil); the caller
+// upload's identities (ids, under its profile's identity); the caller
 // holds the dataset's commit lock until the commit.
-func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, prof *schema.Profile, mode Mode, carried *Version, ids *uploadIdentities) (*heldFilter, error) {
+func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, mode Mode, carried *Version, ids *uploadIdentities) (*heldFilter, error) {
 	latest, err := s.Version(ctx, ds.Project, ds.Name, 0)
 	if carried != nil { // the latest version carried to the current key generation (rekey.go)
 		latest, err = carried, nil
@@ -110,10 +112,7 @@ func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, prof *schema.Pro
 	} else if err != nil {
 		return nil, err
 	}
-	f := newHeldFilter(IdentityOf(prof), ds.changePolicy())
-	if ids != nil {
-		f.ids, f.seed = ids, ids.seed
-	}
+	f := newHeldFilter(ids, ds.changePolicy())
 	// Only appends compare with held events; every mode stores the copies
 	// within the upload once.
 	if mode == ModeAppend && latest != nil {
@@ -158,7 +157,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	if f.src != nil {
 		err := f.src.load(ctx, lo, hi, func(h *schema.Event, file int) {
 			hash := identityHash(f.seed, &f.key, f.id, h)
-			if f.ids == nil || f.ids.mayHold(f.key) {
+			if f.ids.mayHold(f.key) {
 				f.held.addHashed(hash, h, file)
 			}
 		})
@@ -188,7 +187,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 		}
 		return false, nil
 	}
-	if f.ids == nil || f.ids.repeated(h) {
+	if f.ids.repeated(h) {
 		f.seen.addHashed(h, e, -1) // else no later event of the upload is e
 	}
 	old, found := f.held.find(h, f.id, e, f.rec)

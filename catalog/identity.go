@@ -3,7 +3,6 @@ package catalog
 import (
 	"bytes"
 	"context"
-	"encoding/binary"
 	"fmt"
 	"hash/maphash"
 	"strings"
@@ -192,8 +191,8 @@ func (u *Upload) Sentence() string {
 }
 
 // appendIdentity appends to b what makes e itself under id: its site and
-// event id, or (content identity, or no id) every text field and the
-// instant. Equal identities append equal bytes.
+// event id, or (content identity, or no id) its window record, every text
+// field and the instant. Equal identities append equal bytes.
 func appendIdentity(b []byte, id Identity, e *schema.Event) []byte {
 	if id == IdentityEventID && e.EventID != "" {
 		b = append(b, 1)
@@ -201,12 +200,7 @@ func appendIdentity(b []byte, id Identity, e *schema.Event) []byte {
 		b = append(b, 0)
 		return append(b, e.EventID...)
 	}
-	b = append(b, 2)
-	for _, v := range e.Texts() {
-		b = append(b, v...)
-		b = append(b, 0)
-	}
-	return binary.LittleEndian.AppendUint64(b, uint64(e.OccurredAt.UnixMicro()))
+	return appendWindowRecord(append(b, 2), e)
 }
 
 // identityHash hashes e's identity under id (appendIdentity) with seed;

@@ -360,7 +360,7 @@ func (in *ingest) compare(ctx context.Context) error {
 		// through the pass; the repeats stay.
 		in.ids.dropFilter()
 	}
-	hf, err := s.heldFilterFor(ctx, in.ds, in.prof, in.opt.Mode, cv.carriedVersion(), in.ids)
+	hf, err := s.heldFilterFor(ctx, in.ds, in.opt.Mode, cv.carriedVersion(), in.ids)
 	if err != nil {
 		return fmt.Errorf("ingest: %w", err)
 	}
@@ -856,9 +856,7 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 		// quality, sort order and the file agree.
 		e.OccurredAt = e.OccurredAt.Truncate(time.Microsecond).UTC()
 		acc.ObserveFileOrder(e)
-		if ids != nil {
-			ids.add(e)
-		}
+		ids.add(e)
 		return srt.Add(e)
 	}
 	if ai == nil {
