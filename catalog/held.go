@@ -47,6 +47,10 @@ type heldFilter struct {
 	window int64 // microseconds either side of the current instant
 	seed   maphash.Seed
 	key    []byte // scratch for identities
+	// check and sums are the seeds of the held window's second identity
+	// hash and of its two content hashes.
+	check maphash.Seed
+	sums  [2]maphash.Seed
 	// ids are the upload's identities, recorded as it was read: only the
 	// upload's events whose identity repeats enter seen, and only held
 	// events whose identity the upload may have enter held (with content
@@ -54,9 +58,10 @@ type heldFilter struct {
 	// "maybe"). Its seed is the filter's.
 	ids *uploadIdentities
 
-	held *eventWindow // held events near the current instant
+	held *heldWindow  // held events near the current instant
 	seen *eventWindow // the upload's events so far near it
 	rec  []byte       // the window record of the event in hand
+	hrec []byte       // the window record of the held event in hand
 	src  *heldSource  // nil: nothing to compare with (first version, or not an append)
 
 	against int // the version compared with; 0 for none
@@ -84,9 +89,11 @@ func newHeldFilter(ids *uploadIdentities, policy ChangePolicy) *heldFilter {
 	f := &heldFilter{
 		id:     id,
 		seed:   ids.seed,
+		check:  maphash.MakeSeed(),
+		sums:   [2]maphash.Seed{maphash.MakeSeed(), maphash.MakeSeed()},
 		ids:    ids,
 		policy: policy,
-		held:   newEventWindow(),
+		held:   newHeldWindow(),
 		seen:   newEventWindow(),
 		sites:  map[string]*SiteEventCounts{},
 		remove: map[blob.ID]map[idKey]struct{}{},
@@ -155,10 +162,12 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	f.seen.evict(lo)
 	f.held.evict(lo)
 	if f.src != nil {
-		err := f.src.load(ctx, lo, hi, func(h *schema.Event, file int) {
+		err := f.src.load(ctx, lo, hi, func(h *schema.Event, file int, row int64) {
 			hash := identityHash(f.seed, &f.key, f.id, h)
 			if f.ids.mayHold(f.key) {
-				f.held.addHashed(hash, h, file)
+				f.hrec = appendWindowRecord(f.hrec[:0], h)
+				f.held.add(heldEntry{at: h.OccurredAt.UnixMicro(), hash: hash, check: maphash.Bytes(f.check, f.key),
+					sum: f.contentSum(f.hrec), row: row, file: int32(file)})
 			}
 		})
 		if err != nil {
@@ -173,6 +182,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	f.counts.Read++
 	site.Read++
 	h := identityHash(f.seed, &f.key, f.id, e)
+	check := maphash.Bytes(f.check, f.key)
 	f.rec = appendWindowRecord(f.rec[:0], e)
 	if prev, ok := f.seen.find(h, f.id, e, f.rec); ok {
 		if sameContent(prev.rec, f.rec) {
@@ -188,15 +198,15 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 		return false, nil
 	}
 	if f.ids.repeated(h) {
-		f.seen.addHashed(h, e, -1) // else no later event of the upload is e
+		f.seen.addHashed(h, e) // else no later event of the upload is e
 	}
-	old, found := f.held.find(h, f.id, e, f.rec)
+	old, found := f.held.find(h, check)
 	switch {
 	case !found:
 		f.counts.New++
 		site.New++
 		return true, nil
-	case sameContent(old.rec, f.rec):
+	case old.sum == f.contentSum(f.rec):
 		f.counts.Held++
 		site.Held++
 		return false, nil
@@ -205,7 +215,11 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	site.Changed++
 	if f.policy != ChangesCorrect {
 		if len(f.changes) < maxChangeSamples {
-			f.changes = append(f.changes, changeSample{line: e.Line, fields: differingFields(old.event(), e)})
+			h, err := f.src.event(ctx, int(old.file), old.row)
+			if err != nil {
+				return false, err
+			}
+			f.changes = append(f.changes, changeSample{line: e.Line, fields: differingFields(&h, e)})
 		}
 		return false, nil
 	}
@@ -215,8 +229,16 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 		m = map[idKey]struct{}{}
 		f.remove[id] = m
 	}
-	m[idKey{windowText(old.rec, windowSite), windowText(old.rec, windowEventID)}] = struct{}{}
+	// A change has an event_id (an event without one is its content), and
+	// the held event's site and event_id are e's.
+	m[idKey{strings.Clone(e.Site), strings.Clone(e.EventID)}] = struct{}{}
 	return true, nil
+}
+
+// contentSum hashes a window record under the filter's two content seeds:
+// held events are compared with the upload's by these 128 bits, not kept.
+func (f *heldFilter) contentSum(rec []byte) [2]uint64 {
+	return [2]uint64{maphash.Bytes(f.sums[0], rec), maphash.Bytes(f.sums[1], rec)}
 }
 
 // uploadCounts returns the counts for the upload record, sites in order.
@@ -351,13 +373,15 @@ func mergeMode(mode Mode, p *filePlan) Mode {
 	return mode
 }
 
-// eventWindow holds events in the order they were added (time order) and
-// finds them by identity hash. Each event is kept as its window record
-// (appendWindowRecord: its text fields and instant, what sameContent
-// compares) in one byte arena, beside a few numbers; nothing in the window
-// holds a pointer, so the collector never scans it, and an event costs its
-// record and some 60 bytes rather than a schema.Event and its strings (a
-// window of stable event ids holds a day of the upload's events).
+// eventWindow holds the upload's events in the order they were added
+// (time order) and finds them by identity hash. Each event is kept as its
+// window record (appendWindowRecord: its text fields and instant, what
+// sameContent compares) in one byte arena, beside a few numbers; nothing
+// in the window holds a pointer, so the collector never scans it, and an
+// event costs its record and some 60 bytes rather than a schema.Event and
+// its strings (a window of stable event ids holds up to a day of the
+// upload's events whose identity repeats). A conflict names the fields
+// in which two of the upload's events differ, so the records are kept.
 type eventWindow struct {
 	ents  []windowEntry // ents[head:] are in the window, oldest first
 	head  int
@@ -373,21 +397,19 @@ type windowEntry struct {
 	prev int64 // the next older event with the same hash (sequence number), or -1
 	off  int64 // the record's position among all records' bytes
 	n    int32 // the record's length
-	file int32 // index in the held version's files; -1 for the upload's
 	line int64
 }
 
 // windowHit is an event found in a window: its record (valid until the
-// window changes), source line and file.
+// window changes) and source line.
 type windowHit struct {
 	rec  []byte
 	line int64
-	file int
 }
 
 func newEventWindow() *eventWindow { return &eventWindow{idx: map[uint64]int64{}} }
 
-func (w *eventWindow) addHashed(hash uint64, e *schema.Event, file int) {
+func (w *eventWindow) addHashed(hash uint64, e *schema.Event) {
 	prev, ok := w.idx[hash]
 	if !ok {
 		prev = -1
@@ -396,7 +418,7 @@ func (w *eventWindow) addHashed(hash uint64, e *schema.Event, file int) {
 	w.arena = appendWindowRecord(w.arena, e)
 	w.idx[hash] = w.first + int64(len(w.ents))
 	w.ents = append(w.ents, windowEntry{at: e.OccurredAt.UnixMicro(), hash: hash, prev: prev, off: off,
-		n: int32(w.base + int64(len(w.arena)) - off), file: int32(file), line: e.Line})
+		n: int32(w.base + int64(len(w.arena)) - off), line: e.Line})
 }
 
 // find returns the oldest event of the window that is e under id; rec is
@@ -409,7 +431,7 @@ func (w *eventWindow) find(hash uint64, id Identity, e *schema.Event, rec []byte
 		x := &w.ents[seq-w.first]
 		r := w.arena[x.off-w.base : x.off-w.base+int64(x.n)]
 		if sameIdentityRecord(id, r, e, rec) {
-			hit, found = windowHit{rec: r, line: x.line, file: int(x.file)}, true
+			hit, found = windowHit{rec: r, line: x.line}, true
 		}
 		seq, ok = x.prev, x.prev >= 0
 	}
@@ -439,6 +461,99 @@ func (w *eventWindow) evict(lo int64) {
 		m := copy(w.arena, w.arena[cut:])
 		w.arena = w.arena[:m]
 		w.base += cut
+	}
+}
+
+// heldWindow holds held events in the order they were added (time order)
+// and finds them by identity, each as 64 bytes of numbers and no record:
+// its instant, its identity's hash under two seeds (the first is the
+// index's key), its window record's hash under two more (the content),
+// and the file and row it is stored at. Two events are taken as one
+// identity when both identity hashes are equal, and as one content when
+// both content hashes are: a wrong answer needs two 128-bit keyed hashes
+// to collide. A held event re-sent over 24 h either way of a busy day
+// (stable event ids) would otherwise cost its record, about 130 bytes for
+// the contact line, and the arena's slack. A refusal names the fields of
+// a changed event; the few it names are read again from their file
+// (heldSource.event). The entries sit in chunks of heldChunk, freed as the
+// window passes them, so the memory is the events in the window and one
+// chunk, never twice their number.
+type heldWindow struct {
+	chunks [][]heldEntry // chunks[0][0] is event first
+	first  int64         // the sequence number of chunks[0][0]
+	head   int64         // the oldest event in the window
+	next   int64         // the sequence number of the next event added
+	idx    map[uint64]int64
+	spare  []heldEntry // a freed chunk, for the next one needed
+}
+
+const heldChunk = 4096
+
+type heldEntry struct {
+	at    int64
+	hash  uint64    // the identity's hash, the index's key
+	check uint64    // the identity's hash under the filter's check seed
+	sum   [2]uint64 // the window record's hashes (heldFilter.contentSum)
+	prev  int64     // the next older event with the same hash (sequence number), or -1
+	row   int64     // the event's row in its file
+	file  int32     // index in the held version's files
+}
+
+func newHeldWindow() *heldWindow { return &heldWindow{idx: map[uint64]int64{}} }
+
+func (w *heldWindow) at(seq int64) *heldEntry {
+	i := seq - w.first
+	return &w.chunks[i/heldChunk][i%heldChunk]
+}
+
+func (w *heldWindow) add(x heldEntry) {
+	if w.next-w.first == int64(len(w.chunks))*heldChunk {
+		c := w.spare
+		if c == nil {
+			c = make([]heldEntry, heldChunk)
+		}
+		w.spare = nil
+		w.chunks = append(w.chunks, c)
+	}
+	prev, ok := w.idx[x.hash]
+	if !ok {
+		prev = -1
+	}
+	x.prev = prev
+	*w.at(w.next) = x
+	w.idx[x.hash] = w.next
+	w.next++
+}
+
+// find returns the oldest event of the window whose identity hashes are
+// hash and check.
+func (w *heldWindow) find(hash, check uint64) (heldEntry, bool) {
+	var hit heldEntry
+	found := false
+	seq, ok := w.idx[hash]
+	for ok && seq >= w.head { // older ones have left the window
+		x := w.at(seq)
+		if x.check == check {
+			hit, found = *x, true
+		}
+		seq, ok = x.prev, x.prev >= 0
+	}
+	return hit, found
+}
+
+// evict drops the events before lo.
+func (w *heldWindow) evict(lo int64) {
+	for w.head < w.next && w.at(w.head).at < lo {
+		if x := w.at(w.head); w.idx[x.hash] == w.head {
+			delete(w.idx, x.hash) // no newer event has its hash
+		}
+		w.head++
+	}
+	for w.head-w.first >= heldChunk {
+		w.spare = w.chunks[0]
+		w.chunks[0] = nil
+		w.chunks = w.chunks[1:]
+		w.first += heldChunk
 	}
 }
 
@@ -551,8 +666,9 @@ func newHeldSource(bs blob.Store, files []FileEntry) *heldSource {
 }
 
 // load calls fn, in time order, for the held events in [lo, hi] not given
-// before. Calls must come with lo and hi that never decrease.
-func (s *heldSource) load(ctx context.Context, lo, hi int64, fn func(*schema.Event, int)) error {
+// before, with the file (index) and row each is stored at. Calls must come
+// with lo and hi that never decrease.
+func (s *heldSource) load(ctx context.Context, lo, hi int64, fn func(e *schema.Event, file int, row int64)) error {
 	s.lo = lo
 	for {
 		for len(s.pending) > 0 && s.files[s.pending[0]].MinTime.UnixMicro() <= hi {
@@ -578,7 +694,7 @@ func (s *heldSource) load(ctx context.Context, lo, hi int64, fn func(*schema.Eve
 			return nil
 		}
 		if c.at >= lo {
-			fn(&c.buf[c.pos], c.file)
+			fn(&c.buf[c.pos], c.file, c.row0+int64(c.pos))
 		}
 		if err := c.advance(s); err != nil {
 			return err
@@ -606,7 +722,10 @@ type heldCursor struct {
 	groups []parquet.RowGroup
 	col    int // leaf index of occurred_at
 	gi     int
+	starts []int64 // the first row of each group in the file
 	rd     *EventReader
+	next   int64 // the row in the file of the next event rd reads
+	row0   int64 // the row in the file of buf[0]
 	buf    []schema.Event
 	pos, n int
 	at     int64 // instant of buf[pos]
@@ -635,6 +754,7 @@ func (s *heldSource) openCursor(ctx context.Context, i int) (*heldCursor, error)
 	}
 	c.col = leaf.ColumnIndex
 	c.groups = pf.RowGroups()
+	c.starts = groupStarts(c.groups)
 	c.pos, c.n = 0, 0
 	if err := c.advance(s); err != nil {
 		return nil, err
@@ -657,12 +777,15 @@ func (c *heldCursor) advance(s *heldSource) error {
 				return nil
 			}
 			c.rd = NewRowReader(parquet.NewGenericRowGroupReader[schema.Event](c.groups[c.gi]))
+			c.next = c.starts[c.gi]
 			c.gi++
 			s.stats.RowGroupsRead++
 		}
 		clear(c.buf)
 		n, err := c.rd.Read(c.buf)
 		c.pos, c.n = 0, n
+		c.row0 = c.next
+		c.next += int64(n)
 		s.stats.RowsRead += int64(n)
 		if errors.Is(err, io.EOF) {
 			c.rd.Close()
@@ -673,6 +796,50 @@ func (c *heldCursor) advance(s *heldSource) error {
 	}
 	c.at = c.buf[c.pos].OccurredAt.UnixMicro()
 	return nil
+}
+
+// groupStarts returns the first row of each group among the file's rows.
+func groupStarts(groups []parquet.RowGroup) []int64 {
+	out := make([]int64, len(groups))
+	var n int64
+	for i, g := range groups {
+		out[i] = n
+		n += g.NumRows()
+	}
+	return out
+}
+
+// event reads again the held event at row of file (an index in s.files).
+func (s *heldSource) event(ctx context.Context, file int, row int64) (schema.Event, error) {
+	var e schema.Event
+	fe := s.files[file]
+	r, err := s.blobs.Open(ctx, fe.SHA256)
+	if err != nil {
+		return e, fmt.Errorf("held events: %w", err)
+	}
+	defer r.Close()
+	pf, err := parquet.OpenFile(r, r.Size(), parquet.SkipBloomFilters(true))
+	if err != nil {
+		return e, fmt.Errorf("held events: file %s: %w", fe.SHA256, err)
+	}
+	groups := pf.RowGroups()
+	starts := groupStarts(groups)
+	g, _ := slices.BinarySearch(starts, row+1)
+	g-- // the last group starting at or before row
+	if g < 0 || row-starts[g] >= groups[g].NumRows() {
+		return e, fmt.Errorf("held events: file %s has no row %d", fe.SHA256, row)
+	}
+	gr := parquet.NewGenericRowGroupReader[schema.Event](groups[g])
+	rd := NewRowReader(gr)
+	defer rd.Close()
+	if err := gr.SeekToRow(row - starts[g]); err != nil {
+		return e, fmt.Errorf("held events: file %s: %w", fe.SHA256, err)
+	}
+	buf := make([]schema.Event, 1)
+	if n, err := rd.Read(buf); n != 1 {
+		return e, fmt.Errorf("held events: file %s, row %d: %v", fe.SHA256, row, err)
+	}
+	return buf[0], nil
 }
 
 // groupReaches reports whether rg may hold an event at or after lo.

@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"hash/maphash"
 	"math/rand/v2"
+	"slices"
 	"testing"
 	"time"
 
@@ -53,17 +54,14 @@ func TestWindowRecord(t *testing.T) {
 // TestEventWindow: events added at rising instants, evicted below a
 // moving bound, are found by identity exactly as a list of the events in
 // the window says (the oldest of them), through the window's compactions (more than 1,024
-// events leave at once), with the line and file they were added with.
+// events leave at once), with the line they were added with.
 func TestEventWindow(t *testing.T) {
 	for _, id := range []Identity{IdentityEventID, IdentityContent} {
 		seed := maphash.MakeSeed()
 		var key []byte
 		w := newEventWindow()
 		rnd := rand.New(rand.NewPCG(5, 6))
-		type kept struct {
-			e    schema.Event
-			file int
-		}
+		type kept struct{ e schema.Event }
 		var ref []kept
 		at := time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)
 		for i := range 20000 {
@@ -98,12 +96,62 @@ func TestEventWindow(t *testing.T) {
 			if ok != (want != nil) {
 				t.Fatalf("%s event %d: found %v, want %v", id, i, ok, want != nil)
 			}
-			if ok && (hit.line != want.e.Line || hit.file != want.file || !schema.SameFields(hit.event(), &want.e)) {
-				t.Fatalf("%s event %d: found line %d file %d, want line %d file %d", id, i, hit.line, hit.file, want.e.Line, want.file)
+			if ok && (hit.line != want.e.Line || !schema.SameFields(hit.event(), &want.e)) {
+				t.Fatalf("%s event %d: found line %d, want line %d", id, i, hit.line, want.e.Line)
 			}
-			file := rnd.IntN(3) - 1
-			w.addHashed(identityHash(seed, &key, id, &e), &e, file)
-			ref = append(ref, kept{e, file})
+			w.addHashed(identityHash(seed, &key, id, &e), &e)
+			ref = append(ref, kept{e})
 		}
+	}
+}
+
+// TestHeldWindow: held entries added at rising instants, evicted below a
+// moving bound, are found by their two identity hashes exactly as a list
+// of the entries in the window says (the oldest of them, its row, file and
+// content hashes), while many identities share the index's hash (chains
+// of other identities) and the window frees its chunks as it passes them:
+// it never holds more chunks than its entries need and one.
+func TestHeldWindow(t *testing.T) {
+	w := newHeldWindow()
+	rnd := rand.New(rand.NewPCG(7, 8))
+	var ref []heldEntry
+	at := int64(0)
+	most := 0
+	for i := range 60000 {
+		at += int64(rnd.IntN(3)) * 1e6
+		id := uint64(rnd.IntN(3000))
+		x := heldEntry{at: at, hash: id % 61, check: id, sum: [2]uint64{rnd.Uint64(), uint64(i)},
+			row: int64(i), file: int32(rnd.IntN(4))}
+		lo := at - 12000e6 // mostly one entry at a time, so every place in a chunk is an end
+		if rnd.IntN(10) == 0 {
+			lo -= int64(rnd.IntN(300)) * 1e6
+		}
+		if i%15000 == 14999 {
+			lo = at // empty the window now and then
+		}
+		w.evict(lo)
+		for len(ref) > 0 && ref[0].at < lo {
+			ref = ref[1:]
+		}
+		got, ok := w.find(x.hash, x.check)
+		want := slices.IndexFunc(ref, func(r heldEntry) bool { return r.check == x.check })
+		if ok != (want >= 0) {
+			t.Fatalf("entry %d: found %v, want %v", i, ok, want >= 0)
+		}
+		if ok {
+			got.prev = ref[want].prev
+			if got != ref[want] {
+				t.Fatalf("entry %d: found %+v, want %+v", i, got, ref[want])
+			}
+		}
+		w.add(x)
+		ref = append(ref, x)
+		if n := len(ref)/heldChunk + 2; len(w.chunks) > n {
+			t.Fatalf("entry %d: %d chunks for %d entries", i, len(w.chunks), len(ref))
+		}
+		most = max(most, len(ref))
+	}
+	if most < 2*heldChunk {
+		t.Fatalf("the window held at most %d entries: no chunk was freed under load", most)
 	}
 }
