@@ -44,9 +44,14 @@ const maxChangeSamples = 10
 type heldFilter struct {
 	id     Identity
 	policy ChangePolicy
-	window int64 // microseconds either side of the current instant
-	seed   maphash.Seed
-	key    []byte // scratch for identities
+	window int64 // microseconds either side of the current instant: the upload's events
+	// around is the window of held events, window until more than
+	// maxHeld of them fall in it; then it narrows (narrow).
+	around   int64
+	maxHeld  int
+	narrowed *ChangeWindow // nil while around is window
+	seed     maphash.Seed
+	key      []byte // scratch for identities
 	// check and sums are the seeds of the held window's second identity
 	// hash and of its two content hashes.
 	check maphash.Seed
@@ -83,8 +88,10 @@ type changeSample struct {
 }
 
 // newHeldFilter prepares the filter of one upload whose identities ids
-// recorded; it compares with no held event until given a source.
-func newHeldFilter(ids *uploadIdentities, policy ChangePolicy) *heldFilter {
+// recorded, keeping at most maxHeld held events at once (beyond the
+// current instant's); it compares with no held event until given a
+// source.
+func newHeldFilter(ids *uploadIdentities, policy ChangePolicy, maxHeld int) *heldFilter {
 	id := ids.id
 	f := &heldFilter{
 		id:     id,
@@ -102,6 +109,7 @@ func newHeldFilter(ids *uploadIdentities, policy ChangePolicy) *heldFilter {
 	if id == IdentityEventID {
 		f.window = DefaultIDWindow
 	}
+	f.around, f.maxHeld = f.window, maxHeld
 	return f
 }
 
@@ -119,7 +127,7 @@ func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, mode Mode, carri
 	} else if err != nil {
 		return nil, err
 	}
-	f := newHeldFilter(ids, ds.changePolicy())
+	f := newHeldFilter(ids, ds.changePolicy(), s.opt.HeldWindowEvents)
 	// Only appends compare with held events; every mode stores the copies
 	// within the upload once.
 	if mode == ModeAppend && latest != nil {
@@ -133,6 +141,7 @@ func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, mode Mode, carri
 func (f *heldFilter) close() {
 	if f != nil && f.src != nil {
 		f.src.close()
+		f.src.stats.WindowPeak = f.held.peak
 		if testHookHeldStats != nil {
 			testHookHeldStats(f.src.stats)
 		}
@@ -158,17 +167,22 @@ func (f *heldFilter) keep(ctx context.Context, fn func(*schema.Event) error) fun
 // classify counts e and reports whether it is to be stored.
 func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error) {
 	at := e.OccurredAt.UnixMicro()
-	lo, hi := at-f.window, at+f.window
-	f.seen.evict(lo)
-	f.held.evict(lo)
+	f.seen.evict(at - f.window)
+	f.held.evict(at - f.around)
 	if f.src != nil {
-		err := f.src.load(ctx, lo, hi, func(h *schema.Event, file int, row int64) {
+		err := f.src.load(ctx, at-f.around, at+f.around, func(h *schema.Event, file int, row int64) bool {
 			hash := identityHash(f.seed, &f.key, f.id, h)
-			if f.ids.mayHold(f.key) {
-				f.hrec = appendWindowRecord(f.hrec[:0], h)
-				f.held.add(heldEntry{at: h.OccurredAt.UnixMicro(), hash: hash, check: maphash.Bytes(f.check, f.key),
-					sum: f.contentSum(f.hrec), row: row, file: int32(file)})
+			if !f.ids.mayHold(f.key) {
+				return true
 			}
+			hAt := h.OccurredAt.UnixMicro()
+			if f.held.len() >= f.maxHeld && !f.narrow(e.OccurredAt, hAt) {
+				return false // it waits in its file
+			}
+			f.hrec = appendWindowRecord(f.hrec[:0], h)
+			f.held.add(heldEntry{at: hAt, hash: hash, check: maphash.Bytes(f.check, f.key),
+				sum: f.contentSum(f.hrec), row: row, file: int32(file)})
+			return true
 		})
 		if err != nil {
 			return false, err
@@ -235,6 +249,37 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	return true, nil
 }
 
+// narrow makes room in the full window of held events for one at hAt,
+// given at the upload's instant t, by shrinking the look-around either
+// way: when the window reaches further back from t than hAt lies ahead,
+// the oldest held events leave it and the one at hAt comes in (true);
+// else the look-around ends before hAt, and that event waits in its file
+// (false). So the window stays about even on both sides of t. The
+// look-around never grows back: it ends at about the span either way that
+// maxHeld held events fill where they are densest, and the upload's counts
+// say from when and how far it looked (ChangeWindow). A held event of the
+// instant t itself is never refused, even when the window holds nothing
+// else, so an exact re-send is always found.
+func (f *heldFilter) narrow(t time.Time, hAt int64) bool {
+	at := t.UnixMicro()
+	take := false
+	switch oldest, ok := f.held.oldest(); {
+	case ok && at-oldest > hAt-at:
+		f.around = min(f.around, at-oldest-1)
+		take = true
+	case hAt == at: // the window holds only the instant t
+		return true
+	default:
+		f.around = min(f.around, hAt-at-1)
+	}
+	f.held.evict(at - f.around)
+	if f.narrowed == nil {
+		f.narrowed = &ChangeWindow{From: t.UTC(), HeldEvents: f.maxHeld}
+	}
+	f.narrowed.Seconds = float64(f.around) / 1e6
+	return take
+}
+
 // contentSum hashes a window record under the filter's two content seeds:
 // held events are compared with the upload's by these 128 bits, not kept.
 func (f *heldFilter) contentSum(rec []byte) [2]uint64 {
@@ -244,6 +289,7 @@ func (f *heldFilter) contentSum(rec []byte) [2]uint64 {
 // uploadCounts returns the counts for the upload record, sites in order.
 func (f *heldFilter) uploadCounts() *EventCounts {
 	c := f.counts
+	c.ChangeWindow = f.narrowed
 	c.Sites = make([]SiteEventCounts, 0, len(f.sites))
 	for _, s := range f.sites {
 		c.Sites = append(c.Sites, *s)
@@ -260,6 +306,7 @@ func (f *heldFilter) lineageCounts(removed int64) *EventCounts {
 	}
 	c := f.counts
 	c.Sites = nil
+	c.ChangeWindow = f.narrowed
 	if f.correcting() {
 		c.Removed = removed
 	}
@@ -485,6 +532,7 @@ type heldWindow struct {
 	next   int64         // the sequence number of the next event added
 	idx    map[uint64]int64
 	spare  []heldEntry // a freed chunk, for the next one needed
+	peak   int         // the most events it held at once
 }
 
 const heldChunk = 4096
@@ -500,6 +548,17 @@ type heldEntry struct {
 }
 
 func newHeldWindow() *heldWindow { return &heldWindow{idx: map[uint64]int64{}} }
+
+// oldest returns the instant of the oldest event in the window.
+func (w *heldWindow) oldest() (int64, bool) {
+	if w.head == w.next {
+		return 0, false
+	}
+	return w.at(w.head).at, true
+}
+
+// len is the number of events in the window.
+func (w *heldWindow) len() int { return int(w.next - w.head) }
 
 func (w *heldWindow) at(seq int64) *heldEntry {
 	i := seq - w.first
@@ -523,6 +582,7 @@ func (w *heldWindow) add(x heldEntry) {
 	*w.at(w.next) = x
 	w.idx[x.hash] = w.next
 	w.next++
+	w.peak = max(w.peak, w.len())
 }
 
 // find returns the oldest event of the window whose identity hashes are
@@ -654,6 +714,7 @@ type heldStats struct {
 	FilesOpened, FilesSkipped       int
 	RowGroupsRead, RowGroupsSkipped int
 	RowsRead                        int64
+	WindowPeak                      int // the most held events the filter's window held at once
 }
 
 func newHeldSource(bs blob.Store, files []FileEntry) *heldSource {
@@ -666,9 +727,10 @@ func newHeldSource(bs blob.Store, files []FileEntry) *heldSource {
 }
 
 // load calls fn, in time order, for the held events in [lo, hi] not given
-// before, with the file (index) and row each is stored at. Calls must come
-// with lo and hi that never decrease.
-func (s *heldSource) load(ctx context.Context, lo, hi int64, fn func(e *schema.Event, file int, row int64)) error {
+// before, with the file (index) and row each is stored at, until fn
+// returns false: that event is given again at the next call. Calls must
+// come with lo that never decreases.
+func (s *heldSource) load(ctx context.Context, lo, hi int64, fn func(e *schema.Event, file int, row int64) bool) error {
 	s.lo = lo
 	for {
 		for len(s.pending) > 0 && s.files[s.pending[0]].MinTime.UnixMicro() <= hi {
@@ -693,8 +755,8 @@ func (s *heldSource) load(ctx context.Context, lo, hi int64, fn func(e *schema.E
 		if c.at > hi {
 			return nil
 		}
-		if c.at >= lo {
-			fn(&c.buf[c.pos], c.file, c.row0+int64(c.pos))
+		if c.at >= lo && !fn(&c.buf[c.pos], c.file, c.row0+int64(c.pos)) {
+			return nil
 		}
 		if err := c.advance(s); err != nil {
 			return err

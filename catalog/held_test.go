@@ -620,3 +620,95 @@ func TestHeldStableEventIDFarApart(t *testing.T) {
 		}
 	}
 }
+
+// An append with stable ids whose held events within 24 h outnumber
+// Options.HeldWindowEvents keeps no more of them at once: its look-around
+// narrows (to about the span the bound fills at one event a minute: 100
+// events, 50 minutes either way) from its first event on, and its counts
+// say so. Exact re-sends are still all found; a change that moved the
+// instant by 20 minutes is found, one moved by 3 hours is stored as new
+// (the limit the counts name), where the unbounded filter finds both.
+func TestHeldWindowNarrows(t *testing.T) {
+	var st heldStats
+	testHookHeldStats = func(s heldStats) { st = s }
+	defer func() { testHookHeldStats = nil }()
+	for _, bound := range []int{100, 0} {
+		e := newEnv(t, func(o *Options) { o.HeldWindowEvents = bound; o.RowGroupRows = 64 })
+		e.dataset(t, "p", "d", func(s *DatasetSpec) { s.Profile = []byte(stableProfile); s.Changes = ChangesCorrect })
+		day := mkRows("north", "N", 0, 600) // one a minute: 10 hours
+		e.ingest(t, "p", "d", csvBytes(header, day), "day.csv")
+		first := atOf(t, day[0])
+		again := append(slices.Clone(day), mkRows("north", "X", 0, 1)...) // one new event, so a version is made
+		res := e.ingest(t, "p", "d", csvBytes(header, again), "again.csv")
+		ev := res.Upload.Events
+		if ev.Held != 600 || ev.New != 1 || ev.Changed != 0 {
+			t.Fatalf("bound %d, a re-send: counts %+v", bound, ev)
+		}
+		if bound == 0 {
+			if ev.ChangeWindow != nil || st.WindowPeak != 600 {
+				t.Errorf("unbounded: change window %+v, peak %d", ev.ChangeWindow, st.WindowPeak)
+			}
+		} else {
+			w := ev.ChangeWindow
+			if w == nil || !w.From.Equal(first) || w.HeldEvents != bound || w.Seconds < 45*60 || w.Seconds > 50*60 {
+				t.Fatalf("bound %d: change window %+v, want from %v, about 50 minutes", bound, w, first)
+			}
+			if st.WindowPeak > bound {
+				t.Errorf("bound %d: the window held %d held events at once", bound, st.WindowPeak)
+			}
+			if s := ev.Sentence(2); !strings.Contains(s, "over 100 held events within 24 h, so from 2026-") {
+				t.Errorf("sentence %q", s)
+			}
+		}
+		// The afternoon re-sent, and the morning's events moved by 25 h
+		// (new events): the upload's first event finds the morning's held
+		// events behind it (their ids are in the upload) and the
+		// afternoon's ahead.
+		shifted := slices.Clone(day[300:])
+		for _, r := range day[:300] {
+			r[7] = atOf(t, r).Add(25 * time.Hour).Format(time.RFC3339Nano) // r is a copy
+			shifted = append(shifted, r)
+		}
+		res = e.ingest(t, "p", "d", csvBytes(header, shifted), "afternoon.csv")
+		if ev := res.Upload.Events; ev.Held != 300 || ev.New != 300 || (bound > 0) != (ev.ChangeWindow != nil) ||
+			bound > 0 && (ev.ChangeWindow.Seconds < 45*60 || ev.ChangeWindow.Seconds > 50*60 || !ev.ChangeWindow.From.Equal(atOf(t, day[300]))) {
+			t.Errorf("bound %d, the afternoon: counts %+v, change window %+v", bound, ev, ev.ChangeWindow)
+		}
+		if bound > 0 && st.WindowPeak > bound {
+			t.Errorf("bound %d, the afternoon: the window held %d held events at once", bound, st.WindowPeak)
+		}
+		// Two corrections in the middle of the day: one 20 minutes later,
+		// one 3 hours later (each still within 24 h).
+		moved := slices.Clone(day)
+		moved[300][7] = atOf(t, day[300]).Add(20 * time.Minute).Format(time.RFC3339Nano)
+		moved[310][7] = atOf(t, day[310]).Add(3 * time.Hour).Format(time.RFC3339Nano)
+		res = e.ingest(t, "p", "d", csvBytes(header, moved), "moved.csv")
+		ev = res.Upload.Events
+		want := EventCounts{Read: 600, Held: 598, Changed: 2}
+		if bound > 0 {
+			want.Changed, want.New = 1, 1
+		}
+		if ev.Read != want.Read || ev.Held != want.Held || ev.Changed != want.Changed || ev.New != want.New {
+			t.Errorf("bound %d, moved: counts %+v, want %+v", bound, ev, want)
+		}
+	}
+}
+
+// The held events of one instant are all kept whatever the bound, so an
+// exact re-send of a date-only day is found in full.
+func TestHeldWindowOneInstant(t *testing.T) {
+	var st heldStats
+	testHookHeldStats = func(s heldStats) { st = s }
+	defer func() { testHookHeldStats = nil }()
+	e := newEnv(t, func(o *Options) { o.HeldWindowEvents = 100 })
+	e.dataset(t, "p", "d", func(s *DatasetSpec) { s.Profile = []byte(stableProfile) })
+	day := mkRows("north", "I", 0, 150)
+	for i := range day {
+		day[i][7] = day[0][7]
+	}
+	e.ingest(t, "p", "d", csvBytes(header, day), "day.csv")
+	res := e.ingest(t, "p", "d", csvBytes(header, append(slices.Clone(day), mkRows("north", "J", 1, 1)...)), "again.csv")
+	if ev := res.Upload.Events; ev.Held != 150 || ev.New != 1 || ev.ChangeWindow != nil || st.WindowPeak != 150 {
+		t.Errorf("counts %+v, change window %+v, window peak %d", ev, ev.ChangeWindow, st.WindowPeak)
+	}
+}

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"hash/maphash"
 	"strings"
+	"time"
 
 	"golang.org/x/text/language"
 	"golang.org/x/text/message"
@@ -123,8 +124,24 @@ type EventCounts struct {
 	Copies   int64    `json:"copies"`       // exact copies of an earlier event of the same upload: stored once
 	Changed  int64    `json:"changed"`      // held ids re-sent with other content
 	Removed  int64    `json:"removed"`      // old events the corrections removed
+	// ChangeWindow, when set, says that held events were looked for
+	// within a narrower span than 24 h from some instant on.
+	ChangeWindow *ChangeWindow `json:"change_window,omitempty"`
 	// Sites holds the same counts per site (on uploads, not in lineage).
 	Sites []SiteEventCounts `json:"sites,omitempty"`
+}
+
+// ChangeWindow says that an append with stable event ids found more held
+// events within 24 h either way of its events than its bound (HeldEvents,
+// Options.HeldWindowEvents) and looked at fewer: from its event at From
+// on, a held event was looked for only Seconds either way. An exact
+// re-send is still found (0 s looks at the instant itself); a change that
+// moved an event's instant by more than Seconds may have been stored as a
+// new event, the old one kept.
+type ChangeWindow struct {
+	From       time.Time `json:"from"`
+	Seconds    float64   `json:"seconds"`
+	HeldEvents int       `json:"held_events"`
 }
 
 // SiteEventCounts are one site's EventCounts.
@@ -161,6 +178,10 @@ func (c *EventCounts) Sentence(version int) string {
 	}
 	if c.Copies > 0 {
 		b.WriteString(printer.Sprintf(", %d %s within the file stored once", c.Copies, plural(c.Copies, "copy", "copies")))
+	}
+	if w := c.ChangeWindow; w != nil {
+		b.WriteString(printer.Sprintf("; over %d held events within 24 h, so from %s on changes were looked for within %s either way only",
+			w.HeldEvents, w.From.Format(time.RFC3339), time.Duration(w.Seconds*float64(time.Second)).Round(time.Second)))
 	}
 	return b.String()
 }

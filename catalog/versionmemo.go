@@ -108,6 +108,10 @@ func (c *EventCounts) clone() *EventCounts {
 	}
 	x := *c
 	x.Sites = slices.Clone(c.Sites)
+	if c.ChangeWindow != nil {
+		w := *c.ChangeWindow
+		x.ChangeWindow = &w
+	}
 	return &x
 }
 
