@@ -44,12 +44,14 @@ const maxChangeSamples = 10
 type heldFilter struct {
 	id     Identity
 	policy ChangePolicy
-	window int64 // microseconds either side of the current instant: the upload's events
-	// around is the window of held events, window until more than
-	// maxHeld of them fall in it; then it narrows (narrow).
+	// around is how far either side of the current instant the filter
+	// looks for an event's other content (microseconds): DefaultIDWindow
+	// for stable ids, 0 for content, less when the windows' events would
+	// take more than budget bytes (room).
 	around   int64
-	maxHeld  int
-	narrowed *ChangeWindow // nil while around is window
+	budget   int64
+	narrowed *ChangeWindow // nil while around is whole
+	peak     int64         // the most the windows took at once (cost)
 	seed     maphash.Seed
 	key      []byte // scratch for identities
 	// check and sums are the seeds of the held window's second identity
@@ -88,10 +90,10 @@ type changeSample struct {
 }
 
 // newHeldFilter prepares the filter of one upload whose identities ids
-// recorded, keeping at most maxHeld held events at once (beyond the
-// current instant's); it compares with no held event until given a
-// source.
-func newHeldFilter(ids *uploadIdentities, policy ChangePolicy, maxHeld int) *heldFilter {
+// recorded, its windows taking about budget bytes at most (beyond the
+// current instant's events); it compares with no held event until given
+// a source.
+func newHeldFilter(ids *uploadIdentities, policy ChangePolicy, budget int64) *heldFilter {
 	id := ids.id
 	f := &heldFilter{
 		id:     id,
@@ -107,9 +109,9 @@ func newHeldFilter(ids *uploadIdentities, policy ChangePolicy, maxHeld int) *hel
 	}
 	f.counts.Identity = id
 	if id == IdentityEventID {
-		f.window = DefaultIDWindow
+		f.around = DefaultIDWindow
 	}
-	f.around, f.maxHeld = f.window, maxHeld
+	f.budget = budget
 	return f
 }
 
@@ -127,7 +129,7 @@ func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, mode Mode, carri
 	} else if err != nil {
 		return nil, err
 	}
-	f := newHeldFilter(ids, ds.changePolicy(), s.opt.HeldWindowEvents)
+	f := newHeldFilter(ids, ds.changePolicy(), s.opt.ChangeWindowBytes)
 	// Only appends compare with held events; every mode stores the copies
 	// within the upload once.
 	if mode == ModeAppend && latest != nil {
@@ -139,12 +141,17 @@ func (s *Store) heldFilterFor(ctx context.Context, ds *Dataset, mode Mode, carri
 
 // close releases the held files still open.
 func (f *heldFilter) close() {
-	if f != nil && f.src != nil {
+	if f == nil {
+		return
+	}
+	var st heldStats
+	if f.src != nil {
 		f.src.close()
-		f.src.stats.WindowPeak = f.held.peak
-		if testHookHeldStats != nil {
-			testHookHeldStats(f.src.stats)
-		}
+		st = f.src.stats
+	}
+	st.WindowPeak = f.peak
+	if testHookHeldStats != nil {
+		testHookHeldStats(st)
 	}
 }
 
@@ -167,7 +174,7 @@ func (f *heldFilter) keep(ctx context.Context, fn func(*schema.Event) error) fun
 // classify counts e and reports whether it is to be stored.
 func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error) {
 	at := e.OccurredAt.UnixMicro()
-	f.seen.evict(at - f.window)
+	f.seen.evict(at - f.around)
 	f.held.evict(at - f.around)
 	if f.src != nil {
 		err := f.src.load(ctx, at-f.around, at+f.around, func(h *schema.Event, file int, row int64) bool {
@@ -176,12 +183,13 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 				return true
 			}
 			hAt := h.OccurredAt.UnixMicro()
-			if f.held.len() >= f.maxHeld && !f.narrow(e.OccurredAt, hAt) {
+			if !f.room(e.OccurredAt, hAt) {
 				return false // it waits in its file
 			}
 			f.hrec = appendWindowRecord(f.hrec[:0], h)
 			f.held.add(heldEntry{at: hAt, hash: hash, check: maphash.Bytes(f.check, f.key),
 				sum: f.contentSum(f.hrec), row: row, file: int32(file)})
+			f.peak = max(f.peak, f.held.cost()+f.seen.cost())
 			return true
 		})
 		if err != nil {
@@ -212,7 +220,9 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 		return false, nil
 	}
 	if f.ids.repeated(h) {
-		f.seen.addHashed(h, e) // else no later event of the upload is e
+		f.room(e.OccurredAt, at) // always room for the current instant
+		f.seen.add(h, e, f.rec)  // else no later event of the upload is e
+		f.peak = max(f.peak, f.held.cost()+f.seen.cost())
 	}
 	old, found := f.held.find(h, check)
 	switch {
@@ -249,32 +259,41 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	return true, nil
 }
 
-// narrow makes room in the full window of held events for one at hAt,
-// given at the upload's instant t, by shrinking the look-around either
-// way: when the window reaches further back from t than hAt lies ahead,
-// the oldest held events leave it and the one at hAt comes in (true);
-// else the look-around ends before hAt, and that event waits in its file
-// (false). So the window stays about even on both sides of t. The
-// look-around never grows back: it ends at about the span either way that
-// maxHeld held events fill where they are densest, and the upload's counts
-// say from when and how far it looked (ChangeWindow). A held event of the
-// instant t itself is never refused, even when the window holds nothing
-// else, so an exact re-send is always found.
-func (f *heldFilter) narrow(t time.Time, hAt int64) bool {
+// room makes room in the windows for an event at hAt, given at the
+// upload's instant t, when they take budget bytes or more, by narrowing
+// the look-around either way: when they reach further back from t than
+// hAt lies ahead, their oldest events leave and the event at hAt comes in
+// (true); else the look-around ends before hAt, and that event (a held one
+// after t) waits in its file (false). So the windows stay about even on
+// both sides of t. The look-around never grows back: it ends at about the
+// span either way that budget bytes of events fill where they are
+// densest, and the upload's counts say from when and how far it looked
+// (ChangeWindow). An event of the instant t itself always comes in, even
+// when the windows hold nothing else, so exact re-sends and copies are
+// always found.
+func (f *heldFilter) room(t time.Time, hAt int64) bool {
+	if f.held.cost()+f.seen.cost() < f.budget {
+		return true
+	}
 	at := t.UnixMicro()
+	oldest, ok := f.held.oldest()
+	if so, sok := f.seen.oldest(); sok && (!ok || so < oldest) {
+		oldest, ok = so, true
+	}
 	take := false
-	switch oldest, ok := f.held.oldest(); {
+	switch {
 	case ok && at-oldest > hAt-at:
 		f.around = min(f.around, at-oldest-1)
 		take = true
-	case hAt == at: // the window holds only the instant t
+	case hAt <= at: // the windows hold only the instant t
 		return true
 	default:
 		f.around = min(f.around, hAt-at-1)
 	}
 	f.held.evict(at - f.around)
+	f.seen.evict(at - f.around)
 	if f.narrowed == nil {
-		f.narrowed = &ChangeWindow{From: t.UTC(), HeldEvents: f.maxHeld}
+		f.narrowed = &ChangeWindow{From: t.UTC(), Bytes: f.budget}
 	}
 	f.narrowed.Seconds = float64(f.around) / 1e6
 	return take
@@ -420,203 +439,6 @@ func mergeMode(mode Mode, p *filePlan) Mode {
 	return mode
 }
 
-// eventWindow holds the upload's events in the order they were added
-// (time order) and finds them by identity hash. Each event is kept as its
-// window record (appendWindowRecord: its text fields and instant, what
-// sameContent compares) in one byte arena, beside a few numbers; nothing
-// in the window holds a pointer, so the collector never scans it, and an
-// event costs its record and some 60 bytes rather than a schema.Event and
-// its strings (a window of stable event ids holds up to a day of the
-// upload's events whose identity repeats). A conflict names the fields
-// in which two of the upload's events differ, so the records are kept.
-type eventWindow struct {
-	ents  []windowEntry // ents[head:] are in the window, oldest first
-	head  int
-	first int64            // the sequence number of ents[0]
-	arena []byte           // the records of ents[head:] (and maybe older ones)
-	base  int64            // the position of arena[0] among all records' bytes
-	idx   map[uint64]int64 // identity hash -> the newest event's sequence number
-}
-
-type windowEntry struct {
-	at   int64
-	hash uint64
-	prev int64 // the next older event with the same hash (sequence number), or -1
-	off  int64 // the record's position among all records' bytes
-	n    int32 // the record's length
-	line int64
-}
-
-// windowHit is an event found in a window: its record (valid until the
-// window changes) and source line.
-type windowHit struct {
-	rec  []byte
-	line int64
-}
-
-func newEventWindow() *eventWindow { return &eventWindow{idx: map[uint64]int64{}} }
-
-func (w *eventWindow) addHashed(hash uint64, e *schema.Event) {
-	prev, ok := w.idx[hash]
-	if !ok {
-		prev = -1
-	}
-	off := w.base + int64(len(w.arena))
-	w.arena = appendWindowRecord(w.arena, e)
-	w.idx[hash] = w.first + int64(len(w.ents))
-	w.ents = append(w.ents, windowEntry{at: e.OccurredAt.UnixMicro(), hash: hash, prev: prev, off: off,
-		n: int32(w.base + int64(len(w.arena)) - off), line: e.Line})
-}
-
-// find returns the oldest event of the window that is e under id; rec is
-// e's window record.
-func (w *eventWindow) find(hash uint64, id Identity, e *schema.Event, rec []byte) (windowHit, bool) {
-	var hit windowHit
-	found := false
-	seq, ok := w.idx[hash]
-	for ok && seq >= w.first+int64(w.head) { // older ones have left the window
-		x := &w.ents[seq-w.first]
-		r := w.arena[x.off-w.base : x.off-w.base+int64(x.n)]
-		if sameIdentityRecord(id, r, e, rec) {
-			hit, found = windowHit{rec: r, line: x.line}, true
-		}
-		seq, ok = x.prev, x.prev >= 0
-	}
-	return hit, found
-}
-
-// evict drops the events before lo.
-func (w *eventWindow) evict(lo int64) {
-	for w.head < len(w.ents) && w.ents[w.head].at < lo {
-		x := &w.ents[w.head]
-		if w.idx[x.hash] == w.first+int64(w.head) {
-			delete(w.idx, x.hash) // no newer event has its hash
-		}
-		w.head++
-	}
-	switch {
-	case w.head == len(w.ents):
-		w.first += int64(len(w.ents))
-		w.ents, w.head = w.ents[:0], 0
-		w.base += int64(len(w.arena))
-		w.arena = w.arena[:0]
-	case w.head > 1024 && w.head > len(w.ents)/2:
-		n := copy(w.ents, w.ents[w.head:])
-		w.first += int64(w.head)
-		w.ents, w.head = w.ents[:n], 0
-		cut := w.ents[0].off - w.base
-		m := copy(w.arena, w.arena[cut:])
-		w.arena = w.arena[:m]
-		w.base += cut
-	}
-}
-
-// heldWindow holds held events in the order they were added (time order)
-// and finds them by identity, each as 64 bytes of numbers and no record:
-// its instant, its identity's hash under two seeds (the first is the
-// index's key), its window record's hash under two more (the content),
-// and the file and row it is stored at. Two events are taken as one
-// identity when both identity hashes are equal, and as one content when
-// both content hashes are: a wrong answer needs two 128-bit keyed hashes
-// to collide. A held event re-sent over 24 h either way of a busy day
-// (stable event ids) would otherwise cost its record, about 130 bytes for
-// the contact line, and the arena's slack. A refusal names the fields of
-// a changed event; the few it names are read again from their file
-// (heldSource.event). The entries sit in chunks of heldChunk, freed as the
-// window passes them, so the memory is the events in the window and one
-// chunk, never twice their number.
-type heldWindow struct {
-	chunks [][]heldEntry // chunks[0][0] is event first
-	first  int64         // the sequence number of chunks[0][0]
-	head   int64         // the oldest event in the window
-	next   int64         // the sequence number of the next event added
-	idx    map[uint64]int64
-	spare  []heldEntry // a freed chunk, for the next one needed
-	peak   int         // the most events it held at once
-}
-
-const heldChunk = 4096
-
-type heldEntry struct {
-	at    int64
-	hash  uint64    // the identity's hash, the index's key
-	check uint64    // the identity's hash under the filter's check seed
-	sum   [2]uint64 // the window record's hashes (heldFilter.contentSum)
-	prev  int64     // the next older event with the same hash (sequence number), or -1
-	row   int64     // the event's row in its file
-	file  int32     // index in the held version's files
-}
-
-func newHeldWindow() *heldWindow { return &heldWindow{idx: map[uint64]int64{}} }
-
-// oldest returns the instant of the oldest event in the window.
-func (w *heldWindow) oldest() (int64, bool) {
-	if w.head == w.next {
-		return 0, false
-	}
-	return w.at(w.head).at, true
-}
-
-// len is the number of events in the window.
-func (w *heldWindow) len() int { return int(w.next - w.head) }
-
-func (w *heldWindow) at(seq int64) *heldEntry {
-	i := seq - w.first
-	return &w.chunks[i/heldChunk][i%heldChunk]
-}
-
-func (w *heldWindow) add(x heldEntry) {
-	if w.next-w.first == int64(len(w.chunks))*heldChunk {
-		c := w.spare
-		if c == nil {
-			c = make([]heldEntry, heldChunk)
-		}
-		w.spare = nil
-		w.chunks = append(w.chunks, c)
-	}
-	prev, ok := w.idx[x.hash]
-	if !ok {
-		prev = -1
-	}
-	x.prev = prev
-	*w.at(w.next) = x
-	w.idx[x.hash] = w.next
-	w.next++
-	w.peak = max(w.peak, w.len())
-}
-
-// find returns the oldest event of the window whose identity hashes are
-// hash and check.
-func (w *heldWindow) find(hash, check uint64) (heldEntry, bool) {
-	var hit heldEntry
-	found := false
-	seq, ok := w.idx[hash]
-	for ok && seq >= w.head { // older ones have left the window
-		x := w.at(seq)
-		if x.check == check {
-			hit, found = *x, true
-		}
-		seq, ok = x.prev, x.prev >= 0
-	}
-	return hit, found
-}
-
-// evict drops the events before lo.
-func (w *heldWindow) evict(lo int64) {
-	for w.head < w.next && w.at(w.head).at < lo {
-		if x := w.at(w.head); w.idx[x.hash] == w.head {
-			delete(w.idx, x.hash) // no newer event has its hash
-		}
-		w.head++
-	}
-	for w.head-w.first >= heldChunk {
-		w.spare = w.chunks[0]
-		w.chunks[0] = nil
-		w.chunks = w.chunks[1:]
-		w.first += heldChunk
-	}
-}
-
 // appendWindowRecord appends e's window record to b: each text field
 // (schema.Event.Texts, in schema order) as its length (uvarint) and bytes,
 // then the instant in microseconds (varint). Two events have equal records
@@ -714,7 +536,7 @@ type heldStats struct {
 	FilesOpened, FilesSkipped       int
 	RowGroupsRead, RowGroupsSkipped int
 	RowsRead                        int64
-	WindowPeak                      int // the most held events the filter's window held at once
+	WindowPeak                      int64 // the most the filter's windows took at once (cost, bytes)
 }
 
 func newHeldSource(bs blob.Store, files []FileEntry) *heldSource {

@@ -621,8 +621,8 @@ func TestHeldStableEventIDFarApart(t *testing.T) {
 	}
 }
 
-// An append with stable ids whose held events within 24 h outnumber
-// Options.HeldWindowEvents keeps no more of them at once: its look-around
+// An append with stable ids whose held events within 24 h take more than
+// Options.ChangeWindowBytes keeps no more of them at once: its look-around
 // narrows (to about the span the bound fills at one event a minute: 100
 // events, 50 minutes either way) from its first event on, and its counts
 // say so. Exact re-sends are still all found; a change that moved the
@@ -633,7 +633,10 @@ func TestHeldWindowNarrows(t *testing.T) {
 	testHookHeldStats = func(s heldStats) { st = s }
 	defer func() { testHookHeldStats = nil }()
 	for _, bound := range []int{100, 0} {
-		e := newEnv(t, func(o *Options) { o.HeldWindowEvents = bound; o.RowGroupRows = 64 })
+		e := newEnv(t, func(o *Options) {
+			o.ChangeWindowBytes = int64(bound) * (heldEntryCost + indexCost)
+			o.RowGroupRows = 64
+		})
 		e.dataset(t, "p", "d", func(s *DatasetSpec) { s.Profile = []byte(stableProfile); s.Changes = ChangesCorrect })
 		day := mkRows("north", "N", 0, 600) // one a minute: 10 hours
 		e.ingest(t, "p", "d", csvBytes(header, day), "day.csv")
@@ -645,18 +648,18 @@ func TestHeldWindowNarrows(t *testing.T) {
 			t.Fatalf("bound %d, a re-send: counts %+v", bound, ev)
 		}
 		if bound == 0 {
-			if ev.ChangeWindow != nil || st.WindowPeak != 600 {
+			if ev.ChangeWindow != nil || st.WindowPeak != 600*(heldEntryCost+indexCost) {
 				t.Errorf("unbounded: change window %+v, peak %d", ev.ChangeWindow, st.WindowPeak)
 			}
 		} else {
 			w := ev.ChangeWindow
-			if w == nil || !w.From.Equal(first) || w.HeldEvents != bound || w.Seconds < 45*60 || w.Seconds > 50*60 {
+			if w == nil || !w.From.Equal(first) || w.Bytes != int64(bound)*(heldEntryCost+indexCost) || w.Seconds < 45*60 || w.Seconds > 50*60 {
 				t.Fatalf("bound %d: change window %+v, want from %v, about 50 minutes", bound, w, first)
 			}
-			if st.WindowPeak > bound {
-				t.Errorf("bound %d: the window held %d held events at once", bound, st.WindowPeak)
+			if st.WindowPeak > w.Bytes {
+				t.Errorf("bound %d: the window took %d bytes at once", bound, st.WindowPeak)
 			}
-			if s := ev.Sentence(2); !strings.Contains(s, "over 100 held events within 24 h, so from 2026-") {
+			if s := ev.Sentence(2); !strings.Contains(s, "the events kept to find changes reached 8,800 bytes, so from 2026-03-02T00:00:00Z on changes were looked for within 50m0s either way only") {
 				t.Errorf("sentence %q", s)
 			}
 		}
@@ -674,8 +677,8 @@ func TestHeldWindowNarrows(t *testing.T) {
 			bound > 0 && (ev.ChangeWindow.Seconds < 45*60 || ev.ChangeWindow.Seconds > 50*60 || !ev.ChangeWindow.From.Equal(atOf(t, day[300]))) {
 			t.Errorf("bound %d, the afternoon: counts %+v, change window %+v", bound, ev, ev.ChangeWindow)
 		}
-		if bound > 0 && st.WindowPeak > bound {
-			t.Errorf("bound %d, the afternoon: the window held %d held events at once", bound, st.WindowPeak)
+		if bound > 0 && st.WindowPeak > int64(bound)*(heldEntryCost+indexCost) {
+			t.Errorf("bound %d, the afternoon: the window took %d bytes at once", bound, st.WindowPeak)
 		}
 		// Two corrections in the middle of the day: one 20 minutes later,
 		// one 3 hours later (each still within 24 h).
@@ -700,7 +703,7 @@ func TestHeldWindowOneInstant(t *testing.T) {
 	var st heldStats
 	testHookHeldStats = func(s heldStats) { st = s }
 	defer func() { testHookHeldStats = nil }()
-	e := newEnv(t, func(o *Options) { o.HeldWindowEvents = 100 })
+	e := newEnv(t, func(o *Options) { o.ChangeWindowBytes = 100 * (heldEntryCost + indexCost) })
 	e.dataset(t, "p", "d", func(s *DatasetSpec) { s.Profile = []byte(stableProfile) })
 	day := mkRows("north", "I", 0, 150)
 	for i := range day {
@@ -708,7 +711,51 @@ func TestHeldWindowOneInstant(t *testing.T) {
 	}
 	e.ingest(t, "p", "d", csvBytes(header, day), "day.csv")
 	res := e.ingest(t, "p", "d", csvBytes(header, append(slices.Clone(day), mkRows("north", "J", 1, 1)...)), "again.csv")
-	if ev := res.Upload.Events; ev.Held != 150 || ev.New != 1 || ev.ChangeWindow != nil || st.WindowPeak != 150 {
+	if ev := res.Upload.Events; ev.Held != 150 || ev.New != 1 || ev.ChangeWindow != nil || st.WindowPeak != 150*(heldEntryCost+indexCost) {
 		t.Errorf("counts %+v, change window %+v, window peak %d", ev, ev.ChangeWindow, st.WindowPeak)
+	}
+}
+
+// The upload's own events count against the bound too: a file that holds
+// every event of a day twice (stable ids) keeps within it, still finds
+// every copy (they share their instant), and finds a conflict 20 minutes
+// apart but not one 3 hours apart once the look-around has narrowed (to
+// about 100 events, 100 minutes back, at one event a minute), where the
+// unbounded filter refuses both.
+func TestUploadWindowNarrows(t *testing.T) {
+	var st heldStats
+	testHookHeldStats = func(s heldStats) { st = s }
+	defer func() { testHookHeldStats = nil }()
+	const budget = 100 * (windowEntryCost + indexCost + 150)
+	for _, bounded := range []bool{true, false} {
+		e := newEnv(t, func(o *Options) {
+			if bounded {
+				o.ChangeWindowBytes = budget
+			}
+		})
+		day := mkRows("north", "W", 0, 600)
+		for i, shift := range []time.Duration{20 * time.Minute, 3 * time.Hour} {
+			name := fmt.Sprintf("d%d", i)
+			e.dataset(t, "p", name, func(s *DatasetSpec) { s.Profile = []byte(stableProfile) })
+			conflict := day[300] // an array: a copy
+			conflict[7], conflict[10] = atOf(t, day[300]).Add(shift).Format(time.RFC3339Nano), "home"
+			rows := append(append(slices.Clone(day), day...), conflict)
+			res, err := e.ingestOpt(t, "p", name, csvBytes(header, rows), IngestOptions{Filename: "twice.csv"})
+			ev := res.Upload.Events
+			if ev == nil || ev.Copies != 600 {
+				t.Fatalf("bounded %v, shift %v: %v, counts %+v", bounded, shift, err, ev)
+			}
+			refused := errors.Is(err, ErrRejected) && res.Upload.Error != nil && res.Upload.Error.Rule == RuleConflictingEvent
+			if want := !bounded || shift < time.Hour; refused != want {
+				t.Errorf("bounded %v, shift %v: refused %v (%v), want %v", bounded, shift, refused, err, want)
+			}
+			w := ev.ChangeWindow
+			if bounded != (w != nil) || bounded && (w.Seconds < 20*60 || w.Seconds > 3*3600 || st.WindowPeak > budget+400) {
+				t.Errorf("bounded %v, shift %v: change window %+v, peak %d bytes", bounded, shift, w, st.WindowPeak)
+			}
+			if !refused && ev.New != 601 {
+				t.Errorf("bounded %v, shift %v: counts %+v", bounded, shift, ev)
+			}
+		}
 	}
 }

@@ -131,17 +131,18 @@ type EventCounts struct {
 	Sites []SiteEventCounts `json:"sites,omitempty"`
 }
 
-// ChangeWindow says that an append with stable event ids found more held
-// events within 24 h either way of its events than its bound (HeldEvents,
-// Options.HeldWindowEvents) and looked at fewer: from its event at From
-// on, a held event was looked for only Seconds either way. An exact
-// re-send is still found (0 s looks at the instant itself); a change that
-// moved an event's instant by more than Seconds may have been stored as a
-// new event, the old one kept.
+// ChangeWindow says that an upload with stable event ids found more
+// events within 24 h either way of its events (held ones, on an append,
+// and its own whose id repeats) than fit its bound (Bytes,
+// Options.ChangeWindowBytes) and looked at fewer: from its event at From
+// on, an event's other content was looked for only Seconds either way.
+// Exact re-sends and copies are still found (0 s looks at the instant
+// itself); a change or conflict that moved an event's instant by more than
+// Seconds may have been stored as a new event, the other kept.
 type ChangeWindow struct {
-	From       time.Time `json:"from"`
-	Seconds    float64   `json:"seconds"`
-	HeldEvents int       `json:"held_events"`
+	From    time.Time `json:"from"`
+	Seconds float64   `json:"seconds"`
+	Bytes   int64     `json:"bytes"`
 }
 
 // SiteEventCounts are one site's EventCounts.
@@ -180,8 +181,12 @@ func (c *EventCounts) Sentence(version int) string {
 		b.WriteString(printer.Sprintf(", %d %s within the file stored once", c.Copies, plural(c.Copies, "copy", "copies")))
 	}
 	if w := c.ChangeWindow; w != nil {
-		b.WriteString(printer.Sprintf("; over %d held events within 24 h, so from %s on changes were looked for within %s either way only",
-			w.HeldEvents, w.From.Format(time.RFC3339), time.Duration(w.Seconds*float64(time.Second)).Round(time.Second)))
+		size := printer.Sprintf("%d bytes", w.Bytes)
+		if w.Bytes >= 1<<20 {
+			size = printer.Sprintf("%d MiB", w.Bytes>>20)
+		}
+		b.WriteString(printer.Sprintf("; the events kept to find changes reached %s, so from %s on changes were looked for within %s either way only",
+			size, w.From.Format(time.RFC3339), time.Duration(w.Seconds*float64(time.Second)).Round(time.Second)))
 	}
 	return b.String()
 }

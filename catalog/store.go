@@ -52,12 +52,12 @@ type Options struct {
 	RunEvents int
 	// RowGroupRows bounds the rows of a Parquet row group (default 65536).
 	RowGroupRows int64
-	// HeldWindowEvents bounds the held events an append with stable event
-	// ids keeps at once to find changes (64 bytes each and an index entry;
-	// default 1048576, 64 MiB). Past it the look-around narrows
-	// (EventCounts.ChangeWindow); the held events of the current instant
-	// are always kept.
-	HeldWindowEvents int
+	// ChangeWindowBytes bounds about what the events an upload keeps to
+	// find changes and conflicts (stable event ids: 24 h either way) take
+	// (default 64 MiB; held events about 88 bytes each, the upload's about
+	// 200). Past it the look-around narrows (EventCounts.ChangeWindow); the
+	// events of the current instant are always kept.
+	ChangeWindowBytes int64
 	// Limits bound what one uploaded file may hold: line length, columns,
 	// bytes after decompression and rows (see schema.Limits; zero fields
 	// take the defaults). Going over one fails the upload, naming it.
@@ -110,8 +110,8 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 	if opt.RowGroupRows <= 0 {
 		opt.RowGroupRows = 1 << 16
 	}
-	if opt.HeldWindowEvents <= 0 {
-		opt.HeldWindowEvents = 1 << 20
+	if opt.ChangeWindowBytes <= 0 {
+		opt.ChangeWindowBytes = 64 << 20
 	}
 	if opt.Master == (anonymize.MasterKey{}) {
 		return nil, fmt.Errorf("catalog: no master key given")

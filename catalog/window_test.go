@@ -99,7 +99,7 @@ func TestEventWindow(t *testing.T) {
 			if ok && (hit.line != want.e.Line || !schema.SameFields(hit.event(), &want.e)) {
 				t.Fatalf("%s event %d: found line %d, want line %d", id, i, hit.line, want.e.Line)
 			}
-			w.addHashed(identityHash(seed, &key, id, &e), &e)
+			w.add(identityHash(seed, &key, id, &e), &e, rec)
 			ref = append(ref, kept{e})
 		}
 	}
@@ -146,12 +146,12 @@ func TestHeldWindow(t *testing.T) {
 		}
 		w.add(x)
 		ref = append(ref, x)
-		if n := len(ref)/heldChunk + 2; len(w.chunks) > n {
-			t.Fatalf("entry %d: %d chunks for %d entries", i, len(w.chunks), len(ref))
+		if n := len(ref)/queueChunk + 2; len(w.q.chunks) > n {
+			t.Fatalf("entry %d: %d chunks for %d entries", i, len(w.q.chunks), len(ref))
 		}
 		most = max(most, len(ref))
 	}
-	if most < 2*heldChunk {
+	if most < 2*queueChunk {
 		t.Fatalf("the window held at most %d entries: no chunk was freed under load", most)
 	}
 }
