@@ -219,7 +219,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 		}
 		return false, nil
 	}
-	if f.ids.repeated(h) {
+	if f.ids.repeated(f.key) { // f.key is still e's identity
 		f.room(e.OccurredAt, at) // always room for the current instant
 		f.seen.add(h, e, f.rec)  // else no later event of the upload is e
 		f.peak = max(f.peak, f.held.cost()+f.seen.cost())
