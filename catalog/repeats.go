@@ -23,7 +23,7 @@ import (
 // for one it met, so nothing the window must find is left out.
 //
 // Memory: about 10 bits an identity and 15 a repeat (the layers double,
-// so at most twice that; 1.3 MB at least), whatever the file repeats.
+// so at most twice that; 1.3 MB at least), and at most 24 MiB in all.
 type uploadIdentities struct {
 	id      Identity
 	dropped bool // the first filter is gone: mayHold answers "maybe"
@@ -49,10 +49,22 @@ var (
 	firstRepeats    uint = 1 << 16
 )
 
+// maxIdentityBits and maxRepeatBits bound each filter's layers (16 and 8
+// MiB): a filter that would grow past its bound fills its newest layer
+// beyond that layer's capacity instead, and its false positives rise
+// (over about 7 million identities, or 4 million repeats). A false "maybe"
+// only puts an event in the held filter's windows, which hold their own
+// bound (Options.ChangeWindowBytes).
+const (
+	maxIdentityBits = 16 << 20 * 8
+	maxRepeatBits   = 8 << 20 * 8
+)
+
 // newUploadIdentities records identities under id.
 func newUploadIdentities(id Identity) *uploadIdentities {
 	return &uploadIdentities{id: id, seed: maphash.MakeSeed(),
-		all: layeredBloom{first: firstIdentities, fp: identityFP}, repeats: layeredBloom{first: firstRepeats, fp: repeatFP}}
+		all:     layeredBloom{first: firstIdentities, fp: identityFP, maxBits: maxIdentityBits},
+		repeats: layeredBloom{first: firstRepeats, fp: repeatFP, maxBits: maxRepeatBits}}
 }
 
 // add records the identity of e, one of the upload's events.
@@ -83,15 +95,24 @@ func (u *uploadIdentities) repeated(key []byte) bool { return u.repeats.test(key
 // tested in each. Each layer hashes the key itself (the library's own
 // hashing).
 type layeredBloom struct {
-	first  uint
-	fp     float64
-	layers []*bloom.BloomFilter
-	n, cap uint // keys added to the newest layer, and its capacity
+	first   uint
+	fp      float64
+	maxBits uint // the layers' bits at most: past it the newest layer overfills
+	bits    uint
+	layers  []*bloom.BloomFilter
+	n, cap  uint // keys added to the newest layer, and its capacity
 }
 
 // testOrAdd reports whether key may have been added before, and adds it
 // if not (to the newest layer, tested and filled in one call).
 func (b *layeredBloom) testOrAdd(key []byte) bool {
+	if len(b.layers) > 0 && b.n >= b.cap {
+		next := max(2*b.cap, b.first)
+		m, _ := bloom.EstimateParameters(next, b.fp)
+		if b.bits+m > b.maxBits {
+			b.cap = ^uint(0) // the newest takes the rest
+		}
+	}
 	for i, l := range b.layers {
 		if i == len(b.layers)-1 && b.n < b.cap { // the newest, with room
 			if l.TestOrAdd(key) {
@@ -105,7 +126,9 @@ func (b *layeredBloom) testOrAdd(key []byte) bool {
 		}
 	}
 	b.cap = max(2*b.cap, b.first)
-	b.layers = append(b.layers, bloom.NewWithEstimates(b.cap, b.fp).Add(key))
+	l := bloom.NewWithEstimates(b.cap, b.fp)
+	b.bits += l.Cap()
+	b.layers = append(b.layers, l.Add(key))
 	b.n = 1
 	return false
 }

@@ -73,3 +73,26 @@ func TestUploadIdentities(t *testing.T) {
 		t.Error("after dropFilter: an identity never recorded is not a maybe, or the repeats changed")
 	}
 }
+
+// TestLayeredBloomBound: a filter given more keys than its bound of bits
+// holds at its false positive rate stops adding layers at the bound, and
+// still answers "maybe" for every key it was given.
+func TestLayeredBloomBound(t *testing.T) {
+	b := layeredBloom{first: 1 << 10, fp: 0.01, maxBits: 1 << 16}
+	key := func(i int) []byte { return fmt.Appendf(nil, "k%d", i) }
+	for i := range 100_000 {
+		b.testOrAdd(key(i))
+	}
+	var bits uint
+	for _, l := range b.layers {
+		bits += l.Cap()
+	}
+	if bits > b.maxBits || bits != b.bits || len(b.layers) < 2 {
+		t.Fatalf("%d layers of %d bits in all (counted %d), bound %d", len(b.layers), bits, b.bits, b.maxBits)
+	}
+	for i := range 100_000 {
+		if !b.test(key(i)) {
+			t.Fatalf("key %d added, answered no", i)
+		}
+	}
+}

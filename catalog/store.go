@@ -54,8 +54,8 @@ type Options struct {
 	RowGroupRows int64
 	// ChangeWindowBytes bounds about what the events an upload keeps to
 	// find changes and conflicts (stable event ids: 24 h either way) take
-	// (default 64 MiB; held events about 88 bytes each, the upload's about
-	// 200). Past it the look-around narrows (EventCounts.ChangeWindow); the
+	// (default 48 MiB; held events about 104 bytes each, the upload's
+	// about 220). Past it the look-around narrows (EventCounts.ChangeWindow); the
 	// events of the current instant are always kept.
 	ChangeWindowBytes int64
 	// Limits bound what one uploaded file may hold: line length, columns,
@@ -111,7 +111,7 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		opt.RowGroupRows = 1 << 16
 	}
 	if opt.ChangeWindowBytes <= 0 {
-		opt.ChangeWindowBytes = 64 << 20
+		opt.ChangeWindowBytes = 48 << 20
 	}
 	if opt.Master == (anonymize.MasterKey{}) {
 		return nil, fmt.Errorf("catalog: no master key given")

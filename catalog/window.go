@@ -111,8 +111,9 @@ func (b *byteChunks) freeBefore(chunk int64) {
 }
 
 // indexCost is about what an index entry of a window costs: its key and
-// value in a Go map, with the map's slack.
-const indexCost = 24
+// value in a Go map (16 bytes and a control byte a slot), with the slack
+// of its load factor and of its doubling (a map never shrinks).
+const indexCost = 40
 
 // eventWindow holds the upload's events in the order they were added
 // (time order) and finds them by identity hash, each as its window record
