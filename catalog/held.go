@@ -187,7 +187,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 				return false // it waits in its file
 			}
 			f.hrec = appendWindowRecord(f.hrec[:0], h)
-			f.held.add(heldEntry{at: hAt, hash: hash, check: maphash.Bytes(f.check, f.key),
+			f.held.add(heldEntry{slot: slot{at: hAt, hash: hash}, check: maphash.Bytes(f.check, f.key),
 				sum: f.contentSum(f.hrec), row: row, file: int32(file)})
 			f.peak = max(f.peak, f.held.cost()+f.seen.cost())
 			return true

@@ -110,6 +110,69 @@ func (b *byteChunks) freeBefore(chunk int64) {
 	}
 }
 
+// slot is what each window entry starts with: its instant, its identity
+// hash, and the next older entry with that hash.
+type slot struct {
+	at   int64
+	hash uint64
+	prev int64 // sequence number, or -1
+}
+
+func (s *slot) base() *slot { return s }
+
+// timeIndex is a window's queue of entries in time order with an index of
+// the newest entry of each identity hash; the entries of one hash are
+// chained newest to oldest.
+type timeIndex[T any, PT interface {
+	*T
+	base() *slot
+}] struct {
+	q   chunkQueue[T]
+	idx map[uint64]int64
+}
+
+func (w *timeIndex[T, PT]) push(x T) {
+	s := PT(&x).base()
+	prev, ok := w.idx[s.hash]
+	if !ok {
+		prev = -1
+	}
+	s.prev = prev
+	w.idx[s.hash] = w.q.push(x)
+}
+
+// each calls fn for the entries in the window with hash, newest first.
+func (w *timeIndex[T, PT]) each(hash uint64, fn func(*T)) {
+	seq, ok := w.idx[hash]
+	for ok && seq >= w.q.head { // older ones have left the window
+		x := w.q.at(seq)
+		fn(x)
+		p := PT(x).base().prev
+		seq, ok = p, p >= 0
+	}
+}
+
+// evict drops the entries before lo, calling drop (when not nil) for each.
+func (w *timeIndex[T, PT]) evict(lo int64, drop func(*T)) {
+	for x := w.q.front(); x != nil && PT(x).base().at < lo; x = w.q.front() {
+		if s := PT(x).base(); w.idx[s.hash] == w.q.head {
+			delete(w.idx, s.hash) // no newer entry has its hash
+		}
+		if drop != nil {
+			drop(x)
+		}
+		w.q.pop()
+	}
+}
+
+// oldest returns the instant of the oldest entry in the window.
+func (w *timeIndex[T, PT]) oldest() (int64, bool) {
+	if x := w.q.front(); x != nil {
+		return PT(x).base().at, true
+	}
+	return 0, false
+}
+
 // indexCost is about what an index entry of a window costs: its key and
 // value in a Go map (16 bytes and a control byte a slot), with the slack
 // of its load factor and of its doubling (a map never shrinks).
@@ -122,16 +185,13 @@ const indexCost = 40
 // its strings. A conflict names the fields in which two of the upload's
 // events differ, so the records are kept.
 type eventWindow struct {
-	q     chunkQueue[windowEntry]
+	ti    timeIndex[windowEntry, *windowEntry]
 	recs  byteChunks
-	idx   map[uint64]int64 // identity hash -> the newest event's sequence number
-	bytes int64            // the records' bytes in the window
+	bytes int64 // the records' bytes in the window
 }
 
 type windowEntry struct {
-	at    int64
-	hash  uint64
-	prev  int64 // the next older event with the same hash (sequence number), or -1
+	slot
 	chunk int64 // where the record is (byteChunks)
 	off   int32
 	n     int32 // the record's length
@@ -147,16 +207,14 @@ type windowHit struct {
 	line int64
 }
 
-func newEventWindow() *eventWindow { return &eventWindow{idx: map[uint64]int64{}} }
+func newEventWindow() *eventWindow {
+	return &eventWindow{ti: timeIndex[windowEntry, *windowEntry]{idx: map[uint64]int64{}}}
+}
 
 // add adds e, whose identity hash is hash and window record rec.
 func (w *eventWindow) add(hash uint64, e *schema.Event, rec []byte) {
-	prev, ok := w.idx[hash]
-	if !ok {
-		prev = -1
-	}
 	chunk, off := w.recs.add(rec)
-	w.idx[hash] = w.q.push(windowEntry{at: e.OccurredAt.UnixMicro(), hash: hash, prev: prev, chunk: chunk, off: off,
+	w.ti.push(windowEntry{slot: slot{at: e.OccurredAt.UnixMicro(), hash: hash}, chunk: chunk, off: off,
 		n: int32(len(rec)), line: e.Line})
 	w.bytes += int64(len(rec))
 }
@@ -166,45 +224,27 @@ func (w *eventWindow) add(hash uint64, e *schema.Event, rec []byte) {
 func (w *eventWindow) find(hash uint64, id Identity, e *schema.Event, rec []byte) (windowHit, bool) {
 	var hit windowHit
 	found := false
-	seq, ok := w.idx[hash]
-	for ok && seq >= w.q.head { // older ones have left the window
-		x := w.q.at(seq)
-		r := w.recs.get(x.chunk, x.off, x.n)
-		if sameIdentityRecord(id, r, e, rec) {
+	w.ti.each(hash, func(x *windowEntry) {
+		if r := w.recs.get(x.chunk, x.off, x.n); sameIdentityRecord(id, r, e, rec) {
 			hit, found = windowHit{rec: r, line: x.line}, true
 		}
-		seq, ok = x.prev, x.prev >= 0
-	}
+	})
 	return hit, found
 }
 
 // evict drops the events before lo.
 func (w *eventWindow) evict(lo int64) {
-	for x := w.q.front(); x != nil && x.at < lo; x = w.q.front() {
-		if w.idx[x.hash] == w.q.head {
-			delete(w.idx, x.hash) // no newer event has its hash
-		}
-		w.bytes -= int64(x.n)
-		w.q.pop()
-	}
-	if x := w.q.front(); x != nil {
+	w.ti.evict(lo, func(x *windowEntry) { w.bytes -= int64(x.n) })
+	if x := w.ti.q.front(); x != nil {
 		w.recs.freeBefore(x.chunk)
 	} else {
 		w.recs.freeBefore(w.recs.first + int64(len(w.recs.chunks)) - 1) // keep the last, still being filled
 	}
 }
 
-// oldest returns the instant of the oldest event in the window.
-func (w *eventWindow) oldest() (int64, bool) {
-	if x := w.q.front(); x != nil {
-		return x.at, true
-	}
-	return 0, false
-}
-
 // cost is about the memory the window's events take.
 func (w *eventWindow) cost() int64 {
-	return w.bytes + int64(w.q.len())*(windowEntryCost+indexCost)
+	return w.bytes + int64(w.ti.q.len())*(windowEntryCost+indexCost)
 }
 
 // heldWindow holds held events in the order they were added (time order)
@@ -219,31 +259,21 @@ func (w *eventWindow) cost() int64 {
 // the contact line. A refusal names the fields of a changed event; the
 // few it names are read again from their file (heldSource.event).
 type heldWindow struct {
-	q   chunkQueue[heldEntry]
-	idx map[uint64]int64
+	ti timeIndex[heldEntry, *heldEntry]
 }
 
 type heldEntry struct {
-	at    int64
-	hash  uint64    // the identity's hash, the index's key
+	slot            // hash: the identity's hash, the index's key
 	check uint64    // the identity's hash under the filter's check seed
 	sum   [2]uint64 // the window record's hashes (heldFilter.contentSum)
-	prev  int64     // the next older event with the same hash (sequence number), or -1
 	row   int64     // the event's row in its file
 	file  int32     // index in the held version's files
 }
 
 const heldEntryCost = 64
 
-func newHeldWindow() *heldWindow { return &heldWindow{idx: map[uint64]int64{}} }
-
-func (w *heldWindow) add(x heldEntry) {
-	prev, ok := w.idx[x.hash]
-	if !ok {
-		prev = -1
-	}
-	x.prev = prev
-	w.idx[x.hash] = w.q.push(x)
+func newHeldWindow() *heldWindow {
+	return &heldWindow{ti: timeIndex[heldEntry, *heldEntry]{idx: map[uint64]int64{}}}
 }
 
 // find returns the oldest event of the window whose identity hashes are
@@ -251,34 +281,18 @@ func (w *heldWindow) add(x heldEntry) {
 func (w *heldWindow) find(hash, check uint64) (heldEntry, bool) {
 	var hit heldEntry
 	found := false
-	seq, ok := w.idx[hash]
-	for ok && seq >= w.q.head { // older ones have left the window
-		x := w.q.at(seq)
+	w.ti.each(hash, func(x *heldEntry) {
 		if x.check == check {
 			hit, found = *x, true
 		}
-		seq, ok = x.prev, x.prev >= 0
-	}
+	})
 	return hit, found
 }
 
-// evict drops the events before lo.
-func (w *heldWindow) evict(lo int64) {
-	for x := w.q.front(); x != nil && x.at < lo; x = w.q.front() {
-		if w.idx[x.hash] == w.q.head {
-			delete(w.idx, x.hash) // no newer event has its hash
-		}
-		w.q.pop()
-	}
-}
-
-// oldest returns the instant of the oldest event in the window.
-func (w *heldWindow) oldest() (int64, bool) {
-	if x := w.q.front(); x != nil {
-		return x.at, true
-	}
-	return 0, false
-}
+func (w *heldWindow) add(x heldEntry)        { w.ti.push(x) }
+func (w *heldWindow) evict(lo int64)         { w.ti.evict(lo, nil) }
+func (w *heldWindow) oldest() (int64, bool)  { return w.ti.oldest() }
+func (w *eventWindow) oldest() (int64, bool) { return w.ti.oldest() }
 
 // cost is about the memory the window's events take.
-func (w *heldWindow) cost() int64 { return int64(w.q.len()) * (heldEntryCost + indexCost) }
+func (w *heldWindow) cost() int64 { return int64(w.ti.q.len()) * (heldEntryCost + indexCost) }

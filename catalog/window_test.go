@@ -120,7 +120,7 @@ func TestHeldWindow(t *testing.T) {
 	for i := range 60000 {
 		at += int64(rnd.IntN(3)) * 1e6
 		id := uint64(rnd.IntN(3000))
-		x := heldEntry{at: at, hash: id % 61, check: id, sum: [2]uint64{rnd.Uint64(), uint64(i)},
+		x := heldEntry{slot: slot{at: at, hash: id % 61}, check: id, sum: [2]uint64{rnd.Uint64(), uint64(i)},
 			row: int64(i), file: int32(rnd.IntN(4))}
 		lo := at - 12000e6 // mostly one entry at a time, so every place in a chunk is an end
 		if rnd.IntN(10) == 0 {
@@ -146,8 +146,8 @@ func TestHeldWindow(t *testing.T) {
 		}
 		w.add(x)
 		ref = append(ref, x)
-		if n := len(ref)/queueChunk + 2; len(w.q.chunks) > n {
-			t.Fatalf("entry %d: %d chunks for %d entries", i, len(w.q.chunks), len(ref))
+		if n := len(ref)/queueChunk + 2; len(w.ti.q.chunks) > n {
+			t.Fatalf("entry %d: %d chunks for %d entries", i, len(w.ti.q.chunks), len(ref))
 		}
 		most = max(most, len(ref))
 	}
