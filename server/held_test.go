@@ -85,3 +85,31 @@ func TestUploadHeldEventsAPI(t *testing.T) {
 		t.Errorf("correction: %q, %d rows", res.Message, res.Version.Manifest.Rows)
 	}
 }
+
+// An upload whose stable-id look-around narrowed under the catalog's bound
+// says so in the API's message, in its counts and the version's lineage,
+// and on the dataset's page.
+func TestUploadChangeWindowNarrowed(t *testing.T) {
+	e := newEnvStore(t, t.TempDir(), catalog.Options{ChangeWindowBytes: 2000})
+	e.createProject("lab")
+	profile := "fields:\n  site: site\n  case_id: case_id\n  event_type: event_type\n  occurred_at: occurred_at\n  outcome: outcome\n  event_id: {column: event_id, stable: true}\n"
+	e.createDataset("lab", "flow", profile)
+	partner := e.partner("lab/flow")
+	e.mustStatus(e.upload("lab", "flow", partner, "day.csv", heldCSV(90, nil)), http.StatusCreated, "first upload")
+	r := e.upload("lab", "flow", partner, "day2.csv", heldCSV(100, nil))
+	e.mustStatus(r, http.StatusCreated, "the day again")
+	var res api.UploadResult
+	e.decode(r, &res)
+	w := res.Upload.Events.ChangeWindow
+	if w == nil || w.Bytes != 2000 || w.Seconds <= 0 || w.Seconds >= 86400 || res.Version.Manifest.Lineage.Events.ChangeWindow == nil ||
+		res.Upload.Events.Held != 90 || res.Upload.Events.New != 10 {
+		t.Fatalf("counts %+v, change window %+v", res.Upload.Events, w)
+	}
+	if want := "v2: 10 new events, 90 already held, 0 changed; the events kept to find changes reached 2,000 bytes, so from 2026-03-02T00:00:00Z on changes were looked for within "; !strings.HasPrefix(res.Message, want) {
+		t.Errorf("message %q, want it to begin %q", res.Message, want)
+	}
+	b := e.browser(t)
+	b.signIn(e.member("lab"))
+	page := b.page("/view/lab/flow", http.StatusOK)
+	mustHave(t, "dataset page", page, "10 new; changes looked for within", "either way from 2026-03-02 00:00 UTC (<code>change_window</code>)")
+}
