@@ -145,6 +145,17 @@ type ChangeWindow struct {
 	Bytes   int64     `json:"bytes"`
 }
 
+// String says it in words: "changes looked for within 4h3m23s either
+// way from 2026-01-05T00:00:00Z (the events kept reached 48 MiB)".
+func (w *ChangeWindow) String() string {
+	size := printer.Sprintf("%d bytes", w.Bytes)
+	if w.Bytes >= 1<<20 {
+		size = printer.Sprintf("%d MiB", w.Bytes>>20)
+	}
+	return fmt.Sprintf("changes looked for within %s either way from %s (the events kept reached %s)",
+		time.Duration(w.Seconds*float64(time.Second)).Round(time.Second), w.From.Format(time.RFC3339), size)
+}
+
 // SiteEventCounts are one site's EventCounts.
 type SiteEventCounts struct {
 	Site    string `json:"site"`
@@ -181,12 +192,7 @@ func (c *EventCounts) Sentence(version int) string {
 		b.WriteString(printer.Sprintf(", %d %s within the file stored once", c.Copies, plural(c.Copies, "copy", "copies")))
 	}
 	if w := c.ChangeWindow; w != nil {
-		size := printer.Sprintf("%d bytes", w.Bytes)
-		if w.Bytes >= 1<<20 {
-			size = printer.Sprintf("%d MiB", w.Bytes>>20)
-		}
-		b.WriteString(printer.Sprintf("; the events kept to find changes reached %s, so from %s on changes were looked for within %s either way only",
-			size, w.From.Format(time.RFC3339), time.Duration(w.Seconds*float64(time.Second)).Round(time.Second)))
+		b.WriteString("; " + w.String())
 	}
 	return b.String()
 }

@@ -54,7 +54,7 @@ type Options struct {
 	RowGroupRows int64
 	// ChangeWindowBytes bounds about what the events an upload keeps to
 	// find changes and conflicts (stable event ids: 24 h either way) take
-	// (default 48 MiB; held events about 104 bytes each, the upload's
+	// (DefaultChangeWindowBytes; held events about 104 bytes each, the upload's
 	// about 220). Past it the look-around narrows (EventCounts.ChangeWindow); the
 	// events of the current instant are always kept.
 	ChangeWindowBytes int64
@@ -63,6 +63,11 @@ type Options struct {
 	// take the defaults). Going over one fails the upload, naming it.
 	Limits schema.Limits
 }
+
+// DefaultChangeWindowBytes is Options.ChangeWindowBytes when unset: 48
+// MiB keeps an upload of 10M events, each sent twice with stable ids,
+// within 256 MiB of the server's memory (DEVELOPERS.md).
+const DefaultChangeWindowBytes = 48 << 20
 
 // Store is the catalog: metadata in bbolt, snapshot files in a blob.Store.
 // It is safe for concurrent use.
@@ -111,7 +116,7 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		opt.RowGroupRows = 1 << 16
 	}
 	if opt.ChangeWindowBytes <= 0 {
-		opt.ChangeWindowBytes = 48 << 20
+		opt.ChangeWindowBytes = DefaultChangeWindowBytes
 	}
 	if opt.Master == (anonymize.MasterKey{}) {
 		return nil, fmt.Errorf("catalog: no master key given")

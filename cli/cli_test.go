@@ -515,3 +515,61 @@ func TestDemo(t *testing.T) {
 		t.Errorf("on exit the demo does not say how to serve %s again:\n%s", data, s[len(text):])
 	}
 }
+
+// serve --change-window-bytes bounds what an upload with stable event ids
+// keeps to find changes: the upload that narrows says so, and so does
+// flowcat uploads.
+func TestServeChangeWindowFlag(t *testing.T) {
+	dir := t.TempDir()
+	data := filepath.Join(dir, "data")
+	t.Setenv("FLOWCAT_MASTER_KEY", "")
+	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
+	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
+		t.Fatalf("init: exit %d: %s", code, errs)
+	}
+	_, serveErr, stop := background(t, "serve", "--data", data, "--addr", "127.0.0.1:0", "--change-window-bytes", "2000")
+	defer stop()
+	url := waitFor(t, "the server's URL in its log", func() string {
+		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
+			return m[1]
+		}
+		return ""
+	})
+	issue := func(args ...string) string {
+		code, out, errs := run(t, nil, append([]string{"token", "issue", "--data", data}, args...)...)
+		if code != 0 {
+			t.Fatalf("token issue %v: exit %d: %s", args, code, errs)
+		}
+		return strings.TrimSpace(out)
+	}
+	as := func(tok string) map[string]string { return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok} }
+	admin := issue("--role", "admin", "--subject", "ops")
+	if code, _, errs := run(t, as(admin), "project", "create", "flow"); code != 0 {
+		t.Fatalf("project create: %d %s", code, errs)
+	}
+	files := t.TempDir()
+	prof := writeFile(t, files, "profile.yaml", "fields:\n  site: site\n  case_id: case_id\n  event_type: event_type\n  occurred_at: occurred_at\n  event_id: {column: event_id, stable: true}\n")
+	if code, _, errs := run(t, as(admin), "dataset", "create", "flow/ids", "--profile", prof); code != 0 {
+		t.Fatalf("dataset create: %d %s", code, errs)
+	}
+	day := func(n int) string {
+		var b strings.Builder
+		b.WriteString("site,case_id,event_type,occurred_at,event_id\n")
+		for i := range n {
+			fmt.Fprintf(&b, "north,C-%d,%s,2026-03-02T%02d:%02d:00Z,ev-%d\n", i/3, []string{"arrival", "start", "complete"}[i%3], i/60, i%60, i)
+		}
+		return b.String()
+	}
+	partner := issue("--role", "partner", "--subject", "north-site", "--dataset", "flow/ids")
+	if code, _, errs := run(t, as(partner), "upload", "flow/ids", writeFile(t, files, "d1.csv", day(90))); code != 0 {
+		t.Fatalf("first upload: %d %s", code, errs)
+	}
+	code, out, errs := run(t, as(partner), "upload", "flow/ids", writeFile(t, files, "d2.csv", day(100)))
+	const said = " either way from 2026-03-02T00:00:00Z (the events kept reached 2,000 bytes)"
+	if code != 0 || !strings.Contains(out, "v2: 10 new events, 90 already held, 0 changed; changes looked for within ") || !strings.Contains(out, said) {
+		t.Fatalf("second upload: exit %d, %q %q", code, out, errs)
+	}
+	if code, out, _ := run(t, as(admin), "uploads", "flow/ids"); code != 0 || strings.Count(strings.Join(strings.Fields(out), " "), said) != 1 { // notes wrap
+		t.Errorf("uploads: exit %d, %q", code, out)
+	}
+}

@@ -228,12 +228,13 @@ func (d dataDir) openStore(master anonymize.MasterKey, log *slog.Logger, lim ...
 	if len(lim) > 0 {
 		l = lim[0]
 	}
-	return d.openStoreWith(master, log, l, nil)
+	return d.openStoreWith(master, log, catalog.Options{Limits: l})
 }
 
-// openStoreWith opens the store with upload limits and a clock (nil:
-// time.Now).
-func (d dataDir) openStoreWith(master anonymize.MasterKey, log *slog.Logger, lim schema.Limits, now func() time.Time) (*catalog.Store, error) {
+// openStoreWith opens the store with the options serve sets (upload
+// limits, the change window's bound, a clock; zero values take the
+// catalog's defaults).
+func (d dataDir) openStoreWith(master anonymize.MasterKey, log *slog.Logger, set catalog.Options) (*catalog.Store, error) {
 	inst, err := d.readInstance()
 	if err != nil {
 		return nil, err
@@ -247,6 +248,6 @@ func (d dataDir) openStoreWith(master anonymize.MasterKey, log *slog.Logger, lim
 	}
 	// Open clears what an interrupted run left in tmp/ and blobs/tmp/
 	// once it holds the bbolt lock (only pseudonymized events).
-	opt := catalog.Options{Master: master, TempDir: d.tmp(), Logger: log, Limits: lim, Now: now}
+	opt := catalog.Options{Master: master, TempDir: d.tmp(), Logger: log, Limits: set.Limits, Now: set.Now, ChangeWindowBytes: set.ChangeWindowBytes}
 	return catalog.Open(d.db(), blobs, opt)
 }

@@ -23,7 +23,7 @@ import (
 
 func newServeCmd(e *env) *cobra.Command {
 	var dir, addr, masterFile, blobs string
-	var maxUpload, memLimit int64
+	var maxUpload, memLimit, changeWindow int64
 	var maxUploads int
 	var bodyIdle time.Duration
 	var author, tlsCert, tlsKey, logLevel string
@@ -64,7 +64,7 @@ func newServeCmd(e *env) *cobra.Command {
 				return usageErr("serve: --tls-cert and --tls-key go together")
 			}
 			run, err := startServer(ctx, d, addr, masterFile, serverOptions{maxUpload: maxUpload, maxUploads: maxUploads, bodyIdle: bodyIdle, citationAuthor: author, limits: lim,
-				rateLimit: rateLimit, rateBurst: rateBurst, tlsCert: tlsCert, tlsKey: tlsKey}, log)
+				rateLimit: rateLimit, rateBurst: rateBurst, tlsCert: tlsCert, tlsKey: tlsKey, changeWindow: changeWindow}, log)
 			if err != nil {
 				return err
 			}
@@ -89,6 +89,7 @@ func newServeCmd(e *env) *cobra.Command {
 	c.Flags().StringVar(&tlsKey, "tls-key", "", "private key file (PEM) of --tls-cert")
 	c.Flags().StringVar(&author, "citation-author", "", "author named in CITATION.cff files, e.g. the lab (default: the project's title)")
 	c.Flags().StringVar(&logLevel, "log-level", "info", "least severe log records written: debug, info, warn or error (each request is logged at info)")
+	c.Flags().Int64Var(&changeWindow, "change-window-bytes", catalog.DefaultChangeWindowBytes, "bytes an upload with stable event ids may keep to find changed events 24 h either way (past it the look-around narrows; the upload says so)")
 	c.Flags().Int64Var(&memLimit, "memory-limit", DefaultMemoryLimit, "soft limit of the server's memory in bytes (Go's runtime/debug.SetMemoryLimit; 0: none; the GOMEMLIMIT environment variable wins)")
 	return c
 }
@@ -111,6 +112,7 @@ type serverOptions struct {
 	tlsCert        string // certificate chain file (PEM); with tlsKey, serve HTTPS
 	tlsKey         string
 	now            func() time.Time // the catalog's clock; nil: time.Now (the demo's simulated nights)
+	changeWindow   int64            // catalog.Options.ChangeWindowBytes
 }
 
 // running is a started server.
@@ -153,7 +155,7 @@ func startServerOn(ctx context.Context, d dataDir, ln net.Listener, masterFile s
 		ln.Close()
 		return nil, fmt.Errorf("serve: %w", err)
 	}
-	st, err := d.openStoreWith(master, log, so.limits, so.now)
+	st, err := d.openStoreWith(master, log, catalog.Options{Limits: so.limits, Now: so.now, ChangeWindowBytes: so.changeWindow})
 	if err != nil {
 		ln.Close()
 		return nil, fmt.Errorf("serve: %w", err)

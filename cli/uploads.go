@@ -61,6 +61,9 @@ no size: the bytes read before it failed are in its note.`,
 					if ev.Changed > 0 {
 						notes = append(notes, fmt.Sprintf("%d events changed", ev.Changed))
 					}
+					if ev.ChangeWindow != nil {
+						notes = append(notes, ev.ChangeWindow.String())
+					}
 				}
 				v := "-"
 				if u.Version > 0 {
