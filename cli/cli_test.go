@@ -542,7 +542,9 @@ func TestServeChangeWindowFlag(t *testing.T) {
 		}
 		return strings.TrimSpace(out)
 	}
-	as := func(tok string) map[string]string { return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok} }
+	as := func(tok string) map[string]string {
+		return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok}
+	}
 	admin := issue("--role", "admin", "--subject", "ops")
 	if code, _, errs := run(t, as(admin), "project", "create", "flow"); code != 0 {
 		t.Fatalf("project create: %d %s", code, errs)
