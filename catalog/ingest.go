@@ -409,6 +409,7 @@ func (in *ingest) pass(ctx context.Context) error {
 	if err != nil {
 		return fmt.Errorf("ingest: %w", err)
 	}
+	in.acc.EndTimePass()
 	return nil
 }
 

@@ -652,6 +652,16 @@ func (a *Accumulator) Observe(e *schema.Event) Flags {
 	return fl
 }
 
+// EndTimePass frees what only the time pass needs, the event ids of its
+// duplicate check (up to MaxEventIDSlots of 16 bytes), once the last
+// event has been observed: the per-case pass and the report do not need
+// them, and the upload's commit then has that memory. An event observed
+// after it is checked against no earlier event id.
+func (a *Accumulator) EndTimePass() {
+	a.ids.release()
+	a.keptIDs = 0
+}
+
 // resourceCheck follows the service intervals open at each resource, in
 // time order across cases, and reports whether e's start finds its
 // resource already serving as many cases as its capacity. A start opens

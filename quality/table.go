@@ -69,6 +69,15 @@ func newTable(window uint64, maxShard int) table {
 	return t
 }
 
+// release forgets every record and frees the shards' slots, keeping what
+// the bound cost (the report's event_id_bound); the table works on, empty.
+func (t *table) release() {
+	for i := range t.shards {
+		t.shards[i] = shard{slots: make([]slot, minShardSize), mask: minShardSize - 1}
+	}
+	t.n, t.scratch = 0, nil
+}
+
 // shardBound returns the slots each shard may hold so that the table
 // holds at most slots in all: a power of two, at least minShardSize.
 func shardBound(slots int) int {
