@@ -614,6 +614,9 @@ func (a *Accumulator) Merge(o *Accumulator) error {
 	for _, w := range o.waits {
 		i, ok := a.waitIndex[w.key]
 		if !ok {
+			if len(a.waits) >= maxKeys {
+				continue // beyond the cap, as in one pass: not told apart
+			}
 			i = int32(len(a.waits))
 			a.waits = append(a.waits, waitAcc{key: w.key})
 			a.waitIndex[w.key] = i

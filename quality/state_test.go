@@ -525,3 +525,40 @@ func FuzzQualityState(f *testing.F) {
 		}
 	})
 }
+
+// TestMergeKeepsKeysBound: parts that tell apart more (queue, activity)
+// pairs together than one pass may (maxKeys) merge into at most maxKeys
+// of them, the first part's all kept, and the merged state decodes again
+// (its decoder refuses more). Before, merged parts held every pair, so a
+// version made of many parts grew its report with the file.
+func TestMergeKeepsKeysBound(t *testing.T) {
+	opt := Options{}
+	part := func(off int) *Accumulator {
+		var evs []schema.Event
+		at := time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)
+		for i := range 40000 {
+			c := fmt.Sprintf("c%d", off+i)
+			act := fmt.Sprintf("a%d", off+i)
+			evs = append(evs,
+				schema.Event{Site: "north", CaseID: c, Type: schema.Enqueue, Queue: "q", Activity: act, OccurredAt: at, Line: int64(2 * i)},
+				schema.Event{Site: "north", CaseID: c, Type: schema.Start, Queue: "q", Activity: act, OccurredAt: at.Add(time.Minute), Line: int64(2*i + 1)})
+		}
+		return observeCases(opt, casePassInput(evs, opt))
+	}
+	a, b := part(0), part(30000) // 70,000 pairs, 10,000 in both
+	if len(a.waits) != 40000 || len(b.waits) != 40000 {
+		t.Fatalf("parts of %d and %d pairs", len(a.waits), len(b.waits))
+	}
+	if err := a.Merge(b); err != nil {
+		t.Fatal(err)
+	}
+	if len(a.waits) != maxKeys {
+		t.Errorf("merged %d pairs, want %d", len(a.waits), maxKeys)
+	}
+	for i := range 40000 {
+		if _, ok := a.waitIndex[waitKey{"q", fmt.Sprintf("a%d", i)}]; !ok {
+			t.Fatalf("the first part's pair a%d was dropped", i)
+		}
+	}
+	roundTrip(t, a, opt)
+}
