@@ -586,8 +586,16 @@ func (g *groupBuild) run(cp *CasePass, mine []cases.Observer) error {
 			if w != last && last != nil {
 				// A case is whole in its group: the last group's case in
 				// hand has ended. Flushed now, it reaches observers the
-				// groups share (the case table) before the next one.
-				last.split.Flush()
+				// groups share (the case table) before the next one. In a
+				// full pass that group is done (the groups come one after
+				// another): sealed, its accumulators go.
+				if g.prev == nil {
+					if err := last.seal(); err != nil {
+						return err
+					}
+				} else {
+					last.split.Flush()
+				}
 			}
 			last = w
 			w.split.Add(e, kf.keep(e, &w.kc))
@@ -707,6 +715,15 @@ type groupWriter struct {
 	kc        summary.Counts
 	temps     []*os.File // state files, removed with the writer
 	upload    bool       // it holds events of the upload (caseGroup.Upload)
+	sealed    *sealedStates
+}
+
+// sealedStates are a group's summary and quality states written to their
+// temp files, its accumulators dropped (groupWriter.seal).
+type sealedStates struct {
+	kept  int64
+	files [2]*os.File // summary, quality
+	ids   [2]blob.ID
 }
 
 // groupDistinctMemory bounds each group's distinct-key sets before they
@@ -772,10 +789,37 @@ func (w *groupWriter) distinct(e *schema.Event) error {
 	return nil
 }
 
+// seal flushes the group's last case and writes its summary and quality
+// states to temp files, dropping its accumulators and its split: the
+// group's per-case figures are then done. In a full pass a group gets no
+// event once the next begins, so it is sealed then, and the groups'
+// accumulators (each up to its key caps where a code column holds free
+// text) do not all wait for the end of the pass.
+func (w *groupWriter) seal() error {
+	if w.sealed != nil {
+		return nil
+	}
+	w.split.Flush()
+	st := &sealedStates{kept: w.split.KeptCases()}
+	for i, m := range []interface{ MarshalBinary() ([]byte, error) }{w.sum, w.qacc} {
+		b, err := m.MarshalBinary()
+		if err != nil {
+			return fmt.Errorf("case groups: state: %w", err)
+		}
+		if st.files[i], st.ids[i], err = w.tempBlob(func(out io.Writer) error { _, err := out.Write(b); return err }); err != nil {
+			return err
+		}
+	}
+	w.sealed, w.split, w.sum, w.qacc = st, nil, nil, nil
+	return nil
+}
+
 // finish completes the group (after the pass) and returns it with its
 // files, in the order of caseGroup.blobs, each at its start.
 func (w *groupWriter) finish() (*caseGroup, []*os.File, error) {
-	w.split.Flush()
+	if err := w.seal(); err != nil {
+		return nil, nil, err
+	}
 	if err := w.evw.Close(); err != nil {
 		return nil, nil, fmt.Errorf("case groups: %w", err)
 	}
@@ -791,7 +835,7 @@ func (w *groupWriter) finish() (*caseGroup, []*os.File, error) {
 		}
 	}
 	gr := &caseGroup{Events: blob.ID(w.evh.Sum(nil)), Keys: blob.ID(w.kh.Sum(nil)), Cases: w.cases, Count: w.count, Bytes: w.evn,
-		Kept: w.split.KeptCases(), Later: int64(w.kc.LaterThanUpload), Outside: int64(w.kc.OutsideWindow), Copies: int64(w.kc.ExactDuplicates),
+		Kept: w.sealed.kept, Later: int64(w.kc.LaterThanUpload), Outside: int64(w.kc.OutsideWindow), Copies: int64(w.kc.ExactDuplicates),
 		Upload: w.upload}
 	pf, pid, err := w.part.finish()
 	if err != nil {
@@ -818,21 +862,8 @@ func (w *groupWriter) finish() (*caseGroup, []*os.File, error) {
 		*x.id = id
 		files = append(files, f)
 	}
-	for _, x := range []struct {
-		m  interface{ MarshalBinary() ([]byte, error) }
-		id *blob.ID
-	}{{w.sum, &gr.Summary}, {w.qacc, &gr.Quality}} {
-		b, err := x.m.MarshalBinary()
-		if err != nil {
-			return nil, nil, fmt.Errorf("case groups: state: %w", err)
-		}
-		f, id, err := w.tempBlob(func(out io.Writer) error { _, err := out.Write(b); return err })
-		if err != nil {
-			return nil, nil, err
-		}
-		*x.id = id
-		files = append(files, f)
-	}
+	gr.Summary, gr.Quality = w.sealed.ids[0], w.sealed.ids[1]
+	files = append(files, w.sealed.files[0], w.sealed.files[1])
 	return gr, files, nil
 }
 
