@@ -520,28 +520,7 @@ func TestDemo(t *testing.T) {
 // keeps to find changes: the upload that narrows says so, and so does
 // flowcat uploads.
 func TestServeChangeWindowFlag(t *testing.T) {
-	dir := t.TempDir()
-	data := filepath.Join(dir, "data")
-	t.Setenv("FLOWCAT_MASTER_KEY", "")
-	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
-	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
-		t.Fatalf("init: exit %d: %s", code, errs)
-	}
-	_, serveErr, stop := background(t, "serve", "--data", data, "--addr", "127.0.0.1:0", "--change-window-bytes", "2000")
-	defer stop()
-	url := waitFor(t, "the server's URL in its log", func() string {
-		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
-			return m[1]
-		}
-		return ""
-	})
-	issue := func(args ...string) string {
-		code, out, errs := run(t, nil, append([]string{"token", "issue", "--data", data}, args...)...)
-		if code != 0 {
-			t.Fatalf("token issue %v: exit %d: %s", args, code, errs)
-		}
-		return strings.TrimSpace(out)
-	}
+	url, issue := served(t, "--change-window-bytes", "2000")
 	as := func(tok string) map[string]string {
 		return map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": tok}
 	}
@@ -573,5 +552,34 @@ func TestServeChangeWindowFlag(t *testing.T) {
 	}
 	if code, out, _ := run(t, as(admin), "uploads", "flow/ids"); code != 0 || strings.Count(strings.Join(strings.Fields(out), " "), said) != 1 { // notes wrap
 		t.Errorf("uploads: exit %d, %q", code, out)
+	}
+}
+
+// served runs init and serve (with extra serve flags) in a folder of the
+// test's, stopped when the test ends, and returns the server's URL and a
+// function that issues tokens on its data folder.
+func served(t *testing.T, flags ...string) (url string, issue func(args ...string) string) {
+	t.Helper()
+	data := filepath.Join(t.TempDir(), "data")
+	t.Setenv("FLOWCAT_MASTER_KEY", "")
+	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
+	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
+		t.Fatalf("init: exit %d: %s", code, errs)
+	}
+	_, serveErr, stop := background(t, append([]string{"serve", "--data", data, "--addr", "127.0.0.1:0"}, flags...)...)
+	t.Cleanup(func() { stop() })
+	url = waitFor(t, "the server's URL in its log", func() string {
+		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
+			return m[1]
+		}
+		return ""
+	})
+	return url, func(args ...string) string {
+		t.Helper()
+		code, out, errs := run(t, nil, append([]string{"token", "issue", "--data", data}, args...)...)
+		if code != 0 {
+			t.Fatalf("token issue %v: exit %d: %s", args, code, errs)
+		}
+		return strings.TrimSpace(out)
 	}
 }

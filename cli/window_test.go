@@ -2,7 +2,6 @@ package cli_test
 
 import (
 	"encoding/json"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
@@ -16,28 +15,7 @@ import (
 // second Sunday of March, then -03:00; Europe/Amsterdam: +01:00 in
 // winter), recalled from memory and checked by time.LoadLocation.
 func TestWindowDates(t *testing.T) {
-	dir := t.TempDir()
-	data := filepath.Join(dir, "data")
-	t.Setenv("FLOWCAT_MASTER_KEY", "")
-	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
-	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
-		t.Fatalf("init: exit %d: %s", code, errs)
-	}
-	_, serveErr, stop := background(t, "serve", "--data", data, "--addr", "127.0.0.1:0")
-	defer stop()
-	url := waitFor(t, "the server's URL in its log", func() string {
-		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
-			return m[1]
-		}
-		return ""
-	})
-	issue := func(args ...string) string {
-		code, out, errs := run(t, nil, append([]string{"token", "issue", "--data", data}, args...)...)
-		if code != 0 {
-			t.Fatalf("token issue: exit %d: %s", code, errs)
-		}
-		return strings.TrimSpace(out)
-	}
+	url, issue := served(t)
 	admin := map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": issue("--role", "admin", "--subject", "ops")}
 	if code, _, errs := run(t, admin, "project", "create", "flow"); code != 0 {
 		t.Fatalf("project create: %d %s", code, errs)
@@ -71,7 +49,7 @@ func TestWindowDates(t *testing.T) {
 		t.Errorf("window %v .. %v; stderr %q", from, to, errs)
 	}
 	// The profile's zone where no --timezone is given.
-	prof := writeFile(t, dir, "p.yaml", "timezone: Europe/Amsterdam\nfields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: t\n")
+	prof := writeFile(t, t.TempDir(), "p.yaml", "timezone: Europe/Amsterdam\nfields:\n  site: {value: s}\n  case_id: c\n  event_type: e\n  occurred_at: t\n")
 	code, out, errs = run(t, admin, "--json", "dataset", "create", "flow/ams", "--profile", prof, "--window-from", "2026-01-10")
 	if from, _ := window(out); code != 0 || !from.Equal(time.Date(2026, 1, 9, 23, 0, 0, 0, time.UTC)) || !strings.Contains(errs, "Europe/Amsterdam: 2026-01-10T00:00:00+01:00") {
 		t.Errorf("profile zone: exit %d, from %v, %s", code, from, errs)

@@ -582,6 +582,12 @@ func (a *Accumulator) ObserveSorted(evs []schema.Event) {
 	for i := range evs {
 		flags[i] = a.Observe(&evs[i])
 	}
+	a.observeCases(evs, flags)
+}
+
+// observeCases is ObserveSorted's per-case pass over evs, whose time pass
+// gave flags.
+func (a *Accumulator) observeCases(evs []schema.Event, flags []Flags) {
 	idx := make([]int, len(evs))
 	for i := range idx {
 		idx[i] = i

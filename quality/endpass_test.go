@@ -10,7 +10,6 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/schema"
-	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
 // TestEndTimePass: freeing the event-id table between the time pass and
@@ -60,19 +59,7 @@ func TestEndTimePass(t *testing.T) {
 		if slots != tableShards*minShardSize || freed.ids.n != 0 {
 			t.Errorf("%s: %d slots, %d records after EndTimePass", s.name, slots, freed.ids.n)
 		}
-		idx := make([]int, len(evs))
-		for i := range idx {
-			idx[i] = i
-		}
-		slices.SortStableFunc(idx, func(i, j int) int { return cases.Less(&evs[i], &evs[j]) })
-		b := cases.NewBuilder(freed)
-		b.Terminal = freed.opt.Terminal
-		for _, i := range idx {
-			e := evs[i]
-			e.Line = PackLine(e.Line, flags[i])
-			b.Add(&e)
-		}
-		b.Flush()
+		freed.observeCases(evs, flags)
 		r1, _ := json.Marshal(whole.Report())
 		r2, _ := json.Marshal(freed.Report())
 		if !bytes.Equal(r1, r2) {
