@@ -582,7 +582,11 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 // set of cases with the same case-level options, as if a had observed
 // o's cases too: a's report then equals, byte for byte, that of one
 // accumulator that observed both sets in one pass, in any grouping and
-// order of merges (see the state's description above). It fails with
+// order of merges (see the state's description above), while the two
+// tell apart at most 65,536 (queue, activity) pairs together; beyond that
+// a keeps its own and adds o's only up to the cap, so which pairs are
+// told apart then depends on the order (one pass keeps the first it
+// meets). It fails with
 // ErrNotCaseLevel if either holds more than case-level state, and with
 // ErrStateOptions if their options differ; a is then unchanged. o is not
 // changed.
