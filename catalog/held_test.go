@@ -2,12 +2,16 @@ package catalog
 
 import (
 	"bytes"
+	"compress/gzip"
 	"context"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"maps"
 	"math/rand/v2"
+	"os"
+	"path/filepath"
 	"reflect"
 	"slices"
 	"strings"
@@ -757,5 +761,69 @@ func TestUploadWindowNarrows(t *testing.T) {
 				t.Errorf("bounded %v, shift %v: counts %+v", bounded, shift, ev)
 			}
 		}
+	}
+}
+
+// TestHeldRealLogResend: the sepsis log (testdata/sepsis, provenance in
+// its README) sent as its first 60% of rows, then whole as an append. The
+// counts are those a set of the mapped columns' texts gives, built here
+// with the standard library: the append holds every distinct event of
+// the first part already, stores the other distinct events, and counts
+// each further row equal to an earlier one as a copy.
+func TestHeldRealLogResend(t *testing.T) {
+	raw, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "sepsis-cases.csv.gz"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	zr, err := gzip.NewReader(bytes.NewReader(raw))
+	if err != nil {
+		t.Fatal(err)
+	}
+	all, err := io.ReadAll(zr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimRight(string(all), "\r\n"), "\n")
+	head, rows := lines[0], lines[1:]
+	if len(rows) != 15214 { // the README: 15,214 events
+		t.Fatalf("%d rows", len(rows))
+	}
+	cols := strings.Split(head, ";")
+	mapped := []int{slices.Index(cols, "Case ID"), slices.Index(cols, "Activity"), slices.Index(cols, "org:group"),
+		slices.Index(cols, "lifecycle:transition"), slices.Index(cols, "Complete Timestamp")}
+	key := func(row string) string {
+		f := strings.Split(row, ";")
+		var k []string
+		for _, i := range mapped {
+			k = append(k, f[i])
+		}
+		return strings.Join(k, "\x00")
+	}
+	part := rows[:len(rows)*6/10]
+	inPart := map[string]bool{}
+	for _, r := range part {
+		inPart[key(r)] = true
+	}
+	distinct := map[string]bool{}
+	for _, r := range rows {
+		distinct[key(r)] = true
+	}
+	prof, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "profile.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "sepsis", func(s *DatasetSpec) { s.Profile = prof; s.Historical = true })
+	body := func(rs []string) []byte { return []byte(head + "\n" + strings.Join(rs, "\n") + "\n") }
+	first := e.ingest(t, "p", "sepsis", body(part), "part.csv").Upload.Events
+	if first.Read != int64(len(part)) || first.New != int64(len(inPart)) || first.Copies != int64(len(part)-len(inPart)) {
+		t.Errorf("first part: %+v; standard library: %d rows, %d distinct", first, len(part), len(inPart))
+	}
+	res := e.ingest(t, "p", "sepsis", body(rows), "whole.csv")
+	ev := res.Upload.Events
+	if ev.Read != int64(len(rows)) || ev.Held != int64(len(inPart)) || ev.New != int64(len(distinct)-len(inPart)) ||
+		ev.Copies != int64(len(rows)-len(distinct)) || ev.Changed != 0 || res.Version.Manifest.Rows != int64(len(distinct)) {
+		t.Errorf("the whole log: %+v, %d rows stored; standard library: %d rows, %d distinct, %d of them in the first part",
+			ev, res.Version.Manifest.Rows, len(rows), len(distinct), len(inPart))
 	}
 }
