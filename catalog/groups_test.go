@@ -245,8 +245,10 @@ func TestGroupsEqualFullPassSepsis(t *testing.T) {
 	}
 }
 
-// sepsisMonths reads the sepsis log and cuts it by the month of each event.
-func sepsisMonths(t *testing.T) (head string, byMonth map[string][]string, months []string) {
+// sepsisLines reads the sepsis log (testdata/sepsis): its header line and
+// its rows, in the file's order.
+func sepsisLines(t *testing.T) []string {
+	t.Helper()
 	gz, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "sepsis-cases.csv.gz"))
 	if err != nil {
 		t.Fatal(err)
@@ -259,7 +261,12 @@ func sepsisMonths(t *testing.T) (head string, byMonth map[string][]string, month
 	if err != nil {
 		t.Fatal(err)
 	}
-	lines := strings.Split(strings.TrimRight(string(raw), "\r\n"), "\n")
+	return strings.Split(strings.TrimRight(string(raw), "\r\n"), "\n")
+}
+
+// sepsisMonths reads the sepsis log and cuts it by the month of each event.
+func sepsisMonths(t *testing.T) (head string, byMonth map[string][]string, months []string) {
+	lines := sepsisLines(t)
 	byMonth = map[string][]string{}
 	for _, l := range lines[1:] {
 		f := strings.SplitN(l, ";", 4) // Case ID;Activity;Complete Timestamp;...

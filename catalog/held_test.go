@@ -2,12 +2,10 @@ package catalog
 
 import (
 	"bytes"
-	"compress/gzip"
 	"context"
 	"encoding/json"
 	"errors"
 	"fmt"
-	"io"
 	"maps"
 	"math/rand/v2"
 	"os"
@@ -771,19 +769,7 @@ func TestUploadWindowNarrows(t *testing.T) {
 // the first part already, stores the other distinct events, and counts
 // each further row equal to an earlier one as a copy.
 func TestHeldRealLogResend(t *testing.T) {
-	raw, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "sepsis-cases.csv.gz"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	zr, err := gzip.NewReader(bytes.NewReader(raw))
-	if err != nil {
-		t.Fatal(err)
-	}
-	all, err := io.ReadAll(zr)
-	if err != nil {
-		t.Fatal(err)
-	}
-	lines := strings.Split(strings.TrimRight(string(all), "\r\n"), "\n")
+	lines := sepsisLines(t)
 	head, rows := lines[0], lines[1:]
 	if len(rows) != 15214 { // the README: 15,214 events
 		t.Fatalf("%d rows", len(rows))
