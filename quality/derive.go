@@ -98,6 +98,13 @@ func derive(rows Rows, rej []RejectionCount, raw Raw, unmapped []string) *Report
 		noEnq += w.NoEnqueue
 		noStart += w.NoStart
 	}
+	if f := raw.WaitsFolded; f != nil {
+		r.WaitsFolded = &FoldedCoverage{Pairs: f.Pairs, Waits: f.Waits, NoEnqueue: f.NoEnqueue, NoStart: f.NoStart,
+			Unobservable: share(f.NoEnqueue+f.NoStart, f.Waits)}
+		waits += f.Waits
+		noEnq += f.NoEnqueue
+		noStart += f.NoStart
+	}
 	slices.SortFunc(r.Waits, func(x, y WaitCoverage) int {
 		return cmp.Or(cmp.Compare(x.Queue, y.Queue), cmp.Compare(x.Activity, y.Activity))
 	})

@@ -512,12 +512,22 @@ func TestMergeManyNames(t *testing.T) {
 	if len(m.UnmappedColumns) != n+n/2 || m.UnmappedColumns[0] != "col-0000000" || m.UnmappedColumns[len(m.UnmappedColumns)-1] != fmt.Sprintf("col-%07d", n+n/2-1) {
 		t.Errorf("%d unmapped columns, %q .. %q", len(m.UnmappedColumns), m.UnmappedColumns[0], m.UnmappedColumns[len(m.UnmappedColumns)-1])
 	}
+	// 150,000 pairs: the ListedWaits with the most waits listed (the
+	// 50,000 both reports hold have two; ties by name), the rest folded,
+	// every wait counted once.
 	var waits int64
 	for _, w := range m.Raw.Waits {
 		waits += w.Waits
 	}
-	if len(m.Raw.Waits) != n+n/2 || waits != 2*n {
-		t.Errorf("%d wait groups holding %d waits, want %d and %d", len(m.Raw.Waits), waits, n+n/2, 2*n)
+	f := m.Raw.WaitsFolded
+	if len(m.Raw.Waits) != ListedWaits || f == nil || f.Pairs != n+n/2-ListedWaits || waits+f.Waits != 2*n {
+		t.Fatalf("%d wait groups holding %d waits, folded %+v; want %d listed, %d folded, %d waits in all", len(m.Raw.Waits), waits, f, ListedWaits, n+n/2-ListedWaits, 2*n)
+	}
+	if first, last := m.Raw.Waits[0], m.Raw.Waits[ListedWaits-1]; first.Queue != "q-0050000" || last.Queue != fmt.Sprintf("q-%07d", n/2+ListedWaits-1) || first.Waits != 2 || last.Waits != 2 {
+		t.Errorf("listed %+v .. %+v; want the first %d pairs with two waits, by name", first, last, ListedWaits)
+	}
+	if rf := m.WaitsFolded; rf == nil || rf.Pairs != f.Pairs || rf.Waits != f.Waits || len(m.Waits) != ListedWaits {
+		t.Errorf("report: %d waits listed, folded %+v; want the raw's %+v", len(m.Waits), rf, f)
 	}
 }
 

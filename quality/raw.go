@@ -14,11 +14,15 @@ import (
 // Raw is the additive part of a report: counts and sums that merge by
 // adding, from which [MergeReports] recomputes every share and score.
 type Raw struct {
-	Settings Settings            `json:"settings"`
-	Uploads  int                 `json:"uploads"` // per-upload reports merged into this one
-	Sites    []SiteRaw           `json:"sites"`
-	Waits    []WaitRaw           `json:"waits"`
-	Samples  map[string][]Sample `json:"samples"` // by finding code; empty_value:<field> per field
+	Settings Settings  `json:"settings"`
+	Uploads  int       `json:"uploads"` // per-upload reports merged into this one
+	Sites    []SiteRaw `json:"sites"`
+	Waits    []WaitRaw `json:"waits"`
+	// WaitsFolded sums the (queue, activity) pairs beyond the
+	// [ListedWaits] with the most waits, which Waits then leaves out;
+	// nil when every pair is listed.
+	WaitsFolded *FoldedWaits        `json:"waits_folded,omitempty"`
+	Samples     map[string][]Sample `json:"samples"` // by finding code; empty_value:<field> per field
 	// ResourcePeak is the most services one resource held open at once
 	// (services taken as lost dropped): the capacity the data show, to set
 	// against Settings.ResourceCapacity.
@@ -218,6 +222,59 @@ type WaitRaw struct {
 	NoStart   int64  `json:"no_start"`
 }
 
+// ListedWaits is the most (queue, activity) pairs a report lists one by
+// one: those with the most waits (ties by queue, then activity); the
+// rest are summed in [Raw.WaitsFolded]. Real exports have tens to
+// hundreds of pairs; many thousands mean free text in a code column,
+// where a list of every value would make the report itself the largest
+// thing an upload stores.
+const ListedWaits = 4096
+
+// FoldedWaits sums the waits of the pairs a report does not list.
+type FoldedWaits struct {
+	Pairs     int64 `json:"pairs"`
+	Waits     int64 `json:"waits"`
+	NoEnqueue int64 `json:"no_enqueue"`
+	NoStart   int64 `json:"no_start"`
+}
+
+// add sums o into f; either may be nil.
+func (f *FoldedWaits) add(o *FoldedWaits) *FoldedWaits {
+	if o == nil {
+		return f
+	}
+	if f == nil {
+		f = &FoldedWaits{}
+	}
+	f.Pairs += o.Pairs
+	f.Waits += o.Waits
+	f.NoEnqueue += o.NoEnqueue
+	f.NoStart += o.NoStart
+	return f
+}
+
+// foldWaits keeps, of more than ListedWaits pairs, those with the most
+// waits, in (queue, activity) order, and adds the others to folded; ws
+// no longer than that is returned as it is.
+func foldWaits(ws []WaitRaw, folded *FoldedWaits) ([]WaitRaw, *FoldedWaits) {
+	if len(ws) <= ListedWaits {
+		return ws, folded
+	}
+	byName := func(x, y WaitRaw) int {
+		return cmp.Or(cmp.Compare(x.Queue, y.Queue), cmp.Compare(x.Activity, y.Activity))
+	}
+	slices.SortFunc(ws, func(x, y WaitRaw) int { return cmp.Or(cmp.Compare(y.Waits, x.Waits), byName(x, y)) })
+	rest := FoldedWaits{Pairs: int64(len(ws) - ListedWaits)}
+	for _, w := range ws[ListedWaits:] {
+		rest.Waits += w.Waits
+		rest.NoEnqueue += w.NoEnqueue
+		rest.NoStart += w.NoStart
+	}
+	ws = slices.Clip(ws[:ListedWaits])
+	slices.SortFunc(ws, byName)
+	return ws, folded.add(&rest)
+}
+
 // ErrIncompatible is returned by [MergeReports] for reports whose formats
 // or clocks differ.
 var ErrIncompatible = errors.New("incompatible reports")
@@ -317,6 +374,7 @@ func cloneRaw(r *Raw) Raw {
 		out.Samples[k] = slices.Clone(v)
 	}
 	out.Waits = slices.Clone(r.Waits)
+	out.WaitsFolded = (*FoldedWaits)(nil).add(r.WaitsFolded)
 	for i := range r.Sites {
 		out.Sites = append(out.Sites, SiteRaw{Site: r.Sites[i].Site, Counts: map[string]int64{},
 			NonEmpty: map[schema.Field]int64{}, ByType: map[schema.EventType]TypeRaw{}, Grid: map[string]int64{}})
@@ -368,6 +426,9 @@ func mergeRaw(dst, src *Raw) {
 		dst.Waits[j].NoEnqueue += w.NoEnqueue
 		dst.Waits[j].NoStart += w.NoStart
 	}
+	// A pair listed here and folded in another part keeps, in its row,
+	// the waits of the parts that listed it; the totals are exact.
+	dst.Waits, dst.WaitsFolded = foldWaits(dst.Waits, dst.WaitsFolded.add(src.WaitsFolded))
 	si := make(map[string]int, len(dst.Sites))
 	for j := range dst.Sites {
 		si[dst.Sites[j].Site] = j
@@ -514,6 +575,7 @@ func WithCases(merged, cases *Report) *Report {
 		delete(raw.Samples, CodeDuplicateAcrossFiles)
 	}
 	raw.Waits = slices.Clone(cases.Raw.Waits)
+	raw.WaitsFolded = (*FoldedWaits)(nil).add(cases.Raw.WaitsFolded)
 	for _, code := range caseCodes {
 		if smp := cases.Raw.Samples[code]; len(smp) > 0 {
 			raw.Samples[code] = slices.Clone(smp)

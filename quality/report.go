@@ -43,12 +43,14 @@ type Report struct {
 	Stages       Stages              `json:"stages"`
 	Cases        CaseFigures         `json:"cases"`
 	Waits        []WaitCoverage      `json:"waits"`
-	Resolution   Resolution          `json:"resolution"`
-	Little       []LittleLaw         `json:"littles_law"`
-	Currentness  []SiteCurrentness   `json:"currentness"`
-	TimeRange    TimeRange           `json:"time_range"`
-	Sites        Sites               `json:"sites"`
-	PerSite      []SiteReport        `json:"per_site"`
+	// WaitsFolded sums the pairs Waits does not list (Raw.WaitsFolded).
+	WaitsFolded *FoldedCoverage   `json:"waits_folded,omitempty"`
+	Resolution  Resolution        `json:"resolution"`
+	Little      []LittleLaw       `json:"littles_law"`
+	Currentness []SiteCurrentness `json:"currentness"`
+	TimeRange   TimeRange         `json:"time_range"`
+	Sites       Sites             `json:"sites"`
+	PerSite     []SiteReport      `json:"per_site"`
 	// Internal lists faults of the program rather than of the data (such
 	// as order_breach); they do not enter any score.
 	Internal []Finding `json:"internal"`
@@ -130,6 +132,16 @@ type CaseFigures struct {
 type WaitCoverage struct {
 	Queue        string  `json:"queue"`
 	Activity     string  `json:"activity"`
+	Waits        int64   `json:"waits"`
+	NoEnqueue    int64   `json:"no_enqueue"`
+	NoStart      int64   `json:"no_start"`
+	Unobservable float64 `json:"unobservable"` // (NoEnqueue + NoStart) / Waits
+}
+
+// FoldedCoverage is the wait coverage of the (queue, activity) pairs a
+// report does not list, beyond the [ListedWaits] with the most waits.
+type FoldedCoverage struct {
+	Pairs        int64   `json:"pairs"`
 	Waits        int64   `json:"waits"`
 	NoEnqueue    int64   `json:"no_enqueue"`
 	NoStart      int64   `json:"no_start"`
@@ -359,6 +371,7 @@ func (a *Accumulator) Report() *Report {
 	slices.SortFunc(raw.Waits, func(x, y WaitRaw) int {
 		return cmp.Or(cmp.Compare(x.Queue, y.Queue), cmp.Compare(x.Activity, y.Activity))
 	})
+	raw.Waits, raw.WaitsFolded = foldWaits(raw.Waits, nil)
 	for c := range numCodes {
 		if len(a.samples[c]) > 0 {
 			raw.Samples[codeNames[c]] = slices.Clone(a.samples[c])

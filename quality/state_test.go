@@ -12,6 +12,7 @@ import (
 	"os"
 	"path/filepath"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
@@ -561,4 +562,86 @@ func TestMergeKeepsKeysBound(t *testing.T) {
 		}
 	}
 	roundTrip(t, a, opt)
+}
+
+// TestReportFoldsWaits: a report lists the ListedWaits (queue, activity)
+// pairs with the most waits and sums the rest, so its size stays bounded
+// when a free-text column is mapped to activity; every wait is still
+// counted once, and the wait findings count them all. Checked against a
+// count kept here by pair.
+func TestReportFoldsWaits(t *testing.T) {
+	const pairs = ListedWaits + 1904
+	opt := Options{}
+	type tally struct{ waits, noStart int64 }
+	want := map[[2]string]*tally{}
+	var evs []schema.Event
+	at := time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)
+	n := 0
+	for i := range pairs {
+		q, act := fmt.Sprintf("q%d", i%3), fmt.Sprintf("act-%05d", i)
+		tl := &tally{}
+		want[[2]string{q, act}] = tl
+		for k := range 1 + i%5 { // 1 to 5 waits a pair
+			c := fmt.Sprintf("c%d", n)
+			n++
+			evs = append(evs, schema.Event{Site: "north", CaseID: c, Type: schema.Enqueue, Queue: q, Activity: act, OccurredAt: at, Line: int64(len(evs))})
+			tl.waits++
+			if k == 0 && i%7 == 0 { // never started: open at the end
+				tl.noStart++
+				continue
+			}
+			evs = append(evs, schema.Event{Site: "north", CaseID: c, Type: schema.Start, Queue: q, Activity: act, OccurredAt: at.Add(time.Minute), Line: int64(len(evs))})
+		}
+		at = at.Add(time.Second)
+	}
+	r := observeCases(opt, casePassInput(evs, opt)).Report()
+
+	// The listed pairs: most waits first, ties by queue then activity.
+	keys := make([][2]string, 0, len(want))
+	var allWaits, allNoStart int64
+	for k, tl := range want {
+		keys = append(keys, k)
+		allWaits += tl.waits
+		allNoStart += tl.noStart
+	}
+	slices.SortFunc(keys, func(x, y [2]string) int {
+		if d := want[y].waits - want[x].waits; d != 0 {
+			return int(d)
+		}
+		return strings.Compare(x[0]+"\x00"+x[1], y[0]+"\x00"+y[1])
+	})
+	listed := keys[:ListedWaits]
+	slices.SortFunc(listed, func(x, y [2]string) int { return strings.Compare(x[0]+"\x00"+x[1], y[0]+"\x00"+y[1]) })
+	if len(r.Raw.Waits) != ListedWaits || len(r.Waits) != ListedWaits {
+		t.Fatalf("%d raw and %d report rows, want %d", len(r.Raw.Waits), len(r.Waits), ListedWaits)
+	}
+	var fw, fns int64
+	for i, w := range r.Raw.Waits {
+		k := listed[i]
+		if w.Queue != k[0] || w.Activity != k[1] || w.Waits != want[k].waits || w.NoStart != want[k].noStart {
+			t.Fatalf("row %d: %+v, want %v with %+v", i, w, k, *want[k])
+		}
+	}
+	for _, k := range keys[ListedWaits:] {
+		fw += want[k].waits
+		fns += want[k].noStart
+	}
+	f := r.Raw.WaitsFolded
+	if f == nil || f.Pairs != pairs-ListedWaits || f.Waits != fw || f.NoStart != fns || f.NoEnqueue != 0 {
+		t.Fatalf("folded %+v, want %d pairs, %d waits, %d never started", f, pairs-ListedWaits, fw, fns)
+	}
+	if rf := r.WaitsFolded; rf == nil || rf.Waits != fw || rf.NoStart != fns || math.Abs(rf.Unobservable-float64(fns)/float64(fw)) > 1e-12 {
+		t.Errorf("report's folded coverage %+v", rf)
+	}
+	if got := counted(r)[CodeWaitNoStart]; got != allNoStart {
+		t.Errorf("%s counts %d, want %d of %d waits", CodeWaitNoStart, got, allNoStart, allWaits)
+	}
+	// The same through a merge with the report of no events.
+	m, err := MergeReports(r, observeCases(opt, nil).Report())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if mf := m.Raw.WaitsFolded; mf == nil || *mf != *f || len(m.Raw.Waits) != ListedWaits {
+		t.Errorf("merged: %d rows, folded %+v; want %+v", len(m.Raw.Waits), mf, f)
+	}
 }
