@@ -42,6 +42,10 @@ const OtherSite = "(other)"
 // maxKeys caps the (queue, activity) pairs and the resources told apart.
 const maxKeys = 1 << 16
 
+// waitBeyond is the wait index of the pairs beyond maxKeys: their waits
+// are counted together (Accumulator.waitsBeyond).
+const waitBeyond = maxKeys
+
 // defaultPruneEvery is the least number of events between two sweeps of
 // expired records (event ids beyond their window, open services beyond
 // the longest service); a sweep also waits for as many events as the last
@@ -194,6 +198,9 @@ type Accumulator struct {
 	waits          []waitAcc
 	waitIndex      map[waitKey]int32
 	waitCache      int32 // index+1 of the last (queue, activity) looked up
+	// waitsBeyond counts the waits of pairs beyond the cap, not told
+	// apart (index waitBeyond).
+	waitsBeyond    waitAcc
 	resources      []resAcc
 	resIndex       map[string]int32
 	zLo, zHi, zOff int64 // the zone offset (µs) valid in [zLo, zHi)
@@ -431,6 +438,13 @@ type waitKey struct{ queue, activity string }
 type waitAcc struct {
 	key                       waitKey
 	waits, noEnqueue, noStart int64
+}
+
+// add adds o's counts to w.
+func (w *waitAcc) add(o *waitAcc) {
+	w.waits += o.waits
+	w.noEnqueue += o.noEnqueue
+	w.noStart += o.noStart
 }
 
 type resAcc struct {

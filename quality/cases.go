@@ -230,7 +230,7 @@ func (a *Accumulator) endCase() {
 	st := &a.cur
 	s := a.sites[st.site]
 	if st.flags&csWaitPending != 0 && st.wait > 0 {
-		a.waits[st.wait-1].noStart++
+		a.waitAt(st.wait-1).noStart++
 		s.n[cWaitNoStart]++
 	}
 	if st.flags&csInSystem != 0 {
@@ -441,11 +441,10 @@ func (a *Accumulator) caseEnqueue(ev *caseEvent) {
 	if st.flags&csWaitPending != 0 {
 		a.waitNoStart(ev.s, st, ev.e)
 	}
-	if w := a.waitOf(ev.e); w >= 0 {
-		a.waits[w].waits++
-		st.wait = w + 1
-		st.flags |= csWaitPending
-	}
+	w := a.waitOf(ev.e)
+	a.waitAt(w).waits++
+	st.wait = w + 1
+	st.flags |= csWaitPending
 }
 
 // caseStart opens a service: it settles a complete seen before it, ends
@@ -461,10 +460,11 @@ func (a *Accumulator) caseStart(ev *caseEvent) {
 	st.flags |= csStarted | csStart
 	if st.flags&csWaitPending != 0 {
 		a.endWait()
-	} else if w := a.waitOf(ev.e); w >= 0 {
-		a.waits[w].waits++
+	} else {
+		w := a.waitAt(a.waitOf(ev.e))
+		w.waits++
 		if st.flags&csWaitAnchor == 0 {
-			a.waits[w].noEnqueue++
+			w.noEnqueue++
 			a.flag(ev.s, cWaitNoEnqueue, ev.e)
 		}
 	}
@@ -545,14 +545,23 @@ func (a *Accumulator) caseExit(ev *caseEvent) {
 // waitNoStart counts the pending enqueue of st as a wait never started.
 func (a *Accumulator) waitNoStart(s *siteAcc, st *caseState, e *schema.Event) {
 	if st.wait > 0 {
-		a.waits[st.wait-1].noStart++
+		a.waitAt(st.wait-1).noStart++
 		a.flag(s, cWaitNoStart, e)
 	}
 	st.wait = 0
 }
 
-// waitOf returns the index of e's (queue, activity) pair, or -1 beyond
-// the cap.
+// waitAt returns the wait counts of index i, a pair's or those of the
+// pairs beyond the cap.
+func (a *Accumulator) waitAt(i int32) *waitAcc {
+	if i == waitBeyond {
+		return &a.waitsBeyond
+	}
+	return &a.waits[i]
+}
+
+// waitOf returns the index of e's (queue, activity) pair, or waitBeyond
+// beyond the cap.
 func (a *Accumulator) waitOf(e *schema.Event) int32 {
 	if c := a.waitCache; c > 0 {
 		if w := &a.waits[c-1].key; w.queue == e.Queue && w.activity == e.Activity {
@@ -562,7 +571,7 @@ func (a *Accumulator) waitOf(e *schema.Event) int32 {
 	i, ok := a.waitIndex[waitKey{e.Queue, e.Activity}]
 	if !ok {
 		if len(a.waits) >= maxKeys {
-			return -1
+			return waitBeyond
 		}
 		i = int32(len(a.waits))
 		k := waitKey{strings.Clone(e.Queue), strings.Clone(e.Activity)}

@@ -100,7 +100,7 @@ func derive(rows Rows, rej []RejectionCount, raw Raw, unmapped []string) *Report
 	}
 	if f := raw.WaitsFolded; f != nil {
 		r.WaitsFolded = &FoldedCoverage{Pairs: f.Pairs, Waits: f.Waits, NoEnqueue: f.NoEnqueue, NoStart: f.NoStart,
-			Unobservable: share(f.NoEnqueue+f.NoStart, f.Waits)}
+			Unobservable: share(f.NoEnqueue+f.NoStart, f.Waits), MorePairs: f.MorePairs}
 		waits += f.Waits
 		noEnq += f.NoEnqueue
 		noStart += f.NoStart

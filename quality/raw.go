@@ -232,10 +232,13 @@ const ListedWaits = 4096
 
 // FoldedWaits sums the waits of the pairs a report does not list.
 type FoldedWaits struct {
-	Pairs     int64 `json:"pairs"`
+	Pairs     int64 `json:"pairs"` // the pairs folded of those told apart
 	Waits     int64 `json:"waits"`
 	NoEnqueue int64 `json:"no_enqueue"`
 	NoStart   int64 `json:"no_start"`
+	// MorePairs: the sums also hold the waits of pairs beyond the
+	// 65,536 the quality model tells apart, which Pairs does not count.
+	MorePairs bool `json:"more_pairs,omitempty"`
 }
 
 // add sums o into f; either may be nil.
@@ -250,6 +253,7 @@ func (f *FoldedWaits) add(o *FoldedWaits) *FoldedWaits {
 	f.Waits += o.Waits
 	f.NoEnqueue += o.NoEnqueue
 	f.NoStart += o.NoStart
+	f.MorePairs = f.MorePairs || o.MorePairs
 	return f
 }
 

@@ -145,7 +145,8 @@ type FoldedCoverage struct {
 	Waits        int64   `json:"waits"`
 	NoEnqueue    int64   `json:"no_enqueue"`
 	NoStart      int64   `json:"no_start"`
-	Unobservable float64 `json:"unobservable"` // (NoEnqueue + NoStart) / Waits
+	Unobservable float64 `json:"unobservable"`         // (NoEnqueue + NoStart) / Waits
+	MorePairs    bool    `json:"more_pairs,omitempty"` // FoldedWaits.MorePairs
 }
 
 // Resolution is the effective time resolution and the heaping on round
@@ -356,9 +357,9 @@ func (a *Accumulator) Report() *Report {
 	// The case in hand, if the per-case pass has not ended it: a wait
 	// still pending was never started.
 	pendingNoStart := make([]int64, len(a.sites))
-	waitNoStart := make([]int64, len(a.waits))
+	waitNoStart := make([]int64, len(a.waits)+1) // the last: waitBeyond
 	if st := &a.cur; st.id != "" && st.flags&csWaitPending != 0 && st.wait > 0 {
-		waitNoStart[st.wait-1]++
+		waitNoStart[min(st.wait-1, int32(len(a.waits)))]++
 		pendingNoStart[st.site]++
 	}
 	for i, s := range a.sites {
@@ -372,6 +373,10 @@ func (a *Accumulator) Report() *Report {
 		return cmp.Or(cmp.Compare(x.Queue, y.Queue), cmp.Compare(x.Activity, y.Activity))
 	})
 	raw.Waits, raw.WaitsFolded = foldWaits(raw.Waits, nil)
+	if b := a.waitsBeyond; b.waits > 0 {
+		raw.WaitsFolded = raw.WaitsFolded.add(&FoldedWaits{Waits: b.waits, NoEnqueue: b.noEnqueue,
+			NoStart: b.noStart + waitNoStart[len(a.waits)], MorePairs: true})
+	}
 	for c := range numCodes {
 		if len(a.samples[c]) > 0 {
 			raw.Samples[codeNames[c]] = slices.Clone(a.samples[c])

@@ -61,7 +61,7 @@ var (
 // stateMagic opens an encoded quality state; stateVersion follows it.
 const (
 	stateMagic   = "FCQS"
-	stateVersion = 1
+	stateVersion = 2 // 1: no waits beyond the cap (read as none)
 )
 
 // instantShift keeps instants (µs, possibly before 1970) positive in the
@@ -245,11 +245,11 @@ func appendU128(b []byte, u u128) []byte {
 
 // MarshalBinary encodes the case-level state of a, an accumulator used
 // as a case observer only, once its pass has ended; it fails with
-// ErrNotCaseLevel otherwise. The format (version 1), all integers as
+// ErrNotCaseLevel otherwise. The format (version 2), all integers as
 // varints (signed zig-zag, unsigned plain; a string is its length and
 // bytes; a 128-bit sum is its high then low 64 bits):
 //
-//	"FCQS" 0x01
+//	"FCQS" 0x02
 //	options: MaxCase µs, MaxService µs, per-activity maxima (count, then
 //	  activity and µs, by activity), Terminal (count, types), MaxSamples
 //	sites (count), each: name, first case, first position; finding counts
@@ -260,7 +260,8 @@ func appendU128(b []byte, u u128) []byte {
 //	  stays, Σ their entries (shifted by 2^62), arrivals, entries, exits,
 //	  Σ stays
 //	waits (count), each: queue, activity, waits, no enqueue, no start, by
-//	  (queue, activity)
+//	  (queue, activity); then (version 2) the waits, no enqueue and no
+//	  start of the pairs beyond the cap, counted together
 //	samples (count of findings with any), each: code index, count, then
 //	  per sample line, case, site, file, column, field, text, message, 0
 //	  or 1 then instant (Unix seconds, nanoseconds)
@@ -326,6 +327,9 @@ func (a *Accumulator) MarshalBinary() ([]byte, error) {
 		b = binary.AppendVarint(b, w.noEnqueue)
 		b = binary.AppendVarint(b, w.noStart)
 	}
+	b = binary.AppendVarint(b, a.waitsBeyond.waits)
+	b = binary.AppendVarint(b, a.waitsBeyond.noEnqueue)
+	b = binary.AppendVarint(b, a.waitsBeyond.noStart)
 	var nc uint64
 	for c := range numCodes {
 		if len(a.samples[c]) > 0 {
@@ -456,8 +460,9 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 	if len(b) < len(stateMagic)+1 || string(b[:len(stateMagic)]) != stateMagic {
 		return fmt.Errorf("quality: state: %w: no FCQS header", ErrState)
 	}
-	if v := b[len(stateMagic)]; v != stateVersion {
-		return fmt.Errorf("quality: state: %w: version %d, this release reads %d", ErrState, v, stateVersion)
+	v := b[len(stateMagic)]
+	if v != stateVersion && v != 1 {
+		return fmt.Errorf("quality: state: %w: version %d, this release reads 1 and %d", ErrState, v, stateVersion)
 	}
 	fresh := NewAccumulator(a.opt)
 	fresh.seed = a.seed
@@ -533,6 +538,10 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		}
 		fresh.waitIndex[k] = int32(len(fresh.waits))
 		fresh.waits = append(fresh.waits, w)
+	}
+	if v >= 2 {
+		fresh.waitsBeyond = waitAcc{waits: d.nonNegative("waits beyond the cap"), noEnqueue: d.nonNegative("no enqueue beyond the cap"),
+			noStart: d.nonNegative("no start beyond the cap")}
 	}
 	nc := d.count("findings with samples", int(numCodes))
 	for range nc {
@@ -618,18 +627,17 @@ func (a *Accumulator) Merge(o *Accumulator) error {
 	for _, w := range o.waits {
 		i, ok := a.waitIndex[w.key]
 		if !ok {
-			if len(a.waits) >= maxKeys {
-				continue // beyond the cap, as in one pass: not told apart
+			if len(a.waits) < maxKeys {
+				i = int32(len(a.waits))
+				a.waits = append(a.waits, waitAcc{key: w.key})
+				a.waitIndex[w.key] = i
+			} else {
+				i = waitBeyond // beyond the cap, as in one pass: counted together
 			}
-			i = int32(len(a.waits))
-			a.waits = append(a.waits, waitAcc{key: w.key})
-			a.waitIndex[w.key] = i
 		}
-		d := &a.waits[i]
-		d.waits += w.waits
-		d.noEnqueue += w.noEnqueue
-		d.noStart += w.noStart
+		a.waitAt(i).add(&w)
 	}
+	a.waitsBeyond.add(&o.waitsBeyond)
 	a.waitCache = 0
 	for c := range numCodes {
 		if len(o.samples[c]) == 0 {

@@ -561,7 +561,67 @@ func TestMergeKeepsKeysBound(t *testing.T) {
 			t.Fatalf("the first part's pair a%d was dropped", i)
 		}
 	}
-	roundTrip(t, a, opt)
+	// The second part's pairs beyond the cap (a65536..a69999) are not
+	// told apart but still counted: 80,000 waits in all.
+	if b := a.waitsBeyond; b.waits != 70000-maxKeys || b.noStart != 0 {
+		t.Errorf("waits beyond the cap %+v, want %d", b, 70000-maxKeys)
+	}
+	r := a.Report()
+	var listed int64
+	for _, w := range r.Raw.Waits {
+		listed += w.Waits
+	}
+	if f := r.Raw.WaitsFolded; f == nil || !f.MorePairs || !r.WaitsFolded.MorePairs || f.Pairs != maxKeys-ListedWaits || listed+f.Waits != 80000 {
+		t.Errorf("report: %d waits listed, folded %+v; want 80000 in all, %d pairs folded and more", listed, f, maxKeys-ListedWaits)
+	}
+	if d := roundTrip(t, a, opt); d.waitsBeyond != a.waitsBeyond {
+		t.Errorf("decoded waits beyond the cap %+v, want %+v", d.waitsBeyond, a.waitsBeyond)
+	}
+}
+
+// TestWaitsBeyondCapOnePass: one pass over more pairs than the model
+// tells apart counts the waits of the rest together, with their
+// findings, and encodes as the merge of two parts of its cases does.
+func TestWaitsBeyondCapOnePass(t *testing.T) {
+	const pairs = maxKeys + 3000
+	opt := Options{}
+	at := time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)
+	var evs []schema.Event
+	for i := range pairs {
+		c, act := fmt.Sprintf("c%06d", i), fmt.Sprintf("a%06d", i)
+		evs = append(evs, schema.Event{Site: "north", CaseID: c, Type: schema.Enqueue, Queue: "q", Activity: act, OccurredAt: at, Line: int64(len(evs))})
+		if i%2 == 0 { // every other wait never started
+			evs = append(evs, schema.Event{Site: "north", CaseID: c, Type: schema.Start, Queue: "q", Activity: act, OccurredAt: at.Add(time.Minute), Line: int64(len(evs))})
+		}
+	}
+	in := casePassInput(evs, opt)
+	one := observeCases(opt, in)
+	if b := one.waitsBeyond; b.waits != pairs-maxKeys || b.noStart != (pairs-maxKeys)/2 {
+		t.Errorf("waits beyond the cap %+v, want %d, %d never started", b, pairs-maxKeys, (pairs-maxKeys)/2)
+	}
+	r := one.Report()
+	if got := counted(r)[CodeWaitNoStart]; got != pairs/2 {
+		t.Errorf("%s counts %d, want %d", CodeWaitNoStart, got, pairs/2)
+	}
+	// Two parts of the cases (the case pass sees them in case order):
+	// the first 100, and the rest, more pairs than the cap on its own.
+	var lo, hi []schema.Event
+	for _, e := range in {
+		if e.CaseID < "c000100" {
+			lo = append(lo, e)
+		} else {
+			hi = append(hi, e)
+		}
+	}
+	m := observeCases(opt, lo)
+	if err := m.Merge(observeCases(opt, hi)); err != nil {
+		t.Fatal(err)
+	}
+	ob, _ := one.MarshalBinary()
+	mb, _ := m.MarshalBinary()
+	if !bytes.Equal(ob, mb) {
+		t.Errorf("one pass and the merge of its parts encode differently (%d and %d bytes)", len(ob), len(mb))
+	}
 }
 
 // TestReportFoldsWaits: a report lists the ListedWaits (queue, activity)
@@ -643,5 +703,56 @@ func TestReportFoldsWaits(t *testing.T) {
 	}
 	if mf := m.Raw.WaitsFolded; mf == nil || *mf != *f || len(m.Raw.Waits) != ListedWaits {
 		t.Errorf("merged: %d rows, folded %+v; want %+v", len(m.Raw.Waits), mf, f)
+	}
+}
+
+// stateV1Events are the events of testdata/quality-state-v1: waits of
+// three pairs, one never started, one start with no enqueue.
+func stateV1Events() []schema.Event {
+	at := time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)
+	var evs []schema.Event
+	for i := range 9 {
+		c := fmt.Sprintf("c%d", i)
+		q, act := fmt.Sprintf("q%d", i%2), fmt.Sprintf("a%d", i%3)
+		t := at.Add(time.Duration(i) * time.Minute)
+		evs = append(evs, schema.Event{Site: "north", CaseID: c, Type: schema.Arrival, OccurredAt: t, Line: int64(len(evs) + 2)})
+		if i != 4 {
+			evs = append(evs, schema.Event{Site: "north", CaseID: c, Type: schema.Enqueue, Queue: q, Activity: act, OccurredAt: t.Add(time.Minute), Line: int64(len(evs) + 2)})
+		}
+		if i != 7 {
+			evs = append(evs, schema.Event{Site: "north", CaseID: c, Type: schema.Start, Queue: q, Activity: act, OccurredAt: t.Add(3 * time.Minute), Line: int64(len(evs) + 2)})
+			evs = append(evs, schema.Event{Site: "north", CaseID: c, Type: schema.Complete, Queue: q, Activity: act, OccurredAt: t.Add(9 * time.Minute), Line: int64(len(evs) + 2)})
+		}
+		evs = append(evs, schema.Event{Site: "north", CaseID: c, Type: schema.Departure, OccurredAt: t.Add(10 * time.Minute), Line: int64(len(evs) + 2)})
+	}
+	return evs
+}
+
+// TestStateVersion1Read: a state of format 1, written by an earlier
+// release (testdata/quality-state/README.md), reads as the state the same
+// events give today, and encodes as today's.
+func TestStateVersion1Read(t *testing.T) {
+	v1, err := os.ReadFile("../testdata/quality-state/v1.bin")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if v1[4] != 1 {
+		t.Fatalf("testdata state is of format %d, want 1", v1[4])
+	}
+	opt := Options{}
+	want := observeCases(opt, casePassInput(stateV1Events(), opt))
+	got := NewAccumulator(opt)
+	if err := got.UnmarshalBinary(v1); err != nil {
+		t.Fatal(err)
+	}
+	wb, _ := want.MarshalBinary()
+	gb, err := got.MarshalBinary()
+	if err != nil || !bytes.Equal(gb, wb) || gb[4] != stateVersion {
+		t.Errorf("re-encoded (%v):\n%x\nwant\n%x", err, gb, wb)
+	}
+	wr, _ := json.Marshal(want.Report())
+	gr, _ := json.Marshal(got.Report())
+	if !bytes.Equal(gr, wr) {
+		t.Errorf("report of the read state:\n%s\nwant\n%s", gr, wr)
 	}
 }
