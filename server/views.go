@@ -125,8 +125,7 @@ func (s *Server) getSummary(c echo.Context) error {
 				s.summaries.put(key+" gzip", gz)
 			}
 			h.Set(echo.HeaderContentEncoding, "gzip")
-			h.Set(echo.HeaderContentLength, strconv.Itoa(len(gz)))
-			return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, gz)
+			return sendStored(c, gz)
 		}
 		b, ok := s.summaries.get(key + " json")
 		if !ok {
@@ -135,8 +134,7 @@ func (s *Server) getSummary(c echo.Context) error {
 			}
 			s.summaries.put(key+" json", b)
 		}
-		h.Set(echo.HeaderContentLength, strconv.Itoa(len(b)))
-		return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, b)
+		return sendStored(c, b)
 	}
 	v, err := s.cfg.Store.Version(c.Request().Context(), c.Param("project"), c.Param("dataset"), head.Number)
 	if err != nil {
