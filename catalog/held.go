@@ -16,6 +16,7 @@ import (
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
 	"github.com/flowcat-catalog/flowcat/catalog/internal/kway"
+	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -198,8 +199,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	}
 	site := f.sites[e.Site]
 	if site == nil {
-		site = &SiteEventCounts{Site: strings.Clone(e.Site)}
-		f.sites[site.Site] = site
+		site = f.site(e.Site)
 	}
 	f.counts.Read++
 	site.Read++
@@ -303,6 +303,22 @@ func (f *heldFilter) room(t time.Time, hAt int64) bool {
 // held events are compared with the upload's by these 128 bits, not kept.
 func (f *heldFilter) contentSum(rec []byte) [2]uint64 {
 	return [2]uint64{maphash.Bytes(f.sums[0], rec), maphash.Bytes(f.sums[1], rec)}
+}
+
+// site returns the counts of a site not met yet: its own among the first
+// quality.MaxSites met, else those of quality.OtherSite, as the quality
+// report counts them (a free-text column mapped to site would otherwise
+// make the upload record as long as the file).
+func (f *heldFilter) site(name string) *SiteEventCounts {
+	if len(f.sites) >= quality.MaxSites {
+		name = quality.OtherSite
+	}
+	s := f.sites[name]
+	if s == nil {
+		s = &SiteEventCounts{Site: strings.Clone(name)}
+		f.sites[s.Site] = s
+	}
+	return s
 }
 
 // uploadCounts returns the counts for the upload record, sites in order.

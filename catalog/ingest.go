@@ -73,6 +73,9 @@ func (o *IngestOptions) Validate() error {
 			return fmt.Errorf("sites: an empty site name: %w", ErrInvalid)
 		}
 	}
+	if len(o.Sites) > MaxReplacedSites {
+		return fmt.Errorf("sites: %d listed, more than the %d one upload may replace: %w", len(o.Sites), MaxReplacedSites, ErrInvalid)
+	}
 	return nil
 }
 
@@ -451,6 +454,9 @@ func (in *ingest) check(ctx context.Context) (*IngestResult, error) {
 		return in.reject(ctx, ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
 	case in.win.outside > 0:
 		ue := in.win.uploadError()
+		return in.reject(ctx, ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
+	case in.win.overSites > 0:
+		ue := in.win.sitesError()
 		return in.reject(ctx, ue, fmt.Errorf("line %d: %s: %w", ue.Line, ue.Message, ErrRejected))
 	case hf.refusal() != nil:
 		ue := hf.refusal()

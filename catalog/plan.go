@@ -5,8 +5,10 @@ import (
 	"context"
 	"fmt"
 	"io"
+	"maps"
 	"os"
 	"slices"
+	"strings"
 	"sync"
 	"time"
 
@@ -226,14 +228,19 @@ func (s *Store) rewriteWithout(ctx context.Context, ds *Dataset, f FileEntry, ke
 // outside its window or belong to a site it does not replace, and gathers
 // the sites it holds.
 type windowCheck struct {
-	on        bool
-	from, to  int64
-	sites     []string // given; nil means any
-	seen      []string
-	outside   int64
-	firstLine int64
-	firstWhy  string
-	firstCol  schema.Field
+	on       bool
+	from, to int64
+	sites    []string // given; nil means any
+	seen     map[string]bool
+	outside  int64
+	// events naming sites past the first MaxReplacedSites, the first of
+	// them
+	overSites         int64
+	overLine          int64
+	overSite, overWhy string
+	firstLine         int64
+	firstWhy          string
+	firstCol          schema.Field
 }
 
 func newWindowCheck(opt IngestOptions) *windowCheck {
@@ -263,9 +270,34 @@ func (w *windowCheck) observe(e *schema.Event) {
 		}
 		return
 	}
-	if w.sites == nil && !slices.Contains(w.seen, e.Site) {
-		w.seen = append(w.seen, e.Site)
+	if w.sites == nil && !w.seen[e.Site] {
+		if len(w.seen) >= MaxReplacedSites {
+			w.overSites++
+			if w.overLine == 0 || e.Line < w.overLine {
+				w.overLine, w.overSite = e.Line, e.Site
+			}
+			return
+		}
+		if w.seen == nil {
+			w.seen = map[string]bool{}
+		}
+		w.seen[strings.Clone(e.Site)] = true
 	}
+}
+
+// MaxReplacedSites is the most sites one replace-window upload replaces:
+// those it lists, or else those its events name.
+const MaxReplacedSites = 4096
+
+// RuleTooManySites refuses a replace-window upload whose events name more
+// than MaxReplacedSites sites.
+const RuleTooManySites = "too_many_sites"
+
+// sitesError says which event named a site past MaxReplacedSites.
+func (w *windowCheck) sitesError() *UploadError {
+	msg := fmt.Sprintf("site %q is past the %d sites one replace-window upload may replace (%d events of such sites in all); nothing of the upload was kept",
+		truncate(w.overSite, 40), MaxReplacedSites, w.overSites)
+	return &UploadError{Rule: RuleTooManySites, Line: w.overLine, Column: string(schema.FieldSite), Message: msg}
 }
 
 func (w *windowCheck) uploadError() *UploadError {
@@ -277,7 +309,7 @@ func (w *windowCheck) uploadError() *UploadError {
 }
 
 func (w *windowCheck) siteList() []string {
-	out := slices.Clone(w.seen)
+	out := slices.Collect(maps.Keys(w.seen))
 	slices.Sort(out)
 	return out
 }

@@ -31,9 +31,9 @@ const (
 	DefaultMaxEventIDSlots = 1 << 22
 )
 
-// maxSites caps the sites told apart; events of further sites are counted
+// MaxSites caps the sites told apart; events of further sites are counted
 // together under the site name [OtherSite].
-const maxSites = 256
+const MaxSites = 256
 
 // OtherSite is the site name under which events of sites beyond the
 // 256th are counted.
@@ -542,7 +542,7 @@ func (a *Accumulator) site(name string) *siteAcc {
 	}
 	i, ok := a.siteIndex[name]
 	if !ok {
-		if len(a.sites) >= maxSites {
+		if len(a.sites) >= MaxSites {
 			name = OtherSite
 			i, ok = a.siteIndex[name]
 		}

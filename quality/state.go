@@ -475,7 +475,7 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		return fmt.Errorf("quality: state: %w", ErrStateOptions)
 	}
 	d.off += len(fp)
-	ns := d.count("sites", maxSites+1)
+	ns := d.count("sites", MaxSites+1)
 	for range ns {
 		name := d.string("site name")
 		if _, dup := fresh.siteIndex[name]; dup && d.err == nil {
@@ -657,7 +657,7 @@ func siteBefore(x, y *siteAcc) int {
 }
 
 // setSites makes all a's sites, in the order of their first event; beyond
-// maxSites, the sites of the latest first events are counted under
+// MaxSites, the sites of the latest first events are counted under
 // OtherSite, as one pass counts them.
 func (a *Accumulator) setSites(all []*siteAcc) {
 	slices.SortFunc(all, siteBefore)
@@ -670,14 +670,14 @@ func (a *Accumulator) setSites(all []*siteAcc) {
 			named = append(named, s)
 		}
 	}
-	if len(named) > maxSites {
-		for _, s := range named[maxSites:] {
+	if len(named) > MaxSites {
+		for _, s := range named[MaxSites:] {
 			if other == nil {
 				other = &siteAcc{name: OtherSite, firstCase: s.firstCase, firstOrd: s.firstOrd}
 			}
 			addSite(other, s)
 		}
-		named = named[:maxSites]
+		named = named[:MaxSites]
 	}
 	if other != nil {
 		named = append(named, other)
