@@ -112,12 +112,21 @@ func (c countWriter) Write(p []byte) (int, error) {
 // (counted from the file's first row), never across a row group, with a
 // column's page flushed when its buffer is full after a run.
 type columnWriter struct {
-	w       *parquet.GenericWriter[any]
-	max     int64 // rows per row group
-	inGroup int64 // rows in the current row group
-	rows    int64 // rows written
-	vals    []parquet.Value
+	w          *parquet.GenericWriter[any]
+	max        int64 // rows per row group
+	inGroup    int64 // rows in the current row group
+	groupBytes int   // bytes of the current row group's string values
+	rows       int64 // rows written
+	vals       []parquet.Value
 }
+
+// maxGroupBytes ends a row group before its rows do once its string
+// values reach it: parquet-go holds a row group's dictionaries and pages
+// until it is written, so 65,536 rows of long free text (1 KB an activity)
+// would hold 130 MB. An event of the schema's columns takes about 100
+// bytes of strings, one with event attributes a few hundred: their row
+// groups end at 65,536 rows as before, so their bytes do not change.
+const maxGroupBytes = 32 << 20
 
 // writeBatch is the batch of rows whose runs the writer cuts separately
 // (what EventWriter once handed parquet-go per call).
@@ -138,14 +147,19 @@ type fillFunc func(dst []parquet.Value, col, i, j int) ([]parquet.Value, error)
 // write writes n rows, each column's values given by fill.
 func (cw *columnWriter) write(n int, fill fillFunc) error {
 	for i := 0; i < n; {
-		if cw.inGroup == cw.max {
+		if cw.inGroup == cw.max || cw.groupBytes >= maxGroupBytes {
 			if err := cw.w.Flush(); err != nil {
 				return fmt.Errorf("parquet: %w", err)
 			}
-			cw.inGroup = 0
+			cw.inGroup, cw.groupBytes = 0, 0
 		}
 		batchEnd := (cw.rows/writeBatch + 1) * writeBatch
 		run := min(maxRun, int64(n-i), cw.max-cw.inGroup, batchEnd-cw.rows)
+		if cw.inGroup > 0 {
+			// Rows as long as the group's so far, to end it near the bound.
+			per := int64(cw.groupBytes)/cw.inGroup + 1
+			run = max(1, min(run, int64(maxGroupBytes-cw.groupBytes)/per+1))
+		}
 		j := i + int(run)
 		for c, col := range cw.w.ColumnWriters() {
 			vals, err := fill(cw.vals[:0], c, i, j)
@@ -153,6 +167,11 @@ func (cw *columnWriter) write(n int, fill fillFunc) error {
 				return err
 			}
 			cw.vals = vals
+			for k := range vals {
+				if vals[k].Kind() == parquet.ByteArray {
+					cw.groupBytes += len(vals[k].ByteArray())
+				}
+			}
 			if _, err := col.WriteRowValues(vals); err != nil {
 				return fmt.Errorf("parquet: %w", err)
 			}
