@@ -158,13 +158,16 @@ type UploadError struct {
 
 // FileEntry is one Parquet file of a version.
 type FileEntry struct {
-	SHA256   blob.ID   `json:"sha256"`
-	Bytes    int64     `json:"bytes"`
-	Rows     int64     `json:"rows"`
-	Upload   UploadID  `json:"upload"`
-	MinTime  time.Time `json:"min_occurred_at"`
-	MaxTime  time.Time `json:"max_occurred_at"`
-	RowGroup int64     `json:"row_group_rows"`
+	SHA256  blob.ID   `json:"sha256"`
+	Bytes   int64     `json:"bytes"`
+	Rows    int64     `json:"rows"`
+	Upload  UploadID  `json:"upload"`
+	MinTime time.Time `json:"min_occurred_at"`
+	MaxTime time.Time `json:"max_occurred_at"`
+	// RowGroup is the most rows of a row group: a group also ends once
+	// its string values reach 32 MiB (long free text), so readers take
+	// the groups from the file's footer.
+	RowGroup int64 `json:"row_group_rows"`
 	// DerivedFrom names, for a file a replace-window upload rewrote without
 	// some of its rows, the file its upload made (the first of a chain of
 	// rewrites). The rewritten file records it in its metadata too.
