@@ -42,6 +42,16 @@ const OtherSite = "(other)"
 // maxKeys caps the (queue, activity) pairs and the resources told apart.
 const maxKeys = 1 << 16
 
+// maxKeyBytes caps the bytes of the names each of those tables holds
+// (activities, (queue, activity) pairs, resources): long free text in a
+// code column would otherwise hold 65,536 names of any length. Names of
+// 64 bytes reach it at 65,536.
+const maxKeyBytes = 4 << 20
+
+// keyRoom reports whether a table of n names of size bytes in all may
+// take one more of b bytes.
+func keyRoom(n, size, b int) bool { return n < maxKeys && size+b <= maxKeyBytes }
+
 // waitBeyond is the wait index of the pairs beyond maxKeys: their waits
 // are counted together (Accumulator.waitsBeyond).
 const waitBeyond = maxKeys
@@ -198,6 +208,8 @@ type Accumulator struct {
 	waits          []waitAcc
 	waitIndex      map[waitKey]int32
 	waitCache      int32 // index+1 of the last (queue, activity) looked up
+	// the bytes of the names in learned, waits and resources (keyRoom)
+	learnedBytes, waitBytes, resBytes int
 	// waitsBeyond counts the waits of pairs beyond the cap, not told
 	// apart (index waitBeyond).
 	waitsBeyond    waitAcc
@@ -263,9 +275,10 @@ func (a *Accumulator) lostAfter(act int32) int64 {
 func (a *Accumulator) activityIndex(name string) int32 {
 	i, ok := a.learnedIndex[name]
 	if !ok {
-		if len(a.learned) >= maxKeys {
+		if !keyRoom(len(a.learned), a.learnedBytes, len(name)) {
 			return -1
 		}
+		a.learnedBytes += len(name)
 		i = int32(len(a.learned))
 		a.learned = append(a.learned, learnedBound{})
 		a.learnedIndex[strings.Clone(name)] = i
@@ -740,9 +753,10 @@ func (a *Accumulator) resourceCheck(s *siteAcc, ti int, e *schema.Event, at int6
 func (a *Accumulator) resource(id string) int32 {
 	i, ok := a.resIndex[id]
 	if !ok {
-		if len(a.resources) >= maxKeys {
+		if !keyRoom(len(a.resources), a.resBytes, len(id)) {
 			return -1
 		}
+		a.resBytes += len(id)
 		i = int32(len(a.resources))
 		a.resources = append(a.resources, resAcc{})
 		a.resIndex[strings.Clone(id)] = i

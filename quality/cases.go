@@ -570,9 +570,10 @@ func (a *Accumulator) waitOf(e *schema.Event) int32 {
 	}
 	i, ok := a.waitIndex[waitKey{e.Queue, e.Activity}]
 	if !ok {
-		if len(a.waits) >= maxKeys {
+		if !keyRoom(len(a.waits), a.waitBytes, len(e.Queue)+len(e.Activity)) {
 			return waitBeyond
 		}
+		a.waitBytes += len(e.Queue) + len(e.Activity)
 		i = int32(len(a.waits))
 		k := waitKey{strings.Clone(e.Queue), strings.Clone(e.Activity)}
 		a.waits = append(a.waits, waitAcc{key: k})

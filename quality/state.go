@@ -538,6 +538,7 @@ func (a *Accumulator) UnmarshalBinary(b []byte) error {
 		}
 		fresh.waitIndex[k] = int32(len(fresh.waits))
 		fresh.waits = append(fresh.waits, w)
+		fresh.waitBytes += len(k.queue) + len(k.activity)
 	}
 	if v >= 2 {
 		fresh.waitsBeyond = waitAcc{waits: d.nonNegative("waits beyond the cap"), noEnqueue: d.nonNegative("no enqueue beyond the cap"),
@@ -627,7 +628,8 @@ func (a *Accumulator) Merge(o *Accumulator) error {
 	for _, w := range o.waits {
 		i, ok := a.waitIndex[w.key]
 		if !ok {
-			if len(a.waits) < maxKeys {
+			if keyRoom(len(a.waits), a.waitBytes, len(w.key.queue)+len(w.key.activity)) {
+				a.waitBytes += len(w.key.queue) + len(w.key.activity)
 				i = int32(len(a.waits))
 				a.waits = append(a.waits, waitAcc{key: w.key})
 				a.waitIndex[w.key] = i

@@ -756,3 +756,65 @@ func TestStateVersion1Read(t *testing.T) {
 		t.Errorf("report of the read state:\n%s\nwant\n%s", gr, wr)
 	}
 }
+
+// TestKeyBytesBound: names of long free text fill the model's tables by
+// bytes before count: the pairs told apart hold at most maxKeyBytes of
+// names, the waits of the rest are counted together, the state stays
+// small, and one pass encodes as the merge of two parts of its cases.
+func TestKeyBytesBound(t *testing.T) {
+	const pairs = 6000
+	pad := strings.Repeat("x", 1000)
+	opt := Options{}
+	at := time.Date(2026, 3, 2, 0, 0, 0, 0, time.UTC)
+	var evs []schema.Event
+	for i := range pairs {
+		c, act := fmt.Sprintf("c%06d", i), fmt.Sprintf("%06d %s", i, pad)
+		evs = append(evs,
+			schema.Event{Site: "north", CaseID: c, Type: schema.Enqueue, Queue: "q", Activity: act, OccurredAt: at, Line: int64(len(evs))},
+			schema.Event{Site: "north", CaseID: c, Type: schema.Start, Queue: "q", Activity: act, OccurredAt: at.Add(time.Minute), Line: int64(len(evs) + 1)},
+			schema.Event{Site: "north", CaseID: c, Type: schema.Complete, Queue: "q", Activity: act, OccurredAt: at.Add(2 * time.Minute), Line: int64(len(evs) + 2)})
+		at = at.Add(time.Second)
+	}
+	in := casePassInput(evs, opt)
+	one := observeCases(opt, in)
+	per := 1 + 7 + len(pad) // "q" and the activity
+	told := maxKeyBytes / per
+	if len(one.waits) != told || one.waitBytes > maxKeyBytes || one.waitsBeyond.waits != int64(pairs-told) {
+		t.Errorf("%d pairs told apart (%d bytes), %d waits beyond; want %d, at most %d bytes, %d", len(one.waits), one.waitBytes, one.waitsBeyond.waits, told, maxKeyBytes, pairs-told)
+	}
+	var listed int64
+	r := one.Report()
+	for _, w := range r.Raw.Waits {
+		listed += w.Waits
+	}
+	if f := r.Raw.WaitsFolded; f == nil || !f.MorePairs || listed+f.Waits != pairs {
+		t.Errorf("report: %d waits listed, folded %+v; want %d in all", listed, f, pairs)
+	}
+	b, err := one.MarshalBinary()
+	if err != nil || len(b) > maxKeyBytes+1<<20 {
+		t.Errorf("state of %d bytes (%v), want under %d", len(b), err, maxKeyBytes+1<<20)
+	}
+	var lo, hi []schema.Event
+	for _, e := range in {
+		if e.CaseID < "c001000" {
+			lo = append(lo, e)
+		} else {
+			hi = append(hi, e)
+		}
+	}
+	m := observeCases(opt, lo)
+	if err := m.Merge(roundTrip(t, observeCases(opt, hi), opt)); err != nil {
+		t.Fatal(err)
+	}
+	if mb, _ := m.MarshalBinary(); !bytes.Equal(mb, b) {
+		t.Errorf("one pass and the merge of its parts encode differently (%d and %d bytes)", len(b), len(mb))
+	}
+	// The time pass's activity table: the same bound.
+	tp := NewAccumulator(opt)
+	for i := range evs {
+		tp.Observe(&evs[i])
+	}
+	if tp.learnedBytes > maxKeyBytes || len(tp.learned) >= pairs {
+		t.Errorf("time pass: %d activities of %d bytes, want at most %d bytes", len(tp.learned), tp.learnedBytes, maxKeyBytes)
+	}
+}
