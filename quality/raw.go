@@ -230,6 +230,10 @@ type WaitRaw struct {
 // thing an upload stores.
 const ListedWaits = 4096
 
+// ListedWaitBytes is the most bytes of names (queue and activity) the
+// listed pairs hold: long free text lists fewer.
+const ListedWaitBytes = 512 << 10
+
 // FoldedWaits sums the waits of the pairs a report does not list.
 type FoldedWaits struct {
 	Pairs     int64 `json:"pairs"` // the pairs folded of those told apart
@@ -257,24 +261,33 @@ func (f *FoldedWaits) add(o *FoldedWaits) *FoldedWaits {
 	return f
 }
 
-// foldWaits keeps, of more than ListedWaits pairs, those with the most
-// waits, in (queue, activity) order, and adds the others to folded; ws
-// no longer than that is returned as it is.
+// foldWaits keeps, of more than ListedWaits pairs or ListedWaitBytes of
+// their names, those with the most waits, in (queue, activity) order, and
+// adds the others to folded; ws within both is returned as it is.
 func foldWaits(ws []WaitRaw, folded *FoldedWaits) ([]WaitRaw, *FoldedWaits) {
-	if len(ws) <= ListedWaits {
+	size := 0
+	for _, w := range ws {
+		size += len(w.Queue) + len(w.Activity)
+	}
+	if len(ws) <= ListedWaits && size <= ListedWaitBytes {
 		return ws, folded
 	}
 	byName := func(x, y WaitRaw) int {
 		return cmp.Or(cmp.Compare(x.Queue, y.Queue), cmp.Compare(x.Activity, y.Activity))
 	}
 	slices.SortFunc(ws, func(x, y WaitRaw) int { return cmp.Or(cmp.Compare(y.Waits, x.Waits), byName(x, y)) })
-	rest := FoldedWaits{Pairs: int64(len(ws) - ListedWaits)}
-	for _, w := range ws[ListedWaits:] {
+	keep, size := 0, 0
+	for keep < len(ws) && keep < ListedWaits && size+len(ws[keep].Queue)+len(ws[keep].Activity) <= ListedWaitBytes {
+		size += len(ws[keep].Queue) + len(ws[keep].Activity)
+		keep++
+	}
+	rest := FoldedWaits{Pairs: int64(len(ws) - keep)}
+	for _, w := range ws[keep:] {
 		rest.Waits += w.Waits
 		rest.NoEnqueue += w.NoEnqueue
 		rest.NoStart += w.NoStart
 	}
-	ws = slices.Clip(ws[:ListedWaits])
+	ws = slices.Clip(ws[:keep])
 	slices.SortFunc(ws, byName)
 	return ws, folded.add(&rest)
 }

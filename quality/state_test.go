@@ -790,6 +790,10 @@ func TestKeyBytesBound(t *testing.T) {
 	if f := r.Raw.WaitsFolded; f == nil || !f.MorePairs || listed+f.Waits != pairs {
 		t.Errorf("report: %d waits listed, folded %+v; want %d in all", listed, f, pairs)
 	}
+	// The report lists ListedWaitBytes of names at most.
+	if len(r.Raw.Waits) != ListedWaitBytes/per || len(r.Waits) != len(r.Raw.Waits) {
+		t.Errorf("report lists %d pairs (%d raw), want %d: %d bytes of names", len(r.Waits), len(r.Raw.Waits), ListedWaitBytes/per, ListedWaitBytes)
+	}
 	b, err := one.MarshalBinary()
 	if err != nil || len(b) > maxKeyBytes+1<<20 {
 		t.Errorf("state of %d bytes (%v), want under %d", len(b), err, maxKeyBytes+1<<20)
