@@ -91,6 +91,11 @@ var (
 	maxVariants  = MaxVariants
 	maxWorkload  = MaxWorkload
 	maxHandovers = MaxHandovers
+	// The bytes of activity names the directly-follows pairs and the
+	// variants kept may hold (long free text mapped to activity fills a
+	// view by bytes first): far above what real activity names reach.
+	maxFollowBytes  = 2 << 20
+	maxVariantBytes = 8 << 20
 )
 
 // ProcessObserver computes [Process] in the per-case pass. Its state is
@@ -124,6 +129,9 @@ type ProcessObserver struct {
 	// The highest rank kept by the last trim of each map, once trimmed:
 	// a new key of higher rank is never told apart.
 	thrF, thrV, thrW, thrH *keyRank
+	// The bytes of the keys of follows and variants, as far as known
+	// since the last trim: a trim is due past twice the budget.
+	bytesF, bytesV int
 }
 
 type workKey struct {
@@ -148,7 +156,7 @@ func (p *ProcessObserver) Event(e *schema.Event) {
 				k = [2]string{strings.Clone(k[0]), strings.Clone(k[1])}
 				d = newDist()
 				p.follows[k] = d
-				if len(p.follows) > 2*maxFollows {
+				if p.bytesF += pairBytes(k); len(p.follows) > 2*maxFollows || p.bytesF > 2*maxFollowBytes {
 					p.trimFollows()
 				}
 				d = p.follows[k]
@@ -177,7 +185,7 @@ func (p *ProcessObserver) Event(e *schema.Event) {
 			}
 			p.work[k]++
 			if len(p.work) > 2*maxWorkload {
-				p.otherW += trim(p.work, maxWorkload, workRank, &p.thrW)
+				p.otherW += trimCount(p.work, maxWorkload, workRank, &p.thrW)
 			}
 		} else {
 			p.otherW++
@@ -190,7 +198,7 @@ func (p *ProcessObserver) Event(e *schema.Event) {
 				}
 				p.hand[h]++
 				if len(p.hand) > 2*maxHandovers {
-					p.otherH += trim(p.hand, maxHandovers, pairRank, &p.thrH)
+					p.otherH += trimCount(p.hand, maxHandovers, pairRank, &p.thrH)
 				}
 			} else {
 				p.otherH++
@@ -212,10 +220,13 @@ func (p *ProcessObserver) Service(*cases.Service) {}
 func (p *ProcessObserver) Case(*cases.Record) {
 	p.cases++
 	k := strings.Join(p.seq, variantJoiner)
-	if _, ok := p.variants[k]; ok || !above(p.thrV, stringRank(k)) {
-		p.variants[k]++
-		if len(p.variants) > 2*maxVariants {
-			p.otherV += trim(p.variants, maxVariants, stringRank, &p.thrV)
+	if n, ok := p.variants[k]; ok || !above(p.thrV, stringRank(k)) {
+		p.variants[k] = n + 1
+		if !ok {
+			p.bytesV += len(k)
+		}
+		if len(p.variants) > 2*maxVariants || p.bytesV > 2*maxVariantBytes {
+			p.trimVariants()
 		}
 	} else {
 		p.otherV++

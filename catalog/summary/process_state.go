@@ -4,6 +4,7 @@ import (
 	"cmp"
 	"encoding/binary"
 	"maps"
+	"math"
 	"slices"
 )
 
@@ -28,16 +29,27 @@ func workRank(k workKey) keyRank {
 	return keyRank{hashString(s), s}
 }
 
-// above reports whether r ranks above the threshold thr (nil: none yet).
-func above(thr *keyRank, r keyRank) bool { return thr != nil && r.compare(*thr) > 0 }
+// above reports whether r ranks at or above the threshold thr (nil: none
+// yet), the rank of the first key a trim dropped.
+func above(thr *keyRank, r keyRank) bool { return thr != nil && r.compare(*thr) >= 0 }
 
-// trim keeps the limit keys of m of lowest rank, deletes the others and
-// returns their summed counts; *thr becomes the highest rank kept (or
-// stays, when lower). A key above it is never among the lowest limit
-// keys of any union holding m's, so it may go to "other" at once.
-func trim[K comparable](m map[K]uint64, limit int, rank func(K) keyRank, thr **keyRank) uint64 {
-	if len(m) <= limit {
-		return 0
+// trim keeps the keys of m of lowest rank, at most limit of them and of
+// at most budget bytes (size), below *thr, deletes the others and returns
+// their summed counts and the bytes of the keys kept; *thr becomes the
+// rank of the first key dropped (or stays, when lower). The keys of a
+// union ranked below the first key any part dropped are all kept by every
+// part, and the union's keys within the bounds rank below it (those of
+// that part up to it are over a bound already): so a key at or above *thr
+// may go to "other" at once, and a merge trims to exactly what one pass
+// over the union keeps.
+func trim[K comparable](m map[K]uint64, limit, budget int, rank func(K) keyRank, size func(K) int, thr **keyRank) (uint64, int) {
+	total, over := 0, false
+	for k := range m {
+		total += size(k)
+		over = over || *thr != nil && above(*thr, rank(k))
+	}
+	if len(m) <= limit && total <= budget && !over {
+		return 0, total
 	}
 	type kr struct {
 		k K
@@ -48,24 +60,41 @@ func trim[K comparable](m map[K]uint64, limit int, rank func(K) keyRank, thr **k
 		all = append(all, kr{k, rank(k)})
 	}
 	slices.SortFunc(all, func(x, y kr) int { return x.r.compare(y.r) })
+	n, kept := 0, 0
+	for n < len(all) && n < limit && kept+size(all[n].k) <= budget && !above(*thr, all[n].r) {
+		kept += size(all[n].k)
+		n++
+	}
 	var other uint64
-	for _, x := range all[limit:] {
+	for _, x := range all[n:] {
 		other += m[x.k]
 		delete(m, x.k)
 	}
-	if t := all[limit-1].r; *thr == nil || t.compare(**thr) < 0 {
+	if n < len(all) && (*thr == nil || all[n].r.compare(**thr) < 0) {
+		t := all[n].r
 		*thr = &t
 	}
+	return other, kept
+}
+
+// trimCount is trim by count alone, for keys of bounded size.
+func trimCount[K comparable](m map[K]uint64, limit int, rank func(K) keyRank, thr **keyRank) uint64 {
+	other, _ := trim(m, limit, math.MaxInt, rank, func(K) int { return 0 }, thr)
 	return other
 }
 
-// trimFollows trims the directly-follows pairs to the cap.
+func pairBytes(k [2]string) int { return len(k[0]) + len(k[1]) }
+func stringBytes(k string) int  { return len(k) }
+
+// trimFollows trims the directly-follows pairs to their caps.
 func (p *ProcessObserver) trimFollows() {
 	n := make(map[[2]string]uint64, len(p.follows))
 	for k := range p.follows {
 		n[k] = p.followsN[k]
 	}
-	p.otherF += trim(n, maxFollows, pairRank, &p.thrF)
+	other, kept := trim(n, maxFollows, maxFollowBytes, pairRank, pairBytes, &p.thrF)
+	p.otherF += other
+	p.bytesF = kept
 	for k := range p.follows {
 		if _, ok := n[k]; !ok {
 			delete(p.follows, k)
@@ -74,14 +103,19 @@ func (p *ProcessObserver) trimFollows() {
 	}
 }
 
-// normalize trims every view to its cap.
+// trimVariants trims the variants to their caps.
+func (p *ProcessObserver) trimVariants() {
+	other, kept := trim(p.variants, maxVariants, maxVariantBytes, stringRank, stringBytes, &p.thrV)
+	p.otherV += other
+	p.bytesV = kept
+}
+
+// normalize trims every view to its caps.
 func (p *ProcessObserver) normalize() {
-	if len(p.follows) > maxFollows {
-		p.trimFollows()
-	}
-	p.otherV += trim(p.variants, maxVariants, stringRank, &p.thrV)
-	p.otherW += trim(p.work, maxWorkload, workRank, &p.thrW)
-	p.otherH += trim(p.hand, maxHandovers, pairRank, &p.thrH)
+	p.trimFollows()
+	p.trimVariants()
+	p.otherW += trimCount(p.work, maxWorkload, workRank, &p.thrW)
+	p.otherH += trimCount(p.hand, maxHandovers, pairRank, &p.thrH)
 }
 
 // minRank is the lower of two thresholds (nil: none).

@@ -372,6 +372,21 @@ func TestCaseMergeGenerated(t *testing.T) {
 	if p.OtherVariants+uint64(len(p.Variants)) > 600 || cs+p.OtherVariants > 600 {
 		t.Errorf("variants: %d listed cases and %d others of 600", cs, p.OtherVariants)
 	}
+	// Byte budgets lowered (the counts left high), as long free text
+	// mapped to activity reaches them: the views keep the keys of lowest
+	// rank within the bytes, and still merge to the one-pass summary.
+	maxFollows, maxVariants = 1000, 1000
+	defer func(f, v int) { maxFollowBytes, maxVariantBytes = f, v }(maxFollowBytes, maxVariantBytes)
+	maxFollowBytes, maxVariantBytes = 40, 200
+	s = checkCaseMerges(t, Options{}, genEvents(5, 600))
+	p = s.Process
+	var fb int
+	for _, f := range p.DirectlyFollows {
+		fb += len(f.From) + len(f.To)
+	}
+	if p.OtherFollows == 0 || p.OtherVariants == 0 || fb > 40 || len(p.DirectlyFollows) == 0 || p.DistinctVariant == 0 {
+		t.Fatalf("byte budgets not reached: %d pairs of %d bytes (+%d), %d variants (+%d)", len(p.DirectlyFollows), fb, p.OtherFollows, p.DistinctVariant, p.OtherVariants)
+	}
 	// One case per group for a small log.
 	small := genEvents(3, 30)
 	want := summaryJSON(t, caseState(Options{}, small))
