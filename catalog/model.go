@@ -165,7 +165,7 @@ type FileEntry struct {
 	MinTime time.Time `json:"min_occurred_at"`
 	MaxTime time.Time `json:"max_occurred_at"`
 	// RowGroup is the most rows of a row group: a group also ends once
-	// its string values reach 32 MiB (long free text), so readers take
+	// its string values reach 16 MiB (long free text), so readers take
 	// the groups from the file's footer.
 	RowGroup int64 `json:"row_group_rows"`
 	// DerivedFrom names, for a file a replace-window upload rewrote without

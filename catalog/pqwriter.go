@@ -124,9 +124,9 @@ type columnWriter struct {
 // values reach it: parquet-go holds a row group's dictionaries and pages
 // until it is written, so 65,536 rows of long free text (1 KB an activity)
 // would hold 130 MB. An event of the schema's columns takes about 100
-// bytes of strings, one with event attributes a few hundred: their row
-// groups end at 65,536 rows as before, so their bytes do not change.
-const maxGroupBytes = 32 << 20
+// bytes of strings: row groups of rows under 256 bytes end at 65,536
+// rows as before, so their bytes do not change.
+const maxGroupBytes = 16 << 20
 
 // writeBatch is the batch of rows whose runs the writer cuts separately
 // (what EventWriter once handed parquet-go per call).

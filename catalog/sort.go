@@ -67,7 +67,7 @@ const (
 	maxFanIn = 128
 	// maxRunBytes bounds the bytes of the records held in a buffer, so
 	// wide rows (long free text in a mapped column) spill sooner.
-	maxRunBytes = 64 << 20
+	maxRunBytes = 32 << 20
 	// internMaxLen is the longest value the merge interns.
 	internMaxLen = 64
 )
