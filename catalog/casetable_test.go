@@ -2,14 +2,11 @@ package catalog
 
 import (
 	"bytes"
-	"context"
 	"io"
 	"testing"
 	"time"
 
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
 	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
@@ -54,12 +51,12 @@ func TestCaseRowNulls(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	pf, _ := file.NewParquetReader(bytes.NewReader(b))
-	fr, _ := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{BatchSize: 1000}, memory.DefaultAllocator)
-	tbl, err := fr.ReadTable(context.Background())
+	pf, err := file.NewParquetReader(bytes.NewReader(b))
 	if err != nil {
 		t.Fatal(err)
 	}
+	tbl := arrowTable(t, pf)
+	defer tbl.Release()
 	for _, name := range []string{"wait_seconds", "subject_id"} {
 		n := 0
 		for _, c := range tbl.Column(tbl.Schema().FieldIndices(name)[0]).Data().Chunks() {

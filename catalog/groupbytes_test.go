@@ -2,16 +2,13 @@ package catalog
 
 import (
 	"bytes"
-	"context"
 	"fmt"
 	"strings"
 	"testing"
 	"time"
 
 	"github.com/apache/arrow-go/v18/arrow/array"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
 	"github.com/flowcat-catalog/flowcat/schema"
 )
@@ -61,14 +58,7 @@ func TestRowGroupBytesBound(t *testing.T) {
 			t.Errorf("row group %d: %d rows, %d bytes of strings; want the first rows past %d", g, rows, b, maxGroupBytes)
 		}
 	}
-	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{BatchSize: 4096}, memory.DefaultAllocator)
-	if err != nil {
-		t.Fatal(err)
-	}
-	tbl, err := fr.ReadTable(context.Background())
-	if err != nil {
-		t.Fatal(err)
-	}
+	tbl := arrowTable(t, pf)
 	defer tbl.Release()
 	col := tbl.Column(tbl.Schema().FieldIndices("activity")[0])
 	i := 0

@@ -603,24 +603,30 @@ func TestWaitsBeyondCapOnePass(t *testing.T) {
 	if got := counted(r)[CodeWaitNoStart]; got != pairs/2 {
 		t.Errorf("%s counts %d, want %d", CodeWaitNoStart, got, pairs/2)
 	}
-	// Two parts of the cases (the case pass sees them in case order):
-	// the first 100, and the rest, more pairs than the cap on its own.
+	// Two parts of the cases: the first 100, and the rest, more pairs
+	// than the cap on its own.
+	ob, _ := one.MarshalBinary()
+	mergedLikeOnePass(t, opt, in, "c000100", ob)
+}
+
+// mergedLikeOnePass checks that the case-level states of in's cases
+// before cut and from it on, merged, encode as one, one pass's state.
+func mergedLikeOnePass(t *testing.T, opt Options, in []schema.Event, cut string, one []byte) {
+	t.Helper()
 	var lo, hi []schema.Event
-	for _, e := range in {
-		if e.CaseID < "c000100" {
+	for _, e := range in { // in case order, as the case pass sees them
+		if e.CaseID < cut {
 			lo = append(lo, e)
 		} else {
 			hi = append(hi, e)
 		}
 	}
 	m := observeCases(opt, lo)
-	if err := m.Merge(observeCases(opt, hi)); err != nil {
+	if err := m.Merge(roundTrip(t, observeCases(opt, hi), opt)); err != nil {
 		t.Fatal(err)
 	}
-	ob, _ := one.MarshalBinary()
-	mb, _ := m.MarshalBinary()
-	if !bytes.Equal(ob, mb) {
-		t.Errorf("one pass and the merge of its parts encode differently (%d and %d bytes)", len(ob), len(mb))
+	if mb, _ := m.MarshalBinary(); !bytes.Equal(mb, one) {
+		t.Errorf("one pass and the merge of its parts encode differently (%d and %d bytes)", len(one), len(mb))
 	}
 }
 
@@ -798,21 +804,7 @@ func TestKeyBytesBound(t *testing.T) {
 	if err != nil || len(b) > maxKeyBytes+1<<20 {
 		t.Errorf("state of %d bytes (%v), want under %d", len(b), err, maxKeyBytes+1<<20)
 	}
-	var lo, hi []schema.Event
-	for _, e := range in {
-		if e.CaseID < "c001000" {
-			lo = append(lo, e)
-		} else {
-			hi = append(hi, e)
-		}
-	}
-	m := observeCases(opt, lo)
-	if err := m.Merge(roundTrip(t, observeCases(opt, hi), opt)); err != nil {
-		t.Fatal(err)
-	}
-	if mb, _ := m.MarshalBinary(); !bytes.Equal(mb, b) {
-		t.Errorf("one pass and the merge of its parts encode differently (%d and %d bytes)", len(b), len(mb))
-	}
+	mergedLikeOnePass(t, opt, in, "c001000", b)
 	// The time pass's activity table: the same bound.
 	tp := NewAccumulator(opt)
 	for i := range evs {
