@@ -235,12 +235,12 @@ type windowCheck struct {
 	outside  int64
 	// events naming sites past the first MaxReplacedSites, the first of
 	// them
-	overSites         int64
-	overLine          int64
-	overSite, overWhy string
-	firstLine         int64
-	firstWhy          string
-	firstCol          schema.Field
+	overSites int64
+	overLine  int64
+	overSite  string
+	firstLine int64
+	firstWhy  string
+	firstCol  schema.Field
 }
 
 func newWindowCheck(opt IngestOptions) *windowCheck {
