@@ -88,6 +88,16 @@ func stringBytes(k string) int  { return len(k) }
 
 // trimFollows trims the directly-follows pairs to their caps.
 func (p *ProcessObserver) trimFollows() {
+	if p.thrF == nil && len(p.follows) <= maxFollows {
+		size := 0
+		for k := range p.follows {
+			size += pairBytes(k)
+		}
+		if size <= maxFollowBytes {
+			p.bytesF = size
+			return // within both caps, nothing trimmed yet: nothing to do
+		}
+	}
 	n := make(map[[2]string]uint64, len(p.follows))
 	for k := range p.follows {
 		n[k] = p.followsN[k]
