@@ -139,7 +139,8 @@ type WaitCoverage struct {
 }
 
 // FoldedCoverage is the wait coverage of the (queue, activity) pairs a
-// report does not list, beyond the [ListedWaits] with the most waits.
+// report does not list: past the [ListedWaits] (and [ListedWaitBytes]
+// of names) with the most waits, and past those the model tells apart.
 type FoldedCoverage struct {
 	Pairs        int64   `json:"pairs"`
 	Waits        int64   `json:"waits"`
