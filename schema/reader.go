@@ -658,6 +658,10 @@ func (rd *Reader) build(e *Event, line int64) (*Rejection, error) {
 			if strings.IndexByte(v, 0) >= 0 {
 				return rd.nulRejection(line, c.name, f), nil
 			}
+			if len(v) > MaxFieldBytes {
+				return rd.withText(&Rejection{Line: line, Column: c.name, Field: f, Reason: ReasonBadValue,
+					Message: fmt.Sprintf("the value is %d bytes, more than the %d a field may hold (free text mapped to %s?)", len(v), MaxFieldBytes, f)}, v), nil
+			}
 			if v != "" && c.codes != nil {
 				if to, ok := c.codes[v]; ok {
 					v = to
@@ -703,6 +707,11 @@ func (rd *Reader) build(e *Event, line int64) (*Rejection, error) {
 	}
 	return nil, nil
 }
+
+// MaxFieldBytes bounds the value of a schema field: site, queue,
+// activity, codes and identifiers are short names, and the catalog keeps
+// tables of them by name; a longer value is free text in the wrong column.
+const MaxFieldBytes = 4096
 
 // nulRejection refuses a row holding a NUL byte: no field of the schema
 // has a use for one, and C-string tools downstream would cut the value.

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"compress/gzip"
 	"errors"
+	"encoding/json"
 	"fmt"
 	"io"
 	"os"
@@ -929,6 +930,49 @@ func TestRejectionTexts(t *testing.T) {
 		}
 		if tc.notInMessage != "" && (strings.Contains(r.Message, tc.notInMessage) || strings.Contains(r.String(), tc.notInMessage)) {
 			t.Errorf("%s: message %q shows %q", tc.name, r.Message, tc.notInMessage)
+		}
+	}
+}
+
+// TestFieldBytesBound: a field's value longer than MaxFieldBytes is free
+// text in the wrong column: its row is refused (bad_value) naming the
+// length and the bound, quoting a code's text (clipped) but never an
+// identifier's; a value of exactly the bound is kept. CSV and JSON Lines
+// alike.
+func TestFieldBytesBound(t *testing.T) {
+	at := "2026-03-02T08:00:00Z"
+	long := strings.Repeat("free text ", MaxFieldBytes/10+1)[:MaxFieldBytes+1]
+	edge := long[:MaxFieldBytes]
+	csvIn := "site,case_id,event_type,occurred_at,activity\n" +
+		"north,c1,arrival," + at + "," + edge + "\n" +
+		"north,c2,arrival," + at + "," + long + "\n" +
+		"north," + long + ",arrival," + at + ",triage\n"
+	js := func(caseID, act string) string {
+		b, _ := json.Marshal(map[string]string{"site": "north", "case_id": caseID, "event_type": "arrival", "occurred_at": at, "activity": act})
+		return string(b) + "\n"
+	}
+	jsonIn := js("c1", edge) + js("c2", long) + js(long, "triage")
+	jsonl := DefaultProfile().clone()
+	jsonl.Format, jsonl.Delimiter, jsonl.Quote, jsonl.Multiline = FormatJSONL, "", "", nil
+	for _, tc := range []struct {
+		name, in string
+		p        *Profile
+		line     int64 // of the long activity
+	}{
+		{"csv", csvIn, DefaultProfile(), 3}, // after the header
+		{"jsonl", jsonIn, jsonl, 2},
+	} {
+		res := readAll(t, strings.NewReader(tc.in), tc.p)
+		if res.ferr != nil || len(res.events) != 1 || len(res.events[0].Activity) != MaxFieldBytes || len(res.rejs) != 2 {
+			t.Fatalf("%s: %d events, %d rejections, file error %v; want the value of %d bytes kept and two rows refused", tc.name, len(res.events), len(res.rejs), res.ferr, MaxFieldBytes)
+		}
+		act, id := res.rejs[0], res.rejs[1]
+		want := fmt.Sprintf("the value is %d bytes, more than the %d a field may hold", MaxFieldBytes+1, MaxFieldBytes)
+		if act.Reason != ReasonBadValue || act.Line != tc.line || act.Field != FieldActivity || !strings.Contains(act.Message, want) || act.Text == "" || len(act.Text) >= MaxFieldBytes {
+			t.Errorf("%s: activity refusal %+v", tc.name, act)
+		}
+		if id.Reason != ReasonBadValue || id.Field != FieldCaseID || id.Text != "" || strings.Contains(id.Message, "free text free") {
+			t.Errorf("%s: case_id refusal %+v; want no text of an identifier", tc.name, id)
 		}
 	}
 }
