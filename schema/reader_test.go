@@ -3,8 +3,8 @@ package schema
 import (
 	"bytes"
 	"compress/gzip"
-	"errors"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"os"
