@@ -240,8 +240,9 @@ type FoldedWaits struct {
 	Waits     int64 `json:"waits"`
 	NoEnqueue int64 `json:"no_enqueue"`
 	NoStart   int64 `json:"no_start"`
-	// MorePairs: the sums also hold the waits of pairs beyond the
-	// 65,536 the quality model tells apart, which Pairs does not count.
+	// MorePairs: the sums also hold the waits of pairs the quality model
+	// did not tell apart (past 65,536 pairs or 4 MiB of their names),
+	// which Pairs does not count.
 	MorePairs bool `json:"more_pairs,omitempty"`
 }
 
