@@ -180,7 +180,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	if f.src != nil {
 		err := f.src.load(ctx, at-f.around, at+f.around, func(h *schema.Event, file int, row int64) bool {
 			hash := identityHash(f.seed, &f.key, f.id, h)
-			if !f.ids.mayHold(f.key) {
+			if !f.ids.mayHold(hash) {
 				return true
 			}
 			hAt := h.OccurredAt.UnixMicro()
@@ -219,7 +219,7 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 		}
 		return false, nil
 	}
-	if f.ids.repeated(f.key) { // f.key is still e's identity
+	if f.ids.repeated(h) {
 		f.room(e.OccurredAt, at) // always room for the current instant
 		f.seen.add(h, e, f.rec)  // else no later event of the upload is e
 		f.peak = max(f.peak, f.held.cost()+f.seen.cost())

@@ -1,6 +1,7 @@
 package catalog
 
 import (
+	"encoding/binary"
 	"hash/maphash"
 
 	"github.com/bits-and-blooms/bloom/v3"
@@ -9,7 +10,8 @@ import (
 )
 
 // uploadIdentities records, while an upload is read, the identity of each
-// of its events (appendIdentity) in a Bloom filter (bits-and-blooms/bloom)
+// of its events (identityHash: the 64-bit hash of appendIdentity's bytes
+// under its seed, which the held filter computes anyway) in a Bloom filter (bits-and-blooms/bloom)
 // that grows in layers, and the identities it meets a second time in
 // another. The held filter then keeps, of the upload's events, only those
 // whose identity is among these repeats in its window (no other can be
@@ -18,8 +20,9 @@ import (
 // content identity that window is one instant, and the first filter is
 // dropped once the file is read: dropFilter).
 // Each filter answers "maybe" for some identities it never met (at most
-// identityFP of them a layer once full): such an event is kept when it
-// need not be, which costs memory, never a result. Neither answers "no"
+// identityFP of them a layer once full, and those whose 64-bit hash is
+// another's): such an event is kept when it need not be, which costs
+// memory, never a result. Neither answers "no"
 // for one it met, so nothing the window must find is left out.
 //
 // Memory: about 10 bits an identity and 15 a repeat (the layers double,
@@ -69,26 +72,41 @@ func newUploadIdentities(id Identity) *uploadIdentities {
 
 // add records the identity of e, one of the upload's events.
 func (u *uploadIdentities) add(e *schema.Event) {
-	identityHash(u.seed, &u.buf, u.id, e)
-	if u.all.testOrAdd(u.buf) {
-		u.repeats.testOrAdd(u.buf)
+	k := hashKey(identityHash(u.seed, &u.buf, u.id, e))
+	if u.all.testOrAdd(k[:]) {
+		u.repeats.testOrAdd(k[:])
 	}
 }
 
-// mayHold reports whether key (appendIdentity's bytes) may be the
-// identity of one of the upload's events: false only if it is not.
-func (u *uploadIdentities) mayHold(key []byte) bool {
-	return u.dropped || u.all.test(key)
+// mayHold reports whether the identity whose hash (identityHash under the
+// filter's seed) is h may be that of one of the upload's events: false
+// only if it is not.
+func (u *uploadIdentities) mayHold(h uint64) bool {
+	if u.dropped {
+		return true
+	}
+	k := hashKey(h)
+	return u.all.test(k[:])
 }
 
 // dropFilter frees the filter of all identities once the file is read,
 // keeping the repeats; mayHold then answers "maybe" to every identity.
 func (u *uploadIdentities) dropFilter() { u.all, u.dropped = layeredBloom{}, true }
 
-// repeated reports whether key (appendIdentity's bytes) may be the
-// identity of two or more of the upload's events: false only if it is
-// not.
-func (u *uploadIdentities) repeated(key []byte) bool { return u.repeats.test(key) }
+// repeated reports whether the identity whose hash is h may be that of two
+// or more of the upload's events: false only if it is not.
+func (u *uploadIdentities) repeated(h uint64) bool {
+	k := hashKey(h)
+	return u.repeats.test(k[:])
+}
+
+// hashKey is what the filters are given for an identity: its hash's 8
+// bytes, which the library hashes far faster than the identity's own.
+func hashKey(h uint64) [8]byte {
+	var k [8]byte
+	binary.LittleEndian.PutUint64(k[:], h)
+	return k
+}
 
 // layeredBloom is a Bloom filter that grows: layers of doubling capacity
 // (from first), each at the false positive rate fp when full; a key is

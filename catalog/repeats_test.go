@@ -30,10 +30,10 @@ func TestUploadIdentities(t *testing.T) {
 	if len(u.all.layers) < 2 || len(u.repeats.layers) < 2 {
 		t.Fatalf("%d and %d layers for %d identities, %d repeats", len(u.all.layers), len(u.repeats.layers), n, twice)
 	}
-	var key []byte
+	var buf []byte
 	once := 0 // recorded once, taken for a repeat
 	for i := range n {
-		identityHash(u.seed, &key, IdentityEventID, ev("north", i))
+		key := identityHash(u.seed, &buf, IdentityEventID, ev("north", i))
 		if !u.mayHold(key) {
 			t.Fatalf("identity %d recorded, answered no", i)
 		}
@@ -52,7 +52,7 @@ func TestUploadIdentities(t *testing.T) {
 	}
 	maybe, rep := 0, 0
 	for i := range n {
-		identityHash(u.seed, &key, IdentityEventID, ev("south", i)) // another site: never recorded
+		key := identityHash(u.seed, &buf, IdentityEventID, ev("south", i)) // another site: never recorded
 		if u.mayHold(key) {
 			maybe++
 		}
@@ -66,9 +66,9 @@ func TestUploadIdentities(t *testing.T) {
 	t.Logf("%d and %d layers, %d recorded once taken for repeats, %d of %d unseen answered maybe, %d taken for repeats", len(u.all.layers), len(u.repeats.layers), once, maybe, n, rep)
 	// Without its filter it answers "maybe" to anything, and keeps its repeats.
 	u.dropFilter()
-	identityHash(u.seed, &key, IdentityEventID, ev("south", 1))
+	key := identityHash(u.seed, &buf, IdentityEventID, ev("south", 1))
 	unseen := !u.mayHold(key) || u.repeated(key)
-	identityHash(u.seed, &key, IdentityEventID, ev("north", 0))
+	key = identityHash(u.seed, &buf, IdentityEventID, ev("north", 0))
 	if unseen || !u.repeated(key) {
 		t.Error("after dropFilter: an identity never recorded is not a maybe, or the repeats changed")
 	}
