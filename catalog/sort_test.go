@@ -164,7 +164,12 @@ func TestSorterRuns(t *testing.T) {
 // content or lines.
 func TestCaseSorterRuns(t *testing.T) {
 	r := rand.New(rand.NewPCG(5, 6))
-	ids := []string{"case-0001", "case-0001x", "case-0002", "case-00", "c", "", "case-0001\x00", "zz-longer-than-eight"}
+	// Ids that tie in the key's words (the first 32 bytes, zero-padded):
+	// prefixes of each other, a zero byte where the padding is, and ids
+	// alike for 32 bytes or more.
+	w32 := "abcdefghijklmnopqrstuvwxyz012345"
+	ids := []string{"case-0001", "case-0001x", "case-0002", "case-00", "c", "", "case-0001\x00", "zz-longer-than-eight",
+		w32, w32[:31], w32 + "\x00", w32 + "a", w32 + "b", w32 + "a\x00", w32[:31] + "\x00", w32[:24] + "\x00\x00"}
 	types := []schema.EventType{schema.Arrival, schema.Start, schema.Complete, schema.Departure}
 	var in []schema.Event
 	for range 3000 {
