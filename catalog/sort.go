@@ -185,14 +185,8 @@ func (b *runBuf) add(e *schema.Event, byCase bool) {
 	p += k + len(e.Site)
 	_, k = binary.Uvarint(b.recs[p:])
 	p += k
-	id := e.CaseID
-	ck := caseKey{idOff: uint32(p), idLen: uint32(len(id)),
-		sec: t.Unix(), nsec: int32(t.Nanosecond()), rank: int8(e.Type.Rank()), off: uint32(off)}
-	for i := range ck.pre {
-		ck.pre[i] = prefix8(id)
-		id = id[min(8, len(id)):]
-	}
-	b.caseKeys = append(b.caseKeys, ck)
+	b.caseKeys = append(b.caseKeys, caseKey{pre: prefix8(e.CaseID), idOff: uint32(p), idLen: uint32(len(e.CaseID)),
+		sec: t.Unix(), nsec: int32(t.Nanosecond()), rank: int8(e.Type.Rank()), off: uint32(off)})
 }
 
 // record returns the record at off, its length included.
@@ -234,12 +228,9 @@ func closingFirst(t schema.EventType) int8 {
 	return 1
 }
 
-// caseKeyWords is how many 8-byte words of its case id a caseKey holds.
-const caseKeyWords = 4
-
 // caseKey is what a sorter by case sorts its buffer by.
 type caseKey struct {
-	pre          [caseKeyWords]uint64 // the id's first 32 bytes, big-endian, zero-padded: a pseudonym's 26 all here
+	pre          uint64 // the id's first 8 bytes, big-endian, zero-padded: most comparisons end here
 	sec          int64
 	idOff, idLen uint32 // the case id's bytes in the buffer's records
 	nsec         int32
@@ -296,17 +287,11 @@ func (s *sorter) order(b *runBuf, w *spillWork) ([]uint32, error) {
 		// read no record; full ties decode both and fall back to
 		// cases.Less.
 		slices.SortFunc(b.caseKeys, func(x, y caseKey) int {
-			for i := range x.pre {
-				if x.pre[i] != y.pre[i] {
-					return cmp.Compare(x.pre[i], y.pre[i])
-				}
+			if x.pre != y.pre {
+				return cmp.Compare(x.pre, y.pre)
 			}
-			if x.idLen != y.idLen || x.idLen > 8*caseKeyWords {
-				// Equal in their first 32 bytes, zero-padded: a shorter id
-				// is a prefix of the longer, or both go on.
-				if c := bytes.Compare(b.recs[x.idOff:x.idOff+x.idLen], b.recs[y.idOff:y.idOff+y.idLen]); c != 0 {
-					return c
-				}
+			if c := bytes.Compare(b.recs[x.idOff:x.idOff+x.idLen], b.recs[y.idOff:y.idOff+y.idLen]); c != 0 {
+				return c
 			}
 			if x.sec != y.sec {
 				return cmp.Compare(x.sec, y.sec)
