@@ -10,6 +10,7 @@ import (
 	"errors"
 	"fmt"
 	"os"
+	"runtime"
 	"slices"
 	"strings"
 	"sync"
@@ -95,6 +96,7 @@ type Authority struct {
 	keys     *KeySet
 	stamp    time.Time // modification time of keysPath when read
 	size     int64
+	watch    *keyWatch // nil: the stamp is read on every request
 
 	seenOnce sync.Once
 	seen     *lru.Cache[string, verified] // tokens verified before (remembered)
@@ -115,6 +117,10 @@ func NewAuthority(key []byte, issuer string) *Authority {
 // (nil for none).
 func OpenAuthority(keysPath string, legacy []byte, issuer string) (*Authority, error) {
 	a := &Authority{legacy: legacy, issuer: issuer, now: time.Now, keysPath: keysPath}
+	// Watched before the first reading, so that no change after it is missed.
+	if a.watch = newKeyWatch(keysPath); a.watch != nil {
+		runtime.AddCleanup(a, (*keyWatch).close, a.watch)
+	}
 	if _, err := a.keySet(); err != nil {
 		return nil, err
 	}
@@ -122,17 +128,36 @@ func OpenAuthority(keysPath string, legacy []byte, issuer string) (*Authority, e
 }
 
 // keySet returns the current key set, reading the file again when its
-// modification time or size changed.
+// modification time or size changed. Where the key file's folder is
+// watched (keywatch_linux.go), the stamp is read only after the watch saw
+// an event for the file.
 func (a *Authority) keySet() (*KeySet, error) {
 	if a.keysPath == "" {
 		a.mu.Lock()
 		defer a.mu.Unlock()
 		return a.keys, nil
 	}
+	if a.watch != nil { // set when made, never changed
+		// Under the lock: a request that finds the queue drained by
+		// another waits for that one's reading of the file.
+		a.mu.Lock()
+		defer a.mu.Unlock()
+		if changed, err := a.watch.changed(); err == nil && !changed && a.keys != nil {
+			return a.keys, nil
+		}
+		fi, err := os.Stat(a.keysPath)
+		return a.loadKeys(fi, err)
+	}
 	fi, err := os.Stat(a.keysPath) // outside the lock: requests do not queue on the syscall
 	a.mu.Lock()
 	defer a.mu.Unlock()
-	if err == nil && a.keys != nil && fi.ModTime().Equal(a.stamp) && fi.Size() == a.size {
+	return a.loadKeys(fi, err)
+}
+
+// loadKeys reads the key file again unless its stamp (fi, or statErr) is
+// the one read last; a.mu held.
+func (a *Authority) loadKeys(fi os.FileInfo, statErr error) (*KeySet, error) {
+	if statErr == nil && a.keys != nil && fi.ModTime().Equal(a.stamp) && fi.Size() == a.size {
 		return a.keys, nil
 	}
 	ks, err := LoadKeySet(a.keysPath)
