@@ -232,10 +232,20 @@ func (s *Server) accessLog(next echo.HandlerFunc) echo.HandlerFunc {
 		}
 		// The path names projects, datasets and versions only; query
 		// strings are not logged.
-		s.cfg.Logger.LogAttrs(req.Context(), slog.LevelInfo, "request", slog.String("method", req.Method), slog.String("path", req.URL.Path),
+		// The record is handed to the handler directly: Logger.LogAttrs
+		// would also walk the stack for the caller's position, which an
+		// access log line does not print (about 1.5% of a small answer's
+		// CPU).
+		ctx, h := req.Context(), s.cfg.Logger.Handler()
+		if !h.Enabled(ctx, slog.LevelInfo) {
+			return nil
+		}
+		rec := slog.NewRecord(time.Now(), slog.LevelInfo, "request", 0)
+		rec.AddAttrs(slog.String("method", req.Method), slog.String("path", req.URL.Path),
 			slog.Int("status", c.Response().Status), slog.Int64("bytes", c.Response().Size),
 			slog.Int64("ms", time.Since(start).Milliseconds()), slog.String("sub", sub),
 			slog.String("id", c.Response().Header().Get(echo.HeaderXRequestID)))
+		h.Handle(ctx, rec) //nolint:errcheck // as Logger.LogAttrs: a log line that cannot be written is dropped
 		return nil
 	}
 }
