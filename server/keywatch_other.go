@@ -6,6 +6,6 @@ package server
 // read on every request.
 type keyWatch struct{}
 
-func newKeyWatch(string) *keyWatch          { return nil }
+func newKeyWatch(string) *keyWatch         { return nil }
 func (w *keyWatch) changed() (bool, error) { return true, nil }
-func (w *keyWatch) close()                  {}
+func (w *keyWatch) close()                 {}
