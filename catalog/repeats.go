@@ -11,9 +11,9 @@ import (
 
 // uploadIdentities records, while an upload is read, the identity of each
 // of its events (identityHash: the 64-bit hash of appendIdentity's bytes
-// under its seed, which the held filter computes anyway) in a Bloom filter (bits-and-blooms/bloom)
-// that grows in layers, and the identities it meets a second time in
-// another. The held filter then keeps, of the upload's events, only those
+// under its seed, which the held filter computes anyway) in a Bloom
+// filter (bits-and-blooms/bloom) that grows in layers, and the identities
+// it meets a second time in another. The held filter then keeps, of the upload's events, only those
 // whose identity is among these repeats in its window (no other can be
 // found there again), and, with stable event ids, takes into its window
 // of held events only those whose identity the upload may have (with
@@ -22,8 +22,8 @@ import (
 // Each filter answers "maybe" for some identities it never met (at most
 // identityFP of them a layer once full, and those whose 64-bit hash is
 // another's): such an event is kept when it need not be, which costs
-// memory, never a result. Neither answers "no"
-// for one it met, so nothing the window must find is left out.
+// memory, never a result. Neither answers "no" for one it met, so nothing
+// the window must find is left out.
 //
 // Memory: about 10 bits an identity and 15 a repeat (the layers double,
 // so at most twice that; 1.3 MB at least), and at most 24 MiB in all.
@@ -101,7 +101,8 @@ func (u *uploadIdentities) repeated(h uint64) bool {
 }
 
 // hashKey is what the filters are given for an identity: its hash's 8
-// bytes, which the library hashes far faster than the identity's own.
+// bytes, which the library hashes in one block rather than the whole
+// identity again (most of a filter's cost is then its memory reads).
 func hashKey(h uint64) [8]byte {
 	var k [8]byte
 	binary.LittleEndian.PutUint64(k[:], h)
