@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"runtime"
 	"strings"
 	"sync"
 	"time"
@@ -205,10 +206,14 @@ func (g *auditGroup) record(db *metaDB, e AuditEntry) error {
 			return d.err
 		}
 	}
+	g.gather()
 	g.mu.Lock()
 	group := g.pending
 	g.pending = nil
 	g.mu.Unlock()
+	if testHookAuditGroup != nil {
+		testHookAuditGroup(len(group))
+	}
 	err := g.commit(db, group)
 	for _, x := range group {
 		if x != w {
@@ -226,6 +231,32 @@ func (g *auditGroup) record(db *metaDB, e AuditEntry) error {
 	g.mu.Unlock()
 	return err
 }
+
+// gather lets the goroutines ready to run before the leader (requests a
+// moment from their own entries) join its group: it yields while the
+// group grows, at most auditGatherYields times. Yielding waits for no
+// timer: a lone entry is committed after one yield that finds nothing
+// else to run. Under wrk's 16 connections downloading one file, groups
+// went from 3.9 to 8.2 entries a sync (DEVELOPERS.md, stop 36).
+func (g *auditGroup) gather() {
+	n := 0
+	for i := range auditGatherYields {
+		g.mu.Lock()
+		m := len(g.pending)
+		g.mu.Unlock()
+		if i > 0 && m == n {
+			return
+		}
+		n = m
+		runtime.Gosched()
+	}
+}
+
+// testHookAuditGroup, when set by a test, is told each group's size.
+var testHookAuditGroup func(int)
+
+// auditGatherYields bounds the leader's yields before it commits.
+const auditGatherYields = 4
 
 // commit makes a group durable: appended to the journal, folding it into
 // the bucket when enough is pending, or, without a journal that works, in

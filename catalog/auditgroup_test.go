@@ -3,6 +3,7 @@ package catalog
 import (
 	"context"
 	"fmt"
+	"runtime"
 	"sync"
 	"testing"
 )
@@ -70,5 +71,47 @@ func TestAuditGroups(t *testing.T) {
 		if err == nil {
 			t.Error("an entry recorded in a closed catalog reported no error")
 		}
+	}
+}
+
+// TestAuditGroupGathers: callers that are ready to run when a group's
+// leader takes the lead join its group (gather) instead of waiting for
+// the next sync. On one P, 16 callers released at once make one group of
+// all 16 at most a few; without gathering, the leader would commit its
+// own entry alone first.
+func TestAuditGroupGathers(t *testing.T) {
+	e := newEnv(t, nil)
+	ctx := context.Background()
+	var mu sync.Mutex
+	var sizes []int
+	testHookAuditGroup = func(n int) { mu.Lock(); sizes = append(sizes, n); mu.Unlock() }
+	defer func() { testHookAuditGroup = nil }()
+	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(1))
+	const callers = 16
+	var wg sync.WaitGroup
+	start := make(chan struct{})
+	errs := make(chan error, callers)
+	for c := range callers {
+		wg.Go(func() {
+			<-start
+			errs <- e.s.RecordAudit(ctx, AuditEntry{Action: "version.download", Project: "p", Dataset: "d", Detail: fmt.Sprintf("caller %d", c)})
+		})
+	}
+	close(start)
+	wg.Wait()
+	close(errs)
+	for err := range errs {
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	mu.Lock()
+	defer mu.Unlock()
+	total := 0
+	for _, n := range sizes {
+		total += n
+	}
+	if total != callers || sizes[0] < callers/2 {
+		t.Errorf("groups %v: want %d entries in all, the first group at least %d", sizes, callers, callers/2)
 	}
 }
