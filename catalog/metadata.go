@@ -1,7 +1,9 @@
 package catalog
 
 import (
+	"bytes"
 	"context"
+	"encoding/json"
 	"fmt"
 	"net/url"
 	"regexp"
@@ -237,12 +239,56 @@ func (s *Store) SetDatasetMetadata(ctx context.Context, project, dataset string,
 		if err != nil {
 			return err
 		}
-		return putJSON(b, key, &m)
+		var old DatasetMetadata
+		if v := b.Get(key); v != nil {
+			if err := json.Unmarshal(v, &old); err != nil {
+				return fmt.Errorf("dataset %s/%s: stored metadata: %w", project, dataset, err)
+			}
+		}
+		if err := putJSON(b, key, &m); err != nil {
+			return err
+		}
+		return appendAudit(tx, withActor(ctx, AuditEntry{At: m.UpdatedAt, By: by, Action: "dataset.metadata", Project: project,
+			Dataset: dataset, Target: string(key), Detail: metadataChanges(&old, &m)}))
 	})
 	if err != nil {
 		return nil, err
 	}
 	return &m, nil
+}
+
+// metadataChanges names the members of the metadata that differ between
+// old and m, in JSON order: the audit entry's detail (names only: the
+// values, persons' names among them, stay in the metadata).
+func metadataChanges(old, m *DatasetMetadata) string {
+	var changed []string
+	for _, f := range []struct {
+		name string
+		a, b any
+	}{
+		{"creators", old.Creators, m.Creators},
+		{"publisher", old.Publisher, m.Publisher},
+		{"license", old.License, m.License},
+		{"description", old.Description, m.Description},
+		{"keywords", old.Keywords, m.Keywords},
+		{"related_identifiers", old.RelatedIdentifiers, m.RelatedIdentifiers},
+	} {
+		a, _ := json.Marshal(f.a)
+		b, _ := json.Marshal(f.b)
+		if !bytes.Equal(a, b) && !(isEmptyJSON(a) && isEmptyJSON(b)) {
+			changed = append(changed, f.name)
+		}
+	}
+	if len(changed) == 0 {
+		return "no member changed"
+	}
+	return "set " + strings.Join(changed, ", ")
+}
+
+// isEmptyJSON: an absent member, as its stored form leaves it out.
+func isEmptyJSON(b []byte) bool {
+	s := string(b)
+	return s == "null" || s == "[]" || s == `""`
 }
 
 // DatasetMetadata returns a dataset's metadata: the zero value when none

@@ -10,6 +10,7 @@ import (
 	"testing"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/server/api"
 )
 
 // TestDatasetMetadata: a curator sets a dataset's DataCite metadata; it is
@@ -55,6 +56,33 @@ func TestDatasetMetadata(t *testing.T) {
 	if got.License != "CC-BY-4.0" || len(got.Keywords) != 2 || got.UpdatedBy != "curator-clinic" {
 		t.Errorf("stored %+v: want the SPDX spelling CC-BY-4.0, keywords once each", got)
 	}
+	// Each setting is a change of the catalog, so an entry of the audit
+	// trail: who, on which dataset, the members changed, none of their
+	// values (a person's name among them).
+	changeLicense := map[string]any{}
+	for k, v := range meta {
+		changeLicense[k] = v
+	}
+	changeLicense["license"] = "CC0-1.0"
+	e.mustStatus(e.postJSON(ds+"/metadata", curator, changeLicense), http.StatusOK, "change the license")
+	e.mustStatus(e.postJSON(ds+"/metadata", curator, changeLicense), http.StatusOK, "the same again")
+	var page api.AuditPage
+	e.decode(e.get("/api/v1/audit?limit=1000&action=dataset.metadata", curator), &page)
+	var details []string
+	for _, a := range page.Entries {
+		if a.Dataset != "visits" || a.Target != "clinic/visits" || a.By != "curator-clinic" || a.Role != "curator" {
+			t.Errorf("metadata entry %+v", a)
+		}
+		if strings.Contains(a.Detail, "Quill") || strings.Contains(a.Detail, "CC0") {
+			t.Errorf("metadata entry holds a value: %q", a.Detail)
+		}
+		details = append(details, a.Detail)
+	}
+	want := []string{"set creators, publisher, license, description, keywords, related_identifiers", "set license", "no member changed"}
+	if strings.Join(details, "|") != strings.Join(want, "|") {
+		t.Errorf("metadata entries %q, want %q", details, want)
+	}
+	e.mustStatus(e.postJSON(ds+"/metadata", curator, meta), http.StatusOK, "the license back")
 
 	for _, bad := range []struct {
 		change func(map[string]any)
