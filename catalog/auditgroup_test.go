@@ -16,25 +16,7 @@ func TestAuditGroups(t *testing.T) {
 	e := newEnv(t, nil)
 	ctx := context.Background()
 	const callers, each = 32, 20
-	var wg sync.WaitGroup
-	start := make(chan struct{})
-	errs := make(chan error, callers*each)
-	for c := range callers {
-		wg.Go(func() {
-			<-start
-			for i := range each {
-				errs <- e.s.RecordAudit(ctx, AuditEntry{Action: "version.download", Project: "p", Dataset: "d", Detail: fmt.Sprintf("caller %d entry %d", c, i)})
-			}
-		})
-	}
-	close(start)
-	wg.Wait()
-	close(errs)
-	for err := range errs {
-		if err != nil {
-			t.Fatal(err)
-		}
-	}
+	recordAtOnce(t, e, callers, each)
 	all, err := e.s.Audit(ctx)
 	if err != nil {
 		t.Fatal(err)
@@ -61,6 +43,7 @@ func TestAuditGroups(t *testing.T) {
 	if err := e.s.Close(); err != nil {
 		t.Fatal(err)
 	}
+	var wg sync.WaitGroup
 	failed := make(chan error, callers)
 	for range callers {
 		wg.Go(func() { failed <- e.s.RecordAudit(ctx, AuditEntry{Action: "version.download"}) })
@@ -81,20 +64,37 @@ func TestAuditGroups(t *testing.T) {
 // own entry alone first.
 func TestAuditGroupGathers(t *testing.T) {
 	e := newEnv(t, nil)
-	ctx := context.Background()
 	var mu sync.Mutex
 	var sizes []int
 	testHookAuditGroup = func(n int) { mu.Lock(); sizes = append(sizes, n); mu.Unlock() }
 	defer func() { testHookAuditGroup = nil }()
 	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(1))
 	const callers = 16
+	recordAtOnce(t, e, callers, 1)
+	mu.Lock()
+	defer mu.Unlock()
+	total := 0
+	for _, n := range sizes {
+		total += n
+	}
+	if total != callers || sizes[0] < callers/2 {
+		t.Errorf("groups %v: want %d entries in all, the first group at least %d", sizes, callers, callers/2)
+	}
+}
+
+// recordAtOnce has callers goroutines, released together, record each
+// entries ("caller C entry I"), and fails the test on any error.
+func recordAtOnce(t *testing.T, e *env, callers, each int) {
+	t.Helper()
 	var wg sync.WaitGroup
 	start := make(chan struct{})
-	errs := make(chan error, callers)
+	errs := make(chan error, callers*each)
 	for c := range callers {
 		wg.Go(func() {
 			<-start
-			errs <- e.s.RecordAudit(ctx, AuditEntry{Action: "version.download", Project: "p", Dataset: "d", Detail: fmt.Sprintf("caller %d", c)})
+			for i := range each {
+				errs <- e.s.RecordAudit(context.Background(), AuditEntry{Action: "version.download", Project: "p", Dataset: "d", Detail: fmt.Sprintf("caller %d entry %d", c, i)})
+			}
 		})
 	}
 	close(start)
@@ -104,14 +104,5 @@ func TestAuditGroupGathers(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-	}
-	mu.Lock()
-	defer mu.Unlock()
-	total := 0
-	for _, n := range sizes {
-		total += n
-	}
-	if total != callers || sizes[0] < callers/2 {
-		t.Errorf("groups %v: want %d entries in all, the first group at least %d", sizes, callers, callers/2)
 	}
 }
