@@ -59,9 +59,9 @@ func TestAuditGroups(t *testing.T) {
 
 // TestAuditGroupGathers: callers that are ready to run when a group's
 // leader takes the lead join its group (gather) instead of waiting for
-// the next sync. On one P, 16 callers released at once make one group of
-// all 16 at most a few; without gathering, the leader would commit its
-// own entry alone first.
+// the next sync. On one P, 16 callers released at once make a first group
+// of at least 8 (all 16 here); without gathering, the leader commits its
+// own entry alone, and so does each next one (16 groups of one).
 func TestAuditGroupGathers(t *testing.T) {
 	e := newEnv(t, nil)
 	var mu sync.Mutex
