@@ -420,7 +420,6 @@ type siteAcc struct {
 	hasAt     bool
 	firstAt   int64 // µs, absolute
 	lastAt    int64
-	censusMin int64
 	area      u128  // case·µs of closed stays
 	openN     int64 // cases still in the system at their last event
 	openEntry u128  // Σ of their entry instants, each shifted by instantShift (µs)

@@ -189,7 +189,7 @@ func deriveSite(s *SiteRaw, set *Settings, zone *time.Location) siteDerived {
 	}
 	// Little's law.
 	c := &s.Census
-	l := LittleLaw{Site: s.Site, SpanHours: c.SpanSeconds / 3600, Entries: c.Entries, Exits: c.Exits, CensusMin: c.Min}
+	l := LittleLaw{Site: s.Site, SpanHours: c.SpanSeconds / 3600, Entries: c.Entries, Exits: c.Exits}
 	if c.SpanSeconds > 0 {
 		l.L = c.AreaCaseSeconds / c.SpanSeconds
 		l.Lambda = float64(c.Entries) / l.SpanHours

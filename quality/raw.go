@@ -201,7 +201,6 @@ type CensusRaw struct {
 	Entries         int64   `json:"entries"`           // stays begun (see cases.Record.Stays)
 	Exits           int64   `json:"exits"`             // stays ended by an exit (cases.Exits)
 	StayedSeconds   float64 `json:"stayed_seconds"`    // Σ stays, an open one ending at its case's last event
-	Min             int64   `json:"min"`
 }
 
 // LagRaw is the histogram of lags from event to upload, by bucket
@@ -471,7 +470,6 @@ func addMap[K comparable](dst, src map[K]int64) {
 }
 
 func mergeSite(d, s *SiteRaw) {
-	first := d.Events == 0 && d.First == nil
 	d.Events += s.Events
 	addMap(d.Counts, s.Counts)
 	d.AccuracyRows += s.AccuracyRows
@@ -507,9 +505,6 @@ func mergeSite(d, s *SiteRaw) {
 	c.Entries += s.Census.Entries
 	c.Exits += s.Census.Exits
 	c.StayedSeconds += s.Census.StayedSeconds
-	if first || s.Census.Min < c.Min {
-		c.Min = s.Census.Min
-	}
 	d.Lag.N += s.Lag.N
 	d.Lag.MaxSeconds = max(d.Lag.MaxSeconds, s.Lag.MaxSeconds)
 	if d.Lag.Buckets == nil {

@@ -191,7 +191,6 @@ type LittleLaw struct {
 	W         float64 `json:"w"`
 	LambdaW   float64 `json:"lambda_w"`
 	Ratio     float64 `json:"ratio"` // L / (λ·W); 0 when λ·W is 0
-	CensusMin int64   `json:"census_min"`
 }
 
 // SiteCurrentness is the lag and the gaps of one site.
@@ -473,7 +472,7 @@ func (a *Accumulator) siteRaw(s *siteAcc, stages stageCounts, pendingNoStart int
 		}
 		r.Census = CensusRaw{
 			SpanSeconds: float64(s.lastAt-s.firstAt) / 1e6, AreaCaseSeconds: microsToSeconds(area),
-			Entries: s.entries, Exits: s.exits, StayedSeconds: microsToSeconds(stayed), Min: s.censusMin,
+			Entries: s.entries, Exits: s.exits, StayedSeconds: microsToSeconds(stayed),
 		}
 	}
 	r.Lag = LagRaw{N: s.lagN, MaxSeconds: s.lagMax, Buckets: map[int]int64{}}
