@@ -1,7 +1,6 @@
 package server
 
 import (
-	"bytes"
 	"errors"
 	"path/filepath"
 	"unsafe"
@@ -14,17 +13,21 @@ import (
 // the watch's queue, which the kernel fills within the call that renames,
 // writes or removes the file, so a change the command line has finished
 // is seen by the next request (as a stat of the file would, at a fraction
-// of its cost on every request).
+// of its cost on every request). Any event of the folder counts, not only
+// those naming the file: a mounted secret's files are symbolic links
+// through a link its update renames, and the folder's other files are
+// written in place (the catalog, the audit journal), which it does not
+// ask for. A key file that is itself a symbolic link is not watched
+// (Authority.keySet): its target's folder is elsewhere.
 type keyWatch struct {
-	fd   int
-	name []byte
-	buf  [4096]byte
+	fd  int
+	buf [4096]byte
 }
 
 // keyWatchMask: the ways a file's content can change under its name in a
 // folder (KeySet.Save renames a finished file over it; an editor may
-// write it in place and close it). Writes to other files of the folder
-// while they stay open (the catalog, the audit journal) are not asked for.
+// write it in place and close it). Writes to files that stay open (the
+// catalog, the audit journal) are not asked for.
 const keyWatchMask = unix.IN_CLOSE_WRITE | unix.IN_MOVED_TO | unix.IN_MOVED_FROM | unix.IN_CREATE |
 	unix.IN_DELETE | unix.IN_ATTRIB | unix.IN_DELETE_SELF | unix.IN_MOVE_SELF
 
@@ -39,15 +42,15 @@ func newKeyWatch(path string) *keyWatch {
 		unix.Close(fd)
 		return nil
 	}
-	return &keyWatch{fd: fd, name: []byte(filepath.Base(path))}
+	return &keyWatch{fd: fd}
 }
 
 // errWatchLost means the watch can no longer be trusted: its queue
 // overflowed, or the folder itself went.
 var errWatchLost = errors.New("key file watch lost")
 
-// changed drains the queue and reports whether any event may concern the
-// file; an error means the watch is lost (and closed).
+// changed drains the queue and reports whether it held any event; an
+// error means the watch is lost (and closed).
 func (w *keyWatch) changed() (bool, error) {
 	if w.fd < 0 {
 		return true, errWatchLost
@@ -67,15 +70,12 @@ func (w *keyWatch) changed() (bool, error) {
 		}
 		for off := 0; off+unix.SizeofInotifyEvent <= n; {
 			ev := (*unix.InotifyEvent)(unsafe.Pointer(&w.buf[off]))
-			name := w.buf[off+unix.SizeofInotifyEvent : off+unix.SizeofInotifyEvent+int(ev.Len)]
 			off += unix.SizeofInotifyEvent + int(ev.Len)
 			if ev.Mask&(unix.IN_Q_OVERFLOW|unix.IN_IGNORED|unix.IN_DELETE_SELF|unix.IN_MOVE_SELF) != 0 {
 				w.close()
 				return true, errWatchLost
 			}
-			if bytes.Equal(bytes.TrimRight(name, "\x00"), w.name) {
-				hit = true
-			}
+			hit = true
 		}
 	}
 }

@@ -8,10 +8,10 @@ import (
 )
 
 // TestKeyWatch: the key file's watch answers "changed" within the call
-// that replaced, rewrote, touched or removed the file (so a retirement the
-// command line finished holds for the next request), "unchanged" for
-// other files of the folder written while open and for files in its
-// subfolders, and a lost watch falls back to reading the stamp.
+// that replaced, rewrote or touched the file (so a retirement the command
+// line finished holds for the next request), "unchanged" for files of the
+// folder written while open and for files in its subfolders; a lost watch,
+// or a key file that is a symbolic link, falls back to reading the stamp.
 func TestKeyWatch(t *testing.T) {
 	dir := t.TempDir()
 	path := filepath.Join(dir, "keys.json")
@@ -47,11 +47,14 @@ func TestKeyWatch(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer other.Close()
-	changed("another file created", false) // IN_CREATE names catalog.db, not the key file
+	os.Mkdir(filepath.Join(dir, "sub"), 0o700)
+	changed("a file and a folder made", true) // any event of the folder: the stamp is read
+	if got, err := a.keySet(); err != nil || len(got.Keys) != 1 {
+		t.Fatalf("after other files were made: %+v, %v", got, err)
+	}
 	for range 100 {
 		other.Write([]byte("x"))
 	}
-	os.Mkdir(filepath.Join(dir, "sub"), 0o700)
 	os.WriteFile(filepath.Join(dir, "sub", "keys.json"), []byte("{}"), 0o600)
 	changed("other files written", false)
 
@@ -80,7 +83,9 @@ func TestKeyWatch(t *testing.T) {
 		t.Fatal(err)
 	}
 	b, _ := os.ReadFile(saved)
-	changed("saved elsewhere in the folder", false)
+	if got, err := a.keySet(); err != nil || got.Keys[0].RetiredAt != nil {
+		t.Fatalf("after another file was saved: %+v, %v; want the same keys", got, err)
+	}
 	if err := os.WriteFile(path, b, 0o600); err != nil {
 		t.Fatal(err)
 	}
@@ -114,5 +119,39 @@ func TestKeyWatch(t *testing.T) {
 	}
 	if got, err := a.keySet(); err != nil || len(got.Keys) != 1 || got.Keys[0].KID != kid3 {
 		t.Fatalf("with the watch lost: %+v, %v; want the one key %s", got, err, kid3)
+	}
+}
+
+// TestKeyWatchSymlink: a key file that is a symbolic link (a mounted
+// secret) changes where the folder's watch does not look; each change of
+// its target is still seen by the next request.
+func TestKeyWatchSymlink(t *testing.T) {
+	dir, secrets := t.TempDir(), t.TempDir()
+	target, path := filepath.Join(secrets, "keys.json"), filepath.Join(dir, "keys.json")
+	var ks KeySet
+	if _, err := ks.Rotate(time.Now()); err != nil {
+		t.Fatal(err)
+	}
+	if err := ks.Save(target); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.Symlink(target, path); err != nil {
+		t.Fatal(err)
+	}
+	a, err := OpenAuthority(path, nil, testIssuer)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range 3 {
+		kid, err := ks.Rotate(time.Now())
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := ks.Save(target); err != nil {
+			t.Fatal(err)
+		}
+		if got, err := a.keySet(); err != nil || len(got.Keys) != i+2 || got.Keys[i+1].KID != kid {
+			t.Fatalf("rotation %d through the link: %+v, %v; want %d keys, the last %s", i, got, err, i+2, kid)
+		}
 	}
 }
