@@ -15,13 +15,7 @@ import (
 func TestKeyWatch(t *testing.T) {
 	dir := t.TempDir()
 	path := filepath.Join(dir, "keys.json")
-	var ks KeySet
-	if _, err := ks.Rotate(time.Now()); err != nil {
-		t.Fatal(err)
-	}
-	if err := ks.Save(path); err != nil {
-		t.Fatal(err)
-	}
+	ks := newKeyFile(t, path)
 	a, err := OpenAuthority(path, nil, testIssuer)
 	if err != nil {
 		t.Fatal(err)
@@ -128,13 +122,7 @@ func TestKeyWatch(t *testing.T) {
 func TestKeyWatchSymlink(t *testing.T) {
 	dir, secrets := t.TempDir(), t.TempDir()
 	target, path := filepath.Join(secrets, "keys.json"), filepath.Join(dir, "keys.json")
-	var ks KeySet
-	if _, err := ks.Rotate(time.Now()); err != nil {
-		t.Fatal(err)
-	}
-	if err := ks.Save(target); err != nil {
-		t.Fatal(err)
-	}
+	ks := newKeyFile(t, target)
 	if err := os.Symlink(target, path); err != nil {
 		t.Fatal(err)
 	}

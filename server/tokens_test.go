@@ -69,13 +69,7 @@ func newKeyEnv(t *testing.T) *keyEnv {
 	t.Helper()
 	dir := t.TempDir()
 	keysPath := filepath.Join(dir, "keys.json")
-	var ks KeySet
-	if _, err := ks.Rotate(time.Now()); err != nil {
-		t.Fatal(err)
-	}
-	if err := ks.Save(keysPath); err != nil {
-		t.Fatal(err)
-	}
+	newKeyFile(t, keysPath)
 	legacy := make([]byte, 32)
 	rand.Read(legacy)
 	a, err := OpenAuthority(keysPath, legacy, testIssuer)
@@ -86,6 +80,19 @@ func newKeyEnv(t *testing.T) *keyEnv {
 	e.auth = a
 	e.admin = e.token(Grant{Role: RoleAdmin, Subject: "admin-1"})
 	return &keyEnv{testEnv: e, keysPath: keysPath, legacy: legacy}
+}
+
+// newKeyFile saves a key set of one new key at path and returns it.
+func newKeyFile(t *testing.T, path string) *KeySet {
+	t.Helper()
+	var ks KeySet
+	if _, err := ks.Rotate(time.Now()); err != nil {
+		t.Fatal(err)
+	}
+	if err := ks.Save(path); err != nil {
+		t.Fatal(err)
+	}
+	return &ks
 }
 
 func (e *keyEnv) keys() *KeySet {
