@@ -8,6 +8,7 @@ import (
 
 	"github.com/apache/arrow-go/v18/parquet/file"
 
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/schema/cases"
 )
 
@@ -55,7 +56,7 @@ func TestCaseRowNulls(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	tbl := arrowTable(t, pf)
+	tbl := arrowtest.Table(t, pf)
 	defer tbl.Release()
 	for _, name := range []string{"wait_seconds", "subject_id"} {
 		n := 0

@@ -15,10 +15,9 @@ import (
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -130,14 +129,7 @@ func TestEventAttributes(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{}, memory.DefaultAllocator)
-	if err != nil {
-		t.Fatal(err)
-	}
-	tbl, err := fr.ReadTable(ctx)
-	if err != nil {
-		t.Fatal(err)
-	}
+	tbl := arrowtest.Table(t, pf)
 	defer tbl.Release()
 	var names []string
 	for _, f := range tbl.Schema().Fields() {

@@ -10,6 +10,7 @@ import (
 	"github.com/apache/arrow-go/v18/arrow/array"
 	"github.com/apache/arrow-go/v18/parquet/file"
 
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -58,7 +59,7 @@ func TestRowGroupBytesBound(t *testing.T) {
 			t.Errorf("row group %d: %d rows, %d bytes of strings; want the first rows past %d", g, rows, b, maxGroupBytes)
 		}
 	}
-	tbl := arrowTable(t, pf)
+	tbl := arrowtest.Table(t, pf)
 	defer tbl.Release()
 	col := tbl.Column(tbl.Schema().FieldIndices("activity")[0])
 	i := 0

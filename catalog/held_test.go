@@ -18,29 +18,13 @@ import (
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
-
-// arrowTable reads a whole Parquet file with arrow-go, an independent
-// reader; the caller releases the table.
-func arrowTable(t testing.TB, pf *file.Reader) arrow.Table {
-	t.Helper()
-	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{BatchSize: 4096}, memory.DefaultAllocator)
-	if err != nil {
-		t.Fatal(err)
-	}
-	tbl, err := fr.ReadTable(context.Background())
-	if err != nil {
-		t.Fatal(err)
-	}
-	return tbl
-}
 
 // arrowRows reads every file of v with arrow-go, an independent Parquet
 // reader, and returns its rows as "value|value|...|" in schema order,
@@ -53,7 +37,7 @@ func (e *env) arrowRows(t testing.TB, v *Version) []string {
 		if err != nil {
 			t.Fatalf("arrow cannot open %s: %v", f.SHA256, err)
 		}
-		tbl := arrowTable(t, pf)
+		tbl := arrowtest.Table(t, pf)
 		n := int(tbl.NumRows())
 		rows := make([]strings.Builder, n)
 		for _, fl := range schema.Fields {

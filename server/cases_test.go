@@ -3,7 +3,6 @@ package server
 import (
 	"bytes"
 	"compress/gzip"
-	"context"
 	"encoding/csv"
 	"fmt"
 	"math"
@@ -15,10 +14,9 @@ import (
 	"time"
 
 	"github.com/apache/arrow-go/v18/arrow/array"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/catalog/summary"
 	"github.com/flowcat-catalog/flowcat/server/api"
 )
@@ -124,14 +122,7 @@ func TestSepsisCases(t *testing.T) {
 	if err != nil {
 		t.Fatalf("arrow cannot open the case table: %v", err)
 	}
-	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{BatchSize: 4096}, memory.DefaultAllocator)
-	if err != nil {
-		t.Fatal(err)
-	}
-	tbl, err := fr.ReadTable(context.Background())
-	if err != nil {
-		t.Fatal(err)
-	}
+	tbl := arrowtest.Table(t, pf)
 	defer tbl.Release()
 	if tbl.NumRows() != 1050 || ct.Rows != 1050 {
 		t.Errorf("case table has %d rows (manifest %d), want 1050", tbl.NumRows(), ct.Rows)

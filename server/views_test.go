@@ -18,13 +18,12 @@ import (
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 	"github.com/goccy/go-yaml"
 	"github.com/santhosh-tekuri/jsonschema/v6"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/server/api"
 )
@@ -81,14 +80,7 @@ func TestExportOverHTTP(t *testing.T) {
 	if kv := pf.MetaData().KeyValueMetadata(); kv.FindValue("flowcat.snapshot_id") == nil || *kv.FindValue("flowcat.snapshot_id") != v.SnapshotID.String() {
 		t.Errorf("export metadata lacks the snapshot id")
 	}
-	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{BatchSize: 1024}, memory.DefaultAllocator)
-	if err != nil {
-		t.Fatal(err)
-	}
-	tbl, err := fr.ReadTable(context.Background())
-	if err != nil {
-		t.Fatal(err)
-	}
+	tbl := arrowtest.Table(t, pf)
 	want := map[string]int{}
 	for _, ev := range stored {
 		want[ev.CaseID+"|"+string(ev.Type)+"|"+ev.Value(schema.FieldOccurredAt)]++

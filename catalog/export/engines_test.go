@@ -13,11 +13,10 @@ import (
 	"time"
 
 	"github.com/apache/arrow-go/v18/arrow"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	aparquet "github.com/apache/arrow-go/v18/parquet"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -39,14 +38,7 @@ func arrowReadout(t *testing.T, data []byte) readout {
 	if err != nil {
 		t.Fatal(err)
 	}
-	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{BatchSize: 4096}, memory.DefaultAllocator)
-	if err != nil {
-		t.Fatal(err)
-	}
-	tbl, err := fr.ReadTable(context.Background())
-	if err != nil {
-		t.Fatal(err)
-	}
+	tbl := arrowtest.Table(t, pf)
 	defer tbl.Release()
 	out := readout{Rows: tbl.NumRows()}
 	for i := range int(tbl.NumCols()) {

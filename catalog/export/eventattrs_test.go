@@ -17,11 +17,10 @@ import (
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -120,14 +119,7 @@ func arrowAttrs(t *testing.T, data []byte) ([]string, map[string][]string) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{}, memory.DefaultAllocator)
-	if err != nil {
-		t.Fatal(err)
-	}
-	tbl, err := fr.ReadTable(context.Background())
-	if err != nil {
-		t.Fatal(err)
-	}
+	tbl := arrowtest.Table(t, pf)
 	defer tbl.Release()
 	var names []string
 	for _, f := range tbl.Schema().Fields() {

@@ -14,11 +14,10 @@ import (
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -70,14 +69,7 @@ func arrowKeys(t *testing.T, path, site string) ([]string, []string) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{BatchSize: 4096}, memory.DefaultAllocator)
-	if err != nil {
-		t.Fatal(err)
-	}
-	tbl, err := fr.ReadTable(context.Background())
-	if err != nil {
-		t.Fatal(err)
-	}
+	tbl := arrowtest.Table(t, pf)
 	defer tbl.Release()
 	var names []string
 	for i := range int(tbl.NumCols()) {

@@ -12,12 +12,11 @@ import (
 	"time"
 
 	"github.com/apache/arrow-go/v18/arrow/array"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
 	"github.com/flowcat-catalog/flowcat/catalog"
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -115,14 +114,7 @@ func checkNulls(t *testing.T, data []byte, n int, empty map[string]map[schema.Fi
 			t.Errorf("%s: statistics count %d nulls, the source %d empty", f, stat, want[f])
 		}
 	}
-	fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{BatchSize: 1000}, memory.DefaultAllocator)
-	if err != nil {
-		t.Fatal(err)
-	}
-	tbl, err := fr.ReadTable(context.Background())
-	if err != nil {
-		t.Fatal(err)
-	}
+	tbl := arrowtest.Table(t, pf)
 	defer tbl.Release()
 	var ids []string
 	for _, ch := range tbl.Column(sch.ColumnIndexByName("event_id")).Data().Chunks() {

@@ -11,12 +11,11 @@ import (
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 	aparquet "github.com/apache/arrow-go/v18/parquet"
 	"github.com/apache/arrow-go/v18/parquet/file"
-	"github.com/apache/arrow-go/v18/parquet/pqarrow"
 	pqschema "github.com/apache/arrow-go/v18/parquet/schema"
 
+	"github.com/flowcat-catalog/flowcat/catalog/arrowtest"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -105,14 +104,7 @@ func TestWriteParquetReadByArrow(t *testing.T) {
 					}
 				}
 			}
-			fr, err := pqarrow.NewFileReader(pf, pqarrow.ArrowReadProperties{BatchSize: 4096}, memory.DefaultAllocator)
-			if err != nil {
-				t.Fatal(err)
-			}
-			tbl, err := fr.ReadTable(context.Background())
-			if err != nil {
-				t.Fatal(err)
-			}
+			tbl := arrowtest.Table(t, pf)
 			defer tbl.Release()
 			for ci, c := range cols {
 				chunks := tbl.Column(ci).Data().Chunks()
