@@ -187,9 +187,9 @@ func startServerOn(ctx context.Context, d dataDir, ln net.Listener, masterFile s
 	r := &running{url: scheme + "://" + ln.Addr().String(), masterFrom: from, auth: auth, store: st, hs: hs, done: make(chan error, 1), close: st.Close}
 	if so.tlsCert != "" {
 		hs.TLSConfig = &tls.Config{Certificates: []tls.Certificate{cert}, MinVersion: tls.VersionTLS12}
-		go func() { r.done <- hs.ServeTLS(ln, "", "") }()
+		go func() { r.done <- hs.ServeTLS(server.Listener(ln), "", "") }()
 	} else {
-		go func() { r.done <- hs.Serve(ln) }()
+		go func() { r.done <- hs.Serve(server.Listener(ln)) }()
 	}
 	return r, nil
 }

@@ -129,6 +129,7 @@ func newEnvStore(t *testing.T, dir string, sopt catalog.Options, opts ...func(*C
 	// request's context), on a test listener.
 	srv := httptest.NewUnstartedServer(s)
 	srv.Config = s.HTTPServer("")
+	srv.Listener = Listener(srv.Listener)
 	srv.Start()
 	e := &testEnv{t: t, dir: dir, key: key, auth: auth, store: store, srv: srv, server: s, log: logs, rec: &recorder{}, timeout: 30 * time.Second,
 		openapi: loadOpenAPI(t, s.openapi)}

@@ -1,7 +1,6 @@
 package server
 
 import (
-	"net"
 	"net/http"
 	"strconv"
 	"sync"
@@ -79,20 +78,20 @@ func sendStored(c echo.Context, b []byte) error {
 const oneSendMax = 64 << 10
 
 // oneSend holds back the answer a handler writes until it is whole, so
-// that its header and body leave together rather than as net/http's
+// that its header and body leave in one write rather than as net/http's
 // buffer (4 KiB: the header and the body's first bytes) and then the
-// rest: half the segments, sends and wake-ups for a small stored
-// summary. Call the function it returns when the answer is written: it
-// flushes and sends. Without a TCP connection in the request's context
-// (HTTPServer puts it there) it does nothing.
+// rest: half the sends, segments and wake-ups for a small stored summary
+// (sendConn). Call the function it returns when the answer is written: it
+// flushes and sends. Without a connection of Listener in the request's
+// context (HTTPServer puts it there), such as a TLS one, it does nothing.
 func oneSend(c echo.Context) func() {
-	conn, _ := c.Request().Context().Value(connKey{}).(net.Conn)
+	conn, _ := c.Request().Context().Value(connKey{}).(*sendConn)
 	if conn == nil {
 		return func() {}
 	}
-	setCork(conn, true)
+	conn.hold()
 	return func() {
 		http.NewResponseController(c.Response().Writer).Flush() //nolint:errcheck // writes fail on the connection, seen by net/http
-		setCork(conn, false)
+		conn.release()                                          //nolint:errcheck // as the flush: net/http sees the failed connection
 	}
 }

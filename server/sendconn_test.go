@@ -1,0 +1,99 @@
+package server
+
+import (
+	"io"
+	"net/http"
+	"net/http/httptest"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"testing"
+
+	"github.com/labstack/echo/v4"
+)
+
+// sendsOf serves one answer of body through the server's own http.Server
+// and Listener on loopback, written by handle, and returns the writes its
+// connection made to the socket for that answer, after checking the
+// answer arrived whole.
+func sendsOf(t *testing.T, body string, handle func(c echo.Context) error) int {
+	t.Helper()
+	sends := make(chan int, 1)
+	e := echo.New()
+	e.GET("/", func(c echo.Context) error {
+		conn := c.Request().Context().Value(connKey{}).(*sendConn)
+		before := conn.sends
+		err := handle(c)
+		http.NewResponseController(c.Response().Writer).Flush() //nolint:errcheck // the client sees a failure
+		sends <- conn.sends - before
+		return err
+	})
+	srv := httptest.NewUnstartedServer(e)
+	srv.Config = (&Server{}).HTTPServer("")
+	srv.Config.Handler = e
+	srv.Listener = Listener(srv.Listener)
+	srv.Start()
+	defer srv.Close()
+	resp, err := http.Get(srv.URL)
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if string(got) != body || resp.ContentLength != int64(len(body)) {
+		t.Errorf("answer of %d bytes (Content-Length %d), want %d", len(got), resp.ContentLength, len(body))
+	}
+	return <-sends
+}
+
+// TestOneSendOneWrite: through the server's own http.Server on loopback,
+// an answer written under oneSend leaves in one write to the socket (its
+// header and body together) and arrives whole; the same answer without it
+// takes net/http's two (its 4 KiB buffer, then the rest), so the count
+// tells them apart.
+func TestOneSendOneWrite(t *testing.T) {
+	body := strings.Repeat("stored summary bytes ", 2000) // 42 kB: more than net/http's 4 KiB buffer
+	for _, small := range []string{body, "{}"} {
+		held := sendsOf(t, small, func(c echo.Context) error {
+			c.Response().Header().Set(echo.HeaderContentLength, strconv.Itoa(len(small)))
+			defer oneSend(c)()
+			return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, []byte(small))
+		})
+		if held != 1 {
+			t.Errorf("%d-byte answer under oneSend: %d writes to the socket, want 1", len(small), held)
+		}
+	}
+	plain := sendsOf(t, body, func(c echo.Context) error {
+		c.Response().Header().Set(echo.HeaderContentLength, strconv.Itoa(len(body)))
+		return c.Blob(http.StatusOK, echo.MIMEApplicationJSON, []byte(body))
+	})
+	if plain != 2 {
+		t.Errorf("42 kB answer without oneSend: %d writes to the socket, want net/http's 2", plain)
+	}
+}
+
+// TestSendConnKeepsSendfile: a file answered through a connection of
+// Listener still goes by the connection's ReadFrom (sendfile), in one
+// call after the header, and arrives whole.
+func TestSendConnKeepsSendfile(t *testing.T) {
+	body := strings.Repeat("parquet bytes ", 20000) // 280 kB
+	path := filepath.Join(t.TempDir(), "blob")
+	if err := os.WriteFile(path, []byte(body), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	n := sendsOf(t, body, func(c echo.Context) error {
+		f, err := os.Open(path)
+		if err != nil {
+			return err
+		}
+		defer f.Close()
+		c.Response().Header().Set(echo.HeaderContentLength, strconv.Itoa(len(body)))
+		c.Response().WriteHeader(http.StatusOK)
+		_, err = io.Copy(readFromResponse{c.Response()}, f)
+		return err
+	})
+	if n > 3 {
+		t.Errorf("280 kB file: %d writes to the socket, want the header and one ReadFrom (at most 3)", n)
+	}
+}
