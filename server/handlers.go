@@ -626,6 +626,8 @@ func (s *Server) download(c echo.Context) error {
 		// without its two seeks to learn a size the reader knows.
 		h.Set("Accept-Ranges", "bytes")
 		h.Set(echo.HeaderContentLength, strconv.FormatInt(r.Size(), 10))
+		// The header leaves with the file's first bytes (sendConn).
+		defer oneSend(c)()
 		c.Response().WriteHeader(http.StatusOK)
 		io.CopyN(readFromResponse{c.Response()}, r, r.Size())
 		return nil

@@ -24,15 +24,19 @@ func (l sendListener) Accept() (net.Conn, error) {
 // writes to it. net/http writes an answer through a 4 KiB buffer: the
 // header and the body's first bytes, then the rest of the body, two
 // writes and so two sends. While held, the first write is copied and the
-// next goes out with it in one writev(2) (net.Buffers); release sends
-// whatever is still held. Only the handler's goroutine writes to a
-// connection (net/http's rule), so no lock is needed.
+// next goes out with it in one writev(2) (net.Buffers), which ends the
+// hold; a ReadFrom (sendfile) sends it ahead of the file's bytes, marked
+// as having more to follow; release sends whatever is still held. Only
+// the handler's goroutine writes to a connection (net/http's rule), so no
+// lock is needed.
 type sendConn struct {
 	*net.TCPConn
 	holding bool
 	held    []byte
-	// sends counts the writes made to the socket, for tests.
-	sends int
+	// For tests: the writes made to the socket, those of them marked as
+	// having more to follow, and the pushes after a ReadFrom that sent
+	// nothing.
+	sends, moreSends, pushes int
 }
 
 func (c *sendConn) Write(p []byte) (int, error) {
@@ -47,7 +51,7 @@ func (c *sendConn) Write(p []byte) (int, error) {
 	bufs := net.Buffers{c.held, p}
 	n, err := bufs.WriteTo(c.TCPConn)
 	held := int64(len(c.held))
-	c.held = c.held[:0]
+	c.held, c.holding = c.held[:0], false
 	if n < held {
 		// The held bytes did not all leave: report none of p written,
 		// with the error the connection gave.
@@ -57,13 +61,35 @@ func (c *sendConn) Write(p []byte) (int, error) {
 }
 
 // ReadFrom keeps net/http's sendfile path (the embedded connection's
-// ReadFrom), after anything held.
+// ReadFrom). What is held (a download's header and its first bytes) goes
+// first, marked as having more to follow (sendMore), so that it leaves
+// with the file's first bytes rather than in a segment of its own.
+//
+// A file with nothing left to send (net/http has copied its first bytes
+// already) would leave the held bytes waiting for more: then the
+// connection is pushed (setting TCP_NODELAY, already set, sends what
+// waits; tcp(7)).
 func (c *sendConn) ReadFrom(r io.Reader) (int64, error) {
-	if err := c.release(); err != nil {
-		return 0, err
+	c.holding = false
+	more := len(c.held) > 0
+	if more {
+		c.sends++
+		c.moreSends++
+		err := sendMore(c.TCPConn, c.held)
+		c.held = c.held[:0]
+		if err != nil {
+			return 0, err
+		}
 	}
 	c.sends++
-	return c.TCPConn.ReadFrom(r)
+	n, err := c.TCPConn.ReadFrom(r)
+	if more && n == 0 {
+		c.pushes++
+		if perr := c.TCPConn.SetNoDelay(true); err == nil {
+			err = perr
+		}
+	}
+	return n, err
 }
 
 // hold starts holding back writes.

@@ -11,7 +11,23 @@ import (
 	"testing"
 
 	"github.com/labstack/echo/v4"
+	"golang.org/x/sys/unix"
 )
+
+// unsentOf returns the bytes c's socket holds not yet sent (SIOCOUTQNSD,
+// tcp(7)), -1 when it cannot read them. It runs on the handler's
+// goroutine, so it reports rather than fails the test.
+func unsentOf(c *sendConn) int {
+	rc, err := c.SyscallConn()
+	if err != nil {
+		return -1
+	}
+	v, ierr := -1, error(nil)
+	if err := rc.Control(func(fd uintptr) { v, ierr = unix.IoctlGetInt(int(fd), unix.SIOCOUTQNSD) }); err != nil || ierr != nil {
+		return -1
+	}
+	return v
+}
 
 // sendsOf serves one answer of body through the server's own http.Server
 // and Listener on loopback, written by handle, and returns the writes its
@@ -73,27 +89,53 @@ func TestOneSendOneWrite(t *testing.T) {
 	}
 }
 
-// TestSendConnKeepsSendfile: a file answered through a connection of
-// Listener still goes by the connection's ReadFrom (sendfile), in one
-// call after the header, and arrives whole.
+// TestSendConnKeepsSendfile: a file answered as a download is (its
+// header held under oneSend, then copied to readFromResponse) still goes
+// by the connection's ReadFrom (sendfile) in one call, its header sent
+// ahead marked as having more to follow, and arrives whole. A file of
+// exactly net/http's first copy (512 bytes) leaves ReadFrom nothing to
+// send: the held header and bytes must not wait for more (the push).
 func TestSendConnKeepsSendfile(t *testing.T) {
-	body := strings.Repeat("parquet bytes ", 20000) // 280 kB
-	path := filepath.Join(t.TempDir(), "blob")
-	if err := os.WriteFile(path, []byte(body), 0o600); err != nil {
-		t.Fatal(err)
-	}
-	n := sendsOf(t, body, func(c echo.Context) error {
-		f, err := os.Open(path)
-		if err != nil {
-			return err
+	for _, size := range []int{280000, 512, 100, 0} {
+		body := strings.Repeat("p", size)
+		path := filepath.Join(t.TempDir(), "blob")
+		if err := os.WriteFile(path, []byte(body), 0o600); err != nil {
+			t.Fatal(err)
 		}
-		defer f.Close()
-		c.Response().Header().Set(echo.HeaderContentLength, strconv.Itoa(len(body)))
-		c.Response().WriteHeader(http.StatusOK)
-		_, err = io.Copy(readFromResponse{c.Response()}, f)
-		return err
-	})
-	if n > 3 {
-		t.Errorf("280 kB file: %d writes to the socket, want the header and one ReadFrom (at most 3)", n)
+		var conn *sendConn
+		unsent := -1
+		n := sendsOf(t, body, func(c echo.Context) error {
+			conn = c.Request().Context().Value(connKey{}).(*sendConn)
+			f, err := os.Open(path)
+			if err != nil {
+				return err
+			}
+			defer f.Close()
+			c.Response().Header().Set(echo.HeaderContentLength, strconv.Itoa(len(body)))
+			defer oneSend(c)()
+			c.Response().WriteHeader(http.StatusOK)
+			_, err = io.CopyN(readFromResponse{c.Response()}, f, int64(size))
+			unsent = 0
+			if size == 512 {
+				// Sent by now, not held for more (a larger file may
+				// still wait for the reader's window).
+				unsent = unsentOf(conn)
+			}
+			return err
+		})
+		wantMore, wantPush := 0, 0
+		if size >= 512 {
+			wantMore = 1
+		}
+		if size == 512 {
+			wantPush = 1
+		}
+		if unsent != 0 {
+			t.Errorf("%d-byte file: %d bytes left unsent after the copy, want 0", size, unsent)
+		}
+		if n > 2 || conn.moreSends != wantMore || conn.pushes != wantPush {
+			t.Errorf("%d-byte file: %d writes to the socket, %d marked more, %d pushes; want at most 2, %d, %d",
+				size, n, conn.moreSends, conn.pushes, wantMore, wantPush)
+		}
 	}
 }
