@@ -626,14 +626,23 @@ func (s *Server) download(c echo.Context) error {
 		// without its two seeks to learn a size the reader knows.
 		h.Set("Accept-Ranges", "bytes")
 		h.Set(echo.HeaderContentLength, strconv.FormatInt(r.Size(), 10))
-		// The header leaves with the file's first bytes (sendConn).
-		defer oneSend(c)()
-		c.Response().WriteHeader(http.StatusOK)
-		io.CopyN(readFromResponse{c.Response()}, r, r.Size())
+		sendWhole(c, r, r.Size())
 		return nil
 	}
 	http.ServeContent(readFromResponse{c.Response()}, c.Request(), "", time.Time{}, r)
 	return nil
+}
+
+// sendWhole answers 200 with the size bytes of r, the header's fields set.
+// The header leaves with the file's first bytes (oneSend, sendConn). It
+// is flushed (to the held connection) before the copy: net/http would
+// otherwise read the file's first 512 bytes itself, to sniff a type the
+// header names, and write them with the header.
+func sendWhole(c echo.Context, r io.Reader, size int64) {
+	defer oneSend(c)()
+	c.Response().WriteHeader(http.StatusOK)
+	http.NewResponseController(c.Response().Writer).Flush() //nolint:errcheck // the copy sees a failed connection
+	io.CopyN(readFromResponse{c.Response()}, r, size)       //nolint:errcheck // as http.ServeContent: the client sees a short answer
 }
 
 // conditional reports whether a request names a range or a precondition
