@@ -22,8 +22,12 @@ import (
 // A value a spreadsheet would take for a formula is neutralised: one that
 // begins with =, +, -, @, a tab, a carriage return or a NUL gets a single
 // quote in front (OWASP's CSV-injection rule, as OWASP ASVS 5.0
-// requirement 1.2.10 states it), so =HYPERLINK(...) reads as text.
-// Readers that want the stored value take the Parquet export.
+// requirement 1.2.10 states it), so =HYPERLINK(...) reads as text. A
+// value that is a plain decimal number, sign included (-2, +0.5, -1e-3),
+// is written as it is: a spreadsheet reads it as that number, and it can
+// call nothing (common practice), where a quote in front would turn a
+// negative reading into text. Readers that want every stored value as it
+// is take the Parquet export.
 func WriteCSV(ctx context.Context, w io.Writer, src Source, files []catalog.FileEntry, f Filter) (Stats, error) {
 	if err := f.Validate(); err != nil {
 		return Stats{}, err
@@ -62,10 +66,46 @@ func WriteCSV(ctx context.Context, w io.Writer, src Source, files []catalog.File
 // NeutraliseFormula returns v with a single quote in front when its first
 // byte would make a spreadsheet read it as a formula (see WriteCSV).
 func NeutraliseFormula(v string) string {
-	if v != "" && strings.IndexByte("=+-@\t\r\x00", v[0]) >= 0 {
+	if v != "" && strings.IndexByte("=+-@\t\r\x00", v[0]) >= 0 && !plainNumber(v) {
 		return "'" + v
 	}
 	return v
+}
+
+// plainNumber reports whether v is a decimal number and nothing else: an
+// optional sign, digits with an optional fraction (or a fraction alone),
+// and an optional exponent; ASCII only, no spaces.
+func plainNumber(v string) bool {
+	i := 0
+	digits := func() int {
+		n := 0
+		for i < len(v) && v[i] >= '0' && v[i] <= '9' {
+			i++
+			n++
+		}
+		return n
+	}
+	if i < len(v) && (v[i] == '+' || v[i] == '-') {
+		i++
+	}
+	n := digits()
+	if i < len(v) && v[i] == '.' {
+		i++
+		n += digits()
+	}
+	if n == 0 {
+		return false
+	}
+	if i < len(v) && (v[i] == 'e' || v[i] == 'E') {
+		i++
+		if i < len(v) && (v[i] == '+' || v[i] == '-') {
+			i++
+		}
+		if digits() == 0 {
+			return false
+		}
+	}
+	return i == len(v)
 }
 
 // writeRecord writes one RFC 4180 record; bufio.Writer keeps the first

@@ -5,6 +5,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/csv"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -216,12 +217,35 @@ func TestWriteCSV(t *testing.T) {
 
 // TestNeutraliseFormula checks OWASP's CSV-injection rule (OWASP ASVS 5.0,
 // requirement 1.2.10; the OWASP CSV Injection page adds the carriage
-// return): a leading =, +, -, @, tab, CR or NUL gets a single quote.
+// return): a leading =, +, -, @, tab, CR or NUL gets a single quote,
+// except in a value that is a plain decimal number (common practice: a
+// spreadsheet reads it as the number). The exception is checked against
+// strconv.ParseFloat: every value it lets through parses as a number.
 func TestNeutraliseFormula(t *testing.T) {
 	for in, want := range map[string]string{
 		`=HYPERLINK("http://x","y")`: `'=HYPERLINK("http://x","y")`,
-		"+1":                         "'+1",
+		"+1+1":                       "'+1+1",
 		"-2+3":                       "'-2+3",
+		"-2*3":                       "'-2*3",
+		"-1+cmd|' /C calc'!A0":       "'-1+cmd|' /C calc'!A0",
+		"-":                          "'-",
+		"+":                          "'+",
+		"-.":                         "'-.",
+		"-1e":                        "'-1e",
+		"-1e+":                       "'-1e+",
+		"- 2":                        "'- 2",
+		"-2 ":                        "'-2 ",
+		"-0x1F":                      "'-0x1F",
+		"-Inf":                       "'-Inf",
+		"+NaN":                       "'+NaN",
+		"-1,5":                       "'-1,5",
+		"-2":                         "-2",
+		"+1":                         "+1",
+		"-0.25":                      "-0.25",
+		"-.5":                        "-.5",
+		"+5.":                        "+5.",
+		"-1e-3":                      "-1e-3",
+		"-2E+10":                     "-2E+10",
 		"@SUM(A1)":                   "'@SUM(A1)",
 		"\tx":                        "'\tx",
 		"\rx":                        "'\rx",
@@ -233,6 +257,11 @@ func TestNeutraliseFormula(t *testing.T) {
 	} {
 		if got := NeutraliseFormula(in); got != want {
 			t.Errorf("NeutraliseFormula(%q) = %q, want %q", in, got, want)
+		}
+		if got := NeutraliseFormula(in); got == in && in != "" && strings.ContainsRune("+-", rune(in[0])) {
+			if _, err := strconv.ParseFloat(in, 64); err != nil {
+				t.Errorf("NeutraliseFormula(%q) kept a value that is not a number: %v", in, err)
+			}
 		}
 	}
 }
