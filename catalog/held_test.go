@@ -805,3 +805,57 @@ func TestHeldRealLogResend(t *testing.T) {
 			ev, res.Version.Manifest.Rows, len(rows), len(distinct), len(inPart))
 	}
 }
+
+// TestHeldResendWithBrokenRow: the sepsis log (testdata/sepsis) sent whole,
+// then its first 500 rows again with the timestamp of one row broken. The
+// re-send stores nothing (every valid event is held), and it still tells
+// of the row it lost: its upload record and its sentence count one row
+// rejected, named by line, column and rule, with the text read; no drift
+// alert is raised from a report that holds rows only.
+func TestHeldResendWithBrokenRow(t *testing.T) {
+	lines := sepsisLines(t)
+	head, rows := lines[0], lines[1:]
+	prof, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "profile.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "sepsis", func(s *DatasetSpec) { s.Profile = prof; s.Historical = true })
+	body := func(rs []string) []byte { return []byte(head + "\n" + strings.Join(rs, "\n") + "\n") }
+	e.ingest(t, "p", "sepsis", body(rows), "whole.csv")
+
+	again := slices.Clone(rows[:500])
+	const broken = 200 // index in again; line 202 of the file (the header is line 1)
+	ts := slices.Index(strings.Split(head, ";"), "Complete Timestamp")
+	f := strings.Split(again[broken], ";")
+	f[ts] = "2014/13/45 08:00:00.000"
+	again[broken] = strings.Join(f, ";")
+	res := e.ingest(t, "p", "sepsis", body(again), "again.csv")
+	u := res.Upload
+	if u.Status != UploadDuplicate || u.Events == nil || u.Events.Read != 499 || u.Events.New != 0 {
+		t.Fatalf("re-send: %s, events %+v", u.Status, u.Events)
+	}
+	if u.Report == nil || u.Report.Rows.Rejected != 1 || len(u.Report.Rejections) != 1 {
+		t.Fatalf("re-send's report %+v: want one row rejected", u.Report)
+	}
+	rc := u.Report.Rejections[0]
+	if rc.Reason != "bad_timestamp" || rc.Count != 1 || len(rc.Samples) != 1 {
+		t.Fatalf("rejection %+v", rc)
+	}
+	if s := rc.Samples[0]; s.Line != broken+2 || s.Column != "Complete Timestamp" || s.Text != "2014/13/45 08:00:00.000" {
+		t.Errorf("rejected row %+v: want line %d, column Complete Timestamp, the text read", s, broken+2)
+	}
+	if got := u.Sentence(); !strings.Contains(got, "499 already held, 0 changed; 1 row rejected; nothing stored") {
+		t.Errorf("sentence %q", got)
+	}
+	if len(u.Alerts) != 0 {
+		t.Errorf("alerts %+v", u.Alerts)
+	}
+	ups, err := e.s.Uploads(context.Background(), "p", "sepsis")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if last := ups[len(ups)-1]; last.ID != u.ID || last.Report == nil || last.Report.Rows.Rejected != 1 {
+		t.Errorf("stored upload %+v", last)
+	}
+}

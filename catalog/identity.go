@@ -219,7 +219,11 @@ func (u *Upload) Sentence() string {
 	case u.Events == nil:
 		return fmt.Sprintf("v%d already holds this file: the same bytes were sent before; nothing stored", u.Version)
 	}
-	return fmt.Sprintf("v%d already holds every event: %s; nothing stored", u.Version, u.Events.Sentence(0))
+	rejected := ""
+	if r := u.Report; r != nil && r.Rows.Rejected > 0 {
+		rejected = printer.Sprintf("; %d %s rejected", r.Rows.Rejected, plural(r.Rows.Rejected, "row", "rows"))
+	}
+	return fmt.Sprintf("v%d already holds every event: %s%s; nothing stored", u.Version, u.Events.Sentence(0), rejected)
 }
 
 // appendIdentity appends to b what makes e itself under id: its site and

@@ -1004,7 +1004,13 @@ var testHookBeforeCommit func()
 // dataset).
 func (s *Store) duplicate(ctx context.Context, ds *Dataset, up Upload, v *Version) (*IngestResult, error) {
 	up.Status = UploadDuplicate
-	up.Report = nil
+	// The events were judged when the version that holds them was made;
+	// the file's own rows stay: how many were rejected, why and where
+	// (a partner re-sending a file with a broken row is told of it, though
+	// nothing is stored).
+	if r := up.Report; r != nil {
+		up.Report = &quality.Report{Version: r.Version, Rows: r.Rows, Rejections: r.Rejections}
+	}
 	if v == nil {
 		if err := s.recordUpload(ctx, ds, &up); err != nil {
 			return nil, err

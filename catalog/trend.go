@@ -20,7 +20,7 @@ const driftHistory = 500
 // returns the alerts. It reads uploads newest first and stops when every
 // site of the upload has a full window or after driftHistory uploads.
 func driftAlerts(tx *bolt.Tx, ref string, up *Upload) []quality.Alert {
-	if up.Report == nil {
+	if up.Report == nil || up.Status == UploadDuplicate { // a duplicate's report holds its rows only
 		return nil
 	}
 	cur := withEvents(quality.TrendPoints(up.ID.String(), up.Seq, up.ReceivedAt, up.Report))

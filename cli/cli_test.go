@@ -204,7 +204,15 @@ func TestEndToEnd(t *testing.T) {
 	if code != 0 || !strings.Contains(out, "v1 already holds every event: 0 new events,") || !strings.Contains(out, " already held, 0 changed; nothing stored") {
 		t.Errorf("re-send in other bytes: exit %d, %q", code, out)
 	}
-	if code, out, _ := run(t, as(curator), "uploads", "flow/visits"); code != 0 || !strings.Contains(out, " events already held") {
+	// A re-send with one broken row stores nothing and names the row it
+	// lost: line, column, rule and the text read.
+	n1c := writeFile(t, files, "night1c.csv", night(1, "RAWCASE")+"north,RAWCASE-1-0,P-0,R-0,arrival,consult,main,2026-03-02T25:00:00Z\n")
+	code, out, _ = run(t, as(partner), "upload", "flow/visits", n1c)
+	if code != 0 || !strings.Contains(out, " already held, 0 changed; 1 row rejected; nothing stored") ||
+		!strings.Contains(out, "bad_timestamp: line 162, column occurred_at") || !strings.Contains(out, `"2026-03-02T25:00:00Z"`) {
+		t.Errorf("re-send with a broken row: exit %d, %q", code, out)
+	}
+	if code, out, _ := run(t, as(curator), "uploads", "flow/visits"); code != 0 || !strings.Contains(out, " events already held") || !strings.Contains(out, "1 of 161 rows") {
 		t.Errorf("uploads: exit %d, %q", code, out)
 	}
 	if code, out, errs := run(t, as(curator), "dataset", "changes", "flow/visits", "correct"); code != 0 || !strings.Contains(out, "taken as corrections") {

@@ -149,6 +149,9 @@ func printUpload(w io.Writer, r ref, a *api.UploadResult) {
 	u := a.Upload
 	if u.Status == catalog.UploadDuplicate {
 		fmt.Fprintf(w, "%s: %s\n", r, u.Sentence())
+		if u.Report != nil {
+			u.Report.TextRejections(w, false)
+		}
 		printAlerts(w, &u)
 		return
 	}

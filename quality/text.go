@@ -200,6 +200,14 @@ func (r *Report) textMeanings(bw *bufio.Writer, p *painter) {
 	}
 }
 
+// TextRejections writes the report's first rejected rows, where to look,
+// as Text does after the rest: nothing when no row was rejected.
+func (r *Report) TextRejections(w io.Writer, color bool) error {
+	bw := bufio.NewWriter(w)
+	r.textRejections(bw, &painter{color: color})
+	return bw.Flush()
+}
+
 // textRejections writes the first rejected rows, where to look.
 func (r *Report) textRejections(bw *bufio.Writer, p *painter) {
 	var rej []string
