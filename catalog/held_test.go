@@ -838,6 +838,16 @@ func TestHeldResendWithBrokenRow(t *testing.T) {
 	if u.Report == nil || u.Report.Rows.Rejected != 1 || len(u.Report.Rejections) != 1 {
 		t.Fatalf("re-send's report %+v: want one row rejected", u.Report)
 	}
+	// The file's 500 rows: 499 held (read back by the standard library's
+	// count above), 1 rejected, so 0.2% of the file, as the dataset's
+	// threshold counts it.
+	if r := u.Report.Rows; r.Held != 499 || r.Total+r.Held != 500 || u.Report.RejectedShare() != 1.0/500 {
+		t.Errorf("re-send's rows %+v, rejected share %v: want 499 held of 500, 1/500 rejected", r, u.Report.RejectedShare())
+	}
+	var text strings.Builder
+	if err := u.Report.Text(&text, false); err != nil || !strings.Contains(text.String(), "rows   500 in the file: 1 rejected (0.2%), 499 held already or copies") {
+		t.Errorf("re-send's report text: %v\n%s", err, text.String())
+	}
 	rc := u.Report.Rejections[0]
 	if rc.Reason != "bad_timestamp" || rc.Count != 1 || len(rc.Samples) != 1 {
 		t.Fatalf("rejection %+v", rc)
@@ -857,5 +867,31 @@ func TestHeldResendWithBrokenRow(t *testing.T) {
 	}
 	if last := ups[len(ups)-1]; last.ID != u.ID || last.Report == nil || last.Report.Rows.Rejected != 1 {
 		t.Errorf("stored upload %+v", last)
+	}
+
+	// The whole log in a fresh dataset, its first 500 rows first: the
+	// second upload holds 500 rows already and adds the rest with one row
+	// broken. Its own report counts the file's rows; the version's report
+	// counts the version's (no held rows).
+	e.dataset(t, "p", "second", func(s *DatasetSpec) { s.Profile = prof; s.Historical = true })
+	e.ingest(t, "p", "second", body(rows[:500]), "first.csv")
+	rest := slices.Clone(rows)
+	f = strings.Split(rest[9000], ";")
+	f[ts] = "2014/13/45 08:00:00.000"
+	rest[9000] = strings.Join(f, ";")
+	res = e.ingest(t, "p", "second", body(rest), "whole.csv")
+	u = res.Upload
+	if u.Status != UploadAccepted || u.Report == nil {
+		t.Fatalf("whole log after its first part: %s", u.Status)
+	}
+	if r := u.Report.Rows; r.Held != u.Events.Held+u.Events.Copies || r.Total+r.Held != int64(len(rows)) || r.Rejected != 1 {
+		t.Errorf("upload's rows %+v, events %+v: want %d rows in the file", r, u.Events, len(rows))
+	}
+	vrep, err := e.s.Report(context.Background(), res.Version)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r := vrep.Rows; r.Held != 0 || r.Accepted != res.Version.Manifest.Rows {
+		t.Errorf("version's rows %+v, want %d accepted and none held", r, res.Version.Manifest.Rows)
 	}
 }

@@ -439,9 +439,9 @@ func (in *ingest) observe(e *schema.Event) error {
 // with no valid rows, too many invalid ones, events of sites it may not
 // write or outside its window, or refused changes is rejected.
 func (in *ingest) check(ctx context.Context) (*IngestResult, error) {
-	rep := in.report()
 	hf, ds := in.hf, in.ds
 	in.up.Events = hf.uploadCounts()
+	rep := in.report()
 	removeOnly := removing(in.opt) && rep.Rows.Total == 0
 	switch {
 	case hf.counts.Read == 0 && !removeOnly:
@@ -472,8 +472,18 @@ func (in *ingest) check(ctx context.Context) (*IngestResult, error) {
 func (in *ingest) report() *quality.Report {
 	rep := in.acc.Report()
 	rep.UnmappedColumns = in.up.Unmapped
+	rep.Rows.Held = heldRows(in.up.Events)
 	in.up.Report = rep
 	return rep
+}
+
+// heldRows is the count of an upload's valid rows its report does not
+// judge (quality.Rows.Held): held already, or copies within the file.
+func heldRows(ev *EventCounts) int64 {
+	if ev == nil {
+		return 0
+	}
+	return ev.Held + ev.Copies
 }
 
 // reject records the upload as rejected, with its report completed by
@@ -639,6 +649,11 @@ func (s *Store) deriveVersion(ctx context.Context, c *toCommit, parent *Version,
 	up.Report = nv.rep
 	// The version's report names the file of each sample line.
 	frep := nv.rep.WithFile(up.Filename)
+	// The upload's record counts the rows it did not judge; the file's
+	// part of the version does not.
+	urep := *nv.rep
+	urep.Rows.Held = heldRows(up.Events)
+	up.Report = &urep
 	if c.entry != nil {
 		plan.reports[c.entry.SHA256] = frep
 	}

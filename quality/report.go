@@ -66,6 +66,11 @@ type Rows struct {
 	Total    int64 `json:"total"` // accepted + rejected
 	Accepted int64 `json:"accepted"`
 	Rejected int64 `json:"rejected"`
+	// Held counts, in an upload's report, the file's valid rows not
+	// judged here: events the version holds already and copies within
+	// the file (the upload's events.already_held and events.copies). The
+	// file had Total + Held rows. A version's report has none.
+	Held int64 `json:"held,omitempty"`
 }
 
 // RejectionCount is how many rows were rejected for one reason.
@@ -289,10 +294,11 @@ type Sample struct {
 	Message string `json:"message,omitempty"`
 }
 
-// RejectedShare is the share of rows rejected, 0 when there were no rows;
-// a dataset's rejection threshold is compared against it.
+// RejectedShare is the share of rows rejected among the file's (held ones
+// included), 0 when there were no rows; a dataset's rejection threshold
+// is compared against it.
 func (r *Report) RejectedShare() float64 {
-	return share(r.Rows.Rejected, r.Rows.Total)
+	return share(r.Rows.Rejected, r.Rows.Total+r.Rows.Held)
 }
 
 // Dimension returns the dimension named name, or nil.

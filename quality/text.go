@@ -37,8 +37,15 @@ func (r *Report) Text(w io.Writer, color bool) error {
 func (r *Report) textHead(bw *bufio.Writer, p *painter) {
 	// "format", not "v": the report's own format, never a dataset version.
 	fmt.Fprintf(bw, "%s  score %s\n", p.bold("quality report (format "+r.Version+")"), p.score(r.Score, 0))
-	fmt.Fprintf(bw, "rows   %d total, %d accepted, %d rejected (%s)\n",
-		r.Rows.Total, r.Rows.Accepted, r.Rows.Rejected, percent(r.RejectedShare()))
+	if h := r.Rows.Held; h > 0 {
+		// An upload that re-sends held events: what the file had, and
+		// which of its rows the scores below judge.
+		fmt.Fprintf(bw, "rows   %d in the file: %d rejected (%s), %d held already or copies (not judged again), %d accepted and judged here\n",
+			r.Rows.Total+h, r.Rows.Rejected, percent(r.RejectedShare()), h, r.Rows.Accepted)
+	} else {
+		fmt.Fprintf(bw, "rows   %d total, %d accepted, %d rejected (%s)\n",
+			r.Rows.Total, r.Rows.Accepted, r.Rows.Rejected, percent(r.RejectedShare()))
+	}
 	if r.TimeRange.First != nil {
 		fmt.Fprintf(bw, "time   %s .. %s\n       resolution %s (%s)\n", r.TimeRange.First.Format(time.RFC3339),
 			r.TimeRange.Last.Format(time.RFC3339), r.Resolution.Grid, r.Resolution.Zone)
