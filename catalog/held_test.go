@@ -786,12 +786,7 @@ func TestHeldRealLogResend(t *testing.T) {
 	for _, r := range rows {
 		distinct[key(r)] = true
 	}
-	prof, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "profile.yaml"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	e := newEnv(t, nil)
-	e.dataset(t, "p", "sepsis", func(s *DatasetSpec) { s.Profile = prof; s.Historical = true })
+	e, _ := sepsisDataset(t)
 	body := func(rs []string) []byte { return []byte(head + "\n" + strings.Join(rs, "\n") + "\n") }
 	first := e.ingest(t, "p", "sepsis", body(part), "part.csv").Upload.Events
 	if first.Read != int64(len(part)) || first.New != int64(len(inPart)) || first.Copies != int64(len(part)-len(inPart)) {
@@ -806,6 +801,19 @@ func TestHeldRealLogResend(t *testing.T) {
 	}
 }
 
+// sepsisDataset is a catalog with the dataset p/sepsis of the sepsis log's
+// profile (testdata/sepsis), historical; it returns the profile too.
+func sepsisDataset(t *testing.T) (*env, []byte) {
+	t.Helper()
+	prof, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "profile.yaml"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	e := newEnv(t, nil)
+	e.dataset(t, "p", "sepsis", func(s *DatasetSpec) { s.Profile = prof; s.Historical = true })
+	return e, prof
+}
+
 // TestHeldResendWithBrokenRow: the sepsis log (testdata/sepsis) sent whole,
 // then its first 500 rows again with the timestamp of one row broken. The
 // re-send stores nothing (every valid event is held), and it still tells
@@ -815,12 +823,7 @@ func TestHeldRealLogResend(t *testing.T) {
 func TestHeldResendWithBrokenRow(t *testing.T) {
 	lines := sepsisLines(t)
 	head, rows := lines[0], lines[1:]
-	prof, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "profile.yaml"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	e := newEnv(t, nil)
-	e.dataset(t, "p", "sepsis", func(s *DatasetSpec) { s.Profile = prof; s.Historical = true })
+	e, prof := sepsisDataset(t)
 	body := func(rs []string) []byte { return []byte(head + "\n" + strings.Join(rs, "\n") + "\n") }
 	e.ingest(t, "p", "sepsis", body(rows), "whole.csv")
 
