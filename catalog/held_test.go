@@ -871,6 +871,20 @@ func TestHeldResendWithBrokenRow(t *testing.T) {
 	if last := ups[len(ups)-1]; last.ID != u.ID || last.Report == nil || last.Report.Rows.Rejected != 1 {
 		t.Errorf("stored upload %+v", last)
 	}
+	// The quality trend has the first upload's points and none of the
+	// duplicate's (its report judged no event).
+	points, _, err := e.s.Trend(context.Background(), "p", "sepsis", "")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, p := range points {
+		if p.Upload != ups[0].ID.String() {
+			t.Errorf("trend point of upload %s (%s): %+v", p.Upload, p.Status, p)
+		}
+	}
+	if len(points) == 0 {
+		t.Error("no trend point for the first upload")
+	}
 
 	// The whole log in a fresh dataset, its first 500 rows first: the
 	// second upload holds 500 rows already and adds the rest with one row

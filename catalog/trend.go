@@ -85,7 +85,7 @@ type UploadAlert struct {
 }
 
 // Trend returns the quality of every upload with a report (accepted or
-// rejected), oldest first, at site (every site and the all-sites point
+// rejected; not a duplicate, whose events were judged before), oldest first, at site (every site and the all-sites point
 // when site is empty), and the alerts raised, newest first.
 func (s *Store) Trend(ctx context.Context, project, dataset, site string) ([]TrendPoint, []UploadAlert, error) {
 	ups, err := s.Uploads(ctx, project, dataset)
@@ -95,12 +95,13 @@ func (s *Store) Trend(ctx context.Context, project, dataset, site string) ([]Tre
 	points := []TrendPoint{}
 	alerts := []UploadAlert{}
 	for _, up := range ups {
-		if up.Report == nil {
-			continue
-		}
-		for _, p := range quality.TrendPoints(up.ID.String(), up.Seq, up.ReceivedAt, up.Report) {
-			if site == "" || p.Site == site {
-				points = append(points, TrendPoint{TrendPoint: p, Status: up.Status, Version: up.Version})
+		// A duplicate's report holds its rows only (no events judged): no
+		// point, but its alerts (a jump in the held share) are listed.
+		if up.Report != nil && up.Status != UploadDuplicate {
+			for _, p := range quality.TrendPoints(up.ID.String(), up.Seq, up.ReceivedAt, up.Report) {
+				if site == "" || p.Site == site {
+					points = append(points, TrendPoint{TrendPoint: p, Status: up.Status, Version: up.Version})
+				}
 			}
 		}
 		for _, a := range up.Alerts {

@@ -73,6 +73,10 @@ type Rows struct {
 	Held int64 `json:"held,omitempty"`
 }
 
+// InFile is the count of the file's rows: judged, rejected, and held
+// already or copies.
+func (r Rows) InFile() int64 { return r.Total + r.Held }
+
 // RejectionCount is how many rows were rejected for one reason.
 type RejectionCount struct {
 	Reason  schema.Reason `json:"reason"`
@@ -298,7 +302,7 @@ type Sample struct {
 // included), 0 when there were no rows; a dataset's rejection threshold
 // is compared against it.
 func (r *Report) RejectedShare() float64 {
-	return share(r.Rows.Rejected, r.Rows.Total+r.Rows.Held)
+	return share(r.Rows.Rejected, r.Rows.InFile())
 }
 
 // Dimension returns the dimension named name, or nil.

@@ -41,7 +41,7 @@ func (r *Report) textHead(bw *bufio.Writer, p *painter) {
 		// An upload that re-sends held events: what the file had, and
 		// which of its rows the scores below judge.
 		fmt.Fprintf(bw, "rows   %d in the file: %d rejected (%s), %d held already or copies (not judged again), %d accepted and judged here\n",
-			r.Rows.Total+h, r.Rows.Rejected, percent(r.RejectedShare()), h, r.Rows.Accepted)
+			r.Rows.InFile(), r.Rows.Rejected, percent(r.RejectedShare()), h, r.Rows.Accepted)
 	} else {
 		fmt.Fprintf(bw, "rows   %d total, %d accepted, %d rejected (%s)\n",
 			r.Rows.Total, r.Rows.Accepted, r.Rows.Rejected, percent(r.RejectedShare()))

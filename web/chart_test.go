@@ -61,7 +61,10 @@ func TestRenderEveryPage(t *testing.T) {
 			content = Catalog{}
 		case "dataset":
 			content = DatasetPage{D: &catalog.Dataset{Project: "p", Name: "d"}, Curator: true,
-				Audit: []catalog.AuditEntry{{At: time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC), By: "curator-p", Action: "version.publish", Target: "p/d@1"}}}
+				Audit: []catalog.AuditEntry{{At: time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC), By: "curator-p", Action: "version.publish", Target: "p/d@1"}},
+				Uploads: []catalog.Upload{{ID: "u2", Seq: 2, Status: catalog.UploadDuplicate, Version: 1, Report: &quality.Report{
+					Rows:       quality.Rows{Total: 1, Rejected: 1, Held: 499},
+					Rejections: []quality.RejectionCount{{Reason: "bad_timestamp", Count: 1, Samples: []quality.Sample{{Line: 202}}}}}}}}
 		case "version":
 			content = VersionPage{D: &catalog.Dataset{Project: "p", Name: "d"}, V: &catalog.Version{Number: 1, State: catalog.StateDraft}, Curator: true}
 		}
@@ -70,6 +73,11 @@ func TestRenderEveryPage(t *testing.T) {
 		}
 		if name == "dataset" && !strings.Contains(b.String(), "<td>version.publish</td><td>p/d@1</td>") {
 			t.Error("the dataset page does not show its audit entries")
+		}
+		// A re-send's refused rows are counted among the file's rows,
+		// held ones included (quality.Rows.InFile).
+		if name == "dataset" && !strings.Contains(b.String(), "Rows refused, by reason (1 of 500)") {
+			t.Error("the dataset page does not count a re-send's refused rows among the file's")
 		}
 		if !strings.Contains(b.String(), `<html lang="en">`) || !strings.Contains(b.String(), `name="csrf" value="tok"`) {
 			t.Errorf("%s: no language or no form token", name)
