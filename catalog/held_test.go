@@ -911,4 +911,33 @@ func TestHeldResendWithBrokenRow(t *testing.T) {
 	if r := vrep.Rows; r.Held != 0 || r.Accepted != res.Version.Manifest.Rows {
 		t.Errorf("version's rows %+v, want %d accepted and none held", r, res.Version.Manifest.Rows)
 	}
+	// The stored report encodes again to its own bytes: Report's
+	// MarshalJSON writes a full report member by member as declared.
+	stored, err := e.s.QualityReport(context.Background(), res.Version)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var decoded quality.Report
+	if err := json.Unmarshal(stored, &decoded); err != nil || decoded.Version != quality.ReportVersion {
+		t.Fatalf("stored report: %v, version %q", err, decoded.Version)
+	}
+	if again, err := json.Marshal(decoded); err != nil || !bytes.Equal(again, stored) {
+		t.Errorf("the stored report does not encode again to its bytes (%v)", err)
+	}
+	if bytes.Contains(stored, []byte(`"rows_only"`)) || bytes.Contains(stored, []byte(`"held"`)) {
+		t.Error("a version's report names rows_only or held rows: its bytes are not those of earlier releases' form")
+	}
+	// A duplicate's report is its rows and rejections, and nothing that
+	// reads as a figure of events it never judged.
+	b, err := json.Marshal(ups[len(ups)-1].Report)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var members map[string]json.RawMessage
+	if err := json.Unmarshal(b, &members); err != nil {
+		t.Fatal(err)
+	}
+	if len(members) != 4 || members["rows_only"] == nil || members["rows"] == nil || members["rejections"] == nil || members["version"] == nil {
+		t.Errorf("duplicate's report %s", b)
+	}
 }

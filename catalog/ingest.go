@@ -1024,7 +1024,7 @@ func (s *Store) duplicate(ctx context.Context, ds *Dataset, up Upload, v *Versio
 	// (a partner re-sending a file with a broken row is told of it, though
 	// nothing is stored).
 	if r := up.Report; r != nil {
-		up.Report = &quality.Report{Version: r.Version, Rows: r.Rows, Rejections: r.Rejections}
+		up.Report = quality.RowsOf(r)
 	}
 	if v == nil {
 		if err := s.recordUpload(ctx, ds, &up); err != nil {

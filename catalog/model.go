@@ -140,7 +140,7 @@ type Upload struct {
 	Status     UploadStatus    `json:"status"`
 	Version    int             `json:"version,omitempty"`
 	Error      *UploadError    `json:"error,omitempty"`
-	Report     *quality.Report `json:"report,omitempty"` // its events' quality; a duplicate's holds its rows and rejections only
+	Report     *quality.Report `json:"report,omitempty"` // its events' quality; a duplicate's is RowsOnly
 	Unmapped   []string        `json:"unmapped_columns,omitempty"`
 	Events     *EventCounts    `json:"events,omitempty"` // what became of its valid events: new, already held, copies, changed
 	Alerts     []quality.Alert `json:"alerts,omitempty"` // drift against the site's recent uploads

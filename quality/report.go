@@ -2,6 +2,7 @@ package quality
 
 import (
 	"cmp"
+	"encoding/json"
 	"iter"
 	"math"
 	"math/big"
@@ -59,6 +60,34 @@ type Report struct {
 	UnmappedColumns []string `json:"unmapped_columns,omitempty"`
 	// Raw holds the counts and sums everything else is derived from.
 	Raw Raw `json:"raw"`
+	// RowsOnly marks the report of an upload that judged no event (all
+	// held already: a duplicate): it holds Version, Rows and Rejections
+	// only, and its JSON has only those members and this one.
+	RowsOnly bool `json:"rows_only,omitempty"`
+}
+
+// RowsOf returns a report of r's rows and rejections only (RowsOnly).
+func RowsOf(r *Report) *Report {
+	rej := r.Rejections
+	if rej == nil {
+		rej = []RejectionCount{}
+	}
+	return &Report{Version: r.Version, Rows: r.Rows, Rejections: rej, RowsOnly: true}
+}
+
+// MarshalJSON writes a RowsOnly report as its version, rows and
+// rejections, and any other report member by member as declared.
+func (r Report) MarshalJSON() ([]byte, error) {
+	if r.RowsOnly {
+		return json.Marshal(struct {
+			Version    string           `json:"version"`
+			RowsOnly   bool             `json:"rows_only"`
+			Rows       Rows             `json:"rows"`
+			Rejections []RejectionCount `json:"rejections"`
+		}{r.Version, true, r.Rows, r.Rejections})
+	}
+	type plain Report // its fields and their tags, without this method
+	return json.Marshal(plain(r))
 }
 
 // Rows counts the source rows.
