@@ -646,7 +646,6 @@ func (s *Store) deriveVersion(ctx context.Context, c *toCommit, parent *Version,
 	nv := &newVersion{vp: vp, va: va}
 	nv.rep = c.pass.acc.Report()
 	nv.rep.UnmappedColumns = up.Unmapped
-	up.Report = nv.rep
 	// The version's report names the file of each sample line.
 	frep := nv.rep.WithFile(up.Filename)
 	// The upload's record counts the rows it did not judge; the file's

@@ -20,7 +20,7 @@ const driftHistory = 500
 // returns the alerts. It reads uploads newest first and stops when every
 // site of the upload has a full window or after driftHistory uploads.
 func driftAlerts(tx *bolt.Tx, ref string, up *Upload) []quality.Alert {
-	if up.Report == nil || up.Status == UploadDuplicate { // a duplicate's report holds its rows only
+	if !judged(up) {
 		return nil
 	}
 	cur := withEvents(quality.TrendPoints(up.ID.String(), up.Seq, up.ReceivedAt, up.Report))
@@ -60,6 +60,10 @@ func driftAlerts(tx *bolt.Tx, ref string, up *Upload) []quality.Alert {
 	return alerts
 }
 
+// judged reports whether up has a report that judged events: not none,
+// and not a duplicate's rows and rejections alone (quality.Report.RowsOnly).
+func judged(up *Upload) bool { return up.Report != nil && !up.Report.RowsOnly }
+
 // withEvents drops the points of sites with no event in the report: a
 // site whose events of the upload were all held already (or all invalid)
 // has nothing to compare, and its shares would read 0.
@@ -85,8 +89,9 @@ type UploadAlert struct {
 }
 
 // Trend returns the quality of every upload with a report (accepted or
-// rejected; not a duplicate, whose events were judged before), oldest first, at site (every site and the all-sites point
-// when site is empty), and the alerts raised, newest first.
+// rejected; not a duplicate, whose events were judged before), oldest
+// first, at site (every site and the all-sites point when site is empty),
+// and the alerts raised, newest first.
 func (s *Store) Trend(ctx context.Context, project, dataset, site string) ([]TrendPoint, []UploadAlert, error) {
 	ups, err := s.Uploads(ctx, project, dataset)
 	if err != nil {
@@ -95,9 +100,9 @@ func (s *Store) Trend(ctx context.Context, project, dataset, site string) ([]Tre
 	points := []TrendPoint{}
 	alerts := []UploadAlert{}
 	for _, up := range ups {
-		// A duplicate's report holds its rows only (no events judged): no
-		// point, but its alerts (a jump in the held share) are listed.
-		if up.Report != nil && up.Status != UploadDuplicate {
+		// A report of rows only makes no point, but the upload's alerts
+		// (a jump in the held share) are listed.
+		if judged(&up) {
 			for _, p := range quality.TrendPoints(up.ID.String(), up.Seq, up.ReceivedAt, up.Report) {
 				if site == "" || p.Site == site {
 					points = append(points, TrendPoint{TrendPoint: p, Status: up.Status, Version: up.Version})
