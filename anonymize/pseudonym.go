@@ -135,3 +135,23 @@ func IsPseudonym(s string) bool {
 	}
 	return idx%4 == 0
 }
+
+// RowKeyLen is the length of a RowKey.
+const RowKeyLen = 16
+
+// RowKey is what the catalog stores to tell a rejected row sent again:
+// the first 16 bytes of HMAC-SHA256(first key of the chain,
+// "flowcat/v1/row\x00" + d), d being the SHA-256 of the row's source
+// text (schema.RowDigest). Keyed by the chain's first generation, like
+// every pseudonym's root, it stays the same after a key rotation; without
+// the key it cannot be tested against a guessed row.
+func (p *Pseudonymizer) RowKey(d schema.RowDigest) [RowKeyLen]byte {
+	b := append(p.buf[:0], domainPrefix+"row\x00"...)
+	b = append(b, d[:]...)
+	sum := p.gens[0].mac.compute(b)
+	clear(b)
+	p.buf = b[:0]
+	var k [RowKeyLen]byte
+	copy(k[:], sum)
+	return k
+}

@@ -111,12 +111,14 @@ type csvSplitter struct {
 	ends   []int  // end offset of each field in rec
 	held   []pendingLine
 	fields []string
+	first  []byte // a copy of a record's first line once it reads on
 }
 
 // csvError is a record that does not parse: its line and why.
 type csvError struct {
 	line int64
 	msg  string
+	text []byte // the line's text, for its RowDigest; valid until the next read
 }
 
 func (e *csvError) Error() string { return e.msg }
@@ -166,13 +168,14 @@ func (s *csvSplitter) parse(line []byte, no int64) ([]string, error) {
 		}
 	}
 	size := len(line)
+	first := line // valid until the next line is read (see below)
 	// fail rejects the first line alone: lines read past it go back.
 	fail := func(msg string) error {
 		if len(s.held) > 0 {
 			s.lr.unread(s.held)
 			s.held = nil
 		}
-		return &csvError{line: no, msg: msg}
+		return &csvError{line: no, msg: msg, text: first}
 	}
 	pos := 0
 	for {
@@ -189,6 +192,11 @@ func (s *csvSplitter) parse(line []byte, no int64) ([]string, error) {
 					}
 					if len(s.held)+2 > s.maxLines {
 						return nil, fail(`a quoted field is not closed within multiline.max_lines lines (a stray '"'?)`)
+					}
+					if len(s.held) == 0 {
+						// Reading on reuses the line's buffer.
+						s.first = append(s.first[:0], first...)
+						first = s.first
 					}
 					next, nno, err := s.lr.next()
 					if err != nil {

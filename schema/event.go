@@ -1,6 +1,8 @@
 package schema
 
 import (
+	"crypto/sha256"
+	"encoding/binary"
 	"fmt"
 	"strings"
 	"time"
@@ -196,6 +198,34 @@ type Rejection struct {
 	// that does not parse. It is left empty when the value holds one of
 	// the row's own identifier values (a column slip; see Reader).
 	Text string `json:"text,omitempty"`
+	// Row identifies the rejected row by its source text (see RowDigest);
+	// zero when the reader could not tell it. Never encoded.
+	Row RowDigest `json:"-"`
+}
+
+// RowDigest is the SHA-256 of a rejected row's source text, so that the
+// same broken row sent again in a later file can be told from another:
+// over the record's fields for CSV and TSV (each prefixed by its length,
+// so quoting does not matter), over the line for JSON Lines and for a CSV
+// line that does not parse, over the event's mapped values for XES. It is
+// a digest of raw values, identifiers among them: it stays in memory, and
+// what is stored of it is keyed first (anonymize.Pseudonymizer.RowKey).
+type RowDigest [32]byte
+
+// IsZero reports whether d is the zero digest (row not identified).
+func (d RowDigest) IsZero() bool { return d == RowDigest{} }
+
+// digestFields is the RowDigest of a record's fields.
+func digestFields(rec []string) RowDigest {
+	h := sha256.New()
+	var n [binary.MaxVarintLen64]byte
+	for _, f := range rec {
+		h.Write(n[:binary.PutUvarint(n[:], uint64(len(f)))])
+		h.Write([]byte(f))
+	}
+	var d RowDigest
+	h.Sum(d[:0])
+	return d
 }
 
 func (r Rejection) String() string {

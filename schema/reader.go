@@ -4,6 +4,7 @@ import (
 	"bufio"
 	"bytes"
 	"compress/gzip"
+	"crypto/sha256"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -69,6 +70,23 @@ type Reader struct {
 	err  error // sticky end: io.EOF or a *FileError
 
 	attrs attrState // the profile's attributes (reader_attrs.go)
+
+	// The current row's source text, for a rejection's RowDigest: its
+	// fields (CSV, XES) or its line (JSON Lines, a CSV line that does not
+	// parse). Valid until the next row is read.
+	curRec  []string
+	curLine []byte
+}
+
+// rowDigest is the RowDigest of the current row.
+func (rd *Reader) rowDigest() RowDigest {
+	if rd.curRec != nil {
+		return digestFields(rd.curRec)
+	}
+	if rd.curLine != nil {
+		return sha256.Sum256(rd.curLine)
+	}
+	return RowDigest{}
 }
 
 // fieldsArray fixes the number of schema fields at compile time.
@@ -399,14 +417,19 @@ func (rd *Reader) Next(e *Event) (*Rejection, error) {
 	if err != nil {
 		rd.err = err
 	}
+	if rej != nil {
+		rej.Row = rd.rowDigest()
+	}
 	return rej, err
 }
 
 func (rd *Reader) nextCSV(e *Event) (*Rejection, error) {
 	rec, line, err := rd.csv.read()
+	rd.curRec, rd.curLine = rec, nil
 	if err != nil {
 		var ce *csvError
 		if errors.As(err, &ce) {
+			rd.curLine = ce.text
 			if ferr := rd.countRow(ce.line); ferr != nil {
 				return nil, ferr
 			}
@@ -524,6 +547,7 @@ func (rd *Reader) nextJSON(e *Event) (*Rejection, error) {
 		if len(b) == 0 {
 			continue
 		}
+		rd.curRec, rd.curLine = nil, b
 		line := rd.lineNo
 		if ferr := rd.countRow(line); ferr != nil {
 			return nil, ferr

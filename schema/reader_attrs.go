@@ -119,11 +119,11 @@ func (rd *Reader) Attributes(dst []string, shift time.Duration) ([]string, *Reje
 			switch b[0] {
 			case '"':
 				if err := json.Unmarshal(b, &raw); err != nil {
-					return dst, &Rejection{Line: rd.lineNo, Column: a.Column, Reason: ReasonBadValue, Message: "attribute " + a.Name + ": the string does not decode"}
+					return dst, rd.attrRejection(rd.lineNo, a.Column, "attribute "+a.Name+": the string does not decode")
 				}
 			case 'n':
 			case '{', '[':
-				return dst, &Rejection{Line: rd.lineNo, Column: a.Column, Reason: ReasonBadValue, Message: "attribute " + a.Name + ": want a string or a number"}
+				return dst, rd.attrRejection(rd.lineNo, a.Column, "attribute "+a.Name+": want a string or a number")
 			default:
 				raw = string(b)
 			}
@@ -134,9 +134,15 @@ func (rd *Reader) Attributes(dst []string, shift time.Duration) ([]string, *Reje
 			if rd.csv != nil {
 				line = rd.attrs.line
 			}
-			return dst, &Rejection{Line: line, Column: a.Column, Reason: ReasonBadValue, Message: err.Error()}
+			return dst, rd.attrRejection(line, a.Column, err.Error())
 		}
 		dst = append(dst, v)
 	}
 	return dst, nil
+}
+
+// attrRejection rejects the current row for an attribute's value
+// (bad_value), with the row's digest.
+func (rd *Reader) attrRejection(line int64, col, msg string) *Rejection {
+	return &Rejection{Line: line, Column: col, Reason: ReasonBadValue, Message: msg, Row: rd.rowDigest()}
 }

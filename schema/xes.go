@@ -245,6 +245,7 @@ func (rd *Reader) nextXES(e *Event) (*Rejection, error) {
 						return nil, ferr
 					}
 					rd.fillXES()
+					rd.curRec, rd.curLine = rd.vals[:], nil
 					return rd.build(e, line)
 				}
 				if name == "trace" {
