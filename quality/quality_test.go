@@ -547,3 +547,51 @@ func TestMergeHoursFarApart(t *testing.T) {
 		t.Errorf("merged runs %+v; want 1700-01-01 [1] and 2000-01-01T05 [2]", m.Runs)
 	}
 }
+
+// TestLessRepeats: merging a file's report less the rejected rows an
+// earlier file counted gives the report of a merge in which the later
+// file never held them (the same JSON but for rows.rejected_again), and
+// the repeated row's sample is gone.
+func TestLessRepeats(t *testing.T) {
+	evs := stream(2, 1, 1)
+	h := len(evs) / 2
+	bad := schema.Rejection{Line: 7, Reason: schema.ReasonBadTimestamp, Message: "x"}
+	r1 := run(fixtureOptions(), evs[:h], nil, []schema.Rejection{bad})
+	resent := bad
+	resent.Line = 3 // the same row, elsewhere in the later file
+	other := schema.Rejection{Line: 9, Reason: schema.ReasonBadTimestamp, Message: "y"}
+	short := schema.Rejection{Line: 4, Reason: schema.ReasonFieldCount, Message: "z"}
+	r2 := run(fixtureOptions(), evs[h:], nil, []schema.Rejection{resent, other, short})
+	without := run(fixtureOptions(), evs[h:], nil, []schema.Rejection{other, short})
+
+	var rp Repeats
+	rp.Add(schema.ReasonBadTimestamp, 3)
+	got, err := MergeReports(r1, LessRepeats(r2, rp))
+	if err != nil {
+		t.Fatal(err)
+	}
+	want, err := MergeReports(r1, without)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got.Rows.Again != 1 || got.Rows.Rejected != 3 || got.Rows.Total != int64(len(evs))+3 {
+		t.Fatalf("rows %+v, want 3 rejected, %d total, 1 again", got.Rows, len(evs)+3)
+	}
+	got.Rows.Again = 0
+	a, _ := json.Marshal(got)
+	b, _ := json.Marshal(want)
+	if !bytes.Equal(a, b) {
+		t.Errorf("merge less repeats:\n%s\nwant\n%s", a, b)
+	}
+	if r2.Rows.Rejected != 3 || len(r2.Rejections) != 2 {
+		t.Errorf("LessRepeats changed its argument: %+v", r2.Rows)
+	}
+	var text bytes.Buffer
+	got.Rows.Again = 1
+	if err := got.Text(&text, false); err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(text.String(), "1 rejected row sent again by a later file (the same text), counted once above") {
+		t.Errorf("text report does not tell the row sent again:\n%s", text.String())
+	}
+}

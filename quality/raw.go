@@ -325,6 +325,7 @@ func MergeReports(rs ...*Report) (*Report, error) {
 		out.Rows.Total += r.Rows.Total
 		out.Rows.Accepted += r.Rows.Accepted
 		out.Rows.Rejected += r.Rows.Rejected
+		out.Rows.Again += r.Rows.Again
 		for _, rc := range r.Rejections {
 			j := slices.IndexFunc(out.Rejections, func(x RejectionCount) bool { return x.Reason == rc.Reason })
 			if j < 0 {
@@ -354,6 +355,63 @@ func MergeReports(rs ...*Report) (*Report, error) {
 	slices.SortFunc(out.Rejections, func(x, y RejectionCount) int { return cmp.Compare(x.Reason, y.Reason) })
 	slices.Sort(out.UnmappedColumns)
 	return derive(out.Rows, out.Rejections, out.Raw, out.UnmappedColumns), nil
+}
+
+// Repeats are the rejected rows of one file's report that an earlier file
+// of the same version rejected too: how many per reason, and their lines.
+type Repeats struct {
+	ByReason map[schema.Reason]int64
+	Lines    map[int64]bool
+}
+
+// Add counts one repeated row.
+func (rp *Repeats) Add(reason schema.Reason, line int64) {
+	if rp.ByReason == nil {
+		rp.ByReason, rp.Lines = map[schema.Reason]int64{}, map[int64]bool{}
+	}
+	rp.ByReason[reason]++
+	rp.Lines[line] = true
+}
+
+// N is the count of repeated rows.
+func (rp *Repeats) N() int64 {
+	var n int64
+	for _, c := range rp.ByReason {
+		n += c
+	}
+	return n
+}
+
+// LessRepeats returns r without the rows of rp, for merging into a
+// version whose other files count them already: Total and Rejected less
+// them, each reason's count less its own, the samples at their lines
+// dropped, Rows.Again counting them. r itself is not changed. The result
+// is to be merged (MergeReports derives its figures again).
+func LessRepeats(r *Report, rp Repeats) *Report {
+	n := rp.N()
+	if n == 0 {
+		return r
+	}
+	out := *r
+	out.Rows.Total -= n
+	out.Rows.Rejected -= n
+	out.Rows.Again += n
+	out.Rejections = make([]RejectionCount, 0, len(r.Rejections))
+	for _, rc := range r.Rejections {
+		rc.Count -= rp.ByReason[rc.Reason]
+		if rc.Count <= 0 {
+			continue
+		}
+		smp := make([]Sample, 0, len(rc.Samples))
+		for _, s := range rc.Samples {
+			if !rp.Lines[s.Line] {
+				smp = append(smp, s)
+			}
+		}
+		rc.Samples = smp
+		out.Rejections = append(out.Rejections, rc)
+	}
+	return &out
 }
 
 func appendSamples(dst []Sample, max int, src []Sample) []Sample {

@@ -100,6 +100,11 @@ type Rows struct {
 	// the file (the upload's events.already_held and events.copies). The
 	// file had Total + Held rows. A version's report has none.
 	Held int64 `json:"held,omitempty"`
+	// Again counts, in a version's report, rejected rows of its files
+	// that an earlier file of the version rejected too (the same source
+	// text: a re-sent broken row). Each is counted once, in the file that
+	// first held it; Total and Rejected leave these out (LessRepeats).
+	Again int64 `json:"rejected_again,omitempty"`
 }
 
 // InFile is the count of the file's rows: judged, rejected, and held

@@ -46,6 +46,13 @@ func (r *Report) textHead(bw *bufio.Writer, p *painter) {
 		fmt.Fprintf(bw, "rows   %d total, %d accepted, %d rejected (%s)\n",
 			r.Rows.Total, r.Rows.Accepted, r.Rows.Rejected, percent(r.RejectedShare()))
 	}
+	if a := r.Rows.Again; a > 0 {
+		if a == 1 {
+			bw.WriteString("       1 rejected row sent again by a later file (the same text), counted once above\n")
+		} else {
+			fmt.Fprintf(bw, "       %d rejected rows sent again by later files (the same text), counted once above\n", a)
+		}
+	}
 	if r.TimeRange.First != nil {
 		fmt.Fprintf(bw, "time   %s .. %s\n       resolution %s (%s)\n", r.TimeRange.First.Format(time.RFC3339),
 			r.TimeRange.Last.Format(time.RFC3339), r.Resolution.Grid, r.Resolution.Zone)
