@@ -522,26 +522,44 @@ func (s *Store) reportOfFile(f FileEntry, ref string) (*quality.Report, error) {
 // files: on append, the parent's report merged with the upload's; else the
 // merge of every file's report (rewritten files have a report computed as
 // they were rewritten, without the rejected rows and source lines of their
-// first upload).
-func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePlan, rep *quality.Report, mode Mode) (*quality.Report, error) {
+// first upload). Either way a rejected row an earlier upload of the version
+// rejected too counts once (rejectedrows.go); entry and rej are the
+// upload's new file (nil for none) and rejected rows.
+func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePlan, rep *quality.Report, mode Mode, entry *FileEntry, rej *rejectedRows) (*quality.Report, error) {
+	ref := parentRef(parent)
+	var newFile *blob.ID
+	if entry != nil {
+		newFile = &entry.SHA256
+	}
 	if mode == ModeAppend && parent != nil && !parent.Quality.SHA256.IsZero() {
 		if pr, err := s.Report(ctx, parent); err == nil {
+			reps, err := s.versionRepeats(ref, plan.files, newFile, rej, true)
+			if err != nil {
+				return nil, err
+			}
+			if newFile != nil {
+				rep = quality.LessRepeats(rep, reps[*newFile])
+			}
 			if r, err := quality.MergeReports(pr, rep); err == nil {
 				return r, nil
 			}
 		}
+	}
+	reps, err := s.versionRepeats(ref, plan.files, newFile, rej, false)
+	if err != nil {
+		return nil, err
 	}
 	var rs []*quality.Report
 	for _, f := range plan.files {
 		r := plan.reports[f.SHA256]
 		if r == nil {
 			var err error
-			if r, err = s.reportOfFile(f, parentRef(parent)); err != nil {
+			if r, err = s.reportOfFile(f, ref); err != nil {
 				return nil, err
 			}
-			r.SetFile(s.uploadFilename(parentRef(parent), f.Upload))
+			r.SetFile(s.uploadFilename(ref, f.Upload))
 		}
-		rs = append(rs, r)
+		rs = append(rs, quality.LessRepeats(r, reps[f.SHA256]))
 	}
 	if len(rs) == 0 {
 		return rep, nil

@@ -172,6 +172,7 @@ type ingest struct {
 	acc  *quality.Accumulator
 	srt  *sorter
 	ids  *uploadIdentities // the identities read (repeats.go)
+	rej  *rejectedRows     // the rows rejected, keyed (rejectedrows.go)
 	// set by pass
 	hf    *heldFilter
 	sw    *snapshotWriter
@@ -216,7 +217,7 @@ func (in *ingest) run(ctx context.Context, project, dataset string, src io.Reade
 		testHookBeforeCommit()
 	}
 	return in.s.commit(ctx, &toCommit{ds: in.ds, up: in.up, entry: in.entry, sum: in.sacc,
-		pass: &uploadPass{cases: in.cases, entry: in.entry, acc: in.acc}, qopt: in.qopt, keyID: in.pz.KeyID(), opt: in.opt})
+		pass: &uploadPass{cases: in.cases, entry: in.entry, acc: in.acc}, qopt: in.qopt, keyID: in.pz.KeyID(), opt: in.opt, rej: in.rej})
 }
 
 func (in *ingest) onDone(f func()) { in.cleanups = append(in.cleanups, f) }
@@ -278,6 +279,7 @@ func (in *ingest) start(ctx context.Context, project, dataset string) error {
 	// upload holds keeps them to the events that can be found there
 	// again (repeats.go).
 	in.ids = newUploadIdentities(IdentityOf(prof))
+	in.rej = &rejectedRows{}
 	return nil
 }
 
@@ -301,7 +303,7 @@ func (in *ingest) read(ctx context.Context, src io.Reader) (*IngestResult, error
 	in.onDone(in.opt.attrs.close)
 	rd, err := schema.NewReader(tee, in.prof, schema.ReaderOptions{Name: up.Filename, Limits: s.opt.Limits})
 	if err == nil {
-		err = readAll(ctx, rd, in.pz, in.acc, in.srt, in.opt.attrs, in.ids)
+		err = readAll(ctx, rd, in.pz, in.acc, in.srt, in.opt.attrs, in.ids, in.rej)
 	}
 	if err != nil && !(removing(in.opt) && isNoRows(err)) {
 		return fail(err)
@@ -554,6 +556,7 @@ type toCommit struct {
 	qopt  quality.Options
 	keyID string
 	opt   IngestOptions
+	rej   *rejectedRows // the upload's rejected rows
 }
 
 // commit makes the new version from the latest one. The caller holds the
@@ -656,7 +659,7 @@ func (s *Store) deriveVersion(ctx context.Context, c *toCommit, parent *Version,
 	if c.entry != nil {
 		plan.reports[c.entry.SHA256] = frep
 	}
-	merged, err := s.mergeQuality(ctx, parent, plan, frep, mergeMode(opt.Mode, plan))
+	merged, err := s.mergeQuality(ctx, parent, plan, frep, mergeMode(opt.Mode, plan), c.entry, c.rej)
 	if err != nil {
 		nv.release()
 		return nil, err
@@ -766,6 +769,9 @@ func (s *Store) storeVersion(ctx context.Context, c *toCommit, parent *Version, 
 		if err := putJSON(tx.Bucket(bucketUploads), seqKey(cur.Ref().String(), up.Seq), up); err != nil {
 			return err
 		}
+		if err := putRejectedRows(tx, cur.Ref().String(), up.Seq, c.rej); err != nil {
+			return err
+		}
 		if up.Mode == ModeAppend {
 			if err := tx.Bucket(bucketDigests).Put(digestKey(cur.Ref().String(), up.SHA256), binary.BigEndian.AppendUint32(nil, uint32(v.Number))); err != nil {
 				return err
@@ -860,10 +866,11 @@ func (s *Store) appendedBefore(ctx context.Context, ds *Dataset, hexDigest strin
 // With declared attributes (ai not nil) rows are read one by one, since
 // an attribute is taken from the reader's current row; else they are
 // parsed on another goroutine (readAhead).
-func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer, acc *quality.Accumulator, srt *sorter, ai *attrIngest, ids *uploadIdentities) error {
+func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer, acc *quality.Accumulator, srt *sorter, ai *attrIngest, ids *uploadIdentities, rr *rejectedRows) error {
 	row := func(e *schema.Event, rej *schema.Rejection) error {
 		if rej != nil {
 			acc.Reject(*rej)
+			rr.add(pz, rej)
 			return nil
 		}
 		d := pz.ApplyShift(e, ai.shiftDays())
@@ -871,6 +878,7 @@ func readAll(ctx context.Context, rd *schema.Reader, pz *anonymize.Pseudonymizer
 			return err
 		} else if rej != nil {
 			acc.Reject(*rej)
+			rr.add(pz, rej)
 			return nil
 		}
 		// Snapshots keep microseconds; truncate before any comparison so

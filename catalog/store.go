@@ -129,7 +129,7 @@ func Open(path string, blobs blob.Store, opt Options) (*Store, error) {
 		return nil, fmt.Errorf("catalog: %w", err)
 	}
 	err = db.Update(func(tx *bolt.Tx) error {
-		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketCaseGroups, bucketManifests, bucketReports, bucketTokens, bucketRevocations, bucketProfiles} {
+		for _, b := range [][]byte{bucketMeta, bucketProjects, bucketDatasets, bucketVersions, bucketUploads, bucketDigests, bucketAudit, bucketFileSummaries, bucketVersionSummaries, bucketVersionStates, bucketFileReports, bucketCaseGroups, bucketManifests, bucketReports, bucketTokens, bucketRevocations, bucketProfiles, bucketRejectedRows, bucketRowKeys} {
 			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
 				return err
 			}

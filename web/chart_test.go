@@ -66,7 +66,8 @@ func TestRenderEveryPage(t *testing.T) {
 					Rows:       quality.Rows{Total: 1, Rejected: 1, Held: 499},
 					Rejections: []quality.RejectionCount{{Reason: "bad_timestamp", Count: 1, Samples: []quality.Sample{{Line: 202}}}}}}}}
 		case "version":
-			content = VersionPage{D: &catalog.Dataset{Project: "p", Name: "d"}, V: &catalog.Version{Number: 1, State: catalog.StateDraft}, Curator: true}
+			content = VersionPage{D: &catalog.Dataset{Project: "p", Name: "d"}, V: &catalog.Version{Number: 1, State: catalog.StateDraft}, Curator: true,
+				Report: &quality.Report{Rows: quality.Rows{Total: 3002, Accepted: 2997, Rejected: 3, Again: 2}}}
 		}
 		if err := Render(&b, name, &Page{Title: name, Viewer: &Viewer{Subject: "s", Role: "member"}, CSRF: "tok", Content: content}); err != nil {
 			t.Fatalf("%s: %v", name, err)
@@ -78,6 +79,10 @@ func TestRenderEveryPage(t *testing.T) {
 		// held ones included (quality.Rows.InFile).
 		if name == "dataset" && !strings.Contains(b.String(), "Rows refused, by reason (1 of 500)") {
 			t.Error("the dataset page does not count a re-send's refused rows among the file's")
+		}
+		// A version counts a re-sent refused row once, and says so.
+		if name == "version" && !strings.Contains(b.String(), "2,997 accepted and 3 refused rows (2 more refused rows were sent again by a later file and are counted once)") {
+			t.Errorf("the version page does not tell the refused rows sent again")
 		}
 		if !strings.Contains(b.String(), `<html lang="en">`) || !strings.Contains(b.String(), `name="csrf" value="tok"`) {
 			t.Errorf("%s: no language or no form token", name)

@@ -1,0 +1,128 @@
+package catalog
+
+import (
+	"context"
+	"encoding/csv"
+	"encoding/json"
+	"io"
+	"reflect"
+	"slices"
+	"strings"
+	"testing"
+	"time"
+)
+
+// brokenRows counts, with the standard library alone (encoding/csv and
+// time.Parse), the rows of a semicolon CSV file that cannot be events of
+// the sepsis profile: a field count other than the header's, or a
+// timestamp that does not parse in the log's layout. It returns each
+// broken row's text, one entry per row.
+func brokenRows(t *testing.T, file string) []string {
+	t.Helper()
+	r := csv.NewReader(strings.NewReader(file))
+	r.Comma, r.FieldsPerRecord, r.LazyQuotes = ';', -1, true
+	head, err := r.Read()
+	if err != nil {
+		t.Fatal(err)
+	}
+	ts := slices.Index(head, "Complete Timestamp")
+	var out []string
+	for {
+		rec, err := r.Read()
+		if err == io.EOF {
+			return out
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(rec) != len(head) {
+			out = append(out, strings.Join(rec, ";"))
+			continue
+		}
+		if _, err := time.Parse("2006/01/02 15:04:05.000", rec[ts]); err != nil {
+			out = append(out, strings.Join(rec, ";"))
+		}
+	}
+}
+
+// TestResentBrokenRowCountsOnce: three nightly exports of the sepsis log
+// (testdata/sepsis) that overlap, as partners re-send the last days each
+// night: nights 1 and 2 both hold a row with a broken timestamp and a row
+// that lost a field; night 2 adds a broken row of its own, which night 3
+// sends again. Each upload's report counts the broken rows of its file;
+// the version's report counts each broken row once, as many as the
+// standard library finds distinct among the three files, and tells how
+// many were sent again. Merging every file's report again (as a
+// replacement does) gives the same rows and rejections as the appends.
+func TestResentBrokenRowCountsOnce(t *testing.T) {
+	lines := sepsisLines(t)
+	head, rows := lines[0], slices.Clone(lines[1:])
+	ts := slices.Index(strings.Split(head, ";"), "Complete Timestamp")
+	breakTime := func(i int) {
+		f := strings.Split(rows[i], ";")
+		f[ts] = "2014/13/45 08:00:00.000"
+		rows[i] = strings.Join(f, ";")
+	}
+	breakTime(300)
+	rows[700] = strings.Replace(rows[700], ";", "", 1) // a field lost: field_count
+	breakTime(1500)
+	e, _ := sepsisDataset(t)
+	body := func(rs []string) string { return head + "\n" + strings.Join(rs, "\n") + "\n" }
+	nights := []string{body(rows[:1000]), body(rows[500:2000]), body(rows[1200:3000])}
+
+	distinct := map[string]bool{}
+	var all int
+	var res *IngestResult
+	for n, file := range nights {
+		broken := brokenRows(t, file)
+		all += len(broken)
+		for _, b := range broken {
+			distinct[b] = true
+		}
+		res = e.ingest(t, "p", "sepsis", []byte(file), "night"+string(rune('1'+n))+".csv")
+		if res.Version == nil || res.Upload.Report == nil {
+			t.Fatalf("night %d: %s", n+1, res.Upload.Status)
+		}
+		// The upload's own report counts every broken row of its file.
+		if got := res.Upload.Report.Rows.Rejected; got != int64(len(broken)) {
+			t.Errorf("night %d: upload rejected %d rows, the file has %d broken", n+1, got, len(broken))
+		}
+	}
+	if len(distinct) != 3 || all != 5 {
+		t.Fatalf("the standard library finds %d broken rows, %d distinct; the test means 5 and 3", all, len(distinct))
+	}
+	v := res.Version
+	vrep := e.report(t, v)
+	want := int64(len(distinct))
+	if r := vrep.Rows; r.Rejected != want || r.Again != int64(all)-want || r.Accepted != v.Manifest.Rows || r.Total != r.Accepted+want {
+		t.Errorf("version rows %+v; want %d rejected, %d again, %d accepted (its rows)", r, want, all-int(want), v.Manifest.Rows)
+	}
+	byReason := map[string]int64{}
+	for _, rc := range vrep.Rejections {
+		byReason[string(rc.Reason)] = rc.Count
+		for _, s := range rc.Samples {
+			// Each broken row is shown from the first file that held it.
+			if s.File != "night1.csv" && !(s.File == "night2.csv" && s.Line == 1500-500+2) {
+				t.Errorf("sample %+v: a row sent again is shown", s)
+			}
+		}
+	}
+	if !reflect.DeepEqual(byReason, map[string]int64{"bad_timestamp": 2, "field_count": 1}) {
+		t.Errorf("version rejections by reason %v", byReason)
+	}
+	var text strings.Builder
+	if err := vrep.Text(&text, false); err != nil || !strings.Contains(text.String(), "2 rejected rows sent again by later files (the same text), counted once above") {
+		t.Errorf("version report text: %v\n%s", err, text.String())
+	}
+
+	// Every file's report merged again, as a replacement merges them.
+	rebuilt, err := e.s.mergeQuality(context.Background(), v, &filePlan{files: v.Manifest.Files}, nil, ModeReplaceAll, nil, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	a, _ := json.Marshal([]any{rebuilt.Rows, rebuilt.Rejections})
+	b, _ := json.Marshal([]any{vrep.Rows, vrep.Rejections})
+	if string(a) != string(b) {
+		t.Errorf("rebuilt from the files:\n%s\nby appends:\n%s", a, b)
+	}
+}
