@@ -12,8 +12,8 @@ import (
 // them. A line that does not parse as CSV is identified by its text.
 func TestRowDigest(t *testing.T) {
 	p := mustProfile(t, "multiline: {max_lines: 3}\n"+testProfileYAML)
-	bad := "V9,ARR,not a time,x,D9,40\n"           // bad_timestamp
-	badAge := "V9,ARR,not a time,x,D9,41\n"        // the same but for Age (unmapped)
+	bad := "V9,ARR,not a time,x,D9,40\n"            // bad_timestamp
+	badAge := "V9,ARR,not a time,x,D9,41\n"         // the same but for Age (unmapped)
 	quoted := "\"V9\",ARR,not a time,\"x\",D9,40\n" // bad's fields, quoted
 	short := "V8,ARR,2021-06-01T08:00:00Z,x\n"      // field_count
 	stray := "V7,ARR,2021-06-01T08:00:00Z,x\"y,D7,1\n"
