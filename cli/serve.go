@@ -42,7 +42,9 @@ func newServeCmd(e *env) *cobra.Command {
 			if err := level.UnmarshalText([]byte(logLevel)); err != nil {
 				return usageErr("serve: --log-level %q: want debug, info, warn or error", logLevel)
 			}
-			log := slog.New(slog.NewJSONHandler(e.stderr, &slog.HandlerOptions{Level: level}))
+			lines := newLineBuffer(e.stderr)
+			defer lines.Flush()
+			log := slog.New(warnFlusher{slog.NewJSONHandler(lines, &slog.HandlerOptions{Level: level}), lines})
 			version, goVersion := server.BuildVersion()
 			log.Info("starting", "version", version, "go", goVersion)
 			if memLimit > 0 && os.Getenv("GOMEMLIMIT") == "" {
@@ -69,6 +71,7 @@ func newServeCmd(e *env) *cobra.Command {
 				return err
 			}
 			log.Info("serving", "url", run.url, "data", dir, "blobs", where, "master_key", run.masterFrom)
+			lines.Flush() // the address, for whoever waits on it
 			return run.wait(ctx)
 		},
 	}
