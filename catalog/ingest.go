@@ -664,6 +664,11 @@ func (s *Store) deriveVersion(ctx context.Context, c *toCommit, parent *Version,
 		nv.release()
 		return nil, err
 	}
+	// The pass sees source lines on the upload's events only (stored
+	// events have none, and a group's states with lines are those of
+	// its commit's upload): a case finding's sample with a line is in
+	// the upload's file, and says so as the files' samples do.
+	vp.cases.SetFile(up.Filename)
 	nv.vrep = quality.WithCases(merged, vp.cases)
 	nv.m = c.manifest(parent, plan, vp, va)
 	return nv, nil

@@ -2,6 +2,7 @@ package quality
 
 import (
 	"hash/maphash"
+	"math"
 	"math/bits"
 	"strings"
 	"time"
@@ -525,13 +526,20 @@ func (a *Accumulator) flag(s *siteAcc, c int, e *schema.Event) {
 // lowest source lines (ties: lowest case pseudonym), so that samples do
 // not depend on the order the passes see events in (time order, or case
 // order by pseudonym) and point a partner at the top of the file first.
+// Events without a line (read back from stored files) come after every
+// line, one sample per case (sampleLine).
 func keepFirstLines(smp []Sample, max int, e *schema.Event) []Sample {
+	el := sampleLine(e.Line)
 	less := func(x *Sample) bool {
-		return e.Line < x.Line || e.Line == x.Line && e.CaseID < x.CaseID
+		xl := sampleLine(x.Line)
+		return el < xl || el == xl && e.CaseID < x.CaseID
 	}
 	i := len(smp)
 	for i > 0 && less(&smp[i-1]) {
 		i--
+	}
+	if i > 0 && smp[i-1].Line == e.Line && smp[i-1].CaseID == e.CaseID {
+		return smp // a case's other event without a line
 	}
 	if i >= max {
 		return smp
@@ -542,6 +550,16 @@ func keepFirstLines(smp []Sample, max int, e *schema.Event) []Sample {
 	copy(smp[i+1:], smp[i:len(smp)-1])
 	smp[i] = Sample{Line: e.Line, CaseID: strings.Clone(e.CaseID)}
 	return smp
+}
+
+// sampleLine is the rank of a sample's line: the line, or after every
+// line for none (0): a line in the partner's file is what a sample is
+// for, a case pseudonym alone they cannot look up.
+func sampleLine(l int64) int64 {
+	if l <= 0 {
+		return math.MaxInt64
+	}
+	return l
 }
 
 // site returns the counters of site name.

@@ -136,8 +136,8 @@ func (c *caseSums) raw() CaseRaw {
 // so that keeping the first MaxSamples in this order does not depend on
 // the order (or the grouping) in which cases were observed: case_too_long
 // by case pseudonym (the per-case pass's order), a duplicate across files
-// by case and instant, every other finding by source line, then case
-// pseudonym (see keepFirstLines). Ties are broken by every other member,
+// by case and instant, every other finding by source line (none last),
+// then case pseudonym (see keepFirstLines). Ties are broken by every other member,
 // so the order is total.
 func sampleCompare(c int) func(x, y *Sample) int {
 	switch c {
@@ -151,7 +151,7 @@ func sampleCompare(c int) func(x, y *Sample) int {
 		}
 	}
 	return func(x, y *Sample) int {
-		return cmp.Or(cmp.Compare(x.Line, y.Line), strings.Compare(x.CaseID, y.CaseID), sampleRest(x, y))
+		return cmp.Or(cmp.Compare(sampleLine(x.Line), sampleLine(y.Line)), strings.Compare(x.CaseID, y.CaseID), sampleRest(x, y))
 	}
 }
 
@@ -648,6 +648,7 @@ func (a *Accumulator) Merge(o *Accumulator) error {
 		smp := append(slices.Clone(a.samples[c]), o.samples[c]...)
 		order := sampleCompare(c)
 		slices.SortStableFunc(smp, func(x, y Sample) int { return order(&x, &y) })
+		smp = slices.CompactFunc(smp, func(x, y Sample) bool { return order(&x, &y) == 0 })
 		a.samples[c] = smp[:min(len(smp), a.opt.MaxSamples)]
 	}
 	return nil
