@@ -181,7 +181,7 @@ const (
 	ReasonNonexistentLocal Reason = "nonexistent_local" // wall-clock time skipped by a daylight-saving change
 	ReasonAmbiguousLocal   Reason = "ambiguous_local"   // wall-clock time repeated by a daylight-saving change
 	ReasonFieldCount       Reason = "field_count"       // the row has a different number of fields than the header
-	ReasonMalformedRow     Reason = "malformed_row"     // the row cannot be parsed (bad quoting, bad JSON)
+	ReasonMalformedRow     Reason = "malformed_row"     // the row cannot be parsed (bad quoting, bad JSON), or repeats the header
 	ReasonBadValue         Reason = "bad_value"         // a value has the wrong type (e.g. a JSON object)
 )
 

@@ -466,6 +466,10 @@ func (rd *Reader) nextCSV(e *Event) (*Rejection, error) {
 		return &Rejection{Line: line, Reason: ReasonFieldCount,
 			Message: fmt.Sprintf("the row has %d fields, the header %d; a stray %q or a missing quote?", len(rec), len(rd.header), rd.p.Delimiter)}, nil
 	}
+	if f, h := rec[0], rd.header[0]; len(f) >= len(h) && len(f) <= len(h)+8 && rd.repeatsHeader(rec) {
+		return &Rejection{Line: line, Reason: ReasonMalformedRow,
+			Message: fmt.Sprintf("the row repeats the header (line %d): two exports joined into one file? It holds no event", rd.hdrLine)}, nil
+	}
 	for i := range rd.cols {
 		c := &rd.cols[i]
 		if c.kind == kindColumn {
@@ -477,6 +481,20 @@ func (rd *Reader) nextCSV(e *Event) (*Rejection, error) {
 		return nil, ferr
 	}
 	return rd.build(e, line)
+}
+
+// repeatsHeader reports whether rec holds the header's names again (as
+// the header is read: trimmed, a byte-order mark before the first).
+func (rd *Reader) repeatsHeader(rec []string) bool {
+	for i, f := range rec {
+		if i == 0 {
+			f = strings.TrimPrefix(f, "\uFEFF")
+		}
+		if strings.TrimSpace(f) != rd.header[i] {
+			return false
+		}
+	}
+	return true
 }
 
 // countRow counts one data row and stops the file past Limits.MaxRows.

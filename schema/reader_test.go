@@ -976,3 +976,24 @@ func TestFieldBytesBound(t *testing.T) {
 		}
 	}
 }
+
+// TestRepeatedHeader: two exports joined into one file (the second with
+// its byte-order mark and padded names) give one rejected row naming the
+// header's line, and every event of both.
+func TestRepeatedHeader(t *testing.T) {
+	p := mustProfile(t, testProfileYAML)
+	row := "V1,ARR,2021-06-01T08:00:00Z,a,D1,1\n"
+	data := testHeader + row + row + "\uFEFFVisit, Code ,When,Step,Desk,Age\n" + row
+	res := readAll(t, strings.NewReader(data), p)
+	if res.ferr != nil || len(res.events) != 3 || len(res.rejs) != 1 {
+		t.Fatalf("ferr %v, %d events, rejections %v", res.ferr, len(res.events), res.rejs)
+	}
+	if r := res.rejs[0]; r.Line != 4 || r.Reason != ReasonMalformedRow || !strings.Contains(r.Message, "repeats the header (line 1)") {
+		t.Errorf("rejection %v", r)
+	}
+	// A row that holds one header name in its first field is data.
+	res = readAll(t, strings.NewReader(testHeader+"Visit,ARR,2021-06-01T08:00:00Z,a,D1,1\n"), p)
+	if len(res.events) != 1 || len(res.rejs) != 0 {
+		t.Errorf("a case named like the column: %d events, rejections %v", len(res.events), res.rejs)
+	}
+}
