@@ -207,9 +207,10 @@ type Rejection struct {
 // same broken row sent again in a later file can be told from another:
 // over the record's fields for CSV and TSV (each prefixed by its length,
 // so quoting does not matter), over the line for JSON Lines and for a CSV
-// line that does not parse, over the event's mapped values for XES. It is
-// a digest of raw values, identifiers among them: it stays in memory, and
-// what is stored of it is keyed first (anonymize.Pseudonymizer.RowKey).
+// line that does not parse, over the event's mapped values and its own
+// attributes for XES. It is a digest of raw values, identifiers among
+// them: it stays in memory, and what is stored of it is keyed first
+// (anonymize.Pseudonymizer.RowKey).
 type RowDigest [32]byte
 
 // IsZero reports whether d is the zero digest (row not identified).

@@ -72,8 +72,9 @@ type Reader struct {
 	attrs attrState // the profile's attributes (reader_attrs.go)
 
 	// The current row's source text, for a rejection's RowDigest: its
-	// fields (CSV, XES) or its line (JSON Lines, a CSV line that does not
-	// parse). Valid until the next row is read.
+	// fields (CSV) or its line (JSON Lines, a CSV line that does not
+	// parse); an XES event's are its attributes (xesRowDigest). Valid
+	// until the next row is read.
 	curRec  []string
 	curLine []byte
 }
@@ -85,6 +86,9 @@ func (rd *Reader) rowDigest() RowDigest {
 	}
 	if rd.curLine != nil {
 		return sha256.Sum256(rd.curLine)
+	}
+	if rd.xes != nil {
+		return rd.xesRowDigest()
 	}
 	return RowDigest{}
 }

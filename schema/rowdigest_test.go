@@ -2,6 +2,7 @@ package schema
 
 import (
 	"crypto/sha256"
+	"fmt"
 	"strings"
 	"testing"
 )
@@ -72,5 +73,40 @@ func TestRowDigest(t *testing.T) {
 	}
 	if res.rejs[0].Row != RowDigest(sha256.Sum256([]byte(line))) {
 		t.Error("a JSON line's digest is not the SHA-256 of its text")
+	}
+}
+
+// TestRowDigestXES: an XES event's digest is its mapped values and its
+// own attributes: the same broken event in another file (another line,
+// other events around it) has the same digest; one that differs in an
+// attribute the profile does not map has another.
+func TestRowDigestXES(t *testing.T) {
+	p := xesProfile(t)
+	bad := `<event><string key="concept:name" value="a"/><string key="note" value="%s"/></event>` // no time: missing_required
+	digests := func(doc string) []RowDigest {
+		t.Helper()
+		_, rejs, _, err := readAllXES(t, []byte(xesDoc(doc)), p, Limits{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var out []RowDigest
+		for _, r := range rejs {
+			if r.Row.IsZero() {
+				t.Errorf("line %d: no digest", r.Line)
+			}
+			out = append(out, r.Row)
+		}
+		return out
+	}
+	a := digests(`<trace><string key="concept:name" value="c1"/>` + fmt.Sprintf(bad, "x") + goodEvent + `</trace>`)
+	b := digests(`<trace><string key="concept:name" value="c1"/>` + goodEvent + goodEvent + "\n" + fmt.Sprintf(bad, "x") + fmt.Sprintf(bad, "y") + `</trace>`)
+	if len(a) != 1 || len(b) != 2 {
+		t.Fatalf("rejections %d and %d, want 1 and 2", len(a), len(b))
+	}
+	if a[0] != b[0] {
+		t.Error("the same event in another file has another digest")
+	}
+	if b[0] == b[1] {
+		t.Error("events that differ in an unmapped attribute have one digest")
 	}
 }

@@ -6,6 +6,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"maps"
 	"slices"
 	"strconv"
 	"strings"
@@ -245,7 +246,7 @@ func (rd *Reader) nextXES(e *Event) (*Rejection, error) {
 						return nil, ferr
 					}
 					rd.fillXES()
-					rd.curRec, rd.curLine = rd.vals[:], nil
+					rd.curRec, rd.curLine = nil, nil
 					return rd.build(e, line)
 				}
 				if name == "trace" {
@@ -533,4 +534,15 @@ func (rd *Reader) xesUnmapped() []string {
 	}
 	slices.Sort(out)
 	return out
+}
+
+// xesRowDigest is the RowDigest of the current event: its mapped values
+// (the trace's among them) and its own attributes, sorted by path.
+func (rd *Reader) xesRowDigest() RowDigest {
+	rec := slices.Clone(rd.vals[:])
+	m := rd.xes.eventAttrs.m
+	for _, k := range slices.Sorted(maps.Keys(m)) {
+		rec = append(rec, k, m[k])
+	}
+	return digestFields(rec)
 }
