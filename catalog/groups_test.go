@@ -249,7 +249,13 @@ func TestGroupsEqualFullPassSepsis(t *testing.T) {
 // its rows, in the file's order.
 func sepsisLines(t *testing.T) []string {
 	t.Helper()
-	gz, err := os.ReadFile(filepath.Join("..", "testdata", "sepsis", "sepsis-cases.csv.gz"))
+	return gzipLines(t, filepath.Join("..", "testdata", "sepsis", "sepsis-cases.csv.gz"))
+}
+
+// gzipLines reads a gzip-compressed text file of testdata into its lines.
+func gzipLines(t *testing.T, path string) []string {
+	t.Helper()
+	gz, err := os.ReadFile(path)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -1,10 +1,7 @@
 package catalog
 
 import (
-	"bytes"
-	"compress/gzip"
 	"encoding/csv"
-	"io"
 	"os"
 	"path/filepath"
 	"slices"
@@ -24,15 +21,7 @@ import (
 // held already (every start of this log lacks an arrival or enqueue
 // before it: wait_no_enqueue).
 func TestCaseSamplesNameTheirFile(t *testing.T) {
-	zr, err := gzip.NewReader(bytes.NewReader(patientsCSV(t)))
-	if err != nil {
-		t.Fatal(err)
-	}
-	raw, err := io.ReadAll(zr)
-	if err != nil {
-		t.Fatal(err)
-	}
-	lines := strings.Split(strings.TrimRight(string(raw), "\n"), "\n")
+	lines := gzipLines(t, filepath.Join("..", "testdata", "patients", "patients.csv.gz"))
 	head, rows := lines[0], lines[1:]
 	first, second := rows[:1500], rows[1000:] // the log lists all starts first (2,721)
 	prof, err := os.ReadFile(filepath.Join("..", "testdata", "patients", "profile.yaml"))
