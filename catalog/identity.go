@@ -221,9 +221,24 @@ func (u *Upload) Sentence() string {
 	}
 	rejected := ""
 	if r := u.Report; r != nil && r.Rows.Rejected > 0 {
-		rejected = printer.Sprintf("; %d %s rejected", r.Rows.Rejected, plural(r.Rows.Rejected, "row", "rows"))
+		rejected = printer.Sprintf("; %d %s rejected", r.Rows.Rejected, plural(r.Rows.Rejected, "row", "rows")) + u.RejectedNote()
 	}
 	return fmt.Sprintf("v%d already holds every event: %s%s; nothing stored", u.Version, u.Events.Sentence(0), rejected)
+}
+
+// RejectedNote says, after a count of rejected rows, how many of them an
+// upload of the version rejected before (RejectedBefore); "" for none.
+func (u *Upload) RejectedNote() string {
+	switch n := u.RejectedBefore; {
+	case n == 0:
+		return ""
+	case n == 1 && u.Report != nil && u.Report.Rows.Rejected == 1:
+		return " (rejected before: sent again)"
+	case u.Report != nil && n == u.Report.Rows.Rejected:
+		return " (all rejected before: sent again)"
+	default:
+		return printer.Sprintf(" (%d of them rejected before: sent again)", n)
+	}
 }
 
 // appendIdentity appends to b what makes e itself under id: its site and

@@ -583,6 +583,9 @@ func (s *Store) commit(ctx context.Context, c *toCommit) (*IngestResult, error) 
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	if parent != nil && sameFiles(parent.Manifest.Files, plan.files) {
+		if up.RejectedBefore, err = s.rejectedBefore(ds.Ref().String(), parent.Manifest.Files, c.rej); err != nil {
+			return nil, fmt.Errorf("ingest: %w", err)
+		}
 		return s.duplicate(ctx, ds, *up, parent)
 	}
 	if parent == nil && len(plan.files) == 0 {
@@ -660,6 +663,9 @@ func (s *Store) deriveVersion(ctx context.Context, c *toCommit, parent *Version,
 		plan.reports[c.entry.SHA256] = frep
 	}
 	merged, err := s.mergeQuality(ctx, parent, plan, frep, mergeMode(opt.Mode, plan), c.entry, c.rej)
+	if err == nil {
+		up.RejectedBefore, err = s.rejectedBefore(ds.Ref().String(), plan.files, c.rej)
+	}
 	if err != nil {
 		nv.release()
 		return nil, err

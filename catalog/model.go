@@ -130,22 +130,26 @@ const (
 // It holds no raw data: the digest is a SHA-256 of the whole file, the
 // error and report name lines, columns and rules, never identifier values.
 type Upload struct {
-	ID         UploadID        `json:"id"`
-	Seq        int             `json:"seq"`
-	Dataset    DatasetRef      `json:"dataset"`
-	Filename   string          `json:"filename,omitempty"`
-	Bytes      int64           `json:"bytes"`
-	SHA256     string          `json:"sha256,omitempty"` // of the bytes as sent
-	Mode       Mode            `json:"mode"`
-	Status     UploadStatus    `json:"status"`
-	Version    int             `json:"version,omitempty"`
-	Error      *UploadError    `json:"error,omitempty"`
-	Report     *quality.Report `json:"report,omitempty"` // its events' quality; a duplicate's is RowsOnly
-	Unmapped   []string        `json:"unmapped_columns,omitempty"`
-	Events     *EventCounts    `json:"events,omitempty"` // what became of its valid events: new, already held, copies, changed
-	Alerts     []quality.Alert `json:"alerts,omitempty"` // drift against the site's recent uploads
-	ReceivedAt time.Time       `json:"received_at"`
-	By         string          `json:"by"`
+	ID       UploadID        `json:"id"`
+	Seq      int             `json:"seq"`
+	Dataset  DatasetRef      `json:"dataset"`
+	Filename string          `json:"filename,omitempty"`
+	Bytes    int64           `json:"bytes"`
+	SHA256   string          `json:"sha256,omitempty"` // of the bytes as sent
+	Mode     Mode            `json:"mode"`
+	Status   UploadStatus    `json:"status"`
+	Version  int             `json:"version,omitempty"`
+	Error    *UploadError    `json:"error,omitempty"`
+	Report   *quality.Report `json:"report,omitempty"` // its events' quality; a duplicate's is RowsOnly
+	Unmapped []string        `json:"unmapped_columns,omitempty"`
+	Events   *EventCounts    `json:"events,omitempty"` // what became of its valid events: new, already held, copies, changed
+	Alerts   []quality.Alert `json:"alerts,omitempty"` // drift against the site's recent uploads
+	// RejectedBefore counts the rows the upload rejected that an upload
+	// the version compared with holds rejected too (the same text: a
+	// broken row sent again); they are among Report.Rows.Rejected.
+	RejectedBefore int64     `json:"rejected_before,omitempty"`
+	ReceivedAt     time.Time `json:"received_at"`
+	By             string    `json:"by"`
 }
 
 // UploadError is why a file could not be read, located in the file.

@@ -127,35 +127,64 @@ func putRejectedRows(tx *bolt.Tx, ref string, seq int, rr *rejectedRows) error {
 	return nil
 }
 
-// versionRepeats returns, per file of files (a version's, in any order),
-// its upload's rejected rows that an earlier upload of the version
-// rejected too. Only files as uploaded count (a rewritten file's report
-// holds no rejected rows). The upload being committed (newRows, its file
-// newFile; nil for none) is the latest. With onlyNew, only its file is
-// looked at (the parent's report has the others' counted already).
-func (s *Store) versionRepeats(ref string, files []FileEntry, newFile *blob.ID, newRows *rejectedRows, onlyNew bool) (map[blob.ID]quality.Repeats, error) {
-	in := map[int]bool{} // uploads whose rejected rows the version counts
+// uploadsCounted are the uploads whose rejected rows a version of files
+// counts: those of its files as uploaded (a rewritten file's report holds
+// no rejected rows).
+func uploadsCounted(files []FileEntry) map[int]bool {
+	in := map[int]bool{}
 	for _, f := range files {
 		if f.DerivedFrom == nil && f.Upload.Seq() > 0 {
 			in[f.Upload.Seq()] = true
 		}
 	}
+	return in
+}
+
+// repeatsIn returns the rows of rows whose key an upload of in numbered
+// below before rejected too.
+func repeatsIn(tx *bolt.Tx, ref string, in map[int]bool, rows []rejectedRow, before int) quality.Repeats {
+	var rp quality.Repeats
+	c := tx.Bucket(bucketRowKeys).Cursor()
+	for _, r := range rows {
+		p := rowKeyPrefix(ref, r.key)
+		for k, _ := c.Seek(p); k != nil && bytes.HasPrefix(k, p); k, _ = c.Next() {
+			if len(k) != len(p)+4 {
+				continue
+			}
+			if u := int(binary.BigEndian.Uint32(k[len(p):])); u < before && in[u] {
+				rp.Add(r.reason, r.line)
+				break
+			}
+		}
+	}
+	return rp
+}
+
+// rejectedBefore counts the rows of rr that an upload of files (a
+// version's) rejected too.
+func (s *Store) rejectedBefore(ref string, files []FileEntry, rr *rejectedRows) (int64, error) {
+	if rr == nil || len(rr.rows) == 0 {
+		return 0, nil
+	}
+	var n int64
+	err := s.db.View(func(tx *bolt.Tx) error {
+		rp := repeatsIn(tx, ref, uploadsCounted(files), rr.rows, math.MaxInt32)
+		n = rp.N()
+		return nil
+	})
+	return n, err
+}
+
+// versionRepeats returns, per file of files (a version's, in any order),
+// its upload's rejected rows that an earlier upload of the version
+// rejected too. Only files as uploaded count (uploadsCounted). The upload
+// being committed (newRows, its file newFile; nil for none) is the
+// latest. With onlyNew, only its file is looked at (the parent's report
+// has the others' counted already).
+func (s *Store) versionRepeats(ref string, files []FileEntry, newFile *blob.ID, newRows *rejectedRows, onlyNew bool) (map[blob.ID]quality.Repeats, error) {
+	in := uploadsCounted(files)
 	out := map[blob.ID]quality.Repeats{}
 	err := s.db.View(func(tx *bolt.Tx) error {
-		held := func(key [anonymize.RowKeyLen]byte, before int) bool {
-			p := rowKeyPrefix(ref, key)
-			c := tx.Bucket(bucketRowKeys).Cursor()
-			for k, _ := c.Seek(p); k != nil && bytes.HasPrefix(k, p); k, _ = c.Next() {
-				if len(k) != len(p)+4 {
-					continue
-				}
-				u := int(binary.BigEndian.Uint32(k[len(p):]))
-				if u < before && in[u] {
-					return true
-				}
-			}
-			return false
-		}
 		for _, f := range files {
 			var rows []rejectedRow
 			seq := f.Upload.Seq()
@@ -177,13 +206,7 @@ func (s *Store) versionRepeats(ref string, files []FileEntry, newFile *blob.ID, 
 					return fmt.Errorf("upload %d of %s: %w", seq, ref, err)
 				}
 			}
-			var rp quality.Repeats
-			for _, r := range rows {
-				if held(r.key, seq) {
-					rp.Add(r.reason, r.line)
-				}
-			}
-			if rp.N() > 0 {
+			if rp := repeatsIn(tx, ref, in, rows, seq); rp.N() > 0 {
 				out[f.SHA256] = rp
 			}
 		}

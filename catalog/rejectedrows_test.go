@@ -76,6 +76,12 @@ func TestResentBrokenRowCountsOnce(t *testing.T) {
 	for n, file := range nights {
 		broken := brokenRows(t, file)
 		all += len(broken)
+		var before int64 // broken rows an earlier night had
+		for _, b := range broken {
+			if distinct[b] {
+				before++
+			}
+		}
 		for _, b := range broken {
 			distinct[b] = true
 		}
@@ -83,9 +89,13 @@ func TestResentBrokenRowCountsOnce(t *testing.T) {
 		if res.Version == nil || res.Upload.Report == nil {
 			t.Fatalf("night %d: %s", n+1, res.Upload.Status)
 		}
-		// The upload's own report counts every broken row of its file.
+		// The upload's own report counts every broken row of its file,
+		// and the upload how many an earlier night had.
 		if got := res.Upload.Report.Rows.Rejected; got != int64(len(broken)) {
 			t.Errorf("night %d: upload rejected %d rows, the file has %d broken", n+1, got, len(broken))
+		}
+		if res.Upload.RejectedBefore != before {
+			t.Errorf("night %d: %d rows rejected before, the standard library finds %d", n+1, res.Upload.RejectedBefore, before)
 		}
 	}
 	if len(distinct) != 3 || all != 5 {
@@ -113,6 +123,13 @@ func TestResentBrokenRowCountsOnce(t *testing.T) {
 	var text strings.Builder
 	if err := vrep.Text(&text, false); err != nil || !strings.Contains(text.String(), "2 rejected rows sent again by later files (the same text), counted once above") {
 		t.Errorf("version report text: %v\n%s", err, text.String())
+	}
+
+	// Night 1 again in other bytes (CRLF): every event held, its two
+	// broken rows rejected before.
+	dup := e.ingest(t, "p", "sepsis", []byte(strings.ReplaceAll(nights[0], "\n", "\r\n")), "night1-again.csv")
+	if u := dup.Upload; u.Status != UploadDuplicate || u.RejectedBefore != 2 || !strings.HasSuffix(u.Sentence(), "; 2 rows rejected (all rejected before: sent again); nothing stored") {
+		t.Errorf("night 1 again: %s, %d rejected before, %q", u.Status, u.RejectedBefore, u.Sentence())
 	}
 
 	// Every file's report merged again, as a replacement merges them.

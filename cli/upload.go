@@ -169,8 +169,8 @@ func printUpload(w io.Writer, r ref, a *api.UploadResult) {
 	if u.Events != nil {
 		accepted = u.Events.Read
 	}
-	fmt.Fprintf(w, "%s@%d created from upload %s: %d rows accepted, %d rejected, quality score %s\n",
-		r, v.Number, u.ID, accepted, u.Report.Rows.Rejected, score(u.Report.Score))
+	fmt.Fprintf(w, "%s@%d created from upload %s: %d rows accepted, %d rejected%s, quality score %s\n",
+		r, v.Number, u.ID, accepted, u.Report.Rows.Rejected, u.RejectedNote(), score(u.Report.Score))
 	fmt.Fprintf(w, "snapshot %s (%d files, %d rows in all)\n", v.SnapshotID, len(v.Manifest.Files), v.Manifest.Rows)
 	if len(u.Unmapped) > 0 {
 		fmt.Fprintf(w, "dropped unmapped columns: %s\n", strings.Join(u.Unmapped, ", "))

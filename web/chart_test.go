@@ -62,7 +62,7 @@ func TestRenderEveryPage(t *testing.T) {
 		case "dataset":
 			content = DatasetPage{D: &catalog.Dataset{Project: "p", Name: "d"}, Curator: true,
 				Audit: []catalog.AuditEntry{{At: time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC), By: "curator-p", Action: "version.publish", Target: "p/d@1"}},
-				Uploads: []catalog.Upload{{ID: "u2", Seq: 2, Status: catalog.UploadDuplicate, Version: 1, Report: &quality.Report{
+				Uploads: []catalog.Upload{{ID: "u2", Seq: 2, Status: catalog.UploadDuplicate, Version: 1, RejectedBefore: 1, Report: &quality.Report{
 					Rows:       quality.Rows{Total: 1, Rejected: 1, Held: 499},
 					Rejections: []quality.RejectionCount{{Reason: "bad_timestamp", Count: 1, Samples: []quality.Sample{{Line: 202}}}}}}}}
 		case "version":
@@ -77,7 +77,7 @@ func TestRenderEveryPage(t *testing.T) {
 		}
 		// A re-send's refused rows are counted among the file's rows,
 		// held ones included (quality.Rows.InFile).
-		if name == "dataset" && !strings.Contains(b.String(), "Rows refused, by reason (1 of 500)") {
+		if name == "dataset" && !strings.Contains(b.String(), "Rows refused, by reason (1 of 500; 1 refused before, sent again)") {
 			t.Error("the dataset page does not count a re-send's refused rows among the file's")
 		}
 		// A version counts a re-sent refused row once, and says so.
