@@ -143,3 +143,60 @@ func TestResentBrokenRowCountsOnce(t *testing.T) {
 		t.Errorf("rebuilt from the files:\n%s\nby appends:\n%s", a, b)
 	}
 }
+
+// TestResentBrokenRowAfterReplaceWindow: a replace-window rewrites the
+// first night's file without its events in the window, and its report
+// with them goes (a rewritten file's report holds no rejected rows): the
+// broken row the replacement sends again is then counted once, as the
+// replacement's, and not as one rejected before.
+func TestResentBrokenRowAfterReplaceWindow(t *testing.T) {
+	lines := sepsisLines(t)
+	head, rows := lines[0], slices.Clone(lines[1:1001])
+	cols := strings.Split(head, ";")
+	ts := slices.Index(cols, "Complete Timestamp")
+	f := strings.Split(rows[300], ";")
+	f[ts] = "2014/13/45 08:00:00.000"
+	broken := strings.Join(f, ";")
+	rows[300] = broken
+	e, _ := sepsisDataset(t)
+	body := func(rs []string) []byte { return []byte(head + "\n" + strings.Join(rs, "\n") + "\n") }
+	e.ingest(t, "p", "sepsis", body(rows), "night1.csv")
+
+	// The window: October 2014 (Amsterdam time, as the profile reads the
+	// log); the replacement sends that month's rows again and the broken row.
+	ams, err := time.LoadLocation("Europe/Amsterdam")
+	if err != nil {
+		t.Fatal(err)
+	}
+	from, to := time.Date(2014, 10, 1, 0, 0, 0, 0, ams), time.Date(2014, 11, 1, 0, 0, 0, 0, ams)
+	var again []string
+	for _, r := range rows {
+		at, err := time.ParseInLocation("2006/01/02 15:04:05.000", strings.Split(r, ";")[ts], ams)
+		if err == nil && !at.Before(from) && at.Before(to) {
+			again = append(again, r)
+		}
+	}
+	if len(again) == 0 || len(again) == len(rows)-1 {
+		t.Fatalf("%d rows in the window: the test needs some of the file's rows, not all", len(again))
+	}
+	again = append(again, broken)
+	res, err := e.ingestOpt(t, "p", "sepsis", body(again), IngestOptions{Filename: "october.csv", Mode: ModeReplaceWindow, From: from, To: to})
+	if err != nil || res.Version == nil {
+		t.Fatalf("replace-window: %v", err)
+	}
+	rewritten := 0
+	for _, f := range res.Version.Manifest.Files {
+		if f.DerivedFrom != nil {
+			rewritten++
+		}
+	}
+	if rewritten != 1 {
+		t.Fatalf("%d files rewritten, want the first night's", rewritten)
+	}
+	if res.Upload.RejectedBefore != 0 {
+		t.Errorf("%d rows rejected before, want 0 (the rewritten file's rejected rows are not the version's)", res.Upload.RejectedBefore)
+	}
+	if r := e.report(t, res.Version).Rows; r.Rejected != 1 || r.Again != 0 || r.Accepted != res.Version.Manifest.Rows {
+		t.Errorf("version rows %+v, want 1 rejected, none again, %d accepted", r, res.Version.Manifest.Rows)
+	}
+}
