@@ -47,17 +47,12 @@ type rejectedRow struct {
 // rejectedRows are an upload's rejected rows, as identified.
 type rejectedRows struct {
 	rows []rejectedRow
-	over int64 // rejected rows past maxRejectedRowKeys, not identified
 }
 
-// add keys and keeps one rejected row (rows the reader could not identify
-// are not kept).
+// add keys and keeps one rejected row (rows the reader could not identify,
+// and those past maxRejectedRowKeys, are not kept).
 func (rr *rejectedRows) add(pz *anonymize.Pseudonymizer, rej *schema.Rejection) {
-	if rr == nil || rej.Row.IsZero() {
-		return
-	}
-	if len(rr.rows) >= maxRejectedRowKeys {
-		rr.over++
+	if rr == nil || rej.Row.IsZero() || len(rr.rows) >= maxRejectedRowKeys {
 		return
 	}
 	rr.rows = append(rr.rows, rejectedRow{key: pz.RowKey(rej.Row), line: rej.Line, reason: rej.Reason})

@@ -2,14 +2,19 @@ package catalog
 
 import (
 	"context"
+	"crypto/sha256"
 	"encoding/csv"
 	"encoding/json"
+	"fmt"
 	"io"
 	"reflect"
 	"slices"
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/flowcat-catalog/flowcat/anonymize"
+	"github.com/flowcat-catalog/flowcat/schema"
 )
 
 // brokenRows counts, with the standard library alone (encoding/csv and
@@ -198,5 +203,39 @@ func TestResentBrokenRowAfterReplaceWindow(t *testing.T) {
 	}
 	if r := e.report(t, res.Version).Rows; r.Rejected != 1 || r.Again != 0 || r.Accepted != res.Version.Manifest.Rows {
 		t.Errorf("version rows %+v, want 1 rejected, none again, %d accepted", r, res.Version.Manifest.Rows)
+	}
+}
+
+// TestRejectedRowsBound: an upload identifies at most maxRejectedRowKeys
+// rejected rows, the first ones; rows without a digest are not kept; the
+// packed form reads back as written.
+func TestRejectedRowsBound(t *testing.T) {
+	mk, err := anonymize.GenerateMasterKey()
+	if err != nil {
+		t.Fatal(err)
+	}
+	sk, err := anonymize.NewProjectKey(mk, "p")
+	if err != nil {
+		t.Fatal(err)
+	}
+	pz, err := anonymize.OpenProjectKey(mk, "p", sk)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var rr rejectedRows
+	rr.add(pz, &schema.Rejection{Line: 1, Reason: schema.ReasonMalformedRow}) // no digest
+	for i := range maxRejectedRowKeys + 10 {
+		rej := schema.Rejection{Line: int64(i + 2), Reason: schema.ReasonBadTimestamp, Row: schema.RowDigest(sha256.Sum256([]byte(fmt.Sprint(i))))}
+		rr.add(pz, &rej)
+	}
+	if len(rr.rows) != maxRejectedRowKeys || rr.rows[0].line != 2 || rr.rows[len(rr.rows)-1].line != maxRejectedRowKeys+1 {
+		t.Fatalf("%d rows kept, lines %d..%d", len(rr.rows), rr.rows[0].line, rr.rows[len(rr.rows)-1].line)
+	}
+	back, err := decodeRejectedRows(encodeRejectedRows(rr.rows))
+	if err != nil || !reflect.DeepEqual(back, rr.rows) {
+		t.Fatalf("packed rows read back differently: %v", err)
+	}
+	if _, err := decodeRejectedRows(encodeRejectedRows(rr.rows[:2])[:20]); err == nil {
+		t.Error("a truncated record reads back without an error")
 	}
 }
