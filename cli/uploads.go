@@ -51,6 +51,9 @@ no size: the bytes read before it failed are in its note.`,
 					}
 					notes = append(notes, where)
 				}
+				if n := u.RejectedBefore; n > 0 {
+					notes = append(notes, fmt.Sprintf("%d of the rejected rows rejected before (sent again)", n))
+				}
 				if ev := u.Events; ev != nil {
 					if ev.Held > 0 {
 						notes = append(notes, fmt.Sprintf("%d of %d events already held", ev.Held, ev.Read))
