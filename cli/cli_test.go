@@ -86,6 +86,31 @@ func waitFor(t *testing.T, what string, fn func() string) string {
 
 var urlRE = regexp.MustCompile(`"url":"(http://127\.0\.0\.1:\d+)"`)
 
+// serveAdmin initializes a data folder, serves it on a free loopback port
+// with flags, and returns the folder and the environment of an admin's
+// token for the commands.
+func serveAdmin(t *testing.T, flags ...string) (data string, env map[string]string) {
+	t.Helper()
+	data = filepath.Join(t.TempDir(), "data")
+	t.Setenv("FLOWCAT_MASTER_KEY", "")
+	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
+	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
+		t.Fatalf("init: exit %d: %s", code, errs)
+	}
+	_, serveErr, _ := background(t, append([]string{"serve", "--data", data, "--addr", "127.0.0.1:0"}, flags...)...)
+	url := waitFor(t, "the server's URL in its log", func() string {
+		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
+			return m[1]
+		}
+		return ""
+	})
+	code, tok, errs := run(t, nil, "token", "issue", "--data", data, "--role", "admin", "--subject", "ops")
+	if code != 0 {
+		t.Fatalf("token: %s", errs)
+	}
+	return data, map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": strings.TrimSpace(tok)}
+}
+
 const header = "site,case_id,subject_id,resource_id,event_type,activity,queue,occurred_at\n"
 
 // night writes a small export in the schema's own column names.

@@ -1,7 +1,6 @@
 package cli_test
 
 import (
-	"path/filepath"
 	"strings"
 	"testing"
 )
@@ -9,25 +8,7 @@ import (
 // TestServeLimits: serve's reader-limit flags reach the uploads, and a file
 // over a limit exits 1 naming the file, the rule and the limit.
 func TestServeLimits(t *testing.T) {
-	dir := t.TempDir()
-	data := filepath.Join(dir, "data")
-	t.Setenv("FLOWCAT_MASTER_KEY", "")
-	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
-	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
-		t.Fatalf("init: exit %d: %s", code, errs)
-	}
-	_, serveErr, _ := background(t, "serve", "--data", data, "--addr", "127.0.0.1:0", "--max-rows", "3", "--max-columns", "6", "--max-line-bytes", "200")
-	url := waitFor(t, "the server's URL in its log", func() string {
-		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
-			return m[1]
-		}
-		return ""
-	})
-	code, tok, errs := run(t, nil, "token", "issue", "--data", data, "--role", "admin", "--subject", "ops")
-	if code != 0 {
-		t.Fatalf("token: %s", errs)
-	}
-	env := map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": strings.TrimSpace(tok)}
+	_, env := serveAdmin(t, "--max-rows", "3", "--max-columns", "6", "--max-line-bytes", "200")
 	if code, _, errs := run(t, env, "project", "create", "flow"); code != 0 {
 		t.Fatal(errs)
 	}

@@ -36,25 +36,7 @@ func TestResentBrokenRow(t *testing.T) {
 	f[ts] = "2014/13/45 08:00:00.000"
 	rows[300] = strings.Join(f, ";")
 
-	dir := t.TempDir()
-	data := filepath.Join(dir, "data")
-	t.Setenv("FLOWCAT_MASTER_KEY", "")
-	t.Setenv("FLOWCAT_MASTER_KEY_FILE", "")
-	if code, _, errs := run(t, nil, "init", "--data", data); code != 0 {
-		t.Fatalf("init: exit %d: %s", code, errs)
-	}
-	_, serveErr, _ := background(t, "serve", "--data", data, "--addr", "127.0.0.1:0")
-	url := waitFor(t, "the server's URL in its log", func() string {
-		if m := urlRE.FindStringSubmatch(serveErr.String()); m != nil {
-			return m[1]
-		}
-		return ""
-	})
-	code, tok, errs := run(t, nil, "token", "issue", "--data", data, "--role", "admin", "--subject", "ops")
-	if code != 0 {
-		t.Fatalf("token: %s", errs)
-	}
-	env := map[string]string{"FLOWCAT_SERVER": url, "FLOWCAT_TOKEN": strings.TrimSpace(tok)}
+	_, env := serveAdmin(t)
 	if code, _, errs := run(t, env, "project", "create", "lab"); code != 0 {
 		t.Fatal(errs)
 	}
