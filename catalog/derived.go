@@ -523,31 +523,23 @@ func (s *Store) reportOfFile(f FileEntry, ref string) (*quality.Report, error) {
 // merge of every file's report (rewritten files have a report computed as
 // they were rewritten, without the rejected rows and source lines of their
 // first upload). Either way a rejected row an earlier upload of the version
-// rejected too counts once (rejectedrows.go); entry and rej are the
-// upload's new file (nil for none) and rejected rows.
-func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePlan, rep *quality.Report, mode Mode, entry *FileEntry, rej *rejectedRows) (*quality.Report, error) {
+// rejected too counts once (rejectedrows.go); entry is the upload's new
+// file (nil for none), rp its rows rejected before (repeatsOfUpload).
+func (s *Store) mergeQuality(ctx context.Context, parent *Version, plan *filePlan, rep *quality.Report, mode Mode, entry *FileEntry, rp quality.Repeats) (*quality.Report, error) {
 	ref := parentRef(parent)
-	var newFile *blob.ID
-	if entry != nil {
-		newFile = &entry.SHA256
-	}
 	if mode == ModeAppend && parent != nil && !parent.Quality.SHA256.IsZero() {
 		if pr, err := s.Report(ctx, parent); err == nil {
-			reps, err := s.versionRepeats(ref, plan.files, newFile, rej, true)
-			if err != nil {
-				return nil, err
-			}
-			if newFile != nil {
-				rep = quality.LessRepeats(rep, reps[*newFile])
-			}
-			if r, err := quality.MergeReports(pr, rep); err == nil {
+			if r, err := quality.MergeReports(pr, quality.LessRepeats(rep, rp)); err == nil {
 				return r, nil
 			}
 		}
 	}
-	reps, err := s.versionRepeats(ref, plan.files, newFile, rej, false)
+	reps, err := s.versionRepeats(ref, plan.files)
 	if err != nil {
 		return nil, err
+	}
+	if entry != nil {
+		reps[entry.SHA256] = rp
 	}
 	var rs []*quality.Report
 	for _, f := range plan.files {

@@ -583,9 +583,11 @@ func (s *Store) commit(ctx context.Context, c *toCommit) (*IngestResult, error) 
 		return nil, fmt.Errorf("ingest: %w", err)
 	}
 	if parent != nil && sameFiles(parent.Manifest.Files, plan.files) {
-		if up.RejectedBefore, err = s.rejectedBefore(ds.Ref().String(), parent.Manifest.Files, c.rej); err != nil {
+		rp, err := s.repeatsOfUpload(ds.Ref().String(), parent.Manifest.Files, c.rej)
+		if err != nil {
 			return nil, fmt.Errorf("ingest: %w", err)
 		}
+		up.RejectedBefore = rp.N()
 		return s.duplicate(ctx, ds, *up, parent)
 	}
 	if parent == nil && len(plan.files) == 0 {
@@ -662,9 +664,13 @@ func (s *Store) deriveVersion(ctx context.Context, c *toCommit, parent *Version,
 	if c.entry != nil {
 		plan.reports[c.entry.SHA256] = frep
 	}
-	merged, err := s.mergeQuality(ctx, parent, plan, frep, mergeMode(opt.Mode, plan), c.entry, c.rej)
+	// The upload's rows that an upload of the new version rejected too:
+	// counted on the upload, and once in the version's report.
+	rp, err := s.repeatsOfUpload(ds.Ref().String(), plan.files, c.rej)
+	var merged *quality.Report
 	if err == nil {
-		up.RejectedBefore, err = s.rejectedBefore(ds.Ref().String(), plan.files, c.rej)
+		up.RejectedBefore = rp.N()
+		merged, err = s.mergeQuality(ctx, parent, plan, frep, mergeMode(opt.Mode, plan), c.entry, rp)
 	}
 	if err != nil {
 		nv.release()

@@ -155,51 +155,40 @@ func repeatsIn(tx *bolt.Tx, ref string, in map[int]bool, rows []rejectedRow, bef
 	return rp
 }
 
-// rejectedBefore counts the rows of rr that an upload of files (a
-// version's) rejected too.
-func (s *Store) rejectedBefore(ref string, files []FileEntry, rr *rejectedRows) (int64, error) {
+// repeatsOfUpload returns the rows of rr (the upload being committed)
+// that an upload of files (a version's) rejected too.
+func (s *Store) repeatsOfUpload(ref string, files []FileEntry, rr *rejectedRows) (quality.Repeats, error) {
+	var rp quality.Repeats
 	if rr == nil || len(rr.rows) == 0 {
-		return 0, nil
+		return rp, nil
 	}
-	var n int64
 	err := s.db.View(func(tx *bolt.Tx) error {
-		rp := repeatsIn(tx, ref, uploadsCounted(files), rr.rows, math.MaxInt32)
-		n = rp.N()
+		rp = repeatsIn(tx, ref, uploadsCounted(files), rr.rows, math.MaxInt32)
 		return nil
 	})
-	return n, err
+	return rp, err
 }
 
-// versionRepeats returns, per file of files (a version's, in any order),
-// its upload's rejected rows that an earlier upload of the version
-// rejected too. Only files as uploaded count (uploadsCounted). The upload
-// being committed (newRows, its file newFile; nil for none) is the
-// latest. With onlyNew, only its file is looked at (the parent's report
-// has the others' counted already).
-func (s *Store) versionRepeats(ref string, files []FileEntry, newFile *blob.ID, newRows *rejectedRows, onlyNew bool) (map[blob.ID]quality.Repeats, error) {
+// versionRepeats returns, per stored file of files (a version's, in any
+// order), its upload's rejected rows that an earlier upload of the
+// version rejected too. Only files as uploaded count (uploadsCounted);
+// the upload being committed has its own (repeatsOfUpload).
+func (s *Store) versionRepeats(ref string, files []FileEntry) (map[blob.ID]quality.Repeats, error) {
 	in := uploadsCounted(files)
 	out := map[blob.ID]quality.Repeats{}
 	err := s.db.View(func(tx *bolt.Tx) error {
 		for _, f := range files {
-			var rows []rejectedRow
 			seq := f.Upload.Seq()
-			switch {
-			case newFile != nil && f.SHA256 == *newFile && f.Upload == "":
-				if newRows != nil {
-					rows = newRows.rows
-				}
-				seq = math.MaxInt32
-			case onlyNew || f.DerivedFrom != nil || seq == 0:
+			if f.DerivedFrom != nil || seq == 0 {
 				continue
-			default:
-				v := tx.Bucket(bucketRejectedRows).Get(seqKey(ref, seq))
-				if v == nil {
-					continue
-				}
-				var err error
-				if rows, err = decodeRejectedRows(v); err != nil {
-					return fmt.Errorf("upload %d of %s: %w", seq, ref, err)
-				}
+			}
+			v := tx.Bucket(bucketRejectedRows).Get(seqKey(ref, seq))
+			if v == nil {
+				continue
+			}
+			rows, err := decodeRejectedRows(v)
+			if err != nil {
+				return fmt.Errorf("upload %d of %s: %w", seq, ref, err)
 			}
 			if rp := repeatsIn(tx, ref, in, rows, seq); rp.N() > 0 {
 				out[f.SHA256] = rp

@@ -14,6 +14,7 @@ import (
 	"time"
 
 	"github.com/flowcat-catalog/flowcat/anonymize"
+	"github.com/flowcat-catalog/flowcat/quality"
 	"github.com/flowcat-catalog/flowcat/schema"
 )
 
@@ -138,7 +139,7 @@ func TestResentBrokenRowCountsOnce(t *testing.T) {
 	}
 
 	// Every file's report merged again, as a replacement merges them.
-	rebuilt, err := e.s.mergeQuality(context.Background(), v, &filePlan{files: v.Manifest.Files}, nil, ModeReplaceAll, nil, nil)
+	rebuilt, err := e.s.mergeQuality(context.Background(), v, &filePlan{files: v.Manifest.Files}, nil, ModeReplaceAll, nil, quality.Repeats{})
 	if err != nil {
 		t.Fatal(err)
 	}
