@@ -179,7 +179,8 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	f.held.evict(at - f.around)
 	if f.src != nil {
 		err := f.src.load(ctx, at-f.around, at+f.around, func(h *schema.Event, file int, row int64) bool {
-			hash := identityHash(f.seed, &f.key, f.id, h)
+			f.hrec = appendWindowRecord(f.hrec[:0], h)
+			hash := identityHashRec(f.seed, &f.key, f.id, h, f.hrec)
 			if !f.ids.mayHold(hash) {
 				return true
 			}
@@ -187,7 +188,6 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 			if !f.room(e.OccurredAt, hAt) {
 				return false // it waits in its file
 			}
-			f.hrec = appendWindowRecord(f.hrec[:0], h)
 			f.held.add(heldEntry{slot: slot{at: hAt, hash: hash}, check: maphash.Bytes(f.check, f.key),
 				sum: f.contentSum(f.hrec), row: row, file: int32(file)})
 			f.peak = max(f.peak, f.held.cost()+f.seen.cost())
@@ -203,9 +203,9 @@ func (f *heldFilter) classify(ctx context.Context, e *schema.Event) (bool, error
 	}
 	f.counts.Read++
 	site.Read++
-	h := identityHash(f.seed, &f.key, f.id, e)
-	check := maphash.Bytes(f.check, f.key)
 	f.rec = appendWindowRecord(f.rec[:0], e)
+	h := identityHashRec(f.seed, &f.key, f.id, e, f.rec)
+	check := maphash.Bytes(f.check, f.key)
 	if prev, ok := f.seen.find(h, f.id, e, f.rec); ok {
 		if sameContent(prev.rec, f.rec) {
 			f.counts.Copies++

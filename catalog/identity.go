@@ -261,6 +261,17 @@ func identityHash(seed maphash.Seed, buf *[]byte, id Identity, e *schema.Event) 
 	return maphash.Bytes(seed, *buf)
 }
 
+// identityHashRec is identityHash of e, whose window record
+// (appendWindowRecord) rec is at hand: a content identity's bytes are a
+// mark and that record, copied rather than built again.
+func identityHashRec(seed maphash.Seed, buf *[]byte, id Identity, e *schema.Event, rec []byte) uint64 {
+	if id == IdentityEventID && e.EventID != "" {
+		return identityHash(seed, buf, id, e)
+	}
+	*buf = append(append((*buf)[:0], 2), rec...)
+	return maphash.Bytes(seed, *buf)
+}
+
 // sameIdentityRecord reports whether an event kept in a window, as its
 // window record r (held.go), and e, whose record is rec, are one event
 // under id: the same site and event_id where the kept one has an

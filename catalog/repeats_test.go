@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"hash/maphash"
 	"testing"
+	"time"
 
 	"github.com/parquet-go/parquet-go/bloom"
 
@@ -97,6 +98,29 @@ func TestLayeredBloomBound(t *testing.T) {
 	for i := range 100_000 {
 		if !b.test(key(i)) {
 			t.Fatalf("key %d added, answered no", i)
+		}
+	}
+}
+
+// TestIdentityHashRec: the identity hashed from an event's window record
+// at hand is the one identityHash gives, under either identity, with and
+// without an event id (the held filter and the upload's filters must
+// agree, or a repeat would be missed).
+func TestIdentityHashRec(t *testing.T) {
+	seed := maphash.MakeSeed()
+	at := time.Date(2026, 3, 1, 8, 0, 0, 0, time.UTC)
+	evs := []schema.Event{
+		{Site: "north", CaseID: "c1", Type: schema.Arrival, OccurredAt: at, EventID: "e1"},
+		{Site: "north", CaseID: "c1", Type: schema.Arrival, OccurredAt: at},
+		{Site: "south", CaseID: "c2", Type: schema.Start, Queue: "q", OccurredAt: at.Add(time.Second), Outcome: "x"},
+	}
+	var a, b, rec []byte
+	for _, id := range []Identity{IdentityContent, IdentityEventID} {
+		for i := range evs {
+			rec = appendWindowRecord(rec[:0], &evs[i])
+			if got, want := identityHashRec(seed, &b, id, &evs[i], rec), identityHash(seed, &a, id, &evs[i]); got != want || string(a) != string(b) {
+				t.Errorf("%s, event %d: %x from the record, %x from the event", id, i, got, want)
+			}
 		}
 	}
 }
