@@ -18,7 +18,6 @@ import (
 	"strings"
 	"time"
 
-	"github.com/klauspost/compress/s2"
 	bolt "go.etcd.io/bbolt"
 
 	"github.com/flowcat-catalog/flowcat/catalog/blob"
@@ -697,7 +696,7 @@ func (g *groupBuild) close() {
 type groupWriter struct {
 	ev, keys     *os.File
 	evb, kw      *bufio.Writer
-	evw          *s2.Writer // over evb
+	evw          *runWriter // over evb
 	evh, kh      hash.Hash
 	evn          int64
 	count, cases int64

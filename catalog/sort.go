@@ -12,8 +12,6 @@ import (
 	"slices"
 	"time"
 
-	"github.com/klauspost/compress/s2"
-
 	"github.com/flowcat-catalog/flowcat/catalog/internal/kway"
 	"github.com/flowcat-catalog/flowcat/schema"
 	"github.com/flowcat-catalog/flowcat/schema/cases"
@@ -48,7 +46,7 @@ type sorter struct {
 	runs    []*os.File
 	enc     []byte
 	inter   map[string]string
-	rw      *s2.Writer // the writer of every run, reset for each (runWriter)
+	rw      *runWriter // the writer of every run, reset for each (runWriter)
 	// spilled is the largest buffer spilled so far (records' bytes,
 	// events): the size a new buffer starts at.
 	spilled struct{ bytes, events int }
@@ -404,7 +402,7 @@ func (s *sorter) writeRun(f *os.File, buf *runBuf, wk *spillWork) error {
 // sort rather than once per run. Runs are written one at a time (a spill
 // waits for the one before it; merges of the oldest runs follow the last
 // spill).
-func (s *sorter) runWriter(f io.Writer) *s2.Writer {
+func (s *sorter) runWriter(f io.Writer) *runWriter {
 	if s.rw == nil {
 		s.rw = newRunWriter(f)
 	} else {
