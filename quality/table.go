@@ -182,6 +182,7 @@ func (t *table) slotCount() int {
 func (sh *shard) resize(size int) {
 	old := sh.slots
 	sh.slots = make([]slot, size)
+	touch(sh.slots)
 	sh.mask = uint64(size - 1)
 	for _, s := range old {
 		if s.key != 0 {
@@ -244,6 +245,20 @@ func (sh *shard) remove(i uint64) {
 		}
 		sh.slots[i] = sh.slots[j]
 		i = j
+	}
+}
+
+// touch writes a zero into each 4 KiB page of slots. A large slice comes
+// from memory fresh from the system, which a lookup would first read
+// (mapping the kernel's shared zero page) and then write (a second fault,
+// which copies that page and makes the other cores drop the old mapping
+// from their TLBs, an interrupt each); written first, each page costs one
+// fault. A perf profile of a 1M-event upload put 0.6% of the server's CPU
+// in those copies under the table's lookups.
+func touch(slots []slot) {
+	const per = 4096 / 16 // slots a page
+	for i := 0; i < len(slots); i += per {
+		slots[i] = slot{}
 	}
 }
 
