@@ -59,7 +59,7 @@ var (
 // maxIdentityBits and maxRepeatBits bound each filter's layers (16 and 8
 // MiB): a filter that would grow past its bound fills its newest layer
 // beyond that layer's capacity instead, and its false positives rise
-// (over about 7 million identities, or 4 million repeats). A false "maybe"
+// (over about 7 million identities, or 2 million repeats). A false "maybe"
 // only puts an event in the held filter's windows, which hold their own
 // bound (Options.ChangeWindowBytes).
 const (
