@@ -1,5 +1,7 @@
 package catalog
 
+import "unsafe"
+
 // batches hands full batches of rows to a goroutine that writes them, so
 // that the writer's work (encoding and compressing a Parquet file, the
 // summaries' per-case work) runs on the other core while the caller
@@ -24,14 +26,14 @@ type batches[T any] struct {
 
 func newBatches[T any](size, depth int, write func([]T) error) *batches[T] {
 	b := &batches[T]{
-		cur:   make([]T, 0, size),
+		cur:   written(make([]T, 0, size)),
 		queue: make(chan []T, depth),
 		free:  make(chan []T, depth+1),
 		done:  make(chan error, 1),
 		open:  true,
 	}
 	for range depth + 1 {
-		b.free <- make([]T, 0, size)
+		b.free <- written(make([]T, 0, size))
 	}
 	go func() {
 		var err error
@@ -45,6 +47,25 @@ func newBatches[T any](size, depth int, write func([]T) error) *batches[T] {
 		b.done <- err
 	}()
 	return b
+}
+
+// written returns s after writing the zero value into each 4 KiB page
+// of its backing array. A batch is large, so it comes from memory fresh
+// from the system, and its element type holds pointers, so the garbage
+// collector may scan it before its first row is written: that read maps
+// the kernel's shared zero page, and the first write then faults again,
+// copies the page and makes the other core drop the old mapping from its
+// TLB (an interrupt). Written first, each page costs one fault (a perf
+// profile of a 1M-event upload: 0.56% of the server's CPU in those
+// copies under the merges' batches).
+func written[T any](s []T) []T {
+	var zero T
+	step := max(1, 4096/int(unsafe.Sizeof(zero)))
+	all := s[:cap(s)]
+	for i := 0; i < len(all); i += step {
+		all[i] = zero
+	}
+	return s
 }
 
 // add appends v, handing the batch on when it is full.

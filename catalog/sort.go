@@ -475,7 +475,7 @@ func (s *sorter) mergeAhead(runs []io.Reader, fn func(*schema.Event) error) erro
 	full := make(chan []schema.Event, batches-1)
 	free := make(chan []schema.Event, batches)
 	for range batches {
-		free <- make([]schema.Event, 0, mergeBatch)
+		free <- written(make([]schema.Event, 0, mergeBatch))
 	}
 	stop := make(chan struct{})
 	perr := make(chan error, 1)
