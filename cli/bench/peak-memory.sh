@@ -10,8 +10,8 @@
 # them), NIGHTS 1 (default: one upload) or more (the file is cut into
 # its dates, then uploaded as that many appends, the dates spread evenly),
 # COLUMN the 1-based column of occurred_at (default 8). It prints one line
-# per upload (seconds, and the server's CPU seconds) and the server's
-# VmHWM. PROFILE, when set, is the dataset's mapping profile. Loopback only.
+# per upload (seconds, the server's CPU seconds and its minor page
+# faults) and the server's VmHWM. PROFILE, when set, is the dataset's mapping profile. Loopback only.
 set -euo pipefail
 bin=$(realpath "$1"); csv=$(realpath "$2"); nights=${3:-1}; col=${4:-8}
 work=$(mktemp -d); trap 'kill "$pid" 2>/dev/null || true; rm -rf "$work"' EXIT
@@ -42,10 +42,12 @@ fi
 # The server's CPU time (user and system, /proc/PID/stat fields 14 and 15)
 # in seconds: on a noisy machine steadier than the elapsed time.
 cpu() { awk -v hz="$(getconf CLK_TCK)" '{ printf "%.2f", ($14 + $15) / hz }' "/proc/$pid/stat"; }
+# Its minor page faults (field 10): about one a 4 KiB page first touched.
+faults() { awk '{ print $10 }' "/proc/$pid/stat"; }
 for p in "${parts[@]}"; do
-  t0=$(date +%s.%N); c0=$(cpu)
+  t0=$(date +%s.%N); c0=$(cpu); f0=$(faults)
   "$bin" upload bench/line "$p" >/dev/null
-  t1=$(date +%s.%N); c1=$(cpu)
-  echo "upload $(basename "$p"): $(echo "$t1 - $t0" | bc) s, server cpu $(echo "$c1 - $c0" | bc) s"
+  t1=$(date +%s.%N); c1=$(cpu); f1=$(faults)
+  echo "upload $(basename "$p"): $(echo "$t1 - $t0" | bc) s, server cpu $(echo "$c1 - $c0" | bc) s, $((f1 - f0)) minor faults"
 done
 grep VmHWM "/proc/$pid/status"
